@@ -1,0 +1,722 @@
+// tenon: the reverse-mode autodiff tape.
+//
+// Recording is eager: each operation computes its value the moment it is
+// recorded and appends a node (operation kind, input node ids, constants,
+// value buffer). backward(loss) walks the nodes in reverse order and adds each
+// node's contribution to the gradients of its inputs, so a value used twice
+// receives both contributions (reverse accumulation; Griewank & Walther,
+// "Evaluating Derivatives", 2nd ed. 2008, ch. 3). Any graph works, not only
+// chains of layers.
+//
+// Reuse: clear() forgets the recording but keeps every node's buffers. When
+// the next step records the same sequence of operations with the same shapes,
+// node i gets back the buffers it had, so a steady-state step allocates
+// nothing. Parameters are not stored on the tape: a parameter node refers to
+// the parameter, and backward adds into parameter::grad().
+#pragma once
+
+#include <array>
+#include <cmath>
+#include <cstddef>
+#include <cstdint>
+#include <limits>
+#include <string>
+#include <vector>
+
+#include "tenon/autodiff/custom_operation.hpp"
+#include "tenon/autodiff/parameter.hpp"
+#include "tenon/core/gemm.hpp"
+#include "tenon/core/matrix.hpp"
+
+TENON_NAMESPACE_BEGIN
+
+/// Kinds of recorded operations.
+enum class op_kind : std::uint8_t {
+    input,      // constant leaf, copied onto the tape
+    variable,   // leaf copied onto the tape that receives a gradient
+    parameter,  // leaf referring to a parameter
+    add, subtract, multiply, divide,
+    matmul,
+    scale, shift,
+    sum_all, mean_all, sum_axis, mean_axis,
+    exp, log, square, sqrt, abs, pow,
+    tanh, sigmoid, relu, leaky_relu, elu, softplus, gelu_erf, gelu_tanh,
+    logsumexp_rows, log_softmax_rows,
+    clamp, stop_gradient,
+    custom,
+};
+
+inline const char* op_name(op_kind k) noexcept {
+    switch (k) {
+        case op_kind::input: return "input";
+        case op_kind::variable: return "variable";
+        case op_kind::parameter: return "parameter";
+        case op_kind::add: return "add";
+        case op_kind::subtract: return "subtract";
+        case op_kind::multiply: return "multiply";
+        case op_kind::divide: return "divide";
+        case op_kind::matmul: return "matmul";
+        case op_kind::scale: return "scale";
+        case op_kind::shift: return "shift";
+        case op_kind::sum_all: return "sum";
+        case op_kind::mean_all: return "mean";
+        case op_kind::sum_axis: return "sum_axis";
+        case op_kind::mean_axis: return "mean_axis";
+        case op_kind::exp: return "exp";
+        case op_kind::log: return "log";
+        case op_kind::square: return "square";
+        case op_kind::sqrt: return "sqrt";
+        case op_kind::abs: return "abs";
+        case op_kind::pow: return "pow";
+        case op_kind::tanh: return "tanh";
+        case op_kind::sigmoid: return "sigmoid";
+        case op_kind::relu: return "relu";
+        case op_kind::leaky_relu: return "leaky_relu";
+        case op_kind::elu: return "elu";
+        case op_kind::softplus: return "softplus";
+        case op_kind::gelu_erf: return "gelu";
+        case op_kind::gelu_tanh: return "gelu_tanh";
+        case op_kind::logsumexp_rows: return "logsumexp_rows";
+        case op_kind::log_softmax_rows: return "log_softmax_rows";
+        case op_kind::clamp: return "clamp";
+        case op_kind::stop_gradient: return "stop_gradient";
+        case op_kind::custom: return "custom";
+    }
+    return "unknown";
+}
+
+template <class T>
+class tape;
+
+/// A value recorded on a tape: a cheap handle (tape, node id, generation).
+template <class T>
+class var {
+public:
+    var() = default;
+
+    tape<T>* owner() const noexcept { return tape_; }
+    std::uint32_t id() const noexcept { return id_; }
+    std::uint64_t generation() const noexcept { return generation_; }
+    bool valid() const noexcept { return tape_ != nullptr; }
+
+    const matrix<T>& value() const;
+    shape2 shape() const { return shape_of(value()); }
+
+private:
+    friend class tape<T>;
+    var(tape<T>* t, std::uint32_t id, std::uint64_t generation) noexcept : tape_(t), id_(id), generation_(generation) {}
+
+    tape<T>* tape_ = nullptr;
+    std::uint32_t id_ = 0;
+    std::uint64_t generation_ = 0;
+};
+
+namespace detail {
+
+inline constexpr std::size_t max_operands = 4;
+
+template <class T>
+struct tape_node {
+    op_kind kind = op_kind::input;
+    std::uint8_t input_count = 0;
+    bool needs_grad = false;
+    bool grad_ready = false;
+    std::array<std::uint32_t, max_operands> inputs{};
+    T a = T(0);  // operation constant (scale factor, slope, exponent, lower bound)
+    T b = T(0);  // second constant (upper bound)
+    int axis = 0;
+    bool transpose_a = false;
+    bool transpose_b = false;
+    matrix<T> value;
+    matrix<T> grad;
+    parameter<T>* param = nullptr;
+    const custom_operation<T>* custom = nullptr;
+};
+
+template <class T>
+T stable_sigmoid(T x) noexcept {
+    if (x >= T(0)) return T(1) / (T(1) + std::exp(-x));
+    const T e = std::exp(x);
+    return e / (T(1) + e);
+}
+
+// softplus(x) = log(1 + e^x) = max(x, 0) + log1p(e^-|x|), finite for any x.
+template <class T>
+T stable_softplus(T x) noexcept {
+    return (x > T(0) ? x : T(0)) + std::log1p(std::exp(-std::abs(x)));
+}
+
+// GELU constants (Hendrycks & Gimpel 2016, "Gaussian Error Linear Units", eq. 2
+// and the tanh approximation in section 2): sqrt(2/pi) and 0.044715.
+inline constexpr double gelu_sqrt_2_over_pi = 0.79788456080286535587989211986876;
+inline constexpr double gelu_cubic = 0.044715;
+inline constexpr double inv_sqrt2 = 0.70710678118654752440084436210485;
+inline constexpr double inv_sqrt_2pi = 0.39894228040143267793994605993438;
+
+}  // namespace detail
+
+template <class T>
+class tape {
+    TENON_REQUIRE_SCALAR(T);
+
+public:
+    tape() = default;
+    tape(const tape&) = delete;
+    tape& operator=(const tape&) = delete;
+
+    /// Forgets the recording, keeping every buffer for the next step. Values
+    /// recorded before clear() become invalid (using one is an error).
+    void clear() noexcept {
+        count_ = 0;
+        ++generation_;
+    }
+
+    /// Number of nodes recorded since the last clear().
+    std::size_t size() const noexcept { return count_; }
+
+    /// When on, every recorded value and every gradient is checked for NaN and
+    /// infinity, and the first offender raises autodiff.non_finite naming the
+    /// operation. Off by default: it costs a pass over every buffer.
+    void set_check_finite(bool on) noexcept { check_finite_ = on; }
+    bool check_finite() const noexcept { return check_finite_; }
+
+    // ----- leaves ------------------------------------------------------------
+
+    /// Records a constant (no gradient), copying it onto the tape.
+    var<T> input(const matrix<T>& m) { return leaf(op_kind::input, m.data(), shape_of(m)); }
+    /// Records a constant from a row-major buffer of rows x cols values.
+    var<T> input(const T* data, std::size_t rows, std::size_t cols) { return leaf(op_kind::input, data, {rows, cols}); }
+    /// Records a leaf that receives a gradient (read it with grad()).
+    var<T> variable(const matrix<T>& m) { return leaf(op_kind::variable, m.data(), shape_of(m)); }
+    /// A 1x1 constant.
+    var<T> scalar(T v) { return leaf(op_kind::input, &v, {1, 1}); }
+
+    /// Records a reference to a parameter; backward adds into its grad().
+    var<T> watch(parameter<T>& p) {
+        const shape2 s = p.shape();
+        if (shape_of(p.grad()) != s) {
+            ensure_shape(p.grad(), s);
+            p.zero_grad();
+        }
+        auto& n = push(op_kind::parameter, {}, 0, s, /*allocate_value=*/false);
+        n.param = &p;
+        n.needs_grad = p.trainable();
+        return finish(n);
+    }
+
+    // ----- operations (see operations.hpp for the free-function spelling) ---
+
+    var<T> binary(op_kind kind, var<T> x, var<T> y) {
+        const shape2 sx = shape_of(value_of(x)), sy = shape_of(value_of(y));
+        const shape2 out = broadcast_shape(sx, sy, kind);
+        const std::uint32_t ids[2] = {x.id(), y.id()};
+        auto& n = push(kind, ids, 2, out);
+        return finish(n);
+    }
+
+    var<T> matmul(var<T> x, var<T> y, bool transpose_x, bool transpose_y) {
+        const shape2 sx = shape_of(value_of(x)), sy = shape_of(value_of(y));
+        const shape2 ox = transpose_x ? shape2{sx.cols, sx.rows} : sx;
+        const shape2 oy = transpose_y ? shape2{sy.cols, sy.rows} : sy;
+        if (ox.cols != oy.rows) {
+            raise(codes::shape_mismatch, std::string("matmul: inner dimensions differ: left operand ") + to_string(sx) +
+                                             (transpose_x ? " (transposed)" : "") + ", right operand " + to_string(sy) +
+                                             (transpose_y ? " (transposed)" : ""));
+        }
+        const std::uint32_t ids[2] = {x.id(), y.id()};
+        auto& n = push(op_kind::matmul, ids, 2, {ox.rows, oy.cols});
+        n.transpose_a = transpose_x;
+        n.transpose_b = transpose_y;
+        return finish(n);
+    }
+
+    var<T> unary(op_kind kind, var<T> x, T a = T(0), T b = T(0)) {
+        const shape2 sx = shape_of(value_of(x));
+        shape2 out = sx;
+        if (kind == op_kind::sum_all || kind == op_kind::mean_all) out = {1, 1};
+        if (kind == op_kind::logsumexp_rows) out = {sx.rows, 1};
+        if ((kind == op_kind::logsumexp_rows || kind == op_kind::log_softmax_rows) && sx.cols == 0) {
+            raise(codes::shape_mismatch, std::string(op_name(kind)) + ": needs at least one column, got " + to_string(sx));
+        }
+        if (kind == op_kind::clamp && !(a <= b)) {
+            raise(codes::invalid_argument, "clamp: lower bound " + std::to_string(a) + " exceeds upper bound " + std::to_string(b));
+        }
+        const std::uint32_t ids[1] = {x.id()};
+        auto& n = push(kind, ids, 1, out);
+        n.a = a;
+        n.b = b;
+        if (kind == op_kind::stop_gradient) n.needs_grad = false;
+        return finish(n);
+    }
+
+    /// Sum or mean over one axis: axis 0 sums over rows (result 1 x cols),
+    /// axis 1 over columns (result rows x 1).
+    var<T> reduce_axis(op_kind kind, var<T> x, int axis) {
+        const shape2 sx = shape_of(value_of(x));
+        if (axis != 0 && axis != 1) {
+            raise(codes::invalid_argument, std::string(op_name(kind)) + ": axis must be 0 (over rows) or 1 (over columns), got " + std::to_string(axis));
+        }
+        const std::uint32_t ids[1] = {x.id()};
+        auto& n = push(kind, ids, 1, axis == 0 ? shape2{1, sx.cols} : shape2{sx.rows, 1});
+        n.axis = axis;
+        return finish(n);
+    }
+
+    /// Records a host-defined operation with up to four inputs.
+    var<T> apply(const custom_operation<T>& op, std::initializer_list<var<T>> operands) {
+        if (operands.size() > detail::max_operands) {
+            raise(codes::too_many_inputs, std::string("custom operation '") + op.name() + "': " + std::to_string(operands.size()) +
+                                              " inputs given, at most " + std::to_string(detail::max_operands) + " supported");
+        }
+        std::uint32_t ids[detail::max_operands] = {};
+        const matrix<T>* values[detail::max_operands] = {};
+        std::size_t i = 0;
+        for (const var<T>& v : operands) {
+            values[i] = &value_of(v);
+            ids[i++] = v.id();
+        }
+        const shape2 out = op.output_shape(operand_list<T>{values, i});
+        auto& n = push(op_kind::custom, ids, i, out, true, &op);
+        return finish(n);
+    }
+
+    // ----- reading back -----------------------------------------------------
+
+    const matrix<T>& value(var<T> v) const { return value_of(v); }
+
+    /// Gradient of the last backward() with respect to v (zero if v did not
+    /// influence the loss). For a parameter node this is the parameter's grad.
+    const matrix<T>& grad(var<T> v) {
+        const auto& n = node_of(v);
+        if (n.kind == op_kind::parameter) return n.param->grad();
+        auto& node = nodes_[v.id()];
+        if (!node.grad_ready) {
+            ensure_shape(node.grad, shape_of(node.value));
+            std::fill(node.grad.data(), node.grad.data() + node.grad.size(), T(0));
+            node.grad_ready = true;
+        }
+        return node.grad;
+    }
+
+    /// Reverse pass from a 1x1 value: adds d(loss)/d(parameter) into every
+    /// watched trainable parameter's grad() and fills the nodes' gradients.
+    void backward(var<T> loss) {
+        const auto& l = node_of(loss);
+        if (shape_of(value_of(loss)) != shape2{1, 1}) {
+            raise(codes::backward_not_scalar, std::string("backward from operation #") + std::to_string(loss.id()) + " (" +
+                                                  op_name(l.kind) + ") of shape " + to_string(shape_of(value_of(loss))) +
+                                                  ": reduce it to 1x1 first, e.g. with sum() or mean()");
+        }
+        const std::size_t last = loss.id();
+        for (std::size_t i = 0; i <= last; ++i) {
+            auto& n = nodes_[i];
+            n.grad_ready = false;
+            if (n.needs_grad && n.kind != op_kind::parameter) {
+                ensure_shape(n.grad, shape_of(n.value));
+                std::fill(n.grad.data(), n.grad.data() + n.grad.size(), T(0));
+                n.grad_ready = true;
+            }
+        }
+        if (!l.needs_grad) return;
+        grad_target(loss.id())->data()[0] += T(1);
+        for (std::size_t i = last + 1; i-- > 0;) {
+            auto& n = nodes_[i];
+            if (!n.needs_grad || n.kind == op_kind::input || n.kind == op_kind::variable || n.kind == op_kind::parameter) continue;
+            backward_node(n);
+            if (check_finite_) check_input_grads(i);
+        }
+    }
+
+private:
+    friend class var<T>;
+
+    const detail::tape_node<T>& node_of(var<T> v) const {
+        if (v.owner() != this || v.generation() != generation_ || v.id() >= count_) {
+            raise(codes::foreign_value, v.owner() != this ? "value #" + std::to_string(v.id()) + " was recorded on another tape"
+                                                          : "value #" + std::to_string(v.id()) + " was recorded before the tape was cleared");
+        }
+        return nodes_[v.id()];
+    }
+
+    const matrix<T>& value_of(var<T> v) const {
+        const auto& n = node_of(v);
+        return n.kind == op_kind::parameter ? n.param->value() : n.value;
+    }
+    const matrix<T>& value_at(std::uint32_t id) const {
+        const auto& n = nodes_[id];
+        return n.kind == op_kind::parameter ? n.param->value() : n.value;
+    }
+    // Where gradients for node `id` accumulate, or null if it needs none.
+    matrix<T>* grad_target(std::uint32_t id) {
+        auto& n = nodes_[id];
+        if (!n.needs_grad) return nullptr;
+        return n.kind == op_kind::parameter ? &n.param->grad() : &n.grad;
+    }
+
+    detail::tape_node<T>& push(op_kind kind, const std::uint32_t* ids, std::size_t count, shape2 out,
+                               bool allocate_value = true, const custom_operation<T>* custom = nullptr) {
+        if (count_ == nodes_.size()) nodes_.emplace_back();
+        auto& n = nodes_[count_];
+        n.kind = kind;
+        n.input_count = static_cast<std::uint8_t>(count);
+        n.needs_grad = false;
+        n.grad_ready = false;
+        n.param = nullptr;
+        n.custom = custom;
+        n.a = n.b = T(0);
+        n.axis = 0;
+        n.transpose_a = n.transpose_b = false;
+        for (std::size_t i = 0; i < count; ++i) {
+            n.inputs[i] = ids[i];
+            n.needs_grad = n.needs_grad || nodes_[ids[i]].needs_grad;
+        }
+        if (allocate_value) ensure_shape(n.value, out);
+        return n;
+    }
+
+    var<T> finish(detail::tape_node<T>& n) {
+        const auto id = static_cast<std::uint32_t>(count_);
+        ++count_;
+        if (n.kind != op_kind::input && n.kind != op_kind::variable && n.kind != op_kind::parameter) forward_node(n);
+        if (check_finite_) check_value(id);
+        return var<T>(this, id, generation_);
+    }
+
+    var<T> leaf(op_kind kind, const T* data, shape2 s) {
+        auto& n = push(kind, nullptr, 0, s);
+        std::copy(data, data + s.size(), n.value.data());
+        n.needs_grad = (kind == op_kind::variable);
+        return finish(n);
+    }
+
+    static shape2 broadcast_shape(shape2 x, shape2 y, op_kind kind) {
+        auto fit = [](std::size_t p, std::size_t q, std::size_t& out) {
+            if (p == q || q == 1) { out = p; return true; }
+            if (p == 1) { out = q; return true; }
+            return false;
+        };
+        shape2 out;
+        if (!fit(x.rows, y.rows, out.rows) || !fit(x.cols, y.cols, out.cols)) {
+            raise(codes::shape_mismatch, std::string(op_name(kind)) + ": shapes " + to_string(x) + " and " + to_string(y) +
+                                             " do not broadcast (each dimension must match or be 1)");
+        }
+        return out;
+    }
+
+    void check_value(std::uint32_t id) const {
+        const auto& m = value_at(id);
+        for (std::size_t k = 0; k < m.size(); ++k) {
+            if (!std::isfinite(m.data()[k])) {
+                const std::size_t c = m.shape()[1];
+                raise(codes::non_finite, "operation #" + std::to_string(id) + " (" + op_name(nodes_[id].kind) +
+                                             ") produced " + std::to_string(m.data()[k]) + " at row " + std::to_string(k / c) +
+                                             ", column " + std::to_string(k % c));
+            }
+        }
+    }
+
+    void check_input_grads(std::size_t id) {  // id: the node whose backward just ran
+        const auto& n = nodes_[id];
+        for (std::size_t i = 0; i < n.input_count; ++i) {
+            const matrix<T>* g = grad_target(n.inputs[i]);
+            if (!g) continue;
+            for (std::size_t k = 0; k < g->size(); ++k) {
+                if (!std::isfinite(g->data()[k])) {
+                    raise(codes::non_finite, "backward through operation #" + std::to_string(id) + " (" + op_name(n.kind) +
+                                                 ") produced a gradient of " + std::to_string(g->data()[k]) + " for its input #" +
+                                                 std::to_string(n.inputs[i]));
+                }
+            }
+        }
+    }
+
+    // Broadcast index helpers: element (i, j) of the output reads element
+    // (i or 0, j or 0) of an operand whose dimension is 1.
+    struct bview {
+        std::size_t rstride, cstride;
+        explicit bview(shape2 s) : rstride(s.rows == 1 ? 0 : s.cols), cstride(s.cols == 1 ? 0 : 1) {}
+        std::size_t at(std::size_t i, std::size_t j) const noexcept { return i * rstride + j * cstride; }
+    };
+
+    void forward_node(detail::tape_node<T>& n) {
+        matrix<T>& out = n.value;
+        T* o = out.data();
+        const std::size_t size = out.size();
+        const std::size_t rows = out.shape()[0], cols = out.shape()[1];
+        switch (n.kind) {
+            case op_kind::add: case op_kind::subtract: case op_kind::multiply: case op_kind::divide: {
+                const matrix<T>& x = value_at(n.inputs[0]);
+                const matrix<T>& y = value_at(n.inputs[1]);
+                const bview vx(shape_of(x)), vy(shape_of(y));
+                const T* px = x.data();
+                const T* py = y.data();
+                for (std::size_t i = 0; i < rows; ++i) {
+                    for (std::size_t j = 0; j < cols; ++j) {
+                        const T u = px[vx.at(i, j)], v = py[vy.at(i, j)];
+                        T r;
+                        switch (n.kind) {
+                            case op_kind::add: r = u + v; break;
+                            case op_kind::subtract: r = u - v; break;
+                            case op_kind::multiply: r = u * v; break;
+                            default: r = u / v; break;
+                        }
+                        o[i * cols + j] = r;
+                    }
+                }
+                return;
+            }
+            case op_kind::matmul: {
+                const matrix<T>& x = value_at(n.inputs[0]);
+                const matrix<T>& y = value_at(n.inputs[1]);
+                const std::size_t k = n.transpose_a ? x.shape()[0] : x.shape()[1];
+                gemm<T>(n.transpose_a, n.transpose_b, rows, cols, k, T(1), x.data(), x.shape()[1], y.data(), y.shape()[1], T(0), o, cols);
+                return;
+            }
+            case op_kind::sum_all: case op_kind::mean_all: {
+                const matrix<T>& x = value_at(n.inputs[0]);
+                T s = T(0);
+                for (std::size_t k = 0; k < x.size(); ++k) s += x.data()[k];
+                o[0] = (n.kind == op_kind::mean_all && x.size() > 0) ? s / static_cast<T>(x.size()) : s;
+                return;
+            }
+            case op_kind::sum_axis: case op_kind::mean_axis: {
+                const matrix<T>& x = value_at(n.inputs[0]);
+                const std::size_t xr = x.shape()[0], xc = x.shape()[1];
+                const T* px = x.data();
+                std::fill(o, o + size, T(0));
+                if (n.axis == 0) {
+                    for (std::size_t i = 0; i < xr; ++i)
+                        for (std::size_t j = 0; j < xc; ++j) o[j] += px[i * xc + j];
+                } else {
+                    for (std::size_t i = 0; i < xr; ++i)
+                        for (std::size_t j = 0; j < xc; ++j) o[i] += px[i * xc + j];
+                }
+                if (n.kind == op_kind::mean_axis) {
+                    const std::size_t count = n.axis == 0 ? xr : xc;
+                    if (count > 0)
+                        for (std::size_t k = 0; k < size; ++k) o[k] /= static_cast<T>(count);
+                }
+                return;
+            }
+            case op_kind::logsumexp_rows: case op_kind::log_softmax_rows: {
+                // Shifted by the row maximum so that exp never overflows:
+                // logsumexp(x) = m + log(sum_j exp(x_j - m)), m = max_j x_j.
+                const matrix<T>& x = value_at(n.inputs[0]);
+                const std::size_t xc = x.shape()[1];
+                const T* px = x.data();
+                for (std::size_t i = 0; i < x.shape()[0]; ++i) {
+                    const T* row = px + i * xc;
+                    T m = row[0];
+                    for (std::size_t j = 1; j < xc; ++j) m = row[j] > m ? row[j] : m;
+                    T s = T(0);
+                    for (std::size_t j = 0; j < xc; ++j) s += std::exp(row[j] - m);
+                    const T lse = m + std::log(s);
+                    if (n.kind == op_kind::logsumexp_rows) {
+                        o[i] = lse;
+                    } else {
+                        for (std::size_t j = 0; j < xc; ++j) o[i * xc + j] = row[j] - lse;
+                    }
+                }
+                return;
+            }
+            case op_kind::custom: {
+                const matrix<T>* values[detail::max_operands] = {};
+                for (std::size_t i = 0; i < n.input_count; ++i) values[i] = &value_at(n.inputs[i]);
+                n.custom->forward(operand_list<T>{values, n.input_count}, out);
+                return;
+            }
+            default: break;
+        }
+        // Elementwise unary operations.
+        const T* px = value_at(n.inputs[0]).data();
+        const T a = n.a, b = n.b;
+        for (std::size_t k = 0; k < size; ++k) {
+            const T x = px[k];
+            T r;
+            switch (n.kind) {
+                case op_kind::scale: r = a * x; break;
+                case op_kind::shift: r = x + a; break;
+                case op_kind::exp: r = std::exp(x); break;
+                case op_kind::log: r = std::log(x); break;
+                case op_kind::square: r = x * x; break;
+                case op_kind::sqrt: r = std::sqrt(x); break;
+                case op_kind::abs: r = std::abs(x); break;
+                case op_kind::pow: r = std::pow(x, a); break;
+                case op_kind::tanh: r = std::tanh(x); break;
+                case op_kind::sigmoid: r = detail::stable_sigmoid(x); break;
+                case op_kind::relu: r = x > T(0) ? x : T(0); break;
+                case op_kind::leaky_relu: r = x > T(0) ? x : a * x; break;
+                case op_kind::elu: r = x > T(0) ? x : a * std::expm1(x); break;
+                case op_kind::softplus: r = detail::stable_softplus(x); break;
+                case op_kind::gelu_erf: r = T(0.5) * x * (T(1) + std::erf(x * T(detail::inv_sqrt2))); break;
+                case op_kind::gelu_tanh: {
+                    const T u = T(detail::gelu_sqrt_2_over_pi) * (x + T(detail::gelu_cubic) * x * x * x);
+                    r = T(0.5) * x * (T(1) + std::tanh(u));
+                    break;
+                }
+                case op_kind::clamp: r = x < a ? a : (x > b ? b : x); break;
+                case op_kind::stop_gradient: r = x; break;
+                default: r = x; break;
+            }
+            o[k] = r;
+        }
+    }
+
+    void backward_node(detail::tape_node<T>& n) {
+        const matrix<T>& gm = n.grad;
+        const T* g = gm.data();
+        const std::size_t rows = n.value.shape()[0], cols = n.value.shape()[1];
+        switch (n.kind) {
+            case op_kind::add: case op_kind::subtract: case op_kind::multiply: case op_kind::divide: {
+                const matrix<T>& x = value_at(n.inputs[0]);
+                const matrix<T>& y = value_at(n.inputs[1]);
+                matrix<T>* gx = grad_target(n.inputs[0]);
+                matrix<T>* gy = grad_target(n.inputs[1]);
+                const bview vx(shape_of(x)), vy(shape_of(y));
+                for (std::size_t i = 0; i < rows; ++i) {
+                    for (std::size_t j = 0; j < cols; ++j) {
+                        const T gij = g[i * cols + j];
+                        const std::size_t ix = vx.at(i, j), iy = vy.at(i, j);
+                        const T u = x.data()[ix], v = y.data()[iy];
+                        T dx, dy;
+                        switch (n.kind) {
+                            case op_kind::add: dx = gij; dy = gij; break;
+                            case op_kind::subtract: dx = gij; dy = -gij; break;
+                            case op_kind::multiply: dx = gij * v; dy = gij * u; break;
+                            default: dx = gij / v; dy = -gij * u / (v * v); break;
+                        }
+                        if (gx) gx->data()[ix] += dx;
+                        if (gy) gy->data()[iy] += dy;
+                    }
+                }
+                return;
+            }
+            case op_kind::matmul: {
+                // C = op(A) op(B); dA and dB follow from dC by the product rule
+                // (see DEVELOPERS.md, "matmul backward", for the four cases).
+                const matrix<T>& x = value_at(n.inputs[0]);
+                const matrix<T>& y = value_at(n.inputs[1]);
+                matrix<T>* gx = grad_target(n.inputs[0]);
+                matrix<T>* gy = grad_target(n.inputs[1]);
+                const std::size_t m = rows, nn = cols;
+                const std::size_t k = n.transpose_a ? x.shape()[0] : x.shape()[1];
+                const std::size_t ldx = x.shape()[1], ldy = y.shape()[1];
+                if (gx) {
+                    if (!n.transpose_a) gemm<T>(false, !n.transpose_b, m, k, nn, T(1), g, nn, y.data(), ldy, T(1), gx->data(), k);
+                    else gemm<T>(n.transpose_b, true, k, m, nn, T(1), y.data(), ldy, g, nn, T(1), gx->data(), m);
+                }
+                if (gy) {
+                    if (!n.transpose_b) gemm<T>(!n.transpose_a, false, k, nn, m, T(1), x.data(), ldx, g, nn, T(1), gy->data(), nn);
+                    else gemm<T>(true, n.transpose_a, nn, k, m, T(1), g, nn, x.data(), ldx, T(1), gy->data(), k);
+                }
+                return;
+            }
+            case op_kind::sum_all: case op_kind::mean_all: {
+                matrix<T>* gx = grad_target(n.inputs[0]);
+                const std::size_t count = gx->size();
+                const T d = (n.kind == op_kind::mean_all && count > 0) ? g[0] / static_cast<T>(count) : g[0];
+                for (std::size_t k = 0; k < count; ++k) gx->data()[k] += d;
+                return;
+            }
+            case op_kind::sum_axis: case op_kind::mean_axis: {
+                matrix<T>* gx = grad_target(n.inputs[0]);
+                const std::size_t xr = gx->shape()[0], xc = gx->shape()[1];
+                const std::size_t count = n.axis == 0 ? xr : xc;
+                const T f = (n.kind == op_kind::mean_axis && count > 0) ? T(1) / static_cast<T>(count) : T(1);
+                T* px = gx->data();
+                for (std::size_t i = 0; i < xr; ++i)
+                    for (std::size_t j = 0; j < xc; ++j) px[i * xc + j] += f * g[n.axis == 0 ? j : i];
+                return;
+            }
+            case op_kind::logsumexp_rows: case op_kind::log_softmax_rows: {
+                const matrix<T>& x = value_at(n.inputs[0]);
+                matrix<T>* gx = grad_target(n.inputs[0]);
+                const std::size_t xr = x.shape()[0], xc = x.shape()[1];
+                const T* px = x.data();
+                const T* out = n.value.data();
+                T* pg = gx->data();
+                for (std::size_t i = 0; i < xr; ++i) {
+                    if (n.kind == op_kind::logsumexp_rows) {
+                        // d lse / d x_j = softmax_j = exp(x_j - lse)
+                        for (std::size_t j = 0; j < xc; ++j) pg[i * xc + j] += g[i] * std::exp(px[i * xc + j] - out[i]);
+                    } else {
+                        // y = x - lse(x): dx_j = g_j - softmax_j * sum_k g_k
+                        T gs = T(0);
+                        for (std::size_t j = 0; j < xc; ++j) gs += g[i * xc + j];
+                        for (std::size_t j = 0; j < xc; ++j)
+                            pg[i * xc + j] += g[i * xc + j] - std::exp(out[i * xc + j]) * gs;
+                    }
+                }
+                return;
+            }
+            case op_kind::custom: {
+                const matrix<T>* values[detail::max_operands] = {};
+                matrix<T>* grads[detail::max_operands] = {};
+                for (std::size_t i = 0; i < n.input_count; ++i) {
+                    values[i] = &value_at(n.inputs[i]);
+                    grads[i] = grad_target(n.inputs[i]);
+                }
+                n.custom->backward(operand_list<T>{values, n.input_count}, n.value, gm, grads);
+                return;
+            }
+            default: break;
+        }
+        // Elementwise unary operations: dx = g * f'(x), written with the
+        // output y where that is cheaper or more accurate.
+        matrix<T>* gx = grad_target(n.inputs[0]);
+        if (!gx) return;
+        const T* px = value_at(n.inputs[0]).data();
+        const T* py = n.value.data();
+        T* pg = gx->data();
+        const T a = n.a, b = n.b;
+        const std::size_t size = n.value.size();
+        for (std::size_t k = 0; k < size; ++k) {
+            const T x = px[k], y = py[k];
+            T d;
+            switch (n.kind) {
+                case op_kind::scale: d = a; break;
+                case op_kind::shift: d = T(1); break;
+                case op_kind::exp: d = y; break;
+                case op_kind::log: d = T(1) / x; break;
+                case op_kind::square: d = T(2) * x; break;
+                case op_kind::sqrt: d = T(0.5) / y; break;
+                case op_kind::abs: d = x > T(0) ? T(1) : (x < T(0) ? T(-1) : T(0)); break;
+                case op_kind::pow: d = a * std::pow(x, a - T(1)); break;
+                case op_kind::tanh: d = T(1) - y * y; break;                    // tanh' = 1 - tanh^2
+                case op_kind::sigmoid: d = y * (T(1) - y); break;               // s' = s (1 - s)
+                case op_kind::relu: d = x > T(0) ? T(1) : T(0); break;
+                case op_kind::leaky_relu: d = x > T(0) ? T(1) : a; break;
+                case op_kind::elu: d = x > T(0) ? T(1) : y + a; break;          // a(e^x - 1)' = y + a
+                case op_kind::softplus: d = detail::stable_sigmoid(x); break;   // softplus' = sigmoid
+                case op_kind::gelu_erf: {
+                    // d/dx [x Phi(x)] = Phi(x) + x phi(x)
+                    const T cdf = T(0.5) * (T(1) + std::erf(x * T(detail::inv_sqrt2)));
+                    d = cdf + x * T(detail::inv_sqrt_2pi) * std::exp(T(-0.5) * x * x);
+                    break;
+                }
+                case op_kind::gelu_tanh: {
+                    const T c = T(detail::gelu_sqrt_2_over_pi);
+                    const T t = std::tanh(c * (x + T(detail::gelu_cubic) * x * x * x));
+                    d = T(0.5) * (T(1) + t) + T(0.5) * x * (T(1) - t * t) * c * (T(1) + T(3 * detail::gelu_cubic) * x * x);
+                    break;
+                }
+                case op_kind::clamp: d = (x >= a && x <= b) ? T(1) : T(0); break;
+                default: d = T(0); break;
+            }
+            pg[k] += g[k] * d;
+        }
+    }
+
+    std::vector<detail::tape_node<T>> nodes_;
+    std::size_t count_ = 0;
+    std::uint64_t generation_ = 1;
+    bool check_finite_ = false;
+};
+
+template <class T>
+const matrix<T>& var<T>::value() const {
+    if (!tape_) raise(codes::foreign_value, "value() on an empty var (recorded on no tape)");
+    return tape_->value(*this);
+}
+
+TENON_NAMESPACE_END

@@ -1,0 +1,27 @@
+// tenon: version macros and the versioned inline namespace.
+//
+// Every tenon symbol lives in tenon::TENON_ABI_NAMESPACE (an inline namespace,
+// tenon::v0 for the 0.x series). Two parts of one host program that embed
+// different tenon versions therefore get distinct mangled names and do not
+// break the one-definition rule, while user code still writes tenon::xyz.
+#pragma once
+
+#define TENON_VERSION_MAJOR 0
+#define TENON_VERSION_MINOR 1
+#define TENON_VERSION_PATCH 0
+
+#define TENON_VERSION_STRING "0.1.0"
+#define TENON_VERSION_NUMBER (TENON_VERSION_MAJOR * 10000 + TENON_VERSION_MINOR * 100 + TENON_VERSION_PATCH)
+
+// Bumped with every release whose binary layout or inline definitions may change.
+#define TENON_ABI_NAMESPACE v0_1
+
+#define TENON_NAMESPACE_BEGIN namespace tenon { inline namespace TENON_ABI_NAMESPACE {
+#define TENON_NAMESPACE_END } }
+
+TENON_NAMESPACE_BEGIN
+/// The library version as "major.minor.patch".
+inline constexpr const char* version_string() noexcept { return TENON_VERSION_STRING; }
+/// The library version as major*10000 + minor*100 + patch.
+inline constexpr int version_number() noexcept { return TENON_VERSION_NUMBER; }
+TENON_NAMESPACE_END
