@@ -26,3 +26,10 @@ step(${CMAKE_COMMAND} -S "${SOURCE_DIR}/tests/install_consumer/host" -B "${host_
      -DCMAKE_CXX_COMPILER=${CXX_COMPILER} -DCMAKE_PREFIX_PATH=${prefix} -DCMAKE_BUILD_TYPE=Release)
 step(${CMAKE_COMMAND} --build "${host_build}")
 step("${host_build}/tenon_host")
+
+# The same host with tenon added as a subdirectory instead of installed.
+set(sub_build "${WORK_DIR}/host-subdir-build")
+step(${CMAKE_COMMAND} -S "${SOURCE_DIR}/tests/install_consumer/host" -B "${sub_build}" -G "${GENERATOR}"
+     -DCMAKE_CXX_COMPILER=${CXX_COMPILER} -DTENON_SOURCE_DIR=${SOURCE_DIR} -DCMAKE_BUILD_TYPE=Release)
+step(${CMAKE_COMMAND} --build "${sub_build}")
+step("${sub_build}/tenon_host")
