@@ -78,10 +78,14 @@ public:
         }
     }
 
-    /// Uniform in [low, high).
+    /// Uniform in [low, high) for low < high.
     template <class T = double>
     T uniform(T low, T high) noexcept {
-        return low + (high - low) * uniform01<T>();
+        const T r = low + (high - low) * uniform01<T>();
+        // u < 1, but low + (high - low) u can still round up to high (for
+        // [1, 2) and u = 1 - 2^-53 the sum is a tie that rounds to even, 2);
+        // the largest value below high keeps the bound open.
+        return (r < high || !(low < high)) ? r : std::nextafter(high, low);
     }
 
     /// Uniform integer in [0, n); n must be positive.
