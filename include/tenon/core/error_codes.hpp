@@ -28,10 +28,71 @@
       "a custom operation was given more inputs than a tape node holds")
 
 // prep/: reading tables, encoding, scaling, imputation, splitting, plans.
-#define TENON_ERROR_CODES_PREP(X)
+#define TENON_ERROR_CODES_PREP(X)                                                              \
+    X(prep_file_open, "prep.file.open", "a data file could not be opened or read")                    \
+    X(prep_csv_ragged, "prep.csv.ragged", "a CSV row has a different number of fields than the header") \
+    X(prep_csv_unterminated_quote, "prep.csv.unterminated_quote",                                     \
+      "a quoted CSV field is still open at the end of the input")                                \
+    X(prep_csv_stray_quote, "prep.csv.stray_quote",                                                   \
+      "a quote appears inside an unquoted field or right after a closing quote")                 \
+    X(prep_csv_no_header, "prep.csv.no_header", "the CSV input has no header row")                    \
+    X(prep_csv_duplicate_column, "prep.csv.duplicate_column", "two header fields have the same name") \
+    X(prep_cell_not_numeric, "prep.cell.not_numeric",                                                 \
+      "a cell of a numeric column is not a finite number")                                       \
+    X(prep_cell_not_datetime, "prep.cell.not_datetime",                                               \
+      "a cell of a date/time column is not an ISO 8601 or YYYY/MM/DD date/time")                 \
+    X(prep_column_unknown, "prep.column.unknown", "no column has the given name")                     \
+    X(prep_column_kind, "prep.column.kind", "a step was asked of a column whose kind does not allow it") \
+    X(prep_value_missing, "prep.value.missing",                                                       \
+      "a feature cell is missing and its column has no imputation")                              \
+    X(prep_unseen_category, "prep.category.unseen",                                                   \
+      "a category (or class) never seen in the training rows, with the policy set to fail")      \
+    X(prep_no_rows, "prep.rows.empty", "a statistic or plan was asked of zero usable rows")           \
+    X(prep_row_out_of_range, "prep.rows.out_of_range", "a row index is not below the table's row count") \
+    X(prep_split_fractions, "prep.split.fractions",                                                   \
+      "split fractions are negative, or do not sum to 1")                                        \
+    X(prep_split_empty_subset, "prep.split.empty_subset",                                             \
+      "a requested subset or fold would receive no rows")                                        \
+    X(prep_split_class_too_small, "prep.split.class_too_small",                                       \
+      "a class has fewer rows than folds (or non-empty subsets) in a stratified split")          \
+    X(prep_split_single_group, "prep.split.single_group",                                             \
+      "a grouped split was asked of fewer groups than subsets or folds")                         \
+    X(prep_split_missing_time, "prep.split.missing_time", "a chronological split met a missing time") \
+    X(prep_bytes_truncated, "prep.bytes.truncated", "serialized plan bytes end before the data does") \
+    X(prep_bytes_bad_tag, "prep.bytes.bad_tag",                                                       \
+      "serialized plan bytes carry an unknown magic, version, tag or enumeration value")         \
+    X(prep_bytes_oversize, "prep.bytes.oversize",                                                     \
+      "serialized plan bytes declare a count larger than the bytes could hold")                  \
+    X(prep_idx_magic, "prep.idx.magic", "an IDX file has a bad magic number or an unsupported type")  \
+    X(prep_idx_truncated, "prep.idx.truncated", "an IDX file holds fewer bytes than its header declares") \
+    X(prep_idx_compressed, "prep.idx.compressed",                                                     \
+      "a gzip-compressed IDX file was given to the plain reader, or failed to decompress")
 
 // layers/, losses/, update/: model components.
-#define TENON_ERROR_CODES_MODEL(X)
+#define TENON_ERROR_CODES_MODEL(X)                                                             \
+    X(model_layer_option, "model.layer.option", "a layer option is outside its documented range")    \
+    X(model_batch_too_small, "model.batch_norm.batch_too_small",                                     \
+      "batch normalization in training mode needs at least two rows")                          \
+    X(model_duplicate_name, "model.network.duplicate_name", "two layers of a network share a name")  \
+    X(model_unknown_parameter, "model.network.unknown_parameter", "no parameter has the given name") \
+    X(model_snapshot_mismatch, "model.network.snapshot_mismatch",                                    \
+      "a weight snapshot does not fit the network it is restored into")                        \
+    X(model_record_truncated, "model.record.truncated", "serialized bytes end before the record")    \
+    X(model_record_malformed, "model.record.malformed",                                              \
+      "serialized bytes are not a valid record (bad tag, count, nesting or value)")            \
+    X(model_record_missing_field, "model.record.missing_field",                                      \
+      "an architecture record lacks a field its layer kind needs")                             \
+    X(model_unknown_kind, "model.record.unknown_kind",                                               \
+      "a layer, activation, initializer, update rule or schedule name is not known")           \
+    X(model_label_range, "model.loss.label_range", "a class label is not below the number of classes") \
+    X(model_loss_weights, "model.loss.weights",                                                      \
+      "sample or class weights have the wrong count, a negative value or a zero total")        \
+    X(model_loss_target, "model.loss.target", "a target is not a valid probability or distribution") \
+    X(model_loss_option, "model.loss.option", "a loss option is outside its range or not supported") \
+    X(model_update_option, "model.update.option", "an update rule option is outside its range")      \
+    X(model_update_state_mismatch, "model.update.state_mismatch",                                    \
+      "update rule state does not fit the rule or the parameters it is used with")             \
+    X(model_schedule_option, "model.schedule.option", "a learning-rate schedule option is out of range")
 
 // train/: the trainer, metrics, cross-validation.
 #define TENON_ERROR_CODES_TRAIN(X)

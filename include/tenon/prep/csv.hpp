@@ -1,0 +1,371 @@
+// tenon: reading delimited text (CSV) into a table, or streaming it row by row.
+//
+// The grammar is RFC 4180 (Shafranovich, 2005), section 2: fields separated
+// by a delimiter (',' by default, configurable), records ended by CRLF (a
+// bare LF or a bare CR is accepted too), a field may be enclosed in double
+// quotes and then hold delimiters, line breaks and quotes written twice ("").
+// A quote inside an unquoted field, or anything but a delimiter or line end
+// right after a closing quote, is an error (rule 5 and 7 of section 2). A
+// UTF-8 byte-order mark (EF BB BF) at the start is skipped. Lines that are
+// entirely empty are skipped (they carry no record). The first record is the
+// header and names the columns.
+//
+// The input is read in chunks of `chunk_bytes`, so streaming a file larger
+// than memory (for_each_csv_record, summarize_csv) keeps only one record and
+// one chunk in memory; read_csv keeps the whole table.
+//
+// Errors name the source, the line (1-based, where the record starts) and the
+// column: "[prep.csv.ragged] data.csv line 7: expected 4 fields, found 5".
+#pragma once
+
+#include <cstddef>
+#include <cstdint>
+#include <fstream>
+#include <functional>
+#include <istream>
+#include <map>
+#include <string>
+#include <string_view>
+#include <utility>
+#include <vector>
+
+#include "tenon/core/error.hpp"
+#include "tenon/core/error_codes.hpp"
+#include "tenon/prep/cell_parsing.hpp"
+#include "tenon/prep/statistics.hpp"
+#include "tenon/prep/table.hpp"
+
+TENON_NAMESPACE_BEGIN
+
+struct csv_options {
+    char delimiter = ',';
+    /// Cell texts read as missing (compared after trimming blanks).
+    std::vector<std::string> missing_tokens = default_missing_tokens();
+    /// Column kinds chosen by the host instead of inferred, by column name.
+    std::map<std::string, column_kind> forced_kinds;
+    /// Bytes read from the stream at a time.
+    std::size_t chunk_bytes = std::size_t(1) << 20;
+};
+
+/// Pulls one record at a time out of a stream. The views returned by field()
+/// stay valid until the next call to next().
+class csv_record_reader {
+public:
+    csv_record_reader(std::istream& in, char delimiter, std::string source, std::size_t chunk_bytes = std::size_t(1) << 20)
+        : in_(in), delimiter_(delimiter), source_(std::move(source)), chunk_(chunk_bytes ? chunk_bytes : 1) {
+        if (delimiter == '"' || delimiter == '\n' || delimiter == '\r')
+            raise(codes::invalid_argument, source_ + ": the delimiter cannot be a quote or a line break");
+    }
+
+    /// Reads the next non-empty record; false at the end of the input.
+    bool next() {
+        for (;;) {
+            text_.clear();
+            ends_.clear();
+            if (!read_record()) return false;
+            if (!(ends_.size() == 1 && ends_[0] == 0 && !last_field_quoted_)) return true;  // skip empty lines
+        }
+    }
+
+    std::size_t field_count() const noexcept { return ends_.size(); }
+    std::string_view field(std::size_t k) const noexcept {
+        const std::size_t begin = k == 0 ? 0 : ends_[k - 1];
+        return std::string_view(text_.data() + begin, ends_[k] - begin);
+    }
+    /// Line (1-based) on which the current record starts.
+    std::size_t line() const noexcept { return record_line_; }
+    const std::string& source() const noexcept { return source_; }
+
+private:
+    // Returns the next byte, or -1 at the end of the input.
+    int get() {
+        if (position_ == filled_) {
+            if (eof_) return -1;
+            in_.read(chunk_.data(), static_cast<std::streamsize>(chunk_.size()));
+            filled_ = static_cast<std::size_t>(in_.gcount());
+            position_ = 0;
+            if (in_.bad()) raise(codes::prep_file_open, source_ + ": read error");
+            if (filled_ < chunk_.size()) eof_ = true;
+            if (filled_ == 0) return -1;
+            if (first_chunk_) {
+                first_chunk_ = false;
+                if (filled_ >= 3 && static_cast<unsigned char>(chunk_[0]) == 0xEF &&
+                    static_cast<unsigned char>(chunk_[1]) == 0xBB && static_cast<unsigned char>(chunk_[2]) == 0xBF)
+                    position_ = 3;
+                if (position_ == filled_) return get();
+            }
+        }
+        return static_cast<unsigned char>(chunk_[position_++]);
+    }
+    int peek() {
+        const int c = get();
+        if (c >= 0) --position_;
+        return c;
+    }
+
+    [[noreturn]] void fail(const char* code, const std::string& message) const {
+        raise(code, source_ + " line " + std::to_string(record_line_) + " column " + std::to_string(ends_.size() + 1) +
+                        ": " + message);
+    }
+
+    bool read_record() {
+        int c = get();
+        if (c < 0) return false;
+        record_line_ = line_;
+        for (;;) {
+            // Start of a field.
+            last_field_quoted_ = false;
+            if (c == '"') {
+                last_field_quoted_ = true;
+                const std::size_t open_line = line_;
+                for (;;) {
+                    c = get();
+                    if (c < 0)
+                        fail(codes::prep_csv_unterminated_quote,
+                             "the quoted field opened on line " + std::to_string(open_line) + " is not closed before the end of the input");
+                    if (c == '"') {
+                        if (peek() == '"') {
+                            get();
+                            text_.push_back('"');
+                            continue;
+                        }
+                        break;
+                    }
+                    if (c == '\n') ++line_;
+                    else if (c == '\r' && peek() != '\n') ++line_;
+                    text_.push_back(static_cast<char>(c));
+                }
+                c = get();
+                if (c >= 0 && c != delimiter_ && c != '\n' && c != '\r')
+                    fail(codes::prep_csv_stray_quote, "a closing quote must be followed by the delimiter or a line end");
+            } else {
+                while (c >= 0 && c != delimiter_ && c != '\n' && c != '\r') {
+                    if (c == '"') fail(codes::prep_csv_stray_quote, "a quote inside an unquoted field (quote the whole field and double the quote)");
+                    text_.push_back(static_cast<char>(c));
+                    c = get();
+                }
+            }
+            ends_.push_back(text_.size());
+            if (c == delimiter_) {
+                c = get();
+                continue;
+            }
+            // End of record: line break or end of input.
+            if (c == '\r' && peek() == '\n') get();
+            if (c == '\n' || c == '\r') ++line_;
+            return true;
+        }
+    }
+
+    std::istream& in_;
+    char delimiter_;
+    std::string source_;
+    std::vector<char> chunk_;
+    std::size_t position_ = 0, filled_ = 0;
+    bool eof_ = false, first_chunk_ = true, last_field_quoted_ = false;
+    std::size_t line_ = 1, record_line_ = 1;
+    std::string text_;
+    std::vector<std::size_t> ends_;
+};
+
+namespace detail {
+inline std::ifstream open_for_reading(const std::string& path) {
+    std::ifstream in(path, std::ios::binary);
+    if (!in) raise(codes::prep_file_open, path + ": cannot open for reading");
+    return in;
+}
+
+inline std::vector<std::string> read_header(csv_record_reader& reader) {
+    if (!reader.next()) raise(codes::prep_csv_no_header, reader.source() + ": no header row (the input is empty)");
+    std::vector<std::string> names;
+    for (std::size_t k = 0; k < reader.field_count(); ++k) {
+        std::string name(trim_blanks(reader.field(k)));
+        for (const auto& earlier : names)
+            if (earlier == name)
+                raise(codes::prep_csv_duplicate_column, reader.source() + " line " + std::to_string(reader.line()) +
+                                                            " column " + std::to_string(k + 1) + ": the name '" + name +
+                                                            "' is used twice in the header");
+        names.push_back(std::move(name));
+    }
+    return names;
+}
+
+inline void require_field_count(const csv_record_reader& reader, std::size_t expected) {
+    if (reader.field_count() != expected)
+        raise(codes::prep_csv_ragged, reader.source() + " line " + std::to_string(reader.line()) + ": expected " +
+                                          std::to_string(expected) + " fields, found " + std::to_string(reader.field_count()));
+}
+}  // namespace detail
+
+/// Calls `on_record(reader)` for every data record after the header (whose
+/// names are passed to `on_header` first). Ragged records raise prep.csv.ragged.
+inline void for_each_csv_record(std::istream& in, const csv_options& options, const std::string& source,
+                                const std::function<void(const std::vector<std::string>&)>& on_header,
+                                const std::function<void(const csv_record_reader&)>& on_record) {
+    csv_record_reader reader(in, options.delimiter, source, options.chunk_bytes);
+    const auto names = detail::read_header(reader);
+    if (on_header) on_header(names);
+    while (reader.next()) {
+        detail::require_field_count(reader, names.size());
+        on_record(reader);
+    }
+}
+
+/// What one streaming pass learns about a column, without keeping the rows.
+struct column_summary {
+    std::string name;
+    std::size_t present = 0;         // cells that are not missing
+    std::size_t missing = 0;         // cells equal to a missing token
+    std::size_t numeric_cells = 0;   // present cells that read as a finite number
+    std::size_t datetime_cells = 0;  // present cells that read as a date/time
+    running_moments numbers;         // over the numeric cells
+    running_moments times;           // over the date/time cells (seconds since the epoch)
+    /// Counts per distinct text, up to the summary's category limit.
+    std::map<std::string, std::size_t> category_counts;
+    /// True when more distinct texts were seen than the limit kept.
+    bool categories_truncated = false;
+
+    /// The kind read_csv would infer from the same cells.
+    column_kind inferred_kind() const noexcept {
+        if (numeric_cells == present) return column_kind::numeric;
+        if (datetime_cells == present) return column_kind::datetime;
+        return column_kind::categorical;
+    }
+};
+
+/// One streaming pass over CSV text: counts, min/max, mean and variance
+/// (Welford), and category sets for every column. Memory is bounded by one
+/// chunk, one record and at most `max_categories` texts per column, so files
+/// larger than memory can be measured. Quantiles need read_csv and
+/// column_quartiles (exact, in memory).
+inline std::vector<column_summary> summarize_csv(std::istream& in, const csv_options& options = {},
+                                                 const std::string& source = "<stream>",
+                                                 std::size_t max_categories = 65536) {
+    std::vector<column_summary> summaries;
+    for_each_csv_record(
+        in, options, source,
+        [&](const std::vector<std::string>& names) {
+            summaries.resize(names.size());
+            for (std::size_t k = 0; k < names.size(); ++k) summaries[k].name = names[k];
+        },
+        [&](const csv_record_reader& reader) {
+            std::string key;
+            for (std::size_t k = 0; k < summaries.size(); ++k) {
+                auto& s = summaries[k];
+                const std::string_view cell = reader.field(k);
+                if (is_missing_cell(cell, options.missing_tokens)) {
+                    ++s.missing;
+                    continue;
+                }
+                ++s.present;
+                double value = 0;
+                if (parse_number(cell, value)) {
+                    ++s.numeric_cells;
+                    s.numbers.add(value);
+                } else if (parse_datetime(cell, value)) {
+                    ++s.datetime_cells;
+                    s.times.add(value);
+                }
+                key.assign(detail::trim_blanks(cell));
+                auto it = s.category_counts.find(key);
+                if (it != s.category_counts.end()) ++it->second;
+                else if (s.category_counts.size() < max_categories) s.category_counts.emplace(key, 1);
+                else s.categories_truncated = true;
+            }
+        });
+    return summaries;
+}
+
+inline std::vector<column_summary> summarize_csv_file(const std::string& path, const csv_options& options = {},
+                                                      std::size_t max_categories = 65536) {
+    auto in = detail::open_for_reading(path);
+    return summarize_csv(in, options, path, max_categories);
+}
+
+/// Reads CSV text into a table. Column kinds are forced (options.forced_kinds)
+/// or inferred: numeric if every present cell reads as a finite number,
+/// date/time if every present cell reads as a date/time, categorical
+/// otherwise; a column with no present cell is numeric.
+inline table read_csv(std::istream& in, const csv_options& options = {}, const std::string& source = "<stream>") {
+    csv_record_reader reader(in, options.delimiter, source, options.chunk_bytes);
+    const auto names = detail::read_header(reader);
+    for (const auto& forced : options.forced_kinds) {
+        bool found = false;
+        for (const auto& n : names) found = found || n == forced.first;
+        if (!found)
+            raise(codes::prep_column_unknown, source + ": a kind is forced for column '" + forced.first +
+                                                  "', which the header does not name");
+    }
+    const std::size_t width = names.size();
+    // Pass 1: keep the raw cells, column by column, in one text arena each.
+    std::vector<std::string> arena(width);
+    std::vector<std::vector<std::size_t>> ends(width);
+    std::vector<std::size_t> lines;
+    while (reader.next()) {
+        detail::require_field_count(reader, width);
+        lines.push_back(reader.line());
+        for (std::size_t k = 0; k < width; ++k) {
+            arena[k].append(reader.field(k));
+            ends[k].push_back(arena[k].size());
+        }
+    }
+    const std::size_t rows = lines.size();
+    table result(source);
+    // Pass 2: decide each column's kind and convert.
+    for (std::size_t k = 0; k < width; ++k) {
+        auto cell = [&](std::size_t i) {
+            const std::size_t begin = i == 0 ? 0 : ends[k][i - 1];
+            return std::string_view(arena[k].data() + begin, ends[k][i] - begin);
+        };
+        std::vector<std::uint8_t> missing(rows);
+        for (std::size_t i = 0; i < rows; ++i) missing[i] = is_missing_cell(cell(i), options.missing_tokens) ? 1 : 0;
+        column_kind kind;
+        auto forced = options.forced_kinds.find(names[k]);
+        if (forced != options.forced_kinds.end()) {
+            kind = forced->second;
+        } else {
+            bool all_numbers = true, all_times = true;
+            double value = 0;
+            for (std::size_t i = 0; i < rows && all_numbers; ++i)
+                if (!missing[i] && !parse_number(cell(i), value)) all_numbers = false;
+            if (!all_numbers)
+                for (std::size_t i = 0; i < rows && all_times; ++i)
+                    if (!missing[i] && !parse_datetime(cell(i), value)) all_times = false;
+            kind = all_numbers ? column_kind::numeric : all_times ? column_kind::datetime : column_kind::categorical;
+        }
+        column& c = result.add_column(names[k], kind);
+        c.reserve(rows);
+        for (std::size_t i = 0; i < rows; ++i) {
+            if (missing[i]) {
+                c.push_missing();
+                continue;
+            }
+            const std::string_view text = cell(i);
+            double value = 0;
+            if (kind == column_kind::numeric) {
+                if (!parse_number(text, value))
+                    raise(codes::prep_cell_not_numeric, source + " line " + std::to_string(lines[i]) + " column " +
+                                                            std::to_string(k + 1) + " ('" + names[k] + "'): '" +
+                                                            std::string(text) + "' is not a finite number");
+                c.push_number(value);
+            } else if (kind == column_kind::datetime) {
+                if (!parse_datetime(text, value))
+                    raise(codes::prep_cell_not_datetime, source + " line " + std::to_string(lines[i]) + " column " +
+                                                             std::to_string(k + 1) + " ('" + names[k] + "'): '" +
+                                                             std::string(text) + "' is not a date/time");
+                c.push_number(value);
+            } else {
+                c.push_category(detail::trim_blanks(text));
+            }
+        }
+        std::string().swap(arena[k]);  // free the raw text of this column early
+    }
+    return result;
+}
+
+inline table read_csv_file(const std::string& path, const csv_options& options = {}) {
+    auto in = detail::open_for_reading(path);
+    return read_csv(in, options, path);
+}
+
+TENON_NAMESPACE_END

@@ -1,0 +1,170 @@
+// tenon: column statistics, single-pass where the statistic allows it.
+//
+// running_moments gathers count, minimum, maximum, mean and variance in one
+// pass with Welford's update, and merges partial results (e.g. from chunks of
+// a file or from threads) with the pairwise formula of Chan, Golub & LeVeque.
+// Both avoid the catastrophic cancellation of the textbook sum-of-squares
+// formula, so a stream like 1e9 + small variations keeps its variance.
+//
+// Quantiles (median, quartiles) have no exact single-pass form in bounded
+// memory; tenon computes them exactly on the values in memory
+// (exact_quantile), which is what a plan measured on a table uses.
+#pragma once
+
+#include <algorithm>
+#include <cmath>
+#include <cstddef>
+#include <limits>
+#include <string>
+#include <vector>
+
+#include "tenon/core/error.hpp"
+#include "tenon/core/error_codes.hpp"
+#include "tenon/prep/table.hpp"
+
+TENON_NAMESPACE_BEGIN
+
+/// Count, extremes, mean and sum of squared deviations of a stream of values.
+struct running_moments {
+    std::size_t count = 0;
+    double mean = 0.0;
+    double squared_deviations = 0.0;  // sum of (x - mean)^2, "M2"
+    double minimum = std::numeric_limits<double>::infinity();
+    double maximum = -std::numeric_limits<double>::infinity();
+
+    /// Welford (1962), "Note on a method for calculating corrected sums of
+    /// squares and products", Technometrics 4(3); in the form of Knuth, TAOCP
+    /// vol. 2, 3rd ed., section 4.2.2 (from memory):
+    ///   delta = x - mean;  mean += delta / n;  M2 += delta * (x - mean).
+    void add(double x) noexcept {
+        ++count;
+        const double delta = x - mean;
+        mean += delta / static_cast<double>(count);
+        squared_deviations += delta * (x - mean);
+        if (x < minimum) minimum = x;
+        if (x > maximum) maximum = x;
+    }
+
+    /// Chan, Golub & LeVeque (1979/1983), "Updating formulae and a pairwise
+    /// algorithm for computing sample variances", eq. 2.1:
+    ///   n = na + nb;  delta = mean_b - mean_a;
+    ///   mean = mean_a + delta * nb / n;  M2 = M2a + M2b + delta^2 * na * nb / n.
+    void merge(const running_moments& other) noexcept {
+        if (other.count == 0) return;
+        if (count == 0) {
+            *this = other;
+            return;
+        }
+        const double na = static_cast<double>(count), nb = static_cast<double>(other.count);
+        const double n = na + nb;
+        const double delta = other.mean - mean;
+        mean += delta * nb / n;
+        squared_deviations += other.squared_deviations + delta * delta * na * nb / n;
+        count += other.count;
+        minimum = std::min(minimum, other.minimum);
+        maximum = std::max(maximum, other.maximum);
+    }
+
+    /// Variance with divisor n (the spread of the values themselves; what a
+    /// z-score divides by).
+    double population_variance() const noexcept {
+        return count == 0 ? 0.0 : squared_deviations / static_cast<double>(count);
+    }
+    /// Variance with divisor n - 1 (unbiased estimate of a population's).
+    double sample_variance() const noexcept {
+        return count < 2 ? 0.0 : squared_deviations / static_cast<double>(count - 1);
+    }
+    double population_stddev() const noexcept { return std::sqrt(population_variance()); }
+};
+
+/// The q-quantile (0 <= q <= 1) of `values`, exact, by linear interpolation
+/// between order statistics: Hyndman & Fan (1996), "Sample quantiles in
+/// statistical packages", The American Statistician 50(4), definition 7:
+///   h = (n - 1) q;  Q = x[floor h] + (h - floor h) (x[floor h + 1] - x[floor h]).
+/// Reorders `values` (nth_element); raises prep.rows.empty when it is empty.
+inline double exact_quantile(std::vector<double>& values, double q) {
+    if (values.empty()) raise(codes::prep_no_rows, "exact_quantile: no values");
+    if (!(q >= 0.0 && q <= 1.0))
+        raise(codes::invalid_argument, "exact_quantile: q must lie in [0, 1], got " + std::to_string(q));
+    const double h = static_cast<double>(values.size() - 1) * q;
+    const auto lower = static_cast<std::size_t>(std::floor(h));
+    auto lower_it = values.begin() + static_cast<std::ptrdiff_t>(lower);
+    std::nth_element(values.begin(), lower_it, values.end());
+    const double low = *lower_it;
+    if (lower + 1 >= values.size()) return low;
+    const double high = *std::min_element(lower_it + 1, values.end());
+    return low + (h - static_cast<double>(lower)) * (high - low);
+}
+
+namespace detail {
+inline void require_rows_in_range(const column& c, const std::vector<std::size_t>& rows) {
+    for (auto r : rows)
+        if (r >= c.size())
+            raise(codes::prep_row_out_of_range, "column '" + c.name() + "': row " + std::to_string(r) +
+                                                    " is not below the row count " + std::to_string(c.size()));
+}
+inline void require_number_column(const column& c, const char* what) {
+    if (c.kind() == column_kind::categorical)
+        raise(codes::prep_column_kind, std::string(what) + ": column '" + c.name() + "' is categorical");
+}
+}  // namespace detail
+
+/// Moments of the present (non-missing) cells of a numeric or date/time
+/// column over the given rows.
+inline running_moments column_moments(const column& c, const std::vector<std::size_t>& rows) {
+    detail::require_number_column(c, "column_moments");
+    detail::require_rows_in_range(c, rows);
+    running_moments m;
+    for (auto r : rows)
+        if (!c.is_missing(r)) m.add(c.number(r));
+    return m;
+}
+
+/// The present values of a numeric or date/time column over the given rows.
+inline std::vector<double> present_values(const column& c, const std::vector<std::size_t>& rows) {
+    detail::require_number_column(c, "present_values");
+    detail::require_rows_in_range(c, rows);
+    std::vector<double> v;
+    v.reserve(rows.size());
+    for (auto r : rows)
+        if (!c.is_missing(r)) v.push_back(c.number(r));
+    return v;
+}
+
+/// Median and interquartile range (Q3 - Q1), exact, of the present values.
+struct quartile_summary {
+    double median = 0.0;
+    double interquartile_range = 0.0;
+};
+
+inline quartile_summary column_quartiles(const column& c, const std::vector<std::size_t>& rows) {
+    auto v = present_values(c, rows);
+    if (v.empty()) raise(codes::prep_no_rows, "column '" + c.name() + "': no present values for quartiles");
+    quartile_summary s;
+    s.median = exact_quantile(v, 0.5);
+    const double q1 = exact_quantile(v, 0.25);
+    const double q3 = exact_quantile(v, 0.75);
+    s.interquartile_range = q3 - q1;
+    return s;
+}
+
+/// Per-category counts of the present cells of a categorical column over the
+/// given rows, indexed by the column's category code.
+inline std::vector<std::size_t> category_counts(const column& c, const std::vector<std::size_t>& rows) {
+    if (c.kind() != column_kind::categorical)
+        raise(codes::prep_column_kind, "category_counts: column '" + c.name() + "' is " + to_string(c.kind()));
+    detail::require_rows_in_range(c, rows);
+    std::vector<std::size_t> counts(c.categories().size(), 0);
+    for (auto r : rows)
+        if (!c.is_missing(r)) ++counts[c.code(r)];
+    return counts;
+}
+
+/// 0, 1, ..., n-1: all rows of a table.
+inline std::vector<std::size_t> all_rows(std::size_t n) {
+    std::vector<std::size_t> rows(n);
+    for (std::size_t i = 0; i < n; ++i) rows[i] = i;
+    return rows;
+}
+
+TENON_NAMESPACE_END
