@@ -121,6 +121,7 @@ struct tape_node {
     std::uint8_t input_count = 0;
     bool needs_grad = false;
     bool grad_ready = false;
+    bool reached = false;  // during backward(): lies on a path to the loss
     std::array<std::uint32_t, max_operands> inputs{};
     T a = T(0);  // operation constant (scale factor, slope, exponent, lower bound)
     T b = T(0);  // second constant (upper bound)
@@ -304,13 +305,17 @@ public:
         const auto& l = node_of(loss);
         if (shape_of(value_of(loss)) != shape2{1, 1}) {
             raise(codes::backward_not_scalar, std::string("backward from operation #") + std::to_string(loss.id()) + " (" +
-                                                  op_name(l.kind) + ") of shape " + to_string(shape_of(value_of(loss))) +
+                                                  node_name(loss.id()) + ") of shape " + to_string(shape_of(value_of(loss))) +
                                                   ": reduce it to 1x1 first, e.g. with sum() or mean()");
         }
         const std::size_t last = loss.id();
+        // Nodes recorded after the loss do not influence it: forget gradients
+        // an earlier backward() left there, so grad() reads zero for them.
+        for (std::size_t i = last + 1; i < count_; ++i) nodes_[i].grad_ready = false;
         for (std::size_t i = 0; i <= last; ++i) {
             auto& n = nodes_[i];
             n.grad_ready = false;
+            n.reached = false;
             if (n.needs_grad && n.kind != op_kind::parameter) {
                 ensure_shape(n.grad, shape_of(n.value));
                 std::fill(n.grad.data(), n.grad.data() + n.grad.size(), T(0));
@@ -319,9 +324,15 @@ public:
         }
         if (!l.needs_grad) return;
         grad_target(loss.id())->data()[0] += T(1);
+        nodes_[last].reached = true;
         for (std::size_t i = last + 1; i-- > 0;) {
             auto& n = nodes_[i];
             if (!n.needs_grad || n.kind == op_kind::input || n.kind == op_kind::variable || n.kind == op_kind::parameter) continue;
+            // A node off every path to the loss has a zero gradient; running
+            // its backward anyway would cost time and turn 0 * f'(x) into NaN
+            // where f'(x) is infinite (log or sqrt of 0 in a side branch).
+            if (!n.reached) continue;
+            for (std::size_t k = 0; k < n.input_count; ++k) nodes_[n.inputs[k]].reached = true;
             backward_node(n);
             if (check_finite_) check_input_grads(i);
         }
@@ -403,12 +414,18 @@ private:
         return out;
     }
 
+    // The name reports use: the operation's, or a custom operation's own.
+    const char* node_name(std::size_t id) const noexcept {
+        const auto& n = nodes_[id];
+        return (n.kind == op_kind::custom && n.custom) ? n.custom->name() : op_name(n.kind);
+    }
+
     void check_value(std::uint32_t id) const {
         const auto& m = value_at(id);
         for (std::size_t k = 0; k < m.size(); ++k) {
             if (!std::isfinite(m.data()[k])) {
                 const std::size_t c = m.shape()[1];
-                raise(codes::non_finite, "operation #" + std::to_string(id) + " (" + op_name(nodes_[id].kind) +
+                raise(codes::non_finite, "operation #" + std::to_string(id) + " (" + node_name(id) +
                                              ") produced " + std::to_string(m.data()[k]) + " at row " + std::to_string(k / c) +
                                              ", column " + std::to_string(k % c));
             }
@@ -422,7 +439,7 @@ private:
             if (!g) continue;
             for (std::size_t k = 0; k < g->size(); ++k) {
                 if (!std::isfinite(g->data()[k])) {
-                    raise(codes::non_finite, "backward through operation #" + std::to_string(id) + " (" + op_name(n.kind) +
+                    raise(codes::non_finite, "backward through operation #" + std::to_string(id) + " (" + node_name(id) +
                                                  ") produced a gradient of " + std::to_string(g->data()[k]) + " for its input #" +
                                                  std::to_string(n.inputs[i]));
                 }
@@ -510,11 +527,13 @@ private:
                     for (std::size_t j = 1; j < xc; ++j) m = row[j] > m ? row[j] : m;
                     T s = T(0);
                     for (std::size_t j = 0; j < xc; ++j) s += std::exp(row[j] - m);
-                    const T lse = m + std::log(s);
+                    const T log_s = std::log(s);
                     if (n.kind == op_kind::logsumexp_rows) {
-                        o[i] = lse;
+                        o[i] = m + log_s;
                     } else {
-                        for (std::size_t j = 0; j < xc; ++j) o[i * xc + j] = row[j] - lse;
+                        // (x_j - m) - log s, not x_j - (m + log s): for large
+                        // |m| the sum m + log s would round log s away.
+                        for (std::size_t j = 0; j < xc; ++j) o[i * xc + j] = (row[j] - m) - log_s;
                     }
                 }
                 return;
@@ -637,8 +656,17 @@ private:
                 T* pg = gx->data();
                 for (std::size_t i = 0; i < xr; ++i) {
                     if (n.kind == op_kind::logsumexp_rows) {
-                        // d lse / d x_j = softmax_j = exp(x_j - lse)
-                        for (std::size_t j = 0; j < xc; ++j) pg[i * xc + j] += g[i] * std::exp(px[i * xc + j] - out[i]);
+                        // d lse / d x_j = softmax_j = exp(x_j - m) / sum_k exp(x_k - m),
+                        // shifted by the row maximum m again: exp(x_j - lse)
+                        // would inherit lse's rounding, which for large |lse|
+                        // (1001.3 in float) is far coarser than softmax needs.
+                        const T* row = px + i * xc;
+                        T m = row[0];
+                        for (std::size_t j = 1; j < xc; ++j) m = row[j] > m ? row[j] : m;
+                        T s = T(0);
+                        for (std::size_t j = 0; j < xc; ++j) s += std::exp(row[j] - m);
+                        const T scale = g[i] / s;
+                        for (std::size_t j = 0; j < xc; ++j) pg[i * xc + j] += scale * std::exp(row[j] - m);
                     } else {
                         // y = x - lse(x): dx_j = g_j - softmax_j * sum_k g_k
                         T gs = T(0);

@@ -1,0 +1,543 @@
+// Tests of the autodiff tape: values and derivatives against closed forms,
+// numerical stability, errors, the finite check, reuse and accumulation.
+#include <doctest/doctest.h>
+
+#include <cmath>
+#include <iterator>
+#include <limits>
+#include <string>
+#include <vector>
+
+#include <tenon/tenon.hpp>
+
+using tenon::make_matrix;
+using tenon::matrix;
+using tenon::shape2;
+using tenon::tape;
+using tenon::var;
+
+namespace {
+
+template <class F>
+tenon::error expect_error(F&& f) {
+    try {
+        f();
+    } catch (const tenon::error& e) {
+        return e;
+    }
+    FAIL("expected a tenon::error, nothing was thrown");
+    return tenon::error("none", "none");
+}
+
+bool contains(const std::string& text, const std::string& part) { return text.find(part) != std::string::npos; }
+
+// Relative tolerance for comparing T results with double formulas.
+template <class T>
+double tolerance() {
+    return std::is_same_v<T, float> ? 2e-6 : 1e-13;
+}
+
+const double points[] = {-2.5, -1.0, -0.3, 0.2, 0.9, 2.2};
+
+template <class T>
+matrix<T> point_row() {
+    matrix<T> m({1, std::size(points)});
+    for (std::size_t k = 0; k < std::size(points); ++k) m.data()[k] = static_cast<T>(points[k]);
+    return m;
+}
+
+// Value and derivative of an elementwise op at `points` (derivative by
+// backward from sum(op(x)), so the upstream gradient is 1 per element).
+template <class T, class Op>
+void value_and_derivative(Op op, std::vector<double>& values, std::vector<double>& derivatives) {
+    tape<T> t;
+    const auto x = t.variable(point_row<T>());
+    const auto y = op(x);
+    t.backward(tenon::sum(y));
+    values.clear();
+    derivatives.clear();
+    for (std::size_t k = 0; k < std::size(points); ++k) {
+        values.push_back(static_cast<double>(y.value().data()[k]));
+        derivatives.push_back(static_cast<double>(t.grad(x).data()[k]));
+    }
+}
+
+// A host-defined operation for the tests below: 1/x, which is infinite at 0.
+template <class T>
+class reciprocal_operation final : public tenon::custom_operation<T> {
+public:
+    const char* name() const noexcept override { return "reciprocal"; }
+    shape2 output_shape(const tenon::operand_list<T>& in) const override { return tenon::shape_of(in[0]); }
+    void forward(const tenon::operand_list<T>& in, matrix<T>& out) const override {
+        for (std::size_t k = 0; k < out.size(); ++k) out.data()[k] = T(1) / in[0].data()[k];
+    }
+    void backward(const tenon::operand_list<T>& in, const matrix<T>& out, const matrix<T>& g, matrix<T>* const* grads) const override {
+        if (!grads[0]) return;
+        for (std::size_t k = 0; k < g.size(); ++k) grads[0]->data()[k] -= g.data()[k] * out.data()[k] * out.data()[k];
+        (void)in;
+    }
+};
+
+// Adds all of its inputs (of one shape); used to exceed the input limit.
+template <class T>
+class total_operation final : public tenon::custom_operation<T> {
+public:
+    const char* name() const noexcept override { return "total"; }
+    shape2 output_shape(const tenon::operand_list<T>& in) const override { return tenon::shape_of(in[0]); }
+    void forward(const tenon::operand_list<T>& in, matrix<T>& out) const override {
+        out.fill(T(0));
+        for (std::size_t i = 0; i < in.size(); ++i)
+            for (std::size_t k = 0; k < out.size(); ++k) out.data()[k] += in[i].data()[k];
+    }
+    void backward(const tenon::operand_list<T>& in, const matrix<T>&, const matrix<T>& g, matrix<T>* const* grads) const override {
+        for (std::size_t i = 0; i < in.size(); ++i)
+            if (grads[i])
+                for (std::size_t k = 0; k < g.size(); ++k) grads[i]->data()[k] += g.data()[k];
+    }
+};
+
+}  // namespace
+
+// ---------------------------------------------------------------------------
+// closed forms
+
+TEST_CASE_TEMPLATE("a value used twice receives both gradient contributions", T, float, double) {
+    // d/dw sum(w * w) = 2w (elementary calculus).
+    tenon::parameter<T> w("w", make_matrix<T>({{T(1.5), T(-2)}}));
+    tape<T> t;
+    const auto v = t.watch(w);
+    t.backward(tenon::sum(v * v));
+    CHECK(w.grad()(0, 0) == doctest::Approx(3.0));
+    CHECK(w.grad()(0, 1) == doctest::Approx(-4.0));
+}
+
+TEST_CASE_TEMPLATE("tanh, sigmoid and softplus derivatives follow their closed forms", T, float, double) {
+    std::vector<double> value, derivative;
+    const double tol = tolerance<T>();
+
+    // tanh' = 1 - tanh^2 (elementary calculus).
+    value_and_derivative<T>([](var<T> x) { return tenon::tanh(x); }, value, derivative);
+    for (std::size_t k = 0; k < std::size(points); ++k) {
+        const double th = std::tanh(points[k]);
+        CHECK(value[k] == doctest::Approx(th).epsilon(tol));
+        CHECK(derivative[k] == doctest::Approx(1.0 - th * th).epsilon(tol * 4));
+    }
+
+    // sigmoid s = 1 / (1 + e^-x), s' = s (1 - s) (elementary calculus).
+    value_and_derivative<T>([](var<T> x) { return tenon::sigmoid(x); }, value, derivative);
+    for (std::size_t k = 0; k < std::size(points); ++k) {
+        const double s = 1.0 / (1.0 + std::exp(-points[k]));
+        CHECK(value[k] == doctest::Approx(s).epsilon(tol));
+        CHECK(derivative[k] == doctest::Approx(s * (1.0 - s)).epsilon(tol * 4));
+    }
+
+    // softplus(x) = ln(1 + e^x), softplus' = sigmoid (elementary calculus).
+    value_and_derivative<T>([](var<T> x) { return tenon::softplus(x); }, value, derivative);
+    for (std::size_t k = 0; k < std::size(points); ++k) {
+        CHECK(value[k] == doctest::Approx(std::log1p(std::exp(points[k]))).epsilon(tol));
+        CHECK(derivative[k] == doctest::Approx(1.0 / (1.0 + std::exp(-points[k]))).epsilon(tol * 4));
+    }
+
+    // ELU (Clevert, Unterthiner & Hochreiter 2016, eq. 15-16): alpha (e^x - 1)
+    // and alpha e^x for x <= 0, x and 1 for x > 0.
+    const double alpha = 0.75;
+    value_and_derivative<T>([&](var<T> x) { return tenon::elu(x, static_cast<T>(alpha)); }, value, derivative);
+    for (std::size_t k = 0; k < std::size(points); ++k) {
+        const double x = points[k];
+        CHECK(value[k] == doctest::Approx(x > 0 ? x : alpha * std::expm1(x)).epsilon(tol));
+        CHECK(derivative[k] == doctest::Approx(x > 0 ? 1.0 : alpha * std::exp(x)).epsilon(tol * 4));
+    }
+
+    // Leaky ReLU (Maas, Hannun & Ng 2013): slope * x for x < 0.
+    value_and_derivative<T>([](var<T> x) { return tenon::leaky_relu(x, T(0.25)); }, value, derivative);
+    for (std::size_t k = 0; k < std::size(points); ++k) {
+        const double x = points[k];
+        CHECK(value[k] == doctest::Approx(x > 0 ? x : 0.25 * x).epsilon(tol));
+        CHECK(derivative[k] == (x > 0 ? 1.0 : 0.25));
+    }
+}
+
+TEST_CASE_TEMPLATE("GELU value and derivative follow Hendrycks & Gimpel 2016", T, float, double) {
+    // Hendrycks & Gimpel 2016, "Gaussian Error Linear Units (GELUs)", section 2:
+    // GELU(x) = x Phi(x) = 0.5 x (1 + erf(x / sqrt 2)), whose derivative is
+    // Phi(x) + x phi(x) with phi(x) = e^(-x^2/2) / sqrt(2 pi); and the
+    // approximation 0.5 x (1 + tanh(sqrt(2/pi) (x + 0.044715 x^3))).
+    const double pi = std::acos(-1.0);
+    const double c = std::sqrt(2.0 / pi);
+    const double tol = tolerance<T>();
+    std::vector<double> value, derivative;
+
+    value_and_derivative<T>([](var<T> x) { return tenon::gelu(x); }, value, derivative);
+    for (std::size_t k = 0; k < std::size(points); ++k) {
+        const double x = points[k];
+        const double cdf = 0.5 * (1.0 + std::erf(x / std::sqrt(2.0)));
+        const double pdf = std::exp(-0.5 * x * x) / std::sqrt(2.0 * pi);
+        CHECK(value[k] == doctest::Approx(x * cdf).epsilon(tol * 4));
+        CHECK(derivative[k] == doctest::Approx(cdf + x * pdf).epsilon(tol * 4));
+    }
+
+    value_and_derivative<T>([](var<T> x) { return tenon::gelu_tanh(x); }, value, derivative);
+    for (std::size_t k = 0; k < std::size(points); ++k) {
+        const double x = points[k];
+        const double th = std::tanh(c * (x + 0.044715 * x * x * x));
+        // d/dx: 0.5 (1 + th) + 0.5 x (1 - th^2) c (1 + 3 * 0.044715 x^2) (chain rule).
+        const double d = 0.5 * (1.0 + th) + 0.5 * x * (1.0 - th * th) * c * (1.0 + 3.0 * 0.044715 * x * x);
+        CHECK(value[k] == doctest::Approx(0.5 * x * (1.0 + th)).epsilon(tol * 4));
+        CHECK(derivative[k] == doctest::Approx(d).epsilon(tol * 4));
+    }
+}
+
+TEST_CASE_TEMPLATE("log-sum-exp of [1000, 1001] is 1001 + ln(1 + e^-1)", T, float, double) {
+    // ln(e^1000 + e^1001) = 1001 + ln(1 + e^-1) ~ 1001.3133 (algebra); a naive
+    // evaluation overflows e^1000 even in double.
+    tape<T> t;
+    const auto x = t.variable(make_matrix<T>({{T(1000), T(1001)}}));
+    const auto lse = tenon::logsumexp_rows(x);
+    REQUIRE(lse.shape() == shape2{1, 1});
+    const double expected = 1001.0 + std::log1p(std::exp(-1.0));
+    CHECK(static_cast<double>(lse.value()(0, 0)) == doctest::Approx(expected).epsilon(1e-7));
+    CHECK(static_cast<double>(lse.value()(0, 0)) == doctest::Approx(1001.3133).epsilon(1e-7));
+    // Its gradient is the softmax: [1 / (1 + e), e / (1 + e)].
+    t.backward(tenon::sum(lse));
+    const double e = std::exp(1.0);
+    CHECK(static_cast<double>(t.grad(x)(0, 0)) == doctest::Approx(1.0 / (1.0 + e)).epsilon(1e-6));
+    CHECK(static_cast<double>(t.grad(x)(0, 1)) == doctest::Approx(e / (1.0 + e)).epsilon(1e-6));
+}
+
+TEST_CASE_TEMPLATE("log_softmax stays finite for logits of +-1e4", T, float, double) {
+    tape<T> t;
+    t.set_check_finite(true);  // would throw on any NaN or infinity
+    const auto x = t.variable(make_matrix<T>({{T(1e4), T(-1e4), T(0)}, {T(-1e4), T(-1e4), T(-1e4)}}));
+    const auto y = tenon::log_softmax_rows(x);
+    CHECK(static_cast<double>(y.value()(0, 0)) == doctest::Approx(0.0));
+    CHECK(static_cast<double>(y.value()(0, 1)) == doctest::Approx(-2e4));
+    CHECK(static_cast<double>(y.value()(0, 2)) == doctest::Approx(-1e4));
+    // Three equal logits: log(1/3) each.
+    for (std::size_t j = 0; j < 3; ++j) CHECK(static_cast<double>(y.value()(1, j)) == doctest::Approx(-std::log(3.0)).epsilon(1e-6));
+    CHECK_NOTHROW(t.backward(tenon::sum(y)));
+    for (std::size_t k = 0; k < 6; ++k) CHECK(std::isfinite(t.grad(x).data()[k]));
+}
+
+TEST_CASE_TEMPLATE("forward values of broadcasting, reductions and matmul", T, float, double) {
+    tape<T> t;
+    const auto x = t.input(make_matrix<T>({{T(1), T(2), T(3)}, {T(4), T(5), T(6)}}));
+    const auto row = t.input(make_matrix<T>({{T(10), T(20), T(30)}}));
+    const auto col = t.input(make_matrix<T>({{T(100)}, {T(200)}}));
+    const auto one = t.scalar(T(2));
+
+    const auto with_row = x + row;
+    CHECK(with_row.value()(1, 2) == T(36));
+    const auto with_col = x - col;
+    CHECK(with_col.value()(1, 0) == T(-196));
+    const auto with_scalar = x / one;
+    CHECK(with_scalar.value()(0, 2) == T(1.5));
+    const auto outer = col * row;  // 2x1 times 1x3 broadcasts to 2x3
+    CHECK(outer.shape() == shape2{2, 3});
+    CHECK(outer.value()(1, 2) == T(6000));
+
+    CHECK(tenon::sum(x).value()(0, 0) == T(21));
+    CHECK(tenon::mean(x).value()(0, 0) == T(3.5));
+    const auto s0 = tenon::sum(x, 0), s1 = tenon::sum(x, 1), m0 = tenon::mean(x, 0), m1 = tenon::mean(x, 1);
+    CHECK(s0.shape() == shape2{1, 3});
+    CHECK(s0.value()(0, 1) == T(7));
+    CHECK(s1.shape() == shape2{2, 1});
+    CHECK(s1.value()(1, 0) == T(15));
+    CHECK(m0.value()(0, 2) == T(4.5));
+    CHECK(m1.value()(0, 0) == T(2));
+
+    // [1 2 3; 4 5 6] [1 2 3; 4 5 6]^T = [14 32; 32 77]
+    const auto gram = tenon::matmul(x, x, false, true);
+    CHECK(gram.shape() == shape2{2, 2});
+    CHECK(gram.value()(0, 1) == T(32));
+    CHECK(gram.value()(1, 1) == T(77));
+    // x^T x is 3x3 with (2, 2) = 9 + 36.
+    const auto cross = tenon::matmul(x, x, true, false);
+    CHECK(cross.shape() == shape2{3, 3});
+    CHECK(cross.value()(2, 2) == T(45));
+    CHECK(tenon::clamp(x, T(2), T(5)).value()(1, 2) == T(5));
+    CHECK(tenon::clamp(x, T(2), T(5)).value()(0, 0) == T(2));
+    const T raw[] = {T(1), T(4), T(9)};
+    CHECK(tenon::sqrt(t.input(raw, 1, 3)).value()(0, 2) == T(3));
+    CHECK(tenon::pow(x, T(2)).value()(1, 1) == T(25));
+}
+
+// ---------------------------------------------------------------------------
+// errors
+
+TEST_CASE_TEMPLATE("shape mismatches name both shapes", T, float, double) {
+    tape<T> t;
+    const auto a = t.input(matrix<T>({2, 3}, T(1)));
+    const auto b = t.input(matrix<T>({3, 2}, T(1)));
+    const auto c = t.input(matrix<T>({4, 5}, T(1)));
+
+    const tenon::error add_error = expect_error([&] { tenon::add(a, b); });
+    CHECK(add_error.code() == "core.shape.mismatch");
+    CHECK(contains(add_error.what(), "add"));
+    CHECK(contains(add_error.what(), "2x3"));
+    CHECK(contains(add_error.what(), "3x2"));
+    CHECK(expect_error([&] { tenon::multiply(a, t.input(matrix<T>({1, 2}, T(1)))); }).code() == "core.shape.mismatch");
+
+    const tenon::error mm_error = expect_error([&] { tenon::matmul(a, c); });
+    CHECK(mm_error.code() == "core.shape.mismatch");
+    CHECK(contains(mm_error.what(), "matmul"));
+    CHECK(contains(mm_error.what(), "2x3"));
+    CHECK(contains(mm_error.what(), "4x5"));
+    // With the transposes applied the shapes chain; without, they do not.
+    CHECK_NOTHROW(tenon::matmul(a, b));
+    CHECK_NOTHROW(tenon::matmul(a, a, true, false));
+    CHECK(expect_error([&] { tenon::matmul(a, c, true, true); }).code() == "core.shape.mismatch");
+
+    const auto empty_row = t.input(matrix<T>({3, 0}));
+    CHECK(expect_error([&] { tenon::logsumexp_rows(empty_row); }).code() == "core.shape.mismatch");
+    CHECK(expect_error([&] { tenon::log_softmax_rows(empty_row); }).code() == "core.shape.mismatch");
+
+    tenon::parameter<T> p("bias", shape2{1, 3});
+    const tenon::error assign_error = expect_error([&] { p.assign(matrix<T>({2, 3}, T(0))); });
+    CHECK(assign_error.code() == "core.shape.mismatch");
+    CHECK(contains(assign_error.what(), "bias"));
+}
+
+TEST_CASE_TEMPLATE("backward from a value that is not 1x1 is refused", T, float, double) {
+    tape<T> t;
+    const auto x = t.variable(matrix<T>({2, 2}, T(1)));
+    const tenon::error e = expect_error([&] { t.backward(tenon::exp(x)); });
+    CHECK(e.code() == "autodiff.backward.not_scalar");
+    CHECK(contains(e.what(), "2x2"));
+    CHECK(contains(e.what(), "exp"));
+}
+
+TEST_CASE_TEMPLATE("values from a cleared or another tape are refused", T, float, double) {
+    tape<T> t, other;
+    const auto stale = t.variable(matrix<T>({1, 2}, T(1)));
+    t.clear();
+    const auto fresh = t.variable(matrix<T>({1, 2}, T(2)));  // same node id as `stale`
+    REQUIRE(fresh.id() == stale.id());
+    for (const auto& e : {expect_error([&] { tenon::exp(stale); }), expect_error([&] { stale.value(); }),
+                          expect_error([&] { t.grad(stale); }), expect_error([&] { fresh + stale; }),
+                          expect_error([&] { t.backward(tenon::sum(stale)); })}) {
+        CHECK(e.code() == "autodiff.value.foreign");
+        CHECK(contains(e.what(), "cleared"));
+    }
+
+    const auto elsewhere = other.variable(matrix<T>({1, 2}, T(3)));
+    const tenon::error e = expect_error([&] { tenon::add(fresh, elsewhere); });
+    CHECK(e.code() == "autodiff.value.foreign");
+    CHECK(contains(e.what(), "another tape"));
+    CHECK(expect_error([&] { t.backward(tenon::sum(elsewhere)); }).code() == "autodiff.value.foreign");
+    CHECK(expect_error([&] { tenon::matmul(fresh, elsewhere, false, true); }).code() == "autodiff.value.foreign");
+
+    // A var recorded on no tape at all.
+    const var<T> nothing;
+    CHECK_FALSE(nothing.valid());
+    CHECK(expect_error([&] { nothing.value(); }).code() == "autodiff.value.foreign");
+    CHECK(expect_error([&] { tenon::tanh(nothing); }).code() == "autodiff.value.foreign");
+}
+
+TEST_CASE_TEMPLATE("a custom operation takes at most four inputs", T, float, double) {
+    const total_operation<T> total;
+    tape<T> t;
+    const auto a = t.variable(matrix<T>({1, 2}, T(1)));
+    const auto four = t.apply(total, {a, a, a, a});
+    CHECK(four.value()(0, 1) == T(4));
+    t.backward(tenon::sum(four));
+    CHECK(t.grad(a)(0, 0) == T(4));  // four uses, four contributions
+
+    const tenon::error e = expect_error([&] { t.apply(total, {a, a, a, a, a}); });
+    CHECK(e.code() == "autodiff.custom.too_many_inputs");
+    CHECK(contains(e.what(), "total"));
+    CHECK(contains(e.what(), "5 inputs"));
+}
+
+TEST_CASE_TEMPLATE("invalid arguments: clamp bounds, reduction axis", T, float, double) {
+    tape<T> t;
+    const auto x = t.variable(matrix<T>({2, 2}, T(1)));
+    const tenon::error clamp_error = expect_error([&] { tenon::clamp(x, T(1), T(-1)); });
+    CHECK(clamp_error.code() == "core.argument.invalid");
+    CHECK(contains(clamp_error.what(), "clamp"));
+    CHECK_NOTHROW(tenon::clamp(x, T(0.5), T(0.5)));
+
+    const tenon::error axis_error = expect_error([&] { tenon::sum(x, 2); });
+    CHECK(axis_error.code() == "core.argument.invalid");
+    CHECK(contains(axis_error.what(), "got 2"));
+    CHECK(expect_error([&] { tenon::mean(x, -1); }).code() == "core.argument.invalid");
+}
+
+// ---------------------------------------------------------------------------
+// the finite check
+
+TEST_CASE_TEMPLATE("the finite check names the first operation producing NaN or infinity", T, float, double) {
+    {
+        tape<T> t;
+        t.set_check_finite(true);
+        CHECK(t.check_finite());
+        const auto x = t.input(make_matrix<T>({{T(1), T(0)}}));  // operation #0
+        const tenon::error e = expect_error([&] { tenon::log(x); });  // operation #1: log 0 = -inf
+        CHECK(e.code() == "autodiff.non_finite");
+        CHECK(contains(e.what(), "operation #1 (log)"));
+        CHECK(contains(e.what(), "column 1"));
+    }
+    {
+        // sqrt(0) = 0 is finite, but its derivative 1 / (2 sqrt 0) is not.
+        tape<T> t;
+        t.set_check_finite(true);
+        const auto x = t.variable(make_matrix<T>({{T(4), T(0)}}));  // #0
+        const auto r = tenon::sqrt(x);                               // #1
+        const tenon::error e = expect_error([&] { t.backward(tenon::sum(r)); });
+        CHECK(e.code() == "autodiff.non_finite");
+        CHECK(contains(e.what(), "backward through operation #1 (sqrt)"));
+    }
+    {
+        // A host-defined operation is reported by its own name.
+        const reciprocal_operation<T> reciprocal;
+        tape<T> t;
+        t.set_check_finite(true);
+        const auto x = t.variable(make_matrix<T>({{T(2), T(0)}}));
+        const tenon::error e = expect_error([&] { t.apply(reciprocal, {x}); });
+        CHECK(e.code() == "autodiff.non_finite");
+        CHECK(contains(e.what(), "operation #1 (reciprocal)"));
+    }
+    {
+        // Overflow to infinity is caught at the operation that overflows.
+        tape<T> t;
+        t.set_check_finite(true);
+        const auto big = t.input(make_matrix<T>({{std::numeric_limits<T>::max(), T(1)}}));  // #0
+        const tenon::error e = expect_error([&] { big + big; });  // #1: overflows to +inf
+        CHECK(e.code() == "autodiff.non_finite");
+        CHECK(contains(e.what(), "operation #1 (add)"));
+        CHECK(contains(e.what(), "column 0"));
+    }
+}
+
+TEST_CASE_TEMPLATE("a side branch off the path to the loss does not poison gradients", T, float, double) {
+    // sqrt(0) = 0 is a finite value whose derivative is infinite. When that
+    // node does not feed the loss, its upstream gradient is zero and backward
+    // must skip it rather than add 0 * inf = NaN into the shared input.
+    tape<T> t;
+    t.set_check_finite(true);
+    const auto x = t.variable(make_matrix<T>({{T(4), T(0)}}));
+    const auto side = tenon::sqrt(x);  // e.g. a monitored value
+    const auto loss = tenon::sum(tenon::square(x));
+    CHECK_NOTHROW(t.backward(loss));
+    CHECK(t.grad(x)(0, 0) == T(8));
+    CHECK(t.grad(x)(0, 1) == T(0));
+    CHECK(t.grad(side)(0, 1) == T(0));
+}
+
+TEST_CASE_TEMPLATE("with the finite check off, non-finite values pass silently", T, float, double) {
+    tape<T> t;
+    CHECK_FALSE(t.check_finite());
+    const auto x = t.variable(make_matrix<T>({{T(1), T(0)}}));
+    const auto l = tenon::log(x);
+    CHECK(std::isinf(l.value()(0, 1)));
+    const auto r = tenon::sqrt(x);
+    CHECK_NOTHROW(t.backward(tenon::sum(r)));
+    CHECK(std::isinf(t.grad(x)(0, 1)));
+}
+
+// ---------------------------------------------------------------------------
+// reuse, accumulation, frozen parameters
+
+namespace {
+
+// One training-step graph: mean(tanh(x W + b)^2), recorded on a cleared tape.
+// Returns the data() pointers of every recorded value, in recording order.
+template <class T>
+std::vector<const T*> record_step(tape<T>& t, tenon::parameter<T>& w, tenon::parameter<T>& b, const matrix<T>& x, T& loss_value) {
+    t.clear();
+    std::vector<var<T>> vars;
+    vars.push_back(t.input(x));
+    vars.push_back(t.watch(w));
+    vars.push_back(t.watch(b));
+    vars.push_back(tenon::matmul(vars[0], vars[1]));
+    vars.push_back(vars[3] + vars[2]);
+    vars.push_back(tenon::tanh(vars[4]));
+    vars.push_back(tenon::square(vars[5]));
+    vars.push_back(tenon::mean(vars[6]));
+    t.backward(vars.back());
+    loss_value = vars.back().value()(0, 0);
+    std::vector<const T*> buffers;
+    for (const auto& v : vars) {
+        buffers.push_back(v.value().data());
+        buffers.push_back(t.grad(v).data());
+    }
+    return buffers;
+}
+
+}  // namespace
+
+TEST_CASE_TEMPLATE("recording the same graph after clear() reuses every buffer", T, float, double) {
+    tenon::random_engine rng(3);
+    matrix<T> x({4, 3}), w0({3, 2});
+    for (auto& v : x) v = rng.uniform<T>(T(-1), T(1));
+    for (auto& v : w0) v = rng.uniform<T>(T(-1), T(1));
+    tenon::parameter<T> w("w", w0), b("b", shape2{1, 2});
+    tape<T> t;
+
+    T first_loss = T(0);
+    const auto first = record_step(t, w, b, x, first_loss);
+    const matrix<T> first_grad = w.grad();
+    CHECK(t.size() == 8);
+    for (int step = 0; step < 3; ++step) {
+        w.zero_grad();
+        b.zero_grad();
+        T loss = T(0);
+        const auto again = record_step(t, w, b, x, loss);
+        CHECK(again == first);  // same buffers, node by node
+        CHECK(loss == first_loss);  // bit-identical results
+        for (std::size_t k = 0; k < w.size(); ++k) CHECK(w.grad().data()[k] == first_grad.data()[k]);
+    }
+}
+
+TEST_CASE_TEMPLATE("two backward passes without zero_grad add up", T, float, double) {
+    tenon::parameter<T> w("w", make_matrix<T>({{T(0.5), T(-1)}}));
+    tape<T> t;
+    const auto loss = tenon::sum(tenon::square(t.watch(w)));  // d/dw = 2w
+    t.backward(loss);
+    CHECK(w.grad()(0, 0) == doctest::Approx(1.0));
+    t.backward(loss);  // the same recording again
+    CHECK(w.grad()(0, 0) == doctest::Approx(2.0));
+    t.clear();
+    t.backward(tenon::sum(tenon::square(t.watch(w))));  // and a fresh recording
+    CHECK(w.grad()(0, 0) == doctest::Approx(3.0));
+    CHECK(w.grad()(0, 1) == doctest::Approx(-6.0));
+    w.zero_grad();
+    CHECK(w.grad()(0, 1) == T(0));
+}
+
+TEST_CASE_TEMPLATE("grad() reads zero for values that did not influence the loss", T, float, double) {
+    tape<T> t;
+    const auto x = t.variable(make_matrix<T>({{T(1), T(2)}}));
+    const auto first_loss = tenon::sum(tenon::square(x));
+    const auto later = tenon::exp(x);  // recorded after first_loss
+    const auto second_loss = tenon::sum(later);
+    t.backward(second_loss);
+    CHECK(t.grad(later)(0, 0) == T(1));
+    t.backward(first_loss);
+    // `later` has no path to first_loss: its gradient must not be the stale
+    // value of the previous pass.
+    CHECK(t.grad(later)(0, 0) == T(0));
+    CHECK(t.grad(x)(0, 1) == T(4));
+    // Constants never get a gradient.
+    const auto c = t.input(make_matrix<T>({{T(1)}}));
+    CHECK(t.grad(c)(0, 0) == T(0));
+}
+
+TEST_CASE_TEMPLATE("a frozen parameter takes part in the forward pass but gets no gradient", T, float, double) {
+    tenon::parameter<T> frozen("frozen", make_matrix<T>({{T(2), T(3)}}));
+    tenon::parameter<T> live("live", make_matrix<T>({{T(5), T(7)}}));
+    frozen.set_trainable(false);
+    CHECK_FALSE(frozen.trainable());
+    tape<T> t;
+    const auto loss = tenon::sum(t.watch(frozen) * t.watch(live));
+    CHECK(loss.value()(0, 0) == T(31));
+    t.backward(loss);
+    CHECK(frozen.grad()(0, 0) == T(0));
+    CHECK(frozen.grad()(0, 1) == T(0));
+    CHECK(live.grad()(0, 0) == T(2));  // d/dlive = frozen
+    CHECK(live.grad()(0, 1) == T(3));
+
+    // With only frozen parameters the loss needs no gradient at all.
+    t.clear();
+    CHECK_NOTHROW(t.backward(tenon::sum(t.watch(frozen))));
+    CHECK(frozen.grad()(0, 0) == T(0));
+}
