@@ -1,0 +1,625 @@
+// tenon: the preparation plan, measured on training rows only.
+//
+// A `plan` records column roles (feature, target, ignored, group, time) and
+// the steps of each feature column (imputation, missing indicator, scaling,
+// one-hot encoding). It holds no statistics and has no way to prepare rows.
+// `plan::measure(table, training_rows)` learns every statistic from the
+// given training rows alone and returns a `measured_plan`, the only type
+// with apply functions. It applies the same learned state, unchanged, to
+// training, validation, test and new rows, so nothing learned from
+// validation or test rows can leak into training.
+//
+// Feature layout, one block per feature column in table order:
+//   numeric / date-time  1 scaled value          name
+//   categorical          one-hot slots           name=category ..., name=<other>
+//   missing indicator    1 value (1 = missing)   name#missing   (if chosen)
+// Scalings are measured on the present training cells (before imputation).
+//
+// Rows whose target is missing are dropped and counted: when measuring
+// (measured_plan::dropped_training_rows) and when applying
+// (prepared_rows::dropped_missing_target). Never silently.
+//
+// The learned state serializes to a versioned little-endian byte format of
+// tenon's own (to_bytes / from_bytes), which model files embed.
+#pragma once
+
+#include <algorithm>
+#include <charconv>
+#include <cstdint>
+#include <string>
+#include <string_view>
+#include <utility>
+#include <vector>
+
+#include "tenon/core/error.hpp"
+#include "tenon/core/error_codes.hpp"
+#include "tenon/core/matrix.hpp"
+#include "tenon/prep/byte_format.hpp"
+#include "tenon/prep/cell_parsing.hpp"
+#include "tenon/prep/encoding.hpp"
+#include "tenon/prep/imputation.hpp"
+#include "tenon/prep/scaling.hpp"
+#include "tenon/prep/statistics.hpp"
+#include "tenon/prep/table.hpp"
+
+TENON_NAMESPACE_BEGIN
+
+enum class column_role : std::uint8_t { feature = 0, target = 1, ignored = 2, group = 3, time = 4 };
+enum class target_kind : std::uint8_t { classification = 0, regression = 1 };
+
+/// What to do with one feature column.
+struct feature_steps {
+    fill_method fill = fill_method::none;
+    double fill_number = 0.0;        // fill_method::constant, numeric and date/time columns
+    std::string fill_text;           // fill_method::constant, categorical columns
+    bool missing_indicator = false;  // add a 0/1 "was missing" feature
+    scaling_method scaling = scaling_method::z_score;  // numeric and date/time columns
+    double range_low = 0.0, range_high = 1.0;          // target range of min-max scaling
+    unseen_policy unseen = unseen_policy::fail;        // categorical columns
+    bool drop_first = false;                           // categorical columns
+};
+
+/// Rows prepared by a measured plan. `rows[i]` is the table row that became
+/// row i (rows with a missing target are left out and counted).
+template <class T>
+struct prepared_rows {
+    matrix<T> features;                   // rows x feature_count()
+    matrix<T> targets;                    // rows x class_count() one-hot, or rows x 1 scaled regression values
+    std::vector<std::uint32_t> classes;   // class index per row (classification only)
+    std::vector<std::size_t> rows;
+    std::size_t dropped_missing_target = 0;
+};
+
+namespace detail {
+struct measured_feature {
+    std::string name;
+    column_kind kind = column_kind::numeric;
+    fill_value fill;
+    bool indicator = false;
+    scaling scale;            // numeric and date/time
+    one_hot_layout one_hot;   // categorical
+    std::size_t offset = 0;   // first output column
+    std::size_t width = 0;    // output columns, indicator included
+};
+
+// Shortest text of a number into a caller buffer (no allocation).
+inline std::string_view number_text(double v, char (&buffer)[64]) {
+    const auto r = std::to_chars(buffer, buffer + sizeof(buffer), v);
+    return std::string_view(buffer, static_cast<std::size_t>(r.ptr - buffer));
+}
+}  // namespace detail
+
+class measured_plan;
+
+/// Column roles and step choices; measure() turns it into a measured_plan.
+class plan {
+public:
+    /// Role of columns not named in set_role (feature unless changed).
+    plan& set_default_role(column_role role) {
+        default_role_ = role;
+        return *this;
+    }
+    plan& set_role(const std::string& column_name, column_role role) {
+        if (role == column_role::target)
+            raise(codes::invalid_argument, "plan: use set_target to choose the target column ('" + column_name + "')");
+        for (auto& r : roles_)
+            if (r.first == column_name) {
+                r.second = role;
+                return *this;
+            }
+        roles_.emplace_back(column_name, role);
+        return *this;
+    }
+    /// Steps of feature columns not named in set_steps.
+    plan& set_default_steps(feature_steps steps) {
+        default_steps_ = std::move(steps);
+        return *this;
+    }
+    plan& set_steps(const std::string& column_name, feature_steps steps) {
+        for (auto& s : steps_)
+            if (s.first == column_name) {
+                s.second = std::move(steps);
+                return *this;
+            }
+        steps_.emplace_back(column_name, std::move(steps));
+        return *this;
+    }
+    /// The target column; regression targets are scaled with `regression_scaling`.
+    plan& set_target(const std::string& column_name, target_kind kind,
+                     scaling_method regression_scaling = scaling_method::z_score) {
+        target_ = column_name;
+        target_kind_ = kind;
+        target_scaling_ = regression_scaling;
+        return *this;
+    }
+    /// Cell texts that read as missing when raw rows are applied later.
+    plan& set_missing_tokens(std::vector<std::string> tokens) {
+        missing_tokens_ = std::move(tokens);
+        return *this;
+    }
+
+    column_role role_of(const std::string& column_name) const {
+        if (column_name == target_) return column_role::target;
+        for (const auto& r : roles_)
+            if (r.first == column_name) return r.second;
+        return default_role_;
+    }
+    const feature_steps& steps_of(const std::string& column_name) const {
+        for (const auto& s : steps_)
+            if (s.first == column_name) return s.second;
+        return default_steps_;
+    }
+
+    /// Learns every statistic from `training_rows` of `t` only.
+    inline measured_plan measure(const table& t, const std::vector<std::size_t>& training_rows) const;
+
+private:
+    std::vector<std::pair<std::string, column_role>> roles_;
+    std::vector<std::pair<std::string, feature_steps>> steps_;
+    column_role default_role_ = column_role::feature;
+    feature_steps default_steps_;
+    std::string target_;
+    target_kind target_kind_ = target_kind::classification;
+    scaling_method target_scaling_ = scaling_method::z_score;
+    std::vector<std::string> missing_tokens_ = default_missing_tokens();
+};
+
+/// A plan with its statistics learned; the only type that prepares rows.
+/// Obtained from plan::measure or measured_plan::from_bytes.
+class measured_plan {
+public:
+    // --- what the plan produces -------------------------------------------------------
+    std::size_t feature_count() const noexcept { return feature_names_.size(); }
+    const std::vector<std::string>& feature_names() const noexcept { return feature_names_; }
+    /// Source columns the features come from, in the order apply_cells expects.
+    const std::vector<std::string>& input_columns() const noexcept { return input_columns_; }
+    bool has_target() const noexcept { return !target_name_.empty(); }
+    const std::string& target_name() const noexcept { return target_name_; }
+    target_kind target_type() const noexcept { return target_kind_; }
+    std::size_t class_count() const noexcept { return classes_.size(); }
+    const std::vector<std::string>& class_names() const noexcept { return classes_.names(); }
+    const class_index& classes() const noexcept { return classes_; }
+    const scaling& target_scaling() const noexcept { return target_scale_; }
+    const std::string& group_column() const noexcept { return group_column_; }
+    const std::string& time_column() const noexcept { return time_column_; }
+    const std::vector<std::string>& missing_tokens() const noexcept { return missing_tokens_; }
+    /// Training rows left out of the measurement because their target was missing.
+    std::size_t dropped_training_rows() const noexcept { return dropped_training_rows_; }
+    /// The learned scaling of a numeric or date/time feature column.
+    const scaling& feature_scaling(const std::string& column_name) const { return feature(column_name).scale; }
+    const fill_value& feature_fill(const std::string& column_name) const { return feature(column_name).fill; }
+    const one_hot_layout& feature_categories(const std::string& column_name) const { return feature(column_name).one_hot; }
+
+    // --- applying ------------------------------------------------------------------------
+    /// Prepares the given rows of a table (features and, if the plan has a
+    /// target, targets), reusing out's buffers.
+    template <class T>
+    void apply(const table& t, const std::vector<std::size_t>& rows, prepared_rows<T>& out) const {
+        TENON_REQUIRE_SCALAR(T);
+        const column* target = has_target() ? &t.at(target_name_) : nullptr;
+        out.rows.clear();
+        out.dropped_missing_target = 0;
+        for (auto r : rows) {
+            if (r >= t.row_count())
+                raise(codes::prep_row_out_of_range, where(t) + ": row " + std::to_string(r) +
+                                                        " is not below the row count " + std::to_string(t.row_count()));
+            if (target && target->is_missing(r)) {
+                ++out.dropped_missing_target;
+                continue;
+            }
+            out.rows.push_back(r);
+        }
+        write_features(t, out.rows, out.features);
+        if (!target) {
+            ensure_shape(out.targets, shape2{out.rows.size(), 0});
+            out.classes.clear();
+            return;
+        }
+        const std::size_t n = out.rows.size();
+        if (target_kind_ == target_kind::classification) {
+            ensure_shape(out.targets, shape2{n, classes_.size()});
+            out.classes.resize(n);
+            std::fill(out.targets.data(), out.targets.data() + out.targets.size(), T(0));
+            char buffer[64];
+            for (std::size_t i = 0; i < n; ++i) {
+                const std::size_t r = out.rows[i];
+                const std::string_view name = target->kind() == column_kind::categorical
+                                                  ? std::string_view(target->category(r))
+                                                  : detail::number_text(target->number(r), buffer);
+                const std::int64_t k = classes_.find(name);
+                if (k < 0)
+                    raise(codes::prep_unseen_category, where(t) + " row " + std::to_string(r) + ": the class '" +
+                                                           std::string(name) + "' of target '" + target_name_ +
+                                                           "' was not seen in the training rows");
+                out.classes[i] = static_cast<std::uint32_t>(k);
+                out.targets(i, static_cast<std::size_t>(k)) = T(1);
+            }
+        } else {
+            require_number_target(*target);
+            ensure_shape(out.targets, shape2{n, 1});
+            out.classes.clear();
+            for (std::size_t i = 0; i < n; ++i)
+                out.targets(i, 0) = static_cast<T>(target_scale_.forward(target->number(out.rows[i])));
+        }
+    }
+
+    template <class T>
+    prepared_rows<T> apply(const table& t, const std::vector<std::size_t>& rows) const {
+        prepared_rows<T> out;
+        apply(t, rows, out);
+        return out;
+    }
+
+    /// Prepares features only (the table need not have the target column);
+    /// every given row is kept.
+    template <class T>
+    void apply_features(const table& t, const std::vector<std::size_t>& rows, matrix<T>& features) const {
+        TENON_REQUIRE_SCALAR(T);
+        for (auto r : rows)
+            if (r >= t.row_count())
+                raise(codes::prep_row_out_of_range, where(t) + ": row " + std::to_string(r) +
+                                                        " is not below the row count " + std::to_string(t.row_count()));
+        write_features(t, rows, features);
+    }
+
+    /// Prepares one raw row given as cell texts, one per input_columns()
+    /// entry in that order, into out[0 .. feature_count()). Allocates nothing
+    /// on success.
+    template <class T>
+    void apply_cells(const std::string_view* cells, std::size_t count, T* out) const {
+        TENON_REQUIRE_SCALAR(T);
+        if (count != features_.size())
+            raise(codes::shape_mismatch, "apply_cells: the plan reads " + std::to_string(features_.size()) +
+                                             " columns, got " + std::to_string(count) + " cells");
+        for (std::size_t k = 0; k < features_.size(); ++k) {
+            const auto& f = features_[k];
+            const std::string_view cell = detail::trim_blanks(cells[k]);
+            const bool missing = is_missing_cell(cell, missing_tokens_);
+            T* o = out + f.offset;
+            if (f.kind == column_kind::categorical) {
+                write_category(f, missing, missing ? -1 : f.one_hot.find(cell), cell, o, "raw row");
+            } else {
+                double value = 0;
+                if (!missing) {
+                    const bool ok = f.kind == column_kind::numeric ? parse_number(cell, value) : parse_datetime(cell, value);
+                    if (!ok)
+                        raise(f.kind == column_kind::numeric ? codes::prep_cell_not_numeric : codes::prep_cell_not_datetime,
+                              "raw row, column '" + f.name + "': '" + std::string(cell) + "' is not a " +
+                                  (f.kind == column_kind::numeric ? "finite number" : "date/time"));
+                }
+                write_number(f, missing, value, o, "raw row");
+            }
+        }
+    }
+
+    /// Prepares one raw row given as (column name, cell text) pairs in any
+    /// order; extra columns are ignored.
+    template <class T>
+    void apply_named(const std::vector<std::pair<std::string, std::string>>& named_cells, T* out) const {
+        std::vector<std::string_view> cells(features_.size());
+        for (std::size_t k = 0; k < features_.size(); ++k) {
+            bool found = false;
+            for (const auto& nc : named_cells)
+                if (nc.first == features_[k].name) {
+                    cells[k] = nc.second;
+                    found = true;
+                    break;
+                }
+            if (!found)
+                raise(codes::prep_column_unknown, "apply_named: the row has no cell for column '" + features_[k].name + "'");
+        }
+        apply_cells(cells.data(), cells.size(), out);
+    }
+
+    /// Brings a scaled regression value back to the target's original units.
+    double restore_target(double scaled) const {
+        require_regression("restore_target");
+        return target_scale_.inverse(scaled);
+    }
+    template <class T>
+    void restore_targets(matrix<T>& values) const {
+        require_regression("restore_targets");
+        invert_scalings(values, std::vector<scaling>(values.shape()[1], target_scale_));
+    }
+
+    // --- serialization -------------------------------------------------------------------
+    static constexpr std::uint16_t format_version = 1;
+
+    std::vector<std::uint8_t> to_bytes() const {
+        byte_writer w;
+        w.raw("TNPL", 4);
+        w.u16(format_version);
+        w.u32(static_cast<std::uint32_t>(missing_tokens_.size()));
+        for (const auto& s : missing_tokens_) w.text(s);
+        w.u32(static_cast<std::uint32_t>(features_.size()));
+        for (const auto& f : features_) {
+            w.u8(tag_feature);
+            w.text(f.name);
+            w.u8(static_cast<std::uint8_t>(f.kind));
+            w.u8(static_cast<std::uint8_t>(f.fill.method));
+            w.f64(f.fill.number);
+            w.text(f.fill.text);
+            w.u8(f.indicator ? 1 : 0);
+            write_scaling(w, f.scale);
+            w.u8(static_cast<std::uint8_t>(f.one_hot.policy()));
+            w.u8(f.one_hot.drop_first() ? 1 : 0);
+            w.u32(static_cast<std::uint32_t>(f.one_hot.categories().size()));
+            for (const auto& c : f.one_hot.categories()) w.text(c);
+        }
+        w.u8(has_target() ? 1 : 0);
+        if (has_target()) {
+            w.u8(tag_target);
+            w.text(target_name_);
+            w.u8(static_cast<std::uint8_t>(target_kind_));
+            w.u32(static_cast<std::uint32_t>(classes_.size()));
+            for (const auto& c : classes_.names()) w.text(c);
+            write_scaling(w, target_scale_);
+        }
+        w.text(group_column_);
+        w.text(time_column_);
+        w.u64(dropped_training_rows_);
+        return w.release();
+    }
+
+    static measured_plan from_bytes(const std::uint8_t* data, std::size_t size) {
+        byte_reader r(data, size, "measured plan");
+        const char magic[4] = {'T', 'N', 'P', 'L'};
+        for (char m : magic)
+            if (r.u8() != static_cast<std::uint8_t>(m))
+                raise(codes::prep_bytes_bad_tag, "measured plan: the bytes do not start with the magic 'TNPL'");
+        const std::uint16_t version = r.u16();
+        if (version != format_version)
+            raise(codes::prep_bytes_bad_tag, "measured plan: format version " + std::to_string(version) +
+                                                 " is not supported (this build reads version " +
+                                                 std::to_string(format_version) + ")");
+        measured_plan p;
+        p.missing_tokens_.resize(r.count(4, "missing tokens"));
+        for (auto& s : p.missing_tokens_) s = r.text();
+        p.features_.resize(r.count(40, "feature columns"));
+        for (auto& f : p.features_) {
+            r.expect_tag(tag_feature, "a feature column");
+            f.name = r.text();
+            f.kind = r.enumeration<column_kind>(2, "column kind");
+            f.fill.method = r.enumeration<fill_method>(4, "fill method");
+            f.fill.number = r.f64();
+            f.fill.text = r.text();
+            f.indicator = r.flag("missing indicator");
+            f.scale = read_scaling(r);
+            const auto policy = r.enumeration<unseen_policy>(2, "unseen-category policy");
+            const bool drop_first = r.flag("drop-first");
+            std::vector<std::string> categories(r.count(4, "categories"));
+            for (auto& c : categories) c = r.text();
+            f.one_hot = one_hot_layout(std::move(categories), policy, drop_first);
+        }
+        if (r.flag("has-target")) {
+            r.expect_tag(tag_target, "the target");
+            p.target_name_ = r.text();
+            p.target_kind_ = r.enumeration<target_kind>(1, "target kind");
+            std::vector<std::string> names(r.count(4, "classes"));
+            for (auto& c : names) c = r.text();
+            p.classes_ = class_index(std::move(names));
+            p.target_scale_ = read_scaling(r);
+        }
+        p.group_column_ = r.text();
+        p.time_column_ = r.text();
+        p.dropped_training_rows_ = static_cast<std::size_t>(r.u64());
+        r.expect_end();
+        p.lay_out();
+        return p;
+    }
+    static measured_plan from_bytes(const std::vector<std::uint8_t>& bytes) { return from_bytes(bytes.data(), bytes.size()); }
+
+private:
+    friend class plan;
+    measured_plan() = default;
+
+    static constexpr std::uint8_t tag_feature = 0xF1, tag_target = 0x7A;
+
+    static void write_scaling(byte_writer& w, const scaling& s) {
+        w.u8(static_cast<std::uint8_t>(s.method));
+        w.f64(s.center);
+        w.f64(s.spread);
+        w.f64(s.low);
+        w.f64(s.high);
+    }
+    static scaling read_scaling(byte_reader& r) {
+        scaling s;
+        s.method = r.enumeration<scaling_method>(3, "scaling method");
+        s.center = r.f64();
+        s.spread = r.f64();
+        s.low = r.f64();
+        s.high = r.f64();
+        return s;
+    }
+
+    // Computes offsets, widths, feature and input names from features_.
+    void lay_out() {
+        feature_names_.clear();
+        input_columns_.clear();
+        std::size_t offset = 0;
+        for (auto& f : features_) {
+            f.offset = offset;
+            input_columns_.push_back(f.name);
+            if (f.kind == column_kind::categorical) {
+                for (auto& n : f.one_hot.slot_names(f.name)) feature_names_.push_back(std::move(n));
+                f.width = f.one_hot.width();
+            } else {
+                feature_names_.push_back(f.name);
+                f.width = 1;
+            }
+            if (f.indicator) {
+                feature_names_.push_back(f.name + "#missing");
+                ++f.width;
+            }
+            offset += f.width;
+        }
+    }
+
+    const detail::measured_feature& feature(const std::string& column_name) const {
+        for (const auto& f : features_)
+            if (f.name == column_name) return f;
+        raise(codes::prep_column_unknown, "measured plan: no feature column named '" + column_name + "'");
+    }
+
+    static std::string where(const table& t) { return t.source().empty() ? std::string("table") : t.source(); }
+
+    void require_regression(const char* what) const {
+        if (!has_target() || target_kind_ != target_kind::regression)
+            raise(codes::prep_column_kind, std::string(what) + ": the plan has no regression target");
+    }
+    void require_number_target(const column& c) const {
+        if (c.kind() != column_kind::numeric)
+            raise(codes::prep_column_kind, "regression target '" + c.name() + "' is " + to_string(c.kind()) +
+                                               ", not numeric");
+    }
+
+    template <class T>
+    void write_number(const detail::measured_feature& f, bool missing, double value, T* out, const std::string& at) const {
+        if (missing) {
+            if (f.fill.method == fill_method::none)
+                raise(codes::prep_value_missing, at + ", column '" + f.name + "': the cell is missing and the plan has no fill for it");
+            value = f.fill.number;
+        }
+        out[0] = static_cast<T>(f.scale.forward(value));
+        if (f.indicator) out[1] = missing ? T(1) : T(0);
+    }
+
+    template <class T>
+    void write_category(const detail::measured_feature& f, bool missing, std::int64_t index, std::string_view text,
+                        T* out, const std::string& at) const {
+        if (missing) {
+            if (f.fill.method == fill_method::none)
+                raise(codes::prep_value_missing, at + ", column '" + f.name + "': the cell is missing and the plan has no fill for it");
+            text = f.fill.text;
+            index = f.one_hot.find(text);
+        }
+        if (index < 0 && f.one_hot.policy() == unseen_policy::fail)
+            raise(codes::prep_unseen_category, at + ", column '" + f.name + "': the category '" + std::string(text) +
+                                                   "' was not seen in the training rows");
+        f.one_hot.encode(index, out, f.name, text);
+        if (f.indicator) out[f.width - 1] = missing ? T(1) : T(0);
+    }
+
+    template <class T>
+    void write_features(const table& t, const std::vector<std::size_t>& rows, matrix<T>& features) const {
+        const std::size_t n = rows.size(), width = feature_names_.size();
+        ensure_shape(features, shape2{n, width});
+        std::vector<std::int64_t> category_map;
+        for (const auto& f : features_) {
+            const column& c = t.at(f.name);
+            const bool table_categorical = c.kind() == column_kind::categorical;
+            if (table_categorical != (f.kind == column_kind::categorical))
+                raise(codes::prep_column_kind, where(t) + ", column '" + f.name + "' is " + to_string(c.kind()) +
+                                                   " but the plan was measured on a " + to_string(f.kind) + " column");
+            if (f.kind == column_kind::categorical) {
+                category_map.resize(c.categories().size());
+                for (std::size_t k = 0; k < category_map.size(); ++k) category_map[k] = f.one_hot.find(c.categories()[k]);
+            }
+            for (std::size_t i = 0; i < n; ++i) {
+                const std::size_t r = rows[i];
+                T* o = features.data() + i * width + f.offset;
+                const bool missing = c.is_missing(r);
+                if (missing && f.fill.method == fill_method::none)
+                    raise(codes::prep_value_missing, where(t) + " row " + std::to_string(r) + ", column '" + f.name +
+                                                         "': the cell is missing and the plan has no fill for it");
+                if (f.kind == column_kind::categorical) {
+                    if (missing || category_map[c.code(r)] >= 0 || f.one_hot.policy() != unseen_policy::fail)
+                        write_category(f, missing, missing ? -1 : category_map[c.code(r)],
+                                       missing ? std::string_view() : std::string_view(c.category(r)), o, std::string());
+                    else
+                        raise(codes::prep_unseen_category, where(t) + " row " + std::to_string(r) + ", column '" + f.name +
+                                                               "': the category '" + c.category(r) +
+                                                               "' was not seen in the training rows");
+                } else {
+                    write_number(f, missing, missing ? 0.0 : c.number(r), o, std::string());
+                }
+            }
+        }
+    }
+
+    std::vector<detail::measured_feature> features_;
+    std::vector<std::string> feature_names_;
+    std::vector<std::string> input_columns_;
+    std::vector<std::string> missing_tokens_;
+    std::string target_name_;
+    target_kind target_kind_ = target_kind::classification;
+    class_index classes_;
+    scaling target_scale_;
+    std::string group_column_, time_column_;
+    std::size_t dropped_training_rows_ = 0;
+};
+
+inline measured_plan plan::measure(const table& t, const std::vector<std::size_t>& training_rows) const {
+    const std::string where = t.source().empty() ? std::string("table") : t.source();
+    for (const auto& r : roles_) t.index_of(r.first);
+    for (const auto& s : steps_) t.index_of(s.first);
+    const column* target = target_.empty() ? nullptr : &t.at(target_);
+    measured_plan p;
+    p.missing_tokens_ = missing_tokens_;
+    std::vector<std::size_t> kept;
+    kept.reserve(training_rows.size());
+    for (auto r : training_rows) {
+        if (r >= t.row_count())
+            raise(codes::prep_row_out_of_range, where + ": training row " + std::to_string(r) +
+                                                    " is not below the row count " + std::to_string(t.row_count()));
+        if (target && target->is_missing(r)) {
+            ++p.dropped_training_rows_;
+            continue;
+        }
+        kept.push_back(r);
+    }
+    if (kept.empty())
+        raise(codes::prep_no_rows, where + ": no training rows to measure the plan on (" + std::to_string(training_rows.size()) +
+                                       " given, " + std::to_string(p.dropped_training_rows_) + " dropped for a missing target)");
+    for (std::size_t k = 0; k < t.column_count(); ++k) {
+        const column& c = t[k];
+        const column_role role = role_of(c.name());
+        if (role == column_role::group) p.group_column_ = c.name();
+        if (role == column_role::time) p.time_column_ = c.name();
+        if (role != column_role::feature) continue;
+        const feature_steps& s = steps_of(c.name());
+        detail::measured_feature f;
+        f.name = c.name();
+        f.kind = c.kind();
+        f.indicator = s.missing_indicator;
+        f.fill = measure_fill(c, kept, s.fill, s.fill_number, s.fill_text);
+        if (c.kind() == column_kind::categorical) {
+            const auto counts = category_counts(c, kept);
+            std::vector<std::string> seen;
+            for (std::size_t j = 0; j < counts.size(); ++j)
+                if (counts[j] > 0) seen.push_back(c.categories()[j]);
+            if (f.fill.method == fill_method::constant) seen.push_back(f.fill.text);
+            if (seen.empty())
+                raise(codes::prep_no_rows, where + ", column '" + c.name() + "': no present category in the training rows");
+            f.one_hot = one_hot_layout(std::move(seen), s.unseen, s.drop_first);
+        } else {
+            f.scale = measure_scaling(c, kept, s.scaling, s.range_low, s.range_high);
+        }
+        p.features_.push_back(std::move(f));
+    }
+    if (target) {
+        p.target_name_ = target_;
+        p.target_kind_ = target_kind_;
+        if (target_kind_ == target_kind::classification) {
+            std::vector<std::string> names;
+            if (target->kind() == column_kind::categorical) {
+                const auto counts = category_counts(*target, kept);
+                for (std::size_t j = 0; j < counts.size(); ++j)
+                    if (counts[j] > 0) names.push_back(target->categories()[j]);
+            } else {
+                std::vector<double> values = present_values(*target, kept);
+                std::sort(values.begin(), values.end());
+                values.erase(std::unique(values.begin(), values.end()), values.end());
+                for (double v : values) names.push_back(number_to_text(v));
+            }
+            p.classes_ = class_index(std::move(names));
+        } else {
+            p.require_number_target(*target);
+            p.target_scale_ = measure_scaling(*target, kept, target_scaling_);
+        }
+    }
+    p.lay_out();
+    return p;
+}
+
+TENON_NAMESPACE_END
