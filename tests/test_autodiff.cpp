@@ -362,6 +362,22 @@ TEST_CASE_TEMPLATE("invalid arguments: clamp bounds, reduction axis", T, float, 
     CHECK(expect_error([&] { tenon::mean(x, -1); }).code() == "core.argument.invalid");
 }
 
+TEST_CASE_TEMPLATE("the tape's recording functions refuse kinds they do not compute", T, float, double) {
+    tape<T> t;
+    const auto x = t.variable(matrix<T>({2, 2}, T(1)));
+    const tenon::error e = expect_error([&] { t.unary(tenon::op_kind::add, x); });
+    CHECK(e.code() == "core.argument.invalid");
+    CHECK(contains(e.what(), "'add'"));
+    CHECK(expect_error([&] { t.unary(tenon::op_kind::matmul, x); }).code() == "core.argument.invalid");
+    CHECK(expect_error([&] { t.unary(tenon::op_kind::sum_axis, x); }).code() == "core.argument.invalid");
+    CHECK(expect_error([&] { t.binary(tenon::op_kind::exp, x, x); }).code() == "core.argument.invalid");
+    CHECK(expect_error([&] { t.reduce_axis(tenon::op_kind::sum_all, x, 0); }).code() == "core.argument.invalid");
+    // The spelled-out kinds still work through the generic entry points.
+    CHECK(t.unary(tenon::op_kind::exp, x).value()(0, 0) == doctest::Approx(std::exp(1.0)));
+    CHECK(t.binary(tenon::op_kind::subtract, x, x).value()(1, 1) == T(0));
+    CHECK(t.reduce_axis(tenon::op_kind::mean_axis, x, 1).shape() == shape2{2, 1});
+}
+
 // ---------------------------------------------------------------------------
 // the finite check
 

@@ -208,6 +208,9 @@ public:
     // ----- operations (see operations.hpp for the free-function spelling) ---
 
     var<T> binary(op_kind kind, var<T> x, var<T> y) {
+        if (kind != op_kind::add && kind != op_kind::subtract && kind != op_kind::multiply && kind != op_kind::divide) {
+            raise_wrong_kind("binary", kind);
+        }
         const shape2 sx = shape_of(value_of(x)), sy = shape_of(value_of(y));
         const shape2 out = broadcast_shape(sx, sy, kind);
         const std::uint32_t ids[2] = {x.id(), y.id()};
@@ -232,6 +235,7 @@ public:
     }
 
     var<T> unary(op_kind kind, var<T> x, T a = T(0), T b = T(0)) {
+        if (!is_unary(kind)) raise_wrong_kind("unary", kind);
         const shape2 sx = shape_of(value_of(x));
         shape2 out = sx;
         if (kind == op_kind::sum_all || kind == op_kind::mean_all) out = {1, 1};
@@ -253,6 +257,7 @@ public:
     /// Sum or mean over one axis: axis 0 sums over rows (result 1 x cols),
     /// axis 1 over columns (result rows x 1).
     var<T> reduce_axis(op_kind kind, var<T> x, int axis) {
+        if (kind != op_kind::sum_axis && kind != op_kind::mean_axis) raise_wrong_kind("reduce_axis", kind);
         const shape2 sx = shape_of(value_of(x));
         if (axis != 0 && axis != 1) {
             raise(codes::invalid_argument, std::string(op_name(kind)) + ": axis must be 0 (over rows) or 1 (over columns), got " + std::to_string(axis));
@@ -412,6 +417,25 @@ private:
                                              " do not broadcast (each dimension must match or be 1)");
         }
         return out;
+    }
+
+    // The recording functions take the kind as an argument; a kind they do
+    // not compute would make forward read operands that do not exist.
+    static bool is_unary(op_kind k) noexcept {
+        switch (k) {
+            case op_kind::scale: case op_kind::shift: case op_kind::sum_all: case op_kind::mean_all:
+            case op_kind::exp: case op_kind::log: case op_kind::square: case op_kind::sqrt: case op_kind::abs:
+            case op_kind::pow: case op_kind::tanh: case op_kind::sigmoid: case op_kind::relu: case op_kind::leaky_relu:
+            case op_kind::elu: case op_kind::softplus: case op_kind::gelu_erf: case op_kind::gelu_tanh:
+            case op_kind::logsumexp_rows: case op_kind::log_softmax_rows: case op_kind::clamp: case op_kind::stop_gradient:
+                return true;
+            default:
+                return false;
+        }
+    }
+    [[noreturn]] static void raise_wrong_kind(const char* recorder, op_kind k) {
+        raise(codes::invalid_argument, std::string("tape::") + recorder + ": operation '" + op_name(k) + "' is not recorded by " +
+                                           recorder + "(); use its own function (see operations.hpp)");
     }
 
     // The name reports use: the operation's, or a custom operation's own.
