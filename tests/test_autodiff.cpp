@@ -504,6 +504,23 @@ TEST_CASE_TEMPLATE("recording the same graph after clear() reuses every buffer",
     }
 }
 
+TEST_CASE_TEMPLATE("clear() empties the recording; watch() follows a resized parameter", T, float, double) {
+    tape<T> t;
+    tenon::parameter<T> p("p", make_matrix<T>({{T(1), T(2)}}));
+    t.watch(p);
+    CHECK(t.size() == 1);
+    t.clear();
+    CHECK(t.size() == 0);
+
+    // A host that reshapes a parameter's value directly gets a gradient of
+    // the new shape, starting from zero, the next time the tape watches it.
+    p.value() = make_matrix<T>({{T(1)}, {T(2)}, {T(3)}});
+    const auto v = t.watch(p);
+    CHECK(tenon::shape_of(p.grad()) == shape2{3, 1});
+    t.backward(tenon::sum(tenon::square(v)));
+    CHECK(p.grad()(2, 0) == T(6));
+}
+
 TEST_CASE_TEMPLATE("two backward passes without zero_grad add up", T, float, double) {
     tenon::parameter<T> w("w", make_matrix<T>({{T(0.5), T(-1)}}));
     tape<T> t;
