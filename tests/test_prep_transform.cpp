@@ -1,0 +1,181 @@
+// Tests of prep/scaling.hpp, prep/encoding.hpp and prep/imputation.hpp.
+#include <doctest/doctest.h>
+
+#include <sstream>
+#include <string>
+#include <vector>
+
+#include <tenon/prep/csv.hpp>
+#include <tenon/prep/encoding.hpp>
+#include <tenon/prep/imputation.hpp>
+#include <tenon/prep/scaling.hpp>
+
+#include "prep_test_support.hpp"
+
+using prep_test::error_code_of;
+
+namespace {
+tenon::table table_of(const std::string& text) {
+    std::istringstream in(text);
+    return tenon::read_csv(in, {}, "s.csv");
+}
+}  // namespace
+
+TEST_CASE("min-max worked example: 2 4 6 10 to [0, 1] and to [-1, 1]") {
+    auto t = table_of("x\n2\n4\n6\n10\n");
+    auto s = tenon::measure_scaling(t.at("x"), tenon::all_rows(4), tenon::scaling_method::min_max);
+    CHECK(s.forward(2) == 0.0);
+    CHECK(s.forward(6) == doctest::Approx(0.5));  // (6 - 2) / (10 - 2)
+    CHECK(s.forward(10) == 1.0);
+    auto wide = tenon::measure_scaling(t.at("x"), tenon::all_rows(4), tenon::scaling_method::min_max, -1.0, 1.0);
+    CHECK(wide.forward(6) == doctest::Approx(0.0));  // -1 + 0.5 * 2
+    CHECK(wide.inverse(wide.forward(4)) == doctest::Approx(4.0));
+    std::string message;
+    CHECK(error_code_of([&] { tenon::measure_scaling(t.at("x"), {0}, tenon::scaling_method::min_max, 1.0, 1.0); }, &message) ==
+          "core.argument.invalid");
+    CHECK(message == "[core.argument.invalid] min-max scaling: the target range must satisfy low < high, got [1.000000, 1.000000]");
+}
+
+TEST_CASE("z-score worked example: 2 4 4 4 5 5 7 9 has mean 5 and population deviation 2") {
+    // The classic example of a population standard deviation (from memory):
+    // squared deviations 9+1+1+1+0+0+4+16 = 32, 32 / 8 = 4, sqrt 4 = 2.
+    auto t = table_of("x\n2\n4\n4\n4\n5\n5\n7\n9\n");
+    auto s = tenon::measure_scaling(t.at("x"), tenon::all_rows(8), tenon::scaling_method::z_score);
+    CHECK(s.center == doctest::Approx(5.0));
+    CHECK(s.spread == doctest::Approx(2.0));
+    CHECK(s.forward(9) == doctest::Approx(2.0));
+    CHECK(s.forward(2) == doctest::Approx(-1.5));
+    CHECK(s.inverse(-1.5) == doctest::Approx(2.0));
+}
+
+TEST_CASE("z-score keeps precision at an offset of 1e9") {
+    // 1e9 + {0.1, 0.2, 0.3}: mean 1e9 + 0.2, deviation sqrt(2/300) = 0.0816...
+    auto t = table_of("x\n1000000000.1\n1000000000.2\n1000000000.3\n");
+    auto s = tenon::measure_scaling(t.at("x"), tenon::all_rows(3), tenon::scaling_method::z_score);
+    CHECK(s.spread == doctest::Approx(std::sqrt(0.02 / 3.0)).epsilon(1e-6));
+    CHECK(s.forward(1000000000.3) == doctest::Approx(std::sqrt(1.5)).epsilon(1e-6));  // 0.1 / sqrt(0.02/3)
+}
+
+TEST_CASE("robust scaling worked example: median and interquartile range") {
+    // 1 2 3 4 100: median 3, Q1 2, Q3 4 (Hyndman & Fan def. 7), IQR 2.
+    auto t = table_of("x\n1\n2\n3\n4\n100\n");
+    auto s = tenon::measure_scaling(t.at("x"), tenon::all_rows(5), tenon::scaling_method::robust);
+    CHECK(s.center == 3.0);
+    CHECK(s.spread == 2.0);
+    CHECK(s.forward(100) == doctest::Approx(48.5));
+    CHECK(s.inverse(48.5) == doctest::Approx(100.0));
+}
+
+TEST_CASE("constant columns: no division by zero, documented images, exact inverse") {
+    auto t = table_of("x\n7\n7\n7\n");
+    const auto rows = tenon::all_rows(3);
+    auto z = tenon::measure_scaling(t.at("x"), rows, tenon::scaling_method::z_score);
+    auto m = tenon::measure_scaling(t.at("x"), rows, tenon::scaling_method::min_max, 2.0, 3.0);
+    auto r = tenon::measure_scaling(t.at("x"), rows, tenon::scaling_method::robust);
+    CHECK(z.forward(7) == 0.0);
+    CHECK(m.forward(7) == 2.0);  // the low end of the range
+    CHECK(r.forward(7) == 0.0);
+    CHECK(z.inverse(0.0) == 7.0);
+    CHECK(m.inverse(2.0) == 7.0);
+    CHECK(std::isfinite(z.forward(8)));
+}
+
+TEST_CASE("scaling errors") {
+    auto t = table_of("x,c\nNA,a\n1,b\n");
+    std::string message;
+    CHECK(error_code_of([&] { tenon::measure_scaling(t.at("x"), {0}, tenon::scaling_method::z_score); }, &message) ==
+          "prep.rows.empty");
+    CHECK(message == "[prep.rows.empty] column 'x': no present values to measure a scaling on");
+    CHECK(error_code_of([&] { tenon::measure_scaling(t.at("c"), {0}, tenon::scaling_method::z_score); }, &message) ==
+          "prep.column.kind");
+    CHECK(message == "[prep.column.kind] column_moments: column 'c' is categorical");
+    CHECK(error_code_of([&] { t.at("c").push_number(1.0); }, &message) == "prep.column.kind");
+    CHECK(message == "[prep.column.kind] column 'c' is categorical, cannot push_number");
+}
+
+TEST_CASE_TEMPLATE("matrix columns: measure, apply and invert z-score and min-max", T, float, double) {
+    tenon::matrix<T> x = tenon::make_matrix<T>({{1, 10}, {2, 20}, {3, 60}});
+    auto z = tenon::measure_matrix_scalings(x, tenon::scaling_method::z_score);
+    REQUIRE(z.size() == 2);
+    CHECK(z[0].center == doctest::Approx(2.0));
+    CHECK(z[1].center == doctest::Approx(30.0));
+    tenon::matrix<T> y = x;
+    tenon::apply_scalings(y, z);
+    CHECK(y(0, 0) == doctest::Approx(-std::sqrt(1.5)));  // (1 - 2) / sqrt(2/3)
+    CHECK(y(1, 0) == doctest::Approx(0.0));
+    tenon::invert_scalings(y, z);
+    for (std::size_t i = 0; i < 3; ++i)
+        for (std::size_t j = 0; j < 2; ++j) CHECK(y(i, j) == doctest::Approx(x(i, j)).epsilon(1e-5));
+    auto m = tenon::measure_matrix_scalings(x, tenon::scaling_method::min_max);
+    tenon::apply_scalings(y, m);
+    CHECK(y(0, 1) == doctest::Approx(0.0));
+    CHECK(y(1, 1) == doctest::Approx(0.2));  // (20 - 10) / 50
+    CHECK(y(2, 1) == doctest::Approx(1.0));
+    std::string message;
+    CHECK(error_code_of([&] { tenon::apply_scalings(y, std::vector<tenon::scaling>(3)); }, &message) == "core.shape.mismatch");
+    CHECK(message == "[core.shape.mismatch] apply_scalings: 3 scalings for 2 columns");
+}
+
+TEST_CASE("one-hot: sorted order, unseen policies, drop-first, slot names") {
+    tenon::one_hot_layout fail({"press", "pump", "fan", "pump"});
+    CHECK(fail.categories() == std::vector<std::string>{"fan", "press", "pump"});
+    CHECK(fail.width() == 3);
+    float out[4] = {9, 9, 9, 9};
+    fail.encode(fail.find("pump"), out, "machine", "pump");
+    CHECK(out[0] == 0.0f);
+    CHECK(out[1] == 0.0f);
+    CHECK(out[2] == 1.0f);
+    CHECK(fail.find("valve") == -1);
+    std::string message;
+    CHECK(error_code_of([&] { fail.encode(-1, out, "machine", "valve"); }, &message) == "prep.category.unseen");
+    CHECK(message == "[prep.category.unseen] column 'machine': the category 'valve' was not seen in the training rows");
+
+    tenon::one_hot_layout zero({"a", "b"}, tenon::unseen_policy::all_zero);
+    double d[2] = {5, 5};
+    zero.encode(-1, d, "c", "z");
+    CHECK(d[0] == 0.0);
+    CHECK(d[1] == 0.0);
+
+    tenon::one_hot_layout other({"a", "b"}, tenon::unseen_policy::other_slot, true);
+    CHECK(other.width() == 2);  // b, <other>
+    CHECK(other.slot_names("c") == std::vector<std::string>{"c=b", "c=<other>"});
+    other.encode(other.find("a"), d, "c", "a");  // the dropped first category: all zeros
+    CHECK(d[0] == 0.0);
+    CHECK(d[1] == 0.0);
+    other.encode(-1, d, "c", "z");
+    CHECK(d[0] == 0.0);
+    CHECK(d[1] == 1.0);
+    other.encode(other.find("b"), d, "c", "b");
+    CHECK(d[0] == 1.0);
+    CHECK(d[1] == 0.0);
+}
+
+TEST_CASE("class index: names <-> indices, numeric labels in numeric order") {
+    tenon::class_index numeric({"10", "2", "1", "2"});
+    CHECK(numeric.names() == std::vector<std::string>{"1", "2", "10"});
+    CHECK(numeric.find("10") == 2);
+    CHECK(numeric.find("3") == -1);
+    tenon::class_index text({"ok", "fault", "warn"});
+    CHECK(text.name(0) == "fault");
+    CHECK(text.find("warn") == 2);
+}
+
+TEST_CASE("imputation learned on the given rows: mean, median, most frequent, constant") {
+    auto t = table_of("x,c\n1,a\n2,b\n2,b\n10,a\nNA,NA\n100,c\n");
+    const std::vector<std::size_t> train{0, 1, 2, 3, 4};  // row 5 (100, c) is not training
+    CHECK(tenon::measure_fill(t.at("x"), train, tenon::fill_method::mean).number == doctest::Approx(15.0 / 4.0));
+    CHECK(tenon::measure_fill(t.at("x"), train, tenon::fill_method::median).number == doctest::Approx(2.0));
+    CHECK(tenon::measure_fill(t.at("x"), train, tenon::fill_method::most_frequent).number == 2.0);
+    CHECK(tenon::measure_fill(t.at("c"), train, tenon::fill_method::most_frequent).text == "a");  // a, b tie: a sorts first
+    CHECK(tenon::measure_fill(t.at("c"), train, tenon::fill_method::constant, 0.0, "unknown").text == "unknown");
+    CHECK(tenon::measure_fill(t.at("x"), train, tenon::fill_method::constant, -1.0).number == -1.0);
+    CHECK(tenon::measure_fill(t.at("x"), tenon::all_rows(6), tenon::fill_method::mean).number ==
+          doctest::Approx(115.0 / 5.0));  // differs when row 5 is included
+    std::string message;
+    CHECK(error_code_of([&] { tenon::measure_fill(t.at("c"), train, tenon::fill_method::mean); }, &message) ==
+          "prep.column.kind");
+    CHECK(message == "[prep.column.kind] column 'c' is categorical: it cannot be filled with the mean; use most frequent or constant");
+    CHECK(error_code_of([&] { tenon::measure_fill(t.at("x"), {4}, tenon::fill_method::median); }, &message) ==
+          "prep.rows.empty");
+    CHECK(message == "[prep.rows.empty] column 'x': no present values to learn a fill value from");
+}
