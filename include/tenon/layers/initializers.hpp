@@ -1,0 +1,113 @@
+// tenon: initial values for weights.
+//
+// Every scheme draws from a tenon::random_engine through its own uniform and
+// normal distributions (core/random.hpp), never from the standard library's,
+// so a seed gives the same weights with every standard library and compiler.
+// The variance targets:
+//   - Glorot (Glorot & Bengio 2010, "Understanding the difficulty of training
+//     deep feedforward neural networks", eq. 12 and the normalized
+//     initialization of eq. 16): Var = 2 / (fan_in + fan_out); the uniform
+//     form draws from [-a, a] with a = sqrt(6 / (fan_in + fan_out)).
+//   - He (He, Zhang, Ren & Sun 2015, "Delving deep into rectifiers", eq. 10):
+//     Var = 2 / fan_in, for rectifier networks.
+//   - LeCun (LeCun, Bottou, Orr & Mueller 1998, "Efficient BackProp",
+//     section 4.6): Var = 1 / fan_in.
+// A uniform distribution on [-a, a] has variance a^2 / 3, so each uniform
+// form uses a = sqrt(3 Var). The normal forms are untruncated.
+#pragma once
+
+#include <cmath>
+#include <cstddef>
+#include <cstdint>
+#include <string>
+
+#include "tenon/core/matrix.hpp"
+#include "tenon/core/random.hpp"
+
+TENON_NAMESPACE_BEGIN
+
+enum class init_scheme : std::uint8_t {
+    zeros,
+    constant,
+    glorot_uniform,
+    glorot_normal,
+    he_uniform,
+    he_normal,
+    lecun_uniform,
+    lecun_normal,
+};
+
+/// A scheme plus its constant (used by init_scheme::constant only).
+struct initializer {
+    init_scheme scheme = init_scheme::glorot_uniform;
+    double value = 0.0;
+};
+
+inline const char* init_scheme_name(init_scheme s) noexcept {
+    switch (s) {
+        case init_scheme::zeros: return "zeros";
+        case init_scheme::constant: return "constant";
+        case init_scheme::glorot_uniform: return "glorot_uniform";
+        case init_scheme::glorot_normal: return "glorot_normal";
+        case init_scheme::he_uniform: return "he_uniform";
+        case init_scheme::he_normal: return "he_normal";
+        case init_scheme::lecun_uniform: return "lecun_uniform";
+        case init_scheme::lecun_normal: return "lecun_normal";
+    }
+    return "unknown";
+}
+
+/// The scheme with the given name; raises model.record.unknown_kind otherwise.
+inline init_scheme parse_init_scheme(const std::string& name) {
+    for (int i = 0; i <= static_cast<int>(init_scheme::lecun_normal); ++i) {
+        const auto s = static_cast<init_scheme>(i);
+        if (name == init_scheme_name(s)) return s;
+    }
+    raise(codes::model_unknown_kind, "initializer '" + name +
+                                         "' is not known (zeros, constant, glorot_uniform, glorot_normal, he_uniform, "
+                                         "he_normal, lecun_uniform, lecun_normal)");
+}
+
+/// The variance a scheme aims for, given the fan-in and fan-out of the
+/// weight matrix (0 for zeros and constant).
+inline double init_variance(init_scheme s, std::size_t fan_in, std::size_t fan_out) noexcept {
+    const double in = static_cast<double>(fan_in), out = static_cast<double>(fan_out);
+    switch (s) {
+        case init_scheme::glorot_uniform: case init_scheme::glorot_normal: return in + out > 0 ? 2.0 / (in + out) : 0.0;
+        case init_scheme::he_uniform: case init_scheme::he_normal: return in > 0 ? 2.0 / in : 0.0;
+        case init_scheme::lecun_uniform: case init_scheme::lecun_normal: return in > 0 ? 1.0 / in : 0.0;
+        default: return 0.0;
+    }
+}
+
+/// Fills `m` by the given scheme. fan_in and fan_out are those of the weight
+/// matrix (inputs x outputs for a dense layer); the values are drawn in
+/// row-major order, one engine draw (uniform) or one normal per element.
+template <class T>
+void initialize(matrix<T>& m, const initializer& init, std::size_t fan_in, std::size_t fan_out, random_engine& engine) {
+    T* p = m.data();
+    const std::size_t n = m.size();
+    const double variance = init_variance(init.scheme, fan_in, fan_out);
+    switch (init.scheme) {
+        case init_scheme::zeros:
+            for (std::size_t k = 0; k < n; ++k) p[k] = T(0);
+            return;
+        case init_scheme::constant:
+            for (std::size_t k = 0; k < n; ++k) p[k] = static_cast<T>(init.value);
+            return;
+        case init_scheme::glorot_uniform: case init_scheme::he_uniform: case init_scheme::lecun_uniform: {
+            // Drawn in double and rounded once, so float and double weights
+            // come from the same stream of numbers.
+            const double a = std::sqrt(3.0 * variance);
+            for (std::size_t k = 0; k < n; ++k) p[k] = static_cast<T>(engine.uniform<double>(-a, a));
+            return;
+        }
+        case init_scheme::glorot_normal: case init_scheme::he_normal: case init_scheme::lecun_normal: {
+            const double stddev = std::sqrt(variance);
+            for (std::size_t k = 0; k < n; ++k) p[k] = static_cast<T>(engine.normal<double>(0.0, stddev));
+            return;
+        }
+    }
+}
+
+TENON_NAMESPACE_END

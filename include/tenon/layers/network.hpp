@@ -1,0 +1,348 @@
+// tenon: the network (a chain of layers), residual blocks and the factory
+// that rebuilds layers from their architecture records.
+//
+// A network applies its layers in order. Its parameters are enumerable by
+// name ("hidden1.weights"), its state buffers (running statistics) too, and
+// all of them can be copied out into a snapshot and back, e.g. to keep the
+// best weights for early stopping. describe()/architecture_bytes() give the
+// architecture without weights; network_from_bytes() rebuilds it (weights
+// zero, running statistics at their initial values) for a model file to fill.
+#pragma once
+
+#include <cstdint>
+#include <memory>
+#include <string>
+#include <type_traits>
+#include <utility>
+#include <vector>
+
+#include "tenon/layers/activation.hpp"
+#include "tenon/layers/dense.hpp"
+#include "tenon/layers/dropout.hpp"
+#include "tenon/layers/initializers.hpp"
+#include "tenon/layers/layer.hpp"
+#include "tenon/layers/normalization.hpp"
+
+TENON_NAMESPACE_BEGIN
+
+namespace detail {
+
+// An ordered list of uniquely named layers, shared by network and residual.
+template <class T>
+class layer_chain {
+public:
+    layer<T>& add(std::unique_ptr<layer<T>> l, std::string name, const std::string& prefix, const char* owner) {
+        if (!l) raise(codes::invalid_argument, std::string(owner) + ": cannot add an empty layer pointer");
+        if (name.empty()) name = l->name();
+        if (name.empty()) name = stem_of(*l) + std::to_string(layers_.size() + 1);
+        if (name.find('.') != std::string::npos) {
+            raise(codes::model_layer_option, std::string(owner) + ": layer name '" + name + "' must not contain '.'");
+        }
+        for (const auto& existing : layers_) {
+            if (existing->name() == name) {
+                raise(codes::model_duplicate_name, std::string(owner) + ": a layer named '" + name + "' already exists");
+            }
+        }
+        l->set_name(std::move(name));
+        l->set_prefix(prefix);
+        layers_.push_back(std::move(l));
+        return *layers_.back();
+    }
+
+    var<T> forward(tape<T>& t, var<T> x, run_mode mode) {
+        for (auto& l : layers_) x = l->forward(t, x, mode);
+        return x;
+    }
+
+    std::size_t output_width(std::size_t width) const {
+        for (const auto& l : layers_) width = l->output_width(width);
+        return width;
+    }
+
+    void set_prefix(const std::string& prefix) {
+        for (auto& l : layers_) l->set_prefix(prefix);
+    }
+
+    std::size_t size() const noexcept { return layers_.size(); }
+    layer<T>& at(std::size_t i) {
+        if (i >= layers_.size()) {
+            raise(codes::invalid_argument, "layer index " + std::to_string(i) + " is out of range (" +
+                                               std::to_string(layers_.size()) + " layers)");
+        }
+        return *layers_[i];
+    }
+    const layer<T>& at(std::size_t i) const { return const_cast<layer_chain*>(this)->at(i); }
+
+    void collect_parameters(std::vector<parameter<T>*>& out) {
+        for (auto& l : layers_) l->collect_parameters(out);
+    }
+    void collect_state(std::vector<parameter<T>*>& out) {
+        for (auto& l : layers_) l->collect_state(out);
+    }
+    void describe_into(std::vector<layer_record>& out) const {
+        for (const auto& l : layers_) out.push_back(l->describe());
+    }
+
+private:
+    static std::string stem_of(const layer<T>& l) {
+        if (const auto* a = dynamic_cast<const activation_layer<T>*>(&l)) return activation_name(a->function());
+        return l.kind();
+    }
+
+    std::vector<std::unique_ptr<layer<T>>> layers_;
+};
+
+}  // namespace detail
+
+/// y = x + f(x), where f is the chain of layers inside the block (He, Zhang,
+/// Ren & Sun 2016, "Deep Residual Learning for Image Recognition", eq. 1).
+/// f must keep the width of its input.
+template <class T>
+class residual : public layer<T> {
+public:
+    residual() = default;
+
+    /// Appends a layer to the block; an empty name becomes kind + position.
+    layer<T>& add(std::unique_ptr<layer<T>> l, std::string name = {}) {
+        return chain_.add(std::move(l), std::move(name), this->qualified_name(), "residual block");
+    }
+    template <class L, class = std::enable_if_t<std::is_base_of_v<layer<T>, std::decay_t<L>>>>
+    std::decay_t<L>& add(L&& l, std::string name = {}) {
+        return static_cast<std::decay_t<L>&>(add(std::make_unique<std::decay_t<L>>(std::forward<L>(l)), std::move(name)));
+    }
+
+    var<T> forward(tape<T>& t, var<T> x, run_mode mode) override {
+        const var<T> fx = chain_.forward(t, x, mode);
+        require_shape(fx.shape(), x.shape(), "residual block '" + this->qualified_name() + "' inner output");
+        return x + fx;
+    }
+
+    const char* kind() const noexcept override { return "residual"; }
+
+    layer_record describe() const override {
+        layer_record r = this->base_record();
+        chain_.describe_into(r.children);
+        return r;
+    }
+
+    std::size_t output_width(std::size_t input_width) const override {
+        const std::size_t w = chain_.output_width(input_width);
+        require_shape(shape2{1, w}, shape2{1, input_width}, "residual block '" + this->qualified_name() + "' inner output");
+        return input_width;
+    }
+
+    void collect_parameters(std::vector<parameter<T>*>& out) override { chain_.collect_parameters(out); }
+    void collect_state(std::vector<parameter<T>*>& out) override { chain_.collect_state(out); }
+
+    std::size_t layer_count() const noexcept { return chain_.size(); }
+    layer<T>& layer_at(std::size_t i) { return chain_.at(i); }
+
+protected:
+    void renamed() override { chain_.set_prefix(this->qualified_name()); }
+
+private:
+    detail::layer_chain<T> chain_;
+};
+
+/// A copy of every parameter and state buffer of a network, in order.
+template <class T>
+struct network_snapshot {
+    std::vector<matrix<T>> values;
+};
+
+template <class T>
+class network {
+    TENON_REQUIRE_SCALAR(T);
+
+public:
+    network() = default;
+    network(network&&) noexcept = default;
+    network& operator=(network&&) noexcept = default;
+    network(const network&) = delete;
+    network& operator=(const network&) = delete;
+
+    /// Appends a layer; an empty name becomes kind + position ("dense1").
+    /// Names must be unique within the network and must not contain '.'.
+    layer<T>& add(std::unique_ptr<layer<T>> l, std::string name = {}) {
+        return chain_.add(std::move(l), std::move(name), std::string(), "network");
+    }
+    template <class L, class = std::enable_if_t<std::is_base_of_v<layer<T>, std::decay_t<L>>>>
+    std::decay_t<L>& add(L&& l, std::string name = {}) {
+        return static_cast<std::decay_t<L>&>(add(std::make_unique<std::decay_t<L>>(std::forward<L>(l)), std::move(name)));
+    }
+
+    std::size_t layer_count() const noexcept { return chain_.size(); }
+    layer<T>& layer_at(std::size_t i) { return chain_.at(i); }
+    const layer<T>& layer_at(std::size_t i) const { return chain_.at(i); }
+
+    run_mode mode() const noexcept { return mode_; }
+    void set_mode(run_mode m) noexcept { mode_ = m; }
+
+    /// Records the network on `t` in the current mode.
+    var<T> forward(tape<T>& t, var<T> input) { return chain_.forward(t, input, mode_); }
+    /// Copies `input` onto the tape as a constant and records the network.
+    var<T> forward(tape<T>& t, const matrix<T>& input) { return forward(t, t.input(input)); }
+
+    /// Output columns for `input_width` input columns (checks every layer).
+    std::size_t output_width(std::size_t input_width) const { return chain_.output_width(input_width); }
+
+    /// The learned parameters in layer order. The list is refilled into a
+    /// buffer the network keeps, so repeated calls do not allocate.
+    const std::vector<parameter<T>*>& parameters() {
+        parameters_.clear();
+        chain_.collect_parameters(parameters_);
+        return parameters_;
+    }
+    /// The non-trainable state buffers (running statistics) in layer order.
+    const std::vector<parameter<T>*>& state_buffers() {
+        state_.clear();
+        chain_.collect_state(state_);
+        return state_;
+    }
+
+    /// Number of learned values (the sum of the parameters' sizes).
+    std::size_t parameter_count() {
+        std::size_t n = 0;
+        for (const auto* p : parameters()) n += p->size();
+        return n;
+    }
+    /// Number of values in state buffers.
+    std::size_t state_count() {
+        std::size_t n = 0;
+        for (const auto* p : state_buffers()) n += p->size();
+        return n;
+    }
+
+    /// The parameter or state buffer with the given qualified name; raises
+    /// model.network.unknown_parameter.
+    parameter<T>& find(const std::string& name) {
+        for (auto* p : parameters()) if (p->name() == name) return *p;
+        for (auto* p : state_buffers()) if (p->name() == name) return *p;
+        raise(codes::model_unknown_parameter, "network: no parameter or state buffer is named '" + name + "'");
+    }
+
+    void zero_grads() {
+        for (auto* p : parameters()) p->zero_grad();
+    }
+
+    /// Copies every parameter and state buffer into `out`, reusing its buffers.
+    void snapshot_into(network_snapshot<T>& out) {
+        const std::size_t n = parameters().size() + state_buffers().size();
+        out.values.resize(n);
+        std::size_t i = 0;
+        for (auto* p : parameters_) copy_into(out.values[i++], p->value());
+        for (auto* p : state_) copy_into(out.values[i++], p->value());
+    }
+    network_snapshot<T> snapshot() {
+        network_snapshot<T> s;
+        snapshot_into(s);
+        return s;
+    }
+    /// Writes a snapshot back; raises model.network.snapshot_mismatch when its
+    /// count or a shape differs (and then changes nothing).
+    void restore(const network_snapshot<T>& s) {
+        const std::size_t n = parameters().size() + state_buffers().size();
+        if (s.values.size() != n) {
+            raise(codes::model_snapshot_mismatch, "network restore: the snapshot holds " + std::to_string(s.values.size()) +
+                                                      " matrices, the network has " + std::to_string(n));
+        }
+        for (std::size_t i = 0; i < n; ++i) {
+            parameter<T>* p = i < parameters_.size() ? parameters_[i] : state_[i - parameters_.size()];
+            if (shape_of(s.values[i]) != p->shape()) {
+                raise(codes::model_snapshot_mismatch, "network restore: snapshot entry " + std::to_string(i) + " has shape " +
+                                                          to_string(shape_of(s.values[i])) + ", parameter '" + p->name() +
+                                                          "' has " + to_string(p->shape()));
+            }
+        }
+        for (std::size_t i = 0; i < n; ++i) {
+            parameter<T>* p = i < parameters_.size() ? parameters_[i] : state_[i - parameters_.size()];
+            p->assign(s.values[i]);
+        }
+    }
+
+    /// The architecture as one record of kind "network" with the layers as children.
+    layer_record describe() const {
+        layer_record r;
+        r.kind = "network";
+        chain_.describe_into(r.children);
+        return r;
+    }
+    std::vector<std::uint8_t> architecture_bytes() const { return to_bytes(describe()); }
+
+private:
+    detail::layer_chain<T> chain_;
+    run_mode mode_ = run_mode::training;
+    std::vector<parameter<T>*> parameters_;
+    std::vector<parameter<T>*> state_;
+};
+
+/// Rebuilds a layer from its record (weights zero, gains one, running
+/// statistics at their initial values). Raises model.record.unknown_kind for
+/// an unknown kind and model.record.missing_field for a missing option.
+template <class T>
+std::unique_ptr<layer<T>> make_layer(const layer_record& r) {
+    std::unique_ptr<layer<T>> l;
+    if (r.kind == "dense") {
+        l = std::make_unique<dense<T>>(r.count("inputs"), r.count("outputs"), r.number("bias") != 0.0);
+    } else if (r.kind == "activation") {
+        l = std::make_unique<activation_layer<T>>(parse_activation(r.text("function")), r.number("coefficient"));
+    } else if (r.kind == "dropout") {
+        l = std::make_unique<dropout<T>>(r.number("rate"), static_cast<std::uint64_t>(r.count("seed")));
+    } else if (r.kind == "layer_norm") {
+        l = std::make_unique<layer_norm<T>>(r.count("width"), r.number("epsilon"));
+    } else if (r.kind == "batch_norm") {
+        l = std::make_unique<batch_norm<T>>(r.count("width"), r.number("momentum"), r.number("epsilon"));
+    } else if (r.kind == "residual") {
+        auto block = std::make_unique<residual<T>>();
+        for (const auto& c : r.children) block->add(make_layer<T>(c), c.name);
+        l = std::move(block);
+    } else {
+        raise(codes::model_unknown_kind, "layer record '" + r.name + "': kind '" + r.kind +
+                                             "' is not known (dense, activation, dropout, layer_norm, batch_norm, residual)");
+    }
+    l->set_name(r.name);
+    return l;
+}
+
+/// Rebuilds a network from the record network::describe() gave.
+template <class T>
+network<T> make_network(const layer_record& r) {
+    if (r.kind != "network") {
+        raise(codes::model_unknown_kind, "network record: expected kind 'network', got '" + r.kind + "'");
+    }
+    network<T> net;
+    for (const auto& c : r.children) net.add(make_layer<T>(c), c.name);
+    return net;
+}
+
+/// Rebuilds a network from network::architecture_bytes().
+template <class T>
+network<T> network_from_bytes(const std::vector<std::uint8_t>& bytes) {
+    return make_network<T>(record_from_bytes(bytes));
+}
+
+/// A multilayer perceptron: dense layers of the given sizes (sizes[0] is the
+/// input width), `hidden` after every dense layer but the last and `output`
+/// after the last (identity adds no layer). Dense layers are named hidden1,
+/// hidden2, ..., output; their activations hidden1_act, ..., output_act.
+/// Weights are drawn in layer order from one engine seeded with `seed`;
+/// biases start at zero.
+template <class T>
+network<T> make_mlp(const std::vector<std::size_t>& sizes, activation hidden, initializer weights_init, std::uint64_t seed,
+                    activation output = activation::identity) {
+    if (sizes.size() < 2) {
+        raise(codes::model_layer_option, "make_mlp: needs at least an input and an output size, got " + std::to_string(sizes.size()) + " size(s)");
+    }
+    random_engine engine(seed);
+    network<T> net;
+    for (std::size_t i = 0; i + 1 < sizes.size(); ++i) {
+        const bool last = i + 2 == sizes.size();
+        const std::string name = last ? std::string("output") : "hidden" + std::to_string(i + 1);
+        net.add(dense<T>(sizes[i], sizes[i + 1], engine, weights_init), name);
+        const activation a = last ? output : hidden;
+        if (a != activation::identity) net.add(activation_layer<T>(a), name + "_act");
+    }
+    return net;
+}
+
+TENON_NAMESPACE_END

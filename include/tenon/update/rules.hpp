@@ -1,0 +1,206 @@
+// tenon: the update rules. In each, g is the transformed gradient element
+// (clipping and coupled weight decay applied, see update_rule.hpp), w the
+// weight, lr the learning rate and t the step number (1 for the first).
+#pragma once
+
+#include <cmath>
+#include <cstddef>
+
+#include "tenon/update/update_rule.hpp"
+
+TENON_NAMESPACE_BEGIN
+
+/// w <- w - lr g (Robbins & Monro 1951, "A Stochastic Approximation Method").
+template <class T>
+class gradient_descent : public update_rule<T> {
+public:
+    explicit gradient_descent(const update_options<T>& options = {}) : update_rule<T>(options, 0) {}
+    const char* kind() const noexcept override { return "gradient_descent"; }
+    const char* slot_name(std::size_t) const noexcept override { return ""; }
+
+protected:
+    void update_parameter(T* w, const T* g, T* const*, std::size_t n, T lr, const gradient_transform<T>& f) override {
+        for (std::size_t k = 0; k < n; ++k) w[k] -= lr * f(g[k], w[k]);
+    }
+};
+
+template <class T>
+struct momentum_options {
+    T coefficient = T(0.9);  // mu; 0.9 is common practice
+    bool nesterov = false;
+};
+
+/// Classical momentum (Sutskever, Martens, Dahl & Hinton 2013, "On the
+/// importance of initialization and momentum in deep learning", eqs. 1-2):
+///   v <- mu v - lr g(w),  w <- w + v.
+/// Nesterov momentum (same paper, eqs. 3-4) evaluates the gradient at the
+/// look-ahead point w + mu v; with the change of variables of Bengio,
+/// Boulanger-Lewandowski & Pascanu 2013 ("Advances in optimizing recurrent
+/// networks", section 3.5) it needs only the gradient at the stored weights:
+///   v <- mu v - lr g(w),  w <- w + mu v - lr g(w).
+template <class T>
+class momentum : public update_rule<T> {
+public:
+    explicit momentum(const momentum_options<T>& m = {}, const update_options<T>& options = {})
+        : update_rule<T>(options, 1), m_(m) {
+        detail::check_option("momentum", "coefficient", static_cast<double>(m.coefficient), m.coefficient >= T(0) && m.coefficient < T(1), "in [0, 1)");
+    }
+    const char* kind() const noexcept override { return m_.nesterov ? "nesterov" : "momentum"; }
+    const char* slot_name(std::size_t) const noexcept override { return "velocity"; }
+    const momentum_options<T>& settings() const noexcept { return m_; }
+
+protected:
+    void update_parameter(T* w, const T* g, T* const* slots, std::size_t n, T lr, const gradient_transform<T>& f) override {
+        T* v = slots[0];
+        const T mu = m_.coefficient;
+        for (std::size_t k = 0; k < n; ++k) {
+            const T step = lr * f(g[k], w[k]);
+            v[k] = mu * v[k] - step;
+            w[k] += m_.nesterov ? mu * v[k] - step : v[k];
+        }
+    }
+
+private:
+    momentum_options<T> m_;
+};
+
+template <class T>
+struct adam_options {
+    // Defaults of Kingma & Ba 2015, Algorithm 1.
+    T beta1 = T(0.9);
+    T beta2 = T(0.999);
+    T epsilon = T(1e-8);
+    /// Decoupled weight decay lambda (AdamW); 0 for plain Adam.
+    T decoupled_weight_decay = T(0);
+};
+
+/// Adam (Kingma & Ba 2015, "Adam: A Method for Stochastic Optimization",
+/// Algorithm 1, with bias correction):
+///   m <- b1 m + (1 - b1) g,   v <- b2 v + (1 - b2) g^2,
+///   w <- w - lr (m / (1 - b1^t)) / (sqrt(v / (1 - b2^t)) + eps).
+/// With decoupled_weight_decay = lambda this is AdamW (Loshchilov & Hutter
+/// 2019, "Decoupled Weight Decay Regularization", Algorithm 2, line 12):
+/// additionally w <- w - lr lambda w, with the decay outside the moments. The
+/// paper multiplies lambda by the schedule multiplier eta_t alone; here it is
+/// multiplied by the learning rate given to apply() (common practice), so
+/// lambda is relative to the learning rate.
+template <class T>
+class adam : public update_rule<T> {
+public:
+    explicit adam(const adam_options<T>& a = {}, const update_options<T>& options = {}) : update_rule<T>(options, 2), a_(a) {
+        detail::check_option("adam", "beta1", static_cast<double>(a.beta1), a.beta1 >= T(0) && a.beta1 < T(1), "in [0, 1)");
+        detail::check_option("adam", "beta2", static_cast<double>(a.beta2), a.beta2 >= T(0) && a.beta2 < T(1), "in [0, 1)");
+        detail::check_option("adam", "epsilon", static_cast<double>(a.epsilon), a.epsilon > T(0), "positive");
+        detail::check_option("adam", "decoupled_weight_decay", static_cast<double>(a.decoupled_weight_decay),
+                             a.decoupled_weight_decay >= T(0), "finite and non-negative");
+    }
+    const char* kind() const noexcept override { return a_.decoupled_weight_decay > T(0) ? "adamw" : "adam"; }
+    const char* slot_name(std::size_t slot) const noexcept override { return slot == 0 ? "first_moment" : "second_moment"; }
+    const adam_options<T>& settings() const noexcept { return a_; }
+
+protected:
+    void update_parameter(T* w, const T* g, T* const* slots, std::size_t n, T lr, const gradient_transform<T>& f) override {
+        T* m = slots[0];
+        T* v = slots[1];
+        const double t = static_cast<double>(this->step_count());
+        const T correction1 = static_cast<T>(1.0 - std::pow(static_cast<double>(a_.beta1), t));
+        const T correction2 = static_cast<T>(1.0 - std::pow(static_cast<double>(a_.beta2), t));
+        const T b1 = a_.beta1, b2 = a_.beta2, eps = a_.epsilon, decay = lr * a_.decoupled_weight_decay;
+        for (std::size_t k = 0; k < n; ++k) {
+            const T gk = f(g[k], w[k]);
+            m[k] = b1 * m[k] + (T(1) - b1) * gk;
+            v[k] = b2 * v[k] + (T(1) - b2) * gk * gk;
+            const T m_hat = m[k] / correction1;
+            const T v_hat = v[k] / correction2;
+            w[k] -= lr * m_hat / (std::sqrt(v_hat) + eps) + decay * w[k];
+        }
+    }
+
+private:
+    adam_options<T> a_;
+};
+
+/// AdamW: Adam with decoupled weight decay `lambda` (see adam).
+template <class T>
+class adamw : public adam<T> {
+public:
+    explicit adamw(T lambda = T(0.01), adam_options<T> a = {}, const update_options<T>& options = {})
+        : adam<T>(with_decay(a, lambda), options) {
+        detail::check_option("adamw", "decoupled_weight_decay", static_cast<double>(lambda), lambda > T(0), "positive");
+    }
+
+private:
+    static adam_options<T> with_decay(adam_options<T> a, T lambda) {
+        a.decoupled_weight_decay = lambda;
+        return a;
+    }
+};
+
+template <class T>
+struct rmsprop_options {
+    T decay = T(0.9);       // rho, common practice
+    T epsilon = T(1e-8);    // common practice
+};
+
+/// RMSprop: divide the gradient by a running root mean square of recent
+/// gradients, s <- rho s + (1 - rho) g^2, w <- w - lr g / (sqrt(s) + eps)
+/// (described in this uncentred form by Graves 2013, "Generating Sequences
+/// With Recurrent Neural Networks", section 4, eqs. 38-41 without the
+/// centring term, from memory).
+template <class T>
+class rmsprop : public update_rule<T> {
+public:
+    explicit rmsprop(const rmsprop_options<T>& r = {}, const update_options<T>& options = {}) : update_rule<T>(options, 1), r_(r) {
+        detail::check_option("rmsprop", "decay", static_cast<double>(r.decay), r.decay >= T(0) && r.decay < T(1), "in [0, 1)");
+        detail::check_option("rmsprop", "epsilon", static_cast<double>(r.epsilon), r.epsilon > T(0), "positive");
+    }
+    const char* kind() const noexcept override { return "rmsprop"; }
+    const char* slot_name(std::size_t) const noexcept override { return "mean_square"; }
+
+protected:
+    void update_parameter(T* w, const T* g, T* const* slots, std::size_t n, T lr, const gradient_transform<T>& f) override {
+        T* s = slots[0];
+        const T rho = r_.decay;
+        for (std::size_t k = 0; k < n; ++k) {
+            const T gk = f(g[k], w[k]);
+            s[k] = rho * s[k] + (T(1) - rho) * gk * gk;
+            w[k] -= lr * gk / (std::sqrt(s[k]) + r_.epsilon);
+        }
+    }
+
+private:
+    rmsprop_options<T> r_;
+};
+
+template <class T>
+struct adagrad_options {
+    T epsilon = T(1e-10);  // common practice
+};
+
+/// Adagrad (Duchi, Hazan & Singer 2011, "Adaptive Subgradient Methods for
+/// Online Learning and Stochastic Optimization", JMLR 12, the diagonal
+/// update of section 1.1): s <- s + g^2, w <- w - lr g / (sqrt(s) + eps).
+template <class T>
+class adagrad : public update_rule<T> {
+public:
+    explicit adagrad(const adagrad_options<T>& a = {}, const update_options<T>& options = {}) : update_rule<T>(options, 1), a_(a) {
+        detail::check_option("adagrad", "epsilon", static_cast<double>(a.epsilon), a.epsilon > T(0), "positive");
+    }
+    const char* kind() const noexcept override { return "adagrad"; }
+    const char* slot_name(std::size_t) const noexcept override { return "sum_of_squares"; }
+
+protected:
+    void update_parameter(T* w, const T* g, T* const* slots, std::size_t n, T lr, const gradient_transform<T>& f) override {
+        T* s = slots[0];
+        for (std::size_t k = 0; k < n; ++k) {
+            const T gk = f(g[k], w[k]);
+            s[k] += gk * gk;
+            w[k] -= lr * gk / (std::sqrt(s[k]) + a_.epsilon);
+        }
+    }
+
+private:
+    adagrad_options<T> a_;
+};
+
+TENON_NAMESPACE_END

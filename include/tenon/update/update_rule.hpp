@@ -1,0 +1,263 @@
+// tenon: the update-rule interface, gradient clipping and weight decay, and
+// the rule's state as bytes.
+//
+// apply(parameters, learning_rate) makes one pass over each trainable
+// parameter's value and gradient; frozen parameters (trainable() false) are
+// skipped. Before the rule sees a gradient element g of a weight w, it becomes
+//   g' = clip_value(g * norm_scale) + weight_decay * w,
+// where norm_scale = min(1, clip_global_norm / ||all gradients||_2)
+// (clipping by global norm, Pascanu, Mikolov & Bengio 2013, "On the
+// difficulty of training recurrent neural networks", Algorithm 1, applied
+// to all parameters together), clip_value limits each element to
+// [-clip_value, clip_value] (common practice), and weight_decay adds the
+// gradient of (weight_decay / 2) ||w||^2 (L2 regularization, "coupled"
+// decay; AdamW instead decays the weights directly, see rules.hpp). The
+// parameters' gradients are read, never changed.
+//
+// State: a step counter and, per parameter, a fixed number of buffers
+// ("slots", e.g. Adam's two moments), created at the first apply() and
+// reused afterwards, so steps allocate nothing. The first apply() or
+// load_state() fixes the layout; a later call with other parameters raises
+// model.update.state_mismatch (reset() forgets the state). save_state()
+// gives bytes from which load_state() restores the state bit for bit, so a
+// run resumed from them continues exactly as the uninterrupted one.
+#pragma once
+
+#include <algorithm>
+#include <cmath>
+#include <cstddef>
+#include <cstdint>
+#include <string>
+#include <vector>
+
+#include "tenon/autodiff/parameter.hpp"
+#include "tenon/layers/bytes.hpp"
+
+TENON_NAMESPACE_BEGIN
+
+template <class T>
+struct update_options {
+    /// Coupled L2 weight decay: adds weight_decay * w to each gradient.
+    T weight_decay = T(0);
+    /// Largest global L2 norm of all gradients together; 0 turns it off.
+    T clip_global_norm = T(0);
+    /// Largest magnitude of each gradient element; 0 turns it off.
+    T clip_value = T(0);
+};
+
+/// The per-element gradient transform (clipping and coupled decay).
+template <class T>
+struct gradient_transform {
+    T norm_scale = T(1);
+    T clip_value = T(0);
+    T weight_decay = T(0);
+
+    T operator()(T g, T w) const noexcept {
+        g *= norm_scale;
+        if (clip_value > T(0)) g = std::min(std::max(g, -clip_value), clip_value);
+        return g + weight_decay * w;
+    }
+};
+
+namespace detail {
+inline constexpr std::uint32_t update_state_magic = 0x556E6574u;  // "teNU": tenon update state
+inline constexpr std::uint8_t update_state_format = 1;
+
+inline void check_option(const char* rule, const char* option, double value, bool ok, const char* range) {
+    if (!ok || !std::isfinite(value)) {
+        raise(codes::model_update_option, std::string(rule) + ": " + option + " must be " + range + ", got " + std::to_string(value));
+    }
+}
+}  // namespace detail
+
+template <class T>
+class update_rule {
+    TENON_REQUIRE_SCALAR(T);
+
+public:
+    virtual ~update_rule() = default;
+
+    /// Short name, e.g. "adam"; saved with the state and checked on load.
+    virtual const char* kind() const noexcept = 0;
+    /// Name of state buffer `slot`, e.g. "first_moment".
+    virtual const char* slot_name(std::size_t slot) const noexcept = 0;
+
+    /// One update of every trainable parameter with the given learning rate.
+    void apply(const std::vector<parameter<T>*>& params, T learning_rate) {
+        detail::check_option(kind(), "the learning rate", static_cast<double>(learning_rate), learning_rate >= T(0), "finite and non-negative");
+        prepare(params);
+        gradient_transform<T> transform;
+        transform.clip_value = options_.clip_value;
+        transform.weight_decay = options_.weight_decay;
+        if (options_.clip_global_norm > T(0)) {
+            double squares = 0.0;
+            for (const auto* p : params) {
+                if (!p->trainable()) continue;
+                const T* g = p->grad().data();
+                for (std::size_t k = 0; k < p->size(); ++k) squares += static_cast<double>(g[k]) * static_cast<double>(g[k]);
+            }
+            const double norm = std::sqrt(squares);
+            const double limit = static_cast<double>(options_.clip_global_norm);
+            if (norm > limit) transform.norm_scale = static_cast<T>(limit / norm);
+        }
+        ++step_;
+        T* slots[max_slots] = {};
+        for (std::size_t i = 0; i < params.size(); ++i) {
+            parameter<T>& p = *params[i];
+            if (!p.trainable()) continue;
+            for (std::size_t s = 0; s < slot_count_; ++s) slots[s] = slots_[i * slot_count_ + s].data();
+            update_parameter(p.value().data(), p.grad().data(), slots, p.size(), learning_rate, transform);
+        }
+    }
+
+    /// Number of apply() calls since construction, reset() or the loaded state.
+    std::uint64_t step_count() const noexcept { return step_; }
+    /// State buffers per parameter.
+    std::size_t slot_count() const noexcept { return slot_count_; }
+    /// Number of parameters the state is laid out for (0 before the first apply).
+    std::size_t parameter_count() const noexcept { return shapes_.size(); }
+    /// State buffer `slot` of parameter `index` (same shape as the parameter).
+    const matrix<T>& slot(std::size_t index, std::size_t slot_index) const {
+        if (slot_index >= slot_count_ || index >= parameter_count()) {
+            raise(codes::invalid_argument, std::string(kind()) + ": state slot " + std::to_string(slot_index) + " of parameter " +
+                                               std::to_string(index) + " does not exist (" + std::to_string(slot_count_) +
+                                               " slots, " + std::to_string(parameter_count()) + " parameters)");
+        }
+        return slots_[index * slot_count_ + slot_index];
+    }
+
+    const update_options<T>& options() const noexcept { return options_; }
+
+    /// Forgets the step counter and all state buffers.
+    void reset() noexcept {
+        step_ = 0;
+        slots_.clear();
+        shapes_.clear();
+        laid_out_ = false;
+    }
+
+    /// The complete state as bytes (kind, step, shapes, every slot value).
+    std::vector<std::uint8_t> save_state() const {
+        std::vector<std::uint8_t> out;
+        byte_writer w(out);
+        w.u32(detail::update_state_magic);
+        w.u8(detail::update_state_format);
+        w.text(kind());
+        w.u64(step_);
+        w.u8(laid_out_ ? 1 : 0);
+        w.u32(static_cast<std::uint32_t>(slot_count_));
+        w.u32(static_cast<std::uint32_t>(shapes_.size()));
+        for (std::size_t i = 0; i < shapes_.size(); ++i) {
+            w.u64(shapes_[i].rows);
+            w.u64(shapes_[i].cols);
+            for (std::size_t s = 0; s < slot_count_; ++s) {
+                const matrix<T>& m = slots_[i * slot_count_ + s];
+                for (std::size_t k = 0; k < m.size(); ++k) w.f64(static_cast<double>(m.data()[k]));
+            }
+        }
+        return out;
+    }
+
+    /// Restores a state written by save_state() of a rule of the same kind.
+    /// Raises model.update.state_mismatch for another kind or slot layout and
+    /// model.record.truncated / model.record.malformed for damaged bytes; on
+    /// error the rule keeps its previous state.
+    void load_state(const std::vector<std::uint8_t>& bytes) {
+        byte_reader in(bytes, std::string(kind()) + " update rule state");
+        if (in.u32() != detail::update_state_magic) in.fail("not tenon update rule state (bad magic)");
+        const std::uint8_t format = in.u8();
+        if (format != detail::update_state_format) in.fail("state format " + std::to_string(format) + " is not supported");
+        const std::string saved_kind = in.text();
+        if (saved_kind != kind()) {
+            raise(codes::model_update_state_mismatch, std::string(kind()) + " update rule: the state was saved by a '" + saved_kind + "' rule");
+        }
+        const std::uint64_t step = in.u64();
+        const std::uint8_t laid_out = in.u8();
+        if (laid_out > 1) in.fail("layout flag " + std::to_string(laid_out) + " is not 0 or 1");
+        const std::uint32_t slot_count = in.u32();
+        if (slot_count != slot_count_) {
+            raise(codes::model_update_state_mismatch, std::string(kind()) + " update rule: the state has " + std::to_string(slot_count) +
+                                                          " slots per parameter, the rule uses " + std::to_string(slot_count_));
+        }
+        const std::size_t count = in.count(16, "parameters");
+        std::vector<shape2> shapes;
+        std::vector<matrix<T>> slots;
+        shapes.reserve(count);
+        slots.reserve(count * slot_count_);
+        for (std::size_t i = 0; i < count; ++i) {
+            const std::uint64_t rows = in.u64(), cols = in.u64();
+            if (slot_count_ > 0 && cols != 0 && rows > in.remaining() / (8 * slot_count_) / cols) {
+                in.fail("parameter " + std::to_string(i) + " declares " + std::to_string(rows) + "x" + std::to_string(cols) +
+                        " values per slot, more than the remaining bytes hold");
+            }
+            const shape2 s{static_cast<std::size_t>(rows), static_cast<std::size_t>(cols)};
+            shapes.push_back(s);
+            for (std::size_t k = 0; k < slot_count_; ++k) {
+                matrix<T> m({s.rows, s.cols});
+                for (std::size_t e = 0; e < m.size(); ++e) m.data()[e] = static_cast<T>(in.f64());
+                slots.push_back(std::move(m));
+            }
+        }
+        if (!in.at_end()) in.fail(std::to_string(in.remaining()) + " bytes follow the state");
+        step_ = step;
+        shapes_ = std::move(shapes);
+        slots_ = std::move(slots);
+        laid_out_ = laid_out == 1;
+    }
+
+protected:
+    static constexpr std::size_t max_slots = 4;
+
+    update_rule(const update_options<T>& options, std::size_t slot_count) : options_(options), slot_count_(slot_count) {
+        detail::check_option("update rule", "weight_decay", static_cast<double>(options.weight_decay), options.weight_decay >= T(0), "finite and non-negative");
+        detail::check_option("update rule", "clip_global_norm", static_cast<double>(options.clip_global_norm), options.clip_global_norm >= T(0), "finite and non-negative (0: off)");
+        detail::check_option("update rule", "clip_value", static_cast<double>(options.clip_value), options.clip_value >= T(0), "finite and non-negative (0: off)");
+    }
+
+    /// Updates `n` weights `w` in place from the raw gradient `g` (pass each
+    /// element through `transform(g[k], w[k])`); slots[s] points to the n
+    /// values of state buffer s for this parameter. step_count() is already
+    /// the number of this step (1 for the first).
+    virtual void update_parameter(T* w, const T* g, T* const* slots, std::size_t n, T learning_rate,
+                                  const gradient_transform<T>& transform) = 0;
+
+private:
+    void prepare(const std::vector<parameter<T>*>& params) {
+        if (!laid_out_) {
+            shapes_.clear();
+            for (const auto* p : params) shapes_.push_back(p->shape());
+            slots_.resize(params.size() * slot_count_);
+            for (std::size_t i = 0; i < params.size(); ++i)
+                for (std::size_t s = 0; s < slot_count_; ++s) {
+                    matrix<T>& m = slots_[i * slot_count_ + s];
+                    ensure_shape(m, shapes_[i]);
+                    m.fill(T(0));
+                }
+            laid_out_ = true;
+        }
+        if (params.size() != shapes_.size()) {
+            raise(codes::model_update_state_mismatch, std::string(kind()) + " update rule: state for " + std::to_string(shapes_.size()) +
+                                                          " parameters, given " + std::to_string(params.size()));
+        }
+        for (std::size_t i = 0; i < params.size(); ++i) {
+            if (params[i]->shape() != shapes_[i]) {
+                raise(codes::model_update_state_mismatch, std::string(kind()) + " update rule: parameter " + std::to_string(i) + " ('" +
+                                                              params[i]->name() + ") has shape " + to_string(params[i]->shape()) +
+                                                              ", the state was laid out for " + to_string(shapes_[i]));
+            }
+            if (shape_of(params[i]->grad()) != shapes_[i]) {
+                raise(codes::shape_mismatch, std::string(kind()) + " update rule: the gradient of '" + params[i]->name() + "' has shape " +
+                                                 to_string(shape_of(params[i]->grad())) + ", its value " + to_string(shapes_[i]));
+            }
+        }
+    }
+
+    update_options<T> options_;
+    std::size_t slot_count_;
+    std::uint64_t step_ = 0;
+    std::vector<shape2> shapes_;
+    std::vector<matrix<T>> slots_;
+    bool laid_out_ = false;
+};
+
+TENON_NAMESPACE_END

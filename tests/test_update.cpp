@@ -1,0 +1,495 @@
+// Tests of the update rules and the learning-rate schedules.
+#include <doctest/doctest.h>
+
+#include <cmath>
+#include <cstdint>
+#include <memory>
+#include <string>
+#include <vector>
+
+#include <Eigen/Dense>
+
+#include <tenon/layers/network.hpp>
+#include <tenon/losses/classification.hpp>
+#include <tenon/losses/regression.hpp>
+#include <tenon/update/rules.hpp>
+#include <tenon/update/schedules.hpp>
+
+using tenon::make_matrix;
+using tenon::matrix;
+
+namespace {
+
+template <class F>
+std::string code_of(F&& f) {
+    try {
+        f();
+    } catch (const tenon::error& e) {
+        return e.code();
+    }
+    return "no error";
+}
+
+template <class T>
+void set_grad(tenon::parameter<T>& p, std::initializer_list<T> g) {
+    std::size_t k = 0;
+    for (T v : g) p.grad().data()[k++] = v;
+}
+
+// Rosenbrock 1960 ("An automatic method for finding the greatest or least
+// value of a function", The Computer Journal 3(3)):
+// f(x, y) = (1 - x)^2 + 100 (y - x^2)^2, minimum 0 at (1, 1).
+template <class T>
+tenon::var<T> rosenbrock(tenon::tape<T>& t, tenon::parameter<T>& x, tenon::parameter<T>& y) {
+    const auto vx = t.watch(x), vy = t.watch(y);
+    return tenon::sum(tenon::square(vx - T(1)) + T(100) * tenon::square(vy - tenon::square(vx)));
+}
+
+template <class T>
+void minimize_rosenbrock(tenon::update_rule<T>& rule, const tenon::rate_schedule& schedule, std::uint64_t steps,
+                         tenon::parameter<T>& x, tenon::parameter<T>& y) {
+    tenon::tape<T> t;
+    const std::vector<tenon::parameter<T>*> params = {&x, &y};
+    for (std::uint64_t s = 0; s < steps; ++s) {
+        t.clear();
+        x.zero_grad();
+        y.zero_grad();
+        t.backward(rosenbrock(t, x, y));
+        rule.apply(params, static_cast<T>(schedule.rate(s, 0)));
+    }
+}
+
+}  // namespace
+
+// ---------------------------------------------------------------- single steps
+
+TEST_CASE_TEMPLATE("gradient descent, momentum and Nesterov steps follow their formulas", T, float, double) {
+    tenon::parameter<T> w("w", make_matrix<T>({{T(1), T(-2)}}));
+    const std::vector<tenon::parameter<T>*> params = {&w};
+    set_grad(w, {T(0.5), T(-1)});
+    tenon::gradient_descent<T> gd;
+    gd.apply(params, T(0.1));
+    CHECK(w.value()(0, 0) == doctest::Approx(0.95));
+    CHECK(w.value()(0, 1) == doctest::Approx(-1.9));
+    CHECK(gd.step_count() == 1);
+
+    // Sutskever et al. 2013 eqs. 1-2: v1 = -lr g, v2 = mu v1 - lr g.
+    tenon::parameter<T> m("m", make_matrix<T>({{T(0)}}));
+    set_grad(m, {T(1)});
+    tenon::momentum<T> classical({T(0.9), false});
+    classical.apply({&m}, T(0.1));
+    classical.apply({&m}, T(0.1));
+    CHECK(m.value()(0, 0) == doctest::Approx(-0.1 - 0.19));
+    CHECK(classical.slot(0, 0)(0, 0) == doctest::Approx(-0.19));
+    CHECK(std::string(classical.slot_name(0)) == "velocity");
+
+    // Nesterov (Bengio et al. 2013 form): w += mu v_new - lr g.
+    tenon::parameter<T> n("n", make_matrix<T>({{T(0)}}));
+    set_grad(n, {T(1)});
+    tenon::momentum<T> nesterov({T(0.9), true});
+    nesterov.apply({&n}, T(0.1));
+    CHECK(n.value()(0, 0) == doctest::Approx(0.9 * -0.1 - 0.1));
+    nesterov.apply({&n}, T(0.1));
+    CHECK(n.value()(0, 0) == doctest::Approx(-0.19 + 0.9 * -0.19 - 0.1));
+    CHECK(std::string(nesterov.kind()) == "nesterov");
+}
+
+TEST_CASE_TEMPLATE("Adam's first step moves each weight by about the learning rate times the gradient's sign", T, float, double) {
+    // Kingma & Ba 2015, section 2.1: |step| is about alpha when bias-corrected
+    // m and v come from one gradient (m_hat / sqrt(v_hat) = g / |g|).
+    tenon::parameter<T> w("w", make_matrix<T>({{T(1), T(1), T(1), T(1)}}));
+    set_grad(w, {T(3), T(-0.001), T(250), T(-7)});
+    tenon::adam<T> rule;
+    const T lr = T(0.01);
+    rule.apply({&w}, lr);
+    const T signs[] = {T(1), T(-1), T(1), T(-1)};
+    for (std::size_t k = 0; k < 4; ++k) CHECK(T(1) - w.value()(0, k) == doctest::Approx(static_cast<double>(lr * signs[k])).epsilon(1e-4));
+    CHECK(std::string(rule.slot_name(1)) == "second_moment");
+    CHECK(rule.slot(0, 0)(0, 0) == doctest::Approx(0.3));  // (1 - beta1) g
+}
+
+TEST_CASE_TEMPLATE("RMSprop, Adagrad and AdamW steps follow their formulas", T, float, double) {
+    tenon::parameter<T> a("a", make_matrix<T>({{T(1)}}));
+    set_grad(a, {T(2)});
+    tenon::rmsprop<T> rms;
+    rms.apply({&a}, T(0.01));
+    // s = 0.1 * 4; step = lr g / sqrt(s).
+    CHECK(a.value()(0, 0) == doctest::Approx(1.0 - 0.01 * 2.0 / std::sqrt(0.4)));
+
+    // Duchi et al. 2011: s = g1^2 + g2^2.
+    tenon::parameter<T> b("b", make_matrix<T>({{T(1)}}));
+    tenon::adagrad<T> ada;
+    set_grad(b, {T(3)});
+    ada.apply({&b}, T(0.1));
+    CHECK(b.value()(0, 0) == doctest::Approx(1.0 - 0.1));
+    set_grad(b, {T(4)});
+    ada.apply({&b}, T(0.1));
+    CHECK(b.value()(0, 0) == doctest::Approx(0.9 - 0.1 * 4.0 / 5.0));
+
+    // Loshchilov & Hutter 2019: with a zero gradient only the decay acts: w -= lr lambda w.
+    tenon::parameter<T> c("c", make_matrix<T>({{T(2)}}));
+    tenon::adamw<T> decoupled(T(0.1));
+    decoupled.apply({&c}, T(0.5));
+    CHECK(c.value()(0, 0) == doctest::Approx(2.0 - 0.5 * 0.1 * 2.0));
+    CHECK(std::string(decoupled.kind()) == "adamw");
+    // Coupled L2 decay, by contrast, enters the gradient (and Adam's normalization).
+    tenon::parameter<T> d("d", make_matrix<T>({{T(2)}}));
+    tenon::update_options<T> coupled;
+    coupled.weight_decay = T(0.1);
+    tenon::gradient_descent<T> gd(coupled);
+    gd.apply({&d}, T(0.5));
+    CHECK(d.value()(0, 0) == doctest::Approx(2.0 - 0.5 * 0.1 * 2.0));
+}
+
+TEST_CASE_TEMPLATE("clipping by value and by global norm", T, float, double) {
+    tenon::parameter<T> p("p", make_matrix<T>({{T(0), T(0)}}));
+    tenon::parameter<T> q("q", make_matrix<T>({{T(0)}}));
+    tenon::update_options<T> by_value;
+    by_value.clip_value = T(1);
+    tenon::gradient_descent<T> clipped(by_value);
+    set_grad(p, {T(5), T(-0.5)});
+    clipped.apply({&p}, T(1));
+    CHECK(p.value()(0, 0) == doctest::Approx(-1.0));
+    CHECK(p.value()(0, 1) == doctest::Approx(0.5));
+
+    // Pascanu et al. 2013, Algorithm 1: the gradients (3, 0) and (4) have global
+    // norm 5; clipped to norm 1 they become (0.6, 0) and (0.8).
+    p.value().fill(T(0));
+    tenon::update_options<T> by_norm;
+    by_norm.clip_global_norm = T(1);
+    tenon::gradient_descent<T> normed(by_norm);
+    set_grad(p, {T(3), T(0)});
+    set_grad(q, {T(4)});
+    normed.apply({&p, &q}, T(1));
+    CHECK(p.value()(0, 0) == doctest::Approx(-0.6));
+    CHECK(q.value()(0, 0) == doctest::Approx(-0.8));
+    // Under the limit, nothing changes.
+    set_grad(p, {T(0.3), T(0)});
+    set_grad(q, {T(0.4)});
+    normed.apply({&p, &q}, T(1));
+    CHECK(q.value()(0, 0) == doctest::Approx(-1.2));
+}
+
+TEST_CASE_TEMPLATE("frozen parameters are not updated", T, float, double) {
+    tenon::parameter<T> w("w", make_matrix<T>({{T(1)}}));
+    tenon::parameter<T> frozen("frozen", make_matrix<T>({{T(1)}}));
+    frozen.set_trainable(false);
+    set_grad(w, {T(1)});
+    set_grad(frozen, {T(1)});
+    tenon::adam<T> rule;
+    rule.apply({&w, &frozen}, T(0.1));
+    CHECK(w.value()(0, 0) != T(1));
+    CHECK(frozen.value()(0, 0) == T(1));
+}
+
+// ---------------------------------------------------------------- convergence
+
+TEST_CASE_TEMPLATE("Adam and momentum reach the Rosenbrock minimum (1, 1)", T, float, double) {
+    // Start at (-1.2, 1), Rosenbrock's own starting point (Rosenbrock 1960).
+    {
+        tenon::parameter<T> x("x", make_matrix<T>({{T(-1.2)}})), y("y", make_matrix<T>({{T(1)}}));
+        tenon::adam<T> rule;
+        const tenon::cosine_restarts schedule(0.02, 1e-5, 20000);
+        minimize_rosenbrock(rule, schedule, 20000, x, y);
+        CHECK(std::abs(x.value()(0, 0) - T(1)) < T(1e-3));
+        CHECK(std::abs(y.value()(0, 0) - T(1)) < T(1e-3));
+    }
+    {
+        tenon::parameter<T> x("x", make_matrix<T>({{T(-1.2)}})), y("y", make_matrix<T>({{T(1)}}));
+        tenon::momentum<T> rule({T(0.9), false});
+        const tenon::constant_rate schedule(2e-4);
+        minimize_rosenbrock(rule, schedule, 60000, x, y);
+        CHECK(std::abs(x.value()(0, 0) - T(1)) < T(1e-3));
+        CHECK(std::abs(y.value()(0, 0) - T(1)) < T(1e-3));
+    }
+}
+
+TEST_CASE_TEMPLATE("a dense layer trained by gradient descent on L2 loss reaches the least-squares solution", T, float, double) {
+    // Reference: the least-squares fit computed independently by Eigen's QR
+    // decomposition of [X 1] (Golub & Van Loan 2013, "Matrix Computations",
+    // section 5.3); gradient descent on the mean squared error converges to it.
+    const std::size_t n = 40, d = 3;
+    tenon::random_engine engine(17);
+    matrix<T> x({n, d}), y({n, 1});
+    Eigen::MatrixXd a(n, d + 1);
+    Eigen::VectorXd b(n);
+    for (std::size_t i = 0; i < n; ++i) {
+        double target = 0.3;
+        for (std::size_t j = 0; j < d; ++j) {
+            const double v = engine.uniform<double>(-1.0, 1.0);
+            x(i, j) = static_cast<T>(v);
+            a(static_cast<Eigen::Index>(i), static_cast<Eigen::Index>(j)) = static_cast<double>(x(i, j));
+            target += (1.0 + static_cast<double>(j)) * v;
+        }
+        target += 0.2 * engine.normal<double>();
+        y(i, 0) = static_cast<T>(target);
+        a(static_cast<Eigen::Index>(i), static_cast<Eigen::Index>(d)) = 1.0;
+        b(static_cast<Eigen::Index>(i)) = static_cast<double>(y(i, 0));
+    }
+    const Eigen::VectorXd reference = a.colPivHouseholderQr().solve(b);
+
+    tenon::dense<T> layer(d, 1);
+    tenon::gradient_descent<T> rule;
+    std::vector<tenon::parameter<T>*> params;
+    layer.collect_parameters(params);
+    tenon::tape<T> t;
+    for (int step = 0; step < 3000; ++step) {
+        t.clear();
+        for (auto* p : params) p->zero_grad();
+        t.backward(tenon::l2_loss(t, layer.forward(t, t.input(x), tenon::run_mode::training), y));
+        rule.apply(params, T(0.2));
+    }
+    for (std::size_t j = 0; j < d; ++j) {
+        CHECK(static_cast<double>(layer.weights().value()(j, 0)) ==
+              doctest::Approx(reference(static_cast<Eigen::Index>(j))).epsilon(1e-4));
+    }
+    CHECK(static_cast<double>(layer.bias().value()(0, 0)) == doctest::Approx(reference(static_cast<Eigen::Index>(d))).epsilon(1e-4));
+}
+
+TEST_CASE_TEMPLATE("a logistic model on linearly separable data reaches zero training error", T, float, double) {
+    // Two classes split by the line x0 + 2 x1 = 0.5 with a margin; gradient
+    // descent on binary cross-entropy separates them (the logistic loss of a
+    // separable set has no finite minimum, the error reaches 0).
+    const std::size_t n = 60;
+    tenon::random_engine engine(23);
+    matrix<T> x({n, 2}), y({n, 1});
+    for (std::size_t i = 0; i < n; ++i) {
+        double u, v, s;
+        do {
+            u = engine.uniform<double>(-1.0, 1.0);
+            v = engine.uniform<double>(-1.0, 1.0);
+            s = u + 2.0 * v - 0.5;
+        } while (std::abs(s) < 0.1);
+        x(i, 0) = static_cast<T>(u);
+        x(i, 1) = static_cast<T>(v);
+        y(i, 0) = s > 0 ? T(1) : T(0);
+    }
+    auto net = tenon::make_mlp<T>({2, 1}, tenon::activation::identity, {tenon::init_scheme::zeros, 0.0}, 1);
+    tenon::adam<T> rule;
+    tenon::tape<T> t;
+    for (int step = 0; step < 2000; ++step) {
+        t.clear();
+        net.zero_grads();
+        t.backward(tenon::binary_cross_entropy_loss(t, net.forward(t, x), y));
+        rule.apply(net.parameters(), T(0.05));
+    }
+    t.clear();
+    const auto logits = net.forward(t, x);
+    std::size_t errors = 0;
+    for (std::size_t i = 0; i < n; ++i) errors += (logits.value()(i, 0) > T(0)) != (y(i, 0) > T(0.5));
+    CHECK(errors == 0);
+}
+
+// ---------------------------------------------------------------- state
+
+TEST_CASE_TEMPLATE("update rule state round-trips through bytes exactly", T, float, double) {
+    auto run = [](tenon::update_rule<T>& rule, tenon::update_rule<T>& resumed) {
+        auto net = tenon::make_mlp<T>({3, 4, 2}, tenon::activation::tanh, {}, 4);
+        tenon::random_engine engine(6);
+        matrix<T> x({8, 3}), y({8, 2});
+        for (std::size_t k = 0; k < x.size(); ++k) x.data()[k] = static_cast<T>(engine.uniform<double>(-1, 1));
+        for (std::size_t k = 0; k < y.size(); ++k) y.data()[k] = static_cast<T>(engine.uniform<double>(-1, 1));
+        tenon::tape<T> t;
+        auto step = [&](tenon::update_rule<T>& r) {
+            t.clear();
+            net.zero_grads();
+            t.backward(tenon::l2_loss(t, net.forward(t, x), y));
+            r.apply(net.parameters(), T(0.05));
+        };
+        for (int i = 0; i < 5; ++i) step(rule);
+        const auto bytes = rule.save_state();
+        const auto saved = net.snapshot();
+        for (int i = 0; i < 5; ++i) step(rule);
+        const auto uninterrupted = net.snapshot();
+        net.restore(saved);
+        resumed.load_state(bytes);
+        CHECK(resumed.step_count() == 5);
+        CHECK(resumed.save_state() == bytes);
+        for (int i = 0; i < 5; ++i) step(resumed);
+        const auto continued = net.snapshot();
+        for (std::size_t i = 0; i < continued.values.size(); ++i) CHECK(continued.values[i] == uninterrupted.values[i]);
+    };
+    {
+        tenon::adam<T> a, b;
+        run(a, b);
+    }
+    {
+        tenon::momentum<T> a({T(0.8), true}), b({T(0.8), true});
+        run(a, b);
+    }
+    {
+        tenon::rmsprop<T> a, b;
+        run(a, b);
+    }
+    {
+        tenon::adagrad<T> a, b;
+        run(a, b);
+    }
+    {
+        tenon::adamw<T> a(T(0.05)), b(T(0.05));
+        run(a, b);
+    }
+}
+
+TEST_CASE("update rule state errors") {
+    tenon::parameter<double> w("w", make_matrix<double>({{1.0, 2.0}}));
+    tenon::parameter<double> v("v", make_matrix<double>({{1.0}}));
+    tenon::adam<double> rule;
+    rule.apply({&w}, 0.1);
+    CHECK(code_of([&] { rule.apply({&w, &v}, 0.1); }) == "model.update.state_mismatch");
+    CHECK(code_of([&] { rule.apply({&v}, 0.1); }) == "model.update.state_mismatch");
+    CHECK(code_of([&] { rule.apply({&w}, -0.1); }) == "model.update.option");
+    const auto bytes = rule.save_state();
+    tenon::rmsprop<double> other;
+    CHECK(code_of([&] { other.load_state(bytes); }) == "model.update.state_mismatch");
+    for (std::size_t n = 0; n < bytes.size(); ++n) {
+        const std::vector<std::uint8_t> cut(bytes.begin(), bytes.begin() + static_cast<std::ptrdiff_t>(n));
+        tenon::adam<double> fresh;
+        const std::string code = code_of([&] { fresh.load_state(cut); });
+        CHECK((code == "model.record.truncated" || code == "model.record.malformed"));
+        CHECK(fresh.step_count() == 0);
+    }
+    auto bad = bytes;
+    bad[0] ^= 0x1;
+    CHECK(code_of([&] { rule.load_state(bad); }) == "model.record.malformed");
+    CHECK(rule.step_count() == 1);  // unchanged by the failed load
+    rule.reset();
+    CHECK(rule.step_count() == 0);
+    rule.apply({&v}, 0.1);  // a new layout after reset
+    CHECK(rule.parameter_count() == 1);
+    CHECK(code_of([&] { rule.slot(1, 0); }) == "core.argument.invalid");
+
+    CHECK(code_of([] { tenon::adam<double>({1.0, 0.999, 1e-8, 0.0}); }) == "model.update.option");
+    CHECK(code_of([] { tenon::momentum<double>({1.5, false}); }) == "model.update.option");
+    CHECK(code_of([] { tenon::rmsprop<double>({0.9, 0.0}); }) == "model.update.option");
+    CHECK(code_of([] { tenon::adagrad<double>({-1.0}); }) == "model.update.option");
+    CHECK(code_of([] { tenon::adamw<double>(0.0); }) == "model.update.option");
+    tenon::update_options<double> o;
+    o.clip_value = -1.0;
+    CHECK(code_of([&] { tenon::gradient_descent<double> g(o); }) == "model.update.option");
+}
+
+// ---------------------------------------------------------------- schedules
+
+TEST_CASE("learning-rate schedules give their formulas' rates") {
+    CHECK(tenon::constant_rate(0.1).rate(1000, 7) == 0.1);
+
+    const tenon::step_decay steps(1.0, 0.5, 10);
+    CHECK(steps.rate(0, 9) == 1.0);
+    CHECK(steps.rate(0, 10) == 0.5);
+    CHECK(steps.rate(0, 25) == 0.25);
+
+    const tenon::exponential_decay exponential(2.0, 0.9);
+    CHECK(exponential.rate(0, 3) == doctest::Approx(2.0 * 0.729));
+
+    // Loshchilov & Hutter 2017, eq. 5: maximum at each restart, midpoint at
+    // half a period, and periods 10, 20, 40 with T_mult = 2.
+    const tenon::cosine_restarts cosine(1.0, 0.1, 10, 2);
+    CHECK(cosine.rate(0, 0) == doctest::Approx(1.0));
+    CHECK(cosine.rate(5, 0) == doctest::Approx(0.55));
+    CHECK(cosine.rate(9, 0) < 0.15);
+    CHECK(cosine.rate(10, 0) == doctest::Approx(1.0));
+    CHECK(cosine.rate(20, 0) == doctest::Approx(0.55));
+    CHECK(cosine.rate(30, 0) == doctest::Approx(1.0));
+    const tenon::cosine_restarts fixed(1.0, 0.0, 4);
+    CHECK(fixed.rate(6, 0) == doctest::Approx(0.5));
+
+    // Goyal et al. 2017, section 2.2: linear ramp to the target rate.
+    const tenon::linear_warmup warm(std::make_unique<tenon::constant_rate>(0.4), 4);
+    CHECK(warm.rate(0, 0) == doctest::Approx(0.1));
+    CHECK(warm.rate(3, 0) == doctest::Approx(0.4));
+    CHECK(warm.rate(100, 0) == doctest::Approx(0.4));
+}
+
+TEST_CASE("the stall reduction lowers the rate when the metric stops improving") {
+    tenon::stall_reduction_options o;
+    o.initial_rate = 1.0;
+    o.factor = 0.5;
+    o.patience = 2;
+    o.minimum_rate = 0.2;
+    tenon::stall_reduction s(o);
+    for (double loss : {5.0, 4.0, 3.0}) s.report_metric(loss);
+    CHECK(s.rate(0, 0) == 1.0);
+    s.report_metric(3.0);
+    s.report_metric(3.1);
+    CHECK(s.rate(0, 0) == 1.0);  // two reports without improvement: still patient
+    const auto bytes = s.save_state();
+    s.report_metric(3.0);
+    CHECK(s.rate(0, 0) == 0.5);  // the third one reduces
+    for (int i = 0; i < 6; ++i) s.report_metric(3.0);
+    CHECK(s.rate(0, 0) == 0.2);  // floored at the minimum
+    s.report_metric(1.0);
+    CHECK(s.best() == 1.0);
+
+    // Restored state continues exactly.
+    tenon::stall_reduction restored(o);
+    restored.load_state(bytes);
+    CHECK(restored.reports_without_improvement() == 2);
+    restored.report_metric(3.0);
+    CHECK(restored.rate(0, 0) == 0.5);
+
+    // Watching a metric that should grow.
+    tenon::stall_reduction_options up = o;
+    up.maximize = true;
+    up.patience = 0;
+    tenon::stall_reduction accuracy(up);
+    accuracy.report_metric(0.5);
+    accuracy.report_metric(0.6);
+    CHECK(accuracy.rate(0, 0) == 1.0);
+    accuracy.report_metric(0.55);
+    CHECK(accuracy.rate(0, 0) == 0.5);
+    CHECK(code_of([&] { accuracy.report_metric(std::nan("")); }) == "model.schedule.option");
+
+    // A warm-up passes reports and state to the schedule it wraps.
+    tenon::linear_warmup warm(std::make_unique<tenon::stall_reduction>(up), 2);
+    warm.report_metric(0.5);
+    warm.report_metric(0.4);
+    CHECK(warm.rate(5, 0) == 0.5);
+    tenon::linear_warmup warm_copy(std::make_unique<tenon::stall_reduction>(up), 2);
+    warm_copy.load_state(warm.save_state());
+    CHECK(warm_copy.rate(5, 0) == 0.5);
+}
+
+TEST_CASE("schedule option and state errors") {
+    CHECK(code_of([] { tenon::constant_rate(-1.0); }) == "model.schedule.option");
+    CHECK(code_of([] { tenon::step_decay(1.0, 0.5, 0); }) == "model.schedule.option");
+    CHECK(code_of([] { tenon::exponential_decay(1.0, 1.5); }) == "model.schedule.option");
+    CHECK(code_of([] { tenon::cosine_restarts(0.1, 0.2, 10); }) == "model.schedule.option");
+    CHECK(code_of([] { tenon::linear_warmup(nullptr, 3); }) == "model.schedule.option");
+    tenon::stall_reduction_options o;
+    o.factor = 1.0;
+    CHECK(code_of([&] { tenon::stall_reduction s(o); }) == "model.schedule.option");
+
+    tenon::stall_reduction s;
+    const auto bytes = tenon::constant_rate(0.1).save_state();
+    CHECK(code_of([&] { s.load_state(bytes); }) == "model.schedule.option");
+    auto own = s.save_state();
+    own.pop_back();
+    CHECK(code_of([&] { s.load_state(own); }) == "model.record.truncated");
+    own = s.save_state();
+    own.push_back(0);
+    CHECK(code_of([&] { s.load_state(own); }) == "model.record.malformed");
+}
+
+// ---------------------------------------------------------------- error registry
+
+TEST_CASE("every model error code is listed in the registry") {
+    // Each code below is triggered by a test in test_layers.cpp,
+    // test_losses.cpp or this file.
+    const char* mine[] = {"model.layer.option",          "model.batch_norm.batch_too_small", "model.network.duplicate_name",
+                          "model.network.unknown_parameter", "model.network.snapshot_mismatch", "model.record.truncated",
+                          "model.record.malformed",      "model.record.missing_field",       "model.record.unknown_kind",
+                          "model.loss.label_range",      "model.loss.weights",               "model.loss.target",
+                          "model.loss.option",           "model.update.option",              "model.update.state_mismatch",
+                          "model.schedule.option"};
+    std::size_t in_registry = 0;
+    for (const auto* e = tenon::error_registry_begin(); e != tenon::error_registry_end(); ++e) {
+        if (std::string(e->code).rfind("model.", 0) == 0) ++in_registry;
+    }
+    CHECK(in_registry == sizeof(mine) / sizeof(mine[0]));
+    for (const char* code : mine) {
+        bool found = false;
+        for (const auto* e = tenon::error_registry_begin(); e != tenon::error_registry_end(); ++e) found = found || std::string(e->code) == code;
+        CHECK_MESSAGE(found, code);
+    }
+}
