@@ -1,4 +1,5 @@
-// tenon: a small little-endian byte writer and a bounds-checked reader.
+// tenon: the little-endian byte writer and bounds-checked reader of the
+// measured plan's serialized state (internal to prep/).
 //
 // Integers are written little-endian byte by byte (so the bytes are the same
 // on every host), doubles as their IEEE 754 binary64 bit pattern, strings as
@@ -19,7 +20,9 @@
 
 TENON_NAMESPACE_BEGIN
 
-class byte_writer {
+namespace detail {
+
+class prep_byte_writer {
 public:
     void u8(std::uint8_t v) { bytes_.push_back(v); }
     void u16(std::uint16_t v) { put(v, 2); }
@@ -47,10 +50,10 @@ private:
     std::vector<std::uint8_t> bytes_;
 };
 
-class byte_reader {
+class prep_byte_reader {
 public:
     /// `what` names the data in error messages, e.g. "measured plan".
-    byte_reader(const std::uint8_t* data, std::size_t size, std::string what)
+    prep_byte_reader(const std::uint8_t* data, std::size_t size, std::string what)
         : data_(data), size_(size), what_(std::move(what)) {}
 
     std::size_t position() const noexcept { return position_; }
@@ -136,5 +139,7 @@ private:
     std::size_t position_ = 0;
     std::string what_;
 };
+
+}  // namespace detail
 
 TENON_NAMESPACE_END

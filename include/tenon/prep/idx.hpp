@@ -15,6 +15,7 @@
 #include <cstdint>
 #include <cstdio>
 #include <fstream>
+#include <limits>
 #include <string>
 #include <vector>
 
@@ -63,8 +64,8 @@ inline idx_array parse_idx(const std::uint8_t* data, std::size_t size, const std
         const std::uint8_t* p = data + 4 + 4 * k;
         const std::uint32_t d = (std::uint32_t(p[0]) << 24) | (std::uint32_t(p[1]) << 16) | (std::uint32_t(p[2]) << 8) | p[3];
         a.dimensions.push_back(d);
-        if (d != 0 && total > (size / d) + 1) total = size + 1;  // already more than the file can hold
-        else total *= d;
+        if (d != 0 && total > std::numeric_limits<std::size_t>::max() / d) total = std::numeric_limits<std::size_t>::max();
+        else total *= d;  // saturates instead of wrapping around
     }
     const std::size_t header = 4 + 4 * dims;
     if (total > size - header)

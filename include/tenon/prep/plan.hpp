@@ -326,7 +326,7 @@ public:
     static constexpr std::uint16_t format_version = 1;
 
     std::vector<std::uint8_t> to_bytes() const {
-        byte_writer w;
+        detail::prep_byte_writer w;
         w.raw("TNPL", 4);
         w.u16(format_version);
         w.u32(static_cast<std::uint32_t>(missing_tokens_.size()));
@@ -362,7 +362,7 @@ public:
     }
 
     static measured_plan from_bytes(const std::uint8_t* data, std::size_t size) {
-        byte_reader r(data, size, "measured plan");
+        detail::prep_byte_reader r(data, size, "measured plan");
         const char magic[4] = {'T', 'N', 'P', 'L'};
         for (char m : magic)
             if (r.u8() != static_cast<std::uint8_t>(m))
@@ -415,14 +415,14 @@ private:
 
     static constexpr std::uint8_t tag_feature = 0xF1, tag_target = 0x7A;
 
-    static void write_scaling(byte_writer& w, const scaling& s) {
+    static void write_scaling(detail::prep_byte_writer& w, const scaling& s) {
         w.u8(static_cast<std::uint8_t>(s.method));
         w.f64(s.center);
         w.f64(s.spread);
         w.f64(s.low);
         w.f64(s.high);
     }
-    static scaling read_scaling(byte_reader& r) {
+    static scaling read_scaling(detail::prep_byte_reader& r) {
         scaling s;
         s.method = r.enumeration<scaling_method>(3, "scaling method");
         s.center = r.f64();
