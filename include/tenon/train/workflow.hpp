@@ -1,0 +1,315 @@
+// tenon: from a table to a validated model in a few lines.
+//
+//   tenon::plan p;                       // column roles and preparation steps
+//   p.set_target("fault", tenon::target_kind::classification);
+//   auto split = tenon::stratified_holdout(...);
+//   auto model = tenon::fit_model<float>(table, p, split.train, split.validation, settings);
+//   auto test  = tenon::evaluate_model(model, table, split.test);
+//
+// fit_model measures the plan on the training rows only, prepares training
+// and validation rows with it, builds a multilayer perceptron and trains it
+// with early stopping. evaluate_model scores rows in the target's original
+// units. cross_validate repeats both per fold, refitting the plan and the
+// network each time, and reports each metric's mean and standard deviation.
+#pragma once
+
+#include <cmath>
+#include <cstddef>
+#include <memory>
+#include <string>
+#include <utility>
+#include <vector>
+
+#include "tenon/layers/network.hpp"
+#include "tenon/prep/plan.hpp"
+#include "tenon/prep/split.hpp"
+#include "tenon/train/metrics.hpp"
+#include "tenon/train/trainer.hpp"
+#include "tenon/update/rules.hpp"
+#include "tenon/update/schedules.hpp"
+
+TENON_NAMESPACE_BEGIN
+
+enum class update_kind : std::uint8_t { gradient_descent, momentum, nesterov, adam, adamw, rmsprop, adagrad };
+
+inline const char* update_kind_name(update_kind k) noexcept {
+    switch (k) {
+        case update_kind::gradient_descent: return "gd";
+        case update_kind::momentum: return "momentum";
+        case update_kind::nesterov: return "nesterov";
+        case update_kind::adam: return "adam";
+        case update_kind::adamw: return "adamw";
+        case update_kind::rmsprop: return "rmsprop";
+        case update_kind::adagrad: return "adagrad";
+    }
+    return "unknown";
+}
+
+/// Parses gd, momentum, nesterov, adam, adamw, rmsprop or adagrad.
+inline update_kind parse_update_kind(const std::string& name) {
+    for (int i = 0; i <= static_cast<int>(update_kind::adagrad); ++i) {
+        if (name == update_kind_name(static_cast<update_kind>(i))) return static_cast<update_kind>(i);
+    }
+    raise(codes::train_option, "unknown optimizer '" + name + "' (gd, momentum, nesterov, adam, adamw, rmsprop, adagrad)");
+}
+
+/// Parses l1, l2, huber or cross-entropy.
+inline loss_kind parse_loss_kind(const std::string& name) {
+    for (int i = 0; i <= static_cast<int>(loss_kind::cross_entropy); ++i) {
+        if (name == loss_kind_name(static_cast<loss_kind>(i))) return static_cast<loss_kind>(i);
+    }
+    raise(codes::train_option, "unknown loss '" + name + "' (l1, l2, huber, cross-entropy)");
+}
+
+template <class T>
+std::unique_ptr<update_rule<T>> make_update_rule(update_kind kind) {
+    switch (kind) {
+        case update_kind::gradient_descent: return std::make_unique<gradient_descent<T>>();
+        case update_kind::momentum: return std::make_unique<momentum<T>>();
+        case update_kind::nesterov: {
+            momentum_options<T> m;
+            m.nesterov = true;
+            return std::make_unique<momentum<T>>(m);
+        }
+        case update_kind::adam: return std::make_unique<adam<T>>();
+        case update_kind::adamw: return std::make_unique<adamw<T>>();
+        case update_kind::rmsprop: return std::make_unique<rmsprop<T>>();
+        case update_kind::adagrad: return std::make_unique<adagrad<T>>();
+    }
+    raise(codes::train_option, "make_update_rule: unknown update rule");
+}
+
+/// Everything that shapes a model and its training besides the data.
+struct model_settings {
+    std::vector<std::size_t> hidden{64, 32};
+    activation hidden_activation = activation::relu;
+    /// Loss; by default cross-entropy for classification and l2 for regression.
+    bool loss_given = false;
+    loss_kind loss = loss_kind::l2;
+    update_kind update = update_kind::adam;
+    double learning_rate = 1e-3;
+    std::size_t epochs = 200;
+    std::size_t batch_size = 32;
+    std::size_t patience = 15;
+    double min_improvement = 0.0;
+    std::uint64_t seed = 0;
+    double time_budget_seconds = 0.0;
+    std::function<double()> clock;
+    const std::atomic<bool>* cancel = nullptr;
+    std::function<bool(const epoch_summary&)> on_epoch;
+    std::function<void(const batch_progress&)> on_batch;
+};
+
+/// A trained model with the plan that prepares its inputs.
+template <class T>
+struct fitted_model {
+    measured_plan plan;
+    network<T> net;
+    training_outcome outcome;
+    loss_kind loss = loss_kind::l2;
+    std::size_t train_rows = 0;
+    std::size_t validation_rows = 0;
+    std::size_t dropped_rows = 0;  // rows with a missing target, left out of training and validation
+};
+
+/// Scores of a model on some rows, in the target's original units.
+struct evaluation {
+    bool classification = false;
+    std::size_t rows = 0;
+    std::size_t dropped_rows = 0;  // rows with a missing target, not scored
+    // classification
+    double accuracy = 0.0;
+    double macro_f1 = 0.0;
+    double log_loss = 0.0;
+    classification_scores classes;
+    // regression, original units
+    double rmse = 0.0;
+    double mae = 0.0;
+    double r2 = 0.0;
+};
+
+namespace detail {
+
+template <class T>
+supervised_rows<T> to_supervised(prepared_rows<T>&& p, const measured_plan& plan) {
+    supervised_rows<T> d;
+    d.features = std::move(p.features);
+    if (plan.target_type() == target_kind::classification) {
+        d.class_count = plan.class_count();
+        d.labels.assign(p.classes.begin(), p.classes.end());
+    } else {
+        d.targets = std::move(p.targets);
+    }
+    return d;
+}
+
+}  // namespace detail
+
+/// Measures `recipe` on `train_rows`, trains a perceptron on them with early
+/// stopping on `validation_rows` (which may be empty: then training runs all
+/// epochs on the training loss), and returns the model with its plan.
+template <class T>
+fitted_model<T> fit_model(const table& t, const plan& recipe, const std::vector<std::size_t>& train_rows,
+                          const std::vector<std::size_t>& validation_rows, const model_settings& s) {
+    TENON_REQUIRE_SCALAR(T);
+    measured_plan measured = recipe.measure(t, train_rows);
+    if (!measured.has_target()) raise(codes::train_option, "fit_model: the plan has no target column");
+    const bool classify = measured.target_type() == target_kind::classification;
+    if (classify && measured.class_count() < 2) {
+        raise(codes::train_option, "fit_model: the target '" + measured.target_name() + "' has " + std::to_string(measured.class_count()) +
+                                       " class in the training rows; classification needs at least 2");
+    }
+    prepared_rows<T> train_prepared = measured.template apply<T>(t, train_rows);
+    prepared_rows<T> val_prepared;
+    if (!validation_rows.empty()) val_prepared = measured.template apply<T>(t, validation_rows);
+    const std::size_t dropped = train_prepared.dropped_missing_target + val_prepared.dropped_missing_target;
+
+    supervised_rows<T> train = detail::to_supervised(std::move(train_prepared), measured);
+    supervised_rows<T> validation;
+    if (!validation_rows.empty()) validation = detail::to_supervised(std::move(val_prepared), measured);
+
+    const loss_kind loss = s.loss_given ? s.loss : (classify ? loss_kind::cross_entropy : loss_kind::l2);
+    if (classify != (loss == loss_kind::cross_entropy)) {
+        raise(codes::train_option, std::string("fit_model: the ") + loss_kind_name(loss) + " loss does not fit a " +
+                                       (classify ? "classification" : "regression") + " target");
+    }
+    std::vector<std::size_t> sizes;
+    sizes.push_back(measured.feature_count());
+    sizes.insert(sizes.end(), s.hidden.begin(), s.hidden.end());
+    sizes.push_back(classify ? measured.class_count() : 1);
+    // He initialization suits rectifier-like units (He et al. 2015); Glorot
+    // suits tanh and sigmoid (Glorot & Bengio 2010).
+    const bool rectifier = s.hidden_activation == activation::relu || s.hidden_activation == activation::leaky_relu ||
+                           s.hidden_activation == activation::elu || s.hidden_activation == activation::gelu ||
+                           s.hidden_activation == activation::gelu_tanh;
+    const initializer init{rectifier ? init_scheme::he_uniform : init_scheme::glorot_uniform, 0.0};
+    fitted_model<T> model{std::move(measured), make_mlp<T>(sizes, s.hidden_activation, init, s.seed), {}, loss, 0, 0, dropped};
+    model.train_rows = train.rows();
+    model.validation_rows = validation.rows();
+
+    auto rule = make_update_rule<T>(s.update);
+    constant_rate schedule(s.learning_rate);
+    training_options<T> o;
+    o.epochs = s.epochs;
+    o.batch_size = s.batch_size;
+    o.patience = s.patience;
+    o.min_improvement = s.min_improvement;
+    o.seed = s.seed;
+    o.loss = loss;
+    o.time_budget_seconds = s.time_budget_seconds;
+    o.clock = s.clock;
+    o.cancel = s.cancel;
+    o.on_epoch = s.on_epoch;
+    o.on_batch = s.on_batch;
+    trainer<T> tr(model.net, *rule, schedule, std::move(o));
+    model.outcome = tr.run(train, validation);
+    return model;
+}
+
+/// Predictions for prepared features: class probabilities (rows x classes)
+/// for classification, values in the target's original units (rows x 1) for
+/// regression.
+template <class T>
+matrix<T> predict_prepared(fitted_model<T>& model, const matrix<T>& features) {
+    matrix<T> out = network_outputs(model.net, features);
+    if (model.plan.target_type() == target_kind::classification) return softmax_rows(out);
+    const scaling& ts = model.plan.target_scaling();
+    for (std::size_t k = 0; k < out.size(); ++k) out.data()[k] = static_cast<T>(ts.inverse(static_cast<double>(out.data()[k])));
+    return out;
+}
+
+/// Scores `rows` of `t` (rows with a missing target are counted, not scored).
+template <class T>
+evaluation evaluate_model(fitted_model<T>& model, const table& t, const std::vector<std::size_t>& rows) {
+    prepared_rows<T> p = model.plan.template apply<T>(t, rows);
+    evaluation e;
+    e.rows = p.rows.size();
+    e.dropped_rows = p.dropped_missing_target;
+    if (e.rows == 0) raise(codes::train_no_rows, "evaluate_model: no rows with a target to score");
+    const matrix<T> predicted = predict_prepared(model, p.features);
+    if (model.plan.target_type() == target_kind::classification) {
+        e.classification = true;
+        const std::vector<std::size_t> truth(p.classes.begin(), p.classes.end());
+        e.classes = score_classes(truth, row_argmax(predicted), model.plan.class_count());
+        e.accuracy = e.classes.accuracy;
+        e.macro_f1 = e.classes.macro_f1;
+        e.log_loss = log_loss(predicted, truth);
+    } else {
+        const scaling& ts = model.plan.target_scaling();
+        std::vector<double> truth(e.rows), values(e.rows);
+        for (std::size_t i = 0; i < e.rows; ++i) {
+            truth[i] = ts.inverse(static_cast<double>(p.targets.data()[i]));
+            values[i] = static_cast<double>(predicted.data()[i]);
+        }
+        const regression_scores r = score_values(truth, values);
+        e.rmse = r.rmse;
+        e.mae = r.mae;
+        e.r2 = r.r2;
+    }
+    return e;
+}
+
+/// Mean and sample standard deviation (n - 1) of one metric over folds.
+struct metric_spread {
+    std::string name;
+    double mean = 0.0;
+    double standard_deviation = 0.0;
+    std::vector<double> per_fold;
+};
+
+struct cross_validation_report {
+    std::vector<evaluation> folds;
+    std::vector<metric_spread> metrics;  // accuracy, macro_f1, log_loss or rmse, mae, r2
+};
+
+/// Fits and scores one model per fold. Within each fold, `validation_share`
+/// of the fold's training rows (the latest ones when `chronological`, else a
+/// seeded random choice) is held out for early stopping; the plan is
+/// measured on the rest, so nothing of the fold's test rows is seen.
+template <class T>
+cross_validation_report cross_validate(const table& t, const plan& recipe, const std::vector<fold>& folds, const model_settings& s,
+                                       double validation_share = 0.15, bool chronological = false) {
+    if (folds.size() < 2) raise(codes::train_option, "cross_validate: needs at least 2 folds, got " + std::to_string(folds.size()));
+    if (!(validation_share >= 0.0 && validation_share < 1.0)) {
+        raise(codes::train_option, "cross_validate: the validation share must be in [0, 1), got " + std::to_string(validation_share));
+    }
+    cross_validation_report report;
+    for (std::size_t f = 0; f < folds.size(); ++f) {
+        std::vector<std::size_t> inner = folds[f].train;
+        if (!chronological) {
+            random_engine engine(s.seed, 0xF01D0000u + f);
+            engine.shuffle(inner.begin(), inner.end());
+        }
+        const auto n_val = static_cast<std::size_t>(std::floor(validation_share * static_cast<double>(inner.size())));
+        std::vector<std::size_t> val(inner.end() - static_cast<std::ptrdiff_t>(n_val), inner.end());
+        inner.resize(inner.size() - n_val);
+        std::sort(inner.begin(), inner.end());
+        std::sort(val.begin(), val.end());
+        fitted_model<T> m = fit_model<T>(t, recipe, inner, val, s);
+        report.folds.push_back(evaluate_model(m, t, folds[f].test));
+    }
+    const bool classify = report.folds.front().classification;
+    auto add = [&](const char* name, double evaluation::*field) {
+        metric_spread m;
+        m.name = name;
+        for (const auto& e : report.folds) m.per_fold.push_back(e.*field);
+        for (double v : m.per_fold) m.mean += v;
+        m.mean /= static_cast<double>(m.per_fold.size());
+        double ss = 0.0;
+        for (double v : m.per_fold) ss += (v - m.mean) * (v - m.mean);
+        m.standard_deviation = std::sqrt(ss / static_cast<double>(m.per_fold.size() - 1));
+        report.metrics.push_back(std::move(m));
+    };
+    if (classify) {
+        add("accuracy", &evaluation::accuracy);
+        add("macro_f1", &evaluation::macro_f1);
+        add("log_loss", &evaluation::log_loss);
+    } else {
+        add("rmse", &evaluation::rmse);
+        add("mae", &evaluation::mae);
+        add("r2", &evaluation::r2);
+    }
+    return report;
+}
+
+TENON_NAMESPACE_END
