@@ -14,3 +14,41 @@
 #include "tenon/autodiff/operations.hpp"
 #include "tenon/autodiff/parameter.hpp"
 #include "tenon/autodiff/tape.hpp"
+
+#include "tenon/prep/byte_format.hpp"
+#include "tenon/prep/cell_parsing.hpp"
+#include "tenon/prep/csv.hpp"
+#include "tenon/prep/encoding.hpp"
+#include "tenon/prep/idx.hpp"
+#include "tenon/prep/imputation.hpp"
+#include "tenon/prep/plan.hpp"
+#include "tenon/prep/scaling.hpp"
+#include "tenon/prep/split.hpp"
+#include "tenon/prep/statistics.hpp"
+#include "tenon/prep/table.hpp"
+
+#include "tenon/layers/activation.hpp"
+#include "tenon/layers/bytes.hpp"
+#include "tenon/layers/dense.hpp"
+#include "tenon/layers/dropout.hpp"
+#include "tenon/layers/initializers.hpp"
+#include "tenon/layers/layer.hpp"
+#include "tenon/layers/network.hpp"
+#include "tenon/layers/normalization.hpp"
+
+#include "tenon/losses/classification.hpp"
+#include "tenon/losses/loss_options.hpp"
+#include "tenon/losses/regression.hpp"
+
+#include "tenon/update/rules.hpp"
+#include "tenon/update/schedules.hpp"
+#include "tenon/update/update_rule.hpp"
+
+#include "tenon/train/metrics.hpp"
+#include "tenon/train/report_svg.hpp"
+#include "tenon/train/trainer.hpp"
+#include "tenon/train/workflow.hpp"
+
+#if defined(TENON_HAS_ZLIB)
+#include "tenon/prep/idx_gzip.hpp"
+#endif
