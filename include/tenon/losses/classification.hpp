@@ -99,7 +99,7 @@ template <class T>
 var<T> cross_entropy_loss(tape<T>& t, var<T> logits, const matrix<T>& targets, const loss_options<T>& options = {}) {
     const char* name = "cross-entropy";
     const shape2 s = logits.shape();
-    require_shape(shape_of(targets), s, "cross-entropy loss target");
+    if (shape_of(targets) != s) require_shape(shape_of(targets), s, "cross-entropy loss target");
     detail::check_distribution_rows(name, targets);
     detail::check_sample_weights(name, options, s.rows);
     detail::check_class_weights(name, options, s.cols);
@@ -140,7 +140,7 @@ template <class T>
 var<T> binary_cross_entropy_loss(tape<T>& t, var<T> logits, const matrix<T>& targets, const loss_options<T>& options = {}) {
     const char* name = "binary cross-entropy";
     const shape2 s = logits.shape();
-    require_shape(shape_of(targets), s, "binary cross-entropy loss target");
+    if (shape_of(targets) != s) require_shape(shape_of(targets), s, "binary cross-entropy loss target");
     for (std::size_t k = 0; k < targets.size(); ++k) {
         const T y = targets.data()[k];
         if (!(y >= T(0) && y <= T(1))) {
@@ -183,7 +183,7 @@ namespace detail {
 template <class T>
 var<T> kl_from_log_prediction(tape<T>& t, var<T> log_q, const matrix<T>& p, const loss_options<T>& o, const char* name) {
     const shape2 s = log_q.shape();
-    require_shape(shape_of(p), s, std::string(name) + " loss target");
+    if (shape_of(p) != s) require_shape(shape_of(p), s, std::string(name) + " loss target");
     check_distribution_rows(name, p);
     check_sample_weights(name, o, s.rows);
     if (!o.class_weights.empty() || o.label_smoothing != T(0)) {

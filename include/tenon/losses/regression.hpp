@@ -15,7 +15,8 @@ TENON_NAMESPACE_BEGIN
 namespace detail {
 template <class T>
 var<T> regression_difference(const char* loss, tape<T>& t, var<T> prediction, const matrix<T>& target, const loss_options<T>& o) {
-    require_shape(shape_of(target), prediction.shape(), loss_where(loss) + " target");
+    // Checked before the message is built, so a correct step allocates nothing.
+    if (shape_of(target) != prediction.shape()) require_shape(shape_of(target), prediction.shape(), loss_where(loss) + " target");
     reject_classification_options(loss, o);
     check_sample_weights(loss, o, shape_of(target).rows);
     return prediction - t.input(target);

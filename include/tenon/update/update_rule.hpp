@@ -242,7 +242,7 @@ private:
         for (std::size_t i = 0; i < params.size(); ++i) {
             if (params[i]->shape() != shapes_[i]) {
                 raise(codes::model_update_state_mismatch, std::string(kind()) + " update rule: parameter " + std::to_string(i) + " ('" +
-                                                              params[i]->name() + ") has shape " + to_string(params[i]->shape()) +
+                                                              params[i]->name() + "') has shape " + to_string(params[i]->shape()) +
                                                               ", the state was laid out for " + to_string(shapes_[i]));
             }
             if (shape_of(params[i]->grad()) != shapes_[i]) {
