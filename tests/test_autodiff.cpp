@@ -574,3 +574,15 @@ TEST_CASE_TEMPLATE("a frozen parameter takes part in the forward pass but gets n
     CHECK_NOTHROW(t.backward(tenon::sum(t.watch(frozen))));
     CHECK(frozen.grad()(0, 0) == T(0));
 }
+
+TEST_CASE_TEMPLATE("constant-on-the-left subtraction and division by a constant", T, float, double) {
+    // d/dx sum(1 - x) = -1 and d/dx sum(x / 4) = 1/4 (elementary calculus).
+    tenon::parameter<T> x("x", make_matrix<T>({{T(2), T(-3)}}));
+    tenon::tape<T> t;
+    const auto v = t.watch(x);
+    const auto y = T(1) - v;
+    CHECK(y.value()(0, 1) == doctest::Approx(4.0));
+    t.backward(tenon::sum(y) + tenon::sum(v / T(4)));
+    CHECK(x.grad()(0, 0) == doctest::Approx(-0.75));
+    CHECK(x.grad()(0, 1) == doctest::Approx(-0.75));
+}

@@ -40,6 +40,8 @@ template <class T> var<T> operator+(var<T> x, T c) { return shift(x, c); }
 template <class T> var<T> operator+(T c, var<T> x) { return shift(x, c); }
 template <class T> var<T> operator-(var<T> x, T c) { return shift(x, -c); }
 template <class T> var<T> operator-(var<T> x) { return scale(x, T(-1)); }
+template <class T> var<T> operator-(T c, var<T> x) { return shift(scale(x, T(-1)), c); }
+template <class T> var<T> operator/(var<T> x, T c) { return scale(x, T(1) / c); }
 
 /// op(a) * op(b), where op transposes when asked; shapes must chain.
 template <class T>
