@@ -1,0 +1,1278 @@
+// The `tenon` command-line tool: trains a perceptron on a CSV file and
+// reports how well it does on rows it never saw.
+//
+// Built on tenon's public headers only, the way a host application would use
+// them. The logic lives here, in a header, so the tests can run the tool in
+// process (run_cli with their own streams); main.cpp only forwards argv.
+//
+// Subcommands are entries of one table (see `subcommands()`); each has a name,
+// a one-line summary for `tenon --help` and a handler. Later subcommands plug
+// in there without touching the dispatch.
+//
+// Exit status: 0 success; 2 bad command line or bad input data (the message
+// on stderr names the option, file, line, column or value); 3 an output file
+// could not be written; 1 anything unexpected. On any failure no --metrics or
+// --report file is created or changed: both are written to a temporary file
+// beside the destination and renamed into place only when everything worked.
+#pragma once
+
+#include <algorithm>
+#include <charconv>
+#include <chrono>
+#include <cmath>
+#include <cstdint>
+#include <cstdio>
+#include <filesystem>
+#include <fstream>
+#include <functional>
+#include <limits>
+#include <ostream>
+#include <sstream>
+#include <stdexcept>
+#include <string>
+#include <string_view>
+#include <system_error>
+#include <utility>
+#include <vector>
+
+#include <tenon/tenon.hpp>
+
+namespace tenon_cli {
+
+inline constexpr int exit_success = 0;
+inline constexpr int exit_unexpected = 1;
+inline constexpr int exit_bad_input = 2;
+inline constexpr int exit_output_failed = 3;
+
+/// What the tool knows about where it runs.
+struct cli_environment {
+    /// Standard output is a terminal: progress is redrawn in place.
+    bool terminal = false;
+    /// Seconds from an arbitrary origin, for the elapsed and remaining times
+    /// shown while training; the steady clock when empty.
+    std::function<double()> clock;
+};
+
+/// A failure of the tool itself (command line, data checks, output files);
+/// library failures arrive as tenon::error. what() reads "[code] message".
+class cli_failure : public std::runtime_error {
+public:
+    cli_failure(std::string code, const std::string& message, int exit_status = exit_bad_input)
+        : std::runtime_error("[" + code + "] " + message), code_(std::move(code)), exit_status_(exit_status) {}
+    const std::string& code() const noexcept { return code_; }
+    int exit_status() const noexcept { return exit_status_; }
+
+private:
+    std::string code_;
+    int exit_status_;
+};
+
+// The tool's own error codes (the library's are in tenon/core/error_codes.hpp).
+namespace cli_codes {
+inline constexpr const char* option_unknown = "cli.option.unknown";
+inline constexpr const char* option_value = "cli.option.value";
+inline constexpr const char* option_missing = "cli.option.missing";
+inline constexpr const char* option_conflict = "cli.option.conflict";
+inline constexpr const char* command_unknown = "cli.command.unknown";
+inline constexpr const char* column_unknown = "cli.column.unknown";
+inline constexpr const char* data_empty = "cli.data.empty";
+inline constexpr const char* target_single_class = "cli.target.single_class";
+inline constexpr const char* output_write = "cli.output.write";
+}  // namespace cli_codes
+
+[[noreturn]] inline void fail(const char* code, const std::string& message, int exit_status = exit_bad_input) {
+    throw cli_failure(code, message, exit_status);
+}
+
+// ---------------------------------------------------------------------------
+// Options of `tenon train`
+
+enum class task_choice { automatic, classify, regress };
+enum class split_choice { automatic, random, stratified, chronological, grouped };
+
+struct train_request {
+    std::string data_path;
+    std::string target;
+    task_choice task = task_choice::automatic;
+    std::vector<std::string> ignored;
+    split_choice split = split_choice::automatic;
+    std::string time_column;
+    std::string group_column;
+    tenon::split_fractions fractions{0.7, 0.15, 0.15};
+    std::size_t folds = 0;  // 0 = single holdout
+    std::vector<std::size_t> hidden{64, 32};
+    tenon::activation hidden_activation = tenon::activation::relu;
+    bool loss_given = false;
+    tenon::loss_kind loss = tenon::loss_kind::l2;
+    tenon::update_kind update = tenon::update_kind::adam;
+    double learning_rate = 1e-3;
+    std::size_t epochs = 200;
+    std::size_t batch = 32;
+    std::size_t patience = 15;
+    std::uint64_t seed = 1;
+    std::size_t threads = 1;
+    std::string metrics_path;
+    std::string report_path;
+    bool quiet = false;
+    bool help = false;
+};
+
+namespace detail {
+
+inline std::string join(const std::vector<std::string>& parts, const char* separator) {
+    std::string s;
+    for (std::size_t k = 0; k < parts.size(); ++k) {
+        if (k) s += separator;
+        s += parts[k];
+    }
+    return s;
+}
+
+inline std::vector<std::string> split_list(const std::string& text) {
+    std::vector<std::string> parts;
+    std::string current;
+    for (char c : text) {
+        if (c == ',') {
+            parts.push_back(current);
+            current.clear();
+        } else {
+            current += c;
+        }
+    }
+    parts.push_back(current);
+    return parts;
+}
+
+inline std::size_t parse_count(const std::string& option, const std::string& text, std::size_t minimum) {
+    std::uint64_t value = 0;
+    const char* first = text.data();
+    const char* last = text.data() + text.size();
+    const auto r = std::from_chars(first, last, value);
+    if (text.empty() || r.ec != std::errc() || r.ptr != last)
+        fail(cli_codes::option_value, option + " '" + text + "': not a whole number");
+    if (value < minimum)
+        fail(cli_codes::option_value, option + " '" + text + "': must be at least " + std::to_string(minimum));
+    if (value > std::numeric_limits<std::size_t>::max()) fail(cli_codes::option_value, option + " '" + text + "': too large");
+    return static_cast<std::size_t>(value);
+}
+
+inline std::uint64_t parse_seed(const std::string& text) {
+    std::uint64_t value = 0;
+    const char* last = text.data() + text.size();
+    const auto r = std::from_chars(text.data(), last, value);
+    if (text.empty() || r.ec != std::errc() || r.ptr != last)
+        fail(cli_codes::option_value, "--seed '" + text + "': not a whole number between 0 and 18446744073709551615");
+    return value;
+}
+
+inline double parse_real(const std::string& option, const std::string& text) {
+    double value = 0;
+    if (!tenon::parse_number(text, value) || text.empty())
+        fail(cli_codes::option_value, option + " '" + text + "': not a finite number");
+    return value;
+}
+
+inline tenon::activation parse_activation_option(const std::string& text) {
+    // The tool spells names with hyphens, as command-line words usually are.
+    const std::pair<const char*, tenon::activation> names[] = {
+        {"relu", tenon::activation::relu},       {"leaky-relu", tenon::activation::leaky_relu},
+        {"elu", tenon::activation::elu},         {"tanh", tenon::activation::tanh},
+        {"sigmoid", tenon::activation::sigmoid}, {"softplus", tenon::activation::softplus},
+        {"gelu", tenon::activation::gelu}};
+    for (const auto& n : names)
+        if (text == n.first) return n.second;
+    fail(cli_codes::option_value,
+         "--activation '" + text + "': not one of relu, leaky-relu, elu, tanh, sigmoid, softplus, gelu");
+}
+
+template <class Choice, std::size_t N>
+Choice parse_choice(const std::string& option, const std::string& text, const std::pair<const char*, Choice> (&names)[N]) {
+    std::vector<std::string> listed;
+    for (const auto& n : names) {
+        if (text == n.first) return n.second;
+        listed.emplace_back(n.first);
+    }
+    fail(cli_codes::option_value, option + " '" + text + "': not one of " + join(listed, ", "));
+}
+
+}  // namespace detail
+
+/// Reads the arguments after `train`. Throws cli_failure on a bad command line.
+inline train_request parse_train_request(const std::vector<std::string>& args) {
+    train_request q;
+    std::vector<std::string> seen;
+    bool data_given = false, target_given = false;
+    for (std::size_t k = 0; k < args.size(); ++k) {
+        std::string name = args[k];
+        std::string value;
+        bool inline_value = false;
+        if (name == "--help" || name == "-h") {
+            q.help = true;
+            continue;
+        }
+        if (name.rfind("--", 0) != 0)
+            fail(cli_codes::option_unknown, "unexpected argument '" + name + "' for 'tenon train' (options start with --; see tenon train --help)");
+        const auto eq = name.find('=');
+        if (eq != std::string::npos) {
+            value = name.substr(eq + 1);
+            name = name.substr(0, eq);
+            inline_value = true;
+        }
+        static const char* const known[] = {"--data", "--target", "--task", "--ignore", "--split", "--time-column", "--group-column",
+                                            "--fractions", "--folds", "--hidden", "--activation", "--loss", "--optimizer",
+                                            "--learning-rate", "--epochs", "--batch", "--patience", "--seed", "--threads",
+                                            "--metrics", "--report", "--quiet"};
+        bool is_known = false;
+        for (const char* n : known) is_known = is_known || name == n;
+        if (!is_known) fail(cli_codes::option_unknown, "unknown option '" + name + "' for 'tenon train' (see tenon train --help)");
+        if (std::find(seen.begin(), seen.end(), name) != seen.end())
+            fail(cli_codes::option_conflict, name + " is given more than once");
+        seen.push_back(name);
+        if (name == "--quiet") {
+            if (inline_value) fail(cli_codes::option_value, "--quiet takes no value");
+            q.quiet = true;
+            continue;
+        }
+        if (!inline_value) {
+            if (k + 1 >= args.size()) fail(cli_codes::option_missing, name + " needs a value");
+            value = args[++k];
+        }
+        if (name == "--data") {
+            if (value.empty()) fail(cli_codes::option_value, "--data needs a file name, got an empty one");
+            q.data_path = value;
+            data_given = true;
+        } else if (name == "--target") {
+            q.target = value;
+            target_given = true;
+        } else if (name == "--task") {
+            const std::pair<const char*, task_choice> names[] = {
+                {"auto", task_choice::automatic}, {"classify", task_choice::classify}, {"regress", task_choice::regress}};
+            q.task = detail::parse_choice("--task", value, names);
+        } else if (name == "--ignore") {
+            q.ignored = detail::split_list(value);
+            for (const auto& c : q.ignored)
+                if (c.empty()) fail(cli_codes::option_value, "--ignore '" + value + "': an empty column name");
+        } else if (name == "--split") {
+            const std::pair<const char*, split_choice> names[] = {{"auto", split_choice::automatic},
+                                                                   {"random", split_choice::random},
+                                                                   {"stratified", split_choice::stratified},
+                                                                   {"chronological", split_choice::chronological},
+                                                                   {"grouped", split_choice::grouped}};
+            q.split = detail::parse_choice("--split", value, names);
+        } else if (name == "--time-column") {
+            q.time_column = value;
+        } else if (name == "--group-column") {
+            q.group_column = value;
+        } else if (name == "--fractions") {
+            const auto parts = detail::split_list(value);
+            if (parts.size() != 3)
+                fail(cli_codes::option_value, "--fractions '" + value + "': expected three numbers TRAIN,VAL,TEST, found " +
+                                                  std::to_string(parts.size()));
+            const double train = detail::parse_real("--fractions", parts[0]);
+            const double validation = detail::parse_real("--fractions", parts[1]);
+            const double test = detail::parse_real("--fractions", parts[2]);
+            if (!(train > 0 && train < 1) || !(validation >= 0 && validation < 1) || !(test > 0 && test < 1))
+                fail(cli_codes::option_value, "--fractions '" + value +
+                                                  "': train and test must lie strictly between 0 and 1, validation in [0, 1)");
+            const double sum = train + validation + test;
+            if (std::abs(sum - 1.0) > 1e-6)
+                fail(cli_codes::option_value, "--fractions '" + value + "': the fractions sum to " + tenon::number_to_text(sum) + ", not 1");
+            q.fractions = {train, validation, test};
+        } else if (name == "--folds") {
+            q.folds = detail::parse_count("--folds", value, 2);
+        } else if (name == "--hidden") {
+            q.hidden.clear();
+            for (const auto& part : detail::split_list(value)) q.hidden.push_back(detail::parse_count("--hidden", part, 1));
+        } else if (name == "--activation") {
+            q.hidden_activation = detail::parse_activation_option(value);
+        } else if (name == "--loss") {
+            const std::pair<const char*, tenon::loss_kind> names[] = {{"l1", tenon::loss_kind::l1},
+                                                                       {"l2", tenon::loss_kind::l2},
+                                                                       {"huber", tenon::loss_kind::huber},
+                                                                       {"cross-entropy", tenon::loss_kind::cross_entropy}};
+            q.loss = detail::parse_choice("--loss", value, names);
+            q.loss_given = true;
+        } else if (name == "--optimizer") {
+            const std::pair<const char*, tenon::update_kind> names[] = {
+                {"gd", tenon::update_kind::gradient_descent}, {"momentum", tenon::update_kind::momentum},
+                {"nesterov", tenon::update_kind::nesterov},   {"adam", tenon::update_kind::adam},
+                {"adamw", tenon::update_kind::adamw},         {"rmsprop", tenon::update_kind::rmsprop},
+                {"adagrad", tenon::update_kind::adagrad}};
+            q.update = detail::parse_choice("--optimizer", value, names);
+        } else if (name == "--learning-rate") {
+            q.learning_rate = detail::parse_real("--learning-rate", value);
+            if (!(q.learning_rate > 0)) fail(cli_codes::option_value, "--learning-rate '" + value + "': must be positive");
+        } else if (name == "--epochs") {
+            q.epochs = detail::parse_count("--epochs", value, 1);
+        } else if (name == "--batch") {
+            q.batch = detail::parse_count("--batch", value, 1);
+        } else if (name == "--patience") {
+            q.patience = detail::parse_count("--patience", value, 0);
+        } else if (name == "--seed") {
+            q.seed = detail::parse_seed(value);
+        } else if (name == "--threads") {
+            q.threads = detail::parse_count("--threads", value, 1);
+        } else if (name == "--metrics") {
+            if (value.empty()) fail(cli_codes::option_value, "--metrics needs a file name, got an empty one");
+            q.metrics_path = value;
+        } else if (name == "--report") {
+            if (value.empty()) fail(cli_codes::option_value, "--report needs a file name, got an empty one");
+            q.report_path = value;
+        }
+    }
+    if (q.help) return q;
+    if (!data_given) fail(cli_codes::option_missing, "tenon train needs --data FILE.csv");
+    if (!target_given || q.target.empty()) fail(cli_codes::option_missing, "tenon train needs --target COLUMN");
+    if (q.split == split_choice::chronological && q.time_column.empty())
+        fail(cli_codes::option_missing, "--split chronological needs --time-column COLUMN");
+    if (q.split == split_choice::grouped && q.group_column.empty())
+        fail(cli_codes::option_missing, "--split grouped needs --group-column COLUMN");
+    if (!q.metrics_path.empty() && !q.report_path.empty() &&
+        std::filesystem::path(q.metrics_path).lexically_normal() == std::filesystem::path(q.report_path).lexically_normal())
+        fail(cli_codes::option_conflict, "--metrics and --report name the same file '" + q.metrics_path + "'");
+    if (q.folds > 0 && !q.report_path.empty())
+        fail(cli_codes::option_conflict, "--report draws one holdout run; it cannot be combined with --folds " + std::to_string(q.folds));
+    for (const auto& c : q.ignored) {
+        if (c == q.target) fail(cli_codes::option_conflict, "--ignore names the target column '" + c + "'");
+    }
+    return q;
+}
+
+// ---------------------------------------------------------------------------
+// Help
+
+inline std::string general_help();
+
+inline std::string train_help() {
+    return R"(tenon train: train a multilayer perceptron on a CSV file and score it on held-out rows
+
+Usage: tenon train --data FILE.csv --target COLUMN [options]
+
+Data
+  --data FILE.csv        CSV file with a header row (required). Column kinds are
+                         inferred: numeric, date/time, or categorical. Empty
+                         cells, NA, NaN, null and ? read as missing. A column
+                         whose cells are numbers except for a few (under 10%)
+                         is taken for a numeric column with typos: the first
+                         bad cell is reported.
+  --target COLUMN        the column to predict (required). Rows whose target
+                         is missing are left out and counted as dropped.
+  --task auto|classify|regress
+                         default auto: classify when the target column is not
+                         numeric, regress when it is (use classify for classes
+                         coded as numbers).
+  --ignore COL,COL       columns that are not features (default: none).
+
+Splitting
+  --split auto|random|stratified|chronological|grouped
+                         default auto: stratified (each class keeps its share
+                         in every subset) for classification, random for
+                         regression. chronological puts the latest rows in
+                         test (needs --time-column); grouped keeps each group
+                         in one subset (needs --group-column).
+  --time-column COL      time column for --split chronological; not a feature.
+  --group-column COL     group column (a machine, a batch) for --split grouped;
+                         not a feature.
+  --fractions TRAIN,VAL,TEST
+                         default 0.7,0.15,0.15; must sum to 1. Validation rows
+                         drive early stopping (VAL may be 0: then no early
+                         stopping).
+  --folds K              K-fold cross-validation (K >= 2) instead of one
+                         holdout: reports the mean and standard deviation of
+                         each test metric over the folds. Default: off.
+
+Preparation (measured on the training rows only)
+  Numeric and date/time columns: missing cells filled with the median, z-score
+  scaling. Categorical columns: missing cells filled with the most frequent
+  category, one-hot encoding, categories unseen in training encode as all
+  zeros. A 0/1 missing-indicator feature is added for every column with missing
+  cells among the training rows. Regression targets are z-scored for training;
+  every reported number is in the target's original units.
+
+Model and training
+  --hidden 64,32         hidden layer widths (default 64,32).
+  --activation relu|leaky-relu|elu|tanh|sigmoid|softplus|gelu
+                         hidden activation (default relu).
+  --loss l1|l2|huber|cross-entropy
+                         default cross-entropy for classification, l2 for
+                         regression.
+  --optimizer gd|momentum|nesterov|adam|adamw|rmsprop|adagrad
+                         update rule (default adam).
+  --learning-rate X      default 0.001.
+  --epochs N             most epochs to run (default 200).
+  --batch N              mini-batch rows (default 32).
+  --patience N           stop after N epochs without a lower validation loss
+                         and keep the best epoch's weights (default 15; 0 = run
+                         all epochs).
+  --seed N               seeds the split, the initial weights and the batch
+                         order (default 1). The same seed and data give the
+                         same metrics on every run.
+  --threads N            accepted (N >= 1, default 1), but training runs on one
+                         thread today; results never depend on N.
+
+Output
+  --metrics OUT.json     write the metrics as JSON: task, rows (train, val, test,
+                         dropped), epochs_run, stop_reason, train_seconds (the
+                         training loop with validation; reading and preparing
+                         data excluded), and val and test scores (accuracy,
+                         macro_f1, log_loss; or rmse, mae, r2).
+  --report OUT.svg       write an SVG report: loss per epoch and, for
+                         classification, the test confusion matrix.
+  --quiet                print nothing but errors.
+  On a terminal the progress line is redrawn in place; otherwise one line is
+  printed per epoch. A summary table follows training.
+
+Exit status
+  0 success; 2 bad command line or bad data (one line on stderr names the
+  problem); 3 an output file could not be written; 1 an unexpected failure.
+  On failure no --metrics or --report file is created or changed.
+)";
+}
+
+inline std::string general_help() {
+    return std::string("tenon ") + tenon::version_string() +
+           R"(: train neural networks on tabular data from the command line
+
+Usage: tenon COMMAND [options]
+       tenon --help | --version
+
+Commands
+  train    train a perceptron on a CSV file and score it on held-out rows
+
+Run 'tenon COMMAND --help' for a command's options and their defaults.
+
+Exit status: 0 success, 2 bad command line or data, 3 output not written,
+1 unexpected failure.
+)";
+}
+
+// ---------------------------------------------------------------------------
+// Reading and checking the data
+
+namespace detail {
+
+inline const tenon::column& named_column(const tenon::table& t, const std::string& option, const std::string& name) {
+    if (!t.contains(name)) {
+        std::vector<std::string> names = t.column_names();
+        std::string listed;
+        const std::size_t shown = std::min<std::size_t>(names.size(), 12);
+        for (std::size_t k = 0; k < shown; ++k) listed += (k ? ", " : "") + names[k];
+        if (shown < names.size()) listed += ", ... (" + std::to_string(names.size()) + " columns)";
+        fail(cli_codes::column_unknown, t.source() + ": " + option + " names '" + name + "', which is not a column (columns: " + listed + ")");
+    }
+    return t.at(name);
+}
+
+// Share of the present cells of a categorical column that read as numbers.
+inline double numeric_share(const tenon::column& c) {
+    std::vector<char> is_number(c.categories().size());
+    for (std::size_t k = 0; k < is_number.size(); ++k) {
+        double v = 0;
+        is_number[k] = tenon::parse_number(c.categories()[k], v) ? 1 : 0;
+    }
+    std::size_t present = 0, numbers = 0;
+    for (std::size_t r = 0; r < c.size(); ++r) {
+        if (c.is_missing(r)) continue;
+        ++present;
+        numbers += static_cast<std::size_t>(is_number[c.code(r)]);
+    }
+    return present ? static_cast<double>(numbers) / static_cast<double>(present) : 0.0;
+}
+
+}  // namespace detail
+
+/// Reads the CSV file. A regression target, and any column whose cells are
+/// numbers but for a few, are read as numeric so that the library names the
+/// first cell that is not a number (file, line, column, value).
+inline tenon::table load_table(const train_request& q) {
+    tenon::csv_options options;
+    if (q.task == task_choice::regress) options.forced_kinds[q.target] = tenon::column_kind::numeric;
+    tenon::table t = [&] {
+        try {
+            return tenon::read_csv_file(q.data_path, options);
+        } catch (const tenon::error& e) {
+            // A forced target that the header lacks: report it as an unknown column.
+            if (e.code() == tenon::codes::prep_column_unknown && options.forced_kinds.count(q.target))
+                fail(cli_codes::column_unknown, q.data_path + ": --target names '" + q.target + "', which is not a column");
+            throw;
+        }
+    }();
+    bool reread = false;
+    for (std::size_t k = 0; k < t.column_count(); ++k) {
+        const tenon::column& c = t[k];
+        if (c.kind() != tenon::column_kind::categorical) continue;
+        const double share = detail::numeric_share(c);
+        if (share >= 0.9 && share < 1.0) {
+            options.forced_kinds[c.name()] = tenon::column_kind::numeric;
+            reread = true;
+        }
+    }
+    if (reread) t = tenon::read_csv_file(q.data_path, options);  // raises prep.cell.not_numeric at the first bad cell
+    if (t.row_count() == 0) fail(cli_codes::data_empty, q.data_path + ": no data rows below the header");
+    return t;
+}
+
+/// The decisions taken from the command line and the data.
+struct training_setup {
+    bool classify = false;
+    split_choice split = split_choice::random;
+    tenon::plan recipe;
+    std::size_t target_missing = 0;
+};
+
+inline bool decide_classification(const tenon::table& t, const train_request& q) {
+    const tenon::column& target = detail::named_column(t, "--target", q.target);
+    if (q.task == task_choice::classify) return true;
+    if (q.task == task_choice::regress) return false;
+    return target.kind() != tenon::column_kind::numeric;
+}
+
+inline training_setup make_setup(const tenon::table& t, const train_request& q) {
+    training_setup s;
+    const tenon::column& target = detail::named_column(t, "--target", q.target);
+    for (const auto& c : q.ignored) detail::named_column(t, "--ignore", c);
+    if (!q.time_column.empty()) {
+        const auto& c = detail::named_column(t, "--time-column", q.time_column);
+        if (c.kind() == tenon::column_kind::categorical)
+            fail(cli_codes::option_value, q.data_path + ": --time-column '" + q.time_column + "' holds text such as '" +
+                                              (c.categories().empty() ? std::string() : c.categories().front()) +
+                                              "', not numbers or dates");
+    }
+    if (!q.group_column.empty()) detail::named_column(t, "--group-column", q.group_column);
+    if (q.time_column == q.target || q.group_column == q.target)
+        fail(cli_codes::option_conflict, "the target '" + q.target + "' cannot also be the time or group column");
+    s.classify = decide_classification(t, q);
+    if (s.classify && target.kind() == tenon::column_kind::datetime)
+        fail(cli_codes::option_value, q.data_path + ": the target '" + q.target + "' holds dates; it cannot be classified");
+    if (!s.classify && target.kind() != tenon::column_kind::numeric)
+        fail(cli_codes::option_value, q.data_path + ": the target '" + q.target + "' is " + tenon::to_string(target.kind()) +
+                                          "; regression needs a numeric target");
+
+    s.target_missing = target.missing_count();
+    if (s.target_missing == t.row_count())
+        fail(cli_codes::data_empty, q.data_path + ": every row's target '" + q.target + "' is missing");
+    if (s.classify) {
+        const auto codes = tenon::dense_codes(target, /*missing_is_value=*/true);
+        std::vector<std::uint32_t> classes;
+        std::string first;
+        for (std::size_t r = 0; r < t.row_count(); ++r) {
+            if (target.is_missing(r)) continue;
+            if (classes.empty())
+                first = target.kind() == tenon::column_kind::categorical ? target.category(r) : tenon::number_to_text(target.number(r));
+            if (std::find(classes.begin(), classes.end(), codes[r]) == classes.end()) classes.push_back(codes[r]);
+            if (classes.size() > 1) break;
+        }
+        if (classes.size() < 2)
+            fail(cli_codes::target_single_class, q.data_path + ": the target '" + q.target + "' has a single class ('" + first + "') in all " +
+                                                     std::to_string(t.row_count() - s.target_missing) +
+                                                     " rows with a target; classification needs at least 2");
+    }
+    if (q.loss_given && s.classify != (q.loss == tenon::loss_kind::cross_entropy))
+        fail(cli_codes::option_conflict, std::string("--loss ") + tenon::loss_kind_name(q.loss) + " does not fit a " +
+                                             (s.classify ? "classification target (use cross-entropy)" : "regression target (use l1, l2 or huber)"));
+
+    s.split = q.split;
+    if (s.split == split_choice::automatic) s.split = s.classify ? split_choice::stratified : split_choice::random;
+    if (s.split == split_choice::stratified && !s.classify)
+        fail(cli_codes::option_conflict, "--split stratified needs a classification target; '" + q.target + "' is regressed");
+
+    s.recipe.set_target(q.target, s.classify ? tenon::target_kind::classification : tenon::target_kind::regression);
+    for (const auto& c : q.ignored) s.recipe.set_role(c, tenon::column_role::ignored);
+    if (!q.time_column.empty()) s.recipe.set_role(q.time_column, tenon::column_role::time);
+    if (!q.group_column.empty()) s.recipe.set_role(q.group_column, tenon::column_role::group);
+    return s;
+}
+
+/// Per-column steps: the median (numeric, date/time) or the most frequent
+/// category fills missing cells, and a missing indicator is added for columns
+/// with missing cells among `train_rows`. Only which rows are missing is
+/// looked at here; every statistic is measured later, by plan::measure.
+inline void choose_feature_steps(const tenon::table& t, tenon::plan& recipe, const std::vector<std::size_t>& train_rows) {
+    for (std::size_t k = 0; k < t.column_count(); ++k) {
+        const tenon::column& c = t[k];
+        if (recipe.role_of(c.name()) != tenon::column_role::feature) continue;
+        tenon::feature_steps steps;
+        const bool categorical = c.kind() == tenon::column_kind::categorical;
+        steps.fill = categorical ? tenon::fill_method::most_frequent : tenon::fill_method::median;
+        steps.scaling = tenon::scaling_method::z_score;
+        steps.unseen = tenon::unseen_policy::all_zero;
+        for (auto r : train_rows) {
+            if (c.is_missing(r)) {
+                steps.missing_indicator = true;
+                break;
+            }
+        }
+        recipe.set_steps(c.name(), steps);
+    }
+}
+
+namespace detail {
+
+inline std::vector<double> column_times(const tenon::table& t, const std::string& name) {
+    const tenon::column& c = t.at(name);
+    std::vector<double> times(t.row_count());
+    for (std::size_t r = 0; r < times.size(); ++r)
+        times[r] = c.is_missing(r) ? std::numeric_limits<double>::quiet_NaN() : c.number(r);
+    return times;
+}
+
+}  // namespace detail
+
+/// The holdout the tool trains, validates and tests on.
+inline tenon::holdout_split make_holdout(const tenon::table& t, const train_request& q, const training_setup& s) {
+    switch (s.split) {
+        case split_choice::stratified:
+            return tenon::stratified_holdout(tenon::dense_codes(t.at(q.target), true), q.fractions, q.seed);
+        case split_choice::chronological:
+            return tenon::chronological_holdout(detail::column_times(t, q.time_column), q.fractions);
+        case split_choice::grouped:
+            return tenon::grouped_holdout(tenon::dense_codes(t.at(q.group_column), true), q.fractions, q.seed);
+        case split_choice::random:
+        case split_choice::automatic: break;
+    }
+    return tenon::random_holdout(t.row_count(), q.fractions, q.seed);
+}
+
+/// Folds for --folds K. Chronological folds walk forward in time: each fold
+/// trains on everything before its test block.
+inline std::vector<tenon::fold> make_folds(const tenon::table& t, const train_request& q, const training_setup& s) {
+    switch (s.split) {
+        case split_choice::stratified: return tenon::stratified_k_folds(tenon::dense_codes(t.at(q.target), true), q.folds, q.seed);
+        case split_choice::chronological: {
+            const std::size_t horizon = std::max<std::size_t>(1, t.row_count() / (q.folds + 1));
+            return tenon::rolling_origin_folds(detail::column_times(t, q.time_column), q.folds, horizon);
+        }
+        case split_choice::grouped: return tenon::group_k_folds(tenon::dense_codes(t.at(q.group_column), true), q.folds, q.seed);
+        case split_choice::random:
+        case split_choice::automatic: break;
+    }
+    return tenon::k_folds(t.row_count(), q.folds, q.seed);
+}
+
+inline tenon::model_settings make_settings(const train_request& q) {
+    tenon::model_settings m;
+    m.hidden = q.hidden;
+    m.hidden_activation = q.hidden_activation;
+    m.loss_given = q.loss_given;
+    m.loss = q.loss;
+    m.update = q.update;
+    m.learning_rate = q.learning_rate;
+    m.epochs = q.epochs;
+    m.batch_size = q.batch;
+    m.patience = q.patience;
+    m.seed = q.seed;
+    return m;
+}
+
+// ---------------------------------------------------------------------------
+// Output files: written beside the destination, renamed into place on success
+
+class pending_output {
+public:
+    pending_output() = default;
+    pending_output(std::string option, std::string destination) : option_(std::move(option)), destination_(std::move(destination)) {
+        const std::filesystem::path p(destination_);
+        temporary_ = (p.parent_path() / ("." + p.filename().string() + ".tenon-partial")).string();
+        // Created now, so an unwritable destination fails before training.
+        std::ofstream probe(temporary_, std::ios::binary | std::ios::trunc);
+        if (!probe)
+            fail(cli_codes::output_write, option_ + " '" + destination_ + "': cannot create a file in that directory", exit_output_failed);
+        created_ = true;
+    }
+    pending_output(const pending_output&) = delete;
+    pending_output& operator=(const pending_output&) = delete;
+    pending_output(pending_output&& o) noexcept { *this = std::move(o); }
+    pending_output& operator=(pending_output&& o) noexcept {
+        discard();
+        option_ = std::move(o.option_);
+        destination_ = std::move(o.destination_);
+        temporary_ = std::move(o.temporary_);
+        created_ = o.created_;
+        o.created_ = false;
+        return *this;
+    }
+    ~pending_output() { discard(); }
+
+    bool active() const noexcept { return created_; }
+    const std::string& destination() const noexcept { return destination_; }
+
+    void write(const std::string& content) {
+        std::ofstream out(temporary_, std::ios::binary | std::ios::trunc);
+        out << content;
+        out.close();
+        if (!out) fail(cli_codes::output_write, option_ + " '" + destination_ + "': writing failed", exit_output_failed);
+    }
+    void commit() {
+        std::error_code ec;
+        std::filesystem::rename(temporary_, destination_, ec);
+        if (ec) fail(cli_codes::output_write, option_ + " '" + destination_ + "': cannot rename into place (" + ec.message() + ")", exit_output_failed);
+        created_ = false;
+    }
+    void discard() noexcept {
+        if (!created_) return;
+        std::error_code ec;
+        std::filesystem::remove(temporary_, ec);
+        created_ = false;
+    }
+
+private:
+    std::string option_, destination_, temporary_;
+    bool created_ = false;
+};
+
+// ---------------------------------------------------------------------------
+// A small JSON writer (RFC 8259: strings escaped per section 7; numbers must
+// be finite per section 6, so NaN and infinities are written as null).
+
+class json_writer {
+public:
+    json_writer& open_object(const char* key = nullptr) { return open(key, '{'); }
+    json_writer& open_array(const char* key = nullptr) { return open(key, '['); }
+    json_writer& close_object() { return close('}'); }
+    json_writer& close_array() { return close(']'); }
+
+    json_writer& text(const char* key, const std::string& value) {
+        member(key);
+        quoted(value);
+        return *this;
+    }
+    json_writer& number(const char* key, double value) {
+        member(key);
+        if (!std::isfinite(value)) {
+            out_ += "null";
+            return *this;
+        }
+        char buffer[64];
+        const auto r = std::to_chars(buffer, buffer + sizeof buffer, value);  // shortest text that reads back exactly
+        out_.append(buffer, r.ptr);
+        return *this;
+    }
+    json_writer& count(const char* key, std::uint64_t value) {
+        member(key);
+        out_ += std::to_string(value);
+        return *this;
+    }
+    json_writer& null(const char* key) {
+        member(key);
+        out_ += "null";
+        return *this;
+    }
+    const std::string& str() const noexcept { return out_; }
+    std::string finish() {
+        out_ += '\n';
+        return out_;
+    }
+
+    static std::string escape(const std::string& s) {
+        std::string out;
+        for (char ch : s) {
+            const auto c = static_cast<unsigned char>(ch);
+            switch (c) {
+                case '"': out += "\\\""; break;
+                case '\\': out += "\\\\"; break;
+                case '\b': out += "\\b"; break;
+                case '\f': out += "\\f"; break;
+                case '\n': out += "\\n"; break;
+                case '\r': out += "\\r"; break;
+                case '\t': out += "\\t"; break;
+                default:
+                    if (c < 0x20) {
+                        char u[8];
+                        std::snprintf(u, sizeof u, "\\u%04x", static_cast<unsigned>(c));
+                        out += u;
+                    } else {
+                        out += ch;  // UTF-8 bytes pass through unchanged
+                    }
+            }
+        }
+        return out;
+    }
+
+private:
+    json_writer& open(const char* key, char bracket) {
+        member(key);
+        out_ += bracket;
+        first_.push_back(true);
+        return *this;
+    }
+    json_writer& close(char bracket) {
+        const bool empty = first_.back();
+        first_.pop_back();
+        if (!empty) newline();
+        out_ += bracket;
+        return *this;
+    }
+    void newline() {
+        out_ += '\n';
+        out_.append(2 * first_.size(), ' ');
+    }
+    void member(const char* key) {
+        if (!first_.empty()) {
+            if (!first_.back()) out_ += ',';
+            first_.back() = false;
+            newline();
+        }
+        if (key) {
+            quoted(key);
+            out_ += ": ";
+        }
+    }
+    void quoted(const std::string& s) {
+        out_ += '"';
+        out_ += escape(s);
+        out_ += '"';
+    }
+
+    std::string out_;
+    std::vector<bool> first_;
+};
+
+// ---------------------------------------------------------------------------
+// Progress
+
+namespace detail {
+
+inline std::string fixed(double v, int decimals) {
+    if (!std::isfinite(v)) return "-";
+    char buffer[64];
+    std::snprintf(buffer, sizeof buffer, "%.*f", decimals, v);
+    return buffer;
+}
+
+inline std::string duration_text(double seconds) {
+    if (!std::isfinite(seconds) || seconds < 0) return "?";
+    if (seconds < 60) return fixed(seconds, 1) + "s";
+    const auto whole = static_cast<long long>(seconds + 0.5);
+    if (whole < 3600) return std::to_string(whole / 60) + "m" + (whole % 60 < 10 ? "0" : "") + std::to_string(whole % 60) + "s";
+    return std::to_string(whole / 3600) + "h" + (whole / 60 % 60 < 10 ? "0" : "") + std::to_string(whole / 60 % 60) + "m";
+}
+
+inline double steady_seconds() {
+    return std::chrono::duration<double>(std::chrono::steady_clock::now().time_since_epoch()).count();
+}
+
+}  // namespace detail
+
+/// Prints training progress. On a terminal one status line is redrawn in
+/// place:
+///   fold 2/5  ep  17/200 <######:..............>  loss 0.4132  val acc 0.9120  3.2s, <= 41.0s more
+/// The gauge counts the epoch budget: '#' done, ':' the running epoch, '.'
+/// to come; the remaining time assumes every epoch up to the limit runs
+/// (early stopping can only shorten it, hence "<="). Elsewhere (a file, a
+/// pipe) it prints one plain line per finished epoch.
+class progress_printer {
+public:
+    progress_printer(std::ostream& out, bool terminal, bool quiet, std::size_t epochs, std::function<double()> clock)
+        : out_(out), terminal_(terminal), quiet_(quiet), epochs_(epochs), clock_(std::move(clock)) {
+        if (!clock_) clock_ = detail::steady_seconds;
+    }
+
+    /// Starts a run (one holdout, or one fold of `folds`).
+    void start(std::size_t fold, std::size_t folds, bool classify, double metric_scale) {
+        fold_ = fold;
+        folds_ = folds;
+        classify_ = classify;
+        metric_scale_ = metric_scale;
+        start_ = clock_();
+        last_draw_ = -1.0;
+        done_epochs_ = 0;
+        last_line_ = 0;
+        loss_ = val_metric_ = std::numeric_limits<double>::quiet_NaN();
+    }
+
+    void on_batch(const tenon::batch_progress& b) {
+        if (quiet_ || !terminal_) return;
+        const double now = clock_();
+        loss_ = b.loss;
+        if (last_draw_ >= 0 && now - last_draw_ < 0.1 && b.batch != b.batches) return;  // at most ten redraws a second
+        last_draw_ = now;
+        draw(b.epoch - 1, static_cast<double>(b.batch) / static_cast<double>(b.batches), now - start_);
+    }
+
+    void on_epoch(const tenon::epoch_summary& e) {
+        done_epochs_ = e.epoch;
+        loss_ = e.train_loss;
+        val_metric_ = classify_ ? e.validation_metric : e.validation_metric * metric_scale_;
+        if (quiet_) return;
+        const double elapsed = clock_() - start_;
+        if (terminal_) {
+            last_draw_ = clock_();
+            draw(e.epoch, 0.0, elapsed);
+            return;
+        }
+        std::string line = prefix() + "epoch " + std::to_string(e.epoch) + "/" + std::to_string(epochs_) + "  train_loss " +
+                           detail::fixed(e.train_loss, 5);
+        if (std::isfinite(e.validation_loss)) {
+            line += "  val_loss " + detail::fixed(e.validation_loss, 5);
+            line += classify_ ? "  val_accuracy " + detail::fixed(val_metric_, 4)
+                              : (metric_scale_ > 0 ? "  val_rmse " + detail::fixed(val_metric_, 4) : std::string());
+        }
+        line += "  elapsed " + detail::duration_text(elapsed);
+        out_ << line << '\n';
+    }
+
+    /// Ends the status line of a run on a terminal.
+    void finish() {
+        if (quiet_ || !terminal_ || last_line_ == 0) return;
+        out_ << '\n';
+        out_.flush();
+        last_line_ = 0;
+    }
+
+private:
+    std::string prefix() const {
+        return folds_ > 0 ? "fold " + std::to_string(fold_) + "/" + std::to_string(folds_) + "  " : std::string();
+    }
+
+    void draw(std::size_t epochs_done, double within_epoch, double elapsed) {
+        const std::size_t width = 22;
+        const double done = (static_cast<double>(epochs_done) + within_epoch) / static_cast<double>(epochs_);
+        const auto full = static_cast<std::size_t>(std::floor(done * static_cast<double>(width)));
+        std::string gauge(width, '.');
+        for (std::size_t k = 0; k < std::min(full, width); ++k) gauge[k] = '#';
+        if (full < width && within_epoch > 0) gauge[full] = ':';
+        std::string epoch_text = std::to_string(std::min(epochs_done + (within_epoch > 0 ? 1 : 0), epochs_));
+        const std::string limit = std::to_string(epochs_);
+        epoch_text.insert(0, limit.size() > epoch_text.size() ? limit.size() - epoch_text.size() : 0, ' ');
+        std::string line = prefix() + "ep " + epoch_text + "/" + limit + " <" + gauge + ">  loss " + detail::fixed(loss_, 4);
+        if (std::isfinite(val_metric_)) line += classify_ ? "  val acc " + detail::fixed(val_metric_, 4) : "  val rmse " + detail::fixed(val_metric_, 4);
+        const double progress = static_cast<double>(epochs_done) + within_epoch;
+        const double remaining = progress > 0 ? elapsed / progress * (static_cast<double>(epochs_) - progress) : NAN;
+        line += "  " + detail::duration_text(elapsed) + ", <= " + detail::duration_text(remaining) + " more";
+        const std::size_t shown = line.size();
+        if (shown < last_line_) line.append(last_line_ - shown, ' ');  // wipe the tail of a longer previous line
+        out_ << '\r' << line;
+        out_.flush();
+        last_line_ = shown;
+    }
+
+    std::ostream& out_;
+    bool terminal_, quiet_;
+    std::size_t epochs_;
+    std::function<double()> clock_;
+    std::size_t fold_ = 0, folds_ = 0;
+    bool classify_ = false;
+    double metric_scale_ = 1.0;
+    double start_ = 0, last_draw_ = -1;
+    std::size_t done_epochs_ = 0, last_line_ = 0;
+    double loss_ = NAN, val_metric_ = NAN;
+};
+
+// ---------------------------------------------------------------------------
+// `tenon train`
+
+namespace detail {
+
+inline void write_scores(json_writer& j, const char* key, const tenon::evaluation& e) {
+    j.open_object(key);
+    j.count("rows", e.rows);
+    if (e.classification) {
+        j.number("accuracy", e.accuracy).number("macro_f1", e.macro_f1).number("log_loss", e.log_loss);
+    } else {
+        j.number("rmse", e.rmse).number("mae", e.mae).number("r2", e.r2);
+    }
+    j.close_object();
+}
+
+inline std::string table_row(const std::string& name, const std::vector<std::string>& cells) {
+    char buffer[32];
+    std::snprintf(buffer, sizeof buffer, "  %-12s", name.c_str());
+    std::string line = buffer;
+    for (const auto& c : cells) {
+        std::snprintf(buffer, sizeof buffer, "%14s", c.c_str());
+        line += buffer;
+    }
+    return line + "\n";
+}
+
+inline std::string split_name(split_choice s) {
+    switch (s) {
+        case split_choice::random: return "random";
+        case split_choice::stratified: return "stratified";
+        case split_choice::chronological: return "chronological";
+        case split_choice::grouped: return "grouped";
+        case split_choice::automatic: break;
+    }
+    return "auto";
+}
+
+inline void header_fields(json_writer& j, const train_request& q, const training_setup& s) {
+    j.text("tool", std::string("tenon ") + tenon::version_string() + " train");
+    j.text("data", q.data_path);
+    j.text("target", q.target);
+    j.text("task", s.classify ? "classification" : "regression");
+    j.text("split", split_name(s.split));
+    j.count("seed", q.seed);
+}
+
+// Holdout run.
+inline int train_holdout(const tenon::table& t, const train_request& q, training_setup& s, std::ostream& out,
+                         const cli_environment& env, pending_output& metrics_file, pending_output& report_file) {
+    const tenon::holdout_split split = make_holdout(t, q, s);
+    choose_feature_steps(t, s.recipe, split.train);
+
+    // The validation metric is RMSE in prepared units; the target's z-score
+    // spread turns it back into the target's units for display.
+    double metric_scale = 1.0;
+    if (!s.classify) {
+        const tenon::scaling ts = s.recipe.measure(t, split.train).target_scaling();
+        metric_scale = std::abs(ts.inverse(1.0) - ts.inverse(0.0));
+    }
+    progress_printer progress(out, env.terminal, q.quiet, q.epochs, env.clock);
+    progress.start(0, 0, s.classify, metric_scale);
+    tenon::model_settings settings = make_settings(q);
+    settings.on_epoch = [&](const tenon::epoch_summary& e) {
+        progress.on_epoch(e);
+        return true;
+    };
+    settings.on_batch = [&](const tenon::batch_progress& b) { progress.on_batch(b); };
+    tenon::fitted_model<float> model = tenon::fit_model<float>(t, s.recipe, split.train, split.validation, settings);
+    progress.finish();
+
+    tenon::evaluation validation;
+    const bool has_validation = model.validation_rows > 0;
+    if (has_validation) validation = tenon::evaluate_model(model, t, split.validation);
+    const tenon::evaluation test = tenon::evaluate_model(model, t, split.test);
+    const std::size_t dropped = model.dropped_rows + test.dropped_rows;
+    const tenon::training_outcome& o = model.outcome;
+
+    if (metrics_file.active()) {
+        json_writer j;
+        j.open_object();
+        header_fields(j, q, s);
+        j.open_object("rows").count("total", t.row_count()).count("train", model.train_rows).count("val", model.validation_rows);
+        j.count("test", test.rows).count("dropped", dropped).close_object();
+        j.count("features", model.plan.feature_count());
+        if (s.classify) {
+            j.open_array("classes");
+            for (const auto& c : model.plan.class_names()) j.text(nullptr, c);
+            j.close_array();
+        }
+        j.count("epochs_run", o.history.size());
+        j.count("best_epoch", o.best_epoch);
+        j.text("stop_reason", tenon::stop_reason_name(o.reason));
+        j.number("train_seconds", o.seconds);
+        if (has_validation) write_scores(j, "val", validation);
+        else j.null("val");
+        write_scores(j, "test", test);
+        j.open_array("history");
+        for (const auto& e : o.history) {
+            j.open_object().count("epoch", e.epoch).number("train_loss", e.train_loss).number("val_loss", e.validation_loss).close_object();
+        }
+        j.close_array();
+        j.close_object();
+        metrics_file.write(j.finish());
+    }
+    if (report_file.active()) {
+        tenon::report_content r;
+        r.title = "tenon train: " + q.target + " from " + std::filesystem::path(q.data_path).filename().string() + " (" +
+                  (s.classify ? "classification, test accuracy " + fixed(test.accuracy, 4) : "regression, test RMSE " + fixed(test.rmse, 4)) + ")";
+        for (const auto& e : o.history) r.epochs.push_back({e.train_loss, e.validation_loss});
+        r.kept_epoch = o.best_epoch;
+        if (s.classify) {
+            r.confusion = &test.classes.confusion;
+            r.class_names = model.plan.class_names();
+        }
+        report_file.write(tenon::training_report_svg(r));
+    }
+    // Everything is written: move the files into place together.
+    if (metrics_file.active()) metrics_file.commit();
+    if (report_file.active()) {
+        try {
+            report_file.commit();
+        } catch (...) {
+            if (!q.metrics_path.empty()) {
+                std::error_code ec;
+                std::filesystem::remove(q.metrics_path, ec);
+            }
+            throw;
+        }
+    }
+
+    if (!q.quiet) {
+        std::string summary = "\n" + table_row("scores", {"validation", "test"});
+        summary += table_row("rows", {has_validation ? std::to_string(validation.rows) : "-", std::to_string(test.rows)});
+        auto both = [&](const char* name, double tenon::evaluation::*field, int decimals) {
+            summary += table_row(name, {has_validation ? fixed(validation.*field, decimals) : "-", fixed(test.*field, decimals)});
+        };
+        if (s.classify) {
+            both("accuracy", &tenon::evaluation::accuracy, 4);
+            both("macro F1", &tenon::evaluation::macro_f1, 4);
+            both("log loss", &tenon::evaluation::log_loss, 4);
+        } else {
+            both("RMSE", &tenon::evaluation::rmse, 4);
+            both("MAE", &tenon::evaluation::mae, 4);
+            both("R^2", &tenon::evaluation::r2, 4);
+        }
+        summary += "\n" + std::to_string(o.history.size()) + " epochs in " + duration_text(o.seconds) + "; " + o.message +
+                   (o.best_epoch > 0 ? "; kept epoch " + std::to_string(o.best_epoch) : std::string()) + "\n";
+        summary += std::to_string(model.train_rows) + " training rows, " + std::to_string(model.plan.feature_count()) + " features" +
+                   (dropped ? ", " + std::to_string(dropped) + " rows dropped for a missing target" : std::string()) + "\n";
+        if (!q.metrics_path.empty()) summary += "metrics written to " + q.metrics_path + "\n";
+        if (!q.report_path.empty()) summary += "report written to " + q.report_path + "\n";
+        out << summary;
+    }
+    return exit_success;
+}
+
+// Cross-validation run.
+inline int train_folds(const tenon::table& t, const train_request& q, training_setup& s, std::ostream& out, const cli_environment& env,
+                       pending_output& metrics_file) {
+    const std::vector<tenon::fold> folds = make_folds(t, q, s);
+    // Indicators for every column with a missing cell anywhere: each fold's
+    // plan is measured on its own rows, and a fixed layout keeps folds alike.
+    std::vector<std::size_t> all(t.row_count());
+    for (std::size_t r = 0; r < all.size(); ++r) all[r] = r;
+    choose_feature_steps(t, s.recipe, all);
+
+    progress_printer progress(out, env.terminal, q.quiet, q.epochs, env.clock);
+    std::vector<std::size_t> epochs_run;
+    double seconds = 0;
+    tenon::model_settings settings = make_settings(q);
+    settings.on_epoch = [&](const tenon::epoch_summary& e) {
+        if (e.epoch == 1) {
+            if (!epochs_run.empty()) progress.finish();
+            epochs_run.push_back(0);
+            progress.start(epochs_run.size(), folds.size(), s.classify, 0.0);
+        }
+        epochs_run.back() = e.epoch;
+        seconds += e.seconds;
+        progress.on_epoch(e);
+        return true;
+    };
+    settings.on_batch = [&](const tenon::batch_progress& b) { progress.on_batch(b); };
+    const bool chronological = s.split == split_choice::chronological;
+    const tenon::cross_validation_report report =
+        tenon::cross_validate<float>(t, s.recipe, folds, settings, q.fractions.validation, chronological);
+    progress.finish();
+
+    std::size_t dropped = 0;
+    for (const auto& e : report.folds) dropped += e.dropped_rows;
+    if (metrics_file.active()) {
+        json_writer j;
+        j.open_object();
+        header_fields(j, q, s);
+        j.open_object("rows").count("total", t.row_count()).count("dropped", dropped).close_object();
+        j.count("folds", folds.size());
+        j.open_array("epochs_run");
+        for (auto e : epochs_run) j.count(nullptr, e);
+        j.close_array();
+        j.number("train_seconds", seconds);
+        j.open_object("test");
+        for (const auto& m : report.metrics) j.number(m.name.c_str(), m.mean);
+        j.close_object();
+        j.open_object("test_spread");
+        for (const auto& m : report.metrics) j.number(m.name.c_str(), m.standard_deviation);
+        j.close_object();
+        j.open_array("per_fold");
+        for (const auto& e : report.folds) write_scores(j, nullptr, e);
+        j.close_array();
+        j.close_object();
+        metrics_file.write(j.finish());
+        metrics_file.commit();
+    }
+    if (!q.quiet) {
+        std::string summary = "\n" + table_row(std::to_string(folds.size()) + " folds", {"mean", "std. dev."});
+        for (const auto& m : report.metrics) summary += table_row(m.name, {fixed(m.mean, 4), fixed(m.standard_deviation, 4)});
+        summary += "\nepochs per fold:";
+        for (auto e : epochs_run) summary += " " + std::to_string(e);
+        summary += "; training took " + duration_text(seconds) + "\n";
+        if (dropped) summary += std::to_string(dropped) + " rows dropped for a missing target\n";
+        if (!q.metrics_path.empty()) summary += "metrics written to " + q.metrics_path + "\n";
+        out << summary;
+    }
+    return exit_success;
+}
+
+}  // namespace detail
+
+inline int run_train(const std::vector<std::string>& args, std::ostream& out, std::ostream& err, const cli_environment& env) {
+    (void)err;
+    const train_request q = parse_train_request(args);
+    if (q.help) {
+        out << train_help();
+        return exit_success;
+    }
+    // Output files are claimed first, so an unwritable path fails before training.
+    pending_output metrics_file, report_file;
+    if (!q.metrics_path.empty()) metrics_file = pending_output("--metrics", q.metrics_path);
+    if (!q.report_path.empty()) report_file = pending_output("--report", q.report_path);
+
+    const tenon::table t = load_table(q);
+    training_setup s = make_setup(t, q);
+    if (q.folds > 0) return detail::train_folds(t, q, s, out, env, metrics_file);
+    return detail::train_holdout(t, q, s, out, env, metrics_file, report_file);
+}
+
+// ---------------------------------------------------------------------------
+// Dispatch
+
+struct subcommand {
+    const char* name;
+    const char* summary;
+    int (*run)(const std::vector<std::string>& args, std::ostream& out, std::ostream& err, const cli_environment& env);
+};
+
+inline const std::vector<subcommand>& subcommands() {
+    static const std::vector<subcommand> table{
+        {"train", "train a perceptron on a CSV file and score it on held-out rows", &run_train},
+    };
+    return table;
+}
+
+namespace detail {
+inline std::string one_line(std::string s) {
+    for (char& c : s)
+        if (c == '\n' || c == '\r') c = ' ';
+    return s;
+}
+}  // namespace detail
+
+/// Runs the tool with the given arguments (argv[0] is the program name).
+/// Returns the exit status; messages go to `out`, errors to `err`, one line each.
+inline int run_cli(int argc, char** argv, std::ostream& out, std::ostream& err, const cli_environment& env) {
+    std::vector<std::string> args;
+    for (int k = 1; k < argc; ++k) args.emplace_back(argv[k]);
+    std::string command = "tenon";
+    try {
+        if (args.empty()) {
+            err << general_help();
+            return exit_bad_input;
+        }
+        if (args[0] == "--help" || args[0] == "-h" || args[0] == "help") {
+            if (args[0] == "help" && args.size() > 1) {
+                args = {args[1], "--help"};
+            } else {
+                out << general_help();
+                return exit_success;
+            }
+        }
+        if (args[0] == "--version") {
+            out << "tenon " << tenon::version_string() << "\n";
+            return exit_success;
+        }
+        for (const auto& c : subcommands()) {
+            if (args[0] == c.name) {
+                command = std::string("tenon ") + c.name;
+                return c.run(std::vector<std::string>(args.begin() + 1, args.end()), out, err, env);
+            }
+        }
+        std::vector<std::string> names;
+        for (const auto& c : subcommands()) names.emplace_back(c.name);
+        fail(cli_codes::command_unknown, "unknown command '" + args[0] + "' (commands: " + detail::join(names, ", ") + "; see tenon --help)");
+    } catch (const cli_failure& e) {
+        out.flush();
+        err << command << ": error: " << detail::one_line(e.what()) << "\n";
+        return e.exit_status();
+    } catch (const tenon::error& e) {
+        out.flush();
+        err << command << ": error: " << detail::one_line(e.what()) << "\n";
+        return exit_bad_input;
+    } catch (const std::exception& e) {
+        out.flush();
+        err << command << ": unexpected failure: " << detail::one_line(e.what()) << "\n";
+        return exit_unexpected;
+    }
+}
+
+}  // namespace tenon_cli
