@@ -393,6 +393,59 @@ TEST_CASE_TEMPLATE("gemm matches a naive triple loop for all transpose cases and
     }
 }
 
+TEST_CASE_TEMPLATE("gemm across its block and tile edges stays within the dot-product rounding bound", T, float, double) {
+    // The blocked kernel packs kc = 256 deep, mc = 64 rows and nc = 512
+    // columns at a time into 4-row x 8-column (float) or 4 x 4 (double)
+    // tiles; results thinner than a tile take unpacked loops. These shapes
+    // cross each of those edges with sizes that are not multiples of them.
+    // Bound: |fl(x.y) - x.y| <= gamma_k |x|.|y|, gamma_k = k u / (1 - k u)
+    // (Higham 2002, "Accuracy and Stability of Numerical Algorithms", 2nd ed.,
+    // section 3.1, eq. 3.5), whatever the summation order; two more rounding
+    // steps for alpha and beta give gamma_{k+2}.
+    tenon::random_engine rng(47);
+    const double unit_roundoff = static_cast<double>(std::numeric_limits<T>::epsilon()) / 2.0;
+    const std::size_t sizes[][3] = {{13, 21, 35},  {70, 9, 7},   {5, 530, 3}, {6, 10, 300},
+                                    {3, 40, 20},   {20, 3, 20},  {1, 9, 17},  {68, 516, 2}};
+    for (const auto& sz : sizes) {
+        const std::size_t m = sz[0], n = sz[1], k = sz[2];
+        const double gamma = static_cast<double>(k + 2) * unit_roundoff / (1.0 - static_cast<double>(k + 2) * unit_roundoff);
+        for (int mode = 0; mode < 4; ++mode) {
+            const bool ta = (mode & 1) != 0, tb = (mode & 2) != 0;
+            const std::size_t a_rows = ta ? k : m, a_cols = ta ? m : k;
+            const std::size_t b_rows = tb ? n : k, b_cols = tb ? k : n;
+            const std::size_t lda = a_cols + 1, ldb = b_cols + 3, ldc = n + 1;
+            const auto a = random_buffer<T>(rng, a_rows * lda);
+            const auto b = random_buffer<T>(rng, b_rows * ldb);
+            const auto c0 = random_buffer<T>(rng, m * ldc);
+            const T alpha = T(-0.75), beta = T(0.5);
+            std::vector<T> c = c0, expected = c0;
+            tenon::gemm<T>(ta, tb, m, n, k, alpha, a.data(), lda, b.data(), ldb, beta, c.data(), ldc);
+            naive_gemm<T>(ta, tb, m, n, k, alpha, a, lda, b, ldb, beta, expected, ldc);
+            std::size_t outside = 0, padding_changed = 0;
+            for (std::size_t i = 0; i < m; ++i) {
+                for (std::size_t j = 0; j < ldc; ++j) {
+                    const std::size_t idx = i * ldc + j;
+                    if (j >= n) {
+                        padding_changed += c[idx] != c0[idx];
+                        continue;
+                    }
+                    double magnitude = 0.0;  // |alpha| |a_i|.|b_j| + |beta c0|
+                    for (std::size_t p = 0; p < k; ++p) {
+                        magnitude += std::abs(static_cast<double>(ta ? a[p * lda + i] : a[i * lda + p]) *
+                                              static_cast<double>(tb ? b[j * ldb + p] : b[p * ldb + j]));
+                    }
+                    magnitude = std::abs(static_cast<double>(alpha)) * magnitude + std::abs(static_cast<double>(beta * c0[idx]));
+                    // + one rounding of the double reference to T
+                    const double bound = gamma * magnitude + unit_roundoff * std::abs(static_cast<double>(expected[idx]));
+                    outside += std::abs(static_cast<double>(c[idx]) - static_cast<double>(expected[idx])) > bound;
+                }
+            }
+            CHECK_MESSAGE(outside == 0, "m=" << m << " n=" << n << " k=" << k << " ta=" << ta << " tb=" << tb);
+            CHECK_MESSAGE(padding_changed == 0, "m=" << m << " n=" << n << " k=" << k << " ta=" << ta << " tb=" << tb);
+        }
+    }
+}
+
 TEST_CASE_TEMPLATE("gemm with beta = 0 ignores NaN and infinity already in C", T, float, double) {
     const auto a = tenon::make_matrix<T>({{T(1), T(2)}, {T(3), T(4)}});
     const auto b = tenon::make_matrix<T>({{T(5), T(6)}, {T(7), T(8)}});
