@@ -867,6 +867,11 @@ public:
         if (!clock_) clock_ = detail::steady_seconds;
     }
 
+    progress_printer(const progress_printer&) = delete;
+    progress_printer& operator=(const progress_printer&) = delete;
+    // Ends a status line left open by a failure, so the error starts on its own line.
+    ~progress_printer() { finish(); }
+
     /// Starts a run (one holdout, or one fold of `folds`).
     void start(std::size_t fold, std::size_t folds, bool classify, double metric_scale) {
         fold_ = fold;
@@ -1105,7 +1110,7 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
             both("R^2", &tenon::evaluation::r2, 4);
         }
         summary += "\n" + std::to_string(o.history.size()) + " epochs in " + duration_text(o.seconds) + "; " + o.message +
-                   (o.best_epoch > 0 ? "; kept epoch " + std::to_string(o.best_epoch) : std::string()) + "\n";
+                   (o.best_epoch > 0 && o.reason != tenon::stop_reason::no_improvement ? "; kept epoch " + std::to_string(o.best_epoch) : std::string()) + "\n";
         summary += std::to_string(model.train_rows) + " training rows, " + std::to_string(model.plan.feature_count()) + " features" +
                    (dropped ? ", " + std::to_string(dropped) + " rows dropped for a missing target" : std::string()) + "\n";
         if (!q.metrics_path.empty()) summary += "metrics written to " + q.metrics_path + "\n";
