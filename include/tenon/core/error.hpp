@@ -7,6 +7,8 @@
 // value. The registry of all codes lives in core/error_codes.hpp.
 #pragma once
 
+#include <cstdio>
+#include <cstdlib>
 #include <stdexcept>
 #include <string>
 #include <utility>
@@ -28,8 +30,17 @@ private:
 };
 
 /// Throws tenon::error with the given code and message.
+/// In a host built without exceptions (-fno-exceptions) it prints the
+/// message to stderr and aborts instead; such hosts use the non-throwing
+/// entry points (e.g. predictor::try_predict_named in deploy/), which check
+/// their input before any call that could raise.
 [[noreturn]] inline void raise(const char* code, const std::string& message) {
+#if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
     throw error(code, message);
+#else
+    std::fprintf(stderr, "tenon: [%s] %s\n", code, message.c_str());
+    std::abort();
+#endif
 }
 
 TENON_NAMESPACE_END

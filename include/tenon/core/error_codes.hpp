@@ -98,7 +98,41 @@
 #define TENON_ERROR_CODES_TRAIN(X)
 
 // deploy/: model files, the predictor, retraining, drift.
-#define TENON_ERROR_CODES_DEPLOY(X)
+#define TENON_ERROR_CODES_DEPLOY(X)                                                            \
+    X(deploy_file_io, "deploy.file.io", "a model file could not be opened, read, written, synced or renamed") \
+    X(deploy_bad_magic, "deploy.model.magic", "the file does not start with the tenon model magic")          \
+    X(deploy_newer_version, "deploy.model.version",                                            \
+      "the model file has a format version newer than this build reads")                       \
+    X(deploy_byte_order, "deploy.model.byte_order", "the model file's byte-order mark is not the one tenon writes") \
+    X(deploy_checksum, "deploy.model.checksum", "a header or section checksum does not match its bytes") \
+    X(deploy_truncated, "deploy.model.truncated", "the model file ends before its header or a section does") \
+    X(deploy_oversize, "deploy.model.oversize",                                                \
+      "a length or count in the model file exceeds the file size or the loading limits")       \
+    X(deploy_malformed, "deploy.model.malformed",                                              \
+      "a model file section is not valid (bad value, duplicate or trailing bytes)")            \
+    X(deploy_unknown_section, "deploy.model.unknown_required_section",                         \
+      "the model file has a section marked required that this build does not know")            \
+    X(deploy_missing_section, "deploy.model.missing_section",                                  \
+      "a section the operation needs (architecture, weights, plan, resume state) is absent")   \
+    X(deploy_scalar_type, "deploy.model.scalar_type",                                          \
+      "the model file stores another scalar type (float or double) than the one asked for")    \
+    X(deploy_shape_mismatch, "deploy.model.shape_mismatch",                                    \
+      "the stored weights do not fit the stored architecture or the plan's feature count")     \
+    X(deploy_unsupported_layer, "deploy.predictor.unsupported_layer",                          \
+      "the network has a layer kind the predictor cannot evaluate")                            \
+    X(deploy_missing_column, "deploy.input.missing_column", "a raw row lacks a column the plan reads") \
+    X(deploy_missing_value, "deploy.input.missing_value",                                      \
+      "a raw cell is missing and the plan has no fill for its column")                         \
+    X(deploy_not_numeric, "deploy.input.not_numeric",                                          \
+      "a raw cell of a numeric or date/time column is not a finite number or date/time")       \
+    X(deploy_unseen_category, "deploy.input.unseen_category",                                  \
+      "a raw category was not seen in training and its column's policy is to fail")            \
+    X(deploy_non_finite, "deploy.input.non_finite", "an input value is NaN or infinite")       \
+    X(deploy_input_shape, "deploy.input.shape",                                                \
+      "a call passed more rows than the predictor's capacity or a wrong number of values")     \
+    X(deploy_holder_empty, "deploy.holder.empty", "a predictor holder was read before a predictor was stored") \
+    X(deploy_resume_mismatch, "deploy.resume.mismatch",                                        \
+      "a saved training state does not fit the network, rows or update rule it is resumed with")
 
 #define TENON_ERROR_CODES(X)                                                                   \
     TENON_ERROR_CODES_CORE(X)                                                                  \

@@ -209,6 +209,7 @@ struct gemm_scratch {
         return scratch;
     }
     bool reserve(std::size_t a_size, std::size_t b_size) noexcept {
+#if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
         try {
             if (a_block.size() < a_size) a_block.resize(a_size);
             if (b_block.size() < b_size) b_block.resize(b_size);
@@ -216,6 +217,13 @@ struct gemm_scratch {
         } catch (const std::bad_alloc&) {
             return false;
         }
+#else
+        // Built without exceptions (e.g. a host using deploy/'s try_ calls):
+        // an allocation failure terminates instead of falling back.
+        if (a_block.size() < a_size) a_block.resize(a_size);
+        if (b_block.size() < b_size) b_block.resize(b_size);
+        return true;
+#endif
     }
 };
 

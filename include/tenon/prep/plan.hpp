@@ -189,6 +189,12 @@ public:
     const scaling& feature_scaling(const std::string& column_name) const { return feature(column_name).scale; }
     const fill_value& feature_fill(const std::string& column_name) const { return feature(column_name).fill; }
     const one_hot_layout& feature_categories(const std::string& column_name) const { return feature(column_name).one_hot; }
+    /// The kind the feature column had in the training table.
+    column_kind feature_kind(const std::string& column_name) const { return feature(column_name).kind; }
+    /// Whether the feature column has a 0/1 "was missing" indicator after its values.
+    bool feature_has_indicator(const std::string& column_name) const { return feature(column_name).indicator; }
+    /// First output column of the feature column's block.
+    std::size_t feature_offset(const std::string& column_name) const { return feature(column_name).offset; }
 
     // --- applying ------------------------------------------------------------------------
     /// Prepares the given rows of a table (features and, if the plan has a

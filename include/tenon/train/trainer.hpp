@@ -112,6 +112,25 @@ struct training_outcome {
     std::string message;                 // why training stopped, in words
 };
 
+/// Where a run stands after a whole epoch: everything besides the weights,
+/// the update-rule state and the schedule state that the next epoch depends
+/// on. A run given this (training_options::resume) together with the
+/// network, rule and schedule as they were at that point continues exactly
+/// as the uninterrupted run would have, bit for bit.
+template <class T>
+struct training_progress {
+    std::size_t epochs_done = 0;            // whole epochs completed
+    std::uint64_t steps = 0;                // updates applied
+    random_state shuffle_engine;            // the engine that shuffles the rows
+    std::vector<std::size_t> order;         // the row permutation the next shuffle starts from
+    std::vector<epoch_summary> history;
+    std::size_t best_epoch = 0;             // 1-based; 0 = none yet
+    double best_validation_loss = std::numeric_limits<double>::infinity();
+    network_snapshot<T> best;               // weights of best_epoch (empty when none)
+    std::size_t epochs_since_best = 0;
+    double rate_factor = 1.0;               // product of divergence reductions so far
+};
+
 template <class T>
 struct training_options {
     std::size_t epochs = 100;
@@ -138,6 +157,10 @@ struct training_options {
     std::function<bool(const epoch_summary&)> on_epoch;
     /// Called after every batch (keep it cheap).
     std::function<void(const batch_progress&)> on_batch;
+    /// Continue a run from this point instead of starting afresh (the
+    /// network, update rule and schedule must hold their state from the same
+    /// point). `epochs` still counts from the start of the original run.
+    const training_progress<T>* resume = nullptr;
 };
 
 namespace detail {
@@ -275,6 +298,11 @@ public:
 
     const training_options<T>& options() const noexcept { return options_; }
 
+    /// The state after the last completed epoch of run(), updated before
+    /// on_epoch is called: save it (with the network, rule and schedule
+    /// state) from on_epoch to checkpoint a run.
+    const training_progress<T>& progress() const noexcept { return progress_; }
+
     /// Trains on `train`, validating on `validation` after every epoch (pass
     /// an empty validation set to train without validation or early stopping).
     training_outcome run(const supervised_rows<T>& train, const supervised_rows<T>& validation) {
@@ -307,6 +335,43 @@ public:
         double rate_factor = 1.0;
         bool stop = false;
         std::size_t epoch = 0;
+        if (options_.resume) {
+            const training_progress<T>& r = *options_.resume;
+            if (r.order.size() != train.rows()) {
+                raise(codes::train_option, "trainer: the resumed run shuffled " + std::to_string(r.order.size()) +
+                                               " training rows, this run has " + std::to_string(train.rows()));
+            }
+            std::vector<std::uint8_t> seen(train.rows(), 0);
+            for (const std::size_t i : r.order) {
+                if (i >= train.rows() || seen[i]) raise(codes::train_option, "trainer: the resumed row order is not a permutation");
+                seen[i] = 1;
+            }
+            if (r.best_epoch > r.epochs_done || (r.best_epoch > 0 && r.best.values.empty())) {
+                raise(codes::train_option, "trainer: the resumed progress names best epoch " + std::to_string(r.best_epoch) +
+                                               " without its weights or after epoch " + std::to_string(r.epochs_done));
+            }
+            if (!(r.rate_factor > 0.0 && r.rate_factor <= 1.0)) {
+                raise(codes::train_option, "trainer: the resumed rate factor must be in (0, 1], got " + std::to_string(r.rate_factor));
+            }
+            shuffle_engine.set_state(r.shuffle_engine);
+            order = r.order;
+            best = r.best;
+            best_loss = r.best_validation_loss;
+            out.best_epoch = r.best_epoch;
+            out.best_validation_loss = r.best_epoch > 0 ? r.best_validation_loss : std::numeric_limits<double>::quiet_NaN();
+            since_best = r.epochs_since_best;
+            rate_factor = r.rate_factor;
+            out.steps = r.steps;
+            out.history = r.history;
+            epoch = r.epochs_done;
+            // The uninterrupted run checked patience right after that epoch.
+            if (validate && options_.patience > 0 && since_best >= options_.patience && epoch > 0) {
+                out.reason = stop_reason::no_improvement;
+                out.message = "no validation improvement for " + std::to_string(options_.patience) + " epochs; best was epoch " +
+                              std::to_string(out.best_epoch);
+                stop = true;
+            }
+        }
 
         while (!stop && epoch < options_.epochs) {
             const double epoch_t0 = options_.clock();
@@ -382,6 +447,18 @@ public:
             s.seconds = options_.clock() - epoch_t0;
             out.history.push_back(s);
             ++epoch;
+
+            // What a checkpoint taken now (e.g. from on_epoch) needs to resume.
+            progress_.epochs_done = epoch;
+            progress_.steps = out.steps;
+            progress_.shuffle_engine = shuffle_engine.state();
+            progress_.order = order;
+            progress_.history = out.history;
+            progress_.best_epoch = out.best_epoch;
+            progress_.best_validation_loss = best_loss;
+            if (out.best_epoch > 0) progress_.best.values = best.values; else progress_.best.values.clear();
+            progress_.epochs_since_best = since_best;
+            progress_.rate_factor = rate_factor;
 
             if (options_.on_epoch && !options_.on_epoch(s)) {
                 out.reason = stop_reason::cancelled;
@@ -524,6 +601,7 @@ private:
     rate_schedule& schedule_;
     training_options<T> options_;
     batch_buffers full_, tail_;
+    training_progress<T> progress_;
 };
 
 TENON_NAMESPACE_END

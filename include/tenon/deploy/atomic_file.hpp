@@ -1,0 +1,206 @@
+// tenon: durable, atomic replacement of a file, and bounded whole-file reads.
+//
+// write_file_atomically(path, bytes) makes the new contents appear all at
+// once or not at all:
+//   1. create "<path>.tmp-<pid>-<n>" in the same directory (same file system,
+//      so the rename below cannot turn into a copy);
+//   2. write every byte, then fsync the temporary file, so its data is on
+//      the storage device before its name can point at it;
+//   3. rename it over <path>; POSIX rename() replaces the target atomically
+//      (IEEE Std 1003.1-2017, rename(), "If the link named by the new
+//      argument exists, it shall be removed and old renamed to new ... a link
+//      named new shall remain visible to other threads throughout the
+//      renaming operation");
+//   4. fsync the directory, so the rename itself survives a power loss
+//      (the directory entry is data of the directory; common practice, see
+//      the fsync(2) manual page of Linux, "Calling fsync() does not
+//      necessarily ensure that the entry in the directory containing the
+//      file has also reached disk").
+// A crash before step 3 leaves the old file untouched (and at worst a
+// stray temporary file); after step 3 the new file is complete. On an error
+// the temporary file is removed and tenon::error (deploy.file.io) raised.
+//
+// Every operation goes through a `file_system` object, so tests inject
+// failures at each step. The default one uses POSIX calls; on other
+// platforms it falls back to the C library (no fsync, and a replace that is
+// not atomic): documented, not hidden.
+#pragma once
+
+#include <atomic>
+#include <cerrno>
+#include <cstddef>
+#include <cstdint>
+#include <cstdio>
+#include <cstring>
+#include <fstream>
+#include <string>
+#include <vector>
+
+#if !defined(_WIN32)
+#include <fcntl.h>
+#include <sys/stat.h>
+#include <unistd.h>
+#endif
+
+#include "tenon/core/error.hpp"
+#include "tenon/core/error_codes.hpp"
+
+TENON_NAMESPACE_BEGIN
+
+/// The file operations an atomic save needs. Each returns false on failure
+/// (with errno, where there is one, left for the message).
+class file_system {
+public:
+    virtual ~file_system() = default;
+    /// Creates (or truncates) a file for writing; returns a handle >= 0, or -1.
+    virtual int create(const std::string& path) = 0;
+    /// Writes all `size` bytes (retrying short writes).
+    virtual bool write(int handle, const std::uint8_t* data, std::size_t size) = 0;
+    virtual bool sync(int handle) = 0;
+    virtual bool close(int handle) = 0;
+    virtual bool rename(const std::string& from, const std::string& to) = 0;
+    /// Makes the directory's entries durable.
+    virtual bool sync_directory(const std::string& directory) = 0;
+    virtual bool remove(const std::string& path) = 0;
+    /// A number that differs between processes (names temporary files).
+    virtual std::uint64_t process_id() { return 0; }
+};
+
+/// The host's file system.
+class native_file_system : public file_system {
+public:
+#if !defined(_WIN32)
+    int create(const std::string& path) override { return ::open(path.c_str(), O_WRONLY | O_CREAT | O_TRUNC | O_CLOEXEC, 0644); }
+    bool write(int handle, const std::uint8_t* data, std::size_t size) override {
+        while (size > 0) {
+            const ssize_t n = ::write(handle, data, size);
+            if (n < 0) {
+                if (errno == EINTR) continue;
+                return false;
+            }
+            data += n;
+            size -= static_cast<std::size_t>(n);
+        }
+        return true;
+    }
+    bool sync(int handle) override { return ::fsync(handle) == 0; }
+    bool close(int handle) override { return ::close(handle) == 0; }
+    bool rename(const std::string& from, const std::string& to) override { return ::rename(from.c_str(), to.c_str()) == 0; }
+    bool sync_directory(const std::string& directory) override {
+        const int fd = ::open(directory.c_str(), O_RDONLY | O_CLOEXEC);
+        if (fd < 0) return false;
+        const bool ok = ::fsync(fd) == 0;
+        ::close(fd);
+        return ok;
+    }
+    bool remove(const std::string& path) override { return ::unlink(path.c_str()) == 0; }
+    std::uint64_t process_id() override { return static_cast<std::uint64_t>(::getpid()); }
+#else
+    int create(const std::string& path) override {
+        for (int i = 0; i < max_open; ++i)
+            if (!files_[i]) {
+                files_[i] = std::fopen(path.c_str(), "wb");
+                return files_[i] ? i : -1;
+            }
+        return -1;
+    }
+    bool write(int handle, const std::uint8_t* data, std::size_t size) override {
+        return std::fwrite(data, 1, size, files_[handle]) == size;
+    }
+    bool sync(int handle) override { return std::fflush(files_[handle]) == 0; }
+    bool close(int handle) override {
+        const bool ok = std::fclose(files_[handle]) == 0;
+        files_[handle] = nullptr;
+        return ok;
+    }
+    bool rename(const std::string& from, const std::string& to) override {
+        std::remove(to.c_str());  // not atomic on this platform
+        return std::rename(from.c_str(), to.c_str()) == 0;
+    }
+    bool sync_directory(const std::string&) override { return true; }
+    bool remove(const std::string& path) override { return std::remove(path.c_str()) == 0; }
+
+private:
+    static constexpr int max_open = 8;
+    std::FILE* files_[max_open] = {};
+#endif
+};
+
+namespace detail {
+
+inline std::string directory_of(const std::string& path) {
+    const auto slash = path.find_last_of('/');
+    if (slash == std::string::npos) return ".";
+    if (slash == 0) return "/";
+    return path.substr(0, slash);
+}
+
+inline std::string errno_text() {
+    const int e = errno;
+    return e ? std::string(" (") + std::strerror(e) + ")" : std::string();
+}
+
+inline std::atomic<std::uint64_t>& temporary_counter() {
+    static std::atomic<std::uint64_t> counter{0};
+    return counter;
+}
+
+}  // namespace detail
+
+/// Replaces `path` by `bytes` atomically and durably (see the top of this
+/// file); raises deploy.file.io naming the step that failed.
+inline void write_file_atomically(const std::string& path, const std::vector<std::uint8_t>& bytes, file_system& fs) {
+    const std::string temporary = path + ".tmp-" + std::to_string(fs.process_id()) + "-" +
+                                  std::to_string(detail::temporary_counter().fetch_add(1));
+    errno = 0;
+    const int handle = fs.create(temporary);
+    if (handle < 0) raise(codes::deploy_file_io, "saving '" + path + "': cannot create the temporary file '" + temporary + "'" + detail::errno_text());
+    const auto fail = [&](const char* step, bool close_it) {
+        const std::string reason = detail::errno_text();
+        if (close_it) fs.close(handle);
+        fs.remove(temporary);
+        raise(codes::deploy_file_io, "saving '" + path + "': " + step + " of '" + temporary + "' failed" + reason +
+                                         "; the previous file is unchanged");
+    };
+    errno = 0;
+    if (!fs.write(handle, bytes.data(), bytes.size())) fail("writing", true);
+    errno = 0;
+    if (!fs.sync(handle)) fail("fsync", true);
+    errno = 0;
+    if (!fs.close(handle)) fail("closing", false);
+    errno = 0;
+    if (!fs.rename(temporary, path)) fail("renaming over the target", false);
+    errno = 0;
+    if (!fs.sync_directory(detail::directory_of(path))) {
+        // The new file is in place; only its durability across a power loss is in doubt.
+        raise(codes::deploy_file_io, "saving '" + path + "': fsync of the directory '" + detail::directory_of(path) +
+                                         "' failed" + detail::errno_text() + "; the new file is in place but may not survive a power loss");
+    }
+}
+
+inline void write_file_atomically(const std::string& path, const std::vector<std::uint8_t>& bytes) {
+    native_file_system fs;
+    write_file_atomically(path, bytes, fs);
+}
+
+/// Reads a whole file of at most `max_bytes` bytes; raises deploy.file.io
+/// when it cannot be read and deploy.model.oversize when it is larger (the
+/// size is checked before any buffer is allocated).
+inline std::vector<std::uint8_t> read_file_bounded(const std::string& path, std::uint64_t max_bytes) {
+    std::ifstream in(path, std::ios::binary);
+    if (!in) raise(codes::deploy_file_io, "cannot open '" + path + "' for reading");
+    in.seekg(0, std::ios::end);
+    const std::streamoff end = in.tellg();
+    if (end < 0) raise(codes::deploy_file_io, "cannot determine the size of '" + path + "'");
+    const auto size = static_cast<std::uint64_t>(end);
+    if (size > max_bytes)
+        raise(codes::deploy_oversize, "'" + path + "' has " + std::to_string(size) + " bytes, more than the limit of " +
+                                          std::to_string(max_bytes));
+    in.seekg(0, std::ios::beg);
+    std::vector<std::uint8_t> bytes(static_cast<std::size_t>(size));
+    if (size > 0 && !in.read(reinterpret_cast<char*>(bytes.data()), static_cast<std::streamsize>(size)))
+        raise(codes::deploy_file_io, "reading '" + path + "' failed after " + std::to_string(in.gcount()) + " bytes");
+    return bytes;
+}
+
+TENON_NAMESPACE_END

@@ -1,0 +1,974 @@
+// tenon: the model file, a binary format of tenon's own.
+//
+// The layout is documented in docs/model-file-format.md; in short:
+//   header   24 bytes: magic 89 'T' 'E' 'N' 'O' 'N' 0D 0A, format version
+//            (u16), reserved (u16), byte-order mark 0x01020304 (u32), scalar
+//            size (4 = float, 8 = double), reserved (u8), section count (u16),
+//            CRC-32 of the 20 bytes before it;
+//   sections each a 24-byte section header (four-letter id, flags with bit 0
+//            "required", reserved, u64 payload length, CRC-32 of the payload,
+//            CRC-32 of the 20 header bytes before it) and the payload.
+// Every number is little-endian; reals in the weights are IEEE 754 binary32
+// or binary64 bit patterns of the file's scalar type, reals elsewhere binary64.
+// Sections: ARCH (architecture), WGHT (weights and state buffers), PLAN (the
+// measured preparation plan), META (training metadata), REFS (reference
+// summaries per input column), RPLY (a bounded sample of raw training rows),
+// RSUM (update rule, schedule, shuffle engine and epoch state for resuming).
+// A reader skips an unknown section unless its required flag is set.
+//
+// Loading trusts nothing: the magic, the header checksum, the version, the
+// byte-order mark and the scalar type are checked first; every section
+// header's checksum before its length is used; every length against the
+// bytes left and the limits in model_limits before anything is allocated;
+// every payload's checksum before it is parsed. Each failure raises its own
+// deploy.model.* code (see core/error_codes.hpp).
+#pragma once
+
+#include <chrono>
+#include <cstddef>
+#include <cstdint>
+#include <cstring>
+#include <optional>
+#include <string>
+#include <utility>
+#include <vector>
+
+#include "tenon/deploy/atomic_file.hpp"
+#include "tenon/deploy/checksum.hpp"
+#include "tenon/deploy/reference.hpp"
+#include "tenon/layers/bytes.hpp"
+#include "tenon/layers/network.hpp"
+#include "tenon/prep/plan.hpp"
+#include "tenon/train/trainer.hpp"
+#include "tenon/train/workflow.hpp"
+#include "tenon/update/schedules.hpp"
+#include "tenon/update/update_rule.hpp"
+
+TENON_NAMESPACE_BEGIN
+
+/// The newest model-file format version this build writes and reads.
+inline constexpr std::uint16_t model_format_version = 1;
+
+/// Limits checked while loading, before anything is allocated.
+struct model_limits {
+    std::uint64_t max_file_bytes = std::uint64_t(1) << 30;     // 1 GiB
+    std::uint64_t max_section_bytes = std::uint64_t(256) << 20;  // 256 MiB
+    std::uint32_t max_sections = 64;
+};
+
+/// How and when a model was trained (section META).
+struct training_metadata {
+    std::string library_version;
+    std::int64_t created_unix_seconds = 0;
+    std::uint64_t seed = 0;
+    std::uint64_t epochs_planned = 0;
+    std::uint64_t epochs_run = 0;
+    std::uint64_t best_epoch = 0;
+    std::uint64_t steps = 0;
+    std::uint64_t training_rows = 0;
+    std::uint64_t validation_rows = 0;
+    std::uint64_t dropped_rows = 0;
+    /// FNV-1a 64 of the training cells in row order (training_fingerprint).
+    std::uint64_t data_fingerprint = 0;
+    std::string stop_reason;
+    std::string loss;
+    std::vector<std::pair<std::string, double>> metrics;        // e.g. best_validation_loss
+    std::vector<std::pair<std::string, std::string>> settings;  // e.g. hidden = "32,32"
+
+    /// The metric of the given name, or NaN.
+    double metric(const std::string& name) const noexcept {
+        for (const auto& m : metrics)
+            if (m.first == name) return m.second;
+        return std::numeric_limits<double>::quiet_NaN();
+    }
+};
+
+/// A bounded sample of raw training rows as cell texts (section RPLY).
+struct replay_sample {
+    std::vector<std::string> columns;
+    std::vector<column_kind> kinds;
+    std::vector<std::string> cells;      // rows x columns, row-major; numbers as shortest text
+    std::vector<std::uint8_t> missing;   // 1 where the cell is missing
+    std::uint64_t rows() const noexcept { return columns.empty() ? 0 : cells.size() / columns.size(); }
+};
+
+/// A weight matrix or state buffer with its qualified name.
+template <class T>
+struct named_matrix {
+    std::string name;
+    matrix<T> values;
+};
+
+/// Everything needed to continue training (section RSUM).
+template <class T>
+struct resume_state {
+    std::string update_kind;                 // update_rule::kind()
+    std::vector<std::uint8_t> update_state;  // update_rule::save_state()
+    std::string schedule_kind;               // rate_schedule::kind()
+    std::vector<std::uint8_t> schedule_state;
+    training_progress<T> progress;
+    /// Random engines inside layers (dropout), by qualified layer name.
+    std::vector<std::pair<std::string, random_state>> layer_engines;
+};
+
+/// The contents of a model file.
+template <class T>
+struct model_file {
+    layer_record architecture;
+    std::vector<named_matrix<T>> weights;  // the network's parameters, then its state buffers
+    std::optional<measured_plan> plan;
+    std::optional<training_metadata> metadata;
+    std::vector<feature_reference> references;
+    std::optional<replay_sample> replay;
+    std::optional<resume_state<T>> resume;
+    /// Set when read: the version of the file, and the ids of skipped sections.
+    std::uint16_t format_version = model_format_version;
+    std::vector<std::string> skipped_sections;
+};
+
+/// One section as found in a file.
+struct model_section_info {
+    std::string id;
+    bool required = false;
+    std::uint64_t offset = 0;  // of the payload
+    std::uint64_t length = 0;
+    std::uint32_t checksum = 0;
+};
+
+/// What inspect_model_bytes() finds without choosing a scalar type.
+struct model_file_summary {
+    std::uint16_t format_version = 0;
+    std::size_t scalar_bytes = 0;  // 4 = float, 8 = double
+    std::uint64_t file_bytes = 0;
+    std::vector<model_section_info> sections;
+    layer_record architecture;
+    std::uint64_t parameter_values = 0;  // values in WGHT
+    std::optional<measured_plan> plan;
+    std::optional<training_metadata> metadata;
+    std::vector<feature_reference> references;
+    std::uint64_t replay_rows = 0;
+    bool resumable = false;
+};
+
+namespace detail {
+
+inline constexpr std::uint8_t model_magic[8] = {0x89, 'T', 'E', 'N', 'O', 'N', 0x0D, 0x0A};
+inline constexpr std::size_t model_header_bytes = 24;
+inline constexpr std::size_t section_header_bytes = 24;
+inline constexpr std::uint32_t byte_order_mark = 0x01020304u;
+inline constexpr std::uint16_t section_required = 1;
+
+inline std::uint32_t section_id(const char (&id)[5]) noexcept {
+    return static_cast<std::uint32_t>(static_cast<std::uint8_t>(id[0])) |
+           static_cast<std::uint32_t>(static_cast<std::uint8_t>(id[1])) << 8 |
+           static_cast<std::uint32_t>(static_cast<std::uint8_t>(id[2])) << 16 |
+           static_cast<std::uint32_t>(static_cast<std::uint8_t>(id[3])) << 24;
+}
+inline std::string section_name(std::uint32_t id) {
+    std::string s;
+    for (int k = 0; k < 4; ++k) {
+        const auto c = static_cast<char>((id >> (8 * k)) & 0xFFu);
+        if (c >= 0x20 && c < 0x7F) s += c; else s += "\\x" + std::to_string(static_cast<unsigned>(static_cast<std::uint8_t>(c)));
+    }
+    return s;
+}
+
+inline std::uint16_t get_u16(const std::uint8_t* p) noexcept { return static_cast<std::uint16_t>(p[0] | (p[1] << 8)); }
+inline std::uint32_t get_u32(const std::uint8_t* p) noexcept {
+    return static_cast<std::uint32_t>(p[0]) | static_cast<std::uint32_t>(p[1]) << 8 | static_cast<std::uint32_t>(p[2]) << 16 |
+           static_cast<std::uint32_t>(p[3]) << 24;
+}
+inline std::uint64_t get_u64(const std::uint8_t* p) noexcept {
+    return static_cast<std::uint64_t>(get_u32(p)) | static_cast<std::uint64_t>(get_u32(p + 4)) << 32;
+}
+inline void put_u16(std::vector<std::uint8_t>& out, std::uint16_t v) {
+    out.push_back(static_cast<std::uint8_t>(v));
+    out.push_back(static_cast<std::uint8_t>(v >> 8));
+}
+inline void put_u32(std::vector<std::uint8_t>& out, std::uint32_t v) {
+    for (int k = 0; k < 4; ++k) out.push_back(static_cast<std::uint8_t>(v >> (8 * k)));
+}
+inline void put_u64(std::vector<std::uint8_t>& out, std::uint64_t v) {
+    for (int k = 0; k < 8; ++k) out.push_back(static_cast<std::uint8_t>(v >> (8 * k)));
+}
+
+// Scalars of the file's type, bit for bit.
+template <class T>
+void put_scalar(byte_writer& w, T v) {
+    if constexpr (sizeof(T) == 4) {
+        std::uint32_t bits;
+        std::memcpy(&bits, &v, 4);
+        w.u32(bits);
+    } else {
+        w.f64(static_cast<double>(v));
+    }
+}
+template <class T>
+T get_scalar(byte_reader& in) {
+    if constexpr (sizeof(T) == 4) {
+        const std::uint32_t bits = in.u32();
+        float v;
+        std::memcpy(&v, &bits, 4);
+        return v;
+    } else {
+        return static_cast<T>(in.f64());
+    }
+}
+
+template <class T>
+void put_matrix(byte_writer& w, const matrix<T>& m) {
+    w.u64(m.shape()[0]);
+    w.u64(m.shape()[1]);
+    for (std::size_t k = 0; k < m.size(); ++k) put_scalar<T>(w, m.data()[k]);
+}
+template <class T>
+matrix<T> get_matrix(byte_reader& in) {
+    const std::uint64_t rows = in.u64(), cols = in.u64();
+    if (cols != 0 && rows > in.remaining() / sizeof(T) / cols)
+        in.fail("a matrix of " + std::to_string(rows) + "x" + std::to_string(cols) + " values does not fit in the " +
+                std::to_string(in.remaining()) + " bytes left");
+    if (cols == 0 && rows > (std::uint64_t(1) << 32)) in.fail("a matrix declares " + std::to_string(rows) + " empty rows");
+    matrix<T> m({static_cast<std::size_t>(rows), static_cast<std::size_t>(cols)});
+    for (std::size_t k = 0; k < m.size(); ++k) m.data()[k] = get_scalar<T>(in);
+    return m;
+}
+
+inline void put_random_state(byte_writer& w, const random_state& s) {
+    for (auto word : s.words) w.u64(word);
+    w.f64(s.spare_normal);
+    w.u8(s.has_spare_normal ? 1 : 0);
+}
+inline random_state get_random_state(byte_reader& in) {
+    random_state s;
+    for (auto& word : s.words) word = in.u64();
+    s.spare_normal = in.f64();
+    const std::uint8_t flag = in.u8();
+    if (flag > 1) in.fail("a random-engine flag is " + std::to_string(flag) + ", not 0 or 1");
+    s.has_spare_normal = flag == 1;
+    return s;
+}
+
+inline void put_bytes(byte_writer& w, const std::vector<std::uint8_t>& b) {
+    w.u32(static_cast<std::uint32_t>(b.size()));
+    for (auto x : b) w.u8(x);
+}
+inline std::vector<std::uint8_t> get_bytes(byte_reader& in) {
+    const std::size_t n = in.count(1, "bytes");
+    std::vector<std::uint8_t> b(n);
+    for (auto& x : b) x = in.u8();
+    return b;
+}
+
+// Runs a section parser and reports any failure inside it as
+// deploy.model.malformed: the payload passed its checksum, so a bad value
+// inside it means a faulty writer, not a damaged file.
+template <class F>
+auto parse_section(const std::string& where, F&& parse) {
+#if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
+    try {
+        return parse();
+    } catch (const error& e) {
+        if (e.code().rfind("deploy.", 0) == 0) throw;
+        raise(codes::deploy_malformed, where + ": " + e.what());
+    }
+#else
+    (void)where;
+    return parse();
+#endif
+}
+
+// --- section payloads ---------------------------------------------------------------------
+
+template <class T>
+std::vector<std::uint8_t> weights_payload(const std::vector<named_matrix<T>>& weights) {
+    std::vector<std::uint8_t> out;
+    byte_writer w(out);
+    w.u32(static_cast<std::uint32_t>(weights.size()));
+    for (const auto& nm : weights) {
+        w.text(nm.name);
+        put_matrix(w, nm.values);
+    }
+    return out;
+}
+template <class T>
+std::vector<named_matrix<T>> read_weights(byte_reader& in) {
+    std::vector<named_matrix<T>> weights(in.count(20, "weight matrices"));
+    for (auto& nm : weights) {
+        nm.name = in.text();
+        nm.values = get_matrix<T>(in);
+    }
+    return weights;
+}
+
+inline std::vector<std::uint8_t> metadata_payload(const training_metadata& m) {
+    std::vector<std::uint8_t> out;
+    byte_writer w(out);
+    const std::uint32_t fields = 13 + static_cast<std::uint32_t>(m.metrics.size() + m.settings.size());
+    w.u32(fields);
+    const auto number = [&](const char* key, std::uint64_t v) { w.text(key); w.u8(0); w.u64(v); };
+    const auto text = [&](const std::string& key, const std::string& v) { w.text(key); w.u8(2); w.text(v); };
+    text("library_version", m.library_version);
+    number("created_unix_seconds", static_cast<std::uint64_t>(m.created_unix_seconds));
+    number("seed", m.seed);
+    number("epochs_planned", m.epochs_planned);
+    number("epochs_run", m.epochs_run);
+    number("best_epoch", m.best_epoch);
+    number("steps", m.steps);
+    number("training_rows", m.training_rows);
+    number("validation_rows", m.validation_rows);
+    number("dropped_rows", m.dropped_rows);
+    number("data_fingerprint", m.data_fingerprint);
+    text("stop_reason", m.stop_reason);
+    text("loss", m.loss);
+    for (const auto& kv : m.metrics) { w.text("metric." + kv.first); w.u8(1); w.f64(kv.second); }
+    for (const auto& kv : m.settings) text("setting." + kv.first, kv.second);
+    return out;
+}
+inline training_metadata read_metadata(byte_reader& in) {
+    training_metadata m;
+    const std::size_t fields = in.count(6, "metadata fields");
+    for (std::size_t i = 0; i < fields; ++i) {
+        const std::string key = in.text();
+        const std::uint8_t type = in.u8();
+        std::uint64_t n = 0;
+        double d = 0;
+        std::string s;
+        if (type == 0) n = in.u64();
+        else if (type == 1) d = in.f64();
+        else if (type == 2) s = in.text();
+        else in.fail("metadata field '" + key + "' has type " + std::to_string(type) + " (0 integer, 1 real, 2 text)");
+        if (key == "library_version") m.library_version = s;
+        else if (key == "created_unix_seconds") m.created_unix_seconds = static_cast<std::int64_t>(n);
+        else if (key == "seed") m.seed = n;
+        else if (key == "epochs_planned") m.epochs_planned = n;
+        else if (key == "epochs_run") m.epochs_run = n;
+        else if (key == "best_epoch") m.best_epoch = n;
+        else if (key == "steps") m.steps = n;
+        else if (key == "training_rows") m.training_rows = n;
+        else if (key == "validation_rows") m.validation_rows = n;
+        else if (key == "dropped_rows") m.dropped_rows = n;
+        else if (key == "data_fingerprint") m.data_fingerprint = n;
+        else if (key == "stop_reason") m.stop_reason = s;
+        else if (key == "loss") m.loss = s;
+        else if (key.rfind("metric.", 0) == 0 && type == 1) m.metrics.emplace_back(key.substr(7), d);
+        else if (key.rfind("setting.", 0) == 0 && type == 2) m.settings.emplace_back(key.substr(8), s);
+        // Other keys come from newer writers: skipped.
+    }
+    return m;
+}
+
+inline std::vector<std::uint8_t> references_payload(const std::vector<feature_reference>& refs) {
+    std::vector<std::uint8_t> out;
+    byte_writer w(out);
+    w.u32(static_cast<std::uint32_t>(refs.size()));
+    for (const auto& f : refs) {
+        w.text(f.column);
+        w.u8(static_cast<std::uint8_t>(f.kind));
+        w.u64(f.present);
+        w.u64(f.missing);
+        w.f64(f.minimum);
+        w.f64(f.maximum);
+        w.u32(static_cast<std::uint32_t>(f.deciles.size()));
+        for (double q : f.deciles) w.f64(q);
+        w.u32(static_cast<std::uint32_t>(f.histogram.size()));
+        for (auto c : f.histogram) w.u64(c);
+        w.u32(static_cast<std::uint32_t>(f.categories.size()));
+        for (const auto& kv : f.categories) { w.text(kv.first); w.u64(kv.second); }
+    }
+    return out;
+}
+inline std::vector<feature_reference> read_references(byte_reader& in) {
+    std::vector<feature_reference> refs(in.count(49, "reference summaries"));
+    for (auto& f : refs) {
+        f.column = in.text();
+        const std::uint8_t kind = in.u8();
+        if (kind > 2) in.fail("column kind " + std::to_string(kind) + " is not known");
+        f.kind = static_cast<column_kind>(kind);
+        f.present = in.u64();
+        f.missing = in.u64();
+        f.minimum = in.f64();
+        f.maximum = in.f64();
+        f.deciles.resize(in.count(8, "deciles"));
+        for (auto& q : f.deciles) q = in.f64();
+        f.histogram.resize(in.count(8, "histogram bins"));
+        for (auto& c : f.histogram) c = in.u64();
+        f.categories.resize(in.count(12, "categories"));
+        for (auto& kv : f.categories) {
+            kv.first = in.text();
+            kv.second = in.u64();
+        }
+    }
+    return refs;
+}
+
+inline std::vector<std::uint8_t> replay_payload(const replay_sample& r) {
+    std::vector<std::uint8_t> out;
+    byte_writer w(out);
+    w.u32(static_cast<std::uint32_t>(r.columns.size()));
+    for (std::size_t k = 0; k < r.columns.size(); ++k) {
+        w.text(r.columns[k]);
+        w.u8(static_cast<std::uint8_t>(r.kinds[k]));
+    }
+    w.u64(r.rows());
+    for (std::size_t i = 0; i < r.cells.size(); ++i) {
+        w.u8(r.missing[i]);
+        if (!r.missing[i]) w.text(r.cells[i]);
+    }
+    return out;
+}
+inline replay_sample read_replay(byte_reader& in) {
+    replay_sample r;
+    const std::size_t columns = in.count(5, "replay columns");
+    for (std::size_t k = 0; k < columns; ++k) {
+        r.columns.push_back(in.text());
+        const std::uint8_t kind = in.u8();
+        if (kind > 2) in.fail("column kind " + std::to_string(kind) + " is not known");
+        r.kinds.push_back(static_cast<column_kind>(kind));
+    }
+    const std::uint64_t rows = in.u64();
+    if (columns == 0 ? rows != 0 : rows > in.remaining() / columns)
+        in.fail(std::to_string(rows) + " replay rows of " + std::to_string(columns) + " cells cannot fit in the " +
+                std::to_string(in.remaining()) + " bytes left");
+    const auto cells = static_cast<std::size_t>(rows) * columns;
+    r.cells.resize(cells);
+    r.missing.resize(cells);
+    for (std::size_t i = 0; i < cells; ++i) {
+        r.missing[i] = in.u8();
+        if (r.missing[i] > 1) in.fail("a replay cell's missing flag is " + std::to_string(r.missing[i]));
+        if (!r.missing[i]) r.cells[i] = in.text();
+    }
+    return r;
+}
+
+template <class T>
+std::vector<std::uint8_t> resume_payload(const resume_state<T>& s) {
+    std::vector<std::uint8_t> out;
+    byte_writer w(out);
+    w.text(s.update_kind);
+    put_bytes(w, s.update_state);
+    w.text(s.schedule_kind);
+    put_bytes(w, s.schedule_state);
+    const training_progress<T>& p = s.progress;
+    w.u64(p.epochs_done);
+    w.u64(p.steps);
+    put_random_state(w, p.shuffle_engine);
+    w.u64(p.order.size());
+    for (auto i : p.order) w.u64(i);
+    w.u32(static_cast<std::uint32_t>(p.history.size()));
+    for (const auto& e : p.history) {
+        w.u64(e.epoch);
+        w.f64(e.train_loss);
+        w.f64(e.validation_loss);
+        w.f64(e.validation_metric);
+        w.f64(e.learning_rate);
+        w.f64(e.seconds);
+        w.u64(e.retries);
+    }
+    w.u64(p.best_epoch);
+    w.f64(p.best_validation_loss);
+    w.u64(p.epochs_since_best);
+    w.f64(p.rate_factor);
+    w.u32(static_cast<std::uint32_t>(p.best.values.size()));
+    for (const auto& m : p.best.values) put_matrix(w, m);
+    w.u32(static_cast<std::uint32_t>(s.layer_engines.size()));
+    for (const auto& e : s.layer_engines) {
+        w.text(e.first);
+        put_random_state(w, e.second);
+    }
+    return out;
+}
+template <class T>
+resume_state<T> read_resume(byte_reader& in) {
+    resume_state<T> s;
+    s.update_kind = in.text();
+    s.update_state = get_bytes(in);
+    s.schedule_kind = in.text();
+    s.schedule_state = get_bytes(in);
+    training_progress<T>& p = s.progress;
+    p.epochs_done = static_cast<std::size_t>(in.u64());
+    p.steps = in.u64();
+    p.shuffle_engine = get_random_state(in);
+    const std::uint64_t order = in.u64();
+    if (order > in.remaining() / 8) in.fail(std::to_string(order) + " row indices cannot fit in the bytes left");
+    p.order.resize(static_cast<std::size_t>(order));
+    for (auto& i : p.order) i = static_cast<std::size_t>(in.u64());
+    p.history.resize(in.count(56, "history epochs"));
+    for (auto& e : p.history) {
+        e.epoch = static_cast<std::size_t>(in.u64());
+        e.train_loss = in.f64();
+        e.validation_loss = in.f64();
+        e.validation_metric = in.f64();
+        e.learning_rate = in.f64();
+        e.seconds = in.f64();
+        e.retries = static_cast<std::size_t>(in.u64());
+    }
+    p.best_epoch = static_cast<std::size_t>(in.u64());
+    p.best_validation_loss = in.f64();
+    p.epochs_since_best = static_cast<std::size_t>(in.u64());
+    p.rate_factor = in.f64();
+    p.best.values.resize(in.count(16, "best-epoch matrices"));
+    for (auto& m : p.best.values) m = get_matrix<T>(in);
+    s.layer_engines.resize(in.count(45, "layer engines"));
+    for (auto& e : s.layer_engines) {
+        e.first = in.text();
+        e.second = get_random_state(in);
+    }
+    return s;
+}
+
+// --- the container ------------------------------------------------------------------------
+
+inline void append_section(std::vector<std::uint8_t>& file, const char (&id)[5], bool required,
+                           const std::vector<std::uint8_t>& payload) {
+    const std::size_t start = file.size();
+    put_u32(file, section_id(id));
+    put_u16(file, required ? section_required : 0);
+    put_u16(file, 0);
+    put_u64(file, payload.size());
+    put_u32(file, crc32(payload.data(), payload.size()));
+    put_u32(file, crc32(file.data() + start, 20));
+    file.insert(file.end(), payload.begin(), payload.end());
+}
+
+struct container {
+    std::uint16_t version = 0;
+    std::size_t scalar_bytes = 0;
+    std::vector<model_section_info> sections;
+};
+
+// Checks the header and every section's framing and checksums.
+inline container read_container(const std::uint8_t* data, std::size_t size, const model_limits& limits, const std::string& source) {
+    container c;
+    const std::size_t magic_bytes = size < 8 ? size : 8;
+    if (std::memcmp(data, model_magic, magic_bytes) != 0)
+        raise(codes::deploy_bad_magic, source + ": not a tenon model file (the first bytes are not the tenon model magic)");
+    if (size > limits.max_file_bytes)
+        raise(codes::deploy_oversize, source + ": " + std::to_string(size) + " bytes, more than the limit of " +
+                                          std::to_string(limits.max_file_bytes));
+    if (size < model_header_bytes)
+        raise(codes::deploy_truncated, source + ": the file has " + std::to_string(size) + " bytes, fewer than the " +
+                                           std::to_string(model_header_bytes) + "-byte header");
+    if (crc32(data, 20) != get_u32(data + 20))
+        raise(codes::deploy_checksum, source + ": the header checksum does not match (the file is damaged)");
+    c.version = get_u16(data + 8);
+    if (c.version > model_format_version)
+        raise(codes::deploy_newer_version, source + ": model format version " + std::to_string(c.version) +
+                                               " is newer than this build of tenon (" + version_string() + ") reads (up to version " +
+                                               std::to_string(model_format_version) + "); load it with a newer tenon");
+    if (c.version == 0) raise(codes::deploy_malformed, source + ": model format version 0 does not exist");
+    if (get_u32(data + 12) != byte_order_mark)
+        raise(codes::deploy_byte_order, source + ": the byte-order mark reads 0x" + std::to_string(get_u32(data + 12)) +
+                                            " instead of 0x01020304 little-endian");
+    c.scalar_bytes = data[16];
+    if (c.scalar_bytes != 4 && c.scalar_bytes != 8)
+        raise(codes::deploy_malformed, source + ": scalar size " + std::to_string(c.scalar_bytes) + " is neither 4 (float) nor 8 (double)");
+    if (get_u16(data + 10) != 0 || data[17] != 0) raise(codes::deploy_malformed, source + ": reserved header bytes are not zero");
+    const std::uint16_t count = get_u16(data + 18);
+    if (count > limits.max_sections)
+        raise(codes::deploy_oversize, source + ": " + std::to_string(count) + " sections, more than the limit of " +
+                                          std::to_string(limits.max_sections));
+    std::size_t at = model_header_bytes;
+    for (std::uint16_t k = 0; k < count; ++k) {
+        if (size - at < section_header_bytes)
+            raise(codes::deploy_truncated, source + ": the file ends at byte " + std::to_string(size) + " inside the header of section " +
+                                               std::to_string(k + 1) + " of " + std::to_string(count));
+        const std::uint8_t* h = data + at;
+        if (crc32(h, 20) != get_u32(h + 20))
+            raise(codes::deploy_checksum, source + ": the header of section " + std::to_string(k + 1) + " at byte " +
+                                              std::to_string(at) + " fails its checksum (the file is damaged)");
+        model_section_info s;
+        s.id = section_name(get_u32(h));
+        const std::uint16_t flags = get_u16(h + 4);
+        if ((flags & ~section_required) != 0 || get_u16(h + 6) != 0)
+            raise(codes::deploy_malformed, source + ": section '" + s.id + "' has unknown flags " + std::to_string(flags));
+        s.required = (flags & section_required) != 0;
+        s.length = get_u64(h + 8);
+        s.checksum = get_u32(h + 16);
+        at += section_header_bytes;
+        if (s.length > limits.max_section_bytes)
+            raise(codes::deploy_oversize, source + ": section '" + s.id + "' declares " + std::to_string(s.length) +
+                                              " bytes, more than the limit of " + std::to_string(limits.max_section_bytes));
+        if (s.length > size - at)
+            raise(codes::deploy_truncated, source + ": section '" + s.id + "' declares " + std::to_string(s.length) +
+                                               " bytes but the file ends " + std::to_string(size - at) + " bytes after its start");
+        if (crc32(data + at, static_cast<std::size_t>(s.length)) != s.checksum)
+            raise(codes::deploy_checksum, source + ": section '" + s.id + "' fails its checksum (the file is damaged)");
+        for (const auto& other : c.sections)
+            if (other.id == s.id) raise(codes::deploy_malformed, source + ": section '" + s.id + "' appears twice");
+        s.offset = at;
+        at += static_cast<std::size_t>(s.length);
+        c.sections.push_back(s);
+    }
+    if (at != size)
+        raise(codes::deploy_malformed, source + ": " + std::to_string(size - at) + " bytes follow the last of the " +
+                                           std::to_string(count) + " sections");
+    for (const auto& s : c.sections) {
+        const bool known = s.id == "ARCH" || s.id == "WGHT" || s.id == "PLAN" || s.id == "META" || s.id == "REFS" ||
+                           s.id == "RPLY" || s.id == "RSUM";
+        if (!known && s.required)
+            raise(codes::deploy_unknown_section, source + ": section '" + s.id +
+                                                     "' is marked required but this build of tenon does not know it");
+    }
+    for (const char* needed : {"ARCH", "WGHT"}) {
+        bool found = false;
+        for (const auto& s : c.sections) found = found || s.id == needed;
+        if (!found) raise(codes::deploy_missing_section, source + ": the file has no '" + needed + "' section");
+    }
+    return c;
+}
+
+inline const model_section_info* find_section(const container& c, const char* id) {
+    for (const auto& s : c.sections)
+        if (s.id == id) return &s;
+    return nullptr;
+}
+
+// Parses one section's payload with a byte reader that must end exactly.
+template <class F>
+auto parse_payload(const std::uint8_t* data, const model_section_info& s, const std::string& source, F&& parse) {
+    const std::string where = source + ", section '" + s.id + "'";
+    return parse_section(where, [&] {
+        byte_reader in(data + s.offset, static_cast<std::size_t>(s.length), where);
+        auto value = parse(in);
+        if (!in.at_end()) in.fail(std::to_string(in.remaining()) + " bytes follow the section's contents");
+        return value;
+    });
+}
+
+inline layer_record parse_architecture(const std::uint8_t* data, const model_section_info& s, const std::string& source) {
+    return parse_section(source + ", section 'ARCH'", [&] {
+        const std::vector<std::uint8_t> bytes(data + s.offset, data + s.offset + s.length);
+        return record_from_bytes(bytes);
+    });
+}
+inline measured_plan parse_plan(const std::uint8_t* data, const model_section_info& s, const std::string& source) {
+    return parse_section(source + ", section 'PLAN'",
+                         [&] { return measured_plan::from_bytes(data + s.offset, static_cast<std::size_t>(s.length)); });
+}
+
+template <class T>
+void collect_layer_engines(layer<T>& l, std::vector<std::pair<std::string, random_engine*>>& out) {
+    if (auto* d = dynamic_cast<dropout<T>*>(&l)) out.emplace_back(d->qualified_name(), &d->engine());
+    if (auto* r = dynamic_cast<residual<T>*>(&l))
+        for (std::size_t i = 0; i < r->layer_count(); ++i) collect_layer_engines(r->layer_at(i), out);
+}
+template <class T>
+std::vector<std::pair<std::string, random_engine*>> layer_engines(network<T>& net) {
+    std::vector<std::pair<std::string, random_engine*>> out;
+    for (std::size_t i = 0; i < net.layer_count(); ++i) collect_layer_engines(net.layer_at(i), out);
+    return out;
+}
+
+}  // namespace detail
+
+/// The file's bytes: header, then ARCH, WGHT and the optional sections present.
+template <class T>
+std::vector<std::uint8_t> model_file_to_bytes(const model_file<T>& m) {
+    TENON_REQUIRE_SCALAR(T);
+    std::vector<std::uint8_t> out(detail::model_magic, detail::model_magic + 8);
+    detail::put_u16(out, model_format_version);
+    detail::put_u16(out, 0);
+    detail::put_u32(out, detail::byte_order_mark);
+    out.push_back(static_cast<std::uint8_t>(sizeof(T)));
+    out.push_back(0);
+    const std::uint16_t count = static_cast<std::uint16_t>(2 + (m.plan ? 1 : 0) + (m.metadata ? 1 : 0) +
+                                                           (m.references.empty() ? 0 : 1) + (m.replay ? 1 : 0) + (m.resume ? 1 : 0));
+    detail::put_u16(out, count);
+    detail::put_u32(out, crc32(out.data(), 20));
+    detail::append_section(out, "ARCH", true, to_bytes(m.architecture));
+    detail::append_section(out, "WGHT", true, detail::weights_payload(m.weights));
+    if (m.plan) detail::append_section(out, "PLAN", true, m.plan->to_bytes());
+    if (m.metadata) detail::append_section(out, "META", false, detail::metadata_payload(*m.metadata));
+    if (!m.references.empty()) detail::append_section(out, "REFS", false, detail::references_payload(m.references));
+    if (m.replay) detail::append_section(out, "RPLY", false, detail::replay_payload(*m.replay));
+    if (m.resume) detail::append_section(out, "RSUM", false, detail::resume_payload(*m.resume));
+    return out;
+}
+
+/// Reads a model file from bytes (see the top of this file for the checks).
+/// `source` names the bytes in error messages.
+template <class T>
+model_file<T> model_file_from_bytes(const std::uint8_t* data, std::size_t size, const model_limits& limits = {},
+                                    const std::string& source = "model file") {
+    TENON_REQUIRE_SCALAR(T);
+    const detail::container c = detail::read_container(data, size, limits, source);
+    if (c.scalar_bytes != sizeof(T))
+        raise(codes::deploy_scalar_type, source + ": the weights are stored as " + (c.scalar_bytes == 4 ? "float" : "double") +
+                                             ", but the model was loaded as " + (sizeof(T) == 4 ? "float" : "double") +
+                                             " (load it with the stored type, e.g. load_model_file<" +
+                                             (c.scalar_bytes == 4 ? "float" : "double") + ">)");
+    model_file<T> m;
+    m.format_version = c.version;
+    for (const auto& s : c.sections) {
+        if (s.id == "ARCH") m.architecture = detail::parse_architecture(data, s, source);
+        else if (s.id == "WGHT") m.weights = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_weights<T>(in); });
+        else if (s.id == "PLAN") m.plan.emplace(detail::parse_plan(data, s, source));
+        else if (s.id == "META") m.metadata = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_metadata(in); });
+        else if (s.id == "REFS") m.references = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_references(in); });
+        else if (s.id == "RPLY") m.replay = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_replay(in); });
+        else if (s.id == "RSUM") m.resume = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_resume<T>(in); });
+        else m.skipped_sections.push_back(s.id);
+    }
+    return m;
+}
+template <class T>
+model_file<T> model_file_from_bytes(const std::vector<std::uint8_t>& bytes, const model_limits& limits = {},
+                                    const std::string& source = "model file") {
+    return model_file_from_bytes<T>(bytes.data(), bytes.size(), limits, source);
+}
+
+/// Checks a model file and summarizes it without choosing a scalar type
+/// (e.g. to decide between load_model_file<float> and <double>).
+inline model_file_summary inspect_model_bytes(const std::vector<std::uint8_t>& bytes, const model_limits& limits = {},
+                                              const std::string& source = "model file") {
+    const detail::container c = detail::read_container(bytes.data(), bytes.size(), limits, source);
+    model_file_summary s;
+    s.format_version = c.version;
+    s.scalar_bytes = c.scalar_bytes;
+    s.file_bytes = bytes.size();
+    s.sections = c.sections;
+    for (const auto& sec : c.sections) {
+        if (sec.id == "ARCH") s.architecture = detail::parse_architecture(bytes.data(), sec, source);
+        else if (sec.id == "PLAN") s.plan.emplace(detail::parse_plan(bytes.data(), sec, source));
+        else if (sec.id == "META") s.metadata = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) { return detail::read_metadata(in); });
+        else if (sec.id == "REFS") s.references = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) { return detail::read_references(in); });
+        else if (sec.id == "RPLY") s.replay_rows = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) { return detail::read_replay(in); }).rows();
+        else if (sec.id == "RSUM") s.resumable = true;
+        else if (sec.id == "WGHT") {
+            s.parameter_values = detail::parse_payload(bytes.data(), sec, source, [&](byte_reader& in) {
+                std::uint64_t values = 0;
+                const std::size_t n = in.count(20, "weight matrices");
+                for (std::size_t i = 0; i < n; ++i) {
+                    in.text();
+                    const std::uint64_t rows = in.u64(), cols = in.u64();
+                    if (cols != 0 && rows > in.remaining() / c.scalar_bytes / cols) in.fail("a weight matrix does not fit in the bytes left");
+                    const std::uint64_t skip = rows * cols * c.scalar_bytes;
+                    for (std::uint64_t k = 0; k < skip; ++k) in.u8();
+                    values += rows * cols;
+                }
+                return values;
+            });
+        }
+    }
+    return s;
+}
+inline model_file_summary inspect_model_file(const std::string& path, const model_limits& limits = {}) {
+    return inspect_model_bytes(read_file_bounded(path, limits.max_file_bytes), limits, path);
+}
+
+/// Saves atomically and durably (write_file_atomically).
+template <class T>
+void save_model_file(const std::string& path, const model_file<T>& m, file_system& fs) {
+    write_file_atomically(path, model_file_to_bytes(m), fs);
+}
+template <class T>
+void save_model_file(const std::string& path, const model_file<T>& m) {
+    native_file_system fs;
+    save_model_file(path, m, fs);
+}
+
+template <class T>
+model_file<T> load_model_file(const std::string& path, const model_limits& limits = {}) {
+    const std::vector<std::uint8_t> bytes = read_file_bounded(path, limits.max_file_bytes);
+    return model_file_from_bytes<T>(bytes.data(), bytes.size(), limits, path);
+}
+
+/// The architecture and weights of a network, as a model file holds them.
+template <class T>
+model_file<T> capture_network(network<T>& net) {
+    model_file<T> m;
+    m.architecture = net.describe();
+    for (auto* p : net.parameters()) m.weights.push_back({p->name(), p->value()});
+    for (auto* p : net.state_buffers()) m.weights.push_back({p->name(), p->value()});
+    return m;
+}
+
+/// Rebuilds the stored network with its weights; raises
+/// deploy.model.shape_mismatch when the weights do not fit the architecture
+/// and deploy.model.malformed when the architecture cannot be built.
+template <class T>
+network<T> rebuild_network(const model_file<T>& m) {
+    network<T> net = detail::parse_section("model file architecture", [&] { return make_network<T>(m.architecture); });
+    const auto& params = net.parameters();
+    const auto& state = net.state_buffers();
+    const std::size_t n = params.size() + state.size();
+    if (m.weights.size() != n)
+        raise(codes::deploy_shape_mismatch, "model file: " + std::to_string(m.weights.size()) + " weight matrices stored, the architecture has " +
+                                                std::to_string(n));
+    for (std::size_t i = 0; i < n; ++i) {
+        parameter<T>* p = i < params.size() ? params[i] : state[i - params.size()];
+        const named_matrix<T>& w = m.weights[i];
+        if (w.name != p->name() || shape_of(w.values) != p->shape())
+            raise(codes::deploy_shape_mismatch, "model file: weight " + std::to_string(i) + " is '" + w.name + "' " +
+                                                    to_string(shape_of(w.values)) + ", the architecture expects '" + p->name() + "' " +
+                                                    to_string(p->shape()));
+    }
+    for (std::size_t i = 0; i < n; ++i) (i < params.size() ? params[i] : state[i - params.size()])->assign(m.weights[i].values);
+    net.set_mode(run_mode::inference);
+    return net;
+}
+
+/// FNV-1a 64 over the column names and the given rows' cells in row order
+/// (a missing cell, a number's bits or a category's bytes, each with a kind
+/// byte), so two tables with equal training cells get equal fingerprints.
+inline std::uint64_t training_fingerprint(const table& t, const std::vector<std::size_t>& rows) {
+    fnv1a_64 h;
+    for (std::size_t k = 0; k < t.column_count(); ++k) {
+        h.add_u64(t[k].name().size());
+        h.add(t[k].name().data(), t[k].name().size());
+    }
+    for (auto r : rows) {
+        if (r >= t.row_count())
+            raise(codes::prep_row_out_of_range, "training_fingerprint: row " + std::to_string(r) + " is not below " + std::to_string(t.row_count()));
+        for (std::size_t k = 0; k < t.column_count(); ++k) {
+            const column& c = t[k];
+            if (c.is_missing(r)) {
+                h.add_byte(0);
+            } else if (c.kind() == column_kind::categorical) {
+                h.add_byte(2);
+                h.add_u64(c.category(r).size());
+                h.add(c.category(r).data(), c.category(r).size());
+            } else {
+                h.add_byte(1);
+                std::uint64_t bits;
+                const double v = c.number(r);
+                std::memcpy(&bits, &v, 8);
+                h.add_u64(bits);
+            }
+        }
+    }
+    return h.value();
+}
+
+/// Up to `max_rows` of `rows` of `t` chosen uniformly by reservoir sampling
+/// (Vitter 1985, "Random sampling with a reservoir", ACM TOMS 11(1),
+/// Algorithm R), kept in table order, as cell texts.
+inline replay_sample sample_replay_rows(const table& t, const std::vector<std::size_t>& rows, std::size_t max_rows, std::uint64_t seed) {
+    std::vector<std::size_t> chosen;
+    random_engine engine(seed, /*stream=*/0x8E91A7u);
+    for (std::size_t i = 0; i < rows.size(); ++i) {
+        if (chosen.size() < max_rows) {
+            chosen.push_back(rows[i]);
+        } else {
+            const std::uint64_t j = engine.below(i + 1);
+            if (j < max_rows) chosen[static_cast<std::size_t>(j)] = rows[i];
+        }
+    }
+    std::sort(chosen.begin(), chosen.end());
+    replay_sample s;
+    for (std::size_t k = 0; k < t.column_count(); ++k) {
+        s.columns.push_back(t[k].name());
+        s.kinds.push_back(t[k].kind());
+    }
+    for (auto r : chosen)
+        for (std::size_t k = 0; k < t.column_count(); ++k) {
+            const column& c = t[k];
+            const bool missing = c.is_missing(r);
+            s.missing.push_back(missing ? 1 : 0);
+            s.cells.push_back(missing ? std::string() : c.kind() == column_kind::categorical ? c.category(r) : number_to_text(c.number(r)));
+        }
+    return s;
+}
+
+/// Choices for make_model_file.
+struct model_file_options {
+    /// Raw training rows kept for later retraining (0: no RPLY section).
+    std::size_t replay_rows = 256;
+    std::size_t histogram_bins = 10;
+    /// Creation time in seconds since 1970; by default the system clock.
+    std::optional<std::int64_t> created_unix_seconds;
+};
+
+/// Everything a fitted model's file holds: architecture, weights, plan,
+/// metadata, reference summaries of `train_rows` of `t` (the rows fit_model
+/// was given) and a replay sample.
+template <class T>
+model_file<T> make_model_file(fitted_model<T>& model, const table& t, const std::vector<std::size_t>& train_rows,
+                              const model_settings& settings, const model_file_options& options = {}) {
+    model_file<T> m = capture_network(model.net);
+    m.plan.emplace(model.plan);
+    training_metadata meta;
+    meta.library_version = version_string();
+    meta.created_unix_seconds = options.created_unix_seconds
+                                    ? *options.created_unix_seconds
+                                    : static_cast<std::int64_t>(std::chrono::duration_cast<std::chrono::seconds>(
+                                                                    std::chrono::system_clock::now().time_since_epoch())
+                                                                    .count());
+    meta.seed = settings.seed;
+    meta.epochs_planned = settings.epochs;
+    meta.epochs_run = model.outcome.history.size();
+    meta.best_epoch = model.outcome.best_epoch;
+    meta.steps = model.outcome.steps;
+    meta.training_rows = model.train_rows;
+    meta.validation_rows = model.validation_rows;
+    meta.dropped_rows = model.dropped_rows;
+    meta.data_fingerprint = training_fingerprint(t, train_rows);
+    meta.stop_reason = stop_reason_name(model.outcome.reason);
+    meta.loss = loss_kind_name(model.loss);
+    meta.metrics.emplace_back("best_validation_loss", model.outcome.best_validation_loss);
+    if (!model.outcome.history.empty()) {
+        const epoch_summary& last = model.outcome.history.back();
+        meta.metrics.emplace_back("final_train_loss", last.train_loss);
+        meta.metrics.emplace_back("final_validation_loss", last.validation_loss);
+        meta.metrics.emplace_back("final_validation_metric", last.validation_metric);
+    }
+    meta.metrics.emplace_back("training_seconds", model.outcome.seconds);
+    std::string hidden;
+    for (std::size_t i = 0; i < settings.hidden.size(); ++i) hidden += (i ? "," : "") + std::to_string(settings.hidden[i]);
+    meta.settings.emplace_back("hidden", hidden);
+    meta.settings.emplace_back("hidden_activation", activation_name(settings.hidden_activation));
+    meta.settings.emplace_back("update", update_kind_name(settings.update));
+    meta.settings.emplace_back("learning_rate", number_to_text(settings.learning_rate));
+    meta.settings.emplace_back("batch_size", std::to_string(settings.batch_size));
+    meta.settings.emplace_back("patience", std::to_string(settings.patience));
+    m.metadata = std::move(meta);
+    m.references = measure_references(t, train_rows, model.plan, options.histogram_bins);
+    if (options.replay_rows > 0) m.replay = sample_replay_rows(t, train_rows, options.replay_rows, settings.seed);
+    return m;
+}
+
+/// The state a checkpoint needs besides the weights: the update rule's and
+/// schedule's state, the trainer's progress (trainer::progress(), e.g. from
+/// on_epoch) and the engines of dropout layers.
+template <class T>
+resume_state<T> capture_resume_state(network<T>& net, const update_rule<T>& rule, const rate_schedule& schedule,
+                                     const training_progress<T>& progress) {
+    resume_state<T> s;
+    s.update_kind = rule.kind();
+    s.update_state = rule.save_state();
+    s.schedule_kind = schedule.kind();
+    s.schedule_state = schedule.save_state();
+    s.progress = progress;
+    for (const auto& e : detail::layer_engines(net)) s.layer_engines.emplace_back(e.first, e.second->state());
+    return s;
+}
+
+/// Puts a saved state back into a network (rebuilt with rebuild_network), an
+/// update rule and a schedule of the same kinds; then pass &s.progress as
+/// training_options::resume. Raises deploy.resume.mismatch for other kinds
+/// or layers, leaving nothing half-restored where it can check first.
+template <class T>
+void restore_resume_state(const resume_state<T>& s, network<T>& net, update_rule<T>& rule, rate_schedule& schedule) {
+    if (s.update_kind != rule.kind())
+        raise(codes::deploy_resume_mismatch, "resume: the state was saved by a '" + s.update_kind + "' update rule, not '" + rule.kind() + "'");
+    if (s.schedule_kind != schedule.kind())
+        raise(codes::deploy_resume_mismatch, "resume: the state was saved with a '" + s.schedule_kind + "' schedule, not '" +
+                                                 schedule.kind() + "'");
+    const auto engines = detail::layer_engines(net);
+    if (engines.size() != s.layer_engines.size())
+        raise(codes::deploy_resume_mismatch, "resume: the state holds " + std::to_string(s.layer_engines.size()) +
+                                                 " layer engines, the network has " + std::to_string(engines.size()));
+    for (std::size_t i = 0; i < engines.size(); ++i)
+        if (engines[i].first != s.layer_engines[i].first)
+            raise(codes::deploy_resume_mismatch, "resume: layer engine " + std::to_string(i) + " is '" + s.layer_engines[i].first +
+                                                     "', the network's is '" + engines[i].first + "'");
+    const std::size_t values = net.parameters().size() + net.state_buffers().size();
+    if (!s.progress.best.values.empty() && s.progress.best.values.size() != values)
+        raise(codes::deploy_resume_mismatch, "resume: the best-epoch weights hold " + std::to_string(s.progress.best.values.size()) +
+                                                 " matrices, the network has " + std::to_string(values));
+    rule.load_state(s.update_state);
+    schedule.load_state(s.schedule_state);
+    for (std::size_t i = 0; i < engines.size(); ++i) engines[i].second->set_state(s.layer_engines[i].second);
+}
+
+TENON_NAMESPACE_END

@@ -1,0 +1,73 @@
+// Shared data for the deploy/ tests: an invented cooling-pump log.
+#pragma once
+
+#include <cmath>
+#include <cstdint>
+#include <cstring>
+#include <sstream>
+#include <string>
+#include <vector>
+
+#include <tenon/deploy/model_file.hpp>
+#include <tenon/prep/csv.hpp>
+#include <tenon/train/workflow.hpp>
+
+namespace deploy_test {
+
+// flow [m3/h], head [m], fluid type, motor power [kW] (flow * head *
+// density / (367 efficiency) + noise) and a condition class derived from the
+// efficiency and the head (invented rule).
+inline tenon::table pump_table(std::size_t n, std::uint64_t seed) {
+    tenon::random_engine rng(seed);
+    std::ostringstream csv;
+    csv << "flow,head,fluid,power,condition\n";
+    const char* fluids[] = {"water", "glycol", "brine"};
+    const double density[] = {1.0, 1.07, 1.2};
+    for (std::size_t i = 0; i < n; ++i) {
+        const double flow = rng.uniform(20.0, 120.0), head = rng.uniform(5.0, 40.0);
+        const std::size_t f = rng.below(3);
+        const double efficiency = 0.55 + 0.25 * std::exp(-std::pow((flow - 70.0) / 40.0, 2));
+        const double power = flow * head * density[f] / (367.0 * efficiency) + rng.normal(0.0, 0.05);
+        const char* condition = efficiency < 0.62 ? "worn" : (head > 30.0 ? "cavitating" : "ok");
+        csv << flow << "," << head << "," << fluids[f] << "," << power << "," << condition << "\n";
+    }
+    std::istringstream in(csv.str());
+    return tenon::read_csv(in, {}, "pump.csv");
+}
+
+inline std::vector<std::size_t> range(std::size_t begin, std::size_t end) {
+    std::vector<std::size_t> r;
+    for (std::size_t i = begin; i < end; ++i) r.push_back(i);
+    return r;
+}
+
+inline tenon::plan condition_plan() {
+    tenon::plan p;
+    p.set_target("condition", tenon::target_kind::classification);
+    p.set_role("power", tenon::column_role::ignored);
+    return p;
+}
+
+inline tenon::plan power_plan() {
+    tenon::plan p;
+    p.set_target("power", tenon::target_kind::regression);
+    p.set_role("condition", tenon::column_role::ignored);
+    return p;
+}
+
+inline tenon::model_settings small_settings(std::uint64_t seed = 7) {
+    tenon::model_settings s;
+    s.hidden = {8, 8};
+    s.epochs = 4;
+    s.batch_size = 16;
+    s.learning_rate = 0.01;
+    s.seed = seed;
+    return s;
+}
+
+template <class T>
+bool same_bits(T a, T b) {
+    return std::memcmp(&a, &b, sizeof(T)) == 0;
+}
+
+}  // namespace deploy_test

@@ -1,0 +1,394 @@
+// Tests of the model file: checksums, round trips, damaged and hostile
+// files, versions, unknown sections, atomic saving under injected faults,
+// and the committed version-1 fixture.
+#include <doctest/doctest.h>
+
+#include <cstdio>
+#include <filesystem>
+#include <fstream>
+#include <map>
+#include <set>
+#include <string>
+#include <vector>
+
+#include <tenon/deploy/model_file.hpp>
+#include <tenon/deploy/predictor.hpp>
+
+#include "deploy_test_support.hpp"
+
+namespace {
+
+using namespace deploy_test;
+
+template <class T>
+tenon::model_file<T> small_model_file(bool with_replay = true) {
+    const auto t = pump_table(120, 11);
+    const auto train = range(0, 90), validation = range(90, 120);
+    auto fitted = tenon::fit_model<T>(t, condition_plan(), train, validation, small_settings());
+    tenon::model_file_options o;
+    o.replay_rows = with_replay ? 5 : 0;
+    o.created_unix_seconds = 1700000000;
+    return tenon::make_model_file(fitted, t, train, small_settings(), o);
+}
+
+std::string temp_path(const std::string& name) {
+    return std::string("/tmp/tenon_deploy_test_") + std::to_string(::getpid()) + "_" + name;
+}
+
+// Puts a valid header checksum back after a test edited the header on purpose.
+void reseal_header(std::vector<std::uint8_t>& b) {
+    const std::uint32_t crc = tenon::crc32(b.data(), 20);
+    for (int k = 0; k < 4; ++k) b[20 + static_cast<std::size_t>(k)] = static_cast<std::uint8_t>(crc >> (8 * k));
+}
+
+std::string code_of_loading(const std::vector<std::uint8_t>& bytes, const tenon::model_limits& limits = {}) {
+    try {
+        tenon::model_file_from_bytes<float>(bytes, limits);
+    } catch (const tenon::error& e) {
+        return e.code();
+    }
+    return "loaded";
+}
+
+}  // namespace
+
+TEST_CASE("CRC-32 gives the IEEE 802.3 check value and continues across pieces") {
+    const char* digits = "123456789";
+    CHECK(tenon::crc32(digits, 9) == 0xCBF43926u);  // check value of CRC-32/IEEE (from memory)
+    CHECK(tenon::crc32_update(tenon::crc32(digits, 4), digits + 4, 5) == 0xCBF43926u);
+    CHECK(tenon::crc32(digits, 0) == 0u);
+}
+
+TEST_CASE("FNV-1a 64 gives the published values for the empty string and 'a'") {
+    tenon::fnv1a_64 h;
+    CHECK(h.value() == 0xcbf29ce484222325ull);  // offset basis (from memory)
+    h.add("a", 1);
+    CHECK(h.value() == 0xaf63dc4c8601ec8cull);  // FNV-1a 64 of "a" (from memory)
+}
+
+TEST_CASE("the training fingerprint depends on the training cells only") {
+    const auto t = pump_table(50, 3), same = pump_table(50, 3), other = pump_table(50, 4);
+    CHECK(tenon::training_fingerprint(t, range(0, 40)) == tenon::training_fingerprint(same, range(0, 40)));
+    CHECK(tenon::training_fingerprint(t, range(0, 40)) != tenon::training_fingerprint(t, range(0, 39)));
+    CHECK(tenon::training_fingerprint(t, range(0, 40)) != tenon::training_fingerprint(other, range(0, 40)));
+}
+
+TEST_CASE_TEMPLATE("a model file round-trips every section exactly", T, float, double) {
+    auto m = small_model_file<T>();
+    const auto bytes = tenon::model_file_to_bytes(m);
+    const auto back = tenon::model_file_from_bytes<T>(bytes);
+    CHECK(back.format_version == 1);
+    CHECK(back.architecture == m.architecture);
+    REQUIRE(back.weights.size() == m.weights.size());
+    for (std::size_t i = 0; i < m.weights.size(); ++i) {
+        CHECK(back.weights[i].name == m.weights[i].name);
+        REQUIRE(back.weights[i].values.size() == m.weights[i].values.size());
+        for (std::size_t k = 0; k < m.weights[i].values.size(); ++k)
+            CHECK(same_bits(back.weights[i].values.data()[k], m.weights[i].values.data()[k]));
+    }
+    REQUIRE(back.plan);
+    CHECK(back.plan->to_bytes() == m.plan->to_bytes());
+    REQUIRE(back.metadata);
+    CHECK(back.metadata->created_unix_seconds == 1700000000);
+    CHECK(back.metadata->data_fingerprint == m.metadata->data_fingerprint);
+    CHECK(back.metadata->library_version == tenon::version_string());
+    CHECK(back.metadata->loss == "cross-entropy");
+    CHECK(back.metadata->epochs_run == m.metadata->epochs_run);
+    CHECK(back.metadata->metric("best_validation_loss") == m.metadata->metric("best_validation_loss"));
+    CHECK(back.metadata->settings == m.metadata->settings);
+    CHECK(back.references == m.references);
+    REQUIRE(back.replay);
+    CHECK(back.replay->rows() == 5);
+    CHECK(back.replay->cells == m.replay->cells);
+    CHECK(back.replay->columns == std::vector<std::string>{"flow", "head", "fluid", "power", "condition"});
+    CHECK(tenon::model_file_to_bytes(back) == bytes);  // a second save writes the same bytes
+    // The file header says which scalar type the weights have.
+    CHECK(bytes[16] == sizeof(T));
+    const auto summary = tenon::inspect_model_bytes(bytes);
+    CHECK(summary.scalar_bytes == sizeof(T));
+    CHECK(summary.sections.size() == 6);
+    CHECK(summary.replay_rows == 5);
+}
+
+TEST_CASE("reference summaries hold the training range, deciles, histogram and category counts") {
+    const auto m = small_model_file<float>(false);
+    REQUIRE(m.references.size() == 3);  // flow, head, fluid: the plan's input columns
+    const auto& flow = m.references[0];
+    CHECK(flow.column == "flow");
+    CHECK(flow.present == 90);
+    REQUIRE(flow.deciles.size() == 11);
+    CHECK(flow.deciles.front() == flow.minimum);
+    CHECK(flow.deciles.back() == flow.maximum);
+    std::uint64_t total = 0;
+    for (auto c : flow.histogram) total += c;
+    CHECK(flow.histogram.size() == 10);
+    CHECK(total == 90);
+    const auto& fluid = m.references[2];
+    CHECK(fluid.kind == tenon::column_kind::categorical);
+    std::uint64_t fluids = 0;
+    for (const auto& kv : fluid.categories) fluids += kv.second;
+    CHECK(fluids == 90);
+    CHECK(fluid.categories.front().first == "brine");  // sorted by text
+}
+
+TEST_CASE("every single-byte change of a small model file is refused with a deploy error") {
+    const auto bytes = tenon::model_file_to_bytes(small_model_file<float>());
+    INFO("file bytes: " << bytes.size());
+    std::map<std::string, std::size_t> codes_seen;
+    for (std::size_t i = 0; i < bytes.size(); ++i) {
+        for (std::uint8_t change : {std::uint8_t(0xFF), std::uint8_t(0x01)}) {
+            auto damaged = bytes;
+            damaged[i] = static_cast<std::uint8_t>(damaged[i] ^ change);
+            const std::string code = code_of_loading(damaged);
+            ++codes_seen[code];
+            if (code.rfind("deploy.model.", 0) != 0) FAIL("byte " << i << " changed by ^" << int(change) << " gave '" << code << "'");
+        }
+    }
+    CHECK(codes_seen.count("loaded") == 0);
+    CHECK(codes_seen["deploy.model.checksum"] > 0);
+    CHECK(codes_seen["deploy.model.magic"] == 16);  // the 8 magic bytes, two changes each
+    MESSAGE("single-byte changes tried: " << 2 * bytes.size() << " of a " << bytes.size() << "-byte file");
+}
+
+TEST_CASE("every truncation of a small model file is refused") {
+    const auto bytes = tenon::model_file_to_bytes(small_model_file<double>(false));
+    std::size_t truncated = 0;
+    for (std::size_t n = 0; n < bytes.size(); ++n) {
+        const std::vector<std::uint8_t> cut(bytes.begin(), bytes.begin() + static_cast<std::ptrdiff_t>(n));
+        std::string code;
+        try {
+            tenon::model_file_from_bytes<double>(cut);
+            code = "loaded";
+        } catch (const tenon::error& e) {
+            code = e.code();
+        }
+        if (code != "deploy.model.truncated") FAIL("a file cut to " << n << " bytes gave '" << code << "'");
+        ++truncated;
+    }
+    CHECK(truncated == bytes.size());
+}
+
+TEST_CASE("the header checks give their own codes: magic, version, byte order, scalar type") {
+    const auto bytes = tenon::model_file_to_bytes(small_model_file<float>(false));
+    const std::string csv = "flow,head\n1,2\n";
+    CHECK(code_of_loading(std::vector<std::uint8_t>(csv.begin(), csv.end())) == "deploy.model.magic");
+    CHECK(code_of_loading({}) == "deploy.model.truncated");
+
+    auto newer = bytes;
+    newer[8] = 2;  // format version 2
+    reseal_header(newer);
+    CHECK(code_of_loading(newer) == "deploy.model.version");
+    CHECK_THROWS_WITH_AS(tenon::model_file_from_bytes<float>(newer), doctest::Contains("newer than this build"), tenon::error);
+
+    auto swapped = bytes;
+    std::swap(swapped[12], swapped[15]);
+    std::swap(swapped[13], swapped[14]);
+    reseal_header(swapped);
+    CHECK(code_of_loading(swapped) == "deploy.model.byte_order");
+
+    auto bad_scalar = bytes;
+    bad_scalar[16] = 2;
+    reseal_header(bad_scalar);
+    CHECK(code_of_loading(bad_scalar) == "deploy.model.malformed");
+
+    CHECK_THROWS_WITH_AS(tenon::model_file_from_bytes<double>(bytes), doctest::Contains("stored as float"), tenon::error);
+    try {
+        tenon::model_file_from_bytes<double>(bytes);
+    } catch (const tenon::error& e) {
+        CHECK(e.code() == "deploy.model.scalar_type");
+    }
+}
+
+TEST_CASE("unknown optional sections are skipped, unknown required ones refused") {
+    auto bytes = tenon::model_file_to_bytes(small_model_file<float>(false));
+    const std::vector<std::uint8_t> payload = {1, 2, 3};
+    auto with_optional = bytes;
+    tenon::detail::append_section(with_optional, "XTRA", false, payload);
+    with_optional[18] = static_cast<std::uint8_t>(with_optional[18] + 1);
+    reseal_header(with_optional);
+    const auto m = tenon::model_file_from_bytes<float>(with_optional);
+    CHECK(m.skipped_sections == std::vector<std::string>{"XTRA"});
+
+    auto with_required = bytes;
+    tenon::detail::append_section(with_required, "XTRA", true, payload);
+    with_required[18] = static_cast<std::uint8_t>(with_required[18] + 1);
+    reseal_header(with_required);
+    CHECK(code_of_loading(with_required) == "deploy.model.unknown_required_section");
+
+    auto duplicate = bytes;
+    tenon::detail::append_section(duplicate, "META", false, payload);
+    duplicate[18] = static_cast<std::uint8_t>(duplicate[18] + 1);
+    reseal_header(duplicate);
+    CHECK(code_of_loading(duplicate) == "deploy.model.malformed");
+
+    auto trailing = bytes;
+    trailing.push_back(0);
+    CHECK(code_of_loading(trailing) == "deploy.model.malformed");
+}
+
+TEST_CASE("lengths and counts are checked against the limits and the bytes before allocating") {
+    const auto bytes = tenon::model_file_to_bytes(small_model_file<float>(false));
+    tenon::model_limits small;
+    small.max_section_bytes = 16;
+    CHECK(code_of_loading(bytes, small) == "deploy.model.oversize");
+    tenon::model_limits tiny_file;
+    tiny_file.max_file_bytes = 100;
+    CHECK(code_of_loading(bytes, tiny_file) == "deploy.model.oversize");
+    tenon::model_limits few_sections;
+    few_sections.max_sections = 1;
+    CHECK(code_of_loading(bytes, few_sections) == "deploy.model.oversize");
+
+    // A hostile file with valid checksums: a weights section declaring 2^32 - 1 matrices.
+    std::vector<std::uint8_t> hostile(tenon::detail::model_magic, tenon::detail::model_magic + 8);
+    const std::uint8_t header_rest[] = {1, 0, 0, 0, 4, 3, 2, 1, 4, 0, 2, 0};
+    hostile.insert(hostile.end(), header_rest, header_rest + 12);
+    hostile.resize(24);
+    reseal_header(hostile);
+    tenon::detail::append_section(hostile, "ARCH", true, tenon::to_bytes(tenon::make_mlp<float>({2, 1}, tenon::activation::relu, {}, 0).describe()));
+    tenon::detail::append_section(hostile, "WGHT", true, {0xFF, 0xFF, 0xFF, 0xFF});
+    CHECK(code_of_loading(hostile) == "deploy.model.malformed");
+
+    // The same container without its weights section.
+    std::vector<std::uint8_t> no_weights(hostile.begin(), hostile.begin() + 24);
+    no_weights[18] = 1;
+    reseal_header(no_weights);
+    tenon::detail::append_section(no_weights, "ARCH", true, tenon::to_bytes(tenon::make_mlp<float>({2, 1}, tenon::activation::relu, {}, 0).describe()));
+    CHECK(code_of_loading(no_weights) == "deploy.model.missing_section");
+}
+
+TEST_CASE("weights that do not fit the architecture are refused when the network is rebuilt") {
+    auto m = small_model_file<float>(false);
+    m.weights[0].values = tenon::matrix<float>({2, 2});
+    const auto back = tenon::model_file_from_bytes<float>(tenon::model_file_to_bytes(m));
+    CHECK_THROWS_WITH_AS(tenon::rebuild_network(back), doctest::Contains("hidden1.weights"), tenon::error);
+    try {
+        tenon::rebuild_network(back);
+    } catch (const tenon::error& e) {
+        CHECK(e.code() == "deploy.model.shape_mismatch");
+    }
+}
+
+TEST_CASE("loading a file that does not exist names it") {
+    CHECK_THROWS_WITH_AS(tenon::load_model_file<float>("/nonexistent/model.tnm"), doctest::Contains("/nonexistent/model.tnm"), tenon::error);
+    try {
+        tenon::load_model_file<float>("/nonexistent/model.tnm");
+    } catch (const tenon::error& e) {
+        CHECK(e.code() == "deploy.file.io");
+    }
+}
+
+namespace {
+
+struct simulated_crash {};
+
+// Passes operations to the host's file system until operation number
+// `fail_at`, which fails (returns false, after writing half the bytes for a
+// write) or, with `crash`, throws as if the process died there (no cleanup).
+class faulty_file_system : public tenon::file_system {
+public:
+    faulty_file_system(int fail_at, bool crash) : fail_at_(fail_at), crash_(crash) {}
+    int operations = 0;
+
+    int create(const std::string& path) override { return step() ? real_.create(path) : -1; }
+    bool write(int h, const std::uint8_t* data, std::size_t size) override {
+        if (step()) return real_.write(h, data, size);
+        real_.write(h, data, size / 2);
+        return false;
+    }
+    bool sync(int h) override { return step() && real_.sync(h); }
+    bool close(int h) override {
+        if (!step()) {
+            real_.close(h);
+            return false;
+        }
+        return real_.close(h);
+    }
+    bool rename(const std::string& a, const std::string& b) override { return step() && real_.rename(a, b); }
+    bool sync_directory(const std::string& d) override { return step() && real_.sync_directory(d); }
+    bool remove(const std::string& p) override { return real_.remove(p); }
+
+private:
+    bool step() {
+        const bool fail = operations++ == fail_at_;
+        if (fail && crash_) throw simulated_crash{};
+        return !fail;
+    }
+    int fail_at_;
+    bool crash_;
+    tenon::native_file_system real_;
+};
+
+}  // namespace
+
+TEST_CASE("a failure or crash at any step of saving leaves a complete, loadable file") {
+    auto old_model = small_model_file<float>(false);
+    auto new_model = old_model;
+    new_model.metadata->seed = 99;  // tells the two files apart
+    const std::string path = temp_path("atomic.tnm");
+    const auto old_bytes = tenon::model_file_to_bytes(old_model);
+    const auto new_bytes = tenon::model_file_to_bytes(new_model);
+    std::size_t scenarios = 0;
+    for (const bool crash : {false, true}) {
+        for (int fail_at = 0; fail_at < 6; ++fail_at) {  // create, write, fsync, close, rename, fsync of the directory
+            tenon::save_model_file(path, old_model);
+            faulty_file_system fs(fail_at, crash);
+            bool raised = false;
+            try {
+                tenon::save_model_file(path, new_model, fs);
+            } catch (const simulated_crash&) {
+                raised = true;
+            } catch (const tenon::error& e) {
+                raised = true;
+                CHECK(e.code() == "deploy.file.io");
+            }
+            CHECK(raised);
+            const auto loaded = tenon::load_model_file<float>(path);
+            const std::uint64_t seed = loaded.metadata->seed;
+            // Before the rename the old file stays; from the rename on, the new one is complete.
+            if (fail_at < 5) CHECK(seed == old_model.metadata->seed);
+            else CHECK(seed == 99);
+            ++scenarios;
+        }
+    }
+    // And the ordinary path replaces the file.
+    tenon::save_model_file(path, new_model);
+    CHECK(tenon::load_model_file<float>(path).metadata->seed == 99);
+    CHECK(old_bytes != new_bytes);
+    std::remove(path.c_str());
+    // Simulated crashes leave their temporary files behind (a real crash
+    // would too); only they remain, and the loader never looks at them.
+    std::size_t strays = 0;
+    for (const auto& entry : std::filesystem::directory_iterator("/tmp")) {
+        const std::string name = entry.path().string();
+        if (name.rfind(path + ".tmp-", 0) == 0) {
+            ++strays;
+            std::filesystem::remove(entry.path());
+        }
+    }
+    CHECK(strays == 4);  // crashes at write, fsync, close and rename
+    CHECK(scenarios == 12);
+}
+
+// The committed version-1 fixture: written once by tenon_deploy_fixture_writer
+// (tests/fixtures/deploy/write_fixture.cpp). Every later version must load it
+// and give these predictions bit for bit.
+TEST_CASE("the version-1 fixture file loads and predicts exactly what it did when written") {
+    const std::string path = std::string(TENON_SOURCE_DIR) + "/tests/fixtures/deploy/pump_v1_float.tnm";
+    const auto m = tenon::load_model_file<float>(path);
+    CHECK(m.format_version == 1);
+    REQUIRE(m.plan);
+    REQUIRE(m.metadata);
+    CHECK(m.metadata->seed == 2024);
+    tenon::predictor<float> p(m);
+    REQUIRE(p.is_classification());
+    CHECK(p.class_names() == std::vector<std::string>{"cavitating", "ok", "worn"});
+    const std::string_view rows[3][3] = {{"35", "12.5", "water"}, {"70", "33", "glycol"}, {"110", "8", "brine"}};
+    // Probabilities written by the fixture writer, as exact hex floats.
+    const float expected[3][3] = {
+#include "fixtures/deploy/pump_v1_float_expected.inc"
+    };
+    for (int i = 0; i < 3; ++i) {
+        const auto out = p.predict_cells(rows[i], 1);
+        for (int k = 0; k < 3; ++k) CHECK(same_bits(out.at(0, static_cast<std::size_t>(k)), expected[i][k]));
+    }
+}
