@@ -1,0 +1,238 @@
+// Benchmarks of deploy/: predictor latency for an 8-32-32-1 regression net
+// (one prepared row, one raw named row, 64 prepared and 64 raw rows) with
+// p50 / p99 / maximum per call, against the tape-based network_outputs of
+// the same row as the reference; two threads' throughput against one; and
+// the time to load a model file and build a predictor from it.
+//
+// Run: build/<dir>/bench/tenon_bench_deploy
+#include <benchmark/benchmark.h>
+
+#include <algorithm>
+#include <atomic>
+#include <chrono>
+#include <cstdio>
+#include <sstream>
+#include <string>
+#include <thread>
+#include <unistd.h>
+#include <vector>
+
+#include <tenon/deploy/model_file.hpp>
+#include <tenon/deploy/predictor.hpp>
+#include <tenon/prep/csv.hpp>
+
+namespace {
+
+// An invented press line: eight sensor channels and the resulting force.
+struct bench_model {
+    tenon::table t;
+    tenon::fitted_model<float> fitted;
+    tenon::model_file<float> file;
+    std::string path;
+
+    static tenon::table make_table() {
+        tenon::random_engine rng(1);
+        std::ostringstream csv;
+        csv << "s0,s1,s2,s3,s4,s5,s6,s7,force\n";
+        for (int i = 0; i < 2000; ++i) {
+            double sum = 0;
+            for (int k = 0; k < 8; ++k) {
+                const double v = rng.uniform(-1.0, 1.0);
+                sum += (k + 1) * v * v;
+                csv << v << ",";
+            }
+            csv << sum << "\n";
+        }
+        std::istringstream in(csv.str());
+        return tenon::read_csv(in, {}, "press.csv");
+    }
+    static tenon::model_settings settings() {
+        tenon::model_settings s;
+        s.hidden = {32, 32};
+        s.epochs = 2;
+        return s;
+    }
+    static std::vector<std::size_t> rows(std::size_t a, std::size_t b) {
+        std::vector<std::size_t> r;
+        for (std::size_t i = a; i < b; ++i) r.push_back(i);
+        return r;
+    }
+    bench_model()
+        : t(make_table()),
+          fitted([&] {
+              tenon::plan p;
+              p.set_target("force", tenon::target_kind::regression);
+              return tenon::fit_model<float>(t, p, rows(0, 1600), rows(1600, 2000), settings());
+          }()),
+          file(tenon::make_model_file(fitted, t, rows(0, 1600), settings())),
+          path("/tmp/tenon_bench_deploy_" + std::to_string(::getpid()) + ".tnm") {
+        tenon::save_model_file(path, file);
+    }
+    ~bench_model() { std::remove(path.c_str()); }
+};
+
+bench_model& model() {
+    static bench_model m;
+    return m;
+}
+
+const std::vector<std::string>& raw_row() {
+    static const std::vector<std::string> cells = {"0.1", "-0.5", "0.25", "0.9", "-0.3", "0.0", "0.7", "-0.8"};
+    return cells;
+}
+
+// Times each iteration separately and reports p50, p99 and the maximum.
+template <class F>
+void timed_loop(benchmark::State& state, F&& call) {
+    std::vector<double> ns;
+    ns.reserve(1 << 20);
+    for (auto _ : state) {
+        const auto t0 = std::chrono::steady_clock::now();
+        call();
+        const auto t1 = std::chrono::steady_clock::now();
+        if (ns.size() < ns.capacity()) ns.push_back(std::chrono::duration<double, std::nano>(t1 - t0).count());
+    }
+    std::sort(ns.begin(), ns.end());
+    if (ns.empty()) return;
+    state.counters["p50_ns"] = ns[ns.size() / 2];
+    state.counters["p99_ns"] = ns[std::min(ns.size() - 1, ns.size() * 99 / 100)];
+    state.counters["max_ns"] = ns.back();
+}
+
+void predictor_one_prepared_row(benchmark::State& state) {
+    tenon::predictor<float> p(model().file, 64);
+    std::vector<float> row(8, 0.25f);
+    tenon::prediction_view<float> out;
+    timed_loop(state, [&] {
+        p.try_predict_prepared(row.data(), 1, out);
+        benchmark::DoNotOptimize(out.values[0]);
+    });
+}
+
+void reference_tape_one_prepared_row(benchmark::State& state) {
+    tenon::matrix<float> row({1, 8});
+    row.fill(0.25f);
+    timed_loop(state, [&] {
+        const auto y = tenon::network_outputs(model().fitted.net, row);
+        benchmark::DoNotOptimize(y.data()[0]);
+    });
+}
+
+void predictor_one_named_row(benchmark::State& state) {
+    tenon::predictor<float> p(model().file, 64);
+    const auto& cells = raw_row();
+    const tenon::named_value named[8] = {{"s0", cells[0]}, {"s1", cells[1]}, {"s2", cells[2]}, {"s3", cells[3]},
+                                         {"s4", cells[4]}, {"s5", cells[5]}, {"s6", cells[6]}, {"s7", cells[7]}};
+    tenon::prediction_view<float> out;
+    timed_loop(state, [&] {
+        p.try_predict_named(named, 8, out);
+        benchmark::DoNotOptimize(out.values[0]);
+    });
+}
+
+void predictor_64_prepared_rows(benchmark::State& state) {
+    tenon::predictor<float> p(model().file, 64);
+    std::vector<float> rows(64 * 8);
+    tenon::random_engine rng(2);
+    for (auto& v : rows) v = rng.uniform(-1.0f, 1.0f);
+    tenon::prediction_view<float> out;
+    timed_loop(state, [&] {
+        p.try_predict_prepared(rows.data(), 64, out);
+        benchmark::DoNotOptimize(out.values[63]);
+    });
+    state.SetItemsProcessed(state.iterations() * 64);
+}
+
+void predictor_64_raw_rows(benchmark::State& state) {
+    tenon::predictor<float> p(model().file, 64);
+    std::vector<std::string_view> cells;
+    for (int i = 0; i < 64; ++i)
+        for (const auto& c : raw_row()) cells.push_back(c);
+    tenon::prediction_view<float> out;
+    timed_loop(state, [&] {
+        p.try_predict_cells(cells.data(), 64, out);
+        benchmark::DoNotOptimize(out.values[63]);
+    });
+    state.SetItemsProcessed(state.iterations() * 64);
+}
+
+void predictor_one_subnormal_row(benchmark::State& state) {
+    tenon::predictor<float> p(model().file, 64);
+    std::vector<float> row(8, 1e-40f);
+    tenon::prediction_view<float> out;
+    timed_loop(state, [&] {
+        p.try_predict_prepared(row.data(), 1, out);
+        benchmark::DoNotOptimize(out.values[0]);
+    });
+}
+
+void load_model_and_build_predictor(benchmark::State& state) {
+    const std::string& path = model().path;
+    timed_loop(state, [&] {
+        tenon::predictor<float> p(tenon::load_model_file<float>(path), 64);
+        benchmark::DoNotOptimize(p.output_count());
+    });
+}
+
+// Each thread builds its own predictor before the timed loop starts.
+void predictor_threads(benchmark::State& state) {
+    tenon::predictor<float> p(model().file, 64);
+    std::vector<float> row(8, 0.25f);
+    tenon::prediction_view<float> out;
+    for (auto _ : state) {
+        p.try_predict_prepared(row.data(), 1, out);
+        benchmark::DoNotOptimize(out.values[0]);
+    }
+    state.SetItemsProcessed(state.iterations());
+}
+
+// Calls per second of `threads` threads for `seconds`, each with its own copy.
+double throughput(int threads, double seconds) {
+    tenon::predictor<float> base(model().file, 64);
+    std::atomic<bool> go{false}, stop{false};
+    std::vector<std::uint64_t> calls(static_cast<std::size_t>(threads), 0);
+    std::vector<std::thread> pool;
+    for (int k = 0; k < threads; ++k)
+        pool.emplace_back([&, k, copy = base]() mutable {
+            copy.warm_up();
+            std::vector<float> row(8, 0.25f);
+            tenon::prediction_view<float> out;
+            while (!go.load()) std::this_thread::yield();
+            std::uint64_t n = 0;
+            while (!stop.load(std::memory_order_relaxed)) {
+                copy.try_predict_prepared(row.data(), 1, out);
+                benchmark::DoNotOptimize(out.values[0]);
+                ++n;
+            }
+            calls[static_cast<std::size_t>(k)] = n;
+        });
+    go = true;
+    std::this_thread::sleep_for(std::chrono::duration<double>(seconds));
+    stop = true;
+    for (auto& th : pool) th.join();
+    std::uint64_t total = 0;
+    for (auto c : calls) total += c;
+    return static_cast<double>(total) / seconds;
+}
+
+}  // namespace
+
+BENCHMARK(reference_tape_one_prepared_row);
+BENCHMARK(predictor_one_prepared_row);
+BENCHMARK(predictor_one_subnormal_row);
+BENCHMARK(predictor_one_named_row);
+BENCHMARK(predictor_64_prepared_rows);
+BENCHMARK(predictor_64_raw_rows);
+BENCHMARK(load_model_and_build_predictor);
+BENCHMARK(predictor_threads)->Threads(1)->Threads(2)->UseRealTime();
+
+int main(int argc, char** argv) {
+    benchmark::Initialize(&argc, argv);
+    benchmark::RunSpecifiedBenchmarks();
+    benchmark::Shutdown();
+    const double one = throughput(1, 1.0), two = throughput(2, 1.0);
+    std::printf("throughput, one prepared row per call: 1 thread %.0f calls/s, 2 threads %.0f calls/s, ratio %.2f (ideal 2.00; %u hardware threads)\n",
+                one, two, two / one, std::thread::hardware_concurrency());
+    std::printf("model file: %zu bytes\n", tenon::model_file_to_bytes(model().file).size());
+    return 0;
+}
