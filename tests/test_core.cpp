@@ -395,9 +395,10 @@ TEST_CASE_TEMPLATE("gemm matches a naive triple loop for all transpose cases and
 
 TEST_CASE_TEMPLATE("gemm across its block and tile edges stays within the dot-product rounding bound", T, float, double) {
     // The blocked kernel packs kc = 256 deep, mc = 64 rows and nc = 512
-    // columns at a time into 4-row x 8-column (float) or 4 x 4 (double)
-    // tiles; results thinner than a tile take unpacked loops. These shapes
-    // cross each of those edges with sizes that are not multiples of them.
+    // columns at a time into 4-row x 32-column tiles; results with fewer
+    // than 4 rows or 8 (float) / 4 (double) columns take unpacked loops.
+    // These shapes cross each of those edges with sizes that are not
+    // multiples of them.
     // Bound: |fl(x.y) - x.y| <= gamma_k |x|.|y|, gamma_k = k u / (1 - k u)
     // (Higham 2002, "Accuracy and Stability of Numerical Algorithms", 2nd ed.,
     // section 3.1, eq. 3.5), whatever the summation order; two more rounding
