@@ -383,11 +383,14 @@ TEST_CASE("the holder swaps models while threads keep predicting") {
                 ++calls;
             }
         });
+    // Each store waits for a few more calls, so readers refresh between
+    // swaps however the threads are scheduled.
+    while (calls.load() < 3) std::this_thread::yield();
     for (int swap = 0; swap < 200; ++swap) {
         holder.store(swap % 2 ? p1 : p2);
-        std::this_thread::yield();
+        const int before = calls.load();
+        while (calls.load() < before + 3) std::this_thread::yield();
     }
-    while (calls.load() < 1000) std::this_thread::yield();
     stop = true;
     for (auto& th : readers) th.join();
     CHECK(mixed.load() == 0);
