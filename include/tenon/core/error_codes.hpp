@@ -95,7 +95,10 @@
     X(model_schedule_option, "model.schedule.option", "a learning-rate schedule option is out of range")
 
 // train/: the trainer, metrics, cross-validation.
-#define TENON_ERROR_CODES_TRAIN(X)
+#define TENON_ERROR_CODES_TRAIN(X)                                                             \
+    X(train_no_rows, "train.rows.empty", "the training or validation rows are empty")           \
+    X(train_option, "train.option.invalid", "a trainer option or the loss does not fit the data") \
+    X(train_non_finite_input, "train.input.non_finite", "a prepared feature or target is NaN or infinite")
 
 // deploy/: model files, the predictor, retraining, drift.
 #define TENON_ERROR_CODES_DEPLOY(X)                                                            \
