@@ -49,6 +49,12 @@
 #include "tenon/train/trainer.hpp"
 #include "tenon/train/workflow.hpp"
 
+#include "tenon/deploy/atomic_file.hpp"
+#include "tenon/deploy/checksum.hpp"
+#include "tenon/deploy/model_file.hpp"
+#include "tenon/deploy/predictor.hpp"
+#include "tenon/deploy/reference.hpp"
+
 #if defined(TENON_HAS_ZLIB)
 #include "tenon/prep/idx_gzip.hpp"
 #endif
