@@ -87,6 +87,7 @@ public:
     void ReportRuns(const std::vector<Run>& runs) override {
         ConsoleReporter::ReportRuns(runs);
         for (const auto& r : runs) {
+            if (r.run_type == Run::RT_Aggregate) continue;  // repetition summaries, not runs
             if (r.run_name.function_name == "tape_forward_backward") tape_ns_ = r.GetAdjustedCPUTime();
             if (r.run_name.function_name == "reference_forward_backward") reference_ns_ = r.GetAdjustedCPUTime();
         }
