@@ -200,7 +200,7 @@ TEST_CASE("tenon train --help explains every option with its default") {
     CHECK(r.err.empty());
     for (const char* option : {"--data", "--target", "--task", "--ignore", "--split", "--time-column", "--group-column", "--fractions",
                                "--folds", "--hidden", "--activation", "--loss", "--optimizer", "--learning-rate", "--epochs", "--batch",
-                               "--patience", "--seed", "--threads", "--metrics", "--report", "--quiet"}) {
+                               "--patience", "--seed", "--threads", "--metrics", "--report", "--model", "--quiet"}) {
         CAPTURE(std::string(option));
         CHECK(r.out.find(std::string("  ") + option + " ") != std::string::npos);
     }
@@ -356,7 +356,7 @@ TEST_CASE("unknown options, bad numbers and missing values are named") {
     }
     const auto r = run({"trian"});
     CHECK(r.status == 2);
-    CHECK(r.err == "tenon: error: [cli.command.unknown] unknown command 'trian' (commands: train; see tenon --help)\n");
+    CHECK(r.err == "tenon: error: [cli.command.unknown] unknown command 'trian' (commands: train, infer, inspect; see tenon --help)\n");
 }
 
 TEST_CASE("an output file that cannot be written fails before training, with status 3") {

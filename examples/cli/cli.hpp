@@ -1,5 +1,7 @@
 // The `tenon` command-line tool: trains a perceptron on a CSV file and
-// reports how well it does on rows it never saw.
+// reports how well it does on rows it never saw (`tenon train`), saves the
+// model (--model), predicts with it on new rows (`tenon infer`) and
+// describes it (`tenon inspect`).
 //
 // Built on tenon's public headers only, the way a host application would use
 // them. The logic lives here, in a header, so the tests can run the tool in
@@ -11,9 +13,10 @@
 //
 // Exit status: 0 success; 2 bad command line or bad input data (the message
 // on stderr names the option, file, line, column or value); 3 an output file
-// could not be written; 1 anything unexpected. On any failure no --metrics or
-// --report file is created or changed: both are written to a temporary file
-// beside the destination and renamed into place only when everything worked.
+// could not be written; 1 anything unexpected. On any failure no --metrics,
+// --report, --model or --out file is created or changed: each is written to a
+// temporary file beside the destination and renamed into place only when
+// everything worked (the model by tenon::save_model_file, which also syncs).
 #pragma once
 
 #include <algorithm>
@@ -78,6 +81,8 @@ inline constexpr const char* column_unknown = "cli.column.unknown";
 inline constexpr const char* data_empty = "cli.data.empty";
 inline constexpr const char* target_single_class = "cli.target.single_class";
 inline constexpr const char* output_write = "cli.output.write";
+inline constexpr const char* column_missing = "cli.column.missing";
+inline constexpr const char* model_unusable = "cli.model.unusable";
 }  // namespace cli_codes
 
 [[noreturn]] inline void fail(const char* code, const std::string& message, int exit_status = exit_bad_input) {
@@ -113,6 +118,7 @@ struct train_request {
     std::size_t threads = 1;
     std::string metrics_path;
     std::string report_path;
+    std::string model_path;
     bool quiet = false;
     bool help = false;
 };
@@ -221,7 +227,7 @@ inline train_request parse_train_request(const std::vector<std::string>& args) {
         static const char* const known[] = {"--data", "--target", "--task", "--ignore", "--split", "--time-column", "--group-column",
                                             "--fractions", "--folds", "--hidden", "--activation", "--loss", "--optimizer",
                                             "--learning-rate", "--epochs", "--batch", "--patience", "--seed", "--threads",
-                                            "--metrics", "--report", "--quiet"};
+                                            "--metrics", "--report", "--model", "--quiet"};
         bool is_known = false;
         for (const char* n : known) is_known = is_known || name == n;
         if (!is_known) fail(cli_codes::option_unknown, "unknown option '" + name + "' for 'tenon train' (see tenon train --help)");
@@ -318,6 +324,9 @@ inline train_request parse_train_request(const std::vector<std::string>& args) {
         } else if (name == "--report") {
             if (value.empty()) fail(cli_codes::option_value, "--report needs a file name, got an empty one");
             q.report_path = value;
+        } else if (name == "--model") {
+            if (value.empty()) fail(cli_codes::option_value, "--model needs a file name, got an empty one");
+            q.model_path = value;
         }
     }
     if (q.help) return q;
@@ -330,6 +339,19 @@ inline train_request parse_train_request(const std::vector<std::string>& args) {
     if (!q.metrics_path.empty() && !q.report_path.empty() &&
         std::filesystem::path(q.metrics_path).lexically_normal() == std::filesystem::path(q.report_path).lexically_normal())
         fail(cli_codes::option_conflict, "--metrics and --report name the same file '" + q.metrics_path + "'");
+    {
+        const std::pair<const char*, const std::string*> outputs[] = {{"--metrics", &q.metrics_path}, {"--report", &q.report_path}, {"--model", &q.model_path}};
+        for (std::size_t a = 0; a < 3; ++a)
+            for (std::size_t b = a + 1; b < 3; ++b)
+                if (a + b > 1 && !outputs[a].second->empty() && !outputs[b].second->empty() &&
+                    std::filesystem::path(*outputs[a].second).lexically_normal() == std::filesystem::path(*outputs[b].second).lexically_normal())
+                    fail(cli_codes::option_conflict, std::string(outputs[a].first) + " and " + outputs[b].first + " name the same file '" + *outputs[a].second + "'");
+    }
+    if (!q.model_path.empty() && std::filesystem::path(q.model_path).lexically_normal() == std::filesystem::path(q.data_path).lexically_normal())
+        fail(cli_codes::option_conflict, "--model and --data name the same file '" + q.model_path + "'");
+    if (q.folds > 0 && !q.model_path.empty())
+        fail(cli_codes::option_conflict, "--model saves the model of one holdout run; cross-validation (--folds " + std::to_string(q.folds) +
+                                             ") trains one model per fold and saves none");
     if (q.folds > 0 && !q.report_path.empty())
         fail(cli_codes::option_conflict, "--report draws one holdout run; it cannot be combined with --folds " + std::to_string(q.folds));
     for (const auto& c : q.ignored) {
@@ -418,6 +440,10 @@ Output
                          macro_f1, log_loss; or rmse, mae, r2).
   --report OUT.svg       write an SVG report: loss per epoch and, for
                          classification, the test confusion matrix.
+  --model OUT.tnm        save the trained model (network, weights, the
+                         measured preparation, the validation and test scores,
+                         ranges of the training rows and a sample of them) for
+                         tenon infer and tenon inspect. Not with --folds.
   --quiet                print nothing but errors.
   On a terminal the progress line is redrawn in place; otherwise one line is
   printed per epoch. A summary table follows training.
@@ -425,7 +451,7 @@ Output
 Exit status
   0 success; 2 bad command line or bad data (one line on stderr names the
   problem); 3 an output file could not be written; 1 an unexpected failure.
-  On failure no --metrics or --report file is created or changed.
+  On failure no --metrics, --report or --model file is created or changed.
 )";
 }
 
@@ -438,8 +464,15 @@ Usage: tenon COMMAND [options]
 
 Commands
   train    train a perceptron on a CSV file and score it on held-out rows
+  infer    predict with a saved model, one output row per CSV row
+  inspect  describe a saved model: inputs, classes, layers, scores, provenance
 
 Run 'tenon COMMAND --help' for a command's options and their defaults.
+
+A typical session
+  tenon train --data history.csv --target verdict --model caps.tnm
+  tenon inspect --model caps.tnm
+  tenon infer --model caps.tnm --data today.csv --keep id --out verdicts.csv
 
 Exit status: 0 success, 2 bad command line or data, 3 output not written,
 1 unexpected failure.
@@ -451,15 +484,19 @@ Exit status: 0 success, 2 bad command line or data, 3 output not written,
 
 namespace detail {
 
+// "a, b, c", or the first 12 and the count.
+inline std::string column_listing(const std::vector<std::string>& names) {
+    std::string listed;
+    const std::size_t shown = std::min<std::size_t>(names.size(), 12);
+    for (std::size_t k = 0; k < shown; ++k) listed += (k ? ", " : "") + names[k];
+    if (shown < names.size()) listed += ", ... (" + std::to_string(names.size()) + " columns)";
+    return listed;
+}
+
 inline const tenon::column& named_column(const tenon::table& t, const std::string& option, const std::string& name) {
-    if (!t.contains(name)) {
-        std::vector<std::string> names = t.column_names();
-        std::string listed;
-        const std::size_t shown = std::min<std::size_t>(names.size(), 12);
-        for (std::size_t k = 0; k < shown; ++k) listed += (k ? ", " : "") + names[k];
-        if (shown < names.size()) listed += ", ... (" + std::to_string(names.size()) + " columns)";
-        fail(cli_codes::column_unknown, t.source() + ": " + option + " names '" + name + "', which is not a column (columns: " + listed + ")");
-    }
+    if (!t.contains(name))
+        fail(cli_codes::column_unknown, t.source() + ": " + option + " names '" + name + "', which is not a column (columns: " +
+                                            column_listing(t.column_names()) + ")");
     return t.at(name);
 }
 
@@ -687,6 +724,7 @@ public:
         option_ = std::move(o.option_);
         destination_ = std::move(o.destination_);
         temporary_ = std::move(o.temporary_);
+        stream_ = std::move(o.stream_);
         created_ = o.created_;
         o.created_ = false;
         return *this;
@@ -702,6 +740,19 @@ public:
         out.close();
         if (!out) fail(cli_codes::output_write, option_ + " '" + destination_ + "': writing failed", exit_output_failed);
     }
+    /// The temporary file as a stream, for output written piece by piece;
+    /// end with finish_stream(), then commit().
+    std::ofstream& stream() {
+        if (!stream_.is_open()) {
+            stream_.open(temporary_, std::ios::binary | std::ios::trunc);
+            if (!stream_) fail(cli_codes::output_write, option_ + " '" + destination_ + "': cannot open the temporary file", exit_output_failed);
+        }
+        return stream_;
+    }
+    void finish_stream() {
+        stream_.close();
+        if (!stream_) fail(cli_codes::output_write, option_ + " '" + destination_ + "': writing failed", exit_output_failed);
+    }
     void commit() {
         std::error_code ec;
         std::filesystem::rename(temporary_, destination_, ec);
@@ -710,6 +761,7 @@ public:
     }
     void discard() noexcept {
         if (!created_) return;
+        if (stream_.is_open()) stream_.close();
         std::error_code ec;
         std::filesystem::remove(temporary_, ec);
         created_ = false;
@@ -717,6 +769,7 @@ public:
 
 private:
     std::string option_, destination_, temporary_;
+    std::ofstream stream_;
     bool created_ = false;
 };
 
@@ -1010,9 +1063,44 @@ inline void header_fields(json_writer& j, const train_request& q, const training
     j.count("seed", q.seed);
 }
 
+// "[code] message" -> "message".
+inline std::string strip_code(const std::string& what) {
+    if (!what.empty() && what[0] == '[') {
+        const auto end = what.find("] ");
+        if (end != std::string::npos) return what.substr(end + 2);
+    }
+    return what;
+}
+
+// The scores and the command line's choices that make_model_file cannot know.
+inline void add_scores_to_metadata(tenon::training_metadata& meta, const train_request& q, const training_setup& s,
+                                   const tenon::evaluation* validation, const tenon::evaluation& test) {
+    const auto add = [&meta](const std::string& prefix, const tenon::evaluation& e) {
+        meta.metrics.emplace_back(prefix + "_rows", static_cast<double>(e.rows));
+        if (e.classification) {
+            meta.metrics.emplace_back(prefix + "_accuracy", e.accuracy);
+            meta.metrics.emplace_back(prefix + "_macro_f1", e.macro_f1);
+            meta.metrics.emplace_back(prefix + "_log_loss", e.log_loss);
+        } else {
+            meta.metrics.emplace_back(prefix + "_rmse", e.rmse);
+            meta.metrics.emplace_back(prefix + "_mae", e.mae);
+            meta.metrics.emplace_back(prefix + "_r2", e.r2);
+        }
+    };
+    if (validation) add("validation", *validation);
+    add("test", test);
+    meta.settings.emplace_back("data", std::filesystem::path(q.data_path).filename().string());
+    meta.settings.emplace_back("target", q.target);
+    meta.settings.emplace_back("task", s.classify ? "classification" : "regression");
+    meta.settings.emplace_back("split", split_name(s.split));
+    meta.settings.emplace_back("fractions", tenon::number_to_text(q.fractions.train) + "," + tenon::number_to_text(q.fractions.validation) + "," +
+                                                tenon::number_to_text(q.fractions.test));
+}
+
 // Holdout run.
 inline int train_holdout(const tenon::table& t, const train_request& q, training_setup& s, std::ostream& out,
-                         const cli_environment& env, pending_output& metrics_file, pending_output& report_file) {
+                         const cli_environment& env, pending_output& metrics_file, pending_output& report_file,
+                         pending_output& model_probe) {
     const tenon::holdout_split split = make_holdout(t, q, s);
     choose_feature_steps(t, s.recipe, split.train);
 
@@ -1080,18 +1168,36 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
         }
         report_file.write(tenon::training_report_svg(r));
     }
-    // Everything is written: move the files into place together.
-    if (metrics_file.active()) metrics_file.commit();
-    if (report_file.active()) {
-        try {
-            report_file.commit();
-        } catch (...) {
-            if (!q.metrics_path.empty()) {
-                std::error_code ec;
-                std::filesystem::remove(q.metrics_path, ec);
-            }
-            throw;
+    // Everything is written: move the files into place together. The model
+    // goes first (written and renamed atomically by save_model_file); when a
+    // later rename fails, the files already in place are removed again.
+    std::vector<std::string> placed;
+    const auto undo = [&placed] {
+        for (const auto& p : placed) {
+            std::error_code ec;
+            std::filesystem::remove(p, ec);
         }
+    };
+    if (model_probe.active()) {
+        tenon::model_file<float> file = tenon::make_model_file(model, t, split.train, settings);
+        add_scores_to_metadata(*file.metadata, q, s, has_validation ? &validation : nullptr, test);
+        model_probe.discard();
+        try {
+            tenon::save_model_file(q.model_path, file);
+        } catch (const tenon::error& e) {
+            throw cli_failure(e.code(), "--model '" + q.model_path + "': " + strip_code(e.what()), exit_output_failed);
+        }
+        placed.push_back(q.model_path);
+    }
+    try {
+        if (metrics_file.active()) {
+            metrics_file.commit();
+            placed.push_back(q.metrics_path);
+        }
+        if (report_file.active()) report_file.commit();
+    } catch (...) {
+        undo();
+        throw;
     }
 
     if (!q.quiet) {
@@ -1115,6 +1221,7 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
                    (dropped ? ", " + std::to_string(dropped) + " rows dropped for a missing target" : std::string()) + "\n";
         if (!q.metrics_path.empty()) summary += "metrics written to " + q.metrics_path + "\n";
         if (!q.report_path.empty()) summary += "report written to " + q.report_path + "\n";
+        if (!q.model_path.empty()) summary += "model written to " + q.model_path + "\n";
         out << summary;
     }
     return exit_success;
@@ -1199,14 +1306,700 @@ inline int run_train(const std::vector<std::string>& args, std::ostream& out, st
         return exit_success;
     }
     // Output files are claimed first, so an unwritable path fails before training.
-    pending_output metrics_file, report_file;
+    pending_output metrics_file, report_file, model_probe;
     if (!q.metrics_path.empty()) metrics_file = pending_output("--metrics", q.metrics_path);
     if (!q.report_path.empty()) report_file = pending_output("--report", q.report_path);
+    // The model is saved by save_model_file; the probe only proves the directory writable.
+    if (!q.model_path.empty()) model_probe = pending_output("--model", q.model_path);
 
     const tenon::table t = load_table(q);
     training_setup s = make_setup(t, q);
     if (q.folds > 0) return detail::train_folds(t, q, s, out, env, metrics_file);
-    return detail::train_holdout(t, q, s, out, env, metrics_file, report_file);
+    return detail::train_holdout(t, q, s, out, env, metrics_file, report_file, model_probe);
+}
+
+// ---------------------------------------------------------------------------
+// Options of `tenon infer` and `tenon inspect`
+
+namespace detail {
+
+struct given_option {
+    std::string name, value;
+};
+
+// Reads --name VALUE, --name=VALUE and value-less flags for `command`, with
+// the same messages as `tenon train`; --help / -h sets `help`.
+inline std::vector<given_option> read_options(const std::string& command, const std::vector<std::string>& args,
+                                              const std::vector<std::string>& with_value, const std::vector<std::string>& flags,
+                                              bool& help) {
+    std::vector<given_option> given;
+    for (std::size_t k = 0; k < args.size(); ++k) {
+        std::string name = args[k], value;
+        bool inline_value = false;
+        if (name == "--help" || name == "-h") {
+            help = true;
+            continue;
+        }
+        if (name.rfind("--", 0) != 0)
+            fail(cli_codes::option_unknown, "unexpected argument '" + name + "' for 'tenon " + command + "' (options start with --; see tenon " +
+                                                command + " --help)");
+        const auto eq = name.find('=');
+        if (eq != std::string::npos) {
+            value = name.substr(eq + 1);
+            name = name.substr(0, eq);
+            inline_value = true;
+        }
+        const bool is_flag = std::find(flags.begin(), flags.end(), name) != flags.end();
+        if (!is_flag && std::find(with_value.begin(), with_value.end(), name) == with_value.end())
+            fail(cli_codes::option_unknown, "unknown option '" + name + "' for 'tenon " + command + "' (see tenon " + command + " --help)");
+        for (const auto& g : given)
+            if (g.name == name) fail(cli_codes::option_conflict, name + " is given more than once");
+        if (is_flag) {
+            if (inline_value) fail(cli_codes::option_value, name + " takes no value");
+        } else if (!inline_value) {
+            if (k + 1 >= args.size()) fail(cli_codes::option_missing, name + " needs a value");
+            value = args[++k];
+        }
+        given.push_back({name, value});
+    }
+    return given;
+}
+
+inline bool same_file(const std::string& a, const std::string& b) {
+    return std::filesystem::path(a).lexically_normal() == std::filesystem::path(b).lexically_normal();
+}
+
+}  // namespace detail
+
+struct infer_request {
+    std::string model_path;
+    std::string data_path;
+    std::string out_path;
+    std::vector<std::string> keep;
+    bool quiet = false;
+    bool help = false;
+};
+
+/// Reads the arguments after `infer`. Throws cli_failure on a bad command line.
+inline infer_request parse_infer_request(const std::vector<std::string>& args) {
+    infer_request q;
+    for (const auto& o : detail::read_options("infer", args, {"--model", "--data", "--out", "--keep"}, {"--quiet"}, q.help)) {
+        if (o.name == "--quiet") {
+            q.quiet = true;
+            continue;
+        }
+        if (o.name == "--keep") {
+            q.keep = detail::split_list(o.value);
+            for (std::size_t k = 0; k < q.keep.size(); ++k) {
+                if (q.keep[k].empty()) fail(cli_codes::option_value, "--keep '" + o.value + "': an empty column name");
+                for (std::size_t j = 0; j < k; ++j)
+                    if (q.keep[j] == q.keep[k]) fail(cli_codes::option_conflict, "--keep names '" + q.keep[k] + "' twice");
+            }
+            continue;
+        }
+        if (o.value.empty()) fail(cli_codes::option_value, o.name + " needs a file name, got an empty one");
+        (o.name == "--model" ? q.model_path : o.name == "--data" ? q.data_path : q.out_path) = o.value;
+    }
+    if (q.help) return q;
+    if (q.model_path.empty()) fail(cli_codes::option_missing, "tenon infer needs --model MODEL.tnm");
+    if (q.data_path.empty()) fail(cli_codes::option_missing, "tenon infer needs --data FILE.csv");
+    if (q.out_path.empty()) fail(cli_codes::option_missing, "tenon infer needs --out PREDICTIONS.csv");
+    if (detail::same_file(q.out_path, q.data_path)) fail(cli_codes::option_conflict, "--out and --data name the same file '" + q.out_path + "'");
+    if (detail::same_file(q.out_path, q.model_path)) fail(cli_codes::option_conflict, "--out and --model name the same file '" + q.out_path + "'");
+    return q;
+}
+
+struct inspect_request {
+    std::string model_path;
+    bool json = false;
+    bool help = false;
+};
+
+inline inspect_request parse_inspect_request(const std::vector<std::string>& args) {
+    inspect_request q;
+    for (const auto& o : detail::read_options("inspect", args, {"--model"}, {"--json"}, q.help)) {
+        if (o.name == "--json") {
+            q.json = true;
+        } else {
+            if (o.value.empty()) fail(cli_codes::option_value, "--model needs a file name, got an empty one");
+            q.model_path = o.value;
+        }
+    }
+    if (!q.help && q.model_path.empty()) fail(cli_codes::option_missing, "tenon inspect needs --model MODEL.tnm");
+    return q;
+}
+
+inline std::string infer_help() {
+    return R"(tenon infer: predict with a saved model, one output row per input row
+
+Usage: tenon infer --model MODEL.tnm --data NEW.csv --out PREDICTIONS.csv [options]
+
+  --model MODEL.tnm      a model saved by tenon train --model (required). The
+                         file is checked completely (checksums, version,
+                         layout) before anything is predicted.
+  --data NEW.csv         CSV file with a header row (required). It must hold
+                         every column the model reads (tenon inspect lists
+                         them), in any order; other columns, the target among
+                         them, are ignored. Empty cells, NA, NaN, null and ?
+                         read as missing and are filled as in training.
+  --out PREDICTIONS.csv  where to write the predictions (required).
+  --keep COL,COL         columns of NEW.csv copied unchanged to the front of
+                         each output row, e.g. an id (default: none).
+  --quiet                print nothing but errors.
+
+Output: a CSV file with a header, one row per data row, in the same order
+  COL,...          the --keep columns, as read;
+  predicted        classification: the most probable class;
+                   regression: the predicted target in its original units;
+  p(CLASS)         classification only: one column per class, in the order
+                   tenon inspect lists them; each row sums to 1;
+  out_of_range     the input cells outside what the training rows held, as
+                   COLUMN:below (under the training minimum), COLUMN:above
+                   (over the training maximum) or COLUMN:unseen (a category
+                   training never saw; it is encoded as all zeros), several
+                   joined by ';'; empty when every cell lies inside.
+  Numbers are written in the shortest form that reads back to the same value
+  in the model's precision (single precision for models of tenon train).
+
+Exit status
+  0 success; 2 bad command line, model file or data (one line on stderr names
+  the problem; a cell that cannot be predicted fails the whole command and is
+  named by file, line, column and value); 3 the output could not be written;
+  1 an unexpected failure. On failure no --out file is created or changed.
+)";
+}
+
+inline std::string inspect_help() {
+    return R"(tenon inspect: describe a saved model
+
+Usage: tenon inspect --model MODEL.tnm [--json]
+
+  --model MODEL.tnm      the model file (required). It is checked completely
+                         (checksums, version, layout) first.
+  --json                 print the description as JSON instead of text.
+
+Prints the file's format version and sections; provenance (creation time in
+UTC, library version, seed, epochs, row counts, the training data's
+fingerprint); the target and its classes; every input column with its kind,
+categories, preparation and the range of the training rows; the network's
+layers with their sizes and its parameter count; the validation and test
+scores and the training settings.
+
+Exit status
+  0 success; 2 bad command line or an unreadable or damaged model file (one
+  line on stderr names the problem); 1 an unexpected failure.
+)";
+}
+
+// ---------------------------------------------------------------------------
+// `tenon infer`
+
+namespace detail {
+
+// A CSV field (RFC 4180, section 2: fields with commas, quotes or line
+// breaks are quoted, and quotes inside are doubled).
+inline void append_csv_field(std::string& line, std::string_view text) {
+    if (text.find_first_of(",\"\r\n") == std::string_view::npos) {
+        line.append(text.data(), text.size());
+        return;
+    }
+    line += '"';
+    for (char c : text) {
+        if (c == '"') line += '"';
+        line += c;
+    }
+    line += '"';
+}
+
+template <class T>
+void append_number(std::string& line, T v) {
+    char buffer[64];
+    const auto r = std::to_chars(buffer, buffer + sizeof buffer, v);  // shortest text that reads back exactly
+    line.append(buffer, r.ptr);
+}
+
+inline const char* flag_name(tenon::range_flag f) {
+    switch (f) {
+        case tenon::range_flag::below: return "below";
+        case tenon::range_flag::above: return "above";
+        case tenon::range_flag::unseen_category: return "unseen";
+        case tenon::range_flag::inside: break;
+    }
+    return "inside";
+}
+
+// Without the blanks (spaces, tabs) around it, as the CSV reader trims names.
+inline std::string trimmed(std::string_view s) {
+    while (!s.empty() && (s.front() == ' ' || s.front() == '\t')) s.remove_prefix(1);
+    while (!s.empty() && (s.back() == ' ' || s.back() == '\t')) s.remove_suffix(1);
+    return std::string(s);
+}
+
+// The header of a data file: trimmed names, each once.
+inline std::vector<std::string> read_data_header(tenon::csv_record_reader& reader) {
+    if (!reader.next()) tenon::raise(tenon::codes::prep_csv_no_header, reader.source() + ": no header row (the input is empty)");
+    std::vector<std::string> names;
+    for (std::size_t k = 0; k < reader.field_count(); ++k) {
+        std::string name = trimmed(reader.field(k));
+        if (std::find(names.begin(), names.end(), name) != names.end())
+            tenon::raise(tenon::codes::prep_csv_duplicate_column, reader.source() + " line " + std::to_string(reader.line()) + " column " +
+                                                                      std::to_string(k + 1) + ": the name '" + name + "' is used twice in the header");
+        names.push_back(std::move(name));
+    }
+    return names;
+}
+
+inline std::size_t position_of(const std::vector<std::string>& names, const std::string& name) {
+    return static_cast<std::size_t>(std::find(names.begin(), names.end(), name) - names.begin());
+}
+
+template <class T>
+int infer_with(const tenon::model_file<T>& file, const infer_request& q, std::ostream& out) {
+    if (!file.plan) fail(cli_codes::model_unusable, q.model_path + ": the model holds no preparation plan, so it cannot read raw rows");
+    constexpr std::size_t batch_rows = 64;
+    tenon::predictor<T> model(file, batch_rows);
+    const std::size_t inputs = model.input_count();
+
+    std::ifstream in(q.data_path, std::ios::binary);
+    if (!in) tenon::raise(tenon::codes::prep_file_open, q.data_path + ": cannot open for reading");
+    tenon::csv_record_reader reader(in, ',', q.data_path);
+    const std::vector<std::string> header = read_data_header(reader);
+
+    // Where each input column and each kept column is in the data.
+    std::vector<std::size_t> input_field(inputs), keep_field;
+    std::vector<std::string> absent;
+    for (std::size_t k = 0; k < inputs; ++k) {
+        input_field[k] = position_of(header, model.input_name(k));
+        if (input_field[k] == header.size()) absent.push_back("'" + model.input_name(k) + "'");
+    }
+    if (!absent.empty())
+        fail(cli_codes::column_missing, q.data_path + ": the model reads " + (absent.size() == 1 ? "column " : "columns ") + join(absent, ", ") +
+                                            ", which the data does not have (columns: " + column_listing(header) + ")");
+    for (const auto& name : q.keep) {
+        keep_field.push_back(position_of(header, name));
+        if (keep_field.back() == header.size())
+            fail(cli_codes::column_unknown, q.data_path + ": --keep names '" + name + "', which is not a column (columns: " + column_listing(header) + ")");
+    }
+
+    pending_output result("--out", q.out_path);
+    std::ofstream& stream = result.stream();
+    std::string line;
+    for (const auto& name : q.keep) {
+        append_csv_field(line, name);
+        line += ',';
+    }
+    const bool classify = model.is_classification();
+    if (classify) {
+        line += "predicted";
+        for (const auto& c : model.class_names()) {
+            line += ',';
+            append_csv_field(line, "p(" + c + ")");
+        }
+    } else if (model.output_count() == 1) {
+        line += "predicted";
+    } else {
+        for (std::size_t j = 0; j < model.output_count(); ++j) line += (j ? ",output_" : "output_") + std::to_string(j + 1);
+    }
+    line += ",out_of_range\n";
+    stream << line;
+
+    // Rows are predicted in batches; the cells are copied because the
+    // reader's views end at its next record.
+    std::vector<std::string> cells(batch_rows * inputs), kept(batch_rows * q.keep.size());
+    std::vector<std::string_view> views(batch_rows * inputs);
+    std::vector<std::size_t> lines(batch_rows);
+    std::size_t pending = 0, total = 0, flagged_rows = 0;
+    const auto flush = [&] {
+        if (pending == 0) return;
+        for (std::size_t k = 0; k < pending * inputs; ++k) views[k] = cells[k];
+        tenon::prediction_view<T> v;
+        const tenon::predict_status s = model.try_predict_cells(views.data(), pending, v);
+        if (!s.ok()) {
+            const std::string cell = s.row < pending && s.column < inputs ? cells[s.row * inputs + s.column] : std::string();
+            std::string what;
+            switch (s.code) {
+                case tenon::input_status::not_numeric:
+                    what = "'" + cell + "' is not a finite " + (file.plan->feature_kind(model.input_name(s.column)) == tenon::column_kind::datetime
+                                                                    ? "date/time" : "number");
+                    break;
+                case tenon::input_status::missing_value: what = "the cell is missing and the model has no fill value for the column"; break;
+                case tenon::input_status::unseen_category: what = "'" + cell + "' is a category the training rows did not hold"; break;
+                case tenon::input_status::non_finite: what = "'" + cell + "' is beyond what the model computes with (its prepared value is not finite)"; break;
+                default: tenon::raise(s.code_text(), model.describe(s, pending));
+            }
+            tenon::raise(s.code_text(), q.data_path + " line " + std::to_string(lines[s.row]) + " column " +
+                                            std::to_string(input_field[s.column] + 1) + " ('" + model.input_name(s.column) + "'): " + what);
+        }
+        for (std::size_t i = 0; i < pending; ++i) {
+            line.clear();
+            for (std::size_t j = 0; j < q.keep.size(); ++j) {
+                append_csv_field(line, kept[i * q.keep.size() + j]);
+                line += ',';
+            }
+            if (classify) {
+                append_csv_field(line, model.class_names()[v.best_class(i)]);
+                for (std::size_t j = 0; j < v.width; ++j) {
+                    line += ',';
+                    append_number(line, v.at(i, j));
+                }
+            } else {
+                for (std::size_t j = 0; j < v.width; ++j) {
+                    if (j) line += ',';
+                    append_number(line, v.at(i, j));
+                }
+            }
+            line += ',';
+            std::string flags;
+            for (std::size_t k = 0; k < inputs; ++k) {
+                const tenon::range_flag f = v.flag(i, k);
+                if (f == tenon::range_flag::inside) continue;
+                flags += (flags.empty() ? "" : ";") + model.input_name(k) + ":" + flag_name(f);
+            }
+            flagged_rows += flags.empty() ? 0 : 1;
+            append_csv_field(line, flags);
+            line += '\n';
+            stream << line;
+        }
+        total += pending;
+        pending = 0;
+    };
+    while (reader.next()) {
+        if (reader.field_count() != header.size())
+            tenon::raise(tenon::codes::prep_csv_ragged, q.data_path + " line " + std::to_string(reader.line()) + ": expected " +
+                                                            std::to_string(header.size()) + " fields, found " + std::to_string(reader.field_count()));
+        for (std::size_t k = 0; k < inputs; ++k) cells[pending * inputs + k].assign(reader.field(input_field[k]));
+        for (std::size_t j = 0; j < q.keep.size(); ++j) kept[pending * q.keep.size() + j].assign(reader.field(keep_field[j]));
+        lines[pending] = reader.line();
+        if (++pending == batch_rows) flush();
+    }
+    flush();
+    result.finish_stream();
+    result.commit();
+    if (!q.quiet)
+        out << "predicted " << total << (total == 1 ? " row" : " rows") << " (" << flagged_rows << " with inputs outside the training range) into "
+            << q.out_path << "\n";
+    return exit_success;
+}
+
+}  // namespace detail
+
+inline int run_infer(const std::vector<std::string>& args, std::ostream& out, std::ostream& err, const cli_environment& env) {
+    (void)err;
+    (void)env;
+    const infer_request q = parse_infer_request(args);
+    if (q.help) {
+        out << infer_help();
+        return exit_success;
+    }
+    // The whole file is checked (inspect) before a scalar type is chosen.
+    const tenon::model_limits limits;
+    const std::vector<std::uint8_t> bytes = tenon::read_file_bounded(q.model_path, limits.max_file_bytes);
+    const tenon::model_file_summary summary = tenon::inspect_model_bytes(bytes, limits, q.model_path);
+    if (summary.scalar_bytes == 8) return detail::infer_with(tenon::model_file_from_bytes<double>(bytes, limits, q.model_path), q, out);
+    return detail::infer_with(tenon::model_file_from_bytes<float>(bytes, limits, q.model_path), q, out);
+}
+
+// ---------------------------------------------------------------------------
+// `tenon inspect`
+
+namespace detail {
+
+// Seconds since 1970 as "YYYY-MM-DD HH:MM:SS UTC", by the days-to-civil
+// algorithm of Hinnant 2013, "chrono-Compatible Low-Level Date Algorithms",
+// civil_from_days (proleptic Gregorian calendar).
+inline std::string utc_text(std::int64_t seconds) {
+    std::int64_t days = seconds / 86400, rest = seconds % 86400;
+    if (rest < 0) {
+        rest += 86400;
+        days -= 1;
+    }
+    const std::int64_t z = days + 719468;
+    const std::int64_t era = (z >= 0 ? z : z - 146096) / 146097;
+    const std::int64_t doe = z - era * 146097;
+    const std::int64_t yoe = (doe - doe / 1460 + doe / 36524 - doe / 146096) / 365;
+    const std::int64_t doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
+    const std::int64_t mp = (5 * doy + 2) / 153;
+    const std::int64_t day = doy - (153 * mp + 2) / 5 + 1;
+    const std::int64_t month = mp < 10 ? mp + 3 : mp - 9;
+    const std::int64_t year = yoe + era * 400 + (month <= 2 ? 1 : 0);
+    char buffer[64];
+    std::snprintf(buffer, sizeof buffer, "%04lld-%02lld-%02lld %02lld:%02lld:%02lld UTC", static_cast<long long>(year),
+                  static_cast<long long>(month), static_cast<long long>(day), static_cast<long long>(rest / 3600),
+                  static_cast<long long>(rest / 60 % 60), static_cast<long long>(rest % 60));
+    return buffer;
+}
+
+inline std::string hex64(std::uint64_t v) {
+    char buffer[32];
+    std::snprintf(buffer, sizeof buffer, "0x%016llx", static_cast<unsigned long long>(v));
+    return buffer;
+}
+
+inline std::string significant(double v, int digits = 6) {
+    if (!std::isfinite(v)) return "-";
+    char buffer[64];
+    std::snprintf(buffer, sizeof buffer, "%.*g", digits, v);
+    return buffer;
+}
+
+inline std::string byte_size(std::uint64_t bytes) {
+    if (bytes < 10240) return std::to_string(bytes) + " bytes";
+    if (bytes < 10u * 1024 * 1024) return fixed(static_cast<double>(bytes) / 1024.0, 1) + " KiB";
+    return fixed(static_cast<double>(bytes) / (1024.0 * 1024.0), 1) + " MiB";
+}
+
+// A value of a numeric or date/time column, as text.
+inline std::string column_value(tenon::column_kind kind, double v) {
+    return kind == tenon::column_kind::datetime ? utc_text(static_cast<std::int64_t>(std::floor(v))) : significant(v);
+}
+
+inline std::string list_head(const std::vector<std::string>& items, std::size_t shown, const char* noun) {
+    std::string s;
+    for (std::size_t k = 0; k < std::min(shown, items.size()); ++k) s += (k ? ", " : "") + items[k];
+    if (items.size() > shown) s += ", ... (" + std::to_string(items.size()) + " " + noun + ")";
+    return s;
+}
+
+inline const char* unseen_text(tenon::unseen_policy p) {
+    switch (p) {
+        case tenon::unseen_policy::fail: return "refused";
+        case tenon::unseen_policy::all_zero: return "all zeros";
+        case tenon::unseen_policy::other_slot: return "an 'other' slot";
+    }
+    return "?";
+}
+
+inline const tenon::feature_reference* reference_of(const tenon::model_file_summary& m, const std::string& column) {
+    for (const auto& r : m.references)
+        if (r.column == column) return &r;
+    return nullptr;
+}
+
+// One line per layer, nested layers indented: "name  kind  details".
+inline void describe_layers(const tenon::layer_record& r, std::size_t depth, std::string& out) {
+    for (const auto& l : r.children) {
+        std::string details;
+        if (l.kind == "dense") {
+            details = significant(l.number("inputs")) + " -> " + significant(l.number("outputs")) + (l.has("bias") && l.number("bias") == 0 ? ", no bias" : "");
+        } else if (l.kind == "activation" && l.has("function")) {
+            for (const auto& t : l.texts)
+                if (t.first == "function") details = t.second;
+            if (l.has("coefficient") && l.number("coefficient") != 0) details += " (coefficient " + significant(l.number("coefficient")) + ")";
+        } else {
+            for (const auto& t : l.texts) details += (details.empty() ? "" : ", ") + t.first + " " + t.second;
+            for (const auto& n : l.numbers) details += (details.empty() ? "" : ", ") + n.first + " " + significant(n.second);
+        }
+        char buffer[160];
+        std::snprintf(buffer, sizeof buffer, "  %*s%-16s %-12s ", static_cast<int>(2 * depth), "", l.name.c_str(), l.kind.c_str());
+        out += buffer + details + "\n";
+        if (!l.children.empty()) describe_layers(l, depth + 1, out);
+    }
+}
+
+inline void layers_json(json_writer& j, const tenon::layer_record& r) {
+    j.open_array("layers");
+    for (const auto& l : r.children) {
+        j.open_object();
+        j.text("name", l.name).text("kind", l.kind);
+        for (const auto& t : l.texts) j.text(t.first.c_str(), t.second);
+        for (const auto& n : l.numbers) j.number(n.first.c_str(), n.second);
+        if (!l.children.empty()) layers_json(j, l);
+        j.close_object();
+    }
+    j.close_array();
+}
+
+inline std::string fill_text(const tenon::fill_value& f, tenon::column_kind kind) {
+    switch (f.method) {
+        case tenon::fill_method::none: return "refused";
+        case tenon::fill_method::most_frequent: return "most frequent '" + f.text + "'";
+        case tenon::fill_method::constant:
+            return kind == tenon::column_kind::categorical ? "constant '" + f.text + "'" : "constant " + column_value(kind, f.number);
+        default: return std::string(tenon::to_string(f.method)) + " " + column_value(kind, f.number);
+    }
+}
+
+inline std::string inspect_text(const tenon::model_file_summary& m, const std::string& path) {
+    std::string s = path + "\n";
+    std::vector<std::string> ids;
+    for (const auto& sec : m.sections) ids.push_back(sec.id);
+    s += "  tenon model file, format version " + std::to_string(m.format_version) + ", " + (m.scalar_bytes == 8 ? "double" : "float") +
+         " weights, " + byte_size(m.file_bytes) + "; sections " + join(ids, " ") + "\n";
+    s += "  replay sample: " + std::to_string(m.replay_rows) + " training rows; resumable: " + (m.resumable ? "yes" : "no") + "\n";
+
+    if (m.metadata) {
+        const tenon::training_metadata& t = *m.metadata;
+        s += "\nProvenance\n";
+        s += "  created      " + utc_text(t.created_unix_seconds) + "\n";
+        s += "  library      tenon " + t.library_version + "\n";
+        std::string data;
+        for (const auto& kv : t.settings)
+            if (kv.first == "data") data = kv.second + ", ";
+        s += "  data         " + data + "fingerprint " + hex64(t.data_fingerprint) + "\n";
+        s += "  rows         " + std::to_string(t.training_rows) + " training, " + std::to_string(t.validation_rows) + " validation, " +
+             std::to_string(t.dropped_rows) + " dropped for a missing target\n";
+        s += "  seed         " + std::to_string(t.seed) + "\n";
+        s += "  epochs       " + std::to_string(t.epochs_run) + " run of " + std::to_string(t.epochs_planned) + ", best " +
+             std::to_string(t.best_epoch) + ", stopped: " + t.stop_reason + "; " + std::to_string(t.steps) + " steps; loss " + t.loss + "\n";
+    }
+
+    if (m.plan) {
+        const tenon::measured_plan& p = *m.plan;
+        s += "\nTarget\n";
+        if (!p.has_target()) {
+            s += "  none (the network's outputs are given as they are)\n";
+        } else if (p.target_type() == tenon::target_kind::classification) {
+            s += "  " + p.target_name() + ": classification into " + std::to_string(p.class_count()) + " classes: " +
+                 list_head(p.class_names(), 50, "classes") + "\n";
+        } else {
+            const tenon::scaling& ts = p.target_scaling();
+            s += "  " + p.target_name() + ": regression; trained on the " + tenon::to_string(ts.method) + "-scaled target (centre " +
+                 significant(ts.center) + ", spread " + significant(ts.spread) + "), predicted in its original units\n";
+        }
+        s += "\nInputs: " + std::to_string(p.input_columns().size()) + " columns -> " + std::to_string(p.feature_count()) + " features\n";
+        for (const auto& name : p.input_columns()) {
+            const tenon::column_kind kind = p.feature_kind(name);
+            s += "  " + name + " (" + tenon::to_string(kind) + ")\n";
+            std::string prep = "missing -> " + fill_text(p.feature_fill(name), kind);
+            if (p.feature_has_indicator(name)) prep += ", with a missing indicator";
+            if (kind == tenon::column_kind::categorical) {
+                const tenon::one_hot_layout& h = p.feature_categories(name);
+                s += "    categories   " + list_head(h.categories(), 20, "categories") + "\n";
+                prep += "; one-hot, unseen -> " + std::string(unseen_text(h.policy()));
+            } else {
+                const tenon::scaling& c = p.feature_scaling(name);
+                prep += "; " + std::string(tenon::to_string(c.method)) + " (centre " + significant(c.center) + ", spread " + significant(c.spread) + ")";
+            }
+            s += "    preparation  " + prep + "\n";
+            if (const tenon::feature_reference* r = reference_of(m, name)) {
+                std::string seen;
+                if (kind == tenon::column_kind::categorical) {
+                    std::vector<std::string> counts;
+                    for (const auto& c : r->categories) counts.push_back(c.first + " " + std::to_string(c.second));
+                    seen = list_head(counts, 20, "categories");
+                } else if (r->present > 0) {
+                    seen = column_value(kind, r->minimum) + " .. " + column_value(kind, r->maximum);
+                    if (r->deciles.size() == 11) seen += ", median " + column_value(kind, r->deciles[5]);
+                }
+                s += "    training     " + seen + (seen.empty() ? "" : "; ") + std::to_string(r->present) + " present, " +
+                     std::to_string(r->missing) + " missing\n";
+            }
+        }
+    }
+
+    s += "\nNetwork: " + std::to_string(m.architecture.children.size()) + " layers, " + std::to_string(m.parameter_values) + " parameter values\n";
+    describe_layers(m.architecture, 0, s);
+
+    if (m.metadata) {
+        s += "\nScores and training metrics\n";
+        for (const auto& kv : m.metadata->metrics) {
+            char buffer[96];
+            std::snprintf(buffer, sizeof buffer, "  %-24s ", kv.first.c_str());
+            s += buffer + significant(kv.second) + "\n";
+        }
+        s += "\nSettings\n";
+        for (const auto& kv : m.metadata->settings) {
+            char buffer[96];
+            std::snprintf(buffer, sizeof buffer, "  %-24s ", kv.first.c_str());
+            s += buffer + kv.second + "\n";
+        }
+    }
+    return s;
+}
+
+inline std::string inspect_json(const tenon::model_file_summary& m, const std::string& path) {
+    json_writer j;
+    j.open_object();
+    j.text("file", path).count("format_version", m.format_version).text("scalar", m.scalar_bytes == 8 ? "double" : "float").count("bytes", m.file_bytes);
+    j.open_array("sections");
+    for (const auto& sec : m.sections) j.open_object().text("id", sec.id).count("bytes", sec.length).close_object();
+    j.close_array();
+    j.count("replay_rows", m.replay_rows);
+    j.text("resumable", m.resumable ? "yes" : "no");
+    if (m.metadata) {
+        const tenon::training_metadata& t = *m.metadata;
+        j.open_object("provenance");
+        j.text("created", utc_text(t.created_unix_seconds)).number("created_unix_seconds", static_cast<double>(t.created_unix_seconds));
+        j.text("library_version", t.library_version).text("data_fingerprint", hex64(t.data_fingerprint)).count("seed", t.seed);
+        j.count("epochs_planned", t.epochs_planned).count("epochs_run", t.epochs_run).count("best_epoch", t.best_epoch).count("steps", t.steps);
+        j.count("training_rows", t.training_rows).count("validation_rows", t.validation_rows).count("dropped_rows", t.dropped_rows);
+        j.text("stop_reason", t.stop_reason).text("loss", t.loss);
+        j.close_object();
+    } else {
+        j.null("provenance");
+    }
+    if (m.plan) {
+        const tenon::measured_plan& p = *m.plan;
+        j.open_object("target");
+        if (p.has_target()) {
+            j.text("column", p.target_name());
+            j.text("task", p.target_type() == tenon::target_kind::classification ? "classification" : "regression");
+            if (p.target_type() == tenon::target_kind::classification) {
+                j.open_array("classes");
+                for (const auto& c : p.class_names()) j.text(nullptr, c);
+                j.close_array();
+            }
+        }
+        j.close_object();
+        j.count("features", p.feature_count());
+        j.open_array("inputs");
+        for (const auto& name : p.input_columns()) {
+            const tenon::column_kind kind = p.feature_kind(name);
+            j.open_object().text("column", name).text("kind", tenon::to_string(kind));
+            j.text("fill", fill_text(p.feature_fill(name), kind));
+            j.text("missing_indicator", p.feature_has_indicator(name) ? "yes" : "no");
+            if (kind == tenon::column_kind::categorical) {
+                j.open_array("categories");
+                for (const auto& c : p.feature_categories(name).categories()) j.text(nullptr, c);
+                j.close_array();
+                j.text("unseen", unseen_text(p.feature_categories(name).policy()));
+            } else {
+                const tenon::scaling& c = p.feature_scaling(name);
+                j.text("scaling", tenon::to_string(c.method)).number("centre", c.center).number("spread", c.spread);
+            }
+            if (const tenon::feature_reference* r = reference_of(m, name)) {
+                j.open_object("training").count("present", r->present).count("missing", r->missing);
+                if (kind == tenon::column_kind::categorical) {
+                    j.open_object("counts");
+                    for (const auto& c : r->categories) j.count(c.first.c_str(), c.second);
+                    j.close_object();
+                } else if (r->present > 0) {
+                    j.number("minimum", r->minimum).number("maximum", r->maximum);
+                }
+                j.close_object();
+            }
+            j.close_object();
+        }
+        j.close_array();
+    }
+    j.open_object("network").count("parameter_values", m.parameter_values);
+    layers_json(j, m.architecture);
+    j.close_object();
+    if (m.metadata) {
+        j.open_object("metrics");
+        for (const auto& kv : m.metadata->metrics) j.number(kv.first.c_str(), kv.second);
+        j.close_object();
+        j.open_object("settings");
+        for (const auto& kv : m.metadata->settings) j.text(kv.first.c_str(), kv.second);
+        j.close_object();
+    }
+    j.close_object();
+    return j.finish();
+}
+
+}  // namespace detail
+
+inline int run_inspect(const std::vector<std::string>& args, std::ostream& out, std::ostream& err, const cli_environment& env) {
+    (void)err;
+    (void)env;
+    const inspect_request q = parse_inspect_request(args);
+    if (q.help) {
+        out << inspect_help();
+        return exit_success;
+    }
+    const tenon::model_file_summary m = tenon::inspect_model_file(q.model_path);
+    out << (q.json ? detail::inspect_json(m, q.model_path) : detail::inspect_text(m, q.model_path));
+    return exit_success;
 }
 
 // ---------------------------------------------------------------------------
@@ -1221,6 +2014,8 @@ struct subcommand {
 inline const std::vector<subcommand>& subcommands() {
     static const std::vector<subcommand> table{
         {"train", "train a perceptron on a CSV file and score it on held-out rows", &run_train},
+        {"infer", "predict with a saved model, one output row per CSV row", &run_infer},
+        {"inspect", "describe a saved model: inputs, classes, layers, scores, provenance", &run_inspect},
     };
     return table;
 }

@@ -1,0 +1,577 @@
+// Tests of the model commands of the `tenon` tool (examples/cli/cli.hpp), run
+// in process: `tenon train --model`, `tenon infer` and `tenon inspect`. The
+// predictions of `tenon infer` are compared bit for bit with the trainer's
+// own path (the stored plan applied to the table, the rebuilt network's
+// outputs, softmax or the target's inverse scaling); every error path checks
+// its exact message and that no output file is left behind.
+#include <doctest/doctest.h>
+
+#include <algorithm>
+#include <cmath>
+#include <cstdlib>
+#include <cstring>
+#include <filesystem>
+#include <fstream>
+#include <sstream>
+#include <string>
+#include <vector>
+
+#include <cli/cli.hpp>
+
+namespace fs = std::filesystem;
+
+namespace {
+
+struct cli_result {
+    int status = -1;
+    std::string out, err;
+};
+
+cli_result run(std::vector<std::string> args) {
+    args.insert(args.begin(), "tenon");
+    std::vector<char*> argv;
+    for (auto& a : args) argv.push_back(a.data());
+    std::ostringstream out, err;
+    tenon_cli::cli_environment env;
+    cli_result r;
+    r.status = tenon_cli::run_cli(static_cast<int>(argv.size()), argv.data(), out, err, env);
+    r.out = out.str();
+    r.err = err.str();
+    return r;
+}
+
+// A fresh, empty directory per test case.
+class scratch_dir {
+public:
+    explicit scratch_dir(const std::string& name) : path_(fs::temp_directory_path() / ("tenon_cli_model_tests_" + name)) {
+        fs::remove_all(path_);
+        fs::create_directories(path_);
+    }
+    ~scratch_dir() {
+        std::error_code ec;
+        fs::remove_all(path_, ec);
+    }
+    std::string file(const std::string& name) const { return (path_ / name).string(); }
+    std::string write(const std::string& name, const std::string& content) const {
+        std::ofstream(file(name), std::ios::binary) << content;
+        return file(name);
+    }
+    std::vector<std::string> listing() const {
+        std::vector<std::string> names;
+        for (const auto& e : fs::directory_iterator(path_)) names.push_back(e.path().filename().string());
+        std::sort(names.begin(), names.end());
+        return names;
+    }
+
+private:
+    fs::path path_;
+};
+
+std::string read_file(const std::string& path) {
+    std::ifstream in(path, std::ios::binary);
+    std::ostringstream s;
+    s << in.rdbuf();
+    return s.str();
+}
+
+// Every record of a CSV file as field texts (the header first), read with
+// the library's reader, so quoted fields come back unquoted.
+std::vector<std::vector<std::string>> read_records(const std::string& path) {
+    std::ifstream in(path, std::ios::binary);
+    tenon::csv_record_reader reader(in, ',', path);
+    std::vector<std::vector<std::string>> records;
+    while (reader.next()) {
+        records.emplace_back();
+        for (std::size_t k = 0; k < reader.field_count(); ++k) records.back().emplace_back(reader.field(k));
+    }
+    return records;
+}
+
+bool same_bits(float a, float b) {
+    std::uint32_t x, y;
+    std::memcpy(&x, &a, 4);
+    std::memcpy(&y, &b, 4);
+    return x == y;
+}
+
+// Invented: a filling line's cap check (tight or loose) from the closing
+// torque and angle, by shift; each cap has an id.
+std::string caps_csv(std::size_t rows, std::uint64_t seed) {
+    tenon::random_engine rng(seed);
+    std::string csv = "cap_id,torque,angle,shift,verdict\n";
+    for (std::size_t i = 0; i < rows; ++i) {
+        const double torque = rng.uniform(1.0, 3.0), angle = rng.uniform(200.0, 400.0);
+        const bool ok = torque * angle > 600.0;
+        csv += "C" + std::to_string(1000 + i) + "," + std::to_string(torque) + "," + std::to_string(angle) + "," + (i % 3 == 0 ? "night" : "day") +
+               "," + (ok ? "tight" : "loose") + "\n";
+    }
+    return csv;
+}
+
+// Invented: a motor's current from its speed (missing in some rows) and load.
+std::string motor_csv(std::size_t rows, std::uint64_t seed) {
+    tenon::random_engine rng(seed);
+    std::string csv = "speed,load,amps\n";
+    for (std::size_t i = 0; i < rows; ++i) {
+        const double speed = rng.uniform(500.0, 1500.0), load = rng.uniform(0.0, 1.0);
+        csv += (i % 17 == 0 ? std::string("NA") : std::to_string(speed)) + "," + std::to_string(load) + "," +
+               std::to_string(10.0 + 0.01 * speed * load + rng.normal(0.0, 0.2)) + "\n";
+    }
+    return csv;
+}
+
+// The table and holdout split `tenon train` uses for these arguments.
+struct tool_view {
+    tenon::table table;
+    tenon::holdout_split split;
+};
+
+tool_view split_like_the_tool(const std::vector<std::string>& train_args) {
+    const tenon_cli::train_request q = tenon_cli::parse_train_request(train_args);
+    tool_view v{tenon_cli::load_table(q), {}};
+    const tenon_cli::training_setup s = tenon_cli::make_setup(v.table, q);
+    v.split = tenon_cli::make_holdout(v.table, q, s);
+    return v;
+}
+
+// The trainer's path for every row of `t`: the stored plan, the rebuilt
+// network's outputs (train/trainer.hpp network_outputs), then softmax or the
+// inverse target scaling, as predict_prepared in train/workflow.hpp does.
+tenon::matrix<float> trainer_predictions(const std::string& model_path, const tenon::table& t) {
+    const tenon::model_file<float> file = tenon::load_model_file<float>(model_path);
+    tenon::network<float> net = tenon::rebuild_network(file);
+    std::vector<std::size_t> rows(t.row_count());
+    for (std::size_t r = 0; r < rows.size(); ++r) rows[r] = r;
+    tenon::matrix<float> features;
+    file.plan->apply_features(t, rows, features);
+    tenon::matrix<float> out = tenon::network_outputs(net, features);
+    if (file.plan->target_type() == tenon::target_kind::classification) return tenon::softmax_rows(out);
+    for (std::size_t k = 0; k < out.size(); ++k) out.data()[k] = static_cast<float>(file.plan->restore_target(static_cast<double>(out.data()[k])));
+    return out;
+}
+
+}  // namespace
+
+// ---------------------------------------------------------------------------
+// train --model, then infer
+
+TEST_CASE("infer reproduces the trained classifier's predictions to the last bit and its test accuracy exactly") {
+    scratch_dir dir("classify_roundtrip");
+    const auto data = dir.write("caps.csv", caps_csv(400, 21));
+    const std::vector<std::string> train_args{"--data", data, "--target", "verdict", "--ignore", "cap_id", "--epochs", "25", "--seed", "7"};
+    std::vector<std::string> train{"train"};
+    train.insert(train.end(), train_args.begin(), train_args.end());
+    train.insert(train.end(), {"--model", dir.file("caps.tnm"), "--quiet"});
+    const auto t = run(train);
+    REQUIRE(t.status == 0);
+    CHECK(t.out.empty());
+    CHECK(dir.listing() == std::vector<std::string>{"caps.csv", "caps.tnm"});
+
+    const auto r = run({"infer", "--model", dir.file("caps.tnm"), "--data", data, "--out", dir.file("p.csv"), "--keep", "cap_id"});
+    REQUIRE(r.status == 0);
+    CHECK(r.err.empty());
+    CHECK(r.out.rfind("predicted 400 rows (", 0) == 0);
+    const auto records = read_records(dir.file("p.csv"));
+    REQUIRE(records.size() == 401);
+    const tenon::model_file<float> file = tenon::load_model_file<float>(dir.file("caps.tnm"));
+    const std::vector<std::string> classes = file.plan->class_names();
+    REQUIRE(classes.size() == 2);
+    CHECK(records[0] == std::vector<std::string>{"cap_id", "predicted", "p(" + classes[0] + ")", "p(" + classes[1] + ")", "out_of_range"});
+
+    const tool_view v = split_like_the_tool(train_args);
+    const tenon::matrix<float> expected = trainer_predictions(dir.file("caps.tnm"), v.table);
+    std::size_t mismatches = 0;
+    for (std::size_t i = 0; i < 400; ++i) {
+        const auto& row = records[i + 1];
+        REQUIRE(row.size() == 5);
+        CHECK(row[0] == "C" + std::to_string(1000 + i));
+        for (std::size_t c = 0; c < 2; ++c) mismatches += same_bits(std::strtof(row[2 + c].c_str(), nullptr), expected(i, c)) ? 0 : 1;
+        CHECK(row[1] == classes[expected(i, 1) > expected(i, 0) ? 1 : 0]);
+    }
+    CHECK(mismatches == 0);
+
+    // The test rows' accuracy from infer's output is the one train stored.
+    const tenon::column& verdict = v.table.at("verdict");
+    std::size_t correct = 0;
+    for (auto row : v.split.test) correct += records[row + 1][1] == verdict.category(row) ? 1 : 0;
+    const double accuracy = static_cast<double>(correct) / static_cast<double>(v.split.test.size());
+    REQUIRE(file.metadata.has_value());
+    CHECK(accuracy == file.metadata->metric("test_accuracy"));
+    CHECK(file.metadata->metric("test_rows") == static_cast<double>(v.split.test.size()));
+    CHECK(file.metadata->metric("test_accuracy") > 0.8);
+    CHECK(std::isfinite(file.metadata->metric("validation_log_loss")));
+    CHECK(file.metadata->seed == 7);
+    CHECK(file.metadata->epochs_planned == 25);
+    CHECK(file.metadata->training_rows == v.split.train.size());
+    CHECK(file.metadata->data_fingerprint == tenon::training_fingerprint(v.table, v.split.train));
+    CHECK(file.replay.has_value());
+    CHECK(file.references.size() == 3);  // torque, angle, shift: cap_id is ignored
+}
+
+TEST_CASE("infer reproduces a regression model's values in the target's units and its test RMSE") {
+    scratch_dir dir("regress_roundtrip");
+    const auto data = dir.write("motor.csv", motor_csv(300, 33));
+    const std::vector<std::string> train_args{"--data", data, "--target", "amps", "--epochs", "30"};
+    std::vector<std::string> train{"train"};
+    train.insert(train.end(), train_args.begin(), train_args.end());
+    train.insert(train.end(), {"--model", dir.file("motor.tnm"), "--metrics", dir.file("m.json"), "--quiet"});
+    REQUIRE(run(train).status == 0);
+    const auto r = run({"infer", "--model", dir.file("motor.tnm"), "--data", data, "--out", dir.file("p.csv"), "--quiet"});
+    REQUIRE(r.status == 0);
+    CHECK(r.out.empty());
+    const auto records = read_records(dir.file("p.csv"));
+    REQUIRE(records.size() == 301);
+    CHECK(records[0] == std::vector<std::string>{"predicted", "out_of_range"});
+
+    const tool_view v = split_like_the_tool(train_args);
+    const tenon::matrix<float> expected = trainer_predictions(dir.file("motor.tnm"), v.table);
+    std::size_t mismatches = 0;
+    for (std::size_t i = 0; i < 300; ++i) mismatches += same_bits(std::strtof(records[i + 1][0].c_str(), nullptr), expected(i, 0)) ? 0 : 1;
+    CHECK(mismatches == 0);
+
+    // RMSE over the test rows (Hyndman & Koehler 2006, section 3.1) from the
+    // written values. The truth is taken as evaluate_model takes it: the
+    // target scaled in float by the plan, then restored to amps.
+    const tenon::model_file<float> file = tenon::load_model_file<float>(dir.file("motor.tnm"));
+    const tenon::prepared_rows<float> truth = file.plan->apply<float>(v.table, v.split.test);
+    REQUIRE(truth.rows.size() == v.split.test.size());
+    double squares = 0;
+    for (std::size_t i = 0; i < truth.rows.size(); ++i) {
+        const double e = static_cast<double>(std::strtof(records[truth.rows[i] + 1][0].c_str(), nullptr)) -
+                         file.plan->restore_target(static_cast<double>(truth.targets(i, 0)));
+        squares += e * e;
+    }
+    const double rmse = std::sqrt(squares / static_cast<double>(truth.rows.size()));
+    CHECK(rmse == doctest::Approx(file.metadata->metric("test_rmse")).epsilon(1e-12));
+    CHECK(std::isfinite(file.metadata->metric("test_r2")));
+    CHECK(std::isfinite(file.metadata->metric("validation_mae")));
+}
+
+TEST_CASE("infer keeps columns, takes columns in any order, ignores extra ones and flags cells outside the training range") {
+    scratch_dir dir("keep_and_flags");
+    const auto data = dir.write("caps.csv", caps_csv(300, 5));
+    REQUIRE(run({"train", "--data", data, "--target", "verdict", "--ignore", "cap_id", "--epochs", "10", "--model", dir.file("caps.tnm"), "--quiet"})
+                .status == 0);
+    // The same four rows twice: in the training file's column order, and
+    // shuffled with an extra column and ids that need quoting.
+    const std::string rows[] = {"2.1,300,day", "2.0,450,night", "0.5,250,evening", "2.5,,day"};
+    std::string plain = "torque,angle,shift\n", shuffled = "note,shift,id,angle,torque\n";
+    const std::string ids[] = {"A1", "B,2", "C\"3\"", ""};
+    for (std::size_t i = 0; i < 4; ++i) {
+        plain += rows[i] + "\n";
+        const auto cells = tenon_cli::detail::split_list(rows[i]);
+        std::string id = ids[i];
+        if (id.find_first_of(",\"") != std::string::npos) {
+            std::string quoted = "\"";
+            for (char c : id) quoted += c == '"' ? std::string("\"\"") : std::string(1, c);
+            id = quoted + "\"";
+        }
+        shuffled += "n" + std::to_string(i) + "," + cells[2] + "," + id + "," + cells[1] + "," + cells[0] + "\n";
+    }
+    dir.write("plain.csv", plain);
+    dir.write("shuffled.csv", shuffled);
+    REQUIRE(run({"infer", "--model", dir.file("caps.tnm"), "--data", dir.file("plain.csv"), "--out", dir.file("a.csv"), "--quiet"}).status == 0);
+    REQUIRE(run({"infer", "--model", dir.file("caps.tnm"), "--data", dir.file("shuffled.csv"), "--out", dir.file("b.csv"), "--keep", "id,note",
+                 "--quiet"})
+                .status == 0);
+    const auto a = read_records(dir.file("a.csv")), b = read_records(dir.file("b.csv"));
+    REQUIRE(a.size() == 5);
+    REQUIRE(b.size() == 5);
+    CHECK(b[0][0] == "id");
+    CHECK(b[0][1] == "note");
+    for (std::size_t i = 1; i < 5; ++i) {
+        CHECK(b[i][0] == ids[i - 1]);
+        CHECK(b[i][1] == "n" + std::to_string(i - 1));
+        CHECK(std::vector<std::string>(b[i].begin() + 2, b[i].end()) == a[i]);  // same predictions and flags
+    }
+    // The written file quotes the id with a comma and doubles inner quotes (RFC 4180).
+    const std::string written = read_file(dir.file("b.csv"));
+    CHECK(written.find("\n\"B,2\",n1,") != std::string::npos);
+    CHECK(written.find("\n\"C\"\"3\"\"\",n2,") != std::string::npos);
+    // Training held torque 1..3, angle 200..400 and the shifts day and night.
+    const std::size_t flags = a[0].size() - 1;
+    CHECK(a[0][flags] == "out_of_range");
+    CHECK(a[1][flags].empty());
+    CHECK(a[2][flags] == "angle:above");
+    CHECK(a[3][flags] == "torque:below;shift:unseen");
+    CHECK(a[4][flags].empty());  // a missing cell is filled, not flagged
+    // Probabilities of a row sum to 1 (to float rounding).
+    for (std::size_t i = 1; i < 5; ++i)
+        CHECK(std::strtod(a[i][1].c_str(), nullptr) + std::strtod(a[i][2].c_str(), nullptr) == doctest::Approx(1.0).epsilon(1e-6));
+}
+
+TEST_CASE("infer on a file with a header only writes a header only") {
+    scratch_dir dir("header_only");
+    const auto data = dir.write("caps.csv", caps_csv(200, 9));
+    REQUIRE(run({"train", "--data", data, "--target", "verdict", "--ignore", "cap_id", "--epochs", "5", "--model", dir.file("caps.tnm"), "--quiet"})
+                .status == 0);
+    dir.write("empty.csv", "cap_id,torque,angle,shift\n");
+    const auto r = run({"infer", "--model", dir.file("caps.tnm"), "--data", dir.file("empty.csv"), "--out", dir.file("p.csv"), "--keep", "cap_id"});
+    REQUIRE(r.status == 0);
+    CHECK(r.out == "predicted 0 rows (0 with inputs outside the training range) into " + dir.file("p.csv") + "\n");
+    const auto classes = tenon::load_model_file<float>(dir.file("caps.tnm")).plan->class_names();
+    CHECK(read_file(dir.file("p.csv")) == "cap_id,predicted,p(" + classes[0] + "),p(" + classes[1] + "),out_of_range\n");
+}
+
+TEST_CASE("infer reads a model saved in double precision by a host") {
+    scratch_dir dir("double_model");
+    const auto data = dir.write("motor.csv", motor_csv(200, 4));
+    const tenon::table t = tenon::read_csv_file(data);
+    tenon::plan recipe;
+    recipe.set_target("amps", tenon::target_kind::regression);
+    tenon::feature_steps filled;
+    filled.fill = tenon::fill_method::median;
+    filled.missing_indicator = true;
+    recipe.set_steps("speed", filled);
+    std::vector<std::size_t> train(150), validation(50);
+    for (std::size_t r = 0; r < 150; ++r) train[r] = r;
+    for (std::size_t r = 0; r < 50; ++r) validation[r] = 150 + r;
+    tenon::model_settings settings;
+    settings.hidden = {8};
+    settings.epochs = 5;
+    tenon::fitted_model<double> model = tenon::fit_model<double>(t, recipe, train, validation, settings);
+    tenon::save_model_file(dir.file("host.tnm"), tenon::make_model_file(model, t, train, settings));
+    const auto r = run({"infer", "--model", dir.file("host.tnm"), "--data", data, "--out", dir.file("p.csv"), "--quiet"});
+    REQUIRE(r.status == 0);
+    const auto records = read_records(dir.file("p.csv"));
+    REQUIRE(records.size() == 201);
+    const tenon::matrix<double> expected = tenon::predict_prepared(model, model.plan.apply<double>(t, {0, 1, 2}).features);
+    for (std::size_t i = 0; i < 3; ++i) CHECK(std::strtod(records[i + 1][0].c_str(), nullptr) == expected(i, 0));  // shortest double text reads back exactly
+    const auto inspected = run({"inspect", "--model", dir.file("host.tnm")});
+    CHECK(inspected.out.find("double weights") != std::string::npos);
+}
+
+// ---------------------------------------------------------------------------
+// inspect
+
+TEST_CASE("inspect shows the inputs, classes, layers, parameter count, scores and provenance") {
+    scratch_dir dir("inspect");
+    const auto data = dir.write("caps.csv", caps_csv(300, 8));
+    REQUIRE(run({"train", "--data", data, "--target", "verdict", "--ignore", "cap_id", "--epochs", "12", "--hidden", "16,8", "--seed", "42",
+                 "--model", dir.file("caps.tnm"), "--quiet"})
+                .status == 0);
+    const auto r = run({"inspect", "--model", dir.file("caps.tnm")});
+    REQUIRE(r.status == 0);
+    CHECK(r.err.empty());
+    const std::string& s = r.out;
+    const tenon::model_file_summary m = tenon::inspect_model_file(dir.file("caps.tnm"));
+    // 4 features (torque, angle, day and night) -> 16 -> 8 -> 2 classes: weights and biases.
+    CHECK(m.parameter_values == 4 * 16 + 16 + 16 * 8 + 8 + 8 * 2 + 2);
+    for (const std::string& expected : std::vector<std::string>{
+             "tenon model file, format version 1, float weights", "verdict: classification into 2 classes: loose, tight",
+          "Inputs: 3 columns -> 4 features", "  torque (numeric)", "  angle (numeric)", "  shift (categorical)", "categories   day, night",
+          "one-hot, unseen -> all zeros", "z-score", "Network: 5 layers, " + std::to_string(m.parameter_values) + " parameter values",
+          "hidden1          dense        4 -> 16", "hidden1_act      activation   relu", "hidden2          dense        16 -> 8",
+          "output           dense        8 -> 2", "test_accuracy", "validation_accuracy", "seed         42", "library      tenon " +
+          std::string(tenon::version_string()), "data         caps.csv, fingerprint 0x", "epochs       ", " of 12, best ", " UTC", "hidden                   16,8"}) {
+        CAPTURE(expected);
+        CHECK(s.find(expected) != std::string::npos);
+    }
+    CHECK(s.find("cap_id") == std::string::npos);  // ignored columns are not inputs
+    // The training range of each numeric input, as stored.
+    for (const auto& ref : m.references)
+        if (ref.kind == tenon::column_kind::numeric)
+            CHECK(s.find(tenon_cli::detail::significant(ref.minimum) + " .. " + tenon_cli::detail::significant(ref.maximum)) != std::string::npos);
+
+    const auto j = run({"inspect", "--model", dir.file("caps.tnm"), "--json"});
+    REQUIRE(j.status == 0);
+    for (const std::string& expected : std::vector<std::string>{"\"task\": \"classification\"", "\"classes\": [\n      \"loose\",\n      \"tight\"\n    ]",
+                                       "\"column\": \"shift\"", "\"parameter_values\": " + std::to_string(m.parameter_values), "\"seed\": 42",
+                                       "\"name\": \"hidden2\"", "\"outputs\": 8", "\"test_accuracy\": "}) {
+        CAPTURE(expected);
+        CHECK(j.out.find(expected) != std::string::npos);
+    }
+}
+
+TEST_CASE("creation times are shown in UTC by the civil calendar") {
+    CHECK(tenon_cli::detail::utc_text(0) == "1970-01-01 00:00:00 UTC");
+    CHECK(tenon_cli::detail::utc_text(951782400) == "2000-02-29 00:00:00 UTC");  // a leap day of a year divisible by 400
+    CHECK(tenon_cli::detail::utc_text(1700000000) == "2023-11-14 22:13:20 UTC");
+    CHECK(tenon_cli::detail::utc_text(-1) == "1969-12-31 23:59:59 UTC");
+}
+
+// ---------------------------------------------------------------------------
+// Errors: status 2 (3 for an output that cannot be written), one line, no
+// output file left behind
+
+namespace {
+
+// A directory with data and a trained model, shared by the error tests.
+struct trained {
+    scratch_dir dir;
+    std::string data, model;
+    explicit trained(const std::string& name) : dir(name) {
+        data = dir.write("caps.csv", caps_csv(200, 3));
+        model = dir.file("caps.tnm");
+        REQUIRE(run({"train", "--data", data, "--target", "verdict", "--ignore", "cap_id", "--epochs", "5", "--model", model, "--quiet"}).status == 0);
+    }
+};
+
+void check_failure(const scratch_dir& dir, const std::vector<std::string>& args, const std::string& expected_err, int status = 2) {
+    const auto before = dir.listing();
+    const auto r = run(args);
+    CHECK(r.status == status);
+    CHECK(r.err == expected_err);
+    CHECK(r.out.empty());
+    CHECK(dir.listing() == before);
+}
+
+}  // namespace
+
+TEST_CASE("a missing or damaged model file is named; nothing is written") {
+    trained t("damaged");
+    const auto out = t.dir.file("p.csv");
+    const auto absent = t.dir.file("absent.tnm");
+    check_failure(t.dir, {"infer", "--model", absent, "--data", t.data, "--out", out},
+                  "tenon infer: error: [deploy.file.io] cannot open '" + absent + "' for reading\n");
+    check_failure(t.dir, {"inspect", "--model", absent}, "tenon inspect: error: [deploy.file.io] cannot open '" + absent + "' for reading\n");
+
+    // One byte flipped inside the weights: the section's CRC-32 catches it.
+    std::string bytes = read_file(t.model);
+    const tenon::model_file_summary m = tenon::inspect_model_file(t.model);
+    std::uint64_t weights_at = 0;
+    for (const auto& s : m.sections)
+        if (s.id == "WGHT") weights_at = s.offset + s.length / 2;
+    REQUIRE(weights_at > 0);
+    bytes[weights_at] = static_cast<char>(bytes[weights_at] ^ 0x10);
+    const auto damaged = t.dir.write("damaged.tnm", bytes);
+    const std::string message = "[deploy.model.checksum] " + damaged + ": section 'WGHT' fails its checksum (the file is damaged)\n";
+    check_failure(t.dir, {"infer", "--model", damaged, "--data", t.data, "--out", out}, "tenon infer: error: " + message);
+    check_failure(t.dir, {"inspect", "--model", damaged}, "tenon inspect: error: " + message);
+    // A CSV file given as the model.
+    check_failure(t.dir, {"inspect", "--model", t.data}, "tenon inspect: error: [deploy.model.magic] " + t.data +
+                                                             ": not a tenon model file (the first bytes are not the tenon model magic)\n");
+}
+
+TEST_CASE("infer names a column the model reads that the data lacks, and an unknown --keep column") {
+    trained t("columns");
+    const auto data = t.dir.write("new.csv", "angle,torque,cap_id\n300,2,x\n");
+    const auto out = t.dir.file("p.csv");
+    check_failure(t.dir, {"infer", "--model", t.model, "--data", data, "--out", out},
+                  "tenon infer: error: [cli.column.missing] " + data + ": the model reads column 'shift', which the data does not have (columns: angle, "
+                                                                       "torque, cap_id)\n");
+    const auto fewer = t.dir.write("fewer.csv", "angle\n300\n");
+    check_failure(t.dir, {"infer", "--model", t.model, "--data", fewer, "--out", out},
+                  "tenon infer: error: [cli.column.missing] " + fewer + ": the model reads columns 'torque', 'shift', which the data does not have "
+                                                                        "(columns: angle)\n");
+    check_failure(t.dir, {"infer", "--model", t.model, "--data", t.data, "--out", out, "--keep", "cap_id,capid"},
+                  "tenon infer: error: [cli.column.unknown] " + t.data + ": --keep names 'capid', which is not a column (columns: cap_id, torque, "
+                                                                         "angle, shift, verdict)\n");
+}
+
+TEST_CASE("a cell that cannot be predicted fails the whole command with file, line, column and value; an old output stays") {
+    trained t("bad_cell");
+    const auto out = t.dir.write("p.csv", "old predictions\n");
+    // Line 70 (the header is line 1) is past the first batch of 64 rows, so
+    // the first batch was already written to the temporary file.
+    std::string csv = "shift,cap_id,angle,torque\n";
+    for (int i = 0; i < 80; ++i) csv += std::string(i % 2 ? "day" : "night") + ",C" + std::to_string(i) + "," + (i == 68 ? "3O5" : "300") + ",2.0\n";
+    const auto typo = t.dir.write("typo.csv", csv);
+    check_failure(t.dir, {"infer", "--model", t.model, "--data", typo, "--out", out},
+                  "tenon infer: error: [deploy.input.not_numeric] " + typo + " line 70 column 3 ('angle'): '3O5' is not a finite number\n");
+    const auto huge = t.dir.write("huge.csv", "torque,angle,shift\n2,300,day\n1e308,300,day\n");
+    check_failure(t.dir, {"infer", "--model", t.model, "--data", huge, "--out", out},
+                  "tenon infer: error: [deploy.input.non_finite] " + huge +
+                      " line 3 column 1 ('torque'): '1e308' is beyond what the model computes with (its prepared value is not finite)\n");
+    const auto ragged = t.dir.write("ragged.csv", "torque,angle,shift\n2,300,day\n2,300\n");
+    check_failure(t.dir, {"infer", "--model", t.model, "--data", ragged, "--out", out},
+                  "tenon infer: error: [prep.csv.ragged] " + ragged + " line 3: expected 3 fields, found 2\n");
+    const auto twice = t.dir.write("twice.csv", "torque,angle,shift,angle\n2,300,day,300\n");
+    check_failure(t.dir, {"infer", "--model", t.model, "--data", twice, "--out", out},
+                  "tenon infer: error: [prep.csv.duplicate_column] " + twice + " line 1 column 4: the name 'angle' is used twice in the header\n");
+    const auto empty = t.dir.write("empty.csv", "");
+    check_failure(t.dir, {"infer", "--model", t.model, "--data", empty, "--out", out},
+                  "tenon infer: error: [prep.csv.no_header] " + empty + ": no header row (the input is empty)\n");
+    const auto absent = t.dir.file("absent.csv");
+    check_failure(t.dir, {"infer", "--model", t.model, "--data", absent, "--out", out},
+                  "tenon infer: error: [prep.file.open] " + absent + ": cannot open for reading\n");
+    CHECK(read_file(out) == "old predictions\n");
+}
+
+TEST_CASE("an --out file that cannot be created fails with status 3") {
+    trained t("unwritable");
+    const auto out = t.dir.file("no_such_dir/p.csv");
+    check_failure(t.dir, {"infer", "--model", t.model, "--data", t.data, "--out", out},
+                  "tenon infer: error: [cli.output.write] --out '" + out + "': cannot create a file in that directory\n", tenon_cli::exit_output_failed);
+}
+
+TEST_CASE("bad command lines of infer and inspect are named") {
+    scratch_dir dir("infer_options");
+    const auto m = dir.file("m.tnm"), d = dir.file("d.csv"), o = dir.file("o.csv");
+    const std::string infer = "tenon infer: error: ";
+    check_failure(dir, {"infer", "--data", d, "--out", o}, infer + "[cli.option.missing] tenon infer needs --model MODEL.tnm\n");
+    check_failure(dir, {"infer", "--model", m, "--out", o}, infer + "[cli.option.missing] tenon infer needs --data FILE.csv\n");
+    check_failure(dir, {"infer", "--model", m, "--data", d}, infer + "[cli.option.missing] tenon infer needs --out PREDICTIONS.csv\n");
+    check_failure(dir, {"infer", "--model", m, "--data", d, "--out", d}, infer + "[cli.option.conflict] --out and --data name the same file '" + d + "'\n");
+    check_failure(dir, {"infer", "--model", m, "--data", d, "--out", m}, infer + "[cli.option.conflict] --out and --model name the same file '" + m + "'\n");
+    check_failure(dir, {"infer", "--model", m, "--data", d, "--out", o, "--keep", "id,,x"}, infer + "[cli.option.value] --keep 'id,,x': an empty column name\n");
+    check_failure(dir, {"infer", "--model", m, "--data", d, "--out", o, "--keep", "id,x,id"}, infer + "[cli.option.conflict] --keep names 'id' twice\n");
+    check_failure(dir, {"infer", "--model", m, "--model", m}, infer + "[cli.option.conflict] --model is given more than once\n");
+    check_failure(dir, {"infer", "--model"}, infer + "[cli.option.missing] --model needs a value\n");
+    check_failure(dir, {"infer", "--model="}, infer + "[cli.option.value] --model needs a file name, got an empty one\n");
+    check_failure(dir, {"infer", "--modle", m}, infer + "[cli.option.unknown] unknown option '--modle' for 'tenon infer' (see tenon infer --help)\n");
+    check_failure(dir, {"infer", "m.tnm"},
+                  infer + "[cli.option.unknown] unexpected argument 'm.tnm' for 'tenon infer' (options start with --; see tenon infer --help)\n");
+    check_failure(dir, {"infer", "--quiet=yes"}, infer + "[cli.option.value] --quiet takes no value\n");
+    const std::string inspect = "tenon inspect: error: ";
+    check_failure(dir, {"inspect"}, inspect + "[cli.option.missing] tenon inspect needs --model MODEL.tnm\n");
+    check_failure(dir, {"inspect", "--model", m, "--json=1"}, inspect + "[cli.option.value] --json takes no value\n");
+    check_failure(dir, {"inspect", "--model", m, "--data", d},
+                  inspect + "[cli.option.unknown] unknown option '--data' for 'tenon inspect' (see tenon inspect --help)\n");
+}
+
+TEST_CASE("train --model: refused with --folds or a clashing path; not written when training fails or the directory is missing") {
+    scratch_dir dir("train_model_errors");
+    const auto data = dir.write("caps.csv", caps_csv(120, 2));
+    const auto model = dir.file("caps.tnm");
+    const std::string train = "tenon train: error: ";
+    check_failure(dir, {"train", "--data", data, "--target", "verdict", "--folds", "3", "--model", model},
+                  train + "[cli.option.conflict] --model saves the model of one holdout run; cross-validation (--folds 3) trains one model per fold and "
+                          "saves none\n");
+    check_failure(dir, {"train", "--data", data, "--target", "verdict", "--model", model, "--metrics", model},
+                  train + "[cli.option.conflict] --metrics and --model name the same file '" + model + "'\n");
+    check_failure(dir, {"train", "--data", data, "--target", "verdict", "--model", data},
+                  train + "[cli.option.conflict] --model and --data name the same file '" + data + "'\n");
+    check_failure(dir, {"train", "--data", data, "--target", "verdict", "--model="}, train + "[cli.option.value] --model needs a file name, got an empty one\n");
+    const auto nowhere = dir.file("no_such_dir/caps.tnm");
+    check_failure(dir, {"train", "--data", data, "--target", "verdict", "--model", nowhere},
+                  train + "[cli.output.write] --model '" + nowhere + "': cannot create a file in that directory\n", tenon_cli::exit_output_failed);
+    const auto one = dir.write("one.csv", "torque,verdict\n1.5,tight\n2.5,tight\n");
+    check_failure(dir, {"train", "--data", one, "--target", "verdict", "--model", model, "--metrics", dir.file("m.json")},
+                  train + "[cli.target.single_class] " + one + ": the target 'verdict' has a single class ('tight') in all 2 rows with a target; "
+                                                               "classification needs at least 2\n");
+}
+
+TEST_CASE("train --model reports the saved file and replaces an older model") {
+    scratch_dir dir("train_model_summary");
+    const auto data = dir.write("caps.csv", caps_csv(150, 12));
+    const auto model = dir.write("caps.tnm", "an older file");
+    const auto r = run({"train", "--data", data, "--target", "verdict", "--epochs", "3", "--model", model});
+    REQUIRE(r.status == 0);
+    CHECK(r.out.find("model written to " + model + "\n") != std::string::npos);
+    CHECK(tenon::inspect_model_file(model).metadata->epochs_planned == 3);
+    CHECK(dir.listing() == std::vector<std::string>{"caps.csv", "caps.tnm"});
+}
+
+// ---------------------------------------------------------------------------
+// Help
+
+TEST_CASE("infer and inspect explain their options; tenon --help lists all commands") {
+    const auto infer = run({"infer", "--help"});
+    CHECK(infer.status == 0);
+    for (const char* text : {"  --model ", "  --data ", "  --out ", "  --keep ", "  --quiet ", "  predicted ", "  p(CLASS) ", "  out_of_range ",
+                             "COLUMN:below", "COLUMN:above", "COLUMN:unseen", "line, column and value", "no --out file is created"}) {
+        CAPTURE(std::string(text));
+        CHECK(infer.out.find(text) != std::string::npos);
+    }
+    const auto inspect = run({"inspect", "--help"});
+    CHECK(inspect.status == 0);
+    CHECK(inspect.out.find("  --json ") != std::string::npos);
+    CHECK(run({"help", "infer"}).out == tenon_cli::infer_help());
+    const auto help = run({"--help"});
+    for (const char* text : {"  train    train a perceptron", "  infer    predict with a saved model", "  inspect  describe a saved model"}) {
+        CAPTURE(std::string(text));
+        CHECK(help.out.find(text) != std::string::npos);
+    }
+    CHECK(run({"train", "--help"}).out.find("  --model OUT.tnm ") != std::string::npos);
+}
