@@ -376,7 +376,7 @@ TEST_CASE("inspect shows the inputs, classes, layers, parameter count, scores an
     const auto j = run({"inspect", "--model", dir.file("caps.tnm"), "--json"});
     REQUIRE(j.status == 0);
     for (const std::string& expected : std::vector<std::string>{"\"task\": \"classification\"", "\"classes\": [\n      \"loose\",\n      \"tight\"\n    ]",
-                                       "\"column\": \"shift\"", "\"parameter_values\": " + std::to_string(m.parameter_values), "\"seed\": 42",
+                                       "\"column\": \"shift\"", "\"resumable\": false", "\"missing_indicator\": false", "\"parameter_values\": " + std::to_string(m.parameter_values), "\"seed\": 42",
                                        "\"name\": \"hidden2\"", "\"outputs\": 8", "\"test_accuracy\": "}) {
         CAPTURE(expected);
         CHECK(j.out.find(expected) != std::string::npos);

@@ -805,6 +805,11 @@ public:
         out_ += std::to_string(value);
         return *this;
     }
+    json_writer& boolean(const char* key, bool value) {
+        member(key);
+        out_ += value ? "true" : "false";
+        return *this;
+    }
     json_writer& null(const char* key) {
         member(key);
         out_ += "null";
@@ -1915,7 +1920,7 @@ inline std::string inspect_json(const tenon::model_file_summary& m, const std::s
     for (const auto& sec : m.sections) j.open_object().text("id", sec.id).count("bytes", sec.length).close_object();
     j.close_array();
     j.count("replay_rows", m.replay_rows);
-    j.text("resumable", m.resumable ? "yes" : "no");
+    j.boolean("resumable", m.resumable);
     if (m.metadata) {
         const tenon::training_metadata& t = *m.metadata;
         j.open_object("provenance");
@@ -1947,7 +1952,7 @@ inline std::string inspect_json(const tenon::model_file_summary& m, const std::s
             const tenon::column_kind kind = p.feature_kind(name);
             j.open_object().text("column", name).text("kind", tenon::to_string(kind));
             j.text("fill", fill_text(p.feature_fill(name), kind));
-            j.text("missing_indicator", p.feature_has_indicator(name) ? "yes" : "no");
+            j.boolean("missing_indicator", p.feature_has_indicator(name));
             if (kind == tenon::column_kind::categorical) {
                 j.open_array("categories");
                 for (const auto& c : p.feature_categories(name).categories()) j.text(nullptr, c);
