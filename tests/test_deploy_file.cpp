@@ -101,12 +101,17 @@ TEST_CASE_TEMPLATE("a model file round-trips every section exactly", T, float, d
     CHECK(back.replay->rows() == 5);
     CHECK(back.replay->cells == m.replay->cells);
     CHECK(back.replay->columns == std::vector<std::string>{"flow", "head", "fluid", "power", "condition"});
+    CHECK(back.replay->rows_seen == 90);  // the reservoir's state (section RSVR)
+    CHECK(back.replay->capacity == 5);
+    REQUIRE(back.replay->engine);
+    CHECK(back.replay->engine->words == m.replay->engine->words);
     CHECK(tenon::model_file_to_bytes(back) == bytes);  // a second save writes the same bytes
     // The file header says which scalar type the weights have.
     CHECK(bytes[16] == sizeof(T));
     const auto summary = tenon::inspect_model_bytes(bytes);
     CHECK(summary.scalar_bytes == sizeof(T));
-    CHECK(summary.sections.size() == 6);
+    CHECK(summary.sections.size() == 7);  // ARCH WGHT PLAN META REFS RPLY RSVR
+    CHECK(summary.replay_rows_seen == 90);
     CHECK(summary.replay_rows == 5);
 }
 

@@ -135,7 +135,12 @@
       "a call passed more rows than the predictor's capacity or a wrong number of values")     \
     X(deploy_holder_empty, "deploy.holder.empty", "a predictor holder was read before a predictor was stored") \
     X(deploy_resume_mismatch, "deploy.resume.mismatch",                                        \
-      "a saved training state does not fit the network, rows or update rule it is resumed with")
+      "a saved training state does not fit the network, rows or update rule it is resumed with") \
+    X(deploy_retrain_option, "deploy.retrain.option", "a retraining or promotion option is outside its documented range") \
+    X(deploy_retrain_too_few_rows, "deploy.retrain.too_few_rows",                              \
+      "too few usable new rows for the promotion holdout's minimum size plus training")        \
+    X(deploy_drift_option, "deploy.drift.option", "a drift threshold or option is outside its documented range") \
+    X(deploy_drift_empty_window, "deploy.drift.empty_window", "drift was asked of a window without rows")
 
 #define TENON_ERROR_CODES(X)                                                                   \
     TENON_ERROR_CODES_CORE(X)                                                                  \

@@ -13,7 +13,8 @@
 // Sections: ARCH (architecture), WGHT (weights and state buffers), PLAN (the
 // measured preparation plan), META (training metadata), REFS (reference
 // summaries per input column), RPLY (a bounded sample of raw training rows),
-// RSUM (update rule, schedule, shuffle engine and epoch state for resuming).
+// RSUM (update rule, schedule, shuffle engine and epoch state for resuming),
+// RSVR (the replay sample's reservoir state: rows seen, capacity, engine).
 // A reader skips an unknown section unless its required flag is set.
 //
 // Loading trusts nothing: the magic, the header checksum, the version, the
@@ -83,12 +84,21 @@ struct training_metadata {
     }
 };
 
-/// A bounded sample of raw training rows as cell texts (section RPLY).
+/// A bounded sample of raw training rows as cell texts (section RPLY), with
+/// the state of the reservoir that keeps it uniform across retrainings
+/// (section RSVR; absent from files written before it existed, then
+/// rows_seen and capacity are 0 and engine is empty).
 struct replay_sample {
     std::vector<std::string> columns;
     std::vector<column_kind> kinds;
     std::vector<std::string> cells;      // rows x columns, row-major; numbers as shortest text
     std::vector<std::uint8_t> missing;   // 1 where the cell is missing
+    /// Rows offered to the reservoir so far, over all trainings (0 = unknown).
+    std::uint64_t rows_seen = 0;
+    /// The most rows the sample holds (0 = unknown).
+    std::uint64_t capacity = 0;
+    /// The engine that draws the reservoir's slots, to continue its stream.
+    std::optional<random_state> engine;
     std::uint64_t rows() const noexcept { return columns.empty() ? 0 : cells.size() / columns.size(); }
 };
 
@@ -147,6 +157,7 @@ struct model_file_summary {
     std::optional<training_metadata> metadata;
     std::vector<feature_reference> references;
     std::uint64_t replay_rows = 0;
+    std::uint64_t replay_rows_seen = 0;  // from RSVR; 0 when absent
     bool resumable = false;
 };
 
@@ -440,6 +451,24 @@ inline replay_sample read_replay(byte_reader& in) {
     return r;
 }
 
+// RSVR: u64 rows seen, u64 capacity, random_state of the reservoir engine.
+inline std::vector<std::uint8_t> reservoir_payload(const replay_sample& r) {
+    std::vector<std::uint8_t> out;
+    byte_writer w(out);
+    w.u64(r.rows_seen);
+    w.u64(r.capacity);
+    put_random_state(w, r.engine ? *r.engine : random_state{});
+    return out;
+}
+inline void read_reservoir(byte_reader& in, replay_sample& r) {
+    r.rows_seen = in.u64();
+    r.capacity = in.u64();
+    r.engine = get_random_state(in);
+    if (r.rows_seen < r.rows() || r.capacity < r.rows())
+        in.fail("the reservoir has seen " + std::to_string(r.rows_seen) + " rows with capacity " + std::to_string(r.capacity) +
+                " but holds " + std::to_string(r.rows()));
+}
+
 template <class T>
 std::vector<std::uint8_t> resume_payload(const resume_state<T>& s) {
     std::vector<std::uint8_t> out;
@@ -604,7 +633,7 @@ inline container read_container(const std::uint8_t* data, std::size_t size, cons
                                            std::to_string(count) + " sections");
     for (const auto& s : c.sections) {
         const bool known = s.id == "ARCH" || s.id == "WGHT" || s.id == "PLAN" || s.id == "META" || s.id == "REFS" ||
-                           s.id == "RPLY" || s.id == "RSUM";
+                           s.id == "RPLY" || s.id == "RSUM" || s.id == "RSVR";
         if (!known && s.required)
             raise(codes::deploy_unknown_section, source + ": section '" + s.id +
                                                      "' is marked required but this build of tenon does not know it");
@@ -672,7 +701,8 @@ std::vector<std::uint8_t> model_file_to_bytes(const model_file<T>& m) {
     out.push_back(static_cast<std::uint8_t>(sizeof(T)));
     out.push_back(0);
     const std::uint16_t count = static_cast<std::uint16_t>(2 + (m.plan ? 1 : 0) + (m.metadata ? 1 : 0) +
-                                                           (m.references.empty() ? 0 : 1) + (m.replay ? 1 : 0) + (m.resume ? 1 : 0));
+                                                           (m.references.empty() ? 0 : 1) + (m.replay ? 1 : 0) + (m.resume ? 1 : 0) +
+                                                           (m.replay && m.replay->rows_seen > 0 ? 1 : 0));
     detail::put_u16(out, count);
     detail::put_u32(out, crc32(out.data(), 20));
     detail::append_section(out, "ARCH", true, to_bytes(m.architecture));
@@ -682,6 +712,7 @@ std::vector<std::uint8_t> model_file_to_bytes(const model_file<T>& m) {
     if (!m.references.empty()) detail::append_section(out, "REFS", false, detail::references_payload(m.references));
     if (m.replay) detail::append_section(out, "RPLY", false, detail::replay_payload(*m.replay));
     if (m.resume) detail::append_section(out, "RSUM", false, detail::resume_payload(*m.resume));
+    if (m.replay && m.replay->rows_seen > 0) detail::append_section(out, "RSVR", false, detail::reservoir_payload(*m.replay));
     return out;
 }
 
@@ -707,7 +738,12 @@ model_file<T> model_file_from_bytes(const std::uint8_t* data, std::size_t size, 
         else if (s.id == "REFS") m.references = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_references(in); });
         else if (s.id == "RPLY") m.replay = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_replay(in); });
         else if (s.id == "RSUM") m.resume = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_resume<T>(in); });
-        else m.skipped_sections.push_back(s.id);
+        else if (s.id != "RSVR") m.skipped_sections.push_back(s.id);
+    }
+    // The reservoir state belongs to the replay sample; without one it is skipped.
+    if (const auto* rs = detail::find_section(c, "RSVR")) {
+        if (m.replay) detail::parse_payload(data, *rs, source, [&](byte_reader& in) { detail::read_reservoir(in, *m.replay); return 0; });
+        else m.skipped_sections.push_back("RSVR");
     }
     return m;
 }
@@ -734,6 +770,13 @@ inline model_file_summary inspect_model_bytes(const std::vector<std::uint8_t>& b
         else if (sec.id == "REFS") s.references = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) { return detail::read_references(in); });
         else if (sec.id == "RPLY") s.replay_rows = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) { return detail::read_replay(in); }).rows();
         else if (sec.id == "RSUM") s.resumable = true;
+        else if (sec.id == "RSVR")
+            s.replay_rows_seen = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) {
+                const std::uint64_t seen = in.u64();
+                in.u64();
+                detail::get_random_state(in);
+                return seen;
+            });
         else if (sec.id == "WGHT") {
             s.parameter_values = detail::parse_payload(bytes.data(), sec, source, [&](byte_reader& in) {
                 std::uint64_t values = 0;
@@ -840,22 +883,39 @@ inline std::uint64_t training_fingerprint(const table& t, const std::vector<std:
     return h.value();
 }
 
+/// One step of reservoir sampling (Vitter 1985, "Random sampling with a
+/// reservoir", ACM TOMS 11(1), Algorithm R): the item with 0-based index
+/// `seen` in the stream goes to slot `seen` while the reservoir has fewer
+/// than `capacity` items, else replaces slot j for j uniform in [0, seen]
+/// when j < capacity. Returns the slot, or `capacity` to discard the item.
+/// Each of the first n items is then held with probability capacity / n.
+inline std::uint64_t reservoir_slot(random_engine& engine, std::uint64_t seen, std::uint64_t capacity) {
+    if (seen < capacity) return seen;
+    const std::uint64_t j = engine.below(seen + 1);
+    return j < capacity ? j : capacity;
+}
+
+/// The seed stream of the replay sample's reservoir engine.
+inline constexpr std::uint64_t replay_engine_stream = 0x8E91A7u;
+
 /// Up to `max_rows` of `rows` of `t` chosen uniformly by reservoir sampling
-/// (Vitter 1985, "Random sampling with a reservoir", ACM TOMS 11(1),
-/// Algorithm R), kept in table order, as cell texts.
+/// (reservoir_slot), kept in table order, as cell texts, with the
+/// reservoir's state so that later retrainings continue the same sample.
+/// Slots are relabelled by the sort; Algorithm R draws a uniform slot, so any
+/// fixed relabelling keeps the sample uniform.
 inline replay_sample sample_replay_rows(const table& t, const std::vector<std::size_t>& rows, std::size_t max_rows, std::uint64_t seed) {
     std::vector<std::size_t> chosen;
-    random_engine engine(seed, /*stream=*/0x8E91A7u);
+    random_engine engine(seed, replay_engine_stream);
     for (std::size_t i = 0; i < rows.size(); ++i) {
-        if (chosen.size() < max_rows) {
-            chosen.push_back(rows[i]);
-        } else {
-            const std::uint64_t j = engine.below(i + 1);
-            if (j < max_rows) chosen[static_cast<std::size_t>(j)] = rows[i];
-        }
+        const std::uint64_t slot = reservoir_slot(engine, i, max_rows);
+        if (slot < chosen.size()) chosen[static_cast<std::size_t>(slot)] = rows[i];
+        else if (slot < max_rows) chosen.push_back(rows[i]);
     }
     std::sort(chosen.begin(), chosen.end());
     replay_sample s;
+    s.rows_seen = rows.size();
+    s.capacity = max_rows;
+    s.engine = engine.state();
     for (std::size_t k = 0; k < t.column_count(); ++k) {
         s.columns.push_back(t[k].name());
         s.kinds.push_back(t[k].kind());

@@ -1,0 +1,586 @@
+// Tests of retraining with a promotion gate: the reservoir keeps every row
+// with equal probability, the gate's decisions, promotion with a rollback
+// file, the frozen plan, the holdout kept apart, the budget clock, the
+// version-1 fixture, every error path, and a retraining on a drifted pump
+// log that must beat the incumbent on the new process without forgetting
+// the old one.
+#include <doctest/doctest.h>
+
+#include <cmath>
+#include <cstdio>
+#include <fstream>
+#include <functional>
+#include <set>
+#include <sstream>
+#include <string>
+#include <vector>
+
+#include <unistd.h>
+
+#include <tenon/deploy/drift.hpp>
+#include <tenon/deploy/model_file.hpp>
+#include <tenon/deploy/retraining.hpp>
+
+#include "retraining_test_support.hpp"
+
+namespace {
+
+using deploy_test::range;
+
+std::string temp_path(const std::string& name) {
+    return std::string("/tmp/tenon_retrain_test_") + std::to_string(::getpid()) + "_" + name;
+}
+
+std::string code_of(const std::function<void()>& f) {
+    try {
+        f();
+    } catch (const tenon::error& e) {
+        return e.code();
+    }
+    return "no error";
+}
+
+bool file_exists(const std::string& path) { return std::ifstream(path).good(); }
+
+std::vector<std::uint8_t> file_bytes(const std::string& path) { return tenon::read_file_bounded(path, 1u << 30); }
+
+// A model of the pump log, trained on `t` (the first 80% of rows, early
+// stopping on the rest), with its file.
+template <class T>
+tenon::model_file<T> incumbent_of(const tenon::table& t, const tenon::plan& p, const tenon::model_settings& s,
+                                  std::size_t replay_rows = 256) {
+    const std::size_t n = t.row_count(), cut = n * 4 / 5;
+    auto fitted = tenon::fit_model<T>(t, p, range(0, cut), range(cut, n), s);
+    tenon::model_file_options o;
+    o.replay_rows = replay_rows;
+    o.created_unix_seconds = 1700000000;
+    return tenon::make_model_file(fitted, t, range(0, cut), s, o);
+}
+
+tenon::model_settings weak_settings() {
+    tenon::model_settings s = deploy_test::small_settings(3);
+    s.epochs = 1;
+    s.learning_rate = 0.001;
+    return s;
+}
+
+// The same table as CSV text, to add malformed rows to.
+std::string csv_of(const tenon::table& t) {
+    std::ostringstream out;
+    out.precision(17);
+    for (std::size_t k = 0; k < t.column_count(); ++k) out << (k ? "," : "") << t[k].name();
+    out << "\n";
+    for (std::size_t r = 0; r < t.row_count(); ++r) {
+        for (std::size_t k = 0; k < t.column_count(); ++k) {
+            const auto& c = t[k];
+            out << (k ? "," : "");
+            if (c.is_missing(r)) out << "NA";
+            else if (c.kind() == tenon::column_kind::categorical) out << c.category(r);
+            else out << c.number(r);
+        }
+        out << "\n";
+    }
+    return out.str();
+}
+
+tenon::table csv_table(const std::string& text) {
+    std::istringstream in(text);
+    return tenon::read_csv(in, {}, "new.csv");
+}
+
+// RMSE in kW of a power model on all rows of `t`.
+template <class T>
+double power_rmse(const tenon::model_file<T>& file, const tenon::table& t) {
+    auto net = tenon::rebuild_network(file);
+    const auto prepared = file.plan->template apply<T>(t, retrain_test::all_rows(t));
+    const auto out = tenon::network_outputs(net, prepared.features);
+    std::vector<double> truth, predicted;
+    for (std::size_t i = 0; i < prepared.rows.size(); ++i) {
+        truth.push_back(file.plan->restore_target(static_cast<double>(prepared.targets(i, 0))));
+        predicted.push_back(file.plan->restore_target(static_cast<double>(out(i, 0))));
+    }
+    return tenon::score_values(truth, predicted).rmse;
+}
+
+// Pearson's (1900) statistic sum (O - E)^2 / E over inclusion counts.
+double pearson(const std::vector<double>& observed, double expected) {
+    double x = 0.0;
+    for (double o : observed) x += (o - expected) * (o - expected) / expected;
+    return x;
+}
+
+// The 0.999 quantile of the chi-square distribution with 19 degrees of
+// freedom (from memory; tables give 43.82).
+constexpr double chi_square_19_999 = 43.82;
+
+// A file system that fails renaming onto one path, for fault injection.
+class failing_rename : public tenon::native_file_system {
+public:
+    explicit failing_rename(std::string target) : target_(std::move(target)) {}
+    bool rename(const std::string& from, const std::string& to) override {
+        if (to == target_) return false;
+        return tenon::native_file_system::rename(from, to);
+    }
+
+private:
+    std::string target_;
+};
+
+}  // namespace
+
+// --- the reservoir ---------------------------------------------------------------------------
+
+TEST_CASE("reservoir sampling keeps each item with equal probability (chi-square over seeded runs)") {
+    const std::uint64_t population = 20;
+    const int runs = 4000;
+    SUBCASE("one slot: the inclusion counts are multinomial, Pearson's statistic is chi-square with 19 df") {
+        std::vector<double> counts(population, 0.0);
+        for (int run = 0; run < runs; ++run) {
+            tenon::random_engine engine(static_cast<std::uint64_t>(run), tenon::replay_engine_stream);
+            std::uint64_t held = 0;
+            for (std::uint64_t t = 0; t < population; ++t)
+                if (tenon::reservoir_slot(engine, t, 1) == 0) held = t;
+            counts[held] += 1.0;
+        }
+        const double x = pearson(counts, runs / 20.0);
+        MESSAGE("k = 1: chi-square " << x << " (19 df, 0.999 quantile " << chi_square_19_999 << ")");
+        CHECK(x < chi_square_19_999);
+    }
+    SUBCASE("five slots, filled over two trainings through the model file's reservoir state") {
+        // Stage 1 samples rows 0..11 as make_model_file does; stage 2 offers
+        // rows 12..19 as a retraining does. Each row's inclusion count is
+        // binomial(R, p) with p = 5/20 and covariance -R p (1-p) / (N-1)
+        // between rows (sampling without replacement), so Pearson's X times
+        // (N - 1) / (N (1 - p)) is chi-square with N - 1 = 19 df
+        // (derived from the covariance of the counts; Pearson 1900 for X).
+        std::ostringstream csv;
+        csv << "id\n";
+        for (std::uint64_t i = 0; i < population; ++i) csv << i << "\n";
+        const auto t = csv_table(csv.str());
+        std::vector<double> counts(population, 0.0);
+        for (int run = 0; run < runs; ++run) {
+            tenon::replay_sample s = tenon::sample_replay_rows(t, range(0, 12), 5, static_cast<std::uint64_t>(run));
+            // Through the file's bytes, as a device would between trainings.
+            tenon::model_file<float> m;
+            m.replay = s;
+            s = *tenon::model_file_from_bytes<float>(tenon::model_file_to_bytes(m)).replay;
+            tenon::extend_replay_sample(s, t, range(12, 20));
+            REQUIRE(s.rows() == 5);
+            CHECK(s.rows_seen == 20);
+            for (const auto& cell : s.cells) counts[static_cast<std::size_t>(std::stoi(cell))] += 1.0;
+        }
+        const double p = 5.0 / 20.0;
+        const double x = pearson(counts, runs * p) * (20.0 - 1.0) / (20.0 * (1.0 - p));
+        MESSAGE("k = 5 over two stages: scaled chi-square " << x << " (19 df, 0.999 quantile " << chi_square_19_999 << ")");
+        CHECK(x < chi_square_19_999);
+        // The same check catches a sampler that always replaces a random
+        // slot once full (it favours the latest rows).
+        std::vector<double> biased(population, 0.0);
+        for (int run = 0; run < runs; ++run) {
+            tenon::random_engine engine(static_cast<std::uint64_t>(run));
+            std::vector<std::uint64_t> held;
+            for (std::uint64_t item = 0; item < population; ++item) {
+                if (held.size() < 5) held.push_back(item);
+                else held[static_cast<std::size_t>(engine.below(5))] = item;
+            }
+            for (auto h : held) biased[h] += 1.0;
+        }
+        CHECK(pearson(biased, runs * p) * (20.0 - 1.0) / (20.0 * (1.0 - p)) > chi_square_19_999);
+        // The first rows are not favoured over the later ones.
+        double early = 0, late = 0;
+        for (std::size_t i = 0; i < 12; ++i) early += counts[i];
+        for (std::size_t i = 12; i < 20; ++i) late += counts[i];
+        CHECK(early / 12.0 == doctest::Approx(late / 8.0).epsilon(0.05));
+    }
+}
+
+TEST_CASE("extending a replay sample needs its reservoir state") {
+    tenon::replay_sample s;
+    s.columns = {"id"};
+    s.kinds = {tenon::column_kind::numeric};
+    const auto t = csv_table("id\n1\n");
+    CHECK(code_of([&] { tenon::extend_replay_sample(s, t, {0}); }) == "core.argument.invalid");
+}
+
+// --- the gate --------------------------------------------------------------------------------
+
+TEST_CASE("the gate promotes only a strictly better candidate, by at least the margin") {
+    using tenon::gate_metric;
+    // Equal scores are never promoted, with or without a margin.
+    CHECK_FALSE(tenon::decide_promotion(gate_metric::accuracy, 0.9, 0.9, 0.0).promoted);
+    CHECK_FALSE(tenon::decide_promotion(gate_metric::rmse, 1.5, 1.5, 0.0).promoted);
+    CHECK(tenon::decide_promotion(gate_metric::rmse, 1.5, 1.5, 0.0).improvement == 0.0);
+    // Higher accuracy, lower log loss and RMSE are better.
+    CHECK(tenon::decide_promotion(gate_metric::accuracy, 0.90, 0.93, 0.02).promoted);
+    CHECK(tenon::decide_promotion(gate_metric::log_loss, 0.40, 0.30, 0.05).promoted);
+    CHECK(tenon::decide_promotion(gate_metric::rmse, 2.0, 1.0, 0.5).promoted);
+    CHECK(tenon::decide_promotion(gate_metric::rmse, 2.0, 1.0, 0.5).improvement == doctest::Approx(1.0));
+    CHECK_FALSE(tenon::decide_promotion(gate_metric::accuracy, 0.93, 0.90, 0.0).promoted);
+    CHECK_FALSE(tenon::decide_promotion(gate_metric::rmse, 1.0, 2.0, 0.0).promoted);
+    // Better, but by less than the margin.
+    const auto small = tenon::decide_promotion(gate_metric::accuracy, 0.90, 0.91, 0.02);
+    CHECK_FALSE(small.promoted);
+    CHECK(small.reason.find("less than the margin") != std::string::npos);
+    // Exactly the margin is enough ("at least").
+    CHECK(tenon::decide_promotion(gate_metric::accuracy, 0.5, 0.75, 0.25).promoted);
+    // A non-finite candidate never wins; a finite one beats a non-finite incumbent.
+    CHECK_FALSE(tenon::decide_promotion(gate_metric::rmse, 1.0, std::nan(""), 0.0).promoted);
+    CHECK(tenon::decide_promotion(gate_metric::rmse, std::nan(""), 1.0, 0.0).promoted);
+    CHECK(code_of([] { tenon::decide_promotion(gate_metric::automatic, 1, 2, 0); }) == "deploy.retrain.option");
+    CHECK(code_of([] { tenon::decide_promotion(gate_metric::rmse, 1, 2, -0.1); }) == "deploy.retrain.option");
+    CHECK(tenon::parse_gate_metric("log_loss") == gate_metric::log_loss);
+    CHECK(code_of([] { tenon::parse_gate_metric("f1"); }) == "deploy.retrain.option");
+}
+
+TEST_CASE_TEMPLATE("retraining: an equally good candidate is kept out, a clearly better one promoted", T, float, double) {
+    const auto old_rows = retrain_test::pump_rows(300, 10);
+    const auto incumbent = incumbent_of<T>(old_rows, deploy_test::condition_plan(), weak_settings());
+    const auto new_rows = retrain_test::pump_rows(600, 11);
+
+    SUBCASE("no training: the candidate is the incumbent, equally good, not promoted") {
+        tenon::retraining_options o;
+        o.epochs = 0;
+        o.created_unix_seconds = 1;
+        const auto r = tenon::retrain_model(incumbent, new_rows, o);
+        CHECK(r.report.metric == "accuracy");
+        CHECK(r.report.candidate_score == r.report.incumbent_score);
+        CHECK_FALSE(r.report.promoted);
+        CHECK(r.report.decision == "kept_incumbent");
+        CHECK(r.report.reason.find("not better") != std::string::npos);
+        CHECK(r.report.steps == 0);
+    }
+    SUBCASE("forty epochs on 600 new rows: clearly better, promoted") {
+        tenon::retraining_options o;
+        o.epochs = 40;
+        o.learning_rate = 0.01;
+        o.margin = 0.02;
+        o.created_unix_seconds = 1;
+        const auto r = tenon::retrain_model(incumbent, new_rows, o);
+        MESSAGE("accuracy on the holdout: incumbent " << r.report.incumbent_score << ", candidate " << r.report.candidate_score);
+        CHECK(r.report.promoted);
+        CHECK(r.report.decision == "promoted");
+        CHECK(r.report.candidate_score >= r.report.incumbent_score + 0.1);
+        CHECK(r.report.holdout_rows == 120);  // 20% of 600, more than the minimum of 30
+        CHECK(r.report.replay_rows == 240);   // the incumbent's whole training split (fewer than 256)
+        CHECK(r.report.new_training_rows == 480);
+        CHECK(r.report.training_rows + r.report.validation_rows == 240 + 480);
+        // The same options with log loss: also better, also promoted.
+        o.metric = tenon::gate_metric::log_loss;
+        o.margin = 0.05;
+        const auto l = tenon::retrain_model(incumbent, new_rows, o);
+        CHECK(l.report.metric == "log_loss");
+        CHECK_FALSE(l.report.higher_is_better);
+        CHECK(l.report.candidate_score < l.report.incumbent_score - 0.05);
+        CHECK(l.report.promoted);
+        // A margin larger than any possible gain keeps the incumbent.
+        o.metric = tenon::gate_metric::accuracy;
+        o.margin = 1.0;
+        CHECK_FALSE(tenon::retrain_model(incumbent, new_rows, o).report.promoted);
+    }
+}
+
+// --- a drifted process -----------------------------------------------------------------------
+
+TEST_CASE("retraining on a drifted pump log promotes a model better on the new process and close on the old") {
+    // The incumbent learned power [kW] from flow 20-120 m3/h, head 5-40 m,
+    // an even fluid mix; then the process moves to flow 80-170, head 20-55
+    // and 70% brine, partly outside what it has seen.
+    tenon::plan p = deploy_test::power_plan();
+    tenon::model_settings s;
+    s.hidden = {32, 32};
+    s.epochs = 150;
+    s.batch_size = 32;
+    s.learning_rate = 0.005;
+    s.patience = 15;
+    s.seed = 20;
+    const auto old_rows = retrain_test::pump_rows(800, 20);
+    const auto incumbent = incumbent_of<float>(old_rows, p, s);
+    const auto new_rows = retrain_test::pump_rows(800, 21, retrain_test::drifted());
+    const auto old_test = retrain_test::pump_rows(500, 23), new_test = retrain_test::pump_rows(500, 22, retrain_test::drifted());
+
+    const auto drift_before = tenon::measure_drift(incumbent.references, new_rows);
+    MESSAGE("drift of the new rows against the incumbent's training rows:\n" << tenon::drift_table(drift_before));
+    CHECK(drift_before.drifted_count() == 3);
+
+    tenon::retraining_options o;
+    o.epochs = 150;
+    o.patience = 15;
+    o.seed = 1;
+    o.created_unix_seconds = 1700000100;
+    const auto r = tenon::retrain_model(incumbent, new_rows, o);
+    const double incumbent_new = power_rmse(incumbent, new_test), candidate_new = power_rmse(r.candidate, new_test);
+    const double incumbent_old = power_rmse(incumbent, old_test), candidate_old = power_rmse(r.candidate, old_test);
+    MESSAGE("gate (holdout of " << r.report.holdout_rows << " new rows): RMSE incumbent " << r.report.incumbent_score << " kW, candidate "
+                                << r.report.candidate_score << " kW -> " << r.report.decision);
+    MESSAGE("new process (500 unseen rows): RMSE incumbent " << incumbent_new << " kW, candidate " << candidate_new << " kW");
+    MESSAGE("old process (500 unseen rows): RMSE incumbent " << incumbent_old << " kW, candidate " << candidate_old << " kW");
+    MESSAGE("trained on " << r.report.training_rows << " rows (" << r.report.replay_rows << " replay + new), " << r.report.epochs_run
+                          << " epochs, stop: " << r.report.stop_reason);
+    CHECK(r.report.promoted);
+    CHECK(r.report.metric == "rmse");
+    CHECK(r.report.replay_rows == 256);
+    CHECK(candidate_new < 0.5 * incumbent_new);
+    // Stated tolerance on the old process: at most 0.1 kW worse in RMSE
+    // (powers there run from about 0.5 to 28 kW; the replay sample keeps 256
+    // old rows in training).
+    CHECK(candidate_old <= incumbent_old + 0.1);
+
+    // The candidate's references describe what it was trained on, so the
+    // new process drifts much less against them.
+    const auto drift_after = tenon::measure_drift(r.candidate.references, new_test);
+    MESSAGE("drift of new rows against the candidate's training rows:\n" << tenon::drift_table(drift_after));
+    CHECK(drift_after.feature("flow").psi < 0.5 * drift_before.feature("flow").psi);
+    CHECK(drift_after.feature("fluid").psi < 0.25);
+    MESSAGE("report JSON: " << tenon::to_json(r.report));
+}
+
+// --- the rows: frozen plan, holdout, replay --------------------------------------------------
+
+TEST_CASE("the plan stays frozen and rows it cannot encode are refused and counted") {
+    const auto old_rows = retrain_test::pump_rows(200, 30);
+    const auto incumbent = incumbent_of<float>(old_rows, deploy_test::condition_plan(), weak_settings());
+    std::string text = csv_of(retrain_test::pump_rows(100, 31));
+    text += "50,10,oil,3,ok\n";          // a fluid never seen (policy: fail)
+    text += "60,12,water,3,leaking\n";   // a class the model has no output for
+    text += "70,14,water,3,NA\n";        // no target
+    text += "80,NA,water,3,ok\n";        // a missing head without a fill
+    text += "90,abc,water,3,ok\n";       // not a number (makes the head column text)
+    const auto new_rows = csv_table(text);
+    REQUIRE(new_rows.at("head").kind() == tenon::column_kind::categorical);
+    tenon::retraining_options o;
+    o.epochs = 2;
+    o.created_unix_seconds = 1;
+    const auto r = tenon::retrain_model(incumbent, new_rows, o);
+    CHECK(r.report.new_rows == 105);
+    CHECK(r.report.new_rows_refused == 5);
+    CHECK(r.report.refused_unseen_category == 1);
+    CHECK(r.report.refused_unseen_class == 1);
+    CHECK(r.report.refused_missing_target == 1);
+    CHECK(r.report.refused_missing_value == 1);
+    CHECK(r.report.refused_not_numeric == 1);
+    CHECK(r.report.holdout_rows + r.report.new_training_rows == 100);
+    REQUIRE(r.candidate.plan);
+    CHECK(r.candidate.plan->to_bytes() == incumbent.plan->to_bytes());
+    CHECK(r.candidate.architecture == incumbent.architecture);
+
+    // With the all-zeros policy an unseen fluid is encoded as stored, not refused.
+    tenon::plan lenient = deploy_test::condition_plan();
+    tenon::feature_steps steps;
+    steps.unseen = tenon::unseen_policy::all_zero;
+    lenient.set_default_steps(steps);
+    const auto incumbent2 = incumbent_of<float>(old_rows, lenient, weak_settings());
+    const auto r2 = tenon::retrain_model(incumbent2, csv_table(csv_of(retrain_test::pump_rows(100, 31)) + "50,10,oil,3,ok\n"), o);
+    CHECK(r2.report.new_rows_refused == 0);
+    CHECK(r2.report.holdout_rows + r2.report.new_training_rows == 101);
+}
+
+TEST_CASE("the holdout is kept out of training and out of the replay sample") {
+    const auto old_rows = retrain_test::pump_rows(200, 40);
+    const auto incumbent = incumbent_of<float>(old_rows, deploy_test::condition_plan(), weak_settings(), 64);
+    REQUIRE(incumbent.replay);
+    CHECK(incumbent.replay->rows_seen == 160);
+    CHECK(incumbent.replay->capacity == 64);
+    const auto new_rows = retrain_test::pump_rows(300, 41);
+    tenon::retraining_options o;
+    o.epochs = 2;
+    o.holdout = tenon::holdout_selection::latest;
+    o.min_holdout_rows = 80;  // more than 20% of 300
+    o.created_unix_seconds = 1;
+    const auto r = tenon::retrain_model(incumbent, new_rows, o);
+    CHECK(r.report.holdout_rows == 80);
+    CHECK(r.report.new_training_rows == 220);
+    CHECK(r.report.replay_rows == 64);
+    CHECK(r.report.training_rows + r.report.validation_rows == 64 + 220);
+    REQUIRE(r.candidate.metadata);
+    CHECK(r.candidate.metadata->training_rows == r.report.training_rows);
+    REQUIRE(r.candidate.replay);
+    CHECK(r.candidate.replay->rows() == 64);
+    CHECK(r.candidate.replay->capacity == 64);
+    CHECK(r.candidate.replay->rows_seen == 160 + 220);
+    CHECK(r.report.replay_rows_seen_after == 380);
+    // The latest 80 rows are the holdout: none of their flows is in the sample.
+    std::set<std::string> holdout_flows;
+    const auto& flow = new_rows.at("flow");
+    for (std::size_t i = 220; i < 300; ++i) holdout_flows.insert(tenon::number_to_text(flow.number(i)));
+    std::size_t new_in_sample = 0;
+    std::set<std::string> new_flows;
+    for (std::size_t i = 0; i < 220; ++i) new_flows.insert(tenon::number_to_text(flow.number(i)));
+    for (std::uint64_t i = 0; i < r.candidate.replay->rows(); ++i) {
+        const std::string& cell = r.candidate.replay->cells[i * r.candidate.replay->columns.size()];
+        CHECK(holdout_flows.count(cell) == 0);
+        new_in_sample += new_flows.count(cell);
+    }
+    // About 220/380 of the sample comes from the new rows (58%, 37 of 64).
+    CHECK(new_in_sample > 20);
+    CHECK(new_in_sample < 55);
+
+    // A smaller capacity subsamples; a larger one cannot stay uniform.
+    o.replay_capacity = 16;
+    CHECK(tenon::retrain_model(incumbent, new_rows, o).candidate.replay->rows() == 16);
+    o.replay_capacity = 100;
+    CHECK(code_of([&] { tenon::retrain_model(incumbent, new_rows, o); }) == "deploy.retrain.option");
+}
+
+TEST_CASE("the version-1 fixture, written before the reservoir state existed, is retrained") {
+    const std::string path = std::string(TENON_SOURCE_DIR) + "/tests/fixtures/deploy/pump_v1_float.tnm";
+    const auto fixture = tenon::load_model_file<float>(path);
+    REQUIRE(fixture.replay);
+    CHECK(fixture.replay->rows_seen == 0);  // no RSVR section
+    REQUIRE(fixture.metadata);
+    const auto trained = fixture.metadata->training_rows;
+    CHECK(trained > fixture.replay->rows());
+    tenon::retraining_options o;
+    o.epochs = 3;
+    o.created_unix_seconds = 1;
+    const auto r = tenon::retrain_model(fixture, retrain_test::pump_rows(200, 50), o);
+    CHECK(r.report.replay_rows == fixture.replay->rows());
+    // The sample was full: it keeps its size and continues counting.
+    CHECK(r.candidate.replay->capacity == fixture.replay->rows());
+    CHECK(r.candidate.replay->rows() == fixture.replay->rows());
+    CHECK(r.candidate.replay->rows_seen == trained + r.report.new_training_rows);
+    // The candidate's file, with its RSVR section, round-trips.
+    const auto back = tenon::model_file_from_bytes<float>(tenon::model_file_to_bytes(r.candidate));
+    CHECK(back.replay->rows_seen == r.candidate.replay->rows_seen);
+    CHECK(back.skipped_sections.empty());
+}
+
+// --- the clock -------------------------------------------------------------------------------
+
+TEST_CASE("the wall-clock budget is read from the injected clock") {
+    const auto old_rows = retrain_test::pump_rows(200, 60);
+    const auto incumbent = incumbent_of<double>(old_rows, deploy_test::condition_plan(), weak_settings());
+    const auto new_rows = retrain_test::pump_rows(300, 61);
+    double now = 0.0;
+    tenon::retraining_options o;
+    o.epochs = 1000;
+    o.patience = 0;
+    o.time_budget_seconds = 50.0;
+    o.created_unix_seconds = 1;
+    o.clock = [&now] { return now += 1.0; };  // every reading advances one second
+    const auto r = tenon::retrain_model(incumbent, new_rows, o);
+    CHECK(r.report.stop_reason == "time_budget");
+    CHECK(r.report.epochs_run < 1000);
+    CHECK(r.report.steps > 0);
+    CHECK(r.report.seconds >= 50.0);
+    CHECK(r.report.seconds < 60.0);
+    CHECK(r.report.time_budget_seconds == 50.0);
+
+    // A budget spent before training begins: no steps, the incumbent stays.
+    o.clock = [&now] { return now += 100.0; };
+    const auto late = tenon::retrain_model(incumbent, new_rows, o);
+    CHECK(late.report.stop_reason == "time_budget");
+    CHECK(late.report.steps == 0);
+    CHECK_FALSE(late.report.promoted);
+}
+
+// --- files -----------------------------------------------------------------------------------
+
+TEST_CASE("promotion keeps the previous file for rollback; no promotion writes nothing") {
+    const auto old_rows = retrain_test::pump_rows(300, 70);
+    const auto incumbent = incumbent_of<float>(old_rows, deploy_test::condition_plan(), weak_settings());
+    const std::string path = temp_path("model.tnm"), previous = path + ".previous";
+    std::remove(previous.c_str());
+    tenon::save_model_file(path, incumbent);
+    const auto original = file_bytes(path);
+    const auto new_rows = retrain_test::pump_rows(600, 71);
+
+    tenon::retraining_options kept;
+    kept.epochs = 0;
+    const auto k = tenon::retrain_model_file(path, new_rows, kept);
+    CHECK_FALSE(k.promoted);
+    CHECK_FALSE(k.file_written);
+    CHECK(file_bytes(path) == original);
+    CHECK_FALSE(file_exists(previous));
+
+    tenon::retraining_options better;
+    better.epochs = 40;
+    better.learning_rate = 0.01;
+    better.created_unix_seconds = 1;
+    // A failure writing the candidate leaves the incumbent in place.
+    failing_rename faulty(path);
+    CHECK(code_of([&] { tenon::retrain_model_file(path, new_rows, better, "", faulty); }) == "deploy.file.io");
+    CHECK(file_bytes(path) == original);
+
+    const auto p = tenon::retrain_model_file(path, new_rows, better);
+    CHECK(p.promoted);
+    CHECK(p.file_written);
+    CHECK(p.model_path == path);
+    CHECK(p.rollback_path == previous);
+    CHECK(file_bytes(previous) == original);
+    const auto now = tenon::load_model_file<float>(path);
+    REQUIRE(now.metadata);
+    CHECK(now.metadata->metric("gate_candidate_score") == doctest::Approx(p.candidate_score));
+    CHECK(now.metadata->metric("retrainings") == 1.0);
+    CHECK(file_bytes(path) != original);
+
+    tenon::roll_back_model_file(path);
+    CHECK(file_bytes(path) == original);
+    CHECK(file_exists(previous));
+
+    // A rollback path of the caller's choice.
+    const std::string elsewhere = temp_path("kept.tnm");
+    const auto q = tenon::retrain_model_file(path, new_rows, better, elsewhere);
+    CHECK(q.rollback_path == elsewhere);
+    CHECK(file_bytes(elsewhere) == original);
+    tenon::roll_back_model_file(path, elsewhere);
+    CHECK(file_bytes(path) == original);
+    CHECK(code_of([&] { tenon::roll_back_model_file(path, temp_path("none.tnm")); }) == "deploy.file.io");
+    const std::string junk = temp_path("junk.tnm");
+    std::ofstream(junk) << "not a model";
+    CHECK(code_of([&] { tenon::roll_back_model_file(path, junk); }) == "deploy.model.magic");
+    CHECK(file_bytes(path) == original);
+    for (const auto& f : {path, previous, elsewhere, junk}) std::remove(f.c_str());
+}
+
+// --- errors and the report -------------------------------------------------------------------
+
+TEST_CASE("retraining errors: options, too few rows, a missing column, no plan") {
+    const auto old_rows = retrain_test::pump_rows(200, 80);
+    const auto incumbent = incumbent_of<float>(old_rows, deploy_test::condition_plan(), weak_settings());
+    const auto new_rows = retrain_test::pump_rows(100, 81);
+    const auto with = [&](auto change) {
+        tenon::retraining_options o;
+        o.epochs = 1;
+        change(o);
+        return code_of([&] { tenon::retrain_model(incumbent, new_rows, o); });
+    };
+    CHECK(with([](tenon::retraining_options& o) { o.margin = -0.1; }) == "deploy.retrain.option");
+    CHECK(with([](tenon::retraining_options& o) { o.holdout_share = 0.0; }) == "deploy.retrain.option");
+    CHECK(with([](tenon::retraining_options& o) { o.holdout_share = 1.0; }) == "deploy.retrain.option");
+    CHECK(with([](tenon::retraining_options& o) { o.min_holdout_rows = 0; }) == "deploy.retrain.option");
+    CHECK(with([](tenon::retraining_options& o) { o.validation_share = 1.0; }) == "deploy.retrain.option");
+    CHECK(with([](tenon::retraining_options& o) { o.batch_size = 0; }) == "deploy.retrain.option");
+    CHECK(with([](tenon::retraining_options& o) { o.learning_rate = 0.0; }) == "deploy.retrain.option");
+    CHECK(with([](tenon::retraining_options& o) { o.time_budget_seconds = -1.0; }) == "deploy.retrain.option");
+    CHECK(with([](tenon::retraining_options& o) { o.metric = tenon::gate_metric::rmse; }) == "deploy.retrain.option");
+    CHECK(with([](tenon::retraining_options& o) { o.min_holdout_rows = 100; }) == "deploy.retrain.too_few_rows");
+    CHECK(with([](tenon::retraining_options&) {}) == "no error");
+
+    CHECK(code_of([&] { tenon::retrain_model(incumbent, csv_table("flow,fluid,condition\n1,water,ok\n")); }) ==
+          "deploy.input.missing_column");
+    auto no_plan = incumbent;
+    no_plan.plan.reset();
+    CHECK(code_of([&] { tenon::retrain_model(no_plan, new_rows); }) == "deploy.model.missing_section");
+    // Rows that are all refused leave too few.
+    CHECK(code_of([&] { tenon::retrain_model(incumbent, csv_table("flow,head,fluid,condition\n1,2,oil,ok\n")); }) ==
+          "deploy.retrain.too_few_rows");
+}
+
+TEST_CASE("the retraining report serializes to JSON") {
+    const auto old_rows = retrain_test::pump_rows(200, 90);
+    const auto incumbent = incumbent_of<float>(old_rows, deploy_test::condition_plan(), weak_settings());
+    tenon::retraining_options o;
+    o.epochs = 0;
+    o.created_unix_seconds = 1;
+    const auto r = tenon::retrain_model(incumbent, retrain_test::pump_rows(100, 91), o);
+    const std::string json = tenon::to_json(r.report);
+    CHECK(json.front() == '{');
+    CHECK(json.back() == '}');
+    CHECK(json.find("\"promoted\": false") != std::string::npos);
+    CHECK(json.find("\"decision\": \"kept_incumbent\"") != std::string::npos);
+    CHECK(json.find("\"metric\": \"accuracy\"") != std::string::npos);
+    CHECK(json.find("\"holdout\": 30") != std::string::npos);
+    CHECK(json.find("\"incumbent_score\": " + tenon::detail::json_number(r.report.incumbent_score)) != std::string::npos);
+    CHECK(json.find("\"model_path\": \"\"") != std::string::npos);
+    CHECK(json.find("nan") == std::string::npos);
+}
