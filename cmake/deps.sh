@@ -8,7 +8,7 @@ set -eu
 packages="ninja-build g++ cmake
   xtensor-dev xtl-dev
   doctest-dev libbenchmark-dev
-  libeigen3-dev zlib1g-dev
+  libeigen3-dev zlib1g-dev libopenblas-dev
   dataset-fashion-mnist"
 
 missing=""

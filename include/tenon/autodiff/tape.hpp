@@ -181,6 +181,13 @@ public:
     void set_check_finite(bool on) noexcept { check_finite_ = on; }
     bool check_finite() const noexcept { return check_finite_; }
 
+    /// Matrix products recorded on this tape (forward and backward) split
+    /// across `workers` (core/parallel.hpp); nullptr (the default) keeps them
+    /// on the calling thread. Results do not depend on the thread count.
+    /// The executor must outlive its use by the tape.
+    void set_executor(executor* workers) noexcept { workers_ = workers; }
+    executor* workers() const noexcept { return workers_; }
+
     // ----- leaves ------------------------------------------------------------
 
     /// Records a constant (no gradient), copying it onto the tape.
@@ -510,7 +517,7 @@ private:
                 const matrix<T>& x = value_at(n.inputs[0]);
                 const matrix<T>& y = value_at(n.inputs[1]);
                 const std::size_t k = n.transpose_a ? x.shape()[0] : x.shape()[1];
-                gemm<T>(n.transpose_a, n.transpose_b, rows, cols, k, T(1), x.data(), x.shape()[1], y.data(), y.shape()[1], T(0), o, cols);
+                gemm<T>(n.transpose_a, n.transpose_b, rows, cols, k, T(1), x.data(), x.shape()[1], y.data(), y.shape()[1], T(0), o, cols, workers_);
                 return;
             }
             case op_kind::sum_all: case op_kind::mean_all: {
@@ -645,12 +652,12 @@ private:
                 const std::size_t k = n.transpose_a ? x.shape()[0] : x.shape()[1];
                 const std::size_t ldx = x.shape()[1], ldy = y.shape()[1];
                 if (gx) {
-                    if (!n.transpose_a) gemm<T>(false, !n.transpose_b, m, k, nn, T(1), g, nn, y.data(), ldy, T(1), gx->data(), k);
-                    else gemm<T>(n.transpose_b, true, k, m, nn, T(1), y.data(), ldy, g, nn, T(1), gx->data(), m);
+                    if (!n.transpose_a) gemm<T>(false, !n.transpose_b, m, k, nn, T(1), g, nn, y.data(), ldy, T(1), gx->data(), k, workers_);
+                    else gemm<T>(n.transpose_b, true, k, m, nn, T(1), y.data(), ldy, g, nn, T(1), gx->data(), m, workers_);
                 }
                 if (gy) {
-                    if (!n.transpose_b) gemm<T>(!n.transpose_a, false, k, nn, m, T(1), x.data(), ldx, g, nn, T(1), gy->data(), nn);
-                    else gemm<T>(true, n.transpose_a, nn, k, m, T(1), g, nn, x.data(), ldx, T(1), gy->data(), k);
+                    if (!n.transpose_b) gemm<T>(!n.transpose_a, false, k, nn, m, T(1), x.data(), ldx, g, nn, T(1), gy->data(), nn, workers_);
+                    else gemm<T>(true, n.transpose_a, nn, k, m, T(1), g, nn, x.data(), ldx, T(1), gy->data(), k, workers_);
                 }
                 return;
             }
@@ -763,6 +770,7 @@ private:
     std::size_t count_ = 0;
     std::uint64_t generation_ = 1;
     bool check_finite_ = false;
+    executor* workers_ = nullptr;
 };
 
 template <class T>

@@ -8,55 +8,158 @@
 //
 // Method: the blocked, packed scheme of Goto & van de Geijn 2008, "Anatomy of
 // High-Performance Matrix Multiplication" (ACM TOMS 34(3), section 4 and
-// figure 8). op(B) is copied block by block (kc x nc) into panels of
-// `panel_columns` contiguous columns and op(A) (mc x kc) into panels of
-// `panel_rows` contiguous rows; a small register tile of C
-// (panel_rows x panel_columns) then accumulates kc rank-1 updates from two
+// figure 8). op(B) is copied block by block (kc x nc) into panels of nr
+// contiguous columns and op(A) (mc x kc) into panels of mr contiguous rows; a
+// register tile of C (mr x nr) then accumulates kc rank-1 updates from two
 // contiguous streams. Packing makes the four transpose cases one kernel: a
 // transposed operand only changes the order in which the copy reads it, so
 // op(B) = B^T (the case backpropagation uses for the input gradient) runs
-// as fast as the plain product instead of as strided dot products. The tile
-// loops have fixed trip counts, so the compiler vectorizes and unrolls them
-// with whatever instruction set the host's flags allow; no intrinsics.
+// as fast as the plain product.
 //
-// Results differ from a naive triple loop only by rounding: each element of
-// C sums the same products, in blocks of kc terms, then scales by alpha once.
+// Kernel paths. tenon is header-only, so the host's compiler flags decide
+// which instructions an ordinary function may use; with default flags that
+// is SSE2 on x86-64. The register tile therefore comes in several versions,
+// each compiled for its instruction set with a function attribute, and the
+// first call picks the best the running CPU supports (kernel_path):
+//   avx512    8 x 32 float / 8 x 16 double tile, AVX-512F fused multiply-add
+//   avx2      6 x 16 float / 6 x 8 double tile, AVX2 + FMA3
+//   portable  4 x 32 tile in plain C++ (any compiler, any CPU)
+//   blas      the configured BLAS (tenon::blas component, TENON_HAS_BLAS)
+// Only the packed tile is dispatched; products thinner than a tile (such as
+// a single row to predict) take unpacked plain-C++ loops on every path, so
+// their results do not depend on the path.
+// set_kernel_path() forces a path (tests, benchmarks, reproducing results
+// made on another machine).
+//
+// Rounding. Each element of C sums the same products, in blocks of kc terms,
+// then adds alpha times each block sum to C. Within one path the order of
+// the additions is fixed by the shape alone, so results are reproducible.
+// The fused multiply-add of the avx2 and avx512 paths rounds once where the
+// portable path rounds twice, so paths differ from each other by rounding
+// (within the dot-product bound of Higham 2002, "Accuracy and Stability of
+// Numerical Algorithms", 2nd ed., section 3.1, eq. 3.4). The fused paths
+// agree with each other only where their tiles do; they are not promised
+// to be bit-identical.
+//
+// Threads. Given an executor (core/parallel.hpp) with concurrency > 1, the
+// product is split into bands of whole tiles: bands of columns of C when C
+// is at least as wide as it is tall (each task packs its own slice of op(B)
+// and all of op(A)), bands of rows otherwise. Band edges fall on the same
+// tile grid as a single-threaded call and every element is computed by one
+// task in the same order, so results are bit-identical for any thread count.
 //
 // Memory: the packed blocks live in per-thread scratch buffers that grow to
 // at most (mc + nc) * kc scalars and are reused, so steady-state calls do
 // not allocate. If the scratch cannot grow (allocation failure), the product
-// falls back to unpacked loops, which need no memory. Products with fewer
-// than panel_rows rows or thin_columns columns take the unpacked loops too.
+// falls back to unpacked loops, which need no memory.
 #pragma once
 
 #include <algorithm>
+#include <atomic>
+#include <climits>
 #include <cstddef>
+#include <cstdint>
 #include <new>
+#include <string>
+#include <type_traits>
 #include <vector>
 
+#include "tenon/core/error.hpp"
+#include "tenon/core/error_codes.hpp"
+#include "tenon/core/parallel.hpp"
+#include "tenon/core/simd.hpp"
 #include "tenon/version.hpp"
+
+#if defined(TENON_HAS_BLAS) && TENON_HAS_BLAS
+#include <cblas.h>
+#define TENON_GEMM_BLAS 1
+#else
+#define TENON_GEMM_BLAS 0
+#endif
+
+#define TENON_GEMM_X86 TENON_SIMD_X86
 
 TENON_NAMESPACE_BEGIN
 
+/// The implementations of the packed product (see the top of this file).
+enum class kernel_path : std::uint8_t { portable, avx2, avx512, blas };
+
+inline const char* kernel_path_name(kernel_path p) noexcept {
+    switch (p) {
+        case kernel_path::portable: return "portable";
+        case kernel_path::avx2: return "avx2";
+        case kernel_path::avx512: return "avx512";
+        case kernel_path::blas: return "blas";
+    }
+    return "unknown";
+}
+
+/// Whether this build and the running CPU can use path `p`.
+inline bool kernel_path_available(kernel_path p) noexcept {
+    switch (p) {
+        case kernel_path::portable: return true;
+        case kernel_path::blas: return TENON_GEMM_BLAS != 0;
+        case kernel_path::avx2: return cpu_has_avx2_fma();
+        case kernel_path::avx512: return cpu_has_avx512f();
+    }
+    return false;
+}
+
+/// The fastest built-in (non-BLAS) path the running CPU supports.
+inline kernel_path best_builtin_kernel_path() noexcept {
+    if (kernel_path_available(kernel_path::avx512)) return kernel_path::avx512;
+    if (kernel_path_available(kernel_path::avx2)) return kernel_path::avx2;
+    return kernel_path::portable;
+}
+
+/// The default path: the BLAS when the build has one, else the best built-in path.
+inline kernel_path default_kernel_path() noexcept {
+    return kernel_path_available(kernel_path::blas) ? kernel_path::blas : best_builtin_kernel_path();
+}
+
+namespace detail {
+// One process-wide choice (an inline function's static is one object across
+// translation units), detected on first use.
+inline std::atomic<std::uint8_t>& kernel_path_slot() noexcept {
+    static std::atomic<std::uint8_t> slot{static_cast<std::uint8_t>(default_kernel_path())};
+    return slot;
+}
+}  // namespace detail
+
+/// The path gemm uses now.
+inline kernel_path active_kernel_path() noexcept {
+    return static_cast<kernel_path>(detail::kernel_path_slot().load(std::memory_order_relaxed));
+}
+
+/// Makes gemm use path `p` from now on, process-wide; raises
+/// core.argument.invalid if this build or CPU cannot run it. Meant for
+/// tests, benchmarks and reproducing results; do not switch while another
+/// thread multiplies.
+inline void set_kernel_path(kernel_path p) {
+    if (!kernel_path_available(p)) {
+        raise(codes::invalid_argument, std::string("set_kernel_path: the ") + kernel_path_name(p) + " path is not available " +
+                                           (p == kernel_path::blas ? "(build without the tenon::blas component)"
+                                                                   : "(the CPU or compiler lacks its instructions)"));
+    }
+    detail::kernel_path_slot().store(static_cast<std::uint8_t>(p), std::memory_order_relaxed);
+}
+
 namespace detail {
 
-// Blocking sizes (common practice, then measured): a tile of 4 rows x 32
-// columns. Among 4 x 4, 4 x 8, 4 x 16 and 4 x 32 tiles it was the fastest
-// (or within 10% of it) for float and double with both GCC 12 and Clang 14,
-// with the default x86-64 flags (SSE2) and, for float, with -march=native;
-// 16 columns fell into a slow, unvectorized path with GCC. See
-// bench/bench_gemm.cpp. A packed A block (mc x kc, 64 KiB for float) stays
-// in L2. Results with fewer than `thin_columns` columns or `panel_rows` rows
-// skip the packing (see gemm_unpacked).
+// Results with fewer columns than this take the unpacked loops (packing
+// would cost as much as the arithmetic): one 32-byte vector.
 template <class T>
-struct gemm_blocking {
-    static constexpr std::size_t panel_rows = 4;
-    static constexpr std::size_t panel_columns = 32;
-    static constexpr std::size_t thin_columns = 32 / sizeof(T);
-    static constexpr std::size_t kc = 256;
-    static constexpr std::size_t mc = 64;
-    static constexpr std::size_t nc = 512;
-    static_assert(mc % panel_rows == 0 && nc % panel_columns == 0, "blocks hold whole panels");
+inline constexpr std::size_t thin_columns = 32 / sizeof(T);
+
+// The portable kernel's blocking (common practice, then measured): a tile of
+// 4 rows x 32 columns. Among 4 x 4, 4 x 8, 4 x 16 and 4 x 32 tiles it was the
+// fastest (or within 10% of it) for float and double with both GCC 12 and
+// Clang 14 with the default x86-64 flags (SSE2); 16 columns fell into a
+// slow, unvectorized path with GCC. A packed A block (mc x kc, 64 KiB for
+// float) stays in L2.
+template <class T>
+struct portable_kernel {
+    static constexpr std::size_t mr = 4, nr = 32, kc = 256, mc = 64, nc = 512;
 };
 
 // Element (row, col) of op(X) for a row-major X with row stride ld.
@@ -66,70 +169,70 @@ inline T op_element(const T* x, std::size_t ld, bool transposed, std::size_t row
 }
 
 // Packs rows [i0, i0 + rows) and depths [p0, p0 + depth) of op(A) into
-// panels of panel_rows rows: panel q holds, for each depth p, the
-// panel_rows values op(A)(i0 + q * panel_rows + r, p0 + p), zero-padded past
-// the last row.
-template <class T>
+// panels of MR rows: panel q holds, for each depth p, the MR values
+// op(A)(i0 + q * MR + r, p0 + p), zero-padded past the last row.
+template <std::size_t MR, class T>
 void pack_a_block(const T* a, std::size_t lda, bool transpose_a, std::size_t i0, std::size_t rows, std::size_t p0,
                   std::size_t depth, T* out) noexcept {
-    constexpr std::size_t mr = gemm_blocking<T>::panel_rows;
-    for (std::size_t q = 0; q < rows; q += mr) {
-        const std::size_t live = std::min(mr, rows - q);
+    for (std::size_t q = 0; q < rows; q += MR) {
+        const std::size_t live = std::min(MR, rows - q);
         T* panel = out + q * depth;
         if (!transpose_a) {
-            for (std::size_t r = 0; r < mr; ++r) {
+            for (std::size_t r = 0; r < MR; ++r) {
                 if (r < live) {
                     const T* source = a + (i0 + q + r) * lda + p0;
-                    for (std::size_t p = 0; p < depth; ++p) panel[p * mr + r] = source[p];
+                    for (std::size_t p = 0; p < depth; ++p) panel[p * MR + r] = source[p];
                 } else {
-                    for (std::size_t p = 0; p < depth; ++p) panel[p * mr + r] = T(0);
+                    for (std::size_t p = 0; p < depth; ++p) panel[p * MR + r] = T(0);
                 }
             }
         } else {
             for (std::size_t p = 0; p < depth; ++p) {
                 const T* source = a + (p0 + p) * lda + i0 + q;
-                for (std::size_t r = 0; r < mr; ++r) panel[p * mr + r] = r < live ? source[r] : T(0);
+                for (std::size_t r = 0; r < MR; ++r) panel[p * MR + r] = r < live ? source[r] : T(0);
             }
         }
     }
 }
 
 // Packs depths [p0, p0 + depth) and columns [j0, j0 + cols) of op(B) into
-// panels of panel_columns columns: panel q holds, for each depth p, the
-// panel_columns values op(B)(p0 + p, j0 + q * panel_columns + c),
-// zero-padded past the last column.
-template <class T>
+// panels of NR columns: panel q holds, for each depth p, the NR values
+// op(B)(p0 + p, j0 + q * NR + c), zero-padded past the last column.
+template <std::size_t NR, class T>
 void pack_b_block(const T* b, std::size_t ldb, bool transpose_b, std::size_t p0, std::size_t depth, std::size_t j0,
                   std::size_t cols, T* out) noexcept {
-    constexpr std::size_t nr = gemm_blocking<T>::panel_columns;
-    for (std::size_t q = 0; q < cols; q += nr) {
-        const std::size_t live = std::min(nr, cols - q);
+    for (std::size_t q = 0; q < cols; q += NR) {
+        const std::size_t live = std::min(NR, cols - q);
         T* panel = out + q * depth;
         if (!transpose_b) {
             for (std::size_t p = 0; p < depth; ++p) {
                 const T* source = b + (p0 + p) * ldb + j0 + q;
-                for (std::size_t c = 0; c < nr; ++c) panel[p * nr + c] = c < live ? source[c] : T(0);
+                if (live == NR) {
+                    for (std::size_t c = 0; c < NR; ++c) panel[p * NR + c] = source[c];
+                } else {
+                    for (std::size_t c = 0; c < NR; ++c) panel[p * NR + c] = c < live ? source[c] : T(0);
+                }
             }
         } else {
-            for (std::size_t c = 0; c < nr; ++c) {
+            for (std::size_t c = 0; c < NR; ++c) {
                 if (c < live) {
                     const T* source = b + (j0 + q + c) * ldb + p0;
-                    for (std::size_t p = 0; p < depth; ++p) panel[p * nr + c] = source[p];
+                    for (std::size_t p = 0; p < depth; ++p) panel[p * NR + c] = source[p];
                 } else {
-                    for (std::size_t p = 0; p < depth; ++p) panel[p * nr + c] = T(0);
+                    for (std::size_t p = 0; p < depth; ++p) panel[p * NR + c] = T(0);
                 }
             }
         }
     }
 }
 
-// C tile (rows x cols, at most panel_rows x panel_columns) += alpha * sum over
+// C tile (rows x cols, at most mr x nr of the portable kernel) += alpha * sum over
 // depth of packed A panel (x) packed B panel.
 template <class T>
 void gemm_tile(std::size_t depth, const T* a_panel, const T* b_panel, T alpha, T* c, std::size_t ldc, std::size_t rows,
                std::size_t cols) noexcept {
-    constexpr std::size_t mr = gemm_blocking<T>::panel_rows;
-    constexpr std::size_t nr = gemm_blocking<T>::panel_columns;
+    constexpr std::size_t mr = portable_kernel<T>::mr;
+    constexpr std::size_t nr = portable_kernel<T>::nr;
     T acc[mr][nr] = {};
     for (std::size_t p = 0; p < depth; ++p) {
         const T* ap = a_panel + p * mr;
@@ -175,13 +278,13 @@ T split_dot(const T* x, std::size_t incx, const T* y, std::size_t incy, std::siz
 }
 
 // The unpacked product, for results too thin to fill a register tile (fewer
-// than panel_rows rows or thin_columns columns, such as a single row to
+// than a kernel's tile rows or thin_columns columns, such as a single row to
 // predict or a single regression output), where packing would cost as much
 // as the arithmetic; also the fallback when the scratch cannot grow.
 template <class T>
 void gemm_unpacked(bool transpose_a, bool transpose_b, std::size_t m, std::size_t n, std::size_t k, T alpha, const T* a,
                    std::size_t lda, const T* b, std::size_t ldb, T* c, std::size_t ldc) noexcept {
-    if (!transpose_b && n >= gemm_blocking<T>::thin_columns) {
+    if (!transpose_b && n >= thin_columns<T>) {
         // Few rows: each row of C accumulates scaled rows of B (contiguous).
         for (std::size_t i = 0; i < m; ++i) {
             T* ci = c + i * ldc;
@@ -237,57 +340,305 @@ inline std::size_t round_up(std::size_t value, std::size_t multiple) noexcept {
     return (value + multiple - 1) / multiple * multiple;
 }
 
-}  // namespace detail
+#if TENON_GEMM_X86
+// The tiles: MR rows x 2 vectors of columns, MR * 2 accumulators held in
+// registers (AVX-512 has 32 vector registers: 16 accumulators, 2 columns of
+// B and one broadcast of A; AVX2 has 16: 12 + 2 + 1). Per depth step: two
+// loads of B, MR broadcasts of A, 2 * MR independent fused multiply-adds,
+// enough to cover the multiply-add latency on two ports (Goto & van de Geijn
+// 2008, section 6.2, on choosing mr x nr from the register count). Written
+// out per instruction set because the target attribute cannot be a
+// template argument.
+#define TENON_GEMM_SIMD_TILE(TARGET, OPS)                                                                        \
+    TARGET static void tile(std::size_t depth, const T* a, const T* b, T alpha, T* c, std::size_t ldc) noexcept { \
+        using ops = OPS<T>;                                                                                        \
+        using vector = typename ops::vector;                                                                       \
+        constexpr std::size_t lanes = ops::lanes;                                                                  \
+        vector acc0[mr], acc1[mr];                                                                                 \
+        _Pragma("GCC unroll 16") for (std::size_t r = 0; r < mr; ++r) acc0[r] = acc1[r] = ops::zero();            \
+        for (std::size_t p = 0; p < depth; ++p) {                                                                  \
+            const vector b0 = ops::load(b + p * nr), b1 = ops::load(b + p * nr + lanes);                           \
+            const T* ap = a + p * mr;                                                                              \
+            _Pragma("GCC unroll 16") for (std::size_t r = 0; r < mr; ++r) {                                        \
+                const vector ar = ops::broadcast(ap[r]);                                                           \
+                acc0[r] = ops::fma(ar, b0, acc0[r]);                                                               \
+                acc1[r] = ops::fma(ar, b1, acc1[r]);                                                               \
+            }                                                                                                      \
+        }                                                                                                          \
+        const vector scale = ops::broadcast(alpha);                                                                \
+        _Pragma("GCC unroll 16") for (std::size_t r = 0; r < mr; ++r) {                                            \
+            T* cr = c + r * ldc;                                                                                   \
+            ops::store(cr, ops::fma(scale, acc0[r], ops::load(cr)));                                               \
+            ops::store(cr + lanes, ops::fma(scale, acc1[r], ops::load(cr + lanes)));                               \
+        }                                                                                                          \
+    }
 
 template <class T>
-void gemm(bool transpose_a, bool transpose_b, std::size_t m, std::size_t n, std::size_t k, T alpha,
-          const T* a, std::size_t lda, const T* b, std::size_t ldb, T beta, T* c, std::size_t ldc) noexcept {
-    for (std::size_t i = 0; i < m; ++i) {
-        T* ci = c + i * ldc;
-        if (beta == T(0)) {
-            for (std::size_t j = 0; j < n; ++j) ci[j] = T(0);
-        } else if (beta != T(1)) {
-            for (std::size_t j = 0; j < n; ++j) ci[j] *= beta;
+struct avx512_kernel {
+    static constexpr std::size_t mr = 8, nr = 2 * avx512_ops<T>::lanes, kc = 256, mc = 128, nc = 512;
+    TENON_GEMM_SIMD_TILE(TENON_TARGET_AVX512, avx512_ops)
+};
+template <class T>
+struct avx2_kernel {
+    static constexpr std::size_t mr = 6, nr = 2 * avx2_ops<T>::lanes, kc = 256, mc = 120, nc = 512;
+    TENON_GEMM_SIMD_TILE(TENON_TARGET_AVX2, avx2_ops)
+};
+#undef TENON_GEMM_SIMD_TILE
+#endif  // TENON_GEMM_X86
+
+
+
+// One product and the band of C a task computes.
+template <class T>
+struct gemm_problem {
+    bool transpose_a, transpose_b;
+    std::size_t m, n, k;
+    T alpha;
+    const T* a;
+    std::size_t lda;
+    const T* b;
+    std::size_t ldb;
+    T beta;
+    T* c;
+    std::size_t ldc;
+};
+
+// Rows [i0, i0 + m) and columns [j0, j0 + n) of the product, with the
+// operands and C shifted to start there.
+template <class T>
+gemm_problem<T> sub_problem(const gemm_problem<T>& g, std::size_t i0, std::size_t m, std::size_t j0, std::size_t n) noexcept {
+    gemm_problem<T> s = g;
+    s.m = m;
+    s.n = n;
+    s.a = g.transpose_a ? g.a + i0 : g.a + i0 * g.lda;
+    s.b = g.transpose_b ? g.b + j0 * g.ldb : g.b + j0;
+    s.c = g.c + i0 * g.ldc + j0;
+    return s;
+}
+
+template <class T>
+void scale_c(const gemm_problem<T>& g) noexcept {
+    for (std::size_t i = 0; i < g.m; ++i) {
+        T* ci = g.c + i * g.ldc;
+        if (g.beta == T(0)) {
+            for (std::size_t j = 0; j < g.n; ++j) ci[j] = T(0);
+        } else if (g.beta != T(1)) {
+            for (std::size_t j = 0; j < g.n; ++j) ci[j] *= g.beta;
         }
     }
-    if (m == 0 || n == 0 || k == 0) return;
+}
 
-    using blocking = detail::gemm_blocking<T>;
-    constexpr std::size_t mr = blocking::panel_rows, nr = blocking::panel_columns;
-    if (m < mr || n < blocking::thin_columns) {
-        detail::gemm_unpacked(transpose_a, transpose_b, m, n, k, alpha, a, lda, b, ldb, c, ldc);
-        return;
+// One register tile of C: the portable tile handles partial tiles itself;
+// the SIMD tiles always compute a whole tile, so a partial one goes through
+// a copy of C's live part (same operations, same rounding as a whole tile).
+template <class T, class K>
+void run_tile(std::size_t depth, const T* a_panel, const T* b_panel, T alpha, T* c, std::size_t ldc, std::size_t rows,
+              std::size_t cols) noexcept {
+    if constexpr (std::is_same_v<K, portable_kernel<T>>) {
+        gemm_tile(depth, a_panel, b_panel, alpha, c, ldc, rows, cols);
+    } else {
+        if (rows == K::mr && cols == K::nr) {
+            K::tile(depth, a_panel, b_panel, alpha, c, ldc);
+            return;
+        }
+        alignas(64) T part[K::mr * K::nr] = {};
+        for (std::size_t r = 0; r < rows; ++r)
+            for (std::size_t col = 0; col < cols; ++col) part[r * K::nr + col] = c[r * ldc + col];
+        K::tile(depth, a_panel, b_panel, alpha, part, K::nr);
+        for (std::size_t r = 0; r < rows; ++r)
+            for (std::size_t col = 0; col < cols; ++col) c[r * ldc + col] = part[r * K::nr + col];
     }
-    const std::size_t kc = std::min(k, blocking::kc);
-    const std::size_t mc = std::min(detail::round_up(m, mr), blocking::mc);
-    const std::size_t nc = std::min(detail::round_up(n, nr), blocking::nc);
-    auto& scratch = detail::gemm_scratch<T>::for_this_thread();
-    if (!scratch.reserve(mc * kc, nc * kc)) {
-        detail::gemm_unpacked(transpose_a, transpose_b, m, n, k, alpha, a, lda, b, ldb, c, ldc);
-        return;
-    }
+}
+
+// The packed product of g (C already scaled by beta) with kernel K; false
+// if the scratch could not grow.
+template <class T, class K>
+bool gemm_packed(const gemm_problem<T>& g, gemm_scratch<T>& scratch) noexcept {
+    constexpr std::size_t mr = K::mr, nr = K::nr;
+    const std::size_t kc = std::min(g.k, K::kc);
+    const std::size_t mc = std::min(round_up(g.m, mr), K::mc);
+    const std::size_t nc = std::min(round_up(g.n, nr), K::nc);
+    if (!scratch.reserve(mc * kc, nc * kc)) return false;
     T* const packed_a = scratch.a_block.data();
     T* const packed_b = scratch.b_block.data();
-
-    for (std::size_t j0 = 0; j0 < n; j0 += nc) {
-        const std::size_t cols = std::min(nc, n - j0);
-        for (std::size_t p0 = 0; p0 < k; p0 += kc) {
-            const std::size_t depth = std::min(kc, k - p0);
-            detail::pack_b_block(b, ldb, transpose_b, p0, depth, j0, cols, packed_b);
-            for (std::size_t i0 = 0; i0 < m; i0 += mc) {
-                const std::size_t rows = std::min(mc, m - i0);
-                detail::pack_a_block(a, lda, transpose_a, i0, rows, p0, depth, packed_a);
+    for (std::size_t j0 = 0; j0 < g.n; j0 += nc) {
+        const std::size_t cols = std::min(nc, g.n - j0);
+        for (std::size_t p0 = 0; p0 < g.k; p0 += kc) {
+            const std::size_t depth = std::min(kc, g.k - p0);
+            pack_b_block<nr>(g.b, g.ldb, g.transpose_b, p0, depth, j0, cols, packed_b);
+            for (std::size_t i0 = 0; i0 < g.m; i0 += mc) {
+                const std::size_t rows = std::min(mc, g.m - i0);
+                pack_a_block<mr>(g.a, g.lda, g.transpose_a, i0, rows, p0, depth, packed_a);
                 for (std::size_t jq = 0; jq < cols; jq += nr) {
                     const T* b_panel = packed_b + jq * depth;
                     const std::size_t tile_cols = std::min(nr, cols - jq);
                     for (std::size_t iq = 0; iq < rows; iq += mr) {
-                        detail::gemm_tile(depth, packed_a + iq * depth, b_panel, alpha, c + (i0 + iq) * ldc + j0 + jq, ldc,
-                                          std::min(mr, rows - iq), tile_cols);
+                        run_tile<T, K>(depth, packed_a + iq * depth, b_panel, g.alpha, g.c + (i0 + iq) * g.ldc + j0 + jq, g.ldc,
+                                       std::min(mr, rows - iq), tile_cols);
                     }
                 }
             }
         }
     }
+    return true;
+}
+
+#if TENON_GEMM_BLAS
+inline void blas_gemm(const gemm_problem<float>& g) noexcept {
+    cblas_sgemm(CblasRowMajor, g.transpose_a ? CblasTrans : CblasNoTrans, g.transpose_b ? CblasTrans : CblasNoTrans,
+                static_cast<int>(g.m), static_cast<int>(g.n), static_cast<int>(g.k), g.alpha, g.a, static_cast<int>(g.lda), g.b,
+                static_cast<int>(g.ldb), g.beta, g.c, static_cast<int>(g.ldc));
+}
+inline void blas_gemm(const gemm_problem<double>& g) noexcept {
+    cblas_dgemm(CblasRowMajor, g.transpose_a ? CblasTrans : CblasNoTrans, g.transpose_b ? CblasTrans : CblasNoTrans,
+                static_cast<int>(g.m), static_cast<int>(g.n), static_cast<int>(g.k), g.alpha, g.a, static_cast<int>(g.lda), g.b,
+                static_cast<int>(g.ldb), g.beta, g.c, static_cast<int>(g.ldc));
+}
+#endif
+
+// Tile rows of the packed kernel of `path` (where a thin product begins).
+template <class T>
+std::size_t tile_rows(kernel_path path) noexcept {
+#if TENON_GEMM_X86
+    if (path == kernel_path::avx512) return avx512_kernel<T>::mr;
+    if (path == kernel_path::avx2) return avx2_kernel<T>::mr;
+#endif
+    (void)path;
+    return portable_kernel<T>::mr;
+}
+template <class T>
+std::size_t tile_columns(kernel_path path) noexcept {
+#if TENON_GEMM_X86
+    if (path == kernel_path::avx512) return avx512_kernel<T>::nr;
+    if (path == kernel_path::avx2) return avx2_kernel<T>::nr;
+#endif
+    (void)path;
+    return portable_kernel<T>::nr;
+}
+
+// The whole product of g on the calling thread with `path`.
+template <class T>
+void gemm_band(const gemm_problem<T>& g, kernel_path path, gemm_scratch<T>& scratch) noexcept {
+#if TENON_GEMM_BLAS
+    if (path == kernel_path::blas) {
+        blas_gemm(g);
+        return;
+    }
+#endif
+    scale_c(g);
+    if (g.k == 0) return;
+    bool packed = false;
+    switch (path) {
+#if TENON_GEMM_X86
+        case kernel_path::avx512: packed = gemm_packed<T, avx512_kernel<T>>(g, scratch); break;
+        case kernel_path::avx2: packed = gemm_packed<T, avx2_kernel<T>>(g, scratch); break;
+#endif
+        default: packed = gemm_packed<T, portable_kernel<T>>(g, scratch); break;
+    }
+    if (!packed) gemm_unpacked(g.transpose_a, g.transpose_b, g.m, g.n, g.k, g.alpha, g.a, g.lda, g.b, g.ldb, g.c, g.ldc);
+}
+
+// Products below this many multiply-adds run on one thread: handing out a
+// task costs microseconds (measured with bench/bench_perf.cpp; the 8-32-32-1
+// network's layers stay below it).
+inline constexpr std::size_t parallel_threshold = std::size_t(1) << 17;
+
+// Packing buffers for the bands of a split product, one per band index,
+// owned by the calling thread. A band index always gets the same band of a
+// given product, whichever thread runs it, so each buffer reaches its size
+// in the first call and steady-state calls allocate nothing (per-thread
+// buffers would grow whenever a thread first happened to draw a larger band).
+template <class T>
+struct gemm_band_scratch {
+    std::vector<gemm_scratch<T>> bands;
+
+    static gemm_band_scratch& for_this_thread() noexcept {
+        static thread_local gemm_band_scratch scratch;
+        return scratch;
+    }
+    bool reserve(std::size_t count) noexcept {
+        if (bands.size() >= count) return true;
+#if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
+        try {
+            bands.resize(count);
+        } catch (const std::bad_alloc&) {
+            return false;
+        }
+#else
+        bands.resize(count);
+#endif
+        return true;
+    }
+};
+
+template <class T>
+struct gemm_split {
+    const gemm_problem<T>* g;
+    gemm_scratch<T>* scratch;
+    kernel_path path;
+    bool by_rows;
+    std::size_t unit, units, parts;
+
+    static void run_part(void* context, std::size_t index) {
+        const gemm_split& s = *static_cast<const gemm_split*>(context);
+        const std::size_t first = index * s.units / s.parts * s.unit;
+        const std::size_t extent = s.by_rows ? s.g->m : s.g->n;
+        const std::size_t last = std::min(extent, (index + 1) * s.units / s.parts * s.unit);
+        if (first >= last) return;
+        const gemm_problem<T> band = s.by_rows ? sub_problem(*s.g, first, last - first, 0, s.g->n)
+                                               : sub_problem(*s.g, 0, s.g->m, first, last - first);
+        gemm_band(band, s.path, s.scratch[index]);
+    }
+};
+
+}  // namespace detail
+
+/// C = alpha op(A) op(B) + beta C (see the top of this file), split across
+/// `workers` when given and the product is large enough.
+template <class T>
+void gemm(bool transpose_a, bool transpose_b, std::size_t m, std::size_t n, std::size_t k, T alpha, const T* a, std::size_t lda,
+          const T* b, std::size_t ldb, T beta, T* c, std::size_t ldc, executor* workers) noexcept {
+    if (m == 0 || n == 0) return;
+    const detail::gemm_problem<T> g{transpose_a, transpose_b, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc};
+    kernel_path path = active_kernel_path();
+    if (path == kernel_path::blas) {
+        constexpr std::size_t limit = static_cast<std::size_t>(INT_MAX);
+        if (k == 0 || m > limit || n > limit || k > limit || lda > limit || ldb > limit || ldc > limit) path = best_builtin_kernel_path();
+    }
+    // Thin products take the plain loops on every path, the BLAS one
+    // included: a call costs more than the arithmetic there, and single-row
+    // predictions then give the same bits on every path.
+    if (m < detail::tile_rows<T>(path) || n < detail::thin_columns<T>) {
+        detail::scale_c(g);
+        if (k > 0) detail::gemm_unpacked(transpose_a, transpose_b, m, n, k, alpha, a, lda, b, ldb, c, ldc);
+        return;
+    }
+    const std::size_t threads = workers ? workers->concurrency() : 1;
+    if (threads <= 1 || m * n * k < detail::parallel_threshold) {
+        detail::gemm_band(g, path, detail::gemm_scratch<T>::for_this_thread());
+        return;
+    }
+    auto& bands = detail::gemm_band_scratch<T>::for_this_thread();
+    if (!bands.reserve(threads)) {
+        detail::gemm_band(g, path, detail::gemm_scratch<T>::for_this_thread());
+        return;
+    }
+    detail::gemm_split<T> split{};
+    split.g = &g;
+    split.scratch = bands.bands.data();
+    split.path = path;
+    split.by_rows = m > n;
+    split.unit = path == kernel_path::blas ? 16 : (split.by_rows ? detail::tile_rows<T>(path) : detail::tile_columns<T>(path));
+    split.units = ((split.by_rows ? m : n) + split.unit - 1) / split.unit;
+    split.parts = std::min(threads, split.units);
+    workers->run(split.parts, &detail::gemm_split<T>::run_part, &split);
+}
+
+/// C = alpha op(A) op(B) + beta C on the calling thread.
+template <class T>
+void gemm(bool transpose_a, bool transpose_b, std::size_t m, std::size_t n, std::size_t k, T alpha, const T* a, std::size_t lda,
+          const T* b, std::size_t ldb, T beta, T* c, std::size_t ldc) noexcept {
+    gemm<T>(transpose_a, transpose_b, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc, nullptr);
 }
 
 TENON_NAMESPACE_END

@@ -81,7 +81,7 @@ var<T> cross_entropy_loss(tape<T>& t, var<T> logits, const std::vector<std::size
     const T divisor = detail::reduction_divisor(name, options, total);
     const T eps = options.label_smoothing;
     const T off = eps / static_cast<T>(s.cols);
-    matrix<T>& q = detail::loss_scratch<T>(1);
+    matrix<T>& q = detail::loss_scratch<T>(1, s);
     ensure_shape(q, s);
     for (std::size_t i = 0; i < s.rows; ++i) {
         const T c = options.class_weights.empty() ? T(1) : options.class_weights[labels[i]];
@@ -105,7 +105,7 @@ var<T> cross_entropy_loss(tape<T>& t, var<T> logits, const matrix<T>& targets, c
     detail::check_class_weights(name, options, s.cols);
     detail::check_smoothing(name, options);
 
-    matrix<T>& w = detail::loss_scratch<T>(0);
+    matrix<T>& w = detail::loss_scratch<T>(0, shape2{s.rows, 1});
     ensure_shape(w, shape2{s.rows, 1});
     double total = 0.0;
     for (std::size_t i = 0; i < s.rows; ++i) {
@@ -120,7 +120,7 @@ var<T> cross_entropy_loss(tape<T>& t, var<T> logits, const matrix<T>& targets, c
     const T divisor = detail::reduction_divisor(name, options, total);
     const T eps = options.label_smoothing;
     const T off = eps / static_cast<T>(s.cols);
-    matrix<T>& q = detail::loss_scratch<T>(1);
+    matrix<T>& q = detail::loss_scratch<T>(1, s);
     ensure_shape(q, s);
     for (std::size_t i = 0; i < s.rows; ++i) {
         const T wi = w.data()[i] / divisor;
@@ -158,7 +158,7 @@ var<T> binary_cross_entropy_loss(tape<T>& t, var<T> logits, const matrix<T>& tar
     if (eps != T(0)) e = e - (eps / T(2)) * logits;
     if (options.class_weights.empty()) return detail::reduce_elementwise(name, t, e, options);
 
-    matrix<T>& w = detail::loss_scratch<T>(1);
+    matrix<T>& w = detail::loss_scratch<T>(1, s);
     ensure_shape(w, s);
     double total = 0.0;
     const T c0 = options.class_weights[0], c1 = options.class_weights[1];
@@ -192,7 +192,7 @@ var<T> kl_from_log_prediction(tape<T>& t, var<T> log_q, const matrix<T>& p, cons
     double total = 0.0;
     for (std::size_t i = 0; i < s.rows; ++i) total += static_cast<double>(sample_weight(o, i));
     const T divisor = reduction_divisor(name, o, total);
-    matrix<T>& q = loss_scratch<T>(1);
+    matrix<T>& q = loss_scratch<T>(1, s);
     ensure_shape(q, s);
     double entropy_term = 0.0;  // sum_i w_i sum_j p_ij log p_ij / D
     for (std::size_t i = 0; i < s.rows; ++i) {

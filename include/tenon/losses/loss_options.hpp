@@ -48,10 +48,23 @@ struct loss_options {
 
 namespace detail {
 
+// Buffers for a loss's constant inputs (weights, smoothed targets) before
+// they are copied onto the tape: per slot a few buffers chosen by shape, so
+// that alternating batch shapes (full batches and an epoch's shorter last
+// batch) each keep a buffer of their own instead of reallocating one.
 template <class T>
-matrix<T>& loss_scratch(int slot) {
-    thread_local matrix<T> buffers[2];
-    return buffers[slot];
+matrix<T>& loss_scratch(int slot, shape2 shape) {
+    struct shelf {
+        matrix<T> buffers[4];
+        std::size_t next = 0;
+    };
+    thread_local shelf shelves[2];
+    shelf& s = shelves[slot];
+    for (auto& b : s.buffers)
+        if (shape_of(b) == shape) return b;
+    matrix<T>& b = s.buffers[s.next++ % 4];
+    ensure_shape(b, shape);
+    return b;
 }
 
 inline std::string loss_where(const char* loss) { return std::string(loss) + " loss"; }
@@ -129,7 +142,7 @@ var<T> reduce_elementwise(const char* loss, tape<T>& t, var<T> e, const loss_opt
     double total = 0.0;
     for (T w : o.sample_weights) total += static_cast<double>(w);
     const T divisor = reduction_divisor(loss, o, total * static_cast<double>(s.cols));
-    matrix<T>& column = loss_scratch<T>(0);
+    matrix<T>& column = loss_scratch<T>(0, shape2{s.rows, 1});
     ensure_shape(column, shape2{s.rows, 1});
     for (std::size_t i = 0; i < s.rows; ++i) column.data()[i] = o.sample_weights[i] / divisor;
     return sum(e * t.input(column));

@@ -17,7 +17,8 @@
 //     rate by `divergence_rate_factor` and retries the epoch, at most
 //     `divergence_retries` times.
 // With the same seed, data and options, two runs give bit-identical weights
-// (one thread; every random draw comes from tenon's engine).
+// (every random draw comes from tenon's engine, and the matrix products give
+// the same bits for any number of worker threads, see core/gemm.hpp).
 //
 // Allocation: the trainer keeps one tape for full batches and one for the
 // last, shorter batch of an epoch, so after the first epoch a training step
@@ -36,6 +37,7 @@
 #include <string>
 #include <vector>
 
+#include "tenon/core/parallel.hpp"
 #include "tenon/layers/network.hpp"
 #include "tenon/losses/classification.hpp"
 #include "tenon/losses/regression.hpp"
@@ -161,6 +163,10 @@ struct training_options {
     /// network, update rule and schedule must hold their state from the same
     /// point). `epochs` still counts from the start of the original run.
     const training_progress<T>* resume = nullptr;
+    /// Runs the matrix products of training and validation on these workers
+    /// (core/parallel.hpp); nullptr keeps everything on the calling thread.
+    /// Results are bit-identical for any thread count. Must outlive run().
+    executor* workers = nullptr;
 };
 
 namespace detail {
@@ -239,15 +245,17 @@ var<T> record_loss(tape<T>& t, var<T> output, loss_kind kind, const matrix<T>& t
 }
 
 /// Network outputs for every row, computed in inference mode in chunks of
-/// `chunk` rows (logits for classification, values for regression).
+/// `chunk` rows (logits for classification, values for regression), the
+/// matrix products split across `workers` when given.
 template <class T>
-matrix<T> network_outputs(network<T>& net, const matrix<T>& features, std::size_t chunk = 512) {
+matrix<T> network_outputs(network<T>& net, const matrix<T>& features, std::size_t chunk = 512, executor* workers = nullptr) {
     const std::size_t rows = features.shape()[0], cols = features.shape()[1];
     const run_mode saved = net.mode();
     net.set_mode(run_mode::inference);
     const std::size_t width = net.output_width(cols);
     matrix<T> out({rows, width});
     tape<T> t;
+    t.set_executor(workers);
     for (std::size_t start = 0; start < rows; start += chunk) {
         const std::size_t n = std::min(chunk, rows - start);
         t.clear();
@@ -487,7 +495,7 @@ public:
     /// Loss and metric (accuracy, or RMSE in prepared units) of `rows` in
     /// inference mode.
     void evaluate(const supervised_rows<T>& rows, double& loss, double& metric) {
-        const matrix<T> outputs = network_outputs(net_, rows.features);
+        const matrix<T> outputs = network_outputs(net_, rows.features, 512, options_.workers);
         tape<T> t;
         const var<T> o = t.input(outputs);
         loss = static_cast<double>(record_loss(t, o, options_.loss, rows.targets, rows.labels, options_.loss_settings).value()(0, 0));
@@ -529,6 +537,7 @@ private:
             gather(d, order, first, n, inputs, buf);
 
             buf.t.clear();
+            buf.t.set_executor(options_.workers);
             for (auto* p : net_.parameters()) p->zero_grad();
             const var<T> x = buf.t.input(buf.features);
             const var<T> y = net_.forward(buf.t, x);

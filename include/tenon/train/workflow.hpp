@@ -98,6 +98,13 @@ struct model_settings {
     const std::atomic<bool>* cancel = nullptr;
     std::function<bool(const epoch_summary&)> on_epoch;
     std::function<void(const batch_progress&)> on_batch;
+    /// Threads for the matrix products (the calling thread included): with
+    /// more than 1, fit_model starts a thread_pool of this size for the run
+    /// and stops it before returning. Results do not depend on it.
+    std::size_t threads = 1;
+    /// A host's own executor (core/parallel.hpp); when given, `threads` is
+    /// ignored and no thread is started.
+    executor* workers = nullptr;
 };
 
 /// A trained model with the plan that prepares its inputs.
@@ -201,6 +208,13 @@ fitted_model<T> fit_model(const table& t, const plan& recipe, const std::vector<
     o.cancel = s.cancel;
     o.on_epoch = s.on_epoch;
     o.on_batch = s.on_batch;
+    std::unique_ptr<thread_pool> pool;
+    if (s.workers) {
+        o.workers = s.workers;
+    } else if (s.threads != 1) {
+        pool = std::make_unique<thread_pool>(s.threads);
+        o.workers = pool.get();
+    }
     trainer<T> tr(model.net, *rule, schedule, std::move(o));
     model.outcome = tr.run(train, validation);
     return model;

@@ -6,6 +6,7 @@
 #include <cmath>
 #include <cstddef>
 
+#include "tenon/core/simd.hpp"
 #include "tenon/update/update_rule.hpp"
 
 TENON_NAMESPACE_BEGIN
@@ -64,6 +65,61 @@ private:
     momentum_options<T> m_;
 };
 
+namespace detail {
+
+#if TENON_SIMD_X86
+// GCC implements the add and multiply intrinsics as plain vector arithmetic,
+// which its default -ffp-contract=fast may fuse into multiply-adds; the
+// Adam pass must round each operation on its own (see below).
+#if defined(__GNUC__) && !defined(__clang__)
+#define TENON_NO_CONTRACTION __attribute__((optimize("fp-contract=off")))
+#else
+#define TENON_NO_CONTRACTION
+#endif
+// Adam's pass (see adam below) over the first multiple-of-the-vector-width
+// elements with AVX-512F or AVX2 vectors. The same operations in the same
+// order as the scalar loop, each correctly rounded (IEEE 754 multiply, add,
+// divide and square root; no fused multiply-add), so the result is
+// bit-identical to the scalar loop; only the speed changes. Returns the
+// number of elements done.
+#define TENON_ADAM_VECTOR_PASS(NAME, TARGET, OPS)                                                                       \
+    template <class T>                                                                                                  \
+    TARGET TENON_NO_CONTRACTION std::size_t NAME(T* w, const T* g, T* m, T* v, std::size_t n, T lr, const gradient_transform<T>& f, T b1, T b2, \
+                            T eps, T decay, T correction1, T correction2) noexcept {                                    \
+        using ops = OPS<T>;                                                                                             \
+        using vector = typename ops::vector;                                                                            \
+        const vector norm_scale = ops::broadcast(f.norm_scale), weight_decay = ops::broadcast(f.weight_decay);          \
+        const vector high = ops::broadcast(f.clip_value), low = ops::broadcast(-f.clip_value);                          \
+        const bool clipping = f.clip_value > T(0);                                                                      \
+        const vector vb1 = ops::broadcast(b1), vb2 = ops::broadcast(b2);                                                \
+        const vector rest1 = ops::broadcast(T(1) - b1), rest2 = ops::broadcast(T(1) - b2);                              \
+        const vector c1 = ops::broadcast(correction1), c2 = ops::broadcast(correction2);                                \
+        const vector rate = ops::broadcast(lr), veps = ops::broadcast(eps), vdecay = ops::broadcast(decay);             \
+        std::size_t k = 0;                                                                                              \
+        for (; k + ops::lanes <= n; k += ops::lanes) {                                                                  \
+            const vector wk = ops::load(w + k);                                                                         \
+            vector gk = ops::mul(ops::load(g + k), norm_scale);                                                         \
+            /* std::min(std::max(g, -c), c), NaN passing through as there */                                            \
+            if (clipping) gk = ops::min(high, ops::max(low, gk));                                                       \
+            gk = ops::add(gk, ops::mul(weight_decay, wk));                                                              \
+            const vector mk = ops::add(ops::mul(vb1, ops::load(m + k)), ops::mul(rest1, gk));                           \
+            const vector vk = ops::add(ops::mul(vb2, ops::load(v + k)), ops::mul(ops::mul(rest2, gk), gk));             \
+            ops::store(m + k, mk);                                                                                      \
+            ops::store(v + k, vk);                                                                                      \
+            const vector m_hat = ops::div(mk, c1), v_hat = ops::div(vk, c2);                                            \
+            const vector step = ops::div(ops::mul(rate, m_hat), ops::add(ops::sqrt(v_hat), veps));                      \
+            ops::store(w + k, ops::sub(wk, ops::add(step, ops::mul(vdecay, wk))));                                      \
+        }                                                                                                               \
+        return k;                                                                                                       \
+    }
+TENON_ADAM_VECTOR_PASS(adam_pass_avx512, TENON_TARGET_AVX512, avx512_ops)
+TENON_ADAM_VECTOR_PASS(adam_pass_avx2, TENON_TARGET_AVX2, avx2_ops)
+#undef TENON_ADAM_VECTOR_PASS
+#undef TENON_NO_CONTRACTION
+#endif
+
+}  // namespace detail
+
 template <class T>
 struct adam_options {
     // Defaults of Kingma & Ba 2015, Algorithm 1.
@@ -106,7 +162,15 @@ protected:
         const T correction1 = static_cast<T>(1.0 - std::pow(static_cast<double>(a_.beta1), t));
         const T correction2 = static_cast<T>(1.0 - std::pow(static_cast<double>(a_.beta2), t));
         const T b1 = a_.beta1, b2 = a_.beta2, eps = a_.epsilon, decay = lr * a_.decoupled_weight_decay;
-        for (std::size_t k = 0; k < n; ++k) {
+        std::size_t k = 0;
+#if TENON_SIMD_X86
+        if (cpu_has_avx512f()) {
+            k = detail::adam_pass_avx512(w, g, m, v, n, lr, f, b1, b2, eps, decay, correction1, correction2);
+        } else if (cpu_has_avx2_fma()) {
+            k = detail::adam_pass_avx2(w, g, m, v, n, lr, f, b1, b2, eps, decay, correction1, correction2);
+        }
+#endif
+        for (; k < n; ++k) {
             const T gk = f(g[k], w[k]);
             m[k] = b1 * m[k] + (T(1) - b1) * gk;
             v[k] = b2 * v[k] + (T(1) - b2) * gk * gk;

@@ -1,0 +1,521 @@
+// tenon against the hardware's limit: every comparison below runs in the same
+// process, at the same thread count, and the ratios are printed at the end
+// next to the targets of the performance work.
+//
+//   gemm            tenon::gemm (best built-in path) vs OpenBLAS sgemm at the
+//                   eight matrix shapes of a 784-256-128-10 perceptron's
+//                   training step at batch 128 (3 forward, 3 weight
+//                   gradients, 2 input gradients), each and all together
+//   step            one training step (forward, cross-entropy, backward,
+//                   Adam) vs the step's eight products alone in OpenBLAS
+//   epoch           one Fashion-MNIST epoch (54,000 training images in
+//                   batches of 128, then the 6,000 validation images) vs the
+//                   same epoch's products alone in OpenBLAS; built-in kernel
+//                   and BLAS backend
+//   predict         an 8-32-32-1 network, one prepared row per call: p50,
+//                   p99 and maximum latency over 200,000 calls
+//   z-score         z-scoring a 200,000 x 16 float matrix vs memcpy of it
+//
+// Build with the BLAS backend available (cmake/deps.sh installs OpenBLAS);
+// the benchmark switches between the built-in and BLAS paths with
+// tenon::set_kernel_path. Run (OPENBLAS_CORETYPE / OPENBLAS_L2_SIZE make
+// OpenBLAS use an older kernel, so unset them for the reference):
+//   env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE build/<dir>/bench/tenon_bench_perf
+#include <benchmark/benchmark.h>
+
+#include <algorithm>
+#include <chrono>
+#include <cstdio>
+#include <cstdlib>
+#include <cstring>
+#include <fstream>
+#include <map>
+#include <memory>
+#include <sstream>
+#include <string>
+#include <vector>
+
+#include <cblas.h>
+
+#include <tenon/core/gemm.hpp>
+#include <tenon/core/parallel.hpp>
+#include <tenon/deploy/predictor.hpp>
+#include <tenon/layers/network.hpp>
+#include <tenon/losses/classification.hpp>
+#include <tenon/prep/csv.hpp>
+#include <tenon/prep/idx_gzip.hpp>
+#include <tenon/prep/scaling.hpp>
+#include <tenon/prep/split.hpp>
+#include <tenon/train/trainer.hpp>
+#include <tenon/train/workflow.hpp>
+#include <tenon/update/rules.hpp>
+#include <tenon/update/schedules.hpp>
+
+extern "C" void openblas_set_num_threads(int);
+extern "C" char* openblas_get_config(void);
+
+#ifndef TENON_BENCH_FLAGS
+#define TENON_BENCH_FLAGS "(unknown)"
+#endif
+
+namespace {
+
+// ---------------------------------------------------------------------------
+// Shared set-up.
+
+tenon::thread_pool& pool(std::size_t threads) {
+    static std::map<std::size_t, std::unique_ptr<tenon::thread_pool>> pools;
+    auto& p = pools[threads];
+    if (!p) p = std::make_unique<tenon::thread_pool>(threads);
+    return *p;
+}
+
+// 0 = the best built-in path, 1 = the BLAS backend.
+tenon::kernel_path path_of(std::int64_t arg) {
+    return arg == 0 ? tenon::best_builtin_kernel_path() : tenon::kernel_path::blas;
+}
+
+// One matrix product of the 784-256-128-10 step at batch 128.
+struct product {
+    bool transpose_a, transpose_b;
+    int m, n, k;
+    const char* role;
+};
+constexpr int batch = 128;
+const product step_products[8] = {
+    {false, false, batch, 256, 784, "forward 1"},  {false, false, batch, 128, 256, "forward 2"},
+    {false, false, batch, 10, 128, "forward 3"},   {true, false, 784, 256, batch, "weights 1"},
+    {true, false, 256, 128, batch, "weights 2"},   {true, false, 128, 10, batch, "weights 3"},
+    {false, true, batch, 256, 128, "inputs 2"},    {false, true, batch, 128, 10, "inputs 3"},
+};
+
+struct product_buffers {
+    std::vector<float> a, b, c;
+    explicit product_buffers(const product& p)
+        : a(static_cast<std::size_t>(p.m) * static_cast<std::size_t>(p.k)),
+          b(static_cast<std::size_t>(p.k) * static_cast<std::size_t>(p.n)),
+          c(static_cast<std::size_t>(p.m) * static_cast<std::size_t>(p.n)) {
+        tenon::random_engine rng(5);
+        for (auto& v : a) v = rng.normal(0.0f, 1.0f);
+        for (auto& v : b) v = rng.normal(0.0f, 1.0f);
+    }
+};
+
+std::vector<product_buffers>& buffers() {
+    static std::vector<product_buffers> all = [] {
+        std::vector<product_buffers> v;
+        for (const auto& p : step_products) v.emplace_back(p);
+        return v;
+    }();
+    return all;
+}
+
+void openblas_product(const product& p, product_buffers& x, float beta) {
+    const int lda = p.transpose_a ? p.m : p.k, ldb = p.transpose_b ? p.k : p.n;
+    cblas_sgemm(CblasRowMajor, p.transpose_a ? CblasTrans : CblasNoTrans, p.transpose_b ? CblasTrans : CblasNoTrans, p.m, p.n,
+                p.k, 1.0f, x.a.data(), lda, x.b.data(), ldb, beta, x.c.data(), p.n);
+}
+
+void tenon_product(const product& p, product_buffers& x, float beta, tenon::executor* workers) {
+    const std::size_t m = static_cast<std::size_t>(p.m), n = static_cast<std::size_t>(p.n), k = static_cast<std::size_t>(p.k);
+    tenon::gemm<float>(p.transpose_a, p.transpose_b, m, n, k, 1.0f, x.a.data(), p.transpose_a ? m : k, x.b.data(),
+                       p.transpose_b ? k : n, beta, x.c.data(), n, workers);
+}
+
+double flops_of(int first, int last) {
+    double f = 0.0;
+    for (int i = first; i < last; ++i) f += 2.0 * step_products[i].m * step_products[i].n * step_products[i].k;
+    return f;
+}
+
+// ---------------------------------------------------------------------------
+// gemm: args (shape index 0..7, or 8 = all eight; threads).
+
+void gemm_tenon(benchmark::State& state) {
+    const int shape = static_cast<int>(state.range(0));
+    const std::size_t threads = static_cast<std::size_t>(state.range(1));
+    tenon::set_kernel_path(tenon::best_builtin_kernel_path());
+    openblas_set_num_threads(1);
+    const int first = shape == 8 ? 0 : shape, last = shape == 8 ? 8 : shape + 1;
+    for (auto _ : state) {
+        for (int i = first; i < last; ++i) tenon_product(step_products[i], buffers()[static_cast<std::size_t>(i)], 0.0f, &pool(threads));
+        benchmark::ClobberMemory();
+    }
+    state.counters["GFLOP/s"] = benchmark::Counter(flops_of(first, last), benchmark::Counter::kIsIterationInvariantRate);
+    state.SetLabel(shape == 8 ? "all eight" : step_products[shape].role);
+}
+
+void gemm_openblas(benchmark::State& state) {
+    const int shape = static_cast<int>(state.range(0));
+    openblas_set_num_threads(static_cast<int>(state.range(1)));
+    const int first = shape == 8 ? 0 : shape, last = shape == 8 ? 8 : shape + 1;
+    for (auto _ : state) {
+        for (int i = first; i < last; ++i) openblas_product(step_products[i], buffers()[static_cast<std::size_t>(i)], 0.0f);
+        benchmark::ClobberMemory();
+    }
+    openblas_set_num_threads(1);
+    state.counters["GFLOP/s"] = benchmark::Counter(flops_of(first, last), benchmark::Counter::kIsIterationInvariantRate);
+    state.SetLabel(shape == 8 ? "all eight" : step_products[shape].role);
+}
+
+void gemm_args(benchmark::internal::Benchmark* b) {
+    b->ArgNames({"shape", "threads"});
+    for (int threads : {1, 2})
+        for (int shape = 0; shape <= 8; ++shape) b->Args({shape, threads});
+    b->MinTime(0.2)->UseRealTime();
+}
+BENCHMARK(gemm_tenon)->Apply(gemm_args);
+BENCHMARK(gemm_openblas)->Apply(gemm_args);
+
+// ---------------------------------------------------------------------------
+// One training step: args (path, threads).
+
+struct step_fixture {
+    tenon::network<float> net =
+        tenon::make_mlp<float>({784, 256, 128, 10}, tenon::activation::relu, {tenon::init_scheme::he_normal, 0.0}, 1);
+    tenon::adam<float> rule;
+    tenon::matrix<float> x = tenon::matrix<float>({batch, 784});
+    std::vector<std::size_t> labels = std::vector<std::size_t>(batch);
+    tenon::tape<float> t;
+    step_fixture() {
+        tenon::random_engine rng(3);
+        for (std::size_t i = 0; i < x.size(); ++i) x.data()[i] = rng.normal(0.0f, 1.0f);
+        for (auto& l : labels) l = static_cast<std::size_t>(rng.below(10));
+    }
+    void step() {
+        t.clear();
+        net.zero_grads();
+        const auto y = net.forward(t, t.input(x));
+        const auto loss = tenon::cross_entropy_loss(t, y, labels);
+        t.backward(loss);
+        rule.apply(net.parameters(), 1e-4f);
+    }
+};
+
+void training_step(benchmark::State& state) {
+    tenon::set_kernel_path(path_of(state.range(0)));
+    openblas_set_num_threads(1);
+    step_fixture f;
+    f.t.set_executor(&pool(static_cast<std::size_t>(state.range(1))));
+    f.step();
+    for (auto _ : state) f.step();
+    state.SetLabel(tenon::kernel_path_name(tenon::active_kernel_path()));
+}
+BENCHMARK(training_step)->ArgNames({"path", "threads"})->ArgsProduct({{0, 1}, {1, 2}})->MinTime(0.5)->UseRealTime()->Unit(benchmark::kMicrosecond);
+
+void training_step_openblas_products(benchmark::State& state) {
+    openblas_set_num_threads(static_cast<int>(state.range(0)));
+    for (auto _ : state) {
+        for (std::size_t i = 0; i < 8; ++i) openblas_product(step_products[i], buffers()[i], i < 3 ? 0.0f : 1.0f);
+        benchmark::ClobberMemory();
+    }
+    openblas_set_num_threads(1);
+}
+BENCHMARK(training_step_openblas_products)->ArgNames({"threads"})->Arg(1)->Arg(2)->MinTime(0.5)->UseRealTime()->Unit(benchmark::kMicrosecond);
+
+// ---------------------------------------------------------------------------
+// One Fashion-MNIST epoch (Debian package dataset-fashion-mnist): args (path, threads).
+
+const std::string fashion_folder = "/usr/share/datasets/fashion-mnist/";
+
+struct fashion_data {
+    tenon::supervised_rows<float> train, validation;
+    fashion_data() {
+        const auto labels = tenon::idx_labels(tenon::read_idx_gzip_file(fashion_folder + "train-labels-idx1-ubyte.gz"));
+        const auto images = tenon::idx_images<float>(tenon::read_idx_gzip_file(fashion_folder + "train-images-idx3-ubyte.gz"));
+        // The dataset test's protocol: a stratified 90% / 10% holdout.
+        const auto split = tenon::stratified_holdout(labels, {0.9, 0.1, 0.0}, 1708);
+        fill(train, images, labels, split.train);
+        fill(validation, images, labels, split.validation);
+    }
+    static void fill(tenon::supervised_rows<float>& d, const tenon::matrix<float>& images, const std::vector<std::uint32_t>& labels,
+                     const std::vector<std::size_t>& rows) {
+        d.features = tenon::matrix<float>({rows.size(), 784});
+        d.class_count = 10;
+        d.labels.resize(rows.size());
+        for (std::size_t i = 0; i < rows.size(); ++i) {
+            std::memcpy(d.features.data() + i * 784, images.data() + rows[i] * 784, 784 * sizeof(float));
+            d.labels[i] = labels[rows[i]];
+        }
+    }
+};
+
+fashion_data& fashion() {
+    static fashion_data d;
+    return d;
+}
+
+void fashion_epoch(benchmark::State& state) {
+    tenon::set_kernel_path(path_of(state.range(0)));
+    openblas_set_num_threads(1);
+    auto& d = fashion();
+    auto net = tenon::make_mlp<float>({784, 256, 128, 10}, tenon::activation::relu, {tenon::init_scheme::he_normal, 0.0}, 7);
+    tenon::adam<float> rule;
+    tenon::constant_rate schedule(1e-3);
+    tenon::training_options<float> o;
+    o.loss = tenon::loss_kind::cross_entropy;
+    o.epochs = 1;
+    o.batch_size = batch;
+    o.seed = 2017;
+    o.workers = &pool(static_cast<std::size_t>(state.range(1)));
+    tenon::trainer<float> tr(net, rule, schedule, o);
+    tr.run(d.train, d.validation);  // warm-up: the first epoch sizes every buffer
+    for (auto _ : state) tr.run(d.train, d.validation);
+    state.SetLabel(tenon::kernel_path_name(tenon::active_kernel_path()));
+}
+BENCHMARK(fashion_epoch)->ArgNames({"path", "threads"})->ArgsProduct({{0, 1}, {1, 2}})->Iterations(2)->UseRealTime()->Unit(benchmark::kMillisecond);
+
+// The epoch's products alone: for each of the 422 batches (421 of 128 rows,
+// one of 112) the step's eight products, then the three forward products
+// of the validation rows in chunks of 512 (as trainer::evaluate runs them).
+void fashion_epoch_openblas_products(benchmark::State& state) {
+    openblas_set_num_threads(static_cast<int>(state.range(0)));
+    auto& d = fashion();
+    const std::size_t train_rows = d.train.rows(), validation_rows = d.validation.rows();
+    const int widths[4] = {784, 256, 128, 10};
+    std::vector<float> x(512 * 784), h1(512 * 256), h2(512 * 128), out(512 * 10), g(512 * 256);
+    std::vector<float> w[3], dw[3];
+    for (int l = 0; l < 3; ++l) {
+        w[l].assign(static_cast<std::size_t>(widths[l] * widths[l + 1]), 0.01f);
+        dw[l].assign(w[l].size(), 0.0f);
+    }
+    float* acts[4] = {x.data(), h1.data(), h2.data(), out.data()};
+    auto run_forward = [&](int rows) {
+        for (int l = 0; l < 3; ++l)
+            cblas_sgemm(CblasRowMajor, CblasNoTrans, CblasNoTrans, rows, widths[l + 1], widths[l], 1.0f, acts[l], widths[l],
+                        w[l].data(), widths[l + 1], 0.0f, acts[l + 1], widths[l + 1]);
+    };
+    for (auto _ : state) {
+        for (std::size_t first = 0; first < train_rows; first += batch) {
+            const int rows = static_cast<int>(std::min<std::size_t>(batch, train_rows - first));
+            run_forward(rows);
+            for (int l = 2; l >= 0; --l) {
+                // weight gradient X_l^T G_l, then (below the top layer) the input gradient G_l W_l^T
+                cblas_sgemm(CblasRowMajor, CblasTrans, CblasNoTrans, widths[l], widths[l + 1], rows, 1.0f, acts[l], widths[l],
+                            g.data(), widths[l + 1], 1.0f, dw[l].data(), widths[l + 1]);
+                if (l > 0)
+                    cblas_sgemm(CblasRowMajor, CblasNoTrans, CblasTrans, rows, widths[l], widths[l + 1], 1.0f, g.data(), widths[l + 1],
+                                w[l].data(), widths[l + 1], 1.0f, acts[l], widths[l]);
+            }
+        }
+        for (std::size_t first = 0; first < validation_rows; first += 512) run_forward(static_cast<int>(std::min<std::size_t>(512, validation_rows - first)));
+        benchmark::ClobberMemory();
+    }
+    openblas_set_num_threads(1);
+}
+BENCHMARK(fashion_epoch_openblas_products)->ArgNames({"threads"})->Arg(1)->Arg(2)->Iterations(3)->UseRealTime()->Unit(benchmark::kMillisecond);
+
+// ---------------------------------------------------------------------------
+// Single-row prediction with an 8-32-32-1 network (an invented press line:
+// eight sensor channels and the resulting force).
+
+struct small_model {
+    tenon::table t;
+    tenon::fitted_model<float> fitted;
+    static tenon::table make_table() {
+        tenon::random_engine rng(1);
+        std::ostringstream csv;
+        csv << "s0,s1,s2,s3,s4,s5,s6,s7,force\n";
+        for (int i = 0; i < 2000; ++i) {
+            double sum = 0;
+            for (int k = 0; k < 8; ++k) {
+                const double v = rng.uniform(-1.0, 1.0);
+                sum += (k + 1) * v * v;
+                csv << v << ",";
+            }
+            csv << sum << "\n";
+        }
+        std::istringstream in(csv.str());
+        return tenon::read_csv(in, {}, "press.csv");
+    }
+    static std::vector<std::size_t> rows(std::size_t a, std::size_t b) {
+        std::vector<std::size_t> r;
+        for (std::size_t i = a; i < b; ++i) r.push_back(i);
+        return r;
+    }
+    small_model()
+        : t(make_table()), fitted([&] {
+              tenon::plan p;
+              p.set_target("force", tenon::target_kind::regression);
+              tenon::model_settings s;
+              s.hidden = {32, 32};
+              s.epochs = 2;
+              return tenon::fit_model<float>(t, p, rows(0, 1600), rows(1600, 2000), s);
+          }()) {}
+};
+
+std::map<std::string, double>& latency() {
+    static std::map<std::string, double> values;
+    return values;
+}
+
+void predict_one_prepared_row(benchmark::State& state) {
+    static small_model model;
+    tenon::set_kernel_path(tenon::best_builtin_kernel_path());
+    tenon::predictor<float> p(model.fitted, 1);
+    const std::vector<float> row = {0.1f, -0.5f, 0.25f, 0.9f, -0.3f, 0.0f, 0.7f, -0.8f};
+    tenon::prediction_view<float> out;
+    for (int i = 0; i < 1000; ++i) p.try_predict_prepared(row.data(), 1, out);
+    std::vector<double> ns;
+    ns.reserve(200000);
+    for (auto _ : state) {
+        for (int i = 0; i < 200000; ++i) {
+            const auto start = std::chrono::steady_clock::now();
+            p.try_predict_prepared(row.data(), 1, out);
+            benchmark::DoNotOptimize(out);
+            ns.push_back(std::chrono::duration<double, std::nano>(std::chrono::steady_clock::now() - start).count());
+        }
+    }
+    // The clock's own cost, measured the same way, is subtracted.
+    std::vector<double> empty;
+    empty.reserve(200000);
+    for (int i = 0; i < 200000; ++i) {
+        const auto start = std::chrono::steady_clock::now();
+        empty.push_back(std::chrono::duration<double, std::nano>(std::chrono::steady_clock::now() - start).count());
+    }
+    std::sort(ns.begin(), ns.end());
+    std::sort(empty.begin(), empty.end());
+    const double clock = empty[empty.size() / 2];
+    auto at = [&](double q) { return ns[std::min(ns.size() - 1, static_cast<std::size_t>(q * static_cast<double>(ns.size())))] - clock; };
+    latency()["p50"] = at(0.50);
+    latency()["p99"] = at(0.99);
+    latency()["max"] = ns.back() - clock;
+    latency()["clock"] = clock;
+    state.counters["p50_ns"] = latency()["p50"];
+    state.counters["p99_ns"] = latency()["p99"];
+    state.counters["max_ns"] = latency()["max"];
+}
+BENCHMARK(predict_one_prepared_row)->Iterations(1)->Unit(benchmark::kMillisecond);
+
+// ---------------------------------------------------------------------------
+// z-scoring vs memcpy of the same bytes.
+
+constexpr std::size_t z_rows = 200000, z_cols = 16;
+
+struct z_fixture {
+    tenon::matrix<float> x = tenon::matrix<float>({z_rows, z_cols});
+    tenon::matrix<float> y = tenon::matrix<float>({z_rows, z_cols});
+    std::vector<tenon::scaling> scalings;
+    z_fixture() {
+        tenon::random_engine rng(2);
+        for (std::size_t k = 0; k < x.size(); ++k) x.data()[k] = rng.normal(5.0f, 2.0f);
+        scalings = tenon::measure_matrix_scalings(x, tenon::scaling_method::z_score);
+        y = x;
+    }
+};
+z_fixture& z() {
+    static z_fixture f;
+    return f;
+}
+
+void z_score_in_place(benchmark::State& state) {
+    auto& f = z();
+    for (auto _ : state) {
+        // Scaling its own output again: the values stay finite and normal
+        // (the map x -> (x - 5) / 2 has its fixed point at -5).
+        tenon::apply_scalings(f.y, f.scalings);
+        benchmark::ClobberMemory();
+    }
+    state.SetBytesProcessed(static_cast<std::int64_t>(state.iterations() * f.x.size() * sizeof(float)));
+}
+BENCHMARK(z_score_in_place)->MinTime(0.3)->UseRealTime()->Unit(benchmark::kMicrosecond);
+
+void z_score_memcpy_reference(benchmark::State& state) {
+    auto& f = z();
+    for (auto _ : state) {
+        std::memcpy(f.y.data(), f.x.data(), f.x.size() * sizeof(float));
+        benchmark::ClobberMemory();
+    }
+    state.SetBytesProcessed(static_cast<std::int64_t>(state.iterations() * f.x.size() * sizeof(float)));
+}
+BENCHMARK(z_score_memcpy_reference)->MinTime(0.3)->UseRealTime()->Unit(benchmark::kMicrosecond);
+
+// ---------------------------------------------------------------------------
+// The summary: ratios against the targets.
+
+class summary_reporter : public benchmark::ConsoleReporter {
+public:
+    void ReportRuns(const std::vector<Run>& runs) override {
+        ConsoleReporter::ReportRuns(runs);
+        for (const auto& r : runs) {
+            if (r.run_type != Run::RT_Iteration || r.error_occurred) continue;
+            seconds_[r.run_name.function_name + "/" + r.run_name.args] = r.GetAdjustedRealTime() / unit_per_second(r.time_unit);
+        }
+    }
+    void Finalize() override {
+        ConsoleReporter::Finalize();
+        std::printf("\n== summary (ratios measured in this run; target in brackets)\n");
+        for (int threads : {1, 2}) {
+            const std::string th = "threads:" + std::to_string(threads);
+            std::printf("-- %d thread(s)\n", threads);
+            for (int shape = 0; shape <= 8; ++shape) {
+                const std::string key = "shape:" + std::to_string(shape) + "/" + th;
+                ratio("gemm " + std::string(shape == 8 ? "all eight" : step_products[shape].role) + ": OpenBLAS time / built-in time",
+                      get("gemm_openblas/" + key), get("gemm_tenon/" + key), shape == 8 ? "[>= 0.6]" : "");
+            }
+            for (int path = 0; path < 2; ++path) {
+                const std::string key = "path:" + std::to_string(path) + "/" + th;
+                const char* name = path == 0 ? "built-in" : "BLAS backend";
+                ratio(std::string("training step (") + name + ") / its products in OpenBLAS", get("training_step/" + key),
+                      get("training_step_openblas_products/" + th), "");
+                ratio(std::string("Fashion-MNIST epoch (") + name + ") / its products in OpenBLAS", get("fashion_epoch/" + key),
+                      get("fashion_epoch_openblas_products/" + th), path == 0 ? "[<= 2.0]" : "[<= 1.3]");
+                std::printf("   Fashion-MNIST epoch (%s): %.3f s; its products in OpenBLAS: %.3f s\n", name, get("fashion_epoch/" + key),
+                            get("fashion_epoch_openblas_products/" + th));
+            }
+        }
+        std::printf("-- prediction, 8-32-32-1, one prepared row: p50 %.0f ns [<= 500], p99 %.0f ns (%.2f x p50) [<= 3 x], max %.0f ns "
+                    "(clock cost %.0f ns subtracted)\n",
+                    latency()["p50"], latency()["p99"], latency()["p99"] / latency()["p50"], latency()["max"], latency()["clock"]);
+        ratio("z-score bandwidth / memcpy bandwidth", get("z_score_memcpy_reference/"), get("z_score_in_place/"), "[>= 0.5]");
+    }
+
+private:
+    static double unit_per_second(benchmark::TimeUnit u) {
+        switch (u) {
+            case benchmark::kNanosecond: return 1e9;
+            case benchmark::kMicrosecond: return 1e6;
+            case benchmark::kMillisecond: return 1e3;
+            default: return 1.0;
+        }
+    }
+    double get(const std::string& key) const {
+        auto it = seconds_.find(key);
+        return it == seconds_.end() ? 0.0 : it->second;
+    }
+    static void ratio(const std::string& what, double numerator, double denominator, const char* target) {
+        if (numerator > 0 && denominator > 0) std::printf("   %-72s %6.3f %s\n", what.c_str(), numerator / denominator, target);
+    }
+    std::map<std::string, double> seconds_;
+};
+
+std::string cpu_name() {
+    std::ifstream in("/proc/cpuinfo");
+    std::string line;
+    while (std::getline(in, line))
+        if (line.rfind("model name", 0) == 0) return line.substr(line.find(':') + 2);
+    return "unknown";
+}
+
+}  // namespace
+
+int main(int argc, char** argv) {
+    benchmark::Initialize(&argc, argv);
+    std::printf("== tenon performance benchmark\n");
+    std::printf("CPU:             %s (%u hardware threads)\n", cpu_name().c_str(), std::thread::hardware_concurrency());
+    std::printf("compiler:        %s, flags: %s\n", __VERSION__, TENON_BENCH_FLAGS);
+    std::printf("kernel paths:    built-in %s (avx512 %s, avx2 %s), BLAS backend %s\n",
+                tenon::kernel_path_name(tenon::best_builtin_kernel_path()),
+                tenon::kernel_path_available(tenon::kernel_path::avx512) ? "yes" : "no",
+                tenon::kernel_path_available(tenon::kernel_path::avx2) ? "yes" : "no",
+                tenon::kernel_path_available(tenon::kernel_path::blas) ? "yes" : "no");
+    std::printf("OpenBLAS:        %s\n", openblas_get_config());
+    for (const char* v : {"OPENBLAS_CORETYPE", "OPENBLAS_L2_SIZE", "OPENBLAS_NUM_THREADS"}) {
+        if (const char* value = std::getenv(v)) std::printf("warning:         %s=%s is set (unset it for reference numbers)\n", v, value);
+    }
+    std::printf("threads:         each benchmark names its thread count; tenon and OpenBLAS use the same count\n\n");
+    summary_reporter reporter;
+    benchmark::RunSpecifiedBenchmarks(&reporter);
+    benchmark::Shutdown();
+    return 0;
+}

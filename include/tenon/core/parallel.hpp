@@ -1,0 +1,180 @@
+// tenon: running independent tasks on several threads, under the host's control.
+//
+// tenon never starts a thread on its own. A host that wants its kernels to
+// use more than one core either builds a thread_pool of the size it chooses
+// or hands tenon its own scheduler by implementing `executor`; it then gives
+// that executor to the objects that should use it (tape::set_executor,
+// training_options::workers, model_settings::threads). Without one, every
+// kernel runs on the calling thread.
+//
+// Determinism: tenon splits work so that each output value is computed by
+// exactly one task, in an order that does not depend on how many tasks there
+// are (see core/gemm.hpp). Results are therefore bit-identical for any
+// executor and any thread count.
+#pragma once
+
+#include <atomic>
+#include <condition_variable>
+#include <cstddef>
+#include <cstdint>
+#include <mutex>
+#include <string>
+#include <thread>
+#include <vector>
+
+#include "tenon/core/error.hpp"
+#include "tenon/core/error_codes.hpp"
+
+TENON_NAMESPACE_BEGIN
+
+/// The interface tenon's kernels use to run tasks in parallel. A host may
+/// implement it on top of its own scheduler.
+class executor {
+public:
+    /// A task: called once for every index in [0, count).
+    using task_function = void (*)(void* context, std::size_t index);
+
+    virtual ~executor() = default;
+
+    /// How many tasks can make progress at once (1 = one after the other).
+    /// tenon splits its work into at most this many tasks.
+    virtual std::size_t concurrency() const noexcept = 0;
+
+    /// Calls task(context, i) for every i in [0, count), in any order and on
+    /// any threads (the calling thread included), and returns once every
+    /// call has returned. Tasks tenon passes never throw and never call
+    /// run() themselves. tenon calls run() on its hot paths, so an
+    /// implementation should not allocate once warmed up.
+    virtual void run(std::size_t count, task_function task, void* context) noexcept = 0;
+};
+
+/// A fixed set of std::threads working on the tasks of one run() at a time.
+/// `threads` counts the calling thread: thread_pool(1) starts no thread at
+/// all, thread_pool(2) starts one. run() may be called from any thread;
+/// concurrent calls take turns. run() does not allocate.
+class thread_pool final : public executor {
+public:
+    explicit thread_pool(std::size_t threads = 1) {
+        if (threads == 0 || threads > max_threads) {
+            raise(codes::invalid_argument, "thread_pool: the number of threads must be in [1, " + std::to_string(max_threads) +
+                                               "], got " + std::to_string(threads));
+        }
+        workers_.reserve(threads - 1);
+        for (std::size_t i = 0; i + 1 < threads; ++i) workers_.emplace_back([this] { work_loop(); });
+    }
+
+    ~thread_pool() override {
+        {
+            std::lock_guard<std::mutex> lock(mutex_);
+            stopping_ = true;
+        }
+        wake_.notify_all();
+        for (auto& w : workers_) w.join();
+    }
+
+    thread_pool(const thread_pool&) = delete;
+    thread_pool& operator=(const thread_pool&) = delete;
+
+    /// Upper bound on the size of a pool (a guard against a mistyped count).
+    static constexpr std::size_t max_threads = 1024;
+
+    std::size_t concurrency() const noexcept override { return workers_.size() + 1; }
+
+    void run(std::size_t count, task_function task, void* context) noexcept override {
+        if (count == 0) return;
+        if (workers_.empty() || count == 1) {
+            for (std::size_t i = 0; i < count; ++i) task(context, i);
+            return;
+        }
+        std::lock_guard<std::mutex> turn(run_mutex_);
+        std::uint64_t generation;
+        {
+            std::lock_guard<std::mutex> lock(mutex_);
+            generation = generation_.load(std::memory_order_relaxed) + 1;
+            task_ = task;
+            context_ = context;
+            count_ = count;
+            done_.store(0, std::memory_order_relaxed);
+            // The index counter carries the run's generation in its high bits,
+            // so a worker that wakes late for an earlier run cannot claim an
+            // index of this one.
+            next_.store(tag(generation), std::memory_order_relaxed);
+            generation_.store(generation, std::memory_order_release);
+        }
+        wake_.notify_all();
+        work_on(generation, task, context, count);
+        // Wait for the workers' share: spin briefly (tasks are short), then sleep.
+        for (int spin = 0; spin < spin_rounds && done_.load(std::memory_order_acquire) != count; ++spin) relax();
+        if (done_.load(std::memory_order_acquire) != count) {
+            std::unique_lock<std::mutex> lock(mutex_);
+            finished_.wait(lock, [&] { return done_.load(std::memory_order_acquire) == count; });
+        }
+    }
+
+private:
+    static constexpr int spin_rounds = 20000;  // a few tens of microseconds (common practice: spin, then block)
+
+    static std::uint64_t tag(std::uint64_t generation) noexcept { return (generation & 0xFFFFFFFFu) << 32; }
+
+    static void relax() noexcept {
+#if defined(__x86_64__) || defined(__i386__)
+        __builtin_ia32_pause();
+#else
+        std::this_thread::yield();
+#endif
+    }
+
+    // Claims and runs indices of run `generation` until none are left.
+    void work_on(std::uint64_t generation, task_function task, void* context, std::size_t count) noexcept {
+        const std::uint64_t mine = tag(generation);
+        std::uint64_t current = next_.load(std::memory_order_acquire);
+        for (;;) {
+            if ((current & ~std::uint64_t(0xFFFFFFFFu)) != mine) return;
+            const std::size_t index = static_cast<std::size_t>(current & 0xFFFFFFFFu);
+            if (index >= count) return;
+            if (!next_.compare_exchange_weak(current, current + 1, std::memory_order_acq_rel, std::memory_order_acquire)) continue;
+            task(context, index);
+            if (done_.fetch_add(1, std::memory_order_acq_rel) + 1 == count) {
+                std::lock_guard<std::mutex> lock(mutex_);
+                finished_.notify_all();
+            }
+            current = next_.load(std::memory_order_acquire);
+        }
+    }
+
+    void work_loop() noexcept {
+        std::uint64_t seen = 0;
+        for (;;) {
+            // Spin a little for the next run before sleeping: a training step
+            // issues runs back to back.
+            for (int spin = 0; spin < spin_rounds && generation_.load(std::memory_order_acquire) == seen; ++spin) relax();
+            task_function task;
+            void* context;
+            std::size_t count;
+            {
+                std::unique_lock<std::mutex> lock(mutex_);
+                wake_.wait(lock, [&] { return stopping_ || generation_.load(std::memory_order_relaxed) != seen; });
+                if (stopping_) return;
+                seen = generation_.load(std::memory_order_relaxed);
+                task = task_;
+                context = context_;
+                count = count_;
+            }
+            work_on(seen, task, context, count);
+        }
+    }
+
+    std::vector<std::thread> workers_;
+    std::mutex run_mutex_;  // one run() at a time
+    std::mutex mutex_;      // guards the run description and stopping_
+    std::condition_variable wake_, finished_;
+    std::atomic<std::uint64_t> generation_{0};
+    std::atomic<std::uint64_t> next_{0};
+    std::atomic<std::size_t> done_{0};
+    task_function task_ = nullptr;
+    void* context_ = nullptr;
+    std::size_t count_ = 0;
+    bool stopping_ = false;
+};
+
+TENON_NAMESPACE_END

@@ -1,0 +1,133 @@
+// tenon: what the running CPU offers, and vector operations compiled for it.
+//
+// tenon is header-only, so the host's compiler flags decide which
+// instructions ordinary code may use (SSE2 alone with default x86-64 flags).
+// Hot kernels therefore come in extra versions compiled with a function
+// attribute for AVX2 + FMA or AVX-512F, and are called only after the
+// checks below confirm the CPU (and operating system) support them. The
+// attribute is a plain target attribute on inline functions, not
+// target_clones, so the functions can be defined in a header included by
+// many translation units.
+#pragma once
+
+#include <cstddef>
+
+#include "tenon/version.hpp"
+
+#if (defined(__GNUC__) || defined(__clang__)) && (defined(__x86_64__) || defined(__i386__))
+#include <immintrin.h>
+#define TENON_SIMD_X86 1
+#define TENON_TARGET_AVX2 __attribute__((target("avx2,fma")))
+#define TENON_TARGET_AVX512 __attribute__((target("avx512f")))
+#else
+#define TENON_SIMD_X86 0
+#endif
+
+TENON_NAMESPACE_BEGIN
+
+/// Whether the running CPU has AVX2 and FMA3 (false off x86 or with other compilers).
+inline bool cpu_has_avx2_fma() noexcept {
+#if TENON_SIMD_X86
+    __builtin_cpu_init();
+    return __builtin_cpu_supports("avx2") && __builtin_cpu_supports("fma");
+#else
+    return false;
+#endif
+}
+
+/// Whether the running CPU has AVX-512F.
+inline bool cpu_has_avx512f() noexcept {
+#if TENON_SIMD_X86
+    __builtin_cpu_init();
+    return __builtin_cpu_supports("avx512f");
+#else
+    return false;
+#endif
+}
+
+#if TENON_SIMD_X86
+namespace detail {
+
+// Vector operations for AVX-512F and AVX2. (The AVX-512 square root,
+// minimum and maximum are spelled as their all-lanes masked forms: GCC 12's
+// unmasked ones start from an "undefined" register that -Wmaybe-uninitialized
+// reports in the host's build.) Each is compiled for its
+// instruction set alone, so the host's flags need not enable it; they are
+// only called after kernel_path_available() said yes.
+template <class T>
+struct avx512_ops;
+template <>
+struct avx512_ops<float> {
+    using vector = __m512;
+    static constexpr std::size_t lanes = 16;
+    TENON_TARGET_AVX512 static vector zero() noexcept { return _mm512_setzero_ps(); }
+    TENON_TARGET_AVX512 static vector load(const float* p) noexcept { return _mm512_loadu_ps(p); }
+    TENON_TARGET_AVX512 static vector broadcast(float v) noexcept { return _mm512_set1_ps(v); }
+    TENON_TARGET_AVX512 static vector fma(vector a, vector b, vector c) noexcept { return _mm512_fmadd_ps(a, b, c); }
+    TENON_TARGET_AVX512 static void store(float* p, vector v) noexcept { _mm512_storeu_ps(p, v); }
+    TENON_TARGET_AVX512 static vector add(vector a, vector b) noexcept { return _mm512_add_ps(a, b); }
+    TENON_TARGET_AVX512 static vector sub(vector a, vector b) noexcept { return _mm512_sub_ps(a, b); }
+    TENON_TARGET_AVX512 static vector mul(vector a, vector b) noexcept { return _mm512_mul_ps(a, b); }
+    TENON_TARGET_AVX512 static vector div(vector a, vector b) noexcept { return _mm512_div_ps(a, b); }
+    TENON_TARGET_AVX512 static vector sqrt(vector a) noexcept { return _mm512_mask_sqrt_ps(a, static_cast<__mmask16>(0xFFFF), a); }
+    TENON_TARGET_AVX512 static vector max(vector a, vector b) noexcept { return _mm512_mask_max_ps(a, static_cast<__mmask16>(0xFFFF), a, b); }
+    TENON_TARGET_AVX512 static vector min(vector a, vector b) noexcept { return _mm512_mask_min_ps(a, static_cast<__mmask16>(0xFFFF), a, b); }
+};
+template <>
+struct avx512_ops<double> {
+    using vector = __m512d;
+    static constexpr std::size_t lanes = 8;
+    TENON_TARGET_AVX512 static vector zero() noexcept { return _mm512_setzero_pd(); }
+    TENON_TARGET_AVX512 static vector load(const double* p) noexcept { return _mm512_loadu_pd(p); }
+    TENON_TARGET_AVX512 static vector broadcast(double v) noexcept { return _mm512_set1_pd(v); }
+    TENON_TARGET_AVX512 static vector fma(vector a, vector b, vector c) noexcept { return _mm512_fmadd_pd(a, b, c); }
+    TENON_TARGET_AVX512 static void store(double* p, vector v) noexcept { _mm512_storeu_pd(p, v); }
+    TENON_TARGET_AVX512 static vector add(vector a, vector b) noexcept { return _mm512_add_pd(a, b); }
+    TENON_TARGET_AVX512 static vector sub(vector a, vector b) noexcept { return _mm512_sub_pd(a, b); }
+    TENON_TARGET_AVX512 static vector mul(vector a, vector b) noexcept { return _mm512_mul_pd(a, b); }
+    TENON_TARGET_AVX512 static vector div(vector a, vector b) noexcept { return _mm512_div_pd(a, b); }
+    TENON_TARGET_AVX512 static vector sqrt(vector a) noexcept { return _mm512_mask_sqrt_pd(a, static_cast<__mmask8>(0xFF), a); }
+    TENON_TARGET_AVX512 static vector max(vector a, vector b) noexcept { return _mm512_mask_max_pd(a, static_cast<__mmask8>(0xFF), a, b); }
+    TENON_TARGET_AVX512 static vector min(vector a, vector b) noexcept { return _mm512_mask_min_pd(a, static_cast<__mmask8>(0xFF), a, b); }
+};
+template <class T>
+struct avx2_ops;
+template <>
+struct avx2_ops<float> {
+    using vector = __m256;
+    static constexpr std::size_t lanes = 8;
+    TENON_TARGET_AVX2 static vector zero() noexcept { return _mm256_setzero_ps(); }
+    TENON_TARGET_AVX2 static vector load(const float* p) noexcept { return _mm256_loadu_ps(p); }
+    TENON_TARGET_AVX2 static vector broadcast(float v) noexcept { return _mm256_set1_ps(v); }
+    TENON_TARGET_AVX2 static vector fma(vector a, vector b, vector c) noexcept { return _mm256_fmadd_ps(a, b, c); }
+    TENON_TARGET_AVX2 static void store(float* p, vector v) noexcept { _mm256_storeu_ps(p, v); }
+    TENON_TARGET_AVX2 static vector add(vector a, vector b) noexcept { return _mm256_add_ps(a, b); }
+    TENON_TARGET_AVX2 static vector sub(vector a, vector b) noexcept { return _mm256_sub_ps(a, b); }
+    TENON_TARGET_AVX2 static vector mul(vector a, vector b) noexcept { return _mm256_mul_ps(a, b); }
+    TENON_TARGET_AVX2 static vector div(vector a, vector b) noexcept { return _mm256_div_ps(a, b); }
+    TENON_TARGET_AVX2 static vector sqrt(vector a) noexcept { return _mm256_sqrt_ps(a); }
+    TENON_TARGET_AVX2 static vector max(vector a, vector b) noexcept { return _mm256_max_ps(a, b); }
+    TENON_TARGET_AVX2 static vector min(vector a, vector b) noexcept { return _mm256_min_ps(a, b); }
+};
+template <>
+struct avx2_ops<double> {
+    using vector = __m256d;
+    static constexpr std::size_t lanes = 4;
+    TENON_TARGET_AVX2 static vector zero() noexcept { return _mm256_setzero_pd(); }
+    TENON_TARGET_AVX2 static vector load(const double* p) noexcept { return _mm256_loadu_pd(p); }
+    TENON_TARGET_AVX2 static vector broadcast(double v) noexcept { return _mm256_set1_pd(v); }
+    TENON_TARGET_AVX2 static vector fma(vector a, vector b, vector c) noexcept { return _mm256_fmadd_pd(a, b, c); }
+    TENON_TARGET_AVX2 static void store(double* p, vector v) noexcept { _mm256_storeu_pd(p, v); }
+    TENON_TARGET_AVX2 static vector add(vector a, vector b) noexcept { return _mm256_add_pd(a, b); }
+    TENON_TARGET_AVX2 static vector sub(vector a, vector b) noexcept { return _mm256_sub_pd(a, b); }
+    TENON_TARGET_AVX2 static vector mul(vector a, vector b) noexcept { return _mm256_mul_pd(a, b); }
+    TENON_TARGET_AVX2 static vector div(vector a, vector b) noexcept { return _mm256_div_pd(a, b); }
+    TENON_TARGET_AVX2 static vector sqrt(vector a) noexcept { return _mm256_sqrt_pd(a); }
+    TENON_TARGET_AVX2 static vector max(vector a, vector b) noexcept { return _mm256_max_pd(a, b); }
+    TENON_TARGET_AVX2 static vector min(vector a, vector b) noexcept { return _mm256_min_pd(a, b); }
+};
+
+}  // namespace detail
+#endif  // TENON_SIMD_X86
+
+TENON_NAMESPACE_END

@@ -1,0 +1,155 @@
+// Steady state allocates nothing: after the first step with a given batch
+// shape, a training step (forward, backward, update) and a predictor call
+// make zero heap allocations, on one thread and with a thread pool.
+//
+// This file replaces the global allocation functions with counting ones,
+// which affects the whole executable, so it is an executable of its own
+// (tenon_allocation_tests, label "alloc"; sanitizer builds, which bring
+// their own allocation functions, skip it).
+#include <doctest/doctest.h>
+
+#include <atomic>
+#include <cstdlib>
+#include <new>
+#include <vector>
+
+#include <tenon/core/parallel.hpp>
+#include <tenon/deploy/model_file.hpp>
+#include <tenon/deploy/predictor.hpp>
+#include <tenon/layers/network.hpp>
+#include <tenon/losses/classification.hpp>
+#include <tenon/train/trainer.hpp>
+#include <tenon/update/rules.hpp>
+#include <tenon/update/schedules.hpp>
+
+#include "deploy_test_support.hpp"
+
+#if defined(__GNUC__) && !defined(__clang__)
+#pragma GCC diagnostic ignored "-Wmismatched-new-delete"
+#endif
+
+// Counting global allocation functions. The count is process-wide (atomic),
+// so allocations on the pool's worker threads count too.
+namespace {
+std::atomic<bool> counting{false};
+std::atomic<std::size_t> allocations{0};
+}  // namespace
+
+void* operator new(std::size_t size) {
+    if (counting.load(std::memory_order_relaxed)) allocations.fetch_add(1, std::memory_order_relaxed);
+    if (void* p = std::malloc(size ? size : 1)) return p;
+    throw std::bad_alloc();
+}
+void* operator new[](std::size_t size) { return operator new(size); }
+void* operator new(std::size_t size, const std::nothrow_t&) noexcept {
+    if (counting.load(std::memory_order_relaxed)) allocations.fetch_add(1, std::memory_order_relaxed);
+    return std::malloc(size ? size : 1);
+}
+void operator delete(void* p) noexcept { std::free(p); }
+void operator delete[](void* p) noexcept { std::free(p); }
+void operator delete(void* p, std::size_t) noexcept { std::free(p); }
+void operator delete[](void* p, std::size_t) noexcept { std::free(p); }
+
+namespace {
+
+// Fashion-MNIST-shaped data (784 inputs, 10 classes) drawn at random: the
+// allocation behaviour depends on shapes, not on values.
+template <class T>
+tenon::supervised_rows<T> random_rows(std::size_t rows, std::uint64_t seed) {
+    tenon::random_engine rng(seed);
+    tenon::supervised_rows<T> d;
+    d.features = tenon::matrix<T>({rows, 784});
+    for (std::size_t k = 0; k < d.features.size(); ++k) d.features.data()[k] = rng.normal(T(0), T(1));
+    d.class_count = 10;
+    d.labels.resize(rows);
+    for (auto& l : d.labels) l = static_cast<std::size_t>(rng.below(10));
+    return d;
+}
+
+}  // namespace
+
+TEST_CASE_TEMPLATE("a training step of a 784-256-128-10 perceptron allocates nothing after the first", T, float, double) {
+    for (const std::size_t threads : {std::size_t(1), std::size_t(2)}) {
+        tenon::thread_pool pool(threads);
+        auto net = tenon::make_mlp<T>({784, 256, 128, 10}, tenon::activation::relu, {tenon::init_scheme::he_uniform, 0.0}, 1);
+        tenon::adam<T> rule;
+        tenon::random_engine rng(4);
+        tenon::matrix<T> x({128, 784});
+        for (std::size_t k = 0; k < x.size(); ++k) x.data()[k] = rng.normal(T(0), T(1));
+        std::vector<std::size_t> labels(128);
+        for (auto& l : labels) l = static_cast<std::size_t>(rng.below(10));
+        tenon::tape<T> t;
+        t.set_executor(&pool);
+        auto step = [&] {
+            t.clear();
+            net.zero_grads();
+            const auto y = net.forward(t, t.input(x));
+            const auto loss = tenon::cross_entropy_loss(t, y, labels);
+            t.backward(loss);
+            rule.apply(net.parameters(), T(0.001));
+        };
+        step();  // the first step with this shape sizes every buffer
+        allocations = 0;
+        counting = true;
+        for (int i = 0; i < 3; ++i) step();
+        counting = false;
+        CHECK_MESSAGE(allocations.load() == 0, "threads=" << threads);
+    }
+    // The counter does count: a new tape's first step allocates its nodes.
+    tenon::tape<T> fresh;
+    counting = true;
+    fresh.input(tenon::matrix<T>({2, 2}));
+    counting = false;
+    CHECK(allocations.load() > 0);
+}
+
+TEST_CASE_TEMPLATE("the trainer's steps after the first epoch allocate nothing, with or without workers", T, float, double) {
+    // Measured between consecutive batch observer calls (which see no
+    // allocation of their own): everything the trainer does for one step,
+    // from gathering the batch to the update, lies between two calls.
+    const auto train = random_rows<T>(600, 1);
+    for (const std::size_t threads : {std::size_t(1), std::size_t(2)}) {
+        tenon::thread_pool pool(threads);
+        auto net = tenon::make_mlp<T>({784, 256, 128, 10}, tenon::activation::relu, {tenon::init_scheme::he_uniform, 0.0}, 2);
+        tenon::adam<T> rule;
+        tenon::constant_rate schedule(0.001);
+        tenon::training_options<T> o;
+        o.epochs = 2;
+        o.batch_size = 128;  // 4 full batches and a tail of 88 rows
+        o.loss = tenon::loss_kind::cross_entropy;
+        o.workers = &pool;
+        std::vector<std::size_t> per_step;
+        std::size_t last = 0;
+        o.on_batch = [&](const tenon::batch_progress& p) {
+            counting = false;
+            const std::size_t now = allocations.load();
+            if (p.epoch == 2 && p.batch > 1) per_step.push_back(now - last);
+            last = now;
+            counting = p.epoch == 2 && p.batch < p.batches;  // count until the epoch's last batch
+        };
+        allocations = 0;
+        tenon::trainer<T> tr(net, rule, schedule, o);
+        tr.run(train, tenon::supervised_rows<T>{});
+        counting = false;
+        REQUIRE(per_step.size() == 4);
+        for (std::size_t i = 0; i < per_step.size(); ++i) CHECK_MESSAGE(per_step[i] == 0, "threads=" << threads << " batch " << i + 2);
+    }
+}
+
+TEST_CASE_TEMPLATE("a predictor call on a prepared row allocates nothing", T, float, double) {
+    const auto table = deploy_test::pump_table(200, 3);
+    const auto train = deploy_test::range(0, 160), validation = deploy_test::range(160, 200);
+    auto fitted = tenon::fit_model<T>(table, deploy_test::condition_plan(), train, validation, deploy_test::small_settings());
+    tenon::predictor<T> p(tenon::make_model_file(fitted, table, train, deploy_test::small_settings()), 8);
+    const auto features = fitted.plan.template apply<T>(table, validation).features;
+    tenon::prediction_view<T> out;
+    REQUIRE(p.try_predict_prepared(features.data(), 1, out).ok());
+    allocations = 0;
+    counting = true;
+    bool ok = true;
+    for (std::size_t row = 0; row < 8; ++row) ok = ok && p.try_predict_prepared(features.data() + row * features.shape()[1], 1, out).ok();
+    ok = ok && p.try_predict_prepared(features.data(), 8, out).ok();
+    counting = false;
+    CHECK(ok);
+    CHECK(allocations.load() == 0);
+}

@@ -1,0 +1,283 @@
+// Tests of the kernel paths (core/simd.hpp, core/gemm.hpp), the thread pool
+// and executors (core/parallel.hpp), the tape's use of an executor, and the
+// vectorized Adam pass (update/rules.hpp).
+#include <doctest/doctest.h>
+
+#include <algorithm>
+#include <atomic>
+#include <cmath>
+#include <cstring>
+#include <limits>
+#include <thread>
+#include <type_traits>
+#include <vector>
+
+#include <tenon/autodiff/operations.hpp>
+#include <tenon/core/gemm.hpp>
+#include <tenon/core/parallel.hpp>
+#include <tenon/core/random.hpp>
+#include <tenon/layers/network.hpp>
+#include <tenon/losses/classification.hpp>
+#include <tenon/update/rules.hpp>
+
+namespace {
+
+const tenon::kernel_path all_paths[] = {tenon::kernel_path::portable, tenon::kernel_path::avx2, tenon::kernel_path::avx512,
+                                        tenon::kernel_path::blas};
+
+// Restores the process-wide kernel path when a test ends.
+struct path_guard {
+    tenon::kernel_path saved = tenon::active_kernel_path();
+    ~path_guard() { tenon::set_kernel_path(saved); }
+};
+
+template <class T>
+std::vector<T> uniform_buffer(tenon::random_engine& rng, std::size_t n) {
+    std::vector<T> v(n);
+    for (auto& x : v) x = rng.uniform<T>(T(-1), T(1));
+    return v;
+}
+
+// The number of elements of c (m x n, row stride ldc) farther from the
+// double-precision product than the dot-product bound gamma_{k+2} (Higham
+// 2002, "Accuracy and Stability of Numerical Algorithms", 2nd ed., section
+// 3.1, eq. 3.5; it holds for any summation order and with or without fused
+// multiply-adds, whose single rounding only tightens it), plus one rounding
+// of the reference to T; or whose padding changed.
+template <class T>
+std::size_t outside_bound(bool ta, bool tb, std::size_t m, std::size_t n, std::size_t k, T alpha, const std::vector<T>& a,
+                          std::size_t lda, const std::vector<T>& b, std::size_t ldb, T beta, const std::vector<T>& c0,
+                          const std::vector<T>& c, std::size_t ldc) {
+    const double u = static_cast<double>(std::numeric_limits<T>::epsilon()) / 2.0;
+    const double gamma = static_cast<double>(k + 2) * u / (1.0 - static_cast<double>(k + 2) * u);
+    std::size_t outside = 0;
+    for (std::size_t i = 0; i < m; ++i) {
+        for (std::size_t j = 0; j < ldc; ++j) {
+            const std::size_t idx = i * ldc + j;
+            if (j >= n) {
+                outside += c[idx] != c0[idx];
+                continue;
+            }
+            double exact = 0.0, magnitude = 0.0;
+            for (std::size_t p = 0; p < k; ++p) {
+                const double x = static_cast<double>(ta ? a[p * lda + i] : a[i * lda + p]);
+                const double y = static_cast<double>(tb ? b[j * ldb + p] : b[p * ldb + j]);
+                exact += x * y;
+                magnitude += std::abs(x * y);
+            }
+            const double c_in = static_cast<double>(c0[idx]);
+            exact = static_cast<double>(alpha) * exact + static_cast<double>(beta) * c_in;
+            magnitude = std::abs(static_cast<double>(alpha)) * magnitude + std::abs(static_cast<double>(beta) * c_in);
+            const double bound = gamma * magnitude + u * std::abs(exact);
+            outside += std::abs(static_cast<double>(c[idx]) - exact) > bound;
+        }
+    }
+    return outside;
+}
+
+// Runs the tasks of each run() one after the other, last index first: a
+// host-supplied executor with an order unlike the pool's.
+class reverse_executor final : public tenon::executor {
+public:
+    explicit reverse_executor(std::size_t width) : width_(width) {}
+    std::size_t concurrency() const noexcept override { return width_; }
+    void run(std::size_t count, task_function task, void* context) noexcept override {
+        ++runs;
+        for (std::size_t i = count; i-- > 0;) task(context, i);
+    }
+    std::size_t runs = 0;
+
+private:
+    std::size_t width_;
+};
+
+}  // namespace
+
+TEST_CASE("kernel paths: the portable path is always there, the active one is available, unavailable ones are refused") {
+    path_guard guard;
+    CHECK(tenon::kernel_path_available(tenon::kernel_path::portable));
+    CHECK(tenon::kernel_path_available(tenon::active_kernel_path()));
+    CHECK(tenon::kernel_path_available(tenon::best_builtin_kernel_path()));
+    CHECK(tenon::best_builtin_kernel_path() != tenon::kernel_path::blas);
+    CHECK(tenon::default_kernel_path() == (tenon::kernel_path_available(tenon::kernel_path::blas) ? tenon::kernel_path::blas
+                                                                                                   : tenon::best_builtin_kernel_path()));
+    // AVX-512F CPUs all have AVX2 and FMA, so the fused paths nest.
+    if (tenon::kernel_path_available(tenon::kernel_path::avx512)) CHECK(tenon::kernel_path_available(tenon::kernel_path::avx2));
+    for (const auto p : all_paths) {
+        if (tenon::kernel_path_available(p)) {
+            tenon::set_kernel_path(p);
+            CHECK(tenon::active_kernel_path() == p);
+        } else {
+            CHECK_THROWS_WITH_AS(tenon::set_kernel_path(p), doctest::Contains("core.argument.invalid"), tenon::error);
+            CHECK(tenon::active_kernel_path() != p);
+        }
+    }
+#if !(defined(TENON_HAS_BLAS) && TENON_HAS_BLAS)
+    CHECK_FALSE(tenon::kernel_path_available(tenon::kernel_path::blas));
+    CHECK_THROWS_WITH_AS(tenon::set_kernel_path(tenon::kernel_path::blas), doctest::Contains("tenon::blas"), tenon::error);
+#endif
+    CHECK(std::string(tenon::kernel_path_name(tenon::kernel_path::avx512)) == "avx512");
+}
+
+TEST_CASE_TEMPLATE("every kernel path stays within the dot-product rounding bound across its block and tile edges", T, float, double) {
+    // Shapes cross the tile edges of every path (4, 6 and 8 rows; 8, 16, 32
+    // columns), the depth block (kc = 256), the row blocks (mc = 64, 120,
+    // 128) and the thin-product threshold, none a multiple of them.
+    path_guard guard;
+    const std::size_t sizes[][3] = {{13, 21, 35}, {70, 9, 7},  {5, 530, 3},  {6, 10, 300}, {7, 33, 257},
+                                    {129, 40, 20}, {121, 17, 9}, {9, 65, 513}, {68, 516, 2}, {3, 40, 20}};
+    for (const auto path : all_paths) {
+        if (!tenon::kernel_path_available(path)) continue;
+        tenon::set_kernel_path(path);
+        tenon::random_engine rng(47);
+        for (const auto& sz : sizes) {
+            const std::size_t m = sz[0], n = sz[1], k = sz[2];
+            for (int mode = 0; mode < 4; ++mode) {
+                const bool ta = (mode & 1) != 0, tb = (mode & 2) != 0;
+                const std::size_t lda = (ta ? m : k) + 1, ldb = (tb ? k : n) + 3, ldc = n + 1;
+                const auto a = uniform_buffer<T>(rng, (ta ? k : m) * lda);
+                const auto b = uniform_buffer<T>(rng, (tb ? n : k) * ldb);
+                const auto c0 = uniform_buffer<T>(rng, m * ldc);
+                for (const T beta : {T(0), T(0.5)}) {
+                    const T alpha = T(-0.75);
+                    std::vector<T> c = c0;
+                    tenon::gemm<T>(ta, tb, m, n, k, alpha, a.data(), lda, b.data(), ldb, beta, c.data(), ldc);
+                    CHECK_MESSAGE(outside_bound<T>(ta, tb, m, n, k, alpha, a, lda, b, ldb, beta, c0, c, ldc) == 0,
+                                  tenon::kernel_path_name(path) << " m=" << m << " n=" << n << " k=" << k << " ta=" << ta
+                                                                << " tb=" << tb << " beta=" << beta);
+                }
+            }
+        }
+    }
+}
+
+TEST_CASE_TEMPLATE("gemm gives bit-identical results for any thread count and executor on every built-in path", T, float, double) {
+    // Each element is computed by one task, in an order fixed by the shape
+    // alone (core/gemm.hpp), so the split cannot change a single bit. The
+    // shapes split by columns (wider than tall) and by rows, with partial
+    // edge tiles, and the 784-256-128 layer shapes.
+    path_guard guard;
+    tenon::thread_pool two(2), three(3);
+    reverse_executor host(4);
+    const std::size_t sizes[][3] = {{128, 256, 784}, {784, 256, 128}, {37, 301, 70}, {301, 37, 70}, {128, 10, 128}};
+    for (const auto path : {tenon::kernel_path::portable, tenon::kernel_path::avx2, tenon::kernel_path::avx512}) {
+        if (!tenon::kernel_path_available(path)) continue;
+        tenon::set_kernel_path(path);
+        tenon::random_engine rng(5);
+        for (const auto& sz : sizes) {
+            const std::size_t m = sz[0], n = sz[1], k = sz[2];
+            for (int mode = 0; mode < 4; ++mode) {
+                const bool ta = (mode & 1) != 0, tb = (mode & 2) != 0;
+                const std::size_t lda = ta ? m : k, ldb = tb ? k : n;
+                const auto a = uniform_buffer<T>(rng, m * k);
+                const auto b = uniform_buffer<T>(rng, k * n);
+                const auto c0 = uniform_buffer<T>(rng, m * n);
+                std::vector<T> one = c0;
+                tenon::gemm<T>(ta, tb, m, n, k, T(1), a.data(), lda, b.data(), ldb, T(1), one.data(), n);
+                tenon::executor* executors[] = {&two, &three, &host};
+                for (tenon::executor* e : executors) {
+                    std::vector<T> c = c0;
+                    tenon::gemm<T>(ta, tb, m, n, k, T(1), a.data(), lda, b.data(), ldb, T(1), c.data(), n, e);
+                    CHECK_MESSAGE(std::memcmp(c.data(), one.data(), c.size() * sizeof(T)) == 0,
+                                  tenon::kernel_path_name(path) << " m=" << m << " n=" << n << " k=" << k << " mode=" << mode
+                                                                << " threads=" << e->concurrency());
+                }
+            }
+        }
+    }
+    CHECK(host.runs > 0);  // the host's executor was really used
+}
+
+TEST_CASE("a thread pool runs every index exactly once, from several host threads at once") {
+    CHECK_THROWS_WITH_AS(tenon::thread_pool(0), doctest::Contains("core.argument.invalid"), tenon::error);
+    CHECK_THROWS_WITH_AS(tenon::thread_pool(tenon::thread_pool::max_threads + 1), doctest::Contains("number of threads"), tenon::error);
+    tenon::thread_pool single;
+    CHECK(single.concurrency() == 1);
+    tenon::thread_pool pool(3);
+    CHECK(pool.concurrency() == 3);
+
+    struct counts {
+        std::vector<std::atomic<int>> hits;
+        explicit counts(std::size_t n) : hits(n) {}
+        static void task(void* context, std::size_t i) { static_cast<counts*>(context)->hits[i].fetch_add(1); }
+    };
+    for (std::size_t count : {std::size_t(0), std::size_t(1), std::size_t(2), std::size_t(7), std::size_t(100)}) {
+        counts c(count);
+        for (int round = 0; round < 50; ++round) pool.run(count, &counts::task, &c);
+        for (std::size_t i = 0; i < count; ++i) CHECK(c.hits[i].load() == 50);
+    }
+    // Two host threads share the pool: their runs take turns, none is lost.
+    counts left(64), right(64);
+    std::thread other([&] {
+        for (int round = 0; round < 200; ++round) pool.run(64, &counts::task, &right);
+    });
+    for (int round = 0; round < 200; ++round) pool.run(64, &counts::task, &left);
+    other.join();
+    for (std::size_t i = 0; i < 64; ++i) {
+        CHECK(left.hits[i].load() == 200);
+        CHECK(right.hits[i].load() == 200);
+    }
+}
+
+TEST_CASE_TEMPLATE("a tape with an executor gives bit-identical values and gradients", T, float, double) {
+    auto run = [](tenon::executor* workers, std::vector<T>& out) {
+        auto net = tenon::make_mlp<T>({40, 64, 32, 5}, tenon::activation::relu, {tenon::init_scheme::he_normal, 0.0}, 9);
+        tenon::random_engine rng(2);
+        tenon::matrix<T> x({96, 40});
+        for (std::size_t i = 0; i < x.size(); ++i) x.data()[i] = rng.normal(T(0), T(1));
+        std::vector<std::size_t> labels(96);
+        for (auto& l : labels) l = static_cast<std::size_t>(rng.below(5));
+        tenon::tape<T> t;
+        t.set_executor(workers);
+        CHECK(t.workers() == workers);
+        const auto y = net.forward(t, t.input(x));
+        const auto loss = tenon::cross_entropy_loss(t, y, labels);
+        t.backward(loss);
+        out.assign(y.value().data(), y.value().data() + y.value().size());
+        for (auto* p : net.parameters()) out.insert(out.end(), p->grad().data(), p->grad().data() + p->size());
+    };
+    std::vector<T> alone, shared;
+    run(nullptr, alone);
+    tenon::thread_pool pool(2);
+    run(&pool, shared);
+    REQUIRE(alone.size() == shared.size());
+    CHECK(std::memcmp(alone.data(), shared.data(), alone.size() * sizeof(T)) == 0);
+}
+
+TEST_CASE_TEMPLATE("the vectorized Adam pass is bit-identical to the scalar formula", T, float, double) {
+    // Kingma & Ba 2015, Algorithm 1, as update/rules.hpp writes it, element by
+    // element; 37 elements cover whole vectors and a scalar tail.
+    for (const T clip : {T(0), T(0.05)}) {
+        tenon::update_options<T> options;
+        options.clip_value = clip;
+        options.weight_decay = T(0.01);
+        tenon::adam_options<T> settings;
+        settings.decoupled_weight_decay = T(0.02);
+        tenon::adam<T> rule(settings, options);
+        tenon::parameter<T> p("w", tenon::shape2{1, 37});
+        tenon::random_engine rng(3);
+        for (std::size_t k = 0; k < 37; ++k) p.value().data()[k] = rng.normal(T(0), T(1));
+        std::vector<T> w(p.value().data(), p.value().data() + 37), m(37, T(0)), v(37, T(0));
+        std::vector<tenon::parameter<T>*> params{&p};
+        const T lr = T(0.01);
+        for (int step = 1; step <= 3; ++step) {
+            tenon::ensure_shape(p.grad(), p.shape());
+            for (std::size_t k = 0; k < 37; ++k) p.grad().data()[k] = rng.normal(T(0), T(0.2));
+            rule.apply(params, lr);
+            const T c1 = static_cast<T>(1.0 - std::pow(static_cast<double>(settings.beta1), step));
+            const T c2 = static_cast<T>(1.0 - std::pow(static_cast<double>(settings.beta2), step));
+            const T decay = lr * settings.decoupled_weight_decay;
+            for (std::size_t k = 0; k < 37; ++k) {
+                T g = p.grad().data()[k];
+                if (clip > T(0)) g = std::min(std::max(g, -clip), clip);
+                g = g + options.weight_decay * w[k];
+                m[k] = settings.beta1 * m[k] + (T(1) - settings.beta1) * g;
+                v[k] = settings.beta2 * v[k] + (T(1) - settings.beta2) * g * g;
+                const T m_hat = m[k] / c1;
+                const T v_hat = v[k] / c2;
+                w[k] -= lr * m_hat / (std::sqrt(v_hat) + settings.epsilon) + decay * w[k];
+            }
+            CHECK(std::memcmp(w.data(), p.value().data(), 37 * sizeof(T)) == 0);
+        }
+    }
+}
