@@ -569,7 +569,8 @@ struct container {
 inline container read_container(const std::uint8_t* data, std::size_t size, const model_limits& limits, const std::string& source) {
     container c;
     const std::size_t magic_bytes = size < 8 ? size : 8;
-    if (std::memcmp(data, model_magic, magic_bytes) != 0)
+    // An empty input may come with a null pointer, which memcmp must not see.
+    if (magic_bytes > 0 && std::memcmp(data, model_magic, magic_bytes) != 0)
         raise(codes::deploy_bad_magic, source + ": not a tenon model file (the first bytes are not the tenon model magic)");
     if (size > limits.max_file_bytes)
         raise(codes::deploy_oversize, source + ": " + std::to_string(size) + " bytes, more than the limit of " +
