@@ -51,9 +51,11 @@
 
 #include "tenon/deploy/atomic_file.hpp"
 #include "tenon/deploy/checksum.hpp"
+#include "tenon/deploy/drift.hpp"
 #include "tenon/deploy/model_file.hpp"
 #include "tenon/deploy/predictor.hpp"
 #include "tenon/deploy/reference.hpp"
+#include "tenon/deploy/retraining.hpp"
 
 #if defined(TENON_HAS_ZLIB)
 #include "tenon/prep/idx_gzip.hpp"
