@@ -7,7 +7,9 @@
 #include "tenon/core/error_codes.hpp"
 #include "tenon/core/gemm.hpp"
 #include "tenon/core/matrix.hpp"
+#include "tenon/core/parallel.hpp"
 #include "tenon/core/random.hpp"
+#include "tenon/core/simd.hpp"
 
 #include "tenon/autodiff/custom_operation.hpp"
 #include "tenon/autodiff/gradient_check.hpp"
