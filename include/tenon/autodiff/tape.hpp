@@ -498,20 +498,12 @@ private:
                 const bview vx(shape_of(x)), vy(shape_of(y));
                 const T* px = x.data();
                 const T* py = y.data();
-                for (std::size_t i = 0; i < rows; ++i) {
-                    for (std::size_t j = 0; j < cols; ++j) {
-                        const T u = px[vx.at(i, j)], v = py[vy.at(i, j)];
-                        T r;
-                        switch (n.kind) {
-                            case op_kind::add: r = u + v; break;
-                            case op_kind::subtract: r = u - v; break;
-                            case op_kind::multiply: r = u * v; break;
-                            default: r = u / v; break;
-                        }
-                        o[i * cols + j] = r;
-                    }
+                switch (n.kind) {
+                    case op_kind::add: combine(vx, vy, px, py, o, rows, cols, [](T u, T v) { return u + v; }); return;
+                    case op_kind::subtract: combine(vx, vy, px, py, o, rows, cols, [](T u, T v) { return u - v; }); return;
+                    case op_kind::multiply: combine(vx, vy, px, py, o, rows, cols, [](T u, T v) { return u * v; }); return;
+                    default: combine(vx, vy, px, py, o, rows, cols, [](T u, T v) { return u / v; }); return;
                 }
-                return;
             }
             case op_kind::matmul: {
                 const matrix<T>& x = value_at(n.inputs[0]);
@@ -578,37 +570,58 @@ private:
             default: break;
         }
         // Elementwise unary operations.
+        // One loop per kind (the kind is chosen once, not per value), so the
+        // simple ones vectorize.
         const T* px = value_at(n.inputs[0]).data();
         const T a = n.a, b = n.b;
-        for (std::size_t k = 0; k < size; ++k) {
-            const T x = px[k];
-            T r;
-            switch (n.kind) {
-                case op_kind::scale: r = a * x; break;
-                case op_kind::shift: r = x + a; break;
-                case op_kind::exp: r = std::exp(x); break;
-                case op_kind::log: r = std::log(x); break;
-                case op_kind::square: r = x * x; break;
-                case op_kind::sqrt: r = std::sqrt(x); break;
-                case op_kind::abs: r = std::abs(x); break;
-                case op_kind::pow: r = std::pow(x, a); break;
-                case op_kind::tanh: r = std::tanh(x); break;
-                case op_kind::sigmoid: r = detail::stable_sigmoid(x); break;
-                case op_kind::relu: r = x > T(0) ? x : T(0); break;
-                case op_kind::leaky_relu: r = x > T(0) ? x : a * x; break;
-                case op_kind::elu: r = x > T(0) ? x : a * std::expm1(x); break;
-                case op_kind::softplus: r = detail::stable_softplus(x); break;
-                case op_kind::gelu_erf: r = T(0.5) * x * (T(1) + std::erf(x * T(detail::inv_sqrt2))); break;
-                case op_kind::gelu_tanh: {
+        switch (n.kind) {
+            case op_kind::scale: map(px, o, size, [a](T x) { return a * x; }); return;
+            case op_kind::shift: map(px, o, size, [a](T x) { return x + a; }); return;
+            case op_kind::exp: map(px, o, size, [](T x) { return std::exp(x); }); return;
+            case op_kind::log: map(px, o, size, [](T x) { return std::log(x); }); return;
+            case op_kind::square: map(px, o, size, [](T x) { return x * x; }); return;
+            case op_kind::sqrt: map(px, o, size, [](T x) { return std::sqrt(x); }); return;
+            case op_kind::abs: map(px, o, size, [](T x) { return std::abs(x); }); return;
+            case op_kind::pow: map(px, o, size, [a](T x) { return std::pow(x, a); }); return;
+            case op_kind::tanh: map(px, o, size, [](T x) { return std::tanh(x); }); return;
+            case op_kind::sigmoid: map(px, o, size, [](T x) { return detail::stable_sigmoid(x); }); return;
+            case op_kind::relu: map(px, o, size, [](T x) { return x > T(0) ? x : T(0); }); return;
+            case op_kind::leaky_relu: map(px, o, size, [a](T x) { return x > T(0) ? x : a * x; }); return;
+            case op_kind::elu: map(px, o, size, [a](T x) { return x > T(0) ? x : a * std::expm1(x); }); return;
+            case op_kind::softplus: map(px, o, size, [](T x) { return detail::stable_softplus(x); }); return;
+            case op_kind::gelu_erf:
+                map(px, o, size, [](T x) { return T(0.5) * x * (T(1) + std::erf(x * T(detail::inv_sqrt2))); });
+                return;
+            case op_kind::gelu_tanh:
+                map(px, o, size, [](T x) {
                     const T u = T(detail::gelu_sqrt_2_over_pi) * (x + T(detail::gelu_cubic) * x * x * x);
-                    r = T(0.5) * x * (T(1) + std::tanh(u));
-                    break;
-                }
-                case op_kind::clamp: r = x < a ? a : (x > b ? b : x); break;
-                case op_kind::stop_gradient: r = x; break;
-                default: r = x; break;
-            }
-            o[k] = r;
+                    return T(0.5) * x * (T(1) + std::tanh(u));
+                });
+                return;
+            case op_kind::clamp: map(px, o, size, [a, b](T x) { return x < a ? a : (x > b ? b : x); }); return;
+            default: map(px, o, size, [](T x) { return x; }); return;
+        }
+    }
+
+    template <class F>
+    static void map(const T* px, T* o, std::size_t size, F f) noexcept {
+        for (std::size_t k = 0; k < size; ++k) o[k] = f(px[k]);
+    }
+
+    // o = x (op) y with broadcasting; the common layouts (equal shapes, a
+    // row added to every row) get loops without index arithmetic.
+    template <class F>
+    static void combine(const bview& vx, const bview& vy, const T* px, const T* py, T* o, std::size_t rows, std::size_t cols,
+                        F f) noexcept {
+        const bool x_full = vx.rstride == cols && vx.cstride == 1, y_full = vy.rstride == cols && vy.cstride == 1;
+        if (x_full && y_full) {
+            for (std::size_t k = 0; k < rows * cols; ++k) o[k] = f(px[k], py[k]);
+        } else if (x_full && vy.rstride == 0 && vy.cstride == 1) {
+            for (std::size_t i = 0; i < rows; ++i)
+                for (std::size_t j = 0; j < cols; ++j) o[i * cols + j] = f(px[i * cols + j], py[j]);
+        } else {
+            for (std::size_t i = 0; i < rows; ++i)
+                for (std::size_t j = 0; j < cols; ++j) o[i * cols + j] = f(px[vx.at(i, j)], py[vy.at(i, j)]);
         }
     }
 
@@ -623,6 +636,29 @@ private:
                 matrix<T>* gx = grad_target(n.inputs[0]);
                 matrix<T>* gy = grad_target(n.inputs[1]);
                 const bview vx(shape_of(x)), vy(shape_of(y));
+                const bool x_full = vx.rstride == cols && vx.cstride == 1;
+                const bool y_row = vy.cstride == 1 && (vy.rstride == 0 || vy.rstride == cols);
+                if ((n.kind == op_kind::add || n.kind == op_kind::subtract) && x_full && y_row) {
+                    // The bias-add layout: the same sums in the same order
+                    // as the general loop below, without its index arithmetic.
+                    const T sign = n.kind == op_kind::add ? T(1) : T(-1);
+                    T* pgx = gx ? gx->data() : nullptr;
+                    T* pgy = gy ? gy->data() : nullptr;
+                    for (std::size_t i = 0; i < rows; ++i) {
+                        const T* gi = g + i * cols;
+                        if (pgx)
+                            for (std::size_t j = 0; j < cols; ++j) pgx[i * cols + j] += gi[j];
+                        if (pgy) {
+                            T* target = pgy + i * vy.rstride;
+                            if (sign > T(0)) {
+                                for (std::size_t j = 0; j < cols; ++j) target[j] += gi[j];
+                            } else {
+                                for (std::size_t j = 0; j < cols; ++j) target[j] += -gi[j];
+                            }
+                        }
+                    }
+                    return;
+                }
                 for (std::size_t i = 0; i < rows; ++i) {
                     for (std::size_t j = 0; j < cols; ++j) {
                         const T gij = g[i * cols + j];
@@ -729,41 +765,44 @@ private:
         T* pg = gx->data();
         const T a = n.a, b = n.b;
         const std::size_t size = n.value.size();
-        for (std::size_t k = 0; k < size; ++k) {
-            const T x = px[k], y = py[k];
-            T d;
-            switch (n.kind) {
-                case op_kind::scale: d = a; break;
-                case op_kind::shift: d = T(1); break;
-                case op_kind::exp: d = y; break;
-                case op_kind::log: d = T(1) / x; break;
-                case op_kind::square: d = T(2) * x; break;
-                case op_kind::sqrt: d = T(0.5) / y; break;
-                case op_kind::abs: d = x > T(0) ? T(1) : (x < T(0) ? T(-1) : T(0)); break;
-                case op_kind::pow: d = a * std::pow(x, a - T(1)); break;
-                case op_kind::tanh: d = T(1) - y * y; break;                    // tanh' = 1 - tanh^2
-                case op_kind::sigmoid: d = y * (T(1) - y); break;               // s' = s (1 - s)
-                case op_kind::relu: d = x > T(0) ? T(1) : T(0); break;
-                case op_kind::leaky_relu: d = x > T(0) ? T(1) : a; break;
-                case op_kind::elu: d = x > T(0) ? T(1) : y + a; break;          // a(e^x - 1)' = y + a
-                case op_kind::softplus: d = detail::stable_sigmoid(x); break;   // softplus' = sigmoid
-                case op_kind::gelu_erf: {
-                    // d/dx [x Phi(x)] = Phi(x) + x phi(x)
+        // dx += g * f'(x, y), one loop per kind.
+        switch (n.kind) {
+            case op_kind::scale: chain(px, py, g, pg, size, [a](T, T) { return a; }); return;
+            case op_kind::shift: chain(px, py, g, pg, size, [](T, T) { return T(1); }); return;
+            case op_kind::exp: chain(px, py, g, pg, size, [](T, T y) { return y; }); return;
+            case op_kind::log: chain(px, py, g, pg, size, [](T x, T) { return T(1) / x; }); return;
+            case op_kind::square: chain(px, py, g, pg, size, [](T x, T) { return T(2) * x; }); return;
+            case op_kind::sqrt: chain(px, py, g, pg, size, [](T, T y) { return T(0.5) / y; }); return;
+            case op_kind::abs: chain(px, py, g, pg, size, [](T x, T) { return x > T(0) ? T(1) : (x < T(0) ? T(-1) : T(0)); }); return;
+            case op_kind::pow: chain(px, py, g, pg, size, [a](T x, T) { return a * std::pow(x, a - T(1)); }); return;
+            case op_kind::tanh: chain(px, py, g, pg, size, [](T, T y) { return T(1) - y * y; }); return;         // tanh' = 1 - tanh^2
+            case op_kind::sigmoid: chain(px, py, g, pg, size, [](T, T y) { return y * (T(1) - y); }); return;    // s' = s (1 - s)
+            case op_kind::relu: chain(px, py, g, pg, size, [](T x, T) { return x > T(0) ? T(1) : T(0); }); return;
+            case op_kind::leaky_relu: chain(px, py, g, pg, size, [a](T x, T) { return x > T(0) ? T(1) : a; }); return;
+            case op_kind::elu: chain(px, py, g, pg, size, [a](T x, T y) { return x > T(0) ? T(1) : y + a; }); return;  // a(e^x - 1)' = y + a
+            case op_kind::softplus: chain(px, py, g, pg, size, [](T x, T) { return detail::stable_sigmoid(x); }); return;  // softplus' = sigmoid
+            case op_kind::gelu_erf:
+                // d/dx [x Phi(x)] = Phi(x) + x phi(x)
+                chain(px, py, g, pg, size, [](T x, T) {
                     const T cdf = T(0.5) * (T(1) + std::erf(x * T(detail::inv_sqrt2)));
-                    d = cdf + x * T(detail::inv_sqrt_2pi) * std::exp(T(-0.5) * x * x);
-                    break;
-                }
-                case op_kind::gelu_tanh: {
+                    return cdf + x * T(detail::inv_sqrt_2pi) * std::exp(T(-0.5) * x * x);
+                });
+                return;
+            case op_kind::gelu_tanh:
+                chain(px, py, g, pg, size, [](T x, T) {
                     const T c = T(detail::gelu_sqrt_2_over_pi);
                     const T t = std::tanh(c * (x + T(detail::gelu_cubic) * x * x * x));
-                    d = T(0.5) * (T(1) + t) + T(0.5) * x * (T(1) - t * t) * c * (T(1) + T(3 * detail::gelu_cubic) * x * x);
-                    break;
-                }
-                case op_kind::clamp: d = (x >= a && x <= b) ? T(1) : T(0); break;
-                default: d = T(0); break;
-            }
-            pg[k] += g[k] * d;
+                    return T(0.5) * (T(1) + t) + T(0.5) * x * (T(1) - t * t) * c * (T(1) + T(3 * detail::gelu_cubic) * x * x);
+                });
+                return;
+            case op_kind::clamp: chain(px, py, g, pg, size, [a, b](T x, T) { return (x >= a && x <= b) ? T(1) : T(0); }); return;
+            default: chain(px, py, g, pg, size, [](T, T) { return T(0); }); return;
         }
+    }
+
+    template <class F>
+    static void chain(const T* px, const T* py, const T* g, T* pg, std::size_t size, F derivative) noexcept {
+        for (std::size_t k = 0; k < size; ++k) pg[k] += g[k] * derivative(px[k], py[k]);
     }
 
     std::vector<detail::tape_node<T>> nodes_;
