@@ -98,7 +98,9 @@
 #define TENON_ERROR_CODES_TRAIN(X)                                                             \
     X(train_no_rows, "train.rows.empty", "the training or validation rows are empty")           \
     X(train_option, "train.option.invalid", "a trainer option or the loss does not fit the data") \
-    X(train_non_finite_input, "train.input.non_finite", "a prepared feature or target is NaN or infinite")
+    X(train_non_finite_input, "train.input.non_finite", "a prepared feature or target is NaN or infinite") \
+    X(train_team_mismatch, "train.team.mismatch",                                              \
+      "the members of a training team disagree on the rows, settings or network they train")
 
 // deploy/: model files, the predictor, retraining, drift.
 #define TENON_ERROR_CODES_DEPLOY(X)                                                            \
@@ -142,13 +144,22 @@
     X(deploy_drift_option, "deploy.drift.option", "a drift threshold or option is outside its documented range") \
     X(deploy_drift_empty_window, "deploy.drift.empty_window", "drift was asked of a window without rows")
 
+// distributed/: data-parallel training over MPI, fleet averaging.
+#define TENON_ERROR_CODES_DISTRIBUTED(X)                                                       \
+    X(distributed_mpi, "distributed.mpi.failed", "an MPI call failed or MPI is not initialized") \
+    X(distributed_fleet_bytes, "distributed.fleet.bad_bytes",                                  \
+      "a fleet contribution's bytes are not a contribution (magic, version, checksum, length)") \
+    X(distributed_fleet_empty, "distributed.fleet.no_contribution",                            \
+      "fleet averaging was left without an accepted contribution")
+
 #define TENON_ERROR_CODES(X)                                                                   \
     TENON_ERROR_CODES_CORE(X)                                                                  \
     TENON_ERROR_CODES_AUTODIFF(X)                                                              \
     TENON_ERROR_CODES_PREP(X)                                                                  \
     TENON_ERROR_CODES_MODEL(X)                                                                 \
     TENON_ERROR_CODES_TRAIN(X)                                                                 \
-    TENON_ERROR_CODES_DEPLOY(X)
+    TENON_ERROR_CODES_DEPLOY(X)                                                                \
+    TENON_ERROR_CODES_DISTRIBUTED(X)
 
 TENON_NAMESPACE_BEGIN
 

@@ -23,6 +23,28 @@
 // Allocation: the trainer keeps one tape for full batches and one for the
 // last, shorter batch of an epoch, so after the first epoch a training step
 // records into buffers it already has.
+//
+// Teams: with training_options::team, several trainers (one per process,
+// e.g. MPI ranks, see distributed/data_parallel.hpp) train one model
+// together. Every member holds the same training rows and shuffles them
+// with the same seed; global batch b of an epoch holds the shuffled
+// positions [b G, (b + 1) G) with G = batch_size x members, and member m
+// takes the positions congruent to m modulo the member count (round robin),
+// so a member's batch holds batch_size rows. After backward, each member's
+// gradient is weighted by its batch's loss weight (its row count, or the sum
+// of its rows' class weights; 1 with the sum reduction), all are summed in
+// one fused buffer, and divided by the total weight: the gradient of the
+// loss of the whole global batch, as one trainer with batch_size G computes
+// it, up to the order of the sums. Every decision that ends or changes the
+// run is taken on summed values, so all members take it together: a
+// non-finite loss or gradient on any member, cancellation or a spent budget
+// on any member (read with the step's sum, so a request made after step k
+// stops every member after step k + 1), the validation loss and metric
+// (each member scores every m-th validation row), and a stop asked by any
+// member's epoch observer.
+// State buffers (batch-normalization running statistics) are averaged over
+// the members after every epoch; during training each member normalizes
+// with its own batch's statistics.
 #pragma once
 
 #include <algorithm>
@@ -133,6 +155,21 @@ struct training_progress {
     double rate_factor = 1.0;               // product of divergence reductions so far
 };
 
+/// The members of a team of trainers (see the top of this file). Every call
+/// is collective: all members make the same calls in the same order, each
+/// returning when all have made it.
+class training_team {
+public:
+    virtual ~training_team() = default;
+    virtual std::size_t member_count() const = 0;
+    /// This member's index in [0, member_count()).
+    virtual std::size_t member_index() const = 0;
+    /// Replaces `values[k]` by its sum over the members, for every k; every
+    /// member must receive the same bits.
+    virtual void sum(float* values, std::size_t count) = 0;
+    virtual void sum(double* values, std::size_t count) = 0;
+};
+
 template <class T>
 struct training_options {
     std::size_t epochs = 100;
@@ -167,6 +204,9 @@ struct training_options {
     /// (core/parallel.hpp); nullptr keeps everything on the calling thread.
     /// Results are bit-identical for any thread count. Must outlive run().
     executor* workers = nullptr;
+    /// Train as a member of this team (nullptr: alone); `batch_size` is then
+    /// the batch of each member. Must outlive run().
+    training_team* team = nullptr;
 };
 
 namespace detail {
@@ -331,6 +371,9 @@ public:
                                              std::to_string(train.targets.shape()[1]) + " target columns");
         }
 
+        if (options_.team) check_team(train, validation);
+        const supervised_rows<T>& validation_share = options_.team ? team_validation(validation) : validation;
+
         training_outcome out;
         const double start = options_.clock();
         random_engine shuffle_engine(options_.seed, /*stream=*/0x5EED5u);
@@ -428,8 +471,10 @@ public:
                 break;
             }
 
+            if (options_.team) average_state_buffers();
             if (validate) {
-                evaluate(validation, s.validation_loss, s.validation_metric);
+                if (options_.team) evaluate_shared(validation_share, s.validation_loss, s.validation_metric);
+                else evaluate(validation, s.validation_loss, s.validation_metric);
                 schedule_.report_metric(s.validation_loss);
                 if (!std::isfinite(s.validation_loss)) {
                     net_.restore(epoch_start);
@@ -468,7 +513,16 @@ public:
             progress_.epochs_since_best = since_best;
             progress_.rate_factor = rate_factor;
 
-            if (options_.on_epoch && !options_.on_epoch(s)) {
+            bool observer_stop = options_.on_epoch && !options_.on_epoch(s);
+            bool out_of_time = budget_spent(start);
+            if (options_.team) {
+                // Any member's observer or clock stops all members.
+                double flags[2] = {observer_stop ? 1.0 : 0.0, out_of_time ? 1.0 : 0.0};
+                options_.team->sum(flags, 2);
+                observer_stop = flags[0] > 0.0;
+                out_of_time = flags[1] > 0.0;
+            }
+            if (observer_stop) {
                 out.reason = stop_reason::cancelled;
                 out.message = "stopped by the epoch observer after epoch " + std::to_string(epoch);
                 stop = true;
@@ -477,7 +531,7 @@ public:
                 out.message = "no validation improvement for " + std::to_string(options_.patience) + " epochs; best was epoch " +
                               std::to_string(out.best_epoch);
                 stop = true;
-            } else if (budget_spent(start)) {
+            } else if (out_of_time) {
                 out.reason = stop_reason::time_budget;
                 out.message = "the time budget of " + std::to_string(options_.time_budget_seconds) + " s ran out after epoch " +
                               std::to_string(epoch);
@@ -527,34 +581,45 @@ private:
         epoch_result r;
         engine.shuffle(order.begin(), order.end());
         net_.set_mode(run_mode::training);
+        training_team* team = options_.team;
+        const std::size_t members = team ? team->member_count() : 1, me = team ? team->member_index() : 0;
+        const std::size_t global_batch = options_.batch_size * members;
         const std::size_t rows = d.rows(), inputs = d.features.shape()[1];
-        const std::size_t batches = (rows + options_.batch_size - 1) / options_.batch_size;
+        const std::size_t batches = (rows + global_batch - 1) / global_batch;
         double loss_sum = 0.0;
         for (std::size_t b = 0; b < batches; ++b) {
-            const std::size_t first = b * options_.batch_size;
-            const std::size_t n = std::min(options_.batch_size, rows - first);
+            const std::size_t first = b * global_batch;
+            const std::size_t global_rows = std::min(global_batch, rows - first);
+            // This member's positions: first + me, first + me + members, ...
+            const std::size_t n = global_rows > me ? (global_rows - me + members - 1) / members : 0;
             batch_buffers& buf = n == options_.batch_size ? full_ : tail_;
-            gather(d, order, first, n, inputs, buf);
-
-            buf.t.clear();
-            buf.t.set_executor(options_.workers);
             for (auto* p : net_.parameters()) p->zero_grad();
-            const var<T> x = buf.t.input(buf.features);
-            const var<T> y = net_.forward(buf.t, x);
-            const var<T> loss = record_loss(buf.t, y, options_.loss, buf.targets, buf.labels, options_.loss_settings);
-            const double lv = static_cast<double>(loss.value()(0, 0));
-            if (!std::isfinite(lv)) {
+            double lv = 0.0;
+            bool finite = true;
+            if (n > 0) {  // only a team member can have no row of a short last batch
+                gather(d, order, first + me, members, n, inputs, buf);
+                buf.t.clear();
+                buf.t.set_executor(options_.workers);
+                const var<T> x = buf.t.input(buf.features);
+                const var<T> y = net_.forward(buf.t, x);
+                const var<T> loss = record_loss(buf.t, y, options_.loss, buf.targets, buf.labels, options_.loss_settings);
+                lv = static_cast<double>(loss.value()(0, 0));
+                finite = std::isfinite(lv);
+                if (finite) {
+                    buf.t.backward(loss);
+                    for (const auto* p : net_.parameters()) finite = finite && !(p->trainable() && !detail::all_finite(p->grad()));
+                }
+            }
+            bool cancelled = false, out_of_time = false;
+            if (team) {
+                cancelled = options_.cancel && options_.cancel->load(std::memory_order_relaxed);
+                out_of_time = budget_spent(start);
+                share_step(*team, buf.labels, n, lv, finite, cancelled, out_of_time);
+            }
+            if (!finite) {
                 r.status = epoch_status::diverged;
                 net_.set_mode(run_mode::inference);
                 return r;
-            }
-            buf.t.backward(loss);
-            for (const auto* p : net_.parameters()) {
-                if (p->trainable() && !detail::all_finite(p->grad())) {
-                    r.status = epoch_status::diverged;
-                    net_.set_mode(run_mode::inference);
-                    return r;
-                }
             }
             const double lr = schedule_.rate(steps, epoch) * rate_factor;
             rule_.apply(net_.parameters(), static_cast<T>(lr));
@@ -564,11 +629,11 @@ private:
             if (options_.on_batch) {
                 options_.on_batch(batch_progress{epoch + 1, b + 1, batches, lv, options_.clock() - start});
             }
-            if (options_.cancel && options_.cancel->load(std::memory_order_relaxed)) {
+            if (team ? cancelled : options_.cancel && options_.cancel->load(std::memory_order_relaxed)) {
                 r.status = epoch_status::cancelled;
                 break;
             }
-            if (budget_spent(start)) {
+            if (team ? out_of_time : budget_spent(start)) {
                 r.status = epoch_status::out_of_time;
                 break;
             }
@@ -585,24 +650,168 @@ private:
         std::vector<std::size_t> labels;
     };
 
-    static void gather(const supervised_rows<T>& d, const std::vector<std::size_t>& order, std::size_t first, std::size_t n,
-                       std::size_t inputs, batch_buffers& buf) {
+    // Rows order[first], order[first + stride], ... (n of them).
+    static void gather(const supervised_rows<T>& d, const std::vector<std::size_t>& order, std::size_t first, std::size_t stride,
+                       std::size_t n, std::size_t inputs, batch_buffers& buf) {
         ensure_shape(buf.features, shape2{n, inputs});
         for (std::size_t i = 0; i < n; ++i) {
-            const T* src = d.features.data() + order[first + i] * inputs;
+            const T* src = d.features.data() + order[first + i * stride] * inputs;
             std::copy(src, src + inputs, buf.features.data() + i * inputs);
         }
         if (d.is_classification()) {
             buf.labels.resize(n);
-            for (std::size_t i = 0; i < n; ++i) buf.labels[i] = d.labels[order[first + i]];
+            for (std::size_t i = 0; i < n; ++i) buf.labels[i] = d.labels[order[first + i * stride]];
         } else {
             const std::size_t outs = d.targets.shape()[1];
             ensure_shape(buf.targets, shape2{n, outs});
             for (std::size_t i = 0; i < n; ++i) {
-                const T* src = d.targets.data() + order[first + i] * outs;
+                const T* src = d.targets.data() + order[first + i * stride] * outs;
                 std::copy(src, src + outs, buf.targets.data() + i * outs);
             }
         }
+    }
+
+    // The weight of a member's batch in the global batch's loss, following
+    // losses/loss_options.hpp: with the mean reduction the sum of the rows'
+    // weights (class weights for cross-entropy, else 1 per row), with the
+    // sum reduction 1 (the global loss is the sum of the members' losses).
+    double batch_weight(const std::vector<std::size_t>& labels, std::size_t n) const {
+        if (n == 0) return 0.0;
+        if (options_.loss_settings.reduction == loss_reduction::sum) return 1.0;
+        const auto& cw = options_.loss_settings.class_weights;
+        if (options_.loss != loss_kind::cross_entropy || cw.empty()) return static_cast<double>(n);
+        double w = 0.0;
+        for (std::size_t i = 0; i < n; ++i) w += static_cast<double>(cw[labels[i]]);
+        return w;
+    }
+
+    // One fused sum over the team per step: every trainable gradient times
+    // this member's batch weight, then weight, weighted loss and three flags
+    // (non-finite, cancelled, out of time). The averaged gradient replaces
+    // the local one; the flags become the team's.
+    void share_step(training_team& team, const std::vector<std::size_t>& labels, std::size_t n, double& lv, bool& finite,
+                    bool& cancelled, bool& out_of_time) {
+        const double w = finite ? batch_weight(labels, n) : 0.0;
+        std::size_t total = 0;
+        for (const auto* p : net_.parameters())
+            if (p->trainable()) total += p->size();
+        fused_.resize(total + 5);  // no allocation after the first step
+        T* f = fused_.data();
+        for (const auto* p : net_.parameters()) {
+            if (!p->trainable()) continue;
+            const T* g = p->grad().data();
+            for (std::size_t k = 0; k < p->size(); ++k) *f++ = finite ? g[k] * static_cast<T>(w) : T(0);
+        }
+        f[0] = static_cast<T>(w);
+        f[1] = finite ? static_cast<T>(lv * w) : T(0);
+        f[2] = finite ? T(0) : T(1);
+        f[3] = cancelled ? T(1) : T(0);
+        f[4] = out_of_time ? T(1) : T(0);
+        team.sum(fused_.data(), fused_.size());
+        const bool mean = options_.loss_settings.reduction == loss_reduction::mean;
+        const T divisor = mean ? f[0] : T(1);
+        finite = f[2] == T(0) && divisor > T(0);
+        cancelled = f[3] > T(0);
+        out_of_time = f[4] > T(0);
+        if (!finite) return;
+        lv = static_cast<double>(f[1]) / static_cast<double>(divisor);
+        const T* src = fused_.data();
+        for (auto* p : net_.parameters()) {
+            if (!p->trainable()) continue;
+            T* g = p->grad().data();
+            for (std::size_t k = 0; k < p->size(); ++k) g[k] = *src++ / divisor;
+        }
+        for (const auto* p : net_.parameters()) finite = finite && !(p->trainable() && !detail::all_finite(p->grad()));
+    }
+
+    // The members must train on the same rows with the same settings: a few
+    // numbers are summed with their squares, equal everywhere exactly when
+    // sum^2 == members x sum of squares (the same test on every member, so
+    // all raise together).
+    void check_team(const supervised_rows<T>& train, const supervised_rows<T>& validation) {
+        training_team& team = *options_.team;
+        if (team.member_count() == 0 || team.member_index() >= team.member_count()) {
+            raise(codes::train_team_mismatch, "trainer: team member " + std::to_string(team.member_index()) + " of " +
+                                                  std::to_string(team.member_count()));
+        }
+        const double mine[6] = {static_cast<double>(train.rows()), static_cast<double>(train.features.shape()[1]),
+                                static_cast<double>(validation.rows()), static_cast<double>(options_.batch_size),
+                                static_cast<double>(options_.seed % 1000003u), static_cast<double>(net_.parameter_count())};
+        static const char* const names[6] = {"training rows", "input columns", "validation rows", "batch size", "seed", "parameters"};
+        double sums[12];
+        for (int k = 0; k < 6; ++k) {
+            sums[k] = mine[k];
+            sums[6 + k] = mine[k] * mine[k];
+        }
+        team.sum(sums, 12);
+        const double m = static_cast<double>(team.member_count());
+        for (int k = 0; k < 6; ++k) {
+            if (sums[k] * sums[k] != m * sums[6 + k]) {
+                raise(codes::train_team_mismatch, std::string("trainer: the team's members disagree on the ") + names[k] + " (member " +
+                                                      std::to_string(team.member_index()) + " has " + number_text(mine[k]) +
+                                                      ", the mean is " + number_text(sums[k] / m) + ")");
+            }
+        }
+    }
+    static std::string number_text(double v) {
+        std::string t = std::to_string(v);
+        while (!t.empty() && t.back() == '0') t.pop_back();
+        if (!t.empty() && t.back() == '.') t.pop_back();
+        return t;
+    }
+
+    // Every member-th validation row, starting at this member's index.
+    const supervised_rows<T>& team_validation(const supervised_rows<T>& validation) {
+        const std::size_t members = options_.team->member_count(), me = options_.team->member_index();
+        const std::size_t rows = validation.rows(), n = rows > me ? (rows - me + members - 1) / members : 0;
+        shared_validation_ = supervised_rows<T>{};
+        shared_validation_.class_count = validation.class_count;
+        const std::size_t inputs = validation.features.shape()[1];
+        shared_validation_.features = matrix<T>({n, inputs});
+        const bool classify = validation.is_classification();
+        const std::size_t outs = classify ? 0 : validation.targets.shape()[1];
+        if (!classify) shared_validation_.targets = matrix<T>({n, outs});
+        for (std::size_t i = 0; i < n; ++i) {
+            const std::size_t r = me + i * members;
+            std::copy(validation.features.data() + r * inputs, validation.features.data() + (r + 1) * inputs,
+                      shared_validation_.features.data() + i * inputs);
+            if (classify) shared_validation_.labels.push_back(validation.labels[r]);
+            else std::copy(validation.targets.data() + r * outs, validation.targets.data() + (r + 1) * outs, shared_validation_.targets.data() + i * outs);
+        }
+        return shared_validation_;
+    }
+
+    // The validation loss and metric of the whole validation set from each
+    // member's share: the loss weighted as in training, accuracy by rows,
+    // RMSE through the summed squared errors.
+    void evaluate_shared(const supervised_rows<T>& share, double& loss, double& metric) {
+        double local_loss = 0.0, local_metric = 0.0;
+        const std::size_t n = share.rows();
+        if (n > 0) evaluate(share, local_loss, local_metric);
+        const double w = batch_weight(share.labels, n);
+        const bool classify = share.is_classification();
+        const double values = static_cast<double>(n * (classify ? 1 : share.targets.shape()[1]));
+        double sums[4] = {w * local_loss, w, classify ? local_metric * values : local_metric * local_metric * values, values};
+        options_.team->sum(sums, 4);
+        loss = options_.loss_settings.reduction == loss_reduction::mean ? sums[0] / sums[1] : sums[0];
+        metric = classify ? sums[2] / sums[3] : std::sqrt(sums[2] / sums[3]);
+    }
+
+    // Running statistics are not trained by the gradient: the members'
+    // are averaged so that every member holds the same model.
+    void average_state_buffers() {
+        const auto& state = net_.state_buffers();
+        if (state.empty()) return;
+        std::size_t total = 0;
+        for (const auto* p : state) total += p->size();
+        fused_.resize(total);
+        T* f = fused_.data();
+        for (const auto* p : state) f = std::copy(p->value().data(), p->value().data() + p->size(), f);
+        options_.team->sum(fused_.data(), total);
+        const T m = static_cast<T>(options_.team->member_count());
+        const T* src = fused_.data();
+        for (auto* p : state)
+            for (std::size_t k = 0; k < p->size(); ++k) p->value().data()[k] = *src++ / m;
     }
 
     network<T>& net_;
@@ -611,6 +820,8 @@ private:
     training_options<T> options_;
     batch_buffers full_, tail_;
     training_progress<T> progress_;
+    std::vector<T> fused_;                  // a team's per-step sum
+    supervised_rows<T> shared_validation_;  // a team member's validation rows
 };
 
 TENON_NAMESPACE_END

@@ -105,6 +105,11 @@ struct model_settings {
     /// A host's own executor (core/parallel.hpp); when given, `threads` is
     /// ignored and no thread is started.
     executor* workers = nullptr;
+    /// Train as a member of this team (train/trainer.hpp; e.g. one MPI rank,
+    /// distributed/data_parallel.hpp); `batch_size` is then each member's
+    /// batch and the global batch is batch_size x members. Every member
+    /// calls fit_model with the same table, rows and settings.
+    training_team* team = nullptr;
 };
 
 /// A trained model with the plan that prepares its inputs.
@@ -208,6 +213,7 @@ fitted_model<T> fit_model(const table& t, const plan& recipe, const std::vector<
     o.cancel = s.cancel;
     o.on_epoch = s.on_epoch;
     o.on_batch = s.on_batch;
+    o.team = s.team;
     std::unique_ptr<thread_pool> pool;
     if (s.workers) {
         o.workers = s.workers;

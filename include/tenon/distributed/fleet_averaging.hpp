@@ -1,0 +1,255 @@
+// tenon: fleet averaging of models retrained on many devices.
+//
+// Devices that each retrain a deployed model locally (deploy/retraining.hpp)
+// send their weights and sample counts; a coordinator forms the
+// sample-weighted average of the weights, federated averaging (McMahan,
+// Moore, Ramage, Hampson & Agüera y Arcas 2017, "Communication-Efficient
+// Learning of Deep Networks from Decentralized Data", AISTATS, Algorithm 1:
+// w = sum_k n_k / n w_k), and the average goes through the same promotion
+// gate as a local retraining before it is deployed (gate_fleet_average).
+//
+// Everything is bytes in, bytes out, so a host carries them over its own
+// channel (the tests carry them over MPI; this header needs no MPI):
+//   device:       bytes = fleet_contribution_bytes(retrained_file, rows_trained_on);
+//   coordinator:  auto avg = average_fleet(incumbent_file, received_bytes);
+//                 auto verdict = gate_fleet_average(incumbent_file, avg.model, holdout_table);
+//                 if (verdict.decision.promoted) save_model_file(path, avg.model);
+//
+// A contribution is refused, with its reason, when its bytes are damaged,
+// when its architecture or preparation plan differs from the incumbent's
+// (compared by FNV-1a 64 fingerprints of their serialized bytes, then by
+// the bytes themselves), when it claims no samples, or when a weight is not
+// finite. Refusals are reported, never averaged.
+//
+// Contribution layout (little-endian): "TNFC", version u16 (1), reserved u16,
+// samples u64, architecture fingerprint u64, plan fingerprint u64, model
+// file length u64, the model file's bytes (deploy/model_file.hpp), CRC-32
+// of everything before it (u32).
+#pragma once
+
+#include <cmath>
+#include <cstddef>
+#include <cstdint>
+#include <string>
+#include <utility>
+#include <vector>
+
+#include "tenon/deploy/checksum.hpp"
+#include "tenon/deploy/model_file.hpp"
+#include "tenon/deploy/retraining.hpp"
+#include "tenon/layers/bytes.hpp"
+
+TENON_NAMESPACE_BEGIN
+
+inline constexpr std::uint16_t fleet_contribution_version = 1;
+
+/// FNV-1a 64 of a model's serialized architecture.
+template <class T>
+std::uint64_t architecture_fingerprint(const model_file<T>& m) {
+    const std::vector<std::uint8_t> bytes = to_bytes(m.architecture);
+    fnv1a_64 h;
+    h.add(bytes.data(), bytes.size());
+    return h.value();
+}
+
+/// FNV-1a 64 of a model's serialized measured plan (0 when it has none).
+template <class T>
+std::uint64_t plan_fingerprint(const model_file<T>& m) {
+    if (!m.plan) return 0;
+    const std::vector<std::uint8_t> bytes = m.plan->to_bytes();
+    fnv1a_64 h;
+    h.add(bytes.data(), bytes.size());
+    return h.value();
+}
+
+/// What a device sends: its retrained model file and the number of samples
+/// it trained on (the weight of its weights in the average).
+template <class T>
+std::vector<std::uint8_t> fleet_contribution_bytes(const model_file<T>& retrained, std::uint64_t samples) {
+    const std::vector<std::uint8_t> model = model_file_to_bytes(retrained);
+    std::vector<std::uint8_t> out = {'T', 'N', 'F', 'C'};
+    detail::put_u16(out, fleet_contribution_version);
+    detail::put_u16(out, 0);
+    detail::put_u64(out, samples);
+    detail::put_u64(out, architecture_fingerprint(retrained));
+    detail::put_u64(out, plan_fingerprint(retrained));
+    detail::put_u64(out, model.size());
+    out.insert(out.end(), model.begin(), model.end());
+    detail::put_u32(out, crc32(out.data(), out.size()));
+    return out;
+}
+
+/// A contribution's header and model, as read.
+template <class T>
+struct fleet_contribution {
+    std::uint64_t samples = 0;
+    std::uint64_t architecture_fingerprint = 0;
+    std::uint64_t plan_fingerprint = 0;
+    model_file<T> model;
+};
+
+/// Reads a contribution; raises distributed.fleet.bad_bytes when the
+/// envelope is damaged and the model file's own deploy.model.* codes when
+/// the file inside is.
+template <class T>
+fleet_contribution<T> read_fleet_contribution(const std::vector<std::uint8_t>& bytes, const model_limits& limits = {}) {
+    constexpr std::size_t header = 4 + 2 + 2 + 8 + 8 + 8 + 8, trailer = 4;
+    const auto fail = [&](const std::string& what) { raise(codes::distributed_fleet_bytes, "fleet contribution (" + std::to_string(bytes.size()) + " bytes): " + what); };
+    if (bytes.size() < header + trailer) fail("shorter than its " + std::to_string(header + trailer) + "-byte envelope");
+    if (bytes[0] != 'T' || bytes[1] != 'N' || bytes[2] != 'F' || bytes[3] != 'C') fail("does not start with the magic 'TNFC'");
+    const std::uint32_t stored = detail::get_u32(bytes.data() + bytes.size() - trailer);
+    if (crc32(bytes.data(), bytes.size() - trailer) != stored) fail("the CRC-32 does not match (damaged in transit)");
+    const std::uint16_t version = detail::get_u16(bytes.data() + 4);
+    if (version != fleet_contribution_version)
+        fail("version " + std::to_string(version) + " is not supported (this build reads " + std::to_string(fleet_contribution_version) + ")");
+    fleet_contribution<T> c;
+    c.samples = detail::get_u64(bytes.data() + 8);
+    c.architecture_fingerprint = detail::get_u64(bytes.data() + 16);
+    c.plan_fingerprint = detail::get_u64(bytes.data() + 24);
+    const std::uint64_t length = detail::get_u64(bytes.data() + 32);
+    if (length != bytes.size() - header - trailer)
+        fail("names a model of " + std::to_string(length) + " bytes, " + std::to_string(bytes.size() - header - trailer) + " follow");
+    c.model = model_file_from_bytes<T>(bytes.data() + header, static_cast<std::size_t>(length), limits, "fleet contribution");
+    return c;
+}
+
+/// A contribution left out of the average, and why.
+struct fleet_refusal {
+    std::size_t index = 0;  // position in the list given to average_fleet
+    std::string reason;
+};
+
+template <class T>
+struct fleet_average_result {
+    /// The incumbent's file with the averaged weights (parameters and state
+    /// buffers), its plan, references and replay sample; no resume state.
+    model_file<T> model;
+    std::uint64_t samples = 0;          // over the accepted contributions
+    std::vector<std::size_t> accepted;  // positions in the given list
+    std::vector<fleet_refusal> refused;
+};
+
+/// The sample-weighted average of the accepted contributions' weights
+/// (sums in double, in list order). Raises distributed.fleet.no_contribution
+/// when none is accepted.
+template <class T>
+fleet_average_result<T> average_fleet(const model_file<T>& incumbent, const std::vector<std::vector<std::uint8_t>>& contributions,
+                                      const model_limits& limits = {}) {
+    const std::uint64_t arch = architecture_fingerprint(incumbent), plan = plan_fingerprint(incumbent);
+    const std::vector<std::uint8_t> arch_bytes = to_bytes(incumbent.architecture);
+    const std::vector<std::uint8_t> plan_bytes = incumbent.plan ? incumbent.plan->to_bytes() : std::vector<std::uint8_t>{};
+    fleet_average_result<T> r;
+    std::vector<std::vector<double>> sums(incumbent.weights.size());
+    for (std::size_t w = 0; w < sums.size(); ++w) sums[w].assign(incumbent.weights[w].values.size(), 0.0);
+    std::vector<std::pair<std::uint64_t, model_file<T>>> kept;
+    for (std::size_t k = 0; k < contributions.size(); ++k) {
+        const auto refuse = [&](std::string why) { r.refused.push_back({k, std::move(why)}); };
+        fleet_contribution<T> c;
+        try {
+            c = read_fleet_contribution<T>(contributions[k], limits);
+        } catch (const error& e) {
+            refuse(e.what());
+            continue;
+        }
+        if (c.samples == 0) {
+            refuse("it claims no samples");
+            continue;
+        }
+        if (c.architecture_fingerprint != arch || architecture_fingerprint(c.model) != arch || to_bytes(c.model.architecture) != arch_bytes) {
+            refuse("its architecture differs from the incumbent's (fingerprint " + std::to_string(architecture_fingerprint(c.model)) + ", expected " +
+                   std::to_string(arch) + ")");
+            continue;
+        }
+        const std::vector<std::uint8_t> its_plan = c.model.plan ? c.model.plan->to_bytes() : std::vector<std::uint8_t>{};
+        if (c.plan_fingerprint != plan || plan_fingerprint(c.model) != plan || its_plan != plan_bytes) {
+            refuse("its preparation plan differs from the incumbent's (fingerprint " + std::to_string(plan_fingerprint(c.model)) + ", expected " +
+                   std::to_string(plan) + ")");
+            continue;
+        }
+        bool fits = c.model.weights.size() == incumbent.weights.size(), finite = true;
+        for (std::size_t w = 0; fits && w < incumbent.weights.size(); ++w) {
+            const auto& mine = c.model.weights[w];
+            fits = mine.name == incumbent.weights[w].name && shape_of(mine.values) == shape_of(incumbent.weights[w].values);
+            for (std::size_t i = 0; fits && finite && i < mine.values.size(); ++i) finite = std::isfinite(mine.values.data()[i]);
+        }
+        if (!fits) {
+            refuse("its weights do not fit the architecture");
+            continue;
+        }
+        if (!finite) {
+            refuse("a weight is not finite");
+            continue;
+        }
+        r.accepted.push_back(k);
+        r.samples += c.samples;
+        kept.emplace_back(c.samples, std::move(c.model));
+    }
+    if (kept.empty())
+        raise(codes::distributed_fleet_empty, "average_fleet: none of the " + std::to_string(contributions.size()) + " contributions was accepted" +
+                                                  (r.refused.empty() ? std::string() : " (first refusal: " + r.refused.front().reason + ")"));
+    const double total = static_cast<double>(r.samples);
+    for (const auto& [samples, m] : kept) {
+        const double share = static_cast<double>(samples) / total;
+        for (std::size_t w = 0; w < sums.size(); ++w) {
+            const T* v = m.weights[w].values.data();
+            for (std::size_t i = 0; i < sums[w].size(); ++i) sums[w][i] += share * static_cast<double>(v[i]);
+        }
+    }
+    r.model = incumbent;
+    r.model.resume.reset();
+    for (std::size_t w = 0; w < sums.size(); ++w) {
+        T* v = r.model.weights[w].values.data();
+        for (std::size_t i = 0; i < sums[w].size(); ++i) v[i] = static_cast<T>(sums[w][i]);
+    }
+    if (r.model.metadata) {
+        auto& meta = *r.model.metadata;
+        const auto set_metric = [&](const std::string& key, double v) {
+            for (auto& kv : meta.metrics)
+                if (kv.first == key) {
+                    kv.second = v;
+                    return;
+                }
+            meta.metrics.emplace_back(key, v);
+        };
+        set_metric("fleet_contributions", static_cast<double>(kept.size()));
+        set_metric("fleet_samples", total);
+    }
+    return r;
+}
+
+/// The promotion gate's verdict on a fleet average against the incumbent.
+struct fleet_gate_report {
+    gate_decision decision;
+    std::string metric;
+    double incumbent_score = 0.0;
+    double candidate_score = 0.0;
+    std::size_t holdout_rows = 0;
+};
+
+/// Scores incumbent and averaged model on `holdout` (raw rows with the
+/// plan's columns and target; rows with a missing target are left out) with
+/// the retraining gate's metric and rule (decide_promotion).
+template <class T>
+fleet_gate_report gate_fleet_average(const model_file<T>& incumbent, const model_file<T>& averaged, const table& holdout,
+                                     gate_metric metric = gate_metric::automatic, double margin = 0.0) {
+    if (!incumbent.plan || !incumbent.plan->has_target())
+        raise(codes::deploy_missing_section, "gate_fleet_average: the incumbent has no preparation plan with a target");
+    const measured_plan& plan = *incumbent.plan;
+    const bool classify = plan.target_type() == target_kind::classification;
+    if (metric == gate_metric::automatic) metric = classify ? gate_metric::accuracy : gate_metric::rmse;
+    if (classify == (metric == gate_metric::rmse))
+        raise(codes::deploy_retrain_option, std::string("gate_fleet_average: the metric ") + gate_metric_name(metric) + " does not fit a " +
+                                                (classify ? "classification" : "regression") + " target");
+    const prepared_rows<T> rows = plan.template apply<T>(holdout, all_rows(holdout.row_count()));
+    if (rows.rows.empty()) raise(codes::deploy_retrain_too_few_rows, "gate_fleet_average: the holdout has no row with a target");
+    network<T> a = rebuild_network(incumbent), b = rebuild_network(averaged);
+    fleet_gate_report g;
+    g.metric = gate_metric_name(metric);
+    g.holdout_rows = rows.rows.size();
+    g.incumbent_score = detail::gate_score(a, plan, rows, metric);
+    g.candidate_score = detail::gate_score(b, plan, rows, metric);
+    g.decision = decide_promotion(metric, g.incumbent_score, g.candidate_score, margin);
+    return g;
+}
+
+TENON_NAMESPACE_END

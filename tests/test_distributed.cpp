@@ -1,0 +1,250 @@
+// Tests of distributed/: data-parallel training over MPI. Run by ctest under
+// mpirun with 2 and 4 ranks (tests/CMakeLists.txt); every rank runs every
+// case, in the same order, since the cases make collective calls.
+#define DOCTEST_CONFIG_IMPLEMENT
+#include <doctest/doctest.h>
+
+#include <algorithm>
+#include <atomic>
+#include <cmath>
+#include <cstdio>
+#include <string>
+#include <vector>
+
+#include <tenon/distributed/data_parallel.hpp>
+#include <tenon/update/rules.hpp>
+#include <tenon/update/schedules.hpp>
+
+namespace {
+
+tenon::communicator& world() {
+    static tenon::communicator c;
+    return c;
+}
+
+// y = sin(x0) + 0.5 x1^2 - x2 on [-2, 2]^3, an invented smooth target
+// (a press's force from three settings).
+template <class T>
+tenon::supervised_rows<T> press_rows(std::size_t n, std::uint64_t seed) {
+    tenon::random_engine rng(seed);
+    tenon::supervised_rows<T> d;
+    d.features = tenon::matrix<T>({n, 3});
+    d.targets = tenon::matrix<T>({n, 1});
+    for (std::size_t i = 0; i < n; ++i) {
+        const double a = rng.uniform(-2.0, 2.0), b = rng.uniform(-2.0, 2.0), c = rng.uniform(-2.0, 2.0);
+        d.features(i, 0) = static_cast<T>(a);
+        d.features(i, 1) = static_cast<T>(b);
+        d.features(i, 2) = static_cast<T>(c);
+        d.targets(i, 0) = static_cast<T>(std::sin(a) + 0.5 * b * b - c);
+    }
+    return d;
+}
+
+// Three classes of a packaging line's seal quality from two readings.
+template <class T>
+tenon::supervised_rows<T> seal_rows(std::size_t n, std::uint64_t seed) {
+    tenon::random_engine rng(seed);
+    tenon::supervised_rows<T> d;
+    d.features = tenon::matrix<T>({n, 2});
+    d.class_count = 3;
+    for (std::size_t i = 0; i < n; ++i) {
+        const double a = rng.uniform(-1.0, 1.0), b = rng.uniform(-1.0, 1.0);
+        d.features(i, 0) = static_cast<T>(a);
+        d.features(i, 1) = static_cast<T>(b);
+        d.labels.push_back(a + b > 0.4 ? 2 : a - b > 0.0 ? 1 : 0);
+    }
+    return d;
+}
+
+template <class T>
+double max_difference(tenon::network<T>& a, tenon::network<T>& b) {
+    double m = 0.0;
+    for (std::size_t k = 0; k < a.parameters().size(); ++k) {
+        const auto& x = a.parameters()[k]->value();
+        const auto& y = b.parameters()[k]->value();
+        for (std::size_t i = 0; i < x.size(); ++i) m = std::max(m, std::abs(static_cast<double>(x.data()[i]) - static_cast<double>(y.data()[i])));
+    }
+    return m;
+}
+
+template <class T>
+double largest_weight(tenon::network<T>& a) {
+    double m = 0.0;
+    for (const auto* p : a.parameters())
+        for (std::size_t i = 0; i < p->size(); ++i) m = std::max(m, std::abs(static_cast<double>(p->value().data()[i])));
+    return m;
+}
+
+struct run_result {
+    tenon::training_outcome outcome;
+    std::vector<std::uint64_t> checksums_agree;  // 1 per epoch where every rank held the same bits
+};
+
+// Trains a fresh 3-16-1 (or 2-16-3) network on `train` with Adam; with the
+// team when `team` is given, else alone.
+template <class T>
+run_result train_once(tenon::network<T>& net, const tenon::supervised_rows<T>& train, const tenon::supervised_rows<T>& validation,
+                      std::size_t batch, std::size_t epochs, tenon::training_team* team, tenon::training_options<T> o = {}) {
+    tenon::adam<T> rule;
+    tenon::constant_rate schedule(0.01);
+    o.epochs = epochs;
+    o.batch_size = batch;
+    o.seed = 42;
+    o.patience = 0;
+    o.loss = train.is_classification() ? tenon::loss_kind::cross_entropy : tenon::loss_kind::l2;
+    o.team = team;
+    run_result r;
+    auto observer = o.on_epoch;
+    o.on_epoch = [&](const tenon::epoch_summary& s) {
+        if (team) r.checksums_agree.push_back(tenon::weights_agree(net, world()) ? 1 : 0);
+        return observer ? observer(s) : true;
+    };
+    tenon::trainer<T> tr(net, rule, schedule, o);
+    r.outcome = tr.run(train, validation);
+    return r;
+}
+
+}  // namespace
+
+TEST_CASE_TEMPLATE("p ranks with batch b train the weights of one process with batch b x p", T, float, double) {
+    const std::size_t p = world().size();
+    // 4 x 8 x 6 + 3 rows: the last global batch has 3 rows, so with 4 ranks
+    // one rank has no row in it and the others one each.
+    const auto train = press_rows<T>(4 * 8 * 6 + 3, 1);
+    const auto validation = press_rows<T>(41, 2);
+    auto team_net = tenon::make_mlp<T>({3, 16, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 7);
+    auto alone_net = tenon::make_mlp<T>({3, 16, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 7);
+    tenon::mpi_team team(world());
+    const run_result shared = train_once(team_net, train, validation, 8, 6, &team);
+    const run_result alone = train_once(alone_net, train, validation, 8 * p, 6, nullptr);
+
+    REQUIRE(shared.checksums_agree.size() == 6);
+    for (auto agree : shared.checksums_agree) CHECK(agree == 1);  // identical bits on every rank after every epoch
+    CHECK(shared.outcome.steps == alone.outcome.steps);
+    // Same math, other summation order: within a few float roundings per
+    // step, relative to the weights' size.
+    const double tolerance = (sizeof(T) == 4 ? 2e-4 : 1e-10) * std::max(1.0, largest_weight(alone_net));
+    const double difference = max_difference(team_net, alone_net);
+    CHECK(difference <= tolerance);
+    if (world().rank() == 0)
+        std::printf("equivalence (%s, %zu ranks, batch 8 x %zu vs one process with batch %zu): max weight difference %.3g\n",
+                    sizeof(T) == 4 ? "float" : "double", p, p, 8 * p, difference);
+    for (std::size_t e = 0; e < alone.outcome.history.size(); ++e) {
+        CHECK(shared.outcome.history[e].train_loss == doctest::Approx(alone.outcome.history[e].train_loss).epsilon(1e-4));
+        CHECK(shared.outcome.history[e].validation_loss == doctest::Approx(alone.outcome.history[e].validation_loss).epsilon(1e-4));
+        CHECK(shared.outcome.history[e].validation_metric == doctest::Approx(alone.outcome.history[e].validation_metric).epsilon(1e-4));
+    }
+}
+
+TEST_CASE("class-weighted cross-entropy: the ranks' gradients are weighted by their rows' class weights") {
+    using T = double;
+    const std::size_t p = world().size();
+    const auto train = seal_rows<T>(3 * 5 * 4 + 5, 3);
+    const auto validation = seal_rows<T>(23, 4);
+    auto team_net = tenon::make_mlp<T>({2, 12, 3}, tenon::activation::relu, {tenon::init_scheme::he_uniform, 0.0}, 9);
+    auto alone_net = tenon::make_mlp<T>({2, 12, 3}, tenon::activation::relu, {tenon::init_scheme::he_uniform, 0.0}, 9);
+    tenon::training_options<T> o;
+    o.loss_settings.class_weights = {1.0, 3.0, 0.5};
+    tenon::mpi_team team(world());
+    const run_result shared = train_once(team_net, train, validation, 5, 4, &team, o);
+    const run_result alone = train_once(alone_net, train, validation, 5 * p, 4, nullptr, o);
+    for (auto agree : shared.checksums_agree) CHECK(agree == 1);
+    CHECK(max_difference(team_net, alone_net) <= 1e-10 * std::max(1.0, largest_weight(alone_net)));
+    CHECK(shared.outcome.history.back().validation_loss == doctest::Approx(alone.outcome.history.back().validation_loss).epsilon(1e-9));
+    CHECK(shared.outcome.history.back().validation_metric == doctest::Approx(alone.outcome.history.back().validation_metric));
+}
+
+TEST_CASE("a cancellation on one rank stops every rank after the same step") {
+    using T = float;
+    const auto train = press_rows<T>(400, 5);
+    auto net = tenon::make_mlp<T>({3, 8, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 3);
+    std::atomic<bool> cancel{false};
+    tenon::training_options<T> o;
+    o.cancel = &cancel;
+    const bool last = world().rank() + 1 == world().size();
+    o.on_batch = [&](const tenon::batch_progress& b) {
+        if (last && b.epoch == 2 && b.batch == 3) cancel = true;  // only the last rank's host cancels
+    };
+    tenon::mpi_team team(world());
+    const run_result r = train_once(net, train, {}, 10, 5, &team, o);
+    CHECK(r.outcome.reason == tenon::stop_reason::cancelled);
+    const std::size_t per_epoch = (400 + 10 * world().size() - 1) / (10 * world().size());
+    // The request is read before the next step's sum: every rank stops after that step.
+    CHECK(r.outcome.steps == per_epoch + 4);
+    CHECK(tenon::weights_agree(net, world()));
+}
+
+TEST_CASE("the wall-clock budget is spent when any rank's clock says so") {
+    using T = float;
+    const auto train = press_rows<T>(300, 6);
+    const auto validation = press_rows<T>(30, 7);
+    auto net = tenon::make_mlp<T>({3, 8, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 4);
+    double now = 0.0;
+    tenon::training_options<T> o;
+    o.time_budget_seconds = 10.0;
+    // Rank 0's clock runs fast (one second per reading); the others' stand still.
+    o.clock = [&] { return world().rank() == 0 ? (now += 1.0) : 0.0; };
+    tenon::mpi_team team(world());
+    const run_result r = train_once(net, train, validation, 4, 50, &team, o);
+    CHECK(r.outcome.reason == tenon::stop_reason::time_budget);
+    std::uint64_t steps[1] = {r.outcome.steps}, max_steps[1] = {r.outcome.steps};
+    world().maximum(max_steps, 1);
+    CHECK(steps[0] == max_steps[0]);
+    CHECK(tenon::weights_agree(net, world()));
+}
+
+TEST_CASE("a divergence is seen by every rank, and the guard retries together") {
+    using T = float;
+    const auto train = press_rows<T>(200, 8);
+    auto net = tenon::make_mlp<T>({3, 8, 1}, tenon::activation::relu, {tenon::init_scheme::he_uniform, 0.0}, 5);
+    tenon::gradient_descent<T> rule;
+    tenon::constant_rate schedule(1e30);  // overflows in the first steps
+    tenon::training_options<T> o;
+    o.epochs = 3;
+    o.batch_size = 10;
+    o.loss = tenon::loss_kind::l2;
+    o.divergence_retries = 2;
+    tenon::mpi_team team(world());
+    o.team = &team;
+    tenon::trainer<T> tr(net, rule, schedule, o);
+    const auto out = tr.run(train, {});
+    CHECK(out.reason == tenon::stop_reason::diverged);
+    REQUIRE(out.history.size() == 1);
+    CHECK(out.history[0].retries == 2);
+    CHECK(tenon::weights_agree(net, world()));
+}
+
+TEST_CASE("ranks that train on different rows refuse together: train.team.mismatch") {
+    using T = float;
+    const auto train = press_rows<T>(world().rank() == 0 ? 101 : 100, 9);
+    auto net = tenon::make_mlp<T>({3, 4, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 6);
+    tenon::mpi_team team(world());
+    if (world().size() > 1) {
+        CHECK_THROWS_WITH_AS(train_once(net, train, {}, 10, 2, &team), doctest::Contains("train.team.mismatch"), tenon::error);
+    }
+}
+
+TEST_CASE("a failing MPI call raises distributed.mpi.failed instead of aborting the job") {
+    world();  // MPI_COMM_WORLD returns errors to the caller from here on
+    CHECK_THROWS_WITH_AS(tenon::communicator(MPI_COMM_NULL), doctest::Contains("distributed.mpi.failed"), tenon::error);
+    CHECK_THROWS_WITH_AS(tenon::deal_rows({1, 2, 3}, 2, 2), doctest::Contains("core.argument.invalid"), tenon::error);
+    CHECK(tenon::deal_rows({10, 11, 12, 13, 14}, 1, 2) == std::vector<std::size_t>{11, 13});
+}
+
+TEST_CASE("the ring-allreduce model: 2 (p - 1) / p of the bytes per rank, 2 (p - 1) latencies") {
+    // 1 MB at 1 GB/s without latency: 2 x 1/2 x 1 ms on 2 ranks, 2 x 63/64 ms on 64.
+    CHECK(tenon::ring_allreduce_seconds(2, 1e6, 0.0, 1e9) == doctest::Approx(1e-3));
+    CHECK(tenon::ring_allreduce_seconds(64, 1e6, 0.0, 1e9) == doctest::Approx(2e-3 * 63.0 / 64.0));
+    CHECK(tenon::ring_allreduce_seconds(8, 0.0, 1e-6, 1e9) == doctest::Approx(14e-6));
+    CHECK(tenon::ring_allreduce_seconds(1, 1e6, 1e-6, 1e9) == 0.0);
+}
+
+int main(int argc, char** argv) {
+    tenon::mpi_session session(&argc, &argv);
+    doctest::Context context(argc, argv);
+    const int failed = context.run();
+    // Any rank's failure fails the job on every rank.
+    double failures[1] = {failed != 0 ? 1.0 : 0.0};
+    world().sum(failures, 1);
+    return failures[0] > 0.0 ? 1 : 0;
+}
