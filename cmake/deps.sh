@@ -9,6 +9,7 @@ packages="ninja-build g++ cmake
   xtensor-dev xtl-dev
   doctest-dev libbenchmark-dev
   libeigen3-dev zlib1g-dev libopenblas-dev
+  libopenmpi-dev openmpi-bin
   dataset-fashion-mnist"
 
 missing=""

@@ -54,6 +54,10 @@ struct cli_environment {
     /// Seconds from an arbitrary origin, for the elapsed and remaining times
     /// shown while training; the steady clock when empty.
     std::function<double()> clock;
+    /// Set by main.cpp when the tool runs under mpirun (built with
+    /// tenon::mpi): `tenon train` trains data-parallel as a member of this
+    /// team, and only member 0 prints and writes the model, metrics and report.
+    tenon::training_team* team = nullptr;
 };
 
 /// A failure of the tool itself (command line, data checks, output files);
@@ -422,7 +426,8 @@ Model and training
                          update rule (default adam).
   --learning-rate X      default 0.001.
   --epochs N             most epochs to run (default 200).
-  --batch N              mini-batch rows (default 32).
+  --batch N              mini-batch rows (default 32); under mpirun -np P the
+                         rows of each process, so P x N rows per step.
   --patience N           stop after N epochs without a lower validation loss
                          and keep the best epoch's weights (default 15; 0 = run
                          all epochs).
@@ -1119,6 +1124,7 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
     progress_printer progress(out, env.terminal, q.quiet, q.epochs, env.clock);
     progress.start(0, 0, s.classify, metric_scale);
     tenon::model_settings settings = make_settings(q);
+    settings.team = env.team;
     settings.on_epoch = [&](const tenon::epoch_summary& e) {
         progress.on_epoch(e);
         return true;
@@ -1246,6 +1252,7 @@ inline int train_folds(const tenon::table& t, const train_request& q, training_s
     std::vector<std::size_t> epochs_run;
     double seconds = 0;
     tenon::model_settings settings = make_settings(q);
+    settings.team = env.team;
     settings.on_epoch = [&](const tenon::epoch_summary& e) {
         if (e.epoch == 1) {
             if (!epochs_run.empty()) progress.finish();
@@ -1305,7 +1312,13 @@ inline int train_folds(const tenon::table& t, const train_request& q, training_s
 
 inline int run_train(const std::vector<std::string>& args, std::ostream& out, std::ostream& err, const cli_environment& env) {
     (void)err;
-    const train_request q = parse_train_request(args);
+    train_request q = parse_train_request(args);
+    if (env.team && env.team->member_index() != 0) {  // data-parallel: member 0 alone reports and writes
+        q.quiet = true;
+        q.metrics_path.clear();
+        q.report_path.clear();
+        q.model_path.clear();
+    }
     if (q.help) {
         out << train_help();
         return exit_success;
