@@ -52,7 +52,17 @@ shape2 shape_of(const matrix<T>& m) noexcept {
 template <class T>
 void ensure_shape(matrix<T>& m, shape2 s) {
     if (m.shape()[0] != s.rows || m.shape()[1] != s.cols) {
-        m.resize({s.rows, s.cols});
+        // xtensor's resize() sets the new shape before it allocates; if the
+        // allocation fails, the matrix would claim the new shape over its old
+        // buffer, and the next call would see "same shape" and write past
+        // it. Leave it empty instead (an empty matrix allocates nothing), so
+        // the next call allocates again.
+        try {
+            m.resize({s.rows, s.cols});
+        } catch (...) {
+            m = matrix<T>();
+            throw;
+        }
     }
 }
 

@@ -339,6 +339,19 @@ public:
         allocate();
     }
 
+    predictor(const predictor&) = default;
+    predictor(predictor&&) noexcept = default;
+    /// Copy and swap: if the copy's buffers cannot be allocated, this
+    /// predictor keeps its model and buffers.
+    predictor& operator=(const predictor& other) {
+        if (this != &other) {
+            predictor copy(other);
+            *this = std::move(copy);
+        }
+        return *this;
+    }
+    predictor& operator=(predictor&&) noexcept = default;
+
     /// Runs one pass over `capacity` rows of zeros. The matrix kernel
     /// (core/gemm.hpp) keeps per-thread scratch that grows on first use, so
     /// a thread that did not construct this predictor calls warm_up() once
@@ -553,13 +566,20 @@ private:
         return m;
     }
 
+    // Sizes the buffers for model_. They are built aside and swapped in, so
+    // an allocation failure leaves the previous buffers in place (the
+    // callers then keep or restore the model they fit).
     void allocate() {
         if (capacity_ == 0) raise(codes::invalid_argument, "predictor: the capacity must be at least one row");
-        buffers_.assign(model_->buffer_widths.size(), {});
-        for (std::size_t b = 0; b < buffers_.size(); ++b) buffers_[b].assign(capacity_ * model_->buffer_widths[b], T(0));
-        outputs_.assign(capacity_ * model_->output_count, T(0));
-        flags_.assign(capacity_ * std::max<std::size_t>(1, input_count()), range_flag::inside);
-        text_.assign(input_count(), {});
+        std::vector<std::vector<T>> buffers(model_->buffer_widths.size());
+        for (std::size_t b = 0; b < buffers.size(); ++b) buffers[b].assign(capacity_ * model_->buffer_widths[b], T(0));
+        std::vector<T> outputs(capacity_ * model_->output_count, T(0));
+        std::vector<range_flag> flags(capacity_ * std::max<std::size_t>(1, input_count()), range_flag::inside);
+        std::vector<std::array<char, 32>> text(input_count());
+        buffers_.swap(buffers);
+        outputs_.swap(outputs);
+        flags_.swap(flags);
+        text_.swap(text);
         warm_up();
     }
 
@@ -796,8 +816,16 @@ public:
         std::shared_ptr<const detail::compiled_model<T>> m = std::atomic_load(&current_);
         if (!m) raise(codes::deploy_holder_empty, "predictor_holder: no predictor has been stored yet");
         if (m != local.model_) {
+            // If the new buffers cannot be allocated, `local` keeps the old
+            // model with its buffers and the exception propagates.
+            std::shared_ptr<const detail::compiled_model<T>> previous = std::move(local.model_);
             local.model_ = std::move(m);
-            local.allocate();
+            try {
+                local.allocate();
+            } catch (...) {
+                local.model_ = std::move(previous);
+                throw;
+            }
         }
         local.generation_ = g;
         return true;

@@ -224,15 +224,19 @@ protected:
 private:
     void prepare(const std::vector<parameter<T>*>& params) {
         if (!laid_out_) {
-            shapes_.clear();
-            for (const auto* p : params) shapes_.push_back(p->shape());
-            slots_.resize(params.size() * slot_count_);
+            // Laid out aside and committed at once: an allocation failure
+            // here leaves the rule as it was (not laid out), never half of it.
+            std::vector<shape2> shapes;
+            for (const auto* p : params) shapes.push_back(p->shape());
+            std::vector<matrix<T>> slots(params.size() * slot_count_);
             for (std::size_t i = 0; i < params.size(); ++i)
                 for (std::size_t s = 0; s < slot_count_; ++s) {
-                    matrix<T>& m = slots_[i * slot_count_ + s];
-                    ensure_shape(m, shapes_[i]);
+                    matrix<T>& m = slots[i * slot_count_ + s];
+                    ensure_shape(m, shapes[i]);
                     m.fill(T(0));
                 }
+            shapes_.swap(shapes);
+            slots_.swap(slots);
             laid_out_ = true;
         }
         if (params.size() != shapes_.size()) {
