@@ -356,7 +356,7 @@ TEST_CASE("unknown options, bad numbers and missing values are named") {
     }
     const auto r = run({"trian"});
     CHECK(r.status == 2);
-    CHECK(r.err == "tenon: error: [cli.command.unknown] unknown command 'trian' (commands: train, infer, inspect; see tenon --help)\n");
+    CHECK(r.err == "tenon: error: [cli.command.unknown] unknown command 'trian' (commands: train, infer, inspect, retrain, drift; see tenon --help)\n");
 }
 
 TEST_CASE("an output file that cannot be written fails before training, with status 3") {

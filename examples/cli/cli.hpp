@@ -1,7 +1,9 @@
 // The `tenon` command-line tool: trains a perceptron on a CSV file and
 // reports how well it does on rows it never saw (`tenon train`), saves the
-// model (--model), predicts with it on new rows (`tenon infer`) and
-// describes it (`tenon inspect`).
+// model (--model), predicts with it on new rows (`tenon infer`), describes
+// it (`tenon inspect`), retrains it on new rows behind a promotion gate
+// (`tenon retrain`) and compares recent rows with its training rows
+// (`tenon drift`).
 //
 // Built on tenon's public headers only, the way a host application would use
 // them. The logic lives here, in a header, so the tests can run the tool in
@@ -13,10 +15,12 @@
 //
 // Exit status: 0 success; 2 bad command line or bad input data (the message
 // on stderr names the option, file, line, column or value); 3 an output file
-// could not be written; 1 anything unexpected. On any failure no --metrics,
-// --report, --model or --out file is created or changed: each is written to a
-// temporary file beside the destination and renamed into place only when
-// everything worked (the model by tenon::save_model_file, which also syncs).
+// could not be written; 1 anything unexpected; 4 `tenon retrain` kept the
+// incumbent (nothing written); 5 `tenon drift` flagged a column. On any
+// failure no --metrics, --report, --model, --out, --rollback or --json file is
+// created or changed: each is written to a temporary file beside the
+// destination and renamed into place only when everything worked (models by
+// tenon::write_file_atomically, which also syncs).
 #pragma once
 
 #include <algorithm>
@@ -46,6 +50,10 @@ inline constexpr int exit_success = 0;
 inline constexpr int exit_unexpected = 1;
 inline constexpr int exit_bad_input = 2;
 inline constexpr int exit_output_failed = 3;
+/// tenon retrain: the candidate was not promoted; nothing was written.
+inline constexpr int exit_kept_incumbent = 4;
+/// tenon drift: at least one input column drifted.
+inline constexpr int exit_drift_flagged = 5;
 
 /// What the tool knows about where it runs.
 struct cli_environment {
@@ -471,6 +479,9 @@ Commands
   train    train a perceptron on a CSV file and score it on held-out rows
   infer    predict with a saved model, one output row per CSV row
   inspect  describe a saved model: inputs, classes, layers, scores, provenance
+  retrain  continue training a saved model on new rows; replace it only if it
+           scores better on new rows it did not train on
+  drift    compare recent rows with the rows a saved model was trained on
 
 Run 'tenon COMMAND --help' for a command's options and their defaults.
 
@@ -478,9 +489,12 @@ A typical session
   tenon train --data history.csv --target verdict --model caps.tnm
   tenon inspect --model caps.tnm
   tenon infer --model caps.tnm --data today.csv --keep id --out verdicts.csv
+  tenon drift --model caps.tnm --data this_week.csv
+  tenon retrain --model caps.tnm --data this_week.csv --out caps.tnm --margin 0.01
 
 Exit status: 0 success, 2 bad command line or data, 3 output not written,
-1 unexpected failure.
+1 unexpected failure; retrain: 4 the incumbent was kept (nothing written);
+drift: 5 at least one column drifted.
 )";
 }
 
@@ -2021,6 +2035,451 @@ inline int run_inspect(const std::vector<std::string>& args, std::ostream& out, 
 }
 
 // ---------------------------------------------------------------------------
+// Options of `tenon retrain` and `tenon drift`
+
+struct retrain_request {
+    std::string model_path;
+    std::string data_path;
+    std::string out_path;
+    std::string rollback_path;  // empty: "<model>.previous" when --out replaces --model
+    std::string json_path;      // empty: none; "-": standard output
+    tenon::gate_metric metric = tenon::gate_metric::automatic;
+    double margin = 0.0;
+    double budget_seconds = 0.0;  // 0 = no limit
+    std::size_t epochs = 30;
+    std::uint64_t seed = 1;
+    double holdout_share = 0.2;
+    std::size_t min_holdout = 30;
+    tenon::holdout_selection holdout = tenon::holdout_selection::random;
+    bool quiet = false;
+    bool help = false;
+};
+
+/// Reads the arguments after `retrain`. Throws cli_failure on a bad command line.
+inline retrain_request parse_retrain_request(const std::vector<std::string>& args) {
+    retrain_request q;
+    const std::vector<std::string> with_value{"--model",  "--data",  "--out",           "--margin",      "--budget",  "--metric", "--epochs",
+                                              "--seed",   "--json",  "--holdout-share", "--min-holdout", "--holdout", "--rollback"};
+    for (const auto& o : detail::read_options("retrain", args, with_value, {"--quiet"}, q.help)) {
+        const std::string& v = o.value;
+        if (o.name == "--quiet") {
+            q.quiet = true;
+        } else if (o.name == "--margin") {
+            q.margin = detail::parse_real("--margin", v);
+            if (!(q.margin >= 0)) fail(cli_codes::option_value, "--margin '" + v + "': must be zero or more, in the gate metric's units");
+        } else if (o.name == "--budget") {
+            q.budget_seconds = detail::parse_real("--budget", v);
+            if (!(q.budget_seconds >= 0)) fail(cli_codes::option_value, "--budget '" + v + "': must be zero (no limit) or more seconds");
+        } else if (o.name == "--metric") {
+            const std::pair<const char*, tenon::gate_metric> names[] = {{"auto", tenon::gate_metric::automatic},
+                                                                        {"accuracy", tenon::gate_metric::accuracy},
+                                                                        {"log-loss", tenon::gate_metric::log_loss},
+                                                                        {"rmse", tenon::gate_metric::rmse}};
+            q.metric = detail::parse_choice("--metric", v, names);
+        } else if (o.name == "--epochs") {
+            q.epochs = detail::parse_count("--epochs", v, 1);
+        } else if (o.name == "--seed") {
+            q.seed = detail::parse_seed(v);
+        } else if (o.name == "--holdout-share") {
+            q.holdout_share = detail::parse_real("--holdout-share", v);
+            if (!(q.holdout_share > 0 && q.holdout_share < 1))
+                fail(cli_codes::option_value, "--holdout-share '" + v + "': must lie strictly between 0 and 1");
+        } else if (o.name == "--min-holdout") {
+            q.min_holdout = detail::parse_count("--min-holdout", v, 1);
+        } else if (o.name == "--holdout") {
+            const std::pair<const char*, tenon::holdout_selection> names[] = {{"random", tenon::holdout_selection::random},
+                                                                              {"latest", tenon::holdout_selection::latest}};
+            q.holdout = detail::parse_choice("--holdout", v, names);
+        } else {
+            if (v.empty()) fail(cli_codes::option_value, o.name + " needs a file name, got an empty one");
+            (o.name == "--model"      ? q.model_path
+             : o.name == "--data"     ? q.data_path
+             : o.name == "--out"      ? q.out_path
+             : o.name == "--rollback" ? q.rollback_path
+                                      : q.json_path) = v;
+        }
+    }
+    if (q.help) return q;
+    if (q.model_path.empty()) fail(cli_codes::option_missing, "tenon retrain needs --model MODEL.tnm");
+    if (q.data_path.empty()) fail(cli_codes::option_missing, "tenon retrain needs --data NEW.csv");
+    if (q.out_path.empty()) fail(cli_codes::option_missing, "tenon retrain needs --out NEW_MODEL.tnm (it may be the --model file)");
+    if (detail::same_file(q.out_path, q.data_path)) fail(cli_codes::option_conflict, "--out and --data name the same file '" + q.out_path + "'");
+    const bool in_place = detail::same_file(q.out_path, q.model_path);
+    if (!q.rollback_path.empty()) {
+        if (!in_place)
+            fail(cli_codes::option_conflict, "--rollback names where the replaced model is kept; it applies only when --out is the --model file");
+        if (detail::same_file(q.rollback_path, q.model_path))
+            fail(cli_codes::option_conflict, "--rollback and --model name the same file '" + q.rollback_path + "'");
+        if (detail::same_file(q.rollback_path, q.data_path))
+            fail(cli_codes::option_conflict, "--rollback and --data name the same file '" + q.rollback_path + "'");
+    }
+    if (!q.json_path.empty() && q.json_path != "-") {
+        const std::pair<const char*, const std::string*> others[] = {
+            {"--model", &q.model_path}, {"--data", &q.data_path}, {"--out", &q.out_path}, {"--rollback", &q.rollback_path}};
+        for (const auto& other : others)
+            if (!other.second->empty() && detail::same_file(q.json_path, *other.second))
+                fail(cli_codes::option_conflict, std::string("--json and ") + other.first + " name the same file '" + q.json_path + "'");
+        if (in_place && q.rollback_path.empty() && detail::same_file(q.json_path, tenon::default_rollback_path(q.model_path)))
+            fail(cli_codes::option_conflict, "--json names the rollback file '" + q.json_path + "'");
+    }
+    return q;
+}
+
+struct drift_request {
+    std::string model_path;
+    std::string data_path;
+    tenon::drift_options options;
+    bool json = false;
+    bool quiet = false;
+    bool help = false;
+};
+
+/// Reads the arguments after `drift`. Throws cli_failure on a bad command line.
+inline drift_request parse_drift_request(const std::vector<std::string>& args) {
+    drift_request q;
+    bool watch_given = false;
+    const std::vector<std::string> with_value{"--model", "--data", "--psi-threshold", "--psi-watch", "--ks-threshold", "--ks-significance"};
+    for (const auto& o : detail::read_options("drift", args, with_value, {"--json", "--quiet"}, q.help)) {
+        const std::string& v = o.value;
+        if (o.name == "--json") {
+            q.json = true;
+        } else if (o.name == "--quiet") {
+            q.quiet = true;
+        } else if (o.name == "--psi-threshold") {
+            q.options.psi_threshold = detail::parse_real("--psi-threshold", v);
+            if (!(q.options.psi_threshold > 0)) fail(cli_codes::option_value, "--psi-threshold '" + v + "': must be positive");
+        } else if (o.name == "--psi-watch") {
+            q.options.psi_watch = detail::parse_real("--psi-watch", v);
+            if (!(q.options.psi_watch >= 0)) fail(cli_codes::option_value, "--psi-watch '" + v + "': must be zero or more");
+            watch_given = true;
+        } else if (o.name == "--ks-threshold") {
+            q.options.ks_threshold = detail::parse_real("--ks-threshold", v);
+            if (!(q.options.ks_threshold >= 0 && q.options.ks_threshold <= 1))
+                fail(cli_codes::option_value, "--ks-threshold '" + v + "': must lie in [0, 1] (0: the critical value at --ks-significance)");
+        } else if (o.name == "--ks-significance") {
+            q.options.ks_significance = detail::parse_real("--ks-significance", v);
+            if (!(q.options.ks_significance > 0 && q.options.ks_significance < 1))
+                fail(cli_codes::option_value, "--ks-significance '" + v + "': must lie strictly between 0 and 1");
+        } else {
+            if (v.empty()) fail(cli_codes::option_value, o.name + " needs a file name, got an empty one");
+            (o.name == "--model" ? q.model_path : q.data_path) = v;
+        }
+    }
+    if (q.help) return q;
+    if (q.model_path.empty()) fail(cli_codes::option_missing, "tenon drift needs --model MODEL.tnm");
+    if (q.data_path.empty()) fail(cli_codes::option_missing, "tenon drift needs --data RECENT.csv");
+    if (q.json && q.quiet) fail(cli_codes::option_conflict, "--json prints the report and --quiet prints nothing: give one of them");
+    // The watch level follows a lower threshold unless it is given.
+    if (!watch_given) q.options.psi_watch = std::min(q.options.psi_watch, q.options.psi_threshold);
+    if (q.options.psi_watch > q.options.psi_threshold)
+        fail(cli_codes::option_conflict, "--psi-watch " + tenon::number_to_text(q.options.psi_watch) + " is above --psi-threshold " +
+                                             tenon::number_to_text(q.options.psi_threshold));
+    return q;
+}
+
+inline std::string retrain_help() {
+    return R"(tenon retrain: continue training a saved model on new rows; replace it only if it gets better
+
+Usage: tenon retrain --model MODEL.tnm --data NEW.csv --out NEW_MODEL.tnm [options]
+
+  --model MODEL.tnm      the incumbent, saved by tenon train --model (required).
+  --data NEW.csv         newly collected rows with a header (required): every
+                         column the model reads and its target, in any order.
+                         Rows the model's frozen preparation cannot encode (a
+                         missing target, a class the model has no output for,
+                         a missing cell without a fill, text in a numeric
+                         column) are left out and counted.
+  --out NEW_MODEL.tnm    where the candidate is written, only if it is
+                         promoted (required). It may be the --model file: the
+                         incumbent's exact bytes are then kept at the
+                         --rollback path first.
+  --margin X             how much better the candidate must score on the
+                         holdout, in the metric's units (default 0: any
+                         strict improvement). An equally good candidate is
+                         never promoted.
+  --budget SECONDS       wall-clock limit for the whole retraining (default 0:
+                         none); training stops when it is spent and the gate
+                         still decides.
+  --metric auto|accuracy|log-loss|rmse
+                         the gate's metric (default auto: accuracy for
+                         classification, RMSE in the target's units for
+                         regression).
+  --epochs N             most epochs of continued training (default 30); early
+                         stopping on 15% of the training rows, patience 5.
+                         Batch size, learning rate and update rule are the
+                         model's stored ones (else 32, 0.001, adam).
+  --seed N               seeds the holdout, the validation rows, the batch
+                         order and the replay sample (default 1).
+  --holdout-share X      share of the usable new rows held out for the gate,
+                         never trained on (default 0.2).
+  --min-holdout N        the holdout's minimum rows (default 30); the new data
+                         needs at least N + 1 usable rows.
+  --holdout random|latest
+                         the holdout rows: a seeded random choice, or the last
+                         rows of NEW.csv for rows in time order (default
+                         random).
+  --rollback PATH        with --out equal to --model: where the replaced model
+                         is kept (default MODEL.tnm.previous). Not allowed
+                         otherwise.
+  --json OUT.json        write the retraining report as JSON (decision, reason,
+                         gate metric, margin, both scores, improvement, row
+                         counts, epochs, stop reason, seconds, the file
+                         written); '-' prints it instead of the text summary.
+                         Written whatever the decision.
+  --quiet                print nothing but errors.
+
+The candidate starts from the model's weights and trains on the new rows
+(minus the holdout) mixed with the sample of training rows the model file
+keeps; incumbent and candidate are then scored on the holdout with the same
+metric. The candidate file keeps the preparation, gets the new weights, new
+reference ranges (for tenon drift) and the continued sample.
+
+Exit status
+  0 the candidate was promoted and written to --out; 4 the incumbent was kept
+  and nothing was written to --out or --rollback; 2 bad command line, model
+  file or data (one line on stderr names the problem); 3 an output file could
+  not be written; 1 an unexpected failure. On failure no --out, --rollback or
+  --json file is created or changed.
+)";
+}
+
+inline std::string drift_help() {
+    return R"(tenon drift: compare recent rows with the rows a saved model was trained on
+
+Usage: tenon drift --model MODEL.tnm --data RECENT.csv [options]
+
+  --model MODEL.tnm      a model saved by tenon train --model or tenon retrain
+                         (required); it keeps summaries of its training rows.
+  --data RECENT.csv      recent rows with a header (required): every column
+                         the model reads, in any order; others are ignored.
+  --psi-threshold X      a column whose population stability index exceeds X
+                         is flagged as drifted (default 0.25).
+  --psi-watch X          a column whose PSI exceeds X (and is not drifted) is
+                         marked "watch" (default 0.1, or the --psi-threshold
+                         when that is lower). Never changes the exit status.
+  --ks-threshold X       a numeric or date/time column whose Kolmogorov-Smirnov
+                         distance D exceeds X is flagged (default 0: the
+                         two-sample critical value at --ks-significance).
+  --ks-significance X    level of that critical value (default 0.01).
+  --json                 print the report as JSON (per column: status, psi,
+                         psi_flag, ks, ks_limit, ks_flag, counts and bins).
+  --quiet                print nothing but errors; the exit status tells.
+
+Prints one line per input column: its kind, PSI, D, the limit of D, its
+status (stable, watch, drifted) and notes (values outside the training
+range, categories training never saw, unreadable cells, which test flagged
+it). PSI compares the shares of the training histogram's bins (plus bins
+below and above the training range and for missing cells; one bin per
+category) with the recent rows' shares.
+
+Exit status
+  0 no column drifted; 5 at least one column drifted; 2 bad command line,
+  model file or data (one line on stderr names the problem); 1 an unexpected
+  failure.
+)";
+}
+
+// ---------------------------------------------------------------------------
+// `tenon retrain` and `tenon drift`
+
+namespace detail {
+
+// The columns a model needs that the data lacks, as "'a', 'b'" (empty: none).
+inline std::string absent_columns(const tenon::table& t, const std::vector<std::string>& needed) {
+    std::vector<std::string> absent;
+    for (const auto& name : needed)
+        if (!t.contains(name)) absent.push_back("'" + name + "'");
+    return join(absent, ", ");
+}
+
+inline tenon::table read_new_rows(const std::string& path) {
+    tenon::table t = tenon::read_csv_file(path);
+    if (t.row_count() == 0) fail(cli_codes::data_empty, path + ": no data rows below the header");
+    return t;
+}
+
+template <class T>
+tenon::retraining_report retrain_with(const tenon::model_file<T>& incumbent, const tenon::table& t, const tenon::retraining_options& options,
+                                      std::vector<std::uint8_t>& candidate_bytes) {
+    tenon::retraining_result<T> r = tenon::retrain_model(incumbent, t, options);
+    if (r.report.promoted) candidate_bytes = tenon::model_file_to_bytes(r.candidate);
+    return std::move(r.report);
+}
+
+// Milliseconds below a second (a retraining on a few hundred rows takes a few).
+inline std::string elapsed_text(double seconds) {
+    if (std::isfinite(seconds) && seconds >= 0 && seconds < 1) return fixed(seconds * 1000.0, 0) + " ms";
+    return duration_text(seconds);
+}
+
+inline std::string retrain_text(const tenon::retraining_report& r, const retrain_request& q, bool in_place) {
+    const auto line = [](const char* name, const std::string& value) {
+        char buffer[32];
+        std::snprintf(buffer, sizeof buffer, "  %-13s", name);
+        return buffer + value + "\n";
+    };
+    std::string s = (r.promoted ? "promoted: " : "kept the incumbent: ") + r.reason + "\n";
+    s += line("metric", r.metric + (r.higher_is_better ? " (higher is better)" : " (lower is better)") + " on " +
+                            std::to_string(r.holdout_rows) + " holdout rows, margin " + significant(r.margin));
+    s += line("incumbent", significant(r.incumbent_score));
+    s += line("candidate", significant(r.candidate_score));
+    s += line("improvement", significant(r.improvement));
+    std::string rows = std::to_string(r.new_rows) + " new (" + std::to_string(r.new_rows_refused) + " refused";
+    const std::pair<const char*, std::size_t> refusals[] = {{"missing target", r.refused_missing_target},
+                                                            {"unseen class", r.refused_unseen_class},
+                                                            {"unseen category", r.refused_unseen_category},
+                                                            {"missing value", r.refused_missing_value},
+                                                            {"not a number", r.refused_not_numeric}};
+    for (const auto& refusal : refusals)
+        if (refusal.second) rows += ", " + std::to_string(refusal.second) + " " + refusal.first;
+    rows += "): " + std::to_string(r.holdout_rows) + " holdout, " + std::to_string(r.new_training_rows) + " for training; " +
+            std::to_string(r.replay_rows) + " replayed training rows; " + std::to_string(r.training_rows) + " trained on, " +
+            std::to_string(r.validation_rows) + " for early stopping";
+    s += line("rows", rows);
+    s += line("training", std::to_string(r.epochs_run) + " epochs, " + std::to_string(r.steps) + " steps, stopped: " + r.stop_reason +
+                              (r.stop_message.empty() ? std::string() : " (" + r.stop_message + ")") + "; " + elapsed_text(r.training_seconds));
+    s += line("time", elapsed_text(r.seconds) + " in all, budget " +
+                          (r.time_budget_seconds > 0 ? duration_text(r.time_budget_seconds) : std::string("none")));
+    if (r.promoted) {
+        s += "candidate written to " + q.out_path;
+        if (in_place) s += "; the previous model kept at " + r.rollback_path;
+        s += "\n";
+    } else {
+        s += "nothing written; " + q.model_path + " stays in service\n";
+    }
+    if (!q.json_path.empty() && q.json_path != "-") s += "report written to " + q.json_path + "\n";
+    return s;
+}
+
+}  // namespace detail
+
+inline int run_retrain(const std::vector<std::string>& args, std::ostream& out, std::ostream& err, const cli_environment& env) {
+    (void)err;
+    const retrain_request q = parse_retrain_request(args);
+    if (q.help) {
+        out << retrain_help();
+        return exit_success;
+    }
+    const bool in_place = detail::same_file(q.out_path, q.model_path);
+    const std::string rollback = !in_place ? std::string() : q.rollback_path.empty() ? tenon::default_rollback_path(q.model_path) : q.rollback_path;
+    // Output files are claimed first, so an unwritable path fails before training.
+    pending_output json_file, out_probe, rollback_probe;
+    if (!q.json_path.empty() && q.json_path != "-") json_file = pending_output("--json", q.json_path);
+    out_probe = pending_output("--out", q.out_path);
+    if (in_place) rollback_probe = pending_output("--rollback", rollback);
+
+    // The whole file is checked (inspect) before a scalar type is chosen.
+    const tenon::model_limits limits;
+    const std::vector<std::uint8_t> bytes = tenon::read_file_bounded(q.model_path, limits.max_file_bytes);
+    const tenon::model_file_summary summary = tenon::inspect_model_bytes(bytes, limits, q.model_path);
+    if (!summary.plan || !summary.plan->has_target())
+        fail(cli_codes::model_unusable, q.model_path + ": the model holds no preparation plan with a target, so it cannot be retrained");
+    const tenon::table t = detail::read_new_rows(q.data_path);
+    std::vector<std::string> needed = summary.plan->input_columns();
+    needed.push_back(summary.plan->target_name());
+    const std::string absent = detail::absent_columns(t, needed);
+    if (!absent.empty())
+        fail(cli_codes::column_missing, q.data_path + ": retraining needs " + absent + " (the model's inputs and its target '" +
+                                            summary.plan->target_name() + "'), which the data does not have (columns: " +
+                                            detail::column_listing(t.column_names()) + ")");
+
+    tenon::retraining_options options;
+    options.metric = q.metric;
+    options.margin = q.margin;
+    options.holdout_share = q.holdout_share;
+    options.min_holdout_rows = q.min_holdout;
+    options.holdout = q.holdout;
+    options.epochs = q.epochs;
+    options.seed = q.seed;
+    options.time_budget_seconds = q.budget_seconds;
+    if (env.clock) options.clock = env.clock;
+    std::vector<std::uint8_t> candidate;
+    tenon::retraining_report report =
+        summary.scalar_bytes == 8 ? detail::retrain_with(tenon::model_file_from_bytes<double>(bytes, limits, q.model_path), t, options, candidate)
+                                  : detail::retrain_with(tenon::model_file_from_bytes<float>(bytes, limits, q.model_path), t, options, candidate);
+    report.model_path = q.out_path;
+    report.rollback_path = rollback;
+    report.file_written = report.promoted;
+    const std::string json = q.json_path.empty() ? std::string() : tenon::to_json(report) + "\n";
+    if (json_file.active()) json_file.write(json);  // renamed into place below, after the model
+
+    if (report.promoted) {
+        out_probe.discard();
+        rollback_probe.discard();
+        const auto save = [](const char* option, const std::string& path, const std::vector<std::uint8_t>& content) {
+            try {
+                tenon::write_file_atomically(path, content);
+            } catch (const tenon::error& e) {
+                throw cli_failure(e.code(), std::string(option) + " '" + path + "': " + detail::strip_code(e.what()), exit_output_failed);
+            }
+        };
+        // The incumbent's exact bytes first, so the path never holds a model
+        // without its predecessor kept.
+        if (in_place) save("--rollback", rollback, bytes);
+        save("--out", q.out_path, candidate);
+        try {
+            if (json_file.active()) json_file.commit();
+        } catch (...) {
+            // Undo: the incumbent back in place (or the new file removed).
+            std::error_code ec;
+            if (in_place) {
+                tenon::write_file_atomically(q.model_path, bytes);
+                std::filesystem::remove(rollback, ec);
+            } else {
+                std::filesystem::remove(q.out_path, ec);
+            }
+            throw;
+        }
+    } else if (json_file.active()) {
+        json_file.commit();
+    }
+    if (q.json_path == "-") out << json;
+    else if (!q.quiet) out << detail::retrain_text(report, q, in_place);
+    return report.promoted ? exit_success : exit_kept_incumbent;
+}
+
+inline int run_drift(const std::vector<std::string>& args, std::ostream& out, std::ostream& err, const cli_environment& env) {
+    (void)err;
+    (void)env;
+    const drift_request q = parse_drift_request(args);
+    if (q.help) {
+        out << drift_help();
+        return exit_success;
+    }
+    const tenon::model_file_summary summary = tenon::inspect_model_file(q.model_path);
+    if (summary.references.empty())
+        fail(cli_codes::model_unusable, q.model_path + ": the model holds no summaries of its training rows (section REFS), so drift cannot be measured");
+    const tenon::table t = detail::read_new_rows(q.data_path);
+    std::vector<std::string> needed;
+    for (const auto& r : summary.references) needed.push_back(r.column);
+    const std::string absent = detail::absent_columns(t, needed);
+    if (!absent.empty())
+        fail(cli_codes::column_missing, q.data_path + ": the model reads " + absent + ", which the data does not have (columns: " +
+                                            detail::column_listing(t.column_names()) + ")");
+    const tenon::drift_report report = tenon::measure_drift(summary.references, t, q.options);
+    const int status = report.any_drift() ? exit_drift_flagged : exit_success;
+    if (q.json) {
+        out << tenon::to_json(report) << "\n";
+    } else if (!q.quiet) {
+        std::vector<std::string> drifted, watched;
+        for (const auto& f : report.features) {
+            if (f.drifted()) drifted.push_back(f.column);
+            else if (f.status == tenon::drift_status::watch) watched.push_back(f.column);
+        }
+        std::string s = "drift of " + std::to_string(report.features.size()) + " input columns: " + std::to_string(report.window_rows) +
+                        " rows of " + q.data_path + " against the " + std::to_string(summary.references.front().present + summary.references.front().missing) +
+                        " training rows of " + q.model_path + "\n\n";
+        s += tenon::drift_table(report) + "\n";
+        if (drifted.empty()) s += "no column drifted";
+        else s += std::to_string(drifted.size()) + " of " + std::to_string(report.features.size()) + " columns drifted: " + detail::join(drifted, ", ");
+        if (!watched.empty()) s += "; to watch: " + detail::join(watched, ", ");
+        s += " (exit status " + std::to_string(status) + ")\n";
+        out << s;
+    }
+    return status;
+}
+
+// ---------------------------------------------------------------------------
 // Dispatch
 
 struct subcommand {
@@ -2034,6 +2493,8 @@ inline const std::vector<subcommand>& subcommands() {
         {"train", "train a perceptron on a CSV file and score it on held-out rows", &run_train},
         {"infer", "predict with a saved model, one output row per CSV row", &run_infer},
         {"inspect", "describe a saved model: inputs, classes, layers, scores, provenance", &run_inspect},
+        {"retrain", "continue training a saved model on new rows; replace it only if it gets better", &run_retrain},
+        {"drift", "compare recent rows with the rows a saved model was trained on", &run_drift},
     };
     return table;
 }
