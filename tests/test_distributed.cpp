@@ -11,7 +11,11 @@
 #include <string>
 #include <vector>
 
+#include <sstream>
+
 #include <tenon/distributed/data_parallel.hpp>
+#include <tenon/distributed/plan_merge.hpp>
+#include <tenon/prep/csv.hpp>
 #include <tenon/update/rules.hpp>
 #include <tenon/update/schedules.hpp>
 
@@ -222,6 +226,89 @@ TEST_CASE("ranks that train on different rows refuse together: train.team.mismat
     if (world().size() > 1) {
         CHECK_THROWS_WITH_AS(train_once(net, train, {}, 10, 2, &team), doctest::Contains("train.team.mismatch"), tenon::error);
     }
+}
+
+namespace {
+
+// A packaging line's log as CSV: rows [0, n) dealt to `rank` of `ranks`
+// (all rows for ranks == 1). Only the last rank's shard holds the die
+// "wide" and the class 7, so only a union finds them; some cells are missing.
+std::string line_log(std::size_t n, std::size_t rank, std::size_t ranks, bool extra_column = false) {
+    tenon::random_engine rng(77);
+    std::ostringstream csv;
+    csv.precision(17);
+    csv << "speed,temperature,load,die,grade" << (extra_column ? ",note" : "") << "\n";
+    const char* dies[] = {"flat", "round", "vee"};
+    for (std::size_t i = 0; i < n; ++i) {
+        const double speed = rng.uniform(1.0, 9.0), temperature = rng.normal(60.0, 8.0), load = rng.uniform(0.0, 1.0) * 1e3;
+        const std::size_t die = static_cast<std::size_t>(rng.uniform(0.0, 3.0)) % 3;
+        const bool last = i % ranks == ranks - 1;
+        if (i % ranks != rank) continue;
+        csv << speed << "," << (i % 11 == 3 ? std::string("NA") : std::to_string(temperature)) << "," << load << ","
+            << (last && i % 13 == 5 ? "wide" : i % 17 == 2 ? "NA" : dies[die]) << "," << (last && i % 19 == 4 ? 7 : static_cast<int>(i % 3))
+            << (extra_column ? ",x" : "") << "\n";
+    }
+    std::istringstream in(csv.str());
+    return in.str();
+}
+
+tenon::table table_of(const std::string& csv) {
+    std::istringstream in(csv);
+    return tenon::read_csv(in, {}, "line.csv");
+}
+
+tenon::plan line_plan() {
+    tenon::plan p;
+    p.set_target("grade", tenon::target_kind::classification);
+    tenon::feature_steps z;  // z-score, mean fill
+    z.fill = tenon::fill_method::mean;
+    p.set_steps("temperature", z);
+    tenon::feature_steps range;
+    range.scaling = tenon::scaling_method::min_max;
+    p.set_steps("speed", range);
+    tenon::feature_steps robust;
+    robust.scaling = tenon::scaling_method::robust;
+    p.set_steps("load", robust);
+    tenon::feature_steps category;
+    category.fill = tenon::fill_method::most_frequent;
+    category.missing_indicator = true;
+    p.set_steps("die", category);
+    return p;
+}
+
+}  // namespace
+
+TEST_CASE("a plan measured on each rank's shard equals the plan of all rows (Chan et al. merge, union of categories)") {
+    const std::size_t p = world().size(), n = 301;
+    const tenon::table all = table_of(line_log(n, 0, 1));
+    const tenon::table mine = table_of(line_log(n, world().rank(), p));
+    const tenon::measured_plan alone = line_plan().measure(all, tenon::all_rows(all.row_count()));
+    const tenon::measured_plan merged = tenon::measure_plan_across(line_plan(), mine, tenon::all_rows(mine.row_count()), world());
+    CHECK(merged.feature_names() == alone.feature_names());
+    CHECK(merged.class_names() == alone.class_names());
+    CHECK(std::find(merged.class_names().begin(), merged.class_names().end(), "7") != merged.class_names().end());
+    CHECK(merged.feature_categories("die").categories() == alone.feature_categories("die").categories());
+    CHECK(merged.feature_fill("die").text == alone.feature_fill("die").text);
+    for (const char* name : {"speed", "temperature", "load"}) {
+        const tenon::scaling a = alone.feature_scaling(name), b = merged.feature_scaling(name);
+        CHECK(b.method == a.method);
+        CHECK(b.center == doctest::Approx(a.center).epsilon(1e-12));
+        CHECK(b.spread == doctest::Approx(a.spread).epsilon(1e-12));
+    }
+    CHECK(merged.feature_scaling("load").center == alone.feature_scaling("load").center);  // quantiles are exact
+    CHECK(merged.feature_fill("temperature").number == doctest::Approx(alone.feature_fill("temperature").number).epsilon(1e-12));
+    CHECK(merged.dropped_training_rows() == alone.dropped_training_rows());
+    // Every rank holds the same plan, bit for bit.
+    const auto bytes = merged.to_bytes();
+    const auto everyone = world().gather_all(bytes);
+    for (const auto& b : everyone) CHECK(b == bytes);
+}
+
+TEST_CASE("ranks whose tables differ in their columns refuse together: distributed.plan.mismatch") {
+    if (world().size() < 2) return;
+    const tenon::table mine = table_of(line_log(60, world().rank(), world().size(), world().rank() == 0));
+    CHECK_THROWS_WITH_AS(tenon::measure_plan_across(line_plan(), mine, tenon::all_rows(mine.row_count()), world()),
+                         doctest::Contains("distributed.plan.mismatch"), tenon::error);
 }
 
 TEST_CASE("a failing MPI call raises distributed.mpi.failed instead of aborting the job") {

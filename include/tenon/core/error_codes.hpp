@@ -150,7 +150,9 @@
     X(distributed_fleet_bytes, "distributed.fleet.bad_bytes",                                  \
       "a fleet contribution's bytes are not a contribution (magic, version, checksum, length)") \
     X(distributed_fleet_empty, "distributed.fleet.no_contribution",                            \
-      "fleet averaging was left without an accepted contribution")
+      "fleet averaging was left without an accepted contribution")                             \
+    X(distributed_plan_mismatch, "distributed.plan.mismatch",                                  \
+      "the ranks measuring one plan hold tables with other columns or column kinds")
 
 #define TENON_ERROR_CODES(X)                                                                   \
     TENON_ERROR_CODES_CORE(X)                                                                  \

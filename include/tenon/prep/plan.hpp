@@ -150,8 +150,15 @@ public:
         return default_steps_;
     }
 
-    /// Learns every statistic from `training_rows` of `t` only.
-    inline measured_plan measure(const table& t, const std::vector<std::size_t>& training_rows) const;
+    /// Learns every statistic from `training_rows` of `t` only. With an
+    /// exchange, each participant passes its own table (same columns and
+    /// kinds) and rows, and all learn the statistics of all participants'
+    /// rows together (statistics_exchange): moments merged by Chan, Golub &
+    /// LeVeque, so means and spreads equal a single measurement up to
+    /// rounding; category and class sets by union, sorted as always;
+    /// medians, quartiles and modes exact, from the gathered values.
+    inline measured_plan measure(const table& t, const std::vector<std::size_t>& training_rows,
+                                 statistics_exchange* exchange = nullptr) const;
 
 private:
     std::vector<std::pair<std::string, column_role>> roles_;
@@ -555,7 +562,81 @@ private:
     std::size_t dropped_training_rows_ = 0;
 };
 
-inline measured_plan plan::measure(const table& t, const std::vector<std::size_t>& training_rows) const {
+namespace detail {
+
+// The named counts of the present categories of `c` over `rows`, merged.
+inline std::vector<std::pair<std::string, std::uint64_t>> shared_category_counts(const column& c, const std::vector<std::size_t>& rows,
+                                                                                 statistics_exchange& ex) {
+    const auto counts = category_counts(c, rows);
+    std::vector<std::pair<std::string, std::uint64_t>> named;
+    for (std::size_t j = 0; j < counts.size(); ++j)
+        if (counts[j] > 0) named.emplace_back(c.categories()[j], counts[j]);
+    return ex.merge_named_counts(named);
+}
+
+// measure_fill over all participants' rows (same rules, same messages).
+inline fill_value shared_fill(const column& c, const std::vector<std::size_t>& rows, const feature_steps& s, statistics_exchange& ex) {
+    if (s.fill == fill_method::none || s.fill == fill_method::constant) return measure_fill(c, rows, s.fill, s.fill_number, s.fill_text);
+    fill_value f;
+    f.method = s.fill;
+    const auto nothing = [&] { raise(codes::prep_no_rows, "column '" + c.name() + "': no present values to learn a fill value from"); };
+    if (c.kind() == column_kind::categorical) {
+        if (s.fill != fill_method::most_frequent) measure_fill(c, rows, s.fill);  // raises prep.column.kind as alone
+        std::uint64_t best = 0;
+        for (const auto& kv : shared_category_counts(c, rows, ex))  // sorted: the smallest name wins ties
+            if (kv.second > best) {
+                best = kv.second;
+                f.text = kv.first;
+            }
+        if (best == 0) nothing();
+        return f;
+    }
+    if (s.fill == fill_method::mean) {
+        const running_moments m = ex.merge_moments(column_moments(c, rows));
+        if (m.count == 0) nothing();
+        f.number = m.mean;
+        return f;
+    }
+    std::vector<double> v = ex.gather_values(present_values(c, rows));
+    if (v.empty()) nothing();
+    if (s.fill == fill_method::median) {
+        f.number = exact_quantile(v, 0.5);
+        return f;
+    }
+    std::sort(v.begin(), v.end());  // most frequent: the smallest value wins ties, as alone
+    std::size_t best = 0;
+    for (std::size_t i = 0; i < v.size();) {
+        std::size_t j = i;
+        while (j < v.size() && v[j] == v[i]) ++j;
+        if (j - i > best) {
+            best = j - i;
+            f.number = v[i];
+        }
+        i = j;
+    }
+    return f;
+}
+
+// measure_scaling over all participants' rows.
+inline scaling shared_scaling(const column& c, const std::vector<std::size_t>& rows, scaling_method method, double low, double high,
+                              statistics_exchange& ex) {
+    if (method == scaling_method::none) return scaling{};
+    if (method == scaling_method::robust) {
+        std::vector<double> v = ex.gather_values(present_values(c, rows));
+        if (v.empty()) raise(codes::prep_no_rows, "column '" + c.name() + "': no present values for quartiles");
+        quartile_summary q;
+        q.median = exact_quantile(v, 0.5);
+        q.interquartile_range = exact_quantile(v, 0.75) - exact_quantile(v, 0.25);
+        return robust_scaling(q);
+    }
+    const running_moments m = ex.merge_moments(column_moments(c, rows));
+    if (m.count == 0) raise(codes::prep_no_rows, "column '" + c.name() + "': no present values to measure a scaling on");
+    return scaling_from_moments(method, m, low, high);
+}
+
+}  // namespace detail
+
+inline measured_plan plan::measure(const table& t, const std::vector<std::size_t>& training_rows, statistics_exchange* exchange) const {
     const std::string where = t.source().empty() ? std::string("table") : t.source();
     for (const auto& r : roles_) t.index_of(r.first);
     for (const auto& s : steps_) t.index_of(s.first);
@@ -574,8 +655,13 @@ inline measured_plan plan::measure(const table& t, const std::vector<std::size_t
         }
         kept.push_back(r);
     }
-    if (kept.empty())
-        raise(codes::prep_no_rows, where + ": no training rows to measure the plan on (" + std::to_string(training_rows.size()) +
+    std::vector<std::uint64_t> totals = {kept.size(), training_rows.size(), p.dropped_training_rows_};
+    if (exchange) {
+        exchange->sum_counts(totals);  // all participants' rows
+        p.dropped_training_rows_ = static_cast<std::size_t>(totals[2]);
+    }
+    if (totals[0] == 0)
+        raise(codes::prep_no_rows, where + ": no training rows to measure the plan on (" + std::to_string(totals[1]) +
                                        " given, " + std::to_string(p.dropped_training_rows_) + " dropped for a missing target)");
     for (std::size_t k = 0; k < t.column_count(); ++k) {
         const column& c = t[k];
@@ -588,18 +674,23 @@ inline measured_plan plan::measure(const table& t, const std::vector<std::size_t
         f.name = c.name();
         f.kind = c.kind();
         f.indicator = s.missing_indicator;
-        f.fill = measure_fill(c, kept, s.fill, s.fill_number, s.fill_text);
+        f.fill = exchange ? detail::shared_fill(c, kept, s, *exchange) : measure_fill(c, kept, s.fill, s.fill_number, s.fill_text);
         if (c.kind() == column_kind::categorical) {
-            const auto counts = category_counts(c, kept);
             std::vector<std::string> seen;
-            for (std::size_t j = 0; j < counts.size(); ++j)
-                if (counts[j] > 0) seen.push_back(c.categories()[j]);
+            if (exchange) {
+                for (const auto& kv : detail::shared_category_counts(c, kept, *exchange)) seen.push_back(kv.first);
+            } else {
+                const auto counts = category_counts(c, kept);
+                for (std::size_t j = 0; j < counts.size(); ++j)
+                    if (counts[j] > 0) seen.push_back(c.categories()[j]);
+            }
             if (f.fill.method == fill_method::constant) seen.push_back(f.fill.text);
             if (seen.empty())
                 raise(codes::prep_no_rows, where + ", column '" + c.name() + "': no present category in the training rows");
             f.one_hot = one_hot_layout(std::move(seen), s.unseen, s.drop_first);
         } else {
-            f.scale = measure_scaling(c, kept, s.scaling, s.range_low, s.range_high);
+            f.scale = exchange ? detail::shared_scaling(c, kept, s.scaling, s.range_low, s.range_high, *exchange)
+                               : measure_scaling(c, kept, s.scaling, s.range_low, s.range_high);
         }
         p.features_.push_back(std::move(f));
     }
@@ -618,10 +709,17 @@ inline measured_plan plan::measure(const table& t, const std::vector<std::size_t
                 values.erase(std::unique(values.begin(), values.end()), values.end());
                 for (double v : values) names.push_back(number_to_text(v));
             }
+            if (exchange) {  // the union of the participants' classes (class_index sorts them)
+                std::vector<std::pair<std::string, std::uint64_t>> named;
+                for (auto& n : names) named.emplace_back(std::move(n), 1);
+                names.clear();
+                for (auto& kv : exchange->merge_named_counts(named)) names.push_back(std::move(kv.first));
+            }
             p.classes_ = class_index(std::move(names));
         } else {
             p.require_number_target(*target);
-            p.target_scale_ = measure_scaling(*target, kept, target_scaling_);
+            p.target_scale_ = exchange ? detail::shared_scaling(*target, kept, target_scaling_, 0.0, 1.0, *exchange)
+                                       : measure_scaling(*target, kept, target_scaling_);
         }
     }
     p.lay_out();

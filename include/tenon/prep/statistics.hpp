@@ -14,8 +14,10 @@
 #include <algorithm>
 #include <cmath>
 #include <cstddef>
+#include <cstdint>
 #include <limits>
 #include <string>
+#include <utility>
 #include <vector>
 
 #include "tenon/core/error.hpp"
@@ -159,6 +161,29 @@ inline std::vector<std::size_t> category_counts(const column& c, const std::vect
         if (!c.is_missing(r)) ++counts[c.code(r)];
     return counts;
 }
+
+/// Combines statistics measured by several participants on their own rows
+/// (e.g. the processes of a distributed training run, each holding a
+/// shard), so that a plan measured by each (plan::measure with an exchange)
+/// learns the statistics of all their rows together. Every call is
+/// collective: all participants make the same calls in the same order, and
+/// every participant receives the same result. prep/ defines only the
+/// interface; distributed/plan_merge.hpp implements it over MPI.
+class statistics_exchange {
+public:
+    virtual ~statistics_exchange() = default;
+    /// Elementwise sums over the participants, in place.
+    virtual void sum_counts(std::vector<std::uint64_t>& counts) = 0;
+    /// The participants' moments merged with running_moments::merge (Chan,
+    /// Golub & LeVeque) in participant order.
+    virtual running_moments merge_moments(const running_moments& local) = 0;
+    /// Every participant's values, concatenated in participant order (for
+    /// exact quantiles and modes: memory grows with all participants' rows).
+    virtual std::vector<double> gather_values(const std::vector<double>& local) = 0;
+    /// The union of the participants' names, sorted, each with its counts summed.
+    virtual std::vector<std::pair<std::string, std::uint64_t>> merge_named_counts(
+        const std::vector<std::pair<std::string, std::uint64_t>>& local) = 0;
+};
 
 /// 0, 1, ..., n-1: all rows of a table.
 inline std::vector<std::size_t> all_rows(std::size_t n) {
