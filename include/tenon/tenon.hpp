@@ -62,3 +62,10 @@
 #if defined(TENON_HAS_ZLIB)
 #include "tenon/prep/idx_gzip.hpp"
 #endif
+
+#if defined(TENON_HAS_MPI)
+#include "tenon/distributed/communicator.hpp"
+#include "tenon/distributed/data_parallel.hpp"
+#include "tenon/distributed/plan_merge.hpp"
+#endif
+#include "tenon/distributed/fleet_averaging.hpp"
