@@ -34,8 +34,8 @@
 // Counting global allocation functions: a call is allocation-free when the
 // count does not move while `counting` is on in this thread.
 namespace {
-thread_local bool counting = false;
-thread_local std::size_t allocations = 0;
+[[maybe_unused]] thread_local bool counting = false;
+[[maybe_unused]] thread_local std::size_t allocations = 0;
 }  // namespace
 
 #if !defined(DEPLOY_TEST_TSAN)
