@@ -24,6 +24,7 @@
 #include <iterator>
 #include <sstream>
 #include <string>
+#include <system_error>
 #include <vector>
 
 #include "cli/cli.hpp"
@@ -53,6 +54,12 @@ struct sandbox {
         std::ifstream fixture(std::string(TENON_SOURCE_DIR) + "/tests/fixtures/deploy/pump_v1_float.tnm", std::ios::binary);
         model_bytes.assign(std::istreambuf_iterator<char>(fixture), std::istreambuf_iterator<char>());
         if (model_bytes.empty()) std::abort();
+    }
+
+    ~sandbox() {
+        std::error_code ignored;
+        std::filesystem::current_path(directory.parent_path(), ignored);
+        std::filesystem::remove_all(directory, ignored);
     }
 
     void reset() const {
