@@ -3,6 +3,7 @@
 #include <doctest/doctest.h>
 
 #include <cmath>
+#include <cstdint>
 #include <iterator>
 #include <limits>
 #include <string>
@@ -585,4 +586,153 @@ TEST_CASE_TEMPLATE("constant-on-the-left subtraction and division by a constant"
     t.backward(tenon::sum(y) + tenon::sum(v / T(4)));
     CHECK(x.grad()(0, 0) == doctest::Approx(-0.75));
     CHECK(x.grad()(0, 1) == doctest::Approx(-0.75));
+}
+
+// ---------------------------------------------------------------------------
+// fused operations: affine_activation and softmax_cross_entropy
+
+namespace {
+
+// Values spread over [-1.7, 1.9) without exact zeros (relu's kink), from a
+// fixed engine so the tests are repeatable.
+template <class T>
+matrix<T> spread(std::size_t rows, std::size_t cols, std::uint64_t seed) {
+    tenon::random_engine engine(seed);
+    matrix<T> m({rows, cols});
+    for (std::size_t k = 0; k < m.size(); ++k) {
+        T v = engine.uniform<T>(T(-1.7), T(1.9));
+        if (std::abs(v) < T(0.05)) v = T(0.3);
+        m.data()[k] = v;
+    }
+    return m;
+}
+
+struct fused_unit {
+    tenon::op_kind unit;
+    double coefficient;
+};
+const fused_unit fused_units[] = {{tenon::op_kind::relu, 0.0},  {tenon::op_kind::leaky_relu, 0.1}, {tenon::op_kind::elu, 1.0},
+                                  {tenon::op_kind::elu, 0.5},   {tenon::op_kind::tanh, 0.0},       {tenon::op_kind::sigmoid, 0.0}};
+
+template <class T>
+var<T> unfused_activation(var<T> z, tenon::op_kind unit, T coefficient) {
+    switch (unit) {
+        case tenon::op_kind::relu: return tenon::relu(z);
+        case tenon::op_kind::leaky_relu: return tenon::leaky_relu(z, coefficient);
+        case tenon::op_kind::elu: return tenon::elu(z, coefficient);
+        case tenon::op_kind::tanh: return tenon::tanh(z);
+        default: return tenon::sigmoid(z);
+    }
+}
+
+template <class T>
+void check_same_bits(const matrix<T>& a, const matrix<T>& b, const char* what) {
+    INFO(what);
+    REQUIRE(tenon::shape_of(a) == tenon::shape_of(b));
+    for (std::size_t k = 0; k < a.size(); ++k) REQUIRE(a.data()[k] == b.data()[k]);
+}
+
+}  // namespace
+
+TEST_CASE("affine_activation: gradients of x, weights and bias match finite differences") {
+    for (const bool with_bias : {true, false}) {
+        for (const auto& u : fused_units) {
+            const std::string unit_name = tenon::op_name(u.unit);
+            CAPTURE(unit_name);
+            CAPTURE(with_bias);
+            tenon::parameter<double> x("x", spread<double>(5, 4, 1));
+            tenon::parameter<double> w("w", spread<double>(4, 3, 2));
+            tenon::parameter<double> b("b", spread<double>(1, 3, 3));
+            const matrix<double> c = spread<double>(5, 3, 4);  // weights the outputs unevenly
+            std::vector<tenon::parameter<double>*> params = {&x, &w};
+            if (with_bias) params.push_back(&b);
+            const auto report = tenon::check_gradients(params, [&](tape<double>& t) {
+                const auto y = tenon::affine_activation(t.watch(x), t.watch(w), with_bias ? t.watch(b) : var<double>(), u.unit, u.coefficient);
+                return tenon::sum(y * t.input(c));
+            });
+            CHECK(report.max_rel_error < 1e-6);
+        }
+    }
+}
+
+TEST_CASE_TEMPLATE("affine_activation gives the same bits as matmul, bias add and the activation recorded apart", T, float, double) {
+    for (const auto& u : fused_units) {
+        const std::string unit_name = tenon::op_name(u.unit);
+            CAPTURE(unit_name);
+        const T coefficient = static_cast<T>(u.coefficient);
+        tenon::parameter<T> w("w", spread<T>(7, 5, 11));
+        tenon::parameter<T> b("b", spread<T>(1, 5, 12));
+        const matrix<T> input = spread<T>(9, 7, 13);
+        const matrix<T> c = spread<T>(9, 5, 14);
+
+        tape<T> t;
+        const auto x1 = t.variable(input);
+        const auto y1 = tenon::affine_activation(x1, t.watch(w), t.watch(b), u.unit, coefficient);
+        t.backward(tenon::sum(y1 * t.input(c)));
+        const matrix<T> value_fused = y1.value(), x_fused = t.grad(x1), w_fused = w.grad(), b_fused = b.grad();
+
+        w.zero_grad();
+        b.zero_grad();
+        tape<T> t2;
+        const auto x2 = t2.variable(input);
+        const auto y2 = unfused_activation(tenon::matmul(x2, t2.watch(w)) + t2.watch(b), u.unit, coefficient);
+        t2.backward(tenon::sum(y2 * t2.input(c)));
+        check_same_bits(value_fused, y2.value(), "value");
+        check_same_bits(x_fused, t2.grad(x2), "input gradient");
+        check_same_bits(w_fused, w.grad(), "weight gradient");
+        check_same_bits(b_fused, b.grad(), "bias gradient");
+    }
+}
+
+TEST_CASE_TEMPLATE("affine_activation refuses activations it cannot fuse and shapes that do not chain", T, float, double) {
+    tape<T> t;
+    const auto x = t.input(spread<T>(3, 4, 1));
+    const auto w = t.input(spread<T>(4, 2, 2));
+    const auto b = t.input(spread<T>(1, 2, 3));
+    for (const auto unit : {tenon::op_kind::softplus, tenon::op_kind::gelu_erf, tenon::op_kind::exp}) {
+        const auto e = expect_error([&] { tenon::affine_activation(x, w, b, unit, T(0)); });
+        CHECK(e.code() == std::string("core.argument.invalid"));
+        CHECK(contains(e.what(), tenon::op_name(unit)));
+    }
+    // A negative slope or alpha makes the sign of the output ambiguous.
+    CHECK(expect_error([&] { tenon::affine_activation(x, w, b, tenon::op_kind::leaky_relu, T(-0.5)); }).code() ==
+          std::string("core.argument.invalid"));
+    CHECK(expect_error([&] { tenon::affine_activation(x, w, b, tenon::op_kind::elu, T(-1)); }).code() == std::string("core.argument.invalid"));
+    CHECK(contains(expect_error([&] { tenon::affine_activation(x, b, b, tenon::op_kind::relu, T(0)); }).what(), "inner dimensions differ"));
+    CHECK(contains(expect_error([&] { tenon::affine_activation(x, w, w, tenon::op_kind::relu, T(0)); }).what(), "is not a 1 x 2 row"));
+}
+
+TEST_CASE("softmax_cross_entropy: gradients of logits and target weights match finite differences") {
+    tenon::parameter<double> z("z", spread<double>(4, 5, 21));
+    tenon::parameter<double> q("q", spread<double>(4, 5, 22));
+    z.value().data()[3] = 40.0;  // a large logit: the row maximum is subtracted
+    const auto report = tenon::check_gradients({&z, &q}, [&](tape<double>& t) {
+        return tenon::softmax_cross_entropy(t.watch(z), t.watch(q));
+    });
+    CHECK(report.max_rel_error < 1e-6);
+}
+
+TEST_CASE_TEMPLATE("softmax_cross_entropy gives the same bits as -sum(log_softmax_rows(z) * Q)", T, float, double) {
+    const matrix<T> logits = spread<T>(6, 10, 31);
+    matrix<T> q({6, 10});
+    q.fill(T(0));
+    for (std::size_t i = 0; i < 6; ++i) q.data()[i * 10 + (3 * i) % 10] = T(1) / T(6);  // one-hot rows, mean reduction
+
+    tape<T> t;
+    const auto z1 = t.variable(logits);
+    const auto l1 = tenon::softmax_cross_entropy(z1, t.input(q));
+    t.backward(l1);
+    tape<T> t2;
+    const auto z2 = t2.variable(logits);
+    const auto l2 = -tenon::sum(tenon::log_softmax_rows(z2) * t2.input(q));
+    t2.backward(l2);
+    check_same_bits(l1.value(), l2.value(), "loss");
+    check_same_bits(t.grad(z1), t2.grad(z2), "logit gradient");
+    // One-hot rows of weight w: dz = w (softmax - onehot) (Bishop 2006, eq. 4.109).
+    const auto p = tenon::exp(tenon::log_softmax_rows(t.input(logits)));
+    for (std::size_t k = 0; k < q.size(); ++k) {
+        const double expected = (static_cast<double>(p.value().data()[k]) - (q.data()[k] > T(0) ? 1.0 : 0.0)) / 6.0;
+        CHECK(static_cast<double>(t.grad(z1).data()[k]) == doctest::Approx(expected).epsilon(1e-5));
+    }
+    CHECK(contains(expect_error([&] { tenon::softmax_cross_entropy(z1, t.input(spread<T>(6, 9, 1))); }).what(), "differ in shape"));
 }

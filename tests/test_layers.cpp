@@ -467,3 +467,67 @@ TEST_CASE("damaged architecture bytes fail with their error codes") {
     for (int i = 0; i < 20; ++i) deep = tenon::layer_record{"residual", "r", {}, {}, {deep}};
     CHECK(code_of([&] { tenon::record_from_bytes(tenon::to_bytes(deep)); }) == "model.record.malformed");
 }
+
+// A dense layer followed by relu, leaky_relu, elu, tanh or sigmoid runs as one
+// fused tape node (tape::affine_activation); the network's results must be
+// the bits of the layers recorded one by one.
+TEST_CASE_TEMPLATE("network forward fuses dense + activation without changing values or gradients", T, float, double) {
+    using tenon::activation;
+    struct expectation {
+        activation hidden;
+        bool fused;
+    };
+    const expectation cases[] = {{activation::relu, true},    {activation::leaky_relu, true}, {activation::elu, true},
+                                 {activation::tanh, true},    {activation::sigmoid, true},    {activation::softplus, false},
+                                 {activation::gelu, false},   {activation::softmax, false}};
+    for (const auto& c : cases) {
+        const std::string hidden_name = tenon::activation_name(c.hidden);
+        CAPTURE(hidden_name);
+        auto net = tenon::make_mlp<T>({6, 8, 7, 3}, c.hidden, {tenon::init_scheme::he_normal, 0.0}, 5, activation::sigmoid);
+        tenon::random_engine engine(9);
+        matrix<T> input({10, 6}), weights({10, 3});
+        for (std::size_t k = 0; k < input.size(); ++k) input.data()[k] = engine.uniform<T>(T(-2), T(2));
+        for (std::size_t k = 0; k < weights.size(); ++k) weights.data()[k] = engine.uniform<T>(T(-1), T(1));
+        for (auto* p : net.parameters()) p->value().data()[0] += T(0.25);  // non-zero biases too
+        for (auto* p : net.parameters())
+            for (std::size_t k = 0; k < p->value().size(); ++k) p->value().data()[k] += T(0.01) * static_cast<T>(k % 7);
+
+        tenon::tape<T> fused;
+        const auto x1 = fused.variable(input);
+        fused.backward(tenon::sum(net.forward(fused, x1) * fused.input(weights)));
+        std::vector<matrix<T>> grads_fused;
+        for (auto* p : net.parameters()) {
+            grads_fused.push_back(p->grad());
+            p->zero_grad();
+        }
+
+        tenon::tape<T> apart;
+        auto x2 = apart.variable(input);
+        auto y = x2;
+        for (std::size_t i = 0; i < net.layer_count(); ++i) y = net.layer_at(i).forward(apart, y, run_mode::training);
+        apart.backward(tenon::sum(y * apart.input(weights)));
+
+        // A fused pair records product, bias add and activation as one node:
+        // two fewer per pair. The sigmoid output layer is always fused, the
+        // two hidden layers when their activation is.
+        CHECK(apart.size() - fused.size() == (c.fused ? 6u : 2u));
+        REQUIRE(net.parameters().size() == grads_fused.size());
+        for (std::size_t i = 0; i < grads_fused.size(); ++i) {
+            const auto& g = net.parameters()[i]->grad();
+            for (std::size_t k = 0; k < g.size(); ++k) REQUIRE(g.data()[k] == grads_fused[i].data()[k]);
+        }
+        for (std::size_t k = 0; k < fused.grad(x1).size(); ++k) REQUIRE(fused.grad(x1).data()[k] == apart.grad(x2).data()[k]);
+        // The layers (and so the architecture record) do not change.
+        CHECK(net.layer_count() == 6u);
+    }
+}
+
+TEST_CASE("a network with fused dense + tanh layers passes the finite-difference check") {
+    auto net = tenon::make_mlp<double>({4, 5, 3}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 3,
+                                       tenon::activation::sigmoid);
+    matrix<double> input({6, 4});
+    tenon::random_engine engine(4);
+    for (std::size_t k = 0; k < input.size(); ++k) input.data()[k] = engine.uniform<double>(-1.5, 1.5);
+    const auto report = tenon::check_gradients(net.parameters(), [&](tenon::tape<double>& t) { return tenon::sum(net.forward(t, input)); });
+    CHECK(report.max_rel_error < 1e-6);
+}

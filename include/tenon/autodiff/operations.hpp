@@ -85,6 +85,19 @@ template <class T> var<T> logsumexp_rows(var<T> x) { return detail::owner_of(x).
 /// Per-row x_ij - logsumexp_i (same shape), stable for large magnitudes.
 template <class T> var<T> log_softmax_rows(var<T> x) { return detail::owner_of(x).unary(op_kind::log_softmax_rows, x); }
 
+/// f(x W + b) as one fused node; f is op_kind::relu, tanh, sigmoid,
+/// leaky_relu or elu (coefficient >= 0: the slope or alpha). Pass an empty
+/// var<T>() as `bias` for no bias. See tape::affine_activation.
+template <class T>
+var<T> affine_activation(var<T> x, var<T> weights, var<T> bias, op_kind unit, T coefficient = T(0)) {
+    return detail::owner_of(x).affine_activation(x, weights, bias, unit, coefficient);
+}
+/// -sum_ij Q_ij log softmax(z_i)_j (1x1) as one fused node: cross-entropy of
+/// the row softmax of `logits` against the weighted targets Q.
+template <class T> var<T> softmax_cross_entropy(var<T> logits, var<T> weights) {
+    return detail::owner_of(logits).softmax_cross_entropy(logits, weights);
+}
+
 /// Limits x to [low, high]; the gradient passes where low <= x <= high.
 template <class T> var<T> clamp(var<T> x, T low, T high) { return detail::owner_of(x).unary(op_kind::clamp, x, low, high); }
 /// The same value, with no gradient flowing back through it.

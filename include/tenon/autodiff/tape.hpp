@@ -44,6 +44,8 @@ enum class op_kind : std::uint8_t {
     logsumexp_rows, log_softmax_rows,
     clamp, stop_gradient,
     custom,
+    affine_activation,       // f(x W + b) in one node (fused; see tape::affine_activation)
+    softmax_cross_entropy,   // -sum(Q * log_softmax_rows(z)) in one node (fused)
 };
 
 inline const char* op_name(op_kind k) noexcept {
@@ -81,6 +83,8 @@ inline const char* op_name(op_kind k) noexcept {
         case op_kind::clamp: return "clamp";
         case op_kind::stop_gradient: return "stop_gradient";
         case op_kind::custom: return "custom";
+        case op_kind::affine_activation: return "affine_activation";
+        case op_kind::softmax_cross_entropy: return "softmax_cross_entropy";
     }
     return "unknown";
 }
@@ -128,8 +132,10 @@ struct tape_node {
     int axis = 0;
     bool transpose_a = false;
     bool transpose_b = false;
+    op_kind unit = op_kind::input;  // affine_activation: the activation applied
     matrix<T> value;
     matrix<T> grad;
+    matrix<T> scratch;  // affine_activation: d(loss)/d(x W + b) during backward
     parameter<T>* param = nullptr;
     const custom_operation<T>* custom = nullptr;
 };
@@ -275,6 +281,70 @@ public:
         return finish(n);
     }
 
+    /// Whether affine_activation() accepts `unit` with constant `coefficient`:
+    /// the activations whose derivative follows from their output alone
+    /// (relu; leaky_relu with slope >= 0; elu with alpha >= 0; tanh; sigmoid),
+    /// so the fused node keeps no pre-activation buffer.
+    static bool fusable_activation(op_kind unit, T coefficient) noexcept {
+        switch (unit) {
+            case op_kind::relu: case op_kind::tanh: case op_kind::sigmoid: return true;
+            case op_kind::leaky_relu: case op_kind::elu: return coefficient >= T(0);
+            default: return false;
+        }
+    }
+
+    /// f(x W + b) recorded as one node: the product, then one pass adding the
+    /// bias row and applying f; backward forms d = g * f'(y) once, takes the
+    /// bias gradient as d's column sums and the product's gradients from d.
+    /// The same values, in the same order, as matmul, add and the activation
+    /// recorded separately (so the results are the same bits). `bias` is a
+    /// 1 x outputs row or an empty var (no bias); `unit` and `coefficient`
+    /// must pass fusable_activation() (the coefficient is the slope of
+    /// leaky_relu or the alpha of elu).
+    var<T> affine_activation(var<T> x, var<T> weights, var<T> bias, op_kind unit, T coefficient = T(0)) {
+        if (!fusable_activation(unit, coefficient)) {
+            raise(codes::invalid_argument, std::string("affine_activation: activation '") + op_name(unit) + "' with coefficient " +
+                                               std::to_string(coefficient) +
+                                               " is not fused (relu, tanh, sigmoid, leaky_relu or elu with a coefficient >= 0 are)");
+        }
+        const shape2 sx = shape_of(value_of(x)), sw = shape_of(value_of(weights));
+        if (sx.cols != sw.rows) {
+            raise(codes::shape_mismatch, "affine_activation: inner dimensions differ: input " + to_string(sx) + ", weights " + to_string(sw));
+        }
+        std::uint32_t ids[3] = {x.id(), weights.id(), 0};
+        std::size_t count = 2;
+        if (bias.valid()) {
+            const shape2 sb = shape_of(value_of(bias));
+            if (sb != shape2{1, sw.cols}) {
+                raise(codes::shape_mismatch, "affine_activation: bias " + to_string(sb) + " is not a 1 x " + std::to_string(sw.cols) + " row");
+            }
+            ids[2] = bias.id();
+            count = 3;
+        }
+        auto& n = push(op_kind::affine_activation, ids, count, {sx.rows, sw.cols});
+        n.unit = unit;
+        n.a = coefficient;
+        return finish(n);
+    }
+
+    /// -sum_ij Q_ij log softmax(z_i)_j (1x1) recorded as one node: per row
+    /// one pass for the maximum, one for the sum of exponentials and one for
+    /// the loss; backward dz_ij = g ((sum_k Q_ik) softmax_ij - Q_ij), which
+    /// for a one-hot row weighted by w is w (softmax - onehot) (Bishop 2006,
+    /// "Pattern Recognition and Machine Learning", eq. 4.109 for the
+    /// unweighted case). The same values, in the same order, as
+    /// -sum(log_softmax_rows(z) * Q) recorded as separate nodes.
+    var<T> softmax_cross_entropy(var<T> logits, var<T> weights) {
+        const shape2 sz = shape_of(value_of(logits)), sq = shape_of(value_of(weights));
+        if (sz != sq) {
+            raise(codes::shape_mismatch, "softmax_cross_entropy: logits " + to_string(sz) + " and weights " + to_string(sq) + " differ in shape");
+        }
+        if (sz.cols == 0) raise(codes::shape_mismatch, "softmax_cross_entropy: needs at least one column, got " + to_string(sz));
+        const std::uint32_t ids[2] = {logits.id(), weights.id()};
+        auto& n = push(op_kind::softmax_cross_entropy, ids, 2, {1, 1});
+        return finish(n);
+    }
+
     /// Records a host-defined operation with up to four inputs.
     var<T> apply(const custom_operation<T>& op, std::initializer_list<var<T>> operands) {
         if (operands.size() > detail::max_operands) {
@@ -389,6 +459,7 @@ private:
         n.a = n.b = T(0);
         n.axis = 0;
         n.transpose_a = n.transpose_b = false;
+        n.unit = op_kind::input;
         for (std::size_t i = 0; i < count; ++i) {
             n.inputs[i] = ids[i];
             n.needs_grad = n.needs_grad || nodes_[ids[i]].needs_grad;
@@ -561,6 +632,38 @@ private:
                 }
                 return;
             }
+            case op_kind::affine_activation: {
+                const matrix<T>& x = value_at(n.inputs[0]);
+                const matrix<T>& w = value_at(n.inputs[1]);
+                gemm<T>(false, false, rows, cols, x.shape()[1], T(1), x.data(), x.shape()[1], w.data(), cols, T(0), o, cols, workers_);
+                const T* pb = n.input_count == 3 ? value_at(n.inputs[2]).data() : nullptr;
+                switch (n.unit) {
+                    case op_kind::relu: bias_map(pb, o, rows, cols, [](T z) { return z > T(0) ? z : T(0); }); return;
+                    case op_kind::leaky_relu: { const T a = n.a; bias_map(pb, o, rows, cols, [a](T z) { return z > T(0) ? z : a * z; }); return; }
+                    case op_kind::elu: { const T a = n.a; bias_map(pb, o, rows, cols, [a](T z) { return z > T(0) ? z : a * std::expm1(z); }); return; }
+                    case op_kind::tanh: bias_map(pb, o, rows, cols, [](T z) { return std::tanh(z); }); return;
+                    default: bias_map(pb, o, rows, cols, [](T z) { return detail::stable_sigmoid(z); }); return;
+                }
+            }
+            case op_kind::softmax_cross_entropy: {
+                const matrix<T>& z = value_at(n.inputs[0]);
+                const T* pq = value_at(n.inputs[1]).data();
+                const std::size_t zc = z.shape()[1];
+                const T* pz = z.data();
+                // Accumulated row-major like sum_all over log_softmax * Q.
+                T total = T(0);
+                for (std::size_t i = 0; i < z.shape()[0]; ++i) {
+                    const T* row = pz + i * zc;
+                    T m = row[0];
+                    for (std::size_t j = 1; j < zc; ++j) m = row[j] > m ? row[j] : m;
+                    T s = T(0);
+                    for (std::size_t j = 0; j < zc; ++j) s += std::exp(row[j] - m);
+                    const T log_s = std::log(s);
+                    for (std::size_t j = 0; j < zc; ++j) total += ((row[j] - m) - log_s) * pq[i * zc + j];
+                }
+                o[0] = -total;
+                return;
+            }
             case op_kind::custom: {
                 const matrix<T>* values[detail::max_operands] = {};
                 for (std::size_t i = 0; i < n.input_count; ++i) values[i] = &value_at(n.inputs[i]);
@@ -600,6 +703,19 @@ private:
                 return;
             case op_kind::clamp: map(px, o, size, [a, b](T x) { return x < a ? a : (x > b ? b : x); }); return;
             default: map(px, o, size, [](T x) { return x; }); return;
+        }
+    }
+
+    // o_ij = f(o_ij + b_j) in place (b null: f(o_ij)), one pass.
+    template <class F>
+    static void bias_map(const T* b, T* o, std::size_t rows, std::size_t cols, F f) noexcept {
+        if (!b) {
+            for (std::size_t k = 0; k < rows * cols; ++k) o[k] = f(o[k]);
+            return;
+        }
+        for (std::size_t i = 0; i < rows; ++i) {
+            T* oi = o + i * cols;
+            for (std::size_t j = 0; j < cols; ++j) oi[j] = f(oi[j] + b[j]);
         }
     }
 
@@ -744,6 +860,69 @@ private:
                 }
                 return;
             }
+            case op_kind::affine_activation: {
+                // d = g * f'(y), with f' written in terms of the output y
+                // exactly as the separate activation's backward computes it
+                // (y > 0 iff x W + b > 0 for the fusable coefficients).
+                ensure_shape(n.scratch, shape2{rows, cols});
+                T* d = n.scratch.data();
+                const T* py = n.value.data();
+                const std::size_t size = rows * cols;
+                const T a = n.a;
+                switch (n.unit) {
+                    case op_kind::relu: derive(py, g, d, size, [](T y) { return y > T(0) ? T(1) : T(0); }); break;
+                    case op_kind::leaky_relu: derive(py, g, d, size, [a](T y) { return y > T(0) ? T(1) : a; }); break;
+                    case op_kind::elu: derive(py, g, d, size, [a](T y) { return y > T(0) ? T(1) : y + a; }); break;
+                    case op_kind::tanh: derive(py, g, d, size, [](T y) { return T(1) - y * y; }); break;
+                    default: derive(py, g, d, size, [](T y) { return y * (T(1) - y); }); break;
+                }
+                const matrix<T>& x = value_at(n.inputs[0]);
+                const matrix<T>& w = value_at(n.inputs[1]);
+                matrix<T>* gx = grad_target(n.inputs[0]);
+                matrix<T>* gw = grad_target(n.inputs[1]);
+                matrix<T>* gb = n.input_count == 3 ? grad_target(n.inputs[2]) : nullptr;
+                const std::size_t k = x.shape()[1];
+                if (gb) {
+                    T* pgb = gb->data();
+                    for (std::size_t i = 0; i < rows; ++i)
+                        for (std::size_t j = 0; j < cols; ++j) pgb[j] += d[i * cols + j];
+                }
+                if (gx) gemm<T>(false, true, rows, k, cols, T(1), d, cols, w.data(), cols, T(1), gx->data(), k, workers_);
+                if (gw) gemm<T>(true, false, k, cols, rows, T(1), x.data(), k, d, cols, T(1), gw->data(), cols, workers_);
+                return;
+            }
+            case op_kind::softmax_cross_entropy: {
+                const matrix<T>& z = value_at(n.inputs[0]);
+                const matrix<T>& q = value_at(n.inputs[1]);
+                matrix<T>* gz = grad_target(n.inputs[0]);
+                matrix<T>* gq = grad_target(n.inputs[1]);
+                const std::size_t zr = z.shape()[0], zc = z.shape()[1];
+                const T* pz = z.data();
+                const T* pq = q.data();
+                const T g0 = g[0];
+                for (std::size_t i = 0; i < zr; ++i) {
+                    const T* row = pz + i * zc;
+                    const T* qi = pq + i * zc;
+                    T m = row[0];
+                    for (std::size_t j = 1; j < zc; ++j) m = row[j] > m ? row[j] : m;
+                    T s = T(0);
+                    for (std::size_t j = 0; j < zc; ++j) s += std::exp(row[j] - m);
+                    const T log_s = std::log(s);
+                    if (gz) {
+                        // d/dz of -sum_j q_j (z_j - lse): -q_j + softmax_j sum_k q_k,
+                        // in the order log_softmax_rows' backward uses.
+                        T gs = T(0);
+                        for (std::size_t j = 0; j < zc; ++j) gs += -g0 * qi[j];
+                        T* pg = gz->data() + i * zc;
+                        for (std::size_t j = 0; j < zc; ++j) pg[j] += -g0 * qi[j] - std::exp((row[j] - m) - log_s) * gs;
+                    }
+                    if (gq) {
+                        T* pg = gq->data() + i * zc;
+                        for (std::size_t j = 0; j < zc; ++j) pg[j] += -g0 * ((row[j] - m) - log_s);
+                    }
+                }
+                return;
+            }
             case op_kind::custom: {
                 const matrix<T>* values[detail::max_operands] = {};
                 matrix<T>* grads[detail::max_operands] = {};
@@ -798,6 +977,11 @@ private:
             case op_kind::clamp: chain(px, py, g, pg, size, [a, b](T x, T) { return (x >= a && x <= b) ? T(1) : T(0); }); return;
             default: chain(px, py, g, pg, size, [](T, T) { return T(0); }); return;
         }
+    }
+
+    template <class F>
+    static void derive(const T* py, const T* g, T* d, std::size_t size, F derivative) noexcept {
+        for (std::size_t k = 0; k < size; ++k) d[k] = g[k] * derivative(py[k]);
     }
 
     template <class F>

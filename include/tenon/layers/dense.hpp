@@ -46,6 +46,15 @@ public:
         return y;
     }
 
+    /// forward() followed by activation `unit` (coefficient: its slope or
+    /// alpha), recorded as one fused tape node (tape::affine_activation);
+    /// `unit` must pass tape<T>::fusable_activation. The same values as
+    /// forward() and then the activation recorded on their own.
+    var<T> forward_activated(tape<T>& t, var<T> input, op_kind unit, T coefficient) {
+        this->require_width(input.shape().cols, inputs_);
+        return t.affine_activation(input, t.watch(weights_), with_bias_ ? t.watch(bias_) : var<T>(), unit, coefficient);
+    }
+
     const char* kind() const noexcept override { return "dense"; }
 
     layer_record describe() const override {

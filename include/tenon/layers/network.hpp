@@ -13,6 +13,7 @@
 #include <memory>
 #include <string>
 #include <type_traits>
+#include <typeinfo>
 #include <utility>
 #include <vector>
 
@@ -45,12 +46,26 @@ public:
         }
         l->set_name(std::move(name));
         l->set_prefix(prefix);
+        fusions_.reserve(layers_.size() + 1);
         layers_.push_back(std::move(l));
+        fusions_.push_back(fusion_with_previous());
         return *layers_.back();
     }
 
+    // A dense layer directly followed by an activation the tape fuses is
+    // recorded as one affine_activation node (one pass for bias and
+    // activation, one backward pass for their gradients) instead of matmul,
+    // add and the activation: the same values in the same order, so results
+    // and architecture records do not change.
     var<T> forward(tape<T>& t, var<T> x, run_mode mode) {
-        for (auto& l : layers_) x = l->forward(t, x, mode);
+        for (std::size_t i = 0; i < layers_.size(); ++i) {
+            if (i + 1 < layers_.size() && fusions_[i + 1].fused) {
+                x = static_cast<dense<T>&>(*layers_[i]).forward_activated(t, x, fusions_[i + 1].unit, fusions_[i + 1].coefficient);
+                ++i;
+                continue;
+            }
+            x = layers_[i]->forward(t, x, mode);
+        }
         return x;
     }
 
@@ -89,7 +104,36 @@ private:
         return l.kind();
     }
 
+    struct fusion {
+        bool fused = false;  // this activation layer runs inside the dense layer before it
+        op_kind unit = op_kind::input;
+        T coefficient = T(0);
+    };
+
+    // Exact types only: a class derived from dense or activation_layer may
+    // override forward(), which fusing would bypass.
+    fusion fusion_with_previous() const {
+        fusion f;
+        if (layers_.size() < 2) return f;
+        const layer<T>& previous = *layers_[layers_.size() - 2];
+        const layer<T>& last = *layers_.back();
+        if (typeid(previous) != typeid(dense<T>) || typeid(last) != typeid(activation_layer<T>)) return f;
+        const auto& a = static_cast<const activation_layer<T>&>(last);
+        switch (a.function()) {
+            case activation::relu: f.unit = op_kind::relu; break;
+            case activation::leaky_relu: f.unit = op_kind::leaky_relu; break;
+            case activation::elu: f.unit = op_kind::elu; break;
+            case activation::tanh: f.unit = op_kind::tanh; break;
+            case activation::sigmoid: f.unit = op_kind::sigmoid; break;
+            default: return f;
+        }
+        f.coefficient = static_cast<T>(a.coefficient());
+        f.fused = tape<T>::fusable_activation(f.unit, f.coefficient);
+        return f;
+    }
+
     std::vector<std::unique_ptr<layer<T>>> layers_;
+    std::vector<fusion> fusions_;  // one per layer, parallel to layers_
 };
 
 }  // namespace detail

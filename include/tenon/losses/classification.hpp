@@ -8,7 +8,9 @@
 // (the cross-entropy of the target distribution q against the softmax of the
 // logits; Bishop 2006, "Pattern Recognition and Machine Learning", eq. 4.108).
 // The target, its smoothing and the weights are folded into one constant
-// matrix Q, so the loss is -sum(log_softmax(z) * Q): three tape operations.
+// matrix Q, so the loss is -sum(log_softmax(z) * Q), recorded as one fused
+// tape node (tape::softmax_cross_entropy: per row the maximum, the sum of
+// exponentials and the loss; backward (sum_j Q_ij) softmax - Q).
 // The reduction and the weights follow loss_options.hpp.
 #pragma once
 
@@ -90,7 +92,7 @@ var<T> cross_entropy_loss(tape<T>& t, var<T> logits, const std::vector<std::size
         for (std::size_t j = 0; j < s.cols; ++j) row[j] = w * off;
         row[labels[i]] = w * ((T(1) - eps) + off);
     }
-    return -sum(log_softmax_rows(logits) * t.input(q));
+    return softmax_cross_entropy(logits, t.input(q));
 }
 
 /// Cross-entropy of softmax(logits) against target distributions (each row
@@ -128,7 +130,7 @@ var<T> cross_entropy_loss(tape<T>& t, var<T> logits, const matrix<T>& targets, c
             q.data()[i * s.cols + j] = wi * ((T(1) - eps) * targets.data()[i * s.cols + j] + off);
         }
     }
-    return -sum(log_softmax_rows(logits) * t.input(q));
+    return softmax_cross_entropy(logits, t.input(q));
 }
 
 /// Binary cross-entropy of sigmoid(logits) against targets in [0, 1] of the
