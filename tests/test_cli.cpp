@@ -206,7 +206,7 @@ TEST_CASE("tenon train --help explains every option with its default") {
     }
     for (const char* default_text : {"default auto", "default 0.7,0.15,0.15", "(default 64,32)", "(default relu)", "(default adam)",
                                      "default 0.001", "(default 200)", "(default 32)", "(default 15", "(default 1)", "default 1),",
-                                     "on one\n                         thread today"}) {
+                                     "the\n                         results are the same bits for every N"}) {
         CAPTURE(std::string(default_text));
         CHECK(r.out.find(default_text) != std::string::npos);
     }
@@ -471,6 +471,23 @@ TEST_CASE("the same seed gives the same metrics apart from timings; another seed
     const auto first = metrics("42", "a.json"), second = metrics("42", "b.json"), other = metrics("43", "c.json");
     CHECK(first == second);
     CHECK(first.at("history.0.train_loss") != other.at("history.0.train_loss"));
+}
+
+// 64 x 128 x 64 products are above the size gemm splits across threads.
+TEST_CASE("--threads splits the products across threads and gives the same metrics as one thread") {
+    scratch_dir dir("threads");
+    const auto path = dir.write("caps.csv", small_classification_csv(300));
+    auto metrics = [&](const std::string& threads, const std::string& name) {
+        const auto r = run({"train", "--data", path, "--target", "verdict", "--epochs", "10", "--hidden", "128,64", "--batch", "64",
+                            "--threads", threads, "--metrics", dir.file(name), "--quiet"});
+        REQUIRE(r.status == 0);
+        auto m = read_metrics(dir.file(name));
+        REQUIRE(m.erase("train_seconds") == 1);
+        return m;
+    };
+    const auto one = metrics("1", "one.json");
+    CHECK(one == metrics("2", "two.json"));
+    CHECK(one == metrics("3", "three.json"));
 }
 
 TEST_CASE("cross-validation reports the mean and spread over folds") {

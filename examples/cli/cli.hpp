@@ -442,8 +442,9 @@ Model and training
   --seed N               seeds the split, the initial weights and the batch
                          order (default 1). The same seed and data give the
                          same metrics on every run.
-  --threads N            accepted (N >= 1, default 1), but training runs on one
-                         thread today; results never depend on N.
+  --threads N            threads for the matrix products of training (N >= 1,
+                         default 1), each large product split across them; the
+                         results are the same bits for every N.
 
 Output
   --metrics OUT.json     write the metrics as JSON: task, rows (train, val, test,
@@ -717,6 +718,7 @@ inline tenon::model_settings make_settings(const train_request& q) {
     m.batch_size = q.batch;
     m.patience = q.patience;
     m.seed = q.seed;
+    m.threads = q.threads;
     return m;
 }
 
