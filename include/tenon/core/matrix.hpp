@@ -56,13 +56,18 @@ void ensure_shape(matrix<T>& m, shape2 s) {
         // allocation fails, the matrix would claim the new shape over its old
         // buffer, and the next call would see "same shape" and write past
         // it. Leave it empty instead (an empty matrix allocates nothing), so
-        // the next call allocates again.
+        // the next call allocates again. (Without exceptions a failed
+        // allocation ends the program, and there is nothing to repair.)
+#if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
         try {
             m.resize({s.rows, s.cols});
         } catch (...) {
             m = matrix<T>();
             throw;
         }
+#else
+        m.resize({s.rows, s.cols});
+#endif
     }
 }
 

@@ -820,12 +820,16 @@ public:
             // model with its buffers and the exception propagates.
             std::shared_ptr<const detail::compiled_model<T>> previous = std::move(local.model_);
             local.model_ = std::move(m);
+#if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
             try {
                 local.allocate();
             } catch (...) {
                 local.model_ = std::move(previous);
                 throw;
             }
+#else
+            local.allocate();
+#endif
         }
         local.generation_ = g;
         return true;
