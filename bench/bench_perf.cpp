@@ -184,7 +184,7 @@ struct step_fixture {
     }
     void step() {
         t.clear();
-        net.zero_grads();
+        net.clear_gradients();
         const auto y = net.forward(t, t.input(x));
         const auto loss = tenon::cross_entropy_loss(t, y, labels);
         t.backward(loss);

@@ -82,7 +82,7 @@ TEST_CASE_TEMPLATE("a training step of a 784-256-128-10 perceptron allocates not
         t.set_executor(&pool);
         auto step = [&] {
             t.clear();
-            net.zero_grads();
+            net.clear_gradients();
             const auto y = net.forward(t, t.input(x));
             const auto loss = tenon::cross_entropy_loss(t, y, labels);
             t.backward(loss);

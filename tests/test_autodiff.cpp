@@ -495,8 +495,8 @@ TEST_CASE_TEMPLATE("recording the same graph after clear() reuses every buffer",
     const matrix<T> first_grad = w.grad();
     CHECK(t.size() == 8);
     for (int step = 0; step < 3; ++step) {
-        w.zero_grad();
-        b.zero_grad();
+        w.clear_gradient();
+        b.clear_gradient();
         T loss = T(0);
         const auto again = record_step(t, w, b, x, loss);
         CHECK(again == first);  // same buffers, node by node
@@ -522,7 +522,7 @@ TEST_CASE_TEMPLATE("clear() empties the recording; watch() follows a resized par
     CHECK(p.grad()(2, 0) == T(6));
 }
 
-TEST_CASE_TEMPLATE("two backward passes without zero_grad add up", T, float, double) {
+TEST_CASE_TEMPLATE("two backward passes without clear_gradient add up", T, float, double) {
     tenon::parameter<T> w("w", make_matrix<T>({{T(0.5), T(-1)}}));
     tape<T> t;
     const auto loss = tenon::sum(tenon::square(t.watch(w)));  // d/dw = 2w
@@ -534,7 +534,7 @@ TEST_CASE_TEMPLATE("two backward passes without zero_grad add up", T, float, dou
     t.backward(tenon::sum(tenon::square(t.watch(w))));  // and a fresh recording
     CHECK(w.grad()(0, 0) == doctest::Approx(3.0));
     CHECK(w.grad()(0, 1) == doctest::Approx(-6.0));
-    w.zero_grad();
+    w.clear_gradient();
     CHECK(w.grad()(0, 1) == T(0));
 }
 
@@ -671,8 +671,8 @@ TEST_CASE_TEMPLATE("affine_activation gives the same bits as matmul, bias add an
         t.backward(tenon::sum(y1 * t.input(c)));
         const matrix<T> value_fused = y1.value(), x_fused = t.grad(x1), w_fused = w.grad(), b_fused = b.grad();
 
-        w.zero_grad();
-        b.zero_grad();
+        w.clear_gradient();
+        b.clear_gradient();
         tape<T> t2;
         const auto x2 = t2.variable(input);
         const auto y2 = unfused_activation(tenon::matmul(x2, t2.watch(w)) + t2.watch(b), u.unit, coefficient);

@@ -119,7 +119,7 @@ TEST_CASE("a 784-256-128-10 perceptron reaches 0.88 test accuracy on Fashion-MNI
     // The kept weights are those of the best epoch: the validation accuracy
     // recomputed now equals the one recorded for that epoch.
     double kept_loss = 0.0, kept_accuracy = 0.0;
-    trainer.evaluate(validation, kept_loss, kept_accuracy);
+    trainer.assess(validation, kept_loss, kept_accuracy);
     CHECK(kept_accuracy == doctest::Approx(outcome.history[outcome.best_epoch - 1].validation_metric));
 
     // The test images, scored once.

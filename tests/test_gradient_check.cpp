@@ -337,7 +337,7 @@ TEST_CASE("stop_gradient passes the value and no gradient") {
     for (std::size_t k = 0; k < 4; ++k) CHECK(x.grad().data()[k] == x.value().data()[k]);
 
     // Through stop_gradient alone nothing flows, and backward is harmless.
-    x.zero_grad();
+    x.clear_gradient();
     t.clear();
     const auto only = tenon::sum(tenon::exp(tenon::stop_gradient(t.watch(x))));
     CHECK_NOTHROW(t.backward(only));

@@ -498,7 +498,7 @@ TEST_CASE_TEMPLATE("network forward fuses dense + activation without changing va
         std::vector<matrix<T>> grads_fused;
         for (auto* p : net.parameters()) {
             grads_fused.push_back(p->grad());
-            p->zero_grad();
+            p->clear_gradient();
         }
 
         tenon::tape<T> apart;

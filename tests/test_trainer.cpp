@@ -105,7 +105,7 @@ TEST_CASE_TEMPLATE("early stopping stops after `patience` stale epochs and resto
     // The network now holds the best epoch's weights: its validation loss is
     // the best one recorded.
     double loss = 0, metric = 0;
-    tr.evaluate(val, loss, metric);
+    tr.assess(val, loss, metric);
     CHECK(loss == doctest::Approx(out.best_validation_loss).epsilon(1e-6));
     for (const auto& e : out.history) CHECK(e.validation_loss >= out.best_validation_loss);
 }
@@ -270,7 +270,7 @@ TEST_CASE("a classifier trained with cross-entropy separates two interleaved cla
     tenon::trainer<double> tr(net, rule, schedule, o);
     const auto out = tr.run(train, val);
     double loss = 0, accuracy = 0;
-    tr.evaluate(val, loss, accuracy);
+    tr.assess(val, loss, accuracy);
     CHECK(accuracy > 0.97);
     CHECK(out.best_epoch > 0);
 }

@@ -52,8 +52,8 @@ void minimize_rosenbrock(tenon::update_rule<T>& rule, const tenon::rate_schedule
     const std::vector<tenon::parameter<T>*> params = {&x, &y};
     for (std::uint64_t s = 0; s < steps; ++s) {
         t.clear();
-        x.zero_grad();
-        y.zero_grad();
+        x.clear_gradient();
+        y.clear_gradient();
         t.backward(rosenbrock(t, x, y));
         rule.apply(params, static_cast<T>(schedule.rate(s, 0)));
     }
@@ -235,7 +235,7 @@ TEST_CASE_TEMPLATE("a dense layer trained by gradient descent on L2 loss reaches
     tenon::tape<T> t;
     for (int step = 0; step < 3000; ++step) {
         t.clear();
-        for (auto* p : params) p->zero_grad();
+        for (auto* p : params) p->clear_gradient();
         t.backward(tenon::l2_loss(t, layer.forward(t, t.input(x), tenon::run_mode::training), y));
         rule.apply(params, T(0.2));
     }
@@ -269,7 +269,7 @@ TEST_CASE_TEMPLATE("a logistic model on linearly separable data reaches zero tra
     tenon::tape<T> t;
     for (int step = 0; step < 2000; ++step) {
         t.clear();
-        net.zero_grads();
+        net.clear_gradients();
         t.backward(tenon::binary_cross_entropy_loss(t, net.forward(t, x), y));
         rule.apply(net.parameters(), T(0.05));
     }
@@ -292,7 +292,7 @@ TEST_CASE_TEMPLATE("update rule state round-trips through bytes exactly", T, flo
         tenon::tape<T> t;
         auto step = [&](tenon::update_rule<T>& r) {
             t.clear();
-            net.zero_grads();
+            net.clear_gradients();
             t.backward(tenon::l2_loss(t, net.forward(t, x), y));
             r.apply(net.parameters(), T(0.05));
         };

@@ -389,7 +389,7 @@ Data
                          whose cells are numbers except for a few (under 10%)
                          is taken for a numeric column with typos: the first
                          bad cell is reported.
-  --target COLUMN        the column to predict (required). Rows whose target
+  --target COLUMN        the column the model learns (required). Rows whose target
                          is missing are left out and counted as dropped.
   --task auto|classify|regress
                          default auto: classify when the target column is not

@@ -46,7 +46,7 @@ template <class Build>
 gradient_check_report check_gradients(const std::vector<parameter<double>*>& params, Build&& build,
                                       const gradient_check_options& options = {}) {
     tape<double> t;
-    for (auto* p : params) p->zero_grad();
+    for (auto* p : params) p->clear_gradient();
     t.clear();
     t.backward(build(t));
 

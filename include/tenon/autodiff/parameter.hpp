@@ -36,11 +36,11 @@ public:
     matrix<T>& value() noexcept { return value_; }
     const matrix<T>& value() const noexcept { return value_; }
 
-    /// Accumulated gradient; backward passes add to it, zero_grad() clears it.
+    /// Accumulated gradient; backward passes add to it, clear_gradient() clears it.
     matrix<T>& grad() noexcept { return grad_; }
     const matrix<T>& grad() const noexcept { return grad_; }
 
-    void zero_grad() noexcept { std::fill(grad_.data(), grad_.data() + grad_.size(), T(0)); }
+    void clear_gradient() noexcept { std::fill(grad_.data(), grad_.data() + grad_.size(), T(0)); }
 
     /// Frozen parameters take part in the forward pass but receive no gradient.
     bool trainable() const noexcept { return trainable_; }

@@ -210,7 +210,7 @@ public:
         const shape2 s = p.shape();
         if (shape_of(p.grad()) != s) {
             ensure_shape(p.grad(), s);
-            p.zero_grad();
+            p.clear_gradient();
         }
         auto& n = push(op_kind::parameter, {}, 0, s, /*allocate_value=*/false);
         n.param = &p;

@@ -322,20 +322,20 @@ public:
     /// From a loaded model file (the plan and reference summaries come with it).
     explicit predictor(const model_file<T>& file, std::size_t capacity = 64) : capacity_(capacity) {
         network<T> net = rebuild_network(file);
-        model_ = compile(net, file.plan ? &*file.plan : nullptr, file.references);
+        model_ = build_program(net, file.plan ? &*file.plan : nullptr, file.references);
         allocate();
     }
     /// From a trainer's result (no reference summaries: nothing is flagged;
     /// build it from make_model_file(...) to get them).
     explicit predictor(fitted_model<T>& model, std::size_t capacity = 64) : capacity_(capacity) {
-        model_ = compile(model.net, &model.plan, {});
+        model_ = build_program(model.net, &model.plan, {});
         allocate();
     }
     /// From a network alone (prepared features in, network outputs out) or
     /// with a plan and references.
     predictor(network<T>& net, const measured_plan* plan, const std::vector<feature_reference>& references, std::size_t capacity = 64)
         : capacity_(capacity) {
-        model_ = compile(net, plan, references);
+        model_ = build_program(net, plan, references);
         allocate();
     }
 
@@ -510,7 +510,7 @@ private:
         if (!s.ok()) raise(s.code_text(), describe(s, rows, prepared));
     }
 
-    static std::shared_ptr<const model_type> compile(network<T>& net, const measured_plan* plan, const std::vector<feature_reference>& refs) {
+    static std::shared_ptr<const model_type> build_program(network<T>& net, const measured_plan* plan, const std::vector<feature_reference>& refs) {
         auto m = std::make_shared<model_type>();
         std::size_t width = 0;
         if (plan) {

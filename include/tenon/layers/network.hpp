@@ -266,8 +266,8 @@ public:
         raise(codes::model_unknown_parameter, "network: no parameter or state buffer is named '" + name + "'");
     }
 
-    void zero_grads() {
-        for (auto* p : parameters()) p->zero_grad();
+    void clear_gradients() {
+        for (auto* p : parameters()) p->clear_gradient();
     }
 
     /// Copies every parameter and state buffer into `out`, reusing its buffers.

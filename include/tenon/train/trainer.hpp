@@ -474,7 +474,7 @@ public:
             if (options_.team) average_state_buffers();
             if (validate) {
                 if (options_.team) evaluate_shared(validation_share, s.validation_loss, s.validation_metric);
-                else evaluate(validation, s.validation_loss, s.validation_metric);
+                else assess(validation, s.validation_loss, s.validation_metric);
                 schedule_.report_metric(s.validation_loss);
                 if (!std::isfinite(s.validation_loss)) {
                     net_.restore(epoch_start);
@@ -548,7 +548,7 @@ public:
 
     /// Loss and metric (accuracy, or RMSE in prepared units) of `rows` in
     /// inference mode.
-    void evaluate(const supervised_rows<T>& rows, double& loss, double& metric) {
+    void assess(const supervised_rows<T>& rows, double& loss, double& metric) {
         const matrix<T> outputs = network_outputs(net_, rows.features, 512, options_.workers);
         tape<T> t;
         const var<T> o = t.input(outputs);
@@ -593,7 +593,7 @@ private:
             // This member's positions: first + me, first + me + members, ...
             const std::size_t n = global_rows > me ? (global_rows - me + members - 1) / members : 0;
             batch_buffers& buf = n == options_.batch_size ? full_ : tail_;
-            for (auto* p : net_.parameters()) p->zero_grad();
+            for (auto* p : net_.parameters()) p->clear_gradient();
             double lv = 0.0;
             bool finite = true;
             if (n > 0) {  // only a team member can have no row of a short last batch
@@ -787,7 +787,7 @@ private:
     void evaluate_shared(const supervised_rows<T>& share, double& loss, double& metric) {
         double local_loss = 0.0, local_metric = 0.0;
         const std::size_t n = share.rows();
-        if (n > 0) evaluate(share, local_loss, local_metric);
+        if (n > 0) assess(share, local_loss, local_metric);
         const double w = batch_weight(share.labels, n);
         const bool classify = share.is_classification();
         const double values = static_cast<double>(n * (classify ? 1 : share.targets.shape()[1]));
