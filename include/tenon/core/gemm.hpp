@@ -614,7 +614,10 @@ void gemm(bool transpose_a, bool transpose_b, std::size_t m, std::size_t n, std:
         return;
     }
     const std::size_t threads = workers ? workers->concurrency() : 1;
-    if (threads <= 1 || m * n * k < detail::parallel_threshold) {
+    // The BLAS path is never split into bands: a BLAS may pick other kernels
+    // (and so other rounding) for smaller sub-products, which would make the
+    // result depend on the thread count. The BLAS threads itself instead.
+    if (threads <= 1 || path == kernel_path::blas || m * n * k < detail::parallel_threshold) {
         detail::gemm_band(g, path, detail::gemm_scratch<T>::for_this_thread());
         return;
     }
@@ -628,7 +631,7 @@ void gemm(bool transpose_a, bool transpose_b, std::size_t m, std::size_t n, std:
     split.scratch = bands.bands.data();
     split.path = path;
     split.by_rows = m > n;
-    split.unit = path == kernel_path::blas ? 16 : (split.by_rows ? detail::tile_rows<T>(path) : detail::tile_columns<T>(path));
+    split.unit = split.by_rows ? detail::tile_rows<T>(path) : detail::tile_columns<T>(path);
     split.units = ((split.by_rows ? m : n) + split.unit - 1) / split.unit;
     split.parts = std::min(threads, split.units);
     workers->run(split.parts, &detail::gemm_split<T>::run_part, &split);
