@@ -1,6 +1,6 @@
 // Tests of the kernel paths (core/simd.hpp, core/gemm.hpp), the thread pool
 // and executors (core/parallel.hpp), the tape's use of an executor, and the
-// vectorized Adam pass (update/rules.hpp).
+// vectorized Adam pass (update/rules.hpp) and elementwise loops (core/elementwise.hpp).
 #include <doctest/doctest.h>
 
 #include <algorithm>
@@ -13,6 +13,7 @@
 #include <vector>
 
 #include <tenon/autodiff/operations.hpp>
+#include <tenon/core/elementwise.hpp>
 #include <tenon/core/gemm.hpp>
 #include <tenon/core/parallel.hpp>
 #include <tenon/core/random.hpp>
@@ -264,8 +265,11 @@ TEST_CASE_TEMPLATE("the vectorized Adam pass is bit-identical to the scalar form
             tenon::ensure_shape(p.grad(), p.shape());
             for (std::size_t k = 0; k < 37; ++k) p.grad().data()[k] = rng.normal(T(0), T(0.2));
             rule.apply(params, lr);
-            const T c1 = static_cast<T>(1.0 - std::pow(static_cast<double>(settings.beta1), step));
-            const T c2 = static_cast<T>(1.0 - std::pow(static_cast<double>(settings.beta2), step));
+            // The reordered form of the paper's section 2 (end), as rules.hpp computes it.
+            const double c1 = 1.0 - std::pow(static_cast<double>(settings.beta1), step);
+            const double c2 = 1.0 - std::pow(static_cast<double>(settings.beta2), step);
+            const T rate = static_cast<T>(static_cast<double>(lr) * std::sqrt(c2) / c1);
+            const T epsilon = static_cast<T>(static_cast<double>(settings.epsilon) * std::sqrt(c2));
             const T decay = lr * settings.decoupled_weight_decay;
             for (std::size_t k = 0; k < 37; ++k) {
                 T g = p.grad().data()[k];
@@ -273,11 +277,70 @@ TEST_CASE_TEMPLATE("the vectorized Adam pass is bit-identical to the scalar form
                 g = g + options.weight_decay * w[k];
                 m[k] = settings.beta1 * m[k] + (T(1) - settings.beta1) * g;
                 v[k] = settings.beta2 * v[k] + (T(1) - settings.beta2) * g * g;
-                const T m_hat = m[k] / c1;
-                const T v_hat = v[k] / c2;
-                w[k] -= lr * m_hat / (std::sqrt(v_hat) + settings.epsilon) + decay * w[k];
+                w[k] -= rate * m[k] / (std::sqrt(v[k]) + epsilon) + decay * w[k];
             }
             CHECK(std::memcmp(w.data(), p.value().data(), 37 * sizeof(T)) == 0);
+        }
+    }
+}
+
+TEST_CASE_TEMPLATE("the vectorized elementwise loops give the plain loops' bits, special values included", T, float, double) {
+    // Lengths 0..70 cover no vector, whole vectors and every tail; the values
+    // include -0, +-inf, NaN, denormals and exact zeros.
+    const T inf = std::numeric_limits<T>::infinity(), nan = std::numeric_limits<T>::quiet_NaN();
+    const T specials[] = {T(0), -T(0), inf, -inf, nan, std::numeric_limits<T>::denorm_min(), T(-1e-30), T(3)};
+    tenon::random_engine rng(9);
+    const auto fill = [&](std::vector<T>& v) {
+        for (auto& x : v) x = rng.below(4) == 0 ? specials[rng.below(8)] : rng.normal(T(0), T(1));
+    };
+    // Equal bits, or both NaN: which NaN operand's payload an addition keeps
+    // is the compiler's choice (it may swap the operands of +).
+    const auto same_bits = [](const std::vector<T>& a, const std::vector<T>& b) {
+        if (a.size() != b.size()) return false;
+        for (std::size_t k = 0; k < a.size(); ++k)
+            if (std::memcmp(&a[k], &b[k], sizeof(T)) != 0 && !(std::isnan(a[k]) && std::isnan(b[k]))) return false;
+        return true;
+    };
+    for (std::size_t n = 0; n <= 70; ++n) {
+        CAPTURE(n);
+        std::vector<T> y(n), g(n), d(n), expected(n);
+        fill(y);
+        fill(g);
+        tenon::detail::relu_gradient(y.data(), g.data(), d.data(), n);
+        for (std::size_t k = 0; k < n; ++k) expected[k] = g[k] * (y[k] > T(0) ? T(1) : T(0));
+        CHECK(same_bits(d, expected));
+
+        const std::size_t rows = 3;
+        std::vector<T> o(rows * n), b(n), out, sums(n), expected_sums(n);
+        fill(o);
+        fill(b);
+        fill(sums);
+        expected_sums = sums;
+        out = o;
+        tenon::detail::bias_relu_rows(b.data(), out.data(), rows, n);
+        expected = o;
+        for (std::size_t i = 0; i < rows; ++i)
+            for (std::size_t j = 0; j < n; ++j) {
+                const T z = o[i * n + j] + b[j];
+                expected[i * n + j] = z > T(0) ? z : T(0);
+            }
+        CHECK(same_bits(out, expected));
+        tenon::detail::add_column_sums(o.data(), rows, n, sums.data());
+        for (std::size_t i = 0; i < rows; ++i)
+            for (std::size_t j = 0; j < n; ++j) expected_sums[j] += o[i * n + j];
+        CHECK(same_bits(sums, expected_sums));
+    }
+    // first_non_finite across the scan blocks (4096 elements) and their tails.
+    for (const std::size_t n : {std::size_t(1), std::size_t(4095), std::size_t(4096), std::size_t(10000)}) {
+        std::vector<T> v(n, T(1));
+        CHECK(tenon::detail::first_non_finite(v.data(), n) == n);
+        for (const std::size_t at : {std::size_t(0), n / 2, n - 1}) {
+            for (const T bad : {nan, inf, -inf}) {
+                std::fill(v.begin(), v.end(), T(-2));
+                v[at] = bad;
+                if (at + 1 < n) v[n - 1] = nan;  // a later one must not win
+                CHECK(tenon::detail::first_non_finite(v.data(), n) == at);
+            }
         }
     }
 }

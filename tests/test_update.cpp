@@ -3,6 +3,7 @@
 
 #include <cmath>
 #include <cstdint>
+#include <cstring>
 #include <memory>
 #include <string>
 #include <vector>
@@ -12,6 +13,7 @@
 #include <tenon/layers/network.hpp>
 #include <tenon/losses/classification.hpp>
 #include <tenon/losses/regression.hpp>
+#include <tenon/core/parallel.hpp>
 #include <tenon/update/rules.hpp>
 #include <tenon/update/schedules.hpp>
 
@@ -106,6 +108,70 @@ TEST_CASE_TEMPLATE("Adam's first step moves each weight by about the learning ra
     for (std::size_t k = 0; k < 4; ++k) CHECK(T(1) - w.value()(0, k) == doctest::Approx(static_cast<double>(lr * signs[k])).epsilon(1e-4));
     CHECK(std::string(rule.slot_name(1)) == "second_moment");
     CHECK(rule.slot(0, 0)(0, 0) == doctest::Approx(0.3));  // (1 - beta1) g
+}
+
+TEST_CASE_TEMPLATE("Adam's reordered step equals Algorithm 1 of Kingma & Ba 2015 within a few roundings", T, float, double) {
+    // rules.hpp computes lr sqrt(1 - b2^t) / (1 - b1^t) m / (sqrt(v) + eps sqrt(1 - b2^t)),
+    // the paper's own reordering (end of its section 2); here Algorithm 1 is
+    // written out literally in double for 200 steps of 64 weights with
+    // gradients spanning six decades, and the two trajectories compared.
+    const std::size_t n = 64;
+    tenon::parameter<T> p("w", tenon::shape2{1, n});
+    tenon::random_engine rng(11);
+    std::vector<double> w(n), m(n, 0.0), v(n, 0.0);
+    for (std::size_t k = 0; k < n; ++k) w[k] = static_cast<double>(p.value().data()[k] = rng.normal(T(0), T(1)));
+    tenon::adam<T> rule;
+    const double lr = 1e-3, b1 = 0.9, b2 = 0.999, eps = 1e-8;
+    double worst = 0.0;
+    for (int t = 1; t <= 200; ++t) {
+        for (std::size_t k = 0; k < n; ++k) {
+            const double scale = std::pow(10.0, static_cast<double>(k % 7) - 4.0);  // 1e-4 .. 1e2
+            p.grad().data()[k] = static_cast<T>(scale * (w[k] - 0.5) + scale * rng.normal(0.0, 0.1));
+        }
+        rule.apply({&p}, static_cast<T>(lr));
+        for (std::size_t k = 0; k < n; ++k) {
+            const double g = static_cast<double>(p.grad().data()[k]);
+            m[k] = b1 * m[k] + (1 - b1) * g;
+            v[k] = b2 * v[k] + (1 - b2) * g * g;
+            const double m_hat = m[k] / (1 - std::pow(b1, t)), v_hat = v[k] / (1 - std::pow(b2, t));
+            w[k] -= lr * m_hat / (std::sqrt(v_hat) + eps);
+            worst = std::max(worst, std::abs(w[k] - static_cast<double>(p.value().data()[k])));
+        }
+    }
+    // Each step moves a weight by at most about lr; the float trajectory
+    // carries about one rounding of the weight per step (200 steps, |w| < 3).
+    CHECK(worst < (sizeof(T) == 4 ? 200 * 3 * 6e-8 : 1e-12));
+}
+
+TEST_CASE_TEMPLATE("update rules give the same bits on one thread and on an executor's threads", T, float, double) {
+    // Parameters of 40,000 and 70 elements: several pieces and a short one.
+    const auto run = [](tenon::executor* workers, const char* which) {
+        tenon::parameter<T> a("a", tenon::shape2{200, 200}), b("b", tenon::shape2{1, 70});
+        tenon::random_engine rng(5);
+        for (auto* p : {&a, &b})
+            for (std::size_t k = 0; k < p->size(); ++k) p->value().data()[k] = rng.normal(T(0), T(1));
+        std::unique_ptr<tenon::update_rule<T>> rule;
+        if (std::string(which) == "adam") rule = std::make_unique<tenon::adam<T>>();
+        else if (std::string(which) == "rmsprop") rule = std::make_unique<tenon::rmsprop<T>>();
+        else if (std::string(which) == "adagrad") rule = std::make_unique<tenon::adagrad<T>>();
+        else rule = std::make_unique<tenon::momentum<T>>();
+        rule->set_executor(workers);
+        for (int step = 0; step < 4; ++step) {
+            for (auto* p : {&a, &b})
+                for (std::size_t k = 0; k < p->size(); ++k) p->grad().data()[k] = rng.normal(T(0), T(0.3));
+            rule->apply({&a, &b}, T(0.01));
+        }
+        std::vector<T> out(a.value().data(), a.value().data() + a.size());
+        out.insert(out.end(), b.value().data(), b.value().data() + b.size());
+        return out;
+    };
+    tenon::thread_pool pool(2);
+    for (const char* which : {"adam", "rmsprop", "adagrad", "momentum"}) {
+        CAPTURE(which);
+        const auto alone = run(nullptr, which), shared = run(&pool, which);
+        REQUIRE(alone.size() == shared.size());
+        CHECK(std::memcmp(alone.data(), shared.data(), alone.size() * sizeof(T)) == 0);
+    }
 }
 
 TEST_CASE_TEMPLATE("RMSprop, Adagrad and AdamW steps follow their formulas", T, float, double) {

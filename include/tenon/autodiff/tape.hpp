@@ -25,6 +25,7 @@
 
 #include "tenon/autodiff/custom_operation.hpp"
 #include "tenon/autodiff/parameter.hpp"
+#include "tenon/core/elementwise.hpp"
 #include "tenon/core/gemm.hpp"
 #include "tenon/core/matrix.hpp"
 
@@ -638,7 +639,7 @@ private:
                 gemm<T>(false, false, rows, cols, x.shape()[1], T(1), x.data(), x.shape()[1], w.data(), cols, T(0), o, cols, workers_);
                 const T* pb = n.input_count == 3 ? value_at(n.inputs[2]).data() : nullptr;
                 switch (n.unit) {
-                    case op_kind::relu: bias_map(pb, o, rows, cols, [](T z) { return z > T(0) ? z : T(0); }); return;
+                    case op_kind::relu: detail::bias_relu_rows(pb, o, rows, cols); return;
                     case op_kind::leaky_relu: { const T a = n.a; bias_map(pb, o, rows, cols, [a](T z) { return z > T(0) ? z : a * z; }); return; }
                     case op_kind::elu: { const T a = n.a; bias_map(pb, o, rows, cols, [a](T z) { return z > T(0) ? z : a * std::expm1(z); }); return; }
                     case op_kind::tanh: bias_map(pb, o, rows, cols, [](T z) { return std::tanh(z); }); return;
@@ -870,7 +871,7 @@ private:
                 const std::size_t size = rows * cols;
                 const T a = n.a;
                 switch (n.unit) {
-                    case op_kind::relu: derive(py, g, d, size, [](T y) { return y > T(0) ? T(1) : T(0); }); break;
+                    case op_kind::relu: detail::relu_gradient(py, g, d, size); break;
                     case op_kind::leaky_relu: derive(py, g, d, size, [a](T y) { return y > T(0) ? T(1) : a; }); break;
                     case op_kind::elu: derive(py, g, d, size, [a](T y) { return y > T(0) ? T(1) : y + a; }); break;
                     case op_kind::tanh: derive(py, g, d, size, [](T y) { return T(1) - y * y; }); break;
@@ -882,11 +883,7 @@ private:
                 matrix<T>* gw = grad_target(n.inputs[1]);
                 matrix<T>* gb = n.input_count == 3 ? grad_target(n.inputs[2]) : nullptr;
                 const std::size_t k = x.shape()[1];
-                if (gb) {
-                    T* pgb = gb->data();
-                    for (std::size_t i = 0; i < rows; ++i)
-                        for (std::size_t j = 0; j < cols; ++j) pgb[j] += d[i * cols + j];
-                }
+                if (gb) detail::add_column_sums(d, rows, cols, gb->data());
                 if (gx) gemm<T>(false, true, rows, k, cols, T(1), d, cols, w.data(), cols, T(1), gx->data(), k, workers_);
                 if (gw) gemm<T>(true, false, k, cols, rows, T(1), x.data(), k, d, cols, T(1), gw->data(), cols, workers_);
                 return;

@@ -51,7 +51,8 @@ namespace detail {
 // Vector operations for AVX-512F and AVX2. (The AVX-512 square root,
 // minimum and maximum are spelled as their all-lanes masked forms: GCC 12's
 // unmasked ones start from an "undefined" register that -Wmaybe-uninitialized
-// reports in the host's build.) Each is compiled for its
+// reports in the host's build.) select_positive(y, a) is a where y > 0 and
+// +0 elsewhere (NaN y included), lane by lane. Each is compiled for its
 // instruction set alone, so the host's flags need not enable it; they are
 // only called after kernel_path_available() said yes.
 template <class T>
@@ -72,6 +73,9 @@ struct avx512_ops<float> {
     TENON_TARGET_AVX512 static vector sqrt(vector a) noexcept { return _mm512_mask_sqrt_ps(a, static_cast<__mmask16>(0xFFFF), a); }
     TENON_TARGET_AVX512 static vector max(vector a, vector b) noexcept { return _mm512_mask_max_ps(a, static_cast<__mmask16>(0xFFFF), a, b); }
     TENON_TARGET_AVX512 static vector min(vector a, vector b) noexcept { return _mm512_mask_min_ps(a, static_cast<__mmask16>(0xFFFF), a, b); }
+    TENON_TARGET_AVX512 static vector select_positive(vector y, vector a) noexcept {
+        return _mm512_maskz_mov_ps(_mm512_cmp_ps_mask(y, _mm512_setzero_ps(), _CMP_GT_OQ), a);
+    }
 };
 template <>
 struct avx512_ops<double> {
@@ -89,6 +93,9 @@ struct avx512_ops<double> {
     TENON_TARGET_AVX512 static vector sqrt(vector a) noexcept { return _mm512_mask_sqrt_pd(a, static_cast<__mmask8>(0xFF), a); }
     TENON_TARGET_AVX512 static vector max(vector a, vector b) noexcept { return _mm512_mask_max_pd(a, static_cast<__mmask8>(0xFF), a, b); }
     TENON_TARGET_AVX512 static vector min(vector a, vector b) noexcept { return _mm512_mask_min_pd(a, static_cast<__mmask8>(0xFF), a, b); }
+    TENON_TARGET_AVX512 static vector select_positive(vector y, vector a) noexcept {
+        return _mm512_maskz_mov_pd(_mm512_cmp_pd_mask(y, _mm512_setzero_pd(), _CMP_GT_OQ), a);
+    }
 };
 template <class T>
 struct avx2_ops;
@@ -108,6 +115,9 @@ struct avx2_ops<float> {
     TENON_TARGET_AVX2 static vector sqrt(vector a) noexcept { return _mm256_sqrt_ps(a); }
     TENON_TARGET_AVX2 static vector max(vector a, vector b) noexcept { return _mm256_max_ps(a, b); }
     TENON_TARGET_AVX2 static vector min(vector a, vector b) noexcept { return _mm256_min_ps(a, b); }
+    TENON_TARGET_AVX2 static vector select_positive(vector y, vector a) noexcept {
+        return _mm256_and_ps(_mm256_cmp_ps(y, _mm256_setzero_ps(), _CMP_GT_OQ), a);
+    }
 };
 template <>
 struct avx2_ops<double> {
@@ -125,6 +135,9 @@ struct avx2_ops<double> {
     TENON_TARGET_AVX2 static vector sqrt(vector a) noexcept { return _mm256_sqrt_pd(a); }
     TENON_TARGET_AVX2 static vector max(vector a, vector b) noexcept { return _mm256_max_pd(a, b); }
     TENON_TARGET_AVX2 static vector min(vector a, vector b) noexcept { return _mm256_min_pd(a, b); }
+    TENON_TARGET_AVX2 static vector select_positive(vector y, vector a) noexcept {
+        return _mm256_and_pd(_mm256_cmp_pd(y, _mm256_setzero_pd(), _CMP_GT_OQ), a);
+    }
 };
 
 }  // namespace detail

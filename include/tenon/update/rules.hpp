@@ -20,6 +20,7 @@ public:
     const char* slot_name(std::size_t) const noexcept override { return ""; }
 
 protected:
+    bool treats_elements_independently() const noexcept override { return true; }
     void update_parameter(T* w, const T* g, T* const*, std::size_t n, T lr, const gradient_transform<T>& f) override {
         for (std::size_t k = 0; k < n; ++k) w[k] -= lr * f(g[k], w[k]);
     }
@@ -51,6 +52,7 @@ public:
     const momentum_options<T>& settings() const noexcept { return m_; }
 
 protected:
+    bool treats_elements_independently() const noexcept override { return true; }
     void update_parameter(T* w, const T* g, T* const* slots, std::size_t n, T lr, const gradient_transform<T>& f) override {
         T* v = slots[0];
         const T mu = m_.coefficient;
@@ -84,8 +86,8 @@ namespace detail {
 // number of elements done.
 #define TENON_ADAM_VECTOR_PASS(NAME, TARGET, OPS)                                                                       \
     template <class T>                                                                                                  \
-    TARGET TENON_NO_CONTRACTION std::size_t NAME(T* w, const T* g, T* m, T* v, std::size_t n, T lr, const gradient_transform<T>& f, T b1, T b2, \
-                            T eps, T decay, T correction1, T correction2) noexcept {                                    \
+    TARGET TENON_NO_CONTRACTION std::size_t NAME(T* w, const T* g, T* m, T* v, std::size_t n, const gradient_transform<T>& f, T b1, T b2, \
+                            T step_rate, T step_epsilon, T decay) noexcept {                                            \
         using ops = OPS<T>;                                                                                             \
         using vector = typename ops::vector;                                                                            \
         const vector norm_scale = ops::broadcast(f.norm_scale), weight_decay = ops::broadcast(f.weight_decay);          \
@@ -93,8 +95,7 @@ namespace detail {
         const bool clipping = f.clip_value > T(0);                                                                      \
         const vector vb1 = ops::broadcast(b1), vb2 = ops::broadcast(b2);                                                \
         const vector rest1 = ops::broadcast(T(1) - b1), rest2 = ops::broadcast(T(1) - b2);                              \
-        const vector c1 = ops::broadcast(correction1), c2 = ops::broadcast(correction2);                                \
-        const vector rate = ops::broadcast(lr), veps = ops::broadcast(eps), vdecay = ops::broadcast(decay);             \
+        const vector rate = ops::broadcast(step_rate), veps = ops::broadcast(step_epsilon), vdecay = ops::broadcast(decay); \
         std::size_t k = 0;                                                                                              \
         for (; k + ops::lanes <= n; k += ops::lanes) {                                                                  \
             const vector wk = ops::load(w + k);                                                                         \
@@ -106,8 +107,7 @@ namespace detail {
             const vector vk = ops::add(ops::mul(vb2, ops::load(v + k)), ops::mul(ops::mul(rest2, gk), gk));             \
             ops::store(m + k, mk);                                                                                      \
             ops::store(v + k, vk);                                                                                      \
-            const vector m_hat = ops::div(mk, c1), v_hat = ops::div(vk, c2);                                            \
-            const vector step = ops::div(ops::mul(rate, m_hat), ops::add(ops::sqrt(v_hat), veps));                      \
+            const vector step = ops::div(ops::mul(rate, mk), ops::add(ops::sqrt(vk), veps));                           \
             ops::store(w + k, ops::sub(wk, ops::add(step, ops::mul(vdecay, wk))));                                      \
         }                                                                                                               \
         return k;                                                                                                       \
@@ -133,7 +133,15 @@ struct adam_options {
 /// Adam (Kingma & Ba 2015, "Adam: A Method for Stochastic Optimization",
 /// Algorithm 1, with bias correction):
 ///   m <- b1 m + (1 - b1) g,   v <- b2 v + (1 - b2) g^2,
-///   w <- w - lr (m / (1 - b1^t)) / (sqrt(v / (1 - b2^t)) + eps).
+///   w <- w - lr (m / (1 - b1^t)) / (sqrt(v / (1 - b2^t)) + eps),
+/// computed in the reordered form the paper gives at the end of its
+/// section 2 (one division and one square root per weight instead of
+/// three divisions and a square root):
+///   lr_t = lr sqrt(1 - b2^t) / (1 - b1^t),  eps_t = eps sqrt(1 - b2^t),
+///   w <- w - lr_t m / (sqrt(v) + eps_t).
+/// The two forms are equal in exact arithmetic (multiply numerator and
+/// denominator by sqrt(1 - b2^t)); in floating point they differ by a few
+/// roundings (tests/test_update.cpp compares them).
 /// With decoupled_weight_decay = lambda this is AdamW (Loshchilov & Hutter
 /// 2019, "Decoupled Weight Decay Regularization", Algorithm 2, line 12):
 /// additionally w <- w - lr lambda w, with the decay outside the moments. The
@@ -158,26 +166,35 @@ protected:
     void update_parameter(T* w, const T* g, T* const* slots, std::size_t n, T lr, const gradient_transform<T>& f) override {
         T* m = slots[0];
         T* v = slots[1];
-        const double t = static_cast<double>(this->step_count());
-        const T correction1 = static_cast<T>(1.0 - std::pow(static_cast<double>(a_.beta1), t));
-        const T correction2 = static_cast<T>(1.0 - std::pow(static_cast<double>(a_.beta2), t));
-        const T b1 = a_.beta1, b2 = a_.beta2, eps = a_.epsilon, decay = lr * a_.decoupled_weight_decay;
+        const T b1 = a_.beta1, b2 = a_.beta2, decay = lr * a_.decoupled_weight_decay;
+        const T rate = step_rate(lr), epsilon = step_epsilon();
         std::size_t k = 0;
 #if TENON_SIMD_X86
         if (cpu_has_avx512f()) {
-            k = detail::adam_pass_avx512(w, g, m, v, n, lr, f, b1, b2, eps, decay, correction1, correction2);
+            k = detail::adam_pass_avx512(w, g, m, v, n, f, b1, b2, rate, epsilon, decay);
         } else if (cpu_has_avx2_fma()) {
-            k = detail::adam_pass_avx2(w, g, m, v, n, lr, f, b1, b2, eps, decay, correction1, correction2);
+            k = detail::adam_pass_avx2(w, g, m, v, n, f, b1, b2, rate, epsilon, decay);
         }
 #endif
         for (; k < n; ++k) {
             const T gk = f(g[k], w[k]);
             m[k] = b1 * m[k] + (T(1) - b1) * gk;
             v[k] = b2 * v[k] + (T(1) - b2) * gk * gk;
-            const T m_hat = m[k] / correction1;
-            const T v_hat = v[k] / correction2;
-            w[k] -= lr * m_hat / (std::sqrt(v_hat) + eps) + decay * w[k];
+            w[k] -= rate * m[k] / (std::sqrt(v[k]) + epsilon) + decay * w[k];
         }
+    }
+    bool treats_elements_independently() const noexcept override { return true; }
+
+public:
+    /// lr_t and eps_t of the current step (see above), rounded once from double.
+    T step_rate(T lr) const noexcept {
+        const double t = static_cast<double>(this->step_count());
+        const double c1 = 1.0 - std::pow(static_cast<double>(a_.beta1), t), c2 = 1.0 - std::pow(static_cast<double>(a_.beta2), t);
+        return static_cast<T>(static_cast<double>(lr) * std::sqrt(c2) / c1);
+    }
+    T step_epsilon() const noexcept {
+        const double c2 = 1.0 - std::pow(static_cast<double>(a_.beta2), static_cast<double>(this->step_count()));
+        return static_cast<T>(static_cast<double>(a_.epsilon) * std::sqrt(c2));
     }
 
 private:
@@ -222,6 +239,7 @@ public:
     const char* slot_name(std::size_t) const noexcept override { return "mean_square"; }
 
 protected:
+    bool treats_elements_independently() const noexcept override { return true; }
     void update_parameter(T* w, const T* g, T* const* slots, std::size_t n, T lr, const gradient_transform<T>& f) override {
         T* s = slots[0];
         const T rho = r_.decay;
@@ -254,6 +272,7 @@ public:
     const char* slot_name(std::size_t) const noexcept override { return "sum_of_squares"; }
 
 protected:
+    bool treats_elements_independently() const noexcept override { return true; }
     void update_parameter(T* w, const T* g, T* const* slots, std::size_t n, T lr, const gradient_transform<T>& f) override {
         T* s = slots[0];
         for (std::size_t k = 0; k < n; ++k) {

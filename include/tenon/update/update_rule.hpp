@@ -21,9 +21,19 @@
 // model.update.state_mismatch (reset() forgets the state). save_state()
 // gives bytes from which load_state() restores the state bit for bit, so a
 // run resumed from them continues exactly as the uninterrupted one.
+//
+// Threads: with set_executor(), a rule whose update treats every element on
+// its own (every rule in rules.hpp) splits the parameters into pieces of
+// piece_elements values and updates the pieces on the executor's threads.
+// Each element still goes through the same operations, so the weights are
+// bit-identical for any thread count. A rule of the host's that couples
+// elements (e.g. a per-layer norm) keeps the default
+// treats_elements_independently() = false and is always run in one piece
+// per parameter on the calling thread.
 #pragma once
 
 #include <algorithm>
+#include <atomic>
 #include <cmath>
 #include <cstddef>
 #include <cstdint>
@@ -31,6 +41,7 @@
 #include <vector>
 
 #include "tenon/autodiff/parameter.hpp"
+#include "tenon/core/parallel.hpp"
 #include "tenon/layers/bytes.hpp"
 
 TENON_NAMESPACE_BEGIN
@@ -101,6 +112,19 @@ public:
             if (norm > limit) transform.norm_scale = static_cast<T>(limit / norm);
         }
         ++step_;
+        if (workers_ && workers_->concurrency() > 1 && treats_elements_independently()) {
+            // Pieces of every trainable parameter, claimed by the executor's threads.
+            pieces_.clear();  // keeps its capacity: no allocation after the first step
+            for (std::size_t i = 0; i < params.size(); ++i) {
+                if (!params[i]->trainable()) continue;
+                for (std::size_t first = 0; first < params[i]->size(); first += piece_elements)
+                    pieces_.push_back(piece{i, first, std::min(params[i]->size(), first + piece_elements)});
+            }
+            piece_run run{this, &params, learning_rate, transform};
+            workers_->run(pieces_.size(), &update_rule::run_piece, &run);
+            if (run.failed) raise(codes::invalid_argument, std::string(kind()) + " update rule: a piece of the update failed");
+            return;
+        }
         T* slots[max_slots] = {};
         for (std::size_t i = 0; i < params.size(); ++i) {
             parameter<T>& p = *params[i];
@@ -109,6 +133,13 @@ public:
             update_parameter(p.value().data(), p.grad().data(), slots, p.size(), learning_rate, transform);
         }
     }
+
+    /// Runs later apply() calls on these workers (nullptr: the calling thread
+    /// alone); see "Threads" at the top of this file. Must outlive its use.
+    void set_executor(executor* workers) noexcept { workers_ = workers; }
+    executor* workers() const noexcept { return workers_; }
+    /// Elements per piece when apply() runs on several threads.
+    static constexpr std::size_t piece_elements = 16384;
 
     /// Number of apply() calls since construction, reset() or the loaded state.
     std::uint64_t step_count() const noexcept { return step_; }
@@ -221,7 +252,38 @@ protected:
     virtual void update_parameter(T* w, const T* g, T* const* slots, std::size_t n, T learning_rate,
                                   const gradient_transform<T>& transform) = 0;
 
+    /// Whether update_parameter() may be called on any part of a parameter
+    /// (elements [first, last) with the matching parts of its slots) with the
+    /// same result per element; true lets apply() use several threads.
+    virtual bool treats_elements_independently() const noexcept { return false; }
+
 private:
+    struct piece {
+        std::size_t parameter_index, first, last;
+    };
+    struct piece_run {
+        update_rule* rule;
+        const std::vector<parameter<T>*>* params;
+        T learning_rate;
+        gradient_transform<T> transform;
+        std::atomic<bool> failed{false};
+    };
+    static void run_piece(void* context, std::size_t index) noexcept {
+        auto& r = *static_cast<piece_run*>(context);
+        const piece& c = r.rule->pieces_[index];
+        parameter<T>& p = *(*r.params)[c.parameter_index];
+        T* slots[max_slots] = {};
+        for (std::size_t s = 0; s < r.rule->slot_count_; ++s)
+            slots[s] = r.rule->slots_[c.parameter_index * r.rule->slot_count_ + s].data() + c.first;
+        // Executor tasks must not throw; the built-in rules never do.
+        try {
+            r.rule->update_parameter(p.value().data() + c.first, p.grad().data() + c.first, slots, c.last - c.first, r.learning_rate,
+                                     r.transform);
+        } catch (...) {
+            r.failed.store(true, std::memory_order_relaxed);
+        }
+    }
+
     void prepare(const std::vector<parameter<T>*>& params) {
         if (!laid_out_) {
             // Laid out aside and committed at once: an allocation failure
@@ -262,6 +324,8 @@ private:
     std::vector<shape2> shapes_;
     std::vector<matrix<T>> slots_;
     bool laid_out_ = false;
+    executor* workers_ = nullptr;
+    std::vector<piece> pieces_;
 };
 
 TENON_NAMESPACE_END
