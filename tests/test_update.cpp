@@ -4,6 +4,7 @@
 #include <cmath>
 #include <cstdint>
 #include <cstring>
+#include <limits>
 #include <memory>
 #include <string>
 #include <vector>
@@ -171,6 +172,31 @@ TEST_CASE_TEMPLATE("update rules give the same bits on one thread and on an exec
         const auto alone = run(nullptr, which), shared = run(&pool, which);
         REQUIRE(alone.size() == shared.size());
         CHECK(std::memcmp(alone.data(), shared.data(), alone.size() * sizeof(T)) == 0);
+    }
+}
+
+TEST_CASE_TEMPLATE("apply_and_check tells whether every gradient was finite, from Adam's own pass or a scan", T, float, double) {
+    // 37 elements: whole vectors of every width and a scalar tail; the bad
+    // element sits in a vector, in the tail, or nowhere.
+    const T inf = std::numeric_limits<T>::infinity(), nan = std::numeric_limits<T>::quiet_NaN();
+    for (const bool scanning_rule : {true, false}) {
+        for (const std::size_t at : {std::size_t(3), std::size_t(36), std::size_t(99)}) {
+            for (const T bad : {nan, inf, -inf}) {
+                CAPTURE(scanning_rule);
+                CAPTURE(at);
+                tenon::parameter<T> p("w", tenon::shape2{1, 37}), frozen("f", tenon::shape2{1, 5});
+                for (std::size_t k = 0; k < 37; ++k) p.grad().data()[k] = T(0.1) * static_cast<T>(k);
+                if (at < 37) p.grad().data()[at] = bad;
+                frozen.grad().fill(nan);  // frozen parameters are neither updated nor looked at
+                frozen.set_trainable(false);
+                std::unique_ptr<tenon::update_rule<T>> rule;
+                if (scanning_rule) rule = std::make_unique<tenon::adam<T>>();
+                else rule = std::make_unique<tenon::rmsprop<T>>();
+                const bool finite = rule->apply_and_check({&p, &frozen}, T(0.01));
+                CHECK(finite == (at >= 37));
+                if (!scanning_rule && at < 37) CHECK(p.value()(0, 0) == T(0));  // the scan comes first: nothing moved
+            }
+        }
     }
 }
 

@@ -201,6 +201,17 @@ public:
     var<T> input(const matrix<T>& m) { return leaf(op_kind::input, m.data(), shape_of(m)); }
     /// Records a constant from a row-major buffer of rows x cols values.
     var<T> input(const T* data, std::size_t rows, std::size_t cols) { return leaf(op_kind::input, data, {rows, cols}); }
+    /// Records a constant of shape `s` whose row-major values `write(T* data)`
+    /// stores into the tape's own buffer, e.g. a mini-batch gathered from
+    /// shuffled rows straight into place instead of gathered and then copied.
+    /// `write` must store all s.rows * s.cols values.
+    template <class Writer>
+    var<T> input_from(shape2 s, Writer&& write) {
+        auto& n = push(op_kind::input, nullptr, 0, s);
+        write(n.value.data());
+        n.needs_grad = false;
+        return finish(n);
+    }
     /// Records a leaf that receives a gradient (read it with grad()).
     var<T> variable(const matrix<T>& m) { return leaf(op_kind::variable, m.data(), shape_of(m)); }
     /// A 1x1 constant.

@@ -87,7 +87,7 @@ namespace detail {
 #define TENON_ADAM_VECTOR_PASS(NAME, TARGET, OPS)                                                                       \
     template <class T>                                                                                                  \
     TARGET TENON_NO_CONTRACTION std::size_t NAME(T* w, const T* g, T* m, T* v, std::size_t n, const gradient_transform<T>& f, T b1, T b2, \
-                            T step_rate, T step_epsilon, T decay) noexcept {                                            \
+                            T step_rate, T step_epsilon, T decay, bool& finite) noexcept {                              \
         using ops = OPS<T>;                                                                                             \
         using vector = typename ops::vector;                                                                            \
         const vector norm_scale = ops::broadcast(f.norm_scale), weight_decay = ops::broadcast(f.weight_decay);          \
@@ -96,10 +96,14 @@ namespace detail {
         const vector vb1 = ops::broadcast(b1), vb2 = ops::broadcast(b2);                                                \
         const vector rest1 = ops::broadcast(T(1) - b1), rest2 = ops::broadcast(T(1) - b2);                              \
         const vector rate = ops::broadcast(step_rate), veps = ops::broadcast(step_epsilon), vdecay = ops::broadcast(decay); \
+        const vector zero = ops::zero();                                                                                \
+        vector scan = ops::zero(); /* sums raw g * 0: NaN once a raw gradient is not finite */                          \
         std::size_t k = 0;                                                                                              \
         for (; k + ops::lanes <= n; k += ops::lanes) {                                                                  \
             const vector wk = ops::load(w + k);                                                                         \
-            vector gk = ops::mul(ops::load(g + k), norm_scale);                                                         \
+            const vector raw = ops::load(g + k);                                                                        \
+            scan = ops::add(scan, ops::mul(raw, zero));                                                                 \
+            vector gk = ops::mul(raw, norm_scale);                                                                      \
             /* std::min(std::max(g, -c), c), NaN passing through as there */                                            \
             if (clipping) gk = ops::min(high, ops::max(low, gk));                                                       \
             gk = ops::add(gk, ops::mul(weight_decay, wk));                                                              \
@@ -110,6 +114,9 @@ namespace detail {
             const vector step = ops::div(ops::mul(rate, mk), ops::add(ops::sqrt(vk), veps));                           \
             ops::store(w + k, ops::sub(wk, ops::add(step, ops::mul(vdecay, wk))));                                      \
         }                                                                                                               \
+        T lanes[ops::lanes];                                                                                            \
+        ops::store(lanes, scan);                                                                                        \
+        for (std::size_t l = 0; l < ops::lanes; ++l) finite = finite && lanes[l] == lanes[l];                           \
         return k;                                                                                                       \
     }
 TENON_ADAM_VECTOR_PASS(adam_pass_avx512, TENON_TARGET_AVX512, avx512_ops)
@@ -169,21 +176,25 @@ protected:
         const T b1 = a_.beta1, b2 = a_.beta2, decay = lr * a_.decoupled_weight_decay;
         const T rate = step_rate(lr), epsilon = step_epsilon();
         std::size_t k = 0;
+        bool finite = true;
 #if TENON_SIMD_X86
         if (cpu_has_avx512f()) {
-            k = detail::adam_pass_avx512(w, g, m, v, n, f, b1, b2, rate, epsilon, decay);
+            k = detail::adam_pass_avx512(w, g, m, v, n, f, b1, b2, rate, epsilon, decay, finite);
         } else if (cpu_has_avx2_fma()) {
-            k = detail::adam_pass_avx2(w, g, m, v, n, f, b1, b2, rate, epsilon, decay);
+            k = detail::adam_pass_avx2(w, g, m, v, n, f, b1, b2, rate, epsilon, decay, finite);
         }
 #endif
         for (; k < n; ++k) {
+            finite = finite && std::isfinite(g[k]);
             const T gk = f(g[k], w[k]);
             m[k] = b1 * m[k] + (T(1) - b1) * gk;
             v[k] = b2 * v[k] + (T(1) - b2) * gk * gk;
             w[k] -= rate * m[k] / (std::sqrt(v[k]) + epsilon) + decay * w[k];
         }
+        if (!finite) this->note_non_finite_gradient();
     }
     bool treats_elements_independently() const noexcept override { return true; }
+    bool scans_gradients_in_pass() const noexcept override { return true; }
 
 public:
     /// lr_t and eps_t of the current step (see above), rounded once from double.

@@ -30,6 +30,16 @@
 // elements (e.g. a per-layer norm) keeps the default
 // treats_elements_independently() = false and is always run in one piece
 // per parameter on the calling thread.
+//
+// Subnormal numbers: updates run with subnormals flushed to zero
+// (core/simd.hpp, flush_subnormals_scope), on every thread that runs a piece.
+// A moment, velocity or weight smaller in magnitude than the smallest normal
+// number (about 1.2e-38 in float, 2.2e-308 in double) becomes 0; against
+// Adam's epsilon (1e-8) such a value changes no step, and it spares the
+// microcode assists that made Fashion-MNIST epochs after the second one
+// about 25% slower (the first moment of a weight whose gradient stays 0
+// decays by beta1 = 0.9 per step and reaches the subnormal range after
+// about 800 steps).
 #pragma once
 
 #include <algorithm>
@@ -41,7 +51,9 @@
 #include <vector>
 
 #include "tenon/autodiff/parameter.hpp"
+#include "tenon/core/elementwise.hpp"
 #include "tenon/core/parallel.hpp"
+#include "tenon/core/simd.hpp"
 #include "tenon/layers/bytes.hpp"
 
 TENON_NAMESPACE_BEGIN
@@ -112,6 +124,7 @@ public:
             if (norm > limit) transform.norm_scale = static_cast<T>(limit / norm);
         }
         ++step_;
+        const flush_subnormals_scope flush;
         if (workers_ && workers_->concurrency() > 1 && treats_elements_independently()) {
             // Pieces of every trainable parameter, claimed by the executor's threads.
             pieces_.clear();  // keeps its capacity: no allocation after the first step
@@ -132,6 +145,25 @@ public:
             for (std::size_t s = 0; s < slot_count_; ++s) slots[s] = slots_[i * slot_count_ + s].data();
             update_parameter(p.value().data(), p.grad().data(), slots, p.size(), learning_rate, transform);
         }
+    }
+
+    /// apply(), also telling whether every trainable gradient was finite
+    /// (no NaN, no infinity). A rule that looks at each gradient element in
+    /// its own pass (adam, adamw) finds out there, without reading the
+    /// gradients a second time; for the others the gradients are scanned
+    /// first. When this returns false the update may have been applied in
+    /// part: the weights and the rule's state must be restored from a
+    /// snapshot (the trainer's divergence guard does).
+    bool apply_and_check(const std::vector<parameter<T>*>& params, T learning_rate) {
+        if (!scans_gradients_in_pass()) {
+            for (const auto* p : params)
+                if (p->trainable() && detail::first_non_finite(p->grad().data(), p->grad().size()) != p->grad().size()) return false;
+            apply(params, learning_rate);
+            return true;
+        }
+        non_finite_seen_.store(false, std::memory_order_relaxed);
+        apply(params, learning_rate);
+        return !non_finite_seen_.load(std::memory_order_relaxed);
     }
 
     /// Runs later apply() calls on these workers (nullptr: the calling thread
@@ -257,6 +289,13 @@ protected:
     /// same result per element; true lets apply() use several threads.
     virtual bool treats_elements_independently() const noexcept { return false; }
 
+    /// Whether update_parameter() calls note_non_finite_gradient() when a
+    /// raw gradient element (before the transform) is NaN or infinite.
+    virtual bool scans_gradients_in_pass() const noexcept { return false; }
+    /// For update_parameter(): a raw gradient element was not finite (safe
+    /// from several threads at once).
+    void note_non_finite_gradient() noexcept { non_finite_seen_.store(true, std::memory_order_relaxed); }
+
 private:
     struct piece {
         std::size_t parameter_index, first, last;
@@ -275,6 +314,7 @@ private:
         T* slots[max_slots] = {};
         for (std::size_t s = 0; s < r.rule->slot_count_; ++s)
             slots[s] = r.rule->slots_[c.parameter_index * r.rule->slot_count_ + s].data() + c.first;
+        const flush_subnormals_scope flush;  // this thread's mode, as on the calling thread
         // Executor tasks must not throw; the built-in rules never do.
         try {
             r.rule->update_parameter(p.value().data() + c.first, p.grad().data() + c.first, slots, c.last - c.first, r.learning_rate,
@@ -326,6 +366,7 @@ private:
     bool laid_out_ = false;
     executor* workers_ = nullptr;
     std::vector<piece> pieces_;
+    std::atomic<bool> non_finite_seen_{false};
 };
 
 TENON_NAMESPACE_END
