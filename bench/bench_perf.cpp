@@ -12,6 +12,9 @@
 //                   batches of 128, then the 6,000 validation images) vs the
 //                   same epoch's products alone in OpenBLAS; built-in kernel
 //                   and BLAS backend
+//   tool            the same epoch through `tenon train --threads N` (run in
+//                   process; its metrics' train_seconds per epoch) vs the
+//                   same products alone in OpenBLAS
 //   predict         an 8-32-32-1 network, one prepared row per call: p50,
 //                   p99 and maximum latency over 200,000 calls
 //   z-score         z-scoring a 200,000 x 16 float matrix vs memcpy of it
@@ -28,7 +31,9 @@
 #include <cstdio>
 #include <cstdlib>
 #include <cstring>
+#include <filesystem>
 #include <fstream>
+#include <iterator>
 #include <map>
 #include <memory>
 #include <sstream>
@@ -36,6 +41,8 @@
 #include <vector>
 
 #include <cblas.h>
+
+#include "cli.hpp"  // examples/cli: the tool's logic, run in process
 
 #include <tenon/core/gemm.hpp>
 #include <tenon/core/parallel.hpp>
@@ -314,6 +321,73 @@ void fashion_epoch_openblas_products(benchmark::State& state) {
 BENCHMARK(fashion_epoch_openblas_products)->ArgNames({"threads"})->Arg(1)->Arg(2)->Iterations(3)->UseRealTime()->Unit(benchmark::kMillisecond);
 
 // ---------------------------------------------------------------------------
+// The same epoch through the command-line tool: `tenon train --threads N` on
+// all 70,000 Fashion-MNIST images written as CSV (784 pixel columns and the
+// label), split 54,000 / 6,000 / 10,000 (stratified: 5,400 / 600 / 1,000 per
+// class) so training and validation match the epoch above, 784-256-128-10 relu,
+// Adam 0.001, batch 128, three epochs without early stopping. The time is the
+// metrics file's train_seconds (training with validation; reading and
+// preparing excluded) divided by the epochs: args (path, threads).
+
+const std::string& fashion_csv() {
+    static const std::string path = [] {
+        const std::string file = (std::filesystem::temp_directory_path() / "tenon_bench_fashion_70000.csv").string();
+        std::string text;
+        text.reserve(160u << 20);
+        for (int c = 0; c < 784; ++c) text += "p" + std::to_string(c) + ",";
+        text += "label\n";
+        char cell[32];
+        for (const char* part : {"train", "t10k"}) {
+            const std::string prefix = fashion_folder + part;
+            const auto labels = tenon::idx_labels(tenon::read_idx_gzip_file(prefix + "-labels-idx1-ubyte.gz"));
+            const auto images = tenon::idx_images<float>(tenon::read_idx_gzip_file(prefix + "-images-idx3-ubyte.gz"));
+            for (std::size_t i = 0; i < labels.size(); ++i) {
+                for (std::size_t c = 0; c < 784; ++c) {
+                    const int length = std::snprintf(cell, sizeof cell, "%g,", static_cast<double>(images.data()[i * 784 + c]));
+                    text.append(cell, static_cast<std::size_t>(length));
+                }
+                text += "c" + std::to_string(labels[i]) + "\n";
+            }
+        }
+        std::ofstream(file, std::ios::binary) << text;
+        return file;
+    }();
+    return path;
+}
+
+double number_after(const std::string& text, const std::string& key) {
+    const auto at = text.find("\"" + key + "\"");
+    if (at == std::string::npos) return 0.0;
+    return std::strtod(text.c_str() + text.find(':', at) + 1, nullptr);
+}
+
+void cli_train_epoch(benchmark::State& state) {
+    use_threads(state.range(0), state.range(1));
+    const std::string metrics = (std::filesystem::temp_directory_path() / "tenon_bench_fashion_metrics.json").string();
+    const std::string threads = std::to_string(state.range(1));
+    std::vector<std::string> args = {"tenon", "train", "--data", fashion_csv(), "--target", "label", "--hidden", "256,128",
+                                     "--batch", "128", "--epochs", "3", "--patience", "0", "--fractions", "0.7714285714285714,0.0857142857142857,0.1428571428571429",
+                                     "--learning-rate", "0.001", "--threads", threads, "--metrics", metrics};
+    std::vector<char*> argv;
+    for (auto& a : args) argv.push_back(a.data());
+    for (auto _ : state) {
+        std::ostringstream out, err;
+        const int status = tenon_cli::run_cli(static_cast<int>(argv.size()), argv.data(), out, err, tenon_cli::cli_environment{});
+        if (status != 0) {
+            state.SkipWithError(("tenon train failed: " + err.str()).c_str());
+            break;
+        }
+        std::ifstream in(metrics);
+        const std::string text((std::istreambuf_iterator<char>(in)), std::istreambuf_iterator<char>());
+        const double epochs = number_after(text, "epochs_run");
+        state.SetIterationTime(epochs > 0 ? number_after(text, "train_seconds") / epochs : 0.0);
+    }
+    openblas_set_num_threads(1);
+    state.SetLabel(tenon::kernel_path_name(tenon::active_kernel_path()));
+}
+BENCHMARK(cli_train_epoch)->ArgNames({"path", "threads"})->ArgsProduct({{0, 1}, {1, 2}})->Iterations(1)->UseManualTime()->Unit(benchmark::kMillisecond);
+
+// ---------------------------------------------------------------------------
 // Single-row prediction with an 8-32-32-1 network (an invented press line:
 // eight sensor channels and the resulting force).
 
@@ -470,6 +544,8 @@ public:
                       get("fashion_epoch_openblas_products/" + th), path == 0 ? "[<= 2.0]" : "[<= 1.3]");
                 std::printf("   Fashion-MNIST epoch (%s): %.3f s; its products in OpenBLAS: %.3f s\n", name, get("fashion_epoch/" + key),
                             get("fashion_epoch_openblas_products/" + th));
+                ratio(std::string("tenon train --threads ") + std::to_string(threads) + " (" + name + "): train_seconds per epoch / products",
+                      get("cli_train_epoch/" + key), get("fashion_epoch_openblas_products/" + th), path == 0 ? "[<= 2.0]" : "[<= 1.3]");
             }
         }
         std::printf("-- prediction, 8-32-32-1, one prepared row: p50 %.0f ns [<= 500], p99 %.0f ns (%.2f x p50) [<= 3 x], max %.0f ns "
