@@ -344,3 +344,13 @@ TEST_CASE_TEMPLATE("the vectorized elementwise loops give the plain loops' bits,
         }
     }
 }
+
+TEST_CASE("set_blas_threads: refused for 0 threads and without a BLAS that takes a thread count") {
+    CHECK_FALSE(tenon::set_blas_threads(0));
+    // A build without the tenon::blas component has no BLAS to ask.
+    if (!tenon::kernel_path_available(tenon::kernel_path::blas)) CHECK_FALSE(tenon::set_blas_threads(1));
+#if TENON_GEMM_BLAS_THREADS
+    // With OpenBLAS linked (Debian's libopenblas) the call is taken.
+    if (tenon::set_blas_threads(2)) CHECK(tenon::set_blas_threads(1));
+#endif
+}

@@ -77,6 +77,15 @@
 #define TENON_GEMM_BLAS 0
 #endif
 
+#if TENON_GEMM_BLAS && (defined(__GNUC__) || defined(__clang__)) && defined(__ELF__)
+// OpenBLAS's thread-count call, declared weak: null when the linked BLAS
+// (reference BLAS, BLIS, ...) has no such function.
+extern "C" void openblas_set_num_threads(int) __attribute__((weak));
+#define TENON_GEMM_BLAS_THREADS 1
+#else
+#define TENON_GEMM_BLAS_THREADS 0
+#endif
+
 #define TENON_GEMM_X86 TENON_SIMD_X86
 
 TENON_NAMESPACE_BEGIN
@@ -142,6 +151,23 @@ inline void set_kernel_path(kernel_path p) {
                                                                    : "(the CPU or compiler lacks its instructions)"));
     }
     detail::kernel_path_slot().store(static_cast<std::uint8_t>(p), std::memory_order_relaxed);
+}
+
+/// Asks the BLAS of the BLAS path to run each product on `threads` threads
+/// (tenon never splits a BLAS call across its own executor, see gemm()).
+/// Returns true when the linked BLAS offers a way to say so (OpenBLAS);
+/// false when it does not or the build has no BLAS: its own settings (e.g.
+/// an environment variable it reads) decide. Process-wide, like the BLAS's
+/// own setting; the host's choice, never called by tenon itself.
+inline bool set_blas_threads(std::size_t threads) noexcept {
+#if TENON_GEMM_BLAS_THREADS
+    if (threads == 0 || threads > static_cast<std::size_t>(INT_MAX) || !openblas_set_num_threads) return false;
+    openblas_set_num_threads(static_cast<int>(threads));
+    return true;
+#else
+    (void)threads;
+    return false;
+#endif
 }
 
 namespace detail {
