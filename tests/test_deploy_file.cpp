@@ -263,7 +263,10 @@ TEST_CASE("lengths and counts are checked against the limits and the bytes befor
 
 TEST_CASE("weights that do not fit the architecture are refused when the network is rebuilt") {
     auto m = small_model_file<float>(false);
-    m.weights[0].values = tenon::matrix<float>({2, 2});
+    // The same number of values, transposed: only the per-weight check sees it.
+    const auto s = tenon::shape_of(m.weights[0].values);
+    REQUIRE(s.rows != s.cols);
+    m.weights[0].values = tenon::matrix<float>({s.cols, s.rows});
     const auto back = tenon::model_file_from_bytes<float>(tenon::model_file_to_bytes(m));
     CHECK_THROWS_WITH_AS(tenon::rebuild_network(back), doctest::Contains("hidden1.weights"), tenon::error);
     try {
@@ -271,6 +274,30 @@ TEST_CASE("weights that do not fit the architecture are refused when the network
     } catch (const tenon::error& e) {
         CHECK(e.code() == "deploy.model.shape_mismatch");
     }
+}
+
+TEST_CASE("an architecture declaring more weights than the file stores is refused before anything is allocated") {
+    // A dense layer of 2^31 x 2^31 inputs and outputs (2^62 values, 16 EiB
+    // in float) beside the small model's weights: rebuilt naively it would
+    // ask the allocator for all of it.
+    auto m = small_model_file<float>(false);
+    tenon::layer_record huge;
+    huge.kind = "dense";
+    huge.name = "hidden1";
+    huge.set_number("inputs", 2147483648.0).set_number("outputs", 2147483648.0).set_number("bias", 1.0);
+    m.architecture.children.at(0) = huge;
+    try {
+        tenon::rebuild_network(m);
+        FAIL("the architecture was accepted");
+    } catch (const tenon::error& e) {
+        CHECK(e.code() == "deploy.model.shape_mismatch");
+        // 2^62 + 2^31 values of the huge layer, and the other layers' few.
+        CHECK(std::string(e.what()).find("the architecture declares 461168602057487") != std::string::npos);
+    }
+    // Past 2^64 the count saturates and says so.
+    huge.set_number("inputs", 9007199254740991.0).set_number("outputs", 9007199254740991.0);
+    m.architecture.children.at(0) = huge;
+    CHECK_THROWS_WITH_AS(tenon::rebuild_network(m), doctest::Contains("more than 2^64"), tenon::error);
 }
 
 TEST_CASE("loading a file that does not exist names it") {

@@ -29,6 +29,7 @@
 #include <cstddef>
 #include <cstdint>
 #include <cstring>
+#include <limits>
 #include <optional>
 #include <string>
 #include <utility>
@@ -832,6 +833,16 @@ model_file<T> capture_network(network<T>& net) {
 /// and deploy.model.malformed when the architecture cannot be built.
 template <class T>
 network<T> rebuild_network(const model_file<T>& m) {
+    // Counted first, so a damaged architecture cannot ask for more memory
+    // than the weights stored beside it take.
+    std::size_t stored = 0;
+    for (const auto& w : m.weights) stored += w.values.size();
+    const std::size_t declared = detail::parse_section("model file architecture", [&] { return record_value_count(m.architecture); });
+    if (declared != stored)
+        raise(codes::deploy_shape_mismatch, "model file: the architecture declares " +
+                                                (declared == std::numeric_limits<std::size_t>::max() ? std::string("more than 2^64")
+                                                                                                     : std::to_string(declared)) +
+                                                " weight values, the file stores " + std::to_string(stored));
     network<T> net = detail::parse_section("model file architecture", [&] { return make_network<T>(m.architecture); });
     const auto& params = net.parameters();
     const auto& state = net.state_buffers();

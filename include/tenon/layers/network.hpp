@@ -10,6 +10,7 @@
 #pragma once
 
 #include <cstdint>
+#include <limits>
 #include <memory>
 #include <string>
 #include <type_traits>
@@ -347,6 +348,23 @@ std::unique_ptr<layer<T>> make_layer(const layer_record& r) {
     }
     l->set_name(r.name);
     return l;
+}
+
+/// The values (weights, biases, state buffers) the layers of record `r` would
+/// hold, counted without building them; saturates at SIZE_MAX. A reader can
+/// compare a stored architecture with the weights stored beside it before
+/// allocating anything (a damaged or crafted record may declare layers of
+/// any size).
+inline std::size_t record_value_count(const layer_record& r) {
+    constexpr std::size_t most = std::numeric_limits<std::size_t>::max();
+    const auto add = [](std::size_t a, std::size_t b) { return a > most - b ? most : a + b; };
+    const auto mul = [](std::size_t a, std::size_t b) { return a != 0 && b > most / a ? most : a * b; };
+    if (r.kind == "dense") return add(mul(r.count("inputs"), r.count("outputs")), r.number("bias") != 0.0 ? r.count("outputs") : 0);
+    if (r.kind == "layer_norm") return mul(2, r.count("width"));  // gain, bias
+    if (r.kind == "batch_norm") return mul(4, r.count("width"));  // gain, bias, running mean and variance
+    std::size_t total = 0;  // network and residual: their children; activation and dropout hold none
+    for (const auto& c : r.children) total = add(total, record_value_count(c));
+    return total;
 }
 
 /// Rebuilds a network from the record network::describe() gave.
