@@ -21,66 +21,26 @@
 #include <string>
 #include <vector>
 
-#include <cli/cli.hpp>
+#include "cli_test_support.hpp"
 
 namespace fs = std::filesystem;
 
 namespace {
 
-struct cli_result {
-    int status = -1;
-    std::string out, err;
-};
+using cli_test::cli_result;
 
 cli_result run(std::vector<std::string> args, std::function<double()> clock = {}) {
-    args.insert(args.begin(), "tenon");
-    std::vector<char*> argv;
-    for (auto& a : args) argv.push_back(a.data());
-    std::ostringstream out, err;
     tenon_cli::cli_environment env;
     env.clock = std::move(clock);
-    cli_result r;
-    r.status = tenon_cli::run_cli(static_cast<int>(argv.size()), argv.data(), out, err, env);
-    r.out = out.str();
-    r.err = err.str();
-    return r;
+    return cli_test::run_tool(std::move(args), env);
 }
 
 // A fresh, empty directory per test case.
-class scratch_dir {
-public:
-    explicit scratch_dir(const std::string& name) : path_(fs::temp_directory_path() / ("tenon_cli_retrain_tests_" + name)) {
-        fs::remove_all(path_);
-        fs::create_directories(path_);
-    }
-    ~scratch_dir() {
-        std::error_code ec;
-        fs::remove_all(path_, ec);
-    }
-    scratch_dir(const scratch_dir&) = delete;
-    scratch_dir& operator=(const scratch_dir&) = delete;
-    std::string file(const std::string& name) const { return (path_ / name).string(); }
-    std::string write(const std::string& name, const std::string& content) const {
-        std::ofstream(file(name), std::ios::binary) << content;
-        return file(name);
-    }
-    std::vector<std::string> listing() const {
-        std::vector<std::string> names;
-        for (const auto& e : fs::directory_iterator(path_)) names.push_back(e.path().filename().string());
-        std::sort(names.begin(), names.end());
-        return names;
-    }
-
-private:
-    fs::path path_;
+struct scratch_dir : cli_test::scratch_dir {
+    explicit scratch_dir(const std::string& name) : cli_test::scratch_dir("tenon_cli_retrain_tests_", name) {}
 };
 
-std::string read_file(const std::string& path) {
-    std::ifstream in(path, std::ios::binary);
-    std::ostringstream s;
-    s << in.rdbuf();
-    return s.str();
-}
+using cli_test::read_file;
 
 // A minimal JSON reader: flattens every scalar into "path.to.key" -> its
 // text ("null" for null; array items by index).
