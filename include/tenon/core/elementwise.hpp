@@ -90,6 +90,16 @@ inline int elementwise_level() noexcept {
     } while (false)
 #endif
 
+/// A hint that the cache line holding `p` will be read soon (no effect on
+/// results; nothing where the compiler offers no such hint).
+inline void prefetch_for_reading(const void* p) noexcept {
+#if defined(__GNUC__) || defined(__clang__)
+    __builtin_prefetch(p, 0, 3);
+#else
+    (void)p;
+#endif
+}
+
 /// Index of the first element of p[0, n) that is NaN or infinite; n if none.
 template <class T>
 std::size_t first_non_finite(const T* p, std::size_t n) noexcept {
