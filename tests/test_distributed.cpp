@@ -8,6 +8,10 @@
 #include <atomic>
 #include <cmath>
 #include <cstdio>
+#include <cstring>
+#include <functional>
+#include <limits>
+#include <numeric>
 #include <string>
 #include <vector>
 
@@ -16,6 +20,7 @@
 #include <tenon/distributed/data_parallel.hpp>
 #include <tenon/distributed/plan_merge.hpp>
 #include <tenon/prep/csv.hpp>
+#include <tenon/train/workflow.hpp>
 #include <tenon/update/rules.hpp>
 #include <tenon/update/schedules.hpp>
 
@@ -231,8 +236,9 @@ TEST_CASE("ranks that train on different rows refuse together: train.team.mismat
 namespace {
 
 // A packaging line's log as CSV: rows [0, n) dealt to `rank` of `ranks`
-// (all rows for ranks == 1). Only the last rank's shard holds the die
-// "wide" and the class 7, so only a union finds them; some cells are missing.
+// (all rows for ranks == 1, and for rank == ranks: the union of the ranks'
+// shards). Only the last rank's shard holds the die "wide" and the class 7,
+// so only a union finds them; some cells are missing.
 std::string line_log(std::size_t n, std::size_t rank, std::size_t ranks, bool extra_column = false) {
     tenon::random_engine rng(77);
     std::ostringstream csv;
@@ -243,7 +249,7 @@ std::string line_log(std::size_t n, std::size_t rank, std::size_t ranks, bool ex
         const double speed = rng.uniform(1.0, 9.0), temperature = rng.normal(60.0, 8.0), load = rng.uniform(0.0, 1.0) * 1e3;
         const std::size_t die = static_cast<std::size_t>(rng.uniform(0.0, 3.0)) % 3;
         const bool last = i % ranks == ranks - 1;
-        if (i % ranks != rank) continue;
+        if (rank < ranks && i % ranks != rank) continue;
         csv << speed << "," << (i % 11 == 3 ? std::string("NA") : std::to_string(temperature)) << "," << load << ","
             << (last && i % 13 == 5 ? "wide" : i % 17 == 2 ? "NA" : dies[die]) << "," << (last && i % 19 == 4 ? 7 : static_cast<int>(i % 3))
             << (extra_column ? ",x" : "") << "\n";
@@ -324,6 +330,309 @@ TEST_CASE("the ring-allreduce model: 2 (p - 1) / p of the bytes per rank, 2 (p -
     CHECK(tenon::ring_allreduce_seconds(64, 1e6, 0.0, 1e9) == doctest::Approx(2e-3 * 63.0 / 64.0));
     CHECK(tenon::ring_allreduce_seconds(8, 0.0, 1e-6, 1e9) == doctest::Approx(14e-6));
     CHECK(tenon::ring_allreduce_seconds(1, 1e6, 1e-6, 1e9) == 0.0);
+}
+
+namespace {
+
+// Rows `first`, `first + 1`, ..., `first + count - 1` of `d`.
+template <class T>
+tenon::supervised_rows<T> row_block(const tenon::supervised_rows<T>& d, std::size_t first, std::size_t count) {
+    tenon::supervised_rows<T> out;
+    out.class_count = d.class_count;
+    const std::size_t inputs = d.features.shape()[1];
+    out.features = tenon::matrix<T>({count, inputs});
+    std::copy(d.features.data() + first * inputs, d.features.data() + (first + count) * inputs, out.features.data());
+    if (d.is_classification()) {
+        out.labels.assign(d.labels.begin() + static_cast<std::ptrdiff_t>(first), d.labels.begin() + static_cast<std::ptrdiff_t>(first + count));
+    } else {
+        const std::size_t outs = d.targets.shape()[1];
+        out.targets = tenon::matrix<T>({count, outs});
+        std::copy(d.targets.data() + first * outs, d.targets.data() + (first + count) * outs, out.targets.data());
+    }
+    return out;
+}
+
+// Rows `rows` of `d`, in that order.
+template <class T>
+tenon::supervised_rows<T> rows_of(const tenon::supervised_rows<T>& d, const std::vector<std::size_t>& rows) {
+    tenon::supervised_rows<T> out;
+    out.class_count = d.class_count;
+    const std::size_t inputs = d.features.shape()[1];
+    out.features = tenon::matrix<T>({rows.size(), inputs});
+    const std::size_t outs = d.is_classification() ? 0 : d.targets.shape()[1];
+    if (!d.is_classification()) out.targets = tenon::matrix<T>({rows.size(), outs});
+    for (std::size_t i = 0; i < rows.size(); ++i) {
+        std::copy(d.features.data() + rows[i] * inputs, d.features.data() + (rows[i] + 1) * inputs, out.features.data() + i * inputs);
+        if (d.is_classification()) out.labels.push_back(d.labels[rows[i]]);
+        else std::copy(d.targets.data() + rows[i] * outs, d.targets.data() + (rows[i] + 1) * outs, out.targets.data() + i * outs);
+    }
+    return out;
+}
+
+// Shards of unequal sizes: rank r holds a block of sizes[r % 4] rows.
+struct shard_layout {
+    std::vector<std::size_t> first, size;
+    std::size_t total = 0;
+};
+
+shard_layout layout_of(std::size_t ranks, const std::vector<std::size_t>& sizes) {
+    shard_layout l;
+    for (std::size_t r = 0; r < ranks; ++r) {
+        l.first.push_back(l.total);
+        l.size.push_back(sizes[r % sizes.size()]);
+        l.total += l.size.back();
+    }
+    return l;
+}
+
+// The order in which one process meets the team's rows without shuffling:
+// step k holds rank 0's rows [k b, (k + 1) b) of its shard, then rank 1's, ...
+std::vector<std::size_t> interleaved_batches(const shard_layout& l, std::size_t batch) {
+    std::vector<std::size_t> order;
+    for (std::size_t k = 0; order.size() < l.total; ++k)
+        for (std::size_t r = 0; r < l.first.size(); ++r)
+            for (std::size_t i = k * batch; i < std::min((k + 1) * batch, l.size[r]); ++i) order.push_back(l.first[r] + i);
+    return order;
+}
+
+std::string code_of(const std::function<void()>& f) {
+    try {
+        f();
+    } catch (const tenon::error& e) {
+        return e.code();
+    }
+    return "none";
+}
+
+}  // namespace
+
+TEST_CASE_TEMPLATE("shards without shuffling: p ranks with batch b train the weights of one process with batch b x p on the interleaved batches",
+                   T, float, double) {
+    const std::size_t p = world().size(), r = world().rank(), batch = 8;
+    // Shards of 45, 40, 48 and 42 rows: 6 steps per epoch, and in the last
+    // step rank 1 has no row left (5 + 0 (+ 8 + 2) rows in the global batch).
+    const shard_layout train_layout = layout_of(p, {45, 40, 48, 42});
+    const shard_layout validation_layout = layout_of(p, {7, 0, 5, 3});  // rank 1 validates nothing itself
+    const auto all_train = press_rows<T>(train_layout.total, 11);
+    const auto all_validation = press_rows<T>(validation_layout.total, 12);
+    const auto my_train = row_block(all_train, train_layout.first[r], train_layout.size[r]);
+    const auto my_validation = row_block(all_validation, validation_layout.first[r], validation_layout.size[r]);
+
+    auto team_net = tenon::make_mlp<T>({3, 16, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 7);
+    auto alone_net = tenon::make_mlp<T>({3, 16, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 7);
+    tenon::mpi_team team(world());
+    tenon::training_options<T> o;
+    o.shuffle = false;
+    o.member_rows = tenon::team_rows::shard_per_member;
+    std::vector<std::size_t> batches_seen;
+    o.on_batch = [&](const tenon::batch_progress& b) {
+        if (b.batch == 1) batches_seen.push_back(b.batches);
+    };
+    const run_result shared = train_once(team_net, my_train, my_validation, batch, 5, &team, o);
+    tenon::training_options<T> alone_options;
+    alone_options.shuffle = false;
+    const run_result alone = train_once(alone_net, rows_of(all_train, interleaved_batches(train_layout, batch)), all_validation, batch * p, 5,
+                                        nullptr, alone_options);
+
+    REQUIRE(shared.checksums_agree.size() == 5);
+    for (auto agree : shared.checksums_agree) CHECK(agree == 1);  // identical bits on every rank after every epoch
+    for (auto b : batches_seen) CHECK(b == 6);                    // the largest shard's batch count
+    CHECK(shared.outcome.steps == 5 * 6);
+    CHECK(alone.outcome.steps == shared.outcome.steps);
+    const double tolerance = (sizeof(T) == 4 ? 2e-4 : 1e-10) * std::max(1.0, largest_weight(alone_net));
+    const double difference = max_difference(team_net, alone_net);
+    CHECK(difference <= tolerance);
+    if (r == 0)
+        std::printf("shard equivalence (%s, %zu ranks, batch 8 x %zu, shards %zu..%zu rows, no shuffling): max weight difference %.3g\n",
+                    sizeof(T) == 4 ? "float" : "double", p, p, *std::min_element(train_layout.size.begin(), train_layout.size.end()),
+                    *std::max_element(train_layout.size.begin(), train_layout.size.end()), difference);
+    for (std::size_t e = 0; e < alone.outcome.history.size(); ++e) {
+        CHECK(shared.outcome.history[e].train_loss == doctest::Approx(alone.outcome.history[e].train_loss).epsilon(1e-4));
+        CHECK(shared.outcome.history[e].validation_loss == doctest::Approx(alone.outcome.history[e].validation_loss).epsilon(1e-4));
+        CHECK(shared.outcome.history[e].validation_metric == doctest::Approx(alone.outcome.history[e].validation_metric).epsilon(1e-4));
+    }
+}
+
+TEST_CASE("shards with shuffling: every rank holds the same bits every epoch, a rerun gives the same bits, each rank shuffles its own way") {
+    using T = double;
+    const std::size_t p = world().size(), r = world().rank();
+    const shard_layout layout = layout_of(p, {50, 50, 50, 50});
+    const auto all_train = press_rows<T>(layout.total, 13);
+    const auto my_train = row_block(all_train, layout.first[r], layout.size[r]);
+    tenon::mpi_team team(world());
+    const auto run = [&](bool shuffle, std::vector<std::size_t>* order) {
+        auto net = tenon::make_mlp<T>({3, 10, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 8);
+        tenon::adam<T> rule;
+        tenon::constant_rate schedule(0.01);
+        tenon::training_options<T> o;
+        o.epochs = 4;
+        o.batch_size = 6;
+        o.seed = 42;
+        o.patience = 0;
+        o.shuffle = shuffle;
+        o.member_rows = tenon::team_rows::shard_per_member;
+        o.team = &team;
+        std::size_t agreed = 0;
+        o.on_epoch = [&](const tenon::epoch_summary&) {
+            agreed += tenon::weights_agree(net, world()) ? 1 : 0;
+            return true;
+        };
+        tenon::trainer<T> tr(net, rule, schedule, o);
+        tr.run(my_train, {});
+        CHECK(agreed == 4);
+        if (order) *order = tr.progress().order;
+        return tenon::weights_checksum(net);
+    };
+    std::vector<std::size_t> order;
+    const std::uint64_t first = run(true, &order), second = run(true, nullptr), unshuffled = run(false, nullptr);
+    CHECK(first == second);
+    CHECK(first != unshuffled);
+    std::vector<std::size_t> identity(order.size());
+    std::iota(identity.begin(), identity.end(), std::size_t(0));
+    CHECK(order != identity);
+    // Equal shard sizes, other streams: no two ranks draw the same permutation.
+    std::vector<std::uint8_t> bytes(order.size() * sizeof(std::size_t));
+    std::memcpy(bytes.data(), order.data(), bytes.size());
+    const auto everyone = world().gather_all(bytes);
+    for (std::size_t other = 0; other < p; ++other)
+        if (other != r) CHECK(everyone[other] != bytes);
+}
+
+TEST_CASE("shards: a run resumed from each rank's own progress continues as the uninterrupted run, bit for bit") {
+    using T = float;
+    const std::size_t p = world().size(), r = world().rank();
+    const shard_layout layout = layout_of(p, {37, 30, 41, 33});
+    const auto all_train = press_rows<T>(layout.total, 14);
+    const auto my_train = row_block(all_train, layout.first[r], layout.size[r]);
+    tenon::mpi_team team(world());
+    const auto options = [&](std::size_t epochs) {
+        tenon::training_options<T> o;
+        o.epochs = epochs;
+        o.batch_size = 5;
+        o.seed = 3;
+        o.patience = 0;
+        o.member_rows = tenon::team_rows::shard_per_member;
+        o.team = &team;
+        return o;
+    };
+    auto whole_net = tenon::make_mlp<T>({3, 8, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 9);
+    tenon::adam<T> whole_rule;
+    tenon::constant_rate whole_schedule(0.01);
+    tenon::trainer<T>(whole_net, whole_rule, whole_schedule, options(4)).run(my_train, {});
+
+    auto net = tenon::make_mlp<T>({3, 8, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 9);
+    tenon::adam<T> rule;
+    tenon::constant_rate schedule(0.01);
+    tenon::trainer<T> part(net, rule, schedule, options(2));
+    part.run(my_train, {});
+    const tenon::training_progress<T> progress = part.progress();
+    CHECK(progress.order.size() == my_train.rows());
+    tenon::training_options<T> rest = options(4);
+    rest.resume = &progress;
+    const auto out = tenon::trainer<T>(net, rule, schedule, rest).run(my_train, {});
+    CHECK(out.history.size() == 4);
+    CHECK(tenon::weights_checksum(net) == tenon::weights_checksum(whole_net));
+    CHECK(tenon::weights_agree(net, world()));
+}
+
+TEST_CASE("a rank whose own rows fail the checks stops every rank before a step: its error there, train.team.member_failed on the others") {
+    using T = float;
+    if (world().size() < 2) return;
+    const std::size_t r = world().rank(), last = world().size() - 1;
+    auto rows = press_rows<T>(40, 15 + r);
+    if (r == last) rows.features(7, 1) = std::numeric_limits<T>::quiet_NaN();  // only the last rank's shard is bad
+    auto net = tenon::make_mlp<T>({3, 4, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 6);
+    const std::uint64_t before = tenon::weights_checksum(net);
+    tenon::mpi_team team(world());
+    tenon::training_options<T> o;
+    o.member_rows = tenon::team_rows::shard_per_member;
+    const std::string code = code_of([&] { train_once(net, rows, {}, 8, 2, &team, o); });
+    CHECK(code == (r == last ? "train.input.non_finite" : "train.team.member_failed"));
+    CHECK(tenon::weights_checksum(net) == before);
+    // The message names the failed member.
+    if (r != last) {
+        const std::string named = "team member " + std::to_string(last) + " of";
+        CHECK_THROWS_WITH_AS(train_once(net, rows, {}, 8, 2, &team, o), doctest::Contains(named.c_str()), tenon::error);
+    } else {
+        CHECK_THROWS_AS(train_once(net, rows, {}, 8, 2, &team, o), tenon::error);
+    }
+}
+
+TEST_CASE("ranks that disagree on row holding, shuffling or epochs refuse together: train.team.mismatch") {
+    using T = float;
+    if (world().size() < 2) return;
+    const bool first = world().rank() == 0;
+    const auto rows = press_rows<T>(60, 16);
+    auto net = tenon::make_mlp<T>({3, 4, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 6);
+    tenon::mpi_team team(world());
+    tenon::training_options<T> holding;
+    holding.member_rows = first ? tenon::team_rows::shard_per_member : tenon::team_rows::all_on_every_member;
+    CHECK_THROWS_WITH_AS(train_once(net, rows, {}, 8, 2, &team, holding), doctest::Contains("row holding"), tenon::error);
+    tenon::training_options<T> shuffling;
+    shuffling.member_rows = tenon::team_rows::shard_per_member;
+    shuffling.shuffle = first;
+    CHECK(code_of([&] { train_once(net, rows, {}, 8, 2, &team, shuffling); }) == "train.team.mismatch");
+    tenon::training_options<T> same;
+    same.member_rows = tenon::team_rows::shard_per_member;
+    CHECK(code_of([&] { train_once(net, rows, {}, 8, first ? 3 : 2, &team, same); }) == "train.team.mismatch");
+    CHECK(code_of([&] { train_once(net, rows, {}, 8, 2, &team, same); }) == "none");  // shards may differ in size and content
+}
+
+TEST_CASE("fit_model with shards: each rank prepares only its own table's rows, and the model equals one process's with batch b x p") {
+    using T = double;
+    const std::size_t p = world().size(), n = 301;
+    // Rank r's table holds the log's rows r, r + p, ...: all it ever reads.
+    const tenon::table mine = table_of(line_log(n, world().rank(), p));
+    const tenon::table all = table_of(line_log(n, p, p));
+    tenon::mpi_team team(world());
+    tenon::mpi_statistics_exchange exchange(world());
+    tenon::model_settings s;
+    s.hidden = {12};
+    s.epochs = 4;
+    s.batch_size = 6;
+    s.patience = 0;
+    s.seed = 5;
+    s.shuffle = false;
+    s.learning_rate = 0.01;
+    tenon::model_settings shared = s;
+    shared.team = &team;
+    shared.member_rows = tenon::team_rows::shard_per_member;
+    CHECK(code_of([&] { tenon::fit_model<T>(mine, line_plan(), tenon::all_rows(mine.row_count()), {}, shared); }) == "train.option.invalid");
+    shared.exchange = &exchange;
+    // The last tenth of each shard validates.
+    const std::size_t own = mine.row_count(), own_validation = own / 10;
+    std::vector<std::size_t> train_rows(own - own_validation), validation_rows(own_validation);
+    std::iota(train_rows.begin(), train_rows.end(), std::size_t(0));
+    std::iota(validation_rows.begin(), validation_rows.end(), own - own_validation);
+    std::size_t steps_per_epoch = 0;
+    shared.on_batch = [&](const tenon::batch_progress& b) { steps_per_epoch = b.batches; };
+    auto team_model = tenon::fit_model<T>(mine, line_plan(), train_rows, validation_rows, shared);
+    std::uint64_t largest_shard_steps[1] = {(train_rows.size() + 5) / 6};
+    world().maximum(largest_shard_steps, 1);
+    CHECK(steps_per_epoch == largest_shard_steps[0]);
+    CHECK(tenon::weights_agree(team_model.net, world()));
+
+    // One process: the same rows of the whole log, in the log's order (the
+    // ranks' batch k together are the log's training rows [6 k p, 6 (k + 1) p)).
+    std::vector<std::size_t> all_train, all_validation;
+    for (std::size_t q = 0; q < p; ++q) {
+        const std::size_t rows_q = (n - q + p - 1) / p, validation_q = rows_q / 10;
+        for (std::size_t i = 0; i < rows_q - validation_q; ++i) all_train.push_back(q + i * p);
+        for (std::size_t i = rows_q - validation_q; i < rows_q; ++i) all_validation.push_back(q + i * p);
+    }
+    std::sort(all_train.begin(), all_train.end());
+    std::sort(all_validation.begin(), all_validation.end());
+    s.batch_size = 6 * p;
+    auto alone_model = tenon::fit_model<T>(all, line_plan(), all_train, all_validation, s);
+    CHECK(team_model.train_rows == all_train.size());
+    CHECK(team_model.validation_rows == all_validation.size());
+    CHECK(team_model.plan.feature_names() == alone_model.plan.feature_names());
+    CHECK(team_model.plan.class_names() == alone_model.plan.class_names());
+    const double difference = max_difference(team_model.net, alone_model.net);
+    CHECK(difference <= 1e-9 * std::max(1.0, largest_weight(alone_model.net)));
+    if (world().rank() == 0)
+        std::printf("fit_model with shards (%zu ranks, %zu training rows on rank 0 of %zu) vs one process: max weight difference %.3g\n", p,
+                    train_rows.size(), all_train.size(), difference);
 }
 
 int main(int argc, char** argv) {

@@ -1,9 +1,11 @@
 // `tenon train` as a data-parallel team (what `mpirun -np N tenon train`
-// does, examples/cli/main.cpp), run in process on every rank: rank 0 alone
-// writes and prints, and its model matches one process training with the
-// ranks' batches concatenated.
+// does, examples/cli/main.cpp), run in process on every rank: each rank
+// holds its share of the split's rows, rank 0 alone writes and prints, and
+// without shuffling its model matches one process training with the ranks'
+// batches concatenated.
 #include <doctest/doctest.h>
 
+#include <algorithm>
 #include <cmath>
 #include <cstdio>
 #include <fstream>
@@ -14,6 +16,7 @@
 #include <unistd.h>
 
 #include <tenon/distributed/data_parallel.hpp>
+#include <tenon/distributed/plan_merge.hpp>
 
 #include "cli/cli.hpp"
 
@@ -42,7 +45,8 @@ std::string press_csv(std::size_t rows) {
 
 bool exists(const std::string& path) { return std::ifstream(path).good(); }
 
-int run_tool(const std::vector<std::string>& args, tenon::training_team* team, std::string& out_text) {
+int run_tool(const std::vector<std::string>& args, tenon::training_team* team, std::string& out_text,
+             tenon::statistics_exchange* exchange = nullptr) {
     std::vector<std::string> all = {"tenon"};
     all.insert(all.end(), args.begin(), args.end());
     std::vector<char*> argv;
@@ -50,14 +54,41 @@ int run_tool(const std::vector<std::string>& args, tenon::training_team* team, s
     std::ostringstream out, err;
     tenon_cli::cli_environment env;
     env.team = team;
+    env.exchange = exchange;
     const int status = tenon_cli::run_cli(static_cast<int>(argv.size()), argv.data(), out, err, env);
     out_text = out.str() + err.str();
     return status;
 }
 
+// The largest difference between two saved models' weights, and the largest weight.
+double weight_difference(const std::string& a_path, const std::string& b_path, double& largest) {
+    const auto a = tenon::load_model_file<float>(a_path);
+    const auto b = tenon::load_model_file<float>(b_path);
+    REQUIRE(a.weights.size() == b.weights.size());
+    double worst = 0.0;
+    largest = 1.0;
+    for (std::size_t w = 0; w < a.weights.size(); ++w) {
+        REQUIRE(a.weights[w].values.size() == b.weights[w].values.size());
+        for (std::size_t i = 0; i < a.weights[w].values.size(); ++i) {
+            worst = std::max(worst, std::abs(static_cast<double>(a.weights[w].values.data()[i]) - static_cast<double>(b.weights[w].values.data()[i])));
+            largest = std::max(largest, std::abs(static_cast<double>(b.weights[w].values.data()[i])));
+        }
+    }
+    return worst;
+}
+
+// The number before " training rows" in the tool's summary.
+std::string training_rows_line(const std::string& printed) {
+    const auto end = printed.find(" training rows");
+    if (end == std::string::npos) return "";
+    const auto start = printed.rfind('\n', end);
+    return printed.substr(start == std::string::npos ? 0 : start + 1, end - (start == std::string::npos ? 0 : start + 1));
+}
+
 }  // namespace
 
-TEST_CASE("tenon train on p ranks: rank 0 writes the model, and it equals one process with p times the batch") {
+TEST_CASE("tenon train on p ranks: each rank holds its share of the rows, rank 0 writes the model, and with --keep-order it equals one "
+          "process with p times the batch") {
     tenon::communicator& world = cli_world();
     const std::size_t p = world.size();
     // One directory for all ranks (rank 0's process id), so every rank reads the same file.
@@ -66,19 +97,25 @@ TEST_CASE("tenon train on p ranks: rank 0 writes the model, and it equals one pr
     world.sum(id_value, 1);
     const std::string dir = "/tmp/tenon_mpi_cli_" + std::to_string(static_cast<long long>(id_value[0]));
     const std::string data = dir + "_press.csv", model = dir + "_ranks.tnm", metrics = dir + "_ranks.json";
-    const std::string alone_model = dir + "_alone.tnm";
+    const std::string ordered_model = dir + "_ordered.tnm", alone_model = dir + "_alone.tnm";
     if (world.rank() == 0) {
         std::ofstream(data) << press_csv(400);
     }
     world.barrier();
 
     tenon::mpi_team team(world);
+    tenon::mpi_statistics_exchange exchange(world);
     std::string printed;
     const std::vector<std::string> common = {"train", "--data", data, "--target", "force", "--epochs", "6", "--seed", "3", "--hidden", "12"};
-    std::vector<std::string> shared = common;
-    for (const char* a : {"--batch", "8"}) shared.emplace_back(a);
-    for (const std::string& a : {std::string("--model"), model, std::string("--metrics"), metrics}) shared.push_back(a);
-    const int status = run_tool(shared, &team, printed);
+    const auto with = [&](std::vector<std::string> extra) {
+        std::vector<std::string> args = common;
+        args.insert(args.end(), extra.begin(), extra.end());
+        return args;
+    };
+    // Shuffled (the default): a team without an exchange cannot measure one plan.
+    CHECK(run_tool(with({"--batch", "8"}), &team, printed) == tenon_cli::exit_bad_input);
+    CHECK((world.rank() != 0 || printed.find("[train.option.invalid] fit_model: a team whose members hold shards") != std::string::npos));
+    const int status = run_tool(with({"--batch", "8", "--model", model, "--metrics", metrics}), &team, printed, &exchange);
     CHECK(status == 0);
     world.barrier();
     if (world.rank() == 0) {
@@ -88,24 +125,28 @@ TEST_CASE("tenon train on p ranks: rank 0 writes the model, and it equals one pr
     } else {
         CHECK(printed.empty());  // only rank 0 prints
     }
+    std::string ordered_printed;
+    REQUIRE(run_tool(with({"--batch", "8", "--keep-order", "--model", ordered_model}), &team, ordered_printed, &exchange) == 0);
+    world.barrier();
 
     if (world.rank() == 0) {
-        std::vector<std::string> alone = common;
-        for (const std::string& a : {std::string("--batch"), std::to_string(8 * p), std::string("--model"), alone_model}) alone.push_back(a);
+        // Rank k holds the split's training rows k, k + p, ...: without
+        // shuffling, the ranks' batch j together are the rows [8 p j, 8 p (j + 1))
+        // one process takes in order with batch 8 p.
         std::string alone_printed;
-        REQUIRE(run_tool(alone, nullptr, alone_printed) == 0);
-        const auto a = tenon::load_model_file<float>(model);
-        const auto b = tenon::load_model_file<float>(alone_model);
-        REQUIRE(a.weights.size() == b.weights.size());
-        double worst = 0.0, largest = 1.0;
-        for (std::size_t w = 0; w < a.weights.size(); ++w)
-            for (std::size_t i = 0; i < a.weights[w].values.size(); ++i) {
-                worst = std::max(worst, std::abs(static_cast<double>(a.weights[w].values.data()[i]) - static_cast<double>(b.weights[w].values.data()[i])));
-                largest = std::max(largest, std::abs(static_cast<double>(b.weights[w].values.data()[i])));
-            }
+        REQUIRE(run_tool(with({"--batch", std::to_string(8 * p), "--keep-order", "--model", alone_model}), nullptr, alone_printed) == 0);
+        CHECK(training_rows_line(ordered_printed) == training_rows_line(alone_printed));  // the summary counts every rank's rows
+        CHECK(!training_rows_line(alone_printed).empty());
+        double largest = 1.0;
+        const double worst = weight_difference(ordered_model, alone_model, largest);
         CHECK(worst <= 1e-4 * largest);
-        std::printf("tenon train on %zu ranks (batch 8 each) vs one process (batch %zu): max weight difference %.3g\n", p, 8 * p, worst);
-        for (const auto& f : {data, model, metrics, alone_model}) std::remove(f.c_str());
+        std::printf("tenon train --keep-order on %zu ranks (batch 8 each, one share of the rows each) vs one process (batch %zu): max weight "
+                    "difference %.3g\n",
+                    p, 8 * p, worst);
+        // Shuffled, the ranks draw their own orders: another model than in order.
+        double unused = 1.0;
+        CHECK(weight_difference(model, ordered_model, unused) > 0.0);
+        for (const auto& f : {data, model, metrics, ordered_model, alone_model}) std::remove(f.c_str());
     }
     world.barrier();
 }

@@ -29,6 +29,7 @@
 #include <cmath>
 #include <cstdint>
 #include <cstdio>
+#include <exception>
 #include <filesystem>
 #include <fstream>
 #include <functional>
@@ -65,7 +66,17 @@ struct cli_environment {
     /// Set by main.cpp when the tool runs under mpirun (built with
     /// tenon::mpi): `tenon train` trains data-parallel as a member of this
     /// team, and only member 0 prints and writes the model, metrics and report.
+    /// With one holdout each member keeps its share of the training and
+    /// validation rows (rows k, k + P, ... of each, for member k of P) and
+    /// the plan is measured over the shares through `exchange`; with --folds
+    /// every member holds every row.
     tenon::training_team* team = nullptr;
+    tenon::statistics_exchange* exchange = nullptr;
+    /// Set by main.cpp under mpirun: ends the whole job after printing
+    /// `message` (MPI_Abort), for a failure while the members train, when
+    /// the others may be waiting for this one in a collective call. When
+    /// empty (in process), such a failure is reported as any other.
+    std::function<void(const std::string& message, int status)> end_job;
 };
 
 /// A failure of the tool itself (command line, data checks, output files);
@@ -128,6 +139,7 @@ struct train_request {
     std::size_t patience = 15;
     std::uint64_t seed = 1;
     std::size_t threads = 1;
+    bool keep_order = false;  // --keep-order: no shuffling
     std::string metrics_path;
     std::string report_path;
     std::string model_path;
@@ -239,7 +251,7 @@ inline train_request parse_train_request(const std::vector<std::string>& args) {
         static const char* const known[] = {"--data", "--target", "--task", "--ignore", "--split", "--time-column", "--group-column",
                                             "--fractions", "--folds", "--hidden", "--activation", "--loss", "--optimizer",
                                             "--learning-rate", "--epochs", "--batch", "--patience", "--seed", "--threads",
-                                            "--metrics", "--report", "--model", "--quiet"};
+                                            "--metrics", "--report", "--model", "--quiet", "--keep-order"};
         bool is_known = false;
         for (const char* n : known) is_known = is_known || name == n;
         if (!is_known) fail(cli_codes::option_unknown, "unknown option '" + name + "' for 'tenon train' (see tenon train --help)");
@@ -249,6 +261,11 @@ inline train_request parse_train_request(const std::vector<std::string>& args) {
         if (name == "--quiet") {
             if (inline_value) fail(cli_codes::option_value, "--quiet takes no value");
             q.quiet = true;
+            continue;
+        }
+        if (name == "--keep-order") {
+            if (inline_value) fail(cli_codes::option_value, "--keep-order takes no value");
+            q.keep_order = true;
             continue;
         }
         if (!inline_value) {
@@ -436,12 +453,16 @@ Model and training
   --epochs N             most epochs to run (default 200).
   --batch N              mini-batch rows (default 32); under mpirun -np P the
                          rows of each process, so P x N rows per step.
+  --keep-order           take the training rows in the file's order in every
+                         epoch instead of shuffling them (for rows whose order
+                         matters, or to compare runs batch by batch).
   --patience N           stop after N epochs without a lower validation loss
                          and keep the best epoch's weights (default 15; 0 = run
                          all epochs).
   --seed N               seeds the split, the initial weights and the batch
                          order (default 1). The same seed and data give the
-                         same metrics on every run.
+                         same metrics on every run (and under mpirun with the
+                         same process count).
   --threads N            threads for the matrix products of training (N >= 1,
                          default 1), each large product split across them; the
                          results are the same bits for every N.
@@ -466,6 +487,11 @@ Exit status
   0 success; 2 bad command line or bad data (one line on stderr names the
   problem); 3 an output file could not be written; 1 an unexpected failure.
   On failure no --metrics, --report or --model file is created or changed.
+  Under mpirun, a failure found before training (options, data, output
+  paths) ends every process with a status, the failing ones printing their
+  error and the others train.team.member_failed; a failure while the
+  processes train ends the whole job (MPI_Abort) after the failing process
+  prints its error.
 )";
 }
 
@@ -719,6 +745,7 @@ inline tenon::model_settings make_settings(const train_request& q) {
     m.patience = q.patience;
     m.seed = q.seed;
     m.threads = q.threads;
+    m.shuffle = !q.keep_order;
     return m;
 }
 
@@ -1047,6 +1074,56 @@ private:
 
 namespace detail {
 
+inline std::string one_line(std::string s) {
+    for (char& c : s)
+        if (c == '\n' || c == '\r') c = ' ';
+    return s;
+}
+
+// The one line the tool prints for a failure of `command`, and its exit status.
+inline std::string failure_text(const std::string& command, const std::exception_ptr& failure, int& status) {
+    try {
+        std::rethrow_exception(failure);
+    } catch (const cli_failure& e) {
+        status = e.exit_status();
+        return command + ": error: " + one_line(e.what());
+    } catch (const tenon::error& e) {
+        status = exit_bad_input;
+        return command + ": error: " + one_line(e.what());
+    } catch (const std::exception& e) {
+        status = exit_unexpected;
+        return command + ": unexpected failure: " + one_line(e.what());
+    } catch (...) {
+        status = exit_unexpected;
+        return command + ": unexpected failure";
+    }
+}
+
+// Under mpirun: runs `train` (the members' collective calls), and ends the
+// whole job when it fails on this member, since the other members may be
+// waiting for it inside a collective call (cli_environment::end_job).
+template <class Training>
+auto while_members_train(const cli_environment& env, Training&& train) -> decltype(train()) {
+    if (!env.team || !env.end_job) return train();
+    try {
+        return train();
+    } catch (...) {
+        int status = exit_unexpected;
+        const std::string line = failure_text("tenon train", std::current_exception(), status);
+        env.end_job(line, status);
+        throw;  // end_job does not return; in case a host's does
+    }
+}
+
+// This member's share of `rows` under a team: rows[k], rows[k + P], ... for
+// member k of P (round robin, as tenon::deal_rows deals them).
+inline std::vector<std::size_t> member_share(const std::vector<std::size_t>& rows, const tenon::training_team& team) {
+    std::vector<std::size_t> mine;
+    mine.reserve(rows.size() / team.member_count() + 1);
+    for (std::size_t i = team.member_index(); i < rows.size(); i += team.member_count()) mine.push_back(rows[i]);
+    return mine;
+}
+
 inline void write_scores(json_writer& j, const char* key, const tenon::evaluation& e) {
     j.open_object(key);
     j.count("rows", e.rows);
@@ -1146,8 +1223,21 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
         return true;
     };
     settings.on_batch = [&](const tenon::batch_progress& b) { progress.on_batch(b); };
-    tenon::fitted_model<float> model = tenon::fit_model<float>(t, s.recipe, split.train, split.validation, settings);
+    // A team's members each prepare and hold only their share of the rows;
+    // the plan is measured over all shares (cli_environment::team).
+    std::vector<std::size_t> train_rows, validation_rows;
+    if (env.team) {
+        settings.member_rows = tenon::team_rows::shard_per_member;
+        settings.exchange = env.exchange;
+        train_rows = member_share(split.train, *env.team);
+        validation_rows = member_share(split.validation, *env.team);
+    }
+    tenon::fitted_model<float> model = while_members_train(env, [&] {
+        return tenon::fit_model<float>(t, s.recipe, env.team ? train_rows : split.train, env.team ? validation_rows : split.validation,
+                                       settings);
+    });
     progress.finish();
+    if (env.team && env.team->member_index() != 0) return exit_success;  // member 0 alone scores, writes and prints
 
     tenon::evaluation validation;
     const bool has_validation = model.validation_rows > 0;
@@ -1282,8 +1372,8 @@ inline int train_folds(const tenon::table& t, const train_request& q, training_s
     };
     settings.on_batch = [&](const tenon::batch_progress& b) { progress.on_batch(b); };
     const bool chronological = s.split == split_choice::chronological;
-    const tenon::cross_validation_report report =
-        tenon::cross_validate<float>(t, s.recipe, folds, settings, q.fractions.validation, chronological);
+    const tenon::cross_validation_report report = while_members_train(
+        env, [&] { return tenon::cross_validate<float>(t, s.recipe, folds, settings, q.fractions.validation, chronological); });
     progress.finish();
 
     std::size_t dropped = 0;
@@ -1328,26 +1418,41 @@ inline int train_folds(const tenon::table& t, const train_request& q, training_s
 
 inline int run_train(const std::vector<std::string>& args, std::ostream& out, std::ostream& err, const cli_environment& env) {
     (void)err;
-    train_request q = parse_train_request(args);
-    if (env.team && env.team->member_index() != 0) {  // data-parallel: member 0 alone reports and writes
-        q.quiet = true;
-        q.metrics_path.clear();
-        q.report_path.clear();
-        q.model_path.clear();
+    train_request q;
+    // Output files are claimed first, so an unwritable path fails before training.
+    pending_output metrics_file, report_file, model_probe;
+    tenon::table t;
+    training_setup s;
+    // Under mpirun nothing here is collective, and it may fail on some
+    // members only (a file one process cannot read): the members agree on
+    // failing before training, so that each ends normally with its status
+    // rather than leaving the others waiting in the training's first call.
+    std::exception_ptr failure;
+    try {
+        q = parse_train_request(args);
+        if (env.team && env.team->member_index() != 0) {  // data-parallel: member 0 alone reports and writes
+            q.quiet = true;
+            q.metrics_path.clear();
+            q.report_path.clear();
+            q.model_path.clear();
+        }
+        if (!q.help) {
+            if (!q.metrics_path.empty()) metrics_file = pending_output("--metrics", q.metrics_path);
+            if (!q.report_path.empty()) report_file = pending_output("--report", q.report_path);
+            // The model is saved by save_model_file; the probe only proves the directory writable.
+            if (!q.model_path.empty()) model_probe = pending_output("--model", q.model_path);
+            t = load_table(q);
+            s = make_setup(t, q);
+        }
+    } catch (...) {
+        if (!env.team) throw;
+        failure = std::current_exception();
     }
+    if (env.team) tenon::throw_if_any_member_failed(*env.team, failure, "tenon train");
     if (q.help) {
         out << train_help();
         return exit_success;
     }
-    // Output files are claimed first, so an unwritable path fails before training.
-    pending_output metrics_file, report_file, model_probe;
-    if (!q.metrics_path.empty()) metrics_file = pending_output("--metrics", q.metrics_path);
-    if (!q.report_path.empty()) report_file = pending_output("--report", q.report_path);
-    // The model is saved by save_model_file; the probe only proves the directory writable.
-    if (!q.model_path.empty()) model_probe = pending_output("--model", q.model_path);
-
-    const tenon::table t = load_table(q);
-    training_setup s = make_setup(t, q);
     if (q.folds > 0) return detail::train_folds(t, q, s, out, env, metrics_file);
     return detail::train_holdout(t, q, s, out, env, metrics_file, report_file, model_probe);
 }
@@ -2501,14 +2606,6 @@ inline const std::vector<subcommand>& subcommands() {
     return table;
 }
 
-namespace detail {
-inline std::string one_line(std::string s) {
-    for (char& c : s)
-        if (c == '\n' || c == '\r') c = ' ';
-    return s;
-}
-}  // namespace detail
-
 /// Runs the tool with the given arguments (argv[0] is the program name).
 /// Returns the exit status; messages go to `out`, errors to `err`, one line each.
 inline int run_cli(int argc, char** argv, std::ostream& out, std::ostream& err, const cli_environment& env) {
@@ -2541,18 +2638,11 @@ inline int run_cli(int argc, char** argv, std::ostream& out, std::ostream& err, 
         std::vector<std::string> names;
         for (const auto& c : subcommands()) names.emplace_back(c.name);
         fail(cli_codes::command_unknown, "unknown command '" + args[0] + "' (commands: " + detail::join(names, ", ") + "; see tenon --help)");
-    } catch (const cli_failure& e) {
+    } catch (const std::exception&) {
         out.flush();
-        err << command << ": error: " << detail::one_line(e.what()) << "\n";
-        return e.exit_status();
-    } catch (const tenon::error& e) {
-        out.flush();
-        err << command << ": error: " << detail::one_line(e.what()) << "\n";
-        return exit_bad_input;
-    } catch (const std::exception& e) {
-        out.flush();
-        err << command << ": unexpected failure: " << detail::one_line(e.what()) << "\n";
-        return exit_unexpected;
+        int status = exit_unexpected;
+        err << detail::failure_text(command, std::current_exception(), status) << "\n";
+        return status;
     }
 }
 

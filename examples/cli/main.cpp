@@ -14,6 +14,7 @@
 
 #if defined(TENON_HAS_MPI)
 #include <tenon/distributed/data_parallel.hpp>
+#include <tenon/distributed/plan_merge.hpp>
 #endif
 
 int main(int argc, char** argv) {
@@ -21,15 +22,28 @@ int main(int argc, char** argv) {
     env.terminal = TENON_CLI_STDOUT_IS_TERMINAL();
 #if defined(TENON_HAS_MPI)
     // Under mpirun (`mpirun -np N tenon train ...`) every process trains as
-    // one rank of a data-parallel team; started directly, MPI is not touched.
+    // one rank of a data-parallel team, holding its share of the rows;
+    // started directly, MPI is not touched.
     if (tenon::launched_by_mpi_launcher()) {
         tenon::mpi_session session(&argc, &argv);
         tenon::communicator world;
         tenon::mpi_team team(world);
+        tenon::mpi_statistics_exchange exchange(world);
         env.team = &team;
+        env.exchange = &exchange;
+        // A failure on one rank while the ranks train: the others may wait
+        // for it in a collective call, so the whole job ends.
+        env.end_job = [](const std::string& message, int status) { tenon::end_mpi_job(message, status); };
         if (world.rank() != 0) env.terminal = false;
-        const int status = tenon_cli::run_cli(argc, argv, std::cout, std::cerr, env);
-        // A failure on any rank fails every rank, so mpirun reports it once.
+        int status = tenon_cli::exit_unexpected;
+        try {
+            status = tenon_cli::run_cli(argc, argv, std::cout, std::cerr, env);
+        } catch (...) {  // run_cli reports what it knows; anything else ends the job
+            tenon::end_mpi_job("tenon: unexpected failure", tenon_cli::exit_unexpected);
+        }
+        // Every rank is here, outside any collective call of the training:
+        // a failure on any rank fails every rank, so mpirun reports it once.
+        std::cout.flush();
         int worst = status;
         MPI_Allreduce(&status, &worst, 1, MPI_INT, MPI_MAX, world.handle());
         return worst;

@@ -100,7 +100,9 @@
     X(train_option, "train.option.invalid", "a trainer option or the loss does not fit the data") \
     X(train_non_finite_input, "train.input.non_finite", "a prepared feature or target is NaN or infinite") \
     X(train_team_mismatch, "train.team.mismatch",                                              \
-      "the members of a training team disagree on the rows, settings or network they train")
+      "the members of a training team disagree on the rows, settings or network they train") \
+    X(train_team_member_failed, "train.team.member_failed",                                    \
+      "another member of a training team failed its checks, so every member stops with it")
 
 // deploy/: model files, the predictor, retraining, drift.
 #define TENON_ERROR_CODES_DEPLOY(X)                                                            \

@@ -12,11 +12,21 @@
 // Every call that fails raises distributed.mpi.failed naming the MPI call
 // and MPI's own message: the communicator is switched to MPI_ERRORS_RETURN
 // so that a failure reaches the caller instead of aborting the job.
+//
+// A failure on one rank alone is another matter: MPI's collective calls
+// have no timeout, so ranks already waiting in one for the failed rank
+// would wait forever. end_mpi_job prints the failure and ends every process
+// of the job (MPI_Abort); an mpi_session that initialized MPI does the same
+// when an exception carries it out of its scope. A failure that every rank
+// detects alike, before any of them enters a collective call, may instead
+// end each rank normally.
 #pragma once
 
 #include <cstddef>
 #include <cstdint>
+#include <cstdio>
 #include <cstdlib>
+#include <exception>
 #include <limits>
 #include <string>
 #include <vector>
@@ -63,14 +73,41 @@ inline bool launched_by_mpi_launcher() {
     return false;
 }
 
+/// Ends every process of the MPI job from this one: prints `message` (when
+/// not empty) to standard error as "rank R: message", then calls MPI_Abort
+/// on MPI_COMM_WORLD with `status`, which mpirun reports as the job's exit
+/// status. For a failure on this rank while other ranks may be waiting in a
+/// collective call for it. Without MPI initialized (or after MPI_Finalize)
+/// it exits this process with `status`. Does not return.
+[[noreturn]] inline void end_mpi_job(const std::string& message, int status = 1) noexcept {
+    int initialized = 0, finalized = 0, rank = -1;
+    const bool running = MPI_Initialized(&initialized) == MPI_SUCCESS && initialized && MPI_Finalized(&finalized) == MPI_SUCCESS && !finalized;
+    if (running && MPI_Comm_rank(MPI_COMM_WORLD, &rank) != MPI_SUCCESS) rank = -1;
+    if (!message.empty()) {
+        if (rank >= 0) std::fprintf(stderr, "rank %d: %s\n", rank, message.c_str());
+        else std::fprintf(stderr, "%s\n", message.c_str());
+    }
+    std::fflush(stdout);
+    std::fflush(stderr);
+    if (running) MPI_Abort(MPI_COMM_WORLD, status);
+    std::_Exit(status);  // MPI_Abort does not return; without MPI, this process alone ends
+}
+
 /// Initializes MPI for the lifetime of the object when nobody has (a host
 /// that initializes MPI itself keeps doing so), and finalizes it only if it
 /// initialized it. Asks for MPI_THREAD_FUNNELED: tenon's worker threads
 /// never call MPI, only the thread that trains does.
+///
+/// When the session initialized MPI and an exception leaves its scope (the
+/// destructor runs during stack unwinding), it ends the whole job with
+/// end_mpi_job(status 1) instead of finalizing: finalizing would wait for
+/// the other ranks, which may be waiting for this one. (An exception that no
+/// handler catches ends the process without unwinding; mpirun then ends the
+/// job as for any rank that dies.)
 class mpi_session {
 public:
     mpi_session() : mpi_session(nullptr, nullptr) {}
-    mpi_session(int* argc, char*** argv) {
+    mpi_session(int* argc, char*** argv) : unwinding_at_start_(std::uncaught_exceptions()) {
         int initialized = 0;
         detail::check_mpi(MPI_Initialized(&initialized), "MPI_Initialized");
         if (initialized) return;
@@ -82,12 +119,16 @@ public:
     mpi_session& operator=(const mpi_session&) = delete;
     ~mpi_session() {
         int finalized = 0;
-        if (owner_ && MPI_Finalized(&finalized) == MPI_SUCCESS && !finalized) MPI_Finalize();
+        if (!owner_ || MPI_Finalized(&finalized) != MPI_SUCCESS || finalized) return;
+        if (std::uncaught_exceptions() > unwinding_at_start_)
+            end_mpi_job("an exception left the scope of the MPI session; ending the job so that no rank waits for this one", 1);
+        MPI_Finalize();
     }
     /// Whether this object called MPI_Init (and will call MPI_Finalize).
     bool owns_mpi() const noexcept { return owner_; }
 
 private:
+    int unwinding_at_start_ = 0;
     bool owner_ = false;
 };
 

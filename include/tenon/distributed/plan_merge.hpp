@@ -111,17 +111,7 @@ private:
 /// top of this file); collective, the same plan on every rank.
 inline measured_plan measure_plan_across(const plan& recipe, const table& t, const std::vector<std::size_t>& rows, communicator& c) {
     mpi_statistics_exchange exchange(c);
-    // Same columns, same kinds, on every rank: each (name, kind) must be
-    // named by all ranks.
-    std::vector<std::pair<std::string, std::uint64_t>> schema;
-    for (std::size_t k = 0; k < t.column_count(); ++k) schema.emplace_back(t[k].name() + " (" + to_string(t[k].kind()) + ")", 1);
-    std::vector<std::uint64_t> ranks = {1};
-    exchange.sum_counts(ranks);
-    for (const auto& kv : exchange.merge_named_counts(schema)) {
-        if (kv.second != ranks[0])
-            raise(codes::distributed_plan_mismatch, "measure_plan_across: the column " + kv.first + " is held by " + std::to_string(kv.second) +
-                                                        " of " + std::to_string(ranks[0]) + " ranks; every rank's table needs the same columns and kinds");
-    }
+    require_same_columns(t, exchange, "measure_plan_across");  // same columns, same kinds, on every rank
     return recipe.measure(t, rows, &exchange);
 }
 

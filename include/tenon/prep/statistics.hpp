@@ -185,6 +185,24 @@ public:
         const std::vector<std::pair<std::string, std::uint64_t>>& local) = 0;
 };
 
+/// Collective over `exchange`: every participant's table must have the same
+/// columns with the same kinds before they measure one plan together (their
+/// collective calls follow the columns). Raises distributed.plan.mismatch on
+/// every participant, naming a column that not all of them hold; `who`
+/// names the caller in the message.
+inline void require_same_columns(const table& t, statistics_exchange& exchange, const std::string& who) {
+    std::vector<std::pair<std::string, std::uint64_t>> schema;
+    for (std::size_t k = 0; k < t.column_count(); ++k) schema.emplace_back(t[k].name() + " (" + to_string(t[k].kind()) + ")", 1);
+    std::vector<std::uint64_t> participants = {1};
+    exchange.sum_counts(participants);
+    for (const auto& kv : exchange.merge_named_counts(schema)) {
+        if (kv.second != participants[0])
+            raise(codes::distributed_plan_mismatch, who + ": the column " + kv.first + " is held by " + std::to_string(kv.second) + " of " +
+                                                        std::to_string(participants[0]) +
+                                                        " ranks; every rank's table needs the same columns and kinds");
+    }
+}
+
 /// 0, 1, ..., n-1: all rows of a table.
 inline std::vector<std::size_t> all_rows(std::size_t n) {
     std::vector<std::size_t> rows(n);

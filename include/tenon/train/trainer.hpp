@@ -24,24 +24,52 @@
 // last, shorter batch of an epoch, so after the first epoch a training step
 // records into buffers it already has.
 //
+// Shuffling: with training_options::shuffle (the default) the rows are
+// shuffled at the start of every epoch; without it every epoch takes them in
+// the order given (for data whose order matters, or for runs that must be
+// compared batch by batch).
+//
 // Teams: with training_options::team, several trainers (one per process,
 // e.g. MPI ranks, see distributed/data_parallel.hpp) train one model
-// together. Every member holds the same training rows and shuffles them
-// with the same seed; global batch b of an epoch holds the shuffled
-// positions [b G, (b + 1) G) with G = batch_size x members, and member m
-// takes the positions congruent to m modulo the member count (round robin),
-// so a member's batch holds batch_size rows. After backward, each member's
-// gradient is weighted by its batch's loss weight (its row count, or the sum
-// of its rows' class weights; 1 with the sum reduction), all are summed in
-// one fused buffer, and divided by the total weight: the gradient of the
-// loss of the whole global batch, as one trainer with batch_size G computes
+// together. training_options::member_rows says how the members hold the
+// training rows:
+//   - team_rows::all_on_every_member: every member passes all training rows
+//     and shuffles them with the same seed; global batch b of an epoch holds
+//     the shuffled positions [b G, (b + 1) G) with G = batch_size x members,
+//     and member m takes the positions congruent to m modulo the member
+//     count (round robin), so a member's batch holds batch_size rows.
+//   - team_rows::shard_per_member: every member passes only its own shard of
+//     the training (and validation) rows, of any size from one row up, and
+//     shuffles it with an engine stream of its own (fixed by the seed and the
+//     member index). Step b of an epoch takes each member's shuffled rows
+//     [b batch_size, (b + 1) batch_size); the global batch is the members'
+//     batches together, batch_size x members rows while every shard lasts.
+//     An epoch has as many steps as the largest shard has batches (the
+//     members' row counts are exchanged once when run() starts); a member
+//     whose shard is used up takes part in the remaining steps with no rows.
+//     Without shuffling, global batch b is member 0's batch b, then member
+//     1's, and so on: one trainer given those batches in that order with
+//     batch_size x members trains the same weights up to the order of sums.
+// After backward, each member's gradient is weighted by its batch's loss
+// weight (its row count, or the sum of its rows' class weights; 1 with the
+// sum reduction; 0 for a member without rows in the step), all are summed
+// in one fused buffer, and divided by the total weight: the gradient of the
+// loss of the whole global batch, as one trainer with that batch computes
 // it, up to the order of the sums. Every decision that ends or changes the
 // run is taken on summed values, so all members take it together: a
 // non-finite loss or gradient on any member, cancellation or a spent budget
 // on any member (read with the step's sum, so a request made after step k
 // stops every member after step k + 1), the validation loss and metric
-// (each member scores every m-th validation row), and a stop asked by any
-// member's epoch observer.
+// (with all rows on every member each scores every m-th validation row;
+// with shards each scores its own; the sums give the whole set's), and a
+// stop asked by any member's epoch observer.
+// Before the first step the members also agree on failing: when the checks
+// of run() fail on some members (rows, options, a resumed state), those
+// throw their own error and all others train.team.member_failed, so no
+// member is left waiting in a collective call; then the members compare
+// their settings (rows with all rows on every member, columns, outputs,
+// batch size, seed, epochs, patience, loss, shuffling, row holding, network
+// size) and all throw train.team.mismatch when any differs.
 // State buffers (batch-normalization running statistics) are averaged over
 // the members after every epoch; during training each member normalizes
 // with its own batch's statistics.
@@ -53,12 +81,14 @@
 #include <cmath>
 #include <cstddef>
 #include <cstdint>
+#include <exception>
 #include <functional>
 #include <limits>
 #include <numeric>
 #include <string>
 #include <vector>
 
+#include "tenon/core/elementwise.hpp"
 #include "tenon/core/parallel.hpp"
 #include "tenon/layers/network.hpp"
 #include "tenon/losses/classification.hpp"
@@ -140,7 +170,9 @@ struct training_outcome {
 /// the update-rule state and the schedule state that the next epoch depends
 /// on. A run given this (training_options::resume) together with the
 /// network, rule and schedule as they were at that point continues exactly
-/// as the uninterrupted run would have, bit for bit.
+/// as the uninterrupted run would have, bit for bit. In a team whose members
+/// hold shards, each member's progress is its own (its shard's order and
+/// shuffle engine): each member resumes from the progress it saved.
 template <class T>
 struct training_progress {
     std::size_t epochs_done = 0;            // whole epochs completed
@@ -153,6 +185,17 @@ struct training_progress {
     network_snapshot<T> best;               // weights of best_epoch (empty when none)
     std::size_t epochs_since_best = 0;
     double rate_factor = 1.0;               // product of divergence reductions so far
+};
+
+/// How the members of a training team hold the training rows (see "Teams"
+/// at the top of this file).
+enum class team_rows : std::uint8_t {
+    /// Every member passes all training rows; each takes its part of every
+    /// global batch from one shuffle shared by all.
+    all_on_every_member,
+    /// Every member passes only its own shard of the rows and shuffles it
+    /// itself; the global batch is the members' batches together.
+    shard_per_member
 };
 
 /// The members of a team of trainers (see the top of this file). Every call
@@ -169,6 +212,34 @@ public:
     virtual void sum(float* values, std::size_t count) = 0;
     virtual void sum(double* values, std::size_t count) = 0;
 };
+
+/// Collective over `team` (every member calls it at the same point): when
+/// any member passes a failure, every member throws, a failing member its
+/// own exception and every other member train.team.member_failed naming the
+/// failed members, so that no member goes on to a collective call the
+/// failed ones never make. Returns normally when no member failed. `stage`
+/// names the caller in the message (e.g. "trainer").
+inline void throw_if_any_member_failed(training_team& team, const std::exception_ptr& failure, const char* stage) {
+    const std::size_t members = team.member_count(), me = team.member_index();
+    if (members == 0 || me >= members) {
+        raise(codes::train_team_mismatch, std::string(stage) + ": team member " + std::to_string(me) + " of " + std::to_string(members));
+    }
+    std::vector<double> failed(members, 0.0);
+    failed[me] = failure ? 1.0 : 0.0;
+    team.sum(failed.data(), failed.size());
+    if (failure) std::rethrow_exception(failure);
+    std::string who;
+    std::size_t count = 0;
+    for (std::size_t m = 0; m < members; ++m) {
+        if (failed[m] == 0.0) continue;
+        who += (count++ == 0 ? "" : ", ") + std::to_string(m);
+    }
+    if (count > 0) {
+        raise(codes::train_team_member_failed, std::string(stage) + ": team member" + (count > 1 ? "s " : " ") + who + " of " +
+                                                   std::to_string(members) + " failed (see " + (count > 1 ? "their" : "its") +
+                                                   " own error); member " + std::to_string(me) + " stops with " + (count > 1 ? "them" : "it"));
+    }
+}
 
 template <class T>
 struct training_options {
@@ -207,6 +278,12 @@ struct training_options {
     /// Train as a member of this team (nullptr: alone); `batch_size` is then
     /// the batch of each member. Must outlive run().
     training_team* team = nullptr;
+    /// How the team's members hold the training and validation rows (see
+    /// "Teams" at the top of this file); every member gives the same choice.
+    team_rows member_rows = team_rows::all_on_every_member;
+    /// Shuffle the training rows at the start of every epoch; false takes
+    /// them in the order given, every epoch.
+    bool shuffle = true;
 };
 
 namespace detail {
@@ -244,28 +321,21 @@ void validate_rows(const supervised_rows<T>& d, const char* which, std::size_t i
                                              std::to_string(d.targets.shape()[0]) + " target rows");
         }
     }
-    for (std::size_t k = 0; k < d.features.size(); ++k) {
-        if (!std::isfinite(d.features.data()[k])) {
-            const std::size_t c = d.features.shape()[1];
-            raise(codes::train_non_finite_input, std::string("trainer: ") + which + " feature at row " + std::to_string(k / c) +
-                                                     ", column " + std::to_string(k % c) + " is " + std::to_string(d.features.data()[k]));
-        }
+    if (const std::size_t k = first_non_finite(d.features.data(), d.features.size()); k < d.features.size()) {
+        const std::size_t c = d.features.shape()[1];
+        raise(codes::train_non_finite_input, std::string("trainer: ") + which + " feature at row " + std::to_string(k / c) +
+                                                 ", column " + std::to_string(k % c) + " is " + std::to_string(d.features.data()[k]));
     }
-    for (std::size_t k = 0; k < d.targets.size(); ++k) {
-        if (!std::isfinite(d.targets.data()[k])) {
-            const std::size_t c = d.targets.shape()[1];
-            raise(codes::train_non_finite_input, std::string("trainer: ") + which + " target at row " + std::to_string(k / c) +
-                                                     ", column " + std::to_string(k % c) + " is " + std::to_string(d.targets.data()[k]));
-        }
+    if (const std::size_t k = first_non_finite(d.targets.data(), d.targets.size()); k < d.targets.size()) {
+        const std::size_t c = d.targets.shape()[1];
+        raise(codes::train_non_finite_input, std::string("trainer: ") + which + " target at row " + std::to_string(k / c) +
+                                                 ", column " + std::to_string(k % c) + " is " + std::to_string(d.targets.data()[k]));
     }
 }
 
 template <class T>
 bool all_finite(const matrix<T>& m) noexcept {
-    const T* p = m.data();
-    for (std::size_t k = 0; k < m.size(); ++k)
-        if (!std::isfinite(p[k])) return false;
-    return true;
+    return first_non_finite(m.data(), m.size()) == m.size();
 }
 
 }  // namespace detail
@@ -353,30 +423,38 @@ public:
 
     /// Trains on `train`, validating on `validation` after every epoch (pass
     /// an empty validation set to train without validation or early stopping).
+    /// In a team whose members hold shards (training_options::member_rows),
+    /// both are this member's shards: `train` of at least one row,
+    /// `validation` possibly empty (the team validates when any member has
+    /// validation rows).
     training_outcome run(const supervised_rows<T>& train, const supervised_rows<T>& validation) {
-        const std::size_t inputs = train.features.shape()[1];
-        detail::validate_rows(train, "training", 0, options_.loss);
-        const bool validate = validation.rows() > 0;
-        if (validate) detail::validate_rows(validation, "validation", inputs, options_.loss);
-        if (validate && validation.is_classification() != train.is_classification()) {
-            raise(codes::train_option, "trainer: training and validation rows disagree on classification versus regression");
+        training_team* const team = options_.team;
+        const bool shards = team && options_.member_rows == team_rows::shard_per_member;
+        // A team member whose checks fail must not leave the others waiting
+        // in the first collective call: the failure is shared first.
+        std::exception_ptr failure;
+        try {
+            check_rows(train, validation);
+            if (options_.resume) check_resume(*options_.resume, train.rows());
+            if (team && !shards) team_validation(validation);
+        } catch (...) {
+            if (!team) throw;
+            failure = std::current_exception();
         }
-        const std::size_t width = net_.output_width(inputs);
-        if (train.is_classification() && width != train.class_count) {
-            raise(codes::shape_mismatch, "trainer: the network gives " + std::to_string(width) + " outputs for " +
-                                             std::to_string(train.class_count) + " classes");
+        bool validate = validation.rows() > 0;
+        if (team) {
+            throw_if_any_member_failed(*team, failure, "trainer");
+            epoch_batches_ = check_team(train, validation, validate);
+        } else {
+            epoch_batches_ = (train.rows() + options_.batch_size - 1) / options_.batch_size;
         }
-        if (!train.is_classification() && width != train.targets.shape()[1]) {
-            raise(codes::shape_mismatch, "trainer: the network gives " + std::to_string(width) + " outputs for " +
-                                             std::to_string(train.targets.shape()[1]) + " target columns");
-        }
-
-        if (options_.team) check_team(train, validation);
-        const supervised_rows<T>& validation_share = options_.team ? team_validation(validation) : validation;
+        const supervised_rows<T>& validation_share = team && !shards ? shared_validation_ : validation;
 
         training_outcome out;
         const double start = options_.clock();
-        random_engine shuffle_engine(options_.seed, /*stream=*/0x5EED5u);
+        // With shards each member shuffles its own rows: a stream of its own.
+        const std::uint64_t stream = shards ? 0x5EED5u + (static_cast<std::uint64_t>(team->member_index()) + 1) * 0x100000000ull : 0x5EED5u;
+        random_engine shuffle_engine(options_.seed, stream);
         std::vector<std::size_t> order(train.rows());
         std::iota(order.begin(), order.end(), std::size_t(0));
 
@@ -388,22 +466,6 @@ public:
         std::size_t epoch = 0;
         if (options_.resume) {
             const training_progress<T>& r = *options_.resume;
-            if (r.order.size() != train.rows()) {
-                raise(codes::train_option, "trainer: the resumed run shuffled " + std::to_string(r.order.size()) +
-                                               " training rows, this run has " + std::to_string(train.rows()));
-            }
-            std::vector<std::uint8_t> seen(train.rows(), 0);
-            for (const std::size_t i : r.order) {
-                if (i >= train.rows() || seen[i]) raise(codes::train_option, "trainer: the resumed row order is not a permutation");
-                seen[i] = 1;
-            }
-            if (r.best_epoch > r.epochs_done || (r.best_epoch > 0 && r.best.values.empty())) {
-                raise(codes::train_option, "trainer: the resumed progress names best epoch " + std::to_string(r.best_epoch) +
-                                               " without its weights or after epoch " + std::to_string(r.epochs_done));
-            }
-            if (!(r.rate_factor > 0.0 && r.rate_factor <= 1.0)) {
-                raise(codes::train_option, "trainer: the resumed rate factor must be in (0, 1], got " + std::to_string(r.rate_factor));
-            }
             shuffle_engine.set_state(r.shuffle_engine);
             order = r.order;
             best = r.best;
@@ -473,7 +535,7 @@ public:
 
             if (options_.team) average_state_buffers();
             if (validate) {
-                if (options_.team) evaluate_shared(validation_share, s.validation_loss, s.validation_metric);
+                if (options_.team) evaluate_shared(validation_share, train.is_classification(), s.validation_loss, s.validation_metric);
                 else assess(validation, s.validation_loss, s.validation_metric);
                 schedule_.report_metric(s.validation_loss);
                 if (!std::isfinite(s.validation_loss)) {
@@ -575,28 +637,72 @@ private:
         return options_.time_budget_seconds > 0.0 && options_.clock() - start >= options_.time_budget_seconds;
     }
 
-    // One pass over the shuffled training rows.
+    // The rows and the network fit each other. A team member's validation
+    // shard may be empty (the team validates when any member has rows).
+    void check_rows(const supervised_rows<T>& train, const supervised_rows<T>& validation) const {
+        const std::size_t inputs = train.features.shape()[1];
+        detail::validate_rows(train, "training", 0, options_.loss);
+        const bool validate = validation.rows() > 0;
+        if (validate) detail::validate_rows(validation, "validation", inputs, options_.loss);
+        if (validate && validation.is_classification() != train.is_classification()) {
+            raise(codes::train_option, "trainer: training and validation rows disagree on classification versus regression");
+        }
+        const std::size_t width = net_.output_width(inputs);
+        if (train.is_classification() && width != train.class_count) {
+            raise(codes::shape_mismatch, "trainer: the network gives " + std::to_string(width) + " outputs for " +
+                                             std::to_string(train.class_count) + " classes");
+        }
+        if (!train.is_classification() && width != train.targets.shape()[1]) {
+            raise(codes::shape_mismatch, "trainer: the network gives " + std::to_string(width) + " outputs for " +
+                                             std::to_string(train.targets.shape()[1]) + " target columns");
+        }
+    }
+
+    // A resumed state fits these rows (with shards: this member's shard).
+    static void check_resume(const training_progress<T>& r, std::size_t rows) {
+        if (r.order.size() != rows) {
+            raise(codes::train_option, "trainer: the resumed run shuffled " + std::to_string(r.order.size()) +
+                                           " training rows, this run has " + std::to_string(rows));
+        }
+        std::vector<std::uint8_t> seen(rows, 0);
+        for (const std::size_t i : r.order) {
+            if (i >= rows || seen[i]) raise(codes::train_option, "trainer: the resumed row order is not a permutation");
+            seen[i] = 1;
+        }
+        if (r.best_epoch > r.epochs_done || (r.best_epoch > 0 && r.best.values.empty())) {
+            raise(codes::train_option, "trainer: the resumed progress names best epoch " + std::to_string(r.best_epoch) +
+                                           " without its weights or after epoch " + std::to_string(r.epochs_done));
+        }
+        if (!(r.rate_factor > 0.0 && r.rate_factor <= 1.0)) {
+            raise(codes::train_option, "trainer: the resumed rate factor must be in (0, 1], got " + std::to_string(r.rate_factor));
+        }
+    }
+
+    // One pass over the (shuffled) training rows: epoch_batches_ steps.
     epoch_result run_epoch(const supervised_rows<T>& d, std::vector<std::size_t>& order, random_engine& engine, std::size_t epoch,
                            double rate_factor, std::uint64_t& steps, double start) {
         epoch_result r;
-        engine.shuffle(order.begin(), order.end());
+        if (options_.shuffle) engine.shuffle(order.begin(), order.end());
         net_.set_mode(run_mode::training);
         training_team* team = options_.team;
-        const std::size_t members = team ? team->member_count() : 1, me = team ? team->member_index() : 0;
+        const bool shards = team && options_.member_rows == team_rows::shard_per_member;
+        // With all rows on every member, this member's positions of global
+        // batch b are b G + me, b G + me + members, ... (G = batch x members);
+        // with shards (and alone) its own positions [b batch, (b + 1) batch).
+        const std::size_t members = team && !shards ? team->member_count() : 1, me = team && !shards ? team->member_index() : 0;
         const std::size_t global_batch = options_.batch_size * members;
         const std::size_t rows = d.rows(), inputs = d.features.shape()[1];
-        const std::size_t batches = (rows + global_batch - 1) / global_batch;
+        const std::size_t batches = epoch_batches_;
         double loss_sum = 0.0;
         for (std::size_t b = 0; b < batches; ++b) {
             const std::size_t first = b * global_batch;
-            const std::size_t global_rows = std::min(global_batch, rows - first);
-            // This member's positions: first + me, first + me + members, ...
+            const std::size_t global_rows = first < rows ? std::min(global_batch, rows - first) : 0;
             const std::size_t n = global_rows > me ? (global_rows - me + members - 1) / members : 0;
             batch_buffers& buf = n == options_.batch_size ? full_ : tail_;
             for (auto* p : net_.parameters()) p->clear_gradient();
             double lv = 0.0;
             bool finite = true;
-            if (n > 0) {  // only a team member can have no row of a short last batch
+            if (n > 0) {  // only a team member can have no row in a step
                 gather(d, order, first + me, members, n, inputs, buf);
                 buf.t.clear();
                 buf.t.set_executor(options_.workers);
@@ -622,7 +728,16 @@ private:
                 return r;
             }
             const double lr = schedule_.rate(steps, epoch) * rate_factor;
-            rule_.apply(net_.parameters(), static_cast<T>(lr));
+            {
+                // The update runs on the trainer's workers; the rule's own setting is back afterwards.
+                struct workers_for_step {
+                    update_rule<T>& rule;
+                    executor* own;
+                    ~workers_for_step() { rule.set_executor(own); }
+                } scope{rule_, rule_.workers()};
+                rule_.set_executor(options_.workers);
+                rule_.apply(net_.parameters(), static_cast<T>(lr));
+            }
             ++steps;
             r.learning_rate = lr;
             loss_sum += lv;
@@ -724,34 +839,70 @@ private:
         for (const auto* p : net_.parameters()) finite = finite && !(p->trainable() && !detail::all_finite(p->grad()));
     }
 
-    // The members must train on the same rows with the same settings: a few
-    // numbers are summed with their squares, equal everywhere exactly when
-    // sum^2 == members x sum of squares (the same test on every member, so
-    // all raise together).
-    void check_team(const supervised_rows<T>& train, const supervised_rows<T>& validation) {
+    // The members must train one model with the same settings. Each member
+    // writes its numbers into its own slots of one buffer; one sum gives
+    // every member all members' numbers, and every member makes the same
+    // comparisons on them, so all raise together or none does. With all rows
+    // on every member the row counts must agree too; with shards they give
+    // the steps of an epoch (the largest shard's batch count) and whether
+    // the team validates (any member has validation rows). Returns the
+    // steps per epoch.
+    std::size_t check_team(const supervised_rows<T>& train, const supervised_rows<T>& validation, bool& validate) {
         training_team& team = *options_.team;
-        if (team.member_count() == 0 || team.member_index() >= team.member_count()) {
-            raise(codes::train_team_mismatch, "trainer: team member " + std::to_string(team.member_index()) + " of " +
-                                                  std::to_string(team.member_count()));
-        }
-        const double mine[6] = {static_cast<double>(train.rows()), static_cast<double>(train.features.shape()[1]),
-                                static_cast<double>(validation.rows()), static_cast<double>(options_.batch_size),
-                                static_cast<double>(options_.seed % 1000003u), static_cast<double>(net_.parameter_count())};
-        static const char* const names[6] = {"training rows", "input columns", "validation rows", "batch size", "seed", "parameters"};
-        double sums[12];
-        for (int k = 0; k < 6; ++k) {
-            sums[k] = mine[k];
-            sums[6 + k] = mine[k] * mine[k];
-        }
-        team.sum(sums, 12);
-        const double m = static_cast<double>(team.member_count());
-        for (int k = 0; k < 6; ++k) {
-            if (sums[k] * sums[k] != m * sums[6 + k]) {
-                raise(codes::train_team_mismatch, std::string("trainer: the team's members disagree on the ") + names[k] + " (member " +
-                                                      std::to_string(team.member_index()) + " has " + number_text(mine[k]) +
-                                                      ", the mean is " + number_text(sums[k] / m) + ")");
+        const std::size_t members = team.member_count(), me = team.member_index();
+        const bool shards = options_.member_rows == team_rows::shard_per_member;
+        enum field : std::size_t {
+            holding, training_rows, validation_rows, input_columns, outputs, classes, batch, seed_low, seed_high, epochs, patience,
+            min_improvement, retries, rate_factor, loss, reduction, shuffle, parameters, field_count
+        };
+        static const char* const names[field_count] = {
+            "row holding (0 all rows on every member, 1 a shard per member)", "training rows", "validation rows", "input columns",
+            "network outputs", "class count", "batch size", "seed (low bits)", "seed (high bits)", "epochs", "patience",
+            "minimum improvement", "divergence retries", "divergence rate factor", "loss", "loss reduction", "shuffling (1 on, 0 off)",
+            "parameters"};
+        std::vector<double> all(members * field_count, 0.0);
+        double* mine = all.data() + me * field_count;
+        const std::size_t inputs = train.features.shape()[1];
+        mine[training_rows] = static_cast<double>(train.rows());
+        mine[validation_rows] = static_cast<double>(validation.rows());
+        mine[input_columns] = static_cast<double>(inputs);
+        mine[outputs] = static_cast<double>(net_.output_width(inputs));
+        mine[classes] = static_cast<double>(train.class_count);
+        mine[batch] = static_cast<double>(options_.batch_size);
+        mine[seed_low] = static_cast<double>(options_.seed & 0xFFFFFFFFu);
+        mine[seed_high] = static_cast<double>(options_.seed >> 32);
+        mine[epochs] = static_cast<double>(options_.epochs);
+        mine[patience] = static_cast<double>(options_.patience);
+        mine[min_improvement] = options_.min_improvement;
+        mine[retries] = static_cast<double>(options_.divergence_retries);
+        mine[rate_factor] = options_.divergence_rate_factor;
+        mine[loss] = static_cast<double>(options_.loss);
+        mine[reduction] = static_cast<double>(options_.loss_settings.reduction);
+        mine[shuffle] = options_.shuffle ? 1.0 : 0.0;
+        mine[holding] = static_cast<double>(options_.member_rows);
+        mine[parameters] = static_cast<double>(net_.parameter_count());
+        team.sum(all.data(), all.size());
+        const bool all_shards = all[holding] == static_cast<double>(team_rows::shard_per_member);
+        for (std::size_t k = 0; k < field_count; ++k) {
+            if (all_shards && (k == training_rows || k == validation_rows)) continue;
+            for (std::size_t m = 1; m < members; ++m) {
+                const double first = all[k], other = all[m * field_count + k];
+                if (other == first) continue;
+                raise(codes::train_team_mismatch, std::string("trainer: the team's members disagree on the ") + names[k] + " (member 0 has " +
+                                                      number_text(first) + ", member " + std::to_string(m) + " has " +
+                                                      number_text(other) + "; this is member " + std::to_string(me) + ")");
             }
         }
+        if (!shards) return (train.rows() + options_.batch_size * members - 1) / (options_.batch_size * members);
+        std::size_t steps = 0;
+        double validation_total = 0.0;
+        for (std::size_t m = 0; m < members; ++m) {
+            const auto shard = static_cast<std::size_t>(all[m * field_count + training_rows]);
+            steps = std::max(steps, (shard + options_.batch_size - 1) / options_.batch_size);
+            validation_total += all[m * field_count + validation_rows];
+        }
+        validate = validation_total > 0.0;
+        return steps;
     }
     static std::string number_text(double v) {
         std::string t = std::to_string(v);
@@ -782,15 +933,14 @@ private:
     }
 
     // The validation loss and metric of the whole validation set from each
-    // member's share: the loss weighted as in training, accuracy by rows,
-    // RMSE through the summed squared errors.
-    void evaluate_shared(const supervised_rows<T>& share, double& loss, double& metric) {
+    // member's share (which may be empty): the loss weighted as in training,
+    // accuracy by rows, RMSE through the summed squared errors.
+    void evaluate_shared(const supervised_rows<T>& share, bool classify, double& loss, double& metric) {
         double local_loss = 0.0, local_metric = 0.0;
         const std::size_t n = share.rows();
         if (n > 0) assess(share, local_loss, local_metric);
         const double w = batch_weight(share.labels, n);
-        const bool classify = share.is_classification();
-        const double values = static_cast<double>(n * (classify ? 1 : share.targets.shape()[1]));
+        const double values = n > 0 ? static_cast<double>(n * (classify ? 1 : share.targets.shape()[1])) : 0.0;
         double sums[4] = {w * local_loss, w, classify ? local_metric * values : local_metric * local_metric * values, values};
         options_.team->sum(sums, 4);
         loss = options_.loss_settings.reduction == loss_reduction::mean ? sums[0] / sums[1] : sums[0];
@@ -821,6 +971,7 @@ private:
     batch_buffers full_, tail_;
     training_progress<T> progress_;
     std::vector<T> fused_;                  // a team's per-step sum
+    std::size_t epoch_batches_ = 0;         // steps per epoch
     supervised_rows<T> shared_validation_;  // a team member's validation rows
 };
 

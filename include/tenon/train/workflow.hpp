@@ -15,6 +15,7 @@
 
 #include <cmath>
 #include <cstddef>
+#include <exception>
 #include <memory>
 #include <string>
 #include <utility>
@@ -108,8 +109,24 @@ struct model_settings {
     /// Train as a member of this team (train/trainer.hpp; e.g. one MPI rank,
     /// distributed/data_parallel.hpp); `batch_size` is then each member's
     /// batch and the global batch is batch_size x members. Every member
-    /// calls fit_model with the same table, rows and settings.
+    /// calls fit_model with the same settings, and with the same table and
+    /// rows unless the members hold shards (`member_rows`).
     training_team* team = nullptr;
+    /// How the team's members hold the rows (train/trainer.hpp, "Teams").
+    /// With team_rows::shard_per_member each member passes its own shard of
+    /// the training and validation rows (of its own table, with the same
+    /// columns as the others'): the plan is measured over all members'
+    /// training rows through `exchange`, and each member prepares and holds
+    /// only its own rows.
+    team_rows member_rows = team_rows::all_on_every_member;
+    /// Merges the plan's statistics over the members' shards (prep/
+    /// statistics.hpp; over MPI: distributed/plan_merge.hpp's
+    /// mpi_statistics_exchange). Needed when the team holds shards; not used
+    /// otherwise.
+    statistics_exchange* exchange = nullptr;
+    /// Shuffle the training rows every epoch; false takes them in the order
+    /// given (training_options::shuffle).
+    bool shuffle = true;
 };
 
 /// A trained model with the plan that prepares its inputs.
@@ -119,6 +136,7 @@ struct fitted_model {
     network<T> net;
     training_outcome outcome;
     loss_kind loss = loss_kind::l2;
+    // Row counts; with a team holding shards, over all members' shards.
     std::size_t train_rows = 0;
     std::size_t validation_rows = 0;
     std::size_t dropped_rows = 0;  // rows with a missing target, left out of training and validation
@@ -160,44 +178,73 @@ supervised_rows<T> to_supervised(prepared_rows<T>&& p, const measured_plan& plan
 /// Measures `recipe` on `train_rows`, trains a perceptron on them with early
 /// stopping on `validation_rows` (which may be empty: then training runs all
 /// epochs on the training loss), and returns the model with its plan.
+/// In a team whose members hold shards (model_settings::member_rows), the
+/// rows are this member's shard: the plan is measured over all members'
+/// training rows (model_settings::exchange), this member prepares only its
+/// own rows, and every member returns the same model.
 template <class T>
 fitted_model<T> fit_model(const table& t, const plan& recipe, const std::vector<std::size_t>& train_rows,
                           const std::vector<std::size_t>& validation_rows, const model_settings& s) {
     TENON_REQUIRE_SCALAR(T);
-    measured_plan measured = recipe.measure(t, train_rows);
-    if (!measured.has_target()) raise(codes::train_option, "fit_model: the plan has no target column");
-    const bool classify = measured.target_type() == target_kind::classification;
-    if (classify && measured.class_count() < 2) {
-        raise(codes::train_option, "fit_model: the target '" + measured.target_name() + "' has " + std::to_string(measured.class_count()) +
-                                       " class in the training rows; classification needs at least 2");
+    const bool shards = s.team && s.member_rows == team_rows::shard_per_member;
+    if (shards && !s.exchange) {
+        raise(codes::train_option, "fit_model: a team whose members hold shards of the rows needs model_settings::exchange, so that one "
+                                   "plan is measured over all members' training rows");
     }
-    prepared_rows<T> train_prepared = measured.template apply<T>(t, train_rows);
-    prepared_rows<T> val_prepared;
-    if (!validation_rows.empty()) val_prepared = measured.template apply<T>(t, validation_rows);
-    const std::size_t dropped = train_prepared.dropped_missing_target + val_prepared.dropped_missing_target;
+    if (shards) require_same_columns(t, *s.exchange, "fit_model");
+    measured_plan measured = recipe.measure(t, train_rows, shards ? s.exchange : nullptr);
+    // Preparing the rows can fail on one member alone (e.g. a missing cell
+    // without a fill in its shard): the members agree on failing before the
+    // trainer's first collective call.
+    std::exception_ptr failure;
+    supervised_rows<T> train, validation;
+    std::size_t dropped = 0;
+    loss_kind loss = loss_kind::l2;
+    network<T> net;
+    try {
+        if (!measured.has_target()) raise(codes::train_option, "fit_model: the plan has no target column");
+        const bool classify = measured.target_type() == target_kind::classification;
+        if (classify && measured.class_count() < 2) {
+            raise(codes::train_option, "fit_model: the target '" + measured.target_name() + "' has " + std::to_string(measured.class_count()) +
+                                           " class in the training rows; classification needs at least 2");
+        }
+        prepared_rows<T> train_prepared = measured.template apply<T>(t, train_rows);
+        prepared_rows<T> val_prepared;
+        if (!validation_rows.empty()) val_prepared = measured.template apply<T>(t, validation_rows);
+        dropped = train_prepared.dropped_missing_target + val_prepared.dropped_missing_target;
 
-    supervised_rows<T> train = detail::to_supervised(std::move(train_prepared), measured);
-    supervised_rows<T> validation;
-    if (!validation_rows.empty()) validation = detail::to_supervised(std::move(val_prepared), measured);
+        train = detail::to_supervised(std::move(train_prepared), measured);
+        if (!validation_rows.empty()) validation = detail::to_supervised(std::move(val_prepared), measured);
 
-    const loss_kind loss = s.loss_given ? s.loss : (classify ? loss_kind::cross_entropy : loss_kind::l2);
-    if (classify != (loss == loss_kind::cross_entropy)) {
-        raise(codes::train_option, std::string("fit_model: the ") + loss_kind_name(loss) + " loss does not fit a " +
-                                       (classify ? "classification" : "regression") + " target");
+        loss = s.loss_given ? s.loss : (classify ? loss_kind::cross_entropy : loss_kind::l2);
+        if (classify != (loss == loss_kind::cross_entropy)) {
+            raise(codes::train_option, std::string("fit_model: the ") + loss_kind_name(loss) + " loss does not fit a " +
+                                           (classify ? "classification" : "regression") + " target");
+        }
+        std::vector<std::size_t> sizes;
+        sizes.push_back(measured.feature_count());
+        sizes.insert(sizes.end(), s.hidden.begin(), s.hidden.end());
+        sizes.push_back(classify ? measured.class_count() : 1);
+        // He initialization suits rectifier-like units (He et al. 2015); Glorot
+        // suits tanh and sigmoid (Glorot & Bengio 2010).
+        const bool rectifier = s.hidden_activation == activation::relu || s.hidden_activation == activation::leaky_relu ||
+                               s.hidden_activation == activation::elu || s.hidden_activation == activation::gelu ||
+                               s.hidden_activation == activation::gelu_tanh;
+        const initializer init{rectifier ? init_scheme::he_uniform : init_scheme::glorot_uniform, 0.0};
+        net = make_mlp<T>(sizes, s.hidden_activation, init, s.seed);
+    } catch (...) {
+        if (!s.team) throw;
+        failure = std::current_exception();
     }
-    std::vector<std::size_t> sizes;
-    sizes.push_back(measured.feature_count());
-    sizes.insert(sizes.end(), s.hidden.begin(), s.hidden.end());
-    sizes.push_back(classify ? measured.class_count() : 1);
-    // He initialization suits rectifier-like units (He et al. 2015); Glorot
-    // suits tanh and sigmoid (Glorot & Bengio 2010).
-    const bool rectifier = s.hidden_activation == activation::relu || s.hidden_activation == activation::leaky_relu ||
-                           s.hidden_activation == activation::elu || s.hidden_activation == activation::gelu ||
-                           s.hidden_activation == activation::gelu_tanh;
-    const initializer init{rectifier ? init_scheme::he_uniform : init_scheme::glorot_uniform, 0.0};
-    fitted_model<T> model{std::move(measured), make_mlp<T>(sizes, s.hidden_activation, init, s.seed), {}, loss, 0, 0, dropped};
-    model.train_rows = train.rows();
-    model.validation_rows = validation.rows();
+    if (s.team) throw_if_any_member_failed(*s.team, failure, "fit_model");
+    fitted_model<T> model{std::move(measured), std::move(net), {}, loss, train.rows(), validation.rows(), dropped};
+    if (shards) {  // the counts of all members' shards
+        double counts[3] = {static_cast<double>(model.train_rows), static_cast<double>(model.validation_rows), static_cast<double>(dropped)};
+        s.team->sum(counts, 3);
+        model.train_rows = static_cast<std::size_t>(counts[0]);
+        model.validation_rows = static_cast<std::size_t>(counts[1]);
+        model.dropped_rows = static_cast<std::size_t>(counts[2]);
+    }
 
     auto rule = make_update_rule<T>(s.update);
     constant_rate schedule(s.learning_rate);
@@ -214,6 +261,8 @@ fitted_model<T> fit_model(const table& t, const plan& recipe, const std::vector<
     o.on_epoch = s.on_epoch;
     o.on_batch = s.on_batch;
     o.team = s.team;
+    o.member_rows = s.member_rows;
+    o.shuffle = s.shuffle;
     std::unique_ptr<thread_pool> pool;
     if (s.workers) {
         o.workers = s.workers;
