@@ -463,9 +463,12 @@ Model and training
                          order (default 1). The same seed and data give the
                          same metrics on every run (and under mpirun with the
                          same process count).
-  --threads N            threads for the matrix products of training (N >= 1,
-                         default 1), each large product split across them; the
-                         results are the same bits for every N.
+  --threads N            threads for training (N >= 1, default 1), each large
+                         matrix product and the update split across them; the
+                         results are the same bits for every N. Built with the
+                         BLAS backend, the BLAS gets N threads for the products
+                         instead (its results may then differ in the last bits
+                         between thread counts).
 
 Output
   --metrics OUT.json     write the metrics as JSON: task, rows (train, val, test,
@@ -746,6 +749,10 @@ inline tenon::model_settings make_settings(const train_request& q) {
     m.seed = q.seed;
     m.threads = q.threads;
     m.shuffle = !q.keep_order;
+    // With the BLAS backend the products are the BLAS's to split: it gets
+    // the same number of threads (a BLAS without such a call keeps its own
+    // setting, e.g. from its environment).
+    if (tenon::active_kernel_path() == tenon::kernel_path::blas) tenon::set_blas_threads(q.threads);
     return m;
 }
 
