@@ -13,6 +13,7 @@
 // executor and any thread count.
 #pragma once
 
+#include <algorithm>
 #include <atomic>
 #include <condition_variable>
 #include <cstddef>
@@ -144,10 +145,21 @@ private:
 
     void work_loop() noexcept {
         std::uint64_t seen = 0;
+        // Spin a little for the next run before sleeping: a training step
+        // issues runs back to back. How long adapts to the gaps seen: a run
+        // that came while spinning doubles the next spin, one that did not
+        // halves it. So a worker whose runs come far apart (e.g. only the
+        // update, while a BLAS's own threads do the products) soon sleeps
+        // at once instead of taking a core from them.
+        int spin_limit = spin_rounds;
         for (;;) {
-            // Spin a little for the next run before sleeping: a training step
-            // issues runs back to back.
-            for (int spin = 0; spin < spin_rounds && generation_.load(std::memory_order_acquire) == seen; ++spin) relax();
+            int spin = 0;
+            while (spin < spin_limit && generation_.load(std::memory_order_acquire) == seen) {
+                relax();
+                ++spin;
+            }
+            const bool came_while_spinning = generation_.load(std::memory_order_acquire) != seen;
+            spin_limit = came_while_spinning ? std::min(spin_rounds, 2 * spin_limit + 64) : spin_limit / 2;
             task_function task;
             void* context;
             std::size_t count;
