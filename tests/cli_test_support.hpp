@@ -5,7 +5,9 @@
 #include <algorithm>
 #include <filesystem>
 #include <fstream>
+#include <map>
 #include <sstream>
+#include <stdexcept>
 #include <string>
 #include <system_error>
 #include <vector>
@@ -68,5 +70,100 @@ inline std::string read_file(const std::string& path) {
     s << in.rdbuf();
     return s.str();
 }
+
+/// A minimal JSON reader for the tool's metrics files: flattens every
+/// scalar into "path.to.key" -> its text ("null" for null; array items by
+/// index).
+class json_flattener {
+public:
+    explicit json_flattener(const std::string& text) : s_(text) {
+        value("");
+        blank();
+        if (p_ != s_.size()) throw std::runtime_error("trailing text in JSON at " + std::to_string(p_));
+    }
+    std::map<std::string, std::string> values;
+
+private:
+    void blank() {
+        while (p_ < s_.size() && (s_[p_] == ' ' || s_[p_] == '\n' || s_[p_] == '\r' || s_[p_] == '\t')) ++p_;
+    }
+    void expect(char c) {
+        blank();
+        if (p_ >= s_.size() || s_[p_] != c) throw std::runtime_error(std::string("JSON: expected '") + c + "' at " + std::to_string(p_));
+        ++p_;
+    }
+    std::string string_token() {
+        expect('"');
+        std::string out;
+        while (p_ < s_.size() && s_[p_] != '"') {
+            if (s_[p_] == '\\') {
+                ++p_;
+                const char e = s_.at(p_);
+                if (e == 'u') {
+                    out += static_cast<char>(std::stoi(s_.substr(p_ + 1, 4), nullptr, 16));
+                    p_ += 4;
+                } else {
+                    out += e == 'n' ? '\n' : e == 't' ? '\t' : e == 'r' ? '\r' : e == 'b' ? '\b' : e == 'f' ? '\f' : e;
+                }
+                ++p_;
+            } else {
+                out += s_[p_++];
+            }
+        }
+        expect('"');
+        return out;
+    }
+    void value(const std::string& path) {
+        blank();
+        const char c = s_.at(p_);
+        if (c == '{') {
+            ++p_;
+            blank();
+            if (s_.at(p_) == '}') {
+                ++p_;
+                return;
+            }
+            for (;;) {
+                const std::string key = string_token();
+                expect(':');
+                value(path.empty() ? key : path + "." + key);
+                blank();
+                if (s_.at(p_) == ',') {
+                    ++p_;
+                    continue;
+                }
+                expect('}');
+                return;
+            }
+        }
+        if (c == '[') {
+            ++p_;
+            blank();
+            if (s_.at(p_) == ']') {
+                ++p_;
+                return;
+            }
+            for (std::size_t k = 0;; ++k) {
+                value(path + "." + std::to_string(k));
+                blank();
+                if (s_.at(p_) == ',') {
+                    ++p_;
+                    continue;
+                }
+                expect(']');
+                return;
+            }
+        }
+        if (c == '"') {
+            values[path] = string_token();
+            return;
+        }
+        const std::size_t start = p_;
+        while (p_ < s_.size() && std::string(",}] \n\r\t").find(s_[p_]) == std::string::npos) ++p_;
+        values[path] = s_.substr(start, p_ - start);
+    }
+    const std::string& s_;
+    std::size_t p_ = 0;
+};
 
 }  // namespace cli_test
