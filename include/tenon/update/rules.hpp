@@ -196,8 +196,8 @@ protected:
     bool treats_elements_independently() const noexcept override { return true; }
     bool scans_gradients_in_pass() const noexcept override { return true; }
 
-public:
-    /// lr_t and eps_t of the current step (see above), rounded once from double.
+private:
+    // lr_t and eps_t of the current step (see above), rounded once from double.
     T step_rate(T lr) const noexcept {
         const double t = static_cast<double>(this->step_count());
         const double c1 = 1.0 - std::pow(static_cast<double>(a_.beta1), t), c2 = 1.0 - std::pow(static_cast<double>(a_.beta2), t);
@@ -208,7 +208,6 @@ public:
         return static_cast<T>(static_cast<double>(a_.epsilon) * std::sqrt(c2));
     }
 
-private:
     adam_options<T> a_;
 };
 
