@@ -316,12 +316,17 @@ private:
             slots[s] = r.rule->slots_[c.parameter_index * r.rule->slot_count_ + s].data() + c.first;
         const flush_subnormals_scope flush;  // this thread's mode, as on the calling thread
         // Executor tasks must not throw; the built-in rules never do.
+#if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
         try {
             r.rule->update_parameter(p.value().data() + c.first, p.grad().data() + c.first, slots, c.last - c.first, r.learning_rate,
                                      r.transform);
         } catch (...) {
             r.failed.store(true, std::memory_order_relaxed);
         }
+#else
+        r.rule->update_parameter(p.value().data() + c.first, p.grad().data() + c.first, slots, c.last - c.first, r.learning_rate,
+                                 r.transform);
+#endif
     }
 
     void prepare(const std::vector<parameter<T>*>& params) {
