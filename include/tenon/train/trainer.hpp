@@ -433,14 +433,21 @@ public:
         // A team member whose checks fail must not leave the others waiting
         // in the first collective call: the failure is shared first.
         std::exception_ptr failure;
-        try {
+        const auto checks = [&] {
             check_rows(train, validation);
             if (options_.resume) check_resume(*options_.resume, train.rows());
             if (team && !shards) team_validation(validation);
+        };
+#if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
+        try {
+            checks();
         } catch (...) {
             if (!team) throw;
             failure = std::current_exception();
         }
+#else
+        checks();  // without exceptions a failed check ends the process (core/error.hpp)
+#endif
         bool validate = validation.rows() > 0;
         if (team) {
             throw_if_any_member_failed(*team, failure, "trainer");

@@ -201,7 +201,7 @@ fitted_model<T> fit_model(const table& t, const plan& recipe, const std::vector<
     std::size_t dropped = 0;
     loss_kind loss = loss_kind::l2;
     network<T> net;
-    try {
+    const auto prepare = [&] {
         if (!measured.has_target()) raise(codes::train_option, "fit_model: the plan has no target column");
         const bool classify = measured.target_type() == target_kind::classification;
         if (classify && measured.class_count() < 2) {
@@ -232,10 +232,17 @@ fitted_model<T> fit_model(const table& t, const plan& recipe, const std::vector<
                                s.hidden_activation == activation::gelu_tanh;
         const initializer init{rectifier ? init_scheme::he_uniform : init_scheme::glorot_uniform, 0.0};
         net = make_mlp<T>(sizes, s.hidden_activation, init, s.seed);
+    };
+#if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
+    try {
+        prepare();
     } catch (...) {
         if (!s.team) throw;
         failure = std::current_exception();
     }
+#else
+    prepare();  // without exceptions a failure ends the process (core/error.hpp)
+#endif
     if (s.team) throw_if_any_member_failed(*s.team, failure, "fit_model");
     fitted_model<T> model{std::move(measured), std::move(net), {}, loss, train.rows(), validation.rows(), dropped};
     if (shards) {  // the counts of all members' shards
