@@ -450,6 +450,29 @@ TEST_CASE("damaged architecture bytes fail with their error codes") {
     w.u32(0xFFFFFFFFu);
     CHECK(code_of([&] { tenon::record_from_bytes(huge); }) == "model.record.malformed");
 
+    // Matrix sides: an empty matrix with a side of 2^63 once passed the size
+    // check and overflowed the storage's signed strides (found by fuzzing
+    // the model-file loader; fuzz/regressions/model_file/matrix-side-overflow).
+    const auto sides_of = [](std::uint64_t rows, std::uint64_t cols, std::size_t payload) {
+        std::vector<std::uint8_t> b;
+        tenon::byte_writer sw(b);
+        sw.u64(rows);
+        sw.u64(cols);
+        b.resize(b.size() + payload);
+        tenon::byte_reader r(b, "matrix test");
+        return r.matrix_sides(4, "a matrix");
+    };
+    CHECK(code_of([&] { sides_of(0, std::uint64_t(1) << 63, 0); }) == "model.record.malformed");
+    CHECK(code_of([&] { sides_of((std::uint64_t(1) << 32) + 1, 0, 0); }) == "model.record.malformed");
+    CHECK(code_of([&] { sides_of(3, 5, 59); }) == "model.record.malformed");
+    CHECK(sides_of(3, 5, 60) == std::pair<std::size_t, std::size_t>(3, 5));
+    CHECK(sides_of(0, std::uint64_t(1) << 32, 0) == std::pair<std::size_t, std::size_t>(0, std::size_t(1) << 32));
+    try {
+        sides_of(0, std::uint64_t(1) << 63, 0);
+    } catch (const tenon::error& e) {
+        CHECK(std::string(e.what()).find("matrix test at byte 0: a matrix declares 0x9223372036854775808 values") != std::string::npos);
+    }
+
     tenon::layer_record unknown;
     unknown.kind = "network";
     unknown.children.push_back(tenon::layer_record{"convolution", "c1", {}, {}, {}});

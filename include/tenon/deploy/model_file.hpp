@@ -235,12 +235,8 @@ void put_matrix(byte_writer& w, const matrix<T>& m) {
 }
 template <class T>
 matrix<T> get_matrix(byte_reader& in) {
-    const std::uint64_t rows = in.u64(), cols = in.u64();
-    if (cols != 0 && rows > in.remaining() / sizeof(T) / cols)
-        in.fail("a matrix of " + std::to_string(rows) + "x" + std::to_string(cols) + " values does not fit in the " +
-                std::to_string(in.remaining()) + " bytes left");
-    if (cols == 0 && rows > (std::uint64_t(1) << 32)) in.fail("a matrix declares " + std::to_string(rows) + " empty rows");
-    matrix<T> m({static_cast<std::size_t>(rows), static_cast<std::size_t>(cols)});
+    const auto sides = in.matrix_sides(sizeof(T), "a matrix");
+    matrix<T> m({sides.first, sides.second});
     for (std::size_t k = 0; k < m.size(); ++k) m.data()[k] = get_scalar<T>(in);
     return m;
 }
@@ -785,8 +781,8 @@ inline model_file_summary inspect_model_bytes(const std::vector<std::uint8_t>& b
                 const std::size_t n = in.count(20, "weight matrices");
                 for (std::size_t i = 0; i < n; ++i) {
                     in.text();
-                    const std::uint64_t rows = in.u64(), cols = in.u64();
-                    if (cols != 0 && rows > in.remaining() / c.scalar_bytes / cols) in.fail("a weight matrix does not fit in the bytes left");
+                    const auto sides = in.matrix_sides(c.scalar_bytes, "a weight matrix");
+                    const std::uint64_t rows = sides.first, cols = sides.second;
                     const std::uint64_t skip = rows * cols * c.scalar_bytes;
                     for (std::uint64_t k = 0; k < skip; ++k) in.u8();
                     values += rows * cols;

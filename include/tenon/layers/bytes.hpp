@@ -104,6 +104,27 @@ public:
         return n;
     }
 
+    /// Reads a matrix's rows and columns (two u64) and checks that
+    /// `bytes_per_value` bytes for each of their values could still follow.
+    /// Each side is also bounded on its own (at most 2^32): an empty matrix
+    /// passes the size check with any other side, and a larger side would
+    /// overflow the signed strides of the storage that receives it.
+    std::pair<std::size_t, std::size_t> matrix_sides(std::size_t bytes_per_value, const char* of_what) {
+        const std::size_t at = position_;
+        const std::uint64_t rows = u64(), cols = u64();
+        const std::uint64_t side_limit = std::uint64_t(1) << 32;
+        const std::string declared = std::to_string(rows) + "x" + std::to_string(cols);
+        if (rows > side_limit || cols > side_limit) {
+            raise(codes::model_record_malformed,
+                  what_ + " at byte " + std::to_string(at) + ": " + of_what + " declares " + declared + " values; a side may be at most 2^32");
+        }
+        if (cols != 0 && bytes_per_value > 0 && rows > remaining() / bytes_per_value / cols) {
+            raise(codes::model_record_malformed, what_ + " at byte " + std::to_string(at) + ": " + of_what + " declares " + declared +
+                                                     " values, more than the " + std::to_string(remaining()) + " bytes left hold");
+        }
+        return {static_cast<std::size_t>(rows), static_cast<std::size_t>(cols)};
+    }
+
     /// Raises model.record.malformed with the reader's context.
     [[noreturn]] void fail(const std::string& message) const {
         raise(codes::model_record_malformed, what_ + " at byte " + std::to_string(position_) + ": " + message);

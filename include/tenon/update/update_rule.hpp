@@ -248,12 +248,8 @@ public:
         shapes.reserve(count);
         slots.reserve(count * slot_count_);
         for (std::size_t i = 0; i < count; ++i) {
-            const std::uint64_t rows = in.u64(), cols = in.u64();
-            if (slot_count_ > 0 && cols != 0 && rows > in.remaining() / (8 * slot_count_) / cols) {
-                in.fail("parameter " + std::to_string(i) + " declares " + std::to_string(rows) + "x" + std::to_string(cols) +
-                        " values per slot, more than the remaining bytes hold");
-            }
-            const shape2 s{static_cast<std::size_t>(rows), static_cast<std::size_t>(cols)};
+            const auto sides = in.matrix_sides(8 * slot_count_, ("parameter " + std::to_string(i)).c_str());
+            const shape2 s{sides.first, sides.second};
             shapes.push_back(s);
             for (std::size_t k = 0; k < slot_count_; ++k) {
                 matrix<T> m({s.rows, s.cols});
