@@ -423,6 +423,46 @@ TEST_CASE_TEMPLATE("update rule state round-trips through bytes exactly", T, flo
     }
 }
 
+TEST_CASE("an update rule returns to an in-memory copy of its state bit for bit") {
+    tenon::parameter<float> w("w", make_matrix<float>({{1.0f, -2.0f, 0.5f}}));
+    tenon::parameter<float> v("v", make_matrix<float>({{3.0f}}));
+    const auto step = [&](tenon::update_rule<float>& rule, float g) {
+        w.grad().fill(g);
+        v.grad().fill(-g);
+        rule.apply({&w, &v}, 0.01f);
+    };
+    tenon::adam<float> rule;
+    tenon::adam<float>::state_copy copy;
+    rule.copy_state_into(copy);  // before any step: not laid out
+    step(rule, 0.3f);
+    step(rule, -0.7f);
+    const std::vector<std::uint8_t> at_two = rule.save_state();
+    rule.copy_state_into(copy);
+    step(rule, 1.5f);
+    CHECK(rule.save_state() != at_two);
+    rule.restore_state(copy);
+    CHECK(rule.save_state() == at_two);  // step counter and both moments
+    CHECK(rule.step_count() == 2);
+
+    // A copy from another layout (here: none yet) is taken over whole.
+    tenon::adam<float> fresh;
+    tenon::adam<float>::state_copy empty;
+    fresh.copy_state_into(empty);
+    rule.restore_state(empty);
+    CHECK(rule.step_count() == 0);
+    CHECK(rule.parameter_count() == 0);
+    rule.restore_state(copy);
+    CHECK(rule.save_state() == at_two);
+
+    // Another slot count is refused and the state kept.
+    tenon::momentum<float> other;
+    step(other, 0.2f);
+    tenon::momentum<float>::state_copy one_slot;
+    other.copy_state_into(one_slot);
+    CHECK(code_of([&] { rule.restore_state(one_slot); }) == "model.update.state_mismatch");
+    CHECK(rule.save_state() == at_two);
+}
+
 TEST_CASE("update rule state errors") {
     tenon::parameter<double> w("w", make_matrix<double>({{1.0, 2.0}}));
     tenon::parameter<double> v("v", make_matrix<double>({{1.0}}));

@@ -496,7 +496,7 @@ public:
         while (!stop && epoch < options_.epochs) {
             const double epoch_t0 = options_.clock();
             net_.snapshot_into(epoch_start);
-            const std::vector<std::uint8_t> rule_state = rule_.save_state();
+            rule_.copy_state_into(rule_start_);
             const random_state engine_state = shuffle_engine.state();
             const std::uint64_t steps_before = out.steps;
 
@@ -507,7 +507,7 @@ public:
                 if (r.status != epoch_status::diverged) break;
                 // Divergence guard: back to the start of the epoch, smaller steps.
                 net_.restore(epoch_start);
-                rule_.load_state(rule_state);
+                rule_.restore_state(rule_start_);
                 shuffle_engine.set_state(engine_state);
                 out.steps = steps_before;
                 if (retries == options_.divergence_retries) break;
@@ -547,7 +547,7 @@ public:
                 schedule_.report_metric(s.validation_loss);
                 if (!std::isfinite(s.validation_loss)) {
                     net_.restore(epoch_start);
-                    rule_.load_state(rule_state);
+                    rule_.restore_state(rule_start_);
                     out.reason = stop_reason::diverged;
                     out.message = "the validation loss became non-finite in epoch " + std::to_string(epoch + 1);
                     s.seconds = options_.clock() - epoch_t0;
@@ -994,6 +994,7 @@ private:
     rate_schedule& schedule_;
     training_options<T> options_;
     batch_buffers full_, tail_;
+    typename update_rule<T>::state_copy rule_start_;  // the rule at the current epoch's start
     training_progress<T> progress_;
     std::vector<T> fused_;                  // a team's per-step sum
     std::size_t epoch_batches_ = 0;         // steps per epoch

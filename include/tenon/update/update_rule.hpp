@@ -221,6 +221,51 @@ public:
         return out;
     }
 
+    /// The state in memory (step counter, layout, every slot value) for
+    /// returning to it later in the same process, e.g. the trainer's
+    /// start-of-epoch point. Nothing is encoded, and copying again into the
+    /// same object reuses its buffers (no allocation once they are sized);
+    /// save_state() is the form to store or send.
+    struct state_copy {
+        std::uint64_t step = 0;
+        bool laid_out = false;
+        std::size_t slot_count = 0;
+        std::vector<shape2> shapes;
+        std::vector<matrix<T>> slots;
+    };
+    void copy_state_into(state_copy& c) const {
+        c.shapes.assign(shapes_.begin(), shapes_.end());
+        c.slots.resize(slots_.size());
+        for (std::size_t i = 0; i < slots_.size(); ++i) {
+            ensure_shape(c.slots[i], shape_of(slots_[i]));
+            std::copy(slots_[i].data(), slots_[i].data() + slots_[i].size(), c.slots[i].data());
+        }
+        c.step = step_;
+        c.laid_out = laid_out_;
+        c.slot_count = slot_count_;
+    }
+    /// Returns to a state from copy_state_into() of a rule with the same
+    /// slots (model.update.state_mismatch otherwise). With the layout the
+    /// rule already has, the values are copied in place; otherwise the new
+    /// layout is built aside first, so a failure leaves the rule as it was.
+    void restore_state(const state_copy& c) {
+        if (c.slot_count != slot_count_ || c.slots.size() != c.shapes.size() * slot_count_) {
+            raise(codes::model_update_state_mismatch, std::string(kind()) + " update rule: a state copy with " +
+                                                          std::to_string(c.slot_count) + " slots per parameter, the rule has " +
+                                                          std::to_string(slot_count_));
+        }
+        if (c.shapes == shapes_) {
+            for (std::size_t i = 0; i < slots_.size(); ++i) std::copy(c.slots[i].data(), c.slots[i].data() + c.slots[i].size(), slots_[i].data());
+        } else {
+            std::vector<shape2> shapes(c.shapes);
+            std::vector<matrix<T>> slots(c.slots);
+            shapes_.swap(shapes);
+            slots_.swap(slots);
+        }
+        step_ = c.step;
+        laid_out_ = c.laid_out;
+    }
+
     /// Restores a state written by save_state() of a rule of the same kind.
     /// Raises model.update.state_mismatch for another kind or slot layout and
     /// model.record.truncated / model.record.malformed for damaged bytes; on
