@@ -3,6 +3,7 @@
 
 #include "tenon/version.hpp"
 
+#include "tenon/core/bytes.hpp"
 #include "tenon/core/error.hpp"
 #include "tenon/core/error_codes.hpp"
 #include "tenon/core/gemm.hpp"
@@ -17,7 +18,6 @@
 #include "tenon/autodiff/parameter.hpp"
 #include "tenon/autodiff/tape.hpp"
 
-#include "tenon/prep/byte_format.hpp"
 #include "tenon/prep/cell_parsing.hpp"
 #include "tenon/prep/csv.hpp"
 #include "tenon/prep/encoding.hpp"
@@ -30,7 +30,6 @@
 #include "tenon/prep/table.hpp"
 
 #include "tenon/layers/activation.hpp"
-#include "tenon/layers/bytes.hpp"
 #include "tenon/layers/dense.hpp"
 #include "tenon/layers/dropout.hpp"
 #include "tenon/layers/initializers.hpp"

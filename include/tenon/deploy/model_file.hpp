@@ -35,10 +35,10 @@
 #include <utility>
 #include <vector>
 
+#include "tenon/core/bytes.hpp"
 #include "tenon/deploy/atomic_file.hpp"
 #include "tenon/deploy/checksum.hpp"
 #include "tenon/deploy/reference.hpp"
-#include "tenon/layers/bytes.hpp"
 #include "tenon/layers/network.hpp"
 #include "tenon/prep/plan.hpp"
 #include "tenon/train/trainer.hpp"

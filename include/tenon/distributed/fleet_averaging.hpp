@@ -34,10 +34,10 @@
 #include <utility>
 #include <vector>
 
+#include "tenon/core/bytes.hpp"
 #include "tenon/deploy/checksum.hpp"
 #include "tenon/deploy/model_file.hpp"
 #include "tenon/deploy/retraining.hpp"
-#include "tenon/layers/bytes.hpp"
 
 TENON_NAMESPACE_BEGIN
 

@@ -28,8 +28,8 @@
 #include <utility>
 #include <vector>
 
+#include "tenon/core/bytes.hpp"
 #include "tenon/distributed/communicator.hpp"
-#include "tenon/layers/bytes.hpp"
 #include "tenon/prep/plan.hpp"
 #include "tenon/prep/statistics.hpp"
 

@@ -21,7 +21,7 @@
 #include <vector>
 
 #include "tenon/autodiff/operations.hpp"
-#include "tenon/layers/bytes.hpp"
+#include "tenon/core/bytes.hpp"
 
 TENON_NAMESPACE_BEGIN
 

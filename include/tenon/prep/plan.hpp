@@ -31,10 +31,10 @@
 #include <utility>
 #include <vector>
 
+#include "tenon/core/bytes.hpp"
 #include "tenon/core/error.hpp"
 #include "tenon/core/error_codes.hpp"
 #include "tenon/core/matrix.hpp"
-#include "tenon/prep/byte_format.hpp"
 #include "tenon/prep/cell_parsing.hpp"
 #include "tenon/prep/encoding.hpp"
 #include "tenon/prep/imputation.hpp"
@@ -339,7 +339,8 @@ public:
     static constexpr std::uint16_t format_version = 1;
 
     std::vector<std::uint8_t> to_bytes() const {
-        detail::prep_byte_writer w;
+        std::vector<std::uint8_t> bytes;
+        byte_writer w(bytes);
         w.raw("TNPL", 4);
         w.u16(format_version);
         w.u32(static_cast<std::uint32_t>(missing_tokens_.size()));
@@ -371,11 +372,11 @@ public:
         w.text(group_column_);
         w.text(time_column_);
         w.u64(dropped_training_rows_);
-        return w.release();
+        return bytes;
     }
 
     static measured_plan from_bytes(const std::uint8_t* data, std::size_t size) {
-        detail::prep_byte_reader r(data, size, "measured plan");
+        byte_reader r(data, size, "measured plan", prep_bytes_errors);
         const char magic[4] = {'T', 'N', 'P', 'L'};
         for (char m : magic)
             if (r.u8() != static_cast<std::uint8_t>(m))
@@ -428,14 +429,14 @@ private:
 
     static constexpr std::uint8_t tag_feature = 0xF1, tag_target = 0x7A;
 
-    static void write_scaling(detail::prep_byte_writer& w, const scaling& s) {
+    static void write_scaling(byte_writer& w, const scaling& s) {
         w.u8(static_cast<std::uint8_t>(s.method));
         w.f64(s.center);
         w.f64(s.spread);
         w.f64(s.low);
         w.f64(s.high);
     }
-    static scaling read_scaling(detail::prep_byte_reader& r) {
+    static scaling read_scaling(byte_reader& r) {
         scaling s;
         s.method = r.enumeration<scaling_method>(3, "scaling method");
         s.center = r.f64();

@@ -15,7 +15,7 @@
 #include <string>
 #include <vector>
 
-#include "tenon/layers/bytes.hpp"
+#include "tenon/core/bytes.hpp"
 
 TENON_NAMESPACE_BEGIN
 

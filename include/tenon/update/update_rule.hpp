@@ -51,10 +51,10 @@
 #include <vector>
 
 #include "tenon/autodiff/parameter.hpp"
+#include "tenon/core/bytes.hpp"
 #include "tenon/core/elementwise.hpp"
 #include "tenon/core/parallel.hpp"
 #include "tenon/core/simd.hpp"
-#include "tenon/layers/bytes.hpp"
 
 TENON_NAMESPACE_BEGIN
 
