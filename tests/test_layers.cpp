@@ -467,12 +467,9 @@ TEST_CASE("damaged architecture bytes fail with their error codes") {
     CHECK(code_of([&] { sides_of(3, 5, 59); }) == "model.record.malformed");
     CHECK(sides_of(3, 5, 60) == std::pair<std::size_t, std::size_t>(3, 5));
     CHECK(sides_of(0, std::uint64_t(1) << 32, 0) == std::pair<std::size_t, std::size_t>(0, std::size_t(1) << 32));
-    try {
-        sides_of(0, std::uint64_t(1) << 63, 0);
-    } catch (const tenon::error& e) {
-        CHECK(std::string(e.what()) ==
-              "[model.record.malformed] matrix test: a matrix of 0x9223372036854775808 values declared at byte 0 has a side above 2^32");
-    }
+    CHECK_THROWS_WITH_AS(sides_of(0, std::uint64_t(1) << 63, 0),
+                         "[model.record.malformed] matrix test: a matrix of 0x9223372036854775808 values declared at byte 0 has a side above 2^32",
+                         tenon::error);
 
     tenon::layer_record unknown;
     unknown.kind = "network";

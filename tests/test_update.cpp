@@ -461,6 +461,12 @@ TEST_CASE("an update rule returns to an in-memory copy of its state bit for bit"
     other.copy_state_into(one_slot);
     CHECK(code_of([&] { rule.restore_state(one_slot); }) == "model.update.state_mismatch");
     CHECK(rule.save_state() == at_two);
+
+    // A copy whose slot does not have its parameter's shape is refused too.
+    tenon::adam<float>::state_copy damaged = copy;
+    damaged.slots[1] = tenon::matrix<float>({2, 2});
+    CHECK(code_of([&] { rule.restore_state(damaged); }) == "model.update.state_mismatch");
+    CHECK(rule.save_state() == at_two);
 }
 
 TEST_CASE("update rule state errors") {

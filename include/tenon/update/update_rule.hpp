@@ -254,6 +254,14 @@ public:
                                                           std::to_string(c.slot_count) + " slots per parameter, the rule has " +
                                                           std::to_string(slot_count_));
         }
+        for (std::size_t i = 0; i < c.slots.size(); ++i) {
+            if (shape_of(c.slots[i]) != c.shapes[i / slot_count_]) {
+                raise(codes::model_update_state_mismatch, std::string(kind()) + " update rule: slot " + std::to_string(i % slot_count_) +
+                                                              " of parameter " + std::to_string(i / slot_count_) + " in a state copy has shape " +
+                                                              to_string(shape_of(c.slots[i])) + ", its parameter " +
+                                                              to_string(c.shapes[i / slot_count_]));
+            }
+        }
         if (c.shapes == shapes_) {
             for (std::size_t i = 0; i < slots_.size(); ++i) std::copy(c.slots[i].data(), c.slots[i].data() + c.slots[i].size(), slots_[i].data());
         } else {
