@@ -16,6 +16,19 @@
 
 namespace cli_test {
 
+/// Puts the best built-in kernel path in force for its lifetime. With the
+/// BLAS backend a product's bits are the BLAS's: they may change with the
+/// rows per call (OpenBLAS picks a small-matrix kernel by size on some CPUs)
+/// and with the thread count, so a comparison to the last bit between runs
+/// that batch or split differently holds on the built-in kernels only.
+struct on_builtin_kernels {
+    tenon::kernel_path saved = tenon::active_kernel_path();
+    on_builtin_kernels() { tenon::set_kernel_path(tenon::best_builtin_kernel_path()); }
+    ~on_builtin_kernels() { tenon::set_kernel_path(saved); }
+    on_builtin_kernels(const on_builtin_kernels&) = delete;
+    on_builtin_kernels& operator=(const on_builtin_kernels&) = delete;
+};
+
 struct cli_result {
     int status = -1;
     std::string out, err;

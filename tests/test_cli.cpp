@@ -23,6 +23,7 @@ namespace fs = std::filesystem;
 namespace {
 
 using cli_test::cli_result;
+using cli_test::on_builtin_kernels;
 
 cli_result run(std::vector<std::string> args, bool terminal = false) {
     tenon_cli::cli_environment env;
@@ -345,13 +346,9 @@ TEST_CASE("the same seed gives the same metrics apart from timings; another seed
 
 // 64 x 128 x 64 products are above the size gemm splits across threads.
 TEST_CASE("--threads splits the products across threads and gives the same metrics as one thread") {
-    // tenon's own splitting; with the BLAS backend the BLAS splits the
-    // products its own way (see --help), so this runs on the built-in path.
-    struct builtin_path {
-        tenon::kernel_path saved = tenon::active_kernel_path();
-        builtin_path() { tenon::set_kernel_path(tenon::best_builtin_kernel_path()); }
-        ~builtin_path() { tenon::set_kernel_path(saved); }
-    } on_builtin_path;
+    // tenon's own kernels; with the BLAS backend each band is a BLAS call,
+    // whose bits tenon does not promise (see --help).
+    const on_builtin_kernels builtin;
     scratch_dir dir("threads");
     const auto path = dir.write("caps.csv", small_classification_csv(300));
     auto metrics = [&](const std::string& threads, const std::string& name) {

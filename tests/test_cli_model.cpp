@@ -23,6 +23,7 @@ namespace fs = std::filesystem;
 namespace {
 
 using cli_test::cli_result;
+using cli_test::on_builtin_kernels;
 
 cli_result run(std::vector<std::string> args) { return cli_test::run_tool(std::move(args)); }
 
@@ -115,6 +116,9 @@ tenon::matrix<float> trainer_predictions(const std::string& model_path, const te
 // train --model, then infer
 
 TEST_CASE("infer reproduces the trained classifier's predictions to the last bit and its test accuracy exactly") {
+    // infer predicts in batches of 64 rows, the trainer's outputs below come
+    // in one chunk of 400: the same bits on tenon's own kernels.
+    const on_builtin_kernels builtin;
     scratch_dir dir("classify_roundtrip");
     const auto data = dir.write("caps.csv", caps_csv(400, 21));
     const std::vector<std::string> train_args{"--data", data, "--target", "verdict", "--ignore", "cap_id", "--epochs", "25", "--seed", "7"};
@@ -168,6 +172,7 @@ TEST_CASE("infer reproduces the trained classifier's predictions to the last bit
 }
 
 TEST_CASE("infer reproduces a regression model's values in the target's units and its test RMSE") {
+    const on_builtin_kernels builtin;  // as above
     scratch_dir dir("regress_roundtrip");
     const auto data = dir.write("motor.csv", motor_csv(300, 33));
     const std::vector<std::string> train_args{"--data", data, "--target", "amps", "--epochs", "30"};

@@ -19,7 +19,9 @@
 #include <tenon/core/random.hpp>
 #include <tenon/layers/network.hpp>
 #include <tenon/losses/classification.hpp>
+#include <tenon/train/trainer.hpp>
 #include <tenon/update/rules.hpp>
+#include <tenon/update/schedules.hpp>
 
 namespace {
 
@@ -189,6 +191,43 @@ TEST_CASE_TEMPLATE("gemm gives bit-identical results for any thread count and ex
     CHECK(host.runs > 0);  // the host's executor was really used
 }
 
+TEST_CASE_TEMPLATE("on the BLAS path, products split into bands across an executor stay within the rounding bound", T, float, double) {
+    // Each band is one BLAS call on its rows or columns of C (edges on a
+    // grid of 16). tenon does not promise the bands' bits equal the whole
+    // product's there (a BLAS may pick another kernel for a smaller
+    // product), so this checks every element against the bound of Higham
+    // 2002 (see outside_bound) and the padding of C, with partial bands,
+    // both split directions, strides wider than the rows and all transposes.
+    if (!tenon::kernel_path_available(tenon::kernel_path::blas)) {
+        MESSAGE("built without the tenon::blas component: nothing to check");
+        return;
+    }
+    path_guard guard;
+    tenon::set_kernel_path(tenon::kernel_path::blas);
+    tenon::thread_pool two(2), three(3);
+    reverse_executor host(4);
+    const std::size_t sizes[][3] = {{128, 256, 784}, {784, 256, 128}, {37, 301, 70}, {301, 37, 70}, {128, 10, 128}, {33, 47, 97}};
+    tenon::random_engine rng(8);
+    for (const auto& sz : sizes) {
+        const std::size_t m = sz[0], n = sz[1], k = sz[2];
+        for (int mode = 0; mode < 4; ++mode) {
+            const bool ta = (mode & 1) != 0, tb = (mode & 2) != 0;
+            const std::size_t lda = (ta ? m : k) + 1, ldb = (tb ? k : n) + 2, ldc = n + 3;
+            const auto a = uniform_buffer<T>(rng, (ta ? k : m) * lda);
+            const auto b = uniform_buffer<T>(rng, (tb ? n : k) * ldb);
+            const auto c0 = uniform_buffer<T>(rng, m * ldc);
+            tenon::executor* executors[] = {&two, &three, &host};
+            for (tenon::executor* e : executors) {
+                std::vector<T> c = c0;
+                tenon::gemm<T>(ta, tb, m, n, k, T(0.5), a.data(), lda, b.data(), ldb, T(-1), c.data(), ldc, e);
+                CHECK_MESSAGE(outside_bound<T>(ta, tb, m, n, k, T(0.5), a, lda, b, ldb, T(-1), c0, c, ldc) == 0,
+                              "m=" << m << " n=" << n << " k=" << k << " mode=" << mode << " threads=" << e->concurrency());
+            }
+        }
+    }
+    CHECK(host.runs > 0);  // the products above the split size were split
+}
+
 TEST_CASE("a thread pool runs every index exactly once, from several host threads at once") {
     CHECK_THROWS_WITH_AS(tenon::thread_pool(0), doctest::Contains("core.argument.invalid"), tenon::error);
     CHECK_THROWS_WITH_AS(tenon::thread_pool(tenon::thread_pool::max_threads + 1), doctest::Contains("number of threads"), tenon::error);
@@ -221,6 +260,9 @@ TEST_CASE("a thread pool runs every index exactly once, from several host thread
 }
 
 TEST_CASE_TEMPLATE("a tape with an executor gives bit-identical values and gradients", T, float, double) {
+    // On the built-in kernels (the BLAS path's bands are the BLAS's, see above).
+    path_guard guard;
+    tenon::set_kernel_path(tenon::best_builtin_kernel_path());
     auto run = [](tenon::executor* workers, std::vector<T>& out) {
         auto net = tenon::make_mlp<T>({40, 64, 32, 5}, tenon::activation::relu, {tenon::init_scheme::he_normal, 0.0}, 9);
         tenon::random_engine rng(2);
@@ -243,6 +285,55 @@ TEST_CASE_TEMPLATE("a tape with an executor gives bit-identical values and gradi
     run(&pool, shared);
     REQUIRE(alone.size() == shared.size());
     CHECK(std::memcmp(alone.data(), shared.data(), alone.size() * sizeof(T)) == 0);
+}
+
+TEST_CASE_TEMPLATE("a trainer with workers gives the weights it gives without, tail batch included", T, float, double) {
+    // 250 rows of 300 inputs in batches of 64 (three and a tail of 58): each
+    // step's batch gathering and gradient clearing is large enough to be
+    // split across the workers (trainer.hpp, start_step), as are the products
+    // and the update. Built-in kernels (see the BLAS test above).
+    path_guard guard;
+    tenon::set_kernel_path(tenon::best_builtin_kernel_path());
+    tenon::random_engine rng(12);
+    tenon::supervised_rows<T> classes, values;
+    classes.features = tenon::matrix<T>({250, 300});
+    for (std::size_t i = 0; i < classes.features.size(); ++i) classes.features.data()[i] = rng.normal(T(0), T(1));
+    classes.class_count = 4;
+    for (std::size_t i = 0; i < 250; ++i) classes.labels.push_back(static_cast<std::size_t>(rng.below(4)));
+    values.features = classes.features;
+    values.targets = tenon::matrix<T>({250, 2});
+    for (std::size_t i = 0; i < values.targets.size(); ++i) values.targets.data()[i] = rng.normal(T(0), T(1));
+    auto train = [](const tenon::supervised_rows<T>& d, tenon::loss_kind loss, tenon::executor* workers) {
+        auto net = tenon::make_mlp<T>({300, 64, d.is_classification() ? std::size_t(4) : std::size_t(2)}, tenon::activation::relu,
+                                      {tenon::init_scheme::he_normal, 0.0}, 3);
+        tenon::adam<T> rule;
+        tenon::constant_rate schedule(0.001);
+        tenon::training_options<T> o;
+        o.loss = loss;
+        o.epochs = 2;
+        o.batch_size = 64;
+        o.seed = 5;
+        o.workers = workers;
+        tenon::trainer<T> tr(net, rule, schedule, o);
+        tr.run(d, tenon::supervised_rows<T>{});
+        std::vector<T> w;
+        for (const auto* p : net.parameters()) w.insert(w.end(), p->value().data(), p->value().data() + p->size());
+        return w;
+    };
+    tenon::thread_pool two(2), three(3);
+    reverse_executor host(2);
+    for (const auto loss : {tenon::loss_kind::cross_entropy, tenon::loss_kind::l2}) {
+        const auto& d = loss == tenon::loss_kind::cross_entropy ? classes : values;
+        const auto alone = train(d, loss, nullptr);
+        tenon::executor* executors[] = {&two, &three, &host};
+        for (tenon::executor* e : executors) {
+            const auto shared = train(d, loss, e);
+            REQUIRE(shared.size() == alone.size());
+            CHECK_MESSAGE(std::memcmp(shared.data(), alone.data(), alone.size() * sizeof(T)) == 0,
+                          tenon::loss_kind_name(loss) << " threads=" << e->concurrency());
+        }
+    }
+    CHECK(host.runs > 0);
 }
 
 TEST_CASE_TEMPLATE("the vectorized Adam pass is bit-identical to the scalar formula", T, float, double) {

@@ -466,9 +466,10 @@ Model and training
   --threads N            threads for training (N >= 1, default 1), each large
                          matrix product and the update split across them; the
                          results are the same bits for every N. Built with the
-                         BLAS backend, the BLAS gets N threads for the products
-                         instead (its results may then differ in the last bits
-                         between thread counts).
+                         BLAS backend, each band of a product is a BLAS call
+                         on one thread (the BLAS is set to one thread); the
+                         bits then stay the same only where the BLAS computes
+                         a band as it computes the whole product.
 
 Output
   --metrics OUT.json     write the metrics as JSON: task, rows (train, val, test,
@@ -749,10 +750,11 @@ inline tenon::model_settings make_settings(const train_request& q) {
     m.seed = q.seed;
     m.threads = q.threads;
     m.shuffle = !q.keep_order;
-    // With the BLAS backend the products are the BLAS's to split: it gets
-    // the same number of threads (a BLAS without such a call keeps its own
-    // setting, e.g. from its environment).
-    if (tenon::active_kernel_path() == tenon::kernel_path::blas) tenon::set_blas_threads(q.threads);
+    // With the BLAS backend tenon's threads split the products into bands
+    // and each band is a BLAS call, so the BLAS runs on one thread (its own
+    // threads would compete with tenon's for the cores; a BLAS without such
+    // a call keeps its own setting, e.g. from its environment).
+    if (tenon::active_kernel_path() == tenon::kernel_path::blas) tenon::set_blas_threads(1);
     return m;
 }
 

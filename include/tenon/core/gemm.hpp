@@ -47,6 +47,17 @@
 // and all of op(A)), bands of rows otherwise. Band edges fall on the same
 // tile grid as a single-threaded call and every element is computed by one
 // task in the same order, so results are bit-identical for any thread count.
+// On the blas path each band is one call of the BLAS, with band edges on a
+// grid of 16 rows or columns; the BLAS should then run on one thread
+// (set_blas_threads(1)), or its threads and the executor's compete for the
+// cores. The bits are the same for any thread count only if the BLAS
+// computes a band as it computes the whole product: OpenBLAS 0.3.21 does on
+// the 784-256-128-10 network's products (bench/bench_perf.cpp prints a
+// checksum per thread count), but a BLAS may pick another kernel, and so
+// other rounding, for a smaller product (small-matrix kernels do), so tenon
+// does not promise it. Without an executor the BLAS threads the product
+// itself (OpenBLAS's threaded results differ in the last bits from its
+// one-thread results).
 //
 // Memory: the packed blocks live in per-thread scratch buffers that grow to
 // at most (mc + nc) * kc scalars and are reused, so steady-state calls do
@@ -153,8 +164,9 @@ inline void set_kernel_path(kernel_path p) {
     detail::kernel_path_slot().store(static_cast<std::uint8_t>(p), std::memory_order_relaxed);
 }
 
-/// Asks the BLAS of the BLAS path to run each product on `threads` threads
-/// (tenon never splits a BLAS call across its own executor, see gemm()).
+/// Asks the BLAS of the BLAS path to run each product on `threads` threads.
+/// With an executor, tenon splits the products across it and the BLAS
+/// should run on one (see "Threads" at the top of this file).
 /// Returns true when the linked BLAS offers a way to say so (OpenBLAS);
 /// false when it does not or the build has no BLAS: its own settings (e.g.
 /// an environment variable it reads) decide. Process-wide, like the BLAS's
@@ -568,6 +580,7 @@ void gemm_band(const gemm_problem<T>& g, kernel_path path, gemm_scratch<T>& scra
 // task costs microseconds (measured with bench/bench_perf.cpp; the 8-32-32-1
 // network's layers stay below it).
 inline constexpr std::size_t parallel_threshold = std::size_t(1) << 17;
+inline constexpr std::size_t blas_band_unit = 16;
 
 // Packing buffers for the bands of a split product, one per band index,
 // owned by the calling thread. A band index always gets the same band of a
@@ -640,10 +653,7 @@ void gemm(bool transpose_a, bool transpose_b, std::size_t m, std::size_t n, std:
         return;
     }
     const std::size_t threads = workers ? workers->concurrency() : 1;
-    // The BLAS path is never split into bands: a BLAS may pick other kernels
-    // (and so other rounding) for smaller sub-products, which would make the
-    // result depend on the thread count. The BLAS threads itself instead.
-    if (threads <= 1 || path == kernel_path::blas || m * n * k < detail::parallel_threshold) {
+    if (threads <= 1 || m * n * k < detail::parallel_threshold) {
         detail::gemm_band(g, path, detail::gemm_scratch<T>::for_this_thread());
         return;
     }
@@ -657,7 +667,10 @@ void gemm(bool transpose_a, bool transpose_b, std::size_t m, std::size_t n, std:
     split.scratch = bands.bands.data();
     split.path = path;
     split.by_rows = m > n;
-    split.unit = split.by_rows ? detail::tile_rows<T>(path) : detail::tile_columns<T>(path);
+    // A BLAS band is one BLAS call: its edges go on a grid of blas_band_unit
+    // rows or columns (whole cache lines of C, a multiple of common BLAS tiles).
+    split.unit = path == kernel_path::blas ? detail::blas_band_unit
+                                           : (split.by_rows ? detail::tile_rows<T>(path) : detail::tile_columns<T>(path));
     split.units = ((split.by_rows ? m : n) + split.unit - 1) / split.unit;
     split.parts = std::min(threads, split.units);
     workers->run(split.parts, &detail::gemm_split<T>::run_part, &split);

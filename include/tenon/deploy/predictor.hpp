@@ -34,7 +34,11 @@
 //
 // Bit-exactness: each step performs the same operations in the same order
 // as the tape does (the same gemm kernel, the same activation formulas), so
-// a predictor gives the trainer's predict_prepared results to the last bit.
+// a predictor gives the trainer's predict_prepared results to the last bit
+// on tenon's own kernels, whatever the rows per call. With the BLAS backend
+// the products are the BLAS's, and a BLAS may round a product of fewer rows
+// differently (OpenBLAS picks a small-matrix kernel by size on some CPUs),
+// so there the results agree within rounding, not always to the last bit.
 #pragma once
 
 #include <algorithm>
