@@ -144,10 +144,14 @@ TEST_CASE_TEMPLATE("Adam's reordered step equals Algorithm 1 of Kingma & Ba 2015
     CHECK(worst < (sizeof(T) == 4 ? 200 * 3 * 6e-8 : 1e-12));
 }
 
-TEST_CASE_TEMPLATE("update rules give the same bits on one thread and on an executor's threads", T, float, double) {
-    // Parameters of 40,000 and 70 elements: several pieces and a short one.
-    const auto run = [](tenon::executor* workers, const char* which) {
-        tenon::parameter<T> a("a", tenon::shape2{200, 200}), b("b", tenon::shape2{1, 70});
+TEST_CASE_TEMPLATE("update rules give the same bits on one thread and on an executor's threads, clearing the gradients or not", T, float, double) {
+    // Parameters of 40,000 and 70 elements (several pieces and a short one)
+    // and a frozen one. With set_clears_gradients(true) the weights are the
+    // same and every trainable gradient is zero after each step (adam clears
+    // in its own pass, the others through update_and_clear's default).
+    const auto run = [](tenon::executor* workers, const char* which, bool clears) {
+        tenon::parameter<T> a("a", tenon::shape2{200, 200}), b("b", tenon::shape2{1, 70}), frozen("f", tenon::shape2{3, 3});
+        frozen.set_trainable(false);
         tenon::random_engine rng(5);
         for (auto* p : {&a, &b})
             for (std::size_t k = 0; k < p->size(); ++k) p->value().data()[k] = rng.normal(T(0), T(1));
@@ -157,10 +161,18 @@ TEST_CASE_TEMPLATE("update rules give the same bits on one thread and on an exec
         else if (std::string(which) == "adagrad") rule = std::make_unique<tenon::adagrad<T>>();
         else rule = std::make_unique<tenon::momentum<T>>();
         rule->set_executor(workers);
+        rule->set_clears_gradients(clears);
+        CHECK(rule->clears_gradients() == clears);
         for (int step = 0; step < 4; ++step) {
-            for (auto* p : {&a, &b})
+            for (auto* p : {&a, &b, &frozen})
                 for (std::size_t k = 0; k < p->size(); ++k) p->grad().data()[k] = rng.normal(T(0), T(0.3));
-            rule->apply({&a, &b}, T(0.01));
+            const T frozen_gradient = frozen.grad()(1, 1);
+            rule->apply({&a, &b, &frozen}, T(0.01));
+            std::size_t nonzero = 0;
+            for (auto* p : {&a, &b})
+                for (std::size_t k = 0; k < p->size(); ++k) nonzero += p->grad().data()[k] != T(0);
+            CHECK(nonzero == (clears ? 0u : a.size() + b.size()));
+            CHECK(frozen.grad()(1, 1) == frozen_gradient);  // a frozen parameter's gradient is left alone
         }
         std::vector<T> out(a.value().data(), a.value().data() + a.size());
         out.insert(out.end(), b.value().data(), b.value().data() + b.size());
@@ -169,9 +181,14 @@ TEST_CASE_TEMPLATE("update rules give the same bits on one thread and on an exec
     tenon::thread_pool pool(2);
     for (const char* which : {"adam", "rmsprop", "adagrad", "momentum"}) {
         CAPTURE(which);
-        const auto alone = run(nullptr, which), shared = run(&pool, which);
-        REQUIRE(alone.size() == shared.size());
-        CHECK(std::memcmp(alone.data(), shared.data(), alone.size() * sizeof(T)) == 0);
+        const auto alone = run(nullptr, which, false);
+        for (const bool clears : {false, true}) {
+            CAPTURE(clears);
+            const auto shared = run(&pool, which, clears), cleared_alone = run(nullptr, which, clears);
+            REQUIRE(alone.size() == shared.size());
+            CHECK(std::memcmp(alone.data(), shared.data(), alone.size() * sizeof(T)) == 0);
+            CHECK(std::memcmp(alone.data(), cleared_alone.data(), alone.size() * sizeof(T)) == 0);
+        }
     }
 }
 

@@ -701,6 +701,9 @@ private:
         const std::size_t rows = d.rows(), inputs = d.features.shape()[1];
         const std::size_t batches = epoch_batches_;
         double loss_sum = 0.0;
+        // From here on the update rule clears each gradient after using it
+        // (see the update below), so every step starts from zero gradients.
+        for (auto* p : net_.parameters()) p->clear_gradient();
         for (std::size_t b = 0; b < batches; ++b) {
             const std::size_t first = b * global_batch;
             const std::size_t global_rows = first < rows ? std::min(global_batch, rows - first) : 0;
@@ -708,13 +711,10 @@ private:
             batch_buffers& buf = n == options_.batch_size ? full_ : tail_;
             double lv = 0.0;
             bool finite = true;
-            if (n == 0) {  // only a team member can have no row in a step
-                for (auto* p : net_.parameters()) p->clear_gradient();
-            } else {
+            if (n > 0) {  // only a team member can have no row in a step
                 buf.t.clear();
                 buf.t.set_executor(options_.workers);
-                // The rows go straight into the tape's input buffer; the
-                // gradients are cleared in the same pass over the workers.
+                // The rows go straight into the tape's input buffer.
                 const var<T> x = buf.t.input_from(shape2{n, inputs}, [&](T* batch_rows) {
                     start_step(d, order, first + me, members, n, inputs, batch_rows, buf);
                 });
@@ -742,13 +742,20 @@ private:
             }
             const double lr = schedule_.rate(steps, epoch) * rate_factor;
             {
-                // The update runs on the trainer's workers; the rule's own setting is back afterwards.
-                struct workers_for_step {
+                // The update runs on the trainer's workers and clears each
+                // gradient after using it (the next step accumulates into
+                // zeros); the rule's own settings are back afterwards.
+                struct settings_for_step {
                     update_rule<T>& rule;
                     executor* own;
-                    ~workers_for_step() { rule.set_executor(own); }
-                } scope{rule_, rule_.workers()};
+                    bool clears;
+                    ~settings_for_step() {
+                        rule.set_executor(own);
+                        rule.set_clears_gradients(clears);
+                    }
+                } scope{rule_, rule_.workers(), rule_.clears_gradients()};
                 rule_.set_executor(options_.workers);
+                rule_.set_clears_gradients(true);
                 if (team) {
                     rule_.apply(net_.parameters(), static_cast<T>(lr));
                 } else if (!rule_.apply_and_check(net_.parameters(), static_cast<T>(lr))) {
@@ -784,26 +791,17 @@ private:
         std::vector<std::size_t> labels;
     };
 
-    // start_step's work, part `index` of `parts`: its share of the rows and
-    // its share of all gradient values (parameters in order, end to end).
-    struct step_start {
+    // start_step's copying, part `index` of `parts`: its share of the rows.
+    struct batch_gather {
         const supervised_rows<T>* d;
         const std::vector<std::size_t>* order;
         std::size_t first, stride, n, inputs;
         T* rows;
-        const std::vector<parameter<T>*>* parameters;
-        std::size_t gradient_values, parts;
+        std::size_t parts;
 
         static void run_part(void* context, std::size_t index) {
-            const step_start& w = *static_cast<const step_start*>(context);
+            const batch_gather& w = *static_cast<const batch_gather*>(context);
             w.gather(index * w.n / w.parts, (index + 1) * w.n / w.parts);
-            const std::size_t from = index * w.gradient_values / w.parts, to = (index + 1) * w.gradient_values / w.parts;
-            std::size_t offset = 0;
-            for (auto* p : *w.parameters) {
-                const std::size_t size = p->size(), lo = std::max(from, offset), hi = std::min(to, offset + size);
-                if (lo < hi) std::fill(p->grad().data() + (lo - offset), p->grad().data() + (hi - offset), T(0));
-                offset += size;
-            }
         }
         void gather(std::size_t begin, std::size_t end) const {
             // The shuffled rows lie anywhere in memory: ask for the row after
@@ -822,23 +820,22 @@ private:
         }
     };
 
-    // The start of a step: the features of rows order[first],
-    // order[first + stride], ... (n of them) into `rows` (n x inputs), every
-    // parameter's gradient cleared, labels or targets into `buf`. With
-    // several workers the rows and the gradients are split between them in
-    // one run (both are memory-bound: a shuffled row lies anywhere in memory).
+    // The batch of a step: the features of rows order[first],
+    // order[first + stride], ... (n of them) into `rows` (n x inputs), split
+    // across the workers when there are several (a shuffled row lies
+    // anywhere in memory, so each thread's copying mostly waits for it);
+    // labels or targets into `buf`.
     void start_step(const supervised_rows<T>& d, const std::vector<std::size_t>& order, std::size_t first, std::size_t stride,
                     std::size_t n, std::size_t inputs, T* rows, batch_buffers& buf) {
-        step_start work{&d, &order, first, stride, n, inputs, rows, &net_.parameters(), 0, 1};
-        for (const auto* p : net_.parameters()) work.gradient_values += p->size();
+        batch_gather work{&d, &order, first, stride, n, inputs, rows, 1};
         executor* workers = options_.workers;
         // Below this many values a hand-off costs more than it saves.
-        constexpr std::size_t split_threshold = std::size_t(1) << 15;
-        if (workers && workers->concurrency() > 1 && n * inputs + work.gradient_values >= split_threshold) {
+        constexpr std::size_t split_threshold = std::size_t(1) << 14;
+        if (workers && workers->concurrency() > 1 && n * inputs >= split_threshold) {
             work.parts = std::min(workers->concurrency(), n);
-            workers->run(work.parts, &step_start::run_part, &work);
+            workers->run(work.parts, &batch_gather::run_part, &work);
         } else {
-            step_start::run_part(&work, 0);
+            work.gather(0, n);
         }
         if (d.is_classification()) {
             buf.labels.resize(n);

@@ -82,12 +82,13 @@ namespace detail {
 // elements with AVX-512F or AVX2 vectors. The same operations in the same
 // order as the scalar loop, each correctly rounded (IEEE 754 multiply, add,
 // divide and square root; no fused multiply-add), so the result is
-// bit-identical to the scalar loop; only the speed changes. Returns the
-// number of elements done.
+// bit-identical to the scalar loop; only the speed changes. With `clear`
+// (g itself, writable) each gradient element is set to zero once read.
+// Returns the number of elements done.
 #define TENON_ADAM_VECTOR_PASS(NAME, TARGET, OPS)                                                                       \
     template <class T>                                                                                                  \
     TARGET TENON_NO_CONTRACTION std::size_t NAME(T* w, const T* g, T* m, T* v, std::size_t n, const gradient_transform<T>& f, T b1, T b2, \
-                            T step_rate, T step_epsilon, T decay, bool& finite) noexcept {                              \
+                            T step_rate, T step_epsilon, T decay, bool& finite, T* clear) noexcept {                    \
         using ops = OPS<T>;                                                                                             \
         using vector = typename ops::vector;                                                                            \
         const vector norm_scale = ops::broadcast(f.norm_scale), weight_decay = ops::broadcast(f.weight_decay);          \
@@ -102,6 +103,7 @@ namespace detail {
         for (; k + ops::lanes <= n; k += ops::lanes) {                                                                  \
             const vector wk = ops::load(w + k);                                                                         \
             const vector raw = ops::load(g + k);                                                                        \
+            if (clear) ops::store(clear + k, zero); /* the gradient itself, cleared once read */                        \
             scan = ops::add(scan, ops::mul(raw, zero));                                                                 \
             vector gk = ops::mul(raw, norm_scale);                                                                      \
             /* std::min(std::max(g, -c), c), NaN passing through as there */                                            \
@@ -171,6 +173,18 @@ public:
 
 protected:
     void update_parameter(T* w, const T* g, T* const* slots, std::size_t n, T lr, const gradient_transform<T>& f) override {
+        pass(w, g, slots, n, lr, f, nullptr);
+    }
+    void update_and_clear(T* w, T* g, T* const* slots, std::size_t n, T lr, const gradient_transform<T>& f) override {
+        pass(w, g, slots, n, lr, f, g);
+    }
+    bool treats_elements_independently() const noexcept override { return true; }
+    bool scans_gradients_in_pass() const noexcept override { return true; }
+
+private:
+    // One pass over the n elements; `clear` is g (writable) when each
+    // gradient element is to be set to zero once read, else nullptr.
+    void pass(T* w, const T* g, T* const* slots, std::size_t n, T lr, const gradient_transform<T>& f, T* clear) {
         T* m = slots[0];
         T* v = slots[1];
         const T b1 = a_.beta1, b2 = a_.beta2, decay = lr * a_.decoupled_weight_decay;
@@ -179,24 +193,22 @@ protected:
         bool finite = true;
 #if TENON_SIMD_X86
         if (cpu_has_avx512f()) {
-            k = detail::adam_pass_avx512(w, g, m, v, n, f, b1, b2, rate, epsilon, decay, finite);
+            k = detail::adam_pass_avx512(w, g, m, v, n, f, b1, b2, rate, epsilon, decay, finite, clear);
         } else if (cpu_has_avx2_fma()) {
-            k = detail::adam_pass_avx2(w, g, m, v, n, f, b1, b2, rate, epsilon, decay, finite);
+            k = detail::adam_pass_avx2(w, g, m, v, n, f, b1, b2, rate, epsilon, decay, finite, clear);
         }
 #endif
         for (; k < n; ++k) {
             finite = finite && std::isfinite(g[k]);
             const T gk = f(g[k], w[k]);
+            if (clear) clear[k] = T(0);
             m[k] = b1 * m[k] + (T(1) - b1) * gk;
             v[k] = b2 * v[k] + (T(1) - b2) * gk * gk;
             w[k] -= rate * m[k] / (std::sqrt(v[k]) + epsilon) + decay * w[k];
         }
         if (!finite) this->note_non_finite_gradient();
     }
-    bool treats_elements_independently() const noexcept override { return true; }
-    bool scans_gradients_in_pass() const noexcept override { return true; }
 
-private:
     // lr_t and eps_t of the current step (see above), rounded once from double.
     T step_rate(T lr) const noexcept {
         const double t = static_cast<double>(this->step_count());

@@ -142,8 +142,18 @@ public:
         for (std::size_t i = 0; i < params.size(); ++i) {
             parameter<T>& p = *params[i];
             if (!p.trainable()) continue;
-            for (std::size_t s = 0; s < slot_count_; ++s) slots[s] = slots_[i * slot_count_ + s].data();
-            update_parameter(p.value().data(), p.grad().data(), slots, p.size(), learning_rate, transform);
+            T* g = p.grad().data();
+            // When clearing, a piece at a time: its gradient is cleared while still in cache.
+            const std::size_t step = clears_gradients_ && treats_elements_independently() ? piece_elements : p.size();
+            for (std::size_t first = 0; first < p.size(); first += step) {
+                const std::size_t n = std::min(step, p.size() - first);
+                for (std::size_t s = 0; s < slot_count_; ++s) slots[s] = slots_[i * slot_count_ + s].data() + first;
+                if (clears_gradients_) {
+                    update_and_clear(p.value().data() + first, g + first, slots, n, learning_rate, transform);
+                } else {
+                    update_parameter(p.value().data() + first, g + first, slots, n, learning_rate, transform);
+                }
+            }
         }
     }
 
@@ -170,6 +180,14 @@ public:
     /// alone); see "Threads" at the top of this file. Must outlive its use.
     void set_executor(executor* workers) noexcept { workers_ = workers; }
     executor* workers() const noexcept { return workers_; }
+
+    /// When on, apply() sets each trainable parameter's gradient to zero
+    /// as it updates it (update_and_clear), so the next backward pass can
+    /// accumulate into it without a clearing pass of its own (the trainer's
+    /// steps; the pass was about 1.5% of a Fashion-MNIST epoch). The update
+    /// itself is unchanged. Off by default.
+    void set_clears_gradients(bool on) noexcept { clears_gradients_ = on; }
+    bool clears_gradients() const noexcept { return clears_gradients_; }
     /// Elements per piece when apply() runs on several threads.
     static constexpr std::size_t piece_elements = 16384;
 
@@ -333,6 +351,14 @@ protected:
     virtual void update_parameter(T* w, const T* g, T* const* slots, std::size_t n, T learning_rate,
                                   const gradient_transform<T>& transform) = 0;
 
+    /// update_parameter(), then g[0..n) set to zero (apply() with
+    /// set_clears_gradients(true)). A rule may override it to clear each
+    /// gradient element in its own pass, right after reading it (adam does).
+    virtual void update_and_clear(T* w, T* g, T* const* slots, std::size_t n, T learning_rate, const gradient_transform<T>& transform) {
+        update_parameter(w, g, slots, n, learning_rate, transform);
+        std::fill(g, g + n, T(0));
+    }
+
     /// Whether update_parameter() may be called on any part of a parameter
     /// (elements [first, last) with the matching parts of its slots) with the
     /// same result per element; true lets apply() use several threads.
@@ -367,15 +393,22 @@ private:
         // Executor tasks must not throw; the built-in rules never do.
 #if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
         try {
-            r.rule->update_parameter(p.value().data() + c.first, p.grad().data() + c.first, slots, c.last - c.first, r.learning_rate,
-                                     r.transform);
+            r.rule->update_piece(p, c, slots, r.learning_rate, r.transform);
         } catch (...) {
             r.failed.store(true, std::memory_order_relaxed);
         }
 #else
-        r.rule->update_parameter(p.value().data() + c.first, p.grad().data() + c.first, slots, c.last - c.first, r.learning_rate,
-                                 r.transform);
+        r.rule->update_piece(p, c, slots, r.learning_rate, r.transform);
 #endif
+    }
+    void update_piece(parameter<T>& p, const piece& c, T* const* slots, T learning_rate, const gradient_transform<T>& transform) {
+        T* w = p.value().data() + c.first;
+        T* g = p.grad().data() + c.first;
+        if (clears_gradients_) {
+            update_and_clear(w, g, slots, c.last - c.first, learning_rate, transform);
+        } else {
+            update_parameter(w, g, slots, c.last - c.first, learning_rate, transform);
+        }
     }
 
     void prepare(const std::vector<parameter<T>*>& params) {
@@ -419,6 +452,7 @@ private:
     std::vector<matrix<T>> slots_;
     bool laid_out_ = false;
     executor* workers_ = nullptr;
+    bool clears_gradients_ = false;
     std::vector<piece> pieces_;
     std::atomic<bool> non_finite_seen_{false};
 };
