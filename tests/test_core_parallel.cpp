@@ -289,9 +289,9 @@ TEST_CASE_TEMPLATE("a tape with an executor gives bit-identical values and gradi
 
 TEST_CASE_TEMPLATE("a trainer with workers gives the weights it gives without, tail batch included", T, float, double) {
     // 250 rows of 300 inputs in batches of 64 (three and a tail of 58): each
-    // step's batch gathering and gradient clearing is large enough to be
-    // split across the workers (trainer.hpp, start_step), as are the products
-    // and the update. Built-in kernels (see the BLAS test above).
+    // step's batch gathering is large enough to be split across the workers
+    // (trainer.hpp, gather_batch), as are the products and the update, which
+    // also clears the gradients. Built-in kernels (see the BLAS test above).
     path_guard guard;
     tenon::set_kernel_path(tenon::best_builtin_kernel_path());
     tenon::random_engine rng(12);

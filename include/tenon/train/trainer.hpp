@@ -716,7 +716,7 @@ private:
                 buf.t.set_executor(options_.workers);
                 // The rows go straight into the tape's input buffer.
                 const var<T> x = buf.t.input_from(shape2{n, inputs}, [&](T* batch_rows) {
-                    start_step(d, order, first + me, members, n, inputs, batch_rows, buf);
+                    gather_batch(d, order, first + me, members, n, inputs, batch_rows, buf);
                 });
                 const var<T> y = net_.forward(buf.t, x);
                 const var<T> loss = record_loss(buf.t, y, options_.loss, buf.targets, buf.labels, options_.loss_settings);
@@ -791,7 +791,7 @@ private:
         std::vector<std::size_t> labels;
     };
 
-    // start_step's copying, part `index` of `parts`: its share of the rows.
+    // gather_batch's copying, part `index` of `parts`: its share of the rows.
     struct batch_gather {
         const supervised_rows<T>* d;
         const std::vector<std::size_t>* order;
@@ -825,7 +825,7 @@ private:
     // across the workers when there are several (a shuffled row lies
     // anywhere in memory, so each thread's copying mostly waits for it);
     // labels or targets into `buf`.
-    void start_step(const supervised_rows<T>& d, const std::vector<std::size_t>& order, std::size_t first, std::size_t stride,
+    void gather_batch(const supervised_rows<T>& d, const std::vector<std::size_t>& order, std::size_t first, std::size_t stride,
                     std::size_t n, std::size_t inputs, T* rows, batch_buffers& buf) {
         batch_gather work{&d, &order, first, stride, n, inputs, rows, 1};
         executor* workers = options_.workers;
