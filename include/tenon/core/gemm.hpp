@@ -52,8 +52,8 @@
 // (set_blas_threads(1)), or its threads and the executor's compete for the
 // cores. The bits are the same for any thread count only if the BLAS
 // computes a band as it computes the whole product: OpenBLAS 0.3.21 does on
-// the 784-256-128-10 network's products (bench/bench_perf.cpp prints a
-// checksum per thread count), but a BLAS may pick another kernel, and so
+// the 784-256-128-10 network's products (bench/bench_perf.cpp says whether
+// one and two threads gave the same weights), but a BLAS may pick another kernel, and so
 // other rounding, for a smaller product (small-matrix kernels do), so tenon
 // does not promise it. Without an executor the BLAS threads the product
 // itself (OpenBLAS's threaded results differ in the last bits from its
