@@ -1,9 +1,14 @@
 // Tests of prep/scaling.hpp, prep/encoding.hpp and prep/imputation.hpp.
 #include <doctest/doctest.h>
 
+#include <cmath>
+#include <cstring>
+#include <limits>
 #include <sstream>
 #include <string>
 #include <vector>
+
+#include <tenon/core/random.hpp>
 
 #include <tenon/prep/csv.hpp>
 #include <tenon/prep/encoding.hpp>
@@ -114,6 +119,65 @@ TEST_CASE_TEMPLATE("matrix columns: measure, apply and invert z-score and min-ma
     std::string message;
     CHECK(error_code_of([&] { tenon::apply_scalings(y, std::vector<tenon::scaling>(3)); }, &message) == "core.shape.mismatch");
     CHECK(message == "[core.shape.mismatch] apply_scalings: 3 scalings for 2 columns");
+}
+
+TEST_CASE_TEMPLATE("apply_scalings gives scaling::forward's bits for every column count and vector width", T, float, double) {
+    // Column counts from 1 to 600 take both layouts of the per-element
+    // tables (whole rows repeated, and blocks of 256 columns per row) and
+    // every vector tail; values include NaN, infinities, -0 and denormals.
+    tenon::random_engine rng(31);
+    const T inf = std::numeric_limits<T>::infinity(), nan = std::numeric_limits<T>::quiet_NaN();
+    const T specials[] = {T(0), -T(0), inf, -inf, nan, std::numeric_limits<T>::denorm_min(), T(1e30), T(-7)};
+    const auto same = [](T a, T b) { return std::memcmp(&a, &b, sizeof(T)) == 0 || (std::isnan(a) && std::isnan(b)); };
+    for (const std::size_t cols : std::vector<std::size_t>{1, 3, 5, 7, 8, 16, 31, 33, 63, 64, 65, 100, 255, 256, 257, 600}) {
+        for (const std::size_t rows : std::vector<std::size_t>{0, 1, 2, 9, 131}) {
+            CAPTURE(cols);
+            CAPTURE(rows);
+            std::vector<tenon::scaling> s(cols);
+            for (auto& c : s) {
+                c.method = rng.below(2) ? tenon::scaling_method::z_score : tenon::scaling_method::min_max;
+                c.center = rng.normal(0.0, 50.0);
+                c.spread = 0.1 + rng.uniform(0.0, 9.0);
+                if (c.method == tenon::scaling_method::min_max) {
+                    c.low = -1.0;
+                    c.high = 2.5;
+                }
+            }
+            tenon::matrix<T> x({rows, cols});
+            for (std::size_t k = 0; k < x.size(); ++k)
+                x.data()[k] = rng.below(8) == 0 ? specials[rng.below(8)] : rng.normal(T(3), T(40));
+            tenon::matrix<T> y = x;
+            tenon::apply_scalings(y, s);
+            bool all_same = true;
+            for (std::size_t i = 0; i < rows; ++i)
+                for (std::size_t j = 0; j < cols; ++j)
+                    all_same = all_same && same(y(i, j), static_cast<T>(s[j].forward(static_cast<double>(x(i, j)))));
+            CHECK(all_same);
+        }
+    }
+#if TENON_SIMD_X86
+    // The narrower vector version as well, where the CPU has it (apply_scalings
+    // takes the widest one).
+    if (tenon::cpu_has_avx2_fma()) {
+        const std::size_t n = 203;
+        std::vector<double> low(n), center(n), factor(n);
+        std::vector<T> x(n);
+        for (std::size_t k = 0; k < n; ++k) {
+            low[k] = rng.normal(0.0, 1.0);
+            center[k] = rng.normal(0.0, 30.0);
+            factor[k] = rng.normal(0.0, 3.0);
+            x[k] = rng.below(8) == 0 ? specials[rng.below(8)] : rng.normal(T(0), T(40));
+        }
+        std::vector<T> y = x;
+        const std::size_t done = tenon::detail::affine_span_avx2(y.data(), n, low.data(), center.data(), factor.data());
+        CHECK(done == 200);
+        bool all_same = true;
+        for (std::size_t k = 0; k < done; ++k)
+            all_same = all_same && same(y[k], static_cast<T>(low[k] + (static_cast<double>(x[k]) - center[k]) * factor[k]));
+        CHECK(all_same);
+        CHECK(same(y[n - 1], x[n - 1]));  // the tail is left to the plain loop
+    }
+#endif
 }
 
 TEST_CASE("one-hot: sorted order, unseen policies, drop-first, slot names") {

@@ -68,6 +68,19 @@ inline constexpr std::size_t finite_scan_block = 4096;
         std::size_t k = 0;                                                                                               \
         for (; k + ops::lanes <= n; k += ops::lanes) ops::store(sum + k, ops::add(ops::load(sum + k), ops::load(row + k))); \
         return k;                                                                                                        \
+    }                                                                                                                    \
+    /* x[k] = T(low[k] + (double(x[k]) - center[k]) * factor[k]) for the whole vectors, in double, */                  \
+    /* each operation rounded on its own; returns the count done. */                                                    \
+    template <class T>                                                                                                   \
+    TARGET TENON_NO_CONTRACTION std::size_t affine_span_##SUFFIX(T* x, std::size_t n, const double* low,                \
+                                                                 const double* center, const double* factor) noexcept { \
+        using dops = OPS<double>;                                                                                        \
+        std::size_t k = 0;                                                                                               \
+        for (; k + dops::lanes <= n; k += dops::lanes) {                                                                 \
+            const auto shifted = dops::sub(dops::load(x + k), dops::load(center + k));                                  \
+            dops::store(x + k, dops::add(dops::load(low + k), dops::mul(shifted, dops::load(factor + k))));             \
+        }                                                                                                                \
+        return k;                                                                                                        \
     }
 TENON_ELEMENTWISE_KERNELS(avx512, TENON_TARGET_AVX512, avx512_ops)
 TENON_ELEMENTWISE_KERNELS(avx2, TENON_TARGET_AVX2, avx2_ops)
@@ -130,6 +143,18 @@ void bias_relu_rows(const T* b, T* o, std::size_t rows, std::size_t cols) noexce
             oi[k] = z > T(0) ? z : T(0);
         }
     }
+}
+
+/// x[k] = T(low[k] + (double(x[k]) - center[k]) * factor[k]) for k < n, in
+/// double (an affine map per element, e.g. a column scaling; the tables hold
+/// one entry per element of x). The vector versions round each operation on
+/// its own, as the plain loop does unless the host's flags let the compiler
+/// fuse the multiply and add (x86-64's defaults have no fused multiply-add).
+template <class T>
+void affine_span(T* x, std::size_t n, const double* low, const double* center, const double* factor) noexcept {
+    std::size_t k = 0;
+    TENON_ELEMENTWISE_DISPATCH(k, affine_span, x, n, low, center, factor);
+    for (; k < n; ++k) x[k] = static_cast<T>(low[k] + (static_cast<double>(x[k]) - center[k]) * factor[k]);
 }
 
 /// sum[j] += d[i][j] for i = 0, 1, ..., rows - 1 in that order (the column

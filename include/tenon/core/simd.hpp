@@ -23,6 +23,16 @@
 #define TENON_SIMD_X86 0
 #endif
 
+// GCC implements the add and multiply intrinsics as plain vector arithmetic,
+// which its default -ffp-contract=fast may fuse into multiply-adds. Kernels
+// that promise the bits of a plain loop (each operation rounded on its own)
+// carry this attribute.
+#if defined(__GNUC__) && !defined(__clang__)
+#define TENON_NO_CONTRACTION __attribute__((optimize("fp-contract=off")))
+#else
+#define TENON_NO_CONTRACTION
+#endif
+
 TENON_NAMESPACE_BEGIN
 
 /// Whether the running CPU has AVX2 and FMA3 (false off x86 or with other compilers).
@@ -119,6 +129,10 @@ struct avx512_ops<double> {
     TENON_TARGET_AVX512 static vector sqrt(vector a) noexcept { return _mm512_mask_sqrt_pd(a, static_cast<__mmask8>(0xFF), a); }
     TENON_TARGET_AVX512 static vector max(vector a, vector b) noexcept { return _mm512_mask_max_pd(a, static_cast<__mmask8>(0xFF), a, b); }
     TENON_TARGET_AVX512 static vector min(vector a, vector b) noexcept { return _mm512_mask_min_pd(a, static_cast<__mmask8>(0xFF), a, b); }
+    // Eight floats widened to doubles, and eight doubles rounded to floats
+    // (all-lanes masked forms, as above).
+    TENON_TARGET_AVX512 static vector load(const float* p) noexcept { return _mm512_maskz_cvtps_pd(static_cast<__mmask8>(0xFF), _mm256_loadu_ps(p)); }
+    TENON_TARGET_AVX512 static void store(float* p, vector v) noexcept { _mm256_storeu_ps(p, _mm512_maskz_cvtpd_ps(static_cast<__mmask8>(0xFF), v)); }
     TENON_TARGET_AVX512 static vector select_positive(vector y, vector a) noexcept {
         return _mm512_maskz_mov_pd(_mm512_cmp_pd_mask(y, _mm512_setzero_pd(), _CMP_GT_OQ), a);
     }
@@ -161,6 +175,9 @@ struct avx2_ops<double> {
     TENON_TARGET_AVX2 static vector sqrt(vector a) noexcept { return _mm256_sqrt_pd(a); }
     TENON_TARGET_AVX2 static vector max(vector a, vector b) noexcept { return _mm256_max_pd(a, b); }
     TENON_TARGET_AVX2 static vector min(vector a, vector b) noexcept { return _mm256_min_pd(a, b); }
+    // Four floats widened to doubles, and four doubles rounded to floats.
+    TENON_TARGET_AVX2 static vector load(const float* p) noexcept { return _mm256_cvtps_pd(_mm_loadu_ps(p)); }
+    TENON_TARGET_AVX2 static void store(float* p, vector v) noexcept { _mm_storeu_ps(p, _mm256_cvtpd_ps(v)); }
     TENON_TARGET_AVX2 static vector select_positive(vector y, vector a) noexcept {
         return _mm256_and_pd(_mm256_cmp_pd(y, _mm256_setzero_pd(), _CMP_GT_OQ), a);
     }

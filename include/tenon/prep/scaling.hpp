@@ -16,9 +16,11 @@
 #include <algorithm>
 #include <cmath>
 #include <cstdint>
+#include <numeric>
 #include <string>
 #include <vector>
 
+#include "tenon/core/elementwise.hpp"
 #include "tenon/core/error.hpp"
 #include "tenon/core/error_codes.hpp"
 #include "tenon/core/matrix.hpp"
@@ -137,24 +139,38 @@ void apply_scalings(matrix<T>& x, const std::vector<scaling>& s) {
         raise(codes::shape_mismatch, "apply_scalings: " + std::to_string(s.size()) + " scalings for " +
                                          std::to_string(cols) + " columns");
     // scaling::forward with its per-column factor (high - low) / spread
-    // computed once per block of columns instead of once per value: the
-    // same operations on the same values, so the same bits, and the loop
-    // over a row vectorizes.
-    constexpr std::size_t block = 64;
-    double low[block], center[block], factor[block];
+    // computed once per column instead of once per value: the same
+    // operations on the same values, so the same bits. The per-element
+    // tables repeat the columns' parameters so that one call covers many
+    // rows when rows are short (a whole number of rows whose length is a
+    // multiple of 8, the widest vector of doubles), and one block of a
+    // row's columns otherwise.
+    constexpr std::size_t span = 256;  // 3 tables of 2 KB on the stack
+    double low[span], center[span], factor[span];
+    const auto fill = [&](std::size_t count, std::size_t first_column) {
+        for (std::size_t k = 0; k < count; ++k) {
+            const scaling& c = s[(first_column + k) % cols];
+            low[k] = c.low;
+            center[k] = c.center;
+            factor[k] = (c.high - c.low) / c.spread;
+        }
+    };
     T* p = x.data();
-    for (std::size_t j0 = 0; j0 < cols; j0 += block) {
-        const std::size_t width = std::min(block, cols - j0);
-        for (std::size_t j = 0; j < width; ++j) {
-            const scaling& c = s[j0 + j];
-            low[j] = c.low;
-            center[j] = c.center;
-            factor[j] = (c.high - c.low) / c.spread;
-        }
-        for (std::size_t i = 0; i < rows; ++i) {
-            T* row = p + i * cols + j0;
-            for (std::size_t j = 0; j < width; ++j) row[j] = static_cast<T>(low[j] + (static_cast<double>(row[j]) - center[j]) * factor[j]);
-        }
+    const std::size_t total = rows * cols;
+    if (total == 0) return;
+    const std::size_t period = cols * (8 / std::gcd(cols, std::size_t{8}));  // a multiple of cols and of 8
+    if (period <= span) {
+        const std::size_t length = span / period * period;
+        fill(length, 0);
+        std::size_t k = 0;
+        for (; k + length <= total; k += length) detail::affine_span(p + k, length, low, center, factor);
+        detail::affine_span(p + k, total - k, low, center, factor);
+        return;
+    }
+    for (std::size_t j0 = 0; j0 < cols; j0 += span) {
+        const std::size_t width = std::min(span, cols - j0);
+        fill(width, j0);
+        for (std::size_t i = 0; i < rows; ++i) detail::affine_span(p + i * cols + j0, width, low, center, factor);
     }
 }
 

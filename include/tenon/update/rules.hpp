@@ -70,14 +70,6 @@ private:
 namespace detail {
 
 #if TENON_SIMD_X86
-// GCC implements the add and multiply intrinsics as plain vector arithmetic,
-// which its default -ffp-contract=fast may fuse into multiply-adds; the
-// Adam pass must round each operation on its own (see below).
-#if defined(__GNUC__) && !defined(__clang__)
-#define TENON_NO_CONTRACTION __attribute__((optimize("fp-contract=off")))
-#else
-#define TENON_NO_CONTRACTION
-#endif
 // Adam's pass (see adam below) over the first multiple-of-the-vector-width
 // elements with AVX-512F or AVX2 vectors. The same operations in the same
 // order as the scalar loop, each correctly rounded (IEEE 754 multiply, add,
@@ -124,7 +116,6 @@ namespace detail {
 TENON_ADAM_VECTOR_PASS(adam_pass_avx512, TENON_TARGET_AVX512, avx512_ops)
 TENON_ADAM_VECTOR_PASS(adam_pass_avx2, TENON_TARGET_AVX2, avx2_ops)
 #undef TENON_ADAM_VECTOR_PASS
-#undef TENON_NO_CONTRACTION
 #endif
 
 }  // namespace detail
