@@ -3,6 +3,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <cstddef>
 #include <cstdint>
 #include <cstring>
 #include <limits>
@@ -464,4 +465,61 @@ TEST_CASE_TEMPLATE("gemm with beta = 0 ignores NaN and infinity already in C", T
     c.fill(std::numeric_limits<T>::quiet_NaN());
     tenon::gemm<T>(false, false, 2, 2, 0, T(1), a.data(), 1, b.data(), 2, T(0), c.data(), 2);
     for (std::size_t i = 0; i < 4; ++i) CHECK(c.data()[i] == T(0));
+}
+
+TEST_CASE_TEMPLATE("thin products give the plain loop's bits on every vector width", T, float, double) {
+    // A product thinner than a register tile (a single row to predict, a few
+    // rows) runs the unpacked row loop, vectorized at run time on x86; each
+    // element must still be the plain loop's sum of rounded products, added
+    // in order, so the result does not depend on the CPU. Column counts
+    // cover every vector tail of both widths.
+    tenon::random_engine rng(41);
+    const auto plain = [](bool ta, std::size_t m, std::size_t n, std::size_t k, T alpha, const std::vector<T>& a,
+                          std::size_t lda, const std::vector<T>& b, std::size_t ldb, std::vector<T>& c, std::size_t ldc) {
+        for (std::size_t i = 0; i < m; ++i)
+            for (std::size_t p = 0; p < k; ++p) {
+                const T s = alpha * (ta ? a[p * lda + i] : a[i * lda + p]);
+                for (std::size_t j = 0; j < n; ++j) c[i * ldc + j] += s * b[p * ldb + j];
+            }
+    };
+    const auto filled = [&](std::size_t size) {
+        std::vector<T> v(size);
+        for (auto& x : v) x = rng.normal(T(0), T(1));
+        return v;
+    };
+    for (const std::size_t n : std::vector<std::size_t>{8, 15, 16, 17, 31, 32, 33, 47, 64, 65, 100, 129, 200}) {
+        for (const std::size_t k : std::vector<std::size_t>{1, 7, 32}) {
+            for (const std::size_t m : std::vector<std::size_t>{1, 3}) {
+                for (const bool ta : {false, true}) {
+                    if (n < tenon::detail::thin_columns<T>) continue;
+                    CAPTURE(n);
+                    CAPTURE(k);
+                    CAPTURE(m);
+                    CAPTURE(ta);
+                    const std::size_t lda = (ta ? m : k) + 1, ldb = n + 2, ldc = n + 3;
+                    const auto a = filled((ta ? k : m) * lda), b = filled(k * ldb), c0 = filled(m * ldc);
+                    const T alpha = T(-0.625);
+                    std::vector<T> expected = c0, c = c0;
+                    plain(ta, m, n, k, alpha, a, lda, b, ldb, expected, ldc);
+                    tenon::gemm<T>(ta, false, m, n, k, alpha, a.data(), lda, b.data(), ldb, T(1), c.data(), ldc);
+                    CHECK(std::memcmp(c.data(), expected.data(), c.size() * sizeof(T)) == 0);
+#if TENON_SIMD_X86
+                    // Both vector versions directly (gemm takes the widest).
+                    const T* ai = a.data();
+                    const std::size_t a_step = ta ? lda : 1;
+                    if (tenon::cpu_has_avx512f()) {
+                        std::vector<T> row(c0.begin(), c0.begin() + static_cast<std::ptrdiff_t>(n));
+                        tenon::detail::combine_rows_avx512(ai, a_step, alpha, b.data(), ldb, k, row.data(), n);
+                        CHECK(std::memcmp(row.data(), expected.data(), n * sizeof(T)) == 0);
+                    }
+                    if (tenon::cpu_has_avx2_fma()) {
+                        std::vector<T> row(c0.begin(), c0.begin() + static_cast<std::ptrdiff_t>(n));
+                        tenon::detail::combine_rows_avx2(ai, a_step, alpha, b.data(), ldb, k, row.data(), n);
+                        CHECK(std::memcmp(row.data(), expected.data(), n * sizeof(T)) == 0);
+                    }
+#endif
+                }
+            }
+        }
+    }
 }

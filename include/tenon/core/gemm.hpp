@@ -25,9 +25,12 @@
 //   avx2      6 x 16 float / 6 x 8 double tile, AVX2 + FMA3
 //   portable  4 x 32 tile in plain C++ (any compiler, any CPU)
 //   blas      the configured BLAS (tenon::blas component, TENON_HAS_BLAS)
-// Only the packed tile is dispatched; products thinner than a tile (such as
-// a single row to predict) take unpacked plain-C++ loops on every path, so
-// their results do not depend on the path.
+// Products thinner than a tile (such as a single row to predict) are not
+// packed: they take unpacked loops on every path, the blas one included.
+// Their row loop is vectorized as well (AVX-512F or AVX2, chosen the same
+// way), but each element is still the plain loop's sum of rounded products
+// added in order, never fused, so their bits do not depend on the path or
+// on the CPU.
 // set_kernel_path() forces a path (tests, benchmarks, reproducing results
 // made on another machine).
 //
@@ -315,15 +318,92 @@ T split_dot(const T* x, std::size_t incx, const T* y, std::size_t incy, std::siz
     return sum;
 }
 
+#if TENON_GEMM_X86
+// c[j] += s_0 b_0[j] + s_1 b_1[j] + ... + s_{k-1} b_{k-1}[j] for j < n, added
+// one term at a time in that order, where s_p = alpha * a[p * a_step] and
+// b_p = b + p * ldb: one row of the unpacked product below. Each element is
+// computed as the plain loop computes it (a multiply and an add, each
+// rounded, never fused), so the bits do not depend on which version runs; the
+// vector versions only keep up to four vectors of c in registers across the
+// k terms instead of reading and writing c once per term.
+#define TENON_GEMM_ROW_KERNEL(SUFFIX, TARGET, OPS)                                                                       \
+    template <class T>                                                                                                   \
+    TARGET TENON_NO_CONTRACTION void combine_rows_##SUFFIX(const T* a, std::size_t a_step, T alpha, const T* b,          \
+                                                           std::size_t ldb, std::size_t k, T* c, std::size_t n) noexcept { \
+        using ops = OPS<T>;                                                                                              \
+        constexpr std::size_t lanes = ops::lanes;                                                                        \
+        std::size_t j = 0;                                                                                               \
+        for (; j + 4 * lanes <= n; j += 4 * lanes) {                                                                     \
+            auto c0 = ops::load(c + j), c1 = ops::load(c + j + lanes);                                                   \
+            auto c2 = ops::load(c + j + 2 * lanes), c3 = ops::load(c + j + 3 * lanes);                                   \
+            for (std::size_t p = 0; p < k; ++p) {                                                                        \
+                const auto s = ops::broadcast(alpha * a[p * a_step]);                                                    \
+                const T* bp = b + p * ldb + j;                                                                           \
+                c0 = ops::add(c0, ops::mul(s, ops::load(bp)));                                                           \
+                c1 = ops::add(c1, ops::mul(s, ops::load(bp + lanes)));                                                   \
+                c2 = ops::add(c2, ops::mul(s, ops::load(bp + 2 * lanes)));                                               \
+                c3 = ops::add(c3, ops::mul(s, ops::load(bp + 3 * lanes)));                                               \
+            }                                                                                                            \
+            ops::store(c + j, c0);                                                                                       \
+            ops::store(c + j + lanes, c1);                                                                               \
+            ops::store(c + j + 2 * lanes, c2);                                                                           \
+            ops::store(c + j + 3 * lanes, c3);                                                                           \
+        }                                                                                                                \
+        for (; j + 2 * lanes <= n; j += 2 * lanes) {                                                                     \
+            auto c0 = ops::load(c + j), c1 = ops::load(c + j + lanes);                                                   \
+            for (std::size_t p = 0; p < k; ++p) {                                                                        \
+                const auto s = ops::broadcast(alpha * a[p * a_step]);                                                    \
+                const T* bp = b + p * ldb + j;                                                                           \
+                c0 = ops::add(c0, ops::mul(s, ops::load(bp)));                                                           \
+                c1 = ops::add(c1, ops::mul(s, ops::load(bp + lanes)));                                                   \
+            }                                                                                                            \
+            ops::store(c + j, c0);                                                                                       \
+            ops::store(c + j + lanes, c1);                                                                               \
+        }                                                                                                                \
+        for (; j + lanes <= n; j += lanes) {                                                                             \
+            auto c0 = ops::load(c + j);                                                                                  \
+            for (std::size_t p = 0; p < k; ++p)                                                                          \
+                c0 = ops::add(c0, ops::mul(ops::broadcast(alpha * a[p * a_step]), ops::load(b + p * ldb + j)));         \
+            ops::store(c + j, c0);                                                                                       \
+        }                                                                                                                \
+        for (; j < n; ++j) {                                                                                             \
+            T cj = c[j];                                                                                                 \
+            for (std::size_t p = 0; p < k; ++p) cj += (alpha * a[p * a_step]) * b[p * ldb + j];                          \
+            c[j] = cj;                                                                                                   \
+        }                                                                                                                \
+    }
+TENON_GEMM_ROW_KERNEL(avx512, TENON_TARGET_AVX512, avx512_ops)
+TENON_GEMM_ROW_KERNEL(avx2, TENON_TARGET_AVX2, avx2_ops)
+#undef TENON_GEMM_ROW_KERNEL
+
+// Which version of combine_rows the running CPU takes: 2 = AVX-512F,
+// 1 = AVX2 + FMA, 0 = the plain loop.
+inline int combine_rows_level() noexcept {
+    static const int level = cpu_has_avx512f() ? 2 : (cpu_has_avx2_fma() ? 1 : 0);
+    return level;
+}
+#endif
+
 // The unpacked product, for results too thin to fill a register tile (fewer
 // than a kernel's tile rows or thin_columns columns, such as a single row to
 // predict or a single regression output), where packing would cost as much
 // as the arithmetic; also the fallback when the scratch cannot grow.
 template <class T>
-void gemm_unpacked(bool transpose_a, bool transpose_b, std::size_t m, std::size_t n, std::size_t k, T alpha, const T* a,
+TENON_NO_CONTRACTION void gemm_unpacked(bool transpose_a, bool transpose_b, std::size_t m, std::size_t n, std::size_t k, T alpha, const T* a,
                    std::size_t lda, const T* b, std::size_t ldb, T* c, std::size_t ldc) noexcept {
     if (!transpose_b && n >= thin_columns<T>) {
         // Few rows: each row of C accumulates scaled rows of B (contiguous).
+#if TENON_GEMM_X86
+        if (const int level = combine_rows_level()) {
+            for (std::size_t i = 0; i < m; ++i) {
+                const T* ai = transpose_a ? a + i : a + i * lda;
+                const std::size_t a_step = transpose_a ? lda : 1;
+                if (level == 2) combine_rows_avx512(ai, a_step, alpha, b, ldb, k, c + i * ldc, n);
+                else combine_rows_avx2(ai, a_step, alpha, b, ldb, k, c + i * ldc, n);
+            }
+            return;
+        }
+#endif
         for (std::size_t i = 0; i < m; ++i) {
             T* ci = c + i * ldc;
             for (std::size_t p = 0; p < k; ++p) {
