@@ -38,6 +38,7 @@
 #include <memory>
 #include <sstream>
 #include <string>
+#include <thread>
 #include <vector>
 
 #include <cblas.h>
@@ -654,6 +655,38 @@ private:
     std::map<std::string, double> seconds_, counters_;
 };
 
+// How much compute a second thread adds on this machine right now: the
+// time of n built-in products (128 x 256 x 256, in cache) on one thread,
+// against n products on each of two threads at once, as two threads'
+// throughput over one thread's. Near 2 when the two hardware threads are
+// separate cores; near 1 when a hypervisor runs them on one core's two
+// hyperthreads (seen on the development machines: it can change from one
+// hour to the next), and then the two-thread ratios measure no parallel
+// gain for tenon or for the reference.
+double two_thread_compute_scaling() {
+    struct worker_buffers {
+        std::vector<float> a = std::vector<float>(128 * 256, 0.5f), b = std::vector<float>(256 * 256, 0.25f), c = std::vector<float>(128 * 256);
+        void run(int n) {
+            for (int i = 0; i < n; ++i) tenon::gemm<float>(false, false, 128, 256, 256, 1.0f, a.data(), 256, b.data(), 256, 0.0f, c.data(), 256);
+        }
+    };
+    const tenon::kernel_path before = tenon::active_kernel_path();
+    tenon::set_kernel_path(tenon::best_builtin_kernel_path());
+    worker_buffers mine, other;
+    const int n = 2000;
+    mine.run(n / 10);
+    auto t0 = std::chrono::steady_clock::now();
+    mine.run(n);
+    const double one = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+    t0 = std::chrono::steady_clock::now();
+    std::thread second([&] { other.run(n); });
+    mine.run(n);
+    second.join();
+    const double two = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+    tenon::set_kernel_path(before);
+    return 2.0 * one / two;
+}
+
 std::string cpu_name() {
     std::ifstream in("/proc/cpuinfo");
     std::string line;
@@ -679,9 +712,14 @@ int main(int argc, char** argv) {
         if (const char* value = std::getenv(v)) std::printf("warning:         %s=%s is set (unset it for reference numbers)\n", v, value);
     }
     std::printf("threads:         each benchmark names its thread count; tenon's pool and the OpenBLAS references use that\n"
-                "                 count (with the BLAS backend, tenon splits the products and OpenBLAS runs each band on one thread)\n\n");
+                "                 count (with the BLAS backend, tenon splits the products and OpenBLAS runs each band on one thread)\n");
+    std::printf("second thread:   two threads' compute / one thread's, at the start: %.2f (see the summary)\n\n",
+                two_thread_compute_scaling());
     summary_reporter reporter;
     benchmark::RunSpecifiedBenchmarks(&reporter);
+    std::printf("-- two threads' compute / one thread's (independent in-cache products), at the end: %.2f; near 1 means the\n"
+                "   two hardware threads shared one core during the run and the 2-thread ratios above show no parallel gain\n",
+                two_thread_compute_scaling());
     benchmark::Shutdown();
     return 0;
 }

@@ -6,6 +6,7 @@
 #include <algorithm>
 #include <atomic>
 #include <cmath>
+#include <cstdint>
 #include <cstring>
 #include <limits>
 #include <thread>
@@ -228,6 +229,77 @@ TEST_CASE_TEMPLATE("on the BLAS path, products split into bands across an execut
     CHECK(host.runs > 0);  // the products above the split size were split
 }
 
+
+TEST_CASE_TEMPLATE("BLAS bands of columns start on cache lines of C and stay within the rounding bound", T, float, double) {
+    // Two threads writing the two halves of one cache line pass it back and
+    // forth once per row, so a split of C's columns on the blas path puts
+    // its inner edges on 64-byte lines of C whenever every row allows it
+    // (ldc * sizeof(T) a multiple of 64), as close to an even split as the
+    // grid of 16 columns allows. Checked on C placed at every element offset
+    // from a line, for 2 and 3 parts.
+    std::vector<T> storage(128 * 256 + 64);
+    for (std::size_t offset = 0; offset < 64 / sizeof(T); ++offset) {
+        T* c = storage.data() + offset;
+        for (const std::size_t parts : {2, 3}) {
+            for (const std::size_t n : {256, 128, 48}) {
+                CAPTURE(offset);
+                CAPTURE(parts);
+                CAPTURE(n);
+                const tenon::detail::gemm_problem<T> g{false, true, 128, n, 128, T(1), nullptr, 128, nullptr, 128, T(0), c, 256};
+                tenon::detail::gemm_split<T> split{};
+                split.g = &g;
+                split.path = tenon::kernel_path::blas;
+                split.by_rows = false;
+                split.unit = tenon::detail::blas_band_unit;
+                split.offset = tenon::detail::line_offset(c, 256, n);
+                CHECK(reinterpret_cast<std::uintptr_t>(c + split.offset) % 64 == 0);
+                split.units = (n - split.offset + split.unit - 1) / split.unit;
+                split.parts = std::min(parts, split.units);
+                CHECK(split.edge(0) == 0);
+                CHECK(split.edge(split.parts) == n);
+                for (std::size_t i = 1; i < split.parts; ++i) {
+                    const std::size_t e = split.edge(i);
+                    CHECK(reinterpret_cast<std::uintptr_t>(c + e) % 64 == 0);
+                    CHECK(e >= split.edge(i - 1));
+                    const double even = static_cast<double>(i * n) / static_cast<double>(split.parts);
+                    CHECK(std::abs(static_cast<double>(e) - even) <= static_cast<double>(split.unit) / 2.0 + 1.0);
+                }
+            }
+        }
+    }
+    if (!tenon::kernel_path_available(tenon::kernel_path::blas)) {
+        MESSAGE("built without the tenon::blas component: the products themselves are not checked");
+        return;
+    }
+    // The products: C at every offset from a line, through gemm and an
+    // executor, against the dot-product bound, C's other elements untouched.
+    path_guard guard;
+    tenon::set_kernel_path(tenon::kernel_path::blas);
+    tenon::thread_pool two(2), three(3);
+    tenon::random_engine rng(12);
+    const std::size_t m = 64, n = 96, k = 96, ldc = 96;  // m n k above the parallel threshold, ldc * 4 bytes on lines
+    for (const bool tb : {false, true}) {
+        const auto a = uniform_buffer<T>(rng, m * k);
+        const auto b = uniform_buffer<T>(rng, k * n);
+        const auto base = uniform_buffer<T>(rng, m * ldc + 64);
+        for (std::size_t offset = 0; offset < 64 / sizeof(T); offset += 3) {
+            tenon::executor* executors[] = {&two, &three};
+            for (tenon::executor* e : executors) {
+                std::vector<T> all = base;
+                tenon::gemm<T>(false, tb, m, n, k, T(1), a.data(), k, b.data(), tb ? k : n, T(0.5), all.data() + offset, ldc, e);
+                const std::vector<T> c0(base.begin() + static_cast<std::ptrdiff_t>(offset),
+                                        base.begin() + static_cast<std::ptrdiff_t>(offset + m * ldc));
+                const std::vector<T> c(all.begin() + static_cast<std::ptrdiff_t>(offset),
+                                       all.begin() + static_cast<std::ptrdiff_t>(offset + m * ldc));
+                CHECK_MESSAGE(outside_bound<T>(false, tb, m, n, k, T(1), a, k, b, tb ? k : n, T(0.5), c0, c, ldc) == 0,
+                              "offset=" << offset << " tb=" << tb << " threads=" << e->concurrency());
+                CHECK(std::equal(all.begin(), all.begin() + static_cast<std::ptrdiff_t>(offset), base.begin()));
+                CHECK(std::equal(all.begin() + static_cast<std::ptrdiff_t>(offset + m * ldc), all.end(),
+                                 base.begin() + static_cast<std::ptrdiff_t>(offset + m * ldc)));
+            }
+        }
+    }
+}
 TEST_CASE("a thread pool runs every index exactly once, from several host threads at once") {
     CHECK_THROWS_WITH_AS(tenon::thread_pool(0), doctest::Contains("core.argument.invalid"), tenon::error);
     CHECK_THROWS_WITH_AS(tenon::thread_pool(tenon::thread_pool::max_threads + 1), doctest::Contains("number of threads"), tenon::error);

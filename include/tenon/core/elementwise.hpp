@@ -86,14 +86,9 @@ TENON_ELEMENTWISE_KERNELS(avx512, TENON_TARGET_AVX512, avx512_ops)
 TENON_ELEMENTWISE_KERNELS(avx2, TENON_TARGET_AVX2, avx2_ops)
 #undef TENON_ELEMENTWISE_KERNELS
 
-// Which vector width the running CPU takes: 2 = AVX-512F, 1 = AVX2 + FMA, 0 = none.
-inline int elementwise_level() noexcept {
-    static const int level = cpu_has_avx512f() ? 2 : (cpu_has_avx2_fma() ? 1 : 0);
-    return level;
-}
 #define TENON_ELEMENTWISE_DISPATCH(done, NAME, ...)                         \
     do {                                                                     \
-        const int level_ = ::tenon::detail::elementwise_level();             \
+        const int level_ = ::tenon::detail::vector_level();             \
         if (level_ == 2) done = ::tenon::detail::NAME##_avx512(__VA_ARGS__); \
         else if (level_ == 1) done = ::tenon::detail::NAME##_avx2(__VA_ARGS__); \
     } while (false)

@@ -51,7 +51,9 @@
 // tile grid as a single-threaded call and every element is computed by one
 // task in the same order, so results are bit-identical for any thread count.
 // On the blas path each band is one call of the BLAS, with band edges on a
-// grid of 16 rows or columns; the BLAS should then run on one thread
+// grid of 16 rows or columns (columns counted from C's first 64-byte cache
+// line when every row of C starts at the same place in a line, so that two
+// threads never write one line); the BLAS should then run on one thread
 // (set_blas_threads(1)), or its threads and the executor's compete for the
 // cores. The bits are the same for any thread count only if the BLAS
 // computes a band as it computes the whole product: OpenBLAS 0.3.21 does on
@@ -375,13 +377,6 @@ T split_dot(const T* x, std::size_t incx, const T* y, std::size_t incy, std::siz
 TENON_GEMM_ROW_KERNEL(avx512, TENON_TARGET_AVX512, avx512_ops)
 TENON_GEMM_ROW_KERNEL(avx2, TENON_TARGET_AVX2, avx2_ops)
 #undef TENON_GEMM_ROW_KERNEL
-
-// Which version of combine_rows the running CPU takes: 2 = AVX-512F,
-// 1 = AVX2 + FMA, 0 = the plain loop.
-inline int combine_rows_level() noexcept {
-    static const int level = cpu_has_avx512f() ? 2 : (cpu_has_avx2_fma() ? 1 : 0);
-    return level;
-}
 #endif
 
 // The unpacked product, for results too thin to fill a register tile (fewer
@@ -394,7 +389,7 @@ TENON_NO_CONTRACTION void gemm_unpacked(bool transpose_a, bool transpose_b, std:
     if (!transpose_b && n >= thin_columns<T>) {
         // Few rows: each row of C accumulates scaled rows of B (contiguous).
 #if TENON_GEMM_X86
-        if (const int level = combine_rows_level()) {
+        if (const int level = vector_level()) {
             for (std::size_t i = 0; i < m; ++i) {
                 const T* ai = transpose_a ? a + i : a + i * lda;
                 const std::size_t a_step = transpose_a ? lda : 1;
@@ -657,10 +652,13 @@ void gemm_band(const gemm_problem<T>& g, kernel_path path, gemm_scratch<T>& scra
 }
 
 // Products below this many multiply-adds run on one thread: handing out a
-// task costs microseconds (measured with bench/bench_perf.cpp; the 8-32-32-1
-// network's layers stay below it).
-inline constexpr std::size_t parallel_threshold = std::size_t(1) << 17;
+// task costs microseconds, more than a product of a few microseconds gains
+// (on the 2-core development machine, 128 x 128 x 10 took 2.9 us on one
+// thread and 6.8 us split in two; the 8-32-32-1 network's layers and the
+// 784-256-128-10 network's 10-wide products stay below it).
+inline constexpr std::size_t parallel_threshold = std::size_t(1) << 19;
 inline constexpr std::size_t blas_band_unit = 16;
+inline constexpr std::size_t cache_line = 64;
 
 // Packing buffers for the bands of a split product, one per band index,
 // owned by the calling thread. A band index always gets the same band of a
@@ -690,19 +688,41 @@ struct gemm_band_scratch {
     }
 };
 
+// Elements from c to the next cache line when every row of C (stride ldc)
+// starts at the same place in a line, and that is within the n columns;
+// otherwise 0.
+template <class T>
+std::size_t line_offset(const T* c, std::size_t ldc, std::size_t n) noexcept {
+    if ((ldc * sizeof(T)) % cache_line != 0) return 0;
+    const std::size_t misalignment = static_cast<std::size_t>(reinterpret_cast<std::uintptr_t>(c) % cache_line);
+    if (misalignment % sizeof(T) != 0) return 0;
+    const std::size_t offset = (cache_line - misalignment) % cache_line / sizeof(T);
+    return offset < n ? offset : 0;
+}
+
 template <class T>
 struct gemm_split {
     const gemm_problem<T>* g;
     gemm_scratch<T>* scratch;
     kernel_path path;
     bool by_rows;
-    std::size_t unit, units, parts;
+    // Band edges: multiples of unit; on the blas path, offset + the
+    // multiple of unit nearest to an even split (the first band also takes
+    // the offset's columns).
+    std::size_t unit, units, parts, offset;
 
+    std::size_t edge(std::size_t index) const noexcept {
+        const std::size_t extent = by_rows ? g->m : g->n;
+        if (index == 0) return 0;
+        if (index >= parts) return extent;
+        if (path != kernel_path::blas) return std::min(extent, index * units / parts * unit);
+        const std::size_t even = index * extent / parts;
+        if (even <= offset) return std::min(extent, offset);
+        return std::min(extent, offset + (even - offset + unit / 2) / unit * unit);
+    }
     static void run_part(void* context, std::size_t index) {
         const gemm_split& s = *static_cast<const gemm_split*>(context);
-        const std::size_t first = index * s.units / s.parts * s.unit;
-        const std::size_t extent = s.by_rows ? s.g->m : s.g->n;
-        const std::size_t last = std::min(extent, (index + 1) * s.units / s.parts * s.unit);
+        const std::size_t first = s.edge(index), last = s.edge(index + 1);
         if (first >= last) return;
         const gemm_problem<T> band = s.by_rows ? sub_problem(*s.g, first, last - first, 0, s.g->n)
                                                : sub_problem(*s.g, 0, s.g->m, first, last - first);
@@ -751,7 +771,15 @@ void gemm(bool transpose_a, bool transpose_b, std::size_t m, std::size_t n, std:
     // rows or columns (whole cache lines of C, a multiple of common BLAS tiles).
     split.unit = path == kernel_path::blas ? detail::blas_band_unit
                                            : (split.by_rows ? detail::tile_rows<T>(path) : detail::tile_columns<T>(path));
-    split.units = ((split.by_rows ? m : n) + split.unit - 1) / split.unit;
+    // Bands of columns of a BLAS product start on a cache line of C where
+    // every row allows it: two threads writing the two halves of one line
+    // pass it back and forth, once per row (on the development machine
+    // 128 x 256 x 128 took 47 us in two bands of C 16 bytes off a line and
+    // 39 us on lines; 128 x 128 x 10 took 18 and 7 us). The built-in paths
+    // keep their bands on the register-tile grid, so that results do not
+    // depend on the thread count.
+    split.offset = path == kernel_path::blas && !split.by_rows ? detail::line_offset(c, ldc, n) : 0;
+    split.units = ((split.by_rows ? m : n) - split.offset + split.unit - 1) / split.unit;
     split.parts = std::min(threads, split.units);
     workers->run(split.parts, &detail::gemm_split<T>::run_part, &split);
 }

@@ -55,6 +55,15 @@ inline bool cpu_has_avx512f() noexcept {
 #endif
 }
 
+namespace detail {
+// Which vector width the run-time dispatched loops take on the running CPU:
+// 2 = AVX-512F, 1 = AVX2 + FMA, 0 = none (plain loops).
+inline int vector_level() noexcept {
+    static const int level = cpu_has_avx512f() ? 2 : (cpu_has_avx2_fma() ? 1 : 0);
+    return level;
+}
+}  // namespace detail
+
 /// While alive, the calling thread computes with subnormal numbers flushed to
 /// zero: subnormal operands read as zero and subnormal results become zero
 /// (the FTZ and DAZ bits of x86's MXCSR; elsewhere this does nothing). The
