@@ -332,6 +332,7 @@ T split_dot(const T* x, std::size_t incx, const T* y, std::size_t incy, std::siz
     template <class T>                                                                                                   \
     TARGET TENON_NO_CONTRACTION void combine_rows_##SUFFIX(const T* a, std::size_t a_step, T alpha, const T* b,          \
                                                            std::size_t ldb, std::size_t k, T* c, std::size_t n) noexcept { \
+        TENON_NO_CONTRACTION_IN_BODY                                                                                     \
         using ops = OPS<T>;                                                                                              \
         constexpr std::size_t lanes = ops::lanes;                                                                        \
         std::size_t j = 0;                                                                                               \
@@ -386,6 +387,7 @@ TENON_GEMM_ROW_KERNEL(avx2, TENON_TARGET_AVX2, avx2_ops)
 template <class T>
 TENON_NO_CONTRACTION void gemm_unpacked(bool transpose_a, bool transpose_b, std::size_t m, std::size_t n, std::size_t k, T alpha, const T* a,
                    std::size_t lda, const T* b, std::size_t ldb, T* c, std::size_t ldc) noexcept {
+    TENON_NO_CONTRACTION_IN_BODY
     if (!transpose_b && n >= thin_columns<T>) {
         // Few rows: each row of C accumulates scaled rows of B (contiguous).
 #if TENON_GEMM_X86

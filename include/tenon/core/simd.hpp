@@ -32,6 +32,15 @@
 #else
 #define TENON_NO_CONTRACTION
 #endif
+// Clang fuses a * b + c written in one expression (its default
+// -ffp-contract=on) wherever the target has FMA, as in a function compiled
+// for AVX2 or AVX-512; such kernels and the plain loops whose bits they
+// promise start their bodies with this.
+#if defined(__clang__)
+#define TENON_NO_CONTRACTION_IN_BODY _Pragma("clang fp contract(off)")
+#else
+#define TENON_NO_CONTRACTION_IN_BODY
+#endif
 
 TENON_NAMESPACE_BEGIN
 
