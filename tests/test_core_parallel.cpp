@@ -240,21 +240,15 @@ TEST_CASE_TEMPLATE("BLAS bands of columns start on cache lines of C and stay wit
     std::vector<T> storage(128 * 256 + 64);
     for (std::size_t offset = 0; offset < 64 / sizeof(T); ++offset) {
         T* c = storage.data() + offset;
-        for (const std::size_t parts : {2, 3}) {
-            for (const std::size_t n : {256, 128, 48}) {
+        for (const std::size_t parts : {std::size_t(2), std::size_t(3)}) {
+            for (const std::size_t n : {std::size_t(256), std::size_t(128), std::size_t(48)}) {
                 CAPTURE(offset);
                 CAPTURE(parts);
                 CAPTURE(n);
-                const tenon::detail::gemm_problem<T> g{false, true, 128, n, 128, T(1), nullptr, 128, nullptr, 128, T(0), c, 256};
-                tenon::detail::gemm_split<T> split{};
-                split.g = &g;
-                split.path = tenon::kernel_path::blas;
-                split.by_rows = false;
-                split.unit = tenon::detail::blas_band_unit;
-                split.offset = tenon::detail::line_offset(c, 256, n);
-                CHECK(reinterpret_cast<std::uintptr_t>(c + split.offset) % 64 == 0);
-                split.units = (n - split.offset + split.unit - 1) / split.unit;
-                split.parts = std::min(parts, split.units);
+                const tenon::detail::gemm_problem<T> g{false, true, 16, n, 128, T(1), nullptr, 128, nullptr, 128, T(0), c, 256};  // wider than tall: columns
+                const auto split = tenon::detail::gemm_split<T>::plan(g, tenon::kernel_path::blas, parts, nullptr);
+                CHECK_FALSE(split.by_rows);
+                CHECK(split.parts == parts);
                 CHECK(split.edge(0) == 0);
                 CHECK(split.edge(split.parts) == n);
                 for (std::size_t i = 1; i < split.parts; ++i) {

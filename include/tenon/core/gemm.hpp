@@ -713,6 +713,28 @@ struct gemm_split {
     // the offset's columns).
     std::size_t unit, units, parts, offset;
 
+    // The split of g into at most `threads` bands on `path`.
+    static gemm_split plan(const gemm_problem<T>& g, kernel_path path, std::size_t threads, gemm_scratch<T>* scratch) noexcept {
+        gemm_split split{};
+        split.g = &g;
+        split.scratch = scratch;
+        split.path = path;
+        split.by_rows = g.m > g.n;
+        // A BLAS band is one BLAS call: its edges go on a grid of blas_band_unit
+        // rows or columns (whole cache lines of C, a multiple of common BLAS tiles).
+        split.unit = path == kernel_path::blas ? blas_band_unit : (split.by_rows ? tile_rows<T>(path) : tile_columns<T>(path));
+        // Bands of columns of a BLAS product start on a cache line of C where
+        // every row allows it: two threads writing the two halves of one line
+        // pass it back and forth, once per row (on the development machine
+        // 128 x 256 x 128 took 47 us in two bands of C 16 bytes off a line and
+        // 39 us on lines; 128 x 128 x 10 took 18 and 7 us). The built-in paths
+        // keep their bands on the register-tile grid, so that results do not
+        // depend on the thread count.
+        split.offset = path == kernel_path::blas && !split.by_rows ? line_offset(g.c, g.ldc, g.n) : 0;
+        split.units = ((split.by_rows ? g.m : g.n) - split.offset + split.unit - 1) / split.unit;
+        split.parts = std::min(threads, split.units);
+        return split;
+    }
     std::size_t edge(std::size_t index) const noexcept {
         const std::size_t extent = by_rows ? g->m : g->n;
         if (index == 0) return 0;
@@ -764,25 +786,7 @@ void gemm(bool transpose_a, bool transpose_b, std::size_t m, std::size_t n, std:
         detail::gemm_band(g, path, detail::gemm_scratch<T>::for_this_thread());
         return;
     }
-    detail::gemm_split<T> split{};
-    split.g = &g;
-    split.scratch = bands.bands.data();
-    split.path = path;
-    split.by_rows = m > n;
-    // A BLAS band is one BLAS call: its edges go on a grid of blas_band_unit
-    // rows or columns (whole cache lines of C, a multiple of common BLAS tiles).
-    split.unit = path == kernel_path::blas ? detail::blas_band_unit
-                                           : (split.by_rows ? detail::tile_rows<T>(path) : detail::tile_columns<T>(path));
-    // Bands of columns of a BLAS product start on a cache line of C where
-    // every row allows it: two threads writing the two halves of one line
-    // pass it back and forth, once per row (on the development machine
-    // 128 x 256 x 128 took 47 us in two bands of C 16 bytes off a line and
-    // 39 us on lines; 128 x 128 x 10 took 18 and 7 us). The built-in paths
-    // keep their bands on the register-tile grid, so that results do not
-    // depend on the thread count.
-    split.offset = path == kernel_path::blas && !split.by_rows ? detail::line_offset(c, ldc, n) : 0;
-    split.units = ((split.by_rows ? m : n) - split.offset + split.unit - 1) / split.unit;
-    split.parts = std::min(threads, split.units);
+    detail::gemm_split<T> split = detail::gemm_split<T>::plan(g, path, threads, bands.bands.data());
     workers->run(split.parts, &detail::gemm_split<T>::run_part, &split);
 }
 
