@@ -325,6 +325,104 @@ TEST_CASE("a thread pool runs every index exactly once, from several host thread
     }
 }
 
+TEST_CASE("a thread pool gives task i of a run of at most its size to its thread i when every thread is at hand") {
+    // Each task waits until every task of the run has started, so a thread
+    // that took another's index first would hold it while its own waited for
+    // it: the run ends only because each thread claims its own index (the
+    // calling thread 0, worker j index j + 1) before any other.
+    struct gathering {
+        std::atomic<std::size_t> started{0};
+        std::size_t count = 0;
+        std::thread::id ran[4];
+        static void task(void* context, std::size_t index) {
+            auto& g = *static_cast<gathering*>(context);
+            g.ran[index] = std::this_thread::get_id();
+            g.started.fetch_add(1);
+            while (g.started.load() < g.count) std::this_thread::yield();
+        }
+    };
+    for (const std::size_t threads : {std::size_t(2), std::size_t(3), std::size_t(4)}) {
+        CAPTURE(threads);
+        tenon::thread_pool pool(threads);
+        std::thread::id first_round[4];
+        for (int round = 0; round < 50; ++round) {
+            gathering g;
+            g.count = threads;
+            pool.run(threads, &gathering::task, &g);
+            CHECK(g.ran[0] == std::this_thread::get_id());
+            for (std::size_t i = 0; i < threads; ++i) {
+                for (std::size_t j = 0; j < i; ++j) CHECK(g.ran[i] != g.ran[j]);
+                if (round == 0) first_round[i] = g.ran[i];
+                CHECK(g.ran[i] == first_round[i]);  // the same thread every run
+            }
+        }
+    }
+}
+
+TEST_CASE_TEMPLATE("on the BLAS path, a network's outputs are the same bits for any executor, its large dense layers summing two halves", T, float, double) {
+    // The products x W of dense layers large enough to split are computed
+    // there as x[:, :e] W[:e, :] + x[:, e:] W[e:, :] whatever the thread
+    // count (core/gemm.hpp, gemm_inner_halves), the halves on two threads
+    // when there are two: the outputs are the same bits without an executor
+    // and with 2, 3 or 4 threads (the gradients' products are split into
+    // bands, within the bound checked above). The first layer's values are
+    // also checked against a double-precision relu(x W + b), within the
+    // dot-product bound of Higham 2002 (see outside_bound) for k + 2 terms.
+    if (!tenon::kernel_path_available(tenon::kernel_path::blas)) {
+        MESSAGE("built without the tenon::blas component: nothing to check");
+        return;
+    }
+    path_guard guard;
+    tenon::set_kernel_path(tenon::kernel_path::blas);
+    const std::size_t batch = 128, inputs = 300, hidden = 160;
+    CHECK(tenon::detail::splits_inner<T>(batch, hidden, inputs));
+    CHECK(tenon::detail::splits_inner<T>(batch, 64, hidden));
+    CHECK_FALSE(tenon::detail::splits_inner<T>(batch, 5, 64));  // below the split size: one product
+    auto run = [&](tenon::executor* workers, std::vector<T>& out) {
+        auto net = tenon::make_mlp<T>({inputs, hidden, 64, 5}, tenon::activation::relu, {tenon::init_scheme::he_normal, 0.0}, 4);
+        tenon::random_engine rng(6);
+        tenon::matrix<T> x({batch, inputs});
+        for (std::size_t i = 0; i < x.size(); ++i) x.data()[i] = rng.normal(T(0), T(1));
+        const auto first = net.parameters();
+        for (std::size_t i = 0; i < first[1]->size(); ++i) first[1]->value().data()[i] = rng.normal(T(0), T(0.5));  // a bias that matters
+        tenon::tape<T> t;
+        t.set_executor(workers);
+        const auto h = t.affine_activation(t.input(x), t.watch(*first[0]), t.watch(*first[1]), tenon::op_kind::relu);
+        std::vector<T> xs(x.data(), x.data() + x.size()), ws(first[0]->value().data(), first[0]->value().data() + first[0]->size());
+        std::size_t outside = 0;
+        const double u = static_cast<double>(std::numeric_limits<T>::epsilon()) / 2.0;
+        const double gamma = static_cast<double>(inputs + 2) * u / (1.0 - static_cast<double>(inputs + 2) * u);
+        for (std::size_t i = 0; i < batch; ++i) {
+            for (std::size_t j = 0; j < hidden; ++j) {
+                const double bias = static_cast<double>(first[1]->value().data()[j]);
+                double exact = bias, magnitude = std::abs(bias);
+                for (std::size_t p = 0; p < inputs; ++p) {
+                    exact += static_cast<double>(xs[i * inputs + p]) * static_cast<double>(ws[p * hidden + j]);
+                    magnitude += std::abs(static_cast<double>(xs[i * inputs + p]) * static_cast<double>(ws[p * hidden + j]));
+                }
+                // relu is 1-Lipschitz: the bound on z holds for relu(z).
+                outside += std::abs(static_cast<double>(h.value()(i, j)) - std::max(exact, 0.0)) > gamma * magnitude + u * std::abs(exact);
+            }
+        }
+        CHECK(outside == 0);
+        t.clear();
+        const auto y = net.forward(t, t.input(x));
+        out.assign(y.value().data(), y.value().data() + y.value().size());
+    };
+    std::vector<T> alone;
+    run(nullptr, alone);
+    tenon::thread_pool two(2), three(3);
+    reverse_executor host(4);
+    tenon::executor* executors[] = {&two, &three, &host};
+    for (tenon::executor* e : executors) {
+        CAPTURE(e->concurrency());
+        std::vector<T> shared;
+        run(e, shared);
+        REQUIRE(alone.size() == shared.size());
+        CHECK(std::memcmp(alone.data(), shared.data(), alone.size() * sizeof(T)) == 0);
+    }
+}
+
 TEST_CASE_TEMPLATE("a tape with an executor gives bit-identical values and gradients", T, float, double) {
     // On the built-in kernels (the BLAS path's bands are the BLAS's, see above).
     path_guard guard;

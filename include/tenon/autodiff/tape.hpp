@@ -136,7 +136,7 @@ struct tape_node {
     op_kind unit = op_kind::input;  // affine_activation: the activation applied
     matrix<T> value;
     matrix<T> grad;
-    matrix<T> scratch;  // affine_activation: d(loss)/d(x W + b) during backward
+    matrix<T> scratch;  // affine_activation: d(loss)/d(x W + b) during backward; a half of x W during forward (core/gemm.hpp: splits_inner)
     parameter<T>* param = nullptr;
     const custom_operation<T>* custom = nullptr;
 };
@@ -647,15 +647,28 @@ private:
             case op_kind::affine_activation: {
                 const matrix<T>& x = value_at(n.inputs[0]);
                 const matrix<T>& w = value_at(n.inputs[1]);
-                gemm<T>(false, false, rows, cols, x.shape()[1], T(1), x.data(), x.shape()[1], w.data(), cols, T(0), o, cols, workers_);
+                const std::size_t k = x.shape()[1];
                 const T* pb = n.input_count == 3 ? value_at(n.inputs[2]).data() : nullptr;
-                switch (n.unit) {
-                    case op_kind::relu: detail::bias_relu_rows(pb, o, rows, cols); return;
-                    case op_kind::leaky_relu: { const T a = n.a; bias_map(pb, o, rows, cols, [a](T z) { return z > T(0) ? z : a * z; }); return; }
-                    case op_kind::elu: { const T a = n.a; bias_map(pb, o, rows, cols, [a](T z) { return z > T(0) ? z : a * std::expm1(z); }); return; }
-                    case op_kind::tanh: bias_map(pb, o, rows, cols, [](T z) { return std::tanh(z); }); return;
-                    default: bias_map(pb, o, rows, cols, [](T z) { return detail::stable_sigmoid(z); }); return;
+                if (detail::splits_inner<T>(rows, cols, k)) {
+                    // x W as the sum of its two halves over k (core/gemm.hpp:
+                    // gemm_inner_halves), the second half in the scratch
+                    // matrix (backward() reuses it), then the sum, bias and
+                    // activation by bands of rows. Each thread then reads
+                    // only the rows of W whose update it runs.
+                    ensure_shape(n.scratch, shape2{rows, cols});
+                    gemm_inner_halves<T>(rows, cols, k, x.data(), k, w.data(), cols, o, n.scratch.data(), workers_);
+                    inner_sum sum{&n, pb, o, n.scratch.data(), rows, cols, detail::gemm_split<T>::rows_of(rows, kernel_path::blas, 1)};
+                    if (workers_ && workers_->concurrency() > 1) {
+                        sum.bands = detail::gemm_split<T>::rows_of(rows, kernel_path::blas, workers_->concurrency());
+                        workers_->run(sum.bands.parts, &inner_sum::run_part, &sum);
+                    } else {
+                        inner_sum::run_part(&sum, 0);
+                    }
+                    return;
                 }
+                gemm<T>(false, false, rows, cols, k, T(1), x.data(), k, w.data(), cols, T(0), o, cols, workers_);
+                activate(n, pb, o, rows, cols);
+                return;
             }
             case op_kind::softmax_cross_entropy: {
                 const matrix<T>& z = value_at(n.inputs[0]);
@@ -717,6 +730,36 @@ private:
             default: map(px, o, size, [](T x) { return x; }); return;
         }
     }
+
+    // The activation of an affine_activation node on rows of its output:
+    // o_ij = f(o_ij + b_j) in place (b null: f(o_ij)).
+    static void activate(const detail::tape_node<T>& n, const T* pb, T* o, std::size_t rows, std::size_t cols) noexcept {
+        switch (n.unit) {
+            case op_kind::relu: detail::bias_relu_rows(pb, o, rows, cols); return;
+            case op_kind::leaky_relu: { const T a = n.a; bias_map(pb, o, rows, cols, [a](T z) { return z > T(0) ? z : a * z; }); return; }
+            case op_kind::elu: { const T a = n.a; bias_map(pb, o, rows, cols, [a](T z) { return z > T(0) ? z : a * std::expm1(z); }); return; }
+            case op_kind::tanh: bias_map(pb, o, rows, cols, [](T z) { return std::tanh(z); }); return;
+            default: bias_map(pb, o, rows, cols, [](T z) { return detail::stable_sigmoid(z); }); return;
+        }
+    }
+
+    // The second step of an affine_activation node computed in two halves
+    // over k: o = f(o + partial + b), band `index` of rows.
+    struct inner_sum {
+        const detail::tape_node<T>* n;
+        const T* pb;
+        T* o;
+        const T* partial;
+        std::size_t rows, cols;
+        detail::gemm_split<T> bands;
+
+        static void run_part(void* context, std::size_t index) noexcept {
+            const inner_sum& s = *static_cast<const inner_sum*>(context);
+            const std::size_t first = s.bands.edge(index) * s.cols, last = s.bands.edge(index + 1) * s.cols;
+            detail::add_into(s.partial + first, s.o + first, last - first);
+            activate(*s.n, s.pb, s.o + first, (last - first) / s.cols, s.cols);
+        }
+    };
 
     // o_ij = f(o_ij + b_j) in place (b null: f(o_ij)), one pass.
     template <class F>

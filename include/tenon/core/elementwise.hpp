@@ -61,7 +61,7 @@ inline constexpr std::size_t finite_scan_block = 4096;
         }                                                                                                                \
         return k;                                                                                                        \
     }                                                                                                                    \
-    /* sum[j] += row[j] for the whole vectors of one row. */                                                            \
+    /* sum[j] += row[j] for the whole vectors of row[0, n). */                                                            \
     template <class T>                                                                                                   \
     TARGET std::size_t add_row_##SUFFIX(const T* row, T* sum, std::size_t n) noexcept {                                 \
         using ops = OPS<T>;                                                                                              \
@@ -152,16 +152,19 @@ void affine_span(T* x, std::size_t n, const double* low, const double* center, c
     for (; k < n; ++k) x[k] = static_cast<T>(low[k] + (static_cast<double>(x[k]) - center[k]) * factor[k]);
 }
 
+/// sum[k] += x[k] for k < n.
+template <class T>
+void add_into(const T* x, T* sum, std::size_t n) noexcept {
+    std::size_t k = 0;
+    TENON_ELEMENTWISE_DISPATCH(k, add_row, x, sum, n);
+    for (; k < n; ++k) sum[k] += x[k];
+}
+
 /// sum[j] += d[i][j] for i = 0, 1, ..., rows - 1 in that order (the column
 /// sums of d added to sum, e.g. a bias gradient).
 template <class T>
 void add_column_sums(const T* d, std::size_t rows, std::size_t cols, T* sum) noexcept {
-    for (std::size_t i = 0; i < rows; ++i) {
-        const T* row = d + i * cols;
-        std::size_t k = 0;
-        TENON_ELEMENTWISE_DISPATCH(k, add_row, row, sum, cols);
-        for (; k < cols; ++k) sum[k] += row[k];
-    }
+    for (std::size_t i = 0; i < rows; ++i) add_into(d + i * cols, sum, cols);
 }
 
 #undef TENON_ELEMENTWISE_DISPATCH

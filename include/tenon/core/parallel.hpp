@@ -55,13 +55,13 @@ public:
 /// concurrent calls take turns. run() does not allocate.
 class thread_pool final : public executor {
 public:
-    explicit thread_pool(std::size_t threads = 1) {
+    explicit thread_pool(std::size_t threads = 1) : participants_(threads) {
         if (threads == 0 || threads > max_threads) {
             raise(codes::invalid_argument, "thread_pool: the number of threads must be in [1, " + std::to_string(max_threads) +
                                                "], got " + std::to_string(threads));
         }
         workers_.reserve(threads - 1);
-        for (std::size_t i = 0; i + 1 < threads; ++i) workers_.emplace_back([this] { work_loop(); });
+        for (std::size_t i = 0; i + 1 < threads; ++i) workers_.emplace_back([this, i] { work_loop(i + 1); });
     }
 
     ~thread_pool() override {
@@ -103,7 +103,7 @@ public:
             generation_.store(generation, std::memory_order_release);
         }
         wake_.notify_all();
-        work_on(generation, task, context, count);
+        work_on(generation, task, context, count, 0);
         // Wait for the workers' share: spin briefly (tasks are short), then sleep.
         for (int spin = 0; spin < spin_rounds && done_.load(std::memory_order_acquire) != count; ++spin) relax();
         if (done_.load(std::memory_order_acquire) != count) {
@@ -113,7 +113,8 @@ public:
     }
 
 private:
-    static constexpr int spin_rounds = 20000;  // a few tens of microseconds (common practice: spin, then block)
+    static constexpr int spin_rounds = 20000;
+    static constexpr std::size_t mask_limit = 32;  // runs of up to this many tasks claim through a mask  // a few tens of microseconds (common practice: spin, then block)
 
     static std::uint64_t tag(std::uint64_t generation) noexcept { return (generation & 0xFFFFFFFFu) << 32; }
 
@@ -126,24 +127,57 @@ private:
     }
 
     // Claims and runs indices of run `generation` until none are left.
-    void work_on(std::uint64_t generation, task_function task, void* context, std::size_t count) noexcept {
+    // In a run of at most 32 tasks the low 32 bits of next_ are the mask of
+    // claimed indices, and participant p (the calling thread is 0, worker j
+    // is j + 1) claims its own indices p, p + T, ... (T = concurrency())
+    // before any other. So task i of a run runs on the same thread run after
+    // run whenever every thread is at hand, and tenon's kernels can give a
+    // thread the same rows of a matrix in every pass over it (on the 2-core
+    // development machine, writing a line another core has read costs about
+    // five times what writing a line of its own does). A thread that is late
+    // loses nothing: the others take its indices. Longer runs hand out
+    // indices in order from a counter.
+    void work_on(std::uint64_t generation, task_function task, void* context, std::size_t count, std::size_t participant) noexcept {
         const std::uint64_t mine = tag(generation);
+        constexpr std::uint64_t index_bits = 0xFFFFFFFFu;
         std::uint64_t current = next_.load(std::memory_order_acquire);
+        if (count <= mask_limit) {
+            const std::uint64_t all = (std::uint64_t(1) << count) - 1;
+            std::uint64_t own = 0;
+            for (std::size_t i = participant; i < count; i += participants_) own |= std::uint64_t(1) << i;
+            for (;;) {
+                if ((current & ~index_bits) != mine) return;
+                const std::uint64_t free = all & ~current;
+                if (free == 0) return;
+                const std::uint64_t choice = (free & own) != 0 ? free & own : free;
+                const std::uint64_t pick = choice & (~choice + 1);  // lowest index of the choice
+                if (!next_.compare_exchange_weak(current, current | pick, std::memory_order_acq_rel, std::memory_order_acquire)) continue;
+                std::size_t index = 0;
+                while ((pick >> index) != 1) ++index;
+                finish(task, context, index, count);
+                current = next_.load(std::memory_order_acquire);
+            }
+        }
         for (;;) {
-            if ((current & ~std::uint64_t(0xFFFFFFFFu)) != mine) return;
-            const std::size_t index = static_cast<std::size_t>(current & 0xFFFFFFFFu);
+            if ((current & ~index_bits) != mine) return;
+            const std::size_t index = static_cast<std::size_t>(current & index_bits);
             if (index >= count) return;
             if (!next_.compare_exchange_weak(current, current + 1, std::memory_order_acq_rel, std::memory_order_acquire)) continue;
-            task(context, index);
-            if (done_.fetch_add(1, std::memory_order_acq_rel) + 1 == count) {
-                std::lock_guard<std::mutex> lock(mutex_);
-                finished_.notify_all();
-            }
+            finish(task, context, index, count);
             current = next_.load(std::memory_order_acquire);
         }
     }
 
-    void work_loop() noexcept {
+    // Runs task `index` and counts it done, waking run() after the last one.
+    void finish(task_function task, void* context, std::size_t index, std::size_t count) noexcept {
+        task(context, index);
+        if (done_.fetch_add(1, std::memory_order_acq_rel) + 1 == count) {
+            std::lock_guard<std::mutex> lock(mutex_);
+            finished_.notify_all();
+        }
+    }
+
+    void work_loop(std::size_t participant) noexcept {
         std::uint64_t seen = 0;
         // Spin a little for the next run before sleeping: a training step
         // issues runs back to back. How long adapts to the gaps seen: a run
@@ -172,10 +206,11 @@ private:
                 context = context_;
                 count = count_;
             }
-            work_on(seen, task, context, count);
+            work_on(seen, task, context, count, participant);
         }
     }
 
+    std::size_t participants_;  // the calling thread and the workers
     std::vector<std::thread> workers_;
     std::mutex run_mutex_;  // one run() at a time
     std::mutex mutex_;      // guards the run description and stopping_

@@ -23,8 +23,9 @@
 // run resumed from them continues exactly as the uninterrupted one.
 //
 // Threads: with set_executor(), a rule whose update treats every element on
-// its own (every rule in rules.hpp) splits the parameters into pieces of
-// piece_elements values and updates the pieces on the executor's threads.
+// its own (every rule in rules.hpp) splits each parameter of at least
+// piece_elements values into bands of rows, one per thread of the executor,
+// on the edges the matrix products put between the rows of its gradient.
 // Each element still goes through the same operations, so the weights are
 // bit-identical for any thread count. A rule of the host's that couples
 // elements (e.g. a per-layer norm) keeps the default
@@ -53,6 +54,7 @@
 #include "tenon/autodiff/parameter.hpp"
 #include "tenon/core/bytes.hpp"
 #include "tenon/core/elementwise.hpp"
+#include "tenon/core/gemm.hpp"
 #include "tenon/core/parallel.hpp"
 #include "tenon/core/simd.hpp"
 
@@ -126,15 +128,28 @@ public:
         ++step_;
         const flush_subnormals_scope flush;
         if (workers_ && workers_->concurrency() > 1 && treats_elements_independently()) {
-            // Pieces of every trainable parameter, claimed by the executor's threads.
+            // Row bands of every trainable parameter, band b for task b: the
+            // rows whose gradient the product split across the same threads
+            // computed there (core/gemm.hpp), so that a thread updates the
+            // same rows of a weight in every step, and the threads write far
+            // apart. A parameter under piece_elements values goes whole to
+            // task 0, the calling thread's, as its gradient product does.
+            const std::size_t threads = workers_->concurrency();
+            const kernel_path path = active_kernel_path();
             pieces_.clear();  // keeps its capacity: no allocation after the first step
             for (std::size_t i = 0; i < params.size(); ++i) {
                 if (!params[i]->trainable()) continue;
-                for (std::size_t first = 0; first < params[i]->size(); first += piece_elements)
-                    pieces_.push_back(piece{i, first, std::min(params[i]->size(), first + piece_elements)});
+                const shape2 shape = params[i]->shape();
+                if (shape.size() < piece_elements) {
+                    pieces_.push_back(piece{i, 0, shape.size(), 0});
+                    continue;
+                }
+                const auto bands = detail::gemm_split<T>::rows_of(shape.rows, path, threads);
+                for (std::size_t b = 0; b < bands.parts; ++b)
+                    pieces_.push_back(piece{i, bands.edge(b) * shape.cols, bands.edge(b + 1) * shape.cols, b});
             }
             piece_run run{this, &params, learning_rate, transform};
-            workers_->run(pieces_.size(), &update_rule::run_piece, &run);
+            workers_->run(threads, &update_rule::run_task, &run);
             if (run.failed) raise(codes::invalid_argument, std::string(kind()) + " update rule: a piece of the update failed");
             return;
         }
@@ -188,7 +203,9 @@ public:
     /// itself is unchanged. Off by default.
     void set_clears_gradients(bool on) noexcept { clears_gradients_ = on; }
     bool clears_gradients() const noexcept { return clears_gradients_; }
-    /// Elements per piece when apply() runs on several threads.
+    /// On several threads: a parameter with fewer values is updated whole by
+    /// the calling thread, a larger one in bands of rows; either is updated
+    /// this many values at a time.
     static constexpr std::size_t piece_elements = 16384;
 
     /// Number of apply() calls since construction, reset() or the loaded state.
@@ -373,7 +390,7 @@ protected:
 
 private:
     struct piece {
-        std::size_t parameter_index, first, last;
+        std::size_t parameter_index, first, last, task;
     };
     struct piece_run {
         update_rule* rule;
@@ -382,24 +399,31 @@ private:
         gradient_transform<T> transform;
         std::atomic<bool> failed{false};
     };
-    static void run_piece(void* context, std::size_t index) noexcept {
+    // Task `index` of a threaded apply(): its pieces, piece_elements values
+    // at a time (a rule that clears after updating then clears in cache).
+    static void run_task(void* context, std::size_t index) noexcept {
         auto& r = *static_cast<piece_run*>(context);
-        const piece& c = r.rule->pieces_[index];
-        parameter<T>& p = *(*r.params)[c.parameter_index];
-        T* slots[max_slots] = {};
-        for (std::size_t s = 0; s < r.rule->slot_count_; ++s)
-            slots[s] = r.rule->slots_[c.parameter_index * r.rule->slot_count_ + s].data() + c.first;
         const flush_subnormals_scope flush;  // this thread's mode, as on the calling thread
-        // Executor tasks must not throw; the built-in rules never do.
+        for (const piece& whole : r.rule->pieces_) {
+            if (whole.task != index) continue;
+            parameter<T>& p = *(*r.params)[whole.parameter_index];
+            for (std::size_t first = whole.first; first < whole.last; first += piece_elements) {
+                const piece c{whole.parameter_index, first, std::min(whole.last, first + piece_elements), index};
+                T* slots[max_slots] = {};
+                for (std::size_t s = 0; s < r.rule->slot_count_; ++s)
+                    slots[s] = r.rule->slots_[c.parameter_index * r.rule->slot_count_ + s].data() + c.first;
+                // Executor tasks must not throw; the built-in rules never do.
 #if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
-        try {
-            r.rule->update_piece(p, c, slots, r.learning_rate, r.transform);
-        } catch (...) {
-            r.failed.store(true, std::memory_order_relaxed);
-        }
+                try {
+                    r.rule->update_piece(p, c, slots, r.learning_rate, r.transform);
+                } catch (...) {
+                    r.failed.store(true, std::memory_order_relaxed);
+                }
 #else
-        r.rule->update_piece(p, c, slots, r.learning_rate, r.transform);
+                r.rule->update_piece(p, c, slots, r.learning_rate, r.transform);
 #endif
+            }
+        }
     }
     void update_piece(parameter<T>& p, const piece& c, T* const* slots, T learning_rate, const gradient_transform<T>& transform) {
         T* w = p.value().data() + c.first;
