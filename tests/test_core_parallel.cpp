@@ -35,6 +35,18 @@ struct path_guard {
     ~path_guard() { tenon::set_kernel_path(saved); }
 };
 
+// Switches to the BLAS path for the rest of the test (a path_guard restores
+// the path); false, with a message saying what goes unchecked, in a build
+// without the tenon::blas component.
+bool enter_blas_path(const char* unchecked) {
+    if (!tenon::kernel_path_available(tenon::kernel_path::blas)) {
+        MESSAGE("built without the tenon::blas component: " << unchecked);
+        return false;
+    }
+    tenon::set_kernel_path(tenon::kernel_path::blas);
+    return true;
+}
+
 template <class T>
 std::vector<T> uniform_buffer(tenon::random_engine& rng, std::size_t n) {
     std::vector<T> v(n);
@@ -199,12 +211,8 @@ TEST_CASE_TEMPLATE("on the BLAS path, products split into bands across an execut
     // product), so this checks every element against the bound of Higham
     // 2002 (see outside_bound) and the padding of C, with partial bands,
     // both split directions, strides wider than the rows and all transposes.
-    if (!tenon::kernel_path_available(tenon::kernel_path::blas)) {
-        MESSAGE("built without the tenon::blas component: nothing to check");
-        return;
-    }
     path_guard guard;
-    tenon::set_kernel_path(tenon::kernel_path::blas);
+    if (!enter_blas_path("nothing to check")) return;
     tenon::thread_pool two(2), three(3);
     reverse_executor host(4);
     const std::size_t sizes[][3] = {{128, 256, 784}, {784, 256, 128}, {37, 301, 70}, {301, 37, 70}, {128, 10, 128}, {33, 47, 97}};
@@ -261,14 +269,10 @@ TEST_CASE_TEMPLATE("BLAS bands of columns start on cache lines of C and stay wit
             }
         }
     }
-    if (!tenon::kernel_path_available(tenon::kernel_path::blas)) {
-        MESSAGE("built without the tenon::blas component: the products themselves are not checked");
-        return;
-    }
     // The products: C at every offset from a line, through gemm and an
     // executor, against the dot-product bound, C's other elements untouched.
     path_guard guard;
-    tenon::set_kernel_path(tenon::kernel_path::blas);
+    if (!enter_blas_path("the products themselves are not checked")) return;
     tenon::thread_pool two(2), three(3);
     tenon::random_engine rng(12);
     const std::size_t m = 64, n = 96, k = 96, ldc = 96;  // m n k above the parallel threshold, ldc * 4 bytes on lines
@@ -368,12 +372,8 @@ TEST_CASE_TEMPLATE("on the BLAS path, a network's outputs are the same bits for 
     // bands, within the bound checked above). The first layer's values are
     // also checked against a double-precision relu(x W + b), within the
     // dot-product bound of Higham 2002 (see outside_bound) for k + 2 terms.
-    if (!tenon::kernel_path_available(tenon::kernel_path::blas)) {
-        MESSAGE("built without the tenon::blas component: nothing to check");
-        return;
-    }
     path_guard guard;
-    tenon::set_kernel_path(tenon::kernel_path::blas);
+    if (!enter_blas_path("nothing to check")) return;
     const std::size_t batch = 128, inputs = 300, hidden = 160;
     CHECK(tenon::detail::splits_inner<T>(batch, hidden, inputs));
     CHECK(tenon::detail::splits_inner<T>(batch, 64, hidden));

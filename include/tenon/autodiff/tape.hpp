@@ -657,13 +657,10 @@ private:
                     // only the rows of W whose update it runs.
                     ensure_shape(n.scratch, shape2{rows, cols});
                     gemm_inner_halves<T>(rows, cols, k, x.data(), k, w.data(), cols, o, n.scratch.data(), workers_);
-                    inner_sum sum{&n, pb, o, n.scratch.data(), rows, cols, detail::gemm_split<T>::rows_of(rows, kernel_path::blas, 1)};
-                    if (workers_ && workers_->concurrency() > 1) {
-                        sum.bands = detail::gemm_split<T>::rows_of(rows, kernel_path::blas, workers_->concurrency());
-                        workers_->run(sum.bands.parts, &inner_sum::run_part, &sum);
-                    } else {
-                        inner_sum::run_part(&sum, 0);
-                    }
+                    const std::size_t threads = workers_ ? workers_->concurrency() : 1;
+                    inner_sum sum{&n, pb, o, n.scratch.data(), cols, detail::gemm_split<T>::rows_of(rows, kernel_path::blas, threads)};
+                    if (sum.bands.parts > 1) workers_->run(sum.bands.parts, &inner_sum::run_part, &sum);
+                    else inner_sum::run_part(&sum, 0);
                     return;
                 }
                 gemm<T>(false, false, rows, cols, k, T(1), x.data(), k, w.data(), cols, T(0), o, cols, workers_);
@@ -750,7 +747,7 @@ private:
         const T* pb;
         T* o;
         const T* partial;
-        std::size_t rows, cols;
+        std::size_t cols;
         detail::gemm_split<T> bands;
 
         static void run_part(void* context, std::size_t index) noexcept {

@@ -113,8 +113,8 @@ public:
     }
 
 private:
-    static constexpr int spin_rounds = 20000;
-    static constexpr std::size_t mask_limit = 32;  // runs of up to this many tasks claim through a mask  // a few tens of microseconds (common practice: spin, then block)
+    static constexpr int spin_rounds = 20000;      // a few tens of microseconds (common practice: spin, then block)
+    static constexpr std::size_t mask_limit = 32;  // runs of up to this many tasks claim through a mask
 
     static std::uint64_t tag(std::uint64_t generation) noexcept { return (generation & 0xFFFFFFFFu) << 32; }
 
@@ -129,7 +129,7 @@ private:
     // Claims and runs indices of run `generation` until none are left.
     // In a run of at most 32 tasks the low 32 bits of next_ are the mask of
     // claimed indices, and participant p (the calling thread is 0, worker j
-    // is j + 1) claims its own indices p, p + T, ... (T = concurrency())
+    // is j + 1) claims its own indices p, p + T, ... (T the number of participants)
     // before any other. So task i of a run runs on the same thread run after
     // run whenever every thread is at hand, and tenon's kernels can give a
     // thread the same rows of a matrix in every pass over it (on the 2-core

@@ -133,7 +133,8 @@ public:
             // computed there (core/gemm.hpp), so that a thread updates the
             // same rows of a weight in every step, and the threads write far
             // apart. A parameter under piece_elements values goes whole to
-            // task 0, the calling thread's, as its gradient product does.
+            // task 0 (the calling thread's in a thread_pool), as its gradient
+            // product stays on the calling thread.
             const std::size_t threads = workers_->concurrency();
             const kernel_path path = active_kernel_path();
             pieces_.clear();  // keeps its capacity: no allocation after the first step
