@@ -651,12 +651,12 @@ private:
                 const T* pb = n.input_count == 3 ? value_at(n.inputs[2]).data() : nullptr;
                 if (detail::splits_inner<T>(rows, cols, k)) {
                     // x W as the sum of its two halves over k (core/gemm.hpp:
-                    // gemm_inner_halves), the second half in the scratch
+                    // detail::gemm_inner_halves), the second half in the scratch
                     // matrix (backward() reuses it), then the sum, bias and
                     // activation by bands of rows. Each thread then reads
                     // only the rows of W whose update it runs.
                     ensure_shape(n.scratch, shape2{rows, cols});
-                    gemm_inner_halves<T>(rows, cols, k, x.data(), k, w.data(), cols, o, n.scratch.data(), workers_);
+                    detail::gemm_inner_halves<T>(rows, cols, k, x.data(), k, w.data(), cols, o, n.scratch.data(), workers_);
                     const std::size_t threads = workers_ ? workers_->concurrency() : 1;
                     inner_sum sum{&n, pb, o, n.scratch.data(), cols, detail::gemm_split<T>::rows_of(rows, kernel_path::blas, threads)};
                     if (sum.bands.parts > 1) workers_->run(sum.bands.parts, &inner_sum::run_part, &sum);

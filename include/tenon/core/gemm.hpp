@@ -743,26 +743,31 @@ struct gemm_split {
     }
 
     // The split of g into at most `threads` bands on `path`.
+    // (rows_of is this split's bands of rows, the same edges by construction.)
     static gemm_split plan(const gemm_problem<T>& g, kernel_path path, std::size_t threads, gemm_scratch<T>* scratch) noexcept {
         gemm_split split{};
+        if (g.m > g.n) {
+            split = rows_of(g.m, path, threads);
+        } else {
+            split.path = path;
+            split.by_rows = false;
+            // A BLAS band is one BLAS call: its edges go on a grid of blas_band_unit
+            // rows or columns (whole cache lines of C, a multiple of common BLAS tiles).
+            split.unit = path == kernel_path::blas ? blas_band_unit : tile_columns<T>(path);
+            // Bands of columns of a BLAS product start on a cache line of C where
+            // every row allows it: two threads writing the two halves of one line
+            // pass it back and forth, once per row (on the development machine
+            // 128 x 256 x 128 took 47 us in two bands of C 16 bytes off a line and
+            // 39 us on lines; 128 x 128 x 10 took 18 and 7 us). The built-in paths
+            // keep their bands on the register-tile grid, so that results do not
+            // depend on the thread count.
+            split.offset = path == kernel_path::blas ? line_offset(g.c, g.ldc, g.n) : 0;
+            split.extent = g.n;
+            split.units = (split.extent - split.offset + split.unit - 1) / split.unit;
+            split.parts = std::min(threads, split.units);
+        }
         split.g = &g;
         split.scratch = scratch;
-        split.path = path;
-        split.by_rows = g.m > g.n;
-        // A BLAS band is one BLAS call: its edges go on a grid of blas_band_unit
-        // rows or columns (whole cache lines of C, a multiple of common BLAS tiles).
-        split.unit = path == kernel_path::blas ? blas_band_unit : (split.by_rows ? tile_rows<T>(path) : tile_columns<T>(path));
-        // Bands of columns of a BLAS product start on a cache line of C where
-        // every row allows it: two threads writing the two halves of one line
-        // pass it back and forth, once per row (on the development machine
-        // 128 x 256 x 128 took 47 us in two bands of C 16 bytes off a line and
-        // 39 us on lines; 128 x 128 x 10 took 18 and 7 us). The built-in paths
-        // keep their bands on the register-tile grid, so that results do not
-        // depend on the thread count.
-        split.offset = path == kernel_path::blas && !split.by_rows ? line_offset(g.c, g.ldc, g.n) : 0;
-        split.extent = split.by_rows ? g.m : g.n;
-        split.units = (split.extent - split.offset + split.unit - 1) / split.unit;
-        split.parts = std::min(threads, split.units);
         return split;
     }
     std::size_t edge(std::size_t index) const noexcept {
@@ -853,28 +858,28 @@ struct inner_halves {
     }
 };
 
-}  // namespace detail
-
-/// For detail::splits_inner products: C = A[:, :e] B[:e, :] and P =
-/// A[:, e:] B[e:, :] (C and P m x n, dense rows), with e the edge the split
-/// of a product of k rows in two puts between its bands (the rows of B, a
-/// weight, whose gradient the first thread computes and whose update it
-/// runs). The two products run as tasks 0 and 1 of `workers`, or one after
-/// the other without; the caller adds P to C. On a machine whose cores pay
-/// for each line of a weight another core has read (the 2-core development
-/// machine: about five times the cost of writing its own line), the thread
-/// that updates rows of B is then the only one that read them.
+// For splits_inner products: C = A[:, :e] B[:e, :] and P =
+// A[:, e:] B[e:, :] (C and P m x n, dense rows), with e the edge the split
+// of a product of k rows in two puts between its bands (the rows of B, a
+// weight, whose gradient the first thread computes and whose update it
+// runs). The two products run as tasks 0 and 1 of `workers`, or one after
+// the other without; the caller adds P to C. On a machine whose cores pay
+// for each line of a weight another core has read (the 2-core development
+// machine: about five times the cost of writing its own line), the thread
+// that updates rows of B is then the only one that read them.
 template <class T>
 void gemm_inner_halves(std::size_t m, std::size_t n, std::size_t k, const T* a, std::size_t lda, const T* b, std::size_t ldb, T* c,
                        T* partial, executor* workers) noexcept {
-    detail::inner_halves<T> h{a, lda, b, ldb, c, partial, m, n, k, detail::gemm_split<T>::rows_of(k, kernel_path::blas, 2).edge(1)};
+    inner_halves<T> h{a, lda, b, ldb, c, partial, m, n, k, gemm_split<T>::rows_of(k, kernel_path::blas, 2).edge(1)};
     if (workers && workers->concurrency() > 1) {
-        workers->run(2, &detail::inner_halves<T>::run_part, &h);
+        workers->run(2, &inner_halves<T>::run_part, &h);
     } else {
-        detail::inner_halves<T>::run_part(&h, 0);
-        detail::inner_halves<T>::run_part(&h, 1);
+        inner_halves<T>::run_part(&h, 0);
+        inner_halves<T>::run_part(&h, 1);
     }
 }
+
+}  // namespace detail
 
 /// C = alpha op(A) op(B) + beta C on the calling thread.
 template <class T>
