@@ -211,7 +211,7 @@ TEST_CASE("plan errors name the column, the row and the value") {
     auto tm = timed.measure(t, {0, 1, 2});
     const std::string_view not_a_date[] = {"yesterday"};
     CHECK(error_code_of([&] { tm.apply_cells(not_a_date, 1, row.data()); }, &message) == "prep.cell.not_datetime");
-    CHECK(message == "[prep.cell.not_datetime] raw row, column 'when': 'yesterday' is not a date/time");
+    CHECK(message == "[prep.cell.not_datetime] raw row, column 'when': 'yesterday' is not a date/time in the form YYYY-MM-DD");
     const std::string_view a_date[] = {"2024-01-02"};
     tm.apply_cells(a_date, 1, row.data());
     CHECK(row[0] == doctest::Approx(0.0));  // the middle of three consecutive days
@@ -270,7 +270,7 @@ TEST_CASE("corrupted plan bytes: each error code with its message") {
     auto bad_version = good;
     bad_version[4] = 9;
     CHECK(error_code_of([&] { tenon::measured_plan::from_bytes(bad_version); }, &message) == "prep.bytes.bad_tag");
-    CHECK(message == "[prep.bytes.bad_tag] measured plan: format version 9 is not supported (this build reads version 1)");
+    CHECK(message == "[prep.bytes.bad_tag] measured plan: format version 9 is not supported (this build reads versions 1 to 2)");
 
     // Layout: magic 4, version 2, token count 4, then 7 tokens of 4 + length bytes.
     std::size_t pos = 10;

@@ -40,7 +40,7 @@
     X(prep_cell_not_numeric, "prep.cell.not_numeric",                                                 \
       "a cell of a numeric column is not a finite number")                                       \
     X(prep_cell_not_datetime, "prep.cell.not_datetime",                                               \
-      "a cell of a date/time column is not an ISO 8601 or YYYY/MM/DD date/time")                 \
+      "a cell of a date/time column is not a time stamp in the column's form")                   \
     X(prep_column_unknown, "prep.column.unknown", "no column has the given name")                     \
     X(prep_column_kind, "prep.column.kind", "a step was asked of a column whose kind does not allow it") \
     X(prep_value_missing, "prep.value.missing",                                                       \
@@ -66,7 +66,9 @@
     X(prep_idx_magic, "prep.idx.magic", "an IDX file has a bad magic number or an unsupported type")  \
     X(prep_idx_truncated, "prep.idx.truncated", "an IDX file holds fewer bytes than its header declares") \
     X(prep_idx_compressed, "prep.idx.compressed",                                                     \
-      "a gzip-compressed IDX file was given to the plain reader, or failed to decompress")
+      "a gzip-compressed IDX file was given to the plain reader, or failed to decompress")       \
+    X(prep_time_ambiguous, "prep.time.ambiguous",                                                     \
+      "a date column reads both day-first and month-first, and no time format says which")
 
 // layers/, losses/, update/: model components.
 #define TENON_ERROR_CODES_MODEL(X)                                                             \

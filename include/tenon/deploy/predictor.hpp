@@ -203,6 +203,8 @@ struct program_step {
 struct column_info {
     std::string name;
     column_kind kind = column_kind::numeric;
+    time_format time_form = time_format::detect;  // date/time: how raw cells are written
+    time_encoding time = time_encoding::value;    // date/time: scaled stamp and/or cyclic values
     fill_value fill;
     bool indicator = false;
     scaling scale;
@@ -309,8 +311,8 @@ struct compiled_model {
     }
 };
 
-inline bool parse_for_kind(column_kind kind, std::string_view cell, double& value) noexcept {
-    return kind == column_kind::datetime ? parse_datetime(cell, value) : parse_number(cell, value);
+inline bool parse_for_kind(const column_info& c, std::string_view cell, double& value) noexcept {
+    return c.kind == column_kind::datetime ? parse_datetime(cell, c.time_form, value) : parse_number(cell, value);
 }
 
 }  // namespace detail
@@ -533,7 +535,9 @@ private:
                     c.width = c.one_hot.width();
                 } else {
                     c.scale = plan->feature_scaling(name);
-                    c.width = 1;
+                    c.time_form = plan->feature_time_form(name);
+                    c.time = plan->feature_time_encoding(name);
+                    c.width = (c.time != time_encoding::cycles ? 1 : 0) + (c.time != time_encoding::value ? 6 : 0);
                 }
                 c.width += c.indicator ? 1 : 0;
                 for (const auto& r : refs)
@@ -628,13 +632,22 @@ private:
             value = c.fill.number;
         } else if (v.kind == raw_value::kind_type::number) {
             value = v.number;
-        } else if (!detail::parse_for_kind(c.kind, cell, value)) {
+        } else if (!detail::parse_for_kind(c, cell, value)) {
             return at(input_status::not_numeric);
         }
-        const T prepared = static_cast<T>(c.scale.forward(value));
-        if (!std::isfinite(prepared)) return at(input_status::non_finite);
-        out[0] = detail::flush_subnormal(prepared);
-        if (c.indicator) out[1] = missing ? T(1) : T(0);
+        std::size_t slot = 0;
+        if (c.time != time_encoding::cycles) {
+            const T prepared = static_cast<T>(c.scale.forward(value));
+            if (!std::isfinite(prepared)) return at(input_status::non_finite);
+            out[slot++] = detail::flush_subnormal(prepared);
+        }
+        if (c.time != time_encoding::value) {
+            if (!std::isfinite(value)) return at(input_status::non_finite);
+            double cycles[6];
+            time_cycles(value, cycles);  // as measured_plan::apply_cells, so both paths give the same features
+            for (double x : cycles) out[slot++] = detail::flush_subnormal(static_cast<T>(x));
+        }
+        if (c.indicator) out[slot] = missing ? T(1) : T(0);
         if (!missing && c.has_range) flag = value < c.minimum ? range_flag::below : value > c.maximum ? range_flag::above : range_flag::inside;
         return {};
     }

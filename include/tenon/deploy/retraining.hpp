@@ -342,8 +342,9 @@ public:
                 if (layout.find(c.text) < 0 && layout.policy() == unseen_policy::fail) return refusal::unseen_category;
             } else if (!c.is_number) {
                 const std::string_view text = trim_blanks(c.text);
-                const bool ok = kinds_[k] == column_kind::datetime ? parse_datetime(text, value) || parse_number(text, value)
-                                                                   : parse_number(text, value);
+                const bool ok = kinds_[k] == column_kind::datetime
+                                    ? parse_datetime(text, plan_.feature_time_form(names_[k]), value) || parse_number(text, value)
+                                    : parse_number(text, value);
                 if (!ok) return refusal::not_numeric;
                 c = number_cell(value);
             }

@@ -92,37 +92,60 @@ inline bool parse_number(std::string_view cell, double& out) noexcept {
     return true;
 }
 
-/// Parses an ISO 8601 date or date-time, or a YYYY/MM/DD date, into seconds
-/// since 1970-01-01T00:00:00Z (a double, fractions of a second kept).
-/// Accepted forms (ISO 8601:2004, section 4.1.2.2 calendar dates, 4.2.2.2
-/// times of day, 4.2.5.1 UTC offsets; the 'T' may be a space, common practice):
-///   YYYY-MM-DD, YYYY/MM/DD,
-///   YYYY-MM-DDTHH:MM, ...THH:MM:SS, ...THH:MM:SS.fff (any number of digits),
-///   each time optionally followed by 'Z' or +HH:MM / -HH:MM.
-/// A time without an offset is read as UTC. Dates are checked (month 1-12,
-/// day within the month, leap years), hours 0-23, minutes 0-59, seconds 0-60.
-inline bool parse_datetime(std::string_view cell, double& out) noexcept {
-    using detail::read_digits;
-    const std::string_view s = detail::trim_blanks(cell);
-    std::size_t pos = 0;
-    int year = 0, month = 0, day = 0;
-    if (!read_digits(s, pos, 4, year)) return false;
-    if (pos >= s.size() || (s[pos] != '-' && s[pos] != '/')) return false;
-    const char separator = s[pos++];
-    if (!read_digits(s, pos, 2, month)) return false;
-    if (pos >= s.size() || s[pos] != separator) return false;
-    ++pos;
-    if (!read_digits(s, pos, 2, day)) return false;
-    if (month < 1 || month > 12 || day < 1 || day > detail::days_in_month(year, month)) return false;
-    double seconds = static_cast<double>(detail::days_from_civil(year, static_cast<unsigned>(month),
-                                                                 static_cast<unsigned>(day))) * 86400.0;
-    if (pos == s.size()) {
-        out = seconds;
-        return true;
+/// How a column writes its time stamps. One form per column: detected when
+/// the file is read (csv_options) or given by the host, and kept in the plan
+/// so that new rows are read the same way.
+enum class time_format : std::uint8_t {
+    /// Any of the unambiguous text forms (YYYY-MM-DD..., YYYY/MM/DD...,
+    /// DD.MM.YYYY...): what a plan written before forms were stored reads.
+    detect = 0,
+    /// ISO 8601 calendar date, optionally a time after 'T' or a space, and
+    /// 'Z' or an offset: YYYY-MM-DD[(T| )HH:MM[:SS[.fff]][Z|(+|-)HH[:]MM]].
+    iso = 1,
+    /// YYYY/MM/DD[ HH:MM[:SS[.fff]]], as many historians write it.
+    year_slash = 2,
+    /// DD.MM.YYYY[ HH:MM[:SS[.fff]]], common in German-speaking plants.
+    day_dot = 3,
+    /// DD/MM/YYYY[ HH:MM[:SS[.fff]]], day first.
+    day_slash = 4,
+    /// MM/DD/YYYY[ HH:MM[:SS[.fff]]], month first.
+    month_slash = 5,
+    /// A number of seconds since 1970-01-01T00:00:00Z (only when asked for).
+    epoch_seconds = 6,
+    /// A number of milliseconds since 1970-01-01T00:00:00Z (only when asked for).
+    epoch_milliseconds = 7,
+};
+
+/// The form's name as reports, plans and the tool's --time-format spell it.
+inline const char* to_string(time_format form) noexcept {
+    switch (form) {
+        case time_format::detect: return "detect";
+        case time_format::iso: return "YYYY-MM-DD";
+        case time_format::year_slash: return "YYYY/MM/DD";
+        case time_format::day_dot: return "DD.MM.YYYY";
+        case time_format::day_slash: return "DD/MM/YYYY";
+        case time_format::month_slash: return "MM/DD/YYYY";
+        case time_format::epoch_seconds: return "epoch-seconds";
+        case time_format::epoch_milliseconds: return "epoch-milliseconds";
     }
-    if (separator != '-') return false;  // YYYY/MM/DD carries no time here
-    if (s[pos] != 'T' && s[pos] != ' ') return false;
-    ++pos;
+    return "unknown";
+}
+
+/// The form named `text` (to_string's spelling); false for any other text.
+inline bool time_format_from_text(std::string_view text, time_format& out) noexcept {
+    for (std::uint8_t k = 0; k <= static_cast<std::uint8_t>(time_format::epoch_milliseconds); ++k)
+        if (text == to_string(static_cast<time_format>(k))) {
+            out = static_cast<time_format>(k);
+            return true;
+        }
+    return false;
+}
+
+namespace detail {
+
+// Reads "HH:MM[:SS[.fff]]" at pos into seconds of the day; checks the ranges
+// (hours 0-23, minutes 0-59, seconds 0-60 for a leap second).
+inline bool read_clock(std::string_view s, std::size_t& pos, double& seconds) noexcept {
     int hour = 0, minute = 0, second = 0;
     if (!read_digits(s, pos, 2, hour)) return false;
     if (pos >= s.size() || s[pos] != ':') return false;
@@ -146,7 +169,38 @@ inline bool parse_datetime(std::string_view cell, double& out) noexcept {
         }
     }
     if (hour > 23 || minute > 59 || second > 60) return false;
-    seconds += hour * 3600.0 + minute * 60.0 + second + fraction;
+    seconds = hour * 3600.0 + minute * 60.0 + second + fraction;
+    return true;
+}
+
+inline bool civil_seconds(int year, int month, int day, double& out) noexcept {
+    if (month < 1 || month > 12 || day < 1 || day > days_in_month(year, month)) return false;
+    out = static_cast<double>(days_from_civil(year, static_cast<unsigned>(month), static_cast<unsigned>(day))) * 86400.0;
+    return true;
+}
+
+// ISO 8601:2004 section 4.1.2.2 calendar dates, 4.2.2.2 times of day, 4.2.5.1
+// UTC offsets ('T' may be a space, common practice). Offsets may be written
+// +HH:MM, +HHMM or +HH (4.2.5.1 basic and extended formats).
+inline bool parse_iso(std::string_view s, double& out) noexcept {
+    std::size_t pos = 0;
+    int year = 0, month = 0, day = 0;
+    if (!read_digits(s, pos, 4, year) || pos >= s.size() || s[pos] != '-') return false;
+    ++pos;
+    if (!read_digits(s, pos, 2, month) || pos >= s.size() || s[pos] != '-') return false;
+    ++pos;
+    if (!read_digits(s, pos, 2, day)) return false;
+    double seconds = 0;
+    if (!civil_seconds(year, month, day, seconds)) return false;
+    if (pos == s.size()) {
+        out = seconds;
+        return true;
+    }
+    if (s[pos] != 'T' && s[pos] != ' ') return false;
+    ++pos;
+    double clock = 0;
+    if (!read_clock(s, pos, clock)) return false;
+    seconds += clock;
     if (pos < s.size()) {
         if (s[pos] == 'Z') {
             ++pos;
@@ -155,9 +209,9 @@ inline bool parse_datetime(std::string_view cell, double& out) noexcept {
             ++pos;
             int offset_hours = 0, offset_minutes = 0;
             if (!read_digits(s, pos, 2, offset_hours)) return false;
-            if (pos >= s.size() || s[pos] != ':') return false;
-            ++pos;
-            if (!read_digits(s, pos, 2, offset_minutes)) return false;
+            const bool colon = pos < s.size() && s[pos] == ':';
+            if (colon) ++pos;
+            if ((colon || pos < s.size()) && !read_digits(s, pos, 2, offset_minutes)) return false;
             if (offset_hours > 23 || offset_minutes > 59) return false;
             // Local time = UTC + offset, so UTC = local - offset.
             seconds -= sign * (offset_hours * 3600.0 + offset_minutes * 60.0);
@@ -168,6 +222,70 @@ inline bool parse_datetime(std::string_view cell, double& out) noexcept {
     if (pos != s.size()) return false;
     out = seconds;
     return true;
+}
+
+// Three numbers separated by `separator` in the order given by `order`
+// ("ymd", "dmy" or "mdy", the year with four digits, day and month with two),
+// then optionally a space and a clock time. No offset: read as written.
+inline bool parse_ordered(std::string_view s, char separator, const char (&order)[4], double& out) noexcept {
+    std::size_t pos = 0;
+    int year = 0, month = 0, day = 0;
+    for (int part = 0; part < 3; ++part) {
+        if (part > 0) {
+            if (pos >= s.size() || s[pos] != separator) return false;
+            ++pos;
+        }
+        const char which = order[part];
+        if (!read_digits(s, pos, which == 'y' ? 4 : 2, which == 'y' ? year : which == 'm' ? month : day)) return false;
+    }
+    double seconds = 0;
+    if (!civil_seconds(year, month, day, seconds)) return false;
+    if (pos < s.size()) {
+        if (s[pos] != ' ') return false;
+        ++pos;
+        double clock = 0;
+        if (!read_clock(s, pos, clock)) return false;
+        seconds += clock;
+    }
+    if (pos != s.size()) return false;
+    out = seconds;
+    return true;
+}
+
+}  // namespace detail
+
+/// Reads a time stamp written in `form` into seconds since
+/// 1970-01-01T00:00:00Z (a double, fractions of a second kept). Blanks
+/// around the cell are ignored. Dates are checked (month 1-12, day within
+/// the month, leap years), hours 0-23, minutes 0-59, seconds 0-60. A time
+/// without an offset is read as UTC, that is, as written. Epoch forms take a
+/// finite number (parse_number). time_format::detect accepts the three
+/// unambiguous text forms (iso, year_slash, day_dot).
+inline bool parse_datetime(std::string_view cell, time_format form, double& out) noexcept {
+    const std::string_view s = detail::trim_blanks(cell);
+    switch (form) {
+        case time_format::detect:
+            return detail::parse_iso(s, out) || detail::parse_ordered(s, '/', "ymd", out) ||
+                   detail::parse_ordered(s, '.', "dmy", out);
+        case time_format::iso: return detail::parse_iso(s, out);
+        case time_format::year_slash: return detail::parse_ordered(s, '/', "ymd", out);
+        case time_format::day_dot: return detail::parse_ordered(s, '.', "dmy", out);
+        case time_format::day_slash: return detail::parse_ordered(s, '/', "dmy", out);
+        case time_format::month_slash: return detail::parse_ordered(s, '/', "mdy", out);
+        case time_format::epoch_seconds:
+        case time_format::epoch_milliseconds: {
+            double v = 0;
+            if (!parse_number(s, v)) return false;
+            out = form == time_format::epoch_seconds ? v : v / 1000.0;
+            return true;
+        }
+    }
+    return false;
+}
+
+/// parse_datetime with time_format::detect.
+inline bool parse_datetime(std::string_view cell, double& out) noexcept {
+    return parse_datetime(cell, time_format::detect, out);
 }
 
 /// The shortest text that reads back as exactly `value` (used for class

@@ -43,6 +43,16 @@ struct csv_options {
     std::vector<std::string> missing_tokens = default_missing_tokens();
     /// Column kinds chosen by the host instead of inferred, by column name.
     std::map<std::string, column_kind> forced_kinds;
+    /// Time-stamp forms by column name. A column named here is read as
+    /// date/time in that form (the only way to read epoch seconds or
+    /// milliseconds, which otherwise are plain numbers).
+    std::map<std::string, time_format> time_formats;
+    /// The form of date/time columns not named in time_formats:
+    /// time_format::detect picks, per column, the one text form every present
+    /// cell reads in, and refuses slash dates that read both day-first and
+    /// month-first (prep.time.ambiguous); day_slash or month_slash settles
+    /// that choice; any other form is required of every date/time column.
+    time_format default_time_format = time_format::detect;
     /// Bytes read from the stream at a time.
     std::size_t chunk_bytes = std::size_t(1) << 20;
 };
@@ -282,10 +292,65 @@ inline std::vector<column_summary> summarize_csv_file(const std::string& path, c
     return summarize_csv(in, options, path, max_categories);
 }
 
-/// Reads CSV text into a table. Column kinds are forced (options.forced_kinds)
-/// or inferred: numeric if every present cell reads as a finite number,
-/// date/time if every present cell reads as a date/time, categorical
-/// otherwise; a column with no present cell is numeric.
+namespace detail {
+// The one time-stamp form every present cell of a column reads in, or
+// time_format::detect when no text form fits them all (the column is then
+// not a date/time column). `preferred` other than detect is the only form
+// tried, except that day_slash / month_slash only settle the slash-date
+// choice. Raises prep.time.ambiguous when both slash orders fit every cell.
+template <class Cell>
+time_format detect_time_form(const std::string& name, std::size_t rows, const std::vector<std::uint8_t>& missing,
+                             const Cell& cell, time_format preferred, const std::string& source) {
+    const bool slash_choice = preferred == time_format::day_slash || preferred == time_format::month_slash;
+    const auto fits = [&](time_format form) {
+        double value = 0;
+        for (std::size_t i = 0; i < rows; ++i)
+            if (!missing[i] && !parse_datetime(cell(i), form, value)) return false;
+        return true;
+    };
+    bool any_present = false;
+    for (std::size_t i = 0; i < rows && !any_present; ++i) any_present = !missing[i];
+    if (!any_present) return time_format::detect;
+    if (preferred != time_format::detect && !slash_choice) return fits(preferred) ? preferred : time_format::detect;
+    for (time_format form : {time_format::iso, time_format::year_slash, time_format::day_dot})
+        if (fits(form)) return form;
+    const bool day_first = fits(time_format::day_slash), month_first = fits(time_format::month_slash);
+    if (day_first && month_first) {
+        if (slash_choice) return preferred;
+        std::size_t example = 0;
+        while (missing[example]) ++example;
+        raise(codes::prep_time_ambiguous,
+              source + ", column '" + name + "': dates such as '" + std::string(trim_blanks(cell(example))) +
+                  "' read both day-first (DD/MM/YYYY) and month-first (MM/DD/YYYY); give the time format");
+    }
+    return day_first ? time_format::day_slash : month_first ? time_format::month_slash : time_format::detect;
+}
+
+// True when the column reads as date/time: in one form (set in `form`), or
+// in several unambiguous ones (form detect).
+template <class Cell>
+bool detect_time_format(const std::string& name, std::size_t rows, const std::vector<std::uint8_t>& missing,
+                        const Cell& cell, time_format preferred, const std::string& source, time_format& form) {
+    form = detect_time_form(name, rows, missing, cell, preferred, source);
+    if (form != time_format::detect) return true;
+    if (preferred != time_format::detect && preferred != time_format::day_slash && preferred != time_format::month_slash)
+        return false;
+    bool any_present = false;
+    double value = 0;
+    for (std::size_t i = 0; i < rows; ++i) {
+        if (missing[i]) continue;
+        any_present = true;
+        if (!parse_datetime(cell(i), time_format::detect, value)) return false;
+    }
+    return any_present;
+}
+}  // namespace detail
+
+/// Reads CSV text into a table. Column kinds are forced (options.forced_kinds,
+/// options.time_formats) or inferred: numeric if every present cell reads as
+/// a finite number, date/time if every present cell reads as a time stamp in
+/// one form (detect_time_format; the column keeps its form, time_form()),
+/// categorical otherwise; a column with no present cell is numeric.
 inline table read_csv(std::istream& in, const csv_options& options = {}, const std::string& source = "<stream>") {
     csv_record_reader reader(in, options.delimiter, source, options.chunk_bytes);
     const auto names = detail::read_header(reader);
@@ -295,6 +360,15 @@ inline table read_csv(std::istream& in, const csv_options& options = {}, const s
         if (!found)
             raise(codes::prep_column_unknown, source + ": a kind is forced for column '" + forced.first +
                                                   "', which the header does not name");
+    }
+    for (const auto& named : options.time_formats) {
+        bool found = false;
+        for (const auto& n : names) found = found || n == named.first;
+        if (!found)
+            raise(codes::prep_column_unknown, source + ": a time format is given for column '" + named.first +
+                                                  "', which the header does not name");
+        if (named.second == time_format::detect)
+            raise(codes::invalid_argument, source + ": column '" + named.first + "': name a time format, not 'detect'");
     }
     const std::size_t width = names.size();
     // Pass 1: keep the raw cells, column by column, in one text arena each.
@@ -320,20 +394,30 @@ inline table read_csv(std::istream& in, const csv_options& options = {}, const s
         std::vector<std::uint8_t> missing(rows);
         for (std::size_t i = 0; i < rows; ++i) missing[i] = is_missing_cell(cell(i), options.missing_tokens) ? 1 : 0;
         column_kind kind;
+        time_format form = time_format::detect;
         auto forced = options.forced_kinds.find(names[k]);
-        if (forced != options.forced_kinds.end()) {
+        auto named_form = options.time_formats.find(names[k]);
+        if (named_form != options.time_formats.end()) {
+            kind = column_kind::datetime;
+            form = named_form->second;
+        } else if (forced != options.forced_kinds.end() && forced->second != column_kind::datetime) {
             kind = forced->second;
         } else {
-            bool all_numbers = true, all_times = true;
+            bool all_numbers = forced == options.forced_kinds.end();
             double value = 0;
             for (std::size_t i = 0; i < rows && all_numbers; ++i)
                 if (!missing[i] && !parse_number(cell(i), value)) all_numbers = false;
-            if (!all_numbers)
-                for (std::size_t i = 0; i < rows && all_times; ++i)
-                    if (!missing[i] && !parse_datetime(cell(i), value)) all_times = false;
-            kind = all_numbers ? column_kind::numeric : all_times ? column_kind::datetime : column_kind::categorical;
+            if (all_numbers) {
+                kind = column_kind::numeric;
+            } else {
+                // Cells in several unambiguous forms (each reads one way only) stay
+                // readable, as before forms were detected, under the form detect.
+                const bool dates = detail::detect_time_format(names[k], rows, missing, cell, options.default_time_format, source, form);
+                kind = dates || forced != options.forced_kinds.end() ? column_kind::datetime : column_kind::categorical;
+            }
         }
         column& c = result.add_column(names[k], kind);
+        c.set_time_form(form);
         c.reserve(rows);
         for (std::size_t i = 0; i < rows; ++i) {
             if (missing[i]) {
@@ -349,10 +433,12 @@ inline table read_csv(std::istream& in, const csv_options& options = {}, const s
                                                             std::string(text) + "' is not a finite number");
                 c.push_number(value);
             } else if (kind == column_kind::datetime) {
-                if (!parse_datetime(text, value))
+                if (!parse_datetime(text, form, value))
                     raise(codes::prep_cell_not_datetime, source + " line " + std::to_string(lines[i]) + " column " +
                                                              std::to_string(k + 1) + " ('" + names[k] + "'): '" +
-                                                             std::string(text) + "' is not a date/time");
+                                                             std::string(text) + "' is not a date/time" +
+                                                             (form == time_format::detect ? std::string()
+                                                                                          : std::string(" in the form ") + to_string(form)));
                 c.push_number(value);
             } else {
                 c.push_category(detail::trim_blanks(text));

@@ -12,6 +12,10 @@
 // Feature layout, one block per feature column in table order:
 //   numeric / date-time  1 scaled value          name
 //   categorical          one-hot slots           name=category ..., name=<other>
+//   date-time cycles     6 values                name#hour_sin, name#hour_cos,
+//                                                name#weekday_sin, name#weekday_cos,
+//                                                name#yearday_sin, name#yearday_cos
+//                                                (if chosen, after the scaled value)
 //   missing indicator    1 value (1 = missing)   name#missing   (if chosen)
 // Scalings are measured on the present training cells (before imputation).
 //
@@ -25,6 +29,7 @@
 
 #include <algorithm>
 #include <charconv>
+#include <cmath>
 #include <cstdint>
 #include <string>
 #include <string_view>
@@ -47,6 +52,49 @@ TENON_NAMESPACE_BEGIN
 enum class column_role : std::uint8_t { feature = 0, target = 1, ignored = 2, group = 3, time = 4 };
 enum class target_kind : std::uint8_t { classification = 0, regression = 1 };
 
+/// What a date/time column gives the network. A time stamp itself only grows,
+/// so a model sees values beyond its training range on every new row; the
+/// position within the day, the week and the year repeats, and plant data
+/// (shift patterns, weekends, seasons) often follows it. Each position is
+/// given as a sine/cosine pair, so that 23:59 lies next to 00:00.
+enum class time_encoding : std::uint8_t {
+    value = 0,             // the scaled time stamp alone
+    value_and_cycles = 1,  // the scaled time stamp, then the six cyclic values
+    cycles = 2,            // the six cyclic values alone
+};
+
+/// The six cyclic values of a time stamp (seconds since 1970-01-01T00:00:00Z,
+/// read as written: a stamp without an offset keeps its local clock time):
+/// hour of day h in [0, 24) with minutes and seconds as fractions, day of
+/// week w (0 = Monday) and day of year d (0 = 1 January, out of 365 or 366
+/// days), each as (sin 2 pi x / period, cos 2 pi x / period). The weekday of
+/// 1970-01-01 is Thursday; the civil year comes from Hinnant's
+/// civil_from_days ("chrono-Compatible Low-Level Date Algorithms", 2013).
+inline void time_cycles(double seconds, double* out) noexcept {
+    constexpr double two_pi = 6.283185307179586476925286766559;
+    const double days = std::floor(seconds / 86400.0);
+    const double hour = (seconds - days * 86400.0) / 3600.0;
+    const auto day_number = static_cast<std::int64_t>(days);
+    const std::int64_t weekday = ((day_number + 3) % 7 + 7) % 7;  // 1970-01-01 (day 0) was a Thursday = 3
+    // civil_from_days (Hinnant 2013): the year of the day.
+    const std::int64_t z = day_number + 719468;
+    const std::int64_t era = (z >= 0 ? z : z - 146096) / 146097;
+    const auto doe = static_cast<unsigned>(z - era * 146097);
+    const unsigned yoe = (doe - doe / 1460 + doe / 36524 - doe / 146096) / 365;
+    const unsigned doy_from_march = doe - (365 * yoe + yoe / 4 - yoe / 100);
+    const unsigned mp = (5 * doy_from_march + 2) / 153;
+    const unsigned month = mp < 10 ? mp + 3 : mp - 9;
+    const std::int64_t year = static_cast<std::int64_t>(yoe) + era * 400 + (month <= 2 ? 1 : 0);
+    const auto year_day = static_cast<double>(day_number - detail::days_from_civil(year, 1, 1));
+    const double year_length = detail::is_leap_year(static_cast<int>(year)) ? 366.0 : 365.0;
+    out[0] = std::sin(two_pi * hour / 24.0);
+    out[1] = std::cos(two_pi * hour / 24.0);
+    out[2] = std::sin(two_pi * static_cast<double>(weekday) / 7.0);
+    out[3] = std::cos(two_pi * static_cast<double>(weekday) / 7.0);
+    out[4] = std::sin(two_pi * year_day / year_length);
+    out[5] = std::cos(two_pi * year_day / year_length);
+}
+
 /// What to do with one feature column.
 struct feature_steps {
     fill_method fill = fill_method::none;
@@ -57,6 +105,9 @@ struct feature_steps {
     double range_low = 0.0, range_high = 1.0;          // target range of min-max scaling
     unseen_policy unseen = unseen_policy::fail;        // categorical columns
     bool drop_first = false;                           // categorical columns
+    /// Date/time columns: the scaled stamp, cyclic values, or both. A column
+    /// with the time role and cycles chosen gives the cyclic values alone.
+    time_encoding time = time_encoding::value;
 };
 
 /// Rows prepared by a measured plan. `rows[i]` is the table row that became
@@ -74,6 +125,8 @@ namespace detail {
 struct measured_feature {
     std::string name;
     column_kind kind = column_kind::numeric;
+    time_format time_form = time_format::detect;  // date/time: how raw cells are written
+    time_encoding time = time_encoding::value;    // date/time: what the block holds
     fill_value fill;
     bool indicator = false;
     scaling scale;            // numeric and date/time
@@ -198,6 +251,11 @@ public:
     const one_hot_layout& feature_categories(const std::string& column_name) const { return feature(column_name).one_hot; }
     /// The kind the feature column had in the training table.
     column_kind feature_kind(const std::string& column_name) const { return feature(column_name).kind; }
+    /// How a date/time feature column's raw cells are written (read the same
+    /// way in apply_cells); time_format::detect for plans from before forms were kept.
+    time_format feature_time_form(const std::string& column_name) const { return feature(column_name).time_form; }
+    /// What a date/time feature column's block holds.
+    time_encoding feature_time_encoding(const std::string& column_name) const { return feature(column_name).time; }
     /// Whether the feature column has a 0/1 "was missing" indicator after its values.
     bool feature_has_indicator(const std::string& column_name) const { return feature(column_name).indicator; }
     /// First output column of the feature column's block.
@@ -294,11 +352,15 @@ public:
             } else {
                 double value = 0;
                 if (!missing) {
-                    const bool ok = f.kind == column_kind::numeric ? parse_number(cell, value) : parse_datetime(cell, value);
+                    const bool ok = f.kind == column_kind::numeric ? parse_number(cell, value)
+                                                                   : parse_datetime(cell, f.time_form, value);
                     if (!ok)
                         raise(f.kind == column_kind::numeric ? codes::prep_cell_not_numeric : codes::prep_cell_not_datetime,
                               "raw row, column '" + f.name + "': '" + std::string(cell) + "' is not a " +
-                                  (f.kind == column_kind::numeric ? "finite number" : "date/time"));
+                                  (f.kind == column_kind::numeric ? "finite number"
+                                   : f.time_form == time_format::detect
+                                       ? "date/time"
+                                       : std::string("date/time in the form ") + to_string(f.time_form)));
                 }
                 write_number(f, missing, value, o, "raw row");
             }
@@ -336,7 +398,9 @@ public:
     }
 
     // --- serialization -------------------------------------------------------------------
-    static constexpr std::uint16_t format_version = 1;
+    /// Version 2 added, per feature column, the time-stamp form and the
+    /// time encoding; version 1 bytes still read (form detect, value alone).
+    static constexpr std::uint16_t format_version = 2;
 
     std::vector<std::uint8_t> to_bytes() const {
         std::vector<std::uint8_t> bytes;
@@ -350,6 +414,8 @@ public:
             w.u8(tag_feature);
             w.text(f.name);
             w.u8(static_cast<std::uint8_t>(f.kind));
+            w.u8(static_cast<std::uint8_t>(f.time_form));
+            w.u8(static_cast<std::uint8_t>(f.time));
             w.u8(static_cast<std::uint8_t>(f.fill.method));
             w.f64(f.fill.number);
             w.text(f.fill.text);
@@ -382,9 +448,9 @@ public:
             if (r.u8() != static_cast<std::uint8_t>(m))
                 raise(codes::prep_bytes_bad_tag, "measured plan: the bytes do not start with the magic 'TNPL'");
         const std::uint16_t version = r.u16();
-        if (version != format_version)
+        if (version != 1 && version != format_version)
             raise(codes::prep_bytes_bad_tag, "measured plan: format version " + std::to_string(version) +
-                                                 " is not supported (this build reads version " +
+                                                 " is not supported (this build reads versions 1 to " +
                                                  std::to_string(format_version) + ")");
         measured_plan p;
         p.missing_tokens_.resize(r.count(4, "missing tokens"));
@@ -394,6 +460,12 @@ public:
             r.expect_tag(tag_feature, "a feature column");
             f.name = r.text();
             f.kind = r.enumeration<column_kind>(2, "column kind");
+            if (version >= 2) {
+                f.time_form = r.enumeration<time_format>(7, "time format");
+                f.time = r.enumeration<time_encoding>(2, "time encoding");
+                if (f.kind != column_kind::datetime && f.time != time_encoding::value)
+                    raise(codes::prep_bytes_bad_tag, "measured plan: column '" + f.name + "' is not date/time but carries cyclic time values");
+            }
             f.fill.method = r.enumeration<fill_method>(4, "fill method");
             f.fill.number = r.f64();
             f.fill.text = r.text();
@@ -458,8 +530,16 @@ private:
                 for (auto& n : f.one_hot.slot_names(f.name)) feature_names_.push_back(std::move(n));
                 f.width = f.one_hot.width();
             } else {
-                feature_names_.push_back(f.name);
-                f.width = 1;
+                f.width = 0;
+                if (f.time != time_encoding::cycles) {
+                    feature_names_.push_back(f.name);
+                    f.width = 1;
+                }
+                if (f.time != time_encoding::value) {
+                    for (const char* part : {"#hour_sin", "#hour_cos", "#weekday_sin", "#weekday_cos", "#yearday_sin", "#yearday_cos"})
+                        feature_names_.push_back(f.name + part);
+                    f.width += 6;
+                }
             }
             if (f.indicator) {
                 feature_names_.push_back(f.name + "#missing");
@@ -494,8 +574,14 @@ private:
                 raise(codes::prep_value_missing, at + ", column '" + f.name + "': the cell is missing and the plan has no fill for it");
             value = f.fill.number;
         }
-        out[0] = static_cast<T>(f.scale.forward(value));
-        if (f.indicator) out[1] = missing ? T(1) : T(0);
+        std::size_t k = 0;
+        if (f.time != time_encoding::cycles) out[k++] = static_cast<T>(f.scale.forward(value));
+        if (f.time != time_encoding::value) {
+            double cycles[6];
+            time_cycles(value, cycles);
+            for (double c : cycles) out[k++] = static_cast<T>(c);
+        }
+        if (f.indicator) out[k] = missing ? T(1) : T(0);
     }
 
     template <class T>
@@ -669,11 +755,20 @@ inline measured_plan plan::measure(const table& t, const std::vector<std::size_t
         const column_role role = role_of(c.name());
         if (role == column_role::group) p.group_column_ = c.name();
         if (role == column_role::time) p.time_column_ = c.name();
-        if (role != column_role::feature) continue;
         const feature_steps& s = steps_of(c.name());
+        // A time column gives no feature, except its cyclic values when chosen.
+        const bool time_cycles_only = role == column_role::time && c.kind() == column_kind::datetime && s.time != time_encoding::value;
+        if (role != column_role::feature && !time_cycles_only) continue;
+        bool steps_named = false;
+        for (const auto& named : steps_) steps_named = steps_named || named.first == c.name();
+        if (s.time != time_encoding::value && c.kind() != column_kind::datetime && steps_named)
+            raise(codes::prep_column_kind, where + ", column '" + c.name() + "' is " + to_string(c.kind()) +
+                                               ": cyclic time values need a date/time column");
         detail::measured_feature f;
         f.name = c.name();
         f.kind = c.kind();
+        f.time_form = c.time_form();
+        f.time = c.kind() != column_kind::datetime ? time_encoding::value : time_cycles_only ? time_encoding::cycles : s.time;
         f.indicator = s.missing_indicator;
         f.fill = exchange ? detail::shared_fill(c, kept, s, *exchange) : measure_fill(c, kept, s.fill, s.fill_number, s.fill_text);
         if (c.kind() == column_kind::categorical) {

@@ -18,6 +18,7 @@
 
 #include "tenon/core/error.hpp"
 #include "tenon/core/error_codes.hpp"
+#include "tenon/prep/cell_parsing.hpp"
 
 TENON_NAMESPACE_BEGIN
 
@@ -39,6 +40,10 @@ public:
 
     const std::string& name() const noexcept { return name_; }
     column_kind kind() const noexcept { return kind_; }
+    /// How a date/time column's cells were written (read_csv sets it; a plan
+    /// measured on the column keeps it for new rows).
+    time_format time_form() const noexcept { return time_form_; }
+    void set_time_form(time_format form) noexcept { time_form_ = form; }
     std::size_t size() const noexcept { return missing_.size(); }
     bool is_missing(std::size_t row) const noexcept { return missing_[row] != 0; }
     std::size_t missing_count() const noexcept {
@@ -105,6 +110,7 @@ private:
 
     std::string name_;
     column_kind kind_;
+    time_format time_form_ = time_format::detect;
     std::vector<double> numbers_;
     std::vector<std::uint32_t> codes_;
     std::vector<std::string> categories_;
