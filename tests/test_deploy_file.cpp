@@ -110,7 +110,8 @@ TEST_CASE_TEMPLATE("a model file round-trips every section exactly", T, float, d
     CHECK(bytes[16] == sizeof(T));
     const auto summary = tenon::inspect_model_bytes(bytes);
     CHECK(summary.scalar_bytes == sizeof(T));
-    CHECK(summary.sections.size() == 7);  // ARCH WGHT PLAN META REFS RPLY RSVR
+    CHECK(summary.sections.size() == 8);  // ARCH WGHT PLAN META REFS RPLY RSVR REFD
+    CHECK(summary.references == m.references);  // REFD read into the summaries
     CHECK(summary.replay_rows_seen == 90);
     CHECK(summary.replay_rows == 5);
 }

@@ -97,14 +97,18 @@ TEST_CASE("measure_drift on a numeric column gives the worked PSI, ogive D and b
     // Window 1, 2, 3, 8, 8, 9, 9, 12 (m = 8): bin shares 1/8, 2/8, 0, 0, 4/8
     // and 1/8 above the maximum; reference shares 0.2 in each histogram bin.
     const auto window = csv_table("x\n1\n2\n3\n8\n8\n9\n9\n12\n");
-    const auto report = tenon::measure_drift(refs, window);
+    tenon::drift_options no_floor;  // 10 against 8 rows: the noise floor would hide any PSI
+    no_floor.psi_noise_significance = 0.0;
+    const auto report = tenon::measure_drift(refs, window, no_floor);
     const auto& f = report.feature("x");
     // PSI by hand (floor 1e-4): (0.125-0.2)ln(0.625) + 0.05 ln(1.25) + 2 (1e-4-0.2)ln(5e-4)
     //   + 0.3 ln(2.5) + (0.125-1e-4) ln(1250) = 4.2507847.
     CHECK(f.psi == doctest::Approx(4.2507847).epsilon(1e-6));
     CHECK(f.bins.size() == 8);  // 5 histogram bins, below, above, missing
-    CHECK(f.bins[0].label == "[0, 1.8)");
-    CHECK(f.bins[4].label == "[7.2, 9]");
+    // Whole numbers: each bin is labelled by the whole numbers it holds.
+    CHECK(refs[0].whole_numbers);
+    CHECK(f.bins[0].label == "0 to 1");
+    CHECK(f.bins[4].label == "8 to 9");
     CHECK(f.bins[6].label == "> 9");
     CHECK(f.bins[6].window_count == 1);
     CHECK(f.above_range == 1);
@@ -112,13 +116,26 @@ TEST_CASE("measure_drift on a numeric column gives the worked PSI, ogive D and b
     double sum = 0;
     for (const auto& b : f.bins) sum += b.contribution;
     CHECK(sum == doctest::Approx(f.psi));
-    // The ogive of equal bins over [0, 9] is F(x) = x / 9. Just above 8 the
-    // window's CDF is 5/8 (1,2,3,8,8), just below 3/8; the largest gap is
-    // F(8) - 3/8 = 8/9 - 3/8 = 37/72 (hand-computed).
-    CHECK(f.ks == doctest::Approx(37.0 / 72.0));
-    CHECK(tenon::reference_cdf(refs[0], 4.5) == doctest::Approx(0.5));
+    // The summary keeps the ten values, so D is exact: at x = 7 the reference
+    // CDF is 8/10 and the window's 3/8, D = 0.8 - 0.375 = 0.425 (hand-computed),
+    // the two-sample D of the raw values.
+    CHECK(refs[0].distinct.size() == 10);
+    CHECK(f.ks == doctest::Approx(0.425));
+    CHECK(f.ks == doctest::Approx(tenon::ks_two_sample({0, 1, 2, 3, 4, 5, 6, 7, 8, 9}, {1, 2, 3, 8, 8, 9, 9, 12})));
+    CHECK(f.ks_error_bound == 0.0);
     CHECK(f.psi_flag);
     CHECK(f.status == tenon::drift_status::drifted);
+
+    // A summary from before the distributions were kept (no section REFD):
+    // the ogive of equal bins over [0, 9] is F(x) = x / 9. Just above 8 the
+    // window's CDF is 5/8 (1,2,3,8,8), just below 3/8; the largest gap is
+    // F(8) - 3/8 = 8/9 - 3/8 = 37/72 (hand-computed). Its labels are the edges.
+    const auto old_summary = tenon::measure_drift({zero_to_nine()}, window).feature("x");
+    CHECK(old_summary.ks == doctest::Approx(37.0 / 72.0));
+    CHECK(old_summary.ks_error_bound == doctest::Approx(0.2));  // the largest bin share
+    CHECK(old_summary.bins[0].label == "[0, 1.8)");
+    CHECK(old_summary.bins[4].label == "[7.2, 9]");
+    CHECK(tenon::reference_cdf(refs[0], 4.5) == doctest::Approx(0.5));
 }
 
 TEST_CASE("measure_drift on a categorical column counts unseen categories and missing cells") {
@@ -237,12 +254,14 @@ TEST_CASE("thresholds are configurable: a fixed D limit and a PSI threshold") {
     strict.psi_threshold = 1e-3;
     strict.psi_watch = 1e-4;
     strict.ks_threshold = 1e-3;
+    strict.psi_noise_significance = 0.0;  // no noise floor: the thresholds alone
     const auto r = tenon::measure_drift(refs, window, strict);
     CHECK(r.drifted_count() == 3);
     CHECK(r.feature("flow").ks_limit == 1e-3);
     tenon::drift_options moderate;
     moderate.psi_watch = 0.0;
     moderate.ks_significance = 1e-9;
+    moderate.psi_noise_significance = 0.0;
     const auto w = tenon::measure_drift(refs, window, moderate);
     CHECK(w.feature("head").status == tenon::drift_status::watch);
 }
@@ -284,6 +303,8 @@ TEST_CASE("drift errors: an empty window, a missing column, options out of range
     CHECK(with([](tenon::drift_options& o) { o.ks_significance = 1.0; }) == "deploy.drift.option");
     CHECK(with([](tenon::drift_options& o) { o.empty_bin_share = 0.0; }) == "deploy.drift.option");
     CHECK(with([](tenon::drift_options& o) { o.empty_bin_share = 0.5; }) == "deploy.drift.option");
+    CHECK(with([](tenon::drift_options& o) { o.psi_noise_significance = -0.1; }) == "deploy.drift.option");
+    CHECK(with([](tenon::drift_options& o) { o.psi_noise_draws = 19; }) == "deploy.drift.option");
     CHECK(code_of([] { tenon::population_stability_index({1.0}, {1.0}, 0.0); }) == "deploy.drift.option");
     CHECK(code_of([&] { tenon::measure_drift({f}, window).feature("nope"); }) == "prep.column.unknown");
 }
@@ -294,7 +315,9 @@ TEST_CASE("the drift report serializes to JSON with null for a missing statistic
     c.kind = tenon::column_kind::categorical;
     c.present = 1;
     c.categories = {{"water", 1}};
-    const auto r = tenon::measure_drift({c, zero_to_nine()}, csv_table("x,\"fluid \"\"main\"\"\"\n1,water\n12,oil\n"));
+    tenon::drift_options no_floor;  // two rows: the noise floor would hide any PSI
+    no_floor.psi_noise_significance = 0.0;
+    const auto r = tenon::measure_drift({c, zero_to_nine()}, csv_table("x,\"fluid \"\"main\"\"\"\n1,water\n12,oil\n"), no_floor);
     const std::string json = tenon::to_json(r);
     CHECK(json.find("\"window_rows\": 2") != std::string::npos);
     CHECK(json.find("\"column\": \"fluid \\\"main\\\"\"") != std::string::npos);

@@ -18,7 +18,11 @@
 //   numeric and date/time columns: the reference histogram's equal-width
 //     bins over [minimum, maximum], plus a bin below the minimum, one above
 //     the maximum and one for missing cells (the reference has no rows in
-//     the first two, so window rows there count fully against it);
+//     the first two, so window rows there count fully against it); when the
+//     reference holds no more distinct values than histogram bins, one bin
+//     per value instead, and one for window values between them. Bins of a
+//     whole-number column are labelled by the whole numbers they hold
+//     ("1971", "1972 to 1975"), not by fractional edges;
 //   categorical columns: one bin per training category, one per category
 //     the training rows never held (listed as unseen), and one for missing
 //     cells.
@@ -27,23 +31,70 @@
 // the cut points appear in Siddiqi 2006, from memory): these are the
 // defaults of psi_watch and psi_threshold, both configurable.
 //
+// PSI's sampling noise. Two samples of one distribution give a positive PSI,
+// and the smaller the window the larger it is. To second order in a - e,
+// (a - e) ln(a / e) = (a - e)^2 / e, so PSI is close to
+// sum_i (a_i - e_i)^2 / e_i, which is (1/n + 1/m) times Pearson's
+// chi-square statistic of homogeneity of the two samples' bin counts
+// (reference n rows, window m rows); with no change in the distribution
+// that statistic is asymptotically chi-square with B - 1 degrees of
+// freedom, B the bins the reference holds (Pearson 1900; its use for PSI:
+// Yurdakul 2018, thesis, and Yurdakul & Naranjo 2020, "Statistical
+// properties of the population stability index", Journal of Risk Model
+// Validation 14(4), both from memory): psi_noise_floor() gives
+// (1/n + 1/m) chi2_{B-1}(1 - significance), with Wilson & Hilferty's (1931)
+// chi-square and Abramowitz & Stegun's 26.2.23 normal quantiles.
+// That approximation needs well-filled bins. Small windows break it: a bin
+// holding 1% of the reference is empty in a 100-row window 37% of the time
+// and then adds 0.01 ln(0.01 / 1e-4) = 0.046 through the empty-bin floor,
+// and window values beyond the training range land in bins the reference
+// leaves empty (for a continuous column with probability 2/(n+1) per value:
+// of n + 1 exchangeable values each is the largest, or the smallest, with
+// probability 1/(n+1)). So
+// measure_drift() takes the floor from the PSI's own sampling distribution
+// under no change (a parametric bootstrap, Efron & Tibshirani 1993, "An
+// Introduction to the Bootstrap", chapter 6): `psi_noise_draws` times, it
+// draws reference counts (n rows; kept at their expected values when n is
+// 20 or more times m, which changes 1/n + 1/m by under 5%) and window
+// counts (m rows) from the reference shares, plus one bin of values the
+// reference never held with probability 2/(n+1) for values beyond the
+// range and, for columns kept value by value or by category, the Good-Turing
+// estimate of unseen values, the share of training values seen once (Good
+// 1953, Biometrika 40), and computes the PSI with the same empty-bin floor.
+// psi_noise is the (1 - psi_noise_significance) quantile of those PSIs
+// (default 0.01), and a column is marked "watch" or "drifted" only when its
+// PSI also exceeds it. The draws use a fixed seed, so a report is
+// reproducible. On well-filled bins the result agrees with the chi-square
+// approximation (tested).
+//
 // Kolmogorov-Smirnov statistic D = sup_x |F_ref(x) - F_window(x)| over the
 // present values of numeric and date/time columns (Kolmogorov 1933, Smirnov
-// 1939). ks_two_sample() computes it exactly for two raw samples. A model
-// file keeps a summary, not the training values, so measure_drift()
-// replaces the reference's empirical CDF by its ogive: the piecewise-linear
-// CDF through the cumulative histogram at the bin edges, i.e. values spread
-// evenly within each bin. The ogive equals the empirical CDF at every bin
-// edge, and within a bin both rise monotonically by the bin's share, so the
-// reported D differs from the exact two-sample D by at most the largest bin
-// share of the reference (0.1 or less for 10 bins holding equal counts; the
-// tests check the bound). With one distinct training value the reference
-// CDF is a step at that value.
+// 1939). ks_two_sample() computes it exactly for two raw samples, ties
+// included: both empirical CDFs are right-continuous steps, so the supremum
+// is reached at one of the samples' values, where both CDFs are evaluated
+// after every copy of the value. A model file keeps a summary of the
+// training values (deploy/reference.hpp): with at most 256 distinct values
+// the values and counts themselves, and D is exact; with more, 1025 quantile
+// points, and D is within 1/1024 of the exact value (the bound is proved in
+// reference.hpp); ks_error_bound reports which. Summaries written before
+// the distributions were kept (files without section REFD) fall back to the
+// ogive of the histogram, the piecewise-linear CDF through the cumulative
+// histogram, which errs by up to the largest bin share, and more on columns
+// of few distinct values: the ogive spreads a tied value's mass over its bin.
 // A column is flagged when D exceeds `ks_threshold`, or, when that is 0
 // (the default), the large-sample two-sample critical value at level
 // `ks_significance`, c(alpha) sqrt((n + m) / (n m)) with
 // c(alpha) = sqrt(-ln(alpha / 2) / 2) (Smirnov 1948, from memory; c(0.05)
-// = 1.358, c(0.01) = 1.628), n training and m window values.
+// = 1.358, c(0.01) = 1.628), n training and m window values; with quantile
+// points D must exceed the limit by more than its error bound. For discrete
+// data the limit is conservative (a false alarm is no more likely than
+// alpha): break the ties of both samples alike by adding independent noise
+// far smaller than the gap between values; the jittered samples are two
+// samples of one continuous distribution, and at the top of each block of
+// tied values their empirical CDFs equal the tied ones, so the jittered D is
+// at least the tied D. This is Noether's argument for the one-sample
+// statistic (Noether 1963, "Note on the Kolmogorov statistic in the
+// discrete case", Metrika 7; from memory).
 //
 // Window cells that cannot be read as the reference's kind (text in a
 // numeric column) are counted as unreadable and binned as missing.
@@ -61,6 +112,7 @@
 
 #include "tenon/core/error.hpp"
 #include "tenon/core/error_codes.hpp"
+#include "tenon/core/random.hpp"
 #include "tenon/deploy/detail/json_text.hpp"
 #include "tenon/deploy/reference.hpp"
 #include "tenon/prep/cell_parsing.hpp"
@@ -91,6 +143,12 @@ struct drift_options {
     double ks_significance = 0.01;
     /// Floor of a bin's share in the PSI sum, in (0, 0.01].
     double empty_bin_share = 1e-4;
+    /// Probability that unchanged data exceed the PSI noise floor, in [0, 0.5];
+    /// 0 turns the floor off (see the top of this file).
+    double psi_noise_significance = 0.01;
+    /// Draws of the PSI under no change that the noise floor is taken from,
+    /// at least 20.
+    std::size_t psi_noise_draws = 400;
 };
 
 /// One bin of a column's PSI.
@@ -114,7 +172,13 @@ struct feature_drift {
     std::uint64_t below_range = 0;     // numeric: window values below the training minimum
     std::uint64_t above_range = 0;     // numeric: window values above the training maximum
     double psi = 0.0;
+    /// The PSI that unchanged data exceed with probability psi_noise_significance
+    /// for these window and reference sizes (0 when the floor is off).
+    double psi_noise = 0.0;
     double ks = std::numeric_limits<double>::quiet_NaN();        // NaN for categorical columns or no values
+    /// How far ks may be from the exact two-sample D: 0 (exact), 1/1024
+    /// (quantile points) or the largest histogram share (older summaries).
+    double ks_error_bound = std::numeric_limits<double>::quiet_NaN();
     double ks_limit = std::numeric_limits<double>::quiet_NaN();  // the D that flags the column
     bool psi_flag = false;
     bool ks_flag = false;
@@ -246,6 +310,75 @@ inline double ks_critical_value(double significance, std::uint64_t n, std::uint6
     return c * std::sqrt((dn + dm) / (dn * dm));
 }
 
+/// The upper-tail standard normal quantile z with P(Z > z) = p, p in (0, 1):
+/// Abramowitz & Stegun (1964) 26.2.23, absolute error below 4.5e-4.
+inline double normal_upper_quantile(double p) {
+    if (!(p > 0.0 && p < 1.0)) raise(codes::invalid_argument, "normal_upper_quantile: p must be in (0, 1), got " + std::to_string(p));
+    const double q = p <= 0.5 ? p : 1.0 - p;
+    const double t = std::sqrt(-2.0 * std::log(q));
+    const double z = t - (2.515517 + 0.802853 * t + 0.010328 * t * t) / (1.0 + 1.432788 * t + 0.189269 * t * t + 0.001308 * t * t * t);
+    return p <= 0.5 ? z : -z;
+}
+
+/// The chi-square quantile with `degrees` degrees of freedom exceeded with
+/// probability p: Wilson & Hilferty (1931), chi2 ~ k (1 - 2/(9k) + z sqrt(2/(9k)))^3.
+inline double chi_square_upper_quantile(double degrees, double p) {
+    if (!(degrees > 0.0)) raise(codes::invalid_argument, "chi_square_upper_quantile: degrees of freedom must be positive");
+    const double z = normal_upper_quantile(p), v = 2.0 / (9.0 * degrees);
+    const double c = std::max(0.0, 1.0 - v + z * std::sqrt(v));
+    return degrees * c * c * c;
+}
+
+/// PSI's noise floor for `bins` reference bins holding rows, n reference and
+/// m window rows: (1/n + 1/m) chi2_{bins-1}(1 - significance) (see the top
+/// of this file). 0 for fewer than two bins, no rows or significance 0.
+inline double psi_noise_floor(std::size_t bins, std::uint64_t n, std::uint64_t m, double significance) {
+    if (significance == 0.0 || bins < 2 || n == 0 || m == 0) return 0.0;
+    return (1.0 / static_cast<double>(n) + 1.0 / static_cast<double>(m)) *
+           chi_square_upper_quantile(static_cast<double>(bins - 1), significance);
+}
+
+/// The reference's CDF as a step function from its distribution (exact
+/// with distinct values, G of reference.hpp with quantile points): the
+/// points where it rises and its value from each point on.
+inline std::vector<std::pair<double, double>> reference_steps(const feature_reference& f) {
+    std::vector<std::pair<double, double>> steps;
+    if (!f.distinct.empty()) {
+        std::uint64_t total = 0, running = 0;
+        for (const auto& kv : f.distinct) total += kv.second;
+        for (const auto& kv : f.distinct) {
+            running += kv.second;
+            steps.emplace_back(kv.first, static_cast<double>(running) / static_cast<double>(total));
+        }
+    } else if (f.quantile_points.size() >= 2) {
+        const double steps_k = static_cast<double>(f.quantile_points.size() - 1);
+        for (std::size_t k = 0; k < f.quantile_points.size(); ++k) {
+            const double share = static_cast<double>(k) / steps_k;
+            if (!steps.empty() && steps.back().first == f.quantile_points[k]) steps.back().second = share;  // ties: the largest k
+            else steps.emplace_back(f.quantile_points[k], share);
+        }
+    }
+    return steps;
+}
+
+/// D between a step reference CDF (reference_steps) and the window values'
+/// empirical CDF: both are right-continuous steps, so the supremum is
+/// reached at a point where one of them rises, with both evaluated there.
+inline double ks_against_steps(const std::vector<std::pair<double, double>>& steps, std::vector<double> window) {
+    if (window.empty() || steps.empty()) return std::numeric_limits<double>::quiet_NaN();
+    std::sort(window.begin(), window.end());
+    const double m = static_cast<double>(window.size());
+    std::size_t i = 0, j = 0;
+    double reference = 0.0, d = 0.0;
+    while (i < steps.size() || j < window.size()) {
+        const double x = i == steps.size() ? window[j] : j == window.size() ? steps[i].first : std::min(steps[i].first, window[j]);
+        while (i < steps.size() && steps[i].first <= x) reference = steps[i++].second;
+        while (j < window.size() && window[j] <= x) ++j;
+        d = std::max(d, std::abs(reference - static_cast<double>(j) / m));
+    }
+    return d;
+}
+
 namespace detail {
 
 inline void check_drift_options(const drift_options& o) {
@@ -259,6 +392,19 @@ inline void check_drift_options(const drift_options& o) {
         fail("ks_significance must be in (0, 1), got " + std::to_string(o.ks_significance));
     if (!(o.empty_bin_share > 0.0 && o.empty_bin_share <= 0.01))
         fail("empty_bin_share must be in (0, 0.01], got " + std::to_string(o.empty_bin_share));
+    if (!(o.psi_noise_significance >= 0.0 && o.psi_noise_significance <= 0.5))
+        fail("psi_noise_significance must be in [0, 0.5], got " + std::to_string(o.psi_noise_significance));
+    if (o.psi_noise_draws < 20) fail("psi_noise_draws must be at least 20, got " + std::to_string(o.psi_noise_draws));
+}
+
+// The label of the bin [low, high) (or [low, high] for the last) of a
+// whole-number column: the whole numbers it holds; empty when it holds none.
+inline std::string whole_number_label(double low, double high, bool last) {
+    const double first = std::ceil(low);
+    const double final_value = last ? std::floor(high) : std::ceil(high) - 1.0;
+    if (first > final_value) return std::string();
+    if (first == final_value) return short_number(first);
+    return short_number(first) + " to " + short_number(final_value);
 }
 
 // Reads a window cell as a number (numeric and date/time references):
@@ -287,6 +433,94 @@ inline void finish_bins(feature_drift& f, std::uint64_t reference_total, double 
     f.psi = population_stability_index(e, a, floor_share);
 }
 
+// A binomial(trials, p) draw: the second waiting-time method (geometric
+// gaps between successes) when trials p is below 30, else the normal
+// approximation of de Moivre and Laplace, rounded and clamped (Devroye 1986,
+// "Non-Uniform Random Variate Generation", sections X.4 and X.1).
+inline std::uint64_t binomial_draw(random_engine& rng, std::uint64_t trials, double p) {
+    if (trials == 0 || !(p > 0.0)) return 0;
+    if (p >= 1.0) return trials;
+    if (p > 0.5) return trials - binomial_draw(rng, trials, 1.0 - p);
+    const double n = static_cast<double>(trials), mean = n * p;
+    if (mean < 30.0) {
+        const double log_q = std::log1p(-p);
+        std::uint64_t successes = 0;
+        double position = 0.0;
+        for (;;) {
+            position += std::floor(std::log(1.0 - rng.uniform01<double>()) / log_q) + 1.0;
+            if (position > n) return successes;
+            ++successes;
+        }
+    }
+    const double draw = std::round(mean + std::sqrt(mean * (1.0 - p)) * rng.normal<double>());
+    return draw <= 0.0 ? 0 : draw >= n ? trials : static_cast<std::uint64_t>(draw);
+}
+
+// Multinomial counts of `trials` over `shares` (summing to 1) by successive
+// conditional binomials.
+inline void multinomial_draw(random_engine& rng, std::uint64_t trials, const std::vector<double>& shares, std::vector<double>& counts) {
+    counts.assign(shares.size(), 0.0);
+    double rest = 1.0;
+    for (std::size_t k = 0; k < shares.size() && trials > 0; ++k) {
+        const std::uint64_t c = k + 1 == shares.size() ? trials : binomial_draw(rng, trials, rest > 0.0 ? shares[k] / rest : 1.0);
+        counts[k] = static_cast<double>(c);
+        trials -= c;
+        rest -= shares[k];
+    }
+}
+
+// The PSI noise floor by simulation (see the top of this file): reference
+// shares of the bins the reference holds, and the probability of values
+// the reference never held.
+inline double simulated_psi_noise(const std::vector<double>& reference_shares, double new_value_probability, std::uint64_t n,
+                                  std::uint64_t m, const drift_options& o, std::uint64_t seed) {
+    if (o.psi_noise_significance == 0.0 || n == 0 || m == 0 || reference_shares.empty()) return 0.0;
+    const double p_new = std::min(0.5, std::max(0.0, new_value_probability));
+    std::vector<double> window_shares;
+    for (double e : reference_shares) window_shares.push_back(e * (1.0 - p_new));
+    window_shares.push_back(p_new);
+    const bool fixed_reference = n >= 20 * m;
+    random_engine rng(seed, 0x9510u);
+    std::vector<double> psis, reference_counts, window_counts;
+    psis.reserve(o.psi_noise_draws);
+    for (std::size_t draw = 0; draw < o.psi_noise_draws; ++draw) {
+        if (fixed_reference) {
+            reference_counts.assign(reference_shares.begin(), reference_shares.end());
+            for (auto& c : reference_counts) c *= static_cast<double>(n);
+        } else {
+            multinomial_draw(rng, n, reference_shares, reference_counts);
+        }
+        multinomial_draw(rng, m, window_shares, window_counts);
+        double psi = 0.0;
+        for (std::size_t k = 0; k < window_shares.size(); ++k) {
+            const double e = std::max(k < reference_counts.size() ? reference_counts[k] / static_cast<double>(n) : 0.0, o.empty_bin_share);
+            const double a = std::max(window_counts[k] / static_cast<double>(m), o.empty_bin_share);
+            psi += (a - e) * std::log(a / e);
+        }
+        psis.push_back(psi);
+    }
+    std::sort(psis.begin(), psis.end());
+    const auto rank = static_cast<std::size_t>(std::ceil((1.0 - o.psi_noise_significance) * static_cast<double>(psis.size())));
+    return psis[std::min(psis.size() - 1, rank == 0 ? 0 : rank - 1)];
+}
+
+// The noise floor of a finished column.
+inline void set_psi_noise(feature_drift& f, const feature_reference& ref, const drift_options& o, std::uint64_t seed) {
+    std::vector<double> shares;
+    for (const auto& b : f.bins)
+        if (b.reference_count > 0) shares.push_back(static_cast<double>(b.reference_count) / static_cast<double>(f.reference_rows));
+    double p_new = 0.0;
+    std::uint64_t seen_once = 0;
+    if (ref.kind == column_kind::categorical) {
+        for (const auto& kv : ref.categories) seen_once += kv.second == 1 ? 1 : 0;
+    } else {
+        p_new = ref.present ? 2.0 / static_cast<double>(ref.present + 1) : 0.0;
+        for (const auto& kv : ref.distinct) seen_once += kv.second == 1 ? 1 : 0;
+    }
+    if (ref.present) p_new += static_cast<double>(seen_once) / static_cast<double>(ref.present);
+    f.psi_noise = simulated_psi_noise(shares, p_new, f.reference_rows, f.window_rows, o, seed);
+}
+
 inline feature_drift numeric_drift(const feature_reference& ref, const column& c, const std::vector<std::size_t>& rows,
                                    const drift_options& o) {
     feature_drift f;
@@ -294,15 +528,31 @@ inline feature_drift numeric_drift(const feature_reference& ref, const column& c
     f.kind = ref.kind;
     f.reference_rows = ref.present + ref.missing;
     f.window_rows = rows.size();
-    const std::size_t bins = ref.histogram.size();
-    // bins: histogram..., below, above, missing
+    // One bin per training value when there are no more values than
+    // histogram bins (counts, modes, settings), else the histogram's.
+    const bool per_value = !ref.distinct.empty() && ref.distinct.size() <= ref.histogram.size();
+    const std::size_t bins = per_value ? ref.distinct.size() + 1 : ref.histogram.size();
+    // bins: histogram (or values, then "between values")..., below, above, missing
     f.bins.resize(bins + 3);
-    const double width = bins ? (ref.maximum - ref.minimum) / static_cast<double>(bins) : 0.0;
-    for (std::size_t k = 0; k < bins; ++k) {
-        const double low = ref.minimum + width * static_cast<double>(k);
-        const double high = k + 1 == bins ? ref.maximum : ref.minimum + width * static_cast<double>(k + 1);
-        f.bins[k].label = "[" + short_number(low) + ", " + short_number(high) + (k + 1 == bins ? "]" : ")");
-        f.bins[k].reference_count = ref.histogram[k];
+    const double width = ref.histogram.empty() ? 0.0 : (ref.maximum - ref.minimum) / static_cast<double>(ref.histogram.size());
+    if (per_value) {
+        for (std::size_t k = 0; k < ref.distinct.size(); ++k) {
+            f.bins[k].label = short_number(ref.distinct[k].first);
+            f.bins[k].reference_count = ref.distinct[k].second;
+        }
+        f.bins[bins - 1].label = "(between values)";
+    } else {
+        for (std::size_t k = 0; k < bins; ++k) {
+            const double low = ref.minimum + width * static_cast<double>(k);
+            const double high = k + 1 == bins ? ref.maximum : ref.minimum + width * static_cast<double>(k + 1);
+            if (ref.whole_numbers) {
+                f.bins[k].label = whole_number_label(low, high, k + 1 == bins);
+                if (f.bins[k].label.empty()) f.bins[k].label = "(none in " + short_number(low) + " to " + short_number(high) + ")";
+            } else {
+                f.bins[k].label = "[" + short_number(low) + ", " + short_number(high) + (k + 1 == bins ? "]" : ")");
+            }
+            f.bins[k].reference_count = ref.histogram[k];
+        }
     }
     f.bins[bins].label = bins ? "< " + short_number(ref.minimum) : "(values)";
     f.bins[bins + 1].label = "> " + short_number(ref.maximum);
@@ -328,15 +578,35 @@ inline feature_drift numeric_drift(const feature_reference& ref, const column& c
         } else if (v > ref.maximum) {
             ++f.above_range;
             ++f.bins[bins + 1].window_count;
+        } else if (per_value) {
+            const auto at = std::lower_bound(ref.distinct.begin(), ref.distinct.end(), v,
+                                             [](const std::pair<double, std::uint64_t>& kv, double x) { return kv.first < x; });
+            const bool known = at != ref.distinct.end() && at->first == v;
+            ++f.bins[known ? static_cast<std::size_t>(at - ref.distinct.begin()) : bins - 1].window_count;
         } else {
             ++f.bins[ref.bin_of(v)].window_count;
         }
     }
+    // Whole-number bins that hold no whole number are empty on both sides: left out.
+    if (ref.whole_numbers && !per_value)
+        f.bins.erase(std::remove_if(f.bins.begin(), f.bins.end(),
+                                    [](const drift_bin& b) { return b.label.rfind("(none in ", 0) == 0 && b.window_count == 0; }),
+                     f.bins.end());
     finish_bins(f, ref.present + ref.missing, o.empty_bin_share);
-    f.ks = ks_against_reference(ref, values);
+    double slack = 0.0;  // how far D may exceed the exact value
+    if (ref.has_distribution()) {
+        f.ks = ks_against_steps(reference_steps(ref), values);
+        f.ks_error_bound = ref.distinct.empty() ? 1.0 / static_cast<double>(ref.quantile_points.size() - 1) : 0.0;
+        slack = f.ks_error_bound;
+    } else {
+        f.ks = ks_against_reference(ref, values);  // a summary from before section REFD: the ogive
+        std::uint64_t largest = 0;
+        for (auto h : ref.histogram) largest = std::max(largest, h);
+        f.ks_error_bound = ref.present ? static_cast<double>(largest) / static_cast<double>(ref.present) : 0.0;
+    }
     if (!values.empty() && ref.present > 0)
         f.ks_limit = o.ks_threshold > 0.0 ? o.ks_threshold : ks_critical_value(o.ks_significance, ref.present, values.size());
-    f.ks_flag = std::isfinite(f.ks) && f.ks > f.ks_limit;
+    f.ks_flag = std::isfinite(f.ks) && f.ks - slack > f.ks_limit;
     return f;
 }
 
@@ -407,14 +677,19 @@ inline drift_report measure_drift(const std::vector<feature_reference>& referenc
     drift_report report;
     report.window_rows = rows.size();
     report.options = options;
+    std::uint64_t seed = 0x5EEDu;  // fixed: a report is reproducible
     for (const auto& ref : references) {
         if (!window.contains(ref.column))
             raise(codes::deploy_missing_column, "measure_drift: the window has no column '" + ref.column + "' (the model reads it)");
         const column& c = window.at(ref.column);
         feature_drift f = ref.kind == column_kind::categorical ? detail::categorical_drift(ref, c, rows, options)
                                                                : detail::numeric_drift(ref, c, rows, options);
-        f.psi_flag = f.psi > options.psi_threshold;
-        f.status = f.psi_flag || f.ks_flag ? drift_status::drifted : f.psi > options.psi_watch ? drift_status::watch : drift_status::stable;
+        detail::set_psi_noise(f, ref, options, seed++);
+        const bool above_noise = f.psi > f.psi_noise;
+        f.psi_flag = f.psi > options.psi_threshold && above_noise;
+        f.status = f.psi_flag || f.ks_flag                   ? drift_status::drifted
+                   : f.psi > options.psi_watch && above_noise ? drift_status::watch
+                                                              : drift_status::stable;
         report.features.push_back(std::move(f));
     }
     return report;
@@ -427,13 +702,14 @@ inline drift_report measure_drift(const std::vector<feature_reference>& referenc
     return measure_drift(references, window, rows, options);
 }
 
-/// A plain-text table, one line per column: PSI, D, D's limit, status and
-/// notes (values outside the training range, unseen categories, unreadable
+/// A plain-text table, one line per column: PSI, its noise floor, D, D's
+/// limit, status and notes (values outside the training range, unseen categories, unreadable
 /// cells).
 inline std::string drift_table(const drift_report& r) {
     std::string out;
     char line[256];
-    std::snprintf(line, sizeof line, "%-18s %-11s %9s %8s %8s  %-8s %s\n", "column", "kind", "PSI", "KS D", "D limit", "status", "notes");
+    std::snprintf(line, sizeof line, "%-18s %-11s %9s %9s %8s %8s  %-8s %s\n", "column", "kind", "PSI", "PSI noise", "KS D", "D limit",
+                  "status", "notes");
     out += line;
     for (const auto& f : r.features) {
         std::string notes;
@@ -442,12 +718,13 @@ inline std::string drift_table(const drift_report& r) {
         for (const auto& u : f.unseen_categories) notes += "unseen '" + u.first + "' x" + std::to_string(u.second) + "; ";
         if (f.unreadable) notes += std::to_string(f.unreadable) + " unreadable; ";
         if (f.psi_flag) notes += "PSI > " + detail::short_number(r.options.psi_threshold) + "; ";
+        if (f.psi > r.options.psi_watch && !(f.psi > f.psi_noise)) notes += "PSI within noise; ";
         if (f.ks_flag) notes += "D > limit; ";
         if (notes.size() >= 2) notes.resize(notes.size() - 2);
         const auto number = [](double v) { return std::isfinite(v) ? detail::short_number(v) : std::string("-"); };
-        std::snprintf(line, sizeof line, "%-18s %-11s %9s %8s %8s  %-8s %s\n", f.column.c_str(), to_string(f.kind),
-                      number(f.psi).c_str(), number(f.ks).c_str(), number(f.ks_limit).c_str(), drift_status_name(f.status),
-                      notes.c_str());
+        std::snprintf(line, sizeof line, "%-18s %-11s %9s %9s %8s %8s  %-8s %s\n", f.column.c_str(), to_string(f.kind),
+                      number(f.psi).c_str(), number(f.psi_noise).c_str(), number(f.ks).c_str(), number(f.ks_limit).c_str(),
+                      drift_status_name(f.status), notes.c_str());
         out += line;
     }
     return out;
@@ -462,14 +739,16 @@ inline std::string to_json(const drift_report& r) {
                       ", \"options\": {\"psi_watch\": " + json_number(r.options.psi_watch) + ", \"psi_threshold\": " +
                       json_number(r.options.psi_threshold) + ", \"ks_threshold\": " + json_number(r.options.ks_threshold) +
                       ", \"ks_significance\": " + json_number(r.options.ks_significance) + ", \"empty_bin_share\": " +
-                      json_number(r.options.empty_bin_share) + "}, \"columns\": [";
+                      json_number(r.options.empty_bin_share) + ", \"psi_noise_significance\": " +
+                      json_number(r.options.psi_noise_significance) + ", \"psi_noise_draws\": " +
+                      std::to_string(r.options.psi_noise_draws) + "}, \"columns\": [";
     for (std::size_t i = 0; i < r.features.size(); ++i) {
         const feature_drift& f = r.features[i];
         out += i ? ", " : "";
         out += "{\"column\": " + json_string(f.column) + ", \"kind\": " + json_string(to_string(f.kind)) +
                ", \"status\": " + json_string(drift_status_name(f.status)) + ", \"psi\": " + json_number(f.psi) +
-               ", \"psi_flag\": " + json_bool(f.psi_flag) + ", \"ks\": " + json_number(f.ks) + ", \"ks_limit\": " +
-               json_number(f.ks_limit) + ", \"ks_flag\": " + json_bool(f.ks_flag) + ", \"reference_rows\": " +
+               ", \"psi_noise\": " + json_number(f.psi_noise) + ", \"psi_flag\": " + json_bool(f.psi_flag) + ", \"ks\": " + json_number(f.ks) + ", \"ks_limit\": " +
+               json_number(f.ks_limit) + ", \"ks_flag\": " + json_bool(f.ks_flag) + ", \"ks_error_bound\": " + json_number(f.ks_error_bound) + ", \"reference_rows\": " +
                std::to_string(f.reference_rows) + ", \"window_rows\": " + std::to_string(f.window_rows) + ", \"window_missing\": " +
                std::to_string(f.window_missing) + ", \"unreadable\": " + std::to_string(f.unreadable) + ", \"below_range\": " +
                std::to_string(f.below_range) + ", \"above_range\": " + std::to_string(f.above_range) + ", \"unseen_categories\": {";

@@ -28,6 +28,7 @@
 #include <chrono>
 #include <cstddef>
 #include <cstdint>
+#include <cmath>
 #include <cstring>
 #include <limits>
 #include <optional>
@@ -688,6 +689,63 @@ std::vector<std::pair<std::string, random_engine*>> layer_engines(network<T>& ne
 
 }  // namespace detail
 
+namespace detail {
+// Section REFD: the distributions of the numeric and date/time references
+// (added within format version 1; files without it still load, and their
+// Kolmogorov-Smirnov statistics fall back to the histogram's ogive).
+inline bool references_have_distributions(const std::vector<feature_reference>& refs) {
+    for (const auto& f : refs)
+        if (f.has_distribution()) return true;
+    return false;
+}
+inline std::vector<std::uint8_t> distributions_payload(const std::vector<feature_reference>& refs) {
+    std::vector<std::uint8_t> out;
+    byte_writer w(out);
+    w.u32(static_cast<std::uint32_t>(refs.size()));
+    for (const auto& f : refs) {
+        w.text(f.column);
+        w.u8(f.whole_numbers ? 1 : 0);
+        w.u32(static_cast<std::uint32_t>(f.distinct.size()));
+        for (const auto& kv : f.distinct) {
+            w.f64(kv.first);
+            w.u64(kv.second);
+        }
+        w.u32(static_cast<std::uint32_t>(f.quantile_points.size()));
+        for (double q : f.quantile_points) w.f64(q);
+    }
+    return out;
+}
+// Reads REFD into the references read from REFS (same columns, same order).
+inline void read_distributions(byte_reader& in, std::vector<feature_reference>& refs) {
+    const std::size_t n = in.count(13, "reference distributions");
+    if (n != refs.size()) in.fail(std::to_string(n) + " reference distributions for " + std::to_string(refs.size()) + " reference summaries");
+    for (auto& f : refs) {
+        const std::string name = in.text();
+        if (name != f.column) in.fail("the distribution of column '" + name + "' where the summaries hold '" + f.column + "'");
+        f.whole_numbers = in.flag("whole numbers");
+        f.distinct.resize(in.count(16, "distinct values"));
+        std::uint64_t total = 0;
+        for (std::size_t k = 0; k < f.distinct.size(); ++k) {
+            f.distinct[k].first = in.f64();
+            f.distinct[k].second = in.u64();
+            if (!std::isfinite(f.distinct[k].first) || (k > 0 && !(f.distinct[k].first > f.distinct[k - 1].first)))
+                in.fail("the distinct values of column '" + f.column + "' are not finite and ascending");
+            total += f.distinct[k].second;
+        }
+        if (!f.distinct.empty() && total != f.present)
+            in.fail("the distinct values of column '" + f.column + "' count " + std::to_string(total) + " rows, not the " +
+                    std::to_string(f.present) + " present");
+        f.quantile_points.resize(in.count(8, "quantile points"));
+        for (std::size_t k = 0; k < f.quantile_points.size(); ++k) {
+            f.quantile_points[k] = in.f64();
+            if (!std::isfinite(f.quantile_points[k]) || (k > 0 && f.quantile_points[k] < f.quantile_points[k - 1]))
+                in.fail("the quantile points of column '" + f.column + "' are not finite and ascending");
+        }
+        if (f.quantile_points.size() == 1) in.fail("column '" + f.column + "' has one quantile point; at least two are needed");
+    }
+}
+}  // namespace detail
+
 /// The file's bytes: header, then ARCH, WGHT and the optional sections present.
 template <class T>
 std::vector<std::uint8_t> model_file_to_bytes(const model_file<T>& m) {
@@ -700,7 +758,8 @@ std::vector<std::uint8_t> model_file_to_bytes(const model_file<T>& m) {
     out.push_back(0);
     const std::uint16_t count = static_cast<std::uint16_t>(2 + (m.plan ? 1 : 0) + (m.metadata ? 1 : 0) +
                                                            (m.references.empty() ? 0 : 1) + (m.replay ? 1 : 0) + (m.resume ? 1 : 0) +
-                                                           (m.replay && m.replay->rows_seen > 0 ? 1 : 0));
+                                                           (m.replay && m.replay->rows_seen > 0 ? 1 : 0) +
+                                                           (detail::references_have_distributions(m.references) ? 1 : 0));
     detail::put_u16(out, count);
     detail::put_u32(out, crc32(out.data(), 20));
     detail::append_section(out, "ARCH", true, to_bytes(m.architecture));
@@ -711,6 +770,8 @@ std::vector<std::uint8_t> model_file_to_bytes(const model_file<T>& m) {
     if (m.replay) detail::append_section(out, "RPLY", false, detail::replay_payload(*m.replay));
     if (m.resume) detail::append_section(out, "RSUM", false, detail::resume_payload(*m.resume));
     if (m.replay && m.replay->rows_seen > 0) detail::append_section(out, "RSVR", false, detail::reservoir_payload(*m.replay));
+    if (detail::references_have_distributions(m.references))
+        detail::append_section(out, "REFD", false, detail::distributions_payload(m.references));
     return out;
 }
 
@@ -736,7 +797,13 @@ model_file<T> model_file_from_bytes(const std::uint8_t* data, std::size_t size, 
         else if (s.id == "REFS") m.references = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_references(in); });
         else if (s.id == "RPLY") m.replay = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_replay(in); });
         else if (s.id == "RSUM") m.resume = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_resume<T>(in); });
-        else if (s.id != "RSVR") m.skipped_sections.push_back(s.id);
+        else if (s.id != "RSVR" && s.id != "REFD") m.skipped_sections.push_back(s.id);
+    }
+    // The distributions belong to the reference summaries; without them REFD is skipped.
+    if (const auto* rd = detail::find_section(c, "REFD")) {
+        if (!m.references.empty())
+            detail::parse_payload(data, *rd, source, [&](byte_reader& in) { detail::read_distributions(in, m.references); return 0; });
+        else m.skipped_sections.push_back("REFD");
     }
     // The reservoir state belongs to the replay sample; without one it is skipped.
     if (const auto* rs = detail::find_section(c, "RSVR")) {
@@ -791,6 +858,9 @@ inline model_file_summary inspect_model_bytes(const std::vector<std::uint8_t>& b
             });
         }
     }
+    if (const auto* rd = detail::find_section(c, "REFD"))
+        if (!s.references.empty())
+            detail::parse_payload(bytes.data(), *rd, source, [&](byte_reader& in) { detail::read_distributions(in, s.references); return 0; });
     return s;
 }
 inline model_file_summary inspect_model_file(const std::string& path, const model_limits& limits = {}) {

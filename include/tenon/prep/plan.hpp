@@ -399,14 +399,21 @@ public:
 
     // --- serialization -------------------------------------------------------------------
     /// Version 2 added, per feature column, the time-stamp form and the
-    /// time encoding; version 1 bytes still read (form detect, value alone).
+    /// time encoding; version 1 bytes still read (form detect, value alone)
+    /// and are still written when every form is detect and no column has
+    /// cyclic values.
     static constexpr std::uint16_t format_version = 2;
 
     std::vector<std::uint8_t> to_bytes() const {
         std::vector<std::uint8_t> bytes;
         byte_writer w(bytes);
+        // Version 1 when no column has a time form or cyclic values, so that
+        // plans without them stay readable by builds that read version 1 only.
+        bool needs_forms = false;
+        for (const auto& f : features_) needs_forms = needs_forms || f.time_form != time_format::detect || f.time != time_encoding::value;
+        const std::uint16_t version = needs_forms ? format_version : 1;
         w.raw("TNPL", 4);
-        w.u16(format_version);
+        w.u16(version);
         w.u32(static_cast<std::uint32_t>(missing_tokens_.size()));
         for (const auto& s : missing_tokens_) w.text(s);
         w.u32(static_cast<std::uint32_t>(features_.size()));
@@ -414,8 +421,10 @@ public:
             w.u8(tag_feature);
             w.text(f.name);
             w.u8(static_cast<std::uint8_t>(f.kind));
-            w.u8(static_cast<std::uint8_t>(f.time_form));
-            w.u8(static_cast<std::uint8_t>(f.time));
+            if (version >= 2) {
+                w.u8(static_cast<std::uint8_t>(f.time_form));
+                w.u8(static_cast<std::uint8_t>(f.time));
+            }
             w.u8(static_cast<std::uint8_t>(f.fill.method));
             w.f64(f.fill.number);
             w.text(f.fill.text);
