@@ -33,7 +33,9 @@
 #include <filesystem>
 #include <fstream>
 #include <functional>
+#include <iterator>
 #include <limits>
+#include <map>
 #include <ostream>
 #include <sstream>
 #include <stdexcept>
@@ -126,6 +128,12 @@ struct train_request {
     split_choice split = split_choice::automatic;
     std::string time_column;
     std::string group_column;
+    /// --time-format: the form of every date/time column (detect: per column),
+    /// and forms named per column (the only way to read epoch numbers as times).
+    tenon::time_format time_format = tenon::time_format::detect;
+    std::map<std::string, tenon::time_format> column_time_formats;
+    /// --time-cycles: hour of day, day of week and day of year as sine/cosine pairs.
+    bool time_cycles = false;
     tenon::split_fractions fractions{0.7, 0.15, 0.15};
     std::size_t folds = 0;  // 0 = single holdout
     std::vector<std::size_t> hidden{64, 32};
@@ -227,6 +235,37 @@ Choice parse_choice(const std::string& option, const std::string& text, const st
 
 }  // namespace detail
 
+namespace detail {
+// --time-format [COLUMN=]FORM[,...]: a bare FORM applies to every date/time
+// column (an epoch form to the --time-column), COLUMN=FORM to one column.
+inline void parse_time_formats(const std::string& value, train_request& q) {
+    const auto forms = [] {
+        std::string names;
+        for (std::uint8_t k = 1; k <= static_cast<std::uint8_t>(tenon::time_format::epoch_milliseconds); ++k)
+            names += std::string(k > 1 ? ", " : "") + tenon::to_string(static_cast<tenon::time_format>(k));
+        return names;
+    };
+    for (const auto& item : split_list(value)) {
+        const auto eq = item.find('=');
+        const std::string column = eq == std::string::npos ? std::string() : item.substr(0, eq);
+        const std::string text = eq == std::string::npos ? item : item.substr(eq + 1);
+        tenon::time_format form = tenon::time_format::detect;
+        if (!tenon::time_format_from_text(text, form) || form == tenon::time_format::detect)
+            fail(cli_codes::option_value, "--time-format '" + item + "': '" + text + "' is not a time format (one of " + forms() + ")");
+        if (eq != std::string::npos && column.empty())
+            fail(cli_codes::option_value, "--time-format '" + item + "': an empty column name");
+        if (column.empty()) {
+            if (q.time_format != tenon::time_format::detect)
+                fail(cli_codes::option_conflict, "--time-format names two forms for every column: " + std::string(tenon::to_string(q.time_format)) +
+                                                     " and " + text);
+            q.time_format = form;
+        } else if (!q.column_time_formats.emplace(column, form).second) {
+            fail(cli_codes::option_conflict, "--time-format names column '" + column + "' twice");
+        }
+    }
+}
+}  // namespace detail
+
 /// Reads the arguments after `train`. Throws cli_failure on a bad command line.
 inline train_request parse_train_request(const std::vector<std::string>& args) {
     train_request q;
@@ -251,7 +290,8 @@ inline train_request parse_train_request(const std::vector<std::string>& args) {
         static const char* const known[] = {"--data", "--target", "--task", "--ignore", "--split", "--time-column", "--group-column",
                                             "--fractions", "--folds", "--hidden", "--activation", "--loss", "--optimizer",
                                             "--learning-rate", "--epochs", "--batch", "--patience", "--seed", "--threads",
-                                            "--metrics", "--report", "--model", "--quiet", "--keep-order"};
+                                            "--metrics", "--report", "--model", "--quiet", "--keep-order", "--time-format",
+                                            "--time-cycles"};
         bool is_known = false;
         for (const char* n : known) is_known = is_known || name == n;
         if (!is_known) fail(cli_codes::option_unknown, "unknown option '" + name + "' for 'tenon train' (see tenon train --help)");
@@ -266,6 +306,11 @@ inline train_request parse_train_request(const std::vector<std::string>& args) {
         if (name == "--keep-order") {
             if (inline_value) fail(cli_codes::option_value, "--keep-order takes no value");
             q.keep_order = true;
+            continue;
+        }
+        if (name == "--time-cycles") {
+            if (inline_value) fail(cli_codes::option_value, "--time-cycles takes no value");
+            q.time_cycles = true;
             continue;
         }
         if (!inline_value) {
@@ -296,6 +341,8 @@ inline train_request parse_train_request(const std::vector<std::string>& args) {
             q.split = detail::parse_choice("--split", value, names);
         } else if (name == "--time-column") {
             q.time_column = value;
+        } else if (name == "--time-format") {
+            detail::parse_time_formats(value, q);
         } else if (name == "--group-column") {
             q.group_column = value;
         } else if (name == "--fractions") {
@@ -363,6 +410,15 @@ inline train_request parse_train_request(const std::vector<std::string>& args) {
     if (!target_given || q.target.empty()) fail(cli_codes::option_missing, "tenon train needs --target COLUMN");
     if (q.split == split_choice::chronological && q.time_column.empty())
         fail(cli_codes::option_missing, "--split chronological needs --time-column COLUMN");
+    if (q.time_format == tenon::time_format::epoch_seconds || q.time_format == tenon::time_format::epoch_milliseconds) {
+        // Epoch numbers look like any other numbers: they are times only in a named column.
+        if (q.time_column.empty())
+            fail(cli_codes::option_missing, std::string("--time-format ") + tenon::to_string(q.time_format) +
+                                                " needs --time-column COLUMN, or name the column: --time-format COLUMN=" +
+                                                tenon::to_string(q.time_format));
+        q.column_time_formats.emplace(q.time_column, q.time_format);
+        q.time_format = tenon::time_format::detect;
+    }
     if (q.split == split_choice::grouped && q.group_column.empty())
         fail(cli_codes::option_missing, "--split grouped needs --group-column COLUMN");
     if (!q.metrics_path.empty() && !q.report_path.empty() &&
@@ -422,6 +478,21 @@ Splitting
                          test (needs --time-column); grouped keeps each group
                          in one subset (needs --group-column).
   --time-column COL      time column for --split chronological; not a feature.
+  --time-format [COL=]FORM[,...]
+                         how time stamps are written: YYYY-MM-DD (ISO 8601,
+                         with T or a space, Z or an offset), YYYY/MM/DD,
+                         DD.MM.YYYY, DD/MM/YYYY, MM/DD/YYYY, each with an
+                         optional HH:MM[:SS[.fff]], or epoch-seconds,
+                         epoch-milliseconds. Default: detected per column;
+                         slash dates that read both day-first and
+                         month-first are refused until this option says
+                         which. A bare FORM applies to every date column (an
+                         epoch form to the --time-column); COL=FORM to one.
+                         The model keeps each column's form and reads new
+                         rows the same way.
+  --time-cycles          add hour of day, day of week and day of year as
+                         sine/cosine pairs for every date/time feature, and
+                         for the --time-column (which gives no other feature).
   --group-column COL     group column (a machine, a batch) for --split grouped;
                          not a feature.
   --fractions TRAIN,VAL,TEST
@@ -574,6 +645,8 @@ inline double numeric_share(const tenon::column& c) {
 inline tenon::table load_table(const train_request& q) {
     tenon::csv_options options;
     if (q.task == task_choice::regress) options.forced_kinds[q.target] = tenon::column_kind::numeric;
+    options.default_time_format = q.time_format;
+    options.time_formats = q.column_time_formats;
     tenon::table t = [&] {
         try {
             return tenon::read_csv_file(q.data_path, options);
@@ -581,6 +654,10 @@ inline tenon::table load_table(const train_request& q) {
             // A forced target that the header lacks: report it as an unknown column.
             if (e.code() == tenon::codes::prep_column_unknown && options.forced_kinds.count(q.target))
                 fail(cli_codes::column_unknown, q.data_path + ": --target names '" + q.target + "', which is not a column");
+            if (e.code() == tenon::codes::prep_time_ambiguous) {  // say how to settle it
+                const std::string what = e.what(), message = what.substr(what.find("] ") == std::string::npos ? 0 : what.find("] ") + 2);
+                throw cli_failure(e.code(), message + " with --time-format DD/MM/YYYY or MM/DD/YYYY (or COLUMN=FORM)");
+            }
             throw;
         }
     }();
@@ -674,15 +751,26 @@ inline training_setup make_setup(const tenon::table& t, const train_request& q) 
 /// category fills missing cells, and a missing indicator is added for columns
 /// with missing cells among `train_rows`. Only which rows are missing is
 /// looked at here; every statistic is measured later, by plan::measure.
-inline void choose_feature_steps(const tenon::table& t, tenon::plan& recipe, const std::vector<std::size_t>& train_rows) {
+/// With `time_cycles` (--time-cycles), date/time features add their cyclic
+/// hour, weekday and yearday values, and the time column gives those alone.
+inline void choose_feature_steps(const tenon::table& t, tenon::plan& recipe, const std::vector<std::size_t>& train_rows,
+                                 bool time_cycles = false) {
     for (std::size_t k = 0; k < t.column_count(); ++k) {
         const tenon::column& c = t[k];
+        const bool dated = c.kind() == tenon::column_kind::datetime;
+        if (time_cycles && dated && recipe.role_of(c.name()) == tenon::column_role::time) {
+            tenon::feature_steps cycles;  // the time column has no missing cell (the split refuses one)
+            cycles.time = tenon::time_encoding::cycles;
+            recipe.set_steps(c.name(), cycles);
+            continue;
+        }
         if (recipe.role_of(c.name()) != tenon::column_role::feature) continue;
         tenon::feature_steps steps;
         const bool categorical = c.kind() == tenon::column_kind::categorical;
         steps.fill = categorical ? tenon::fill_method::most_frequent : tenon::fill_method::median;
         steps.scaling = tenon::scaling_method::z_score;
         steps.unseen = tenon::unseen_policy::all_zero;
+        if (time_cycles && dated) steps.time = tenon::time_encoding::value_and_cycles;
         for (auto r : train_rows) {
             if (c.is_missing(r)) {
                 steps.missing_indicator = true;
@@ -1214,7 +1302,7 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
                          const cli_environment& env, pending_output& metrics_file, pending_output& report_file,
                          pending_output& model_probe) {
     const tenon::holdout_split split = make_holdout(t, q, s);
-    choose_feature_steps(t, s.recipe, split.train);
+    choose_feature_steps(t, s.recipe, split.train, q.time_cycles);
 
     // The validation metric is RMSE in prepared units; the target's z-score
     // spread turns it back into the target's units for display.
@@ -1361,7 +1449,7 @@ inline int train_folds(const tenon::table& t, const train_request& q, training_s
     // plan is measured on its own rows, and a fixed layout keeps folds alike.
     std::vector<std::size_t> all(t.row_count());
     for (std::size_t r = 0; r < all.size(); ++r) all[r] = r;
-    choose_feature_steps(t, s.recipe, all);
+    choose_feature_steps(t, s.recipe, all, q.time_cycles);
 
     progress_printer progress(out, env.terminal, q.quiet, q.epochs, env.clock);
     std::vector<std::size_t> epochs_run;
@@ -2016,7 +2104,17 @@ inline std::string inspect_text(const tenon::model_file_summary& m, const std::s
                 prep += "; one-hot, unseen -> " + std::string(unseen_text(h.policy()));
             } else {
                 const tenon::scaling& c = p.feature_scaling(name);
-                prep += "; " + std::string(tenon::to_string(c.method)) + " (centre " + significant(c.center) + ", spread " + significant(c.spread) + ")";
+                const tenon::time_encoding encoding = kind == tenon::column_kind::datetime ? p.feature_time_encoding(name) : tenon::time_encoding::value;
+                if (encoding != tenon::time_encoding::cycles)
+                    prep += "; " + std::string(tenon::to_string(c.method)) + " (centre " + significant(c.center) + ", spread " + significant(c.spread) + ")";
+                if (kind == tenon::column_kind::datetime) {
+                    const tenon::time_format form = p.feature_time_form(name);
+                    s += "    time form    " + (form == tenon::time_format::detect ? std::string("any of YYYY-MM-DD, YYYY/MM/DD, DD.MM.YYYY")
+                                                                                   : std::string(tenon::to_string(form))) + "\n";
+                    if (encoding != tenon::time_encoding::value)
+                        prep += std::string(encoding == tenon::time_encoding::cycles ? "; only" : ";") +
+                                " hour of day, day of week, day of year as sine/cosine pairs";
+                }
             }
             s += "    preparation  " + prep + "\n";
             if (const tenon::feature_reference* r = reference_of(m, name)) {
@@ -2104,6 +2202,12 @@ inline std::string inspect_json(const tenon::model_file_summary& m, const std::s
             } else {
                 const tenon::scaling& c = p.feature_scaling(name);
                 j.text("scaling", tenon::to_string(c.method)).number("centre", c.center).number("spread", c.spread);
+                if (kind == tenon::column_kind::datetime) {
+                    const tenon::time_encoding encoding = p.feature_time_encoding(name);
+                    j.text("time_format", tenon::to_string(p.feature_time_form(name)));
+                    j.text("time_features", encoding == tenon::time_encoding::value ? "stamp"
+                                            : encoding == tenon::time_encoding::cycles ? "cycles" : "stamp and cycles");
+                }
             }
             if (const tenon::feature_reference* r = reference_of(m, name)) {
                 j.open_object("training").count("present", r->present).count("missing", r->missing);
@@ -2373,6 +2477,10 @@ Usage: tenon drift --model MODEL.tnm --data RECENT.csv [options]
   --psi-watch X          a column whose PSI exceeds X (and is not drifted) is
                          marked "watch" (default 0.1, or the --psi-threshold
                          when that is lower). Never changes the exit status.
+                         A column is marked "watch" or "drifted" by PSI only
+                         when its PSI also exceeds the noise floor: the PSI
+                         that unchanged data exceed once in 100 windows of
+                         this size (column "PSI noise"; see the README).
   --ks-threshold X       a numeric or date/time column whose Kolmogorov-Smirnov
                          distance D exceeds X is flagged (default 0: the
                          two-sample critical value at --ks-significance).
@@ -2381,12 +2489,14 @@ Usage: tenon drift --model MODEL.tnm --data RECENT.csv [options]
                          psi_flag, ks, ks_limit, ks_flag, counts and bins).
   --quiet                print nothing but errors; the exit status tells.
 
-Prints one line per input column: its kind, PSI, D, the limit of D, its
+Prints one line per input column: its kind, PSI, PSI's noise floor, D, the limit of D, its
 status (stable, watch, drifted) and notes (values outside the training
 range, categories training never saw, unreadable cells, which test flagged
 it). PSI compares the shares of the training histogram's bins (plus bins
 below and above the training range and for missing cells; one bin per
-category) with the recent rows' shares.
+category) with the recent rows' shares; a numeric column with few distinct
+training values has one bin per value. Date/time cells are read in the
+form the model keeps for each column.
 
 Exit status
   0 no column drifted; 5 at least one column drifted; 2 bad command line,
@@ -2408,8 +2518,24 @@ inline std::string absent_columns(const tenon::table& t, const std::vector<std::
     return join(absent, ", ");
 }
 
-inline tenon::table read_new_rows(const std::string& path) {
-    tenon::table t = tenon::read_csv_file(path);
+// Reads new rows with the time-stamp forms the model keeps, so that its
+// date/time columns read as they did in training.
+inline tenon::table read_new_rows(const std::string& path, const tenon::measured_plan* plan = nullptr) {
+    tenon::csv_options options;
+    if (plan)
+        for (const auto& name : plan->input_columns())
+            if (plan->feature_kind(name) == tenon::column_kind::datetime && plan->feature_time_form(name) != tenon::time_format::detect)
+                options.time_formats[name] = plan->feature_time_form(name);
+    if (!options.time_formats.empty()) {  // only columns the file has: the missing ones are reported by name later
+        std::ifstream header_in(path, std::ios::binary);
+        if (header_in) {
+            tenon::csv_record_reader reader(header_in, options.delimiter, path);
+            const std::vector<std::string> names = tenon::detail::read_header(reader);
+            for (auto it = options.time_formats.begin(); it != options.time_formats.end();)
+                it = std::find(names.begin(), names.end(), it->first) == names.end() ? options.time_formats.erase(it) : std::next(it);
+        }
+    }
+    tenon::table t = tenon::read_csv_file(path, options);
     if (t.row_count() == 0) fail(cli_codes::data_empty, path + ": no data rows below the header");
     return t;
 }
@@ -2490,7 +2616,7 @@ inline int run_retrain(const std::vector<std::string>& args, std::ostream& out, 
     const tenon::model_file_summary summary = tenon::inspect_model_bytes(bytes, limits, q.model_path);
     if (!summary.plan || !summary.plan->has_target())
         fail(cli_codes::model_unusable, q.model_path + ": the model holds no preparation plan with a target, so it cannot be retrained");
-    const tenon::table t = detail::read_new_rows(q.data_path);
+    const tenon::table t = detail::read_new_rows(q.data_path, &*summary.plan);
     std::vector<std::string> needed = summary.plan->input_columns();
     needed.push_back(summary.plan->target_name());
     const std::string absent = detail::absent_columns(t, needed);
@@ -2565,7 +2691,7 @@ inline int run_drift(const std::vector<std::string>& args, std::ostream& out, st
     const tenon::model_file_summary summary = tenon::inspect_model_file(q.model_path);
     if (summary.references.empty())
         fail(cli_codes::model_unusable, q.model_path + ": the model holds no summaries of its training rows (section REFS), so drift cannot be measured");
-    const tenon::table t = detail::read_new_rows(q.data_path);
+    const tenon::table t = detail::read_new_rows(q.data_path, summary.plan ? &*summary.plan : nullptr);
     std::vector<std::string> needed;
     for (const auto& r : summary.references) needed.push_back(r.column);
     const std::string absent = detail::absent_columns(t, needed);
