@@ -305,3 +305,29 @@ TEST_CASE("the plan gives cyclic values on request, also of the time column alon
     wrong.set_steps("load", cycles);
     CHECK(error_code_of([&] { wrong.measure(t, {0, 1, 2}); }) == "prep.column.kind");
 }
+
+TEST_CASE("plans without time forms are still written as plan version 1, and version 1 still reads") {
+    // A date/time column made by a host (no form): the bytes are version 1,
+    // as before forms were kept, and read back with the form detect.
+    tenon::table host("host");
+    host.add_column("when", tenon::column_kind::datetime);
+    host.add_column("y", tenon::column_kind::numeric);
+    for (int i = 0; i < 3; ++i) {
+        host[0].push_number(counted_seconds(2024, 1, 1 + i));
+        host[1].push_number(i);
+    }
+    tenon::plan recipe;
+    recipe.set_target("y", tenon::target_kind::regression);
+    const auto bytes = recipe.measure(host, {0, 1, 2}).to_bytes();
+    CHECK(bytes[4] == 1);  // u16 little-endian version after the magic TNPL
+    CHECK(bytes[5] == 0);
+    const auto back = tenon::measured_plan::from_bytes(bytes);
+    CHECK(back.feature_time_form("when") == tenon::time_format::detect);
+    const std::string_view cells[] = {"02.01.2024 00:00"};  // detect reads every unambiguous text form
+    double x = 0;
+    back.apply_cells(cells, 1, &x);
+    CHECK(x == doctest::Approx(back.feature_scaling("when").forward(counted_seconds(2024, 1, 2))));
+    // A column read from a file keeps its form: version 2.
+    const auto t = read_text("when,y\n2024-01-01,0\n2024-01-02,1\n2024-01-03,2\n");
+    CHECK(recipe.measure(t, {0, 1, 2}).to_bytes()[4] == 2);
+}
