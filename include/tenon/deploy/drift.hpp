@@ -79,16 +79,16 @@
 // reference.hpp); ks_error_bound reports which. Summaries written before
 // the distributions were kept (files without section REFD) fall back to the
 // ogive of the histogram, the piecewise-linear CDF through the cumulative
-// histogram, which errs by up to the largest bin share, and more on columns
-// of few distinct values: the ogive spreads a tied value's mass over its bin.
+// histogram, which errs by up to the largest bin share: much on columns of
+// few distinct values, whose tied mass the ogive spreads over its bin.
 // A column is flagged when D exceeds `ks_threshold`, or, when that is 0
 // (the default), the large-sample two-sample critical value at level
 // `ks_significance`, c(alpha) sqrt((n + m) / (n m)) with
 // c(alpha) = sqrt(-ln(alpha / 2) / 2) (Smirnov 1948, from memory; c(0.05)
 // = 1.358, c(0.01) = 1.628), n training and m window values; with quantile
 // points D must exceed the limit by more than its error bound. For discrete
-// data the limit is conservative (a false alarm is no more likely than
-// alpha): break the ties of both samples alike by adding independent noise
+// data the limit is conservative (a false alarm is no more likely than for
+// continuous data at the same limit): break the ties of both samples alike by adding independent noise
 // far smaller than the gap between values; the jittered samples are two
 // samples of one continuous distribution, and at the top of each block of
 // tied values their empirical CDFs equal the tied ones, so the jittered D is
