@@ -36,14 +36,39 @@ function(step_fails pattern)
   message(STATUS "failed as expected (${pattern})")
 endfunction()
 
+# The examples are configured so the tool and its man page get installed;
+# only those two targets are built. GNUInstallDirs puts them in bin/ and
+# share/man/man1/.
 step(${CMAKE_COMMAND} -S "${SOURCE_DIR}" -B "${build}" -G "${GENERATOR}"
-     -DCMAKE_CXX_COMPILER=${CXX_COMPILER} -DCMAKE_INSTALL_PREFIX=${prefix}
-     -DTENON_BUILD_TESTS=OFF -DTENON_BUILD_BENCHMARKS=OFF -DTENON_BUILD_EXAMPLES=OFF)
+     -DCMAKE_CXX_COMPILER=${CXX_COMPILER} -DCMAKE_INSTALL_PREFIX=${prefix} -DCMAKE_BUILD_TYPE=Release
+     -DTENON_BUILD_TESTS=OFF -DTENON_BUILD_BENCHMARKS=OFF -DTENON_BUILD_EXAMPLES=ON)
+step(${CMAKE_COMMAND} --build "${build}" --target tenon_cli tenon_man)
 step(${CMAKE_COMMAND} --install "${build}")
 set(config_dir "${prefix}/share/cmake/tenon")
 if(NOT EXISTS "${config_dir}/tenonConfig.cmake")
   message(FATAL_ERROR "tenonConfig.cmake was not installed")
 endif()
+
+# The installed tool runs from the prefix, and its man page holds every
+# command's help: the NAME line from `tenon --help`, a section per command,
+# and a line of `tenon train --help` (hyphens written as roff's \-).
+step("${prefix}/bin/tenon" --version)
+if(NOT step_output MATCHES "^tenon [0-9]+\\.[0-9]+\\.[0-9]+")
+  message(FATAL_ERROR "the installed tenon --version printed: ${step_output}")
+endif()
+step("${prefix}/bin/tenon" train --help)
+set(man_page "${prefix}/share/man/man1/tenon.1")
+if(NOT EXISTS "${man_page}")
+  message(FATAL_ERROR "the man page was not installed at ${man_page}")
+endif()
+file(READ "${man_page}" page)
+foreach(expected ".TH TENON 1" ".SH NAME\ntenon \\- train" ".SH \"TENON TRAIN\"" ".SH \"TENON INFER\""
+                 ".SH \"TENON INSPECT\"" ".SH \"TENON RETRAIN\"" ".SH \"TENON DRIFT\"" "\\-\\-target COLUMN")
+  string(FIND "${page}" "${expected}" at)
+  if(at EQUAL -1)
+    message(FATAL_ERROR "the man page lacks '${expected}':\n${page}")
+  endif()
+endforeach()
 
 set(host_source "${SOURCE_DIR}/tests/install_consumer/host")
 set(host_common -G "${GENERATOR}" -DCMAKE_CXX_COMPILER=${CXX_COMPILER}
