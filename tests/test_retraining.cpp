@@ -517,6 +517,16 @@ TEST_CASE("promotion keeps the previous file for rollback; no promotion writes n
     CHECK(file_bytes(path) == original);
     CHECK(file_exists(previous));
 
+    // The incumbent kept after an earlier promotion: the rollback file left
+    // by that promotion is not touched either (README, "Retraining").
+    std::ofstream(previous, std::ios::binary | std::ios::trunc) << "left by an earlier promotion";
+    const auto k2 = tenon::retrain_model_file(path, new_rows, kept);
+    CHECK_FALSE(k2.promoted);
+    CHECK_FALSE(k2.file_written);
+    CHECK(file_bytes(path) == original);
+    const auto left = file_bytes(previous);
+    CHECK(std::string(left.begin(), left.end()) == "left by an earlier promotion");
+
     // A rollback path of the caller's choice.
     const std::string elsewhere = temp_path("kept.tnm");
     const auto q = tenon::retrain_model_file(path, new_rows, better, elsewhere);
