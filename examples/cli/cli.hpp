@@ -118,6 +118,14 @@ inline constexpr const char* model_unusable = "cli.model.unusable";
 enum class task_choice { automatic, classify, regress };
 enum class split_choice { automatic, random, stratified, chronological, grouped };
 
+/// The library's model and training defaults, which the tool's options
+/// start from (no copies of them here): a host calling fit_model with a
+/// default model_settings trains what `tenon train` trains.
+inline const tenon::model_settings& library_defaults() {
+    static const tenon::model_settings defaults;
+    return defaults;
+}
+
 struct train_request {
     std::string data_path;
     std::string target;
@@ -128,16 +136,16 @@ struct train_request {
     std::string group_column;
     tenon::split_fractions fractions{0.7, 0.15, 0.15};
     std::size_t folds = 0;  // 0 = single holdout
-    std::vector<std::size_t> hidden{64, 32};
-    tenon::activation hidden_activation = tenon::activation::relu;
+    std::vector<std::size_t> hidden = library_defaults().hidden;
+    tenon::activation hidden_activation = library_defaults().hidden_activation;
     bool loss_given = false;
-    tenon::loss_kind loss = tenon::loss_kind::l2;
-    tenon::update_kind update = tenon::update_kind::adam;
-    double learning_rate = 1e-3;
-    std::size_t epochs = 200;
-    std::size_t batch = 32;
-    std::size_t patience = 15;
-    std::uint64_t seed = 1;
+    tenon::loss_kind loss = library_defaults().loss;
+    tenon::update_kind update = library_defaults().update;
+    double learning_rate = library_defaults().learning_rate;
+    std::size_t epochs = library_defaults().epochs;
+    std::size_t batch = library_defaults().batch_size;
+    std::size_t patience = library_defaults().patience;
+    std::uint64_t seed = 1;  // one seed for the split, the weights and the batch order
     std::size_t threads = 1;
     bool keep_order = false;  // --keep-order: no shuffling
     std::string metrics_path;
@@ -670,25 +678,18 @@ inline training_setup make_setup(const tenon::table& t, const train_request& q) 
     return s;
 }
 
-/// Per-column steps: the median (numeric, date/time) or the most frequent
-/// category fills missing cells, and a missing indicator is added for columns
-/// with missing cells among `train_rows`. Only which rows are missing is
-/// looked at here; every statistic is measured later, by plan::measure.
-inline void choose_feature_steps(const tenon::table& t, tenon::plan& recipe, const std::vector<std::size_t>& train_rows) {
+/// Cross-validation only: every feature column with a missing cell anywhere
+/// in the table gets a missing indicator, so every fold's plan has the same
+/// layout. Everything else is the library's default steps (feature_steps:
+/// median or most frequent fill, z-scores, unseen categories as zeros, an
+/// indicator for a column with a missing training cell), which a holdout
+/// run uses as they are, so the tool and a host get the same model.
+inline void indicators_for_every_fold(const tenon::table& t, tenon::plan& recipe) {
     for (std::size_t k = 0; k < t.column_count(); ++k) {
         const tenon::column& c = t[k];
-        if (recipe.role_of(c.name()) != tenon::column_role::feature) continue;
-        tenon::feature_steps steps;
-        const bool categorical = c.kind() == tenon::column_kind::categorical;
-        steps.fill = categorical ? tenon::fill_method::most_frequent : tenon::fill_method::median;
-        steps.scaling = tenon::scaling_method::z_score;
-        steps.unseen = tenon::unseen_policy::all_zero;
-        for (auto r : train_rows) {
-            if (c.is_missing(r)) {
-                steps.missing_indicator = true;
-                break;
-            }
-        }
+        if (recipe.role_of(c.name()) != tenon::column_role::feature || c.missing_count() == 0) continue;
+        tenon::feature_steps steps = recipe.steps_of(c.name());
+        steps.missing_indicator = true;
         recipe.set_steps(c.name(), steps);
     }
 }
@@ -1214,7 +1215,6 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
                          const cli_environment& env, pending_output& metrics_file, pending_output& report_file,
                          pending_output& model_probe) {
     const tenon::holdout_split split = make_holdout(t, q, s);
-    choose_feature_steps(t, s.recipe, split.train);
 
     // The validation metric is RMSE in prepared units; the target's z-score
     // spread turns it back into the target's units for display.
@@ -1357,11 +1357,8 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
 inline int train_folds(const tenon::table& t, const train_request& q, training_setup& s, std::ostream& out, const cli_environment& env,
                        pending_output& metrics_file) {
     const std::vector<tenon::fold> folds = make_folds(t, q, s);
-    // Indicators for every column with a missing cell anywhere: each fold's
-    // plan is measured on its own rows, and a fixed layout keeps folds alike.
-    std::vector<std::size_t> all(t.row_count());
-    for (std::size_t r = 0; r < all.size(); ++r) all[r] = r;
-    choose_feature_steps(t, s.recipe, all);
+    // Each fold's plan is measured on its own rows; a fixed layout keeps folds alike.
+    indicators_for_every_fold(t, s.recipe);
 
     progress_printer progress(out, env.terminal, q.quiet, q.epochs, env.clock);
     std::vector<std::size_t> epochs_run;
