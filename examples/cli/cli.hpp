@@ -1964,6 +1964,19 @@ inline std::string fill_text(const tenon::fill_value& f, tenon::column_kind kind
     }
 }
 
+inline std::string metadata_setting(const tenon::training_metadata& t, const char* key) {
+    for (const auto& kv : t.settings)
+        if (kv.first == key) return kv.second;
+    return std::string();
+}
+
+// "tenon train", or "retraining 2 (promoted over the weights before it)".
+inline std::string made_by(const tenon::training_metadata& t) {
+    if (metadata_setting(t, "origin") != "retraining") return "training";
+    const double n = t.metric("retrainings");
+    return "retraining" + (std::isfinite(n) ? " " + significant(n) : std::string()) + " (promoted over the weights before it)";
+}
+
 inline std::string inspect_text(const tenon::model_file_summary& m, const std::string& path) {
     std::string s = path + "\n";
     std::vector<std::string> ids;
@@ -1974,15 +1987,23 @@ inline std::string inspect_text(const tenon::model_file_summary& m, const std::s
 
     if (m.metadata) {
         const tenon::training_metadata& t = *m.metadata;
-        s += "\nProvenance\n";
+        s += "\nProvenance of the current weights\n";
+        s += "  made by      " + made_by(t) + "\n";
         s += "  created      " + utc_text(t.created_unix_seconds) + "\n";
         s += "  library      tenon " + t.library_version + "\n";
-        std::string data;
-        for (const auto& kv : t.settings)
-            if (kv.first == "data") data = kv.second + ", ";
-        s += "  data         " + data + "fingerprint " + hex64(t.data_fingerprint) + "\n";
-        s += "  rows         " + std::to_string(t.training_rows) + " training, " + std::to_string(t.validation_rows) + " validation, " +
-             std::to_string(t.dropped_rows) + " dropped for a missing target\n";
+        const std::string data = metadata_setting(t, "data");
+        s += "  data         " + (data.empty() ? std::string() : data + ", ") + "fingerprint " + hex64(t.data_fingerprint) + "\n";
+        if (metadata_setting(t, "origin") == "retraining") {
+            s += "  rows         " + std::to_string(t.training_rows) + " training (" + significant(t.metric("new_training_rows")) + " new, " +
+                 significant(t.metric("replay_training_rows")) + " from the replay sample), " + std::to_string(t.validation_rows) +
+                 " validation, " + significant(t.metric("gate_holdout_rows")) + " new rows held out for the gate, " +
+                 std::to_string(t.dropped_rows) + " new rows refused\n";
+            s += "  gate         " + metadata_setting(t, "gate_metric") + " " + significant(t.metric("gate_candidate_score")) +
+                 " against the replaced weights' " + significant(t.metric("gate_incumbent_score")) + " on the held-out new rows\n";
+        } else {
+            s += "  rows         " + std::to_string(t.training_rows) + " training, " + std::to_string(t.validation_rows) + " validation, " +
+                 std::to_string(t.dropped_rows) + " dropped for a missing target\n";
+        }
         s += "  seed         " + std::to_string(t.seed) + "\n";
         s += "  epochs       " + std::to_string(t.epochs_run) + " run of " + std::to_string(t.epochs_planned) + ", best " +
              std::to_string(t.best_epoch) + ", stopped: " + t.stop_reason + "; " + std::to_string(t.steps) + " steps; loss " + t.loss + "\n";
@@ -2049,6 +2070,20 @@ inline std::string inspect_text(const tenon::model_file_summary& m, const std::s
             s += buffer + kv.second + "\n";
         }
     }
+    if (!m.history.empty()) {
+        s += "\nHistory: " + std::to_string(m.history.size()) + " earlier " + (m.history.size() == 1 ? "training" : "trainings") +
+             " whose weights were replaced, oldest first\n";
+        for (std::size_t k = 0; k < m.history.size(); ++k) {
+            const tenon::training_metadata& t = m.history[k];
+            const std::string data = metadata_setting(t, "data");
+            s += "  " + std::to_string(k + 1) + ". " + utc_text(t.created_unix_seconds) + ", " + made_by(t) + ", data " +
+                 (data.empty() ? std::string() : data + ", ") + "fingerprint " + hex64(t.data_fingerprint) + ", " +
+                 std::to_string(t.training_rows) + " training rows\n";
+            std::vector<std::string> scores;
+            for (const auto& kv : t.metrics) scores.push_back(kv.first + " " + significant(kv.second));
+            if (!scores.empty()) s += "     " + join(scores, ", ") + "\n";
+        }
+    }
     return s;
 }
 
@@ -2069,10 +2104,28 @@ inline std::string inspect_json(const tenon::model_file_summary& m, const std::s
         j.count("epochs_planned", t.epochs_planned).count("epochs_run", t.epochs_run).count("best_epoch", t.best_epoch).count("steps", t.steps);
         j.count("training_rows", t.training_rows).count("validation_rows", t.validation_rows).count("dropped_rows", t.dropped_rows);
         j.text("stop_reason", t.stop_reason).text("loss", t.loss);
+        j.text("origin", metadata_setting(t, "origin").empty() ? "training" : metadata_setting(t, "origin"));
+        j.text("data", metadata_setting(t, "data"));
         j.close_object();
     } else {
         j.null("provenance");
     }
+    j.open_array("history");
+    for (const auto& t : m.history) {
+        j.open_object();
+        j.text("created", utc_text(t.created_unix_seconds)).text("library_version", t.library_version);
+        j.text("origin", metadata_setting(t, "origin").empty() ? "training" : metadata_setting(t, "origin"));
+        j.text("data", metadata_setting(t, "data")).text("data_fingerprint", hex64(t.data_fingerprint)).count("seed", t.seed);
+        j.count("training_rows", t.training_rows).count("validation_rows", t.validation_rows).count("dropped_rows", t.dropped_rows);
+        j.open_object("metrics");
+        for (const auto& kv : t.metrics) j.number(kv.first.c_str(), kv.second);
+        j.close_object();
+        j.open_object("settings");
+        for (const auto& kv : t.settings) j.text(kv.first.c_str(), kv.second);
+        j.close_object();
+        j.close_object();
+    }
+    j.close_array();
     if (m.plan) {
         const tenon::measured_plan& p = *m.plan;
         j.open_object("target");
