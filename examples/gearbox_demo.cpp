@@ -109,10 +109,10 @@ int main(int argc, char** argv) {
         settings.epochs = 150;
         settings.patience = 15;
         settings.seed = 7;
-        settings.on_epoch = [](const tenon::epoch_summary& e) {
+        settings.on_epoch = [epochs = settings.epochs](const tenon::epoch_summary& e) {
             if (e.epoch == 1 || e.epoch % 10 == 0)
-                std::printf("  epoch %3zu  train loss %.4f  validation loss %.4f  validation accuracy %.3f\n", e.epoch, e.training_loss,
-                            e.validation_loss, e.validation_metric);
+                std::printf("  epoch %3zu of %zu | training loss %.4f | validation loss %.4f | validation accuracy %.3f\n", e.epoch,
+                            epochs, e.training_loss, e.validation_loss, e.validation_metric);
             return true;
         };
         auto model = tenon::fit_model<float>(log, preparation, split.train, split.validation, settings);

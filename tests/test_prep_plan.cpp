@@ -275,8 +275,8 @@ TEST_CASE("plan bytes store fill and scaling methods as codes that the renamed m
     // The "model" feature's fill method and the "flow" feature's scaling
     // method, found by their position after each name in the bytes.
     const std::string text(bytes.begin(), bytes.end());
-    const std::size_t model_at = text.find(std::string("\x05\x00\x00\x00model", 9));
-    const std::size_t flow_at = text.find(std::string("\x04\x00\x00\x00flow", 8));
+    const std::size_t model_at = text.find(std::string("\x05\x00\x00\x00", 4) + "model");  // u32 length, then the name
+    const std::size_t flow_at = text.find(std::string("\x04\x00\x00\x00", 4) + "flow");
     REQUIRE(model_at != std::string::npos);
     REQUIRE(flow_at != std::string::npos);
     CHECK(bytes[model_at + 9 + 1] == 3);  // after the name: kind, then the fill method
