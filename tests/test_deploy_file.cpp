@@ -416,6 +416,7 @@ TEST_CASE("the version-1 fixture file loads and predicts exactly what it did whe
     // key "final_train_loss"; it is read under the current name.
     CHECK(std::isfinite(m.metadata->metric("final_training_loss")));
     for (const auto& kv : m.metadata->metrics) CHECK(kv.first != "final_train_loss");
+    CHECK(m.history.empty());  // written before section HIST existed
     tenon::predictor<float> p(m);
     REQUIRE(p.is_classification());
     CHECK(p.class_names() == std::vector<std::string>{"cavitating", "ok", "worn"});
