@@ -218,9 +218,9 @@ TEST_CASE("the plan keeps the form, so raw rows read like the training file") {
     tenon::csv_options o;
     o.default_time_format = tenon::time_format::day_slash;
     const auto t = read_text("stamp,y\n03/04/2021 10:30,1\n05/06/2021 11:00,2\n07/08/2021 12:00,3\n", o);
-    tenon::plan recipe;
-    recipe.set_target("y", tenon::target_kind::regression);
-    const auto measured = recipe.measure(t, {0, 1, 2});
+    tenon::plan preparation;
+    preparation.set_target("y", tenon::target_kind::regression);
+    const auto measured = preparation.measure(t, {0, 1, 2});
     CHECK(measured.feature_time_form("stamp") == tenon::time_format::day_slash);
     const auto back = tenon::measured_plan::from_bytes(measured.to_bytes());
     CHECK(back.feature_time_form("stamp") == tenon::time_format::day_slash);
@@ -263,14 +263,14 @@ TEST_CASE("cyclic time values: hour of day, day of week, day of year") {
 
 TEST_CASE("the plan gives cyclic values on request, also of the time column alone") {
     const auto t = read_text("stamp,load,y\n2024-01-01 06:00,1,1\n2024-12-31 18:30,2,2\n2024-06-15 12:00,3,3\n");
-    tenon::plan recipe;
-    recipe.set_target("y", tenon::target_kind::regression);
+    tenon::plan preparation;
+    preparation.set_target("y", tenon::target_kind::regression);
     tenon::feature_steps with_cycles;
     with_cycles.time = tenon::time_encoding::value_and_cycles;
     with_cycles.missing_indicator = true;
     with_cycles.fill = tenon::fill_method::median;
-    recipe.set_steps("stamp", with_cycles);
-    const auto measured = recipe.measure(t, {0, 1, 2});
+    preparation.set_steps("stamp", with_cycles);
+    const auto measured = preparation.measure(t, {0, 1, 2});
     const std::vector<std::string> names = {"stamp", "stamp#hour_sin", "stamp#hour_cos", "stamp#weekday_sin", "stamp#weekday_cos",
                                             "stamp#yearday_sin", "stamp#yearday_cos", "stamp#missing", "load"};
     CHECK(measured.feature_names() == names);
@@ -316,9 +316,9 @@ TEST_CASE("plans without time forms are still written as plan version 1, and ver
         host[0].push_number(counted_seconds(2024, 1, 1 + i));
         host[1].push_number(i);
     }
-    tenon::plan recipe;
-    recipe.set_target("y", tenon::target_kind::regression);
-    const auto bytes = recipe.measure(host, {0, 1, 2}).to_bytes();
+    tenon::plan preparation;
+    preparation.set_target("y", tenon::target_kind::regression);
+    const auto bytes = preparation.measure(host, {0, 1, 2}).to_bytes();
     CHECK(bytes[4] == 1);  // u16 little-endian version after the magic TNPL
     CHECK(bytes[5] == 0);
     const auto back = tenon::measured_plan::from_bytes(bytes);
@@ -329,5 +329,5 @@ TEST_CASE("plans without time forms are still written as plan version 1, and ver
     CHECK(x == doctest::Approx(back.feature_scaling("when").forward(counted_seconds(2024, 1, 2))));
     // A column read from a file keeps its form: version 2.
     const auto t = read_text("when,y\n2024-01-01,0\n2024-01-02,1\n2024-01-03,2\n");
-    CHECK(recipe.measure(t, {0, 1, 2}).to_bytes()[4] == 2);
+    CHECK(preparation.measure(t, {0, 1, 2}).to_bytes()[4] == 2);
 }
