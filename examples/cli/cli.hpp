@@ -430,7 +430,8 @@ Data
                          cells, NA, NaN, null and ? read as missing. A column
                          whose cells are numbers except for a few (under 10%)
                          is taken for a numeric column with typos: the first
-                         bad cell is reported.
+                         bad cell is reported. The delimiter and the decimal
+                         mark are told from the first rows (see --delimiter).
   --target COLUMN        the column the model learns (required). Rows whose target
                          is missing are left out and counted as dropped.
   --task auto|classify|regress
@@ -1752,7 +1753,9 @@ Usage: tenon infer --model MODEL.tnm --data NEW.csv --out PREDICTIONS.csv [optio
                          every column the model reads (tenon inspect lists
                          them), in any order; other columns, the target among
                          them, are ignored. Empty cells, NA, NaN, null and ?
-                         read as missing and are filled as in training.
+                         read as missing and are filled as in training. The
+                         delimiter and decimal commas are told from the file
+                         as tenon train tells them.
   --out PREDICTIONS.csv  where to write the predictions (required).
   --keep COL,COL         columns of NEW.csv copied unchanged to the front of
                          each output row, e.g. an id (default: none).
@@ -1871,9 +1874,11 @@ int infer_with(const tenon::model_file<T>& file, const infer_request& q, std::os
     tenon::predictor<T> model(file, batch_rows);
     const std::size_t inputs = model.input_count();
 
+    // The file's delimiter and decimal mark are told from its first rows, as tenon train does.
+    const tenon::csv_options dialect = data_dialect(q.data_path, 0, false);
     std::ifstream in(q.data_path, std::ios::binary);
     if (!in) tenon::raise(tenon::codes::prep_file_open, q.data_path + ": cannot open for reading");
-    tenon::csv_record_reader reader(in, ',', q.data_path);
+    tenon::csv_record_reader reader(in, dialect.delimiter, q.data_path);
     const std::vector<std::string> header = read_data_header(reader);
 
     // Where each input column and each kept column is in the data.
@@ -1978,7 +1983,15 @@ int infer_with(const tenon::model_file<T>& file, const infer_request& q, std::os
         if (reader.field_count() != header.size())
             tenon::raise(tenon::codes::prep_csv_ragged, q.data_path + " line " + std::to_string(reader.line()) + ": expected " +
                                                             std::to_string(header.size()) + " fields, found " + std::to_string(reader.field_count()));
-        for (std::size_t k = 0; k < inputs; ++k) cells[pending * inputs + k].assign(reader.field(input_field[k]));
+        for (std::size_t k = 0; k < inputs; ++k) {
+            std::string& cell = cells[pending * inputs + k];
+            cell.assign(reader.field(input_field[k]));
+            // The predictor reads decimal points: a decimal comma becomes one.
+            double value = 0;
+            if (dialect.decimal_comma && file.plan->feature_kind(model.input_name(k)) == tenon::column_kind::numeric &&
+                tenon::parse_decimal_comma_number(cell, value))
+                std::replace(cell.begin(), cell.end(), ',', '.');
+        }
         for (std::size_t j = 0; j < q.keep.size(); ++j) kept[pending * q.keep.size() + j].assign(reader.field(keep_field[j]));
         lines[pending] = reader.line();
         if (++pending == batch_rows) flush();
@@ -2467,7 +2480,9 @@ Usage: tenon retrain --model MODEL.tnm --data NEW.csv --out NEW_MODEL.tnm [optio
                          Rows the model's frozen preparation cannot encode (a
                          missing target, a class the model has no output for,
                          a missing cell without a fill, text in a numeric
-                         column) are left out and counted.
+                         column) are left out and counted. The delimiter and
+                         decimal commas are told from the file as tenon train
+                         tells them.
   --out NEW_MODEL.tnm    where the candidate is written, only if it is
                          promoted (required). It may be the --model file: the
                          incumbent's exact bytes are then kept at the
@@ -2531,6 +2546,8 @@ Usage: tenon drift --model MODEL.tnm --data RECENT.csv [options]
                          (required); it keeps summaries of its training rows.
   --data RECENT.csv      recent rows with a header (required): every column
                          the model reads, in any order; others are ignored.
+                         The delimiter and decimal commas are told from the
+                         file as tenon train tells them.
   --psi-threshold X      a column whose population stability index exceeds X
                          is flagged as drifted (default 0.25).
   --psi-watch X          a column whose PSI exceeds X (and is not drifted) is
@@ -2572,7 +2589,7 @@ inline std::string absent_columns(const tenon::table& t, const std::vector<std::
 }
 
 inline tenon::table read_new_rows(const std::string& path) {
-    tenon::table t = tenon::read_csv_file(path);
+    tenon::table t = tenon::read_csv_file(path, data_dialect(path, 0, false));  // dialect told from the file, as in tenon train
     if (t.row_count() == 0) fail(cli_codes::data_empty, path + ": no data rows below the header");
     return t;
 }
