@@ -1,7 +1,7 @@
 // Tests of `tenon train` on CSV files as plants write them: identifier-like
 // columns, ';' delimiters with decimal commas, forced column kinds and class
-// targets coded as whole numbers; with the library's column screening and
-// dialect detection underneath.
+// targets coded as whole numbers. The library's column screening and dialect
+// detection underneath are tested in test_prep_csv.cpp.
 #include <doctest/doctest.h>
 
 #include <algorithm>
@@ -55,48 +55,10 @@ std::string press_log(std::size_t rows, char delimiter = ',', bool decimal_comma
     return csv;
 }
 
-tenon::table table_of(const std::string& csv) {
-    std::istringstream in(csv);
-    return tenon::read_csv(in, {}, "press.csv");
-}
-
 }  // namespace
 
 // ---------------------------------------------------------------------------
 // Item: identifier-like columns
-
-TEST_CASE("screen_columns: distinct values, identifier names, counters; a real categorical is not reported") {
-    const tenon::table t = table_of(press_log(200));
-    const auto findings = tenon::screen_columns(t, {}, {"fault"});
-    std::map<std::string, tenon::screening_reason> found;
-    for (const auto& f : findings) found.emplace(f.column, f.reason);
-    REQUIRE(found.size() == 3);
-    CHECK(found.at("serial") == tenon::screening_reason::distinct_values);
-    CHECK(found.at("cycle") == tenon::screening_reason::counter);
-    CHECK(found.at("part_id") == tenon::screening_reason::identifier_name);  // 40 values in 200 rows, named as an identifier
-    CHECK(found.count("line_id") == 0);  // 3 lines: a real feature despite the name
-    CHECK(found.count("shift") == 0);
-    CHECK(found.count("force") == 0);
-    CHECK(found.count("die") == 0);  // whole numbers, but not rising on every row
-    CHECK(findings.front().explanation() == "200 distinct values in 200 rows: nearly every value is distinct, as in an identifier");
-
-    // Too few rows for any rule to speak.
-    CHECK(tenon::screen_columns(table_of(press_log(19)), {}, {"fault"}).empty());
-    // Names split into words: "PartSerialNo" is an identifier name, "width" is not.
-    CHECK(tenon::detail::name_words("PartSerialNo") == std::vector<std::string>{"part", "serial", "no"});
-    CHECK(tenon::detail::name_words("width") == std::vector<std::string>{"width"});
-    CHECK(tenon::detail::name_words("station_SN2") == std::vector<std::string>{"station", "sn"});
-
-    // Crowded categories: 30 operators in 200 rows (more than 10% of the rows) warn, without being identifiers.
-    std::string csv = "operator,amps\n";
-    for (int i = 0; i < 200; ++i) csv += "op" + std::to_string(i % 30) + "," + std::to_string(i % 7) + "\n";
-    const auto crowded = tenon::screen_columns(table_of(csv));
-    REQUIRE(crowded.size() == 1);
-    CHECK(crowded[0].reason == tenon::screening_reason::many_categories);
-    CHECK_FALSE(crowded[0].identifier());
-    CHECK(crowded[0].explanation() == "30 categories in 200 rows, about 6 rows per category: each one-hot input is learned from few rows");
-    CHECK(tenon::to_string(tenon::screening_reason::counter) == std::string("counter"));
-}
 
 TEST_CASE("tenon train leaves identifier-like columns out, says so in one line each, and --use brings one back") {
     scratch_dir dir("identifiers");

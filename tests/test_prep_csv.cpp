@@ -1,13 +1,16 @@
-// Tests of prep/cell_parsing.hpp, prep/csv.hpp and prep/statistics.hpp.
+// Tests of prep/cell_parsing.hpp, prep/csv.hpp, prep/column_screening.hpp and prep/statistics.hpp.
 // CSV edge cases follow RFC 4180 (Shafranovich 2005), section 2, rules 1-7.
 #include <doctest/doctest.h>
 
 #include <cmath>
+#include <map>
+#include <vector>
 #include <sstream>
 #include <string>
 
 #include <tenon/core/random.hpp>
 #include <tenon/prep/cell_parsing.hpp>
+#include <tenon/prep/column_screening.hpp>
 #include <tenon/prep/csv.hpp>
 #include <tenon/prep/statistics.hpp>
 
@@ -195,6 +198,56 @@ TEST_CASE("ambiguous dialects are refused with the file, the candidates and the 
     CHECK(t.at("a").number(1) == 12.5);
     // One cell that cannot be a group settles it.
     CHECK(detect_text("a;b\n1,234;x\n12,5;y\n").decimal_comma);
+}
+
+namespace {
+// An invented press log for screening: a serial per part, a cycle counter, a
+// part number shared by a few parts, the line, the shift, the force, the die
+// (7 or 9) and a 0/1 fault.
+tenon::table press_log_table(std::size_t rows) {
+    tenon::random_engine rng(7);
+    std::string csv = "serial,cycle,part_id,line_id,shift,force,die,fault\n";
+    for (std::size_t i = 0; i < rows; ++i) {
+        const double force = rng.uniform(40.0, 80.0);
+        csv += "SN-" + std::to_string(4711 * i % 1000003) + "," + std::to_string(1000 + i) + ",P" + std::to_string(i % 40) + ",L" +
+               std::to_string(i % 3) + "," + (i % 3 == 0 ? "night" : "day") + "," + std::to_string(force) + "," + (i % 2 ? "9" : "7") + "," +
+               (force > 68.0 ? "1" : "0") + "\n";
+    }
+    return read_text(csv);
+}
+}  // namespace
+
+TEST_CASE("screen_columns: distinct values, identifier names, counters; a real categorical is not reported") {
+    const tenon::table t = press_log_table(200);
+    const auto findings = tenon::screen_columns(t, {}, {"fault"});
+    std::map<std::string, tenon::screening_reason> found;
+    for (const auto& f : findings) found.emplace(f.column, f.reason);
+    REQUIRE(found.size() == 3);
+    CHECK(found.at("serial") == tenon::screening_reason::distinct_values);
+    CHECK(found.at("cycle") == tenon::screening_reason::counter);
+    CHECK(found.at("part_id") == tenon::screening_reason::identifier_name);  // 40 values in 200 rows, named as an identifier
+    CHECK(found.count("line_id") == 0);  // 3 lines: a real feature despite the name
+    CHECK(found.count("shift") == 0);
+    CHECK(found.count("force") == 0);
+    CHECK(found.count("die") == 0);  // whole numbers, but not rising on every row
+    CHECK(findings.front().explanation() == "200 distinct values in 200 rows: nearly every value is distinct, as in an identifier");
+
+    // Too few rows for any rule to speak.
+    CHECK(tenon::screen_columns(press_log_table(19), {}, {"fault"}).empty());
+    // Names split into words: "PartSerialNo" is an identifier name, "width" is not.
+    CHECK(tenon::detail::name_words("PartSerialNo") == std::vector<std::string>{"part", "serial", "no"});
+    CHECK(tenon::detail::name_words("width") == std::vector<std::string>{"width"});
+    CHECK(tenon::detail::name_words("station_SN2") == std::vector<std::string>{"station", "sn"});
+
+    // Crowded categories: 30 operators in 200 rows (more than 10% of the rows) warn, without being identifiers.
+    std::string csv = "operator,amps\n";
+    for (int i = 0; i < 200; ++i) csv += "op" + std::to_string(i % 30) + "," + std::to_string(i % 7) + "\n";
+    const auto crowded = tenon::screen_columns(read_text(csv));
+    REQUIRE(crowded.size() == 1);
+    CHECK(crowded[0].reason == tenon::screening_reason::many_categories);
+    CHECK_FALSE(crowded[0].identifier());
+    CHECK(crowded[0].explanation() == "30 categories in 200 rows, about 6 rows per category: each one-hot input is learned from few rows");
+    CHECK(tenon::to_string(tenon::screening_reason::counter) == std::string("counter"));
 }
 
 TEST_CASE("kinds are inferred, missing tokens are missing, kinds can be forced") {
