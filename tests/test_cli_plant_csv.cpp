@@ -286,3 +286,17 @@ TEST_CASE("a model trained on a ';' file with decimal commas infers, retrains an
     CHECK(drift.status == 0);  // the training rows themselves: nothing drifted
     CHECK(drift.err.empty());
 }
+
+TEST_CASE("tenon train --help explains the options for plant files") {
+    const auto r = run({"train", "--help"});
+    CHECK(r.status == 0);
+    for (const char* option : {"--use COL,COL", "--categorical COL,COL", "--numeric COL,COL", "--delimiter D", "--decimal-comma"}) {
+        CAPTURE(std::string(option));
+        CHECK(r.out.find(std::string("  ") + option + " ") != std::string::npos);
+    }
+    for (const char* rule : {"2 to 20 distinct whole numbers", "95% of 20 or more rows", "more categories than 10% of\n                         the rows",
+                             "Thousands separators are never read"}) {
+        CAPTURE(std::string(rule));
+        CHECK(r.out.find(rule) != std::string::npos);
+    }
+}

@@ -454,8 +454,9 @@ Data
   --categorical COL,COL  read these columns as categories (a die coded 7 or 9).
   --numeric COL,COL      read these columns as numbers; the first cell that is
                          not one is reported.
-  --delimiter ,|;|tab||  the field delimiter. Default: told from the header and
-                         first rows among , ; tab and |; refused when two fit.
+  --delimiter D          the field delimiter: , ; tab or |. Default: told from
+                         the header and the first 200 rows; refused when two
+                         fit.
   --decimal-comma        read 59,8 as 59.8 (not with --delimiter ,). Default:
                          on when the delimiter is not a comma and cells such
                          as 59,8 appear. Thousands separators are never read:
