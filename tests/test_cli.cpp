@@ -457,7 +457,6 @@ prepared_split prepare_like_the_tool(const std::vector<std::string>& args) {
     const tenon::table t = tenon_cli::load_table(q);
     tenon_cli::training_setup s = tenon_cli::make_setup(t, q);
     const tenon::holdout_split split = tenon_cli::make_holdout(t, q, s);
-    tenon_cli::choose_feature_steps(t, s.recipe, split.train);
     const tenon::measured_plan plan = s.recipe.measure(t, split.train);
     prepared_split p;
     p.classify = s.classify;

@@ -411,6 +411,7 @@ TEST_CASE("the version-1 fixture file loads and predicts exactly what it did whe
     REQUIRE(m.plan);
     REQUIRE(m.metadata);
     CHECK(m.metadata->seed == 2024);
+    CHECK(m.history.empty());  // written before section HIST existed
     tenon::predictor<float> p(m);
     REQUIRE(p.is_classification());
     CHECK(p.class_names() == std::vector<std::string>{"cavitating", "ok", "worn"});

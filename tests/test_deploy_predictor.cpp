@@ -267,7 +267,7 @@ TEST_CASE("bad raw rows give statuses without throwing, and the throwing calls r
     CHECK(code_of([&] { p.predict_prepared(features.data(), 5); }) == "deploy.input.shape");
     CHECK_THROWS_WITH_AS(p.predict_named(no_head, 2), doctest::Contains("column 'head'"), tenon::error);
 
-    // The strict policy of the default plan refuses an unseen category.
+    // The strict steps of condition_plan() refuse an unseen category.
     trained<float> strict_run(condition_plan());
     tenon::predictor<float> strict(strict_run.model);
     CHECK(strict.try_predict_cells(oil, 1, out).code == tenon::input_status::unseen_category);

@@ -118,6 +118,14 @@ inline constexpr const char* model_unusable = "cli.model.unusable";
 enum class task_choice { automatic, classify, regress };
 enum class split_choice { automatic, random, stratified, chronological, grouped };
 
+/// The library's model and training defaults, which the tool's options
+/// start from (no copies of them here): a host calling fit_model with a
+/// default model_settings trains what `tenon train` trains.
+inline const tenon::model_settings& library_defaults() {
+    static const tenon::model_settings defaults;
+    return defaults;
+}
+
 struct train_request {
     std::string data_path;
     std::string target;
@@ -133,16 +141,16 @@ struct train_request {
     std::string group_column;
     tenon::split_fractions fractions{0.7, 0.15, 0.15};
     std::size_t folds = 0;  // 0 = single holdout
-    std::vector<std::size_t> hidden{64, 32};
-    tenon::activation hidden_activation = tenon::activation::relu;
+    std::vector<std::size_t> hidden = library_defaults().hidden;
+    tenon::activation hidden_activation = library_defaults().hidden_activation;
     bool loss_given = false;
-    tenon::loss_kind loss = tenon::loss_kind::l2;
-    tenon::update_kind update = tenon::update_kind::adam;
-    double learning_rate = 1e-3;
-    std::size_t epochs = 200;
-    std::size_t batch = 32;
-    std::size_t patience = 15;
-    std::uint64_t seed = 1;
+    tenon::loss_kind loss = library_defaults().loss;
+    tenon::update_kind update = library_defaults().update;
+    double learning_rate = library_defaults().learning_rate;
+    std::size_t epochs = library_defaults().epochs;
+    std::size_t batch = library_defaults().batch_size;
+    std::size_t patience = library_defaults().patience;
+    std::uint64_t seed = 1;  // one seed for the split, the weights and the batch order
     std::size_t threads = 1;
     bool keep_order = false;  // --keep-order: no shuffling
     std::string metrics_path;
@@ -831,25 +839,18 @@ inline training_setup make_setup(const tenon::table& t, const train_request& q) 
     return s;
 }
 
-/// Per-column steps: the median (numeric, date/time) or the most frequent
-/// category fills missing cells, and a missing indicator is added for columns
-/// with missing cells among `train_rows`. Only which rows are missing is
-/// looked at here; every statistic is measured later, by plan::measure.
-inline void choose_feature_steps(const tenon::table& t, tenon::plan& recipe, const std::vector<std::size_t>& train_rows) {
+/// Cross-validation only: every feature column with a missing cell anywhere
+/// in the table gets a missing indicator, so every fold's plan has the same
+/// layout. Everything else is the library's default steps (feature_steps:
+/// median or most frequent fill, z-scores, unseen categories as zeros, an
+/// indicator for a column with a missing training cell), which a holdout
+/// run uses as they are, so the tool and a host get the same model.
+inline void indicators_for_every_fold(const tenon::table& t, tenon::plan& recipe) {
     for (std::size_t k = 0; k < t.column_count(); ++k) {
         const tenon::column& c = t[k];
-        if (recipe.role_of(c.name()) != tenon::column_role::feature) continue;
-        tenon::feature_steps steps;
-        const bool categorical = c.kind() == tenon::column_kind::categorical;
-        steps.fill = categorical ? tenon::fill_method::most_frequent : tenon::fill_method::median;
-        steps.scaling = tenon::scaling_method::z_score;
-        steps.unseen = tenon::unseen_policy::all_zero;
-        for (auto r : train_rows) {
-            if (c.is_missing(r)) {
-                steps.missing_indicator = true;
-                break;
-            }
-        }
+        if (recipe.role_of(c.name()) != tenon::column_role::feature || c.missing_count() == 0) continue;
+        tenon::feature_steps steps = recipe.steps_of(c.name());
+        steps.missing_indicator = true;
         recipe.set_steps(c.name(), steps);
     }
 }
@@ -1375,7 +1376,6 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
                          const cli_environment& env, pending_output& metrics_file, pending_output& report_file,
                          pending_output& model_probe) {
     const tenon::holdout_split split = make_holdout(t, q, s);
-    choose_feature_steps(t, s.recipe, split.train);
 
     // The validation metric is RMSE in prepared units; the target's z-score
     // spread turns it back into the target's units for display.
@@ -1518,11 +1518,8 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
 inline int train_folds(const tenon::table& t, const train_request& q, training_setup& s, std::ostream& out, const cli_environment& env,
                        pending_output& metrics_file) {
     const std::vector<tenon::fold> folds = make_folds(t, q, s);
-    // Indicators for every column with a missing cell anywhere: each fold's
-    // plan is measured on its own rows, and a fixed layout keeps folds alike.
-    std::vector<std::size_t> all(t.row_count());
-    for (std::size_t r = 0; r < all.size(); ++r) all[r] = r;
-    choose_feature_steps(t, s.recipe, all);
+    // Each fold's plan is measured on its own rows; a fixed layout keeps folds alike.
+    indicators_for_every_fold(t, s.recipe);
 
     progress_printer progress(out, env.terminal, q.quiet, q.epochs, env.clock);
     std::vector<std::size_t> epochs_run;
@@ -2144,6 +2141,19 @@ inline std::string fill_text(const tenon::fill_value& f, tenon::column_kind kind
     }
 }
 
+inline std::string metadata_setting(const tenon::training_metadata& t, const char* key) {
+    for (const auto& kv : t.settings)
+        if (kv.first == key) return kv.second;
+    return std::string();
+}
+
+// "tenon train", or "retraining 2 (promoted over the weights before it)".
+inline std::string made_by(const tenon::training_metadata& t) {
+    if (metadata_setting(t, "origin") != "retraining") return "training";
+    const double n = t.metric("retrainings");
+    return "retraining" + (std::isfinite(n) ? " " + significant(n) : std::string()) + " (promoted over the weights before it)";
+}
+
 inline std::string inspect_text(const tenon::model_file_summary& m, const std::string& path) {
     std::string s = path + "\n";
     std::vector<std::string> ids;
@@ -2154,15 +2164,23 @@ inline std::string inspect_text(const tenon::model_file_summary& m, const std::s
 
     if (m.metadata) {
         const tenon::training_metadata& t = *m.metadata;
-        s += "\nProvenance\n";
+        s += "\nProvenance of the current weights\n";
+        s += "  made by      " + made_by(t) + "\n";
         s += "  created      " + utc_text(t.created_unix_seconds) + "\n";
         s += "  library      tenon " + t.library_version + "\n";
-        std::string data;
-        for (const auto& kv : t.settings)
-            if (kv.first == "data") data = kv.second + ", ";
-        s += "  data         " + data + "fingerprint " + hex64(t.data_fingerprint) + "\n";
-        s += "  rows         " + std::to_string(t.training_rows) + " training, " + std::to_string(t.validation_rows) + " validation, " +
-             std::to_string(t.dropped_rows) + " dropped for a missing target\n";
+        const std::string data = metadata_setting(t, "data");
+        s += "  data         " + (data.empty() ? std::string() : data + ", ") + "fingerprint " + hex64(t.data_fingerprint) + "\n";
+        if (metadata_setting(t, "origin") == "retraining") {
+            s += "  rows         " + std::to_string(t.training_rows) + " training (" + significant(t.metric("new_training_rows")) + " new, " +
+                 significant(t.metric("replay_training_rows")) + " from the replay sample), " + std::to_string(t.validation_rows) +
+                 " validation, " + significant(t.metric("gate_holdout_rows")) + " new rows held out for the gate, " +
+                 std::to_string(t.dropped_rows) + " new rows refused\n";
+            s += "  gate         " + metadata_setting(t, "gate_metric") + " " + significant(t.metric("gate_candidate_score")) +
+                 " against the replaced weights' " + significant(t.metric("gate_incumbent_score")) + " on the held-out new rows\n";
+        } else {
+            s += "  rows         " + std::to_string(t.training_rows) + " training, " + std::to_string(t.validation_rows) + " validation, " +
+                 std::to_string(t.dropped_rows) + " dropped for a missing target\n";
+        }
         s += "  seed         " + std::to_string(t.seed) + "\n";
         s += "  epochs       " + std::to_string(t.epochs_run) + " run of " + std::to_string(t.epochs_planned) + ", best " +
              std::to_string(t.best_epoch) + ", stopped: " + t.stop_reason + "; " + std::to_string(t.steps) + " steps; loss " + t.loss + "\n";
@@ -2229,6 +2247,20 @@ inline std::string inspect_text(const tenon::model_file_summary& m, const std::s
             s += buffer + kv.second + "\n";
         }
     }
+    if (!m.history.empty()) {
+        s += "\nHistory: " + std::to_string(m.history.size()) + " earlier " + (m.history.size() == 1 ? "training" : "trainings") +
+             " whose weights were replaced, oldest first\n";
+        for (std::size_t k = 0; k < m.history.size(); ++k) {
+            const tenon::training_metadata& t = m.history[k];
+            const std::string data = metadata_setting(t, "data");
+            s += "  " + std::to_string(k + 1) + ". " + utc_text(t.created_unix_seconds) + ", " + made_by(t) + ", data " +
+                 (data.empty() ? std::string() : data + ", ") + "fingerprint " + hex64(t.data_fingerprint) + ", " +
+                 std::to_string(t.training_rows) + " training rows\n";
+            std::vector<std::string> scores;
+            for (const auto& kv : t.metrics) scores.push_back(kv.first + " " + significant(kv.second));
+            if (!scores.empty()) s += "     " + join(scores, ", ") + "\n";
+        }
+    }
     return s;
 }
 
@@ -2249,10 +2281,28 @@ inline std::string inspect_json(const tenon::model_file_summary& m, const std::s
         j.count("epochs_planned", t.epochs_planned).count("epochs_run", t.epochs_run).count("best_epoch", t.best_epoch).count("steps", t.steps);
         j.count("training_rows", t.training_rows).count("validation_rows", t.validation_rows).count("dropped_rows", t.dropped_rows);
         j.text("stop_reason", t.stop_reason).text("loss", t.loss);
+        j.text("origin", metadata_setting(t, "origin").empty() ? "training" : metadata_setting(t, "origin"));
+        j.text("data", metadata_setting(t, "data"));
         j.close_object();
     } else {
         j.null("provenance");
     }
+    j.open_array("history");
+    for (const auto& t : m.history) {
+        j.open_object();
+        j.text("created", utc_text(t.created_unix_seconds)).text("library_version", t.library_version);
+        j.text("origin", metadata_setting(t, "origin").empty() ? "training" : metadata_setting(t, "origin"));
+        j.text("data", metadata_setting(t, "data")).text("data_fingerprint", hex64(t.data_fingerprint)).count("seed", t.seed);
+        j.count("training_rows", t.training_rows).count("validation_rows", t.validation_rows).count("dropped_rows", t.dropped_rows);
+        j.open_object("metrics");
+        for (const auto& kv : t.metrics) j.number(kv.first.c_str(), kv.second);
+        j.close_object();
+        j.open_object("settings");
+        for (const auto& kv : t.settings) j.text(kv.first.c_str(), kv.second);
+        j.close_object();
+        j.close_object();
+    }
+    j.close_array();
     if (m.plan) {
         const tenon::measured_plan& p = *m.plan;
         j.open_object("target");

@@ -47,17 +47,37 @@ TENON_NAMESPACE_BEGIN
 enum class column_role : std::uint8_t { feature = 0, target = 1, ignored = 2, group = 3, time = 4 };
 enum class target_kind : std::uint8_t { classification = 0, regression = 1 };
 
-/// What to do with one feature column.
+/// What to do with one feature column. The defaults are the tool's (`tenon
+/// train`), so a table gives the same model through the library and the
+/// tool: missing cells filled with the median (numbers, date/times) or the
+/// most frequent category, a missing indicator for a column with a missing
+/// cell among the training rows, z-scores, and categories unseen in
+/// training written as all zeros (the predictor flags them:
+/// range_flag::unseen_category). strict_feature_steps() refuses instead.
 struct feature_steps {
-    fill_method fill = fill_method::none;
+    fill_method fill = fill_method::automatic;
     double fill_number = 0.0;        // fill_method::constant, numeric and date/time columns
     std::string fill_text;           // fill_method::constant, categorical columns
-    bool missing_indicator = false;  // add a 0/1 "was missing" feature
+    bool missing_indicator = false;  // always add a 0/1 "was missing" feature
+    /// Add the indicator when a training row (with a target) has the cell
+    /// missing; decided when the plan is measured.
+    bool indicator_if_missing_in_training = true;
     scaling_method scaling = scaling_method::z_score;  // numeric and date/time columns
     double range_low = 0.0, range_high = 1.0;          // target range of min-max scaling
-    unseen_policy unseen = unseen_policy::fail;        // categorical columns
+    unseen_policy unseen = unseen_policy::all_zero;    // categorical columns
     bool drop_first = false;                           // categorical columns
 };
+
+/// Steps that refuse what the defaults repair: a missing cell raises
+/// prep.value.missing (the predictor returns deploy.input.missing_value), an
+/// unseen category prep.category.unseen; no missing indicator. Z-scores.
+inline feature_steps strict_feature_steps() {
+    feature_steps s;
+    s.fill = fill_method::none;
+    s.indicator_if_missing_in_training = false;
+    s.unseen = unseen_policy::fail;
+    return s;
+}
 
 /// Rows prepared by a measured plan. `rows[i]` is the table row that became
 /// row i (rows with a missing target are left out and counted).
@@ -241,7 +261,7 @@ public:
                                                   : detail::number_text(target->number(r), buffer);
                 const std::int64_t k = classes_.find(name);
                 if (k < 0)
-                    raise(codes::prep_unseen_category, where(t) + " row " + std::to_string(r) + ": the class '" +
+                    raise(codes::prep_unseen_category, t.row_place(r) + ": the class '" +
                                                            std::string(name) + "' of target '" + target_name_ +
                                                            "' was not seen in the training rows");
                 out.classes[i] = static_cast<std::uint32_t>(k);
@@ -534,14 +554,14 @@ private:
                 T* o = features.data() + i * width + f.offset;
                 const bool missing = c.is_missing(r);
                 if (missing && f.fill.method == fill_method::none)
-                    raise(codes::prep_value_missing, where(t) + " row " + std::to_string(r) + ", column '" + f.name +
+                    raise(codes::prep_value_missing, t.row_place(r) + ", column '" + f.name +
                                                          "': the cell is missing and the plan has no fill for it");
                 if (f.kind == column_kind::categorical) {
                     if (missing || category_map[c.code(r)] >= 0 || f.one_hot.policy() != unseen_policy::fail)
                         write_category(f, missing, missing ? -1 : category_map[c.code(r)],
                                        missing ? std::string_view() : std::string_view(c.category(r)), o, std::string());
                     else
-                        raise(codes::prep_unseen_category, where(t) + " row " + std::to_string(r) + ", column '" + f.name +
+                        raise(codes::prep_unseen_category, t.row_place(r) + ", column '" + f.name +
                                                                "': the category '" + c.category(r) +
                                                                "' was not seen in the training rows");
                 } else {
@@ -576,7 +596,9 @@ inline std::vector<std::pair<std::string, std::uint64_t>> shared_category_counts
 }
 
 // measure_fill over all participants' rows (same rules, same messages).
-inline fill_value shared_fill(const column& c, const std::vector<std::size_t>& rows, const feature_steps& s, statistics_exchange& ex) {
+inline fill_value shared_fill(const column& c, const std::vector<std::size_t>& rows, const feature_steps& steps, statistics_exchange& ex) {
+    feature_steps s = steps;
+    s.fill = resolve_fill(s.fill, c.kind());
     if (s.fill == fill_method::none || s.fill == fill_method::constant) return measure_fill(c, rows, s.fill, s.fill_number, s.fill_text);
     fill_value f;
     f.method = s.fill;
@@ -675,6 +697,12 @@ inline measured_plan plan::measure(const table& t, const std::vector<std::size_t
         f.name = c.name();
         f.kind = c.kind();
         f.indicator = s.missing_indicator;
+        if (!f.indicator && s.indicator_if_missing_in_training) {
+            std::vector<std::uint64_t> missing{0};
+            for (auto r : kept) missing[0] += c.is_missing(r) ? 1u : 0u;
+            if (exchange) exchange->sum_counts(missing);  // every participant decides alike
+            f.indicator = missing[0] > 0;
+        }
         f.fill = exchange ? detail::shared_fill(c, kept, s, *exchange) : measure_fill(c, kept, s.fill, s.fill_number, s.fill_text);
         if (c.kind() == column_kind::categorical) {
             std::vector<std::string> seen;
