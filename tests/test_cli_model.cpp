@@ -281,19 +281,19 @@ TEST_CASE("infer reads a model saved in double precision by a host") {
     scratch_dir dir("double_model");
     const auto data = dir.write("motor.csv", motor_csv(200, 4));
     const tenon::table t = tenon::read_csv_file(data);
-    tenon::plan recipe;
-    recipe.set_target("amps", tenon::target_kind::regression);
+    tenon::plan preparation;
+    preparation.set_target("amps", tenon::target_kind::regression);
     tenon::feature_steps filled;
     filled.fill = tenon::fill_method::median;
     filled.missing_indicator = true;
-    recipe.set_steps("speed", filled);
+    preparation.set_steps("speed", filled);
     std::vector<std::size_t> train(150), validation(50);
     for (std::size_t r = 0; r < 150; ++r) train[r] = r;
     for (std::size_t r = 0; r < 50; ++r) validation[r] = 150 + r;
     tenon::model_settings settings;
     settings.hidden = {8};
     settings.epochs = 5;
-    tenon::fitted_model<double> model = tenon::fit_model<double>(t, recipe, train, validation, settings);
+    tenon::fitted_model<double> model = tenon::fit_model<double>(t, preparation, train, validation, settings);
     tenon::save_model_file(dir.file("host.tnm"), tenon::make_model_file(model, t, train, settings));
     const auto r = run({"infer", "--model", dir.file("host.tnm"), "--data", data, "--out", dir.file("p.csv"), "--quiet"});
     REQUIRE(r.status == 0);
@@ -592,23 +592,23 @@ TEST_CASE("one table with missing targets and missing cells gives the same model
 
     // The README's path, with the tool's seed, epochs and ignored column.
     tenon::table rows = tenon::read_csv_file(data);
-    tenon::plan recipe;
-    recipe.set_target("fault", tenon::target_kind::classification);
-    recipe.set_role("note", tenon::column_role::ignored);
+    tenon::plan preparation;
+    preparation.set_target("fault", tenon::target_kind::classification);
+    preparation.set_role("note", tenon::column_role::ignored);
     auto labels = tenon::dense_codes(rows.at("fault"));  // rows without a label: a stratum of their own, dropped by fit_model
     auto split = tenon::stratified_holdout(labels, {0.7, 0.15, 0.15}, /*seed=*/7);
     tenon::model_settings settings;
     settings.seed = 7;
     settings.epochs = 12;
-    auto model = tenon::fit_model<float>(rows, recipe, split.train, split.validation, settings);
+    auto model = tenon::fit_model<float>(rows, preparation, split.train, split.validation, settings);
     CHECK(model.dropped_rows > 0);
     const auto from_library = tenon::make_model_file(model, rows, split.train, settings);
 
-    // The plans agree: the same fills (median, most frequent), indicators and categories.
+    // The plans agree: the same fills (median, mode), indicators and categories.
     REQUIRE(from_tool.plan);
     CHECK(from_tool.plan->to_bytes() == from_library.plan->to_bytes());
     CHECK(from_library.plan->feature_fill("ram_speed").method == tenon::fill_method::median);
-    CHECK(from_library.plan->feature_fill("die").method == tenon::fill_method::most_frequent);
+    CHECK(from_library.plan->feature_fill("die").method == tenon::fill_method::mode);
     CHECK(from_library.plan->feature_has_indicator("ram_speed"));
     CHECK(from_library.plan->feature_has_indicator("die"));
     CHECK_FALSE(from_library.plan->feature_has_indicator("oil_temp"));

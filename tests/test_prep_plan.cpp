@@ -257,6 +257,41 @@ TEST_CASE("the measured state round-trips through bytes exactly") {
     }
 }
 
+TEST_CASE("plan bytes store fill and scaling methods as codes that the renamed methods keep") {
+    // Plan bytes hold each method as a u8 code (docs/model-file-format.md,
+    // PLAN); bytes written when code 3 was called "most frequent" and
+    // "robust" read as mode and median-IQR.
+    CHECK(static_cast<int>(tenon::fill_method::mode) == 3);
+    CHECK(static_cast<int>(tenon::scaling_method::median_iqr) == 3);
+    tenon::feature_steps quartiles;
+    quartiles.scaling = tenon::scaling_method::median_iqr;
+    tenon::feature_steps category;
+    category.fill = tenon::fill_method::mode;
+    category.omit_reference_level = true;
+    tenon::plan p;
+    p.set_steps("flow", quartiles).set_steps("model", category).set_role("machine", tenon::column_role::ignored);
+    p.set_role("when", tenon::column_role::ignored).set_role("pressure", tenon::column_role::ignored);
+    p.set_target("verdict", tenon::target_kind::classification);
+    auto t = bench_table();
+    const auto bytes = p.measure(t, {0, 1, 2, 3, 4, 5, 6, 7}).to_bytes();
+    // The "model" feature's fill method and the "flow" feature's scaling
+    // method, found by their position after each name in the bytes.
+    const std::string text(bytes.begin(), bytes.end());
+    const std::size_t model_at = text.find(std::string("\x05\x00\x00\x00", 4) + "model");  // u32 length, then the name
+    const std::size_t flow_at = text.find(std::string("\x04\x00\x00\x00", 4) + "flow");
+    REQUIRE(model_at != std::string::npos);
+    REQUIRE(flow_at != std::string::npos);
+    CHECK(bytes[model_at + 9 + 1] == 3);  // after the name: kind, then the fill method
+    // After "flow": kind, fill method, fill number (8), empty fill text (4),
+    // indicator, then the scaling method.
+    CHECK(bytes[flow_at + 8 + 1 + 1 + 8 + 4 + 1] == 3);
+    const auto back = tenon::measured_plan::from_bytes(bytes);
+    CHECK(back.feature_fill("model").method == tenon::fill_method::mode);
+    CHECK(back.feature_fill("model").text == "A");  // the most frequent category among the training rows
+    CHECK(back.feature_scaling("flow").method == tenon::scaling_method::median_iqr);
+    CHECK(back.feature_categories("model").omit_reference_level());
+}
+
 TEST_CASE("corrupted plan bytes: each error code with its message") {
     auto m = bench_plan().measure(bench_table(), {0, 1, 2, 3});
     const auto good = m.to_bytes();

@@ -530,11 +530,13 @@ Model and training
                          a band as it computes the whole product.
 
 Output
-  --metrics OUT.json     write the metrics as JSON: task, rows (train, val, test,
-                         dropped), epochs_run, stop_reason, train_seconds (the
-                         training loop with validation; reading and preparing
-                         data excluded), and val and test scores (accuracy,
-                         macro_f1, log_loss; or rmse, mae, r2).
+  --metrics OUT.json     write the metrics as JSON: task, rows (training,
+                         validation, test, dropped), epochs_run, stop_reason,
+                         training_seconds (the training loop with validation;
+                         reading and preparing data excluded), validation and
+                         test scores (accuracy, macro_f1, log_loss; or rmse,
+                         mae, r2) and per_epoch records (epoch, training_loss,
+                         validation_loss, learning_rate); see the README.
   --report OUT.svg       write an SVG report: loss per epoch and, for
                          classification, the test confusion matrix.
   --model OUT.tnm        save the trained model (network, weights, the
@@ -714,7 +716,7 @@ inline tenon::table load_table(const train_request& q, std::vector<std::string>*
 struct training_setup {
     bool classify = false;
     split_choice split = split_choice::random;
-    tenon::plan recipe;
+    tenon::plan preparation;
     std::size_t target_missing = 0;
     /// One line each for the user: what was read or decided from the data.
     std::vector<std::string> notes;
@@ -816,10 +818,10 @@ inline training_setup make_setup(const tenon::table& t, const train_request& q) 
     if (s.split == split_choice::stratified && !s.classify)
         fail(cli_codes::option_conflict, "--split stratified needs a classification target; '" + q.target + "' is regressed");
 
-    s.recipe.set_target(q.target, s.classify ? tenon::target_kind::classification : tenon::target_kind::regression);
-    for (const auto& c : q.ignored) s.recipe.set_role(c, tenon::column_role::ignored);
-    if (!q.time_column.empty()) s.recipe.set_role(q.time_column, tenon::column_role::time);
-    if (!q.group_column.empty()) s.recipe.set_role(q.group_column, tenon::column_role::group);
+    s.preparation.set_target(q.target, s.classify ? tenon::target_kind::classification : tenon::target_kind::regression);
+    for (const auto& c : q.ignored) s.preparation.set_role(c, tenon::column_role::ignored);
+    if (!q.time_column.empty()) s.preparation.set_role(q.time_column, tenon::column_role::time);
+    if (!q.group_column.empty()) s.preparation.set_role(q.group_column, tenon::column_role::group);
 
     // Identifier-like columns are left out unless --use keeps them; crowded
     // categorical columns get a warning (tenon::screen_columns' rules).
@@ -829,7 +831,7 @@ inline training_setup make_setup(const tenon::table& t, const train_request& q) 
         if (!name->empty()) decided.push_back(*name);
     for (const auto& f : tenon::screen_columns(t, {}, decided)) {
         if (f.identifier()) {
-            s.recipe.set_role(f.column, tenon::column_role::ignored);
+            s.preparation.set_role(f.column, tenon::column_role::ignored);
             s.notes.push_back("note: leaving out '" + f.column + "' (" + f.explanation() + "); --use " + f.column + " keeps it");
         } else {
             s.notes.push_back("warning: '" + f.column + "' has " + f.explanation() + " (more categories than 10% of the rows); --ignore " +
@@ -845,13 +847,13 @@ inline training_setup make_setup(const tenon::table& t, const train_request& q) 
 /// median or most frequent fill, z-scores, unseen categories as zeros, an
 /// indicator for a column with a missing training cell), which a holdout
 /// run uses as they are, so the tool and a host get the same model.
-inline void indicators_for_every_fold(const tenon::table& t, tenon::plan& recipe) {
+inline void indicators_for_every_fold(const tenon::table& t, tenon::plan& preparation) {
     for (std::size_t k = 0; k < t.column_count(); ++k) {
         const tenon::column& c = t[k];
-        if (recipe.role_of(c.name()) != tenon::column_role::feature || c.missing_count() == 0) continue;
-        tenon::feature_steps steps = recipe.steps_of(c.name());
+        if (preparation.role_of(c.name()) != tenon::column_role::feature || c.missing_count() == 0) continue;
+        tenon::feature_steps steps = preparation.steps_of(c.name());
         steps.missing_indicator = true;
-        recipe.set_steps(c.name(), steps);
+        preparation.set_steps(c.name(), steps);
     }
 }
 
@@ -1132,11 +1134,12 @@ inline double steady_seconds() {
 
 /// Prints training progress. On a terminal one status line is redrawn in
 /// place:
-///   fold 2/5  ep  17/200 <######:..............>  loss 0.4132  val acc 0.9120  3.2s, <= 41.0s more
+///   fold 2 of 5 | epoch  17 of 200 <######:..............> training loss 0.4132 | validation accuracy 0.9120 | 3.2s, <= 41.0s more
 /// The gauge counts the epoch budget: '#' done, ':' the running epoch, '.'
 /// to come; the remaining time assumes every epoch up to the limit runs
 /// (early stopping can only shorten it, hence "<="). Elsewhere (a file, a
-/// pipe) it prints one plain line per finished epoch.
+/// pipe) it prints one plain line per finished epoch:
+///   epoch 17 of 200 | training loss 0.41320 | validation loss 0.39811 | validation accuracy 0.9120 | elapsed 3.2s
 class progress_printer {
 public:
     progress_printer(std::ostream& out, bool terminal, bool quiet, std::size_t epochs, std::function<double()> clock)
@@ -1159,7 +1162,7 @@ public:
         last_draw_ = -1.0;
         done_epochs_ = 0;
         last_line_ = 0;
-        loss_ = val_metric_ = std::numeric_limits<double>::quiet_NaN();
+        loss_ = validation_metric_ = std::numeric_limits<double>::quiet_NaN();
     }
 
     void on_batch(const tenon::batch_progress& b) {
@@ -1173,8 +1176,8 @@ public:
 
     void on_epoch(const tenon::epoch_summary& e) {
         done_epochs_ = e.epoch;
-        loss_ = e.train_loss;
-        val_metric_ = classify_ ? e.validation_metric : e.validation_metric * metric_scale_;
+        loss_ = e.training_loss;
+        validation_metric_ = classify_ ? e.validation_metric : e.validation_metric * metric_scale_;
         if (quiet_) return;
         const double elapsed = clock_() - start_;
         if (terminal_) {
@@ -1182,14 +1185,15 @@ public:
             draw(e.epoch, 0.0, elapsed);
             return;
         }
-        std::string line = prefix() + "epoch " + std::to_string(e.epoch) + "/" + std::to_string(epochs_) + "  train_loss " +
-                           detail::fixed(e.train_loss, 5);
+        // Our own layout: spelled-out fields separated by " | ".
+        std::string line = prefix() + "epoch " + std::to_string(e.epoch) + " of " + std::to_string(epochs_) + " | training loss " +
+                           detail::fixed(e.training_loss, 5);
         if (std::isfinite(e.validation_loss)) {
-            line += "  val_loss " + detail::fixed(e.validation_loss, 5);
-            line += classify_ ? "  val_accuracy " + detail::fixed(val_metric_, 4)
-                              : (metric_scale_ > 0 ? "  val_rmse " + detail::fixed(val_metric_, 4) : std::string());
+            line += " | validation loss " + detail::fixed(e.validation_loss, 5);
+            line += classify_ ? " | validation accuracy " + detail::fixed(validation_metric_, 4)
+                              : (metric_scale_ > 0 ? " | validation RMSE " + detail::fixed(validation_metric_, 4) : std::string());
         }
-        line += "  elapsed " + detail::duration_text(elapsed);
+        line += " | elapsed " + detail::duration_text(elapsed);
         out_ << line << '\n';
     }
 
@@ -1203,7 +1207,7 @@ public:
 
 private:
     std::string prefix() const {
-        return folds_ > 0 ? "fold " + std::to_string(fold_) + "/" + std::to_string(folds_) + "  " : std::string();
+        return folds_ > 0 ? "fold " + std::to_string(fold_) + " of " + std::to_string(folds_) + " | " : std::string();
     }
 
     void draw(std::size_t epochs_done, double within_epoch, double elapsed) {
@@ -1216,11 +1220,12 @@ private:
         std::string epoch_text = std::to_string(std::min(epochs_done + (within_epoch > 0 ? 1 : 0), epochs_));
         const std::string limit = std::to_string(epochs_);
         epoch_text.insert(0, limit.size() > epoch_text.size() ? limit.size() - epoch_text.size() : 0, ' ');
-        std::string line = prefix() + "ep " + epoch_text + "/" + limit + " <" + gauge + ">  loss " + detail::fixed(loss_, 4);
-        if (std::isfinite(val_metric_)) line += classify_ ? "  val acc " + detail::fixed(val_metric_, 4) : "  val rmse " + detail::fixed(val_metric_, 4);
+        std::string line = prefix() + "epoch " + epoch_text + " of " + limit + " <" + gauge + "> training loss " + detail::fixed(loss_, 4);
+        if (std::isfinite(validation_metric_))
+            line += classify_ ? " | validation accuracy " + detail::fixed(validation_metric_, 4) : " | validation RMSE " + detail::fixed(validation_metric_, 4);
         const double progress = static_cast<double>(epochs_done) + within_epoch;
         const double remaining = progress > 0 ? elapsed / progress * (static_cast<double>(epochs_) - progress) : NAN;
-        line += "  " + detail::duration_text(elapsed) + ", <= " + detail::duration_text(remaining) + " more";
+        line += " | " + detail::duration_text(elapsed) + ", <= " + detail::duration_text(remaining) + " more";
         const std::size_t shown = line.size();
         if (shown < last_line_) line.append(last_line_ - shown, ' ');  // wipe the tail of a longer previous line
         out_ << '\r' << line;
@@ -1237,7 +1242,7 @@ private:
     double metric_scale_ = 1.0;
     double start_ = 0, last_draw_ = -1;
     std::size_t done_epochs_ = 0, last_line_ = 0;
-    double loss_ = NAN, val_metric_ = NAN;
+    double loss_ = NAN, validation_metric_ = NAN;
 };
 
 // ---------------------------------------------------------------------------
@@ -1381,7 +1386,7 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
     // spread turns it back into the target's units for display.
     double metric_scale = 1.0;
     if (!s.classify) {
-        const tenon::scaling ts = s.recipe.measure(t, split.train).target_scaling();
+        const tenon::scaling ts = s.preparation.measure(t, split.train).target_scaling();
         metric_scale = std::abs(ts.inverse(1.0) - ts.inverse(0.0));
     }
     progress_printer progress(out, env.terminal, q.quiet, q.epochs, env.clock);
@@ -1403,7 +1408,7 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
         validation_rows = member_share(split.validation, *env.team);
     }
     tenon::fitted_model<float> model = while_members_train(env, [&] {
-        return tenon::fit_model<float>(t, s.recipe, env.team ? train_rows : split.train, env.team ? validation_rows : split.validation,
+        return tenon::fit_model<float>(t, s.preparation, env.team ? train_rows : split.train, env.team ? validation_rows : split.validation,
                                        settings);
     });
     progress.finish();
@@ -1420,7 +1425,7 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
         json_writer j;
         j.open_object();
         header_fields(j, q, s);
-        j.open_object("rows").count("total", t.row_count()).count("train", model.train_rows).count("val", model.validation_rows);
+        j.open_object("rows").count("total", t.row_count()).count("training", model.train_rows).count("validation", model.validation_rows);
         j.count("test", test.rows).count("dropped", dropped).close_object();
         j.count("features", model.plan.feature_count());
         if (s.classify) {
@@ -1431,13 +1436,14 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
         j.count("epochs_run", o.history.size());
         j.count("best_epoch", o.best_epoch);
         j.text("stop_reason", tenon::stop_reason_name(o.reason));
-        j.number("train_seconds", o.seconds);
-        if (has_validation) write_scores(j, "val", validation);
-        else j.null("val");
+        j.number("training_seconds", o.seconds);
+        if (has_validation) write_scores(j, "validation", validation);
+        else j.null("validation");
         write_scores(j, "test", test);
-        j.open_array("history");
+        j.open_array("per_epoch");
         for (const auto& e : o.history) {
-            j.open_object().count("epoch", e.epoch).number("train_loss", e.train_loss).number("val_loss", e.validation_loss).close_object();
+            j.open_object().count("epoch", e.epoch).number("training_loss", e.training_loss).number("validation_loss", e.validation_loss);
+            j.number("learning_rate", e.learning_rate).close_object();
         }
         j.close_array();
         j.close_object();
@@ -1447,7 +1453,7 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
         tenon::report_content r;
         r.title = "tenon train: " + q.target + " from " + std::filesystem::path(q.data_path).filename().string() + " (" +
                   (s.classify ? "classification, test accuracy " + fixed(test.accuracy, 4) : "regression, test RMSE " + fixed(test.rmse, 4)) + ")";
-        for (const auto& e : o.history) r.epochs.push_back({e.train_loss, e.validation_loss});
+        for (const auto& e : o.history) r.epochs.push_back({e.training_loss, e.validation_loss});
         r.kept_epoch = o.best_epoch;
         if (s.classify) {
             r.confusion = &test.classes.confusion;
@@ -1519,7 +1525,7 @@ inline int train_folds(const tenon::table& t, const train_request& q, training_s
                        pending_output& metrics_file) {
     const std::vector<tenon::fold> folds = make_folds(t, q, s);
     // Each fold's plan is measured on its own rows; a fixed layout keeps folds alike.
-    indicators_for_every_fold(t, s.recipe);
+    indicators_for_every_fold(t, s.preparation);
 
     progress_printer progress(out, env.terminal, q.quiet, q.epochs, env.clock);
     std::vector<std::size_t> epochs_run;
@@ -1540,7 +1546,7 @@ inline int train_folds(const tenon::table& t, const train_request& q, training_s
     settings.on_batch = [&](const tenon::batch_progress& b) { progress.on_batch(b); };
     const bool chronological = s.split == split_choice::chronological;
     const tenon::cross_validation_report report = while_members_train(
-        env, [&] { return tenon::cross_validate<float>(t, s.recipe, folds, settings, q.fractions.validation, chronological); });
+        env, [&] { return tenon::cross_validate<float>(t, s.preparation, folds, settings, q.fractions.validation, chronological); });
     progress.finish();
 
     std::size_t dropped = 0;
@@ -1554,7 +1560,7 @@ inline int train_folds(const tenon::table& t, const train_request& q, training_s
         j.open_array("epochs_run");
         for (auto e : epochs_run) j.count(nullptr, e);
         j.close_array();
-        j.number("train_seconds", seconds);
+        j.number("training_seconds", seconds);
         j.open_object("test");
         for (const auto& m : report.metrics) j.number(m.name.c_str(), m.mean);
         j.close_object();
@@ -2134,7 +2140,7 @@ inline void layers_json(json_writer& j, const tenon::layer_record& r) {
 inline std::string fill_text(const tenon::fill_value& f, tenon::column_kind kind) {
     switch (f.method) {
         case tenon::fill_method::none: return "refused";
-        case tenon::fill_method::most_frequent: return "most frequent '" + f.text + "'";
+        case tenon::fill_method::mode: return "mode '" + f.text + "'";
         case tenon::fill_method::constant:
             return kind == tenon::column_kind::categorical ? "constant '" + f.text + "'" : "constant " + column_value(kind, f.number);
         default: return std::string(tenon::to_string(f.method)) + " " + column_value(kind, f.number);

@@ -309,7 +309,7 @@ template <class T>
 std::vector<named_matrix<T>> read_weights(byte_reader& in) {
     std::vector<named_matrix<T>> weights(in.count(20, "weight matrices"));
     for (auto& nm : weights) {
-        nm.name = in.text();
+        nm.name = current_state_name(in.text());  // names of earlier files map to the current ones
         nm.values = get_matrix<T>(in);
     }
     return weights;
@@ -339,6 +339,12 @@ inline std::vector<std::uint8_t> metadata_payload(const training_metadata& m) {
     for (const auto& kv : m.settings) text("setting." + kv.first, kv.second);
     return out;
 }
+// The current name of a stored metric: earlier files wrote the last epoch's
+// training loss as "final_train_loss".
+inline std::string current_metric_name(const std::string& stored) {
+    return stored == "final_train_loss" ? std::string("final_training_loss") : stored;
+}
+
 inline training_metadata read_metadata(byte_reader& in) {
     training_metadata m;
     const std::size_t fields = in.count(6, "metadata fields");
@@ -365,7 +371,7 @@ inline training_metadata read_metadata(byte_reader& in) {
         else if (key == "data_fingerprint") m.data_fingerprint = n;
         else if (key == "stop_reason") m.stop_reason = s;
         else if (key == "loss") m.loss = s;
-        else if (key.rfind("metric.", 0) == 0 && type == 1) m.metrics.emplace_back(key.substr(7), d);
+        else if (key.rfind("metric.", 0) == 0 && type == 1) m.metrics.emplace_back(current_metric_name(key.substr(7)), d);
         else if (key.rfind("setting.", 0) == 0 && type == 2) m.settings.emplace_back(key.substr(8), s);
         // Other keys come from newer writers: skipped.
     }
@@ -507,7 +513,7 @@ std::vector<std::uint8_t> resume_payload(const resume_state<T>& s) {
     w.u32(static_cast<std::uint32_t>(p.history.size()));
     for (const auto& e : p.history) {
         w.u64(e.epoch);
-        w.f64(e.train_loss);
+        w.f64(e.training_loss);
         w.f64(e.validation_loss);
         w.f64(e.validation_metric);
         w.f64(e.learning_rate);
@@ -545,7 +551,7 @@ resume_state<T> read_resume(byte_reader& in) {
     p.history.resize(in.count(56, "history epochs"));
     for (auto& e : p.history) {
         e.epoch = static_cast<std::size_t>(in.u64());
-        e.train_loss = in.f64();
+        e.training_loss = in.f64();
         e.validation_loss = in.f64();
         e.validation_metric = in.f64();
         e.learning_rate = in.f64();
@@ -1003,7 +1009,7 @@ model_file<T> make_model_file(fitted_model<T>& model, const table& t, const std:
     meta.metrics.emplace_back("best_validation_loss", model.outcome.best_validation_loss);
     if (!model.outcome.history.empty()) {
         const epoch_summary& last = model.outcome.history.back();
-        meta.metrics.emplace_back("final_train_loss", last.train_loss);
+        meta.metrics.emplace_back("final_training_loss", last.training_loss);
         meta.metrics.emplace_back("final_validation_loss", last.validation_loss);
         meta.metrics.emplace_back("final_validation_metric", last.validation_metric);
     }

@@ -65,7 +65,7 @@ struct feature_steps {
     scaling_method scaling = scaling_method::z_score;  // numeric and date/time columns
     double range_low = 0.0, range_high = 1.0;          // target range of min-max scaling
     unseen_policy unseen = unseen_policy::all_zero;    // categorical columns
-    bool drop_first = false;                           // categorical columns
+    bool omit_reference_level = false;                 // categorical columns
 };
 
 /// Steps that refuse what the defaults repair: a missing cell raises
@@ -376,7 +376,7 @@ public:
             w.u8(f.indicator ? 1 : 0);
             write_scaling(w, f.scale);
             w.u8(static_cast<std::uint8_t>(f.one_hot.policy()));
-            w.u8(f.one_hot.drop_first() ? 1 : 0);
+            w.u8(f.one_hot.omit_reference_level() ? 1 : 0);
             w.u32(static_cast<std::uint32_t>(f.one_hot.categories().size()));
             for (const auto& c : f.one_hot.categories()) w.text(c);
         }
@@ -420,10 +420,10 @@ public:
             f.indicator = r.flag("missing indicator");
             f.scale = read_scaling(r);
             const auto policy = r.enumeration<unseen_policy>(2, "unseen-category policy");
-            const bool drop_first = r.flag("drop-first");
+            const bool omit_reference_level = r.flag("omit-reference-level");
             std::vector<std::string> categories(r.count(4, "categories"));
             for (auto& c : categories) c = r.text();
-            f.one_hot = one_hot_layout(std::move(categories), policy, drop_first);
+            f.one_hot = one_hot_layout(std::move(categories), policy, omit_reference_level);
         }
         if (r.flag("has-target")) {
             r.expect_tag(tag_target, "the target");
@@ -604,7 +604,7 @@ inline fill_value shared_fill(const column& c, const std::vector<std::size_t>& r
     f.method = s.fill;
     const auto nothing = [&] { raise(codes::prep_no_rows, "column '" + c.name() + "': no present values to learn a fill value from"); };
     if (c.kind() == column_kind::categorical) {
-        if (s.fill != fill_method::most_frequent) measure_fill(c, rows, s.fill);  // raises prep.column.kind as alone
+        if (s.fill != fill_method::mode) measure_fill(c, rows, s.fill);  // raises prep.column.kind as alone
         std::uint64_t best = 0;
         for (const auto& kv : shared_category_counts(c, rows, ex))  // sorted: the smallest name wins ties
             if (kv.second > best) {
@@ -644,13 +644,13 @@ inline fill_value shared_fill(const column& c, const std::vector<std::size_t>& r
 inline scaling shared_scaling(const column& c, const std::vector<std::size_t>& rows, scaling_method method, double low, double high,
                               statistics_exchange& ex) {
     if (method == scaling_method::none) return scaling{};
-    if (method == scaling_method::robust) {
+    if (method == scaling_method::median_iqr) {
         std::vector<double> v = ex.gather_values(present_values(c, rows));
         if (v.empty()) raise(codes::prep_no_rows, "column '" + c.name() + "': no present values for quartiles");
         quartile_summary q;
         q.median = exact_quantile(v, 0.5);
         q.interquartile_range = exact_quantile(v, 0.75) - exact_quantile(v, 0.25);
-        return robust_scaling(q);
+        return median_iqr_scaling(q);
     }
     const running_moments m = ex.merge_moments(column_moments(c, rows));
     if (m.count == 0) raise(codes::prep_no_rows, "column '" + c.name() + "': no present values to measure a scaling on");
@@ -716,7 +716,7 @@ inline measured_plan plan::measure(const table& t, const std::vector<std::size_t
             if (f.fill.method == fill_method::constant) seen.push_back(f.fill.text);
             if (seen.empty())
                 raise(codes::prep_no_rows, where + ", column '" + c.name() + "': no present category in the training rows");
-            f.one_hot = one_hot_layout(std::move(seen), s.unseen, s.drop_first);
+            f.one_hot = one_hot_layout(std::move(seen), s.unseen, s.omit_reference_level);
         } else {
             f.scale = exchange ? detail::shared_scaling(c, kept, s.scaling, s.range_low, s.range_high, *exchange)
                                : measure_scaling(c, kept, s.scaling, s.range_low, s.range_high);
