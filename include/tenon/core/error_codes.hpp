@@ -68,7 +68,9 @@
     X(prep_idx_compressed, "prep.idx.compressed",                                                     \
       "a gzip-compressed IDX file was given to the plain reader, or failed to decompress")       \
     X(prep_time_ambiguous, "prep.time.ambiguous",                                                     \
-      "a date column reads both day-first and month-first, and no time format says which")
+      "a date column reads both day-first and month-first, and no time format says which")      \
+    X(prep_csv_dialect_ambiguous, "prep.csv.dialect_ambiguous",                                      \
+      "the delimiter or the decimal mark of a CSV file cannot be told from its first rows")
 
 // layers/, losses/, update/: model components.
 #define TENON_ERROR_CODES_MODEL(X)                                                             \
