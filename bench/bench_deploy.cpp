@@ -5,12 +5,15 @@
 // the time to load a model file and build a predictor from it.
 //
 // Run: build/<dir>/bench/tenon_bench_deploy
+// (TENON_BENCH_SMOKE=1 in the environment shortens the throughput runs from
+// 1 s to 0.05 s each, for CI's brief run.)
 #include <benchmark/benchmark.h>
 
 #include <algorithm>
 #include <atomic>
 #include <chrono>
 #include <cstdio>
+#include <cstdlib>
 #include <sstream>
 #include <string>
 #include <thread>
@@ -230,7 +233,9 @@ int main(int argc, char** argv) {
     benchmark::Initialize(&argc, argv);
     benchmark::RunSpecifiedBenchmarks();
     benchmark::Shutdown();
-    const double one = throughput(1, 1.0), two = throughput(2, 1.0);
+    const char* smoke = std::getenv("TENON_BENCH_SMOKE");
+    const double seconds = smoke != nullptr && *smoke != '\0' && std::string(smoke) != "0" ? 0.05 : 1.0;
+    const double one = throughput(1, seconds), two = throughput(2, seconds);
     std::printf("throughput, one prepared row per call: 1 thread %.0f calls/s, 2 threads %.0f calls/s, ratio %.2f (ideal 2.00; %u hardware threads)\n",
                 one, two, two / one, std::thread::hardware_concurrency());
     std::printf("model file: %zu bytes\n", tenon::model_file_to_bytes(model().file).size());

@@ -3,6 +3,10 @@
 //
 //   mpirun -np 2 build/release/bench/tenon_bench_distributed
 //
+// With TENON_BENCH_SMOKE=1 in the environment (mpirun -x TENON_BENCH_SMOKE)
+// it trains on the first 2,560 images only, so that CI can run it briefly;
+// those numbers mean nothing.
+//
 // A plain MPI program rather than a Google Benchmark: its runs are
 // collective across processes. The reference runs in the same job: rank 0
 // trains the same epoch alone with the global batch (batch x ranks), then
@@ -23,8 +27,11 @@
 // result: 10 Gbit/s Ethernet (beta = 1.25e9 bytes/s) with alpha = 25 us per
 // message (common practice for TCP; from memory), and 100 Gbit/s
 // InfiniBand-class links (beta = 12.5e9 bytes/s, alpha = 2 us; from memory).
+#include <algorithm>
 #include <chrono>
 #include <cstdio>
+#include <cstdlib>
+#include <cstring>
 #include <string>
 #include <vector>
 
@@ -66,6 +73,14 @@ int main(int argc, char** argv) {
     rows.features = tenon::idx_images<float>(tenon::read_idx_gzip_file(folder + "train-images-idx3-ubyte.gz"));
     rows.labels.assign(labels.begin(), labels.end());
     rows.class_count = 10;
+    const char* smoke = std::getenv("TENON_BENCH_SMOKE");
+    if (smoke != nullptr && *smoke != '\0' && std::string(smoke) != "0") {
+        const std::size_t keep = std::min<std::size_t>(2560, rows.labels.size());
+        tenon::matrix<float> first({keep, 784});
+        std::memcpy(first.data(), rows.features.data(), keep * 784 * sizeof(float));
+        rows.features = std::move(first);
+        rows.labels.resize(keep);
+    }
     const std::vector<std::size_t> sizes = {784, 256, 128, 10};
     const tenon::initializer init{tenon::init_scheme::he, tenon::init_distribution::uniform};
 
@@ -101,7 +116,7 @@ int main(int argc, char** argv) {
         const double step = team_seconds / static_cast<double>(team_steps);
         const double compute = step - allreduce;
         const double bytes = static_cast<double>(values * sizeof(float));
-        std::printf("Fashion-MNIST epoch, 60000 rows, 784-256-128-10 relu, Adam, one thread per rank\n");
+        std::printf("Fashion-MNIST epoch, %zu rows, 784-256-128-10 relu, Adam, one thread per rank\n", rows.labels.size());
         std::printf("  1 process, batch %zu:        %.3f s (%llu steps)\n", batch * p, alone, static_cast<unsigned long long>(alone_steps));
         std::printf("  %zu ranks, batch %zu each:    %.3f s (%llu steps), weights identical on every rank: %s\n", p, batch, team_seconds,
                     static_cast<unsigned long long>(team_steps), agree ? "yes" : "NO");

@@ -14,6 +14,8 @@
 
 #include <tenon/tenon.hpp>
 
+#include "chi_square.hpp"
+
 namespace {
 
 // Runs f, which must throw tenon::error, and returns the error.
@@ -128,7 +130,10 @@ TEST_CASE_TEMPLATE("ensure_shape keeps the buffer when the shape holds; copy_int
 // random_engine. Expected values were computed with an independent Python
 // implementation of SplitMix64 (Steele, Lea & Flood 2014, fig. 3) and
 // xoshiro256** (Blackman & Vigna 2021, fig. 1 / the authors' reference C code)
-// written for this test from the published algorithms, not from tenon's code.
+// written for this test from the published algorithms, not from tenon's code:
+// tests/tools/random_reference.py (run `python3 tests/tools/random_reference.py`;
+// it prints each value and fails if one differs; ctest runs it as
+// tenon_random_reference when python3 is installed).
 
 TEST_CASE("SplitMix64 seeding matches the reference value for state 0") {
     // SplitMix64's first output from state 0 is 0xE220A8397B1DCDAF (from
@@ -218,10 +223,12 @@ TEST_CASE("below(n) is in range and unbiased") {
     CHECK(rng.below(1) == 0);
 
     // Pearson's chi-square goodness-of-fit over 10 equally likely values
-    // (Pearson 1900). 9 degrees of freedom: the 0.1% critical value is 27.877
-    // (from memory, chi-square tables such as the NIST/SEMATECH e-Handbook of
-    // Statistical Methods, section 1.3.6.7.4; the survival function at 27.877
-    // was confirmed as 0.0010 with a Python series for the incomplete gamma).
+    // (Pearson 1900). 9 degrees of freedom: the 0.1% critical value, computed
+    // by tests/chi_square.hpp; chi-square tables give 27.877 (from memory,
+    // e.g. the NIST/SEMATECH e-Handbook of Statistical Methods, section
+    // 1.3.6.7.4), which the computed value must round to.
+    const double critical_9 = chi_square::upper_quantile(9, 0.001);
+    CHECK(critical_9 == doctest::Approx(27.877).epsilon(2e-5));
     const std::size_t bins = 10, draws = 200000;
     std::vector<double> counts(bins, 0.0);
     for (std::size_t i = 0; i < draws; ++i) {
@@ -232,12 +239,15 @@ TEST_CASE("below(n) is in range and unbiased") {
     const double expected = static_cast<double>(draws) / static_cast<double>(bins);
     double chi2 = 0.0;
     for (double c : counts) chi2 += (c - expected) * (c - expected) / expected;
-    CHECK(chi2 < 27.877);
+    CHECK(chi2 < critical_9);
 
     // A bound near 2^64 exposes the bias of the modulo method: with
     // n = 3 * 2^62, x mod n puts half of all draws in [0, 2^62). An unbiased
     // method gives each third of [0, n) probability 1/3. Two degrees of
-    // freedom: the 0.1% critical value is 13.816 (same sources as above).
+    // freedom: the 0.1% critical value is -2 ln(0.001) = 13.816 (Q(1, z) =
+    // e^(-z) in tests/chi_square.hpp).
+    const double critical_2 = chi_square::upper_quantile(2, 0.001);
+    CHECK(critical_2 == doctest::Approx(-2.0 * std::log(0.001)).epsilon(1e-12));
     const std::uint64_t n = 3ull << 62;
     const std::size_t big_draws = 30000;
     double thirds[3] = {0.0, 0.0, 0.0};
@@ -249,7 +259,7 @@ TEST_CASE("below(n) is in range and unbiased") {
     const double third = static_cast<double>(big_draws) / 3.0;
     double chi2_thirds = 0.0;
     for (double c : thirds) chi2_thirds += (c - third) * (c - third) / third;
-    CHECK(chi2_thirds < 13.816);
+    CHECK(chi2_thirds < critical_2);
 
     const tenon::error e = expect_error([&] { rng.below(0); });
     CHECK(e.code() == "core.argument.invalid");

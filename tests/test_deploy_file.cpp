@@ -3,6 +3,7 @@
 // and the committed version-1 fixture.
 #include <doctest/doctest.h>
 
+#include <algorithm>
 #include <cmath>
 #include <cstdio>
 #include <filesystem>
@@ -53,18 +54,60 @@ std::string code_of_loading(const std::vector<std::uint8_t>& bytes, const tenon:
 
 }  // namespace
 
+// CRC-32 from its definition, one bit at a time: the message's polynomial,
+// bits taken least significant first (reflected), divided by the generator
+// 0x04C11DB7 (0xEDB88320 reflected), with the register starting at all ones
+// and the remainder inverted (IEEE 802.3's frame check sequence).
+namespace {
+std::uint32_t crc32_by_division(const unsigned char* data, std::size_t size) {
+    std::uint32_t r = 0xFFFFFFFFu;
+    for (std::size_t i = 0; i < size; ++i) {
+        r ^= data[i];
+        for (int bit = 0; bit < 8; ++bit) r = (r & 1u) ? (r >> 1) ^ 0xEDB88320u : r >> 1;
+    }
+    return ~r;
+}
+}  // namespace
+
 TEST_CASE("CRC-32 gives the IEEE 802.3 check value and continues across pieces") {
     const char* digits = "123456789";
-    CHECK(tenon::crc32(digits, 9) == 0xCBF43926u);  // check value of CRC-32/IEEE (from memory)
+    const auto* bytes = reinterpret_cast<const unsigned char*>(digits);
+    // The check value of CRC-32 over "123456789" is 0xCBF43926 (Williams
+    // 1993, "A Painless Guide to CRC Error Detection Algorithms", the CRC-32
+    // parameter set in its catalogue of standards; from memory), and the
+    // division above computes it independently.
+    CHECK(crc32_by_division(bytes, 9) == 0xCBF43926u);
+    CHECK(tenon::crc32(digits, 9) == 0xCBF43926u);
     CHECK(tenon::crc32_update(tenon::crc32(digits, 4), digits + 4, 5) == 0xCBF43926u);
     CHECK(tenon::crc32(digits, 0) == 0u);
+    // Every length of a longer message with all byte values, against the division.
+    std::vector<unsigned char> all(600);
+    for (std::size_t i = 0; i < all.size(); ++i) all[i] = static_cast<unsigned char>(i * 7 + 3);
+    for (std::size_t n = 0; n <= all.size(); n += 37) CHECK(tenon::crc32(all.data(), n) == crc32_by_division(all.data(), n));
 }
 
 TEST_CASE("FNV-1a 64 gives the published values for the empty string and 'a'") {
+    // The 64-bit FNV prime is 2^40 + 2^8 + 0xB3 and the offset basis is the
+    // FNV-0 hash (start at 0; multiply, then xor each byte) of the 32 bytes
+    // "chongo <Landon Curt Noll> /\../\" (Fowler, Noll & Vo; IETF draft
+    // draft-eastlake-fnv, "The FNV Non-Cryptographic Hash Algorithm", the
+    // sections on the FNV primes and offset bases; from memory). Both are
+    // derived here; the published basis 0xcbf29ce484222325 and FNV-1a 64 of
+    // "a" 0xaf63dc4c8601ec8c (from memory) must come out.
+    const std::uint64_t prime = (1ull << 40) + (1ull << 8) + 0xB3u;
+    CHECK(prime == 1099511628211ull);
+    const std::string signature = "chongo <Landon Curt Noll> /\\../\\";
+    REQUIRE(signature.size() == 32);
+    std::uint64_t basis = 0;
+    for (const char c : signature) basis = (basis * prime) ^ static_cast<unsigned char>(c);
+    CHECK(basis == 0xcbf29ce484222325ull);
+    const std::uint64_t of_a = (basis ^ static_cast<unsigned char>('a')) * prime;  // FNV-1a: xor, then multiply
+    CHECK(of_a == 0xaf63dc4c8601ec8cull);
+
     tenon::fnv1a_64 h;
-    CHECK(h.value() == 0xcbf29ce484222325ull);  // offset basis (from memory)
+    CHECK(h.value() == basis);
     h.add("a", 1);
-    CHECK(h.value() == 0xaf63dc4c8601ec8cull);  // FNV-1a 64 of "a" (from memory)
+    CHECK(h.value() == of_a);
 }
 
 TEST_CASE("the training fingerprint depends on the training cells only") {
@@ -155,6 +198,20 @@ TEST_CASE("every single-byte change of a small model file is refused with a depl
     CHECK(codes_seen["deploy.model.checksum"] > 0);
     CHECK(codes_seen["deploy.model.magic"] == 16);  // the 8 magic bytes, two changes each
     MESSAGE("single-byte changes tried: " << 2 * bytes.size() << " of a " << bytes.size() << "-byte file");
+}
+
+TEST_CASE("a changed weight byte is refused by the WGHT section's checksum") {
+    const auto bytes = tenon::model_file_to_bytes(small_model_file<float>(false));
+    const auto summary = tenon::inspect_model_bytes(bytes);
+    const auto weights = std::find_if(summary.sections.begin(), summary.sections.end(), [](const auto& s) { return s.id == "WGHT"; });
+    REQUIRE(weights != summary.sections.end());
+    REQUIRE(weights->length > 8);
+    auto damaged = bytes;
+    // A byte in the middle of the payload: the section's framing stays valid.
+    damaged[static_cast<std::size_t>(weights->offset + weights->length / 2)] ^= 0x10;
+    CHECK(code_of_loading(damaged) == "deploy.model.checksum");
+    CHECK_THROWS_WITH_AS(tenon::model_file_from_bytes<float>(damaged), doctest::Contains("section 'WGHT' fails its checksum"), tenon::error);
+    CHECK(code_of_loading(bytes) == "loaded");
 }
 
 TEST_CASE("every truncation of a small model file is refused") {

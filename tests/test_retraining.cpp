@@ -6,6 +6,7 @@
 // the old one.
 #include <doctest/doctest.h>
 
+#include <algorithm>
 #include <cmath>
 #include <cstdio>
 #include <fstream>
@@ -13,6 +14,7 @@
 #include <set>
 #include <sstream>
 #include <string>
+#include <utility>
 #include <vector>
 
 #include <unistd.h>
@@ -21,6 +23,7 @@
 #include <tenon/deploy/model_file.hpp>
 #include <tenon/deploy/retraining.hpp>
 
+#include "chi_square.hpp"
 #include "retraining_test_support.hpp"
 
 namespace {
@@ -102,6 +105,28 @@ double power_rmse(const tenon::model_file<T>& file, const tenon::table& t) {
     return tenon::score_values(truth, predicted).rmse;
 }
 
+// The accuracy of a classification model on all rows of `t`, and the share
+// of the most frequent class there: the accuracy of always guessing that
+// class, the best any constant guess can do on these rows.
+template <class T>
+std::pair<double, double> accuracy_and_majority_share(const tenon::model_file<T>& file, const tenon::table& t) {
+    auto net = tenon::rebuild_network(file);
+    const auto prepared = file.plan->template apply<T>(t, retrain_test::all_rows(t));
+    const auto out = tenon::network_outputs(net, prepared.features);
+    const std::size_t n = prepared.classes.size(), k = out.shape()[1];
+    std::vector<std::size_t> counts(k, 0);
+    std::size_t right = 0;
+    for (std::size_t i = 0; i < n; ++i) {
+        std::size_t best = 0;
+        for (std::size_t j = 1; j < k; ++j)
+            if (out(i, j) > out(i, best)) best = j;
+        right += best == prepared.classes[i] ? 1 : 0;
+        ++counts.at(prepared.classes[i]);
+    }
+    const double most = static_cast<double>(*std::max_element(counts.begin(), counts.end()));
+    return {static_cast<double>(right) / static_cast<double>(n), most / static_cast<double>(n)};
+}
+
 // Pearson's (1900) statistic sum (O - E)^2 / E over inclusion counts.
 double pearson(const std::vector<double>& observed, double expected) {
     double x = 0.0;
@@ -110,8 +135,9 @@ double pearson(const std::vector<double>& observed, double expected) {
 }
 
 // The 0.999 quantile of the chi-square distribution with 19 degrees of
-// freedom (from memory; tables give 43.82).
-constexpr double chi_square_19_999 = 43.82;
+// freedom, computed by tests/chi_square.hpp (tables give 43.82, from memory;
+// the test below checks that the two agree).
+const double chi_square_19_999 = chi_square::upper_quantile(19, 0.001);
 
 // A file system that fails renaming onto one path, for fault injection.
 class failing_rename : public tenon::native_file_system {
@@ -131,6 +157,7 @@ private:
 // --- the reservoir ---------------------------------------------------------------------------
 
 TEST_CASE("reservoir sampling keeps each item with equal probability (chi-square over seeded runs)") {
+    CHECK(chi_square_19_999 == doctest::Approx(43.82).epsilon(1e-4));  // the tabulated value, to its digits
     const std::uint64_t population = 20;
     const int runs = 4000;
     SUBCASE("one slot: the inclusion counts are multinomial, Pearson's statistic is chi-square with 19 df") {
@@ -260,6 +287,13 @@ TEST_CASE_TEMPLATE("retraining: an equally good candidate is kept out, a clearly
         CHECK(r.report.promoted);
         CHECK(r.report.decision == "promoted");
         CHECK(r.report.candidate_score >= r.report.incumbent_score + 0.1);
+        // The incumbent is weak on purpose (one epoch), so beating it says
+        // little; the candidate must also clearly beat always guessing the
+        // most frequent condition, on 1,000 rows it has never seen.
+        const auto unseen = retrain_test::pump_rows(1000, 12);
+        const auto [accuracy, majority] = accuracy_and_majority_share(r.candidate, unseen);
+        MESSAGE("1,000 unseen rows: candidate accuracy " << accuracy << ", majority-class share " << majority);
+        CHECK(accuracy >= majority + 0.1);
         CHECK(r.report.holdout_rows == 120);  // 20% of 600, more than the minimum of 30
         CHECK(r.report.replay_rows == 240);   // the incumbent's whole training split (fewer than 256)
         CHECK(r.report.new_training_rows == 480);

@@ -107,7 +107,14 @@ TEST_CASE_TEMPLATE("early stopping stops after `patience` stale epochs and resto
     double loss = 0, metric = 0;
     tr.assess(val, loss, metric);
     CHECK(loss == doctest::Approx(out.best_validation_loss).epsilon(1e-6));
-    for (const auto& e : out.history) CHECK(e.validation_loss >= out.best_validation_loss);
+    // The kept epoch is the first epoch of least validation loss in the
+    // history (with min_improvement 0 any lower loss is an improvement), and
+    // the loss reported as the best is that epoch's recorded loss.
+    std::size_t first_least = 0;
+    for (std::size_t i = 1; i < out.history.size(); ++i)
+        if (out.history[i].validation_loss < out.history[first_least].validation_loss) first_least = i;
+    CHECK(out.best_epoch == first_least + 1);
+    CHECK(out.history[out.best_epoch - 1].validation_loss == out.best_validation_loss);
 }
 
 TEST_CASE("the time budget is read from the injected clock") {
