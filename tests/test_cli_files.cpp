@@ -478,3 +478,63 @@ TEST_CASE("as an unprivileged user: unreadable inputs, a read-only directory and
     ::chmod(p.dir.file("").c_str(), 0755);
 }
 #endif
+
+// ---------------------------------------------------------------------------
+// Column kinds: a few bad cells never change a column's kind silently.
+
+namespace {
+
+// 300 rows: an ISO date column, a reading with `na_share` of its cells
+// written "n/a", and a numeric target.
+std::string dated_csv(const std::string& bad_date, std::size_t bad_row, std::size_t na_every) {
+    std::string csv = "day,reading,output\n";
+    for (std::size_t i = 0; i < 300; ++i) {
+        char day[16];
+        std::snprintf(day, sizeof day, "2024-%02zu-%02zu", 1 + (i / 28) % 12, 1 + i % 28);
+        const std::string reading = na_every && i % na_every == 0 ? "n/a" : std::to_string(10.0 + static_cast<double>(i % 17));
+        csv += (i == bad_row ? bad_date : std::string(day)) + "," + reading + "," + std::to_string(static_cast<double>(i % 17) * 2.0) + "\n";
+    }
+    return csv;
+}
+
+}  // namespace
+
+TEST_CASE("one bad timestamp among 300 rows is reported with its file, line and value instead of making the column categorical") {
+    scratch_dir dir("bad_timestamp");
+    const auto data = dir.write("log.csv", dated_csv("2024-13-45", 122, 0));
+    const auto r = run({"train", "--data", data, "--target", "output", "--epochs", "1"});
+    CHECK(r.status == 2);
+    CHECK(r.err == "tenon train: error: [prep.cell.not_datetime] " + data + " line 124 column 1 ('day'): '2024-13-45' is not a date/time\n");
+}
+
+TEST_CASE("the usual missing spellings (n/a, -, none, ...) read as missing: a numeric column with 15% n/a stays numeric, in train and infer") {
+    scratch_dir dir("missing_tokens");
+    const auto data = dir.write("log.csv", dated_csv("2024-01-01", 0, 7));
+    const auto model = dir.file("m.tnm");
+    const auto metrics = dir.file("m.json");
+    const auto r = run({"train", "--data", data, "--target", "output", "--epochs", "1", "--model", model, "--metrics", metrics, "--quiet"});
+    REQUIRE(r.status == 0);
+    CHECK(r.err.empty());
+    // As many features as with the same cells left empty (missing by any
+    // reading), not one per distinct text as a categorical column would give.
+    std::string blank = read_file(data);
+    for (std::size_t at; (at = blank.find("n/a")) != std::string::npos;) blank.erase(at, 3);
+    const auto blank_data = dir.write("blank.csv", blank);
+    const auto blank_metrics = dir.file("blank.json");
+    REQUIRE(run({"train", "--data", blank_data, "--target", "output", "--epochs", "1", "--metrics", blank_metrics, "--quiet"}).status == 0);
+    CHECK(cli_test::json_flattener(read_file(metrics)).values.at("features") == cli_test::json_flattener(read_file(blank_metrics)).values.at("features"));
+    dir.write("new.csv", "day,reading\n2024-02-03,n/a\n2024-02-04,-\n2024-02-05,none\n2024-02-06,12\n");
+    const auto inferred = run({"infer", "--model", model, "--data", dir.file("new.csv"), "--out", "-"});
+    CHECK(inferred.status == 0);
+    CHECK(std::count(inferred.out.begin(), inferred.out.end(), '\n') == 5);
+}
+
+TEST_CASE("a column mostly of numbers that stays categorical is named in a warning") {
+    scratch_dir dir("kind_warning");
+    std::string csv = "code,output\n";
+    for (int i = 0; i < 100; ++i) csv += (i % 3 == 0 ? "X" + std::to_string(i % 5) : std::to_string(i % 9)) + "," + std::to_string(i % 4) + ".5\n";
+    const auto data = dir.write("log.csv", csv);
+    const auto r = run({"train", "--data", data, "--target", "output", "--epochs", "1", "--quiet"});
+    CHECK(r.status == 0);
+    CHECK(r.err == "tenon train: warning: column 'code' is read as categorical (11 categories), although 66% of its cells read as numbers\n");
+}

@@ -444,10 +444,13 @@ Usage: tenon train --data FILE.csv --target COLUMN [options]
 Data
   --data FILE.csv        CSV file with a header row (required). Column kinds are
                          inferred: numeric, date/time, or categorical. Empty
-                         cells, NA, NaN, null and ? read as missing. A column
-                         whose cells are numbers except for a few (under 10%)
-                         is taken for a numeric column with typos: the first
-                         bad cell is reported.
+                         cells, NA, N/A, n/a, na, NaN, nan, null, NULL, none,
+                         None, -, --, #N/A, missing and ? read as missing. A
+                         column whose cells are numbers (or dates/times)
+                         except for a few (under 10%) is taken for a numeric
+                         (date/time) column with typos: the first bad cell is
+                         reported. A column at least half numbers or dates
+                         that stays categorical is named in a warning.
   --target COLUMN        the column the model learns (required). Rows whose target
                          is missing are left out and counted as dropped.
   --task auto|classify|regress
@@ -622,13 +625,44 @@ inline double numeric_share(const tenon::column& c) {
     return present ? static_cast<double>(numbers) / static_cast<double>(present) : 0.0;
 }
 
+// Share of the present cells of a categorical column that read as dates/times.
+inline double datetime_share(const tenon::column& c) {
+    std::vector<char> is_time(c.categories().size());
+    for (std::size_t k = 0; k < is_time.size(); ++k) {
+        double v = 0;
+        is_time[k] = tenon::parse_datetime(c.categories()[k], v) ? 1 : 0;
+    }
+    std::size_t present = 0, times = 0;
+    for (std::size_t r = 0; r < c.size(); ++r) {
+        if (c.is_missing(r)) continue;
+        ++present;
+        times += static_cast<std::size_t>(is_time[c.code(r)]);
+    }
+    return present ? static_cast<double>(times) / static_cast<double>(present) : 0.0;
+}
+
 }  // namespace detail
 
+/// The cell texts the tool reads as missing: the library's defaults and the
+/// other spellings that spreadsheet and plant exports commonly write (common
+/// practice, not a standard). Models made by the tool store this list in
+/// their plan, so `tenon infer` reads the same cells as missing.
+inline std::vector<std::string> missing_tokens() {
+    std::vector<std::string> tokens = tenon::default_missing_tokens();
+    for (const char* extra : {"n/a", "na", "nan", "NAN", "none", "None", "NONE", "-", "--", "#N/A", "missing"})
+        if (std::find(tokens.begin(), tokens.end(), extra) == tokens.end()) tokens.push_back(extra);
+    return tokens;
+}
+
 /// Reads the CSV file. A regression target, and any column whose cells are
-/// numbers but for a few, are read as numeric so that the library names the
-/// first cell that is not a number (file, line, column, value).
-inline tenon::table load_table(const train_request& q) {
+/// numbers (or dates/times) but for a few (at least 90% of the present
+/// cells), are read as numeric (date/time) so that the library names the
+/// first cell that is not (file, line, column, value): a typo never turns a
+/// column categorical silently. A column that is at least half numbers or
+/// dates but stays categorical gets a warning on `warnings`.
+inline tenon::table load_table(const train_request& q, std::ostream* warnings = nullptr) {
     tenon::csv_options options;
+    options.missing_tokens = missing_tokens();
     if (q.task == task_choice::regress) options.forced_kinds[q.target] = tenon::column_kind::numeric;
     tenon::table t = [&] {
         try {
@@ -648,6 +682,19 @@ inline tenon::table load_table(const train_request& q) {
         if (share >= 0.9 && share < 1.0) {
             options.forced_kinds[c.name()] = tenon::column_kind::numeric;
             reread = true;
+            continue;
+        }
+        const double times = detail::datetime_share(c);
+        if (times >= 0.9 && times < 1.0) {
+            options.forced_kinds[c.name()] = tenon::column_kind::datetime;  // raises prep.cell.not_datetime at the first bad cell
+            reread = true;
+            continue;
+        }
+        if (warnings && (share >= 0.5 || times >= 0.5)) {
+            const bool numbers = share >= times;
+            *warnings << "tenon train: warning: column '" << c.name() << "' is read as categorical ("
+                      << c.categories().size() << " categories), although " << std::lround(100.0 * (numbers ? share : times))
+                      << "% of its cells read as " << (numbers ? "numbers" : "dates/times") << "\n";
         }
     }
     if (reread) t = tenon::read_csv_file(q.data_path, options);  // raises prep.cell.not_numeric at the first bad cell
@@ -720,6 +767,7 @@ inline training_setup make_setup(const tenon::table& t, const train_request& q) 
         fail(cli_codes::option_conflict, "--split stratified needs a classification target; '" + q.target + "' is regressed");
 
     s.recipe.set_target(q.target, s.classify ? tenon::target_kind::classification : tenon::target_kind::regression);
+    s.recipe.set_missing_tokens(missing_tokens());
     for (const auto& c : q.ignored) s.recipe.set_role(c, tenon::column_role::ignored);
     if (!q.time_column.empty()) s.recipe.set_role(q.time_column, tenon::column_role::time);
     if (!q.group_column.empty()) s.recipe.set_role(q.group_column, tenon::column_role::group);
@@ -1442,7 +1490,7 @@ inline int run_train(const std::vector<std::string>& args, std::ostream& out, st
             roster.check();
             // An output on standard output: the summary would mix with it.
             if (metrics_file.to_standard_output() || report_file.to_standard_output() || model_probe.to_standard_output()) q.quiet = true;
-            t = load_table(q);
+            t = load_table(q, &err);
             s = make_setup(t, q);
         }
     } catch (...) {
@@ -1597,8 +1645,9 @@ Usage: tenon infer --model MODEL.tnm --data NEW.csv --out PREDICTIONS.csv [optio
   --data NEW.csv         CSV file with a header row (required). It must hold
                          every column the model reads (tenon inspect lists
                          them), in any order; other columns, the target among
-                         them, are ignored. Empty cells, NA, NaN, null and ?
-                         read as missing and are filled as in training.
+                         them, are ignored. The cells training read as
+                         missing (see tenon train --help) read as missing and
+                         are filled as in training.
   --out PREDICTIONS.csv  where to write the predictions (required); '-' or
                          /dev/stdout: standard output.
   --keep COL,COL         columns of NEW.csv copied unchanged to the front of
@@ -2467,8 +2516,10 @@ inline std::string absent_columns(const tenon::table& t, const std::vector<std::
     return join(absent, ", ");
 }
 
-inline tenon::table read_new_rows(const std::string& path) {
-    tenon::table t = tenon::read_csv_file(path);
+inline tenon::table read_new_rows(const std::string& path, const tenon::measured_plan* plan) {
+    tenon::csv_options options;
+    options.missing_tokens = plan ? plan->missing_tokens() : missing_tokens();  // as the model reads cells
+    tenon::table t = tenon::read_csv_file(path, options);
     if (t.row_count() == 0) fail(cli_codes::data_empty, path + ": no data rows below the header");
     return t;
 }
@@ -2556,7 +2607,7 @@ inline int run_retrain(const std::vector<std::string>& args, std::ostream& out, 
     const tenon::model_file_summary summary = tenon::inspect_model_bytes(bytes, limits, q.model_path);
     if (!summary.plan || !summary.plan->has_target())
         fail(cli_codes::model_unusable, q.model_path + ": the model holds no preparation plan with a target, so it cannot be retrained");
-    const tenon::table t = detail::read_new_rows(q.data_path);
+    const tenon::table t = detail::read_new_rows(q.data_path, summary.plan ? &*summary.plan : nullptr);
     std::vector<std::string> needed = summary.plan->input_columns();
     needed.push_back(summary.plan->target_name());
     const std::string absent = detail::absent_columns(t, needed);
@@ -2613,7 +2664,7 @@ inline int run_drift(const std::vector<std::string>& args, std::ostream& out, st
     const tenon::model_file_summary summary = tenon::inspect_model_file(q.model_path);
     if (summary.references.empty())
         fail(cli_codes::model_unusable, q.model_path + ": the model holds no summaries of its training rows (section REFS), so drift cannot be measured");
-    const tenon::table t = detail::read_new_rows(q.data_path);
+    const tenon::table t = detail::read_new_rows(q.data_path, summary.plan ? &*summary.plan : nullptr);
     std::vector<std::string> needed;
     for (const auto& r : summary.references) needed.push_back(r.column);
     const std::string absent = detail::absent_columns(t, needed);
