@@ -6,7 +6,9 @@
 // hang on a FIFO), and no temporary file left behind by a signal.
 #include <doctest/doctest.h>
 
+#include <algorithm>
 #include <csignal>
+#include <limits>
 #include <cstdlib>
 #include <filesystem>
 #include <fstream>
@@ -537,4 +539,56 @@ TEST_CASE("a column mostly of numbers that stays categorical is named in a warni
     const auto r = run({"train", "--data", data, "--target", "output", "--epochs", "1", "--quiet"});
     CHECK(r.status == 0);
     CHECK(r.err == "tenon train: warning: column 'code' is read as categorical (11 categories), although 66% of its cells read as numbers\n");
+}
+
+// ---------------------------------------------------------------------------
+// Output bytes
+
+TEST_CASE("table numbers are width-bounded: scientific notation from a million up") {
+    using tenon_cli::detail::fixed;
+    CHECK(fixed(11.06695, 4) == "11.0670");  // printf rounding of 11.06695 in binary: the nearest double is just above
+    CHECK(fixed(999999.0, 1) == "999999.0");
+    CHECK(fixed(3.4e38, 4) == "3.400e+38");
+    CHECK(fixed(-1234567.0, 2) == "-1.23e+06");
+    CHECK(fixed(std::numeric_limits<double>::infinity(), 4) == "-");
+    CHECK(fixed(std::numeric_limits<float>::max(), 4).size() <= 12);
+}
+
+TEST_CASE("JSON strings: well-formed UTF-8 passes, anything else becomes U+FFFD (RFC 3629 section 4, RFC 8259 section 8.1)") {
+    using tenon_cli::json_writer;
+    CHECK(json_writer::escape("caf\xc3\xa9") == "caf\xc3\xa9");                  // U+00E9, two bytes
+    CHECK(json_writer::escape("\xe2\x82\xac") == "\xe2\x82\xac");                // U+20AC, three bytes
+    CHECK(json_writer::escape("\xf0\x9f\x94\xa7") == "\xf0\x9f\x94\xa7");        // U+1F527, four bytes
+    CHECK(json_writer::escape("ok\xff") == "ok\\ufffd");                          // never valid
+    CHECK(json_writer::escape("\xc0\xaf") == "\\ufffd\\ufffd");                   // overlong '/'
+    CHECK(json_writer::escape("\xed\xa0\x80") == "\\ufffd\\ufffd\\ufffd");        // a surrogate, U+D800
+    CHECK(json_writer::escape("\xf4\x90\x80\x80") == "\\ufffd\\ufffd\\ufffd\\ufffd");  // above U+10FFFF
+    CHECK(json_writer::escape("\xc3") == "\\ufffd");                              // cut short
+    CHECK(json_writer::escape("a\"b\n") == "a\\\"b\\n");
+}
+
+TEST_CASE("inspect --json on a model whose category holds a Latin-1 byte prints valid UTF-8") {
+    scratch_dir dir("latin1");
+    std::string csv = "site,load,output\n";
+    for (int i = 0; i < 60; ++i) csv += std::string(i % 2 ? "Gen\xe8ve" : "Basel") + "," + std::to_string(i % 10) + "," + std::to_string(i % 10 * 2 + i % 2) + "\n";
+    const auto data = dir.write("sites.csv", csv);
+    const auto model = dir.file("m.tnm");
+    REQUIRE(run({"train", "--data", data, "--target", "output", "--epochs", "1", "--model", model, "--quiet"}).status == 0);
+    const auto r = run({"inspect", "--model", model, "--json"});
+    REQUIRE(r.status == 0);
+    CHECK(contains(r.out, "Gen\\ufffdve"));
+    CHECK(r.out.find('\xe8') == std::string::npos);
+    CHECK_NOTHROW(cli_test::json_flattener{r.out});
+}
+
+TEST_CASE("error lines escape control characters: a cell holding CR, LF or a tab stays on one line") {
+    scratch_dir dir("control");
+    std::string csv = "a,output\n";
+    for (int i = 0; i < 40; ++i) csv += (i == 20 ? std::string("\"4\r\n2\t\"") : std::to_string(i)) + "," + std::to_string(i) + "\n";
+    const auto data = dir.write("cells.csv", csv);
+    const auto r = run({"train", "--data", data, "--target", "output", "--epochs", "1"});
+    CHECK(r.status == 2);
+    CHECK(contains(r.err, "'4\\r\\n2\\t'"));
+    CHECK(std::count(r.err.begin(), r.err.end(), '\n') == 1);
+    CHECK(r.err.find('\r') == std::string::npos);
 }

@@ -921,10 +921,43 @@ public:
         return out_;
     }
 
+    /// Length of the well-formed UTF-8 sequence at s[i] (RFC 3629 section 4:
+    /// no overlong forms, no surrogates, nothing above U+10FFFF), or 0.
+    static std::size_t utf8_length(const std::string& s, std::size_t i) {
+        const auto b = [&](std::size_t k) { return i + k < s.size() ? static_cast<unsigned char>(s[i + k]) : 0u; };
+        const unsigned c = b(0);
+        const auto tail = [&](std::size_t k) { return (b(k) & 0xC0u) == 0x80u; };
+        if (c < 0x80) return 1;
+        if (c >= 0xC2 && c <= 0xDF) return tail(1) ? 2 : 0;
+        if (c >= 0xE0 && c <= 0xEF) {
+            const unsigned lo = c == 0xE0 ? 0xA0 : 0x80, hi = c == 0xED ? 0x9F : 0xBF;
+            return b(1) >= lo && b(1) <= hi && tail(2) ? 3 : 0;
+        }
+        if (c >= 0xF0 && c <= 0xF4) {
+            const unsigned lo = c == 0xF0 ? 0x90 : 0x80, hi = c == 0xF4 ? 0x8F : 0xBF;
+            return b(1) >= lo && b(1) <= hi && tail(2) && tail(3) ? 4 : 0;
+        }
+        return 0;
+    }
+
+    /// JSON string contents (RFC 8259 section 7). Bytes that are not
+    /// well-formed UTF-8 (a model's category read from a Latin-1 file, say)
+    /// become U+FFFD, the replacement character, so the output is valid JSON.
     static std::string escape(const std::string& s) {
         std::string out;
-        for (char ch : s) {
+        for (std::size_t i = 0; i < s.size(); ++i) {
+            const char ch = s[i];
             const auto c = static_cast<unsigned char>(ch);
+            if (c >= 0x80) {
+                const std::size_t n = utf8_length(s, i);
+                if (n == 0) {
+                    out += "\\ufffd";
+                } else {
+                    out.append(s, i, n);
+                    i += n - 1;
+                }
+                continue;
+            }
             switch (c) {
                 case '"': out += "\\\""; break;
                 case '\\': out += "\\\\"; break;
@@ -939,7 +972,7 @@ public:
                         std::snprintf(u, sizeof u, "\\u%04x", static_cast<unsigned>(c));
                         out += u;
                     } else {
-                        out += ch;  // UTF-8 bytes pass through unchanged
+                        out += ch;
                     }
             }
         }
@@ -990,10 +1023,15 @@ private:
 
 namespace detail {
 
+// A number for a table cell or a summary line, at most about a dozen
+// characters wide: fixed-point below a million in magnitude, scientific
+// notation above (a value near 3.4e38 would otherwise print 39 digits and
+// run into the next column).
 inline std::string fixed(double v, int decimals) {
     if (!std::isfinite(v)) return "-";
     char buffer[64];
-    std::snprintf(buffer, sizeof buffer, "%.*f", decimals, v);
+    if (std::fabs(v) >= 1e6) std::snprintf(buffer, sizeof buffer, "%.*e", std::min(decimals, 3), v);
+    else std::snprintf(buffer, sizeof buffer, "%.*f", decimals, v);
     return buffer;
 }
 
