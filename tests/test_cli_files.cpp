@@ -592,3 +592,12 @@ TEST_CASE("error lines escape control characters: a cell holding CR, LF or a tab
     CHECK(std::count(r.err.begin(), r.err.end(), '\n') == 1);
     CHECK(r.err.find('\r') == std::string::npos);
 }
+
+TEST_CASE("--ignore leaving no input column is named in column terms, not as a layer of 0 inputs") {
+    scratch_dir dir("no_inputs");
+    const auto data = dir.write("two.csv", "a,b,output\n1,2,3\n4,5,6\n7,8,9\n");
+    const auto r = run({"train", "--data", data, "--target", "output", "--ignore", "a,b"});
+    CHECK(r.status == 2);
+    CHECK(r.err == "tenon train: error: [cli.option.conflict] " + data +
+                       ": no input column is left: the columns are a, b, output, of which 'output' is the target and the others are ignored or the group column\n");
+}

@@ -729,6 +729,15 @@ inline training_setup make_setup(const tenon::table& t, const train_request& q) 
                                               "', not numbers or dates");
     }
     if (!q.group_column.empty()) detail::named_column(t, "--group-column", q.group_column);
+    {
+        // Named here in column terms; later it would surface as a layer with 0 inputs.
+        std::size_t inputs = 0;
+        for (const auto& name : t.column_names())
+            if (name != q.target && name != q.group_column && std::find(q.ignored.begin(), q.ignored.end(), name) == q.ignored.end()) ++inputs;
+        if (inputs == 0)
+            fail(cli_codes::option_conflict, q.data_path + ": no input column is left: the columns are " + detail::column_listing(t.column_names()) +
+                                                 ", of which '" + q.target + "' is the target and the others are ignored or the group column");
+    }
     if (q.time_column == q.target || q.group_column == q.target)
         fail(cli_codes::option_conflict, "the target '" + q.target + "' cannot also be the time or group column");
     s.classify = decide_classification(t, q);
