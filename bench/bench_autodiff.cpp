@@ -37,9 +37,9 @@ void tape_forward_backward(benchmark::State& state) {
     for (auto _ : state) {
         t.clear();
         auto x = t.input(f.x);
-        auto h1 = tenon::relu(tenon::matmul(x, t.watch(f.w1)) + t.watch(f.b1));
-        auto h2 = tenon::relu(tenon::matmul(h1, t.watch(f.w2)) + t.watch(f.b2));
-        auto logits = tenon::matmul(h2, t.watch(f.w3));
+        auto h1 = tenon::relu(tenon::matmul(x, t.track(f.w1)) + t.track(f.b1));
+        auto h2 = tenon::relu(tenon::matmul(h1, t.track(f.w2)) + t.track(f.b2));
+        auto logits = tenon::matmul(h2, t.track(f.w3));
         auto loss = -tenon::mean(tenon::sum(tenon::log_softmax_rows(logits) * t.input(f.targets), 1));
         t.backward(loss);
         benchmark::DoNotOptimize(f.w1.grad().data());

@@ -67,7 +67,7 @@ int main(int argc, char** argv) {
     rows.labels.assign(labels.begin(), labels.end());
     rows.class_count = 10;
     const std::vector<std::size_t> sizes = {784, 256, 128, 10};
-    const tenon::initializer init{tenon::init_scheme::he_uniform, 0.0};
+    const tenon::initializer init{tenon::init_scheme::he, tenon::init_distribution::uniform};
 
     // Reference: one process, the global batch.
     double alone = 0.0;

@@ -13,7 +13,7 @@
 //                   of a three-epoch run) vs the same epoch's products alone
 //                   in OpenBLAS; built-in kernel and BLAS backend
 //   tool            the same epoch through `tenon train --threads N` (run in
-//                   process; its metrics' train_seconds per epoch) vs the
+//                   process; its metrics' training_seconds per epoch) vs the
 //                   same products alone in OpenBLAS
 //   predict         an 8-32-32-1 network, one prepared row per call: p50,
 //                   p99 and maximum latency over 200,000 calls
@@ -182,7 +182,7 @@ BENCHMARK(gemm_openblas)->Apply(gemm_args);
 
 struct step_fixture {
     tenon::network<float> net =
-        tenon::make_mlp<float>({784, 256, 128, 10}, tenon::activation::relu, {tenon::init_scheme::he_normal, 0.0}, 1);
+        tenon::make_mlp<float>({784, 256, 128, 10}, tenon::activation::relu, {tenon::init_scheme::he, tenon::init_distribution::normal}, 1);
     tenon::adam<float> rule;
     tenon::matrix<float> x = tenon::matrix<float>({batch, 784});
     std::vector<std::size_t> labels = std::vector<std::size_t>(batch);
@@ -346,7 +346,7 @@ void fashion_epoch(benchmark::State& state) {
     use_threads(state.range(0));
     const int threads = static_cast<int>(state.range(1));
     auto& d = fashion();
-    auto net = tenon::make_mlp<float>({784, 256, 128, 10}, tenon::activation::relu, {tenon::init_scheme::he_normal, 0.0}, 7);
+    auto net = tenon::make_mlp<float>({784, 256, 128, 10}, tenon::activation::relu, {tenon::init_scheme::he, tenon::init_distribution::normal}, 7);
     tenon::adam<float> rule;
     tenon::constant_rate schedule(1e-3);
     tenon::training_options<float> o;
@@ -389,7 +389,7 @@ BENCHMARK(fashion_epoch_openblas_products)->ArgNames({"threads"})->Arg(1)->Arg(2
 // label), split 54,000 / 6,000 / 10,000 (stratified: 5,400 / 600 / 1,000 per
 // class) so training and validation match the epoch above, 784-256-128-10 relu,
 // Adam 0.001, batch 128, three epochs without early stopping. The time is the
-// metrics file's train_seconds (training with validation; reading and
+// metrics file's training_seconds (training with validation; reading and
 // preparing excluded) divided by the epochs: args (path, threads).
 
 const std::string& fashion_csv() {
@@ -444,7 +444,7 @@ void cli_train_epoch(benchmark::State& state) {
         std::ifstream in(metrics);
         const std::string text((std::istreambuf_iterator<char>(in)), std::istreambuf_iterator<char>());
         const double epochs = number_after(text, "epochs_run");
-        const double epoch = epochs > 0 ? number_after(text, "train_seconds") / epochs : 0.0;
+        const double epoch = epochs > 0 ? number_after(text, "training_seconds") / epochs : 0.0;
         state.SetIterationTime(epoch);
         pairs.add(epoch, products_epoch_seconds(static_cast<int>(state.range(1))));
     }
@@ -612,7 +612,7 @@ public:
                 // Paired measurements (see paired_times): the median ratio.
                 paired("Fashion-MNIST epoch (" + std::string(name) + ") / its products in OpenBLAS", "fashion_epoch/" + key,
                        path == 0 ? "[<= 2.0]" : "[<= 1.3]");
-                paired("tenon train --threads " + std::to_string(threads) + " (" + name + "): train_seconds per epoch / products",
+                paired("tenon train --threads " + std::to_string(threads) + " (" + name + "): training_seconds per epoch / products",
                        "cli_train_epoch/" + key, path == 0 ? "[<= 2.0]" : "[<= 1.3]");
             }
         }

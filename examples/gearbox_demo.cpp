@@ -85,19 +85,19 @@ int main(int argc, char** argv) {
         std::printf("tenon %s demo: conveyor gearbox condition from %zu logged readings\n", tenon::version_string(), log.row_count());
 
         // 1. Prepare: roles and steps. Every statistic is measured on the training rows only.
-        tenon::plan recipe;
-        recipe.set_target("condition", tenon::target_kind::classification);
+        tenon::plan preparation;
+        preparation.set_target("condition", tenon::target_kind::classification);
         tenon::feature_steps numeric;
         numeric.fill = tenon::fill_method::median;
         numeric.scaling = tenon::scaling_method::z_score;
         tenon::feature_steps sometimes_missing = numeric;
         sometimes_missing.missing_indicator = true;  // "sensor offline" may itself carry information
         tenon::feature_steps category;
-        category.fill = tenon::fill_method::most_frequent;
+        category.fill = tenon::fill_method::mode;
         category.unseen = tenon::unseen_policy::all_zero;
-        recipe.set_default_steps(numeric);
-        recipe.set_steps("particle_count", sometimes_missing);
-        recipe.set_steps("gearbox_model", category);
+        preparation.set_default_steps(numeric);
+        preparation.set_steps("particle_count", sometimes_missing);
+        preparation.set_steps("gearbox_model", category);
 
         // 2. Split: every condition keeps its share in train, validation and test.
         const auto split = tenon::stratified_holdout(tenon::dense_codes(log.at("condition")), {0.7, 0.15, 0.15}, 7);
@@ -109,13 +109,13 @@ int main(int argc, char** argv) {
         settings.epochs = 150;
         settings.patience = 15;
         settings.seed = 7;
-        settings.on_epoch = [](const tenon::epoch_summary& e) {
+        settings.on_epoch = [epochs = settings.epochs](const tenon::epoch_summary& e) {
             if (e.epoch == 1 || e.epoch % 10 == 0)
-                std::printf("  epoch %3zu  train loss %.4f  validation loss %.4f  validation accuracy %.3f\n", e.epoch, e.train_loss,
-                            e.validation_loss, e.validation_metric);
+                std::printf("  epoch %3zu of %zu | training loss %.4f | validation loss %.4f | validation accuracy %.3f\n", e.epoch,
+                            epochs, e.training_loss, e.validation_loss, e.validation_metric);
             return true;
         };
-        auto model = tenon::fit_model<float>(log, recipe, split.train, split.validation, settings);
+        auto model = tenon::fit_model<float>(log, preparation, split.train, split.validation, settings);
         std::printf("stopped after %zu epochs (%s), kept epoch %zu, %.2f s\n\n", model.outcome.history.size(), model.outcome.message.c_str(),
                     model.outcome.best_epoch, model.outcome.seconds);
 
@@ -125,12 +125,12 @@ int main(int argc, char** argv) {
         const auto& names = model.plan.class_names();
         for (std::size_t c = 0; c < names.size(); ++c)
             std::printf("  %-17s recall %.3f  precision %.3f  (%zu rows)\n", names[c].c_str(), test.classes.per_class[c].recall,
-                        test.classes.per_class[c].precision, test.classes.per_class[c].support);
+                        test.classes.per_class[c].precision, test.classes.per_class[c].true_rows);
 
         // 5. The report: loss curves and the test confusion matrix.
         tenon::report_content content;
         content.title = "Conveyor gearbox condition (invented data)";
-        for (const auto& e : model.outcome.history) content.epochs.push_back({e.train_loss, e.validation_loss});
+        for (const auto& e : model.outcome.history) content.epochs.push_back({e.training_loss, e.validation_loss});
         content.kept_epoch = model.outcome.best_epoch;
         content.confusion = &test.classes.confusion;
         content.class_names = names;

@@ -17,7 +17,7 @@ int main() {
 
     tenon::tape<double> tape;
     const auto x = tape.input(readings);
-    const auto prediction = tenon::matmul(x, tape.watch(weights)) + tape.watch(bias);
+    const auto prediction = tenon::matmul(x, tape.track(weights)) + tape.track(bias);
     const auto loss = tenon::mean(tenon::square(prediction - tape.input(power)));
     tape.backward(loss);
 
@@ -30,7 +30,7 @@ int main() {
     // The same gradients by central finite differences, as a host would check
     // its own components.
     const auto report = tenon::check_gradients({&weights, &bias}, [&](tenon::tape<double>& t) {
-        const auto p = tenon::matmul(t.input(readings), t.watch(weights)) + t.watch(bias);
+        const auto p = tenon::matmul(t.input(readings), t.track(weights)) + t.track(bias);
         return tenon::mean(tenon::square(p - t.input(power)));
     });
     std::printf("finite-difference check: worst relative error %.2e\n", report.max_rel_error);

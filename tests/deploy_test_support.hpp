@@ -41,8 +41,11 @@ inline std::vector<std::size_t> range(std::size_t begin, std::size_t end) {
     return r;
 }
 
+// Strict steps: a missing cell or an unseen category is refused, which the
+// deploy tests exercise (the plan's defaults would fill and encode them).
 inline tenon::plan condition_plan() {
     tenon::plan p;
+    p.set_default_steps(tenon::strict_feature_steps());
     p.set_target("condition", tenon::target_kind::classification);
     p.set_role("power", tenon::column_role::ignored);
     return p;
@@ -50,6 +53,7 @@ inline tenon::plan condition_plan() {
 
 inline tenon::plan power_plan() {
     tenon::plan p;
+    p.set_default_steps(tenon::strict_feature_steps());
     p.set_target("power", tenon::target_kind::regression);
     p.set_role("condition", tenon::column_role::ignored);
     return p;

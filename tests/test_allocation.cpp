@@ -71,7 +71,7 @@ tenon::supervised_rows<T> random_rows(std::size_t rows, std::uint64_t seed) {
 TEST_CASE_TEMPLATE("a training step of a 784-256-128-10 perceptron allocates nothing after the first", T, float, double) {
     for (const std::size_t threads : {std::size_t(1), std::size_t(2)}) {
         tenon::thread_pool pool(threads);
-        auto net = tenon::make_mlp<T>({784, 256, 128, 10}, tenon::activation::relu, {tenon::init_scheme::he_uniform, 0.0}, 1);
+        auto net = tenon::make_mlp<T>({784, 256, 128, 10}, tenon::activation::relu, {tenon::init_scheme::he, tenon::init_distribution::uniform}, 1);
         tenon::adam<T> rule;
         tenon::random_engine rng(4);
         tenon::matrix<T> x({128, 784});
@@ -110,7 +110,7 @@ TEST_CASE_TEMPLATE("the trainer's steps after the first epoch allocate nothing, 
     const auto train = random_rows<T>(600, 1);
     for (const std::size_t threads : {std::size_t(1), std::size_t(2)}) {
         tenon::thread_pool pool(threads);
-        auto net = tenon::make_mlp<T>({784, 256, 128, 10}, tenon::activation::relu, {tenon::init_scheme::he_uniform, 0.0}, 2);
+        auto net = tenon::make_mlp<T>({784, 256, 128, 10}, tenon::activation::relu, {tenon::init_scheme::he, tenon::init_distribution::uniform}, 2);
         tenon::adam<T> rule;
         tenon::constant_rate schedule(0.001);
         tenon::training_options<T> o;

@@ -106,7 +106,7 @@ TEST_CASE_TEMPLATE("a value used twice receives both gradient contributions", T,
     // d/dw sum(w * w) = 2w (elementary calculus).
     tenon::parameter<T> w("w", make_matrix<T>({{T(1.5), T(-2)}}));
     tape<T> t;
-    const auto v = t.watch(w);
+    const auto v = t.track(w);
     t.backward(tenon::sum(v * v));
     CHECK(w.grad()(0, 0) == doctest::Approx(3.0));
     CHECK(w.grad()(0, 1) == doctest::Approx(-4.0));
@@ -463,8 +463,8 @@ std::vector<const T*> record_step(tape<T>& t, tenon::parameter<T>& w, tenon::par
     t.clear();
     std::vector<var<T>> vars;
     vars.push_back(t.input(x));
-    vars.push_back(t.watch(w));
-    vars.push_back(t.watch(b));
+    vars.push_back(t.track(w));
+    vars.push_back(t.track(b));
     vars.push_back(tenon::matmul(vars[0], vars[1]));
     vars.push_back(vars[3] + vars[2]);
     vars.push_back(tenon::tanh(vars[4]));
@@ -505,10 +505,10 @@ TEST_CASE_TEMPLATE("recording the same graph after clear() reuses every buffer",
     }
 }
 
-TEST_CASE_TEMPLATE("clear() empties the recording; watch() follows a resized parameter", T, float, double) {
+TEST_CASE_TEMPLATE("clear() empties the recording; track() follows a resized parameter", T, float, double) {
     tape<T> t;
     tenon::parameter<T> p("p", make_matrix<T>({{T(1), T(2)}}));
-    t.watch(p);
+    t.track(p);
     CHECK(t.size() == 1);
     t.clear();
     CHECK(t.size() == 0);
@@ -516,7 +516,7 @@ TEST_CASE_TEMPLATE("clear() empties the recording; watch() follows a resized par
     // A host that reshapes a parameter's value directly gets a gradient of
     // the new shape, starting from zero, the next time the tape watches it.
     p.value() = make_matrix<T>({{T(1)}, {T(2)}, {T(3)}});
-    const auto v = t.watch(p);
+    const auto v = t.track(p);
     CHECK(tenon::shape_of(p.grad()) == shape2{3, 1});
     t.backward(tenon::sum(tenon::square(v)));
     CHECK(p.grad()(2, 0) == T(6));
@@ -525,13 +525,13 @@ TEST_CASE_TEMPLATE("clear() empties the recording; watch() follows a resized par
 TEST_CASE_TEMPLATE("two backward passes without clear_gradient add up", T, float, double) {
     tenon::parameter<T> w("w", make_matrix<T>({{T(0.5), T(-1)}}));
     tape<T> t;
-    const auto loss = tenon::sum(tenon::square(t.watch(w)));  // d/dw = 2w
+    const auto loss = tenon::sum(tenon::square(t.track(w)));  // d/dw = 2w
     t.backward(loss);
     CHECK(w.grad()(0, 0) == doctest::Approx(1.0));
     t.backward(loss);  // the same recording again
     CHECK(w.grad()(0, 0) == doctest::Approx(2.0));
     t.clear();
-    t.backward(tenon::sum(tenon::square(t.watch(w))));  // and a fresh recording
+    t.backward(tenon::sum(tenon::square(t.track(w))));  // and a fresh recording
     CHECK(w.grad()(0, 0) == doctest::Approx(3.0));
     CHECK(w.grad()(0, 1) == doctest::Approx(-6.0));
     w.clear_gradient();
@@ -562,7 +562,7 @@ TEST_CASE_TEMPLATE("a frozen parameter takes part in the forward pass but gets n
     frozen.set_trainable(false);
     CHECK_FALSE(frozen.trainable());
     tape<T> t;
-    const auto loss = tenon::sum(t.watch(frozen) * t.watch(live));
+    const auto loss = tenon::sum(t.track(frozen) * t.track(live));
     CHECK(loss.value()(0, 0) == T(31));
     t.backward(loss);
     CHECK(frozen.grad()(0, 0) == T(0));
@@ -572,7 +572,7 @@ TEST_CASE_TEMPLATE("a frozen parameter takes part in the forward pass but gets n
 
     // With only frozen parameters the loss needs no gradient at all.
     t.clear();
-    CHECK_NOTHROW(t.backward(tenon::sum(t.watch(frozen))));
+    CHECK_NOTHROW(t.backward(tenon::sum(t.track(frozen))));
     CHECK(frozen.grad()(0, 0) == T(0));
 }
 
@@ -580,7 +580,7 @@ TEST_CASE_TEMPLATE("constant-on-the-left subtraction and division by a constant"
     // d/dx sum(1 - x) = -1 and d/dx sum(x / 4) = 1/4 (elementary calculus).
     tenon::parameter<T> x("x", make_matrix<T>({{T(2), T(-3)}}));
     tenon::tape<T> t;
-    const auto v = t.watch(x);
+    const auto v = t.track(x);
     const auto y = T(1) - v;
     CHECK(y.value()(0, 1) == doctest::Approx(4.0));
     t.backward(tenon::sum(y) + tenon::sum(v / T(4)));
@@ -647,7 +647,7 @@ TEST_CASE("affine_activation: gradients of x, weights and bias match finite diff
             std::vector<tenon::parameter<double>*> params = {&x, &w};
             if (with_bias) params.push_back(&b);
             const auto report = tenon::check_gradients(params, [&](tape<double>& t) {
-                const auto y = tenon::affine_activation(t.watch(x), t.watch(w), with_bias ? t.watch(b) : var<double>(), u.unit, u.coefficient);
+                const auto y = tenon::affine_activation(t.track(x), t.track(w), with_bias ? t.track(b) : var<double>(), u.unit, u.coefficient);
                 return tenon::sum(y * t.input(c));
             });
             CHECK(report.max_rel_error < 1e-6);
@@ -667,7 +667,7 @@ TEST_CASE_TEMPLATE("affine_activation gives the same bits as matmul, bias add an
 
         tape<T> t;
         const auto x1 = t.variable(input);
-        const auto y1 = tenon::affine_activation(x1, t.watch(w), t.watch(b), u.unit, coefficient);
+        const auto y1 = tenon::affine_activation(x1, t.track(w), t.track(b), u.unit, coefficient);
         t.backward(tenon::sum(y1 * t.input(c)));
         const matrix<T> value_fused = y1.value(), x_fused = t.grad(x1), w_fused = w.grad(), b_fused = b.grad();
 
@@ -675,7 +675,7 @@ TEST_CASE_TEMPLATE("affine_activation gives the same bits as matmul, bias add an
         b.clear_gradient();
         tape<T> t2;
         const auto x2 = t2.variable(input);
-        const auto y2 = unfused_activation(tenon::matmul(x2, t2.watch(w)) + t2.watch(b), u.unit, coefficient);
+        const auto y2 = unfused_activation(tenon::matmul(x2, t2.track(w)) + t2.track(b), u.unit, coefficient);
         t2.backward(tenon::sum(y2 * t2.input(c)));
         check_same_bits(value_fused, y2.value(), "value");
         check_same_bits(x_fused, t2.grad(x2), "input gradient");
@@ -707,7 +707,7 @@ TEST_CASE("softmax_cross_entropy: gradients of logits and target weights match f
     tenon::parameter<double> q("q", spread<double>(4, 5, 22));
     z.value().data()[3] = 40.0;  // a large logit: the row maximum is subtracted
     const auto report = tenon::check_gradients({&z, &q}, [&](tape<double>& t) {
-        return tenon::softmax_cross_entropy(t.watch(z), t.watch(q));
+        return tenon::softmax_cross_entropy(t.track(z), t.track(q));
     });
     CHECK(report.max_rel_error < 1e-6);
 }

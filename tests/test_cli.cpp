@@ -275,13 +275,13 @@ TEST_CASE("classification metrics hold every documented field; the report has th
     const auto m = read_metrics(dir.file("m.json"));
     CHECK(m.at("task") == "classification");
     CHECK(m.at("split") == "stratified");
-    CHECK(number_at(m, "rows.train") + number_at(m, "rows.val") + number_at(m, "rows.test") + number_at(m, "rows.dropped") == 300);
+    CHECK(number_at(m, "rows.training") + number_at(m, "rows.validation") + number_at(m, "rows.test") + number_at(m, "rows.dropped") == 300);
     CHECK(std::abs(number_at(m, "rows.test") - 45.0) <= 1.0);  // 0.15 of each class, rounded per class
     CHECK(number_at(m, "epochs_run") >= 1);
     CHECK(number_at(m, "epochs_run") <= 30);
     CHECK((m.at("stop_reason") == "no_improvement" || m.at("stop_reason") == "epoch_limit"));
-    CHECK(number_at(m, "train_seconds") >= 0);
-    for (const char* subset : {"val", "test"}) {
+    CHECK(number_at(m, "training_seconds") >= 0);
+    for (const char* subset : {"validation", "test"}) {
         for (const char* score : {"accuracy", "macro_f1", "log_loss"}) {
             CAPTURE(subset);
             CAPTURE(score);
@@ -290,7 +290,15 @@ TEST_CASE("classification metrics hold every documented field; the report has th
     }
     CHECK(number_at(m, "test.accuracy") > 0.8);
     CHECK(((m.at("classes.0") == "loose" && m.at("classes.1") == "tight") || (m.at("classes.0") == "tight" && m.at("classes.1") == "loose")));
-    CHECK(m.count("history.0.train_loss") == 1);
+    CHECK(m.count("per_epoch.0.training_loss") == 1);
+    CHECK(m.count("per_epoch.0.validation_loss") == 1);
+    CHECK(number_at(m, "per_epoch.0.epoch") == 1);
+    CHECK(number_at(m, "per_epoch.0.learning_rate") > 0);
+    for (const auto& kv : m) {  // every key spelled out
+        CAPTURE(kv.first);
+        CHECK(kv.first.find("val.") == std::string::npos);
+        CHECK(kv.first.find("train_") == std::string::npos);
+    }
     const std::string svg = read_file(dir.file("r.svg"));
     CHECK(svg.rfind("<?xml", 0) == 0);
     CHECK(svg.find("</svg>") != std::string::npos);
@@ -317,10 +325,10 @@ TEST_CASE("regression metrics are in the target's units; missing targets are cou
     CHECK(m.at("task") == "regression");
     CHECK(m.at("split") == "random");
     CHECK(number_at(m, "rows.dropped") == 10);
-    CHECK(number_at(m, "rows.train") + number_at(m, "rows.val") + number_at(m, "rows.test") == 390);
+    CHECK(number_at(m, "rows.training") + number_at(m, "rows.validation") + number_at(m, "rows.test") == 390);
     CHECK(number_at(m, "features") == 3);  // speed, its missing indicator, load
     for (const char* score : {"rmse", "mae", "r2"}) {
-        CHECK(m.count(std::string("val.") + score) == 1);
+        CHECK(m.count(std::string("validation.") + score) == 1);
         CHECK(m.count(std::string("test.") + score) == 1);
     }
     // The target spreads over about 0..750 amps above 1000: an RMSE in scaled
@@ -336,12 +344,12 @@ TEST_CASE("the same seed gives the same metrics apart from timings; another seed
         const auto r = run({"train", "--data", path, "--target", "verdict", "--epochs", "25", "--seed", seed, "--metrics", dir.file(name), "--quiet"});
         REQUIRE(r.status == 0);
         auto m = read_metrics(dir.file(name));
-        REQUIRE(m.erase("train_seconds") == 1);
+        REQUIRE(m.erase("training_seconds") == 1);
         return m;
     };
     const auto first = metrics("42", "a.json"), second = metrics("42", "b.json"), other = metrics("43", "c.json");
     CHECK(first == second);
-    CHECK(first.at("history.0.train_loss") != other.at("history.0.train_loss"));
+    CHECK(first.at("per_epoch.0.training_loss") != other.at("per_epoch.0.training_loss"));
 }
 
 // 64 x 128 x 64 products are above the size gemm splits across threads.
@@ -356,7 +364,7 @@ TEST_CASE("--threads splits the products across threads and gives the same metri
                             "--threads", threads, "--metrics", dir.file(name), "--quiet"});
         REQUIRE(r.status == 0);
         auto m = read_metrics(dir.file(name));
-        REQUIRE(m.erase("train_seconds") == 1);
+        REQUIRE(m.erase("training_seconds") == 1);
         return m;
     };
     const auto one = metrics("1", "one.json");
@@ -377,7 +385,7 @@ TEST_CASE("cross-validation reports the mean and spread over folds") {
     CHECK(number_at(m, "test.accuracy") == doctest::Approx(mean));
     CHECK(number_at(m, "test_spread.accuracy") >= 0);
     CHECK(number_at(m, "per_fold.0.rows") + number_at(m, "per_fold.1.rows") + number_at(m, "per_fold.2.rows") == 300);
-    CHECK(r.out.find("fold 3/3  epoch 1/20") != std::string::npos);
+    CHECK(r.out.find("fold 3 of 3 | epoch 1 of 20 | training loss ") != std::string::npos);
     CHECK(r.out.find("3 folds") != std::string::npos);
     // A report draws one holdout run only.
     const auto both = run({"train", "--data", path, "--target", "verdict", "--folds", "3", "--report", dir.file("r.svg")});
@@ -392,16 +400,17 @@ TEST_CASE("progress: a redrawn line on a terminal, one line per epoch elsewhere,
     const auto plain = run(args, false);
     REQUIRE(plain.status == 0);
     CHECK(plain.out.find('\r') == std::string::npos);
-    for (int e = 1; e <= 6; ++e) CHECK(plain.out.find("epoch " + std::to_string(e) + "/6  train_loss ") != std::string::npos);
-    CHECK(plain.out.find("val_accuracy ") != std::string::npos);
+    for (int e = 1; e <= 6; ++e) CHECK(plain.out.find("epoch " + std::to_string(e) + " of 6 | training loss ") != std::string::npos);
+    CHECK(plain.out.find(" | validation loss ") != std::string::npos);
+    CHECK(plain.out.find(" | validation accuracy ") != std::string::npos);
     CHECK(plain.out.find("  accuracy  ") != std::string::npos);  // the summary table
     CHECK(plain.out.find("6 epochs in ") != std::string::npos);
 
     const auto terminal = run(args, true);
     REQUIRE(terminal.status == 0);
-    CHECK(terminal.out.find("\rep 6/6 <######################>  loss ") != std::string::npos);
+    CHECK(terminal.out.find("\repoch 6 of 6 <######################> training loss ") != std::string::npos);
     CHECK(terminal.out.find(" more") != std::string::npos);
-    CHECK(terminal.out.find("epoch 1/6  train_loss") == std::string::npos);
+    CHECK(terminal.out.find("epoch 1 of 6 | training loss") == std::string::npos);
 
     auto quiet_args = args;
     quiet_args.push_back("--quiet");
@@ -456,8 +465,7 @@ prepared_split prepare_like_the_tool(const std::vector<std::string>& args) {
     const tenon::table t = tenon_cli::load_table(q);
     tenon_cli::training_setup s = tenon_cli::make_setup(t, q);
     const tenon::holdout_split split = tenon_cli::make_holdout(t, q, s);
-    tenon_cli::choose_feature_steps(t, s.recipe, split.train);
-    const tenon::measured_plan plan = s.recipe.measure(t, split.train);
+    const tenon::measured_plan plan = s.preparation.measure(t, split.train);
     prepared_split p;
     p.classify = s.classify;
     p.classes = plan.class_count();

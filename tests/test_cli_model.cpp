@@ -281,19 +281,19 @@ TEST_CASE("infer reads a model saved in double precision by a host") {
     scratch_dir dir("double_model");
     const auto data = dir.write("motor.csv", motor_csv(200, 4));
     const tenon::table t = tenon::read_csv_file(data);
-    tenon::plan recipe;
-    recipe.set_target("amps", tenon::target_kind::regression);
+    tenon::plan preparation;
+    preparation.set_target("amps", tenon::target_kind::regression);
     tenon::feature_steps filled;
     filled.fill = tenon::fill_method::median;
     filled.missing_indicator = true;
-    recipe.set_steps("speed", filled);
+    preparation.set_steps("speed", filled);
     std::vector<std::size_t> train(150), validation(50);
     for (std::size_t r = 0; r < 150; ++r) train[r] = r;
     for (std::size_t r = 0; r < 50; ++r) validation[r] = 150 + r;
     tenon::model_settings settings;
     settings.hidden = {8};
     settings.epochs = 5;
-    tenon::fitted_model<double> model = tenon::fit_model<double>(t, recipe, train, validation, settings);
+    tenon::fitted_model<double> model = tenon::fit_model<double>(t, preparation, train, validation, settings);
     tenon::save_model_file(dir.file("host.tnm"), tenon::make_model_file(model, t, train, settings));
     const auto r = run({"infer", "--model", dir.file("host.tnm"), "--data", data, "--out", dir.file("p.csv"), "--quiet"});
     REQUIRE(r.status == 0);
@@ -538,4 +538,124 @@ TEST_CASE("infer and inspect explain their options; tenon --help lists all comma
         CHECK(help.out.find(text) != std::string::npos);
     }
     CHECK(run({"train", "--help"}).out.find("  --model OUT.tnm ") != std::string::npos);
+}
+
+// ---------------------------------------------------------------------------
+// The library's defaults are the tool's
+
+namespace {
+
+// An invented press log with what plants write: rows without a fault
+// label (NA), empty speed cells and empty die cells, and a quoted note
+// that spans two lines, so file lines are not row numbers plus 2.
+std::string press_log_text() {
+    std::string text = "ram_speed,die,oil_temp,note,fault\n";
+    text += "40.5,D1,60,\"changed die,\nafter lunch\",ok\n";
+    const char* dies[] = {"D1", "D2", "D3", "D4"};
+    for (int i = 1; i < 240; ++i) {
+        const double speed = 35.0 + 0.5 * ((i * 7) % 21);
+        const int oil = 55 + (i * 5) % 16;
+        const char* die = dies[(i * 3) % 4];
+        const char* fault = speed > 42.0 && oil > 64 ? "jam" : (std::string(die) == "D4" && oil > 60 ? "worn" : "ok");
+        text += (i % 17 == 0 ? std::string() : tenon::number_to_text(speed)) + "," + (i % 23 == 0 ? "" : die) + "," + std::to_string(oil) +
+                ",," + (i % 29 == 0 ? "NA" : fault) + "\n";
+    }
+    return text;
+}
+
+// The file line (1-based) where data row `row` starts, counted in the text.
+std::size_t line_of_row(const std::string& text, std::size_t row) {
+    std::size_t line = 1, records = 0;
+    bool quoted = false;
+    for (char c : text) {
+        if (c == '"') quoted = !quoted;
+        if (c == '\n') {
+            ++line;
+            if (!quoted && ++records == row + 1) return line;  // record 0 is the header
+        }
+    }
+    return 0;
+}
+
+}  // namespace
+
+TEST_CASE("one table with missing targets and missing cells gives the same model bits through the README's library path and the tool") {
+    on_builtin_kernels builtin;
+    scratch_dir dir("library_equals_tool");
+    const std::string text = press_log_text();
+    const auto data = dir.write("press_log.csv", text);
+    const auto tool_model = dir.file("press.tnm");
+    const auto r = run({"train", "--data", data, "--target", "fault", "--ignore", "note", "--seed", "7", "--epochs", "12", "--model", tool_model,
+                        "--quiet"});
+    REQUIRE(r.status == 0);
+    const auto from_tool = tenon::load_model_file<float>(tool_model);
+
+    // The README's path, with the tool's seed, epochs and ignored column.
+    tenon::table rows = tenon::read_csv_file(data);
+    tenon::plan preparation;
+    preparation.set_target("fault", tenon::target_kind::classification);
+    preparation.set_role("note", tenon::column_role::ignored);
+    auto labels = tenon::dense_codes(rows.at("fault"));  // rows without a label: a stratum of their own, dropped by fit_model
+    auto split = tenon::stratified_holdout(labels, {0.7, 0.15, 0.15}, /*seed=*/7);
+    tenon::model_settings settings;
+    settings.seed = 7;
+    settings.epochs = 12;
+    auto model = tenon::fit_model<float>(rows, preparation, split.train, split.validation, settings);
+    CHECK(model.dropped_rows > 0);
+    const auto from_library = tenon::make_model_file(model, rows, split.train, settings);
+
+    // The plans agree: the same fills (median, mode), indicators and categories.
+    REQUIRE(from_tool.plan);
+    CHECK(from_tool.plan->to_bytes() == from_library.plan->to_bytes());
+    CHECK(from_library.plan->feature_fill("ram_speed").method == tenon::fill_method::median);
+    CHECK(from_library.plan->feature_fill("die").method == tenon::fill_method::mode);
+    CHECK(from_library.plan->feature_has_indicator("ram_speed"));
+    CHECK(from_library.plan->feature_has_indicator("die"));
+    CHECK_FALSE(from_library.plan->feature_has_indicator("oil_temp"));
+    REQUIRE(from_tool.weights.size() == from_library.weights.size());
+    for (std::size_t k = 0; k < from_tool.weights.size(); ++k) {
+        const auto& a = from_tool.weights[k];
+        const auto& b = from_library.weights[k];
+        CAPTURE(a.name);
+        CHECK(a.name == b.name);
+        REQUIRE(a.values.size() == b.values.size());
+        CHECK(std::memcmp(a.values.data(), b.values.data(), a.values.size() * sizeof(float)) == 0);
+    }
+}
+
+TEST_CASE("library messages about a row name its line in the file, as the tool does") {
+    scratch_dir dir("library_lines");
+    const std::string text = press_log_text();
+    const auto data = dir.write("press_log.csv", text);
+    const tenon::table rows = tenon::read_csv_file(data);
+    REQUIRE(rows.row_lines().size() == rows.row_count());
+    CHECK(rows.row_lines()[0] == 2);
+    CHECK(rows.row_lines()[1] == 4);  // after the note spanning lines 2 and 3
+    const std::size_t row = 29;       // the first row without a fault label
+    REQUIRE(rows.at("fault").is_missing(row));
+    const std::string line = std::to_string(line_of_row(text, row));
+    CHECK(line == "32");
+    CHECK(rows.row_place(row) == data + " line " + line);
+
+    std::string message;
+    try {
+        tenon::dense_codes(rows.at("fault"), /*missing_is_value=*/false);
+    } catch (const tenon::error& e) {
+        message = e.what();
+    }
+    CHECK(message == "[prep.value.missing] " + data + " line " + line + ", column 'fault': the cell is missing");
+
+    // Strict steps refuse a missing cell and name the line the tool would.
+    tenon::plan strict;
+    strict.set_default_steps(tenon::strict_feature_steps()).set_role("note", tenon::column_role::ignored);
+    strict.set_target("fault", tenon::target_kind::classification);
+    const auto measured = strict.measure(rows, {1, 2, 3, 4, 5});
+    message.clear();
+    try {
+        measured.apply<float>(rows, {17});
+    } catch (const tenon::error& e) {
+        message = e.what();
+    }
+    CHECK(message == "[prep.value.missing] " + data + " line " + std::to_string(line_of_row(text, 17)) +
+                         ", column 'ram_speed': the cell is missing and the plan has no fill for it");
 }

@@ -245,6 +245,56 @@ TEST_CASE("retrain with --out equal to --model keeps the incumbent's exact bytes
     CHECK(p.dir.listing() == std::vector<std::string>{"history.csv", "keep.tnm", "press.tnm", "press.tnm.previous", "recent.csv"});
 }
 
+TEST_CASE("inspect after a retrain shows where the current weights came from, and the replaced training as history") {
+    press_model p("inspect_after");
+    const auto before = tenon::inspect_model_file(p.model);
+    REQUIRE(before.metadata);
+    CHECK(before.history.empty());
+    const double old_test_rmse = before.metadata->metric("test_rmse");
+    REQUIRE(std::isfinite(old_test_rmse));
+    const auto recent = p.dir.write("recent.csv", press_csv(400, 12, true));
+    REQUIRE(run({"retrain", "--model", p.model, "--data", recent, "--out", p.model, "--seed", "5", "--quiet"}).status == 0);
+
+    // The library: the metadata describe the new weights only; the old ones are history.
+    const auto after = tenon::inspect_model_file(p.model);
+    REQUIRE(after.metadata);
+    const tenon::training_metadata& now = *after.metadata;
+    CHECK(std::isnan(now.metric("test_rmse")));  // the old test score is not the new weights' score
+    CHECK(std::isfinite(now.metric("gate_candidate_score")));
+    std::string data, origin, target;
+    for (const auto& kv : now.settings) {
+        if (kv.first == "data") data = kv.second;
+        if (kv.first == "origin") origin = kv.second;
+        if (kv.first == "target") target = kv.second;
+        CHECK(kv.first != "split");  // how the replaced weights were split is theirs
+    }
+    CHECK(data == "recent.csv");
+    CHECK(origin == "retraining");
+    CHECK(target == "amps");  // still describes the model
+    REQUIRE(after.history.size() == 1);
+    CHECK(after.history[0].metric("test_rmse") == old_test_rmse);
+    CHECK(after.history[0].data_fingerprint == before.metadata->data_fingerprint);
+    CHECK(after.history[0].created_unix_seconds == before.metadata->created_unix_seconds);
+
+    // The tool's text and JSON.
+    const auto text = run({"inspect", "--model", p.model});
+    REQUIRE(text.status == 0);
+    CHECK(contains(text.out, "\nProvenance of the current weights\n  made by      retraining 1 (promoted over the weights before it)\n"));
+    CHECK(contains(text.out, "  data         recent.csv, fingerprint "));
+    CHECK(contains(text.out, " against the replaced weights' "));
+    CHECK(contains(text.out, "\nHistory: 1 earlier training whose weights were replaced, oldest first\n  1. "));
+    CHECK(contains(text.out, ", training, data history.csv, fingerprint "));
+    CHECK(contains(text.out, "test_rmse " + tenon_cli::detail::significant(old_test_rmse)));
+    const auto json = run({"inspect", "--model", p.model, "--json"});
+    REQUIRE(json.status == 0);
+    CHECK(contains(json.out, "\"origin\": \"retraining\""));
+    const std::size_t history_at = json.out.find("\"history\": [");
+    REQUIRE(history_at != std::string::npos);
+    CHECK(json.out.find("\"data\": \"history.csv\"", history_at) != std::string::npos);
+    CHECK(json.out.find("\"test_rmse\": ", history_at) != std::string::npos);
+
+}
+
 TEST_CASE("retrain --budget is read on the injected clock: a budget spent before training keeps the incumbent") {
     press_model p("budget");
     const auto recent = p.dir.write("recent.csv", press_csv(400, 12, true));

@@ -379,7 +379,7 @@ TEST_CASE_TEMPLATE("on the BLAS path, a network's outputs are the same bits for 
     CHECK(tenon::detail::splits_inner<T>(batch, 64, hidden));
     CHECK_FALSE(tenon::detail::splits_inner<T>(batch, 5, 64));  // below the split size: one product
     auto run = [&](tenon::executor* workers, std::vector<T>& out) {
-        auto net = tenon::make_mlp<T>({inputs, hidden, 64, 5}, tenon::activation::relu, {tenon::init_scheme::he_normal, 0.0}, 4);
+        auto net = tenon::make_mlp<T>({inputs, hidden, 64, 5}, tenon::activation::relu, {tenon::init_scheme::he, tenon::init_distribution::normal}, 4);
         tenon::random_engine rng(6);
         tenon::matrix<T> x({batch, inputs});
         for (std::size_t i = 0; i < x.size(); ++i) x.data()[i] = rng.normal(T(0), T(1));
@@ -387,7 +387,7 @@ TEST_CASE_TEMPLATE("on the BLAS path, a network's outputs are the same bits for 
         for (std::size_t i = 0; i < first[1]->size(); ++i) first[1]->value().data()[i] = rng.normal(T(0), T(0.5));  // a bias that matters
         tenon::tape<T> t;
         t.set_executor(workers);
-        const auto h = t.affine_activation(t.input(x), t.watch(*first[0]), t.watch(*first[1]), tenon::op_kind::relu);
+        const auto h = t.affine_activation(t.input(x), t.track(*first[0]), t.track(*first[1]), tenon::op_kind::relu);
         std::vector<T> xs(x.data(), x.data() + x.size()), ws(first[0]->value().data(), first[0]->value().data() + first[0]->size());
         std::size_t outside = 0;
         const double u = static_cast<double>(std::numeric_limits<T>::epsilon()) / 2.0;
@@ -428,7 +428,7 @@ TEST_CASE_TEMPLATE("a tape with an executor gives bit-identical values and gradi
     path_guard guard;
     tenon::set_kernel_path(tenon::best_builtin_kernel_path());
     auto run = [](tenon::executor* workers, std::vector<T>& out) {
-        auto net = tenon::make_mlp<T>({40, 64, 32, 5}, tenon::activation::relu, {tenon::init_scheme::he_normal, 0.0}, 9);
+        auto net = tenon::make_mlp<T>({40, 64, 32, 5}, tenon::activation::relu, {tenon::init_scheme::he, tenon::init_distribution::normal}, 9);
         tenon::random_engine rng(2);
         tenon::matrix<T> x({96, 40});
         for (std::size_t i = 0; i < x.size(); ++i) x.data()[i] = rng.normal(T(0), T(1));
@@ -469,7 +469,7 @@ TEST_CASE_TEMPLATE("a trainer with workers gives the weights it gives without, t
     for (std::size_t i = 0; i < values.targets.size(); ++i) values.targets.data()[i] = rng.normal(T(0), T(1));
     auto train = [](const tenon::supervised_rows<T>& d, tenon::loss_kind loss, tenon::executor* workers) {
         auto net = tenon::make_mlp<T>({300, 64, d.is_classification() ? std::size_t(4) : std::size_t(2)}, tenon::activation::relu,
-                                      {tenon::init_scheme::he_normal, 0.0}, 3);
+                                      {tenon::init_scheme::he, tenon::init_distribution::normal}, 3);
         tenon::adam<T> rule;
         tenon::constant_rate schedule(0.001);
         tenon::training_options<T> o;

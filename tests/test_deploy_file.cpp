@@ -3,6 +3,7 @@
 // and the committed version-1 fixture.
 #include <doctest/doctest.h>
 
+#include <cmath>
 #include <cstdio>
 #include <filesystem>
 #include <fstream>
@@ -411,6 +412,11 @@ TEST_CASE("the version-1 fixture file loads and predicts exactly what it did whe
     REQUIRE(m.plan);
     REQUIRE(m.metadata);
     CHECK(m.metadata->seed == 2024);
+    // The fixture stores the last epoch's training loss under the earlier
+    // key "final_train_loss"; it is read under the current name.
+    CHECK(std::isfinite(m.metadata->metric("final_training_loss")));
+    for (const auto& kv : m.metadata->metrics) CHECK(kv.first != "final_train_loss");
+    CHECK(m.history.empty());  // written before section HIST existed
     tenon::predictor<float> p(m);
     REQUIRE(p.is_classification());
     CHECK(p.class_names() == std::vector<std::string>{"cavitating", "ok", "worn"});
@@ -423,4 +429,52 @@ TEST_CASE("the version-1 fixture file loads and predicts exactly what it did whe
         const auto out = p.predict_cells(rows[i], 1);
         for (int k = 0; k < 3; ++k) CHECK(same_bits(out.at(0, static_cast<std::size_t>(k)), expected[i][k]));
     }
+}
+
+TEST_CASE_TEMPLATE("a model file written with the earlier batch-normalization names still loads", T, float, double) {
+    // Files written before the renaming stored the batch-norm coefficient as
+    // "momentum" in the architecture and the estimates as "running_mean" and
+    // "running_variance" among the weights. Such bytes are built here from a
+    // network's own record and weights, with only the names changed.
+    tenon::random_engine engine(17);
+    tenon::network<T> net;
+    net.add(tenon::dense<T>(3, 4, engine), "in");
+    net.add(tenon::batch_norm<T>(4, 0.25), "bn");
+    net.add(tenon::dense<T>(4, 2, engine), "out");
+    net.find("bn.population_mean").assign(tenon::make_matrix<T>({{T(0.5), T(-1), T(2), T(0)}}));
+    net.find("bn.population_variance").assign(tenon::make_matrix<T>({{T(1.5), T(0.25), T(4), T(1)}}));
+    net.set_mode(tenon::run_mode::inference);
+
+    tenon::model_file<T> earlier = tenon::capture_network(net);
+    tenon::layer_record& bn = earlier.architecture.children.at(1);
+    REQUIRE(bn.kind == "batch_norm");
+    for (auto& field : bn.numbers)
+        if (field.first == "batch_weight") field.first = "momentum";
+    REQUIRE(!bn.has("batch_weight"));
+    std::size_t renamed = 0;
+    for (auto& w : earlier.weights) {
+        const std::string before = w.name;
+        if (w.name == "bn.population_mean") w.name = "bn.running_mean";
+        if (w.name == "bn.population_variance") w.name = "bn.running_variance";
+        if (w.name != before) ++renamed;
+    }
+    REQUIRE(renamed == 2);
+    const auto bytes = tenon::model_file_to_bytes(earlier);
+    const std::string text(bytes.begin(), bytes.end());
+    REQUIRE(text.find("running_mean") != std::string::npos);  // the bytes hold the earlier names
+    REQUIRE(text.find("momentum") != std::string::npos);
+
+    const auto back = tenon::model_file_from_bytes<T>(bytes);
+    std::vector<std::string> names;
+    for (const auto& w : back.weights) names.push_back(w.name);
+    CHECK(names == std::vector<std::string>{"in.weights", "in.bias", "bn.gain", "bn.bias", "out.weights", "out.bias",
+                                            "bn.population_mean", "bn.population_variance"});
+    tenon::network<T> rebuilt = tenon::rebuild_network(back);
+    CHECK(rebuilt.describe() == net.describe());  // the coefficient 0.25 arrived as batch_weight
+    CHECK(rebuilt.find("bn.population_variance").value() == net.find("bn.population_variance").value());
+    const tenon::matrix<T> x = tenon::make_matrix<T>({{T(0.3), T(-1.2), T(2)}, {T(1), T(0), T(-0.5)}});
+    tenon::tape<T> t1, t2;
+    const tenon::matrix<T> expected = net.forward(t1, x).value();
+    const tenon::matrix<T> got = rebuilt.forward(t2, x).value();
+    for (std::size_t k = 0; k < expected.size(); ++k) CHECK(same_bits(got.data()[k], expected.data()[k]));
 }

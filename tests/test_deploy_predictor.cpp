@@ -106,11 +106,11 @@ TEST_CASE_TEMPLATE("a predictor from a loaded file gives the trainer's predictio
 TEST_CASE_TEMPLATE("every layer kind is evaluated as the tape evaluates it", T, float, double) {
     tenon::random_engine rng(5);
     tenon::network<T> net;
-    net.add(tenon::dense<T>(6, 8, rng, {tenon::init_scheme::glorot_uniform, 0.0}, {tenon::init_scheme::glorot_uniform, 0.0}), "in");
+    net.add(tenon::dense<T>(6, 8, rng, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}), "in");
     net.add(tenon::batch_norm<T>(8), "bn");
     net.add(tenon::activation_layer<T>(tenon::activation::gelu), "g");
     tenon::residual<T> block;
-    block.add(tenon::dense<T>(8, 8, rng, {tenon::init_scheme::glorot_uniform, 0.0}), "d");
+    block.add(tenon::dense<T>(8, 8, rng, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}), "d");
     block.add(tenon::layer_norm<T>(8), "ln");
     block.add(tenon::activation_layer<T>(tenon::activation::elu), "e");
     block.add(tenon::dropout<T>(0.3, 1), "drop");
@@ -119,7 +119,7 @@ TEST_CASE_TEMPLATE("every layer kind is evaluated as the tape evaluates it", T, 
                    tenon::activation::gelu_tanh, tenon::activation::relu, tenon::activation::log_softmax, tenon::activation::softmax}) {
         net.add(tenon::activation_layer<T>(a));
     }
-    // Non-trivial running statistics and gains.
+    // Non-trivial population estimates and gains.
     for (auto* p : net.state_buffers())
         for (std::size_t k = 0; k < p->size(); ++k) p->value().data()[k] = static_cast<T>(rng.uniform(0.5, 1.5));
     for (auto* p : net.parameters())
@@ -210,12 +210,12 @@ TEST_CASE("inputs outside the training range are flagged per cell") {
 
 TEST_CASE("bad raw rows give statuses without throwing, and the throwing calls raise their codes") {
     const auto t = pump_table(200, 8);
-    tenon::plan recipe = condition_plan();
+    tenon::plan preparation = condition_plan();
     tenon::feature_steps lenient;
     lenient.unseen = tenon::unseen_policy::other_slot;
-    lenient.fill = tenon::fill_method::most_frequent;
-    recipe.set_steps("fluid", lenient);
-    auto model = tenon::fit_model<float>(t, recipe, range(0, 160), range(160, 200), small_settings());
+    lenient.fill = tenon::fill_method::mode;
+    preparation.set_steps("fluid", lenient);
+    auto model = tenon::fit_model<float>(t, preparation, range(0, 160), range(160, 200), small_settings());
     tenon::predictor<float> p(tenon::make_model_file(model, t, range(0, 160), small_settings()), 4);
     tenon::prediction_view<float> out;
 
@@ -267,7 +267,7 @@ TEST_CASE("bad raw rows give statuses without throwing, and the throwing calls r
     CHECK(code_of([&] { p.predict_prepared(features.data(), 5); }) == "deploy.input.shape");
     CHECK_THROWS_WITH_AS(p.predict_named(no_head, 2), doctest::Contains("column 'head'"), tenon::error);
 
-    // The strict policy of the default plan refuses an unseen category.
+    // The strict steps of condition_plan() refuse an unseen category.
     trained<float> strict_run(condition_plan());
     tenon::predictor<float> strict(strict_run.model);
     CHECK(strict.try_predict_cells(oil, 1, out).code == tenon::input_status::unseen_category);

@@ -35,10 +35,10 @@ template <class T>
 tenon::network<T> net_with_dropout(std::uint64_t seed) {
     tenon::random_engine rng(seed);
     tenon::network<T> net;
-    net.add(tenon::dense<T>(2, 16, rng, {tenon::init_scheme::he_uniform, 0.0}), "hidden1");
+    net.add(tenon::dense<T>(2, 16, rng, {tenon::init_scheme::he, tenon::init_distribution::uniform}), "hidden1");
     net.add(tenon::activation_layer<T>(tenon::activation::relu), "hidden1_act");
     net.add(tenon::dropout<T>(0.2, seed), "drop");
-    net.add(tenon::dense<T>(16, 1, rng, {tenon::init_scheme::glorot_uniform, 0.0}), "output");
+    net.add(tenon::dense<T>(16, 1, rng, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}), "output");
     return net;
 }
 
@@ -72,7 +72,7 @@ TEST_CASE_TEMPLATE("a run checkpointed to a file, loaded and continued matches t
     tenon::adam<T> rule_a;
     tenon::stall_reduction_options so;
     so.initial_rate = 0.02;
-    so.patience = 1;
+    so.tolerated_reports = 1;
     tenon::stall_reduction schedule_a(so);
     tenon::trainer<T> trainer_a(net_a, rule_a, schedule_a, options<T>(epochs));
     const auto outcome_a = trainer_a.run(train, validation);

@@ -121,8 +121,8 @@ TEST_CASE_TEMPLATE("p ranks with batch b train the weights of one process with b
     // one rank has no row in it and the others one each.
     const auto train = press_rows<T>(4 * 8 * 6 + 3, 1);
     const auto validation = press_rows<T>(41, 2);
-    auto team_net = tenon::make_mlp<T>({3, 16, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 7);
-    auto alone_net = tenon::make_mlp<T>({3, 16, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 7);
+    auto team_net = tenon::make_mlp<T>({3, 16, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 7);
+    auto alone_net = tenon::make_mlp<T>({3, 16, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 7);
     tenon::mpi_team team(world());
     const run_result shared = train_once(team_net, train, validation, 8, 6, &team);
     const run_result alone = train_once(alone_net, train, validation, 8 * p, 6, nullptr);
@@ -139,7 +139,7 @@ TEST_CASE_TEMPLATE("p ranks with batch b train the weights of one process with b
         std::printf("equivalence (%s, %zu ranks, batch 8 x %zu vs one process with batch %zu): max weight difference %.3g\n",
                     sizeof(T) == 4 ? "float" : "double", p, p, 8 * p, difference);
     for (std::size_t e = 0; e < alone.outcome.history.size(); ++e) {
-        CHECK(shared.outcome.history[e].train_loss == doctest::Approx(alone.outcome.history[e].train_loss).epsilon(1e-4));
+        CHECK(shared.outcome.history[e].training_loss == doctest::Approx(alone.outcome.history[e].training_loss).epsilon(1e-4));
         CHECK(shared.outcome.history[e].validation_loss == doctest::Approx(alone.outcome.history[e].validation_loss).epsilon(1e-4));
         CHECK(shared.outcome.history[e].validation_metric == doctest::Approx(alone.outcome.history[e].validation_metric).epsilon(1e-4));
     }
@@ -150,8 +150,8 @@ TEST_CASE("class-weighted cross-entropy: the ranks' gradients are weighted by th
     const std::size_t p = world().size();
     const auto train = seal_rows<T>(3 * 5 * 4 + 5, 3);
     const auto validation = seal_rows<T>(23, 4);
-    auto team_net = tenon::make_mlp<T>({2, 12, 3}, tenon::activation::relu, {tenon::init_scheme::he_uniform, 0.0}, 9);
-    auto alone_net = tenon::make_mlp<T>({2, 12, 3}, tenon::activation::relu, {tenon::init_scheme::he_uniform, 0.0}, 9);
+    auto team_net = tenon::make_mlp<T>({2, 12, 3}, tenon::activation::relu, {tenon::init_scheme::he, tenon::init_distribution::uniform}, 9);
+    auto alone_net = tenon::make_mlp<T>({2, 12, 3}, tenon::activation::relu, {tenon::init_scheme::he, tenon::init_distribution::uniform}, 9);
     tenon::training_options<T> o;
     o.loss_settings.class_weights = {1.0, 3.0, 0.5};
     tenon::mpi_team team(world());
@@ -166,7 +166,7 @@ TEST_CASE("class-weighted cross-entropy: the ranks' gradients are weighted by th
 TEST_CASE("a cancellation on one rank stops every rank after the same step") {
     using T = float;
     const auto train = press_rows<T>(400, 5);
-    auto net = tenon::make_mlp<T>({3, 8, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 3);
+    auto net = tenon::make_mlp<T>({3, 8, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 3);
     std::atomic<bool> cancel{false};
     tenon::training_options<T> o;
     o.cancel = &cancel;
@@ -187,7 +187,7 @@ TEST_CASE("the wall-clock budget is spent when any rank's clock says so") {
     using T = float;
     const auto train = press_rows<T>(300, 6);
     const auto validation = press_rows<T>(30, 7);
-    auto net = tenon::make_mlp<T>({3, 8, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 4);
+    auto net = tenon::make_mlp<T>({3, 8, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 4);
     double now = 0.0;
     tenon::training_options<T> o;
     o.time_budget_seconds = 10.0;
@@ -205,7 +205,7 @@ TEST_CASE("the wall-clock budget is spent when any rank's clock says so") {
 TEST_CASE("a divergence is seen by every rank, and the guard retries together") {
     using T = float;
     const auto train = press_rows<T>(200, 8);
-    auto net = tenon::make_mlp<T>({3, 8, 1}, tenon::activation::relu, {tenon::init_scheme::he_uniform, 0.0}, 5);
+    auto net = tenon::make_mlp<T>({3, 8, 1}, tenon::activation::relu, {tenon::init_scheme::he, tenon::init_distribution::uniform}, 5);
     tenon::gradient_descent<T> rule;
     tenon::constant_rate schedule(1e30);  // overflows in the first steps
     tenon::training_options<T> o;
@@ -226,7 +226,7 @@ TEST_CASE("a divergence is seen by every rank, and the guard retries together") 
 TEST_CASE("ranks that train on different rows refuse together: train.team.mismatch") {
     using T = float;
     const auto train = press_rows<T>(world().rank() == 0 ? 101 : 100, 9);
-    auto net = tenon::make_mlp<T>({3, 4, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 6);
+    auto net = tenon::make_mlp<T>({3, 4, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 6);
     tenon::mpi_team team(world());
     if (world().size() > 1) {
         CHECK_THROWS_WITH_AS(train_once(net, train, {}, 10, 2, &team), doctest::Contains("train.team.mismatch"), tenon::error);
@@ -272,11 +272,11 @@ tenon::plan line_plan() {
     tenon::feature_steps range;
     range.scaling = tenon::scaling_method::min_max;
     p.set_steps("speed", range);
-    tenon::feature_steps robust;
-    robust.scaling = tenon::scaling_method::robust;
-    p.set_steps("load", robust);
+    tenon::feature_steps quartile_scaled;
+    quartile_scaled.scaling = tenon::scaling_method::median_iqr;
+    p.set_steps("load", quartile_scaled);
     tenon::feature_steps category;
-    category.fill = tenon::fill_method::most_frequent;
+    category.fill = tenon::fill_method::mode;
     category.missing_indicator = true;
     p.set_steps("die", category);
     return p;
@@ -418,8 +418,8 @@ TEST_CASE_TEMPLATE("shards without shuffling: p ranks with batch b train the wei
     const auto my_train = row_block(all_train, train_layout.first[r], train_layout.size[r]);
     const auto my_validation = row_block(all_validation, validation_layout.first[r], validation_layout.size[r]);
 
-    auto team_net = tenon::make_mlp<T>({3, 16, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 7);
-    auto alone_net = tenon::make_mlp<T>({3, 16, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 7);
+    auto team_net = tenon::make_mlp<T>({3, 16, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 7);
+    auto alone_net = tenon::make_mlp<T>({3, 16, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 7);
     tenon::mpi_team team(world());
     tenon::training_options<T> o;
     o.shuffle = false;
@@ -447,7 +447,7 @@ TEST_CASE_TEMPLATE("shards without shuffling: p ranks with batch b train the wei
                     sizeof(T) == 4 ? "float" : "double", p, p, *std::min_element(train_layout.size.begin(), train_layout.size.end()),
                     *std::max_element(train_layout.size.begin(), train_layout.size.end()), difference);
     for (std::size_t e = 0; e < alone.outcome.history.size(); ++e) {
-        CHECK(shared.outcome.history[e].train_loss == doctest::Approx(alone.outcome.history[e].train_loss).epsilon(1e-4));
+        CHECK(shared.outcome.history[e].training_loss == doctest::Approx(alone.outcome.history[e].training_loss).epsilon(1e-4));
         CHECK(shared.outcome.history[e].validation_loss == doctest::Approx(alone.outcome.history[e].validation_loss).epsilon(1e-4));
         CHECK(shared.outcome.history[e].validation_metric == doctest::Approx(alone.outcome.history[e].validation_metric).epsilon(1e-4));
     }
@@ -461,7 +461,7 @@ TEST_CASE("shards with shuffling: every rank holds the same bits every epoch, a 
     const auto my_train = row_block(all_train, layout.first[r], layout.size[r]);
     tenon::mpi_team team(world());
     const auto run = [&](bool shuffle, std::vector<std::size_t>* order) {
-        auto net = tenon::make_mlp<T>({3, 10, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 8);
+        auto net = tenon::make_mlp<T>({3, 10, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 8);
         tenon::adam<T> rule;
         tenon::constant_rate schedule(0.01);
         tenon::training_options<T> o;
@@ -515,12 +515,12 @@ TEST_CASE("shards: a run resumed from each rank's own progress continues as the 
         o.team = &team;
         return o;
     };
-    auto whole_net = tenon::make_mlp<T>({3, 8, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 9);
+    auto whole_net = tenon::make_mlp<T>({3, 8, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 9);
     tenon::adam<T> whole_rule;
     tenon::constant_rate whole_schedule(0.01);
     tenon::trainer<T>(whole_net, whole_rule, whole_schedule, options(4)).run(my_train, {});
 
-    auto net = tenon::make_mlp<T>({3, 8, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 9);
+    auto net = tenon::make_mlp<T>({3, 8, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 9);
     tenon::adam<T> rule;
     tenon::constant_rate schedule(0.01);
     tenon::trainer<T> part(net, rule, schedule, options(2));
@@ -541,7 +541,7 @@ TEST_CASE("a rank whose own rows fail the checks stops every rank before a step:
     const std::size_t r = world().rank(), last = world().size() - 1;
     auto rows = press_rows<T>(40, 15 + r);
     if (r == last) rows.features(7, 1) = std::numeric_limits<T>::quiet_NaN();  // only the last rank's shard is bad
-    auto net = tenon::make_mlp<T>({3, 4, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 6);
+    auto net = tenon::make_mlp<T>({3, 4, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 6);
     const std::uint64_t before = tenon::weights_checksum(net);
     tenon::mpi_team team(world());
     tenon::training_options<T> o;
@@ -563,7 +563,7 @@ TEST_CASE("ranks that disagree on row holding, shuffling or epochs refuse togeth
     if (world().size() < 2) return;
     const bool first = world().rank() == 0;
     const auto rows = press_rows<T>(60, 16);
-    auto net = tenon::make_mlp<T>({3, 4, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 6);
+    auto net = tenon::make_mlp<T>({3, 4, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 6);
     tenon::mpi_team team(world());
     tenon::training_options<T> holding;
     holding.member_rows = first ? tenon::team_rows::shard_per_member : tenon::team_rows::all_on_every_member;

@@ -135,7 +135,7 @@ bool all_finite(const std::vector<T>& w) {
 
 template <class T>
 tenon::network<T> tiny_net(std::uint64_t seed) {
-    return tenon::make_mlp<T>({2, 6, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, seed);
+    return tenon::make_mlp<T>({2, 6, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, seed);
 }
 
 std::vector<std::string> temporaries_of(const std::string& path) {
@@ -326,7 +326,7 @@ TEST_CASE_TEMPLATE("an allocation failure at any point of a training run propaga
     o.epochs = 3;
     o.batch_size = 8;
     o.patience = 0;
-    o.restore_best = false;  // so the network holds the last step's weights
+    o.keep_best = false;  // so the network holds the last step's weights
     {
         // Warm-up: the matrix kernel's per-thread scratch grows once and stays.
         auto net = tiny_net<T>(3);
@@ -448,7 +448,7 @@ TEST_CASE_TEMPLATE("NaN or infinity in the training data is refused before any s
 TEST_CASE_TEMPLATE("NaN or infinity in the gradients rolls back to the last good epoch; the loss stays finite throughout", T, float, double) {
     for (const T poison : {std::numeric_limits<T>::quiet_NaN(), std::numeric_limits<T>::infinity(), -std::numeric_limits<T>::infinity()}) {
         const auto train = wave_rows<T>(32, 1), validation = wave_rows<T>(8, 2);
-        tenon::network<T> net = tenon::make_mlp<T>({2, 6, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 3);
+        tenon::network<T> net = tenon::make_mlp<T>({2, 6, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 3);
         auto& layer = net.add(gradient_poison_layer<T>(), "poison");
         tenon::adam<T> rule;
         tenon::constant_rate schedule(0.01);
@@ -460,7 +460,7 @@ TEST_CASE_TEMPLATE("NaN or infinity in the gradients rolls back to the last good
         o.batch_size = 8;
         o.patience = 0;
         o.divergence_retries = 2;
-        o.restore_best = false;
+        o.keep_best = false;
         o.on_batch = [&](const tenon::batch_progress& p) { batch_losses.push_back(p.loss); };
         o.on_epoch = [&](const tenon::epoch_summary& s) {
             if (s.epoch == 2) {
@@ -495,7 +495,7 @@ TEST_CASE_TEMPLATE("cancellation at every epoch boundary keeps the best weights,
     o.epochs = epochs;
     o.batch_size = 8;
     o.patience = 0;
-    o.restore_best = false;
+    o.keep_best = false;
 
     // The uninterrupted run, with the weights after every epoch.
     std::vector<std::vector<T>> after_epoch(1);
@@ -546,7 +546,7 @@ TEST_CASE_TEMPLATE("cancellation at every epoch boundary keeps the best weights,
             tenon::constant_rate schedule(0.02);
             std::atomic<bool> cancel{false};
             auto opts = o;
-            opts.restore_best = true;
+            opts.keep_best = true;
             opts.cancel = &cancel;
             opts.on_epoch = [&cancel, k](const tenon::epoch_summary& s) {
                 if (s.epoch == k) cancel = true;

@@ -55,20 +55,20 @@ std::vector<shape2> test_shapes(tenon::random_engine& rng) {
 
 std::string describe(shape2 s) { return tenon::to_string(s); }
 
-// loss = sum(f(watched parameters) * W) for a constant W of the output's shape.
+// loss = sum(f(tracked parameters) * W) for a constant W of the output's shape.
 using recorder = std::function<var<double>(tape<double>&, std::vector<var<double>>&)>;
 
 double check_op(std::vector<tenon::parameter<double>*> params, const recorder& op, tenon::random_engine& rng) {
     // Output shape (and so W's shape) from one probe recording.
     tape<double> probe;
     std::vector<var<double>> probe_vars;
-    for (auto* p : params) probe_vars.push_back(probe.watch(*p));
+    for (auto* p : params) probe_vars.push_back(probe.track(*p));
     const shape2 out = op(probe, probe_vars).shape();
     const matrix<double> weight = random_matrix(rng, out, -1.5, 1.5);
 
     const auto report = tenon::check_gradients(params, [&](tape<double>& t) {
         std::vector<var<double>> vars;
-        for (auto* p : params) vars.push_back(t.watch(*p));
+        for (auto* p : params) vars.push_back(t.track(*p));
         return tenon::sum(op(t, vars) * t.input(weight));
     });
     REQUIRE(report.parameters.size() == params.size());
@@ -88,7 +88,7 @@ TEST_CASE("gradient check agrees with a correct gradient") {
     tenon::parameter<double> w("w", make_matrix<double>({{0.3, -0.7}, {1.1, 0.4}}));
     const auto x = make_matrix<double>({{1.0, 2.0}, {-0.5, 0.25}, {0.0, 1.0}});
     const auto good = tenon::check_gradients({&w}, [&](tape<double>& t) {
-        return tenon::mean(tenon::tanh(tenon::matmul(t.input(x), t.watch(w))));
+        return tenon::mean(tenon::tanh(tenon::matmul(t.input(x), t.track(w))));
     });
     REQUIRE(good.parameters.size() == 1);
     CHECK(good.parameters[0].name == "w");
@@ -201,8 +201,8 @@ TEST_CASE("a composite graph with reuse and both leaf kinds matches finite diffe
     const auto x = random_matrix(rng, {5, 3}, -2.0, 2.0);
     const auto targets = random_matrix(rng, {5, 3}, 0.0, 1.0);
     const auto report = tenon::check_gradients({&w1, &b1, &w2}, [&](tape<double>& t) {
-        const auto h = tenon::tanh(tenon::matmul(t.input(x), t.watch(w1)) + t.watch(b1));
-        const auto logits = tenon::matmul(h * h + h, t.watch(w2));
+        const auto h = tenon::tanh(tenon::matmul(t.input(x), t.track(w1)) + t.track(b1));
+        const auto logits = tenon::matmul(h * h + h, t.track(w2));
         const auto picked = tenon::log_softmax_rows(logits) * t.input(targets.data(), 5, 3);
         return tenon::scale(tenon::mean(tenon::sum(picked, 1)), -1.0);
     });
@@ -314,7 +314,7 @@ TEST_CASE("host-defined operations recorded with tape::apply match finite differ
 TEST_CASE("the gradient check catches a wrong gradient") {
     const wrong_cube_operation<double> wrong;
     tenon::parameter<double> x("x", make_matrix<double>({{0.5, -1.2, 2.0}}));
-    const auto report = tenon::check_gradients({&x}, [&](tape<double>& t) { return tenon::sum(t.apply(wrong, {t.watch(x)})); });
+    const auto report = tenon::check_gradients({&x}, [&](tape<double>& t) { return tenon::sum(t.apply(wrong, {t.track(x)})); });
     // 2x^2 against 3x^2: the relative error is 1/3 wherever x^2 is not tiny.
     CHECK(report.max_rel_error == doctest::Approx(1.0 / 3.0).epsilon(1e-6));
     CHECK(report.parameters[0].max_abs_error > 1.0);
@@ -322,7 +322,7 @@ TEST_CASE("the gradient check catches a wrong gradient") {
     // A frozen parameter gets no analytic gradient, which the check reports too.
     tenon::parameter<double> frozen("frozen", make_matrix<double>({{0.5, 1.5}}));
     frozen.set_trainable(false);
-    const auto frozen_report = tenon::check_gradients({&frozen}, [&](tape<double>& t) { return tenon::sum(tenon::square(t.watch(frozen))); });
+    const auto frozen_report = tenon::check_gradients({&frozen}, [&](tape<double>& t) { return tenon::sum(tenon::square(t.track(frozen))); });
     CHECK(frozen_report.max_rel_error == doctest::Approx(1.0));
 }
 
@@ -330,7 +330,7 @@ TEST_CASE("stop_gradient passes the value and no gradient") {
     // d/dx sum(x * stop_gradient(x)) = stop_gradient(x) = x, not 2x.
     tenon::parameter<double> x("x", make_matrix<double>({{0.5, -1.5}, {2.0, 3.0}}));
     tape<double> t;
-    const auto v = t.watch(x);
+    const auto v = t.track(x);
     const auto held = tenon::stop_gradient(v);
     CHECK(held.value()(1, 0) == 2.0);
     t.backward(tenon::sum(v * held));
@@ -339,7 +339,7 @@ TEST_CASE("stop_gradient passes the value and no gradient") {
     // Through stop_gradient alone nothing flows, and backward is harmless.
     x.clear_gradient();
     t.clear();
-    const auto only = tenon::sum(tenon::exp(tenon::stop_gradient(t.watch(x))));
+    const auto only = tenon::sum(tenon::exp(tenon::stop_gradient(t.track(x))));
     CHECK_NOTHROW(t.backward(only));
     for (std::size_t k = 0; k < 4; ++k) CHECK(x.grad().data()[k] == 0.0);
 }

@@ -39,7 +39,7 @@ double layer_gradient_error(L& l, const matrix<double>& x, run_mode mode, const 
     params.push_back(&input);
     const auto report = tenon::check_gradients(params, [&](tenon::tape<double>& t) {
         if (before) before();
-        return probe(t, l.forward(t, t.watch(input), mode));
+        return probe(t, l.forward(t, t.track(input), mode));
     });
     return report.max_rel_error;
 }
@@ -64,22 +64,23 @@ TEST_CASE_TEMPLATE("initializers give bit-identical values for a seed", T, float
     // for bit on every standard library and compiler. Float weights are the
     // double draws rounded once.
     struct expected_values {
-        tenon::init_scheme scheme;
+        tenon::initializer init;
         double values[4];
     };
     const expected_values table[] = {
-        {tenon::init_scheme::glorot_uniform, {-0.72077047703504427, -0.20961235457150795, 0.31184433546874413, 0.73558975891964251}},
-        {tenon::init_scheme::glorot_normal, {-0.36310956912239284, -0.10559845911597993, 0.11081135075179666, 0.26138584387800728}},
-        {tenon::init_scheme::he_uniform, {-1.1770132602655197, -0.34229554165569298, 0.50923966738381665, 1.201213046246677}},
-        {tenon::init_scheme::he_normal, {-0.59295544338114714, -0.17244156163886776, 0.18095417803364994, 0.42684129565860268}},
-        {tenon::init_scheme::lecun_uniform, {-0.83227405788023567, -0.24203949867466279, 0.36008682205627873, 0.84938589065077519}},
-        {tenon::init_scheme::lecun_normal, {-0.41928281495628505, -0.12193459759324139, 0.12795392637163167, 0.30182237465064998}},
+        {{tenon::init_scheme::glorot, tenon::init_distribution::uniform}, {-0.72077047703504427, -0.20961235457150795, 0.31184433546874413, 0.73558975891964251}},
+        {{tenon::init_scheme::glorot, tenon::init_distribution::normal}, {-0.36310956912239284, -0.10559845911597993, 0.11081135075179666, 0.26138584387800728}},
+        {{tenon::init_scheme::he, tenon::init_distribution::uniform}, {-1.1770132602655197, -0.34229554165569298, 0.50923966738381665, 1.201213046246677}},
+        {{tenon::init_scheme::he, tenon::init_distribution::normal}, {-0.59295544338114714, -0.17244156163886776, 0.18095417803364994, 0.42684129565860268}},
+        {{tenon::init_scheme::lecun, tenon::init_distribution::uniform}, {-0.83227405788023567, -0.24203949867466279, 0.36008682205627873, 0.84938589065077519}},
+        {{tenon::init_scheme::lecun, tenon::init_distribution::normal}, {-0.41928281495628505, -0.12193459759324139, 0.12795392637163167, 0.30182237465064998}},
     };
     for (const auto& row : table) {
-        CAPTURE(tenon::init_scheme_name(row.scheme));
+        CAPTURE(tenon::init_scheme_name(row.init.scheme));
+        CAPTURE(tenon::init_distribution_name(row.init.distribution));
         tenon::random_engine engine(42);
         matrix<T> m({2, 2});
-        tenon::initialize(m, tenon::initializer{row.scheme, 0.0}, 3, 5, engine);
+        tenon::initialize(m, row.init, 3, 5, engine);
         for (int k = 0; k < 4; ++k) CHECK(m.data()[k] == static_cast<T>(row.values[k]));
     }
 }
@@ -89,18 +90,19 @@ TEST_CASE_TEMPLATE("each initializer's empirical variance matches its formula", 
     // eq. 10: 2 / fan_in; LeCun et al. 1998 section 4.6: 1 / fan_in.
     const std::size_t fan_in = 200, fan_out = 300;
     const struct {
-        tenon::init_scheme scheme;
+        tenon::initializer init;
         double variance;
     } table[] = {
-        {tenon::init_scheme::glorot_uniform, 2.0 / (fan_in + fan_out)}, {tenon::init_scheme::glorot_normal, 2.0 / (fan_in + fan_out)},
-        {tenon::init_scheme::he_uniform, 2.0 / fan_in},                 {tenon::init_scheme::he_normal, 2.0 / fan_in},
-        {tenon::init_scheme::lecun_uniform, 1.0 / fan_in},              {tenon::init_scheme::lecun_normal, 1.0 / fan_in},
+        {{tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 2.0 / (fan_in + fan_out)}, {{tenon::init_scheme::glorot, tenon::init_distribution::normal}, 2.0 / (fan_in + fan_out)},
+        {{tenon::init_scheme::he, tenon::init_distribution::uniform}, 2.0 / fan_in},                 {{tenon::init_scheme::he, tenon::init_distribution::normal}, 2.0 / fan_in},
+        {{tenon::init_scheme::lecun, tenon::init_distribution::uniform}, 1.0 / fan_in},              {{tenon::init_scheme::lecun, tenon::init_distribution::normal}, 1.0 / fan_in},
     };
     for (const auto& row : table) {
-        CAPTURE(tenon::init_scheme_name(row.scheme));
+        CAPTURE(tenon::init_scheme_name(row.init.scheme));
+        CAPTURE(tenon::init_distribution_name(row.init.distribution));
         tenon::random_engine engine(7);
         matrix<T> m({fan_in, fan_out});
-        tenon::initialize(m, tenon::initializer{row.scheme, 0.0}, fan_in, fan_out, engine);
+        tenon::initialize(m, row.init, fan_in, fan_out, engine);
         double total = 0.0, squares = 0.0;
         for (std::size_t k = 0; k < m.size(); ++k) {
             total += static_cast<double>(m.data()[k]);
@@ -113,19 +115,43 @@ TEST_CASE_TEMPLATE("each initializer's empirical variance matches its formula", 
         // sqrt(2 / n) = 0.6% for normals, less for uniforms; 3% is 5 sigma.
         CHECK(variance == doctest::Approx(row.variance).epsilon(0.03));
         CHECK(std::abs(mean) < 4.0 * std::sqrt(row.variance / n));
-        CHECK(tenon::init_variance(row.scheme, fan_in, fan_out) == doctest::Approx(row.variance));
+        CHECK(tenon::init_variance(row.init.scheme, fan_in, fan_out) == doctest::Approx(row.variance));
     }
 }
 
 TEST_CASE_TEMPLATE("zeros and constant initializers, and initializer names", T, float, double) {
     tenon::random_engine engine(1);
     matrix<T> m({3, 2});
-    tenon::initialize(m, tenon::initializer{tenon::init_scheme::constant, 0.25}, 3, 2, engine);
+    tenon::initialize(m, tenon::initializer{tenon::init_scheme::constant, {}, 0.25}, 3, 2, engine);
     for (std::size_t k = 0; k < m.size(); ++k) CHECK(m.data()[k] == T(0.25));
-    tenon::initialize(m, tenon::initializer{tenon::init_scheme::zeros, 0.0}, 3, 2, engine);
+    tenon::initialize(m, tenon::initializer{tenon::init_scheme::zeros}, 3, 2, engine);
     for (std::size_t k = 0; k < m.size(); ++k) CHECK(m.data()[k] == T(0));
-    CHECK(tenon::parse_init_scheme("he_normal") == tenon::init_scheme::he_normal);
+    CHECK(tenon::parse_init_scheme("he") == tenon::init_scheme::he);
+    CHECK(tenon::parse_init_distribution("normal") == tenon::init_distribution::normal);
+    const tenon::initializer parsed = tenon::parse_initializer("he", "normal");
+    CHECK((parsed.scheme == tenon::init_scheme::he && parsed.distribution == tenon::init_distribution::normal));
+    // The combined names written before the method and the distribution were
+    // separate still map to the same pair.
+    const struct {
+        const char* name;
+        tenon::init_scheme scheme;
+        tenon::init_distribution distribution;
+    } earlier[] = {
+        {"glorot_uniform", tenon::init_scheme::glorot, tenon::init_distribution::uniform},
+        {"glorot_normal", tenon::init_scheme::glorot, tenon::init_distribution::normal},
+        {"he_uniform", tenon::init_scheme::he, tenon::init_distribution::uniform},
+        {"he_normal", tenon::init_scheme::he, tenon::init_distribution::normal},
+        {"lecun_uniform", tenon::init_scheme::lecun, tenon::init_distribution::uniform},
+        {"lecun_normal", tenon::init_scheme::lecun, tenon::init_distribution::normal},
+    };
+    for (const auto& e : earlier) {
+        CAPTURE(e.name);
+        const tenon::initializer mapped = tenon::parse_initializer(e.name);
+        CHECK(mapped.scheme == e.scheme);
+        CHECK(mapped.distribution == e.distribution);
+    }
     CHECK(code_of([] { tenon::parse_init_scheme("gaussian"); }) == "model.record.unknown_kind");
+    CHECK(code_of([] { tenon::parse_init_distribution("triangular"); }) == "model.record.unknown_kind");
 }
 
 // ---------------------------------------------------------------- dense
@@ -148,7 +174,7 @@ TEST_CASE_TEMPLATE("dense layer computes x W + b", T, float, double) {
 
 TEST_CASE("dense layer gradients agree with finite differences") {
     tenon::random_engine engine(3);
-    tenon::dense<double> d(4, 3, engine, {}, tenon::initializer{tenon::init_scheme::constant, 0.1});
+    tenon::dense<double> d(4, 3, engine, {}, tenon::initializer{tenon::init_scheme::constant, {}, 0.1});
     CHECK(layer_gradient_error(d, random_matrix<double>(5, 4, 11), run_mode::training) < 1e-6);
     tenon::dense<double> no_bias(4, 2, engine, {}, {}, false);
     CHECK(layer_gradient_error(no_bias, random_matrix<double>(3, 4, 12), run_mode::training) < 1e-6);
@@ -251,7 +277,7 @@ TEST_CASE("layer normalization gradients agree with finite differences") {
     CHECK(layer_gradient_error(ln, random_matrix<double>(4, 5, 53), run_mode::training) < 1e-6);
 }
 
-TEST_CASE_TEMPLATE("batch normalization updates running statistics and uses them at inference", T, float, double) {
+TEST_CASE_TEMPLATE("batch normalization updates population estimates and uses them at inference", T, float, double) {
     // Ioffe & Szegedy 2015, Algorithm 1 (training) and Algorithm 2 (inference).
     tenon::batch_norm<T> bn(2, 0.5);
     tenon::tape<T> t;
@@ -259,22 +285,22 @@ TEST_CASE_TEMPLATE("batch normalization updates running statistics and uses them
     const auto y = bn.forward(t, t.input(x), run_mode::training);
     // Column 0: mean 3, biased variance 8/3; normalized (1 - 3) / sqrt(8/3 + 1e-5).
     CHECK(y.value()(0, 0) == doctest::Approx(-2.0 / std::sqrt(8.0 / 3.0 + 1e-5)));
-    // Running mean: 0.5 * 0 + 0.5 * 3; running variance: 0.5 * 1 + 0.5 * (3/2) * (8/3) (unbiased).
-    CHECK(bn.running_mean().value()(0, 0) == doctest::Approx(1.5));
-    CHECK(bn.running_variance().value()(0, 0) == doctest::Approx(0.5 + 0.5 * 4.0));
-    CHECK(bn.running_mean().value()(0, 1) == doctest::Approx(15.0));
+    // Population mean: 0.5 * 0 + 0.5 * 3; population variance: 0.5 * 1 + 0.5 * (3/2) * (8/3) (unbiased).
+    CHECK(bn.population_mean().value()(0, 0) == doctest::Approx(1.5));
+    CHECK(bn.population_variance().value()(0, 0) == doctest::Approx(0.5 + 0.5 * 4.0));
+    CHECK(bn.population_mean().value()(0, 1) == doctest::Approx(15.0));
 
-    // Inference: the running statistics, not the batch's.
-    bn.running_mean().assign(make_matrix<T>({{T(2), T(-1)}}));
-    bn.running_variance().assign(make_matrix<T>({{T(4), T(0.25)}}));
+    // Inference: the population estimates, not the batch's.
+    bn.population_mean().assign(make_matrix<T>({{T(2), T(-1)}}));
+    bn.population_variance().assign(make_matrix<T>({{T(4), T(0.25)}}));
     const auto z = bn.forward(t, t.input(x), run_mode::inference);
     for (std::size_t i = 0; i < 3; ++i) {
         CHECK(z.value()(i, 0) == doctest::Approx((x(i, 0) - 2.0) / std::sqrt(4.0 + 1e-5)));
         CHECK(z.value()(i, 1) == doctest::Approx((x(i, 1) + 1.0) / std::sqrt(0.25 + 1e-5)));
     }
-    // Inference leaves the running statistics alone.
-    CHECK(bn.running_mean().value()(0, 0) == T(2));
-    CHECK(!bn.running_mean().trainable());
+    // Inference leaves the population estimates alone.
+    CHECK(bn.population_mean().value()(0, 0) == T(2));
+    CHECK(!bn.population_mean().trainable());
 
     CHECK(code_of([&] { bn.forward(t, t.input(make_matrix<T>({{T(1), T(2)}})), run_mode::training); }) == "model.batch_norm.batch_too_small");
     CHECK(code_of([] { tenon::batch_norm<T>(2, 0.0); }) == "model.layer.option");
@@ -285,7 +311,7 @@ TEST_CASE("batch normalization gradients agree with finite differences in both m
     bn.gain().assign(random_matrix<double>(1, 3, 61, 0.5, 1.5));
     bn.bias().assign(random_matrix<double>(1, 3, 62));
     CHECK(layer_gradient_error(bn, random_matrix<double>(5, 3, 63), run_mode::training) < 1e-6);
-    bn.running_variance().assign(random_matrix<double>(1, 3, 64, 0.5, 2.0));
+    bn.population_variance().assign(random_matrix<double>(1, 3, 64, 0.5, 2.0));
     CHECK(layer_gradient_error(bn, random_matrix<double>(5, 3, 65), run_mode::inference) < 1e-6);
 }
 
@@ -317,7 +343,7 @@ TEST_CASE("residual block gradients agree with finite differences") {
 // ---------------------------------------------------------------- network
 
 TEST_CASE_TEMPLATE("an MLP names its parameters and counts them", T, float, double) {
-    auto net = tenon::make_mlp<T>({3, 5, 2}, tenon::activation::relu, {tenon::init_scheme::he_normal, 0.0}, 42);
+    auto net = tenon::make_mlp<T>({3, 5, 2}, tenon::activation::relu, {tenon::init_scheme::he, tenon::init_distribution::normal}, 42);
     // 3*5 + 5 + 5*2 + 2 (weights and biases of two dense layers).
     CHECK(net.parameter_count() == 32);
     const auto& params = net.parameters();
@@ -334,7 +360,7 @@ TEST_CASE_TEMPLATE("an MLP names its parameters and counts them", T, float, doub
     CHECK(code_of([] { tenon::make_mlp<T>({3}, tenon::activation::relu, {}, 1); }) == "model.layer.option");
 
     // The same seed gives the same weights.
-    auto twin = tenon::make_mlp<T>({3, 5, 2}, tenon::activation::relu, {tenon::init_scheme::he_normal, 0.0}, 42);
+    auto twin = tenon::make_mlp<T>({3, 5, 2}, tenon::activation::relu, {tenon::init_scheme::he, tenon::init_distribution::normal}, 42);
     CHECK(twin.find("hidden1.weights").value() == net.find("hidden1.weights").value());
 }
 
@@ -348,7 +374,7 @@ TEST_CASE_TEMPLATE("network naming: automatic, nested and unique", T, float, dou
     CHECK(net.layer_at(0).name() == "dense1");
     CHECK(net.find("block.norm.gain").size() == 4);
     CHECK(block.layer_at(1).name() == "tanh2");
-    CHECK(net.find("batch_norm3.running_mean").size() == 4);
+    CHECK(net.find("batch_norm3.population_mean").size() == 4);
     CHECK(net.state_count() == 8);
     CHECK(net.parameter_count() == 2 * 4 + 4 + 4 + 4 + 4 + 4);
     CHECK(code_of([&] { net.add(tenon::dense<T>(4, 1), "dense1"); }) == "model.network.duplicate_name");
@@ -367,7 +393,7 @@ TEST_CASE_TEMPLATE("network mode switches dropout and batch normalization", T, f
     CHECK(net.forward(t, x).value() == x);
 }
 
-TEST_CASE_TEMPLATE("a snapshot restores every parameter and running statistic", T, float, double) {
+TEST_CASE_TEMPLATE("a snapshot restores every parameter and population estimate", T, float, double) {
     tenon::network<T> net;
     tenon::random_engine engine(5);
     net.add(tenon::dense<T>(3, 2, engine));
@@ -376,12 +402,12 @@ TEST_CASE_TEMPLATE("a snapshot restores every parameter and running statistic", 
     net.snapshot_into(saved);
     const matrix<T> before = net.find("dense1.weights").value();
     tenon::tape<T> t;
-    net.forward(t, random_matrix<T>(4, 3, 81));  // moves the running statistics
+    net.forward(t, random_matrix<T>(4, 3, 81));  // moves the population estimates
     net.find("dense1.weights").value().fill(T(9));
-    CHECK(net.find("batch_norm2.running_mean").value() != saved.values[4]);
+    CHECK(net.find("batch_norm2.population_mean").value() != saved.values[4]);
     net.restore(saved);
     CHECK(net.find("dense1.weights").value() == before);
-    CHECK(net.find("batch_norm2.running_mean").value() == saved.values[4]);
+    CHECK(net.find("batch_norm2.population_mean").value() == saved.values[4]);
 
     tenon::network<T> other;
     other.add(tenon::dense<T>(3, 2));
@@ -504,7 +530,7 @@ TEST_CASE_TEMPLATE("network forward fuses dense + activation without changing va
     for (const auto& c : cases) {
         const std::string hidden_name = tenon::activation_name(c.hidden);
         CAPTURE(hidden_name);
-        auto net = tenon::make_mlp<T>({6, 8, 7, 3}, c.hidden, {tenon::init_scheme::he_normal, 0.0}, 5, activation::sigmoid);
+        auto net = tenon::make_mlp<T>({6, 8, 7, 3}, c.hidden, {tenon::init_scheme::he, tenon::init_distribution::normal}, 5, activation::sigmoid);
         tenon::random_engine engine(9);
         matrix<T> input({10, 6}), weights({10, 3});
         for (std::size_t k = 0; k < input.size(); ++k) input.data()[k] = engine.uniform<T>(T(-2), T(2));
@@ -544,7 +570,7 @@ TEST_CASE_TEMPLATE("network forward fuses dense + activation without changing va
 }
 
 TEST_CASE("a network with fused dense + tanh layers passes the finite-difference check") {
-    auto net = tenon::make_mlp<double>({4, 5, 3}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 3,
+    auto net = tenon::make_mlp<double>({4, 5, 3}, tenon::activation::tanh, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 3,
                                        tenon::activation::sigmoid);
     matrix<double> input({6, 4});
     tenon::random_engine engine(4);

@@ -55,7 +55,7 @@ std::string code_of(F&& f) {
 template <class Build>
 double gradient_error(const matrix<double>& start, Build&& build) {
     tenon::parameter<double> p("prediction", start);
-    const auto r = tenon::check_gradients({&p}, [&](tenon::tape<double>& t) { return build(t, t.watch(p)); });
+    const auto r = tenon::check_gradients({&p}, [&](tenon::tape<double>& t) { return build(t, t.track(p)); });
     return r.max_rel_error;
 }
 

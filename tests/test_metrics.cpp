@@ -6,6 +6,7 @@
 #include <vector>
 
 #include <tenon/train/metrics.hpp>
+#include <tenon/train/report_svg.hpp>
 
 TEST_CASE("classification scores of a small worked example") {
     // truth 0 0 1 1 2 2, predicted 0 1 1 1 2 0; by hand:
@@ -29,7 +30,7 @@ TEST_CASE("classification scores of a small worked example") {
     CHECK(s.per_class[1].f1 == doctest::Approx(0.8));
     CHECK(s.per_class[2].precision == doctest::Approx(1.0));
     CHECK(s.per_class[2].f1 == doctest::Approx(2.0 / 3.0));
-    CHECK(s.per_class[2].support == 2);
+    CHECK(s.per_class[2].true_rows == 2);
     CHECK(s.macro_precision == doctest::Approx((0.5 + 2.0 / 3.0 + 1.0) / 3.0));
     CHECK(s.macro_recall == doctest::Approx((0.5 + 1.0 + 0.5) / 3.0));
     CHECK(s.macro_f1 == doctest::Approx((0.5 + 0.8 + 2.0 / 3.0) / 3.0));
@@ -82,4 +83,24 @@ TEST_CASE("metric inputs that do not fit are clear errors") {
                          "[core.argument.invalid] log_loss: row 0 has class 2 but only 2 probability columns", tenon::error);
     CHECK_THROWS_WITH_AS(tenon::score_values(static_cast<const double*>(nullptr), static_cast<const double*>(nullptr), 0),
                          "[core.argument.invalid] score_values: no rows to score", tenon::error);
+}
+
+TEST_CASE("the confusion heat map's colour scale runs from parchment through ochre to umber, darkening throughout") {
+    CHECK(tenon::detail::heat_colour(0.0) == "#f5f1e6");
+    CHECK(tenon::detail::heat_colour(0.5) == "#d6963e");
+    CHECK(tenon::detail::heat_colour(1.0) == "#5a231e");
+    CHECK(tenon::detail::heat_colour(-1.0) == "#f5f1e6");  // clamped
+    CHECK(tenon::detail::heat_colour(std::nan("")) == "#f5f1e6");
+    // Relative luminance (ITU-R BT.709 weights) falls with the share.
+    const auto luminance = [](const std::string& hex) {
+        const auto channel = [&](std::size_t at) { return static_cast<double>(std::stoi(hex.substr(at, 2), nullptr, 16)); };
+        return 0.2126 * channel(1) + 0.7152 * channel(3) + 0.0722 * channel(5);
+    };
+    double previous = 256.0;
+    for (int k = 0; k <= 20; ++k) {
+        const double y = luminance(tenon::detail::heat_colour(k / 20.0));
+        CAPTURE(k);
+        CHECK(y < previous);
+        previous = y;
+    }
 }

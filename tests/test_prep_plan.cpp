@@ -44,6 +44,7 @@ tenon::plan bench_plan() {
     tenon::feature_steps pressure;
     pressure.fill = tenon::fill_method::median;
     pressure.scaling = tenon::scaling_method::min_max;
+    pressure.indicator_if_missing_in_training = false;
     tenon::feature_steps model;
     model.unseen = tenon::unseen_policy::other_slot;
     tenon::plan p;
@@ -173,14 +174,15 @@ TEST_CASE("plan errors name the column, the row and the value") {
     auto t = bench_table();
     std::string message;
     tenon::plan strict;
-    strict.set_role("machine", tenon::column_role::ignored)
+    strict.set_default_steps(tenon::strict_feature_steps())
+        .set_role("machine", tenon::column_role::ignored)
         .set_role("when", tenon::column_role::ignored)
         .set_target("verdict", tenon::target_kind::classification);
     auto m = strict.measure(t, {0, 1, 2, 3});
     CHECK(error_code_of([&] { m.apply<double>(t, {2}); }, &message) == "prep.value.missing");
-    CHECK(message == "[prep.value.missing] bench.csv row 2, column 'flow': the cell is missing and the plan has no fill for it");
+    CHECK(message == "[prep.value.missing] bench.csv line 4, column 'flow': the cell is missing and the plan has no fill for it");
     CHECK(error_code_of([&] { m.apply<double>(t, {6}); }, &message) == "prep.category.unseen");
-    CHECK(message == "[prep.category.unseen] bench.csv row 6, column 'model': the category 'D' was not seen in the training rows");
+    CHECK(message == "[prep.category.unseen] bench.csv line 8, column 'model': the category 'D' was not seen in the training rows");
     CHECK(error_code_of([&] { m.apply<double>(t, {99}); }, &message) == "prep.rows.out_of_range");
     CHECK(message == "[prep.rows.out_of_range] bench.csv: row 99 is not below the row count 8");
 
@@ -201,7 +203,7 @@ TEST_CASE("plan errors name the column, the row and the value") {
 
     // A class never seen in training.
     CHECK(error_code_of([&] { strict.measure(t, {0, 1}).apply<double>(t, {5}); }, &message) == "prep.category.unseen");
-    CHECK(message == "[prep.category.unseen] bench.csv row 5: the class 'fault' of target 'verdict' was not seen in the training rows");
+    CHECK(message == "[prep.category.unseen] bench.csv line 7: the class 'fault' of target 'verdict' was not seen in the training rows");
 
     // Date/time features parse raw cells as date/times.
     tenon::plan timed;
@@ -253,6 +255,41 @@ TEST_CASE("the measured state round-trips through bytes exactly") {
         const auto code = error_code_of([&] { tenon::measured_plan::from_bytes(bytes.data(), n); });
         CHECK_MESSAGE((code == "prep.bytes.truncated" || code == "prep.bytes.oversize"), "prefix " << n << ": " << code);
     }
+}
+
+TEST_CASE("plan bytes store fill and scaling methods as codes that the renamed methods keep") {
+    // Plan bytes hold each method as a u8 code (docs/model-file-format.md,
+    // PLAN); bytes written when code 3 was called "most frequent" and
+    // "robust" read as mode and median-IQR.
+    CHECK(static_cast<int>(tenon::fill_method::mode) == 3);
+    CHECK(static_cast<int>(tenon::scaling_method::median_iqr) == 3);
+    tenon::feature_steps quartiles;
+    quartiles.scaling = tenon::scaling_method::median_iqr;
+    tenon::feature_steps category;
+    category.fill = tenon::fill_method::mode;
+    category.omit_reference_level = true;
+    tenon::plan p;
+    p.set_steps("flow", quartiles).set_steps("model", category).set_role("machine", tenon::column_role::ignored);
+    p.set_role("when", tenon::column_role::ignored).set_role("pressure", tenon::column_role::ignored);
+    p.set_target("verdict", tenon::target_kind::classification);
+    auto t = bench_table();
+    const auto bytes = p.measure(t, {0, 1, 2, 3, 4, 5, 6, 7}).to_bytes();
+    // The "model" feature's fill method and the "flow" feature's scaling
+    // method, found by their position after each name in the bytes.
+    const std::string text(bytes.begin(), bytes.end());
+    const std::size_t model_at = text.find(std::string("\x05\x00\x00\x00", 4) + "model");  // u32 length, then the name
+    const std::size_t flow_at = text.find(std::string("\x04\x00\x00\x00", 4) + "flow");
+    REQUIRE(model_at != std::string::npos);
+    REQUIRE(flow_at != std::string::npos);
+    CHECK(bytes[model_at + 9 + 1] == 3);  // after the name: kind, then the fill method
+    // After "flow": kind, fill method, fill number (8), empty fill text (4),
+    // indicator, then the scaling method.
+    CHECK(bytes[flow_at + 8 + 1 + 1 + 8 + 4 + 1] == 3);
+    const auto back = tenon::measured_plan::from_bytes(bytes);
+    CHECK(back.feature_fill("model").method == tenon::fill_method::mode);
+    CHECK(back.feature_fill("model").text == "A");  // the most frequent category among the training rows
+    CHECK(back.feature_scaling("flow").method == tenon::scaling_method::median_iqr);
+    CHECK(back.feature_categories("model").omit_reference_level());
 }
 
 TEST_CASE("corrupted plan bytes: each error code with its message") {
@@ -318,7 +355,9 @@ TEST_CASE("group and time roles feed the split policies") {
     auto c = tenon::chronological_holdout(times, {0.5, 0.25, 0.25});
     CHECK(c.test == std::vector<std::size_t>{6, 7});
     std::string message;
-    CHECK(error_code_of([&] { tenon::dense_codes(t.at("verdict")); }, &message) == "prep.value.missing");
-    CHECK(message == "[prep.value.missing] column 'verdict' row 4 is missing");
+    // Missing cells are a value of their own by default (as in the tool), or refused naming the file line.
+    CHECK(tenon::dense_codes(t.at("verdict"))[4] == 2);
     CHECK(tenon::dense_codes(t.at("verdict"), true)[4] == 2);
+    CHECK(error_code_of([&] { tenon::dense_codes(t.at("verdict"), false); }, &message) == "prep.value.missing");
+    CHECK(message == "[prep.value.missing] bench.csv line 6, column 'verdict': the cell is missing");
 }

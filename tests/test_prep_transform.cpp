@@ -61,10 +61,10 @@ TEST_CASE("z-score keeps precision at an offset of 1e9") {
     CHECK(s.forward(1000000000.3) == doctest::Approx(std::sqrt(1.5)).epsilon(1e-6));  // 0.1 / sqrt(0.02/3)
 }
 
-TEST_CASE("robust scaling worked example: median and interquartile range") {
+TEST_CASE("median-IQR scaling worked example: median and interquartile range") {
     // 1 2 3 4 100: median 3, Q1 2, Q3 4 (Hyndman & Fan def. 7), IQR 2.
     auto t = table_of("x\n1\n2\n3\n4\n100\n");
-    auto s = tenon::measure_scaling(t.at("x"), tenon::all_rows(5), tenon::scaling_method::robust);
+    auto s = tenon::measure_scaling(t.at("x"), tenon::all_rows(5), tenon::scaling_method::median_iqr);
     CHECK(s.center == 3.0);
     CHECK(s.spread == 2.0);
     CHECK(s.forward(100) == doctest::Approx(48.5));
@@ -76,7 +76,7 @@ TEST_CASE("constant columns: no division by zero, documented images, exact inver
     const auto rows = tenon::all_rows(3);
     auto z = tenon::measure_scaling(t.at("x"), rows, tenon::scaling_method::z_score);
     auto m = tenon::measure_scaling(t.at("x"), rows, tenon::scaling_method::min_max, 2.0, 3.0);
-    auto r = tenon::measure_scaling(t.at("x"), rows, tenon::scaling_method::robust);
+    auto r = tenon::measure_scaling(t.at("x"), rows, tenon::scaling_method::median_iqr);
     CHECK(z.forward(7) == 0.0);
     CHECK(m.forward(7) == 2.0);  // the low end of the range
     CHECK(r.forward(7) == 0.0);
@@ -180,7 +180,7 @@ TEST_CASE_TEMPLATE("apply_scalings gives scaling::forward's bits for every colum
 #endif
 }
 
-TEST_CASE("one-hot: sorted order, unseen policies, drop-first, slot names") {
+TEST_CASE("one-hot: sorted order, unseen policies, reference level omitted, slot names") {
     tenon::one_hot_layout fail({"press", "pump", "fan", "pump"});
     CHECK(fail.categories() == std::vector<std::string>{"fan", "press", "pump"});
     CHECK(fail.width() == 3);
@@ -224,13 +224,13 @@ TEST_CASE("class index: names <-> indices, numeric labels in numeric order") {
     CHECK(text.find("warn") == 2);
 }
 
-TEST_CASE("imputation learned on the given rows: mean, median, most frequent, constant") {
+TEST_CASE("imputation learned on the given rows: mean, median, mode, constant") {
     auto t = table_of("x,c\n1,a\n2,b\n2,b\n10,a\nNA,NA\n100,c\n");
     const std::vector<std::size_t> train{0, 1, 2, 3, 4};  // row 5 (100, c) is not training
     CHECK(tenon::measure_fill(t.at("x"), train, tenon::fill_method::mean).number == doctest::Approx(15.0 / 4.0));
     CHECK(tenon::measure_fill(t.at("x"), train, tenon::fill_method::median).number == doctest::Approx(2.0));
-    CHECK(tenon::measure_fill(t.at("x"), train, tenon::fill_method::most_frequent).number == 2.0);
-    CHECK(tenon::measure_fill(t.at("c"), train, tenon::fill_method::most_frequent).text == "a");  // a, b tie: a sorts first
+    CHECK(tenon::measure_fill(t.at("x"), train, tenon::fill_method::mode).number == 2.0);
+    CHECK(tenon::measure_fill(t.at("c"), train, tenon::fill_method::mode).text == "a");  // a, b tie: a sorts first
     CHECK(tenon::measure_fill(t.at("c"), train, tenon::fill_method::constant, 0.0, "unknown").text == "unknown");
     CHECK(tenon::measure_fill(t.at("x"), train, tenon::fill_method::constant, -1.0).number == -1.0);
     CHECK(tenon::measure_fill(t.at("x"), tenon::all_rows(6), tenon::fill_method::mean).number ==
@@ -238,7 +238,7 @@ TEST_CASE("imputation learned on the given rows: mean, median, most frequent, co
     std::string message;
     CHECK(error_code_of([&] { tenon::measure_fill(t.at("c"), train, tenon::fill_method::mean); }, &message) ==
           "prep.column.kind");
-    CHECK(message == "[prep.column.kind] column 'c' is categorical: it cannot be filled with the mean; use most frequent or constant");
+    CHECK(message == "[prep.column.kind] column 'c' is categorical: it cannot be filled with the mean; use mode or constant");
     CHECK(error_code_of([&] { tenon::measure_fill(t.at("x"), {4}, tenon::fill_method::median); }, &message) ==
           "prep.rows.empty");
     CHECK(message == "[prep.rows.empty] column 'x': no present values to learn a fill value from");

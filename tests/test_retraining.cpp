@@ -475,6 +475,71 @@ TEST_CASE("the wall-clock budget is read from the injected clock") {
 
 // --- files -----------------------------------------------------------------------------------
 
+TEST_CASE("a retrained model's metadata describe its own weights; earlier trainings are kept as history (section HIST)") {
+    const auto old_rows = retrain_test::pump_rows(300, 80);
+    auto incumbent = incumbent_of<float>(old_rows, deploy_test::condition_plan(), weak_settings());
+    REQUIRE(incumbent.metadata);
+    incumbent.metadata->metrics.emplace_back("test_accuracy", 0.75);  // as the tool adds
+    incumbent.metadata->settings.emplace_back("data", "history.csv");
+    incumbent.metadata->settings.emplace_back("target", "condition");
+    CHECK(incumbent.history.empty());
+    const auto no_history = tenon::model_file_to_bytes(incumbent);
+    for (const auto& sec : tenon::inspect_model_bytes(no_history).sections) CHECK(sec.id != "HIST");
+
+    // Rows read from a file carry its name into the candidate's metadata.
+    const auto new_text = csv_of(retrain_test::pump_rows(400, 81));
+    std::istringstream in(new_text);
+    const tenon::table new_rows = tenon::read_csv(in, {}, "/plant/logs/week12.csv");
+    tenon::retraining_options o;
+    o.epochs = 2;
+    o.created_unix_seconds = 1700000100;
+    const auto first = tenon::retrain_model(incumbent, new_rows, o);
+    REQUIRE(first.candidate.metadata);
+    const tenon::training_metadata& m = *first.candidate.metadata;
+    CHECK(std::isnan(m.metric("test_accuracy")));
+    CHECK(m.metric("gate_candidate_score") == first.report.candidate_score);
+    CHECK(m.metric("new_training_rows") == static_cast<double>(first.report.new_training_rows));
+    CHECK(m.metric("replay_training_rows") == static_cast<double>(first.report.replay_rows));
+    CHECK(m.training_rows == first.report.training_rows);
+    const auto setting = [](const tenon::training_metadata& t, const std::string& key) {
+        for (const auto& kv : t.settings)
+            if (kv.first == key) return kv.second;
+        return std::string("(absent)");
+    };
+    CHECK(setting(m, "data") == "week12.csv");
+    CHECK(setting(m, "origin") == "retraining");
+    CHECK(setting(m, "target") == "condition");
+    REQUIRE(first.candidate.history.size() == 1);
+    CHECK(first.candidate.history[0].metric("test_accuracy") == 0.75);
+    CHECK(setting(first.candidate.history[0], "data") == "history.csv");
+
+    // Round trip through bytes; a second retraining appends, oldest first.
+    const auto bytes = tenon::model_file_to_bytes(first.candidate);
+    const auto loaded = tenon::model_file_from_bytes<float>(bytes);
+    REQUIRE(loaded.history.size() == 1);
+    CHECK(loaded.history[0].created_unix_seconds == 1700000000);
+    CHECK(loaded.history[0].settings == first.candidate.history[0].settings);
+    CHECK(loaded.history[0].metrics.size() == first.candidate.history[0].metrics.size());
+    CHECK(tenon::inspect_model_bytes(bytes).history.size() == 1);
+    CHECK(tenon::model_file_to_bytes(loaded) == bytes);
+    o.created_unix_seconds = 1700000200;
+    const auto second = tenon::retrain_model(loaded, new_rows, o);
+    REQUIRE(second.candidate.history.size() == 2);
+    CHECK(second.candidate.history[0].created_unix_seconds == 1700000000);
+    CHECK(second.candidate.history[1].created_unix_seconds == 1700000100);
+    CHECK(second.candidate.metadata->metric("retrainings") == 2.0);
+    o.history_limit = 1;  // the most recent only
+    const auto limited = tenon::retrain_model(loaded, new_rows, o);
+    REQUIRE(limited.candidate.history.size() == 1);
+    CHECK(limited.candidate.history[0].created_unix_seconds == 1700000100);
+
+    // A damaged HIST is refused like any section.
+    auto damaged = bytes;
+    for (const auto& sec : tenon::inspect_model_bytes(bytes).sections)
+        if (sec.id == "HIST") damaged[static_cast<std::size_t>(sec.offset)] ^= 0x01;
+    CHECK(code_of([&] { tenon::model_file_from_bytes<float>(damaged); }) == "deploy.model.checksum");
+}
+
 TEST_CASE("promotion keeps the previous file for rollback; no promotion writes nothing") {
     const auto old_rows = retrain_test::pump_rows(300, 70);
     const auto incumbent = incumbent_of<float>(old_rows, deploy_test::condition_plan(), weak_settings());
@@ -516,6 +581,16 @@ TEST_CASE("promotion keeps the previous file for rollback; no promotion writes n
     tenon::roll_back_model_file(path);
     CHECK(file_bytes(path) == original);
     CHECK(file_exists(previous));
+
+    // The incumbent kept after an earlier promotion: the rollback file left
+    // by that promotion is not touched either (README, "Retraining").
+    std::ofstream(previous, std::ios::binary | std::ios::trunc) << "left by an earlier promotion";
+    const auto k2 = tenon::retrain_model_file(path, new_rows, kept);
+    CHECK_FALSE(k2.promoted);
+    CHECK_FALSE(k2.file_written);
+    CHECK(file_bytes(path) == original);
+    const auto left = file_bytes(previous);
+    CHECK(std::string(left.begin(), left.end()) == "left by an earlier promotion");
 
     // A rollback path of the caller's choice.
     const std::string elsewhere = temp_path("kept.tnm");

@@ -43,7 +43,7 @@ tenon::supervised_rows<T> noise_rows(std::size_t n, std::uint64_t seed) {
 
 template <class T>
 tenon::network<T> small_net(std::size_t inputs, std::uint64_t seed) {
-    return tenon::make_mlp<T>({inputs, 16, 16, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, seed);
+    return tenon::make_mlp<T>({inputs, 16, 16, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, seed);
 }
 
 // A layer that passes its input through until armed, then adds NaN: it
@@ -174,7 +174,7 @@ TEST_CASE_TEMPLATE("the divergence guard lowers the learning rate and recovers",
     // a rate of 1000 overflows within one epoch of single-row steps, and ten
     // halvings bring it back into the stable range.
     auto train = wave_rows<T>(128, 1), val = wave_rows<T>(32, 2);
-    auto net = tenon::make_mlp<T>({2, 1}, tenon::activation::identity, {tenon::init_scheme::glorot_uniform, 0.0}, 3);
+    auto net = tenon::make_mlp<T>({2, 1}, tenon::activation::identity, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 3);
     tenon::gradient_descent<T> rule;
     tenon::constant_rate schedule(1000.0);
     tenon::training_options<T> o;
@@ -210,7 +210,7 @@ TEST_CASE_TEMPLATE("injected NaN exhausts the retries and stops with the last go
         }
         return true;
     };
-    o.restore_best = false;
+    o.keep_best = false;
     tenon::trainer<T> tr(net, rule, schedule, o);
     const auto out = tr.run(train, val);
     CHECK(out.reason == tenon::stop_reason::diverged);
@@ -260,7 +260,7 @@ TEST_CASE("a classifier trained with cross-entropy separates two interleaved cla
         return d;
     };
     auto train = rings(400), val = rings(200);
-    auto net = tenon::make_mlp<double>({2, 16, 2}, tenon::activation::tanh, {tenon::init_scheme::glorot_uniform, 0.0}, 4);
+    auto net = tenon::make_mlp<double>({2, 16, 2}, tenon::activation::tanh, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 4);
     tenon::adam<double> rule;
     tenon::constant_rate schedule(0.02);
     tenon::training_options<double> o;

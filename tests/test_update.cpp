@@ -44,7 +44,7 @@ void set_grad(tenon::parameter<T>& p, std::initializer_list<T> g) {
 // f(x, y) = (1 - x)^2 + 100 (y - x^2)^2, minimum 0 at (1, 1).
 template <class T>
 tenon::var<T> rosenbrock(tenon::tape<T>& t, tenon::parameter<T>& x, tenon::parameter<T>& y) {
-    const auto vx = t.watch(x), vy = t.watch(y);
+    const auto vx = t.track(x), vy = t.track(y);
     return tenon::sum(tenon::square(vx - T(1)) + T(100) * tenon::square(vy - tenon::square(vx)));
 }
 
@@ -83,8 +83,8 @@ TEST_CASE_TEMPLATE("gradient descent, momentum and Nesterov steps follow their f
     classical.apply({&m}, T(0.1));
     classical.apply({&m}, T(0.1));
     CHECK(m.value()(0, 0) == doctest::Approx(-0.1 - 0.19));
-    CHECK(classical.slot(0, 0)(0, 0) == doctest::Approx(-0.19));
-    CHECK(std::string(classical.slot_name(0)) == "velocity");
+    CHECK(classical.buffer(0, 0)(0, 0) == doctest::Approx(-0.19));
+    CHECK(std::string(classical.buffer_name(0)) == "velocity");
 
     // Nesterov (Bengio et al. 2013 form): w += mu v_new - lr g.
     tenon::parameter<T> n("n", make_matrix<T>({{T(0)}}));
@@ -107,8 +107,8 @@ TEST_CASE_TEMPLATE("Adam's first step moves each weight by about the learning ra
     rule.apply({&w}, lr);
     const T signs[] = {T(1), T(-1), T(1), T(-1)};
     for (std::size_t k = 0; k < 4; ++k) CHECK(T(1) - w.value()(0, k) == doctest::Approx(static_cast<double>(lr * signs[k])).epsilon(1e-4));
-    CHECK(std::string(rule.slot_name(1)) == "second_moment");
-    CHECK(rule.slot(0, 0)(0, 0) == doctest::Approx(0.3));  // (1 - beta1) g
+    CHECK(std::string(rule.buffer_name(1)) == "second_moment");
+    CHECK(rule.buffer(0, 0)(0, 0) == doctest::Approx(0.3));  // (1 - beta1) g
 }
 
 TEST_CASE_TEMPLATE("Adam's reordered step equals Algorithm 1 of Kingma & Ba 2015 within a few roundings", T, float, double) {
@@ -377,7 +377,7 @@ TEST_CASE_TEMPLATE("a logistic model on linearly separable data reaches zero tra
         x(i, 1) = static_cast<T>(v);
         y(i, 0) = s > 0 ? T(1) : T(0);
     }
-    auto net = tenon::make_mlp<T>({2, 1}, tenon::activation::identity, {tenon::init_scheme::zeros, 0.0}, 1);
+    auto net = tenon::make_mlp<T>({2, 1}, tenon::activation::identity, {tenon::init_scheme::zeros}, 1);
     tenon::adam<T> rule;
     tenon::tape<T> t;
     for (int step = 0; step < 2000; ++step) {
@@ -475,17 +475,17 @@ TEST_CASE("an update rule returns to an in-memory copy of its state bit for bit"
     rule.restore_state(copy);
     CHECK(rule.save_state() == at_two);
 
-    // Another slot count is refused and the state kept.
+    // Another buffer count is refused and the state kept.
     tenon::momentum<float> other;
     step(other, 0.2f);
-    tenon::momentum<float>::state_copy one_slot;
-    other.copy_state_into(one_slot);
-    CHECK(code_of([&] { rule.restore_state(one_slot); }) == "model.update.state_mismatch");
+    tenon::momentum<float>::state_copy one_buffer;
+    other.copy_state_into(one_buffer);
+    CHECK(code_of([&] { rule.restore_state(one_buffer); }) == "model.update.state_mismatch");
     CHECK(rule.save_state() == at_two);
 
-    // A copy whose slot does not have its parameter's shape is refused too.
+    // A copy whose buffer does not have its parameter's shape is refused too.
     tenon::adam<float>::state_copy damaged = copy;
-    damaged.slots[1] = tenon::matrix<float>({2, 2});
+    damaged.buffers[1] = tenon::matrix<float>({2, 2});
     CHECK(code_of([&] { rule.restore_state(damaged); }) == "model.update.state_mismatch");
     CHECK(rule.save_state() == at_two);
 }
@@ -516,7 +516,7 @@ TEST_CASE("update rule state errors") {
     CHECK(rule.step_count() == 0);
     rule.apply({&v}, 0.1);  // a new layout after reset
     CHECK(rule.parameter_count() == 1);
-    CHECK(code_of([&] { rule.slot(1, 0); }) == "core.argument.invalid");
+    CHECK(code_of([&] { rule.buffer(1, 0); }) == "core.argument.invalid");
 
     CHECK(code_of([] { tenon::adam<double>({1.0, 0.999, 1e-8, 0.0}); }) == "model.update.option");
     CHECK(code_of([] { tenon::momentum<double>({1.5, false}); }) == "model.update.option");
@@ -563,9 +563,9 @@ TEST_CASE("learning-rate schedules give their formulas' rates") {
 TEST_CASE("the stall reduction lowers the rate when the metric stops improving") {
     tenon::stall_reduction_options o;
     o.initial_rate = 1.0;
-    o.factor = 0.5;
-    o.patience = 2;
-    o.minimum_rate = 0.2;
+    o.rate_multiplier = 0.5;
+    o.tolerated_reports = 2;
+    o.floor_fraction = 0.2;
     tenon::stall_reduction s(o);
     for (double loss : {5.0, 4.0, 3.0}) s.report_metric(loss);
     CHECK(s.rate(0, 0) == 1.0);
@@ -576,7 +576,7 @@ TEST_CASE("the stall reduction lowers the rate when the metric stops improving")
     s.report_metric(3.0);
     CHECK(s.rate(0, 0) == 0.5);  // the third one reduces
     for (int i = 0; i < 6; ++i) s.report_metric(3.0);
-    CHECK(s.rate(0, 0) == 0.2);  // floored at the minimum
+    CHECK(s.rate(0, 0) == 0.2);  // floored at 0.2 of the initial rate
     s.report_metric(1.0);
     CHECK(s.best() == 1.0);
 
@@ -590,7 +590,7 @@ TEST_CASE("the stall reduction lowers the rate when the metric stops improving")
     // Watching a metric that should grow.
     tenon::stall_reduction_options up = o;
     up.maximize = true;
-    up.patience = 0;
+    up.tolerated_reports = 0;
     tenon::stall_reduction accuracy(up);
     accuracy.report_metric(0.5);
     accuracy.report_metric(0.6);
@@ -609,6 +609,28 @@ TEST_CASE("the stall reduction lowers the rate when the metric stops improving")
     CHECK(warm_copy.rate(5, 0) == 0.5);
 }
 
+TEST_CASE("the stall reduction's defaults: five tolerated reports, halving, a 0.1% margin, a floor at 1/1024") {
+    // The values and their reasons are beside stall_reduction_options.
+    const tenon::stall_reduction_options o;
+    CHECK(o.rate_multiplier == 0.5);
+    CHECK(o.tolerated_reports == 5);
+    CHECK(o.relative_margin == 1e-3);
+    CHECK(o.settle_reports == 0);
+    CHECK(o.floor_fraction == 1.0 / 1024.0);
+    tenon::stall_reduction s;
+    s.report_metric(1.0);
+    for (int i = 0; i < 5; ++i) s.report_metric(0.9995);  // better by less than 0.1%: no improvement
+    CHECK(s.rate(0, 0) == 1e-3);
+    s.report_metric(0.9985);  // better by more than 0.1%: the count restarts
+    CHECK(s.reports_without_improvement() == 0);
+    for (int i = 0; i < 5; ++i) s.report_metric(1.0);
+    CHECK(s.rate(0, 0) == 1e-3);
+    s.report_metric(1.0);  // the sixth report without improvement halves the rate
+    CHECK(s.rate(0, 0) == 0.5e-3);
+    for (int i = 0; i < 6 * 20; ++i) s.report_metric(1.0);  // twenty more cuts are due; the floor stops them after ten
+    CHECK(s.rate(0, 0) == doctest::Approx(1e-3 / 1024.0));
+}
+
 TEST_CASE("schedule option and state errors") {
     CHECK(code_of([] { tenon::constant_rate(-1.0); }) == "model.schedule.option");
     CHECK(code_of([] { tenon::step_decay(1.0, 0.5, 0); }) == "model.schedule.option");
@@ -616,7 +638,10 @@ TEST_CASE("schedule option and state errors") {
     CHECK(code_of([] { tenon::cosine_restarts(0.1, 0.2, 10); }) == "model.schedule.option");
     CHECK(code_of([] { tenon::linear_warmup(nullptr, 3); }) == "model.schedule.option");
     tenon::stall_reduction_options o;
-    o.factor = 1.0;
+    o.rate_multiplier = 1.0;
+    CHECK(code_of([&] { tenon::stall_reduction s(o); }) == "model.schedule.option");
+    o.rate_multiplier = 0.5;
+    o.floor_fraction = 1.5;
     CHECK(code_of([&] { tenon::stall_reduction s(o); }) == "model.schedule.option");
 
     tenon::stall_reduction s;

@@ -129,6 +129,14 @@ inline constexpr std::size_t max_hidden_width = 65536;
 inline constexpr std::size_t max_hidden_layers = 64;
 inline constexpr std::size_t max_hidden_weights = 100000000;
 
+/// The library's model and training defaults, which the tool's options
+/// start from (no copies of them here): a host calling fit_model with a
+/// default model_settings trains what `tenon train` trains.
+inline const tenon::model_settings& library_defaults() {
+    static const tenon::model_settings defaults;
+    return defaults;
+}
+
 struct train_request {
     std::string data_path;
     std::string target;
@@ -139,16 +147,16 @@ struct train_request {
     std::string group_column;
     tenon::split_fractions fractions{0.7, 0.15, 0.15};
     std::size_t folds = 0;  // 0 = single holdout
-    std::vector<std::size_t> hidden{64, 32};
-    tenon::activation hidden_activation = tenon::activation::relu;
+    std::vector<std::size_t> hidden = library_defaults().hidden;
+    tenon::activation hidden_activation = library_defaults().hidden_activation;
     bool loss_given = false;
-    tenon::loss_kind loss = tenon::loss_kind::l2;
-    tenon::update_kind update = tenon::update_kind::adam;
-    double learning_rate = 1e-3;
-    std::size_t epochs = 200;
-    std::size_t batch = 32;
-    std::size_t patience = 15;
-    std::uint64_t seed = 1;
+    tenon::loss_kind loss = library_defaults().loss;
+    tenon::update_kind update = library_defaults().update;
+    double learning_rate = library_defaults().learning_rate;
+    std::size_t epochs = library_defaults().epochs;
+    std::size_t batch = library_defaults().batch_size;
+    std::size_t patience = library_defaults().patience;
+    std::uint64_t seed = 1;  // one seed for the split, the weights and the batch order
     std::size_t threads = 1;
     bool keep_order = false;  // --keep-order: no shuffling
     std::string metrics_path;
@@ -520,11 +528,13 @@ Model and training
                          a band as it computes the whole product.
 
 Output
-  --metrics OUT.json     write the metrics as JSON: task, rows (train, val, test,
-                         dropped), epochs_run, stop_reason, train_seconds (the
-                         training loop with validation; reading and preparing
-                         data excluded), and val and test scores (accuracy,
-                         macro_f1, log_loss; or rmse, mae, r2).
+  --metrics OUT.json     write the metrics as JSON: task, rows (training,
+                         validation, test, dropped), epochs_run, stop_reason,
+                         training_seconds (the training loop with validation;
+                         reading and preparing data excluded), validation and
+                         test scores (accuracy, macro_f1, log_loss; or rmse,
+                         mae, r2) and per_epoch records (epoch, training_loss,
+                         validation_loss, learning_rate); see the README.
   --report OUT.svg       write an SVG report: loss per epoch and, for
                          classification, the test confusion matrix.
   --model OUT.tnm        save the trained model (network, weights, the
@@ -643,16 +653,10 @@ inline double datetime_share(const tenon::column& c) {
 
 }  // namespace detail
 
-/// The cell texts the tool reads as missing: the library's defaults and the
-/// other spellings that spreadsheet and plant exports commonly write (common
-/// practice, not a standard). Models made by the tool store this list in
-/// their plan, so `tenon infer` reads the same cells as missing.
-inline std::vector<std::string> missing_tokens() {
-    std::vector<std::string> tokens = tenon::default_missing_tokens();
-    for (const char* extra : {"n/a", "na", "nan", "NAN", "none", "None", "NONE", "-", "--", "#N/A", "missing"})
-        if (std::find(tokens.begin(), tokens.end(), extra) == tokens.end()) tokens.push_back(extra);
-    return tokens;
-}
+/// The cell texts the tool reads as missing: the library's defaults (one
+/// list, so a host's plan reads the same cells as the tool's). Models store
+/// the list in their plan, so `tenon infer` reads the same cells as missing.
+inline std::vector<std::string> missing_tokens() { return tenon::default_missing_tokens(); }
 
 /// Reads the CSV file. A regression target, and any column whose cells are
 /// numbers (or dates/times) but for a few (at least 90% of the present
@@ -706,7 +710,7 @@ inline tenon::table load_table(const train_request& q, std::ostream* warnings = 
 struct training_setup {
     bool classify = false;
     split_choice split = split_choice::random;
-    tenon::plan recipe;
+    tenon::plan preparation;
     std::size_t target_missing = 0;
 };
 
@@ -775,34 +779,27 @@ inline training_setup make_setup(const tenon::table& t, const train_request& q) 
     if (s.split == split_choice::stratified && !s.classify)
         fail(cli_codes::option_conflict, "--split stratified needs a classification target; '" + q.target + "' is regressed");
 
-    s.recipe.set_target(q.target, s.classify ? tenon::target_kind::classification : tenon::target_kind::regression);
-    s.recipe.set_missing_tokens(missing_tokens());
-    for (const auto& c : q.ignored) s.recipe.set_role(c, tenon::column_role::ignored);
-    if (!q.time_column.empty()) s.recipe.set_role(q.time_column, tenon::column_role::time);
-    if (!q.group_column.empty()) s.recipe.set_role(q.group_column, tenon::column_role::group);
+    s.preparation.set_target(q.target, s.classify ? tenon::target_kind::classification : tenon::target_kind::regression);
+    s.preparation.set_missing_tokens(missing_tokens());
+    for (const auto& c : q.ignored) s.preparation.set_role(c, tenon::column_role::ignored);
+    if (!q.time_column.empty()) s.preparation.set_role(q.time_column, tenon::column_role::time);
+    if (!q.group_column.empty()) s.preparation.set_role(q.group_column, tenon::column_role::group);
     return s;
 }
 
-/// Per-column steps: the median (numeric, date/time) or the most frequent
-/// category fills missing cells, and a missing indicator is added for columns
-/// with missing cells among `train_rows`. Only which rows are missing is
-/// looked at here; every statistic is measured later, by plan::measure.
-inline void choose_feature_steps(const tenon::table& t, tenon::plan& recipe, const std::vector<std::size_t>& train_rows) {
+/// Cross-validation only: every feature column with a missing cell anywhere
+/// in the table gets a missing indicator, so every fold's plan has the same
+/// layout. Everything else is the library's default steps (feature_steps:
+/// median or most frequent fill, z-scores, unseen categories as zeros, an
+/// indicator for a column with a missing training cell), which a holdout
+/// run uses as they are, so the tool and a host get the same model.
+inline void indicators_for_every_fold(const tenon::table& t, tenon::plan& preparation) {
     for (std::size_t k = 0; k < t.column_count(); ++k) {
         const tenon::column& c = t[k];
-        if (recipe.role_of(c.name()) != tenon::column_role::feature) continue;
-        tenon::feature_steps steps;
-        const bool categorical = c.kind() == tenon::column_kind::categorical;
-        steps.fill = categorical ? tenon::fill_method::most_frequent : tenon::fill_method::median;
-        steps.scaling = tenon::scaling_method::z_score;
-        steps.unseen = tenon::unseen_policy::all_zero;
-        for (auto r : train_rows) {
-            if (c.is_missing(r)) {
-                steps.missing_indicator = true;
-                break;
-            }
-        }
-        recipe.set_steps(c.name(), steps);
+        if (preparation.role_of(c.name()) != tenon::column_role::feature || c.missing_count() == 0) continue;
+        tenon::feature_steps steps = preparation.steps_of(c.name());
+        steps.missing_indicator = true;
+        preparation.set_steps(c.name(), steps);
     }
 }
 
@@ -1060,11 +1057,12 @@ inline double steady_seconds() {
 
 /// Prints training progress. On a terminal one status line is redrawn in
 /// place:
-///   fold 2/5  ep  17/200 <######:..............>  loss 0.4132  val acc 0.9120  3.2s, <= 41.0s more
+///   fold 2 of 5 | epoch  17 of 200 <######:..............> training loss 0.4132 | validation accuracy 0.9120 | 3.2s, <= 41.0s more
 /// The gauge counts the epoch budget: '#' done, ':' the running epoch, '.'
 /// to come; the remaining time assumes every epoch up to the limit runs
 /// (early stopping can only shorten it, hence "<="). Elsewhere (a file, a
-/// pipe) it prints one plain line per finished epoch.
+/// pipe) it prints one plain line per finished epoch:
+///   epoch 17 of 200 | training loss 0.41320 | validation loss 0.39811 | validation accuracy 0.9120 | elapsed 3.2s
 class progress_printer {
 public:
     progress_printer(std::ostream& out, bool terminal, bool quiet, std::size_t epochs, std::function<double()> clock)
@@ -1087,7 +1085,7 @@ public:
         last_draw_ = -1.0;
         done_epochs_ = 0;
         last_line_ = 0;
-        loss_ = val_metric_ = std::numeric_limits<double>::quiet_NaN();
+        loss_ = validation_metric_ = std::numeric_limits<double>::quiet_NaN();
     }
 
     void on_batch(const tenon::batch_progress& b) {
@@ -1101,8 +1099,8 @@ public:
 
     void on_epoch(const tenon::epoch_summary& e) {
         done_epochs_ = e.epoch;
-        loss_ = e.train_loss;
-        val_metric_ = classify_ ? e.validation_metric : e.validation_metric * metric_scale_;
+        loss_ = e.training_loss;
+        validation_metric_ = classify_ ? e.validation_metric : e.validation_metric * metric_scale_;
         if (quiet_) return;
         const double elapsed = clock_() - start_;
         if (terminal_) {
@@ -1110,14 +1108,15 @@ public:
             draw(e.epoch, 0.0, elapsed);
             return;
         }
-        std::string line = prefix() + "epoch " + std::to_string(e.epoch) + "/" + std::to_string(epochs_) + "  train_loss " +
-                           detail::fixed(e.train_loss, 5);
+        // Our own layout: spelled-out fields separated by " | ".
+        std::string line = prefix() + "epoch " + std::to_string(e.epoch) + " of " + std::to_string(epochs_) + " | training loss " +
+                           detail::fixed(e.training_loss, 5);
         if (std::isfinite(e.validation_loss)) {
-            line += "  val_loss " + detail::fixed(e.validation_loss, 5);
-            line += classify_ ? "  val_accuracy " + detail::fixed(val_metric_, 4)
-                              : (metric_scale_ > 0 ? "  val_rmse " + detail::fixed(val_metric_, 4) : std::string());
+            line += " | validation loss " + detail::fixed(e.validation_loss, 5);
+            line += classify_ ? " | validation accuracy " + detail::fixed(validation_metric_, 4)
+                              : (metric_scale_ > 0 ? " | validation RMSE " + detail::fixed(validation_metric_, 4) : std::string());
         }
-        line += "  elapsed " + detail::duration_text(elapsed);
+        line += " | elapsed " + detail::duration_text(elapsed);
         out_ << line << '\n';
     }
 
@@ -1131,7 +1130,7 @@ public:
 
 private:
     std::string prefix() const {
-        return folds_ > 0 ? "fold " + std::to_string(fold_) + "/" + std::to_string(folds_) + "  " : std::string();
+        return folds_ > 0 ? "fold " + std::to_string(fold_) + " of " + std::to_string(folds_) + " | " : std::string();
     }
 
     void draw(std::size_t epochs_done, double within_epoch, double elapsed) {
@@ -1144,11 +1143,12 @@ private:
         std::string epoch_text = std::to_string(std::min(epochs_done + (within_epoch > 0 ? 1 : 0), epochs_));
         const std::string limit = std::to_string(epochs_);
         epoch_text.insert(0, limit.size() > epoch_text.size() ? limit.size() - epoch_text.size() : 0, ' ');
-        std::string line = prefix() + "ep " + epoch_text + "/" + limit + " <" + gauge + ">  loss " + detail::fixed(loss_, 4);
-        if (std::isfinite(val_metric_)) line += classify_ ? "  val acc " + detail::fixed(val_metric_, 4) : "  val rmse " + detail::fixed(val_metric_, 4);
+        std::string line = prefix() + "epoch " + epoch_text + " of " + limit + " <" + gauge + "> training loss " + detail::fixed(loss_, 4);
+        if (std::isfinite(validation_metric_))
+            line += classify_ ? " | validation accuracy " + detail::fixed(validation_metric_, 4) : " | validation RMSE " + detail::fixed(validation_metric_, 4);
         const double progress = static_cast<double>(epochs_done) + within_epoch;
         const double remaining = progress > 0 ? elapsed / progress * (static_cast<double>(epochs_) - progress) : NAN;
-        line += "  " + detail::duration_text(elapsed) + ", <= " + detail::duration_text(remaining) + " more";
+        line += " | " + detail::duration_text(elapsed) + ", <= " + detail::duration_text(remaining) + " more";
         const std::size_t shown = line.size();
         if (shown < last_line_) line.append(last_line_ - shown, ' ');  // wipe the tail of a longer previous line
         out_ << '\r' << line;
@@ -1165,7 +1165,7 @@ private:
     double metric_scale_ = 1.0;
     double start_ = 0, last_draw_ = -1;
     std::size_t done_epochs_ = 0, last_line_ = 0;
-    double loss_ = NAN, val_metric_ = NAN;
+    double loss_ = NAN, validation_metric_ = NAN;
 };
 
 // ---------------------------------------------------------------------------
@@ -1319,13 +1319,12 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
                          const cli_environment& env, pending_output& metrics_file, pending_output& report_file,
                          pending_output& model_probe) {
     const tenon::holdout_split split = make_holdout(t, q, s);
-    choose_feature_steps(t, s.recipe, split.train);
 
     // The validation metric is RMSE in prepared units; the target's z-score
     // spread turns it back into the target's units for display.
     double metric_scale = 1.0;
     if (!s.classify) {
-        const tenon::scaling ts = s.recipe.measure(t, split.train).target_scaling();
+        const tenon::scaling ts = s.preparation.measure(t, split.train).target_scaling();
         metric_scale = std::abs(ts.inverse(1.0) - ts.inverse(0.0));
     }
     progress_printer progress(out, env.terminal, q.quiet, q.epochs, env.clock);
@@ -1347,7 +1346,7 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
         validation_rows = member_share(split.validation, *env.team);
     }
     tenon::fitted_model<float> model = while_members_train(env, [&] {
-        return tenon::fit_model<float>(t, s.recipe, env.team ? train_rows : split.train, env.team ? validation_rows : split.validation,
+        return tenon::fit_model<float>(t, s.preparation, env.team ? train_rows : split.train, env.team ? validation_rows : split.validation,
                                        settings);
     });
     progress.finish();
@@ -1364,7 +1363,7 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
         json_writer j;
         j.open_object();
         header_fields(j, q, s);
-        j.open_object("rows").count("total", t.row_count()).count("train", model.train_rows).count("val", model.validation_rows);
+        j.open_object("rows").count("total", t.row_count()).count("training", model.train_rows).count("validation", model.validation_rows);
         j.count("test", test.rows).count("dropped", dropped).close_object();
         j.count("features", model.plan.feature_count());
         if (s.classify) {
@@ -1375,13 +1374,14 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
         j.count("epochs_run", o.history.size());
         j.count("best_epoch", o.best_epoch);
         j.text("stop_reason", tenon::stop_reason_name(o.reason));
-        j.number("train_seconds", o.seconds);
-        if (has_validation) write_scores(j, "val", validation);
-        else j.null("val");
+        j.number("training_seconds", o.seconds);
+        if (has_validation) write_scores(j, "validation", validation);
+        else j.null("validation");
         write_scores(j, "test", test);
-        j.open_array("history");
+        j.open_array("per_epoch");
         for (const auto& e : o.history) {
-            j.open_object().count("epoch", e.epoch).number("train_loss", e.train_loss).number("val_loss", e.validation_loss).close_object();
+            j.open_object().count("epoch", e.epoch).number("training_loss", e.training_loss).number("validation_loss", e.validation_loss);
+            j.number("learning_rate", e.learning_rate).close_object();
         }
         j.close_array();
         j.close_object();
@@ -1391,7 +1391,7 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
         tenon::report_content r;
         r.title = "tenon train: " + q.target + " from " + std::filesystem::path(q.data_path).filename().string() + " (" +
                   (s.classify ? "classification, test accuracy " + fixed(test.accuracy, 4) : "regression, test RMSE " + fixed(test.rmse, 4)) + ")";
-        for (const auto& e : o.history) r.epochs.push_back({e.train_loss, e.validation_loss});
+        for (const auto& e : o.history) r.epochs.push_back({e.training_loss, e.validation_loss});
         r.kept_epoch = o.best_epoch;
         if (s.classify) {
             r.confusion = &test.classes.confusion;
@@ -1439,11 +1439,8 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
 inline int train_folds(const tenon::table& t, const train_request& q, training_setup& s, std::ostream& out, const cli_environment& env,
                        pending_output& metrics_file) {
     const std::vector<tenon::fold> folds = make_folds(t, q, s);
-    // Indicators for every column with a missing cell anywhere: each fold's
-    // plan is measured on its own rows, and a fixed layout keeps folds alike.
-    std::vector<std::size_t> all(t.row_count());
-    for (std::size_t r = 0; r < all.size(); ++r) all[r] = r;
-    choose_feature_steps(t, s.recipe, all);
+    // Each fold's plan is measured on its own rows; a fixed layout keeps folds alike.
+    indicators_for_every_fold(t, s.preparation);
 
     progress_printer progress(out, env.terminal, q.quiet, q.epochs, env.clock);
     std::vector<std::size_t> epochs_run;
@@ -1464,7 +1461,7 @@ inline int train_folds(const tenon::table& t, const train_request& q, training_s
     settings.on_batch = [&](const tenon::batch_progress& b) { progress.on_batch(b); };
     const bool chronological = s.split == split_choice::chronological;
     const tenon::cross_validation_report report = while_members_train(
-        env, [&] { return tenon::cross_validate<float>(t, s.recipe, folds, settings, q.fractions.validation, chronological); });
+        env, [&] { return tenon::cross_validate<float>(t, s.preparation, folds, settings, q.fractions.validation, chronological); });
     progress.finish();
 
     std::size_t dropped = 0;
@@ -1478,7 +1475,7 @@ inline int train_folds(const tenon::table& t, const train_request& q, training_s
         j.open_array("epochs_run");
         for (auto e : epochs_run) j.count(nullptr, e);
         j.close_array();
-        j.number("train_seconds", seconds);
+        j.number("training_seconds", seconds);
         j.open_object("test");
         for (const auto& m : report.metrics) j.number(m.name.c_str(), m.mean);
         j.close_object();
@@ -2101,11 +2098,24 @@ inline void layers_json(json_writer& j, const tenon::layer_record& r) {
 inline std::string fill_text(const tenon::fill_value& f, tenon::column_kind kind) {
     switch (f.method) {
         case tenon::fill_method::none: return "refused";
-        case tenon::fill_method::most_frequent: return "most frequent '" + f.text + "'";
+        case tenon::fill_method::mode: return "mode '" + f.text + "'";
         case tenon::fill_method::constant:
             return kind == tenon::column_kind::categorical ? "constant '" + f.text + "'" : "constant " + column_value(kind, f.number);
         default: return std::string(tenon::to_string(f.method)) + " " + column_value(kind, f.number);
     }
+}
+
+inline std::string metadata_setting(const tenon::training_metadata& t, const char* key) {
+    for (const auto& kv : t.settings)
+        if (kv.first == key) return kv.second;
+    return std::string();
+}
+
+// "tenon train", or "retraining 2 (promoted over the weights before it)".
+inline std::string made_by(const tenon::training_metadata& t) {
+    if (metadata_setting(t, "origin") != "retraining") return "training";
+    const double n = t.metric("retrainings");
+    return "retraining" + (std::isfinite(n) ? " " + significant(n) : std::string()) + " (promoted over the weights before it)";
 }
 
 inline std::string inspect_text(const tenon::model_file_summary& m, const std::string& path) {
@@ -2118,15 +2128,23 @@ inline std::string inspect_text(const tenon::model_file_summary& m, const std::s
 
     if (m.metadata) {
         const tenon::training_metadata& t = *m.metadata;
-        s += "\nProvenance\n";
+        s += "\nProvenance of the current weights\n";
+        s += "  made by      " + made_by(t) + "\n";
         s += "  created      " + utc_text(t.created_unix_seconds) + "\n";
         s += "  library      tenon " + t.library_version + "\n";
-        std::string data;
-        for (const auto& kv : t.settings)
-            if (kv.first == "data") data = kv.second + ", ";
-        s += "  data         " + data + "fingerprint " + hex64(t.data_fingerprint) + "\n";
-        s += "  rows         " + std::to_string(t.training_rows) + " training, " + std::to_string(t.validation_rows) + " validation, " +
-             std::to_string(t.dropped_rows) + " dropped for a missing target\n";
+        const std::string data = metadata_setting(t, "data");
+        s += "  data         " + (data.empty() ? std::string() : data + ", ") + "fingerprint " + hex64(t.data_fingerprint) + "\n";
+        if (metadata_setting(t, "origin") == "retraining") {
+            s += "  rows         " + std::to_string(t.training_rows) + " training (" + significant(t.metric("new_training_rows")) + " new, " +
+                 significant(t.metric("replay_training_rows")) + " from the replay sample), " + std::to_string(t.validation_rows) +
+                 " validation, " + significant(t.metric("gate_holdout_rows")) + " new rows held out for the gate, " +
+                 std::to_string(t.dropped_rows) + " new rows refused\n";
+            s += "  gate         " + metadata_setting(t, "gate_metric") + " " + significant(t.metric("gate_candidate_score")) +
+                 " against the replaced weights' " + significant(t.metric("gate_incumbent_score")) + " on the held-out new rows\n";
+        } else {
+            s += "  rows         " + std::to_string(t.training_rows) + " training, " + std::to_string(t.validation_rows) + " validation, " +
+                 std::to_string(t.dropped_rows) + " dropped for a missing target\n";
+        }
         s += "  seed         " + std::to_string(t.seed) + "\n";
         s += "  epochs       " + std::to_string(t.epochs_run) + " run of " + std::to_string(t.epochs_planned) + ", best " +
              std::to_string(t.best_epoch) + ", stopped: " + t.stop_reason + "; " + std::to_string(t.steps) + " steps; loss " + t.loss + "\n";
@@ -2193,6 +2211,20 @@ inline std::string inspect_text(const tenon::model_file_summary& m, const std::s
             s += buffer + kv.second + "\n";
         }
     }
+    if (!m.history.empty()) {
+        s += "\nHistory: " + std::to_string(m.history.size()) + " earlier " + (m.history.size() == 1 ? "training" : "trainings") +
+             " whose weights were replaced, oldest first\n";
+        for (std::size_t k = 0; k < m.history.size(); ++k) {
+            const tenon::training_metadata& t = m.history[k];
+            const std::string data = metadata_setting(t, "data");
+            s += "  " + std::to_string(k + 1) + ". " + utc_text(t.created_unix_seconds) + ", " + made_by(t) + ", data " +
+                 (data.empty() ? std::string() : data + ", ") + "fingerprint " + hex64(t.data_fingerprint) + ", " +
+                 std::to_string(t.training_rows) + " training rows\n";
+            std::vector<std::string> scores;
+            for (const auto& kv : t.metrics) scores.push_back(kv.first + " " + significant(kv.second));
+            if (!scores.empty()) s += "     " + join(scores, ", ") + "\n";
+        }
+    }
     return s;
 }
 
@@ -2213,10 +2245,28 @@ inline std::string inspect_json(const tenon::model_file_summary& m, const std::s
         j.count("epochs_planned", t.epochs_planned).count("epochs_run", t.epochs_run).count("best_epoch", t.best_epoch).count("steps", t.steps);
         j.count("training_rows", t.training_rows).count("validation_rows", t.validation_rows).count("dropped_rows", t.dropped_rows);
         j.text("stop_reason", t.stop_reason).text("loss", t.loss);
+        j.text("origin", metadata_setting(t, "origin").empty() ? "training" : metadata_setting(t, "origin"));
+        j.text("data", metadata_setting(t, "data"));
         j.close_object();
     } else {
         j.null("provenance");
     }
+    j.open_array("history");
+    for (const auto& t : m.history) {
+        j.open_object();
+        j.text("created", utc_text(t.created_unix_seconds)).text("library_version", t.library_version);
+        j.text("origin", metadata_setting(t, "origin").empty() ? "training" : metadata_setting(t, "origin"));
+        j.text("data", metadata_setting(t, "data")).text("data_fingerprint", hex64(t.data_fingerprint)).count("seed", t.seed);
+        j.count("training_rows", t.training_rows).count("validation_rows", t.validation_rows).count("dropped_rows", t.dropped_rows);
+        j.open_object("metrics");
+        for (const auto& kv : t.metrics) j.number(kv.first.c_str(), kv.second);
+        j.close_object();
+        j.open_object("settings");
+        for (const auto& kv : t.settings) j.text(kv.first.c_str(), kv.second);
+        j.close_object();
+        j.close_object();
+    }
+    j.close_array();
     if (m.plan) {
         const tenon::measured_plan& p = *m.plan;
         j.open_object("target");

@@ -40,7 +40,7 @@ struct gradient_check_report {
 };
 
 /// Checks d(loss)/d(p) for every p in `params`. `build(tape)` records the
-/// loss on the given (cleared) tape, watching the parameters itself, and
+/// loss on the given (cleared) tape, tracking the parameters itself, and
 /// returns a 1x1 value; it is called 1 + 2 * (number of elements) times.
 template <class Build>
 gradient_check_report check_gradients(const std::vector<parameter<double>*>& params, Build&& build,

@@ -218,7 +218,7 @@ public:
     var<T> scalar(T v) { return leaf(op_kind::input, &v, {1, 1}); }
 
     /// Records a reference to a parameter; backward adds into its grad().
-    var<T> watch(parameter<T>& p) {
+    var<T> track(parameter<T>& p) {
         const shape2 s = p.shape();
         if (shape_of(p.grad()) != s) {
             ensure_shape(p.grad(), s);
@@ -394,7 +394,7 @@ public:
     }
 
     /// Reverse pass from a 1x1 value: adds d(loss)/d(parameter) into every
-    /// watched trainable parameter's grad() and fills the nodes' gradients.
+    /// tracked trainable parameter's grad() and fills the nodes' gradients.
     void backward(var<T> loss) {
         const auto& l = node_of(loss);
         if (shape_of(value_of(loss)) != shape2{1, 1}) {

@@ -14,8 +14,10 @@
 // measured preparation plan), META (training metadata), REFS (reference
 // summaries per input column), RPLY (a bounded sample of raw training rows),
 // RSUM (update rule, schedule, shuffle engine and epoch state for resuming),
-// RSVR (the replay sample's reservoir state: rows seen, capacity, engine).
-// A reader skips an unknown section unless its required flag is set.
+// RSVR (the replay sample's reservoir state: rows seen, capacity, engine),
+// HIST (the metadata of earlier trainings: META describes the current
+// weights, HIST what they replaced, oldest first; files without it have no
+// history). A reader skips an unknown section unless its required flag is set.
 //
 // Loading trusts nothing: the magic, the header checksum, the version, the
 // byte-order mark and the scalar type are checked first; every section
@@ -128,7 +130,11 @@ struct model_file {
     layer_record architecture;
     std::vector<named_matrix<T>> weights;  // the network's parameters, then its state buffers
     std::optional<measured_plan> plan;
+    /// How the current weights were made (section META).
     std::optional<training_metadata> metadata;
+    /// Earlier trainings whose weights these replaced, oldest first (section
+    /// HIST; a retraining that is promoted appends the incumbent's metadata).
+    std::vector<training_metadata> history;
     std::vector<feature_reference> references;
     std::optional<replay_sample> replay;
     std::optional<resume_state<T>> resume;
@@ -156,6 +162,7 @@ struct model_file_summary {
     std::uint64_t parameter_values = 0;  // values in WGHT
     std::optional<measured_plan> plan;
     std::optional<training_metadata> metadata;
+    std::vector<training_metadata> history;  // earlier trainings, oldest first (HIST)
     std::vector<feature_reference> references;
     std::uint64_t replay_rows = 0;
     std::uint64_t replay_rows_seen = 0;  // from RSVR; 0 when absent
@@ -302,7 +309,7 @@ template <class T>
 std::vector<named_matrix<T>> read_weights(byte_reader& in) {
     std::vector<named_matrix<T>> weights(in.count(20, "weight matrices"));
     for (auto& nm : weights) {
-        nm.name = in.text();
+        nm.name = current_state_name(in.text());  // names of earlier files map to the current ones
         nm.values = get_matrix<T>(in);
     }
     return weights;
@@ -332,6 +339,12 @@ inline std::vector<std::uint8_t> metadata_payload(const training_metadata& m) {
     for (const auto& kv : m.settings) text("setting." + kv.first, kv.second);
     return out;
 }
+// The current name of a stored metric: earlier files wrote the last epoch's
+// training loss as "final_train_loss".
+inline std::string current_metric_name(const std::string& stored) {
+    return stored == "final_train_loss" ? std::string("final_training_loss") : stored;
+}
+
 inline training_metadata read_metadata(byte_reader& in) {
     training_metadata m;
     const std::size_t fields = in.count(6, "metadata fields");
@@ -358,11 +371,28 @@ inline training_metadata read_metadata(byte_reader& in) {
         else if (key == "data_fingerprint") m.data_fingerprint = n;
         else if (key == "stop_reason") m.stop_reason = s;
         else if (key == "loss") m.loss = s;
-        else if (key.rfind("metric.", 0) == 0 && type == 1) m.metrics.emplace_back(key.substr(7), d);
+        else if (key.rfind("metric.", 0) == 0 && type == 1) m.metrics.emplace_back(current_metric_name(key.substr(7)), d);
         else if (key.rfind("setting.", 0) == 0 && type == 2) m.settings.emplace_back(key.substr(8), s);
         // Other keys come from newer writers: skipped.
     }
     return m;
+}
+
+// HIST: u32 n, then n metadata records, each as META's payload.
+inline std::vector<std::uint8_t> history_payload(const std::vector<training_metadata>& history) {
+    std::vector<std::uint8_t> out;
+    byte_writer w(out);
+    w.u32(static_cast<std::uint32_t>(history.size()));
+    for (const auto& m : history) {
+        const auto record = metadata_payload(m);
+        out.insert(out.end(), record.begin(), record.end());
+    }
+    return out;
+}
+inline std::vector<training_metadata> read_history(byte_reader& in) {
+    std::vector<training_metadata> history(in.count(4, "earlier trainings"));  // a record is at least its u32 field count
+    for (auto& m : history) m = read_metadata(in);
+    return history;
 }
 
 inline std::vector<std::uint8_t> references_payload(const std::vector<feature_reference>& refs) {
@@ -483,7 +513,7 @@ std::vector<std::uint8_t> resume_payload(const resume_state<T>& s) {
     w.u32(static_cast<std::uint32_t>(p.history.size()));
     for (const auto& e : p.history) {
         w.u64(e.epoch);
-        w.f64(e.train_loss);
+        w.f64(e.training_loss);
         w.f64(e.validation_loss);
         w.f64(e.validation_metric);
         w.f64(e.learning_rate);
@@ -521,7 +551,7 @@ resume_state<T> read_resume(byte_reader& in) {
     p.history.resize(in.count(56, "history epochs"));
     for (auto& e : p.history) {
         e.epoch = static_cast<std::size_t>(in.u64());
-        e.train_loss = in.f64();
+        e.training_loss = in.f64();
         e.validation_loss = in.f64();
         e.validation_metric = in.f64();
         e.learning_rate = in.f64();
@@ -631,7 +661,7 @@ inline container read_container(const std::uint8_t* data, std::size_t size, cons
                                            std::to_string(count) + " sections");
     for (const auto& s : c.sections) {
         const bool known = s.id == "ARCH" || s.id == "WGHT" || s.id == "PLAN" || s.id == "META" || s.id == "REFS" ||
-                           s.id == "RPLY" || s.id == "RSUM" || s.id == "RSVR";
+                           s.id == "RPLY" || s.id == "RSUM" || s.id == "RSVR" || s.id == "HIST";
         if (!known && s.required)
             raise(codes::deploy_unknown_section, source + ": section '" + s.id +
                                                      "' is marked required but this build of tenon does not know it");
@@ -700,13 +730,14 @@ std::vector<std::uint8_t> model_file_to_bytes(const model_file<T>& m) {
     out.push_back(0);
     const std::uint16_t count = static_cast<std::uint16_t>(2 + (m.plan ? 1 : 0) + (m.metadata ? 1 : 0) +
                                                            (m.references.empty() ? 0 : 1) + (m.replay ? 1 : 0) + (m.resume ? 1 : 0) +
-                                                           (m.replay && m.replay->rows_seen > 0 ? 1 : 0));
+                                                           (m.replay && m.replay->rows_seen > 0 ? 1 : 0) + (m.history.empty() ? 0 : 1));
     detail::put_u16(out, count);
     detail::put_u32(out, crc32(out.data(), 20));
     detail::append_section(out, "ARCH", true, to_bytes(m.architecture));
     detail::append_section(out, "WGHT", true, detail::weights_payload(m.weights));
     if (m.plan) detail::append_section(out, "PLAN", true, m.plan->to_bytes());
     if (m.metadata) detail::append_section(out, "META", false, detail::metadata_payload(*m.metadata));
+    if (!m.history.empty()) detail::append_section(out, "HIST", false, detail::history_payload(m.history));
     if (!m.references.empty()) detail::append_section(out, "REFS", false, detail::references_payload(m.references));
     if (m.replay) detail::append_section(out, "RPLY", false, detail::replay_payload(*m.replay));
     if (m.resume) detail::append_section(out, "RSUM", false, detail::resume_payload(*m.resume));
@@ -733,6 +764,7 @@ model_file<T> model_file_from_bytes(const std::uint8_t* data, std::size_t size, 
         else if (s.id == "WGHT") m.weights = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_weights<T>(in); });
         else if (s.id == "PLAN") m.plan.emplace(detail::parse_plan(data, s, source));
         else if (s.id == "META") m.metadata = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_metadata(in); });
+        else if (s.id == "HIST") m.history = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_history(in); });
         else if (s.id == "REFS") m.references = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_references(in); });
         else if (s.id == "RPLY") m.replay = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_replay(in); });
         else if (s.id == "RSUM") m.resume = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_resume<T>(in); });
@@ -765,6 +797,7 @@ inline model_file_summary inspect_model_bytes(const std::vector<std::uint8_t>& b
         if (sec.id == "ARCH") s.architecture = detail::parse_architecture(bytes.data(), sec, source);
         else if (sec.id == "PLAN") s.plan.emplace(detail::parse_plan(bytes.data(), sec, source));
         else if (sec.id == "META") s.metadata = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) { return detail::read_metadata(in); });
+        else if (sec.id == "HIST") s.history = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) { return detail::read_history(in); });
         else if (sec.id == "REFS") s.references = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) { return detail::read_references(in); });
         else if (sec.id == "RPLY") s.replay_rows = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) { return detail::read_replay(in); }).rows();
         else if (sec.id == "RSUM") s.resumable = true;
@@ -976,7 +1009,7 @@ model_file<T> make_model_file(fitted_model<T>& model, const table& t, const std:
     meta.metrics.emplace_back("best_validation_loss", model.outcome.best_validation_loss);
     if (!model.outcome.history.empty()) {
         const epoch_summary& last = model.outcome.history.back();
-        meta.metrics.emplace_back("final_train_loss", last.train_loss);
+        meta.metrics.emplace_back("final_training_loss", last.training_loss);
         meta.metrics.emplace_back("final_validation_loss", last.validation_loss);
         meta.metrics.emplace_back("final_validation_metric", last.validation_metric);
     }

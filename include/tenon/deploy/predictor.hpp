@@ -283,11 +283,11 @@ struct compiled_model {
             s.kind = step_kind::batch_norm;
             s.outputs = width;
             s.epsilon = bn->describe().number("epsilon");
-            // The tape computes pow(running_variance + epsilon, -0.5) per column; so does this, once.
+            // The tape computes pow(population_variance + epsilon, -0.5) per column; so does this, once.
             const T eps = static_cast<T>(s.epsilon);
             std::vector<T> inv(width);
-            for (std::size_t j = 0; j < width; ++j) inv[j] = std::pow(bn->running_variance().value().data()[j] + eps, T(-0.5));
-            s.a = put(bn->running_mean().value());
+            for (std::size_t j = 0; j < width; ++j) inv[j] = std::pow(bn->population_variance().value().data()[j] + eps, T(-0.5));
+            s.a = put(bn->population_mean().value());
             s.b = put_values(inv);
             s.c = put(bn->gain().value());
             s.d = put(bn->bias().value());

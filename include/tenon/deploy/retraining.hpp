@@ -30,7 +30,11 @@
 //     RMSE. An equally good candidate is never promoted; a non-finite score
 //     never wins.
 //  5. The candidate's file keeps the plan and architecture, gets the new
-//     weights, metadata, reference summaries of its training rows (so drift
+//     weights, metadata that describe them alone (the new rows' source, the
+//     rows and scores of this retraining; the incumbent's data name and test
+//     scores are not carried over, only settings that still describe the
+//     model), the incumbent's metadata appended to the history (section
+//     HIST), reference summaries of its training rows (so drift
 //     is measured against what it learned) and the replay sample continued
 //     by reservoir sampling (Vitter 1985, Algorithm R; model_file.hpp,
 //     reservoir_slot) over the new non-holdout rows: each row seen over all
@@ -140,6 +144,11 @@ struct retraining_options {
     std::optional<std::int64_t> created_unix_seconds;
     /// Histogram bins of the new reference summaries; 0 = as the incumbent's (or 10).
     std::size_t histogram_bins = 0;
+    /// Earlier trainings kept in the candidate's history (section HIST): the
+    /// incumbent's history plus the incumbent's own metadata, the most
+    /// recent `history_limit` of them (0 keeps none). The count of
+    /// retrainings in the metadata ("retrainings") counts all.
+    std::size_t history_limit = 64;
 };
 
 /// The gate's verdict on two scores.
@@ -662,7 +671,16 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
     model_file<T>& c = result.candidate;
     c = capture_network(candidate_net);
     c.plan.emplace(plan);
-    training_metadata m = meta ? *meta : training_metadata{};
+    // The metadata describe the candidate's weights only. Of the
+    // incumbent's settings, those that describe the model, not its
+    // training, are carried over; its data name, split and scores stay with
+    // it in the history.
+    training_metadata m;
+    if (meta) {
+        for (const auto& kv : meta->settings)
+            for (const char* kept : {"hidden", "hidden_activation", "target", "task"})
+                if (kv.first == kept) m.settings.push_back(kv);
+    }
     m.library_version = version_string();
     m.created_unix_seconds = options.created_unix_seconds
                                  ? *options.created_unix_seconds
@@ -700,6 +718,8 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
     set_metric("gate_incumbent_score", report.incumbent_score);
     set_metric("gate_candidate_score", report.candidate_score);
     set_metric("gate_holdout_rows", static_cast<double>(report.holdout_rows));
+    set_metric("new_training_rows", static_cast<double>(report.new_training_rows));
+    set_metric("replay_training_rows", static_cast<double>(report.replay_rows));
     set_metric("retrainings", (meta && std::isfinite(meta->metric("retrainings")) ? meta->metric("retrainings") : 0.0) + 1.0);
     set_setting("update", update_kind_name(update));
     set_setting("learning_rate", number_to_text(learning_rate));
@@ -707,7 +727,17 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
     set_setting("patience", std::to_string(options.patience));
     set_setting("gate_metric", report.metric);
     set_setting("gate_margin", number_to_text(options.margin));
+    set_setting("origin", "retraining");
+    if (!new_rows.source().empty()) {  // the file name, as tenon train records it
+        const std::string& source = new_rows.source();
+        const std::size_t slash = source.find_last_of("/\\");
+        set_setting("data", slash == std::string::npos ? source : source.substr(slash + 1));
+    }
     c.metadata = std::move(m);
+    c.history = incumbent.history;
+    if (meta) c.history.push_back(*meta);
+    if (c.history.size() > options.history_limit)
+        c.history.erase(c.history.begin(), c.history.end() - static_cast<std::ptrdiff_t>(options.history_limit));
     std::size_t bins = options.histogram_bins;
     for (const auto& ref : incumbent.references)
         if (bins == 0 && !ref.histogram.empty()) bins = ref.histogram.size();

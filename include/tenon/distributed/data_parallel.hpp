@@ -11,7 +11,7 @@
 //   settings.team = &team;                              // model_settings
 //   settings.member_rows = tenon::team_rows::shard_per_member;
 //   settings.exchange = &exchange;                      // one plan over all shards
-//   auto model = tenon::fit_model<float>(my_table, recipe, my_train, my_validation, settings);
+//   auto model = tenon::fit_model<float>(my_table, preparation, my_train, my_validation, settings);
 //   if (world.rank() == 0) save(...);                  // every rank holds the same weights
 //
 //  - Shards (team_rows::shard_per_member): each rank passes only its own

@@ -10,11 +10,11 @@
 //     pass up to rounding;
 //   - category and class sets: the union, sorted as a single measurement
 //     sorts them; most frequent category: counts summed;
-//   - medians, quartiles (robust scaling, median fill) and numeric modes:
+//   - medians, quartiles (median-IQR scaling, median fill) and numeric modes:
 //     exact, from the present values of the column gathered on every rank
 //     (memory grows with all ranks' rows for those columns only).
 //
-//   tenon::measured_plan p = tenon::measure_plan_across(recipe, my_table, my_rows, world);
+//   tenon::measured_plan p = tenon::measure_plan_across(preparation, my_table, my_rows, world);
 //
 // All ranks must pass tables with the same columns of the same kinds
 // (checked first: distributed.plan.mismatch on every rank otherwise).
@@ -107,12 +107,12 @@ private:
     communicator& comm_;
 };
 
-/// `recipe` measured on every rank's `rows` of its own `t` together (see the
+/// `preparation` measured on every rank's `rows` of its own `t` together (see the
 /// top of this file); collective, the same plan on every rank.
-inline measured_plan measure_plan_across(const plan& recipe, const table& t, const std::vector<std::size_t>& rows, communicator& c) {
+inline measured_plan measure_plan_across(const plan& preparation, const table& t, const std::vector<std::size_t>& rows, communicator& c) {
     mpi_statistics_exchange exchange(c);
     require_same_columns(t, exchange, "measure_plan_across");  // same columns, same kinds, on every rank
-    return recipe.measure(t, rows, &exchange);
+    return preparation.measure(t, rows, &exchange);
 }
 
 TENON_NAMESPACE_END

@@ -29,20 +29,20 @@ public:
 
     /// A layer whose weights and bias are drawn by the given initializers.
     dense(std::size_t inputs, std::size_t outputs, random_engine& engine, initializer weights_init = {},
-          initializer bias_init = {init_scheme::zeros, 0.0}, bool with_bias = true)
+          initializer bias_init = {init_scheme::zeros}, bool with_bias = true)
         : dense(inputs, outputs, with_bias) {
         initialize_weights(engine, weights_init, bias_init);
     }
 
-    void initialize_weights(random_engine& engine, initializer weights_init, initializer bias_init = {init_scheme::zeros, 0.0}) {
+    void initialize_weights(random_engine& engine, initializer weights_init, initializer bias_init = {init_scheme::zeros}) {
         initialize(weights_.value(), weights_init, inputs_, outputs_, engine);
         if (with_bias_) initialize(bias_.value(), bias_init, inputs_, outputs_, engine);
     }
 
     var<T> forward(tape<T>& t, var<T> input, run_mode) override {
         this->require_width(input.shape().cols, inputs_);
-        var<T> y = matmul(input, t.watch(weights_));
-        if (with_bias_) y = y + t.watch(bias_);
+        var<T> y = matmul(input, t.track(weights_));
+        if (with_bias_) y = y + t.track(bias_);
         return y;
     }
 
@@ -52,7 +52,7 @@ public:
     /// forward() and then the activation recorded on their own.
     var<T> forward_activated(tape<T>& t, var<T> input, op_kind unit, T coefficient) {
         this->require_width(input.shape().cols, inputs_);
-        return t.affine_activation(input, t.watch(weights_), with_bias_ ? t.watch(bias_) : var<T>(), unit, coefficient);
+        return t.affine_activation(input, t.track(weights_), with_bias_ ? t.track(bias_) : var<T>(), unit, coefficient);
     }
 
     const char* kind() const noexcept override { return "dense"; }

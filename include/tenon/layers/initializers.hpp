@@ -12,8 +12,9 @@
 //     Var = 2 / fan_in, for rectifier networks.
 //   - LeCun (LeCun, Bottou, Orr & Mueller 1998, "Efficient BackProp",
 //     section 4.6): Var = 1 / fan_in.
-// A uniform distribution on [-a, a] has variance a^2 / 3, so each uniform
-// form uses a = sqrt(3 Var). The normal forms are untruncated.
+// Each method draws from either distribution (init_distribution): a uniform
+// distribution on [-a, a] has variance a^2 / 3, so the uniform form uses
+// a = sqrt(3 Var); the normal form is untruncated.
 #pragma once
 
 #include <cmath>
@@ -26,61 +27,99 @@
 
 TENON_NAMESPACE_BEGIN
 
+/// The method: which variance the weights aim for (see above).
 enum class init_scheme : std::uint8_t {
     zeros,
     constant,
-    glorot_uniform,
-    glorot_normal,
-    he_uniform,
-    he_normal,
-    lecun_uniform,
-    lecun_normal,
+    glorot,
+    he,
+    lecun,
 };
 
-/// A scheme plus its constant (used by init_scheme::constant only).
+/// The distribution a method draws from: uniform on [-a, a] or an
+/// untruncated normal, both of the method's variance.
+enum class init_distribution : std::uint8_t {
+    uniform,
+    normal,
+};
+
+/// A method, its distribution and its constant (used by init_scheme::constant
+/// only). The default is Glorot's normalized initialization, which the paper
+/// states in its uniform form (Glorot & Bengio 2010, eq. 16).
 struct initializer {
-    init_scheme scheme = init_scheme::glorot_uniform;
+    init_scheme scheme = init_scheme::glorot;
+    init_distribution distribution = init_distribution::uniform;
     double value = 0.0;
+
+    constexpr initializer() noexcept = default;
+    constexpr initializer(init_scheme s, init_distribution d = init_distribution::uniform, double v = 0.0) noexcept
+        : scheme(s), distribution(d), value(v) {}
 };
 
 inline const char* init_scheme_name(init_scheme s) noexcept {
     switch (s) {
         case init_scheme::zeros: return "zeros";
         case init_scheme::constant: return "constant";
-        case init_scheme::glorot_uniform: return "glorot_uniform";
-        case init_scheme::glorot_normal: return "glorot_normal";
-        case init_scheme::he_uniform: return "he_uniform";
-        case init_scheme::he_normal: return "he_normal";
-        case init_scheme::lecun_uniform: return "lecun_uniform";
-        case init_scheme::lecun_normal: return "lecun_normal";
+        case init_scheme::glorot: return "glorot";
+        case init_scheme::he: return "he";
+        case init_scheme::lecun: return "lecun";
     }
     return "unknown";
 }
 
-/// The scheme with the given name; raises model.record.unknown_kind otherwise.
+inline const char* init_distribution_name(init_distribution d) noexcept {
+    return d == init_distribution::normal ? "normal" : "uniform";
+}
+
+/// The method with the given name; raises model.record.unknown_kind otherwise.
 inline init_scheme parse_init_scheme(const std::string& name) {
-    for (int i = 0; i <= static_cast<int>(init_scheme::lecun_normal); ++i) {
+    for (int i = 0; i <= static_cast<int>(init_scheme::lecun); ++i) {
         const auto s = static_cast<init_scheme>(i);
         if (name == init_scheme_name(s)) return s;
     }
-    raise(codes::model_unknown_kind, "initializer '" + name +
-                                         "' is not known (zeros, constant, glorot_uniform, glorot_normal, he_uniform, "
-                                         "he_normal, lecun_uniform, lecun_normal)");
+    raise(codes::model_unknown_kind, "initializer '" + name + "' is not known (zeros, constant, glorot, he, lecun)");
 }
 
-/// The variance a scheme aims for, given the fan-in and fan-out of the
+/// The distribution with the given name; raises model.record.unknown_kind otherwise.
+inline init_distribution parse_init_distribution(const std::string& name) {
+    if (name == "uniform") return init_distribution::uniform;
+    if (name == "normal") return init_distribution::normal;
+    raise(codes::model_unknown_kind, "initializer distribution '" + name + "' is not known (uniform, normal)");
+}
+
+/// The initializer a stored method name and distribution name give. Names
+/// written before the method and its distribution were separate
+/// ("glorot_uniform", "he_normal", ...) map to the same method and
+/// distribution, so older records keep loading.
+inline initializer parse_initializer(const std::string& name, const std::string& distribution = "uniform") {
+    static const struct {
+        const char* old_name;
+        init_scheme scheme;
+        init_distribution distribution;
+    } earlier[] = {
+        {"glorot_uniform", init_scheme::glorot, init_distribution::uniform}, {"glorot_normal", init_scheme::glorot, init_distribution::normal},
+        {"he_uniform", init_scheme::he, init_distribution::uniform},         {"he_normal", init_scheme::he, init_distribution::normal},
+        {"lecun_uniform", init_scheme::lecun, init_distribution::uniform},   {"lecun_normal", init_scheme::lecun, init_distribution::normal},
+    };
+    for (const auto& e : earlier) {
+        if (name == e.old_name) return initializer{e.scheme, e.distribution, 0.0};
+    }
+    return initializer{parse_init_scheme(name), parse_init_distribution(distribution), 0.0};
+}
+
+/// The variance a method aims for, given the fan-in and fan-out of the
 /// weight matrix (0 for zeros and constant).
 inline double init_variance(init_scheme s, std::size_t fan_in, std::size_t fan_out) noexcept {
     const double in = static_cast<double>(fan_in), out = static_cast<double>(fan_out);
     switch (s) {
-        case init_scheme::glorot_uniform: case init_scheme::glorot_normal: return in + out > 0 ? 2.0 / (in + out) : 0.0;
-        case init_scheme::he_uniform: case init_scheme::he_normal: return in > 0 ? 2.0 / in : 0.0;
-        case init_scheme::lecun_uniform: case init_scheme::lecun_normal: return in > 0 ? 1.0 / in : 0.0;
+        case init_scheme::glorot: return in + out > 0 ? 2.0 / (in + out) : 0.0;
+        case init_scheme::he: return in > 0 ? 2.0 / in : 0.0;
+        case init_scheme::lecun: return in > 0 ? 1.0 / in : 0.0;
         default: return 0.0;
     }
 }
 
-/// Fills `m` by the given scheme. fan_in and fan_out are those of the weight
+/// Fills `m` by the given method and distribution. fan_in and fan_out are those of the weight
 /// matrix (inputs x outputs for a dense layer); the values are drawn in
 /// row-major order, one engine draw (uniform) or one normal per element.
 template <class T>
@@ -95,18 +134,16 @@ void initialize(matrix<T>& m, const initializer& init, std::size_t fan_in, std::
         case init_scheme::constant:
             for (std::size_t k = 0; k < n; ++k) p[k] = static_cast<T>(init.value);
             return;
-        case init_scheme::glorot_uniform: case init_scheme::he_uniform: case init_scheme::lecun_uniform: {
-            // Drawn in double and rounded once, so float and double weights
-            // come from the same stream of numbers.
-            const double a = std::sqrt(3.0 * variance);
-            for (std::size_t k = 0; k < n; ++k) p[k] = static_cast<T>(engine.uniform<double>(-a, a));
-            return;
-        }
-        case init_scheme::glorot_normal: case init_scheme::he_normal: case init_scheme::lecun_normal: {
-            const double stddev = std::sqrt(variance);
-            for (std::size_t k = 0; k < n; ++k) p[k] = static_cast<T>(engine.normal<double>(0.0, stddev));
-            return;
-        }
+        case init_scheme::glorot: case init_scheme::he: case init_scheme::lecun: break;
+    }
+    if (init.distribution == init_distribution::uniform) {
+        // Drawn in double and rounded once, so float and double weights
+        // come from the same stream of numbers.
+        const double a = std::sqrt(3.0 * variance);
+        for (std::size_t k = 0; k < n; ++k) p[k] = static_cast<T>(engine.uniform<double>(-a, a));
+    } else {
+        const double stddev = std::sqrt(variance);
+        for (std::size_t k = 0; k < n; ++k) p[k] = static_cast<T>(engine.normal<double>(0.0, stddev));
     }
 }
 

@@ -2,7 +2,7 @@
 //
 // A layer turns a batch x features value on a tape into another one. It owns
 // its parameters (learned by the update rules) and its state buffers
-// (non-trainable values such as running statistics, saved with the weights
+// (non-trainable values such as population estimates, saved with the weights
 // but never updated by gradients). Parameters are named "<layer>.<role>",
 // e.g. "hidden1.weights"; layers nested in a block get the block's name as a
 // prefix ("block1.dense1.weights").
@@ -26,7 +26,7 @@
 TENON_NAMESPACE_BEGIN
 
 /// Training mode uses batch statistics and dropout; inference mode uses
-/// running statistics and passes values through dropout unchanged.
+/// population estimates and passes values through dropout unchanged.
 enum class run_mode : std::uint8_t { training, inference };
 
 /// The architecture of one layer: kind, name, options and nested layers.
@@ -184,7 +184,7 @@ public:
 
     /// Appends the learned parameters (what update rules change).
     virtual void collect_parameters(std::vector<parameter<T>*>& out) { (void)out; }
-    /// Appends the non-trainable state buffers (e.g. running statistics).
+    /// Appends the non-trainable state buffers (e.g. population estimates).
     virtual void collect_state(std::vector<parameter<T>*>& out) { (void)out; }
 
     const std::string& name() const noexcept { return name_; }

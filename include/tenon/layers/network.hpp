@@ -2,11 +2,11 @@
 // that rebuilds layers from their architecture records.
 //
 // A network applies its layers in order. Its parameters are enumerable by
-// name ("hidden1.weights"), its state buffers (running statistics) too, and
+// name ("hidden1.weights"), its state buffers (population estimates) too, and
 // all of them can be copied out into a snapshot and back, e.g. to keep the
 // best weights for early stopping. describe()/architecture_bytes() give the
 // architecture without weights; network_from_bytes() rebuilds it (weights
-// zero, running statistics at their initial values) for a model file to fill.
+// zero, population estimates at their initial values) for a model file to fill.
 #pragma once
 
 #include <cstdint>
@@ -239,7 +239,7 @@ public:
         chain_.collect_parameters(parameters_);
         return parameters_;
     }
-    /// The non-trainable state buffers (running statistics) in layer order.
+    /// The non-trainable state buffers (population estimates) in layer order.
     const std::vector<parameter<T>*>& state_buffers() {
         state_.clear();
         chain_.collect_state(state_);
@@ -322,8 +322,8 @@ private:
     std::vector<parameter<T>*> state_;
 };
 
-/// Rebuilds a layer from its record (weights zero, gains one, running
-/// statistics at their initial values). Raises model.record.unknown_kind for
+/// Rebuilds a layer from its record (weights zero, gains one, population
+/// estimates at their initial values). Raises model.record.unknown_kind for
 /// an unknown kind and model.record.missing_field for a missing option.
 template <class T>
 std::unique_ptr<layer<T>> make_layer(const layer_record& r) {
@@ -337,7 +337,9 @@ std::unique_ptr<layer<T>> make_layer(const layer_record& r) {
     } else if (r.kind == "layer_norm") {
         l = std::make_unique<layer_norm<T>>(r.count("width"), r.number("epsilon"));
     } else if (r.kind == "batch_norm") {
-        l = std::make_unique<batch_norm<T>>(r.count("width"), r.number("momentum"), r.number("epsilon"));
+        // Records written before the coefficient was named batch_weight call it "momentum".
+        const double batch_weight = r.has("batch_weight") || !r.has("momentum") ? r.number("batch_weight") : r.number("momentum");
+        l = std::make_unique<batch_norm<T>>(r.count("width"), batch_weight, r.number("epsilon"));
     } else if (r.kind == "residual") {
         auto block = std::make_unique<residual<T>>();
         for (const auto& c : r.children) block->add(make_layer<T>(c), c.name);
@@ -361,7 +363,7 @@ inline std::size_t record_value_count(const layer_record& r) {
     const auto mul = [](std::size_t a, std::size_t b) { return a != 0 && b > most / a ? most : a * b; };
     if (r.kind == "dense") return add(mul(r.count("inputs"), r.count("outputs")), r.number("bias") != 0.0 ? r.count("outputs") : 0);
     if (r.kind == "layer_norm") return mul(2, r.count("width"));  // gain, bias
-    if (r.kind == "batch_norm") return mul(4, r.count("width"));  // gain, bias, running mean and variance
+    if (r.kind == "batch_norm") return mul(4, r.count("width"));  // gain, bias, population mean and variance
     std::size_t total = 0;  // network and residual: their children; activation and dropout hold none
     for (const auto& c : r.children) total = add(total, record_value_count(c));
     return total;

@@ -6,17 +6,23 @@
 // Batch normalization (Ioffe & Szegedy 2015, "Batch Normalization:
 // Accelerating Deep Network Training by Reducing Internal Covariate Shift",
 // Algorithm 1) normalizes each column (feature) over the batch in training
-// mode and keeps running estimates of the mean and variance; inference mode
-// uses those estimates instead of the batch's (Algorithm 2, steps 8-11). The
-// running estimates are exponential moving averages,
-//   running = (1 - momentum) running + momentum * batch statistic,
+// mode and keeps estimates of the population mean and variance (the paper's
+// words, E[x] and Var[x] of Algorithm 2, step 10); inference mode uses those
+// estimates instead of the batch's (Algorithm 2, steps 8-11). The estimates
+// are exponential moving averages in which each new batch's statistic has
+// weight batch_weight,
+//   population = (1 - batch_weight) population + batch_weight * batch statistic,
 // (common practice; the paper averages over many mini-batches), with the
 // unbiased variance m / (m - 1) * var_batch (Algorithm 2, step 10). Both use
 // the biased batch variance to normalize, as Algorithm 1 does. epsilon = 1e-5
-// and momentum = 0.1 are common practice.
+// and batch_weight = 0.1 (the estimates forget a batch's share by a factor e
+// in about 10 batches) are common practice.
 //
 // Both are composed of tape operations, so their gradients follow from the
-// tape's; the running estimates are non-trainable state buffers.
+// tape's; the population estimates are non-trainable state buffers. Model
+// files written before these names stored the estimates as "running_mean"
+// and "running_variance" and the coefficient as "momentum"; the model-file
+// reader and make_layer map those names (detail::current_state_name).
 #pragma once
 
 #include <cmath>
@@ -54,7 +60,7 @@ public:
         const var<T> centred = x - mean(x, 1);
         const var<T> variance = mean(square(centred), 1);
         const var<T> inv_std = pow(variance + static_cast<T>(epsilon_), T(-0.5));
-        return centred * inv_std * t.watch(gain_) + t.watch(bias_);
+        return centred * inv_std * t.track(gain_) + t.track(bias_);
     }
 
     const char* kind() const noexcept override { return "layer_norm"; }
@@ -93,21 +99,41 @@ private:
     parameter<T> bias_;
 };
 
+namespace detail {
+/// The current name of a stored parameter or state buffer: the batch-norm
+/// estimates that earlier files stored as "<layer>.running_mean" and
+/// "<layer>.running_variance" become "<layer>.population_mean" and
+/// "<layer>.population_variance"; every other name is returned unchanged.
+inline std::string current_state_name(const std::string& stored) {
+    static const struct {
+        const char* earlier;
+        const char* current;
+    } renamed[] = {{"running_mean", "population_mean"}, {"running_variance", "population_variance"}};
+    for (const auto& r : renamed) {
+        const std::string earlier(r.earlier);
+        const std::size_t dot = stored.rfind('.');
+        const std::string last = dot == std::string::npos ? stored : stored.substr(dot + 1);
+        if (last == earlier) return stored.substr(0, stored.size() - earlier.size()) + r.current;
+    }
+    return stored;
+}
+}  // namespace detail
+
 template <class T>
 class batch_norm : public layer<T> {
 public:
-    explicit batch_norm(std::size_t width, double momentum = 0.1, double epsilon = 1e-5)
-        : width_(width), momentum_(momentum), epsilon_(epsilon), gain_("gain", shape2{1, width}), bias_("bias", shape2{1, width}),
-          running_mean_("running_mean", shape2{1, width}), running_variance_("running_variance", shape2{1, width}) {
+    explicit batch_norm(std::size_t width, double batch_weight = 0.1, double epsilon = 1e-5)
+        : width_(width), batch_weight_(batch_weight), epsilon_(epsilon), gain_("gain", shape2{1, width}), bias_("bias", shape2{1, width}),
+          population_mean_("population_mean", shape2{1, width}), population_variance_("population_variance", shape2{1, width}) {
         detail::check_width("batch normalization", width);
         detail::check_epsilon("batch normalization", epsilon);
-        if (!(momentum > 0.0 && momentum <= 1.0)) {
-            raise(codes::model_layer_option, "batch normalization: momentum must be in (0, 1], got " + std::to_string(momentum));
+        if (!(batch_weight > 0.0 && batch_weight <= 1.0)) {
+            raise(codes::model_layer_option, "batch normalization: the batch weight must be in (0, 1], got " + std::to_string(batch_weight));
         }
         gain_.value().fill(T(1));
-        running_variance_.value().fill(T(1));
-        running_mean_.set_trainable(false);
-        running_variance_.set_trainable(false);
+        population_variance_.value().fill(T(1));
+        population_mean_.set_trainable(false);
+        population_variance_.set_trainable(false);
         renamed();
     }
 
@@ -116,8 +142,8 @@ public:
         this->require_width(s.cols, width_);
         const T eps = static_cast<T>(epsilon_);
         if (mode == run_mode::inference) {
-            const var<T> inv_std = pow(t.watch(running_variance_) + eps, T(-0.5));
-            return (x - t.watch(running_mean_)) * inv_std * t.watch(gain_) + t.watch(bias_);
+            const var<T> inv_std = pow(t.track(population_variance_) + eps, T(-0.5));
+            return (x - t.track(population_mean_)) * inv_std * t.track(gain_) + t.track(bias_);
         }
         if (s.rows < 2) {
             raise(codes::model_batch_too_small, "batch normalization '" + this->qualified_name() +
@@ -127,17 +153,17 @@ public:
         const var<T> batch_mean = mean(x, 0);
         const var<T> centred = x - batch_mean;
         const var<T> batch_variance = mean(square(centred), 0);
-        const var<T> y = centred * pow(batch_variance + eps, T(-0.5)) * t.watch(gain_) + t.watch(bias_);
+        const var<T> y = centred * pow(batch_variance + eps, T(-0.5)) * t.track(gain_) + t.track(bias_);
 
-        const T m = static_cast<T>(momentum_);
+        const T m = static_cast<T>(batch_weight_);
         const T unbias = static_cast<T>(s.rows) / static_cast<T>(s.rows - 1);
         const T* bm = batch_mean.value().data();
         const T* bv = batch_variance.value().data();
-        T* rm = running_mean_.value().data();
-        T* rv = running_variance_.value().data();
+        T* pm = population_mean_.value().data();
+        T* pv = population_variance_.value().data();
         for (std::size_t j = 0; j < width_; ++j) {
-            rm[j] = (T(1) - m) * rm[j] + m * bm[j];
-            rv[j] = (T(1) - m) * rv[j] + m * unbias * bv[j];
+            pm[j] = (T(1) - m) * pm[j] + m * bm[j];
+            pv[j] = (T(1) - m) * pv[j] + m * unbias * bv[j];
         }
         return y;
     }
@@ -147,7 +173,7 @@ public:
     layer_record describe() const override {
         layer_record r = this->base_record();
         r.set_number("width", static_cast<double>(width_));
-        r.set_number("momentum", momentum_);
+        r.set_number("batch_weight", batch_weight_);
         r.set_number("epsilon", epsilon_);
         return r;
     }
@@ -162,14 +188,14 @@ public:
         out.push_back(&bias_);
     }
     void collect_state(std::vector<parameter<T>*>& out) override {
-        out.push_back(&running_mean_);
-        out.push_back(&running_variance_);
+        out.push_back(&population_mean_);
+        out.push_back(&population_variance_);
     }
 
     parameter<T>& gain() noexcept { return gain_; }
     parameter<T>& bias() noexcept { return bias_; }
-    parameter<T>& running_mean() noexcept { return running_mean_; }
-    parameter<T>& running_variance() noexcept { return running_variance_; }
+    parameter<T>& population_mean() noexcept { return population_mean_; }
+    parameter<T>& population_variance() noexcept { return population_variance_; }
 
 protected:
     void renamed() override {
@@ -177,18 +203,18 @@ protected:
         const std::string p = q.empty() ? std::string() : q + ".";
         gain_.set_name(p + "gain");
         bias_.set_name(p + "bias");
-        running_mean_.set_name(p + "running_mean");
-        running_variance_.set_name(p + "running_variance");
+        population_mean_.set_name(p + "population_mean");
+        population_variance_.set_name(p + "population_variance");
     }
 
 private:
     std::size_t width_;
-    double momentum_;
+    double batch_weight_;
     double epsilon_;
     parameter<T> gain_;
     parameter<T> bias_;
-    parameter<T> running_mean_;
-    parameter<T> running_variance_;
+    parameter<T> population_mean_;
+    parameter<T> population_variance_;
 };
 
 TENON_NAMESPACE_END

@@ -360,6 +360,7 @@ inline table read_csv(std::istream& in, const csv_options& options = {}, const s
         }
         std::string().swap(arena[k]);  // free the raw text of this column early
     }
+    result.set_row_lines(std::move(lines));  // messages about a row name its file line
     return result;
 }
 

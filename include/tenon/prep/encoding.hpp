@@ -4,9 +4,9 @@
 // encoding). Its category order is fixed when it is built from the training
 // rows (sorted by byte value, so it does not depend on row order), and a
 // category never seen in training follows a policy: fail, all zeros, or a
-// final 'other' slot. With drop_first the first category is written as all
-// zeros, which removes the linear dependence between the slots (common
-// practice for linear models).
+// final 'other' slot. With omit_reference_level the first category (the
+// reference level) is written as all zeros, which removes the linear
+// dependence between the slots (common practice for linear models).
 //
 // class_index maps class labels to indices 0..k-1 and back; it travels with
 // the measured plan so predictions can be named.
@@ -32,20 +32,20 @@ public:
     one_hot_layout() = default;
 
     /// `categories` may hold duplicates and come in any order.
-    one_hot_layout(std::vector<std::string> categories, unseen_policy policy = unseen_policy::fail, bool drop_first = false)
-        : categories_(std::move(categories)), policy_(policy), drop_first_(drop_first) {
+    one_hot_layout(std::vector<std::string> categories, unseen_policy policy = unseen_policy::fail, bool omit_reference_level = false)
+        : categories_(std::move(categories)), policy_(policy), omit_reference_level_(omit_reference_level) {
         std::sort(categories_.begin(), categories_.end());
         categories_.erase(std::unique(categories_.begin(), categories_.end()), categories_.end());
     }
 
     const std::vector<std::string>& categories() const noexcept { return categories_; }
     unseen_policy policy() const noexcept { return policy_; }
-    bool drop_first() const noexcept { return drop_first_; }
+    bool omit_reference_level() const noexcept { return omit_reference_level_; }
 
     /// Number of slots written per cell.
     std::size_t width() const noexcept {
         std::size_t w = categories_.size();
-        if (drop_first_ && w > 0) --w;
+        if (omit_reference_level_ && w > 0) --w;
         if (policy_ == unseen_policy::other_slot) ++w;
         return w;
     }
@@ -75,7 +75,7 @@ public:
             return;
         }
         auto slot = static_cast<std::size_t>(index);
-        if (drop_first_) {
+        if (omit_reference_level_) {
             if (slot == 0) return;
             --slot;
         }
@@ -85,7 +85,7 @@ public:
     /// Names of the slots: "column=category", and "column=<other>".
     std::vector<std::string> slot_names(const std::string& column) const {
         std::vector<std::string> names;
-        for (std::size_t k = drop_first_ ? 1 : 0; k < categories_.size(); ++k) names.push_back(column + "=" + categories_[k]);
+        for (std::size_t k = omit_reference_level_ ? 1 : 0; k < categories_.size(); ++k) names.push_back(column + "=" + categories_[k]);
         if (policy_ == unseen_policy::other_slot) names.push_back(column + "=<other>");
         return names;
     }
@@ -93,7 +93,7 @@ public:
 private:
     std::vector<std::string> categories_;
     unseen_policy policy_ = unseen_policy::fail;
-    bool drop_first_ = false;
+    bool omit_reference_level_ = false;
 };
 
 /// Class labels <-> indices. Names are sorted (by byte value, or by numeric

@@ -1,9 +1,12 @@
 // tenon: filling missing cells with a value learned from the training rows.
 //
-// mean and median apply to numeric and date/time columns; most_frequent to
+// mean and median apply to numeric and date/time columns; mode (the most
+// frequent value) to
 // every kind (ties go to the smallest number, or to the category text that
 // sorts first, so the choice does not depend on row order); constant uses a
-// value the host gives. The learned value is kept in the measured plan and
+// value the host gives; automatic (the plan's default, and the tool's) is the
+// median for numeric and date/time columns and the most frequent category
+// for categorical ones. The learned value is kept in the measured plan and
 // used unchanged on validation, test and new rows.
 #pragma once
 
@@ -19,17 +22,27 @@
 
 TENON_NAMESPACE_BEGIN
 
-enum class fill_method : std::uint8_t { none = 0, mean = 1, median = 2, most_frequent = 3, constant = 4 };
+enum class fill_method : std::uint8_t { none = 0, mean = 1, median = 2, mode = 3, constant = 4, automatic = 5 };
 
 inline const char* to_string(fill_method m) noexcept {
     switch (m) {
         case fill_method::none: return "none";
         case fill_method::mean: return "mean";
         case fill_method::median: return "median";
-        case fill_method::most_frequent: return "most frequent";
+        case fill_method::mode: return "mode";
         case fill_method::constant: return "constant";
+        case fill_method::automatic: return "automatic";
     }
     return "unknown";
+}
+
+/// The method `automatic` stands for on a column of this kind: the median
+/// for numbers and date/times, the most frequent category for categories.
+/// Other methods are returned as they are. A measured fill never holds
+/// `automatic`: it is resolved when the plan is measured.
+inline fill_method resolve_fill(fill_method method, column_kind kind) noexcept {
+    if (method != fill_method::automatic) return method;
+    return kind == column_kind::categorical ? fill_method::mode : fill_method::median;
 }
 
 /// The value that replaces a missing cell: `number` for numeric and
@@ -44,11 +57,13 @@ struct fill_value {
 /// `constant_number` / `constant_text` are used by fill_method::constant.
 inline fill_value measure_fill(const column& c, const std::vector<std::size_t>& rows, fill_method method,
                                double constant_number = 0.0, const std::string& constant_text = {}) {
+    method = resolve_fill(method, c.kind());
     fill_value f;
     f.method = method;
     const bool categorical = c.kind() == column_kind::categorical;
     switch (method) {
-        case fill_method::none: return f;
+        case fill_method::none:
+        case fill_method::automatic: return f;  // resolved above
         case fill_method::constant:
             f.number = constant_number;
             f.text = constant_text;
@@ -57,7 +72,7 @@ inline fill_value measure_fill(const column& c, const std::vector<std::size_t>& 
         case fill_method::median: {
             if (categorical)
                 raise(codes::prep_column_kind, "column '" + c.name() + "' is categorical: it cannot be filled with the " +
-                                                   to_string(method) + "; use most frequent or constant");
+                                                   to_string(method) + "; use mode or constant");
             auto v = present_values(c, rows);
             if (v.empty()) raise(codes::prep_no_rows, "column '" + c.name() + "': no present values to learn a fill value from");
             if (method == fill_method::median) {
@@ -69,7 +84,7 @@ inline fill_value measure_fill(const column& c, const std::vector<std::size_t>& 
             }
             return f;
         }
-        case fill_method::most_frequent: {
+        case fill_method::mode: {
             detail::require_rows_in_range(c, rows);
             if (categorical) {
                 const auto counts = category_counts(c, rows);

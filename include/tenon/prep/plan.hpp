@@ -47,17 +47,37 @@ TENON_NAMESPACE_BEGIN
 enum class column_role : std::uint8_t { feature = 0, target = 1, ignored = 2, group = 3, time = 4 };
 enum class target_kind : std::uint8_t { classification = 0, regression = 1 };
 
-/// What to do with one feature column.
+/// What to do with one feature column. The defaults are the tool's (`tenon
+/// train`), so a table gives the same model through the library and the
+/// tool: missing cells filled with the median (numbers, date/times) or the
+/// most frequent category, a missing indicator for a column with a missing
+/// cell among the training rows, z-scores, and categories unseen in
+/// training written as all zeros (the predictor flags them:
+/// range_flag::unseen_category). strict_feature_steps() refuses instead.
 struct feature_steps {
-    fill_method fill = fill_method::none;
+    fill_method fill = fill_method::automatic;
     double fill_number = 0.0;        // fill_method::constant, numeric and date/time columns
     std::string fill_text;           // fill_method::constant, categorical columns
-    bool missing_indicator = false;  // add a 0/1 "was missing" feature
+    bool missing_indicator = false;  // always add a 0/1 "was missing" feature
+    /// Add the indicator when a training row (with a target) has the cell
+    /// missing; decided when the plan is measured.
+    bool indicator_if_missing_in_training = true;
     scaling_method scaling = scaling_method::z_score;  // numeric and date/time columns
     double range_low = 0.0, range_high = 1.0;          // target range of min-max scaling
-    unseen_policy unseen = unseen_policy::fail;        // categorical columns
-    bool drop_first = false;                           // categorical columns
+    unseen_policy unseen = unseen_policy::all_zero;    // categorical columns
+    bool omit_reference_level = false;                 // categorical columns
 };
+
+/// Steps that refuse what the defaults repair: a missing cell raises
+/// prep.value.missing (the predictor returns deploy.input.missing_value), an
+/// unseen category prep.category.unseen; no missing indicator. Z-scores.
+inline feature_steps strict_feature_steps() {
+    feature_steps s;
+    s.fill = fill_method::none;
+    s.indicator_if_missing_in_training = false;
+    s.unseen = unseen_policy::fail;
+    return s;
+}
 
 /// Rows prepared by a measured plan. `rows[i]` is the table row that became
 /// row i (rows with a missing target are left out and counted).
@@ -241,7 +261,7 @@ public:
                                                   : detail::number_text(target->number(r), buffer);
                 const std::int64_t k = classes_.find(name);
                 if (k < 0)
-                    raise(codes::prep_unseen_category, where(t) + " row " + std::to_string(r) + ": the class '" +
+                    raise(codes::prep_unseen_category, t.row_place(r) + ": the class '" +
                                                            std::string(name) + "' of target '" + target_name_ +
                                                            "' was not seen in the training rows");
                 out.classes[i] = static_cast<std::uint32_t>(k);
@@ -356,7 +376,7 @@ public:
             w.u8(f.indicator ? 1 : 0);
             write_scaling(w, f.scale);
             w.u8(static_cast<std::uint8_t>(f.one_hot.policy()));
-            w.u8(f.one_hot.drop_first() ? 1 : 0);
+            w.u8(f.one_hot.omit_reference_level() ? 1 : 0);
             w.u32(static_cast<std::uint32_t>(f.one_hot.categories().size()));
             for (const auto& c : f.one_hot.categories()) w.text(c);
         }
@@ -400,10 +420,10 @@ public:
             f.indicator = r.flag("missing indicator");
             f.scale = read_scaling(r);
             const auto policy = r.enumeration<unseen_policy>(2, "unseen-category policy");
-            const bool drop_first = r.flag("drop-first");
+            const bool omit_reference_level = r.flag("omit-reference-level");
             std::vector<std::string> categories(r.count(4, "categories"));
             for (auto& c : categories) c = r.text();
-            f.one_hot = one_hot_layout(std::move(categories), policy, drop_first);
+            f.one_hot = one_hot_layout(std::move(categories), policy, omit_reference_level);
         }
         if (r.flag("has-target")) {
             r.expect_tag(tag_target, "the target");
@@ -534,14 +554,14 @@ private:
                 T* o = features.data() + i * width + f.offset;
                 const bool missing = c.is_missing(r);
                 if (missing && f.fill.method == fill_method::none)
-                    raise(codes::prep_value_missing, where(t) + " row " + std::to_string(r) + ", column '" + f.name +
+                    raise(codes::prep_value_missing, t.row_place(r) + ", column '" + f.name +
                                                          "': the cell is missing and the plan has no fill for it");
                 if (f.kind == column_kind::categorical) {
                     if (missing || category_map[c.code(r)] >= 0 || f.one_hot.policy() != unseen_policy::fail)
                         write_category(f, missing, missing ? -1 : category_map[c.code(r)],
                                        missing ? std::string_view() : std::string_view(c.category(r)), o, std::string());
                     else
-                        raise(codes::prep_unseen_category, where(t) + " row " + std::to_string(r) + ", column '" + f.name +
+                        raise(codes::prep_unseen_category, t.row_place(r) + ", column '" + f.name +
                                                                "': the category '" + c.category(r) +
                                                                "' was not seen in the training rows");
                 } else {
@@ -576,13 +596,15 @@ inline std::vector<std::pair<std::string, std::uint64_t>> shared_category_counts
 }
 
 // measure_fill over all participants' rows (same rules, same messages).
-inline fill_value shared_fill(const column& c, const std::vector<std::size_t>& rows, const feature_steps& s, statistics_exchange& ex) {
+inline fill_value shared_fill(const column& c, const std::vector<std::size_t>& rows, const feature_steps& steps, statistics_exchange& ex) {
+    feature_steps s = steps;
+    s.fill = resolve_fill(s.fill, c.kind());
     if (s.fill == fill_method::none || s.fill == fill_method::constant) return measure_fill(c, rows, s.fill, s.fill_number, s.fill_text);
     fill_value f;
     f.method = s.fill;
     const auto nothing = [&] { raise(codes::prep_no_rows, "column '" + c.name() + "': no present values to learn a fill value from"); };
     if (c.kind() == column_kind::categorical) {
-        if (s.fill != fill_method::most_frequent) measure_fill(c, rows, s.fill);  // raises prep.column.kind as alone
+        if (s.fill != fill_method::mode) measure_fill(c, rows, s.fill);  // raises prep.column.kind as alone
         std::uint64_t best = 0;
         for (const auto& kv : shared_category_counts(c, rows, ex))  // sorted: the smallest name wins ties
             if (kv.second > best) {
@@ -622,13 +644,13 @@ inline fill_value shared_fill(const column& c, const std::vector<std::size_t>& r
 inline scaling shared_scaling(const column& c, const std::vector<std::size_t>& rows, scaling_method method, double low, double high,
                               statistics_exchange& ex) {
     if (method == scaling_method::none) return scaling{};
-    if (method == scaling_method::robust) {
+    if (method == scaling_method::median_iqr) {
         std::vector<double> v = ex.gather_values(present_values(c, rows));
         if (v.empty()) raise(codes::prep_no_rows, "column '" + c.name() + "': no present values for quartiles");
         quartile_summary q;
         q.median = exact_quantile(v, 0.5);
         q.interquartile_range = exact_quantile(v, 0.75) - exact_quantile(v, 0.25);
-        return robust_scaling(q);
+        return median_iqr_scaling(q);
     }
     const running_moments m = ex.merge_moments(column_moments(c, rows));
     if (m.count == 0) raise(codes::prep_no_rows, "column '" + c.name() + "': no present values to measure a scaling on");
@@ -675,6 +697,12 @@ inline measured_plan plan::measure(const table& t, const std::vector<std::size_t
         f.name = c.name();
         f.kind = c.kind();
         f.indicator = s.missing_indicator;
+        if (!f.indicator && s.indicator_if_missing_in_training) {
+            std::vector<std::uint64_t> missing{0};
+            for (auto r : kept) missing[0] += c.is_missing(r) ? 1u : 0u;
+            if (exchange) exchange->sum_counts(missing);  // every participant decides alike
+            f.indicator = missing[0] > 0;
+        }
         f.fill = exchange ? detail::shared_fill(c, kept, s, *exchange) : measure_fill(c, kept, s.fill, s.fill_number, s.fill_text);
         if (c.kind() == column_kind::categorical) {
             std::vector<std::string> seen;
@@ -688,7 +716,7 @@ inline measured_plan plan::measure(const table& t, const std::vector<std::size_t
             if (f.fill.method == fill_method::constant) seen.push_back(f.fill.text);
             if (seen.empty())
                 raise(codes::prep_no_rows, where + ", column '" + c.name() + "': no present category in the training rows");
-            f.one_hot = one_hot_layout(std::move(seen), s.unseen, s.drop_first);
+            f.one_hot = one_hot_layout(std::move(seen), s.unseen, s.omit_reference_level);
         } else {
             f.scale = exchange ? detail::shared_scaling(c, kept, s.scaling, s.range_low, s.range_high, *exchange)
                                : measure_scaling(c, kept, s.scaling, s.range_low, s.range_high);

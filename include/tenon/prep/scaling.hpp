@@ -3,13 +3,13 @@
 // Every method is an affine map learned from the training rows:
 //   min-max  y = low + (x - min) / (max - min) * (high - low)   ([0, 1] by default)
 //   z-score  y = (x - mean) / standard deviation (population, divisor n)
-//   robust   y = (x - median) / interquartile range
+//   median-IQR  y = (x - median) / interquartile range
 // The mean and deviation come from running_moments (Welford 1962), the
 // median and quartiles from exact_quantile (Hyndman & Fan 1996, def. 7).
 //
 // Constant columns: when the spread (max - min, deviation or IQR) is zero or
 // not finite, the spread is taken as 1, so the column maps to 0 (z-score,
-// robust) or to `low` (min-max) without a division by zero, and the inverse
+// median-IQR) or to `low` (min-max) without a division by zero, and the inverse
 // still returns the constant.
 #pragma once
 
@@ -29,20 +29,20 @@
 
 TENON_NAMESPACE_BEGIN
 
-enum class scaling_method : std::uint8_t { none = 0, min_max = 1, z_score = 2, robust = 3 };
+enum class scaling_method : std::uint8_t { none = 0, min_max = 1, z_score = 2, median_iqr = 3 };
 
 inline const char* to_string(scaling_method m) noexcept {
     switch (m) {
         case scaling_method::none: return "none";
         case scaling_method::min_max: return "min-max";
         case scaling_method::z_score: return "z-score";
-        case scaling_method::robust: return "robust";
+        case scaling_method::median_iqr: return "median-iqr";
     }
     return "unknown";
 }
 
 /// The learned affine map of one column: y = low + (x - center) / spread * (high - low).
-/// For z-score and robust scaling low = 0 and high = 1; for none center = 0,
+/// For z-score and median-IQR scaling low = 0 and high = 1; for none center = 0,
 /// spread = 1, low = 0, high = 1 (the identity).
 struct scaling {
     scaling_method method = scaling_method::none;
@@ -69,8 +69,8 @@ inline void require_range(double low, double high) {
 }
 }  // namespace detail
 
-/// Min-max or z-score scaling from single-pass moments. (Robust scaling needs
-/// quartiles: use robust_scaling.)
+/// Min-max or z-score scaling from single-pass moments. (Median-IQR scaling needs
+/// quartiles: use median_iqr_scaling.)
 inline scaling scaling_from_moments(scaling_method method, const running_moments& m, double low = 0.0, double high = 1.0) {
     scaling s;
     s.method = method;
@@ -89,15 +89,15 @@ inline scaling scaling_from_moments(scaling_method method, const running_moments
             s.center = m.mean;
             s.spread = detail::usable_spread(m.population_stddev());
             break;
-        case scaling_method::robust:
-            raise(codes::invalid_argument, "scaling_from_moments: robust scaling needs quartiles, use robust_scaling");
+        case scaling_method::median_iqr:
+            raise(codes::invalid_argument, "scaling_from_moments: median-IQR scaling needs quartiles, use median_iqr_scaling");
     }
     return s;
 }
 
-inline scaling robust_scaling(const quartile_summary& q) {
+inline scaling median_iqr_scaling(const quartile_summary& q) {
     scaling s;
-    s.method = scaling_method::robust;
+    s.method = scaling_method::median_iqr;
     s.center = q.median;
     s.spread = detail::usable_spread(q.interquartile_range);
     return s;
@@ -107,7 +107,7 @@ inline scaling robust_scaling(const quartile_summary& q) {
 /// over the given (training) rows.
 inline scaling measure_scaling(const column& c, const std::vector<std::size_t>& rows, scaling_method method,
                                double low = 0.0, double high = 1.0) {
-    if (method == scaling_method::robust) return robust_scaling(column_quartiles(c, rows));
+    if (method == scaling_method::median_iqr) return median_iqr_scaling(column_quartiles(c, rows));
     if (method == scaling_method::none) return scaling{};
     const auto m = column_moments(c, rows);
     if (m.count == 0) raise(codes::prep_no_rows, "column '" + c.name() + "': no present values to measure a scaling on");

@@ -5,11 +5,17 @@
 // 1970-01-01T00:00:00Z); categories as a small integer code per row plus the
 // list of category texts in order of first appearance. A missing cell has
 // its mask byte set; its stored value is unspecified (0 or code 0).
+//
+// A table read from a CSV file keeps each row's line in the file (the line
+// where its record starts, 1-based), so messages about a row name the line
+// a person opens the file at, the same line the tool reports:
+// "press_log.csv line 11" rather than row index 9 (row_place).
 #pragma once
 
 #include <cstddef>
 #include <cstdint>
 #include <limits>
+#include <memory>
 #include <string>
 #include <string_view>
 #include <unordered_map>
@@ -31,6 +37,23 @@ inline const char* to_string(column_kind kind) noexcept {
     }
     return "unknown";
 }
+
+/// Where rows came from: the source (a file name) and the file line of each
+/// row. Shared by a table's columns, so a column alone can name a row's line.
+struct row_origin {
+    std::string source;
+    std::vector<std::size_t> lines;
+};
+
+namespace detail {
+// "press_log.csv line 11" when the row's line is known, else "press_log.csv
+// row 9" (or "table row 9" without a source).
+inline std::string row_place(const row_origin* origin, const std::string& source, std::size_t row) {
+    const std::string where = source.empty() ? std::string("table") : source;
+    if (origin && row < origin->lines.size()) return where + " line " + std::to_string(origin->lines[row]);
+    return where + " row " + std::to_string(row);
+}
+}  // namespace detail
 
 /// One named column of a table.
 class column {
@@ -89,6 +112,13 @@ public:
         missing_.push_back(1);
     }
 
+    /// Names a row for messages: "press_log.csv line 11" for a column of a
+    /// table read from a file, "table row 9" otherwise.
+    std::string row_place(std::size_t row) const {
+        return detail::row_place(origin_.get(), origin_ ? origin_->source : std::string(), row);
+    }
+    void set_origin(std::shared_ptr<const row_origin> origin) noexcept { origin_ = std::move(origin); }
+
     /// Code of a category text, or -1 when the column never saw it.
     std::int64_t find_category(std::string_view text) const {
         key_.assign(text.data(), text.size());
@@ -110,6 +140,7 @@ private:
     std::vector<std::string> categories_;
     std::unordered_map<std::string, std::uint32_t> lookup_;
     std::vector<std::uint8_t> missing_;
+    std::shared_ptr<const row_origin> origin_;  // the rows' file lines, when read from a file
     mutable std::string key_;  // reused lookup key, so appending does not allocate per cell
 };
 
@@ -129,8 +160,26 @@ public:
             if (c.name() == name)
                 raise(codes::prep_csv_duplicate_column, source_ + ": two columns are named '" + name + "'");
         columns_.emplace_back(std::move(name), kind);
+        columns_.back().set_origin(origin_);
         return columns_.back();
     }
+
+    /// Records each row's line in the source file (read_csv does), 1-based.
+    void set_row_lines(std::vector<std::size_t> lines) {
+        auto origin = std::make_shared<row_origin>();
+        origin->source = source_;
+        origin->lines = std::move(lines);
+        origin_ = std::move(origin);
+        for (auto& c : columns_) c.set_origin(origin_);
+    }
+    /// Each row's line in the source file; empty for a table built in code.
+    const std::vector<std::size_t>& row_lines() const noexcept {
+        static const std::vector<std::size_t> none;
+        return origin_ ? origin_->lines : none;
+    }
+    /// Names a row for messages: "press_log.csv line 11" when the table was
+    /// read from a file, "press_log.csv row 9" or "table row 9" otherwise.
+    std::string row_place(std::size_t row) const { return detail::row_place(origin_.get(), source_, row); }
 
     bool contains(std::string_view name) const noexcept {
         for (const auto& c : columns_)
@@ -160,20 +209,24 @@ public:
 private:
     std::string source_;
     std::vector<column> columns_;
+    std::shared_ptr<const row_origin> origin_;
 };
 
 /// Dense integer codes 0..k-1 for the distinct values of a column (in order
 /// of first appearance), e.g. to pass a group or class column to a split.
-/// Missing cells get their own code only if `missing_is_value`; otherwise
-/// they raise prep.value.missing.
-inline std::vector<std::uint32_t> dense_codes(const column& c, bool missing_is_value = false) {
+/// Missing cells get their own code (after the others) by default, as the
+/// tool does: a stratified split then spreads rows without a target over the
+/// subsets like a class of their own, and fit_model and evaluate_model drop
+/// them and count them. With `missing_is_value` false a missing cell raises
+/// prep.value.missing naming its file line.
+inline std::vector<std::uint32_t> dense_codes(const column& c, bool missing_is_value = true) {
     std::vector<std::uint32_t> out(c.size());
     if (c.kind() == column_kind::categorical) {
         const auto missing_code = static_cast<std::uint32_t>(c.categories().size());
         for (std::size_t i = 0; i < c.size(); ++i) {
             if (c.is_missing(i)) {
                 if (!missing_is_value)
-                    raise(codes::prep_value_missing, "column '" + c.name() + "' row " + std::to_string(i) + " is missing");
+                    raise(codes::prep_value_missing, c.row_place(i) + ", column '" + c.name() + "': the cell is missing");
                 out[i] = missing_code;
             } else {
                 out[i] = c.code(i);
@@ -187,7 +240,7 @@ inline std::vector<std::uint32_t> dense_codes(const column& c, bool missing_is_v
     for (std::size_t i = 0; i < c.size(); ++i) {
         if (c.is_missing(i)) {
             if (!missing_is_value)
-                raise(codes::prep_value_missing, "column '" + c.name() + "' row " + std::to_string(i) + " is missing");
+                raise(codes::prep_value_missing, c.row_place(i) + ", column '" + c.name() + "': the cell is missing");
             if (!has_missing_code) {
                 missing_code = static_cast<std::uint32_t>(seen.size());
                 seen.emplace(std::numeric_limits<double>::quiet_NaN(), missing_code);  // placeholder slot

@@ -62,7 +62,7 @@ struct class_scores {
     double precision = 0.0;
     double recall = 0.0;
     double f1 = 0.0;
-    std::size_t support = 0;  // rows whose true class is this one
+    std::size_t true_rows = 0;  // rows whose true class is this one
 };
 
 struct classification_scores {
@@ -111,7 +111,7 @@ inline classification_scores score_classes(const std::vector<std::size_t>& truth
         }
         const double tp = static_cast<double>(s.confusion.count(c, c));
         auto& pc = s.per_class[c];
-        pc.support = actually_c;
+        pc.true_rows = actually_c;
         pc.precision = detail::ratio_or_zero(tp, static_cast<double>(predicted_as_c));
         pc.recall = detail::ratio_or_zero(tp, static_cast<double>(actually_c));
         pc.f1 = detail::ratio_or_zero(2.0 * pc.precision * pc.recall, pc.precision + pc.recall);

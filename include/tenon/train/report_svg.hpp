@@ -3,7 +3,8 @@
 // Two panels: training and validation loss per epoch (with the epoch whose
 // weights were kept marked), and, for classification, the test confusion
 // matrix as a heat map whose cell shade is the share of the true class's rows
-// (row-normalized) with the raw count written in the cell. No scripts, no
+// (row-normalized, on tenon's own parchment-ochre-umber scale, heat_colour)
+// with the raw count written in the cell. No scripts, no
 // external fonts or styles: the file opens in any browser and can be archived
 // beside the model.
 #pragma once
@@ -19,7 +20,7 @@
 TENON_NAMESPACE_BEGIN
 
 struct report_curve_point {
-    double train_loss = 0.0;
+    double training_loss = 0.0;
     double validation_loss = 0.0;  // NaN when there was no validation
 };
 
@@ -32,6 +33,24 @@ struct report_content {
 };
 
 namespace detail {
+
+/// The heat map's fill for a share in [0, 1] as "#rrggbb": tenon's own scale,
+/// from pale parchment (245, 241, 230) at 0 through ochre (214, 150, 62) at
+/// 0.5 to dark umber (90, 35, 30) at 1, linear in each half. Its relative
+/// luminance (0.2126 R + 0.7152 G + 0.0722 B, ITU-R BT.709) falls from 241
+/// through 157 to 46, so the shading also reads when printed in grey.
+inline std::string heat_colour(double share) {
+    static const int stops[3][3] = {{245, 241, 230}, {214, 150, 62}, {90, 35, 30}};
+    const double s = std::isfinite(share) ? std::min(1.0, std::max(0.0, share)) : 0.0;
+    const int half = s < 0.5 ? 0 : 1;
+    const double f = s < 0.5 ? s / 0.5 : (s - 0.5) / 0.5;
+    int channel[3];
+    for (int c = 0; c < 3; ++c)
+        channel[c] = static_cast<int>(std::lround(stops[half][c] + f * (stops[half + 1][c] - stops[half][c])));
+    char text[16];
+    std::snprintf(text, sizeof text, "#%02x%02x%02x", channel[0], channel[1], channel[2]);
+    return text;
+}
 
 inline std::string svg_escape(const std::string& s) {
     std::string out;
@@ -67,7 +86,7 @@ inline void svg_loss_panel(std::string& s, const report_content& r, double x0, d
          "\" text-anchor=\"middle\" font-size=\"14\" font-weight=\"bold\">Loss per epoch</text>\n";
     double lo = INFINITY, hi = -INFINITY;
     for (const auto& p : r.epochs) {
-        for (double v : {p.train_loss, p.validation_loss}) {
+        for (double v : {p.training_loss, p.validation_loss}) {
             if (std::isfinite(v)) { lo = std::min(lo, v); hi = std::max(hi, v); }
         }
     }
@@ -99,7 +118,7 @@ inline void svg_loss_panel(std::string& s, const report_content& r, double x0, d
     auto polyline = [&](bool validation, const char* colour) {
         std::string pts;
         for (std::size_t i = 0; i < n; ++i) {
-            const double v = validation ? r.epochs[i].validation_loss : r.epochs[i].train_loss;
+            const double v = validation ? r.epochs[i].validation_loss : r.epochs[i].training_loss;
             if (!std::isfinite(v)) continue;
             pts += svg_fixed(px(i)) + "," + svg_fixed(py(v)) + " ";
         }
@@ -150,12 +169,7 @@ inline void svg_confusion_panel(std::string& s, const report_content& r, double 
         for (std::size_t j = 0; j < k; ++j) {
             const std::size_t c = cm.count(i, j);
             const double share = row_total ? static_cast<double>(c) / static_cast<double>(row_total) : 0.0;
-            // White to dark blue by share of the true class.
-            const int red = static_cast<int>(std::lround(255 - share * (255 - 20)));
-            const int green = static_cast<int>(std::lround(255 - share * (255 - 70)));
-            const int blue = static_cast<int>(std::lround(255 - share * (255 - 150)));
-            char fill[16];
-            std::snprintf(fill, sizeof fill, "#%02x%02x%02x", red, green, blue);
+            const std::string fill = heat_colour(share);
             const double x = left + cell * static_cast<double>(j), y = top + cell * static_cast<double>(i);
             s += "<rect x=\"" + svg_fixed(x) + "\" y=\"" + svg_fixed(y) + "\" width=\"" + svg_fixed(cell) + "\" height=\"" + svg_fixed(cell) +
                  "\" fill=\"" + fill + "\" stroke=\"#fff\"/>\n";

@@ -70,7 +70,7 @@
 // their settings (rows with all rows on every member, columns, outputs,
 // batch size, seed, epochs, patience, loss, shuffling, row holding, network
 // size) and all throw train.team.mismatch when any differs.
-// State buffers (batch-normalization running statistics) are averaged over
+// State buffers (batch-normalization population estimates) are averaged over
 // the members after every epoch; during training each member normalizes
 // with its own batch's statistics.
 #pragma once
@@ -139,7 +139,7 @@ inline const char* stop_reason_name(stop_reason r) noexcept {
 /// One line of the training history.
 struct epoch_summary {
     std::size_t epoch = 0;               // 1-based
-    double train_loss = 0.0;             // mean over the epoch's batches
+    double training_loss = 0.0;          // mean over the epoch's batches
     double validation_loss = std::numeric_limits<double>::quiet_NaN();
     double validation_metric = std::numeric_limits<double>::quiet_NaN();  // accuracy or RMSE (prepared units)
     double learning_rate = 0.0;          // at the epoch's last step
@@ -251,8 +251,8 @@ struct training_options {
     /// A validation loss counts as an improvement when it is lower than the
     /// best so far by more than this.
     double min_improvement = 0.0;
-    /// Restore the best epoch's weights when training stops.
-    bool restore_best = true;
+    /// Keep the best epoch's weights when training stops (put them back).
+    bool keep_best = true;
     loss_kind loss = loss_kind::l2;
     loss_options<T> loss_settings;
     std::size_t divergence_retries = 3;
@@ -518,7 +518,7 @@ public:
             epoch_summary s;
             s.epoch = epoch + 1;
             s.retries = retries;
-            s.train_loss = r.loss;
+            s.training_loss = r.loss;
             s.learning_rate = r.learning_rate;
 
             if (r.status == epoch_status::diverged) {
@@ -564,7 +564,7 @@ public:
                     ++since_best;
                 }
             } else {
-                schedule_.report_metric(s.train_loss);
+                schedule_.report_metric(s.training_loss);
             }
             s.seconds = options_.clock() - epoch_t0;
             out.history.push_back(s);
@@ -610,7 +610,7 @@ public:
         if (!stop && out.reason == stop_reason::epoch_limit) {
             out.message = "completed " + std::to_string(options_.epochs) + " epochs";
         }
-        if (options_.restore_best && out.best_epoch > 0) net_.restore(best);
+        if (options_.keep_best && out.best_epoch > 0) net_.restore(best);
         out.seconds = options_.clock() - start;
         return out;
     }
@@ -1011,7 +1011,7 @@ private:
         metric = classify ? sums[2] / sums[3] : std::sqrt(sums[2] / sums[3]);
     }
 
-    // Running statistics are not trained by the gradient: the members'
+    // Population estimates are not trained by the gradient: the members'
     // are averaged so that every member holds the same model.
     void average_state_buffers() {
         const auto& state = net_.state_buffers();

@@ -175,7 +175,7 @@ supervised_rows<T> to_supervised(prepared_rows<T>&& p, const measured_plan& plan
 
 }  // namespace detail
 
-/// Measures `recipe` on `train_rows`, trains a perceptron on them with early
+/// Measures `preparation` on `train_rows`, trains a perceptron on them with early
 /// stopping on `validation_rows` (which may be empty: then training runs all
 /// epochs on the training loss), and returns the model with its plan.
 /// In a team whose members hold shards (model_settings::member_rows), the
@@ -183,7 +183,7 @@ supervised_rows<T> to_supervised(prepared_rows<T>&& p, const measured_plan& plan
 /// training rows (model_settings::exchange), this member prepares only its
 /// own rows, and every member returns the same model.
 template <class T>
-fitted_model<T> fit_model(const table& t, const plan& recipe, const std::vector<std::size_t>& train_rows,
+fitted_model<T> fit_model(const table& t, const plan& preparation, const std::vector<std::size_t>& train_rows,
                           const std::vector<std::size_t>& validation_rows, const model_settings& s) {
     TENON_REQUIRE_SCALAR(T);
     const bool shards = s.team && s.member_rows == team_rows::shard_per_member;
@@ -192,7 +192,7 @@ fitted_model<T> fit_model(const table& t, const plan& recipe, const std::vector<
                                    "plan is measured over all members' training rows");
     }
     if (shards) require_same_columns(t, *s.exchange, "fit_model");
-    measured_plan measured = recipe.measure(t, train_rows, shards ? s.exchange : nullptr);
+    measured_plan measured = preparation.measure(t, train_rows, shards ? s.exchange : nullptr);
     // Preparing the rows can fail on one member alone (e.g. a missing cell
     // without a fill in its shard): the members agree on failing before the
     // trainer's first collective call.
@@ -230,7 +230,7 @@ fitted_model<T> fit_model(const table& t, const plan& recipe, const std::vector<
         const bool rectifier = s.hidden_activation == activation::relu || s.hidden_activation == activation::leaky_relu ||
                                s.hidden_activation == activation::elu || s.hidden_activation == activation::gelu ||
                                s.hidden_activation == activation::gelu_tanh;
-        const initializer init{rectifier ? init_scheme::he_uniform : init_scheme::glorot_uniform, 0.0};
+        const initializer init{rectifier ? init_scheme::he : init_scheme::glorot, init_distribution::uniform};
         net = make_mlp<T>(sizes, s.hidden_activation, init, s.seed);
     };
 #if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
@@ -343,7 +343,7 @@ struct cross_validation_report {
 /// seeded random choice) is held out for early stopping; the plan is
 /// measured on the rest, so nothing of the fold's test rows is seen.
 template <class T>
-cross_validation_report cross_validate(const table& t, const plan& recipe, const std::vector<fold>& folds, const model_settings& s,
+cross_validation_report cross_validate(const table& t, const plan& preparation, const std::vector<fold>& folds, const model_settings& s,
                                        double validation_share = 0.15, bool chronological = false) {
     if (folds.size() < 2) raise(codes::train_option, "cross_validate: needs at least 2 folds, got " + std::to_string(folds.size()));
     if (!(validation_share >= 0.0 && validation_share < 1.0)) {
@@ -361,7 +361,7 @@ cross_validation_report cross_validate(const table& t, const plan& recipe, const
         inner.resize(inner.size() - n_val);
         std::sort(inner.begin(), inner.end());
         std::sort(val.begin(), val.end());
-        fitted_model<T> m = fit_model<T>(t, recipe, inner, val, s);
+        fitted_model<T> m = fit_model<T>(t, preparation, inner, val, s);
         report.folds.push_back(evaluate_model(m, t, folds[f].test));
     }
     const bool classify = report.folds.front().classification;

@@ -17,7 +17,7 @@ class gradient_descent : public update_rule<T> {
 public:
     explicit gradient_descent(const update_options<T>& options = {}) : update_rule<T>(options, 0) {}
     const char* kind() const noexcept override { return "gradient_descent"; }
-    const char* slot_name(std::size_t) const noexcept override { return ""; }
+    const char* buffer_name(std::size_t) const noexcept override { return ""; }
 
 protected:
     bool treats_elements_independently() const noexcept override { return true; }
@@ -48,13 +48,13 @@ public:
         detail::check_option("momentum", "coefficient", static_cast<double>(m.coefficient), m.coefficient >= T(0) && m.coefficient < T(1), "in [0, 1)");
     }
     const char* kind() const noexcept override { return m_.nesterov ? "nesterov" : "momentum"; }
-    const char* slot_name(std::size_t) const noexcept override { return "velocity"; }
+    const char* buffer_name(std::size_t) const noexcept override { return "velocity"; }
     const momentum_options<T>& settings() const noexcept { return m_; }
 
 protected:
     bool treats_elements_independently() const noexcept override { return true; }
-    void update_parameter(T* w, const T* g, T* const* slots, std::size_t n, T lr, const gradient_transform<T>& f) override {
-        T* v = slots[0];
+    void update_parameter(T* w, const T* g, T* const* buffers, std::size_t n, T lr, const gradient_transform<T>& f) override {
+        T* v = buffers[0];
         const T mu = m_.coefficient;
         for (std::size_t k = 0; k < n; ++k) {
             const T step = lr * f(g[k], w[k]);
@@ -159,15 +159,15 @@ public:
                              a.decoupled_weight_decay >= T(0), "finite and non-negative");
     }
     const char* kind() const noexcept override { return a_.decoupled_weight_decay > T(0) ? "adamw" : "adam"; }
-    const char* slot_name(std::size_t slot) const noexcept override { return slot == 0 ? "first_moment" : "second_moment"; }
+    const char* buffer_name(std::size_t buffer) const noexcept override { return buffer == 0 ? "first_moment" : "second_moment"; }
     const adam_options<T>& settings() const noexcept { return a_; }
 
 protected:
-    void update_parameter(T* w, const T* g, T* const* slots, std::size_t n, T lr, const gradient_transform<T>& f) override {
-        pass(w, g, slots, n, lr, f, nullptr);
+    void update_parameter(T* w, const T* g, T* const* buffers, std::size_t n, T lr, const gradient_transform<T>& f) override {
+        pass(w, g, buffers, n, lr, f, nullptr);
     }
-    void update_and_clear(T* w, T* g, T* const* slots, std::size_t n, T lr, const gradient_transform<T>& f) override {
-        pass(w, g, slots, n, lr, f, g);
+    void update_and_clear(T* w, T* g, T* const* buffers, std::size_t n, T lr, const gradient_transform<T>& f) override {
+        pass(w, g, buffers, n, lr, f, g);
     }
     bool treats_elements_independently() const noexcept override { return true; }
     bool scans_gradients_in_pass() const noexcept override { return true; }
@@ -175,9 +175,9 @@ protected:
 private:
     // One pass over the n elements; `clear` is g (writable) when each
     // gradient element is to be set to zero once read, else nullptr.
-    void pass(T* w, const T* g, T* const* slots, std::size_t n, T lr, const gradient_transform<T>& f, T* clear) {
-        T* m = slots[0];
-        T* v = slots[1];
+    void pass(T* w, const T* g, T* const* buffers, std::size_t n, T lr, const gradient_transform<T>& f, T* clear) {
+        T* m = buffers[0];
+        T* v = buffers[1];
         const T b1 = a_.beta1, b2 = a_.beta2, decay = lr * a_.decoupled_weight_decay;
         const T rate = step_rate(lr), epsilon = step_epsilon();
         std::size_t k = 0;
@@ -249,12 +249,12 @@ public:
         detail::check_option("rmsprop", "epsilon", static_cast<double>(r.epsilon), r.epsilon > T(0), "positive");
     }
     const char* kind() const noexcept override { return "rmsprop"; }
-    const char* slot_name(std::size_t) const noexcept override { return "mean_square"; }
+    const char* buffer_name(std::size_t) const noexcept override { return "mean_square"; }
 
 protected:
     bool treats_elements_independently() const noexcept override { return true; }
-    void update_parameter(T* w, const T* g, T* const* slots, std::size_t n, T lr, const gradient_transform<T>& f) override {
-        T* s = slots[0];
+    void update_parameter(T* w, const T* g, T* const* buffers, std::size_t n, T lr, const gradient_transform<T>& f) override {
+        T* s = buffers[0];
         const T rho = r_.decay;
         for (std::size_t k = 0; k < n; ++k) {
             const T gk = f(g[k], w[k]);
@@ -282,12 +282,12 @@ public:
         detail::check_option("adagrad", "epsilon", static_cast<double>(a.epsilon), a.epsilon > T(0), "positive");
     }
     const char* kind() const noexcept override { return "adagrad"; }
-    const char* slot_name(std::size_t) const noexcept override { return "sum_of_squares"; }
+    const char* buffer_name(std::size_t) const noexcept override { return "sum_of_squares"; }
 
 protected:
     bool treats_elements_independently() const noexcept override { return true; }
-    void update_parameter(T* w, const T* g, T* const* slots, std::size_t n, T lr, const gradient_transform<T>& f) override {
-        T* s = slots[0];
+    void update_parameter(T* w, const T* g, T* const* buffers, std::size_t n, T lr, const gradient_transform<T>& f) override {
+        T* s = buffers[0];
         for (std::size_t k = 0; k < n; ++k) {
             const T gk = f(g[k], w[k]);
             s[k] += gk * gk;

@@ -185,32 +185,56 @@ private:
     std::uint64_t warmup_;
 };
 
+/// The options of the stall reduction. The defaults are our own; each says
+/// why it has its value.
 struct stall_reduction_options {
+    /// 1e-3: Adam's suggested step size (Kingma & Ba 2015, "Adam: A Method
+    /// for Stochastic Optimization", Algorithm 1).
     double initial_rate = 1e-3;
-    /// The rate is multiplied by this after a stall, in (0, 1).
-    double factor = 0.1;
-    /// Reports without improvement tolerated before reducing.
-    std::uint64_t patience = 10;
+    /// After a stall the rate is multiplied by this, in (0, 1). 0.5 (halving):
+    /// a cut then leaves the rate at most a factor 2 below the largest rate
+    /// that still made progress, and a decade takes log(10) / log(2) = 3.3
+    /// cuts, about 20 reports with tolerated_reports = 5; a smaller multiplier
+    /// falls faster but can land up to 1 / multiplier below a useful rate.
+    double rate_multiplier = 0.5;
+    /// Reports without improvement tolerated; the next one cuts the rate. 5:
+    /// the strip of 5 epochs over which Prechelt judges progress before
+    /// stopping (Prechelt 1998, "Early Stopping - But When?", in Neural
+    /// Networks: Tricks of the Trade; the strip length is from memory).
+    std::uint64_t tolerated_reports = 5;
     /// A report improves on the best when it beats it by more than
-    /// threshold * |best| (relative).
-    double threshold = 1e-4;
-    /// Reports ignored after a reduction before stalls count again.
-    std::uint64_t cooldown = 0;
-    double minimum_rate = 0.0;
+    /// relative_margin * |best|. 1e-3: for a per-row loss whose spread is
+    /// about its mean (squared errors of normal residuals have variance 2
+    /// and mean 1, a chi-square with one degree of freedom), the mean over n
+    /// validation rows has relative standard error sqrt(2 / n), which is
+    /// 1e-3 only at n = 2 million rows; a smaller gain is within the
+    /// validation set's own sampling error for any smaller set.
+    double relative_margin = 1e-3;
+    /// Reports ignored after a cut before stalls count again. 0: the stall
+    /// count already restarts at every cut, so the new rate gets
+    /// tolerated_reports + 1 reports before the next cut; ignoring more would
+    /// only delay a cut that is due.
+    std::uint64_t settle_reports = 0;
+    /// The rate never falls below floor_fraction * initial_rate, in [0, 1].
+    /// 1/1024 (ten halvings): Adam moves a weight by at most about the rate
+    /// per step (Kingma & Ba 2015, section 2.1), so from the default initial
+    /// rate the floor is about 1e-6, some 8 float units in the last place at
+    /// 1 (2^-23 = 1.2e-7, IEEE 754 binary32); lower rates mostly stop
+    /// learning instead of refining it.
+    double floor_fraction = 1.0 / 1024.0;
     /// Watch for increases (e.g. accuracy) instead of decreases (loss).
     bool maximize = false;
 };
 
-/// Reduces the rate by `factor` when the watched metric has not improved for
-/// more than `patience` reports (common practice).
+/// Multiplies the rate by `rate_multiplier` when the watched metric has not
+/// improved for more than `tolerated_reports` reports (common practice).
 class stall_reduction : public rate_schedule {
 public:
     explicit stall_reduction(const stall_reduction_options& o = {}) : o_(o), rate_(o.initial_rate) {
         check("stall reduction", "the initial rate", o.initial_rate, o.initial_rate >= 0.0, "non-negative");
-        check("stall reduction", "the factor", o.factor, o.factor > 0.0 && o.factor < 1.0, "in (0, 1)");
-        check("stall reduction", "the threshold", o.threshold, o.threshold >= 0.0, "non-negative");
-        check("stall reduction", "the minimum rate", o.minimum_rate, o.minimum_rate >= 0.0 && o.minimum_rate <= o.initial_rate,
-              "in [0, initial rate]");
+        check("stall reduction", "the rate multiplier", o.rate_multiplier, o.rate_multiplier > 0.0 && o.rate_multiplier < 1.0, "in (0, 1)");
+        check("stall reduction", "the relative margin", o.relative_margin, o.relative_margin >= 0.0, "non-negative");
+        check("stall reduction", "the floor fraction", o.floor_fraction, o.floor_fraction >= 0.0 && o.floor_fraction <= 1.0, "in [0, 1]");
     }
     const char* kind() const noexcept override { return "stall_reduction"; }
     double rate(std::uint64_t, std::uint64_t) const override { return rate_; }
@@ -219,7 +243,7 @@ public:
         if (!std::isfinite(value)) {
             raise(codes::model_schedule_option, "stall reduction schedule: the reported metric must be finite, got " + std::to_string(value));
         }
-        const double margin = o_.threshold * std::abs(best_);
+        const double margin = o_.relative_margin * std::abs(best_);
         const bool improved = !has_best_ || (o_.maximize ? value > best_ + margin : value < best_ - margin);
         if (improved) {
             best_ = value;
@@ -228,15 +252,15 @@ public:
         } else {
             ++stalled_;
         }
-        if (cooldown_left_ > 0) {
-            --cooldown_left_;
+        if (settle_left_ > 0) {
+            --settle_left_;
             stalled_ = 0;
             return;
         }
-        if (stalled_ > o_.patience) {
-            rate_ = std::max(o_.minimum_rate, rate_ * o_.factor);
+        if (stalled_ > o_.tolerated_reports) {
+            rate_ = std::max(o_.floor_fraction * o_.initial_rate, rate_ * o_.rate_multiplier);
             stalled_ = 0;
-            cooldown_left_ = o_.cooldown;
+            settle_left_ = o_.settle_reports;
         }
     }
 
@@ -249,19 +273,19 @@ protected:
         w.f64(best_);
         w.u8(has_best_ ? 1 : 0);
         w.u64(stalled_);
-        w.u64(cooldown_left_);
+        w.u64(settle_left_);
     }
     void read_state(byte_reader& in) override {
         const double rate = in.f64(), best = in.f64();
         const std::uint8_t has_best = in.u8();
-        const std::uint64_t stalled = in.u64(), cooldown = in.u64();
+        const std::uint64_t stalled = in.u64(), settle = in.u64();
         if (has_best > 1) in.fail("flag " + std::to_string(has_best) + " is not 0 or 1");
         if (!(rate >= 0.0) || !std::isfinite(rate)) in.fail("the saved rate " + std::to_string(rate) + " is not a valid rate");
         rate_ = rate;
         best_ = best;
         has_best_ = has_best == 1;
         stalled_ = stalled;
-        cooldown_left_ = cooldown;
+        settle_left_ = settle;
     }
 
 private:
@@ -270,7 +294,7 @@ private:
     double best_ = 0.0;
     bool has_best_ = false;
     std::uint64_t stalled_ = 0;
-    std::uint64_t cooldown_left_ = 0;
+    std::uint64_t settle_left_ = 0;
 };
 
 TENON_NAMESPACE_END

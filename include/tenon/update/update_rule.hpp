@@ -14,8 +14,8 @@
 // decay; AdamW instead decays the weights directly, see rules.hpp). The
 // parameters' gradients are read, never changed.
 //
-// State: a step counter and, per parameter, a fixed number of buffers
-// ("slots", e.g. Adam's two moments), created at the first apply() and
+// State: a step counter and, per parameter, a fixed number of state buffers
+// (e.g. Adam's two moments), created at the first apply() and
 // reused afterwards, so steps allocate nothing. The first apply() or
 // load_state() fixes the layout; a later call with other parameters raises
 // model.update.state_mismatch (reset() forgets the state). save_state()
@@ -104,8 +104,8 @@ public:
 
     /// Short name, e.g. "adam"; saved with the state and checked on load.
     virtual const char* kind() const noexcept = 0;
-    /// Name of state buffer `slot`, e.g. "first_moment".
-    virtual const char* slot_name(std::size_t slot) const noexcept = 0;
+    /// Name of state buffer number `buffer`, e.g. "first_moment".
+    virtual const char* buffer_name(std::size_t buffer) const noexcept = 0;
 
     /// One update of every trainable parameter with the given learning rate.
     void apply(const std::vector<parameter<T>*>& params, T learning_rate) {
@@ -154,7 +154,7 @@ public:
             if (run.failed) raise(codes::invalid_argument, std::string(kind()) + " update rule: a piece of the update failed");
             return;
         }
-        T* slots[max_slots] = {};
+        T* buffers[max_buffers] = {};
         for (std::size_t i = 0; i < params.size(); ++i) {
             parameter<T>& p = *params[i];
             if (!p.trainable()) continue;
@@ -163,11 +163,11 @@ public:
             const std::size_t step = clears_gradients_ && treats_elements_independently() ? piece_elements : p.size();
             for (std::size_t first = 0; first < p.size(); first += step) {
                 const std::size_t n = std::min(step, p.size() - first);
-                for (std::size_t s = 0; s < slot_count_; ++s) slots[s] = slots_[i * slot_count_ + s].data() + first;
+                for (std::size_t s = 0; s < buffer_count_; ++s) buffers[s] = buffers_[i * buffer_count_ + s].data() + first;
                 if (clears_gradients_) {
-                    update_and_clear(p.value().data() + first, g + first, slots, n, learning_rate, transform);
+                    update_and_clear(p.value().data() + first, g + first, buffers, n, learning_rate, transform);
                 } else {
-                    update_parameter(p.value().data() + first, g + first, slots, n, learning_rate, transform);
+                    update_parameter(p.value().data() + first, g + first, buffers, n, learning_rate, transform);
                 }
             }
         }
@@ -212,17 +212,17 @@ public:
     /// Number of apply() calls since construction, reset() or the loaded state.
     std::uint64_t step_count() const noexcept { return step_; }
     /// State buffers per parameter.
-    std::size_t slot_count() const noexcept { return slot_count_; }
+    std::size_t buffer_count() const noexcept { return buffer_count_; }
     /// Number of parameters the state is laid out for (0 before the first apply).
     std::size_t parameter_count() const noexcept { return shapes_.size(); }
-    /// State buffer `slot` of parameter `index` (same shape as the parameter).
-    const matrix<T>& slot(std::size_t index, std::size_t slot_index) const {
-        if (slot_index >= slot_count_ || index >= parameter_count()) {
-            raise(codes::invalid_argument, std::string(kind()) + ": state slot " + std::to_string(slot_index) + " of parameter " +
-                                               std::to_string(index) + " does not exist (" + std::to_string(slot_count_) +
-                                               " slots, " + std::to_string(parameter_count()) + " parameters)");
+    /// State buffer number `buffer_index` of parameter `index` (same shape as the parameter).
+    const matrix<T>& buffer(std::size_t index, std::size_t buffer_index) const {
+        if (buffer_index >= buffer_count_ || index >= parameter_count()) {
+            raise(codes::invalid_argument, std::string(kind()) + ": state buffer " + std::to_string(buffer_index) + " of parameter " +
+                                               std::to_string(index) + " does not exist (" + std::to_string(buffer_count_) +
+                                               " buffers, " + std::to_string(parameter_count()) + " parameters)");
         }
-        return slots_[index * slot_count_ + slot_index];
+        return buffers_[index * buffer_count_ + buffer_index];
     }
 
     const update_options<T>& options() const noexcept { return options_; }
@@ -230,12 +230,12 @@ public:
     /// Forgets the step counter and all state buffers.
     void reset() noexcept {
         step_ = 0;
-        slots_.clear();
+        buffers_.clear();
         shapes_.clear();
         laid_out_ = false;
     }
 
-    /// The complete state as bytes (kind, step, shapes, every slot value).
+    /// The complete state as bytes (kind, step, shapes, every buffer value).
     std::vector<std::uint8_t> save_state() const {
         std::vector<std::uint8_t> out;
         byte_writer w(out);
@@ -244,20 +244,20 @@ public:
         w.text(kind());
         w.u64(step_);
         w.u8(laid_out_ ? 1 : 0);
-        w.u32(static_cast<std::uint32_t>(slot_count_));
+        w.u32(static_cast<std::uint32_t>(buffer_count_));
         w.u32(static_cast<std::uint32_t>(shapes_.size()));
         for (std::size_t i = 0; i < shapes_.size(); ++i) {
             w.u64(shapes_[i].rows);
             w.u64(shapes_[i].cols);
-            for (std::size_t s = 0; s < slot_count_; ++s) {
-                const matrix<T>& m = slots_[i * slot_count_ + s];
+            for (std::size_t s = 0; s < buffer_count_; ++s) {
+                const matrix<T>& m = buffers_[i * buffer_count_ + s];
                 for (std::size_t k = 0; k < m.size(); ++k) w.f64(static_cast<double>(m.data()[k]));
             }
         }
         return out;
     }
 
-    /// The state in memory (step counter, layout, every slot value) for
+    /// The state in memory (step counter, layout, every buffer value) for
     /// returning to it later in the same process, e.g. the trainer's
     /// start-of-epoch point. Nothing is encoded, and copying again into the
     /// same object reuses its buffers (no allocation once they are sized);
@@ -265,53 +265,53 @@ public:
     struct state_copy {
         std::uint64_t step = 0;
         bool laid_out = false;
-        std::size_t slot_count = 0;
+        std::size_t buffer_count = 0;
         std::vector<shape2> shapes;
-        std::vector<matrix<T>> slots;
+        std::vector<matrix<T>> buffers;
     };
     void copy_state_into(state_copy& c) const {
         c.shapes.assign(shapes_.begin(), shapes_.end());
-        c.slots.resize(slots_.size());
-        for (std::size_t i = 0; i < slots_.size(); ++i) {
-            ensure_shape(c.slots[i], shape_of(slots_[i]));
-            std::copy(slots_[i].data(), slots_[i].data() + slots_[i].size(), c.slots[i].data());
+        c.buffers.resize(buffers_.size());
+        for (std::size_t i = 0; i < buffers_.size(); ++i) {
+            ensure_shape(c.buffers[i], shape_of(buffers_[i]));
+            std::copy(buffers_[i].data(), buffers_[i].data() + buffers_[i].size(), c.buffers[i].data());
         }
         c.step = step_;
         c.laid_out = laid_out_;
-        c.slot_count = slot_count_;
+        c.buffer_count = buffer_count_;
     }
     /// Returns to a state from copy_state_into() of a rule with the same
-    /// slots (model.update.state_mismatch otherwise). With the layout the
+    /// buffers (model.update.state_mismatch otherwise). With the layout the
     /// rule already has, the values are copied in place; otherwise the new
     /// layout is built aside first, so a failure leaves the rule as it was.
     void restore_state(const state_copy& c) {
-        if (c.slot_count != slot_count_ || c.slots.size() != c.shapes.size() * slot_count_) {
+        if (c.buffer_count != buffer_count_ || c.buffers.size() != c.shapes.size() * buffer_count_) {
             raise(codes::model_update_state_mismatch, std::string(kind()) + " update rule: a state copy with " +
-                                                          std::to_string(c.slot_count) + " slots per parameter, the rule has " +
-                                                          std::to_string(slot_count_));
+                                                          std::to_string(c.buffer_count) + " buffers per parameter, the rule has " +
+                                                          std::to_string(buffer_count_));
         }
-        for (std::size_t i = 0; i < c.slots.size(); ++i) {
-            if (shape_of(c.slots[i]) != c.shapes[i / slot_count_]) {
-                raise(codes::model_update_state_mismatch, std::string(kind()) + " update rule: slot " + std::to_string(i % slot_count_) +
-                                                              " of parameter " + std::to_string(i / slot_count_) + " in a state copy has shape " +
-                                                              to_string(shape_of(c.slots[i])) + ", its parameter " +
-                                                              to_string(c.shapes[i / slot_count_]));
+        for (std::size_t i = 0; i < c.buffers.size(); ++i) {
+            if (shape_of(c.buffers[i]) != c.shapes[i / buffer_count_]) {
+                raise(codes::model_update_state_mismatch, std::string(kind()) + " update rule: buffer " + std::to_string(i % buffer_count_) +
+                                                              " of parameter " + std::to_string(i / buffer_count_) + " in a state copy has shape " +
+                                                              to_string(shape_of(c.buffers[i])) + ", its parameter " +
+                                                              to_string(c.shapes[i / buffer_count_]));
             }
         }
         if (c.shapes == shapes_) {
-            for (std::size_t i = 0; i < slots_.size(); ++i) std::copy(c.slots[i].data(), c.slots[i].data() + c.slots[i].size(), slots_[i].data());
+            for (std::size_t i = 0; i < buffers_.size(); ++i) std::copy(c.buffers[i].data(), c.buffers[i].data() + c.buffers[i].size(), buffers_[i].data());
         } else {
             std::vector<shape2> shapes(c.shapes);
-            std::vector<matrix<T>> slots(c.slots);
+            std::vector<matrix<T>> buffers(c.buffers);
             shapes_.swap(shapes);
-            slots_.swap(slots);
+            buffers_.swap(buffers);
         }
         step_ = c.step;
         laid_out_ = c.laid_out;
     }
 
     /// Restores a state written by save_state() of a rule of the same kind.
-    /// Raises model.update.state_mismatch for another kind or slot layout and
+    /// Raises model.update.state_mismatch for another kind or buffer layout and
     /// model.record.truncated / model.record.malformed for damaged bytes; on
     /// error the rule keeps its previous state.
     void load_state(const std::vector<std::uint8_t>& bytes) {
@@ -326,59 +326,59 @@ public:
         const std::uint64_t step = in.u64();
         const std::uint8_t laid_out = in.u8();
         if (laid_out > 1) in.fail("layout flag " + std::to_string(laid_out) + " is not 0 or 1");
-        const std::uint32_t slot_count = in.u32();
-        if (slot_count != slot_count_) {
-            raise(codes::model_update_state_mismatch, std::string(kind()) + " update rule: the state has " + std::to_string(slot_count) +
-                                                          " slots per parameter, the rule uses " + std::to_string(slot_count_));
+        const std::uint32_t buffer_count = in.u32();
+        if (buffer_count != buffer_count_) {
+            raise(codes::model_update_state_mismatch, std::string(kind()) + " update rule: the state has " + std::to_string(buffer_count) +
+                                                          " buffers per parameter, the rule uses " + std::to_string(buffer_count_));
         }
         const std::size_t count = in.count(16, "parameters");
         std::vector<shape2> shapes;
-        std::vector<matrix<T>> slots;
+        std::vector<matrix<T>> buffers;
         shapes.reserve(count);
-        slots.reserve(count * slot_count_);
+        buffers.reserve(count * buffer_count_);
         for (std::size_t i = 0; i < count; ++i) {
-            const auto sides = in.matrix_sides(8 * slot_count_, ("parameter " + std::to_string(i)).c_str());
+            const auto sides = in.matrix_sides(8 * buffer_count_, ("parameter " + std::to_string(i)).c_str());
             const shape2 s{sides.first, sides.second};
             shapes.push_back(s);
-            for (std::size_t k = 0; k < slot_count_; ++k) {
+            for (std::size_t k = 0; k < buffer_count_; ++k) {
                 matrix<T> m({s.rows, s.cols});
                 for (std::size_t e = 0; e < m.size(); ++e) m.data()[e] = static_cast<T>(in.f64());
-                slots.push_back(std::move(m));
+                buffers.push_back(std::move(m));
             }
         }
         if (!in.at_end()) in.fail(std::to_string(in.remaining()) + " bytes follow the state");
         step_ = step;
         shapes_ = std::move(shapes);
-        slots_ = std::move(slots);
+        buffers_ = std::move(buffers);
         laid_out_ = laid_out == 1;
     }
 
 protected:
-    static constexpr std::size_t max_slots = 4;
+    static constexpr std::size_t max_buffers = 4;
 
-    update_rule(const update_options<T>& options, std::size_t slot_count) : options_(options), slot_count_(slot_count) {
+    update_rule(const update_options<T>& options, std::size_t buffer_count) : options_(options), buffer_count_(buffer_count) {
         detail::check_option("update rule", "weight_decay", static_cast<double>(options.weight_decay), options.weight_decay >= T(0), "finite and non-negative");
         detail::check_option("update rule", "clip_global_norm", static_cast<double>(options.clip_global_norm), options.clip_global_norm >= T(0), "finite and non-negative (0: off)");
         detail::check_option("update rule", "clip_value", static_cast<double>(options.clip_value), options.clip_value >= T(0), "finite and non-negative (0: off)");
     }
 
     /// Updates `n` weights `w` in place from the raw gradient `g` (pass each
-    /// element through `transform(g[k], w[k])`); slots[s] points to the n
+    /// element through `transform(g[k], w[k])`); buffers[s] points to the n
     /// values of state buffer s for this parameter. step_count() is already
     /// the number of this step (1 for the first).
-    virtual void update_parameter(T* w, const T* g, T* const* slots, std::size_t n, T learning_rate,
+    virtual void update_parameter(T* w, const T* g, T* const* buffers, std::size_t n, T learning_rate,
                                   const gradient_transform<T>& transform) = 0;
 
     /// update_parameter(), then g[0..n) set to zero (apply() with
     /// set_clears_gradients(true)). A rule may override it to clear each
     /// gradient element in its own pass, right after reading it (adam does).
-    virtual void update_and_clear(T* w, T* g, T* const* slots, std::size_t n, T learning_rate, const gradient_transform<T>& transform) {
-        update_parameter(w, g, slots, n, learning_rate, transform);
+    virtual void update_and_clear(T* w, T* g, T* const* buffers, std::size_t n, T learning_rate, const gradient_transform<T>& transform) {
+        update_parameter(w, g, buffers, n, learning_rate, transform);
         std::fill(g, g + n, T(0));
     }
 
     /// Whether update_parameter() may be called on any part of a parameter
-    /// (elements [first, last) with the matching parts of its slots) with the
+    /// (elements [first, last) with the matching parts of its buffers) with the
     /// same result per element; true lets apply() use several threads.
     virtual bool treats_elements_independently() const noexcept { return false; }
 
@@ -410,29 +410,29 @@ private:
             parameter<T>& p = *(*r.params)[whole.parameter_index];
             for (std::size_t first = whole.first; first < whole.last; first += piece_elements) {
                 const piece c{whole.parameter_index, first, std::min(whole.last, first + piece_elements), index};
-                T* slots[max_slots] = {};
-                for (std::size_t s = 0; s < r.rule->slot_count_; ++s)
-                    slots[s] = r.rule->slots_[c.parameter_index * r.rule->slot_count_ + s].data() + c.first;
+                T* buffers[max_buffers] = {};
+                for (std::size_t s = 0; s < r.rule->buffer_count_; ++s)
+                    buffers[s] = r.rule->buffers_[c.parameter_index * r.rule->buffer_count_ + s].data() + c.first;
                 // Executor tasks must not throw; the built-in rules never do.
 #if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
                 try {
-                    r.rule->update_piece(p, c, slots, r.learning_rate, r.transform);
+                    r.rule->update_piece(p, c, buffers, r.learning_rate, r.transform);
                 } catch (...) {
                     r.failed.store(true, std::memory_order_relaxed);
                 }
 #else
-                r.rule->update_piece(p, c, slots, r.learning_rate, r.transform);
+                r.rule->update_piece(p, c, buffers, r.learning_rate, r.transform);
 #endif
             }
         }
     }
-    void update_piece(parameter<T>& p, const piece& c, T* const* slots, T learning_rate, const gradient_transform<T>& transform) {
+    void update_piece(parameter<T>& p, const piece& c, T* const* buffers, T learning_rate, const gradient_transform<T>& transform) {
         T* w = p.value().data() + c.first;
         T* g = p.grad().data() + c.first;
         if (clears_gradients_) {
-            update_and_clear(w, g, slots, c.last - c.first, learning_rate, transform);
+            update_and_clear(w, g, buffers, c.last - c.first, learning_rate, transform);
         } else {
-            update_parameter(w, g, slots, c.last - c.first, learning_rate, transform);
+            update_parameter(w, g, buffers, c.last - c.first, learning_rate, transform);
         }
     }
 
@@ -442,15 +442,15 @@ private:
             // here leaves the rule as it was (not laid out), never half of it.
             std::vector<shape2> shapes;
             for (const auto* p : params) shapes.push_back(p->shape());
-            std::vector<matrix<T>> slots(params.size() * slot_count_);
+            std::vector<matrix<T>> buffers(params.size() * buffer_count_);
             for (std::size_t i = 0; i < params.size(); ++i)
-                for (std::size_t s = 0; s < slot_count_; ++s) {
-                    matrix<T>& m = slots[i * slot_count_ + s];
+                for (std::size_t s = 0; s < buffer_count_; ++s) {
+                    matrix<T>& m = buffers[i * buffer_count_ + s];
                     ensure_shape(m, shapes[i]);
                     m.fill(T(0));
                 }
             shapes_.swap(shapes);
-            slots_.swap(slots);
+            buffers_.swap(buffers);
             laid_out_ = true;
         }
         if (params.size() != shapes_.size()) {
@@ -471,10 +471,10 @@ private:
     }
 
     update_options<T> options_;
-    std::size_t slot_count_;
+    std::size_t buffer_count_;
     std::uint64_t step_ = 0;
     std::vector<shape2> shapes_;
-    std::vector<matrix<T>> slots_;
+    std::vector<matrix<T>> buffers_;
     bool laid_out_ = false;
     executor* workers_ = nullptr;
     bool clears_gradients_ = false;
