@@ -1,13 +1,16 @@
-// Tests of prep/cell_parsing.hpp, prep/csv.hpp and prep/statistics.hpp.
+// Tests of prep/cell_parsing.hpp, prep/csv.hpp, prep/column_screening.hpp and prep/statistics.hpp.
 // CSV edge cases follow RFC 4180 (Shafranovich 2005), section 2, rules 1-7.
 #include <doctest/doctest.h>
 
 #include <cmath>
+#include <map>
+#include <vector>
 #include <sstream>
 #include <string>
 
 #include <tenon/core/random.hpp>
 #include <tenon/prep/cell_parsing.hpp>
+#include <tenon/prep/column_screening.hpp>
 #include <tenon/prep/csv.hpp>
 #include <tenon/prep/statistics.hpp>
 
@@ -95,6 +98,156 @@ TEST_CASE("a configurable delimiter, blank lines skipped, tiny chunks give the s
     REQUIRE(t.row_count() == 2);
     CHECK(t.at("a").kind() == tenon::column_kind::categorical);  // "1,5" is not a number
     CHECK(t.at("b").category(1) == "y;z");
+}
+
+namespace {
+tenon::csv_options detect_text(const std::string& text, const tenon::csv_options& given = {}, const tenon::csv_detection& what = {}) {
+    std::istringstream in(text);
+    return tenon::detect_csv_dialect(in, "t.csv", given, what);
+}
+}  // namespace
+
+TEST_CASE("decimal commas: parsed without a point, refused with ',' as the delimiter") {
+    double v = 0;
+    CHECK(tenon::parse_decimal_comma_number("59,8", v));
+    CHECK(v == 59.8);
+    CHECK(tenon::parse_decimal_comma_number(" -0,5 ", v));
+    CHECK(v == -0.5);
+    CHECK(tenon::parse_decimal_comma_number("12", v));
+    CHECK(v == 12.0);
+    CHECK(tenon::parse_decimal_comma_number("1,5e3", v));
+    CHECK(v == 1500.0);
+    CHECK_FALSE(tenon::parse_decimal_comma_number("59.8", v));     // a point is not read with decimal commas
+    CHECK_FALSE(tenon::parse_decimal_comma_number("1.234,5", v));  // nor a thousands separator
+    CHECK_FALSE(tenon::parse_decimal_comma_number("1,2,3", v));
+    CHECK_FALSE(tenon::parse_decimal_comma_number("abc", v));
+
+    tenon::csv_options options;
+    options.delimiter = ';';
+    options.decimal_comma = true;
+    auto t = read_text("force;die\n59,8;7\n-1,25;9\n", options);
+    CHECK(t.at("force").kind() == tenon::column_kind::numeric);
+    CHECK(t.at("force").number(0) == 59.8);
+    CHECK(t.at("force").number(1) == -1.25);
+    auto thousands = read_text("force\n1.234\n", options);  // never read as 1.234 nor as 1234
+    CHECK(thousands.at("force").kind() == tenon::column_kind::categorical);
+    options.forced_kinds["force"] = tenon::column_kind::numeric;
+    std::string message;
+    CHECK(error_code_of([&] { read_text("force\n5,5\n1.234\n", options); }, &message) == "prep.cell.not_numeric");
+    CHECK(message == "[prep.cell.not_numeric] t.csv line 3 column 1 ('force'): '1.234' is not a finite number (read with a decimal comma)");
+
+    tenon::csv_options clash;
+    clash.decimal_comma = true;  // with the default ',' delimiter
+    CHECK(error_code_of([&] { read_text("a\n1\n", clash); }, &message) == "core.argument.invalid");
+    CHECK(message == "[core.argument.invalid] t.csv: decimal commas cannot be read when ',' is also the delimiter");
+}
+
+TEST_CASE("the dialect is told from the header and first rows") {
+    // A plant export: ';' between fields, ',' before the decimals.
+    auto o = detect_text("press;force;die\nP1;59,8;7\nP2;60,1;9\nP1;58;7\n");
+    CHECK(o.delimiter == ';');
+    CHECK(o.decimal_comma);
+    std::istringstream in("press;force;die\nP1;59,8;7\nP2;60,1;9\nP1;58;7\n");
+    auto t = tenon::read_csv(in, o, "t.csv");
+    CHECK(t.at("force").kind() == tenon::column_kind::numeric);
+    CHECK(t.at("force").number(0) == 59.8);
+    CHECK(t.at("force").number(2) == 58.0);
+
+    // A comma file is read as before; tab and '|' are found too.
+    o = detect_text("a,b\n1.5,x\n2,\"y;z\"\n");
+    CHECK(o.delimiter == ',');
+    CHECK_FALSE(o.decimal_comma);
+    CHECK(detect_text("a\tb\n1.5\t2\n").delimiter == '\t');
+    CHECK(detect_text("a|b\n1|2\n").delimiter == '|');
+    CHECK_FALSE(detect_text("a|b\n1.5|2\n").decimal_comma);
+    CHECK(detect_text("value\n1\n2\n").delimiter == ',');  // one column
+    // Only what is asked is detected.
+    tenon::csv_options given;
+    given.delimiter = ';';
+    tenon::csv_detection decimal_only;
+    decimal_only.delimiter = false;
+    o = detect_text("a;b\n0,125;1\n", given, decimal_only);
+    CHECK(o.delimiter == ';');
+    CHECK(o.decimal_comma);
+    // "0,125" cannot be a thousands group (a group does not start with 0).
+    CHECK(detect_text("a;b\n0,125;1\n").decimal_comma);
+}
+
+TEST_CASE("ambiguous dialects are refused with the file, the candidates and the cell") {
+    std::string message;
+    CHECK(error_code_of([] { detect_text("x;y,z\n1;2,3\n4;5,6\n"); }, &message) == "prep.csv.dialect_ambiguous");
+    CHECK(message == "[prep.csv.dialect_ambiguous] t.csv: the delimiter is ambiguous: ',' (2 fields) and ';' (2 fields) each split "
+                     "the header and the first rows evenly; name the delimiter");
+    // Decimal commas and decimal points in one file.
+    CHECK(error_code_of([] { detect_text("a;b\n59,8;3.5\n"); }, &message) == "prep.csv.dialect_ambiguous");
+    CHECK(message == "[prep.csv.dialect_ambiguous] t.csv: the decimal mark is ambiguous: t.csv line 2 column 1 ('a'): '59,8' has a "
+                     "decimal comma and t.csv line 2 column 2 ('b'): '3.5' a decimal point");
+    // Thousands separators are not read (decision: refused rather than guessed).
+    CHECK(error_code_of([] { detect_text("a;b\n1.234,5;1\n"); }, &message) == "prep.csv.dialect_ambiguous");
+    CHECK(message == "[prep.csv.dialect_ambiguous] t.csv line 2 column 1 ('a'): '1.234,5' holds both '.' and ',': thousands "
+                     "separators are not read; write numbers without them");
+    // "1,234" and "12,500" read as 1.234 or 1234 alike.
+    CHECK(error_code_of([] { detect_text("a;b\n1,234;x\n12,500;y\n"); }, &message) == "prep.csv.dialect_ambiguous");
+    CHECK(message == "[prep.csv.dialect_ambiguous] t.csv: the decimal mark is ambiguous: every cell with a comma, such as t.csv line "
+                     "2 column 1 ('a'): '1,234', could be a decimal comma or a thousands separator; name the decimal mark");
+    // Named explicitly, the same file reads.
+    tenon::csv_options named;
+    named.delimiter = ';';
+    named.decimal_comma = true;
+    auto t = read_text("a;b\n1,234;x\n12,500;y\n", named);
+    CHECK(t.at("a").number(1) == 12.5);
+    // One cell that cannot be a group settles it.
+    CHECK(detect_text("a;b\n1,234;x\n12,5;y\n").decimal_comma);
+}
+
+namespace {
+// An invented press log for screening: a serial per part, a cycle counter, a
+// part number shared by a few parts, the line, the shift, the force, the die
+// (7 or 9) and a 0/1 fault.
+tenon::table press_log_table(std::size_t rows) {
+    tenon::random_engine rng(7);
+    std::string csv = "serial,cycle,part_id,line_id,shift,force,die,fault\n";
+    for (std::size_t i = 0; i < rows; ++i) {
+        const double force = rng.uniform(40.0, 80.0);
+        csv += "SN-" + std::to_string(4711 * i % 1000003) + "," + std::to_string(1000 + i) + ",P" + std::to_string(i % 40) + ",L" +
+               std::to_string(i % 3) + "," + (i % 3 == 0 ? "night" : "day") + "," + std::to_string(force) + "," + (i % 2 ? "9" : "7") + "," +
+               (force > 68.0 ? "1" : "0") + "\n";
+    }
+    return read_text(csv);
+}
+}  // namespace
+
+TEST_CASE("screen_columns: distinct values, identifier names, counters; a real categorical is not reported") {
+    const tenon::table t = press_log_table(200);
+    const auto findings = tenon::screen_columns(t, {}, {"fault"});
+    std::map<std::string, tenon::screening_reason> found;
+    for (const auto& f : findings) found.emplace(f.column, f.reason);
+    REQUIRE(found.size() == 3);
+    CHECK(found.at("serial") == tenon::screening_reason::distinct_values);
+    CHECK(found.at("cycle") == tenon::screening_reason::counter);
+    CHECK(found.at("part_id") == tenon::screening_reason::identifier_name);  // 40 values in 200 rows, named as an identifier
+    CHECK(found.count("line_id") == 0);  // 3 lines: a real feature despite the name
+    CHECK(found.count("shift") == 0);
+    CHECK(found.count("force") == 0);
+    CHECK(found.count("die") == 0);  // whole numbers, but not rising on every row
+    CHECK(findings.front().explanation() == "200 distinct values in 200 rows: nearly every value is distinct, as in an identifier");
+
+    // Too few rows for any rule to speak.
+    CHECK(tenon::screen_columns(press_log_table(19), {}, {"fault"}).empty());
+    // Names split into words: "PartSerialNo" is an identifier name, "width" is not.
+    CHECK(tenon::detail::name_words("PartSerialNo") == std::vector<std::string>{"part", "serial", "no"});
+    CHECK(tenon::detail::name_words("width") == std::vector<std::string>{"width"});
+    CHECK(tenon::detail::name_words("station_SN2") == std::vector<std::string>{"station", "sn"});
+
+    // Crowded categories: 30 operators in 200 rows (more than 10% of the rows) warn, without being identifiers.
+    std::string csv = "operator,amps\n";
+    for (int i = 0; i < 200; ++i) csv += "op" + std::to_string(i % 30) + "," + std::to_string(i % 7) + "\n";
+    const auto crowded = tenon::screen_columns(read_text(csv));
+    REQUIRE(crowded.size() == 1);
+    CHECK(crowded[0].reason == tenon::screening_reason::many_categories);
+    CHECK_FALSE(crowded[0].identifier());
+    CHECK(crowded[0].explanation() == "30 categories in 200 rows, about 6 rows per category: each one-hot input is learned from few rows");
+    CHECK(tenon::to_string(tenon::screening_reason::counter) == std::string("counter"));
 }
 
 TEST_CASE("kinds are inferred, missing tokens are missing, kinds can be forced") {

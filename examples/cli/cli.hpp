@@ -142,6 +142,11 @@ struct train_request {
     std::string target;
     task_choice task = task_choice::automatic;
     std::vector<std::string> ignored;
+    std::vector<std::string> used;         // --use: identifier-like columns kept as features
+    std::vector<std::string> categorical;  // --categorical: read as categories
+    std::vector<std::string> numeric;      // --numeric: read as numbers
+    char delimiter = 0;                    // --delimiter; 0: told from the file
+    bool decimal_comma = false;            // --decimal-comma; otherwise told from the file
     split_choice split = split_choice::automatic;
     std::string time_column;
     std::string group_column;
@@ -269,7 +274,8 @@ inline train_request parse_train_request(const std::vector<std::string>& args) {
             name = name.substr(0, eq);
             inline_value = true;
         }
-        static const char* const known[] = {"--data", "--target", "--task", "--ignore", "--split", "--time-column", "--group-column",
+        static const char* const known[] = {"--data", "--target", "--task", "--ignore", "--use", "--categorical", "--numeric",
+                                            "--delimiter", "--decimal-comma", "--split", "--time-column", "--group-column",
                                             "--fractions", "--folds", "--hidden", "--activation", "--loss", "--optimizer",
                                             "--learning-rate", "--epochs", "--batch", "--patience", "--seed", "--threads",
                                             "--metrics", "--report", "--model", "--quiet", "--keep-order"};
@@ -289,6 +295,11 @@ inline train_request parse_train_request(const std::vector<std::string>& args) {
             q.keep_order = true;
             continue;
         }
+        if (name == "--decimal-comma") {
+            if (inline_value) fail(cli_codes::option_value, "--decimal-comma takes no value");
+            q.decimal_comma = true;
+            continue;
+        }
         if (!inline_value) {
             if (k + 1 >= args.size()) fail(cli_codes::option_missing, name + " needs a value");
             value = args[++k];
@@ -304,10 +315,14 @@ inline train_request parse_train_request(const std::vector<std::string>& args) {
             const std::pair<const char*, task_choice> names[] = {
                 {"auto", task_choice::automatic}, {"classify", task_choice::classify}, {"regress", task_choice::regress}};
             q.task = detail::parse_choice("--task", value, names);
-        } else if (name == "--ignore") {
-            q.ignored = detail::split_list(value);
-            for (const auto& c : q.ignored)
-                if (c.empty()) fail(cli_codes::option_value, "--ignore '" + value + "': an empty column name");
+        } else if (name == "--ignore" || name == "--use" || name == "--categorical" || name == "--numeric") {
+            auto& list = name == "--ignore" ? q.ignored : name == "--use" ? q.used : name == "--categorical" ? q.categorical : q.numeric;
+            list = detail::split_list(value);
+            for (const auto& c : list)
+                if (c.empty()) fail(cli_codes::option_value, name + " '" + value + "': an empty column name");
+        } else if (name == "--delimiter") {
+            const std::pair<const char*, char> names[] = {{",", ','}, {";", ';'}, {"tab", '\t'}, {"|", '|'}};
+            q.delimiter = detail::parse_choice("--delimiter", value == "\t" ? std::string("tab") : value, names);
         } else if (name == "--split") {
             const std::pair<const char*, split_choice> names[] = {{"auto", split_choice::automatic},
                                                                    {"random", split_choice::random},
@@ -435,7 +450,17 @@ inline train_request parse_train_request(const std::vector<std::string>& args) {
         fail(cli_codes::option_conflict, "--report draws one holdout run; it cannot be combined with --folds " + std::to_string(q.folds));
     for (const auto& c : q.ignored) {
         if (c == q.target) fail(cli_codes::option_conflict, "--ignore names the target column '" + c + "'");
+        if (std::find(q.used.begin(), q.used.end(), c) != q.used.end())
+            fail(cli_codes::option_conflict, "--ignore and --use both name the column '" + c + "'");
     }
+    for (const auto& c : q.categorical) {
+        if (std::find(q.numeric.begin(), q.numeric.end(), c) != q.numeric.end())
+            fail(cli_codes::option_conflict, "--categorical and --numeric both name the column '" + c + "'");
+        if (c == q.target && q.task == task_choice::regress)
+            fail(cli_codes::option_conflict, "--categorical names the target '" + c + "', which --task regress needs as numbers");
+    }
+    if (q.decimal_comma && q.delimiter == ',')
+        fail(cli_codes::option_conflict, "--decimal-comma cannot go with --delimiter ',': a comma cannot separate both fields and decimals");
     return q;
 }
 
@@ -458,14 +483,40 @@ Data
                          except for a few (under 10%) is taken for a numeric
                          (date/time) column with typos: the first bad cell is
                          reported. A column at least half numbers or dates
-                         that stays categorical is named in a warning.
+                         that stays categorical is named in a warning. The
+                         delimiter and the decimal mark are told from the
+                         first rows (see --delimiter).
   --target COLUMN        the column the model learns (required). Rows whose target
                          is missing are left out and counted as dropped.
   --task auto|classify|regress
                          default auto: classify when the target column is not
-                         numeric, regress when it is (use classify for classes
-                         coded as numbers).
+                         numeric, or holds 2 to 20 distinct whole numbers (class
+                         codes such as 0/1) with at least 5 rows per value on
+                         average, saying so in one line; regress otherwise.
+                         regress turns the whole-number rule off.
   --ignore COL,COL       columns that are not features (default: none).
+  --use COL,COL          keep columns that look like identifiers as features.
+                         By default a column is left out, with one line naming
+                         it and the reason, when nearly every value is distinct
+                         (categorical, 95% of 20 or more rows), when its name
+                         reads as an identifier (id, serial, uuid, guid, sn as
+                         a word) and it holds more than 20 values, or when it
+                         is a whole-number counter rising (or falling) on every
+                         row: an identifier does not carry over to new rows.
+                         A categorical column with more categories than 10% of
+                         the rows gets a warning (too few rows per category).
+  --categorical COL,COL  read these columns as categories (a die coded 7 or 9).
+  --numeric COL,COL      read these columns as numbers; the first cell that is
+                         not one is reported.
+  --delimiter D          the field delimiter: , ; tab or |. Default: told from
+                         the header and the first 200 rows; refused when two
+                         fit.
+  --decimal-comma        read 59,8 as 59.8 (not with --delimiter ,). Default:
+                         on when the delimiter is not a comma and cells such
+                         as 59,8 appear. Thousands separators are never read:
+                         a file with 1.234,5, with both 59,8 and 3.5, or whose
+                         only commas could group thousands (1,234) is refused
+                         unless the decimal mark is named.
 
 Splitting
   --split auto|random|stratified|chronological|grouped
@@ -620,11 +671,11 @@ inline const tenon::column& named_column(const tenon::table& t, const std::strin
 }
 
 // Share of the present cells of a categorical column that read as numbers.
-inline double numeric_share(const tenon::column& c) {
+inline double numeric_share(const tenon::column& c, bool decimal_comma) {
     std::vector<char> is_number(c.categories().size());
     for (std::size_t k = 0; k < is_number.size(); ++k) {
         double v = 0;
-        is_number[k] = tenon::parse_number(c.categories()[k], v) ? 1 : 0;
+        is_number[k] = (decimal_comma ? tenon::parse_decimal_comma_number(c.categories()[k], v) : tenon::parse_number(c.categories()[k], v)) ? 1 : 0;
     }
     std::size_t present = 0, numbers = 0;
     for (std::size_t r = 0; r < c.size(); ++r) {
@@ -658,15 +709,67 @@ inline double datetime_share(const tenon::column& c) {
 /// the list in their plan, so `tenon infer` reads the same cells as missing.
 inline std::vector<std::string> missing_tokens() { return tenon::default_missing_tokens(); }
 
-/// Reads the CSV file. A regression target, and any column whose cells are
-/// numbers (or dates/times) but for a few (at least 90% of the present
-/// cells), are read as numeric (date/time) so that the library names the
-/// first cell that is not (file, line, column, value): a typo never turns a
-/// column categorical silently. A column that is at least half numbers or
-/// dates but stays categorical gets a warning on `warnings`.
-inline tenon::table load_table(const train_request& q, std::ostream* warnings = nullptr) {
+namespace detail {
+
+inline std::string delimiter_text(char d) { return d == '\t' ? std::string("tab") : std::string("'") + d + "'"; }
+
+// The trimmed header names of a CSV file read with `options`' delimiter.
+inline std::vector<std::string> header_names(const std::string& path, const tenon::csv_options& options) {
+    std::ifstream in(path, std::ios::binary);
+    if (!in) tenon::raise(tenon::codes::prep_file_open, path + ": cannot open for reading");
+    tenon::csv_record_reader reader(in, options.delimiter, path);
+    std::vector<std::string> names;
+    if (reader.next())
+        for (std::size_t k = 0; k < reader.field_count(); ++k) names.emplace_back(tenon::detail::trim_blanks(reader.field(k)));
+    return names;
+}
+
+/// The delimiter and decimal mark of a data file: as given on the command
+/// line, the rest told from its first rows (tenon::detect_csv_dialect).
+inline tenon::csv_options data_dialect(const std::string& path, char delimiter, bool decimal_comma) {
     tenon::csv_options options;
+    tenon::csv_detection what;
+    if (delimiter) {
+        options.delimiter = delimiter;
+        what.delimiter = false;
+    }
+    if (decimal_comma) {
+        options.decimal_comma = true;
+        what.decimal_comma = false;
+    }
+    options = tenon::detect_csv_dialect_file(path, options, what);
+    if (options.decimal_comma && options.delimiter == ',')
+        fail(cli_codes::option_conflict, "--decimal-comma: " + path + " is delimited by ','; a comma cannot separate both fields and "
+                                         "decimals (give --delimiter if the file uses another)");
+    return options;
+}
+
+}  // namespace detail
+
+/// Reads the CSV file. Its delimiter and decimal mark are given or told from
+/// its first rows. --categorical and --numeric force kinds; a regression
+/// target, and any column whose cells are numbers but for a few, are read as
+/// numeric so that the library names the first cell that is not a number
+/// (file, line, column, value); so is a column of dates/times but for a few.
+/// Lines for the user go to `notes`; a column at least half numbers or dates
+/// that stays categorical gets a warning on `warnings`.
+inline tenon::table load_table(const train_request& q, std::vector<std::string>* notes = nullptr, std::ostream* warnings = nullptr) {
+    tenon::csv_options options = detail::data_dialect(q.data_path, q.delimiter, q.decimal_comma);
     options.missing_tokens = missing_tokens();
+    if (notes && (options.delimiter != ',' || options.decimal_comma))
+        notes->push_back("note: " + q.data_path + " is read with " + detail::delimiter_text(options.delimiter) + " between fields and " +
+                         (options.decimal_comma ? "decimal commas" : "decimal points") +
+                         (q.delimiter || q.decimal_comma ? "" : " (told from its first rows; --delimiter and --decimal-comma name them)"));
+    if (!q.categorical.empty() || !q.numeric.empty()) {
+        const auto header = detail::header_names(q.data_path, options);
+        for (const auto* list : {&q.categorical, &q.numeric})
+            for (const auto& name : *list)
+                if (std::find(header.begin(), header.end(), name) == header.end())
+                    fail(cli_codes::column_unknown, q.data_path + ": " + (list == &q.categorical ? "--categorical" : "--numeric") + " names '" +
+                                                        name + "', which is not a column (columns: " + detail::column_listing(header) + ")");
+        for (const auto& name : q.categorical) options.forced_kinds[name] = tenon::column_kind::categorical;
+        for (const auto& name : q.numeric) options.forced_kinds[name] = tenon::column_kind::numeric;
+    }
     if (q.task == task_choice::regress) options.forced_kinds[q.target] = tenon::column_kind::numeric;
     tenon::table t = [&] {
         try {
@@ -681,8 +784,8 @@ inline tenon::table load_table(const train_request& q, std::ostream* warnings = 
     bool reread = false;
     for (std::size_t k = 0; k < t.column_count(); ++k) {
         const tenon::column& c = t[k];
-        if (c.kind() != tenon::column_kind::categorical) continue;
-        const double share = detail::numeric_share(c);
+        if (c.kind() != tenon::column_kind::categorical || options.forced_kinds.count(c.name())) continue;
+        const double share = detail::numeric_share(c, options.decimal_comma);
         if (share >= 0.9 && share < 1.0) {
             options.forced_kinds[c.name()] = tenon::column_kind::numeric;
             reread = true;
@@ -712,19 +815,55 @@ struct training_setup {
     split_choice split = split_choice::random;
     tenon::plan preparation;
     std::size_t target_missing = 0;
+    /// One line each for the user: what was read or decided from the data.
+    std::vector<std::string> notes;
 };
+
+namespace detail {
+
+/// The whole-number rule for class codes: a numeric target whose present
+/// values are 2 to 20 distinct whole numbers, with at least 5 rows per value
+/// on average, holds classes (a 0/1 fault flag, a grade 1-5). Our rule of
+/// thumb: a measured quantity rarely takes so few whole values, while 20 is
+/// about the most classes a plant log codes by number, and fewer than 5 rows
+/// per value looks like a count or a measurement rather than classes.
+inline constexpr std::size_t class_code_limit = 20;
+inline constexpr std::size_t rows_per_class_code = 5;
+
+/// The distinct values (sorted) when `c` meets the rule, else empty.
+inline std::vector<double> whole_number_classes(const tenon::column& c) {
+    std::vector<double> values;
+    if (c.kind() != tenon::column_kind::numeric) return {};
+    std::size_t present = 0;
+    for (std::size_t r = 0; r < c.size(); ++r) {
+        if (c.is_missing(r)) continue;
+        ++present;
+        const double v = c.number(r);
+        if (v != std::floor(v) || std::abs(v) > 1e15) return {};
+        if (std::find(values.begin(), values.end(), v) == values.end()) {
+            if (values.size() == class_code_limit) return {};
+            values.push_back(v);
+        }
+    }
+    if (values.size() < 2 || present < rows_per_class_code * values.size()) return {};
+    std::sort(values.begin(), values.end());
+    return values;
+}
+
+}  // namespace detail
 
 inline bool decide_classification(const tenon::table& t, const train_request& q) {
     const tenon::column& target = detail::named_column(t, "--target", q.target);
     if (q.task == task_choice::classify) return true;
     if (q.task == task_choice::regress) return false;
-    return target.kind() != tenon::column_kind::numeric;
+    return target.kind() != tenon::column_kind::numeric || !detail::whole_number_classes(target).empty();
 }
 
 inline training_setup make_setup(const tenon::table& t, const train_request& q) {
     training_setup s;
     const tenon::column& target = detail::named_column(t, "--target", q.target);
     for (const auto& c : q.ignored) detail::named_column(t, "--ignore", c);
+    for (const auto& c : q.used) detail::named_column(t, "--use", c);
     if (!q.time_column.empty()) {
         const auto& c = detail::named_column(t, "--time-column", q.time_column);
         if (c.kind() == tenon::column_kind::categorical)
@@ -745,6 +884,12 @@ inline training_setup make_setup(const tenon::table& t, const train_request& q) 
     if (q.time_column == q.target || q.group_column == q.target)
         fail(cli_codes::option_conflict, "the target '" + q.target + "' cannot also be the time or group column");
     s.classify = decide_classification(t, q);
+    if (q.task == task_choice::automatic && s.classify && target.kind() == tenon::column_kind::numeric) {
+        std::vector<std::string> shown;
+        for (double v : detail::whole_number_classes(target)) shown.push_back(tenon::number_to_text(v));
+        s.notes.push_back("note: classifying '" + q.target + "': it holds " + std::to_string(shown.size()) + " distinct whole numbers (" +
+                          detail::join(shown, ", ") + "), read as class codes; --task regress regresses it");
+    }
     if (s.classify && target.kind() == tenon::column_kind::datetime)
         fail(cli_codes::option_value, q.data_path + ": the target '" + q.target + "' holds dates; it cannot be classified");
     if (!s.classify && target.kind() != tenon::column_kind::numeric)
@@ -784,6 +929,22 @@ inline training_setup make_setup(const tenon::table& t, const train_request& q) 
     for (const auto& c : q.ignored) s.preparation.set_role(c, tenon::column_role::ignored);
     if (!q.time_column.empty()) s.preparation.set_role(q.time_column, tenon::column_role::time);
     if (!q.group_column.empty()) s.preparation.set_role(q.group_column, tenon::column_role::group);
+
+    // Identifier-like columns are left out unless --use keeps them; crowded
+    // categorical columns get a warning (tenon::screen_columns' rules).
+    std::vector<std::string> decided = q.ignored;
+    decided.insert(decided.end(), q.used.begin(), q.used.end());
+    for (const auto* name : {&q.target, &q.time_column, &q.group_column})
+        if (!name->empty()) decided.push_back(*name);
+    for (const auto& f : tenon::screen_columns(t, {}, decided)) {
+        if (f.identifier()) {
+            s.preparation.set_role(f.column, tenon::column_role::ignored);
+            s.notes.push_back("note: leaving out '" + f.column + "' (" + f.explanation() + "); --use " + f.column + " keeps it");
+        } else {
+            s.notes.push_back("warning: '" + f.column + "' has " + f.explanation() + " (more categories than 10% of the rows); --ignore " +
+                              f.column + " leaves it out");
+        }
+    }
     return s;
 }
 
@@ -1534,8 +1695,10 @@ inline int run_train(const std::vector<std::string>& args, std::ostream& out, st
             roster.check();
             // An output on standard output: the summary would mix with it.
             if (metrics_file.to_standard_output() || report_file.to_standard_output() || model_probe.to_standard_output()) q.quiet = true;
-            t = load_table(q, &err);
+            std::vector<std::string> notes;
+            t = load_table(q, &notes, &err);
             s = make_setup(t, q);
+            s.notes.insert(s.notes.begin(), notes.begin(), notes.end());
         }
     } catch (...) {
         if (!env.team) throw;
@@ -1546,6 +1709,8 @@ inline int run_train(const std::vector<std::string>& args, std::ostream& out, st
         out << train_help();
         return exit_success;
     }
+    if (!q.quiet)
+        for (const auto& note : s.notes) out << note << "\n";
     if (q.folds > 0) return detail::train_folds(t, q, s, out, env, metrics_file);
     return detail::train_holdout(t, q, s, out, env, metrics_file, report_file, model_probe);
 }
@@ -1691,7 +1856,9 @@ Usage: tenon infer --model MODEL.tnm --data NEW.csv --out PREDICTIONS.csv [optio
                          them), in any order; other columns, the target among
                          them, are ignored. The cells training read as
                          missing (see tenon train --help) read as missing and
-                         are filled as in training.
+                         are filled as in training. The delimiter and decimal
+                         commas are told from the file as tenon train tells
+                         them.
   --out PREDICTIONS.csv  where to write the predictions (required); '-' or
                          /dev/stdout: standard output.
   --keep COL,COL         columns of NEW.csv copied unchanged to the front of
@@ -1822,9 +1989,11 @@ int infer_with(const tenon::model_file<T>& file, const infer_request& q, std::os
     tenon::predictor<T> model(file, batch_rows);
     const std::size_t inputs = model.input_count();
 
+    // The file's delimiter and decimal mark are told from its first rows, as tenon train does.
+    const tenon::csv_options dialect = data_dialect(q.data_path, 0, false);
     std::ifstream in(q.data_path, std::ios::binary);
     if (!in) tenon::raise(tenon::codes::prep_file_open, q.data_path + ": cannot open for reading");
-    tenon::csv_record_reader reader(in, ',', q.data_path);
+    tenon::csv_record_reader reader(in, dialect.delimiter, q.data_path);
     const std::vector<std::string> header = read_data_header(reader);
 
     // Where each input column and each kept column is in the data.
@@ -1945,7 +2114,15 @@ int infer_with(const tenon::model_file<T>& file, const infer_request& q, std::os
         if (reader.field_count() != header.size())
             tenon::raise(tenon::codes::prep_csv_ragged, q.data_path + " line " + std::to_string(reader.line()) + ": expected " +
                                                             std::to_string(header.size()) + " fields, found " + std::to_string(reader.field_count()));
-        for (std::size_t k = 0; k < inputs; ++k) cells[pending * inputs + k].assign(reader.field(input_field[k]));
+        for (std::size_t k = 0; k < inputs; ++k) {
+            std::string& cell = cells[pending * inputs + k];
+            cell.assign(reader.field(input_field[k]));
+            // The predictor reads decimal points: a decimal comma becomes one.
+            double value = 0;
+            if (dialect.decimal_comma && file.plan->feature_kind(model.input_name(k)) == tenon::column_kind::numeric &&
+                tenon::parse_decimal_comma_number(cell, value))
+                std::replace(cell.begin(), cell.end(), ',', '.');
+        }
         for (std::size_t j = 0; j < q.keep.size(); ++j) kept[pending * q.keep.size() + j].assign(reader.field(keep_field[j]));
         lines[pending] = reader.line();
         if (++pending == batch_rows) flush();
@@ -2496,7 +2673,9 @@ Usage: tenon retrain --model MODEL.tnm --data NEW.csv --out NEW_MODEL.tnm [optio
                          Rows the model's frozen preparation cannot encode (a
                          missing target, a class the model has no output for,
                          a missing cell without a fill, text in a numeric
-                         column) are left out and counted.
+                         column) are left out and counted. The delimiter and
+                         decimal commas are told from the file as tenon train
+                         tells them.
   --out NEW_MODEL.tnm    where the candidate is written, only if it is
                          promoted (required). It may be the --model file: the
                          incumbent's exact bytes are then kept at the
@@ -2573,6 +2752,8 @@ Usage: tenon drift --model MODEL.tnm --data RECENT.csv [options]
                          (required); it keeps summaries of its training rows.
   --data RECENT.csv      recent rows with a header (required): every column
                          the model reads, in any order; others are ignored.
+                         The delimiter and decimal commas are told from the
+                         file as tenon train tells them.
   --psi-threshold X      a column whose population stability index exceeds X
                          is flagged as drifted (default 0.25).
   --psi-watch X          a column whose PSI exceeds X (and is not drifted) is
@@ -2614,7 +2795,7 @@ inline std::string absent_columns(const tenon::table& t, const std::vector<std::
 }
 
 inline tenon::table read_new_rows(const std::string& path, const tenon::measured_plan* plan) {
-    tenon::csv_options options;
+    tenon::csv_options options = data_dialect(path, 0, false);  // dialect told from the file, as in tenon train
     options.missing_tokens = plan ? plan->missing_tokens() : missing_tokens();  // as the model reads cells
     tenon::table t = tenon::read_csv_file(path, options);
     if (t.row_count() == 0) fail(cli_codes::data_empty, path + ": no data rows below the header");

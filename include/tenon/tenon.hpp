@@ -19,6 +19,7 @@
 #include "tenon/autodiff/tape.hpp"
 
 #include "tenon/prep/cell_parsing.hpp"
+#include "tenon/prep/column_screening.hpp"
 #include "tenon/prep/csv.hpp"
 #include "tenon/prep/encoding.hpp"
 #include "tenon/prep/idx.hpp"

@@ -51,7 +51,8 @@ endif()
 
 # The installed tool runs from the prefix, and its man page holds every
 # command's help: the NAME line from `tenon --help`, a section per command,
-# and a line of `tenon train --help` (hyphens written as roff's \-).
+# and lines of `tenon train --help` (hyphens written as roff's \-), the
+# plant-file options among them.
 step("${prefix}/bin/tenon" --version)
 if(NOT step_output MATCHES "^tenon [0-9]+\\.[0-9]+\\.[0-9]+")
   message(FATAL_ERROR "the installed tenon --version printed: ${step_output}")
@@ -63,7 +64,9 @@ if(NOT EXISTS "${man_page}")
 endif()
 file(READ "${man_page}" page)
 foreach(expected ".TH TENON 1" ".SH NAME\ntenon \\- train" ".SH \"TENON TRAIN\"" ".SH \"TENON INFER\""
-                 ".SH \"TENON INSPECT\"" ".SH \"TENON RETRAIN\"" ".SH \"TENON DRIFT\"" "\\-\\-target COLUMN")
+                 ".SH \"TENON INSPECT\"" ".SH \"TENON RETRAIN\"" ".SH \"TENON DRIFT\"" "\\-\\-target COLUMN"
+                 "\\-\\-delimiter D          the field delimiter: , " "\\-\\-decimal\\-comma        read 59,8 as 59.8"
+                 "\\-\\-use COL,COL" "\\-\\-categorical COL,COL" "\\-\\-numeric COL,COL")
   string(FIND "${page}" "${expected}" at)
   if(at EQUAL -1)
     message(FATAL_ERROR "the man page lacks '${expected}':\n${page}")

@@ -66,7 +66,9 @@
     X(prep_idx_magic, "prep.idx.magic", "an IDX file has a bad magic number or an unsupported type")  \
     X(prep_idx_truncated, "prep.idx.truncated", "an IDX file holds fewer bytes than its header declares") \
     X(prep_idx_compressed, "prep.idx.compressed",                                                     \
-      "a gzip-compressed IDX file was given to the plain reader, or failed to decompress")
+      "a gzip-compressed IDX file was given to the plain reader, or failed to decompress") \
+    X(prep_csv_dialect_ambiguous, "prep.csv.dialect_ambiguous",                                      \
+      "the delimiter or the decimal mark of a CSV file cannot be told from its first rows")
 
 // layers/, losses/, update/: model components.
 #define TENON_ERROR_CODES_MODEL(X)                                                             \

@@ -14,6 +14,10 @@
 // than memory (for_each_csv_record, summarize_csv) keeps only one record and
 // one chunk in memory; read_csv keeps the whole table.
 //
+// A file's dialect (delimiter, decimal comma) is given in csv_options or
+// told from its first rows by detect_csv_dialect, which refuses files whose
+// reading would be a guess.
+//
 // Errors name the source, the line (1-based, where the record starts) and the
 // column: "[prep.csv.ragged] data.csv line 7: expected 4 fields, found 5".
 #pragma once
@@ -24,6 +28,7 @@
 #include <functional>
 #include <istream>
 #include <map>
+#include <sstream>
 #include <string>
 #include <string_view>
 #include <utility>
@@ -39,6 +44,12 @@ TENON_NAMESPACE_BEGIN
 
 struct csv_options {
     char delimiter = ',';
+    /// Read numbers written with a decimal comma ("59,8" is 59.8), as European
+    /// plant exports commonly do with ';' as the delimiter. Only with a
+    /// delimiter other than ','. A cell holding a '.' is then not a number:
+    /// thousands separators are never read ("1.234" and "1.234,5" stay text),
+    /// so no grouped number is silently taken for a small one.
+    bool decimal_comma = false;
     /// Cell texts read as missing (compared after trimming blanks).
     std::vector<std::string> missing_tokens = default_missing_tokens();
     /// Column kinds chosen by the host instead of inferred, by column name.
@@ -168,7 +179,34 @@ private:
     std::vector<std::size_t> ends_;
 };
 
+/// Parses a number written with a decimal comma ("59,8", "-0,5", "1,5e3",
+/// "12"): the whole cell (blanks around it ignored) with at most one ',' and
+/// no '.', otherwise as parse_number. Allocates nothing.
+inline bool parse_decimal_comma_number(std::string_view cell, double& out) noexcept {
+    const std::string_view s = detail::trim_blanks(cell);
+    char buffer[128];
+    if (s.size() > sizeof(buffer)) return false;  // no finite number needs that many characters
+    std::size_t commas = 0;
+    for (std::size_t k = 0; k < s.size(); ++k) {
+        const char c = s[k];
+        if (c == '.') return false;
+        if (c == ',') ++commas;
+        buffer[k] = c == ',' ? '.' : c;
+    }
+    if (commas > 1) return false;
+    return parse_number(std::string_view(buffer, s.size()), out);
+}
+
 namespace detail {
+inline bool read_number(std::string_view cell, bool decimal_comma, double& out) noexcept {
+    return decimal_comma ? parse_decimal_comma_number(cell, out) : parse_number(cell, out);
+}
+
+inline void require_dialect(const csv_options& options, const std::string& source) {
+    if (options.decimal_comma && options.delimiter == ',')
+        raise(codes::invalid_argument, source + ": decimal commas cannot be read when ',' is also the delimiter");
+}
+
 inline std::ifstream open_for_reading(const std::string& path) {
     std::ifstream in(path, std::ios::binary);
     if (!in) raise(codes::prep_file_open, path + ": cannot open for reading");
@@ -241,6 +279,7 @@ struct column_summary {
 inline std::vector<column_summary> summarize_csv(std::istream& in, const csv_options& options = {},
                                                  const std::string& source = "<stream>",
                                                  std::size_t max_categories = 65536) {
+    detail::require_dialect(options, source);
     std::vector<column_summary> summaries;
     for_each_csv_record(
         in, options, source,
@@ -259,7 +298,7 @@ inline std::vector<column_summary> summarize_csv(std::istream& in, const csv_opt
                 }
                 ++s.present;
                 double value = 0;
-                if (parse_number(cell, value)) {
+                if (detail::read_number(cell, options.decimal_comma, value)) {
                     ++s.numeric_cells;
                     s.numbers.add(value);
                 } else if (parse_datetime(cell, value)) {
@@ -287,6 +326,7 @@ inline std::vector<column_summary> summarize_csv_file(const std::string& path, c
 /// date/time if every present cell reads as a date/time, categorical
 /// otherwise; a column with no present cell is numeric.
 inline table read_csv(std::istream& in, const csv_options& options = {}, const std::string& source = "<stream>") {
+    detail::require_dialect(options, source);
     csv_record_reader reader(in, options.delimiter, source, options.chunk_bytes);
     const auto names = detail::read_header(reader);
     for (const auto& forced : options.forced_kinds) {
@@ -327,7 +367,7 @@ inline table read_csv(std::istream& in, const csv_options& options = {}, const s
             bool all_numbers = true, all_times = true;
             double value = 0;
             for (std::size_t i = 0; i < rows && all_numbers; ++i)
-                if (!missing[i] && !parse_number(cell(i), value)) all_numbers = false;
+                if (!missing[i] && !detail::read_number(cell(i), options.decimal_comma, value)) all_numbers = false;
             if (!all_numbers)
                 for (std::size_t i = 0; i < rows && all_times; ++i)
                     if (!missing[i] && !parse_datetime(cell(i), value)) all_times = false;
@@ -343,10 +383,11 @@ inline table read_csv(std::istream& in, const csv_options& options = {}, const s
             const std::string_view text = cell(i);
             double value = 0;
             if (kind == column_kind::numeric) {
-                if (!parse_number(text, value))
+                if (!detail::read_number(text, options.decimal_comma, value))
                     raise(codes::prep_cell_not_numeric, source + " line " + std::to_string(lines[i]) + " column " +
                                                             std::to_string(k + 1) + " ('" + names[k] + "'): '" +
-                                                            std::string(text) + "' is not a finite number");
+                                                            std::string(text) + "' is not a finite number" +
+                                                            (options.decimal_comma ? " (read with a decimal comma)" : ""));
                 c.push_number(value);
             } else if (kind == column_kind::datetime) {
                 if (!parse_datetime(text, value))
@@ -367,6 +408,206 @@ inline table read_csv(std::istream& in, const csv_options& options = {}, const s
 inline table read_csv_file(const std::string& path, const csv_options& options = {}) {
     auto in = detail::open_for_reading(path);
     return read_csv(in, options, path);
+}
+
+// ---------------------------------------------------------------------------
+// Telling a file's dialect: its delimiter and its decimal mark.
+
+/// Which parts of the dialect detect_csv_dialect decides from the file; the
+/// others are kept as given.
+struct csv_detection {
+    bool delimiter = true;      // among ',', ';', tab and '|'
+    bool decimal_comma = true;  // only looked for when the delimiter is not ','
+    /// Data records looked at after the header (and at most 1 MiB of text).
+    std::size_t sample_records = 200;
+};
+
+namespace detail {
+
+inline std::string delimiter_name(char d) {
+    if (d == '\t') return "tab";
+    return std::string("'") + d + "'";
+}
+
+// Field count of the header when every sampled record has as many fields,
+// else 0 (also when the sample does not parse with this delimiter).
+inline std::size_t consistent_field_count(const std::string& sample, bool truncated, char delimiter, const std::string& source,
+                                          std::size_t records, std::size_t& header_fields) {
+    std::istringstream in(sample);
+    csv_record_reader reader(in, delimiter, source, sample.size() + 1);
+    header_fields = 0;
+    try {
+        if (!reader.next()) return 0;
+        header_fields = reader.field_count();
+        for (std::size_t n = 0; n < records && reader.next();)
+            if (reader.field_count() != header_fields) return 0;
+            else ++n;
+    } catch (const error& e) {
+        // A quoted field cut by the end of a truncated sample proves nothing.
+        if (!(truncated && std::string(e.code()) == codes::prep_csv_unterminated_quote)) return 0;
+    }
+    return header_fields;
+}
+
+inline bool is_digit(char c) noexcept { return c >= '0' && c <= '9'; }
+
+// "59,8", "-1234,5": digits, one comma, digits (an exponent may follow).
+inline bool has_decimal_comma_form(std::string_view s) noexcept {
+    double ignored = 0;
+    const auto comma = s.find(',');
+    if (comma == std::string_view::npos || comma == 0 || comma + 1 >= s.size()) return false;
+    if (!is_digit(s[comma - 1]) || !is_digit(s[comma + 1])) return false;
+    return parse_decimal_comma_number(s, ignored);
+}
+
+// "1,234" or "12,500": one to three digits, not starting with 0, a comma and
+// exactly three digits, as a thousands separator would group them.
+inline bool has_grouping_form(std::string_view s) noexcept {
+    if (!s.empty() && (s.front() == '+' || s.front() == '-')) s.remove_prefix(1);
+    const auto comma = s.find(',');
+    if (comma == std::string_view::npos || comma == 0 || comma > 3 || s[0] == '0' || s.size() != comma + 4) return false;
+    for (std::size_t k = 0; k < s.size(); ++k)
+        if (k != comma && !is_digit(s[k])) return false;
+    return true;
+}
+
+// Digits with both '.' and ',' ("1.234,5", "1,234.5"): a grouped number.
+inline bool has_both_marks(std::string_view s) noexcept {
+    if (!s.empty() && (s.front() == '+' || s.front() == '-')) s.remove_prefix(1);
+    if (s.empty() || !is_digit(s.front()) || !is_digit(s.back())) return false;
+    bool point = false, comma = false;
+    for (char c : s) {
+        if (c == '.') point = true;
+        else if (c == ',') comma = true;
+        else if (!is_digit(c)) return false;
+    }
+    return point && comma;
+}
+
+}  // namespace detail
+
+/// Decides the delimiter and the decimal mark of CSV text from its header and
+/// first records (csv_detection::sample_records, at most 1 MiB), reading `in`
+/// forward; the caller reopens or rewinds it to read the table. Returns
+/// `given` with the detected parts set.
+///
+/// Delimiter: the one of ',', ';', tab and '|' that splits the header into at
+/// least two fields and every sampled record into as many. None: the one
+/// giving the header the most fields (the reader then names the first ragged
+/// record), or ',' for a one-column file. Two or more: refused.
+///
+/// Decimal comma (only with a delimiter other than ','): on when some present
+/// cell reads as a number with a decimal comma ("59,8"). Refused, because a
+/// reading could be silently wrong, when: a cell holds both '.' and ','
+/// ("1.234,5": thousands separators are not read); cells with a decimal comma
+/// and cells with a decimal point ("3.5") are both present; or every
+/// decimal-comma cell could be a thousands group ("1,234", "12,500": one to
+/// three digits not starting with 0, a comma, three digits), so that 1.234
+/// and 1234 are equally likely. Name the dialect explicitly then.
+///
+/// Raises prep.csv.dialect_ambiguous naming the file, the candidates and, for
+/// the decimal mark, the line, column and cell.
+inline csv_options detect_csv_dialect(std::istream& in, const std::string& source, csv_options given = {},
+                                      const csv_detection& what = {}) {
+    constexpr std::size_t sample_limit = std::size_t(1) << 20;
+    std::string sample(sample_limit, '\0');
+    in.read(&sample[0], static_cast<std::streamsize>(sample_limit));
+    if (in.bad()) raise(codes::prep_file_open, source + ": read error");
+    sample.resize(static_cast<std::size_t>(in.gcount()));
+    const bool truncated = sample.size() == sample_limit && in.peek() != std::char_traits<char>::eof();
+    if (truncated) {
+        const auto last_break = sample.find_last_of("\r\n");
+        if (last_break != std::string::npos) sample.resize(last_break + 1);
+    }
+    if (what.delimiter) {
+        const char candidates[] = {',', ';', '\t', '|'};
+        std::vector<char> fitting;
+        std::vector<std::size_t> counts;
+        char widest = ',';
+        std::size_t widest_fields = 1;
+        for (char d : candidates) {
+            std::size_t header_fields = 0;
+            const std::size_t fields = detail::consistent_field_count(sample, truncated, d, source, what.sample_records, header_fields);
+            if (fields >= 2) {
+                fitting.push_back(d);
+                counts.push_back(fields);
+            }
+            if (header_fields > widest_fields) {
+                widest = d;
+                widest_fields = header_fields;
+            }
+        }
+        if (fitting.size() > 1) {
+            std::string listed;
+            for (std::size_t k = 0; k < fitting.size(); ++k)
+                listed += (k ? (k + 1 == fitting.size() ? " and " : ", ") : "") + detail::delimiter_name(fitting[k]) + " (" +
+                          std::to_string(counts[k]) + " fields)";
+            raise(codes::prep_csv_dialect_ambiguous, source + ": the delimiter is ambiguous: " + listed +
+                                                         " each split the header and the first rows evenly; name the delimiter");
+        }
+        given.delimiter = fitting.empty() ? widest : fitting.front();
+    }
+    if (what.decimal_comma) {
+        given.decimal_comma = false;
+        if (given.delimiter == ',') return given;
+        std::istringstream text(sample);
+        csv_record_reader reader(text, given.delimiter, source, sample.size() + 1);
+        std::vector<std::string> names;
+        struct sighting {
+            std::string cell, column;
+            std::size_t line = 0, field = 0;
+            bool seen = false;
+            std::string where(const std::string& file) const {
+                return file + " line " + std::to_string(line) + " column " + std::to_string(field + 1) + " ('" + column + "'): '" + cell + "'";
+            }
+        } comma, point, grouped_only;
+        bool comma_not_grouping = false;
+        const auto note = [&](sighting& s, std::string_view cell, std::size_t k) {
+            if (s.seen) return;
+            s = {std::string(cell), k < names.size() ? names[k] : std::string(), reader.line(), k, true};
+        };
+        try {
+            if (reader.next()) {
+                for (std::size_t k = 0; k < reader.field_count(); ++k) names.emplace_back(detail::trim_blanks(reader.field(k)));
+                for (std::size_t n = 0; n < what.sample_records && reader.next(); ++n) {
+                    for (std::size_t k = 0; k < reader.field_count(); ++k) {
+                        const std::string_view cell = detail::trim_blanks(reader.field(k));
+                        if (is_missing_cell(cell, given.missing_tokens)) continue;
+                        double value = 0;
+                        if (detail::has_both_marks(cell))
+                            raise(codes::prep_csv_dialect_ambiguous,
+                                  source + " line " + std::to_string(reader.line()) + " column " + std::to_string(k + 1) + " ('" +
+                                      (k < names.size() ? names[k] : std::string()) + "'): '" + std::string(cell) +
+                                      "' holds both '.' and ',': thousands separators are not read; write numbers without them");
+                        if (detail::has_decimal_comma_form(cell)) {
+                            note(comma, cell, k);
+                            if (!detail::has_grouping_form(cell)) comma_not_grouping = true;
+                            else note(grouped_only, cell, k);
+                        } else if (cell.find('.') != std::string_view::npos && parse_number(cell, value)) {
+                            note(point, cell, k);
+                        }
+                    }
+                }
+            }
+        } catch (const error& e) {
+            if (std::string(e.code()) == codes::prep_csv_dialect_ambiguous) throw;
+            // A malformed sample is reported by the reader that reads the table.
+        }
+        if (comma.seen && point.seen)
+            raise(codes::prep_csv_dialect_ambiguous, source + ": the decimal mark is ambiguous: " + comma.where(source) +
+                                                         " has a decimal comma and " + point.where(source) + " a decimal point");
+        if (comma.seen && !comma_not_grouping)
+            raise(codes::prep_csv_dialect_ambiguous,
+                  source + ": the decimal mark is ambiguous: every cell with a comma, such as " + grouped_only.where(source) +
+                      ", could be a decimal comma or a thousands separator; name the decimal mark");
+        given.decimal_comma = comma.seen;
+    }
+    return given;
+}
+
+inline csv_options detect_csv_dialect_file(const std::string& path, const csv_options& given = {}, const csv_detection& what = {}) {
+    auto in = detail::open_for_reading(path);
+    return detect_csv_dialect(in, path, given, what);
 }
 
 TENON_NAMESPACE_END
