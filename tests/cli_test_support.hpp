@@ -12,6 +12,8 @@
 #include <system_error>
 #include <vector>
 
+#include <unistd.h>
+
 #include <cli/cli.hpp>
 
 namespace cli_test {
@@ -48,10 +50,12 @@ inline cli_result run_tool(std::vector<std::string> args, const tenon_cli::cli_e
 }
 
 /// A fresh, empty directory per test case, removed at the end:
-/// <temp>/<prefix><name>.
+/// <temp>/<prefix><name>-<process id>. The process id keeps two test runs
+/// on one machine (two worktrees) from removing each other's files.
 class scratch_dir {
 public:
-    scratch_dir(const std::string& prefix, const std::string& name) : path_(std::filesystem::temp_directory_path() / (prefix + name)) {
+    scratch_dir(const std::string& prefix, const std::string& name)
+        : path_(std::filesystem::temp_directory_path() / (prefix + name + "-" + std::to_string(static_cast<long>(::getpid())))) {
         std::filesystem::remove_all(path_);
         std::filesystem::create_directories(path_);
     }

@@ -387,8 +387,8 @@ TEST_CASE("a missing or damaged model file is named; nothing is written") {
     const auto out = t.dir.file("p.csv");
     const auto absent = t.dir.file("absent.tnm");
     check_failure(t.dir, {"infer", "--model", absent, "--data", t.data, "--out", out},
-                  "tenon infer: error: [deploy.file.io] cannot open '" + absent + "' for reading\n");
-    check_failure(t.dir, {"inspect", "--model", absent}, "tenon inspect: error: [deploy.file.io] cannot open '" + absent + "' for reading\n");
+                  "tenon infer: error: [deploy.file.io] --model '" + absent + "': cannot read it (No such file or directory)\n");
+    check_failure(t.dir, {"inspect", "--model", absent}, "tenon inspect: error: [deploy.file.io] --model '" + absent + "': cannot read it (No such file or directory)\n");
 
     // One byte flipped inside the weights: the section's CRC-32 catches it.
     std::string bytes = read_file(t.model);
@@ -448,7 +448,7 @@ TEST_CASE("a cell that cannot be predicted fails the whole command with file, li
                   "tenon infer: error: [prep.csv.no_header] " + empty + ": no header row (the input is empty)\n");
     const auto absent = t.dir.file("absent.csv");
     check_failure(t.dir, {"infer", "--model", t.model, "--data", absent, "--out", out},
-                  "tenon infer: error: [prep.file.open] " + absent + ": cannot open for reading\n");
+                  "tenon infer: error: [prep.file.open] --data '" + absent + "': cannot read it (No such file or directory)\n");
     CHECK(read_file(out) == "old predictions\n");
 }
 
@@ -456,7 +456,7 @@ TEST_CASE("an --out file that cannot be created fails with status 3") {
     trained t("unwritable");
     const auto out = t.dir.file("no_such_dir/p.csv");
     check_failure(t.dir, {"infer", "--model", t.model, "--data", t.data, "--out", out},
-                  "tenon infer: error: [cli.output.write] --out '" + out + "': cannot create a file in that directory\n", tenon_cli::exit_output_failed);
+                  "tenon infer: error: [cli.output.write] --out '" + out + "': the directory '" + std::filesystem::path(out).parent_path().string() + "' does not exist\n", tenon_cli::exit_output_failed);
 }
 
 TEST_CASE("bad command lines of infer and inspect are named") {
@@ -499,7 +499,7 @@ TEST_CASE("train --model: refused with --folds or a clashing path; not written w
     check_failure(dir, {"train", "--data", data, "--target", "verdict", "--model="}, train + "[cli.option.value] --model needs a file name, got an empty one\n");
     const auto nowhere = dir.file("no_such_dir/caps.tnm");
     check_failure(dir, {"train", "--data", data, "--target", "verdict", "--model", nowhere},
-                  train + "[cli.output.write] --model '" + nowhere + "': cannot create a file in that directory\n", tenon_cli::exit_output_failed);
+                  train + "[cli.output.write] --model '" + nowhere + "': the directory '" + std::filesystem::path(nowhere).parent_path().string() + "' does not exist\n", tenon_cli::exit_output_failed);
     const auto one = dir.write("one.csv", "torque,verdict\n1.5,tight\n2.5,tight\n");
     check_failure(dir, {"train", "--data", one, "--target", "verdict", "--model", model, "--metrics", dir.file("m.json")},
                   train + "[cli.target.single_class] " + one + ": the target 'verdict' has a single class ('tight') in all 2 rows with a target; "

@@ -342,7 +342,7 @@ TEST_CASE("retrain errors are named, exit 2 (3 for an unwritable output), and le
     const std::string e = "tenon retrain: error: ";
     const auto absent = p.dir.file("absent.tnm");
     check_failure(p.dir, {"retrain", "--model", absent, "--data", recent, "--out", out},
-                  e + "[deploy.file.io] cannot open '" + absent + "' for reading\n");
+                  e + "[deploy.file.io] --model '" + absent + "': cannot read it (No such file or directory)\n");
     check_failure(p.dir, {"retrain", "--model", p.model, "--data", recent, "--out", out, "--margin", "-0.5"},
                   e + "[cli.option.value] --margin '-0.5': must be zero or more, in the gate metric's units\n");
     check_failure(p.dir, {"retrain", "--model", p.model, "--data", recent, "--out", out, "--margin", "lots"},
@@ -396,10 +396,10 @@ TEST_CASE("retrain errors are named, exit 2 (3 for an unwritable output), and le
     // An output directory that does not exist: status 3, before any training.
     const auto nowhere = p.dir.file("no_such_dir/o.tnm");
     check_failure(p.dir, {"retrain", "--model", p.model, "--data", recent, "--out", nowhere},
-                  e + "[cli.output.write] --out '" + nowhere + "': cannot create a file in that directory\n", tenon_cli::exit_output_failed);
+                  e + "[cli.output.write] --out '" + nowhere + "': the directory '" + std::filesystem::path(nowhere).parent_path().string() + "' does not exist\n", tenon_cli::exit_output_failed);
     const auto report_nowhere = p.dir.file("no_such_dir/r.json");
     check_failure(p.dir, {"retrain", "--model", p.model, "--data", recent, "--out", out, "--json", report_nowhere},
-                  e + "[cli.output.write] --json '" + report_nowhere + "': cannot create a file in that directory\n", tenon_cli::exit_output_failed);
+                  e + "[cli.output.write] --json '" + report_nowhere + "': the directory '" + std::filesystem::path(report_nowhere).parent_path().string() + "' does not exist\n", tenon_cli::exit_output_failed);
 }
 
 // ---------------------------------------------------------------------------
@@ -502,7 +502,7 @@ TEST_CASE("drift errors are named, exit 2") {
     const auto header_only = p.dir.write("header_only.csv", "speed,load,oil\n");
     check_failure(p.dir, {"drift", "--model", p.model, "--data", header_only}, e + "[cli.data.empty] " + header_only + ": no data rows below the header\n");
     const auto absent = p.dir.file("absent.tnm");
-    check_failure(p.dir, {"drift", "--model", absent, "--data", recent}, e + "[deploy.file.io] cannot open '" + absent + "' for reading\n");
+    check_failure(p.dir, {"drift", "--model", absent, "--data", recent}, e + "[deploy.file.io] --model '" + absent + "': cannot read it (No such file or directory)\n");
     check_failure(p.dir, {"drift", "--model", p.model, "--data", recent, "--psi-threshold", "0"},
                   e + "[cli.option.value] --psi-threshold '0': must be positive\n");
     check_failure(p.dir, {"drift", "--model", p.model, "--data", recent, "--ks-threshold", "1.5"},

@@ -18,9 +18,11 @@
 // could not be written; 1 anything unexpected; 4 `tenon retrain` kept the
 // incumbent (nothing written); 5 `tenon drift` flagged a column. On any
 // failure no --metrics, --report, --model, --out, --rollback or --json file is
-// created or changed: each is written to a temporary file beside the
-// destination and renamed into place only when everything worked (models by
-// tenon::write_file_atomically, which also syncs).
+// created or changed: each is checked (by file identity against the inputs
+// and the other outputs) before training, written to its own temporary file
+// beside the destination, synced, and renamed into place only when every
+// output is written (cli_files.hpp says what holds for symlinks, FIFOs,
+// devices, standard output and signals).
 #pragma once
 
 #include <algorithm>
@@ -120,6 +122,15 @@ inline constexpr const char* model_unusable = "cli.model.unusable";
 enum class task_choice { automatic, classify, regress };
 enum class split_choice { automatic, random, stratified, chronological, grouped };
 
+/// Size limits of `tenon train` (refused with exit status 2 and the limit
+/// named, before any memory is taken): a wider or deeper network than this
+/// is far beyond what the tool's CSV-sized tasks need, and 100 million
+/// weights take 400 MB in single precision, 1.6 GB with Adam's state and
+/// gradients.
+inline constexpr std::size_t max_hidden_width = 65536;
+inline constexpr std::size_t max_hidden_layers = 64;
+inline constexpr std::size_t max_hidden_weights = 100000000;
+
 /// The library's model and training defaults, which the tool's options
 /// start from (no copies of them here): a host calling fit_model with a
 /// default model_settings trains what `tenon train` trains.
@@ -199,6 +210,8 @@ inline std::size_t parse_count(const std::string& option, const std::string& tex
     const char* first = text.data();
     const char* last = text.data() + text.size();
     const auto r = std::from_chars(first, last, value);
+    if (!text.empty() && r.ec == std::errc::result_out_of_range && r.ptr == last)
+        fail(cli_codes::option_value, option + " '" + text + "': too large (more than 18446744073709551615)");
     if (text.empty() || r.ec != std::errc() || r.ptr != last)
         fail(cli_codes::option_value, option + " '" + text + "': not a whole number");
     if (value < minimum)
@@ -387,7 +400,29 @@ inline train_request parse_train_request(const std::vector<std::string>& args) {
             q.folds = detail::parse_count("--folds", value, 2);
         } else if (name == "--hidden") {
             q.hidden.clear();
-            for (const auto& part : detail::split_list(value)) q.hidden.push_back(detail::parse_count("--hidden", part, 1));
+            for (const auto& part : detail::split_list(value)) {
+                if (part.empty()) fail(cli_codes::option_value, "--hidden '" + value + "': an empty width between commas");
+                std::size_t width = 0;
+                try {
+                    width = detail::parse_count("--hidden", part, 1);
+                } catch (const cli_failure& e) {
+                    // The whole list is quoted, then the piece and what is wrong with it.
+                    const std::string m = e.what();
+                    fail(cli_codes::option_value, "--hidden '" + value + "': width '" + part + "'" + m.substr(m.find("':") + 1));
+                }
+                if (width > max_hidden_width)
+                    fail(cli_codes::option_value, "--hidden '" + value + "': width " + part + " is above the limit of " + std::to_string(max_hidden_width) +
+                                                      " units per layer");
+                q.hidden.push_back(width);
+            }
+            if (q.hidden.size() > max_hidden_layers)
+                fail(cli_codes::option_value, "--hidden '" + value + "': " + std::to_string(q.hidden.size()) + " layers, above the limit of " +
+                                                  std::to_string(max_hidden_layers));
+            std::size_t between = 0;  // weights between hidden layers, before the inputs and outputs are known
+            for (std::size_t layer = 1; layer < q.hidden.size(); ++layer) between += q.hidden[layer - 1] * q.hidden[layer];
+            if (between > max_hidden_weights)
+                fail(cli_codes::option_value, "--hidden '" + value + "': " + std::to_string(between) + " weights between the hidden layers, above the limit of " +
+                                                  std::to_string(max_hidden_weights));
         } else if (name == "--activation") {
             q.hidden_activation = detail::parse_activation_option(value);
         } else if (name == "--loss") {
@@ -407,6 +442,13 @@ inline train_request parse_train_request(const std::vector<std::string>& args) {
         } else if (name == "--learning-rate") {
             q.learning_rate = detail::parse_real("--learning-rate", value);
             if (!(q.learning_rate > 0)) fail(cli_codes::option_value, "--learning-rate '" + value + "': must be positive");
+            // The tool trains in single precision: a rate below the smallest
+            // normal float (about 1.2e-38) rounds to 0 or a denormal and learns
+            // nothing; one above the largest float becomes infinite.
+            const float as_trained = static_cast<float>(q.learning_rate);
+            if (!(as_trained >= std::numeric_limits<float>::min() && as_trained <= std::numeric_limits<float>::max()))
+                fail(cli_codes::option_value, "--learning-rate '" + value + "': outside what single precision (the training's) holds, " +
+                                                  "1.2e-38 to 3.4e38");
         } else if (name == "--epochs") {
             q.epochs = detail::parse_count("--epochs", value, 1);
         } else if (name == "--batch") {
@@ -491,11 +533,15 @@ Usage: tenon train --data FILE.csv --target COLUMN [options]
 Data
   --data FILE.csv        CSV file with a header row (required). Column kinds are
                          inferred: numeric, date/time, or categorical. Empty
-                         cells, NA, NaN, null and ? read as missing. A column
-                         whose cells are numbers except for a few (under 10%)
-                         is taken for a numeric column with typos: the first
-                         bad cell is reported. The delimiter and the decimal
-                         mark are told from the first rows (see --delimiter).
+                         cells, NA, N/A, n/a, na, NaN, nan, null, NULL, none,
+                         None, -, --, #N/A, missing and ? read as missing. A
+                         column whose cells are numbers (or dates/times)
+                         except for a few (under 10%) is taken for a numeric
+                         (date/time) column with typos: the first bad cell is
+                         reported. A column at least half numbers or dates
+                         that stays categorical is named in a warning. The
+                         delimiter and the decimal mark are told from the
+                         first rows (see --delimiter).
   --target COLUMN        the column the model learns (required). Rows whose target
                          is missing are left out and counted as dropped.
   --task auto|classify|regress
@@ -570,7 +616,9 @@ Preparation (measured on the training rows only)
   every reported number is in the target's original units.
 
 Model and training
-  --hidden 64,32         hidden layer widths (default 64,32).
+  --hidden 64,32         hidden layer widths (default 64,32); at most 65536
+                         units a layer, 64 layers and 100000000 weights
+                         between hidden layers.
   --activation relu|leaky-relu|elu|tanh|sigmoid|softplus|gelu
                          hidden activation (default relu).
   --loss l1|l2|huber|cross-entropy
@@ -578,7 +626,8 @@ Model and training
                          regression.
   --optimizer gd|momentum|nesterov|adam|adamw|rmsprop|adagrad
                          update rule (default adam).
-  --learning-rate X      default 0.001.
+  --learning-rate X      default 0.001; must be representable in single
+                         precision (1.2e-38 to 3.4e38).
   --epochs N             most epochs to run (default 200).
   --batch N              mini-batch rows (default 32); under mpirun -np P the
                          rows of each process, so P x N rows per step.
@@ -617,6 +666,17 @@ Output
   --quiet                print nothing but errors.
   On a terminal the progress line is redrawn in place; otherwise one line is
   printed per epoch. A summary table follows training.
+
+Files
+  Every output is checked before training: compared with the inputs and the
+  other outputs by identity (symlinks, hard links and other paths to the same
+  file are caught), its directory must exist and accept a new file. Outputs
+  are written to temporary files and renamed into place together at the end;
+  a replaced file keeps its permission bits; an output that is a symlink has
+  its target replaced and the link kept. '-' and /dev/stdout write to
+  standard output; a FIFO or device is written directly, never replaced.
+  SIGINT, SIGTERM and SIGHUP remove the temporary files and end the run by
+  that signal.
 
 Exit status
   0 success; 2 bad command line or bad data (one line on stderr names the
@@ -697,7 +757,28 @@ inline double numeric_share(const tenon::column& c, bool decimal_comma) {
     return present ? static_cast<double>(numbers) / static_cast<double>(present) : 0.0;
 }
 
+// Share of the present cells of a categorical column that read as dates/times.
+inline double datetime_share(const tenon::column& c) {
+    std::vector<char> is_time(c.categories().size());
+    for (std::size_t k = 0; k < is_time.size(); ++k) {
+        double v = 0;
+        is_time[k] = tenon::parse_datetime(c.categories()[k], v) ? 1 : 0;
+    }
+    std::size_t present = 0, times = 0;
+    for (std::size_t r = 0; r < c.size(); ++r) {
+        if (c.is_missing(r)) continue;
+        ++present;
+        times += static_cast<std::size_t>(is_time[c.code(r)]);
+    }
+    return present ? static_cast<double>(times) / static_cast<double>(present) : 0.0;
+}
+
 }  // namespace detail
+
+/// The cell texts the tool reads as missing: the library's defaults (one
+/// list, so a host's plan reads the same cells as the tool's). Models store
+/// the list in their plan, so `tenon infer` reads the same cells as missing.
+inline std::vector<std::string> missing_tokens() { return tenon::default_missing_tokens(); }
 
 namespace detail {
 
@@ -740,9 +821,12 @@ inline tenon::csv_options data_dialect(const std::string& path, char delimiter, 
 /// its first rows. --categorical and --numeric force kinds; a regression
 /// target, and any column whose cells are numbers but for a few, are read as
 /// numeric so that the library names the first cell that is not a number
-/// (file, line, column, value). Lines for the user go to `notes`.
-inline tenon::table load_table(const train_request& q, std::vector<std::string>* notes = nullptr) {
+/// (file, line, column, value); so is a column of dates/times but for a few.
+/// Lines for the user go to `notes`; a column at least half numbers or dates
+/// that stays categorical gets a warning on `warnings`.
+inline tenon::table load_table(const train_request& q, std::vector<std::string>* notes = nullptr, std::ostream* warnings = nullptr) {
     tenon::csv_options options = detail::data_dialect(q.data_path, q.delimiter, q.decimal_comma);
+    options.missing_tokens = missing_tokens();
     if (notes && (options.delimiter != ',' || options.decimal_comma))
         notes->push_back("note: " + q.data_path + " is read with " + detail::delimiter_text(options.delimiter) + " between fields and " +
                          (options.decimal_comma ? "decimal commas" : "decimal points") +
@@ -782,6 +866,19 @@ inline tenon::table load_table(const train_request& q, std::vector<std::string>*
         if (share >= 0.9 && share < 1.0) {
             options.forced_kinds[c.name()] = tenon::column_kind::numeric;
             reread = true;
+            continue;
+        }
+        const double times = detail::datetime_share(c);
+        if (times >= 0.9 && times < 1.0) {
+            options.forced_kinds[c.name()] = tenon::column_kind::datetime;  // raises prep.cell.not_datetime at the first bad cell
+            reread = true;
+            continue;
+        }
+        if (warnings && (share >= 0.5 || times >= 0.5)) {
+            const bool numbers = share >= times;
+            *warnings << "tenon train: warning: column '" << c.name() << "' is read as categorical ("
+                      << c.categories().size() << " categories), although " << std::lround(100.0 * (numbers ? share : times))
+                      << "% of its cells read as " << (numbers ? "numbers" : "dates/times") << "\n";
         }
     }
     if (reread) t = tenon::read_csv_file(q.data_path, options);  // raises prep.cell.not_numeric at the first bad cell
@@ -852,6 +949,15 @@ inline training_setup make_setup(const tenon::table& t, const train_request& q) 
                                               "', not numbers or dates");
     }
     if (!q.group_column.empty()) detail::named_column(t, "--group-column", q.group_column);
+    {
+        // Named here in column terms; later it would surface as a layer with 0 inputs.
+        std::size_t inputs = 0;
+        for (const auto& name : t.column_names())
+            if (name != q.target && name != q.group_column && std::find(q.ignored.begin(), q.ignored.end(), name) == q.ignored.end()) ++inputs;
+        if (inputs == 0)
+            fail(cli_codes::option_conflict, q.data_path + ": no input column is left: the columns are " + detail::column_listing(t.column_names()) +
+                                                 ", of which '" + q.target + "' is the target and the others are ignored or the group column");
+    }
     if (q.time_column == q.target || q.group_column == q.target)
         fail(cli_codes::option_conflict, "the target '" + q.target + "' cannot also be the time or group column");
     s.classify = decide_classification(t, q);
@@ -896,6 +1002,7 @@ inline training_setup make_setup(const tenon::table& t, const train_request& q) 
         fail(cli_codes::option_conflict, "--split stratified needs a classification target; '" + q.target + "' is regressed");
 
     s.preparation.set_target(q.target, s.classify ? tenon::target_kind::classification : tenon::target_kind::regression);
+    s.preparation.set_missing_tokens(missing_tokens());
     for (const auto& c : q.ignored) s.preparation.set_role(c, tenon::column_role::ignored);
     if (!q.time_column.empty()) s.preparation.set_role(q.time_column, tenon::column_role::time);
     if (!q.group_column.empty()) s.preparation.set_role(q.group_column, tenon::column_role::group);
@@ -1018,74 +1125,13 @@ inline tenon::model_settings make_settings(const train_request& q) {
 // ---------------------------------------------------------------------------
 // Output files: written beside the destination, renamed into place on success
 
-class pending_output {
-public:
-    pending_output() = default;
-    pending_output(std::string option, std::string destination) : option_(std::move(option)), destination_(std::move(destination)) {
-        const std::filesystem::path p(destination_);
-        temporary_ = (p.parent_path() / ("." + p.filename().string() + ".tenon-partial")).string();
-        // Created now, so an unwritable destination fails before training.
-        std::ofstream probe(temporary_, std::ios::binary | std::ios::trunc);
-        if (!probe)
-            fail(cli_codes::output_write, option_ + " '" + destination_ + "': cannot create a file in that directory", exit_output_failed);
-        created_ = true;
-    }
-    pending_output(const pending_output&) = delete;
-    pending_output& operator=(const pending_output&) = delete;
-    pending_output(pending_output&& o) noexcept { *this = std::move(o); }
-    pending_output& operator=(pending_output&& o) noexcept {
-        discard();
-        option_ = std::move(o.option_);
-        destination_ = std::move(o.destination_);
-        temporary_ = std::move(o.temporary_);
-        stream_ = std::move(o.stream_);
-        created_ = o.created_;
-        o.created_ = false;
-        return *this;
-    }
-    ~pending_output() { discard(); }
+}  // namespace tenon_cli
 
-    bool active() const noexcept { return created_; }
-    const std::string& destination() const noexcept { return destination_; }
+#include "cli_files.hpp"  // pending_output, input checks, identities, signals
 
-    void write(const std::string& content) {
-        std::ofstream out(temporary_, std::ios::binary | std::ios::trunc);
-        out << content;
-        out.close();
-        if (!out) fail(cli_codes::output_write, option_ + " '" + destination_ + "': writing failed", exit_output_failed);
-    }
-    /// The temporary file as a stream, for output written piece by piece;
-    /// end with finish_stream(), then commit().
-    std::ofstream& stream() {
-        if (!stream_.is_open()) {
-            stream_.open(temporary_, std::ios::binary | std::ios::trunc);
-            if (!stream_) fail(cli_codes::output_write, option_ + " '" + destination_ + "': cannot open the temporary file", exit_output_failed);
-        }
-        return stream_;
-    }
-    void finish_stream() {
-        stream_.close();
-        if (!stream_) fail(cli_codes::output_write, option_ + " '" + destination_ + "': writing failed", exit_output_failed);
-    }
-    void commit() {
-        std::error_code ec;
-        std::filesystem::rename(temporary_, destination_, ec);
-        if (ec) fail(cli_codes::output_write, option_ + " '" + destination_ + "': cannot rename into place (" + ec.message() + ")", exit_output_failed);
-        created_ = false;
-    }
-    void discard() noexcept {
-        if (!created_) return;
-        if (stream_.is_open()) stream_.close();
-        std::error_code ec;
-        std::filesystem::remove(temporary_, ec);
-        created_ = false;
-    }
+namespace tenon_cli {
 
-private:
-    std::string option_, destination_, temporary_;
-    std::ofstream stream_;
-    bool created_ = false;
-};
+using files::pending_output;
 
 // ---------------------------------------------------------------------------
 // A small JSON writer (RFC 8259: strings escaped per section 7; numbers must
@@ -1135,10 +1181,43 @@ public:
         return out_;
     }
 
+    /// Length of the well-formed UTF-8 sequence at s[i] (RFC 3629 section 4:
+    /// no overlong forms, no surrogates, nothing above U+10FFFF), or 0.
+    static std::size_t utf8_length(const std::string& s, std::size_t i) {
+        const auto b = [&](std::size_t k) { return i + k < s.size() ? static_cast<unsigned char>(s[i + k]) : 0u; };
+        const unsigned c = b(0);
+        const auto tail = [&](std::size_t k) { return (b(k) & 0xC0u) == 0x80u; };
+        if (c < 0x80) return 1;
+        if (c >= 0xC2 && c <= 0xDF) return tail(1) ? 2 : 0;
+        if (c >= 0xE0 && c <= 0xEF) {
+            const unsigned lo = c == 0xE0 ? 0xA0 : 0x80, hi = c == 0xED ? 0x9F : 0xBF;
+            return b(1) >= lo && b(1) <= hi && tail(2) ? 3 : 0;
+        }
+        if (c >= 0xF0 && c <= 0xF4) {
+            const unsigned lo = c == 0xF0 ? 0x90 : 0x80, hi = c == 0xF4 ? 0x8F : 0xBF;
+            return b(1) >= lo && b(1) <= hi && tail(2) && tail(3) ? 4 : 0;
+        }
+        return 0;
+    }
+
+    /// JSON string contents (RFC 8259 section 7). Bytes that are not
+    /// well-formed UTF-8 (a model's category read from a Latin-1 file, say)
+    /// become U+FFFD, the replacement character, so the output is valid JSON.
     static std::string escape(const std::string& s) {
         std::string out;
-        for (char ch : s) {
+        for (std::size_t i = 0; i < s.size(); ++i) {
+            const char ch = s[i];
             const auto c = static_cast<unsigned char>(ch);
+            if (c >= 0x80) {
+                const std::size_t n = utf8_length(s, i);
+                if (n == 0) {
+                    out += "\\ufffd";
+                } else {
+                    out.append(s, i, n);
+                    i += n - 1;
+                }
+                continue;
+            }
             switch (c) {
                 case '"': out += "\\\""; break;
                 case '\\': out += "\\\\"; break;
@@ -1153,7 +1232,7 @@ public:
                         std::snprintf(u, sizeof u, "\\u%04x", static_cast<unsigned>(c));
                         out += u;
                     } else {
-                        out += ch;  // UTF-8 bytes pass through unchanged
+                        out += ch;
                     }
             }
         }
@@ -1204,10 +1283,15 @@ private:
 
 namespace detail {
 
+// A number for a table cell or a summary line, at most about a dozen
+// characters wide: fixed-point below a million in magnitude, scientific
+// notation above (a value near 3.4e38 would otherwise print 39 digits and
+// run into the next column).
 inline std::string fixed(double v, int decimals) {
     if (!std::isfinite(v)) return "-";
     char buffer[64];
-    std::snprintf(buffer, sizeof buffer, "%.*f", decimals, v);
+    if (std::fabs(v) >= 1e6) std::snprintf(buffer, sizeof buffer, "%.*e", std::min(decimals, 3), v);
+    else std::snprintf(buffer, sizeof buffer, "%.*f", decimals, v);
     return buffer;
 }
 
@@ -1343,10 +1427,25 @@ private:
 
 namespace detail {
 
-inline std::string one_line(std::string s) {
-    for (char& c : s)
-        if (c == '\n' || c == '\r') c = ' ';
-    return s;
+// A message on one line: control characters (a CR, LF, tab or other byte
+// below 0x20, or DEL, e.g. from a cell's text) are written as escapes
+// (\n, \r, \t, \xNN), so the line stays one line and shows what was there.
+inline std::string one_line(const std::string& s) {
+    std::string o;
+    o.reserve(s.size());
+    for (const char c : s) {
+        const auto u = static_cast<unsigned char>(c);
+        if (c == '\n') o += "\\n";
+        else if (c == '\r') o += "\\r";
+        else if (c == '\t') o += "\\t";
+        else if (u < 0x20 || u == 0x7f) {
+            const char digits[] = "0123456789abcdef";
+            o += "\\x";
+            o += digits[u >> 4];
+            o += digits[u & 15];
+        } else o += c;
+    }
+    return o;
 }
 
 // The one line the tool prints for a failure of `command`, and its exit status.
@@ -1555,37 +1654,14 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
         }
         report_file.write(tenon::training_report_svg(r));
     }
-    // Everything is written: move the files into place together. The model
-    // goes first (written and renamed atomically by save_model_file); when a
-    // later rename fails, the files already in place are removed again.
-    std::vector<std::string> placed;
-    const auto undo = [&placed] {
-        for (const auto& p : placed) {
-            std::error_code ec;
-            std::filesystem::remove(p, ec);
-        }
-    };
     if (model_probe.active()) {
         tenon::model_file<float> file = tenon::make_model_file(model, t, split.train, settings);
         add_scores_to_metadata(*file.metadata, q, s, has_validation ? &validation : nullptr, test);
-        model_probe.discard();
-        try {
-            tenon::save_model_file(q.model_path, file);
-        } catch (const tenon::error& e) {
-            throw cli_failure(e.code(), "--model '" + q.model_path + "': " + strip_code(e.what()), exit_output_failed);
-        }
-        placed.push_back(q.model_path);
+        model_probe.write(tenon::model_file_to_bytes(file));
     }
-    try {
-        if (metrics_file.active()) {
-            metrics_file.commit();
-            placed.push_back(q.metrics_path);
-        }
-        if (report_file.active()) report_file.commit();
-    } catch (...) {
-        undo();
-        throw;
-    }
+    // Everything is written and synced before the first file is moved into
+    // place (files::commit_all); nothing the run did not create is removed.
+    files::commit_all({&model_probe, &metrics_file, &report_file});
 
     if (!q.quiet) {
         std::string summary = "\n" + table_row("scores", {"validation", "test"});
@@ -1705,12 +1781,17 @@ inline int run_train(const std::vector<std::string>& args, std::ostream& out, st
             q.model_path.clear();
         }
         if (!q.help) {
-            if (!q.metrics_path.empty()) metrics_file = pending_output("--metrics", q.metrics_path);
-            if (!q.report_path.empty()) report_file = pending_output("--report", q.report_path);
-            // The model is saved by save_model_file; the probe only proves the directory writable.
-            if (!q.model_path.empty()) model_probe = pending_output("--model", q.model_path);
+            // Every file is checked, by identity, before anything is read or trained.
+            files::file_roster roster;
+            roster.input("--data", q.data_path, files::check_input(tenon::codes::prep_file_open, "--data", q.data_path));
+            if (!q.metrics_path.empty()) roster.output("--metrics", metrics_file = pending_output("--metrics", q.metrics_path, &out));
+            if (!q.report_path.empty()) roster.output("--report", report_file = pending_output("--report", q.report_path, &out));
+            if (!q.model_path.empty()) roster.output("--model", model_probe = pending_output("--model", q.model_path, &out));
+            roster.check();
+            // An output on standard output: the summary would mix with it.
+            if (metrics_file.to_standard_output() || report_file.to_standard_output() || model_probe.to_standard_output()) q.quiet = true;
             std::vector<std::string> notes;
-            t = load_table(q, &notes);
+            t = load_table(q, &notes, &err);
             s = make_setup(t, q);
             s.notes.insert(s.notes.begin(), notes.begin(), notes.end());
         }
@@ -1776,9 +1857,26 @@ inline std::vector<given_option> read_options(const std::string& command, const 
     return given;
 }
 
-inline bool same_file(const std::string& a, const std::string& b) {
-    return std::filesystem::path(a).lexically_normal() == std::filesystem::path(b).lexically_normal();
+// Two paths name the same file when they reach the same device and inode
+// (symlinks followed; hard links included); a file that does not exist yet is
+// named by its directory's device and inode and its name (files::file_key).
+inline files::file_key file_identity(const std::string& path) {
+    if (path == "-") return files::resolve_output("", path).key;
+    struct stat st {};
+    if (::stat(path.c_str(), &st) == 0) return files::key_of(st);
+    files::file_key k;
+    struct stat d {};
+    if (::stat(files::directory_part(path).c_str(), &d) == 0) {
+        k.device = static_cast<std::uint64_t>(d.st_dev);
+        k.inode = static_cast<std::uint64_t>(d.st_ino);
+        k.name = files::name_part(path);
+    } else {
+        k.name = std::filesystem::path(path).lexically_normal().string();
+    }
+    return k;
 }
+
+inline bool same_file(const std::string& a, const std::string& b) { return file_identity(a).same_as(file_identity(b)); }
 
 }  // namespace detail
 
@@ -1851,11 +1949,13 @@ Usage: tenon infer --model MODEL.tnm --data NEW.csv --out PREDICTIONS.csv [optio
   --data NEW.csv         CSV file with a header row (required). It must hold
                          every column the model reads (tenon inspect lists
                          them), in any order; other columns, the target among
-                         them, are ignored. Empty cells, NA, NaN, null and ?
-                         read as missing and are filled as in training. The
-                         delimiter and decimal commas are told from the file
-                         as tenon train tells them.
-  --out PREDICTIONS.csv  where to write the predictions (required).
+                         them, are ignored. The cells training read as
+                         missing (see tenon train --help) read as missing and
+                         are filled as in training. The delimiter and decimal
+                         commas are told from the file as tenon train tells
+                         them.
+  --out PREDICTIONS.csv  where to write the predictions (required); '-' or
+                         /dev/stdout: standard output.
   --keep COL,COL         columns of NEW.csv copied unchanged to the front of
                          each output row, e.g. an id (default: none).
   --quiet                print nothing but errors.
@@ -1873,6 +1973,17 @@ Output: a CSV file with a header, one row per data row, in the same order
                    joined by ';'; empty when every cell lies inside.
   Numbers are written in the shortest form that reads back to the same value
   in the model's precision (single precision for models of tenon train).
+
+Files
+  Every output is checked before training: compared with the inputs and the
+  other outputs by identity (symlinks, hard links and other paths to the same
+  file are caught), its directory must exist and accept a new file. Outputs
+  are written to temporary files and renamed into place together at the end;
+  a replaced file keeps its permission bits; an output that is a symlink has
+  its target replaced and the link kept. '-' and /dev/stdout write to
+  standard output; a FIFO or device is written directly, never replaced.
+  SIGINT, SIGTERM and SIGHUP remove the temporary files and end the run by
+  that signal.
 
 Exit status
   0 success; 2 bad command line, model file or data (one line on stderr names
@@ -1967,7 +2078,7 @@ inline std::size_t position_of(const std::vector<std::string>& names, const std:
 }
 
 template <class T>
-int infer_with(const tenon::model_file<T>& file, const infer_request& q, std::ostream& out) {
+int infer_with(const tenon::model_file<T>& file, const infer_request& q, std::ostream& out, pending_output& result) {
     if (!file.plan) fail(cli_codes::model_unusable, q.model_path + ": the model holds no preparation plan, so it cannot read raw rows");
     constexpr std::size_t batch_rows = 64;
     tenon::predictor<T> model(file, batch_rows);
@@ -1996,8 +2107,24 @@ int infer_with(const tenon::model_file<T>& file, const infer_request& q, std::os
             fail(cli_codes::column_unknown, q.data_path + ": --keep names '" + name + "', which is not a column (columns: " + column_listing(header) + ")");
     }
 
-    pending_output result("--out", q.out_path);
-    std::ofstream& stream = result.stream();
+    // A kept column named like an output column would make two columns of
+    // one name, which a reader of the CSV cannot tell apart.
+    {
+        std::vector<std::string> produced{"out_of_range"};
+        if (model.is_classification()) {
+            produced.push_back("predicted");
+            for (const auto& c : model.class_names()) produced.push_back("p(" + c + ")");
+        } else if (model.output_count() == 1) {
+            produced.push_back("predicted");
+        } else {
+            for (std::size_t j = 0; j < model.output_count(); ++j) produced.push_back("output_" + std::to_string(j + 1));
+        }
+        for (const auto& name : q.keep)
+            if (std::find(produced.begin(), produced.end(), name) != produced.end())
+                fail(cli_codes::option_conflict, "--keep names '" + name + "', which is also a column the predictions write; rename it in " + q.data_path +
+                                                     " or leave it out");
+    }
+    std::ostream& stream = result.stream();
     std::string line;
     for (const auto& name : q.keep) {
         append_csv_field(line, name);
@@ -2097,8 +2224,9 @@ int infer_with(const tenon::model_file<T>& file, const infer_request& q, std::os
     }
     flush();
     result.finish_stream();
+    const bool on_standard_output = result.to_standard_output();
     result.commit();
-    if (!q.quiet)
+    if (!q.quiet && !on_standard_output)
         out << "predicted " << total << (total == 1 ? " row" : " rows") << " (" << flagged_rows << " with inputs outside the training range) into "
             << q.out_path << "\n";
     return exit_success;
@@ -2114,12 +2242,19 @@ inline int run_infer(const std::vector<std::string>& args, std::ostream& out, st
         out << infer_help();
         return exit_success;
     }
+    // Every file is checked, by identity, before anything is read.
+    files::file_roster roster;
+    roster.input("--model", q.model_path, files::check_input(tenon::codes::deploy_file_io, "--model", q.model_path));
+    roster.input("--data", q.data_path, files::check_input(tenon::codes::prep_file_open, "--data", q.data_path));
+    pending_output result("--out", q.out_path, &out);
+    roster.output("--out", result);
+    roster.check();
     // The whole file is checked (inspect) before a scalar type is chosen.
     const tenon::model_limits limits;
     const std::vector<std::uint8_t> bytes = tenon::read_file_bounded(q.model_path, limits.max_file_bytes);
     const tenon::model_file_summary summary = tenon::inspect_model_bytes(bytes, limits, q.model_path);
-    if (summary.scalar_bytes == 8) return detail::infer_with(tenon::model_file_from_bytes<double>(bytes, limits, q.model_path), q, out);
-    return detail::infer_with(tenon::model_file_from_bytes<float>(bytes, limits, q.model_path), q, out);
+    if (summary.scalar_bytes == 8) return detail::infer_with(tenon::model_file_from_bytes<double>(bytes, limits, q.model_path), q, out, result);
+    return detail::infer_with(tenon::model_file_from_bytes<float>(bytes, limits, q.model_path), q, out, result);
 }
 
 // ---------------------------------------------------------------------------
@@ -2489,6 +2624,7 @@ inline int run_inspect(const std::vector<std::string>& args, std::ostream& out, 
         out << inspect_help();
         return exit_success;
     }
+    files::check_input(tenon::codes::deploy_file_io, "--model", q.model_path);
     const tenon::model_file_summary m = tenon::inspect_model_file(q.model_path);
     out << (q.json ? detail::inspect_json(m, q.model_path) : detail::inspect_text(m, q.model_path));
     return exit_success;
@@ -2696,6 +2832,19 @@ keeps; incumbent and candidate are then scored on the holdout with the same
 metric. The candidate file keeps the preparation, gets the new weights, new
 reference ranges (for tenon drift) and the continued sample.
 
+Files
+  Every output is checked before training: compared with the inputs and the
+  other outputs by identity (symlinks, hard links and other paths to the same
+  file are caught), its directory must exist and accept a new file. Outputs
+  are written to temporary files and renamed into place together at the end;
+  a replaced file keeps its permission bits; an output that is a symlink has
+  its target replaced and the link kept. '-' and /dev/stdout write to
+  standard output; with --out naming --model by any path the retrain is in
+  place and keeps the replaced model at --rollback; a FIFO or device is
+  written directly, never replaced.
+  SIGINT, SIGTERM and SIGHUP remove the temporary files and end the run by
+  that signal.
+
 Exit status
   0 the candidate was promoted and written to --out; 4 the incumbent was kept
   and nothing was written to --out or --rollback; 2 bad command line, model
@@ -2763,10 +2912,11 @@ inline std::string absent_columns(const tenon::table& t, const std::vector<std::
 }
 
 // Reads new rows in the data file's dialect (told from the file, as in
-// tenon train) and with the time-stamp forms the model keeps, so that its
-// date/time columns read as they did in training.
-inline tenon::table read_new_rows(const std::string& path, const tenon::measured_plan* plan = nullptr) {
+// tenon train), with the missing spellings and the time-stamp forms the
+// model keeps, so that its cells read as they did in training.
+inline tenon::table read_new_rows(const std::string& path, const tenon::measured_plan* plan) {
     tenon::csv_options options = data_dialect(path, 0, false);
+    options.missing_tokens = plan ? plan->missing_tokens() : missing_tokens();
     if (plan)
         for (const auto& name : plan->input_columns())
             if (plan->feature_kind(name) == tenon::column_kind::datetime && plan->feature_time_form(name) != tenon::time_format::detect)
@@ -2843,13 +2993,20 @@ inline int run_retrain(const std::vector<std::string>& args, std::ostream& out, 
         out << retrain_help();
         return exit_success;
     }
+    // Every file is checked, by identity, before anything is read or trained.
+    // --out naming --model by any path (a symlink, a hard link, an absolute
+    // path) is a retrain in place, which keeps the replaced model as rollback.
+    files::file_roster roster;
+    roster.input("--model", q.model_path, files::check_input(tenon::codes::deploy_file_io, "--model", q.model_path));
+    roster.input("--data", q.data_path, files::check_input(tenon::codes::prep_file_open, "--data", q.data_path));
     const bool in_place = detail::same_file(q.out_path, q.model_path);
     const std::string rollback = !in_place ? std::string() : q.rollback_path.empty() ? tenon::default_rollback_path(q.model_path) : q.rollback_path;
-    // Output files are claimed first, so an unwritable path fails before training.
-    pending_output json_file, out_probe, rollback_probe;
-    if (!q.json_path.empty() && q.json_path != "-") json_file = pending_output("--json", q.json_path);
-    out_probe = pending_output("--out", q.out_path);
-    if (in_place) rollback_probe = pending_output("--rollback", rollback);
+    pending_output json_file, out_file, rollback_file;
+    if (!q.json_path.empty()) roster.output("--json", json_file = pending_output("--json", q.json_path, &out));
+    roster.output("--out", out_file = pending_output("--out", q.out_path, &out));
+    if (in_place) roster.output("--rollback", rollback_file = pending_output("--rollback", rollback, &out));
+    roster.check("--out", "--model");
+    const bool on_standard_output = json_file.to_standard_output() || out_file.to_standard_output() || rollback_file.to_standard_output();
 
     // The whole file is checked (inspect) before a scalar type is chosen.
     const tenon::model_limits limits;
@@ -2883,41 +3040,21 @@ inline int run_retrain(const std::vector<std::string>& args, std::ostream& out, 
     report.model_path = q.out_path;
     report.rollback_path = rollback;
     report.file_written = report.promoted;
-    const std::string json = q.json_path.empty() ? std::string() : tenon::to_json(report) + "\n";
-    if (json_file.active()) json_file.write(json);  // renamed into place below, after the model
-
+    if (!q.json_path.empty()) json_file.write(tenon::to_json(report) + "\n");
     if (report.promoted) {
-        out_probe.discard();
-        rollback_probe.discard();
-        const auto save = [](const char* option, const std::string& path, const std::vector<std::uint8_t>& content) {
-            try {
-                tenon::write_file_atomically(path, content);
-            } catch (const tenon::error& e) {
-                throw cli_failure(e.code(), std::string(option) + " '" + path + "': " + detail::strip_code(e.what()), exit_output_failed);
-            }
-        };
-        // The incumbent's exact bytes first, so the path never holds a model
-        // without its predecessor kept.
-        if (in_place) save("--rollback", rollback, bytes);
-        save("--out", q.out_path, candidate);
-        try {
-            if (json_file.active()) json_file.commit();
-        } catch (...) {
-            // Undo: the incumbent back in place (or the new file removed).
-            std::error_code ec;
-            if (in_place) {
-                tenon::write_file_atomically(q.model_path, bytes);
-                std::filesystem::remove(rollback, ec);
-            } else {
-                std::filesystem::remove(q.out_path, ec);
-            }
-            throw;
-        }
-    } else if (json_file.active()) {
-        json_file.commit();
+        // The incumbent's exact bytes go to the rollback file before the
+        // candidate replaces it, so the path never holds a model without its
+        // predecessor kept; every file is written and synced first, so a full
+        // disk fails before any file (the older rollback among them) changes.
+        if (in_place) rollback_file.write(bytes);
+        out_file.write(candidate);
+        files::commit_all({&rollback_file, &out_file, &json_file});
+    } else {
+        out_file.discard();
+        rollback_file.discard();
+        files::commit_all({&json_file});
     }
-    if (q.json_path == "-") out << json;
-    else if (!q.quiet) out << detail::retrain_text(report, q, in_place);
+    if (!q.quiet && !on_standard_output) out << detail::retrain_text(report, q, in_place);
     return report.promoted ? exit_success : exit_kept_incumbent;
 }
 
@@ -2929,6 +3066,8 @@ inline int run_drift(const std::vector<std::string>& args, std::ostream& out, st
         out << drift_help();
         return exit_success;
     }
+    files::check_input(tenon::codes::deploy_file_io, "--model", q.model_path);
+    files::check_input(tenon::codes::prep_file_open, "--data", q.data_path);
     const tenon::model_file_summary summary = tenon::inspect_model_file(q.model_path);
     if (summary.references.empty())
         fail(cli_codes::model_unusable, q.model_path + ": the model holds no summaries of its training rows (section REFS), so drift cannot be measured");

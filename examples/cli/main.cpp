@@ -20,6 +20,9 @@
 int main(int argc, char** argv) {
     tenon_cli::cli_environment env;
     env.terminal = TENON_CLI_STDOUT_IS_TERMINAL();
+    // SIGINT, SIGTERM, SIGHUP: the run's temporary files are removed and the
+    // process ends by the same signal (cli_files.hpp); no output changes.
+    tenon_cli::files::remove_temporaries_on_signals();
 #if defined(TENON_HAS_MPI)
     // Under mpirun (`mpirun -np N tenon train ...`) every process trains as
     // one rank of a data-parallel team, holding its share of the rows;

@@ -18,9 +18,13 @@
 
 TENON_NAMESPACE_BEGIN
 
-/// Cell texts that read as "missing" unless a host chooses its own list.
+/// Cell texts that read as "missing" unless a host chooses its own list:
+/// the empty cell and the spellings that spreadsheet and plant exports
+/// commonly write for one (common practice, not a standard). The tool reads
+/// with this list too, so a host's plan and `tenon train`'s are the same.
 inline std::vector<std::string> default_missing_tokens() {
-    return {"", "NA", "N/A", "NaN", "null", "NULL", "?"};
+    return {"",     "NA",   "N/A",  "NaN", "null", "NULL", "?",  "n/a",  "na",
+            "nan",  "NAN",  "none", "None", "NONE", "-",   "--", "#N/A", "missing"};
 }
 
 namespace detail {

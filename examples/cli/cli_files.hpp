@@ -1,0 +1,657 @@
+// The `tenon` tool's input and output files: what it checks before it reads
+// or writes, and how it writes so that a failure never loses a file.
+//
+// Inputs (--data, --model): stat()ed before they are opened. Only regular
+// files are read: a directory, a FIFO (which would block forever without a
+// writer), a device or a socket is refused with a message saying which it is.
+//
+// Outputs: each is resolved before anything is read or trained.
+//   - "-" and /dev/stdout mean the tool's standard output stream;
+//   - an existing non-regular file (a FIFO, a character or block device such
+//     as /dev/null) and any path under /dev/fd/ or /proc/ (descriptor links)
+//     is written directly, never replaced: a FIFO without a reader is refused
+//     rather than waited for;
+//   - anything else is staged: a temporary file ".NAME.tenon-PID-RANDOM.tmp"
+//     beside the file it replaces, created with O_CREAT|O_EXCL|O_NOFOLLOW and
+//     mode 0600 (so a planted symlink or a second run can never share it),
+//     written and fsynced, given its final mode, then renamed over the
+//     destination and the directory fsynced. A symlink given as an output is
+//     followed: the file it (finally) points at is replaced and the link is
+//     left as it is, still pointing at the new contents (deployment links such
+//     as models/current.tnm -> v1.tnm keep working; the retrain rollback file
+//     holds the replaced model). A replaced file keeps its permission bits
+//     (and, when run as root, its owner); a new file gets 0666 less the umask.
+// Files are compared by identity, never by the text of their paths: two
+// existing files are the same when device and inode agree (which also
+// catches hard links and symlinks), and a file that does not exist yet is
+// named by its directory's device and inode and its name.
+//
+// Temporary files of a run are listed in a fixed table that the handler of
+// SIGINT, SIGTERM and SIGHUP (installed by main.cpp) unlinks before the
+// process ends with the same signal. A SIGKILL cannot be caught: the next run
+// writing the same output removes temporary files of that output whose name
+// carries the id of a process that no longer exists and that the user owns.
+#pragma once
+
+#include <cctype>
+#include <cerrno>
+#include <csignal>
+#include <cstdint>
+#include <cstdio>
+#include <cstring>
+#include <memory>
+#include <random>
+#include <streambuf>
+#include <ostream>
+#include <sstream>
+#include <string>
+#include <vector>
+
+#include <dirent.h>
+#include <fcntl.h>
+#include <signal.h>
+#include <sys/stat.h>
+#include <unistd.h>
+
+namespace tenon_cli {
+namespace files {
+
+/// Where a file is: device and inode when it exists; else the directory's
+/// device and inode and the name.
+struct file_key {
+    bool exists = false;
+    std::uint64_t device = 0, inode = 0;
+    std::string name;
+    bool same_as(const file_key& o) const {
+        return exists == o.exists && device == o.device && inode == o.inode && name == o.name;
+    }
+};
+
+inline std::string reason(int e) { return std::strerror(e); }
+
+inline file_key key_of(const struct stat& st) {
+    file_key k;
+    k.exists = true;
+    k.device = static_cast<std::uint64_t>(st.st_dev);
+    k.inode = static_cast<std::uint64_t>(st.st_ino);
+    return k;
+}
+
+inline std::string kind_name(mode_t mode) {
+    if (S_ISDIR(mode)) return "a directory";
+    if (S_ISFIFO(mode)) return "a FIFO (named pipe)";
+    if (S_ISCHR(mode)) return "a character device";
+    if (S_ISBLK(mode)) return "a block device";
+    if (S_ISSOCK(mode)) return "a socket";
+    return "not a regular file";
+}
+
+/// Checks that `path` (given as `option`) is a readable regular file, before
+/// it is opened; returns its identity. Raises `code` with exit status 2.
+inline file_key check_input(const char* code, const std::string& option, const std::string& path) {
+    struct stat st {};
+    if (::stat(path.c_str(), &st) != 0) {
+        const int e = errno;
+        throw cli_failure(code, option + " '" + path + "': cannot read it (" + reason(e) + ")", exit_bad_input);
+    }
+    if (!S_ISREG(st.st_mode))
+        throw cli_failure(code, option + " '" + path + "' is " + kind_name(st.st_mode) + ", not a regular file, so it cannot be read as input",
+                          exit_bad_input);
+    if (::access(path.c_str(), R_OK) != 0) {
+        const int e = errno;
+        throw cli_failure(code, option + " '" + path + "': cannot read it (" + reason(e) + ")", exit_bad_input);
+    }
+    return key_of(st);
+}
+
+// ---------------------------------------------------------------------------
+// Temporary files removed by the signal handler. A fixed table, because the
+// handler may only call async-signal-safe functions (unlink, signal, raise;
+// POSIX.1-2017 section 2.4.3): no allocation there. Changes are made with
+// the three signals blocked, so the handler never sees half a path.
+
+namespace detail {
+inline constexpr int temporary_slots = 32;
+inline constexpr std::size_t temporary_path_bytes = 4096;
+struct temporary_table {
+    char paths[temporary_slots][temporary_path_bytes];
+    volatile std::sig_atomic_t used[temporary_slots];
+};
+inline temporary_table& temporaries() {
+    static temporary_table table{};
+    return table;
+}
+class signals_blocked {
+public:
+    signals_blocked() {
+        sigset_t s;
+        sigemptyset(&s);
+        sigaddset(&s, SIGINT);
+        sigaddset(&s, SIGTERM);
+        sigaddset(&s, SIGHUP);
+        ::sigprocmask(SIG_BLOCK, &s, &saved_);
+    }
+    ~signals_blocked() { ::sigprocmask(SIG_SETMASK, &saved_, nullptr); }
+    signals_blocked(const signals_blocked&) = delete;
+    signals_blocked& operator=(const signals_blocked&) = delete;
+
+private:
+    sigset_t saved_;
+};
+inline int register_temporary(const std::string& path) {
+    if (path.size() >= temporary_path_bytes) return -1;
+    signals_blocked blocked;
+    temporary_table& t = temporaries();
+    for (int k = 0; k < temporary_slots; ++k)
+        if (!t.used[k]) {
+            std::memcpy(t.paths[k], path.c_str(), path.size() + 1);
+            t.used[k] = 1;
+            return k;
+        }
+    return -1;
+}
+inline void unregister_temporary(int slot) {
+    if (slot < 0) return;
+    signals_blocked blocked;
+    temporaries().used[slot] = 0;
+}
+extern "C" inline void remove_temporaries_and_end(int signal_number) {
+    temporary_table& t = temporaries();
+    for (int k = 0; k < temporary_slots; ++k)
+        if (t.used[k]) ::unlink(t.paths[k]);
+    std::signal(signal_number, SIG_DFL);
+    std::raise(signal_number);
+}
+}  // namespace detail
+
+/// Installs the handler of SIGINT, SIGTERM and SIGHUP (main.cpp calls it):
+/// it removes the run's temporary files and ends the process by the same
+/// signal, so the caller sees the usual status (a shell shows 128 + N: 130
+/// for SIGINT, 143 for SIGTERM, 129 for SIGHUP). No output file is changed.
+inline void remove_temporaries_on_signals() {
+    struct sigaction a {};
+    a.sa_handler = detail::remove_temporaries_and_end;
+    sigfillset(&a.sa_mask);  // one handler at a time
+    for (const int s : {SIGINT, SIGTERM, SIGHUP}) {
+        struct sigaction old {};
+        ::sigaction(s, nullptr, &old);
+        if (old.sa_handler == SIG_IGN) continue;  // e.g. started under nohup: stay ignored
+        ::sigaction(s, &a, nullptr);
+    }
+}
+
+// ---------------------------------------------------------------------------
+// Stale temporary files
+
+inline bool process_exists(long pid) {
+    if (pid <= 0) return true;  // not a process id: never treated as gone
+    return ::kill(static_cast<pid_t>(pid), 0) == 0 || errno == EPERM;
+}
+
+/// The process id in `file_name` when it is a temporary file of `name`
+/// (".NAME.tenon-PID-HEX.tmp" of this tool, or "NAME.tmp-PID-N" of
+/// tenon::write_file_atomically); else -1.
+inline long temporary_owner(const std::string& file_name, const std::string& name) {
+    const auto digits_at = [&](std::size_t p, std::size_t& end) {
+        end = p;
+        while (end < file_name.size() && file_name[end] >= '0' && file_name[end] <= '9') ++end;
+        if (end == p || end - p > 9) return -1L;
+        return std::stol(file_name.substr(p, end - p));
+    };
+    std::size_t end = 0;
+    const std::string ours = "." + name + ".tenon-";
+    if (file_name.compare(0, ours.size(), ours) == 0) {
+        const long pid = digits_at(ours.size(), end);
+        if (pid < 0 || end >= file_name.size() || file_name[end] != '-') return -1;
+        const std::size_t hex_end = file_name.find(".tmp", end + 1);
+        if (hex_end != file_name.size() - 4 || hex_end == end + 1) return -1;
+        for (std::size_t k = end + 1; k < hex_end; ++k)
+            if (!std::isxdigit(static_cast<unsigned char>(file_name[k]))) return -1;
+        return pid;
+    }
+    const std::string library = name + ".tmp-";
+    if (file_name.compare(0, library.size(), library) == 0) {
+        const long pid = digits_at(library.size(), end);
+        if (pid < 0 || end >= file_name.size() || file_name[end] != '-') return -1;
+        std::size_t counter_end = 0;
+        if (digits_at(end + 1, counter_end) < 0 || counter_end != file_name.size()) return -1;
+        return pid;
+    }
+    return -1;
+}
+
+/// Removes the temporary files of `name` in `directory` left by processes
+/// that no longer exist (a SIGKILL, a power loss), when they are regular
+/// files of this user. A process id that was reused keeps its files: they
+/// are left rather than risk removing a live run's file.
+inline std::size_t remove_stale_temporaries(const std::string& directory, const std::string& name) {
+    DIR* d = ::opendir(directory.c_str());
+    if (!d) return 0;
+    std::size_t removed = 0;
+    std::vector<std::string> stale;
+    while (const dirent* e = ::readdir(d)) {
+        const std::string file_name = e->d_name;
+        const long pid = temporary_owner(file_name, name);
+        if (pid < 0 || process_exists(pid)) continue;
+        stale.push_back(file_name);
+    }
+    ::closedir(d);
+    for (const auto& file_name : stale) {
+        const std::string path = directory + "/" + file_name;
+        struct stat st {};
+        if (::lstat(path.c_str(), &st) != 0 || !S_ISREG(st.st_mode) || st.st_uid != ::geteuid()) continue;
+        if (::unlink(path.c_str()) == 0) ++removed;
+    }
+    return removed;
+}
+
+// ---------------------------------------------------------------------------
+// Outputs
+
+/// A stream buffer writing to a file descriptor (the temporary file),
+/// remembering the first failure.
+class descriptor_buffer : public std::streambuf {
+public:
+    explicit descriptor_buffer(int fd = -1) : fd_(fd) { setp(buffer_, buffer_ + sizeof(buffer_)); }
+    void reset(int fd) {
+        fd_ = fd;
+        failed_ = 0;
+        setp(buffer_, buffer_ + sizeof(buffer_));
+    }
+    int error() const noexcept { return failed_; }
+
+protected:
+    int_type overflow(int_type c) override {
+        if (!drain()) return traits_type::eof();
+        if (!traits_type::eq_int_type(c, traits_type::eof())) {
+            *pptr() = traits_type::to_char_type(c);
+            pbump(1);
+        }
+        return traits_type::not_eof(c);
+    }
+    int sync() override { return drain() ? 0 : -1; }
+
+private:
+    bool drain() {
+        const char* p = pbase();
+        std::size_t left = static_cast<std::size_t>(pptr() - pbase());
+        while (left > 0 && failed_ == 0) {
+            const ssize_t n = ::write(fd_, p, left);
+            if (n < 0) {
+                if (errno == EINTR) continue;
+                failed_ = errno ? errno : EIO;
+                break;
+            }
+            p += n;
+            left -= static_cast<std::size_t>(n);
+        }
+        setp(buffer_, buffer_ + sizeof(buffer_));
+        return failed_ == 0;
+    }
+    int fd_;
+    int failed_ = 0;
+    char buffer_[1 << 16];
+};
+
+enum class output_kind { none, staged, direct, standard_output };
+
+/// Where an output goes, resolved before anything is trained.
+struct output_place {
+    output_kind kind = output_kind::none;
+    std::string given;      // as the user wrote it
+    std::string target;     // the file replaced (symlinks followed) or written
+    std::string directory;  // of target (staged)
+    std::string name;       // of target (staged)
+    bool exists = false;
+    struct stat status {};
+    file_key key;
+};
+
+inline std::string directory_part(const std::string& path) {
+    const auto slash = path.find_last_of('/');
+    if (slash == std::string::npos) return ".";
+    if (slash == 0) return "/";
+    return path.substr(0, slash);
+}
+inline std::string name_part(const std::string& path) {
+    const auto slash = path.find_last_of('/');
+    return slash == std::string::npos ? path : path.substr(slash + 1);
+}
+
+[[noreturn]] inline void output_failure(const std::string& option, const std::string& path, const std::string& what) {
+    throw cli_failure(cli_codes::output_write, option + " '" + path + "': " + what, exit_output_failed);
+}
+
+inline output_place resolve_output(const std::string& option, const std::string& path) {
+    output_place p;
+    p.given = path;
+    p.target = path;
+    if (path == "-" || path == "/dev/stdout") {
+        p.kind = output_kind::standard_output;
+        struct stat st {};
+        if (::fstat(STDOUT_FILENO, &st) == 0) p.key = key_of(st);
+        else p.key.name = "<standard output>";
+        return p;
+    }
+    struct stat st {};
+    const bool descriptor_link = path.rfind("/dev/fd/", 0) == 0 || path.rfind("/proc/", 0) == 0 || path.rfind("/dev/std", 0) == 0;
+    if (::stat(path.c_str(), &st) == 0) {
+        if (S_ISDIR(st.st_mode)) output_failure(option, path, "is a directory; give a file name");
+        if (!S_ISREG(st.st_mode) || descriptor_link) {
+            if (S_ISSOCK(st.st_mode)) output_failure(option, path, "is a socket, which cannot be written as a file");
+            p.kind = output_kind::direct;
+            p.exists = true;
+            p.status = st;
+            p.key = key_of(st);
+            return p;
+        }
+    } else if (descriptor_link) {
+        output_failure(option, path, "cannot be opened (" + reason(errno) + ")");
+    }
+    // Follow the symlinks of the last component to the file replaced.
+    std::string target = path;
+    for (int hops = 0;; ++hops) {
+        struct stat l {};
+        if (::lstat(target.c_str(), &l) != 0) {
+            if (errno != ENOENT) output_failure(option, path, "cannot be examined (" + reason(errno) + ")");
+            break;
+        }
+        if (!S_ISLNK(l.st_mode)) {
+            p.exists = true;
+            break;
+        }
+        if (hops >= 40) output_failure(option, path, "too many levels of symbolic links");
+        std::vector<char> buffer(static_cast<std::size_t>(l.st_size > 0 ? l.st_size : 255) + 2);
+        const ssize_t n = ::readlink(target.c_str(), buffer.data(), buffer.size() - 1);
+        if (n < 0) output_failure(option, path, "cannot read the symbolic link '" + target + "' (" + reason(errno) + ")");
+        const std::string link(buffer.data(), static_cast<std::size_t>(n));
+        target = link.empty() || link[0] == '/' ? link : directory_part(target) + "/" + link;
+    }
+    p.target = target;
+    p.directory = directory_part(target);
+    p.name = name_part(target);
+    if (p.name.empty() || p.name == "." || p.name == "..") output_failure(option, path, "names a directory; give a file name");
+    struct stat d {};
+    if (::stat(p.directory.c_str(), &d) != 0) {
+        const int e = errno;
+        output_failure(option, path, e == ENOENT ? "the directory '" + p.directory + "' does not exist"
+                                                 : "cannot reach the directory '" + p.directory + "' (" + reason(e) + ")");
+    }
+    if (!S_ISDIR(d.st_mode)) output_failure(option, path, "'" + p.directory + "' is not a directory");
+    if (p.exists) {
+        if (::stat(target.c_str(), &p.status) != 0) output_failure(option, path, "cannot be examined (" + reason(errno) + ")");
+        if (S_ISDIR(p.status.st_mode)) output_failure(option, path, "is a directory; give a file name");
+        p.key = key_of(p.status);
+    } else {
+        p.key.device = static_cast<std::uint64_t>(d.st_dev);
+        p.key.inode = static_cast<std::uint64_t>(d.st_ino);
+        p.key.name = p.name;
+    }
+    p.kind = output_kind::staged;
+    return p;
+}
+
+inline mode_t current_umask() {
+    const mode_t m = ::umask(022);
+    ::umask(m);
+    return m;
+}
+
+inline std::string random_hex() {
+    std::random_device device;  // /dev/urandom on Linux with libstdc++
+    const std::uint64_t v = (static_cast<std::uint64_t>(device()) << 32) ^ device();
+    char text[17];
+    std::snprintf(text, sizeof(text), "%016llx", static_cast<unsigned long long>(v));
+    return text;
+}
+
+/// One output file of a run: claimed (resolved, and its temporary file
+/// created) before training; written; then committed (moved into place) or,
+/// when the run fails, discarded: only the temporary file is removed, never
+/// a file the run did not create.
+class pending_output {
+public:
+    pending_output() = default;
+    /// `standard_output` receives the contents for "-" and /dev/stdout.
+    pending_output(std::string option, const std::string& destination, std::ostream* standard_output = nullptr)
+        : option_(std::move(option)), place_(resolve_output(option_, destination)), standard_output_(standard_output) {
+        if (place_.kind == output_kind::staged) create_temporary();
+        active_ = true;
+    }
+    pending_output(const pending_output&) = delete;
+    pending_output& operator=(const pending_output&) = delete;
+    pending_output(pending_output&& o) noexcept { *this = std::move(o); }
+    pending_output& operator=(pending_output&& o) noexcept {
+        if (this == &o) return *this;
+        discard();
+        option_ = std::move(o.option_);
+        place_ = std::move(o.place_);
+        standard_output_ = o.standard_output_;
+        temporary_ = std::move(o.temporary_);
+        fd_ = o.fd_;
+        slot_ = o.slot_;
+        mode_ = o.mode_;
+        memory_ = std::move(o.memory_);
+        active_ = o.active_;
+        o.fd_ = -1;
+        o.slot_ = -1;
+        o.active_ = false;
+        stream_.reset();
+        if (fd_ >= 0) buffer_.reset(fd_);
+        return *this;
+    }
+    ~pending_output() { discard(); }
+
+    bool active() const noexcept { return active_; }
+    const std::string& destination() const noexcept { return place_.given; }
+    const output_place& place() const noexcept { return place_; }
+    bool to_standard_output() const noexcept { return active_ && place_.kind == output_kind::standard_output; }
+
+    void write(const std::string& content) {
+        std::ostream& s = stream();
+        s.write(content.data(), static_cast<std::streamsize>(content.size()));
+        finish_stream();
+    }
+    void write(const std::vector<std::uint8_t>& bytes) {
+        std::ostream& s = stream();
+        s.write(reinterpret_cast<const char*>(bytes.data()), static_cast<std::streamsize>(bytes.size()));
+        finish_stream();
+    }
+    /// The contents as a stream, for output written piece by piece; end with
+    /// finish_stream(), then commit().
+    std::ostream& stream() {
+        if (!stream_) {
+            if (place_.kind == output_kind::staged) stream_.reset(new std::ostream(&buffer_));
+            else stream_.reset(new std::ostream(&memory_));
+        }
+        return *stream_;
+    }
+    void finish_stream() {
+        if (!stream_) return;
+        stream_->flush();
+        if (place_.kind == output_kind::staged && (buffer_.error() != 0 || !*stream_))
+            output_failure(option_, place_.given, "writing the temporary file '" + temporary_ + "' failed (" + reason(buffer_.error() ? buffer_.error() : EIO) +
+                                                      "); the previous file is unchanged");
+    }
+    /// Makes the contents durable in the temporary file (staged outputs):
+    /// every output of a run is synced before the first is moved into place.
+    void sync() {
+        if (place_.kind != output_kind::staged || fd_ < 0) return;
+        finish_stream();
+        if (::fchmod(fd_, mode_) != 0) output_failure(option_, place_.given, "cannot set the mode of '" + temporary_ + "' (" + reason(errno) + ")");
+        if (place_.exists && ::geteuid() == 0) {
+            // root keeps the owner of the file it replaces; a failure leaves root's.
+            if (::fchown(fd_, place_.status.st_uid, place_.status.st_gid) != 0) {
+            }
+        }
+        if (::fsync(fd_) != 0) output_failure(option_, place_.given, "fsync of '" + temporary_ + "' failed (" + reason(errno) + "); the previous file is unchanged");
+    }
+    void commit() {
+        if (!active_) return;
+        switch (place_.kind) {
+            case output_kind::standard_output:
+                if (standard_output_) {
+                    const std::string text = memory_.str();
+                    standard_output_->write(text.data(), static_cast<std::streamsize>(text.size()));
+                    standard_output_->flush();
+                }
+                break;
+            case output_kind::direct:
+                write_directly();
+                break;
+            case output_kind::staged: {
+                sync();
+                const int fd = fd_;
+                fd_ = -1;
+                if (::close(fd) != 0) output_failure(option_, place_.given, "closing '" + temporary_ + "' failed (" + reason(errno) + ")");
+                if (::rename(temporary_.c_str(), place_.target.c_str()) != 0)
+                    output_failure(option_, place_.given, "cannot move '" + temporary_ + "' into place (" + reason(errno) + ")");
+                detail::unregister_temporary(slot_);
+                slot_ = -1;
+                const int dir = ::open(place_.directory.c_str(), O_RDONLY | O_CLOEXEC);
+                if (dir >= 0) {
+                    ::fsync(dir);
+                    ::close(dir);
+                }
+                break;
+            }
+            case output_kind::none:
+                break;
+        }
+        active_ = false;
+    }
+    /// Forgets the output: removes its temporary file (never the destination).
+    void discard() noexcept {
+        if (!active_) return;
+        stream_.reset();
+        if (fd_ >= 0) ::close(fd_);
+        fd_ = -1;
+        if (!temporary_.empty()) ::unlink(temporary_.c_str());
+        detail::unregister_temporary(slot_);
+        slot_ = -1;
+        active_ = false;
+    }
+
+private:
+    void create_temporary() {
+        if (place_.exists) {
+            // In a sticky directory (as /tmp) only the file's owner, the
+            // directory's owner or root may replace a file (POSIX rename(),
+            // EPERM): found now, before training, not at the final rename.
+            struct stat d {};
+            const uid_t me = ::geteuid();
+            if (::stat(place_.directory.c_str(), &d) == 0 && (d.st_mode & S_ISVTX) && me != 0 && me != d.st_uid && me != place_.status.st_uid)
+                output_failure(option_, place_.given, "cannot be replaced: it belongs to another user and its directory '" + place_.directory +
+                                                          "' is sticky (Operation not permitted)");
+        }
+        remove_stale_temporaries(place_.directory, place_.name);
+        mode_ = place_.exists ? static_cast<mode_t>(place_.status.st_mode & 07777) : static_cast<mode_t>(0666 & ~current_umask());
+        for (int attempt = 0; attempt < 16; ++attempt) {
+            const std::string candidate =
+                place_.directory + "/." + place_.name + ".tenon-" + std::to_string(static_cast<long>(::getpid())) + "-" + random_hex() + ".tmp";
+            const int fd = ::open(candidate.c_str(), O_WRONLY | O_CREAT | O_EXCL | O_NOFOLLOW | O_CLOEXEC, 0600);
+            if (fd >= 0) {
+                temporary_ = candidate;
+                fd_ = fd;
+                slot_ = detail::register_temporary(temporary_);
+                buffer_.reset(fd_);
+                return;
+            }
+            if (errno != EEXIST) {
+                const int e = errno;
+                output_failure(option_, place_.given, "cannot create a file in the directory '" + place_.directory + "' (" + reason(e) + ")");
+            }
+        }
+        output_failure(option_, place_.given, "cannot create a temporary file in '" + place_.directory + "' (every name tried exists)");
+    }
+    void write_directly() {
+        // O_NONBLOCK: a FIFO without a reader fails with ENXIO instead of
+        // waiting forever; blocking writes are restored after the open.
+        const int fd = ::open(place_.target.c_str(), O_WRONLY | O_NOCTTY | O_CLOEXEC | O_NONBLOCK | (S_ISREG(place_.status.st_mode) ? O_APPEND : 0));
+        if (fd < 0) {
+            const int e = errno;
+            output_failure(option_, place_.given, e == ENXIO ? "is a FIFO with no reader" : "cannot be opened for writing (" + reason(e) + ")");
+        }
+        const int flags = ::fcntl(fd, F_GETFL);
+        if (flags >= 0) ::fcntl(fd, F_SETFL, flags & ~O_NONBLOCK);
+        descriptor_buffer b(fd);
+        std::ostream s(&b);
+        s << memory_.str();
+        s.flush();
+        const int e = b.error();
+        ::close(fd);
+        if (e != 0 || !s) output_failure(option_, place_.given, "writing failed (" + reason(e ? e : EIO) + ")");
+    }
+
+    std::string option_;
+    output_place place_;
+    std::ostream* standard_output_ = nullptr;
+    std::string temporary_;
+    int fd_ = -1;
+    int slot_ = -1;
+    mode_t mode_ = 0644;
+    descriptor_buffer buffer_;
+    std::stringbuf memory_;
+    std::unique_ptr<std::ostream> stream_;
+    bool active_ = false;
+};
+
+/// The files of one run, for the identity checks: inputs and outputs.
+class file_roster {
+public:
+    void input(const std::string& option, const std::string& path, const file_key& key) { entries_.push_back({option, path, key, false}); }
+    void output(const std::string& option, const pending_output& o) {
+        if (o.active()) entries_.push_back({option, o.destination(), o.place().key, true});
+    }
+    /// Fails when an output is the same file as an input or another output
+    /// (except the pair of options `allowed`, e.g. an in-place retrain).
+    void check(const std::string& allowed_a = {}, const std::string& allowed_b = {}) const {
+        for (std::size_t a = 0; a < entries_.size(); ++a)
+            for (std::size_t b = a + 1; b < entries_.size(); ++b) {
+                const entry& x = entries_[a];
+                const entry& y = entries_[b];
+                if (!x.is_output && !y.is_output) continue;
+                if (!x.key.same_as(y.key)) continue;
+                if (!allowed_a.empty() && ((x.option == allowed_a && y.option == allowed_b) || (x.option == allowed_b && y.option == allowed_a))) continue;
+                const std::string same = x.path == y.path ? "'" + x.path + "'" : "'" + x.path + "' and '" + y.path + "' (the same file)";
+                throw cli_failure(cli_codes::option_conflict, x.option + " and " + y.option + " name the same file: " + same, exit_bad_input);
+            }
+    }
+
+private:
+    struct entry {
+        std::string option, path;
+        file_key key;
+        bool is_output;
+    };
+    std::vector<entry> entries_;
+};
+
+/// Commits the outputs in order. Every one was written and synced first, so
+/// a failure here is a failing rename (a file system error). Outputs already
+/// moved stay in place, complete; the message names them. Nothing the run did
+/// not create is removed.
+inline void commit_all(std::vector<pending_output*> outputs) {
+    for (auto* o : outputs)
+        if (o->active()) o->sync();
+    std::vector<std::string> placed;
+    for (auto* o : outputs) {
+        if (!o->active()) continue;
+        try {
+            o->commit();
+        } catch (const cli_failure& e) {
+            std::string message = e.what();
+            const auto close = message.find("] ");
+            if (close != std::string::npos) message = message.substr(close + 2);
+            if (!placed.empty()) {
+                message += "; already written: ";
+                for (std::size_t k = 0; k < placed.size(); ++k) message += (k ? ", '" : "'") + placed[k] + "'";
+            }
+            throw cli_failure(e.code(), message, e.exit_status());
+        }
+        placed.push_back(o->destination());
+    }
+}
+
+}  // namespace files
+}  // namespace tenon_cli
