@@ -87,23 +87,9 @@ inline init_distribution parse_init_distribution(const std::string& name) {
     raise(codes::model_unknown_kind, "initializer distribution '" + name + "' is not known (uniform, normal)");
 }
 
-/// The initializer a stored method name and distribution name give. Names
-/// written before the method and its distribution were separate
-/// ("glorot_uniform", "he_normal", ...) map to the same method and
-/// distribution, so older records keep loading.
+/// The initializer a method name and distribution name give (model files
+/// store no initializer, so no earlier spelling needs reading).
 inline initializer parse_initializer(const std::string& name, const std::string& distribution = "uniform") {
-    static const struct {
-        const char* old_name;
-        init_scheme scheme;
-        init_distribution distribution;
-    } earlier[] = {
-        {"glorot_uniform", init_scheme::glorot, init_distribution::uniform}, {"glorot_normal", init_scheme::glorot, init_distribution::normal},
-        {"he_uniform", init_scheme::he, init_distribution::uniform},         {"he_normal", init_scheme::he, init_distribution::normal},
-        {"lecun_uniform", init_scheme::lecun, init_distribution::uniform},   {"lecun_normal", init_scheme::lecun, init_distribution::normal},
-    };
-    for (const auto& e : earlier) {
-        if (name == e.old_name) return initializer{e.scheme, e.distribution, 0.0};
-    }
     return initializer{parse_init_scheme(name), parse_init_distribution(distribution), 0.0};
 }
 
