@@ -127,9 +127,14 @@ extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size
     tenon_cli::cli_environment env;
     env.clock = [] { return 0.0; };
     const int status = tenon_cli::run_cli(static_cast<int>(args.size()), argv.data(), out, err, env);
-    // 0 success, 2 bad input, 3 an output could not be written; 1 means the
-    // tool met something it did not expect, which is a finding too.
-    if (status != 0 && status != 2 && status != 3) {
+    // Every documented status is an answer (success, bad input, an output
+    // not written, a retrain that kept the incumbent, drift flagged);
+    // exit_unexpected means the tool met something it did not expect, which
+    // is a finding, and so is any other number.
+    const bool documented = status == tenon_cli::exit_success || status == tenon_cli::exit_bad_input ||
+                            status == tenon_cli::exit_output_failed || status == tenon_cli::exit_kept_incumbent ||
+                            status == tenon_cli::exit_drift_flagged;
+    if (!documented) {
         std::fprintf(stderr, "run_cli exit status %d: %s\n", status, err.str().c_str());
         std::abort();
     }
