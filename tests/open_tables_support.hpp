@@ -454,6 +454,34 @@ public:
         return total / static_cast<double>(p.rows);
     }
 
+    /// Self-check of the backward pass: the largest difference between its
+    /// gradient of the mean loss over all rows of `p` and central differences
+    /// (step 1e-6), relative to max(1, |gradient|).
+    double gradient_discrepancy(const prepared& p) {
+        std::vector<std::size_t> all(p.rows);
+        std::iota(all.begin(), all.end(), std::size_t(0));
+        accumulate_gradient(p, all, 0, p.rows);
+        double worst = 0;
+        const double h = 1e-6;
+        auto probe = [&](std::vector<double>& x, const std::vector<double>& g) {
+            for (std::size_t i = 0; i < x.size(); ++i) {
+                const double kept = x[i];
+                x[i] = kept + h;
+                const double up = mean_loss(p);
+                x[i] = kept - h;
+                const double down = mean_loss(p);
+                x[i] = kept;
+                const double numeric = (up - down) / (2 * h);
+                worst = std::max(worst, std::abs(numeric - g[i]) / std::max(1.0, std::abs(g[i])));
+            }
+        };
+        for (auto& L : layers_) {
+            probe(L.w, L.gw);
+            probe(L.b, L.gb);
+        }
+        return worst;
+    }
+
 private:
     struct layer {
         std::size_t in = 0, out = 0;
@@ -487,6 +515,24 @@ private:
     }
 
     void step(const prepared& p, const std::vector<std::size_t>& order, std::size_t start, std::size_t end) {
+        accumulate_gradient(p, order, start, end);
+        ++t_;
+        const double c1 = 1.0 - std::pow(0.9, static_cast<double>(t_)), c2 = 1.0 - std::pow(0.999, static_cast<double>(t_));
+        auto adam = [&](std::vector<double>& x, const std::vector<double>& g, std::vector<double>& m, std::vector<double>& v) {
+            for (std::size_t i = 0; i < x.size(); ++i) {
+                m[i] = 0.9 * m[i] + 0.1 * g[i];
+                v[i] = 0.999 * v[i] + 0.001 * g[i] * g[i];
+                x[i] -= s_.step * (m[i] / c1) / (std::sqrt(v[i] / c2) + 1e-8);
+            }
+        };
+        for (auto& L : layers_) {
+            adam(L.w, L.gw, L.mw, L.vw);
+            adam(L.b, L.gb, L.mb, L.vb);
+        }
+    }
+
+    // Gradient of the mean loss over rows order[start, end) into gw and gb.
+    void accumulate_gradient(const prepared& p, const std::vector<std::size_t>& order, std::size_t start, std::size_t end) {
         for (auto& L : layers_) {
             std::fill(L.gw.begin(), L.gw.end(), 0.0);
             std::fill(L.gb.begin(), L.gb.end(), 0.0);
@@ -517,19 +563,6 @@ private:
                     for (std::size_t i = 0; i < L.in; ++i) below_delta[i] = in[i] > 0.0 ? below_delta[i] : 0.0;
                 delta.swap(below_delta);
             }
-        }
-        ++t_;
-        const double c1 = 1.0 - std::pow(0.9, static_cast<double>(t_)), c2 = 1.0 - std::pow(0.999, static_cast<double>(t_));
-        auto adam = [&](std::vector<double>& x, const std::vector<double>& g, std::vector<double>& m, std::vector<double>& v) {
-            for (std::size_t i = 0; i < x.size(); ++i) {
-                m[i] = 0.9 * m[i] + 0.1 * g[i];
-                v[i] = 0.999 * v[i] + 0.001 * g[i] * g[i];
-                x[i] -= s_.step * (m[i] / c1) / (std::sqrt(v[i] / c2) + 1e-8);
-            }
-        };
-        for (auto& L : layers_) {
-            adam(L.w, L.gw, L.mw, L.vw);
-            adam(L.b, L.gb, L.mb, L.vb);
         }
     }
 

@@ -31,6 +31,7 @@
 #include <cstdlib>
 #include <map>
 #include <numeric>
+#include <random>
 #include <string>
 #include <vector>
 
@@ -368,4 +369,39 @@ TEST_CASE("open table, small regression on categorical inputs: Immer's barley tr
     const dataset d = barley();
     REQUIRE(d.rows() == 120);  // Immer et al. (1934): 10 varieties x 6 sites x 2 years
     check_bar(compare(d));
+}
+
+// The yardsticks checked on their own, so that a bar missed is tenon's and not theirs.
+TEST_CASE("open tables' yardsticks: the reference perceptron's backward pass matches central differences") {
+    std::mt19937_64 engine(7);
+    const auto uniform = [&] { return static_cast<double>(engine() >> 11) * 0x1.0p-53 * 2.0 - 1.0; };
+    for (const bool classify : {false, true}) {
+        prepared p;
+        p.rows = 9;
+        p.width = 4;
+        for (std::size_t i = 0; i < p.rows * p.width; ++i) p.x.push_back(uniform());
+        for (std::size_t i = 0; i < p.rows; ++i) {
+            p.y.push_back(uniform());
+            p.label.push_back(i % 3);
+        }
+        reference_perceptron reference(p.width, classify ? 3 : 1, classify, 11, reference_settings{{5, 4}});
+        CHECK(reference.gradient_discrepancy(p) < 1e-6);
+    }
+}
+
+TEST_CASE("open tables' yardsticks: least squares recovers an exact linear relation and ignores a constant column") {
+    // y = 3 + 2 x1 - x2 on z-scored inputs; the third column is constant, which
+    // the small ridge keeps solvable. The fit stays within the ridge's pull.
+    prepared train, test;
+    train.width = test.width = 3;
+    std::mt19937_64 engine(3);
+    for (std::size_t i = 0; i < 50; ++i) {
+        const double a = static_cast<double>(engine() >> 11) * 0x1.0p-53, b = static_cast<double>(engine() >> 11) * 0x1.0p-53;
+        prepared& into = i < 40 ? train : test;
+        into.x.insert(into.x.end(), {a, b, 1.0});
+        into.y.push_back(3 + 2 * a - b);
+        ++into.rows;
+    }
+    const auto predicted = least_squares_predictions(train, test, 10.0, 2.0);  // back to units: 10 + 2 y
+    for (std::size_t i = 0; i < test.rows; ++i) CHECK(predicted[i] == doctest::Approx(10.0 + 2.0 * test.y[i]).epsilon(1e-3));
 }
