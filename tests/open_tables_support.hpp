@@ -373,6 +373,79 @@ inline std::vector<double> least_squares_predictions(const prepared& train, cons
     return out;
 }
 
+/// Multinomial logistic regression on the prepared features (the plain
+/// classification baseline issue 19 names): the mean cross-entropy plus a
+/// small ridge (1e-4 / 2 |W|^2) that keeps separable classes finite, which
+/// makes the objective strictly convex; minimized by Newton's method with a
+/// backtracking (Armijo) line search (Nocedal & Wright 2006, Algorithms 3.1
+/// and 3.2), whose Hessian blocks for classes a, b are
+/// X^T diag(p_a (delta_ab - p_b)) X / n + ridge.
+struct logistic_fit {
+    Eigen::MatrixXd weights;  // (width + 1) x classes, bias in row 0
+    double gradient_norm = 0.0;
+    std::size_t iterations = 0;
+
+    std::vector<std::size_t> predict(const prepared& p) const {
+        std::vector<std::size_t> out(p.rows);
+        for (std::size_t i = 0; i < p.rows; ++i) {
+            Eigen::VectorXd z = weights.row(0).transpose();
+            for (std::size_t j = 0; j < p.width; ++j) z += p.x[i * p.width + j] * weights.row(static_cast<Eigen::Index>(j + 1)).transpose();
+            Eigen::Index best = 0;
+            z.maxCoeff(&best);
+            out[i] = static_cast<std::size_t>(best);
+        }
+        return out;
+    }
+};
+
+inline logistic_fit fit_logistic(const prepared& train, std::size_t classes) {
+    const auto n = static_cast<Eigen::Index>(train.rows), w = static_cast<Eigen::Index>(train.width) + 1;
+    const auto k = static_cast<Eigen::Index>(classes);
+    Eigen::MatrixXd x(n, w), onehot = Eigen::MatrixXd::Zero(n, k);
+    for (Eigen::Index i = 0; i < n; ++i) {
+        x(i, 0) = 1.0;
+        for (Eigen::Index j = 1; j < w; ++j) x(i, j) = train.x[static_cast<std::size_t>(i * (w - 1) + j - 1)];
+        onehot(i, static_cast<Eigen::Index>(train.label[static_cast<std::size_t>(i)])) = 1.0;
+    }
+    const double ridge = 1e-4, rows = static_cast<double>(n);
+    const auto probabilities = [&](const Eigen::MatrixXd& weights) {
+        Eigen::MatrixXd z = x * weights;
+        for (Eigen::Index i = 0; i < n; ++i) {
+            z.row(i) = (z.row(i).array() - z.row(i).maxCoeff()).exp().matrix();
+            z.row(i) /= z.row(i).sum();
+        }
+        return z;
+    };
+    const auto objective = [&](const Eigen::MatrixXd& weights) {
+        const Eigen::MatrixXd p = probabilities(weights);
+        double loss = 0;
+        for (Eigen::Index i = 0; i < n; ++i) loss -= std::log(std::max(1e-300, (p.row(i).array() * onehot.row(i).array()).sum()));
+        return loss / rows + 0.5 * ridge * weights.squaredNorm();
+    };
+    logistic_fit fit;
+    fit.weights = Eigen::MatrixXd::Zero(w, k);
+    for (fit.iterations = 0; fit.iterations < 100; ++fit.iterations) {
+        const Eigen::MatrixXd p = probabilities(fit.weights);
+        const Eigen::MatrixXd gradient = x.transpose() * (p - onehot) / rows + ridge * fit.weights;
+        fit.gradient_norm = gradient.norm();
+        if (fit.gradient_norm < 1e-9) break;
+        Eigen::MatrixXd hessian = ridge * Eigen::MatrixXd::Identity(w * k, w * k);
+        for (Eigen::Index a = 0; a < k; ++a)
+            for (Eigen::Index b = 0; b < k; ++b) {
+                const Eigen::VectorXd d = p.col(a).array() * ((a == b ? 1.0 : 0.0) - p.col(b).array());
+                hessian.block(a * w, b * w, w, w) += x.transpose() * d.asDiagonal() * x / rows;
+            }
+        const Eigen::VectorXd g = Eigen::Map<const Eigen::VectorXd>(gradient.data(), w * k);  // column-major: class blocks
+        const Eigen::VectorXd direction = hessian.ldlt().solve(g);
+        const Eigen::MatrixXd step = Eigen::Map<const Eigen::MatrixXd>(direction.data(), w, k);
+        const double before = objective(fit.weights), slope = g.dot(direction);
+        double t = 1.0;
+        while (t > 1e-10 && objective(fit.weights - t * step) > before - 1e-4 * t * slope) t *= 0.5;
+        fit.weights -= t * step;
+    }
+    return fit;
+}
+
 /// The plain reference perceptron of issue 19: z-scored inputs, hidden
 /// layers of rectified linear units, Adam (Kingma & Ba 2015, Algorithm 1,
 /// with the paper's defaults: step 1e-3, beta1 0.9, beta2 0.999, epsilon
