@@ -60,7 +60,7 @@ column_data texts(std::string name) { return column_data{std::move(name), true, 
 
 double number_of(const json_cell& c) { return c.kind == json_cell::number ? c.value : missing; }
 
-// Hourly air temperature in Seattle through 2010 (seattle-temps.csv; NOAA
+// python3-vega-datasets: hourly air temperature in Seattle through 2010 (seattle-temps.csv; NOAA
 // public-domain records, per the package's dataset_info.json). Inputs: the
 // hour, the day of the year, and the readings 1, 2, 3 and 24 hours back;
 // target: the reading. A row whose lagged hours are not all in the file is
@@ -97,7 +97,7 @@ dataset seattle_hourly() {
     return out;
 }
 
-// Daily weather in Seattle 2012-2015 (seattle-weather.csv; NOAA public-domain
+// python3-vega-datasets: daily weather in Seattle 2012-2015 (seattle-weather.csv; NOAA public-domain
 // records). Inputs: the day of the year and the previous day's maximum and
 // minimum temperature, precipitation, wind and weather kind (categorical),
 // plus the maximum two days back; target: the day's maximum temperature.
@@ -132,7 +132,7 @@ dataset seattle_daily() {
     return out;
 }
 
-// Iris flowers (iris.json): Fisher (1936), "The use of multiple measurements
+// python3-vega-datasets: iris flowers (iris.json): Fisher (1936), "The use of multiple measurements
 // in taxonomic problems", Annals of Eugenics 7(2):179-188; 50 flowers of each
 // of 3 species, 4 measurements.
 dataset iris() {
@@ -148,7 +148,7 @@ dataset iris() {
     return out;
 }
 
-// Cars of 1970-1982 (cars.json): Donoho & Ramos (1982), "PRIMDATA: Data Sets
+// python3-vega-datasets: cars of 1970-1982 (cars.json): Donoho & Ramos (1982), "PRIMDATA: Data Sets
 // for Use With PRIM-H", made public in the StatLib archive (the package's
 // dataset_info.json). Target: miles per gallon; inputs numeric (horsepower
 // has missing cells) and the origin (categorical). Rows without a target and
@@ -170,7 +170,7 @@ dataset cars() {
     return out;
 }
 
-// Barley yields (barley.json): Immer, Hayes & Powers (1934), "Statistical
+// python3-vega-datasets: barley yields (barley.json): Immer, Hayes & Powers (1934), "Statistical
 // determination of barley varietal adaptation", Journal of the American
 // Society of Agronomy 26:403-419; 10 varieties at 6 sites in 1931 and 1932.
 // Target: the yield; inputs: variety and site (categorical) and the year.
