@@ -76,7 +76,7 @@ TEST_CASE("tenon train --help explains every option with its default") {
         CHECK(r.out.find(std::string("  ") + option + " ") != std::string::npos);
     }
     for (const char* default_text : {"default auto", "default 0.7,0.15,0.15", "(default 64,32)", "(default relu)", "(default adam)",
-                                     "default 0.001", "(default 200)", "(default 32)", "(default 15", "(default 1)", "default 1),",
+                                     "default 0.001", "(default 1000;", "(default 32)", "(default 15", "(default 1)", "default 1),",
                                      "the\n                         results are the same bits for every N"}) {
         CAPTURE(std::string(default_text));
         CHECK(r.out.find(default_text) != std::string::npos);

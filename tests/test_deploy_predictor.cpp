@@ -134,6 +134,21 @@ TEST_CASE_TEMPLATE("every layer kind is evaluated as the tape evaluates it", T, 
     for (std::size_t k = 0; k < expected.size(); ++k) CHECK(same_bits(out.values[k], expected.data()[k]));
 }
 
+TEST_CASE_TEMPLATE("a linear bypass is evaluated as the tape evaluates it", T, float, double) {
+    tenon::random_engine rng(6);
+    auto net = tenon::make_mlp<T>({5, 7, 3}, tenon::activation::tanh, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 6,
+                                  tenon::activation::identity, true);
+    for (auto* p : net.parameters())
+        for (std::size_t k = 0; k < p->size(); ++k) p->value().data()[k] = static_cast<T>(rng.uniform(-1.0, 1.0));
+    tenon::matrix<T> x({9, 5});
+    for (std::size_t k = 0; k < x.size(); ++k) x.data()[k] = rng.normal<T>();
+    const tenon::matrix<T> expected = tenon::network_outputs(net, x);
+    tenon::predictor<T> p(net, nullptr, {}, 16);
+    const auto out = p.predict_prepared(x.data(), 9);
+    REQUIRE(out.width == 3);
+    for (std::size_t k = 0; k < expected.size(); ++k) CHECK(same_bits(out.values[k], expected.data()[k]));
+}
+
 TEST_CASE("a layer the predictor does not know is refused at construction") {
     tenon::network<float> net;
     net.add(tenon::dense<float>(2, 2), "d");

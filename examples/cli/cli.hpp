@@ -628,7 +628,8 @@ Model and training
                          update rule (default adam).
   --learning-rate X      default 0.001; must be representable in single
                          precision (1.2e-38 to 3.4e38).
-  --epochs N             most epochs to run (default 200).
+  --epochs N             most epochs to run (default 1000; early stopping
+                         normally ends the run long before).
   --batch N              mini-batch rows (default 32); under mpirun -np P the
                          rows of each process, so P x N rows per step.
   --keep-order           take the training rows in the file's order in every
@@ -636,7 +637,10 @@ Model and training
                          matters, or to compare runs batch by batch).
   --patience N           stop after N epochs without a lower validation loss
                          and keep the best epoch's weights (default 15; 0 = run
-                         all epochs).
+                         all epochs). The run also waits at least 600 steps
+                         after the best epoch (1200 under 100 validation
+                         rows) and 1500 steps in all, so a small table is not
+                         stopped after a few dozen updates.
   --seed N               seeds the split, the initial weights and the batch
                          order (default 1). The same seed and data give the
                          same metrics on every run (and under mpirun with the

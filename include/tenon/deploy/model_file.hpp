@@ -711,6 +711,8 @@ void collect_layer_engines(layer<T>& l, std::vector<std::pair<std::string, rando
     if (auto* d = dynamic_cast<dropout<T>*>(&l)) out.emplace_back(d->qualified_name(), &d->engine());
     if (auto* r = dynamic_cast<residual<T>*>(&l))
         for (std::size_t i = 0; i < r->layer_count(); ++i) collect_layer_engines(r->layer_at(i), out);
+    if (auto* b = dynamic_cast<linear_bypass<T>*>(&l))
+        for (std::size_t i = 0; i < b->layer_count(); ++i) collect_layer_engines(b->layer_at(i), out);
 }
 template <class T>
 std::vector<std::pair<std::string, random_engine*>> layer_engines(network<T>& net) {

@@ -2,7 +2,8 @@
 //
 // A predictor is built once from a model file or a fitted model. It copies
 // the weights into flat buffers and compiles the network into a list of
-// steps (dense, activation, normalization, residual sum); no tape is used.
+// steps (dense, activation, normalization, residual and linear-bypass sums);
+// no tape is used.
 // Every call then applies the stored plan to raw rows (named cells, cells in
 // input-column order, or a host's own row type through row_fields<Row>),
 // checks them, runs the steps on buffers sized at construction for up to
@@ -301,9 +302,31 @@ struct compiled_model {
             s.kind = step_kind::add;
             s.in2 = inner;
             s.outputs = width;
+        } else if (auto* lb = dynamic_cast<linear_bypass<T>*>(&l)) {
+            if (lb->inputs() != width)
+                raise(codes::deploy_shape_mismatch, "predictor: linear bypass '" + lb->qualified_name() + "' takes " +
+                                                        std::to_string(lb->inputs()) + " inputs, it is given " + std::to_string(width));
+            std::size_t inner = in;
+            for (std::size_t i = 0; i < lb->layer_count(); ++i) inner = compile_layer(lb->layer_at(i), inner);
+            if (buffer_widths[inner] != lb->outputs())
+                raise(codes::deploy_shape_mismatch, "predictor: linear bypass '" + lb->qualified_name() + "' inner output has the wrong width");
+            // The linear path x W (a dense step without bias), then f(x) + x W as the tape adds them.
+            program_step path;
+            path.kind = step_kind::dense;
+            path.in = in;
+            path.inputs = width;
+            path.outputs = lb->outputs();
+            path.a = put(lb->linear_weights().value());
+            path.out = new_buffer(path.outputs);
+            steps.push_back(path);
+            s.kind = step_kind::add;
+            s.in = inner;
+            s.in2 = path.out;
+            s.inputs = lb->outputs();
+            s.outputs = lb->outputs();
         } else {
             raise(codes::deploy_unsupported_layer, std::string("predictor: layer '") + l.qualified_name() + "' of kind '" + l.kind() +
-                                                       "' cannot be evaluated (dense, activation, dropout, layer_norm, batch_norm, residual)");
+                                                       "' cannot be evaluated (dense, activation, dropout, layer_norm, batch_norm, residual, linear_bypass)");
         }
         s.out = new_buffer(s.outputs);
         steps.push_back(s);
@@ -557,7 +580,9 @@ private:
         } else {
             for (std::size_t i = 0; i < net.layer_count() && width == 0; ++i)
                 if (auto* d = dynamic_cast<dense<T>*>(&net.layer_at(i))) width = d->inputs();
-            if (width == 0) raise(codes::deploy_shape_mismatch, "predictor: without a plan the first layer must be dense to fix the input width");
+                else if (auto* b = dynamic_cast<linear_bypass<T>*>(&net.layer_at(i))) width = b->inputs();
+            if (width == 0)
+                raise(codes::deploy_shape_mismatch, "predictor: without a plan the first layer must be dense or a linear bypass to fix the input width");
         }
         m->references = refs;
         m->feature_count = width;

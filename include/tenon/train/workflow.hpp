@@ -17,6 +17,7 @@
 #include <cstddef>
 #include <exception>
 #include <memory>
+#include <optional>
 #include <string>
 #include <utility>
 #include <vector>
@@ -24,6 +25,7 @@
 #include "tenon/layers/network.hpp"
 #include "tenon/prep/plan.hpp"
 #include "tenon/prep/split.hpp"
+#include "tenon/train/baseline.hpp"
 #include "tenon/train/metrics.hpp"
 #include "tenon/train/trainer.hpp"
 #include "tenon/update/rules.hpp"
@@ -89,9 +91,27 @@ struct model_settings {
     loss_kind loss = loss_kind::l2;
     update_kind update = update_kind::adam;
     double learning_rate = 1e-3;
-    std::size_t epochs = 200;
+    /// A linear path from the inputs to the outputs beside the hidden layers
+    /// (layers/network.hpp, linear_bypass). Unset: on for regression, where
+    /// it lets the model extrapolate like a linear one (e.g. a seasonal input
+    /// past its training range), off for classification.
+    std::optional<bool> linear_path;
+    /// The most epochs; early stopping normally ends the run long before.
+    std::size_t epochs = 1000;
     std::size_t batch_size = 32;
+    /// Early stopping: the run stops when `patience` epochs and
+    /// `patience_steps` optimizer steps have passed since the best epoch, and
+    /// never before `min_steps` steps. Counting steps as well keeps a small
+    /// table (a few steps an epoch) from being stopped after a few dozen
+    /// updates. With fewer than 100 validation rows the step patience is
+    /// doubled (a noisy curve dips and recovers by chance).
     std::size_t patience = 15;
+    std::size_t patience_steps = 600;
+    std::size_t min_steps = 1500;
+    /// Exponential smoothing of the validation loss for early stopping
+    /// (training_options::smoothing). Unset: 0.7 under 100 validation rows,
+    /// 0.5 under 1000, else 0 (a large set's curve is smooth already).
+    std::optional<double> smoothing;
     double min_improvement = 0.0;
     std::uint64_t seed = 0;
     double time_budget_seconds = 0.0;
@@ -140,6 +160,13 @@ struct fitted_model {
     std::size_t train_rows = 0;
     std::size_t validation_rows = 0;
     std::size_t dropped_rows = 0;  // rows with a missing target, left out of training and validation
+    /// Regression: ridge least squares on the prepared training rows, in
+    /// prepared units (train/baseline.hpp); empty (0 features) otherwise and
+    /// in a team. evaluate_baseline scores it.
+    linear_fit baseline;
+    /// The network's linear path was reset to the baseline after training,
+    /// because the baseline had the lower validation loss (fit_model).
+    bool kept_baseline = false;
 };
 
 /// Scores of a model on some rows, in the target's original units.
@@ -231,7 +258,8 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
                                s.hidden_activation == activation::elu || s.hidden_activation == activation::gelu ||
                                s.hidden_activation == activation::gelu_tanh;
         const initializer init{rectifier ? init_scheme::he : init_scheme::glorot, init_distribution::uniform};
-        net = make_mlp<T>(sizes, s.hidden_activation, init, s.seed);
+        const bool linear_path = s.linear_path.value_or(!classify);
+        net = make_mlp<T>(sizes, s.hidden_activation, init, s.seed, activation::identity, linear_path);
     };
 #if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
     try {
@@ -244,7 +272,7 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
     prepare();  // without exceptions a failure ends the process (core/error.hpp)
 #endif
     if (s.team) throw_if_any_member_failed(*s.team, failure, "fit_model");
-    fitted_model<T> model{std::move(measured), std::move(net), {}, loss, train.rows(), validation.rows(), dropped};
+    fitted_model<T> model{std::move(measured), std::move(net), {}, loss, train.rows(), validation.rows(), dropped, {}, false};
     if (shards) {  // the counts of all members' shards
         double counts[3] = {static_cast<double>(model.train_rows), static_cast<double>(model.validation_rows), static_cast<double>(dropped)};
         s.team->sum(counts, 3);
@@ -253,12 +281,37 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
         model.dropped_rows = static_cast<std::size_t>(counts[2]);
     }
 
+    // The linear baseline; a linear path starts from it, with the hidden
+    // layers' output weights at zero, so training starts at the baseline's
+    // predictions and the hidden layers learn what it leaves.
+    std::optional<network_snapshot<T>> baseline_net;  // the network computing the baseline, when it has a linear path
+    if (!s.team && !train.is_classification()) {
+        model.baseline = fit_least_squares(train.features, train.targets);
+        if (model.net.layer_count() > 0) {
+            if (auto* bypass = dynamic_cast<linear_bypass<T>*>(&model.net.layer_at(0))) {
+                matrix<T>& w = bypass->linear_weights().value();
+                for (std::size_t k = 0; k < w.size(); ++k) w.data()[k] = static_cast<T>(model.baseline.weights[k]);
+                if (auto* output = dynamic_cast<dense<T>*>(&bypass->layer_at(bypass->layer_count() - 1)); output && output->has_bias()) {
+                    output->weights().value().fill(T(0));
+                    for (std::size_t j = 0; j < output->outputs(); ++j)
+                        output->bias().value().data()[j] = static_cast<T>(model.baseline.intercept[j]);
+                    baseline_net = model.net.snapshot();
+                }
+            }
+        }
+    }
+
     auto rule = make_update_rule<T>(s.update);
     constant_rate schedule(s.learning_rate);
     training_options<T> o;
     o.epochs = s.epochs;
     o.batch_size = s.batch_size;
     o.patience = s.patience;
+    // Rules of thumb of our own (common practice: a noisier curve gets more patience and more smoothing).
+    const std::size_t validation_count = model.validation_rows;
+    o.patience_steps = validation_count < 100 ? 2 * s.patience_steps : s.patience_steps;
+    o.min_steps = s.min_steps;
+    o.smoothing = s.smoothing ? *s.smoothing : validation_count < 100 ? 0.7 : validation_count < 1000 ? 0.5 : 0.0;
     o.min_improvement = s.min_improvement;
     o.seed = s.seed;
     o.loss = loss;
@@ -279,6 +332,26 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
     }
     trainer<T> tr(model.net, *rule, schedule, std::move(o));
     model.outcome = tr.run(train, validation);
+    // Ship the better of the two on validation: when the baseline's squared
+    // error is lower, the network becomes the baseline (hidden layers' output
+    // weights zero, linear path and bias from the baseline).
+    if (baseline_net && validation.rows() > 0 && model.outcome.best_epoch > 0) {
+        double network_error = 0.0, baseline_error = 0.0;
+        const matrix<T> predicted = network_outputs(model.net, validation.features);
+        std::vector<double> row(model.baseline.outputs);
+        for (std::size_t i = 0; i < validation.rows(); ++i) {
+            model.baseline.predict_row(&validation.features(i, 0), row.data());
+            for (std::size_t j = 0; j < row.size(); ++j) {
+                const double y = static_cast<double>(validation.targets(i, j));
+                network_error += (static_cast<double>(predicted(i, j)) - y) * (static_cast<double>(predicted(i, j)) - y);
+                baseline_error += (row[j] - y) * (row[j] - y);
+            }
+        }
+        if (baseline_error < network_error) {
+            model.net.restore(*baseline_net);
+            model.kept_baseline = true;
+        }
+    }
     return model;
 }
 
@@ -322,6 +395,32 @@ evaluation evaluate_model(fitted_model<T>& model, const table& t, const std::vec
         e.mae = r.mae;
         e.r2 = r.r2;
     }
+    return e;
+}
+
+/// Scores the model's linear baseline (fitted_model::baseline: ridge least
+/// squares on the prepared training rows) on `rows`, in the target's
+/// original units, as evaluate_model scores the model.
+template <class T>
+evaluation evaluate_baseline(const fitted_model<T>& model, const table& t, const std::vector<std::size_t>& rows) {
+    if (model.baseline.features == 0) raise(codes::train_option, "evaluate_baseline: the model holds no linear baseline (classification, or trained in a team)");
+    prepared_rows<T> p = model.plan.template apply<T>(t, rows);
+    evaluation e;
+    e.rows = p.rows.size();
+    e.dropped_rows = p.dropped_missing_target;
+    if (e.rows == 0) raise(codes::train_no_rows, "evaluate_baseline: no rows with a target to score");
+    const scaling& ts = model.plan.target_scaling();
+    std::vector<double> truth(e.rows), values(e.rows);
+    double v = 0.0;
+    for (std::size_t i = 0; i < e.rows; ++i) {
+        model.baseline.predict_row(&p.features(i, 0), &v);
+        truth[i] = ts.inverse(static_cast<double>(p.targets.data()[i]));
+        values[i] = ts.inverse(v);
+    }
+    const regression_scores r = score_values(truth, values);
+    e.rmse = r.rmse;
+    e.mae = r.mae;
+    e.r2 = r.r2;
     return e;
 }
 
