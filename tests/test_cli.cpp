@@ -289,6 +289,12 @@ TEST_CASE("classification metrics hold every documented field; the report has th
         }
     }
     CHECK(number_at(m, "test.accuracy") > 0.8);
+    // The plain baseline on the same rows (issue 19): its kind, its scores, and which of the two was shipped.
+    CHECK(m.at("baseline.kind") == "logistic regression");
+    CHECK(number_at(m, "baseline.test.rows") == number_at(m, "test.rows"));
+    CHECK(number_at(m, "baseline.validation.accuracy") > 0.5);
+    CHECK((m.at("shipped") == "network" || m.at("shipped") == "baseline"));
+    CHECK(r.out.find("baseline (logistic regression): accuracy ") != std::string::npos);
     CHECK(((m.at("classes.0") == "loose" && m.at("classes.1") == "tight") || (m.at("classes.0") == "tight" && m.at("classes.1") == "loose")));
     CHECK(m.count("per_epoch.0.training_loss") == 1);
     CHECK(m.count("per_epoch.0.validation_loss") == 1);
@@ -335,6 +341,12 @@ TEST_CASE("regression metrics are in the target's units; missing targets are cou
     // units would be below 1, one in amps is not.
     CHECK(number_at(m, "test.rmse") > 1.0);
     CHECK(number_at(m, "test.r2") > 0.75);  // rows with the speed missing cannot be predicted well
+    // amps grows with speed x load, which no linear function of speed and
+    // load fits: the network beats the least-squares baseline (issue 19).
+    CHECK(m.at("baseline.kind") == "ridge least squares");
+    CHECK(number_at(m, "baseline.test.rows") == number_at(m, "test.rows"));
+    CHECK(m.at("shipped") == "network");
+    CHECK(number_at(m, "test.rmse") < number_at(m, "baseline.test.rmse"));
 }
 
 TEST_CASE("the same seed gives the same metrics apart from timings; another seed does not") {

@@ -1617,6 +1617,12 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
     const tenon::evaluation test = tenon::evaluate_model(model, t, split.test);
     const std::size_t dropped = model.dropped_rows + test.dropped_rows;
     const tenon::training_outcome& o = model.outcome;
+    // The plain baseline on the same rows (fit_model fits it; in a team it has none).
+    const bool has_baseline = model.baseline.features > 0;
+    tenon::evaluation baseline_validation, baseline_test;
+    if (has_baseline && has_validation) baseline_validation = tenon::evaluate_baseline(model, t, split.validation);
+    if (has_baseline) baseline_test = tenon::evaluate_baseline(model, t, split.test);
+    const char* baseline_kind = s.classify ? "logistic regression" : "ridge least squares";
 
     if (metrics_file.active()) {
         json_writer j;
@@ -1637,6 +1643,16 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
         if (has_validation) write_scores(j, "validation", validation);
         else j.null("validation");
         write_scores(j, "test", test);
+        if (has_baseline) {
+            j.open_object("baseline").text("kind", baseline_kind);
+            if (has_validation) write_scores(j, "validation", baseline_validation);
+            else j.null("validation");
+            write_scores(j, "test", baseline_test);
+            j.close_object();
+        } else {
+            j.null("baseline");
+        }
+        j.text("shipped", model.kept_baseline ? "baseline" : "network");
         j.open_array("per_epoch");
         for (const auto& e : o.history) {
             j.open_object().count("epoch", e.epoch).number("training_loss", e.training_loss).number("validation_loss", e.validation_loss);
@@ -1681,6 +1697,15 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
             both("RMSE", &tenon::evaluation::rmse, 4);
             both("MAE", &tenon::evaluation::mae, 4);
             both("R^2", &tenon::evaluation::r2, 4);
+        }
+        if (has_baseline) {
+            summary += "\nbaseline (" + std::string(baseline_kind) + "): " +
+                       (s.classify ? "accuracy " + (has_validation ? fixed(baseline_validation.accuracy, 4) + " validation, " : std::string()) +
+                                         fixed(baseline_test.accuracy, 4) + " test"
+                                   : "RMSE " + (has_validation ? fixed(baseline_validation.rmse, 4) + " validation, " : std::string()) +
+                                         fixed(baseline_test.rmse, 4) + " test") + "\n";
+            if (model.kept_baseline)
+                summary += "the network did not beat the baseline on validation; the model is the baseline\n";
         }
         summary += "\n" + std::to_string(o.history.size()) + " epochs in " + duration_text(o.seconds) + "; " + o.message +
                    (o.best_epoch > 0 && o.reason != tenon::stop_reason::no_improvement ? "; kept epoch " + std::to_string(o.best_epoch) : std::string()) + "\n";

@@ -21,8 +21,11 @@
 TENON_NAMESPACE_BEGIN
 
 /// y = x weights + intercept: weights is features x outputs (row-major).
+/// With `class_scores` the outputs are a multinomial logistic regression's
+/// class scores (probabilities through the softmax).
 struct linear_fit {
     std::size_t features = 0, outputs = 0;
+    bool class_scores = false;
     std::vector<double> weights;
     std::vector<double> intercept;
 

@@ -16,6 +16,7 @@
 #include <cmath>
 #include <cstddef>
 #include <exception>
+#include <limits>
 #include <memory>
 #include <optional>
 #include <string>
@@ -160,13 +161,21 @@ struct fitted_model {
     std::size_t train_rows = 0;
     std::size_t validation_rows = 0;
     std::size_t dropped_rows = 0;  // rows with a missing target, left out of training and validation
-    /// Regression: ridge least squares on the prepared training rows, in
-    /// prepared units (train/baseline.hpp); empty (0 features) otherwise and
-    /// in a team. evaluate_baseline scores it.
+    /// The plain baseline, fitted on the same prepared training rows:
+    /// ridge least squares for regression (train/baseline.hpp), multinomial
+    /// logistic regression for classification (a network without hidden
+    /// layers, trained as the network is, with early stopping on the same
+    /// validation rows). Empty (0 features) in a team. evaluate_baseline
+    /// scores it.
     linear_fit baseline;
-    /// The network's linear path was reset to the baseline after training,
-    /// because the baseline had the lower validation loss (fit_model).
+    /// The baseline had the lower validation loss, so `net` computes the
+    /// baseline (fit_model ships the better of the two).
     bool kept_baseline = false;
+    /// Validation loss of the network (before any swap) and of the baseline,
+    /// in prepared units (mean squared error, or cross-entropy); NaN without
+    /// validation rows or baseline.
+    double network_validation_loss = std::numeric_limits<double>::quiet_NaN();
+    double baseline_validation_loss = std::numeric_limits<double>::quiet_NaN();
 };
 
 /// Scores of a model on some rows, in the target's original units.
@@ -272,7 +281,7 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
     prepare();  // without exceptions a failure ends the process (core/error.hpp)
 #endif
     if (s.team) throw_if_any_member_failed(*s.team, failure, "fit_model");
-    fitted_model<T> model{std::move(measured), std::move(net), {}, loss, train.rows(), validation.rows(), dropped, {}, false};
+    fitted_model<T> model{std::move(measured), std::move(net), {}, loss, train.rows(), validation.rows(), dropped, {}, false, std::numeric_limits<double>::quiet_NaN(), std::numeric_limits<double>::quiet_NaN()};
     if (shards) {  // the counts of all members' shards
         double counts[3] = {static_cast<double>(model.train_rows), static_cast<double>(model.validation_rows), static_cast<double>(dropped)};
         s.team->sum(counts, 3);
@@ -330,26 +339,63 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
         pool = std::make_unique<thread_pool>(s.threads);
         o.workers = pool.get();
     }
+    // Multinomial logistic regression: a network without hidden layers,
+    // trained with the same options but without the host's observers.
+    network<T> logistic;
+    double logistic_loss = std::numeric_limits<double>::quiet_NaN();
+    if (!s.team && train.is_classification()) {
+        logistic = make_mlp<T>({train.features.shape()[1], train.class_count}, activation::identity,
+                               initializer{init_scheme::glorot, init_distribution::uniform}, s.seed);
+        training_options<T> lo = o;
+        lo.on_epoch = nullptr;
+        lo.on_batch = nullptr;
+        auto logistic_rule = make_update_rule<T>(s.update);
+        constant_rate logistic_schedule(s.learning_rate);
+        trainer<T> lt(logistic, *logistic_rule, logistic_schedule, std::move(lo));
+        logistic_loss = lt.run(train, validation).best_validation_loss;
+        linear_fit& b = model.baseline;
+        b.features = train.features.shape()[1];
+        b.outputs = train.class_count;
+        b.class_scores = true;
+        const matrix<T>& w = logistic.find("output.weights").value();
+        const matrix<T>& c = logistic.find("output.bias").value();
+        b.weights.assign(w.data(), w.data() + w.size());
+        b.intercept.assign(c.data(), c.data() + c.size());
+    }
+
     trainer<T> tr(model.net, *rule, schedule, std::move(o));
     model.outcome = tr.run(train, validation);
-    // Ship the better of the two on validation: when the baseline's squared
-    // error is lower, the network becomes the baseline (hidden layers' output
-    // weights zero, linear path and bias from the baseline).
-    if (baseline_net && validation.rows() > 0 && model.outcome.best_epoch > 0) {
-        double network_error = 0.0, baseline_error = 0.0;
-        const matrix<T> predicted = network_outputs(model.net, validation.features);
-        std::vector<double> row(model.baseline.outputs);
-        for (std::size_t i = 0; i < validation.rows(); ++i) {
-            model.baseline.predict_row(&validation.features(i, 0), row.data());
-            for (std::size_t j = 0; j < row.size(); ++j) {
-                const double y = static_cast<double>(validation.targets(i, j));
-                network_error += (static_cast<double>(predicted(i, j)) - y) * (static_cast<double>(predicted(i, j)) - y);
-                baseline_error += (row[j] - y) * (row[j] - y);
+    // Ship the better of the two on validation: when the baseline's loss is
+    // lower, the network becomes the baseline (for regression: hidden
+    // layers' output weights zero, linear path and bias from the baseline).
+    if (model.baseline.features > 0 && validation.rows() > 0 && model.outcome.best_epoch > 0) {
+        if (train.is_classification()) {
+            model.network_validation_loss = model.outcome.best_validation_loss;
+            model.baseline_validation_loss = logistic_loss;
+        } else {
+            const matrix<T> predicted = network_outputs(model.net, validation.features);
+            double network_error = 0.0, baseline_error = 0.0;
+            std::vector<double> row(model.baseline.outputs);
+            for (std::size_t i = 0; i < validation.rows(); ++i) {
+                model.baseline.predict_row(&validation.features(i, 0), row.data());
+                for (std::size_t j = 0; j < row.size(); ++j) {
+                    const double y = static_cast<double>(validation.targets(i, j));
+                    network_error += (static_cast<double>(predicted(i, j)) - y) * (static_cast<double>(predicted(i, j)) - y);
+                    baseline_error += (row[j] - y) * (row[j] - y);
+                }
             }
+            const double count = static_cast<double>(validation.targets.size());
+            model.network_validation_loss = network_error / count;
+            model.baseline_validation_loss = baseline_error / count;
         }
-        if (baseline_error < network_error) {
-            model.net.restore(*baseline_net);
-            model.kept_baseline = true;
+        if (model.baseline_validation_loss < model.network_validation_loss) {
+            if (baseline_net) {
+                model.net.restore(*baseline_net);
+                model.kept_baseline = true;
+            } else if (train.is_classification()) {
+                model.net = std::move(logistic);
+                model.kept_baseline = true;
+            }
         }
     }
     return model;
@@ -398,17 +444,33 @@ evaluation evaluate_model(fitted_model<T>& model, const table& t, const std::vec
     return e;
 }
 
-/// Scores the model's linear baseline (fitted_model::baseline: ridge least
-/// squares on the prepared training rows) on `rows`, in the target's
-/// original units, as evaluate_model scores the model.
+/// Scores the model's plain baseline (fitted_model::baseline) on `rows`, in
+/// the target's original units, as evaluate_model scores the model.
 template <class T>
 evaluation evaluate_baseline(const fitted_model<T>& model, const table& t, const std::vector<std::size_t>& rows) {
-    if (model.baseline.features == 0) raise(codes::train_option, "evaluate_baseline: the model holds no linear baseline (classification, or trained in a team)");
+    if (model.baseline.features == 0) raise(codes::train_option, "evaluate_baseline: the model holds no baseline (it was trained in a team)");
     prepared_rows<T> p = model.plan.template apply<T>(t, rows);
     evaluation e;
     e.rows = p.rows.size();
     e.dropped_rows = p.dropped_missing_target;
     if (e.rows == 0) raise(codes::train_no_rows, "evaluate_baseline: no rows with a target to score");
+    if (model.baseline.class_scores) {
+        e.classification = true;
+        const std::size_t k = model.baseline.outputs;
+        matrix<T> probabilities({e.rows, k});
+        std::vector<double> scores(k);
+        for (std::size_t i = 0; i < e.rows; ++i) {
+            model.baseline.predict_row(&p.features(i, 0), scores.data());
+            for (std::size_t j = 0; j < k; ++j) probabilities(i, j) = static_cast<T>(scores[j]);
+        }
+        probabilities = softmax_rows(probabilities);
+        const std::vector<std::size_t> truth(p.classes.begin(), p.classes.end());
+        e.classes = score_classes(truth, row_argmax(probabilities), model.plan.class_count());
+        e.accuracy = e.classes.accuracy;
+        e.macro_f1 = e.classes.macro_f1;
+        e.log_loss = log_loss(probabilities, truth);
+        return e;
+    }
     const scaling& ts = model.plan.target_scaling();
     std::vector<double> truth(e.rows), values(e.rows);
     double v = 0.0;
