@@ -149,6 +149,7 @@ TEST_CASE("the baseline is shipped when the network does not beat it on validati
     const auto split = tenon::random_holdout(t.row_count(), {0.6, 0.2, 0.2}, 24);
     tenon::model_settings s;
     s.seed = 4;
+    s.ensemble = 1;  // one network: an average of several fits less of the noise
     auto m = tenon::fit_model<double>(t, p, split.train, split.validation, s);
     CHECK(m.kept_baseline);
     CHECK(m.baseline_validation_loss < m.network_validation_loss);
@@ -176,6 +177,36 @@ TEST_CASE("a classification model carries a logistic-regression baseline") {
     CHECK(b.accuracy < 0.9);
     CHECK(m.network_validation_loss < m.baseline_validation_loss);
     CHECK_FALSE(m.kept_baseline);
+}
+
+TEST_CASE("a seed ensemble is the same for any thread count, and its size follows the row count") {
+    const auto t = pump_table(240, 27);
+    tenon::plan p;
+    p.set_target("power", tenon::target_kind::regression);
+    const auto split = tenon::random_holdout(t.row_count(), {0.6, 0.2, 0.2}, 28);
+    tenon::model_settings s;
+    s.hidden = {16};
+    s.epochs = 20;
+    s.seed = 6;
+    s.ensemble = 3;
+    auto one_thread = tenon::fit_model<float>(t, p, split.train, split.validation, s);
+    s.threads = 2;  // the members train side by side
+    auto two_threads = tenon::fit_model<float>(t, p, split.train, split.validation, s);
+    REQUIRE(one_thread.member_count() == 3);
+    REQUIRE(two_threads.member_count() == 3);
+    const auto features = one_thread.plan.apply<float>(t, split.test).features;
+    const auto a = tenon::predict_prepared(one_thread, features), b = tenon::predict_prepared(two_threads, features);
+    CHECK(a == b);
+    // Members from different seeds differ; the first is the single network of the same seed.
+    CHECK_FALSE(tenon::network_outputs(one_thread.members[0], features) == tenon::network_outputs(one_thread.net, features));
+    s.threads = 1;
+    s.ensemble = 1;
+    auto single = tenon::fit_model<float>(t, p, split.train, split.validation, s);
+    CHECK(tenon::network_outputs(single.net, features) == tenon::network_outputs(one_thread.net, features));
+    // The default: 5 members under 10,000 training rows.
+    s.ensemble = 0;
+    s.epochs = 2;
+    CHECK(tenon::fit_model<float>(t, p, split.train, split.validation, s).member_count() == 5);
 }
 
 TEST_CASE("cross-validation refits per fold and reports mean and spread") {

@@ -114,6 +114,13 @@ struct model_settings {
     /// 0.5 under 1000, else 0 (a large set's curve is smooth already).
     std::optional<double> smoothing;
     double min_improvement = 0.0;
+    /// Networks averaged (class probabilities or values), each trained from
+    /// its own seed on the same rows; 0 chooses by the training row count: 5
+    /// under 10,000 rows, where the average of a few networks is markedly
+    /// steadier than one, else 1 (a common practice; the threshold is our
+    /// own). With more than one thread the members train side by side, each
+    /// on one thread; the result is the same for any thread count.
+    std::size_t ensemble = 0;
     std::uint64_t seed = 0;
     double time_budget_seconds = 0.0;
     std::function<double()> clock;
@@ -176,6 +183,11 @@ struct fitted_model {
     /// validation rows or baseline.
     double network_validation_loss = std::numeric_limits<double>::quiet_NaN();
     double baseline_validation_loss = std::numeric_limits<double>::quiet_NaN();
+    /// The ensemble's other networks (`net` is the first member); their
+    /// outputs are averaged with net's (predict_prepared). Empty for one network.
+    std::vector<network<T>> members;
+    /// Member count: 1 + members.size().
+    std::size_t member_count() const noexcept { return 1 + members.size(); }
 };
 
 /// Scores of a model on some rows, in the target's original units.
@@ -209,6 +221,83 @@ supervised_rows<T> to_supervised(prepared_rows<T>&& p, const measured_plan& plan
     return d;
 }
 
+// The members' mean: class probabilities (each member's softmax) or values
+// in prepared units, summed in member order and divided by the count, as
+// the predictor does (deploy/predictor.hpp).
+template <class T>
+matrix<T> averaged_outputs(fitted_model<T>& model, const matrix<T>& features) {
+    const bool classify = model.plan.target_type() == target_kind::classification;
+    matrix<T> sum = network_outputs(model.net, features);
+    if (classify) sum = softmax_rows(sum);
+    if (model.members.empty()) return sum;
+    for (auto& member : model.members) {
+        matrix<T> m = network_outputs(member, features);
+        if (classify) m = softmax_rows(m);
+        for (std::size_t k = 0; k < sum.size(); ++k) sum.data()[k] += m.data()[k];
+    }
+    const T count = static_cast<T>(model.member_count());
+    for (std::size_t k = 0; k < sum.size(); ++k) sum.data()[k] /= count;
+    return sum;
+}
+
+// Trains the model's networks: net with the host's observers, the other
+// members without them (from their own seeds). With an executor of more
+// than one thread, and alone (not in a team), the members train side by
+// side, each on one thread; otherwise one after the other on the workers.
+template <class T, class Seed>
+void train_members(fitted_model<T>& model, const training_options<T>& o, const model_settings& s, const Seed& member_seed,
+                   const supervised_rows<T>& train, const supervised_rows<T>& validation) {
+    struct job {
+        network<T>* net = nullptr;
+        training_options<T> options;
+        training_outcome outcome;
+        std::exception_ptr error;
+    };
+    const std::size_t count = model.member_count();
+    std::vector<job> jobs(count);
+    const bool side_by_side = count > 1 && !s.team && o.workers && o.workers->concurrency() > 1;
+    for (std::size_t k = 0; k < count; ++k) {
+        jobs[k].net = k == 0 ? &model.net : &model.members[k - 1];
+        jobs[k].options = o;
+        jobs[k].options.seed = member_seed(k);
+        if (k > 0) {
+            jobs[k].options.on_epoch = nullptr;
+            jobs[k].options.on_batch = nullptr;
+        }
+        if (side_by_side) jobs[k].options.workers = nullptr;
+    }
+    const auto run_one = [&](job& j) {
+        auto rule = make_update_rule<T>(s.update);
+        constant_rate schedule(s.learning_rate);
+        trainer<T> tr(*j.net, *rule, schedule, std::move(j.options));
+        j.outcome = tr.run(train, validation);
+    };
+    if (side_by_side) {
+        struct context {
+            std::vector<job>* jobs;
+            const decltype(run_one)* run;
+        } c{&jobs, &run_one};
+        o.workers->run(count, [](void* p, std::size_t k) {
+            auto* ctx = static_cast<context*>(p);
+            job& j = (*ctx->jobs)[k];
+#if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
+            try {
+                (*ctx->run)(j);
+            } catch (...) {
+                j.error = std::current_exception();
+            }
+#else
+            (*ctx->run)(j);
+#endif
+        }, &c);
+        for (auto& j : jobs)
+            if (j.error) std::rethrow_exception(j.error);
+    } else {
+        for (auto& j : jobs) run_one(j);
+    }
+    model.outcome = jobs[0].outcome;
+}
+
 }  // namespace detail
 
 /// Measures `preparation` on `train_rows`, trains a perceptron on them with early
@@ -237,6 +326,9 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
     std::size_t dropped = 0;
     loss_kind loss = loss_kind::l2;
     network<T> net;
+    std::vector<std::size_t> sizes;
+    initializer init;
+    bool linear_path = false;
     const auto prepare = [&] {
         if (!measured.has_target()) raise(codes::train_option, "fit_model: the plan has no target column");
         const bool classify = measured.target_type() == target_kind::classification;
@@ -257,7 +349,6 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
             raise(codes::train_option, std::string("fit_model: the ") + loss_kind_name(loss) + " loss does not fit a " +
                                            (classify ? "classification" : "regression") + " target");
         }
-        std::vector<std::size_t> sizes;
         sizes.push_back(measured.feature_count());
         sizes.insert(sizes.end(), s.hidden.begin(), s.hidden.end());
         sizes.push_back(classify ? measured.class_count() : 1);
@@ -266,8 +357,8 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
         const bool rectifier = s.hidden_activation == activation::relu || s.hidden_activation == activation::leaky_relu ||
                                s.hidden_activation == activation::elu || s.hidden_activation == activation::gelu ||
                                s.hidden_activation == activation::gelu_tanh;
-        const initializer init{rectifier ? init_scheme::he : init_scheme::glorot, init_distribution::uniform};
-        const bool linear_path = s.linear_path.value_or(!classify);
+        init = initializer{rectifier ? init_scheme::he : init_scheme::glorot, init_distribution::uniform};
+        linear_path = s.linear_path.value_or(!classify);
         net = make_mlp<T>(sizes, s.hidden_activation, init, s.seed, activation::identity, linear_path);
     };
 #if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
@@ -281,7 +372,8 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
     prepare();  // without exceptions a failure ends the process (core/error.hpp)
 #endif
     if (s.team) throw_if_any_member_failed(*s.team, failure, "fit_model");
-    fitted_model<T> model{std::move(measured), std::move(net), {}, loss, train.rows(), validation.rows(), dropped, {}, false, std::numeric_limits<double>::quiet_NaN(), std::numeric_limits<double>::quiet_NaN()};
+    fitted_model<T> model{std::move(measured), std::move(net), {}, loss, train.rows(), validation.rows(), dropped, {}, false,
+                          std::numeric_limits<double>::quiet_NaN(), std::numeric_limits<double>::quiet_NaN(), {}};
     if (shards) {  // the counts of all members' shards
         double counts[3] = {static_cast<double>(model.train_rows), static_cast<double>(model.validation_rows), static_cast<double>(dropped)};
         s.team->sum(counts, 3);
@@ -294,24 +386,34 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
     // layers' output weights at zero, so training starts at the baseline's
     // predictions and the hidden layers learn what it leaves.
     std::optional<network_snapshot<T>> baseline_net;  // the network computing the baseline, when it has a linear path
+    const auto start_from_baseline = [&](network<T>& n) {
+        if (n.layer_count() == 0) return false;
+        auto* bypass = dynamic_cast<linear_bypass<T>*>(&n.layer_at(0));
+        if (!bypass) return false;
+        auto* output = dynamic_cast<dense<T>*>(&bypass->layer_at(bypass->layer_count() - 1));
+        if (!output || !output->has_bias()) return false;
+        matrix<T>& w = bypass->linear_weights().value();
+        for (std::size_t k = 0; k < w.size(); ++k) w.data()[k] = static_cast<T>(model.baseline.weights[k]);
+        output->weights().value().fill(T(0));
+        for (std::size_t j = 0; j < output->outputs(); ++j) output->bias().value().data()[j] = static_cast<T>(model.baseline.intercept[j]);
+        return true;
+    };
     if (!s.team && !train.is_classification()) {
         model.baseline = fit_least_squares(train.features, train.targets);
-        if (model.net.layer_count() > 0) {
-            if (auto* bypass = dynamic_cast<linear_bypass<T>*>(&model.net.layer_at(0))) {
-                matrix<T>& w = bypass->linear_weights().value();
-                for (std::size_t k = 0; k < w.size(); ++k) w.data()[k] = static_cast<T>(model.baseline.weights[k]);
-                if (auto* output = dynamic_cast<dense<T>*>(&bypass->layer_at(bypass->layer_count() - 1)); output && output->has_bias()) {
-                    output->weights().value().fill(T(0));
-                    for (std::size_t j = 0; j < output->outputs(); ++j)
-                        output->bias().value().data()[j] = static_cast<T>(model.baseline.intercept[j]);
-                    baseline_net = model.net.snapshot();
-                }
-            }
-        }
+        if (start_from_baseline(model.net)) baseline_net = model.net.snapshot();
+    }
+    // The ensemble's other members: the same architecture from seeds of their
+    // own (the golden-ratio increment of SplitMix64, Steele, Lea & Flood
+    // 2014, spreads them over the seed space).
+    if (s.team && s.ensemble > 1)
+        raise(codes::train_option, "fit_model: a team trains one network; an ensemble of " + std::to_string(s.ensemble) + " is not supported");
+    const std::size_t member_total = s.team ? 1 : s.ensemble > 0 ? s.ensemble : model.train_rows < 10000 ? 5 : 1;
+    const auto member_seed = [&](std::size_t k) { return s.seed + static_cast<std::uint64_t>(k) * 0x9E3779B97F4A7C15ull; };
+    for (std::size_t k = 1; k < member_total; ++k) {
+        model.members.push_back(make_mlp<T>(sizes, s.hidden_activation, init, member_seed(k), activation::identity, linear_path));
+        if (baseline_net) start_from_baseline(model.members.back());
     }
 
-    auto rule = make_update_rule<T>(s.update);
-    constant_rate schedule(s.learning_rate);
     training_options<T> o;
     o.epochs = s.epochs;
     o.batch_size = s.batch_size;
@@ -363,17 +465,19 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
         b.intercept.assign(c.data(), c.data() + c.size());
     }
 
-    trainer<T> tr(model.net, *rule, schedule, std::move(o));
-    model.outcome = tr.run(train, validation);
+    detail::train_members(model, o, s, member_seed, train, validation);
     // Ship the better of the two on validation: when the baseline's loss is
     // lower, the network becomes the baseline (for regression: hidden
     // layers' output weights zero, linear path and bias from the baseline).
     if (model.baseline.features > 0 && validation.rows() > 0 && model.outcome.best_epoch > 0) {
+        const matrix<T> predicted = detail::averaged_outputs(model, validation.features);
         if (train.is_classification()) {
-            model.network_validation_loss = model.outcome.best_validation_loss;
+            double cross_entropy = 0.0;
+            for (std::size_t i = 0; i < validation.rows(); ++i)
+                cross_entropy -= std::log(std::max(static_cast<double>(predicted(i, validation.labels[i])), 1e-300));
+            model.network_validation_loss = cross_entropy / static_cast<double>(validation.rows());
             model.baseline_validation_loss = logistic_loss;
         } else {
-            const matrix<T> predicted = network_outputs(model.net, validation.features);
             double network_error = 0.0, baseline_error = 0.0;
             std::vector<double> row(model.baseline.outputs);
             for (std::size_t i = 0; i < validation.rows(); ++i) {
@@ -391,9 +495,11 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
         if (model.baseline_validation_loss < model.network_validation_loss) {
             if (baseline_net) {
                 model.net.restore(*baseline_net);
+                model.members.clear();
                 model.kept_baseline = true;
             } else if (train.is_classification()) {
                 model.net = std::move(logistic);
+                model.members.clear();
                 model.kept_baseline = true;
             }
         }
@@ -406,8 +512,8 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
 /// regression.
 template <class T>
 matrix<T> predict_prepared(fitted_model<T>& model, const matrix<T>& features) {
-    matrix<T> out = network_outputs(model.net, features);
-    if (model.plan.target_type() == target_kind::classification) return softmax_rows(out);
+    matrix<T> out = detail::averaged_outputs(model, features);
+    if (model.plan.target_type() == target_kind::classification) return out;
     const scaling& ts = model.plan.target_scaling();
     for (std::size_t k = 0; k < out.size(); ++k) out.data()[k] = static_cast<T>(ts.inverse(static_cast<double>(out.data()[k])));
     return out;
