@@ -71,7 +71,7 @@ TEST_CASE("tenon train --help explains every option with its default") {
     CHECK(r.err.empty());
     for (const char* option : {"--data", "--target", "--task", "--ignore", "--split", "--time-column", "--group-column", "--fractions",
                                "--folds", "--hidden", "--activation", "--loss", "--optimizer", "--learning-rate", "--epochs", "--batch",
-                               "--patience", "--seed", "--threads", "--metrics", "--report", "--model", "--quiet"}) {
+                               "--patience", "--ensemble", "--seed", "--threads", "--metrics", "--report", "--model", "--quiet"}) {
         CAPTURE(std::string(option));
         CHECK(r.out.find(std::string("  ") + option + " ") != std::string::npos);
     }
@@ -198,6 +198,8 @@ TEST_CASE("unknown options, bad numbers and missing values are named") {
     check_failure(dir, with({"--epochs", "0"}), "[cli.option.value] --epochs '0': must be at least 1");
     check_failure(dir, with({"--batch=12x"}), "[cli.option.value] --batch '12x': not a whole number");
     check_failure(dir, with({"--threads", "0"}), "[cli.option.value] --threads '0': must be at least 1");
+    check_failure(dir, with({"--ensemble", "0"}), "[cli.option.value] --ensemble '0': must be at least 1");
+    check_failure(dir, with({"--ensemble", "101"}), "[cli.option.value] --ensemble '101': at most 100 networks");
     check_failure(dir, with({"--folds", "1"}), "[cli.option.value] --folds '1': must be at least 2");
     check_failure(dir, with({"--hidden", "64,,32"}), "[cli.option.value] --hidden '64,,32': an empty width between commas");
     check_failure(dir, with({"--learning-rate", "fast"}), "[cli.option.value] --learning-rate 'fast': not a finite number");
