@@ -71,12 +71,12 @@ TEST_CASE("tenon train --help explains every option with its default") {
     CHECK(r.err.empty());
     for (const char* option : {"--data", "--target", "--task", "--ignore", "--split", "--time-column", "--group-column", "--fractions",
                                "--folds", "--hidden", "--activation", "--loss", "--optimizer", "--learning-rate", "--epochs", "--batch",
-                               "--patience", "--seed", "--threads", "--metrics", "--report", "--model", "--quiet"}) {
+                               "--patience", "--ensemble", "--seed", "--threads", "--metrics", "--report", "--model", "--quiet"}) {
         CAPTURE(std::string(option));
         CHECK(r.out.find(std::string("  ") + option + " ") != std::string::npos);
     }
     for (const char* default_text : {"default auto", "default 0.7,0.15,0.15", "(default 64,32)", "(default relu)", "(default adam)",
-                                     "default 0.001", "(default 200)", "(default 32)", "(default 15", "(default 1)", "default 1),",
+                                     "default 0.001", "(default 1000;", "(default 32)", "(default 15", "(default 1)", "default 1),",
                                      "the\n                         results are the same bits for every N"}) {
         CAPTURE(std::string(default_text));
         CHECK(r.out.find(default_text) != std::string::npos);
@@ -198,6 +198,8 @@ TEST_CASE("unknown options, bad numbers and missing values are named") {
     check_failure(dir, with({"--epochs", "0"}), "[cli.option.value] --epochs '0': must be at least 1");
     check_failure(dir, with({"--batch=12x"}), "[cli.option.value] --batch '12x': not a whole number");
     check_failure(dir, with({"--threads", "0"}), "[cli.option.value] --threads '0': must be at least 1");
+    check_failure(dir, with({"--ensemble", "0"}), "[cli.option.value] --ensemble '0': must be at least 1");
+    check_failure(dir, with({"--ensemble", "101"}), "[cli.option.value] --ensemble '101': at most 100 networks");
     check_failure(dir, with({"--folds", "1"}), "[cli.option.value] --folds '1': must be at least 2");
     check_failure(dir, with({"--hidden", "64,,32"}), "[cli.option.value] --hidden '64,,32': an empty width between commas");
     check_failure(dir, with({"--learning-rate", "fast"}), "[cli.option.value] --learning-rate 'fast': not a finite number");
@@ -289,6 +291,13 @@ TEST_CASE("classification metrics hold every documented field; the report has th
         }
     }
     CHECK(number_at(m, "test.accuracy") > 0.8);
+    // The plain baseline on the same rows (issue 19): its kind, its scores, and which of the two was shipped.
+    CHECK(m.at("baseline.kind") == "logistic regression");
+    CHECK(number_at(m, "baseline.test.rows") == number_at(m, "test.rows"));
+    CHECK(number_at(m, "baseline.validation.rows") == number_at(m, "validation.rows"));
+    CHECK(number_at(m, "ensemble") == 5);  // the default under 10,000 training rows
+    CHECK((m.at("shipped") == "network" || m.at("shipped") == "baseline"));
+    CHECK(r.out.find("baseline (logistic regression): accuracy ") != std::string::npos);
     CHECK(((m.at("classes.0") == "loose" && m.at("classes.1") == "tight") || (m.at("classes.0") == "tight" && m.at("classes.1") == "loose")));
     CHECK(m.count("per_epoch.0.training_loss") == 1);
     CHECK(m.count("per_epoch.0.validation_loss") == 1);
@@ -335,6 +344,12 @@ TEST_CASE("regression metrics are in the target's units; missing targets are cou
     // units would be below 1, one in amps is not.
     CHECK(number_at(m, "test.rmse") > 1.0);
     CHECK(number_at(m, "test.r2") > 0.75);  // rows with the speed missing cannot be predicted well
+    // amps grows with speed x load, which no linear function of speed and
+    // load fits: the network beats the least-squares baseline (issue 19).
+    CHECK(m.at("baseline.kind") == "ridge least squares");
+    CHECK(number_at(m, "baseline.test.rows") == number_at(m, "test.rows"));
+    CHECK(m.at("shipped") == "network");
+    CHECK(number_at(m, "test.rmse") < number_at(m, "baseline.test.rmse"));
 }
 
 TEST_CASE("the same seed gives the same metrics apart from timings; another seed does not") {

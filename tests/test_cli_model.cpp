@@ -99,13 +99,24 @@ tool_view split_like_the_tool(const std::vector<std::string>& train_args) {
 // inverse target scaling, as predict_prepared in train/workflow.hpp does.
 tenon::matrix<float> trainer_predictions(const std::string& model_path, const tenon::table& t) {
     const tenon::model_file<float> file = tenon::load_model_file<float>(model_path);
-    tenon::network<float> net = tenon::rebuild_network(file);
     std::vector<std::size_t> rows(t.row_count());
     for (std::size_t r = 0; r < rows.size(); ++r) rows[r] = r;
     tenon::matrix<float> features;
     file.plan->apply_features(t, rows, features);
-    tenon::matrix<float> out = tenon::network_outputs(net, features);
-    if (file.plan->target_type() == tenon::target_kind::classification) return tenon::softmax_rows(out);
+    // A seed ensemble's mean: each member's probabilities (or prepared
+    // values) summed in member order and divided by the count, as fit_model does.
+    const bool classify = file.plan->target_type() == tenon::target_kind::classification;
+    tenon::matrix<float> out;
+    for (std::size_t m = 0; m <= file.members.size(); ++m) {
+        tenon::network<float> net = tenon::rebuild_member(file, m);
+        tenon::matrix<float> member = tenon::network_outputs(net, features);
+        if (classify) member = tenon::softmax_rows(member);
+        if (m == 0) out = member;
+        else for (std::size_t k = 0; k < out.size(); ++k) out.data()[k] += member.data()[k];
+    }
+    if (!file.members.empty())
+        for (std::size_t k = 0; k < out.size(); ++k) out.data()[k] /= static_cast<float>(file.members.size() + 1);
+    if (classify) return out;
     for (std::size_t k = 0; k < out.size(); ++k) out.data()[k] = static_cast<float>(file.plan->restore_target(static_cast<double>(out.data()[k])));
     return out;
 }

@@ -154,7 +154,11 @@ TEST_CASE_TEMPLATE("a model file round-trips every section exactly", T, float, d
     CHECK(bytes[16] == sizeof(T));
     const auto summary = tenon::inspect_model_bytes(bytes);
     CHECK(summary.scalar_bytes == sizeof(T));
-    CHECK(summary.sections.size() == 8);  // ARCH WGHT PLAN META REFS RPLY RSVR REFD
+    CHECK(summary.sections.size() == 9);  // ARCH WGHT ENSM PLAN META REFS RPLY RSVR REFD
+    CHECK(summary.sections[2].id == "ENSM");  // the seed ensemble's other members (5 by default here)
+    CHECK(summary.sections[2].required);
+    CHECK(back.members.size() == m.members.size());
+    CHECK(back.members.size() == 4);
     CHECK(summary.references == m.references);  // REFD read into the summaries
     CHECK(summary.replay_rows_seen == 90);
     CHECK(summary.replay_rows == 5);

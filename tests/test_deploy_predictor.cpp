@@ -103,6 +103,62 @@ TEST_CASE_TEMPLATE("a predictor from a loaded file gives the trainer's predictio
     }
 }
 
+TEST_CASE_TEMPLATE("a seed ensemble's mean and spread per row, from a fit and from its file", T, float, double) {
+    for (const bool classify : {true, false}) {
+        trained<T> run(classify ? condition_plan() : power_plan());
+        REQUIRE(run.model.member_count() == 5);  // the default under 10,000 training rows
+        const auto features = run.model.plan.template apply<T>(run.t, run.test).features;
+        const std::size_t rows = features.shape()[0];
+        const tenon::matrix<T> expected = tenon::predict_prepared(run.model, features);
+        const auto file = tenon::model_file_from_bytes<T>(tenon::model_file_to_bytes(tenon::make_model_file(run.model, run.t, run.train, small_settings())));
+        CHECK(file.members.size() == 4);
+        tenon::predictor<T> from_file(file, 64);
+        CHECK(from_file.member_count() == 5);
+        const auto v = from_file.predict_prepared(features.data(), rows);
+        REQUIRE(v.members == 5);
+        for (std::size_t k = 0; k < expected.size(); ++k) CHECK(same_bits(v.values[k], expected.data()[k]));
+        // Each member alone, as its own network gives it; the spread is the
+        // sample standard deviation (n - 1) of the five about their mean.
+        for (std::size_t m = 0; m < 5; ++m) {
+            auto one = tenon::rebuild_member(file, m);
+            tenon::matrix<T> out = tenon::network_outputs(one, features);
+            if (classify) out = tenon::softmax_rows(out);
+            const auto& ts = run.model.plan.target_scaling();
+            for (std::size_t k = 0; k < out.size(); ++k) {
+                const T member = classify ? out.data()[k] : static_cast<T>(ts.inverse(static_cast<double>(out.data()[k])));
+                CHECK(same_bits(v.member_values[m * rows * v.width + k], member));
+            }
+        }
+        double widest = 0;
+        for (std::size_t k = 0; k < rows * v.width; ++k) {
+            double squares = 0;
+            for (std::size_t m = 0; m < 5; ++m) {
+                const double d = static_cast<double>(v.member_values[m * rows * v.width + k]) - static_cast<double>(v.values[k]);
+                squares += d * d;
+            }
+            CHECK(static_cast<double>(v.spread[k]) == doctest::Approx(std::sqrt(squares / 4)).epsilon(1e-4));
+            widest = std::max(widest, static_cast<double>(v.spread[k]));
+        }
+        CHECK(widest > 0);  // members from different seeds disagree somewhere
+    }
+}
+
+TEST_CASE("one network has one member and a zero spread; an ensemble section is required") {
+    auto settings = small_settings();
+    settings.ensemble = 1;
+    const auto t = pump_table(200, 3);
+    auto model = tenon::fit_model<float>(t, power_plan(), range(0, 140), range(140, 170), settings);
+    CHECK(model.member_count() == 1);
+    tenon::predictor<float> p(model, 8);
+    const auto features = model.plan.apply<float>(t, range(170, 178)).features;
+    const auto v = p.predict_prepared(features.data(), 8);
+    CHECK(v.members == 1);
+    for (std::size_t k = 0; k < 8; ++k) CHECK(v.spread[k] == 0.0f);
+    for (std::size_t k = 0; k < 8; ++k) CHECK(v.member_values[k] == v.values[k]);
+    const auto bytes = tenon::model_file_to_bytes(tenon::make_model_file(model, t, range(0, 140), settings));
+    for (std::size_t k = 0; k + 4 <= bytes.size(); ++k) CHECK_FALSE((bytes[k] == 'E' && bytes[k + 1] == 'N' && bytes[k + 2] == 'S' && bytes[k + 3] == 'M'));
+}
+
 TEST_CASE_TEMPLATE("every layer kind is evaluated as the tape evaluates it", T, float, double) {
     tenon::random_engine rng(5);
     tenon::network<T> net;
@@ -131,6 +187,21 @@ TEST_CASE_TEMPLATE("every layer kind is evaluated as the tape evaluates it", T, 
     tenon::predictor<T> p(net, nullptr, {}, 16);
     const auto out = p.predict_prepared(x.data(), 10);
     REQUIRE(out.width == expected.shape()[1]);
+    for (std::size_t k = 0; k < expected.size(); ++k) CHECK(same_bits(out.values[k], expected.data()[k]));
+}
+
+TEST_CASE_TEMPLATE("a linear bypass is evaluated as the tape evaluates it", T, float, double) {
+    tenon::random_engine rng(6);
+    auto net = tenon::make_mlp<T>({5, 7, 3}, tenon::activation::tanh, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 6,
+                                  tenon::activation::identity, true);
+    for (auto* p : net.parameters())
+        for (std::size_t k = 0; k < p->size(); ++k) p->value().data()[k] = static_cast<T>(rng.uniform(-1.0, 1.0));
+    tenon::matrix<T> x({9, 5});
+    for (std::size_t k = 0; k < x.size(); ++k) x.data()[k] = rng.normal<T>();
+    const tenon::matrix<T> expected = tenon::network_outputs(net, x);
+    tenon::predictor<T> p(net, nullptr, {}, 16);
+    const auto out = p.predict_prepared(x.data(), 9);
+    REQUIRE(out.width == 3);
     for (std::size_t k = 0; k < expected.size(); ++k) CHECK(same_bits(out.values[k], expected.data()[k]));
 }
 

@@ -323,6 +323,57 @@ TEST_CASE("residual block gradients agree with finite differences") {
     CHECK(layer_gradient_error(block, random_matrix<double>(4, 3, 72), run_mode::training) < 1e-6);
 }
 
+// ---------------------------------------------------------------- linear bypass
+
+TEST_CASE_TEMPLATE("a linear bypass adds x W to its inner output", T, float, double) {
+    tenon::linear_bypass<T> block(2, 1);
+    auto& d = block.add(tenon::dense<T>(2, 1, false));
+    d.weights().assign(make_matrix<T>({{T(1)}, {T(1)}}));
+    block.add(tenon::activation_layer<T>(tenon::activation::relu));
+    block.linear_weights().assign(make_matrix<T>({{T(3)}, {T(-2)}}));
+    tenon::tape<T> t;
+    const auto y = block.forward(t, t.input(make_matrix<T>({{T(1), T(2)}, {T(-1), T(-2)}})), run_mode::training);
+    CHECK(y.value()(0, 0) == T(2));   // relu(1 + 2) + (3 - 4)
+    CHECK(y.value()(1, 0) == T(1));   // relu(-3) + (-3 + 4)
+    CHECK(block.output_width(2) == 1);
+    CHECK(code_of([&] { (void)block.output_width(3); }) == "core.shape.mismatch");
+    CHECK(code_of([] { tenon::linear_bypass<T> empty(0, 1); }) == "model.layer.option");
+}
+
+TEST_CASE("linear bypass gradients agree with finite differences") {
+    tenon::random_engine engine(73);
+    tenon::linear_bypass<double> block(3, 2);
+    block.add(tenon::dense<double>(3, 4, engine));
+    block.add(tenon::activation_layer<double>(tenon::activation::tanh));
+    block.add(tenon::dense<double>(4, 2, engine));
+    block.linear_weights().assign(random_matrix<double>(3, 2, 74));
+    CHECK(layer_gradient_error(block, random_matrix<double>(5, 3, 75), run_mode::training) < 1e-6);
+}
+
+TEST_CASE_TEMPLATE("an MLP with a linear path draws the plain MLP's weights and round-trips its record", T, float, double) {
+    const tenon::initializer init{tenon::init_scheme::he, tenon::init_distribution::uniform};
+    auto plain = tenon::make_mlp<T>({4, 6, 2}, tenon::activation::relu, init, 9);
+    auto with_path = tenon::make_mlp<T>({4, 6, 2}, tenon::activation::relu, init, 9, tenon::activation::identity, true);
+    CHECK(with_path.parameter_count() == plain.parameter_count() + 4 * 2);
+    CHECK(with_path.find("bypass.hidden1.weights").value() == plain.find("hidden1.weights").value());
+    CHECK(with_path.find("bypass.output.weights").value() == plain.find("output.weights").value());
+    for (std::size_t k = 0; k < 8; ++k) CHECK(with_path.find("bypass.linear_weights").value().data()[k] == T(0));
+    with_path.find("bypass.linear_weights").value().fill(T(0.5));
+    // Zero linear weights: the same outputs as the plain MLP; then the path adds x W.
+    const matrix<T> x = random_matrix<T>(3, 4, 10);
+    auto rebuilt = tenon::network_from_bytes<T>(with_path.architecture_bytes());
+    CHECK(rebuilt.describe() == with_path.describe());
+    rebuilt.restore(with_path.snapshot());
+    with_path.set_mode(run_mode::inference);
+    rebuilt.set_mode(run_mode::inference);
+    tenon::tape<T> t;
+    const matrix<T> a = with_path.forward(t, x).value(), b = rebuilt.forward(t, x).value();
+    CHECK(a == b);
+    CHECK(tenon::record_value_count(with_path.describe()) == with_path.parameter_count());
+    // Without a hidden layer there is nothing to bypass: a plain linear layer.
+    CHECK(tenon::make_mlp<T>({4, 2}, tenon::activation::relu, init, 9, tenon::activation::identity, true).parameter_count() == 10);
+}
+
 // ---------------------------------------------------------------- network
 
 TEST_CASE_TEMPLATE("an MLP names its parameters and counts them", T, float, double) {

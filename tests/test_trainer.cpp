@@ -117,6 +117,64 @@ TEST_CASE_TEMPLATE("early stopping stops after `patience` stale epochs and resto
     CHECK(out.history[out.best_epoch - 1].validation_loss == out.best_validation_loss);
 }
 
+TEST_CASE("patience in steps and a minimum of steps hold early stopping back") {
+    // A learning rate of 0 leaves the weights as they are: the validation
+    // loss never improves on epoch 1's, so every stop below is set by the
+    // counts alone. 64 rows in batches of 32: 2 steps an epoch.
+    auto train = noise_rows<double>(64, 11), val = noise_rows<double>(40, 12);
+    const auto run = [&](std::size_t patience_steps, std::size_t min_steps) {
+        auto net = small_net<double>(3, 13);
+        tenon::gradient_descent<double> rule;
+        tenon::constant_rate schedule(0.0);
+        tenon::training_options<double> o;
+        o.epochs = 1000;
+        o.patience = 2;
+        o.patience_steps = patience_steps;
+        o.min_steps = min_steps;
+        tenon::trainer<double> tr(net, rule, schedule, o);
+        return tr.run(train, val);
+    };
+    const auto epochs_only = run(0, 0);
+    CHECK(epochs_only.best_epoch == 1);
+    CHECK(epochs_only.history.size() == 3);  // 2 stale epochs after the best
+    const auto by_steps = run(20, 0);
+    CHECK(by_steps.reason == tenon::stop_reason::no_improvement);
+    CHECK(by_steps.steps == 2 + 20);  // 20 steps after the best epoch's 2
+    CHECK(by_steps.history.size() == 11);
+    const auto at_least = run(20, 60);
+    CHECK(at_least.steps == 60);
+    CHECK(at_least.best_epoch == 1);
+}
+
+TEST_CASE("a smoothed validation curve keeps the epoch where the smoothed loss is least") {
+    // Exponential smoothing s_k = a s_(k-1) + (1 - a) loss_k with s_1 = loss_1
+    // (Brown 1956, exponential smoothing): recomputed here from the history.
+    auto train = wave_rows<double>(128, 14), val = wave_rows<double>(24, 15);
+    auto net = small_net<double>(2, 16);
+    tenon::adam<double> rule;
+    tenon::constant_rate schedule(0.02);
+    tenon::training_options<double> o;
+    o.epochs = 60;
+    o.patience = 5;
+    o.smoothing = 0.6;
+    tenon::trainer<double> tr(net, rule, schedule, o);
+    const auto out = tr.run(train, val);
+    double smoothed = 0, least = 0;
+    std::size_t kept = 0;
+    for (std::size_t i = 0; i < out.history.size(); ++i) {
+        const double v = out.history[i].validation_loss;
+        smoothed = i == 0 ? v : 0.6 * smoothed + 0.4 * v;
+        if (i == 0 || smoothed < least) {
+            least = smoothed;
+            kept = i + 1;
+        }
+    }
+    CHECK(out.best_epoch == kept);
+    CHECK(out.best_validation_loss == out.history[kept - 1].validation_loss);
+    o.smoothing = 1.0;
+    CHECK_THROWS_WITH(tenon::trainer<double>(net, rule, schedule, o), doctest::Contains("smoothing must be in [0, 1)"));
+}
+
 TEST_CASE("the time budget is read from the injected clock") {
     auto train = wave_rows<double>(100, 1), val = wave_rows<double>(20, 2);
     auto net = small_net<double>(2, 3);

@@ -169,6 +169,7 @@ struct train_request {
     std::size_t epochs = library_defaults().epochs;
     std::size_t batch = library_defaults().batch_size;
     std::size_t patience = library_defaults().patience;
+    std::size_t ensemble = library_defaults().ensemble;  // 0: by the row count
     std::uint64_t seed = 1;  // one seed for the split, the weights and the batch order
     std::size_t threads = 1;
     bool keep_order = false;  // --keep-order: no shuffling
@@ -317,7 +318,7 @@ inline train_request parse_train_request(const std::vector<std::string>& args) {
                                             "--delimiter", "--decimal-comma", "--split", "--time-column", "--group-column",
                                             "--fractions", "--folds", "--hidden", "--activation", "--loss", "--optimizer",
                                             "--learning-rate", "--epochs", "--batch", "--patience", "--seed", "--threads",
-                                            "--metrics", "--report", "--model", "--quiet", "--keep-order", "--time-format",
+                                            "--ensemble", "--metrics", "--report", "--model", "--quiet", "--keep-order", "--time-format",
                                             "--time-cycles"};
         bool is_known = false;
         for (const char* n : known) is_known = is_known || name == n;
@@ -455,6 +456,9 @@ inline train_request parse_train_request(const std::vector<std::string>& args) {
             q.batch = detail::parse_count("--batch", value, 1);
         } else if (name == "--patience") {
             q.patience = detail::parse_count("--patience", value, 0);
+        } else if (name == "--ensemble") {
+            q.ensemble = detail::parse_count("--ensemble", value, 1);
+            if (q.ensemble > 100) fail(cli_codes::option_value, "--ensemble '" + value + "': at most 100 networks");
         } else if (name == "--seed") {
             q.seed = detail::parse_seed(value);
         } else if (name == "--threads") {
@@ -628,7 +632,8 @@ Model and training
                          update rule (default adam).
   --learning-rate X      default 0.001; must be representable in single
                          precision (1.2e-38 to 3.4e38).
-  --epochs N             most epochs to run (default 200).
+  --epochs N             most epochs to run (default 1000; early stopping
+                         normally ends the run long before).
   --batch N              mini-batch rows (default 32); under mpirun -np P the
                          rows of each process, so P x N rows per step.
   --keep-order           take the training rows in the file's order in every
@@ -636,7 +641,13 @@ Model and training
                          matters, or to compare runs batch by batch).
   --patience N           stop after N epochs without a lower validation loss
                          and keep the best epoch's weights (default 15; 0 = run
-                         all epochs).
+                         all epochs). The run also waits at least 600 steps
+                         after the best epoch (1200 under 100 validation
+                         rows) and 1500 steps in all, so a small table is not
+                         stopped after a few dozen updates.
+  --ensemble K           average K networks trained from their own seeds
+                         (default: 5 under 10000 training rows, else 1);
+                         with --threads they train side by side.
   --seed N               seeds the split, the initial weights and the batch
                          order (default 1). The same seed and data give the
                          same metrics on every run (and under mpirun with the
@@ -1111,6 +1122,7 @@ inline tenon::model_settings make_settings(const train_request& q) {
     m.epochs = q.epochs;
     m.batch_size = q.batch;
     m.patience = q.patience;
+    m.ensemble = q.ensemble;
     m.seed = q.seed;
     m.threads = q.threads;
     m.shuffle = !q.keep_order;
@@ -1613,6 +1625,12 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
     const tenon::evaluation test = tenon::evaluate_model(model, t, split.test);
     const std::size_t dropped = model.dropped_rows + test.dropped_rows;
     const tenon::training_outcome& o = model.outcome;
+    // The plain baseline on the same rows (fit_model fits it; in a team it has none).
+    const bool has_baseline = model.baseline.features > 0;
+    tenon::evaluation baseline_validation, baseline_test;
+    if (has_baseline && has_validation) baseline_validation = tenon::evaluate_baseline(model, t, split.validation);
+    if (has_baseline) baseline_test = tenon::evaluate_baseline(model, t, split.test);
+    const char* baseline_kind = s.classify ? "logistic regression" : "ridge least squares";
 
     if (metrics_file.active()) {
         json_writer j;
@@ -1626,6 +1644,7 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
             for (const auto& c : model.plan.class_names()) j.text(nullptr, c);
             j.close_array();
         }
+        j.count("ensemble", model.member_count());
         j.count("epochs_run", o.history.size());
         j.count("best_epoch", o.best_epoch);
         j.text("stop_reason", tenon::stop_reason_name(o.reason));
@@ -1633,6 +1652,16 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
         if (has_validation) write_scores(j, "validation", validation);
         else j.null("validation");
         write_scores(j, "test", test);
+        if (has_baseline) {
+            j.open_object("baseline").text("kind", baseline_kind);
+            if (has_validation) write_scores(j, "validation", baseline_validation);
+            else j.null("validation");
+            write_scores(j, "test", baseline_test);
+            j.close_object();
+        } else {
+            j.null("baseline");
+        }
+        j.text("shipped", model.kept_baseline ? "baseline" : "network");
         j.open_array("per_epoch");
         for (const auto& e : o.history) {
             j.open_object().count("epoch", e.epoch).number("training_loss", e.training_loss).number("validation_loss", e.validation_loss);
@@ -1678,9 +1707,20 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
             both("MAE", &tenon::evaluation::mae, 4);
             both("R^2", &tenon::evaluation::r2, 4);
         }
+        if (has_baseline) {
+            summary += "\nbaseline (" + std::string(baseline_kind) + "): " +
+                       (s.classify ? "accuracy " + (has_validation ? fixed(baseline_validation.accuracy, 4) + " validation, " : std::string()) +
+                                         fixed(baseline_test.accuracy, 4) + " test"
+                                   : "RMSE " + (has_validation ? fixed(baseline_validation.rmse, 4) + " validation, " : std::string()) +
+                                         fixed(baseline_test.rmse, 4) + " test") + "\n";
+            if (model.kept_baseline)
+                summary += "the network did not beat the baseline on validation; the model is the baseline\n";
+        }
         summary += "\n" + std::to_string(o.history.size()) + " epochs in " + duration_text(o.seconds) + "; " + o.message +
                    (o.best_epoch > 0 && o.reason != tenon::stop_reason::no_improvement ? "; kept epoch " + std::to_string(o.best_epoch) : std::string()) + "\n";
         summary += std::to_string(model.train_rows) + " training rows, " + std::to_string(model.plan.feature_count()) + " features" +
+                   (model.member_count() > 1 ? ", an ensemble of " + std::to_string(model.member_count()) + " networks (the epochs are the first's)"
+                                             : std::string()) +
                    (dropped ? ", " + std::to_string(dropped) + " rows dropped for a missing target" : std::string()) + "\n";
         if (!q.metrics_path.empty()) summary += "metrics written to " + q.metrics_path + "\n";
         if (!q.report_path.empty()) summary += "report written to " + q.report_path + "\n";

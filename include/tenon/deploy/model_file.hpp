@@ -19,7 +19,11 @@
 // weights, HIST what they replaced, oldest first; files without it have no
 // history), REFD (the distributions of the numeric and date/time reference
 // summaries, for exact drift statistics; files without it fall back to the
-// histograms). A reader skips an unknown section unless its required flag is set.
+// histograms), ENSM (the other members of a seed ensemble: their count, then
+// each member's weights as in WGHT, for the architecture of ARCH; required,
+// since a reader that served the first member alone would answer
+// differently; files without it hold one network). A reader skips an
+// unknown section unless its required flag is set.
 //
 // Loading trusts nothing: the magic, the header checksum, the version, the
 // byte-order mark and the scalar type are checked first; every section
@@ -132,6 +136,9 @@ template <class T>
 struct model_file {
     layer_record architecture;
     std::vector<named_matrix<T>> weights;  // the network's parameters, then its state buffers
+    /// The ensemble's other members (section ENSM), each weighted like
+    /// `weights` for the same architecture; empty for one network.
+    std::vector<std::vector<named_matrix<T>>> members;
     std::optional<measured_plan> plan;
     /// How the current weights were made (section META).
     std::optional<training_metadata> metadata;
@@ -316,6 +323,26 @@ std::vector<named_matrix<T>> read_weights(byte_reader& in) {
         nm.values = get_matrix<T>(in);
     }
     return weights;
+}
+template <class T>
+std::vector<std::uint8_t> members_payload(const std::vector<std::vector<named_matrix<T>>>& members) {
+    std::vector<std::uint8_t> out;
+    byte_writer w(out);
+    w.u32(static_cast<std::uint32_t>(members.size()));
+    for (const auto& weights : members) {
+        w.u32(static_cast<std::uint32_t>(weights.size()));
+        for (const auto& nm : weights) {
+            w.text(nm.name);
+            put_matrix(w, nm.values);
+        }
+    }
+    return out;
+}
+template <class T>
+std::vector<std::vector<named_matrix<T>>> read_members(byte_reader& in) {
+    std::vector<std::vector<named_matrix<T>>> members(in.count(4, "ensemble members"));
+    for (auto& m : members) m = read_weights<T>(in);
+    return members;
 }
 
 inline std::vector<std::uint8_t> metadata_payload(const training_metadata& m) {
@@ -664,7 +691,8 @@ inline container read_container(const std::uint8_t* data, std::size_t size, cons
                                            std::to_string(count) + " sections");
     for (const auto& s : c.sections) {
         const bool known = s.id == "ARCH" || s.id == "WGHT" || s.id == "PLAN" || s.id == "META" || s.id == "REFS" ||
-                           s.id == "RPLY" || s.id == "RSUM" || s.id == "RSVR" || s.id == "HIST" || s.id == "REFD";
+                           s.id == "RPLY" || s.id == "RSUM" || s.id == "RSVR" || s.id == "HIST" || s.id == "REFD" ||
+                           s.id == "ENSM";
         if (!known && s.required)
             raise(codes::deploy_unknown_section, source + ": section '" + s.id +
                                                      "' is marked required but this build of tenon does not know it");
@@ -711,6 +739,8 @@ void collect_layer_engines(layer<T>& l, std::vector<std::pair<std::string, rando
     if (auto* d = dynamic_cast<dropout<T>*>(&l)) out.emplace_back(d->qualified_name(), &d->engine());
     if (auto* r = dynamic_cast<residual<T>*>(&l))
         for (std::size_t i = 0; i < r->layer_count(); ++i) collect_layer_engines(r->layer_at(i), out);
+    if (auto* b = dynamic_cast<linear_bypass<T>*>(&l))
+        for (std::size_t i = 0; i < b->layer_count(); ++i) collect_layer_engines(b->layer_at(i), out);
 }
 template <class T>
 std::vector<std::pair<std::string, random_engine*>> layer_engines(network<T>& net) {
@@ -791,11 +821,13 @@ std::vector<std::uint8_t> model_file_to_bytes(const model_file<T>& m) {
     const std::uint16_t count = static_cast<std::uint16_t>(2 + (m.plan ? 1 : 0) + (m.metadata ? 1 : 0) +
                                                            (m.references.empty() ? 0 : 1) + (m.replay ? 1 : 0) + (m.resume ? 1 : 0) +
                                                            (m.replay && m.replay->rows_seen > 0 ? 1 : 0) + (m.history.empty() ? 0 : 1) +
-                                                           (detail::references_have_distributions(m.references) ? 1 : 0));
+                                                           (detail::references_have_distributions(m.references) ? 1 : 0) +
+                                                           (m.members.empty() ? 0 : 1));
     detail::put_u16(out, count);
     detail::put_u32(out, crc32(out.data(), 20));
     detail::append_section(out, "ARCH", true, to_bytes(m.architecture));
     detail::append_section(out, "WGHT", true, detail::weights_payload(m.weights));
+    if (!m.members.empty()) detail::append_section(out, "ENSM", true, detail::members_payload(m.members));
     if (m.plan) detail::append_section(out, "PLAN", true, m.plan->to_bytes());
     if (m.metadata) detail::append_section(out, "META", false, detail::metadata_payload(*m.metadata));
     if (!m.history.empty()) detail::append_section(out, "HIST", false, detail::history_payload(m.history));
@@ -825,6 +857,7 @@ model_file<T> model_file_from_bytes(const std::uint8_t* data, std::size_t size, 
     for (const auto& s : c.sections) {
         if (s.id == "ARCH") m.architecture = detail::parse_architecture(data, s, source);
         else if (s.id == "WGHT") m.weights = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_weights<T>(in); });
+        else if (s.id == "ENSM") m.members = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_members<T>(in); });
         else if (s.id == "PLAN") m.plan.emplace(detail::parse_plan(data, s, source));
         else if (s.id == "META") m.metadata = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_metadata(in); });
         else if (s.id == "HIST") m.history = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_history(in); });
@@ -933,7 +966,25 @@ model_file<T> capture_network(network<T>& net) {
 /// deploy.model.shape_mismatch when the weights do not fit the architecture
 /// and deploy.model.malformed when the architecture cannot be built.
 template <class T>
+network<T> rebuild_network(const layer_record& architecture, const std::vector<named_matrix<T>>& weights);
+template <class T>
 network<T> rebuild_network(const model_file<T>& m) {
+    return rebuild_network<T>(m.architecture, m.weights);
+}
+/// Rebuilds member `k` of the file's ensemble (0: the network of WGHT).
+template <class T>
+network<T> rebuild_member(const model_file<T>& m, std::size_t k) {
+    if (k > m.members.size())
+        raise(codes::invalid_argument, "model file: member " + std::to_string(k) + " asked of an ensemble of " + std::to_string(1 + m.members.size()));
+    return rebuild_network<T>(m.architecture, k == 0 ? m.weights : m.members[k - 1]);
+}
+/// Rebuilds an architecture with the given weights (see rebuild_network).
+template <class T>
+network<T> rebuild_network(const layer_record& architecture, const std::vector<named_matrix<T>>& weights) {
+    struct view {
+        const layer_record& architecture;
+        const std::vector<named_matrix<T>>& weights;
+    } m{architecture, weights};
     // Counted first, so a damaged architecture cannot ask for more memory
     // than the weights stored beside it take.
     std::size_t stored = 0;
@@ -1059,6 +1110,7 @@ template <class T>
 model_file<T> make_model_file(fitted_model<T>& model, const table& t, const std::vector<std::size_t>& train_rows,
                               const model_settings& settings, const model_file_options& options = {}) {
     model_file<T> m = capture_network(model.net);
+    for (auto& member : model.members) m.members.push_back(capture_network(member).weights);
     m.plan.emplace(model.plan);
     training_metadata meta;
     meta.library_version = version_string();
@@ -1094,6 +1146,7 @@ model_file<T> make_model_file(fitted_model<T>& model, const table& t, const std:
     meta.settings.emplace_back("learning_rate", number_to_text(settings.learning_rate));
     meta.settings.emplace_back("batch_size", std::to_string(settings.batch_size));
     meta.settings.emplace_back("patience", std::to_string(settings.patience));
+    meta.settings.emplace_back("ensemble", std::to_string(model.member_count()));
     m.metadata = std::move(meta);
     m.references = measure_references(t, train_rows, model.plan, options.histogram_bins);
     if (options.replay_rows > 0) m.replay = sample_replay_rows(t, train_rows, options.replay_rows, settings.seed);

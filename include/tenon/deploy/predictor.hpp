@@ -2,7 +2,8 @@
 //
 // A predictor is built once from a model file or a fitted model. It copies
 // the weights into flat buffers and compiles the network into a list of
-// steps (dense, activation, normalization, residual sum); no tape is used.
+// steps (dense, activation, normalization, residual and linear-bypass sums);
+// no tape is used.
 // Every call then applies the stored plan to raw rows (named cells, cells in
 // input-column order, or a host's own row type through row_fields<Row>),
 // checks them, runs the steps on buffers sized at construction for up to
@@ -139,6 +140,13 @@ struct prediction_view {
     std::size_t width = 0;
     const range_flag* flags = nullptr;  // rows x columns (empty for prepared calls)
     std::size_t columns = 0;
+    /// A seed ensemble's members (1 for one network). `values` is their mean;
+    /// `spread` (rows x width) their sample standard deviation (n - 1; zeros
+    /// for one member) per output, in the units of `values`; member m's own
+    /// outputs are the rows x width block at member_values + m x rows x width.
+    std::size_t members = 1;
+    const T* spread = nullptr;
+    const T* member_values = nullptr;
 
     T at(std::size_t row, std::size_t k) const noexcept { return values[row * width + k]; }
     range_flag flag(std::size_t row, std::size_t column) const noexcept { return flags[row * columns + column]; }
@@ -230,6 +238,7 @@ struct compiled_model {
     std::vector<program_step> steps;
     std::vector<std::size_t> buffer_widths;  // buffer 0 holds the prepared features
     std::size_t output_buffer = 0;
+    std::vector<std::size_t> member_buffers;  // output buffers of a seed ensemble's other members
     std::vector<T> store;  // every weight, flushed of subnormals
 
     std::size_t put(const matrix<T>& m) {
@@ -301,9 +310,31 @@ struct compiled_model {
             s.kind = step_kind::add;
             s.in2 = inner;
             s.outputs = width;
+        } else if (auto* lb = dynamic_cast<linear_bypass<T>*>(&l)) {
+            if (lb->inputs() != width)
+                raise(codes::deploy_shape_mismatch, "predictor: linear bypass '" + lb->qualified_name() + "' takes " +
+                                                        std::to_string(lb->inputs()) + " inputs, it is given " + std::to_string(width));
+            std::size_t inner = in;
+            for (std::size_t i = 0; i < lb->layer_count(); ++i) inner = compile_layer(lb->layer_at(i), inner);
+            if (buffer_widths[inner] != lb->outputs())
+                raise(codes::deploy_shape_mismatch, "predictor: linear bypass '" + lb->qualified_name() + "' inner output has the wrong width");
+            // The linear path x W (a dense step without bias), then f(x) + x W as the tape adds them.
+            program_step path;
+            path.kind = step_kind::dense;
+            path.in = in;
+            path.inputs = width;
+            path.outputs = lb->outputs();
+            path.a = put(lb->linear_weights().value());
+            path.out = new_buffer(path.outputs);
+            steps.push_back(path);
+            s.kind = step_kind::add;
+            s.in = inner;
+            s.in2 = path.out;
+            s.inputs = lb->outputs();
+            s.outputs = lb->outputs();
         } else {
             raise(codes::deploy_unsupported_layer, std::string("predictor: layer '") + l.qualified_name() + "' of kind '" + l.kind() +
-                                                       "' cannot be evaluated (dense, activation, dropout, layer_norm, batch_norm, residual)");
+                                                       "' cannot be evaluated (dense, activation, dropout, layer_norm, batch_norm, residual, linear_bypass)");
         }
         s.out = new_buffer(s.outputs);
         steps.push_back(s);
@@ -328,13 +359,19 @@ public:
     /// From a loaded model file (the plan and reference summaries come with it).
     explicit predictor(const model_file<T>& file, std::size_t capacity = 64) : capacity_(capacity) {
         network<T> net = rebuild_network(file);
-        model_ = build_program(net, file.plan ? &*file.plan : nullptr, file.references);
+        std::vector<network<T>> others;
+        for (std::size_t k = 1; k <= file.members.size(); ++k) others.push_back(rebuild_member(file, k));
+        std::vector<network<T>*> members;
+        for (auto& n : others) members.push_back(&n);
+        model_ = build_program(net, file.plan ? &*file.plan : nullptr, file.references, members);
         allocate();
     }
     /// From a trainer's result (no reference summaries: nothing is flagged;
     /// build it from make_model_file(...) to get them).
     explicit predictor(fitted_model<T>& model, std::size_t capacity = 64) : capacity_(capacity) {
-        model_ = build_program(model.net, &model.plan, {});
+        std::vector<network<T>*> members;
+        for (auto& n : model.members) members.push_back(&n);
+        model_ = build_program(model.net, &model.plan, {}, members);
         allocate();
     }
     /// From a network alone (prepared features in, network outputs out) or
@@ -377,6 +414,8 @@ public:
     const std::string& input_name(std::size_t k) const noexcept { return model_->columns[k].name; }
     std::size_t feature_count() const noexcept { return model_->feature_count; }
     std::size_t output_count() const noexcept { return model_->output_count; }
+    /// Networks averaged: 1, or a seed ensemble's member count.
+    std::size_t member_count() const noexcept { return 1 + model_->member_buffers.size(); }
     bool is_classification() const noexcept { return model_->classification; }
     const std::vector<std::string>& class_names() const noexcept { return model_->class_names; }
     const std::vector<feature_reference>& references() const noexcept { return model_->references; }
@@ -516,7 +555,8 @@ private:
         if (!s.ok()) raise(s.code_text(), describe(s, rows, prepared));
     }
 
-    static std::shared_ptr<const model_type> build_program(network<T>& net, const measured_plan* plan, const std::vector<feature_reference>& refs) {
+    static std::shared_ptr<const model_type> build_program(network<T>& net, const measured_plan* plan, const std::vector<feature_reference>& refs,
+                                                           const std::vector<network<T>*>& members = {}) {
         auto m = std::make_shared<model_type>();
         std::size_t width = 0;
         if (plan) {
@@ -557,7 +597,9 @@ private:
         } else {
             for (std::size_t i = 0; i < net.layer_count() && width == 0; ++i)
                 if (auto* d = dynamic_cast<dense<T>*>(&net.layer_at(i))) width = d->inputs();
-            if (width == 0) raise(codes::deploy_shape_mismatch, "predictor: without a plan the first layer must be dense to fix the input width");
+                else if (auto* b = dynamic_cast<linear_bypass<T>*>(&net.layer_at(i))) width = b->inputs();
+            if (width == 0)
+                raise(codes::deploy_shape_mismatch, "predictor: without a plan the first layer must be dense or a linear bypass to fix the input width");
         }
         m->references = refs;
         m->feature_count = width;
@@ -565,6 +607,15 @@ private:
         for (std::size_t i = 0; i < net.layer_count(); ++i) buffer = m->compile_layer(net.layer_at(i), buffer);
         m->output_buffer = buffer;
         m->output_count = m->buffer_widths[buffer];
+        // A seed ensemble's other members read the same prepared features (buffer 0).
+        for (network<T>* member : members) {
+            std::size_t b = 0;
+            for (std::size_t i = 0; i < member->layer_count(); ++i) b = m->compile_layer(member->layer_at(i), b);
+            if (m->buffer_widths[b] != m->output_count)
+                raise(codes::deploy_shape_mismatch, "predictor: an ensemble member gives " + std::to_string(m->buffer_widths[b]) +
+                                                        " outputs, the first gives " + std::to_string(m->output_count));
+            m->member_buffers.push_back(b);
+        }
         if (m->classification && m->output_count != m->class_names.size())
             raise(codes::deploy_shape_mismatch, "predictor: the network gives " + std::to_string(m->output_count) + " outputs for " +
                                                     std::to_string(m->class_names.size()) + " classes");
@@ -582,10 +633,15 @@ private:
         std::vector<std::vector<T>> buffers(model_->buffer_widths.size());
         for (std::size_t b = 0; b < buffers.size(); ++b) buffers[b].assign(capacity_ * model_->buffer_widths[b], T(0));
         std::vector<T> outputs(capacity_ * model_->output_count, T(0));
+        const std::size_t members = 1 + model_->member_buffers.size();
+        std::vector<T> member_values(members > 1 ? members * capacity_ * model_->output_count : 0, T(0));
+        std::vector<T> spread(capacity_ * model_->output_count, T(0));
         std::vector<range_flag> flags(capacity_ * std::max<std::size_t>(1, input_count()), range_flag::inside);
         std::vector<std::array<char, 32>> text(input_count());
         buffers_.swap(buffers);
         outputs_.swap(outputs);
+        member_values_.swap(member_values);
+        spread_.swap(spread);
         flags_.swap(flags);
         text_.swap(text);
         warm_up();
@@ -718,24 +774,58 @@ private:
             }
             for (std::size_t k = 0; k < size; ++k) y[k] = detail::flush_subnormal(y[k]);
         }
-        const std::size_t w = m.output_count;
-        const T* z = buffers_[m.output_buffer].data();
+        const std::size_t w = m.output_count, size = rows * w;
+        const std::size_t members = 1 + m.member_buffers.size();
         T* o = outputs_.data();
-        if (m.classification) {
-            // As softmax_rows in train/trainer.hpp: shifted by the row maximum.
-            for (std::size_t i = 0; i < rows; ++i) {
-                const T* zi = z + i * w;
-                T* q = o + i * w;
-                const T mx = *std::max_element(zi, zi + w);
-                T sum = T(0);
-                for (std::size_t j = 0; j < w; ++j) sum += (q[j] = std::exp(zi[j] - mx));
-                for (std::size_t j = 0; j < w; ++j) q[j] /= sum;
+        // Each member's probabilities (classification) or prepared values;
+        // the mean sums them in member order and divides by the count, as
+        // fit_model's predict_prepared does.
+        const auto member_outputs = [&](std::size_t k, T* q) noexcept {
+            const T* z = buffers_[k == 0 ? m.output_buffer : m.member_buffers[k - 1]].data();
+            if (m.classification) {
+                // As softmax_rows in train/trainer.hpp: shifted by the row maximum.
+                for (std::size_t i = 0; i < rows; ++i) {
+                    const T* zi = z + i * w;
+                    T* qi = q + i * w;
+                    const T mx = *std::max_element(zi, zi + w);
+                    T sum = T(0);
+                    for (std::size_t j = 0; j < w; ++j) sum += (qi[j] = std::exp(zi[j] - mx));
+                    for (std::size_t j = 0; j < w; ++j) qi[j] /= sum;
+                }
+            } else {
+                std::copy(z, z + size, q);
             }
-        } else if (m.regression) {
-            for (std::size_t k = 0; k < rows * w; ++k) o[k] = static_cast<T>(m.target_scale.inverse(static_cast<double>(z[k])));
+        };
+        const auto to_target_units = [&](T* v) noexcept {
+            if (m.regression)
+                for (std::size_t k = 0; k < size; ++k) v[k] = static_cast<T>(m.target_scale.inverse(static_cast<double>(v[k])));
+        };
+        T* spread = spread_.data();
+        const T* member_values = o;
+        if (members == 1) {
+            member_outputs(0, o);
+            to_target_units(o);
+            std::fill(spread, spread + size, T(0));
         } else {
-            std::copy(z, z + rows * w, o);
+            T* mv = member_values_.data();
+            for (std::size_t k = 0; k < members; ++k) member_outputs(k, mv + k * size);
+            std::copy(mv, mv + size, o);
+            for (std::size_t k = 1; k < members; ++k)
+                for (std::size_t e = 0; e < size; ++e) o[e] += mv[k * size + e];
+            for (std::size_t e = 0; e < size; ++e) o[e] /= static_cast<T>(members);
+            to_target_units(o);
+            for (std::size_t k = 0; k < members; ++k) to_target_units(mv + k * size);
+            // Sample standard deviation (n - 1) about the mean, in the outputs' units.
+            for (std::size_t e = 0; e < size; ++e) {
+                T squares = T(0);
+                for (std::size_t k = 0; k < members; ++k) squares += (mv[k * size + e] - o[e]) * (mv[k * size + e] - o[e]);
+                spread[e] = std::sqrt(squares / static_cast<T>(members - 1));
+            }
+            member_values = mv;
         }
+        out.members = members;
+        out.spread = spread;
+        out.member_values = member_values;
         out.values = o;
         out.rows = rows;
         out.width = w;
@@ -787,6 +877,8 @@ private:
     std::size_t capacity_ = 0;
     std::vector<std::vector<T>> buffers_;
     std::vector<T> outputs_;
+    std::vector<T> member_values_;  // members x rows x width (an ensemble only)
+    std::vector<T> spread_;         // rows x width
     std::vector<range_flag> flags_;
     std::vector<std::array<char, 32>> text_;  // numbers given for categorical columns, as text
     std::uint64_t generation_ = 0;            // of the holder it was refreshed from

@@ -117,7 +117,7 @@ bool weights_agree(network<T>& net, communicator& c) {
     return high == ~negated;
 }
 
-/// Reseeds every dropout layer's engine of `net` (residual blocks included)
+/// Reseeds every dropout layer's engine of `net` (blocks' layers included)
 /// with a stream of its own for this rank, so the ranks draw independent
 /// masks. Call on every rank after building the network, before training.
 template <class T>
@@ -128,6 +128,8 @@ void seed_dropout_per_rank(network<T>& net, std::uint64_t seed, std::size_t rank
         ++k;
         if (auto* block = dynamic_cast<residual<T>*>(&l))
             for (std::size_t i = 0; i < block->layer_count(); ++i) self(block->layer_at(i), self);
+        if (auto* bypass = dynamic_cast<linear_bypass<T>*>(&l))
+            for (std::size_t i = 0; i < bypass->layer_count(); ++i) self(bypass->layer_at(i), self);
     };
     for (std::size_t i = 0; i < net.layer_count(); ++i) visit(net.layer_at(i), visit);
 }

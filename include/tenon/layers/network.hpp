@@ -190,6 +190,83 @@ private:
     detail::layer_chain<T> chain_;
 };
 
+/// y = f(x) + x W: the chain of layers f beside a linear path from the
+/// block's inputs to its outputs (a skip-layer connection, Ripley 1996,
+/// "Pattern Recognition and Neural Networks", section 5.1). Where the data
+/// is linear the network then extrapolates like a linear model and f learns
+/// only the remainder. W (inputs x outputs, no bias: f's last layer has one)
+/// is the parameter "<block>.linear_weights"; it starts at zero, so a new
+/// block computes f(x) alone.
+template <class T>
+class linear_bypass : public layer<T> {
+public:
+    linear_bypass(std::size_t inputs, std::size_t outputs) : inputs_(inputs), outputs_(outputs), linear_("linear_weights", shape2{inputs, outputs}) {
+        if (inputs == 0 || outputs == 0) {
+            raise(codes::model_layer_option, "linear bypass: inputs and outputs must be positive, got " + std::to_string(inputs) + " x " +
+                                                 std::to_string(outputs));
+        }
+        renamed();
+    }
+
+    /// Appends a layer to f; an empty name becomes kind + position.
+    layer<T>& add(std::unique_ptr<layer<T>> l, std::string name = {}) {
+        return chain_.add(std::move(l), std::move(name), this->qualified_name(), "linear bypass");
+    }
+    template <class L, class = std::enable_if_t<std::is_base_of_v<layer<T>, std::decay_t<L>>>>
+    std::decay_t<L>& add(L&& l, std::string name = {}) {
+        return static_cast<std::decay_t<L>&>(add(std::make_unique<std::decay_t<L>>(std::forward<L>(l)), std::move(name)));
+    }
+
+    var<T> forward(tape<T>& t, var<T> x, run_mode mode) override {
+        this->require_width(x.shape().cols, inputs_);
+        const var<T> fx = chain_.forward(t, x, mode);
+        if (fx.shape().cols != outputs_) require_shape(fx.shape(), shape2{x.shape().rows, outputs_}, "linear bypass '" + this->qualified_name() + "' inner output");
+        return fx + matmul(x, t.track(linear_));
+    }
+
+    const char* kind() const noexcept override { return "linear_bypass"; }
+
+    layer_record describe() const override {
+        layer_record r = this->base_record();
+        r.set_number("inputs", static_cast<double>(inputs_));
+        r.set_number("outputs", static_cast<double>(outputs_));
+        chain_.describe_into(r.children);
+        return r;
+    }
+
+    std::size_t output_width(std::size_t input_width) const override {
+        this->require_width(input_width, inputs_);
+        const std::size_t w = chain_.output_width(input_width);
+        require_shape(shape2{1, w}, shape2{1, outputs_}, "linear bypass '" + this->qualified_name() + "' inner output");
+        return outputs_;
+    }
+
+    void collect_parameters(std::vector<parameter<T>*>& out) override {
+        chain_.collect_parameters(out);
+        out.push_back(&linear_);
+    }
+    void collect_state(std::vector<parameter<T>*>& out) override { chain_.collect_state(out); }
+
+    std::size_t inputs() const noexcept { return inputs_; }
+    std::size_t outputs() const noexcept { return outputs_; }
+    parameter<T>& linear_weights() noexcept { return linear_; }
+    std::size_t layer_count() const noexcept { return chain_.size(); }
+    layer<T>& layer_at(std::size_t i) { return chain_.at(i); }
+
+protected:
+    void renamed() override {
+        const std::string q = this->qualified_name();
+        linear_.set_name(q.empty() ? "linear_weights" : q + ".linear_weights");
+        chain_.set_prefix(q);
+    }
+
+private:
+    std::size_t inputs_;
+    std::size_t outputs_;
+    detail::layer_chain<T> chain_;
+    parameter<T> linear_;
+};
+
 /// A copy of every parameter and state buffer of a network, in order.
 template <class T>
 struct network_snapshot {
@@ -344,9 +421,13 @@ std::unique_ptr<layer<T>> make_layer(const layer_record& r) {
         auto block = std::make_unique<residual<T>>();
         for (const auto& c : r.children) block->add(make_layer<T>(c), c.name);
         l = std::move(block);
+    } else if (r.kind == "linear_bypass") {
+        auto block = std::make_unique<linear_bypass<T>>(r.count("inputs"), r.count("outputs"));
+        for (const auto& c : r.children) block->add(make_layer<T>(c), c.name);
+        l = std::move(block);
     } else {
         raise(codes::model_unknown_kind, "layer record '" + r.name + "': kind '" + r.kind +
-                                             "' is not known (dense, activation, dropout, layer_norm, batch_norm, residual)");
+                                             "' is not known (dense, activation, dropout, layer_norm, batch_norm, residual, linear_bypass)");
     }
     l->set_name(r.name);
     return l;
@@ -365,6 +446,7 @@ inline std::size_t record_value_count(const layer_record& r) {
     if (r.kind == "layer_norm") return mul(2, r.count("width"));  // gain, bias
     if (r.kind == "batch_norm") return mul(4, r.count("width"));  // gain, bias, population mean and variance
     std::size_t total = 0;  // network and residual: their children; activation and dropout hold none
+    if (r.kind == "linear_bypass") total = mul(r.count("inputs"), r.count("outputs"));
     for (const auto& c : r.children) total = add(total, record_value_count(c));
     return total;
 }
@@ -391,20 +473,33 @@ network<T> network_from_bytes(const std::vector<std::uint8_t>& bytes) {
 /// after the last (identity adds no layer). Dense layers are named hidden1,
 /// hidden2, ..., output; their activations hidden1_act, ..., output_act.
 /// Weights are drawn in layer order from one engine seeded with `seed`;
-/// biases start at zero.
+/// biases start at zero. With `linear_path` (and at least one hidden layer)
+/// the dense layers sit in a linear_bypass named "bypass" (their parameters
+/// are then "bypass.hidden1.weights", ...; the path's weights start at zero)
+/// and the output activation follows the block.
 template <class T>
 network<T> make_mlp(const std::vector<std::size_t>& sizes, activation hidden, initializer weights_init, std::uint64_t seed,
-                    activation output = activation::identity) {
+                    activation output = activation::identity, bool linear_path = false) {
     if (sizes.size() < 2) {
         raise(codes::model_layer_option, "make_mlp: needs at least an input and an output size, got " + std::to_string(sizes.size()) + " size(s)");
     }
     random_engine engine(seed);
     network<T> net;
+    const bool bypass = linear_path && sizes.size() > 2;
+    std::unique_ptr<linear_bypass<T>> block;
+    if (bypass) block = std::make_unique<linear_bypass<T>>(sizes.front(), sizes.back());
     for (std::size_t i = 0; i + 1 < sizes.size(); ++i) {
         const bool last = i + 2 == sizes.size();
         const std::string name = last ? std::string("output") : "hidden" + std::to_string(i + 1);
-        net.add(dense<T>(sizes[i], sizes[i + 1], engine, weights_init), name);
         const activation a = last ? output : hidden;
+        if (bypass) {
+            block->add(dense<T>(sizes[i], sizes[i + 1], engine, weights_init), name);
+            if (!last && a != activation::identity) block->add(activation_layer<T>(a), name + "_act");
+            if (last) net.add(std::move(block), "bypass");
+            if (last && a != activation::identity) net.add(activation_layer<T>(a), name + "_act");
+            continue;
+        }
+        net.add(dense<T>(sizes[i], sizes[i + 1], engine, weights_init), name);
         if (a != activation::identity) net.add(activation_layer<T>(a), name + "_act");
     }
     return net;

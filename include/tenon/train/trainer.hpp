@@ -251,6 +251,19 @@ struct training_options {
     /// A validation loss counts as an improvement when it is lower than the
     /// best so far by more than this.
     double min_improvement = 0.0;
+    /// Early stopping counted in optimizer steps as well: with a value above
+    /// 0 the run stops only when both `patience` epochs and this many steps
+    /// have passed since the best epoch, so a small data set (a few steps an
+    /// epoch) is not stopped after a few dozen updates. 0: epochs alone.
+    std::size_t patience_steps = 0;
+    /// Early stopping never ends a run before this many optimizer steps (the
+    /// epoch limit, the budget and cancellation still do).
+    std::size_t min_steps = 0;
+    /// Judge improvement on an exponentially smoothed validation loss,
+    /// s = smoothing s + (1 - smoothing) loss, in [0, 1); 0 judges the raw
+    /// loss. A small validation set gives a noisy curve whose single low
+    /// point would otherwise pick the kept epoch and restart the patience.
+    double smoothing = 0.0;
     /// Keep the best epoch's weights when training stops (put them back).
     bool keep_best = true;
     loss_kind loss = loss_kind::l2;
@@ -411,6 +424,12 @@ public:
                                            std::to_string(options_.loss_settings.sample_weights.size()) +
                                            " weights); use class weights, or record the loss yourself per batch");
         }
+        if (!(options_.smoothing >= 0.0 && options_.smoothing < 1.0)) {
+            raise(codes::train_option, "trainer: smoothing must be in [0, 1), got " + std::to_string(options_.smoothing));
+        }
+        if (options_.resume && (options_.patience_steps > 0 || options_.min_steps > 0 || options_.smoothing > 0.0)) {
+            raise(codes::train_option, "trainer: a resumed run counts patience in epochs only (patience_steps, min_steps and smoothing must be 0)");
+        }
         if (!options_.clock) options_.clock = detail::steady_seconds;
     }
 
@@ -467,7 +486,14 @@ public:
 
         network_snapshot<T> best, epoch_start;
         double best_loss = std::numeric_limits<double>::infinity();
+        double smoothed = std::numeric_limits<double>::quiet_NaN();
         std::size_t since_best = 0;
+        std::uint64_t best_step = 0;
+        // Patience: epochs, and steps when asked, since the best epoch; never before min_steps.
+        const auto patience_spent = [&] {
+            return options_.patience > 0 && since_best >= options_.patience && out.steps - best_step >= options_.patience_steps &&
+                   out.steps >= options_.min_steps;
+        };
         double rate_factor = 1.0;
         bool stop = false;
         std::size_t epoch = 0;
@@ -554,10 +580,13 @@ public:
                     out.history.push_back(s);
                     break;
                 }
-                if (s.validation_loss < best_loss - options_.min_improvement || out.best_epoch == 0) {
-                    best_loss = s.validation_loss;
+                const double a = options_.smoothing;
+                smoothed = out.best_epoch == 0 || a == 0.0 ? s.validation_loss : a * smoothed + (1.0 - a) * s.validation_loss;
+                if (smoothed < best_loss - options_.min_improvement || out.best_epoch == 0) {
+                    best_loss = smoothed;
                     out.best_epoch = epoch + 1;
-                    out.best_validation_loss = best_loss;
+                    out.best_validation_loss = s.validation_loss;
+                    best_step = out.steps;
                     net_.snapshot_into(best);
                     since_best = 0;
                 } else {
@@ -595,10 +624,10 @@ public:
                 out.reason = stop_reason::cancelled;
                 out.message = "stopped by the epoch observer after epoch " + std::to_string(epoch);
                 stop = true;
-            } else if (validate && options_.patience > 0 && since_best >= options_.patience) {
+            } else if (validate && patience_spent()) {
                 out.reason = stop_reason::no_improvement;
-                out.message = "no validation improvement for " + std::to_string(options_.patience) + " epochs; best was epoch " +
-                              std::to_string(out.best_epoch);
+                out.message = "no validation improvement for " + std::to_string(since_best) + " epochs (" +
+                              std::to_string(out.steps - best_step) + " steps); best was epoch " + std::to_string(out.best_epoch);
                 stop = true;
             } else if (out_of_time) {
                 out.reason = stop_reason::time_budget;
