@@ -10,7 +10,7 @@ packages="ninja-build g++ cmake
   doctest-dev libbenchmark-dev
   libeigen3-dev zlib1g-dev libopenblas-dev
   libopenmpi-dev openmpi-bin
-  dataset-fashion-mnist"
+  dataset-fashion-mnist python3-vega-datasets"
 
 missing=""
 for p in $packages; do

@@ -226,6 +226,11 @@ TEST_CASE("expected calibration error of a worked example over 15 bins") {
         for (std::size_t k = 0; k < 2; ++k) p.data()[i * 2 + k] = rows[i][k];
     const std::vector<std::size_t> labels{0, 0, 1, 1, 0};
     CHECK(tenon::expected_calibration_error(p, labels) == doctest::Approx((0.82 + 0.81 + 0.3 + 0.55) / 5.0).epsilon(1e-12));
+    const auto bins = tenon::reliability_bins(p, labels);
+    CHECK(bins[13].rows == 2);
+    CHECK(bins[13].accuracy == 0.5);
+    CHECK(bins[13].confidence == doctest::Approx(0.91).epsilon(1e-12));
+    CHECK(bins[12].rows == 1);  // 0.81: ceil(12.15) - 1
     // One bin: |accuracy - mean confidence| = |2/5 - 3.88/5|.
     CHECK(tenon::expected_calibration_error(p, labels, 1) == doctest::Approx(std::abs(2.0 - 3.88) / 5.0).epsilon(1e-12));
 }

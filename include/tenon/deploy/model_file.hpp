@@ -58,7 +58,8 @@
 TENON_NAMESPACE_BEGIN
 
 /// The newest model-file format version this build writes and reads
-/// (2 added section CALB; version-1 files load without calibration).
+/// (2 added section CALB; a file without it is still written as version 1,
+/// and version-1 files load without calibration).
 inline constexpr std::uint16_t model_format_version = 2;
 
 /// Limits checked while loading, before anything is allocated.
@@ -858,7 +859,9 @@ template <class T>
 std::vector<std::uint8_t> model_file_to_bytes(const model_file<T>& m) {
     TENON_REQUIRE_SCALAR(T);
     std::vector<std::uint8_t> out(detail::model_magic, detail::model_magic + 8);
-    detail::put_u16(out, model_format_version);
+    // Version 2 only where it is needed (section CALB), so that files without
+    // calibration still load in builds that read version 1.
+    detail::put_u16(out, detail::has_calibration(m.calibration) ? model_format_version : std::uint16_t(1));
     detail::put_u16(out, 0);
     detail::put_u32(out, detail::byte_order_mark);
     out.push_back(static_cast<std::uint8_t>(sizeof(T)));

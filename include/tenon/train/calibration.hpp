@@ -248,28 +248,15 @@ double fit_temperature(const matrix<T>& logits, const std::vector<std::size_t>& 
 
 /// Expected calibration error over `bins` equal-width bins of the top
 /// probability: sum over bins of |B|/n * |accuracy(B) - mean confidence(B)|
-/// (Naeini, Cooper & Hauskrecht 2015; Guo et al. 2017, equation 3; a
-/// confidence c falls in bin ceil(c * bins) - 1).
+/// (Naeini, Cooper & Hauskrecht 2015; Guo et al. 2017, equation 3), on the
+/// bins of reliability_bins.
 template <class T>
 double expected_calibration_error(const matrix<T>& probabilities, const std::vector<std::size_t>& labels, std::size_t bins = 15) {
-    const std::size_t rows = probabilities.shape()[0], cols = probabilities.shape()[1];
-    if (rows == 0 || rows != labels.size() || bins == 0)
-        raise(codes::invalid_argument, "expected_calibration_error: " + std::to_string(rows) + " rows for " + std::to_string(labels.size()) +
-                                           " labels, " + std::to_string(bins) + " bins");
-    std::vector<double> confidence(bins, 0.0), correct(bins, 0.0), count(bins, 0.0);
-    for (std::size_t i = 0; i < rows; ++i) {
-        const T* p = probabilities.data() + i * cols;
-        const std::size_t best = static_cast<std::size_t>(std::max_element(p, p + cols) - p);
-        const double c = static_cast<double>(p[best]);
-        const double position = std::ceil(c * static_cast<double>(bins)) - 1.0;
-        const std::size_t bin = position < 0.0 ? 0 : std::min(bins - 1, static_cast<std::size_t>(position));
-        confidence[bin] += c;
-        correct[bin] += best == labels[i] ? 1.0 : 0.0;
-        count[bin] += 1.0;
-    }
+    if (probabilities.shape()[0] == 0) raise(codes::invalid_argument, "expected_calibration_error: no rows");
     double ece = 0.0;
-    for (std::size_t b = 0; b < bins; ++b) ece += std::abs(correct[b] - confidence[b]);  // |B| * |acc - conf| = |sum correct - sum conf|
-    return ece / static_cast<double>(rows);
+    for (const reliability_bin& b : reliability_bins(probabilities, labels, bins))
+        ece += static_cast<double>(b.rows) * std::abs(b.accuracy - b.confidence);
+    return ece / static_cast<double>(labels.size());
 }
 
 // --- class sets -------------------------------------------------------------------------------
@@ -355,6 +342,9 @@ struct calibration_scores {
     double ece = 0.0;               // after temperature scaling
     double log_loss_uncalibrated = 0.0;
     double log_loss = 0.0;
+    // per row (regression) and per bin (classification), e.g. for a report
+    std::vector<double> predicted, actual, low, high;
+    std::vector<reliability_bin> reliability_uncalibrated, reliability;
 };
 
 namespace detail {
@@ -411,6 +401,8 @@ calibration_scores score_calibration(network<T>& net, const measured_plan& plan,
         const matrix<T> raw = softmax_rows(outputs), tempered = tempered_softmax_rows(outputs, c.classes->temperature);
         s.ece_uncalibrated = expected_calibration_error(raw, labels);
         s.ece = expected_calibration_error(tempered, labels);
+        s.reliability_uncalibrated = reliability_bins(raw, labels);
+        s.reliability = reliability_bins(tempered, labels);
         s.log_loss_uncalibrated = log_loss(raw, labels);
         s.log_loss = log_loss(tempered, labels);
         const set_scores sets = score_class_sets(*c.classes, tempered, labels);
@@ -418,11 +410,11 @@ calibration_scores score_calibration(network<T>& net, const measured_plan& plan,
         s.set_mean_size = sets.mean_size;
     } else {
         if (!c.interval) raise(codes::invalid_argument, "score_calibration: the calibration has no interval for a regression model");
-        std::vector<double> predicted, actual;
-        detail::original_units(plan, outputs, rows, predicted, actual);
-        std::vector<double> low(predicted.size()), high(predicted.size());
-        interval_bounds<double>(*c.interval, predicted.data(), nullptr, predicted.size(), low.data(), high.data());
-        const interval_scores i = score_intervals(actual.data(), low.data(), high.data(), actual.size());
+        detail::original_units(plan, outputs, rows, s.predicted, s.actual);
+        s.low.resize(s.predicted.size());
+        s.high.resize(s.predicted.size());
+        interval_bounds<double>(*c.interval, s.predicted.data(), nullptr, s.predicted.size(), s.low.data(), s.high.data());
+        const interval_scores i = score_intervals(s.actual.data(), s.low.data(), s.high.data(), s.actual.size());
         s.interval_coverage = i.coverage;
         s.interval_mean_width = i.mean_width;
     }
