@@ -12,6 +12,7 @@
 #include <cstring>
 #include <filesystem>
 #include <fstream>
+#include <limits>
 #include <sstream>
 #include <string>
 #include <vector>
@@ -157,7 +158,13 @@ TEST_CASE("infer reproduces the trained classifier's predictions to the last bit
         const auto& row = records[i + 1];
         REQUIRE(row.size() == 6);
         CHECK(row[0] == "C" + std::to_string(1000 + i));
-        for (std::size_t c = 0; c < 2; ++c) mismatches += same_bits(std::strtof(row[2 + c].c_str(), nullptr), expected(i, c)) ? 0 : 1;
+        // The predictor flushes a subnormal result to zero (deploy/predictor.hpp,
+        // "Denormals"); the temperature's division can make such tiny probabilities.
+        for (std::size_t c = 0; c < 2; ++c) {
+            const float written = std::strtof(row[2 + c].c_str(), nullptr);
+            const bool flushed = written == 0.0f && std::abs(expected(i, c)) < std::numeric_limits<float>::min();
+            mismatches += same_bits(written, expected(i, c)) || flushed ? 0 : 1;
+        }
         CHECK(row[1] == classes[expected(i, 1) > expected(i, 0) ? 1 : 0]);
         // The set: the classes with 1 - p <= the threshold, the predicted one always among them, joined by '|'.
         std::string likely;

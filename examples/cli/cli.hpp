@@ -1565,7 +1565,9 @@ inline std::string calibration_note(const tenon::model_calibration* c, double co
     if (classify)
         return "calibration: temperature " + fixed(c->classes->temperature, 4) + "; class sets meant to hold the true class for " + percent +
                " of new rows" + (std::isfinite(c->classes->set_threshold) ? std::string() : " (too few validation rows: every class is listed)") + "\n";
-    return "calibration: band of +-" + (std::isfinite(c->interval->half_width) ? tenon::number_to_text(c->interval->half_width) : std::string("infinity")) +
+    char width[32];
+    std::snprintf(width, sizeof width, "%.6g", c->interval->half_width);
+    return "calibration: band of +-" + (std::isfinite(c->interval->half_width) ? std::string(width) : std::string("infinity")) +
            " meant to hold the true value for " + percent + " of new rows" +
            (std::isfinite(c->interval->half_width) ? std::string() : " (too few validation rows for this coverage)") + "\n";
 }

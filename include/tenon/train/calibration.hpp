@@ -10,7 +10,8 @@
 // widens where the model is unsure. Classification: temperature scaling
 // (Guo, Pleiss, Sun & Weinberger 2017, section 4.2) fitted on the validation
 // log loss, then conformal class sets with the score 1 - p(true class)
-// (Sadinle, Lei & Wasserman 2019).
+// (Sadinle, Lei & Wasserman 2019). Section and equation numbers of the
+// papers are cited from memory.
 #pragma once
 
 #include <algorithm>
