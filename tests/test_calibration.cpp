@@ -326,3 +326,44 @@ TEST_CASE("a fitted network calibrated on its validation rows covers its test ro
     CHECK(scores.interval_mean_width == doctest::Approx(2.0 * c.interval->half_width).epsilon(1e-6));
     CHECK_THROWS_WITH_AS(tenon::calibrate_model(model, t, {}, 0.9), doctest::Contains("[train.rows.empty]"), tenon::error);
 }
+
+TEST_CASE("temperature scaling lowers the test ECE and log loss of a network trained to overconfidence") {
+    // An invented sorting line: a part is rejected when its two gauge
+    // readings fall outside a ring, and one label in five is wrong (a noisy
+    // inspector). A wide network trained 300 epochs without early stopping
+    // on 400 rows fits the noise and becomes overconfident (Guo et al. 2017,
+    // section 3, report this of networks trained long on the log loss).
+    tenon::random_engine rng(51);
+    std::ostringstream csv;
+    csv << "gauge_a,gauge_b,verdict\n";
+    for (int i = 0; i < 2800; ++i) {
+        const double a = rng.uniform(-2.0, 2.0), b = rng.uniform(-2.0, 2.0);
+        const double r = std::sqrt(a * a + b * b);
+        bool reject = r < 0.8 || r > 1.6;
+        if (rng.uniform(0.0, 1.0) < 0.2) reject = !reject;
+        csv << a << "," << b << "," << (reject ? "reject" : "pass") << "\n";
+    }
+    std::istringstream in(csv.str());
+    const tenon::table t = tenon::read_csv(in, {}, "gauges.csv");
+    tenon::plan p;
+    p.set_target("verdict", tenon::target_kind::classification);
+    std::vector<std::size_t> train, calibration, test;
+    for (std::size_t i = 0; i < 2800; ++i) (i < 400 ? train : i < 800 ? calibration : test).push_back(i);
+    tenon::model_settings s;
+    s.hidden = {64, 64};
+    s.epochs = 300;
+    s.patience = 0;
+    s.learning_rate = 0.003;
+    s.seed = 5;
+    auto model = tenon::fit_model<float>(t, p, train, {}, s);
+    const auto c = tenon::calibrate_model(model, t, calibration, 0.9);
+    REQUIRE(c.classes);
+    const auto scores = tenon::score_calibration(model, c, t, test);
+    MESSAGE("temperature " << c.classes->temperature << "; test ECE " << scores.ece_uncalibrated << " -> " << scores.ece << ", log loss "
+                           << scores.log_loss_uncalibrated << " -> " << scores.log_loss);
+    CHECK(c.classes->temperature > 1.0);  // overconfident: the logits are shrunk
+    CHECK(scores.ece < scores.ece_uncalibrated);
+    CHECK(scores.log_loss < scores.log_loss_uncalibrated);
+    // Sets at 0.9 on 2000 test rows; Beta(r, n + 1 - r) with n = 400, r = 361, plus the binomial spread.
+    CHECK(scores.set_coverage >= 0.9 - z_999 * std::sqrt(std::pow(beta_sd(361, 40), 2) + 0.09 / 2000.0));
+}
