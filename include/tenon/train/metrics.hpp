@@ -185,8 +185,8 @@ std::vector<reliability_bin> reliability_bins(const matrix<T>& probabilities, co
         const T* p = probabilities.data() + i * cols;
         const std::size_t best = static_cast<std::size_t>(std::max_element(p, p + cols) - p);
         const double c = static_cast<double>(p[best]);
-        const double position = std::ceil(c * static_cast<double>(bins)) - 1.0;
-        const std::size_t b = position < 0.0 ? 0 : std::min(bins - 1, static_cast<std::size_t>(position));
+        const double position = std::ceil(c * static_cast<double>(bins)) - 1.0;  // NaN: the first bin
+        const std::size_t b = !(position > 0.0) ? 0 : position >= static_cast<double>(bins - 1) ? bins - 1 : static_cast<std::size_t>(position);
         out[b].rows += 1;
         out[b].confidence += c;  // sums until the division below
         out[b].accuracy += best == labels[i] ? 1.0 : 0.0;
