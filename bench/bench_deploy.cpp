@@ -2,7 +2,9 @@
 // (one prepared row, one raw named row, 64 prepared and 64 raw rows) with
 // p50 / p99 / maximum per call, against the tape-based network_outputs of
 // the same row as the reference; two threads' throughput against one; and
-// the time to load a model file and build a predictor from it.
+// the time to load a model file and build a predictor from it; and one row
+// with its calibrated band (train/calibration.hpp) against the same row
+// without it (issue 20 budget: at most 1.2x), the ratio printed.
 //
 // Run: build/<dir>/bench/tenon_bench_deploy
 // (TENON_BENCH_SMOKE=1 in the environment shortens the throughput runs from
@@ -159,6 +161,44 @@ void predictor_64_raw_rows(benchmark::State& state) {
     state.SetItemsProcessed(state.iterations() * 64);
 }
 
+// The same model with a split-conformal band calibrated on its validation rows.
+const tenon::model_file<float>& calibrated_file() {
+    static const tenon::model_file<float> file = [] {
+        tenon::model_file<float> f = model().file;
+        f.calibration = tenon::calibrate_model(model().fitted, model().t, bench_model::rows(1600, 2000), 0.9);
+        return f;
+    }();
+    return file;
+}
+
+void predictor_one_prepared_row_with_band(benchmark::State& state) {
+    tenon::predictor<float> p(calibrated_file(), 64);
+    std::vector<float> row(8, 0.25f);
+    tenon::prediction_view<float> out;
+    timed_loop(state, [&] {
+        p.try_predict_prepared(row.data(), 1, out);
+        benchmark::DoNotOptimize(out.high[0]);
+    });
+}
+
+// Median over `rounds` of the mean time of `calls` one-row calls, in ns.
+double median_call_ns(tenon::predictor<float>& p, int rounds, int calls) {
+    std::vector<float> row(8, 0.25f);
+    tenon::prediction_view<float> out;
+    std::vector<double> means;
+    for (int r = 0; r < rounds; ++r) {
+        const auto t0 = std::chrono::steady_clock::now();
+        for (int c = 0; c < calls; ++c) {
+            p.try_predict_prepared(row.data(), 1, out);
+            benchmark::DoNotOptimize(out.values[0]);
+        }
+        const auto t1 = std::chrono::steady_clock::now();
+        means.push_back(std::chrono::duration<double, std::nano>(t1 - t0).count() / calls);
+    }
+    std::sort(means.begin(), means.end());
+    return means[means.size() / 2];
+}
+
 void predictor_one_subnormal_row(benchmark::State& state) {
     tenon::predictor<float> p(model().file, 64);
     std::vector<float> row(8, 1e-40f);
@@ -222,6 +262,7 @@ double throughput(int threads, double seconds) {
 
 BENCHMARK(reference_tape_one_prepared_row);
 BENCHMARK(predictor_one_prepared_row);
+BENCHMARK(predictor_one_prepared_row_with_band);
 BENCHMARK(predictor_one_subnormal_row);
 BENCHMARK(predictor_one_named_row);
 BENCHMARK(predictor_64_prepared_rows);
@@ -239,5 +280,17 @@ int main(int argc, char** argv) {
     std::printf("throughput, one prepared row per call: 1 thread %.0f calls/s, 2 threads %.0f calls/s, ratio %.2f (ideal 2.00; %u hardware threads)\n",
                 one, two, two / one, std::thread::hardware_concurrency());
     std::printf("model file: %zu bytes\n", tenon::model_file_to_bytes(model().file).size());
+    // Interleaved rounds, so a slower spell of the machine hits both alike.
+    tenon::predictor<float> plain(model().file, 64), banded(calibrated_file(), 64);
+    const int rounds = smoke != nullptr && *smoke != '\0' && std::string(smoke) != "0" ? 5 : 51;
+    std::vector<double> plain_ns, banded_ns;
+    for (int r = 0; r < rounds; ++r) {
+        plain_ns.push_back(median_call_ns(plain, 1, 20000));
+        banded_ns.push_back(median_call_ns(banded, 1, 20000));
+    }
+    std::sort(plain_ns.begin(), plain_ns.end());
+    std::sort(banded_ns.begin(), banded_ns.end());
+    const double a = plain_ns[plain_ns.size() / 2], b = banded_ns[banded_ns.size() / 2];
+    std::printf("one prepared row: %.1f ns, with its band %.1f ns, ratio %.3f (budget 1.20)\n", a, b, b / a);
     return 0;
 }

@@ -153,3 +153,27 @@ TEST_CASE_TEMPLATE("a predictor call on a prepared row allocates nothing", T, fl
     CHECK(ok);
     CHECK(allocations.load() == 0);
 }
+
+TEST_CASE_TEMPLATE("a calibrated predictor's bands and class sets allocate nothing", T, float, double) {
+    const auto table = deploy_test::pump_table(200, 3);
+    const auto train = deploy_test::range(0, 160), validation = deploy_test::range(160, 200);
+    for (const bool classify : {true, false}) {
+        const tenon::plan plan = classify ? deploy_test::condition_plan() : deploy_test::power_plan();
+        auto fitted = tenon::fit_model<T>(table, plan, train, validation, deploy_test::small_settings());
+        auto file = tenon::make_model_file(fitted, table, train, deploy_test::small_settings());
+        file.calibration = tenon::calibrate_model(fitted, table, validation, 0.9);
+        tenon::predictor<T> p(file, 8);
+        const auto features = fitted.plan.template apply<T>(table, validation).features;
+        tenon::prediction_view<T> out;
+        REQUIRE(p.try_predict_prepared(features.data(), 1, out).ok());
+        allocations = 0;
+        counting = true;
+        bool ok = true;
+        for (std::size_t row = 0; row < 8; ++row) ok = ok && p.try_predict_prepared(features.data() + row * features.shape()[1], 1, out).ok();
+        ok = ok && p.try_predict_prepared(features.data(), 8, out).ok();
+        counting = false;
+        CHECK(ok);
+        CHECK(allocations.load() == 0);
+        CHECK((classify ? out.has_class_sets() : out.has_interval()));
+    }
+}

@@ -312,6 +312,8 @@ TEST_CASE("classification metrics hold every documented field; the report has th
     CHECK(svg.rfind("<?xml", 0) == 0);
     CHECK(svg.find("</svg>") != std::string::npos);
     CHECK(svg.find("loose") != std::string::npos);  // class names label the heat map
+    CHECK(svg.find("Reliability (test)") != std::string::npos);  // the calibration's panel
+    for (const char* score : {"set_coverage", "set_mean_size", "ece_uncalibrated", "ece"}) CHECK(m.count(std::string("test.") + score) == 1);
     CHECK(dir.listing() == std::vector<std::string>{"caps.csv", "m.json", "r.svg"});
     CHECK(r.out.find("metrics written to " + dir.file("m.json")) != std::string::npos);
 }

@@ -222,7 +222,7 @@ TEST_CASE("non-regular outputs are written directly and never replaced; '-' and 
     // '-' : the predictions on the tool's standard output, no file named '-'.
     auto r = run({"infer", "--model", p.model, "--data", p.data, "--out", "-"});
     REQUIRE(r.status == 0);
-    CHECK(r.out.rfind("predicted,out_of_range\n", 0) == 0);
+    CHECK(r.out.rfind("predicted,predicted_low,predicted_high,out_of_range\n", 0) == 0);  // a calibrated model: its band too
     CHECK(std::count(r.out.begin(), r.out.end(), '\n') == 241);
     CHECK(!fs::exists(p.dir.file("-")));
     CHECK(!fs::exists("-"));
@@ -247,9 +247,9 @@ TEST_CASE("non-regular outputs are written directly and never replaced; '-' and 
     REQUIRE(reader >= 0);
     r = run({"infer", "--model", p.model, "--data", p.data, "--out", fifo, "--quiet"});
     CHECK(r.status == 0);
-    char head[23] = {};
-    CHECK(::read(reader, head, 22) == 22);
-    CHECK(std::string(head) == "predicted,out_of_range");
+    char head[52] = {};
+    CHECK(::read(reader, head, 51) == 51);
+    CHECK(std::string(head) == "predicted,predicted_low,predicted_high,out_of_range");
     ::close(reader);
     CHECK(temporaries_in(p.dir).empty());
 }

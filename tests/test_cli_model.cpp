@@ -12,6 +12,7 @@
 #include <cstring>
 #include <filesystem>
 #include <fstream>
+#include <limits>
 #include <sstream>
 #include <string>
 #include <vector>
@@ -95,8 +96,10 @@ tool_view split_like_the_tool(const std::vector<std::string>& train_args) {
 }
 
 // The trainer's path for every row of `t`: the stored plan, the rebuilt
-// network's outputs (train/trainer.hpp network_outputs), then softmax or the
-// inverse target scaling, as predict_prepared in train/workflow.hpp does.
+// network's outputs (train/trainer.hpp network_outputs), then softmax (of
+// the logits over the stored temperature, train/calibration.hpp, when the
+// file is calibrated) or the inverse target scaling, as predict_prepared in
+// train/workflow.hpp does.
 tenon::matrix<float> trainer_predictions(const std::string& model_path, const tenon::table& t) {
     const tenon::model_file<float> file = tenon::load_model_file<float>(model_path);
     std::vector<std::size_t> rows(t.row_count());
@@ -104,18 +107,27 @@ tenon::matrix<float> trainer_predictions(const std::string& model_path, const te
     tenon::matrix<float> features;
     file.plan->apply_features(t, rows, features);
     // A seed ensemble's mean: each member's probabilities (or prepared
-    // values) summed in member order and divided by the count, as fit_model does.
+    // values) summed in member order and divided by the count, as fit_model
+    // does. A calibrated single network's probabilities are softmax(logits /
+    // temperature); a calibrated ensemble's are softmax(log(mean) /
+    // temperature) (train/calibration.hpp, ensemble_outputs).
     const bool classify = file.plan->target_type() == tenon::target_kind::classification;
+    const tenon::class_calibration* classes = file.calibration && file.calibration->classes ? &*file.calibration->classes : nullptr;
+    const bool one = file.members.empty();
     tenon::matrix<float> out;
     for (std::size_t m = 0; m <= file.members.size(); ++m) {
         tenon::network<float> net = tenon::rebuild_member(file, m);
         tenon::matrix<float> member = tenon::network_outputs(net, features);
-        if (classify) member = tenon::softmax_rows(member);
+        if (classify) member = one && classes ? tenon::tempered_softmax_rows(member, classes->temperature) : tenon::softmax_rows(member);
         if (m == 0) out = member;
         else for (std::size_t k = 0; k < out.size(); ++k) out.data()[k] += member.data()[k];
     }
-    if (!file.members.empty())
+    if (!one)
         for (std::size_t k = 0; k < out.size(); ++k) out.data()[k] /= static_cast<float>(file.members.size() + 1);
+    if (classify && !one && classes) {
+        for (std::size_t k = 0; k < out.size(); ++k) out.data()[k] = std::log(std::max(out.data()[k], std::numeric_limits<float>::min()));
+        return tenon::tempered_softmax_rows(out, classes->temperature);
+    }
     if (classify) return out;
     for (std::size_t k = 0; k < out.size(); ++k) out.data()[k] = static_cast<float>(file.plan->restore_target(static_cast<double>(out.data()[k])));
     return out;
@@ -150,17 +162,34 @@ TEST_CASE("infer reproduces the trained classifier's predictions to the last bit
     const tenon::model_file<float> file = tenon::load_model_file<float>(dir.file("caps.tnm"));
     const std::vector<std::string> classes = file.plan->class_names();
     REQUIRE(classes.size() == 2);
-    CHECK(records[0] == std::vector<std::string>{"cap_id", "predicted", "p(" + classes[0] + ")", "p(" + classes[1] + ")", "out_of_range"});
+    CHECK(records[0] == std::vector<std::string>{"cap_id", "predicted", "p(" + classes[0] + ")", "p(" + classes[1] + ")", "likely_classes",
+                                                 "out_of_range"});
+    REQUIRE(file.calibration);
+    REQUIRE(file.calibration->classes);
+    CHECK(file.calibration->classes->coverage == 0.9);
+    CHECK(file.calibration->classes->rows == file.metadata->validation_rows);  // calibrated on the validation rows
 
     const tool_view v = split_like_the_tool(train_args);
     const tenon::matrix<float> expected = trainer_predictions(dir.file("caps.tnm"), v.table);
     std::size_t mismatches = 0;
     for (std::size_t i = 0; i < 400; ++i) {
         const auto& row = records[i + 1];
-        REQUIRE(row.size() == 5);
+        REQUIRE(row.size() == 6);
         CHECK(row[0] == "C" + std::to_string(1000 + i));
-        for (std::size_t c = 0; c < 2; ++c) mismatches += same_bits(std::strtof(row[2 + c].c_str(), nullptr), expected(i, c)) ? 0 : 1;
+        // The predictor flushes a subnormal result to zero (deploy/predictor.hpp,
+        // "Denormals"); the temperature's division can make such tiny probabilities.
+        for (std::size_t c = 0; c < 2; ++c) {
+            const float written = std::strtof(row[2 + c].c_str(), nullptr);
+            const bool flushed = written == 0.0f && std::abs(expected(i, c)) < std::numeric_limits<float>::min();
+            mismatches += same_bits(written, expected(i, c)) || flushed ? 0 : 1;
+        }
         CHECK(row[1] == classes[expected(i, 1) > expected(i, 0) ? 1 : 0]);
+        // The set: the classes with 1 - p <= the threshold, the predicted one always among them, joined by '|'.
+        std::string likely;
+        for (std::size_t c = 0; c < 2; ++c)
+            if (1.0 - static_cast<double>(expected(i, c)) <= file.calibration->classes->set_threshold || classes[c] == row[1])
+                likely += (likely.empty() ? "" : "|") + classes[c];
+        CHECK(row[4] == likely);
     }
     CHECK(mismatches == 0);
 
@@ -196,13 +225,24 @@ TEST_CASE("infer reproduces a regression model's values in the target's units an
     CHECK(r.out.empty());
     const auto records = read_records(dir.file("p.csv"));
     REQUIRE(records.size() == 301);
-    CHECK(records[0] == std::vector<std::string>{"predicted", "out_of_range"});
+    CHECK(records[0] == std::vector<std::string>{"predicted", "predicted_low", "predicted_high", "out_of_range"});
 
     const tool_view v = split_like_the_tool(train_args);
     const tenon::matrix<float> expected = trainer_predictions(dir.file("motor.tnm"), v.table);
     std::size_t mismatches = 0;
     for (std::size_t i = 0; i < 300; ++i) mismatches += same_bits(std::strtof(records[i + 1][0].c_str(), nullptr), expected(i, 0)) ? 0 : 1;
     CHECK(mismatches == 0);
+    // The band: the value -+ the stored half width, in float as the predictor computes it.
+    const tenon::model_file<float> calibrated = tenon::load_model_file<float>(dir.file("motor.tnm"));
+    REQUIRE(calibrated.calibration);
+    REQUIRE(calibrated.calibration->interval);
+    const auto h = static_cast<float>(calibrated.calibration->interval->half_width);
+    std::size_t band_mismatches = 0;
+    for (std::size_t i = 0; i < 300; ++i) {
+        band_mismatches += same_bits(std::strtof(records[i + 1][1].c_str(), nullptr), expected(i, 0) - h) ? 0 : 1;
+        band_mismatches += same_bits(std::strtof(records[i + 1][2].c_str(), nullptr), expected(i, 0) + h) ? 0 : 1;
+    }
+    CHECK(band_mismatches == 0);
 
     // RMSE over the test rows (Hyndman & Koehler 2006, section 3.1) from the
     // written values. The truth is taken as evaluate_model takes it: the
@@ -285,7 +325,7 @@ TEST_CASE("infer on a file with a header only writes a header only") {
     REQUIRE(r.status == 0);
     CHECK(r.out == "predicted 0 rows (0 with inputs outside the training range) into " + dir.file("p.csv") + "\n");
     const auto classes = tenon::load_model_file<float>(dir.file("caps.tnm")).plan->class_names();
-    CHECK(read_file(dir.file("p.csv")) == "cap_id,predicted,p(" + classes[0] + "),p(" + classes[1] + "),out_of_range\n");
+    CHECK(read_file(dir.file("p.csv")) == "cap_id,predicted,p(" + classes[0] + "),p(" + classes[1] + "),likely_classes,out_of_range\n");
 }
 
 TEST_CASE("infer reads a model saved in double precision by a host") {
@@ -333,7 +373,7 @@ TEST_CASE("inspect shows the inputs, classes, layers, parameter count, scores an
     // 4 features (torque, angle, day and night) -> 16 -> 8 -> 2 classes: weights and biases.
     CHECK(m.parameter_values == 4 * 16 + 16 + 16 * 8 + 8 + 8 * 2 + 2);
     for (const std::string& expected : std::vector<std::string>{
-             "tenon model file, format version 1, float weights", "verdict: classification into 2 classes: loose, tight",
+             "tenon model file, format version 2, float weights", "verdict: classification into 2 classes: loose, tight",
           "Inputs: 3 columns -> 4 features", "  torque (numeric)", "  angle (numeric)", "  shift (categorical)", "categories   day, night",
           "one-hot, unseen -> all zeros", "z-score", "Network: 5 layers, " + std::to_string(m.parameter_values) + " parameter values",
           "hidden1          dense        4 -> 16", "hidden1_act      activation   relu", "hidden2          dense        16 -> 8",
@@ -669,4 +709,88 @@ TEST_CASE("library messages about a row name its line in the file, as the tool d
     }
     CHECK(message == "[prep.value.missing] " + data + " line " + std::to_string(line_of_row(text, 17)) +
                          ", column 'ram_speed': the cell is missing and the plan has no fill for it");
+}
+
+// ---------------------------------------------------------------------------
+// calibration (issue 20)
+
+TEST_CASE("train --coverage: the metrics give the band's test coverage and width, inspect shows the band") {
+    scratch_dir dir("coverage_regression");
+    const auto data = dir.write("motor.csv", motor_csv(600, 71));
+    const auto r = run({"train", "--data", data, "--target", "amps", "--epochs", "30", "--coverage", "0.8", "--model", dir.file("motor.tnm"),
+                        "--metrics", dir.file("m.json"), "--report", dir.file("r.svg")});
+    REQUIRE(r.status == 0);
+    CHECK(read_file(dir.file("r.svg")).find("True against predicted, with bands (test)") != std::string::npos);
+    CHECK(r.out.find("calibration: band of +-") != std::string::npos);
+    CHECK(r.out.find(" meant to hold the true value for 80.0% of new rows\n") != std::string::npos);
+    const auto j = cli_test::json_flattener(read_file(dir.file("m.json"))).values;
+    const tenon::model_file<float> file = tenon::load_model_file<float>(dir.file("motor.tnm"));
+    REQUIRE(file.calibration);
+    REQUIRE(file.calibration->interval);
+    const double h = file.calibration->interval->half_width;
+    CHECK(std::stod(j.at("calibration.band.coverage")) == 0.8);
+    CHECK(std::stod(j.at("calibration.band.half_width")) == h);
+    CHECK(std::stod(j.at("calibration.band.rows")) == std::stod(j.at("rows.validation")));
+    CHECK(j.at("calibration.band.method") == "split-conformal");
+    // The width is 2h on every row (to float rounding of value -+ h).
+    CHECK(std::stod(j.at("test.interval_mean_width")) == doctest::Approx(2.0 * h).epsilon(1e-5));
+    // With n validation rows the coverage of new rows is Beta(r, n + 1 - r),
+    // r = ceil((n + 1) 0.8) (Vovk 2012); the m test rows add a binomial
+    // spread; 3.29 standard deviations of the sum, see tests/test_calibration.cpp.
+    const double n = std::stod(j.at("rows.validation")), m = std::stod(j.at("test.rows"));
+    const double rank = std::ceil((n + 1) * 0.8), p = rank / (n + 1);
+    const double coverage = std::stod(j.at("test.interval_coverage"));
+    CHECK(std::abs(coverage - p) <= 3.29 * std::sqrt(p * (1 - p) / (n + 2) + p * (1 - p) / m));
+    CHECK(file.metadata->metric("test_interval_coverage") == coverage);
+
+    const auto text = run({"inspect", "--model", dir.file("motor.tnm")});
+    CHECK(text.out.find("\nCalibration\n  band         split-conformal, nominal coverage 0.8, from " + j.at("rows.validation") +
+                        " calibration rows\n") != std::string::npos);
+    const auto json = cli_test::json_flattener(run({"inspect", "--model", dir.file("motor.tnm"), "--json"}).out).values;
+    CHECK(std::stod(json.at("calibration.band.half_width")) == h);
+}
+
+TEST_CASE("train on a classifier: the metrics give set coverage, set size and ECE before and after temperature scaling") {
+    scratch_dir dir("coverage_classes");
+    const auto data = dir.write("caps.csv", caps_csv(600, 72));
+    const auto r = run({"train", "--data", data, "--target", "verdict", "--ignore", "cap_id", "--epochs", "20", "--model", dir.file("caps.tnm"),
+                        "--metrics", dir.file("m.json"), "--quiet"});
+    REQUIRE(r.status == 0);
+    const auto j = cli_test::json_flattener(read_file(dir.file("m.json"))).values;
+    const tenon::model_file<float> file = tenon::load_model_file<float>(dir.file("caps.tnm"));
+    REQUIRE(file.calibration);
+    REQUIRE(file.calibration->classes);
+    CHECK(std::stod(j.at("calibration.classes.temperature")) == file.calibration->classes->temperature);
+    CHECK(std::stod(j.at("calibration.classes.coverage")) == 0.9);
+    const double set_coverage = std::stod(j.at("test.set_coverage")), set_size = std::stod(j.at("test.set_mean_size"));
+    CHECK(set_size >= 1.0);
+    CHECK(set_size <= 2.0);
+    CHECK(set_coverage >= 0.75);  // nominal 0.9 over 90 test rows, Beta(82, 9) calibration: a lower 3.29 sd bound (tests/test_calibration.cpp)
+    CHECK(std::stod(j.at("test.ece")) >= 0.0);
+    CHECK(std::stod(j.at("test.ece_uncalibrated")) >= 0.0);
+    CHECK(std::isfinite(std::stod(j.at("test.log_loss_calibrated"))));
+    const auto text = run({"inspect", "--model", dir.file("caps.tnm")});
+    CHECK(text.out.find("  classes      temperature ") != std::string::npos);
+    CHECK(text.out.find("  class sets   nominal coverage 0.9; a class joins when 1 - p <= ") != std::string::npos);
+}
+
+TEST_CASE("inspect says a version-1 file carries no calibration; --coverage out of range or with --folds is refused") {
+    const std::string fixture = std::string(TENON_SOURCE_DIR) + "/tests/fixtures/deploy/pump_v1_float.tnm";
+    const auto text = run({"inspect", "--model", fixture});
+    REQUIRE(text.status == 0);
+    CHECK(text.out.find("format version 1") != std::string::npos);
+    CHECK(text.out.find("\nCalibration\n  none: the file carries no calibration") != std::string::npos);
+    const auto json = cli_test::json_flattener(run({"inspect", "--model", fixture, "--json"}).out).values;
+    CHECK(json.at("calibration") == "null");
+
+    scratch_dir dir("coverage_errors");
+    const auto data = dir.write("caps.csv", caps_csv(120, 2));
+    const std::string train = "tenon train: error: ";
+    check_failure(dir, {"train", "--data", data, "--target", "verdict", "--coverage", "1"},
+                  train + "[cli.option.value] --coverage '1': must be at least 0.5 and below 1 (e.g. 0.9)\n");
+    check_failure(dir, {"train", "--data", data, "--target", "verdict", "--coverage", "90%"},
+                  train + "[cli.option.value] --coverage '90%': not a finite number\n");
+    check_failure(dir, {"train", "--data", data, "--target", "verdict", "--coverage", "0.9", "--folds", "3"},
+                  train + "[cli.option.conflict] --coverage calibrates the model of one holdout run on its validation rows; it cannot be combined "
+                          "with --folds 3\n");
 }

@@ -160,6 +160,21 @@ TEST_CASE("retrain on drifted rows promotes a candidate that predicts new rows b
     CHECK(at(j, "file_written") == "true");
     CHECK(at(j, "model_path") == out);
     CHECK(at(j, "rollback_path").empty());
+    // Both models' bands on the holdout: the incumbent's, fitted before the
+    // drift (3 A more current), misses the new rows; the candidate is
+    // recalibrated on its validation rows at the incumbent's nominal 0.9.
+    CHECK(at(j, "calibration.measure") == "interval");
+    CHECK(number_at(j, "calibration.nominal_coverage") == 0.9);
+    CHECK(number_at(j, "calibration.incumbent_coverage") < 0.5);
+    CHECK(number_at(j, "calibration.candidate_coverage") > 0.5);
+    CHECK(number_at(j, "calibration.candidate_width") > 0.0);
+    CHECK(number_at(j, "calibration.candidate_coverage") == candidate.metadata->metric("gate_candidate_coverage"));
+    REQUIRE(candidate.calibration);
+    REQUIRE(candidate.calibration->interval);
+    CHECK(candidate.calibration->interval->coverage == 0.9);
+    CHECK(candidate.calibration->interval->rows == static_cast<std::uint64_t>(number_at(j, "rows.validation")));
+    CHECK(contains(r.out, "  coverage     bands on the holdout, nominal 0.9: incumbent " + six_digits(number_at(j, "calibration.incumbent_coverage")) +
+                              ", mean band width "));
 
     CHECK(contains(r.out, "  metric       rmse (lower is better) on 80 holdout rows, margin 0\n"));
     CHECK(contains(r.out, "  incumbent    " + six_digits(incumbent_score) + "\n"));

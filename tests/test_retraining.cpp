@@ -693,3 +693,47 @@ TEST_CASE("the retraining report serializes to JSON") {
     CHECK(json.find("\"model_path\": \"\"") != std::string::npos);
     CHECK(json.find("nan") == std::string::npos);
 }
+
+// --- calibration (issue 20) ------------------------------------------------------------------
+
+TEST_CASE("retraining recalibrates the candidate on its validation rows and reports both models' coverage on the holdout") {
+    const auto old_rows = retrain_test::pump_rows(400, 40);
+    auto incumbent = incumbent_of<float>(old_rows, deploy_test::condition_plan(), deploy_test::small_settings(4));
+    tenon::fitted_model<float> refit = tenon::fit_model<float>(old_rows, deploy_test::condition_plan(), range(0, 320), range(320, 400),
+                                                               deploy_test::small_settings(4));
+    incumbent.calibration = tenon::calibrate_model(refit, old_rows, range(320, 400), 0.8);  // the same weights: same seed and rows
+    const auto new_rows = retrain_test::pump_rows(400, 41);
+    tenon::retraining_options o;
+    o.epochs = 3;
+    o.seed = 2;
+    const auto r = tenon::retrain_model(incumbent, new_rows, o);
+    CHECK(r.report.coverage_measure == "class_set");
+    CHECK(r.report.nominal_coverage == 0.8);  // the incumbent's
+    CHECK(r.report.incumbent_coverage >= 0.0);
+    CHECK(r.report.incumbent_coverage <= 1.0);
+    CHECK(r.report.incumbent_width >= 1.0);  // a set holds at least the predicted class
+    REQUIRE(r.candidate.calibration);
+    REQUIRE(r.candidate.calibration->classes);
+    CHECK(r.candidate.calibration->classes->coverage == 0.8);
+    CHECK(r.candidate.calibration->classes->rows == r.report.validation_rows);
+    // The report's candidate coverage is the library's score of the stored calibration on the holdout.
+    CHECK(std::isfinite(r.report.candidate_coverage));
+    CHECK(r.candidate.metadata->metric("gate_candidate_coverage") == r.report.candidate_coverage);
+    CHECK(tenon::to_json(r.report).find("\"calibration\": {\"measure\": \"class_set\", \"nominal_coverage\": 0.8") != std::string::npos);
+
+    // An incumbent without calibration: its coverage is not known; a coverage option overrides the default.
+    incumbent.calibration.reset();
+    o.coverage = 0.95;
+    const auto u = tenon::retrain_model(incumbent, new_rows, o);
+    CHECK(std::isnan(u.report.incumbent_coverage));
+    CHECK(u.report.nominal_coverage == 0.95);
+    REQUIRE(u.candidate.calibration);
+    CHECK(u.candidate.calibration->classes->coverage == 0.95);
+    // No validation rows: no calibration for the candidate.
+    o.validation_share = 0.0;
+    const auto v = tenon::retrain_model(incumbent, new_rows, o);
+    CHECK_FALSE(v.candidate.calibration);
+    CHECK(std::isnan(v.report.candidate_coverage));
+    o.coverage = 1.0;
+    CHECK_THROWS_WITH_AS(tenon::retrain_model(incumbent, new_rows, o), doctest::Contains("[deploy.retrain.option]"), tenon::error);
+}

@@ -173,6 +173,7 @@ struct train_request {
     std::uint64_t seed = 1;  // one seed for the split, the weights and the batch order
     std::size_t threads = 1;
     bool keep_order = false;  // --keep-order: no shuffling
+    double coverage = tenon::default_coverage;  // --coverage: nominal coverage of bands and class sets
     std::string metrics_path;
     std::string report_path;
     std::string model_path;
@@ -319,7 +320,7 @@ inline train_request parse_train_request(const std::vector<std::string>& args) {
                                             "--fractions", "--folds", "--hidden", "--activation", "--loss", "--optimizer",
                                             "--learning-rate", "--epochs", "--batch", "--patience", "--seed", "--threads",
                                             "--ensemble", "--metrics", "--report", "--model", "--quiet", "--keep-order", "--time-format",
-                                            "--time-cycles"};
+                                            "--time-cycles", "--coverage"};
         bool is_known = false;
         for (const char* n : known) is_known = is_known || name == n;
         if (!is_known) fail(cli_codes::option_unknown, "unknown option '" + name + "' for 'tenon train' (see tenon train --help)");
@@ -463,6 +464,10 @@ inline train_request parse_train_request(const std::vector<std::string>& args) {
             q.seed = detail::parse_seed(value);
         } else if (name == "--threads") {
             q.threads = detail::parse_count("--threads", value, 1);
+        } else if (name == "--coverage") {
+            q.coverage = detail::parse_real("--coverage", value);
+            if (!(q.coverage >= 0.5 && q.coverage < 1.0))
+                fail(cli_codes::option_value, "--coverage '" + value + "': must be at least 0.5 and below 1 (e.g. 0.9)");
         } else if (name == "--metrics") {
             if (value.empty()) fail(cli_codes::option_value, "--metrics needs a file name, got an empty one");
             q.metrics_path = value;
@@ -508,6 +513,9 @@ inline train_request parse_train_request(const std::vector<std::string>& args) {
                                              ") trains one model per fold and saves none");
     if (q.folds > 0 && !q.report_path.empty())
         fail(cli_codes::option_conflict, "--report draws one holdout run; it cannot be combined with --folds " + std::to_string(q.folds));
+    if (q.folds > 0 && std::find(seen.begin(), seen.end(), "--coverage") != seen.end())
+        fail(cli_codes::option_conflict, "--coverage calibrates the model of one holdout run on its validation rows; it cannot be combined with --folds " +
+                                             std::to_string(q.folds));
     for (const auto& c : q.ignored) {
         if (c == q.target) fail(cli_codes::option_conflict, "--ignore names the target column '" + c + "'");
         if (std::find(q.used.begin(), q.used.end(), c) != q.used.end())
@@ -659,6 +667,16 @@ Model and training
                          on one thread (the BLAS is set to one thread); the
                          bits then stay the same only where the BLAS computes
                          a band as it computes the whole product.
+  --coverage P           nominal coverage of the calibration (default 0.9,
+                         from 0.5 to below 1): regression gets a band
+                         (split-conformal, on the validation rows) that
+                         holds the true value for about P of new rows like
+                         the training rows; classification gets probabilities
+                         rescaled by one temperature fitted on the validation
+                         rows and a set of likely classes holding the true
+                         class for about P of such rows. Needs validation
+                         rows (a validation fraction above 0); not with
+                         --folds.
 
 Output
   --metrics OUT.json     write the metrics as JSON: task, rows (training,
@@ -666,10 +684,17 @@ Output
                          training_seconds (the training loop with validation;
                          reading and preparing data excluded), validation and
                          test scores (accuracy, macro_f1, log_loss; or rmse,
-                         mae, r2) and per_epoch records (epoch, training_loss,
+                         mae, r2; with calibration also interval_coverage and
+                         interval_mean_width, or set_coverage, set_mean_size,
+                         ece_uncalibrated and ece), the calibration and
+                         per_epoch records (epoch, training_loss,
                          validation_loss, learning_rate); see the README.
-  --report OUT.svg       write an SVG report: loss per epoch and, for
-                         classification, the test confusion matrix.
+  --report OUT.svg       write an SVG report: loss per epoch; for
+                         classification, the test confusion matrix; with a
+                         calibration, the test rows' true values against the
+                         predictions with their bands (regression) or a
+                         reliability diagram before and after temperature
+                         scaling (classification).
   --model OUT.tnm        save the trained model (network, weights, the
                          measured preparation, the validation and test scores,
                          ranges of the training rows and a sample of them) for
@@ -1504,15 +1529,59 @@ inline std::vector<std::size_t> member_share(const std::vector<std::size_t>& row
     return mine;
 }
 
-inline void write_scores(json_writer& j, const char* key, const tenon::evaluation& e) {
+inline void write_scores(json_writer& j, const char* key, const tenon::evaluation& e, const tenon::calibration_scores* c = nullptr) {
     j.open_object(key);
     j.count("rows", e.rows);
     if (e.classification) {
         j.number("accuracy", e.accuracy).number("macro_f1", e.macro_f1).number("log_loss", e.log_loss);
+        if (c) {
+            j.number("set_coverage", c->set_coverage).number("set_mean_size", c->set_mean_size);
+            j.number("ece_uncalibrated", c->ece_uncalibrated).number("ece", c->ece);
+            j.number("log_loss_calibrated", c->log_loss);
+        }
     } else {
         j.number("rmse", e.rmse).number("mae", e.mae).number("r2", e.r2);
+        if (c) j.number("interval_coverage", c->interval_coverage).number("interval_mean_width", c->interval_mean_width);
     }
     j.close_object();
+}
+
+// The calibration as stored in the model file.
+inline void write_calibration(json_writer& j, const char* key, const tenon::model_calibration& c) {
+    j.open_object(key);
+    if (c.interval) {
+        const tenon::interval_calibration& i = *c.interval;
+        j.open_object("band");
+        j.text("method", i.has_spread ? "split-conformal, normalized by the spread" : "split-conformal");
+        j.number("coverage", i.coverage).count("rows", i.rows);
+        if (std::isfinite(i.half_width)) j.number("half_width", i.half_width);
+        else j.null("half_width");
+        j.close_object();
+    }
+    if (c.classes) {
+        const tenon::class_calibration& k = *c.classes;
+        j.open_object("classes");
+        j.text("method", "temperature scaling, conformal class sets (score 1 - p)");
+        j.number("coverage", k.coverage).count("rows", k.rows).number("temperature", k.temperature);
+        if (std::isfinite(k.set_threshold)) j.number("set_threshold", k.set_threshold);
+        else j.null("set_threshold");
+        j.close_object();
+    }
+    j.close_object();
+}
+
+// A line saying what the calibration promises, or why there is none.
+inline std::string calibration_note(const tenon::model_calibration* c, double coverage, bool classify) {
+    if (!c) return "no calibration: there are no validation rows to calibrate on\n";
+    const std::string percent = fixed(100.0 * coverage, 1) + "%";
+    if (classify)
+        return "calibration: temperature " + fixed(c->classes->temperature, 4) + "; class sets meant to hold the true class for " + percent +
+               " of new rows" + (std::isfinite(c->classes->set_threshold) ? std::string() : " (too few validation rows: every class is listed)") + "\n";
+    char width[32];
+    std::snprintf(width, sizeof width, "%.6g", c->interval->half_width);
+    return "calibration: band of +-" + (std::isfinite(c->interval->half_width) ? std::string(width) : std::string("infinity")) +
+           " meant to hold the true value for " + percent + " of new rows" +
+           (std::isfinite(c->interval->half_width) ? std::string() : " (too few validation rows for this coverage)") + "\n";
 }
 
 inline std::string table_row(const std::string& name, const std::vector<std::string>& cells) {
@@ -1580,6 +1649,19 @@ inline void add_scores_to_metadata(tenon::training_metadata& meta, const train_r
                                                 tenon::number_to_text(q.fractions.test));
 }
 
+// The calibration's test scores, kept with the model for inspect.
+inline void add_calibration_to_metadata(tenon::training_metadata& meta, const tenon::calibration_scores& c) {
+    if (c.classification) {
+        meta.metrics.emplace_back("test_set_coverage", c.set_coverage);
+        meta.metrics.emplace_back("test_set_mean_size", c.set_mean_size);
+        meta.metrics.emplace_back("test_ece_uncalibrated", c.ece_uncalibrated);
+        meta.metrics.emplace_back("test_ece", c.ece);
+    } else {
+        meta.metrics.emplace_back("test_interval_coverage", c.interval_coverage);
+        meta.metrics.emplace_back("test_interval_mean_width", c.interval_mean_width);
+    }
+}
+
 // Holdout run.
 inline int train_holdout(const tenon::table& t, const train_request& q, training_setup& s, std::ostream& out,
                          const cli_environment& env, pending_output& metrics_file, pending_output& report_file,
@@ -1623,6 +1705,13 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
     const bool has_validation = model.validation_rows > 0;
     if (has_validation) validation = tenon::evaluate_model(model, t, split.validation);
     const tenon::evaluation test = tenon::evaluate_model(model, t, split.test);
+    // Calibrated on the validation rows, scored on the test rows (neither trained on).
+    std::optional<tenon::model_calibration> calibration;
+    tenon::calibration_scores calibrated;
+    if (has_validation) {
+        calibration = tenon::calibrate_model(model, t, split.validation, q.coverage);
+        calibrated = tenon::score_calibration(model, *calibration, t, split.test);
+    }
     const std::size_t dropped = model.dropped_rows + test.dropped_rows;
     const tenon::training_outcome& o = model.outcome;
     // The plain baseline on the same rows (fit_model fits it; in a team it has none).
@@ -1651,7 +1740,7 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
         j.number("training_seconds", o.seconds);
         if (has_validation) write_scores(j, "validation", validation);
         else j.null("validation");
-        write_scores(j, "test", test);
+        write_scores(j, "test", test, calibration ? &calibrated : nullptr);
         if (has_baseline) {
             j.open_object("baseline").text("kind", baseline_kind);
             if (has_validation) write_scores(j, "validation", baseline_validation);
@@ -1662,6 +1751,8 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
             j.null("baseline");
         }
         j.text("shipped", model.kept_baseline ? "baseline" : "network");
+        if (calibration) write_calibration(j, "calibration", *calibration);
+        else j.null("calibration");
         j.open_array("per_epoch");
         for (const auto& e : o.history) {
             j.open_object().count("epoch", e.epoch).number("training_loss", e.training_loss).number("validation_loss", e.validation_loss);
@@ -1681,11 +1772,23 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
             r.confusion = &test.classes.confusion;
             r.class_names = model.plan.class_names();
         }
+        if (calibration) {
+            r.nominal_coverage = q.coverage;
+            r.test_coverage = s.classify ? calibrated.set_coverage : calibrated.interval_coverage;
+            r.reliability_raw = calibrated.reliability_uncalibrated;
+            r.reliability_calibrated = calibrated.reliability;
+            for (std::size_t i = 0; i < calibrated.predicted.size(); ++i)
+                r.bands.push_back({calibrated.predicted[i], calibrated.actual[i], calibrated.low[i], calibrated.high[i]});
+        }
         report_file.write(tenon::training_report_svg(r));
     }
     if (model_probe.active()) {
         tenon::model_file<float> file = tenon::make_model_file(model, t, split.train, settings);
         add_scores_to_metadata(*file.metadata, q, s, has_validation ? &validation : nullptr, test);
+        if (calibration) {
+            file.calibration = calibration;
+            add_calibration_to_metadata(*file.metadata, calibrated);
+        }
         model_probe.write(tenon::model_file_to_bytes(file));
     }
     // Everything is written and synced before the first file is moved into
@@ -1707,6 +1810,17 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
             both("MAE", &tenon::evaluation::mae, 4);
             both("R^2", &tenon::evaluation::r2, 4);
         }
+        if (calibration) {
+            if (s.classify) {
+                summary += table_row("set cover", {"-", fixed(calibrated.set_coverage, 4)});
+                summary += table_row("set size", {"-", fixed(calibrated.set_mean_size, 4)});
+                summary += table_row("ECE raw", {"-", fixed(calibrated.ece_uncalibrated, 4)});
+                summary += table_row("ECE", {"-", fixed(calibrated.ece, 4)});
+            } else {
+                summary += table_row("band cover", {"-", fixed(calibrated.interval_coverage, 4)});
+                summary += table_row("band width", {"-", fixed(calibrated.interval_mean_width, 4)});
+            }
+        }
         if (has_baseline) {
             summary += "\nbaseline (" + std::string(baseline_kind) + "): " +
                        (s.classify ? "accuracy " + (has_validation ? fixed(baseline_validation.accuracy, 4) + " validation, " : std::string()) +
@@ -1718,6 +1832,7 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
         }
         summary += "\n" + std::to_string(o.history.size()) + " epochs in " + duration_text(o.seconds) + "; " + o.message +
                    (o.best_epoch > 0 && o.reason != tenon::stop_reason::no_improvement ? "; kept epoch " + std::to_string(o.best_epoch) : std::string()) + "\n";
+        summary += calibration_note(calibration ? &*calibration : nullptr, q.coverage, s.classify);
         summary += std::to_string(model.train_rows) + " training rows, " + std::to_string(model.plan.feature_count()) + " features" +
                    (model.member_count() > 1 ? ", an ensemble of " + std::to_string(model.member_count()) + " networks (the epochs are the first's)"
                                              : std::string()) +
@@ -2004,8 +2119,18 @@ Output: a CSV file with a header, one row per data row, in the same order
   COL,...          the --keep columns, as read;
   predicted        classification: the most probable class;
                    regression: the predicted target in its original units;
+  predicted_low, predicted_high
+                   regression with a calibrated model: the band meant to
+                   hold the true value for the model's coverage (tenon
+                   inspect shows it, e.g. 90%) of rows like the training
+                   rows; not promised for a row with out_of_range cells;
   p(CLASS)         classification only: one column per class, in the order
-                   tenon inspect lists them; each row sums to 1;
+                   tenon inspect lists them; each row sums to 1 (rescaled by
+                   the calibration's temperature when the model has one);
+  likely_classes   classification with a calibrated model: the classes of
+                   the set meant to hold the true class for the model's
+                   coverage of such rows, joined by '|' (the most probable
+                   class always among them);
   out_of_range     the input cells outside what the training rows held, as
                    COLUMN:below (under the training minimum), COLUMN:above
                    (over the training maximum) or COLUMN:unseen (a category
@@ -2047,7 +2172,8 @@ UTC, library version, seed, epochs, row counts, the training data's
 fingerprint); the target and its classes; every input column with its kind,
 categories, preparation and the range of the training rows; the network's
 layers with their sizes and its parameter count; the validation and test
-scores and the training settings.
+scores and the training settings; the calibration (band or temperature and
+class sets, with their nominal coverage), or that the file carries none.
 
 Exit status
   0 success; 2 bad command line or an unreadable or damaged model file (one
@@ -2154,8 +2280,13 @@ int infer_with(const tenon::model_file<T>& file, const infer_request& q, std::os
         if (model.is_classification()) {
             produced.push_back("predicted");
             for (const auto& c : model.class_names()) produced.push_back("p(" + c + ")");
+            if (model.class_sets()) produced.push_back("likely_classes");
         } else if (model.output_count() == 1) {
             produced.push_back("predicted");
+            if (model.interval()) {
+                produced.push_back("predicted_low");
+                produced.push_back("predicted_high");
+            }
         } else {
             for (std::size_t j = 0; j < model.output_count(); ++j) produced.push_back("output_" + std::to_string(j + 1));
         }
@@ -2171,14 +2302,17 @@ int infer_with(const tenon::model_file<T>& file, const infer_request& q, std::os
         line += ',';
     }
     const bool classify = model.is_classification();
+    const bool sets = classify && model.class_sets().has_value();
+    const bool band = !classify && model.output_count() == 1 && model.interval().has_value();
     if (classify) {
         line += "predicted";
         for (const auto& c : model.class_names()) {
             line += ',';
             append_csv_field(line, "p(" + c + ")");
         }
+        if (sets) line += ",likely_classes";
     } else if (model.output_count() == 1) {
-        line += "predicted";
+        line += band ? "predicted,predicted_low,predicted_high" : "predicted";
     } else {
         for (std::size_t j = 0; j < model.output_count(); ++j) line += (j ? ",output_" : "output_") + std::to_string(j + 1);
     }
@@ -2224,10 +2358,23 @@ int infer_with(const tenon::model_file<T>& file, const infer_request& q, std::os
                     line += ',';
                     append_number(line, v.at(i, j));
                 }
+                if (sets) {
+                    std::string likely;
+                    for (std::size_t j = 0; j < v.width; ++j)
+                        if (v.in_set(i, j)) likely += (likely.empty() ? "" : "|") + model.class_names()[j];
+                    line += ',';
+                    append_csv_field(line, likely);
+                }
             } else {
                 for (std::size_t j = 0; j < v.width; ++j) {
                     if (j) line += ',';
                     append_number(line, v.at(i, j));
+                }
+                if (band) {
+                    line += ',';
+                    append_number(line, v.low_at(i, 0));
+                    line += ',';
+                    append_number(line, v.high_at(i, 0));
                 }
             }
             line += ',';
@@ -2519,6 +2666,27 @@ inline std::string inspect_text(const tenon::model_file_summary& m, const std::s
     s += "\nNetwork: " + std::to_string(m.architecture.children.size()) + " layers, " + std::to_string(m.parameter_values) + " parameter values\n";
     describe_layers(m.architecture, 0, s);
 
+    s += "\nCalibration\n";
+    if (!m.calibration) {
+        s += "  none: the file carries no calibration (written by tenon train before format version 2, or without validation rows)\n";
+    } else {
+        if (const auto& i = m.calibration->interval) {
+            s += "  band         split-conformal, nominal coverage " + significant(i->coverage) + ", from " + std::to_string(i->rows) +
+                 " calibration rows\n";
+            s += "  half width   " + (std::isfinite(i->half_width) ? significant(i->half_width) : std::string("infinite (too few rows for the coverage)")) +
+                 " in the target's units" + (i->has_spread ? "; normalized: " + significant(i->spread_quantile) + " x (spread + " +
+                                                                 significant(i->spread_floor) + ") when a spread is given"
+                                                           : std::string()) + "\n";
+        }
+        if (const auto& k = m.calibration->classes) {
+            s += "  classes      temperature " + significant(k->temperature) + " (fitted on the validation log loss), from " +
+                 std::to_string(k->rows) + " calibration rows\n";
+            s += "  class sets   nominal coverage " + significant(k->coverage) + "; a class joins when 1 - p <= " +
+                 (std::isfinite(k->set_threshold) ? significant(k->set_threshold) : std::string("infinity (every class)")) + "\n";
+        }
+        s += "  The coverage is promised for rows like the training rows; not for rows with cells out of range or under drift.\n";
+    }
+
     if (m.metadata) {
         s += "\nScores and training metrics\n";
         for (const auto& kv : m.metadata->metrics) {
@@ -2642,6 +2810,8 @@ inline std::string inspect_json(const tenon::model_file_summary& m, const std::s
     j.open_object("network").count("parameter_values", m.parameter_values);
     layers_json(j, m.architecture);
     j.close_object();
+    if (m.calibration) write_calibration(j, "calibration", *m.calibration);
+    else j.null("calibration");
     if (m.metadata) {
         j.open_object("metrics");
         for (const auto& kv : m.metadata->metrics) j.number(kv.first.c_str(), kv.second);
@@ -2860,9 +3030,10 @@ Usage: tenon retrain --model MODEL.tnm --data NEW.csv --out NEW_MODEL.tnm [optio
                          is kept (default MODEL.tnm.previous). Not allowed
                          otherwise.
   --json OUT.json        write the retraining report as JSON (decision, reason,
-                         gate metric, margin, both scores, improvement, row
-                         counts, epochs, stop reason, seconds, the file
-                         written); '-' prints it instead of the text summary.
+                         gate metric, margin, both scores, improvement, both
+                         models' coverage on the holdout, row counts, epochs,
+                         stop reason, seconds, the file written); '-' prints
+                         it instead of the text summary.
                          Written whatever the decision.
   --quiet                print nothing but errors.
 
@@ -2870,7 +3041,9 @@ The candidate starts from the model's weights and trains on the new rows
 (minus the holdout) mixed with the sample of training rows the model file
 keeps; incumbent and candidate are then scored on the holdout with the same
 metric. The candidate file keeps the preparation, gets the new weights, new
-reference ranges (for tenon drift) and the continued sample.
+reference ranges (for tenon drift) and the continued sample, and is
+recalibrated on its validation rows at the model's nominal coverage; the
+summary gives both models' coverage (bands or class sets) on the holdout.
 
 Files
   Every output is checked before training: compared with the inputs and the
@@ -2997,6 +3170,18 @@ inline std::string retrain_text(const tenon::retraining_report& r, const retrain
     s += line("incumbent", significant(r.incumbent_score));
     s += line("candidate", significant(r.candidate_score));
     s += line("improvement", significant(r.improvement));
+    {
+        // Both models' calibration on the same holdout rows.
+        const bool sets = r.coverage_measure == "class_set";
+        const auto coverage = [&](double c, double width) {
+            if (!std::isfinite(c)) return std::string("no calibration");
+            return significant(c) + (sets ? ", mean set size " : ", mean band width ") + significant(width);
+        };
+        s += line("coverage", std::string(sets ? "class sets" : "bands") + " on the holdout, nominal " + significant(r.nominal_coverage) +
+                                  ": incumbent " + coverage(r.incumbent_coverage, r.incumbent_width) + "; candidate " +
+                                  coverage(r.candidate_coverage, r.candidate_width) +
+                                  (std::isfinite(r.candidate_coverage) ? " (recalibrated on its validation rows)" : std::string()));
+    }
     std::string rows = std::to_string(r.new_rows) + " new (" + std::to_string(r.new_rows_refused) + " refused";
     const std::pair<const char*, std::size_t> refusals[] = {{"missing target", r.refused_missing_target},
                                                             {"unseen class", r.refused_unseen_class},

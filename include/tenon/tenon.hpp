@@ -46,6 +46,7 @@
 #include "tenon/update/schedules.hpp"
 #include "tenon/update/update_rule.hpp"
 
+#include "tenon/train/calibration.hpp"
 #include "tenon/train/metrics.hpp"
 #include "tenon/train/report_svg.hpp"
 #include "tenon/train/trainer.hpp"

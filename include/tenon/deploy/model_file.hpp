@@ -22,8 +22,11 @@
 // histograms), ENSM (the other members of a seed ensemble: their count, then
 // each member's weights as in WGHT, for the architecture of ARCH; required,
 // since a reader that served the first member alone would answer
-// differently; files without it hold one network). A reader skips an
-// unknown section unless its required flag is set.
+// differently; files without it hold one network), CALB (calibration: a
+// conformal band for regression, or a temperature and a conformal class-set
+// threshold for classification; added in format version 2, files without it
+// carry no calibration). A reader skips an unknown section unless its
+// required flag is set.
 //
 // Loading trusts nothing: the magic, the header checksum, the version, the
 // byte-order mark and the scalar type are checked first; every section
@@ -50,6 +53,7 @@
 #include "tenon/deploy/reference.hpp"
 #include "tenon/layers/network.hpp"
 #include "tenon/prep/plan.hpp"
+#include "tenon/train/calibration.hpp"
 #include "tenon/train/trainer.hpp"
 #include "tenon/train/workflow.hpp"
 #include "tenon/update/schedules.hpp"
@@ -57,8 +61,10 @@
 
 TENON_NAMESPACE_BEGIN
 
-/// The newest model-file format version this build writes and reads.
-inline constexpr std::uint16_t model_format_version = 1;
+/// The newest model-file format version this build writes and reads
+/// (2 added section CALB; a file without it is still written as version 1,
+/// and version-1 files load without calibration).
+inline constexpr std::uint16_t model_format_version = 2;
 
 /// Limits checked while loading, before anything is allocated.
 struct model_limits {
@@ -148,6 +154,9 @@ struct model_file {
     std::vector<feature_reference> references;
     std::optional<replay_sample> replay;
     std::optional<resume_state<T>> resume;
+    /// The calibration of the current weights (section CALB; absent from
+    /// version-1 files and from models never calibrated).
+    std::optional<model_calibration> calibration;
     /// Set when read: the version of the file, and the ids of skipped sections.
     std::uint16_t format_version = model_format_version;
     std::vector<std::string> skipped_sections;
@@ -177,6 +186,7 @@ struct model_file_summary {
     std::uint64_t replay_rows = 0;
     std::uint64_t replay_rows_seen = 0;  // from RSVR; 0 when absent
     bool resumable = false;
+    std::optional<model_calibration> calibration;  // from CALB
 };
 
 namespace detail {
@@ -692,7 +702,7 @@ inline container read_container(const std::uint8_t* data, std::size_t size, cons
     for (const auto& s : c.sections) {
         const bool known = s.id == "ARCH" || s.id == "WGHT" || s.id == "PLAN" || s.id == "META" || s.id == "REFS" ||
                            s.id == "RPLY" || s.id == "RSUM" || s.id == "RSVR" || s.id == "HIST" || s.id == "REFD" ||
-                           s.id == "ENSM";
+                           s.id == "ENSM" || s.id == "CALB";
         if (!known && s.required)
             raise(codes::deploy_unknown_section, source + ": section '" + s.id +
                                                      "' is marked required but this build of tenon does not know it");
@@ -806,6 +816,71 @@ inline void read_distributions(byte_reader& in, std::vector<feature_reference>& 
         if (f.quantile_points.size() == 1) in.fail("column '" + f.column + "' has one quantile point; at least two are needed");
     }
 }
+
+// Section CALB (format version 2): u8 parts (bit 0 a regression band, bit 1
+// class calibration), then for the band: f64 coverage, u64 rows, f64 half
+// width, u8 has spread, f64 spread quantile, f64 spread floor; for classes:
+// f64 coverage, u64 rows, f64 temperature, f64 set threshold. Half width
+// and thresholds may be +infinity (too few rows for the coverage).
+inline bool has_calibration(const std::optional<model_calibration>& c) noexcept { return c && (c->interval || c->classes); }
+inline std::vector<std::uint8_t> calibration_payload(const model_calibration& c) {
+    std::vector<std::uint8_t> out;
+    byte_writer w(out);
+    w.u8(static_cast<std::uint8_t>((c.interval ? 1 : 0) | (c.classes ? 2 : 0)));
+    if (c.interval) {
+        const interval_calibration& i = *c.interval;
+        w.f64(i.coverage);
+        w.u64(i.rows);
+        w.f64(i.half_width);
+        w.u8(i.has_spread ? 1 : 0);
+        w.f64(i.spread_quantile);
+        w.f64(i.spread_floor);
+    }
+    if (c.classes) {
+        const class_calibration& k = *c.classes;
+        w.f64(k.coverage);
+        w.u64(k.rows);
+        w.f64(k.temperature);
+        w.f64(k.set_threshold);
+    }
+    return out;
+}
+inline model_calibration read_calibration(byte_reader& in) {
+    model_calibration c;
+    const std::uint8_t parts = in.u8();
+    if (parts == 0 || parts > 3) in.fail("the calibration parts are " + std::to_string(parts) + " (1 band, 2 classes)");
+    const auto coverage = [&in] {
+        const double v = in.f64();
+        if (!(v > 0.0 && v < 1.0)) in.fail("a calibration coverage is " + number_to_text(v) + ", not strictly between 0 and 1");
+        return v;
+    };
+    const auto not_negative = [&in](const char* what) {
+        const double v = in.f64();
+        if (!(v >= 0.0)) in.fail(std::string("the calibration's ") + what + " is " + number_to_text(v) + ", not zero or more");
+        return v;
+    };
+    if (parts & 1) {
+        interval_calibration i;
+        i.coverage = coverage();
+        i.rows = in.u64();
+        i.half_width = not_negative("half width");
+        i.has_spread = in.flag("has spread");
+        i.spread_quantile = not_negative("spread quantile");
+        i.spread_floor = not_negative("spread floor");
+        c.interval = i;
+    }
+    if (parts & 2) {
+        class_calibration k;
+        k.coverage = coverage();
+        k.rows = in.u64();
+        k.temperature = in.f64();
+        if (!(k.temperature > 0.0) || !std::isfinite(k.temperature))
+            in.fail("the calibration's temperature is " + number_to_text(k.temperature) + ", not positive and finite");
+        k.set_threshold = not_negative("set threshold");
+        c.classes = k;
+    }
+    return c;
+}
 }  // namespace detail
 
 /// The file's bytes: header, then ARCH, WGHT and the optional sections present.
@@ -813,7 +888,9 @@ template <class T>
 std::vector<std::uint8_t> model_file_to_bytes(const model_file<T>& m) {
     TENON_REQUIRE_SCALAR(T);
     std::vector<std::uint8_t> out(detail::model_magic, detail::model_magic + 8);
-    detail::put_u16(out, model_format_version);
+    // Version 2 only where it is needed (section CALB), so that files without
+    // calibration still load in builds that read version 1.
+    detail::put_u16(out, detail::has_calibration(m.calibration) ? model_format_version : std::uint16_t(1));
     detail::put_u16(out, 0);
     detail::put_u32(out, detail::byte_order_mark);
     out.push_back(static_cast<std::uint8_t>(sizeof(T)));
@@ -822,7 +899,8 @@ std::vector<std::uint8_t> model_file_to_bytes(const model_file<T>& m) {
                                                            (m.references.empty() ? 0 : 1) + (m.replay ? 1 : 0) + (m.resume ? 1 : 0) +
                                                            (m.replay && m.replay->rows_seen > 0 ? 1 : 0) + (m.history.empty() ? 0 : 1) +
                                                            (detail::references_have_distributions(m.references) ? 1 : 0) +
-                                                           (m.members.empty() ? 0 : 1));
+                                                           (m.members.empty() ? 0 : 1) +
+                                                           (detail::has_calibration(m.calibration) ? 1 : 0));
     detail::put_u16(out, count);
     detail::put_u32(out, crc32(out.data(), 20));
     detail::append_section(out, "ARCH", true, to_bytes(m.architecture));
@@ -837,6 +915,7 @@ std::vector<std::uint8_t> model_file_to_bytes(const model_file<T>& m) {
     if (m.replay && m.replay->rows_seen > 0) detail::append_section(out, "RSVR", false, detail::reservoir_payload(*m.replay));
     if (detail::references_have_distributions(m.references))
         detail::append_section(out, "REFD", false, detail::distributions_payload(m.references));
+    if (detail::has_calibration(m.calibration)) detail::append_section(out, "CALB", false, detail::calibration_payload(*m.calibration));
     return out;
 }
 
@@ -864,6 +943,7 @@ model_file<T> model_file_from_bytes(const std::uint8_t* data, std::size_t size, 
         else if (s.id == "REFS") m.references = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_references(in); });
         else if (s.id == "RPLY") m.replay = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_replay(in); });
         else if (s.id == "RSUM") m.resume = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_resume<T>(in); });
+        else if (s.id == "CALB") m.calibration = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_calibration(in); });
         else if (s.id != "RSVR" && s.id != "REFD") m.skipped_sections.push_back(s.id);
     }
     // The distributions belong to the reference summaries; without them REFD is skipped.
@@ -903,6 +983,7 @@ inline model_file_summary inspect_model_bytes(const std::vector<std::uint8_t>& b
         else if (sec.id == "REFS") s.references = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) { return detail::read_references(in); });
         else if (sec.id == "RPLY") s.replay_rows = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) { return detail::read_replay(in); }).rows();
         else if (sec.id == "RSUM") s.resumable = true;
+        else if (sec.id == "CALB") s.calibration = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) { return detail::read_calibration(in); });
         else if (sec.id == "RSVR")
             s.replay_rows_seen = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) {
                 const std::uint64_t seen = in.u64();

@@ -40,6 +40,12 @@
 // the products are the BLAS's, and a BLAS may round a product of fewer rows
 // differently (OpenBLAS picks a small-matrix kernel by size on some CPUs),
 // so there the results agree within rounding, not always to the last bit.
+//
+// Calibration: a model file with section CALB (train/calibration.hpp) makes
+// every call also give a conformal band per regression value (low, high)
+// or, for classification, temperature-scaled probabilities and a class-set
+// bitmask per row. The band's coverage is promised for rows like the
+// calibration rows only: a row with a range flag set is not such a row.
 #pragma once
 
 #include <algorithm>
@@ -147,6 +153,13 @@ struct prediction_view {
     std::size_t members = 1;
     const T* spread = nullptr;
     const T* member_values = nullptr;
+    /// Regression with a calibrated band: rows x width bounds; else null.
+    const T* low = nullptr;
+    const T* high = nullptr;
+    /// Classification with calibrated sets: rows x set_words bits (class k is
+    /// bit k % 64 of word k / 64); else null.
+    const std::uint64_t* class_sets = nullptr;
+    std::size_t set_words = 0;
 
     T at(std::size_t row, std::size_t k) const noexcept { return values[row * width + k]; }
     range_flag flag(std::size_t row, std::size_t column) const noexcept { return flags[row * columns + column]; }
@@ -154,6 +167,17 @@ struct prediction_view {
     std::size_t flagged(std::size_t row) const noexcept {
         std::size_t n = 0;
         for (std::size_t k = 0; k < columns; ++k) n += flags[row * columns + k] != range_flag::inside;
+        return n;
+    }
+    bool has_interval() const noexcept { return low != nullptr; }
+    bool has_class_sets() const noexcept { return class_sets != nullptr; }
+    T low_at(std::size_t row, std::size_t k) const noexcept { return low[row * width + k]; }
+    T high_at(std::size_t row, std::size_t k) const noexcept { return high[row * width + k]; }
+    /// Whether class k is in the row's set.
+    bool in_set(std::size_t row, std::size_t k) const noexcept { return (class_sets[row * set_words + k / 64] >> (k % 64)) & 1u; }
+    std::size_t set_size(std::size_t row) const noexcept {
+        std::size_t n = 0;
+        for (std::size_t k = 0; k < width; ++k) n += in_set(row, k);
         return n;
     }
     /// The most probable class of a row (classification).
@@ -235,6 +259,8 @@ struct compiled_model {
     scaling target_scale;
     std::vector<std::string> class_names;
     std::vector<feature_reference> references;
+    std::optional<interval_calibration> interval;  // regression only
+    std::optional<class_calibration> classes;      // classification only
     std::vector<program_step> steps;
     std::vector<std::size_t> buffer_widths;  // buffer 0 holds the prepared features
     std::size_t output_buffer = 0;
@@ -363,7 +389,8 @@ public:
         for (std::size_t k = 1; k <= file.members.size(); ++k) others.push_back(rebuild_member(file, k));
         std::vector<network<T>*> members;
         for (auto& n : others) members.push_back(&n);
-        model_ = build_program(net, file.plan ? &*file.plan : nullptr, file.references, members);
+        model_ = build_program(net, file.plan ? &*file.plan : nullptr, file.references, members,
+                               file.calibration ? &*file.calibration : nullptr);
         allocate();
     }
     /// From a trainer's result (no reference summaries: nothing is flagged;
@@ -419,6 +446,9 @@ public:
     bool is_classification() const noexcept { return model_->classification; }
     const std::vector<std::string>& class_names() const noexcept { return model_->class_names; }
     const std::vector<feature_reference>& references() const noexcept { return model_->references; }
+    /// The calibration in use (from the model file's section CALB).
+    const std::optional<interval_calibration>& interval() const noexcept { return model_->interval; }
+    const std::optional<class_calibration>& class_sets() const noexcept { return model_->classes; }
 
     /// Maps a row type's fields to the input columns (allocates; do it once).
     /// Raises deploy.input.missing_column when a column has no field.
@@ -556,7 +586,8 @@ private:
     }
 
     static std::shared_ptr<const model_type> build_program(network<T>& net, const measured_plan* plan, const std::vector<feature_reference>& refs,
-                                                           const std::vector<network<T>*>& members = {}) {
+                                                           const std::vector<network<T>*>& members = {},
+                                                           const model_calibration* calibration = nullptr) {
         auto m = std::make_shared<model_type>();
         std::size_t width = 0;
         if (plan) {
@@ -622,6 +653,9 @@ private:
         if (m->regression && m->output_count != 1)
             raise(codes::deploy_shape_mismatch, "predictor: the network gives " + std::to_string(m->output_count) +
                                                     " outputs for one regression target");
+        // A calibration is used only for the kind of target it was fitted for.
+        if (calibration && m->regression) m->interval = calibration->interval;
+        if (calibration && m->classification) m->classes = calibration->classes;
         return m;
     }
 
@@ -638,6 +672,11 @@ private:
         std::vector<T> spread(capacity_ * model_->output_count, T(0));
         std::vector<range_flag> flags(capacity_ * std::max<std::size_t>(1, input_count()), range_flag::inside);
         std::vector<std::array<char, 32>> text(input_count());
+        std::vector<T> low(model_->interval ? capacity_ * model_->output_count : 0), high(low.size());
+        std::vector<std::uint64_t> sets(model_->classes ? capacity_ * class_set_words(model_->output_count) : 0);
+        low_.swap(low);
+        high_.swap(high);
+        sets_.swap(sets);
         buffers_.swap(buffers);
         outputs_.swap(outputs);
         member_values_.swap(member_values);
@@ -779,10 +818,23 @@ private:
         T* o = outputs_.data();
         // Each member's probabilities (classification) or prepared values;
         // the mean sums them in member order and divides by the count, as
-        // fit_model's predict_prepared does.
+        // fit_model's predict_prepared does. One calibrated network's
+        // probabilities are tempered here (as tempered_softmax_rows in
+        // train/calibration.hpp); an ensemble's mean is tempered below.
+        const bool temper_member = m.classification && m.classes && members == 1;
         const auto member_outputs = [&](std::size_t k, T* q) noexcept {
             const T* z = buffers_[k == 0 ? m.output_buffer : m.member_buffers[k - 1]].data();
-            if (m.classification) {
+            if (temper_member) {
+                const T t = static_cast<T>(m.classes->temperature);
+                for (std::size_t i = 0; i < rows; ++i) {
+                    const T* zi = z + i * w;
+                    T* qi = q + i * w;
+                    const T mx = *std::max_element(zi, zi + w);
+                    T sum = T(0);
+                    for (std::size_t j = 0; j < w; ++j) sum += (qi[j] = std::exp((zi[j] - mx) / t));
+                    for (std::size_t j = 0; j < w; ++j) qi[j] /= sum;
+                }
+            } else if (m.classification) {
                 // As softmax_rows in train/trainer.hpp: shifted by the row maximum.
                 for (std::size_t i = 0; i < rows; ++i) {
                     const T* zi = z + i * w;
@@ -822,6 +874,7 @@ private:
                 spread[e] = std::sqrt(squares / static_cast<T>(members - 1));
             }
             member_values = mv;
+            if (m.classification && m.classes) temper_mean(rows, o);
         }
         out.members = members;
         out.spread = spread;
@@ -831,6 +884,44 @@ private:
         out.width = w;
         out.flags = flags_.data();
         out.columns = input_count();
+        attach_uncertainty(rows, members > 1 ? spread : nullptr, out);
+    }
+
+    // An ensemble's calibrated probabilities: softmax(log(mean) / temperature)
+    // per row, in place (as ensemble_logits and tempered_softmax_rows in
+    // train/calibration.hpp); for one member this is plain temperature scaling.
+    void temper_mean(std::size_t rows, T* o) const noexcept {
+        const model_type& m = *model_;
+        const std::size_t w = m.output_count;
+        const T t = static_cast<T>(m.classes->temperature), tiny = std::numeric_limits<T>::min();
+        for (std::size_t i = 0; i < rows; ++i) {
+            T* qi = o + i * w;
+            for (std::size_t j = 0; j < w; ++j) qi[j] = std::log(std::max(qi[j], tiny));
+            const T mx = *std::max_element(qi, qi + w);
+            T sum = T(0);
+            for (std::size_t j = 0; j < w; ++j) sum += (qi[j] = std::exp((qi[j] - mx) / t));
+            for (std::size_t j = 0; j < w; ++j) qi[j] /= sum;
+        }
+    }
+
+    // The band or class sets of the outputs just computed. `spread` is the
+    // per-row spread in the target's units (rows values) for the normalized
+    // band, e.g. the standard deviation of an ensemble's members; null:
+    // the calibration's fixed half width (the single-network fallback).
+    void attach_uncertainty(std::size_t rows, const T* spread, prediction_view<T>& out) noexcept {
+        const model_type& m = *model_;
+        out.low = out.high = nullptr;
+        out.class_sets = nullptr;
+        out.set_words = 0;
+        if (m.interval && m.output_count == 1) {
+            interval_bounds(*m.interval, outputs_.data(), spread, rows, low_.data(), high_.data());
+            out.low = low_.data();
+            out.high = high_.data();
+        } else if (m.classes) {
+            class_set_bits(*m.classes, outputs_.data(), rows, m.output_count, sets_.data());
+            out.class_sets = sets_.data();
+            out.set_words = class_set_words(m.output_count);
+        }
     }
 
     // The formulas of autodiff/tape.hpp's forward pass, value for value.
@@ -880,6 +971,8 @@ private:
     std::vector<T> member_values_;  // members x rows x width (an ensemble only)
     std::vector<T> spread_;         // rows x width
     std::vector<range_flag> flags_;
+    std::vector<T> low_, high_;          // the band (regression with an interval)
+    std::vector<std::uint64_t> sets_;    // class-set bits (classification with sets)
     std::vector<std::array<char, 32>> text_;  // numbers given for categorical columns, as text
     std::uint64_t generation_ = 0;            // of the holder it was refreshed from
 };

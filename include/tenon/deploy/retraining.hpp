@@ -29,6 +29,14 @@
 //     margin, or loss(incumbent) - loss(candidate) >= margin for log loss and
 //     RMSE. An equally good candidate is never promoted; a non-finite score
 //     never wins.
+//  4b. Calibration (train/calibration.hpp): the candidate is calibrated
+//     afresh on the mix's validation rows (new rows it did not train on),
+//     at the incumbent's nominal coverage unless `coverage` says otherwise;
+//     the report gives the coverage of both models' bands or class sets on
+//     the gate's holdout, which neither calibration saw (the holdout is not
+//     used to calibrate: coverage measured on the rows a band was fitted on
+//     holds by construction and says nothing). Without validation rows the
+//     candidate carries no calibration.
 //  5. The candidate's file keeps the plan and architecture, gets the new
 //     weights, metadata that describe them alone (the new rows' source, the
 //     rows and scores of this retraining; the incumbent's data name and test
@@ -64,6 +72,7 @@
 #include "tenon/deploy/detail/json_text.hpp"
 #include "tenon/deploy/model_file.hpp"
 #include "tenon/deploy/reference.hpp"
+#include "tenon/train/calibration.hpp"
 #include "tenon/train/metrics.hpp"
 #include "tenon/train/trainer.hpp"
 #include "tenon/train/workflow.hpp"
@@ -132,6 +141,9 @@ struct retraining_options {
     std::function<double()> clock;
     const std::atomic<bool>* cancel = nullptr;
     std::function<bool(const epoch_summary&)> on_epoch;
+    /// Nominal coverage of the candidate's calibration, in (0, 1); default
+    /// the incumbent's, else default_coverage.
+    std::optional<double> coverage;
 
     // --- the replay sample ---
     /// Mix the stored replay rows into training.
@@ -203,6 +215,13 @@ struct retraining_report {
     double incumbent_score = std::numeric_limits<double>::quiet_NaN();
     double candidate_score = std::numeric_limits<double>::quiet_NaN();
     double improvement = std::numeric_limits<double>::quiet_NaN();
+    // calibration, on the holdout (NaN where a model has none)
+    std::string coverage_measure;  // "interval" (band) or "class_set"
+    double nominal_coverage = std::numeric_limits<double>::quiet_NaN();
+    double incumbent_coverage = std::numeric_limits<double>::quiet_NaN();
+    double candidate_coverage = std::numeric_limits<double>::quiet_NaN();
+    double incumbent_width = std::numeric_limits<double>::quiet_NaN();  // mean band width or mean set size
+    double candidate_width = std::numeric_limits<double>::quiet_NaN();
     // rows
     std::size_t new_rows = 0;             // rows of the new table
     std::size_t new_rows_refused = 0;     // of those, not usable with the frozen plan
@@ -402,6 +421,7 @@ inline void check_retraining_options(const retraining_options& o) {
     if (o.min_holdout_rows == 0) fail("min_holdout_rows must be at least 1");
     if (!(o.validation_share >= 0.0 && o.validation_share < 1.0))
         fail("validation_share must be in [0, 1), got " + std::to_string(o.validation_share));
+    if (o.coverage && !(*o.coverage > 0.0 && *o.coverage < 1.0)) fail("coverage must be in (0, 1), got " + number_to_text(*o.coverage));
     if (o.batch_size && *o.batch_size == 0) fail("batch_size must be at least 1");
     if (o.learning_rate && !(*o.learning_rate > 0.0 && std::isfinite(*o.learning_rate)))
         fail("learning_rate must be positive and finite, got " + std::to_string(*o.learning_rate));
@@ -425,6 +445,17 @@ double gate_score(network<T>& net, const measured_plan& p, const prepared_rows<T
     const std::vector<std::size_t> truth(rows.classes.begin(), rows.classes.end());
     if (metric == gate_metric::log_loss) return log_loss(probabilities, truth);
     return score_classes(truth, row_argmax(probabilities), p.class_count()).accuracy;
+}
+
+// The stored calibration's part for the target kind, if any.
+inline const interval_calibration* stored_interval(const std::optional<model_calibration>& c) { return c && c->interval ? &*c->interval : nullptr; }
+inline const class_calibration* stored_classes(const std::optional<model_calibration>& c) { return c && c->classes ? &*c->classes : nullptr; }
+
+// Coverage and width (mean band width or mean set size) of a calibration on prepared rows.
+template <class T>
+std::pair<double, double> coverage_of(network<T>& net, const measured_plan& plan, const model_calibration& c, const prepared_rows<T>& rows) {
+    const calibration_scores s = score_calibration(net, plan, c, rows);
+    return s.classification ? std::make_pair(s.set_coverage, s.set_mean_size) : std::make_pair(s.interval_coverage, s.interval_mean_width);
 }
 
 // Continues the replay sample over the offered rows of `mix` (reservoir_slot).
@@ -668,6 +699,28 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
     report.reason = decision.reason;
     report.decision = decision.promoted ? "promoted" : "kept_incumbent";
 
+    // --- 4b. calibration ---
+    const interval_calibration* old_band = detail::stored_interval(incumbent.calibration);
+    const class_calibration* old_classes = detail::stored_classes(incumbent.calibration);
+    const bool incumbent_calibrated = classify ? old_classes != nullptr : old_band != nullptr;
+    const double coverage = options.coverage ? *options.coverage
+                            : incumbent_calibrated ? (classify ? old_classes->coverage : old_band->coverage)
+                                                   : default_coverage;
+    report.coverage_measure = classify ? "class_set" : "interval";
+    report.nominal_coverage = coverage;
+    if (incumbent_calibrated) {
+        const auto scored = detail::coverage_of(incumbent_net, plan, *incumbent.calibration, holdout_prepared);
+        report.incumbent_coverage = scored.first;
+        report.incumbent_width = scored.second;
+    }
+    std::optional<model_calibration> candidate_calibration;
+    if (!validation_rows.empty()) {
+        candidate_calibration = calibrate_network(candidate_net, plan, plan.template apply<T>(mix, validation_rows), coverage);
+        const auto scored = detail::coverage_of(candidate_net, plan, *candidate_calibration, holdout_prepared);
+        report.candidate_coverage = scored.first;
+        report.candidate_width = scored.second;
+    }
+
     // --- 5. the candidate's file ---
     model_file<T>& c = result.candidate;
     c = capture_network(candidate_net);
@@ -719,6 +772,8 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
     set_metric("gate_incumbent_score", report.incumbent_score);
     set_metric("gate_candidate_score", report.candidate_score);
     set_metric("gate_holdout_rows", static_cast<double>(report.holdout_rows));
+    if (candidate_calibration) set_metric("gate_candidate_coverage", report.candidate_coverage);
+    if (incumbent_calibrated) set_metric("gate_incumbent_coverage", report.incumbent_coverage);
     set_metric("new_training_rows", static_cast<double>(report.new_training_rows));
     set_metric("replay_training_rows", static_cast<double>(report.replay_rows));
     set_metric("retrainings", (meta && std::isfinite(meta->metric("retrainings")) ? meta->metric("retrainings") : 0.0) + 1.0);
@@ -735,6 +790,7 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
         set_setting("data", slash == std::string::npos ? source : source.substr(slash + 1));
     }
     c.metadata = std::move(m);
+    c.calibration = candidate_calibration;
     c.history = incumbent.history;
     if (meta) c.history.push_back(*meta);
     if (c.history.size() > options.history_limit)
@@ -819,7 +875,10 @@ inline std::string to_json(const retraining_report& r) {
            json_string(r.reason) + ", \"gate\": {\"metric\": " + json_string(r.metric) + ", \"higher_is_better\": " +
            json_bool(r.higher_is_better) + ", \"margin\": " + json_number(r.margin) + ", \"incumbent_score\": " +
            json_number(r.incumbent_score) + ", \"candidate_score\": " + json_number(r.candidate_score) + ", \"improvement\": " +
-           json_number(r.improvement) + "}, \"rows\": {\"new\": " + count(r.new_rows) + ", \"new_refused\": " + count(r.new_rows_refused) +
+           json_number(r.improvement) + "}, \"calibration\": {\"measure\": " + json_string(r.coverage_measure) +
+           ", \"nominal_coverage\": " + json_number(r.nominal_coverage) + ", \"incumbent_coverage\": " + json_number(r.incumbent_coverage) +
+           ", \"candidate_coverage\": " + json_number(r.candidate_coverage) + ", \"incumbent_width\": " + json_number(r.incumbent_width) +
+           ", \"candidate_width\": " + json_number(r.candidate_width) + "}, \"rows\": {\"new\": " + count(r.new_rows) + ", \"new_refused\": " + count(r.new_rows_refused) +
            ", \"refused_missing_target\": " + count(r.refused_missing_target) + ", \"refused_unseen_class\": " +
            count(r.refused_unseen_class) + ", \"refused_unseen_category\": " + count(r.refused_unseen_category) +
            ", \"refused_missing_value\": " + count(r.refused_missing_value) + ", \"refused_not_numeric\": " +

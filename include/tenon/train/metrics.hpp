@@ -158,6 +158,47 @@ double log_loss(const matrix<T>& probabilities, const std::vector<std::size_t>& 
     return total / static_cast<double>(truth.size());
 }
 
+/// One bin of a reliability diagram: rows whose top probability falls in
+/// it, their mean top probability and the share of them predicted right.
+struct reliability_bin {
+    double low = 0.0, high = 0.0;  // the bin's confidence range (low, high]
+    std::size_t rows = 0;
+    double confidence = 0.0;  // mean top probability (0 for an empty bin)
+    double accuracy = 0.0;    // share with the top class right (0 for an empty bin)
+};
+
+/// `bins` equal-width bins of the top probability of each row (Naeini,
+/// Cooper & Hauskrecht 2015; Guo et al. 2017, section 2): a confidence c
+/// falls in bin ceil(c * bins) - 1 (c = 0 in the first).
+template <class T>
+std::vector<reliability_bin> reliability_bins(const matrix<T>& probabilities, const std::vector<std::size_t>& labels, std::size_t bins = 15) {
+    const std::size_t rows = probabilities.shape()[0], cols = probabilities.shape()[1];
+    if (rows != labels.size() || bins == 0 || cols == 0)
+        raise(codes::invalid_argument, "reliability_bins: " + std::to_string(rows) + " rows for " + std::to_string(labels.size()) + " labels, " +
+                                           std::to_string(bins) + " bins, " + std::to_string(cols) + " classes");
+    std::vector<reliability_bin> out(bins);
+    for (std::size_t b = 0; b < bins; ++b) {
+        out[b].low = static_cast<double>(b) / static_cast<double>(bins);
+        out[b].high = static_cast<double>(b + 1) / static_cast<double>(bins);
+    }
+    for (std::size_t i = 0; i < rows; ++i) {
+        const T* p = probabilities.data() + i * cols;
+        const std::size_t best = static_cast<std::size_t>(std::max_element(p, p + cols) - p);
+        const double c = static_cast<double>(p[best]);
+        const double position = std::ceil(c * static_cast<double>(bins)) - 1.0;  // NaN: the first bin
+        const std::size_t b = !(position > 0.0) ? 0 : position >= static_cast<double>(bins - 1) ? bins - 1 : static_cast<std::size_t>(position);
+        out[b].rows += 1;
+        out[b].confidence += c;  // sums until the division below
+        out[b].accuracy += best == labels[i] ? 1.0 : 0.0;
+    }
+    for (auto& b : out)
+        if (b.rows > 0) {
+            b.confidence /= static_cast<double>(b.rows);
+            b.accuracy /= static_cast<double>(b.rows);
+        }
+    return out;
+}
+
 /// MAE, RMSE and R^2 of n predictions (both arrays hold n values).
 template <class T>
 regression_scores score_values(const T* truth, const T* predicted, std::size_t n) {

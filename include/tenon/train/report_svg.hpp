@@ -4,7 +4,11 @@
 // weights were kept marked), and, for classification, the test confusion
 // matrix as a heat map whose cell shade is the share of the true class's rows
 // (row-normalized, on tenon's own parchment-ochre-umber scale, heat_colour)
-// with the raw count written in the cell. No scripts, no
+// with the raw count written in the cell. With a calibration, a third
+// panel: for regression the test rows' true values against the predictions
+// with each row's band, for classification a reliability diagram (Guo et
+// al. 2017, figure 1: accuracy per confidence bin) before and after
+// temperature scaling. No scripts, no
 // external fonts or styles: the file opens in any browser and can be archived
 // beside the model.
 #pragma once
@@ -30,6 +34,16 @@ struct report_content {
     std::size_t kept_epoch = 0;                      // 1-based; 0 = none marked
     const confusion_matrix* confusion = nullptr;     // classification only
     std::vector<std::string> class_names;            // labels for the heat map
+    /// Regression with a band: test rows as (predicted, actual, low, high).
+    struct band_point {
+        double predicted = 0.0, actual = 0.0, low = 0.0, high = 0.0;
+    };
+    std::vector<band_point> bands;
+    /// Classification with calibration: reliability bins of the test rows
+    /// before (raw softmax) and after temperature scaling.
+    std::vector<reliability_bin> reliability_raw, reliability_calibrated;
+    /// The calibration's nominal coverage and the test rows' coverage, for the legend.
+    double nominal_coverage = 0.0, test_coverage = 0.0;
 };
 
 namespace detail {
@@ -184,13 +198,89 @@ inline void svg_confusion_panel(std::string& s, const report_content& r, double 
     }
 }
 
+// Test rows' true values against predictions, each with its band.
+inline void svg_band_panel(std::string& s, const report_content& r, double x0, double y0, double w, double h) {
+    const double left = x0 + 60, right = x0 + w - 20, top = y0 + 30, bottom = y0 + h - 40;
+    s += "<text x=\"" + svg_fixed(x0 + w / 2) + "\" y=\"" + svg_fixed(y0 + 18) +
+         "\" text-anchor=\"middle\" font-size=\"14\" font-weight=\"bold\">True against predicted, with bands (test)</text>\n";
+    double lo = INFINITY, hi = -INFINITY;
+    for (const auto& p : r.bands)
+        for (double v : {p.predicted, p.actual, p.low, p.high})
+            if (std::isfinite(v)) { lo = std::min(lo, v); hi = std::max(hi, v); }
+    if (!(lo <= hi)) { lo = 0; hi = 1; }
+    if (hi - lo < 1e-12) hi = lo + 1;
+    const double pad = 0.05 * (hi - lo);
+    lo -= pad;
+    hi += pad;
+    auto px = [&](double v) { return left + (right - left) * (std::min(hi, std::max(lo, v)) - lo) / (hi - lo); };
+    auto py = [&](double v) { return bottom - (bottom - top) * (std::min(hi, std::max(lo, v)) - lo) / (hi - lo); };
+    s += "<rect x=\"" + svg_fixed(left) + "\" y=\"" + svg_fixed(top) + "\" width=\"" + svg_fixed(right - left) + "\" height=\"" +
+         svg_fixed(bottom - top) + "\" fill=\"none\" stroke=\"#888\"/>\n";
+    for (int t = 0; t <= 4; ++t) {
+        const double v = lo + (hi - lo) * t / 4.0;
+        s += "<text x=\"" + svg_fixed(left - 6) + "\" y=\"" + svg_fixed(py(v) + 4) + "\" text-anchor=\"end\" font-size=\"10\">" + svg_number(v, 3) +
+             "</text>\n";
+        s += "<text x=\"" + svg_fixed(px(v)) + "\" y=\"" + svg_fixed(bottom + 14) + "\" text-anchor=\"middle\" font-size=\"10\">" +
+             svg_number(v, 3) + "</text>\n";
+    }
+    s += "<text x=\"" + svg_fixed((left + right) / 2) + "\" y=\"" + svg_fixed(bottom + 30) +
+         "\" text-anchor=\"middle\" font-size=\"11\">predicted</text>\n";
+    s += "<line x1=\"" + svg_fixed(px(lo)) + "\" y1=\"" + svg_fixed(py(lo)) + "\" x2=\"" + svg_fixed(px(hi)) + "\" y2=\"" + svg_fixed(py(hi)) +
+         "\" stroke=\"#bbb\" stroke-dasharray=\"4 3\"/>\n";
+    const std::size_t shown = std::min<std::size_t>(r.bands.size(), 2000);  // keeps the file small
+    for (std::size_t i = 0; i < shown; ++i) {
+        const auto& p = r.bands[i];
+        const bool inside = p.actual >= p.low && p.actual <= p.high;
+        s += "<line x1=\"" + svg_fixed(px(p.predicted)) + "\" x2=\"" + svg_fixed(px(p.predicted)) + "\" y1=\"" + svg_fixed(py(p.low)) +
+             "\" y2=\"" + svg_fixed(py(p.high)) + "\" stroke=\"#9cc1e6\" stroke-width=\"1\"/>\n";
+        s += "<circle cx=\"" + svg_fixed(px(p.predicted)) + "\" cy=\"" + svg_fixed(py(p.actual)) + "\" r=\"2\" fill=\"" +
+             (inside ? "#1f5fa8" : "#c0392b") + "\"/>\n";
+    }
+    s += "<text x=\"" + svg_fixed(left + 8) + "\" y=\"" + svg_fixed(top + 16) + "\" font-size=\"11\">band: nominal " +
+         svg_number(r.nominal_coverage, 3) + ", test coverage " + svg_number(r.test_coverage, 3) + " (red: outside)</text>\n";
+}
+
+// Accuracy per confidence bin before and after temperature scaling.
+inline void svg_reliability_panel(std::string& s, const report_content& r, double x0, double y0, double w, double h) {
+    const double left = x0 + 60, right = x0 + w - 20, top = y0 + 30, bottom = y0 + h - 40;
+    s += "<text x=\"" + svg_fixed(x0 + w / 2) + "\" y=\"" + svg_fixed(y0 + 18) +
+         "\" text-anchor=\"middle\" font-size=\"14\" font-weight=\"bold\">Reliability (test)</text>\n";
+    auto px = [&](double v) { return left + (right - left) * v; };
+    auto py = [&](double v) { return bottom - (bottom - top) * v; };
+    s += "<rect x=\"" + svg_fixed(left) + "\" y=\"" + svg_fixed(top) + "\" width=\"" + svg_fixed(right - left) + "\" height=\"" +
+         svg_fixed(bottom - top) + "\" fill=\"none\" stroke=\"#888\"/>\n";
+    for (int t = 0; t <= 4; ++t) {
+        const double v = t / 4.0;
+        s += "<text x=\"" + svg_fixed(left - 6) + "\" y=\"" + svg_fixed(py(v) + 4) + "\" text-anchor=\"end\" font-size=\"10\">" + svg_number(v, 3) +
+             "</text>\n";
+        s += "<text x=\"" + svg_fixed(px(v)) + "\" y=\"" + svg_fixed(bottom + 14) + "\" text-anchor=\"middle\" font-size=\"10\">" +
+             svg_number(v, 3) + "</text>\n";
+    }
+    s += "<text x=\"" + svg_fixed((left + right) / 2) + "\" y=\"" + svg_fixed(bottom + 30) +
+         "\" text-anchor=\"middle\" font-size=\"11\">confidence (top probability)</text>\n";
+    s += "<line x1=\"" + svg_fixed(px(0)) + "\" y1=\"" + svg_fixed(py(0)) + "\" x2=\"" + svg_fixed(px(1)) + "\" y2=\"" + svg_fixed(py(1)) +
+         "\" stroke=\"#bbb\" stroke-dasharray=\"4 3\"/>\n";
+    for (const auto& b : r.reliability_calibrated) {
+        if (b.rows == 0) continue;
+        s += "<rect x=\"" + svg_fixed(px(b.low) + 1) + "\" y=\"" + svg_fixed(py(b.accuracy)) + "\" width=\"" + svg_fixed(px(b.high) - px(b.low) - 2) +
+             "\" height=\"" + svg_fixed(py(0) - py(b.accuracy)) + "\" fill=\"#9cc1e6\"/>\n";
+    }
+    std::string pts;
+    for (const auto& b : r.reliability_raw)
+        if (b.rows > 0) pts += svg_fixed(px(b.confidence)) + "," + svg_fixed(py(b.accuracy)) + " ";
+    if (!pts.empty()) s += "<polyline fill=\"none\" stroke=\"#d9731a\" stroke-width=\"2\" points=\"" + pts + "\"/>\n";
+    s += "<text x=\"" + svg_fixed(left + 8) + "\" y=\"" + svg_fixed(top + 16) +
+         "\" font-size=\"11\">bars: after temperature scaling; line: before</text>\n";
+}
+
 }  // namespace detail
 
 /// The report as an SVG document.
 inline std::string training_report_svg(const report_content& r) {
     const double panel_w = 520, panel_h = 360;
     const bool with_confusion = r.confusion != nullptr;
-    const double width = with_confusion ? panel_w * 2 : panel_w;
+    const bool with_calibration = !r.bands.empty() || !r.reliability_calibrated.empty();
+    const double width = panel_w * (1 + (with_confusion ? 1 : 0) + (with_calibration ? 1 : 0));
     const double height = panel_h + 40;
     std::string s;
     s += "<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n";
@@ -200,6 +290,9 @@ inline std::string training_report_svg(const report_content& r) {
     s += "<text x=\"12\" y=\"22\" font-size=\"15\">" + detail::svg_escape(r.title) + "</text>\n";
     detail::svg_loss_panel(s, r, 0, 40, panel_w, panel_h);
     if (with_confusion) detail::svg_confusion_panel(s, r, panel_w, 40, panel_w);
+    const double x = panel_w * (with_confusion ? 2 : 1);
+    if (!r.bands.empty()) detail::svg_band_panel(s, r, x, 40, panel_w, panel_h);
+    else if (!r.reliability_calibrated.empty()) detail::svg_reliability_panel(s, r, x, 40, panel_w, panel_h);
     s += "</svg>\n";
     return s;
 }
