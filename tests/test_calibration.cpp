@@ -313,6 +313,7 @@ TEST_CASE("a fitted network calibrated on its validation rows covers its test ro
     s.hidden = {16};
     s.epochs = 30;
     s.seed = 3;
+    s.ensemble = 1;  // one network: the plain band (an ensemble's is normalized)
     auto model = tenon::fit_model<float>(t, p, split.train, split.validation, s);
     const auto c = tenon::calibrate_model(model, t, split.validation, 0.9);
     REQUIRE(c.interval);
@@ -355,6 +356,7 @@ TEST_CASE("temperature scaling lowers the test ECE and log loss of a network tra
     s.patience = 0;
     s.learning_rate = 0.003;
     s.seed = 5;
+    s.ensemble = 1;  // one network, trained to overconfidence (an ensemble's mean is less so)
     auto model = tenon::fit_model<float>(t, p, train, {}, s);
     const auto c = tenon::calibrate_model(model, t, calibration, 0.9);
     REQUIRE(c.classes);

@@ -3,6 +3,7 @@
 // temperature-scaled probabilities and class-set bits.
 #include <doctest/doctest.h>
 
+#include <algorithm>
 #include <cmath>
 #include <limits>
 #include <string>
@@ -27,11 +28,18 @@ struct calibrated {
     tenon::fitted_model<T> fitted;
     tenon::model_file<T> file;
 
-    explicit calibrated(bool classify)
+    // One network by default; `members` > 1 for a seed ensemble.
+    explicit calibrated(bool classify, std::size_t members = 1)
         : fitted(tenon::fit_model<T>(table, classify ? deploy_test::condition_plan() : deploy_test::power_plan(), train, validation,
-                                     deploy_test::small_settings())),
-          file(tenon::make_model_file(fitted, table, train, deploy_test::small_settings())) {
+                                     settings(members))),
+          file(tenon::make_model_file(fitted, table, train, settings(members))) {
         file.calibration = tenon::calibrate_model(fitted, table, validation, 0.8);
+    }
+
+    static tenon::model_settings settings(std::size_t members) {
+        tenon::model_settings s = deploy_test::small_settings();
+        s.ensemble = members;
+        return s;
     }
 };
 
@@ -151,6 +159,50 @@ TEST_CASE_TEMPLATE("the predictor's probabilities are temperature-scaled and its
         }
         CHECK(v.in_set(i, v.best_class(i)));
         CHECK(v.set_size(i) == members);
+    }
+}
+
+TEST_CASE_TEMPLATE("an ensemble's band scales with its members' spread, and its tempered mean gives the class sets", T, float, double) {
+    // Regression: the normalized band, prediction +- q * (spread + floor)
+    // (train/calibration.hpp), with the spread the members' sample standard
+    // deviation the predictor reports.
+    calibrated<T> r(false, 3);
+    REQUIRE(r.file.calibration->interval->has_spread);
+    tenon::predictor<T> rp(r.file, 64);
+    const auto rf = r.fitted.plan.template apply<T>(r.table, r.test).features;
+    const auto v = rp.predict_prepared(rf.data(), r.test.size());
+    REQUIRE(v.members == 3);
+    REQUIRE(v.has_interval());
+    const T q = static_cast<T>(r.file.calibration->interval->spread_quantile);
+    const T floor = static_cast<T>(r.file.calibration->interval->spread_floor);
+    double widest = 0.0, narrowest = std::numeric_limits<double>::infinity();
+    for (std::size_t i = 0; i < v.rows; ++i) {
+        const T h = q * (v.spread[i] + floor);
+        CHECK(same_bits(v.low_at(i, 0), static_cast<T>(v.at(i, 0) - h)));
+        CHECK(same_bits(v.high_at(i, 0), static_cast<T>(v.at(i, 0) + h)));
+        widest = std::max(widest, static_cast<double>(v.high_at(i, 0) - v.low_at(i, 0)));
+        narrowest = std::min(narrowest, static_cast<double>(v.high_at(i, 0) - v.low_at(i, 0)));
+    }
+    CHECK(widest > narrowest);  // the band is not one width for every row
+    // The library scores the same band (its spread is computed in double).
+    const auto scores = tenon::score_calibration(r.fitted, *r.file.calibration, r.table, r.test);
+    double width = 0.0;
+    for (std::size_t i = 0; i < v.rows; ++i) width += static_cast<double>(v.high_at(i, 0) - v.low_at(i, 0));
+    CHECK(scores.interval_mean_width == doctest::Approx(width / static_cast<double>(v.rows)).epsilon(1e-4));
+
+    // Classification: softmax(log(mean probability) / temperature), the
+    // library's and the predictor's, bit for bit.
+    calibrated<T> c(true, 3);
+    tenon::predictor<T> cp(c.file, 64);
+    const tenon::prepared_rows<T> rows = c.fitted.plan.template apply<T>(c.table, c.test);
+    const auto u = cp.predict_prepared(rows.features.data(), c.test.size());
+    REQUIRE(u.members == 3);
+    REQUIRE(u.has_class_sets());
+    const auto logits = tenon::detail::ensemble_outputs(c.fitted, rows).outputs;
+    const auto expected = tenon::tempered_softmax_rows(logits, c.file.calibration->classes->temperature);
+    for (std::size_t i = 0; i < u.rows; ++i) {
+        for (std::size_t k = 0; k < u.width; ++k) CHECK(same_bits(u.at(i, k), expected.data()[i * u.width + k]));
+        CHECK(u.in_set(i, u.best_class(i)));
     }
 }
 
