@@ -38,9 +38,7 @@
 #include <cstdio>
 #include <cstring>
 #include <fstream>
-#include <new>
 #include <random>
-#include <stdexcept>
 #include <string>
 #include <vector>
 
@@ -116,16 +114,7 @@ public:
     bool remove(const std::string& path) override { return ::unlink(path.c_str()) == 0; }
     bool set_permissions(int handle, const std::string& target) override {
         struct stat st {};
-        if (::stat(target.c_str(), &st) != 0) {
-            unsigned mask = 022;
-            try {
-                mask = process_umask();
-            } catch (const std::bad_alloc&) {
-                errno = ENOMEM;
-                return false;
-            }
-            return ::fchmod(handle, static_cast<mode_t>(0666 & ~mask)) == 0;
-        }
+        if (::stat(target.c_str(), &st) != 0) return ::fchmod(handle, static_cast<mode_t>(0666 & ~process_umask())) == 0;
         // Root keeps the owner of the file it replaces; for anyone else
         // fchown would fail and the file becomes the saver's.
         if (::geteuid() == 0 && ::fchown(handle, st.st_uid, st.st_gid) != 0) return false;
@@ -135,19 +124,24 @@ public:
 
     /// The process's umask, read from /proc/self/status on Linux (umask()
     /// itself cannot be read without being changed, which races with other
-    /// threads creating files); 022, the common default, elsewhere.
-    static unsigned process_umask() {
-        std::ifstream status("/proc/self/status");
-        std::string line;
-        while (std::getline(status, line))
-            if (line.compare(0, 6, "Umask:") == 0) {
-                try {
-                    return static_cast<unsigned>(std::stoul(line.substr(6), nullptr, 8)) & 0777u;
-                } catch (const std::logic_error&) {  // no digits, or out of range
-                    break;
-                }
-            }
-        return 022;
+    /// threads creating files); 022, the common default, elsewhere. Reads
+    /// into a fixed buffer: no allocation, nothing thrown.
+    static unsigned process_umask() noexcept {
+        const int fd = ::open("/proc/self/status", O_RDONLY | O_CLOEXEC);
+        if (fd < 0) return 022;
+        char text[4096];  // "Umask:" is the second line (proc(5))
+        const ssize_t n = ::read(fd, text, sizeof(text) - 1);
+        ::close(fd);
+        if (n <= 0) return 022;
+        text[n] = '\0';
+        const char* at = std::strstr(text, "\nUmask:");
+        if (!at) return 022;
+        at += 7;
+        while (*at == ' ' || *at == '\t') ++at;
+        unsigned mask = 0;
+        int digits = 0;
+        for (; *at >= '0' && *at <= '7' && digits < 4; ++at, ++digits) mask = mask * 8u + static_cast<unsigned>(*at - '0');
+        return digits > 0 ? (mask & 0777u) : 022u;
     }
 #else
     int create(const std::string& path) override {
