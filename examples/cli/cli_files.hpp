@@ -544,6 +544,9 @@ private:
         // The library's safe temporary file (tenon/deploy/atomic_file.hpp):
         // ".NAME.tenon-PID-RANDOM.tmp", O_CREAT|O_EXCL|O_NOFOLLOW, mode 0600.
         tenon::native_file_system host;
+        // Signals wait until the file is in the handler's table: one arriving
+        // between its creation and its registration would leave it behind.
+        detail::signals_blocked blocked;
         const int fd = tenon::create_temporary_file(place_.directory + "/" + place_.name, host, temporary_);
         if (fd < 0) {
             const int e = errno;
