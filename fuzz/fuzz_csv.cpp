@@ -5,6 +5,8 @@
 // The first byte chooses the options, the rest is the text: bits 0-1 the
 // delimiter, bit 2 a tiny read chunk (1 to 32 bytes, so records, quotes and
 // CRLF pairs straddle chunk boundaries), bit 3 the streaming summary as well.
+// Without bit 2, bits 4-7 (N > 0) set tiny limits, so short inputs reach
+// them: fields of at most 4N bytes, at most N categories per column.
 #include <cstddef>
 #include <cstdint>
 #include <cstdlib>
@@ -20,6 +22,10 @@ extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size
     const char delimiters[] = {',', ';', '\t', '|'};
     options.delimiter = delimiters[choice & 3u];
     if (choice & 4u) options.chunk_bytes = 1 + (choice >> 4) * 2;
+    else if (choice >> 4) {
+        options.max_field_bytes = 4u * (choice >> 4);
+        options.max_categories = choice >> 4;
+    }
     const std::string text(reinterpret_cast<const char*>(data + 1), size - 1);
     try {
         std::istringstream in(text);

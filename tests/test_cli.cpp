@@ -176,10 +176,12 @@ TEST_CASE("impossible fractions are refused before the data is read") {
                   "[cli.option.value] --fractions '1,0,0': train and test must lie strictly between 0 and 1, validation in [0, 1)");
     check_failure(dir, {"train", "--data", path, "--target", "verdict", "--fractions", "0.7,x,0.15"},
                   "[cli.option.value] --fractions 'x': not a finite number");
-    // Possible fractions that leave a class too small for a stratified split: the library says so.
+    // Possible fractions that leave a class too small for a stratified split:
+    // the library says so, and the tool names the class by its label.
     const auto tiny = dir.write("tiny.csv", "torque,verdict\n1,tight\n2,tight\n3,loose\n4,loose\n5,tight\n");
     check_failure(dir, {"train", "--data", tiny, "--target", "verdict"},
-                  "[prep.split.class_too_small] stratified holdout: class 1 has 2 rows, fewer than the 3 non-empty subsets");
+                  "[prep.split.class_too_small] " + tiny +
+                      ": stratified holdout: class 'loose' of the target 'verdict' has 2 rows, fewer than the 3 non-empty subsets");
 }
 
 TEST_CASE("unknown options, bad numbers and missing values are named") {

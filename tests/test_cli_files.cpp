@@ -601,3 +601,146 @@ TEST_CASE("--ignore leaving no input column is named in column terms, not as a l
     CHECK(r.err == "tenon train: error: [cli.option.conflict] " + data +
                        ": no input column is left: the columns are a, b, output, of which 'output' is the target and the others are ignored or the group column\n");
 }
+
+TEST_CASE("wide one-hot inputs times the first hidden width above the weight limit are refused before training, naming the columns") {
+    // 2,000 part numbers, each on two rows: about 2,000 one-hot features
+    // (those of the training rows) times 65,536 units is above 100 million.
+    scratch_dir dir("wide");
+    std::string csv = "part,speed,flow\n";
+    for (int i = 0; i < 4000; ++i) csv += "p" + std::to_string(i % 2000) + "," + std::to_string(1000 + i % 37) + "," + std::to_string(i % 11) + ".5\n";
+    const auto data = dir.write("parts.csv", csv);
+    const auto before = dir.listing();
+    for (const char* folds : {"0", "3"}) {
+        std::vector<std::string> args{"train", "--data", data, "--target", "flow", "--hidden", "65536", "--epochs", "1", "--model", dir.file("m.tnm")};
+        if (std::string(folds) != "0") args = {"train", "--data", data, "--target", "flow", "--hidden", "65536", "--epochs", "1", "--folds", folds};
+        const auto r = run(args);
+        CHECK(r.status == 2);
+        CHECK(contains(r.err, "[cli.option.value] " + data + ": "));
+        CHECK(contains(r.err, "input features (the widest: 'part' "));
+        CHECK(contains(r.err, "hidden layers 65536 and 1 outputs make "));
+        CHECK(contains(r.err, " weights, above the limit of 100000000 (give narrower --hidden widths, or --ignore the wide columns)\n"));
+        CHECK(dir.listing() == before);
+    }
+    // The same data with a narrow layer trains.
+    CHECK(run({"train", "--data", data, "--target", "flow", "--hidden", "4", "--epochs", "1", "--quiet"}).status == 0);
+}
+
+TEST_CASE("a field above 64 KiB is refused with its file, line and column, before anything is written") {
+    scratch_dir dir("field");
+    std::string csv = pump_csv(40);
+    const std::string huge(70000, 'x');
+    csv += "1200.0," + huge + ",3.5\n";  // line 42, column 2
+    const auto data = dir.write("huge.csv", csv);
+    const auto model = dir.file("m.tnm");
+    const auto r = run({"train", "--data", data, "--target", "flow", "--epochs", "1", "--model", model});
+    CHECK(r.status == 2);
+    CHECK(contains(r.err, "[prep.csv.oversize] " + data + " line 42 column 2: a field longer than the limit of 65536 bytes"));
+    CHECK(std::count(r.err.begin(), r.err.end(), '\n') == 1);
+    CHECK_FALSE(fs::exists(model));
+}
+
+TEST_CASE("1e300 inputs that overflow when scaled are named by file line, column and value, in train and in infer") {
+    scratch_dir dir("overflow");
+    std::string csv = "speed,load,flow\n";
+    for (int i = 0; i < 60; ++i) csv += std::string(i % 2 ? "1e300" : "-1e300") + "," + std::to_string(i % 9) + "," + std::to_string(i % 5) + ".25\n";
+    const auto data = dir.write("big.csv", csv);
+    const auto r = run({"train", "--data", data, "--target", "flow", "--epochs", "1", "--model", dir.file("m.tnm")});
+    CHECK(r.status == 2);
+    // The spread of +-1e300 overflows (its square is beyond double's range),
+    // so the z-score leaves about 1e300, beyond single precision.
+    CHECK(contains(r.err, "[prep.value.overflow] " + data + " line "));
+    CHECK(contains(r.err, ", column 'speed': the value "));
+    CHECK(contains(r.err, "e+300 scales to "));
+    CHECK(contains(r.err, "beyond the single precision range (about 3.4e38)"));
+    CHECK_FALSE(contains(r.err, "row 0"));
+    CHECK_FALSE(fs::exists(dir.file("m.tnm")));
+
+    // A model trained on ordinary speeds meets 1e300 in new rows: its data line.
+    pump_setup p("overflow_infer");
+    std::string rows = "speed,valve\n1000,open\n1e300,half\n";
+    const auto fresh = p.dir.write("fresh.csv", rows);
+    const auto i = run({"infer", "--model", p.model, "--data", fresh, "--out", p.dir.file("out.csv")});
+    CHECK(i.status == 2);
+    CHECK(contains(i.err, fresh + " line 3 column 1 ('speed'): '1e300' is beyond what the model computes with"));
+    CHECK_FALSE(fs::exists(p.dir.file("out.csv")));
+}
+
+TEST_CASE("retrain refusing every new row names the first bad cell: file, line, column and value") {
+    pump_setup p("retrain_refused");
+    std::string rows = "speed,valve,flow\n";
+    for (int i = 0; i < 30; ++i) rows += std::string(i == 0 ? "\"fa\rst\"" : "fast") + ",open,3.5\n";
+    const auto fresh = p.dir.write("fresh.csv", rows);
+    const auto r = run({"retrain", "--model", p.model, "--data", fresh, "--out", p.dir.file("next.tnm")});
+    CHECK(r.status == 2);
+    CHECK(contains(r.err, "0 of the 30 new rows are usable (30 refused; the first, " + fresh +
+                              " line 2: column 'speed' holds 'fa\\rst', not a number)"));
+    CHECK(std::count(r.err.begin(), r.err.end(), '\n') == 1);
+    CHECK_FALSE(fs::exists(p.dir.file("next.tnm")));
+    // A target that is not a number.
+    std::string words = "speed,valve,flow\n";
+    for (int i = 0; i < 30; ++i) words += std::to_string(1000 + i) + ",open,fast\n";
+    const auto worded = p.dir.write("worded.csv", words);
+    const auto w = run({"retrain", "--model", p.model, "--data", worded, "--out", p.dir.file("next.tnm")});
+    CHECK(w.status == 2);
+    CHECK(contains(w.err, "(30 refused; the first, " + worded + " line 2: column 'flow' (the target) holds 'fast', not a number)"));
+}
+
+TEST_CASE("a class too small for a stratified split is named by its label and the target column, not its code") {
+    scratch_dir dir("small_class");
+    std::string csv = "speed,kind\n";
+    for (int i = 0; i < 60; ++i) csv += std::to_string(1000 + (i * 7) % 50) + "," + (i == 30 ? "rare" : i % 2 ? "pump" : "fan") + "\n";
+    const auto data = dir.write("kinds.csv", csv);
+    const auto r = run({"train", "--data", data, "--target", "kind", "--epochs", "1"});
+    CHECK(r.status == 2);
+    CHECK(contains(r.err, "[prep.split.class_too_small] " + data + ": stratified holdout: class 'rare' of the target 'kind' has 1 rows"));
+    const auto f = run({"train", "--data", data, "--target", "kind", "--epochs", "1", "--folds", "3"});
+    CHECK(f.status == 2);
+    CHECK(contains(f.err, "stratified k-fold: class 'rare' of the target 'kind' has 1 rows, fewer than the 3 folds"));
+}
+
+TEST_CASE("columns all left out by the tool (counters) are named in column terms, not as a layer of 0 inputs") {
+    scratch_dir dir("all_left_out");
+    std::string csv = "a,b,y\n";
+    for (int i = 0; i < 200; ++i) csv += std::to_string(i * 3) + "," + std::to_string(i) + "," + std::to_string(i % 3) + "\n";
+    const auto data = dir.write("counters.csv", csv);
+    const auto r = run({"train", "--data", data, "--target", "y", "--epochs", "1"});
+    CHECK(r.status == 2);
+    CHECK(contains(r.err, "[cli.option.conflict] " + data + ": no input column is left: the columns are a, b, y, of which 'y' is the target"));
+    CHECK_FALSE(contains(r.err, "dense layer"));
+}
+
+#if !defined(__SANITIZE_ADDRESS__) && !defined(__SANITIZE_THREAD__)  // sanitizers reserve terabytes of address space
+TEST_CASE("running out of memory under a limit is one line saying so, and leaves no output") {
+    // 16384 x 6000 = 98,304,000 weights between the layers (under the 100
+    // million limit): 393 MB in single precision, with gradients and Adam's
+    // two moments about 1.6 GB, above an address-space limit of what the
+    // process maps now plus 768 MiB (POSIX setrlimit(), RLIMIT_AS:
+    // allocations past it fail; /proc/self/statm's first field is the
+    // mapped size in pages, proc(5)).
+    pump_setup p("memory");
+    const std::string model = p.dir.file("big.tnm"), report = p.dir.file("err.txt");
+    const auto before = p.dir.listing();
+    const pid_t child = ::fork();
+    REQUIRE(child >= 0);
+    if (child == 0) {
+        unsigned long long pages = 0;
+        if (!(std::ifstream("/proc/self/statm") >> pages)) ::_exit(98);
+        struct rlimit limit {};
+        limit.rlim_cur = limit.rlim_max = static_cast<rlim_t>(pages * static_cast<unsigned long long>(::sysconf(_SC_PAGESIZE)) + (768ull << 20));
+        if (::setrlimit(RLIMIT_AS, &limit) != 0) ::_exit(99);
+        const auto r = run({"train", "--data", p.data, "--target", "flow", "--hidden", "16384,6000", "--epochs", "1", "--model", model});
+        std::ofstream(report) << r.err;
+        ::_exit(r.status);
+    }
+    int status = 0;
+    REQUIRE(::waitpid(child, &status, 0) == child);
+    REQUIRE(WIFEXITED(status));
+    CHECK(WEXITSTATUS(status) == 1);
+    const std::string err = read_file(report);
+    CHECK(contains(err, "tenon train: error: out of memory ("));
+    CHECK(contains(err, "a smaller network (--hidden) or fewer rows or columns needs less"));
+    CHECK(std::count(err.begin(), err.end(), '\n') == 1);
+    fs::remove(report);
+    CHECK(p.dir.listing() == before);
+}
+#endif

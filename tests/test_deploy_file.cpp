@@ -13,6 +13,12 @@
 #include <string>
 #include <vector>
 
+#include <cerrno>
+#include <cstring>
+#include <iterator>
+#include <sys/stat.h>
+#include <unistd.h>
+
 #include <tenon/deploy/model_file.hpp>
 #include <tenon/deploy/predictor.hpp>
 
@@ -401,6 +407,7 @@ public:
     bool rename(const std::string& a, const std::string& b) override { return step() && real_.rename(a, b); }
     bool sync_directory(const std::string& d) override { return step() && real_.sync_directory(d); }
     bool remove(const std::string& p) override { return real_.remove(p); }
+    bool set_permissions(int h, const std::string& target) override { return real_.set_permissions(h, target); }
 
 private:
     bool step() {
@@ -453,15 +460,105 @@ TEST_CASE("a failure or crash at any step of saving leaves a complete, loadable 
     // Simulated crashes leave their temporary files behind (a real crash
     // would too); only they remain, and the loader never looks at them.
     std::size_t strays = 0;
-    for (const auto& entry : std::filesystem::directory_iterator("/tmp")) {
-        const std::string name = entry.path().string();
-        if (name.rfind(path + ".tmp-", 0) == 0) {
+    const std::string stray_prefix = "." + std::filesystem::path(path).filename().string() + ".tenon-";
+    for (const auto& entry : std::filesystem::directory_iterator(std::filesystem::path(path).parent_path())) {
+        const std::string name = entry.path().filename().string();
+        if (name.rfind(stray_prefix, 0) == 0) {
             ++strays;
             std::filesystem::remove(entry.path());
         }
     }
     CHECK(strays == 4);  // crashes at write, fsync, close and rename
     CHECK(scenarios == 12);
+}
+
+namespace {
+
+// The host's file system with fixed "random" bits: every temporary name is
+// known in advance, as a hostile user sharing the directory would wish.
+class predictable_file_system : public tenon::native_file_system {
+public:
+    std::uint64_t random_bits() override { return 0x1234; }
+    std::vector<unsigned> created_modes;
+    int create(const std::string& path) override {
+        const int h = tenon::native_file_system::create(path);
+        struct stat st {};
+        if (h >= 0 && ::fstat(h, &st) == 0) created_modes.push_back(st.st_mode & 07777);
+        return h;
+    }
+};
+
+std::vector<std::uint8_t> text_bytes(const std::string& text) { return std::vector<std::uint8_t>(text.begin(), text.end()); }
+
+std::string file_text(const std::string& path) {
+    std::ifstream in(path, std::ios::binary);
+    return std::string(std::istreambuf_iterator<char>(in), std::istreambuf_iterator<char>());
+}
+
+}  // namespace
+
+TEST_CASE("a symlink planted at a temporary name is never written through, and the save fails rather than follow it") {
+    const std::string path = temp_path("planted.tnm"), victim = temp_path("victim.txt");
+    std::ofstream(victim) << "precious";
+    tenon::write_file_atomically(path, text_bytes("old"));
+    predictable_file_system fs;
+    const std::string known = "/tmp/." + std::filesystem::path(path).filename().string() + ".tenon-" + std::to_string(::getpid()) +
+                              "-0000000000001234.tmp";
+    REQUIRE(::symlink(victim.c_str(), known.c_str()) == 0);
+    // Every name is taken (all 16 tries give the same one): EEXIST, nothing
+    // written, and the planted link, which the run did not create, stays.
+    CHECK_THROWS_WITH_AS(tenon::write_file_atomically(path, text_bytes("new"), fs), doctest::Contains(std::strerror(EEXIST)), tenon::error);
+    CHECK(file_text(victim) == "precious");
+    CHECK(file_text(path) == "old");
+    struct stat st {};
+    CHECK(::lstat(known.c_str(), &st) == 0);
+    CHECK(S_ISLNK(st.st_mode));
+    CHECK(fs.created_modes.empty());
+    // Names of the former scheme ("NAME.tmp-PID-N") are no longer used:
+    // links planted there are left alone and the save succeeds.
+    std::vector<std::string> old_names;
+    for (int n = 0; n < 64; ++n) {
+        old_names.push_back(path + ".tmp-" + std::to_string(::getpid()) + "-" + std::to_string(n));
+        REQUIRE(::symlink(victim.c_str(), old_names.back().c_str()) == 0);
+    }
+    tenon::write_file_atomically(path, text_bytes("new"));
+    CHECK(file_text(path) == "new");
+    CHECK(file_text(victim) == "precious");
+    for (const auto& name : old_names) std::remove(name.c_str());
+    std::remove(known.c_str());
+    std::remove(victim.c_str());
+    std::remove(path.c_str());
+}
+
+TEST_CASE("temporary files are created 0600, and the saved file keeps the mode of the one it replaces") {
+    const std::string path = temp_path("mode.tnm");
+    std::remove(path.c_str());
+    predictable_file_system fs;
+    tenon::write_file_atomically(path, text_bytes("first"), fs);
+    REQUIRE(fs.created_modes.size() == 1);
+    CHECK(fs.created_modes[0] == 0600);
+    // A new file: 0666 less the umask (POSIX open(), O_CREAT: "the access
+    // permission bits ... modified by the file mode creation mask").
+    const mode_t mask = ::umask(022);
+    ::umask(mask);
+    struct stat st {};
+    REQUIRE(::stat(path.c_str(), &st) == 0);
+    CHECK((st.st_mode & 07777) == (0666 & ~mask));
+    // A replaced file keeps its bits, read-only ones included.
+    REQUIRE(::chmod(path.c_str(), 0440) == 0);
+    tenon::write_file_atomically(path, text_bytes("second"), fs);
+    REQUIRE(::stat(path.c_str(), &st) == 0);
+    CHECK((st.st_mode & 07777) == 0440);
+    CHECK(file_text(path) == "second");
+    CHECK(fs.created_modes.size() == 2);
+    std::remove(path.c_str());
+}
+
+TEST_CASE("reading a model names a directory as one and gives the system's reason for a missing file") {
+    CHECK_THROWS_WITH_AS(tenon::read_file_bounded("/tmp", 1 << 20), "[deploy.file.io] '/tmp' is a directory, not a file to read", tenon::error);
+    CHECK_THROWS_WITH_AS(tenon::read_file_bounded("/nonexistent/tenon/m.tnm", 1 << 20),
+                         "[deploy.file.io] cannot open '/nonexistent/tenon/m.tnm' for reading (No such file or directory)",  // glibc's text of ENOENT
+                         tenon::error);
 }
 
 // The committed version-1 fixture: written once by tenon_deploy_fixture_writer

@@ -142,7 +142,7 @@ std::vector<std::string> temporaries_of(const std::string& path) {
     std::vector<std::string> found;
     const std::filesystem::path p(path);
     for (const auto& entry : std::filesystem::directory_iterator(p.parent_path()))
-        if (entry.path().filename().string().rfind(p.filename().string() + ".tmp-", 0) == 0) found.push_back(entry.path().string());
+        if (entry.path().filename().string().rfind("." + p.filename().string() + ".tenon-", 0) == 0) found.push_back(entry.path().string());
     return found;
 }
 
@@ -180,6 +180,7 @@ public:
     bool rename(const std::string& a, const std::string& b) override { return step_ == step::rename ? fail() : real_.rename(a, b); }
     bool sync_directory(const std::string& d) override { return step_ == step::sync_directory ? fail() : real_.sync_directory(d); }
     bool remove(const std::string& p) override { return real_.remove(p); }
+    bool set_permissions(int h, const std::string& target) override { return real_.set_permissions(h, target); }
 
 private:
     bool fail() {

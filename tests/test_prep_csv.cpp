@@ -107,6 +107,30 @@ tenon::csv_options detect_text(const std::string& text, const tenon::csv_options
 }
 }  // namespace
 
+TEST_CASE("limits: a field above max_field_bytes and a column above max_categories are refused with file, line and column") {
+    // A 64 KiB field is accepted; one byte more is refused, quoted or not,
+    // in the header too, and in the streaming reader.
+    const std::string at_limit(std::size_t(1) << 16, 'x');
+    CHECK(read_text("id,note\n1," + at_limit + "\n").at("note").category(0).size() == at_limit.size());
+    CHECK_THROWS_WITH_AS(read_text("id,note\n1,2\n3," + at_limit + "y\n"),
+                         "[prep.csv.oversize] t.csv line 3 column 2: a field longer than the limit of 65536 bytes (csv_options::max_field_bytes)",
+                         tenon::error);
+    CHECK_THROWS_WITH_AS(read_text("id,note\n1,\"" + at_limit + "\"\"\"\n"), doctest::Contains("t.csv line 2 column 2: a field longer"), tenon::error);
+    CHECK_THROWS_WITH_AS(read_text(at_limit + "z,b\n1,2\n"), doctest::Contains("t.csv line 1 column 1: a field longer"), tenon::error);
+    tenon::csv_options small;
+    small.max_field_bytes = 4;
+    CHECK_THROWS_WITH_AS(read_text("a,b\n1234,12345\n", small), doctest::Contains("line 2 column 2: a field longer than the limit of 4 bytes"),
+                         tenon::error);
+    std::istringstream stream("a,b\n1234,12345\n");
+    CHECK_THROWS_WITH_AS(tenon::summarize_csv(stream, small, "s.csv"), doctest::Contains("[prep.csv.oversize] s.csv line 2 column 2"), tenon::error);
+    // Distinct categories: 3 pass with a limit of 3, the 4th is refused on its line.
+    tenon::csv_options few;
+    few.max_categories = 3;
+    CHECK(read_text("v,k\n1,a\n2,b\n3,c\n4,a\n", few).at("k").categories().size() == 3);
+    CHECK_THROWS_WITH_AS(read_text("v,k\n1,a\n2,b\n3,c\n4,a\n5,d\n", few),
+                         doctest::Contains("[prep.csv.oversize] t.csv line 6 column 2 ('k'): more than 3 distinct categories"), tenon::error);
+}
+
 TEST_CASE("decimal commas: parsed without a point, refused with ',' as the delimiter") {
     double v = 0;
     CHECK(tenon::parse_decimal_comma_number("59,8", v));
@@ -314,7 +338,10 @@ TEST_CASE("CSV errors name the source, line and column") {
     CHECK(message == "[prep.csv.duplicate_column] t.csv line 1 column 3: the name 'a' is used twice in the header");
 
     CHECK(error_code_of([] { tenon::read_csv_file("/nonexistent/tenon/x.csv"); }, &message) == "prep.file.open");
-    CHECK(message == "[prep.file.open] /nonexistent/tenon/x.csv: cannot open for reading");
+    CHECK(message == "[prep.file.open] /nonexistent/tenon/x.csv: cannot open for reading (No such file or directory)");  // the system's reason (glibc's text of ENOENT)
+    // A directory is not read as an empty or endless file.
+    CHECK(error_code_of([] { tenon::read_csv_file(std::string(TENON_SOURCE_DIR) + "/tests"); }, &message) == "prep.file.open");
+    CHECK(message.find("cannot") != std::string::npos);
 
     CHECK(error_code_of([] { read_text("a\n1\n").at("b"); }, &message) == "prep.column.unknown");
     CHECK(message == "[prep.column.unknown] t.csv: no column named 'b'");

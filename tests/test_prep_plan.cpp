@@ -170,6 +170,35 @@ TEST_CASE("regression targets are scaled and restored to their original units") 
     CHECK(message == "[prep.column.kind] restore_target: the plan has no regression target");
 }
 
+TEST_CASE("a value beyond the model's number type once scaled is named by line, column and value, not as an infinite feature") {
+    // The squares of +-1e300 overflow double (max about 1.8e308, IEEE 754
+    // binary64), so the measured spread is not finite and is taken as 1
+    // (scaling.hpp); 1e300 then stays 1e300, beyond single precision
+    // (max about 3.4e38, binary32) but inside double.
+    std::istringstream in("load,power\n1e300,1\n-1e300,2\n0,3\n");
+    const auto t = tenon::read_csv(in, {}, "press.csv");
+    tenon::plan p;
+    p.set_target("power", tenon::target_kind::regression, tenon::scaling_method::z_score);
+    const auto m = p.measure(t, tenon::all_rows(3));
+    std::string message;
+    CHECK(error_code_of([&] { (void)m.apply<float>(t, tenon::all_rows(3)); }, &message) == "prep.value.overflow");
+    CHECK(message.rfind("[prep.value.overflow] press.csv line 2, column 'load': the value 1e+300 scales to ", 0) == 0);
+    CHECK(message.find("beyond the single precision range (about 3.4e38)") != std::string::npos);
+    const auto in_double = m.apply<double>(t, tenon::all_rows(3));
+    CHECK(std::isfinite(in_double.features(0, 0)));
+    // A raw row meets the same check.
+    std::vector<float> row(m.feature_count());
+    const std::string_view cells[] = {"1e300"};
+    CHECK(error_code_of([&] { m.apply_cells(cells, 1, row.data()); }, &message) == "prep.value.overflow");
+    CHECK(message.rfind("[prep.value.overflow] raw row, column 'load': the value 1e+300", 0) == 0);
+    // And a target: power's spread overflows the same way.
+    std::istringstream target_in("load,power\n1,1e300\n2,-1e300\n3,0\n");
+    const auto targets = tenon::read_csv(target_in, {}, "press.csv");
+    const auto mt = p.measure(targets, tenon::all_rows(3));
+    CHECK(error_code_of([&] { (void)mt.apply<float>(targets, tenon::all_rows(3)); }, &message) == "prep.value.overflow");
+    CHECK(message.rfind("[prep.value.overflow] press.csv line 2, column 'power' (the target): the value 1e+300", 0) == 0);
+}
+
 TEST_CASE("plan errors name the column, the row and the value") {
     auto t = bench_table();
     std::string message;

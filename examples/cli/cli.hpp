@@ -38,6 +38,7 @@
 #include <iterator>
 #include <limits>
 #include <map>
+#include <new>
 #include <ostream>
 #include <sstream>
 #include <stdexcept>
@@ -126,7 +127,10 @@ enum class split_choice { automatic, random, stratified, chronological, grouped 
 /// named, before any memory is taken): a wider or deeper network than this
 /// is far beyond what the tool's CSV-sized tasks need, and 100 million
 /// weights take 400 MB in single precision, 1.6 GB with Adam's state and
-/// gradients.
+/// gradients. max_hidden_weights bounds the weights between hidden layers
+/// when --hidden is read, then the whole network's once the data's features
+/// are known (wide one-hot inputs times the first width, and the last width
+/// times the outputs, count too).
 inline constexpr std::size_t max_hidden_width = 65536;
 inline constexpr std::size_t max_hidden_layers = 64;
 inline constexpr std::size_t max_hidden_weights = 100000000;
@@ -630,7 +634,8 @@ Preparation (measured on the training rows only)
 Model and training
   --hidden 64,32         hidden layer widths (default 64,32); at most 65536
                          units a layer, 64 layers and 100000000 weights
-                         between hidden layers.
+                         (inputs x first width, between hidden layers, and
+                         last width x outputs).
   --activation relu|leaky-relu|elu|tanh|sigmoid|softplus|gelu
                          hidden activation (default relu).
   --loss l1|l2|huber|cross-entropy
@@ -912,7 +917,7 @@ inline tenon::table load_table(const train_request& q, std::vector<std::string>*
         }
         if (warnings && (share >= 0.5 || times >= 0.5)) {
             const bool numbers = share >= times;
-            *warnings << "tenon train: warning: column '" << c.name() << "' is read as categorical ("
+            *warnings << "tenon train: warning: column '" << tenon::escape_control_characters(c.name()) << "' is read as categorical ("
                       << c.categories().size() << " categories), although " << std::lround(100.0 * (numbers ? share : times))
                       << "% of its cells read as " << (numbers ? "numbers" : "dates/times") << "\n";
         }
@@ -1103,13 +1108,84 @@ inline std::vector<double> column_times(const tenon::table& t, const std::string
     return times;
 }
 
+// The text of class `code` of dense_codes(c, true): its category, its
+// number, or "(missing)".
+inline std::string class_label(const tenon::column& c, std::uint32_t code) {
+    const std::vector<std::uint32_t> codes = tenon::dense_codes(c, true);
+    for (std::size_t i = 0; i < codes.size(); ++i)
+        if (codes[i] == code) {
+            if (c.is_missing(i)) return "(missing)";
+            return c.kind() == tenon::column_kind::categorical ? c.category(i) : tenon::number_to_text(c.number(i));
+        }
+    return std::to_string(code);
+}
+
+// Runs a stratified split; the library names a class too small for it by
+// its code ("class 0 has 1 rows"), the message names its label and column.
+template <class Split>
+auto naming_classes(const tenon::table& t, const std::string& target_name, Split&& split) -> decltype(split()) {
+    try {
+        return split();
+    } catch (const tenon::error& e) {
+        if (e.code() != tenon::codes::prep_split_class_too_small) throw;
+        std::string m = e.what();
+        m.erase(0, m.find("] ") + 2);
+        const auto at = m.find("class ");
+        std::size_t end = at == std::string::npos ? at : at + 6;
+        while (end != std::string::npos && end < m.size() && m[end] >= '0' && m[end] <= '9') ++end;
+        if (at == std::string::npos || end == at + 6) throw;
+        const auto code = static_cast<std::uint32_t>(std::stoul(m.substr(at + 6, end - at - 6)));
+        m.replace(at, end - at, "class '" + class_label(t.at(target_name), code) + "' of the target '" + target_name + "'");
+        tenon::raise(tenon::codes::prep_split_class_too_small, t.source() + ": " + m);
+    }
+}
+
+// Refuses a network of more than max_hidden_weights weights, counted from
+// the features the plan measures on `rows` (every row for k-fold, a bound
+// on each fold's), before any weight is allocated; names the widest inputs.
+inline void check_network_size(const tenon::table& t, const train_request& q, const training_setup& s, const std::vector<std::size_t>& rows) {
+    const tenon::measured_plan p = s.preparation.measure(t, rows);
+    const std::size_t inputs = p.feature_count();
+    if (inputs == 0)  // named here in column terms; later it would be a layer of 0 inputs
+        fail(cli_codes::option_conflict, q.data_path + ": no input column is left: the columns are " + column_listing(t.column_names()) + ", of which '" +
+                                             q.target + "' is the target and the others are ignored, the group column or left out (the notes say "
+                                             "why; --use NAME keeps a column)");
+    const std::size_t outputs = s.classify ? std::max<std::size_t>(p.class_count(), 1) : 1;
+    // Widths are at most 2^16 (max_hidden_width), features far below 2^40: no product overflows.
+    std::uint64_t weights = 0, width = inputs;
+    std::string hidden = q.hidden.empty() ? std::string("none") : std::string();
+    for (const std::size_t h : q.hidden) hidden += (hidden.empty() ? "" : ",") + std::to_string(h);
+    for (const std::size_t h : q.hidden) {
+        weights += width * h;
+        width = h;
+    }
+    weights += width * outputs;
+    if (weights <= max_hidden_weights) return;
+    std::vector<std::pair<std::size_t, std::string>> widest;  // features per input column
+    std::vector<std::pair<std::size_t, std::string>> by_offset;
+    for (const auto& name : p.input_columns()) by_offset.emplace_back(p.feature_offset(name), name);
+    std::sort(by_offset.begin(), by_offset.end());
+    for (std::size_t k = 0; k < by_offset.size(); ++k)
+        widest.emplace_back((k + 1 < by_offset.size() ? by_offset[k + 1].first : inputs) - by_offset[k].first, by_offset[k].second);
+    std::sort(widest.begin(), widest.end(), [](const auto& a, const auto& b) { return a.first > b.first; });
+    std::string columns;
+    for (std::size_t k = 0; k < widest.size() && k < 3; ++k)
+        columns += (k ? ", '" : "'") + widest[k].second + "' " + std::to_string(widest[k].first);
+    fail(cli_codes::option_value, q.data_path + ": " + std::to_string(inputs) + " input features (the widest: " + columns + "), hidden layers " +
+                                      hidden + " and " + std::to_string(outputs) +
+                                      " outputs make " + std::to_string(weights) + " weights, above the limit of " + std::to_string(max_hidden_weights) +
+                                      " (give narrower --hidden widths, or --ignore the wide columns)");
+}
+
 }  // namespace detail
 
 /// The holdout the tool trains, validates and tests on.
 inline tenon::holdout_split make_holdout(const tenon::table& t, const train_request& q, const training_setup& s) {
     switch (s.split) {
         case split_choice::stratified:
-            return tenon::stratified_holdout(tenon::dense_codes(t.at(q.target), true), q.fractions, q.seed);
+            return detail::naming_classes(t, q.target, [&] {
+                return tenon::stratified_holdout(tenon::dense_codes(t.at(q.target), true), q.fractions, q.seed);
+            });
         case split_choice::chronological:
             return tenon::chronological_holdout(detail::column_times(t, q.time_column), q.fractions);
         case split_choice::grouped:
@@ -1124,7 +1200,8 @@ inline tenon::holdout_split make_holdout(const tenon::table& t, const train_requ
 /// trains on everything before its test block.
 inline std::vector<tenon::fold> make_folds(const tenon::table& t, const train_request& q, const training_setup& s) {
     switch (s.split) {
-        case split_choice::stratified: return tenon::stratified_k_folds(tenon::dense_codes(t.at(q.target), true), q.folds, q.seed);
+        case split_choice::stratified:
+            return detail::naming_classes(t, q.target, [&] { return tenon::stratified_k_folds(tenon::dense_codes(t.at(q.target), true), q.folds, q.seed); });
         case split_choice::chronological: {
             const std::size_t horizon = std::max<std::size_t>(1, t.row_count() / (q.folds + 1));
             return tenon::rolling_origin_folds(detail::column_times(t, q.time_column), q.folds, horizon);
@@ -1464,26 +1541,10 @@ private:
 
 namespace detail {
 
-// A message on one line: control characters (a CR, LF, tab or other byte
-// below 0x20, or DEL, e.g. from a cell's text) are written as escapes
-// (\n, \r, \t, \xNN), so the line stays one line and shows what was there.
-inline std::string one_line(const std::string& s) {
-    std::string o;
-    o.reserve(s.size());
-    for (const char c : s) {
-        const auto u = static_cast<unsigned char>(c);
-        if (c == '\n') o += "\\n";
-        else if (c == '\r') o += "\\r";
-        else if (c == '\t') o += "\\t";
-        else if (u < 0x20 || u == 0x7f) {
-            const char digits[] = "0123456789abcdef";
-            o += "\\x";
-            o += digits[u >> 4];
-            o += digits[u & 15];
-        } else o += c;
-    }
-    return o;
-}
+// A message on one line: control characters (a CR, LF, tab, NUL or other
+// byte below 0x20, or DEL, e.g. from a cell's text) are written as escapes
+// (\n, \r, \t, \0, \xNN), so the line stays one line and shows what was there.
+inline std::string one_line(const std::string& s) { return tenon::escape_control_characters(s); }
 
 // The one line the tool prints for a failure of `command`, and its exit status.
 inline std::string failure_text(const std::string& command, const std::exception_ptr& failure, int& status) {
@@ -1495,6 +1556,10 @@ inline std::string failure_text(const std::string& command, const std::exception
     } catch (const tenon::error& e) {
         status = exit_bad_input;
         return command + ": error: " + one_line(e.what());
+    } catch (const std::bad_alloc& e) {  // also std::bad_array_new_length
+        status = exit_unexpected;
+        return command + ": error: out of memory (" + one_line(e.what()) +
+               "): the run needs more memory than the system allows it; a smaller network (--hidden) or fewer rows or columns needs less";
     } catch (const std::exception& e) {
         status = exit_unexpected;
         return command + ": unexpected failure: " + one_line(e.what());
@@ -1668,6 +1733,7 @@ inline int train_holdout(const tenon::table& t, const train_request& q, training
                          pending_output& model_probe) {
     const tenon::holdout_split split = make_holdout(t, q, s);
     if (q.time_cycles) choose_time_cycles(t, s.preparation);
+    check_network_size(t, q, s, split.train);
 
     // The validation metric is RMSE in prepared units; the target's z-score
     // spread turns it back into the target's units for display.
@@ -1852,6 +1918,11 @@ inline int train_folds(const tenon::table& t, const train_request& q, training_s
     // Each fold's plan is measured on its own rows; a fixed layout keeps folds alike.
     indicators_for_every_fold(t, s.preparation);
     if (q.time_cycles) choose_time_cycles(t, s.preparation);
+    {
+        std::vector<std::size_t> every_row(t.row_count());
+        for (std::size_t r = 0; r < every_row.size(); ++r) every_row[r] = r;
+        check_network_size(t, q, s, every_row);
+    }
 
     progress_printer progress(out, env.terminal, q.quiet, q.epochs, env.clock);
     std::vector<std::size_t> epochs_run;
@@ -1960,7 +2031,7 @@ inline int run_train(const std::vector<std::string>& args, std::ostream& out, st
         return exit_success;
     }
     if (!q.quiet)
-        for (const auto& note : s.notes) out << note << "\n";
+        for (const auto& note : s.notes) out << detail::one_line(note) << "\n";  // a column name may hold a line break
     if (q.folds > 0) return detail::train_folds(t, q, s, out, env, metrics_file);
     return detail::train_holdout(t, q, s, out, env, metrics_file, report_file, model_probe);
 }

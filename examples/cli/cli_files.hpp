@@ -12,8 +12,9 @@
 //     is written directly, never replaced: a FIFO without a reader is refused
 //     rather than waited for;
 //   - anything else is staged: a temporary file ".NAME.tenon-PID-RANDOM.tmp"
-//     beside the file it replaces, created with O_CREAT|O_EXCL|O_NOFOLLOW and
-//     mode 0600 (so a planted symlink or a second run can never share it),
+//     beside the file it replaces, created by the library's
+//     create_temporary_file (O_CREAT|O_EXCL|O_NOFOLLOW, mode 0600, so a
+//     planted symlink or a second run can never share it),
 //     written and fsynced, given its final mode, then renamed over the
 //     destination and the directory fsynced. A symlink given as an output is
 //     followed: the file it (finally) points at is replaced and the link is
@@ -40,7 +41,6 @@
 #include <cstdio>
 #include <cstring>
 #include <memory>
-#include <random>
 #include <streambuf>
 #include <ostream>
 #include <sstream>
@@ -52,6 +52,8 @@
 #include <signal.h>
 #include <sys/stat.h>
 #include <unistd.h>
+
+#include <tenon/deploy/atomic_file.hpp>
 
 namespace tenon_cli {
 namespace files {
@@ -189,8 +191,9 @@ inline bool process_exists(long pid) {
 }
 
 /// The process id in `file_name` when it is a temporary file of `name`
-/// (".NAME.tenon-PID-HEX.tmp" of this tool, or "NAME.tmp-PID-N" of
-/// tenon::write_file_atomically); else -1.
+/// (".NAME.tenon-PID-HEX.tmp" of this tool and of
+/// tenon::write_file_atomically, or "NAME.tmp-PID-N" of earlier versions of
+/// the library); else -1.
 inline long temporary_owner(const std::string& file_name, const std::string& name) {
     const auto digits_at = [&](std::size_t p, std::size_t& end) {
         end = p;
@@ -397,14 +400,6 @@ inline mode_t current_umask() {
     return m;
 }
 
-inline std::string random_hex() {
-    std::random_device device;  // /dev/urandom on Linux with libstdc++
-    const std::uint64_t v = (static_cast<std::uint64_t>(device()) << 32) ^ device();
-    char text[17];
-    std::snprintf(text, sizeof(text), "%016llx", static_cast<unsigned long long>(v));
-    return text;
-}
-
 /// One output file of a run: claimed (resolved, and its temporary file
 /// created) before training; written; then committed (moved into place) or,
 /// when the run fails, discarded: only the temporary file is removed, never
@@ -546,23 +541,21 @@ private:
         }
         remove_stale_temporaries(place_.directory, place_.name);
         mode_ = place_.exists ? static_cast<mode_t>(place_.status.st_mode & 07777) : static_cast<mode_t>(0666 & ~current_umask());
-        for (int attempt = 0; attempt < 16; ++attempt) {
-            const std::string candidate =
-                place_.directory + "/." + place_.name + ".tenon-" + std::to_string(static_cast<long>(::getpid())) + "-" + random_hex() + ".tmp";
-            const int fd = ::open(candidate.c_str(), O_WRONLY | O_CREAT | O_EXCL | O_NOFOLLOW | O_CLOEXEC, 0600);
-            if (fd >= 0) {
-                temporary_ = candidate;
-                fd_ = fd;
-                slot_ = detail::register_temporary(temporary_);
-                buffer_.reset(fd_);
-                return;
-            }
-            if (errno != EEXIST) {
-                const int e = errno;
-                output_failure(option_, place_.given, "cannot create a file in the directory '" + place_.directory + "' (" + reason(e) + ")");
-            }
+        // The library's safe temporary file (tenon/deploy/atomic_file.hpp):
+        // ".NAME.tenon-PID-RANDOM.tmp", O_CREAT|O_EXCL|O_NOFOLLOW, mode 0600.
+        tenon::native_file_system host;
+        // Signals wait until the file is in the handler's table: one arriving
+        // between its creation and its registration would leave it behind.
+        detail::signals_blocked blocked;
+        const int fd = tenon::create_temporary_file(place_.directory + "/" + place_.name, host, temporary_);
+        if (fd < 0) {
+            const int e = errno;
+            output_failure(option_, place_.given, e == EEXIST ? "cannot create a temporary file in '" + place_.directory + "' (every name tried exists)"
+                                                              : "cannot create a file in the directory '" + place_.directory + "' (" + reason(e) + ")");
         }
-        output_failure(option_, place_.given, "cannot create a temporary file in '" + place_.directory + "' (every name tried exists)");
+        fd_ = fd;
+        slot_ = detail::register_temporary(temporary_);
+        buffer_.reset(fd_);
     }
     void write_directly() {
         // O_NONBLOCK: a FIFO without a reader fails with ENXIO instead of

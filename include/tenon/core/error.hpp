@@ -4,7 +4,9 @@
 // tenon::error. Its code() is a stable identifier such as "core.shape.mismatch"
 // that hosts may switch on and that the README's bad-input table lists; its
 // what() reads "[code] message", where the message says what, where and which
-// value. The registry of all codes lives in core/error_codes.hpp.
+// value. The registry of all codes lives in core/error_codes.hpp. A message
+// is one line whatever it quotes: control characters from a cell, a column
+// name or a path (CR, LF, NUL, ...) are written as escapes.
 #pragma once
 
 #include <cstdio>
@@ -17,10 +19,33 @@
 
 TENON_NAMESPACE_BEGIN
 
+/// `text` with every control character (a byte below 0x20, or DEL) written
+/// as an escape: \n, \r, \t, \0 or \xNN. Other bytes are kept as they are.
+inline std::string escape_control_characters(const std::string& text) {
+    std::string o;
+    o.reserve(text.size());
+    for (const char c : text) {
+        const auto u = static_cast<unsigned char>(c);
+        if (c == '\n') o += "\\n";
+        else if (c == '\r') o += "\\r";
+        else if (c == '\t') o += "\\t";
+        else if (c == '\0') o += "\\0";
+        else if (u < 0x20 || u == 0x7f) {
+            const char digits[] = "0123456789abcdef";
+            o += "\\x";
+            o += digits[u >> 4];
+            o += digits[u & 15];
+        } else {
+            o += c;
+        }
+    }
+    return o;
+}
+
 class error : public std::runtime_error {
 public:
     error(std::string code, const std::string& message)
-        : std::runtime_error("[" + code + "] " + message), code_(std::move(code)) {}
+        : std::runtime_error("[" + code + "] " + escape_control_characters(message)), code_(std::move(code)) {}
 
     /// Stable identifier of the failure, e.g. "core.shape.mismatch".
     const std::string& code() const noexcept { return code_; }
@@ -38,7 +63,7 @@ private:
 #if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
     throw error(code, message);
 #else
-    std::fprintf(stderr, "tenon: [%s] %s\n", code, message.c_str());
+    std::fprintf(stderr, "tenon: [%s] %s\n", code, escape_control_characters(message).c_str());
     std::abort();
 #endif
 }

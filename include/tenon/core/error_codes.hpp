@@ -70,7 +70,11 @@
     X(prep_time_ambiguous, "prep.time.ambiguous",                                                     \
       "a date column reads both day-first and month-first, and no time format says which")      \
     X(prep_csv_dialect_ambiguous, "prep.csv.dialect_ambiguous",                                      \
-      "the delimiter or the decimal mark of a CSV file cannot be told from its first rows")
+      "the delimiter or the decimal mark of a CSV file cannot be told from its first rows")     \
+    X(prep_csv_oversize, "prep.csv.oversize",                                                        \
+      "a CSV field is longer, or a categorical column has more distinct texts, than the reader's limit") \
+    X(prep_value_overflow, "prep.value.overflow",                                                    \
+      "a value, once scaled by the plan, is beyond the range of the model's number type")
 
 // layers/, losses/, update/: model components.
 #define TENON_ERROR_CODES_MODEL(X)                                                             \

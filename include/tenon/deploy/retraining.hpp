@@ -346,34 +346,35 @@ public:
     const std::vector<std::string>& names() const noexcept { return names_; }
     table& mix() noexcept { return mix_; }
 
-    // Checks one row (cells in names() order) and appends it when usable.
+    // Checks one row (cells in names() order) and appends it when usable;
+    // a refused row's column and cell text are kept for describe_refusal().
     refusal add(std::vector<raw_cell>& cells) {
         const std::size_t target = names_.size() - 1;
         double value = 0.0;
-        if (cells[target].missing) return refusal::missing_target;
+        if (cells[target].missing) return refuse(target, cells[target], refusal::missing_target);
         if (plan_.target_type() == target_kind::classification) {
             if (cells[target].is_number) cells[target] = text_cell(number_to_text(cells[target].number));
-            if (plan_.classes().find(cells[target].text) < 0) return refusal::unseen_class;
+            if (plan_.classes().find(cells[target].text) < 0) return refuse(target, cells[target], refusal::unseen_class);
         } else if (!cells[target].is_number) {
-            if (!parse_number(trim_blanks(cells[target].text), value)) return refusal::not_numeric;
+            if (!parse_number(trim_blanks(cells[target].text), value)) return refuse(target, cells[target], refusal::not_numeric);
             cells[target] = number_cell(value);
         }
         for (std::size_t k = 0; k < target; ++k) {
             raw_cell& c = cells[k];
             if (c.missing) {
-                if (plan_.feature_fill(names_[k]).method == fill_method::none) return refusal::missing_value;
+                if (plan_.feature_fill(names_[k]).method == fill_method::none) return refuse(k, c, refusal::missing_value);
                 continue;
             }
             if (kinds_[k] == column_kind::categorical) {
                 if (c.is_number) c = text_cell(number_to_text(c.number));
                 const one_hot_layout& layout = plan_.feature_categories(names_[k]);
-                if (layout.find(c.text) < 0 && layout.policy() == unseen_policy::fail) return refusal::unseen_category;
+                if (layout.find(c.text) < 0 && layout.policy() == unseen_policy::fail) return refuse(k, c, refusal::unseen_category);
             } else if (!c.is_number) {
                 const std::string_view text = trim_blanks(c.text);
                 const bool ok = kinds_[k] == column_kind::datetime
                                     ? parse_datetime(text, plan_.feature_time_form(names_[k]), value) || parse_number(text, value)
                                     : parse_number(text, value);
-                if (!ok) return refusal::not_numeric;
+                if (!ok) return refuse(k, c, refusal::not_numeric);
                 c = number_cell(value);
             }
         }
@@ -384,6 +385,24 @@ public:
             else col.push_number(cells[k].number);
         }
         return refusal::none;
+    }
+
+    /// Why the last refused row was refused, in the data's terms: "column
+    /// 'valve' holds 'wide', a category the model has not seen".
+    std::string describe_refusal() const {
+        const bool is_target = refused_column_ + 1 == names_.size();
+        const std::string column = "column '" + names_[refused_column_] + "'" + (is_target ? " (the target)" : "");
+        const std::string value = "'" + refused_text_ + "'";
+        switch (refused_why_) {
+            case refusal::missing_target: return column + " is empty or missing";
+            case refusal::unseen_class: return column + " holds " + value + ", a class the model does not know";
+            case refusal::unseen_category: return column + " holds " + value + ", a category the model has not seen";
+            case refusal::missing_value: return column + " is empty or missing, and the model has no fill for it";
+            case refusal::not_numeric:
+                return column + " holds " + value + ", not a number" + (kinds_[refused_column_] == column_kind::datetime ? " or a time" : "");
+            case refusal::none: break;
+        }
+        return column;
     }
 
 private:
@@ -401,10 +420,27 @@ private:
         return c;
     }
 
+    refusal refuse(std::size_t column, const raw_cell& cell, refusal why) {
+        refused_column_ = column;
+        refused_why_ = why;
+        refused_text_ = cell.missing ? std::string() : cell.is_number ? number_to_text(cell.number) : cell.text;
+        // A cell may be megabytes long: the message shows its start.
+        constexpr std::size_t shown = 60;
+        if (refused_text_.size() > shown) {
+            std::size_t cut = shown;
+            while (cut > 0 && (static_cast<unsigned char>(refused_text_[cut]) & 0xC0) == 0x80) --cut;  // not inside a UTF-8 character
+            refused_text_ = refused_text_.substr(0, cut) + "... (" + std::to_string(refused_text_.size()) + " bytes)";
+        }
+        return why;
+    }
+
     const measured_plan& plan_;
     std::vector<std::string> names_;
     std::vector<column_kind> kinds_;
     table mix_{"retraining rows"};
+    std::size_t refused_column_ = 0;
+    refusal refused_why_ = refusal::none;
+    std::string refused_text_;
 };
 
 inline std::string setting_of(const std::optional<training_metadata>& meta, const std::string& key) {
@@ -572,9 +608,13 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
     std::vector<const column*> sources;
     for (const auto& name : builder.names()) sources.push_back(&new_rows.at(name));
     std::vector<std::size_t> usable_new;  // rows of new_rows that the mix holds, in order
+    std::string first_refused;            // e.g. "the first, pump.csv line 7: column 'valve' holds 'wide', ..."
     for (std::size_t r = 0; r < new_rows.row_count(); ++r) {
         for (std::size_t k = 0; k < cells.size(); ++k) cells[k] = detail::cell_of_table(*sources[k], r);
-        switch (builder.add(cells)) {
+        const detail::refusal why = builder.add(cells);
+        if (why != detail::refusal::none && first_refused.empty())
+            first_refused = "; the first, " + new_rows.row_place(r) + ": " + builder.describe_refusal();
+        switch (why) {
             case detail::refusal::none: usable_new.push_back(r); continue;
             case detail::refusal::missing_target: ++report.refused_missing_target; break;
             case detail::refusal::unseen_class: ++report.refused_unseen_class; break;
@@ -593,7 +633,7 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
     if (usable < holdout_size + 1)
         raise(codes::deploy_retrain_too_few_rows, "retrain_model: " + std::to_string(usable) + " of the " + std::to_string(report.new_rows) +
                                                       " new rows are usable (" + std::to_string(report.new_rows_refused) +
-                                                      " refused); the holdout needs " + std::to_string(holdout_size) +
+                                                      " refused" + first_refused + "); the holdout needs " + std::to_string(holdout_size) +
                                                       " and training at least 1 more");
     // Positions in usable_new; mix row of usable_new[i] is replay_used + i.
     std::vector<std::size_t> order(usable);

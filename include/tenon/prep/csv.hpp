@@ -20,10 +20,19 @@
 //
 // Errors name the source, the line (1-based, where the record starts) and the
 // column: "[prep.csv.ragged] data.csv line 7: expected 4 fields, found 5".
+//
+// Limits (csv_options, prep.csv.oversize): a field holds at most
+// max_field_bytes (64 KiB) and a categorical column at most max_categories
+// (65,536) distinct texts. A cell of a plant export is a number, a time, a
+// code or a short note; a field of megabytes, or a column of a million
+// levels (one-hot encoded, a million inputs), is a damaged file or a column
+// that is not a category, and would take memory far beyond the file's size.
 #pragma once
 
+#include <cerrno>
 #include <cstddef>
 #include <cstdint>
+#include <cstring>
 #include <fstream>
 #include <functional>
 #include <istream>
@@ -66,6 +75,10 @@ struct csv_options {
     time_format default_time_format = time_format::detect;
     /// Bytes read from the stream at a time.
     std::size_t chunk_bytes = std::size_t(1) << 20;
+    /// Longest field accepted, in bytes (after removing quotes).
+    std::size_t max_field_bytes = std::size_t(1) << 16;
+    /// Most distinct texts accepted in one categorical column.
+    std::size_t max_categories = std::size_t(1) << 16;
 };
 
 /// Pulls one record at a time out of a stream. The views returned by field()
@@ -87,6 +100,9 @@ public:
             if (!(ends_.size() == 1 && ends_[0] == 0 && !last_field_quoted_)) return true;  // skip empty lines
         }
     }
+
+    /// Fields longer than this raise prep.csv.oversize (default 64 KiB).
+    void set_max_field_bytes(std::size_t bytes) noexcept { max_field_bytes_ = bytes; }
 
     std::size_t field_count() const noexcept { return ends_.size(); }
     std::string_view field(std::size_t k) const noexcept {
@@ -129,6 +145,11 @@ private:
                         ": " + message);
     }
 
+    [[noreturn]] void field_too_long() const {
+        fail(codes::prep_csv_oversize, "a field longer than the limit of " + std::to_string(max_field_bytes_) +
+                                           " bytes (csv_options::max_field_bytes)");
+    }
+
     bool read_record() {
         int c = get();
         if (c < 0) return false;
@@ -136,6 +157,7 @@ private:
         for (;;) {
             // Start of a field.
             last_field_quoted_ = false;
+            const std::size_t field_limit = text_.size() + max_field_bytes_;
             if (c == '"') {
                 last_field_quoted_ = true;
                 const std::size_t open_line = line_;
@@ -147,6 +169,7 @@ private:
                     if (c == '"') {
                         if (peek() == '"') {
                             get();
+                            if (text_.size() == field_limit) field_too_long();
                             text_.push_back('"');
                             continue;
                         }
@@ -154,6 +177,7 @@ private:
                     }
                     if (c == '\n') ++line_;
                     else if (c == '\r' && peek() != '\n') ++line_;
+                    if (text_.size() == field_limit) field_too_long();
                     text_.push_back(static_cast<char>(c));
                 }
                 c = get();
@@ -162,6 +186,7 @@ private:
             } else {
                 while (c >= 0 && c != delimiter_ && c != '\n' && c != '\r') {
                     if (c == '"') fail(codes::prep_csv_stray_quote, "a quote inside an unquoted field (quote the whole field and double the quote)");
+                    if (text_.size() == field_limit) field_too_long();
                     text_.push_back(static_cast<char>(c));
                     c = get();
                 }
@@ -185,6 +210,7 @@ private:
     std::size_t position_ = 0, filled_ = 0;
     bool eof_ = false, first_chunk_ = true, last_field_quoted_ = false;
     std::size_t line_ = 1, record_line_ = 1;
+    std::size_t max_field_bytes_ = std::size_t(1) << 16;
     std::string text_;
     std::vector<std::size_t> ends_;
 };
@@ -218,8 +244,16 @@ inline void require_dialect(const csv_options& options, const std::string& sourc
 }
 
 inline std::ifstream open_for_reading(const std::string& path) {
+    errno = 0;
     std::ifstream in(path, std::ios::binary);
-    if (!in) raise(codes::prep_file_open, path + ": cannot open for reading");
+    if (!in) {
+        const int e = errno;
+        raise(codes::prep_file_open, path + ": cannot open for reading" + (e ? std::string(" (") + std::strerror(e) + ")" : std::string()));
+    }
+    // A directory opens on some systems and fails at the first read: named here.
+    in.peek();
+    if (in.bad()) raise(codes::prep_file_open, path + ": cannot be read (a directory?)");
+    in.clear();
     return in;
 }
 
@@ -251,6 +285,7 @@ inline void for_each_csv_record(std::istream& in, const csv_options& options, co
                                 const std::function<void(const std::vector<std::string>&)>& on_header,
                                 const std::function<void(const csv_record_reader&)>& on_record) {
     csv_record_reader reader(in, options.delimiter, source, options.chunk_bytes);
+    reader.set_max_field_bytes(options.max_field_bytes);
     const auto names = detail::read_header(reader);
     if (on_header) on_header(names);
     while (reader.next()) {
@@ -393,6 +428,7 @@ bool detect_time_format(const std::string& name, std::size_t rows, const std::ve
 inline table read_csv(std::istream& in, const csv_options& options = {}, const std::string& source = "<stream>") {
     detail::require_dialect(options, source);
     csv_record_reader reader(in, options.delimiter, source, options.chunk_bytes);
+    reader.set_max_field_bytes(options.max_field_bytes);
     const auto names = detail::read_header(reader);
     for (const auto& forced : options.forced_kinds) {
         bool found = false;
@@ -483,6 +519,11 @@ inline table read_csv(std::istream& in, const csv_options& options = {}, const s
                 c.push_number(value);
             } else {
                 c.push_category(detail::trim_blanks(text));
+                if (c.categories().size() > options.max_categories)
+                    raise(codes::prep_csv_oversize, source + " line " + std::to_string(lines[i]) + " column " + std::to_string(k + 1) + " ('" +
+                                                        names[k] + "'): more than " + std::to_string(options.max_categories) +
+                                                        " distinct categories (csv_options::max_categories); a column of that many "
+                                                        "levels is not a category (an identifier or free text?)");
             }
         }
         std::string().swap(arena[k]);  // free the raw text of this column early

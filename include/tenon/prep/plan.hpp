@@ -329,8 +329,12 @@ public:
             require_number_target(*target);
             ensure_shape(out.targets, shape2{n, 1});
             out.classes.clear();
-            for (std::size_t i = 0; i < n; ++i)
-                out.targets(i, 0) = static_cast<T>(target_scale_.forward(target->number(out.rows[i])));
+            for (std::size_t i = 0; i < n; ++i) {
+                const double value = target->number(out.rows[i]);
+                const double scaled = target_scale_.forward(value);
+                if (!representable<T>(scaled)) overflow<T>(scaled, value, "column '" + target_name_ + "' (the target)", t.row_place(out.rows[i]));
+                out.targets(i, 0) = static_cast<T>(scaled);
+            }
         }
     }
 
@@ -596,6 +600,19 @@ private:
                                                ", not numeric");
     }
 
+    // A scaled value outside T's finite range (1e300 in a column whose
+    // spread overflowed, or 1e39 in single precision) would reach the
+    // trainer as infinity: raised here in the data's terms instead.
+    template <class T>
+    static bool representable(double scaled) noexcept { return std::isfinite(static_cast<T>(scaled)); }
+    template <class T>
+    [[noreturn]] static void overflow(double scaled, double value, const std::string& column_text, const std::string& at) {
+        raise(codes::prep_value_overflow, at + ", " + column_text + ": the value " + number_to_text(value) + " scales to " +
+                                              number_to_text(scaled) + ", beyond the " + (sizeof(T) == 4 ? "single" : "double") +
+                                              " precision range (about " + (sizeof(T) == 4 ? "3.4e38" : "1.8e308") +
+                                              "); rescale the column (another unit) or leave it out");
+    }
+
     template <class T>
     void write_number(const detail::measured_feature& f, bool missing, double value, T* out, const std::string& at) const {
         if (missing) {
@@ -604,7 +621,11 @@ private:
             value = f.fill.number;
         }
         std::size_t k = 0;
-        if (f.time != time_encoding::cycles) out[k++] = static_cast<T>(f.scale.forward(value));
+        if (f.time != time_encoding::cycles) {
+            const double scaled = f.scale.forward(value);
+            if (!representable<T>(scaled)) overflow<T>(scaled, value, "column '" + f.name + "'", at);
+            out[k++] = static_cast<T>(scaled);
+        }
         if (f.time != time_encoding::value) {
             double cycles[6];
             time_cycles(value, cycles);
@@ -660,7 +681,10 @@ private:
                                                                "': the category '" + c.category(r) +
                                                                "' was not seen in the training rows");
                 } else {
-                    write_number(f, missing, missing ? 0.0 : c.number(r), o, std::string());
+                    const double value = missing ? 0.0 : c.number(r);
+                    if (f.time != time_encoding::cycles && !representable<T>(f.scale.forward(value)))
+                        overflow<T>(f.scale.forward(value), value, "column '" + f.name + "'", t.row_place(r));
+                    write_number(f, missing, value, o, std::string());
                 }
             }
         }
