@@ -1160,6 +1160,11 @@ inline void check_network_size(const tenon::table& t, const train_request& q, co
         width = h;
     }
     weights += width * outputs;
+    if (!s.classify) weights += inputs * outputs;  // the linear path beside the hidden layers (regression)
+    // Every member of a seed ensemble holds as many.
+    tenon::model_settings members;
+    members.ensemble = q.ensemble;
+    weights *= tenon::ensemble_size(members, rows.size());
     if (weights <= max_hidden_weights) return;
     std::vector<std::pair<std::size_t, std::string>> widest;  // features per input column
     std::vector<std::pair<std::size_t, std::string>> by_offset;
@@ -1172,9 +1177,9 @@ inline void check_network_size(const tenon::table& t, const train_request& q, co
     for (std::size_t k = 0; k < widest.size() && k < 3; ++k)
         columns += (k ? ", '" : "'") + widest[k].second + "' " + std::to_string(widest[k].first);
     fail(cli_codes::option_value, q.data_path + ": " + std::to_string(inputs) + " input features (the widest: " + columns + "), hidden layers " +
-                                      hidden + " and " + std::to_string(outputs) +
-                                      " outputs make " + std::to_string(weights) + " weights, above the limit of " + std::to_string(max_hidden_weights) +
-                                      " (give narrower --hidden widths, or --ignore the wide columns)");
+                                      hidden + " and " + std::to_string(outputs) + " outputs make " + std::to_string(weights) +
+                                      " weights (every network of the ensemble counted), above the limit of " + std::to_string(max_hidden_weights) +
+                                      " (give narrower --hidden widths, --ensemble 1, or --ignore the wide columns)");
 }
 
 }  // namespace detail

@@ -157,6 +157,12 @@ struct model_settings {
     bool shuffle = true;
 };
 
+/// The networks fit_model trains for `s` on `train_rows` rows:
+/// s.ensemble, or by the row count when it is 0 (see model_settings).
+inline std::size_t ensemble_size(const model_settings& s, std::size_t train_rows) noexcept {
+    return s.ensemble > 0 ? s.ensemble : train_rows < 10000 ? 5 : 1;
+}
+
 /// A trained model with the plan that prepares its inputs.
 template <class T>
 struct fitted_model {
@@ -407,7 +413,7 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
     // 2014, spreads them over the seed space).
     if (s.team && s.ensemble > 1)
         raise(codes::train_option, "fit_model: a team trains one network; an ensemble of " + std::to_string(s.ensemble) + " is not supported");
-    const std::size_t member_total = s.team ? 1 : s.ensemble > 0 ? s.ensemble : model.train_rows < 10000 ? 5 : 1;
+    const std::size_t member_total = s.team ? 1 : ensemble_size(s, model.train_rows);
     const auto member_seed = [&](std::size_t k) { return s.seed + static_cast<std::uint64_t>(k) * 0x9E3779B97F4A7C15ull; };
     for (std::size_t k = 1; k < member_total; ++k) {
         model.members.push_back(make_mlp<T>(sizes, s.hidden_activation, init, member_seed(k), activation::identity, linear_path));
