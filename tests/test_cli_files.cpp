@@ -618,7 +618,8 @@ TEST_CASE("wide one-hot inputs times the first hidden width above the weight lim
         CHECK(contains(r.err, "[cli.option.value] " + data + ": "));
         CHECK(contains(r.err, "input features (the widest: 'part' "));
         CHECK(contains(r.err, "hidden layers 65536 and 1 outputs make "));
-        CHECK(contains(r.err, " weights, above the limit of 100000000 (give narrower --hidden widths, or --ignore the wide columns)\n"));
+        CHECK(contains(r.err, " weights (every network of the ensemble counted), above the limit of 100000000 (give narrower --hidden widths, "
+                              "--ensemble 1, or --ignore the wide columns)\n"));
         CHECK(dir.listing() == before);
     }
     // The same data with a narrow layer trains.
