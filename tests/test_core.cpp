@@ -527,6 +527,10 @@ TEST_CASE_TEMPLATE("thin products give the plain loop's bits on every vector wid
                         tenon::detail::combine_rows_avx2(ai, a_step, alpha, b.data(), ldb, k, row.data(), n);
                         CHECK(std::memcmp(row.data(), expected.data(), n * sizeof(T)) == 0);
                     }
+#elif TENON_SIMD_NEON64
+                    std::vector<T> row(c0.begin(), c0.begin() + static_cast<std::ptrdiff_t>(n));
+                    tenon::detail::combine_rows_neon(a.data(), ta ? lda : 1, alpha, b.data(), ldb, k, row.data(), n);
+                    CHECK(std::memcmp(row.data(), expected.data(), n * sizeof(T)) == 0);
 #endif
                 }
             }
