@@ -234,7 +234,7 @@ TEST_CASE("below(n) is in range and unbiased") {
     for (std::size_t i = 0; i < draws; ++i) {
         const std::uint64_t v = rng.below(bins);
         REQUIRE(v < bins);
-        counts[v] += 1.0;
+        counts[static_cast<std::size_t>(v)] += 1.0;
     }
     const double expected = static_cast<double>(draws) / static_cast<double>(bins);
     double chi2 = 0.0;

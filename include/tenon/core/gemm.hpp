@@ -533,10 +533,13 @@ struct avx2_kernel {
 };
 #endif
 #if TENON_SIMD_NEON
-// aarch64 has 32 vector registers (8 x 2 accumulators), 32-bit ARM 16 (6 x 2).
+// aarch64 has 32 vector registers (8 x 2 accumulators), 32-bit ARM 16 (6 x 2);
+// mc is a multiple of mr (the packed A block holds whole panels).
 template <class T>
 struct neon_kernel {
-    static constexpr std::size_t mr = TENON_SIMD_NEON64 ? 8 : 6, nr = 2 * neon_ops<T>::lanes, kc = 256, mc = 128, nc = 512;
+    static constexpr std::size_t mr = TENON_SIMD_NEON64 ? 8 : 6, nr = 2 * neon_ops<T>::lanes, kc = 256,
+                                 mc = TENON_SIMD_NEON64 ? 128 : 120, nc = 512;
+    static_assert(mc % mr == 0, "the packed A block holds whole panels");
     TENON_GEMM_SIMD_TILE(TENON_TARGET_NEON, neon_ops)
 };
 // The neon path's tile for T: the portable one where NEON has no lanes of T.
