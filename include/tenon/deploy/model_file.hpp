@@ -952,7 +952,7 @@ network<T> rebuild_network(const model_file<T>& m) {
     const std::size_t declared = detail::parse_section("model file architecture", [&] { return record_value_count(m.architecture); });
     if (declared != stored)
         raise(codes::deploy_shape_mismatch, "model file: the architecture declares " +
-                                                (declared == std::numeric_limits<std::size_t>::max() ? std::string("more than 2^64")
+                                                (declared == std::numeric_limits<std::size_t>::max() ? std::string(sizeof(std::size_t) >= 8 ? "more than 2^64" : "more than 2^32")
                                                                                                      : std::to_string(declared)) +
                                                 " weight values, the file stores " + std::to_string(stored));
     network<T> net = detail::parse_section("model file architecture", [&] { return make_network<T>(m.architecture); });
