@@ -9,8 +9,13 @@
 #include <doctest/doctest.h>
 
 #include <atomic>
+#include <cmath>
 #include <cstdlib>
+#include <malloc.h>
 #include <new>
+#include <optional>
+#include <sstream>
+#include <string_view>
 #include <vector>
 
 #include <tenon/core/parallel.hpp>
@@ -30,25 +35,38 @@
 
 // Counting global allocation functions. The count is process-wide (atomic),
 // so allocations on the pool's worker threads count too.
+// Live bytes are the usable sizes of the blocks handed out and not yet
+// freed (glibc's malloc_usable_size), whether counting or not.
 namespace {
 std::atomic<bool> counting{false};
 std::atomic<std::size_t> allocations{0};
+std::atomic<std::size_t> live_bytes{0};
+
+void* counted_malloc(std::size_t size) noexcept {
+    void* p = std::malloc(size ? size : 1);
+    if (p) live_bytes.fetch_add(malloc_usable_size(p), std::memory_order_relaxed);
+    return p;
+}
+void counted_free(void* p) noexcept {
+    if (p) live_bytes.fetch_sub(malloc_usable_size(p), std::memory_order_relaxed);
+    std::free(p);
+}
 }  // namespace
 
 void* operator new(std::size_t size) {
     if (counting.load(std::memory_order_relaxed)) allocations.fetch_add(1, std::memory_order_relaxed);
-    if (void* p = std::malloc(size ? size : 1)) return p;
+    if (void* p = counted_malloc(size)) return p;
     throw std::bad_alloc();
 }
 void* operator new[](std::size_t size) { return operator new(size); }
 void* operator new(std::size_t size, const std::nothrow_t&) noexcept {
     if (counting.load(std::memory_order_relaxed)) allocations.fetch_add(1, std::memory_order_relaxed);
-    return std::malloc(size ? size : 1);
+    return counted_malloc(size);
 }
-void operator delete(void* p) noexcept { std::free(p); }
-void operator delete[](void* p) noexcept { std::free(p); }
-void operator delete(void* p, std::size_t) noexcept { std::free(p); }
-void operator delete[](void* p, std::size_t) noexcept { std::free(p); }
+void operator delete(void* p) noexcept { counted_free(p); }
+void operator delete[](void* p) noexcept { counted_free(p); }
+void operator delete(void* p, std::size_t) noexcept { counted_free(p); }
+void operator delete[](void* p, std::size_t) noexcept { counted_free(p); }
 
 namespace {
 
@@ -176,4 +194,56 @@ TEST_CASE_TEMPLATE("a calibrated predictor's bands and class sets allocate nothi
         CHECK(allocations.load() == 0);
         CHECK((classify ? out.has_class_sets() : out.has_interval()));
     }
+// Footprint of a serving process (README, "Footprint"): the model file of an
+// 8-32-32-1 regression network loaded from its bytes, and a predictor for
+// it, keep at most 256 KiB on the heap once constructed (the predictor
+// holds its own copy of the network, plan and reference summaries; the
+// loaded file may then go), on every processor the tests run on. The data are invented: eight sensor readings of a packaging line
+// and the seal temperature they predict.
+TEST_CASE("a serving process for an 8-32-32-1 model holds at most 256 KiB of heap after construction") {
+    tenon::random_engine rng(12);
+    std::ostringstream csv;
+    csv << "s1,s2,s3,s4,s5,s6,s7,s8,seal_temperature\n";
+    for (int i = 0; i < 2000; ++i) {
+        double sum = 0;
+        for (int k = 0; k < 8; ++k) {
+            const double v = rng.uniform(0.0, 10.0);
+            sum += (k + 1) * v;
+            csv << v << ",";
+        }
+        csv << 150.0 + 0.5 * sum + rng.normal(0.0, 1.0) << "\n";
+    }
+    std::istringstream in(csv.str());
+    const tenon::table table = tenon::read_csv(in, {}, "line.csv");
+    tenon::plan plan;
+    plan.set_target("seal_temperature", tenon::target_kind::regression);
+    tenon::model_settings s;
+    s.hidden = {32, 32};
+    s.epochs = 2;
+    s.seed = 5;
+    s.ensemble = 1;  // one 8-32-32-1 network (an ensemble holds one per member)
+    const auto train = deploy_test::range(0, 1600), validation = deploy_test::range(1600, 2000);
+    auto fitted = tenon::fit_model<float>(table, plan, train, validation, s);
+    const std::vector<std::uint8_t> bytes = tenon::model_file_to_bytes(tenon::make_model_file(fitted, table, train, s));
+
+    // Once, so that what the first use of each part keeps for the process
+    // (per-thread matrix-product scratch, static tables) is not counted.
+    const auto serve = [&](std::size_t& with_file, std::size_t& predictor_alone) {
+        const std::size_t before = live_bytes.load();
+        std::optional<tenon::predictor<float>> p;
+        {
+            const auto file = tenon::model_file_from_bytes<float>(bytes);
+            p.emplace(file);
+            with_file = live_bytes.load() - before;
+        }
+        predictor_alone = live_bytes.load() - before;
+        const std::string_view row[8] = {"1", "2", "3", "4", "5", "6", "7", "8"};
+        REQUIRE(std::isfinite(p->predict_cells(row, 1).at(0, 0)));
+    };
+    std::size_t with_file = 0, predictor_alone = 0;
+    serve(with_file, predictor_alone);
+    serve(with_file, predictor_alone);
+    MESSAGE("heap held after construction: " << predictor_alone << " bytes by the predictor, " << with_file
+                                             << " bytes with the loaded model file still alive");
+    CHECK(predictor_alone <= 256u * 1024u);
 }

@@ -244,7 +244,7 @@ TEST_CASE("below(n) is in range and unbiased") {
     for (std::size_t i = 0; i < draws; ++i) {
         const std::uint64_t v = rng.below(bins);
         REQUIRE(v < bins);
-        counts[v] += 1.0;
+        counts[static_cast<std::size_t>(v)] += 1.0;
     }
     const double expected = static_cast<double>(draws) / static_cast<double>(bins);
     double chi2 = 0.0;
@@ -537,6 +537,10 @@ TEST_CASE_TEMPLATE("thin products give the plain loop's bits on every vector wid
                         tenon::detail::combine_rows_avx2(ai, a_step, alpha, b.data(), ldb, k, row.data(), n);
                         CHECK(std::memcmp(row.data(), expected.data(), n * sizeof(T)) == 0);
                     }
+#elif TENON_SIMD_NEON64
+                    std::vector<T> row(c0.begin(), c0.begin() + static_cast<std::ptrdiff_t>(n));
+                    tenon::detail::combine_rows_neon(a.data(), ta ? lda : 1, alpha, b.data(), ldb, k, row.data(), n);
+                    CHECK(std::memcmp(row.data(), expected.data(), n * sizeof(T)) == 0);
 #endif
                 }
             }

@@ -27,7 +27,7 @@
 namespace {
 
 const tenon::kernel_path all_paths[] = {tenon::kernel_path::portable, tenon::kernel_path::avx2, tenon::kernel_path::avx512,
-                                        tenon::kernel_path::blas};
+                                        tenon::kernel_path::neon, tenon::kernel_path::blas};
 
 // Restores the process-wide kernel path when a test ends.
 struct path_guard {
@@ -119,6 +119,12 @@ TEST_CASE("kernel paths: the portable path is always there, the active one is av
                                                                                                    : tenon::best_builtin_kernel_path()));
     // AVX-512F CPUs all have AVX2 and FMA, so the fused paths nest.
     if (tenon::kernel_path_available(tenon::kernel_path::avx512)) CHECK(tenon::kernel_path_available(tenon::kernel_path::avx2));
+    // NEON is part of aarch64's baseline; x86 has none.
+#if defined(__aarch64__)
+    CHECK(tenon::kernel_path_available(tenon::kernel_path::neon));
+#elif defined(__x86_64__)
+    CHECK_FALSE(tenon::kernel_path_available(tenon::kernel_path::neon));
+#endif
     for (const auto p : all_paths) {
         if (tenon::kernel_path_available(p)) {
             tenon::set_kernel_path(p);
@@ -133,6 +139,7 @@ TEST_CASE("kernel paths: the portable path is always there, the active one is av
     CHECK_THROWS_WITH_AS(tenon::set_kernel_path(tenon::kernel_path::blas), doctest::Contains("tenon::blas"), tenon::error);
 #endif
     CHECK(std::string(tenon::kernel_path_name(tenon::kernel_path::avx512)) == "avx512");
+    CHECK(std::string(tenon::kernel_path_name(tenon::kernel_path::neon)) == "neon");
 }
 
 TEST_CASE_TEMPLATE("every kernel path stays within the dot-product rounding bound across its block and tile edges", T, float, double) {
@@ -176,7 +183,8 @@ TEST_CASE_TEMPLATE("gemm gives bit-identical results for any thread count and ex
     tenon::thread_pool two(2), three(3);
     reverse_executor host(4);
     const std::size_t sizes[][3] = {{128, 256, 784}, {784, 256, 128}, {37, 301, 70}, {301, 37, 70}, {128, 10, 128}};
-    for (const auto path : {tenon::kernel_path::portable, tenon::kernel_path::avx2, tenon::kernel_path::avx512}) {
+    for (const auto path : {tenon::kernel_path::portable, tenon::kernel_path::avx2, tenon::kernel_path::avx512,
+                            tenon::kernel_path::neon}) {
         if (!tenon::kernel_path_available(path)) continue;
         tenon::set_kernel_path(path);
         tenon::random_engine rng(5);

@@ -6,6 +6,7 @@
 #include <algorithm>
 #include <cmath>
 #include <cstdio>
+#include <cstdlib>
 #include <filesystem>
 #include <fstream>
 #include <map>
@@ -259,6 +260,18 @@ TEST_CASE("the header checks give their own codes: magic, version, byte order, s
     std::swap(swapped[13], swapped[14]);
     reseal_header(swapped);
     CHECK(code_of_loading(swapped) == "deploy.model.byte_order");
+    // A file written with the other byte order: every number of the header
+    // reversed (version, mark, section count and the checksum itself; the
+    // magic and scalar size are single bytes). Refused at its byte-order
+    // mark, not as damaged nor as a newer version.
+    auto big_endian = bytes;
+    std::swap(big_endian[8], big_endian[9]);
+    std::reverse(big_endian.begin() + 12, big_endian.begin() + 16);
+    std::swap(big_endian[18], big_endian[19]);
+    std::reverse(big_endian.begin() + 20, big_endian.begin() + 24);
+    CHECK(code_of_loading(big_endian) == "deploy.model.byte_order");
+    CHECK_THROWS_WITH_AS(tenon::model_file_from_bytes<float>(big_endian),
+                         doctest::Contains("the byte-order mark reads 0x04030201 instead of 0x01020304"), tenon::error);
 
     auto bad_scalar = bytes;
     bad_scalar[16] = 2;
@@ -360,13 +373,16 @@ TEST_CASE("an architecture declaring more weights than the file stores is refuse
         FAIL("the architecture was accepted");
     } catch (const tenon::error& e) {
         CHECK(e.code() == "deploy.model.shape_mismatch");
-        // 2^62 + 2^31 values of the huge layer, and the other layers' few.
-        CHECK(std::string(e.what()).find("the architecture declares 461168602057487") != std::string::npos);
+        // 2^62 + 2^31 values of the huge layer, and the other layers' few
+        // (where size_t has 32 bits, past what it counts).
+        CHECK(std::string(e.what()).find(sizeof(std::size_t) >= 8 ? "the architecture declares 461168602057487"
+                                                                   : "the architecture declares more than 2^32") != std::string::npos);
     }
-    // Past 2^64 the count saturates and says so.
+    // Past 2^64 (2^32 where size_t has 32 bits) the count saturates and says so.
     huge.set_number("inputs", 9007199254740991.0).set_number("outputs", 9007199254740991.0);
     m.architecture.children.at(0) = huge;
-    CHECK_THROWS_WITH_AS(tenon::rebuild_network(m), doctest::Contains("more than 2^64"), tenon::error);
+    CHECK_THROWS_WITH_AS(tenon::rebuild_network(m), doctest::Contains(sizeof(std::size_t) >= 8 ? "more than 2^64" : "more than 2^32"),
+                         tenon::error);
 }
 
 TEST_CASE("loading a file that does not exist names it") {
@@ -588,6 +604,44 @@ TEST_CASE("the version-1 fixture file loads and predicts exactly what it did whe
         const auto out = p.predict_cells(rows[i], 1);
         for (int k = 0; k < 3; ++k) CHECK(same_bits(out.at(0, static_cast<std::size_t>(k)), expected[i][k]));
     }
+}
+
+// Model files cross processors: the version-1 fixture above (written on
+// x86-64) and, in a cross build, a file the build host writes just before
+// this test (tenon_host_model_file in tests/CMakeLists.txt runs
+// write_fixture.cpp compiled for the build host into TENON_HOST_MODEL_DIR).
+// The predictor's probabilities may differ from the writer's by the
+// rounding of the math library's exp and of a fused multiply-add (README,
+// "Across processors"): within 1e-5, relative to the largest probability.
+TEST_CASE("a model file written on the build host loads here and predicts what the host predicted, within 1e-5") {
+    const char* dir = std::getenv("TENON_HOST_MODEL_DIR");
+    if (!dir) {
+        MESSAGE("TENON_HOST_MODEL_DIR is not set: only cross builds run this (ctest test tenon_host_model_file)");
+        return;
+    }
+    const auto m = tenon::load_model_file<float>(std::string(dir) + "/pump_v1_float.tnm");
+    tenon::predictor<float> p(m);
+    // The host's predictions, "{%af, %af, %af}," lines after one comment line.
+    std::ifstream expected_file(std::string(dir) + "/pump_v1_float_expected.inc");
+    REQUIRE(expected_file);
+    std::string line;
+    std::getline(expected_file, line);
+    const std::string_view rows[3][3] = {{"35", "12.5", "water"}, {"70", "33", "glycol"}, {"110", "8", "brine"}};
+    int checked = 0;
+    float largest = 0.0f;
+    for (int i = 0; i < 3 && std::getline(expected_file, line); ++i) {
+        float expected[3];
+        REQUIRE(std::sscanf(line.c_str(), " {%af, %af, %af},", &expected[0], &expected[1], &expected[2]) == 3);
+        const auto out = p.predict_cells(rows[i], 1);
+        for (int k = 0; k < 3; ++k) {
+            const float difference = std::fabs(out.at(0, static_cast<std::size_t>(k)) - expected[k]);
+            CHECK(difference <= 1e-5f);
+            largest = std::max(largest, difference);
+            ++checked;
+        }
+    }
+    CHECK(checked == 9);
+    MESSAGE("largest difference from the build host's probabilities: " << largest);
 }
 
 TEST_CASE_TEMPLATE("a model file written with the earlier batch-normalization names still loads", T, float, double) {

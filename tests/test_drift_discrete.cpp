@@ -112,7 +112,7 @@ TEST_CASE("the KS statistic on tied data equals a plain two-sample comparison of
     tenon::random_engine rng(7, 1);
     for (int trial = 0; trial < 40; ++trial) {
         // Small integer samples: every value tied many times, within and across samples.
-        std::vector<double> a(30 + rng.below(50)), b(20 + rng.below(40));
+        std::vector<double> a(static_cast<std::size_t>(30 + rng.below(50))), b(static_cast<std::size_t>(20 + rng.below(40)));
         const std::uint64_t spread = 2 + rng.below(6), shift = rng.below(2);
         for (auto& v : a) v = static_cast<double>(rng.below(spread));
         for (auto& v : b) v = static_cast<double>(rng.below(spread) + shift);

@@ -49,7 +49,7 @@ matrix<double> random_matrix(tenon::random_engine& rng, shape2 s, double low, do
 // Edge shapes (1x1, 1xN, Nx1) and a few random shapes from a seeded engine.
 std::vector<shape2> test_shapes(tenon::random_engine& rng) {
     std::vector<shape2> shapes = {{1, 1}, {1, 5}, {4, 1}};
-    for (int i = 0; i < 3; ++i) shapes.push_back({2 + rng.below(4), 2 + rng.below(4)});
+    for (int i = 0; i < 3; ++i) shapes.push_back({static_cast<std::size_t>(2 + rng.below(4)), static_cast<std::size_t>(2 + rng.below(4))});
     return shapes;
 }
 
@@ -175,7 +175,7 @@ TEST_CASE("binary operations with broadcasting match finite differences") {
 TEST_CASE("matmul with every transpose combination matches finite differences") {
     tenon::random_engine rng(5150);
     std::vector<std::array<std::size_t, 3>> sizes = {{1, 1, 1}, {1, 4, 1}, {3, 1, 2}, {1, 3, 5}, {4, 2, 1}};
-    for (int i = 0; i < 3; ++i) sizes.push_back({1 + rng.below(5), 1 + rng.below(5), 1 + rng.below(5)});
+    for (int i = 0; i < 3; ++i) sizes.push_back({static_cast<std::size_t>(1 + rng.below(5)), static_cast<std::size_t>(1 + rng.below(5)), static_cast<std::size_t>(1 + rng.below(5))});
     for (const auto& sz : sizes) {
         const std::size_t m = sz[0], k = sz[1], n = sz[2];
         for (int mode = 0; mode < 4; ++mode) {

@@ -178,6 +178,27 @@ TEST_CASE_TEMPLATE("apply_scalings gives scaling::forward's bits for every colum
         CHECK(same(y[n - 1], x[n - 1]));  // the tail is left to the plain loop
     }
 #endif
+#if TENON_SIMD_NEON64
+    {
+        // aarch64's NEON version directly: whole pairs, each operation rounded on its own.
+        const std::size_t n = 203;
+        std::vector<double> low(n), center(n), factor(n);
+        std::vector<T> x(n);
+        for (std::size_t k = 0; k < n; ++k) {
+            low[k] = rng.normal(0.0, 1.0);
+            center[k] = rng.normal(0.0, 30.0);
+            factor[k] = rng.normal(0.0, 3.0);
+            x[k] = rng.below(8) == 0 ? specials[rng.below(8)] : rng.normal(T(0), T(40));
+        }
+        std::vector<T> y = x;
+        const std::size_t done = tenon::detail::affine_span_neon(y.data(), n, low.data(), center.data(), factor.data());
+        CHECK(done == 202);
+        bool all_same = true;
+        for (std::size_t k = 0; k < done; ++k)
+            all_same = all_same && same(y[k], static_cast<T>(low[k] + (static_cast<double>(x[k]) - center[k]) * factor[k]));
+        CHECK(all_same);
+    }
+#endif
 }
 
 TEST_CASE("one-hot: sorted order, unseen policies, reference level omitted, slot names") {

@@ -167,7 +167,7 @@ TEST_CASE("reservoir sampling keeps each item with equal probability (chi-square
             std::uint64_t held = 0;
             for (std::uint64_t t = 0; t < population; ++t)
                 if (tenon::reservoir_slot(engine, t, 1) == 0) held = t;
-            counts[held] += 1.0;
+            counts[static_cast<std::size_t>(held)] += 1.0;
         }
         const double x = pearson(counts, runs / 20.0);
         MESSAGE("k = 1: chi-square " << x << " (19 df, 0.999 quantile " << chi_square_19_999 << ")");
@@ -210,7 +210,7 @@ TEST_CASE("reservoir sampling keeps each item with equal probability (chi-square
                 if (held.size() < 5) held.push_back(item);
                 else held[static_cast<std::size_t>(engine.below(5))] = item;
             }
-            for (auto h : held) biased[h] += 1.0;
+            for (auto h : held) biased[static_cast<std::size_t>(h)] += 1.0;
         }
         CHECK(pearson(biased, runs * p) * (20.0 - 1.0) / (20.0 * (1.0 - p)) > chi_square_19_999);
         // The first rows are not favoured over the later ones.
@@ -440,7 +440,7 @@ TEST_CASE("the holdout is kept out of training and out of the replay sample") {
     std::set<std::string> new_flows;
     for (std::size_t i = 0; i < 220; ++i) new_flows.insert(tenon::number_to_text(flow.number(i)));
     for (std::uint64_t i = 0; i < r.candidate.replay->rows(); ++i) {
-        const std::string& cell = r.candidate.replay->cells[i * r.candidate.replay->columns.size()];
+        const std::string& cell = r.candidate.replay->cells[static_cast<std::size_t>(i) * r.candidate.replay->columns.size()];
         CHECK(holdout_flows.count(cell) == 0);
         new_in_sample += new_flows.count(cell);
     }

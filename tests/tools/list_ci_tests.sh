@@ -24,6 +24,8 @@ stages=(
   "tsan (BLAS backend)@-DCMAKE_BUILD_TYPE=Debug -DTENON_WITH_BLAS=ON -DTENON_BUILD_BENCHMARKS=OFF -DTENON_BUILD_EXAMPLES=OFF -DTENON_WITH_MPI=OFF@-L gemm-threads"
   "blas-backend@-DCMAKE_BUILD_TYPE=Release -DTENON_WITH_BLAS=ON -DTENON_BUILD_BENCHMARKS=OFF -DTENON_BUILD_EXAMPLES=ON@-LE \"install|mpi\""
   "mpi@-DCMAKE_BUILD_TYPE=Release -DTENON_WITH_MPI=ON -DTENON_BUILD_BENCHMARKS=OFF -DTENON_BUILD_EXAMPLES=ON@-L mpi"
+  "aarch64 (preset, under qemu-aarch64)@-DCMAKE_TOOLCHAIN_FILE=cmake/toolchain-aarch64.cmake -DCMAKE_BUILD_TYPE=Release -DTENON_BUILD_BENCHMARKS=OFF -DTENON_BUILD_EXAMPLES=OFF -DTENON_WITH_MPI=OFF -DTENON_WITH_ZLIB=OFF@-L emulated"
+  "armhf (preset, under qemu-arm)@-DCMAKE_TOOLCHAIN_FILE=cmake/toolchain-armhf.cmake -DCMAKE_BUILD_TYPE=Release -DTENON_BUILD_BENCHMARKS=OFF -DTENON_BUILD_EXAMPLES=OFF -DTENON_WITH_MPI=OFF -DTENON_WITH_ZLIB=OFF@-L emulated"
 )
 
 # Prints ctest's JSON list (stdin) as a Markdown list: name, labels, and
@@ -43,7 +45,7 @@ for t in tests:
         line += " (labels: " + ", ".join(labels) + ")"
     # Entries that run part of an executable name it and their doctest
     # filter in tests/CMakeLists.txt (the command is not resolved before a build).
-    part = re.search(r'add_test\(NAME ' + re.escape(t["name"]) + r' COMMAND (\S+) "(-tc=[^"]*)"\)', cmake_lists)
+    part = re.search(r'add_test\(NAME ' + re.escape(t["name"]) + r' COMMAND (\S+) "(-tce?=[^"]*)"\)', cmake_lists)
     if part:
         line += ": runs `" + part.group(1) + " " + part.group(2) + "`"
     print(line)

@@ -12,9 +12,11 @@
 // reader raises (byte_error_codes).
 #pragma once
 
+#include <algorithm>
 #include <cstddef>
 #include <cstdint>
 #include <cstring>
+#include <limits>
 #include <string>
 #include <utility>
 #include <vector>
@@ -91,6 +93,17 @@ public:
     std::uint16_t u16() { return static_cast<std::uint16_t>(get(2, "a 16-bit integer")); }
     std::uint32_t u32() { return static_cast<std::uint32_t>(get(4, "a 32-bit integer")); }
     std::uint64_t u64() { return get(8, "a 64-bit integer"); }
+    /// Reads a u64 count, index or size and checks that it fits std::size_t
+    /// (where size_t has 32 bits, values from 2^32 up are refused).
+    std::size_t u64_size(const char* of_what) {
+        const std::size_t at = position_;
+        const std::uint64_t v = u64();
+        if (v > std::numeric_limits<std::size_t>::max()) {
+            raise(errors_.oversize, what_ + ": " + of_what + " " + std::to_string(v) + " at byte " + std::to_string(at) +
+                                        " does not fit this platform's " + std::to_string(8 * sizeof(std::size_t)) + "-bit sizes");
+        }
+        return static_cast<std::size_t>(v);
+    }
     double f64() {
         const std::uint64_t bits = get(8, "a double");
         double v = 0;
@@ -122,17 +135,19 @@ public:
 
     /// Reads a matrix's rows and columns (two u64) and checks that
     /// `bytes_per_value` bytes for each of their values could still follow.
-    /// Each side is also bounded on its own (at most 2^32): an empty matrix
-    /// passes the size check with any other side, and a larger side would
-    /// overflow the signed strides of the storage that receives it.
+    /// Each side is also bounded on its own (at most 2^32, and at most the
+    /// largest size_t where that is smaller): an empty matrix passes the size
+    /// check with any other side, and a larger side would overflow the signed
+    /// strides of the storage that receives it (or size_t itself).
     std::pair<std::size_t, std::size_t> matrix_sides(std::size_t bytes_per_value, const char* of_what) {
         const std::size_t at = position_;
         const std::uint64_t rows = u64(), cols = u64();
-        const std::uint64_t side_limit = std::uint64_t(1) << 32;
+        const std::uint64_t side_limit = std::min<std::uint64_t>(std::uint64_t(1) << 32, std::numeric_limits<std::size_t>::max());
         const std::string declared = std::to_string(rows) + "x" + std::to_string(cols);
         if (rows > side_limit || cols > side_limit) {
             raise(errors_.oversize, what_ + ": " + of_what + " of " + declared + " values declared at byte " + std::to_string(at) +
-                                        " has a side above 2^32");
+                                        " has a side above " +
+                                        (side_limit == std::uint64_t(1) << 32 ? std::string("2^32") : std::to_string(side_limit)));
         }
         if (cols != 0 && bytes_per_value > 0 && rows > remaining() / bytes_per_value / cols) {
             raise(errors_.oversize, what_ + ": " + of_what + " of " + declared + " values declared at byte " + std::to_string(at) +

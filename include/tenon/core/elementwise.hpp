@@ -3,7 +3,8 @@
 //
 // Each function has a plain loop (any CPU, any compiler) and, on x86, AVX-512F
 // and AVX2 versions chosen at run time (core/simd.hpp explains why the
-// host's flags need not enable them). Every version performs the same IEEE
+// host's flags need not enable them); on aarch64 a NEON version. 32-bit
+// ARM's NEON flushes subnormals to zero, so there the plain loops run. Every version performs the same IEEE
 // operations on each element in the same order as the plain loop, so the
 // results are bit-identical whichever version runs (up to which payload a
 // NaN result carries); only the speed differs.
@@ -17,7 +18,7 @@
 TENON_NAMESPACE_BEGIN
 namespace detail {
 
-#if TENON_SIMD_X86
+#if TENON_SIMD_X86 || TENON_SIMD_NEON64
 // A block of this many elements is scanned before the accumulator is looked at.
 inline constexpr std::size_t finite_scan_block = 4096;
 
@@ -82,15 +83,27 @@ inline constexpr std::size_t finite_scan_block = 4096;
         }                                                                                                                \
         return k;                                                                                                        \
     }
+#if TENON_SIMD_X86
 TENON_ELEMENTWISE_KERNELS(avx512, TENON_TARGET_AVX512, avx512_ops)
 TENON_ELEMENTWISE_KERNELS(avx2, TENON_TARGET_AVX2, avx2_ops)
+#else
+TENON_ELEMENTWISE_KERNELS(neon, TENON_TARGET_NEON, neon_ops)
+#endif
 #undef TENON_ELEMENTWISE_KERNELS
+#endif
+
+#if TENON_SIMD_X86
 
 #define TENON_ELEMENTWISE_DISPATCH(done, NAME, ...)                         \
     do {                                                                     \
         const int level_ = ::tenon::detail::vector_level();             \
         if (level_ == 2) done = ::tenon::detail::NAME##_avx512(__VA_ARGS__); \
         else if (level_ == 1) done = ::tenon::detail::NAME##_avx2(__VA_ARGS__); \
+    } while (false)
+#elif TENON_SIMD_NEON64
+#define TENON_ELEMENTWISE_DISPATCH(done, NAME, ...) \
+    do {                                           \
+        done = ::tenon::detail::NAME##_neon(__VA_ARGS__); \
     } while (false)
 #else
 #define TENON_ELEMENTWISE_DISPATCH(done, NAME, ...) \
@@ -142,11 +155,12 @@ void bias_relu_rows(const T* b, T* o, std::size_t rows, std::size_t cols) noexce
 
 /// x[k] = T(low[k] + (double(x[k]) - center[k]) * factor[k]) for k < n, in
 /// double (an affine map per element, e.g. a column scaling; the tables hold
-/// one entry per element of x). The vector versions round each operation on
-/// its own, as the plain loop does unless the host's flags let the compiler
-/// fuse the multiply and add (x86-64's defaults have no fused multiply-add).
+/// one entry per element of x). Every version rounds each operation on its
+/// own, the plain loop included (GCC and Clang would otherwise fuse the
+/// multiply and add where the target has a fused multiply-add, as aarch64 has).
 template <class T>
-void affine_span(T* x, std::size_t n, const double* low, const double* center, const double* factor) noexcept {
+TENON_NO_CONTRACTION void affine_span(T* x, std::size_t n, const double* low, const double* center, const double* factor) noexcept {
+    TENON_NO_CONTRACTION_IN_BODY
     std::size_t k = 0;
     TENON_ELEMENTWISE_DISPATCH(k, affine_span, x, n, low, center, factor);
     for (; k < n; ++k) x[k] = static_cast<T>(low[k] + (static_cast<double>(x[k]) - center[k]) * factor[k]);

@@ -23,12 +23,15 @@
 // first call picks the best the running CPU supports (kernel_path):
 //   avx512    8 x 32 float / 8 x 16 double tile, AVX-512F fused multiply-add
 //   avx2      6 x 16 float / 6 x 8 double tile, AVX2 + FMA3
+//   neon      8 x 8 float / 8 x 4 double tile on aarch64, NEON fused
+//             multiply-add; 6 x 8 float on 32-bit ARM with NEON and VFPv4
+//             (double takes the portable tile there)
 //   portable  4 x 32 tile in plain C++ (any compiler, any CPU)
 //   blas      the configured BLAS (tenon::blas component, TENON_HAS_BLAS)
 // Products thinner than a tile (such as a single row to predict) are not
 // packed: they take unpacked loops on every path, the blas one included.
-// Their row loop is vectorized as well (AVX-512F or AVX2, chosen the same
-// way), but each element is still the plain loop's sum of rounded products
+// Their row loop is vectorized as well (AVX-512F, AVX2 or aarch64's NEON,
+// chosen the same way), but each element is still the plain loop's sum of rounded products
 // added in order, never fused, so their bits do not depend on the path or
 // on the CPU.
 // set_kernel_path() forces a path (tests, benchmarks, reproducing results
@@ -37,7 +40,7 @@
 // Rounding. Each element of C sums the same products, in blocks of kc terms,
 // then adds alpha times each block sum to C. Within one path the order of
 // the additions is fixed by the shape alone, so results are reproducible.
-// The fused multiply-add of the avx2 and avx512 paths rounds once where the
+// The fused multiply-add of the avx2, avx512 and neon paths rounds once where the
 // portable path rounds twice, so paths differ from each other by rounding
 // (within the dot-product bound of Higham 2002, "Accuracy and Stability of
 // Numerical Algorithms", 2nd ed., section 3.1, eq. 3.4). The fused paths
@@ -121,7 +124,7 @@ extern "C" void openblas_set_num_threads(int) __attribute__((weak));
 TENON_NAMESPACE_BEGIN
 
 /// The implementations of the packed product (see the top of this file).
-enum class kernel_path : std::uint8_t { portable, avx2, avx512, blas };
+enum class kernel_path : std::uint8_t { portable, avx2, avx512, blas, neon };
 
 inline const char* kernel_path_name(kernel_path p) noexcept {
     switch (p) {
@@ -129,6 +132,7 @@ inline const char* kernel_path_name(kernel_path p) noexcept {
         case kernel_path::avx2: return "avx2";
         case kernel_path::avx512: return "avx512";
         case kernel_path::blas: return "blas";
+        case kernel_path::neon: return "neon";
     }
     return "unknown";
 }
@@ -140,6 +144,7 @@ inline bool kernel_path_available(kernel_path p) noexcept {
         case kernel_path::blas: return TENON_GEMM_BLAS != 0;
         case kernel_path::avx2: return cpu_has_avx2_fma();
         case kernel_path::avx512: return cpu_has_avx512f();
+        case kernel_path::neon: return cpu_has_neon();
     }
     return false;
 }
@@ -148,6 +153,7 @@ inline bool kernel_path_available(kernel_path p) noexcept {
 inline kernel_path best_builtin_kernel_path() noexcept {
     if (kernel_path_available(kernel_path::avx512)) return kernel_path::avx512;
     if (kernel_path_available(kernel_path::avx2)) return kernel_path::avx2;
+    if (kernel_path_available(kernel_path::neon)) return kernel_path::neon;
     return kernel_path::portable;
 }
 
@@ -317,7 +323,8 @@ void gemm_tile(std::size_t depth, const T* a_panel, const T* b_panel, T alpha, T
 // without permission to reassociate (no -ffast-math): each partial sum is
 // its own chain of additions.
 template <class T>
-T split_dot(const T* x, std::size_t incx, const T* y, std::size_t incy, std::size_t k) noexcept {
+TENON_NO_CONTRACTION T split_dot(const T* x, std::size_t incx, const T* y, std::size_t incy, std::size_t k) noexcept {
+    TENON_NO_CONTRACTION_IN_BODY
     constexpr std::size_t lanes = 8;
     T partial[lanes] = {};
     std::size_t p = 0;
@@ -334,7 +341,7 @@ T split_dot(const T* x, std::size_t incx, const T* y, std::size_t incy, std::siz
     return sum;
 }
 
-#if TENON_GEMM_X86
+#if TENON_GEMM_X86 || TENON_SIMD_NEON64
 // c[j] += s_0 b_0[j] + s_1 b_1[j] + ... + s_{k-1} b_{k-1}[j] for j < n, added
 // one term at a time in that order, where s_p = alpha * a[p * a_step] and
 // b_p = b + p * ldb: one row of the unpacked product below. Each element is
@@ -389,8 +396,13 @@ T split_dot(const T* x, std::size_t incx, const T* y, std::size_t incy, std::siz
             c[j] = cj;                                                                                                   \
         }                                                                                                                \
     }
+#if TENON_GEMM_X86
 TENON_GEMM_ROW_KERNEL(avx512, TENON_TARGET_AVX512, avx512_ops)
 TENON_GEMM_ROW_KERNEL(avx2, TENON_TARGET_AVX2, avx2_ops)
+#else
+// aarch64 only: 32-bit ARM's NEON would flush subnormals (core/simd.hpp).
+TENON_GEMM_ROW_KERNEL(neon, TENON_TARGET_NEON, neon_ops)
+#endif
 #undef TENON_GEMM_ROW_KERNEL
 #endif
 
@@ -414,6 +426,12 @@ TENON_NO_CONTRACTION void gemm_unpacked(bool transpose_a, bool transpose_b, std:
             }
             return;
         }
+#elif TENON_SIMD_NEON64
+        for (std::size_t i = 0; i < m; ++i) {
+            const T* ai = transpose_a ? a + i : a + i * lda;
+            combine_rows_neon(ai, transpose_a ? lda : 1, alpha, b, ldb, k, c + i * ldc, n);
+        }
+        return;
 #endif
         for (std::size_t i = 0; i < m; ++i) {
             T* ci = c + i * ldc;
@@ -469,7 +487,7 @@ inline std::size_t round_up(std::size_t value, std::size_t multiple) noexcept {
     return (value + multiple - 1) / multiple * multiple;
 }
 
-#if TENON_GEMM_X86
+#if TENON_GEMM_X86 || TENON_SIMD_NEON
 // The tiles: MR rows x 2 vectors of columns, MR * 2 accumulators held in
 // registers (AVX-512 has 32 vector registers: 16 accumulators, 2 columns of
 // B and one broadcast of A; AVX2 has 16: 12 + 2 + 1). Per depth step: two
@@ -502,6 +520,7 @@ inline std::size_t round_up(std::size_t value, std::size_t multiple) noexcept {
         }                                                                                                          \
     }
 
+#if TENON_GEMM_X86
 template <class T>
 struct avx512_kernel {
     static constexpr std::size_t mr = 8, nr = 2 * avx512_ops<T>::lanes, kc = 256, mc = 128, nc = 512;
@@ -512,8 +531,23 @@ struct avx2_kernel {
     static constexpr std::size_t mr = 6, nr = 2 * avx2_ops<T>::lanes, kc = 256, mc = 120, nc = 512;
     TENON_GEMM_SIMD_TILE(TENON_TARGET_AVX2, avx2_ops)
 };
+#endif
+#if TENON_SIMD_NEON
+// aarch64 has 32 vector registers (8 x 2 accumulators), 32-bit ARM 16 (6 x 2);
+// mc is a multiple of mr (the packed A block holds whole panels).
+template <class T>
+struct neon_kernel {
+    static constexpr std::size_t mr = TENON_SIMD_NEON64 ? 8 : 6, nr = 2 * neon_ops<T>::lanes, kc = 256,
+                                 mc = TENON_SIMD_NEON64 ? 128 : 120, nc = 512;
+    static_assert(mc % mr == 0, "the packed A block holds whole panels");
+    TENON_GEMM_SIMD_TILE(TENON_TARGET_NEON, neon_ops)
+};
+// The neon path's tile for T: the portable one where NEON has no lanes of T.
+template <class T>
+using neon_path_kernel = std::conditional_t<neon_has_lanes<T>, neon_kernel<T>, portable_kernel<T>>;
+#endif
 #undef TENON_GEMM_SIMD_TILE
-#endif  // TENON_GEMM_X86
+#endif  // TENON_GEMM_X86 || TENON_SIMD_NEON
 
 
 
@@ -632,6 +666,9 @@ std::size_t tile_rows(kernel_path path) noexcept {
     if (path == kernel_path::avx512) return avx512_kernel<T>::mr;
     if (path == kernel_path::avx2) return avx2_kernel<T>::mr;
 #endif
+#if TENON_SIMD_NEON
+    if (path == kernel_path::neon) return neon_path_kernel<T>::mr;
+#endif
     (void)path;
     return portable_kernel<T>::mr;
 }
@@ -640,6 +677,9 @@ std::size_t tile_columns(kernel_path path) noexcept {
 #if TENON_GEMM_X86
     if (path == kernel_path::avx512) return avx512_kernel<T>::nr;
     if (path == kernel_path::avx2) return avx2_kernel<T>::nr;
+#endif
+#if TENON_SIMD_NEON
+    if (path == kernel_path::neon) return neon_path_kernel<T>::nr;
 #endif
     (void)path;
     return portable_kernel<T>::nr;
@@ -661,6 +701,9 @@ void gemm_band(const gemm_problem<T>& g, kernel_path path, gemm_scratch<T>& scra
 #if TENON_GEMM_X86
         case kernel_path::avx512: packed = gemm_packed<T, avx512_kernel<T>>(g, scratch); break;
         case kernel_path::avx2: packed = gemm_packed<T, avx2_kernel<T>>(g, scratch); break;
+#endif
+#if TENON_SIMD_NEON
+        case kernel_path::neon: packed = gemm_packed<T, neon_path_kernel<T>>(g, scratch); break;
 #endif
         default: packed = gemm_packed<T, portable_kernel<T>>(g, scratch); break;
     }

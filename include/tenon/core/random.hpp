@@ -31,7 +31,23 @@
 TENON_NAMESPACE_BEGIN
 
 namespace detail {
-__extension__ typedef unsigned __int128 uint128;
+// The 128-bit product a * b as its high and low 64-bit halves; from four
+// 32-bit partial products where the compiler has no 128-bit integer (32-bit
+// targets such as armhf). Both give the same bits.
+inline std::uint64_t multiply_wide(std::uint64_t a, std::uint64_t b, std::uint64_t& high) noexcept {
+#if defined(__SIZEOF_INT128__)
+    __extension__ typedef unsigned __int128 uint128;
+    const uint128 m = static_cast<uint128>(a) * b;
+    high = static_cast<std::uint64_t>(m >> 64);
+    return static_cast<std::uint64_t>(m);
+#else
+    const std::uint64_t a_low = a & 0xFFFFFFFFu, a_high = a >> 32, b_low = b & 0xFFFFFFFFu, b_high = b >> 32;
+    const std::uint64_t low_low = a_low * b_low, high_low = a_high * b_low, low_high = a_low * b_high;
+    const std::uint64_t middle = (low_low >> 32) + (high_low & 0xFFFFFFFFu) + (low_high & 0xFFFFFFFFu);
+    high = a_high * b_high + (high_low >> 32) + (low_high >> 32) + (middle >> 32);
+    return (middle << 32) | (low_low & 0xFFFFFFFFu);
+#endif
+}
 }  // namespace detail
 
 /// Complete state of a random_engine, for saving and resuming exactly.
@@ -92,16 +108,13 @@ public:
     std::uint64_t below(std::uint64_t n) {
         if (n == 0) raise(codes::invalid_argument, "random_engine::below: the bound must be positive, got 0");
         // Lemire (2019), algorithm 5.
-        detail::uint128 m = static_cast<detail::uint128>(next_u64()) * n;
-        std::uint64_t low = static_cast<std::uint64_t>(m);
+        std::uint64_t high = 0;
+        std::uint64_t low = detail::multiply_wide(next_u64(), n, high);
         if (low < n) {
             const std::uint64_t threshold = (0 - n) % n;
-            while (low < threshold) {
-                m = static_cast<detail::uint128>(next_u64()) * n;
-                low = static_cast<std::uint64_t>(m);
-            }
+            while (low < threshold) low = detail::multiply_wide(next_u64(), n, high);
         }
-        return static_cast<std::uint64_t>(m >> 64);
+        return high;
     }
 
     /// Standard normal scaled to the given mean and standard deviation.

@@ -3,8 +3,9 @@
 // tenon is header-only, so the host's compiler flags decide which
 // instructions ordinary code may use (SSE2 alone with default x86-64 flags).
 // Hot kernels therefore come in extra versions compiled with a function
-// attribute for AVX2 + FMA or AVX-512F, and are called only after the
-// checks below confirm the CPU (and operating system) support them. The
+// attribute for AVX2 + FMA or AVX-512F (NEON on 32-bit ARM), and are called
+// only after the checks below confirm the CPU (and operating system) support
+// them; aarch64 has NEON in its baseline. The
 // attribute is a plain target attribute on inline functions, not
 // target_clones, so the functions can be defined in a header included by
 // many translation units.
@@ -21,6 +22,27 @@
 #define TENON_TARGET_AVX512 __attribute__((target("avx512f")))
 #else
 #define TENON_SIMD_X86 0
+#endif
+
+// ARM's vector unit (NEON, Advanced SIMD). On aarch64 it is part of the
+// baseline: every kernel may use it, with float and double lanes. On 32-bit
+// ARM (armhf: ARMv7, whose Debian baseline has no NEON) the kernels carry a
+// target attribute for NEON with VFPv4 (for the fused multiply-add) and run
+// only after cpu_has_neon() checked the CPU; ARMv7 NEON has float lanes only.
+#if (defined(__GNUC__) || defined(__clang__)) && defined(__aarch64__)
+#include <arm_neon.h>
+#define TENON_SIMD_NEON 1
+#define TENON_SIMD_NEON64 1
+#define TENON_TARGET_NEON
+#elif defined(__GNUC__) && !defined(__clang__) && defined(__arm__) && defined(__linux__)
+#include <arm_neon.h>
+#include <sys/auxv.h>
+#define TENON_SIMD_NEON 1
+#define TENON_SIMD_NEON64 0
+#define TENON_TARGET_NEON __attribute__((target("fpu=neon-vfpv4")))
+#else
+#define TENON_SIMD_NEON 0
+#define TENON_SIMD_NEON64 0
 #endif
 
 // GCC implements the add and multiply intrinsics as plain vector arithmetic,
@@ -59,6 +81,21 @@ inline bool cpu_has_avx512f() noexcept {
 #if TENON_SIMD_X86
     __builtin_cpu_init();
     return __builtin_cpu_supports("avx512f");
+#else
+    return false;
+#endif
+}
+
+/// Whether the running CPU has NEON (always on aarch64; on 32-bit ARM, NEON
+/// and VFPv4 as the kernel reports them; false elsewhere).
+inline bool cpu_has_neon() noexcept {
+#if TENON_SIMD_NEON64
+    return true;
+#elif TENON_SIMD_NEON
+    // HWCAP_NEON and HWCAP_VFPv4 of the Linux kernel's arch/arm/include/uapi/asm/hwcap.h.
+    constexpr unsigned long neon = 1ul << 12, vfpv4 = 1ul << 16;
+    static const bool has = (getauxval(AT_HWCAP) & (neon | vfpv4)) == (neon | vfpv4);
+    return has;
 #else
     return false;
 #endif
@@ -203,5 +240,73 @@ struct avx2_ops<double> {
 
 }  // namespace detail
 #endif  // TENON_SIMD_X86
+
+#if TENON_SIMD_NEON
+namespace detail {
+
+// Vector operations for NEON, as avx2_ops (double lanes on aarch64 only).
+// On aarch64 they are IEEE operations; 32-bit ARM's NEON arithmetic flushes
+// subnormal inputs and results to zero whatever the FPSCR says (ARM
+// Architecture Reference Manual, ARMv7-A and ARMv7-R edition, on Advanced
+// SIMD floating-point; from memory), so there only the packed matrix
+// product, which promises no particular bits, uses them.
+template <class T>
+struct neon_ops;
+template <>
+struct neon_ops<float> {
+    using vector = float32x4_t;
+    static constexpr std::size_t lanes = 4;
+    TENON_TARGET_NEON static vector zero() noexcept { return vdupq_n_f32(0.0f); }
+    TENON_TARGET_NEON static vector load(const float* p) noexcept { return vld1q_f32(p); }
+    TENON_TARGET_NEON static vector broadcast(float v) noexcept { return vdupq_n_f32(v); }
+    TENON_TARGET_NEON static vector fma(vector a, vector b, vector c) noexcept { return vfmaq_f32(c, a, b); }
+    TENON_TARGET_NEON static void store(float* p, vector v) noexcept { vst1q_f32(p, v); }
+    TENON_TARGET_NEON static vector add(vector a, vector b) noexcept { return vaddq_f32(a, b); }
+    TENON_TARGET_NEON static vector sub(vector a, vector b) noexcept { return vsubq_f32(a, b); }
+    TENON_TARGET_NEON static vector mul(vector a, vector b) noexcept { return vmulq_f32(a, b); }
+#if TENON_SIMD_NEON64
+    static vector div(vector a, vector b) noexcept { return vdivq_f32(a, b); }
+    static vector sqrt(vector a) noexcept { return vsqrtq_f32(a); }
+#endif
+    // NaN in either operand gives NaN (x86's max and min return the second
+    // operand then); tenon's callers clip with a NaN-free bound, where both agree.
+    TENON_TARGET_NEON static vector max(vector a, vector b) noexcept { return vmaxq_f32(a, b); }
+    TENON_TARGET_NEON static vector min(vector a, vector b) noexcept { return vminq_f32(a, b); }
+    TENON_TARGET_NEON static vector select_positive(vector y, vector a) noexcept {
+        return vreinterpretq_f32_u32(vandq_u32(vcgtq_f32(y, vdupq_n_f32(0.0f)), vreinterpretq_u32_f32(a)));
+    }
+};
+#if TENON_SIMD_NEON64
+template <>
+struct neon_ops<double> {
+    using vector = float64x2_t;
+    static constexpr std::size_t lanes = 2;
+    static vector zero() noexcept { return vdupq_n_f64(0.0); }
+    static vector load(const double* p) noexcept { return vld1q_f64(p); }
+    static vector broadcast(double v) noexcept { return vdupq_n_f64(v); }
+    static vector fma(vector a, vector b, vector c) noexcept { return vfmaq_f64(c, a, b); }
+    static void store(double* p, vector v) noexcept { vst1q_f64(p, v); }
+    static vector add(vector a, vector b) noexcept { return vaddq_f64(a, b); }
+    static vector sub(vector a, vector b) noexcept { return vsubq_f64(a, b); }
+    static vector mul(vector a, vector b) noexcept { return vmulq_f64(a, b); }
+    static vector div(vector a, vector b) noexcept { return vdivq_f64(a, b); }
+    static vector sqrt(vector a) noexcept { return vsqrtq_f64(a); }
+    static vector max(vector a, vector b) noexcept { return vmaxq_f64(a, b); }
+    static vector min(vector a, vector b) noexcept { return vminq_f64(a, b); }
+    // Two floats widened to doubles, and two doubles rounded to floats.
+    static vector load(const float* p) noexcept { return vcvt_f64_f32(vld1_f32(p)); }
+    static void store(float* p, vector v) noexcept { vst1_f32(p, vcvt_f32_f64(v)); }
+    static vector select_positive(vector y, vector a) noexcept {
+        return vreinterpretq_f64_u64(vandq_u64(vcgtq_f64(y, vdupq_n_f64(0.0)), vreinterpretq_u64_f64(a)));
+    }
+};
+#endif
+
+// Whether the NEON kernels have lanes of T on this target.
+template <class T>
+inline constexpr bool neon_has_lanes = TENON_SIMD_NEON64 || sizeof(T) == sizeof(float);
+
+}  // namespace detail
+#endif  // TENON_SIMD_NEON
 
 TENON_NAMESPACE_END

@@ -32,12 +32,15 @@
 // not atomic): documented, not hidden.
 #pragma once
 
+#include <algorithm>
+#include <atomic>
 #include <cerrno>
 #include <cstddef>
 #include <cstdint>
 #include <cstdio>
 #include <cstring>
 #include <fstream>
+#include <limits>
 #include <random>
 #include <string>
 #include <vector>
@@ -284,9 +287,9 @@ inline std::vector<std::uint8_t> read_file_bounded(const std::string& path, std:
     const std::streamoff end = in.tellg();
     if (end < 0) raise(codes::deploy_file_io, "cannot determine the size of '" + path + "'");
     const auto size = static_cast<std::uint64_t>(end);
-    if (size > max_bytes)
+    if (size > max_bytes || size > std::numeric_limits<std::size_t>::max())
         raise(codes::deploy_oversize, "'" + path + "' has " + std::to_string(size) + " bytes, more than the limit of " +
-                                          std::to_string(max_bytes));
+                                          std::to_string(std::min<std::uint64_t>(max_bytes, std::numeric_limits<std::size_t>::max())));
     in.seekg(0, std::ios::beg);
     std::vector<std::uint8_t> bytes(static_cast<std::size_t>(size));
     if (size > 0 && !in.read(reinterpret_cast<char*>(bytes.data()), static_cast<std::streamsize>(size)))

@@ -212,6 +212,12 @@ inline std::string section_name(std::uint32_t id) {
     return s;
 }
 
+inline std::string hex_u32(std::uint32_t v) {
+    std::string s(8, '0');
+    for (int k = 7; k >= 0; --k, v >>= 4) s[static_cast<std::size_t>(k)] = "0123456789abcdef"[v & 0xFu];
+    return s;
+}
+
 inline std::uint16_t get_u16(const std::uint8_t* p) noexcept { return static_cast<std::uint16_t>(p[0] | (p[1] << 8)); }
 inline std::uint32_t get_u32(const std::uint8_t* p) noexcept {
     return static_cast<std::uint32_t>(p[0]) | static_cast<std::uint32_t>(p[1]) << 8 | static_cast<std::uint32_t>(p[2]) << 16 |
@@ -581,26 +587,26 @@ resume_state<T> read_resume(byte_reader& in) {
     s.schedule_kind = in.text();
     s.schedule_state = get_bytes(in);
     training_progress<T>& p = s.progress;
-    p.epochs_done = static_cast<std::size_t>(in.u64());
+    p.epochs_done = in.u64_size("epochs done");
     p.steps = in.u64();
     p.shuffle_engine = get_random_state(in);
     const std::uint64_t order = in.u64();
     if (order > in.remaining() / 8) in.fail(std::to_string(order) + " row indices cannot fit in the bytes left");
     p.order.resize(static_cast<std::size_t>(order));
-    for (auto& i : p.order) i = static_cast<std::size_t>(in.u64());
+    for (auto& i : p.order) i = in.u64_size("a row index");
     p.history.resize(in.count(56, "history epochs"));
     for (auto& e : p.history) {
-        e.epoch = static_cast<std::size_t>(in.u64());
+        e.epoch = in.u64_size("an epoch number");
         e.training_loss = in.f64();
         e.validation_loss = in.f64();
         e.validation_metric = in.f64();
         e.learning_rate = in.f64();
         e.seconds = in.f64();
-        e.retries = static_cast<std::size_t>(in.u64());
+        e.retries = in.u64_size("a retry count");
     }
-    p.best_epoch = static_cast<std::size_t>(in.u64());
+    p.best_epoch = in.u64_size("the best epoch");
     p.best_validation_loss = in.f64();
-    p.epochs_since_best = static_cast<std::size_t>(in.u64());
+    p.epochs_since_best = in.u64_size("epochs since the best");
     p.rate_factor = in.f64();
     p.best.values.resize(in.count(16, "best-epoch matrices"));
     for (auto& m : p.best.values) m = get_matrix<T>(in);
@@ -645,17 +651,22 @@ inline container read_container(const std::uint8_t* data, std::size_t size, cons
     if (size < model_header_bytes)
         raise(codes::deploy_truncated, source + ": the file has " + std::to_string(size) + " bytes, fewer than the " +
                                            std::to_string(model_header_bytes) + "-byte header");
+    // A file written with the other byte order has every number reversed,
+    // its checksum and version included: its mark names it first.
+    if (get_u32(data + 12) == 0x04030201u)
+        raise(codes::deploy_byte_order, source + ": the byte-order mark reads 0x04030201 instead of 0x01020304: the file was "
+                                                 "written with the other (big-endian) byte order; tenon's files are little-endian");
     if (crc32(data, 20) != get_u32(data + 20))
         raise(codes::deploy_checksum, source + ": the header checksum does not match (the file is damaged)");
+    if (get_u32(data + 12) != byte_order_mark)
+        raise(codes::deploy_byte_order, source + ": the byte-order mark reads 0x" + hex_u32(get_u32(data + 12)) +
+                                            " instead of 0x01020304 (files are little-endian)");
     c.version = get_u16(data + 8);
     if (c.version > model_format_version)
         raise(codes::deploy_newer_version, source + ": model format version " + std::to_string(c.version) +
                                                " is newer than this build of tenon (" + version_string() + ") reads (up to version " +
                                                std::to_string(model_format_version) + "); load it with a newer tenon");
     if (c.version == 0) raise(codes::deploy_malformed, source + ": model format version 0 does not exist");
-    if (get_u32(data + 12) != byte_order_mark)
-        raise(codes::deploy_byte_order, source + ": the byte-order mark reads 0x" + std::to_string(get_u32(data + 12)) +
-                                            " instead of 0x01020304 little-endian");
     c.scalar_bytes = data[16];
     if (c.scalar_bytes != 4 && c.scalar_bytes != 8)
         raise(codes::deploy_malformed, source + ": scalar size " + std::to_string(c.scalar_bytes) + " is neither 4 (float) nor 8 (double)");
@@ -1073,7 +1084,7 @@ network<T> rebuild_network(const layer_record& architecture, const std::vector<n
     const std::size_t declared = detail::parse_section("model file architecture", [&] { return record_value_count(m.architecture); });
     if (declared != stored)
         raise(codes::deploy_shape_mismatch, "model file: the architecture declares " +
-                                                (declared == std::numeric_limits<std::size_t>::max() ? std::string("more than 2^64")
+                                                (declared == std::numeric_limits<std::size_t>::max() ? std::string(sizeof(std::size_t) >= 8 ? "more than 2^64" : "more than 2^32")
                                                                                                      : std::to_string(declared)) +
                                                 " weight values, the file stores " + std::to_string(stored));
     network<T> net = detail::parse_section("model file architecture", [&] { return make_network<T>(m.architecture); });

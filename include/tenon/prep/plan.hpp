@@ -521,7 +521,7 @@ public:
         }
         p.group_column_ = r.text();
         p.time_column_ = r.text();
-        p.dropped_training_rows_ = static_cast<std::size_t>(r.u64());
+        p.dropped_training_rows_ = r.u64_size("dropped training rows");
         r.expect_end();
         p.lay_out();
         return p;

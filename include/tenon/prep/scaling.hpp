@@ -51,7 +51,11 @@ struct scaling {
     double low = 0.0;
     double high = 1.0;
 
-    double forward(double x) const noexcept { return low + (x - center) * ((high - low) / spread); }
+    // Each operation rounded on its own, as apply_scalings's vector loops do.
+    TENON_NO_CONTRACTION double forward(double x) const noexcept {
+        TENON_NO_CONTRACTION_IN_BODY
+        return low + (x - center) * ((high - low) / spread);
+    }
     double inverse(double y) const noexcept { return center + (y - low) / (high - low) * spread; }
 
     friend bool operator==(const scaling& a, const scaling& b) noexcept {

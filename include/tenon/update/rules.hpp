@@ -69,9 +69,9 @@ private:
 
 namespace detail {
 
-#if TENON_SIMD_X86
+#if TENON_SIMD_X86 || TENON_SIMD_NEON64
 // Adam's pass (see adam below) over the first multiple-of-the-vector-width
-// elements with AVX-512F or AVX2 vectors. The same operations in the same
+// elements with AVX-512F or AVX2 vectors (NEON on aarch64). The same operations in the same
 // order as the scalar loop, each correctly rounded (IEEE 754 multiply, add,
 // divide and square root; no fused multiply-add), so the result is
 // bit-identical to the scalar loop; only the speed changes. With `clear`
@@ -113,8 +113,12 @@ namespace detail {
         for (std::size_t l = 0; l < ops::lanes; ++l) finite = finite && lanes[l] == lanes[l];                           \
         return k;                                                                                                       \
     }
+#if TENON_SIMD_X86
 TENON_ADAM_VECTOR_PASS(adam_pass_avx512, TENON_TARGET_AVX512, avx512_ops)
 TENON_ADAM_VECTOR_PASS(adam_pass_avx2, TENON_TARGET_AVX2, avx2_ops)
+#else
+TENON_ADAM_VECTOR_PASS(adam_pass_neon, TENON_TARGET_NEON, neon_ops)
+#endif
 #undef TENON_ADAM_VECTOR_PASS
 #endif
 
@@ -175,7 +179,9 @@ protected:
 private:
     // One pass over the n elements; `clear` is g (writable) when each
     // gradient element is to be set to zero once read, else nullptr.
-    void pass(T* w, const T* g, T* const* buffers, std::size_t n, T lr, const gradient_transform<T>& f, T* clear) {
+    TENON_NO_CONTRACTION void pass(T* w, const T* g, T* const* buffers, std::size_t n, T lr, const gradient_transform<T>& f,
+                                   T* clear) {
+        TENON_NO_CONTRACTION_IN_BODY
         T* m = buffers[0];
         T* v = buffers[1];
         const T b1 = a_.beta1, b2 = a_.beta2, decay = lr * a_.decoupled_weight_decay;
@@ -188,6 +194,8 @@ private:
         } else if (cpu_has_avx2_fma()) {
             k = detail::adam_pass_avx2(w, g, m, v, n, f, b1, b2, rate, epsilon, decay, finite, clear);
         }
+#elif TENON_SIMD_NEON64
+        k = detail::adam_pass_neon(w, g, m, v, n, f, b1, b2, rate, epsilon, decay, finite, clear);
 #endif
         for (; k < n; ++k) {
             finite = finite && std::isfinite(g[k]);
