@@ -194,12 +194,15 @@ TEST_CASE_TEMPLATE("a calibrated predictor's bands and class sets allocate nothi
         CHECK(allocations.load() == 0);
         CHECK((classify ? out.has_class_sets() : out.has_interval()));
     }
+}
+
 // Footprint of a serving process (README, "Footprint"): the model file of an
 // 8-32-32-1 regression network loaded from its bytes, and a predictor for
 // it, keep at most 256 KiB on the heap once constructed (the predictor
 // holds its own copy of the network, plan and reference summaries; the
-// loaded file may then go), on every processor the tests run on. The data are invented: eight sensor readings of a packaging line
-// and the seal temperature they predict.
+// loaded file may then go), on every processor the tests run on. The data
+// are invented: eight sensor readings of a packaging line and the seal
+// temperature they predict.
 TEST_CASE("a serving process for an 8-32-32-1 model holds at most 256 KiB of heap after construction") {
     tenon::random_engine rng(12);
     std::ostringstream csv;
