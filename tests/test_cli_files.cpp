@@ -729,7 +729,7 @@ TEST_CASE("running out of memory under a limit is one line saying so, and leaves
         struct rlimit limit {};
         limit.rlim_cur = limit.rlim_max = static_cast<rlim_t>(pages * static_cast<unsigned long long>(::sysconf(_SC_PAGESIZE)) + (768ull << 20));
         if (::setrlimit(RLIMIT_AS, &limit) != 0) ::_exit(99);
-        const auto r = run({"train", "--data", p.data, "--target", "flow", "--hidden", "16384,6000", "--epochs", "1", "--model", model});
+        const auto r = run({"train", "--data", p.data, "--target", "flow", "--hidden", "16384,6000", "--epochs", "1", "--ensemble", "1", "--model", model});
         std::ofstream(report) << r.err;
         ::_exit(r.status);
     }

@@ -232,15 +232,28 @@ TEST_CASE("infer reproduces a regression model's values in the target's units an
     std::size_t mismatches = 0;
     for (std::size_t i = 0; i < 300; ++i) mismatches += same_bits(std::strtof(records[i + 1][0].c_str(), nullptr), expected(i, 0)) ? 0 : 1;
     CHECK(mismatches == 0);
-    // The band: the value -+ the stored half width, in float as the predictor computes it.
+    // The band: the predictor's, written as it computes it: the value -+ the
+    // stored half width for one network, -+ q (spread + floor) for the
+    // default ensemble (checked against the library in
+    // tests/test_deploy_calibration.cpp).
     const tenon::model_file<float> calibrated = tenon::load_model_file<float>(dir.file("motor.tnm"));
     REQUIRE(calibrated.calibration);
     REQUIRE(calibrated.calibration->interval);
-    const auto h = static_cast<float>(calibrated.calibration->interval->half_width);
+    CHECK(calibrated.calibration->interval->has_spread == !calibrated.members.empty());
+    tenon::predictor<float> served(calibrated, 300);
+    std::vector<std::size_t> all(300);
+    for (std::size_t i = 0; i < all.size(); ++i) all[i] = i;
+    tenon::matrix<float> features;
+    calibrated.plan->apply_features(v.table, all, features);
+    const auto band = served.predict_prepared(features.data(), all.size());
+    REQUIRE(band.has_interval());
     std::size_t band_mismatches = 0;
+    const auto h = static_cast<float>(calibrated.calibration->interval->half_width);
     for (std::size_t i = 0; i < 300; ++i) {
-        band_mismatches += same_bits(std::strtof(records[i + 1][1].c_str(), nullptr), expected(i, 0) - h) ? 0 : 1;
-        band_mismatches += same_bits(std::strtof(records[i + 1][2].c_str(), nullptr), expected(i, 0) + h) ? 0 : 1;
+        band_mismatches += same_bits(band.at(i, 0), expected(i, 0)) ? 0 : 1;
+        band_mismatches += same_bits(std::strtof(records[i + 1][1].c_str(), nullptr), band.low_at(i, 0)) ? 0 : 1;
+        band_mismatches += same_bits(std::strtof(records[i + 1][2].c_str(), nullptr), band.high_at(i, 0)) ? 0 : 1;
+        if (calibrated.members.empty()) band_mismatches += same_bits(band.low_at(i, 0), expected(i, 0) - h) ? 0 : 1;
     }
     CHECK(band_mismatches == 0);
 
@@ -731,9 +744,17 @@ TEST_CASE("train --coverage: the metrics give the band's test coverage and width
     CHECK(std::stod(j.at("calibration.band.coverage")) == 0.8);
     CHECK(std::stod(j.at("calibration.band.half_width")) == h);
     CHECK(std::stod(j.at("calibration.band.rows")) == std::stod(j.at("rows.validation")));
-    CHECK(j.at("calibration.band.method") == "split-conformal");
-    // The width is 2h on every row (to float rounding of value -+ h).
-    CHECK(std::stod(j.at("test.interval_mean_width")) == doctest::Approx(2.0 * h).epsilon(1e-5));
+    // The default ensemble's band is the normalized one (its width follows
+    // the members' spread); one network's is 2h on every row (to float
+    // rounding of value -+ h).
+    if (file.members.empty()) {
+        CHECK(j.at("calibration.band.method") == "split-conformal");
+        CHECK(std::stod(j.at("test.interval_mean_width")) == doctest::Approx(2.0 * h).epsilon(1e-5));
+    } else {
+        CHECK(j.at("calibration.band.method") == "split-conformal, normalized by the spread");
+        CHECK(r.out.find(" x (the networks' spread on the row + ") != std::string::npos);
+        CHECK(std::stod(j.at("test.interval_mean_width")) > 0.0);
+    }
     // With n validation rows the coverage of new rows is Beta(r, n + 1 - r),
     // r = ceil((n + 1) 0.8) (Vovk 2012); the m test rows add a binomial
     // spread; 3.29 standard deviations of the sum, see tests/test_calibration.cpp.

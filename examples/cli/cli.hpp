@@ -1648,6 +1648,13 @@ inline std::string calibration_note(const tenon::model_calibration* c, double co
         return "calibration: temperature " + fixed(c->classes->temperature, 4) + "; class sets meant to hold the true class for " + percent +
                " of new rows" + (std::isfinite(c->classes->set_threshold) ? std::string() : " (too few validation rows: every class is listed)") + "\n";
     char width[32];
+    if (c->interval->has_spread && std::isfinite(c->interval->spread_quantile)) {
+        char floor[32];
+        std::snprintf(width, sizeof width, "%.6g", c->interval->spread_quantile);
+        std::snprintf(floor, sizeof floor, "%.3g", c->interval->spread_floor);
+        return "calibration: band of +-" + std::string(width) + " x (the networks' spread on the row + " + floor +
+               ") meant to hold the true value for " + percent + " of new rows\n";
+    }
     std::snprintf(width, sizeof width, "%.6g", c->interval->half_width);
     return "calibration: band of +-" + (std::isfinite(c->interval->half_width) ? std::string(width) : std::string("infinity")) +
            " meant to hold the true value for " + percent + " of new rows" +
