@@ -385,7 +385,7 @@ struct logistic_fit {
     double gradient_norm = 0.0;
     std::size_t iterations = 0;
 
-    std::vector<std::size_t> predict(const prepared& p) const {
+    std::vector<std::size_t> labels_for(const prepared& p) const {
         std::vector<std::size_t> out(p.rows);
         for (std::size_t i = 0; i < p.rows; ++i) {
             Eigen::VectorXd z = weights.row(0).transpose();
@@ -486,7 +486,7 @@ public:
     }
 
     /// Trains on `train` with early stopping on `validation`; returns the epochs run.
-    std::size_t fit(const prepared& train, const prepared& validation) {
+    std::size_t train_until_stop(const prepared& train, const prepared& validation) {
         std::vector<std::size_t> order(train.rows);
         std::iota(order.begin(), order.end(), std::size_t(0));
         double best = std::numeric_limits<double>::infinity();

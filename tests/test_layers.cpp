@@ -132,7 +132,7 @@ TEST_CASE_TEMPLATE("zeros and constant initializers, and initializer names", T, 
     CHECK((parsed.scheme == tenon::init_scheme::he && parsed.distribution == tenon::init_distribution::normal));
     // One name per method: a method and its distribution are never spelled
     // as one word.
-    CHECK(code_of([] { tenon::parse_initializer("he_normal"); }) == "model.record.unknown_kind");
+    CHECK(code_of([] { tenon::parse_initializer("he-normal"); }) == "model.record.unknown_kind");
     CHECK(code_of([] { tenon::parse_init_scheme("gaussian"); }) == "model.record.unknown_kind");
     CHECK(code_of([] { tenon::parse_init_distribution("triangular"); }) == "model.record.unknown_kind");
 }

@@ -263,7 +263,7 @@ comparison compare(const dataset& d) {
             start = std::chrono::steady_clock::now();
             const logistic_fit fit = fit_logistic(train, prep.classes.size());
             REQUIRE(fit.gradient_norm < 1e-6);  // converged: the first-order optimality condition holds
-            const auto predicted = fit.predict(test);
+            const auto predicted = fit.labels_for(test);
             double hits = 0;
             for (std::size_t i = 0; i < test.rows; ++i) hits += predicted[i] == test.label[i] ? 1.0 : 0.0;
             c.logistic.per_seed.push_back(hits / static_cast<double>(test.rows));
@@ -284,7 +284,7 @@ comparison compare(const dataset& d) {
 
         start = std::chrono::steady_clock::now();
         reference_perceptron reference(train.width, d.classify ? prep.classes.size() : 1, d.classify, seed);
-        c.reference.epochs.push_back(reference.fit(train, validation));
+        c.reference.epochs.push_back(reference.train_until_stop(train, validation));
         double score = 0;
         for (std::size_t i = 0; i < test.rows; ++i) {
             const auto& o = reference.outputs(&test.x[i * test.width]);

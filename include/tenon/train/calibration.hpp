@@ -201,7 +201,7 @@ double fit_temperature(const matrix<T>& logits, const std::vector<std::size_t>& 
     for (auto y : labels)
         if (y >= cols) raise(codes::invalid_argument, "fit_temperature: a label is " + std::to_string(y) + ", not below " + std::to_string(cols));
     // Mean loss, its first and second derivatives in b, from shifted logits.
-    const auto evaluate = [&](double b, double* gradient, double* curvature) {
+    const auto loss_at = [&](double b, double* gradient, double* curvature) {
         double loss = 0.0, g = 0.0, h = 0.0;
         for (std::size_t i = 0; i < rows; ++i) {
             const T* z = logits.data() + i * cols;
@@ -227,14 +227,14 @@ double fit_temperature(const matrix<T>& logits, const std::vector<std::size_t>& 
     };
     constexpr double b_low = 1e-3, b_high = 1e3;
     double b = 1.0, g = 0.0, h = 0.0;
-    double loss = evaluate(b, &g, &h);
+    double loss = loss_at(b, &g, &h);
     for (int iteration = 0; iteration < 100; ++iteration) {
         if (!(h > 0.0) || std::abs(g) < 1e-13) break;
         double step = -g / h, next = b, next_loss = loss;
         bool moved = false;
         for (int halving = 0; halving < 60; ++halving, step *= 0.5) {
             next = std::clamp(b + step, b_low, b_high);
-            next_loss = evaluate(next, nullptr, nullptr);
+            next_loss = loss_at(next, nullptr, nullptr);
             if (next_loss <= loss) {
                 moved = true;
                 break;
@@ -242,7 +242,7 @@ double fit_temperature(const matrix<T>& logits, const std::vector<std::size_t>& 
         }
         if (!moved || next == b) break;
         b = next;
-        loss = evaluate(b, &g, &h);
+        loss = loss_at(b, &g, &h);
     }
     return 1.0 / b;
 }
