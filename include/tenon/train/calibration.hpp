@@ -303,8 +303,8 @@ set_scores score_class_sets(const class_calibration& c, const matrix<T>& probabi
     if (rows == 0) return s;
     std::size_t covered = 0, members = 0;
     for (std::size_t i = 0; i < rows; ++i) {
-        covered += (words[i * w + labels[i] / 64] >> (labels[i] % 64)) & 1u;
-        for (std::size_t k = 0; k < classes; ++k) members += (words[i * w + k / 64] >> (k % 64)) & 1u;
+        covered += static_cast<std::size_t>((words[i * w + labels[i] / 64] >> (labels[i] % 64)) & 1u);
+        for (std::size_t k = 0; k < classes; ++k) members += static_cast<std::size_t>((words[i * w + k / 64] >> (k % 64)) & 1u);
     }
     s.coverage = static_cast<double>(covered) / static_cast<double>(rows);
     s.mean_size = static_cast<double>(members) / static_cast<double>(rows);
