@@ -21,7 +21,7 @@ tenon::table pump_table(std::size_t n, std::uint64_t seed) {
     const double density[] = {1.0, 1.07, 1.2};
     for (std::size_t i = 0; i < n; ++i) {
         const double flow = rng.uniform(20.0, 120.0), head = rng.uniform(5.0, 40.0);
-        const std::size_t f = rng.below(3);
+        const auto f = static_cast<std::size_t>(rng.below(3));
         const double efficiency = 0.55 + 0.25 * std::exp(-std::pow((flow - 70.0) / 40.0, 2));
         const double power = flow * head * density[f] / (367.0 * efficiency) + rng.normal(0.0, 0.05);
         csv << flow << "," << head << "," << fluids[f] << "," << power << "\n";
