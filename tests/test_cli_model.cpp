@@ -457,9 +457,9 @@ TEST_CASE("a missing or damaged model file is named; nothing is written") {
     // One byte flipped inside the weights: the section's CRC-32 catches it.
     std::string bytes = read_file(t.model);
     const tenon::model_file_summary m = tenon::inspect_model_file(t.model);
-    std::uint64_t weights_at = 0;
+    std::size_t weights_at = 0;
     for (const auto& s : m.sections)
-        if (s.id == "WGHT") weights_at = s.offset + s.length / 2;
+        if (s.id == "WGHT") weights_at = static_cast<std::size_t>(s.offset + s.length / 2);
     REQUIRE(weights_at > 0);
     bytes[weights_at] = static_cast<char>(bytes[weights_at] ^ 0x10);
     const auto damaged = t.dir.write("damaged.tnm", bytes);
