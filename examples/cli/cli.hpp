@@ -541,6 +541,25 @@ inline train_request parse_train_request(const std::vector<std::string>& args) {
 
 inline std::string general_help();
 
+// The "Files" paragraph of every subcommand's help that writes files;
+// `extra` (wrapped lines, the last ending in ';') adds what one subcommand
+// promises beyond the others.
+inline std::string files_help(const std::string& extra = "") {
+    std::string text = R"(Files
+  Every output is checked before training: compared with the inputs and the
+  other outputs by identity (symlinks, hard links and other paths to the same
+  file are caught), its directory must exist and accept a new file. Outputs
+  are written to temporary files and renamed into place together at the end;
+  a replaced file keeps its permission bits; an output that is a symlink has
+  its target replaced and the link kept. '-' and /dev/stdout write to
+  standard output;)";
+    if (!extra.empty()) text += " " + extra + "\n ";
+    return text + R"( a FIFO or device is written directly, never replaced.
+  SIGINT, SIGTERM and SIGHUP remove the temporary files and end the run by
+  that signal.
+)";
+}
+
 inline std::string train_help() {
     return R"(tenon train: train a multilayer perceptron on a CSV file and score it on held-out rows
 
@@ -708,17 +727,7 @@ Output
   On a terminal the progress line is redrawn in place; otherwise one line is
   printed per epoch. A summary table follows training.
 
-Files
-  Every output is checked before training: compared with the inputs and the
-  other outputs by identity (symlinks, hard links and other paths to the same
-  file are caught), its directory must exist and accept a new file. Outputs
-  are written to temporary files and renamed into place together at the end;
-  a replaced file keeps its permission bits; an output that is a symlink has
-  its target replaced and the link kept. '-' and /dev/stdout write to
-  standard output; a FIFO or device is written directly, never replaced.
-  SIGINT, SIGTERM and SIGHUP remove the temporary files and end the run by
-  that signal.
-
+)" + files_help() + R"(
 Exit status
   0 success; 2 bad command line or bad data (one line on stderr names the
   problem); 3 an output file could not be written; 1 an unexpected failure.
@@ -2222,17 +2231,7 @@ Output: a CSV file with a header, one row per data row, in the same order
   Numbers are written in the shortest form that reads back to the same value
   in the model's precision (single precision for models of tenon train).
 
-Files
-  Every output is checked before training: compared with the inputs and the
-  other outputs by identity (symlinks, hard links and other paths to the same
-  file are caught), its directory must exist and accept a new file. Outputs
-  are written to temporary files and renamed into place together at the end;
-  a replaced file keeps its permission bits; an output that is a symlink has
-  its target replaced and the link kept. '-' and /dev/stdout write to
-  standard output; a FIFO or device is written directly, never replaced.
-  SIGINT, SIGTERM and SIGHUP remove the temporary files and end the run by
-  that signal.
-
+)" + files_help() + R"(
 Exit status
   0 success; 2 bad command line, model file or data (one line on stderr names
   the problem; a cell that cannot be predicted fails the whole command and is
@@ -3128,19 +3127,7 @@ reference ranges (for tenon drift) and the continued sample, and is
 recalibrated on its validation rows at the model's nominal coverage; the
 summary gives both models' coverage (bands or class sets) on the holdout.
 
-Files
-  Every output is checked before training: compared with the inputs and the
-  other outputs by identity (symlinks, hard links and other paths to the same
-  file are caught), its directory must exist and accept a new file. Outputs
-  are written to temporary files and renamed into place together at the end;
-  a replaced file keeps its permission bits; an output that is a symlink has
-  its target replaced and the link kept. '-' and /dev/stdout write to
-  standard output; with --out naming --model by any path the retrain is in
-  place and keeps the replaced model at --rollback; a FIFO or device is
-  written directly, never replaced.
-  SIGINT, SIGTERM and SIGHUP remove the temporary files and end the run by
-  that signal.
-
+)" + files_help("with --out naming --model by any path the retrain is in\n  place and keeps the replaced model at --rollback;") + R"(
 Exit status
   0 the candidate was promoted and written to --out; 4 the incumbent was kept
   and nothing was written to --out or --rollback; 2 bad command line, model

@@ -321,14 +321,18 @@ auto parse_section(const std::string& where, F&& parse) {
 // --- section payloads ---------------------------------------------------------------------
 
 template <class T>
-std::vector<std::uint8_t> weights_payload(const std::vector<named_matrix<T>>& weights) {
-    std::vector<std::uint8_t> out;
-    byte_writer w(out);
+void put_weights(byte_writer& w, const std::vector<named_matrix<T>>& weights) {
     w.u32(static_cast<std::uint32_t>(weights.size()));
     for (const auto& nm : weights) {
         w.text(nm.name);
         put_matrix(w, nm.values);
     }
+}
+template <class T>
+std::vector<std::uint8_t> weights_payload(const std::vector<named_matrix<T>>& weights) {
+    std::vector<std::uint8_t> out;
+    byte_writer w(out);
+    put_weights(w, weights);
     return out;
 }
 template <class T>
@@ -345,13 +349,7 @@ std::vector<std::uint8_t> members_payload(const std::vector<std::vector<named_ma
     std::vector<std::uint8_t> out;
     byte_writer w(out);
     w.u32(static_cast<std::uint32_t>(members.size()));
-    for (const auto& weights : members) {
-        w.u32(static_cast<std::uint32_t>(weights.size()));
-        for (const auto& nm : weights) {
-            w.text(nm.name);
-            put_matrix(w, nm.values);
-        }
-    }
+    for (const auto& weights : members) put_weights(w, weights);
     return out;
 }
 template <class T>
