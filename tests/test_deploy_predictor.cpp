@@ -23,13 +23,7 @@
 // ThreadSanitizer brings its own allocation functions; the TSan build of
 // this file (see the deploy report) leaves out the counting ones and the
 // allocation test.
-#if defined(__SANITIZE_THREAD__)
-#define DEPLOY_TEST_TSAN 1
-#elif defined(__has_feature)
-#if __has_feature(thread_sanitizer)
-#define DEPLOY_TEST_TSAN 1
-#endif
-#endif
+#include "sanitizer_build.hpp"
 
 // Counting global allocation functions: a call is allocation-free when the
 // count does not move while `counting` is on in this thread.
@@ -38,7 +32,7 @@ namespace {
 [[maybe_unused]] thread_local std::size_t allocations = 0;
 }  // namespace
 
-#if !defined(DEPLOY_TEST_TSAN)
+#if !defined(TENON_TEST_TSAN)
 void* operator new(std::size_t size) {
     if (counting) ++allocations;
     if (void* p = std::malloc(size ? size : 1)) return p;
@@ -363,7 +357,7 @@ TEST_CASE("binding a row type that lacks a column is refused") {
     }
 }
 
-#if !defined(DEPLOY_TEST_TSAN)
+#if !defined(TENON_TEST_TSAN)
 TEST_CASE_TEMPLATE("after construction a call allocates nothing", T, float, double) {
     trained<T> run(condition_plan());
     tenon::predictor<T> p(tenon::make_model_file(run.model, run.t, run.train, small_settings()), 64);

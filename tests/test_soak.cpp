@@ -24,15 +24,9 @@
 
 #include "deploy_test_support.hpp"
 
-#if defined(__SANITIZE_ADDRESS__) || defined(__SANITIZE_THREAD__)
-#define SOAK_SANITIZER 1
-#elif defined(__has_feature)
-#if __has_feature(address_sanitizer) || __has_feature(thread_sanitizer)
-#define SOAK_SANITIZER 1
-#endif
-#endif
+#include "sanitizer_build.hpp"
 
-#if defined(SOAK_SANITIZER)
+#if defined(TENON_TEST_SANITIZER)
 #include <sanitizer/allocator_interface.h>
 namespace {
 const std::string live_unit = "bytes";
