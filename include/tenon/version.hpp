@@ -16,6 +16,17 @@
 // Bumped with every release whose binary layout or inline definitions may change.
 #define TENON_ABI_NAMESPACE v0_1
 
+// 1 when the host is built with exceptions, 0 with -fno-exceptions. A host
+// may define it itself (to 0, to keep tenon's throws out of a build whose
+// compiler still allows them).
+#ifndef TENON_HAS_EXCEPTIONS
+#if TENON_HAS_EXCEPTIONS
+#define TENON_HAS_EXCEPTIONS 1
+#else
+#define TENON_HAS_EXCEPTIONS 0
+#endif
+#endif
+
 #define TENON_NAMESPACE_BEGIN namespace tenon { inline namespace TENON_ABI_NAMESPACE {
 #define TENON_NAMESPACE_END } }
 

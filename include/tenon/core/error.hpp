@@ -54,16 +54,40 @@ private:
     std::string code_;
 };
 
+/// What a host built without exceptions is told of a failure before the
+/// process ends: the code and the one-line message. It may log them (to a
+/// device log, a fault register); the process aborts when it returns.
+using failure_handler = void (*)(const char* code, const char* message) noexcept;
+
+namespace detail {
+inline failure_handler& current_failure_handler() noexcept {
+    static failure_handler handler = nullptr;
+    return handler;
+}
+}  // namespace detail
+
+/// Installs the handler raise() calls in a build without exceptions (null:
+/// print to stderr, the default); returns the previous one. With exceptions
+/// it is never called: raise() throws.
+inline failure_handler set_failure_handler(failure_handler h) noexcept {
+    failure_handler previous = detail::current_failure_handler();
+    detail::current_failure_handler() = h;
+    return previous;
+}
+
 /// Throws tenon::error with the given code and message.
-/// In a host built without exceptions (-fno-exceptions) it prints the
-/// message to stderr and aborts instead; such hosts use the non-throwing
-/// entry points (e.g. predictor::try_predict_named in deploy/), which check
-/// their input before any call that could raise.
+/// In a host built without exceptions (TENON_HAS_EXCEPTIONS 0, see
+/// version.hpp) it calls the failure handler, or prints the message to
+/// stderr, and aborts instead; such hosts use the non-throwing entry points
+/// (try_load_model_file, predictor::try_predict_named), which check their
+/// input before any call that could raise.
 [[noreturn]] inline void raise(const char* code, const std::string& message) {
-#if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
+#if TENON_HAS_EXCEPTIONS
     throw error(code, message);
 #else
-    std::fprintf(stderr, "tenon: [%s] %s\n", code, escape_control_characters(message).c_str());
+    const std::string text = escape_control_characters(message);
+    if (failure_handler h = detail::current_failure_handler()) h(code, text.c_str());
+    else std::fprintf(stderr, "tenon: [%s] %s\n", code, text.c_str());
     std::abort();
 #endif
 }

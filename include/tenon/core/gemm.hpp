@@ -465,7 +465,7 @@ struct gemm_scratch {
         return scratch;
     }
     bool reserve(std::size_t a_size, std::size_t b_size) noexcept {
-#if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
+#if TENON_HAS_EXCEPTIONS
         try {
             if (a_block.size() < a_size) a_block.resize(a_size);
             if (b_block.size() < b_size) b_block.resize(b_size);
@@ -734,7 +734,7 @@ struct gemm_band_scratch {
     }
     bool reserve(std::size_t count) noexcept {
         if (bands.size() >= count) return true;
-#if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
+#if TENON_HAS_EXCEPTIONS
         try {
             bands.resize(count);
         } catch (const std::bad_alloc&) {

@@ -58,7 +58,7 @@ void ensure_shape(matrix<T>& m, shape2 s) {
         // it. Leave it empty instead (an empty matrix allocates nothing), so
         // the next call allocates again. (Without exceptions a failed
         // allocation ends the program, and there is nothing to repair.)
-#if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
+#if TENON_HAS_EXCEPTIONS
         try {
             m.resize({s.rows, s.cols});
         } catch (...) {

@@ -305,7 +305,7 @@ inline std::vector<std::uint8_t> get_bytes(byte_reader& in) {
 // inside it means a faulty writer, not a damaged file.
 template <class F>
 auto parse_section(const std::string& where, F&& parse) {
-#if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
+#if TENON_HAS_EXCEPTIONS
     try {
         return parse();
     } catch (const error& e) {

@@ -1022,7 +1022,7 @@ public:
             // model with its buffers and the exception propagates.
             std::shared_ptr<const detail::compiled_model<T>> previous = std::move(local.model_);
             local.model_ = std::move(m);
-#if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
+#if TENON_HAS_EXCEPTIONS
             try {
                 local.allocate();
             } catch (...) {

@@ -457,7 +457,7 @@ public:
             if (options_.resume) check_resume(*options_.resume, train.rows());
             if (team && !shards) team_validation(validation);
         };
-#if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
+#if TENON_HAS_EXCEPTIONS
         try {
             checks();
         } catch (...) {

@@ -286,7 +286,7 @@ void train_members(fitted_model<T>& model, const training_options<T>& o, const m
         o.workers->run(count, [](void* p, std::size_t k) {
             auto* ctx = static_cast<context*>(p);
             job& j = (*ctx->jobs)[k];
-#if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
+#if TENON_HAS_EXCEPTIONS
             try {
                 (*ctx->run)(j);
             } catch (...) {
@@ -367,7 +367,7 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
         linear_path = s.linear_path.value_or(!classify);
         net = make_mlp<T>(sizes, s.hidden_activation, init, s.seed, activation::identity, linear_path);
     };
-#if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
+#if TENON_HAS_EXCEPTIONS
     try {
         prepare();
     } catch (...) {

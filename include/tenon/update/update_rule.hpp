@@ -414,7 +414,7 @@ private:
                 for (std::size_t s = 0; s < r.rule->buffer_count_; ++s)
                     buffers[s] = r.rule->buffers_[c.parameter_index * r.rule->buffer_count_ + s].data() + c.first;
                 // Executor tasks must not throw; the built-in rules never do.
-#if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
+#if TENON_HAS_EXCEPTIONS
                 try {
                     r.rule->update_piece(p, c, buffers, r.learning_rate, r.transform);
                 } catch (...) {
