@@ -3,7 +3,10 @@
 
 #include "tenon/version.hpp"
 
+#include "tenon/core/activation_functions.hpp"
 #include "tenon/core/bytes.hpp"
+#include "tenon/core/elementwise.hpp"
+#include "tenon/core/json_text.hpp"
 #include "tenon/core/error.hpp"
 #include "tenon/core/error_codes.hpp"
 #include "tenon/core/gemm.hpp"
@@ -25,6 +28,7 @@
 #include "tenon/prep/idx.hpp"
 #include "tenon/prep/imputation.hpp"
 #include "tenon/prep/plan.hpp"
+#include "tenon/prep/reference.hpp"
 #include "tenon/prep/scaling.hpp"
 #include "tenon/prep/split.hpp"
 #include "tenon/prep/statistics.hpp"
@@ -46,19 +50,25 @@
 #include "tenon/update/schedules.hpp"
 #include "tenon/update/update_rule.hpp"
 
+#include "tenon/train/baseline.hpp"
 #include "tenon/train/calibration.hpp"
 #include "tenon/train/metrics.hpp"
 #include "tenon/train/report_svg.hpp"
 #include "tenon/train/trainer.hpp"
 #include "tenon/train/workflow.hpp"
 
-#include "tenon/deploy/atomic_file.hpp"
-#include "tenon/deploy/checksum.hpp"
-#include "tenon/deploy/drift.hpp"
-#include "tenon/deploy/model_file.hpp"
-#include "tenon/deploy/predictor.hpp"
-#include "tenon/deploy/reference.hpp"
-#include "tenon/deploy/retraining.hpp"
+#include "tenon/format/architecture.hpp"
+#include "tenon/format/atomic_file.hpp"
+#include "tenon/format/calibration.hpp"
+#include "tenon/format/checksum.hpp"
+#include "tenon/format/model_file.hpp"
+#include "tenon/format/training_state.hpp"
+
+#include "tenon/serve/drift.hpp"
+#include "tenon/serve/predictor.hpp"
+
+#include "tenon/train/authoring.hpp"
+#include "tenon/train/retraining.hpp"
 
 #if defined(TENON_HAS_ZLIB)
 #include "tenon/prep/idx_gzip.hpp"

@@ -25,6 +25,7 @@
 
 #include "tenon/autodiff/custom_operation.hpp"
 #include "tenon/autodiff/parameter.hpp"
+#include "tenon/core/activation_functions.hpp"
 #include "tenon/core/elementwise.hpp"
 #include "tenon/core/gemm.hpp"
 #include "tenon/core/matrix.hpp"
@@ -141,25 +142,6 @@ struct tape_node {
     const custom_operation<T>* custom = nullptr;
 };
 
-template <class T>
-T stable_sigmoid(T x) noexcept {
-    if (x >= T(0)) return T(1) / (T(1) + std::exp(-x));
-    const T e = std::exp(x);
-    return e / (T(1) + e);
-}
-
-// softplus(x) = log(1 + e^x) = max(x, 0) + log1p(e^-|x|), finite for any x.
-template <class T>
-T stable_softplus(T x) noexcept {
-    return (x > T(0) ? x : T(0)) + std::log1p(std::exp(-std::abs(x)));
-}
-
-// GELU constants (Hendrycks & Gimpel 2016, "Gaussian Error Linear Units", eq. 2
-// and the tanh approximation in section 2): sqrt(2/pi) and 0.044715.
-inline constexpr double gelu_sqrt_2_over_pi = 0.79788456080286535587989211986876;
-inline constexpr double gelu_cubic = 0.044715;
-inline constexpr double inv_sqrt2 = 0.70710678118654752440084436210485;
-inline constexpr double inv_sqrt_2pi = 0.39894228040143267793994605993438;
 
 }  // namespace detail
 

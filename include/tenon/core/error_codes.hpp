@@ -8,6 +8,7 @@
 #pragma once
 
 #include <cstddef>
+#include <string>
 
 #include "tenon/version.hpp"
 
@@ -112,7 +113,7 @@
     X(train_team_member_failed, "train.team.member_failed",                                    \
       "another member of a training team failed its checks, so every member stops with it")
 
-// deploy/: model files, the predictor, retraining, drift.
+// deploy.*: model files (format/), the predictor and drift (serve/), retraining (train/).
 #define TENON_ERROR_CODES_DEPLOY(X)                                                            \
     X(deploy_file_io, "deploy.file.io", "a model file could not be opened, read, written, synced or renamed") \
     X(deploy_bad_magic, "deploy.model.magic", "the file does not start with the tenon model magic")          \
@@ -196,6 +197,14 @@ inline constexpr error_code_entry error_code_table[] = {TENON_ERROR_CODES(TENON_
 inline constexpr const error_code_entry* error_registry_begin() noexcept { return detail::error_code_table; }
 inline constexpr const error_code_entry* error_registry_end() noexcept {
     return detail::error_code_table + sizeof(detail::error_code_table) / sizeof(detail::error_code_table[0]);
+}
+
+/// The registry's own text of `code` (static storage), or null when `code`
+/// is not a registered code.
+inline const char* registered_code(const std::string& code) noexcept {
+    for (const error_code_entry* e = error_registry_begin(); e != error_registry_end(); ++e)
+        if (code == e->code) return e->code;
+    return nullptr;
 }
 
 TENON_NAMESPACE_END

@@ -474,7 +474,7 @@ struct gemm_scratch {
             return false;
         }
 #else
-        // Built without exceptions (e.g. a host using deploy/'s try_ calls):
+        // Built without exceptions (e.g. a host using try_load_model_file and the predictor's try_ calls):
         // an allocation failure terminates instead of falling back.
         if (a_block.size() < a_size) a_block.resize(a_size);
         if (b_block.size() < b_size) b_block.resize(b_size);

@@ -74,7 +74,7 @@
 #include <string>
 #include <vector>
 
-#include "tenon/deploy/checksum.hpp"
+#include "tenon/format/checksum.hpp"
 #include "tenon/distributed/communicator.hpp"
 #include "tenon/layers/dropout.hpp"
 #include "tenon/layers/network.hpp"

@@ -1,6 +1,6 @@
 // tenon: fleet averaging of models retrained on many devices.
 //
-// Devices that each retrain a deployed model locally (deploy/retraining.hpp)
+// Devices that each retrain a deployed model locally (train/retraining.hpp)
 // send their weights and sample counts; a coordinator forms the
 // sample-weighted average of the weights, federated averaging (McMahan,
 // Moore, Ramage, Hampson & Agüera y Arcas 2017, "Communication-Efficient
@@ -23,7 +23,7 @@
 //
 // Contribution layout (little-endian): "TNFC", version u16 (1), reserved u16,
 // samples u64, architecture fingerprint u64, plan fingerprint u64, model
-// file length u64, the model file's bytes (deploy/model_file.hpp), CRC-32
+// file length u64, the model file's bytes (format/model_file.hpp), CRC-32
 // of everything before it (u32).
 #pragma once
 
@@ -35,9 +35,10 @@
 #include <vector>
 
 #include "tenon/core/bytes.hpp"
-#include "tenon/deploy/checksum.hpp"
-#include "tenon/deploy/model_file.hpp"
-#include "tenon/deploy/retraining.hpp"
+#include "tenon/format/checksum.hpp"
+#include "tenon/format/model_file.hpp"
+#include "tenon/train/authoring.hpp"
+#include "tenon/train/retraining.hpp"
 
 TENON_NAMESPACE_BEGIN
 

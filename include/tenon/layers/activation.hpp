@@ -9,55 +9,11 @@
 #include <cstdint>
 #include <string>
 
+#include "tenon/core/activation_functions.hpp"
 #include "tenon/layers/layer.hpp"
 
 TENON_NAMESPACE_BEGIN
 
-enum class activation : std::uint8_t {
-    identity,
-    tanh,
-    sigmoid,
-    relu,
-    leaky_relu,
-    elu,
-    softplus,
-    gelu,
-    gelu_tanh,
-    softmax,
-    log_softmax,
-};
-
-inline const char* activation_name(activation a) noexcept {
-    switch (a) {
-        case activation::identity: return "identity";
-        case activation::tanh: return "tanh";
-        case activation::sigmoid: return "sigmoid";
-        case activation::relu: return "relu";
-        case activation::leaky_relu: return "leaky_relu";
-        case activation::elu: return "elu";
-        case activation::softplus: return "softplus";
-        case activation::gelu: return "gelu";
-        case activation::gelu_tanh: return "gelu_tanh";
-        case activation::softmax: return "softmax";
-        case activation::log_softmax: return "log_softmax";
-    }
-    return "unknown";
-}
-
-/// The activation with the given name; raises model.record.unknown_kind.
-inline activation parse_activation(const std::string& name) {
-    for (int i = 0; i <= static_cast<int>(activation::log_softmax); ++i) {
-        const auto a = static_cast<activation>(i);
-        if (name == activation_name(a)) return a;
-    }
-    raise(codes::model_unknown_kind, "activation '" + name +
-                                         "' is not known (identity, tanh, sigmoid, relu, leaky_relu, elu, softplus, gelu, "
-                                         "gelu_tanh, softmax, log_softmax)");
-}
-
-inline double default_coefficient(activation a) noexcept {
-    return a == activation::leaky_relu ? 0.01 : (a == activation::elu ? 1.0 : 0.0);
-}
 
 /// Records activation `a` of x on x's tape.
 template <class T>

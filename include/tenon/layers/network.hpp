@@ -22,6 +22,7 @@
 #include "tenon/layers/dense.hpp"
 #include "tenon/layers/dropout.hpp"
 #include "tenon/layers/initializers.hpp"
+#include "tenon/format/training_state.hpp"
 #include "tenon/layers/layer.hpp"
 #include "tenon/layers/normalization.hpp"
 
@@ -267,11 +268,6 @@ private:
     parameter<T> linear_;
 };
 
-/// A copy of every parameter and state buffer of a network, in order.
-template <class T>
-struct network_snapshot {
-    std::vector<matrix<T>> values;
-};
 
 template <class T>
 class network {
@@ -433,23 +429,6 @@ std::unique_ptr<layer<T>> make_layer(const layer_record& r) {
     return l;
 }
 
-/// The values (weights, biases, state buffers) the layers of record `r` would
-/// hold, counted without building them; saturates at SIZE_MAX. A reader can
-/// compare a stored architecture with the weights stored beside it before
-/// allocating anything (a damaged or crafted record may declare layers of
-/// any size).
-inline std::size_t record_value_count(const layer_record& r) {
-    constexpr std::size_t most = std::numeric_limits<std::size_t>::max();
-    const auto add = [](std::size_t a, std::size_t b) { return a > most - b ? most : a + b; };
-    const auto mul = [](std::size_t a, std::size_t b) { return a != 0 && b > most / a ? most : a * b; };
-    if (r.kind == "dense") return add(mul(r.count("inputs"), r.count("outputs")), r.number("bias") != 0.0 ? r.count("outputs") : 0);
-    if (r.kind == "layer_norm") return mul(2, r.count("width"));  // gain, bias
-    if (r.kind == "batch_norm") return mul(4, r.count("width"));  // gain, bias, population mean and variance
-    std::size_t total = 0;  // network and residual: their children; activation and dropout hold none
-    if (r.kind == "linear_bypass") total = mul(r.count("inputs"), r.count("outputs"));
-    for (const auto& c : r.children) total = add(total, record_value_count(c));
-    return total;
-}
 
 /// Rebuilds a network from the record network::describe() gave.
 template <class T>

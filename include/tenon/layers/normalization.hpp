@@ -99,25 +99,6 @@ private:
     parameter<T> bias_;
 };
 
-namespace detail {
-/// The current name of a stored parameter or state buffer: the batch-norm
-/// estimates that earlier files stored as "<layer>.running_mean" and
-/// "<layer>.running_variance" become "<layer>.population_mean" and
-/// "<layer>.population_variance"; every other name is returned unchanged.
-inline std::string current_state_name(const std::string& stored) {
-    static const struct {
-        const char* earlier;
-        const char* current;
-    } renamed[] = {{"running_mean", "population_mean"}, {"running_variance", "population_variance"}};
-    for (const auto& r : renamed) {
-        const std::string earlier(r.earlier);
-        const std::size_t dot = stored.rfind('.');
-        const std::string last = dot == std::string::npos ? stored : stored.substr(dot + 1);
-        if (last == earlier) return stored.substr(0, stored.size() - earlier.size()) + r.current;
-    }
-    return stored;
-}
-}  // namespace detail
 
 template <class T>
 class batch_norm : public layer<T> {

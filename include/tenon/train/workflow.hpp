@@ -229,7 +229,7 @@ supervised_rows<T> to_supervised(prepared_rows<T>&& p, const measured_plan& plan
 
 // The members' mean: class probabilities (each member's softmax) or values
 // in prepared units, summed in member order and divided by the count, as
-// the predictor does (deploy/predictor.hpp).
+// the predictor does (serve/predictor.hpp).
 template <class T>
 matrix<T> averaged_outputs(fitted_model<T>& model, const matrix<T>& features) {
     const bool classify = model.plan.target_type() == target_kind::classification;
