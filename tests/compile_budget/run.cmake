@@ -1,0 +1,68 @@
+# Serving apart from training, checked at the compiler:
+#  1. the include list of <tenon/serve.hpp> holds nothing from autodiff/,
+#     layers/, losses/, update/ or train/ (and, as a control that the check
+#     can fail, the include for everything does hold train/);
+#  2. compile budgets, measured in this run: a serving unit (load a model,
+#     predict one row) compiles in at most 3x the time of a unit using
+#     xtensor alone, and a unit including <tenon/tenon.hpp> in at most 5 s.
+#     Each unit is compiled three times with the build's flags; the least
+#     time counts (the others carry the machine's noise).
+# Inputs: CXX, FLAGS (a ;-list), SOURCE_DIR, WORK_DIR.
+set(units "${SOURCE_DIR}/tests/compile_budget")
+set(includes "-I${SOURCE_DIR}/include")
+file(MAKE_DIRECTORY "${WORK_DIR}")
+
+function(include_list unit out)
+  execute_process(COMMAND ${CXX} ${FLAGS} ${includes} -M "${units}/${unit}"
+    RESULT_VARIABLE rc OUTPUT_VARIABLE deps ERROR_VARIABLE err)
+  if(NOT rc EQUAL 0)
+    message(FATAL_ERROR "listing the includes of ${unit} failed:\n${err}")
+  endif()
+  set(${out} "${deps}" PARENT_SCOPE)
+endfunction()
+
+include_list(serve_unit.cpp serve_deps)
+if(NOT serve_deps MATCHES "tenon/serve/predictor\\.hpp")
+  message(FATAL_ERROR "the serving unit's include list does not name tenon/serve/predictor.hpp:\n${serve_deps}")
+endif()
+string(REGEX MATCHALL "[^ \\\\\n]*tenon/(autodiff|layers|losses|update|train)/[^ \\\\\n]*" forbidden "${serve_deps}")
+if(forbidden)
+  list(REMOVE_DUPLICATES forbidden)
+  string(REPLACE ";" "\n  " forbidden "${forbidden}")
+  message(FATAL_ERROR "<tenon/serve.hpp> includes training headers:\n  ${forbidden}")
+endif()
+include_list(everything_unit.cpp all_deps)
+if(NOT all_deps MATCHES "tenon/train/trainer\\.hpp")
+  message(FATAL_ERROR "control failed: the include for everything does not list tenon/train/trainer.hpp, so the check above proves nothing")
+endif()
+message(STATUS "include list: <tenon/serve.hpp> holds nothing of autodiff/, layers/, losses/, update/, train/")
+
+function(least_seconds unit out)
+  set(best "")
+  foreach(k 1 2 3)
+    execute_process(COMMAND date +%s%N OUTPUT_VARIABLE t0 OUTPUT_STRIP_TRAILING_WHITESPACE)
+    execute_process(COMMAND ${CXX} ${FLAGS} ${includes} -c "${units}/${unit}" -o "${WORK_DIR}/${unit}.o"
+      RESULT_VARIABLE rc ERROR_VARIABLE err)
+    execute_process(COMMAND date +%s%N OUTPUT_VARIABLE t1 OUTPUT_STRIP_TRAILING_WHITESPACE)
+    if(NOT rc EQUAL 0)
+      message(FATAL_ERROR "compiling ${unit} failed:\n${err}")
+    endif()
+    math(EXPR ms "(${t1} - ${t0}) / 1000000")
+    if(best STREQUAL "" OR ms LESS best)
+      set(best ${ms})
+    endif()
+  endforeach()
+  set(${out} ${best} PARENT_SCOPE)
+endfunction()
+
+least_seconds(xtensor_unit.cpp xt_ms)
+least_seconds(serve_unit.cpp serve_ms)
+least_seconds(everything_unit.cpp all_ms)
+math(EXPR ratio_x100 "${serve_ms} * 100 / ${xt_ms}")
+message(STATUS "compile times (least of 3): xtensor alone ${xt_ms} ms, serving unit ${serve_ms} ms (${ratio_x100}/100 of xtensor alone; budget 300/100), everything ${all_ms} ms (budget 5000 ms)")
+if(ratio_x100 GREATER 300)
+  message(FATAL_ERROR "the serving unit takes ${ratio_x100}/100 times the xtensor-alone unit's compile time, more than the budget of 3")
+endif()
+if(all_ms GREATER 5000)
+  message(FATAL_ERROR "the include for everything takes ${all_ms} ms to compile, more than the budget of 5000 ms")
+endif()
