@@ -1,13 +1,13 @@
 // tenon: general matrix multiply on row-major buffers.
 //
 // C = alpha * op(A) * op(B) + beta * C, op(X) being X or its transpose; with
-// beta == 0, C is written without being read. The training step's products
-// all go through here. Method: blocked and packed (Goto & van de Geijn 2008,
-// "Anatomy of High-Performance Matrix Multiplication"), with register tiles
-// for AVX-512F, AVX2 + FMA, NEON or plain C++ (or a configured BLAS), chosen
-// at run time. Within a path the bits depend on the shape alone, not on the
-// thread count; steady-state calls do not allocate. Kernel paths, rounding,
-// threads and memory: docs/design/gemm.md.
+// beta == 0, C is written without being read. Method: blocked and packed
+// (Goto & van de Geijn 2008, "Anatomy of High-Performance Matrix
+// Multiplication"), with register tiles for AVX-512F, AVX2 + FMA, NEON or
+// plain C++ (or a configured BLAS), chosen at run time. On the built-in paths
+// the bits depend on the shape alone, not on the thread count; steady-state
+// calls do not allocate. Kernel paths, rounding, threads, the BLAS path's
+// caveats and memory: docs/design/gemm.md.
 #pragma once
 
 #include <algorithm>
