@@ -1,18 +1,13 @@
 // tenon: the reverse-mode autodiff tape.
 //
-// Recording is eager: each operation computes its value the moment it is
-// recorded and appends a node (operation kind, input node ids, constants,
-// value buffer). backward(loss) walks the nodes in reverse order and adds each
-// node's contribution to the gradients of its inputs, so a value used twice
-// receives both contributions (reverse accumulation; Griewank & Walther,
-// "Evaluating Derivatives", 2nd ed. 2008, ch. 3). Any graph works, not only
-// chains of layers.
-//
-// Reuse: clear() forgets the recording but keeps every node's buffers. When
-// the next step records the same sequence of operations with the same shapes,
-// node i gets back the buffers it had, so a steady-state step allocates
-// nothing. Parameters are not stored on the tape: a parameter node refers to
-// the parameter, and backward adds into parameter::grad().
+// Recording is eager: each operation computes its value when recorded and
+// appends a node (kind, input ids, constants, value buffer). backward(loss)
+// walks the nodes in reverse and adds each node's contribution to its inputs'
+// gradients, so a value used twice receives both (reverse accumulation;
+// Griewank & Walther, "Evaluating Derivatives", 2nd ed. 2008, ch. 3); any
+// graph works. clear() keeps every node's buffers, so a step that records the
+// same operations and shapes again allocates nothing. Parameter nodes refer
+// to the parameter, and backward adds into parameter::grad().
 #pragma once
 
 #include <array>

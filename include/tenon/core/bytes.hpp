@@ -2,14 +2,12 @@
 // every serialized form (architecture records, update-rule and schedule
 // state, the measured plan, model-file sections).
 //
-// Every multi-byte number is written little-endian whatever the host's byte
-// order, reals travel as the bit pattern of an IEEE 754 double (a float or
-// double comes back bit for bit), and strings as a u32 length and the bytes.
-// The reader checks every read against the end of the bytes and every
-// declared count or size against the bytes that remain before anything is
-// reserved, so corrupt or hostile input fails with an error code instead of
-// a huge allocation or a read past the end. Each format names the codes its
-// reader raises (byte_error_codes).
+// Numbers are written little-endian on any host, reals as the bits of an IEEE
+// 754 double (floats and doubles come back bit for bit), strings as a u32
+// length and the bytes. The reader checks every read, and every declared
+// count against the bytes that remain before reserving, so corrupt or hostile
+// input fails with an error code (byte_error_codes) instead of a huge
+// allocation or a read past the end.
 #pragma once
 
 #include <algorithm>

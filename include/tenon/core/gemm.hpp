@@ -1,90 +1,13 @@
 // tenon: general matrix multiply on row-major buffers.
 //
-// C = alpha * op(A) * op(B) + beta * C, where op(X) is X or its transpose,
-// op(A) is m x k, op(B) is k x n and C is m x n; lda, ldb and ldc are the row
-// strides of the stored matrices. With beta == 0, C is overwritten without
-// being read, so uninitialised or non-finite contents of C do not leak into
-// the result.
-//
-// Method: the blocked, packed scheme of Goto & van de Geijn 2008, "Anatomy of
-// High-Performance Matrix Multiplication" (ACM TOMS 34(3), section 4 and
-// figure 8). op(B) is copied block by block (kc x nc) into panels of nr
-// contiguous columns and op(A) (mc x kc) into panels of mr contiguous rows; a
-// register tile of C (mr x nr) then accumulates kc rank-1 updates from two
-// contiguous streams. Packing makes the four transpose cases one kernel: a
-// transposed operand only changes the order in which the copy reads it, so
-// op(B) = B^T (the case backpropagation uses for the input gradient) runs
-// as fast as the plain product.
-//
-// Kernel paths. tenon is header-only, so the host's compiler flags decide
-// which instructions an ordinary function may use; with default flags that
-// is SSE2 on x86-64. The register tile therefore comes in several versions,
-// each compiled for its instruction set with a function attribute, and the
-// first call picks the best the running CPU supports (kernel_path):
-//   avx512    8 x 32 float / 8 x 16 double tile, AVX-512F fused multiply-add
-//   avx2      6 x 16 float / 6 x 8 double tile, AVX2 + FMA3
-//   neon      8 x 8 float / 8 x 4 double tile on aarch64, NEON fused
-//             multiply-add; 6 x 8 float on 32-bit ARM with NEON and VFPv4
-//             (double takes the portable tile there)
-//   portable  4 x 32 tile in plain C++ (any compiler, any CPU)
-//   blas      the configured BLAS (tenon::blas component, TENON_HAS_BLAS)
-// Products thinner than a tile (such as a single row to predict) are not
-// packed: they take unpacked loops on every path, the blas one included.
-// Their row loop is vectorized as well (AVX-512F, AVX2 or aarch64's NEON,
-// chosen the same way), but each element is still the plain loop's sum of rounded products
-// added in order, never fused, so their bits do not depend on the path or
-// on the CPU.
-// set_kernel_path() forces a path (tests, benchmarks, reproducing results
-// made on another machine).
-//
-// Rounding. Each element of C sums the same products, in blocks of kc terms,
-// then adds alpha times each block sum to C. Within one path the order of
-// the additions is fixed by the shape alone, so results are reproducible.
-// The fused multiply-add of the avx2, avx512 and neon paths rounds once where the
-// portable path rounds twice, so paths differ from each other by rounding
-// (within the dot-product bound of Higham 2002, "Accuracy and Stability of
-// Numerical Algorithms", 2nd ed., section 3.1, eq. 3.4). The fused paths
-// agree with each other only where their tiles do; they are not promised
-// to be bit-identical.
-//
-// Threads. Given an executor (core/parallel.hpp) with concurrency > 1, the
-// product is split into bands of whole tiles: bands of columns of C when C
-// is at least as wide as it is tall (each task packs its own slice of op(B)
-// and all of op(A)), bands of rows otherwise. Band edges fall on the same
-// tile grid as a single-threaded call and every element is computed by one
-// task in the same order, so results are bit-identical for any thread count.
-// On the blas path each band is one call of the BLAS, with band edges on a
-// grid of 16 rows or columns (columns counted from C's first 64-byte cache
-// line when every row of C starts at the same place in a line, so that two
-// threads never write one line); the BLAS should then run on one thread
-// (set_blas_threads(1)), or its threads and the executor's compete for the
-// cores. The bits are the same for any thread count only if the BLAS
-// computes a band as it computes the whole product: OpenBLAS 0.3.21 does on
-// the 784-256-128-10 network's products (bench/bench_perf.cpp says whether
-// one and two threads gave the same weights), but a BLAS may pick another kernel, and so
-// other rounding, for a smaller product (small-matrix kernels do), so tenon
-// does not promise it. Without an executor the BLAS threads the product
-// itself (OpenBLAS's threaded results differ in the last bits from its
-// one-thread results).
-//
-// Halves of k. On the blas path, the tape's dense-layer products x W that
-// are large enough to split (splits_inner) are computed as two products over
-// halves of k, added afterwards, on any number of threads, so their bits do
-// not depend on the thread count. With an executor the first half runs on
-// its task 0 and the second on task 1, and the gradient's bands of rows and
-// the update rules' bands (update/update_rule.hpp) put the same edge between
-// the rows of W: each thread reads and writes only its own rows of the
-// weight in a whole step. On the 2-core development machine a core writing
-// a cache line the other core had read paid about 190 us per MB against
-// 37 us for lines of its own (a Fashion-MNIST epoch on two threads went
-// from 1.34 to 0.99 times its products' time in OpenBLAS); splitting W's
-// columns instead does not avoid it, as each core's prefetchers then pull
-// in the other's columns of the same rows.
-//
-// Memory: the packed blocks live in per-thread scratch buffers that grow to
-// at most (mc + nc) * kc scalars and are reused, so steady-state calls do
-// not allocate. If the scratch cannot grow (allocation failure), the product
-// falls back to unpacked loops, which need no memory.
+// C = alpha * op(A) * op(B) + beta * C, op(X) being X or its transpose; with
+// beta == 0, C is written without being read. Method: blocked and packed
+// (Goto & van de Geijn 2008, "Anatomy of High-Performance Matrix
+// Multiplication"), with register tiles for AVX-512F, AVX2 + FMA, NEON or
+// plain C++ (or a configured BLAS), chosen at run time. On the built-in paths
+// the bits depend on the shape alone, not on the thread count; steady-state
+// calls do not allocate. Kernel paths, rounding, threads, the BLAS path's
+// caveats and memory: docs/design/gemm.md.
 #pragma once
 
 #include <algorithm>
@@ -123,7 +46,7 @@ extern "C" void openblas_set_num_threads(int) __attribute__((weak));
 
 TENON_NAMESPACE_BEGIN
 
-/// The implementations of the packed product (see the top of this file).
+/// The implementations of the packed product (see docs/design/gemm.md).
 enum class kernel_path : std::uint8_t { portable, avx2, avx512, blas, neon };
 
 inline const char* kernel_path_name(kernel_path p) noexcept {
@@ -191,7 +114,7 @@ inline void set_kernel_path(kernel_path p) {
 
 /// Asks the BLAS of the BLAS path to run each product on `threads` threads.
 /// With an executor, tenon splits the products across it and the BLAS
-/// should run on one (see "Threads" at the top of this file).
+/// should run on one (see docs/design/gemm.md, "Threads").
 /// Returns true when the linked BLAS offers a way to say so (OpenBLAS);
 /// false when it does not or the build has no BLAS: its own settings (e.g.
 /// an environment variable it reads) decide. Process-wide, like the BLAS's
@@ -833,7 +756,7 @@ struct gemm_split {
 
 }  // namespace detail
 
-/// C = alpha op(A) op(B) + beta C (see the top of this file), split across
+/// C = alpha op(A) op(B) + beta C (see docs/design/gemm.md), split across
 /// `workers` when given and the product is large enough.
 template <class T>
 void gemm(bool transpose_a, bool transpose_b, std::size_t m, std::size_t n, std::size_t k, T alpha, const T* a, std::size_t lda,

@@ -1,16 +1,13 @@
 // tenon: running independent tasks on several threads, under the host's control.
 //
 // tenon never starts a thread on its own. A host that wants its kernels to
-// use more than one core either builds a thread_pool of the size it chooses
-// or hands tenon its own scheduler by implementing `executor`; it then gives
-// that executor to the objects that should use it (tape::set_executor,
-// training_options::workers, model_settings::threads). Without one, every
-// kernel runs on the calling thread.
-//
-// Determinism: tenon splits work so that each output value is computed by
-// exactly one task, in an order that does not depend on how many tasks there
-// are (see core/gemm.hpp). Results are therefore bit-identical for any
-// executor and any thread count.
+// use more than one core builds a thread_pool of the size it chooses, or
+// implements `executor` over its own scheduler, and gives it to the objects
+// that should use it (tape::set_executor, training_options::workers,
+// model_settings::threads); without one, every kernel runs on the calling
+// thread. Work is split so that each output value is computed by one task in
+// an order independent of the task count, so results are bit-identical for
+// any executor and thread count (docs/design/gemm.md, "Threads").
 #pragma once
 
 #include <algorithm>

@@ -1,21 +1,13 @@
 // tenon: the seeded random engine and tenon's own distributions.
 //
-// The standard library's distributions are implementation-defined, so the
-// same seed gives different numbers with libstdc++ and libc++. tenon draws all
-// of its randomness (initial weights, shuffles, dropout masks, splits) from
-// this engine and these distributions, which are specified here bit for bit:
-//   - generator: xoshiro256** (Blackman & Vigna, "Scrambled linear
-//     pseudorandom number generators", ACM TOMS 2021), seeded by expanding the
-//     64-bit seed with SplitMix64 (Steele, Lea & Flood, OOPSLA 2014);
-//   - uniform reals: the top 53 (double) or 24 (float) bits scaled by 2^-53 or
-//     2^-24, giving [0, 1) exactly representable;
-//   - bounded integers: Lemire's nearly-divisionless method (Lemire, ACM TOMACS
-//     2019), unbiased;
-//   - normals: the Marsaglia polar method (Marsaglia & Bray, SIAM Review
-//     1964), computed in double; it needs only sqrt (correctly rounded by
-//     IEEE 754) and log, so results agree across compilers up to the last
-//     bit of the platform's log;
-//   - shuffles: Fisher-Yates in Durstenfeld's form (CACM 1964).
+// The standard library's distributions are implementation-defined (the same
+// seed gives other numbers with libstdc++ and libc++), so tenon draws all its
+// randomness (weights, shuffles, dropout masks, splits) from this engine and
+// these distributions, specified bit for bit: xoshiro256** (Blackman & Vigna
+// 2021) seeded by SplitMix64 (Steele, Lea & Flood 2014), top-bit uniform
+// reals, bounded integers (Lemire 2019), polar normals (Marsaglia & Bray
+// 1964), Fisher-Yates shuffles (Durstenfeld 1964). Full citations and how far
+// results agree across platforms: docs/design/randomness.md.
 #pragma once
 
 #include <array>

@@ -1,25 +1,12 @@
 // tenon: a thin, checked layer over an MPI communicator.
 //
-// tenon carries no transport of its own: processes talk through MPI (e.g.
-// Debian's libopenmpi-dev), linked through the optional CMake component
-// tenon::mpi, which also defines TENON_HAS_MPI. The core library never
-// includes this folder.
-//
-//   tenon::mpi_session session(argc, argv);     // MPI_Init unless already done
-//   tenon::communicator world;                  // MPI_COMM_WORLD
-//   world.sum(values, count);                   // allreduce, in place
-//
-// Every call that fails raises distributed.mpi.failed naming the MPI call
-// and MPI's own message: the communicator is switched to MPI_ERRORS_RETURN
-// so that a failure reaches the caller instead of aborting the job.
-//
-// A failure on one rank alone is another matter: MPI's collective calls
-// have no timeout, so ranks already waiting in one for the failed rank
-// would wait forever. end_mpi_job prints the failure and ends every process
-// of the job (MPI_Abort); an mpi_session that initialized MPI does the same
-// when an exception carries it out of its scope. A failure that every rank
-// detects alike, before any of them enters a collective call, may instead
-// end each rank normally.
+// tenon carries no transport of its own: processes talk through MPI, linked
+// through the optional CMake component tenon::mpi (TENON_HAS_MPI); the core
+// library never includes this folder. Every failing call raises
+// distributed.mpi.failed naming the MPI call and MPI's message (the
+// communicator uses MPI_ERRORS_RETURN). A failure on one rank alone must end
+// the whole job (end_mpi_job), since MPI's collective calls have no timeout.
+// Usage and the reasoning: docs/design/distributed.md.
 #pragma once
 
 #include <cstddef>

@@ -1,71 +1,13 @@
 // tenon: synchronous data-parallel training over MPI.
 //
 // Every rank runs the same trainer with the same seed and settings; an
-// mpi_team makes the ranks one training team (train/trainer.hpp, "Teams").
-// Usually each rank holds only its own shard of the rows:
-//
-//   tenon::mpi_session session(&argc, &argv);
-//   tenon::communicator world;
-//   tenon::mpi_team team(world);
-//   tenon::mpi_statistics_exchange exchange(world);   // distributed/plan_merge.hpp
-//   settings.team = &team;                              // model_settings
-//   settings.member_rows = tenon::team_rows::shard_per_member;
-//   settings.exchange = &exchange;                      // one plan over all shards
-//   auto model = tenon::fit_model<float>(my_table, preparation, my_train, my_validation, settings);
-//   if (world.rank() == 0) save(...);                  // every rank holds the same weights
-//
-//  - Shards (team_rows::shard_per_member): each rank passes only its own
-//    rows (e.g. deal_rows of a split, or the part of a file it read) and
-//    shuffles them with an engine stream of its own. Step k takes each
-//    rank's next batch_size rows, so the global batch is batch_size x ranks
-//    rows while every shard lasts; an epoch has as many steps as the largest
-//    shard has batches, a rank whose shard is used up joining the remaining
-//    steps with no rows (its gradient weighs 0). A rank's prepared matrices
-//    hold its shard only; the plan is measured over all shards
-//    (measure_plan_across, or fit_model with the exchange).
-//  - All rows on every rank (team_rows::all_on_every_member, the trainer's
-//    default): every rank passes all rows and shuffles them alike; rank r
-//    takes the shuffled positions congruent to r modulo the rank count of
-//    each global batch of batch_size x ranks rows.
-//  - Equivalence, for a network without dropout or batch normalization and
-//    up to the order of the floating-point sums (tests/test_distributed.cpp):
-//    with all rows on every rank, p ranks train the weights of one process
-//    with batch_size x p, shuffled or not; with shards and without shuffling
-//    (training_options::shuffle false), the weights of one process with
-//    batch_size x p given the ranks' batches end to end (rank 0's batch 0,
-//    rank 1's batch 0, ..., rank 0's batch 1, ...). With shards and
-//    shuffling the run is deterministic in seed, rank count and shards, but
-//    no single process draws the same batches.
-//  - Per step one MPI_Allreduce sums one contiguous buffer: every trainable
-//    gradient weighted by the rank's share of the global batch's loss, the
-//    weights, the loss, and the divergence, cancellation and time flags.
-//    The averaged gradient is the gradient of the global batch's loss.
-//  - Validation: each rank scores its validation shard (with all rows on
-//    every rank: every p-th validation row); losses and metrics are summed,
-//    so early stopping is decided on the same numbers everywhere.
-//    Cancellation, the wall-clock budget and the epoch observer stop all
-//    ranks when any rank asks.
-//  - Failures: before the first step the ranks share whether their own
-//    checks failed (rows, options, preparation in fit_model): the failed
-//    ranks throw their error, the others train.team.member_failed; then
-//    differing settings throw train.team.mismatch everywhere. A rank that
-//    fails alone later, while the others may wait in a collective call,
-//    must end the job: end_mpi_job (distributed/communicator.hpp), as the
-//    tenon tool does.
-//  - Dropout draws its masks from each layer's own engine, as alone, for the
-//    rows of the rank's share: a rank's masks equal those a single process
-//    draws for a batch of batch_size rows, not those it draws for the global
-//    batch. Give each rank another dropout seed (seed_dropout_per_rank) so
-//    the ranks' masks are independent; without it every rank draws the same
-//    mask sequence for different rows.
-//  - Batch normalization normalizes with the statistics of the rank's own
-//    batch of batch_size rows (not of the global batch), and its running
-//    statistics are averaged over the ranks after every epoch.
-//
-// Cost: each step sends and receives about 2 (p - 1) / p of the gradient's
-// bytes per rank with a ring allreduce (Patarasuk & Yuan 2009, "Bandwidth
-// optimal all-reduce algorithms for clusters of workstations", JPDC 69(2));
-// see bench/bench_distributed.cpp and ring_allreduce_seconds below.
+// mpi_team makes the ranks one training team (docs/design/trainer.md,
+// "Teams"). Each rank holds its own shard of the rows, or all rows; per step
+// one MPI_Allreduce sums the weighted gradients and the run's flags, so every
+// rank takes the same step and the same stop decision and ends with the same
+// weights. Usage, equivalence with one process, failures, dropout, batch
+// normalization and the cost of a step (a ring allreduce, Patarasuk & Yuan
+// 2009): docs/design/distributed.md.
 #pragma once
 
 #include <cstddef>

@@ -1,30 +1,13 @@
 // tenon: fleet averaging of models retrained on many devices.
 //
-// Devices that each retrain a deployed model locally (train/retraining.hpp)
-// send their weights and sample counts; a coordinator forms the
-// sample-weighted average of the weights, federated averaging (McMahan,
-// Moore, Ramage, Hampson & Agüera y Arcas 2017, "Communication-Efficient
-// Learning of Deep Networks from Decentralized Data", AISTATS, Algorithm 1:
-// w = sum_k n_k / n w_k), and the average goes through the same promotion
-// gate as a local retraining before it is deployed (gate_fleet_average).
-//
-// Everything is bytes in, bytes out, so a host carries them over its own
-// channel (the tests carry them over MPI; this header needs no MPI):
-//   device:       bytes = fleet_contribution_bytes(retrained_file, rows_trained_on);
-//   coordinator:  auto avg = average_fleet(incumbent_file, received_bytes);
-//                 auto verdict = gate_fleet_average(incumbent_file, avg.model, holdout_table);
-//                 if (verdict.decision.promoted) save_model_file(path, avg.model);
-//
-// A contribution is refused, with its reason, when its bytes are damaged,
-// when its architecture or preparation plan differs from the incumbent's
-// (compared by FNV-1a 64 fingerprints of their serialized bytes, then by
-// the bytes themselves), when it claims no samples, or when a weight is not
-// finite. Refusals are reported, never averaged.
-//
-// Contribution layout (little-endian): "TNFC", version u16 (1), reserved u16,
-// samples u64, architecture fingerprint u64, plan fingerprint u64, model
-// file length u64, the model file's bytes (format/model_file.hpp), CRC-32
-// of everything before it (u32).
+// Devices that retrain a deployed model locally send their weights and sample
+// counts as bytes; a coordinator forms the sample-weighted average (federated
+// averaging, McMahan et al. 2017, "Communication-Efficient Learning of Deep
+// Networks from Decentralized Data", Algorithm 1) and passes it through the
+// same promotion gate as a local retraining (gate_fleet_average). Damaged or
+// mismatched contributions are refused with their reason, never averaged.
+// Bytes in, bytes out: no MPI needed. Usage, refusal rules and the
+// contribution layout: docs/design/distributed.md.
 #pragma once
 
 #include <cmath>

@@ -1,23 +1,12 @@
 // tenon: one preparation plan measured over the ranks' shards of the rows.
 //
 // When every rank holds only its own shard of the training rows, each
-// measures the plan on its shard and the statistics are merged
-// (prep/statistics.hpp, statistics_exchange), so every rank gets the plan a
-// single process would measure on all rows:
-//   - means and variances (z-score, mean fill) and minimum / maximum
-//     (min-max): the ranks' running moments merged in rank order with the
-//     pairwise formulas of Chan, Golub & LeVeque (1979), equal to a single
-//     pass up to rounding;
-//   - category and class sets: the union, sorted as a single measurement
-//     sorts them; most frequent category: counts summed;
-//   - medians, quartiles (median-IQR scaling, median fill) and numeric modes:
-//     exact, from the present values of the column gathered on every rank
-//     (memory grows with all ranks' rows for those columns only).
-//
-//   tenon::measured_plan p = tenon::measure_plan_across(preparation, my_table, my_rows, world);
-//
-// All ranks must pass tables with the same columns of the same kinds
-// (checked first: distributed.plan.mismatch on every rank otherwise).
+// measures the plan on its shard and the statistics are merged (moments by
+// the pairwise formulas of Chan, Golub & LeVeque 1979; category sets by
+// union; quantiles and modes exactly, from the gathered values), so every
+// rank gets the plan a single process would measure on all rows. Ranks whose
+// tables differ in columns or kinds raise distributed.plan.mismatch. What is
+// merged how, and its memory: docs/design/distributed.md.
 #pragma once
 
 #include <algorithm>
@@ -107,8 +96,8 @@ private:
     communicator& comm_;
 };
 
-/// `preparation` measured on every rank's `rows` of its own `t` together (see the
-/// top of this file); collective, the same plan on every rank.
+/// `preparation` measured on every rank's `rows` of its own `t` together (see
+/// docs/design/distributed.md); collective, the same plan on every rank.
 inline measured_plan measure_plan_across(const plan& preparation, const table& t, const std::vector<std::size_t>& rows, communicator& c) {
     mpi_statistics_exchange exchange(c);
     require_same_columns(t, exchange, "measure_plan_across");  // same columns, same kinds, on every rank

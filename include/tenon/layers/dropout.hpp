@@ -2,14 +2,11 @@
 // 2014, "Dropout: a simple way to prevent neural networks from overfitting",
 // JMLR 15, section 4).
 //
-// In training mode each value is kept with probability 1 - rate and dropped
-// otherwise. Kept values are scaled by 1 / (1 - rate) during training
-// ("inverted" dropout, common practice) so that inference passes values
-// through unchanged instead of scaling the weights as in the paper's
-// section 10. The mask comes from the layer's own seeded engine, one draw per
-// value in row-major order, and is regenerated at every training forward; its
-// buffer is reused, and the tape copies it into a node buffer it also reuses,
-// so steady-state steps allocate nothing.
+// In training mode each value is kept with probability 1 - rate and scaled by
+// 1 / (1 - rate) ("inverted" dropout, common practice), so inference passes
+// values through unchanged. The mask comes from the layer's own seeded
+// engine, one draw per value in row-major order; its buffers are reused, so
+// steady-state steps allocate nothing. More: docs/design/layers.md.
 #pragma once
 
 #include <cstdint>

@@ -1,20 +1,12 @@
 // tenon: initial values for weights.
 //
-// Every scheme draws from a tenon::random_engine through its own uniform and
-// normal distributions (core/random.hpp), never from the standard library's,
-// so a seed gives the same weights with every standard library and compiler.
-// The variance targets:
-//   - Glorot (Glorot & Bengio 2010, "Understanding the difficulty of training
-//     deep feedforward neural networks", eq. 12 and the normalized
-//     initialization of eq. 16): Var = 2 / (fan_in + fan_out); the uniform
-//     form draws from [-a, a] with a = sqrt(6 / (fan_in + fan_out)).
-//   - He (He, Zhang, Ren & Sun 2015, "Delving deep into rectifiers", eq. 10):
-//     Var = 2 / fan_in, for rectifier networks.
-//   - LeCun (LeCun, Bottou, Orr & Mueller 1998, "Efficient BackProp",
-//     section 4.6): Var = 1 / fan_in.
-// Each method draws from either distribution (init_distribution): a uniform
-// distribution on [-a, a] has variance a^2 / 3, so the uniform form uses
-// a = sqrt(3 Var); the normal form is untruncated.
+// Glorot (Glorot & Bengio 2010, eq. 12 and 16: Var = 2 / (fan_in + fan_out)),
+// He (He et al. 2015, eq. 10: Var = 2 / fan_in) and LeCun (LeCun et al. 1998,
+// section 4.6: Var = 1 / fan_in), each drawn from a uniform distribution on
+// [-a, a] with a = sqrt(3 Var) or an untruncated normal (init_distribution).
+// Every scheme draws from a tenon::random_engine through tenon's own
+// distributions, so a seed gives the same weights with every standard library
+// and compiler. Full citations: docs/design/randomness.md.
 #pragma once
 
 #include <cmath>

@@ -1,16 +1,12 @@
 // tenon: the layer interface and the architecture record.
 //
 // A layer turns a batch x features value on a tape into another one. It owns
-// its parameters (learned by the update rules) and its state buffers
-// (non-trainable values such as population estimates, saved with the weights
-// but never updated by gradients). Parameters are named "<layer>.<role>",
-// e.g. "hidden1.weights"; layers nested in a block get the block's name as a
-// prefix ("block1.dense1.weights").
-//
-// describe() gives a layer_record: the kind, the name, named numbers (sizes,
-// options) and texts, and nested records for blocks. It holds the
-// architecture only, not the weights; network.hpp rebuilds a layer from it,
-// and to_bytes()/record_from_bytes() turn it into bytes and back exactly.
+// its parameters (named "<layer>.<role>", e.g. "hidden1.weights", with a
+// block's name as a further prefix) and its state buffers (non-trainable
+// values saved with the weights). describe() gives a layer_record, the
+// architecture without the weights, from which network.hpp rebuilds the
+// layer and which turns into bytes and back exactly. More:
+// docs/design/layers.md.
 #pragma once
 
 #include <cmath>

@@ -1,28 +1,13 @@
 // tenon: layer normalization and batch normalization.
 //
-// Layer normalization (Ba, Kiros & Hinton 2016, "Layer Normalization",
-// eq. 4) normalizes each row (sample) over its features:
-//   y = (x - mean_row) / sqrt(var_row + epsilon) * gain + bias.
-// Batch normalization (Ioffe & Szegedy 2015, "Batch Normalization:
-// Accelerating Deep Network Training by Reducing Internal Covariate Shift",
-// Algorithm 1) normalizes each column (feature) over the batch in training
-// mode and keeps estimates of the population mean and variance (the paper's
-// words, E[x] and Var[x] of Algorithm 2, step 10); inference mode uses those
-// estimates instead of the batch's (Algorithm 2, steps 8-11). The estimates
-// are exponential moving averages in which each new batch's statistic has
-// weight batch_weight,
-//   population = (1 - batch_weight) population + batch_weight * batch statistic,
-// (common practice; the paper averages over many mini-batches), with the
-// unbiased variance m / (m - 1) * var_batch (Algorithm 2, step 10). Both use
-// the biased batch variance to normalize, as Algorithm 1 does. epsilon = 1e-5
-// and batch_weight = 0.1 (the estimates forget a batch's share by a factor e
-// in about 10 batches) are common practice.
-//
-// Both are composed of tape operations, so their gradients follow from the
-// tape's; the population estimates are non-trainable state buffers. Model
-// files written before these names stored the estimates as "running_mean"
-// and "running_variance" and the coefficient as "momentum"; the model-file
-// reader and make_layer map those names (detail::current_state_name).
+// Layer normalization (Ba, Kiros & Hinton 2016, eq. 4) normalizes each row
+// over its features. Batch normalization (Ioffe & Szegedy 2015, Algorithms 1
+// and 2) normalizes each column over the batch in training mode and keeps
+// moving-average estimates of the population mean and (unbiased) variance,
+// which inference mode uses instead. Both are composed of tape operations;
+// the estimates are non-trainable state buffers (older model files' names for
+// them are mapped by detail::current_state_name). Formulas, defaults and
+// their sources: docs/design/layers.md.
 #pragma once
 
 #include <cmath>

@@ -1,17 +1,12 @@
 // tenon: classification losses: cross-entropy from logits (class labels or
 // probability targets), binary cross-entropy from logits, KL divergence.
 //
-// Logits are a var of shape rows x K. Cross-entropy uses the tape's
-// log_softmax_rows, which subtracts the row maximum before exponentiating,
-// so large logits neither overflow nor lose the loss to rounding:
-//   loss_i = -sum_j q_ij log softmax(z_i)_j,
-// (the cross-entropy of the target distribution q against the softmax of the
-// logits; Bishop 2006, "Pattern Recognition and Machine Learning", eq. 4.108).
-// The target, its smoothing and the weights are folded into one constant
-// matrix Q, so the loss is -sum(log_softmax(z) * Q), recorded as one fused
-// tape node (tape::softmax_cross_entropy: per row the maximum, the sum of
-// exponentials and the loss; backward (sum_j Q_ij) softmax - Q).
-// The reduction and the weights follow loss_options.hpp.
+// Cross-entropy is loss_i = -sum_j q_ij log softmax(z_i)_j (Bishop 2006,
+// "Pattern Recognition and Machine Learning", eq. 4.108), with the row
+// maximum subtracted so large logits neither overflow nor lose the loss to
+// rounding; target, smoothing and weights fold into one matrix Q, recorded as
+// one fused tape node. The reduction and the weights follow loss_options.hpp.
+// How the fused node works: docs/design/losses.md.
 #pragma once
 
 #include <cmath>

@@ -1,19 +1,12 @@
 // tenon: options shared by the losses, and their weighting rule.
 //
-// Every loss returns a 1x1 value on the tape. With per-sample weights s_i and
-// class weights c (a sample's class weight is its target's expected class
-// weight, c_y for a class label), sample i carries the weight
-// w_i = s_i * c(i), and
-//   mean reduction: sum_i w_i loss_i / sum_i w_i,
-//   sum reduction:  sum_i w_i loss_i,
-// so with no weights "mean" is the plain average. For the elementwise
-// losses (L1, L2, Huber, binary cross-entropy) loss_i is the sum over the
-// row's columns and the mean also divides by the number of columns, i.e. it
-// is the (weighted) mean over all elements. Cross-entropy and KL divergence
-// sum over the classes of a row and average over rows.
-//
-// Weights are copied onto the tape through a per-thread scratch buffer that
-// keeps its capacity, so steady-state steps allocate nothing.
+// Every loss returns a 1x1 value on the tape. Sample i carries the weight
+// w_i = s_i * c(i) (its sample weight times its target's class weight); the
+// mean reduction is sum_i w_i loss_i / sum_i w_i, the sum reduction
+// sum_i w_i loss_i, so with no weights "mean" is the plain average (over all
+// elements for the elementwise losses, over rows for cross-entropy and KL
+// divergence). Steady-state steps allocate nothing. The rule in full:
+// docs/design/losses.md.
 #pragma once
 
 #include <cmath>

@@ -1,32 +1,12 @@
 // tenon: reading delimited text (CSV) into a table, or streaming it row by row.
 //
-// The grammar is RFC 4180 (Shafranovich, 2005), section 2: fields separated
-// by a delimiter (',' by default, configurable), records ended by CRLF (a
-// bare LF or a bare CR is accepted too), a field may be enclosed in double
-// quotes and then hold delimiters, line breaks and quotes written twice ("").
-// A quote inside an unquoted field, or anything but a delimiter or line end
-// right after a closing quote, is an error (rule 5 and 7 of section 2). A
-// UTF-8 byte-order mark (EF BB BF) at the start is skipped. Lines that are
-// entirely empty are skipped (they carry no record). The first record is the
-// header and names the columns.
-//
-// The input is read in chunks of `chunk_bytes`, so streaming a file larger
-// than memory (for_each_csv_record, summarize_csv) keeps only one record and
-// one chunk in memory; read_csv keeps the whole table.
-//
-// A file's dialect (delimiter, decimal comma) is given in csv_options or
-// told from its first rows by detect_csv_dialect, which refuses files whose
-// reading would be a guess.
-//
-// Errors name the source, the line (1-based, where the record starts) and the
-// column: "[prep.csv.ragged] data.csv line 7: expected 4 fields, found 5".
-//
-// Limits (csv_options, prep.csv.oversize): a field holds at most
-// max_field_bytes (64 KiB) and a categorical column at most max_categories
-// (65,536) distinct texts. A cell of a plant export is a number, a time, a
-// code or a short note; a field of megabytes, or a column of a million
-// levels (one-hot encoded, a million inputs), is a damaged file or a column
-// that is not a category, and would take memory far beyond the file's size.
+// The grammar is RFC 4180 (Shafranovich, 2005), section 2, with a
+// configurable delimiter, bare LF or CR line ends, a skipped UTF-8 byte-order
+// mark and skipped empty lines; the first record names the columns. Streaming
+// keeps one record and one chunk in memory. detect_csv_dialect tells the
+// delimiter and decimal mark from the first rows and refuses to guess. Errors
+// name the source, the line and the column; fields and category counts are
+// bounded (prep.csv.oversize). Grammar, limits and why: docs/design/prep.md.
 #pragma once
 
 #include <cerrno>

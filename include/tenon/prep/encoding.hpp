@@ -1,15 +1,11 @@
 // tenon: encoding categories as numbers.
 //
-// one_hot_layout turns a categorical cell into a block of 0/1 slots (one-hot
-// encoding). Its category order is fixed when it is built from the training
-// rows (sorted by byte value, so it does not depend on row order), and a
-// category never seen in training follows a policy: fail, all zeros, or a
-// final 'other' slot. With omit_reference_level the first category (the
-// reference level) is written as all zeros, which removes the linear
-// dependence between the slots (common practice for linear models).
-//
-// class_index maps class labels to indices 0..k-1 and back; it travels with
-// the measured plan so predictions can be named.
+// one_hot_layout turns a categorical cell into a block of 0/1 slots, in a
+// category order fixed from the training rows (sorted by byte value, not by
+// row order); a category never seen in training fails, gives all zeros, or
+// takes a final 'other' slot, by policy. class_index maps class labels to
+// indices 0..k-1 and back, and travels with the measured plan so predictions
+// can be named. The reference-level option: docs/design/prep.md.
 #pragma once
 
 #include <algorithm>

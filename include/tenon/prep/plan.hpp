@@ -1,30 +1,13 @@
 // tenon: the preparation plan, measured on training rows only.
 //
-// A `plan` records column roles (feature, target, ignored, group, time) and
-// the steps of each feature column (imputation, missing indicator, scaling,
-// one-hot encoding). It holds no statistics and has no way to prepare rows.
+// A `plan` records column roles and each feature column's steps (imputation,
+// missing indicator, scaling, one-hot encoding) but no statistics.
 // `plan::measure(table, training_rows)` learns every statistic from the
-// given training rows alone and returns a `measured_plan`, the only type
-// with apply functions. It applies the same learned state, unchanged, to
-// training, validation, test and new rows, so nothing learned from
-// validation or test rows can leak into training.
-//
-// Feature layout, one block per feature column in table order:
-//   numeric / date-time  1 scaled value          name
-//   categorical          one-hot slots           name=category ..., name=<other>
-//   date-time cycles     6 values                name#hour_sin, name#hour_cos,
-//                                                name#weekday_sin, name#weekday_cos,
-//                                                name#yearday_sin, name#yearday_cos
-//                                                (if chosen, after the scaled value)
-//   missing indicator    1 value (1 = missing)   name#missing   (if chosen)
-// Scalings are measured on the present training cells (before imputation).
-//
-// Rows whose target is missing are dropped and counted: when measuring
-// (measured_plan::dropped_training_rows) and when applying
-// (prepared_rows::dropped_missing_target). Never silently.
-//
-// The learned state serializes to a versioned little-endian byte format of
-// tenon's own (to_bytes / from_bytes), which model files embed.
+// training rows alone and returns a `measured_plan`, the only type that
+// prepares rows, applying the same state to training, validation, test and
+// new rows, so nothing leaks into training. Rows without a target are dropped
+// and counted, never silently. The state serializes to bytes model files
+// embed. Feature layout and names: docs/design/prep.md.
 #pragma once
 
 #include <algorithm>

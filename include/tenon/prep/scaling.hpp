@@ -1,16 +1,11 @@
 // tenon: scaling a numeric column, and undoing it.
 //
-// Every method is an affine map learned from the training rows:
-//   min-max  y = low + (x - min) / (max - min) * (high - low)   ([0, 1] by default)
-//   z-score  y = (x - mean) / standard deviation (population, divisor n)
-//   median-IQR  y = (x - median) / interquartile range
-// The mean and deviation come from running_moments (Welford 1962), the
-// median and quartiles from exact_quantile (Hyndman & Fan 1996, def. 7).
-//
-// Constant columns: when the spread (max - min, deviation or IQR) is zero or
-// not finite, the spread is taken as 1, so the column maps to 0 (z-score,
-// median-IQR) or to `low` (min-max) without a division by zero, and the inverse
-// still returns the constant.
+// Every method (min-max, z-score, median-IQR) is an affine map learned from
+// the training rows; moments come from running_moments (Welford 1962),
+// quantiles from exact_quantile (Hyndman & Fan 1996, def. 7). A column whose
+// spread is zero or not finite takes the spread as 1, so it maps to 0 (or to
+// `low`) without a division by zero and the inverse returns the constant.
+// The formulas: docs/design/prep.md.
 #pragma once
 
 #include <algorithm>

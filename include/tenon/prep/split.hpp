@@ -1,19 +1,9 @@
-// tenon: split policies. Each returns row indices (sorted ascending within a
-// subset), is seeded and deterministic (tenon::random_engine, the same
-// numbers on every platform), and raises a clear error for a request it
-// cannot meet instead of returning an empty or lopsided subset.
-//
-//   random_holdout         shuffled train / validation / test by fractions
-//   stratified_holdout     the same, per class: each class's count in each
-//                          subset is within one row of its share
-//   k_folds                k folds of (nearly) equal size
-//   stratified_k_folds     k folds, each class dealt evenly over the folds
-//   chronological_holdout  ordered by time, no shuffling: the test rows are
-//                          the latest, the validation rows just before them
-//   rolling_origin_folds   walk-forward folds: train on everything before the
-//                          origin, test on the next `horizon` rows
-//   grouped_holdout        whole groups (a machine, a batch) go to one subset
-//   group_k_folds          whole groups go to one fold
+// tenon: split policies: holdouts and k folds, random, stratified by class,
+// chronological (walk-forward) or by group. Each returns row indices (sorted
+// ascending within a subset), is seeded and deterministic (tenon's engine,
+// the same numbers on every platform), and raises a clear error for a request
+// it cannot meet instead of returning an empty or lopsided subset. The list
+// of policies: docs/design/prep.md.
 #pragma once
 
 #include <algorithm>

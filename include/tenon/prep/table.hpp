@@ -2,14 +2,10 @@
 // with a missing mask.
 //
 // Numbers and date/times are stored as double (date/times as seconds since
-// 1970-01-01T00:00:00Z); categories as a small integer code per row plus the
-// list of category texts in order of first appearance. A missing cell has
-// its mask byte set; its stored value is unspecified (0 or code 0).
-//
-// A table read from a CSV file keeps each row's line in the file (the line
-// where its record starts, 1-based), so messages about a row name the line
-// a person opens the file at, the same line the tool reports:
-// "press_log.csv line 11" rather than row index 9 (row_place).
+// 1970-01-01T00:00:00Z), categories as a code per row plus the texts in order
+// of first appearance. A table read from CSV keeps each row's line in the
+// file, so messages name the line a person opens the file at (row_place).
+// Storage details: docs/design/prep.md.
 #pragma once
 
 #include <cstddef>

@@ -1,20 +1,12 @@
 // tenon: evaluation metrics for classification and regression.
 //
-// Classification: accuracy, the confusion matrix (rows: true class, columns:
-// predicted class), per-class precision, recall and F1 with their macro
-// averages, and log loss. Regression: mean absolute error, root mean squared
-// error and the coefficient of determination R^2. Definitions follow
-// Sokolova & Lapalme, "A systematic analysis of performance measures for
-// classification tasks", Information Processing & Management 45 (2009),
-// table 3 (per-class and macro-averaged measures).
-//
-// Conventions where a ratio is 0/0 (documented, and common practice):
-//   - precision of a class never predicted is 0; recall of a class absent
-//     from the truth is 0; F1 is 0 when precision + recall is 0;
-//   - the macro averages run over every class in [0, class_count);
-//   - R^2 of a constant truth is 1 if every prediction is exact, else 0;
-//   - log loss clips probabilities to [1e-15, 1 - 1e-15] so that one
-//     confident mistake gives a large but finite loss.
+// Classification: accuracy, the confusion matrix (rows: true class), per-class
+// precision, recall and F1 with macro averages (Sokolova & Lapalme 2009,
+// table 3), and log loss. Regression: mean absolute error, root mean squared
+// error and R^2. Where a ratio is 0/0 the result is defined (common
+// practice): a precision, recall or F1 is 0; R^2 of a constant truth is 1 if
+// every prediction is exact, else 0; log loss clips probabilities to
+// [1e-15, 1 - 1e-15]. Full conventions: docs/design/evaluation.md.
 #pragma once
 
 #include <algorithm>

@@ -1,16 +1,12 @@
 // tenon: a self-contained SVG report of a training run.
 //
-// Two panels: training and validation loss per epoch (with the epoch whose
-// weights were kept marked), and, for classification, the test confusion
-// matrix as a heat map whose cell shade is the share of the true class's rows
-// (row-normalized, on tenon's own parchment-ochre-umber scale, heat_colour)
-// with the raw count written in the cell. With a calibration, a third
-// panel: for regression the test rows' true values against the predictions
-// with each row's band, for classification a reliability diagram (Guo et
-// al. 2017, figure 1: accuracy per confidence bin) before and after
-// temperature scaling. No scripts, no
-// external fonts or styles: the file opens in any browser and can be archived
-// beside the model.
+// Panels: training and validation loss per epoch; for classification the test
+// confusion matrix as a row-normalized heat map (heat_colour); with a
+// calibration, predictions against truth with their bands (regression) or a
+// reliability diagram before and after temperature scaling (Guo et al. 2017,
+// figure 1). No scripts, fonts or styles from outside: the file opens in any
+// browser and can be archived beside the model. The panels in detail:
+// docs/design/evaluation.md.
 #pragma once
 
 #include <algorithm>

@@ -1,78 +1,13 @@
 // tenon: the trainer.
 //
-// A trainer runs epochs of seeded, shuffled mini-batches over prepared data:
-// forward, loss, backward, one update; then a validation pass in inference
-// mode. It keeps the weights of the epoch with the lowest validation loss and
-// stops for one of the reasons in stop_reason:
-//   - the epoch limit;
-//   - early stopping: `patience` epochs in a row without the validation loss
-//     improving on the best by more than `min_improvement` (the best weights
-//     are restored: Prechelt, "Early Stopping - But When?", 1998, section 2);
-//   - the wall-clock budget, read from an injectable clock, checked after
-//     every batch;
-//   - cooperative cancellation through a flag the host sets from any thread,
-//     checked after every batch;
-//   - divergence: a non-finite loss or gradient restores the weights and
-//     update-rule state from the start of the epoch, multiplies the learning
-//     rate by `divergence_rate_factor` and retries the epoch, at most
-//     `divergence_retries` times.
-// With the same seed, data and options, two runs give bit-identical weights
-// (every random draw comes from tenon's engine, and the matrix products give
-// the same bits for any number of worker threads, see core/gemm.hpp).
-//
-// Allocation: the trainer keeps one tape for full batches and one for the
-// last, shorter batch of an epoch, so after the first epoch a training step
-// records into buffers it already has.
-//
-// Shuffling: with training_options::shuffle (the default) the rows are
-// shuffled at the start of every epoch; without it every epoch takes them in
-// the order given (for data whose order matters, or for runs that must be
-// compared batch by batch).
-//
-// Teams: with training_options::team, several trainers (one per process,
-// e.g. MPI ranks, see distributed/data_parallel.hpp) train one model
-// together. training_options::member_rows says how the members hold the
-// training rows:
-//   - team_rows::all_on_every_member: every member passes all training rows
-//     and shuffles them with the same seed; global batch b of an epoch holds
-//     the shuffled positions [b G, (b + 1) G) with G = batch_size x members,
-//     and member m takes the positions congruent to m modulo the member
-//     count (round robin), so a member's batch holds batch_size rows.
-//   - team_rows::shard_per_member: every member passes only its own shard of
-//     the training (and validation) rows, of any size from one row up, and
-//     shuffles it with an engine stream of its own (fixed by the seed and the
-//     member index). Step b of an epoch takes each member's shuffled rows
-//     [b batch_size, (b + 1) batch_size); the global batch is the members'
-//     batches together, batch_size x members rows while every shard lasts.
-//     An epoch has as many steps as the largest shard has batches (the
-//     members' row counts are exchanged once when run() starts); a member
-//     whose shard is used up takes part in the remaining steps with no rows.
-//     Without shuffling, global batch b is member 0's batch b, then member
-//     1's, and so on: one trainer given those batches in that order with
-//     batch_size x members trains the same weights up to the order of sums.
-// After backward, each member's gradient is weighted by its batch's loss
-// weight (its row count, or the sum of its rows' class weights; 1 with the
-// sum reduction; 0 for a member without rows in the step), all are summed
-// in one fused buffer, and divided by the total weight: the gradient of the
-// loss of the whole global batch, as one trainer with that batch computes
-// it, up to the order of the sums. Every decision that ends or changes the
-// run is taken on summed values, so all members take it together: a
-// non-finite loss or gradient on any member, cancellation or a spent budget
-// on any member (read with the step's sum, so a request made after step k
-// stops every member after step k + 1), the validation loss and metric
-// (with all rows on every member each scores every m-th validation row;
-// with shards each scores its own; the sums give the whole set's), and a
-// stop asked by any member's epoch observer.
-// Before the first step the members also agree on failing: when the checks
-// of run() fail on some members (rows, options, a resumed state), those
-// throw their own error and all others train.team.member_failed, so no
-// member is left waiting in a collective call; then the members compare
-// their settings (rows with all rows on every member, columns, outputs,
-// batch size, seed, epochs, patience, loss, shuffling, row holding, network
-// size) and all throw train.team.mismatch when any differs.
-// State buffers (batch-normalization population estimates) are averaged over
-// the members after every epoch; during training each member normalizes
-// with its own batch's statistics.
+// A trainer runs epochs of seeded, shuffled mini-batches over prepared data
+// (forward, loss, backward, one update, then validation in inference mode),
+// keeps the weights of the epoch with the lowest validation loss, and stops
+// at the epoch limit, by early stopping (Prechelt 1998), on a wall-clock
+// budget, on cancellation, or after repeated divergence (stop_reason). The
+// same seed, data and options give bit-identical weights for any thread
+// count. Several trainers can train one model as a team (training_team).
+// Stop rules, allocation and teams in detail: docs/design/trainer.md.
 #pragma once
 
 #include <algorithm>
@@ -158,7 +93,7 @@ struct training_outcome {
 
 
 /// How the members of a training team hold the training rows (see "Teams"
-/// at the top of this file).
+/// in docs/design/trainer.md).
 enum class team_rows : std::uint8_t {
     /// Every member passes all training rows; each takes its part of every
     /// global batch from one shuffle shared by all.
@@ -168,7 +103,7 @@ enum class team_rows : std::uint8_t {
     shard_per_member
 };
 
-/// The members of a team of trainers (see the top of this file). Every call
+/// The members of a team of trainers (docs/design/trainer.md, "Teams"). Every call
 /// is collective: all members make the same calls in the same order, each
 /// returning when all have made it.
 class training_team {
@@ -262,7 +197,7 @@ struct training_options {
     /// the batch of each member. Must outlive run().
     training_team* team = nullptr;
     /// How the team's members hold the training and validation rows (see
-    /// "Teams" at the top of this file); every member gives the same choice.
+    /// "Teams" in docs/design/trainer.md); every member gives the same choice.
     team_rows member_rows = team_rows::all_on_every_member;
     /// Shuffle the training rows at the start of every epoch; false takes
     /// them in the order given, every epoch.

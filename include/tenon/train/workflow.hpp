@@ -1,16 +1,13 @@
 // tenon: from a table to a validated model in a few lines.
 //
-//   tenon::plan p;                       // column roles and preparation steps
-//   p.set_target("fault", tenon::target_kind::classification);
+//   tenon::plan p;  p.set_target("fault", tenon::target_kind::classification);
 //   auto split = tenon::stratified_holdout(...);
 //   auto model = tenon::fit_model<float>(table, p, split.train, split.validation, settings);
 //   auto test  = tenon::evaluate_model(model, table, split.test);
 //
-// fit_model measures the plan on the training rows only, prepares training
-// and validation rows with it, builds a multilayer perceptron and trains it
-// with early stopping. evaluate_model scores rows in the target's original
-// units. cross_validate repeats both per fold, refitting the plan and the
-// network each time, and reports each metric's mean and standard deviation.
+// fit_model measures the plan on the training rows only, builds a multilayer
+// perceptron and trains it with early stopping; evaluate_model scores rows in
+// the target's units; cross_validate repeats both per fold, refitting each time.
 #pragma once
 
 #include <cmath>
@@ -140,7 +137,7 @@ struct model_settings {
     /// calls fit_model with the same settings, and with the same table and
     /// rows unless the members hold shards (`member_rows`).
     training_team* team = nullptr;
-    /// How the team's members hold the rows (train/trainer.hpp, "Teams").
+    /// How the team's members hold the rows (docs/design/trainer.md, "Teams").
     /// With team_rows::shard_per_member each member passes its own shard of
     /// the training and validation rows (of its own table, with the same
     /// columns as the others'): the plan is measured over all members'

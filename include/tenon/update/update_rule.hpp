@@ -2,45 +2,12 @@
 // the rule's state as bytes.
 //
 // apply(parameters, learning_rate) makes one pass over each trainable
-// parameter's value and gradient; frozen parameters (trainable() false) are
-// skipped. Before the rule sees a gradient element g of a weight w, it becomes
-//   g' = clip_value(g * norm_scale) + weight_decay * w,
-// where norm_scale = min(1, clip_global_norm / ||all gradients||_2)
-// (clipping by global norm, Pascanu, Mikolov & Bengio 2013, "On the
-// difficulty of training recurrent neural networks", Algorithm 1, applied
-// to all parameters together), clip_value limits each element to
-// [-clip_value, clip_value] (common practice), and weight_decay adds the
-// gradient of (weight_decay / 2) ||w||^2 (L2 regularization, "coupled"
-// decay; AdamW instead decays the weights directly, see rules.hpp). The
-// parameters' gradients are read, never changed.
-//
-// State: a step counter and, per parameter, a fixed number of state buffers
-// (e.g. Adam's two moments), created at the first apply() and
-// reused afterwards, so steps allocate nothing. The first apply() or
-// load_state() fixes the layout; a later call with other parameters raises
-// model.update.state_mismatch (reset() forgets the state). save_state()
-// gives bytes from which load_state() restores the state bit for bit, so a
-// run resumed from them continues exactly as the uninterrupted one.
-//
-// Threads: with set_executor(), a rule whose update treats every element on
-// its own (every rule in rules.hpp) splits each parameter of at least
-// piece_elements values into bands of rows, one per thread of the executor,
-// on the edges the matrix products put between the rows of its gradient.
-// Each element still goes through the same operations, so the weights are
-// bit-identical for any thread count. A rule of the host's that couples
-// elements (e.g. a per-layer norm) keeps the default
-// treats_elements_independently() = false and is always run in one piece
-// per parameter on the calling thread.
-//
-// Subnormal numbers: updates run with subnormals flushed to zero
-// (core/simd.hpp, flush_subnormals_scope), on every thread that runs a piece.
-// A moment, velocity or weight smaller in magnitude than the smallest normal
-// number (about 1.2e-38 in float, 2.2e-308 in double) becomes 0; against
-// Adam's epsilon (1e-8) such a value changes no step, and it spares the
-// microcode assists that made Fashion-MNIST epochs after the second one
-// about 25% slower (the first moment of a weight whose gradient stays 0
-// decays by beta1 = 0.9 per step and reaches the subnormal range after
-// about 800 steps).
+// parameter; each gradient element is first clipped (by global norm, Pascanu,
+// Mikolov & Bengio 2013, Algorithm 1, and by value) and given coupled L2
+// weight decay. The state (step count, per-parameter buffers) is laid out at
+// the first apply, reused so steps allocate nothing, and saved and restored
+// bit for bit. On an executor the bits do not depend on the thread count;
+// subnormals are flushed. The details and why: docs/design/update.md.
 #pragma once
 
 #include <algorithm>
@@ -193,7 +160,7 @@ public:
     }
 
     /// Runs later apply() calls on these workers (nullptr: the calling thread
-    /// alone); see "Threads" at the top of this file. Must outlive its use.
+    /// alone); see docs/design/update.md, "Threads". Must outlive its use.
     void set_executor(executor* workers) noexcept { workers_ = workers; }
     executor* workers() const noexcept { return workers_; }
 
