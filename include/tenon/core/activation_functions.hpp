@@ -7,6 +7,7 @@
 #include <cstdint>
 #include <string>
 
+#include "tenon/core/enum_text.hpp"
 #include "tenon/core/error.hpp"
 #include "tenon/core/error_codes.hpp"
 
@@ -26,7 +27,7 @@ enum class activation : std::uint8_t {
     log_softmax,
 };
 
-inline const char* activation_name(activation a) noexcept {
+inline const char* to_string(activation a) noexcept {
     switch (a) {
         case activation::identity: return "identity";
         case activation::tanh: return "tanh";
@@ -42,16 +43,14 @@ inline const char* activation_name(activation a) noexcept {
     }
     return "unknown";
 }
+/// The former spelling of to_string(activation).
+inline const char* activation_name(activation v) noexcept { return to_string(v); }
 
 /// The activation with the given name; raises model.record.unknown_kind.
 inline activation parse_activation(const std::string& name) {
-    for (int i = 0; i <= static_cast<int>(activation::log_softmax); ++i) {
-        const auto a = static_cast<activation>(i);
-        if (name == activation_name(a)) return a;
-    }
-    raise(codes::model_unknown_kind, "activation '" + name +
-                                         "' is not known (identity, tanh, sigmoid, relu, leaky_relu, elu, softplus, gelu, "
-                                         "gelu_tanh, softmax, log_softmax)");
+    activation a{};
+    if (!enum_from_text(name, a)) raise(codes::model_unknown_kind, "activation '" + name + "' is not known (" + enum_choices<activation>() + ")");
+    return a;
 }
 
 inline double default_coefficient(activation a) noexcept {

@@ -49,7 +49,7 @@ TENON_NAMESPACE_BEGIN
 /// The implementations of the packed product (see docs/design/gemm.md).
 enum class kernel_path : std::uint8_t { portable, avx2, avx512, blas, neon };
 
-inline const char* kernel_path_name(kernel_path p) noexcept {
+inline const char* to_string(kernel_path p) noexcept {
     switch (p) {
         case kernel_path::portable: return "portable";
         case kernel_path::avx2: return "avx2";
@@ -59,6 +59,8 @@ inline const char* kernel_path_name(kernel_path p) noexcept {
     }
     return "unknown";
 }
+/// The former spelling of to_string(kernel_path).
+inline const char* kernel_path_name(kernel_path v) noexcept { return to_string(v); }
 
 /// Whether this build and the running CPU can use path `p`.
 inline bool kernel_path_available(kernel_path p) noexcept {

@@ -14,6 +14,7 @@
 #include <cstdint>
 #include <string>
 
+#include "tenon/core/enum_text.hpp"
 #include "tenon/core/matrix.hpp"
 #include "tenon/core/random.hpp"
 
@@ -48,7 +49,7 @@ struct initializer {
         : scheme(s), distribution(d), value(v) {}
 };
 
-inline const char* init_scheme_name(init_scheme s) noexcept {
+inline const char* to_string(init_scheme s) noexcept {
     switch (s) {
         case init_scheme::zeros: return "zeros";
         case init_scheme::constant: return "constant";
@@ -58,25 +59,32 @@ inline const char* init_scheme_name(init_scheme s) noexcept {
     }
     return "unknown";
 }
+/// The former spelling of to_string(init_scheme).
+inline const char* init_scheme_name(init_scheme v) noexcept { return to_string(v); }
 
-inline const char* init_distribution_name(init_distribution d) noexcept {
-    return d == init_distribution::normal ? "normal" : "uniform";
+inline const char* to_string(init_distribution d) noexcept {
+    switch (d) {
+        case init_distribution::uniform: return "uniform";
+        case init_distribution::normal: return "normal";
+    }
+    return "unknown";
 }
+/// The former spelling of to_string(init_distribution).
+inline const char* init_distribution_name(init_distribution d) noexcept { return to_string(d); }
 
 /// The method with the given name; raises model.record.unknown_kind otherwise.
 inline init_scheme parse_init_scheme(const std::string& name) {
-    for (int i = 0; i <= static_cast<int>(init_scheme::lecun); ++i) {
-        const auto s = static_cast<init_scheme>(i);
-        if (name == init_scheme_name(s)) return s;
-    }
-    raise(codes::model_unknown_kind, "initializer '" + name + "' is not known (zeros, constant, glorot, he, lecun)");
+    init_scheme v{};
+    if (!enum_from_text(name, v)) raise(codes::model_unknown_kind, "initializer '" + name + "' is not known (" + enum_choices<init_scheme>() + ")");
+    return v;
 }
 
 /// The distribution with the given name; raises model.record.unknown_kind otherwise.
 inline init_distribution parse_init_distribution(const std::string& name) {
-    if (name == "uniform") return init_distribution::uniform;
-    if (name == "normal") return init_distribution::normal;
-    raise(codes::model_unknown_kind, "initializer distribution '" + name + "' is not known (uniform, normal)");
+    init_distribution v{};
+    if (!enum_from_text(name, v))
+        raise(codes::model_unknown_kind, "initializer distribution '" + name + "' is not known (" + enum_choices<init_distribution>() + ")");
+    return v;
 }
 
 /// The initializer a method name and distribution name give (model files

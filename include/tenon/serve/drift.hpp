@@ -123,7 +123,7 @@ TENON_NAMESPACE_BEGIN
 /// A column's drift verdict.
 enum class drift_status : std::uint8_t { stable, watch, drifted };
 
-inline const char* drift_status_name(drift_status s) noexcept {
+inline const char* to_string(drift_status s) noexcept {
     switch (s) {
         case drift_status::stable: return "stable";
         case drift_status::watch: return "watch";
@@ -131,6 +131,8 @@ inline const char* drift_status_name(drift_status s) noexcept {
     }
     return "unknown";
 }
+/// The former spelling of to_string(drift_status).
+inline const char* drift_status_name(drift_status v) noexcept { return to_string(v); }
 
 struct drift_options {
     /// PSI above this marks a column "watch" (0.1: common practice).

@@ -68,6 +68,7 @@
 #include <utility>
 #include <vector>
 
+#include "tenon/core/enum_text.hpp"
 #include "tenon/format/atomic_file.hpp"
 #include "tenon/core/json_text.hpp"
 #include "tenon/format/model_file.hpp"
@@ -88,7 +89,7 @@ enum class gate_metric : std::uint8_t {
     rmse,       // regression in the target's original units, lower is better
 };
 
-inline const char* gate_metric_name(gate_metric m) noexcept {
+inline const char* to_string(gate_metric m) noexcept {
     switch (m) {
         case gate_metric::automatic: return "automatic";
         case gate_metric::accuracy: return "accuracy";
@@ -97,12 +98,14 @@ inline const char* gate_metric_name(gate_metric m) noexcept {
     }
     return "unknown";
 }
+/// The former spelling of to_string(gate_metric).
+inline const char* gate_metric_name(gate_metric v) noexcept { return to_string(v); }
 
 /// Parses automatic, accuracy, log_loss or rmse (deploy.retrain.option otherwise).
 inline gate_metric parse_gate_metric(const std::string& name) {
-    for (int i = 0; i <= static_cast<int>(gate_metric::rmse); ++i)
-        if (name == gate_metric_name(static_cast<gate_metric>(i))) return static_cast<gate_metric>(i);
-    raise(codes::deploy_retrain_option, "unknown gate metric '" + name + "' (automatic, accuracy, log_loss, rmse)");
+    gate_metric v{};
+    if (!enum_from_text(name, v)) raise(codes::deploy_retrain_option, "unknown gate metric '" + name + "' (" + enum_choices<gate_metric>() + ")");
+    return v;
 }
 
 inline bool higher_is_better(gate_metric m) noexcept { return m == gate_metric::accuracy; }

@@ -23,6 +23,7 @@
 #include <string>
 #include <vector>
 
+#include "tenon/core/enum_text.hpp"
 #include "tenon/core/elementwise.hpp"
 #include "tenon/core/parallel.hpp"
 #include "tenon/layers/network.hpp"
@@ -48,7 +49,7 @@ struct supervised_rows {
 
 enum class loss_kind : std::uint8_t { l1, l2, huber, cross_entropy };
 
-inline const char* loss_kind_name(loss_kind k) noexcept {
+inline const char* to_string(loss_kind k) noexcept {
     switch (k) {
         case loss_kind::l1: return "l1";
         case loss_kind::l2: return "l2";
@@ -57,10 +58,12 @@ inline const char* loss_kind_name(loss_kind k) noexcept {
     }
     return "unknown";
 }
+/// The former spelling of to_string(loss_kind).
+inline const char* loss_kind_name(loss_kind v) noexcept { return to_string(v); }
 
 enum class stop_reason : std::uint8_t { epoch_limit, no_improvement, time_budget, cancelled, diverged };
 
-inline const char* stop_reason_name(stop_reason r) noexcept {
+inline const char* to_string(stop_reason r) noexcept {
     switch (r) {
         case stop_reason::epoch_limit: return "epoch_limit";
         case stop_reason::no_improvement: return "no_improvement";
@@ -70,6 +73,8 @@ inline const char* stop_reason_name(stop_reason r) noexcept {
     }
     return "unknown";
 }
+/// The former spelling of to_string(stop_reason).
+inline const char* stop_reason_name(stop_reason v) noexcept { return to_string(v); }
 
 
 /// Progress within an epoch, for progress bars.

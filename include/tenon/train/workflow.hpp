@@ -20,6 +20,7 @@
 #include <utility>
 #include <vector>
 
+#include "tenon/core/enum_text.hpp"
 #include "tenon/layers/network.hpp"
 #include "tenon/prep/plan.hpp"
 #include "tenon/prep/split.hpp"
@@ -33,7 +34,7 @@ TENON_NAMESPACE_BEGIN
 
 enum class update_kind : std::uint8_t { gradient_descent, momentum, nesterov, adam, adamw, rmsprop, adagrad };
 
-inline const char* update_kind_name(update_kind k) noexcept {
+inline const char* to_string(update_kind k) noexcept {
     switch (k) {
         case update_kind::gradient_descent: return "gd";
         case update_kind::momentum: return "momentum";
@@ -45,21 +46,21 @@ inline const char* update_kind_name(update_kind k) noexcept {
     }
     return "unknown";
 }
+/// The former spelling of to_string(update_kind).
+inline const char* update_kind_name(update_kind v) noexcept { return to_string(v); }
 
 /// Parses gd, momentum, nesterov, adam, adamw, rmsprop or adagrad.
 inline update_kind parse_update_kind(const std::string& name) {
-    for (int i = 0; i <= static_cast<int>(update_kind::adagrad); ++i) {
-        if (name == update_kind_name(static_cast<update_kind>(i))) return static_cast<update_kind>(i);
-    }
-    raise(codes::train_option, "unknown optimizer '" + name + "' (gd, momentum, nesterov, adam, adamw, rmsprop, adagrad)");
+    update_kind v{};
+    if (!enum_from_text(name, v)) raise(codes::train_option, "unknown optimizer '" + name + "' (" + enum_choices<update_kind>() + ")");
+    return v;
 }
 
 /// Parses l1, l2, huber or cross-entropy.
 inline loss_kind parse_loss_kind(const std::string& name) {
-    for (int i = 0; i <= static_cast<int>(loss_kind::cross_entropy); ++i) {
-        if (name == loss_kind_name(static_cast<loss_kind>(i))) return static_cast<loss_kind>(i);
-    }
-    raise(codes::train_option, "unknown loss '" + name + "' (l1, l2, huber, cross-entropy)");
+    loss_kind v{};
+    if (!enum_from_text(name, v)) raise(codes::train_option, "unknown loss '" + name + "' (" + enum_choices<loss_kind>() + ")");
+    return v;
 }
 
 template <class T>
