@@ -20,7 +20,7 @@
 // may define it itself (to 0, to keep tenon's throws out of a build whose
 // compiler still allows them).
 #ifndef TENON_HAS_EXCEPTIONS
-#if TENON_HAS_EXCEPTIONS
+#if defined(__cpp_exceptions) || defined(__EXCEPTIONS) || defined(_CPPUNWIND)
 #define TENON_HAS_EXCEPTIONS 1
 #else
 #define TENON_HAS_EXCEPTIONS 0
