@@ -18,7 +18,7 @@
 #include <tenon/distributed/data_parallel.hpp>
 #include <tenon/distributed/plan_merge.hpp>
 
-#include "cli/cli.hpp"
+#include "cli/tool.hpp"
 
 namespace {
 
