@@ -1,18 +1,11 @@
-// The `tenon` command-line tool, a static library (tenon_tool) of one source
-// file per subcommand (train.cpp, infer.cpp, inspect.cpp, retrain.cpp,
-// drift.cpp) and shared parts (options.cpp, data.cpp, output_files.cpp,
-// json_output.cpp, text.cpp, cli.cpp). main.cpp and the tests include this
-// header, declarations only, so a test compiles without the tool's code;
-// they link the library and run the tool in process (run_cli with their own
-// streams). Each subcommand's options are one table (tool_parts.hpp) that
-// both parses the command line and writes its --help.
-//
-// Exit status: 0 success; 2 bad command line or bad input data (the message
-// on stderr names the option, file, line, column or value); 3 an output file
-// could not be written; 1 anything unexpected; 4 `tenon retrain` kept the
-// incumbent (nothing written); 5 `tenon drift` flagged a column. On any
-// failure no --metrics, --report, --model, --out, --rollback or --json file is
-// created or changed (output_files.hpp says how).
+// The `tenon` command-line tool (train, infer, inspect, retrain, drift) is
+// the static library tenon_tool: one source file per subcommand plus shared
+// parts (options.cpp, data.cpp, output_files.cpp, json_output.cpp, text.cpp,
+// cli.cpp). This header, declarations only, is what main.cpp and the tests
+// include: they link the library and run the tool in process (run_cli with
+// their own streams), so a test compiles without the tool's code. Each
+// subcommand's options are one table (tool_parts.hpp) that parses the
+// command line and writes its --help.
 #pragma once
 
 #include <cstddef>
@@ -33,6 +26,12 @@
 
 namespace tenon_cli {
 
+// Exit status: 0 success; 2 bad command line or bad input data (the message
+// on stderr names the option, file, line, column or value); 3 an output file
+// could not be written; 1 anything unexpected; 4 `tenon retrain` kept the
+// incumbent (nothing written); 5 `tenon drift` flagged a column. On any
+// failure no --metrics, --report, --model, --out, --rollback or --json file is
+// created or changed (output_files.hpp says how).
 inline constexpr int exit_success = 0;
 inline constexpr int exit_unexpected = 1;
 inline constexpr int exit_bad_input = 2;
@@ -250,7 +249,7 @@ std::vector<std::string> split_list(const std::string& text);
 /// characters wide: fixed-point below a million in magnitude, scientific
 /// notation above; "-" when not finite.
 std::string fixed(double v, int decimals);
-/// `digits` significant digits (printf's %g).
+/// `digits` significant digits (printf's %g); "-" when not finite.
 std::string significant(double v, int digits = 6);
 /// Seconds since 1970 as "YYYY-MM-DD HH:MM:SS UTC".
 std::string utc_text(std::int64_t seconds);
