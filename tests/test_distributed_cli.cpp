@@ -15,6 +15,7 @@
 
 #include <unistd.h>
 
+#include <tenon/tenon.hpp>
 #include <tenon/distributed/data_parallel.hpp>
 #include <tenon/distributed/plan_merge.hpp>
 
