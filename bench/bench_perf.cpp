@@ -52,7 +52,7 @@
 
 #include <cblas.h>
 
-#include "cli.hpp"  // examples/cli: the tool's logic, run in process
+#include "tool.hpp"  // examples/cli: the tool (library tenon_tool), run in process
 
 #include <tenon/core/gemm.hpp>
 #include <tenon/core/parallel.hpp>

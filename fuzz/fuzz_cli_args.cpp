@@ -1,5 +1,5 @@
 // Fuzz target: the command-line tool's argument handling, through its
-// public entry tenon_cli::run_cli (examples/cli/cli.hpp). The input is the
+// public entry tenon_cli::run_cli (examples/cli/tool.hpp, the tenon_tool library). The input is the
 // argument list, one argument per line. The tool must answer every list
 // with an exit status and messages; it must never crash, throw, or write
 // outside its working directory.
@@ -27,7 +27,7 @@
 #include <system_error>
 #include <vector>
 
-#include "cli/cli.hpp"
+#include "cli/tool.hpp"
 
 namespace {
 

@@ -14,7 +14,9 @@
 
 #include <unistd.h>
 
-#include <cli/cli.hpp>
+#include <tenon/tenon.hpp>
+
+#include <cli/tool.hpp>
 
 namespace cli_test {
 

@@ -1,4 +1,4 @@
-// Tests of the `tenon` command-line tool (examples/cli/cli.hpp), run in
+// Tests of the `tenon` command-line tool (examples/cli/, library tenon_tool), run in
 // process: the command line, every bad-input path with its exact message and
 // no file left behind, determinism, the metrics file, the progress modes, and
 // the baselines: on invented nonlinear data the default network must beat a

@@ -1,4 +1,4 @@
-// Tests of the model commands of the `tenon` tool (examples/cli/cli.hpp), run
+// Tests of the model commands of the `tenon` tool (examples/cli/, library tenon_tool), run
 // in process: `tenon train --model`, `tenon infer` and `tenon inspect`. The
 // predictions of `tenon infer` are compared bit for bit with the trainer's
 // own path (the stored plan applied to the table, the rebuilt network's

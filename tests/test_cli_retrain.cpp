@@ -1,4 +1,4 @@
-// Tests of `tenon retrain` and `tenon drift` (examples/cli/cli.hpp), run in
+// Tests of `tenon retrain` and `tenon drift` (examples/cli/, library tenon_tool), run in
 // process on an invented press whose process drifts: retraining on drifted
 // rows promotes a candidate that really predicts the new rows better (checked
 // with `tenon infer` on rows neither model saw), retraining on rows like the

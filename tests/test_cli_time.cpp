@@ -1,5 +1,5 @@
 // Tests of time stamps and drift through the `tenon` tool
-// (examples/cli/cli.hpp), run in process: --time-format, --time-cycles, the
+// (examples/cli/, library tenon_tool), run in process: --time-format, --time-cycles, the
 // form kept in the model and shown by inspect, new rows read in that form,
 // and the drift table's noise floor. The press log is invented.
 #include <doctest/doctest.h>

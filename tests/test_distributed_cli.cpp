@@ -15,10 +15,11 @@
 
 #include <unistd.h>
 
+#include <tenon/tenon.hpp>
 #include <tenon/distributed/data_parallel.hpp>
 #include <tenon/distributed/plan_merge.hpp>
 
-#include "cli/cli.hpp"
+#include "cli/tool.hpp"
 
 namespace {
 

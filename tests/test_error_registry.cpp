@@ -1,6 +1,6 @@
 // The error-code registry against the documentation and the tests: every
 // code in core/error_codes.hpp, and every code of the command-line tool
-// (examples/cli/cli.hpp, namespace cli_codes), must have a row in one of the
+// (examples/cli/tool.hpp, namespace cli_codes), must have a row in one of the
 // README's bad-input tables and a test that triggers it; every row must name
 // a code that exists. Adding a code without a row or a test fails here. The
 // files are read from TENON_SOURCE_DIR at run time.
@@ -32,7 +32,7 @@
 
 #include <tenon/core/error_codes.hpp>
 
-#include "cli/cli.hpp"
+#include "cli/tool.hpp"
 
 namespace {
 
@@ -206,7 +206,7 @@ TEST_CASE("every error code has a README row and a test that triggers it, and ev
     const std::filesystem::path root(TENON_SOURCE_DIR);
     const auto rows = readme_rows(read_text(root / "README.md"));
     const auto sources = test_sources();
-    std::vector<std::string> library, tool = cli_codes_in(read_text(root / "examples" / "cli" / "cli.hpp"));
+    std::vector<std::string> library, tool = cli_codes_in(read_text(root / "examples" / "cli" / "tool.hpp"));
     for (auto e = tenon::error_registry_begin(); e != tenon::error_registry_end(); ++e) library.emplace_back(e->code);
     REQUIRE(library.size() >= 70);
     REQUIRE(tool.size() >= 10);

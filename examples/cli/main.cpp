@@ -1,5 +1,5 @@
-// The `tenon` command-line tool; the logic is in cli.hpp so tests can run it
-// in process.
+// The `tenon` command-line tool: forwards argv to run_cli (the tenon_tool
+// library, tool.hpp); under mpirun, each process is one rank of a team.
 #include <iostream>
 
 #ifdef _WIN32
@@ -10,7 +10,7 @@
 #define TENON_CLI_STDOUT_IS_TERMINAL() (::isatty(STDOUT_FILENO) != 0)
 #endif
 
-#include "cli.hpp"
+#include "tool.hpp"
 
 #if defined(TENON_HAS_MPI)
 #include <tenon/distributed/data_parallel.hpp>
@@ -21,7 +21,7 @@ int main(int argc, char** argv) {
     tenon_cli::cli_environment env;
     env.terminal = TENON_CLI_STDOUT_IS_TERMINAL();
     // SIGINT, SIGTERM, SIGHUP: the run's temporary files are removed and the
-    // process ends by the same signal (cli_files.hpp); no output changes.
+    // process ends by the same signal (output_files.hpp); no output changes.
     tenon_cli::files::remove_temporaries_on_signals();
 #if defined(TENON_HAS_MPI)
     // Under mpirun (`mpirun -np N tenon train ...`) every process trains as
