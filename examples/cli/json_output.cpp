@@ -4,7 +4,7 @@
 #include <cstdio>
 #include <string>
 
-#include <tenon/deploy/detail/json_text.hpp>
+#include <tenon/core/json_text.hpp>
 
 #include "tool.hpp"
 
@@ -51,62 +51,8 @@ std::string json_writer::finish() {
     return out_;
 }
 
-std::size_t json_writer::utf8_length(const std::string& s, std::size_t i) {
-    const auto b = [&](std::size_t k) { return i + k < s.size() ? static_cast<unsigned char>(s[i + k]) : 0u; };
-    const unsigned c = b(0);
-    const auto tail = [&](std::size_t k) { return (b(k) & 0xC0u) == 0x80u; };
-    if (c < 0x80) return 1;
-    if (c >= 0xC2 && c <= 0xDF) return tail(1) ? 2 : 0;
-    if (c >= 0xE0 && c <= 0xEF) {
-        const unsigned lo = c == 0xE0 ? 0xA0 : 0x80, hi = c == 0xED ? 0x9F : 0xBF;
-        return b(1) >= lo && b(1) <= hi && tail(2) ? 3 : 0;
-    }
-    if (c >= 0xF0 && c <= 0xF4) {
-        const unsigned lo = c == 0xF0 ? 0x90 : 0x80, hi = c == 0xF4 ? 0x8F : 0xBF;
-        return b(1) >= lo && b(1) <= hi && tail(2) && tail(3) ? 4 : 0;
-    }
-    return 0;
-}
 
-// Not the library's json_string: that one copies bytes above 0x7F as they
-// are (malformed UTF-8 included) and writes backspace and form feed as
-// six-character escapes; the tool's files keep valid UTF-8 and the short
-// escapes they always had.
-std::string json_writer::escape(const std::string& s) {
-    std::string out;
-    for (std::size_t i = 0; i < s.size(); ++i) {
-        const char ch = s[i];
-        const auto c = static_cast<unsigned char>(ch);
-        if (c >= 0x80) {
-            const std::size_t n = utf8_length(s, i);
-            if (n == 0) {
-                out += "\\ufffd";
-            } else {
-                out.append(s, i, n);
-                i += n - 1;
-            }
-            continue;
-        }
-        switch (c) {
-            case '"': out += "\\\""; break;
-            case '\\': out += "\\\\"; break;
-            case '\b': out += "\\b"; break;
-            case '\f': out += "\\f"; break;
-            case '\n': out += "\\n"; break;
-            case '\r': out += "\\r"; break;
-            case '\t': out += "\\t"; break;
-            default:
-                if (c < 0x20) {
-                    char u[8];
-                    std::snprintf(u, sizeof u, "\\u%04x", static_cast<unsigned>(c));
-                    out += u;
-                } else {
-                    out += ch;
-                }
-        }
-    }
-    return out;
-}
+std::string json_writer::escape(const std::string& s) { return tenon::detail::json_escape(s); }
 
 json_writer& json_writer::open(const char* key, char bracket) {
     member(key);

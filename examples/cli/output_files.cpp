@@ -22,7 +22,7 @@
 #include <sys/stat.h>
 #include <unistd.h>
 
-#include <tenon/deploy/atomic_file.hpp>
+#include <tenon/format/atomic_file.hpp>
 
 namespace tenon_cli {
 namespace files {

@@ -220,12 +220,9 @@ public:
     const std::string& str() const noexcept { return out_; }
     std::string finish();
 
-    /// Length of the well-formed UTF-8 sequence at s[i] (RFC 3629 section 4:
-    /// no overlong forms, no surrogates, nothing above U+10FFFF), or 0.
-    static std::size_t utf8_length(const std::string& s, std::size_t i);
-    /// JSON string contents (RFC 8259 section 7). Bytes that are not
-    /// well-formed UTF-8 (a model's category read from a Latin-1 file, say)
-    /// become U+FFFD, the replacement character, so the output is valid JSON.
+    /// JSON string contents (tenon::detail::json_escape, RFC 8259 section 7).
+    /// Bytes that are not well-formed UTF-8 (a model's category read from a
+    /// Latin-1 file, say) become U+FFFD, so the output is valid JSON.
     static std::string escape(const std::string& s);
 
 private:
