@@ -42,9 +42,12 @@ inline namespace TENON_ABI_NAMESPACE {
 enum class enum_text_probe : unsigned char { first = 0, second = 1, late = 200 };
 inline const char* to_string(enum_text_probe p) noexcept {
     switch (p) {
-        case enum_text_probe::first: return "first";
-        case enum_text_probe::second: return "second";
-        case enum_text_probe::late: return "late";
+    case enum_text_probe::first:
+        return "first";
+    case enum_text_probe::second:
+        return "second";
+    case enum_text_probe::late:
+        return "late";
     }
     return "unknown";
 }
@@ -75,7 +78,8 @@ TEST_CASE("a value added past the others parses, and the choices list it") {
     CHECK(p == tenon::enum_text_probe::late);
     CHECK(tenon::enum_choices<tenon::enum_text_probe>() == "first, second, late");
     // The messages of the parse functions list the choices from the same table.
-    CHECK_THROWS_WITH(tenon::parse_update_kind("sgd"), "[train.option.invalid] unknown optimizer 'sgd' (gd, momentum, nesterov, adam, adamw, rmsprop, adagrad)");
+    CHECK_THROWS_WITH(tenon::parse_update_kind("sgd"),
+                      "[train.option.invalid] unknown optimizer 'sgd' (gd, momentum, nesterov, adam, adamw, rmsprop, adagrad)");
     CHECK_THROWS_WITH(tenon::parse_activation("swish"),
                       doctest::Contains("(identity, tanh, sigmoid, relu, leaky_relu, elu, softplus, gelu, gelu_tanh, softmax, log_softmax)"));
 }

@@ -11,7 +11,7 @@ namespace tenon_cli {
 
 std::string general_help() {
     return std::string("tenon ") + tenon::version_string() +
-           R"(: train neural networks on tabular data from the command line
+        R"(: train neural networks on tabular data from the command line
 
 Usage: tenon COMMAND [options]
        tenon --help | --version

@@ -30,8 +30,8 @@ std::string column_listing(const std::vector<std::string>& names) {
 
 const tenon::column& named_column(const tenon::table& t, const std::string& option, const std::string& name) {
     if (!t.contains(name))
-        fail(cli_codes::column_unknown, t.source() + ": " + option + " names '" + name + "', which is not a column (columns: " +
-                                            column_listing(t.column_names()) + ")");
+        fail(cli_codes::column_unknown,
+             t.source() + ": " + option + " names '" + name + "', which is not a column (columns: " + column_listing(t.column_names()) + ")");
     return t.at(name);
 }
 
@@ -104,8 +104,10 @@ tenon::csv_options data_dialect(const std::string& path, char delimiter, bool de
     }
     options = tenon::detect_csv_dialect_file(path, options, what);
     if (options.decimal_comma && options.delimiter == ',')
-        fail(cli_codes::option_conflict, "--decimal-comma: " + path + " is delimited by ','; a comma cannot separate both fields and "
-                                         "decimals (give --delimiter if the file uses another)");
+        fail(cli_codes::option_conflict,
+             "--decimal-comma: " + path +
+                 " is delimited by ','; a comma cannot separate both fields and "
+                 "decimals (give --delimiter if the file uses another)");
     return options;
 }
 
@@ -130,8 +132,9 @@ tenon::table load_table(const train_request& q, std::vector<std::string>* notes,
         for (const auto* list : {&q.categorical, &q.numeric})
             for (const auto& name : *list)
                 if (std::find(header.begin(), header.end(), name) == header.end())
-                    fail(cli_codes::column_unknown, q.data_path + ": " + (list == &q.categorical ? "--categorical" : "--numeric") + " names '" +
-                                                        name + "', which is not a column (columns: " + detail::column_listing(header) + ")");
+                    fail(cli_codes::column_unknown,
+                         q.data_path + ": " + (list == &q.categorical ? "--categorical" : "--numeric") + " names '" + name +
+                             "', which is not a column (columns: " + detail::column_listing(header) + ")");
         for (const auto& name : q.categorical) options.forced_kinds[name] = tenon::column_kind::categorical;
         for (const auto& name : q.numeric) options.forced_kinds[name] = tenon::column_kind::numeric;
     }
@@ -228,9 +231,9 @@ training_setup make_setup(const tenon::table& t, const train_request& q) {
     if (!q.time_column.empty()) {
         const auto& c = detail::named_column(t, "--time-column", q.time_column);
         if (c.kind() == tenon::column_kind::categorical)
-            fail(cli_codes::option_value, q.data_path + ": --time-column '" + q.time_column + "' holds text such as '" +
-                                              (c.categories().empty() ? std::string() : c.categories().front()) +
-                                              "', not numbers or dates");
+            fail(cli_codes::option_value,
+                 q.data_path + ": --time-column '" + q.time_column + "' holds text such as '" +
+                     (c.categories().empty() ? std::string() : c.categories().front()) + "', not numbers or dates");
     }
     if (!q.group_column.empty()) detail::named_column(t, "--group-column", q.group_column);
     {
@@ -239,8 +242,9 @@ training_setup make_setup(const tenon::table& t, const train_request& q) {
         for (const auto& name : t.column_names())
             if (name != q.target && name != q.group_column && std::find(q.ignored.begin(), q.ignored.end(), name) == q.ignored.end()) ++inputs;
         if (inputs == 0)
-            fail(cli_codes::option_conflict, q.data_path + ": no input column is left: the columns are " + detail::column_listing(t.column_names()) +
-                                                 ", of which '" + q.target + "' is the target and the others are ignored or the group column");
+            fail(cli_codes::option_conflict,
+                 q.data_path + ": no input column is left: the columns are " + detail::column_listing(t.column_names()) + ", of which '" + q.target +
+                     "' is the target and the others are ignored or the group column");
     }
     if (q.time_column == q.target || q.group_column == q.target)
         fail(cli_codes::option_conflict, "the target '" + q.target + "' cannot also be the time or group column");
@@ -254,12 +258,11 @@ training_setup make_setup(const tenon::table& t, const train_request& q) {
     if (s.classify && target.kind() == tenon::column_kind::datetime)
         fail(cli_codes::option_value, q.data_path + ": the target '" + q.target + "' holds dates; it cannot be classified");
     if (!s.classify && target.kind() != tenon::column_kind::numeric)
-        fail(cli_codes::option_value, q.data_path + ": the target '" + q.target + "' is " + tenon::to_string(target.kind()) +
-                                          "; regression needs a numeric target");
+        fail(cli_codes::option_value,
+             q.data_path + ": the target '" + q.target + "' is " + tenon::to_string(target.kind()) + "; regression needs a numeric target");
 
     s.target_missing = target.missing_count();
-    if (s.target_missing == t.row_count())
-        fail(cli_codes::data_empty, q.data_path + ": every row's target '" + q.target + "' is missing");
+    if (s.target_missing == t.row_count()) fail(cli_codes::data_empty, q.data_path + ": every row's target '" + q.target + "' is missing");
     if (s.classify) {
         const auto codes = tenon::dense_codes(target, /*missing_is_value=*/true);
         std::vector<std::uint32_t> classes;
@@ -272,13 +275,14 @@ training_setup make_setup(const tenon::table& t, const train_request& q) {
             if (classes.size() > 1) break;
         }
         if (classes.size() < 2)
-            fail(cli_codes::target_single_class, q.data_path + ": the target '" + q.target + "' has a single class ('" + first + "') in all " +
-                                                     std::to_string(t.row_count() - s.target_missing) +
-                                                     " rows with a target; classification needs at least 2");
+            fail(cli_codes::target_single_class,
+                 q.data_path + ": the target '" + q.target + "' has a single class ('" + first + "') in all " +
+                     std::to_string(t.row_count() - s.target_missing) + " rows with a target; classification needs at least 2");
     }
     if (q.loss_given && s.classify != (q.loss == tenon::loss_kind::cross_entropy))
-        fail(cli_codes::option_conflict, std::string("--loss ") + tenon::loss_kind_name(q.loss) + " does not fit a " +
-                                             (s.classify ? "classification target (use cross-entropy)" : "regression target (use l1, l2 or huber)"));
+        fail(cli_codes::option_conflict,
+             std::string("--loss ") + tenon::loss_kind_name(q.loss) + " does not fit a " +
+                 (s.classify ? "classification target (use cross-entropy)" : "regression target (use l1, l2 or huber)"));
 
     s.split = q.split;
     if (s.split == split_choice::automatic) s.split = s.classify ? split_choice::stratified : split_choice::random;
@@ -302,8 +306,8 @@ training_setup make_setup(const tenon::table& t, const train_request& q) {
             s.preparation.set_role(f.column, tenon::column_role::ignored);
             s.notes.push_back("note: leaving out '" + f.column + "' (" + f.explanation() + "); --use " + f.column + " keeps it");
         } else {
-            s.notes.push_back("warning: '" + f.column + "' has " + f.explanation() + " (more categories than 10% of the rows); --ignore " +
-                              f.column + " leaves it out");
+            s.notes.push_back("warning: '" + f.column + "' has " + f.explanation() + " (more categories than 10% of the rows); --ignore " + f.column +
+                              " leaves it out");
         }
     }
     return s;
@@ -346,8 +350,7 @@ namespace detail {
 std::vector<double> column_times(const tenon::table& t, const std::string& name) {
     const tenon::column& c = t.at(name);
     std::vector<double> times(t.row_count());
-    for (std::size_t r = 0; r < times.size(); ++r)
-        times[r] = c.is_missing(r) ? std::numeric_limits<double>::quiet_NaN() : c.number(r);
+    for (std::size_t r = 0; r < times.size(); ++r) times[r] = c.is_missing(r) ? std::numeric_limits<double>::quiet_NaN() : c.number(r);
     return times;
 }
 
@@ -390,9 +393,10 @@ void check_network_size(const tenon::table& t, const train_request& q, const tra
     const tenon::measured_plan p = s.preparation.measure(t, rows);
     const std::size_t inputs = p.feature_count();
     if (inputs == 0)  // named here in column terms; later it would be a layer of 0 inputs
-        fail(cli_codes::option_conflict, q.data_path + ": no input column is left: the columns are " + column_listing(t.column_names()) + ", of which '" +
-                                             q.target + "' is the target and the others are ignored, the group column or left out (the notes say "
-                                             "why; --use NAME keeps a column)");
+        fail(cli_codes::option_conflict,
+             q.data_path + ": no input column is left: the columns are " + column_listing(t.column_names()) + ", of which '" + q.target +
+                 "' is the target and the others are ignored, the group column or left out (the notes say "
+                 "why; --use NAME keeps a column)");
     const std::size_t outputs = s.classify ? std::max<std::size_t>(p.class_count(), 1) : 1;
     // Widths are at most 2^16 (max_hidden_width), features far below 2^40: no product overflows.
     std::uint64_t weights = 0, width = inputs;
@@ -417,12 +421,12 @@ void check_network_size(const tenon::table& t, const train_request& q, const tra
         widest.emplace_back((k + 1 < by_offset.size() ? by_offset[k + 1].first : inputs) - by_offset[k].first, by_offset[k].second);
     std::sort(widest.begin(), widest.end(), [](const auto& a, const auto& b) { return a.first > b.first; });
     std::string columns;
-    for (std::size_t k = 0; k < widest.size() && k < 3; ++k)
-        columns += (k ? ", '" : "'") + widest[k].second + "' " + std::to_string(widest[k].first);
-    fail(cli_codes::option_value, q.data_path + ": " + std::to_string(inputs) + " input features (the widest: " + columns + "), hidden layers " +
-                                      hidden + " and " + std::to_string(outputs) + " outputs make " + std::to_string(weights) +
-                                      " weights (every network of the ensemble counted), above the limit of " + std::to_string(max_hidden_weights) +
-                                      " (give narrower --hidden widths, --ensemble 1, or --ignore the wide columns)");
+    for (std::size_t k = 0; k < widest.size() && k < 3; ++k) columns += (k ? ", '" : "'") + widest[k].second + "' " + std::to_string(widest[k].first);
+    fail(cli_codes::option_value,
+         q.data_path + ": " + std::to_string(inputs) + " input features (the widest: " + columns + "), hidden layers " + hidden + " and " +
+             std::to_string(outputs) + " outputs make " + std::to_string(weights) +
+             " weights (every network of the ensemble counted), above the limit of " + std::to_string(max_hidden_weights) +
+             " (give narrower --hidden widths, --ensemble 1, or --ignore the wide columns)");
 }
 
 }  // namespace detail
@@ -430,16 +434,16 @@ void check_network_size(const tenon::table& t, const train_request& q, const tra
 /// The holdout the tool trains, validates and tests on.
 tenon::holdout_split make_holdout(const tenon::table& t, const train_request& q, const training_setup& s) {
     switch (s.split) {
-        case split_choice::stratified:
-            return detail::naming_classes(t, q.target, [&] {
-                return tenon::stratified_holdout(tenon::dense_codes(t.at(q.target), true), q.fractions, q.seed);
-            });
-        case split_choice::chronological:
-            return tenon::chronological_holdout(detail::column_times(t, q.time_column), q.fractions);
-        case split_choice::grouped:
-            return tenon::grouped_holdout(tenon::dense_codes(t.at(q.group_column), true), q.fractions, q.seed);
-        case split_choice::random:
-        case split_choice::automatic: break;
+    case split_choice::stratified:
+        return detail::naming_classes(t, q.target,
+                                      [&] { return tenon::stratified_holdout(tenon::dense_codes(t.at(q.target), true), q.fractions, q.seed); });
+    case split_choice::chronological:
+        return tenon::chronological_holdout(detail::column_times(t, q.time_column), q.fractions);
+    case split_choice::grouped:
+        return tenon::grouped_holdout(tenon::dense_codes(t.at(q.group_column), true), q.fractions, q.seed);
+    case split_choice::random:
+    case split_choice::automatic:
+        break;
     }
     return tenon::random_holdout(t.row_count(), q.fractions, q.seed);
 }
@@ -448,15 +452,18 @@ tenon::holdout_split make_holdout(const tenon::table& t, const train_request& q,
 /// trains on everything before its test block.
 std::vector<tenon::fold> make_folds(const tenon::table& t, const train_request& q, const training_setup& s) {
     switch (s.split) {
-        case split_choice::stratified:
-            return detail::naming_classes(t, q.target, [&] { return tenon::stratified_k_folds(tenon::dense_codes(t.at(q.target), true), q.folds, q.seed); });
-        case split_choice::chronological: {
-            const std::size_t horizon = std::max<std::size_t>(1, t.row_count() / (q.folds + 1));
-            return tenon::rolling_origin_folds(detail::column_times(t, q.time_column), q.folds, horizon);
-        }
-        case split_choice::grouped: return tenon::group_k_folds(tenon::dense_codes(t.at(q.group_column), true), q.folds, q.seed);
-        case split_choice::random:
-        case split_choice::automatic: break;
+    case split_choice::stratified:
+        return detail::naming_classes(t, q.target,
+                                      [&] { return tenon::stratified_k_folds(tenon::dense_codes(t.at(q.target), true), q.folds, q.seed); });
+    case split_choice::chronological: {
+        const std::size_t horizon = std::max<std::size_t>(1, t.row_count() / (q.folds + 1));
+        return tenon::rolling_origin_folds(detail::column_times(t, q.time_column), q.folds, horizon);
+    }
+    case split_choice::grouped:
+        return tenon::group_k_folds(tenon::dense_codes(t.at(q.group_column), true), q.folds, q.seed);
+    case split_choice::random:
+    case split_choice::automatic:
+        break;
     }
     return tenon::k_folds(t.row_count(), q.folds, q.seed);
 }

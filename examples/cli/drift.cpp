@@ -60,8 +60,7 @@ const option_entry<drift_request> drift_options[] = {
          if (!(q.options.ks_threshold >= 0 && q.options.ks_threshold <= 1))
              fail(cli_codes::option_value, "--ks-threshold '" + v + "': must lie in [0, 1] (0: the critical value at --ks-significance)");
      }},
-    {"--ks-significance", "X",
-     "level of that critical value (default 0.01).",
+    {"--ks-significance", "X", "level of that critical value (default 0.01).",
      [](drift_request& q, const std::string& v) {
          q.options.ks_significance = parse_real("--ks-significance", v);
          if (!(q.options.ks_significance > 0 && q.options.ks_significance < 1))
@@ -71,9 +70,7 @@ const option_entry<drift_request> drift_options[] = {
      "print the report as JSON (per column: status, psi,\n"
      "psi_flag, ks, ks_limit, ks_flag, counts and bins).",
      [](drift_request& q, const std::string&) { q.json = true; }},
-    {"--quiet", nullptr,
-     "print nothing but errors; the exit status tells.",
-     [](drift_request& q, const std::string&) { q.quiet = true; }},
+    {"--quiet", nullptr, "print nothing but errors; the exit status tells.", [](drift_request& q, const std::string&) { q.quiet = true; }},
 };
 
 }  // namespace
@@ -91,18 +88,18 @@ drift_request parse_drift_request(const std::vector<std::string>& args) {
     // The watch level follows a lower threshold unless it is given.
     if (!watch_given) q.options.psi_watch = std::min(q.options.psi_watch, q.options.psi_threshold);
     if (q.options.psi_watch > q.options.psi_threshold)
-        fail(cli_codes::option_conflict, "--psi-watch " + tenon::number_to_text(q.options.psi_watch) + " is above --psi-threshold " +
-                                             tenon::number_to_text(q.options.psi_threshold));
+        fail(cli_codes::option_conflict,
+             "--psi-watch " + tenon::number_to_text(q.options.psi_watch) + " is above --psi-threshold " +
+                 tenon::number_to_text(q.options.psi_threshold));
     return q;
 }
 
 std::string drift_help() {
-    return std::string(
-           "tenon drift: compare recent rows with the rows a saved model was trained on\n"
-           "\n"
-           "Usage: tenon drift --model MODEL.tnm --data RECENT.csv [options]\n"
-           "\n") +
-           detail::options_help(detail::drift_options) + R"(
+    return std::string("tenon drift: compare recent rows with the rows a saved model was trained on\n"
+                       "\n"
+                       "Usage: tenon drift --model MODEL.tnm --data RECENT.csv [options]\n"
+                       "\n") +
+        detail::options_help(detail::drift_options) + R"(
 Prints one line per input column: its kind, PSI, PSI's noise floor, D, the limit of D, its
 status (stable, watch, drifted) and notes (values outside the training
 range, categories training never saw, unreadable cells, which test flagged
@@ -131,14 +128,16 @@ int run_drift(const std::vector<std::string>& args, std::ostream& out, std::ostr
     files::check_input(tenon::codes::prep_file_open, "--data", q.data_path);
     const tenon::model_file_summary summary = tenon::inspect_model_file(q.model_path);
     if (summary.references.empty())
-        fail(cli_codes::model_unusable, q.model_path + ": the model holds no summaries of its training rows (section REFS), so drift cannot be measured");
+        fail(cli_codes::model_unusable,
+             q.model_path + ": the model holds no summaries of its training rows (section REFS), so drift cannot be measured");
     const tenon::table t = detail::read_new_rows(q.data_path, summary.plan ? &*summary.plan : nullptr);
     std::vector<std::string> needed;
     for (const auto& r : summary.references) needed.push_back(r.column);
     const std::string absent = detail::absent_columns(t, needed);
     if (!absent.empty())
-        fail(cli_codes::column_missing, q.data_path + ": the model reads " + absent + ", which the data does not have (columns: " +
-                                            detail::column_listing(t.column_names()) + ")");
+        fail(cli_codes::column_missing,
+             q.data_path + ": the model reads " + absent + ", which the data does not have (columns: " + detail::column_listing(t.column_names()) +
+                 ")");
     const tenon::drift_report report = tenon::measure_drift(summary.references, t, q.options);
     const int status = report.any_drift() ? exit_drift_flagged : exit_success;
     if (q.json) {
@@ -146,15 +145,20 @@ int run_drift(const std::vector<std::string>& args, std::ostream& out, std::ostr
     } else if (!q.quiet) {
         std::vector<std::string> drifted, watched;
         for (const auto& f : report.features) {
-            if (f.drifted()) drifted.push_back(f.column);
-            else if (f.status == tenon::drift_status::watch) watched.push_back(f.column);
+            if (f.drifted())
+                drifted.push_back(f.column);
+            else if (f.status == tenon::drift_status::watch)
+                watched.push_back(f.column);
         }
-        std::string s = "drift of " + std::to_string(report.features.size()) + " input columns: " + std::to_string(report.window_rows) +
-                        " rows of " + q.data_path + " against the " + std::to_string(summary.references.front().present + summary.references.front().missing) +
-                        " training rows of " + q.model_path + "\n\n";
+        std::string s = "drift of " + std::to_string(report.features.size()) + " input columns: " + std::to_string(report.window_rows) + " rows of " +
+            q.data_path + " against the " + std::to_string(summary.references.front().present + summary.references.front().missing) +
+            " training rows of " + q.model_path + "\n\n";
         s += tenon::drift_table(report) + "\n";
-        if (drifted.empty()) s += "no column drifted";
-        else s += std::to_string(drifted.size()) + " of " + std::to_string(report.features.size()) + " columns drifted: " + detail::join(drifted, ", ");
+        if (drifted.empty())
+            s += "no column drifted";
+        else
+            s +=
+                std::to_string(drifted.size()) + " of " + std::to_string(report.features.size()) + " columns drifted: " + detail::join(drifted, ", ");
         if (!watched.empty()) s += "; to watch: " + detail::join(watched, ", ");
         s += " (exit status " + std::to_string(status) + ")\n";
         out << s;

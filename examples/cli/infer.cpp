@@ -59,9 +59,7 @@ const option_entry<infer_request> infer_options[] = {
                  if (q.keep[j] == q.keep[k]) fail(cli_codes::option_conflict, "--keep names '" + q.keep[k] + "' twice");
          }
      }},
-    {"--quiet", nullptr,
-     "print nothing but errors.",
-     [](infer_request& q, const std::string&) { q.quiet = true; }},
+    {"--quiet", nullptr, "print nothing but errors.", [](infer_request& q, const std::string&) { q.quiet = true; }},
 };
 
 }  // namespace
@@ -81,12 +79,11 @@ infer_request parse_infer_request(const std::vector<std::string>& args) {
 }
 
 std::string infer_help() {
-    return std::string(
-           "tenon infer: predict with a saved model, one output row per input row\n"
-           "\n"
-           "Usage: tenon infer --model MODEL.tnm --data NEW.csv --out PREDICTIONS.csv [options]\n"
-           "\n") +
-           detail::options_help(detail::infer_options) + R"(
+    return std::string("tenon infer: predict with a saved model, one output row per input row\n"
+                       "\n"
+                       "Usage: tenon infer --model MODEL.tnm --data NEW.csv --out PREDICTIONS.csv [options]\n"
+                       "\n") +
+        detail::options_help(detail::infer_options) + R"(
 Output: a CSV file with a header, one row per data row, in the same order
   COL,...          the --keep columns, as read;
   predicted        classification: the most probable class;
@@ -111,7 +108,8 @@ Output: a CSV file with a header, one row per data row, in the same order
   Numbers are written in the shortest form that reads back to the same value
   in the model's precision (single precision for models of tenon train).
 
-)" + detail::files_help() + R"(
+)" + detail::files_help() +
+        R"(
 Exit status
   0 success; 2 bad command line, model file or data (one line on stderr names
   the problem; a cell that cannot be predicted fails the whole command and is
@@ -148,10 +146,14 @@ void append_number(std::string& line, T v) {
 
 const char* flag_name(tenon::range_flag f) {
     switch (f) {
-        case tenon::range_flag::below: return "below";
-        case tenon::range_flag::above: return "above";
-        case tenon::range_flag::unseen_category: return "unseen";
-        case tenon::range_flag::inside: break;
+    case tenon::range_flag::below:
+        return "below";
+    case tenon::range_flag::above:
+        return "above";
+    case tenon::range_flag::unseen_category:
+        return "unseen";
+    case tenon::range_flag::inside:
+        break;
     }
     return "inside";
 }
@@ -170,8 +172,9 @@ std::vector<std::string> read_data_header(tenon::csv_record_reader& reader) {
     for (std::size_t k = 0; k < reader.field_count(); ++k) {
         std::string name = trimmed(reader.field(k));
         if (std::find(names.begin(), names.end(), name) != names.end())
-            tenon::raise(tenon::codes::prep_csv_duplicate_column, reader.source() + " line " + std::to_string(reader.line()) + " column " +
-                                                                      std::to_string(k + 1) + ": the name '" + name + "' is used twice in the header");
+            tenon::raise(tenon::codes::prep_csv_duplicate_column,
+                         reader.source() + " line " + std::to_string(reader.line()) + " column " + std::to_string(k + 1) + ": the name '" + name +
+                             "' is used twice in the header");
         names.push_back(std::move(name));
     }
     return names;
@@ -203,12 +206,14 @@ int infer_with(const tenon::model_file<T>& file, const infer_request& q, std::os
         if (input_field[k] == header.size()) absent.push_back("'" + model.input_name(k) + "'");
     }
     if (!absent.empty())
-        fail(cli_codes::column_missing, q.data_path + ": the model reads " + (absent.size() == 1 ? "column " : "columns ") + join(absent, ", ") +
-                                            ", which the data does not have (columns: " + column_listing(header) + ")");
+        fail(cli_codes::column_missing,
+             q.data_path + ": the model reads " + (absent.size() == 1 ? "column " : "columns ") + join(absent, ", ") +
+                 ", which the data does not have (columns: " + column_listing(header) + ")");
     for (const auto& name : q.keep) {
         keep_field.push_back(position_of(header, name));
         if (keep_field.back() == header.size())
-            fail(cli_codes::column_unknown, q.data_path + ": --keep names '" + name + "', which is not a column (columns: " + column_listing(header) + ")");
+            fail(cli_codes::column_unknown,
+                 q.data_path + ": --keep names '" + name + "', which is not a column (columns: " + column_listing(header) + ")");
     }
 
     // A kept column named like an output column would make two columns of
@@ -230,8 +235,8 @@ int infer_with(const tenon::model_file<T>& file, const infer_request& q, std::os
         }
         for (const auto& name : q.keep)
             if (std::find(produced.begin(), produced.end(), name) != produced.end())
-                fail(cli_codes::option_conflict, "--keep names '" + name + "', which is also a column the predictions write; rename it in " + q.data_path +
-                                                     " or leave it out");
+                fail(cli_codes::option_conflict,
+                     "--keep names '" + name + "', which is also a column the predictions write; rename it in " + q.data_path + " or leave it out");
     }
     std::ostream& stream = result.stream();
     std::string line;
@@ -272,17 +277,25 @@ int infer_with(const tenon::model_file<T>& file, const infer_request& q, std::os
             const std::string cell = s.row < pending && s.column < inputs ? cells[s.row * inputs + s.column] : std::string();
             std::string what;
             switch (s.code) {
-                case tenon::input_status::not_numeric:
-                    what = "'" + cell + "' is not a finite " + (file.plan->feature_kind(model.input_name(s.column)) == tenon::column_kind::datetime
-                                                                    ? "date/time" : "number");
-                    break;
-                case tenon::input_status::missing_value: what = "the cell is missing and the model has no fill value for the column"; break;
-                case tenon::input_status::unseen_category: what = "'" + cell + "' is a category the training rows did not hold"; break;
-                case tenon::input_status::non_finite: what = "'" + cell + "' is beyond what the model computes with (its prepared value is not finite)"; break;
-                default: tenon::raise(s.code_text(), model.describe(s, pending));
+            case tenon::input_status::not_numeric:
+                what = "'" + cell + "' is not a finite " +
+                    (file.plan->feature_kind(model.input_name(s.column)) == tenon::column_kind::datetime ? "date/time" : "number");
+                break;
+            case tenon::input_status::missing_value:
+                what = "the cell is missing and the model has no fill value for the column";
+                break;
+            case tenon::input_status::unseen_category:
+                what = "'" + cell + "' is a category the training rows did not hold";
+                break;
+            case tenon::input_status::non_finite:
+                what = "'" + cell + "' is beyond what the model computes with (its prepared value is not finite)";
+                break;
+            default:
+                tenon::raise(s.code_text(), model.describe(s, pending));
             }
-            tenon::raise(s.code_text(), q.data_path + " line " + std::to_string(lines[s.row]) + " column " +
-                                            std::to_string(input_field[s.column] + 1) + " ('" + model.input_name(s.column) + "'): " + what);
+            tenon::raise(s.code_text(),
+                         q.data_path + " line " + std::to_string(lines[s.row]) + " column " + std::to_string(input_field[s.column] + 1) + " ('" +
+                             model.input_name(s.column) + "'): " + what);
         }
         for (std::size_t i = 0; i < pending; ++i) {
             line.clear();
@@ -332,8 +345,9 @@ int infer_with(const tenon::model_file<T>& file, const infer_request& q, std::os
     };
     while (reader.next()) {
         if (reader.field_count() != header.size())
-            tenon::raise(tenon::codes::prep_csv_ragged, q.data_path + " line " + std::to_string(reader.line()) + ": expected " +
-                                                            std::to_string(header.size()) + " fields, found " + std::to_string(reader.field_count()));
+            tenon::raise(tenon::codes::prep_csv_ragged,
+                         q.data_path + " line " + std::to_string(reader.line()) + ": expected " + std::to_string(header.size()) + " fields, found " +
+                             std::to_string(reader.field_count()));
         for (std::size_t k = 0; k < inputs; ++k) {
             std::string& cell = cells[pending * inputs + k];
             cell.assign(reader.field(input_field[k]));

@@ -29,9 +29,7 @@ const option_entry<inspect_request> inspect_options[] = {
      "the model file (required). It is checked completely\n"
      "(checksums, version, layout) first.",
      [](inspect_request& q, const std::string& v) { q.model_path = file_name("--model", v); }},
-    {"--json", nullptr,
-     "print the description as JSON instead of text.",
-     [](inspect_request& q, const std::string&) { q.json = true; }},
+    {"--json", nullptr, "print the description as JSON instead of text.", [](inspect_request& q, const std::string&) { q.json = true; }},
 };
 
 }  // namespace
@@ -45,12 +43,11 @@ inspect_request parse_inspect_request(const std::vector<std::string>& args) {
 }
 
 std::string inspect_help() {
-    return std::string(
-           "tenon inspect: describe a saved model\n"
-           "\n"
-           "Usage: tenon inspect --model MODEL.tnm [--json]\n"
-           "\n") +
-           detail::options_help(detail::inspect_options) + R"(
+    return std::string("tenon inspect: describe a saved model\n"
+                       "\n"
+                       "Usage: tenon inspect --model MODEL.tnm [--json]\n"
+                       "\n") +
+        detail::options_help(detail::inspect_options) + R"(
 Prints the file's format version and sections; provenance (creation time in
 UTC, library version, seed, epochs, row counts, the training data's
 fingerprint); the target and its classes; every input column with its kind,
@@ -95,9 +92,12 @@ std::string list_head(const std::vector<std::string>& items, std::size_t shown, 
 
 const char* unseen_text(tenon::unseen_policy p) {
     switch (p) {
-        case tenon::unseen_policy::fail: return "refused";
-        case tenon::unseen_policy::all_zero: return "all zeros";
-        case tenon::unseen_policy::other_slot: return "an 'other' slot";
+    case tenon::unseen_policy::fail:
+        return "refused";
+    case tenon::unseen_policy::all_zero:
+        return "all zeros";
+    case tenon::unseen_policy::other_slot:
+        return "an 'other' slot";
     }
     return "?";
 }
@@ -113,7 +113,8 @@ void describe_layers(const tenon::layer_record& r, std::size_t depth, std::strin
     for (const auto& l : r.children) {
         std::string details;
         if (l.kind == "dense") {
-            details = significant(l.number("inputs")) + " -> " + significant(l.number("outputs")) + (l.has("bias") && l.number("bias") == 0 ? ", no bias" : "");
+            details = significant(l.number("inputs")) + " -> " + significant(l.number("outputs")) +
+                (l.has("bias") && l.number("bias") == 0 ? ", no bias" : "");
         } else if (l.kind == "activation" && l.has("function")) {
             for (const auto& t : l.texts)
                 if (t.first == "function") details = t.second;
@@ -144,11 +145,14 @@ void layers_json(json_writer& j, const tenon::layer_record& r) {
 
 std::string fill_text(const tenon::fill_value& f, tenon::column_kind kind) {
     switch (f.method) {
-        case tenon::fill_method::none: return "refused";
-        case tenon::fill_method::mode: return "mode '" + f.text + "'";
-        case tenon::fill_method::constant:
-            return kind == tenon::column_kind::categorical ? "constant '" + f.text + "'" : "constant " + column_value(kind, f.number);
-        default: return std::string(tenon::to_string(f.method)) + " " + column_value(kind, f.number);
+    case tenon::fill_method::none:
+        return "refused";
+    case tenon::fill_method::mode:
+        return "mode '" + f.text + "'";
+    case tenon::fill_method::constant:
+        return kind == tenon::column_kind::categorical ? "constant '" + f.text + "'" : "constant " + column_value(kind, f.number);
+    default:
+        return std::string(tenon::to_string(f.method)) + " " + column_value(kind, f.number);
     }
 }
 
@@ -169,8 +173,8 @@ std::string inspect_text(const tenon::model_file_summary& m, const std::string& 
     std::string s = path + "\n";
     std::vector<std::string> ids;
     for (const auto& sec : m.sections) ids.push_back(sec.id);
-    s += "  tenon model file, format version " + std::to_string(m.format_version) + ", " + (m.scalar_bytes == 8 ? "double" : "float") +
-         " weights, " + byte_size(m.file_bytes) + "; sections " + join(ids, " ") + "\n";
+    s += "  tenon model file, format version " + std::to_string(m.format_version) + ", " + (m.scalar_bytes == 8 ? "double" : "float") + " weights, " +
+        byte_size(m.file_bytes) + "; sections " + join(ids, " ") + "\n";
     s += "  replay sample: " + std::to_string(m.replay_rows) + " training rows; resumable: " + (m.resumable ? "yes" : "no") + "\n";
 
     if (m.metadata) {
@@ -183,18 +187,18 @@ std::string inspect_text(const tenon::model_file_summary& m, const std::string& 
         s += "  data         " + (data.empty() ? std::string() : data + ", ") + "fingerprint " + hex64(t.data_fingerprint) + "\n";
         if (metadata_setting(t, "origin") == "retraining") {
             s += "  rows         " + std::to_string(t.training_rows) + " training (" + significant(t.metric("new_training_rows")) + " new, " +
-                 significant(t.metric("replay_training_rows")) + " from the replay sample), " + std::to_string(t.validation_rows) +
-                 " validation, " + significant(t.metric("gate_holdout_rows")) + " new rows held out for the gate, " +
-                 std::to_string(t.dropped_rows) + " new rows refused\n";
+                significant(t.metric("replay_training_rows")) + " from the replay sample), " + std::to_string(t.validation_rows) + " validation, " +
+                significant(t.metric("gate_holdout_rows")) + " new rows held out for the gate, " + std::to_string(t.dropped_rows) +
+                " new rows refused\n";
             s += "  gate         " + metadata_setting(t, "gate_metric") + " " + significant(t.metric("gate_candidate_score")) +
-                 " against the replaced weights' " + significant(t.metric("gate_incumbent_score")) + " on the held-out new rows\n";
+                " against the replaced weights' " + significant(t.metric("gate_incumbent_score")) + " on the held-out new rows\n";
         } else {
             s += "  rows         " + std::to_string(t.training_rows) + " training, " + std::to_string(t.validation_rows) + " validation, " +
-                 std::to_string(t.dropped_rows) + " dropped for a missing target\n";
+                std::to_string(t.dropped_rows) + " dropped for a missing target\n";
         }
         s += "  seed         " + std::to_string(t.seed) + "\n";
         s += "  epochs       " + std::to_string(t.epochs_run) + " run of " + std::to_string(t.epochs_planned) + ", best " +
-             std::to_string(t.best_epoch) + ", stopped: " + t.stop_reason + "; " + std::to_string(t.steps) + " steps; loss " + t.loss + "\n";
+            std::to_string(t.best_epoch) + ", stopped: " + t.stop_reason + "; " + std::to_string(t.steps) + " steps; loss " + t.loss + "\n";
     }
 
     if (m.plan) {
@@ -203,12 +207,12 @@ std::string inspect_text(const tenon::model_file_summary& m, const std::string& 
         if (!p.has_target()) {
             s += "  none (the network's outputs are given as they are)\n";
         } else if (p.target_type() == tenon::target_kind::classification) {
-            s += "  " + p.target_name() + ": classification into " + std::to_string(p.class_count()) + " classes: " +
-                 list_head(p.class_names(), 50, "classes") + "\n";
+            s += "  " + p.target_name() + ": classification into " + std::to_string(p.class_count()) +
+                " classes: " + list_head(p.class_names(), 50, "classes") + "\n";
         } else {
             const tenon::scaling& ts = p.target_scaling();
             s += "  " + p.target_name() + ": regression; trained on the " + tenon::to_string(ts.method) + "-scaled target (centre " +
-                 significant(ts.center) + ", spread " + significant(ts.spread) + "), predicted in its original units\n";
+                significant(ts.center) + ", spread " + significant(ts.spread) + "), predicted in its original units\n";
         }
         s += "\nInputs: " + std::to_string(p.input_columns().size()) + " columns -> " + std::to_string(p.feature_count()) + " features\n";
         for (const auto& name : p.input_columns()) {
@@ -222,16 +226,20 @@ std::string inspect_text(const tenon::model_file_summary& m, const std::string& 
                 prep += "; one-hot, unseen -> " + std::string(unseen_text(h.policy()));
             } else {
                 const tenon::scaling& c = p.feature_scaling(name);
-                const tenon::time_encoding encoding = kind == tenon::column_kind::datetime ? p.feature_time_encoding(name) : tenon::time_encoding::value;
+                const tenon::time_encoding encoding =
+                    kind == tenon::column_kind::datetime ? p.feature_time_encoding(name) : tenon::time_encoding::value;
                 if (encoding != tenon::time_encoding::cycles)
-                    prep += "; " + std::string(tenon::to_string(c.method)) + " (centre " + significant(c.center) + ", spread " + significant(c.spread) + ")";
+                    prep += "; " + std::string(tenon::to_string(c.method)) + " (centre " + significant(c.center) + ", spread " +
+                        significant(c.spread) + ")";
                 if (kind == tenon::column_kind::datetime) {
                     const tenon::time_format form = p.feature_time_form(name);
-                    s += "    time form    " + (form == tenon::time_format::detect ? std::string("any of YYYY-MM-DD, YYYY/MM/DD, DD.MM.YYYY")
-                                                                                   : std::string(tenon::to_string(form))) + "\n";
+                    s += "    time form    " +
+                        (form == tenon::time_format::detect ? std::string("any of YYYY-MM-DD, YYYY/MM/DD, DD.MM.YYYY")
+                                                            : std::string(tenon::to_string(form))) +
+                        "\n";
                     if (encoding != tenon::time_encoding::value)
                         prep += std::string(encoding == tenon::time_encoding::cycles ? "; only" : ";") +
-                                " hour of day, day of week, day of year as sine/cosine pairs";
+                            " hour of day, day of week, day of year as sine/cosine pairs";
                 }
             }
             s += "    preparation  " + prep + "\n";
@@ -246,7 +254,7 @@ std::string inspect_text(const tenon::model_file_summary& m, const std::string& 
                     if (r->deciles.size() == 11) seen += ", median " + column_value(kind, r->deciles[5]);
                 }
                 s += "    training     " + seen + (seen.empty() ? "" : "; ") + std::to_string(r->present) + " present, " +
-                     std::to_string(r->missing) + " missing\n";
+                    std::to_string(r->missing) + " missing\n";
             }
         }
     }
@@ -260,17 +268,20 @@ std::string inspect_text(const tenon::model_file_summary& m, const std::string& 
     } else {
         if (const auto& i = m.calibration->interval) {
             s += "  band         split-conformal, nominal coverage " + significant(i->coverage) + ", from " + std::to_string(i->rows) +
-                 " calibration rows\n";
-            s += "  half width   " + (std::isfinite(i->half_width) ? significant(i->half_width) : std::string("infinite (too few rows for the coverage)")) +
-                 " in the target's units" + (i->has_spread ? "; normalized: " + significant(i->spread_quantile) + " x (spread + " +
-                                                                 significant(i->spread_floor) + ") when a spread is given"
-                                                           : std::string()) + "\n";
+                " calibration rows\n";
+            s += "  half width   " +
+                (std::isfinite(i->half_width) ? significant(i->half_width) : std::string("infinite (too few rows for the coverage)")) +
+                " in the target's units" +
+                (i->has_spread ? "; normalized: " + significant(i->spread_quantile) + " x (spread + " + significant(i->spread_floor) +
+                         ") when a spread is given"
+                               : std::string()) +
+                "\n";
         }
         if (const auto& k = m.calibration->classes) {
             s += "  classes      temperature " + significant(k->temperature) + " (fitted on the validation log loss), from " +
-                 std::to_string(k->rows) + " calibration rows\n";
+                std::to_string(k->rows) + " calibration rows\n";
             s += "  class sets   nominal coverage " + significant(k->coverage) + "; a class joins when 1 - p <= " +
-                 (std::isfinite(k->set_threshold) ? significant(k->set_threshold) : std::string("infinity (every class)")) + "\n";
+                (std::isfinite(k->set_threshold) ? significant(k->set_threshold) : std::string("infinity (every class)")) + "\n";
         }
         s += "  The coverage is promised for rows like the training rows; not for rows with cells out of range or under drift.\n";
     }
@@ -291,13 +302,13 @@ std::string inspect_text(const tenon::model_file_summary& m, const std::string& 
     }
     if (!m.history.empty()) {
         s += "\nHistory: " + std::to_string(m.history.size()) + " earlier " + (m.history.size() == 1 ? "training" : "trainings") +
-             " whose weights were replaced, oldest first\n";
+            " whose weights were replaced, oldest first\n";
         for (std::size_t k = 0; k < m.history.size(); ++k) {
             const tenon::training_metadata& t = m.history[k];
             const std::string data = metadata_setting(t, "data");
             s += "  " + std::to_string(k + 1) + ". " + utc_text(t.created_unix_seconds) + ", " + made_by(t) + ", data " +
-                 (data.empty() ? std::string() : data + ", ") + "fingerprint " + hex64(t.data_fingerprint) + ", " +
-                 std::to_string(t.training_rows) + " training rows\n";
+                (data.empty() ? std::string() : data + ", ") + "fingerprint " + hex64(t.data_fingerprint) + ", " + std::to_string(t.training_rows) +
+                " training rows\n";
             std::vector<std::string> scores;
             for (const auto& kv : t.metrics) scores.push_back(kv.first + " " + significant(kv.second));
             if (!scores.empty()) s += "     " + join(scores, ", ") + "\n";
@@ -309,7 +320,10 @@ std::string inspect_text(const tenon::model_file_summary& m, const std::string& 
 std::string inspect_json(const tenon::model_file_summary& m, const std::string& path) {
     json_writer j;
     j.open_object();
-    j.text("file", path).count("format_version", m.format_version).text("scalar", m.scalar_bytes == 8 ? "double" : "float").count("bytes", m.file_bytes);
+    j.text("file", path)
+        .count("format_version", m.format_version)
+        .text("scalar", m.scalar_bytes == 8 ? "double" : "float")
+        .count("bytes", m.file_bytes);
     j.open_array("sections");
     for (const auto& sec : m.sections) j.open_object().text("id", sec.id).count("bytes", sec.length).close_object();
     j.close_array();
@@ -376,8 +390,10 @@ std::string inspect_json(const tenon::model_file_summary& m, const std::string& 
                 if (kind == tenon::column_kind::datetime) {
                     const tenon::time_encoding encoding = p.feature_time_encoding(name);
                     j.text("time_format", tenon::to_string(p.feature_time_form(name)));
-                    j.text("time_features", encoding == tenon::time_encoding::value ? "stamp"
-                                            : encoding == tenon::time_encoding::cycles ? "cycles" : "stamp and cycles");
+                    j.text("time_features",
+                           encoding == tenon::time_encoding::value        ? "stamp"
+                               : encoding == tenon::time_encoding::cycles ? "cycles"
+                                                                          : "stamp and cycles");
                 }
             }
             if (const tenon::feature_reference* r = reference_of(m, name)) {
@@ -398,8 +414,10 @@ std::string inspect_json(const tenon::model_file_summary& m, const std::string& 
     j.open_object("network").count("parameter_values", m.parameter_values);
     layers_json(j, m.architecture);
     j.close_object();
-    if (m.calibration) write_calibration(j, "calibration", *m.calibration);
-    else j.null("calibration");
+    if (m.calibration)
+        write_calibration(j, "calibration", *m.calibration);
+    else
+        j.null("calibration");
     if (m.metadata) {
         j.open_object("metrics");
         for (const auto& kv : m.metadata->metrics) j.number(kv.first.c_str(), kv.second);

@@ -51,7 +51,6 @@ std::string json_writer::finish() {
     return out_;
 }
 
-
 std::string json_writer::escape(const std::string& s) { return tenon::detail::json_escape(s); }
 
 json_writer& json_writer::open(const char* key, char bracket) {

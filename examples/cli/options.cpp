@@ -33,8 +33,8 @@ std::vector<given_option> read_options(const std::string& command, const std::ve
             continue;
         }
         if (name.rfind("--", 0) != 0)
-            fail(cli_codes::option_unknown, "unexpected argument '" + name + "' for 'tenon " + command + "' (options start with --; see tenon " +
-                                                command + " --help)");
+            fail(cli_codes::option_unknown,
+                 "unexpected argument '" + name + "' for 'tenon " + command + "' (options start with --; see tenon " + command + " --help)");
         const auto eq = name.find('=');
         if (eq != std::string::npos) {
             value = name.substr(eq + 1);
@@ -65,8 +65,10 @@ std::string option_help(const char* before, const char* spelling, const char* va
     std::string name = std::string("  ") + spelling;
     if (value_name) name += std::string(" ") + value_name;
     s += name;
-    if (name.size() + 2 <= text_column) s.append(text_column - name.size(), ' ');
-    else s += "\n" + std::string(text_column, ' ');
+    if (name.size() + 2 <= text_column)
+        s.append(text_column - name.size(), ' ');
+    else
+        s += "\n" + std::string(text_column, ' ');
     for (const char* c = help; *c; ++c) {
         s += *c;
         if (*c == '\n') s.append(text_column, ' ');
@@ -112,10 +114,8 @@ std::size_t parse_count(const std::string& option, const std::string& text, std:
     const auto r = std::from_chars(first, last, value);
     if (!text.empty() && r.ec == std::errc::result_out_of_range && r.ptr == last)
         fail(cli_codes::option_value, option + " '" + text + "': too large (more than 18446744073709551615)");
-    if (text.empty() || r.ec != std::errc() || r.ptr != last)
-        fail(cli_codes::option_value, option + " '" + text + "': not a whole number");
-    if (value < minimum)
-        fail(cli_codes::option_value, option + " '" + text + "': must be at least " + std::to_string(minimum));
+    if (text.empty() || r.ec != std::errc() || r.ptr != last) fail(cli_codes::option_value, option + " '" + text + "': not a whole number");
+    if (value < minimum) fail(cli_codes::option_value, option + " '" + text + "': must be at least " + std::to_string(minimum));
     if (value > std::numeric_limits<std::size_t>::max()) fail(cli_codes::option_value, option + " '" + text + "': too large");
     return static_cast<std::size_t>(value);
 }
@@ -131,8 +131,7 @@ std::uint64_t parse_seed(const std::string& text) {
 
 double parse_real(const std::string& option, const std::string& text) {
     double value = 0;
-    if (!tenon::parse_number(text, value) || text.empty())
-        fail(cli_codes::option_value, option + " '" + text + "': not a finite number");
+    if (!tenon::parse_number(text, value) || text.empty()) fail(cli_codes::option_value, option + " '" + text + "': not a finite number");
     return value;
 }
 

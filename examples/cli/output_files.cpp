@@ -64,7 +64,6 @@ file_key check_input(const char* code, const std::string& option, const std::str
     return key_of(st);
 }
 
-
 // ---------------------------------------------------------------------------
 // Temporary files removed by the signal handler. A fixed table, because the
 // handler may only call async-signal-safe functions (unlink, signal, raise;
@@ -207,7 +206,6 @@ std::size_t remove_stale_temporaries(const std::string& directory, const std::st
     return removed;
 }
 
-
 // ---------------------------------------------------------------------------
 // Outputs
 
@@ -250,8 +248,10 @@ output_place resolve_output(const std::string& option, const std::string& path) 
     if (path == "-" || path == "/dev/stdout") {
         p.kind = output_kind::standard_output;
         struct stat st {};
-        if (::fstat(STDOUT_FILENO, &st) == 0) p.key = key_of(st);
-        else p.key.name = "<standard output>";
+        if (::fstat(STDOUT_FILENO, &st) == 0)
+            p.key = key_of(st);
+        else
+            p.key.name = "<standard output>";
         return p;
     }
     struct stat st {};
@@ -295,8 +295,9 @@ output_place resolve_output(const std::string& option, const std::string& path) 
     struct stat d {};
     if (::stat(p.directory.c_str(), &d) != 0) {
         const int e = errno;
-        output_failure(option, path, e == ENOENT ? "the directory '" + p.directory + "' does not exist"
-                                                 : "cannot reach the directory '" + p.directory + "' (" + reason(e) + ")");
+        output_failure(option, path,
+                       e == ENOENT ? "the directory '" + p.directory + "' does not exist"
+                                   : "cannot reach the directory '" + p.directory + "' (" + reason(e) + ")");
     }
     if (!S_ISDIR(d.st_mode)) output_failure(option, path, "'" + p.directory + "' is not a directory");
     if (p.exists) {
@@ -358,8 +359,10 @@ void pending_output::write(const std::vector<std::uint8_t>& bytes) {
 
 std::ostream& pending_output::stream() {
     if (!stream_) {
-        if (place_.kind == output_kind::staged) stream_.reset(new std::ostream(&buffer_));
-        else stream_.reset(new std::ostream(&memory_));
+        if (place_.kind == output_kind::staged)
+            stream_.reset(new std::ostream(&buffer_));
+        else
+            stream_.reset(new std::ostream(&memory_));
     }
     return *stream_;
 }
@@ -368,8 +371,9 @@ void pending_output::finish_stream() {
     if (!stream_) return;
     stream_->flush();
     if (place_.kind == output_kind::staged && (buffer_.error() != 0 || !*stream_))
-        output_failure(option_, place_.given, "writing the temporary file '" + temporary_ + "' failed (" + reason(buffer_.error() ? buffer_.error() : EIO) +
-                                                  "); the previous file is unchanged");
+        output_failure(option_, place_.given,
+                       "writing the temporary file '" + temporary_ + "' failed (" + reason(buffer_.error() ? buffer_.error() : EIO) +
+                           "); the previous file is unchanged");
 }
 
 void pending_output::sync() {
@@ -378,43 +382,43 @@ void pending_output::sync() {
     if (::fchmod(fd_, mode_) != 0) output_failure(option_, place_.given, "cannot set the mode of '" + temporary_ + "' (" + reason(errno) + ")");
     if (place_.exists && ::geteuid() == 0) {
         // root keeps the owner of the file it replaces; a failure leaves root's.
-        if (::fchown(fd_, place_.status.st_uid, place_.status.st_gid) != 0) {
-        }
+        if (::fchown(fd_, place_.status.st_uid, place_.status.st_gid) != 0) {}
     }
-    if (::fsync(fd_) != 0) output_failure(option_, place_.given, "fsync of '" + temporary_ + "' failed (" + reason(errno) + "); the previous file is unchanged");
+    if (::fsync(fd_) != 0)
+        output_failure(option_, place_.given, "fsync of '" + temporary_ + "' failed (" + reason(errno) + "); the previous file is unchanged");
 }
 
 void pending_output::commit() {
     if (!active_) return;
     switch (place_.kind) {
-        case output_kind::standard_output:
-            if (standard_output_) {
-                const std::string text = memory_.str();
-                standard_output_->write(text.data(), static_cast<std::streamsize>(text.size()));
-                standard_output_->flush();
-            }
-            break;
-        case output_kind::direct:
-            write_directly();
-            break;
-        case output_kind::staged: {
-            sync();
-            const int fd = fd_;
-            fd_ = -1;
-            if (::close(fd) != 0) output_failure(option_, place_.given, "closing '" + temporary_ + "' failed (" + reason(errno) + ")");
-            if (::rename(temporary_.c_str(), place_.target.c_str()) != 0)
-                output_failure(option_, place_.given, "cannot move '" + temporary_ + "' into place (" + reason(errno) + ")");
-            detail::unregister_temporary(slot_);
-            slot_ = -1;
-            const int dir = ::open(place_.directory.c_str(), O_RDONLY | O_CLOEXEC);
-            if (dir >= 0) {
-                ::fsync(dir);
-                ::close(dir);
-            }
-            break;
+    case output_kind::standard_output:
+        if (standard_output_) {
+            const std::string text = memory_.str();
+            standard_output_->write(text.data(), static_cast<std::streamsize>(text.size()));
+            standard_output_->flush();
         }
-        case output_kind::none:
-            break;
+        break;
+    case output_kind::direct:
+        write_directly();
+        break;
+    case output_kind::staged: {
+        sync();
+        const int fd = fd_;
+        fd_ = -1;
+        if (::close(fd) != 0) output_failure(option_, place_.given, "closing '" + temporary_ + "' failed (" + reason(errno) + ")");
+        if (::rename(temporary_.c_str(), place_.target.c_str()) != 0)
+            output_failure(option_, place_.given, "cannot move '" + temporary_ + "' into place (" + reason(errno) + ")");
+        detail::unregister_temporary(slot_);
+        slot_ = -1;
+        const int dir = ::open(place_.directory.c_str(), O_RDONLY | O_CLOEXEC);
+        if (dir >= 0) {
+            ::fsync(dir);
+            ::close(dir);
+        }
+        break;
+    }
+    case output_kind::none:
+        break;
     }
     active_ = false;
 }
@@ -438,8 +442,9 @@ void pending_output::create_temporary() {
         struct stat d {};
         const uid_t me = ::geteuid();
         if (::stat(place_.directory.c_str(), &d) == 0 && (d.st_mode & S_ISVTX) && me != 0 && me != d.st_uid && me != place_.status.st_uid)
-            output_failure(option_, place_.given, "cannot be replaced: it belongs to another user and its directory '" + place_.directory +
-                                                      "' is sticky (Operation not permitted)");
+            output_failure(option_, place_.given,
+                           "cannot be replaced: it belongs to another user and its directory '" + place_.directory +
+                               "' is sticky (Operation not permitted)");
     }
     remove_stale_temporaries(place_.directory, place_.name);
     mode_ = place_.exists ? static_cast<mode_t>(place_.status.st_mode & 07777) : static_cast<mode_t>(0666 & ~current_umask());
@@ -452,8 +457,9 @@ void pending_output::create_temporary() {
     const int fd = tenon::create_temporary_file(place_.directory + "/" + place_.name, host, temporary_);
     if (fd < 0) {
         const int e = errno;
-        output_failure(option_, place_.given, e == EEXIST ? "cannot create a temporary file in '" + place_.directory + "' (every name tried exists)"
-                                                          : "cannot create a file in the directory '" + place_.directory + "' (" + reason(e) + ")");
+        output_failure(option_, place_.given,
+                       e == EEXIST ? "cannot create a temporary file in '" + place_.directory + "' (every name tried exists)"
+                                   : "cannot create a file in the directory '" + place_.directory + "' (" + reason(e) + ")");
     }
     fd_ = fd;
     slot_ = detail::register_temporary(temporary_);
@@ -486,7 +492,8 @@ void file_roster::check(const std::string& allowed_a, const std::string& allowed
             const entry& y = entries_[b];
             if (!x.is_output && !y.is_output) continue;
             if (!x.key.same_as(y.key)) continue;
-            if (!allowed_a.empty() && ((x.option == allowed_a && y.option == allowed_b) || (x.option == allowed_b && y.option == allowed_a))) continue;
+            if (!allowed_a.empty() && ((x.option == allowed_a && y.option == allowed_b) || (x.option == allowed_b && y.option == allowed_a)))
+                continue;
             const std::string same = x.path == y.path ? "'" + x.path + "'" : "'" + x.path + "' and '" + y.path + "' (the same file)";
             throw cli_failure(cli_codes::option_conflict, x.option + " and " + y.option + " name the same file: " + same, exit_bad_input);
         }

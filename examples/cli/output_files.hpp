@@ -57,9 +57,7 @@ struct file_key {
     bool exists = false;
     std::uint64_t device = 0, inode = 0;
     std::string name;
-    bool same_as(const file_key& o) const {
-        return exists == o.exists && device == o.device && inode == o.inode && name == o.name;
-    }
+    bool same_as(const file_key& o) const { return exists == o.exists && device == o.device && inode == o.inode && name == o.name; }
 };
 
 /// strerror(e).
@@ -106,10 +104,10 @@ enum class output_kind { none, staged, direct, standard_output };
 /// Where an output goes, resolved before anything is trained.
 struct output_place {
     output_kind kind = output_kind::none;
-    std::string given;      // as the user wrote it
-    std::string target;     // the file replaced (symlinks followed) or written
+    std::string given;  // as the user wrote it
+    std::string target;  // the file replaced (symlinks followed) or written
     std::string directory;  // of target (staged)
-    std::string name;       // of target (staged)
+    std::string name;  // of target (staged)
     bool exists = false;
     struct stat status {};
     file_key key;

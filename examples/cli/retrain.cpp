@@ -20,7 +20,7 @@ struct retrain_request {
     std::string data_path;
     std::string out_path;
     std::string rollback_path;  // empty: "<model>.previous" when --out replaces --model
-    std::string json_path;      // empty: none; "-": standard output
+    std::string json_path;  // empty: none; "-": standard output
     tenon::gate_metric metric = tenon::gate_metric::automatic;
     double margin = 0.0;
     double budget_seconds = 0.0;  // 0 = no limit
@@ -38,8 +38,7 @@ namespace {
 
 // The options of `tenon retrain`, in the order --help lists them.
 const option_entry<retrain_request> retrain_options[] = {
-    {"--model", "MODEL.tnm",
-     "the incumbent, saved by tenon train --model (required).",
+    {"--model", "MODEL.tnm", "the incumbent, saved by tenon train --model (required).",
      [](retrain_request& q, const std::string& v) { q.model_path = file_name("--model", v); }},
     {"--data", "NEW.csv",
      "newly collected rows with a header (required): every\n"
@@ -129,9 +128,7 @@ const option_entry<retrain_request> retrain_options[] = {
      "it instead of the text summary.\n"
      "Written whatever the decision.",
      [](retrain_request& q, const std::string& v) { q.json_path = file_name("--json", v); }},
-    {"--quiet", nullptr,
-     "print nothing but errors.",
-     [](retrain_request& q, const std::string&) { q.quiet = true; }},
+    {"--quiet", nullptr, "print nothing but errors.", [](retrain_request& q, const std::string&) { q.quiet = true; }},
 };
 
 }  // namespace
@@ -168,12 +165,11 @@ retrain_request parse_retrain_request(const std::vector<std::string>& args) {
 }
 
 std::string retrain_help() {
-    return std::string(
-           "tenon retrain: continue training a saved model on new rows; replace it only if it gets better\n"
-           "\n"
-           "Usage: tenon retrain --model MODEL.tnm --data NEW.csv --out NEW_MODEL.tnm [options]\n"
-           "\n") +
-           detail::options_help(detail::retrain_options) + R"(
+    return std::string("tenon retrain: continue training a saved model on new rows; replace it only if it gets better\n"
+                       "\n"
+                       "Usage: tenon retrain --model MODEL.tnm --data NEW.csv --out NEW_MODEL.tnm [options]\n"
+                       "\n") +
+        detail::options_help(detail::retrain_options) + R"(
 The candidate starts from the model's weights and trains on the new rows
 (minus the holdout) mixed with the sample of training rows the model file
 keeps; incumbent and candidate are then scored on the holdout with the same
@@ -182,7 +178,8 @@ reference ranges (for tenon drift) and the continued sample, and is
 recalibrated on its validation rows at the model's nominal coverage; the
 summary gives both models' coverage (bands or class sets) on the holdout.
 
-)" + detail::files_help("with --out naming --model by any path the retrain is in\n  place and keeps the replaced model at --rollback;") + R"(
+)" + detail::files_help("with --out naming --model by any path the retrain is in\n  place and keeps the replaced model at --rollback;") +
+        R"(
 Exit status
   0 the candidate was promoted and written to --out; 4 the incumbent was kept
   and nothing was written to --out or --rollback; 2 bad command line, model
@@ -215,8 +212,9 @@ std::string retrain_text(const tenon::retraining_report& r, const retrain_reques
         return buffer + value + "\n";
     };
     std::string s = (r.promoted ? "promoted: " : "kept the incumbent: ") + r.reason + "\n";
-    s += line("metric", r.metric + (r.higher_is_better ? " (higher is better)" : " (lower is better)") + " on " +
-                            std::to_string(r.holdout_rows) + " holdout rows, margin " + significant(r.margin));
+    s += line("metric",
+              r.metric + (r.higher_is_better ? " (higher is better)" : " (lower is better)") + " on " + std::to_string(r.holdout_rows) +
+                  " holdout rows, margin " + significant(r.margin));
     s += line("incumbent", significant(r.incumbent_score));
     s += line("candidate", significant(r.candidate_score));
     s += line("improvement", significant(r.improvement));
@@ -227,10 +225,10 @@ std::string retrain_text(const tenon::retraining_report& r, const retrain_reques
             if (!std::isfinite(c)) return std::string("no calibration");
             return significant(c) + (sets ? ", mean set size " : ", mean band width ") + significant(width);
         };
-        s += line("coverage", std::string(sets ? "class sets" : "bands") + " on the holdout, nominal " + significant(r.nominal_coverage) +
-                                  ": incumbent " + coverage(r.incumbent_coverage, r.incumbent_width) + "; candidate " +
-                                  coverage(r.candidate_coverage, r.candidate_width) +
-                                  (std::isfinite(r.candidate_coverage) ? " (recalibrated on its validation rows)" : std::string()));
+        s += line("coverage",
+                  std::string(sets ? "class sets" : "bands") + " on the holdout, nominal " + significant(r.nominal_coverage) + ": incumbent " +
+                      coverage(r.incumbent_coverage, r.incumbent_width) + "; candidate " + coverage(r.candidate_coverage, r.candidate_width) +
+                      (std::isfinite(r.candidate_coverage) ? " (recalibrated on its validation rows)" : std::string()));
     }
     std::string rows = std::to_string(r.new_rows) + " new (" + std::to_string(r.new_rows_refused) + " refused";
     const std::pair<const char*, std::size_t> refusals[] = {{"missing target", r.refused_missing_target},
@@ -241,13 +239,15 @@ std::string retrain_text(const tenon::retraining_report& r, const retrain_reques
     for (const auto& refusal : refusals)
         if (refusal.second) rows += ", " + std::to_string(refusal.second) + " " + refusal.first;
     rows += "): " + std::to_string(r.holdout_rows) + " holdout, " + std::to_string(r.new_training_rows) + " for training; " +
-            std::to_string(r.replay_rows) + " replayed training rows; " + std::to_string(r.training_rows) + " trained on, " +
-            std::to_string(r.validation_rows) + " for early stopping";
+        std::to_string(r.replay_rows) + " replayed training rows; " + std::to_string(r.training_rows) + " trained on, " +
+        std::to_string(r.validation_rows) + " for early stopping";
     s += line("rows", rows);
-    s += line("training", std::to_string(r.epochs_run) + " epochs, " + std::to_string(r.steps) + " steps, stopped: " + r.stop_reason +
-                              (r.stop_message.empty() ? std::string() : " (" + r.stop_message + ")") + "; " + elapsed_text(r.training_seconds));
-    s += line("time", elapsed_text(r.seconds) + " in all, budget " +
-                          (r.time_budget_seconds > 0 ? duration_text(r.time_budget_seconds) : std::string("none")));
+    s += line("training",
+              std::to_string(r.epochs_run) + " epochs, " + std::to_string(r.steps) + " steps, stopped: " + r.stop_reason +
+                  (r.stop_message.empty() ? std::string() : " (" + r.stop_message + ")") + "; " + elapsed_text(r.training_seconds));
+    s +=
+        line("time",
+             elapsed_text(r.seconds) + " in all, budget " + (r.time_budget_seconds > 0 ? duration_text(r.time_budget_seconds) : std::string("none")));
     if (r.promoted) {
         s += "candidate written to " + q.out_path;
         if (in_place) s += "; the previous model kept at " + r.rollback_path;
@@ -294,9 +294,9 @@ int run_retrain(const std::vector<std::string>& args, std::ostream& out, std::os
     needed.push_back(summary.plan->target_name());
     const std::string absent = detail::absent_columns(t, needed);
     if (!absent.empty())
-        fail(cli_codes::column_missing, q.data_path + ": retraining needs " + absent + " (the model's inputs and its target '" +
-                                            summary.plan->target_name() + "'), which the data does not have (columns: " +
-                                            detail::column_listing(t.column_names()) + ")");
+        fail(cli_codes::column_missing,
+             q.data_path + ": retraining needs " + absent + " (the model's inputs and its target '" + summary.plan->target_name() +
+                 "'), which the data does not have (columns: " + detail::column_listing(t.column_names()) + ")");
 
     tenon::retraining_options options;
     options.metric = q.metric;
@@ -309,9 +309,9 @@ int run_retrain(const std::vector<std::string>& args, std::ostream& out, std::os
     options.time_budget_seconds = q.budget_seconds;
     if (env.clock) options.clock = env.clock;
     std::vector<std::uint8_t> candidate;
-    tenon::retraining_report report =
-        summary.scalar_bytes == 8 ? detail::retrain_with(tenon::model_file_from_bytes<double>(bytes, limits, q.model_path), t, options, candidate)
-                                  : detail::retrain_with(tenon::model_file_from_bytes<float>(bytes, limits, q.model_path), t, options, candidate);
+    tenon::retraining_report report = summary.scalar_bytes == 8
+        ? detail::retrain_with(tenon::model_file_from_bytes<double>(bytes, limits, q.model_path), t, options, candidate)
+        : detail::retrain_with(tenon::model_file_from_bytes<float>(bytes, limits, q.model_path), t, options, candidate);
     report.model_path = q.out_path;
     report.rollback_path = rollback;
     report.file_written = report.promoted;

@@ -20,8 +20,10 @@ namespace detail {
 std::string fixed(double v, int decimals) {
     if (!std::isfinite(v)) return "-";
     char buffer[64];
-    if (std::fabs(v) >= 1e6) std::snprintf(buffer, sizeof buffer, "%.*e", std::min(decimals, 3), v);
-    else std::snprintf(buffer, sizeof buffer, "%.*f", decimals, v);
+    if (std::fabs(v) >= 1e6)
+        std::snprintf(buffer, sizeof buffer, "%.*e", std::min(decimals, 3), v);
+    else
+        std::snprintf(buffer, sizeof buffer, "%.*f", decimals, v);
     return buffer;
 }
 
@@ -33,9 +35,7 @@ std::string duration_text(double seconds) {
     return std::to_string(whole / 3600) + "h" + (whole / 60 % 60 < 10 ? "0" : "") + std::to_string(whole / 60 % 60) + "m";
 }
 
-double steady_seconds() {
-    return std::chrono::duration<double>(std::chrono::steady_clock::now().time_since_epoch()).count();
-}
+double steady_seconds() { return std::chrono::duration<double>(std::chrono::steady_clock::now().time_since_epoch()).count(); }
 
 // A message on one line: control characters (a CR, LF, tab, NUL or other
 // byte below 0x20, or DEL, e.g. from a cell's text) are written as escapes
@@ -55,7 +55,7 @@ std::string failure_text(const std::string& command, const std::exception_ptr& f
     } catch (const std::bad_alloc& e) {  // also std::bad_array_new_length
         status = exit_unexpected;
         return command + ": error: out of memory (" + one_line(e.what()) +
-               "): the run needs more memory than the system allows it; a smaller network (--hidden) or fewer rows or columns needs less";
+            "): the run needs more memory than the system allows it; a smaller network (--hidden) or fewer rows or columns needs less";
     } catch (const std::exception& e) {
         status = exit_unexpected;
         return command + ": unexpected failure: " + one_line(e.what());
@@ -84,9 +84,9 @@ std::string utc_text(std::int64_t seconds) {
     const std::int64_t month = mp < 10 ? mp + 3 : mp - 9;
     const std::int64_t year = yoe + era * 400 + (month <= 2 ? 1 : 0);
     char buffer[64];
-    std::snprintf(buffer, sizeof buffer, "%04lld-%02lld-%02lld %02lld:%02lld:%02lld UTC", static_cast<long long>(year),
-                  static_cast<long long>(month), static_cast<long long>(day), static_cast<long long>(rest / 3600),
-                  static_cast<long long>(rest / 60 % 60), static_cast<long long>(rest % 60));
+    std::snprintf(buffer, sizeof buffer, "%04lld-%02lld-%02lld %02lld:%02lld:%02lld UTC", static_cast<long long>(year), static_cast<long long>(month),
+                  static_cast<long long>(day), static_cast<long long>(rest / 3600), static_cast<long long>(rest / 60 % 60),
+                  static_cast<long long>(rest % 60));
     return buffer;
 }
 

@@ -128,11 +128,11 @@ struct train_request {
     std::string target;
     task_choice task = task_choice::automatic;
     std::vector<std::string> ignored;
-    std::vector<std::string> used;         // --use: identifier-like columns kept as features
+    std::vector<std::string> used;  // --use: identifier-like columns kept as features
     std::vector<std::string> categorical;  // --categorical: read as categories
-    std::vector<std::string> numeric;      // --numeric: read as numbers
-    char delimiter = 0;                    // --delimiter; 0: told from the file
-    bool decimal_comma = false;            // --decimal-comma; otherwise told from the file
+    std::vector<std::string> numeric;  // --numeric: read as numbers
+    char delimiter = 0;  // --delimiter; 0: told from the file
+    bool decimal_comma = false;  // --decimal-comma; otherwise told from the file
     split_choice split = split_choice::automatic;
     std::string time_column;
     std::string group_column;

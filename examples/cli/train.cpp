@@ -22,15 +22,13 @@ namespace {
 
 tenon::activation parse_activation_option(const std::string& text) {
     // The tool spells names with hyphens, as command-line words usually are.
-    const std::pair<const char*, tenon::activation> names[] = {
-        {"relu", tenon::activation::relu},       {"leaky-relu", tenon::activation::leaky_relu},
-        {"elu", tenon::activation::elu},         {"tanh", tenon::activation::tanh},
-        {"sigmoid", tenon::activation::sigmoid}, {"softplus", tenon::activation::softplus},
-        {"gelu", tenon::activation::gelu}};
+    const std::pair<const char*, tenon::activation> names[] = {{"relu", tenon::activation::relu},       {"leaky-relu", tenon::activation::leaky_relu},
+                                                               {"elu", tenon::activation::elu},         {"tanh", tenon::activation::tanh},
+                                                               {"sigmoid", tenon::activation::sigmoid}, {"softplus", tenon::activation::softplus},
+                                                               {"gelu", tenon::activation::gelu}};
     for (const auto& n : names)
         if (text == n.first) return n.second;
-    fail(cli_codes::option_value,
-         "--activation '" + text + "': not one of relu, leaky-relu, elu, tanh, sigmoid, softplus, gelu");
+    fail(cli_codes::option_value, "--activation '" + text + "': not one of relu, leaky-relu, elu, tanh, sigmoid, softplus, gelu");
 }
 
 // --time-format [COLUMN=]FORM[,...]: a bare FORM applies to every date/time
@@ -51,12 +49,11 @@ void parse_time_formats(const std::string& value, train_request& q) {
         tenon::time_format form = tenon::time_format::detect;
         if (!tenon::time_format_from_text(text, form) || form == tenon::time_format::detect)
             fail(cli_codes::option_value, "--time-format '" + item + "': '" + text + "' is not a time format (one of " + forms() + ")");
-        if (eq != std::string::npos && column.empty())
-            fail(cli_codes::option_value, "--time-format '" + item + "': an empty column name");
+        if (eq != std::string::npos && column.empty()) fail(cli_codes::option_value, "--time-format '" + item + "': an empty column name");
         if (column.empty()) {
             if (q.time_format != tenon::time_format::detect)
-                fail(cli_codes::option_conflict, "--time-format names two forms for every column: " + std::string(tenon::to_string(q.time_format)) +
-                                                     " and " + text);
+                fail(cli_codes::option_conflict,
+                     "--time-format names two forms for every column: " + std::string(tenon::to_string(q.time_format)) + " and " + text);
             q.time_format = form;
         } else if (!q.column_time_formats.emplace(column, form).second) {
             fail(cli_codes::option_conflict, "--time-format names column '" + column + "' twice");
@@ -75,14 +72,12 @@ std::vector<std::string> column_list(const char* option, const std::string& valu
 void parse_fractions(const std::string& value, train_request& q) {
     const auto parts = split_list(value);
     if (parts.size() != 3)
-        fail(cli_codes::option_value, "--fractions '" + value + "': expected three numbers TRAIN,VAL,TEST, found " +
-                                          std::to_string(parts.size()));
+        fail(cli_codes::option_value, "--fractions '" + value + "': expected three numbers TRAIN,VAL,TEST, found " + std::to_string(parts.size()));
     const double train = parse_real("--fractions", parts[0]);
     const double validation = parse_real("--fractions", parts[1]);
     const double test = parse_real("--fractions", parts[2]);
     if (!(train > 0 && train < 1) || !(validation >= 0 && validation < 1) || !(test > 0 && test < 1))
-        fail(cli_codes::option_value, "--fractions '" + value +
-                                          "': train and test must lie strictly between 0 and 1, validation in [0, 1)");
+        fail(cli_codes::option_value, "--fractions '" + value + "': train and test must lie strictly between 0 and 1, validation in [0, 1)");
     const double sum = train + validation + test;
     if (std::abs(sum - 1.0) > 1e-6)
         fail(cli_codes::option_value, "--fractions '" + value + "': the fractions sum to " + tenon::number_to_text(sum) + ", not 1");
@@ -102,18 +97,19 @@ void parse_hidden(const std::string& value, train_request& q) {
             fail(cli_codes::option_value, "--hidden '" + value + "': width '" + part + "'" + m.substr(m.find("':") + 1));
         }
         if (width > max_hidden_width)
-            fail(cli_codes::option_value, "--hidden '" + value + "': width " + part + " is above the limit of " + std::to_string(max_hidden_width) +
-                                              " units per layer");
+            fail(cli_codes::option_value,
+                 "--hidden '" + value + "': width " + part + " is above the limit of " + std::to_string(max_hidden_width) + " units per layer");
         q.hidden.push_back(width);
     }
     if (q.hidden.size() > max_hidden_layers)
-        fail(cli_codes::option_value, "--hidden '" + value + "': " + std::to_string(q.hidden.size()) + " layers, above the limit of " +
-                                          std::to_string(max_hidden_layers));
+        fail(cli_codes::option_value,
+             "--hidden '" + value + "': " + std::to_string(q.hidden.size()) + " layers, above the limit of " + std::to_string(max_hidden_layers));
     std::size_t between = 0;  // weights between hidden layers, before the inputs and outputs are known
     for (std::size_t layer = 1; layer < q.hidden.size(); ++layer) between += q.hidden[layer - 1] * q.hidden[layer];
     if (between > max_hidden_weights)
-        fail(cli_codes::option_value, "--hidden '" + value + "': " + std::to_string(between) + " weights between the hidden layers, above the limit of " +
-                                          std::to_string(max_hidden_weights));
+        fail(cli_codes::option_value,
+             "--hidden '" + value + "': " + std::to_string(between) + " weights between the hidden layers, above the limit of " +
+                 std::to_string(max_hidden_weights));
 }
 
 void parse_learning_rate(const std::string& value, train_request& q) {
@@ -124,8 +120,8 @@ void parse_learning_rate(const std::string& value, train_request& q) {
     // nothing; one above the largest float becomes infinite.
     const float as_trained = static_cast<float>(q.learning_rate);
     if (!(as_trained >= std::numeric_limits<float>::min() && as_trained <= std::numeric_limits<float>::max()))
-        fail(cli_codes::option_value, "--learning-rate '" + value + "': outside what single precision (the training's) holds, " +
-                                          "1.2e-38 to 3.4e38");
+        fail(cli_codes::option_value,
+             "--learning-rate '" + value + "': outside what single precision (the training's) holds, " + "1.2e-38 to 3.4e38");
 }
 
 // The options of `tenon train`, in the order --help lists them.
@@ -142,8 +138,7 @@ const option_entry<train_request> train_options[] = {
      "that stays categorical is named in a warning. The\n"
      "delimiter and the decimal mark are told from the\n"
      "first rows (see --delimiter).",
-     [](train_request& q, const std::string& v) { q.data_path = file_name("--data", v); },
-     "Data\n"},
+     [](train_request& q, const std::string& v) { q.data_path = file_name("--data", v); }, "Data\n"},
     {"--target", "COLUMN",
      "the column the model learns (required). Rows whose target\n"
      "is missing are left out and counted as dropped.",
@@ -159,8 +154,7 @@ const option_entry<train_request> train_options[] = {
              {"auto", task_choice::automatic}, {"classify", task_choice::classify}, {"regress", task_choice::regress}};
          q.task = parse_choice("--task", v, names);
      }},
-    {"--ignore", "COL,COL",
-     "columns that are not features (default: none).",
+    {"--ignore", "COL,COL", "columns that are not features (default: none).",
      [](train_request& q, const std::string& v) { q.ignored = column_list("--ignore", v); }},
     {"--use", "COL,COL",
      "keep columns that look like identifiers as features.\n"
@@ -174,8 +168,7 @@ const option_entry<train_request> train_options[] = {
      "A categorical column with more categories than 10% of\n"
      "the rows gets a warning (too few rows per category).",
      [](train_request& q, const std::string& v) { q.used = column_list("--use", v); }},
-    {"--categorical", "COL,COL",
-     "read these columns as categories (a die coded 7 or 9).",
+    {"--categorical", "COL,COL", "read these columns as categories (a die coded 7 or 9).",
      [](train_request& q, const std::string& v) { q.categorical = column_list("--categorical", v); }},
     {"--numeric", "COL,COL",
      "read these columns as numbers; the first cell that is\n"
@@ -205,16 +198,15 @@ const option_entry<train_request> train_options[] = {
      "in one subset (needs --group-column).",
      [](train_request& q, const std::string& v) {
          const std::pair<const char*, split_choice> names[] = {{"auto", split_choice::automatic},
-                                                                {"random", split_choice::random},
-                                                                {"stratified", split_choice::stratified},
-                                                                {"chronological", split_choice::chronological},
-                                                                {"grouped", split_choice::grouped}};
+                                                               {"random", split_choice::random},
+                                                               {"stratified", split_choice::stratified},
+                                                               {"chronological", split_choice::chronological},
+                                                               {"grouped", split_choice::grouped}};
          q.split = parse_choice("--split", v, names);
      },
      "\n"
      "Splitting\n"},
-    {"--time-column", "COL",
-     "time column for --split chronological; not a feature.",
+    {"--time-column", "COL", "time column for --split chronological; not a feature.",
      [](train_request& q, const std::string& v) { q.time_column = v; }},
     {"--time-format", "[COL=]FORM[,...]",
      "how time stamps are written: YYYY-MM-DD (ISO 8601,\n"
@@ -264,27 +256,24 @@ const option_entry<train_request> train_options[] = {
      "  every reported number is in the target's original units.\n"
      "\n"
      "Model and training\n"},
-    {"--activation", "relu|leaky-relu|elu|tanh|sigmoid|softplus|gelu",
-     "hidden activation (default relu).",
+    {"--activation", "relu|leaky-relu|elu|tanh|sigmoid|softplus|gelu", "hidden activation (default relu).",
      [](train_request& q, const std::string& v) { q.hidden_activation = parse_activation_option(v); }},
     {"--loss", "l1|l2|huber|cross-entropy",
      "default cross-entropy for classification, l2 for\n"
      "regression.",
      [](train_request& q, const std::string& v) {
          const std::pair<const char*, tenon::loss_kind> names[] = {{"l1", tenon::loss_kind::l1},
-                                                                    {"l2", tenon::loss_kind::l2},
-                                                                    {"huber", tenon::loss_kind::huber},
-                                                                    {"cross-entropy", tenon::loss_kind::cross_entropy}};
+                                                                   {"l2", tenon::loss_kind::l2},
+                                                                   {"huber", tenon::loss_kind::huber},
+                                                                   {"cross-entropy", tenon::loss_kind::cross_entropy}};
          q.loss = parse_choice("--loss", v, names);
          q.loss_given = true;
      }},
-    {"--optimizer", "gd|momentum|nesterov|adam|adamw|rmsprop|adagrad",
-     "update rule (default adam).",
+    {"--optimizer", "gd|momentum|nesterov|adam|adamw|rmsprop|adagrad", "update rule (default adam).",
      [](train_request& q, const std::string& v) {
          const std::pair<const char*, tenon::update_kind> names[] = {
-             {"gd", tenon::update_kind::gradient_descent}, {"momentum", tenon::update_kind::momentum},
-             {"nesterov", tenon::update_kind::nesterov},   {"adam", tenon::update_kind::adam},
-             {"adamw", tenon::update_kind::adamw},         {"rmsprop", tenon::update_kind::rmsprop},
+             {"gd", tenon::update_kind::gradient_descent}, {"momentum", tenon::update_kind::momentum}, {"nesterov", tenon::update_kind::nesterov},
+             {"adam", tenon::update_kind::adam},           {"adamw", tenon::update_kind::adamw},       {"rmsprop", tenon::update_kind::rmsprop},
              {"adagrad", tenon::update_kind::adagrad}};
          q.update = parse_choice("--optimizer", v, names);
      }},
@@ -380,9 +369,7 @@ const option_entry<train_request> train_options[] = {
      "ranges of the training rows and a sample of them) for\n"
      "tenon infer and tenon inspect. Not with --folds.",
      [](train_request& q, const std::string& v) { q.model_path = file_name("--model", v); }},
-    {"--quiet", nullptr,
-     "print nothing but errors.",
-     [](train_request& q, const std::string&) { q.quiet = true; }},
+    {"--quiet", nullptr, "print nothing but errors.", [](train_request& q, const std::string&) { q.quiet = true; }},
 };
 
 }  // namespace
@@ -399,35 +386,38 @@ train_request parse_train_request(const std::vector<std::string>& args) {
     if (q.time_format == tenon::time_format::epoch_seconds || q.time_format == tenon::time_format::epoch_milliseconds) {
         // Epoch numbers look like any other numbers: they are times only in a named column.
         if (q.time_column.empty())
-            fail(cli_codes::option_missing, std::string("--time-format ") + tenon::to_string(q.time_format) +
-                                                " needs --time-column COLUMN, or name the column: --time-format COLUMN=" +
-                                                tenon::to_string(q.time_format));
+            fail(cli_codes::option_missing,
+                 std::string("--time-format ") + tenon::to_string(q.time_format) +
+                     " needs --time-column COLUMN, or name the column: --time-format COLUMN=" + tenon::to_string(q.time_format));
         q.column_time_formats.emplace(q.time_column, q.time_format);
         q.time_format = tenon::time_format::detect;
     }
-    if (q.split == split_choice::grouped && q.group_column.empty())
-        fail(cli_codes::option_missing, "--split grouped needs --group-column COLUMN");
+    if (q.split == split_choice::grouped && q.group_column.empty()) fail(cli_codes::option_missing, "--split grouped needs --group-column COLUMN");
     if (!q.metrics_path.empty() && !q.report_path.empty() &&
         std::filesystem::path(q.metrics_path).lexically_normal() == std::filesystem::path(q.report_path).lexically_normal())
         fail(cli_codes::option_conflict, "--metrics and --report name the same file '" + q.metrics_path + "'");
     {
-        const std::pair<const char*, const std::string*> outputs[] = {{"--metrics", &q.metrics_path}, {"--report", &q.report_path}, {"--model", &q.model_path}};
+        const std::pair<const char*, const std::string*> outputs[] = {
+            {"--metrics", &q.metrics_path}, {"--report", &q.report_path}, {"--model", &q.model_path}};
         for (std::size_t a = 0; a < 3; ++a)
             for (std::size_t b = a + 1; b < 3; ++b)
                 if (a + b > 1 && !outputs[a].second->empty() && !outputs[b].second->empty() &&
                     std::filesystem::path(*outputs[a].second).lexically_normal() == std::filesystem::path(*outputs[b].second).lexically_normal())
-                    fail(cli_codes::option_conflict, std::string(outputs[a].first) + " and " + outputs[b].first + " name the same file '" + *outputs[a].second + "'");
+                    fail(cli_codes::option_conflict,
+                         std::string(outputs[a].first) + " and " + outputs[b].first + " name the same file '" + *outputs[a].second + "'");
     }
     if (!q.model_path.empty() && std::filesystem::path(q.model_path).lexically_normal() == std::filesystem::path(q.data_path).lexically_normal())
         fail(cli_codes::option_conflict, "--model and --data name the same file '" + q.model_path + "'");
     if (q.folds > 0 && !q.model_path.empty())
-        fail(cli_codes::option_conflict, "--model saves the model of one holdout run; cross-validation (--folds " + std::to_string(q.folds) +
-                                             ") trains one model per fold and saves none");
+        fail(cli_codes::option_conflict,
+             "--model saves the model of one holdout run; cross-validation (--folds " + std::to_string(q.folds) +
+                 ") trains one model per fold and saves none");
     if (q.folds > 0 && !q.report_path.empty())
         fail(cli_codes::option_conflict, "--report draws one holdout run; it cannot be combined with --folds " + std::to_string(q.folds));
     if (q.folds > 0 && std::find(seen.begin(), seen.end(), "--coverage") != seen.end())
-        fail(cli_codes::option_conflict, "--coverage calibrates the model of one holdout run on its validation rows; it cannot be combined with --folds " +
-                                             std::to_string(q.folds));
+        fail(cli_codes::option_conflict,
+             "--coverage calibrates the model of one holdout run on its validation rows; it cannot be combined with --folds " +
+                 std::to_string(q.folds));
     for (const auto& c : q.ignored) {
         if (c == q.target) fail(cli_codes::option_conflict, "--ignore names the target column '" + c + "'");
         if (std::find(q.used.begin(), q.used.end(), c) != q.used.end())
@@ -449,11 +439,11 @@ std::string train_help() {
            "\n"
            "Usage: tenon train --data FILE.csv --target COLUMN [options]\n"
            "\n" +
-           detail::options_help(detail::train_options) +
-           "  On a terminal the progress line is redrawn in place; otherwise one line is\n"
-           "  printed per epoch. A summary table follows training.\n"
-           "\n" +
-           detail::files_help() + R"(
+        detail::options_help(detail::train_options) +
+        "  On a terminal the progress line is redrawn in place; otherwise one line is\n"
+        "  printed per epoch. A summary table follows training.\n"
+        "\n" +
+        detail::files_help() + R"(
 Exit status
   0 success; 2 bad command line or bad data (one line on stderr names the
   problem); 3 an output file could not be written; 1 an unexpected failure.
@@ -526,7 +516,7 @@ public:
         }
         // Our own layout: spelled-out fields separated by " | ".
         std::string line = prefix() + "epoch " + std::to_string(e.epoch) + " of " + std::to_string(epochs_) + " | training loss " +
-                           detail::fixed(e.training_loss, 5);
+            detail::fixed(e.training_loss, 5);
         if (std::isfinite(e.validation_loss)) {
             line += " | validation loss " + detail::fixed(e.validation_loss, 5);
             line += classify_ ? " | validation accuracy " + detail::fixed(validation_metric_, 4)
@@ -545,9 +535,7 @@ public:
     }
 
 private:
-    std::string prefix() const {
-        return folds_ > 0 ? "fold " + std::to_string(fold_) + " of " + std::to_string(folds_) + " | " : std::string();
-    }
+    std::string prefix() const { return folds_ > 0 ? "fold " + std::to_string(fold_) + " of " + std::to_string(folds_) + " | " : std::string(); }
 
     void draw(std::size_t epochs_done, double within_epoch, double elapsed) {
         const std::size_t width = 22;
@@ -561,7 +549,8 @@ private:
         epoch_text.insert(0, limit.size() > epoch_text.size() ? limit.size() - epoch_text.size() : 0, ' ');
         std::string line = prefix() + "epoch " + epoch_text + " of " + limit + " <" + gauge + "> training loss " + detail::fixed(loss_, 4);
         if (std::isfinite(validation_metric_))
-            line += classify_ ? " | validation accuracy " + detail::fixed(validation_metric_, 4) : " | validation RMSE " + detail::fixed(validation_metric_, 4);
+            line += classify_ ? " | validation accuracy " + detail::fixed(validation_metric_, 4)
+                              : " | validation RMSE " + detail::fixed(validation_metric_, 4);
         const double progress = static_cast<double>(epochs_done) + within_epoch;
         const double remaining = progress > 0 ? elapsed / progress * (static_cast<double>(epochs_) - progress) : NAN;
         line += " | " + detail::duration_text(elapsed) + ", <= " + detail::duration_text(remaining) + " more";
@@ -641,8 +630,10 @@ void write_calibration(json_writer& j, const char* key, const tenon::model_calib
         j.open_object("band");
         j.text("method", i.has_spread ? "split-conformal, normalized by the spread" : "split-conformal");
         j.number("coverage", i.coverage).count("rows", i.rows);
-        if (std::isfinite(i.half_width)) j.number("half_width", i.half_width);
-        else j.null("half_width");
+        if (std::isfinite(i.half_width))
+            j.number("half_width", i.half_width);
+        else
+            j.null("half_width");
         j.close_object();
     }
     if (c.classes) {
@@ -650,8 +641,10 @@ void write_calibration(json_writer& j, const char* key, const tenon::model_calib
         j.open_object("classes");
         j.text("method", "temperature scaling, conformal class sets (score 1 - p)");
         j.number("coverage", k.coverage).count("rows", k.rows).number("temperature", k.temperature);
-        if (std::isfinite(k.set_threshold)) j.number("set_threshold", k.set_threshold);
-        else j.null("set_threshold");
+        if (std::isfinite(k.set_threshold))
+            j.number("set_threshold", k.set_threshold);
+        else
+            j.null("set_threshold");
         j.close_object();
     }
     j.close_object();
@@ -663,19 +656,19 @@ std::string calibration_note(const tenon::model_calibration* c, double coverage,
     const std::string percent = fixed(100.0 * coverage, 1) + "%";
     if (classify)
         return "calibration: temperature " + fixed(c->classes->temperature, 4) + "; class sets meant to hold the true class for " + percent +
-               " of new rows" + (std::isfinite(c->classes->set_threshold) ? std::string() : " (too few validation rows: every class is listed)") + "\n";
+            " of new rows" + (std::isfinite(c->classes->set_threshold) ? std::string() : " (too few validation rows: every class is listed)") + "\n";
     char width[32];
     if (c->interval->has_spread && std::isfinite(c->interval->spread_quantile)) {
         char floor[32];
         std::snprintf(width, sizeof width, "%.6g", c->interval->spread_quantile);
         std::snprintf(floor, sizeof floor, "%.3g", c->interval->spread_floor);
         return "calibration: band of +-" + std::string(width) + " x (the networks' spread on the row + " + floor +
-               ") meant to hold the true value for " + percent + " of new rows\n";
+            ") meant to hold the true value for " + percent + " of new rows\n";
     }
     std::snprintf(width, sizeof width, "%.6g", c->interval->half_width);
     return "calibration: band of +-" + (std::isfinite(c->interval->half_width) ? std::string(width) : std::string("infinity")) +
-           " meant to hold the true value for " + percent + " of new rows" +
-           (std::isfinite(c->interval->half_width) ? std::string() : " (too few validation rows for this coverage)") + "\n";
+        " meant to hold the true value for " + percent + " of new rows" +
+        (std::isfinite(c->interval->half_width) ? std::string() : " (too few validation rows for this coverage)") + "\n";
 }
 
 std::string table_row(const std::string& name, const std::vector<std::string>& cells) {
@@ -691,11 +684,16 @@ std::string table_row(const std::string& name, const std::vector<std::string>& c
 
 std::string split_name(split_choice s) {
     switch (s) {
-        case split_choice::random: return "random";
-        case split_choice::stratified: return "stratified";
-        case split_choice::chronological: return "chronological";
-        case split_choice::grouped: return "grouped";
-        case split_choice::automatic: break;
+    case split_choice::random:
+        return "random";
+    case split_choice::stratified:
+        return "stratified";
+    case split_choice::chronological:
+        return "chronological";
+    case split_choice::grouped:
+        return "grouped";
+    case split_choice::automatic:
+        break;
     }
     return "auto";
 }
@@ -719,8 +717,8 @@ std::string strip_code(const std::string& what) {
 }
 
 // The scores and the command line's choices that make_model_file cannot know.
-void add_scores_to_metadata(tenon::training_metadata& meta, const train_request& q, const training_setup& s,
-                                   const tenon::evaluation* validation, const tenon::evaluation& test) {
+void add_scores_to_metadata(tenon::training_metadata& meta, const train_request& q, const training_setup& s, const tenon::evaluation* validation,
+                            const tenon::evaluation& test) {
     const auto add = [&meta](const std::string& prefix, const tenon::evaluation& e) {
         meta.metrics.emplace_back(prefix + "_rows", static_cast<double>(e.rows));
         if (e.classification) {
@@ -739,8 +737,9 @@ void add_scores_to_metadata(tenon::training_metadata& meta, const train_request&
     meta.settings.emplace_back("target", q.target);
     meta.settings.emplace_back("task", s.classify ? "classification" : "regression");
     meta.settings.emplace_back("split", split_name(s.split));
-    meta.settings.emplace_back("fractions", tenon::number_to_text(q.fractions.train) + "," + tenon::number_to_text(q.fractions.validation) + "," +
-                                                tenon::number_to_text(q.fractions.test));
+    meta.settings.emplace_back("fractions",
+                               tenon::number_to_text(q.fractions.train) + "," + tenon::number_to_text(q.fractions.validation) + "," +
+                                   tenon::number_to_text(q.fractions.test));
 }
 
 // The calibration's test scores, kept with the model for inspect.
@@ -757,9 +756,8 @@ void add_calibration_to_metadata(tenon::training_metadata& meta, const tenon::ca
 }
 
 // Holdout run.
-int train_holdout(const tenon::table& t, const train_request& q, training_setup& s, std::ostream& out,
-                         const cli_environment& env, pending_output& metrics_file, pending_output& report_file,
-                         pending_output& model_probe) {
+int train_holdout(const tenon::table& t, const train_request& q, training_setup& s, std::ostream& out, const cli_environment& env,
+                  pending_output& metrics_file, pending_output& report_file, pending_output& model_probe) {
     const tenon::holdout_split split = make_holdout(t, q, s);
     if (q.time_cycles) choose_time_cycles(t, s.preparation);
     check_network_size(t, q, s, split.train);
@@ -833,21 +831,27 @@ int train_holdout(const tenon::table& t, const train_request& q, training_setup&
         j.count("best_epoch", o.best_epoch);
         j.text("stop_reason", tenon::stop_reason_name(o.reason));
         j.number("training_seconds", o.seconds);
-        if (has_validation) write_scores(j, "validation", validation);
-        else j.null("validation");
+        if (has_validation)
+            write_scores(j, "validation", validation);
+        else
+            j.null("validation");
         write_scores(j, "test", test, calibration ? &calibrated : nullptr);
         if (has_baseline) {
             j.open_object("baseline").text("kind", baseline_kind);
-            if (has_validation) write_scores(j, "validation", baseline_validation);
-            else j.null("validation");
+            if (has_validation)
+                write_scores(j, "validation", baseline_validation);
+            else
+                j.null("validation");
             write_scores(j, "test", baseline_test);
             j.close_object();
         } else {
             j.null("baseline");
         }
         j.text("shipped", model.kept_baseline ? "baseline" : "network");
-        if (calibration) write_calibration(j, "calibration", *calibration);
-        else j.null("calibration");
+        if (calibration)
+            write_calibration(j, "calibration", *calibration);
+        else
+            j.null("calibration");
         j.open_array("per_epoch");
         for (const auto& e : o.history) {
             j.open_object().count("epoch", e.epoch).number("training_loss", e.training_loss).number("validation_loss", e.validation_loss);
@@ -860,7 +864,7 @@ int train_holdout(const tenon::table& t, const train_request& q, training_setup&
     if (report_file.active()) {
         tenon::report_content r;
         r.title = "tenon train: " + q.target + " from " + std::filesystem::path(q.data_path).filename().string() + " (" +
-                  (s.classify ? "classification, test accuracy " + fixed(test.accuracy, 4) : "regression, test RMSE " + fixed(test.rmse, 4)) + ")";
+            (s.classify ? "classification, test accuracy " + fixed(test.accuracy, 4) : "regression, test RMSE " + fixed(test.rmse, 4)) + ")";
         for (const auto& e : o.history) r.epochs.push_back({e.training_loss, e.validation_loss});
         r.kept_epoch = o.best_epoch;
         if (s.classify) {
@@ -918,20 +922,21 @@ int train_holdout(const tenon::table& t, const train_request& q, training_setup&
         }
         if (has_baseline) {
             summary += "\nbaseline (" + std::string(baseline_kind) + "): " +
-                       (s.classify ? "accuracy " + (has_validation ? fixed(baseline_validation.accuracy, 4) + " validation, " : std::string()) +
-                                         fixed(baseline_test.accuracy, 4) + " test"
-                                   : "RMSE " + (has_validation ? fixed(baseline_validation.rmse, 4) + " validation, " : std::string()) +
-                                         fixed(baseline_test.rmse, 4) + " test") + "\n";
-            if (model.kept_baseline)
-                summary += "the network did not beat the baseline on validation; the model is the baseline\n";
+                (s.classify ? "accuracy " + (has_validation ? fixed(baseline_validation.accuracy, 4) + " validation, " : std::string()) +
+                         fixed(baseline_test.accuracy, 4) + " test"
+                            : "RMSE " + (has_validation ? fixed(baseline_validation.rmse, 4) + " validation, " : std::string()) +
+                         fixed(baseline_test.rmse, 4) + " test") +
+                "\n";
+            if (model.kept_baseline) summary += "the network did not beat the baseline on validation; the model is the baseline\n";
         }
         summary += "\n" + std::to_string(o.history.size()) + " epochs in " + duration_text(o.seconds) + "; " + o.message +
-                   (o.best_epoch > 0 && o.reason != tenon::stop_reason::no_improvement ? "; kept epoch " + std::to_string(o.best_epoch) : std::string()) + "\n";
+            (o.best_epoch > 0 && o.reason != tenon::stop_reason::no_improvement ? "; kept epoch " + std::to_string(o.best_epoch) : std::string()) +
+            "\n";
         summary += calibration_note(calibration ? &*calibration : nullptr, q.coverage, s.classify);
         summary += std::to_string(model.train_rows) + " training rows, " + std::to_string(model.plan.feature_count()) + " features" +
-                   (model.member_count() > 1 ? ", an ensemble of " + std::to_string(model.member_count()) + " networks (the epochs are the first's)"
-                                             : std::string()) +
-                   (dropped ? ", " + std::to_string(dropped) + " rows dropped for a missing target" : std::string()) + "\n";
+            (model.member_count() > 1 ? ", an ensemble of " + std::to_string(model.member_count()) + " networks (the epochs are the first's)"
+                                      : std::string()) +
+            (dropped ? ", " + std::to_string(dropped) + " rows dropped for a missing target" : std::string()) + "\n";
         if (!q.metrics_path.empty()) summary += "metrics written to " + q.metrics_path + "\n";
         if (!q.report_path.empty()) summary += "report written to " + q.report_path + "\n";
         if (!q.model_path.empty()) summary += "model written to " + q.model_path + "\n";
@@ -942,7 +947,7 @@ int train_holdout(const tenon::table& t, const train_request& q, training_setup&
 
 // Cross-validation run.
 int train_folds(const tenon::table& t, const train_request& q, training_setup& s, std::ostream& out, const cli_environment& env,
-                       pending_output& metrics_file) {
+                pending_output& metrics_file) {
     const std::vector<tenon::fold> folds = make_folds(t, q, s);
     // Each fold's plan is measured on its own rows; a fixed layout keeps folds alike.
     indicators_for_every_fold(t, s.preparation);

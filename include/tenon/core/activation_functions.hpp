@@ -29,17 +29,28 @@ enum class activation : std::uint8_t {
 
 inline const char* to_string(activation a) noexcept {
     switch (a) {
-        case activation::identity: return "identity";
-        case activation::tanh: return "tanh";
-        case activation::sigmoid: return "sigmoid";
-        case activation::relu: return "relu";
-        case activation::leaky_relu: return "leaky_relu";
-        case activation::elu: return "elu";
-        case activation::softplus: return "softplus";
-        case activation::gelu: return "gelu";
-        case activation::gelu_tanh: return "gelu_tanh";
-        case activation::softmax: return "softmax";
-        case activation::log_softmax: return "log_softmax";
+    case activation::identity:
+        return "identity";
+    case activation::tanh:
+        return "tanh";
+    case activation::sigmoid:
+        return "sigmoid";
+    case activation::relu:
+        return "relu";
+    case activation::leaky_relu:
+        return "leaky_relu";
+    case activation::elu:
+        return "elu";
+    case activation::softplus:
+        return "softplus";
+    case activation::gelu:
+        return "gelu";
+    case activation::gelu_tanh:
+        return "gelu_tanh";
+    case activation::softmax:
+        return "softmax";
+    case activation::log_softmax:
+        return "log_softmax";
     }
     return "unknown";
 }
@@ -53,9 +64,7 @@ inline activation parse_activation(const std::string& name) {
     return a;
 }
 
-inline double default_coefficient(activation a) noexcept {
-    return a == activation::leaky_relu ? 0.01 : (a == activation::elu ? 1.0 : 0.0);
-}
+inline double default_coefficient(activation a) noexcept { return a == activation::leaky_relu ? 0.01 : (a == activation::elu ? 1.0 : 0.0); }
 
 namespace detail {
 

@@ -33,43 +33,52 @@ struct layer_record {
 
     layer_record& set_number(const std::string& key, double value) {
         for (auto& e : numbers)
-            if (e.first == key) { e.second = value; return *this; }
+            if (e.first == key) {
+                e.second = value;
+                return *this;
+            }
         numbers.emplace_back(key, value);
         return *this;
     }
     layer_record& set_text(const std::string& key, std::string value) {
         for (auto& e : texts)
-            if (e.first == key) { e.second = std::move(value); return *this; }
+            if (e.first == key) {
+                e.second = std::move(value);
+                return *this;
+            }
         texts.emplace_back(key, std::move(value));
         return *this;
     }
     bool has(const std::string& key) const noexcept {
-        for (const auto& e : numbers) if (e.first == key) return true;
-        for (const auto& e : texts) if (e.first == key) return true;
+        for (const auto& e : numbers)
+            if (e.first == key) return true;
+        for (const auto& e : texts)
+            if (e.first == key) return true;
         return false;
     }
     /// The number stored under `key`; raises model.record.missing_field.
     double number(const std::string& key) const {
-        for (const auto& e : numbers) if (e.first == key) return e.second;
+        for (const auto& e : numbers)
+            if (e.first == key) return e.second;
         missing(key);
     }
     /// A number that must be a whole count (0 <= n < 2^53).
     std::size_t count(const std::string& key) const {
         const double v = number(key);
         if (!(v >= 0.0 && v < 9007199254740992.0 && std::floor(v) == v)) {
-            raise(codes::model_record_malformed, "layer record '" + name + "' (" + kind + "): field '" + key +
-                                                     "' must be a whole non-negative count, got " + std::to_string(v));
+            raise(codes::model_record_malformed,
+                  "layer record '" + name + "' (" + kind + "): field '" + key + "' must be a whole non-negative count, got " + std::to_string(v));
         }
         return static_cast<std::size_t>(v);
     }
     const std::string& text(const std::string& key) const {
-        for (const auto& e : texts) if (e.first == key) return e.second;
+        for (const auto& e : texts)
+            if (e.first == key) return e.second;
         missing(key);
     }
 
     friend bool operator==(const layer_record& a, const layer_record& b) {
-        return a.kind == b.kind && a.name == b.name && a.numbers == b.numbers && a.texts == b.texts &&
-               a.children == b.children;
+        return a.kind == b.kind && a.name == b.name && a.numbers == b.numbers && a.texts == b.texts && a.children == b.children;
     }
     friend bool operator!=(const layer_record& a, const layer_record& b) { return !(a == b); }
 
@@ -88,9 +97,15 @@ inline void write_record_body(byte_writer& w, const layer_record& r) {
     w.text(r.kind);
     w.text(r.name);
     w.u32(static_cast<std::uint32_t>(r.numbers.size()));
-    for (const auto& e : r.numbers) { w.text(e.first); w.f64(e.second); }
+    for (const auto& e : r.numbers) {
+        w.text(e.first);
+        w.f64(e.second);
+    }
     w.u32(static_cast<std::uint32_t>(r.texts.size()));
-    for (const auto& e : r.texts) { w.text(e.first); w.text(e.second); }
+    for (const auto& e : r.texts) {
+        w.text(e.first);
+        w.text(e.second);
+    }
     w.u32(static_cast<std::uint32_t>(r.children.size()));
     for (const auto& c : r.children) write_record_body(w, c);
 }
@@ -201,8 +216,7 @@ inline std::string current_state_name(const std::string& stored) {
 
 inline void check_record_name(const layer_record& r, std::vector<std::string>& siblings) {
     if (r.name.empty()) raise(codes::model_layer_option, "layer record of kind '" + r.kind + "' has an empty name");
-    if (r.name.find('.') != std::string::npos)
-        raise(codes::model_layer_option, "layer record: layer name '" + r.name + "' must not contain '.'");
+    if (r.name.find('.') != std::string::npos) raise(codes::model_layer_option, "layer record: layer name '" + r.name + "' must not contain '.'");
     for (const auto& n : siblings)
         if (n == r.name) raise(codes::model_duplicate_name, "layer record: a layer named '" + r.name + "' already exists");
     siblings.push_back(r.name);
@@ -211,8 +225,9 @@ inline void check_record_name(const layer_record& r, std::vector<std::string>& s
 inline void check_record_options(const layer_record& r) {
     const auto positive = [&](const char* what, const char* a, const char* b) {
         if (r.count(a) == 0 || r.count(b) == 0)
-            raise(codes::model_layer_option, std::string(what) + ": inputs and outputs must be positive, got " + std::to_string(r.count(a)) +
-                                                 " x " + std::to_string(r.count(b)));
+            raise(codes::model_layer_option,
+                  std::string(what) + ": inputs and outputs must be positive, got " + std::to_string(r.count(a)) + " x " +
+                      std::to_string(r.count(b)));
     };
     const auto width_and_epsilon = [&](const char* what) {
         if (r.count("width") == 0) raise(codes::model_layer_option, std::string(what) + ": the width must be positive, got 0");
@@ -226,8 +241,8 @@ inline void check_record_options(const layer_record& r) {
     } else if (r.kind == "activation") {
         parse_activation(r.text("function"));
         if (!std::isfinite(r.number("coefficient")))
-            raise(codes::model_layer_option, "activation layer (" + r.text("function") + "): the coefficient must be finite, got " +
-                                                 std::to_string(r.number("coefficient")));
+            raise(codes::model_layer_option,
+                  "activation layer (" + r.text("function") + "): the coefficient must be finite, got " + std::to_string(r.number("coefficient")));
     } else if (r.kind == "dropout") {
         const double rate = r.number("rate");
         if (!(rate >= 0.0 && rate < 1.0)) raise(codes::model_layer_option, "dropout layer: the rate must be in [0, 1), got " + std::to_string(rate));
@@ -238,8 +253,9 @@ inline void check_record_options(const layer_record& r) {
     } else if (r.kind == "linear_bypass") {
         positive("linear bypass", "inputs", "outputs");
     } else if (r.kind != "residual") {
-        raise(codes::model_unknown_kind, "layer record '" + r.name + "': kind '" + r.kind +
-                                             "' is not known (dense, activation, dropout, layer_norm, batch_norm, residual, linear_bypass)");
+        raise(codes::model_unknown_kind,
+              "layer record '" + r.name + "': kind '" + r.kind +
+                  "' is not known (dense, activation, dropout, layer_norm, batch_norm, residual, linear_bypass)");
     }
 }
 

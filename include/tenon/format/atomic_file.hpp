@@ -89,9 +89,7 @@ public:
 class native_file_system : public file_system {
 public:
 #if !defined(_WIN32)
-    int create(const std::string& path) override {
-        return ::open(path.c_str(), O_WRONLY | O_CREAT | O_EXCL | O_NOFOLLOW | O_CLOEXEC, 0600);
-    }
+    int create(const std::string& path) override { return ::open(path.c_str(), O_WRONLY | O_CREAT | O_EXCL | O_NOFOLLOW | O_CLOEXEC, 0600); }
     bool write(int handle, const std::uint8_t* data, std::size_t size) override {
         while (size > 0) {
             const ssize_t n = ::write(handle, data, size);
@@ -115,8 +113,7 @@ public:
         return ok;
     }
     bool remove(const std::string& path) override { return ::unlink(path.c_str()) == 0; }
-    bool set_permissions(int handle, const std::string& target) override {
-        struct stat st {};
+    bool set_permissions(int handle, const std::string& target) override { struct stat st { };
         if (::stat(target.c_str(), &st) != 0) return ::fchmod(handle, static_cast<mode_t>(0666 & ~process_umask())) == 0;
         // Root keeps the owner of the file it replaces; for anyone else
         // fchown would fail and the file becomes the saver's.
@@ -155,9 +152,7 @@ public:
             }
         return -1;
     }
-    bool write(int handle, const std::uint8_t* data, std::size_t size) override {
-        return std::fwrite(data, 1, size, files_[handle]) == size;
-    }
+    bool write(int handle, const std::uint8_t* data, std::size_t size) override { return std::fwrite(data, 1, size, files_[handle]) == size; }
     bool sync(int handle) override { return std::fflush(files_[handle]) == 0; }
     bool close(int handle) override {
         const bool ok = std::fclose(files_[handle]) == 0;
@@ -205,8 +200,8 @@ inline std::string name_of(const std::string& path) {
 /// names was taken) when no file could be created.
 inline int create_temporary_file(const std::string& path, file_system& fs, std::string& temporary) {
     const std::string directory = detail::directory_of(path);
-    const std::string prefix = (directory == "/" ? "/" : directory + "/") + "." + detail::name_of(path) + ".tenon-" +
-                               std::to_string(fs.process_id()) + "-";
+    const std::string prefix =
+        (directory == "/" ? "/" : directory + "/") + "." + detail::name_of(path) + ".tenon-" + std::to_string(fs.process_id()) + "-";
     for (int attempt = 0; attempt < 16; ++attempt) {
         char hex[17];
         std::snprintf(hex, sizeof(hex), "%016llx", static_cast<unsigned long long>(fs.random_bits()));
@@ -229,8 +224,9 @@ inline void write_file_atomically(const std::string& path, const std::vector<std
     std::string temporary;
     const int handle = create_temporary_file(path, fs, temporary);
     if (handle < 0)
-        raise(codes::deploy_file_io, "saving '" + path + "': cannot create a temporary file in '" + detail::directory_of(path) + "'" +
-                                         detail::errno_text() + "; the previous file is unchanged");
+        raise(codes::deploy_file_io,
+              "saving '" + path + "': cannot create a temporary file in '" + detail::directory_of(path) + "'" + detail::errno_text() +
+                  "; the previous file is unchanged");
     // From here to the rename nothing allocates before the temporary file is
     // removed, so even a std::bad_alloc leaves no file behind.
     const auto fail = [&](const char* step, bool close_it) {
@@ -238,8 +234,8 @@ inline void write_file_atomically(const std::string& path, const std::vector<std
         if (close_it) fs.close(handle);
         fs.remove(temporary);
         errno = e;
-        raise(codes::deploy_file_io, "saving '" + path + "': " + step + " of '" + temporary + "' failed" + detail::errno_text() +
-                                         "; the previous file is unchanged");
+        raise(codes::deploy_file_io,
+              "saving '" + path + "': " + step + " of '" + temporary + "' failed" + detail::errno_text() + "; the previous file is unchanged");
     };
     errno = 0;
     if (!fs.write(handle, bytes.data(), bytes.size())) fail("writing", true);
@@ -254,8 +250,9 @@ inline void write_file_atomically(const std::string& path, const std::vector<std
     errno = 0;
     if (!fs.sync_directory(detail::directory_of(path))) {
         // The new file is in place; only its durability across a power loss is in doubt.
-        raise(codes::deploy_file_io, "saving '" + path + "': fsync of the directory '" + detail::directory_of(path) +
-                                         "' failed" + detail::errno_text() + "; the new file is in place but may not survive a power loss");
+        raise(codes::deploy_file_io,
+              "saving '" + path + "': fsync of the directory '" + detail::directory_of(path) + "' failed" + detail::errno_text() +
+                  "; the new file is in place but may not survive a power loss");
     }
 }
 
@@ -286,8 +283,9 @@ inline load_status try_read_file_bounded(const std::string& path, std::uint64_t 
         return load_status(codes::deploy_file_io, "cannot open '" + path + "' for reading (" + std::strerror(e) + ")");
     }
     if (!S_ISREG(st.st_mode))
-        return load_status(codes::deploy_file_io, "'" + path + "' is " + (S_ISDIR(st.st_mode) ? "a directory" : "not a regular file (a FIFO, device or socket)") +
-                                         ", not a file to read");
+        return load_status(codes::deploy_file_io,
+                           "'" + path + "' is " + (S_ISDIR(st.st_mode) ? "a directory" : "not a regular file (a FIFO, device or socket)") +
+                               ", not a file to read");
 #endif
     errno = 0;
     std::ifstream in(path, std::ios::binary);
@@ -297,8 +295,9 @@ inline load_status try_read_file_bounded(const std::string& path, std::uint64_t 
     if (end < 0) return load_status(codes::deploy_file_io, "cannot determine the size of '" + path + "'");
     const auto size = static_cast<std::uint64_t>(end);
     if (size > max_bytes || size > std::numeric_limits<std::size_t>::max())
-        return load_status(codes::deploy_oversize, "'" + path + "' has " + std::to_string(size) + " bytes, more than the limit of " +
-                                          std::to_string(std::min<std::uint64_t>(max_bytes, std::numeric_limits<std::size_t>::max())));
+        return load_status(codes::deploy_oversize,
+                           "'" + path + "' has " + std::to_string(size) + " bytes, more than the limit of " +
+                               std::to_string(std::min<std::uint64_t>(max_bytes, std::numeric_limits<std::size_t>::max())));
     in.seekg(0, std::ios::beg);
     bytes.assign(static_cast<std::size_t>(size), 0);
     if (size > 0 && !in.read(reinterpret_cast<char*>(bytes.data()), static_cast<std::streamsize>(size)))

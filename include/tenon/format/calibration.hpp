@@ -20,14 +20,14 @@ inline constexpr double default_coverage = 0.90;
 /// prediction +- spread_quantile * (spread + spread_floor).
 struct interval_calibration {
     double coverage = default_coverage;  // nominal, 1 - alpha
-    std::uint64_t rows = 0;              // calibration rows
+    std::uint64_t rows = 0;  // calibration rows
     /// Conformal quantile of |y - prediction|; +infinity when the rows are
     /// too few for the coverage (conformal_rank exceeds them).
     double half_width = 0.0;
     /// The normalized variant, present when the calibration rows had spreads.
     bool has_spread = false;
     double spread_quantile = 0.0;  // conformal quantile of |y - prediction| / (spread + spread_floor)
-    double spread_floor = 0.0;     // keeps a row of zero spread from getting a zero-width band
+    double spread_floor = 0.0;  // keeps a row of zero spread from getting a zero-width band
 };
 
 /// Temperature scaling and conformal class sets.

@@ -65,7 +65,7 @@ inline constexpr std::uint16_t model_format_version = 2;
 
 /// Limits checked while loading, before anything is allocated.
 struct model_limits {
-    std::uint64_t max_file_bytes = std::uint64_t(1) << 30;     // 1 GiB
+    std::uint64_t max_file_bytes = std::uint64_t(1) << 30;  // 1 GiB
     std::uint64_t max_section_bytes = std::uint64_t(256) << 20;  // 256 MiB
     std::uint32_t max_sections = 64;
 };
@@ -86,7 +86,7 @@ struct training_metadata {
     std::uint64_t data_fingerprint = 0;
     std::string stop_reason;
     std::string loss;
-    std::vector<std::pair<std::string, double>> metrics;        // e.g. best_validation_loss
+    std::vector<std::pair<std::string, double>> metrics;  // e.g. best_validation_loss
     std::vector<std::pair<std::string, std::string>> settings;  // e.g. hidden = "32,32"
 
     /// The metric of the given name, or NaN.
@@ -104,8 +104,8 @@ struct training_metadata {
 struct replay_sample {
     std::vector<std::string> columns;
     std::vector<column_kind> kinds;
-    std::vector<std::string> cells;      // rows x columns, row-major; numbers as shortest text
-    std::vector<std::uint8_t> missing;   // 1 where the cell is missing
+    std::vector<std::string> cells;  // rows x columns, row-major; numbers as shortest text
+    std::vector<std::uint8_t> missing;  // 1 where the cell is missing
     /// Rows offered to the reservoir so far, over all trainings (0 = unknown).
     std::uint64_t rows_seen = 0;
     /// The most rows the sample holds (0 = unknown).
@@ -125,9 +125,9 @@ struct named_matrix {
 /// Everything needed to continue training (section RSUM).
 template <class T>
 struct resume_state {
-    std::string update_kind;                 // update_rule::kind()
+    std::string update_kind;  // update_rule::kind()
     std::vector<std::uint8_t> update_state;  // update_rule::save_state()
-    std::string schedule_kind;               // rate_schedule::kind()
+    std::string schedule_kind;  // rate_schedule::kind()
     std::vector<std::uint8_t> schedule_state;
     training_progress<T> progress;
     /// Random engines inside layers (dropout), by qualified layer name.
@@ -195,16 +195,17 @@ inline constexpr std::uint32_t byte_order_mark = 0x01020304u;
 inline constexpr std::uint16_t section_required = 1;
 
 inline std::uint32_t section_id(const char (&id)[5]) noexcept {
-    return static_cast<std::uint32_t>(static_cast<std::uint8_t>(id[0])) |
-           static_cast<std::uint32_t>(static_cast<std::uint8_t>(id[1])) << 8 |
-           static_cast<std::uint32_t>(static_cast<std::uint8_t>(id[2])) << 16 |
-           static_cast<std::uint32_t>(static_cast<std::uint8_t>(id[3])) << 24;
+    return static_cast<std::uint32_t>(static_cast<std::uint8_t>(id[0])) | static_cast<std::uint32_t>(static_cast<std::uint8_t>(id[1])) << 8 |
+        static_cast<std::uint32_t>(static_cast<std::uint8_t>(id[2])) << 16 | static_cast<std::uint32_t>(static_cast<std::uint8_t>(id[3])) << 24;
 }
 inline std::string section_name(std::uint32_t id) {
     std::string s;
     for (int k = 0; k < 4; ++k) {
         const auto c = static_cast<char>((id >> (8 * k)) & 0xFFu);
-        if (c >= 0x20 && c < 0x7F) s += c; else s += "\\x" + std::to_string(static_cast<unsigned>(static_cast<std::uint8_t>(c)));
+        if (c >= 0x20 && c < 0x7F)
+            s += c;
+        else
+            s += "\\x" + std::to_string(static_cast<unsigned>(static_cast<std::uint8_t>(c)));
     }
     return s;
 }
@@ -218,7 +219,7 @@ inline std::string hex_u32(std::uint32_t v) {
 inline std::uint16_t get_u16(const std::uint8_t* p) noexcept { return static_cast<std::uint16_t>(p[0] | (p[1] << 8)); }
 inline std::uint32_t get_u32(const std::uint8_t* p) noexcept {
     return static_cast<std::uint32_t>(p[0]) | static_cast<std::uint32_t>(p[1]) << 8 | static_cast<std::uint32_t>(p[2]) << 16 |
-           static_cast<std::uint32_t>(p[3]) << 24;
+        static_cast<std::uint32_t>(p[3]) << 24;
 }
 inline std::uint64_t get_u64(const std::uint8_t* p) noexcept {
     return static_cast<std::uint64_t>(get_u32(p)) | static_cast<std::uint64_t>(get_u32(p + 4)) << 32;
@@ -361,8 +362,16 @@ inline std::vector<std::uint8_t> metadata_payload(const training_metadata& m) {
     byte_writer w(out);
     const std::uint32_t fields = 13 + static_cast<std::uint32_t>(m.metrics.size() + m.settings.size());
     w.u32(fields);
-    const auto number = [&](const char* key, std::uint64_t v) { w.text(key); w.u8(0); w.u64(v); };
-    const auto text = [&](const std::string& key, const std::string& v) { w.text(key); w.u8(2); w.text(v); };
+    const auto number = [&](const char* key, std::uint64_t v) {
+        w.text(key);
+        w.u8(0);
+        w.u64(v);
+    };
+    const auto text = [&](const std::string& key, const std::string& v) {
+        w.text(key);
+        w.u8(2);
+        w.text(v);
+    };
     text("library_version", m.library_version);
     number("created_unix_seconds", static_cast<std::uint64_t>(m.created_unix_seconds));
     number("seed", m.seed);
@@ -376,7 +385,11 @@ inline std::vector<std::uint8_t> metadata_payload(const training_metadata& m) {
     number("data_fingerprint", m.data_fingerprint);
     text("stop_reason", m.stop_reason);
     text("loss", m.loss);
-    for (const auto& kv : m.metrics) { w.text("metric." + kv.first); w.u8(1); w.f64(kv.second); }
+    for (const auto& kv : m.metrics) {
+        w.text("metric." + kv.first);
+        w.u8(1);
+        w.f64(kv.second);
+    }
     for (const auto& kv : m.settings) text("setting." + kv.first, kv.second);
     return out;
 }
@@ -395,25 +408,44 @@ inline training_metadata read_metadata(byte_reader& in) {
         std::uint64_t n = 0;
         double d = 0;
         std::string s;
-        if (type == 0) n = in.u64();
-        else if (type == 1) d = in.f64();
-        else if (type == 2) s = in.text();
-        else in.fail("metadata field '" + key + "' has type " + std::to_string(type) + " (0 integer, 1 real, 2 text)");
-        if (key == "library_version") m.library_version = s;
-        else if (key == "created_unix_seconds") m.created_unix_seconds = static_cast<std::int64_t>(n);
-        else if (key == "seed") m.seed = n;
-        else if (key == "epochs_planned") m.epochs_planned = n;
-        else if (key == "epochs_run") m.epochs_run = n;
-        else if (key == "best_epoch") m.best_epoch = n;
-        else if (key == "steps") m.steps = n;
-        else if (key == "training_rows") m.training_rows = n;
-        else if (key == "validation_rows") m.validation_rows = n;
-        else if (key == "dropped_rows") m.dropped_rows = n;
-        else if (key == "data_fingerprint") m.data_fingerprint = n;
-        else if (key == "stop_reason") m.stop_reason = s;
-        else if (key == "loss") m.loss = s;
-        else if (key.rfind("metric.", 0) == 0 && type == 1) m.metrics.emplace_back(current_metric_name(key.substr(7)), d);
-        else if (key.rfind("setting.", 0) == 0 && type == 2) m.settings.emplace_back(key.substr(8), s);
+        if (type == 0)
+            n = in.u64();
+        else if (type == 1)
+            d = in.f64();
+        else if (type == 2)
+            s = in.text();
+        else
+            in.fail("metadata field '" + key + "' has type " + std::to_string(type) + " (0 integer, 1 real, 2 text)");
+        if (key == "library_version")
+            m.library_version = s;
+        else if (key == "created_unix_seconds")
+            m.created_unix_seconds = static_cast<std::int64_t>(n);
+        else if (key == "seed")
+            m.seed = n;
+        else if (key == "epochs_planned")
+            m.epochs_planned = n;
+        else if (key == "epochs_run")
+            m.epochs_run = n;
+        else if (key == "best_epoch")
+            m.best_epoch = n;
+        else if (key == "steps")
+            m.steps = n;
+        else if (key == "training_rows")
+            m.training_rows = n;
+        else if (key == "validation_rows")
+            m.validation_rows = n;
+        else if (key == "dropped_rows")
+            m.dropped_rows = n;
+        else if (key == "data_fingerprint")
+            m.data_fingerprint = n;
+        else if (key == "stop_reason")
+            m.stop_reason = s;
+        else if (key == "loss")
+            m.loss = s;
+        else if (key.rfind("metric.", 0) == 0 && type == 1)
+            m.metrics.emplace_back(current_metric_name(key.substr(7)), d);
+        else if (key.rfind("setting.", 0) == 0 && type == 2)
+            m.settings.emplace_back(key.substr(8), s);
         // Other keys come from newer writers: skipped.
     }
     return m;
@@ -452,7 +484,10 @@ inline std::vector<std::uint8_t> references_payload(const std::vector<feature_re
         w.u32(static_cast<std::uint32_t>(f.histogram.size()));
         for (auto c : f.histogram) w.u64(c);
         w.u32(static_cast<std::uint32_t>(f.categories.size()));
-        for (const auto& kv : f.categories) { w.text(kv.first); w.u64(kv.second); }
+        for (const auto& kv : f.categories) {
+            w.text(kv.first);
+            w.u64(kv.second);
+        }
     }
     return out;
 }
@@ -506,8 +541,8 @@ inline replay_sample read_replay(byte_reader& in) {
     }
     const std::uint64_t rows = in.u64();
     if (columns == 0 ? rows != 0 : rows > in.remaining() / columns)
-        in.fail(std::to_string(rows) + " replay rows of " + std::to_string(columns) + " cells cannot fit in the " +
-                std::to_string(in.remaining()) + " bytes left");
+        in.fail(std::to_string(rows) + " replay rows of " + std::to_string(columns) + " cells cannot fit in the " + std::to_string(in.remaining()) +
+                " bytes left");
     const auto cells = static_cast<std::size_t>(rows) * columns;
     r.cells.resize(cells);
     r.missing.resize(cells);
@@ -533,8 +568,8 @@ inline void read_reservoir(byte_reader& in, replay_sample& r) {
     r.capacity = in.u64();
     r.engine = get_random_state(in);
     if (r.rows_seen < r.rows() || r.capacity < r.rows())
-        in.fail("the reservoir has seen " + std::to_string(r.rows_seen) + " rows with capacity " + std::to_string(r.capacity) +
-                " but holds " + std::to_string(r.rows()));
+        in.fail("the reservoir has seen " + std::to_string(r.rows_seen) + " rows with capacity " + std::to_string(r.capacity) + " but holds " +
+                std::to_string(r.rows()));
 }
 
 template <class T>
@@ -615,8 +650,7 @@ resume_state<T> read_resume(byte_reader& in) {
 
 // --- the container ------------------------------------------------------------------------
 
-inline void append_section(std::vector<std::uint8_t>& file, const char (&id)[5], bool required,
-                           const std::vector<std::uint8_t>& payload) {
+inline void append_section(std::vector<std::uint8_t>& file, const char (&id)[5], bool required, const std::vector<std::uint8_t>& payload) {
     const std::size_t start = file.size();
     put_u32(file, section_id(id));
     put_u16(file, required ? section_required : 0);
@@ -635,51 +669,57 @@ struct container {
 
 // Checks the header and every section's framing and checksums into `c`,
 // raising nothing: a failure is returned (the non-throwing loader needs it).
-inline load_status check_container(const std::uint8_t* data, std::size_t size, const model_limits& limits, const std::string& source,
-                                    container& c) {
+inline load_status check_container(const std::uint8_t* data, std::size_t size, const model_limits& limits, const std::string& source, container& c) {
     const std::size_t magic_bytes = size < 8 ? size : 8;
     // An empty input may come with a null pointer, which memcmp must not see.
     if (magic_bytes > 0 && std::memcmp(data, model_magic, magic_bytes) != 0)
         return load_status(codes::deploy_bad_magic, source + ": not a tenon model file (the first bytes are not the tenon model magic)");
     if (size > limits.max_file_bytes)
-        return load_status(codes::deploy_oversize, source + ": " + std::to_string(size) + " bytes, more than the limit of " +
-                                          std::to_string(limits.max_file_bytes));
+        return load_status(codes::deploy_oversize,
+                           source + ": " + std::to_string(size) + " bytes, more than the limit of " + std::to_string(limits.max_file_bytes));
     if (size < model_header_bytes)
-        return load_status(codes::deploy_truncated, source + ": the file has " + std::to_string(size) + " bytes, fewer than the " +
-                                           std::to_string(model_header_bytes) + "-byte header");
+        return load_status(codes::deploy_truncated,
+                           source + ": the file has " + std::to_string(size) + " bytes, fewer than the " + std::to_string(model_header_bytes) +
+                               "-byte header");
     // A file written with the other byte order has every number reversed,
     // its checksum and version included: its mark names it first.
     if (get_u32(data + 12) == 0x04030201u)
-        return load_status(codes::deploy_byte_order, source + ": the byte-order mark reads 0x04030201 instead of 0x01020304: the file was "
-                                                 "written with the other (big-endian) byte order; tenon's files are little-endian");
+        return load_status(codes::deploy_byte_order,
+                           source +
+                               ": the byte-order mark reads 0x04030201 instead of 0x01020304: the file was "
+                               "written with the other (big-endian) byte order; tenon's files are little-endian");
     if (crc32(data, 20) != get_u32(data + 20))
         return load_status(codes::deploy_checksum, source + ": the header checksum does not match (the file is damaged)");
     if (get_u32(data + 12) != byte_order_mark)
-        return load_status(codes::deploy_byte_order, source + ": the byte-order mark reads 0x" + hex_u32(get_u32(data + 12)) +
-                                            " instead of 0x01020304 (files are little-endian)");
+        return load_status(codes::deploy_byte_order,
+                           source + ": the byte-order mark reads 0x" + hex_u32(get_u32(data + 12)) +
+                               " instead of 0x01020304 (files are little-endian)");
     c.version = get_u16(data + 8);
     if (c.version > model_format_version)
-        return load_status(codes::deploy_newer_version, source + ": model format version " + std::to_string(c.version) +
-                                               " is newer than this build of tenon (" + version_string() + ") reads (up to version " +
-                                               std::to_string(model_format_version) + "); load it with a newer tenon");
+        return load_status(codes::deploy_newer_version,
+                           source + ": model format version " + std::to_string(c.version) + " is newer than this build of tenon (" +
+                               version_string() + ") reads (up to version " + std::to_string(model_format_version) + "); load it with a newer tenon");
     if (c.version == 0) return load_status(codes::deploy_malformed, source + ": model format version 0 does not exist");
     c.scalar_bytes = data[16];
     if (c.scalar_bytes != 4 && c.scalar_bytes != 8)
-        return load_status(codes::deploy_malformed, source + ": scalar size " + std::to_string(c.scalar_bytes) + " is neither 4 (float) nor 8 (double)");
+        return load_status(codes::deploy_malformed,
+                           source + ": scalar size " + std::to_string(c.scalar_bytes) + " is neither 4 (float) nor 8 (double)");
     if (get_u16(data + 10) != 0 || data[17] != 0) return load_status(codes::deploy_malformed, source + ": reserved header bytes are not zero");
     const std::uint16_t count = get_u16(data + 18);
     if (count > limits.max_sections)
-        return load_status(codes::deploy_oversize, source + ": " + std::to_string(count) + " sections, more than the limit of " +
-                                          std::to_string(limits.max_sections));
+        return load_status(codes::deploy_oversize,
+                           source + ": " + std::to_string(count) + " sections, more than the limit of " + std::to_string(limits.max_sections));
     std::size_t at = model_header_bytes;
     for (std::uint16_t k = 0; k < count; ++k) {
         if (size - at < section_header_bytes)
-            return load_status(codes::deploy_truncated, source + ": the file ends at byte " + std::to_string(size) + " inside the header of section " +
-                                               std::to_string(k + 1) + " of " + std::to_string(count));
+            return load_status(codes::deploy_truncated,
+                               source + ": the file ends at byte " + std::to_string(size) + " inside the header of section " + std::to_string(k + 1) +
+                                   " of " + std::to_string(count));
         const std::uint8_t* h = data + at;
         if (crc32(h, 20) != get_u32(h + 20))
-            return load_status(codes::deploy_checksum, source + ": the header of section " + std::to_string(k + 1) + " at byte " +
-                                              std::to_string(at) + " fails its checksum (the file is damaged)");
+            return load_status(codes::deploy_checksum,
+                               source + ": the header of section " + std::to_string(k + 1) + " at byte " + std::to_string(at) +
+                                   " fails its checksum (the file is damaged)");
         model_section_info s;
         s.id = section_name(get_u32(h));
         const std::uint16_t flags = get_u16(h + 4);
@@ -690,11 +730,13 @@ inline load_status check_container(const std::uint8_t* data, std::size_t size, c
         s.checksum = get_u32(h + 16);
         at += section_header_bytes;
         if (s.length > limits.max_section_bytes)
-            return load_status(codes::deploy_oversize, source + ": section '" + s.id + "' declares " + std::to_string(s.length) +
-                                              " bytes, more than the limit of " + std::to_string(limits.max_section_bytes));
+            return load_status(codes::deploy_oversize,
+                               source + ": section '" + s.id + "' declares " + std::to_string(s.length) + " bytes, more than the limit of " +
+                                   std::to_string(limits.max_section_bytes));
         if (s.length > size - at)
-            return load_status(codes::deploy_truncated, source + ": section '" + s.id + "' declares " + std::to_string(s.length) +
-                                               " bytes but the file ends " + std::to_string(size - at) + " bytes after its start");
+            return load_status(codes::deploy_truncated,
+                               source + ": section '" + s.id + "' declares " + std::to_string(s.length) + " bytes but the file ends " +
+                                   std::to_string(size - at) + " bytes after its start");
         if (crc32(data + at, static_cast<std::size_t>(s.length)) != s.checksum)
             return load_status(codes::deploy_checksum, source + ": section '" + s.id + "' fails its checksum (the file is damaged)");
         for (const auto& other : c.sections)
@@ -704,15 +746,14 @@ inline load_status check_container(const std::uint8_t* data, std::size_t size, c
         c.sections.push_back(s);
     }
     if (at != size)
-        return load_status(codes::deploy_malformed, source + ": " + std::to_string(size - at) + " bytes follow the last of the " +
-                                           std::to_string(count) + " sections");
+        return load_status(codes::deploy_malformed,
+                           source + ": " + std::to_string(size - at) + " bytes follow the last of the " + std::to_string(count) + " sections");
     for (const auto& s : c.sections) {
-        const bool known = s.id == "ARCH" || s.id == "WGHT" || s.id == "PLAN" || s.id == "META" || s.id == "REFS" ||
-                           s.id == "RPLY" || s.id == "RSUM" || s.id == "RSVR" || s.id == "HIST" || s.id == "REFD" ||
-                           s.id == "ENSM" || s.id == "CALB";
+        const bool known = s.id == "ARCH" || s.id == "WGHT" || s.id == "PLAN" || s.id == "META" || s.id == "REFS" || s.id == "RPLY" ||
+            s.id == "RSUM" || s.id == "RSVR" || s.id == "HIST" || s.id == "REFD" || s.id == "ENSM" || s.id == "CALB";
         if (!known && s.required)
-            return load_status(codes::deploy_unknown_section, source + ": section '" + s.id +
-                                                     "' is marked required but this build of tenon does not know it");
+            return load_status(codes::deploy_unknown_section,
+                               source + ": section '" + s.id + "' is marked required but this build of tenon does not know it");
     }
     for (const char* needed : {"ARCH", "WGHT"}) {
         bool found = false;
@@ -754,10 +795,8 @@ inline layer_record parse_architecture(const std::uint8_t* data, const model_sec
     });
 }
 inline measured_plan parse_plan(const std::uint8_t* data, const model_section_info& s, const std::string& source) {
-    return parse_section(source + ", section 'PLAN'",
-                         [&] { return measured_plan::from_bytes(data + s.offset, static_cast<std::size_t>(s.length)); });
+    return parse_section(source + ", section 'PLAN'", [&] { return measured_plan::from_bytes(data + s.offset, static_cast<std::size_t>(s.length)); });
 }
-
 
 }  // namespace detail
 
@@ -895,20 +934,22 @@ std::vector<weight_slot> check_weights_fit(const layer_record& architecture, con
     for (const auto& w : weights) stored += w.values.size();
     const std::size_t declared = detail::parse_section("model file architecture", [&] { return record_value_count(architecture); });
     if (declared != stored)
-        raise(codes::deploy_shape_mismatch, "model file: the architecture declares " +
-                                                (declared == std::numeric_limits<std::size_t>::max() ? std::string(sizeof(std::size_t) >= 8 ? "more than 2^64" : "more than 2^32")
-                                                                                                     : std::to_string(declared)) +
-                                                " weight values, the file stores " + std::to_string(stored));
+        raise(codes::deploy_shape_mismatch,
+              "model file: the architecture declares " +
+                  (declared == std::numeric_limits<std::size_t>::max() ? std::string(sizeof(std::size_t) >= 8 ? "more than 2^64" : "more than 2^32")
+                                                                       : std::to_string(declared)) +
+                  " weight values, the file stores " + std::to_string(stored));
     std::vector<weight_slot> slots = detail::parse_section("model file architecture", [&] { return architecture_weights(architecture); });
     if (weights.size() != slots.size())
-        raise(codes::deploy_shape_mismatch, "model file: " + std::to_string(weights.size()) + " weight matrices stored, the architecture has " +
-                                                std::to_string(slots.size()));
+        raise(codes::deploy_shape_mismatch,
+              "model file: " + std::to_string(weights.size()) + " weight matrices stored, the architecture has " + std::to_string(slots.size()));
     for (std::size_t i = 0; i < slots.size(); ++i) {
         const named_matrix<T>& w = weights[i];
         const shape2 expected{slots[i].rows, slots[i].cols};
         if (w.name != slots[i].name || shape_of(w.values) != expected)
-            raise(codes::deploy_shape_mismatch, "model file: weight " + std::to_string(i) + " is '" + w.name + "' " + to_string(shape_of(w.values)) +
-                                                    ", the architecture expects '" + slots[i].name + "' " + to_string(expected));
+            raise(codes::deploy_shape_mismatch,
+                  "model file: weight " + std::to_string(i) + " is '" + w.name + "' " + to_string(shape_of(w.values)) +
+                      ", the architecture expects '" + slots[i].name + "' " + to_string(expected));
     }
     return slots;
 }
@@ -925,12 +966,10 @@ std::vector<std::uint8_t> model_file_to_bytes(const model_file<T>& m) {
     detail::put_u32(out, detail::byte_order_mark);
     out.push_back(static_cast<std::uint8_t>(sizeof(T)));
     out.push_back(0);
-    const std::uint16_t count = static_cast<std::uint16_t>(2 + (m.plan ? 1 : 0) + (m.metadata ? 1 : 0) +
-                                                           (m.references.empty() ? 0 : 1) + (m.replay ? 1 : 0) + (m.resume ? 1 : 0) +
-                                                           (m.replay && m.replay->rows_seen > 0 ? 1 : 0) + (m.history.empty() ? 0 : 1) +
-                                                           (detail::references_have_distributions(m.references) ? 1 : 0) +
-                                                           (m.members.empty() ? 0 : 1) +
-                                                           (detail::has_calibration(m.calibration) ? 1 : 0));
+    const std::uint16_t count = static_cast<std::uint16_t>(
+        2 + (m.plan ? 1 : 0) + (m.metadata ? 1 : 0) + (m.references.empty() ? 0 : 1) + (m.replay ? 1 : 0) + (m.resume ? 1 : 0) +
+        (m.replay && m.replay->rows_seen > 0 ? 1 : 0) + (m.history.empty() ? 0 : 1) + (detail::references_have_distributions(m.references) ? 1 : 0) +
+        (m.members.empty() ? 0 : 1) + (detail::has_calibration(m.calibration) ? 1 : 0));
     detail::put_u16(out, count);
     detail::put_u32(out, crc32(out.data(), 20));
     detail::append_section(out, "ARCH", true, to_bytes(m.architecture));
@@ -943,8 +982,7 @@ std::vector<std::uint8_t> model_file_to_bytes(const model_file<T>& m) {
     if (m.replay) detail::append_section(out, "RPLY", false, detail::replay_payload(*m.replay));
     if (m.resume) detail::append_section(out, "RSUM", false, detail::resume_payload(*m.resume));
     if (m.replay && m.replay->rows_seen > 0) detail::append_section(out, "RSVR", false, detail::reservoir_payload(*m.replay));
-    if (detail::references_have_distributions(m.references))
-        detail::append_section(out, "REFD", false, detail::distributions_payload(m.references));
+    if (detail::references_have_distributions(m.references)) detail::append_section(out, "REFD", false, detail::distributions_payload(m.references));
     if (detail::has_calibration(m.calibration)) detail::append_section(out, "CALB", false, detail::calibration_payload(*m.calibration));
     return out;
 }
@@ -957,35 +995,55 @@ model_file<T> model_file_from_bytes(const std::uint8_t* data, std::size_t size, 
     TENON_REQUIRE_SCALAR(T);
     const detail::container c = detail::read_container(data, size, limits, source);
     if (c.scalar_bytes != sizeof(T))
-        raise(codes::deploy_scalar_type, source + ": the weights are stored as " + (c.scalar_bytes == 4 ? "float" : "double") +
-                                             ", but the model was loaded as " + (sizeof(T) == 4 ? "float" : "double") +
-                                             " (load it with the stored type, e.g. load_model_file<" +
-                                             (c.scalar_bytes == 4 ? "float" : "double") + ">)");
+        raise(codes::deploy_scalar_type,
+              source + ": the weights are stored as " + (c.scalar_bytes == 4 ? "float" : "double") + ", but the model was loaded as " +
+                  (sizeof(T) == 4 ? "float" : "double") + " (load it with the stored type, e.g. load_model_file<" +
+                  (c.scalar_bytes == 4 ? "float" : "double") + ">)");
     model_file<T> m;
     m.format_version = c.version;
     for (const auto& s : c.sections) {
-        if (s.id == "ARCH") m.architecture = detail::parse_architecture(data, s, source);
-        else if (s.id == "WGHT") m.weights = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_weights<T>(in); });
-        else if (s.id == "ENSM") m.members = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_members<T>(in); });
-        else if (s.id == "PLAN") m.plan.emplace(detail::parse_plan(data, s, source));
-        else if (s.id == "META") m.metadata = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_metadata(in); });
-        else if (s.id == "HIST") m.history = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_history(in); });
-        else if (s.id == "REFS") m.references = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_references(in); });
-        else if (s.id == "RPLY") m.replay = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_replay(in); });
-        else if (s.id == "RSUM") m.resume = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_resume<T>(in); });
-        else if (s.id == "CALB") m.calibration = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_calibration(in); });
-        else if (s.id != "RSVR" && s.id != "REFD") m.skipped_sections.push_back(s.id);
+        if (s.id == "ARCH")
+            m.architecture = detail::parse_architecture(data, s, source);
+        else if (s.id == "WGHT")
+            m.weights = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_weights<T>(in); });
+        else if (s.id == "ENSM")
+            m.members = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_members<T>(in); });
+        else if (s.id == "PLAN")
+            m.plan.emplace(detail::parse_plan(data, s, source));
+        else if (s.id == "META")
+            m.metadata = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_metadata(in); });
+        else if (s.id == "HIST")
+            m.history = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_history(in); });
+        else if (s.id == "REFS")
+            m.references = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_references(in); });
+        else if (s.id == "RPLY")
+            m.replay = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_replay(in); });
+        else if (s.id == "RSUM")
+            m.resume = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_resume<T>(in); });
+        else if (s.id == "CALB")
+            m.calibration = detail::parse_payload(data, s, source, [](byte_reader& in) { return detail::read_calibration(in); });
+        else if (s.id != "RSVR" && s.id != "REFD")
+            m.skipped_sections.push_back(s.id);
     }
     // The distributions belong to the reference summaries; without them REFD is skipped.
     if (const auto* rd = detail::find_section(c, "REFD")) {
         if (!m.references.empty())
-            detail::parse_payload(data, *rd, source, [&](byte_reader& in) { detail::read_distributions(in, m.references); return 0; });
-        else m.skipped_sections.push_back("REFD");
+            detail::parse_payload(data, *rd, source, [&](byte_reader& in) {
+                detail::read_distributions(in, m.references);
+                return 0;
+            });
+        else
+            m.skipped_sections.push_back("REFD");
     }
     // The reservoir state belongs to the replay sample; without one it is skipped.
     if (const auto* rs = detail::find_section(c, "RSVR")) {
-        if (m.replay) detail::parse_payload(data, *rs, source, [&](byte_reader& in) { detail::read_reservoir(in, *m.replay); return 0; });
-        else m.skipped_sections.push_back("RSVR");
+        if (m.replay)
+            detail::parse_payload(data, *rs, source, [&](byte_reader& in) {
+                detail::read_reservoir(in, *m.replay);
+                return 0;
+            });
+        else
+            m.skipped_sections.push_back("RSVR");
     }
     return m;
 }
@@ -1006,14 +1064,22 @@ inline model_file_summary inspect_model_bytes(const std::vector<std::uint8_t>& b
     s.file_bytes = bytes.size();
     s.sections = c.sections;
     for (const auto& sec : c.sections) {
-        if (sec.id == "ARCH") s.architecture = detail::parse_architecture(bytes.data(), sec, source);
-        else if (sec.id == "PLAN") s.plan.emplace(detail::parse_plan(bytes.data(), sec, source));
-        else if (sec.id == "META") s.metadata = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) { return detail::read_metadata(in); });
-        else if (sec.id == "HIST") s.history = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) { return detail::read_history(in); });
-        else if (sec.id == "REFS") s.references = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) { return detail::read_references(in); });
-        else if (sec.id == "RPLY") s.replay_rows = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) { return detail::read_replay(in); }).rows();
-        else if (sec.id == "RSUM") s.resumable = true;
-        else if (sec.id == "CALB") s.calibration = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) { return detail::read_calibration(in); });
+        if (sec.id == "ARCH")
+            s.architecture = detail::parse_architecture(bytes.data(), sec, source);
+        else if (sec.id == "PLAN")
+            s.plan.emplace(detail::parse_plan(bytes.data(), sec, source));
+        else if (sec.id == "META")
+            s.metadata = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) { return detail::read_metadata(in); });
+        else if (sec.id == "HIST")
+            s.history = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) { return detail::read_history(in); });
+        else if (sec.id == "REFS")
+            s.references = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) { return detail::read_references(in); });
+        else if (sec.id == "RPLY")
+            s.replay_rows = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) { return detail::read_replay(in); }).rows();
+        else if (sec.id == "RSUM")
+            s.resumable = true;
+        else if (sec.id == "CALB")
+            s.calibration = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) { return detail::read_calibration(in); });
         else if (sec.id == "RSVR")
             s.replay_rows_seen = detail::parse_payload(bytes.data(), sec, source, [](byte_reader& in) {
                 const std::uint64_t seen = in.u64();
@@ -1039,7 +1105,10 @@ inline model_file_summary inspect_model_bytes(const std::vector<std::uint8_t>& b
     }
     if (const auto* rd = detail::find_section(c, "REFD"))
         if (!s.references.empty())
-            detail::parse_payload(bytes.data(), *rd, source, [&](byte_reader& in) { detail::read_distributions(in, s.references); return 0; });
+            detail::parse_payload(bytes.data(), *rd, source, [&](byte_reader& in) {
+                detail::read_distributions(in, s.references);
+                return 0;
+            });
     return s;
 }
 inline model_file_summary inspect_model_file(const std::string& path, const model_limits& limits = {}) {
@@ -1083,8 +1152,9 @@ load_status try_load_model_file(const std::string& path, model_file<T>& out, con
         st = detail::check_container(bytes.data(), bytes.size(), limits, path, c);
         if (!st.ok()) return st;
         if (c.scalar_bytes != sizeof(T))
-            return {codes::deploy_scalar_type, path + ": the weights are stored as " + (c.scalar_bytes == 4 ? "float" : "double") +
-                                                   ", but the model was loaded as " + (sizeof(T) == 4 ? "float" : "double")};
+            return {codes::deploy_scalar_type,
+                    path + ": the weights are stored as " + (c.scalar_bytes == 4 ? "float" : "double") + ", but the model was loaded as " +
+                        (sizeof(T) == 4 ? "float" : "double")};
         model_file<T> m = model_file_from_bytes<T>(bytes.data(), bytes.size(), limits, path);
         check_weights_fit(m.architecture, m.weights);
         for (const auto& member : m.members) check_weights_fit(m.architecture, member);

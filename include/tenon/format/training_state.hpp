@@ -15,13 +15,13 @@ TENON_NAMESPACE_BEGIN
 
 /// One line of the training history.
 struct epoch_summary {
-    std::size_t epoch = 0;               // 1-based
-    double training_loss = 0.0;          // mean over the epoch's batches
+    std::size_t epoch = 0;  // 1-based
+    double training_loss = 0.0;  // mean over the epoch's batches
     double validation_loss = std::numeric_limits<double>::quiet_NaN();
     double validation_metric = std::numeric_limits<double>::quiet_NaN();  // accuracy or RMSE (prepared units)
-    double learning_rate = 0.0;          // at the epoch's last step
-    double seconds = 0.0;                // training plus validation
-    std::size_t retries = 0;             // divergence retries spent on this epoch
+    double learning_rate = 0.0;  // at the epoch's last step
+    double seconds = 0.0;  // training plus validation
+    std::size_t retries = 0;  // divergence retries spent on this epoch
 };
 
 /// A copy of every parameter and state buffer of a network, in order.
@@ -39,16 +39,16 @@ struct network_snapshot {
 /// shuffle engine): each member resumes from the progress it saved.
 template <class T>
 struct training_progress {
-    std::size_t epochs_done = 0;            // whole epochs completed
-    std::uint64_t steps = 0;                // updates applied
-    random_state shuffle_engine;            // the engine that shuffles the rows
-    std::vector<std::size_t> order;         // the row permutation the next shuffle starts from
+    std::size_t epochs_done = 0;  // whole epochs completed
+    std::uint64_t steps = 0;  // updates applied
+    random_state shuffle_engine;  // the engine that shuffles the rows
+    std::vector<std::size_t> order;  // the row permutation the next shuffle starts from
     std::vector<epoch_summary> history;
-    std::size_t best_epoch = 0;             // 1-based; 0 = none yet
+    std::size_t best_epoch = 0;  // 1-based; 0 = none yet
     double best_validation_loss = std::numeric_limits<double>::infinity();
-    network_snapshot<T> best;               // weights of best_epoch (empty when none)
+    network_snapshot<T> best;  // weights of best_epoch (empty when none)
     std::size_t epochs_since_best = 0;
-    double rate_factor = 1.0;               // product of divergence reductions so far
+    double rate_factor = 1.0;  // product of divergence reductions so far
 };
 
 TENON_NAMESPACE_END

@@ -69,7 +69,8 @@ network<T> rebuild_network(const model_file<T>& m) {
 template <class T>
 network<T> rebuild_member(const model_file<T>& m, std::size_t k) {
     if (k > m.members.size())
-        raise(codes::invalid_argument, "model file: member " + std::to_string(k) + " asked of an ensemble of " + std::to_string(1 + m.members.size()));
+        raise(codes::invalid_argument,
+              "model file: member " + std::to_string(k) + " asked of an ensemble of " + std::to_string(1 + m.members.size()));
     return rebuild_network<T>(m.architecture, k == 0 ? m.weights : m.members[k - 1]);
 }
 /// Rebuilds an architecture with the given weights (see rebuild_network).
@@ -159,8 +160,10 @@ inline replay_sample sample_replay_rows(const table& t, const std::vector<std::s
     random_engine engine(seed, replay_engine_stream);
     for (std::size_t i = 0; i < rows.size(); ++i) {
         const std::uint64_t slot = reservoir_slot(engine, i, max_rows);
-        if (slot < chosen.size()) chosen[static_cast<std::size_t>(slot)] = rows[i];
-        else if (slot < max_rows) chosen.push_back(rows[i]);
+        if (slot < chosen.size())
+            chosen[static_cast<std::size_t>(slot)] = rows[i];
+        else if (slot < max_rows)
+            chosen.push_back(rows[i]);
     }
     std::sort(chosen.begin(), chosen.end());
     replay_sample s;
@@ -194,18 +197,16 @@ struct model_file_options {
 /// metadata, reference summaries of `train_rows` of `t` (the rows fit_model
 /// was given) and a replay sample.
 template <class T>
-model_file<T> make_model_file(fitted_model<T>& model, const table& t, const std::vector<std::size_t>& train_rows,
-                              const model_settings& settings, const model_file_options& options = {}) {
+model_file<T> make_model_file(fitted_model<T>& model, const table& t, const std::vector<std::size_t>& train_rows, const model_settings& settings,
+                              const model_file_options& options = {}) {
     model_file<T> m = capture_network(model.net);
     for (auto& member : model.members) m.members.push_back(capture_network(member).weights);
     m.plan.emplace(model.plan);
     training_metadata meta;
     meta.library_version = version_string();
     meta.created_unix_seconds = options.created_unix_seconds
-                                    ? *options.created_unix_seconds
-                                    : static_cast<std::int64_t>(std::chrono::duration_cast<std::chrono::seconds>(
-                                                                    std::chrono::system_clock::now().time_since_epoch())
-                                                                    .count());
+        ? *options.created_unix_seconds
+        : static_cast<std::int64_t>(std::chrono::duration_cast<std::chrono::seconds>(std::chrono::system_clock::now().time_since_epoch()).count());
     meta.seed = settings.seed;
     meta.epochs_planned = settings.epochs;
     meta.epochs_run = model.outcome.history.size();
@@ -265,20 +266,22 @@ void restore_resume_state(const resume_state<T>& s, network<T>& net, update_rule
     if (s.update_kind != rule.kind())
         raise(codes::deploy_resume_mismatch, "resume: the state was saved by a '" + s.update_kind + "' update rule, not '" + rule.kind() + "'");
     if (s.schedule_kind != schedule.kind())
-        raise(codes::deploy_resume_mismatch, "resume: the state was saved with a '" + s.schedule_kind + "' schedule, not '" +
-                                                 schedule.kind() + "'");
+        raise(codes::deploy_resume_mismatch, "resume: the state was saved with a '" + s.schedule_kind + "' schedule, not '" + schedule.kind() + "'");
     const auto engines = detail::layer_engines(net);
     if (engines.size() != s.layer_engines.size())
-        raise(codes::deploy_resume_mismatch, "resume: the state holds " + std::to_string(s.layer_engines.size()) +
-                                                 " layer engines, the network has " + std::to_string(engines.size()));
+        raise(codes::deploy_resume_mismatch,
+              "resume: the state holds " + std::to_string(s.layer_engines.size()) + " layer engines, the network has " +
+                  std::to_string(engines.size()));
     for (std::size_t i = 0; i < engines.size(); ++i)
         if (engines[i].first != s.layer_engines[i].first)
-            raise(codes::deploy_resume_mismatch, "resume: layer engine " + std::to_string(i) + " is '" + s.layer_engines[i].first +
-                                                     "', the network's is '" + engines[i].first + "'");
+            raise(codes::deploy_resume_mismatch,
+                  "resume: layer engine " + std::to_string(i) + " is '" + s.layer_engines[i].first + "', the network's is '" + engines[i].first +
+                      "'");
     const std::size_t values = net.parameters().size() + net.state_buffers().size();
     if (!s.progress.best.values.empty() && s.progress.best.values.size() != values)
-        raise(codes::deploy_resume_mismatch, "resume: the best-epoch weights hold " + std::to_string(s.progress.best.values.size()) +
-                                                 " matrices, the network has " + std::to_string(values));
+        raise(codes::deploy_resume_mismatch,
+              "resume: the best-epoch weights hold " + std::to_string(s.progress.best.values.size()) + " matrices, the network has " +
+                  std::to_string(values));
     rule.load_state(s.update_state);
     schedule.load_state(s.schedule_state);
     for (std::size_t i = 0; i < engines.size(); ++i) engines[i].second->set_state(s.layer_engines[i].second);
