@@ -21,6 +21,7 @@
 #include <tenon/core/parallel.hpp>
 #include <tenon/deploy/model_file.hpp>
 #include <tenon/deploy/predictor.hpp>
+#include <tenon/train/calibration.hpp>
 #include <tenon/layers/network.hpp>
 #include <tenon/losses/classification.hpp>
 #include <tenon/train/trainer.hpp>
