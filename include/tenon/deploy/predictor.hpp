@@ -69,6 +69,7 @@
 #endif
 
 #include "tenon/core/gemm.hpp"
+#include "tenon/core/small_dense.hpp"
 #include "tenon/deploy/model_file.hpp"
 
 TENON_NAMESPACE_BEGIN
@@ -230,6 +231,11 @@ struct program_step {
     activation function = activation::identity;
     double coefficient = 0.0;
     double epsilon = 0.0;
+    // Set by specialise_steps for a dense step (run as one dense_rows pass):
+    bool relu_after = false;  // the relu step that followed is fused in
+    bool has_addend = false;  // the sum step that followed is fused in:
+    std::size_t addend = 0;   //   the buffer added to the result
+    std::size_t t = 0;        // offset of W transposed (outputs x inputs) when outputs < thin_columns
 };
 
 struct column_info {
@@ -367,6 +373,55 @@ struct compiled_model {
         return s.out;
     }
 };
+
+// The specialisation pass, run once when a model is compiled: each dense
+// step takes the relu step and then the sum step (a linear bypass's
+// f(x) + x W) that directly follow it and read only its result, so the
+// three run as one pass of dense_rows (core/small_dense.hpp) with the
+// values in registers; a dense step with fewer than thin_columns outputs
+// gets its weights transposed, so each output's dot product reads them
+// contiguously. The arithmetic of every value is unchanged.
+template <class T>
+void specialise_steps(compiled_model<T>& m) {
+    std::vector<std::size_t> readers(m.buffer_widths.size(), 0);
+    for (const program_step& s : m.steps) {
+        ++readers[s.in];
+        if (s.kind == step_kind::add) ++readers[s.in2];
+    }
+    ++readers[m.output_buffer];  // read by the caller
+    for (std::size_t b : m.member_buffers) ++readers[b];
+    std::vector<program_step> steps;
+    for (std::size_t i = 0; i < m.steps.size(); ++i) {
+        program_step s = m.steps[i];
+        if (s.kind == step_kind::dense) {
+            while (i + 1 < m.steps.size() && readers[s.out] == 1) {
+                const program_step& next = m.steps[i + 1];
+                if (!s.relu_after && !s.has_addend && next.kind == step_kind::activate && next.function == activation::relu && next.in == s.out) {
+                    s.relu_after = true;
+                } else if (!s.has_addend && next.kind == step_kind::add && next.in != next.in2 && (next.in == s.out || next.in2 == s.out)) {
+                    s.has_addend = true;
+                    s.addend = next.in == s.out ? next.in2 : next.in;
+                } else {
+                    break;
+                }
+                s.out = next.out;
+                ++i;
+            }
+            if (s.outputs > 1 && s.outputs < thin_columns<T>) {
+                s.t = m.store.size();
+                for (std::size_t j = 0; j < s.outputs; ++j)
+                    for (std::size_t p = 0; p < s.inputs; ++p) {
+                        const T v = m.store[s.a + p * s.outputs + j];
+                        m.store.push_back(v);
+                    }
+            } else {
+                s.t = s.a;
+            }
+        }
+        steps.push_back(s);
+    }
+    m.steps = std::move(steps);
+}
 
 inline bool parse_for_kind(const column_info& c, std::string_view cell, double& value) noexcept {
     return c.kind == column_kind::datetime ? parse_datetime(cell, c.time_form, value) : parse_number(cell, value);
@@ -656,6 +711,7 @@ private:
         // A calibration is used only for the kind of target it was fitted for.
         if (calibration && m->regression) m->interval = calibration->interval;
         if (calibration && m->classification) m->classes = calibration->classes;
+        detail::specialise_steps(*m);
         return m;
     }
 
@@ -757,13 +813,11 @@ private:
             const std::size_t w = s.outputs, size = rows * w;
             switch (s.kind) {
                 case detail::step_kind::dense: {
-                    gemm<T>(false, false, rows, w, s.inputs, T(1), x, s.inputs, store + s.a, w, T(0), y, w);
-                    if (s.has_bias) {
-                        const T* b = store + s.b;
-                        for (std::size_t i = 0; i < rows; ++i)
-                            for (std::size_t j = 0; j < w; ++j) y[i * w + j] = y[i * w + j] + b[j];
-                    }
-                    break;
+                    // The sum, bias, flush, fused relu and fused sum in one pass (specialise_steps).
+                    const detail::dense_finish<T> finish{s.has_bias ? store + s.b : nullptr, s.relu_after,
+                                                         s.has_addend ? buffers_[s.addend].data() : nullptr};
+                    detail::dense_rows<T>(rows, s.inputs, w, x, store + s.a, store + s.t, finish, y);
+                    continue;  // flushed already
                 }
                 case detail::step_kind::activate: activate_values(s, x, y, rows); break;
                 case detail::step_kind::layer_norm: {
