@@ -30,7 +30,8 @@ struct units {
 
 // One row through every network; mean of their outputs (one output each)
 // in the target's units, and their sample standard deviation in *spread.
-// At most 64 networks and 64 values per layer; `scratch` holds 128 floats.
+// 8-32-32-1 networks only (fixed at compile time), at most 64 of them;
+// `scratch` holds 128 floats.
 float predict(const network* nets, std::size_t count, const units& u, const float* x, float* scratch, float* spread);
 
 }  // namespace hand

@@ -106,17 +106,53 @@ TENON_NO_CONTRACTION void dense_dots(const T* x, const T* wt, std::size_t k, std
         const std::size_t at = (AT);                                                                                           \
         ops::store(y + at, finish_vector_##SUFFIX<T>(C, bias ? bias + at : nullptr, relu, addend ? addend + at : nullptr));    \
     }
-#define TENON_SMALL_DENSE_ROW(SUFFIX, TARGET, OPS)                                                                        \
+#define TENON_SMALL_DENSE_FINISH(SUFFIX, TARGET, OPS)                                                                     \
     template <class T>                                                                                                    \
-    TARGET typename OPS<T>::vector finish_vector_##SUFFIX(typename OPS<T>::vector c, const T* bias, bool relu,             \
-                                                          const T* addend) noexcept {                                     \
+    TARGET inline typename OPS<T>::vector finish_vector_##SUFFIX(typename OPS<T>::vector c, const T* bias, bool relu,      \
+                                                                 const T* addend) noexcept {                              \
         using ops = OPS<T>;                                                                                               \
         if (bias) c = ops::add(c, ops::load(bias));                                                                       \
         c = ops::zero_tiny(c);                                                                                            \
         if (relu) c = ops::select_positive(c, c);                                                                         \
         if (addend) c = ops::zero_tiny(ops::add(ops::load(addend), c));                                                   \
         return c;                                                                                                         \
-    }                                                                                                                     \
+    }
+// One vector of row i + R, columns from J on, of a fused product: scaled
+// by 1 and added to C's zero as the packed tile does, then finished.
+#define TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, C, R, J)                                                                         \
+    {                                                                                                                          \
+        const std::size_t at = (i + (R)) * n + (J);                                                                            \
+        ops::store(y + at, finish_vector_##SUFFIX<T>(ops::fma(one, C, zero), bias ? bias + (J) : nullptr, relu,                \
+                                                     f.addend ? f.addend + at : nullptr));                                     \
+    }
+// Rows [row0, row0 + rows) from column j0 on, one row and one vector at a
+// time (the edges of dense_fused_rows), the tail columns with std::fma.
+#define TENON_SMALL_DENSE_FUSED_COLS(SUFFIX, TARGET, OPS)                                                                      \
+    template <class T>                                                                                                         \
+    TARGET void dense_fused_cols_##SUFFIX(std::size_t rows, const T* x, const T* w, std::size_t k, std::size_t n,              \
+                                          std::size_t j0, const dense_finish<T>& f, std::size_t row0, T* y) noexcept {         \
+        using ops = OPS<T>;                                                                                                    \
+        constexpr std::size_t lanes = ops::lanes;                                                                              \
+        const auto one = ops::broadcast(T(1)), zero = ops::zero();                                                             \
+        for (std::size_t r = 0; r < rows; ++r) {                                                                               \
+            const T* xr = x + r * k;                                                                                           \
+            T* yr = y + (row0 + r) * n;                                                                                        \
+            const T* addend = f.addend ? f.addend + (row0 + r) * n : nullptr;                                                  \
+            std::size_t j = j0;                                                                                                \
+            for (; j + lanes <= n; j += lanes) {                                                                               \
+                auto c = zero;                                                                                                 \
+                for (std::size_t p = 0; p < k; ++p) c = ops::fma(ops::broadcast(xr[p]), ops::load(w + p * n + j), c);          \
+                ops::store(yr + j, finish_vector_##SUFFIX<T>(ops::fma(one, c, zero), f.bias ? f.bias + j : nullptr, f.relu,     \
+                                                             addend ? addend + j : nullptr));                                  \
+            }                                                                                                                  \
+            for (; j < n; ++j) {                                                                                               \
+                T c = T(0);                                                                                                    \
+                for (std::size_t p = 0; p < k; ++p) c = std::fma(xr[p], w[p * n + j], c);                                      \
+                yr[j] = finish_value(std::fma(T(1), c, T(0)), f, j, addend);                                                   \
+            }                                                                                                                  \
+        }                                                                                                                      \
+    }
+#define TENON_SMALL_DENSE_ROW(SUFFIX, TARGET, OPS)                                                                        \
     template <class T>                                                                                                    \
     TARGET TENON_NO_CONTRACTION void dense_row_##SUFFIX(const T* x, const T* w, std::size_t k, std::size_t n,             \
                                                         const dense_finish<T>& f, const T* addend, T* y) noexcept {       \
@@ -162,15 +198,64 @@ TENON_NO_CONTRACTION void dense_dots(const T* x, const T* wt, std::size_t k, std
             for (std::size_t p = 0; p < k; ++p) c += (T(1) * x[p]) * w[p * n + j];                                        \
             y[j] = finish_value(c, f, j, addend);                                                                         \
         }                                                                                                                 \
+    }                                                                                                                     \
+    template <class T>                                                                                                    \
+    TARGET void dense_fused_rows_##SUFFIX(std::size_t rows, const T* x, const T* w, std::size_t k, std::size_t n,         \
+                                          const dense_finish<T>& f, T* y) noexcept {                                      \
+        using ops = OPS<T>;                                                                                               \
+        constexpr std::size_t lanes = ops::lanes;                                                                         \
+        const T* bias = f.bias;                                                                                           \
+        const bool relu = f.relu;                                                                                         \
+        const auto one = ops::broadcast(T(1)), zero = ops::zero();                                                        \
+        std::size_t i = 0;                                                                                                \
+        for (; i + 4 <= rows; i += 4) {                                                                                   \
+            const T* x0 = x + i * k;                                                                                      \
+            std::size_t j = 0;                                                                                            \
+            for (; j + 2 * lanes <= n; j += 2 * lanes) {                                                                  \
+                auto a0 = zero, a1 = zero, b0 = zero, b1 = zero, c0 = zero, c1 = zero, d0 = zero, d1 = zero;              \
+                for (std::size_t p = 0; p < k; ++p) {                                                                     \
+                    const auto w0 = ops::load(w + p * n + j), w1 = ops::load(w + p * n + j + lanes);                      \
+                    const auto s0 = ops::broadcast(x0[p]), s1 = ops::broadcast(x0[k + p]);                                \
+                    const auto s2 = ops::broadcast(x0[2 * k + p]), s3 = ops::broadcast(x0[3 * k + p]);                    \
+                    a0 = ops::fma(s0, w0, a0);                                                                            \
+                    a1 = ops::fma(s0, w1, a1);                                                                            \
+                    b0 = ops::fma(s1, w0, b0);                                                                            \
+                    b1 = ops::fma(s1, w1, b1);                                                                            \
+                    c0 = ops::fma(s2, w0, c0);                                                                            \
+                    c1 = ops::fma(s2, w1, c1);                                                                            \
+                    d0 = ops::fma(s3, w0, d0);                                                                            \
+                    d1 = ops::fma(s3, w1, d1);                                                                            \
+                }                                                                                                         \
+                TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, a0, 0, j)                                                           \
+                TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, a1, 0, j + lanes)                                                   \
+                TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, b0, 1, j)                                                           \
+                TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, b1, 1, j + lanes)                                                   \
+                TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, c0, 2, j)                                                           \
+                TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, c1, 2, j + lanes)                                                   \
+                TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, d0, 3, j)                                                           \
+                TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, d1, 3, j + lanes)                                                   \
+            }                                                                                                             \
+            if (j < n) dense_fused_cols_##SUFFIX<T>(4, x0, w, k, n, j, f, i, y);                                          \
+        }                                                                                                                 \
+        if (i < rows) dense_fused_cols_##SUFFIX<T>(rows - i, x + i * k, w, k, n, 0, f, i, y);                             \
     }
 #if TENON_GEMM_X86
+TENON_SMALL_DENSE_FINISH(avx512, TENON_TARGET_AVX512, avx512_ops)
+TENON_SMALL_DENSE_FINISH(avx2, TENON_TARGET_AVX2, avx2_ops)
+TENON_SMALL_DENSE_FUSED_COLS(avx512, TENON_TARGET_AVX512, avx512_ops)
+TENON_SMALL_DENSE_FUSED_COLS(avx2, TENON_TARGET_AVX2, avx2_ops)
 TENON_SMALL_DENSE_ROW(avx512, TENON_TARGET_AVX512, avx512_ops)
 TENON_SMALL_DENSE_ROW(avx2, TENON_TARGET_AVX2, avx2_ops)
 #else
+TENON_SMALL_DENSE_FINISH(neon, TENON_TARGET_NEON, neon_ops)
+TENON_SMALL_DENSE_FUSED_COLS(neon, TENON_TARGET_NEON, neon_ops)
 TENON_SMALL_DENSE_ROW(neon, TENON_TARGET_NEON, neon_ops)
 #endif
 #undef TENON_SMALL_DENSE_ROW
 #undef TENON_SMALL_DENSE_STORE
+#undef TENON_SMALL_DENSE_FUSED_STORE
+#undef TENON_SMALL_DENSE_FUSED_COLS
+#undef TENON_SMALL_DENSE_FINISH
 #endif
 
 // Which version of the row loop small_dense runs.
@@ -198,6 +283,21 @@ inline bool small_dense_version_available(small_dense_version v) noexcept {
     }
     return false;
 }
+
+// Fewer rows than this take gemm's unpacked loops on every path (the
+// smallest register tile has 4 rows), so a call of so few rows can go to
+// small_dense without asking which path is active.
+template <class T>
+inline constexpr std::size_t always_thin_rows = portable_kernel<T>::mr;
+#if TENON_GEMM_X86
+static_assert(avx512_kernel<float>::mr >= always_thin_rows<float> && avx2_kernel<float>::mr >= always_thin_rows<float> &&
+                  avx512_kernel<double>::mr >= always_thin_rows<double> && avx2_kernel<double>::mr >= always_thin_rows<double>,
+              "a tile has fewer rows than always_thin_rows");
+#endif
+#if TENON_SIMD_NEON
+static_assert(neon_path_kernel<float>::mr >= always_thin_rows<float> && neon_path_kernel<double>::mr >= always_thin_rows<double>,
+              "a tile has fewer rows than always_thin_rows");
+#endif
 
 // rows rows of y = finish(x W) by the unpacked loops (whatever gemm would
 // choose; the caller checks is_thin_product where the bits must be gemm's).
@@ -234,10 +334,26 @@ template <class T>
 void dense_rows(std::size_t rows, std::size_t k, std::size_t n, const T* x, const T* w, const T* wt, const dense_finish<T>& f,
                 T* y) noexcept {
     if (rows == 0 || n == 0) return;
-    if (is_thin_product<T>(rows, n, product_path(rows, n, k, k, n, n))) {
+    const kernel_path path = product_path(rows, n, k, k, n, n);
+    if (is_thin_product<T>(rows, n, path)) {
         small_dense(rows, k, n, x, w, wt, f, y, best_small_dense_version());
         return;
     }
+    // The packed tiles of the fused paths sum each element as one chain of
+    // fused multiply-adds from 0 over k <= kc terms, then add 1 x the sum to
+    // C's zero: the same chain, without packing, four rows at a time.
+#if TENON_GEMM_X86
+    if ((path == kernel_path::avx512 || path == kernel_path::avx2) && k <= avx512_kernel<T>::kc && k <= avx2_kernel<T>::kc) {
+        if (vector_level() == 2) dense_fused_rows_avx512(rows, x, w, k, n, f, y);
+        else dense_fused_rows_avx2(rows, x, w, k, n, f, y);
+        return;
+    }
+#elif TENON_SIMD_NEON64
+    if (path == kernel_path::neon && k <= neon_path_kernel<T>::kc) {
+        dense_fused_rows_neon(rows, x, w, k, n, f, y);
+        return;
+    }
+#endif
     gemm<T>(false, false, rows, n, k, T(1), x, k, w, n, T(0), y, n);
     finish_rows(rows, n, f, y);
 }

@@ -236,6 +236,7 @@ struct program_step {
     bool has_addend = false;  // the sum step that followed is fused in:
     std::size_t addend = 0;   //   the buffer added to the result
     std::size_t t = 0;        // offset of W transposed (outputs x inputs) when outputs < thin_columns
+    small_dense_version version = small_dense_version::portable;  // the row loop for calls of few rows
 };
 
 struct column_info {
@@ -417,6 +418,7 @@ void specialise_steps(compiled_model<T>& m) {
             } else {
                 s.t = s.a;
             }
+            s.version = best_small_dense_version();
         }
         steps.push_back(s);
     }
@@ -816,7 +818,8 @@ private:
                     // The sum, bias, flush, fused relu and fused sum in one pass (specialise_steps).
                     const detail::dense_finish<T> finish{s.has_bias ? store + s.b : nullptr, s.relu_after,
                                                          s.has_addend ? buffers_[s.addend].data() : nullptr};
-                    detail::dense_rows<T>(rows, s.inputs, w, x, store + s.a, store + s.t, finish, y);
+                    if (rows < detail::always_thin_rows<T>) detail::small_dense<T>(rows, s.inputs, w, x, store + s.a, store + s.t, finish, y, s.version);
+                    else detail::dense_rows<T>(rows, s.inputs, w, x, store + s.a, store + s.t, finish, y);
                     continue;  // flushed already
                 }
                 case detail::step_kind::activate: activate_values(s, x, y, rows); break;
