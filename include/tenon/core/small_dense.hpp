@@ -18,8 +18,14 @@
 //     sum rounded, never fused), below that as split_dot (its eight partial
 //     sums), read from a transposed copy of W so that each column is
 //     contiguous;
-//   - otherwise gemm itself computes x W and the finish runs as a second
-//     pass over y.
+//   - otherwise, on the fused paths (avx512, avx2, neon on aarch64) and for
+//     k <= kc, the packed tile sums each element as one chain of fused
+//     multiply-adds from 0, p = 0..k-1, then adds 1 x the chain to C's 0;
+//     dense_fused_rows computes that same chain without packing, several
+//     rows at a time (8 rows x 2 vectors with AVX-512F and NEON, 4 with
+//     AVX2);
+//   - otherwise (the portable and blas paths, k > kc) gemm itself computes
+//     x W and the finish runs as a second pass over y.
 // The row loop's vector versions (AVX-512F, AVX2, aarch64 NEON) keep up to
 // four vectors of y in registers over the k terms and apply the finish
 // before storing them; the vector width changes no bit.
@@ -152,7 +158,7 @@ TENON_NO_CONTRACTION void dense_dots(const T* x, const T* wt, std::size_t k, std
             }                                                                                                                  \
         }                                                                                                                      \
     }
-#define TENON_SMALL_DENSE_ROW(SUFFIX, TARGET, OPS)                                                                        \
+#define TENON_SMALL_DENSE_ROW(SUFFIX, TARGET, OPS, ROWS)                                                                     \
     template <class T>                                                                                                    \
     TARGET TENON_NO_CONTRACTION void dense_row_##SUFFIX(const T* x, const T* w, std::size_t k, std::size_t n,             \
                                                         const dense_finish<T>& f, const T* addend, T* y) noexcept {       \
@@ -207,36 +213,29 @@ TENON_NO_CONTRACTION void dense_dots(const T* x, const T* wt, std::size_t k, std
         const T* bias = f.bias;                                                                                           \
         const bool relu = f.relu;                                                                                         \
         const auto one = ops::broadcast(T(1)), zero = ops::zero();                                                        \
-        std::size_t i = 0;                                                                                                \
-        for (; i + 4 <= rows; i += 4) {                                                                                   \
-            const T* x0 = x + i * k;                                                                                      \
-            std::size_t j = 0;                                                                                            \
-            for (; j + 2 * lanes <= n; j += 2 * lanes) {                                                                  \
-                auto a0 = zero, a1 = zero, b0 = zero, b1 = zero, c0 = zero, c1 = zero, d0 = zero, d1 = zero;              \
-                for (std::size_t p = 0; p < k; ++p) {                                                                     \
-                    const auto w0 = ops::load(w + p * n + j), w1 = ops::load(w + p * n + j + lanes);                      \
-                    const auto s0 = ops::broadcast(x0[p]), s1 = ops::broadcast(x0[k + p]);                                \
-                    const auto s2 = ops::broadcast(x0[2 * k + p]), s3 = ops::broadcast(x0[3 * k + p]);                    \
-                    a0 = ops::fma(s0, w0, a0);                                                                            \
-                    a1 = ops::fma(s0, w1, a1);                                                                            \
-                    b0 = ops::fma(s1, w0, b0);                                                                            \
-                    b1 = ops::fma(s1, w1, b1);                                                                            \
-                    c0 = ops::fma(s2, w0, c0);                                                                            \
-                    c1 = ops::fma(s2, w1, c1);                                                                            \
-                    d0 = ops::fma(s3, w0, d0);                                                                            \
-                    d1 = ops::fma(s3, w1, d1);                                                                            \
-                }                                                                                                         \
-                TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, a0, 0, j)                                                           \
-                TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, a1, 0, j + lanes)                                                   \
-                TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, b0, 1, j)                                                           \
-                TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, b1, 1, j + lanes)                                                   \
-                TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, c0, 2, j)                                                           \
-                TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, c1, 2, j + lanes)                                                   \
-                TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, d0, 3, j)                                                           \
-                TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, d1, 3, j + lanes)                                                   \
-            }                                                                                                             \
-            if (j < n) dense_fused_cols_##SUFFIX<T>(4, x0, w, k, n, j, f, i, y);                                          \
-        }                                                                                                                 \
+        constexpr std::size_t R = ROWS;                                                                               \
+        std::size_t i = 0;                                                                                            \
+        for (; i + R <= rows; i += R) {                                                                               \
+            const T* x0 = x + i * k;                                                                                  \
+            std::size_t j = 0;                                                                                        \
+            for (; j + 2 * lanes <= n; j += 2 * lanes) {                                                              \
+                typename ops::vector acc0[R], acc1[R];                                                                \
+                _Pragma("GCC unroll 16") for (std::size_t r = 0; r < R; ++r) acc0[r] = acc1[r] = zero;                \
+                for (std::size_t p = 0; p < k; ++p) {                                                                 \
+                    const auto w0 = ops::load(w + p * n + j), w1 = ops::load(w + p * n + j + lanes);                  \
+                    _Pragma("GCC unroll 16") for (std::size_t r = 0; r < R; ++r) {                                    \
+                        const auto s = ops::broadcast(x0[r * k + p]);                                                 \
+                        acc0[r] = ops::fma(s, w0, acc0[r]);                                                           \
+                        acc1[r] = ops::fma(s, w1, acc1[r]);                                                           \
+                    }                                                                                                 \
+                }                                                                                                     \
+                _Pragma("GCC unroll 16") for (std::size_t r = 0; r < R; ++r) {                                        \
+                    TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, acc0[r], r, j)                                              \
+                    TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, acc1[r], r, j + lanes)                                      \
+                }                                                                                                     \
+            }                                                                                                         \
+            if (j < n) dense_fused_cols_##SUFFIX<T>(R, x0, w, k, n, j, f, i, y);                                      \
+        }                                                                                                             \
         if (i < rows) dense_fused_cols_##SUFFIX<T>(rows - i, x + i * k, w, k, n, 0, f, i, y);                             \
     }
 #if TENON_GEMM_X86
@@ -244,12 +243,12 @@ TENON_SMALL_DENSE_FINISH(avx512, TENON_TARGET_AVX512, avx512_ops)
 TENON_SMALL_DENSE_FINISH(avx2, TENON_TARGET_AVX2, avx2_ops)
 TENON_SMALL_DENSE_FUSED_COLS(avx512, TENON_TARGET_AVX512, avx512_ops)
 TENON_SMALL_DENSE_FUSED_COLS(avx2, TENON_TARGET_AVX2, avx2_ops)
-TENON_SMALL_DENSE_ROW(avx512, TENON_TARGET_AVX512, avx512_ops)
-TENON_SMALL_DENSE_ROW(avx2, TENON_TARGET_AVX2, avx2_ops)
+TENON_SMALL_DENSE_ROW(avx512, TENON_TARGET_AVX512, avx512_ops, 8)
+TENON_SMALL_DENSE_ROW(avx2, TENON_TARGET_AVX2, avx2_ops, 4)
 #else
 TENON_SMALL_DENSE_FINISH(neon, TENON_TARGET_NEON, neon_ops)
 TENON_SMALL_DENSE_FUSED_COLS(neon, TENON_TARGET_NEON, neon_ops)
-TENON_SMALL_DENSE_ROW(neon, TENON_TARGET_NEON, neon_ops)
+TENON_SMALL_DENSE_ROW(neon, TENON_TARGET_NEON, neon_ops, 8)
 #endif
 #undef TENON_SMALL_DENSE_ROW
 #undef TENON_SMALL_DENSE_STORE
@@ -261,12 +260,19 @@ TENON_SMALL_DENSE_ROW(neon, TENON_TARGET_NEON, neon_ops)
 // Which version of the row loop small_dense runs.
 enum class small_dense_version : std::uint8_t { portable, avx2, avx512, neon };
 
-// The widest version the running CPU offers (the vector level gemm's
-// unpacked loops use as well).
+// The version for calls of few rows on the running CPU.
 inline small_dense_version best_small_dense_version() noexcept {
 #if TENON_GEMM_X86
+    // AVX2 even where AVX-512F is offered: a call of few rows is bound by
+    // the latency of each output's chain of additions, which a wider vector
+    // does not shorten, and 512-bit instructions occupy more of a core's
+    // vector ports (on Intel's server cores port 1 stops taking vector
+    // work while they run); on the development machine (Xeon, Sapphire
+    // Rapids) one row of 8-32-32-1 took 115 ns with AVX2 against 137 ns
+    // with AVX-512. Batches (dense_fused_rows) are bound by throughput and
+    // take the widest vectors.
     const int level = vector_level();
-    return level == 2 ? small_dense_version::avx512 : level == 1 ? small_dense_version::avx2 : small_dense_version::portable;
+    return level >= 1 ? small_dense_version::avx2 : small_dense_version::portable;
 #elif TENON_SIMD_NEON64
     return small_dense_version::neon;
 #else
