@@ -11,7 +11,8 @@
 // bench model (a seed ensemble of five 8-32-32-1 networks with a linear
 // bypass, the regression default) and on a single 8-32-32-1 network
 // (ensemble 1, no bypass). The summary lines give the ratios from
-// interleaved rounds, and 64 rows in one call against 64 one-row calls.
+// interleaved rounds of back-to-back calls (thread CPU time), and 64 rows
+// in one call against 64 one-row calls.
 //
 // Run: build/<dir>/bench/tenon_bench_deploy
 // (TENON_BENCH_SMOKE=1 in the environment shortens the throughput runs from
@@ -28,6 +29,7 @@
 #include <stdexcept>
 #include <string>
 #include <thread>
+#include <time.h>
 #include <unistd.h>
 #include <vector>
 
@@ -359,16 +361,23 @@ double throughput(int threads, double seconds) {
     return static_cast<double>(total) / seconds;
 }
 
-// Median time per call (ns) of each function over `rounds` interleaved
+// The calling thread's CPU time in ns (time it spends descheduled on a
+// shared machine is not counted).
+double thread_cpu_ns() {
+    timespec t{};
+    clock_gettime(CLOCK_THREAD_CPUTIME_ID, &t);
+    return static_cast<double>(t.tv_sec) * 1e9 + static_cast<double>(t.tv_nsec);
+}
+
+// Median CPU time per call (ns) of each function over `rounds` interleaved
 // rounds of `calls` calls each, so a slower spell of the machine hits all alike.
 std::vector<double> interleaved_ns(const std::vector<std::function<void()>>& fs, int rounds, int calls) {
     std::vector<std::vector<double>> ns(fs.size());
     for (int r = 0; r < rounds; ++r)
         for (std::size_t f = 0; f < fs.size(); ++f) {
-            const auto t0 = std::chrono::steady_clock::now();
+            const double t0 = thread_cpu_ns();
             for (int c = 0; c < calls; ++c) fs[f]();
-            const auto t1 = std::chrono::steady_clock::now();
-            ns[f].push_back(std::chrono::duration<double, std::nano>(t1 - t0).count() / calls);
+            ns[f].push_back((thread_cpu_ns() - t0) / calls);
         }
     std::vector<double> medians;
     for (auto& v : ns) {
