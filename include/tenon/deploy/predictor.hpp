@@ -375,6 +375,46 @@ struct compiled_model {
     }
 };
 
+// A seed ensemble's networks in lockstep: the first step of every member,
+// then the second of every member, and so on, when all members have as many
+// steps and each reads only the prepared features (buffer 0) and its own
+// earlier results. Each member's values are computed as before; the
+// processor then finds the independent chains of additions of several
+// members next to each other in the instruction stream and overlaps them
+// (a member's one-row layers are bound by the latency of those chains).
+template <class T>
+std::vector<program_step> interleave_members(std::vector<program_step> steps, const compiled_model<T>& m) {
+    if (m.member_buffers.empty()) return steps;
+    std::vector<std::size_t> ends{m.output_buffer};
+    ends.insert(ends.end(), m.member_buffers.begin(), m.member_buffers.end());
+    std::vector<std::vector<program_step>> chains;
+    std::vector<std::size_t> owner(m.buffer_widths.size(), SIZE_MAX);  // chain that writes each buffer
+    std::size_t chain = 0;
+    std::vector<program_step> current;
+    for (const program_step& s : steps) {
+        if (chain >= ends.size()) return steps;
+        const auto reads_own = [&](std::size_t b) { return b == 0 || owner[b] == chain; };
+        if (!reads_own(s.in) || (s.kind == step_kind::add && !reads_own(s.in2)) || (s.kind == step_kind::dense && s.has_addend && !reads_own(s.addend)))
+            return steps;
+        if (owner[s.out] != SIZE_MAX || s.out == 0) return steps;
+        owner[s.out] = chain;
+        if (s.kind == step_kind::layer_norm) owner[s.scratch] = chain;
+        current.push_back(s);
+        if (s.out == ends[chain]) {
+            chains.push_back(std::move(current));
+            current.clear();
+            ++chain;
+        }
+    }
+    if (chains.size() != ends.size() || !current.empty()) return steps;
+    for (const auto& c : chains)
+        if (c.size() != chains[0].size()) return steps;
+    std::vector<program_step> lockstep;
+    for (std::size_t l = 0; l < chains[0].size(); ++l)
+        for (const auto& c : chains) lockstep.push_back(c[l]);
+    return lockstep;
+}
+
 // The specialisation pass, run once when a model is compiled: each dense
 // step takes the relu step and then the sum step (a linear bypass's
 // f(x) + x W) that directly follow it and read only its result, so the
@@ -422,7 +462,7 @@ void specialise_steps(compiled_model<T>& m) {
         }
         steps.push_back(s);
     }
-    m.steps = std::move(steps);
+    m.steps = interleave_members(std::move(steps), m);
 }
 
 inline bool parse_for_kind(const column_info& c, std::string_view cell, double& value) noexcept {
