@@ -6,6 +6,14 @@
 // with its calibrated band (train/calibration.hpp) against the same row
 // without it (issue 20 budget: at most 1.2x), the ratio printed.
 //
+// Against a hand loop: the same networks evaluated by plain loops in
+// hand_loop.cpp, compiled with -O3 -march=native, one row per call, on the
+// bench model (a seed ensemble of five 8-32-32-1 networks with a linear
+// bypass, the regression default) and on a single 8-32-32-1 network
+// (ensemble 1, no bypass). The summary lines give the ratios from
+// interleaved rounds of back-to-back calls (thread CPU time), and 64 rows
+// in one call against 64 one-row calls.
+//
 // Run: build/<dir>/bench/tenon_bench_deploy
 // (TENON_BENCH_SMOKE=1 in the environment shortens the throughput runs from
 // 1 s to 0.05 s each, for CI's brief run.)
@@ -16,15 +24,20 @@
 #include <chrono>
 #include <cstdio>
 #include <cstdlib>
+#include <functional>
 #include <sstream>
+#include <stdexcept>
 #include <string>
 #include <thread>
+#include <time.h>
 #include <unistd.h>
 #include <vector>
 
 #include <tenon/deploy/model_file.hpp>
 #include <tenon/deploy/predictor.hpp>
 #include <tenon/prep/csv.hpp>
+
+#include "hand_loop.hpp"
 
 namespace {
 
@@ -51,10 +64,14 @@ struct bench_model {
         std::istringstream in(csv.str());
         return tenon::read_csv(in, {}, "press.csv");
     }
-    static tenon::model_settings settings() {
+    static tenon::model_settings settings(bool single = false) {
         tenon::model_settings s;
         s.hidden = {32, 32};
         s.epochs = 2;
+        if (single) {
+            s.ensemble = 1;
+            s.linear_path = false;
+        }
         return s;
     }
     static std::vector<std::size_t> rows(std::size_t a, std::size_t b) {
@@ -62,15 +79,15 @@ struct bench_model {
         for (std::size_t i = a; i < b; ++i) r.push_back(i);
         return r;
     }
-    bench_model()
+    explicit bench_model(bool single = false)
         : t(make_table()),
           fitted([&] {
               tenon::plan p;
               p.set_target("force", tenon::target_kind::regression);
-              return tenon::fit_model<float>(t, p, rows(0, 1600), rows(1600, 2000), settings());
+              return tenon::fit_model<float>(t, p, rows(0, 1600), rows(1600, 2000), settings(single));
           }()),
-          file(tenon::make_model_file(fitted, t, rows(0, 1600), settings())),
-          path("/tmp/tenon_bench_deploy_" + std::to_string(::getpid()) + ".tnm") {
+          file(tenon::make_model_file(fitted, t, rows(0, 1600), settings(single))),
+          path("/tmp/tenon_bench_deploy_" + std::string(single ? "single_" : "") + std::to_string(::getpid()) + ".tnm") {
         tenon::save_model_file(path, file);
     }
     ~bench_model() { std::remove(path.c_str()); }
@@ -79,6 +96,61 @@ struct bench_model {
 bench_model& model() {
     static bench_model m;
     return m;
+}
+
+// One 8-32-32-1 network: no ensemble, no linear bypass.
+bench_model& single_model() {
+    static bench_model m(true);
+    return m;
+}
+
+// The hand loop's view of a fitted model's networks (weights stay in the model).
+struct hand_model {
+    std::vector<hand::network> nets;
+    hand::units units;
+    std::string shape;  // e.g. "5 x (8-32-32-1 + bypass)"
+
+    static void walk(tenon::layer<float>& l, hand::network& n) {
+        if (auto* d = dynamic_cast<tenon::dense<float>*>(&l)) {
+            hand::layer h;
+            h.weights = d->weights().value().data();
+            h.bias = d->has_bias() ? d->bias().value().data() : nullptr;
+            h.inputs = d->inputs();
+            h.outputs = d->outputs();
+            n.layers.push_back(h);
+        } else if (auto* a = dynamic_cast<tenon::activation_layer<float>*>(&l)) {
+            if (a->function() == tenon::activation::relu) n.layers.back().relu = true;
+            else if (a->function() != tenon::activation::identity) throw std::runtime_error("hand loop: only relu activations");
+        } else if (auto* b = dynamic_cast<tenon::linear_bypass<float>*>(&l)) {
+            n.bypass = b->linear_weights().value().data();
+            for (std::size_t i = 0; i < b->layer_count(); ++i) walk(b->layer_at(i), n);
+        } else if (!dynamic_cast<tenon::dropout<float>*>(&l)) {
+            throw std::runtime_error("hand loop: unexpected layer " + std::string(l.kind()));
+        }
+    }
+    explicit hand_model(tenon::fitted_model<float>& f) {
+        std::vector<tenon::network<float>*> all{&f.net};
+        for (auto& m : f.members) all.push_back(&m);
+        for (auto* net : all) {
+            hand::network n;
+            for (std::size_t i = 0; i < net->layer_count(); ++i) walk(net->layer_at(i), n);
+            nets.push_back(n);
+        }
+        const auto& s = f.plan.target_scaling();
+        units = {s.center, s.spread, s.low, s.high};
+        shape = std::to_string(nets.size()) + " x (" + std::to_string(nets[0].layers[0].inputs);
+        for (const auto& l : nets[0].layers) shape += "-" + std::to_string(l.outputs);
+        shape += nets[0].bypass ? " + bypass)" : ")";
+    }
+    float predict(const float* x, float* spread) const {
+        float scratch[128];
+        return hand::predict(nets.data(), nets.size(), units, x, scratch, spread);
+    }
+};
+
+hand_model& hand_of(bench_model& m) {
+    static hand_model ensemble(model().fitted), single(single_model().fitted);
+    return &m == &model() ? ensemble : single;
 }
 
 const std::vector<std::string>& raw_row() {
@@ -111,6 +183,37 @@ void predictor_one_prepared_row(benchmark::State& state) {
     timed_loop(state, [&] {
         p.try_predict_prepared(row.data(), 1, out);
         benchmark::DoNotOptimize(out.values[0]);
+    });
+}
+
+void hand_loop_one_row(benchmark::State& state) {
+    const hand_model& h = hand_of(model());
+    std::vector<float> row(8, 0.25f);
+    float spread = 0;
+    timed_loop(state, [&] {
+        const float y = h.predict(row.data(), &spread);
+        benchmark::DoNotOptimize(y);
+        benchmark::DoNotOptimize(spread);
+    });
+}
+
+void predictor_one_prepared_row_single_network(benchmark::State& state) {
+    tenon::predictor<float> p(single_model().file, 64);
+    std::vector<float> row(8, 0.25f);
+    tenon::prediction_view<float> out;
+    timed_loop(state, [&] {
+        p.try_predict_prepared(row.data(), 1, out);
+        benchmark::DoNotOptimize(out.values[0]);
+    });
+}
+
+void hand_loop_one_row_single_network(benchmark::State& state) {
+    const hand_model& h = hand_of(single_model());
+    std::vector<float> row(8, 0.25f);
+    float spread = 0;
+    timed_loop(state, [&] {
+        const float y = h.predict(row.data(), &spread);
+        benchmark::DoNotOptimize(y);
     });
 }
 
@@ -258,10 +361,95 @@ double throughput(int threads, double seconds) {
     return static_cast<double>(total) / seconds;
 }
 
+// The calling thread's CPU time in ns (time it spends descheduled on a
+// shared machine is not counted).
+double thread_cpu_ns() {
+    timespec t{};
+    clock_gettime(CLOCK_THREAD_CPUTIME_ID, &t);
+    return static_cast<double>(t.tv_sec) * 1e9 + static_cast<double>(t.tv_nsec);
+}
+
+// Median CPU time per call (ns) of each function over `rounds` interleaved
+// rounds of `calls` calls each, so a slower spell of the machine hits all alike.
+std::vector<double> interleaved_ns(const std::vector<std::function<void()>>& fs, int rounds, int calls) {
+    std::vector<std::vector<double>> ns(fs.size());
+    for (int r = 0; r < rounds; ++r)
+        for (std::size_t f = 0; f < fs.size(); ++f) {
+            const double t0 = thread_cpu_ns();
+            for (int c = 0; c < calls; ++c) fs[f]();
+            ns[f].push_back((thread_cpu_ns() - t0) / calls);
+        }
+    std::vector<double> medians;
+    for (auto& v : ns) {
+        std::sort(v.begin(), v.end());
+        medians.push_back(v[v.size() / 2]);
+    }
+    return medians;
+}
+
+// The predictor against the hand loop on one row of `m`: the summary line.
+void compare_with_hand_loop(bench_model& m, int rounds) {
+    const hand_model& h = hand_of(m);
+    tenon::predictor<float> p(m.file, 64);
+    tenon::prediction_view<float> out;
+    // The two compute the same values (the hand loop's compiler may fuse
+    // multiplies and adds, so they agree within rounding).
+    tenon::random_engine rng(3);
+    std::vector<float> row(8);
+    double largest = 0;
+    for (int r = 0; r < 100; ++r) {
+        for (auto& v : row) v = rng.uniform(-1.0f, 1.0f);
+        p.try_predict_prepared(row.data(), 1, out);
+        float spread = 0;
+        const float y = h.predict(row.data(), &spread);
+        largest = std::max(largest, std::abs(static_cast<double>(y) - out.values[0]) / std::max(1.0, std::abs(static_cast<double>(y))));
+    }
+    std::fill(row.begin(), row.end(), 0.25f);
+    const auto ns = interleaved_ns({[&] {
+                                        p.try_predict_prepared(row.data(), 1, out);
+                                        benchmark::DoNotOptimize(out.values[0]);
+                                    },
+                                    [&] {
+                                        float spread = 0;
+                                        const float y = h.predict(row.data(), &spread);
+                                        benchmark::DoNotOptimize(y);
+                                        benchmark::DoNotOptimize(spread);
+                                    }},
+                                   rounds, 20000);
+    std::printf("one prepared row, %s: predictor %.1f ns, hand loop (-O3 -march=native) %.1f ns, ratio %.2f (target at most 1.00); "
+                "largest relative difference of the values %.1e\n",
+                h.shape.c_str(), ns[0], ns[1], ns[0] / ns[1], largest);
+}
+
+// 64 rows in one call against 64 one-row calls: the summary line.
+void compare_batch(int rounds) {
+    tenon::predictor<float> p(model().file, 64);
+    std::vector<float> rows(64 * 8);
+    tenon::random_engine rng(2);
+    for (auto& v : rows) v = rng.uniform(-1.0f, 1.0f);
+    tenon::prediction_view<float> out;
+    const auto ns = interleaved_ns({[&] {
+                                        p.try_predict_prepared(rows.data(), 64, out);
+                                        benchmark::DoNotOptimize(out.values[63]);
+                                    },
+                                    [&] {
+                                        for (std::size_t i = 0; i < 64; ++i) {
+                                            p.try_predict_prepared(rows.data() + i * 8, 1, out);
+                                            benchmark::DoNotOptimize(out.values[0]);
+                                        }
+                                    }},
+                                   rounds, 500);
+    std::printf("64 prepared rows, %s: one call %.0f ns (%.1f ns a row), 64 one-row calls %.0f ns, throughput ratio %.2f (target at least 3.00)\n",
+                hand_of(model()).shape.c_str(), ns[0], ns[0] / 64, ns[1], ns[1] / ns[0]);
+}
+
 }  // namespace
 
 BENCHMARK(reference_tape_one_prepared_row);
 BENCHMARK(predictor_one_prepared_row);
+BENCHMARK(hand_loop_one_row);
+BENCHMARK(predictor_one_prepared_row_single_network);
+BENCHMARK(hand_loop_one_row_single_network);
 BENCHMARK(predictor_one_prepared_row_with_band);
 BENCHMARK(predictor_one_subnormal_row);
 BENCHMARK(predictor_one_named_row);
@@ -292,5 +480,8 @@ int main(int argc, char** argv) {
     std::sort(banded_ns.begin(), banded_ns.end());
     const double a = plain_ns[plain_ns.size() / 2], b = banded_ns[banded_ns.size() / 2];
     std::printf("one prepared row: %.1f ns, with its band %.1f ns, ratio %.3f (budget 1.20)\n", a, b, b / a);
+    compare_with_hand_loop(model(), rounds);
+    compare_with_hand_loop(single_model(), rounds);
+    compare_batch(rounds);
     return 0;
 }

@@ -12,6 +12,7 @@
 #include <string>
 #include <vector>
 
+#include <tenon/core/small_dense.hpp>
 #include <tenon/tenon.hpp>
 
 #include "chi_square.hpp"
@@ -546,4 +547,135 @@ TEST_CASE_TEMPLATE("thin products give the plain loop's bits on every vector wid
             }
         }
     }
+}
+
+TEST_CASE_TEMPLATE("small dense layers give gemm's sum with the finish applied in order, on every version", T, float, double) {
+    // core/small_dense.hpp: y = finish(x W) must be gemm's x W, then + bias,
+    // zero if tiny, relu, addend + y, zero if tiny, each rounded on its own.
+    // Where gemm takes the unpacked loops (few rows, or few columns) the sum
+    // must also be the plain loop's (or split_dot's) in order, never fused:
+    // a kernel that used a fused multiply-add or summed in another order
+    // would differ from `plain` in the last bits of some of these values.
+    tenon::random_engine rng(43);
+    const auto filled = [&](std::size_t size, T scale) {
+        std::vector<T> v(size);
+        for (auto& x : v) x = rng.normal(T(0), T(1)) * scale;
+        return v;
+    };
+    const auto tiny = [](T v) { return std::abs(v) < std::numeric_limits<T>::min() ? T(0) : v; };
+    // The plain loop of gemm_unpacked (n >= thin_columns) or its split_dot (n < thin_columns).
+    const auto plain = [&](std::size_t rows, std::size_t n, std::size_t k, const std::vector<T>& x, const std::vector<T>& w) {
+        std::vector<T> y(rows * n, T(0));
+        for (std::size_t i = 0; i < rows; ++i)
+            for (std::size_t j = 0; j < n; ++j) {
+                T c = T(0);
+                if (n >= tenon::detail::thin_columns<T>) {
+                    for (std::size_t p = 0; p < k; ++p) c += x[i * k + p] * w[p * n + j];
+                } else {
+                    T partial[8] = {};
+                    std::size_t p = 0;
+                    for (; p + 8 <= k; p += 8)
+                        for (std::size_t q = 0; q < 8; ++q) partial[q] += x[i * k + p + q] * w[(p + q) * n + j];
+                    for (; p < k; ++p) partial[0] += x[i * k + p] * w[p * n + j];
+                    T sum = T(0);
+                    for (T q : partial) sum += q;
+                    c += sum;
+                }
+                y[i * n + j] = c;
+            }
+        return y;
+    };
+    std::vector<tenon::detail::small_dense_version> versions;
+    for (auto v : {tenon::detail::small_dense_version::portable, tenon::detail::small_dense_version::avx2,
+                   tenon::detail::small_dense_version::avx512, tenon::detail::small_dense_version::neon})
+        if (tenon::detail::small_dense_version_available(v)) versions.push_back(v);
+    const T small_scale = std::sqrt(std::numeric_limits<T>::min());  // products near the smallest normal
+    for (const std::size_t n : std::vector<std::size_t>{1, 3, 7, 8, 15, 16, 17, 32, 33, 48, 65}) {
+        for (const std::size_t k : std::vector<std::size_t>{1, 7, 8, 32, 33}) {
+            for (const int variant : {0, 1, 2}) {
+                CAPTURE(n);
+                CAPTURE(k);
+                CAPTURE(variant);
+                // 0: bias and relu; 1: addend, no bias; 2: sums near the subnormal range, relu.
+                const T scale = variant == 2 ? small_scale : T(1);
+                const std::size_t most = 64;
+                const auto x = filled(most * k, scale), w = filled(k * n, scale), bias = filled(n, T(1)), addend = filled(most * n, T(1));
+                std::vector<T> wt(n * k);
+                for (std::size_t j = 0; j < n; ++j)
+                    for (std::size_t p = 0; p < k; ++p) wt[j * k + p] = w[p * n + j];
+                tenon::detail::dense_finish<T> f;
+                f.bias = variant == 0 ? bias.data() : nullptr;
+                f.relu = variant != 1;
+                f.addend = variant == 1 ? addend.data() : nullptr;
+                const auto finished = [&](std::vector<T> y, std::size_t rows) {
+                    for (std::size_t i = 0; i < rows; ++i)
+                        for (std::size_t j = 0; j < n; ++j) {
+                            T v = y[i * n + j];
+                            if (f.bias) v = v + f.bias[j];
+                            v = tiny(v);
+                            if (f.relu) v = v > T(0) ? v : T(0);
+                            if (f.addend) v = tiny(f.addend[i * n + j] + v);
+                            y[i * n + j] = v;
+                        }
+                    return y;
+                };
+                for (const std::size_t rows : std::vector<std::size_t>{1, 3, 4, 8, 9, 64}) {
+                    CAPTURE(rows);
+                    // gemm's own sum is the reference for any row count.
+                    std::vector<T> sum(rows * n, T(7));
+                    tenon::gemm<T>(false, false, rows, n, k, T(1), x.data(), k, w.data(), n, T(0), sum.data(), n);
+                    const auto expected = finished(sum, rows);
+                    std::vector<T> y(rows * n, T(-3));
+                    tenon::detail::dense_rows<T>(rows, k, n, x.data(), w.data(), wt.data(), f, y.data());
+                    CHECK(std::memcmp(y.data(), expected.data(), y.size() * sizeof(T)) == 0);
+                    if (rows >= tenon::detail::always_thin_rows<T> && n >= tenon::detail::thin_columns<T>) continue;
+                    // The unpacked loops: the plain order, on every version.
+                    const auto in_order = finished(plain(rows, n, k, x, w), rows);
+                    CHECK(std::memcmp(expected.data(), in_order.data(), y.size() * sizeof(T)) == 0);
+                    for (const auto version : versions) {
+                        CAPTURE(static_cast<int>(version));
+                        std::vector<T> z(rows * n, T(-3));
+                        tenon::detail::small_dense<T>(rows, k, n, x.data(), w.data(), wt.data(), f, z.data(), version);
+                        CHECK(std::memcmp(z.data(), in_order.data(), z.size() * sizeof(T)) == 0);
+                    }
+                }
+            }
+        }
+    }
+}
+
+TEST_CASE_TEMPLATE("the batch kernel of small dense layers gives the packed product's bits on every path", T, float, double) {
+    // dense_rows computes products of at least a tile's rows without packing
+    // on the fused paths; each element must stay the packed tile's chain of
+    // fused multiply-adds, so compare with gemm on every available path.
+    tenon::random_engine rng(44);
+    const tenon::kernel_path before = tenon::active_kernel_path();
+    for (const auto path : {tenon::kernel_path::portable, tenon::kernel_path::avx2, tenon::kernel_path::avx512, tenon::kernel_path::neon}) {
+        if (!tenon::kernel_path_available(path)) continue;
+        tenon::set_kernel_path(path);
+        CAPTURE(tenon::kernel_path_name(path));
+        for (const std::size_t n : std::vector<std::size_t>{8, 16, 17, 32, 40, 64}) {
+            for (const std::size_t k : std::vector<std::size_t>{1, 8, 32, 256, 257}) {
+                for (const std::size_t rows : std::vector<std::size_t>{8, 13, 64}) {
+                    CAPTURE(n);
+                    CAPTURE(k);
+                    CAPTURE(rows);
+                    std::vector<T> x(rows * k), w(k * n), bias(n);
+                    for (auto& v : x) v = rng.normal(T(0), T(1));
+                    for (auto& v : w) v = rng.normal(T(0), T(1));
+                    for (auto& v : bias) v = rng.normal(T(0), T(1));
+                    tenon::detail::dense_finish<T> f;
+                    f.bias = bias.data();
+                    f.relu = true;
+                    std::vector<T> expected(rows * n);
+                    tenon::gemm<T>(false, false, rows, n, k, T(1), x.data(), k, w.data(), n, T(0), expected.data(), n);
+                    tenon::detail::finish_rows(rows, n, f, expected.data());
+                    std::vector<T> y(rows * n, T(5));
+                    tenon::detail::dense_rows<T>(rows, k, n, x.data(), w.data(), nullptr, f, y.data());
+                    CHECK(std::memcmp(y.data(), expected.data(), y.size() * sizeof(T)) == 0);
+                }
+            }
+        }
+    }
+    tenon::set_kernel_path(before);
 }

@@ -199,6 +199,45 @@ TEST_CASE_TEMPLATE("a linear bypass is evaluated as the tape evaluates it", T, f
     for (std::size_t k = 0; k < expected.size(); ++k) CHECK(same_bits(out.values[k], expected.data()[k]));
 }
 
+TEST_CASE_TEMPLATE("fused dense steps give the tape's bits for any row count on every kernel path", T, float, double) {
+    // The predictor runs a dense step with the relu and the linear bypass's
+    // sum that follow it as one pass (specialise_steps, core/small_dense.hpp),
+    // with a kernel chosen by shape: one to three rows, batches on the fused
+    // paths, outputs fewer than a vector (transposed weights). Each must give
+    // the tape's values to the last bit, whatever path gemm takes.
+    const tenon::kernel_path before = tenon::active_kernel_path();
+    tenon::random_engine rng(8);
+    for (const auto& sizes : std::vector<std::vector<std::size_t>>{{8, 32, 32, 1}, {6, 16, 3}, {9, 40, 5}}) {
+        for (const bool bypass : {true, false}) {
+            auto net = tenon::make_mlp<T>(sizes, tenon::activation::relu, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 9,
+                                          tenon::activation::identity, bypass);
+            for (auto* p : net.parameters())
+                for (std::size_t k = 0; k < p->size(); ++k) p->value().data()[k] = static_cast<T>(rng.uniform(-1.0, 1.0));
+            tenon::predictor<T> p(net, nullptr, {}, 64);
+            for (const auto path : {tenon::kernel_path::portable, tenon::kernel_path::avx2, tenon::kernel_path::avx512, tenon::kernel_path::neon,
+                                    tenon::kernel_path::blas}) {
+                if (!tenon::kernel_path_available(path)) continue;
+                tenon::set_kernel_path(path);
+                for (const std::size_t rows : std::vector<std::size_t>{1, 3, 5, 8, 64}) {
+                    CAPTURE(sizes[1]);
+                    CAPTURE(bypass);
+                    CAPTURE(tenon::kernel_path_name(path));
+                    CAPTURE(rows);
+                    tenon::matrix<T> x({rows, sizes[0]});
+                    for (std::size_t k = 0; k < x.size(); ++k) x.data()[k] = rng.normal<T>();
+                    const tenon::matrix<T> expected = tenon::network_outputs(net, x);
+                    const auto out = p.predict_prepared(x.data(), rows);
+                    REQUIRE(out.width == expected.shape()[1]);
+                    std::size_t differing = 0;
+                    for (std::size_t k = 0; k < expected.size(); ++k) differing += same_bits(out.values[k], expected.data()[k]) ? 0 : 1;
+                    CHECK(differing == 0);
+                }
+            }
+        }
+    }
+    tenon::set_kernel_path(before);
+}
+
 TEST_CASE("a layer the predictor does not know is refused at construction") {
     tenon::network<float> net;
     net.add(tenon::dense<float>(2, 2), "d");

@@ -14,6 +14,7 @@
 #include "tenon/core/parallel.hpp"
 #include "tenon/core/random.hpp"
 #include "tenon/core/simd.hpp"
+#include "tenon/core/small_dense.hpp"
 
 #include "tenon/autodiff/custom_operation.hpp"
 #include "tenon/autodiff/gradient_check.hpp"

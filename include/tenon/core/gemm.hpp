@@ -635,6 +635,24 @@ void gemm_band(const gemm_problem<T>& g, kernel_path path, gemm_scratch<T>& scra
     if (!packed) gemm_unpacked(g.transpose_a, g.transpose_b, g.m, g.n, g.k, g.alpha, g.a, g.lda, g.b, g.ldb, g.c, g.ldc);
 }
 
+// The path a product takes: the active one, but a built-in one where the
+// BLAS cannot take the sizes (k = 0 or a size past int).
+inline kernel_path product_path(std::size_t m, std::size_t n, std::size_t k, std::size_t lda, std::size_t ldb, std::size_t ldc) noexcept {
+    kernel_path path = active_kernel_path();
+    if (path == kernel_path::blas) {
+        constexpr std::size_t limit = static_cast<std::size_t>(INT_MAX);
+        if (k == 0 || m > limit || n > limit || k > limit || lda > limit || ldb > limit || ldc > limit) path = best_builtin_kernel_path();
+    }
+    return path;
+}
+
+// Whether an m x n product on `path` takes the unpacked loops (gemm_unpacked)
+// rather than the packed tiles; core/small_dense.hpp relies on this choice.
+template <class T>
+bool is_thin_product(std::size_t m, std::size_t n, kernel_path path) noexcept {
+    return m < tile_rows<T>(path) || n < thin_columns<T>;
+}
+
 // Products below this many multiply-adds run on one thread: handing out a
 // task costs microseconds, more than a product of a few microseconds gains
 // (on the 2-core development machine, 128 x 128 x 10 took 2.9 us on one
@@ -765,15 +783,11 @@ void gemm(bool transpose_a, bool transpose_b, std::size_t m, std::size_t n, std:
           const T* b, std::size_t ldb, T beta, T* c, std::size_t ldc, executor* workers) noexcept {
     if (m == 0 || n == 0) return;
     const detail::gemm_problem<T> g{transpose_a, transpose_b, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc};
-    kernel_path path = active_kernel_path();
-    if (path == kernel_path::blas) {
-        constexpr std::size_t limit = static_cast<std::size_t>(INT_MAX);
-        if (k == 0 || m > limit || n > limit || k > limit || lda > limit || ldb > limit || ldc > limit) path = best_builtin_kernel_path();
-    }
+    const kernel_path path = detail::product_path(m, n, k, lda, ldb, ldc);
     // Thin products take the plain loops on every path, the BLAS one
     // included: a call costs more than the arithmetic there, and single-row
     // predictions then give the same bits on every path.
-    if (m < detail::tile_rows<T>(path) || n < detail::thin_columns<T>) {
+    if (detail::is_thin_product<T>(m, n, path)) {
         detail::scale_c(g);
         if (k > 0) detail::gemm_unpacked(transpose_a, transpose_b, m, n, k, alpha, a, lda, b, ldb, c, ldc);
         return;

@@ -12,6 +12,7 @@
 #pragma once
 
 #include <cstddef>
+#include <limits>
 
 #include "tenon/version.hpp"
 
@@ -145,7 +146,9 @@ namespace detail {
 // reports in the host's build.) select_positive(y, a) is a where y > 0 and
 // +0 elsewhere (NaN y included), lane by lane. Each is compiled for its
 // instruction set alone, so the host's flags need not enable it; they are
-// only called after kernel_path_available() said yes.
+// only called after kernel_path_available() said yes. zero_tiny(v) is +0
+// where |v| is below the smallest normal number (subnormals and -0) and v
+// elsewhere (NaN included), as detail::flush_subnormal in deploy/predictor.hpp.
 template <class T>
 struct avx512_ops;
 template <>
@@ -166,6 +169,10 @@ struct avx512_ops<float> {
     TENON_TARGET_AVX512 static vector min(vector a, vector b) noexcept { return _mm512_mask_min_ps(a, static_cast<__mmask16>(0xFFFF), a, b); }
     TENON_TARGET_AVX512 static vector select_positive(vector y, vector a) noexcept {
         return _mm512_maskz_mov_ps(_mm512_cmp_ps_mask(y, _mm512_setzero_ps(), _CMP_GT_OQ), a);
+    }
+    TENON_TARGET_AVX512 static vector zero_tiny(vector v) noexcept {
+        const vector magnitude = _mm512_castsi512_ps(_mm512_and_si512(_mm512_castps_si512(v), _mm512_set1_epi32(0x7fffffff)));
+        return _mm512_maskz_mov_ps(_mm512_cmp_ps_mask(magnitude, _mm512_set1_ps(std::numeric_limits<float>::min()), _CMP_NLT_UQ), v);
     }
 };
 template <>
@@ -191,6 +198,10 @@ struct avx512_ops<double> {
     TENON_TARGET_AVX512 static vector select_positive(vector y, vector a) noexcept {
         return _mm512_maskz_mov_pd(_mm512_cmp_pd_mask(y, _mm512_setzero_pd(), _CMP_GT_OQ), a);
     }
+    TENON_TARGET_AVX512 static vector zero_tiny(vector v) noexcept {
+        const vector magnitude = _mm512_castsi512_pd(_mm512_and_si512(_mm512_castpd_si512(v), _mm512_set1_epi64(0x7fffffffffffffffLL)));
+        return _mm512_maskz_mov_pd(_mm512_cmp_pd_mask(magnitude, _mm512_set1_pd(std::numeric_limits<double>::min()), _CMP_NLT_UQ), v);
+    }
 };
 template <class T>
 struct avx2_ops;
@@ -212,6 +223,10 @@ struct avx2_ops<float> {
     TENON_TARGET_AVX2 static vector min(vector a, vector b) noexcept { return _mm256_min_ps(a, b); }
     TENON_TARGET_AVX2 static vector select_positive(vector y, vector a) noexcept {
         return _mm256_and_ps(_mm256_cmp_ps(y, _mm256_setzero_ps(), _CMP_GT_OQ), a);
+    }
+    TENON_TARGET_AVX2 static vector zero_tiny(vector v) noexcept {
+        const vector magnitude = _mm256_andnot_ps(_mm256_set1_ps(-0.0f), v);
+        return _mm256_and_ps(_mm256_cmp_ps(magnitude, _mm256_set1_ps(std::numeric_limits<float>::min()), _CMP_NLT_UQ), v);
     }
 };
 template <>
@@ -235,6 +250,10 @@ struct avx2_ops<double> {
     TENON_TARGET_AVX2 static void store(float* p, vector v) noexcept { _mm_storeu_ps(p, _mm256_cvtpd_ps(v)); }
     TENON_TARGET_AVX2 static vector select_positive(vector y, vector a) noexcept {
         return _mm256_and_pd(_mm256_cmp_pd(y, _mm256_setzero_pd(), _CMP_GT_OQ), a);
+    }
+    TENON_TARGET_AVX2 static vector zero_tiny(vector v) noexcept {
+        const vector magnitude = _mm256_andnot_pd(_mm256_set1_pd(-0.0), v);
+        return _mm256_and_pd(_mm256_cmp_pd(magnitude, _mm256_set1_pd(std::numeric_limits<double>::min()), _CMP_NLT_UQ), v);
     }
 };
 
@@ -275,6 +294,10 @@ struct neon_ops<float> {
     TENON_TARGET_NEON static vector select_positive(vector y, vector a) noexcept {
         return vreinterpretq_f32_u32(vandq_u32(vcgtq_f32(y, vdupq_n_f32(0.0f)), vreinterpretq_u32_f32(a)));
     }
+    TENON_TARGET_NEON static vector zero_tiny(vector v) noexcept {
+        const uint32x4_t tiny = vcltq_f32(vabsq_f32(v), vdupq_n_f32(std::numeric_limits<float>::min()));
+        return vreinterpretq_f32_u32(vbicq_u32(vreinterpretq_u32_f32(v), tiny));
+    }
 };
 #if TENON_SIMD_NEON64
 template <>
@@ -298,6 +321,10 @@ struct neon_ops<double> {
     static void store(float* p, vector v) noexcept { vst1_f32(p, vcvt_f32_f64(v)); }
     static vector select_positive(vector y, vector a) noexcept {
         return vreinterpretq_f64_u64(vandq_u64(vcgtq_f64(y, vdupq_n_f64(0.0)), vreinterpretq_u64_f64(a)));
+    }
+    static vector zero_tiny(vector v) noexcept {
+        const uint64x2_t tiny = vcltq_f64(vabsq_f64(v), vdupq_n_f64(std::numeric_limits<double>::min()));
+        return vreinterpretq_f64_u64(vbicq_u64(vreinterpretq_u64_f64(v), tiny));
     }
 };
 #endif

@@ -69,6 +69,7 @@
 #endif
 
 #include "tenon/core/gemm.hpp"
+#include "tenon/core/small_dense.hpp"
 #include "tenon/core/activation_functions.hpp"
 #include "tenon/format/calibration.hpp"
 #include "tenon/format/model_file.hpp"
@@ -234,6 +235,12 @@ struct program_step {
     activation function = activation::identity;
     double coefficient = 0.0;
     double epsilon = 0.0;
+    // Set by specialise_steps for a dense step (run as one dense_rows pass):
+    bool relu_after = false;  // the relu step that followed is fused in
+    bool has_addend = false;  // the sum step that followed is fused in:
+    std::size_t addend = 0;   //   the buffer added to the result
+    std::size_t t = 0;        // offset of W transposed (outputs x inputs) when outputs < thin_columns
+    small_dense_version version = small_dense_version::portable;  // the row loop for calls of few rows
 };
 
 struct column_info {
@@ -403,6 +410,96 @@ inline void require_known_kinds(const std::vector<layer_record>& children, const
             raise(codes::deploy_unsupported_layer, "predictor: layer '" + name + "' of kind '" + r.kind +
                                                        "' cannot be evaluated (dense, activation, dropout, layer_norm, batch_norm, residual, linear_bypass)");
     }
+}
+
+// A seed ensemble's networks in lockstep: the first step of every member,
+// then the second of every member, and so on, when all members have as many
+// steps and each reads only the prepared features (buffer 0) and its own
+// earlier results. Each member's values are computed as before; the
+// processor then finds the independent chains of additions of several
+// members next to each other in the instruction stream and overlaps them
+// (a member's one-row layers are bound by the latency of those chains).
+template <class T>
+std::vector<program_step> interleave_members(std::vector<program_step> steps, const compiled_model<T>& m) {
+    if (m.member_buffers.empty()) return steps;
+    std::vector<std::size_t> ends{m.output_buffer};
+    ends.insert(ends.end(), m.member_buffers.begin(), m.member_buffers.end());
+    std::vector<std::vector<program_step>> chains;
+    std::vector<std::size_t> owner(m.buffer_widths.size(), SIZE_MAX);  // chain that writes each buffer
+    std::size_t chain = 0;
+    std::vector<program_step> current;
+    for (const program_step& s : steps) {
+        if (chain >= ends.size()) return steps;
+        const auto reads_own = [&](std::size_t b) { return b == 0 || owner[b] == chain; };
+        if (!reads_own(s.in) || (s.kind == step_kind::add && !reads_own(s.in2)) || (s.kind == step_kind::dense && s.has_addend && !reads_own(s.addend)))
+            return steps;
+        if (owner[s.out] != SIZE_MAX || s.out == 0) return steps;
+        owner[s.out] = chain;
+        if (s.kind == step_kind::layer_norm) owner[s.scratch] = chain;
+        current.push_back(s);
+        if (s.out == ends[chain]) {
+            chains.push_back(std::move(current));
+            current.clear();
+            ++chain;
+        }
+    }
+    if (chains.size() != ends.size() || !current.empty()) return steps;
+    for (const auto& c : chains)
+        if (c.size() != chains[0].size()) return steps;
+    std::vector<program_step> lockstep;
+    for (std::size_t l = 0; l < chains[0].size(); ++l)
+        for (const auto& c : chains) lockstep.push_back(c[l]);
+    return lockstep;
+}
+
+// The specialisation pass, run once when a model is compiled: each dense
+// step takes the relu step and then the sum step (a linear bypass's
+// f(x) + x W) that directly follow it and read only its result, so the
+// three run as one pass of dense_rows (core/small_dense.hpp) with the
+// values in registers; a dense step with fewer than thin_columns outputs
+// gets its weights transposed, so each output's dot product reads them
+// contiguously. The arithmetic of every value is unchanged.
+template <class T>
+void specialise_steps(compiled_model<T>& m) {
+    std::vector<std::size_t> readers(m.buffer_widths.size(), 0);
+    for (const program_step& s : m.steps) {
+        ++readers[s.in];
+        if (s.kind == step_kind::add) ++readers[s.in2];
+    }
+    ++readers[m.output_buffer];  // read by the caller
+    for (std::size_t b : m.member_buffers) ++readers[b];
+    std::vector<program_step> steps;
+    for (std::size_t i = 0; i < m.steps.size(); ++i) {
+        program_step s = m.steps[i];
+        if (s.kind == step_kind::dense) {
+            while (i + 1 < m.steps.size() && readers[s.out] == 1) {
+                const program_step& next = m.steps[i + 1];
+                if (!s.relu_after && !s.has_addend && next.kind == step_kind::activate && next.function == activation::relu && next.in == s.out) {
+                    s.relu_after = true;
+                } else if (!s.has_addend && next.kind == step_kind::add && next.in != next.in2 && (next.in == s.out || next.in2 == s.out)) {
+                    s.has_addend = true;
+                    s.addend = next.in == s.out ? next.in2 : next.in;
+                } else {
+                    break;
+                }
+                s.out = next.out;
+                ++i;
+            }
+            if (s.outputs > 1 && s.outputs < thin_columns<T>) {
+                s.t = m.store.size();
+                for (std::size_t j = 0; j < s.outputs; ++j)
+                    for (std::size_t p = 0; p < s.inputs; ++p) {
+                        const T v = m.store[s.a + p * s.outputs + j];
+                        m.store.push_back(v);
+                    }
+            } else {
+                s.t = s.a;
+            }
+            s.version = best_small_dense_version();
+        }
+        steps.push_back(s);
+    }
+    m.steps = interleave_members(std::move(steps), m);
 }
 
 inline bool parse_for_kind(const column_info& c, std::string_view cell, double& value) noexcept {
@@ -698,6 +795,7 @@ private:
         // A calibration is used only for the kind of target it was fitted for.
         if (calibration && m->regression) m->interval = calibration->interval;
         if (calibration && m->classification) m->classes = calibration->classes;
+        detail::specialise_steps(*m);
         return m;
     }
 
@@ -799,13 +897,12 @@ private:
             const std::size_t w = s.outputs, size = rows * w;
             switch (s.kind) {
                 case detail::step_kind::dense: {
-                    gemm<T>(false, false, rows, w, s.inputs, T(1), x, s.inputs, store + s.a, w, T(0), y, w);
-                    if (s.has_bias) {
-                        const T* b = store + s.b;
-                        for (std::size_t i = 0; i < rows; ++i)
-                            for (std::size_t j = 0; j < w; ++j) y[i * w + j] = y[i * w + j] + b[j];
-                    }
-                    break;
+                    // The sum, bias, flush, fused relu and fused sum in one pass (specialise_steps).
+                    const detail::dense_finish<T> finish{s.has_bias ? store + s.b : nullptr, s.relu_after,
+                                                         s.has_addend ? buffers_[s.addend].data() : nullptr};
+                    if (rows < detail::always_thin_rows<T>) detail::small_dense<T>(rows, s.inputs, w, x, store + s.a, store + s.t, finish, y, s.version);
+                    else detail::dense_rows<T>(rows, s.inputs, w, x, store + s.a, store + s.t, finish, y);
+                    continue;  // flushed already
                 }
                 case detail::step_kind::activate: activate_values(s, x, y, rows); break;
                 case detail::step_kind::layer_norm: {
