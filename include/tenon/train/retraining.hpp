@@ -116,7 +116,10 @@ enum class holdout_selection : std::uint8_t {
     latest,  // the last rows of the new table (rows in time order)
 };
 
-struct retraining_options {
+/// The run_controls part (time budget, clock, cancel flag, observers)
+/// covers the whole call: the candidate's training gets what is left of
+/// the budget.
+struct retraining_options : run_controls {
     // --- the promotion gate ---
     gate_metric metric = gate_metric::automatic;
     /// How much better the candidate must score, in the metric's units (>= 0).
@@ -139,12 +142,6 @@ struct retraining_options {
     std::size_t patience = 5;
     double validation_share = 0.15;
     std::uint64_t seed = 0;
-    /// Wall-clock budget in seconds for the whole call; 0 = none.
-    double time_budget_seconds = 0.0;
-    /// Seconds from an arbitrary origin; default std::chrono::steady_clock.
-    std::function<double()> clock;
-    const std::atomic<bool>* cancel = nullptr;
-    std::function<bool(const epoch_summary&)> on_epoch;
     /// Nominal coverage of the candidate's calibration, in (0, 1); default
     /// the incumbent's, else default_coverage.
     std::optional<double> coverage;
@@ -716,10 +713,9 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
         o.patience = options.patience;
         o.seed = options.seed;
         o.loss = loss;
+        static_cast<run_controls&>(o) = options;  // cancel flag and observers
         o.time_budget_seconds = remaining;
         o.clock = clock;
-        o.cancel = options.cancel;
-        o.on_epoch = options.on_epoch;
         trainer<T> tr(candidate_net, *rule, schedule, std::move(o));
         outcome = tr.run(train, validation);
     } else if (options.epochs > 0) {

@@ -151,8 +151,26 @@ inline void throw_if_any_member_failed(training_team& team, const std::exception
     }
 }
 
+/// What a host controls while a run goes: a time budget with the clock
+/// that measures it, a cancel flag, and observers of every epoch and batch.
+/// training_options, model_settings and retraining_options each hold it as
+/// one part and hand it on whole (time budgets in tests use an injected
+/// clock, never sleeps).
+struct run_controls {
+    /// Wall-clock budget in seconds for the whole run; 0 or less = none.
+    double time_budget_seconds = 0.0;
+    /// Seconds from an arbitrary origin; defaults to std::chrono::steady_clock.
+    std::function<double()> clock;
+    /// Set to true from any thread to stop after the current batch.
+    const std::atomic<bool>* cancel = nullptr;
+    /// Called after every epoch; return false to stop (reason: cancelled).
+    std::function<bool(const epoch_summary&)> on_epoch;
+    /// Called after every batch (keep it cheap).
+    std::function<void(const batch_progress&)> on_batch;
+};
+
 template <class T>
-struct training_options {
+struct training_options : run_controls {
     std::size_t epochs = 100;
     std::size_t batch_size = 32;
     std::uint64_t seed = 0;
@@ -180,16 +198,6 @@ struct training_options {
     loss_options<T> loss_settings;
     std::size_t divergence_retries = 3;
     double divergence_rate_factor = 0.5;
-    /// Wall-clock budget in seconds for the whole run; 0 or less = none.
-    double time_budget_seconds = 0.0;
-    /// Seconds from an arbitrary origin; defaults to std::chrono::steady_clock.
-    std::function<double()> clock;
-    /// Set to true from any thread to stop after the current batch.
-    const std::atomic<bool>* cancel = nullptr;
-    /// Called after every epoch; return false to stop (reason: cancelled).
-    std::function<bool(const epoch_summary&)> on_epoch;
-    /// Called after every batch (keep it cheap).
-    std::function<void(const batch_progress&)> on_batch;
     /// Continue a run from this point instead of starting afresh (the
     /// network, update rule and schedule must hold their state from the same
     /// point). `epochs` still counts from the start of the original run.

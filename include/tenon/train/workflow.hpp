@@ -82,7 +82,9 @@ std::unique_ptr<update_rule<T>> make_update_rule(update_kind kind) {
 }
 
 /// Everything that shapes a model and its training besides the data.
-struct model_settings {
+/// The host's controls (time budget, clock, cancel flag, observers) are
+/// the run_controls part, handed to the trainer whole.
+struct model_settings : run_controls {
     std::vector<std::size_t> hidden{64, 32};
     activation hidden_activation = activation::relu;
     /// Loss; by default cross-entropy for classification and l2 for regression.
@@ -120,11 +122,6 @@ struct model_settings {
     /// on one thread; the result is the same for any thread count.
     std::size_t ensemble = 0;
     std::uint64_t seed = 0;
-    double time_budget_seconds = 0.0;
-    std::function<double()> clock;
-    const std::atomic<bool>* cancel = nullptr;
-    std::function<bool(const epoch_summary&)> on_epoch;
-    std::function<void(const batch_progress&)> on_batch;
     /// Threads for the matrix products (the calling thread included): with
     /// more than 1, fit_model starts a thread_pool of this size for the run
     /// and stops it before returning. Results do not depend on it.
@@ -430,11 +427,7 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
     o.min_improvement = s.min_improvement;
     o.seed = s.seed;
     o.loss = loss;
-    o.time_budget_seconds = s.time_budget_seconds;
-    o.clock = s.clock;
-    o.cancel = s.cancel;
-    o.on_epoch = s.on_epoch;
-    o.on_batch = s.on_batch;
+    static_cast<run_controls&>(o) = s;  // budget, clock, cancel flag, observers
     o.team = s.team;
     o.member_rows = s.member_rows;
     o.shuffle = s.shuffle;
