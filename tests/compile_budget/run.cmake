@@ -10,7 +10,8 @@
 #     compiled-once mode (TENON_SERVE_COMPILED, serve.hpp); the 3x budget
 #     is reported, not enforced: the compiled-once mode meets it by a margin
 #     within run-to-run noise, the header-only mode does not meet it.
-# Inputs: CXX, FLAGS (a ;-list), SOURCE_DIR, WORK_DIR.
+# Inputs: CXX, FLAGS (one string, as on a command line), SOURCE_DIR, WORK_DIR.
+separate_arguments(FLAGS UNIX_COMMAND "${FLAGS}")
 set(units "${SOURCE_DIR}/tests/compile_budget")
 set(includes "-I${SOURCE_DIR}/include")
 file(MAKE_DIRECTORY "${WORK_DIR}")
