@@ -35,6 +35,7 @@
 
 #include <tenon/deploy/model_file.hpp>
 #include <tenon/deploy/predictor.hpp>
+#include <tenon/train/calibration.hpp>
 #include <tenon/prep/csv.hpp>
 
 #include "hand_loop.hpp"
@@ -142,9 +143,9 @@ struct hand_model {
         for (const auto& l : nets[0].layers) shape += "-" + std::to_string(l.outputs);
         shape += nets[0].bypass ? " + bypass)" : ")";
     }
-    float predict(const float* x, float* spread) const {
+    float one_row(const float* x, float* spread) const {
         float scratch[128];
-        return hand::predict(nets.data(), nets.size(), units, x, scratch, spread);
+        return hand::one_row(nets.data(), nets.size(), units, x, scratch, spread);
     }
 };
 
@@ -191,7 +192,7 @@ void hand_loop_one_row(benchmark::State& state) {
     std::vector<float> row(8, 0.25f);
     float spread = 0;
     timed_loop(state, [&] {
-        const float y = h.predict(row.data(), &spread);
+        const float y = h.one_row(row.data(), &spread);
         benchmark::DoNotOptimize(y);
         benchmark::DoNotOptimize(spread);
     });
@@ -212,7 +213,7 @@ void hand_loop_one_row_single_network(benchmark::State& state) {
     std::vector<float> row(8, 0.25f);
     float spread = 0;
     timed_loop(state, [&] {
-        const float y = h.predict(row.data(), &spread);
+        const float y = h.one_row(row.data(), &spread);
         benchmark::DoNotOptimize(y);
     });
 }
@@ -401,7 +402,7 @@ void compare_with_hand_loop(bench_model& m, int rounds) {
         for (auto& v : row) v = rng.uniform(-1.0f, 1.0f);
         p.try_predict_prepared(row.data(), 1, out);
         float spread = 0;
-        const float y = h.predict(row.data(), &spread);
+        const float y = h.one_row(row.data(), &spread);
         largest = std::max(largest, std::abs(static_cast<double>(y) - out.values[0]) / std::max(1.0, std::abs(static_cast<double>(y))));
     }
     std::fill(row.begin(), row.end(), 0.25f);
@@ -411,7 +412,7 @@ void compare_with_hand_loop(bench_model& m, int rounds) {
                                     },
                                     [&] {
                                         float spread = 0;
-                                        const float y = h.predict(row.data(), &spread);
+                                        const float y = h.one_row(row.data(), &spread);
                                         benchmark::DoNotOptimize(y);
                                         benchmark::DoNotOptimize(spread);
                                     }},

@@ -1,7 +1,7 @@
 // See hand_loop.hpp. Compiled with -O3 -march=native (bench/CMakeLists.txt):
 // the compiler may use every instruction of the build machine, fused
 // multiply-adds included. The 8-32-32-1 shape is fixed at compile time, so
-// the compiler can keep each layer's values in registers; predict()
+// the compiler can keep each layer's values in registers; one_row()
 // refuses another shape.
 #include "hand_loop.hpp"
 
@@ -24,7 +24,7 @@ void dense(const float* x, const layer& l, float* y) {
 
 }  // namespace
 
-float predict(const network* nets, std::size_t count, const units& u, const float* x, float* scratch, float* spread) {
+float one_row(const network* nets, std::size_t count, const units& u, const float* x, float* scratch, float* spread) {
     float member[64];
     for (std::size_t m = 0; m < count; ++m) {
         const network& n = nets[m];

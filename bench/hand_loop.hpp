@@ -32,6 +32,6 @@ struct units {
 // in the target's units, and their sample standard deviation in *spread.
 // 8-32-32-1 networks only (fixed at compile time), at most 64 of them;
 // `scratch` holds 128 floats.
-float predict(const network* nets, std::size_t count, const units& u, const float* x, float* scratch, float* spread);
+float one_row(const network* nets, std::size_t count, const units& u, const float* x, float* scratch, float* spread);
 
 }  // namespace hand
