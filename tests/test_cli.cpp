@@ -75,7 +75,7 @@ TEST_CASE("tenon train --help explains every option with its default") {
         CAPTURE(std::string(option));
         CHECK(r.out.find(std::string("  ") + option + " ") != std::string::npos);
     }
-    for (const char* default_text : {"default auto", "default 0.7,0.15,0.15", "(default 64,32)", "(default relu)", "(default adam)",
+    for (const char* default_text : {"default auto", "default 0.7,0.15,0.15", "(default: 64,32 under 8192", "(default relu)", "(default adam)",
                                      "default 0.001", "(default 1000;", "(default 32)", "(default 15", "(default 1)", "default 1),",
                                      "the\n                         results are the same bits for every N"}) {
         CAPTURE(std::string(default_text));

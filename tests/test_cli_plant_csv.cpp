@@ -5,6 +5,7 @@
 #include <doctest/doctest.h>
 
 #include <algorithm>
+#include <cmath>
 #include <cstdio>
 #include <map>
 #include <sstream>
@@ -299,4 +300,45 @@ TEST_CASE("tenon train --help explains the options for plant files") {
         CAPTURE(std::string(rule));
         CHECK(r.out.find(rule) != std::string::npos);
     }
+}
+
+// The last reading repeated (persistence, the usual first yardstick of a
+// forecast) is reported for a series: the rows are written out of time order
+// so that the tool must order them by the time column, not by the file.
+TEST_CASE("a chronological regression reports the last reading repeated, ordered by the time column") {
+    scratch_dir dir("last_reading");
+    tenon::random_engine rng(11);
+    const std::size_t n = 400;
+    std::vector<double> level(n);
+    double x = 50.0;
+    for (std::size_t h = 0; h < n; ++h) {
+        x += rng.normal(0.0, 1.0);  // a random walk: the last reading is the best forecast
+        level[h] = x;
+    }
+    std::vector<std::size_t> file_order(n);
+    for (std::size_t i = 0; i < n; ++i) file_order[i] = (i * 7) % n;  // 7 and 400 are coprime: every hour once
+    std::string csv = "hour,ambient,level\n";
+    for (std::size_t h : file_order) csv += std::to_string(h) + "," + std::to_string(rng.uniform(15.0, 25.0)) + "," + std::to_string(level[h]) + "\n";
+    const std::string path = dir.write("tank.csv", csv);
+    const auto r = run({"train", "--data", path, "--target", "level", "--split", "chronological", "--time-column", "hour", "--epochs", "3",
+                        "--ensemble", "1", "--metrics", dir.file("m.json")});
+    REQUIRE(r.status == 0);
+    const auto m = read_metrics(dir.file("m.json"));
+    // The test rows are the latest 15% of hours (60 of 400); each is
+    // predicted by the hour before it, read back from the CSV text's values.
+    const std::size_t test_rows = static_cast<std::size_t>(std::stod(m.at("rows.test")));
+    REQUIRE(test_rows == 60);
+    double squares = 0.0;
+    for (std::size_t h = n - test_rows; h < n; ++h) {
+        const double now = std::stod(std::to_string(level[h])), before = std::stod(std::to_string(level[h - 1]));
+        squares += (now - before) * (now - before);
+    }
+    CHECK(std::stod(m.at("last_reading.test.rows")) == doctest::Approx(static_cast<double>(test_rows)));
+    CHECK(std::stod(m.at("last_reading.test.rmse")) == doctest::Approx(std::sqrt(squares / static_cast<double>(test_rows))).epsilon(1e-9));
+    CHECK(m.count("last_reading.validation.rmse") == 1);
+    CHECK(r.out.find("last reading repeated: RMSE ") != std::string::npos);
+    // Not a series: no such yardstick.
+    const auto random_split = run({"train", "--data", path, "--target", "level", "--epochs", "2", "--ensemble", "1", "--metrics", dir.file("r.json"), "--quiet"});
+    REQUIRE(random_split.status == 0);
+    CHECK(read_metrics(dir.file("r.json")).at("last_reading") == "null");
 }

@@ -400,17 +400,19 @@ void check_network_size(const tenon::table& t, const train_request& q, const tra
     const std::size_t outputs = s.classify ? std::max<std::size_t>(p.class_count(), 1) : 1;
     // Widths are at most 2^16 (max_hidden_width), features far below 2^40: no product overflows.
     std::uint64_t weights = 0, width = inputs;
-    std::string hidden = q.hidden.empty() ? std::string("none") : std::string();
-    for (const std::size_t h : q.hidden) hidden += (hidden.empty() ? "" : ",") + std::to_string(h);
-    for (const std::size_t h : q.hidden) {
+    tenon::model_settings members;
+    members.hidden = q.hidden;
+    members.ensemble = q.ensemble;
+    const std::vector<std::size_t> widths = tenon::hidden_widths(members, rows.size());
+    std::string hidden = widths.empty() ? std::string("none") : std::string();
+    for (const std::size_t h : widths) hidden += (hidden.empty() ? "" : ",") + std::to_string(h);
+    for (const std::size_t h : widths) {
         weights += width * h;
         width = h;
     }
     weights += width * outputs;
     if (!s.classify) weights += inputs * outputs;  // the linear path beside the hidden layers (regression)
     // Every member of a seed ensemble holds as many.
-    tenon::model_settings members;
-    members.ensemble = q.ensemble;
     weights *= tenon::ensemble_size(members, rows.size());
     if (weights <= max_hidden_weights) return;
     std::vector<std::pair<std::size_t, std::string>> widest;  // features per input column

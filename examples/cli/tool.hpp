@@ -14,6 +14,7 @@
 #include <map>
 #include <ostream>
 #include <stdexcept>
+#include <optional>
 #include <string>
 #include <utility>
 #include <vector>
@@ -144,7 +145,7 @@ struct train_request {
     bool time_cycles = false;
     tenon::split_fractions fractions{0.7, 0.15, 0.15};
     std::size_t folds = 0;  // 0 = single holdout
-    std::vector<std::size_t> hidden = library_defaults().hidden;
+    std::optional<std::vector<std::size_t>> hidden = library_defaults().hidden;  // unset: by the training row count
     tenon::activation hidden_activation = library_defaults().hidden_activation;
     bool loss_given = false;
     tenon::loss_kind loss = library_defaults().loss;

@@ -150,6 +150,9 @@ tenon::table read_new_rows(const std::string& path, const tenon::measured_plan* 
 /// The calibration as stored in the model file.
 void write_calibration(json_writer& j, const char* key, const tenon::model_calibration& c);
 
+/// Each row's time in column `name` (NaN where missing), in the column's units.
+std::vector<double> column_times(const tenon::table& t, const std::string& name);
+
 }  // namespace detail
 
 /// The cell texts the tool reads as missing: the library's defaults.

@@ -9,6 +9,7 @@
 #include <filesystem>
 #include <functional>
 #include <limits>
+#include <optional>
 #include <ostream>
 #include <string>
 #include <utility>
@@ -85,7 +86,7 @@ void parse_fractions(const std::string& value, train_request& q) {
 }
 
 void parse_hidden(const std::string& value, train_request& q) {
-    q.hidden.clear();
+    std::vector<std::size_t>& widths = q.hidden.emplace();
     for (const auto& part : split_list(value)) {
         if (part.empty()) fail(cli_codes::option_value, "--hidden '" + value + "': an empty width between commas");
         std::size_t width = 0;
@@ -99,13 +100,13 @@ void parse_hidden(const std::string& value, train_request& q) {
         if (width > max_hidden_width)
             fail(cli_codes::option_value,
                  "--hidden '" + value + "': width " + part + " is above the limit of " + std::to_string(max_hidden_width) + " units per layer");
-        q.hidden.push_back(width);
+        widths.push_back(width);
     }
-    if (q.hidden.size() > max_hidden_layers)
+    if (widths.size() > max_hidden_layers)
         fail(cli_codes::option_value,
-             "--hidden '" + value + "': " + std::to_string(q.hidden.size()) + " layers, above the limit of " + std::to_string(max_hidden_layers));
+             "--hidden '" + value + "': " + std::to_string(widths.size()) + " layers, above the limit of " + std::to_string(max_hidden_layers));
     std::size_t between = 0;  // weights between hidden layers, before the inputs and outputs are known
-    for (std::size_t layer = 1; layer < q.hidden.size(); ++layer) between += q.hidden[layer - 1] * q.hidden[layer];
+    for (std::size_t layer = 1; layer < widths.size(); ++layer) between += widths[layer - 1] * widths[layer];
     if (between > max_hidden_weights)
         fail(cli_codes::option_value,
              "--hidden '" + value + "': " + std::to_string(between) + " weights between the hidden layers, above the limit of " +
@@ -241,10 +242,11 @@ const option_entry<train_request> train_options[] = {
      "each test metric over the folds. Default: off.",
      [](train_request& q, const std::string& v) { q.folds = parse_count("--folds", v, 2); }},
     {"--hidden", "64,32",
-     "hidden layer widths (default 64,32); at most 65536\n"
-     "units a layer, 64 layers and 100000000 weights\n"
-     "(inputs x first width, between hidden layers, and\n"
-     "last width x outputs).",
+     "hidden layer widths (default: 64,32 under 8192\n"
+     "training rows, 128,64 under 32768, else 256,128);\n"
+     "at most 65536 units a layer, 64 layers and\n"
+     "100000000 weights (inputs x first width, between\n"
+     "hidden layers, and last width x outputs).",
      [](train_request& q, const std::string& v) { parse_hidden(v, q); },
      "\n"
      "Preparation (measured on the training rows only)\n"
@@ -304,7 +306,7 @@ const option_entry<train_request> train_options[] = {
      [](train_request& q, const std::string& v) { q.patience = parse_count("--patience", v, 0); }},
     {"--ensemble", "K",
      "average K networks trained from their own seeds\n"
-     "(default: 5 under 10000 training rows, else 1);\n"
+     "(default: 5 under 100000 training rows, else 1);\n"
      "with --threads they train side by side.",
      [](train_request& q, const std::string& v) {
          q.ensemble = parse_count("--ensemble", v, 1);
@@ -755,6 +757,37 @@ void add_calibration_to_metadata(tenon::training_metadata& meta, const tenon::ca
     }
 }
 
+// The persistence baseline of a series (chronological split, regression):
+// each row's target predicted by the target of the row just before it in
+// time, the last reading an operator would repeat. Rows without a target,
+// or whose predecessor has none, are not scored. Empty when no row can be.
+std::optional<tenon::evaluation> last_reading_scores(const tenon::table& t, const train_request& q, const std::vector<std::size_t>& rows) {
+    const std::vector<double> times = column_times(t, q.time_column);
+    const tenon::column& target = t.at(q.target);
+    std::vector<std::size_t> order;
+    order.reserve(times.size());
+    for (std::size_t r = 0; r < times.size(); ++r)
+        if (!std::isnan(times[r])) order.push_back(r);
+    std::stable_sort(order.begin(), order.end(), [&](std::size_t a, std::size_t b) { return times[a] < times[b]; });
+    std::vector<std::size_t> before(times.size(), t.row_count());  // the row just before in time, or none
+    for (std::size_t k = 1; k < order.size(); ++k) before[order[k]] = order[k - 1];
+    std::vector<double> truth, repeated;
+    for (std::size_t r : rows) {
+        const std::size_t p = before[r];
+        if (p == t.row_count() || target.is_missing(r) || target.is_missing(p)) continue;
+        truth.push_back(target.number(r));
+        repeated.push_back(target.number(p));
+    }
+    if (truth.empty()) return std::nullopt;
+    const tenon::regression_scores r = tenon::score_values(truth, repeated);
+    tenon::evaluation e;
+    e.rows = truth.size();
+    e.rmse = r.rmse;
+    e.mae = r.mae;
+    e.r2 = r.r2;
+    return e;
+}
+
 // Holdout run.
 int train_holdout(const tenon::table& t, const train_request& q, training_setup& s, std::ostream& out, const cli_environment& env,
                   pending_output& metrics_file, pending_output& report_file, pending_output& model_probe) {
@@ -813,6 +846,12 @@ int train_holdout(const tenon::table& t, const train_request& q, training_setup&
     if (has_baseline && has_validation) baseline_validation = tenon::evaluate_baseline(model, t, split.validation);
     if (has_baseline) baseline_test = tenon::evaluate_baseline(model, t, split.test);
     const char* baseline_kind = s.classify ? "logistic regression" : "ridge least squares";
+    // A series: the last reading repeated, on the same rows.
+    std::optional<tenon::evaluation> last_validation, last_test;
+    if (!s.classify && s.split == split_choice::chronological) {
+        if (has_validation) last_validation = last_reading_scores(t, q, split.validation);
+        last_test = last_reading_scores(t, q, split.test);
+    }
 
     if (metrics_file.active()) {
         json_writer j;
@@ -846,6 +885,17 @@ int train_holdout(const tenon::table& t, const train_request& q, training_setup&
             j.close_object();
         } else {
             j.null("baseline");
+        }
+        if (last_test) {
+            j.open_object("last_reading");
+            if (last_validation)
+                write_scores(j, "validation", *last_validation);
+            else
+                j.null("validation");
+            write_scores(j, "test", *last_test);
+            j.close_object();
+        } else {
+            j.null("last_reading");
         }
         j.text("shipped", model.kept_baseline ? "baseline" : "network");
         if (calibration)
@@ -928,6 +978,12 @@ int train_holdout(const tenon::table& t, const train_request& q, training_setup&
                          fixed(baseline_test.rmse, 4) + " test") +
                 "\n";
             if (model.kept_baseline) summary += "the network did not beat the baseline on validation; the model is the baseline\n";
+        }
+        if (last_test) {
+            summary += "last reading repeated: RMSE " + (last_validation ? fixed(last_validation->rmse, 4) + " validation, " : std::string()) +
+                fixed(last_test->rmse, 4) + " test\n";
+            if (last_validation && has_validation && last_validation->rmse < validation.rmse)
+                summary += "the model did not beat repeating the last reading on validation: add the recent readings as inputs\n";
         }
         summary += "\n" + std::to_string(o.history.size()) + " epochs in " + duration_text(o.seconds) + "; " + o.message +
             (o.best_epoch > 0 && o.reason != tenon::stop_reason::no_improvement ? "; kept epoch " + std::to_string(o.best_epoch) : std::string()) +

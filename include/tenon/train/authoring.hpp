@@ -227,7 +227,8 @@ model_file<T> make_model_file(fitted_model<T>& model, const table& t, const std:
     }
     meta.metrics.emplace_back("training_seconds", model.outcome.seconds);
     std::string hidden;
-    for (std::size_t i = 0; i < settings.hidden.size(); ++i) hidden += (i ? "," : "") + std::to_string(settings.hidden[i]);
+    const std::vector<std::size_t> widths = hidden_widths(settings, model.train_rows);
+    for (std::size_t i = 0; i < widths.size(); ++i) hidden += (i ? "," : "") + std::to_string(widths[i]);
     meta.settings.emplace_back("hidden", hidden);
     meta.settings.emplace_back("hidden_activation", activation_name(settings.hidden_activation));
     meta.settings.emplace_back("update", update_kind_name(settings.update));

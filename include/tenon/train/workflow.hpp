@@ -85,7 +85,9 @@ std::unique_ptr<update_rule<T>> make_update_rule(update_kind kind) {
 /// The host's controls (time budget, clock, cancel flag, observers) are
 /// the run_controls part, handed to the trainer whole.
 struct model_settings : run_controls {
-    std::vector<std::size_t> hidden{64, 32};
+    /// Hidden layer widths; unset chooses by the training row count
+    /// (hidden_widths). Empty: no hidden layer (a linear model).
+    std::optional<std::vector<std::size_t>> hidden;
     activation hidden_activation = activation::relu;
     /// Loss; by default cross-entropy for classification and l2 for regression.
     bool loss_given = false;
@@ -116,10 +118,12 @@ struct model_settings : run_controls {
     double min_improvement = 0.0;
     /// Networks averaged (class probabilities or values), each trained from
     /// its own seed on the same rows; 0 chooses by the training row count: 5
-    /// under 10,000 rows, where the average of a few networks is markedly
-    /// steadier than one, else 1 (a common practice; the threshold is our
-    /// own). With more than one thread the members train side by side, each
-    /// on one thread; the result is the same for any thread count.
+    /// under 100,000 rows, else 1. Averaging a few networks is a common
+    /// practice; the threshold is our own (on Fashion-MNIST, 51,000 training
+    /// rows, five 256-128 networks scored 0.892 test accuracy where one
+    /// scored 0.876, README "Defaults"). With more than one thread the
+    /// members train side by side, each on one thread; the result is the
+    /// same for any thread count.
     std::size_t ensemble = 0;
     std::uint64_t seed = 0;
     /// Threads for the matrix products (the calling thread included): with
@@ -155,7 +159,22 @@ struct model_settings : run_controls {
 /// The networks fit_model trains for `s` on `train_rows` rows:
 /// s.ensemble, or by the row count when it is 0 (see model_settings).
 inline std::size_t ensemble_size(const model_settings& s, std::size_t train_rows) noexcept {
-    return s.ensemble > 0 ? s.ensemble : train_rows < 10000 ? 5 : 1;
+    return s.ensemble > 0 ? s.ensemble : train_rows < 100000 ? 5 : 1;
+}
+
+/// The hidden widths fit_model builds for `s` on `train_rows` rows: s.hidden
+/// when set; else two layers, the first the power of two nearest the square
+/// root of the row count, kept within 64 to 256, the second half as wide
+/// (64,32 up to about 8,000 rows, 128,64 to about 32,000, then 256,128). A
+/// rule of our own: more rows carry more weights before the validation
+/// curve turns (Fashion-MNIST: 0.876 test accuracy at 256,128 against 0.871
+/// at 64,32, one network each; README "Defaults").
+inline std::vector<std::size_t> hidden_widths(const model_settings& s, std::size_t train_rows) {
+    if (s.hidden) return *s.hidden;
+    std::size_t first = 64;
+    // The nearest power of two to sqrt(n) is 2^k for 4^k / 2 <= n < 4^k * 2.
+    while (first < 256 && static_cast<double>(train_rows) >= 2.0 * static_cast<double>(first) * static_cast<double>(first)) first *= 2;
+    return {first, first / 2};
 }
 
 /// A trained model with the plan that prepares its inputs.
@@ -351,8 +370,7 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
                                            (classify ? "classification" : "regression") + " target");
         }
         sizes.push_back(measured.feature_count());
-        sizes.insert(sizes.end(), s.hidden.begin(), s.hidden.end());
-        sizes.push_back(classify ? measured.class_count() : 1);
+        sizes.push_back(classify ? measured.class_count() : 1);  // the hidden widths go between, once the row count is known
         // He initialization suits rectifier-like units (He et al. 2015); Glorot
         // suits tanh and sigmoid (Glorot & Bengio 2010).
         const bool rectifier = s.hidden_activation == activation::relu || s.hidden_activation == activation::leaky_relu ||
@@ -360,7 +378,6 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
                                s.hidden_activation == activation::gelu_tanh;
         init = initializer{rectifier ? init_scheme::he : init_scheme::glorot, init_distribution::uniform};
         linear_path = s.linear_path.value_or(!classify);
-        net = make_mlp<T>(sizes, s.hidden_activation, init, s.seed, activation::identity, linear_path);
     };
 #if TENON_HAS_EXCEPTIONS
     try {
@@ -382,6 +399,11 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
         model.validation_rows = static_cast<std::size_t>(counts[1]);
         model.dropped_rows = static_cast<std::size_t>(counts[2]);
     }
+    // The widths may depend on the training row count (over all shards, so
+    // every member of a team builds the same network).
+    const std::vector<std::size_t> hidden = hidden_widths(s, model.train_rows);
+    sizes.insert(sizes.begin() + 1, hidden.begin(), hidden.end());
+    model.net = make_mlp<T>(sizes, s.hidden_activation, init, s.seed, activation::identity, linear_path);
 
     // The linear baseline; a linear path starts from it, with the hidden
     // layers' output weights at zero, so training starts at the baseline's
