@@ -24,6 +24,20 @@
 
 TENON_NAMESPACE_BEGIN
 
+namespace detail {
+
+// Little-endian loads from bytes whose bounds the caller has checked.
+inline std::uint16_t get_u16(const std::uint8_t* p) noexcept { return static_cast<std::uint16_t>(p[0] | (p[1] << 8)); }
+inline std::uint32_t get_u32(const std::uint8_t* p) noexcept {
+    return static_cast<std::uint32_t>(p[0]) | static_cast<std::uint32_t>(p[1]) << 8 | static_cast<std::uint32_t>(p[2]) << 16 |
+        static_cast<std::uint32_t>(p[3]) << 24;
+}
+inline std::uint64_t get_u64(const std::uint8_t* p) noexcept {
+    return static_cast<std::uint64_t>(get_u32(p)) | static_cast<std::uint64_t>(get_u32(p + 4)) << 32;
+}
+
+}  // namespace detail
+
 /// Appends little-endian values to a byte vector.
 class byte_writer {
 public:

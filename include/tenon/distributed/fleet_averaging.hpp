@@ -52,14 +52,15 @@ template <class T>
 std::vector<std::uint8_t> fleet_contribution_bytes(const model_file<T>& retrained, std::uint64_t samples) {
     const std::vector<std::uint8_t> model = model_file_to_bytes(retrained);
     std::vector<std::uint8_t> out = {'T', 'N', 'F', 'C'};
-    detail::put_u16(out, fleet_contribution_version);
-    detail::put_u16(out, 0);
-    detail::put_u64(out, samples);
-    detail::put_u64(out, architecture_fingerprint(retrained));
-    detail::put_u64(out, plan_fingerprint(retrained));
-    detail::put_u64(out, model.size());
+    byte_writer w(out);
+    w.u16(fleet_contribution_version);
+    w.u16(0);
+    w.u64(samples);
+    w.u64(architecture_fingerprint(retrained));
+    w.u64(plan_fingerprint(retrained));
+    w.u64(model.size());
     out.insert(out.end(), model.begin(), model.end());
-    detail::put_u32(out, crc32(out.data(), out.size()));
+    w.u32(crc32(out.data(), out.size()));
     return out;
 }
 

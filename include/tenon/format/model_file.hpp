@@ -216,25 +216,6 @@ inline std::string hex_u32(std::uint32_t v) {
     return s;
 }
 
-inline std::uint16_t get_u16(const std::uint8_t* p) noexcept { return static_cast<std::uint16_t>(p[0] | (p[1] << 8)); }
-inline std::uint32_t get_u32(const std::uint8_t* p) noexcept {
-    return static_cast<std::uint32_t>(p[0]) | static_cast<std::uint32_t>(p[1]) << 8 | static_cast<std::uint32_t>(p[2]) << 16 |
-        static_cast<std::uint32_t>(p[3]) << 24;
-}
-inline std::uint64_t get_u64(const std::uint8_t* p) noexcept {
-    return static_cast<std::uint64_t>(get_u32(p)) | static_cast<std::uint64_t>(get_u32(p + 4)) << 32;
-}
-inline void put_u16(std::vector<std::uint8_t>& out, std::uint16_t v) {
-    out.push_back(static_cast<std::uint8_t>(v));
-    out.push_back(static_cast<std::uint8_t>(v >> 8));
-}
-inline void put_u32(std::vector<std::uint8_t>& out, std::uint32_t v) {
-    for (int k = 0; k < 4; ++k) out.push_back(static_cast<std::uint8_t>(v >> (8 * k)));
-}
-inline void put_u64(std::vector<std::uint8_t>& out, std::uint64_t v) {
-    for (int k = 0; k < 8; ++k) out.push_back(static_cast<std::uint8_t>(v >> (8 * k)));
-}
-
 // Scalars of the file's type, bit for bit.
 template <class T>
 void put_scalar(byte_writer& w, T v) {
@@ -652,12 +633,13 @@ resume_state<T> read_resume(byte_reader& in) {
 
 inline void append_section(std::vector<std::uint8_t>& file, const char (&id)[5], bool required, const std::vector<std::uint8_t>& payload) {
     const std::size_t start = file.size();
-    put_u32(file, section_id(id));
-    put_u16(file, required ? section_required : 0);
-    put_u16(file, 0);
-    put_u64(file, payload.size());
-    put_u32(file, crc32(payload.data(), payload.size()));
-    put_u32(file, crc32(file.data() + start, 20));
+    byte_writer w(file);
+    w.u32(section_id(id));
+    w.u16(required ? section_required : 0);
+    w.u16(0);
+    w.u64(payload.size());
+    w.u32(crc32(payload.data(), payload.size()));
+    w.u32(crc32(file.data() + start, 20));
     file.insert(file.end(), payload.begin(), payload.end());
 }
 
@@ -961,17 +943,18 @@ std::vector<std::uint8_t> model_file_to_bytes(const model_file<T>& m) {
     std::vector<std::uint8_t> out(detail::model_magic, detail::model_magic + 8);
     // Version 2 only where it is needed (section CALB), so that files without
     // calibration still load in builds that read version 1.
-    detail::put_u16(out, detail::has_calibration(m.calibration) ? model_format_version : std::uint16_t(1));
-    detail::put_u16(out, 0);
-    detail::put_u32(out, detail::byte_order_mark);
+    byte_writer w(out);
+    w.u16(detail::has_calibration(m.calibration) ? model_format_version : std::uint16_t(1));
+    w.u16(0);
+    w.u32(detail::byte_order_mark);
     out.push_back(static_cast<std::uint8_t>(sizeof(T)));
     out.push_back(0);
     const std::uint16_t count = static_cast<std::uint16_t>(
         2 + (m.plan ? 1 : 0) + (m.metadata ? 1 : 0) + (m.references.empty() ? 0 : 1) + (m.replay ? 1 : 0) + (m.resume ? 1 : 0) +
         (m.replay && m.replay->rows_seen > 0 ? 1 : 0) + (m.history.empty() ? 0 : 1) + (detail::references_have_distributions(m.references) ? 1 : 0) +
         (m.members.empty() ? 0 : 1) + (detail::has_calibration(m.calibration) ? 1 : 0));
-    detail::put_u16(out, count);
-    detail::put_u32(out, crc32(out.data(), 20));
+    w.u16(count);
+    w.u32(crc32(out.data(), 20));
     detail::append_section(out, "ARCH", true, to_bytes(m.architecture));
     detail::append_section(out, "WGHT", true, detail::weights_payload(m.weights));
     if (!m.members.empty()) detail::append_section(out, "ENSM", true, detail::members_payload(m.members));

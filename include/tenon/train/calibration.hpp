@@ -118,24 +118,6 @@ inline interval_scores score_intervals(const double* actual, const double* low, 
 
 // --- temperature scaling ----------------------------------------------------------------------
 
-/// softmax(logits / temperature) per row, each exp taken of (z - max z) /
-/// temperature: the predictor computes the same operations in the same order.
-template <class T>
-matrix<T> tempered_softmax_rows(const matrix<T>& logits, double temperature) {
-    const std::size_t rows = logits.shape()[0], cols = logits.shape()[1];
-    const T t = static_cast<T>(temperature);
-    matrix<T> p({rows, cols});
-    for (std::size_t i = 0; i < rows; ++i) {
-        const T* z = logits.data() + i * cols;
-        T* q = p.data() + i * cols;
-        const T m = *std::max_element(z, z + cols);
-        T s = T(0);
-        for (std::size_t j = 0; j < cols; ++j) s += (q[j] = std::exp((z[j] - m) / t));
-        for (std::size_t j = 0; j < cols; ++j) q[j] /= s;
-    }
-    return p;
-}
-
 /// The temperature that minimizes the mean log loss of softmax(logits / T)
 /// on the given rows (Guo et al. 2017, section 4.2). The loss is convex in
 /// b = 1/T (a log-sum-exp of functions linear in b), so Newton's method on b

@@ -307,20 +307,29 @@ matrix<T> network_outputs(network<T>& net, const matrix<T>& features, std::size_
     return out;
 }
 
-/// Row-wise softmax of logits (probabilities), computed stably.
+/// softmax(logits / temperature) per row, each exp taken of (z - max z) /
+/// temperature: the predictor computes the same operations in the same order.
 template <class T>
-matrix<T> softmax_rows(const matrix<T>& logits) {
+matrix<T> tempered_softmax_rows(const matrix<T>& logits, double temperature) {
     const std::size_t rows = logits.shape()[0], cols = logits.shape()[1];
+    const T t = static_cast<T>(temperature);
     matrix<T> p({rows, cols});
     for (std::size_t i = 0; i < rows; ++i) {
         const T* z = logits.data() + i * cols;
         T* q = p.data() + i * cols;
         const T m = *std::max_element(z, z + cols);
         T s = T(0);
-        for (std::size_t j = 0; j < cols; ++j) s += (q[j] = std::exp(z[j] - m));
+        for (std::size_t j = 0; j < cols; ++j) s += (q[j] = std::exp((z[j] - m) / t));
         for (std::size_t j = 0; j < cols; ++j) q[j] /= s;
     }
     return p;
+}
+
+/// Row-wise softmax of logits (probabilities), computed stably: the
+/// tempered form at temperature 1 (dividing by 1 changes no bit).
+template <class T>
+matrix<T> softmax_rows(const matrix<T>& logits) {
+    return tempered_softmax_rows(logits, 1.0);
 }
 
 template <class T>
