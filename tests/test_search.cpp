@@ -5,6 +5,7 @@
 #include <doctest/doctest.h>
 
 #include <cmath>
+#include <limits>
 #include <memory>
 #include <sstream>
 #include <string>
@@ -111,6 +112,34 @@ TEST_CASE("the search grid holds 108 distinct points of widths, halving depths, 
         }
 }
 
+TEST_CASE("the search chooses the lowest complete candidate only when it beats the start by more than the folds' noise") {
+    const auto candidate = [](std::vector<double> losses, bool cut_short = false) {
+        tenon::search_candidate c;
+        c.fold_losses = losses;
+        c.folds_completed = losses.size();
+        c.cut_short = cut_short;
+        double sum = 0.0;
+        for (double l : losses) sum += l;
+        c.mean_fold_loss = losses.empty() ? std::nan("") : sum / static_cast<double>(losses.size());
+        return c;
+    };
+    // Lower on every fold by about the same amount: a clear gain.
+    CHECK(tenon::choose_search_candidate({candidate({0.30, 0.40, 0.50}), candidate({0.35, 0.45, 0.55}), candidate({0.20, 0.31, 0.39})}, 3) == 2);
+    // Lower on average, but by less than the spread of the fold differences
+    // (-0.09, +0.06, -0.06: mean -0.03, standard error 0.046): the start stays.
+    CHECK(tenon::choose_search_candidate({candidate({0.30, 0.40, 0.50}), candidate({0.21, 0.46, 0.44})}, 3) == 0);
+    // A cut-short candidate is not chosen over complete ones, however low its folds.
+    CHECK(tenon::choose_search_candidate({candidate({0.30, 0.40, 0.50}), candidate({0.01, 0.01}, true), candidate({0.20, 0.30, 0.40})}, 3) == 2);
+    CHECK(tenon::choose_search_candidate({candidate({0.30, 0.40, 0.50}), candidate({0.01, 0.01, 0.01}, true)}, 3) == 0);
+    // The start cut short: the lowest complete one; none complete: the start.
+    CHECK(tenon::choose_search_candidate({candidate({0.30}, true)}, 3) == 0);
+    CHECK(tenon::choose_search_candidate({candidate({0.30, 0.40}, true), candidate({0.5, 0.5, 0.5})}, 3) == 1);
+    // A fold without a finite loss makes a candidate's mean infinite: never chosen.
+    auto diverged = candidate({0.1, 0.1, 0.1});
+    diverged.mean_fold_loss = std::numeric_limits<double>::infinity();
+    CHECK(tenon::choose_search_candidate({candidate({0.30, 0.40, 0.50}), diverged}, 3) == 0);
+}
+
 TEST_CASE("the same seed gives the same search record and choice; another seed another order") {
     const auto t = pump_table(300, 1);
     const auto rows = first_rows(240);
@@ -138,16 +167,19 @@ TEST_CASE("the same seed gives the same search record and choice; another seed a
                      a.candidates[i].weight_decay == 0.0));
     }
     CHECK(order_differs);
-    // Every candidate completed its 3 folds; the chosen one has the lowest mean loss (mean squared error, prepared units).
+    // Every candidate completed its 3 folds (mean squared error, prepared units).
     for (const auto& c : a.candidates) {
         CHECK(c.folds_completed == 3);
+        REQUIRE(c.fold_losses.size() == 3);
         CHECK_FALSE(c.cut_short);
-        CHECK(std::isfinite(c.mean_fold_loss));
+        CHECK(c.mean_fold_loss == doctest::Approx((c.fold_losses[0] + c.fold_losses[1] + c.fold_losses[2]) / 3));
         CHECK(c.mean_fold_loss > 0.0);
         CHECK(c.mean_fold_loss < 1.0);  // z-scored target: below the variance of 1
-        CHECK(c.mean_fold_loss >= a.candidates[a.chosen_index].mean_fold_loss);
         CHECK(c.seconds > 0.0);
     }
+    CHECK(a.chosen_index == tenon::choose_search_candidate(a.candidates, 3));
+    for (const auto& c : a.candidates) CHECK(c.mean_fold_loss >= a.candidates[a.lowest_index].mean_fold_loss);
+    CHECK((a.chosen_index == a.lowest_index || a.chosen_index == 0));
     const auto& chosen = a.candidates[a.chosen_index];
     CHECK(a.chosen.hidden == chosen.hidden);
     CHECK(a.chosen.learning_rate == chosen.learning_rate);

@@ -786,7 +786,12 @@ std::string search_summary(const tenon::settings_search_result& r) {
         " in " + duration_text(r.seconds);
     const std::string settings = "hidden " + widths_text(c.hidden) + ", learning rate " + tenon::number_to_text(c.learning_rate) +
         ", weight decay " + tenon::number_to_text(c.weight_decay);
-    if (c.folds_completed == r.folds && !c.cut_short) return tried + ", chose " + settings + "; mean fold loss " + fixed(c.mean_fold_loss, 4);
+    if (c.folds_completed == r.folds && !c.cut_short) {
+        std::string line = tried + ", chose " + settings + "; mean fold loss " + fixed(c.mean_fold_loss, 4);
+        if (r.lowest_index != r.chosen_index)
+            line += " (the lowest, " + fixed(r.candidates[r.lowest_index].mean_fold_loss, 4) + ", is within the folds' noise of it)";
+        return line;
+    }
     return tried + ", none completed its " + std::to_string(r.folds) + " folds within the budget; kept " + settings;
 }
 
@@ -802,6 +807,7 @@ void write_search(json_writer& j, const tenon::settings_search_result& r) {
     j.open_object("search");
     j.number("seconds", r.seconds).number("budget_seconds", r.budget_seconds).count("folds", r.folds);
     j.count("candidates_tried", r.candidates.size()).count("candidates_listed", r.candidates_listed);
+    j.count("lowest", r.lowest_index).count("chosen_index", r.chosen_index);
     j.open_object("chosen");
     write_search_settings(j, r.candidates[r.chosen_index]);
     j.close_object();
@@ -809,6 +815,9 @@ void write_search(json_writer& j, const tenon::settings_search_result& r) {
     for (const auto& c : r.candidates) {
         j.open_object();
         write_search_settings(j, c);
+        j.open_array("fold_losses");
+        for (double l : c.fold_losses) j.number(nullptr, l);
+        j.close_array();
         j.count("folds_completed", c.folds_completed).boolean("cut_short", c.cut_short).number("seconds", c.seconds);
         j.close_object();
     }

@@ -38,6 +38,8 @@ struct search_candidate {
     /// NaN when no fold completed; infinity when a fold gave no finite loss
     /// (training diverged before a first validated epoch).
     double mean_fold_loss = std::numeric_limits<double>::quiet_NaN();
+    /// Each completed fold's loss, in fold order.
+    std::vector<double> fold_losses;
     std::size_t folds_completed = 0;
     /// The budget (or the host's cancel flag) ended a fold's training or left
     /// a fold unstarted; such a candidate is never chosen.
@@ -53,6 +55,10 @@ struct settings_search_result {
     model_settings chosen;
     /// Index of the chosen candidate in `candidates`; 0 is the starting settings.
     std::size_t chosen_index = 0;
+    /// Index of the complete candidate with the lowest mean fold loss (0
+    /// when none completed); chosen unless it is within the folds' noise of
+    /// the start (choose_search_candidate).
+    std::size_t lowest_index = 0;
     /// In the order tried.
     std::vector<search_candidate> candidates;
     /// Candidates in the search's list (the starting settings and the grid).
@@ -82,10 +88,43 @@ inline std::vector<search_candidate> settings_search_grid() {
     return grid;
 }
 
+/// The candidate search_settings chooses among `tried` (the first being the
+/// starting settings), each given `folds` folds: the lowest mean fold loss
+/// among those that completed every fold and were not cut short. The lowest
+/// of many noisy means is lower than its settings deserve (a winner's
+/// curse), so it replaces a complete start only when it beats the start by
+/// more than the standard error of their fold-by-fold differences (both saw
+/// the same folds); our own rule, in the spirit of the one-standard-error
+/// rule of Breiman, Friedman, Olshen & Stone 1984. 0 when none completed.
+inline std::size_t choose_search_candidate(const std::vector<search_candidate>& tried, std::size_t folds) {
+    const auto complete = [folds](const search_candidate& c) {
+        return !c.cut_short && c.folds_completed == folds && c.fold_losses.size() == folds && std::isfinite(c.mean_fold_loss);
+    };
+    double best = std::numeric_limits<double>::infinity();
+    std::size_t lowest = 0;
+    for (std::size_t i = 0; i < tried.size(); ++i)
+        if (complete(tried[i]) && tried[i].mean_fold_loss < best) {
+            best = tried[i].mean_fold_loss;
+            lowest = i;
+        }
+    if (lowest == 0 || !complete(tried[0]) || folds < 2) return lowest;
+    const search_candidate &low = tried[lowest], &first = tried[0];
+    double mean = 0.0, squares = 0.0;
+    for (std::size_t f = 0; f < folds; ++f) mean += low.fold_losses[f] - first.fold_losses[f];
+    mean /= static_cast<double>(folds);
+    for (std::size_t f = 0; f < folds; ++f) {
+        const double d = low.fold_losses[f] - first.fold_losses[f] - mean;
+        squares += d * d;
+    }
+    const double standard_error = std::sqrt(squares / static_cast<double>(folds - 1) / static_cast<double>(folds));
+    return mean + standard_error < 0.0 ? lowest : 0;
+}
+
 /// Searches hidden widths and depths, learning rates and weight decays for
 /// `start`, by `folds`-fold cross-validation on `train_rows` alone, within
-/// `budget_seconds` of wall-clock time, and returns the candidate with the
-/// lowest mean fold loss among those that completed every fold.
+/// `budget_seconds` of wall-clock time, and returns the settings with the
+/// lowest mean fold loss among those that completed every fold, when they
+/// beat the start by more than the folds' noise.
 ///
 /// - The candidates: `start`'s own settings first, then the grid of
 ///   settings_search_grid() (less any point equal to the start, and less
@@ -102,8 +141,9 @@ inline std::vector<search_candidate> settings_search_grid() {
 ///   at least the mean time of the complete candidates so far, and each
 ///   fold trains with the time left as its time_budget_seconds, so the
 ///   search ends within one optimizer step of the budget. A candidate cut
-///   short is recorded and ends the search; when no candidate completed,
-///   the starting settings are chosen.
+///   short is recorded and ends the search.
+/// - The choice: choose_search_candidate (the lowest mean fold loss, when it
+///   beats the start by more than the noise; else the start).
 /// The host's observers (on_epoch, on_batch) are not called during the
 /// search; its cancel flag is honoured. Not for a team.
 template <class T>
@@ -210,6 +250,7 @@ settings_search_result search_settings(const table& t, const plan& preparation, 
                 break;
             }
             loss_sum += m.network_validation_loss;
+            c.fold_losses.push_back(m.network_validation_loss);
             ++c.folds_completed;
         }
         c.seconds = clock() - candidate_began;
@@ -227,14 +268,13 @@ settings_search_result search_settings(const table& t, const plan& preparation, 
     }
     result.seconds = clock() - began;
 
-    // The lowest mean loss among complete candidates; the start when none completed.
-    double best = std::numeric_limits<double>::infinity();
+    result.chosen_index = choose_search_candidate(result.candidates, folds);
     for (std::size_t i = 0; i < result.candidates.size(); ++i) {
         const search_candidate& c = result.candidates[i];
-        if (!c.cut_short && c.folds_completed == folds && c.mean_fold_loss < best) {
-            best = c.mean_fold_loss;
-            result.chosen_index = i;
-        }
+        const search_candidate& low = result.candidates[result.lowest_index];
+        const bool whole = !c.cut_short && c.folds_completed == folds && std::isfinite(c.mean_fold_loss);
+        const bool low_whole = !low.cut_short && low.folds_completed == folds && std::isfinite(low.mean_fold_loss);
+        if (whole && (!low_whole || c.mean_fold_loss < low.mean_fold_loss)) result.lowest_index = i;
     }
     result.chosen = start;
     const search_candidate& chosen = result.candidates[result.chosen_index];
