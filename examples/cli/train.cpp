@@ -418,6 +418,13 @@ train_request parse_train_request(const std::vector<std::string>& args) {
     }
     if (!q.model_path.empty() && std::filesystem::path(q.model_path).lexically_normal() == std::filesystem::path(q.data_path).lexically_normal())
         fail(cli_codes::option_conflict, "--model and --data name the same file '" + q.model_path + "'");
+    if (q.search_seconds > 0) {
+        for (const char* chosen : {"--hidden", "--learning-rate"})
+            if (std::find(seen.begin(), seen.end(), chosen) != seen.end())
+                fail(cli_codes::option_conflict, std::string("--search chooses the hidden layers and the learning rate; it cannot be combined with ") + chosen);
+        if (q.folds > 0)
+            fail(cli_codes::option_conflict, "--search chooses the settings of one holdout run; it cannot be combined with --folds " + std::to_string(q.folds));
+    }
     if (q.folds > 0 && !q.model_path.empty())
         fail(cli_codes::option_conflict,
              "--model saves the model of one holdout run; cross-validation (--folds " + std::to_string(q.folds) +
@@ -428,13 +435,6 @@ train_request parse_train_request(const std::vector<std::string>& args) {
         fail(cli_codes::option_conflict,
              "--coverage calibrates the model of one holdout run on its validation rows; it cannot be combined with --folds " +
                  std::to_string(q.folds));
-    if (q.search_seconds > 0) {
-        for (const char* chosen : {"--hidden", "--learning-rate"})
-            if (std::find(seen.begin(), seen.end(), chosen) != seen.end())
-                fail(cli_codes::option_conflict, std::string("--search chooses the hidden layers and the learning rate; it cannot be combined with ") + chosen);
-        if (q.folds > 0)
-            fail(cli_codes::option_conflict, "--search chooses the settings of one holdout run; it cannot be combined with --folds " + std::to_string(q.folds));
-    }
     for (const auto& c : q.ignored) {
         if (c == q.target) fail(cli_codes::option_conflict, "--ignore names the target column '" + c + "'");
         if (std::find(q.used.begin(), q.used.end(), c) != q.used.end())
