@@ -71,12 +71,13 @@ TEST_CASE("tenon train --help explains every option with its default") {
     CHECK(r.err.empty());
     for (const char* option : {"--data", "--target", "--task", "--ignore", "--split", "--time-column", "--group-column", "--fractions",
                                "--folds", "--hidden", "--activation", "--loss", "--optimizer", "--learning-rate", "--epochs", "--batch",
-                               "--patience", "--ensemble", "--seed", "--threads", "--metrics", "--report", "--model", "--quiet"}) {
+                               "--patience", "--ensemble", "--search", "--seed", "--threads", "--metrics", "--report", "--model", "--quiet"}) {
         CAPTURE(std::string(option));
         CHECK(r.out.find(std::string("  ") + option + " ") != std::string::npos);
     }
     for (const char* default_text : {"default auto", "default 0.7,0.15,0.15", "(default: 64,32 under 8192", "(default relu)", "(default adam)",
                                      "default 0.001", "(default 1000;", "(default 32)", "(default 15", "(default 1)", "default 1),",
+                                     "training rows for at most SECONDS of wall-clock time,\n                         then train with the best as usual (default: off)",
                                      "the\n                         results are the same bits for every N"}) {
         CAPTURE(std::string(default_text));
         CHECK(r.out.find(default_text) != std::string::npos);
@@ -203,6 +204,15 @@ TEST_CASE("unknown options, bad numbers and missing values are named") {
     check_failure(dir, with({"--ensemble", "0"}), "[cli.option.value] --ensemble '0': must be at least 1");
     check_failure(dir, with({"--ensemble", "101"}), "[cli.option.value] --ensemble '101': at most 100 networks");
     check_failure(dir, with({"--folds", "1"}), "[cli.option.value] --folds '1': must be at least 2");
+    check_failure(dir, with({"--search", "-1"}), "[cli.option.value] --search '-1': must be a positive number of seconds");
+    check_failure(dir, with({"--search", "0"}), "[cli.option.value] --search '0': must be a positive number of seconds");
+    check_failure(dir, with({"--search", "x"}), "[cli.option.value] --search 'x': not a finite number");
+    check_failure(dir, with({"--search", "30", "--hidden", "8"}),
+                  "[cli.option.conflict] --search chooses the hidden layers and the learning rate; it cannot be combined with --hidden");
+    check_failure(dir, with({"--learning-rate", "0.01", "--search", "30"}),
+                  "[cli.option.conflict] --search chooses the hidden layers and the learning rate; it cannot be combined with --learning-rate");
+    check_failure(dir, with({"--search", "30", "--folds", "3"}),
+                  "[cli.option.conflict] --search chooses the settings of one holdout run; it cannot be combined with --folds 3");
     check_failure(dir, with({"--hidden", "64,,32"}), "[cli.option.value] --hidden '64,,32': an empty width between commas");
     check_failure(dir, with({"--learning-rate", "fast"}), "[cli.option.value] --learning-rate 'fast': not a finite number");
     check_failure(dir, with({"--learning-rate", "-0.1"}), "[cli.option.value] --learning-rate '-0.1': must be positive");
@@ -267,6 +277,72 @@ TEST_CASE("the JSON writer escapes strings and writes non-finite numbers as null
     CHECK(m.at("inf") == "null");
     CHECK(std::stod(m.at("third")) == 1.0 / 3.0);  // shortest round-trip text reads back exactly
     CHECK(m.at("name") == "x\"y");
+}
+
+TEST_CASE("--search chooses the settings by k-fold on the training rows within its budget; the metrics record it") {
+    scratch_dir dir("search");
+    const auto path = dir.write("caps.csv", small_classification_csv(200));
+    // A clock a millisecond later at every reading: the search's times, and
+    // with them its record, are the same on every run and machine.
+    double now = 0.0;
+    tenon_cli::cli_environment env;
+    env.clock = [&now] { return now += 0.001; };
+    const auto train = [&](const std::string& metrics, std::vector<std::string> extra) {
+        std::vector<std::string> args{"train", "--data", path, "--target", "verdict", "--epochs", "10", "--metrics", dir.file(metrics)};
+        args.insert(args.end(), extra.begin(), extra.end());
+        now = 0.0;
+        return cli_test::run_tool(args, env);
+    };
+    const auto r = train("m.json", {"--search", "1.5"});
+    REQUIRE(r.status == 0);
+    CHECK(r.err.empty());
+    const auto m = read_metrics(dir.file("m.json"));
+    CHECK(number_at(m, "search.budget_seconds") == 1.5);
+    CHECK(number_at(m, "search.folds") == 3);
+    CHECK(number_at(m, "search.candidates_listed") == 108);
+    const auto tried = static_cast<std::size_t>(number_at(m, "search.candidates_tried"));
+    CHECK(tried >= 2);    // each candidate takes a few hundred readings
+    CHECK(tried < 108);   // the budget ended the search
+    CHECK(number_at(m, "search.seconds") <= 1.5 + 0.05);
+    // The defaults first; the chosen one has the lowest mean fold loss among
+    // the complete candidates, or is the defaults (when the lowest does not
+    // beat them by more than the folds' noise).
+    CHECK(m.at("search.candidates.0.hidden.0") == "64");
+    CHECK(m.at("search.candidates.0.hidden.1") == "32");
+    CHECK(number_at(m, "search.candidates.0.learning_rate") == 0.001);
+    CHECK(number_at(m, "search.candidates.0.weight_decay") == 0);
+    double lowest = 1e300;
+    for (std::size_t i = 0; i < tried; ++i) {
+        const std::string c = "search.candidates." + std::to_string(i) + ".";
+        CHECK(m.count(c + "seconds") == 1);
+        CHECK(m.count(c + "fold_losses.0") == 1);
+        if (m.at(c + "cut_short") == "false" && number_at(m, c + "folds_completed") == 3) lowest = std::min(lowest, number_at(m, c + "mean_fold_loss"));
+    }
+    const double chosen = number_at(m, "search.chosen.mean_fold_loss");
+    CHECK((chosen == lowest || chosen == number_at(m, "search.candidates.0.mean_fold_loss")));
+    CHECK(chosen >= lowest);
+    CHECK(number_at(m, "search.candidates." + m.at("search.lowest") + ".mean_fold_loss") == lowest);
+    CHECK(number_at(m, "search.candidates." + m.at("search.chosen_index") + ".mean_fold_loss") == chosen);
+    // One summary line naming the choice, which the final fit used.
+    std::string hidden = m.at("search.chosen.hidden.0");
+    for (std::size_t k = 1; m.count("search.chosen.hidden." + std::to_string(k)); ++k) hidden += "," + m.at("search.chosen.hidden." + std::to_string(k));
+    const std::string line = ", chose hidden " + hidden + ", learning rate " + tenon::number_to_text(number_at(m, "search.chosen.learning_rate")) +
+                             ", weight decay " + tenon::number_to_text(number_at(m, "search.chosen.weight_decay")) + "; mean fold loss ";
+    CHECK(r.out.rfind("search: " + std::to_string(tried) + " candidates in ", 0) == 0);
+    CHECK(r.out.find(line) != std::string::npos);
+    // The same seed: the same search record.
+    REQUIRE(train("again.json", {"--search", "1.5"}).status == 0);
+    const auto again = read_metrics(dir.file("again.json"));
+    for (const auto& kv : m) {
+        if (kv.first.rfind("search.", 0) != 0) continue;
+        CAPTURE(kv.first);
+        CHECK(again.at(kv.first) == kv.second);
+    }
+    // Without --search: null, and no search line.
+    const auto plain = train("plain.json", {});
+    REQUIRE(plain.status == 0);
+    CHECK(read_metrics(dir.file("plain.json")).at("search") == "null");
+    CHECK(plain.out.find("search:") == std::string::npos);
 }
 
 TEST_CASE("classification metrics hold every documented field; the report has the confusion matrix") {

@@ -155,6 +155,7 @@ struct train_request {
     std::size_t batch = library_defaults().batch_size;
     std::size_t patience = library_defaults().patience;
     std::size_t ensemble = library_defaults().ensemble;  // 0: by the row count
+    double search_seconds = 0.0;  // --search: budget of the settings search (train/search.hpp); 0: no search
     std::uint64_t seed = 1;  // one seed for the split, the weights and the batch order
     std::size_t threads = 1;
     bool keep_order = false;  // --keep-order: no shuffling

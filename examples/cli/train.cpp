@@ -312,6 +312,16 @@ const option_entry<train_request> train_options[] = {
          q.ensemble = parse_count("--ensemble", v, 1);
          if (q.ensemble > 100) fail(cli_codes::option_value, "--ensemble '" + v + "': at most 100 networks");
      }},
+    {"--search", "SECONDS",
+     "search hidden widths and depths, learning rates and\n"
+     "weight decays by 3-fold cross-validation on the\n"
+     "training rows for at most SECONDS of wall-clock time,\n"
+     "then train with the best as usual (default: off).\n"
+     "Not with --hidden, --learning-rate or --folds.",
+     [](train_request& q, const std::string& v) {
+         q.search_seconds = parse_real("--search", v);
+         if (!(q.search_seconds > 0)) fail(cli_codes::option_value, "--search '" + v + "': must be a positive number of seconds");
+     }},
     {"--seed", "N",
      "seeds the split, the initial weights and the batch\n"
      "order (default 1). The same seed and data give the\n"
@@ -410,6 +420,13 @@ train_request parse_train_request(const std::vector<std::string>& args) {
     }
     if (!q.model_path.empty() && std::filesystem::path(q.model_path).lexically_normal() == std::filesystem::path(q.data_path).lexically_normal())
         fail(cli_codes::option_conflict, "--model and --data name the same file '" + q.model_path + "'");
+    if (q.search_seconds > 0) {
+        for (const char* chosen : {"--hidden", "--learning-rate"})
+            if (std::find(seen.begin(), seen.end(), chosen) != seen.end())
+                fail(cli_codes::option_conflict, std::string("--search chooses the hidden layers and the learning rate; it cannot be combined with ") + chosen);
+        if (q.folds > 0)
+            fail(cli_codes::option_conflict, "--search chooses the settings of one holdout run; it cannot be combined with --folds " + std::to_string(q.folds));
+    }
     if (q.folds > 0 && !q.model_path.empty())
         fail(cli_codes::option_conflict,
              "--model saves the model of one holdout run; cross-validation (--folds " + std::to_string(q.folds) +
@@ -788,6 +805,59 @@ std::optional<tenon::evaluation> last_reading_scores(const tenon::table& t, cons
     return e;
 }
 
+// "64,32"
+std::string widths_text(const std::vector<std::size_t>& hidden) {
+    std::string text;
+    for (std::size_t k = 0; k < hidden.size(); ++k) text += (k ? "," : "") + std::to_string(hidden[k]);
+    return text;
+}
+
+// The one line --search prints: what it tried and what it chose.
+std::string search_summary(const tenon::settings_search_result& r) {
+    const tenon::search_candidate& c = r.candidates[r.chosen_index];
+    const std::string tried = "search: " + std::to_string(r.candidates.size()) + (r.candidates.size() == 1 ? " candidate" : " candidates") +
+        " in " + duration_text(r.seconds);
+    const std::string settings = "hidden " + widths_text(c.hidden) + ", learning rate " + tenon::number_to_text(c.learning_rate) +
+        ", weight decay " + tenon::number_to_text(c.weight_decay);
+    if (c.folds_completed == r.folds && !c.cut_short) {
+        std::string line = tried + ", chose " + settings + "; mean fold loss " + fixed(c.mean_fold_loss, 4);
+        if (r.lowest_index != r.chosen_index)
+            line += " (the lowest, " + fixed(r.candidates[r.lowest_index].mean_fold_loss, 4) + ", is within the folds' noise of it)";
+        return line;
+    }
+    return tried + ", none completed its " + std::to_string(r.folds) + " folds within the budget; kept " + settings;
+}
+
+void write_search_settings(json_writer& j, const tenon::search_candidate& c) {
+    j.open_array("hidden");
+    for (auto w : c.hidden) j.count(nullptr, w);
+    j.close_array();
+    j.number("learning_rate", c.learning_rate).number("weight_decay", c.weight_decay).number("mean_fold_loss", c.mean_fold_loss);
+}
+
+// The "search" object of the metrics.
+void write_search(json_writer& j, const tenon::settings_search_result& r) {
+    j.open_object("search");
+    j.number("seconds", r.seconds).number("budget_seconds", r.budget_seconds).count("folds", r.folds);
+    j.count("candidates_tried", r.candidates.size()).count("candidates_listed", r.candidates_listed);
+    j.count("lowest", r.lowest_index).count("chosen_index", r.chosen_index);
+    j.open_object("chosen");
+    write_search_settings(j, r.candidates[r.chosen_index]);
+    j.close_object();
+    j.open_array("candidates");
+    for (const auto& c : r.candidates) {
+        j.open_object();
+        write_search_settings(j, c);
+        j.open_array("fold_losses");
+        for (double l : c.fold_losses) j.number(nullptr, l);
+        j.close_array();
+        j.count("folds_completed", c.folds_completed).boolean("cut_short", c.cut_short).number("seconds", c.seconds);
+        j.close_object();
+    }
+    j.close_array();
+    j.close_object();
+}
+
 // Holdout run.
 int train_holdout(const tenon::table& t, const train_request& q, training_setup& s, std::ostream& out, const cli_environment& env,
                   pending_output& metrics_file, pending_output& report_file, pending_output& model_probe) {
@@ -802,9 +872,22 @@ int train_holdout(const tenon::table& t, const train_request& q, training_setup&
         const tenon::scaling ts = s.preparation.measure(t, split.train).target_scaling();
         metric_scale = std::abs(ts.inverse(1.0) - ts.inverse(0.0));
     }
+    // --search: settings chosen by k-fold cross-validation on the training rows alone.
+    std::optional<tenon::settings_search_result> search;
+    if (q.search_seconds > 0) {
+        tenon::model_settings start = make_settings(q);
+        start.clock = env.clock;
+        search = tenon::search_settings<float>(t, s.preparation, split.train, start, q.search_seconds);
+        if (!q.quiet) out << search_summary(*search) << "\n";
+    }
     progress_printer progress(out, env.terminal, q.quiet, q.epochs, env.clock);
     progress.start(0, 0, s.classify, metric_scale);
     tenon::model_settings settings = make_settings(q);
+    if (search) {
+        settings.hidden = search->chosen.hidden;
+        settings.learning_rate = search->chosen.learning_rate;
+        settings.weight_decay = search->chosen.weight_decay;
+    }
     settings.team = env.team;
     settings.on_epoch = [&](const tenon::epoch_summary& e) {
         progress.on_epoch(e);
@@ -898,6 +981,10 @@ int train_holdout(const tenon::table& t, const train_request& q, training_setup&
             j.null("last_reading");
         }
         j.text("shipped", model.kept_baseline ? "baseline" : "network");
+        if (search)
+            write_search(j, *search);
+        else
+            j.null("search");
         if (calibration)
             write_calibration(j, "calibration", *calibration);
         else
@@ -937,6 +1024,10 @@ int train_holdout(const tenon::table& t, const train_request& q, training_setup&
         if (calibration) {
             file.calibration = calibration;
             add_calibration_to_metadata(*file.metadata, calibrated);
+        }
+        if (search) {
+            file.metadata->settings.emplace_back("search_seconds", tenon::number_to_text(q.search_seconds));
+            file.metadata->settings.emplace_back("weight_decay", tenon::number_to_text(settings.weight_decay));
         }
         model_probe.write(tenon::model_file_to_bytes(file));
     }
@@ -1090,6 +1181,8 @@ int run_train(const std::vector<std::string>& args, std::ostream& out, std::ostr
     std::exception_ptr failure;
     try {
         q = parse_train_request(args);
+        if (env.team && q.search_seconds > 0)
+            fail(cli_codes::option_conflict, "--search searches in one process; it cannot run under mpirun (search first, then train with its choice)");
         if (env.team && env.team->member_index() != 0) {  // data-parallel: member 0 alone reports and writes
             q.quiet = true;
             q.metrics_path.clear();

@@ -55,6 +55,7 @@
 #include "tenon/train/calibration.hpp"
 #include "tenon/train/metrics.hpp"
 #include "tenon/train/report_svg.hpp"
+#include "tenon/train/search.hpp"
 #include "tenon/train/trainer.hpp"
 #include "tenon/train/workflow.hpp"
 

@@ -81,6 +81,25 @@ std::unique_ptr<update_rule<T>> make_update_rule(update_kind kind) {
     raise(codes::train_option, "make_update_rule: unknown update rule");
 }
 
+/// The update rule with decoupled weight decay `weight_decay`
+/// (model_settings::weight_decay): adam and adamw take it as their
+/// decoupled_weight_decay (AdamW); 0 leaves the rule as make_update_rule(kind)
+/// makes it (adamw keeps its own 0.01). The other rules have no decoupled
+/// decay and refuse a positive value.
+template <class T>
+std::unique_ptr<update_rule<T>> make_update_rule(update_kind kind, double weight_decay) {
+    if (!(weight_decay >= 0.0 && std::isfinite(weight_decay)))
+        raise(codes::train_option, "weight decay " + number_to_text(weight_decay) + ": must be a finite number, at least 0");
+    if (weight_decay == 0.0) return make_update_rule<T>(kind);
+    if (kind != update_kind::adam && kind != update_kind::adamw) {
+        raise(codes::train_option, "weight decay " + number_to_text(weight_decay) + " needs the adam or adamw update rule; " + to_string(kind) +
+                                       " has no decoupled weight decay");
+    }
+    adam_options<T> a;
+    a.decoupled_weight_decay = static_cast<T>(weight_decay);
+    return std::make_unique<adam<T>>(a);
+}
+
 /// Everything that shapes a model and its training besides the data.
 /// The host's controls (time budget, clock, cancel flag, observers) are
 /// the run_controls part, handed to the trainer whole.
@@ -94,6 +113,12 @@ struct model_settings : run_controls {
     loss_kind loss = loss_kind::l2;
     update_kind update = update_kind::adam;
     double learning_rate = 1e-3;
+    /// Decoupled weight decay lambda (Loshchilov & Hutter 2019, "Decoupled
+    /// Weight Decay Regularization"): each step also shrinks every weight by
+    /// learning_rate x lambda, outside Adam's moments (AdamW). Needs update
+    /// adam or adamw; 0 (the default) adds none. The baseline is fitted
+    /// without it.
+    double weight_decay = 0.0;
     /// A linear path from the inputs to the outputs beside the hidden layers
     /// (layers/network.hpp, linear_bypass). Unset: on for regression, where
     /// it lets the model extrapolate like a linear one (e.g. a seasonal input
@@ -287,7 +312,7 @@ void train_members(fitted_model<T>& model, const training_options<T>& o, const m
         if (side_by_side) jobs[k].options.workers = nullptr;
     }
     const auto run_one = [&](job& j) {
-        auto rule = make_update_rule<T>(s.update);
+        auto rule = make_update_rule<T>(s.update, s.weight_decay);
         constant_rate schedule(s.learning_rate);
         trainer<T> tr(*j.net, *rule, schedule, std::move(j.options));
         j.outcome = tr.run(train, validation);
