@@ -914,3 +914,30 @@ TEST_CASE("the gate scores an ensemble on its members' mean, and the candidate's
     CHECK(r.report.candidate_coverage <= 1.0);
     CHECK(r.report.candidate_width > 0.0);
 }
+
+TEST_CASE("under a time budget every member of an ensemble gets its share and the call stays within the budget") {
+    const auto old_rows = retrain_test::pump_rows(200, 62);
+    tenon::model_settings s = deploy_test::small_settings(6);
+    s.ensemble = 3;
+    const auto incumbent = incumbent_of<double>(old_rows, deploy_test::condition_plan(), s);
+    REQUIRE(incumbent.members.size() == 2);
+    const auto new_rows = retrain_test::pump_rows(300, 63);
+    double now = 0.0;
+    tenon::retraining_options o;
+    o.epochs = 1000;
+    o.patience = 0;
+    o.time_budget_seconds = 90.0;
+    o.created_unix_seconds = 1;
+    o.clock = [&now] { return now += 1.0; };  // every reading advances one second
+    const auto r = tenon::retrain_model(incumbent, new_rows, o);
+    CHECK(r.report.stop_reason == "time_budget");
+    CHECK(r.report.steps > 0);
+    CHECK(r.report.seconds >= 90.0);
+    CHECK(r.report.seconds < 100.0);
+    // The first member had a third of the budget, not all of it, so the others trained too.
+    CHECK(r.report.training_seconds > 60.0);  // all three members' training, by the injected clock
+    for (std::size_t k = 0; k < 3; ++k) {
+        CAPTURE(k);
+        CHECK_FALSE(same_weights(member_weights(r.candidate, k), member_weights(incumbent, k)));
+    }
+}

@@ -163,7 +163,9 @@ struct retraining_options : run_controls {
     /// Threads for training (the calling thread included): with more than
     /// 1, retrain_model starts a thread_pool of this size for the call; an
     /// ensemble's members then train side by side, each on one thread, else
-    /// the matrix products are split. Results do not depend on it.
+    /// the matrix products are split. Results do not depend on it (unless a
+    /// time budget runs out: members one after the other get an even share
+    /// of what is left each, members side by side all of it).
     std::size_t threads = 1;
     /// A host's own executor (core/parallel.hpp); when given, `threads` is
     /// ignored and no thread is started.
@@ -265,7 +267,8 @@ struct retraining_report {
     std::size_t validation_rows = 0;      // rows of the mix used for early stopping
     std::uint64_t replay_rows_after = 0;  // the candidate's replay sample
     std::uint64_t replay_rows_seen_after = 0;
-    // training (epochs, steps and stop reason: of the first member)
+    // training (epochs, steps and stop reason: of the first member;
+    // training_seconds: of all members)
     std::size_t members = 1;  // networks of the incumbent and of the candidate
     std::size_t epochs_run = 0;
     std::uint64_t steps = 0;
@@ -622,9 +625,10 @@ std::pair<double, double> coverage_of(std::vector<network<T>>& nets, const measu
 // its own weights with the seed member_seed(k); net keeps the host's
 // observers, the other members train without them. With an executor of
 // more than one thread and more than one network, the networks train side
-// by side, each on one thread (as fit_model's train_members); otherwise
-// one after the other, each later one with what `remaining` says is left
-// of the budget. Returns the outcomes in member order.
+// by side, each on one thread (as fit_model's train_members), each with
+// the whole budget left; otherwise one after the other, each with an even
+// share of what `remaining` says is left of the budget when it starts
+// (the last member's share is all of it). Returns the outcomes in member order.
 template <class T, class Seed, class Remaining>
 std::vector<training_outcome> continue_members(std::vector<network<T>>& nets, const training_options<T>& o, update_kind update, double learning_rate,
                                                const Seed& member_seed, const Remaining& remaining, const supervised_rows<T>& train,
@@ -677,14 +681,14 @@ std::vector<training_outcome> continue_members(std::vector<network<T>>& nets, co
     } else {
         for (std::size_t k = 0; k < count; ++k) {
             job& j = jobs[k];
-            if (k > 0 && o.time_budget_seconds > 0.0) {
-                const double left = remaining();
+            if (o.time_budget_seconds > 0.0) {
+                const double left = k == 0 ? o.time_budget_seconds : remaining();
                 if (left <= 0.0) {  // nothing left for this member: it keeps the incumbent's weights
                     j.outcome.reason = stop_reason::time_budget;
                     j.outcome.message = "the time budget was spent before this member's training began";
                     continue;
                 }
-                j.options.time_budget_seconds = left;
+                j.options.time_budget_seconds = left / static_cast<double>(count - k);
             }
             run_one(j);
         }
@@ -924,7 +928,9 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
         // As fit_model seeds its members (the golden-ratio increment of SplitMix64).
         const auto member_seed = [&](std::size_t k) { return training_seed + static_cast<std::uint64_t>(k) * 0x9E3779B97F4A7C15ull; };
         const auto left = [&] { return options.time_budget_seconds - (clock() - start); };
+        const double training_start = clock();
         outcome = detail::continue_members(candidate_nets, o, update, learning_rate, member_seed, left, train, validation).front();
+        if (candidate_nets.size() > 1) outcome.seconds = clock() - training_start;  // all members' training
     } else if (options.epochs > 0) {
         outcome.reason = stop_reason::time_budget;
         outcome.message = "the time budget of " + std::to_string(options.time_budget_seconds) + " s was spent before training began";
