@@ -622,7 +622,7 @@ std::pair<double, double> coverage_of(std::vector<network<T>>& nets, const measu
 }
 
 // Continues training every network of `nets` on the same rows, each from
-// its own weights with the seed member_seed(k); net keeps the host's
+// its own weights with the seed member_seed(k); the first keeps the host's
 // observers, the other members train without them. With an executor of
 // more than one thread and more than one network, the networks train side
 // by side, each on one thread (as fit_model's train_members), each with
