@@ -197,6 +197,48 @@ TEST_CASE("retrain on drifted rows promotes a candidate that predicts new rows b
     CHECK(contains(inspect.out, "gate_candidate_score"));
 }
 
+TEST_CASE("retrain continues every network of an ensemble and writes them all; --threads 2 gives the same weights") {
+    scratch_dir dir("ensemble");
+    const auto data = dir.write("history.csv", press_csv(600, 11, false));
+    const auto model = dir.file("press.tnm");
+    REQUIRE(run({"train", "--data", data, "--target", "amps", "--epochs", "40", "--seed", "3", "--ensemble", "3", "--model", model, "--quiet"})
+                .status == 0);
+    const tenon::model_file<float> incumbent = tenon::load_model_file<float>(model);
+    REQUIRE(incumbent.members.size() == 2);
+    const auto recent = dir.write("recent.csv", press_csv(400, 12, true));
+    const auto one = dir.file("one.tnm"), two = dir.file("two.tnm");
+    const auto r1 = run({"retrain", "--model", model, "--data", recent, "--out", one, "--seed", "5", "--json", dir.file("one.json")});
+    const auto r2 = run({"retrain", "--model", model, "--data", recent, "--out", two, "--seed", "5", "--threads", "2", "--json", dir.file("two.json")});
+    REQUIRE(r1.status == tenon_cli::exit_success);
+    REQUIRE(r2.status == tenon_cli::exit_success);
+    CHECK(contains(r1.out, "; all 3 networks of the ensemble continued (epochs and steps: the first's)\n"));
+    const auto j1 = parse_json(read_file(dir.file("one.json"))), j2 = parse_json(read_file(dir.file("two.json")));
+    CHECK(number_at(j1, "training.members") == 3);
+    CHECK(at(j1, "gate.candidate_score") == at(j2, "gate.candidate_score"));
+    CHECK(at(j1, "gate.incumbent_score") == at(j2, "gate.incumbent_score"));
+    const tenon::model_file<float> a = tenon::load_model_file<float>(one), b = tenon::load_model_file<float>(two);
+    REQUIRE(a.members.size() == 2);
+    REQUIRE(b.members.size() == 2);
+    const auto same = [](const std::vector<tenon::named_matrix<float>>& x, const std::vector<tenon::named_matrix<float>>& y) {
+        if (x.size() != y.size()) return false;
+        for (std::size_t i = 0; i < x.size(); ++i)
+            if (x[i].name != y[i].name || !std::equal(x[i].values.data(), x[i].values.data() + x[i].values.size(), y[i].values.data(),
+                                                      y[i].values.data() + y[i].values.size()))
+                return false;
+        return true;
+    };
+    for (std::size_t k = 0; k < 3; ++k) {
+        CAPTURE(k);
+        const auto& mine = k == 0 ? a.weights : a.members[k - 1];
+        CHECK(same(mine, k == 0 ? b.weights : b.members[k - 1]));                      // 1 and 2 threads agree
+        CHECK_FALSE(same(mine, k == 0 ? incumbent.weights : incumbent.members[k - 1]));  // every member trained
+    }
+    // The promoted ensemble serves: tenon infer averages its three networks.
+    CHECK(infer_rmse(dir, one, recent) < infer_rmse(dir, model, recent));
+    check_failure(dir, {"retrain", "--model", model, "--data", recent, "--out", dir.file("x.tnm"), "--threads", "0"},
+                  "tenon retrain: error: [cli.option.value] --threads '0': must be at least 1\n");
+}
+
 TEST_CASE("retrain on rows like the training rows with a large margin keeps the incumbent: exit 4, no model written") {
     press_model p("kept");
     const auto same = p.dir.write("same.csv", press_csv(400, 14, false));
@@ -549,7 +591,7 @@ TEST_CASE("retrain and drift explain every option with its default and their exi
     const auto retrain = run({"retrain", "--help"});
     CHECK(retrain.status == 0);
     for (const char* text : {"  --model ", "  --data ", "  --out ", "  --margin ", "  --budget ", "  --metric ", "  --epochs ", "  --seed ",
-                             "  --holdout-share ", "  --min-holdout ", "  --holdout ", "  --rollback ", "  --json ", "  --quiet ",
+                             "  --threads ", "  --holdout-share ", "  --min-holdout ", "  --holdout ", "  --rollback ", "  --json ", "  --quiet ",
                              "(default 0: any", "(default 0:\n", "(default auto", "(default 30)", "(default 1)", "(default 0.2)",
                              "(default 30);", "(default\n                         random)", "(default MODEL.tnm.previous)",
                              "0 the candidate was promoted", "4 the incumbent was kept", "2 bad command line", "3 an output file"}) {

@@ -8,7 +8,9 @@
 
 #include <algorithm>
 #include <cmath>
+#include <cstdint>
 #include <cstdio>
+#include <cstring>
 #include <fstream>
 #include <functional>
 #include <set>
@@ -91,16 +93,40 @@ tenon::table csv_table(const std::string& text) {
     return tenon::read_csv(in, {}, "new.csv");
 }
 
-// RMSE in kW of a power model on all rows of `t`.
+// A model file's outputs on prepared rows, computed here apart from the
+// library's averaging: one network's values or class probabilities, or a
+// seed ensemble's mean of them (summed in double, member by member).
+template <class T>
+std::vector<std::vector<double>> file_outputs(const tenon::model_file<T>& file, const tenon::matrix<T>& features) {
+    const bool classify = file.plan->target_type() == tenon::target_kind::classification;
+    std::vector<std::vector<double>> mean;
+    const std::size_t members = 1 + file.members.size();
+    for (std::size_t k = 0; k < members; ++k) {
+        auto net = tenon::rebuild_member(file, k);
+        const auto out = tenon::network_outputs(net, features);
+        const std::size_t rows = out.shape()[0], cols = out.shape()[1];
+        mean.resize(rows, std::vector<double>(cols, 0.0));
+        for (std::size_t i = 0; i < rows; ++i) {
+            double top = static_cast<double>(out(i, 0)), total = 0.0;
+            for (std::size_t j = 1; j < cols; ++j) top = std::max(top, static_cast<double>(out(i, j)));
+            for (std::size_t j = 0; j < cols; ++j) total += std::exp(static_cast<double>(out(i, j)) - top);
+            for (std::size_t j = 0; j < cols; ++j)
+                mean[i][j] += (classify ? std::exp(static_cast<double>(out(i, j)) - top) / total : static_cast<double>(out(i, j))) /
+                              static_cast<double>(members);
+        }
+    }
+    return mean;
+}
+
+// RMSE in kW of a power model (all its members) on all rows of `t`.
 template <class T>
 double power_rmse(const tenon::model_file<T>& file, const tenon::table& t) {
-    auto net = tenon::rebuild_network(file);
     const auto prepared = file.plan->template apply<T>(t, retrain_test::all_rows(t));
-    const auto out = tenon::network_outputs(net, prepared.features);
+    const auto out = file_outputs(file, prepared.features);
     std::vector<double> truth, predicted;
     for (std::size_t i = 0; i < prepared.rows.size(); ++i) {
         truth.push_back(file.plan->restore_target(static_cast<double>(prepared.targets(i, 0))));
-        predicted.push_back(file.plan->restore_target(static_cast<double>(out(i, 0))));
+        predicted.push_back(file.plan->restore_target(out[i][0]));
     }
     return tenon::score_values(truth, predicted).rmse;
 }
@@ -110,16 +136,15 @@ double power_rmse(const tenon::model_file<T>& file, const tenon::table& t) {
 // class, the best any constant guess can do on these rows.
 template <class T>
 std::pair<double, double> accuracy_and_majority_share(const tenon::model_file<T>& file, const tenon::table& t) {
-    auto net = tenon::rebuild_network(file);
     const auto prepared = file.plan->template apply<T>(t, retrain_test::all_rows(t));
-    const auto out = tenon::network_outputs(net, prepared.features);
-    const std::size_t n = prepared.classes.size(), k = out.shape()[1];
+    const auto out = file_outputs(file, prepared.features);
+    const std::size_t n = prepared.classes.size(), k = out.front().size();
     std::vector<std::size_t> counts(k, 0);
     std::size_t right = 0;
     for (std::size_t i = 0; i < n; ++i) {
         std::size_t best = 0;
         for (std::size_t j = 1; j < k; ++j)
-            if (out(i, j) > out(i, best)) best = j;
+            if (out[i][j] > out[i][best]) best = j;
         right += best == prepared.classes[i] ? 1 : 0;
         ++counts.at(prepared.classes[i]);
     }
@@ -736,4 +761,183 @@ TEST_CASE("retraining recalibrates the candidate on its validation rows and repo
     CHECK(std::isnan(v.report.candidate_coverage));
     o.coverage = 1.0;
     CHECK_THROWS_WITH_AS(tenon::retrain_model(incumbent, new_rows, o), doctest::Contains("[deploy.retrain.option]"), tenon::error);
+}
+
+// --- seed ensembles (issue 19) ---------------------------------------------------------------
+
+namespace {
+
+// The weights of member k of a model file (0: the network of WGHT).
+template <class T>
+const std::vector<tenon::named_matrix<T>>& member_weights(const tenon::model_file<T>& file, std::size_t k) {
+    return k == 0 ? file.weights : file.members.at(k - 1);
+}
+
+// The file with member k alone as its one network.
+template <class T>
+tenon::model_file<T> member_alone(const tenon::model_file<T>& file, std::size_t k) {
+    tenon::model_file<T> one = file;
+    one.weights = member_weights(file, k);
+    one.members.clear();
+    return one;
+}
+
+template <class T>
+bool same_weights(const std::vector<tenon::named_matrix<T>>& a, const std::vector<tenon::named_matrix<T>>& b) {
+    if (a.size() != b.size()) return false;
+    for (std::size_t i = 0; i < a.size(); ++i) {
+        if (a[i].name != b[i].name || a[i].values.size() != b[i].values.size()) return false;
+        if (std::memcmp(a[i].values.data(), b[i].values.data(), a[i].values.size() * sizeof(T)) != 0) return false;
+    }
+    return true;
+}
+
+std::string setting_of(const tenon::training_metadata& m, const std::string& key) {
+    for (const auto& kv : m.settings)
+        if (kv.first == key) return kv.second;
+    return "(none)";
+}
+
+// RMSE in kW of a power model (all its members, averaged here) on `rows` of `t`.
+template <class T>
+double power_rmse_on(const tenon::model_file<T>& file, const tenon::table& t, const std::vector<std::size_t>& rows) {
+    const auto prepared = file.plan->template apply<T>(t, rows);
+    const auto out = file_outputs(file, prepared.features);
+    std::vector<double> truth, predicted;
+    for (std::size_t i = 0; i < prepared.rows.size(); ++i) {
+        truth.push_back(file.plan->restore_target(static_cast<double>(prepared.targets(i, 0))));
+        predicted.push_back(file.plan->restore_target(out[i][0]));
+    }
+    return tenon::score_values(truth, predicted).rmse;
+}
+
+}  // namespace
+
+TEST_CASE("retraining a seed ensemble continues every member, each as if retrained alone, with the same bits on 1 and 2 threads") {
+    const auto old_rows = retrain_test::pump_rows(300, 60);
+    tenon::model_settings s = deploy_test::small_settings(5);
+    s.ensemble = 3;
+    const auto incumbent = incumbent_of<float>(old_rows, deploy_test::condition_plan(), s);
+    REQUIRE(incumbent.members.size() == 2);
+    const auto new_rows = retrain_test::pump_rows(400, 61);
+    tenon::retraining_options o;
+    o.epochs = 6;
+    o.seed = 3;
+    o.created_unix_seconds = 1;
+    const auto r = tenon::retrain_model(incumbent, new_rows, o);
+    CHECK(r.report.members == 3);
+    CHECK(tenon::to_json(r.report).find("\"training\": {\"members\": 3, ") != std::string::npos);
+    REQUIRE(r.candidate.members.size() == 2);  // an ensemble of the same size
+    REQUIRE(r.candidate.metadata);
+    CHECK(setting_of(*r.candidate.metadata, "ensemble") == "3");
+    // Every member trained, each to weights of its own.
+    for (std::size_t k = 0; k < 3; ++k) {
+        CAPTURE(k);
+        CHECK_FALSE(same_weights(member_weights(r.candidate, k), member_weights(incumbent, k)));
+        CHECK_FALSE(same_weights(member_weights(r.candidate, k), member_weights(r.candidate, (k + 1) % 3)));
+    }
+    // The written file holds all three.
+    const auto reloaded = tenon::model_file_from_bytes<float>(tenon::model_file_to_bytes(r.candidate));
+    REQUIRE(reloaded.members.size() == 2);
+    CHECK(same_weights(reloaded.members[1], r.candidate.members[1]));
+
+    // Member k is what retraining it alone gives on the same rows (the same
+    // `seed`) with its own training seed, derived as fit_model derives it.
+    for (std::size_t k = 0; k < 3; ++k) {
+        CAPTURE(k);
+        tenon::retraining_options alone = o;
+        alone.training_seed = o.seed + static_cast<std::uint64_t>(k) * 0x9E3779B97F4A7C15ull;
+        const auto a = tenon::retrain_model(member_alone(incumbent, k), new_rows, alone);
+        CHECK(a.report.members == 1);
+        CHECK(a.candidate.members.empty());
+        CHECK(a.report.training_rows == r.report.training_rows);
+        CHECK(same_weights(a.candidate.weights, member_weights(r.candidate, k)));
+    }
+    // Without training_seed the second member would train with member 0's seed: other weights.
+    const auto unseeded = tenon::retrain_model(member_alone(incumbent, 1), new_rows, o);
+    CHECK_FALSE(same_weights(unseeded.candidate.weights, member_weights(r.candidate, 1)));
+
+    // On two threads the members train side by side: the same bits.
+    o.threads = 2;
+    const auto two = tenon::retrain_model(incumbent, new_rows, o);
+    for (std::size_t k = 0; k < 3; ++k) CHECK(same_weights(member_weights(two.candidate, k), member_weights(r.candidate, k)));
+    CHECK(deploy_test::same_bits(two.report.candidate_score, r.report.candidate_score));
+    CHECK(two.report.steps == r.report.steps);
+    REQUIRE(two.candidate.calibration);
+    REQUIRE(r.candidate.calibration);
+    CHECK(deploy_test::same_bits(two.candidate.calibration->classes->temperature, r.candidate.calibration->classes->temperature));
+    CHECK(two.report.promoted == r.report.promoted);
+    o.threads = 0;
+    CHECK(code_of([&] { tenon::retrain_model(incumbent, new_rows, o); }) == "deploy.retrain.option");
+}
+
+TEST_CASE("the gate scores an ensemble on its members' mean, and the candidate's band scales with their spread") {
+    const auto old_rows = retrain_test::pump_rows(300, 70);
+    tenon::model_settings s = deploy_test::small_settings(8);
+    s.ensemble = 3;
+    const auto incumbent = incumbent_of<float>(old_rows, deploy_test::power_plan(), s);
+    REQUIRE(incumbent.members.size() == 2);
+    const auto new_rows = retrain_test::pump_rows(300, 71, retrain_test::drifted());
+    tenon::retraining_options o;
+    o.epochs = 8;
+    o.seed = 4;
+    o.holdout = tenon::holdout_selection::latest;
+    o.created_unix_seconds = 1;
+    const auto r = tenon::retrain_model(incumbent, new_rows, o);
+    REQUIRE(r.report.holdout_rows == 60);  // 20% of 300: the last 60 rows
+    const auto holdout = range(240, 300);
+    const double incumbent_mean = power_rmse_on(incumbent, new_rows, holdout), candidate_mean = power_rmse_on(r.candidate, new_rows, holdout);
+    const double incumbent_first = power_rmse_on(member_alone(incumbent, 0), new_rows, holdout);
+    const double candidate_first = power_rmse_on(member_alone(r.candidate, 0), new_rows, holdout);
+    MESSAGE("holdout RMSE, mean of 3 (member 0 alone): incumbent " << incumbent_mean << " (" << incumbent_first << "), candidate "
+                                                                  << candidate_mean << " (" << candidate_first << ")");
+    // The reported scores are the mean's (float outputs averaged in another
+    // order here: a relative tolerance of 1e-5), not member 0's.
+    CHECK(r.report.incumbent_score == doctest::Approx(incumbent_mean).epsilon(1e-5));
+    CHECK(r.report.candidate_score == doctest::Approx(candidate_mean).epsilon(1e-5));
+    CHECK(std::abs(incumbent_first - incumbent_mean) > 1e-3 * incumbent_mean);
+    CHECK(std::abs(candidate_first - candidate_mean) > 1e-3 * candidate_mean);
+    CHECK(r.report.improvement == doctest::Approx(incumbent_mean - candidate_mean).epsilon(1e-5));
+
+    // Calibrated as calibrate_model calibrates an ensemble: a band in its
+    // normalized form, scaled by the members' spread; one network has none.
+    REQUIRE(r.candidate.calibration);
+    REQUIRE(r.candidate.calibration->interval);
+    CHECK(r.candidate.calibration->interval->has_spread);
+    CHECK(r.candidate.calibration->interval->rows == r.report.validation_rows);
+    const auto one = tenon::retrain_model(member_alone(incumbent, 0), new_rows, o);
+    REQUIRE(one.candidate.calibration);
+    CHECK_FALSE(one.candidate.calibration->interval->has_spread);
+    // The ensemble's report gives its bands' coverage on the holdout: the
+    // library's score of the stored calibration there.
+    CHECK(r.report.candidate_coverage >= 0.0);
+    CHECK(r.report.candidate_coverage <= 1.0);
+    CHECK(r.report.candidate_width > 0.0);
+}
+
+TEST_CASE("under a time budget every member of an ensemble gets its share and the call stays within the budget") {
+    const auto old_rows = retrain_test::pump_rows(200, 62);
+    tenon::model_settings s = deploy_test::small_settings(6);
+    s.ensemble = 3;
+    const auto incumbent = incumbent_of<double>(old_rows, deploy_test::condition_plan(), s);
+    REQUIRE(incumbent.members.size() == 2);
+    const auto new_rows = retrain_test::pump_rows(300, 63);
+    double now = 0.0;
+    tenon::retraining_options o;
+    o.epochs = 1000;
+    o.patience = 0;
+    o.time_budget_seconds = 90.0;
+    o.created_unix_seconds = 1;
+    o.clock = [&now] { return now += 1.0; };  // every reading advances one second
+    const auto r = tenon::retrain_model(incumbent, new_rows, o);
+    CHECK(r.report.stop_reason == "time_budget");
+    CHECK(r.report.steps > 0);
+    CHECK(r.report.seconds >= 90.0);
+    CHECK(r.report.seconds < 100.0);
+    // The first member had a third of the budget, not all of it, so the others trained too.
+    CHECK(r.report.training_seconds > 60.0);  // all three members' training, by the injected clock
+    for (std::size_t k = 0; k < 3; ++k) {
+        CAPTURE(k);
+        CHECK_FALSE(same_weights(member_weights(r.candidate, k), member_weights(incumbent, k)));
+    }
 }

@@ -26,6 +26,7 @@ struct retrain_request {
     double budget_seconds = 0.0;  // 0 = no limit
     std::size_t epochs = 30;
     std::uint64_t seed = 1;
+    std::size_t threads = 1;
     double holdout_share = 0.2;
     std::size_t min_holdout = 30;
     tenon::holdout_selection holdout = tenon::holdout_selection::random;
@@ -94,6 +95,13 @@ const option_entry<retrain_request> retrain_options[] = {
      "seeds the holdout, the validation rows, the batch\n"
      "order and the replay sample (default 1).",
      [](retrain_request& q, const std::string& v) { q.seed = parse_seed(v); }},
+    {"--threads", "N",
+     "threads for training (N >= 1, default 1). A seed\n"
+     "ensemble's networks are all continued, each from its\n"
+     "own weights; with N > 1 they train side by side, one\n"
+     "network a thread. The results are the same bits for\n"
+     "every N.",
+     [](retrain_request& q, const std::string& v) { q.threads = parse_count("--threads", v, 1); }},
     {"--holdout-share", "X",
      "share of the usable new rows held out for the gate,\n"
      "never trained on (default 0.2).",
@@ -123,9 +131,9 @@ const option_entry<retrain_request> retrain_options[] = {
     {"--json", "OUT.json",
      "write the retraining report as JSON (decision, reason,\n"
      "gate metric, margin, both scores, improvement, both\n"
-     "models' coverage on the holdout, row counts, epochs,\n"
-     "stop reason, seconds, the file written); '-' prints\n"
-     "it instead of the text summary.\n"
+     "models' coverage on the holdout, row counts,\n"
+     "networks, epochs, stop reason, seconds, the file\n"
+     "written); '-' prints it instead of the text summary.\n"
      "Written whatever the decision.",
      [](retrain_request& q, const std::string& v) { q.json_path = file_name("--json", v); }},
     {"--quiet", nullptr, "print nothing but errors.", [](retrain_request& q, const std::string&) { q.quiet = true; }},
@@ -244,7 +252,9 @@ std::string retrain_text(const tenon::retraining_report& r, const retrain_reques
     s += line("rows", rows);
     s += line("training",
               std::to_string(r.epochs_run) + " epochs, " + std::to_string(r.steps) + " steps, stopped: " + r.stop_reason +
-                  (r.stop_message.empty() ? std::string() : " (" + r.stop_message + ")") + "; " + elapsed_text(r.training_seconds));
+                  (r.stop_message.empty() ? std::string() : " (" + r.stop_message + ")") + "; " + elapsed_text(r.training_seconds) +
+                  (r.members > 1 ? "; all " + std::to_string(r.members) + " networks of the ensemble continued (epochs and steps: the first's)"
+                                 : std::string()));
     s +=
         line("time",
              elapsed_text(r.seconds) + " in all, budget " + (r.time_budget_seconds > 0 ? duration_text(r.time_budget_seconds) : std::string("none")));
@@ -306,6 +316,7 @@ int run_retrain(const std::vector<std::string>& args, std::ostream& out, std::os
     options.holdout = q.holdout;
     options.epochs = q.epochs;
     options.seed = q.seed;
+    options.threads = q.threads;
     options.time_budget_seconds = q.budget_seconds;
     if (env.clock) options.clock = env.clock;
     std::vector<std::uint8_t> candidate;

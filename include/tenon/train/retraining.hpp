@@ -21,9 +21,17 @@
 //     `validation_share` of that mix, within a wall-clock budget read from
 //     an injectable clock (the budget covers the whole call: the trainer
 //     gets what preparation left of it). The update rule starts afresh.
+//     A seed ensemble (a file with member sections) is continued member by
+//     member, each from its own weights and with its own seed, derived as
+//     fit_model derives them (member k: training seed + k x 0x9E37...);
+//     with more than one thread the members train side by side, with the
+//     same result for any thread count. The candidate is an ensemble of
+//     the same size.
 //  4. The gate scores incumbent and candidate on the holdout with one
 //     metric: accuracy or log loss for classification, RMSE in the
-//     target's original units for regression. The candidate is promoted
+//     target's original units for regression; an ensemble is scored on its
+//     members' mean (class probabilities or values), as the predictor
+//     computes it. The candidate is promoted
 //     only if it is strictly better and better by at least `margin`, in
 //     the metric's own units: accuracy(candidate) - accuracy(incumbent) >=
 //     margin, or loss(incumbent) - loss(candidate) >= margin for log loss and
@@ -31,7 +39,9 @@
 //     never wins.
 //  4b. Calibration (train/calibration.hpp): the candidate is calibrated
 //     afresh on the mix's validation rows (new rows it did not train on),
-//     at the incumbent's nominal coverage unless `coverage` says otherwise;
+//     at the incumbent's nominal coverage unless `coverage` says otherwise
+//     (an ensemble as calibrate_model calibrates one: the temperature of its
+//     mean probabilities, or a band scaled by its members' spread);
 //     the report gives the coverage of both models' bands or class sets on
 //     the gate's holdout, which neither calibration saw (the holdout is not
 //     used to calibrate: coverage measured on the rows a band was fitted on
@@ -61,8 +71,10 @@
 #include <cmath>
 #include <cstddef>
 #include <cstdint>
+#include <exception>
 #include <functional>
 #include <limits>
+#include <memory>
 #include <optional>
 #include <string>
 #include <utility>
@@ -141,7 +153,23 @@ struct retraining_options : run_controls {
     /// Early stopping on a `validation_share` of the training mix, in [0, 1) (0: none).
     std::size_t patience = 5;
     double validation_share = 0.15;
+    /// Seeds the holdout, the validation rows, the replay sample and, unless
+    /// `training_seed` is given, the batch order.
     std::uint64_t seed = 0;
+    /// Seeds the batch order alone (default `seed`): member k of an
+    /// ensemble trains with training_seed + k x 0x9E3779B97F4A7C15, as
+    /// fit_model seeds its members; the rows chosen stay those of `seed`.
+    std::optional<std::uint64_t> training_seed;
+    /// Threads for training (the calling thread included): with more than
+    /// 1, retrain_model starts a thread_pool of this size for the call; an
+    /// ensemble's members then train side by side, each on one thread, else
+    /// the matrix products are split. Results do not depend on it (unless a
+    /// time budget runs out: members one after the other get an even share
+    /// of what is left each, members side by side all of it).
+    std::size_t threads = 1;
+    /// A host's own executor (core/parallel.hpp); when given, `threads` is
+    /// ignored and no thread is started.
+    executor* workers = nullptr;
     /// Nominal coverage of the candidate's calibration, in (0, 1); default
     /// the incumbent's, else default_coverage.
     std::optional<double> coverage;
@@ -239,7 +267,9 @@ struct retraining_report {
     std::size_t validation_rows = 0;      // rows of the mix used for early stopping
     std::uint64_t replay_rows_after = 0;  // the candidate's replay sample
     std::uint64_t replay_rows_seen_after = 0;
-    // training
+    // training (epochs, steps and stop reason: of the first member;
+    // training_seconds: of all members)
+    std::size_t members = 1;  // networks of the incumbent and of the candidate
     std::size_t epochs_run = 0;
     std::uint64_t steps = 0;
     std::string stop_reason;
@@ -463,6 +493,7 @@ inline void check_retraining_options(const retraining_options& o) {
     if (o.learning_rate && !(*o.learning_rate > 0.0 && std::isfinite(*o.learning_rate)))
         fail("learning_rate must be positive and finite, got " + std::to_string(*o.learning_rate));
     if (!(o.time_budget_seconds >= 0.0)) fail("time_budget_seconds must not be negative, got " + std::to_string(o.time_budget_seconds));
+    if (o.threads == 0) fail("threads must be at least 1");
 }
 
 // The gate's score of a network on prepared holdout rows.
@@ -484,6 +515,90 @@ double gate_score(network<T>& net, const measured_plan& p, const prepared_rows<T
     return score_classes(truth, row_argmax(probabilities), p.class_count()).accuracy;
 }
 
+// A model file's networks: one, or every member of a seed ensemble (the
+// network of WGHT first, then the member sections in order).
+template <class T>
+std::vector<network<T>> networks_of(const model_file<T>& file) {
+    std::vector<network<T>> nets;
+    for (std::size_t k = 0; k <= file.members.size(); ++k) nets.push_back(rebuild_member(file, k));
+    return nets;
+}
+
+// The networks' mean: class probabilities (each network's softmax) or
+// values in prepared units, summed in member order and divided by the
+// count, as fit_model's averaged_outputs and the predictor compute it.
+template <class T>
+matrix<T> mean_outputs(std::vector<network<T>>& nets, const measured_plan& plan, const matrix<T>& features) {
+    const bool classify = plan.target_type() == target_kind::classification;
+    matrix<T> sum = network_outputs(nets.front(), features);
+    if (classify) sum = softmax_rows(sum);
+    if (nets.size() == 1) return sum;
+    for (std::size_t n = 1; n < nets.size(); ++n) {
+        matrix<T> m = network_outputs(nets[n], features);
+        if (classify) m = softmax_rows(m);
+        for (std::size_t k = 0; k < sum.size(); ++k) sum.data()[k] += m.data()[k];
+    }
+    const T count = static_cast<T>(nets.size());
+    for (std::size_t k = 0; k < sum.size(); ++k) sum.data()[k] /= count;
+    return sum;
+}
+
+// What calibration sees of the networks on prepared rows, as
+// calibration.hpp's ensemble_outputs sees a fitted model: one network's
+// logits or values; an ensemble's log mean probabilities, or its mean
+// value and the members' sample standard deviation (n - 1) in the
+// target's units.
+template <class T>
+ensemble_view<T> calibration_view(std::vector<network<T>>& nets, const measured_plan& plan, const prepared_rows<T>& rows) {
+    ensemble_view<T> v;
+    if (nets.size() == 1) {
+        v.outputs = network_outputs(nets.front(), rows.features);
+        return v;
+    }
+    v.outputs = mean_outputs(nets, plan, rows.features);
+    if (plan.target_type() == target_kind::classification) {
+        const T tiny = std::numeric_limits<T>::min();
+        for (std::size_t k = 0; k < v.outputs.size(); ++k) v.outputs.data()[k] = std::log(std::max(v.outputs.data()[k], tiny));
+        return v;
+    }
+    const scaling& ts = plan.target_scaling();
+    const std::size_t n = rows.rows.size(), count = nets.size();
+    std::vector<std::vector<double>> values;
+    for (auto& net : nets) {
+        const matrix<T> out = network_outputs(net, rows.features);
+        values.push_back({});
+        for (std::size_t i = 0; i < n; ++i) values.back().push_back(ts.inverse(static_cast<double>(out.data()[i])));
+    }
+    v.spread.assign(n, 0.0);
+    for (std::size_t i = 0; i < n; ++i) {
+        double mean = 0.0, squares = 0.0;
+        for (const auto& m : values) mean += m[i];
+        mean /= static_cast<double>(count);
+        for (const auto& m : values) squares += (m[i] - mean) * (m[i] - mean);
+        v.spread[i] = std::sqrt(squares / static_cast<double>(count - 1));
+    }
+    v.has_spread = true;
+    return v;
+}
+
+// The gate's score of one network or a seed ensemble (on its mean).
+template <class T>
+double gate_score(std::vector<network<T>>& nets, const measured_plan& p, const prepared_rows<T>& rows, gate_metric metric) {
+    const matrix<T> out = mean_outputs(nets, p, rows.features);  // probabilities or prepared values
+    if (metric == gate_metric::rmse) {
+        const scaling& ts = p.target_scaling();
+        std::vector<double> truth(rows.rows.size()), values(rows.rows.size());
+        for (std::size_t i = 0; i < truth.size(); ++i) {
+            truth[i] = ts.inverse(static_cast<double>(rows.targets.data()[i]));
+            values[i] = ts.inverse(static_cast<double>(out.data()[i]));
+        }
+        return score_values(truth, values).rmse;
+    }
+    const std::vector<std::size_t> truth(rows.classes.begin(), rows.classes.end());
+    if (metric == gate_metric::log_loss) return log_loss(out, truth);
+    return score_classes(truth, row_argmax(out), p.class_count()).accuracy;
+}
+
 // The stored calibration's part for the target kind, if any.
 inline const interval_calibration* stored_interval(const std::optional<model_calibration>& c) { return c && c->interval ? &*c->interval : nullptr; }
 inline const class_calibration* stored_classes(const std::optional<model_calibration>& c) { return c && c->classes ? &*c->classes : nullptr; }
@@ -493,6 +608,94 @@ template <class T>
 std::pair<double, double> coverage_of(network<T>& net, const measured_plan& plan, const model_calibration& c, const prepared_rows<T>& rows) {
     const calibration_scores s = score_calibration(net, plan, c, rows);
     return s.classification ? std::make_pair(s.set_coverage, s.set_mean_size) : std::make_pair(s.interval_coverage, s.interval_mean_width);
+}
+
+// The same for one network or a seed ensemble, as
+// score_calibration(fitted_model) scores a fitted model.
+template <class T>
+std::pair<double, double> coverage_of(std::vector<network<T>>& nets, const measured_plan& plan, const model_calibration& c,
+                                      const prepared_rows<T>& rows) {
+    require_rows(rows, "score_calibration");
+    const ensemble_view<T> v = calibration_view(nets, plan, rows);
+    const calibration_scores s = score_outputs(plan, c, v.outputs, v.has_spread ? &v.spread : nullptr, rows);
+    return s.classification ? std::make_pair(s.set_coverage, s.set_mean_size) : std::make_pair(s.interval_coverage, s.interval_mean_width);
+}
+
+// Continues training every network of `nets` on the same rows, each from
+// its own weights with the seed member_seed(k); the first keeps the host's
+// observers, the other members train without them. With an executor of
+// more than one thread and more than one network, the networks train side
+// by side, each on one thread (as fit_model's train_members), each with
+// the whole budget left; otherwise one after the other, each with an even
+// share of what `remaining` says is left of the budget when it starts
+// (the last member's share is all of it). Returns the outcomes in member order.
+template <class T, class Seed, class Remaining>
+std::vector<training_outcome> continue_members(std::vector<network<T>>& nets, const training_options<T>& o, update_kind update, double learning_rate,
+                                               const Seed& member_seed, const Remaining& remaining, const supervised_rows<T>& train,
+                                               const supervised_rows<T>& validation) {
+    struct job {
+        network<T>* net = nullptr;
+        training_options<T> options;
+        training_outcome outcome;
+        std::exception_ptr error;
+    };
+    const std::size_t count = nets.size();
+    std::vector<job> jobs(count);
+    const bool side_by_side = count > 1 && o.workers && o.workers->concurrency() > 1;
+    for (std::size_t k = 0; k < count; ++k) {
+        jobs[k].net = &nets[k];
+        jobs[k].options = o;
+        jobs[k].options.seed = member_seed(k);
+        if (k > 0) {
+            jobs[k].options.on_epoch = nullptr;
+            jobs[k].options.on_batch = nullptr;
+        }
+        if (side_by_side) jobs[k].options.workers = nullptr;
+    }
+    const auto run_one = [&](job& j) {
+        auto rule = make_update_rule<T>(update);
+        constant_rate schedule(learning_rate);
+        trainer<T> tr(*j.net, *rule, schedule, std::move(j.options));
+        j.outcome = tr.run(train, validation);
+    };
+    if (side_by_side) {
+        struct context {
+            std::vector<job>* jobs;
+            const decltype(run_one)* run;
+        } c{&jobs, &run_one};
+        o.workers->run(count, [](void* p, std::size_t k) {
+            auto* ctx = static_cast<context*>(p);
+            job& j = (*ctx->jobs)[k];
+#if TENON_HAS_EXCEPTIONS
+            try {
+                (*ctx->run)(j);
+            } catch (...) {
+                j.error = std::current_exception();
+            }
+#else
+            (*ctx->run)(j);
+#endif
+        }, &c);
+        for (auto& j : jobs)
+            if (j.error) std::rethrow_exception(j.error);
+    } else {
+        for (std::size_t k = 0; k < count; ++k) {
+            job& j = jobs[k];
+            if (o.time_budget_seconds > 0.0) {
+                const double left = k == 0 ? o.time_budget_seconds : remaining();
+                if (left <= 0.0) {  // nothing left for this member: it keeps the incumbent's weights
+                    j.outcome.reason = stop_reason::time_budget;
+                    j.outcome.message = "the time budget was spent before this member's training began";
+                    continue;
+                }
+                j.options.time_budget_seconds = left / static_cast<double>(count - k);
+            }
+            run_one(j);
+        }
+    }
+    std::vector<training_outcome> outcomes;
+    for (auto& j : jobs) outcomes.push_back(std::move(j.outcome));
+    return outcomes;
 }
 
 // Continues the replay sample over the offered rows of `mix` (reservoir_slot).
@@ -679,8 +882,9 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
     report.training_rows = train_rows.size();
     report.validation_rows = validation_rows.size();
 
-    network<T> incumbent_net = rebuild_network(incumbent);
-    network<T> candidate_net = rebuild_network(incumbent);
+    std::vector<network<T>> incumbent_nets = detail::networks_of(incumbent);
+    std::vector<network<T>> candidate_nets = detail::networks_of(incumbent);
+    report.members = incumbent_nets.size();
     const std::optional<training_metadata>& meta = incumbent.metadata;
     loss_kind loss = classify ? loss_kind::cross_entropy : loss_kind::l2;
     if (meta && !meta->loss.empty()) loss = parse_loss_kind(meta->loss);
@@ -705,8 +909,6 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
         supervised_rows<T> train = detail::to_supervised(plan.template apply<T>(mix, train_rows), plan);
         supervised_rows<T> validation;
         if (!validation_rows.empty()) validation = detail::to_supervised(plan.template apply<T>(mix, validation_rows), plan);
-        auto rule = make_update_rule<T>(update);
-        constant_rate schedule(learning_rate);
         training_options<T> o;
         o.epochs = options.epochs;
         o.batch_size = batch_size;
@@ -716,8 +918,19 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
         static_cast<run_controls&>(o) = options;  // cancel flag and observers
         o.time_budget_seconds = remaining;
         o.clock = clock;
-        trainer<T> tr(candidate_net, *rule, schedule, std::move(o));
-        outcome = tr.run(train, validation);
+        o.workers = options.workers;
+        std::unique_ptr<thread_pool> threads;
+        if (!o.workers && options.threads > 1) {
+            threads = std::make_unique<thread_pool>(options.threads);
+            o.workers = threads.get();
+        }
+        const std::uint64_t training_seed = options.training_seed ? *options.training_seed : options.seed;
+        // As fit_model seeds its members (the golden-ratio increment of SplitMix64).
+        const auto member_seed = [&](std::size_t k) { return training_seed + static_cast<std::uint64_t>(k) * 0x9E3779B97F4A7C15ull; };
+        const auto left = [&] { return options.time_budget_seconds - (clock() - start); };
+        const double training_start = clock();
+        outcome = detail::continue_members(candidate_nets, o, update, learning_rate, member_seed, left, train, validation).front();
+        if (candidate_nets.size() > 1) outcome.seconds = clock() - training_start;  // all members' training
     } else if (options.epochs > 0) {
         outcome.reason = stop_reason::time_budget;
         outcome.message = "the time budget of " + std::to_string(options.time_budget_seconds) + " s was spent before training began";
@@ -731,8 +944,8 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
     report.training_seconds = outcome.seconds;
 
     // --- 4. the gate ---
-    report.incumbent_score = detail::gate_score(incumbent_net, plan, holdout_prepared, metric);
-    report.candidate_score = detail::gate_score(candidate_net, plan, holdout_prepared, metric);
+    report.incumbent_score = detail::gate_score(incumbent_nets, plan, holdout_prepared, metric);
+    report.candidate_score = detail::gate_score(candidate_nets, plan, holdout_prepared, metric);
     const gate_decision decision = decide_promotion(metric, report.incumbent_score, report.candidate_score, options.margin);
     report.promoted = decision.promoted;
     report.improvement = decision.improvement;
@@ -749,21 +962,28 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
     report.coverage_measure = classify ? "class_set" : "interval";
     report.nominal_coverage = coverage;
     if (incumbent_calibrated) {
-        const auto scored = detail::coverage_of(incumbent_net, plan, *incumbent.calibration, holdout_prepared);
+        const auto scored = detail::coverage_of(incumbent_nets, plan, *incumbent.calibration, holdout_prepared);
         report.incumbent_coverage = scored.first;
         report.incumbent_width = scored.second;
     }
     std::optional<model_calibration> candidate_calibration;
     if (!validation_rows.empty()) {
-        candidate_calibration = calibrate_network(candidate_net, plan, plan.template apply<T>(mix, validation_rows), coverage);
-        const auto scored = detail::coverage_of(candidate_net, plan, *candidate_calibration, holdout_prepared);
+        // As calibrate_model calibrates a fitted model: one network's logits
+        // or values, an ensemble's mean (and its members' spread).
+        const prepared_rows<T> calibration_rows = plan.template apply<T>(mix, validation_rows);
+        detail::require_rows(calibration_rows, "retrain_model's calibration");
+        const detail::ensemble_view<T> view = detail::calibration_view(candidate_nets, plan, calibration_rows);
+        candidate_calibration =
+            detail::calibrate_outputs(plan, view.outputs, view.has_spread ? &view.spread : nullptr, calibration_rows, coverage);
+        const auto scored = detail::coverage_of(candidate_nets, plan, *candidate_calibration, holdout_prepared);
         report.candidate_coverage = scored.first;
         report.candidate_width = scored.second;
     }
 
     // --- 5. the candidate's file ---
     model_file<T>& c = result.candidate;
-    c = capture_network(candidate_net);
+    c = capture_network(candidate_nets.front());
+    for (std::size_t k = 1; k < candidate_nets.size(); ++k) c.members.push_back(capture_network(candidate_nets[k]).weights);
     c.plan.emplace(plan);
     // The metadata describe the candidate's weights only. Of the
     // incumbent's settings, those that describe the model, not its
@@ -772,7 +992,7 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
     training_metadata m;
     if (meta) {
         for (const auto& kv : meta->settings)
-            for (const char* kept : {"hidden", "hidden_activation", "target", "task"})
+            for (const char* kept : {"hidden", "hidden_activation", "target", "task", "ensemble"})
                 if (kv.first == kept) m.settings.push_back(kv);
     }
     m.library_version = version_string();
@@ -780,7 +1000,7 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
                                  ? *options.created_unix_seconds
                                  : static_cast<std::int64_t>(
                                        std::chrono::duration_cast<std::chrono::seconds>(std::chrono::system_clock::now().time_since_epoch()).count());
-    m.seed = options.seed;
+    m.seed = options.training_seed ? *options.training_seed : options.seed;
     m.epochs_planned = options.epochs;
     m.epochs_run = outcome.history.size();
     m.best_epoch = outcome.best_epoch;
@@ -824,6 +1044,7 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
     set_setting("gate_metric", report.metric);
     set_setting("gate_margin", number_to_text(options.margin));
     set_setting("origin", "retraining");
+    set_setting("ensemble", std::to_string(report.members));
     if (!new_rows.source().empty()) {  // the file name, as tenon train records it
         const std::string& source = new_rows.source();
         const std::size_t slash = source.find_last_of("/\\");
@@ -925,7 +1146,7 @@ inline std::string to_json(const retraining_report& r) {
            count(r.refused_not_numeric) + ", \"holdout\": " + count(r.holdout_rows) + ", \"new_training\": " + count(r.new_training_rows) +
            ", \"replay\": " + count(r.replay_rows) + ", \"replay_refused\": " + count(r.replay_rows_refused) + ", \"training\": " +
            count(r.training_rows) + ", \"validation\": " + count(r.validation_rows) + ", \"replay_after\": " + count(r.replay_rows_after) +
-           ", \"replay_seen_after\": " + count(r.replay_rows_seen_after) + "}, \"training\": {\"epochs\": " + count(r.epochs_run) +
+           ", \"replay_seen_after\": " + count(r.replay_rows_seen_after) + "}, \"training\": {\"members\": " + count(r.members) + ", \"epochs\": " + count(r.epochs_run) +
            ", \"steps\": " + count(r.steps) + ", \"stop_reason\": " + json_string(r.stop_reason) + ", \"stop_message\": " +
            json_string(r.stop_message) + ", \"seconds\": " + json_number(r.training_seconds) + "}, \"seconds\": " + json_number(r.seconds) +
            ", \"time_budget_seconds\": " + json_number(r.time_budget_seconds) + ", \"model_path\": " + json_string(r.model_path) +
