@@ -155,7 +155,8 @@ TEST_CASE("the same seed gives the same search record and choice; another seed a
     CHECK(a.candidates_listed == 4);
     // The defaults first, then the seeded grid (the defaults' grid point left out).
     const tenon::model_settings defaults;
-    CHECK(a.candidates[0].hidden == defaults.hidden);
+    const std::vector<std::size_t> default_widths{64, 32};  // hidden_widths under 8,192 training rows
+    CHECK(a.candidates[0].hidden == default_widths);
     CHECK(a.candidates[0].learning_rate == defaults.learning_rate);
     CHECK(a.candidates[0].weight_decay == 0.0);
     bool order_differs = false;
@@ -163,7 +164,7 @@ TEST_CASE("the same seed gives the same search record and choice; another seed a
         order_differs = order_differs || a.candidates[i].hidden != other.candidates[i].hidden ||
                         a.candidates[i].learning_rate != other.candidates[i].learning_rate ||
                         a.candidates[i].weight_decay != other.candidates[i].weight_decay;
-        CHECK_FALSE((a.candidates[i].hidden == defaults.hidden && a.candidates[i].learning_rate == defaults.learning_rate &&
+        CHECK_FALSE((a.candidates[i].hidden == default_widths && a.candidates[i].learning_rate == defaults.learning_rate &&
                      a.candidates[i].weight_decay == 0.0));
     }
     CHECK(order_differs);
@@ -210,7 +211,7 @@ TEST_CASE("a budget that allows only the first candidate returns the defaults") 
     CHECK_FALSE(one.candidates[0].cut_short);
     CHECK(one.candidates[0].mean_fold_loss == two.candidates[0].mean_fold_loss);  // the budget did not change it
     const tenon::model_settings defaults;
-    CHECK(one.chosen.hidden == defaults.hidden);
+    CHECK(one.chosen.hidden == std::vector<std::size_t>{64, 32});  // hidden_widths under 8,192 training rows
     CHECK(one.chosen.learning_rate == defaults.learning_rate);
     CHECK(one.chosen.weight_decay == defaults.weight_decay);
     CHECK(one.seconds <= 1.5 * first);
