@@ -458,3 +458,69 @@ TEST_CASE("class weights: balanced weights are n / (k n_c) and raise the rare cl
                                                     << " rare rows)");
     CHECK(r_weighted > r_plain + 0.2);
 }
+
+TEST_CASE("median-IQR target scaling: center and spread are the training rows' median and IQR; predictions in the target's units") {
+    // A flow meter's reading y = 200 + 30 x1 - 20 x2 + noise, with 1% of the
+    // readings spikes of 1e6 (a stuck transmitter): the spikes move the mean
+    // and the standard deviation, not the median and the quartiles.
+    tenon::random_engine rng(51);
+    std::ostringstream csv;
+    csv << "x1,x2,y\n";
+    csv.precision(17);
+    for (std::size_t i = 0; i < 600; ++i) {
+        const double x1 = rng.uniform(-1.0, 1.0), x2 = rng.uniform(-1.0, 1.0);
+        const double y = i % 100 == 7 ? 1e6 : 200.0 + 30.0 * x1 - 20.0 * x2 + rng.normal(0.0, 1.0);
+        csv << x1 << "," << x2 << "," << y << "\n";
+    }
+    std::istringstream in(csv.str());
+    const auto t = tenon::read_csv(in, {}, "meter.csv");
+    const auto split = tenon::random_holdout(t.row_count(), {0.6, 0.2, 0.2}, 52);
+    tenon::plan p;
+    p.set_target("y", tenon::target_kind::regression, tenon::scaling_method::median_iqr);
+    tenon::model_settings s;
+    s.hidden = {16};
+    s.ensemble = 1;
+    s.seed = 2;
+    // The Huber loss (Huber 1964) with its threshold of 1 in scaled units,
+    // here one interquartile range: the spikes pull on the fit linearly, not
+    // quadratically (a squared loss would follow their mean, about 1e4).
+    s.loss_given = true;
+    s.loss = tenon::loss_kind::huber;
+    auto m = tenon::fit_model<float>(t, p, split.train, split.validation, s);
+    // Quartiles by linear interpolation between order statistics (Hyndman &
+    // Fan 1996, definition 7), computed here on the sorted training targets.
+    std::vector<double> y;
+    for (const auto r : split.train) y.push_back(t.at("y").number(r));
+    std::sort(y.begin(), y.end());
+    const auto quantile = [&](double q) {
+        const double h = static_cast<double>(y.size() - 1) * q;
+        const auto lo = static_cast<std::size_t>(std::floor(h));
+        return lo + 1 < y.size() ? y[lo] + (h - static_cast<double>(lo)) * (y[lo + 1] - y[lo]) : y[lo];
+    };
+    const tenon::scaling& ts = m.plan.target_scaling();
+    CHECK(ts.method == tenon::scaling_method::median_iqr);
+    CHECK(ts.center == doctest::Approx(quantile(0.5)).epsilon(1e-12));
+    CHECK(ts.spread == doctest::Approx(quantile(0.75) - quantile(0.25)).epsilon(1e-12));
+    CHECK(ts.spread < 100.0);  // the spikes do not widen it (a z-score spread would be about 1e5)
+    // Predictions of the clean test rows are readings near 200, off by a few units at most.
+    std::vector<std::size_t> clean;
+    for (const auto r : split.test)
+        if (t.at("y").number(r) < 1e5) clean.push_back(r);
+    const auto prepared = m.plan.apply<float>(t, clean);
+    const auto predicted = tenon::predict_prepared(m, prepared.features);
+    double error = 0.0;
+    for (std::size_t i = 0; i < clean.size(); ++i) error += std::abs(static_cast<double>(predicted(i, 0)) - t.at("y").number(clean[i]));
+    error /= static_cast<double>(clean.size());
+    MESSAGE("clean test rows, mean absolute error with median-IQR target scaling: " << error);
+    CHECK(error < 10.0);  // the readings span about 150 to 250
+    // The same with z-score scaling, for comparison: its spread of about
+    // 1e5 makes the Huber threshold cover the spikes, so the loss is
+    // squared for them as well.
+    tenon::plan z;
+    z.set_target("y", tenon::target_kind::regression);
+    auto mz = tenon::fit_model<float>(t, z, split.train, split.validation, s);
+    const auto pz = tenon::predict_prepared(mz, mz.plan.apply<float>(t, clean).features);
+    double error_z = 0.0;
+    for (std::size_t i = 0; i < clean.size(); ++i) error_z += std::abs(static_cast<double>(pz(i, 0)) - t.at("y").number(clean[i]));
+    MESSAGE("the same with z-score target scaling: " << error_z / static_cast<double>(clean.size()));
+}
