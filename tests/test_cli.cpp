@@ -658,8 +658,8 @@ TEST_CASE("--refit: the model is refit on training + validation rows after calib
         args.insert(args.end(), {"--metrics", dir.file(json)});
         return run(args);
     };
-    const auto automatic = with({}, "auto.json");  // 400 rows: under 5,000, so on by default
-    const auto off = with({"--refit", "off"}, "off.json");
+    const auto automatic = with({"--model", dir.file("auto.tnm")}, "auto.json");  // 400 rows: under 5,000, so on by default
+    const auto off = with({"--refit", "off", "--model", dir.file("off.tnm")}, "off.json");
     const auto on = with({"--refit", "on"}, "on.json");
     REQUIRE(automatic.status == 0);
     REQUIRE(off.status == 0);
@@ -685,6 +685,10 @@ TEST_CASE("--refit: the model is refit on training + validation rows after calib
     CHECK(automatic.out.find("refit on " + a.at("refit.rows") + " training + validation rows (") != std::string::npos);
     CHECK(automatic.out.find("the validation scores and the calibration are of the model before the refit\n") != std::string::npos);
     CHECK(off.out.find("refit on") == std::string::npos);
+    // The model file's settings say so (tenon inspect shows them).
+    const auto inspected = json_flattener(run({"inspect", "--model", dir.file("auto.tnm"), "--json"}).out).values;
+    CHECK(inspected.at("settings.refit") == a.at("refit.rows") + " rows; steps " + a.at("refit.steps.0") + "," + a.at("refit.steps.1"));
+    CHECK(json_flattener(run({"inspect", "--model", dir.file("off.tnm"), "--json"}).out).values.at("settings.refit") == "off");
     check_failure(dir, {"train", "--data", path, "--target", "exhaust_temp", "--refit", "maybe"},
                   "[cli.option.value] --refit 'maybe': not one of auto, on, off");
 }
