@@ -2,6 +2,7 @@
 // scored in original units, and cross-validation's refit per fold.
 #include <doctest/doctest.h>
 
+#include <atomic>
 #include <cmath>
 #include <sstream>
 #include <string>
@@ -523,4 +524,34 @@ TEST_CASE("median-IQR target scaling: center and spread are the training rows' m
     double error_z = 0.0;
     for (std::size_t i = 0; i < clean.size(); ++i) error_z += std::abs(static_cast<double>(pz(i, 0)) - t.at("y").number(clean[i]));
     MESSAGE("the same with z-score target scaling: " << error_z / static_cast<double>(clean.size()));
+}
+
+TEST_CASE("refit: a refit cut by the time budget or the cancel flag leaves the model as it was") {
+    const auto t = pump_table(200, 61);
+    tenon::plan p;
+    p.set_target("power", tenon::target_kind::regression);
+    const auto split = tenon::random_holdout(t.row_count(), {0.6, 0.2, 0.2}, 62);
+    tenon::model_settings s = quick_settings();
+    s.refit = false;
+    auto m = tenon::fit_model<float>(t, p, split.train, split.validation, s);
+    const auto before = all_weights(m);
+    const auto outcome_before = m.outcome.history.size();
+    // A clock that advances one second a reading, against a budget of 5 s:
+    // the refit stops long before its step counts.
+    double now = 0.0;
+    tenon::model_settings budget = s;
+    budget.clock = [&now] { return now += 1.0; };
+    budget.time_budget_seconds = 5.0;
+    CHECK_FALSE(tenon::refit_model(m, t, split.train, split.validation, budget));
+    CHECK(m.refit_rows == 0);
+    CHECK(all_weights(m) == before);
+    CHECK(m.outcome.history.size() == outcome_before);
+    const std::atomic<bool> stop{true};
+    tenon::model_settings cancelled = s;
+    cancelled.cancel = &stop;
+    CHECK_FALSE(tenon::refit_model(m, t, split.train, split.validation, cancelled));
+    CHECK(all_weights(m) == before);
+    // Untouched, the model still refits.
+    CHECK(tenon::refit_model(m, t, split.train, split.validation, s));
+    CHECK(m.refit_rows == split.train.size() + split.validation.size());
 }

@@ -206,9 +206,12 @@ struct model_settings : run_controls {
     /// when the training and validation rows (with a target) number fewer
     /// than 5,000, a threshold of our own: there the validation rows are a
     /// large share of what the model could learn from. Without validation
-    /// rows, in a team, or when the run was stopped by the time budget or
-    /// the cancel flag, no refit happens. The plan stays measured on the
-    /// training rows, so the validation rows' preparation does not change.
+    /// rows, or when the run was stopped by the time budget or the cancel
+    /// flag, no refit happens; the refit's budget is what the validated run
+    /// (its first network) left of time_budget_seconds. A team cannot
+    /// refit (true is an error there; unset means off). The plan stays
+    /// measured on the training rows, so the validation rows' preparation
+    /// does not change.
     std::optional<bool> refit;
     /// Classification: weights of the classes in the loss (class_weighting),
     /// measured on the training rows; the logistic baseline uses the same.
@@ -441,8 +444,7 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
                                    "plan is measured over all members' training rows");
     }
     if (shards) require_same_columns(t, *s.exchange, "fit_model");
-    const auto now = [&] { return s.clock ? s.clock() : detail::steady_seconds(); };
-    const double fit_started = now();
+    if (s.team && s.refit.value_or(false)) raise(codes::train_option, "fit_model: a team cannot refit (model_settings::refit)");
     measured_plan measured = preparation.measure(t, train_rows, shards ? s.exchange : nullptr);
     // Preparing the rows can fail on one member alone (e.g. a missing cell
     // without a fill in its shard): the members agree on failing before the
@@ -627,11 +629,10 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
     }
     // The refit on training plus validation rows (model_settings::refit).
     const bool cut = model.outcome.reason == stop_reason::time_budget || model.outcome.reason == stop_reason::cancelled;
-    if (s.team && s.refit.value_or(false)) raise(codes::train_option, "fit_model: a team cannot refit (model_settings::refit)");
     if (!s.team && !cut && validation.rows() > 0 && refit_wanted(s, model.train_rows + model.validation_rows)) {
         pool.reset();  // refit_model starts its own
-        model_settings rest = s;  // the time budget covers both runs
-        if (rest.time_budget_seconds > 0.0) rest.time_budget_seconds -= now() - fit_started;
+        model_settings rest = s;  // the refit gets the time budget the validated run left
+        if (rest.time_budget_seconds > 0.0) rest.time_budget_seconds -= model.outcome.seconds;
         if (s.time_budget_seconds <= 0.0 || rest.time_budget_seconds > 0.0) refit_model(model, t, train_rows, validation_rows, rest);
     }
     return model;
@@ -754,7 +755,19 @@ bool refit_model(fitted_model<T>& model, const table& t, const std::vector<std::
         model.members.clear();
         for (std::size_t k = 1; k < model.best_steps.size(); ++k) model.members.push_back(build(k));
         const auto seeds = [&](std::size_t k) { return detail::member_seed(s.seed, k); };
-        const std::vector<training_outcome> outcomes = detail::train_members(model, o, s, seeds, all, none, model.best_steps);
+        std::vector<training_outcome> outcomes;
+#if TENON_HAS_EXCEPTIONS
+        try {
+            outcomes = detail::train_members(model, o, s, seeds, all, none, model.best_steps);
+        } catch (...) {  // the model as it was
+            model.net = std::move(old_net);
+            model.members = std::move(old_members);
+            model.outcome = old_outcome;
+            throw;
+        }
+#else
+        outcomes = detail::train_members(model, o, s, seeds, all, none, model.best_steps);
+#endif
         model.outcome = old_outcome;  // the validated run's
         for (const auto& r : outcomes) {
             if (!completed(r)) {
