@@ -451,6 +451,15 @@ TEST_CASE("class weights: balanced weights are n / (k n_c) and raise the rare cl
     CHECK_THROWS_WITH_AS(tenon::balanced_class_weights({0, 0}, 2), doctest::Contains("class 1 has no training row"), tenon::error);
     CHECK(tenon::parse_class_weighting("balanced") == tenon::class_weighting::balanced);
     CHECK_THROWS_WITH_AS(tenon::parse_class_weighting("even"), doctest::Contains("none, balanced"), tenon::error);
+    {
+        const auto pump = pump_table(100, 43);
+        tenon::plan regression;
+        regression.set_target("power", tenon::target_kind::regression);
+        const auto rows = tenon::random_holdout(pump.row_count(), {0.6, 0.2, 0.2}, 44);
+        CHECK_THROWS_WITH_AS(tenon::fit_model<float>(pump, regression, rows.train, rows.validation, s),
+                             doctest::Contains("class weights (balanced) need a classification target; 'power' is a regression target"),
+                             tenon::error);
+    }
 
     const std::size_t leak = names[0] == "leak" ? 0 : 1;
     const auto e_plain = tenon::evaluate_model(plain, t, split.test), e_weighted = tenon::evaluate_model(weighted, t, split.test);

@@ -538,6 +538,10 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
     o.min_improvement = s.min_improvement;
     o.seed = s.seed;
     o.loss = loss;
+    if (s.class_weights != class_weighting::none && !train.is_classification()) {
+        raise(codes::train_option, std::string("fit_model: class weights (") + to_string(s.class_weights) + ") need a classification target; '" +
+                                       model.plan.target_name() + "' is a regression target");
+    }
     if (s.class_weights == class_weighting::balanced && train.is_classification()) {
         std::vector<double> counts(train.class_count, 0.0);
         for (const std::size_t c : train.labels) counts[c] += 1.0;
