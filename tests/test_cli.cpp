@@ -71,7 +71,8 @@ TEST_CASE("tenon train --help explains every option with its default") {
     CHECK(r.err.empty());
     for (const char* option : {"--data", "--target", "--task", "--ignore", "--split", "--time-column", "--group-column", "--fractions",
                                "--folds", "--hidden", "--activation", "--loss", "--optimizer", "--learning-rate", "--epochs", "--batch",
-                               "--patience", "--ensemble", "--search", "--seed", "--threads", "--metrics", "--report", "--model", "--quiet"}) {
+                               "--patience", "--ensemble", "--search", "--refit", "--class-weights", "--target-scaling", "--seed", "--threads",
+                               "--metrics", "--report", "--model", "--quiet"}) {
         CAPTURE(std::string(option));
         CHECK(r.out.find(std::string("  ") + option + " ") != std::string::npos);
     }
@@ -721,4 +722,65 @@ TEST_CASE("baseline: seal quality, test accuracy at least 0.1 above logistic reg
     const double network_accuracy = number_at(read_metrics(dir.file("m.json")), "test.accuracy");
     MESSAGE("seal: network test accuracy " << network_accuracy << ", logistic " << logistic_accuracy);
     CHECK(network_accuracy >= logistic_accuracy + 0.1);
+}
+
+TEST_CASE("--refit: the model is refit on training + validation rows after calibrating; validation scores are of the model before") {
+    scratch_dir dir("refit");
+    const auto path = dir.write("dryer.csv", dryer_csv(400, 404));
+    const std::vector<std::string> base{"train", "--data", path, "--target", "exhaust_temp", "--hidden", "16", "--ensemble", "2"};
+    auto with = [&](std::vector<std::string> extra, const std::string& json) {
+        std::vector<std::string> args = base;
+        args.insert(args.end(), extra.begin(), extra.end());
+        args.insert(args.end(), {"--metrics", dir.file(json)});
+        return run(args);
+    };
+    const auto automatic = with({"--model", dir.file("auto.tnm")}, "auto.json");  // 400 rows: under 5,000, so on by default
+    const auto off = with({"--refit", "off", "--model", dir.file("off.tnm")}, "off.json");
+    const auto on = with({"--refit", "on"}, "on.json");
+    REQUIRE(automatic.status == 0);
+    REQUIRE(off.status == 0);
+    REQUIRE(on.status == 0);
+    const auto a = read_metrics(dir.file("auto.json")), o = read_metrics(dir.file("off.json")), n = read_metrics(dir.file("on.json"));
+    CHECK(number_at(a, "refit.rows") == number_at(a, "rows.training") + number_at(a, "rows.validation"));
+    CHECK(a.count("refit.steps.0") == 1);
+    CHECK(a.count("refit.steps.1") == 1);
+    CHECK(a.count("refit.steps.2") == 0);  // one per network
+    CHECK(number_at(a, "refit.steps.0") > 0);
+    CHECK(o.at("refit") == "null");
+    CHECK(a.at("target_scaling") == "z-score");
+    // The same validated run: equal validation scores and calibration, other test scores.
+    for (const char* key : {"validation.rmse", "validation.r2", "calibration.interval.half_width", "baseline.validation.rmse", "best_epoch"}) {
+        CAPTURE(key);
+        if (a.count(key) == 0) continue;
+        CHECK(a.at(key) == o.at(key));
+    }
+    CHECK(a.count("validation.rmse") == 1);
+    CHECK(a.at("test.rmse") != o.at("test.rmse"));
+    CHECK(a.at("test.rmse") == n.at("test.rmse"));  // auto is on here
+    CHECK(a.at("baseline.test.rmse") != o.at("baseline.test.rmse"));  // the ridge line refit too
+    CHECK(automatic.out.find("refit on " + a.at("refit.rows") + " training + validation rows (") != std::string::npos);
+    CHECK(automatic.out.find("the validation scores and the calibration are of the model before the refit\n") != std::string::npos);
+    CHECK(off.out.find("refit on") == std::string::npos);
+    // The model file's settings say so (tenon inspect shows them).
+    const auto inspected = json_flattener(run({"inspect", "--model", dir.file("auto.tnm"), "--json"}).out).values;
+    CHECK(inspected.at("settings.refit") == a.at("refit.rows") + " rows; steps " + a.at("refit.steps.0") + "," + a.at("refit.steps.1"));
+    CHECK(json_flattener(run({"inspect", "--model", dir.file("off.tnm"), "--json"}).out).values.at("settings.refit") == "off");
+    check_failure(dir, {"train", "--data", path, "--target", "exhaust_temp", "--refit", "maybe"},
+                  "[cli.option.value] --refit 'maybe': not one of auto, on, off");
+}
+
+TEST_CASE("--class-weights and --target-scaling: reported, and refused for the other kind of target") {
+    scratch_dir dir("weights_and_scaling");
+    const auto caps = dir.write("caps.csv", small_classification_csv(300));
+    const auto dryer = dir.write("dryer.csv", dryer_csv(300, 405));
+    REQUIRE(run({"train", "--data", caps, "--target", "verdict", "--epochs", "5", "--class-weights", "balanced", "--metrics", dir.file("c.json"),
+                 "--quiet"}).status == 0);
+    CHECK(read_metrics(dir.file("c.json")).at("class_weights") == "balanced");
+    REQUIRE(run({"train", "--data", dryer, "--target", "exhaust_temp", "--epochs", "5", "--target-scaling", "median-iqr", "--metrics",
+                 dir.file("r.json"), "--quiet"}).status == 0);
+    CHECK(read_metrics(dir.file("r.json")).at("target_scaling") == "median-iqr");
+    check_failure(dir, {"train", "--data", dryer, "--target", "exhaust_temp", "--class-weights", "balanced"},
+                  "[cli.option.conflict] --class-weights balanced needs a classification target; 'exhaust_temp' is regressed");
+    check_failure(dir, {"train", "--data", caps, "--target", "verdict", "--target-scaling", "median-iqr"},
+                  "[cli.option.conflict] --target-scaling median-iqr needs a regression target; 'verdict' is classified");
 }

@@ -289,7 +289,13 @@ training_setup make_setup(const tenon::table& t, const train_request& q) {
     if (s.split == split_choice::stratified && !s.classify)
         fail(cli_codes::option_conflict, "--split stratified needs a classification target; '" + q.target + "' is regressed");
 
-    s.preparation.set_target(q.target, s.classify ? tenon::target_kind::classification : tenon::target_kind::regression);
+    if (q.class_weights != tenon::class_weighting::none && !s.classify)
+        fail(cli_codes::option_conflict, "--class-weights " + std::string(tenon::to_string(q.class_weights)) + " needs a classification target; '" +
+                                             q.target + "' is regressed");
+    if (q.target_scaling != tenon::scaling_method::z_score && s.classify)
+        fail(cli_codes::option_conflict, "--target-scaling " + std::string(tenon::to_string(q.target_scaling)) + " needs a regression target; '" +
+                                             q.target + "' is classified");
+    s.preparation.set_target(q.target, s.classify ? tenon::target_kind::classification : tenon::target_kind::regression, q.target_scaling);
     s.preparation.set_missing_tokens(missing_tokens());
     for (const auto& c : q.ignored) s.preparation.set_role(c, tenon::column_role::ignored);
     if (!q.time_column.empty()) s.preparation.set_role(q.time_column, tenon::column_role::time);
@@ -482,6 +488,8 @@ tenon::model_settings make_settings(const train_request& q) {
     m.batch_size = q.batch;
     m.patience = q.patience;
     m.ensemble = q.ensemble;
+    m.refit = q.refit;
+    m.class_weights = q.class_weights;
     m.seed = q.seed;
     m.threads = q.threads;
     m.shuffle = !q.keep_order;

@@ -12,9 +12,9 @@
 #include <cstdint>
 #include <functional>
 #include <map>
+#include <optional>
 #include <ostream>
 #include <stdexcept>
-#include <optional>
 #include <string>
 #include <utility>
 #include <vector>
@@ -156,6 +156,9 @@ struct train_request {
     std::size_t patience = library_defaults().patience;
     std::size_t ensemble = library_defaults().ensemble;  // 0: by the row count
     double search_seconds = 0.0;  // --search: budget of the settings search (train/search.hpp); 0: no search
+    std::optional<bool> refit = library_defaults().refit;  // --refit on|off; unset (auto): the library's row rule
+    tenon::class_weighting class_weights = library_defaults().class_weights;  // --class-weights
+    tenon::scaling_method target_scaling = tenon::scaling_method::z_score;  // --target-scaling (regression targets)
     std::uint64_t seed = 1;  // one seed for the split, the weights and the batch order
     std::size_t threads = 1;
     bool keep_order = false;  // --keep-order: no shuffling

@@ -322,6 +322,41 @@ const option_entry<train_request> train_options[] = {
          q.search_seconds = parse_real("--search", v);
          if (!(q.search_seconds > 0)) fail(cli_codes::option_value, "--search '" + v + "': must be a positive number of seconds");
      }},
+    {"--refit", "auto|on|off",
+     "after early stopping has chosen each network's step\n"
+     "count on the validation rows, train it again from its\n"
+     "own start on the training plus validation rows for\n"
+     "that many steps (the baseline too). Default auto: on\n"
+     "under 5000 training plus validation rows. The\n"
+     "validation scores and the calibration are of the\n"
+     "model before the refit; the test rows are never used.",
+     [](train_request& q, const std::string& v) {
+         const std::pair<const char*, int> names[] = {{"auto", -1}, {"on", 1}, {"off", 0}};
+         const int choice = parse_choice("--refit", v, names);
+         q.refit = choice < 0 ? std::optional<bool>() : std::optional<bool>(choice == 1);
+     }},
+    {"--class-weights", "none|balanced",
+     "classification: weigh each class in the loss (default\n"
+     "none); balanced gives class c the weight n / (k n_c)\n"
+     "(n training rows, k classes, n_c rows of c), so a rare\n"
+     "class counts as much as a common one in total.",
+     [](train_request& q, const std::string& v) {
+         const std::pair<const char*, tenon::class_weighting> names[] = {{"none", tenon::class_weighting::none},
+                                                                         {"balanced", tenon::class_weighting::balanced}};
+         q.class_weights = parse_choice("--class-weights", v, names);
+     }},
+    {"--target-scaling", "z-score|median-iqr",
+     "regression: how the target is scaled for training\n"
+     "(default z-score: mean and standard deviation of the\n"
+     "training rows); median-iqr centers on the median and\n"
+     "divides by the interquartile range, which a few huge\n"
+     "values do not move. Scores are in the target's units\n"
+     "either way.",
+     [](train_request& q, const std::string& v) {
+         const std::pair<const char*, tenon::scaling_method> names[] = {{"z-score", tenon::scaling_method::z_score},
+                                                                        {"median-iqr", tenon::scaling_method::median_iqr}};
+         q.target_scaling = parse_choice("--target-scaling", v, names);
+     }},
     {"--seed", "N",
      "seeds the split, the initial weights and the batch\n"
      "order (default 1). The same seed and data give the\n"
@@ -889,6 +924,12 @@ int train_holdout(const tenon::table& t, const train_request& q, training_setup&
         settings.weight_decay = search->chosen.weight_decay;
     }
     settings.team = env.team;
+    // The tool refits itself (below), after calibrating on the validation
+    // rows with the model that did not train on them.
+    const tenon::model_settings refit_settings = settings;
+    settings.refit = false;
+    if (env.team && q.refit.value_or(false))
+        fail(cli_codes::option_conflict, "--refit on: a model trained by several processes (mpirun) is not refit; give --refit off or auto");
     settings.on_epoch = [&](const tenon::epoch_summary& e) {
         progress.on_epoch(e);
         return true;
@@ -913,21 +954,25 @@ int train_holdout(const tenon::table& t, const train_request& q, training_setup&
     tenon::evaluation validation;
     const bool has_validation = model.validation_rows > 0;
     if (has_validation) validation = tenon::evaluate_model(model, t, split.validation);
-    const tenon::evaluation test = tenon::evaluate_model(model, t, split.test);
-    // Calibrated on the validation rows, scored on the test rows (neither trained on).
+    // Calibrated on the validation rows before any refit (the model has not
+    // trained on them), scored on the test rows (never trained on).
     std::optional<tenon::model_calibration> calibration;
     tenon::calibration_scores calibrated;
-    if (has_validation) {
-        calibration = tenon::calibrate_model(model, t, split.validation, q.coverage);
-        calibrated = tenon::score_calibration(model, *calibration, t, split.test);
-    }
-    const std::size_t dropped = model.dropped_rows + test.dropped_rows;
-    const tenon::training_outcome& o = model.outcome;
+    if (has_validation) calibration = tenon::calibrate_model(model, t, split.validation, q.coverage);
     // The plain baseline on the same rows (fit_model fits it; in a team it has none).
     const bool has_baseline = model.baseline.features > 0;
     tenon::evaluation baseline_validation, baseline_test;
     if (has_baseline && has_validation) baseline_validation = tenon::evaluate_baseline(model, t, split.validation);
+    // The refit on training plus validation rows (--refit), after everything
+    // that reads the validation rows; the test rows are scored after it.
+    const bool cut = model.outcome.reason == tenon::stop_reason::time_budget || model.outcome.reason == tenon::stop_reason::cancelled;
+    if (!env.team && has_validation && !cut && tenon::refit_wanted(refit_settings, model.train_rows + model.validation_rows))
+        tenon::refit_model(model, t, split.train, split.validation, refit_settings);
+    const tenon::evaluation test = tenon::evaluate_model(model, t, split.test);
+    if (calibration) calibrated = tenon::score_calibration(model, *calibration, t, split.test);
     if (has_baseline) baseline_test = tenon::evaluate_baseline(model, t, split.test);
+    const std::size_t dropped = model.dropped_rows + test.dropped_rows;
+    const tenon::training_outcome& o = model.outcome;
     const char* baseline_kind = s.classify ? "logistic regression" : "ridge least squares";
     // A series: the last reading repeated, on the same rows.
     std::optional<tenon::evaluation> last_validation, last_test;
@@ -985,6 +1030,15 @@ int train_holdout(const tenon::table& t, const train_request& q, training_setup&
             write_search(j, *search);
         else
             j.null("search");
+        if (model.refit_rows > 0) {
+            j.open_object("refit").count("rows", model.refit_rows).open_array("steps");
+            for (const auto steps : model.refit_steps) j.count(nullptr, steps);
+            j.close_array().close_object();
+        } else {
+            j.null("refit");
+        }
+        if (s.classify) j.text("class_weights", tenon::to_string(q.class_weights));
+        else j.text("target_scaling", tenon::to_string(q.target_scaling));
         if (calibration)
             write_calibration(j, "calibration", *calibration);
         else
@@ -1080,6 +1134,12 @@ int train_holdout(const tenon::table& t, const train_request& q, training_setup&
             (o.best_epoch > 0 && o.reason != tenon::stop_reason::no_improvement ? "; kept epoch " + std::to_string(o.best_epoch) : std::string()) +
             "\n";
         summary += calibration_note(calibration ? &*calibration : nullptr, q.coverage, s.classify);
+        if (model.refit_rows > 0) {
+            std::string steps;
+            for (std::size_t k = 0; k < model.refit_steps.size(); ++k) steps += (k ? ", " : "") + std::to_string(model.refit_steps[k]);
+            summary += "refit on " + std::to_string(model.refit_rows) + " training + validation rows (" + steps +
+                " steps, each network's best on validation); the validation scores and the calibration are of the model before the refit\n";
+        }
         summary += std::to_string(model.train_rows) + " training rows, " + std::to_string(model.plan.feature_count()) + " features" +
             (model.member_count() > 1 ? ", an ensemble of " + std::to_string(model.member_count()) + " networks (the epochs are the first's)"
                                       : std::string()) +

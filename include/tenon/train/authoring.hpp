@@ -236,6 +236,18 @@ model_file<T> make_model_file(fitted_model<T>& model, const table& t, const std:
     meta.settings.emplace_back("batch_size", std::to_string(settings.batch_size));
     meta.settings.emplace_back("patience", std::to_string(settings.patience));
     meta.settings.emplace_back("ensemble", std::to_string(model.member_count()));
+    // "off", or the rows and each member's steps of refit_model.
+    std::string refit = "off";
+    if (model.refit_rows > 0) {
+        refit = std::to_string(model.refit_rows) + " rows; steps";
+        for (std::size_t k = 0; k < model.refit_steps.size(); ++k) refit += (k ? "," : " ") + std::to_string(model.refit_steps[k]);
+    }
+    meta.settings.emplace_back("refit", refit);
+    if (!model.class_weights.empty()) {
+        std::string weights;
+        for (std::size_t k = 0; k < model.class_weights.size(); ++k) weights += (k ? "," : "") + number_to_text(model.class_weights[k]);
+        meta.settings.emplace_back("class_weights", weights);
+    }
     m.metadata = std::move(meta);
     m.references = measure_references(t, train_rows, model.plan, options.histogram_bins);
     if (options.replay_rows > 0) m.replay = sample_replay_rows(t, train_rows, options.replay_rows, settings.seed);

@@ -237,6 +237,7 @@ settings_search_result search_settings(const table& t, const plan& preparation, 
             s.learning_rate = c.learning_rate;
             s.weight_decay = c.weight_decay;
             s.ensemble = 1;
+            s.refit = false;  // the fold's held-out rows score it; a refit would train on them
             s.clock = clock;
             s.time_budget_seconds = left;
             s.on_epoch = nullptr;

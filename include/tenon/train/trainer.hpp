@@ -61,7 +61,7 @@ inline const char* to_string(loss_kind k) noexcept {
 /// The former spelling of to_string(loss_kind).
 inline const char* loss_kind_name(loss_kind v) noexcept { return to_string(v); }
 
-enum class stop_reason : std::uint8_t { epoch_limit, no_improvement, time_budget, cancelled, diverged };
+enum class stop_reason : std::uint8_t { epoch_limit, no_improvement, time_budget, cancelled, diverged, step_limit };
 
 inline const char* to_string(stop_reason r) noexcept {
     switch (r) {
@@ -70,6 +70,7 @@ inline const char* to_string(stop_reason r) noexcept {
         case stop_reason::time_budget: return "time_budget";
         case stop_reason::cancelled: return "cancelled";
         case stop_reason::diverged: return "diverged";
+        case stop_reason::step_limit: return "step_limit";
     }
     return "unknown";
 }
@@ -92,6 +93,7 @@ struct training_outcome {
     std::size_t best_epoch = 0;          // 1-based epoch whose weights were kept; 0 if none
     double best_validation_loss = std::numeric_limits<double>::quiet_NaN();
     std::uint64_t steps = 0;             // updates applied
+    std::uint64_t best_step = 0;         // updates applied when the kept epoch ended; 0 if none (or resumed before it)
     double seconds = 0.0;
     std::string message;                 // why training stopped, in words
 };
@@ -187,6 +189,11 @@ struct training_options : run_controls {
     /// Early stopping never ends a run before this many optimizer steps (the
     /// epoch limit, the budget and cancellation still do).
     std::size_t min_steps = 0;
+    /// Stop after this many optimizer steps, within an epoch if need be
+    /// (stop_reason::step_limit); 0: no limit. A refit on more rows
+    /// (train/workflow.hpp, refit_model) trains for the steps a validated
+    /// run chose.
+    std::size_t max_steps = 0;
     /// Judge improvement on an exponentially smoothed validation loss,
     /// s = smoothing s + (1 - smoothing) loss, in [0, 1); 0 judges the raw
     /// loss. A small validation set gives a noisy curve whose single low
@@ -514,6 +521,7 @@ public:
                     out.best_epoch = epoch + 1;
                     out.best_validation_loss = s.validation_loss;
                     best_step = out.steps;
+                    out.best_step = out.steps;
                     net_.snapshot_into(best);
                     since_best = 0;
                 } else {
@@ -550,6 +558,10 @@ public:
             if (observer_stop) {
                 out.reason = stop_reason::cancelled;
                 out.message = "stopped by the epoch observer after epoch " + std::to_string(epoch);
+                stop = true;
+            } else if (options_.max_steps > 0 && out.steps >= options_.max_steps) {
+                out.reason = stop_reason::step_limit;
+                out.message = "completed " + std::to_string(out.steps) + " steps";
                 stop = true;
             } else if (validate && patience_spent()) {
                 out.reason = stop_reason::no_improvement;
@@ -657,6 +669,7 @@ private:
         const std::size_t rows = d.rows(), inputs = d.features.shape()[1];
         const std::size_t batches = epoch_batches_;
         double loss_sum = 0.0;
+        std::size_t done = 0;  // steps of this epoch
         // From here on the update rule clears each gradient after using it
         // (see the update below), so every step starts from zero gradients.
         for (auto* p : net_.parameters()) p->clear_gradient();
@@ -722,6 +735,7 @@ private:
                 }
             }
             ++steps;
+            ++done;
             r.learning_rate = lr;
             loss_sum += lv;
             if (options_.on_batch) {
@@ -735,8 +749,9 @@ private:
                 r.status = epoch_status::out_of_time;
                 break;
             }
+            if (options_.max_steps > 0 && steps >= options_.max_steps) break;  // a partial epoch, completed
         }
-        r.loss = loss_sum / static_cast<double>(batches);
+        r.loss = loss_sum / static_cast<double>(std::max<std::size_t>(done, 1));
         net_.set_mode(run_mode::inference);
         return r;
     }

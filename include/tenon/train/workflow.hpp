@@ -100,6 +100,56 @@ std::unique_ptr<update_rule<T>> make_update_rule(update_kind kind, double weight
     return std::make_unique<adam<T>>(a);
 }
 
+/// Weights of the classes in the cross-entropy loss (model_settings::class_weights).
+enum class class_weighting : std::uint8_t {
+    /// Every row counts the same.
+    none,
+    /// Class c weighs n / (k n_c): n training rows, k classes, n_c rows of
+    /// class c (a common practice), so that every class weighs the same in
+    /// total and a rare class is not left to the majority.
+    balanced
+};
+
+inline const char* to_string(class_weighting w) noexcept {
+    switch (w) {
+        case class_weighting::none: return "none";
+        case class_weighting::balanced: return "balanced";
+    }
+    return "unknown";
+}
+
+/// Parses none or balanced.
+inline class_weighting parse_class_weighting(const std::string& name) {
+    class_weighting v{};
+    if (!enum_from_text(name, v)) raise(codes::train_option, "unknown class weighting '" + name + "' (" + enum_choices<class_weighting>() + ")");
+    return v;
+}
+
+/// The balanced weights from the rows per class: n / (k n_c).
+inline std::vector<double> balanced_weights_from_counts(const std::vector<double>& counts) {
+    double n = 0.0;
+    for (const double c : counts) n += c;
+    std::vector<double> w(counts.size());
+    for (std::size_t c = 0; c < counts.size(); ++c) {
+        if (!(counts[c] > 0.0)) {
+            raise(codes::train_option, "balanced class weights: class " + std::to_string(c) + " has no training row, so its weight n / (k n_c) is undefined");
+        }
+        w[c] = n / (static_cast<double>(counts.size()) * counts[c]);
+    }
+    return w;
+}
+
+/// The balanced weights of `labels` (class indices below `classes`):
+/// n / (k n_c) for each class c. A class without a row is an error.
+inline std::vector<double> balanced_class_weights(const std::vector<std::size_t>& labels, std::size_t classes) {
+    std::vector<double> counts(classes, 0.0);
+    for (const std::size_t c : labels) {
+        if (c >= classes) raise(codes::train_option, "balanced_class_weights: class " + std::to_string(c) + " of " + std::to_string(classes));
+        counts[c] += 1.0;
+    }
+    return balanced_weights_from_counts(counts);
+}
+
 /// Everything that shapes a model and its training besides the data.
 /// The host's controls (time budget, clock, cancel flag, observers) are
 /// the run_controls part, handed to the trainer whole.
@@ -179,7 +229,27 @@ struct model_settings : run_controls {
     /// Shuffle the training rows every epoch; false takes them in the order
     /// given (training_options::shuffle).
     bool shuffle = true;
+    /// Refit on the training plus validation rows (refit_model) after the
+    /// validated run has made every choice that reads the validation rows
+    /// (each member's stopping step, network versus baseline). Unset: on
+    /// when the training and validation rows (with a target) number fewer
+    /// than 5,000, a threshold of our own: there the validation rows are a
+    /// large share of what the model could learn from. Without validation
+    /// rows, or when the run was stopped by the time budget or the cancel
+    /// flag, no refit happens; the refit's budget is what the validated run
+    /// (its first network) left of time_budget_seconds. A team cannot
+    /// refit (true is an error there; unset means off). The plan stays
+    /// measured on the training rows, so the validation rows' preparation
+    /// does not change.
+    std::optional<bool> refit;
+    /// Classification: weights of the classes in the loss (class_weighting),
+    /// measured on the training rows; the logistic baseline uses the same.
+    class_weighting class_weights = class_weighting::none;
 };
+
+/// Whether fit_model refits for `s` on `rows` training plus validation rows
+/// (model_settings::refit; validation rows and the rest checked apart).
+inline bool refit_wanted(const model_settings& s, std::size_t rows) noexcept { return s.refit.value_or(rows < 5000); }
 
 /// The networks fit_model trains for `s` on `train_rows` rows:
 /// s.ensemble, or by the row count when it is 0 (see model_settings).
@@ -233,6 +303,19 @@ struct fitted_model {
     std::vector<network<T>> members;
     /// Member count: 1 + members.size().
     std::size_t member_count() const noexcept { return 1 + members.size(); }
+    /// Per member (net first): the optimizer steps at which its validation
+    /// loss was best (training_outcome::best_step); empty without validation
+    /// rows. For the logistic baseline: baseline_best_step.
+    std::vector<std::uint64_t> best_steps{};
+    std::uint64_t baseline_best_step = 0;
+    /// Class weights of the loss (model_settings::class_weights); empty for none.
+    std::vector<double> class_weights{};
+    /// After refit_model: the training plus validation rows (with a target)
+    /// it trained on, and each member's steps (net first; the baseline's
+    /// for a shipped baseline, 0 for ridge least squares). 0 and empty when
+    /// not refit.
+    std::size_t refit_rows = 0;
+    std::vector<std::uint64_t> refit_steps{};
 };
 
 /// Scores of a model on some rows, in the target's original units.
@@ -289,9 +372,12 @@ matrix<T> averaged_outputs(fitted_model<T>& model, const matrix<T>& features) {
 // members without them (from their own seeds). With an executor of more
 // than one thread, and alone (not in a team), the members train side by
 // side, each on one thread; otherwise one after the other on the workers.
+// With `step_limits` (one per member) each member stops after its own
+// number of steps. Returns every member's outcome.
 template <class T, class Seed>
-void train_members(fitted_model<T>& model, const training_options<T>& o, const model_settings& s, const Seed& member_seed,
-                   const supervised_rows<T>& train, const supervised_rows<T>& validation) {
+std::vector<training_outcome> train_members(fitted_model<T>& model, const training_options<T>& o, const model_settings& s,
+                                            const Seed& member_seed, const supervised_rows<T>& train,
+                                            const supervised_rows<T>& validation, const std::vector<std::uint64_t>& step_limits = {}) {
     struct job {
         network<T>* net = nullptr;
         training_options<T> options;
@@ -305,6 +391,7 @@ void train_members(fitted_model<T>& model, const training_options<T>& o, const m
         jobs[k].net = k == 0 ? &model.net : &model.members[k - 1];
         jobs[k].options = o;
         jobs[k].options.seed = member_seed(k);
+        if (!step_limits.empty()) jobs[k].options.max_steps = static_cast<std::size_t>(step_limits[k]);
         if (k > 0) {
             jobs[k].options.on_epoch = nullptr;
             jobs[k].options.on_batch = nullptr;
@@ -341,9 +428,48 @@ void train_members(fitted_model<T>& model, const training_options<T>& o, const m
         for (auto& j : jobs) run_one(j);
     }
     model.outcome = jobs[0].outcome;
+    std::vector<training_outcome> outcomes;
+    for (auto& j : jobs) outcomes.push_back(std::move(j.outcome));
+    return outcomes;
+}
+
+// He initialization suits rectifier-like units (He et al. 2015); Glorot
+// suits tanh and sigmoid (Glorot & Bengio 2010).
+inline initializer hidden_initializer(activation a) noexcept {
+    const bool rectifier = a == activation::relu || a == activation::leaky_relu || a == activation::elu || a == activation::gelu ||
+                           a == activation::gelu_tanh;
+    return initializer{rectifier ? init_scheme::he : init_scheme::glorot, init_distribution::uniform};
+}
+
+// A network with a linear path starts from the linear fit `b`: the path's
+// weights and the output bias from it, the hidden layers' output weights
+// at zero, so training starts at the fit's predictions and the hidden
+// layers learn what it leaves. False when `n` has no linear path.
+template <class T>
+bool start_from_linear(network<T>& n, const linear_fit& b) {
+    if (n.layer_count() == 0) return false;
+    auto* bypass = dynamic_cast<linear_bypass<T>*>(&n.layer_at(0));
+    if (!bypass) return false;
+    auto* output = dynamic_cast<dense<T>*>(&bypass->layer_at(bypass->layer_count() - 1));
+    if (!output || !output->has_bias()) return false;
+    matrix<T>& w = bypass->linear_weights().value();
+    for (std::size_t k = 0; k < w.size(); ++k) w.data()[k] = static_cast<T>(b.weights[k]);
+    output->weights().value().fill(T(0));
+    for (std::size_t j = 0; j < output->outputs(); ++j) output->bias().value().data()[j] = static_cast<T>(b.intercept[j]);
+    return true;
+}
+
+// Seed of ensemble member k: the golden-ratio increment of SplitMix64
+// (Steele, Lea & Flood 2014) spreads them over the seed space.
+inline std::uint64_t member_seed(std::uint64_t seed, std::size_t k) noexcept {
+    return seed + static_cast<std::uint64_t>(k) * 0x9E3779B97F4A7C15ull;
 }
 
 }  // namespace detail
+
+template <class T>
+bool refit_model(fitted_model<T>& model, const table& t, const std::vector<std::size_t>& train_rows,
+                 const std::vector<std::size_t>& validation_rows, const model_settings& s);
 
 /// Measures `preparation` on `train_rows`, trains a perceptron on them with early
 /// stopping on `validation_rows` (which may be empty: then training runs all
@@ -362,6 +488,7 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
                                    "plan is measured over all members' training rows");
     }
     if (shards) require_same_columns(t, *s.exchange, "fit_model");
+    if (s.team && s.refit.value_or(false)) raise(codes::train_option, "fit_model: a team cannot refit (model_settings::refit)");
     measured_plan measured = preparation.measure(t, train_rows, shards ? s.exchange : nullptr);
     // Preparing the rows can fail on one member alone (e.g. a missing cell
     // without a fill in its shard): the members agree on failing before the
@@ -396,12 +523,7 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
         }
         sizes.push_back(measured.feature_count());
         sizes.push_back(classify ? measured.class_count() : 1);  // the hidden widths go between, once the row count is known
-        // He initialization suits rectifier-like units (He et al. 2015); Glorot
-        // suits tanh and sigmoid (Glorot & Bengio 2010).
-        const bool rectifier = s.hidden_activation == activation::relu || s.hidden_activation == activation::leaky_relu ||
-                               s.hidden_activation == activation::elu || s.hidden_activation == activation::gelu ||
-                               s.hidden_activation == activation::gelu_tanh;
-        init = initializer{rectifier ? init_scheme::he : init_scheme::glorot, init_distribution::uniform};
+        init = detail::hidden_initializer(s.hidden_activation);
         linear_path = s.linear_path.value_or(!classify);
     };
 #if TENON_HAS_EXCEPTIONS
@@ -434,18 +556,7 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
     // layers' output weights at zero, so training starts at the baseline's
     // predictions and the hidden layers learn what it leaves.
     std::optional<network_snapshot<T>> baseline_net;  // the network computing the baseline, when it has a linear path
-    const auto start_from_baseline = [&](network<T>& n) {
-        if (n.layer_count() == 0) return false;
-        auto* bypass = dynamic_cast<linear_bypass<T>*>(&n.layer_at(0));
-        if (!bypass) return false;
-        auto* output = dynamic_cast<dense<T>*>(&bypass->layer_at(bypass->layer_count() - 1));
-        if (!output || !output->has_bias()) return false;
-        matrix<T>& w = bypass->linear_weights().value();
-        for (std::size_t k = 0; k < w.size(); ++k) w.data()[k] = static_cast<T>(model.baseline.weights[k]);
-        output->weights().value().fill(T(0));
-        for (std::size_t j = 0; j < output->outputs(); ++j) output->bias().value().data()[j] = static_cast<T>(model.baseline.intercept[j]);
-        return true;
-    };
+    const auto start_from_baseline = [&](network<T>& n) { return detail::start_from_linear(n, model.baseline); };
     if (!s.team && !train.is_classification()) {
         model.baseline = fit_least_squares(train.features, train.targets);
         if (start_from_baseline(model.net)) baseline_net = model.net.snapshot();
@@ -456,7 +567,7 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
     if (s.team && s.ensemble > 1)
         raise(codes::train_option, "fit_model: a team trains one network; an ensemble of " + std::to_string(s.ensemble) + " is not supported");
     const std::size_t member_total = s.team ? 1 : ensemble_size(s, model.train_rows);
-    const auto member_seed = [&](std::size_t k) { return s.seed + static_cast<std::uint64_t>(k) * 0x9E3779B97F4A7C15ull; };
+    const auto member_seed = [&](std::size_t k) { return detail::member_seed(s.seed, k); };
     for (std::size_t k = 1; k < member_total; ++k) {
         model.members.push_back(make_mlp<T>(sizes, s.hidden_activation, init, member_seed(k), activation::identity, linear_path));
         if (baseline_net) start_from_baseline(model.members.back());
@@ -474,6 +585,17 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
     o.min_improvement = s.min_improvement;
     o.seed = s.seed;
     o.loss = loss;
+    if (s.class_weights != class_weighting::none && !train.is_classification()) {
+        raise(codes::train_option, std::string("fit_model: class weights (") + to_string(s.class_weights) + ") need a classification target; '" +
+                                       model.plan.target_name() + "' is a regression target");
+    }
+    if (s.class_weights == class_weighting::balanced && train.is_classification()) {
+        std::vector<double> counts(train.class_count, 0.0);
+        for (const std::size_t c : train.labels) counts[c] += 1.0;
+        if (shards) s.team->sum(counts.data(), counts.size());  // over all members' shards
+        model.class_weights = balanced_weights_from_counts(counts);
+        for (const double w : model.class_weights) o.loss_settings.class_weights.push_back(static_cast<T>(w));
+    }
     static_cast<run_controls&>(o) = s;  // budget, clock, cancel flag, observers
     o.team = s.team;
     o.member_rows = s.member_rows;
@@ -498,7 +620,9 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
         auto logistic_rule = make_update_rule<T>(s.update);
         constant_rate logistic_schedule(s.learning_rate);
         trainer<T> lt(logistic, *logistic_rule, logistic_schedule, std::move(lo));
-        logistic_loss = lt.run(train, validation).best_validation_loss;
+        const training_outcome logistic_outcome = lt.run(train, validation);
+        logistic_loss = logistic_outcome.best_validation_loss;
+        model.baseline_best_step = logistic_outcome.best_step;
         linear_fit& b = model.baseline;
         b.features = train.features.shape()[1];
         b.outputs = train.class_count;
@@ -509,17 +633,23 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
         b.intercept.assign(c.data(), c.data() + c.size());
     }
 
-    detail::train_members(model, o, s, member_seed, train, validation);
+    const std::vector<training_outcome> member_outcomes = detail::train_members(model, o, s, member_seed, train, validation);
+    if (validation.rows() > 0)
+        for (const auto& m : member_outcomes) model.best_steps.push_back(m.best_step);
     // Ship the better of the two on validation: when the baseline's loss is
     // lower, the network becomes the baseline (for regression: hidden
     // layers' output weights zero, linear path and bias from the baseline).
     if (model.baseline.features > 0 && validation.rows() > 0 && model.outcome.best_epoch > 0) {
         const matrix<T> predicted = detail::averaged_outputs(model, validation.features);
         if (train.is_classification()) {
-            double cross_entropy = 0.0;
-            for (std::size_t i = 0; i < validation.rows(); ++i)
-                cross_entropy -= std::log(std::max(static_cast<double>(predicted(i, validation.labels[i])), 1e-300));
-            model.network_validation_loss = cross_entropy / static_cast<double>(validation.rows());
+            // Weighted as the loss is (the logistic baseline's loss too).
+            double cross_entropy = 0.0, weight = 0.0;
+            for (std::size_t i = 0; i < validation.rows(); ++i) {
+                const double w = model.class_weights.empty() ? 1.0 : model.class_weights[validation.labels[i]];
+                cross_entropy -= w * std::log(std::max(static_cast<double>(predicted(i, validation.labels[i])), 1e-300));
+                weight += w;
+            }
+            model.network_validation_loss = cross_entropy / weight;
             model.baseline_validation_loss = logistic_loss;
         } else {
             double network_error = 0.0, baseline_error = 0.0;
@@ -548,7 +678,162 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
             }
         }
     }
+    // The refit on training plus validation rows (model_settings::refit).
+    const bool cut = model.outcome.reason == stop_reason::time_budget || model.outcome.reason == stop_reason::cancelled;
+    if (!s.team && !cut && validation.rows() > 0 && refit_wanted(s, model.train_rows + model.validation_rows)) {
+        pool.reset();  // refit_model starts its own
+        model_settings rest = s;  // the refit gets the time budget the validated run left
+        if (rest.time_budget_seconds > 0.0) rest.time_budget_seconds -= model.outcome.seconds;
+        if (s.time_budget_seconds <= 0.0 || rest.time_budget_seconds > 0.0) refit_model(model, t, train_rows, validation_rows, rest);
+    }
     return model;
+}
+
+/// Trains `model` (from fit_model with the same settings, before any refit)
+/// again on `train_rows` plus `validation_rows`, without validation: each
+/// member from its own initial weights and seed for the optimizer steps at
+/// which its validation loss was best (fitted_model::best_steps), the
+/// baseline on the same rows (ridge least squares; multinomial logistic
+/// regression for its own best step count). A network with a linear path
+/// starts from the refit ridge fit, as fit_model starts from its ridge fit.
+/// What the validated run chose stays: the member count, network versus
+/// baseline, the plan (measured on the training rows) and the validation
+/// losses. No other rows are read. The host's observers are not called;
+/// the time budget and cancel flag apply to the refit alone, and when
+/// either stops a member early (or it diverges) the model is left as it
+/// was and the function returns false. Returns true when refit (then
+/// fitted_model::refit_rows and refit_steps say how).
+/// A host calibrates on the validation rows before calling this
+/// (train/calibration.hpp needs rows the model did not train on).
+template <class T>
+bool refit_model(fitted_model<T>& model, const table& t, const std::vector<std::size_t>& train_rows,
+                 const std::vector<std::size_t>& validation_rows, const model_settings& s) {
+    TENON_REQUIRE_SCALAR(T);
+    if (s.team) raise(codes::train_option, "refit_model: a team cannot refit");
+    if (model.refit_rows > 0) raise(codes::train_option, "refit_model: the model was refit already (on " + std::to_string(model.refit_rows) + " rows)");
+    if (validation_rows.empty() || model.best_steps.empty()) {
+        raise(codes::train_option, "refit_model: the model has no validated stopping step to refit for (fit_model was given no validation rows)");
+    }
+    if (model.best_steps.size() != model.member_count() && !model.kept_baseline) {
+        raise(codes::train_option, "refit_model: " + std::to_string(model.best_steps.size()) + " stopping steps for " +
+                                       std::to_string(model.member_count()) + " members");
+    }
+    for (const std::uint64_t steps : model.best_steps)
+        if (steps == 0) return false;  // no kept epoch (e.g. diverged at once): nothing to repeat
+    const bool classify = model.plan.target_type() == target_kind::classification;
+    if (classify && model.baseline.features > 0 && model.baseline_best_step == 0) return false;
+
+    std::vector<std::size_t> rows(train_rows);
+    rows.insert(rows.end(), validation_rows.begin(), validation_rows.end());
+    supervised_rows<T> all = detail::to_supervised(model.plan.template apply<T>(t, rows), model.plan);
+    const supervised_rows<T> none;
+
+    training_options<T> o;
+    o.epochs = std::numeric_limits<std::size_t>::max();  // the step limit ends each run
+    o.batch_size = s.batch_size;
+    o.patience = 0;
+    o.seed = s.seed;
+    o.loss = model.loss;
+    for (const double w : model.class_weights) o.loss_settings.class_weights.push_back(static_cast<T>(w));
+    static_cast<run_controls&>(o) = s;  // budget, clock, cancel flag
+    o.on_epoch = nullptr;
+    o.on_batch = nullptr;
+    o.shuffle = s.shuffle;
+    std::unique_ptr<thread_pool> pool;
+    if (s.workers) {
+        o.workers = s.workers;
+    } else if (s.threads != 1) {
+        pool = std::make_unique<thread_pool>(s.threads);
+        o.workers = pool.get();
+    }
+    const auto completed = [](const training_outcome& r) { return r.reason == stop_reason::step_limit; };
+
+    // The baseline on all rows.
+    linear_fit baseline = model.baseline;
+    network<T> logistic;
+    std::uint64_t logistic_steps = 0;
+    if (model.baseline.features > 0 && !classify) {
+        baseline = fit_least_squares(all.features, all.targets);
+    } else if (model.baseline.features > 0) {
+        logistic = make_mlp<T>({all.features.shape()[1], all.class_count}, activation::identity,
+                               initializer{init_scheme::glorot, init_distribution::uniform}, s.seed);
+        training_options<T> lo = o;
+        lo.max_steps = static_cast<std::size_t>(model.baseline_best_step);
+        auto rule = make_update_rule<T>(s.update);
+        constant_rate schedule(s.learning_rate);
+        trainer<T> lt(logistic, *rule, schedule, std::move(lo));
+        const training_outcome r = lt.run(all, none);
+        if (!completed(r)) return false;
+        logistic_steps = r.steps;
+        baseline.weights.assign(logistic.find("output.weights").value().data(),
+                                logistic.find("output.weights").value().data() + logistic.find("output.weights").value().size());
+        baseline.intercept.assign(logistic.find("output.bias").value().data(),
+                                  logistic.find("output.bias").value().data() + logistic.find("output.bias").value().size());
+    }
+
+    // The networks, as fit_model built them, from their own seeds.
+    std::vector<std::size_t> sizes{model.plan.feature_count()};
+    const std::vector<std::size_t> hidden = hidden_widths(s, model.train_rows);
+    sizes.insert(sizes.end(), hidden.begin(), hidden.end());
+    sizes.push_back(classify ? model.plan.class_count() : 1);
+    const initializer init = detail::hidden_initializer(s.hidden_activation);
+    const bool linear_path = s.linear_path.value_or(!classify);
+    const auto build = [&](std::size_t k) {
+        network<T> n = make_mlp<T>(sizes, s.hidden_activation, init, detail::member_seed(s.seed, k), activation::identity, linear_path);
+        if (model.baseline.features > 0 && !classify) detail::start_from_linear(n, baseline);
+        return n;
+    };
+    std::vector<std::uint64_t> steps;
+    if (model.kept_baseline) {
+        if (classify) {
+            model.net = std::move(logistic);
+            steps.push_back(logistic_steps);
+        } else {
+            model.net = build(0);  // the linear path from the refit ridge fit, the hidden layers silent
+            steps.push_back(0);
+        }
+    } else {
+        network<T> first = build(0);
+        if (first.parameter_count() != model.net.parameter_count()) {
+            raise(codes::train_option, "refit_model: the settings build a network of " + std::to_string(first.parameter_count()) +
+                                           " parameters, the model's has " + std::to_string(model.net.parameter_count()) +
+                                           " (pass the settings fit_model was given)");
+        }
+        // The new networks train in the model's place; the old ones come back if a run is cut.
+        network<T> old_net = std::move(model.net);
+        std::vector<network<T>> old_members = std::move(model.members);
+        const training_outcome old_outcome = model.outcome;
+        model.net = std::move(first);
+        model.members.clear();
+        for (std::size_t k = 1; k < model.best_steps.size(); ++k) model.members.push_back(build(k));
+        const auto seeds = [&](std::size_t k) { return detail::member_seed(s.seed, k); };
+        std::vector<training_outcome> outcomes;
+#if TENON_HAS_EXCEPTIONS
+        try {
+            outcomes = detail::train_members(model, o, s, seeds, all, none, model.best_steps);
+        } catch (...) {  // the model as it was
+            model.net = std::move(old_net);
+            model.members = std::move(old_members);
+            model.outcome = old_outcome;
+            throw;
+        }
+#else
+        outcomes = detail::train_members(model, o, s, seeds, all, none, model.best_steps);
+#endif
+        model.outcome = old_outcome;  // the validated run's
+        for (const auto& r : outcomes) {
+            if (!completed(r)) {
+                model.net = std::move(old_net);
+                model.members = std::move(old_members);
+                return false;
+            }
+            steps.push_back(r.steps);
+        }
+    }
+    model.baseline = std::move(baseline);
+    model.refit_rows = all.rows();
+    model.refit_steps = std::move(steps);
+    return true;
 }
 
 /// Predictions for prepared features: class probabilities (rows x classes)
