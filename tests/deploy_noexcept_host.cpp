@@ -28,7 +28,7 @@ int main(int argc, char** argv) {
         tenon::set_failure_handler([](const char* code, const char* message) noexcept {
             std::fprintf(stderr, "host handler saw [%s] %s\n", code, message);
         });
-        tenon::raise(tenon::codes::invalid_argument, "a failure asked for\nby the test");
+        tenon::raise(tenon::codes::core_argument_invalid, "a failure asked for\nby the test");
     }
     const std::string path = std::string(TENON_SOURCE_DIR) + "/tests/fixtures/deploy/pump_v1_float.tnm";
     tenon::model_file<float> file;

@@ -79,7 +79,7 @@ TEST_CASE("error codes are unique and well-formed") {
 }
 
 TEST_CASE("tenon::error carries its code and prefixes what() with it") {
-    const tenon::error e = expect_error([] { tenon::raise(tenon::codes::invalid_argument, "widget 3: bad"); });
+    const tenon::error e = expect_error([] { tenon::raise(tenon::codes::core_argument_invalid, "widget 3: bad"); });
     CHECK(e.code() == "core.argument.invalid");
     CHECK(std::string(e.what()) == "[core.argument.invalid] widget 3: bad");
 }
@@ -87,7 +87,7 @@ TEST_CASE("tenon::error carries its code and prefixes what() with it") {
 TEST_CASE("a tenon::error message stays on one line whatever it quotes: control characters are escaped") {
     // A cell holding CR, LF, NUL, a tab, ESC and DEL, as a CSV field may.
     const std::string cell = std::string("a\r\nb") + '\0' + "c\td\x1b" + '\x7f' + "\xc3\xa9";
-    const tenon::error e = expect_error([&] { tenon::raise(tenon::codes::invalid_argument, "cell '" + cell + "'"); });
+    const tenon::error e = expect_error([&] { tenon::raise(tenon::codes::core_argument_invalid, "cell '" + cell + "'"); });
     const std::string what = e.what();
     CHECK(what == "[core.argument.invalid] cell 'a\\r\\nb\\0c\\td\\x1b\\x7f\xc3\xa9'");  // UTF-8 (é) kept
     CHECK(std::none_of(what.begin(), what.end(), [](char c) { return static_cast<unsigned char>(c) < 0x20 || c == 0x7f; }));

@@ -40,6 +40,34 @@ tenon::model_file<T> small_model_file(bool with_replay = true) {
     return tenon::make_model_file(fitted, t, train, small_settings(), o);
 }
 
+}  // namespace
+
+// The fitted model keeps its training rows and settings, so the short form
+// writes the same bytes as the form that is handed them again.
+TEST_CASE("make_model_file from what the fitted model keeps equals the form given the rows and settings") {
+    using namespace deploy_test;
+    const auto t = pump_table(120, 11);
+    const auto train = range(0, 90), validation = range(90, 120);
+    tenon::model_settings s = small_settings();
+    int epochs_seen = 0;
+    s.on_epoch = [&](const tenon::epoch_summary&) { return ++epochs_seen > 0; };  // a host control, not kept
+    auto fitted = tenon::fit_model<float>(t, condition_plan(), train, validation, s);
+    CHECK(fitted.fitted_rows == train);
+    CHECK(!fitted.settings.on_epoch);
+    CHECK(fitted.settings.seed == s.seed);
+    tenon::model_file_options o;
+    o.created_unix_seconds = 1700000000;
+    const auto given = tenon::model_file_to_bytes(tenon::make_model_file(fitted, t, train, s, o));
+    const auto kept = tenon::model_file_to_bytes(tenon::make_model_file(fitted, t, o));
+    CHECK(given == kept);
+    const auto fewer = pump_table(60, 11);
+    CHECK_THROWS_WITH_AS(tenon::make_model_file(fitted, fewer, o),
+                         "[train.option.invalid] make_model_file: the model was fitted on row 60, and the table has 60 rows (pass the table fit_model was given)",
+                         tenon::error);
+}
+
+namespace {
+
 std::string temp_path(const std::string& name) {
     return std::string("/tmp/tenon_deploy_test_") + std::to_string(::getpid()) + "_" + name;
 }

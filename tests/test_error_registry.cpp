@@ -240,6 +240,28 @@ TEST_CASE("the registry's codes are unique, dotted names starting with their are
     }
 }
 
+// Each identifier is its code with '_' for '.', so that codes::x_y_z is
+// "x.y.z" in every message; the old short identifiers are aliases of them.
+TEST_CASE("every error identifier spells its code") {
+    std::size_t entries = 0;
+#define TENON_TEST_IDENTIFIER_SPELLS_CODE(identifier, code, meaning)  \
+    {                                                                 \
+        std::string dotted = #identifier;                             \
+        std::replace(dotted.begin(), dotted.end(), '_', '.');         \
+        std::string expected = code;                                  \
+        std::replace(expected.begin(), expected.end(), '_', '.');     \
+        INFO(#identifier << " = " << code);                           \
+        CHECK(dotted == expected);                                    \
+        CHECK(std::string(tenon::codes::identifier) == code);         \
+        ++entries;                                                    \
+    }
+    TENON_ERROR_CODES(TENON_TEST_IDENTIFIER_SPELLS_CODE)
+#undef TENON_TEST_IDENTIFIER_SPELLS_CODE
+    CHECK(entries == static_cast<std::size_t>(tenon::error_registry_end() - tenon::error_registry_begin()));
+    CHECK(std::string(tenon::codes::train_option) == tenon::codes::train_option_invalid);  // an alias of an earlier release
+    CHECK(std::string(tenon::codes::deploy_checksum) == "deploy.model.checksum");
+}
+
 // The one tool code no other test triggered when the registry test came.
 TEST_CASE("an unknown subcommand is refused with cli.command.unknown and exit status 2") {
     std::string program = "tenon", command = "calibrate";

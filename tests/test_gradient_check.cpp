@@ -222,7 +222,7 @@ class cube_operation final : public tenon::custom_operation<T> {
 public:
     const char* name() const noexcept override { return "cube"; }
     shape2 output_shape(const tenon::operand_list<T>& in) const override {
-        if (in.size() != 1) tenon::raise(tenon::codes::invalid_argument, "cube: expects one input");
+        if (in.size() != 1) tenon::raise(tenon::codes::core_argument_invalid, "cube: expects one input");
         return tenon::shape_of(in[0]);
     }
     void forward(const tenon::operand_list<T>& in, matrix<T>& out) const override {
@@ -267,7 +267,7 @@ class weighted_sum_operation final : public tenon::custom_operation<T> {
 public:
     const char* name() const noexcept override { return "weighted_sum"; }
     shape2 output_shape(const tenon::operand_list<T>& in) const override {
-        if (in.size() != 2) tenon::raise(tenon::codes::invalid_argument, "weighted_sum: expects two inputs");
+        if (in.size() != 2) tenon::raise(tenon::codes::core_argument_invalid, "weighted_sum: expects two inputs");
         const shape2 sx = tenon::shape_of(in[0]);
         tenon::require_shape(tenon::shape_of(in[1]), {1, sx.cols}, "weighted_sum weights");
         return {sx.rows, 1};

@@ -14,7 +14,7 @@ TENON_NAMESPACE_BEGIN
 namespace detail {
 template <class T>
 tape<T>& owner_of(const var<T>& v) {
-    if (!v.owner()) raise(codes::foreign_value, "operation on an empty var (recorded on no tape)");
+    if (!v.owner()) raise(codes::autodiff_value_foreign, "operation on an empty var (recorded on no tape)");
     return *v.owner();
 }
 }  // namespace detail

@@ -225,7 +225,7 @@ public:
         const shape2 ox = transpose_x ? shape2{sx.cols, sx.rows} : sx;
         const shape2 oy = transpose_y ? shape2{sy.cols, sy.rows} : sy;
         if (ox.cols != oy.rows) {
-            raise(codes::shape_mismatch, std::string("matmul: inner dimensions differ: left operand ") + to_string(sx) +
+            raise(codes::core_shape_mismatch, std::string("matmul: inner dimensions differ: left operand ") + to_string(sx) +
                                              (transpose_x ? " (transposed)" : "") + ", right operand " + to_string(sy) +
                                              (transpose_y ? " (transposed)" : ""));
         }
@@ -243,10 +243,10 @@ public:
         if (kind == op_kind::sum_all || kind == op_kind::mean_all) out = {1, 1};
         if (kind == op_kind::logsumexp_rows) out = {sx.rows, 1};
         if ((kind == op_kind::logsumexp_rows || kind == op_kind::log_softmax_rows) && sx.cols == 0) {
-            raise(codes::shape_mismatch, std::string(op_name(kind)) + ": needs at least one column, got " + to_string(sx));
+            raise(codes::core_shape_mismatch, std::string(op_name(kind)) + ": needs at least one column, got " + to_string(sx));
         }
         if (kind == op_kind::clamp && !(a <= b)) {
-            raise(codes::invalid_argument, "clamp: lower bound " + std::to_string(a) + " exceeds upper bound " + std::to_string(b));
+            raise(codes::core_argument_invalid, "clamp: lower bound " + std::to_string(a) + " exceeds upper bound " + std::to_string(b));
         }
         const std::uint32_t ids[1] = {x.id()};
         auto& n = push(kind, ids, 1, out);
@@ -262,7 +262,7 @@ public:
         if (kind != op_kind::sum_axis && kind != op_kind::mean_axis) raise_wrong_kind("reduce_axis", kind);
         const shape2 sx = shape_of(value_of(x));
         if (axis != 0 && axis != 1) {
-            raise(codes::invalid_argument, std::string(op_name(kind)) + ": axis must be 0 (over rows) or 1 (over columns), got " + std::to_string(axis));
+            raise(codes::core_argument_invalid, std::string(op_name(kind)) + ": axis must be 0 (over rows) or 1 (over columns), got " + std::to_string(axis));
         }
         const std::uint32_t ids[1] = {x.id()};
         auto& n = push(kind, ids, 1, axis == 0 ? shape2{1, sx.cols} : shape2{sx.rows, 1});
@@ -292,20 +292,20 @@ public:
     /// leaky_relu or the alpha of elu).
     var<T> affine_activation(var<T> x, var<T> weights, var<T> bias, op_kind unit, T coefficient = T(0)) {
         if (!fusable_activation(unit, coefficient)) {
-            raise(codes::invalid_argument, std::string("affine_activation: activation '") + op_name(unit) + "' with coefficient " +
+            raise(codes::core_argument_invalid, std::string("affine_activation: activation '") + op_name(unit) + "' with coefficient " +
                                                std::to_string(coefficient) +
                                                " is not fused (relu, tanh, sigmoid, leaky_relu or elu with a coefficient >= 0 are)");
         }
         const shape2 sx = shape_of(value_of(x)), sw = shape_of(value_of(weights));
         if (sx.cols != sw.rows) {
-            raise(codes::shape_mismatch, "affine_activation: inner dimensions differ: input " + to_string(sx) + ", weights " + to_string(sw));
+            raise(codes::core_shape_mismatch, "affine_activation: inner dimensions differ: input " + to_string(sx) + ", weights " + to_string(sw));
         }
         std::uint32_t ids[3] = {x.id(), weights.id(), 0};
         std::size_t count = 2;
         if (bias.valid()) {
             const shape2 sb = shape_of(value_of(bias));
             if (sb != shape2{1, sw.cols}) {
-                raise(codes::shape_mismatch, "affine_activation: bias " + to_string(sb) + " is not a 1 x " + std::to_string(sw.cols) + " row");
+                raise(codes::core_shape_mismatch, "affine_activation: bias " + to_string(sb) + " is not a 1 x " + std::to_string(sw.cols) + " row");
             }
             ids[2] = bias.id();
             count = 3;
@@ -326,9 +326,9 @@ public:
     var<T> softmax_cross_entropy(var<T> logits, var<T> weights) {
         const shape2 sz = shape_of(value_of(logits)), sq = shape_of(value_of(weights));
         if (sz != sq) {
-            raise(codes::shape_mismatch, "softmax_cross_entropy: logits " + to_string(sz) + " and weights " + to_string(sq) + " differ in shape");
+            raise(codes::core_shape_mismatch, "softmax_cross_entropy: logits " + to_string(sz) + " and weights " + to_string(sq) + " differ in shape");
         }
-        if (sz.cols == 0) raise(codes::shape_mismatch, "softmax_cross_entropy: needs at least one column, got " + to_string(sz));
+        if (sz.cols == 0) raise(codes::core_shape_mismatch, "softmax_cross_entropy: needs at least one column, got " + to_string(sz));
         const std::uint32_t ids[2] = {logits.id(), weights.id()};
         auto& n = push(op_kind::softmax_cross_entropy, ids, 2, {1, 1});
         return finish(n);
@@ -337,7 +337,7 @@ public:
     /// Records a host-defined operation with up to four inputs.
     var<T> apply(const custom_operation<T>& op, std::initializer_list<var<T>> operands) {
         if (operands.size() > detail::max_operands) {
-            raise(codes::too_many_inputs, std::string("custom operation '") + op.name() + "': " + std::to_string(operands.size()) +
+            raise(codes::autodiff_custom_too_many_inputs, std::string("custom operation '") + op.name() + "': " + std::to_string(operands.size()) +
                                               " inputs given, at most " + std::to_string(detail::max_operands) + " supported");
         }
         std::uint32_t ids[detail::max_operands] = {};
@@ -375,7 +375,7 @@ public:
     void backward(var<T> loss) {
         const auto& l = node_of(loss);
         if (shape_of(value_of(loss)) != shape2{1, 1}) {
-            raise(codes::backward_not_scalar, std::string("backward from operation #") + std::to_string(loss.id()) + " (" +
+            raise(codes::autodiff_backward_not_scalar, std::string("backward from operation #") + std::to_string(loss.id()) + " (" +
                                                   node_name(loss.id()) + ") of shape " + to_string(shape_of(value_of(loss))) +
                                                   ": reduce it to 1x1 first, e.g. with sum() or mean()");
         }
@@ -414,7 +414,7 @@ private:
 
     const detail::tape_node<T>& node_of(var<T> v) const {
         if (v.owner() != this || v.generation() != generation_ || v.id() >= count_) {
-            raise(codes::foreign_value, v.owner() != this ? "value #" + std::to_string(v.id()) + " was recorded on another tape"
+            raise(codes::autodiff_value_foreign, v.owner() != this ? "value #" + std::to_string(v.id()) + " was recorded on another tape"
                                                           : "value #" + std::to_string(v.id()) + " was recorded before the tape was cleared");
         }
         return nodes_[v.id()];
@@ -480,7 +480,7 @@ private:
         };
         shape2 out;
         if (!fit(x.rows, y.rows, out.rows) || !fit(x.cols, y.cols, out.cols)) {
-            raise(codes::shape_mismatch, std::string(op_name(kind)) + ": shapes " + to_string(x) + " and " + to_string(y) +
+            raise(codes::core_shape_mismatch, std::string(op_name(kind)) + ": shapes " + to_string(x) + " and " + to_string(y) +
                                              " do not broadcast (each dimension must match or be 1)");
         }
         return out;
@@ -501,7 +501,7 @@ private:
         }
     }
     [[noreturn]] static void raise_wrong_kind(const char* recorder, op_kind k) {
-        raise(codes::invalid_argument, std::string("tape::") + recorder + ": operation '" + op_name(k) + "' is not recorded by " +
+        raise(codes::core_argument_invalid, std::string("tape::") + recorder + ": operation '" + op_name(k) + "' is not recorded by " +
                                            recorder + "(); use its own function (see operations.hpp)");
     }
 
@@ -516,7 +516,7 @@ private:
         for (std::size_t k = 0; k < m.size(); ++k) {
             if (!std::isfinite(m.data()[k])) {
                 const std::size_t c = m.shape()[1];
-                raise(codes::non_finite, "operation #" + std::to_string(id) + " (" + node_name(id) +
+                raise(codes::autodiff_non_finite, "operation #" + std::to_string(id) + " (" + node_name(id) +
                                              ") produced " + std::to_string(m.data()[k]) + " at row " + std::to_string(k / c) +
                                              ", column " + std::to_string(k % c));
             }
@@ -530,7 +530,7 @@ private:
             if (!g) continue;
             for (std::size_t k = 0; k < g->size(); ++k) {
                 if (!std::isfinite(g->data()[k])) {
-                    raise(codes::non_finite, "backward through operation #" + std::to_string(id) + " (" + node_name(id) +
+                    raise(codes::autodiff_non_finite, "backward through operation #" + std::to_string(id) + " (" + node_name(id) +
                                                  ") produced a gradient of " + std::to_string(g->data()[k]) + " for its input #" +
                                                  std::to_string(n.inputs[i]));
                 }
@@ -1023,7 +1023,7 @@ private:
 
 template <class T>
 const matrix<T>& var<T>::value() const {
-    if (!tape_) raise(codes::foreign_value, "value() on an empty var (recorded on no tape)");
+    if (!tape_) raise(codes::autodiff_value_foreign, "value() on an empty var (recorded on no tape)");
     return tape_->value(*this);
 }
 

@@ -60,7 +60,7 @@ inline const char* activation_name(activation v) noexcept { return to_string(v);
 /// The activation with the given name; raises model.record.unknown_kind.
 inline activation parse_activation(const std::string& name) {
     activation a{};
-    if (!enum_from_text(name, a)) raise(codes::model_unknown_kind, "activation '" + name + "' is not known (" + enum_choices<activation>() + ")");
+    if (!enum_from_text(name, a)) raise(codes::model_record_unknown_kind, "activation '" + name + "' is not known (" + enum_choices<activation>() + ")");
     return a;
 }
 

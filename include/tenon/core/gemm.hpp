@@ -107,7 +107,7 @@ inline kernel_path active_kernel_path() noexcept {
 /// thread multiplies.
 inline void set_kernel_path(kernel_path p) {
     if (!kernel_path_available(p)) {
-        raise(codes::invalid_argument, std::string("set_kernel_path: the ") + kernel_path_name(p) + " path is not available " +
+        raise(codes::core_argument_invalid, std::string("set_kernel_path: the ") + kernel_path_name(p) + " path is not available " +
                                            (p == kernel_path::blas ? "(build without the tenon::blas component)"
                                                                    : "(the CPU or compiler lacks its instructions)"));
     }

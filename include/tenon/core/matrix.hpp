@@ -82,7 +82,7 @@ void copy_into(matrix<T>& dst, const matrix<T>& src) {
 /// operand, e.g. "dense layer 'hidden1' input".
 inline void require_shape(shape2 actual, shape2 expected, const std::string& what) {
     if (actual != expected) {
-        raise(codes::shape_mismatch,
+        raise(codes::core_shape_mismatch,
               what + ": expected shape " + to_string(expected) + ", got " + to_string(actual));
     }
 }
@@ -97,7 +97,7 @@ matrix<T> make_matrix(std::initializer_list<std::initializer_list<T>> rows) {
     std::size_t i = 0;
     for (const auto& row : rows) {
         if (row.size() != c) {
-            raise(codes::shape_mismatch, "make_matrix row " + std::to_string(i) + ": expected " +
+            raise(codes::core_shape_mismatch, "make_matrix row " + std::to_string(i) + ": expected " +
                                              std::to_string(c) + " values, got " + std::to_string(row.size()));
         }
         std::copy(row.begin(), row.end(), m.data() + i * c);

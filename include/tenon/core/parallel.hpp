@@ -54,7 +54,7 @@ class thread_pool final : public executor {
 public:
     explicit thread_pool(std::size_t threads = 1) : participants_(threads) {
         if (threads == 0 || threads > max_threads) {
-            raise(codes::invalid_argument, "thread_pool: the number of threads must be in [1, " + std::to_string(max_threads) +
+            raise(codes::core_argument_invalid, "thread_pool: the number of threads must be in [1, " + std::to_string(max_threads) +
                                                "], got " + std::to_string(threads));
         }
         workers_.reserve(threads - 1);

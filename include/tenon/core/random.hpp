@@ -98,7 +98,7 @@ public:
 
     /// Uniform integer in [0, n); n must be positive.
     std::uint64_t below(std::uint64_t n) {
-        if (n == 0) raise(codes::invalid_argument, "random_engine::below: the bound must be positive, got 0");
+        if (n == 0) raise(codes::core_argument_invalid, "random_engine::below: the bound must be positive, got 0");
         // Lemire (2019), algorithm 5.
         std::uint64_t high = 0;
         std::uint64_t low = detail::multiply_wide(next_u64(), n, high);

@@ -32,12 +32,12 @@ inline void check_mpi(int status, const char* call) {
     char text[MPI_MAX_ERROR_STRING];
     int length = 0;
     if (MPI_Error_string(status, text, &length) != MPI_SUCCESS) length = 0;
-    raise(codes::distributed_mpi, std::string(call) + " failed: " + (length > 0 ? std::string(text, static_cast<std::size_t>(length)) : std::string("error ") + std::to_string(status)));
+    raise(codes::distributed_mpi_failed, std::string(call) + " failed: " + (length > 0 ? std::string(text, static_cast<std::size_t>(length)) : std::string("error ") + std::to_string(status)));
 }
 
 inline int mpi_count(std::size_t n, const char* call) {
     if (n > static_cast<std::size_t>(std::numeric_limits<int>::max()))
-        raise(codes::distributed_mpi, std::string(call) + ": " + std::to_string(n) + " elements exceed MPI's int count");
+        raise(codes::distributed_mpi_failed, std::string(call) + ": " + std::to_string(n) + " elements exceed MPI's int count");
     return static_cast<int>(n);
 }
 
@@ -126,7 +126,7 @@ public:
     explicit communicator(MPI_Comm comm = MPI_COMM_WORLD) : comm_(comm) {
         int initialized = 0;
         detail::check_mpi(MPI_Initialized(&initialized), "MPI_Initialized");
-        if (!initialized) raise(codes::distributed_mpi, "communicator: MPI is not initialized (create an mpi_session first)");
+        if (!initialized) raise(codes::distributed_mpi_failed, "communicator: MPI is not initialized (create an mpi_session first)");
         detail::check_mpi(MPI_Comm_set_errhandler(comm_, MPI_ERRORS_RETURN), "MPI_Comm_set_errhandler");
         int r = 0, s = 0;
         detail::check_mpi(MPI_Comm_rank(comm_, &r), "MPI_Comm_rank");

@@ -81,7 +81,7 @@ void seed_dropout_per_rank(network<T>& net, std::uint64_t seed, std::size_t rank
 /// rank reads, or a fleet's simulated devices).
 inline std::vector<std::size_t> deal_rows(const std::vector<std::size_t>& rows, std::size_t rank, std::size_t ranks) {
     if (ranks == 0 || rank >= ranks)
-        raise(codes::invalid_argument, "deal_rows: rank " + std::to_string(rank) + " of " + std::to_string(ranks) + " ranks");
+        raise(codes::core_argument_invalid, "deal_rows: rank " + std::to_string(rank) + " of " + std::to_string(ranks) + " ranks");
     std::vector<std::size_t> out;
     out.reserve(rows.size() / ranks + 1);
     for (std::size_t i = rank; i < rows.size(); i += ranks) out.push_back(rows[i]);

@@ -79,7 +79,7 @@ struct fleet_contribution {
 template <class T>
 fleet_contribution<T> read_fleet_contribution(const std::vector<std::uint8_t>& bytes, const model_limits& limits = {}) {
     constexpr std::size_t header = 4 + 2 + 2 + 8 + 8 + 8 + 8, trailer = 4;
-    const auto fail = [&](const std::string& what) { raise(codes::distributed_fleet_bytes, "fleet contribution (" + std::to_string(bytes.size()) + " bytes): " + what); };
+    const auto fail = [&](const std::string& what) { raise(codes::distributed_fleet_bad_bytes, "fleet contribution (" + std::to_string(bytes.size()) + " bytes): " + what); };
     if (bytes.size() < header + trailer) fail("shorter than its " + std::to_string(header + trailer) + "-byte envelope");
     if (bytes[0] != 'T' || bytes[1] != 'N' || bytes[2] != 'F' || bytes[3] != 'C') fail("does not start with the magic 'TNFC'");
     const std::uint32_t stored = detail::get_u32(bytes.data() + bytes.size() - trailer);
@@ -170,7 +170,7 @@ fleet_average_result<T> average_fleet(const model_file<T>& incumbent, const std:
         kept.emplace_back(c.samples, std::move(c.model));
     }
     if (kept.empty())
-        raise(codes::distributed_fleet_empty, "average_fleet: none of the " + std::to_string(contributions.size()) + " contributions was accepted" +
+        raise(codes::distributed_fleet_no_contribution, "average_fleet: none of the " + std::to_string(contributions.size()) + " contributions was accepted" +
                                                   (r.refused.empty() ? std::string() : " (first refusal: " + r.refused.front().reason + ")"));
     const double total = static_cast<double>(r.samples);
     for (const auto& [samples, m] : kept) {
@@ -218,7 +218,7 @@ template <class T>
 fleet_gate_report gate_fleet_average(const model_file<T>& incumbent, const model_file<T>& averaged, const table& holdout,
                                      gate_metric metric = gate_metric::automatic, double margin = 0.0) {
     if (!incumbent.plan || !incumbent.plan->has_target())
-        raise(codes::deploy_missing_section, "gate_fleet_average: the incumbent has no preparation plan with a target");
+        raise(codes::deploy_model_missing_section, "gate_fleet_average: the incumbent has no preparation plan with a target");
     const measured_plan& plan = *incumbent.plan;
     const bool classify = plan.target_type() == target_kind::classification;
     if (metric == gate_metric::automatic) metric = classify ? gate_metric::accuracy : gate_metric::rmse;

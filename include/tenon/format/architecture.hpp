@@ -218,7 +218,7 @@ inline void check_record_name(const layer_record& r, std::vector<std::string>& s
     if (r.name.empty()) raise(codes::model_layer_option, "layer record of kind '" + r.kind + "' has an empty name");
     if (r.name.find('.') != std::string::npos) raise(codes::model_layer_option, "layer record: layer name '" + r.name + "' must not contain '.'");
     for (const auto& n : siblings)
-        if (n == r.name) raise(codes::model_duplicate_name, "layer record: a layer named '" + r.name + "' already exists");
+        if (n == r.name) raise(codes::model_network_duplicate_name, "layer record: a layer named '" + r.name + "' already exists");
     siblings.push_back(r.name);
 }
 
@@ -253,7 +253,7 @@ inline void check_record_options(const layer_record& r) {
     } else if (r.kind == "linear_bypass") {
         positive("linear bypass", "inputs", "outputs");
     } else if (r.kind != "residual") {
-        raise(codes::model_unknown_kind,
+        raise(codes::model_record_unknown_kind,
               "layer record '" + r.name + "': kind '" + r.kind +
                   "' is not known (dense, activation, dropout, layer_norm, batch_norm, residual, linear_bypass)");
     }
@@ -301,7 +301,7 @@ inline void collect_slots(const std::vector<layer_record>& children, const std::
 /// records: this builds a list as long as the layers.
 inline std::vector<weight_slot> architecture_weights(const layer_record& network_record) {
     if (network_record.kind != "network")
-        raise(codes::model_unknown_kind, "network record: expected kind 'network', got '" + network_record.kind + "'");
+        raise(codes::model_record_unknown_kind, "network record: expected kind 'network', got '" + network_record.kind + "'");
     std::vector<weight_slot> slots;
     detail::collect_slots(network_record.children, std::string(), false, slots, 0);
     detail::collect_slots(network_record.children, std::string(), true, slots, 0);

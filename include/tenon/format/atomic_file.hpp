@@ -295,7 +295,7 @@ inline load_status try_read_file_bounded(const std::string& path, std::uint64_t 
     if (end < 0) return load_status(codes::deploy_file_io, "cannot determine the size of '" + path + "'");
     const auto size = static_cast<std::uint64_t>(end);
     if (size > max_bytes || size > std::numeric_limits<std::size_t>::max())
-        return load_status(codes::deploy_oversize,
+        return load_status(codes::deploy_model_oversize,
                            "'" + path + "' has " + std::to_string(size) + " bytes, more than the limit of " +
                                std::to_string(std::min<std::uint64_t>(max_bytes, std::numeric_limits<std::size_t>::max())));
     in.seekg(0, std::ios::beg);

@@ -289,7 +289,7 @@ auto parse_section(const std::string& where, F&& parse) {
         return parse();
     } catch (const error& e) {
         if (e.code().rfind("deploy.", 0) == 0) throw;
-        raise(codes::deploy_malformed, where + ": " + e.what());
+        raise(codes::deploy_model_malformed, where + ": " + e.what());
     }
 #else
     (void)where;
@@ -655,92 +655,92 @@ inline load_status check_container(const std::uint8_t* data, std::size_t size, c
     const std::size_t magic_bytes = size < 8 ? size : 8;
     // An empty input may come with a null pointer, which memcmp must not see.
     if (magic_bytes > 0 && std::memcmp(data, model_magic, magic_bytes) != 0)
-        return load_status(codes::deploy_bad_magic, source + ": not a tenon model file (the first bytes are not the tenon model magic)");
+        return load_status(codes::deploy_model_magic, source + ": not a tenon model file (the first bytes are not the tenon model magic)");
     if (size > limits.max_file_bytes)
-        return load_status(codes::deploy_oversize,
+        return load_status(codes::deploy_model_oversize,
                            source + ": " + std::to_string(size) + " bytes, more than the limit of " + std::to_string(limits.max_file_bytes));
     if (size < model_header_bytes)
-        return load_status(codes::deploy_truncated,
+        return load_status(codes::deploy_model_truncated,
                            source + ": the file has " + std::to_string(size) + " bytes, fewer than the " + std::to_string(model_header_bytes) +
                                "-byte header");
     // A file written with the other byte order has every number reversed,
     // its checksum and version included: its mark names it first.
     if (get_u32(data + 12) == 0x04030201u)
-        return load_status(codes::deploy_byte_order,
+        return load_status(codes::deploy_model_byte_order,
                            source +
                                ": the byte-order mark reads 0x04030201 instead of 0x01020304: the file was "
                                "written with the other (big-endian) byte order; tenon's files are little-endian");
     if (crc32(data, 20) != get_u32(data + 20))
-        return load_status(codes::deploy_checksum, source + ": the header checksum does not match (the file is damaged)");
+        return load_status(codes::deploy_model_checksum, source + ": the header checksum does not match (the file is damaged)");
     if (get_u32(data + 12) != byte_order_mark)
-        return load_status(codes::deploy_byte_order,
+        return load_status(codes::deploy_model_byte_order,
                            source + ": the byte-order mark reads 0x" + hex_u32(get_u32(data + 12)) +
                                " instead of 0x01020304 (files are little-endian)");
     c.version = get_u16(data + 8);
     if (c.version > model_format_version)
-        return load_status(codes::deploy_newer_version,
+        return load_status(codes::deploy_model_version,
                            source + ": model format version " + std::to_string(c.version) + " is newer than this build of tenon (" +
                                version_string() + ") reads (up to version " + std::to_string(model_format_version) + "); load it with a newer tenon");
-    if (c.version == 0) return load_status(codes::deploy_malformed, source + ": model format version 0 does not exist");
+    if (c.version == 0) return load_status(codes::deploy_model_malformed, source + ": model format version 0 does not exist");
     c.scalar_bytes = data[16];
     if (c.scalar_bytes != 4 && c.scalar_bytes != 8)
-        return load_status(codes::deploy_malformed,
+        return load_status(codes::deploy_model_malformed,
                            source + ": scalar size " + std::to_string(c.scalar_bytes) + " is neither 4 (float) nor 8 (double)");
-    if (get_u16(data + 10) != 0 || data[17] != 0) return load_status(codes::deploy_malformed, source + ": reserved header bytes are not zero");
+    if (get_u16(data + 10) != 0 || data[17] != 0) return load_status(codes::deploy_model_malformed, source + ": reserved header bytes are not zero");
     const std::uint16_t count = get_u16(data + 18);
     if (count > limits.max_sections)
-        return load_status(codes::deploy_oversize,
+        return load_status(codes::deploy_model_oversize,
                            source + ": " + std::to_string(count) + " sections, more than the limit of " + std::to_string(limits.max_sections));
     std::size_t at = model_header_bytes;
     for (std::uint16_t k = 0; k < count; ++k) {
         if (size - at < section_header_bytes)
-            return load_status(codes::deploy_truncated,
+            return load_status(codes::deploy_model_truncated,
                                source + ": the file ends at byte " + std::to_string(size) + " inside the header of section " + std::to_string(k + 1) +
                                    " of " + std::to_string(count));
         const std::uint8_t* h = data + at;
         if (crc32(h, 20) != get_u32(h + 20))
-            return load_status(codes::deploy_checksum,
+            return load_status(codes::deploy_model_checksum,
                                source + ": the header of section " + std::to_string(k + 1) + " at byte " + std::to_string(at) +
                                    " fails its checksum (the file is damaged)");
         model_section_info s;
         s.id = section_name(get_u32(h));
         const std::uint16_t flags = get_u16(h + 4);
         if ((flags & ~section_required) != 0 || get_u16(h + 6) != 0)
-            return load_status(codes::deploy_malformed, source + ": section '" + s.id + "' has unknown flags " + std::to_string(flags));
+            return load_status(codes::deploy_model_malformed, source + ": section '" + s.id + "' has unknown flags " + std::to_string(flags));
         s.required = (flags & section_required) != 0;
         s.length = get_u64(h + 8);
         s.checksum = get_u32(h + 16);
         at += section_header_bytes;
         if (s.length > limits.max_section_bytes)
-            return load_status(codes::deploy_oversize,
+            return load_status(codes::deploy_model_oversize,
                                source + ": section '" + s.id + "' declares " + std::to_string(s.length) + " bytes, more than the limit of " +
                                    std::to_string(limits.max_section_bytes));
         if (s.length > size - at)
-            return load_status(codes::deploy_truncated,
+            return load_status(codes::deploy_model_truncated,
                                source + ": section '" + s.id + "' declares " + std::to_string(s.length) + " bytes but the file ends " +
                                    std::to_string(size - at) + " bytes after its start");
         if (crc32(data + at, static_cast<std::size_t>(s.length)) != s.checksum)
-            return load_status(codes::deploy_checksum, source + ": section '" + s.id + "' fails its checksum (the file is damaged)");
+            return load_status(codes::deploy_model_checksum, source + ": section '" + s.id + "' fails its checksum (the file is damaged)");
         for (const auto& other : c.sections)
-            if (other.id == s.id) return load_status(codes::deploy_malformed, source + ": section '" + s.id + "' appears twice");
+            if (other.id == s.id) return load_status(codes::deploy_model_malformed, source + ": section '" + s.id + "' appears twice");
         s.offset = at;
         at += static_cast<std::size_t>(s.length);
         c.sections.push_back(s);
     }
     if (at != size)
-        return load_status(codes::deploy_malformed,
+        return load_status(codes::deploy_model_malformed,
                            source + ": " + std::to_string(size - at) + " bytes follow the last of the " + std::to_string(count) + " sections");
     for (const auto& s : c.sections) {
         const bool known = s.id == "ARCH" || s.id == "WGHT" || s.id == "PLAN" || s.id == "META" || s.id == "REFS" || s.id == "RPLY" ||
             s.id == "RSUM" || s.id == "RSVR" || s.id == "HIST" || s.id == "REFD" || s.id == "ENSM" || s.id == "CALB";
         if (!known && s.required)
-            return load_status(codes::deploy_unknown_section,
+            return load_status(codes::deploy_model_unknown_required_section,
                                source + ": section '" + s.id + "' is marked required but this build of tenon does not know it");
     }
     for (const char* needed : {"ARCH", "WGHT"}) {
         bool found = false;
         for (const auto& s : c.sections) found = found || s.id == needed;
-        if (!found) return load_status(codes::deploy_missing_section, source + ": the file has no '" + needed + "' section");
+        if (!found) return load_status(codes::deploy_model_missing_section, source + ": the file has no '" + needed + "' section");
     }
     return {};
 }
@@ -916,20 +916,20 @@ std::vector<weight_slot> check_weights_fit(const layer_record& architecture, con
     for (const auto& w : weights) stored += w.values.size();
     const std::size_t declared = detail::parse_section("model file architecture", [&] { return record_value_count(architecture); });
     if (declared != stored)
-        raise(codes::deploy_shape_mismatch,
+        raise(codes::deploy_model_shape_mismatch,
               "model file: the architecture declares " +
                   (declared == std::numeric_limits<std::size_t>::max() ? std::string(sizeof(std::size_t) >= 8 ? "more than 2^64" : "more than 2^32")
                                                                        : std::to_string(declared)) +
                   " weight values, the file stores " + std::to_string(stored));
     std::vector<weight_slot> slots = detail::parse_section("model file architecture", [&] { return architecture_weights(architecture); });
     if (weights.size() != slots.size())
-        raise(codes::deploy_shape_mismatch,
+        raise(codes::deploy_model_shape_mismatch,
               "model file: " + std::to_string(weights.size()) + " weight matrices stored, the architecture has " + std::to_string(slots.size()));
     for (std::size_t i = 0; i < slots.size(); ++i) {
         const named_matrix<T>& w = weights[i];
         const shape2 expected{slots[i].rows, slots[i].cols};
         if (w.name != slots[i].name || shape_of(w.values) != expected)
-            raise(codes::deploy_shape_mismatch,
+            raise(codes::deploy_model_shape_mismatch,
                   "model file: weight " + std::to_string(i) + " is '" + w.name + "' " + to_string(shape_of(w.values)) +
                       ", the architecture expects '" + slots[i].name + "' " + to_string(expected));
     }
@@ -978,7 +978,7 @@ model_file<T> model_file_from_bytes(const std::uint8_t* data, std::size_t size, 
     TENON_REQUIRE_SCALAR(T);
     const detail::container c = detail::read_container(data, size, limits, source);
     if (c.scalar_bytes != sizeof(T))
-        raise(codes::deploy_scalar_type,
+        raise(codes::deploy_model_scalar_type,
               source + ": the weights are stored as " + (c.scalar_bytes == 4 ? "float" : "double") + ", but the model was loaded as " +
                   (sizeof(T) == 4 ? "float" : "double") + " (load it with the stored type, e.g. load_model_file<" +
                   (c.scalar_bytes == 4 ? "float" : "double") + ">)");
@@ -1135,7 +1135,7 @@ load_status try_load_model_file(const std::string& path, model_file<T>& out, con
         st = detail::check_container(bytes.data(), bytes.size(), limits, path, c);
         if (!st.ok()) return st;
         if (c.scalar_bytes != sizeof(T))
-            return {codes::deploy_scalar_type,
+            return {codes::deploy_model_scalar_type,
                     path + ": the weights are stored as " + (c.scalar_bytes == 4 ? "float" : "double") + ", but the model was loaded as " +
                         (sizeof(T) == 4 ? "float" : "double")};
         model_file<T> m = model_file_from_bytes<T>(bytes.data(), bytes.size(), limits, path);

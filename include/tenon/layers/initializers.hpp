@@ -75,7 +75,7 @@ inline const char* init_distribution_name(init_distribution d) noexcept { return
 /// The method with the given name; raises model.record.unknown_kind otherwise.
 inline init_scheme parse_init_scheme(const std::string& name) {
     init_scheme v{};
-    if (!enum_from_text(name, v)) raise(codes::model_unknown_kind, "initializer '" + name + "' is not known (" + enum_choices<init_scheme>() + ")");
+    if (!enum_from_text(name, v)) raise(codes::model_record_unknown_kind, "initializer '" + name + "' is not known (" + enum_choices<init_scheme>() + ")");
     return v;
 }
 
@@ -83,7 +83,7 @@ inline init_scheme parse_init_scheme(const std::string& name) {
 inline init_distribution parse_init_distribution(const std::string& name) {
     init_distribution v{};
     if (!enum_from_text(name, v))
-        raise(codes::model_unknown_kind, "initializer distribution '" + name + "' is not known (" + enum_choices<init_distribution>() + ")");
+        raise(codes::model_record_unknown_kind, "initializer distribution '" + name + "' is not known (" + enum_choices<init_distribution>() + ")");
     return v;
 }
 

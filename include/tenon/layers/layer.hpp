@@ -89,7 +89,7 @@ protected:
     /// Raises core.shape.mismatch unless the input has `expected` columns.
     void require_width(std::size_t actual, std::size_t expected) const {
         if (actual != expected) {
-            raise(codes::shape_mismatch, std::string(kind()) + " layer '" + qualified_name() + "' input: expected " +
+            raise(codes::core_shape_mismatch, std::string(kind()) + " layer '" + qualified_name() + "' input: expected " +
                                              std::to_string(expected) + " columns, got " + std::to_string(actual));
         }
     }

@@ -35,7 +35,7 @@ template <class T>
 class layer_chain {
 public:
     layer<T>& add(std::unique_ptr<layer<T>> l, std::string name, const std::string& prefix, const char* owner) {
-        if (!l) raise(codes::invalid_argument, std::string(owner) + ": cannot add an empty layer pointer");
+        if (!l) raise(codes::core_argument_invalid, std::string(owner) + ": cannot add an empty layer pointer");
         if (name.empty()) name = l->name();
         if (name.empty()) name = stem_of(*l) + std::to_string(layers_.size() + 1);
         if (name.find('.') != std::string::npos) {
@@ -43,7 +43,7 @@ public:
         }
         for (const auto& existing : layers_) {
             if (existing->name() == name) {
-                raise(codes::model_duplicate_name, std::string(owner) + ": a layer named '" + name + "' already exists");
+                raise(codes::model_network_duplicate_name, std::string(owner) + ": a layer named '" + name + "' already exists");
             }
         }
         l->set_name(std::move(name));
@@ -83,7 +83,7 @@ public:
     std::size_t size() const noexcept { return layers_.size(); }
     layer<T>& at(std::size_t i) {
         if (i >= layers_.size()) {
-            raise(codes::invalid_argument, "layer index " + std::to_string(i) + " is out of range (" +
+            raise(codes::core_argument_invalid, "layer index " + std::to_string(i) + " is out of range (" +
                                                std::to_string(layers_.size()) + " layers)");
         }
         return *layers_[i];
@@ -337,7 +337,7 @@ public:
     parameter<T>& find(const std::string& name) {
         for (auto* p : parameters()) if (p->name() == name) return *p;
         for (auto* p : state_buffers()) if (p->name() == name) return *p;
-        raise(codes::model_unknown_parameter, "network: no parameter or state buffer is named '" + name + "'");
+        raise(codes::model_network_unknown_parameter, "network: no parameter or state buffer is named '" + name + "'");
     }
 
     void clear_gradients() {
@@ -362,13 +362,13 @@ public:
     void restore(const network_snapshot<T>& s) {
         const std::size_t n = parameters().size() + state_buffers().size();
         if (s.values.size() != n) {
-            raise(codes::model_snapshot_mismatch, "network restore: the snapshot holds " + std::to_string(s.values.size()) +
+            raise(codes::model_network_snapshot_mismatch, "network restore: the snapshot holds " + std::to_string(s.values.size()) +
                                                       " matrices, the network has " + std::to_string(n));
         }
         for (std::size_t i = 0; i < n; ++i) {
             parameter<T>* p = i < parameters_.size() ? parameters_[i] : state_[i - parameters_.size()];
             if (shape_of(s.values[i]) != p->shape()) {
-                raise(codes::model_snapshot_mismatch, "network restore: snapshot entry " + std::to_string(i) + " has shape " +
+                raise(codes::model_network_snapshot_mismatch, "network restore: snapshot entry " + std::to_string(i) + " has shape " +
                                                           to_string(shape_of(s.values[i])) + ", parameter '" + p->name() +
                                                           "' has " + to_string(p->shape()));
             }
@@ -422,7 +422,7 @@ std::unique_ptr<layer<T>> make_layer(const layer_record& r) {
         for (const auto& c : r.children) block->add(make_layer<T>(c), c.name);
         l = std::move(block);
     } else {
-        raise(codes::model_unknown_kind, "layer record '" + r.name + "': kind '" + r.kind +
+        raise(codes::model_record_unknown_kind, "layer record '" + r.name + "': kind '" + r.kind +
                                              "' is not known (dense, activation, dropout, layer_norm, batch_norm, residual, linear_bypass)");
     }
     l->set_name(r.name);
@@ -434,7 +434,7 @@ std::unique_ptr<layer<T>> make_layer(const layer_record& r) {
 template <class T>
 network<T> make_network(const layer_record& r) {
     if (r.kind != "network") {
-        raise(codes::model_unknown_kind, "network record: expected kind 'network', got '" + r.kind + "'");
+        raise(codes::model_record_unknown_kind, "network record: expected kind 'network', got '" + r.kind + "'");
     }
     network<T> net;
     for (const auto& c : r.children) net.add(make_layer<T>(c), c.name);

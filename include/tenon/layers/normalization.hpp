@@ -112,7 +112,7 @@ public:
             return (x - t.track(population_mean_)) * inv_std * t.track(gain_) + t.track(bias_);
         }
         if (s.rows < 2) {
-            raise(codes::model_batch_too_small, "batch normalization '" + this->qualified_name() +
+            raise(codes::model_batch_norm_batch_too_small, "batch normalization '" + this->qualified_name() +
                                                     "' in training mode: a batch of " + std::to_string(s.rows) +
                                                     " row(s) has no variance; use at least 2 rows or inference mode");
         }

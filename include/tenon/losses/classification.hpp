@@ -56,12 +56,12 @@ var<T> cross_entropy_loss(tape<T>& t, var<T> logits, const std::vector<std::size
     const char* name = "cross-entropy";
     const shape2 s = logits.shape();
     if (labels.size() != s.rows) {
-        raise(codes::shape_mismatch, std::string(name) + " loss: " + std::to_string(labels.size()) + " labels for " +
+        raise(codes::core_shape_mismatch, std::string(name) + " loss: " + std::to_string(labels.size()) + " labels for " +
                                          std::to_string(s.rows) + " rows of logits");
     }
     for (std::size_t i = 0; i < s.rows; ++i) {
         if (labels[i] >= s.cols) {
-            raise(codes::model_label_range, std::string(name) + " loss: label " + std::to_string(labels[i]) + " at row " +
+            raise(codes::model_loss_label_range, std::string(name) + " loss: label " + std::to_string(labels[i]) + " at row " +
                                                 std::to_string(i) + " is not below the number of classes (" +
                                                 std::to_string(s.cols) + ")");
         }

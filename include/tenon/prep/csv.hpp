@@ -68,7 +68,7 @@ public:
     csv_record_reader(std::istream& in, char delimiter, std::string source, std::size_t chunk_bytes = std::size_t(1) << 20)
         : in_(in), delimiter_(delimiter), source_(std::move(source)), chunk_(chunk_bytes ? chunk_bytes : 1) {
         if (delimiter == '"' || delimiter == '\n' || delimiter == '\r')
-            raise(codes::invalid_argument, source_ + ": the delimiter cannot be a quote or a line break");
+            raise(codes::core_argument_invalid, source_ + ": the delimiter cannot be a quote or a line break");
     }
 
     /// Reads the next non-empty record; false at the end of the input.
@@ -220,7 +220,7 @@ inline bool read_number(std::string_view cell, bool decimal_comma, double& out) 
 
 inline void require_dialect(const csv_options& options, const std::string& source) {
     if (options.decimal_comma && options.delimiter == ',')
-        raise(codes::invalid_argument, source + ": decimal commas cannot be read when ',' is also the delimiter");
+        raise(codes::core_argument_invalid, source + ": decimal commas cannot be read when ',' is also the delimiter");
 }
 
 inline std::ifstream open_for_reading(const std::string& path) {
@@ -424,7 +424,7 @@ inline table read_csv(std::istream& in, const csv_options& options = {}, const s
             raise(codes::prep_column_unknown, source + ": a time format is given for column '" + named.first +
                                                   "', which the header does not name");
         if (named.second == time_format::detect)
-            raise(codes::invalid_argument, source + ": column '" + named.first + "': name a time format, not 'detect'");
+            raise(codes::core_argument_invalid, source + ": column '" + named.first + "': name a time format, not 'detect'");
     }
     const std::size_t width = names.size();
     // Pass 1: keep the raw cells, column by column, in one text arena each.

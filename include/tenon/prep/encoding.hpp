@@ -63,7 +63,7 @@ public:
         if (index < 0) {
             switch (policy_) {
                 case unseen_policy::fail:
-                    raise(codes::prep_unseen_category, "column '" + column + "': the category '" + std::string(text) +
+                    raise(codes::prep_category_unseen, "column '" + column + "': the category '" + std::string(text) +
                                                            "' was not seen in the training rows");
                 case unseen_policy::all_zero: return;
                 case unseen_policy::other_slot: out[w - 1] = T(1); return;

@@ -74,7 +74,7 @@ inline fill_value measure_fill(const column& c, const std::vector<std::size_t>& 
                 raise(codes::prep_column_kind, "column '" + c.name() + "' is categorical: it cannot be filled with the " +
                                                    to_string(method) + "; use mode or constant");
             auto v = present_values(c, rows);
-            if (v.empty()) raise(codes::prep_no_rows, "column '" + c.name() + "': no present values to learn a fill value from");
+            if (v.empty()) raise(codes::prep_rows_empty, "column '" + c.name() + "': no present values to learn a fill value from");
             if (method == fill_method::median) {
                 f.number = exact_quantile(v, 0.5);
             } else {
@@ -98,13 +98,13 @@ inline fill_value measure_fill(const column& c, const std::vector<std::size_t>& 
                         found = true;
                     }
                 }
-                if (!found) raise(codes::prep_no_rows, "column '" + c.name() + "': no present values to learn a fill value from");
+                if (!found) raise(codes::prep_rows_empty, "column '" + c.name() + "': no present values to learn a fill value from");
                 f.text = c.categories()[best];
             } else {
                 std::map<double, std::size_t> counts;
                 for (auto r : rows)
                     if (!c.is_missing(r)) ++counts[c.number(r)];
-                if (counts.empty()) raise(codes::prep_no_rows, "column '" + c.name() + "': no present values to learn a fill value from");
+                if (counts.empty()) raise(codes::prep_rows_empty, "column '" + c.name() + "': no present values to learn a fill value from");
                 std::size_t best_count = 0;
                 for (const auto& kv : counts)
                     if (kv.second > best_count) {  // strict: the smallest value wins ties

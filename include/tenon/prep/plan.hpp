@@ -157,7 +157,7 @@ public:
     }
     plan& set_role(const std::string& column_name, column_role role) {
         if (role == column_role::target)
-            raise(codes::invalid_argument, "plan: use set_target to choose the target column ('" + column_name + "')");
+            raise(codes::core_argument_invalid, "plan: use set_target to choose the target column ('" + column_name + "')");
         for (auto& r : roles_)
             if (r.first == column_name) {
                 r.second = role;
@@ -275,7 +275,7 @@ public:
         out.dropped_missing_target = 0;
         for (auto r : rows) {
             if (r >= t.row_count())
-                raise(codes::prep_row_out_of_range, where(t) + ": row " + std::to_string(r) +
+                raise(codes::prep_rows_out_of_range, where(t) + ": row " + std::to_string(r) +
                                                         " is not below the row count " + std::to_string(t.row_count()));
             if (target && target->is_missing(r)) {
                 ++out.dropped_missing_target;
@@ -302,7 +302,7 @@ public:
                                                   : detail::number_text(target->number(r), buffer);
                 const std::int64_t k = classes_.find(name);
                 if (k < 0)
-                    raise(codes::prep_unseen_category, t.row_place(r) + ": the class '" +
+                    raise(codes::prep_category_unseen, t.row_place(r) + ": the class '" +
                                                            std::string(name) + "' of target '" + target_name_ +
                                                            "' was not seen in the training rows");
                 out.classes[i] = static_cast<std::uint32_t>(k);
@@ -335,7 +335,7 @@ public:
         TENON_REQUIRE_SCALAR(T);
         for (auto r : rows)
             if (r >= t.row_count())
-                raise(codes::prep_row_out_of_range, where(t) + ": row " + std::to_string(r) +
+                raise(codes::prep_rows_out_of_range, where(t) + ": row " + std::to_string(r) +
                                                         " is not below the row count " + std::to_string(t.row_count()));
         write_features(t, rows, features);
     }
@@ -347,7 +347,7 @@ public:
     void apply_cells(const std::string_view* cells, std::size_t count, T* out) const {
         TENON_REQUIRE_SCALAR(T);
         if (count != features_.size())
-            raise(codes::shape_mismatch, "apply_cells: the plan reads " + std::to_string(features_.size()) +
+            raise(codes::core_shape_mismatch, "apply_cells: the plan reads " + std::to_string(features_.size()) +
                                              " columns, got " + std::to_string(count) + " cells");
         for (std::size_t k = 0; k < features_.size(); ++k) {
             const auto& f = features_[k];
@@ -627,7 +627,7 @@ private:
             index = f.one_hot.find(text);
         }
         if (index < 0 && f.one_hot.policy() == unseen_policy::fail)
-            raise(codes::prep_unseen_category, at + ", column '" + f.name + "': the category '" + std::string(text) +
+            raise(codes::prep_category_unseen, at + ", column '" + f.name + "': the category '" + std::string(text) +
                                                    "' was not seen in the training rows");
         f.one_hot.encode(index, out, f.name, text);
         if (f.indicator) out[f.width - 1] = missing ? T(1) : T(0);
@@ -660,7 +660,7 @@ private:
                         write_category(f, missing, missing ? -1 : category_map[c.code(r)],
                                        missing ? std::string_view() : std::string_view(c.category(r)), o, std::string());
                     else
-                        raise(codes::prep_unseen_category, t.row_place(r) + ", column '" + f.name +
+                        raise(codes::prep_category_unseen, t.row_place(r) + ", column '" + f.name +
                                                                "': the category '" + c.category(r) +
                                                                "' was not seen in the training rows");
                 } else {
@@ -704,7 +704,7 @@ inline fill_value shared_fill(const column& c, const std::vector<std::size_t>& r
     if (s.fill == fill_method::none || s.fill == fill_method::constant) return measure_fill(c, rows, s.fill, s.fill_number, s.fill_text);
     fill_value f;
     f.method = s.fill;
-    const auto nothing = [&] { raise(codes::prep_no_rows, "column '" + c.name() + "': no present values to learn a fill value from"); };
+    const auto nothing = [&] { raise(codes::prep_rows_empty, "column '" + c.name() + "': no present values to learn a fill value from"); };
     if (c.kind() == column_kind::categorical) {
         if (s.fill != fill_method::mode) measure_fill(c, rows, s.fill);  // raises prep.column.kind as alone
         std::uint64_t best = 0;
@@ -748,14 +748,14 @@ inline scaling shared_scaling(const column& c, const std::vector<std::size_t>& r
     if (method == scaling_method::none) return scaling{};
     if (method == scaling_method::median_iqr) {
         std::vector<double> v = ex.gather_values(present_values(c, rows));
-        if (v.empty()) raise(codes::prep_no_rows, "column '" + c.name() + "': no present values for quartiles");
+        if (v.empty()) raise(codes::prep_rows_empty, "column '" + c.name() + "': no present values for quartiles");
         quartile_summary q;
         q.median = exact_quantile(v, 0.5);
         q.interquartile_range = exact_quantile(v, 0.75) - exact_quantile(v, 0.25);
         return median_iqr_scaling(q);
     }
     const running_moments m = ex.merge_moments(column_moments(c, rows));
-    if (m.count == 0) raise(codes::prep_no_rows, "column '" + c.name() + "': no present values to measure a scaling on");
+    if (m.count == 0) raise(codes::prep_rows_empty, "column '" + c.name() + "': no present values to measure a scaling on");
     return scaling_from_moments(method, m, low, high);
 }
 
@@ -772,7 +772,7 @@ inline measured_plan plan::measure(const table& t, const std::vector<std::size_t
     kept.reserve(training_rows.size());
     for (auto r : training_rows) {
         if (r >= t.row_count())
-            raise(codes::prep_row_out_of_range, where + ": training row " + std::to_string(r) +
+            raise(codes::prep_rows_out_of_range, where + ": training row " + std::to_string(r) +
                                                     " is not below the row count " + std::to_string(t.row_count()));
         if (target && target->is_missing(r)) {
             ++p.dropped_training_rows_;
@@ -786,7 +786,7 @@ inline measured_plan plan::measure(const table& t, const std::vector<std::size_t
         p.dropped_training_rows_ = static_cast<std::size_t>(totals[2]);
     }
     if (totals[0] == 0)
-        raise(codes::prep_no_rows, where + ": no training rows to measure the plan on (" + std::to_string(totals[1]) +
+        raise(codes::prep_rows_empty, where + ": no training rows to measure the plan on (" + std::to_string(totals[1]) +
                                        " given, " + std::to_string(p.dropped_training_rows_) + " dropped for a missing target)");
     for (std::size_t k = 0; k < t.column_count(); ++k) {
         const column& c = t[k];
@@ -826,7 +826,7 @@ inline measured_plan plan::measure(const table& t, const std::vector<std::size_t
             }
             if (f.fill.method == fill_method::constant) seen.push_back(f.fill.text);
             if (seen.empty())
-                raise(codes::prep_no_rows, where + ", column '" + c.name() + "': no present category in the training rows");
+                raise(codes::prep_rows_empty, where + ", column '" + c.name() + "': no present category in the training rows");
             f.one_hot = one_hot_layout(std::move(seen), s.unseen, s.omit_reference_level);
         } else {
             f.scale = exchange ? detail::shared_scaling(c, kept, s.scaling, s.range_low, s.range_high, *exchange)

@@ -106,7 +106,7 @@ inline void measure_distribution(feature_reference& f, std::vector<double> value
 /// order) over `rows` of `t`.
 inline std::vector<feature_reference> measure_references(const table& t, const std::vector<std::size_t>& rows,
                                                          const measured_plan& plan, std::size_t histogram_bins = 10) {
-    if (histogram_bins == 0) raise(codes::invalid_argument, "measure_references: histogram_bins must be positive");
+    if (histogram_bins == 0) raise(codes::core_argument_invalid, "measure_references: histogram_bins must be positive");
     std::vector<feature_reference> out;
     for (const auto& name : plan.input_columns()) {
         const column& c = t.at(name);

@@ -63,7 +63,7 @@ inline double usable_spread(double spread) noexcept { return spread > 0.0 && std
 
 inline void require_range(double low, double high) {
     if (!(low < high) || !std::isfinite(low) || !std::isfinite(high))
-        raise(codes::invalid_argument, "min-max scaling: the target range must satisfy low < high, got [" +
+        raise(codes::core_argument_invalid, "min-max scaling: the target range must satisfy low < high, got [" +
                                            std::to_string(low) + ", " + std::to_string(high) + "]");
 }
 }  // namespace detail
@@ -77,19 +77,19 @@ inline scaling scaling_from_moments(scaling_method method, const running_moments
         case scaling_method::none: break;
         case scaling_method::min_max:
             detail::require_range(low, high);
-            if (m.count == 0) raise(codes::prep_no_rows, "min-max scaling: no values to measure");
+            if (m.count == 0) raise(codes::prep_rows_empty, "min-max scaling: no values to measure");
             s.center = m.minimum;
             s.spread = detail::usable_spread(m.maximum - m.minimum);
             s.low = low;
             s.high = high;
             break;
         case scaling_method::z_score:
-            if (m.count == 0) raise(codes::prep_no_rows, "z-score scaling: no values to measure");
+            if (m.count == 0) raise(codes::prep_rows_empty, "z-score scaling: no values to measure");
             s.center = m.mean;
             s.spread = detail::usable_spread(m.population_stddev());
             break;
         case scaling_method::median_iqr:
-            raise(codes::invalid_argument, "scaling_from_moments: median-IQR scaling needs quartiles, use median_iqr_scaling");
+            raise(codes::core_argument_invalid, "scaling_from_moments: median-IQR scaling needs quartiles, use median_iqr_scaling");
     }
     return s;
 }
@@ -109,7 +109,7 @@ inline scaling measure_scaling(const column& c, const std::vector<std::size_t>& 
     if (method == scaling_method::median_iqr) return median_iqr_scaling(column_quartiles(c, rows));
     if (method == scaling_method::none) return scaling{};
     const auto m = column_moments(c, rows);
-    if (m.count == 0) raise(codes::prep_no_rows, "column '" + c.name() + "': no present values to measure a scaling on");
+    if (m.count == 0) raise(codes::prep_rows_empty, "column '" + c.name() + "': no present values to measure a scaling on");
     return scaling_from_moments(method, m, low, high);
 }
 
@@ -135,7 +135,7 @@ void apply_scalings(matrix<T>& x, const std::vector<scaling>& s) {
     TENON_REQUIRE_SCALAR(T);
     const std::size_t rows = x.shape()[0], cols = x.shape()[1];
     if (s.size() != cols)
-        raise(codes::shape_mismatch, "apply_scalings: " + std::to_string(s.size()) + " scalings for " +
+        raise(codes::core_shape_mismatch, "apply_scalings: " + std::to_string(s.size()) + " scalings for " +
                                          std::to_string(cols) + " columns");
     // scaling::forward with its per-column factor (high - low) / spread
     // computed once per column instead of once per value: the same
@@ -180,7 +180,7 @@ void invert_scalings(matrix<T>& y, const std::vector<scaling>& s) {
     TENON_REQUIRE_SCALAR(T);
     const std::size_t rows = y.shape()[0], cols = y.shape()[1];
     if (s.size() != cols)
-        raise(codes::shape_mismatch, "invert_scalings: " + std::to_string(s.size()) + " scalings for " +
+        raise(codes::core_shape_mismatch, "invert_scalings: " + std::to_string(s.size()) + " scalings for " +
                                          std::to_string(cols) + " columns");
     T* p = y.data();
     for (std::size_t i = 0; i < rows; ++i)

@@ -82,7 +82,7 @@ inline void deal(const std::vector<std::size_t>& rows, std::size_t n_validation,
 }
 
 inline void check_fold_count(std::size_t k, std::size_t n, const char* policy) {
-    if (k < 2) raise(codes::invalid_argument, std::string(policy) + ": at least 2 folds are needed, got " + std::to_string(k));
+    if (k < 2) raise(codes::core_argument_invalid, std::string(policy) + ": at least 2 folds are needed, got " + std::to_string(k));
     if (n < k)
         raise(codes::prep_split_empty_subset, std::string(policy) + ": " + std::to_string(k) + " folds of " +
                                                   std::to_string(n) + " rows would leave a fold empty");
@@ -224,7 +224,7 @@ inline holdout_split chronological_holdout(const std::vector<double>& times, con
 /// last fold tests on the latest rows. Indices are row numbers of `times`.
 inline std::vector<fold> rolling_origin_folds(const std::vector<double>& times, std::size_t folds, std::size_t horizon) {
     if (folds < 1 || horizon < 1)
-        raise(codes::invalid_argument, "rolling-origin folds: need at least 1 fold and a horizon of at least 1 row, got " +
+        raise(codes::core_argument_invalid, "rolling-origin folds: need at least 1 fold and a horizon of at least 1 row, got " +
                                            std::to_string(folds) + " folds, horizon " + std::to_string(horizon));
     const auto rows = detail::time_order(times, "rolling-origin folds");
     const std::size_t n = rows.size();
@@ -293,7 +293,7 @@ inline holdout_split grouped_holdout(const std::vector<std::uint32_t>& groups, c
 /// and each put in the fold with the fewest rows so far (greedy balancing,
 /// common practice). Needs at least k groups.
 inline std::vector<fold> group_k_folds(const std::vector<std::uint32_t>& groups, std::size_t k, std::uint64_t seed) {
-    if (k < 2) raise(codes::invalid_argument, "group k-fold: at least 2 folds are needed, got " + std::to_string(k));
+    if (k < 2) raise(codes::core_argument_invalid, "group k-fold: at least 2 folds are needed, got " + std::to_string(k));
     const auto by = detail::rows_by_label(groups);
     std::vector<std::size_t> ids;
     for (std::size_t g = 0; g < by.size(); ++g)

@@ -85,9 +85,9 @@ struct running_moments {
 ///   h = (n - 1) q;  Q = x[floor h] + (h - floor h) (x[floor h + 1] - x[floor h]).
 /// Reorders `values` (nth_element); raises prep.rows.empty when it is empty.
 inline double exact_quantile(std::vector<double>& values, double q) {
-    if (values.empty()) raise(codes::prep_no_rows, "exact_quantile: no values");
+    if (values.empty()) raise(codes::prep_rows_empty, "exact_quantile: no values");
     if (!(q >= 0.0 && q <= 1.0))
-        raise(codes::invalid_argument, "exact_quantile: q must lie in [0, 1], got " + std::to_string(q));
+        raise(codes::core_argument_invalid, "exact_quantile: q must lie in [0, 1], got " + std::to_string(q));
     const double h = static_cast<double>(values.size() - 1) * q;
     const auto lower = static_cast<std::size_t>(std::floor(h));
     auto lower_it = values.begin() + static_cast<std::ptrdiff_t>(lower);
@@ -102,7 +102,7 @@ namespace detail {
 inline void require_rows_in_range(const column& c, const std::vector<std::size_t>& rows) {
     for (auto r : rows)
         if (r >= c.size())
-            raise(codes::prep_row_out_of_range, "column '" + c.name() + "': row " + std::to_string(r) +
+            raise(codes::prep_rows_out_of_range, "column '" + c.name() + "': row " + std::to_string(r) +
                                                     " is not below the row count " + std::to_string(c.size()));
 }
 inline void require_number_column(const column& c, const char* what) {
@@ -141,7 +141,7 @@ struct quartile_summary {
 
 inline quartile_summary column_quartiles(const column& c, const std::vector<std::size_t>& rows) {
     auto v = present_values(c, rows);
-    if (v.empty()) raise(codes::prep_no_rows, "column '" + c.name() + "': no present values for quartiles");
+    if (v.empty()) raise(codes::prep_rows_empty, "column '" + c.name() + "': no present values for quartiles");
     quartile_summary s;
     s.median = exact_quantile(v, 0.5);
     const double q1 = exact_quantile(v, 0.25);

@@ -218,7 +218,7 @@ struct drift_report {
 inline double population_stability_index(const std::vector<double>& reference_shares, const std::vector<double>& window_shares,
                                          double empty_bin_share = 1e-4) {
     if (reference_shares.size() != window_shares.size())
-        raise(codes::shape_mismatch, "population_stability_index: " + std::to_string(reference_shares.size()) + " reference bins but " +
+        raise(codes::core_shape_mismatch, "population_stability_index: " + std::to_string(reference_shares.size()) + " reference bins but " +
                                          std::to_string(window_shares.size()) + " window bins");
     if (!(empty_bin_share > 0.0 && empty_bin_share <= 0.01))
         raise(codes::deploy_drift_option, "population_stability_index: empty_bin_share must be in (0, 0.01], got " +
@@ -234,10 +234,10 @@ inline double population_stability_index(const std::vector<double>& reference_sh
 /// The exact two-sample Kolmogorov-Smirnov statistic D = sup |F_a - F_b|
 /// of two samples' empirical CDFs (NaN values are not allowed).
 inline double ks_two_sample(std::vector<double> a, std::vector<double> b) {
-    if (a.empty() || b.empty()) raise(codes::invalid_argument, "ks_two_sample: both samples need at least one value");
+    if (a.empty() || b.empty()) raise(codes::core_argument_invalid, "ks_two_sample: both samples need at least one value");
     for (const auto* s : {&a, &b})
         for (double v : *s)
-            if (std::isnan(v)) raise(codes::invalid_argument, "ks_two_sample: a sample holds NaN");
+            if (std::isnan(v)) raise(codes::core_argument_invalid, "ks_two_sample: a sample holds NaN");
     std::sort(a.begin(), a.end());
     std::sort(b.begin(), b.end());
     const double na = static_cast<double>(a.size()), nb = static_cast<double>(b.size());
@@ -315,7 +315,7 @@ inline double ks_critical_value(double significance, std::uint64_t n, std::uint6
 /// The upper-tail standard normal quantile z with P(Z > z) = p, p in (0, 1):
 /// Abramowitz & Stegun (1964) 26.2.23, absolute error below 4.5e-4.
 inline double normal_upper_quantile(double p) {
-    if (!(p > 0.0 && p < 1.0)) raise(codes::invalid_argument, "normal_upper_quantile: p must be in (0, 1), got " + std::to_string(p));
+    if (!(p > 0.0 && p < 1.0)) raise(codes::core_argument_invalid, "normal_upper_quantile: p must be in (0, 1), got " + std::to_string(p));
     const double q = p <= 0.5 ? p : 1.0 - p;
     const double t = std::sqrt(-2.0 * std::log(q));
     const double z = t - (2.515517 + 0.802853 * t + 0.010328 * t * t) / (1.0 + 1.432788 * t + 0.189269 * t * t + 0.001308 * t * t * t);
@@ -325,7 +325,7 @@ inline double normal_upper_quantile(double p) {
 /// The chi-square quantile with `degrees` degrees of freedom exceeded with
 /// probability p: Wilson & Hilferty (1931), chi2 ~ k (1 - 2/(9k) + z sqrt(2/(9k)))^3.
 inline double chi_square_upper_quantile(double degrees, double p) {
-    if (!(degrees > 0.0)) raise(codes::invalid_argument, "chi_square_upper_quantile: degrees of freedom must be positive");
+    if (!(degrees > 0.0)) raise(codes::core_argument_invalid, "chi_square_upper_quantile: degrees of freedom must be positive");
     const double z = normal_upper_quantile(p), v = 2.0 / (9.0 * degrees);
     const double c = std::max(0.0, 1.0 - v + z * std::sqrt(v));
     return degrees * c * c * c;
@@ -674,7 +674,7 @@ inline drift_report measure_drift(const std::vector<feature_reference>& referenc
     if (rows.empty()) raise(codes::deploy_drift_empty_window, "measure_drift: the window has no rows");
     for (auto r : rows)
         if (r >= window.row_count())
-            raise(codes::prep_row_out_of_range, "measure_drift: row " + std::to_string(r) + " is not below the window's " +
+            raise(codes::prep_rows_out_of_range, "measure_drift: row " + std::to_string(r) + " is not below the window's " +
                                                     std::to_string(window.row_count()) + " rows");
     drift_report report;
     report.window_rows = rows.size();
@@ -682,7 +682,7 @@ inline drift_report measure_drift(const std::vector<feature_reference>& referenc
     std::uint64_t seed = 0x5EEDu;  // fixed: a report is reproducible
     for (const auto& ref : references) {
         if (!window.contains(ref.column))
-            raise(codes::deploy_missing_column, "measure_drift: the window has no column '" + ref.column + "' (the model reads it)");
+            raise(codes::deploy_input_missing_column, "measure_drift: the window has no column '" + ref.column + "' (the model reads it)");
         const column& c = window.at(ref.column);
         feature_drift f = ref.kind == column_kind::categorical ? detail::categorical_drift(ref, c, rows, options)
                                                                : detail::numeric_drift(ref, c, rows, options);

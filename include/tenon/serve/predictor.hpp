@@ -99,11 +99,11 @@ struct predict_status {
     const char* code_text() const noexcept {
         switch (code) {
             case input_status::ok: return "";
-            case input_status::missing_column: return codes::deploy_missing_column;
-            case input_status::missing_value: return codes::deploy_missing_value;
-            case input_status::not_numeric: return codes::deploy_not_numeric;
-            case input_status::unseen_category: return codes::deploy_unseen_category;
-            case input_status::non_finite: return codes::deploy_non_finite;
+            case input_status::missing_column: return codes::deploy_input_missing_column;
+            case input_status::missing_value: return codes::deploy_input_missing_value;
+            case input_status::not_numeric: return codes::deploy_input_not_numeric;
+            case input_status::unseen_category: return codes::deploy_input_unseen_category;
+            case input_status::non_finite: return codes::deploy_input_non_finite;
             case input_status::shape: return codes::deploy_input_shape;
         }
         return "";
@@ -319,7 +319,7 @@ struct compiled_model {
         s.inputs = width;
         if (r.kind == "dense") {
             if (r.count("inputs") != width)
-                raise(codes::deploy_shape_mismatch, "predictor: dense layer '" + name + "' takes " + std::to_string(r.count("inputs")) +
+                raise(codes::deploy_model_shape_mismatch, "predictor: dense layer '" + name + "' takes " + std::to_string(r.count("inputs")) +
                                                         " inputs, it is given " + std::to_string(width));
             s.kind = step_kind::dense;
             s.outputs = r.count("outputs");
@@ -337,7 +337,7 @@ struct compiled_model {
             return in;  // inference passes values through
         } else if (r.kind == "layer_norm") {
             if (r.count("width") != width)
-                raise(codes::deploy_shape_mismatch, "predictor: layer normalization '" + name + "' does not fit width " + std::to_string(width));
+                raise(codes::deploy_model_shape_mismatch, "predictor: layer normalization '" + name + "' does not fit width " + std::to_string(width));
             s.kind = step_kind::layer_norm;
             s.outputs = width;
             s.epsilon = r.number("epsilon");
@@ -346,7 +346,7 @@ struct compiled_model {
             s.scratch = new_buffer(width);
         } else if (r.kind == "batch_norm") {
             if (r.count("width") != width)
-                raise(codes::deploy_shape_mismatch, "predictor: batch normalization '" + name + "' does not fit width " + std::to_string(width));
+                raise(codes::deploy_model_shape_mismatch, "predictor: batch normalization '" + name + "' does not fit width " + std::to_string(width));
             s.kind = step_kind::batch_norm;
             s.outputs = width;
             s.epsilon = r.number("epsilon");
@@ -365,18 +365,18 @@ struct compiled_model {
         } else if (r.kind == "residual") {
             const std::size_t inner = compile_chain(r.children, name, in, w);
             if (buffer_widths[inner] != width)
-                raise(codes::deploy_shape_mismatch, "predictor: residual block '" + name + "' changes the width");
+                raise(codes::deploy_model_shape_mismatch, "predictor: residual block '" + name + "' changes the width");
             s.kind = step_kind::add;
             s.in2 = inner;
             s.outputs = width;
         } else if (r.kind == "linear_bypass") {
             const std::size_t outputs = r.count("outputs");
             if (r.count("inputs") != width)
-                raise(codes::deploy_shape_mismatch, "predictor: linear bypass '" + name + "' takes " + std::to_string(r.count("inputs")) +
+                raise(codes::deploy_model_shape_mismatch, "predictor: linear bypass '" + name + "' takes " + std::to_string(r.count("inputs")) +
                                                         " inputs, it is given " + std::to_string(width));
             const std::size_t inner = compile_chain(r.children, name, in, w);
             if (buffer_widths[inner] != outputs)
-                raise(codes::deploy_shape_mismatch, "predictor: linear bypass '" + name + "' inner output has the wrong width");
+                raise(codes::deploy_model_shape_mismatch, "predictor: linear bypass '" + name + "' inner output has the wrong width");
             // The linear path x W (a dense step without bias), then f(x) + x W as the tape adds them.
             program_step path;
             path.kind = step_kind::dense;
@@ -392,7 +392,7 @@ struct compiled_model {
             s.inputs = outputs;
             s.outputs = outputs;
         } else {
-            raise(codes::deploy_unsupported_layer, "predictor: layer '" + name + "' of kind '" + r.kind + "' cannot be evaluated");
+            raise(codes::deploy_predictor_unsupported_layer, "predictor: layer '" + name + "' of kind '" + r.kind + "' cannot be evaluated");
         }
         s.out = new_buffer(s.outputs);
         steps.push_back(s);
@@ -407,7 +407,7 @@ inline void require_known_kinds(const std::vector<layer_record>& children, const
         const std::string name = prefix.empty() ? r.name : prefix + "." + r.name;
         if (r.kind == "residual" || r.kind == "linear_bypass") require_known_kinds(r.children, name);
         else if (r.kind != "dense" && r.kind != "activation" && r.kind != "dropout" && r.kind != "layer_norm" && r.kind != "batch_norm")
-            raise(codes::deploy_unsupported_layer, "predictor: layer '" + name + "' of kind '" + r.kind +
+            raise(codes::deploy_predictor_unsupported_layer, "predictor: layer '" + name + "' of kind '" + r.kind +
                                                        "' cannot be evaluated (dense, activation, dropout, layer_norm, batch_norm, residual, linear_bypass)");
     }
 }
@@ -594,7 +594,7 @@ public:
             for (std::size_t f = 0; f < row_fields<Row>::count; ++f)
                 if (c.name == row_fields<Row>::name(f)) found = f;
             if (found == row_fields<Row>::count)
-                raise(codes::deploy_missing_column, "predictor: the row type has no field for column '" + c.name + "'");
+                raise(codes::deploy_input_missing_column, "predictor: the row type has no field for column '" + c.name + "'");
             b.field_of_column.push_back(found);
         }
         return b;
@@ -768,7 +768,7 @@ private:
                 if (width != 0) break;
             }
             if (width == 0)
-                raise(codes::deploy_shape_mismatch, "predictor: without a plan the first layer must be dense or a linear bypass to fix the input width");
+                raise(codes::deploy_model_shape_mismatch, "predictor: without a plan the first layer must be dense or a linear bypass to fix the input width");
         }
         m->references = refs;
         m->feature_count = width;
@@ -782,15 +782,15 @@ private:
             typename model_type::weight_cursor cursor{member, 0, parameters};
             const std::size_t b = m->compile_chain(file.architecture.children, std::string(), 0, cursor);
             if (m->buffer_widths[b] != m->output_count)
-                raise(codes::deploy_shape_mismatch, "predictor: an ensemble member gives " + std::to_string(m->buffer_widths[b]) +
+                raise(codes::deploy_model_shape_mismatch, "predictor: an ensemble member gives " + std::to_string(m->buffer_widths[b]) +
                                                         " outputs, the first gives " + std::to_string(m->output_count));
             m->member_buffers.push_back(b);
         }
         if (m->classification && m->output_count != m->class_names.size())
-            raise(codes::deploy_shape_mismatch, "predictor: the network gives " + std::to_string(m->output_count) + " outputs for " +
+            raise(codes::deploy_model_shape_mismatch, "predictor: the network gives " + std::to_string(m->output_count) + " outputs for " +
                                                     std::to_string(m->class_names.size()) + " classes");
         if (m->regression && m->output_count != 1)
-            raise(codes::deploy_shape_mismatch, "predictor: the network gives " + std::to_string(m->output_count) +
+            raise(codes::deploy_model_shape_mismatch, "predictor: the network gives " + std::to_string(m->output_count) +
                                                     " outputs for one regression target");
         // A calibration is used only for the kind of target it was fitted for.
         if (calibration && m->regression) m->interval = calibration->interval;
@@ -803,7 +803,7 @@ private:
     // an allocation failure leaves the previous buffers in place (the
     // callers then keep or restore the model they fit).
     void allocate() {
-        if (capacity_ == 0) raise(codes::invalid_argument, "predictor: the capacity must be at least one row");
+        if (capacity_ == 0) raise(codes::core_argument_invalid, "predictor: the capacity must be at least one row");
         std::vector<std::vector<T>> buffers(model_->buffer_widths.size());
         for (std::size_t b = 0; b < buffers.size(); ++b) buffers[b].assign(capacity_ * model_->buffer_widths[b], T(0));
         std::vector<T> outputs(capacity_ * model_->output_count, T(0));

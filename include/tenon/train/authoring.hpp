@@ -69,7 +69,7 @@ network<T> rebuild_network(const model_file<T>& m) {
 template <class T>
 network<T> rebuild_member(const model_file<T>& m, std::size_t k) {
     if (k > m.members.size())
-        raise(codes::invalid_argument,
+        raise(codes::core_argument_invalid,
               "model file: member " + std::to_string(k) + " asked of an ensemble of " + std::to_string(1 + m.members.size()));
     return rebuild_network<T>(m.architecture, k == 0 ? m.weights : m.members[k - 1]);
 }
@@ -114,7 +114,7 @@ inline std::uint64_t training_fingerprint(const table& t, const std::vector<std:
     }
     for (auto r : rows) {
         if (r >= t.row_count())
-            raise(codes::prep_row_out_of_range, "training_fingerprint: row " + std::to_string(r) + " is not below " + std::to_string(t.row_count()));
+            raise(codes::prep_rows_out_of_range, "training_fingerprint: row " + std::to_string(r) + " is not below " + std::to_string(t.row_count()));
         for (std::size_t k = 0; k < t.column_count(); ++k) {
             const column& c = t[k];
             if (c.is_missing(r)) {
@@ -252,6 +252,19 @@ model_file<T> make_model_file(fitted_model<T>& model, const table& t, const std:
     m.references = measure_references(t, train_rows, model.plan, options.histogram_bins);
     if (options.replay_rows > 0) m.replay = sample_replay_rows(t, train_rows, options.replay_rows, settings.seed);
     return m;
+}
+
+/// The same from what the fitted model keeps: the training rows fit_model
+/// was given and its settings (fitted_model::fitted_rows, settings). `t` is
+/// the table fit_model was given; a table with fewer rows is refused.
+template <class T>
+model_file<T> make_model_file(fitted_model<T>& model, const table& t, const model_file_options& options = {}) {
+    for (const std::size_t r : model.fitted_rows)
+        if (r >= t.row_count()) {
+            raise(codes::train_option_invalid, "make_model_file: the model was fitted on row " + std::to_string(r) + ", and the table has " +
+                                                   std::to_string(t.row_count()) + " rows (pass the table fit_model was given)");
+        }
+    return make_model_file(model, t, model.fitted_rows, model.settings, options);
 }
 
 /// The state a checkpoint needs besides the weights: the update rule's and

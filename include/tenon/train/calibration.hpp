@@ -41,7 +41,7 @@ TENON_NAMESPACE_BEGIN
 /// counts as that integer: a coverage such as 0.9 is not exact in binary.
 inline std::size_t conformal_rank(std::size_t n, double coverage) {
     if (!(coverage > 0.0 && coverage < 1.0))
-        raise(codes::invalid_argument, "conformal_rank: the coverage must lie strictly between 0 and 1, got " + number_to_text(coverage));
+        raise(codes::core_argument_invalid, "conformal_rank: the coverage must lie strictly between 0 and 1, got " + number_to_text(coverage));
     const double x = static_cast<double>(n + 1) * coverage;
     double rank = std::ceil(x);
     if (rank - x > 1.0 - 1e-9) rank -= 1.0;
@@ -54,7 +54,7 @@ inline double conformal_quantile(std::vector<double> scores, double coverage) {
     const std::size_t rank = conformal_rank(scores.size(), coverage);
     if (rank > scores.size()) return std::numeric_limits<double>::infinity();
     for (double s : scores)
-        if (std::isnan(s)) raise(codes::invalid_argument, "conformal_quantile: a score is NaN");
+        if (std::isnan(s)) raise(codes::core_argument_invalid, "conformal_quantile: a score is NaN");
     std::nth_element(scores.begin(), scores.begin() + static_cast<std::ptrdiff_t>(rank - 1), scores.end());
     return scores[rank - 1];
 }
@@ -65,14 +65,14 @@ inline double conformal_quantile(std::vector<double> scores, double coverage) {
 /// not null, the per-row spreads (then the normalized variant as well).
 inline interval_calibration fit_interval_calibration(const double* predicted, const double* actual, const double* spread, std::size_t n,
                                                      double coverage = default_coverage) {
-    if (n == 0) raise(codes::invalid_argument, "fit_interval_calibration: no calibration rows");
+    if (n == 0) raise(codes::core_argument_invalid, "fit_interval_calibration: no calibration rows");
     interval_calibration c;
     c.coverage = coverage;
     c.rows = n;
     std::vector<double> scores(n);
     for (std::size_t i = 0; i < n; ++i) {
         if (!std::isfinite(predicted[i]) || !std::isfinite(actual[i]))
-            raise(codes::invalid_argument, "fit_interval_calibration: row " + std::to_string(i) + " has a non-finite prediction or value");
+            raise(codes::core_argument_invalid, "fit_interval_calibration: row " + std::to_string(i) + " has a non-finite prediction or value");
         scores[i] = std::abs(actual[i] - predicted[i]);
     }
     c.half_width = conformal_quantile(scores, coverage);
@@ -80,7 +80,7 @@ inline interval_calibration fit_interval_calibration(const double* predicted, co
         double mean = 0.0;
         for (std::size_t i = 0; i < n; ++i) {
             if (!(spread[i] >= 0.0) || !std::isfinite(spread[i]))
-                raise(codes::invalid_argument, "fit_interval_calibration: row " + std::to_string(i) + " has a negative or non-finite spread");
+                raise(codes::core_argument_invalid, "fit_interval_calibration: row " + std::to_string(i) + " has a negative or non-finite spread");
             mean += spread[i];
         }
         mean /= static_cast<double>(n);
@@ -126,9 +126,9 @@ template <class T>
 double fit_temperature(const matrix<T>& logits, const std::vector<std::size_t>& labels) {
     const std::size_t rows = logits.shape()[0], cols = logits.shape()[1];
     if (rows == 0 || rows != labels.size())
-        raise(codes::invalid_argument, "fit_temperature: " + std::to_string(rows) + " rows of logits for " + std::to_string(labels.size()) + " labels");
+        raise(codes::core_argument_invalid, "fit_temperature: " + std::to_string(rows) + " rows of logits for " + std::to_string(labels.size()) + " labels");
     for (auto y : labels)
-        if (y >= cols) raise(codes::invalid_argument, "fit_temperature: a label is " + std::to_string(y) + ", not below " + std::to_string(cols));
+        if (y >= cols) raise(codes::core_argument_invalid, "fit_temperature: a label is " + std::to_string(y) + ", not below " + std::to_string(cols));
     // Mean loss, its first and second derivatives in b, from shifted logits.
     const auto loss_at = [&](double b, double* gradient, double* curvature) {
         double loss = 0.0, g = 0.0, h = 0.0;
@@ -182,7 +182,7 @@ double fit_temperature(const matrix<T>& logits, const std::vector<std::size_t>& 
 /// bins of reliability_bins.
 template <class T>
 double expected_calibration_error(const matrix<T>& probabilities, const std::vector<std::size_t>& labels, std::size_t bins = 15) {
-    if (probabilities.shape()[0] == 0) raise(codes::invalid_argument, "expected_calibration_error: no rows");
+    if (probabilities.shape()[0] == 0) raise(codes::core_argument_invalid, "expected_calibration_error: no rows");
     double ece = 0.0;
     for (const reliability_bin& b : reliability_bins(probabilities, labels, bins))
         ece += static_cast<double>(b.rows) * std::abs(b.accuracy - b.confidence);
@@ -271,7 +271,7 @@ void original_units(const measured_plan& plan, const matrix<T>& outputs, const p
 
 template <class T>
 void require_rows(const prepared_rows<T>& rows, const char* who) {
-    if (rows.rows.empty()) raise(codes::train_no_rows, std::string(who) + ": no rows with a target to calibrate on");
+    if (rows.rows.empty()) raise(codes::train_rows_empty, std::string(who) + ": no rows with a target to calibrate on");
 }
 
 }  // namespace detail
@@ -302,7 +302,7 @@ calibration_scores score_outputs(const measured_plan& plan, const model_calibrat
     calibration_scores s;
     s.rows = rows.rows.size();
     if (plan.target_type() == target_kind::classification) {
-        if (!c.classes) raise(codes::invalid_argument, "score_calibration: the calibration has no class part for a classification model");
+        if (!c.classes) raise(codes::core_argument_invalid, "score_calibration: the calibration has no class part for a classification model");
         s.classification = true;
         const std::vector<std::size_t> labels(rows.classes.begin(), rows.classes.end());
         const matrix<T> raw = softmax_rows(outputs), tempered = tempered_softmax_rows(outputs, c.classes->temperature);
@@ -316,7 +316,7 @@ calibration_scores score_outputs(const measured_plan& plan, const model_calibrat
         s.set_coverage = sets.coverage;
         s.set_mean_size = sets.mean_size;
     } else {
-        if (!c.interval) raise(codes::invalid_argument, "score_calibration: the calibration has no interval for a regression model");
+        if (!c.interval) raise(codes::core_argument_invalid, "score_calibration: the calibration has no interval for a regression model");
         original_units(plan, outputs, rows, s.predicted, s.actual);
         s.low.resize(s.predicted.size());
         s.high.resize(s.predicted.size());

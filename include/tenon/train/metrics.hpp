@@ -30,7 +30,7 @@ public:
 
     void add(std::size_t truth, std::size_t predicted) {
         if (truth >= classes_ || predicted >= classes_) {
-            raise(codes::invalid_argument, "confusion_matrix: class index " + std::to_string(truth >= classes_ ? truth : predicted) +
+            raise(codes::core_argument_invalid, "confusion_matrix: class index " + std::to_string(truth >= classes_ ? truth : predicted) +
                                                " outside [0, " + std::to_string(classes_) + ")");
         }
         ++counts_[truth * classes_ + predicted];
@@ -75,9 +75,9 @@ struct regression_scores {
 namespace detail {
 inline void require_same_length(std::size_t a, std::size_t b, const char* what) {
     if (a != b) {
-        raise(codes::shape_mismatch, std::string(what) + ": " + std::to_string(a) + " true values but " + std::to_string(b) + " predictions");
+        raise(codes::core_shape_mismatch, std::string(what) + ": " + std::to_string(a) + " true values but " + std::to_string(b) + " predictions");
     }
-    if (a == 0) raise(codes::invalid_argument, std::string(what) + ": no rows to score");
+    if (a == 0) raise(codes::core_argument_invalid, std::string(what) + ": no rows to score");
 }
 inline double ratio_or_zero(double num, double den) { return den > 0.0 ? num / den : 0.0; }
 }  // namespace detail
@@ -141,7 +141,7 @@ double log_loss(const matrix<T>& probabilities, const std::vector<std::size_t>& 
     double total = 0.0;
     for (std::size_t i = 0; i < truth.size(); ++i) {
         if (truth[i] >= cols) {
-            raise(codes::invalid_argument, "log_loss: row " + std::to_string(i) + " has class " + std::to_string(truth[i]) +
+            raise(codes::core_argument_invalid, "log_loss: row " + std::to_string(i) + " has class " + std::to_string(truth[i]) +
                                                " but only " + std::to_string(cols) + " probability columns");
         }
         const double p = std::clamp(static_cast<double>(probabilities.data()[i * cols + truth[i]]), clip, 1.0 - clip);
@@ -166,7 +166,7 @@ template <class T>
 std::vector<reliability_bin> reliability_bins(const matrix<T>& probabilities, const std::vector<std::size_t>& labels, std::size_t bins = 15) {
     const std::size_t rows = probabilities.shape()[0], cols = probabilities.shape()[1];
     if (rows != labels.size() || bins == 0 || cols == 0)
-        raise(codes::invalid_argument, "reliability_bins: " + std::to_string(rows) + " rows for " + std::to_string(labels.size()) + " labels, " +
+        raise(codes::core_argument_invalid, "reliability_bins: " + std::to_string(rows) + " rows for " + std::to_string(labels.size()) + " labels, " +
                                            std::to_string(bins) + " bins, " + std::to_string(cols) + " classes");
     std::vector<reliability_bin> out(bins);
     for (std::size_t b = 0; b < bins; ++b) {
@@ -194,7 +194,7 @@ std::vector<reliability_bin> reliability_bins(const matrix<T>& probabilities, co
 /// MAE, RMSE and R^2 of n predictions (both arrays hold n values).
 template <class T>
 regression_scores score_values(const T* truth, const T* predicted, std::size_t n) {
-    if (n == 0) raise(codes::invalid_argument, "score_values: no rows to score");
+    if (n == 0) raise(codes::core_argument_invalid, "score_values: no rows to score");
     double mean = 0.0;
     for (std::size_t i = 0; i < n; ++i) mean += static_cast<double>(truth[i]);
     mean /= static_cast<double>(n);

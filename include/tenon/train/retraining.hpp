@@ -300,7 +300,7 @@ struct retraining_result {
 /// written before it was stored).
 inline void extend_replay_sample(replay_sample& s, const table& t, const std::vector<std::size_t>& rows) {
     if (s.capacity == 0 || !s.engine || s.rows_seen < s.rows() || s.capacity < s.rows())
-        raise(codes::invalid_argument, "extend_replay_sample: the sample has no valid reservoir state (rows seen " +
+        raise(codes::core_argument_invalid, "extend_replay_sample: the sample has no valid reservoir state (rows seen " +
                                            std::to_string(s.rows_seen) + ", capacity " + std::to_string(s.capacity) + ", " +
                                            std::to_string(s.rows()) + " rows held)");
     const std::size_t columns = s.columns.size();
@@ -309,7 +309,7 @@ inline void extend_replay_sample(replay_sample& s, const table& t, const std::ve
         if (t.contains(s.columns[k])) sources[k] = &t.at(s.columns[k]);
     for (auto r : rows)
         if (r >= t.row_count())
-            raise(codes::prep_row_out_of_range, "extend_replay_sample: row " + std::to_string(r) + " is not below " + std::to_string(t.row_count()));
+            raise(codes::prep_rows_out_of_range, "extend_replay_sample: row " + std::to_string(r) + " is not below " + std::to_string(t.row_count()));
     random_engine engine;
     engine.set_state(*s.engine);
     const auto write_row = [&](std::size_t slot, std::size_t r) {
@@ -767,7 +767,7 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
     const std::function<double()> clock = options.clock ? options.clock : std::function<double()>(detail::steady_seconds);
     const double start = clock();
     if (!incumbent.plan || !incumbent.plan->has_target())
-        raise(codes::deploy_missing_section, "retrain_model: the model file has no preparation plan with a target (section PLAN)");
+        raise(codes::deploy_model_missing_section, "retrain_model: the model file has no preparation plan with a target (section PLAN)");
     const measured_plan& plan = *incumbent.plan;
     const bool classify = plan.target_type() == target_kind::classification;
     gate_metric metric = options.metric == gate_metric::automatic ? (classify ? gate_metric::accuracy : gate_metric::rmse) : options.metric;
@@ -787,7 +787,7 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
     detail::mix_builder builder(plan);
     for (const auto& name : builder.names())
         if (!new_rows.contains(name))
-            raise(codes::deploy_missing_column, "retrain_model: the new rows have no column '" + name + "' (the model reads it)");
+            raise(codes::deploy_input_missing_column, "retrain_model: the new rows have no column '" + name + "' (the model reads it)");
     std::vector<detail::raw_cell> cells(builder.names().size());
     std::size_t replay_used = 0;
     if (options.use_replay && incumbent.replay) {

@@ -152,12 +152,12 @@ settings_search_result search_settings(const table& t, const plan& preparation, 
                                        std::size_t max_candidates = 0) {
     TENON_REQUIRE_SCALAR(T);
     if (!(budget_seconds > 0.0 && std::isfinite(budget_seconds)))
-        raise(codes::train_option, "search_settings: the budget must be a positive number of seconds, got " + number_to_text(budget_seconds));
-    if (folds < 2) raise(codes::train_option, "search_settings: needs at least 2 folds, got " + std::to_string(folds));
-    if (start.team) raise(codes::train_option, "search_settings: a team cannot search; search alone and give the team the chosen settings");
+        raise(codes::train_option_invalid, "search_settings: the budget must be a positive number of seconds, got " + number_to_text(budget_seconds));
+    if (folds < 2) raise(codes::train_option_invalid, "search_settings: needs at least 2 folds, got " + std::to_string(folds));
+    if (start.team) raise(codes::train_option_invalid, "search_settings: a team cannot search; search alone and give the team the chosen settings");
     const std::vector<std::size_t> start_hidden = hidden_widths(start, train_rows.size());
     if (start_hidden.empty() || !(start.learning_rate > 0.0))
-        raise(codes::train_option, "search_settings: the starting settings need hidden layers and a positive learning rate");
+        raise(codes::train_option_invalid, "search_settings: the starting settings need hidden layers and a positive learning rate");
     // A decay the rule cannot apply is refused before any training.
     (void)make_update_rule<T>(start.update, start.weight_decay);
     const std::function<double()> clock = start.clock ? start.clock : std::function<double()>(detail::steady_seconds);
@@ -168,7 +168,7 @@ settings_search_result search_settings(const table& t, const plan& preparation, 
     std::vector<fold> by_position;
     const std::uint64_t fold_seed = start.seed ^ 0x5EA5C4F01D5ull;
     const measured_plan measured = preparation.measure(t, train_rows);
-    if (!measured.has_target()) raise(codes::train_option, "search_settings: the plan has no target column");
+    if (!measured.has_target()) raise(codes::train_option_invalid, "search_settings: the plan has no target column");
     if (measured.target_type() == target_kind::classification) {
         // The class of every training row with a target (rows without one are dropped by fit_model anyway).
         const prepared_rows<T> prepared = measured.template apply<T>(t, train_rows);
@@ -178,12 +178,12 @@ settings_search_result search_settings(const table& t, const plan& preparation, 
         bool stratify = true;
         for (auto n : per_class) stratify = stratify && (n == 0 || n >= folds);
         if (rows.size() < folds)
-            raise(codes::train_option, "search_settings: " + std::to_string(rows.size()) + " training rows with a target, fewer than the " +
+            raise(codes::train_option_invalid, "search_settings: " + std::to_string(rows.size()) + " training rows with a target, fewer than the " +
                                            std::to_string(folds) + " folds");
         by_position = stratify ? stratified_k_folds(prepared.classes, folds, fold_seed) : k_folds(rows.size(), folds, fold_seed);
     } else {
         if (rows.size() < folds)
-            raise(codes::train_option,
+            raise(codes::train_option_invalid,
                   "search_settings: " + std::to_string(rows.size()) + " training rows, fewer than the " + std::to_string(folds) + " folds");
         by_position = k_folds(rows.size(), folds, fold_seed);
     }

@@ -233,40 +233,40 @@ inline double steady_seconds() {
 template <class T>
 void validate_rows(const supervised_rows<T>& d, const char* which, std::size_t inputs, loss_kind loss) {
     const std::size_t rows = d.rows();
-    if (rows == 0) raise(codes::train_no_rows, std::string("trainer: the ") + which + " rows are empty");
+    if (rows == 0) raise(codes::train_rows_empty, std::string("trainer: the ") + which + " rows are empty");
     if (inputs != 0 && d.features.shape()[1] != inputs) {
-        raise(codes::shape_mismatch, std::string("trainer: ") + which + " features have " + std::to_string(d.features.shape()[1]) +
+        raise(codes::core_shape_mismatch, std::string("trainer: ") + which + " features have " + std::to_string(d.features.shape()[1]) +
                                          " columns, the " + "training features " + std::to_string(inputs));
     }
     if (d.is_classification()) {
         if (loss != loss_kind::cross_entropy) {
-            raise(codes::train_option, std::string("trainer: class labels need the cross-entropy loss, not ") + loss_kind_name(loss));
+            raise(codes::train_option_invalid, std::string("trainer: class labels need the cross-entropy loss, not ") + loss_kind_name(loss));
         }
         if (d.labels.size() != rows) {
-            raise(codes::shape_mismatch, std::string("trainer: ") + which + " has " + std::to_string(rows) + " feature rows but " +
+            raise(codes::core_shape_mismatch, std::string("trainer: ") + which + " has " + std::to_string(rows) + " feature rows but " +
                                              std::to_string(d.labels.size()) + " labels");
         }
         for (std::size_t i = 0; i < rows; ++i) {
             if (d.labels[i] >= d.class_count) {
-                raise(codes::train_option, std::string("trainer: ") + which + " row " + std::to_string(i) + " has class " +
+                raise(codes::train_option_invalid, std::string("trainer: ") + which + " row " + std::to_string(i) + " has class " +
                                                std::to_string(d.labels[i]) + ", outside [0, " + std::to_string(d.class_count) + ")");
             }
         }
     } else {
-        if (loss == loss_kind::cross_entropy) raise(codes::train_option, "trainer: the cross-entropy loss needs class labels");
+        if (loss == loss_kind::cross_entropy) raise(codes::train_option_invalid, "trainer: the cross-entropy loss needs class labels");
         if (d.targets.shape()[0] != rows) {
-            raise(codes::shape_mismatch, std::string("trainer: ") + which + " has " + std::to_string(rows) + " feature rows but " +
+            raise(codes::core_shape_mismatch, std::string("trainer: ") + which + " has " + std::to_string(rows) + " feature rows but " +
                                              std::to_string(d.targets.shape()[0]) + " target rows");
         }
     }
     if (const std::size_t k = first_non_finite(d.features.data(), d.features.size()); k < d.features.size()) {
         const std::size_t c = d.features.shape()[1];
-        raise(codes::train_non_finite_input, std::string("trainer: ") + which + " feature at row " + std::to_string(k / c) +
+        raise(codes::train_input_non_finite, std::string("trainer: ") + which + " feature at row " + std::to_string(k / c) +
                                                  ", column " + std::to_string(k % c) + " is " + std::to_string(d.features.data()[k]));
     }
     if (const std::size_t k = first_non_finite(d.targets.data(), d.targets.size()); k < d.targets.size()) {
         const std::size_t c = d.targets.shape()[1];
-        raise(codes::train_non_finite_input, std::string("trainer: ") + which + " target at row " + std::to_string(k / c) +
+        raise(codes::train_input_non_finite, std::string("trainer: ") + which + " target at row " + std::to_string(k / c) +
                                                  ", column " + std::to_string(k % c) + " is " + std::to_string(d.targets.data()[k]));
     }
 }
@@ -289,7 +289,7 @@ var<T> record_loss(tape<T>& t, var<T> output, loss_kind kind, const matrix<T>& t
         case loss_kind::huber: return huber_loss(t, output, targets, settings);
         case loss_kind::cross_entropy: return cross_entropy_loss(t, output, labels, settings);
     }
-    raise(codes::train_option, "record_loss: unknown loss kind");
+    raise(codes::train_option_invalid, "record_loss: unknown loss kind");
 }
 
 /// Network outputs for every row, computed in inference mode in chunks of
@@ -346,23 +346,23 @@ class trainer {
 public:
     trainer(network<T>& net, update_rule<T>& rule, rate_schedule& schedule, training_options<T> options)
         : net_(net), rule_(rule), schedule_(schedule), options_(std::move(options)) {
-        if (options_.batch_size == 0) raise(codes::train_option, "trainer: batch_size must be at least 1");
+        if (options_.batch_size == 0) raise(codes::train_option_invalid, "trainer: batch_size must be at least 1");
         if (!(options_.divergence_rate_factor > 0.0 && options_.divergence_rate_factor < 1.0)) {
-            raise(codes::train_option, "trainer: divergence_rate_factor must be in (0, 1), got " + std::to_string(options_.divergence_rate_factor));
+            raise(codes::train_option_invalid, "trainer: divergence_rate_factor must be in (0, 1), got " + std::to_string(options_.divergence_rate_factor));
         }
         if (!(options_.min_improvement >= 0.0)) {
-            raise(codes::train_option, "trainer: min_improvement must be non-negative, got " + std::to_string(options_.min_improvement));
+            raise(codes::train_option_invalid, "trainer: min_improvement must be non-negative, got " + std::to_string(options_.min_improvement));
         }
         if (!options_.loss_settings.sample_weights.empty()) {
-            raise(codes::train_option, "trainer: per-sample loss weights cannot be given for the whole run (" +
+            raise(codes::train_option_invalid, "trainer: per-sample loss weights cannot be given for the whole run (" +
                                            std::to_string(options_.loss_settings.sample_weights.size()) +
                                            " weights); use class weights, or record the loss yourself per batch");
         }
         if (!(options_.smoothing >= 0.0 && options_.smoothing < 1.0)) {
-            raise(codes::train_option, "trainer: smoothing must be in [0, 1), got " + std::to_string(options_.smoothing));
+            raise(codes::train_option_invalid, "trainer: smoothing must be in [0, 1), got " + std::to_string(options_.smoothing));
         }
         if (options_.resume && (options_.patience_steps > 0 || options_.min_steps > 0 || options_.smoothing > 0.0)) {
-            raise(codes::train_option, "trainer: a resumed run counts patience in epochs only (patience_steps, min_steps and smoothing must be 0)");
+            raise(codes::train_option_invalid, "trainer: a resumed run counts patience in epochs only (patience_steps, min_steps and smoothing must be 0)");
         }
         if (!options_.clock) options_.clock = detail::steady_seconds;
     }
@@ -620,15 +620,15 @@ private:
         const bool validate = validation.rows() > 0;
         if (validate) detail::validate_rows(validation, "validation", inputs, options_.loss);
         if (validate && validation.is_classification() != train.is_classification()) {
-            raise(codes::train_option, "trainer: training and validation rows disagree on classification versus regression");
+            raise(codes::train_option_invalid, "trainer: training and validation rows disagree on classification versus regression");
         }
         const std::size_t width = net_.output_width(inputs);
         if (train.is_classification() && width != train.class_count) {
-            raise(codes::shape_mismatch, "trainer: the network gives " + std::to_string(width) + " outputs for " +
+            raise(codes::core_shape_mismatch, "trainer: the network gives " + std::to_string(width) + " outputs for " +
                                              std::to_string(train.class_count) + " classes");
         }
         if (!train.is_classification() && width != train.targets.shape()[1]) {
-            raise(codes::shape_mismatch, "trainer: the network gives " + std::to_string(width) + " outputs for " +
+            raise(codes::core_shape_mismatch, "trainer: the network gives " + std::to_string(width) + " outputs for " +
                                              std::to_string(train.targets.shape()[1]) + " target columns");
         }
     }
@@ -636,20 +636,20 @@ private:
     // A resumed state fits these rows (with shards: this member's shard).
     static void check_resume(const training_progress<T>& r, std::size_t rows) {
         if (r.order.size() != rows) {
-            raise(codes::train_option, "trainer: the resumed run shuffled " + std::to_string(r.order.size()) +
+            raise(codes::train_option_invalid, "trainer: the resumed run shuffled " + std::to_string(r.order.size()) +
                                            " training rows, this run has " + std::to_string(rows));
         }
         std::vector<std::uint8_t> seen(rows, 0);
         for (const std::size_t i : r.order) {
-            if (i >= rows || seen[i]) raise(codes::train_option, "trainer: the resumed row order is not a permutation");
+            if (i >= rows || seen[i]) raise(codes::train_option_invalid, "trainer: the resumed row order is not a permutation");
             seen[i] = 1;
         }
         if (r.best_epoch > r.epochs_done || (r.best_epoch > 0 && r.best.values.empty())) {
-            raise(codes::train_option, "trainer: the resumed progress names best epoch " + std::to_string(r.best_epoch) +
+            raise(codes::train_option_invalid, "trainer: the resumed progress names best epoch " + std::to_string(r.best_epoch) +
                                            " without its weights or after epoch " + std::to_string(r.epochs_done));
         }
         if (!(r.rate_factor > 0.0 && r.rate_factor <= 1.0)) {
-            raise(codes::train_option, "trainer: the resumed rate factor must be in (0, 1], got " + std::to_string(r.rate_factor));
+            raise(codes::train_option_invalid, "trainer: the resumed rate factor must be in (0, 1], got " + std::to_string(r.rate_factor));
         }
     }
 

@@ -52,14 +52,14 @@ inline const char* update_kind_name(update_kind v) noexcept { return to_string(v
 /// Parses gd, momentum, nesterov, adam, adamw, rmsprop or adagrad.
 inline update_kind parse_update_kind(const std::string& name) {
     update_kind v{};
-    if (!enum_from_text(name, v)) raise(codes::train_option, "unknown optimizer '" + name + "' (" + enum_choices<update_kind>() + ")");
+    if (!enum_from_text(name, v)) raise(codes::train_option_invalid, "unknown optimizer '" + name + "' (" + enum_choices<update_kind>() + ")");
     return v;
 }
 
 /// Parses l1, l2, huber or cross-entropy.
 inline loss_kind parse_loss_kind(const std::string& name) {
     loss_kind v{};
-    if (!enum_from_text(name, v)) raise(codes::train_option, "unknown loss '" + name + "' (" + enum_choices<loss_kind>() + ")");
+    if (!enum_from_text(name, v)) raise(codes::train_option_invalid, "unknown loss '" + name + "' (" + enum_choices<loss_kind>() + ")");
     return v;
 }
 
@@ -78,7 +78,7 @@ std::unique_ptr<update_rule<T>> make_update_rule(update_kind kind) {
         case update_kind::rmsprop: return std::make_unique<rmsprop<T>>();
         case update_kind::adagrad: return std::make_unique<adagrad<T>>();
     }
-    raise(codes::train_option, "make_update_rule: unknown update rule");
+    raise(codes::train_option_invalid, "make_update_rule: unknown update rule");
 }
 
 /// The update rule with decoupled weight decay `weight_decay`
@@ -89,10 +89,10 @@ std::unique_ptr<update_rule<T>> make_update_rule(update_kind kind) {
 template <class T>
 std::unique_ptr<update_rule<T>> make_update_rule(update_kind kind, double weight_decay) {
     if (!(weight_decay >= 0.0 && std::isfinite(weight_decay)))
-        raise(codes::train_option, "weight decay " + number_to_text(weight_decay) + ": must be a finite number, at least 0");
+        raise(codes::train_option_invalid, "weight decay " + number_to_text(weight_decay) + ": must be a finite number, at least 0");
     if (weight_decay == 0.0) return make_update_rule<T>(kind);
     if (kind != update_kind::adam && kind != update_kind::adamw) {
-        raise(codes::train_option, "weight decay " + number_to_text(weight_decay) + " needs the adam or adamw update rule; " + to_string(kind) +
+        raise(codes::train_option_invalid, "weight decay " + number_to_text(weight_decay) + " needs the adam or adamw update rule; " + to_string(kind) +
                                        " has no decoupled weight decay");
     }
     adam_options<T> a;
@@ -121,7 +121,7 @@ inline const char* to_string(class_weighting w) noexcept {
 /// Parses none or balanced.
 inline class_weighting parse_class_weighting(const std::string& name) {
     class_weighting v{};
-    if (!enum_from_text(name, v)) raise(codes::train_option, "unknown class weighting '" + name + "' (" + enum_choices<class_weighting>() + ")");
+    if (!enum_from_text(name, v)) raise(codes::train_option_invalid, "unknown class weighting '" + name + "' (" + enum_choices<class_weighting>() + ")");
     return v;
 }
 
@@ -132,7 +132,7 @@ inline std::vector<double> balanced_weights_from_counts(const std::vector<double
     std::vector<double> w(counts.size());
     for (std::size_t c = 0; c < counts.size(); ++c) {
         if (!(counts[c] > 0.0)) {
-            raise(codes::train_option, "balanced class weights: class " + std::to_string(c) + " has no training row, so its weight n / (k n_c) is undefined");
+            raise(codes::train_option_invalid, "balanced class weights: class " + std::to_string(c) + " has no training row, so its weight n / (k n_c) is undefined");
         }
         w[c] = n / (static_cast<double>(counts.size()) * counts[c]);
     }
@@ -144,7 +144,7 @@ inline std::vector<double> balanced_weights_from_counts(const std::vector<double
 inline std::vector<double> balanced_class_weights(const std::vector<std::size_t>& labels, std::size_t classes) {
     std::vector<double> counts(classes, 0.0);
     for (const std::size_t c : labels) {
-        if (c >= classes) raise(codes::train_option, "balanced_class_weights: class " + std::to_string(c) + " of " + std::to_string(classes));
+        if (c >= classes) raise(codes::train_option_invalid, "balanced_class_weights: class " + std::to_string(c) + " of " + std::to_string(classes));
         counts[c] += 1.0;
     }
     return balanced_weights_from_counts(counts);
@@ -316,7 +316,27 @@ struct fitted_model {
     /// not refit.
     std::size_t refit_rows = 0;
     std::vector<std::uint64_t> refit_steps{};
+    /// The training rows fit_model was given (this member's shard in a team
+    /// holding shards) and its settings without the host's controls (no
+    /// observers, clock, cancel flag, team or executor): what
+    /// make_model_file(model, table) needs besides the table.
+    std::vector<std::size_t> fitted_rows{};
+    model_settings settings{};
 };
+
+namespace detail {
+
+// The settings as a fitted model keeps them: the host's controls dropped,
+// so that nothing the model holds points into the host's frames.
+inline model_settings kept_settings(model_settings s) {
+    static_cast<run_controls&>(s) = run_controls{};
+    s.team = nullptr;
+    s.workers = nullptr;
+    s.exchange = nullptr;
+    return s;
+}
+
+}  // namespace detail
 
 /// Scores of a model on some rows, in the target's original units.
 struct evaluation {
@@ -484,11 +504,11 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
     TENON_REQUIRE_SCALAR(T);
     const bool shards = s.team && s.member_rows == team_rows::shard_per_member;
     if (shards && !s.exchange) {
-        raise(codes::train_option, "fit_model: a team whose members hold shards of the rows needs model_settings::exchange, so that one "
+        raise(codes::train_option_invalid, "fit_model: a team whose members hold shards of the rows needs model_settings::exchange, so that one "
                                    "plan is measured over all members' training rows");
     }
     if (shards) require_same_columns(t, *s.exchange, "fit_model");
-    if (s.team && s.refit.value_or(false)) raise(codes::train_option, "fit_model: a team cannot refit (model_settings::refit)");
+    if (s.team && s.refit.value_or(false)) raise(codes::train_option_invalid, "fit_model: a team cannot refit (model_settings::refit)");
     measured_plan measured = preparation.measure(t, train_rows, shards ? s.exchange : nullptr);
     // Preparing the rows can fail on one member alone (e.g. a missing cell
     // without a fill in its shard): the members agree on failing before the
@@ -502,10 +522,10 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
     initializer init;
     bool linear_path = false;
     const auto prepare = [&] {
-        if (!measured.has_target()) raise(codes::train_option, "fit_model: the plan has no target column");
+        if (!measured.has_target()) raise(codes::train_option_invalid, "fit_model: the plan has no target column");
         const bool classify = measured.target_type() == target_kind::classification;
         if (classify && measured.class_count() < 2) {
-            raise(codes::train_option, "fit_model: the target '" + measured.target_name() + "' has " + std::to_string(measured.class_count()) +
+            raise(codes::train_option_invalid, "fit_model: the target '" + measured.target_name() + "' has " + std::to_string(measured.class_count()) +
                                            " class in the training rows; classification needs at least 2");
         }
         prepared_rows<T> train_prepared = measured.template apply<T>(t, train_rows);
@@ -518,7 +538,7 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
 
         loss = s.loss_given ? s.loss : (classify ? loss_kind::cross_entropy : loss_kind::l2);
         if (classify != (loss == loss_kind::cross_entropy)) {
-            raise(codes::train_option, std::string("fit_model: the ") + loss_kind_name(loss) + " loss does not fit a " +
+            raise(codes::train_option_invalid, std::string("fit_model: the ") + loss_kind_name(loss) + " loss does not fit a " +
                                            (classify ? "classification" : "regression") + " target");
         }
         sizes.push_back(measured.feature_count());
@@ -546,6 +566,8 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
         model.validation_rows = static_cast<std::size_t>(counts[1]);
         model.dropped_rows = static_cast<std::size_t>(counts[2]);
     }
+    model.fitted_rows = train_rows;
+    model.settings = detail::kept_settings(s);
     // The widths may depend on the training row count (over all shards, so
     // every member of a team builds the same network).
     const std::vector<std::size_t> hidden = hidden_widths(s, model.train_rows);
@@ -565,7 +587,7 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
     // own (the golden-ratio increment of SplitMix64, Steele, Lea & Flood
     // 2014, spreads them over the seed space).
     if (s.team && s.ensemble > 1)
-        raise(codes::train_option, "fit_model: a team trains one network; an ensemble of " + std::to_string(s.ensemble) + " is not supported");
+        raise(codes::train_option_invalid, "fit_model: a team trains one network; an ensemble of " + std::to_string(s.ensemble) + " is not supported");
     const std::size_t member_total = s.team ? 1 : ensemble_size(s, model.train_rows);
     const auto member_seed = [&](std::size_t k) { return detail::member_seed(s.seed, k); };
     for (std::size_t k = 1; k < member_total; ++k) {
@@ -586,7 +608,7 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
     o.seed = s.seed;
     o.loss = loss;
     if (s.class_weights != class_weighting::none && !train.is_classification()) {
-        raise(codes::train_option, std::string("fit_model: class weights (") + to_string(s.class_weights) + ") need a classification target; '" +
+        raise(codes::train_option_invalid, std::string("fit_model: class weights (") + to_string(s.class_weights) + ") need a classification target; '" +
                                        model.plan.target_name() + "' is a regression target");
     }
     if (s.class_weights == class_weighting::balanced && train.is_classification()) {
@@ -709,13 +731,13 @@ template <class T>
 bool refit_model(fitted_model<T>& model, const table& t, const std::vector<std::size_t>& train_rows,
                  const std::vector<std::size_t>& validation_rows, const model_settings& s) {
     TENON_REQUIRE_SCALAR(T);
-    if (s.team) raise(codes::train_option, "refit_model: a team cannot refit");
-    if (model.refit_rows > 0) raise(codes::train_option, "refit_model: the model was refit already (on " + std::to_string(model.refit_rows) + " rows)");
+    if (s.team) raise(codes::train_option_invalid, "refit_model: a team cannot refit");
+    if (model.refit_rows > 0) raise(codes::train_option_invalid, "refit_model: the model was refit already (on " + std::to_string(model.refit_rows) + " rows)");
     if (validation_rows.empty() || model.best_steps.empty()) {
-        raise(codes::train_option, "refit_model: the model has no validated stopping step to refit for (fit_model was given no validation rows)");
+        raise(codes::train_option_invalid, "refit_model: the model has no validated stopping step to refit for (fit_model was given no validation rows)");
     }
     if (model.best_steps.size() != model.member_count() && !model.kept_baseline) {
-        raise(codes::train_option, "refit_model: " + std::to_string(model.best_steps.size()) + " stopping steps for " +
+        raise(codes::train_option_invalid, "refit_model: " + std::to_string(model.best_steps.size()) + " stopping steps for " +
                                        std::to_string(model.member_count()) + " members");
     }
     for (const std::uint64_t steps : model.best_steps)
@@ -795,7 +817,7 @@ bool refit_model(fitted_model<T>& model, const table& t, const std::vector<std::
     } else {
         network<T> first = build(0);
         if (first.parameter_count() != model.net.parameter_count()) {
-            raise(codes::train_option, "refit_model: the settings build a network of " + std::to_string(first.parameter_count()) +
+            raise(codes::train_option_invalid, "refit_model: the settings build a network of " + std::to_string(first.parameter_count()) +
                                            " parameters, the model's has " + std::to_string(model.net.parameter_count()) +
                                            " (pass the settings fit_model was given)");
         }
@@ -855,7 +877,7 @@ evaluation evaluate_model(fitted_model<T>& model, const table& t, const std::vec
     evaluation e;
     e.rows = p.rows.size();
     e.dropped_rows = p.dropped_missing_target;
-    if (e.rows == 0) raise(codes::train_no_rows, "evaluate_model: no rows with a target to score");
+    if (e.rows == 0) raise(codes::train_rows_empty, "evaluate_model: no rows with a target to score");
     const matrix<T> predicted = predict_prepared(model, p.features);
     if (model.plan.target_type() == target_kind::classification) {
         e.classification = true;
@@ -883,12 +905,12 @@ evaluation evaluate_model(fitted_model<T>& model, const table& t, const std::vec
 /// the target's original units, as evaluate_model scores the model.
 template <class T>
 evaluation evaluate_baseline(const fitted_model<T>& model, const table& t, const std::vector<std::size_t>& rows) {
-    if (model.baseline.features == 0) raise(codes::train_option, "evaluate_baseline: the model holds no baseline (it was trained in a team)");
+    if (model.baseline.features == 0) raise(codes::train_option_invalid, "evaluate_baseline: the model holds no baseline (it was trained in a team)");
     prepared_rows<T> p = model.plan.template apply<T>(t, rows);
     evaluation e;
     e.rows = p.rows.size();
     e.dropped_rows = p.dropped_missing_target;
-    if (e.rows == 0) raise(codes::train_no_rows, "evaluate_baseline: no rows with a target to score");
+    if (e.rows == 0) raise(codes::train_rows_empty, "evaluate_baseline: no rows with a target to score");
     if (model.baseline.class_scores) {
         e.classification = true;
         const std::size_t k = model.baseline.outputs;
@@ -941,9 +963,9 @@ struct cross_validation_report {
 template <class T>
 cross_validation_report cross_validate(const table& t, const plan& preparation, const std::vector<fold>& folds, const model_settings& s,
                                        double validation_share = 0.15, bool chronological = false) {
-    if (folds.size() < 2) raise(codes::train_option, "cross_validate: needs at least 2 folds, got " + std::to_string(folds.size()));
+    if (folds.size() < 2) raise(codes::train_option_invalid, "cross_validate: needs at least 2 folds, got " + std::to_string(folds.size()));
     if (!(validation_share >= 0.0 && validation_share < 1.0)) {
-        raise(codes::train_option, "cross_validate: the validation share must be in [0, 1), got " + std::to_string(validation_share));
+        raise(codes::train_option_invalid, "cross_validate: the validation share must be in [0, 1), got " + std::to_string(validation_share));
     }
     cross_validation_report report;
     for (std::size_t f = 0; f < folds.size(); ++f) {

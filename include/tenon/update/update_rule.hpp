@@ -118,7 +118,7 @@ public:
             }
             piece_run run{this, &params, learning_rate, transform};
             workers_->run(threads, &update_rule::run_task, &run);
-            if (run.failed) raise(codes::invalid_argument, std::string(kind()) + " update rule: a piece of the update failed");
+            if (run.failed) raise(codes::core_argument_invalid, std::string(kind()) + " update rule: a piece of the update failed");
             return;
         }
         T* buffers[max_buffers] = {};
@@ -185,7 +185,7 @@ public:
     /// State buffer number `buffer_index` of parameter `index` (same shape as the parameter).
     const matrix<T>& buffer(std::size_t index, std::size_t buffer_index) const {
         if (buffer_index >= buffer_count_ || index >= parameter_count()) {
-            raise(codes::invalid_argument, std::string(kind()) + ": state buffer " + std::to_string(buffer_index) + " of parameter " +
+            raise(codes::core_argument_invalid, std::string(kind()) + ": state buffer " + std::to_string(buffer_index) + " of parameter " +
                                                std::to_string(index) + " does not exist (" + std::to_string(buffer_count_) +
                                                " buffers, " + std::to_string(parameter_count()) + " parameters)");
         }
@@ -431,7 +431,7 @@ private:
                                                               ", the state was laid out for " + to_string(shapes_[i]));
             }
             if (shape_of(params[i]->grad()) != shapes_[i]) {
-                raise(codes::shape_mismatch, std::string(kind()) + " update rule: the gradient of '" + params[i]->name() + "' has shape " +
+                raise(codes::core_shape_mismatch, std::string(kind()) + " update rule: the gradient of '" + params[i]->name() + "' has shape " +
                                                  to_string(shape_of(params[i]->grad())) + ", its value " + to_string(shapes_[i]));
             }
         }
