@@ -345,26 +345,24 @@ struct ensemble_view {
 };
 
 template <class T>
-ensemble_view<T> ensemble_outputs(fitted_model<T>& model, const prepared_rows<T>& rows) {
+ensemble_view<T> ensemble_outputs(const std::vector<network<T>*>& nets, const measured_plan& plan, const prepared_rows<T>& rows) {
     ensemble_view<T> v;
-    if (model.members.empty()) {
-        v.outputs = network_outputs(model.net, rows.features);
+    if (nets.size() == 1) {
+        v.outputs = network_outputs(*nets.front(), rows.features);
         return v;
     }
-    v.outputs = averaged_outputs(model, rows.features);
-    if (model.plan.target_type() == target_kind::classification) {
+    const bool classify = plan.target_type() == target_kind::classification;
+    v.outputs = averaged_outputs(nets, classify, rows.features);
+    if (classify) {
         const T tiny = std::numeric_limits<T>::min();
         for (std::size_t k = 0; k < v.outputs.size(); ++k) v.outputs.data()[k] = std::log(std::max(v.outputs.data()[k], tiny));
         return v;
     }
-    const scaling& ts = model.plan.target_scaling();
-    const std::size_t n = rows.rows.size(), count = model.member_count();
+    const scaling& ts = plan.target_scaling();
+    const std::size_t n = rows.rows.size(), count = nets.size();
     std::vector<std::vector<double>> values;
-    values.push_back({});
-    const matrix<T> first = network_outputs(model.net, rows.features);
-    for (std::size_t i = 0; i < n; ++i) values.back().push_back(ts.inverse(static_cast<double>(first.data()[i])));
-    for (auto& member : model.members) {
-        const matrix<T> out = network_outputs(member, rows.features);
+    for (network<T>* net : nets) {
+        const matrix<T> out = network_outputs(*net, rows.features);
         values.push_back({});
         for (std::size_t i = 0; i < n; ++i) values.back().push_back(ts.inverse(static_cast<double>(out.data()[i])));
     }
@@ -378,6 +376,11 @@ ensemble_view<T> ensemble_outputs(fitted_model<T>& model, const prepared_rows<T>
     }
     v.has_spread = true;
     return v;
+}
+
+template <class T>
+ensemble_view<T> ensemble_outputs(fitted_model<T>& model, const prepared_rows<T>& rows) {
+    return ensemble_outputs(member_networks(model), model.plan, rows);
 }
 
 }  // namespace detail

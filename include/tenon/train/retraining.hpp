@@ -524,61 +524,25 @@ std::vector<network<T>> networks_of(const model_file<T>& file) {
     return nets;
 }
 
-// The networks' mean: class probabilities (each network's softmax) or
-// values in prepared units, summed in member order and divided by the
-// count, as fit_model's averaged_outputs and the predictor compute it.
+// Pointers to the networks, in order (for the averaging and calibration
+// views, which take a list of networks).
 template <class T>
-matrix<T> mean_outputs(std::vector<network<T>>& nets, const measured_plan& plan, const matrix<T>& features) {
-    const bool classify = plan.target_type() == target_kind::classification;
-    matrix<T> sum = network_outputs(nets.front(), features);
-    if (classify) sum = softmax_rows(sum);
-    if (nets.size() == 1) return sum;
-    for (std::size_t n = 1; n < nets.size(); ++n) {
-        matrix<T> m = network_outputs(nets[n], features);
-        if (classify) m = softmax_rows(m);
-        for (std::size_t k = 0; k < sum.size(); ++k) sum.data()[k] += m.data()[k];
-    }
-    const T count = static_cast<T>(nets.size());
-    for (std::size_t k = 0; k < sum.size(); ++k) sum.data()[k] /= count;
-    return sum;
+std::vector<network<T>*> pointers_to(std::vector<network<T>>& nets) {
+    std::vector<network<T>*> out;
+    for (auto& n : nets) out.push_back(&n);
+    return out;
 }
 
-// What calibration sees of the networks on prepared rows, as
-// calibration.hpp's ensemble_outputs sees a fitted model: one network's
-// logits or values; an ensemble's log mean probabilities, or its mean
-// value and the members' sample standard deviation (n - 1) in the
-// target's units.
+// The networks' mean (fit_model's averaged_outputs).
+template <class T>
+matrix<T> mean_outputs(std::vector<network<T>>& nets, const measured_plan& plan, const matrix<T>& features) {
+    return averaged_outputs(pointers_to(nets), plan.target_type() == target_kind::classification, features);
+}
+
+// What calibration sees of the networks (calibration.hpp's ensemble_outputs).
 template <class T>
 ensemble_view<T> calibration_view(std::vector<network<T>>& nets, const measured_plan& plan, const prepared_rows<T>& rows) {
-    ensemble_view<T> v;
-    if (nets.size() == 1) {
-        v.outputs = network_outputs(nets.front(), rows.features);
-        return v;
-    }
-    v.outputs = mean_outputs(nets, plan, rows.features);
-    if (plan.target_type() == target_kind::classification) {
-        const T tiny = std::numeric_limits<T>::min();
-        for (std::size_t k = 0; k < v.outputs.size(); ++k) v.outputs.data()[k] = std::log(std::max(v.outputs.data()[k], tiny));
-        return v;
-    }
-    const scaling& ts = plan.target_scaling();
-    const std::size_t n = rows.rows.size(), count = nets.size();
-    std::vector<std::vector<double>> values;
-    for (auto& net : nets) {
-        const matrix<T> out = network_outputs(net, rows.features);
-        values.push_back({});
-        for (std::size_t i = 0; i < n; ++i) values.back().push_back(ts.inverse(static_cast<double>(out.data()[i])));
-    }
-    v.spread.assign(n, 0.0);
-    for (std::size_t i = 0; i < n; ++i) {
-        double mean = 0.0, squares = 0.0;
-        for (const auto& m : values) mean += m[i];
-        mean /= static_cast<double>(count);
-        for (const auto& m : values) squares += (m[i] - mean) * (m[i] - mean);
-        v.spread[i] = std::sqrt(squares / static_cast<double>(count - 1));
-    }
-    v.has_spread = true;
-    return v;
+    return ensemble_outputs(pointers_to(nets), plan, rows);
 }
 
 // The gate's score of one network or a seed ensemble (on its mean).
@@ -619,83 +583,6 @@ std::pair<double, double> coverage_of(std::vector<network<T>>& nets, const measu
     const ensemble_view<T> v = calibration_view(nets, plan, rows);
     const calibration_scores s = score_outputs(plan, c, v.outputs, v.has_spread ? &v.spread : nullptr, rows);
     return s.classification ? std::make_pair(s.set_coverage, s.set_mean_size) : std::make_pair(s.interval_coverage, s.interval_mean_width);
-}
-
-// Continues training every network of `nets` on the same rows, each from
-// its own weights with the seed member_seed(k); the first keeps the host's
-// observers, the other members train without them. With an executor of
-// more than one thread and more than one network, the networks train side
-// by side, each on one thread (as fit_model's train_members), each with
-// the whole budget left; otherwise one after the other, each with an even
-// share of what `remaining` says is left of the budget when it starts
-// (the last member's share is all of it). Returns the outcomes in member order.
-template <class T, class Seed, class Remaining>
-std::vector<training_outcome> continue_members(std::vector<network<T>>& nets, const training_options<T>& o, update_kind update, double learning_rate,
-                                               const Seed& member_seed, const Remaining& remaining, const supervised_rows<T>& train,
-                                               const supervised_rows<T>& validation) {
-    struct job {
-        network<T>* net = nullptr;
-        training_options<T> options;
-        training_outcome outcome;
-        std::exception_ptr error;
-    };
-    const std::size_t count = nets.size();
-    std::vector<job> jobs(count);
-    const bool side_by_side = count > 1 && o.workers && o.workers->concurrency() > 1;
-    for (std::size_t k = 0; k < count; ++k) {
-        jobs[k].net = &nets[k];
-        jobs[k].options = o;
-        jobs[k].options.seed = member_seed(k);
-        if (k > 0) {
-            jobs[k].options.on_epoch = nullptr;
-            jobs[k].options.on_batch = nullptr;
-        }
-        if (side_by_side) jobs[k].options.workers = nullptr;
-    }
-    const auto run_one = [&](job& j) {
-        auto rule = make_update_rule<T>(update);
-        constant_rate schedule(learning_rate);
-        trainer<T> tr(*j.net, *rule, schedule, std::move(j.options));
-        j.outcome = tr.run(train, validation);
-    };
-    if (side_by_side) {
-        struct context {
-            std::vector<job>* jobs;
-            const decltype(run_one)* run;
-        } c{&jobs, &run_one};
-        o.workers->run(count, [](void* p, std::size_t k) {
-            auto* ctx = static_cast<context*>(p);
-            job& j = (*ctx->jobs)[k];
-#if TENON_HAS_EXCEPTIONS
-            try {
-                (*ctx->run)(j);
-            } catch (...) {
-                j.error = std::current_exception();
-            }
-#else
-            (*ctx->run)(j);
-#endif
-        }, &c);
-        for (auto& j : jobs)
-            if (j.error) std::rethrow_exception(j.error);
-    } else {
-        for (std::size_t k = 0; k < count; ++k) {
-            job& j = jobs[k];
-            if (o.time_budget_seconds > 0.0) {
-                const double left = k == 0 ? o.time_budget_seconds : remaining();
-                if (left <= 0.0) {  // nothing left for this member: it keeps the incumbent's weights
-                    j.outcome.reason = stop_reason::time_budget;
-                    j.outcome.message = "the time budget was spent before this member's training began";
-                    continue;
-                }
-                j.options.time_budget_seconds = left / static_cast<double>(count - k);
-            }
-            run_one(j);
-        }
-    }
-    std::vector<training_outcome> outcomes;
-    for (auto& j : jobs) outcomes.push_back(std::move(j.outcome));
-    return outcomes;
 }
 
 // Continues the replay sample over the offered rows of `mix` (reservoir_slot).
@@ -925,11 +812,14 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
             o.workers = threads.get();
         }
         const std::uint64_t training_seed = options.training_seed ? *options.training_seed : options.seed;
-        // As fit_model seeds its members (the golden-ratio increment of SplitMix64).
-        const auto member_seed = [&](std::size_t k) { return training_seed + static_cast<std::uint64_t>(k) * 0x9E3779B97F4A7C15ull; };
-        const auto left = [&] { return options.time_budget_seconds - (clock() - start); };
+        // Seeded as fit_model seeds its members; one after the other, each
+        // member gets an even share of the budget left when it starts.
+        const auto member_seed = [&](std::size_t k) { return detail::member_seed(training_seed, k); };
+        const std::function<double()> left = [&] { return options.time_budget_seconds - (clock() - start); };
         const double training_start = clock();
-        outcome = detail::continue_members(candidate_nets, o, update, learning_rate, member_seed, left, train, validation).front();
+        outcome = detail::train_networks(detail::pointers_to(candidate_nets), o, update, learning_rate, 0.0, true, member_seed, train, validation,
+                                         {}, left)
+                      .front();
         if (candidate_nets.size() > 1) outcome.seconds = clock() - training_start;  // all members' training
     } else if (options.epochs > 0) {
         outcome.reason = stop_reason::time_budget;

@@ -13,6 +13,7 @@
 #include <cmath>
 #include <cstddef>
 #include <exception>
+#include <functional>
 #include <limits>
 #include <memory>
 #include <optional>
@@ -369,46 +370,62 @@ supervised_rows<T> to_supervised(prepared_rows<T>&& p, const measured_plan& plan
     return d;
 }
 
-// The members' mean: class probabilities (each member's softmax) or values
-// in prepared units, summed in member order and divided by the count, as
+// The networks' mean: class probabilities (each network's softmax) or
+// values in prepared units, summed in order and divided by the count, as
 // the predictor does (serve/predictor.hpp).
 template <class T>
-matrix<T> averaged_outputs(fitted_model<T>& model, const matrix<T>& features) {
-    const bool classify = model.plan.target_type() == target_kind::classification;
-    matrix<T> sum = network_outputs(model.net, features);
+matrix<T> averaged_outputs(const std::vector<network<T>*>& nets, bool classify, const matrix<T>& features) {
+    matrix<T> sum = network_outputs(*nets.front(), features);
     if (classify) sum = softmax_rows(sum);
-    if (model.members.empty()) return sum;
-    for (auto& member : model.members) {
-        matrix<T> m = network_outputs(member, features);
+    if (nets.size() == 1) return sum;
+    for (std::size_t n = 1; n < nets.size(); ++n) {
+        matrix<T> m = network_outputs(*nets[n], features);
         if (classify) m = softmax_rows(m);
         for (std::size_t k = 0; k < sum.size(); ++k) sum.data()[k] += m.data()[k];
     }
-    const T count = static_cast<T>(model.member_count());
+    const T count = static_cast<T>(nets.size());
     for (std::size_t k = 0; k < sum.size(); ++k) sum.data()[k] /= count;
     return sum;
 }
 
-// Trains the model's networks: net with the host's observers, the other
-// members without them (from their own seeds). With an executor of more
-// than one thread, and alone (not in a team), the members train side by
-// side, each on one thread; otherwise one after the other on the workers.
-// With `step_limits` (one per member) each member stops after its own
-// number of steps. Returns every member's outcome.
+// The model's networks, net first.
+template <class T>
+std::vector<network<T>*> member_networks(fitted_model<T>& model) {
+    std::vector<network<T>*> nets{&model.net};
+    for (auto& m : model.members) nets.push_back(&m);
+    return nets;
+}
+
+template <class T>
+matrix<T> averaged_outputs(fitted_model<T>& model, const matrix<T>& features) {
+    return averaged_outputs(member_networks(model), model.plan.target_type() == target_kind::classification, features);
+}
+
+// Trains `nets`, each from its own seed (member_seed(k)): the first with
+// the host's observers, the others without. With an executor of more than
+// one thread, and `alone` (not in a team), they train side by side, each on
+// one thread; otherwise one after the other on the workers, and then, when
+// `remaining` is given and a time budget is set, member k gets an even
+// share of what it says is left (the first the whole budget's share). With
+// `step_limits` (one per network) each stops after its own number of steps.
+// Returns the outcomes in order.
 template <class T, class Seed>
-std::vector<training_outcome> train_members(fitted_model<T>& model, const training_options<T>& o, const model_settings& s,
-                                            const Seed& member_seed, const supervised_rows<T>& train,
-                                            const supervised_rows<T>& validation, const std::vector<std::uint64_t>& step_limits = {}) {
+std::vector<training_outcome> train_networks(const std::vector<network<T>*>& nets, const training_options<T>& o, update_kind update,
+                                             double learning_rate, double weight_decay, bool alone, const Seed& member_seed,
+                                             const supervised_rows<T>& train, const supervised_rows<T>& validation,
+                                             const std::vector<std::uint64_t>& step_limits = {},
+                                             const std::function<double()>& remaining = {}) {
     struct job {
         network<T>* net = nullptr;
         training_options<T> options;
         training_outcome outcome;
         std::exception_ptr error;
     };
-    const std::size_t count = model.member_count();
+    const std::size_t count = nets.size();
     std::vector<job> jobs(count);
-    const bool side_by_side = count > 1 && !s.team && o.workers && o.workers->concurrency() > 1;
+    const bool side_by_side = count > 1 && alone && o.workers && o.workers->concurrency() > 1;
     for (std::size_t k = 0; k < count; ++k) {
-        jobs[k].net = k == 0 ? &model.net : &model.members[k - 1];
+        jobs[k].net = nets[k];
         jobs[k].options = o;
         jobs[k].options.seed = member_seed(k);
         if (!step_limits.empty()) jobs[k].options.max_steps = static_cast<std::size_t>(step_limits[k]);
@@ -419,8 +436,8 @@ std::vector<training_outcome> train_members(fitted_model<T>& model, const traini
         if (side_by_side) jobs[k].options.workers = nullptr;
     }
     const auto run_one = [&](job& j) {
-        auto rule = make_update_rule<T>(s.update, s.weight_decay);
-        constant_rate schedule(s.learning_rate);
+        auto rule = make_update_rule<T>(update, weight_decay);
+        constant_rate schedule(learning_rate);
         trainer<T> tr(*j.net, *rule, schedule, std::move(j.options));
         j.outcome = tr.run(train, validation);
     };
@@ -445,11 +462,34 @@ std::vector<training_outcome> train_members(fitted_model<T>& model, const traini
         for (auto& j : jobs)
             if (j.error) std::rethrow_exception(j.error);
     } else {
-        for (auto& j : jobs) run_one(j);
+        for (std::size_t k = 0; k < count; ++k) {
+            job& j = jobs[k];
+            if (remaining && o.time_budget_seconds > 0.0) {
+                const double left = k == 0 ? o.time_budget_seconds : remaining();
+                if (left <= 0.0) {  // nothing left for this network: it keeps the weights it has
+                    j.outcome.reason = stop_reason::time_budget;
+                    j.outcome.message = "the time budget was spent before this member's training began";
+                    continue;
+                }
+                j.options.time_budget_seconds = left / static_cast<double>(count - k);
+            }
+            run_one(j);
+        }
     }
-    model.outcome = jobs[0].outcome;
     std::vector<training_outcome> outcomes;
     for (auto& j : jobs) outcomes.push_back(std::move(j.outcome));
+    return outcomes;
+}
+
+// Trains the model's networks (train_networks; net first) with the
+// settings' update rule, and keeps net's outcome as the model's.
+template <class T, class Seed>
+std::vector<training_outcome> train_members(fitted_model<T>& model, const training_options<T>& o, const model_settings& s,
+                                            const Seed& member_seed, const supervised_rows<T>& train,
+                                            const supervised_rows<T>& validation, const std::vector<std::uint64_t>& step_limits = {}) {
+    std::vector<training_outcome> outcomes =
+        train_networks(member_networks(model), o, s.update, s.learning_rate, s.weight_decay, !s.team, member_seed, train, validation, step_limits);
+    model.outcome = outcomes.front();
     return outcomes;
 }
 
