@@ -594,6 +594,7 @@ TEST_CASE("fit_model with shards: each rank prepares only its own table's rows, 
     s.seed = 5;
     s.shuffle = false;
     s.learning_rate = 0.01;
+    s.refit = false;  // a team does not refit, so neither does the process it is compared with
     tenon::model_settings shared = s;
     shared.team = &team;
     shared.member_rows = tenon::team_rows::shard_per_member;
