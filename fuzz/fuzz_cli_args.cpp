@@ -10,10 +10,13 @@
 // '_', so every file the tool writes lands in that directory. Before each
 // input the two files are restored and everything else is removed.
 //
-// Cost guard: inputs asking for more than 20 epochs, 5 folds, 2 threads, or
-// hidden layers wider than 64 (or more than 4 of them) are skipped. Their
-// cost is the user's request, not a parsing fault, and a fuzzer would
-// report them as hangs.
+// Cost guard: inputs asking for more than 20 epochs, 5 folds, 2 threads,
+// hidden layers wider than 64 (or more than 4 of them), a search, or more
+// than 100 network-epochs (epochs x networks x folds; a train run builds 5
+// networks unless --ensemble says otherwise) are skipped, and so is a train
+// run that leaves --epochs at its default. Their cost is the user's request,
+// not a parsing fault, and a fuzzer would report them as hangs.
+#include <algorithm>
 #include <charconv>
 #include <cstddef>
 #include <cstdint>
@@ -78,7 +81,16 @@ bool number_above(const std::string& text, std::uint64_t limit) {
     return r.ec == std::errc::result_out_of_range || (r.ec == std::errc() && v > limit);
 }
 
+std::uint64_t number_or(const std::string& text, std::uint64_t fallback) {
+    std::uint64_t v = 0;
+    const auto r = std::from_chars(text.data(), text.data() + text.size(), v);
+    return r.ec == std::errc() ? v : fallback;
+}
+
 bool too_costly(const std::vector<std::string>& args) {
+    const bool train = args.size() > 1 && args[1] == "train";
+    bool epochs_given = false;
+    std::uint64_t epochs = 1, networks = 5, folds = 1;
     for (std::size_t k = 0; k < args.size(); ++k) {
         const std::string& a = args[k];
         const auto eq = a.find('=');
@@ -86,6 +98,11 @@ bool too_costly(const std::vector<std::string>& args) {
         const std::string value = eq != std::string::npos ? a.substr(eq + 1) : (k + 1 < args.size() ? args[k + 1] : "");
         if (name == "--epochs" && number_above(value, 20)) return true;
         if (name == "--folds" && number_above(value, 5)) return true;
+        if (name == "--ensemble" && number_above(value, 100)) return true;
+        if (name == "--epochs") epochs_given = true, epochs = number_or(value, 1);
+        if (name == "--ensemble") networks = number_or(value, 1);
+        if (name == "--folds") folds = number_or(value, 1);
+        if (name == "--search" && number_or(value, 0) > 0) return true;
         if (name == "--threads" && number_above(value, 2)) return true;
         if (name == "--hidden") {
             std::size_t layers = 0, start = 0;
@@ -99,7 +116,8 @@ bool too_costly(const std::vector<std::string>& args) {
             if (layers > 4) return true;
         }
     }
-    return false;
+    if (!train) return false;
+    return !epochs_given || epochs * networks * std::max<std::uint64_t>(folds, 1) > 100;
 }
 
 }  // namespace
