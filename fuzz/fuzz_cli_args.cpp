@@ -129,7 +129,7 @@ extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size
     std::string current;
     for (std::size_t i = 0; i <= size; ++i) {
         if (i == size || data[i] == '\n') {
-            args.push_back(current);
+            args.push_back(current.c_str());  // what the tool sees of it: argv holds C strings
             current.clear();
         } else {
             current += data[i] == '/' ? '_' : static_cast<char>(data[i]);

@@ -22,6 +22,7 @@
 
 #include <tenon/deploy/model_file.hpp>
 #include <tenon/deploy/predictor.hpp>
+#include <tenon/train/calibration.hpp>
 
 #include "deploy_test_support.hpp"
 
@@ -64,6 +65,55 @@ TEST_CASE("make_model_file from what the fitted model keeps equals the form give
     CHECK_THROWS_WITH_AS(tenon::make_model_file(fitted, fewer, o),
                          "[train.option.invalid] make_model_file: the model was fitted on row 60, and the table has 60 rows (pass the table fit_model was given)",
                          tenon::error);
+}
+
+// Scoring, calibrating and saving read a fitted model and change nothing in
+// it: they take it const (this test would not compile otherwise), its
+// parameters' gradient buffers keep their values, and the file written from the const
+// model is the file written before it was scored.
+TEST_CASE("evaluation, calibration and saving take a const fitted model and change nothing in it") {
+    using namespace deploy_test;
+    const auto t = pump_table(120, 11);
+    const auto train = range(0, 90), validation = range(90, 120);
+    tenon::model_settings s = small_settings();
+    s.ensemble = 2;
+    const auto fitted = tenon::fit_model<float>(t, condition_plan(), train, validation, s);
+    tenon::model_file_options o;
+    o.created_unix_seconds = 1700000000;
+    const auto before = tenon::model_file_to_bytes(tenon::make_model_file(fitted, t, o));
+    std::vector<std::vector<float>> gradients_before;
+    for (const auto* p : fitted.net.parameters()) gradients_before.emplace_back(p->grad().begin(), p->grad().end());
+    const tenon::evaluation e = tenon::evaluate_model(fitted, t, validation);
+    CHECK(e.rows == 30);
+    const tenon::model_calibration c = tenon::calibrate_model(fitted, t, validation);
+    CHECK(tenon::score_calibration(fitted, c, t, validation).rows == 30);
+    std::vector<std::vector<float>> gradients_after;
+    for (const auto* p : fitted.net.parameters()) gradients_after.emplace_back(p->grad().begin(), p->grad().end());
+    CHECK(gradients_after == gradients_before);
+    CHECK(tenon::model_file_to_bytes(tenon::make_model_file(fitted, t, o)) == before);
+}
+
+TEST_CASE("a network records for inference only on a tape set for it, and such a tape refuses backward") {
+    using namespace deploy_test;
+    const auto t = pump_table(120, 11);
+    const auto fitted = tenon::fit_model<float>(t, condition_plan(), range(0, 90), range(90, 120), small_settings());
+    tenon::matrix<float> x({2, fitted.plan.feature_count()});
+    tenon::tape<float> training_tape;
+    CHECK_THROWS_WITH_AS(fitted.net.infer(training_tape, training_tape.input(x)),
+                         "[core.argument.invalid] network::infer: the tape must record for inference only (tape::set_inference_only(true))",
+                         tenon::error);
+    tenon::tape<float> inference_tape;
+    inference_tape.set_inference_only(true);
+    const auto y = fitted.net.infer(inference_tape, inference_tape.input(x));
+    CHECK(y.shape().rows == 2);
+    bool refused = false;
+    try {
+        inference_tape.backward(tenon::sum(y));
+    } catch (const tenon::error& e) {
+        refused = true;
+        CHECK(e.code() == "autodiff.backward.inference_only");
+    }
+    CHECK(refused);
 }
 
 namespace {

@@ -279,9 +279,9 @@ training_setup make_setup(const tenon::table& t, const train_request& q) {
                  q.data_path + ": the target '" + q.target + "' has a single class ('" + first + "') in all " +
                      std::to_string(t.row_count() - s.target_missing) + " rows with a target; classification needs at least 2");
     }
-    if (q.loss_given && s.classify != (q.loss == tenon::loss_kind::cross_entropy))
+    if (q.model.loss_given && s.classify != (q.model.loss == tenon::loss_kind::cross_entropy))
         fail(cli_codes::option_conflict,
-             std::string("--loss ") + tenon::loss_kind_name(q.loss) + " does not fit a " +
+             std::string("--loss ") + tenon::loss_kind_name(q.model.loss) + " does not fit a " +
                  (s.classify ? "classification target (use cross-entropy)" : "regression target (use l1, l2 or huber)"));
 
     s.split = q.split;
@@ -289,8 +289,8 @@ training_setup make_setup(const tenon::table& t, const train_request& q) {
     if (s.split == split_choice::stratified && !s.classify)
         fail(cli_codes::option_conflict, "--split stratified needs a classification target; '" + q.target + "' is regressed");
 
-    if (q.class_weights != tenon::class_weighting::none && !s.classify)
-        fail(cli_codes::option_conflict, "--class-weights " + std::string(tenon::to_string(q.class_weights)) + " needs a classification target; '" +
+    if (q.model.class_weights != tenon::class_weighting::none && !s.classify)
+        fail(cli_codes::option_conflict, "--class-weights " + std::string(tenon::to_string(q.model.class_weights)) + " needs a classification target; '" +
                                              q.target + "' is regressed");
     if (q.target_scaling != tenon::scaling_method::z_score && s.classify)
         fail(cli_codes::option_conflict, "--target-scaling " + std::string(tenon::to_string(q.target_scaling)) + " needs a regression target; '" +
@@ -407,8 +407,8 @@ void check_network_size(const tenon::table& t, const train_request& q, const tra
     // Widths are at most 2^16 (max_hidden_width), features far below 2^40: no product overflows.
     std::uint64_t weights = 0, width = inputs;
     tenon::model_settings members;
-    members.hidden = q.hidden;
-    members.ensemble = q.ensemble;
+    members.hidden = q.model.hidden;
+    members.ensemble = q.model.ensemble;
     const std::vector<std::size_t> widths = tenon::hidden_widths(members, rows.size());
     std::string hidden = widths.empty() ? std::string("none") : std::string();
     for (const std::size_t h : widths) hidden += (hidden.empty() ? "" : ",") + std::to_string(h);
@@ -444,16 +444,16 @@ tenon::holdout_split make_holdout(const tenon::table& t, const train_request& q,
     switch (s.split) {
     case split_choice::stratified:
         return detail::naming_classes(t, q.target,
-                                      [&] { return tenon::stratified_holdout(tenon::dense_codes(t.at(q.target), true), q.fractions, q.seed); });
+                                      [&] { return tenon::stratified_holdout(tenon::dense_codes(t.at(q.target), true), q.fractions, q.model.seed); });
     case split_choice::chronological:
         return tenon::chronological_holdout(detail::column_times(t, q.time_column), q.fractions);
     case split_choice::grouped:
-        return tenon::grouped_holdout(tenon::dense_codes(t.at(q.group_column), true), q.fractions, q.seed);
+        return tenon::grouped_holdout(tenon::dense_codes(t.at(q.group_column), true), q.fractions, q.model.seed);
     case split_choice::random:
     case split_choice::automatic:
         break;
     }
-    return tenon::random_holdout(t.row_count(), q.fractions, q.seed);
+    return tenon::random_holdout(t.row_count(), q.fractions, q.model.seed);
 }
 
 /// Folds for --folds K. Chronological folds walk forward in time: each fold
@@ -462,37 +462,22 @@ std::vector<tenon::fold> make_folds(const tenon::table& t, const train_request& 
     switch (s.split) {
     case split_choice::stratified:
         return detail::naming_classes(t, q.target,
-                                      [&] { return tenon::stratified_k_folds(tenon::dense_codes(t.at(q.target), true), q.folds, q.seed); });
+                                      [&] { return tenon::stratified_k_folds(tenon::dense_codes(t.at(q.target), true), q.folds, q.model.seed); });
     case split_choice::chronological: {
         const std::size_t horizon = std::max<std::size_t>(1, t.row_count() / (q.folds + 1));
         return tenon::rolling_origin_folds(detail::column_times(t, q.time_column), q.folds, horizon);
     }
     case split_choice::grouped:
-        return tenon::group_k_folds(tenon::dense_codes(t.at(q.group_column), true), q.folds, q.seed);
+        return tenon::group_k_folds(tenon::dense_codes(t.at(q.group_column), true), q.folds, q.model.seed);
     case split_choice::random:
     case split_choice::automatic:
         break;
     }
-    return tenon::k_folds(t.row_count(), q.folds, q.seed);
+    return tenon::k_folds(t.row_count(), q.folds, q.model.seed);
 }
 
 tenon::model_settings make_settings(const train_request& q) {
-    tenon::model_settings m;
-    m.hidden = q.hidden;
-    m.hidden_activation = q.hidden_activation;
-    m.loss_given = q.loss_given;
-    m.loss = q.loss;
-    m.update = q.update;
-    m.learning_rate = q.learning_rate;
-    m.epochs = q.epochs;
-    m.batch_size = q.batch;
-    m.patience = q.patience;
-    m.ensemble = q.ensemble;
-    m.refit = q.refit;
-    m.class_weights = q.class_weights;
-    m.seed = q.seed;
-    m.threads = q.threads;
-    m.shuffle = !q.keep_order;
+    tenon::model_settings m = q.model;
     // With the BLAS backend tenon's threads split the products into bands
     // and each band is a BLAS call, so the BLAS runs on one thread (its own
     // threads would compete with tenon's for the cores; a BLAS without such

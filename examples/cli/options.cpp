@@ -20,6 +20,12 @@ const tenon::model_settings& library_defaults() {
     return defaults;
 }
 
+tenon::model_settings tool_model_defaults() {
+    tenon::model_settings s = library_defaults();
+    s.seed = 1;
+    return s;
+}
+
 namespace detail {
 
 std::vector<given_option> read_options(const std::string& command, const std::vector<std::string>& args, const std::vector<option_shape>& known,

@@ -21,15 +21,15 @@ struct retrain_request {
     std::string out_path;
     std::string rollback_path;  // empty: "<model>.previous" when --out replaces --model
     std::string json_path;  // empty: none; "-": standard output
-    tenon::gate_metric metric = tenon::gate_metric::automatic;
-    double margin = 0.0;
-    double budget_seconds = 0.0;  // 0 = no limit
-    std::size_t epochs = 30;
-    std::uint64_t seed = 1;
-    std::size_t threads = 1;
-    double holdout_share = 0.2;
-    std::size_t min_holdout = 30;
-    tenon::holdout_selection holdout = tenon::holdout_selection::random;
+    /// The retraining's settings, written straight by the options that name
+    /// them (--metric, --margin, --budget, --epochs, --seed, --threads,
+    /// --holdout-share, --min-holdout, --holdout): the library's defaults,
+    /// but seed 1, as tenon train.
+    tenon::retraining_options options = [] {
+        tenon::retraining_options o;
+        o.seed = 1;
+        return o;
+    }();
     bool quiet = false;
     bool help = false;
 };
@@ -63,16 +63,16 @@ const option_entry<retrain_request> retrain_options[] = {
      "strict improvement). An equally good candidate is\n"
      "never promoted.",
      [](retrain_request& q, const std::string& v) {
-         q.margin = parse_real("--margin", v);
-         if (!(q.margin >= 0)) fail(cli_codes::option_value, "--margin '" + v + "': must be zero or more, in the gate metric's units");
+         q.options.margin = parse_real("--margin", v);
+         if (!(q.options.margin >= 0)) fail(cli_codes::option_value, "--margin '" + v + "': must be zero or more, in the gate metric's units");
      }},
     {"--budget", "SECONDS",
      "wall-clock limit for the whole retraining (default 0:\n"
      "none); training stops when it is spent and the gate\n"
      "still decides.",
      [](retrain_request& q, const std::string& v) {
-         q.budget_seconds = parse_real("--budget", v);
-         if (!(q.budget_seconds >= 0)) fail(cli_codes::option_value, "--budget '" + v + "': must be zero (no limit) or more seconds");
+         q.options.time_budget_seconds = parse_real("--budget", v);
+         if (!(q.options.time_budget_seconds >= 0)) fail(cli_codes::option_value, "--budget '" + v + "': must be zero (no limit) or more seconds");
      }},
     {"--metric", "auto|accuracy|log-loss|rmse",
      "the gate's metric (default auto: accuracy for\n"
@@ -83,37 +83,37 @@ const option_entry<retrain_request> retrain_options[] = {
                                                                      {"accuracy", tenon::gate_metric::accuracy},
                                                                      {"log-loss", tenon::gate_metric::log_loss},
                                                                      {"rmse", tenon::gate_metric::rmse}};
-         q.metric = parse_choice("--metric", v, names);
+         q.options.metric = parse_choice("--metric", v, names);
      }},
     {"--epochs", "N",
      "most epochs of continued training (default 30); early\n"
      "stopping on 15% of the training rows, patience 5.\n"
      "Batch size, learning rate and update rule are the\n"
      "model's stored ones (else 32, 0.001, adam).",
-     [](retrain_request& q, const std::string& v) { q.epochs = parse_count("--epochs", v, 1); }},
+     [](retrain_request& q, const std::string& v) { q.options.epochs = parse_count("--epochs", v, 1); }},
     {"--seed", "N",
      "seeds the holdout, the validation rows, the batch\n"
      "order and the replay sample (default 1).",
-     [](retrain_request& q, const std::string& v) { q.seed = parse_seed(v); }},
+     [](retrain_request& q, const std::string& v) { q.options.seed = parse_seed(v); }},
     {"--threads", "N",
      "threads for training (N >= 1, default 1). A seed\n"
      "ensemble's networks are all continued, each from its\n"
      "own weights; with N > 1 they train side by side, one\n"
      "network a thread. The results are the same bits for\n"
      "every N.",
-     [](retrain_request& q, const std::string& v) { q.threads = parse_count("--threads", v, 1); }},
+     [](retrain_request& q, const std::string& v) { q.options.threads = parse_count("--threads", v, 1); }},
     {"--holdout-share", "X",
      "share of the usable new rows held out for the gate,\n"
      "never trained on (default 0.2).",
      [](retrain_request& q, const std::string& v) {
-         q.holdout_share = parse_real("--holdout-share", v);
-         if (!(q.holdout_share > 0 && q.holdout_share < 1))
+         q.options.holdout_share = parse_real("--holdout-share", v);
+         if (!(q.options.holdout_share > 0 && q.options.holdout_share < 1))
              fail(cli_codes::option_value, "--holdout-share '" + v + "': must lie strictly between 0 and 1");
      }},
     {"--min-holdout", "N",
      "the holdout's minimum rows (default 30); the new data\n"
      "needs at least N + 1 usable rows.",
-     [](retrain_request& q, const std::string& v) { q.min_holdout = parse_count("--min-holdout", v, 1); }},
+     [](retrain_request& q, const std::string& v) { q.options.min_holdout_rows = parse_count("--min-holdout", v, 1); }},
     {"--holdout", "random|latest",
      "the holdout rows: a seeded random choice, or the last\n"
      "rows of NEW.csv for rows in time order (default\n"
@@ -121,7 +121,7 @@ const option_entry<retrain_request> retrain_options[] = {
      [](retrain_request& q, const std::string& v) {
          const std::pair<const char*, tenon::holdout_selection> names[] = {{"random", tenon::holdout_selection::random},
                                                                            {"latest", tenon::holdout_selection::latest}};
-         q.holdout = parse_choice("--holdout", v, names);
+         q.options.holdout = parse_choice("--holdout", v, names);
      }},
     {"--rollback", "PATH",
      "with --out equal to --model: where the replaced model\n"
@@ -308,16 +308,7 @@ int run_retrain(const std::vector<std::string>& args, std::ostream& out, std::os
              q.data_path + ": retraining needs " + absent + " (the model's inputs and its target '" + summary.plan->target_name() +
                  "'), which the data does not have (columns: " + detail::column_listing(t.column_names()) + ")");
 
-    tenon::retraining_options options;
-    options.metric = q.metric;
-    options.margin = q.margin;
-    options.holdout_share = q.holdout_share;
-    options.min_holdout_rows = q.min_holdout;
-    options.holdout = q.holdout;
-    options.epochs = q.epochs;
-    options.seed = q.seed;
-    options.threads = q.threads;
-    options.time_budget_seconds = q.budget_seconds;
+    tenon::retraining_options options = q.options;
     if (env.clock) options.clock = env.clock;
     std::vector<std::uint8_t> candidate;
     tenon::retraining_report report = summary.scalar_bytes == 8

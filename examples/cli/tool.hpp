@@ -123,6 +123,8 @@ inline constexpr std::size_t max_hidden_weights = 100000000;
 /// start from (no copies of them here): a host calling fit_model with a
 /// default model_settings trains what `tenon train` trains.
 const tenon::model_settings& library_defaults();
+/// The settings `tenon train` starts from: the library's, with seed 1.
+tenon::model_settings tool_model_defaults();
 
 struct train_request {
     std::string data_path;
@@ -145,23 +147,14 @@ struct train_request {
     bool time_cycles = false;
     tenon::split_fractions fractions{0.7, 0.15, 0.15};
     std::size_t folds = 0;  // 0 = single holdout
-    std::optional<std::vector<std::size_t>> hidden = library_defaults().hidden;  // unset: by the training row count
-    tenon::activation hidden_activation = library_defaults().hidden_activation;
-    bool loss_given = false;
-    tenon::loss_kind loss = library_defaults().loss;
-    tenon::update_kind update = library_defaults().update;
-    double learning_rate = library_defaults().learning_rate;
-    std::size_t epochs = library_defaults().epochs;
-    std::size_t batch = library_defaults().batch_size;
-    std::size_t patience = library_defaults().patience;
-    std::size_t ensemble = library_defaults().ensemble;  // 0: by the row count
+    /// The model's settings, written straight by the options that name them
+    /// (--hidden, --activation, --loss, --optimizer, --learning-rate,
+    /// --epochs, --batch, --keep-order, --patience, --ensemble, --refit,
+    /// --class-weights, --seed, --threads): the library's defaults, but seed 1.
+    /// The seed also draws the split.
+    tenon::model_settings model = tool_model_defaults();
     double search_seconds = 0.0;  // --search: budget of the settings search (train/search.hpp); 0: no search
-    std::optional<bool> refit = library_defaults().refit;  // --refit on|off; unset (auto): the library's row rule
-    tenon::class_weighting class_weights = library_defaults().class_weights;  // --class-weights
     tenon::scaling_method target_scaling = tenon::scaling_method::z_score;  // --target-scaling (regression targets)
-    std::uint64_t seed = 1;  // one seed for the split, the weights and the batch order
-    std::size_t threads = 1;
-    bool keep_order = false;  // --keep-order: no shuffling
     double coverage = tenon::default_coverage;  // --coverage: nominal coverage of bands and class sets
     std::string metrics_path;
     std::string report_path;

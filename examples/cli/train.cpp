@@ -86,7 +86,7 @@ void parse_fractions(const std::string& value, train_request& q) {
 }
 
 void parse_hidden(const std::string& value, train_request& q) {
-    std::vector<std::size_t>& widths = q.hidden.emplace();
+    std::vector<std::size_t>& widths = q.model.hidden.emplace();
     for (const auto& part : split_list(value)) {
         if (part.empty()) fail(cli_codes::option_value, "--hidden '" + value + "': an empty width between commas");
         std::size_t width = 0;
@@ -114,12 +114,12 @@ void parse_hidden(const std::string& value, train_request& q) {
 }
 
 void parse_learning_rate(const std::string& value, train_request& q) {
-    q.learning_rate = parse_real("--learning-rate", value);
-    if (!(q.learning_rate > 0)) fail(cli_codes::option_value, "--learning-rate '" + value + "': must be positive");
+    q.model.learning_rate = parse_real("--learning-rate", value);
+    if (!(q.model.learning_rate > 0)) fail(cli_codes::option_value, "--learning-rate '" + value + "': must be positive");
     // The tool trains in single precision: a rate below the smallest
     // normal float (about 1.2e-38) rounds to 0 or a denormal and learns
     // nothing; one above the largest float becomes infinite.
-    const float as_trained = static_cast<float>(q.learning_rate);
+    const float as_trained = static_cast<float>(q.model.learning_rate);
     if (!(as_trained >= std::numeric_limits<float>::min() && as_trained <= std::numeric_limits<float>::max()))
         fail(cli_codes::option_value,
              "--learning-rate '" + value + "': outside what single precision (the training's) holds, " + "1.2e-38 to 3.4e38");
@@ -259,7 +259,7 @@ const option_entry<train_request> train_options[] = {
      "\n"
      "Model and training\n"},
     {"--activation", "relu|leaky-relu|elu|tanh|sigmoid|softplus|gelu", "hidden activation (default relu).",
-     [](train_request& q, const std::string& v) { q.hidden_activation = parse_activation_option(v); }},
+     [](train_request& q, const std::string& v) { q.model.hidden_activation = parse_activation_option(v); }},
     {"--loss", "l1|l2|huber|cross-entropy",
      "default cross-entropy for classification, l2 for\n"
      "regression.",
@@ -268,8 +268,8 @@ const option_entry<train_request> train_options[] = {
                                                                    {"l2", tenon::loss_kind::l2},
                                                                    {"huber", tenon::loss_kind::huber},
                                                                    {"cross-entropy", tenon::loss_kind::cross_entropy}};
-         q.loss = parse_choice("--loss", v, names);
-         q.loss_given = true;
+         q.model.loss = parse_choice("--loss", v, names);
+         q.model.loss_given = true;
      }},
     {"--optimizer", "gd|momentum|nesterov|adam|adamw|rmsprop|adagrad", "update rule (default adam).",
      [](train_request& q, const std::string& v) {
@@ -277,7 +277,7 @@ const option_entry<train_request> train_options[] = {
              {"gd", tenon::update_kind::gradient_descent}, {"momentum", tenon::update_kind::momentum}, {"nesterov", tenon::update_kind::nesterov},
              {"adam", tenon::update_kind::adam},           {"adamw", tenon::update_kind::adamw},       {"rmsprop", tenon::update_kind::rmsprop},
              {"adagrad", tenon::update_kind::adagrad}};
-         q.update = parse_choice("--optimizer", v, names);
+         q.model.update = parse_choice("--optimizer", v, names);
      }},
     {"--learning-rate", "X",
      "default 0.001; must be representable in single\n"
@@ -286,16 +286,16 @@ const option_entry<train_request> train_options[] = {
     {"--epochs", "N",
      "most epochs to run (default 1000; early stopping\n"
      "normally ends the run long before).",
-     [](train_request& q, const std::string& v) { q.epochs = parse_count("--epochs", v, 1); }},
+     [](train_request& q, const std::string& v) { q.model.epochs = parse_count("--epochs", v, 1); }},
     {"--batch", "N",
      "mini-batch rows (default 32); under mpirun -np P the\n"
      "rows of each process, so P x N rows per step.",
-     [](train_request& q, const std::string& v) { q.batch = parse_count("--batch", v, 1); }},
+     [](train_request& q, const std::string& v) { q.model.batch_size = parse_count("--batch", v, 1); }},
     {"--keep-order", nullptr,
      "take the training rows in the file's order in every\n"
      "epoch instead of shuffling them (for rows whose order\n"
      "matters, or to compare runs batch by batch).",
-     [](train_request& q, const std::string&) { q.keep_order = true; }},
+     [](train_request& q, const std::string&) { q.model.shuffle = false; }},
     {"--patience", "N",
      "stop after N epochs without a lower validation loss\n"
      "and keep the best epoch's weights (default 15; 0 = run\n"
@@ -303,14 +303,14 @@ const option_entry<train_request> train_options[] = {
      "after the best epoch (1200 under 100 validation\n"
      "rows) and 1500 steps in all, so a small table is not\n"
      "stopped after a few dozen updates.",
-     [](train_request& q, const std::string& v) { q.patience = parse_count("--patience", v, 0); }},
+     [](train_request& q, const std::string& v) { q.model.patience = parse_count("--patience", v, 0); }},
     {"--ensemble", "K",
      "average K networks trained from their own seeds\n"
      "(default: 5 under 100000 training rows, else 1);\n"
      "with --threads they train side by side.",
      [](train_request& q, const std::string& v) {
-         q.ensemble = parse_count("--ensemble", v, 1);
-         if (q.ensemble > 100) fail(cli_codes::option_value, "--ensemble '" + v + "': at most 100 networks");
+         q.model.ensemble = parse_count("--ensemble", v, 1);
+         if (q.model.ensemble > 100) fail(cli_codes::option_value, "--ensemble '" + v + "': at most 100 networks");
      }},
     {"--search", "SECONDS",
      "search hidden widths and depths, learning rates and\n"
@@ -333,7 +333,7 @@ const option_entry<train_request> train_options[] = {
      [](train_request& q, const std::string& v) {
          const std::pair<const char*, int> names[] = {{"auto", -1}, {"on", 1}, {"off", 0}};
          const int choice = parse_choice("--refit", v, names);
-         q.refit = choice < 0 ? std::optional<bool>() : std::optional<bool>(choice == 1);
+         q.model.refit = choice < 0 ? std::optional<bool>() : std::optional<bool>(choice == 1);
      }},
     {"--class-weights", "none|balanced",
      "classification: weigh each class in the loss (default\n"
@@ -343,7 +343,7 @@ const option_entry<train_request> train_options[] = {
      [](train_request& q, const std::string& v) {
          const std::pair<const char*, tenon::class_weighting> names[] = {{"none", tenon::class_weighting::none},
                                                                          {"balanced", tenon::class_weighting::balanced}};
-         q.class_weights = parse_choice("--class-weights", v, names);
+         q.model.class_weights = parse_choice("--class-weights", v, names);
      }},
     {"--target-scaling", "z-score|median-iqr",
      "regression: how the target is scaled for training\n"
@@ -362,7 +362,7 @@ const option_entry<train_request> train_options[] = {
      "order (default 1). The same seed and data give the\n"
      "same metrics on every run (and under mpirun with the\n"
      "same process count).",
-     [](train_request& q, const std::string& v) { q.seed = parse_seed(v); }},
+     [](train_request& q, const std::string& v) { q.model.seed = parse_seed(v); }},
     {"--threads", "N",
      "threads for training (N >= 1, default 1), each large\n"
      "matrix product and the update split across them; the\n"
@@ -371,7 +371,7 @@ const option_entry<train_request> train_options[] = {
      "on one thread (the BLAS is set to one thread); the\n"
      "bits then stay the same only where the BLAS computes\n"
      "a band as it computes the whole product.",
-     [](train_request& q, const std::string& v) { q.threads = parse_count("--threads", v, 1); }},
+     [](train_request& q, const std::string& v) { q.model.threads = parse_count("--threads", v, 1); }},
     {"--coverage", "P",
      "nominal coverage of the calibration (default 0.9,\n"
      "from 0.5 to below 1): regression gets a band\n"
@@ -758,7 +758,7 @@ void header_fields(json_writer& j, const train_request& q, const training_setup&
     j.text("target", q.target);
     j.text("task", s.classify ? "classification" : "regression");
     j.text("split", split_name(s.split));
-    j.count("seed", q.seed);
+    j.count("seed", q.model.seed);
 }
 
 // "[code] message" -> "message".
@@ -915,7 +915,7 @@ int train_holdout(const tenon::table& t, const train_request& q, training_setup&
         search = tenon::search_settings<float>(t, s.preparation, split.train, start, q.search_seconds);
         if (!q.quiet) out << search_summary(*search) << "\n";
     }
-    progress_printer progress(out, env.terminal, q.quiet, q.epochs, env.clock);
+    progress_printer progress(out, env.terminal, q.quiet, q.model.epochs, env.clock);
     progress.start(0, 0, s.classify, metric_scale);
     tenon::model_settings settings = make_settings(q);
     if (search) {
@@ -928,7 +928,7 @@ int train_holdout(const tenon::table& t, const train_request& q, training_setup&
     // rows with the model that did not train on them.
     const tenon::model_settings refit_settings = settings;
     settings.refit = false;
-    if (env.team && q.refit.value_or(false))
+    if (env.team && q.model.refit.value_or(false))
         fail(cli_codes::option_conflict, "--refit on: a model trained by several processes (mpirun) is not refit; give --refit off or auto");
     settings.on_epoch = [&](const tenon::epoch_summary& e) {
         progress.on_epoch(e);
@@ -1037,7 +1037,7 @@ int train_holdout(const tenon::table& t, const train_request& q, training_setup&
         } else {
             j.null("refit");
         }
-        if (s.classify) j.text("class_weights", tenon::to_string(q.class_weights));
+        if (s.classify) j.text("class_weights", tenon::to_string(q.model.class_weights));
         else j.text("target_scaling", tenon::to_string(q.target_scaling));
         if (calibration)
             write_calibration(j, "calibration", *calibration);
@@ -1165,7 +1165,7 @@ int train_folds(const tenon::table& t, const train_request& q, training_setup& s
         check_network_size(t, q, s, every_row);
     }
 
-    progress_printer progress(out, env.terminal, q.quiet, q.epochs, env.clock);
+    progress_printer progress(out, env.terminal, q.quiet, q.model.epochs, env.clock);
     std::vector<std::size_t> epochs_run;
     double seconds = 0;
     tenon::model_settings settings = make_settings(q);

@@ -194,9 +194,22 @@ public:
     /// A 1x1 constant.
     var<T> scalar(T v) { return leaf(op_kind::input, &v, {1, 1}); }
 
+    /// A tape for inference only records parameters without gradients:
+    /// track() then reads a parameter and never touches its gradient buffer,
+    /// so recording a network in inference mode changes nothing in it (the
+    /// promise network::infer() builds on). backward() is refused.
+    void set_inference_only(bool on) noexcept { inference_only_ = on; }
+    bool inference_only() const noexcept { return inference_only_; }
+
     /// Records a reference to a parameter; backward adds into its grad().
     var<T> track(parameter<T>& p) {
         const shape2 s = p.shape();
+        if (inference_only_) {
+            auto& n = push(op_kind::parameter, {}, 0, s, /*allocate_value=*/false);
+            n.param = &p;
+            n.needs_grad = false;
+            return finish(n);
+        }
         if (shape_of(p.grad()) != s) {
             ensure_shape(p.grad(), s);
             p.clear_gradient();
@@ -373,6 +386,9 @@ public:
     /// Reverse pass from a 1x1 value: adds d(loss)/d(parameter) into every
     /// tracked trainable parameter's grad() and fills the nodes' gradients.
     void backward(var<T> loss) {
+        if (inference_only_)
+            raise(codes::autodiff_backward_inference_only, "backward from operation #" + std::to_string(loss.id()) +
+                                                               ": the tape records for inference only (set_inference_only), so no parameter has a gradient");
         const auto& l = node_of(loss);
         if (shape_of(value_of(loss)) != shape2{1, 1}) {
             raise(codes::autodiff_backward_not_scalar, std::string("backward from operation #") + std::to_string(loss.id()) + " (" +
@@ -1018,6 +1034,7 @@ private:
     std::size_t count_ = 0;
     std::uint64_t generation_ = 1;
     bool check_finite_ = false;
+    bool inference_only_ = false;
     executor* workers_ = nullptr;
 };
 

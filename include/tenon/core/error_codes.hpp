@@ -22,6 +22,8 @@
 #define TENON_ERROR_CODES_AUTODIFF(X)                                                          \
     X(autodiff_backward_not_scalar, "autodiff.backward.not_scalar",                                     \
       "backward() was started from a value that is not 1x1")                                   \
+    X(autodiff_backward_inference_only, "autodiff.backward.inference_only",                             \
+      "backward() was started on a tape recording for inference only")                         \
     X(autodiff_value_foreign, "autodiff.value.foreign",                                                 \
       "a value recorded on one tape was used on another, or after the tape was cleared")       \
     X(autodiff_non_finite, "autodiff.non_finite",                                                       \

@@ -38,7 +38,10 @@ public:
     layer& operator=(const layer&) = delete;
     virtual ~layer() = default;
 
-    /// Records the layer's computation on `t` and returns its output.
+    /// Records the layer's computation on `t` and returns its output. In
+    /// inference mode on a tape recording for inference only
+    /// (tape::set_inference_only) it must change nothing in the layer: that
+    /// is what lets a const network be evaluated (network::infer).
     virtual var<T> forward(tape<T>& t, var<T> input, run_mode mode) = 0;
 
     /// Short kind name, e.g. "dense"; the factory in network.hpp dispatches on it.

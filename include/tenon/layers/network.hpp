@@ -299,6 +299,16 @@ public:
 
     /// Records the network on `t` in the current mode.
     var<T> forward(tape<T>& t, var<T> input) { return chain_.forward(t, input, mode_); }
+    /// Records the network in inference mode on a tape set to record for
+    /// inference only (tape::set_inference_only), whatever the network's
+    /// mode. Such a recording reads the parameters and changes nothing in
+    /// the network (layer::forward's contract), so a const network can be
+    /// evaluated; any other tape is refused with core.argument.invalid.
+    var<T> infer(tape<T>& t, var<T> input) const {
+        if (!t.inference_only())
+            raise(codes::core_argument_invalid, "network::infer: the tape must record for inference only (tape::set_inference_only(true))");
+        return const_cast<detail::layer_chain<T>&>(chain_).forward(t, input, run_mode::inference);
+    }
     /// Copies `input` onto the tape as a constant and records the network.
     var<T> forward(tape<T>& t, const matrix<T>& input) { return forward(t, t.input(input)); }
 
@@ -317,6 +327,18 @@ public:
         state_.clear();
         chain_.collect_state(state_);
         return state_;
+    }
+    /// The same two lists, read-only, for a const network (each call fills
+    /// a new list; collecting changes nothing in the layers).
+    std::vector<const parameter<T>*> parameters() const {
+        std::vector<parameter<T>*> all;
+        const_cast<detail::layer_chain<T>&>(chain_).collect_parameters(all);
+        return {all.begin(), all.end()};
+    }
+    std::vector<const parameter<T>*> state_buffers() const {
+        std::vector<parameter<T>*> all;
+        const_cast<detail::layer_chain<T>&>(chain_).collect_state(all);
+        return {all.begin(), all.end()};
     }
 
     /// Number of learned values (the sum of the parameters' sizes).

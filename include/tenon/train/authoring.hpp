@@ -48,7 +48,7 @@ std::vector<std::pair<std::string, random_engine*>> layer_engines(network<T>& ne
 
 /// The architecture and weights of a network, as a model file holds them.
 template <class T>
-model_file<T> capture_network(network<T>& net) {
+model_file<T> capture_network(const network<T>& net) {
     model_file<T> m;
     m.architecture = net.describe();
     for (auto* p : net.parameters()) m.weights.push_back({p->name(), p->value()});
@@ -96,9 +96,9 @@ model_file<T> serving_form(network<T>& net) {
 /// summaries and no calibration (make_model_file adds those), for
 /// predictor<T>'s constructor from a fitted model.
 template <class T>
-model_file<T> serving_form(fitted_model<T>& model) {
+model_file<T> serving_form(const fitted_model<T>& model) {
     model_file<T> m = capture_network(model.net);
-    for (auto& member : model.members) m.members.push_back(capture_network(member).weights);
+    for (const auto& member : model.members) m.members.push_back(capture_network(member).weights);
     m.plan.emplace(model.plan);
     return m;
 }
@@ -197,10 +197,10 @@ struct model_file_options {
 /// metadata, reference summaries of `train_rows` of `t` (the rows fit_model
 /// was given) and a replay sample.
 template <class T>
-model_file<T> make_model_file(fitted_model<T>& model, const table& t, const std::vector<std::size_t>& train_rows, const model_settings& settings,
+model_file<T> make_model_file(const fitted_model<T>& model, const table& t, const std::vector<std::size_t>& train_rows, const model_settings& settings,
                               const model_file_options& options = {}) {
     model_file<T> m = capture_network(model.net);
-    for (auto& member : model.members) m.members.push_back(capture_network(member).weights);
+    for (const auto& member : model.members) m.members.push_back(capture_network(member).weights);
     m.plan.emplace(model.plan);
     training_metadata meta;
     meta.library_version = version_string();
@@ -258,7 +258,7 @@ model_file<T> make_model_file(fitted_model<T>& model, const table& t, const std:
 /// was given and its settings (fitted_model::fitted_rows, settings). `t` is
 /// the table fit_model was given; a table with fewer rows is refused.
 template <class T>
-model_file<T> make_model_file(fitted_model<T>& model, const table& t, const model_file_options& options = {}) {
+model_file<T> make_model_file(const fitted_model<T>& model, const table& t, const model_file_options& options = {}) {
     for (const std::size_t r : model.fitted_rows)
         if (r >= t.row_count()) {
             raise(codes::train_option_invalid, "make_model_file: the model was fitted on row " + std::to_string(r) + ", and the table has " +

@@ -345,7 +345,7 @@ struct ensemble_view {
 };
 
 template <class T>
-ensemble_view<T> ensemble_outputs(const std::vector<network<T>*>& nets, const measured_plan& plan, const prepared_rows<T>& rows) {
+ensemble_view<T> ensemble_outputs(const std::vector<const network<T>*>& nets, const measured_plan& plan, const prepared_rows<T>& rows) {
     ensemble_view<T> v;
     if (nets.size() == 1) {
         v.outputs = network_outputs(*nets.front(), rows.features);
@@ -361,7 +361,7 @@ ensemble_view<T> ensemble_outputs(const std::vector<network<T>*>& nets, const me
     const scaling& ts = plan.target_scaling();
     const std::size_t n = rows.rows.size(), count = nets.size();
     std::vector<std::vector<double>> values;
-    for (network<T>* net : nets) {
+    for (const network<T>* net : nets) {
         const matrix<T> out = network_outputs(*net, rows.features);
         values.push_back({});
         for (std::size_t i = 0; i < n; ++i) values.back().push_back(ts.inverse(static_cast<double>(out.data()[i])));
@@ -379,7 +379,7 @@ ensemble_view<T> ensemble_outputs(const std::vector<network<T>*>& nets, const me
 }
 
 template <class T>
-ensemble_view<T> ensemble_outputs(fitted_model<T>& model, const prepared_rows<T>& rows) {
+ensemble_view<T> ensemble_outputs(const fitted_model<T>& model, const prepared_rows<T>& rows) {
     return ensemble_outputs(member_networks(model), model.plan, rows);
 }
 
@@ -389,14 +389,14 @@ ensemble_view<T> ensemble_outputs(fitted_model<T>& model, const prepared_rows<T>
 /// (e.g. the validation rows) at the given nominal coverage. A single
 /// network's band has one half width (no spread to scale it by).
 template <class T>
-model_calibration calibrate_network(network<T>& net, const measured_plan& plan, const prepared_rows<T>& rows, double coverage = default_coverage) {
+model_calibration calibrate_network(const network<T>& net, const measured_plan& plan, const prepared_rows<T>& rows, double coverage = default_coverage) {
     detail::require_rows(rows, "calibrate_network");
     return detail::calibrate_outputs(plan, network_outputs(net, rows.features), nullptr, rows, coverage);
 }
 
 /// Scores a calibration on prepared rows (e.g. the test rows).
 template <class T>
-calibration_scores score_calibration(network<T>& net, const measured_plan& plan, const model_calibration& c, const prepared_rows<T>& rows) {
+calibration_scores score_calibration(const network<T>& net, const measured_plan& plan, const model_calibration& c, const prepared_rows<T>& rows) {
     detail::require_rows(rows, "score_calibration");
     return detail::score_outputs(plan, c, network_outputs(net, rows.features), nullptr, rows);
 }
@@ -405,7 +405,7 @@ calibration_scores score_calibration(network<T>& net, const measured_plan& plan,
 /// `t` (rows it did not train on). An ensemble's regression band is also
 /// fitted in its normalized form, scaled by the members' spread per row.
 template <class T>
-model_calibration calibrate_model(fitted_model<T>& model, const table& t, const std::vector<std::size_t>& rows, double coverage = default_coverage) {
+model_calibration calibrate_model(const fitted_model<T>& model, const table& t, const std::vector<std::size_t>& rows, double coverage = default_coverage) {
     const prepared_rows<T> p = model.plan.template apply<T>(t, rows);
     detail::require_rows(p, "calibrate_model");
     const detail::ensemble_view<T> v = detail::ensemble_outputs(model, p);
@@ -414,7 +414,7 @@ model_calibration calibrate_model(fitted_model<T>& model, const table& t, const 
 
 /// Scores a calibration of a fitted model on `rows` of `t`.
 template <class T>
-calibration_scores score_calibration(fitted_model<T>& model, const model_calibration& c, const table& t, const std::vector<std::size_t>& rows) {
+calibration_scores score_calibration(const fitted_model<T>& model, const model_calibration& c, const table& t, const std::vector<std::size_t>& rows) {
     const prepared_rows<T> p = model.plan.template apply<T>(t, rows);
     detail::require_rows(p, "score_calibration");
     const detail::ensemble_view<T> v = detail::ensemble_outputs(model, p);

@@ -498,7 +498,7 @@ inline void check_retraining_options(const retraining_options& o) {
 
 // The gate's score of a network on prepared holdout rows.
 template <class T>
-double gate_score(network<T>& net, const measured_plan& p, const prepared_rows<T>& rows, gate_metric metric) {
+double gate_score(const network<T>& net, const measured_plan& p, const prepared_rows<T>& rows, gate_metric metric) {
     matrix<T> out = network_outputs(net, rows.features);
     if (metric == gate_metric::rmse) {
         const scaling& ts = p.target_scaling();
@@ -533,21 +533,29 @@ std::vector<network<T>*> pointers_to(std::vector<network<T>>& nets) {
     return out;
 }
 
+// The same, read-only.
+template <class T>
+std::vector<const network<T>*> pointers_to(const std::vector<network<T>>& nets) {
+    std::vector<const network<T>*> out;
+    for (const auto& n : nets) out.push_back(&n);
+    return out;
+}
+
 // The networks' mean (fit_model's averaged_outputs).
 template <class T>
-matrix<T> mean_outputs(std::vector<network<T>>& nets, const measured_plan& plan, const matrix<T>& features) {
+matrix<T> mean_outputs(const std::vector<network<T>>& nets, const measured_plan& plan, const matrix<T>& features) {
     return averaged_outputs(pointers_to(nets), plan.target_type() == target_kind::classification, features);
 }
 
 // What calibration sees of the networks (calibration.hpp's ensemble_outputs).
 template <class T>
-ensemble_view<T> calibration_view(std::vector<network<T>>& nets, const measured_plan& plan, const prepared_rows<T>& rows) {
+ensemble_view<T> calibration_view(const std::vector<network<T>>& nets, const measured_plan& plan, const prepared_rows<T>& rows) {
     return ensemble_outputs(pointers_to(nets), plan, rows);
 }
 
 // The gate's score of one network or a seed ensemble (on its mean).
 template <class T>
-double gate_score(std::vector<network<T>>& nets, const measured_plan& p, const prepared_rows<T>& rows, gate_metric metric) {
+double gate_score(const std::vector<network<T>>& nets, const measured_plan& p, const prepared_rows<T>& rows, gate_metric metric) {
     const matrix<T> out = mean_outputs(nets, p, rows.features);  // probabilities or prepared values
     if (metric == gate_metric::rmse) {
         const scaling& ts = p.target_scaling();

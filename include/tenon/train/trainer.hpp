@@ -296,21 +296,19 @@ var<T> record_loss(tape<T>& t, var<T> output, loss_kind kind, const matrix<T>& t
 /// `chunk` rows (logits for classification, values for regression), the
 /// matrix products split across `workers` when given.
 template <class T>
-matrix<T> network_outputs(network<T>& net, const matrix<T>& features, std::size_t chunk = 512, executor* workers = nullptr) {
+matrix<T> network_outputs(const network<T>& net, const matrix<T>& features, std::size_t chunk = 512, executor* workers = nullptr) {
     const std::size_t rows = features.shape()[0], cols = features.shape()[1];
-    const run_mode saved = net.mode();
-    net.set_mode(run_mode::inference);
     const std::size_t width = net.output_width(cols);
     matrix<T> out({rows, width});
     tape<T> t;
     t.set_executor(workers);
+    t.set_inference_only(true);
     for (std::size_t start = 0; start < rows; start += chunk) {
         const std::size_t n = std::min(chunk, rows - start);
         t.clear();
-        const var<T> y = net.forward(t, t.input(features.data() + start * cols, n, cols));
+        const var<T> y = net.infer(t, t.input(features.data() + start * cols, n, cols));
         std::copy(y.value().data(), y.value().data() + n * width, out.data() + start * width);
     }
-    net.set_mode(saved);
     return out;
 }
 

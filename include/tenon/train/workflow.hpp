@@ -374,7 +374,7 @@ supervised_rows<T> to_supervised(prepared_rows<T>&& p, const measured_plan& plan
 // values in prepared units, summed in order and divided by the count, as
 // the predictor does (serve/predictor.hpp).
 template <class T>
-matrix<T> averaged_outputs(const std::vector<network<T>*>& nets, bool classify, const matrix<T>& features) {
+matrix<T> averaged_outputs(const std::vector<const network<T>*>& nets, bool classify, const matrix<T>& features) {
     matrix<T> sum = network_outputs(*nets.front(), features);
     if (classify) sum = softmax_rows(sum);
     if (nets.size() == 1) return sum;
@@ -396,8 +396,16 @@ std::vector<network<T>*> member_networks(fitted_model<T>& model) {
     return nets;
 }
 
+// The same, read-only (for outputs, scores and files).
 template <class T>
-matrix<T> averaged_outputs(fitted_model<T>& model, const matrix<T>& features) {
+std::vector<const network<T>*> member_networks(const fitted_model<T>& model) {
+    std::vector<const network<T>*> nets{&model.net};
+    for (const auto& m : model.members) nets.push_back(&m);
+    return nets;
+}
+
+template <class T>
+matrix<T> averaged_outputs(const fitted_model<T>& model, const matrix<T>& features) {
     return averaged_outputs(member_networks(model), model.plan.target_type() == target_kind::classification, features);
 }
 
@@ -505,6 +513,31 @@ inline initializer hidden_initializer(activation a) noexcept {
 // weights and the output bias from it, the hidden layers' output weights
 // at zero, so training starts at the fit's predictions and the hidden
 // layers learn what it leaves. False when `n` has no linear path.
+// The logistic-regression baseline (a network without hidden layers,
+// Glorot-initialized from the settings' seed) trained on `train` with the
+// options `o` but without the host's observers, into `logistic`; its
+// weights also go to `out`.
+template <class T>
+training_outcome train_logistic_baseline(const supervised_rows<T>& train, const supervised_rows<T>& validation, training_options<T> o,
+                                         const model_settings& s, network<T>& logistic, linear_fit& out) {
+    logistic = make_mlp<T>({train.features.shape()[1], train.class_count}, activation::identity,
+                                      initializer{init_scheme::glorot, init_distribution::uniform}, s.seed);
+    o.on_epoch = nullptr;
+    o.on_batch = nullptr;
+    auto rule = make_update_rule<T>(s.update);
+    constant_rate schedule(s.learning_rate);
+    trainer<T> lt(logistic, *rule, schedule, std::move(o));
+    const training_outcome r = lt.run(train, validation);
+    out.features = train.features.shape()[1];
+    out.outputs = train.class_count;
+    out.class_scores = true;
+    const matrix<T>& w = logistic.find("output.weights").value();
+    const matrix<T>& c = logistic.find("output.bias").value();
+    out.weights.assign(w.data(), w.data() + w.size());
+    out.intercept.assign(c.data(), c.data() + c.size());
+    return r;
+}
+
 template <class T>
 bool start_from_linear(network<T>& n, const linear_fit& b) {
     if (n.layer_count() == 0) return false;
@@ -674,25 +707,9 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
     network<T> logistic;
     double logistic_loss = std::numeric_limits<double>::quiet_NaN();
     if (!s.team && train.is_classification()) {
-        logistic = make_mlp<T>({train.features.shape()[1], train.class_count}, activation::identity,
-                               initializer{init_scheme::glorot, init_distribution::uniform}, s.seed);
-        training_options<T> lo = o;
-        lo.on_epoch = nullptr;
-        lo.on_batch = nullptr;
-        auto logistic_rule = make_update_rule<T>(s.update);
-        constant_rate logistic_schedule(s.learning_rate);
-        trainer<T> lt(logistic, *logistic_rule, logistic_schedule, std::move(lo));
-        const training_outcome logistic_outcome = lt.run(train, validation);
+        const training_outcome logistic_outcome = detail::train_logistic_baseline(train, validation, o, s, logistic, model.baseline);
         logistic_loss = logistic_outcome.best_validation_loss;
         model.baseline_best_step = logistic_outcome.best_step;
-        linear_fit& b = model.baseline;
-        b.features = train.features.shape()[1];
-        b.outputs = train.class_count;
-        b.class_scores = true;
-        const matrix<T>& w = logistic.find("output.weights").value();
-        const matrix<T>& c = logistic.find("output.bias").value();
-        b.weights.assign(w.data(), w.data() + w.size());
-        b.intercept.assign(c.data(), c.data() + c.size());
     }
 
     const std::vector<training_outcome> member_outcomes = detail::train_members(model, o, s, member_seed, train, validation);
@@ -817,20 +834,11 @@ bool refit_model(fitted_model<T>& model, const table& t, const std::vector<std::
     if (model.baseline.features > 0 && !classify) {
         baseline = fit_least_squares(all.features, all.targets);
     } else if (model.baseline.features > 0) {
-        logistic = make_mlp<T>({all.features.shape()[1], all.class_count}, activation::identity,
-                               initializer{init_scheme::glorot, init_distribution::uniform}, s.seed);
         training_options<T> lo = o;
         lo.max_steps = static_cast<std::size_t>(model.baseline_best_step);
-        auto rule = make_update_rule<T>(s.update);
-        constant_rate schedule(s.learning_rate);
-        trainer<T> lt(logistic, *rule, schedule, std::move(lo));
-        const training_outcome r = lt.run(all, none);
+        const training_outcome r = detail::train_logistic_baseline(all, none, lo, s, logistic, baseline);
         if (!completed(r)) return false;
         logistic_steps = r.steps;
-        baseline.weights.assign(logistic.find("output.weights").value().data(),
-                                logistic.find("output.weights").value().data() + logistic.find("output.weights").value().size());
-        baseline.intercept.assign(logistic.find("output.bias").value().data(),
-                                  logistic.find("output.bias").value().data() + logistic.find("output.bias").value().size());
     }
 
     // The networks, as fit_model built them, from their own seeds.
@@ -902,7 +910,7 @@ bool refit_model(fitted_model<T>& model, const table& t, const std::vector<std::
 /// for classification, values in the target's original units (rows x 1) for
 /// regression.
 template <class T>
-matrix<T> predict_prepared(fitted_model<T>& model, const matrix<T>& features) {
+matrix<T> predict_prepared(const fitted_model<T>& model, const matrix<T>& features) {
     matrix<T> out = detail::averaged_outputs(model, features);
     if (model.plan.target_type() == target_kind::classification) return out;
     const scaling& ts = model.plan.target_scaling();
@@ -912,7 +920,7 @@ matrix<T> predict_prepared(fitted_model<T>& model, const matrix<T>& features) {
 
 /// Scores `rows` of `t` (rows with a missing target are counted, not scored).
 template <class T>
-evaluation evaluate_model(fitted_model<T>& model, const table& t, const std::vector<std::size_t>& rows) {
+evaluation evaluate_model(const fitted_model<T>& model, const table& t, const std::vector<std::size_t>& rows) {
     prepared_rows<T> p = model.plan.template apply<T>(t, rows);
     evaluation e;
     e.rows = p.rows.size();
