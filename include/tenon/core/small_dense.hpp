@@ -581,6 +581,65 @@ void split_dots(std::size_t count, const T* const* xs, const T* const* ws, std::
     for (std::size_t c = 0; c < count; ++c) out[c] = split_dot(xs[c], 1, ws[c], 1, k);
 }
 
+// The thin case of dense_group below (n < thin_columns): output j of row i
+// of product g is 0 + 1 x split_dot(row i of x[g], column j of W[g]), then
+// finished, as dense_dots computes it. Whole chunks of rows of one product
+// and output first, then the (product, row, output) triples left over.
+template <class T>
+void dense_group_thin(std::size_t rows, std::size_t count, const dense_group_args<T>& a, std::size_t k, std::size_t n,
+                      small_dense_version version) noexcept {
+    constexpr std::size_t chunk = split_dots_chunk<T>;
+    const T* xs[chunk];
+    const T* ws[chunk];
+    T dots[chunk];
+    std::size_t gs[chunk], is[chunk], js[chunk];
+    std::size_t left = 0;  // triples waiting
+    const auto finish = [&](std::size_t g, std::size_t i, std::size_t j, T dot) noexcept {
+        const T v = T(0) + dot;  // 0 + 1 x dot, as dense_dots (1 x dot is dot)
+        dense_finish<T> f;
+        f.bias = a.bias[g];
+        f.relu = a.relu[g];
+        a.y[g][i * n + j] = finish_value(v, f, j, a.addend[g] ? a.addend[g] + i * n : nullptr);
+    };
+    for (std::size_t g = 0; g < count; ++g) {
+        const std::size_t whole = rows - rows % chunk;
+        for (std::size_t j = 0; j < n; ++j) {
+            const T* column = a.wt[g] + j * k;
+            for (std::size_t e = 0; e < chunk; ++e) ws[e] = column;
+            for (std::size_t i = 0; i < whole; i += chunk) {
+                for (std::size_t e = 0; e < chunk; ++e) xs[e] = a.x[g] + (i + e) * k;
+                split_dots(chunk, xs, ws, k, dots, version);
+                for (std::size_t e = 0; e < chunk; ++e) finish(g, i + e, j, dots[e]);
+            }
+        }
+        for (std::size_t i = whole; i < rows; ++i)
+            for (std::size_t j = 0; j < n; ++j) {
+                gs[left] = g;
+                is[left] = i;
+                js[left] = j;
+                if (++left == chunk) {
+                    for (std::size_t e = 0; e < chunk; ++e) {
+                        xs[e] = a.x[gs[e]] + is[e] * k;
+                        ws[e] = a.wt[gs[e]] + js[e] * k;
+                    }
+                    split_dots(chunk, xs, ws, k, dots, version);
+                    for (std::size_t e = 0; e < chunk; ++e) finish(gs[e], is[e], js[e], dots[e]);
+                    left = 0;
+                }
+            }
+    }
+    if (left == 1) {
+        finish(gs[0], is[0], js[0], split_dot(a.x[gs[0]] + is[0] * k, 1, a.wt[gs[0]] + js[0] * k, 1, k));
+    } else if (left > 1) {
+        for (std::size_t e = 0; e < left; ++e) {
+            xs[e] = a.x[gs[e]] + is[e] * k;
+            ws[e] = a.wt[gs[e]] + js[e] * k;
+        }
+        split_dots(left, xs, ws, k, dots, version);
+        for (std::size_t e = 0; e < left; ++e) finish(gs[e], is[e], js[e], dots[e]);
+    }
+}
+
 // rows rows of each product of a group (see dense_group_args), summed as
 // small_dense sums them, so with gemm's bits where is_thin_product holds
 // (rows < always_thin_rows, or n < thin_columns at any row count). With
@@ -592,42 +651,14 @@ void dense_group(std::size_t rows, std::size_t count, const dense_group_args<T>&
                  small_dense_version version) noexcept {
     if (rows == 0 || n == 0 || count == 0) return;
     if (n < thin_columns<T>) {
-        constexpr std::size_t chunk = split_dots_chunk<T>;
-        const T* xs[chunk];
-        const T* ws[chunk];
-        std::size_t gs[chunk], is[chunk], js[chunk];
-        std::size_t c = 0;
-        const auto flush = [&]() noexcept {
-            T dots[chunk];
-            if (c == 1) dots[0] = split_dot(xs[0], 1, ws[0], 1, k);
-            else split_dots(c, xs, ws, k, dots, version);
-            for (std::size_t e = 0; e < c; ++e) {
-                const std::size_t g = gs[e], i = is[e], j = js[e];
-                const T v = T(0) + dots[e];  // 0 + 1 x dot, as dense_dots (1 x dot is dot)
-                dense_finish<T> f;
-                f.bias = a.bias[g];
-                f.relu = a.relu[g];
-                a.y[g][i * n + j] = finish_value(v, f, j, a.addend[g] ? a.addend[g] + i * n : nullptr);
-            }
-            c = 0;
-        };
-        for (std::size_t g = 0; g < count; ++g)
-            for (std::size_t i = 0; i < rows; ++i)
-                for (std::size_t j = 0; j < n; ++j) {
-                    xs[c] = a.x[g] + i * k;
-                    ws[c] = a.wt[g] + j * k;
-                    gs[c] = g;
-                    is[c] = i;
-                    js[c] = j;
-                    if (++c == chunk) flush();
-                }
-        if (c) flush();
+        dense_group_thin(rows, count, a, k, n, version);
         return;
     }
     std::size_t g = 0;
 #if TENON_GEMM_X86 || TENON_SIMD_NEON64
     if (rows == 1) {
-        // Groups of four, then the rest as one group of three, two or one.
+        // Groups of at most four, as even as possible (five as three and
+        // two, not four and one: a product alone is bound by its latency).
         const auto run = [&](std::size_t at, std::size_t size) noexcept {
             const T* const* x = a.x + at;
             const T* const* w = a.w + at;
@@ -660,8 +691,12 @@ void dense_group(std::size_t rows, std::size_t count, const dense_group_args<T>&
                 default: return false;
             }
         };
-        for (; g < count; g += 4)
-            if (!run(g, count - g < 4 ? count - g : 4)) break;
+        const std::size_t groups = (count + 3) / 4;
+        for (std::size_t q = 0; q < groups; ++q) {
+            const std::size_t end = count * (q + 1) / groups;  // groups of count / groups, rounded
+            if (!run(g, end - g)) break;
+            g = end;
+        }
     }
 #endif
     for (; g < count; ++g) {
