@@ -548,6 +548,23 @@ inline void split_dots_avx2(const T* const* xs, const T* const* ws, std::size_t 
     if constexpr (sizeof(T) == sizeof(float)) split_dots8_avx2(xs, ws, k, out);
     else split_dots4_avx2(xs, ws, k, out);
 }
+
+// y[i] = finish(0 + dots[i]) for a chunk of rows of a product with one
+// output (so y, the addend and the dots are contiguous and the bias is one
+// value), as finish_value computes each: the vector form of the loop in
+// dense_group_thin below.
+template <class T>
+TENON_TARGET_AVX2 TENON_NO_CONTRACTION void finish_column_chunk_avx2(const T* dots, const T* bias, bool relu, const T* addend, T* y) noexcept {
+    TENON_NO_CONTRACTION_IN_BODY
+    using ops = avx2_ops<T>;
+    auto v = ops::add(ops::zero(), ops::load(dots));
+    if (bias) v = ops::add(v, ops::broadcast(*bias));
+    v = ops::zero_tiny(v);
+    if (relu) v = ops::select_positive(v, v);
+    if (addend) v = ops::zero_tiny(ops::add(ops::load(addend), v));
+    ops::store(y, v);
+}
+static_assert(avx2_ops<float>::lanes == 8 && avx2_ops<double>::lanes == 4, "a chunk of split_dots is one AVX2 vector");
 #endif
 
 // How many pairs split_dots takes at a time.
@@ -609,6 +626,12 @@ void dense_group_thin(std::size_t rows, std::size_t count, const dense_group_arg
             for (std::size_t i = 0; i < whole; i += chunk) {
                 for (std::size_t e = 0; e < chunk; ++e) xs[e] = a.x[g] + (i + e) * k;
                 split_dots(chunk, xs, ws, k, dots, version);
+#if TENON_GEMM_X86
+                if (n == 1 && (version == small_dense_version::avx2 || version == small_dense_version::avx512)) {
+                    finish_column_chunk_avx2(dots, a.bias[g], a.relu[g], a.addend[g] ? a.addend[g] + i : nullptr, a.y[g] + i);
+                    continue;
+                }
+#endif
                 for (std::size_t e = 0; e < chunk; ++e) finish(g, i + e, j, dots[e]);
             }
         }
