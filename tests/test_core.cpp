@@ -644,6 +644,110 @@ TEST_CASE_TEMPLATE("small dense layers give gemm's sum with the finish applied i
     }
 }
 
+TEST_CASE_TEMPLATE("a group of small dense products gives each product's bits in the plain order, on every version", T, float, double) {
+    // dense_group (core/small_dense.hpp) runs several products side by side:
+    // up to four rows of the row loop in one loop over k, and split_dot for
+    // several (row, column) pairs with their partial sums transposed. Each
+    // value must still be the plain loop's (n >= thin_columns) or
+    // split_dot's (n < thin_columns) in order, each product and sum rounded
+    // on its own: a kernel that fused a multiply and an add, or added the
+    // partial sums in another order, would differ in the last bits of some
+    // of these values (`fused` below checks that such a kernel would).
+    tenon::random_engine rng(45);
+    const auto filled = [&](std::size_t size, T scale) {
+        std::vector<T> v(size);
+        for (auto& x : v) x = rng.normal(T(0), T(1)) * scale;
+        return v;
+    };
+    const auto tiny = [](T v) { return std::abs(v) < std::numeric_limits<T>::min() ? T(0) : v; };
+    // One output of one row: the row loop or split_dot, or (fused) the same
+    // terms with fused multiply-adds.
+    const auto plain = [](const T* x, const T* w, std::size_t stride, std::size_t k, bool thin, bool fused) {
+        T c = T(0);
+        if (!thin) {
+            for (std::size_t p = 0; p < k; ++p) c = fused ? std::fma(x[p], w[p * stride], c) : c + x[p] * w[p * stride];
+            return c;
+        }
+        T partial[8] = {};
+        std::size_t p = 0;
+        for (; p + 8 <= k; p += 8)
+            for (std::size_t q = 0; q < 8; ++q)
+                partial[q] = fused ? std::fma(x[p + q], w[(p + q) * stride], partial[q]) : partial[q] + x[p + q] * w[(p + q) * stride];
+        for (; p < k; ++p) partial[0] = fused ? std::fma(x[p], w[p * stride], partial[0]) : partial[0] + x[p] * w[p * stride];
+        T sum = T(0);
+        for (T q : partial) sum += q;
+        return c + sum;
+    };
+    std::vector<tenon::detail::small_dense_version> versions;
+    for (auto v : {tenon::detail::small_dense_version::portable, tenon::detail::small_dense_version::avx2,
+                   tenon::detail::small_dense_version::avx512, tenon::detail::small_dense_version::neon})
+        if (tenon::detail::small_dense_version_available(v)) versions.push_back(v);
+    const T small_scale = std::sqrt(std::numeric_limits<T>::min());
+    std::size_t fused_differs = 0;
+    for (const std::size_t n : std::vector<std::size_t>{1, 3, 7, 8, 16, 17, 32, 33, 65}) {
+        for (const std::size_t k : std::vector<std::size_t>{1, 8, 9, 32, 33}) {
+            for (const std::size_t count : std::vector<std::size_t>{1, 2, 3, 5, 8}) {
+                for (const std::size_t rows : std::vector<std::size_t>{1, 2, 9}) {
+                    const int variant = static_cast<int>((n + k + count + rows) % 3);
+                    CAPTURE(n);
+                    CAPTURE(k);
+                    CAPTURE(count);
+                    CAPTURE(rows);
+                    CAPTURE(variant);
+                    // 0: bias and relu; 1: addend, no bias; 2: sums near the subnormal range, relu.
+                    const T scale = variant == 2 ? small_scale : T(1);
+                    std::vector<std::vector<T>> x, w, wt, bias, addend;
+                    std::vector<std::vector<T>> expected, y;
+                    const bool thin = n < tenon::detail::thin_columns<T>;
+                    for (std::size_t g = 0; g < count; ++g) {
+                        x.push_back(filled(rows * k, scale));
+                        w.push_back(filled(k * n, scale));
+                        bias.push_back(filled(n, T(1)));
+                        addend.push_back(filled(rows * n, T(1)));
+                        wt.emplace_back(n * k);
+                        for (std::size_t j = 0; j < n; ++j)
+                            for (std::size_t p = 0; p < k; ++p) wt[g][j * k + p] = w[g][p * n + j];
+                        std::vector<T> e(rows * n);
+                        for (std::size_t i = 0; i < rows; ++i)
+                            for (std::size_t j = 0; j < n; ++j) {
+                                const T* xi = x[g].data() + i * k;
+                                T v = thin ? plain(xi, wt[g].data() + j * k, 1, k, true, false) : plain(xi, w[g].data() + j, n, k, false, false);
+                                const T f = thin ? plain(xi, wt[g].data() + j * k, 1, k, true, true) : plain(xi, w[g].data() + j, n, k, false, true);
+                                fused_differs += std::memcmp(&v, &f, sizeof(T)) != 0;
+                                if (variant == 0) v = v + bias[g][j];
+                                v = tiny(v);
+                                if (variant != 1) v = v > T(0) ? v : T(0);
+                                if (variant == 1) v = tiny(addend[g][i * n + j] + v);
+                                e[i * n + j] = v;
+                            }
+                        expected.push_back(e);
+                    }
+                    for (const auto version : versions) {
+                        CAPTURE(static_cast<int>(version));
+                        std::vector<const T*> xs, ws, wts, biases, addends;
+                        std::vector<T*> ys;
+                        bool relus[8];
+                        y.assign(count, std::vector<T>(rows * n, T(-3)));
+                        for (std::size_t g = 0; g < count; ++g) {
+                            xs.push_back(x[g].data());
+                            ws.push_back(w[g].data());
+                            wts.push_back(wt[g].data());
+                            biases.push_back(variant == 0 ? bias[g].data() : nullptr);
+                            relus[g] = variant != 1;
+                            addends.push_back(variant == 1 ? addend[g].data() : nullptr);
+                            ys.push_back(y[g].data());
+                        }
+                        const tenon::detail::dense_group_args<T> args{xs.data(), ws.data(), wts.data(), biases.data(), relus, addends.data(), ys.data()};
+                        tenon::detail::dense_group<T>(rows, count, args, k, n, version);
+                        for (std::size_t g = 0; g < count; ++g) CHECK(std::memcmp(y[g].data(), expected[g].data(), rows * n * sizeof(T)) == 0);
+                    }
+                }
+            }
+        }
+    }
+    CHECK(fused_differs > 0);  // the comparison can tell a fused kernel apart
+}
+
 TEST_CASE_TEMPLATE("the batch kernel of small dense layers gives the packed product's bits on every path", T, float, double) {
     // dense_rows computes products of at least a tile's rows without packing
     // on the fused paths; each element must stay the packed tile's chain of

@@ -137,6 +137,54 @@ TEST_CASE_TEMPLATE("a seed ensemble's mean and spread per row, from a fit and fr
     }
 }
 
+TEST_CASE_TEMPLATE("an ensemble's members computed side by side keep each member's bits, for one to three rows a call", T, float, double) {
+    // A call of few rows runs the same layer of every member in one
+    // dense_group (group_steps, core/small_dense.hpp); each member's values
+    // must stay its own network's for the same rows to the last bit, and the
+    // mean the trainer's, on every kernel path.
+    const tenon::kernel_path before = tenon::active_kernel_path();
+    for (const bool classify : {true, false}) {
+        trained<T> run(classify ? condition_plan() : power_plan());
+        REQUIRE(run.model.member_count() == 5);
+        const auto features = run.model.plan.template apply<T>(run.t, run.test).features;
+        const std::size_t rows = features.shape()[0], width = features.shape()[1];
+        const auto file = tenon::make_model_file(run.model, run.t, run.train, small_settings());
+        std::vector<tenon::network<T>> nets;
+        for (std::size_t m = 0; m < 5; ++m) nets.push_back(tenon::rebuild_member(file, m));
+        tenon::predictor<T> p(file, 8);
+        for (const auto path : {tenon::kernel_path::portable, tenon::kernel_path::avx2, tenon::kernel_path::avx512, tenon::kernel_path::neon}) {
+            if (!tenon::kernel_path_available(path)) continue;
+            tenon::set_kernel_path(path);
+            for (const std::size_t per_call : std::vector<std::size_t>{1, 2, 3}) {
+                CAPTURE(classify);
+                CAPTURE(std::string(tenon::kernel_path_name(path)));
+                CAPTURE(per_call);
+                std::size_t differing = 0;
+                for (std::size_t r = 0; r + per_call <= rows; r += per_call) {
+                    tenon::matrix<T> x({per_call, width});
+                    std::copy(features.data() + r * width, features.data() + (r + per_call) * width, x.data());
+                    const tenon::matrix<T> expected = tenon::predict_prepared(run.model, x);
+                    const auto v = p.predict_prepared(x.data(), per_call);
+                    REQUIRE(v.members == 5);
+                    const std::size_t block = per_call * v.width;
+                    for (std::size_t e = 0; e < block; ++e) differing += same_bits(v.values[e], expected.data()[e]) ? 0 : 1;
+                    for (std::size_t m = 0; m < 5; ++m) {
+                        tenon::matrix<T> out = tenon::network_outputs(nets[m], x);
+                        if (classify) out = tenon::softmax_rows(out);
+                        for (std::size_t e = 0; e < block; ++e) {
+                            const T member = classify ? out.data()[e]
+                                                      : static_cast<T>(run.model.plan.target_scaling().inverse(static_cast<double>(out.data()[e])));
+                            differing += same_bits(v.member_values[m * block + e], member) ? 0 : 1;
+                        }
+                    }
+                }
+                CHECK(differing == 0);
+            }
+        }
+    }
+    tenon::set_kernel_path(before);
+}
+
 TEST_CASE("one network has one member and a zero spread; an ensemble section is required") {
     auto settings = small_settings();
     settings.ensemble = 1;

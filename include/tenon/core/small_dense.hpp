@@ -280,6 +280,19 @@ inline small_dense_version best_small_dense_version() noexcept {
 #endif
 }
 
+// The version for a group of several products at once (dense_group below):
+// their chains of additions overlap, so the call is bound by the number of
+// vector instructions rather than by latency, and the widest vectors need
+// the fewest.
+inline small_dense_version best_group_version() noexcept {
+#if TENON_GEMM_X86
+    const int level = vector_level();
+    return level == 2 ? small_dense_version::avx512 : level == 1 ? small_dense_version::avx2 : small_dense_version::portable;
+#else
+    return best_small_dense_version();
+#endif
+}
+
 inline bool small_dense_version_available(small_dense_version v) noexcept {
     switch (v) {
         case small_dense_version::portable: return true;
@@ -362,6 +375,360 @@ void dense_rows(std::size_t rows, std::size_t k, std::size_t n, const T* x, cons
 #endif
     gemm<T>(false, false, rows, n, k, T(1), x, k, w, n, T(0), y, n);
     finish_rows(rows, n, f, y);
+}
+
+// ---------------------------------------------------------------------------
+// Groups: several small dense products at once, each summed as the row
+// loop and split_dot above sum it.
+//
+// A call of one row is bound by the latency of each output's chain of
+// additions (k of them, one after the other), not by the arithmetic units.
+// Where several independent products of the same shape are due at the same
+// time, such as the same layer of every member of a seed ensemble, or the
+// rows of a batch through a layer of few outputs, computing them in one loop
+// puts their chains side by side, so the processor overlaps them.
+//
+// Bits. Nothing is summed in another order than the row loop above and
+// split_dot (core/gemm.hpp) sum it, so each value keeps its bits:
+//   - dense_row_pair_*: two rows of the row loop (n >= thin_columns) in one
+//     loop over k; each output is 0 + x_0 w_0j + x_1 w_1j + ... in order,
+//     each product and each sum rounded on its own (never fused);
+//   - split_dots: split_dot for several (x, w) pairs; each pair's eight
+//     partial sums are one vector (partial q in lane q, the products of
+//     p = q, q + 8, q + 16, ... added in order, the tail p >= k - k % 8 added
+//     to partial 0 afterwards), then the partial vectors of eight (float) or
+//     four (double) pairs are transposed so that 0 + partial_0 + partial_1 +
+//     ... + partial_7 is computed for all of them at once, one vector
+//     addition per term, in the same order as split_dot adds them.
+// Only the additions' placement in the instruction stream changes.
+
+// A group of dense products of one shape (k inputs, n outputs): product g
+// computes y[g] = finish(x[g] W[g]) with bias[g] (or null), relu[g] and
+// addend[g] (or null); wt[g] is W[g] transposed, read when n < thin_columns.
+// The arrays hold `count` entries.
+template <class T>
+struct dense_group_args {
+    const T* const* x;
+    const T* const* w;
+    const T* const* wt;
+    const T* const* bias;
+    const bool* relu;
+    const T* const* addend;
+    T* const* y;
+};
+
+#if TENON_GEMM_X86 || TENON_SIMD_NEON64
+// G rows of the row loop (dense_row_* above), one per product, in one loop
+// over k: G x V vectors of y held across the k terms, V <= 4 chosen so that
+// G x V stays within `budget` registers.
+#define TENON_DENSE_GROUP_BLOCK(SUFFIX, V)                                                                                    \
+    for (; j + (V) * lanes <= n; j += (V) * lanes) {                                                                          \
+        typename ops::vector c[G][V];                                                                                         \
+        _Pragma("GCC unroll 8") for (std::size_t g = 0; g < G; ++g)                                                           \
+            _Pragma("GCC unroll 4") for (std::size_t v = 0; v < (V); ++v) c[g][v] = ops::zero();                              \
+        for (std::size_t p = 0; p < k; ++p) {                                                                                 \
+            _Pragma("GCC unroll 8") for (std::size_t g = 0; g < G; ++g) {                                                     \
+                const auto s = ops::broadcast(T(1) * x[g][p]);                                                                \
+                const T* wp = w[g] + p * n + j;                                                                               \
+                _Pragma("GCC unroll 4") for (std::size_t v = 0; v < (V); ++v)                                                 \
+                    c[g][v] = ops::add(c[g][v], ops::mul(s, ops::load(wp + v * lanes)));                                      \
+            }                                                                                                                 \
+        }                                                                                                                     \
+        _Pragma("GCC unroll 8") for (std::size_t g = 0; g < G; ++g)                                                           \
+            _Pragma("GCC unroll 4") for (std::size_t v = 0; v < (V); ++v) {                                                   \
+                const std::size_t at = j + v * lanes;                                                                         \
+                ops::store(y[g] + at, finish_vector_##SUFFIX<T>(c[g][v], bias[g] ? bias[g] + at : nullptr, relu[g],           \
+                                                                addend[g] ? addend[g] + at : nullptr));                       \
+            }                                                                                                                 \
+    }
+#define TENON_DENSE_GROUP(SUFFIX, TARGET, OPS, BUDGET)                                                                        \
+    template <class T, std::size_t G>                                                                                         \
+    TARGET TENON_NO_CONTRACTION void dense_row_group_##SUFFIX(const T* const* x, const T* const* w, const T* const* bias,     \
+                                                              const bool* relu, const T* const* addend, T* const* y,          \
+                                                              std::size_t k, std::size_t n) noexcept {                        \
+        TENON_NO_CONTRACTION_IN_BODY                                                                                          \
+        using ops = OPS<T>;                                                                                                   \
+        constexpr std::size_t lanes = ops::lanes;                                                                             \
+        std::size_t j = 0;                                                                                                    \
+        if constexpr (G * 4 <= (BUDGET)) TENON_DENSE_GROUP_BLOCK(SUFFIX, 4)                                                   \
+        if constexpr (G * 2 <= (BUDGET)) TENON_DENSE_GROUP_BLOCK(SUFFIX, 2)                                                   \
+        TENON_DENSE_GROUP_BLOCK(SUFFIX, 1)                                                                                    \
+        for (; j < n; ++j)                                                                                                    \
+            for (std::size_t g = 0; g < G; ++g) {                                                                             \
+                T c = T(0);                                                                                                   \
+                for (std::size_t p = 0; p < k; ++p) c += (T(1) * x[g][p]) * w[g][p * n + j];                                  \
+                dense_finish<T> f;                                                                                            \
+                f.bias = bias[g];                                                                                             \
+                f.relu = relu[g];                                                                                             \
+                y[g][j] = finish_value(c, f, j, addend[g]);                                                                   \
+            }                                                                                                                 \
+    }
+// Registers for accumulators: AVX-512 has 32, AVX2 and NEON (counted for
+// its float lanes) 16, less the broadcasts and products in flight.
+#if TENON_GEMM_X86
+TENON_DENSE_GROUP(avx512, TENON_TARGET_AVX512, avx512_ops, 16)
+TENON_DENSE_GROUP(avx2, TENON_TARGET_AVX2, avx2_ops, 8)
+#else
+TENON_DENSE_GROUP(neon, TENON_TARGET_NEON, neon_ops, 16)
+#endif
+#undef TENON_DENSE_GROUP
+#undef TENON_DENSE_GROUP_BLOCK
+#endif
+
+#if TENON_GEMM_X86
+// split_dot of eight float pairs (see the top of this file); out[r] for pair r.
+TENON_TARGET_AVX2 TENON_NO_CONTRACTION inline void split_dots8_avx2(const float* const* xs, const float* const* ws, std::size_t k,
+                                                                   float* out) noexcept {
+    TENON_NO_CONTRACTION_IN_BODY
+    __m256 r[8];
+    const std::size_t full = k - k % 8;
+    for (std::size_t i = 0; i < 8; ++i) {
+        const float* x = xs[i];
+        const float* w = ws[i];
+        __m256 acc = _mm256_setzero_ps();
+        for (std::size_t p = 0; p < full; p += 8) acc = _mm256_add_ps(acc, _mm256_mul_ps(_mm256_loadu_ps(x + p), _mm256_loadu_ps(w + p)));
+        for (std::size_t p = full; p < k; ++p)  // partial 0 (lane 0) only
+            acc = _mm256_blend_ps(acc, _mm256_add_ps(acc, _mm256_mul_ps(_mm256_set1_ps(x[p]), _mm256_set1_ps(w[p]))), 1);
+        r[i] = acc;
+    }
+    const __m256 t0 = _mm256_unpacklo_ps(r[0], r[1]), t1 = _mm256_unpackhi_ps(r[0], r[1]);
+    const __m256 t2 = _mm256_unpacklo_ps(r[2], r[3]), t3 = _mm256_unpackhi_ps(r[2], r[3]);
+    const __m256 t4 = _mm256_unpacklo_ps(r[4], r[5]), t5 = _mm256_unpackhi_ps(r[4], r[5]);
+    const __m256 t6 = _mm256_unpacklo_ps(r[6], r[7]), t7 = _mm256_unpackhi_ps(r[6], r[7]);
+    const __m256 u0 = _mm256_shuffle_ps(t0, t2, 0x44), u1 = _mm256_shuffle_ps(t0, t2, 0xEE);
+    const __m256 u2 = _mm256_shuffle_ps(t1, t3, 0x44), u3 = _mm256_shuffle_ps(t1, t3, 0xEE);
+    const __m256 u4 = _mm256_shuffle_ps(t4, t6, 0x44), u5 = _mm256_shuffle_ps(t4, t6, 0xEE);
+    const __m256 u6 = _mm256_shuffle_ps(t5, t7, 0x44), u7 = _mm256_shuffle_ps(t5, t7, 0xEE);
+    // Column q (partial q of every pair), added in order q = 0..7.
+    __m256 sum = _mm256_setzero_ps();
+    sum = _mm256_add_ps(sum, _mm256_permute2f128_ps(u0, u4, 0x20));
+    sum = _mm256_add_ps(sum, _mm256_permute2f128_ps(u1, u5, 0x20));
+    sum = _mm256_add_ps(sum, _mm256_permute2f128_ps(u2, u6, 0x20));
+    sum = _mm256_add_ps(sum, _mm256_permute2f128_ps(u3, u7, 0x20));
+    sum = _mm256_add_ps(sum, _mm256_permute2f128_ps(u0, u4, 0x31));
+    sum = _mm256_add_ps(sum, _mm256_permute2f128_ps(u1, u5, 0x31));
+    sum = _mm256_add_ps(sum, _mm256_permute2f128_ps(u2, u6, 0x31));
+    sum = _mm256_add_ps(sum, _mm256_permute2f128_ps(u3, u7, 0x31));
+    _mm256_storeu_ps(out, sum);
+}
+
+// split_dot of four double pairs: partials 0-3 in one vector, 4-7 in another.
+TENON_TARGET_AVX2 TENON_NO_CONTRACTION inline void split_dots4_avx2(const double* const* xs, const double* const* ws, std::size_t k,
+                                                                   double* out) noexcept {
+    TENON_NO_CONTRACTION_IN_BODY
+    __m256d lo[4], hi[4];
+    const std::size_t full = k - k % 8;
+    for (std::size_t i = 0; i < 4; ++i) {
+        const double* x = xs[i];
+        const double* w = ws[i];
+        __m256d a = _mm256_setzero_pd(), b = _mm256_setzero_pd();
+        for (std::size_t p = 0; p < full; p += 8) {
+            a = _mm256_add_pd(a, _mm256_mul_pd(_mm256_loadu_pd(x + p), _mm256_loadu_pd(w + p)));
+            b = _mm256_add_pd(b, _mm256_mul_pd(_mm256_loadu_pd(x + p + 4), _mm256_loadu_pd(w + p + 4)));
+        }
+        for (std::size_t p = full; p < k; ++p)
+            a = _mm256_blend_pd(a, _mm256_add_pd(a, _mm256_mul_pd(_mm256_set1_pd(x[p]), _mm256_set1_pd(w[p]))), 1);
+        lo[i] = a;
+        hi[i] = b;
+    }
+    __m256d sum = _mm256_setzero_pd();
+    for (const __m256d* r : {lo, hi}) {
+        const __m256d t0 = _mm256_unpacklo_pd(r[0], r[1]), t1 = _mm256_unpackhi_pd(r[0], r[1]);
+        const __m256d t2 = _mm256_unpacklo_pd(r[2], r[3]), t3 = _mm256_unpackhi_pd(r[2], r[3]);
+        sum = _mm256_add_pd(sum, _mm256_permute2f128_pd(t0, t2, 0x20));
+        sum = _mm256_add_pd(sum, _mm256_permute2f128_pd(t1, t3, 0x20));
+        sum = _mm256_add_pd(sum, _mm256_permute2f128_pd(t0, t2, 0x31));
+        sum = _mm256_add_pd(sum, _mm256_permute2f128_pd(t1, t3, 0x31));
+    }
+    _mm256_storeu_pd(out, sum);
+}
+
+template <class T>
+inline void split_dots_avx2(const T* const* xs, const T* const* ws, std::size_t k, T* out) noexcept {
+    if constexpr (sizeof(T) == sizeof(float)) split_dots8_avx2(xs, ws, k, out);
+    else split_dots4_avx2(xs, ws, k, out);
+}
+
+// y[i] = finish(0 + dots[i]) for a chunk of rows of a product with one
+// output (so y, the addend and the dots are contiguous and the bias is one
+// value), as finish_value computes each: the vector form of the loop in
+// dense_group_thin below.
+template <class T>
+TENON_TARGET_AVX2 TENON_NO_CONTRACTION void finish_column_chunk_avx2(const T* dots, const T* bias, bool relu, const T* addend, T* y) noexcept {
+    TENON_NO_CONTRACTION_IN_BODY
+    using ops = avx2_ops<T>;
+    auto v = ops::add(ops::zero(), ops::load(dots));
+    if (bias) v = ops::add(v, ops::broadcast(*bias));
+    v = ops::zero_tiny(v);
+    if (relu) v = ops::select_positive(v, v);
+    if (addend) v = ops::zero_tiny(ops::add(ops::load(addend), v));
+    ops::store(y, v);
+}
+static_assert(avx2_ops<float>::lanes == 8 && avx2_ops<double>::lanes == 4, "a chunk of split_dots is one AVX2 vector");
+#endif
+
+// How many pairs split_dots takes at a time.
+template <class T>
+inline constexpr std::size_t split_dots_chunk = sizeof(T) == sizeof(float) ? 8 : 4;
+
+// out[c] = split_dot(xs[c], 1, ws[c], 1, k) for c < count <= split_dots_chunk<T>.
+template <class T>
+void split_dots(std::size_t count, const T* const* xs, const T* const* ws, std::size_t k, T* out, small_dense_version version) noexcept {
+#if TENON_GEMM_X86
+    if (version == small_dense_version::avx2 || version == small_dense_version::avx512) {
+        constexpr std::size_t chunk = split_dots_chunk<T>;
+        if (count == chunk) {
+            split_dots_avx2(xs, ws, k, out);
+            return;
+        }
+        // A short chunk repeats its first pair in the unused lanes.
+        const T* x[chunk];
+        const T* w[chunk];
+        T v[chunk];
+        for (std::size_t c = 0; c < chunk; ++c) {
+            x[c] = xs[c < count ? c : 0];
+            w[c] = ws[c < count ? c : 0];
+        }
+        split_dots_avx2(x, w, k, v);
+        for (std::size_t c = 0; c < count; ++c) out[c] = v[c];
+        return;
+    }
+#endif
+    (void)version;
+    for (std::size_t c = 0; c < count; ++c) out[c] = split_dot(xs[c], 1, ws[c], 1, k);
+}
+
+// The thin case of dense_group below (n < thin_columns): output j of row i
+// of product g is 0 + 1 x split_dot(row i of x[g], column j of W[g]), then
+// finished, as dense_dots computes it. Whole chunks of rows of one product
+// and output first, then the (product, row, output) triples left over.
+template <class T>
+void dense_group_thin(std::size_t rows, std::size_t count, const dense_group_args<T>& a, std::size_t k, std::size_t n,
+                      small_dense_version version) noexcept {
+    constexpr std::size_t chunk = split_dots_chunk<T>;
+    const T* xs[chunk];
+    const T* ws[chunk];
+    T dots[chunk];
+    std::size_t gs[chunk], is[chunk], js[chunk];
+    std::size_t left = 0;  // triples waiting
+    const auto finish = [&](std::size_t g, std::size_t i, std::size_t j, T dot) noexcept {
+        const T v = T(0) + dot;  // 0 + 1 x dot, as dense_dots (1 x dot is dot)
+        dense_finish<T> f;
+        f.bias = a.bias[g];
+        f.relu = a.relu[g];
+        a.y[g][i * n + j] = finish_value(v, f, j, a.addend[g] ? a.addend[g] + i * n : nullptr);
+    };
+    for (std::size_t g = 0; g < count; ++g) {
+        const std::size_t whole = rows - rows % chunk;
+        for (std::size_t j = 0; j < n; ++j) {
+            const T* column = a.wt[g] + j * k;
+            for (std::size_t e = 0; e < chunk; ++e) ws[e] = column;
+            for (std::size_t i = 0; i < whole; i += chunk) {
+                for (std::size_t e = 0; e < chunk; ++e) xs[e] = a.x[g] + (i + e) * k;
+                split_dots(chunk, xs, ws, k, dots, version);
+#if TENON_GEMM_X86
+                if (n == 1 && (version == small_dense_version::avx2 || version == small_dense_version::avx512)) {
+                    finish_column_chunk_avx2(dots, a.bias[g], a.relu[g], a.addend[g] ? a.addend[g] + i : nullptr, a.y[g] + i);
+                    continue;
+                }
+#endif
+                for (std::size_t e = 0; e < chunk; ++e) finish(g, i + e, j, dots[e]);
+            }
+        }
+        for (std::size_t i = whole; i < rows; ++i)
+            for (std::size_t j = 0; j < n; ++j) {
+                gs[left] = g;
+                is[left] = i;
+                js[left] = j;
+                if (++left == chunk) {
+                    for (std::size_t e = 0; e < chunk; ++e) {
+                        xs[e] = a.x[gs[e]] + is[e] * k;
+                        ws[e] = a.wt[gs[e]] + js[e] * k;
+                    }
+                    split_dots(chunk, xs, ws, k, dots, version);
+                    for (std::size_t e = 0; e < chunk; ++e) finish(gs[e], is[e], js[e], dots[e]);
+                    left = 0;
+                }
+            }
+    }
+    if (left == 1) {
+        finish(gs[0], is[0], js[0], split_dot(a.x[gs[0]] + is[0] * k, 1, a.wt[gs[0]] + js[0] * k, 1, k));
+    } else if (left > 1) {
+        for (std::size_t e = 0; e < left; ++e) {
+            xs[e] = a.x[gs[e]] + is[e] * k;
+            ws[e] = a.wt[gs[e]] + js[e] * k;
+        }
+        split_dots(left, xs, ws, k, dots, version);
+        for (std::size_t e = 0; e < left; ++e) finish(gs[e], is[e], js[e], dots[e]);
+    }
+}
+
+// rows rows of each product of a group (see dense_group_args), summed as
+// small_dense sums them, so with gemm's bits where is_thin_product holds
+// (rows < always_thin_rows, or n < thin_columns at any row count). With
+// n < thin_columns: the dot products of up to split_dots_chunk (product,
+// row, output) triples at a time; else for one row, up to four products'
+// rows in one loop of the row loop.
+template <class T>
+void dense_group(std::size_t rows, std::size_t count, const dense_group_args<T>& a, std::size_t k, std::size_t n,
+                 small_dense_version version) noexcept {
+    if (rows == 0 || n == 0 || count == 0) return;
+    if (n < thin_columns<T>) {
+        dense_group_thin(rows, count, a, k, n, version);
+        return;
+    }
+    std::size_t g = 0;
+#if TENON_GEMM_X86 || TENON_SIMD_NEON64
+    if (rows == 1) {
+        // Groups of at most four, as even as possible (five as three and
+        // two, not four and one: a product alone is bound by its latency).
+        const auto run = [&](std::size_t at, std::size_t size) noexcept {
+            const T* const* x = a.x + at;
+            const T* const* w = a.w + at;
+            const T* const* b = a.bias + at;
+            const bool* r = a.relu + at;
+            const T* const* d = a.addend + at;
+            T* const* y = a.y + at;
+            switch (version) {
+#if TENON_GEMM_X86
+                case small_dense_version::avx512:
+                    if (size == 4) dense_row_group_avx512<T, 4>(x, w, b, r, d, y, k, n);
+                    else if (size == 3) dense_row_group_avx512<T, 3>(x, w, b, r, d, y, k, n);
+                    else if (size == 2) dense_row_group_avx512<T, 2>(x, w, b, r, d, y, k, n);
+                    else dense_row_group_avx512<T, 1>(x, w, b, r, d, y, k, n);
+                    return true;
+                case small_dense_version::avx2:
+                    if (size == 4) dense_row_group_avx2<T, 4>(x, w, b, r, d, y, k, n);
+                    else if (size == 3) dense_row_group_avx2<T, 3>(x, w, b, r, d, y, k, n);
+                    else if (size == 2) dense_row_group_avx2<T, 2>(x, w, b, r, d, y, k, n);
+                    else dense_row_group_avx2<T, 1>(x, w, b, r, d, y, k, n);
+                    return true;
+#elif TENON_SIMD_NEON64
+                case small_dense_version::neon:
+                    if (size == 4) dense_row_group_neon<T, 4>(x, w, b, r, d, y, k, n);
+                    else if (size == 3) dense_row_group_neon<T, 3>(x, w, b, r, d, y, k, n);
+                    else if (size == 2) dense_row_group_neon<T, 2>(x, w, b, r, d, y, k, n);
+                    else dense_row_group_neon<T, 1>(x, w, b, r, d, y, k, n);
+                    return true;
+#endif
+                default: return false;
+            }
+        };
+        const std::size_t groups = (count + 3) / 4;
+        for (std::size_t q = 0; q < groups; ++q) {
+            const std::size_t end = count * (q + 1) / groups;  // groups of count / groups, rounded
+            if (!run(g, end - g)) break;
+            g = end;
+        }
+    }
+#endif
+    for (; g < count; ++g) {
+        dense_finish<T> f;
+        f.bias = a.bias[g];
+        f.relu = a.relu[g];
+        f.addend = a.addend[g];
+        small_dense(rows, k, n, a.x[g], a.w[g], a.wt[g], f, a.y[g], version);
+    }
 }
 
 }  // namespace detail

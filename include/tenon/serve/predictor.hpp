@@ -241,7 +241,14 @@ struct program_step {
     std::size_t addend = 0;   //   the buffer added to the result
     std::size_t t = 0;        // offset of W transposed (outputs x inputs) when outputs < thin_columns
     small_dense_version version = small_dense_version::portable;  // the row loop for calls of few rows
+    // Set by group_steps: this dense step and the group - 1 after it have the
+    // same shape and read nothing the others write; calls of few rows (and
+    // layers of fewer than thin_columns outputs) run them in one dense_group.
+    std::size_t group = 1;
 };
+
+// Most dense steps group_steps puts in one group.
+inline constexpr std::size_t most_grouped = 8;
 
 struct column_info {
     std::string name;
@@ -452,6 +459,35 @@ std::vector<program_step> interleave_members(std::vector<program_step> steps, co
     return lockstep;
 }
 
+// Groups runs of dense steps of the same inputs and outputs where no step
+// reads or overwrites a buffer an earlier one of the run writes or reads,
+// such as one layer of every member of a seed ensemble after
+// interleave_members: dense_group (core/small_dense.hpp) computes them side
+// by side, each value as it would be computed alone.
+inline void group_steps(std::vector<program_step>& steps) {
+    for (std::size_t i = 0; i < steps.size();) {
+        program_step& s = steps[i];
+        std::size_t g = 1;
+        while (s.kind == step_kind::dense && i + g < steps.size() && g < most_grouped) {
+            const program_step& next = steps[i + g];
+            if (next.kind != step_kind::dense || next.inputs != s.inputs || next.outputs != s.outputs) break;
+            bool independent = true;
+            for (std::size_t e = i; e < i + g; ++e) {
+                const program_step& earlier = steps[e];
+                const auto touches = [&](std::size_t b) {
+                    return b == earlier.out || b == earlier.in || (earlier.has_addend && b == earlier.addend);
+                };
+                if (next.in == earlier.out || (next.has_addend && next.addend == earlier.out) || touches(next.out)) independent = false;
+            }
+            if (!independent) break;
+            ++g;
+        }
+        s.group = g;
+        if (g > 1) s.version = best_group_version();
+        i += g;
+    }
+}
+
 // The specialisation pass, run once when a model is compiled: each dense
 // step takes the relu step and then the sum step (a linear bypass's
 // f(x) + x W) that directly follow it and read only its result, so the
@@ -500,6 +536,7 @@ void specialise_steps(compiled_model<T>& m) {
         steps.push_back(s);
     }
     m.steps = interleave_members(std::move(steps), m);
+    group_steps(m.steps);
 }
 
 inline bool parse_for_kind(const column_info& c, std::string_view cell, double& value) noexcept {
@@ -891,17 +928,44 @@ private:
         const detail::denormal_guard guard;
         const model_type& m = *model_;
         const T* store = m.store.data();
-        for (const auto& s : m.steps) {
+        const auto finish_of = [&](const detail::program_step& s) noexcept {
+            return detail::dense_finish<T>{s.has_bias ? store + s.b : nullptr, s.relu_after, s.has_addend ? buffers_[s.addend].data() : nullptr};
+        };
+        for (std::size_t step = 0; step < m.steps.size(); ++step) {
+            const detail::program_step& s = m.steps[step];
             const T* x = buffers_[s.in].data();
             T* y = buffers_[s.out].data();
             const std::size_t w = s.outputs, size = rows * w;
             switch (s.kind) {
                 case detail::step_kind::dense: {
-                    // The sum, bias, flush, fused relu and fused sum in one pass (specialise_steps).
-                    const detail::dense_finish<T> finish{s.has_bias ? store + s.b : nullptr, s.relu_after,
-                                                         s.has_addend ? buffers_[s.addend].data() : nullptr};
-                    if (rows < detail::always_thin_rows<T>) detail::small_dense<T>(rows, s.inputs, w, x, store + s.a, store + s.t, finish, y, s.version);
-                    else detail::dense_rows<T>(rows, s.inputs, w, x, store + s.a, store + s.t, finish, y);
+                    // The sum, bias, flush, fused relu and fused sum in one pass
+                    // (specialise_steps), for the steps of its group at once
+                    // where gemm would take the unpacked loops.
+                    if (s.group == 1 && rows < detail::always_thin_rows<T>) {
+                        detail::small_dense<T>(rows, s.inputs, w, x, store + s.a, store + s.t, finish_of(s), y, s.version);
+                    } else if (rows < detail::always_thin_rows<T> || w < detail::thin_columns<T>) {
+                        const T* xs[detail::most_grouped];
+                        const T* ws[detail::most_grouped];
+                        const T* wts[detail::most_grouped];
+                        const T* biases[detail::most_grouped];
+                        bool relus[detail::most_grouped];
+                        const T* addends[detail::most_grouped];
+                        T* ys[detail::most_grouped];
+                        for (std::size_t g = 0; g < s.group; ++g) {
+                            const detail::program_step& t = m.steps[step + g];
+                            xs[g] = buffers_[t.in].data();
+                            ws[g] = store + t.a;
+                            wts[g] = store + t.t;
+                            biases[g] = t.has_bias ? store + t.b : nullptr;
+                            relus[g] = t.relu_after;
+                            addends[g] = t.has_addend ? buffers_[t.addend].data() : nullptr;
+                            ys[g] = buffers_[t.out].data();
+                        }
+                        detail::dense_group<T>(rows, s.group, {xs, ws, wts, biases, relus, addends, ys}, s.inputs, w, s.version);
+                        step += s.group - 1;
+                    } else {
+                        detail::dense_rows<T>(rows, s.inputs, w, x, store + s.a, store + s.t, finish_of(s), y);
+                    }
                     continue;  // flushed already
                 }
                 case detail::step_kind::activate: activate_values(s, x, y, rows); break;
