@@ -52,22 +52,29 @@ BENCHMARK(tape_forward_backward);
 void reference_forward_backward(benchmark::State& state) {
     fixture f;
     using tenon::gemm;
-    std::vector<float> h1(batch * n_hidden), h2(batch * n_hidden), logits(batch * n_out), g3(batch * n_out),
-        g2(batch * n_hidden), g1(batch * n_hidden), gw1(n_in * n_hidden), gw2(n_hidden * n_hidden), gw3(n_hidden * n_out);
+    std::vector<float> h1(batch * n_hidden), h2(batch * n_hidden), logits(batch * n_out), g3(batch * n_out), g2(batch * n_hidden),
+        g1(batch * n_hidden), gw1(n_in * n_hidden), gw2(n_hidden * n_hidden), gw3(n_hidden * n_out);
     for (auto _ : state) {
         gemm<float>(false, false, batch, n_hidden, n_in, 1, f.x.data(), n_in, f.w1.value().data(), n_hidden, 0, h1.data(), n_hidden);
         for (std::size_t i = 0; i < batch; ++i)
-            for (std::size_t j = 0; j < n_hidden; ++j) { float& v = h1[i * n_hidden + j]; v += f.b1.value().data()[j]; v = v > 0 ? v : 0; }
+            for (std::size_t j = 0; j < n_hidden; ++j) {
+                float& v = h1[i * n_hidden + j];
+                v += f.b1.value().data()[j];
+                v = v > 0 ? v : 0;
+            }
         gemm<float>(false, false, batch, n_hidden, n_hidden, 1, h1.data(), n_hidden, f.w2.value().data(), n_hidden, 0, h2.data(), n_hidden);
         for (std::size_t i = 0; i < batch; ++i)
-            for (std::size_t j = 0; j < n_hidden; ++j) { float& v = h2[i * n_hidden + j]; v += f.b2.value().data()[j]; v = v > 0 ? v : 0; }
+            for (std::size_t j = 0; j < n_hidden; ++j) {
+                float& v = h2[i * n_hidden + j];
+                v += f.b2.value().data()[j];
+                v = v > 0 ? v : 0;
+            }
         gemm<float>(false, false, batch, n_out, n_hidden, 1, h2.data(), n_hidden, f.w3.value().data(), n_out, 0, logits.data(), n_out);
         for (std::size_t i = 0; i < batch; ++i) {
             float m = logits[i * n_out], s = 0;
             for (std::size_t j = 1; j < n_out; ++j) m = std::max(m, logits[i * n_out + j]);
             for (std::size_t j = 0; j < n_out; ++j) s += std::exp(logits[i * n_out + j] - m);
-            for (std::size_t j = 0; j < n_out; ++j)
-                g3[i * n_out + j] = (std::exp(logits[i * n_out + j] - m) / s - f.targets(i, j)) / float(batch);
+            for (std::size_t j = 0; j < n_out; ++j) g3[i * n_out + j] = (std::exp(logits[i * n_out + j] - m) / s - f.targets(i, j)) / float(batch);
         }
         gemm<float>(true, false, n_hidden, n_out, batch, 1, h2.data(), n_hidden, g3.data(), n_out, 0, gw3.data(), n_out);
         gemm<float>(false, true, batch, n_hidden, n_out, 1, g3.data(), n_out, f.w3.value().data(), n_out, 0, g2.data(), n_hidden);
@@ -94,8 +101,7 @@ public:
     }
     void Finalize() override {
         ConsoleReporter::Finalize();
-        if (tape_ns_ > 0 && reference_ns_ > 0)
-            std::printf("ratio tape / hand-written reference: %.2f\n", tape_ns_ / reference_ns_);
+        if (tape_ns_ > 0 && reference_ns_ > 0) std::printf("ratio tape / hand-written reference: %.2f\n", tape_ns_ / reference_ns_);
     }
 
 private:

@@ -81,8 +81,7 @@ struct bench_model {
         return r;
     }
     explicit bench_model(bool single = false)
-        : t(make_table()),
-          fitted([&] {
+        : t(make_table()), fitted([&] {
               tenon::plan p;
               p.set_target("force", tenon::target_kind::regression);
               return tenon::fit_model<float>(t, p, rows(0, 1600), rows(1600, 2000), settings(single));
@@ -120,8 +119,10 @@ struct hand_model {
             h.outputs = d->outputs();
             n.layers.push_back(h);
         } else if (auto* a = dynamic_cast<tenon::activation_layer<float>*>(&l)) {
-            if (a->function() == tenon::activation::relu) n.layers.back().relu = true;
-            else if (a->function() != tenon::activation::identity) throw std::runtime_error("hand loop: only relu activations");
+            if (a->function() == tenon::activation::relu)
+                n.layers.back().relu = true;
+            else if (a->function() != tenon::activation::identity)
+                throw std::runtime_error("hand loop: only relu activations");
         } else if (auto* b = dynamic_cast<tenon::linear_bypass<float>*>(&l)) {
             n.bypass = b->linear_weights().value().data();
             for (std::size_t i = 0; i < b->layer_count(); ++i) walk(b->layer_at(i), n);
@@ -466,8 +467,9 @@ int main(int argc, char** argv) {
     const char* smoke = std::getenv("TENON_BENCH_SMOKE");
     const double seconds = smoke != nullptr && *smoke != '\0' && std::string(smoke) != "0" ? 0.05 : 1.0;
     const double one = throughput(1, seconds), two = throughput(2, seconds);
-    std::printf("throughput, one prepared row per call: 1 thread %.0f calls/s, 2 threads %.0f calls/s, ratio %.2f (ideal 2.00; %u hardware threads)\n",
-                one, two, two / one, std::thread::hardware_concurrency());
+    std::printf(
+        "throughput, one prepared row per call: 1 thread %.0f calls/s, 2 threads %.0f calls/s, ratio %.2f (ideal 2.00; %u hardware threads)\n", one,
+        two, two / one, std::thread::hardware_concurrency());
     std::printf("model file: %zu bytes\n", tenon::model_file_to_bytes(model().file).size());
     // Interleaved rounds, so a slower spell of the machine hits both alike.
     tenon::predictor<float> plain(model().file, 64), banded(calibrated_file(), 64);

@@ -110,8 +110,8 @@ const task_data& data(bool classify) {
 // fit_model's default network for the task (model_settings' defaults).
 tenon::network<float> default_network(bool classify, std::uint64_t seed) {
     return tenon::make_mlp<float>({inputs, 64, 32, classify ? classes : 1}, tenon::activation::relu,
-                                  tenon::initializer{tenon::init_scheme::he, tenon::init_distribution::uniform}, seed,
-                                  tenon::activation::identity, /*linear_path=*/!classify);
+                                  tenon::initializer{tenon::init_scheme::he, tenon::init_distribution::uniform}, seed, tenon::activation::identity,
+                                  /*linear_path=*/!classify);
 }
 
 // The logistic baseline's network: inputs straight to the class scores.
@@ -223,10 +223,13 @@ void ensemble_epoch(benchmark::State& state) {
             for (std::size_t k = 0; k < members; ++k) train_run(nets[k], d, 1 + k);
             return;
         }
-        pool.run(members, [](void* p, std::size_t k) {
-            auto* ctx = static_cast<context*>(p);
-            train_run((*ctx->nets)[k], *ctx->d, 1 + k);
-        }, &c);
+        pool.run(
+            members,
+            [](void* p, std::size_t k) {
+                auto* ctx = static_cast<context*>(p);
+                train_run((*ctx->nets)[k], *ctx->d, 1 + k);
+            },
+            &c);
     };
     all_members();  // warm up
     paired(state, classify, threads == 1, [&] { return seconds_of(all_members, threads == 1) / epochs_per_run; });
@@ -238,13 +241,13 @@ void ridge_baseline_fit(benchmark::State& state) {
         // One fit takes well under a millisecond: the mean of 20.
         return seconds_of(
                    [&] {
-                   for (int i = 0; i < 20; ++i) {
-                       const tenon::linear_fit f = tenon::fit_least_squares(d.train.features, d.train.targets);
-                       benchmark::DoNotOptimize(f.intercept.data());
-                   }
-               },
+                       for (int i = 0; i < 20; ++i) {
+                           const tenon::linear_fit f = tenon::fit_least_squares(d.train.features, d.train.targets);
+                           benchmark::DoNotOptimize(f.intercept.data());
+                       }
+                   },
                    true) /
-               20.0;
+            20.0;
     });
 }
 
@@ -277,8 +280,10 @@ public:
                         counters_[("one_network_epoch/" + t) + "#ms"]);
             line("ensemble of 5, one after the other, 1 thread", "ensemble_epoch/" + t + "/threads:1", "[ideal 5.00]");
             line("ensemble of 5, side by side, 2 threads", "ensemble_epoch/" + t + "/threads:2", "[ideal 3.00 with 2 free cores: 3 rounds]");
-            if (task == 0) line("ridge baseline, the whole fit (no epochs)", "ridge_baseline_fit/", "");
-            else line("logistic baseline, one epoch", "logistic_baseline_epoch/", "");
+            if (task == 0)
+                line("ridge baseline, the whole fit (no epochs)", "ridge_baseline_fit/", "");
+            else
+                line("logistic baseline, one epoch", "logistic_baseline_epoch/", "");
         }
     }
 

@@ -33,15 +33,8 @@ struct operands {
     std::size_t lda, ldb;
 
     explicit operands(const benchmark::State& state)
-        : m(static_cast<std::size_t>(state.range(1))),
-          n(static_cast<std::size_t>(state.range(2))),
-          k(static_cast<std::size_t>(state.range(3))),
-          transpose_a((state.range(0) & 1) != 0),
-          transpose_b((state.range(0) & 2) != 0),
-          a(m * k),
-          b(k * n),
-          c(m * n),
-          lda(transpose_a ? m : k),
+        : m(static_cast<std::size_t>(state.range(1))), n(static_cast<std::size_t>(state.range(2))), k(static_cast<std::size_t>(state.range(3))),
+          transpose_a((state.range(0) & 1) != 0), transpose_b((state.range(0) & 2) != 0), a(m * k), b(k * n), c(m * n), lda(transpose_a ? m : k),
           ldb(transpose_b ? k : n) {
         tenon::random_engine rng(5);
         for (auto& v : a) v = rng.normal(0.0f, 1.0f);
@@ -66,8 +59,7 @@ void naive_triple_loop(const operands& o, float* c) {
 void tenon_gemm(benchmark::State& state) {
     operands o(state);
     for (auto _ : state) {
-        tenon::gemm<float>(o.transpose_a, o.transpose_b, o.m, o.n, o.k, 1.0f, o.a.data(), o.lda, o.b.data(), o.ldb, 0.0f,
-                           o.c.data(), o.n);
+        tenon::gemm<float>(o.transpose_a, o.transpose_b, o.m, o.n, o.k, 1.0f, o.a.data(), o.lda, o.b.data(), o.ldb, 0.0f, o.c.data(), o.n);
         benchmark::DoNotOptimize(o.c.data());
         benchmark::ClobberMemory();
     }

@@ -97,9 +97,7 @@ tenon::thread_pool& pool(std::size_t threads) {
 }
 
 // 0 = the best built-in path, 1 = the BLAS backend.
-tenon::kernel_path path_of(std::int64_t arg) {
-    return arg == 0 ? tenon::best_builtin_kernel_path() : tenon::kernel_path::blas;
-}
+tenon::kernel_path path_of(std::int64_t arg) { return arg == 0 ? tenon::best_builtin_kernel_path() : tenon::kernel_path::blas; }
 
 // One matrix product of the 784-256-128-10 step at batch 128.
 struct product {
@@ -109,17 +107,15 @@ struct product {
 };
 constexpr int batch = 128;
 const product step_products[8] = {
-    {false, false, batch, 256, 784, "forward 1"},  {false, false, batch, 128, 256, "forward 2"},
-    {false, false, batch, 10, 128, "forward 3"},   {true, false, 784, 256, batch, "weights 1"},
-    {true, false, 256, 128, batch, "weights 2"},   {true, false, 128, 10, batch, "weights 3"},
-    {false, true, batch, 256, 128, "inputs 2"},    {false, true, batch, 128, 10, "inputs 3"},
+    {false, false, batch, 256, 784, "forward 1"}, {false, false, batch, 128, 256, "forward 2"}, {false, false, batch, 10, 128, "forward 3"},
+    {true, false, 784, 256, batch, "weights 1"},  {true, false, 256, 128, batch, "weights 2"},  {true, false, 128, 10, batch, "weights 3"},
+    {false, true, batch, 256, 128, "inputs 2"},   {false, true, batch, 128, 10, "inputs 3"},
 };
 
 struct product_buffers {
     std::vector<float> a, b, c;
     explicit product_buffers(const product& p)
-        : a(static_cast<std::size_t>(p.m) * static_cast<std::size_t>(p.k)),
-          b(static_cast<std::size_t>(p.k) * static_cast<std::size_t>(p.n)),
+        : a(static_cast<std::size_t>(p.m) * static_cast<std::size_t>(p.k)), b(static_cast<std::size_t>(p.k) * static_cast<std::size_t>(p.n)),
           c(static_cast<std::size_t>(p.m) * static_cast<std::size_t>(p.n)) {
         tenon::random_engine rng(5);
         for (auto& v : a) v = rng.normal(0.0f, 1.0f);
@@ -138,14 +134,14 @@ std::vector<product_buffers>& buffers() {
 
 void openblas_product(const product& p, product_buffers& x, float beta) {
     const int lda = p.transpose_a ? p.m : p.k, ldb = p.transpose_b ? p.k : p.n;
-    cblas_sgemm(CblasRowMajor, p.transpose_a ? CblasTrans : CblasNoTrans, p.transpose_b ? CblasTrans : CblasNoTrans, p.m, p.n,
-                p.k, 1.0f, x.a.data(), lda, x.b.data(), ldb, beta, x.c.data(), p.n);
+    cblas_sgemm(CblasRowMajor, p.transpose_a ? CblasTrans : CblasNoTrans, p.transpose_b ? CblasTrans : CblasNoTrans, p.m, p.n, p.k, 1.0f, x.a.data(),
+                lda, x.b.data(), ldb, beta, x.c.data(), p.n);
 }
 
 void tenon_product(const product& p, product_buffers& x, float beta, tenon::executor* workers) {
     const std::size_t m = static_cast<std::size_t>(p.m), n = static_cast<std::size_t>(p.n), k = static_cast<std::size_t>(p.k);
-    tenon::gemm<float>(p.transpose_a, p.transpose_b, m, n, k, 1.0f, x.a.data(), p.transpose_a ? m : k, x.b.data(),
-                       p.transpose_b ? k : n, beta, x.c.data(), n, workers);
+    tenon::gemm<float>(p.transpose_a, p.transpose_b, m, n, k, 1.0f, x.a.data(), p.transpose_a ? m : k, x.b.data(), p.transpose_b ? k : n, beta,
+                       x.c.data(), n, workers);
 }
 
 double flops_of(int first, int last) {
@@ -306,8 +302,8 @@ double products_epoch_seconds(int threads) {
     float* acts[4] = {x.data(), h1.data(), h2.data(), out.data()};
     auto run_forward = [&](int rows) {
         for (int l = 0; l < 3; ++l)
-            cblas_sgemm(CblasRowMajor, CblasNoTrans, CblasNoTrans, rows, widths[l + 1], widths[l], 1.0f, acts[l], widths[l],
-                        w[l].data(), widths[l + 1], 0.0f, acts[l + 1], widths[l + 1]);
+            cblas_sgemm(CblasRowMajor, CblasNoTrans, CblasNoTrans, rows, widths[l + 1], widths[l], 1.0f, acts[l], widths[l], w[l].data(),
+                        widths[l + 1], 0.0f, acts[l + 1], widths[l + 1]);
     };
     const auto t0 = std::chrono::steady_clock::now();
     for (std::size_t first = 0; first < train_rows; first += batch) {
@@ -315,14 +311,15 @@ double products_epoch_seconds(int threads) {
         run_forward(rows);
         for (int l = 2; l >= 0; --l) {
             // weight gradient X_l^T G_l, then (below the top layer) the input gradient G_l W_l^T
-            cblas_sgemm(CblasRowMajor, CblasTrans, CblasNoTrans, widths[l], widths[l + 1], rows, 1.0f, acts[l], widths[l], g.data(),
-                        widths[l + 1], 1.0f, dw[l].data(), widths[l + 1]);
+            cblas_sgemm(CblasRowMajor, CblasTrans, CblasNoTrans, widths[l], widths[l + 1], rows, 1.0f, acts[l], widths[l], g.data(), widths[l + 1],
+                        1.0f, dw[l].data(), widths[l + 1]);
             if (l > 0)
-                cblas_sgemm(CblasRowMajor, CblasNoTrans, CblasTrans, rows, widths[l], widths[l + 1], 1.0f, g.data(), widths[l + 1],
-                            w[l].data(), widths[l + 1], 1.0f, acts[l], widths[l]);
+                cblas_sgemm(CblasRowMajor, CblasNoTrans, CblasTrans, rows, widths[l], widths[l + 1], 1.0f, g.data(), widths[l + 1], w[l].data(),
+                            widths[l + 1], 1.0f, acts[l], widths[l]);
         }
     }
-    for (std::size_t first = 0; first < validation_rows; first += 512) run_forward(static_cast<int>(std::min<std::size_t>(512, validation_rows - first)));
+    for (std::size_t first = 0; first < validation_rows; first += 512)
+        run_forward(static_cast<int>(std::min<std::size_t>(512, validation_rows - first)));
     benchmark::ClobberMemory();
     const double seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
     openblas_set_num_threads(1);
@@ -452,9 +449,12 @@ void cli_train_epoch(benchmark::State& state) {
     use_threads(state.range(0));
     const std::string metrics = (std::filesystem::temp_directory_path() / "tenon_bench_fashion_metrics.json").string();
     const std::string threads = std::to_string(state.range(1));
-    std::vector<std::string> args = {"tenon", "train", "--data", fashion_csv(), "--target", "label", "--hidden", "256,128",
-                                     "--batch", "128", "--epochs", "3", "--patience", "0", "--fractions", "0.7714285714285714,0.0857142857142857,0.1428571428571429",
-                                     "--learning-rate", "0.001", "--threads", threads, "--metrics", metrics};
+    std::vector<std::string> args = {"tenon",           "train", "--data",      fashion_csv(),
+                                     "--target",        "label", "--hidden",    "256,128",
+                                     "--batch",         "128",   "--epochs",    "3",
+                                     "--patience",      "0",     "--fractions", "0.7714285714285714,0.0857142857142857,0.1428571428571429",
+                                     "--learning-rate", "0.001", "--threads",   threads,
+                                     "--metrics",       metrics};
     std::vector<char*> argv;
     for (auto& a : args) argv.push_back(a.data());
     paired_times pairs;
@@ -476,7 +476,12 @@ void cli_train_epoch(benchmark::State& state) {
     openblas_set_num_threads(1);
     state.SetLabel(tenon::kernel_path_name(tenon::active_kernel_path()));
 }
-BENCHMARK(cli_train_epoch)->ArgNames({"path", "threads"})->ArgsProduct({{0, 1}, {1, 2}})->Iterations(3)->UseManualTime()->Unit(benchmark::kMillisecond);
+BENCHMARK(cli_train_epoch)
+    ->ArgNames({"path", "threads"})
+    ->ArgsProduct({{0, 1}, {1, 2}})
+    ->Iterations(3)
+    ->UseManualTime()
+    ->Unit(benchmark::kMillisecond);
 
 // ---------------------------------------------------------------------------
 // Single-row prediction with an 8-32-32-1 network (an invented press line:
@@ -667,18 +672,17 @@ public:
                         "(clock cost %.0f ns subtracted)\n",
                         latency()["p50"], latency()["p99"], latency()["p99"] / latency()["p50"], latency()["max"], latency()["clock"]);
         }
-        ratio("z-score in place, bandwidth / an in-place pass's bandwidth", get("z_score_in_place_reference/"), get("z_score_in_place/"),
-              "[>= 0.5]");
+        ratio("z-score in place, bandwidth / an in-place pass's bandwidth", get("z_score_in_place_reference/"), get("z_score_in_place/"), "[>= 0.5]");
         write_summary();
     }
 
 private:
     static double unit_per_second(benchmark::TimeUnit u) {
         switch (u) {
-            case benchmark::kNanosecond: return 1e9;
-            case benchmark::kMicrosecond: return 1e6;
-            case benchmark::kMillisecond: return 1e3;
-            default: return 1.0;
+        case benchmark::kNanosecond: return 1e9;
+        case benchmark::kMicrosecond: return 1e6;
+        case benchmark::kMillisecond: return 1e3;
+        default: return 1.0;
         }
     }
     double get(const std::string& key) const {
@@ -729,8 +733,7 @@ private:
         for (std::size_t i = 0; i < entries_.size(); ++i) {
             std::snprintf(number, sizeof number, "%.6g", entries_[i].value);
             out << (i ? ",\n" : "\n") << "    {\"what\": " << quoted(entries_[i].what) << ", \"threads\": " << entries_[i].threads
-                << ", \"value\": " << number
-                << ", \"target\": " << quoted(entries_[i].target) << "}";
+                << ", \"value\": " << number << ", \"target\": " << quoted(entries_[i].target) << "}";
         }
         out << "\n  ]\n}\n";
         if (!out) std::fprintf(stderr, "could not write the summary to %s\n", summary_out_.c_str());
@@ -800,8 +803,7 @@ int main(int argc, char** argv) {
     std::printf("== tenon performance benchmark\n");
     std::printf("CPU:             %s (%u hardware threads)\n", cpu_name().c_str(), std::thread::hardware_concurrency());
     std::printf("compiler:        %s, flags: %s\n", __VERSION__, TENON_BENCH_FLAGS);
-    std::printf("kernel paths:    built-in %s (avx512 %s, avx2 %s), BLAS backend %s\n",
-                tenon::kernel_path_name(tenon::best_builtin_kernel_path()),
+    std::printf("kernel paths:    built-in %s (avx512 %s, avx2 %s), BLAS backend %s\n", tenon::kernel_path_name(tenon::best_builtin_kernel_path()),
                 tenon::kernel_path_available(tenon::kernel_path::avx512) ? "yes" : "no",
                 tenon::kernel_path_available(tenon::kernel_path::avx2) ? "yes" : "no",
                 tenon::kernel_path_available(tenon::kernel_path::blas) ? "yes" : "no");
@@ -811,8 +813,7 @@ int main(int argc, char** argv) {
     }
     std::printf("threads:         each benchmark names its thread count; tenon's pool and the OpenBLAS references use that\n"
                 "                 count (with the BLAS backend, tenon splits the products and OpenBLAS runs each band on one thread)\n");
-    std::printf("second thread:   two threads' compute / one thread's, at the start: %.2f (see the summary)\n\n",
-                two_thread_compute_scaling());
+    std::printf("second thread:   two threads' compute / one thread's, at the start: %.2f (see the summary)\n\n", two_thread_compute_scaling());
     if (smoke()) std::printf("smoke run:       TENON_BENCH_SMOKE is set: small data, the numbers mean nothing\n");
     summary_reporter reporter(summary_out);
     benchmark::RunSpecifiedBenchmarks(&reporter);

@@ -41,12 +41,11 @@ const std::string& csv_path() {
         char line[512];
         const std::size_t size = smoke() ? 1000u * 1000u : 100u * 1000u * 1000u;
         while (written < size) {
-            int n = std::snprintf(line, sizeof(line), "%.6f,%.6f,%.3f,%.3f,%.9g,%.9g,%d,%d,%s,2024-%02d-%02dT%02d:%02d:00Z\n",
-                                  rng.normal(0.0, 1.0), rng.normal(100.0, 5.0), rng.uniform(0.0, 1000.0),
-                                  rng.uniform(-1.0, 1.0), 1e9 + rng.uniform(0.0, 1.0), rng.normal(0.0, 1e-3),
-                                  static_cast<int>(rng.below(1000)), static_cast<int>(rng.below(7)),
-                                  stations[rng.below(4)], static_cast<int>(1 + rng.below(12)), static_cast<int>(1 + rng.below(28)),
-                                  static_cast<int>(rng.below(24)), static_cast<int>(rng.below(60)));
+            int n = std::snprintf(line, sizeof(line), "%.6f,%.6f,%.3f,%.3f,%.9g,%.9g,%d,%d,%s,2024-%02d-%02dT%02d:%02d:00Z\n", rng.normal(0.0, 1.0),
+                                  rng.normal(100.0, 5.0), rng.uniform(0.0, 1000.0), rng.uniform(-1.0, 1.0), 1e9 + rng.uniform(0.0, 1.0),
+                                  rng.normal(0.0, 1e-3), static_cast<int>(rng.below(1000)), static_cast<int>(rng.below(7)), stations[rng.below(4)],
+                                  static_cast<int>(1 + rng.below(12)), static_cast<int>(1 + rng.below(28)), static_cast<int>(rng.below(24)),
+                                  static_cast<int>(rng.below(60)));
             out.write(line, n);
             written += static_cast<std::size_t>(n);
         }
@@ -145,8 +144,7 @@ public:
     }
     void Finalize() override {
         ConsoleReporter::Finalize();
-        if (csv_ns_ > 0 && csv_ref_ns_ > 0)
-            std::printf("ratio CSV read / memcpy of the same bytes: %.1f\n", csv_ns_ / csv_ref_ns_);
+        if (csv_ns_ > 0 && csv_ref_ns_ > 0) std::printf("ratio CSV read / memcpy of the same bytes: %.1f\n", csv_ns_ / csv_ref_ns_);
         if (z_ns_ > 0 && z_ref_ns_ > 0)
             std::printf("ratio z-score %zu x 32 floats in place / an in-place pass over the same buffer: %.2f\n", fixture().x.shape()[0],
                         z_ns_ / z_ref_ns_);

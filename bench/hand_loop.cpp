@@ -28,8 +28,7 @@ float one_row(const network* nets, std::size_t count, const units& u, const floa
     float member[64];
     for (std::size_t m = 0; m < count; ++m) {
         const network& n = nets[m];
-        if (n.layers.size() != 3 || n.layers[0].inputs != 8 || n.layers[0].outputs != 32 || n.layers[1].outputs != 32 ||
-            n.layers[2].outputs != 1)
+        if (n.layers.size() != 3 || n.layers[0].inputs != 8 || n.layers[0].outputs != 32 || n.layers[1].outputs != 32 || n.layers[2].outputs != 1)
             throw std::runtime_error("hand loop: the network is not 8-32-32-1");
         float* h1 = scratch;
         float* h2 = scratch + 32;

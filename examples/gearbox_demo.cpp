@@ -34,33 +34,33 @@ const char* const models[] = {"GB-200", "GB-350", "GB-500"};
 std::string reading(tenon::random_engine& rng, std::size_t condition) {
     const std::size_t model = static_cast<std::size_t>(rng.below(3));
     const double size = 1.0 + 0.35 * static_cast<double>(model);  // bigger boxes vibrate a little more
-    const double load = rng.uniform(30.0, 100.0);                 // percent of rated torque
-    const double speed = rng.uniform(900.0, 1800.0);              // rpm at the input shaft
+    const double load = rng.uniform(30.0, 100.0);  // percent of rated torque
+    const double speed = rng.uniform(900.0, 1800.0);  // rpm at the input shaft
     double peak_1x = size * (0.6 + 0.012 * load) * rng.uniform(0.8, 1.2);
     double peak_2x = 0.35 * peak_1x * rng.uniform(0.7, 1.3);
     double kurtosis = rng.normal(3.0, 0.35);
     double oil = 38.0 + 0.28 * load + rng.normal(0.0, 2.5);
     double particles = std::exp(rng.normal(std::log(180.0), 0.35));
     switch (condition) {
-        case 1:  // misalignment: 2x grows beyond 1x, more so under load
-            peak_2x = peak_1x * rng.uniform(0.35, 1.1) * (0.6 + 0.005 * load);
-            break;
-        case 2:  // bearing wear: impacts raise the envelope kurtosis, speed makes them sharper
-            kurtosis += rng.uniform(0.2, 2.0) * (0.4 + speed / 3000.0);
-            particles *= rng.uniform(1.2, 2.2);
-            break;
-        case 3:  // lubrication loss: hotter than the load explains, more wear metal
-            oil += rng.uniform(2.0, 14.0);
-            particles *= rng.uniform(1.2, 3.0);
-            break;
-        default: break;
+    case 1:  // misalignment: 2x grows beyond 1x, more so under load
+        peak_2x = peak_1x * rng.uniform(0.35, 1.1) * (0.6 + 0.005 * load);
+        break;
+    case 2:  // bearing wear: impacts raise the envelope kurtosis, speed makes them sharper
+        kurtosis += rng.uniform(0.2, 2.0) * (0.4 + speed / 3000.0);
+        particles *= rng.uniform(1.2, 2.2);
+        break;
+    case 3:  // lubrication loss: hotter than the load explains, more wear metal
+        oil += rng.uniform(2.0, 14.0);
+        particles *= rng.uniform(1.2, 3.0);
+        break;
+    default: break;
     }
     const double rms = std::sqrt(peak_1x * peak_1x + peak_2x * peak_2x + 0.08 * kurtosis * kurtosis) * rng.uniform(0.95, 1.05);
     char line[256];
     char particle_cell[32] = "";
     if (rng.uniform01() >= 0.06) std::snprintf(particle_cell, sizeof particle_cell, "%.0f", particles);
-    std::snprintf(line, sizeof line, "%s,%.1f,%.0f,%.3f,%.3f,%.3f,%.2f,%.1f,%s,%s\n", models[model], load, speed, rms, peak_1x, peak_2x,
-                  kurtosis, oil, particle_cell, conditions[condition]);
+    std::snprintf(line, sizeof line, "%s,%.1f,%.0f,%.3f,%.3f,%.3f,%.2f,%.1f,%s,%s\n", models[model], load, speed, rms, peak_1x, peak_2x, kurtosis,
+                  oil, particle_cell, conditions[condition]);
     return line;
 }
 
@@ -111,8 +111,8 @@ int main(int argc, char** argv) {
         settings.seed = 7;
         settings.on_epoch = [epochs = settings.epochs](const tenon::epoch_summary& e) {
             if (e.epoch == 1 || e.epoch % 10 == 0)
-                std::printf("  epoch %3zu of %zu | training loss %.4f | validation loss %.4f | validation accuracy %.3f\n", e.epoch,
-                            epochs, e.training_loss, e.validation_loss, e.validation_metric);
+                std::printf("  epoch %3zu of %zu | training loss %.4f | validation loss %.4f | validation accuracy %.3f\n", e.epoch, epochs,
+                            e.training_loss, e.validation_loss, e.validation_metric);
             return true;
         };
         auto model = tenon::fit_model<float>(log, preparation, split.train, split.validation, settings);
@@ -146,9 +146,8 @@ int main(int argc, char** argv) {
         // 6. A new reading as it arrives from the plant: raw cells by column
         // name, the particle sensor offline (empty cell).
         const std::vector<std::pair<std::string, std::string>> new_reading = {
-            {"gearbox_model", "GB-350"}, {"load_percent", "82"},      {"speed_rpm", "1450"},
-            {"vibration_rms", "2.8"},    {"peak_1x", "2.2"},          {"peak_2x", "1.5"},
-            {"envelope_kurtosis", "3.1"}, {"oil_temp_c", "62.5"},     {"particle_count", ""}};
+            {"gearbox_model", "GB-350"}, {"load_percent", "82"},       {"speed_rpm", "1450"},  {"vibration_rms", "2.8"}, {"peak_1x", "2.2"},
+            {"peak_2x", "1.5"},          {"envelope_kurtosis", "3.1"}, {"oil_temp_c", "62.5"}, {"particle_count", ""}};
         tenon::matrix<float> features({1, model.plan.feature_count()});
         model.plan.apply_named(new_reading, features.data());
         const tenon::matrix<float> probabilities = tenon::predict_prepared(model, features);

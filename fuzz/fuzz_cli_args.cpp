@@ -50,8 +50,8 @@ struct sandbox {
         const char* conditions[] = {"ok", "worn", "cavitating"};
         for (int i = 0; i < 40; ++i) {
             const int flow = 20 + (i * 37) % 100, head = 5 + (i * 13) % 35;
-            csv << flow << "," << head << "," << fluids[i % 3] << ",2024-01-" << (10 + i % 20) << "," << (i % 4) << ","
-                << (flow * head) / 250.0 << "," << conditions[(i / 2) % 3] << "\n";
+            csv << flow << "," << head << "," << fluids[i % 3] << ",2024-01-" << (10 + i % 20) << "," << (i % 4) << "," << (flow * head) / 250.0
+                << "," << conditions[(i / 2) % 3] << "\n";
         }
         data_csv = csv.str();
         std::ifstream fixture(std::string(TENON_SOURCE_DIR) + "/tests/fixtures/deploy/pump_v1_float.tnm", std::ios::binary);
@@ -149,9 +149,8 @@ extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size
     // not written, a retrain that kept the incumbent, drift flagged);
     // exit_unexpected means the tool met something it did not expect, which
     // is a finding, and so is any other number.
-    const bool documented = status == tenon_cli::exit_success || status == tenon_cli::exit_bad_input ||
-                            status == tenon_cli::exit_output_failed || status == tenon_cli::exit_kept_incumbent ||
-                            status == tenon_cli::exit_drift_flagged;
+    const bool documented = status == tenon_cli::exit_success || status == tenon_cli::exit_bad_input || status == tenon_cli::exit_output_failed ||
+        status == tenon_cli::exit_kept_incumbent || status == tenon_cli::exit_drift_flagged;
     if (!documented) {
         std::fprintf(stderr, "run_cli exit status %d: %s\n", status, err.str().c_str());
         std::abort();

@@ -21,7 +21,8 @@ extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size
     tenon::csv_options options;
     const char delimiters[] = {',', ';', '\t', '|'};
     options.delimiter = delimiters[choice & 3u];
-    if (choice & 4u) options.chunk_bytes = 1 + (choice >> 4) * 2;
+    if (choice & 4u)
+        options.chunk_bytes = 1 + (choice >> 4) * 2;
     else if (choice >> 4) {
         options.max_field_bytes = 4u * (choice >> 4);
         options.max_categories = choice >> 4;
@@ -38,14 +39,12 @@ extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size
             for (std::size_t r = 0; r < t.row_count(); ++r) present += col.is_missing(r) ? 0 : 1;
         }
         (void)present;
-    } catch (const tenon::error&) {
-    }
+    } catch (const tenon::error&) {}
     if (choice & 8u) {
         try {
             std::istringstream in(text);
             (void)tenon::summarize_csv(in, options, "fuzz.csv");
-        } catch (const tenon::error&) {
-        }
+        } catch (const tenon::error&) {}
     }
     return 0;
 }

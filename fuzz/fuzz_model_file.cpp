@@ -58,8 +58,7 @@ void load_and_predict(const std::vector<std::uint8_t>& bytes, const tenon::model
             const std::vector<std::string_view> cells(p.input_count(), std::string_view("1"));
             (void)p.try_predict_cells(cells.data(), 1, out);
         }
-    } catch (const tenon::error&) {
-    }
+    } catch (const tenon::error&) {}
 }
 
 void exercise(const std::vector<std::uint8_t>& bytes) {
@@ -68,8 +67,7 @@ void exercise(const std::vector<std::uint8_t>& bytes) {
     limits.max_section_bytes = std::uint64_t(1) << 20;
     try {
         (void)tenon::inspect_model_bytes(bytes, limits, "fuzz.tnm");
-    } catch (const tenon::error&) {
-    }
+    } catch (const tenon::error&) {}
     load_and_predict<float>(bytes, limits);
     load_and_predict<double>(bytes, limits);
 }

@@ -32,13 +32,12 @@ extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size
     if (inputs > 4096 || plan.feature_count() > (std::size_t(1) << 16)) return 0;
     // Exactly feature_count() values: one more would hide an overrun from ASan.
     std::vector<double> out(plan.feature_count());
-    for (const std::string_view cell : {std::string_view("1.5"), std::string_view(""), std::string_view("unseen"),
-                                        std::string_view("2024-01-02T03:04:05")}) {
+    for (const std::string_view cell :
+         {std::string_view("1.5"), std::string_view(""), std::string_view("unseen"), std::string_view("2024-01-02T03:04:05")}) {
         const std::vector<std::string_view> cells(inputs, cell);
         try {
             plan.apply_cells(cells.data(), cells.size(), out.data());
-        } catch (const tenon::error&) {
-        }
+        } catch (const tenon::error&) {}
     }
     return 0;
 }

@@ -33,8 +33,18 @@ void set_le(std::vector<std::uint8_t>& b, std::size_t at, int bytes, std::uint64
 }
 
 void mutate(std::vector<std::uint8_t>& b, tenon::random_engine& rng) {
-    const std::uint64_t boundaries[] = {0, 1, 0x7F, 0x80, 0xFF, 0x7FFF, 0xFFFF, 0x7FFFFFFFu, 0xFFFFFFFFu,
-                                        std::uint64_t(1) << 32, (std::uint64_t(1) << 32) + 1, std::uint64_t(1) << 63,
+    const std::uint64_t boundaries[] = {0,
+                                        1,
+                                        0x7F,
+                                        0x80,
+                                        0xFF,
+                                        0x7FFF,
+                                        0xFFFF,
+                                        0x7FFFFFFFu,
+                                        0xFFFFFFFFu,
+                                        std::uint64_t(1) << 32,
+                                        (std::uint64_t(1) << 32) + 1,
+                                        std::uint64_t(1) << 63,
                                         ~std::uint64_t(0)};
     const std::size_t edits = 1 + static_cast<std::size_t>(rng.below(8));
     for (std::size_t e = 0; e < edits; ++e) {
@@ -55,8 +65,7 @@ void mutate(std::vector<std::uint8_t>& b, tenon::random_engine& rng) {
             b.erase(b.begin() + static_cast<std::ptrdiff_t>(at), b.begin() + static_cast<std::ptrdiff_t>(at + n));
         } else if (!b.empty()) {
             const std::size_t n = std::min<std::size_t>(b.size() - at, 1 + static_cast<std::size_t>(rng.below(64)));
-            const std::vector<std::uint8_t> chunk(b.begin() + static_cast<std::ptrdiff_t>(at),
-                                                  b.begin() + static_cast<std::ptrdiff_t>(at + n));
+            const std::vector<std::uint8_t> chunk(b.begin() + static_cast<std::ptrdiff_t>(at), b.begin() + static_cast<std::ptrdiff_t>(at + n));
             const std::size_t to = static_cast<std::size_t>(rng.below(b.size() + 1));
             b.insert(b.begin() + static_cast<std::ptrdiff_t>(to), chunk.begin(), chunk.end());
         }

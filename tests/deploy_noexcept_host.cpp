@@ -25,9 +25,8 @@ int main(int argc, char** argv) {
     // With --raise: a failure goes to the host's handler, then the process
     // aborts (ctest test tenon_deploy_noexcept_handler reads the line).
     if (argc > 1 && std::string_view(argv[1]) == "--raise") {
-        tenon::set_failure_handler([](const char* code, const char* message) noexcept {
-            std::fprintf(stderr, "host handler saw [%s] %s\n", code, message);
-        });
+        tenon::set_failure_handler(
+            [](const char* code, const char* message) noexcept { std::fprintf(stderr, "host handler saw [%s] %s\n", code, message); });
         tenon::raise(tenon::codes::core_argument_invalid, "a failure asked for\nby the test");
     }
     const std::string path = std::string(TENON_SOURCE_DIR) + "/tests/fixtures/deploy/pump_v1_float.tnm";

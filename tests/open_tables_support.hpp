@@ -69,9 +69,7 @@ struct json_reader {
     std::size_t i = 0;
     std::string where;
 
-    [[noreturn]] void fail(const std::string& what) const {
-        throw std::runtime_error(where + " byte " + std::to_string(i) + ": " + what);
-    }
+    [[noreturn]] void fail(const std::string& what) const { throw std::runtime_error(where + " byte " + std::to_string(i) + ": " + what); }
     void blank() {
         while (i < s.size() && std::isspace(static_cast<unsigned char>(s[i]))) ++i;
     }
@@ -207,9 +205,15 @@ inline tenon::table to_tenon_table(const dataset& d) {
         auto& out = t.add_column(c->name, c->categorical ? tenon::column_kind::categorical : tenon::column_kind::numeric);
         for (std::size_t r = 0; r < d.rows(); ++r) {
             if (c->categorical) {
-                if (c->texts[r].empty()) out.push_missing(); else out.push_category(c->texts[r]);
+                if (c->texts[r].empty())
+                    out.push_missing();
+                else
+                    out.push_category(c->texts[r]);
             } else {
-                if (std::isnan(c->numbers[r])) out.push_missing(); else out.push_number(c->numbers[r]);
+                if (std::isnan(c->numbers[r]))
+                    out.push_missing();
+                else
+                    out.push_number(c->numbers[r]);
             }
         }
     }
@@ -229,8 +233,10 @@ inline void write_csv(const dataset& d, const std::string& path) {
     for (std::size_t r = 0; r < d.rows(); ++r) {
         for (std::size_t k = 0; k < all.size(); ++k) {
             if (k) out << ",";
-            if (all[k]->categorical) out << all[k]->texts[r];
-            else if (!std::isnan(all[k]->numbers[r])) out << all[k]->numbers[r];
+            if (all[k]->categorical)
+                out << all[k]->texts[r];
+            else if (!std::isnan(all[k]->numbers[r]))
+                out << all[k]->numbers[r];
         }
         out << "\n";
     }
@@ -243,7 +249,7 @@ inline void write_csv(const dataset& d, const std::string& path) {
 struct prepared {
     std::size_t rows = 0, width = 0;
     std::vector<double> x;
-    std::vector<double> y;           // regression, z-scored
+    std::vector<double> y;  // regression, z-scored
     std::vector<std::size_t> label;  // classification
 };
 
@@ -252,9 +258,12 @@ struct prepared {
 /// training cell, z-scores (population spread), one-hot over the training
 /// categories (an unseen or missing category is all zeros).
 struct preparation {
-    struct numeric_step { double median = 0, mean = 0, spread = 1; bool indicator = false; };
-    std::vector<numeric_step> numeric;              // per feature (categorical ones unused)
-    std::vector<std::vector<std::string>> levels;   // per feature (numeric ones empty)
+    struct numeric_step {
+        double median = 0, mean = 0, spread = 1;
+        bool indicator = false;
+    };
+    std::vector<numeric_step> numeric;  // per feature (categorical ones unused)
+    std::vector<std::vector<std::string>> levels;  // per feature (numeric ones empty)
     std::vector<std::string> classes;
     double target_mean = 0, target_spread = 1;
 
@@ -463,8 +472,7 @@ struct reference_settings {
 
 class reference_perceptron {
 public:
-    reference_perceptron(std::size_t inputs, std::size_t outputs, bool classify, std::uint64_t seed,
-                         reference_settings s = reference_settings())
+    reference_perceptron(std::size_t inputs, std::size_t outputs, bool classify, std::uint64_t seed, reference_settings s = reference_settings())
         : s_(s), classify_(classify), engine_(seed) {
         sizes_.push_back(inputs);
         sizes_.insert(sizes_.end(), s.hidden.begin(), s.hidden.end());
@@ -617,7 +625,10 @@ private:
             forward(&p.x[r * p.width]);
             // d(loss)/d(output before softmax): p - onehot (cross-entropy), 2 (o - y) (squared error)
             delta = act_.back();
-            if (classify_) delta[p.label[r]] -= 1.0; else delta[0] = 2.0 * (delta[0] - p.y[r]);
+            if (classify_)
+                delta[p.label[r]] -= 1.0;
+            else
+                delta[0] = 2.0 * (delta[0] - p.y[r]);
             for (std::size_t l = layers_.size(); l-- > 0;) {
                 layer& L = layers_[l];
                 const auto& in = act_[l];

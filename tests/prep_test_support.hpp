@@ -25,8 +25,7 @@ std::string error_code_of(F&& f, std::string* message = nullptr) {
 /// A file in the system temp folder, removed when the object goes away.
 struct temp_file {
     std::string path;
-    explicit temp_file(const std::string& name, const std::string& contents = {})
-        : path(std::string(P_tmpdir) + "/tenon_prep_test_" + name) {
+    explicit temp_file(const std::string& name, const std::string& contents = {}) : path(std::string(P_tmpdir) + "/tenon_prep_test_" + name) {
         std::ofstream out(path, std::ios::binary);
         out << contents;
     }

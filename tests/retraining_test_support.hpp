@@ -17,7 +17,7 @@ namespace retrain_test {
 
 struct pump_conditions {
     double flow_low = 20.0, flow_high = 120.0;  // m3/h
-    double head_low = 5.0, head_high = 40.0;    // m
+    double head_low = 5.0, head_high = 40.0;  // m
     double fluid_weights[3] = {1.0, 1.0, 1.0};  // water, glycol, brine
 };
 

@@ -313,9 +313,8 @@ TEST_CASE_TEMPLATE("values from a cleared or another tape are refused", T, float
     t.clear();
     const auto fresh = t.variable(matrix<T>({1, 2}, T(2)));  // same node id as `stale`
     REQUIRE(fresh.id() == stale.id());
-    for (const auto& e : {expect_error([&] { tenon::exp(stale); }), expect_error([&] { stale.value(); }),
-                          expect_error([&] { t.grad(stale); }), expect_error([&] { fresh + stale; }),
-                          expect_error([&] { t.backward(tenon::sum(stale)); })}) {
+    for (const auto& e : {expect_error([&] { tenon::exp(stale); }), expect_error([&] { stale.value(); }), expect_error([&] { t.grad(stale); }),
+                          expect_error([&] { fresh + stale; }), expect_error([&] { t.backward(tenon::sum(stale)); })}) {
         CHECK(e.code() == "autodiff.value.foreign");
         CHECK(contains(e.what(), "cleared"));
     }
@@ -398,7 +397,7 @@ TEST_CASE_TEMPLATE("the finite check names the first operation producing NaN or 
         tape<T> t;
         t.set_check_finite(true);
         const auto x = t.variable(make_matrix<T>({{T(4), T(0)}}));  // #0
-        const auto r = tenon::sqrt(x);                               // #1
+        const auto r = tenon::sqrt(x);  // #1
         const tenon::error e = expect_error([&] { t.backward(tenon::sum(r)); });
         CHECK(e.code() == "autodiff.non_finite");
         CHECK(contains(e.what(), "backward through operation #1 (sqrt)"));
@@ -611,17 +610,17 @@ struct fused_unit {
     tenon::op_kind unit;
     double coefficient;
 };
-const fused_unit fused_units[] = {{tenon::op_kind::relu, 0.0},  {tenon::op_kind::leaky_relu, 0.1}, {tenon::op_kind::elu, 1.0},
-                                  {tenon::op_kind::elu, 0.5},   {tenon::op_kind::tanh, 0.0},       {tenon::op_kind::sigmoid, 0.0}};
+const fused_unit fused_units[] = {{tenon::op_kind::relu, 0.0}, {tenon::op_kind::leaky_relu, 0.1}, {tenon::op_kind::elu, 1.0},
+                                  {tenon::op_kind::elu, 0.5},  {tenon::op_kind::tanh, 0.0},       {tenon::op_kind::sigmoid, 0.0}};
 
 template <class T>
 var<T> unfused_activation(var<T> z, tenon::op_kind unit, T coefficient) {
     switch (unit) {
-        case tenon::op_kind::relu: return tenon::relu(z);
-        case tenon::op_kind::leaky_relu: return tenon::leaky_relu(z, coefficient);
-        case tenon::op_kind::elu: return tenon::elu(z, coefficient);
-        case tenon::op_kind::tanh: return tenon::tanh(z);
-        default: return tenon::sigmoid(z);
+    case tenon::op_kind::relu: return tenon::relu(z);
+    case tenon::op_kind::leaky_relu: return tenon::leaky_relu(z, coefficient);
+    case tenon::op_kind::elu: return tenon::elu(z, coefficient);
+    case tenon::op_kind::tanh: return tenon::tanh(z);
+    default: return tenon::sigmoid(z);
     }
 }
 
@@ -658,7 +657,7 @@ TEST_CASE("affine_activation: gradients of x, weights and bias match finite diff
 TEST_CASE_TEMPLATE("affine_activation gives the same bits as matmul, bias add and the activation recorded apart", T, float, double) {
     for (const auto& u : fused_units) {
         const std::string unit_name = tenon::op_name(u.unit);
-            CAPTURE(unit_name);
+        CAPTURE(unit_name);
         const T coefficient = static_cast<T>(u.coefficient);
         tenon::parameter<T> w("w", spread<T>(7, 5, 11));
         tenon::parameter<T> b("b", spread<T>(1, 5, 12));
@@ -706,9 +705,7 @@ TEST_CASE("softmax_cross_entropy: gradients of logits and target weights match f
     tenon::parameter<double> z("z", spread<double>(4, 5, 21));
     tenon::parameter<double> q("q", spread<double>(4, 5, 22));
     z.value().data()[3] = 40.0;  // a large logit: the row maximum is subtracted
-    const auto report = tenon::check_gradients({&z, &q}, [&](tape<double>& t) {
-        return tenon::softmax_cross_entropy(t.track(z), t.track(q));
-    });
+    const auto report = tenon::check_gradients({&z, &q}, [&](tape<double>& t) { return tenon::softmax_cross_entropy(t.track(z), t.track(q)); });
     CHECK(report.max_rel_error < 1e-6);
 }
 

@@ -75,9 +75,9 @@ void overconfident_rows(std::size_t n, std::size_t classes, double overconfidenc
 
 TEST_CASE("the conformal rank is ceil((n + 1)(1 - alpha)), infinite when it exceeds n") {
     // Lei et al. 2018, section 2.2: the ceil((n + 1)(1 - alpha))-th smallest score.
-    CHECK(tenon::conformal_rank(10, 0.9) == 10);   // ceil(9.9)
-    CHECK(tenon::conformal_rank(9, 0.9) == 9);     // (9 + 1) * 0.9 = 9 exactly, although 0.9 is not exact in binary
-    CHECK(tenon::conformal_rank(8, 0.9) == 9);     // ceil(8.1) = 9 > 8 rows
+    CHECK(tenon::conformal_rank(10, 0.9) == 10);  // ceil(9.9)
+    CHECK(tenon::conformal_rank(9, 0.9) == 9);  // (9 + 1) * 0.9 = 9 exactly, although 0.9 is not exact in binary
+    CHECK(tenon::conformal_rank(8, 0.9) == 9);  // ceil(8.1) = 9 > 8 rows
     CHECK(tenon::conformal_rank(19, 0.95) == 19);  // 20 * 0.95 = 19
     CHECK(tenon::conformal_rank(100, 0.9) == 91);  // ceil(90.9)
     CHECK(tenon::conformal_rank(1, 0.5) == 1);
@@ -88,14 +88,14 @@ TEST_CASE("the conformal rank is ceil((n + 1)(1 - alpha)), infinite when it exce
 
 TEST_CASE("the conformal quantile counts ties once each and is infinite for too few rows") {
     const std::vector<double> tied{3.0, 1.0, 2.0, 2.0, 2.0, 5.0, 4.0, 0.5, 6.0, 7.0};  // sorted: 0.5 1 2 2 2 3 4 5 6 7
-    CHECK(tenon::conformal_quantile(tied, 0.9) == 7.0);   // rank ceil(11 * 0.9) = 10: the largest
-    CHECK(tenon::conformal_quantile(tied, 0.5) == 3.0);   // rank ceil(5.5) = 6
-    CHECK(tenon::conformal_quantile(tied, 0.4) == 2.0);   // rank ceil(4.4) = 5, inside the tie
+    CHECK(tenon::conformal_quantile(tied, 0.9) == 7.0);  // rank ceil(11 * 0.9) = 10: the largest
+    CHECK(tenon::conformal_quantile(tied, 0.5) == 3.0);  // rank ceil(5.5) = 6
+    CHECK(tenon::conformal_quantile(tied, 0.4) == 2.0);  // rank ceil(4.4) = 5, inside the tie
     CHECK(tenon::conformal_quantile(tied, 0.25) == 2.0);  // rank ceil(2.75) = 3, the tie's first
     // A plain empirical quantile would give the 9th smallest (ceil(10 * 0.9)), 6.
     CHECK(tenon::conformal_quantile(tied, 0.9) != 6.0);
     CHECK(std::isinf(tenon::conformal_quantile({1.0, 2.0, 3.0}, 0.9)));  // rank ceil(3.6) = 4 > 3
-    CHECK(tenon::conformal_quantile({1.5}, 0.5) == 1.5);                // rank ceil(1) = 1
+    CHECK(tenon::conformal_quantile({1.5}, 0.5) == 1.5);  // rank ceil(1) = 1
     CHECK(std::isinf(tenon::conformal_quantile({}, 0.5)));
     const std::vector<double> all_tied(9, 2.5);
     CHECK(tenon::conformal_quantile(all_tied, 0.9) == 2.5);

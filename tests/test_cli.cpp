@@ -69,17 +69,18 @@ TEST_CASE("tenon train --help explains every option with its default") {
     const auto r = run({"train", "--help"});
     CHECK(r.status == 0);
     CHECK(r.err.empty());
-    for (const char* option : {"--data", "--target", "--task", "--ignore", "--split", "--time-column", "--group-column", "--fractions",
-                               "--folds", "--hidden", "--activation", "--loss", "--optimizer", "--learning-rate", "--epochs", "--batch",
-                               "--patience", "--ensemble", "--search", "--refit", "--class-weights", "--target-scaling", "--seed", "--threads",
-                               "--metrics", "--report", "--model", "--quiet"}) {
+    for (const char* option : {"--data",           "--target", "--task",     "--ignore",     "--split",  "--time-column", "--group-column",
+                               "--fractions",      "--folds",  "--hidden",   "--activation", "--loss",   "--optimizer",   "--learning-rate",
+                               "--epochs",         "--batch",  "--patience", "--ensemble",   "--search", "--refit",       "--class-weights",
+                               "--target-scaling", "--seed",   "--threads",  "--metrics",    "--report", "--model",       "--quiet"}) {
         CAPTURE(std::string(option));
         CHECK(r.out.find(std::string("  ") + option + " ") != std::string::npos);
     }
-    for (const char* default_text : {"default auto", "default 0.7,0.15,0.15", "(default: 64,32 under 8192", "(default relu)", "(default adam)",
-                                     "default 0.001", "(default 1000;", "(default 32)", "(default 15", "(default 1)", "default 1),",
-                                     "training rows for at most SECONDS of wall-clock time,\n                         then train with the best as usual (default: off)",
-                                     "the\n                         results are the same bits for every N"}) {
+    for (const char* default_text :
+         {"default auto", "default 0.7,0.15,0.15", "(default: 64,32 under 8192", "(default relu)", "(default adam)", "default 0.001",
+          "(default 1000;", "(default 32)", "(default 15", "(default 1)", "default 1),",
+          "training rows for at most SECONDS of wall-clock time,\n                         then train with the best as usual (default: off)",
+          "the\n                         results are the same bits for every N"}) {
         CAPTURE(std::string(default_text));
         CHECK(r.out.find(default_text) != std::string::npos);
     }
@@ -119,7 +120,8 @@ void check_failure(const scratch_dir& dir, std::vector<std::string> args, const 
 TEST_CASE("a missing data file is named") {
     scratch_dir dir("missing_file");
     const auto path = dir.file("absent.csv");
-    check_failure(dir, {"train", "--data", path, "--target", "y"}, "[prep.file.open] --data '" + path + "': cannot read it (No such file or directory)");
+    check_failure(dir, {"train", "--data", path, "--target", "y"},
+                  "[prep.file.open] --data '" + path + "': cannot read it (No such file or directory)");
 }
 
 TEST_CASE("an unknown column is named with the option and the columns") {
@@ -136,26 +138,30 @@ TEST_CASE("an unknown column is named with the option and the columns") {
 TEST_CASE("empty data is refused") {
     scratch_dir dir("empty_data");
     const auto header_only = dir.write("header.csv", "torque,angle,verdict\n");
-    check_failure(dir, {"train", "--data", header_only, "--target", "verdict"}, "[cli.data.empty] " + header_only + ": no data rows below the header");
+    check_failure(dir, {"train", "--data", header_only, "--target", "verdict"},
+                  "[cli.data.empty] " + header_only + ": no data rows below the header");
     const auto empty = dir.write("empty.csv", "");
     check_failure(dir, {"train", "--data", empty, "--target", "verdict"}, "[prep.csv.no_header] " + empty + ": no header row (the input is empty)");
     const auto no_targets = dir.write("no_targets.csv", "torque,verdict\n1.5,\n2.5,NA\n");
-    check_failure(dir, {"train", "--data", no_targets, "--target", "verdict"}, "[cli.data.empty] " + no_targets + ": every row's target 'verdict' is missing");
+    check_failure(dir, {"train", "--data", no_targets, "--target", "verdict"},
+                  "[cli.data.empty] " + no_targets + ": every row's target 'verdict' is missing");
 }
 
 TEST_CASE("a target with a single class is refused") {
     scratch_dir dir("single_class");
     const auto path = dir.write("one.csv", "torque,verdict\n1.5,tight\n2.5,tight\n,tight\n2.0,\n");
     check_failure(dir, {"train", "--data", path, "--target", "verdict"},
-                  "[cli.target.single_class] " + path + ": the target 'verdict' has a single class ('tight') in all 3 rows with a target; "
-                                                        "classification needs at least 2");
+                  "[cli.target.single_class] " + path +
+                      ": the target 'verdict' has a single class ('tight') in all 3 rows with a target; "
+                      "classification needs at least 2");
 }
 
 TEST_CASE("an unparseable cell is named by file, line, column and value") {
     scratch_dir dir("bad_cell");
     // Column 'angle' is numbers except one typo on line 7 (the header is line 1).
     std::string csv = "torque,angle,verdict\n";
-    for (int i = 0; i < 30; ++i) csv += std::to_string(1 + i % 3) + "," + (i == 5 ? std::string("3O5") : std::to_string(300 + i)) + "," + (i % 2 ? "tight" : "loose") + "\n";
+    for (int i = 0; i < 30; ++i)
+        csv += std::to_string(1 + i % 3) + "," + (i == 5 ? std::string("3O5") : std::to_string(300 + i)) + "," + (i % 2 ? "tight" : "loose") + "\n";
     const auto path = dir.write("typo.csv", csv);
     check_failure(dir, {"train", "--data", path, "--target", "verdict"},
                   "[prep.cell.not_numeric] " + path + " line 7 column 2 ('angle'): '3O5' is not a finite number");
@@ -196,7 +202,8 @@ TEST_CASE("unknown options, bad numbers and missing values are named") {
         return a;
     };
     check_failure(dir, with({"--epoch", "5"}), "[cli.option.unknown] unknown option '--epoch' for 'tenon train' (see tenon train --help)");
-    check_failure(dir, with({"extra"}), "[cli.option.unknown] unexpected argument 'extra' for 'tenon train' (options start with --; see tenon train --help)");
+    check_failure(dir, with({"extra"}),
+                  "[cli.option.unknown] unexpected argument 'extra' for 'tenon train' (options start with --; see tenon train --help)");
     check_failure(dir, with({"--epochs", "ten"}), "[cli.option.value] --epochs 'ten': not a whole number");
     check_failure(dir, with({"--epochs", "-3"}), "[cli.option.value] --epochs '-3': not a whole number");
     check_failure(dir, with({"--epochs", "0"}), "[cli.option.value] --epochs '0': must be at least 1");
@@ -220,9 +227,11 @@ TEST_CASE("unknown options, bad numbers and missing values are named") {
     check_failure(dir, with({"--seed", "1e3"}), "[cli.option.value] --seed '1e3': not a whole number between 0 and 18446744073709551615");
     check_failure(dir, with({"--activation", "relu6"}),
                   "[cli.option.value] --activation 'relu6': not one of relu, leaky-relu, elu, tanh, sigmoid, softplus, gelu");
-    check_failure(dir, with({"--optimizer", "sgd"}), "[cli.option.value] --optimizer 'sgd': not one of gd, momentum, nesterov, adam, adamw, rmsprop, adagrad");
+    check_failure(dir, with({"--optimizer", "sgd"}),
+                  "[cli.option.value] --optimizer 'sgd': not one of gd, momentum, nesterov, adam, adamw, rmsprop, adagrad");
     check_failure(dir, with({"--task", "cluster"}), "[cli.option.value] --task 'cluster': not one of auto, classify, regress");
-    check_failure(dir, with({"--split", "shuffled"}), "[cli.option.value] --split 'shuffled': not one of auto, random, stratified, chronological, grouped");
+    check_failure(dir, with({"--split", "shuffled"}),
+                  "[cli.option.value] --split 'shuffled': not one of auto, random, stratified, chronological, grouped");
     check_failure(dir, with({"--loss", "l2"}), "[cli.option.conflict] --loss l2 does not fit a classification target (use cross-entropy)");
     check_failure(dir, with({"--seed", "4", "--seed", "5"}), "[cli.option.conflict] --seed is given more than once");
     check_failure(dir, with({"--split", "chronological"}), "[cli.option.missing] --split chronological needs --time-column COLUMN");
@@ -242,7 +251,8 @@ TEST_CASE("unknown options, bad numbers and missing values are named") {
     }
     const auto r = run({"trian"});
     CHECK(r.status == 2);
-    CHECK(r.err == "tenon: error: [cli.command.unknown] unknown command 'trian' (commands: train, infer, inspect, retrain, drift; see tenon --help)\n");
+    CHECK(r.err ==
+          "tenon: error: [cli.command.unknown] unknown command 'trian' (commands: train, infer, inspect, retrain, drift; see tenon --help)\n");
 }
 
 TEST_CASE("an output file that cannot be written fails before training, with status 3") {
@@ -251,7 +261,9 @@ TEST_CASE("an output file that cannot be written fails before training, with sta
     const auto missing_dir = dir.file("no_such_dir/m.json");
     const auto r = run({"train", "--data", path, "--target", "verdict", "--metrics", missing_dir});
     CHECK(r.status == tenon_cli::exit_output_failed);
-    CHECK(r.err == "tenon train: error: [cli.output.write] --metrics '" + missing_dir + "': the directory '" + std::filesystem::path(missing_dir).parent_path().string() + "' does not exist\n");
+    CHECK(r.err ==
+          "tenon train: error: [cli.output.write] --metrics '" + missing_dir + "': the directory '" +
+              std::filesystem::path(missing_dir).parent_path().string() + "' does not exist\n");
     CHECK(r.out.empty());
     CHECK(dir.listing() == std::vector<std::string>{"caps.csv"});
 }
@@ -302,8 +314,8 @@ TEST_CASE("--search chooses the settings by k-fold on the training rows within i
     CHECK(number_at(m, "search.folds") == 3);
     CHECK(number_at(m, "search.candidates_listed") == 108);
     const auto tried = static_cast<std::size_t>(number_at(m, "search.candidates_tried"));
-    CHECK(tried >= 2);    // each candidate takes a few hundred readings
-    CHECK(tried < 108);   // the budget ended the search
+    CHECK(tried >= 2);  // each candidate takes a few hundred readings
+    CHECK(tried < 108);  // the budget ended the search
     CHECK(number_at(m, "search.seconds") <= 1.5 + 0.05);
     // The defaults first; the chosen one has the lowest mean fold loss among
     // the complete candidates, or is the defaults (when the lowest does not
@@ -317,7 +329,8 @@ TEST_CASE("--search chooses the settings by k-fold on the training rows within i
         const std::string c = "search.candidates." + std::to_string(i) + ".";
         CHECK(m.count(c + "seconds") == 1);
         CHECK(m.count(c + "fold_losses.0") == 1);
-        if (m.at(c + "cut_short") == "false" && number_at(m, c + "folds_completed") == 3) lowest = std::min(lowest, number_at(m, c + "mean_fold_loss"));
+        if (m.at(c + "cut_short") == "false" && number_at(m, c + "folds_completed") == 3)
+            lowest = std::min(lowest, number_at(m, c + "mean_fold_loss"));
     }
     const double chosen = number_at(m, "search.chosen.mean_fold_loss");
     CHECK((chosen == lowest || chosen == number_at(m, "search.candidates.0.mean_fold_loss")));
@@ -326,9 +339,10 @@ TEST_CASE("--search chooses the settings by k-fold on the training rows within i
     CHECK(number_at(m, "search.candidates." + m.at("search.chosen_index") + ".mean_fold_loss") == chosen);
     // One summary line naming the choice, which the final fit used.
     std::string hidden = m.at("search.chosen.hidden.0");
-    for (std::size_t k = 1; m.count("search.chosen.hidden." + std::to_string(k)); ++k) hidden += "," + m.at("search.chosen.hidden." + std::to_string(k));
+    for (std::size_t k = 1; m.count("search.chosen.hidden." + std::to_string(k)); ++k)
+        hidden += "," + m.at("search.chosen.hidden." + std::to_string(k));
     const std::string line = ", chose hidden " + hidden + ", learning rate " + tenon::number_to_text(number_at(m, "search.chosen.learning_rate")) +
-                             ", weight decay " + tenon::number_to_text(number_at(m, "search.chosen.weight_decay")) + "; mean fold loss ";
+        ", weight decay " + tenon::number_to_text(number_at(m, "search.chosen.weight_decay")) + "; mean fold loss ";
     CHECK(r.out.rfind("search: " + std::to_string(tried) + " candidates in ", 0) == 0);
     CHECK(r.out.find(line) != std::string::npos);
     // The same seed: the same search record.
@@ -349,8 +363,8 @@ TEST_CASE("--search chooses the settings by k-fold on the training rows within i
 TEST_CASE("classification metrics hold every documented field; the report has the confusion matrix") {
     scratch_dir dir("classification_fields");
     const auto path = dir.write("caps.csv", small_classification_csv(300));
-    const auto r = run({"train", "--data", path, "--target", "verdict", "--epochs", "30", "--metrics", dir.file("m.json"), "--report",
-                        dir.file("r.svg")});
+    const auto r =
+        run({"train", "--data", path, "--target", "verdict", "--epochs", "30", "--metrics", dir.file("m.json"), "--report", dir.file("r.svg")});
     REQUIRE(r.status == 0);
     CHECK(r.err.empty());
     const auto m = read_metrics(dir.file("m.json"));
@@ -405,7 +419,7 @@ TEST_CASE("regression metrics are in the target's units; missing targets are cou
         const double speed = rng.uniform(500.0, 1500.0), load = rng.uniform(0.0, 1.0);
         const bool no_target = i % 40 == 0;
         csv += (i % 17 == 0 ? std::string("NA") : std::to_string(speed)) + "," + std::to_string(load) + "," +
-               (no_target ? std::string("") : std::to_string(1000.0 + 0.5 * speed * load + rng.normal(0.0, 2.0))) + "\n";
+            (no_target ? std::string("") : std::to_string(1000.0 + 0.5 * speed * load + rng.normal(0.0, 2.0))) + "\n";
     }
     const auto path = dir.write("motor.csv", csv);
     const auto r = run({"train", "--data", path, "--target", "amps", "--metrics", dir.file("m.json"), "--quiet"});
@@ -437,7 +451,8 @@ TEST_CASE("the same seed gives the same metrics apart from timings; another seed
     scratch_dir dir("determinism");
     const auto path = dir.write("caps.csv", small_classification_csv(300));
     auto metrics = [&](const std::string& seed, const std::string& name) {
-        const auto r = run({"train", "--data", path, "--target", "verdict", "--epochs", "25", "--seed", seed, "--metrics", dir.file(name), "--quiet"});
+        const auto r =
+            run({"train", "--data", path, "--target", "verdict", "--epochs", "25", "--seed", seed, "--metrics", dir.file(name), "--quiet"});
         REQUIRE(r.status == 0);
         auto m = read_metrics(dir.file(name));
         REQUIRE(m.erase("training_seconds") == 1);
@@ -456,8 +471,8 @@ TEST_CASE("--threads splits the products across threads and gives the same metri
     scratch_dir dir("threads");
     const auto path = dir.write("caps.csv", small_classification_csv(300));
     auto metrics = [&](const std::string& threads, const std::string& name) {
-        const auto r = run({"train", "--data", path, "--target", "verdict", "--epochs", "10", "--hidden", "128,64", "--batch", "64",
-                            "--threads", threads, "--metrics", dir.file(name), "--quiet"});
+        const auto r = run({"train", "--data", path, "--target", "verdict", "--epochs", "10", "--hidden", "128,64", "--batch", "64", "--threads",
+                            threads, "--metrics", dir.file(name), "--quiet"});
         REQUIRE(r.status == 0);
         auto m = read_metrics(dir.file(name));
         REQUIRE(m.erase("training_seconds") == 1);
@@ -522,7 +537,8 @@ TEST_CASE("chronological and grouped splits keep time order and whole groups") {
     std::string csv = "day,line,temp,amps\n";
     for (int i = 0; i < 300; ++i) {
         const double temp = rng.uniform(10.0, 30.0);
-        csv += std::to_string(299 - i) + ",L" + std::to_string(i % 10) + "," + std::to_string(temp) + "," + std::to_string(2 * temp + rng.normal(0.0, 0.5)) + "\n";
+        csv += std::to_string(299 - i) + ",L" + std::to_string(i % 10) + "," + std::to_string(temp) + "," +
+            std::to_string(2 * temp + rng.normal(0.0, 0.5)) + "\n";
     }
     const auto path = dir.write("log.csv", csv);
     const auto c = run({"train", "--data", path, "--target", "amps", "--split", "chronological", "--time-column", "day", "--epochs", "10",
@@ -532,8 +548,8 @@ TEST_CASE("chronological and grouped splits keep time order and whole groups") {
     CHECK(cm.at("split") == "chronological");
     CHECK(number_at(cm, "features") == 11);  // line (10 one-hot slots) and temp: the time column is not a feature
     // "day" falls by one on every row, a counter the tool leaves out unless --use keeps it.
-    const auto g = run({"train", "--data", path, "--target", "amps", "--split", "grouped", "--group-column", "line", "--epochs", "10",
-                        "--use", "day", "--metrics", dir.file("g.json"), "--quiet"});
+    const auto g = run({"train", "--data", path, "--target", "amps", "--split", "grouped", "--group-column", "line", "--epochs", "10", "--use", "day",
+                        "--metrics", dir.file("g.json"), "--quiet"});
     REQUIRE(g.status == 0);
     const auto gm = read_metrics(dir.file("g.json"));
     CHECK(gm.at("split") == "grouped");
@@ -552,7 +568,7 @@ namespace {
 struct prepared_split {
     bool classify = false;
     Eigen::MatrixXd train_x, test_x;
-    Eigen::VectorXd train_y, test_y;                   // regression: original units
+    Eigen::VectorXd train_y, test_y;  // regression: original units
     std::vector<std::size_t> train_class, test_class;  // classification
     std::size_t classes = 0;
 };
@@ -574,8 +590,10 @@ prepared_split prepare_like_the_tool(const std::vector<std::string>& args) {
         for (std::size_t i = 0; i < n; ++i) {
             for (std::size_t j = 0; j < d; ++j) x(static_cast<Eigen::Index>(i), static_cast<Eigen::Index>(j)) = prepared.features(i, j);
             x(static_cast<Eigen::Index>(i), static_cast<Eigen::Index>(d)) = 1.0;  // intercept
-            if (s.classify) c.push_back(prepared.classes[i]);
-            else y(static_cast<Eigen::Index>(i)) = plan.restore_target(prepared.targets(i, 0));
+            if (s.classify)
+                c.push_back(prepared.classes[i]);
+            else
+                y(static_cast<Eigen::Index>(i)) = plan.restore_target(prepared.targets(i, 0));
         }
     };
     convert(split.train, p.train_x, p.train_y, p.train_class);
@@ -633,9 +651,10 @@ std::string dryer_csv(std::size_t rows, std::uint64_t seed) {
     for (std::size_t i = 0; i < rows; ++i) {
         const double fuel = rng.uniform(0.5, 1.5), air = rng.uniform(0.8, 1.6), moisture = rng.uniform(0.05, 0.35), rpm = rng.uniform(2.0, 8.0);
         const double efficiency = std::exp(-std::pow((air - 1.15) / 0.18, 2));
-        const double temp = 120.0 + 90.0 * fuel * efficiency - 160.0 * moisture * std::sin(0.5 * rpm) + 6.0 * std::cos(2.0 * rpm) + rng.normal(0.0, 2.0);
+        const double temp =
+            120.0 + 90.0 * fuel * efficiency - 160.0 * moisture * std::sin(0.5 * rpm) + 6.0 * std::cos(2.0 * rpm) + rng.normal(0.0, 2.0);
         csv += std::to_string(fuel) + "," + std::to_string(air) + "," + std::to_string(moisture) + "," + std::to_string(rpm) + "," +
-               std::to_string(temp) + "\n";
+            std::to_string(temp) + "\n";
     }
     return csv;
 }
@@ -649,15 +668,16 @@ std::string paint_csv(std::size_t rows, std::uint64_t seed) {
     const double paint_factor[] = {1.6, 1.0, 0.6};
     std::string csv = "booth_temp_c,humidity_pct,film_um,paint,airflow_m_s,dry_minutes\n";
     for (std::size_t i = 0; i < rows; ++i) {
-        const double temp = rng.uniform(15.0, 40.0), humidity = rng.uniform(20.0, 85.0), film = rng.uniform(40.0, 160.0), airflow = rng.uniform(0.2, 1.5);
+        const double temp = rng.uniform(15.0, 40.0), humidity = rng.uniform(20.0, 85.0), film = rng.uniform(40.0, 160.0),
+                     airflow = rng.uniform(0.2, 1.5);
         const std::size_t paint = static_cast<std::size_t>(rng.below(3));
         // Waterborne paint slows down sharply with humidity; all coats dry faster when warm and ventilated.
         const double humidity_effect = paint == 0 ? std::exp(0.035 * (humidity - 50.0)) : 1.0 + 0.004 * (humidity - 50.0);
-        const double minutes = paint_factor[paint] * film * humidity_effect * std::exp(-0.045 * (temp - 25.0)) / std::sqrt(airflow) / 4.0 +
-                               rng.normal(0.0, 1.0);
+        const double minutes =
+            paint_factor[paint] * film * humidity_effect * std::exp(-0.045 * (temp - 25.0)) / std::sqrt(airflow) / 4.0 + rng.normal(0.0, 1.0);
         const bool airflow_missing = rng.uniform01() < 0.05, target_missing = rng.uniform01() < 0.01;
         csv += std::to_string(temp) + "," + std::to_string(humidity) + "," + std::to_string(film) + "," + paints[paint] + "," +
-               (airflow_missing ? std::string() : std::to_string(airflow)) + "," + (target_missing ? std::string("NA") : std::to_string(minutes)) + "\n";
+            (airflow_missing ? std::string() : std::to_string(airflow)) + "," + (target_missing ? std::string("NA") : std::to_string(minutes)) + "\n";
     }
     return csv;
 }
@@ -774,10 +794,12 @@ TEST_CASE("--class-weights and --target-scaling: reported, and refused for the o
     const auto caps = dir.write("caps.csv", small_classification_csv(300));
     const auto dryer = dir.write("dryer.csv", dryer_csv(300, 405));
     REQUIRE(run({"train", "--data", caps, "--target", "verdict", "--epochs", "5", "--class-weights", "balanced", "--metrics", dir.file("c.json"),
-                 "--quiet"}).status == 0);
+                 "--quiet"})
+                .status == 0);
     CHECK(read_metrics(dir.file("c.json")).at("class_weights") == "balanced");
     REQUIRE(run({"train", "--data", dryer, "--target", "exhaust_temp", "--epochs", "5", "--target-scaling", "median-iqr", "--metrics",
-                 dir.file("r.json"), "--quiet"}).status == 0);
+                 dir.file("r.json"), "--quiet"})
+                .status == 0);
     CHECK(read_metrics(dir.file("r.json")).at("target_scaling") == "median-iqr");
     check_failure(dir, {"train", "--data", dryer, "--target", "exhaust_temp", "--class-weights", "balanced"},
                   "[cli.option.conflict] --class-weights balanced needs a classification target; 'exhaust_temp' is regressed");

@@ -126,8 +126,8 @@ TEST_CASE("a failing later output leaves earlier outputs in place, untouched, an
     p.dir.write("prev.json", "{\"kept\": true}\n");
     fs::create_directories(p.dir.file("reports"));
     const auto before = p.dir.listing();
-    auto r = run({"train", "--data", p.data, "--target", "flow", "--epochs", "2", "--model", p.model, "--metrics", p.dir.file("prev.json"), "--report",
-                  p.dir.file("reports")});
+    auto r = run({"train", "--data", p.data, "--target", "flow", "--epochs", "2", "--model", p.model, "--metrics", p.dir.file("prev.json"),
+                  "--report", p.dir.file("reports")});
     CHECK(r.status == 3);
     CHECK(r.err == "tenon train: error: [cli.output.write] --report '" + p.dir.file("reports") + "': is a directory; give a file name\n");
     CHECK(r.out.empty());  // nothing was trained
@@ -199,7 +199,8 @@ TEST_CASE("non-regular inputs are refused without opening them: a FIFO with no w
     REQUIRE(::mkfifo(fifo.c_str(), 0600) == 0);
     auto r = run({"train", "--data", fifo, "--target", "flow"});
     CHECK(r.status == 2);
-    CHECK(r.err == "tenon train: error: [prep.file.open] --data '" + fifo + "' is a FIFO (named pipe), not a regular file, so it cannot be read as input\n");
+    CHECK(r.err ==
+          "tenon train: error: [prep.file.open] --data '" + fifo + "' is a FIFO (named pipe), not a regular file, so it cannot be read as input\n");
     r = run({"infer", "--model", fifo, "--data", p.data, "--out", p.dir.file("o.csv")});
     CHECK(r.status == 2);
     CHECK(contains(r.err, "--model '" + fifo + "' is a FIFO (named pipe)"));
@@ -368,7 +369,8 @@ TEST_CASE("SIGKILL leaves the temporary files (it cannot be caught); the next ru
     REQUIRE(saw);
     CHECK(WIFSIGNALED(status));
     CHECK(temporaries_in(p.dir).size() == 2);
-    const auto r = run({"train", "--data", p.data, "--target", "flow", "--epochs", "1", "--model", p.model, "--metrics", p.dir.file("m.json"), "--quiet"});
+    const auto r =
+        run({"train", "--data", p.data, "--target", "flow", "--epochs", "1", "--model", p.model, "--metrics", p.dir.file("m.json"), "--quiet"});
     CHECK(r.status == 0);
     CHECK(temporaries_in(p.dir).empty());
     CHECK(p.dir.listing().size() == before.size() + 1);  // m.json is new
@@ -387,21 +389,25 @@ TEST_CASE("size limits and unusable learning rates are refused with exit 2 and t
         CHECK(p.dir.listing() == before);
     };
     refused({"--hidden", "100000000"}, "[cli.option.value] --hidden '100000000': width 100000000 is above the limit of 65536 units per layer");
-    refused({"--hidden", "20000,20000"}, "[cli.option.value] --hidden '20000,20000': 400000000 weights between the hidden layers, above the limit of 100000000");
+    refused({"--hidden", "20000,20000"},
+            "[cli.option.value] --hidden '20000,20000': 400000000 weights between the hidden layers, above the limit of 100000000");
     refused({"--hidden", "8,,4"}, "[cli.option.value] --hidden '8,,4': an empty width between commas");
     refused({"--hidden", "8,x"}, "[cli.option.value] --hidden '8,x': width 'x': not a whole number");
     refused({"--patience", "99999999999999999999999"},
             "[cli.option.value] --patience '99999999999999999999999': too large (more than 18446744073709551615)");
     // 1e-50 is a positive double but rounds to 0 in single precision (IEEE 754
     // binary32: smallest normal 2^-126, about 1.18e-38).
-    refused({"--learning-rate", "1e-50"}, "[cli.option.value] --learning-rate '1e-50': outside what single precision (the training's) holds, 1.2e-38 to 3.4e38");
-    refused({"--learning-rate", "1e39"}, "[cli.option.value] --learning-rate '1e39': outside what single precision (the training's) holds, 1.2e-38 to 3.4e38");
+    refused({"--learning-rate", "1e-50"},
+            "[cli.option.value] --learning-rate '1e-50': outside what single precision (the training's) holds, 1.2e-38 to 3.4e38");
+    refused({"--learning-rate", "1e39"},
+            "[cli.option.value] --learning-rate '1e39': outside what single precision (the training's) holds, 1.2e-38 to 3.4e38");
 }
 
 TEST_CASE("infer --keep naming an output column is refused rather than writing two columns of one name") {
     pump_setup p("keep_clash");
     p.dir.write("with_predicted.csv", "speed,valve,predicted\n1100,open,3\n");
-    const auto r = run({"infer", "--model", p.model, "--data", p.dir.file("with_predicted.csv"), "--out", p.dir.file("o.csv"), "--keep", "predicted"});
+    const auto r =
+        run({"infer", "--model", p.model, "--data", p.dir.file("with_predicted.csv"), "--out", p.dir.file("o.csv"), "--keep", "predicted"});
     CHECK(r.status == 2);
     CHECK(contains(r.err, "[cli.option.conflict] --keep names 'predicted', which is also a column the predictions write"));
     CHECK(!fs::exists(p.dir.file("o.csv")));
@@ -459,7 +465,9 @@ TEST_CASE("as an unprivileged user: unreadable inputs, a read-only directory and
     // A directory nobody cannot write: the output is refused before training.
     auto r = run_binary_as(nobody, {"train", "--data", p.data, "--target", "flow", "--epochs", "1", "--model", p.model});
     CHECK(r.status == 3);
-    CHECK(contains(r.err, "[cli.output.write] --model '" + p.model + "': cannot create a file in the directory '" + fs::path(p.model).parent_path().string() + "'"));
+    CHECK(contains(r.err,
+                   "[cli.output.write] --model '" + p.model + "': cannot create a file in the directory '" +
+                       fs::path(p.model).parent_path().string() + "'"));
     CHECK(contains(r.err, "(Permission denied)"));
     // An input nobody cannot read.
     p.dir.write("secret.csv", pump_csv());
@@ -525,7 +533,8 @@ TEST_CASE("the usual missing spellings (n/a, -, none, ...) read as missing: a nu
     const auto blank_data = dir.write("blank.csv", blank);
     const auto blank_metrics = dir.file("blank.json");
     REQUIRE(run({"train", "--data", blank_data, "--target", "output", "--epochs", "1", "--metrics", blank_metrics, "--quiet"}).status == 0);
-    CHECK(cli_test::json_flattener(read_file(metrics)).values.at("features") == cli_test::json_flattener(read_file(blank_metrics)).values.at("features"));
+    CHECK(cli_test::json_flattener(read_file(metrics)).values.at("features") ==
+          cli_test::json_flattener(read_file(blank_metrics)).values.at("features"));
     dir.write("new.csv", "day,reading\n2024-02-03,n/a\n2024-02-04,-\n2024-02-05,none\n2024-02-06,12\n");
     const auto inferred = run({"infer", "--model", model, "--data", dir.file("new.csv"), "--out", "-"});
     CHECK(inferred.status == 0);
@@ -557,21 +566,22 @@ TEST_CASE("table numbers are width-bounded: scientific notation from a million u
 
 TEST_CASE("JSON strings: well-formed UTF-8 passes, anything else becomes U+FFFD (RFC 3629 section 4, RFC 8259 section 8.1)") {
     using tenon_cli::json_writer;
-    CHECK(json_writer::escape("caf\xc3\xa9") == "caf\xc3\xa9");                  // U+00E9, two bytes
-    CHECK(json_writer::escape("\xe2\x82\xac") == "\xe2\x82\xac");                // U+20AC, three bytes
-    CHECK(json_writer::escape("\xf0\x9f\x94\xa7") == "\xf0\x9f\x94\xa7");        // U+1F527, four bytes
-    CHECK(json_writer::escape("ok\xff") == "ok\\ufffd");                          // never valid
-    CHECK(json_writer::escape("\xc0\xaf") == "\\ufffd\\ufffd");                   // overlong '/'
-    CHECK(json_writer::escape("\xed\xa0\x80") == "\\ufffd\\ufffd\\ufffd");        // a surrogate, U+D800
+    CHECK(json_writer::escape("caf\xc3\xa9") == "caf\xc3\xa9");  // U+00E9, two bytes
+    CHECK(json_writer::escape("\xe2\x82\xac") == "\xe2\x82\xac");  // U+20AC, three bytes
+    CHECK(json_writer::escape("\xf0\x9f\x94\xa7") == "\xf0\x9f\x94\xa7");  // U+1F527, four bytes
+    CHECK(json_writer::escape("ok\xff") == "ok\\ufffd");  // never valid
+    CHECK(json_writer::escape("\xc0\xaf") == "\\ufffd\\ufffd");  // overlong '/'
+    CHECK(json_writer::escape("\xed\xa0\x80") == "\\ufffd\\ufffd\\ufffd");  // a surrogate, U+D800
     CHECK(json_writer::escape("\xf4\x90\x80\x80") == "\\ufffd\\ufffd\\ufffd\\ufffd");  // above U+10FFFF
-    CHECK(json_writer::escape("\xc3") == "\\ufffd");                              // cut short
+    CHECK(json_writer::escape("\xc3") == "\\ufffd");  // cut short
     CHECK(json_writer::escape("a\"b\n") == "a\\\"b\\n");
 }
 
 TEST_CASE("inspect --json on a model whose category holds a Latin-1 byte prints valid UTF-8") {
     scratch_dir dir("latin1");
     std::string csv = "site,load,output\n";
-    for (int i = 0; i < 60; ++i) csv += std::string(i % 2 ? "Gen\xe8ve" : "Basel") + "," + std::to_string(i % 10) + "," + std::to_string(i % 10 * 2 + i % 2) + "\n";
+    for (int i = 0; i < 60; ++i)
+        csv += std::string(i % 2 ? "Gen\xe8ve" : "Basel") + "," + std::to_string(i % 10) + "," + std::to_string(i % 10 * 2 + i % 2) + "\n";
     const auto data = dir.write("sites.csv", csv);
     const auto model = dir.file("m.tnm");
     REQUIRE(run({"train", "--data", data, "--target", "output", "--epochs", "1", "--model", model, "--quiet"}).status == 0);
@@ -599,8 +609,10 @@ TEST_CASE("--ignore leaving no input column is named in column terms, not as a l
     const auto data = dir.write("two.csv", "a,b,output\n1,2,3\n4,5,6\n7,8,9\n");
     const auto r = run({"train", "--data", data, "--target", "output", "--ignore", "a,b"});
     CHECK(r.status == 2);
-    CHECK(r.err == "tenon train: error: [cli.option.conflict] " + data +
-                       ": no input column is left: the columns are a, b, output, of which 'output' is the target and the others are ignored or the group column\n");
+    CHECK(r.err ==
+          "tenon train: error: [cli.option.conflict] " + data +
+              ": no input column is left: the columns are a, b, output, of which 'output' is the target and the others are ignored or the group "
+              "column\n");
 }
 
 TEST_CASE("wide one-hot inputs times the first hidden width above the weight limit are refused before training, naming the columns") {
@@ -608,19 +620,22 @@ TEST_CASE("wide one-hot inputs times the first hidden width above the weight lim
     // (those of the training rows) times 65,536 units is above 100 million.
     scratch_dir dir("wide");
     std::string csv = "part,speed,flow\n";
-    for (int i = 0; i < 4000; ++i) csv += "p" + std::to_string(i % 2000) + "," + std::to_string(1000 + i % 37) + "," + std::to_string(i % 11) + ".5\n";
+    for (int i = 0; i < 4000; ++i)
+        csv += "p" + std::to_string(i % 2000) + "," + std::to_string(1000 + i % 37) + "," + std::to_string(i % 11) + ".5\n";
     const auto data = dir.write("parts.csv", csv);
     const auto before = dir.listing();
     for (const char* folds : {"0", "3"}) {
-        std::vector<std::string> args{"train", "--data", data, "--target", "flow", "--hidden", "65536", "--epochs", "1", "--model", dir.file("m.tnm")};
+        std::vector<std::string> args{"train", "--data",   data, "--target", "flow",           "--hidden",
+                                      "65536", "--epochs", "1",  "--model",  dir.file("m.tnm")};
         if (std::string(folds) != "0") args = {"train", "--data", data, "--target", "flow", "--hidden", "65536", "--epochs", "1", "--folds", folds};
         const auto r = run(args);
         CHECK(r.status == 2);
         CHECK(contains(r.err, "[cli.option.value] " + data + ": "));
         CHECK(contains(r.err, "input features (the widest: 'part' "));
         CHECK(contains(r.err, "hidden layers 65536 and 1 outputs make "));
-        CHECK(contains(r.err, " weights (every network of the ensemble counted), above the limit of 100000000 (give narrower --hidden widths, "
-                              "--ensemble 1, or --ignore the wide columns)\n"));
+        CHECK(contains(r.err,
+                       " weights (every network of the ensemble counted), above the limit of 100000000 (give narrower --hidden widths, "
+                       "--ensemble 1, or --ignore the wide columns)\n"));
         CHECK(dir.listing() == before);
     }
     // The same data with a narrow layer trains.
@@ -674,8 +689,8 @@ TEST_CASE("retrain refusing every new row names the first bad cell: file, line, 
     const auto fresh = p.dir.write("fresh.csv", rows);
     const auto r = run({"retrain", "--model", p.model, "--data", fresh, "--out", p.dir.file("next.tnm")});
     CHECK(r.status == 2);
-    CHECK(contains(r.err, "0 of the 30 new rows are usable (30 refused; the first, " + fresh +
-                              " line 2: column 'speed' holds 'fa\\rst', not a number)"));
+    CHECK(contains(r.err,
+                   "0 of the 30 new rows are usable (30 refused; the first, " + fresh + " line 2: column 'speed' holds 'fa\\rst', not a number)"));
     CHECK(std::count(r.err.begin(), r.err.end(), '\n') == 1);
     CHECK_FALSE(fs::exists(p.dir.file("next.tnm")));
     // A target that is not a number.
@@ -730,7 +745,8 @@ TEST_CASE("running out of memory under a limit is one line saying so, and leaves
         struct rlimit limit {};
         limit.rlim_cur = limit.rlim_max = static_cast<rlim_t>(pages * static_cast<unsigned long long>(::sysconf(_SC_PAGESIZE)) + (768ull << 20));
         if (::setrlimit(RLIMIT_AS, &limit) != 0) ::_exit(99);
-        const auto r = run({"train", "--data", p.data, "--target", "flow", "--hidden", "16384,6000", "--epochs", "1", "--ensemble", "1", "--model", model});
+        const auto r =
+            run({"train", "--data", p.data, "--target", "flow", "--hidden", "16384,6000", "--epochs", "1", "--ensemble", "1", "--model", model});
         std::ofstream(report) << r.err;
         ::_exit(r.status);
     }

@@ -64,7 +64,7 @@ std::string caps_csv(std::size_t rows, std::uint64_t seed) {
         const double torque = rng.uniform(1.0, 3.0), angle = rng.uniform(200.0, 400.0);
         const bool ok = torque * angle > 600.0;
         csv += "C" + std::to_string(1000 + i) + "," + std::to_string(torque) + "," + std::to_string(angle) + "," + (i % 3 == 0 ? "night" : "day") +
-               "," + (ok ? "tight" : "loose") + "\n";
+            "," + (ok ? "tight" : "loose") + "\n";
     }
     return csv;
 }
@@ -76,7 +76,7 @@ std::string motor_csv(std::size_t rows, std::uint64_t seed) {
     for (std::size_t i = 0; i < rows; ++i) {
         const double speed = rng.uniform(500.0, 1500.0), load = rng.uniform(0.0, 1.0);
         csv += (i % 17 == 0 ? std::string("NA") : std::to_string(speed)) + "," + std::to_string(load) + "," +
-               std::to_string(10.0 + 0.01 * speed * load + rng.normal(0.0, 0.2)) + "\n";
+            std::to_string(10.0 + 0.01 * speed * load + rng.normal(0.0, 0.2)) + "\n";
     }
     return csv;
 }
@@ -119,8 +119,10 @@ tenon::matrix<float> trainer_predictions(const std::string& model_path, const te
         tenon::network<float> net = tenon::rebuild_member(file, m);
         tenon::matrix<float> member = tenon::network_outputs(net, features);
         if (classify) member = one && classes ? tenon::tempered_softmax_rows(member, classes->temperature) : tenon::softmax_rows(member);
-        if (m == 0) out = member;
-        else for (std::size_t k = 0; k < out.size(); ++k) out.data()[k] += member.data()[k];
+        if (m == 0)
+            out = member;
+        else
+            for (std::size_t k = 0; k < out.size(); ++k) out.data()[k] += member.data()[k];
     }
     if (!one)
         for (std::size_t k = 0; k < out.size(); ++k) out.data()[k] /= static_cast<float>(file.members.size() + 1);
@@ -162,8 +164,8 @@ TEST_CASE("infer reproduces the trained classifier's predictions to the last bit
     const tenon::model_file<float> file = tenon::load_model_file<float>(dir.file("caps.tnm"));
     const std::vector<std::string> classes = file.plan->class_names();
     REQUIRE(classes.size() == 2);
-    CHECK(records[0] == std::vector<std::string>{"cap_id", "predicted", "p(" + classes[0] + ")", "p(" + classes[1] + ")", "likely_classes",
-                                                 "out_of_range"});
+    CHECK(records[0] ==
+          std::vector<std::string>{"cap_id", "predicted", "p(" + classes[0] + ")", "p(" + classes[1] + ")", "likely_classes", "out_of_range"});
     REQUIRE(file.calibration);
     REQUIRE(file.calibration->classes);
     CHECK(file.calibration->classes->coverage == 0.9);
@@ -266,7 +268,7 @@ TEST_CASE("infer reproduces a regression model's values in the target's units an
     double squares = 0;
     for (std::size_t i = 0; i < truth.rows.size(); ++i) {
         const double e = static_cast<double>(std::strtof(records[truth.rows[i] + 1][0].c_str(), nullptr)) -
-                         file.plan->restore_target(static_cast<double>(truth.targets(i, 0)));
+            file.plan->restore_target(static_cast<double>(truth.targets(i, 0)));
         squares += e * e;
     }
     const double rmse = std::sqrt(squares / static_cast<double>(truth.rows.size()));
@@ -364,7 +366,8 @@ TEST_CASE("infer reads a model saved in double precision by a host") {
     const auto records = read_records(dir.file("p.csv"));
     REQUIRE(records.size() == 201);
     const tenon::matrix<double> expected = tenon::predict_prepared(model, model.plan.apply<double>(t, {0, 1, 2}).features);
-    for (std::size_t i = 0; i < 3; ++i) CHECK(std::strtod(records[i + 1][0].c_str(), nullptr) == expected(i, 0));  // shortest double text reads back exactly
+    for (std::size_t i = 0; i < 3; ++i)
+        CHECK(std::strtod(records[i + 1][0].c_str(), nullptr) == expected(i, 0));  // shortest double text reads back exactly
     const auto inspected = run({"inspect", "--model", dir.file("host.tnm")});
     CHECK(inspected.out.find("double weights") != std::string::npos);
 }
@@ -385,13 +388,29 @@ TEST_CASE("inspect shows the inputs, classes, layers, parameter count, scores an
     const tenon::model_file_summary m = tenon::inspect_model_file(dir.file("caps.tnm"));
     // 4 features (torque, angle, day and night) -> 16 -> 8 -> 2 classes: weights and biases.
     CHECK(m.parameter_values == 4 * 16 + 16 + 16 * 8 + 8 + 8 * 2 + 2);
-    for (const std::string& expected : std::vector<std::string>{
-             "tenon model file, format version 2, float weights", "verdict: classification into 2 classes: loose, tight",
-          "Inputs: 3 columns -> 4 features", "  torque (numeric)", "  angle (numeric)", "  shift (categorical)", "categories   day, night",
-          "one-hot, unseen -> all zeros", "z-score", "Network: 5 layers, " + std::to_string(m.parameter_values) + " parameter values",
-          "hidden1          dense        4 -> 16", "hidden1_act      activation   relu", "hidden2          dense        16 -> 8",
-          "output           dense        8 -> 2", "test_accuracy", "validation_accuracy", "seed         42", "library      tenon " +
-          std::string(tenon::version_string()), "data         caps.csv, fingerprint 0x", "epochs       ", " of 12, best ", " UTC", "hidden                   16,8"}) {
+    for (const std::string& expected : std::vector<std::string>{"tenon model file, format version 2, float weights",
+                                                                "verdict: classification into 2 classes: loose, tight",
+                                                                "Inputs: 3 columns -> 4 features",
+                                                                "  torque (numeric)",
+                                                                "  angle (numeric)",
+                                                                "  shift (categorical)",
+                                                                "categories   day, night",
+                                                                "one-hot, unseen -> all zeros",
+                                                                "z-score",
+                                                                "Network: 5 layers, " + std::to_string(m.parameter_values) + " parameter values",
+                                                                "hidden1          dense        4 -> 16",
+                                                                "hidden1_act      activation   relu",
+                                                                "hidden2          dense        16 -> 8",
+                                                                "output           dense        8 -> 2",
+                                                                "test_accuracy",
+                                                                "validation_accuracy",
+                                                                "seed         42",
+                                                                "library      tenon " + std::string(tenon::version_string()),
+                                                                "data         caps.csv, fingerprint 0x",
+                                                                "epochs       ",
+                                                                " of 12, best ",
+                                                                " UTC",
+                                                                "hidden                   16,8"}) {
         CAPTURE(expected);
         CHECK(s.find(expected) != std::string::npos);
     }
@@ -403,9 +422,10 @@ TEST_CASE("inspect shows the inputs, classes, layers, parameter count, scores an
 
     const auto j = run({"inspect", "--model", dir.file("caps.tnm"), "--json"});
     REQUIRE(j.status == 0);
-    for (const std::string& expected : std::vector<std::string>{"\"task\": \"classification\"", "\"classes\": [\n      \"loose\",\n      \"tight\"\n    ]",
-                                       "\"column\": \"shift\"", "\"resumable\": false", "\"missing_indicator\": false", "\"parameter_values\": " + std::to_string(m.parameter_values), "\"seed\": 42",
-                                       "\"name\": \"hidden2\"", "\"outputs\": 8", "\"test_accuracy\": "}) {
+    for (const std::string& expected : std::vector<std::string>{
+             "\"task\": \"classification\"", "\"classes\": [\n      \"loose\",\n      \"tight\"\n    ]", "\"column\": \"shift\"",
+             "\"resumable\": false", "\"missing_indicator\": false", "\"parameter_values\": " + std::to_string(m.parameter_values), "\"seed\": 42",
+             "\"name\": \"hidden2\"", "\"outputs\": 8", "\"test_accuracy\": "}) {
         CAPTURE(expected);
         CHECK(j.out.find(expected) != std::string::npos);
     }
@@ -431,7 +451,8 @@ struct trained {
     explicit trained(const std::string& name) : dir(name) {
         data = dir.write("caps.csv", caps_csv(200, 3));
         model = dir.file("caps.tnm");
-        REQUIRE(run({"train", "--data", data, "--target", "verdict", "--ignore", "cap_id", "--epochs", "5", "--model", model, "--quiet"}).status == 0);
+        REQUIRE(run({"train", "--data", data, "--target", "verdict", "--ignore", "cap_id", "--epochs", "5", "--model", model, "--quiet"}).status ==
+                0);
     }
 };
 
@@ -452,7 +473,8 @@ TEST_CASE("a missing or damaged model file is named; nothing is written") {
     const auto absent = t.dir.file("absent.tnm");
     check_failure(t.dir, {"infer", "--model", absent, "--data", t.data, "--out", out},
                   "tenon infer: error: [deploy.file.io] --model '" + absent + "': cannot read it (No such file or directory)\n");
-    check_failure(t.dir, {"inspect", "--model", absent}, "tenon inspect: error: [deploy.file.io] --model '" + absent + "': cannot read it (No such file or directory)\n");
+    check_failure(t.dir, {"inspect", "--model", absent},
+                  "tenon inspect: error: [deploy.file.io] --model '" + absent + "': cannot read it (No such file or directory)\n");
 
     // One byte flipped inside the weights: the section's CRC-32 catches it.
     std::string bytes = read_file(t.model);
@@ -467,8 +489,9 @@ TEST_CASE("a missing or damaged model file is named; nothing is written") {
     check_failure(t.dir, {"infer", "--model", damaged, "--data", t.data, "--out", out}, "tenon infer: error: " + message);
     check_failure(t.dir, {"inspect", "--model", damaged}, "tenon inspect: error: " + message);
     // A CSV file given as the model.
-    check_failure(t.dir, {"inspect", "--model", t.data}, "tenon inspect: error: [deploy.model.magic] " + t.data +
-                                                             ": not a tenon model file (the first bytes are not the tenon model magic)\n");
+    check_failure(t.dir, {"inspect", "--model", t.data},
+                  "tenon inspect: error: [deploy.model.magic] " + t.data +
+                      ": not a tenon model file (the first bytes are not the tenon model magic)\n");
 }
 
 TEST_CASE("infer names a column the model reads that the data lacks, and an unknown --keep column") {
@@ -476,15 +499,18 @@ TEST_CASE("infer names a column the model reads that the data lacks, and an unkn
     const auto data = t.dir.write("new.csv", "angle,torque,cap_id\n300,2,x\n");
     const auto out = t.dir.file("p.csv");
     check_failure(t.dir, {"infer", "--model", t.model, "--data", data, "--out", out},
-                  "tenon infer: error: [cli.column.missing] " + data + ": the model reads column 'shift', which the data does not have (columns: angle, "
-                                                                       "torque, cap_id)\n");
+                  "tenon infer: error: [cli.column.missing] " + data +
+                      ": the model reads column 'shift', which the data does not have (columns: angle, "
+                      "torque, cap_id)\n");
     const auto fewer = t.dir.write("fewer.csv", "angle\n300\n");
     check_failure(t.dir, {"infer", "--model", t.model, "--data", fewer, "--out", out},
-                  "tenon infer: error: [cli.column.missing] " + fewer + ": the model reads columns 'torque', 'shift', which the data does not have "
-                                                                        "(columns: angle)\n");
+                  "tenon infer: error: [cli.column.missing] " + fewer +
+                      ": the model reads columns 'torque', 'shift', which the data does not have "
+                      "(columns: angle)\n");
     check_failure(t.dir, {"infer", "--model", t.model, "--data", t.data, "--out", out, "--keep", "cap_id,capid"},
-                  "tenon infer: error: [cli.column.unknown] " + t.data + ": --keep names 'capid', which is not a column (columns: cap_id, torque, "
-                                                                         "angle, shift, verdict)\n");
+                  "tenon infer: error: [cli.column.unknown] " + t.data +
+                      ": --keep names 'capid', which is not a column (columns: cap_id, torque, "
+                      "angle, shift, verdict)\n");
 }
 
 TEST_CASE("a cell that cannot be predicted fails the whole command with file, line, column and value; an old output stays") {
@@ -520,7 +546,9 @@ TEST_CASE("an --out file that cannot be created fails with status 3") {
     trained t("unwritable");
     const auto out = t.dir.file("no_such_dir/p.csv");
     check_failure(t.dir, {"infer", "--model", t.model, "--data", t.data, "--out", out},
-                  "tenon infer: error: [cli.output.write] --out '" + out + "': the directory '" + std::filesystem::path(out).parent_path().string() + "' does not exist\n", tenon_cli::exit_output_failed);
+                  "tenon infer: error: [cli.output.write] --out '" + out + "': the directory '" + std::filesystem::path(out).parent_path().string() +
+                      "' does not exist\n",
+                  tenon_cli::exit_output_failed);
 }
 
 TEST_CASE("bad command lines of infer and inspect are named") {
@@ -530,10 +558,14 @@ TEST_CASE("bad command lines of infer and inspect are named") {
     check_failure(dir, {"infer", "--data", d, "--out", o}, infer + "[cli.option.missing] tenon infer needs --model MODEL.tnm\n");
     check_failure(dir, {"infer", "--model", m, "--out", o}, infer + "[cli.option.missing] tenon infer needs --data FILE.csv\n");
     check_failure(dir, {"infer", "--model", m, "--data", d}, infer + "[cli.option.missing] tenon infer needs --out PREDICTIONS.csv\n");
-    check_failure(dir, {"infer", "--model", m, "--data", d, "--out", d}, infer + "[cli.option.conflict] --out and --data name the same file '" + d + "'\n");
-    check_failure(dir, {"infer", "--model", m, "--data", d, "--out", m}, infer + "[cli.option.conflict] --out and --model name the same file '" + m + "'\n");
-    check_failure(dir, {"infer", "--model", m, "--data", d, "--out", o, "--keep", "id,,x"}, infer + "[cli.option.value] --keep 'id,,x': an empty column name\n");
-    check_failure(dir, {"infer", "--model", m, "--data", d, "--out", o, "--keep", "id,x,id"}, infer + "[cli.option.conflict] --keep names 'id' twice\n");
+    check_failure(dir, {"infer", "--model", m, "--data", d, "--out", d},
+                  infer + "[cli.option.conflict] --out and --data name the same file '" + d + "'\n");
+    check_failure(dir, {"infer", "--model", m, "--data", d, "--out", m},
+                  infer + "[cli.option.conflict] --out and --model name the same file '" + m + "'\n");
+    check_failure(dir, {"infer", "--model", m, "--data", d, "--out", o, "--keep", "id,,x"},
+                  infer + "[cli.option.value] --keep 'id,,x': an empty column name\n");
+    check_failure(dir, {"infer", "--model", m, "--data", d, "--out", o, "--keep", "id,x,id"},
+                  infer + "[cli.option.conflict] --keep names 'id' twice\n");
     check_failure(dir, {"infer", "--model", m, "--model", m}, infer + "[cli.option.conflict] --model is given more than once\n");
     check_failure(dir, {"infer", "--model"}, infer + "[cli.option.missing] --model needs a value\n");
     check_failure(dir, {"infer", "--model="}, infer + "[cli.option.value] --model needs a file name, got an empty one\n");
@@ -554,20 +586,25 @@ TEST_CASE("train --model: refused with --folds or a clashing path; not written w
     const auto model = dir.file("caps.tnm");
     const std::string train = "tenon train: error: ";
     check_failure(dir, {"train", "--data", data, "--target", "verdict", "--folds", "3", "--model", model},
-                  train + "[cli.option.conflict] --model saves the model of one holdout run; cross-validation (--folds 3) trains one model per fold and "
-                          "saves none\n");
+                  train +
+                      "[cli.option.conflict] --model saves the model of one holdout run; cross-validation (--folds 3) trains one model per fold and "
+                      "saves none\n");
     check_failure(dir, {"train", "--data", data, "--target", "verdict", "--model", model, "--metrics", model},
                   train + "[cli.option.conflict] --metrics and --model name the same file '" + model + "'\n");
     check_failure(dir, {"train", "--data", data, "--target", "verdict", "--model", data},
                   train + "[cli.option.conflict] --model and --data name the same file '" + data + "'\n");
-    check_failure(dir, {"train", "--data", data, "--target", "verdict", "--model="}, train + "[cli.option.value] --model needs a file name, got an empty one\n");
+    check_failure(dir, {"train", "--data", data, "--target", "verdict", "--model="},
+                  train + "[cli.option.value] --model needs a file name, got an empty one\n");
     const auto nowhere = dir.file("no_such_dir/caps.tnm");
     check_failure(dir, {"train", "--data", data, "--target", "verdict", "--model", nowhere},
-                  train + "[cli.output.write] --model '" + nowhere + "': the directory '" + std::filesystem::path(nowhere).parent_path().string() + "' does not exist\n", tenon_cli::exit_output_failed);
+                  train + "[cli.output.write] --model '" + nowhere + "': the directory '" + std::filesystem::path(nowhere).parent_path().string() +
+                      "' does not exist\n",
+                  tenon_cli::exit_output_failed);
     const auto one = dir.write("one.csv", "torque,verdict\n1.5,tight\n2.5,tight\n");
     check_failure(dir, {"train", "--data", one, "--target", "verdict", "--model", model, "--metrics", dir.file("m.json")},
-                  train + "[cli.target.single_class] " + one + ": the target 'verdict' has a single class ('tight') in all 2 rows with a target; "
-                                                               "classification needs at least 2\n");
+                  train + "[cli.target.single_class] " + one +
+                      ": the target 'verdict' has a single class ('tight') in all 2 rows with a target; "
+                      "classification needs at least 2\n");
 }
 
 TEST_CASE("train --model reports the saved file and replaces an older model") {
@@ -621,8 +658,8 @@ std::string press_log_text() {
         const int oil = 55 + (i * 5) % 16;
         const char* die = dies[(i * 3) % 4];
         const char* fault = speed > 42.0 && oil > 64 ? "jam" : (std::string(die) == "D4" && oil > 60 ? "worn" : "ok");
-        text += (i % 17 == 0 ? std::string() : tenon::number_to_text(speed)) + "," + (i % 23 == 0 ? "" : die) + "," + std::to_string(oil) +
-                ",," + (i % 29 == 0 ? "NA" : fault) + "\n";
+        text += (i % 17 == 0 ? std::string() : tenon::number_to_text(speed)) + "," + (i % 23 == 0 ? "" : die) + "," + std::to_string(oil) + ",," +
+            (i % 29 == 0 ? "NA" : fault) + "\n";
     }
     return text;
 }
@@ -649,8 +686,8 @@ TEST_CASE("one table with missing targets and missing cells gives the same model
     const std::string text = press_log_text();
     const auto data = dir.write("press_log.csv", text);
     const auto tool_model = dir.file("press.tnm");
-    const auto r = run({"train", "--data", data, "--target", "fault", "--ignore", "note", "--seed", "7", "--epochs", "12", "--model", tool_model,
-                        "--quiet"});
+    const auto r =
+        run({"train", "--data", data, "--target", "fault", "--ignore", "note", "--seed", "7", "--epochs", "12", "--model", tool_model, "--quiet"});
     REQUIRE(r.status == 0);
     const auto from_tool = tenon::load_model_file<float>(tool_model);
 
@@ -695,7 +732,7 @@ TEST_CASE("library messages about a row name its line in the file, as the tool d
     REQUIRE(rows.row_lines().size() == rows.row_count());
     CHECK(rows.row_lines()[0] == 2);
     CHECK(rows.row_lines()[1] == 4);  // after the note spanning lines 2 and 3
-    const std::size_t row = 29;       // the first row without a fault label
+    const std::size_t row = 29;  // the first row without a fault label
     REQUIRE(rows.at("fault").is_missing(row));
     const std::string line = std::to_string(line_of_row(text, row));
     CHECK(line == "32");
@@ -720,8 +757,9 @@ TEST_CASE("library messages about a row name its line in the file, as the tool d
     } catch (const tenon::error& e) {
         message = e.what();
     }
-    CHECK(message == "[prep.value.missing] " + data + " line " + std::to_string(line_of_row(text, 17)) +
-                         ", column 'ram_speed': the cell is missing and the plan has no fill for it");
+    CHECK(message ==
+          "[prep.value.missing] " + data + " line " + std::to_string(line_of_row(text, 17)) +
+              ", column 'ram_speed': the cell is missing and the plan has no fill for it");
 }
 
 // ---------------------------------------------------------------------------
@@ -812,6 +850,7 @@ TEST_CASE("inspect says a version-1 file carries no calibration; --coverage out 
     check_failure(dir, {"train", "--data", data, "--target", "verdict", "--coverage", "90%"},
                   train + "[cli.option.value] --coverage '90%': not a finite number\n");
     check_failure(dir, {"train", "--data", data, "--target", "verdict", "--coverage", "0.9", "--folds", "3"},
-                  train + "[cli.option.conflict] --coverage calibrates the model of one holdout run on its validation rows; it cannot be combined "
-                          "with --folds 3\n");
+                  train +
+                      "[cli.option.conflict] --coverage calibrates the model of one holdout run on its validation rows; it cannot be combined "
+                      "with --folds 3\n");
 }

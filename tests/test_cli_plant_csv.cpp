@@ -24,9 +24,7 @@ struct scratch_dir : cli_test::scratch_dir {
     explicit scratch_dir(const std::string& name) : cli_test::scratch_dir("tenon_cli_plant_tests_", name) {}
 };
 
-std::map<std::string, std::string> read_metrics(const std::string& path) {
-    return cli_test::json_flattener(cli_test::read_file(path)).values;
-}
+std::map<std::string, std::string> read_metrics(const std::string& path) { return cli_test::json_flattener(cli_test::read_file(path)).values; }
 
 std::size_t feature_count(const std::string& metrics_path) { return static_cast<std::size_t>(std::stod(read_metrics(metrics_path).at("features"))); }
 
@@ -51,7 +49,7 @@ std::string press_log(std::size_t rows, char delimiter = ',', bool decimal_comma
         char serial[32];
         std::snprintf(serial, sizeof serial, "SN-%06zu", 4711 * i % 1000003);
         csv += std::string(serial) + d + std::to_string(1000 + i) + d + "P" + std::to_string(i % 40) + d + "L" + std::to_string(i % 3) + d +
-               (i % 3 == 0 ? "night" : "day") + d + force_text + d + std::to_string(die) + d + (fault ? "1" : "0") + "\n";
+            (i % 3 == 0 ? "night" : "day") + d + force_text + d + std::to_string(die) + d + (fault ? "1" : "0") + "\n";
     }
     return csv;
 }
@@ -66,11 +64,13 @@ TEST_CASE("tenon train leaves identifier-like columns out, says so in one line e
     const auto path = dir.write("press.csv", press_log(300));
     const auto r = run({"train", "--data", path, "--target", "fault", "--epochs", "3", "--metrics", dir.file("m.json")});
     REQUIRE(r.status == 0);
-    CHECK(has_line(r.out, "note: leaving out 'serial' (300 distinct values in 300 rows: nearly every value is distinct, as in an "
-                          "identifier); --use serial keeps it"));
+    CHECK(has_line(r.out,
+                   "note: leaving out 'serial' (300 distinct values in 300 rows: nearly every value is distinct, as in an "
+                   "identifier); --use serial keeps it"));
     CHECK(has_line(r.out, "note: leaving out 'cycle' (whole numbers that rise (or fall) on every row, as a counter does); --use cycle keeps it"));
-    CHECK(has_line(r.out, "note: leaving out 'part_id' (its name reads as an identifier, and it holds 40 distinct values in 300 rows); "
-                          "--use part_id keeps it"));
+    CHECK(has_line(r.out,
+                   "note: leaving out 'part_id' (its name reads as an identifier, and it holds 40 distinct values in 300 rows); "
+                   "--use part_id keeps it"));
     CHECK(r.out.find("'shift'") == std::string::npos);  // two categories: not flagged
     CHECK(r.out.find("'line_id'") == std::string::npos);
     // line_id (3) + shift (2) + force + die: the identifiers add nothing.
@@ -84,8 +84,9 @@ TEST_CASE("tenon train leaves identifier-like columns out, says so in one line e
     // --use names a column; it cannot also be ignored.
     const auto unknown = run({"train", "--data", path, "--target", "fault", "--use", "serail"});
     CHECK(unknown.status == 2);
-    CHECK(unknown.err == "tenon train: error: [cli.column.unknown] " + path +
-                             ": --use names 'serail', which is not a column (columns: serial, cycle, part_id, line_id, shift, force, die, fault)\n");
+    CHECK(unknown.err ==
+          "tenon train: error: [cli.column.unknown] " + path +
+              ": --use names 'serail', which is not a column (columns: serial, cycle, part_id, line_id, shift, force, die, fault)\n");
     const auto both = run({"train", "--data", path, "--target", "fault", "--use", "serial", "--ignore", "serial"});
     CHECK(both.status == 2);
     CHECK(both.err == "tenon train: error: [cli.option.conflict] --ignore and --use both name the column 'serial'\n");
@@ -102,8 +103,9 @@ TEST_CASE("tenon train warns about a categorical column with more categories tha
     const auto path = dir.write("crowded.csv", csv);
     const auto r = run({"train", "--data", path, "--target", "amps", "--epochs", "2"});
     REQUIRE(r.status == 0);
-    CHECK(has_line(r.out, "warning: 'operator' has 30 categories in 200 rows, about 6 rows per category: each one-hot input is learned "
-                          "from few rows (more categories than 10% of the rows); --ignore operator leaves it out"));
+    CHECK(has_line(r.out,
+                   "warning: 'operator' has 30 categories in 200 rows, about 6 rows per category: each one-hot input is learned "
+                   "from few rows (more categories than 10% of the rows); --ignore operator leaves it out"));
     const auto quiet = run({"train", "--data", path, "--target", "amps", "--epochs", "2", "--quiet"});
     CHECK(quiet.out.empty());
 }
@@ -127,8 +129,10 @@ TEST_CASE("tenon train reads a ';' file with decimal commas as numbers, told fro
     CHECK(plain.out.find("note: " + comma_path + " is read") == std::string::npos);  // a comma file reads as before
     const auto detected = with({"--data", semi_path}, "semi.json");
     REQUIRE(detected.status == 0);
-    CHECK(has_line(detected.out, "note: " + semi_path + " is read with ';' between fields and decimal commas (told from its first rows; "
-                                 "--delimiter and --decimal-comma name them)"));
+    CHECK(has_line(detected.out,
+                   "note: " + semi_path +
+                       " is read with ';' between fields and decimal commas (told from its first rows; "
+                       "--delimiter and --decimal-comma name them)"));
     // "59,8" is a number: the same features and the same scores as the comma file.
     auto a = read_metrics(dir.file("plain.json")), b = read_metrics(dir.file("semi.json"));
     CHECK(a.at("features") == b.at("features"));
@@ -145,8 +149,10 @@ TEST_CASE("tenon train reads a ';' file with decimal commas as numbers, told fro
     const auto tab_path = dir.write("tab.csv", tabbed);
     const auto tab = with({"--data", tab_path}, "tab.json");
     REQUIRE(tab.status == 0);
-    CHECK(has_line(tab.out, "note: " + tab_path + " is read with tab between fields and decimal points (told from its first rows; "
-                            "--delimiter and --decimal-comma name them)"));
+    CHECK(has_line(tab.out,
+                   "note: " + tab_path +
+                       " is read with tab between fields and decimal points (told from its first rows; "
+                       "--delimiter and --decimal-comma name them)"));
     CHECK(read_metrics(dir.file("tab.json")).at("test.log_loss") == a.at("test.log_loss"));
 }
 
@@ -156,9 +162,10 @@ TEST_CASE("tenon train refuses an ambiguous dialect and bad dialect options") {
     const auto grouped = dir.write("grouped.csv", "force;fault\n1.234,5;0\n2.345,5;1\n");
     auto r = run({"train", "--data", grouped, "--target", "fault", "--metrics", dir.file("m.json")});
     CHECK(r.status == 2);
-    CHECK(r.err == "tenon train: error: [prep.csv.dialect_ambiguous] " + grouped +
-                       " line 2 column 1 ('force'): '1.234,5' holds both '.' and ',': thousands separators are not read; write numbers "
-                       "without them\n");
+    CHECK(r.err ==
+          "tenon train: error: [prep.csv.dialect_ambiguous] " + grouped +
+              " line 2 column 1 ('force'): '1.234,5' holds both '.' and ',': thousands separators are not read; write numbers "
+              "without them\n");
     const auto thousands = dir.write("thousands.csv", "force;fault\n1,234;0\n2,345;1\n");
     r = run({"train", "--data", thousands, "--target", "fault"});
     CHECK(r.status == 2);
@@ -166,18 +173,21 @@ TEST_CASE("tenon train refuses an ambiguous dialect and bad dialect options") {
     const auto two = dir.write("two.csv", "a;b,c\n1;2,3\n");
     r = run({"train", "--data", two, "--target", "c"});
     CHECK(r.status == 2);
-    CHECK(r.err == "tenon train: error: [prep.csv.dialect_ambiguous] " + two +
-                       ": the delimiter is ambiguous: ',' (2 fields) and ';' (2 fields) each split the header and the first rows evenly; "
-                       "name the delimiter\n");
+    CHECK(r.err ==
+          "tenon train: error: [prep.csv.dialect_ambiguous] " + two +
+              ": the delimiter is ambiguous: ',' (2 fields) and ';' (2 fields) each split the header and the first rows evenly; "
+              "name the delimiter\n");
     r = run({"train", "--data", two, "--target", "b", "--delimiter", "colon"});
     CHECK(r.err == "tenon train: error: [cli.option.value] --delimiter 'colon': not one of ,, ;, tab, |\n");
     r = run({"train", "--data", two, "--target", "b", "--delimiter", ",", "--decimal-comma"});
-    CHECK(r.err == "tenon train: error: [cli.option.conflict] --decimal-comma cannot go with --delimiter ',': a comma cannot separate both "
-                   "fields and decimals\n");
+    CHECK(r.err ==
+          "tenon train: error: [cli.option.conflict] --decimal-comma cannot go with --delimiter ',': a comma cannot separate both "
+          "fields and decimals\n");
     const auto comma_file = dir.write("comma.csv", "a,b\n1,2\n");
     r = run({"train", "--data", comma_file, "--target", "b", "--decimal-comma"});
-    CHECK(r.err == "tenon train: error: [cli.option.conflict] --decimal-comma: " + comma_file +
-                       " is delimited by ','; a comma cannot separate both fields and decimals (give --delimiter if the file uses another)\n");
+    CHECK(r.err ==
+          "tenon train: error: [cli.option.conflict] --decimal-comma: " + comma_file +
+              " is delimited by ','; a comma cannot separate both fields and decimals (give --delimiter if the file uses another)\n");
     r = run({"train", "--data", comma_file, "--target", "b", "--decimal-comma=yes"});
     CHECK(r.err == "tenon train: error: [cli.option.value] --decimal-comma takes no value\n");
     // Named, the thousands file reads as decimal commas: 1,234 is 1.234.
@@ -219,11 +229,13 @@ TEST_CASE("--categorical and --numeric force a column's kind; unknown names and 
     CHECK(r.err == "tenon train: error: [prep.cell.not_numeric] " + typo + " line 2 column 2 ('grade'): 'A' is not a finite number\n");
     r = with({"--categorical", "dye"});
     CHECK(r.status == 2);
-    CHECK(r.err == "tenon train: error: [cli.column.unknown] " + path +
-                       ": --categorical names 'dye', which is not a column (columns: serial, cycle, part_id, line_id, shift, force, die, fault)\n");
+    CHECK(r.err ==
+          "tenon train: error: [cli.column.unknown] " + path +
+              ": --categorical names 'dye', which is not a column (columns: serial, cycle, part_id, line_id, shift, force, die, fault)\n");
     r = with({"--numeric", "forse"});
-    CHECK(r.err == "tenon train: error: [cli.column.unknown] " + path +
-                       ": --numeric names 'forse', which is not a column (columns: serial, cycle, part_id, line_id, shift, force, die, fault)\n");
+    CHECK(r.err ==
+          "tenon train: error: [cli.column.unknown] " + path +
+              ": --numeric names 'forse', which is not a column (columns: serial, cycle, part_id, line_id, shift, force, die, fault)\n");
     r = with({"--categorical", "die", "--numeric", "force,die"});
     CHECK(r.err == "tenon train: error: [cli.option.conflict] --categorical and --numeric both name the column 'die'\n");
     r = with({"--categorical", "fault", "--task", "regress"});
@@ -270,9 +282,9 @@ TEST_CASE("a model trained on a ';' file with decimal commas infers, retrains an
     scratch_dir dir("dialect_after_training");
     const auto comma_path = dir.write("comma.csv", press_log(300));
     const auto semi_path = dir.write("semi.csv", press_log(300, ';', true));
-    REQUIRE(run({"train", "--data", semi_path, "--target", "fault", "--epochs", "3", "--categorical", "die", "--model", dir.file("press.tnm"),
-                 "--quiet"})
-                .status == 0);
+    REQUIRE(
+        run({"train", "--data", semi_path, "--target", "fault", "--epochs", "3", "--categorical", "die", "--model", dir.file("press.tnm"), "--quiet"})
+            .status == 0);
     // The same rows written either way give the same predictions.
     REQUIRE(run({"infer", "--model", dir.file("press.tnm"), "--data", semi_path, "--out", dir.file("semi_p.csv"), "--quiet"}).status == 0);
     REQUIRE(run({"infer", "--model", dir.file("press.tnm"), "--data", comma_path, "--out", dir.file("comma_p.csv"), "--quiet"}).status == 0);
@@ -295,8 +307,8 @@ TEST_CASE("tenon train --help explains the options for plant files") {
         CAPTURE(std::string(option));
         CHECK(r.out.find(std::string("  ") + option + " ") != std::string::npos);
     }
-    for (const char* rule : {"2 to 20 distinct whole numbers", "95% of 20 or more rows", "more categories than 10% of\n                         the rows",
-                             "Thousands separators are never read"}) {
+    for (const char* rule : {"2 to 20 distinct whole numbers", "95% of 20 or more rows",
+                             "more categories than 10% of\n                         the rows", "Thousands separators are never read"}) {
         CAPTURE(std::string(rule));
         CHECK(r.out.find(rule) != std::string::npos);
     }
@@ -338,7 +350,8 @@ TEST_CASE("a chronological regression reports the last reading repeated, ordered
     CHECK(m.count("last_reading.validation.rmse") == 1);
     CHECK(r.out.find("last reading repeated: RMSE ") != std::string::npos);
     // Not a series: no such yardstick.
-    const auto random_split = run({"train", "--data", path, "--target", "level", "--epochs", "2", "--ensemble", "1", "--metrics", dir.file("r.json"), "--quiet"});
+    const auto random_split =
+        run({"train", "--data", path, "--target", "level", "--epochs", "2", "--ensemble", "1", "--metrics", dir.file("r.json"), "--quiet"});
     REQUIRE(random_split.status == 0);
     CHECK(read_metrics(dir.file("r.json")).at("last_reading") == "null");
 }

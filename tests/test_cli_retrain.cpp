@@ -173,8 +173,9 @@ TEST_CASE("retrain on drifted rows promotes a candidate that predicts new rows b
     REQUIRE(candidate.calibration->interval);
     CHECK(candidate.calibration->interval->coverage == 0.9);
     CHECK(candidate.calibration->interval->rows == static_cast<std::uint64_t>(number_at(j, "rows.validation")));
-    CHECK(contains(r.out, "  coverage     bands on the holdout, nominal 0.9: incumbent " + six_digits(number_at(j, "calibration.incumbent_coverage")) +
-                              ", mean band width "));
+    CHECK(contains(r.out,
+                   "  coverage     bands on the holdout, nominal 0.9: incumbent " + six_digits(number_at(j, "calibration.incumbent_coverage")) +
+                       ", mean band width "));
 
     CHECK(contains(r.out, "  metric       rmse (lower is better) on 80 holdout rows, margin 0\n"));
     CHECK(contains(r.out, "  incumbent    " + six_digits(incumbent_score) + "\n"));
@@ -201,14 +202,16 @@ TEST_CASE("retrain continues every network of an ensemble and writes them all; -
     scratch_dir dir("ensemble");
     const auto data = dir.write("history.csv", press_csv(600, 11, false));
     const auto model = dir.file("press.tnm");
-    REQUIRE(run({"train", "--data", data, "--target", "amps", "--epochs", "40", "--seed", "3", "--ensemble", "3", "--model", model, "--quiet"})
-                .status == 0);
+    REQUIRE(
+        run({"train", "--data", data, "--target", "amps", "--epochs", "40", "--seed", "3", "--ensemble", "3", "--model", model, "--quiet"}).status ==
+        0);
     const tenon::model_file<float> incumbent = tenon::load_model_file<float>(model);
     REQUIRE(incumbent.members.size() == 2);
     const auto recent = dir.write("recent.csv", press_csv(400, 12, true));
     const auto one = dir.file("one.tnm"), two = dir.file("two.tnm");
     const auto r1 = run({"retrain", "--model", model, "--data", recent, "--out", one, "--seed", "5", "--json", dir.file("one.json")});
-    const auto r2 = run({"retrain", "--model", model, "--data", recent, "--out", two, "--seed", "5", "--threads", "2", "--json", dir.file("two.json")});
+    const auto r2 =
+        run({"retrain", "--model", model, "--data", recent, "--out", two, "--seed", "5", "--threads", "2", "--json", dir.file("two.json")});
     REQUIRE(r1.status == tenon_cli::exit_success);
     REQUIRE(r2.status == tenon_cli::exit_success);
     CHECK(contains(r1.out, "; all 3 networks of the ensemble continued (epochs and steps: the first's)\n"));
@@ -222,15 +225,15 @@ TEST_CASE("retrain continues every network of an ensemble and writes them all; -
     const auto same = [](const std::vector<tenon::named_matrix<float>>& x, const std::vector<tenon::named_matrix<float>>& y) {
         if (x.size() != y.size()) return false;
         for (std::size_t i = 0; i < x.size(); ++i)
-            if (x[i].name != y[i].name || !std::equal(x[i].values.data(), x[i].values.data() + x[i].values.size(), y[i].values.data(),
-                                                      y[i].values.data() + y[i].values.size()))
+            if (x[i].name != y[i].name ||
+                !std::equal(x[i].values.data(), x[i].values.data() + x[i].values.size(), y[i].values.data(), y[i].values.data() + y[i].values.size()))
                 return false;
         return true;
     };
     for (std::size_t k = 0; k < 3; ++k) {
         CAPTURE(k);
         const auto& mine = k == 0 ? a.weights : a.members[k - 1];
-        CHECK(same(mine, k == 0 ? b.weights : b.members[k - 1]));                      // 1 and 2 threads agree
+        CHECK(same(mine, k == 0 ? b.weights : b.members[k - 1]));  // 1 and 2 threads agree
         CHECK_FALSE(same(mine, k == 0 ? incumbent.weights : incumbent.members[k - 1]));  // every member trained
     }
     // The promoted ensemble serves: tenon infer averages its three networks.
@@ -349,7 +352,6 @@ TEST_CASE("inspect after a retrain shows where the current weights came from, an
     REQUIRE(history_at != std::string::npos);
     CHECK(json.out.find("\"data\": \"history.csv\"", history_at) != std::string::npos);
     CHECK(json.out.find("\"test_rmse\": ", history_at) != std::string::npos);
-
 }
 
 TEST_CASE("retrain --budget is read on the injected clock: a budget spent before training keeps the incumbent") {
@@ -376,9 +378,9 @@ TEST_CASE("retrain --budget is read on the injected clock: a budget spent before
 TEST_CASE("retrain counts the rows the frozen preparation refuses and still decides") {
     press_model p("refused");
     std::string csv = press_csv(200, 12, true);
-    csv += "1500,0.5,synthetic,\n";    // no target
-    csv += "1500,0.5,,20\n";           // a missing oil grade: filled (most frequent), so usable
-    csv += "fast,0.5,mineral,20\n";    // not a number
+    csv += "1500,0.5,synthetic,\n";  // no target
+    csv += "1500,0.5,,20\n";  // a missing oil grade: filled (most frequent), so usable
+    csv += "fast,0.5,mineral,20\n";  // not a number
     const auto recent = p.dir.write("recent.csv", csv);
     const auto r = run({"retrain", "--model", p.model, "--data", recent, "--out", p.dir.file("o.tnm"), "--json", "-"});
     CHECK((r.status == 0 || r.status == 4));
@@ -412,7 +414,8 @@ TEST_CASE("retrain errors are named, exit 2 (3 for an unwritable output), and le
                   e + "[cli.option.value] --holdout-share '1': must lie strictly between 0 and 1\n");
     check_failure(p.dir, {"retrain", "--model", p.model, "--data", recent, "--out", out, "--holdout", "oldest"},
                   e + "[cli.option.value] --holdout 'oldest': not one of random, latest\n");
-    check_failure(p.dir, {"retrain", "--model", p.model, "--data", recent}, e + "[cli.option.missing] tenon retrain needs --out NEW_MODEL.tnm (it may be the --model file)\n");
+    check_failure(p.dir, {"retrain", "--model", p.model, "--data", recent},
+                  e + "[cli.option.missing] tenon retrain needs --out NEW_MODEL.tnm (it may be the --model file)\n");
     check_failure(p.dir, {"retrain", "--data", recent, "--out", out}, e + "[cli.option.missing] tenon retrain needs --model MODEL.tnm\n");
     check_failure(p.dir, {"retrain", "--model", p.model, "--out", out}, e + "[cli.option.missing] tenon retrain needs --data NEW.csv\n");
     check_failure(p.dir, {"retrain", "--model", p.model, "--data", recent, "--out", recent},
@@ -426,17 +429,23 @@ TEST_CASE("retrain errors are named, exit 2 (3 for an unwritable output), and le
 
     // Data problems.
     const auto no_oil = p.dir.write("no_oil.csv", "speed,load,amps\n1500,0.5,20\n");
-    check_failure(p.dir, {"retrain", "--model", p.model, "--data", no_oil, "--out", out},
-                  e + "[cli.column.missing] " + no_oil + ": retraining needs 'oil' (the model's inputs and its target 'amps'), which the data does not have (columns: speed, load, amps)\n");
+    check_failure(
+        p.dir, {"retrain", "--model", p.model, "--data", no_oil, "--out", out},
+        e + "[cli.column.missing] " + no_oil +
+            ": retraining needs 'oil' (the model's inputs and its target 'amps'), which the data does not have (columns: speed, load, amps)\n");
     const auto no_target = p.dir.write("no_target.csv", "speed,load\n1500,0.5\n");
-    check_failure(p.dir, {"retrain", "--model", p.model, "--data", no_target, "--out", out},
-                  e + "[cli.column.missing] " + no_target + ": retraining needs 'oil', 'amps' (the model's inputs and its target 'amps'), which the data does not have (columns: speed, load)\n");
+    check_failure(
+        p.dir, {"retrain", "--model", p.model, "--data", no_target, "--out", out},
+        e + "[cli.column.missing] " + no_target +
+            ": retraining needs 'oil', 'amps' (the model's inputs and its target 'amps'), which the data does not have (columns: speed, load)\n");
     const auto header_only = p.dir.write("header_only.csv", "speed,load,oil,amps\n");
     check_failure(p.dir, {"retrain", "--model", p.model, "--data", header_only, "--out", out},
                   e + "[cli.data.empty] " + header_only + ": no data rows below the header\n");
     const auto few = p.dir.write("few.csv", press_csv(20, 12, true));
     check_failure(p.dir, {"retrain", "--model", p.model, "--data", few, "--out", out},
-                  e + "[deploy.retrain.too_few_rows] retrain_model: 20 of the 20 new rows are usable (0 refused); the holdout needs 30 and training at least 1 more\n");
+                  e +
+                      "[deploy.retrain.too_few_rows] retrain_model: 20 of the 20 new rows are usable (0 refused); the holdout needs 30 and training "
+                      "at least 1 more\n");
     check_failure(p.dir, {"retrain", "--model", p.model, "--data", recent, "--out", out, "--metric", "accuracy"},
                   e + "[deploy.retrain.option] retrain_model: the gate metric accuracy does not fit a regression model\n");
     // A file that is not a model: the library's reader names the problem.
@@ -453,10 +462,14 @@ TEST_CASE("retrain errors are named, exit 2 (3 for an unwritable output), and le
     // An output directory that does not exist: status 3, before any training.
     const auto nowhere = p.dir.file("no_such_dir/o.tnm");
     check_failure(p.dir, {"retrain", "--model", p.model, "--data", recent, "--out", nowhere},
-                  e + "[cli.output.write] --out '" + nowhere + "': the directory '" + std::filesystem::path(nowhere).parent_path().string() + "' does not exist\n", tenon_cli::exit_output_failed);
+                  e + "[cli.output.write] --out '" + nowhere + "': the directory '" + std::filesystem::path(nowhere).parent_path().string() +
+                      "' does not exist\n",
+                  tenon_cli::exit_output_failed);
     const auto report_nowhere = p.dir.file("no_such_dir/r.json");
     check_failure(p.dir, {"retrain", "--model", p.model, "--data", recent, "--out", out, "--json", report_nowhere},
-                  e + "[cli.output.write] --json '" + report_nowhere + "': the directory '" + std::filesystem::path(report_nowhere).parent_path().string() + "' does not exist\n", tenon_cli::exit_output_failed);
+                  e + "[cli.output.write] --json '" + report_nowhere + "': the directory '" +
+                      std::filesystem::path(report_nowhere).parent_path().string() + "' does not exist\n",
+                  tenon_cli::exit_output_failed);
 }
 
 // ---------------------------------------------------------------------------
@@ -557,9 +570,11 @@ TEST_CASE("drift errors are named, exit 2") {
     check_failure(p.dir, {"drift", "--model", p.model, "--data", no_oil},
                   e + "[cli.column.missing] " + no_oil + ": the model reads 'load', 'oil', which the data does not have (columns: speed, amps)\n");
     const auto header_only = p.dir.write("header_only.csv", "speed,load,oil\n");
-    check_failure(p.dir, {"drift", "--model", p.model, "--data", header_only}, e + "[cli.data.empty] " + header_only + ": no data rows below the header\n");
+    check_failure(p.dir, {"drift", "--model", p.model, "--data", header_only},
+                  e + "[cli.data.empty] " + header_only + ": no data rows below the header\n");
     const auto absent = p.dir.file("absent.tnm");
-    check_failure(p.dir, {"drift", "--model", absent, "--data", recent}, e + "[deploy.file.io] --model '" + absent + "': cannot read it (No such file or directory)\n");
+    check_failure(p.dir, {"drift", "--model", absent, "--data", recent},
+                  e + "[deploy.file.io] --model '" + absent + "': cannot read it (No such file or directory)\n");
     check_failure(p.dir, {"drift", "--model", p.model, "--data", recent, "--psi-threshold", "0"},
                   e + "[cli.option.value] --psi-threshold '0': must be positive\n");
     check_failure(p.dir, {"drift", "--model", p.model, "--data", recent, "--ks-threshold", "1.5"},
@@ -581,7 +596,8 @@ TEST_CASE("drift errors are named, exit 2") {
     const auto bare = p.dir.file("bare.tnm");
     tenon::save_model_file(bare, file);
     check_failure(p.dir, {"drift", "--model", bare, "--data", recent},
-                  e + "[cli.model.unusable] " + bare + ": the model holds no summaries of its training rows (section REFS), so drift cannot be measured\n");
+                  e + "[cli.model.unusable] " + bare +
+                      ": the model holds no summaries of its training rows (section REFS), so drift cannot be measured\n");
 }
 
 // ---------------------------------------------------------------------------
@@ -590,11 +606,34 @@ TEST_CASE("drift errors are named, exit 2") {
 TEST_CASE("retrain and drift explain every option with its default and their exit statuses; tenon --help lists them") {
     const auto retrain = run({"retrain", "--help"});
     CHECK(retrain.status == 0);
-    for (const char* text : {"  --model ", "  --data ", "  --out ", "  --margin ", "  --budget ", "  --metric ", "  --epochs ", "  --seed ",
-                             "  --threads ", "  --holdout-share ", "  --min-holdout ", "  --holdout ", "  --rollback ", "  --json ", "  --quiet ",
-                             "(default 0: any", "(default 0:\n", "(default auto", "(default 30)", "(default 1)", "(default 0.2)",
-                             "(default 30);", "(default\n                         random)", "(default MODEL.tnm.previous)",
-                             "0 the candidate was promoted", "4 the incumbent was kept", "2 bad command line", "3 an output file"}) {
+    for (const char* text : {"  --model ",
+                             "  --data ",
+                             "  --out ",
+                             "  --margin ",
+                             "  --budget ",
+                             "  --metric ",
+                             "  --epochs ",
+                             "  --seed ",
+                             "  --threads ",
+                             "  --holdout-share ",
+                             "  --min-holdout ",
+                             "  --holdout ",
+                             "  --rollback ",
+                             "  --json ",
+                             "  --quiet ",
+                             "(default 0: any",
+                             "(default 0:\n",
+                             "(default auto",
+                             "(default 30)",
+                             "(default 1)",
+                             "(default 0.2)",
+                             "(default 30);",
+                             "(default\n                         random)",
+                             "(default MODEL.tnm.previous)",
+                             "0 the candidate was promoted",
+                             "4 the incumbent was kept",
+                             "2 bad command line",
+                             "3 an output file"}) {
         CAPTURE(std::string(text));
         CHECK(contains(retrain.out, text));
     }

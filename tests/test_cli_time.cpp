@@ -36,8 +36,8 @@ std::string press_log(int rows, int form, int first_day = 1) {
             ++month;
         }
         const auto two = [](int v) { return std::string(v < 10 ? "0" : "") + std::to_string(v); };
-        const std::string stamp = form == 0 ? two(day) + "/" + two(month) + "/2021 " + two(hour) + ":00"
-                                            : "2021/" + two(month) + "/" + two(day) + " " + two(hour) + ":00";
+        const std::string stamp =
+            form == 0 ? two(day) + "/" + two(month) + "/2021 " + two(hour) + ":00" : "2021/" + two(month) + "/" + two(day) + " " + two(hour) + ":00";
         const int strokes = 2 + (i * 7) % 5;
         const double force = 100.0 + 10.0 * std::sin(6.283185307179586 * hour / 24.0) + strokes;
         text += stamp + "," + std::to_string(strokes) + "," + std::to_string(force) + "\n";
@@ -53,21 +53,24 @@ TEST_CASE("the tool refuses ambiguous slash dates until --time-format says which
     const std::string data = dir.write("press.csv", press_log(200, 0));
     const auto refused = run({"train", "--data", data, "--target", "force", "--epochs", "2", "--quiet"});
     CHECK(refused.status == 2);
-    CHECK(contains(refused.err, "[prep.time.ambiguous] " + data + ", column 'stamp': dates such as '01/01/2021 00:00' read both "
-                                "day-first (DD/MM/YYYY) and month-first (MM/DD/YYYY); give the time format with --time-format "
-                                "DD/MM/YYYY or MM/DD/YYYY (or COLUMN=FORM)"));
+    CHECK(contains(refused.err,
+                   "[prep.time.ambiguous] " + data +
+                       ", column 'stamp': dates such as '01/01/2021 00:00' read both "
+                       "day-first (DD/MM/YYYY) and month-first (MM/DD/YYYY); give the time format with --time-format "
+                       "DD/MM/YYYY or MM/DD/YYYY (or COLUMN=FORM)"));
     const auto bad = run({"train", "--data", data, "--target", "force", "--time-format", "DD-MM-YYYY"});
     CHECK(bad.status == 2);
-    CHECK(contains(bad.err, "[cli.option.value] --time-format 'DD-MM-YYYY': 'DD-MM-YYYY' is not a time format (one of YYYY-MM-DD, "
-                            "YYYY/MM/DD, DD.MM.YYYY, DD/MM/YYYY, MM/DD/YYYY, epoch-seconds, epoch-milliseconds)"));
+    CHECK(contains(bad.err,
+                   "[cli.option.value] --time-format 'DD-MM-YYYY': 'DD-MM-YYYY' is not a time format (one of YYYY-MM-DD, "
+                   "YYYY/MM/DD, DD.MM.YYYY, DD/MM/YYYY, MM/DD/YYYY, epoch-seconds, epoch-milliseconds)"));
     const auto epoch = run({"train", "--data", data, "--target", "force", "--time-format", "epoch-seconds"});
     CHECK(epoch.status == 2);
-    CHECK(contains(epoch.err, "[cli.option.missing] --time-format epoch-seconds needs --time-column COLUMN, or name the column: "
-                              "--time-format COLUMN=epoch-seconds"));
+    CHECK(contains(epoch.err,
+                   "[cli.option.missing] --time-format epoch-seconds needs --time-column COLUMN, or name the column: "
+                   "--time-format COLUMN=epoch-seconds"));
 
-    const auto day_first = run({"train", "--data", data, "--target", "force", "--time-format", "stamp=DD/MM/YYYY", "--time-column",
-                                "stamp", "--split", "chronological", "--time-cycles", "--epochs", "2", "--quiet", "--model",
-                                dir.file("press.tnm")});
+    const auto day_first = run({"train", "--data", data, "--target", "force", "--time-format", "stamp=DD/MM/YYYY", "--time-column", "stamp",
+                                "--split", "chronological", "--time-cycles", "--epochs", "2", "--quiet", "--model", dir.file("press.tnm")});
     REQUIRE_MESSAGE(day_first.status == 0, day_first.err);
     const auto shown = run({"inspect", "--model", dir.file("press.tnm")});
     REQUIRE(shown.status == 0);

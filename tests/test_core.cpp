@@ -362,8 +362,8 @@ std::vector<T> random_buffer(tenon::random_engine& rng, std::size_t n) {
 }
 
 template <class T>
-void naive_gemm(bool ta, bool tb, std::size_t m, std::size_t n, std::size_t k, T alpha, const std::vector<T>& a,
-                std::size_t lda, const std::vector<T>& b, std::size_t ldb, T beta, std::vector<T>& c, std::size_t ldc) {
+void naive_gemm(bool ta, bool tb, std::size_t m, std::size_t n, std::size_t k, T alpha, const std::vector<T>& a, std::size_t lda,
+                const std::vector<T>& b, std::size_t ldb, T beta, std::vector<T>& c, std::size_t ldc) {
     for (std::size_t i = 0; i < m; ++i) {
         for (std::size_t j = 0; j < n; ++j) {
             double acc = 0.0;
@@ -405,7 +405,8 @@ TEST_CASE_TEMPLATE("gemm matches a naive triple loop for all transpose cases and
                         if (j >= n) {
                             CHECK(c[idx] == c0[idx]);  // padding untouched
                         } else {
-                            CHECK_MESSAGE(std::abs(static_cast<double>(c[idx] - expected[idx])) <= tolerance * (1.0 + std::abs(static_cast<double>(expected[idx]))),
+                            CHECK_MESSAGE(std::abs(static_cast<double>(c[idx] - expected[idx])) <=
+                                              tolerance * (1.0 + std::abs(static_cast<double>(expected[idx]))),
                                           "m=" << m << " n=" << n << " k=" << k << " ta=" << ta << " tb=" << tb << " beta=" << beta);
                         }
                     }
@@ -427,8 +428,7 @@ TEST_CASE_TEMPLATE("gemm across its block and tile edges stays within the dot-pr
     // steps for alpha and beta give gamma_{k+2}.
     tenon::random_engine rng(47);
     const double unit_roundoff = static_cast<double>(std::numeric_limits<T>::epsilon()) / 2.0;
-    const std::size_t sizes[][3] = {{13, 21, 35},  {70, 9, 7},   {5, 530, 3}, {6, 10, 300},
-                                    {3, 40, 20},   {20, 3, 20},  {1, 9, 17},  {68, 516, 2}};
+    const std::size_t sizes[][3] = {{13, 21, 35}, {70, 9, 7}, {5, 530, 3}, {6, 10, 300}, {3, 40, 20}, {20, 3, 20}, {1, 9, 17}, {68, 516, 2}};
     for (const auto& sz : sizes) {
         const std::size_t m = sz[0], n = sz[1], k = sz[2];
         const double gamma = static_cast<double>(k + 2) * unit_roundoff / (1.0 - static_cast<double>(k + 2) * unit_roundoff);
@@ -495,8 +495,8 @@ TEST_CASE_TEMPLATE("thin products give the plain loop's bits on every vector wid
     // in order, so the result does not depend on the CPU. Column counts
     // cover every vector tail of both widths.
     tenon::random_engine rng(41);
-    const auto plain = [](bool ta, std::size_t m, std::size_t n, std::size_t k, T alpha, const std::vector<T>& a,
-                          std::size_t lda, const std::vector<T>& b, std::size_t ldb, std::vector<T>& c, std::size_t ldc) {
+    const auto plain = [](bool ta, std::size_t m, std::size_t n, std::size_t k, T alpha, const std::vector<T>& a, std::size_t lda,
+                          const std::vector<T>& b, std::size_t ldb, std::vector<T>& c, std::size_t ldc) {
         for (std::size_t i = 0; i < m; ++i)
             for (std::size_t p = 0; p < k; ++p) {
                 const T s = alpha * (ta ? a[p * lda + i] : a[i * lda + p]);
@@ -586,8 +586,8 @@ TEST_CASE_TEMPLATE("small dense layers give gemm's sum with the finish applied i
         return y;
     };
     std::vector<tenon::detail::small_dense_version> versions;
-    for (auto v : {tenon::detail::small_dense_version::portable, tenon::detail::small_dense_version::avx2,
-                   tenon::detail::small_dense_version::avx512, tenon::detail::small_dense_version::neon})
+    for (auto v : {tenon::detail::small_dense_version::portable, tenon::detail::small_dense_version::avx2, tenon::detail::small_dense_version::avx512,
+                   tenon::detail::small_dense_version::neon})
         if (tenon::detail::small_dense_version_available(v)) versions.push_back(v);
     const T small_scale = std::sqrt(std::numeric_limits<T>::min());  // products near the smallest normal
     for (const std::size_t n : std::vector<std::size_t>{1, 3, 7, 8, 15, 16, 17, 32, 33, 48, 65}) {
@@ -679,8 +679,8 @@ TEST_CASE_TEMPLATE("a group of small dense products gives each product's bits in
         return c + sum;
     };
     std::vector<tenon::detail::small_dense_version> versions;
-    for (auto v : {tenon::detail::small_dense_version::portable, tenon::detail::small_dense_version::avx2,
-                   tenon::detail::small_dense_version::avx512, tenon::detail::small_dense_version::neon})
+    for (auto v : {tenon::detail::small_dense_version::portable, tenon::detail::small_dense_version::avx2, tenon::detail::small_dense_version::avx512,
+                   tenon::detail::small_dense_version::neon})
         if (tenon::detail::small_dense_version_available(v)) versions.push_back(v);
     const T small_scale = std::sqrt(std::numeric_limits<T>::min());
     std::size_t fused_differs = 0;
@@ -737,7 +737,8 @@ TEST_CASE_TEMPLATE("a group of small dense products gives each product's bits in
                             addends.push_back(variant == 1 ? addend[g].data() : nullptr);
                             ys.push_back(y[g].data());
                         }
-                        const tenon::detail::dense_group_args<T> args{xs.data(), ws.data(), wts.data(), biases.data(), relus, addends.data(), ys.data()};
+                        const tenon::detail::dense_group_args<T> args{xs.data(), ws.data(),      wts.data(), biases.data(),
+                                                                      relus,     addends.data(), ys.data()};
                         tenon::detail::dense_group<T>(rows, count, args, k, n, version);
                         for (std::size_t g = 0; g < count; ++g) CHECK(std::memcmp(y[g].data(), expected[g].data(), rows * n * sizeof(T)) == 0);
                     }

@@ -26,8 +26,8 @@
 
 namespace {
 
-const tenon::kernel_path all_paths[] = {tenon::kernel_path::portable, tenon::kernel_path::avx2, tenon::kernel_path::avx512,
-                                        tenon::kernel_path::neon, tenon::kernel_path::blas};
+const tenon::kernel_path all_paths[] = {tenon::kernel_path::portable, tenon::kernel_path::avx2, tenon::kernel_path::avx512, tenon::kernel_path::neon,
+                                        tenon::kernel_path::blas};
 
 // Restores the process-wide kernel path when a test ends.
 struct path_guard {
@@ -61,9 +61,8 @@ std::vector<T> uniform_buffer(tenon::random_engine& rng, std::size_t n) {
 // multiply-adds, whose single rounding only tightens it), plus one rounding
 // of the reference to T; or whose padding changed.
 template <class T>
-std::size_t outside_bound(bool ta, bool tb, std::size_t m, std::size_t n, std::size_t k, T alpha, const std::vector<T>& a,
-                          std::size_t lda, const std::vector<T>& b, std::size_t ldb, T beta, const std::vector<T>& c0,
-                          const std::vector<T>& c, std::size_t ldc) {
+std::size_t outside_bound(bool ta, bool tb, std::size_t m, std::size_t n, std::size_t k, T alpha, const std::vector<T>& a, std::size_t lda,
+                          const std::vector<T>& b, std::size_t ldb, T beta, const std::vector<T>& c0, const std::vector<T>& c, std::size_t ldc) {
     const double u = static_cast<double>(std::numeric_limits<T>::epsilon()) / 2.0;
     const double gamma = static_cast<double>(k + 2) * u / (1.0 - static_cast<double>(k + 2) * u);
     std::size_t outside = 0;
@@ -115,11 +114,11 @@ TEST_CASE("kernel paths: the portable path is always there, the active one is av
     CHECK(tenon::kernel_path_available(tenon::active_kernel_path()));
     CHECK(tenon::kernel_path_available(tenon::best_builtin_kernel_path()));
     CHECK(tenon::best_builtin_kernel_path() != tenon::kernel_path::blas);
-    CHECK(tenon::default_kernel_path() == (tenon::kernel_path_available(tenon::kernel_path::blas) ? tenon::kernel_path::blas
-                                                                                                   : tenon::best_builtin_kernel_path()));
+    CHECK(tenon::default_kernel_path() ==
+          (tenon::kernel_path_available(tenon::kernel_path::blas) ? tenon::kernel_path::blas : tenon::best_builtin_kernel_path()));
     // AVX-512F CPUs all have AVX2 and FMA, so the fused paths nest.
     if (tenon::kernel_path_available(tenon::kernel_path::avx512)) CHECK(tenon::kernel_path_available(tenon::kernel_path::avx2));
-    // NEON is part of aarch64's baseline; x86 has none.
+        // NEON is part of aarch64's baseline; x86 has none.
 #if defined(__aarch64__)
     CHECK(tenon::kernel_path_available(tenon::kernel_path::neon));
 #elif defined(__x86_64__)
@@ -147,7 +146,7 @@ TEST_CASE_TEMPLATE("every kernel path stays within the dot-product rounding boun
     // columns), the depth block (kc = 256), the row blocks (mc = 64, 120,
     // 128) and the thin-product threshold, none a multiple of them.
     path_guard guard;
-    const std::size_t sizes[][3] = {{13, 21, 35}, {70, 9, 7},  {5, 530, 3},  {6, 10, 300}, {7, 33, 257},
+    const std::size_t sizes[][3] = {{13, 21, 35},  {70, 9, 7},   {5, 530, 3},  {6, 10, 300}, {7, 33, 257},
                                     {129, 40, 20}, {121, 17, 9}, {9, 65, 513}, {68, 516, 2}, {3, 40, 20}};
     for (const auto path : all_paths) {
         if (!tenon::kernel_path_available(path)) continue;
@@ -166,8 +165,8 @@ TEST_CASE_TEMPLATE("every kernel path stays within the dot-product rounding boun
                     std::vector<T> c = c0;
                     tenon::gemm<T>(ta, tb, m, n, k, alpha, a.data(), lda, b.data(), ldb, beta, c.data(), ldc);
                     CHECK_MESSAGE(outside_bound<T>(ta, tb, m, n, k, alpha, a, lda, b, ldb, beta, c0, c, ldc) == 0,
-                                  tenon::kernel_path_name(path) << " m=" << m << " n=" << n << " k=" << k << " ta=" << ta
-                                                                << " tb=" << tb << " beta=" << beta);
+                                  tenon::kernel_path_name(path)
+                                      << " m=" << m << " n=" << n << " k=" << k << " ta=" << ta << " tb=" << tb << " beta=" << beta);
                 }
             }
         }
@@ -183,8 +182,7 @@ TEST_CASE_TEMPLATE("gemm gives bit-identical results for any thread count and ex
     tenon::thread_pool two(2), three(3);
     reverse_executor host(4);
     const std::size_t sizes[][3] = {{128, 256, 784}, {784, 256, 128}, {37, 301, 70}, {301, 37, 70}, {128, 10, 128}};
-    for (const auto path : {tenon::kernel_path::portable, tenon::kernel_path::avx2, tenon::kernel_path::avx512,
-                            tenon::kernel_path::neon}) {
+    for (const auto path : {tenon::kernel_path::portable, tenon::kernel_path::avx2, tenon::kernel_path::avx512, tenon::kernel_path::neon}) {
         if (!tenon::kernel_path_available(path)) continue;
         tenon::set_kernel_path(path);
         tenon::random_engine rng(5);
@@ -203,8 +201,8 @@ TEST_CASE_TEMPLATE("gemm gives bit-identical results for any thread count and ex
                     std::vector<T> c = c0;
                     tenon::gemm<T>(ta, tb, m, n, k, T(1), a.data(), lda, b.data(), ldb, T(1), c.data(), n, e);
                     CHECK_MESSAGE(std::memcmp(c.data(), one.data(), c.size() * sizeof(T)) == 0,
-                                  tenon::kernel_path_name(path) << " m=" << m << " n=" << n << " k=" << k << " mode=" << mode
-                                                                << " threads=" << e->concurrency());
+                                  tenon::kernel_path_name(path)
+                                      << " m=" << m << " n=" << n << " k=" << k << " mode=" << mode << " threads=" << e->concurrency());
                 }
             }
         }
@@ -245,7 +243,6 @@ TEST_CASE_TEMPLATE("on the BLAS path, products split into bands across an execut
     CHECK(host.runs > 0);  // the products above the split size were split
 }
 
-
 TEST_CASE_TEMPLATE("BLAS bands of columns start on cache lines of C and stay within the rounding bound", T, float, double) {
     // Two threads writing the two halves of one cache line pass it back and
     // forth once per row, so a split of C's columns on the blas path puts
@@ -261,7 +258,8 @@ TEST_CASE_TEMPLATE("BLAS bands of columns start on cache lines of C and stay wit
                 CAPTURE(offset);
                 CAPTURE(parts);
                 CAPTURE(n);
-                const tenon::detail::gemm_problem<T> g{false, true, 16, n, 128, T(1), nullptr, 128, nullptr, 128, T(0), c, 256};  // wider than tall: columns
+                const tenon::detail::gemm_problem<T> g{false, true,    16,  n,    128, T(1), nullptr,
+                                                       128,   nullptr, 128, T(0), c,   256};  // wider than tall: columns
                 const auto split = tenon::detail::gemm_split<T>::plan(g, tenon::kernel_path::blas, parts, nullptr);
                 CHECK_FALSE(split.by_rows);
                 CHECK(split.parts == parts);
@@ -371,7 +369,8 @@ TEST_CASE("a thread pool gives task i of a run of at most its size to its thread
     }
 }
 
-TEST_CASE_TEMPLATE("on the BLAS path, a network's outputs are the same bits for any executor, its large dense layers summing two halves", T, float, double) {
+TEST_CASE_TEMPLATE("on the BLAS path, a network's outputs are the same bits for any executor, its large dense layers summing two halves", T, float,
+                   double) {
     // The products x W of dense layers large enough to split are computed
     // there as x[:, :e] W[:e, :] + x[:, e:] W[e:, :] whatever the thread
     // count (core/gemm.hpp, gemm_inner_halves), the halves on two threads
@@ -387,7 +386,8 @@ TEST_CASE_TEMPLATE("on the BLAS path, a network's outputs are the same bits for 
     CHECK(tenon::detail::splits_inner<T>(batch, 64, hidden));
     CHECK_FALSE(tenon::detail::splits_inner<T>(batch, 5, 64));  // below the split size: one product
     auto run = [&](tenon::executor* workers, std::vector<T>& out) {
-        auto net = tenon::make_mlp<T>({inputs, hidden, 64, 5}, tenon::activation::relu, {tenon::init_scheme::he, tenon::init_distribution::normal}, 4);
+        auto net =
+            tenon::make_mlp<T>({inputs, hidden, 64, 5}, tenon::activation::relu, {tenon::init_scheme::he, tenon::init_distribution::normal}, 4);
         tenon::random_engine rng(6);
         tenon::matrix<T> x({batch, inputs});
         for (std::size_t i = 0; i < x.size(); ++i) x.data()[i] = rng.normal(T(0), T(1));

@@ -30,8 +30,8 @@ struct calibrated {
 
     // One network by default; `members` > 1 for a seed ensemble.
     explicit calibrated(bool classify, std::size_t members = 1)
-        : fitted(tenon::fit_model<T>(table, classify ? deploy_test::condition_plan() : deploy_test::power_plan(), train, validation,
-                                     settings(members))),
+        : fitted(
+              tenon::fit_model<T>(table, classify ? deploy_test::condition_plan() : deploy_test::power_plan(), train, validation, settings(members))),
           file(tenon::make_model_file(fitted, table, train, settings(members))) {
         file.calibration = tenon::calibrate_model(fitted, table, validation, 0.8);
     }

@@ -62,9 +62,10 @@ TEST_CASE("make_model_file from what the fitted model keeps equals the form give
     const auto kept = tenon::model_file_to_bytes(tenon::make_model_file(fitted, t, o));
     CHECK(given == kept);
     const auto fewer = pump_table(60, 11);
-    CHECK_THROWS_WITH_AS(tenon::make_model_file(fitted, fewer, o),
-                         "[train.option.invalid] make_model_file: the model was fitted on row 60, and the table has 60 rows (pass the table fit_model was given)",
-                         tenon::error);
+    CHECK_THROWS_WITH_AS(
+        tenon::make_model_file(fitted, fewer, o),
+        "[train.option.invalid] make_model_file: the model was fitted on row 60, and the table has 60 rows (pass the table fit_model was given)",
+        tenon::error);
 }
 
 // Scoring, calibrating and saving read a fitted model and change nothing in
@@ -118,9 +119,7 @@ TEST_CASE("a network records for inference only on a tape set for it, and such a
 
 namespace {
 
-std::string temp_path(const std::string& name) {
-    return std::string("/tmp/tenon_deploy_test_") + std::to_string(::getpid()) + "_" + name;
-}
+std::string temp_path(const std::string& name) { return std::string("/tmp/tenon_deploy_test_") + std::to_string(::getpid()) + "_" + name; }
 
 // Puts a valid header checksum back after a test edited the header on purpose.
 void reseal_header(std::vector<std::uint8_t>& b) {
@@ -417,7 +416,8 @@ TEST_CASE("lengths and counts are checked against the limits and the bytes befor
     std::vector<std::uint8_t> no_weights(hostile.begin(), hostile.begin() + 24);
     no_weights[18] = 1;
     reseal_header(no_weights);
-    tenon::detail::append_section(no_weights, "ARCH", true, tenon::to_bytes(tenon::make_mlp<float>({2, 1}, tenon::activation::relu, {}, 0).describe()));
+    tenon::detail::append_section(no_weights, "ARCH", true,
+                                  tenon::to_bytes(tenon::make_mlp<float>({2, 1}, tenon::activation::relu, {}, 0).describe()));
     CHECK(code_of_loading(no_weights) == "deploy.model.missing_section");
 }
 
@@ -454,13 +454,12 @@ TEST_CASE("an architecture declaring more weights than the file stores is refuse
         // 2^62 + 2^31 values of the huge layer, and the other layers' few
         // (where size_t has 32 bits, past what it counts).
         CHECK(std::string(e.what()).find(sizeof(std::size_t) >= 8 ? "the architecture declares 461168602057487"
-                                                                   : "the architecture declares more than 2^32") != std::string::npos);
+                                                                  : "the architecture declares more than 2^32") != std::string::npos);
     }
     // Past 2^64 (2^32 where size_t has 32 bits) the count saturates and says so.
     huge.set_number("inputs", 9007199254740991.0).set_number("outputs", 9007199254740991.0);
     m.architecture.children.at(0) = huge;
-    CHECK_THROWS_WITH_AS(tenon::rebuild_network(m), doctest::Contains(sizeof(std::size_t) >= 8 ? "more than 2^64" : "more than 2^32"),
-                         tenon::error);
+    CHECK_THROWS_WITH_AS(tenon::rebuild_network(m), doctest::Contains(sizeof(std::size_t) >= 8 ? "more than 2^64" : "more than 2^32"), tenon::error);
 }
 
 TEST_CASE("loading a file that does not exist names it") {
@@ -541,8 +540,10 @@ TEST_CASE("a failure or crash at any step of saving leaves a complete, loadable 
             const auto loaded = tenon::load_model_file<float>(path);
             const std::uint64_t seed = loaded.metadata->seed;
             // Before the rename the old file stays; from the rename on, the new one is complete.
-            if (fail_at < 5) CHECK(seed == old_model.metadata->seed);
-            else CHECK(seed == 99);
+            if (fail_at < 5)
+                CHECK(seed == old_model.metadata->seed);
+            else
+                CHECK(seed == 99);
             ++scenarios;
         }
     }
@@ -596,8 +597,8 @@ TEST_CASE("a symlink planted at a temporary name is never written through, and t
     std::ofstream(victim) << "precious";
     tenon::write_file_atomically(path, text_bytes("old"));
     predictable_file_system fs;
-    const std::string known = "/tmp/." + std::filesystem::path(path).filename().string() + ".tenon-" + std::to_string(::getpid()) +
-                              "-0000000000001234.tmp";
+    const std::string known =
+        "/tmp/." + std::filesystem::path(path).filename().string() + ".tenon-" + std::to_string(::getpid()) + "-0000000000001234.tmp";
     REQUIRE(::symlink(victim.c_str(), known.c_str()) == 0);
     // Every name is taken (all 16 tries give the same one): EEXIST, nothing
     // written, and the planted link, which the run did not create, stays.
@@ -758,8 +759,9 @@ TEST_CASE_TEMPLATE("a model file written with the earlier batch-normalization na
     const auto back = tenon::model_file_from_bytes<T>(bytes);
     std::vector<std::string> names;
     for (const auto& w : back.weights) names.push_back(w.name);
-    CHECK(names == std::vector<std::string>{"in.weights", "in.bias", "bn.gain", "bn.bias", "out.weights", "out.bias",
-                                            "bn.population_mean", "bn.population_variance"});
+    CHECK(names ==
+          std::vector<std::string>{"in.weights", "in.bias", "bn.gain", "bn.bias", "out.weights", "out.bias", "bn.population_mean",
+                                   "bn.population_variance"});
     tenon::network<T> rebuilt = tenon::rebuild_network(back);
     CHECK(rebuilt.describe() == net.describe());  // the coefficient 0.25 arrived as batch_weight
     CHECK(rebuilt.find("bn.population_variance").value() == net.find("bn.population_variance").value());

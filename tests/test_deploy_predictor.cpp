@@ -104,7 +104,8 @@ TEST_CASE_TEMPLATE("a seed ensemble's mean and spread per row, from a fit and fr
         const auto features = run.model.plan.template apply<T>(run.t, run.test).features;
         const std::size_t rows = features.shape()[0];
         const tenon::matrix<T> expected = tenon::predict_prepared(run.model, features);
-        const auto file = tenon::model_file_from_bytes<T>(tenon::model_file_to_bytes(tenon::make_model_file(run.model, run.t, run.train, small_settings())));
+        const auto file =
+            tenon::model_file_from_bytes<T>(tenon::model_file_to_bytes(tenon::make_model_file(run.model, run.t, run.train, small_settings())));
         CHECK(file.members.size() == 4);
         tenon::predictor<T> from_file(file, 64);
         CHECK(from_file.member_count() == 5);
@@ -198,13 +199,16 @@ TEST_CASE("one network has one member and a zero spread; an ensemble section is 
     for (std::size_t k = 0; k < 8; ++k) CHECK(v.spread[k] == 0.0f);
     for (std::size_t k = 0; k < 8; ++k) CHECK(v.member_values[k] == v.values[k]);
     const auto bytes = tenon::model_file_to_bytes(tenon::make_model_file(model, t, range(0, 140), settings));
-    for (std::size_t k = 0; k + 4 <= bytes.size(); ++k) CHECK_FALSE((bytes[k] == 'E' && bytes[k + 1] == 'N' && bytes[k + 2] == 'S' && bytes[k + 3] == 'M'));
+    for (std::size_t k = 0; k + 4 <= bytes.size(); ++k)
+        CHECK_FALSE((bytes[k] == 'E' && bytes[k + 1] == 'N' && bytes[k + 2] == 'S' && bytes[k + 3] == 'M'));
 }
 
 TEST_CASE_TEMPLATE("every layer kind is evaluated as the tape evaluates it", T, float, double) {
     tenon::random_engine rng(5);
     tenon::network<T> net;
-    net.add(tenon::dense<T>(6, 8, rng, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}), "in");
+    net.add(tenon::dense<T>(6, 8, rng, {tenon::init_scheme::glorot, tenon::init_distribution::uniform},
+                            {tenon::init_scheme::glorot, tenon::init_distribution::uniform}),
+            "in");
     net.add(tenon::batch_norm<T>(8), "bn");
     net.add(tenon::activation_layer<T>(tenon::activation::gelu), "g");
     tenon::residual<T> block;

@@ -92,8 +92,8 @@ struct run_result {
 // Trains a fresh 3-16-1 (or 2-16-3) network on `train` with Adam; with the
 // team when `team` is given, else alone.
 template <class T>
-run_result train_once(tenon::network<T>& net, const tenon::supervised_rows<T>& train, const tenon::supervised_rows<T>& validation,
-                      std::size_t batch, std::size_t epochs, tenon::training_team* team, tenon::training_options<T> o = {}) {
+run_result train_once(tenon::network<T>& net, const tenon::supervised_rows<T>& train, const tenon::supervised_rows<T>& validation, std::size_t batch,
+                      std::size_t epochs, tenon::training_team* team, tenon::training_options<T> o = {}) {
     tenon::adam<T> rule;
     tenon::constant_rate schedule(0.01);
     o.epochs = epochs;
@@ -251,8 +251,10 @@ std::string line_log(std::size_t n, std::size_t rank, std::size_t ranks, bool ex
         const bool last = i % ranks == ranks - 1;
         if (rank < ranks && i % ranks != rank) continue;
         csv << speed << "," << (i % 11 == 3 ? std::string("NA") : std::to_string(temperature)) << "," << load << ","
-            << (last && i % 13 == 5 ? "wide" : i % 17 == 2 ? "NA" : dies[die]) << "," << (last && i % 19 == 4 ? 7 : static_cast<int>(i % 3))
-            << (extra_column ? ",x" : "") << "\n";
+            << (last && i % 13 == 5 ? "wide"
+                    : i % 17 == 2   ? "NA"
+                                    : dies[die])
+            << "," << (last && i % 19 == 4 ? 7 : static_cast<int>(i % 3)) << (extra_column ? ",x" : "") << "\n";
     }
     std::istringstream in(csv.str());
     return in.str();
@@ -363,8 +365,10 @@ tenon::supervised_rows<T> rows_of(const tenon::supervised_rows<T>& d, const std:
     if (!d.is_classification()) out.targets = tenon::matrix<T>({rows.size(), outs});
     for (std::size_t i = 0; i < rows.size(); ++i) {
         std::copy(d.features.data() + rows[i] * inputs, d.features.data() + (rows[i] + 1) * inputs, out.features.data() + i * inputs);
-        if (d.is_classification()) out.labels.push_back(d.labels[rows[i]]);
-        else std::copy(d.targets.data() + rows[i] * outs, d.targets.data() + (rows[i] + 1) * outs, out.targets.data() + i * outs);
+        if (d.is_classification())
+            out.labels.push_back(d.labels[rows[i]]);
+        else
+            std::copy(d.targets.data() + rows[i] * outs, d.targets.data() + (rows[i] + 1) * outs, out.targets.data() + i * outs);
     }
     return out;
 }
@@ -406,8 +410,8 @@ std::string code_of(const std::function<void()>& f) {
 
 }  // namespace
 
-TEST_CASE_TEMPLATE("shards without shuffling: p ranks with batch b train the weights of one process with batch b x p on the interleaved batches",
-                   T, float, double) {
+TEST_CASE_TEMPLATE("shards without shuffling: p ranks with batch b train the weights of one process with batch b x p on the interleaved batches", T,
+                   float, double) {
     const std::size_t p = world().size(), r = world().rank(), batch = 8;
     // Shards of 45, 40, 48 and 42 rows: 6 steps per epoch, and in the last
     // step rank 1 has no row left (5 + 0 (+ 8 + 2) rows in the global batch).
@@ -431,12 +435,12 @@ TEST_CASE_TEMPLATE("shards without shuffling: p ranks with batch b train the wei
     const run_result shared = train_once(team_net, my_train, my_validation, batch, 5, &team, o);
     tenon::training_options<T> alone_options;
     alone_options.shuffle = false;
-    const run_result alone = train_once(alone_net, rows_of(all_train, interleaved_batches(train_layout, batch)), all_validation, batch * p, 5,
-                                        nullptr, alone_options);
+    const run_result alone =
+        train_once(alone_net, rows_of(all_train, interleaved_batches(train_layout, batch)), all_validation, batch * p, 5, nullptr, alone_options);
 
     REQUIRE(shared.checksums_agree.size() == 5);
     for (auto agree : shared.checksums_agree) CHECK(agree == 1);  // identical bits on every rank after every epoch
-    for (auto b : batches_seen) CHECK(b == 6);                    // the largest shard's batch count
+    for (auto b : batches_seen) CHECK(b == 6);  // the largest shard's batch count
     CHECK(shared.outcome.steps == 5 * 6);
     CHECK(alone.outcome.steps == shared.outcome.steps);
     const double tolerance = (sizeof(T) == 4 ? 2e-4 : 1e-10) * std::max(1.0, largest_weight(alone_net));

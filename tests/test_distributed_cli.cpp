@@ -71,7 +71,8 @@ double weight_difference(const std::string& a_path, const std::string& b_path, d
     for (std::size_t w = 0; w < a.weights.size(); ++w) {
         REQUIRE(a.weights[w].values.size() == b.weights[w].values.size());
         for (std::size_t i = 0; i < a.weights[w].values.size(); ++i) {
-            worst = std::max(worst, std::abs(static_cast<double>(a.weights[w].values.data()[i]) - static_cast<double>(b.weights[w].values.data()[i])));
+            worst =
+                std::max(worst, std::abs(static_cast<double>(a.weights[w].values.data()[i]) - static_cast<double>(b.weights[w].values.data()[i])));
             largest = std::max(largest, std::abs(static_cast<double>(b.weights[w].values.data()[i])));
         }
     }
@@ -141,7 +142,8 @@ TEST_CASE("tenon train on p ranks: each rank holds its share of the rows, rank 0
         tenon::mpi_team solo(self);
         tenon::mpi_statistics_exchange solo_exchange(self);
         std::string alone_printed;
-        REQUIRE(run_tool(with({"--batch", std::to_string(8 * p), "--keep-order", "--model", alone_model}), &solo, alone_printed, &solo_exchange) == 0);
+        REQUIRE(run_tool(with({"--batch", std::to_string(8 * p), "--keep-order", "--model", alone_model}), &solo, alone_printed, &solo_exchange) ==
+                0);
         CHECK(training_rows_line(ordered_printed) == training_rows_line(alone_printed));  // the summary counts every rank's rows
         CHECK(!training_rows_line(alone_printed).empty());
         double largest = 1.0;

@@ -61,8 +61,7 @@ TEST_CASE("PSI of two binned distributions matches worked values") {
     CHECK(tenon::population_stability_index({0.5, 0.5, 0.0}, {0.4, 0.5, 0.1}) == doctest::Approx(0.7123991).epsilon(1e-6));
     // Equal distributions: 0; PSI is symmetric (Jeffreys divergence).
     CHECK(tenon::population_stability_index({0.25, 0.75}, {0.25, 0.75}) == 0.0);
-    CHECK(tenon::population_stability_index({0.2, 0.8}, {0.6, 0.4}) ==
-          doctest::Approx(tenon::population_stability_index({0.6, 0.4}, {0.2, 0.8})));
+    CHECK(tenon::population_stability_index({0.2, 0.8}, {0.6, 0.4}) == doctest::Approx(tenon::population_stability_index({0.6, 0.4}, {0.2, 0.8})));
     CHECK(code_of([] { tenon::population_stability_index({0.5, 0.5}, {1.0}); }) == "core.shape.mismatch");
 }
 

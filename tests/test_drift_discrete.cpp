@@ -93,8 +93,8 @@ TEST_CASE("the summaries keep exact values up to 256 distinct, quantile points b
     REQUIRE(refs.size() == 5);
     CHECK(refs[0].distinct.size() <= 20);  // strokes
     CHECK(refs[1].distinct.size() == 15);  // build year
-    CHECK(refs[2].distinct.size() == 3);   // die setting
-    CHECK(refs[3].distinct.empty());       // temperature: 2000 distinct values
+    CHECK(refs[2].distinct.size() == 3);  // die setting
+    CHECK(refs[3].distinct.empty());  // temperature: 2000 distinct values
     CHECK(refs[3].quantile_points.size() == tenon::reference_quantile_steps + 1);
     CHECK(refs[4].distinct.empty());  // weight: more than 256 half-kilogram steps
     for (std::size_t k = 0; k < 3; ++k) {
@@ -258,9 +258,8 @@ TEST_CASE("windows from the training distribution raise false alarms at most at 
     }
     for (std::size_t k = 0; k < 5; ++k) {
         const double ks_rate = ks_alarms[k] / static_cast<double>(seeds), psi_rate = psi_alarms[k] / static_cast<double>(seeds);
-        MESSAGE(std::string(press_columns[k]) << ": KS false alarms " << ks_rate << ", PSI above its noise floor " << psi_rate
-                                 << ", PSI above 0.1 " << rule_of_thumb_watch[k] / static_cast<double>(seeds) << " (limit "
-                                 << alpha + tolerance << ")");
+        MESSAGE(std::string(press_columns[k]) << ": KS false alarms " << ks_rate << ", PSI above its noise floor " << psi_rate << ", PSI above 0.1 "
+                                              << rule_of_thumb_watch[k] / static_cast<double>(seeds) << " (limit " << alpha + tolerance << ")");
         CHECK(ks_rate <= alpha + tolerance);
         CHECK(psi_rate <= alpha + tolerance);
     }

@@ -42,12 +42,9 @@ inline namespace TENON_ABI_NAMESPACE {
 enum class enum_text_probe : unsigned char { first = 0, second = 1, late = 200 };
 inline const char* to_string(enum_text_probe p) noexcept {
     switch (p) {
-    case enum_text_probe::first:
-        return "first";
-    case enum_text_probe::second:
-        return "second";
-    case enum_text_probe::late:
-        return "late";
+    case enum_text_probe::first: return "first";
+    case enum_text_probe::second: return "second";
+    case enum_text_probe::late: return "late";
     }
     return "unknown";
 }

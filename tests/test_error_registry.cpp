@@ -92,42 +92,49 @@ std::string code_only(const std::string& s) {
     for (std::size_t i = 0; i < s.size(); ++i) {
         const char ch = s[i], next = i + 1 < s.size() ? s[i + 1] : '\0';
         switch (state) {
-            case in::code:
-                if (ch == '/' && next == '/') state = in::line_comment, c[i] = ' ';
-                else if (ch == '/' && next == '*') state = in::block_comment, c[i] = ' ';
-                else if (ch == '"' && i > 0 && s[i - 1] == 'R') {
-                    // A raw string R"delimiter( ... )delimiter": blanked up to its end.
-                    const std::size_t open = s.find('(', i);
-                    const std::string end = ")" + s.substr(i + 1, open - i - 1) + "\"";
-                    const std::size_t close = s.find(end, open);
-                    const std::size_t last = close == std::string::npos ? s.size() : close + end.size() - 1;
-                    for (std::size_t k = i + 1; k < last; ++k)
-                        if (c[k] != '\n') c[k] = ' ';
-                    i = last;
-                }
-                else if (ch == '"') state = in::string;
-                // A quote after a digit separates digits (1'000), it opens no literal.
-                else if (ch == '\'' && !(i > 0 && std::isxdigit(static_cast<unsigned char>(s[i - 1])))) state = in::character;
-                break;
-            case in::line_comment:
-                if (ch == '\n') state = in::code;
-                else c[i] = ' ';
-                break;
-            case in::block_comment:
-                if (ch == '*' && next == '/') c[i] = c[i + 1] = ' ', ++i, state = in::code;
-                else if (ch != '\n') c[i] = ' ';
-                break;
-            case in::string:
-            case in::character:
-                if (ch == '\\') {
-                    c[i] = ' ';
-                    if (i + 1 < s.size()) c[++i] = ' ';
-                } else if (ch == (state == in::string ? '"' : '\'')) {
-                    state = in::code;
-                } else {
-                    c[i] = ' ';
-                }
-                break;
+        case in::code:
+            if (ch == '/' && next == '/')
+                state = in::line_comment, c[i] = ' ';
+            else if (ch == '/' && next == '*')
+                state = in::block_comment, c[i] = ' ';
+            else if (ch == '"' && i > 0 && s[i - 1] == 'R') {
+                // A raw string R"delimiter( ... )delimiter": blanked up to its end.
+                const std::size_t open = s.find('(', i);
+                const std::string end = ")" + s.substr(i + 1, open - i - 1) + "\"";
+                const std::size_t close = s.find(end, open);
+                const std::size_t last = close == std::string::npos ? s.size() : close + end.size() - 1;
+                for (std::size_t k = i + 1; k < last; ++k)
+                    if (c[k] != '\n') c[k] = ' ';
+                i = last;
+            } else if (ch == '"')
+                state = in::string;
+            // A quote after a digit separates digits (1'000), it opens no literal.
+            else if (ch == '\'' && !(i > 0 && std::isxdigit(static_cast<unsigned char>(s[i - 1]))))
+                state = in::character;
+            break;
+        case in::line_comment:
+            if (ch == '\n')
+                state = in::code;
+            else
+                c[i] = ' ';
+            break;
+        case in::block_comment:
+            if (ch == '*' && next == '/')
+                c[i] = c[i + 1] = ' ', ++i, state = in::code;
+            else if (ch != '\n')
+                c[i] = ' ';
+            break;
+        case in::string:
+        case in::character:
+            if (ch == '\\') {
+                c[i] = ' ';
+                if (i + 1 < s.size()) c[++i] = ' ';
+            } else if (ch == (state == in::string ? '"' : '\'')) {
+                state = in::code;
+            } else {
+                c[i] = ' ';
+            }
+            break;
         }
     }
     return c;
@@ -160,8 +167,7 @@ bool asserted_at(const std::string& c, std::size_t at) {
             }
             if (ch != '(') return false;  // in a list or a block before any assertion
             const std::string name = name_before(c, i);
-            if (name == "CHECK_THROWS_WITH" || name == "CHECK_THROWS_WITH_AS" || name == "REQUIRE_THROWS_WITH" ||
-                name == "REQUIRE_THROWS_WITH_AS")
+            if (name == "CHECK_THROWS_WITH" || name == "CHECK_THROWS_WITH_AS" || name == "REQUIRE_THROWS_WITH" || name == "REQUIRE_THROWS_WITH_AS")
                 return commas == 1;
             if (name == "CHECK" || name == "REQUIRE" || name == "CHECK_MESSAGE" || name == "REQUIRE_MESSAGE") return commas == 0 && equals;
             if (name == "check_failure") return commas == 2;
@@ -244,16 +250,16 @@ TEST_CASE("the registry's codes are unique, dotted names starting with their are
 // "x.y.z" in every message; the old short identifiers are aliases of them.
 TEST_CASE("every error identifier spells its code") {
     std::size_t entries = 0;
-#define TENON_TEST_IDENTIFIER_SPELLS_CODE(identifier, code, meaning)  \
-    {                                                                 \
-        std::string dotted = #identifier;                             \
-        std::replace(dotted.begin(), dotted.end(), '_', '.');         \
-        std::string expected = code;                                  \
-        std::replace(expected.begin(), expected.end(), '_', '.');     \
-        INFO(#identifier << " = " << code);                           \
-        CHECK(dotted == expected);                                    \
-        CHECK(std::string(tenon::codes::identifier) == code);         \
-        ++entries;                                                    \
+#define TENON_TEST_IDENTIFIER_SPELLS_CODE(identifier, code, meaning)                                                                                 \
+    {                                                                                                                                                \
+        std::string dotted = #identifier;                                                                                                            \
+        std::replace(dotted.begin(), dotted.end(), '_', '.');                                                                                        \
+        std::string expected = code;                                                                                                                 \
+        std::replace(expected.begin(), expected.end(), '_', '.');                                                                                    \
+        INFO(#identifier << " = " << code);                                                                                                          \
+        CHECK(dotted == expected);                                                                                                                   \
+        CHECK(std::string(tenon::codes::identifier) == code);                                                                                        \
+        ++entries;                                                                                                                                   \
     }
     TENON_ERROR_CODES(TENON_TEST_IDENTIFIER_SPELLS_CODE)
 #undef TENON_TEST_IDENTIFIER_SPELLS_CODE
@@ -276,9 +282,7 @@ TEST_CASE("an unknown subcommand is refused with cli.command.unknown and exit st
 
 // The rule above, on snippets: assertions on a code count, mentions do not.
 TEST_CASE("the registry counts a code as tested only where a test asserts it") {
-    const auto counted = [](const std::string& snippet) {
-        return triggered_in({source_file{snippet, code_only(snippet)}}, "area.thing");
-    };
+    const auto counted = [](const std::string& snippet) { return triggered_in({source_file{snippet, code_only(snippet)}}, "area.thing"); };
     CHECK(counted(R"snippet(CHECK(code_of([] { f("a;b)", '('); }) == "area.thing");)snippet"));
     CHECK(counted(R"snippet(CHECK(e.code() == "area.thing");)snippet"));
     CHECK(counted("CHECK(message ==\n      \"[area.thing] what went wrong\");"));

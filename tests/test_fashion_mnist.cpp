@@ -61,9 +61,7 @@ tenon::supervised_rows<float> select_rows(const tenon::matrix<float>& images, co
     return out;
 }
 
-std::vector<std::size_t> as_class_indices(const std::vector<std::uint32_t>& labels) {
-    return std::vector<std::size_t>(labels.begin(), labels.end());
-}
+std::vector<std::size_t> as_class_indices(const std::vector<std::uint32_t>& labels) { return std::vector<std::size_t>(labels.begin(), labels.end()); }
 
 double seconds_since(std::chrono::steady_clock::time_point start) {
     return std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
@@ -76,8 +74,7 @@ TEST_CASE("a 784-256-128-10 perceptron reaches 0.88 test accuracy on Fashion-MNI
     constexpr std::size_t class_count = 10;
 
     const auto train_labels = tenon::idx_labels(tenon::read_idx_gzip_file(dataset_folder + "train-labels-idx1-ubyte.gz"));
-    const auto train_images =
-        tenon::idx_images<float>(tenon::read_idx_gzip_file(dataset_folder + "train-images-idx3-ubyte.gz"));  // x / 255
+    const auto train_images = tenon::idx_images<float>(tenon::read_idx_gzip_file(dataset_folder + "train-images-idx3-ubyte.gz"));  // x / 255
     REQUIRE(train_labels.size() == 60000);
     REQUIRE(train_images.shape()[0] == 60000);
     REQUIRE(train_images.shape()[1] == 784);
@@ -105,9 +102,9 @@ TEST_CASE("a 784-256-128-10 perceptron reaches 0.88 test accuracy on Fashion-MNI
 
     tenon::training_options<float> options;
     options.loss = tenon::loss_kind::cross_entropy;
-    options.epochs = 40;     // a ceiling; early stopping ends the run well before it
+    options.epochs = 40;  // a ceiling; early stopping ends the run well before it
     options.batch_size = 128;
-    options.patience = 3;    // common practice for a small patience on a large validation set
+    options.patience = 3;  // common practice for a small patience on a large validation set
     // Gains below 0.001 nats of mean validation cross-entropy do not count
     // (common practice): the decayed step size makes late gains tiny, and
     // chasing them would double the run time for no change in accuracy.
@@ -141,10 +138,10 @@ TEST_CASE("a 784-256-128-10 perceptron reaches 0.88 test accuracy on Fashion-MNI
     const double seconds = seconds_since(start);
     std::printf("Fashion-MNIST 784-256-128-10 ReLU, Adam 0.001 x 0.75^epoch, batch 128: test accuracy %.4f (macro F1 %.4f), "
                 "%zu epochs run, kept epoch %zu (validation accuracy %.4f), stop: %s, %.1f s in total (training %.1f s)\n",
-                scores.accuracy, scores.macro_f1, outcome.history.size(), outcome.best_epoch, kept_accuracy,
-                tenon::stop_reason_name(outcome.reason), seconds, outcome.seconds);
-    MESSAGE("Fashion-MNIST test accuracy " << scores.accuracy << " after " << outcome.history.size() << " epochs, " << seconds
-                                            << " s, kernel path " << std::string(tenon::kernel_path_name(tenon::active_kernel_path())));
+                scores.accuracy, scores.macro_f1, outcome.history.size(), outcome.best_epoch, kept_accuracy, tenon::stop_reason_name(outcome.reason),
+                seconds, outcome.seconds);
+    MESSAGE("Fashion-MNIST test accuracy " << scores.accuracy << " after " << outcome.history.size() << " epochs, " << seconds << " s, kernel path "
+                                           << std::string(tenon::kernel_path_name(tenon::active_kernel_path())));
 
     CHECK(scores.accuracy >= 0.88);
     for (const auto& c : scores.per_class) CHECK(c.true_rows == 1000);  // the test file has 1,000 images per class

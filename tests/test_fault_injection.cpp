@@ -205,8 +205,7 @@ public:
     void forward(const tenon::operand_list<T>& in, tenon::matrix<T>& out) const override {
         std::copy(in[0].data(), in[0].data() + in[0].size(), out.data());
     }
-    void backward(const tenon::operand_list<T>&, const tenon::matrix<T>&, const tenon::matrix<T>& g,
-                  tenon::matrix<T>* const* grads) const override {
+    void backward(const tenon::operand_list<T>&, const tenon::matrix<T>&, const tenon::matrix<T>& g, tenon::matrix<T>* const* grads) const override {
         if (!grads[0]) return;
         for (std::size_t k = 0; k < g.size(); ++k) grads[0]->data()[k] += g.data()[k] + (armed && k == 0 ? poison : T(0));
     }
@@ -238,11 +237,16 @@ TEST_CASE("a full disk, or a failing fsync, close or rename, leaves the previous
         std::size_t room;
     };
     const scenario scenarios[] = {
-        {step::write, ENOSPC, 0},            {step::write, ENOSPC, 1},
-        {step::write, ENOSPC, new_size / 2}, {step::write, ENOSPC, new_size - 1},
-        {step::write, EIO, 100},             {step::sync, EIO, 0},
-        {step::sync, ENOSPC, 0},             {step::close, EIO, 0},
-        {step::rename, EXDEV, 0},            {step::rename, EACCES, 0},
+        {step::write, ENOSPC, 0},
+        {step::write, ENOSPC, 1},
+        {step::write, ENOSPC, new_size / 2},
+        {step::write, ENOSPC, new_size - 1},
+        {step::write, EIO, 100},
+        {step::sync, EIO, 0},
+        {step::sync, ENOSPC, 0},
+        {step::close, EIO, 0},
+        {step::rename, EXDEV, 0},
+        {step::rename, EACCES, 0},
         {step::rename, ENOSPC, 0},
     };
     std::size_t survived = 0;
@@ -320,8 +324,9 @@ TEST_CASE("an allocation failure at any point of saving leaves the previous file
 
 // --- training -------------------------------------------------------------------------------
 
-TEST_CASE_TEMPLATE("an allocation failure at any point of a training run propagates, keeps the last step's weights, leaks nothing, and a retry completes",
-                   T, float, double) {
+TEST_CASE_TEMPLATE(
+    "an allocation failure at any point of a training run propagates, keeps the last step's weights, leaks nothing, and a retry completes", T, float,
+    double) {
     const auto train = wave_rows<T>(24, 1), validation = wave_rows<T>(8, 2);
     tenon::training_options<T> o;
     o.epochs = 3;
@@ -450,7 +455,8 @@ TEST_CASE_TEMPLATE("NaN or infinity in the training data is refused before any s
 TEST_CASE_TEMPLATE("NaN or infinity in the gradients rolls back to the last good epoch; the loss stays finite throughout", T, float, double) {
     for (const T poison : {std::numeric_limits<T>::quiet_NaN(), std::numeric_limits<T>::infinity(), -std::numeric_limits<T>::infinity()}) {
         const auto train = wave_rows<T>(32, 1), validation = wave_rows<T>(8, 2);
-        tenon::network<T> net = tenon::make_mlp<T>({2, 6, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 3);
+        tenon::network<T> net =
+            tenon::make_mlp<T>({2, 6, 1}, tenon::activation::tanh, {tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 3);
         auto& layer = net.add(gradient_poison_layer<T>(), "poison");
         tenon::adam<T> rule;
         tenon::constant_rate schedule(0.01);
@@ -574,7 +580,8 @@ TEST_CASE("NaN or infinity given to the predictor is refused per call; the next 
     tenon::predictor<float> p(file, 4);
     std::vector<float> good(p.feature_count(), 0.25f);
     const auto expected = p.predict_prepared(good.data(), 1).at(0, 0);
-    for (const float bad : {std::numeric_limits<float>::quiet_NaN(), std::numeric_limits<float>::infinity(), -std::numeric_limits<float>::infinity()}) {
+    for (const float bad :
+         {std::numeric_limits<float>::quiet_NaN(), std::numeric_limits<float>::infinity(), -std::numeric_limits<float>::infinity()}) {
         std::vector<float> row = good;
         row[1] = bad;
         tenon::prediction_view<float> out;

@@ -30,8 +30,8 @@ namespace {
 constexpr double max_relative_error = 1e-6;  // required by the foundation issue
 
 // Entries uniform in [low, high), redrawn while closer than `margin` to any of `kinks`.
-matrix<double> random_matrix(tenon::random_engine& rng, shape2 s, double low, double high,
-                             const std::vector<double>& kinks = {}, double margin = 0.05) {
+matrix<double> random_matrix(tenon::random_engine& rng, shape2 s, double low, double high, const std::vector<double>& kinks = {},
+                             double margin = 0.05) {
     matrix<double> m({s.rows, s.cols});
     for (std::size_t k = 0; k < m.size(); ++k) {
         double v;
@@ -87,9 +87,7 @@ struct unary_case {
 TEST_CASE("gradient check agrees with a correct gradient") {
     tenon::parameter<double> w("w", make_matrix<double>({{0.3, -0.7}, {1.1, 0.4}}));
     const auto x = make_matrix<double>({{1.0, 2.0}, {-0.5, 0.25}, {0.0, 1.0}});
-    const auto good = tenon::check_gradients({&w}, [&](tape<double>& t) {
-        return tenon::mean(tenon::tanh(tenon::matmul(t.input(x), t.track(w))));
-    });
+    const auto good = tenon::check_gradients({&w}, [&](tape<double>& t) { return tenon::mean(tenon::tanh(tenon::matmul(t.input(x), t.track(w)))); });
     REQUIRE(good.parameters.size() == 1);
     CHECK(good.parameters[0].name == "w");
     CHECK(good.max_rel_error < max_relative_error);
@@ -133,7 +131,8 @@ TEST_CASE("elementwise unary operations match finite differences") {
     for (const auto& c : cases) {
         for (shape2 s : shapes) {
             tenon::parameter<double> x("x", random_matrix(rng, s, c.low, c.high, c.kinks));
-            const double err = check_op({&x}, [&](tape<double>&, std::vector<var<double>>& v) { return c.op(v[0]); }, rng);
+            const double err = check_op(
+                {&x}, [&](tape<double>&, std::vector<var<double>>& v) { return c.op(v[0]); }, rng);
             CHECK_MESSAGE(err < max_relative_error, c.name << " on " << describe(s) << ": relative error " << err);
         }
     }
@@ -157,14 +156,14 @@ TEST_CASE("binary operations with broadcasting match finite differences") {
             // Same shape, 1xN row bias, Nx1 column, 1x1 scalar, each on either
             // side, and the outer broadcast of a column with a row.
             const std::vector<std::pair<shape2, shape2>> pairs = {
-                {s, s}, {s, {1, s.cols}}, {s, {s.rows, 1}}, {s, {1, 1}},
-                {{1, s.cols}, s}, {{s.rows, 1}, s}, {{1, 1}, s}, {{s.rows, 1}, {1, s.cols}},
+                {s, s}, {s, {1, s.cols}}, {s, {s.rows, 1}}, {s, {1, 1}}, {{1, s.cols}, s}, {{s.rows, 1}, s}, {{1, 1}, s}, {{s.rows, 1}, {1, s.cols}},
             };
             for (const auto& pr : pairs) {
                 tenon::parameter<double> a("a", random_matrix(rng, pr.first, -2.0, 2.0));
                 // Divisors with magnitude in [0.5, 2] keep 1/b smooth.
                 tenon::parameter<double> b("b", random_matrix(rng, pr.second, -2.0, 2.0, {0.0}, 0.5));
-                const double err = check_op({&a, &b}, [&](tape<double>&, std::vector<var<double>>& v) { return c.op(v[0], v[1]); }, rng);
+                const double err = check_op(
+                    {&a, &b}, [&](tape<double>&, std::vector<var<double>>& v) { return c.op(v[0], v[1]); }, rng);
                 CHECK_MESSAGE(err < max_relative_error,
                               c.name << " " << describe(pr.first) << " with " << describe(pr.second) << ": relative error " << err);
             }
@@ -175,16 +174,17 @@ TEST_CASE("binary operations with broadcasting match finite differences") {
 TEST_CASE("matmul with every transpose combination matches finite differences") {
     tenon::random_engine rng(5150);
     std::vector<std::array<std::size_t, 3>> sizes = {{1, 1, 1}, {1, 4, 1}, {3, 1, 2}, {1, 3, 5}, {4, 2, 1}};
-    for (int i = 0; i < 3; ++i) sizes.push_back({static_cast<std::size_t>(1 + rng.below(5)), static_cast<std::size_t>(1 + rng.below(5)), static_cast<std::size_t>(1 + rng.below(5))});
+    for (int i = 0; i < 3; ++i)
+        sizes.push_back(
+            {static_cast<std::size_t>(1 + rng.below(5)), static_cast<std::size_t>(1 + rng.below(5)), static_cast<std::size_t>(1 + rng.below(5))});
     for (const auto& sz : sizes) {
         const std::size_t m = sz[0], k = sz[1], n = sz[2];
         for (int mode = 0; mode < 4; ++mode) {
             const bool ta = (mode & 1) != 0, tb = (mode & 2) != 0;
             tenon::parameter<double> a("a", random_matrix(rng, ta ? shape2{k, m} : shape2{m, k}, -1.0, 1.0));
             tenon::parameter<double> b("b", random_matrix(rng, tb ? shape2{n, k} : shape2{k, n}, -1.0, 1.0));
-            const double err = check_op({&a, &b}, [&](tape<double>&, std::vector<var<double>>& v) {
-                return tenon::matmul(v[0], v[1], ta, tb);
-            }, rng);
+            const double err = check_op(
+                {&a, &b}, [&](tape<double>&, std::vector<var<double>>& v) { return tenon::matmul(v[0], v[1], ta, tb); }, rng);
             CHECK_MESSAGE(err < max_relative_error,
                           "m=" << m << " k=" << k << " n=" << n << " ta=" << ta << " tb=" << tb << ": relative error " << err);
         }
@@ -299,14 +299,18 @@ TEST_CASE("host-defined operations recorded with tape::apply match finite differ
     tenon::random_engine rng(404);
     for (shape2 s : test_shapes(rng)) {
         tenon::parameter<double> x("x", random_matrix(rng, s, -1.5, 1.5));
-        const double cube_err = check_op({&x}, [&](tape<double>& t, std::vector<var<double>>& v) { return t.apply(cube, {v[0]}); }, rng);
+        const double cube_err = check_op(
+            {&x}, [&](tape<double>& t, std::vector<var<double>>& v) { return t.apply(cube, {v[0]}); }, rng);
         CHECK_MESSAGE(cube_err < max_relative_error, "cube on " << describe(s) << ": " << cube_err);
 
         tenon::parameter<double> w("w", random_matrix(rng, {1, s.cols}, -1.5, 1.5));
-        const double ws_err = check_op({&x, &w}, [&](tape<double>& t, std::vector<var<double>>& v) {
-            // Feed the custom op from a built-in op and feed a built-in op from it.
-            return tenon::tanh(t.apply(weighted_sum, {tenon::sigmoid(v[0]), v[1]}));
-        }, rng);
+        const double ws_err = check_op(
+            {&x, &w},
+            [&](tape<double>& t, std::vector<var<double>>& v) {
+                // Feed the custom op from a built-in op and feed a built-in op from it.
+                return tenon::tanh(t.apply(weighted_sum, {tenon::sigmoid(v[0]), v[1]}));
+            },
+            rng);
         CHECK_MESSAGE(ws_err < max_relative_error, "weighted_sum on " << describe(s) << ": " << ws_err);
     }
 }

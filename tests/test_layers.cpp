@@ -68,12 +68,18 @@ TEST_CASE_TEMPLATE("initializers give bit-identical values for a seed", T, float
         double values[4];
     };
     const expected_values table[] = {
-        {{tenon::init_scheme::glorot, tenon::init_distribution::uniform}, {-0.72077047703504427, -0.20961235457150795, 0.31184433546874413, 0.73558975891964251}},
-        {{tenon::init_scheme::glorot, tenon::init_distribution::normal}, {-0.36310956912239284, -0.10559845911597993, 0.11081135075179666, 0.26138584387800728}},
-        {{tenon::init_scheme::he, tenon::init_distribution::uniform}, {-1.1770132602655197, -0.34229554165569298, 0.50923966738381665, 1.201213046246677}},
-        {{tenon::init_scheme::he, tenon::init_distribution::normal}, {-0.59295544338114714, -0.17244156163886776, 0.18095417803364994, 0.42684129565860268}},
-        {{tenon::init_scheme::lecun, tenon::init_distribution::uniform}, {-0.83227405788023567, -0.24203949867466279, 0.36008682205627873, 0.84938589065077519}},
-        {{tenon::init_scheme::lecun, tenon::init_distribution::normal}, {-0.41928281495628505, -0.12193459759324139, 0.12795392637163167, 0.30182237465064998}},
+        {{tenon::init_scheme::glorot, tenon::init_distribution::uniform},
+         {-0.72077047703504427, -0.20961235457150795, 0.31184433546874413, 0.73558975891964251}},
+        {{tenon::init_scheme::glorot, tenon::init_distribution::normal},
+         {-0.36310956912239284, -0.10559845911597993, 0.11081135075179666, 0.26138584387800728}},
+        {{tenon::init_scheme::he, tenon::init_distribution::uniform},
+         {-1.1770132602655197, -0.34229554165569298, 0.50923966738381665, 1.201213046246677}},
+        {{tenon::init_scheme::he, tenon::init_distribution::normal},
+         {-0.59295544338114714, -0.17244156163886776, 0.18095417803364994, 0.42684129565860268}},
+        {{tenon::init_scheme::lecun, tenon::init_distribution::uniform},
+         {-0.83227405788023567, -0.24203949867466279, 0.36008682205627873, 0.84938589065077519}},
+        {{tenon::init_scheme::lecun, tenon::init_distribution::normal},
+         {-0.41928281495628505, -0.12193459759324139, 0.12795392637163167, 0.30182237465064998}},
     };
     for (const auto& row : table) {
         CAPTURE(tenon::init_scheme_name(row.init.scheme));
@@ -93,9 +99,12 @@ TEST_CASE_TEMPLATE("each initializer's empirical variance matches its formula", 
         tenon::initializer init;
         double variance;
     } table[] = {
-        {{tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 2.0 / (fan_in + fan_out)}, {{tenon::init_scheme::glorot, tenon::init_distribution::normal}, 2.0 / (fan_in + fan_out)},
-        {{tenon::init_scheme::he, tenon::init_distribution::uniform}, 2.0 / fan_in},                 {{tenon::init_scheme::he, tenon::init_distribution::normal}, 2.0 / fan_in},
-        {{tenon::init_scheme::lecun, tenon::init_distribution::uniform}, 1.0 / fan_in},              {{tenon::init_scheme::lecun, tenon::init_distribution::normal}, 1.0 / fan_in},
+        {{tenon::init_scheme::glorot, tenon::init_distribution::uniform}, 2.0 / (fan_in + fan_out)},
+        {{tenon::init_scheme::glorot, tenon::init_distribution::normal}, 2.0 / (fan_in + fan_out)},
+        {{tenon::init_scheme::he, tenon::init_distribution::uniform}, 2.0 / fan_in},
+        {{tenon::init_scheme::he, tenon::init_distribution::normal}, 2.0 / fan_in},
+        {{tenon::init_scheme::lecun, tenon::init_distribution::uniform}, 1.0 / fan_in},
+        {{tenon::init_scheme::lecun, tenon::init_distribution::normal}, 1.0 / fan_in},
     };
     for (const auto& row : table) {
         CAPTURE(tenon::init_scheme_name(row.init.scheme));
@@ -307,7 +316,7 @@ TEST_CASE_TEMPLATE("a residual block adds its input to its inner output", T, flo
     block.add(tenon::activation_layer<T>(tenon::activation::relu));
     tenon::tape<T> t;
     const auto y = block.forward(t, t.input(make_matrix<T>({{T(1), T(-1)}})), run_mode::training);
-    CHECK(y.value()(0, 0) == T(2));   // 1 + relu(1)
+    CHECK(y.value()(0, 0) == T(2));  // 1 + relu(1)
     CHECK(y.value()(0, 1) == T(-1));  // -1 + relu(-2)
     tenon::residual<T> widening;
     widening.add(tenon::dense<T>(2, 3));
@@ -333,8 +342,8 @@ TEST_CASE_TEMPLATE("a linear bypass adds x W to its inner output", T, float, dou
     block.linear_weights().assign(make_matrix<T>({{T(3)}, {T(-2)}}));
     tenon::tape<T> t;
     const auto y = block.forward(t, t.input(make_matrix<T>({{T(1), T(2)}, {T(-1), T(-2)}})), run_mode::training);
-    CHECK(y.value()(0, 0) == T(2));   // relu(1 + 2) + (3 - 4)
-    CHECK(y.value()(1, 0) == T(1));   // relu(-3) + (-3 + 4)
+    CHECK(y.value()(0, 0) == T(2));  // relu(1 + 2) + (3 - 4)
+    CHECK(y.value()(1, 0) == T(1));  // relu(-3) + (-3 + 4)
     CHECK(block.output_width(2) == 1);
     CHECK(code_of([&] { (void)block.output_width(3); }) == "core.shape.mismatch");
     CHECK(code_of([] { tenon::linear_bypass<T> empty(0, 1); }) == "model.layer.option");
@@ -551,11 +560,12 @@ TEST_CASE("damaged architecture bytes fail with their error codes") {
                              "[model.record.malformed] size test: a row index 4294967296 at byte 0 does not fit this platform's 32-bit sizes",
                              tenon::error);
     }
-    CHECK_THROWS_WITH_AS(sides_of(0, std::uint64_t(1) << 63, 0),
-                         sizeof(std::size_t) >= 8
-                             ? "[model.record.malformed] matrix test: a matrix of 0x9223372036854775808 values declared at byte 0 has a side above 2^32"
-                             : "[model.record.malformed] matrix test: a matrix of 0x9223372036854775808 values declared at byte 0 has a side above 4294967295",
-                         tenon::error);
+    CHECK_THROWS_WITH_AS(
+        sides_of(0, std::uint64_t(1) << 63, 0),
+        sizeof(std::size_t) >= 8
+            ? "[model.record.malformed] matrix test: a matrix of 0x9223372036854775808 values declared at byte 0 has a side above 2^32"
+            : "[model.record.malformed] matrix test: a matrix of 0x9223372036854775808 values declared at byte 0 has a side above 4294967295",
+        tenon::error);
 
     tenon::layer_record unknown;
     unknown.kind = "network";
@@ -584,9 +594,9 @@ TEST_CASE_TEMPLATE("network forward fuses dense + activation without changing va
         activation hidden;
         bool fused;
     };
-    const expectation cases[] = {{activation::relu, true},    {activation::leaky_relu, true}, {activation::elu, true},
-                                 {activation::tanh, true},    {activation::sigmoid, true},    {activation::softplus, false},
-                                 {activation::gelu, false},   {activation::softmax, false}};
+    const expectation cases[] = {{activation::relu, true},  {activation::leaky_relu, true}, {activation::elu, true},
+                                 {activation::tanh, true},  {activation::sigmoid, true},    {activation::softplus, false},
+                                 {activation::gelu, false}, {activation::softmax, false}};
     for (const auto& c : cases) {
         const std::string hidden_name = tenon::activation_name(c.hidden);
         CAPTURE(hidden_name);

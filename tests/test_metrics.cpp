@@ -74,8 +74,7 @@ TEST_CASE("R^2 of a constant truth is 1 when exact and 0 otherwise") {
 }
 
 TEST_CASE("metric inputs that do not fit are clear errors") {
-    CHECK_THROWS_WITH_AS(tenon::score_classes({0, 1}, {0}, 2), "[core.shape.mismatch] score_classes: 2 true values but 1 predictions",
-                         tenon::error);
+    CHECK_THROWS_WITH_AS(tenon::score_classes({0, 1}, {0}, 2), "[core.shape.mismatch] score_classes: 2 true values but 1 predictions", tenon::error);
     CHECK_THROWS_WITH_AS(tenon::score_classes({}, {}, 2), "[core.argument.invalid] score_classes: no rows to score", tenon::error);
     CHECK_THROWS_WITH_AS(tenon::score_classes({0, 3}, {0, 1}, 2), "[core.argument.invalid] confusion_matrix: class index 3 outside [0, 2)",
                          tenon::error);

@@ -70,8 +70,8 @@ dataset seattle_hourly() {
     dataset out;
     out.name = "seattle-temps";
     out.chronological = true;
-    out.features = {numbers("hour"), numbers("day_of_year"), numbers("temp_1h_back"), numbers("temp_2h_back"),
-                    numbers("temp_3h_back"), numbers("temp_24h_back")};
+    out.features = {numbers("hour"),         numbers("day_of_year"),  numbers("temp_1h_back"),
+                    numbers("temp_2h_back"), numbers("temp_3h_back"), numbers("temp_24h_back")};
     out.target = numbers("temp");
     for (const auto& [hour, yearday] : order) {
         const long lags[] = {1, 2, 3, 24};
@@ -97,8 +97,8 @@ dataset seattle_daily() {
     dataset out;
     out.name = "seattle-weather";
     out.chronological = true;
-    out.features = {numbers("day_of_year"), numbers("temp_max_1d_back"), numbers("temp_max_2d_back"), numbers("temp_min_1d_back"),
-                    numbers("precipitation_1d_back"), numbers("wind_1d_back"), texts("weather_1d_back")};
+    out.features = {numbers("day_of_year"),           numbers("temp_max_1d_back"), numbers("temp_max_2d_back"), numbers("temp_min_1d_back"),
+                    numbers("precipitation_1d_back"), numbers("wind_1d_back"),     texts("weather_1d_back")};
     out.target = numbers("temp_max");
     long previous_day = 0;
     for (std::size_t r = 1; r < rows.size(); ++r) {
@@ -146,8 +146,8 @@ dataset iris() {
 dataset cars() {
     dataset out;
     out.name = "cars";
-    out.features = {numbers("Cylinders"), numbers("Displacement"), numbers("Horsepower"), numbers("Weight_in_lbs"),
-                    numbers("Acceleration"), numbers("Year"), texts("Origin")};
+    out.features = {numbers("Cylinders"),    numbers("Displacement"), numbers("Horsepower"), numbers("Weight_in_lbs"),
+                    numbers("Acceleration"), numbers("Year"),         texts("Origin")};
     out.target = numbers("Miles_per_Gallon");
     for (const auto& rec : read_json_records(vega_folder + "cars.json")) {
         const double mpg = number_of(rec.at("Miles_per_Gallon"));
@@ -230,8 +230,8 @@ tenon::holdout_split split_for(const dataset& d, std::uint64_t seed) {
 }
 
 void print(const dataset& d, const comparison& c, const tenon::holdout_split& last) {
-    std::printf("\n%s: %zu rows (%zu train, %zu validation, %zu test%s), test %s, seeds 1-3\n", d.name.c_str(), d.rows(),
-                last.train.size(), last.validation.size(), last.test.size(), d.chronological ? ", latest rows" : "",
+    std::printf("\n%s: %zu rows (%zu train, %zu validation, %zu test%s), test %s, seeds 1-3\n", d.name.c_str(), d.rows(), last.train.size(),
+                last.validation.size(), last.test.size(), d.chronological ? ", latest rows" : "",
                 c.classify ? "accuracy (higher is better)" : "RMSE (lower is better)");
     std::printf("  %-26s %9s %9s %9s %9s %9s  %s\n", "method", "seed 1", "seed 2", "seed 3", "mean", "seconds", "epochs or Newton steps");
     for (const method_result* m :
@@ -263,8 +263,7 @@ comparison compare(const dataset& d) {
     for (std::uint64_t seed = 1; seed <= 3; ++seed) {
         split = split_for(d, seed);
         const preparation prep(d, split.train);
-        const prepared train = prep.apply(d, split.train), validation = prep.apply(d, split.validation),
-                       test = prep.apply(d, split.test);
+        const prepared train = prep.apply(d, split.train), validation = prep.apply(d, split.validation), test = prep.apply(d, split.test);
 
         auto start = std::chrono::steady_clock::now();
         if (d.classify) {
@@ -406,8 +405,7 @@ TEST_CASE("open table, daily sensor series: Seattle weather 2012-2015, the lates
 TEST_CASE("open table, small classification: Fisher's iris, 150 rows and 3 classes") {
     const dataset d = iris();
     REQUIRE(d.rows() == 150);  // Fisher (1936): 50 flowers of each species
-    for (const char* species : {"setosa", "versicolor", "virginica"})
-        CHECK(std::count(d.target.texts.begin(), d.target.texts.end(), species) == 50);
+    for (const char* species : {"setosa", "versicolor", "virginica"}) CHECK(std::count(d.target.texts.begin(), d.target.texts.end(), species) == 50);
     check_bar(compare(d));
 }
 

@@ -62,7 +62,7 @@ TEST_CASE("date/times: ISO 8601 and YYYY/MM/DD to seconds since the epoch") {
     CHECK(t == 0.0);
     CHECK(tenon::parse_datetime("1969-12-31", t));
     CHECK(t == -86400.0);
-    CHECK(tenon::parse_datetime("2024-02-29", t));      // leap year
+    CHECK(tenon::parse_datetime("2024-02-29", t));  // leap year
     CHECK_FALSE(tenon::parse_datetime("2023-02-29", t));  // not a leap year
     CHECK_FALSE(tenon::parse_datetime("1900-02-29", t));  // century rule
     CHECK_FALSE(tenon::parse_datetime("2023-13-01", t));
@@ -74,7 +74,8 @@ TEST_CASE("date/times: ISO 8601 and YYYY/MM/DD to seconds since the epoch") {
 }
 
 TEST_CASE("RFC 4180: quoted fields hold delimiters, doubled quotes and line breaks; CRLF; BOM") {
-    const std::string text = "\xEF\xBB\xBF" "name,note,value\r\n"
+    const std::string text = "\xEF\xBB\xBF"
+                             "name,note,value\r\n"
                              "\"pump, north\",\"said \"\"hi\"\"\",1\r\n"
                              "press,\"two\r\nlines\",2\r\n"
                              "line,\"\",3";  // no line break after the last record (rule 2)
@@ -115,7 +116,8 @@ TEST_CASE("limits: a field above max_field_bytes and a column above max_categori
     CHECK_THROWS_WITH_AS(read_text("id,note\n1,2\n3," + at_limit + "y\n"),
                          "[prep.csv.oversize] t.csv line 3 column 2: a field longer than the limit of 65536 bytes (csv_options::max_field_bytes)",
                          tenon::error);
-    CHECK_THROWS_WITH_AS(read_text("id,note\n1,\"" + at_limit + "\"\"\"\n"), doctest::Contains("t.csv line 2 column 2: a field longer"), tenon::error);
+    CHECK_THROWS_WITH_AS(read_text("id,note\n1,\"" + at_limit + "\"\"\"\n"), doctest::Contains("t.csv line 2 column 2: a field longer"),
+                         tenon::error);
     CHECK_THROWS_WITH_AS(read_text(at_limit + "z,b\n1,2\n"), doctest::Contains("t.csv line 1 column 1: a field longer"), tenon::error);
     tenon::csv_options small;
     small.max_field_bytes = 4;
@@ -141,7 +143,7 @@ TEST_CASE("decimal commas: parsed without a point, refused with ',' as the delim
     CHECK(v == 12.0);
     CHECK(tenon::parse_decimal_comma_number("1,5e3", v));
     CHECK(v == 1500.0);
-    CHECK_FALSE(tenon::parse_decimal_comma_number("59.8", v));     // a point is not read with decimal commas
+    CHECK_FALSE(tenon::parse_decimal_comma_number("59.8", v));  // a point is not read with decimal commas
     CHECK_FALSE(tenon::parse_decimal_comma_number("1.234,5", v));  // nor a thousands separator
     CHECK_FALSE(tenon::parse_decimal_comma_number("1,2,3", v));
     CHECK_FALSE(tenon::parse_decimal_comma_number("abc", v));
@@ -200,20 +202,24 @@ TEST_CASE("the dialect is told from the header and first rows") {
 TEST_CASE("ambiguous dialects are refused with the file, the candidates and the cell") {
     std::string message;
     CHECK(error_code_of([] { detect_text("x;y,z\n1;2,3\n4;5,6\n"); }, &message) == "prep.csv.dialect_ambiguous");
-    CHECK(message == "[prep.csv.dialect_ambiguous] t.csv: the delimiter is ambiguous: ',' (2 fields) and ';' (2 fields) each split "
-                     "the header and the first rows evenly; name the delimiter");
+    CHECK(message ==
+          "[prep.csv.dialect_ambiguous] t.csv: the delimiter is ambiguous: ',' (2 fields) and ';' (2 fields) each split "
+          "the header and the first rows evenly; name the delimiter");
     // Decimal commas and decimal points in one file.
     CHECK(error_code_of([] { detect_text("a;b\n59,8;3.5\n"); }, &message) == "prep.csv.dialect_ambiguous");
-    CHECK(message == "[prep.csv.dialect_ambiguous] t.csv: the decimal mark is ambiguous: t.csv line 2 column 1 ('a'): '59,8' has a "
-                     "decimal comma and t.csv line 2 column 2 ('b'): '3.5' a decimal point");
+    CHECK(message ==
+          "[prep.csv.dialect_ambiguous] t.csv: the decimal mark is ambiguous: t.csv line 2 column 1 ('a'): '59,8' has a "
+          "decimal comma and t.csv line 2 column 2 ('b'): '3.5' a decimal point");
     // Thousands separators are not read (decision: refused rather than guessed).
     CHECK(error_code_of([] { detect_text("a;b\n1.234,5;1\n"); }, &message) == "prep.csv.dialect_ambiguous");
-    CHECK(message == "[prep.csv.dialect_ambiguous] t.csv line 2 column 1 ('a'): '1.234,5' holds both '.' and ',': thousands "
-                     "separators are not read; write numbers without them");
+    CHECK(message ==
+          "[prep.csv.dialect_ambiguous] t.csv line 2 column 1 ('a'): '1.234,5' holds both '.' and ',': thousands "
+          "separators are not read; write numbers without them");
     // "1,234" and "12,500" read as 1.234 or 1234 alike.
     CHECK(error_code_of([] { detect_text("a;b\n1,234;x\n12,500;y\n"); }, &message) == "prep.csv.dialect_ambiguous");
-    CHECK(message == "[prep.csv.dialect_ambiguous] t.csv: the decimal mark is ambiguous: every cell with a comma, such as t.csv line "
-                     "2 column 1 ('a'): '1,234', could be a decimal comma or a thousands separator; name the decimal mark");
+    CHECK(message ==
+          "[prep.csv.dialect_ambiguous] t.csv: the decimal mark is ambiguous: every cell with a comma, such as t.csv line "
+          "2 column 1 ('a'): '1,234', could be a decimal comma or a thousands separator; name the decimal mark");
     // Named explicitly, the same file reads.
     tenon::csv_options named;
     named.delimiter = ';';
@@ -234,8 +240,8 @@ tenon::table press_log_table(std::size_t rows) {
     for (std::size_t i = 0; i < rows; ++i) {
         const double force = rng.uniform(40.0, 80.0);
         csv += "SN-" + std::to_string(4711 * i % 1000003) + "," + std::to_string(1000 + i) + ",P" + std::to_string(i % 40) + ",L" +
-               std::to_string(i % 3) + "," + (i % 3 == 0 ? "night" : "day") + "," + std::to_string(force) + "," + (i % 2 ? "9" : "7") + "," +
-               (force > 68.0 ? "1" : "0") + "\n";
+            std::to_string(i % 3) + "," + (i % 3 == 0 ? "night" : "day") + "," + std::to_string(force) + "," + (i % 2 ? "9" : "7") + "," +
+            (force > 68.0 ? "1" : "0") + "\n";
     }
     return read_text(csv);
 }
@@ -304,26 +310,27 @@ TEST_CASE("CSV errors name the source, line and column") {
     CHECK(message == "[prep.csv.ragged] t.csv line 3: expected 2 fields, found 3");
 
     CHECK(error_code_of([] { read_text("a,b\n1,2\n3,\"open\n4,5\n"); }, &message) == "prep.csv.unterminated_quote");
-    CHECK(message == "[prep.csv.unterminated_quote] t.csv line 3 column 2: the quoted field opened on line 3 is not "
-                     "closed before the end of the input");
+    CHECK(message ==
+          "[prep.csv.unterminated_quote] t.csv line 3 column 2: the quoted field opened on line 3 is not "
+          "closed before the end of the input");
 
     CHECK(error_code_of([] { read_text("a,b\n1,x\"y\n"); }, &message) == "prep.csv.stray_quote");
-    CHECK(message == "[prep.csv.stray_quote] t.csv line 2 column 2: a quote inside an unquoted field (quote the whole "
-                     "field and double the quote)");
+    CHECK(message ==
+          "[prep.csv.stray_quote] t.csv line 2 column 2: a quote inside an unquoted field (quote the whole "
+          "field and double the quote)");
     CHECK(error_code_of([] { read_text("a,b\n1,\"x\"y\n"); }, &message) == "prep.csv.stray_quote");
-    CHECK(message == "[prep.csv.stray_quote] t.csv line 2 column 2: a closing quote must be followed by the delimiter "
-                     "or a line end");
+    CHECK(message ==
+          "[prep.csv.stray_quote] t.csv line 2 column 2: a closing quote must be followed by the delimiter "
+          "or a line end");
 
     tenon::csv_options numeric;
     numeric.forced_kinds["b"] = tenon::column_kind::numeric;
-    CHECK(error_code_of([&] { read_text("a,b\n1,2\n\"multi\nline\",3\n4,five\n", numeric); }, &message) ==
-          "prep.cell.not_numeric");
+    CHECK(error_code_of([&] { read_text("a,b\n1,2\n\"multi\nline\",3\n4,five\n", numeric); }, &message) == "prep.cell.not_numeric");
     CHECK(message == "[prep.cell.not_numeric] t.csv line 5 column 2 ('b'): 'five' is not a finite number");
 
     tenon::csv_options datetime;
     datetime.forced_kinds["a"] = tenon::column_kind::datetime;
-    CHECK(error_code_of([&] { read_text("a\n2024-01-01\n2024-02-30\n", datetime); }, &message) ==
-          "prep.cell.not_datetime");
+    CHECK(error_code_of([&] { read_text("a\n2024-01-01\n2024-02-30\n", datetime); }, &message) == "prep.cell.not_datetime");
     CHECK(message == "[prep.cell.not_datetime] t.csv line 3 column 1 ('a'): '2024-02-30' is not a date/time");
 
     tenon::csv_options unknown;
@@ -338,7 +345,9 @@ TEST_CASE("CSV errors name the source, line and column") {
     CHECK(message == "[prep.csv.duplicate_column] t.csv line 1 column 3: the name 'a' is used twice in the header");
 
     CHECK(error_code_of([] { tenon::read_csv_file("/nonexistent/tenon/x.csv"); }, &message) == "prep.file.open");
-    CHECK(message == "[prep.file.open] /nonexistent/tenon/x.csv: cannot open for reading (No such file or directory)");  // the system's reason (glibc's text of ENOENT)
+    CHECK(
+        message ==
+        "[prep.file.open] /nonexistent/tenon/x.csv: cannot open for reading (No such file or directory)");  // the system's reason (glibc's text of ENOENT)
     // A directory is not read as an empty or endless file.
     CHECK(error_code_of([] { tenon::read_csv_file(std::string(TENON_SOURCE_DIR) + "/tests"); }, &message) == "prep.file.open");
     CHECK(message.find("cannot") != std::string::npos);
@@ -364,7 +373,7 @@ TEST_CASE("one streaming pass gathers counts, extremes, moments and category set
     CHECK(s[0].name == "v");
     CHECK(s[0].present == 3);
     CHECK(s[0].missing == 1);
-    CHECK(s[0].numbers.mean == doctest::Approx(3.0));                 // (1+2+6)/3
+    CHECK(s[0].numbers.mean == doctest::Approx(3.0));  // (1+2+6)/3
     CHECK(s[0].numbers.population_variance() == doctest::Approx(14.0 / 3.0));  // (4+1+9)/3
     CHECK(s[0].numbers.minimum == 1.0);
     CHECK(s[0].numbers.maximum == 6.0);
@@ -404,7 +413,10 @@ TEST_CASE("Welford on a stream offset by 1e9 matches a two-pass long double refe
     // variance (about 1/12) entirely at this offset: the contrast shows the
     // test can fail.
     double s1 = 0, s2 = 0;
-    for (double v : x) { s1 += v; s2 += v * v; }
+    for (double v : x) {
+        s1 += v;
+        s2 += v * v;
+    }
     const double naive = s2 / n - (s1 / n) * (s1 / n);
     CHECK(std::abs(naive - reference_variance) > 1e-3);
 
@@ -436,7 +448,7 @@ TEST_CASE("exact quantiles by Hyndman & Fan definition 7") {
 
     auto t = read_text("v,c\n1,a\n2,a\nNA,b\n10,b\n4,a\n");
     auto q = tenon::column_quartiles(t.at("v"), tenon::all_rows(t.row_count()));
-    CHECK(q.median == doctest::Approx(3.0));                   // 1 2 4 10 -> h = 1.5 -> 3
+    CHECK(q.median == doctest::Approx(3.0));  // 1 2 4 10 -> h = 1.5 -> 3
     CHECK(q.interquartile_range == doctest::Approx(5.5 - 1.75));  // h=2.25 -> 4+0.25*6; h=0.75 -> 1.75
     auto counts = tenon::category_counts(t.at("c"), {0, 1, 2});
     CHECK(counts[0] == 2);

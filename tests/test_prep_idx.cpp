@@ -51,10 +51,11 @@ TEST_CASE("IDX errors") {
     const std::string bad = idx_bytes(1, {1}, {0});
     auto wrong_type = bad;
     wrong_type[2] = 0x0D;  // 0x0D = float elements, not read by tenon
-    CHECK(error_code_of([&] { tenon::parse_idx(reinterpret_cast<const std::uint8_t*>(wrong_type.data()), wrong_type.size(), "f.idx"); },
-                        &message) == "prep.idx.magic");
-    CHECK(message == "[prep.idx.magic] f.idx: magic number 0x00000D01 is not an IDX file of unsigned bytes (expected "
-                     "0x000008nn, nn = dimensions >= 1)");
+    CHECK(error_code_of([&] { tenon::parse_idx(reinterpret_cast<const std::uint8_t*>(wrong_type.data()), wrong_type.size(), "f.idx"); }, &message) ==
+          "prep.idx.magic");
+    CHECK(message ==
+          "[prep.idx.magic] f.idx: magic number 0x00000D01 is not an IDX file of unsigned bytes (expected "
+          "0x000008nn, nn = dimensions >= 1)");
     const std::string short_values = idx_bytes(3, {2, 28, 28}, {1, 2, 3});
     CHECK(error_code_of([&] { tenon::parse_idx(reinterpret_cast<const std::uint8_t*>(short_values.data()), short_values.size(), "s.idx"); },
                         &message) == "prep.idx.truncated");
@@ -65,8 +66,9 @@ TEST_CASE("IDX errors") {
     CHECK(message == "[prep.idx.truncated] h.idx: the header declares 3 dimensions but the file has 8 bytes");
     const std::uint8_t gz[] = {0x1F, 0x8B, 0x08, 0x00};
     CHECK(error_code_of([&] { tenon::parse_idx(gz, sizeof(gz), "g.gz"); }, &message) == "prep.idx.compressed");
-    CHECK(message == "[prep.idx.compressed] g.gz: the file is gzip-compressed; include tenon/prep/idx_gzip.hpp, link "
-                     "tenon::gzip and use read_idx_gzip_file");
+    CHECK(message ==
+          "[prep.idx.compressed] g.gz: the file is gzip-compressed; include tenon/prep/idx_gzip.hpp, link "
+          "tenon::gzip and use read_idx_gzip_file");
     CHECK(error_code_of([&] { tenon::parse_idx(gz, 2, "tiny"); }, &message) == "prep.idx.compressed");
     const std::uint8_t three[] = {0, 0, 8};
     CHECK(error_code_of([&] { tenon::parse_idx(three, 3, "tiny"); }, &message) == "prep.idx.truncated");

@@ -21,16 +21,15 @@ namespace {
 
 // A pump test bench: flow and pressure readings, the pump model, the
 // machine it ran on, when, and the verdict (one verdict missing).
-const char* const bench_csv =
-    "flow,pressure,model,machine,when,verdict\n"
-    "10,1.0,A,m1,2024-01-01,ok\n"
-    "12,1.2,B,m1,2024-01-02,ok\n"
-    "NA,1.1,A,m2,2024-01-03,fault\n"
-    "14,NA,C,m2,2024-01-04,ok\n"
-    "16,1.6,B,m3,2024-01-05,\n"
-    "40,4.0,A,m3,2024-01-06,fault\n"
-    "42,4.2,D,m4,2024-01-07,ok\n"
-    "44,4.4,B,m4,2024-01-08,fault\n";
+const char* const bench_csv = "flow,pressure,model,machine,when,verdict\n"
+                              "10,1.0,A,m1,2024-01-01,ok\n"
+                              "12,1.2,B,m1,2024-01-02,ok\n"
+                              "NA,1.1,A,m2,2024-01-03,fault\n"
+                              "14,NA,C,m2,2024-01-04,ok\n"
+                              "16,1.6,B,m3,2024-01-05,\n"
+                              "40,4.0,A,m3,2024-01-06,fault\n"
+                              "42,4.2,D,m4,2024-01-07,ok\n"
+                              "44,4.4,B,m4,2024-01-08,fault\n";
 
 tenon::table bench_table() {
     std::istringstream in(bench_csv);
@@ -60,17 +59,16 @@ tenon::plan bench_plan() {
 template <class P, class = void>
 struct has_apply : std::false_type {};
 template <class P>
-struct has_apply<P, std::void_t<decltype(std::declval<const P&>().template apply<float>(
-                        std::declval<const tenon::table&>(), std::declval<const std::vector<std::size_t>&>()))>>
-    : std::true_type {};
+struct has_apply<P,
+                 std::void_t<decltype(std::declval<const P&>().template apply<float>(
+                     std::declval<const tenon::table&>(), std::declval<const std::vector<std::size_t>&>()))>> : std::true_type {};
 
 }  // namespace
 
 TEST_CASE("an unmeasured plan cannot be applied: a different type without apply") {
     static_assert(!has_apply<tenon::plan>::value, "a plan must not be applicable before it is measured");
     static_assert(has_apply<tenon::measured_plan>::value, "a measured plan applies");
-    static_assert(!std::is_default_constructible_v<tenon::measured_plan>,
-                  "a measured plan comes only from plan::measure or from_bytes");
+    static_assert(!std::is_default_constructible_v<tenon::measured_plan>, "a measured plan comes only from plan::measure or from_bytes");
     static_assert(!std::is_convertible_v<tenon::plan, tenon::measured_plan>);
     CHECK(has_apply<tenon::measured_plan>::value);
 }
@@ -81,8 +79,7 @@ TEST_CASE("measuring: roles, feature layout, dropped target rows counted") {
     auto m = bench_plan().measure(t, train);
     CHECK(m.dropped_training_rows() == 1);  // row 4 has no verdict
     CHECK(m.input_columns() == std::vector<std::string>{"flow", "pressure", "model"});
-    CHECK(m.feature_names() == std::vector<std::string>{"flow", "flow#missing", "pressure", "model=A", "model=B",
-                                                        "model=C", "model=<other>"});
+    CHECK(m.feature_names() == std::vector<std::string>{"flow", "flow#missing", "pressure", "model=A", "model=B", "model=C", "model=<other>"});
     CHECK(m.class_names() == std::vector<std::string>{"fault", "ok"});
     CHECK(m.group_column() == "machine");
     CHECK(m.time_column() == "when");
@@ -236,8 +233,10 @@ TEST_CASE("plan errors name the column, the row and the value") {
 
     // Date/time features parse raw cells as date/times.
     tenon::plan timed;
-    timed.set_role("flow", tenon::column_role::ignored).set_role("pressure", tenon::column_role::ignored)
-        .set_role("model", tenon::column_role::ignored).set_role("machine", tenon::column_role::ignored)
+    timed.set_role("flow", tenon::column_role::ignored)
+        .set_role("pressure", tenon::column_role::ignored)
+        .set_role("model", tenon::column_role::ignored)
+        .set_role("machine", tenon::column_role::ignored)
         .set_role("verdict", tenon::column_role::ignored);
     auto tm = timed.measure(t, {0, 1, 2});
     const std::string_view not_a_date[] = {"yesterday"};
@@ -247,8 +246,7 @@ TEST_CASE("plan errors name the column, the row and the value") {
     tm.apply_cells(a_date, 1, row.data());
     CHECK(row[0] == doctest::Approx(0.0));  // the middle of three consecutive days
 
-    CHECK(error_code_of([&] { tenon::plan().set_role("nope", tenon::column_role::ignored).measure(t, {0}); }, &message) ==
-          "prep.column.unknown");
+    CHECK(error_code_of([&] { tenon::plan().set_role("nope", tenon::column_role::ignored).measure(t, {0}); }, &message) == "prep.column.unknown");
     CHECK(message == "[prep.column.unknown] bench.csv: no column named 'nope'");
     CHECK(error_code_of([&] { bench_plan().measure(t, {4}); }, &message) == "prep.rows.empty");
     CHECK(message == "[prep.rows.empty] bench.csv: no training rows to measure the plan on (1 given, 1 dropped for a missing target)");
@@ -344,28 +342,27 @@ TEST_CASE("corrupted plan bytes: each error code with its message") {
     auto huge_count = good;  // the feature count
     huge_count[pos + 3] = 0x7F;
     CHECK(error_code_of([&] { tenon::measured_plan::from_bytes(huge_count); }, &message) == "prep.bytes.oversize");
-    CHECK(message.rfind("[prep.bytes.oversize] measured plan: 2130706435 feature columns declared at byte " +
-                            std::to_string(pos) + " cannot fit in the",
-                        0) == 0);
+    CHECK(message.rfind(
+              "[prep.bytes.oversize] measured plan: 2130706435 feature columns declared at byte " + std::to_string(pos) + " cannot fit in the", 0) ==
+          0);
 
     auto bad_tag = good;
     bad_tag[pos + 4] = 0x00;  // the first feature's tag
     CHECK(error_code_of([&] { tenon::measured_plan::from_bytes(bad_tag); }, &message) == "prep.bytes.bad_tag");
-    CHECK(message == "[prep.bytes.bad_tag] measured plan: expected the tag of a feature column (241) at byte " +
-                         std::to_string(pos + 4) + ", found 0");
+    CHECK(message ==
+          "[prep.bytes.bad_tag] measured plan: expected the tag of a feature column (241) at byte " + std::to_string(pos + 4) + ", found 0");
 
     auto bad_kind = good;
     const std::size_t kind_at = pos + 4 + 1 + 4 + std::string("flow").size();
     bad_kind[kind_at] = 7;
     CHECK(error_code_of([&] { tenon::measured_plan::from_bytes(bad_kind); }, &message) == "prep.bytes.bad_tag");
-    CHECK(message == "[prep.bytes.bad_tag] measured plan: column kind value 7 at byte " + std::to_string(kind_at) +
-                         " is not a known value (at most 2)");
+    CHECK(message ==
+          "[prep.bytes.bad_tag] measured plan: column kind value 7 at byte " + std::to_string(kind_at) + " is not a known value (at most 2)");
 
     auto trailing = good;
     trailing.push_back(0);
     CHECK(error_code_of([&] { tenon::measured_plan::from_bytes(trailing); }, &message) == "prep.bytes.bad_tag");
-    CHECK(message == "[prep.bytes.bad_tag] measured plan: 1 unexpected bytes after the end at byte " +
-                         std::to_string(good.size()));
+    CHECK(message == "[prep.bytes.bad_tag] measured plan: 1 unexpected bytes after the end at byte " + std::to_string(good.size()));
 
     auto long_text = good;  // the first missing token's length
     long_text[10] = 0xFF;

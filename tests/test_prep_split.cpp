@@ -103,7 +103,7 @@ TEST_CASE("k-fold and stratified k-fold: every row tested once, balanced folds")
 TEST_CASE("chronological holdout: the test rows are the latest, no shuffling") {
     const std::vector<double> times{5, 1, 9, 3, 7, 2, 8, 0, 6, 4};
     auto s = tenon::chronological_holdout(times, {0.6, 0.2, 0.2});
-    CHECK(s.test == std::vector<std::size_t>{2, 6});        // times 9, 8
+    CHECK(s.test == std::vector<std::size_t>{2, 6});  // times 9, 8
     CHECK(s.validation == std::vector<std::size_t>{4, 8});  // times 7, 6
     CHECK(s.train.size() == 6);
     for (auto r : s.train) CHECK(times[r] < 6);
@@ -160,8 +160,9 @@ TEST_CASE("impossible split requests are clear errors") {
     CHECK(error_code_of([] { tenon::random_holdout(10, {0.5, 0.3, 0.3}, 1); }, &message) == "prep.split.fractions");
     CHECK(message == "[prep.split.fractions] split fractions must sum to 1, got 0.500000 + 0.300000 + 0.300000 = 1.100000");
     CHECK(error_code_of([] { tenon::random_holdout(10, {1.2, -0.2, 0.0}, 1); }, &message) == "prep.split.fractions");
-    CHECK(message == "[prep.split.fractions] split fractions must each lie in [0, 1], got train 1.200000, validation "
-                     "-0.200000, test 0.000000");
+    CHECK(message ==
+          "[prep.split.fractions] split fractions must each lie in [0, 1], got train 1.200000, validation "
+          "-0.200000, test 0.000000");
     CHECK(error_code_of([] { tenon::random_holdout(10, {0.0, 0.5, 0.5}, 1); }, &message) == "prep.split.fractions");
     CHECK(message == "[prep.split.fractions] the train fraction must be positive");
 
@@ -171,8 +172,11 @@ TEST_CASE("impossible split requests are clear errors") {
     const auto labels = labels_with_counts({10, 2});
     CHECK(error_code_of([&] { tenon::stratified_k_folds(labels, 3, 1); }, &message) == "prep.split.class_too_small");
     CHECK(message == "[prep.split.class_too_small] stratified k-fold: class 1 has 2 rows, fewer than the 3 folds");
-    CHECK(error_code_of([&] { tenon::stratified_holdout(labels_with_counts({10, 2}), {0.6, 0.2, 0.2}, 1); }, &message) ==
-          "prep.split.class_too_small");
+    CHECK(error_code_of(
+              [&] {
+                  tenon::stratified_holdout(labels_with_counts({10, 2}), {0.6, 0.2, 0.2}, 1);
+              },
+              &message) == "prep.split.class_too_small");
     CHECK(message == "[prep.split.class_too_small] stratified holdout: class 1 has 2 rows, fewer than the 3 non-empty subsets");
 
     const std::vector<std::uint32_t> one_group(8, 0);
@@ -190,6 +194,7 @@ TEST_CASE("impossible split requests are clear errors") {
     CHECK(error_code_of([&] { tenon::chronological_holdout(with_gap, {0.5, 0.0, 0.5}); }, &message) == "prep.split.missing_time");
     CHECK(message == "[prep.split.missing_time] chronological holdout: row 1 has no time");
     CHECK(error_code_of([] { tenon::rolling_origin_folds({1, 2, 3, 4}, 2, 2); }, &message) == "prep.split.empty_subset");
-    CHECK(message == "[prep.split.empty_subset] rolling-origin folds: 2 folds with a horizon of 2 rows need more than 4 "
-                     "rows, got 4 (the first fold would have no training rows)");
+    CHECK(message ==
+          "[prep.split.empty_subset] rolling-origin folds: 2 folds with a horizon of 2 rows need more than 4 "
+          "rows, got 4 (the first fold would have no training rows)");
 }

@@ -111,14 +111,13 @@ TEST_CASE("time formats have names that read back") {
 }
 
 TEST_CASE("read_csv detects one form per column and keeps it") {
-    const auto t = read_text(
-        "a,b,c,d,e\n"
-        "2010/01/02 00:00,02.01.2010 00:00,2010-01-02T00:00Z,25/12/2020,12/25/2020\n"
-        "2010/01/02 01:00,02.01.2010 01:00,2010-01-02 01:00,26/12/2020,12/26/2020\n");
+    const auto t = read_text("a,b,c,d,e\n"
+                             "2010/01/02 00:00,02.01.2010 00:00,2010-01-02T00:00Z,25/12/2020,12/25/2020\n"
+                             "2010/01/02 01:00,02.01.2010 01:00,2010-01-02 01:00,26/12/2020,12/26/2020\n");
     CHECK(t.at("a").time_form() == tenon::time_format::year_slash);
     CHECK(t.at("b").time_form() == tenon::time_format::day_dot);
     CHECK(t.at("c").time_form() == tenon::time_format::iso);
-    CHECK(t.at("d").time_form() == tenon::time_format::day_slash);    // 25 cannot be a month
+    CHECK(t.at("d").time_form() == tenon::time_format::day_slash);  // 25 cannot be a month
     CHECK(t.at("e").time_form() == tenon::time_format::month_slash);  // 25 cannot be a month
     for (const char* name : {"a", "b", "c"}) {
         CHECK(t.at(name).kind() == tenon::column_kind::datetime);
@@ -177,13 +176,14 @@ TEST_CASE("a chronological split gives the same rows whichever form the file use
             const double seconds = counted_seconds(2020 + i / 6, month, day, hour, 15);
             std::string cell;
             switch (form) {
-                case 0: cell = std::to_string(2020 + i / 6) + "-" + two(month) + "-" + two(day) + " " + two(hour) + ":15"; break;
-                case 1: cell = std::to_string(2020 + i / 6) + "/" + two(month) + "/" + two(day) + " " + two(hour) + ":15:00"; break;
-                case 2: cell = two(day) + "." + two(month) + "." + std::to_string(2020 + i / 6) + " " + two(hour) + ":15"; break;
-                case 3: cell = std::to_string(2020 + i / 6) + "-" + two(month) + "-" + two(day) + "T" + two((hour + 1) % 24) + ":15+01:00";
-                        if (hour == 23) cell = std::to_string(2020 + i / 6) + "-" + two(month) + "-" + two(day) + "T" + two(hour) + ":15Z";
-                        break;
-                default: cell = std::to_string(static_cast<std::int64_t>(seconds) * 1000); break;
+            case 0: cell = std::to_string(2020 + i / 6) + "-" + two(month) + "-" + two(day) + " " + two(hour) + ":15"; break;
+            case 1: cell = std::to_string(2020 + i / 6) + "/" + two(month) + "/" + two(day) + " " + two(hour) + ":15:00"; break;
+            case 2: cell = two(day) + "." + two(month) + "." + std::to_string(2020 + i / 6) + " " + two(hour) + ":15"; break;
+            case 3:
+                cell = std::to_string(2020 + i / 6) + "-" + two(month) + "-" + two(day) + "T" + two((hour + 1) % 24) + ":15+01:00";
+                if (hour == 23) cell = std::to_string(2020 + i / 6) + "-" + two(month) + "-" + two(day) + "T" + two(hour) + ":15Z";
+                break;
+            default: cell = std::to_string(static_cast<std::int64_t>(seconds) * 1000); break;
             }
             text += cell + "," + std::to_string(k) + "\n";
         }
@@ -271,8 +271,15 @@ TEST_CASE("the plan gives cyclic values on request, also of the time column alon
     with_cycles.fill = tenon::fill_method::median;
     preparation.set_steps("stamp", with_cycles);
     const auto measured = preparation.measure(t, {0, 1, 2});
-    const std::vector<std::string> names = {"stamp", "stamp#hour_sin", "stamp#hour_cos", "stamp#weekday_sin", "stamp#weekday_cos",
-                                            "stamp#yearday_sin", "stamp#yearday_cos", "stamp#missing", "load"};
+    const std::vector<std::string> names = {"stamp",
+                                            "stamp#hour_sin",
+                                            "stamp#hour_cos",
+                                            "stamp#weekday_sin",
+                                            "stamp#weekday_cos",
+                                            "stamp#yearday_sin",
+                                            "stamp#yearday_cos",
+                                            "stamp#missing",
+                                            "load"};
     CHECK(measured.feature_names() == names);
     const auto rows = measured.apply<double>(t, {1});
     double c[6];

@@ -88,11 +88,9 @@ TEST_CASE("constant columns: no division by zero, documented images, exact inver
 TEST_CASE("scaling errors") {
     auto t = table_of("x,c\nNA,a\n1,b\n");
     std::string message;
-    CHECK(error_code_of([&] { tenon::measure_scaling(t.at("x"), {0}, tenon::scaling_method::z_score); }, &message) ==
-          "prep.rows.empty");
+    CHECK(error_code_of([&] { tenon::measure_scaling(t.at("x"), {0}, tenon::scaling_method::z_score); }, &message) == "prep.rows.empty");
     CHECK(message == "[prep.rows.empty] column 'x': no present values to measure a scaling on");
-    CHECK(error_code_of([&] { tenon::measure_scaling(t.at("c"), {0}, tenon::scaling_method::z_score); }, &message) ==
-          "prep.column.kind");
+    CHECK(error_code_of([&] { tenon::measure_scaling(t.at("c"), {0}, tenon::scaling_method::z_score); }, &message) == "prep.column.kind");
     CHECK(message == "[prep.column.kind] column_moments: column 'c' is categorical");
     CHECK(error_code_of([&] { t.at("c").push_number(1.0); }, &message) == "prep.column.kind");
     CHECK(message == "[prep.column.kind] column 'c' is categorical, cannot push_number");
@@ -144,8 +142,7 @@ TEST_CASE_TEMPLATE("apply_scalings gives scaling::forward's bits for every colum
                 }
             }
             tenon::matrix<T> x({rows, cols});
-            for (std::size_t k = 0; k < x.size(); ++k)
-                x.data()[k] = rng.below(8) == 0 ? specials[rng.below(8)] : rng.normal(T(3), T(40));
+            for (std::size_t k = 0; k < x.size(); ++k) x.data()[k] = rng.below(8) == 0 ? specials[rng.below(8)] : rng.normal(T(3), T(40));
             tenon::matrix<T> y = x;
             tenon::apply_scalings(y, s);
             bool all_same = true;
@@ -257,10 +254,8 @@ TEST_CASE("imputation learned on the given rows: mean, median, mode, constant") 
     CHECK(tenon::measure_fill(t.at("x"), tenon::all_rows(6), tenon::fill_method::mean).number ==
           doctest::Approx(115.0 / 5.0));  // differs when row 5 is included
     std::string message;
-    CHECK(error_code_of([&] { tenon::measure_fill(t.at("c"), train, tenon::fill_method::mean); }, &message) ==
-          "prep.column.kind");
+    CHECK(error_code_of([&] { tenon::measure_fill(t.at("c"), train, tenon::fill_method::mean); }, &message) == "prep.column.kind");
     CHECK(message == "[prep.column.kind] column 'c' is categorical: it cannot be filled with the mean; use mode or constant");
-    CHECK(error_code_of([&] { tenon::measure_fill(t.at("x"), {4}, tenon::fill_method::median); }, &message) ==
-          "prep.rows.empty");
+    CHECK(error_code_of([&] { tenon::measure_fill(t.at("x"), {4}, tenon::fill_method::median); }, &message) == "prep.rows.empty");
     CHECK(message == "[prep.rows.empty] column 'x': no present values to learn a fill value from");
 }

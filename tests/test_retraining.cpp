@@ -32,9 +32,7 @@ namespace {
 
 using deploy_test::range;
 
-std::string temp_path(const std::string& name) {
-    return std::string("/tmp/tenon_retrain_test_") + std::to_string(::getpid()) + "_" + name;
-}
+std::string temp_path(const std::string& name) { return std::string("/tmp/tenon_retrain_test_") + std::to_string(::getpid()) + "_" + name; }
 
 std::string code_of(const std::function<void()>& f) {
     try {
@@ -52,8 +50,7 @@ std::vector<std::uint8_t> file_bytes(const std::string& path) { return tenon::re
 // A model of the pump log, trained on `t` (the first 80% of rows, early
 // stopping on the rest), with its file.
 template <class T>
-tenon::model_file<T> incumbent_of(const tenon::table& t, const tenon::plan& p, const tenon::model_settings& s,
-                                  std::size_t replay_rows = 256) {
+tenon::model_file<T> incumbent_of(const tenon::table& t, const tenon::plan& p, const tenon::model_settings& s, std::size_t replay_rows = 256) {
     const std::size_t n = t.row_count(), cut = n * 4 / 5;
     auto fitted = tenon::fit_model<T>(t, p, range(0, cut), range(cut, n), s);
     tenon::model_file_options o;
@@ -79,9 +76,12 @@ std::string csv_of(const tenon::table& t) {
         for (std::size_t k = 0; k < t.column_count(); ++k) {
             const auto& c = t[k];
             out << (k ? "," : "");
-            if (c.is_missing(r)) out << "NA";
-            else if (c.kind() == tenon::column_kind::categorical) out << c.category(r);
-            else out << c.number(r);
+            if (c.is_missing(r))
+                out << "NA";
+            else if (c.kind() == tenon::column_kind::categorical)
+                out << c.category(r);
+            else
+                out << c.number(r);
         }
         out << "\n";
     }
@@ -112,7 +112,7 @@ std::vector<std::vector<double>> file_outputs(const tenon::model_file<T>& file, 
             for (std::size_t j = 0; j < cols; ++j) total += std::exp(static_cast<double>(out(i, j)) - top);
             for (std::size_t j = 0; j < cols; ++j)
                 mean[i][j] += (classify ? std::exp(static_cast<double>(out(i, j)) - top) / total : static_cast<double>(out(i, j))) /
-                              static_cast<double>(members);
+                    static_cast<double>(members);
         }
     }
     return mean;
@@ -232,8 +232,10 @@ TEST_CASE("reservoir sampling keeps each item with equal probability (chi-square
             tenon::random_engine engine(static_cast<std::uint64_t>(run));
             std::vector<std::uint64_t> held;
             for (std::uint64_t item = 0; item < population; ++item) {
-                if (held.size() < 5) held.push_back(item);
-                else held[static_cast<std::size_t>(engine.below(5))] = item;
+                if (held.size() < 5)
+                    held.push_back(item);
+                else
+                    held[static_cast<std::size_t>(engine.below(5))] = item;
             }
             for (auto h : held) biased[static_cast<std::size_t>(h)] += 1.0;
         }
@@ -320,7 +322,7 @@ TEST_CASE_TEMPLATE("retraining: an equally good candidate is kept out, a clearly
         MESSAGE("1,000 unseen rows: candidate accuracy " << accuracy << ", majority-class share " << majority);
         CHECK(accuracy >= majority + 0.1);
         CHECK(r.report.holdout_rows == 120);  // 20% of 600, more than the minimum of 30
-        CHECK(r.report.replay_rows == 240);   // the incumbent's whole training split (fewer than 256)
+        CHECK(r.report.replay_rows == 240);  // the incumbent's whole training split (fewer than 256)
         CHECK(r.report.new_training_rows == 480);
         CHECK(r.report.training_rows + r.report.validation_rows == 240 + 480);
         // The same options with log loss: also better, also promoted.
@@ -399,11 +401,11 @@ TEST_CASE("the plan stays frozen and rows it cannot encode are refused and count
     const auto old_rows = retrain_test::pump_rows(200, 30);
     const auto incumbent = incumbent_of<float>(old_rows, deploy_test::condition_plan(), weak_settings());
     std::string text = csv_of(retrain_test::pump_rows(100, 31));
-    text += "50,10,oil,3,ok\n";          // a fluid never seen (policy: fail)
-    text += "60,12,water,3,leaking\n";   // a class the model has no output for
-    text += "70,14,water,3,NA\n";        // no target
-    text += "80,NA,water,3,ok\n";        // a missing head without a fill
-    text += "90,abc,water,3,ok\n";       // not a number (makes the head column text)
+    text += "50,10,oil,3,ok\n";  // a fluid never seen (policy: fail)
+    text += "60,12,water,3,leaking\n";  // a class the model has no output for
+    text += "70,14,water,3,NA\n";  // no target
+    text += "80,NA,water,3,ok\n";  // a missing head without a fill
+    text += "90,abc,water,3,ok\n";  // not a number (makes the head column text)
     const auto new_rows = csv_table(text);
     REQUIRE(new_rows.at("head").kind() == tenon::column_kind::categorical);
     tenon::retraining_options o;
@@ -690,14 +692,12 @@ TEST_CASE("retraining errors: options, too few rows, a missing column, no plan")
     CHECK(with([](tenon::retraining_options& o) { o.min_holdout_rows = 100; }) == "deploy.retrain.too_few_rows");
     CHECK(with([](tenon::retraining_options&) {}) == "no error");
 
-    CHECK(code_of([&] { tenon::retrain_model(incumbent, csv_table("flow,fluid,condition\n1,water,ok\n")); }) ==
-          "deploy.input.missing_column");
+    CHECK(code_of([&] { tenon::retrain_model(incumbent, csv_table("flow,fluid,condition\n1,water,ok\n")); }) == "deploy.input.missing_column");
     auto no_plan = incumbent;
     no_plan.plan.reset();
     CHECK(code_of([&] { tenon::retrain_model(no_plan, new_rows); }) == "deploy.model.missing_section");
     // Rows that are all refused leave too few.
-    CHECK(code_of([&] { tenon::retrain_model(incumbent, csv_table("flow,head,fluid,condition\n1,2,oil,ok\n")); }) ==
-          "deploy.retrain.too_few_rows");
+    CHECK(code_of([&] { tenon::retrain_model(incumbent, csv_table("flow,head,fluid,condition\n1,2,oil,ok\n")); }) == "deploy.retrain.too_few_rows");
 }
 
 TEST_CASE("the retraining report serializes to JSON") {
@@ -724,8 +724,8 @@ TEST_CASE("the retraining report serializes to JSON") {
 TEST_CASE("retraining recalibrates the candidate on its validation rows and reports both models' coverage on the holdout") {
     const auto old_rows = retrain_test::pump_rows(400, 40);
     auto incumbent = incumbent_of<float>(old_rows, deploy_test::condition_plan(), deploy_test::small_settings(4));
-    tenon::fitted_model<float> refit = tenon::fit_model<float>(old_rows, deploy_test::condition_plan(), range(0, 320), range(320, 400),
-                                                               deploy_test::small_settings(4));
+    tenon::fitted_model<float> refit =
+        tenon::fit_model<float>(old_rows, deploy_test::condition_plan(), range(0, 320), range(320, 400), deploy_test::small_settings(4));
     incumbent.calibration = tenon::calibrate_model(refit, old_rows, range(320, 400), 0.8);  // the same weights: same seed and rows
     const auto new_rows = retrain_test::pump_rows(400, 41);
     tenon::retraining_options o;
@@ -889,8 +889,8 @@ TEST_CASE("the gate scores an ensemble on its members' mean, and the candidate's
     const double incumbent_mean = power_rmse_on(incumbent, new_rows, holdout), candidate_mean = power_rmse_on(r.candidate, new_rows, holdout);
     const double incumbent_first = power_rmse_on(member_alone(incumbent, 0), new_rows, holdout);
     const double candidate_first = power_rmse_on(member_alone(r.candidate, 0), new_rows, holdout);
-    MESSAGE("holdout RMSE, mean of 3 (member 0 alone): incumbent " << incumbent_mean << " (" << incumbent_first << "), candidate "
-                                                                  << candidate_mean << " (" << candidate_first << ")");
+    MESSAGE("holdout RMSE, mean of 3 (member 0 alone): incumbent " << incumbent_mean << " (" << incumbent_first << "), candidate " << candidate_mean
+                                                                   << " (" << candidate_first << ")");
     // The reported scores are the mean's (float outputs averaged in another
     // order here: a relative tolerance of 1e-5), not member 0's.
     CHECK(r.report.incumbent_score == doctest::Approx(incumbent_mean).epsilon(1e-5));

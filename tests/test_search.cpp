@@ -106,8 +106,8 @@ TEST_CASE("the search grid holds 108 distinct points of widths, halving depths, 
     CHECK(grid.back().hidden == std::vector<std::size_t>{128, 64, 32});
     for (std::size_t i = 0; i < grid.size(); ++i)
         for (std::size_t j = i + 1; j < grid.size(); ++j) {
-            const bool same = grid[i].hidden == grid[j].hidden && grid[i].learning_rate == grid[j].learning_rate &&
-                              grid[i].weight_decay == grid[j].weight_decay;
+            const bool same =
+                grid[i].hidden == grid[j].hidden && grid[i].learning_rate == grid[j].learning_rate && grid[i].weight_decay == grid[j].weight_decay;
             CHECK_FALSE(same);
         }
 }
@@ -162,8 +162,7 @@ TEST_CASE("the same seed gives the same search record and choice; another seed a
     bool order_differs = false;
     for (std::size_t i = 1; i < 4; ++i) {
         order_differs = order_differs || a.candidates[i].hidden != other.candidates[i].hidden ||
-                        a.candidates[i].learning_rate != other.candidates[i].learning_rate ||
-                        a.candidates[i].weight_decay != other.candidates[i].weight_decay;
+            a.candidates[i].learning_rate != other.candidates[i].learning_rate || a.candidates[i].weight_decay != other.candidates[i].weight_decay;
         CHECK_FALSE((a.candidates[i].hidden == default_widths && a.candidates[i].learning_rate == defaults.learning_rate &&
                      a.candidates[i].weight_decay == 0.0));
     }
@@ -320,10 +319,12 @@ TEST_CASE("the search refuses a bad budget, too few folds, a team and a decay it
     const auto t = pump_table(60, 5);
     const auto rows = first_rows(50);
     const auto s = quick_settings(1);
-    CHECK_THROWS_WITH(tenon::search_settings<float>(t, power_plan(), rows, s, 0.0), doctest::Contains("budget must be a positive number of seconds, got 0"));
+    CHECK_THROWS_WITH(tenon::search_settings<float>(t, power_plan(), rows, s, 0.0),
+                      doctest::Contains("budget must be a positive number of seconds, got 0"));
     CHECK_THROWS_WITH(tenon::search_settings<float>(t, power_plan(), rows, s, std::nan("")), doctest::Contains("budget must be a positive"));
     CHECK_THROWS_WITH(tenon::search_settings<float>(t, power_plan(), rows, s, 10.0, 1), doctest::Contains("at least 2 folds, got 1"));
-    CHECK_THROWS_WITH(tenon::search_settings<float>(t, power_plan(), first_rows(2), s, 10.0, 3), doctest::Contains("2 training rows, fewer than the 3 folds"));
+    CHECK_THROWS_WITH(tenon::search_settings<float>(t, power_plan(), first_rows(2), s, 10.0, 3),
+                      doctest::Contains("2 training rows, fewer than the 3 folds"));
     auto momentum = s;
     momentum.update = tenon::update_kind::momentum;
     momentum.weight_decay = 1e-3;

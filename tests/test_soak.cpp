@@ -171,10 +171,9 @@ TEST_CASE("soak: threads predict while the host swaps predictors; no failure, no
     const std::size_t quarter = samples.size() / 4;
     const long early_peak = *std::max_element(samples.begin(), samples.begin() + static_cast<std::ptrdiff_t>(quarter));
     const long late_peak = *std::max_element(samples.end() - static_cast<std::ptrdiff_t>(quarter), samples.end());
-    MESSAGE("soak " << seconds << " s: " << swaps << " swaps, " << refreshes.load() << " refreshes, " << calls.load() << " calls by "
-                    << reader_count << " readers; live " << live_unit << " at start " << live_start << ", end " << live_end
-                    << ", peak of first quarter " << early_peak << ", of last quarter " << late_peak << " (one predictor copy: "
-                    << per_copy << ")");
+    MESSAGE("soak " << seconds << " s: " << swaps << " swaps, " << refreshes.load() << " refreshes, " << calls.load() << " calls by " << reader_count
+                    << " readers; live " << live_unit << " at start " << live_start << ", end " << live_end << ", peak of first quarter "
+                    << early_peak << ", of last quarter " << late_peak << " (one predictor copy: " << per_copy << ")");
     CHECK(failures.load() == 0);
     CHECK(calls.load() > 0);
     CHECK(refreshes.load() > 0);

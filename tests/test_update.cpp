@@ -49,8 +49,8 @@ tenon::var<T> rosenbrock(tenon::tape<T>& t, tenon::parameter<T>& x, tenon::param
 }
 
 template <class T>
-void minimize_rosenbrock(tenon::update_rule<T>& rule, const tenon::rate_schedule& schedule, std::uint64_t steps,
-                         tenon::parameter<T>& x, tenon::parameter<T>& y) {
+void minimize_rosenbrock(tenon::update_rule<T>& rule, const tenon::rate_schedule& schedule, std::uint64_t steps, tenon::parameter<T>& x,
+                         tenon::parameter<T>& y) {
     tenon::tape<T> t;
     const std::vector<tenon::parameter<T>*> params = {&x, &y};
     for (std::uint64_t s = 0; s < steps; ++s) {
@@ -156,10 +156,14 @@ TEST_CASE_TEMPLATE("update rules give the same bits on one thread and on an exec
         for (auto* p : {&a, &b})
             for (std::size_t k = 0; k < p->size(); ++k) p->value().data()[k] = rng.normal(T(0), T(1));
         std::unique_ptr<tenon::update_rule<T>> rule;
-        if (std::string(which) == "adam") rule = std::make_unique<tenon::adam<T>>();
-        else if (std::string(which) == "rmsprop") rule = std::make_unique<tenon::rmsprop<T>>();
-        else if (std::string(which) == "adagrad") rule = std::make_unique<tenon::adagrad<T>>();
-        else rule = std::make_unique<tenon::momentum<T>>();
+        if (std::string(which) == "adam")
+            rule = std::make_unique<tenon::adam<T>>();
+        else if (std::string(which) == "rmsprop")
+            rule = std::make_unique<tenon::rmsprop<T>>();
+        else if (std::string(which) == "adagrad")
+            rule = std::make_unique<tenon::adagrad<T>>();
+        else
+            rule = std::make_unique<tenon::momentum<T>>();
         rule->set_executor(workers);
         rule->set_clears_gradients(clears);
         CHECK(rule->clears_gradients() == clears);
@@ -250,8 +254,10 @@ TEST_CASE_TEMPLATE("apply_and_check tells whether every gradient was finite, fro
                 frozen.grad().fill(nan);  // frozen parameters are neither updated nor looked at
                 frozen.set_trainable(false);
                 std::unique_ptr<tenon::update_rule<T>> rule;
-                if (scanning_rule) rule = std::make_unique<tenon::adam<T>>();
-                else rule = std::make_unique<tenon::rmsprop<T>>();
+                if (scanning_rule)
+                    rule = std::make_unique<tenon::adam<T>>();
+                else
+                    rule = std::make_unique<tenon::rmsprop<T>>();
                 const bool finite = rule->apply_and_check({&p, &frozen}, T(0.01));
                 CHECK(finite == (at >= 37));
                 if (!scanning_rule && at < 37) CHECK(p.value()(0, 0) == T(0));  // the scan comes first: nothing moved
@@ -392,8 +398,7 @@ TEST_CASE_TEMPLATE("a dense layer trained by gradient descent on L2 loss reaches
         rule.apply(params, T(0.2));
     }
     for (std::size_t j = 0; j < d; ++j) {
-        CHECK(static_cast<double>(layer.weights().value()(j, 0)) ==
-              doctest::Approx(reference(static_cast<Eigen::Index>(j))).epsilon(1e-4));
+        CHECK(static_cast<double>(layer.weights().value()(j, 0)) == doctest::Approx(reference(static_cast<Eigen::Index>(j))).epsilon(1e-4));
     }
     CHECK(static_cast<double>(layer.bias().value()(0, 0)) == doctest::Approx(reference(static_cast<Eigen::Index>(d))).epsilon(1e-4));
 }
@@ -699,11 +704,21 @@ TEST_CASE("schedule option and state errors") {
 TEST_CASE("every model error code is listed in the registry") {
     // Each code below is triggered by a test in test_layers.cpp,
     // test_losses.cpp or this file.
-    const char* mine[] = {"model.layer.option",          "model.batch_norm.batch_too_small", "model.network.duplicate_name",
-                          "model.network.unknown_parameter", "model.network.snapshot_mismatch", "model.record.truncated",
-                          "model.record.malformed",      "model.record.missing_field",       "model.record.unknown_kind",
-                          "model.loss.label_range",      "model.loss.weights",               "model.loss.target",
-                          "model.loss.option",           "model.update.option",              "model.update.state_mismatch",
+    const char* mine[] = {"model.layer.option",
+                          "model.batch_norm.batch_too_small",
+                          "model.network.duplicate_name",
+                          "model.network.unknown_parameter",
+                          "model.network.snapshot_mismatch",
+                          "model.record.truncated",
+                          "model.record.malformed",
+                          "model.record.missing_field",
+                          "model.record.unknown_kind",
+                          "model.loss.label_range",
+                          "model.loss.weights",
+                          "model.loss.target",
+                          "model.loss.option",
+                          "model.update.option",
+                          "model.update.state_mismatch",
                           "model.schedule.option"};
     std::size_t in_registry = 0;
     for (const auto* e = tenon::error_registry_begin(); e != tenon::error_registry_end(); ++e) {

@@ -142,7 +142,8 @@ TEST_CASE("the baseline is shipped when the network does not beat it on validati
     tenon::random_engine rng(23);
     std::ostringstream csv;
     csv << "a,b,c,noise\n";
-    for (std::size_t i = 0; i < 200; ++i) csv << rng.normal(0.0, 1.0) << "," << rng.normal(0.0, 1.0) << "," << rng.normal(0.0, 1.0) << "," << rng.normal(0.0, 1.0) << "\n";
+    for (std::size_t i = 0; i < 200; ++i)
+        csv << rng.normal(0.0, 1.0) << "," << rng.normal(0.0, 1.0) << "," << rng.normal(0.0, 1.0) << "," << rng.normal(0.0, 1.0) << "\n";
     std::istringstream in(csv.str());
     const auto t = tenon::read_csv(in, {}, "noise.csv");
     tenon::plan p;
@@ -243,8 +244,7 @@ TEST_CASE("workflow errors") {
     CHECK_THROWS_WITH_AS(tenon::fit_model<float>(t, p, rows, {}, s),
                          "[train.option.invalid] fit_model: the cross-entropy loss does not fit a regression target", tenon::error);
     CHECK_THROWS_WITH_AS(tenon::parse_update_kind("sgd2"),
-                         "[train.option.invalid] unknown optimizer 'sgd2' (gd, momentum, nesterov, adam, adamw, rmsprop, adagrad)",
-                         tenon::error);
+                         "[train.option.invalid] unknown optimizer 'sgd2' (gd, momentum, nesterov, adam, adamw, rmsprop, adagrad)", tenon::error);
     CHECK(tenon::parse_loss_kind("huber") == tenon::loss_kind::huber);
     CHECK(tenon::parse_update_kind("nesterov") == tenon::update_kind::nesterov);
     CHECK(std::string(tenon::make_update_rule<float>(tenon::update_kind::nesterov)->kind()) == "nesterov");

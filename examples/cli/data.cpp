@@ -290,11 +290,12 @@ training_setup make_setup(const tenon::table& t, const train_request& q) {
         fail(cli_codes::option_conflict, "--split stratified needs a classification target; '" + q.target + "' is regressed");
 
     if (q.model.class_weights != tenon::class_weighting::none && !s.classify)
-        fail(cli_codes::option_conflict, "--class-weights " + std::string(tenon::to_string(q.model.class_weights)) + " needs a classification target; '" +
-                                             q.target + "' is regressed");
+        fail(cli_codes::option_conflict,
+             "--class-weights " + std::string(tenon::to_string(q.model.class_weights)) + " needs a classification target; '" + q.target +
+                 "' is regressed");
     if (q.target_scaling != tenon::scaling_method::z_score && s.classify)
-        fail(cli_codes::option_conflict, "--target-scaling " + std::string(tenon::to_string(q.target_scaling)) + " needs a regression target; '" +
-                                             q.target + "' is classified");
+        fail(cli_codes::option_conflict,
+             "--target-scaling " + std::string(tenon::to_string(q.target_scaling)) + " needs a regression target; '" + q.target + "' is classified");
     s.preparation.set_target(q.target, s.classify ? tenon::target_kind::classification : tenon::target_kind::regression, q.target_scaling);
     s.preparation.set_missing_tokens(missing_tokens());
     for (const auto& c : q.ignored) s.preparation.set_role(c, tenon::column_role::ignored);
@@ -445,13 +446,10 @@ tenon::holdout_split make_holdout(const tenon::table& t, const train_request& q,
     case split_choice::stratified:
         return detail::naming_classes(t, q.target,
                                       [&] { return tenon::stratified_holdout(tenon::dense_codes(t.at(q.target), true), q.fractions, q.model.seed); });
-    case split_choice::chronological:
-        return tenon::chronological_holdout(detail::column_times(t, q.time_column), q.fractions);
-    case split_choice::grouped:
-        return tenon::grouped_holdout(tenon::dense_codes(t.at(q.group_column), true), q.fractions, q.model.seed);
+    case split_choice::chronological: return tenon::chronological_holdout(detail::column_times(t, q.time_column), q.fractions);
+    case split_choice::grouped: return tenon::grouped_holdout(tenon::dense_codes(t.at(q.group_column), true), q.fractions, q.model.seed);
     case split_choice::random:
-    case split_choice::automatic:
-        break;
+    case split_choice::automatic: break;
     }
     return tenon::random_holdout(t.row_count(), q.fractions, q.model.seed);
 }
@@ -467,11 +465,9 @@ std::vector<tenon::fold> make_folds(const tenon::table& t, const train_request& 
         const std::size_t horizon = std::max<std::size_t>(1, t.row_count() / (q.folds + 1));
         return tenon::rolling_origin_folds(detail::column_times(t, q.time_column), q.folds, horizon);
     }
-    case split_choice::grouped:
-        return tenon::group_k_folds(tenon::dense_codes(t.at(q.group_column), true), q.folds, q.model.seed);
+    case split_choice::grouped: return tenon::group_k_folds(tenon::dense_codes(t.at(q.group_column), true), q.folds, q.model.seed);
     case split_choice::random:
-    case split_choice::automatic:
-        break;
+    case split_choice::automatic: break;
     }
     return tenon::k_folds(t.row_count(), q.folds, q.model.seed);
 }

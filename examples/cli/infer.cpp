@@ -146,14 +146,10 @@ void append_number(std::string& line, T v) {
 
 const char* flag_name(tenon::range_flag f) {
     switch (f) {
-    case tenon::range_flag::below:
-        return "below";
-    case tenon::range_flag::above:
-        return "above";
-    case tenon::range_flag::unseen_category:
-        return "unseen";
-    case tenon::range_flag::inside:
-        break;
+    case tenon::range_flag::below: return "below";
+    case tenon::range_flag::above: return "above";
+    case tenon::range_flag::unseen_category: return "unseen";
+    case tenon::range_flag::inside: break;
     }
     return "inside";
 }
@@ -281,17 +277,12 @@ int infer_with(const tenon::model_file<T>& file, const infer_request& q, std::os
                 what = "'" + cell + "' is not a finite " +
                     (file.plan->feature_kind(model.input_name(s.column)) == tenon::column_kind::datetime ? "date/time" : "number");
                 break;
-            case tenon::input_status::missing_value:
-                what = "the cell is missing and the model has no fill value for the column";
-                break;
-            case tenon::input_status::unseen_category:
-                what = "'" + cell + "' is a category the training rows did not hold";
-                break;
+            case tenon::input_status::missing_value: what = "the cell is missing and the model has no fill value for the column"; break;
+            case tenon::input_status::unseen_category: what = "'" + cell + "' is a category the training rows did not hold"; break;
             case tenon::input_status::non_finite:
                 what = "'" + cell + "' is beyond what the model computes with (its prepared value is not finite)";
                 break;
-            default:
-                tenon::raise(s.code_text(), model.describe(s, pending));
+            default: tenon::raise(s.code_text(), model.describe(s, pending));
             }
             tenon::raise(s.code_text(),
                          q.data_path + " line " + std::to_string(lines[s.row]) + " column " + std::to_string(input_field[s.column] + 1) + " ('" +

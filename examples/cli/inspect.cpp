@@ -92,12 +92,9 @@ std::string list_head(const std::vector<std::string>& items, std::size_t shown, 
 
 const char* unseen_text(tenon::unseen_policy p) {
     switch (p) {
-    case tenon::unseen_policy::fail:
-        return "refused";
-    case tenon::unseen_policy::all_zero:
-        return "all zeros";
-    case tenon::unseen_policy::other_slot:
-        return "an 'other' slot";
+    case tenon::unseen_policy::fail: return "refused";
+    case tenon::unseen_policy::all_zero: return "all zeros";
+    case tenon::unseen_policy::other_slot: return "an 'other' slot";
     }
     return "?";
 }
@@ -145,14 +142,11 @@ void layers_json(json_writer& j, const tenon::layer_record& r) {
 
 std::string fill_text(const tenon::fill_value& f, tenon::column_kind kind) {
     switch (f.method) {
-    case tenon::fill_method::none:
-        return "refused";
-    case tenon::fill_method::mode:
-        return "mode '" + f.text + "'";
+    case tenon::fill_method::none: return "refused";
+    case tenon::fill_method::mode: return "mode '" + f.text + "'";
     case tenon::fill_method::constant:
         return kind == tenon::column_kind::categorical ? "constant '" + f.text + "'" : "constant " + column_value(kind, f.number);
-    default:
-        return std::string(tenon::to_string(f.method)) + " " + column_value(kind, f.number);
+    default: return std::string(tenon::to_string(f.method)) + " " + column_value(kind, f.number);
     }
 }
 

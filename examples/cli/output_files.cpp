@@ -398,9 +398,7 @@ void pending_output::commit() {
             standard_output_->flush();
         }
         break;
-    case output_kind::direct:
-        write_directly();
-        break;
+    case output_kind::direct: write_directly(); break;
     case output_kind::staged: {
         sync();
         const int fd = fd_;
@@ -417,8 +415,7 @@ void pending_output::commit() {
         }
         break;
     }
-    case output_kind::none:
-        break;
+    case output_kind::none: break;
     }
     active_ = false;
 }

@@ -458,9 +458,11 @@ train_request parse_train_request(const std::vector<std::string>& args) {
     if (q.search_seconds > 0) {
         for (const char* chosen : {"--hidden", "--learning-rate"})
             if (std::find(seen.begin(), seen.end(), chosen) != seen.end())
-                fail(cli_codes::option_conflict, std::string("--search chooses the hidden layers and the learning rate; it cannot be combined with ") + chosen);
+                fail(cli_codes::option_conflict,
+                     std::string("--search chooses the hidden layers and the learning rate; it cannot be combined with ") + chosen);
         if (q.folds > 0)
-            fail(cli_codes::option_conflict, "--search chooses the settings of one holdout run; it cannot be combined with --folds " + std::to_string(q.folds));
+            fail(cli_codes::option_conflict,
+                 "--search chooses the settings of one holdout run; it cannot be combined with --folds " + std::to_string(q.folds));
     }
     if (q.folds > 0 && !q.model_path.empty())
         fail(cli_codes::option_conflict,
@@ -738,16 +740,11 @@ std::string table_row(const std::string& name, const std::vector<std::string>& c
 
 std::string split_name(split_choice s) {
     switch (s) {
-    case split_choice::random:
-        return "random";
-    case split_choice::stratified:
-        return "stratified";
-    case split_choice::chronological:
-        return "chronological";
-    case split_choice::grouped:
-        return "grouped";
-    case split_choice::automatic:
-        break;
+    case split_choice::random: return "random";
+    case split_choice::stratified: return "stratified";
+    case split_choice::chronological: return "chronological";
+    case split_choice::grouped: return "grouped";
+    case split_choice::automatic: break;
     }
     return "auto";
 }
@@ -850,10 +847,10 @@ std::string widths_text(const std::vector<std::size_t>& hidden) {
 // The one line --search prints: what it tried and what it chose.
 std::string search_summary(const tenon::settings_search_result& r) {
     const tenon::search_candidate& c = r.candidates[r.chosen_index];
-    const std::string tried = "search: " + std::to_string(r.candidates.size()) + (r.candidates.size() == 1 ? " candidate" : " candidates") +
-        " in " + duration_text(r.seconds);
-    const std::string settings = "hidden " + widths_text(c.hidden) + ", learning rate " + tenon::number_to_text(c.learning_rate) +
-        ", weight decay " + tenon::number_to_text(c.weight_decay);
+    const std::string tried = "search: " + std::to_string(r.candidates.size()) + (r.candidates.size() == 1 ? " candidate" : " candidates") + " in " +
+        duration_text(r.seconds);
+    const std::string settings = "hidden " + widths_text(c.hidden) + ", learning rate " + tenon::number_to_text(c.learning_rate) + ", weight decay " +
+        tenon::number_to_text(c.weight_decay);
     if (c.folds_completed == r.folds && !c.cut_short) {
         std::string line = tried + ", chose " + settings + "; mean fold loss " + fixed(c.mean_fold_loss, 4);
         if (r.lowest_index != r.chosen_index)
@@ -1037,8 +1034,10 @@ int train_holdout(const tenon::table& t, const train_request& q, training_setup&
         } else {
             j.null("refit");
         }
-        if (s.classify) j.text("class_weights", tenon::to_string(q.model.class_weights));
-        else j.text("target_scaling", tenon::to_string(q.target_scaling));
+        if (s.classify)
+            j.text("class_weights", tenon::to_string(q.model.class_weights));
+        else
+            j.text("target_scaling", tenon::to_string(q.target_scaling));
         if (calibration)
             write_calibration(j, "calibration", *calibration);
         else
@@ -1242,7 +1241,8 @@ int run_train(const std::vector<std::string>& args, std::ostream& out, std::ostr
     try {
         q = parse_train_request(args);
         if (env.team && q.search_seconds > 0)
-            fail(cli_codes::option_conflict, "--search searches in one process; it cannot run under mpirun (search first, then train with its choice)");
+            fail(cli_codes::option_conflict,
+                 "--search searches in one process; it cannot run under mpirun (search first, then train with its choice)");
         if (env.team && env.team->member_index() != 0) {  // data-parallel: member 0 alone reports and writes
             q.quiet = true;
             q.metrics_path.clear();

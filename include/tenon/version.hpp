@@ -27,8 +27,12 @@
 #endif
 #endif
 
-#define TENON_NAMESPACE_BEGIN namespace tenon { inline namespace TENON_ABI_NAMESPACE {
-#define TENON_NAMESPACE_END } }
+#define TENON_NAMESPACE_BEGIN                                                                                                                        \
+    namespace tenon {                                                                                                                                \
+    inline namespace TENON_ABI_NAMESPACE {
+#define TENON_NAMESPACE_END                                                                                                                          \
+    }                                                                                                                                                \
+    }
 
 TENON_NAMESPACE_BEGIN
 /// The library version as "major.minor.patch".

@@ -27,10 +27,10 @@ struct gradient_check_options {
 };
 
 struct gradient_check_entry {
-    std::string name;            // parameter name
+    std::string name;  // parameter name
     double max_abs_error = 0.0;  // worst |analytic - numeric|
     double max_rel_error = 0.0;  // worst relative error (see options)
-    std::size_t worst_index = 0; // flat row-major index of the worst relative error
+    std::size_t worst_index = 0;  // flat row-major index of the worst relative error
 };
 
 struct gradient_check_report {
@@ -43,8 +43,7 @@ struct gradient_check_report {
 /// loss on the given (cleared) tape, tracking the parameters itself, and
 /// returns a 1x1 value; it is called 1 + 2 * (number of elements) times.
 template <class Build>
-gradient_check_report check_gradients(const std::vector<parameter<double>*>& params, Build&& build,
-                                      const gradient_check_options& options = {}) {
+gradient_check_report check_gradients(const std::vector<parameter<double>*>& params, Build&& build, const gradient_check_options& options = {}) {
     tape<double> t;
     for (auto* p : params) p->clear_gradient();
     t.clear();

@@ -29,28 +29,17 @@ enum class activation : std::uint8_t {
 
 inline const char* to_string(activation a) noexcept {
     switch (a) {
-    case activation::identity:
-        return "identity";
-    case activation::tanh:
-        return "tanh";
-    case activation::sigmoid:
-        return "sigmoid";
-    case activation::relu:
-        return "relu";
-    case activation::leaky_relu:
-        return "leaky_relu";
-    case activation::elu:
-        return "elu";
-    case activation::softplus:
-        return "softplus";
-    case activation::gelu:
-        return "gelu";
-    case activation::gelu_tanh:
-        return "gelu_tanh";
-    case activation::softmax:
-        return "softmax";
-    case activation::log_softmax:
-        return "log_softmax";
+    case activation::identity: return "identity";
+    case activation::tanh: return "tanh";
+    case activation::sigmoid: return "sigmoid";
+    case activation::relu: return "relu";
+    case activation::leaky_relu: return "leaky_relu";
+    case activation::elu: return "elu";
+    case activation::softplus: return "softplus";
+    case activation::gelu: return "gelu";
+    case activation::gelu_tanh: return "gelu_tanh";
+    case activation::softmax: return "softmax";
+    case activation::log_softmax: return "log_softmax";
     }
     return "unknown";
 }
@@ -60,7 +49,8 @@ inline const char* activation_name(activation v) noexcept { return to_string(v);
 /// The activation with the given name; raises model.record.unknown_kind.
 inline activation parse_activation(const std::string& name) {
     activation a{};
-    if (!enum_from_text(name, a)) raise(codes::model_record_unknown_kind, "activation '" + name + "' is not known (" + enum_choices<activation>() + ")");
+    if (!enum_from_text(name, a))
+        raise(codes::model_record_unknown_kind, "activation '" + name + "' is not known (" + enum_choices<activation>() + ")");
     return a;
 }
 

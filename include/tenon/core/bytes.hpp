@@ -80,8 +80,7 @@ struct byte_error_codes {
     const char* malformed;
 };
 /// Architecture records, update-rule and schedule state, model sections.
-inline constexpr byte_error_codes model_record_errors{codes::model_record_truncated, codes::model_record_malformed,
-                                                      codes::model_record_malformed};
+inline constexpr byte_error_codes model_record_errors{codes::model_record_truncated, codes::model_record_malformed, codes::model_record_malformed};
 /// The measured plan's bytes.
 inline constexpr byte_error_codes prep_bytes_errors{codes::prep_bytes_truncated, codes::prep_bytes_oversize, codes::prep_bytes_bad_tag};
 
@@ -111,8 +110,9 @@ public:
         const std::size_t at = position_;
         const std::uint64_t v = u64();
         if (v > std::numeric_limits<std::size_t>::max()) {
-            raise(errors_.oversize, what_ + ": " + of_what + " " + std::to_string(v) + " at byte " + std::to_string(at) +
-                                        " does not fit this platform's " + std::to_string(8 * sizeof(std::size_t)) + "-bit sizes");
+            raise(errors_.oversize,
+                  what_ + ": " + of_what + " " + std::to_string(v) + " at byte " + std::to_string(at) + " does not fit this platform's " +
+                      std::to_string(8 * sizeof(std::size_t)) + "-bit sizes");
         }
         return static_cast<std::size_t>(v);
     }
@@ -125,8 +125,9 @@ public:
     std::string text() {
         const std::uint32_t n = u32();
         if (n > remaining()) {
-            raise(errors_.oversize, what_ + ": a text of " + std::to_string(n) + " bytes declared at byte " + std::to_string(position_ - 4) +
-                                        ", only " + std::to_string(remaining()) + " bytes left");
+            raise(errors_.oversize,
+                  what_ + ": a text of " + std::to_string(n) + " bytes declared at byte " + std::to_string(position_ - 4) + ", only " +
+                      std::to_string(remaining()) + " bytes left");
         }
         std::string s(reinterpret_cast<const char*>(data_ + position_), n);
         position_ += n;
@@ -139,8 +140,9 @@ public:
     std::uint32_t count(std::size_t min_bytes_each, const char* of_what) {
         const std::uint32_t n = u32();
         if (min_bytes_each > 0 && n > remaining() / min_bytes_each) {
-            raise(errors_.oversize, what_ + ": " + std::to_string(n) + " " + of_what + " declared at byte " + std::to_string(position_ - 4) +
-                                        " cannot fit in the " + std::to_string(remaining()) + " bytes left");
+            raise(errors_.oversize,
+                  what_ + ": " + std::to_string(n) + " " + of_what + " declared at byte " + std::to_string(position_ - 4) + " cannot fit in the " +
+                      std::to_string(remaining()) + " bytes left");
         }
         return n;
     }
@@ -157,13 +159,14 @@ public:
         const std::uint64_t side_limit = std::min<std::uint64_t>(std::uint64_t(1) << 32, std::numeric_limits<std::size_t>::max());
         const std::string declared = std::to_string(rows) + "x" + std::to_string(cols);
         if (rows > side_limit || cols > side_limit) {
-            raise(errors_.oversize, what_ + ": " + of_what + " of " + declared + " values declared at byte " + std::to_string(at) +
-                                        " has a side above " +
-                                        (side_limit == std::uint64_t(1) << 32 ? std::string("2^32") : std::to_string(side_limit)));
+            raise(errors_.oversize,
+                  what_ + ": " + of_what + " of " + declared + " values declared at byte " + std::to_string(at) + " has a side above " +
+                      (side_limit == std::uint64_t(1) << 32 ? std::string("2^32") : std::to_string(side_limit)));
         }
         if (cols != 0 && bytes_per_value > 0 && rows > remaining() / bytes_per_value / cols) {
-            raise(errors_.oversize, what_ + ": " + of_what + " of " + declared + " values declared at byte " + std::to_string(at) +
-                                        " cannot fit in the " + std::to_string(remaining()) + " bytes left");
+            raise(errors_.oversize,
+                  what_ + ": " + of_what + " of " + declared + " values declared at byte " + std::to_string(at) + " cannot fit in the " +
+                      std::to_string(remaining()) + " bytes left");
         }
         return {static_cast<std::size_t>(rows), static_cast<std::size_t>(cols)};
     }
@@ -173,8 +176,9 @@ public:
         const std::size_t at = position_;
         const std::uint8_t got = u8();
         if (got != tag) {
-            raise(errors_.malformed, what_ + ": expected the tag of " + of_what + " (" + std::to_string(tag) + ") at byte " +
-                                         std::to_string(at) + ", found " + std::to_string(got));
+            raise(errors_.malformed,
+                  what_ + ": expected the tag of " + of_what + " (" + std::to_string(tag) + ") at byte " + std::to_string(at) + ", found " +
+                      std::to_string(got));
         }
     }
     /// Reads a byte holding an enumeration value and checks it is <= max.
@@ -183,8 +187,9 @@ public:
         const std::size_t at = position_;
         const std::uint8_t v = u8();
         if (v > max) {
-            raise(errors_.malformed, what_ + ": " + of_what + " value " + std::to_string(v) + " at byte " + std::to_string(at) +
-                                         " is not a known value (at most " + std::to_string(max) + ")");
+            raise(errors_.malformed,
+                  what_ + ": " + of_what + " value " + std::to_string(v) + " at byte " + std::to_string(at) + " is not a known value (at most " +
+                      std::to_string(max) + ")");
         }
         return static_cast<E>(v);
     }
@@ -193,8 +198,8 @@ public:
     /// Raises unless every byte has been read.
     void expect_end() const {
         if (position_ != size_) {
-            raise(errors_.malformed, what_ + ": " + std::to_string(size_ - position_) + " unexpected bytes after the end at byte " +
-                                         std::to_string(position_));
+            raise(errors_.malformed,
+                  what_ + ": " + std::to_string(size_ - position_) + " unexpected bytes after the end at byte " + std::to_string(position_));
         }
     }
 
@@ -208,8 +213,8 @@ public:
 private:
     void need(std::size_t n, const char* of_what) const {
         if (n > remaining()) {
-            raise(errors_.truncated, what_ + ": the bytes end at " + std::to_string(size_) + " while reading " + of_what + " at byte " +
-                                         std::to_string(position_));
+            raise(errors_.truncated,
+                  what_ + ": the bytes end at " + std::to_string(size_) + " while reading " + of_what + " at byte " + std::to_string(position_));
         }
     }
     std::uint64_t get(int n, const char* of_what) {

@@ -22,66 +22,64 @@ namespace detail {
 // A block of this many elements is scanned before the accumulator is looked at.
 inline constexpr std::size_t finite_scan_block = 4096;
 
-#define TENON_ELEMENTWISE_KERNELS(SUFFIX, TARGET, OPS)                                                                   \
-    /* Index of the first block of finite_scan_block elements holding a non-finite value, */                           \
-    /* times the block size (n when none): x * 0 is 0 for finite x and NaN otherwise. */                                \
-    template <class T>                                                                                                   \
-    TARGET std::size_t finite_blocks_##SUFFIX(const T* p, std::size_t n) noexcept {                                      \
-        using ops = OPS<T>;                                                                                              \
-        const auto zero = ops::zero();                                                                                   \
-        std::size_t first = 0;                                                                                           \
-        for (; first + finite_scan_block <= n; first += finite_scan_block) {                                             \
-            auto acc = ops::zero();                                                                                      \
-            for (std::size_t k = first; k < first + finite_scan_block; k += ops::lanes)                                  \
-                acc = ops::add(acc, ops::mul(ops::load(p + k), zero));                                                   \
-            T lanes[ops::lanes];                                                                                         \
-            ops::store(lanes, acc);                                                                                      \
-            for (std::size_t l = 0; l < ops::lanes; ++l)                                                                 \
-                if (lanes[l] != lanes[l]) return first;                                                                  \
-        }                                                                                                                \
-        return first;                                                                                                    \
-    }                                                                                                                    \
-    /* d[k] = g[k] * (y[k] > 0 ? 1 : 0) for the whole vectors; returns the count done. */                              \
-    template <class T>                                                                                                   \
-    TARGET std::size_t relu_gradient_##SUFFIX(const T* y, const T* g, T* d, std::size_t n) noexcept {                   \
-        using ops = OPS<T>;                                                                                              \
-        const auto one = ops::broadcast(T(1));                                                                           \
-        std::size_t k = 0;                                                                                               \
-        for (; k + ops::lanes <= n; k += ops::lanes)                                                                     \
-            ops::store(d + k, ops::mul(ops::load(g + k), ops::select_positive(ops::load(y + k), one)));                  \
-        return k;                                                                                                        \
-    }                                                                                                                    \
-    /* o[j] = relu(o[j] + b[j]) (z > 0 ? z : 0) for the whole vectors of one row. */                                    \
-    template <class T>                                                                                                   \
-    TARGET std::size_t bias_relu_row_##SUFFIX(const T* b, T* o, std::size_t n) noexcept {                               \
-        using ops = OPS<T>;                                                                                              \
-        std::size_t k = 0;                                                                                               \
-        for (; k + ops::lanes <= n; k += ops::lanes) {                                                                   \
-            const auto z = b ? ops::add(ops::load(o + k), ops::load(b + k)) : ops::load(o + k);                          \
-            ops::store(o + k, ops::select_positive(z, z));                                                               \
-        }                                                                                                                \
-        return k;                                                                                                        \
-    }                                                                                                                    \
-    /* sum[j] += row[j] for the whole vectors of row[0, n). */                                                            \
-    template <class T>                                                                                                   \
-    TARGET std::size_t add_row_##SUFFIX(const T* row, T* sum, std::size_t n) noexcept {                                 \
-        using ops = OPS<T>;                                                                                              \
-        std::size_t k = 0;                                                                                               \
-        for (; k + ops::lanes <= n; k += ops::lanes) ops::store(sum + k, ops::add(ops::load(sum + k), ops::load(row + k))); \
-        return k;                                                                                                        \
-    }                                                                                                                    \
-    /* x[k] = T(low[k] + (double(x[k]) - center[k]) * factor[k]) for the whole vectors, in double, */                  \
-    /* each operation rounded on its own; returns the count done. */                                                    \
-    template <class T>                                                                                                   \
-    TARGET TENON_NO_CONTRACTION std::size_t affine_span_##SUFFIX(T* x, std::size_t n, const double* low,                \
-                                                                 const double* center, const double* factor) noexcept { \
-        using dops = OPS<double>;                                                                                        \
-        std::size_t k = 0;                                                                                               \
-        for (; k + dops::lanes <= n; k += dops::lanes) {                                                                 \
-            const auto shifted = dops::sub(dops::load(x + k), dops::load(center + k));                                  \
-            dops::store(x + k, dops::add(dops::load(low + k), dops::mul(shifted, dops::load(factor + k))));             \
-        }                                                                                                                \
-        return k;                                                                                                        \
+#define TENON_ELEMENTWISE_KERNELS(SUFFIX, TARGET, OPS)                                                                                               \
+    /* Index of the first block of finite_scan_block elements holding a non-finite value, */                                                         \
+    /* times the block size (n when none): x * 0 is 0 for finite x and NaN otherwise. */                                                             \
+    template <class T>                                                                                                                               \
+    TARGET std::size_t finite_blocks_##SUFFIX(const T* p, std::size_t n) noexcept {                                                                  \
+        using ops = OPS<T>;                                                                                                                          \
+        const auto zero = ops::zero();                                                                                                               \
+        std::size_t first = 0;                                                                                                                       \
+        for (; first + finite_scan_block <= n; first += finite_scan_block) {                                                                         \
+            auto acc = ops::zero();                                                                                                                  \
+            for (std::size_t k = first; k < first + finite_scan_block; k += ops::lanes) acc = ops::add(acc, ops::mul(ops::load(p + k), zero));       \
+            T lanes[ops::lanes];                                                                                                                     \
+            ops::store(lanes, acc);                                                                                                                  \
+            for (std::size_t l = 0; l < ops::lanes; ++l)                                                                                             \
+                if (lanes[l] != lanes[l]) return first;                                                                                              \
+        }                                                                                                                                            \
+        return first;                                                                                                                                \
+    }                                                                                                                                                \
+    /* d[k] = g[k] * (y[k] > 0 ? 1 : 0) for the whole vectors; returns the count done. */                                                            \
+    template <class T>                                                                                                                               \
+    TARGET std::size_t relu_gradient_##SUFFIX(const T* y, const T* g, T* d, std::size_t n) noexcept {                                                \
+        using ops = OPS<T>;                                                                                                                          \
+        const auto one = ops::broadcast(T(1));                                                                                                       \
+        std::size_t k = 0;                                                                                                                           \
+        for (; k + ops::lanes <= n; k += ops::lanes) ops::store(d + k, ops::mul(ops::load(g + k), ops::select_positive(ops::load(y + k), one)));     \
+        return k;                                                                                                                                    \
+    }                                                                                                                                                \
+    /* o[j] = relu(o[j] + b[j]) (z > 0 ? z : 0) for the whole vectors of one row. */                                                                 \
+    template <class T>                                                                                                                               \
+    TARGET std::size_t bias_relu_row_##SUFFIX(const T* b, T* o, std::size_t n) noexcept {                                                            \
+        using ops = OPS<T>;                                                                                                                          \
+        std::size_t k = 0;                                                                                                                           \
+        for (; k + ops::lanes <= n; k += ops::lanes) {                                                                                               \
+            const auto z = b ? ops::add(ops::load(o + k), ops::load(b + k)) : ops::load(o + k);                                                      \
+            ops::store(o + k, ops::select_positive(z, z));                                                                                           \
+        }                                                                                                                                            \
+        return k;                                                                                                                                    \
+    }                                                                                                                                                \
+    /* sum[j] += row[j] for the whole vectors of row[0, n). */                                                                                       \
+    template <class T>                                                                                                                               \
+    TARGET std::size_t add_row_##SUFFIX(const T* row, T* sum, std::size_t n) noexcept {                                                              \
+        using ops = OPS<T>;                                                                                                                          \
+        std::size_t k = 0;                                                                                                                           \
+        for (; k + ops::lanes <= n; k += ops::lanes) ops::store(sum + k, ops::add(ops::load(sum + k), ops::load(row + k)));                          \
+        return k;                                                                                                                                    \
+    }                                                                                                                                                \
+    /* x[k] = T(low[k] + (double(x[k]) - center[k]) * factor[k]) for the whole vectors, in double, */                                                \
+    /* each operation rounded on its own; returns the count done. */                                                                                 \
+    template <class T>                                                                                                                               \
+    TARGET TENON_NO_CONTRACTION std::size_t affine_span_##SUFFIX(T* x, std::size_t n, const double* low, const double* center,                       \
+                                                                 const double* factor) noexcept {                                                    \
+        using dops = OPS<double>;                                                                                                                    \
+        std::size_t k = 0;                                                                                                                           \
+        for (; k + dops::lanes <= n; k += dops::lanes) {                                                                                             \
+            const auto shifted = dops::sub(dops::load(x + k), dops::load(center + k));                                                               \
+            dops::store(x + k, dops::add(dops::load(low + k), dops::mul(shifted, dops::load(factor + k))));                                          \
+        }                                                                                                                                            \
+        return k;                                                                                                                                    \
     }
 #if TENON_SIMD_X86
 TENON_ELEMENTWISE_KERNELS(avx512, TENON_TARGET_AVX512, avx512_ops)
@@ -94,20 +92,22 @@ TENON_ELEMENTWISE_KERNELS(neon, TENON_TARGET_NEON, neon_ops)
 
 #if TENON_SIMD_X86
 
-#define TENON_ELEMENTWISE_DISPATCH(done, NAME, ...)                         \
-    do {                                                                     \
-        const int level_ = ::tenon::detail::vector_level();             \
-        if (level_ == 2) done = ::tenon::detail::NAME##_avx512(__VA_ARGS__); \
-        else if (level_ == 1) done = ::tenon::detail::NAME##_avx2(__VA_ARGS__); \
+#define TENON_ELEMENTWISE_DISPATCH(done, NAME, ...)                                                                                                  \
+    do {                                                                                                                                             \
+        const int level_ = ::tenon::detail::vector_level();                                                                                          \
+        if (level_ == 2)                                                                                                                             \
+            done = ::tenon::detail::NAME##_avx512(__VA_ARGS__);                                                                                      \
+        else if (level_ == 1)                                                                                                                        \
+            done = ::tenon::detail::NAME##_avx2(__VA_ARGS__);                                                                                        \
     } while (false)
 #elif TENON_SIMD_NEON64
-#define TENON_ELEMENTWISE_DISPATCH(done, NAME, ...) \
-    do {                                           \
-        done = ::tenon::detail::NAME##_neon(__VA_ARGS__); \
+#define TENON_ELEMENTWISE_DISPATCH(done, NAME, ...)                                                                                                  \
+    do {                                                                                                                                             \
+        done = ::tenon::detail::NAME##_neon(__VA_ARGS__);                                                                                            \
     } while (false)
 #else
-#define TENON_ELEMENTWISE_DISPATCH(done, NAME, ...) \
-    do {                                           \
+#define TENON_ELEMENTWISE_DISPATCH(done, NAME, ...)                                                                                                  \
+    do {                                                                                                                                             \
     } while (false)
 #endif
 

@@ -26,10 +26,14 @@ inline std::string escape_control_characters(const std::string& text) {
     o.reserve(text.size());
     for (const char c : text) {
         const auto u = static_cast<unsigned char>(c);
-        if (c == '\n') o += "\\n";
-        else if (c == '\r') o += "\\r";
-        else if (c == '\t') o += "\\t";
-        else if (c == '\0') o += "\\0";
+        if (c == '\n')
+            o += "\\n";
+        else if (c == '\r')
+            o += "\\r";
+        else if (c == '\t')
+            o += "\\t";
+        else if (c == '\0')
+            o += "\\0";
         else if (u < 0x20 || u == 0x7f) {
             const char digits[] = "0123456789abcdef";
             o += "\\x";
@@ -86,8 +90,10 @@ inline failure_handler set_failure_handler(failure_handler h) noexcept {
     throw error(code, message);
 #else
     const std::string text = escape_control_characters(message);
-    if (failure_handler h = detail::current_failure_handler()) h(code, text.c_str());
-    else std::fprintf(stderr, "tenon: [%s] %s\n", code, text.c_str());
+    if (failure_handler h = detail::current_failure_handler())
+        h(code, text.c_str());
+    else
+        std::fprintf(stderr, "tenon: [%s] %s\n", code, text.c_str());
     std::abort();
 #endif
 }

@@ -51,11 +51,11 @@ enum class kernel_path : std::uint8_t { portable, avx2, avx512, blas, neon };
 
 inline const char* to_string(kernel_path p) noexcept {
     switch (p) {
-        case kernel_path::portable: return "portable";
-        case kernel_path::avx2: return "avx2";
-        case kernel_path::avx512: return "avx512";
-        case kernel_path::blas: return "blas";
-        case kernel_path::neon: return "neon";
+    case kernel_path::portable: return "portable";
+    case kernel_path::avx2: return "avx2";
+    case kernel_path::avx512: return "avx512";
+    case kernel_path::blas: return "blas";
+    case kernel_path::neon: return "neon";
     }
     return "unknown";
 }
@@ -65,11 +65,11 @@ inline const char* kernel_path_name(kernel_path v) noexcept { return to_string(v
 /// Whether this build and the running CPU can use path `p`.
 inline bool kernel_path_available(kernel_path p) noexcept {
     switch (p) {
-        case kernel_path::portable: return true;
-        case kernel_path::blas: return TENON_GEMM_BLAS != 0;
-        case kernel_path::avx2: return cpu_has_avx2_fma();
-        case kernel_path::avx512: return cpu_has_avx512f();
-        case kernel_path::neon: return cpu_has_neon();
+    case kernel_path::portable: return true;
+    case kernel_path::blas: return TENON_GEMM_BLAS != 0;
+    case kernel_path::avx2: return cpu_has_avx2_fma();
+    case kernel_path::avx512: return cpu_has_avx512f();
+    case kernel_path::neon: return cpu_has_neon();
     }
     return false;
 }
@@ -97,9 +97,7 @@ inline std::atomic<std::uint8_t>& kernel_path_slot() noexcept {
 }  // namespace detail
 
 /// The path gemm uses now.
-inline kernel_path active_kernel_path() noexcept {
-    return static_cast<kernel_path>(detail::kernel_path_slot().load(std::memory_order_relaxed));
-}
+inline kernel_path active_kernel_path() noexcept { return static_cast<kernel_path>(detail::kernel_path_slot().load(std::memory_order_relaxed)); }
 
 /// Makes gemm use path `p` from now on, process-wide; raises
 /// core.argument.invalid if this build or CPU cannot run it. Meant for
@@ -107,9 +105,9 @@ inline kernel_path active_kernel_path() noexcept {
 /// thread multiplies.
 inline void set_kernel_path(kernel_path p) {
     if (!kernel_path_available(p)) {
-        raise(codes::core_argument_invalid, std::string("set_kernel_path: the ") + kernel_path_name(p) + " path is not available " +
-                                           (p == kernel_path::blas ? "(build without the tenon::blas component)"
-                                                                   : "(the CPU or compiler lacks its instructions)"));
+        raise(codes::core_argument_invalid,
+              std::string("set_kernel_path: the ") + kernel_path_name(p) + " path is not available " +
+                  (p == kernel_path::blas ? "(build without the tenon::blas component)" : "(the CPU or compiler lacks its instructions)"));
     }
     detail::kernel_path_slot().store(static_cast<std::uint8_t>(p), std::memory_order_relaxed);
 }
@@ -160,8 +158,8 @@ inline T op_element(const T* x, std::size_t ld, bool transposed, std::size_t row
 // panels of MR rows: panel q holds, for each depth p, the MR values
 // op(A)(i0 + q * MR + r, p0 + p), zero-padded past the last row.
 template <std::size_t MR, class T>
-void pack_a_block(const T* a, std::size_t lda, bool transpose_a, std::size_t i0, std::size_t rows, std::size_t p0,
-                  std::size_t depth, T* out) noexcept {
+void pack_a_block(const T* a, std::size_t lda, bool transpose_a, std::size_t i0, std::size_t rows, std::size_t p0, std::size_t depth,
+                  T* out) noexcept {
     for (std::size_t q = 0; q < rows; q += MR) {
         const std::size_t live = std::min(MR, rows - q);
         T* panel = out + q * depth;
@@ -187,8 +185,8 @@ void pack_a_block(const T* a, std::size_t lda, bool transpose_a, std::size_t i0,
 // panels of NR columns: panel q holds, for each depth p, the NR values
 // op(B)(p0 + p, j0 + q * NR + c), zero-padded past the last column.
 template <std::size_t NR, class T>
-void pack_b_block(const T* b, std::size_t ldb, bool transpose_b, std::size_t p0, std::size_t depth, std::size_t j0,
-                  std::size_t cols, T* out) noexcept {
+void pack_b_block(const T* b, std::size_t ldb, bool transpose_b, std::size_t p0, std::size_t depth, std::size_t j0, std::size_t cols,
+                  T* out) noexcept {
     for (std::size_t q = 0; q < cols; q += NR) {
         const std::size_t live = std::min(NR, cols - q);
         T* panel = out + q * depth;
@@ -217,8 +215,7 @@ void pack_b_block(const T* b, std::size_t ldb, bool transpose_b, std::size_t p0,
 // C tile (rows x cols, at most mr x nr of the portable kernel) += alpha * sum over
 // depth of packed A panel (x) packed B panel.
 template <class T>
-void gemm_tile(std::size_t depth, const T* a_panel, const T* b_panel, T alpha, T* c, std::size_t ldc, std::size_t rows,
-               std::size_t cols) noexcept {
+void gemm_tile(std::size_t depth, const T* a_panel, const T* b_panel, T alpha, T* c, std::size_t ldc, std::size_t rows, std::size_t cols) noexcept {
     constexpr std::size_t mr = portable_kernel<T>::mr;
     constexpr std::size_t nr = portable_kernel<T>::nr;
     T acc[mr][nr] = {};
@@ -274,52 +271,51 @@ TENON_NO_CONTRACTION T split_dot(const T* x, std::size_t incx, const T* y, std::
 // rounded, never fused), so the bits do not depend on which version runs; the
 // vector versions only keep up to four vectors of c in registers across the
 // k terms instead of reading and writing c once per term.
-#define TENON_GEMM_ROW_KERNEL(SUFFIX, TARGET, OPS)                                                                       \
-    template <class T>                                                                                                   \
-    TARGET TENON_NO_CONTRACTION void combine_rows_##SUFFIX(const T* a, std::size_t a_step, T alpha, const T* b,          \
-                                                           std::size_t ldb, std::size_t k, T* c, std::size_t n) noexcept { \
-        TENON_NO_CONTRACTION_IN_BODY                                                                                     \
-        using ops = OPS<T>;                                                                                              \
-        constexpr std::size_t lanes = ops::lanes;                                                                        \
-        std::size_t j = 0;                                                                                               \
-        for (; j + 4 * lanes <= n; j += 4 * lanes) {                                                                     \
-            auto c0 = ops::load(c + j), c1 = ops::load(c + j + lanes);                                                   \
-            auto c2 = ops::load(c + j + 2 * lanes), c3 = ops::load(c + j + 3 * lanes);                                   \
-            for (std::size_t p = 0; p < k; ++p) {                                                                        \
-                const auto s = ops::broadcast(alpha * a[p * a_step]);                                                    \
-                const T* bp = b + p * ldb + j;                                                                           \
-                c0 = ops::add(c0, ops::mul(s, ops::load(bp)));                                                           \
-                c1 = ops::add(c1, ops::mul(s, ops::load(bp + lanes)));                                                   \
-                c2 = ops::add(c2, ops::mul(s, ops::load(bp + 2 * lanes)));                                               \
-                c3 = ops::add(c3, ops::mul(s, ops::load(bp + 3 * lanes)));                                               \
-            }                                                                                                            \
-            ops::store(c + j, c0);                                                                                       \
-            ops::store(c + j + lanes, c1);                                                                               \
-            ops::store(c + j + 2 * lanes, c2);                                                                           \
-            ops::store(c + j + 3 * lanes, c3);                                                                           \
-        }                                                                                                                \
-        for (; j + 2 * lanes <= n; j += 2 * lanes) {                                                                     \
-            auto c0 = ops::load(c + j), c1 = ops::load(c + j + lanes);                                                   \
-            for (std::size_t p = 0; p < k; ++p) {                                                                        \
-                const auto s = ops::broadcast(alpha * a[p * a_step]);                                                    \
-                const T* bp = b + p * ldb + j;                                                                           \
-                c0 = ops::add(c0, ops::mul(s, ops::load(bp)));                                                           \
-                c1 = ops::add(c1, ops::mul(s, ops::load(bp + lanes)));                                                   \
-            }                                                                                                            \
-            ops::store(c + j, c0);                                                                                       \
-            ops::store(c + j + lanes, c1);                                                                               \
-        }                                                                                                                \
-        for (; j + lanes <= n; j += lanes) {                                                                             \
-            auto c0 = ops::load(c + j);                                                                                  \
-            for (std::size_t p = 0; p < k; ++p)                                                                          \
-                c0 = ops::add(c0, ops::mul(ops::broadcast(alpha * a[p * a_step]), ops::load(b + p * ldb + j)));         \
-            ops::store(c + j, c0);                                                                                       \
-        }                                                                                                                \
-        for (; j < n; ++j) {                                                                                             \
-            T cj = c[j];                                                                                                 \
-            for (std::size_t p = 0; p < k; ++p) cj += (alpha * a[p * a_step]) * b[p * ldb + j];                          \
-            c[j] = cj;                                                                                                   \
-        }                                                                                                                \
+#define TENON_GEMM_ROW_KERNEL(SUFFIX, TARGET, OPS)                                                                                                   \
+    template <class T>                                                                                                                               \
+    TARGET TENON_NO_CONTRACTION void combine_rows_##SUFFIX(const T* a, std::size_t a_step, T alpha, const T* b, std::size_t ldb, std::size_t k,      \
+                                                           T* c, std::size_t n) noexcept {                                                           \
+        TENON_NO_CONTRACTION_IN_BODY                                                                                                                 \
+        using ops = OPS<T>;                                                                                                                          \
+        constexpr std::size_t lanes = ops::lanes;                                                                                                    \
+        std::size_t j = 0;                                                                                                                           \
+        for (; j + 4 * lanes <= n; j += 4 * lanes) {                                                                                                 \
+            auto c0 = ops::load(c + j), c1 = ops::load(c + j + lanes);                                                                               \
+            auto c2 = ops::load(c + j + 2 * lanes), c3 = ops::load(c + j + 3 * lanes);                                                               \
+            for (std::size_t p = 0; p < k; ++p) {                                                                                                    \
+                const auto s = ops::broadcast(alpha * a[p * a_step]);                                                                                \
+                const T* bp = b + p * ldb + j;                                                                                                       \
+                c0 = ops::add(c0, ops::mul(s, ops::load(bp)));                                                                                       \
+                c1 = ops::add(c1, ops::mul(s, ops::load(bp + lanes)));                                                                               \
+                c2 = ops::add(c2, ops::mul(s, ops::load(bp + 2 * lanes)));                                                                           \
+                c3 = ops::add(c3, ops::mul(s, ops::load(bp + 3 * lanes)));                                                                           \
+            }                                                                                                                                        \
+            ops::store(c + j, c0);                                                                                                                   \
+            ops::store(c + j + lanes, c1);                                                                                                           \
+            ops::store(c + j + 2 * lanes, c2);                                                                                                       \
+            ops::store(c + j + 3 * lanes, c3);                                                                                                       \
+        }                                                                                                                                            \
+        for (; j + 2 * lanes <= n; j += 2 * lanes) {                                                                                                 \
+            auto c0 = ops::load(c + j), c1 = ops::load(c + j + lanes);                                                                               \
+            for (std::size_t p = 0; p < k; ++p) {                                                                                                    \
+                const auto s = ops::broadcast(alpha * a[p * a_step]);                                                                                \
+                const T* bp = b + p * ldb + j;                                                                                                       \
+                c0 = ops::add(c0, ops::mul(s, ops::load(bp)));                                                                                       \
+                c1 = ops::add(c1, ops::mul(s, ops::load(bp + lanes)));                                                                               \
+            }                                                                                                                                        \
+            ops::store(c + j, c0);                                                                                                                   \
+            ops::store(c + j + lanes, c1);                                                                                                           \
+        }                                                                                                                                            \
+        for (; j + lanes <= n; j += lanes) {                                                                                                         \
+            auto c0 = ops::load(c + j);                                                                                                              \
+            for (std::size_t p = 0; p < k; ++p) c0 = ops::add(c0, ops::mul(ops::broadcast(alpha * a[p * a_step]), ops::load(b + p * ldb + j)));      \
+            ops::store(c + j, c0);                                                                                                                   \
+        }                                                                                                                                            \
+        for (; j < n; ++j) {                                                                                                                         \
+            T cj = c[j];                                                                                                                             \
+            for (std::size_t p = 0; p < k; ++p) cj += (alpha * a[p * a_step]) * b[p * ldb + j];                                                      \
+            c[j] = cj;                                                                                                                               \
+        }                                                                                                                                            \
     }
 #if TENON_GEMM_X86
 TENON_GEMM_ROW_KERNEL(avx512, TENON_TARGET_AVX512, avx512_ops)
@@ -337,7 +333,7 @@ TENON_GEMM_ROW_KERNEL(neon, TENON_TARGET_NEON, neon_ops)
 // as the arithmetic; also the fallback when the scratch cannot grow.
 template <class T>
 TENON_NO_CONTRACTION void gemm_unpacked(bool transpose_a, bool transpose_b, std::size_t m, std::size_t n, std::size_t k, T alpha, const T* a,
-                   std::size_t lda, const T* b, std::size_t ldb, T* c, std::size_t ldc) noexcept {
+                                        std::size_t lda, const T* b, std::size_t ldb, T* c, std::size_t ldc) noexcept {
     TENON_NO_CONTRACTION_IN_BODY
     if (!transpose_b && n >= thin_columns<T>) {
         // Few rows: each row of C accumulates scaled rows of B (contiguous).
@@ -346,8 +342,10 @@ TENON_NO_CONTRACTION void gemm_unpacked(bool transpose_a, bool transpose_b, std:
             for (std::size_t i = 0; i < m; ++i) {
                 const T* ai = transpose_a ? a + i : a + i * lda;
                 const std::size_t a_step = transpose_a ? lda : 1;
-                if (level == 2) combine_rows_avx512(ai, a_step, alpha, b, ldb, k, c + i * ldc, n);
-                else combine_rows_avx2(ai, a_step, alpha, b, ldb, k, c + i * ldc, n);
+                if (level == 2)
+                    combine_rows_avx512(ai, a_step, alpha, b, ldb, k, c + i * ldc, n);
+                else
+                    combine_rows_avx2(ai, a_step, alpha, b, ldb, k, c + i * ldc, n);
             }
             return;
         }
@@ -408,9 +406,7 @@ struct gemm_scratch {
     }
 };
 
-inline std::size_t round_up(std::size_t value, std::size_t multiple) noexcept {
-    return (value + multiple - 1) / multiple * multiple;
-}
+inline std::size_t round_up(std::size_t value, std::size_t multiple) noexcept { return (value + multiple - 1) / multiple * multiple; }
 
 #if TENON_GEMM_X86 || TENON_SIMD_NEON
 // The tiles: MR rows x 2 vectors of columns, MR * 2 accumulators held in
@@ -421,28 +417,28 @@ inline std::size_t round_up(std::size_t value, std::size_t multiple) noexcept {
 // 2008, section 6.2, on choosing mr x nr from the register count). Written
 // out per instruction set because the target attribute cannot be a
 // template argument.
-#define TENON_GEMM_SIMD_TILE(TARGET, OPS)                                                                        \
-    TARGET static void tile(std::size_t depth, const T* a, const T* b, T alpha, T* c, std::size_t ldc) noexcept { \
-        using ops = OPS<T>;                                                                                        \
-        using vector = typename ops::vector;                                                                       \
-        constexpr std::size_t lanes = ops::lanes;                                                                  \
-        vector acc0[mr], acc1[mr];                                                                                 \
-        _Pragma("GCC unroll 16") for (std::size_t r = 0; r < mr; ++r) acc0[r] = acc1[r] = ops::zero();            \
-        for (std::size_t p = 0; p < depth; ++p) {                                                                  \
-            const vector b0 = ops::load(b + p * nr), b1 = ops::load(b + p * nr + lanes);                           \
-            const T* ap = a + p * mr;                                                                              \
-            _Pragma("GCC unroll 16") for (std::size_t r = 0; r < mr; ++r) {                                        \
-                const vector ar = ops::broadcast(ap[r]);                                                           \
-                acc0[r] = ops::fma(ar, b0, acc0[r]);                                                               \
-                acc1[r] = ops::fma(ar, b1, acc1[r]);                                                               \
-            }                                                                                                      \
-        }                                                                                                          \
-        const vector scale = ops::broadcast(alpha);                                                                \
-        _Pragma("GCC unroll 16") for (std::size_t r = 0; r < mr; ++r) {                                            \
-            T* cr = c + r * ldc;                                                                                   \
-            ops::store(cr, ops::fma(scale, acc0[r], ops::load(cr)));                                               \
-            ops::store(cr + lanes, ops::fma(scale, acc1[r], ops::load(cr + lanes)));                               \
-        }                                                                                                          \
+#define TENON_GEMM_SIMD_TILE(TARGET, OPS)                                                                                                            \
+    TARGET static void tile(std::size_t depth, const T* a, const T* b, T alpha, T* c, std::size_t ldc) noexcept {                                    \
+        using ops = OPS<T>;                                                                                                                          \
+        using vector = typename ops::vector;                                                                                                         \
+        constexpr std::size_t lanes = ops::lanes;                                                                                                    \
+        vector acc0[mr], acc1[mr];                                                                                                                   \
+        _Pragma("GCC unroll 16") for (std::size_t r = 0; r < mr; ++r) acc0[r] = acc1[r] = ops::zero();                                               \
+        for (std::size_t p = 0; p < depth; ++p) {                                                                                                    \
+            const vector b0 = ops::load(b + p * nr), b1 = ops::load(b + p * nr + lanes);                                                             \
+            const T* ap = a + p * mr;                                                                                                                \
+            _Pragma("GCC unroll 16") for (std::size_t r = 0; r < mr; ++r) {                                                                          \
+                const vector ar = ops::broadcast(ap[r]);                                                                                             \
+                acc0[r] = ops::fma(ar, b0, acc0[r]);                                                                                                 \
+                acc1[r] = ops::fma(ar, b1, acc1[r]);                                                                                                 \
+            }                                                                                                                                        \
+        }                                                                                                                                            \
+        const vector scale = ops::broadcast(alpha);                                                                                                  \
+        _Pragma("GCC unroll 16") for (std::size_t r = 0; r < mr; ++r) {                                                                              \
+            T* cr = c + r * ldc;                                                                                                                     \
+            ops::store(cr, ops::fma(scale, acc0[r], ops::load(cr)));                                                                                 \
+            ops::store(cr + lanes, ops::fma(scale, acc1[r], ops::load(cr + lanes)));                                                                 \
+        }                                                                                                                                            \
     }
 
 #if TENON_GEMM_X86
@@ -462,8 +458,7 @@ struct avx2_kernel {
 // mc is a multiple of mr (the packed A block holds whole panels).
 template <class T>
 struct neon_kernel {
-    static constexpr std::size_t mr = TENON_SIMD_NEON64 ? 8 : 6, nr = 2 * neon_ops<T>::lanes, kc = 256,
-                                 mc = TENON_SIMD_NEON64 ? 128 : 120, nc = 512;
+    static constexpr std::size_t mr = TENON_SIMD_NEON64 ? 8 : 6, nr = 2 * neon_ops<T>::lanes, kc = 256, mc = TENON_SIMD_NEON64 ? 128 : 120, nc = 512;
     static_assert(mc % mr == 0, "the packed A block holds whole panels");
     TENON_GEMM_SIMD_TILE(TENON_TARGET_NEON, neon_ops)
 };
@@ -473,8 +468,6 @@ using neon_path_kernel = std::conditional_t<neon_has_lanes<T>, neon_kernel<T>, p
 #endif
 #undef TENON_GEMM_SIMD_TILE
 #endif  // TENON_GEMM_X86 || TENON_SIMD_NEON
-
-
 
 // One product and the band of C a task computes.
 template <class T>
@@ -520,8 +513,7 @@ void scale_c(const gemm_problem<T>& g) noexcept {
 // the SIMD tiles always compute a whole tile, so a partial one goes through
 // a copy of C's live part (same operations, same rounding as a whole tile).
 template <class T, class K>
-void run_tile(std::size_t depth, const T* a_panel, const T* b_panel, T alpha, T* c, std::size_t ldc, std::size_t rows,
-              std::size_t cols) noexcept {
+void run_tile(std::size_t depth, const T* a_panel, const T* b_panel, T alpha, T* c, std::size_t ldc, std::size_t rows, std::size_t cols) noexcept {
     if constexpr (std::is_same_v<K, portable_kernel<T>>) {
         gemm_tile(depth, a_panel, b_panel, alpha, c, ldc, rows, cols);
     } else {
@@ -573,14 +565,14 @@ bool gemm_packed(const gemm_problem<T>& g, gemm_scratch<T>& scratch) noexcept {
 
 #if TENON_GEMM_BLAS
 inline void blas_gemm(const gemm_problem<float>& g) noexcept {
-    cblas_sgemm(CblasRowMajor, g.transpose_a ? CblasTrans : CblasNoTrans, g.transpose_b ? CblasTrans : CblasNoTrans,
-                static_cast<int>(g.m), static_cast<int>(g.n), static_cast<int>(g.k), g.alpha, g.a, static_cast<int>(g.lda), g.b,
-                static_cast<int>(g.ldb), g.beta, g.c, static_cast<int>(g.ldc));
+    cblas_sgemm(CblasRowMajor, g.transpose_a ? CblasTrans : CblasNoTrans, g.transpose_b ? CblasTrans : CblasNoTrans, static_cast<int>(g.m),
+                static_cast<int>(g.n), static_cast<int>(g.k), g.alpha, g.a, static_cast<int>(g.lda), g.b, static_cast<int>(g.ldb), g.beta, g.c,
+                static_cast<int>(g.ldc));
 }
 inline void blas_gemm(const gemm_problem<double>& g) noexcept {
-    cblas_dgemm(CblasRowMajor, g.transpose_a ? CblasTrans : CblasNoTrans, g.transpose_b ? CblasTrans : CblasNoTrans,
-                static_cast<int>(g.m), static_cast<int>(g.n), static_cast<int>(g.k), g.alpha, g.a, static_cast<int>(g.lda), g.b,
-                static_cast<int>(g.ldb), g.beta, g.c, static_cast<int>(g.ldc));
+    cblas_dgemm(CblasRowMajor, g.transpose_a ? CblasTrans : CblasNoTrans, g.transpose_b ? CblasTrans : CblasNoTrans, static_cast<int>(g.m),
+                static_cast<int>(g.n), static_cast<int>(g.k), g.alpha, g.a, static_cast<int>(g.lda), g.b, static_cast<int>(g.ldb), g.beta, g.c,
+                static_cast<int>(g.ldc));
 }
 #endif
 
@@ -624,13 +616,13 @@ void gemm_band(const gemm_problem<T>& g, kernel_path path, gemm_scratch<T>& scra
     bool packed = false;
     switch (path) {
 #if TENON_GEMM_X86
-        case kernel_path::avx512: packed = gemm_packed<T, avx512_kernel<T>>(g, scratch); break;
-        case kernel_path::avx2: packed = gemm_packed<T, avx2_kernel<T>>(g, scratch); break;
+    case kernel_path::avx512: packed = gemm_packed<T, avx512_kernel<T>>(g, scratch); break;
+    case kernel_path::avx2: packed = gemm_packed<T, avx2_kernel<T>>(g, scratch); break;
 #endif
 #if TENON_SIMD_NEON
-        case kernel_path::neon: packed = gemm_packed<T, neon_path_kernel<T>>(g, scratch); break;
+    case kernel_path::neon: packed = gemm_packed<T, neon_path_kernel<T>>(g, scratch); break;
 #endif
-        default: packed = gemm_packed<T, portable_kernel<T>>(g, scratch); break;
+    default: packed = gemm_packed<T, portable_kernel<T>>(g, scratch); break;
     }
     if (!packed) gemm_unpacked(g.transpose_a, g.transpose_b, g.m, g.n, g.k, g.alpha, g.a, g.lda, g.b, g.ldb, g.c, g.ldc);
 }
@@ -768,8 +760,8 @@ struct gemm_split {
         const gemm_split& s = *static_cast<const gemm_split*>(context);
         const std::size_t first = s.edge(index), last = s.edge(index + 1);
         if (first >= last) return;
-        const gemm_problem<T> band = s.by_rows ? sub_problem(*s.g, first, last - first, 0, s.g->n)
-                                               : sub_problem(*s.g, 0, s.g->m, first, last - first);
+        const gemm_problem<T> band =
+            s.by_rows ? sub_problem(*s.g, first, last - first, 0, s.g->n) : sub_problem(*s.g, 0, s.g->m, first, last - first);
         gemm_band(band, s.path, s.scratch[index]);
     }
 };
@@ -779,8 +771,8 @@ struct gemm_split {
 /// C = alpha op(A) op(B) + beta C (see docs/design/gemm.md), split across
 /// `workers` when given and the product is large enough.
 template <class T>
-void gemm(bool transpose_a, bool transpose_b, std::size_t m, std::size_t n, std::size_t k, T alpha, const T* a, std::size_t lda,
-          const T* b, std::size_t ldb, T beta, T* c, std::size_t ldc, executor* workers) noexcept {
+void gemm(bool transpose_a, bool transpose_b, std::size_t m, std::size_t n, std::size_t k, T alpha, const T* a, std::size_t lda, const T* b,
+          std::size_t ldb, T beta, T* c, std::size_t ldc, executor* workers) noexcept {
     if (m == 0 || n == 0) return;
     const detail::gemm_problem<T> g{transpose_a, transpose_b, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc};
     const kernel_path path = detail::product_path(m, n, k, lda, ldb, ldc);
@@ -834,8 +826,8 @@ struct inner_halves {
     static void run_part(void* context, std::size_t index) {
         const inner_halves& h = *static_cast<const inner_halves*>(context);
         const std::size_t first = index == 0 ? 0 : h.edge, last = index == 0 ? h.edge : h.k;
-        const gemm_problem<T> g{false, false, h.m, h.n, last - first, T(1), h.a + first, h.lda, h.b + first * h.ldb, h.ldb,
-                                T(0), index == 0 ? h.c : h.partial, h.n};
+        const gemm_problem<T> g{
+            false, false, h.m, h.n, last - first, T(1), h.a + first, h.lda, h.b + first * h.ldb, h.ldb, T(0), index == 0 ? h.c : h.partial, h.n};
         gemm_band(g, kernel_path::blas, gemm_scratch<T>::for_this_thread());
     }
 };
@@ -850,8 +842,8 @@ struct inner_halves {
 // machine: about five times the cost of writing its own line), the thread
 // that updates rows of B is then the only one that read them.
 template <class T>
-void gemm_inner_halves(std::size_t m, std::size_t n, std::size_t k, const T* a, std::size_t lda, const T* b, std::size_t ldb, T* c,
-                       T* partial, executor* workers) noexcept {
+void gemm_inner_halves(std::size_t m, std::size_t n, std::size_t k, const T* a, std::size_t lda, const T* b, std::size_t ldb, T* c, T* partial,
+                       executor* workers) noexcept {
     inner_halves<T> h{a, lda, b, ldb, c, partial, m, n, k, gemm_split<T>::rows_of(k, kernel_path::blas, 2).edge(1)};
     if (workers && workers->concurrency() > 1) {
         workers->run(2, &inner_halves<T>::run_part, &h);
@@ -865,8 +857,8 @@ void gemm_inner_halves(std::size_t m, std::size_t n, std::size_t k, const T* a, 
 
 /// C = alpha op(A) op(B) + beta C on the calling thread.
 template <class T>
-void gemm(bool transpose_a, bool transpose_b, std::size_t m, std::size_t n, std::size_t k, T alpha, const T* a, std::size_t lda,
-          const T* b, std::size_t ldb, T beta, T* c, std::size_t ldc) noexcept {
+void gemm(bool transpose_a, bool transpose_b, std::size_t m, std::size_t n, std::size_t k, T alpha, const T* a, std::size_t lda, const T* b,
+          std::size_t ldb, T beta, T* c, std::size_t ldc) noexcept {
     gemm<T>(transpose_a, transpose_b, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc, nullptr);
 }
 

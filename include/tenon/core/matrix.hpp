@@ -23,8 +23,7 @@ TENON_NAMESPACE_BEGIN
 template <class T>
 inline constexpr bool is_scalar_v = std::is_same_v<T, float> || std::is_same_v<T, double>;
 
-#define TENON_REQUIRE_SCALAR(T) \
-    static_assert(::tenon::is_scalar_v<T>, "tenon computes in float or double; use one of them as the scalar type")
+#define TENON_REQUIRE_SCALAR(T) static_assert(::tenon::is_scalar_v<T>, "tenon computes in float or double; use one of them as the scalar type")
 
 /// Row-major batch x features matrix.
 template <class T>
@@ -82,8 +81,7 @@ void copy_into(matrix<T>& dst, const matrix<T>& src) {
 /// operand, e.g. "dense layer 'hidden1' input".
 inline void require_shape(shape2 actual, shape2 expected, const std::string& what) {
     if (actual != expected) {
-        raise(codes::core_shape_mismatch,
-              what + ": expected shape " + to_string(expected) + ", got " + to_string(actual));
+        raise(codes::core_shape_mismatch, what + ": expected shape " + to_string(expected) + ", got " + to_string(actual));
     }
 }
 
@@ -97,8 +95,8 @@ matrix<T> make_matrix(std::initializer_list<std::initializer_list<T>> rows) {
     std::size_t i = 0;
     for (const auto& row : rows) {
         if (row.size() != c) {
-            raise(codes::core_shape_mismatch, "make_matrix row " + std::to_string(i) + ": expected " +
-                                             std::to_string(c) + " values, got " + std::to_string(row.size()));
+            raise(codes::core_shape_mismatch,
+                  "make_matrix row " + std::to_string(i) + ": expected " + std::to_string(c) + " values, got " + std::to_string(row.size()));
         }
         std::copy(row.begin(), row.end(), m.data() + i * c);
         ++i;

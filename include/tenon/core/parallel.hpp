@@ -54,8 +54,8 @@ class thread_pool final : public executor {
 public:
     explicit thread_pool(std::size_t threads = 1) : participants_(threads) {
         if (threads == 0 || threads > max_threads) {
-            raise(codes::core_argument_invalid, "thread_pool: the number of threads must be in [1, " + std::to_string(max_threads) +
-                                               "], got " + std::to_string(threads));
+            raise(codes::core_argument_invalid,
+                  "thread_pool: the number of threads must be in [1, " + std::to_string(max_threads) + "], got " + std::to_string(threads));
         }
         workers_.reserve(threads - 1);
         for (std::size_t i = 0; i + 1 < threads; ++i) workers_.emplace_back([this, i] { work_loop(i + 1); });
@@ -110,7 +110,7 @@ public:
     }
 
 private:
-    static constexpr int spin_rounds = 20000;      // a few tens of microseconds (common practice: spin, then block)
+    static constexpr int spin_rounds = 20000;  // a few tens of microseconds (common practice: spin, then block)
     static constexpr std::size_t mask_limit = 32;  // runs of up to this many tasks claim through a mask
 
     static std::uint64_t tag(std::uint64_t generation) noexcept { return (generation & 0xFFFFFFFFu) << 32; }
@@ -210,7 +210,7 @@ private:
     std::size_t participants_;  // the calling thread and the workers
     std::vector<std::thread> workers_;
     std::mutex run_mutex_;  // one run() at a time
-    std::mutex mutex_;      // guards the run description and stopping_
+    std::mutex mutex_;  // guards the run description and stopping_
     std::condition_variable wake_, finished_;
     std::atomic<std::uint64_t> generation_{0};
     std::atomic<std::uint64_t> next_{0};

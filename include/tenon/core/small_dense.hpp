@@ -46,7 +46,7 @@ namespace detail {
 // What follows the sum (see the top of this file).
 template <class T>
 struct dense_finish {
-    const T* bias = nullptr;    // n values, or none
+    const T* bias = nullptr;  // n values, or none
     bool relu = false;
     const T* addend = nullptr;  // rows x n (row stride n), or none
 };
@@ -78,8 +78,8 @@ void finish_rows(std::size_t rows, std::size_t n, const dense_finish<T>& f, T* y
 
 // One row, n >= thin_columns: gemm_unpacked's row loop, plain C++.
 template <class T>
-TENON_NO_CONTRACTION void dense_row_portable(const T* x, const T* w, std::size_t k, std::size_t n, const dense_finish<T>& f,
-                                             const T* addend, T* y) noexcept {
+TENON_NO_CONTRACTION void dense_row_portable(const T* x, const T* w, std::size_t k, std::size_t n, const dense_finish<T>& f, const T* addend,
+                                             T* y) noexcept {
     TENON_NO_CONTRACTION_IN_BODY
     for (std::size_t j = 0; j < n; ++j) y[j] = T(0);
     for (std::size_t p = 0; p < k; ++p) {
@@ -107,136 +107,135 @@ TENON_NO_CONTRACTION void dense_dots(const T* x, const T* wt, std::size_t k, std
 // The row loop with up to four vectors of y held over the k terms, then the
 // finish applied to them in registers. Written out per instruction set (the
 // target attribute cannot be a template argument).
-#define TENON_SMALL_DENSE_STORE(SUFFIX, C, AT)                                                                                 \
-    {                                                                                                                          \
-        const std::size_t at = (AT);                                                                                           \
-        ops::store(y + at, finish_vector_##SUFFIX<T>(C, bias ? bias + at : nullptr, relu, addend ? addend + at : nullptr));    \
+#define TENON_SMALL_DENSE_STORE(SUFFIX, C, AT)                                                                                                       \
+    {                                                                                                                                                \
+        const std::size_t at = (AT);                                                                                                                 \
+        ops::store(y + at, finish_vector_##SUFFIX<T>(C, bias ? bias + at : nullptr, relu, addend ? addend + at : nullptr));                          \
     }
-#define TENON_SMALL_DENSE_FINISH(SUFFIX, TARGET, OPS)                                                                     \
-    template <class T>                                                                                                    \
-    TARGET inline typename OPS<T>::vector finish_vector_##SUFFIX(typename OPS<T>::vector c, const T* bias, bool relu,      \
-                                                                 const T* addend) noexcept {                              \
-        using ops = OPS<T>;                                                                                               \
-        if (bias) c = ops::add(c, ops::load(bias));                                                                       \
-        c = ops::zero_tiny(c);                                                                                            \
-        if (relu) c = ops::select_positive(c, c);                                                                         \
-        if (addend) c = ops::zero_tiny(ops::add(ops::load(addend), c));                                                   \
-        return c;                                                                                                         \
+#define TENON_SMALL_DENSE_FINISH(SUFFIX, TARGET, OPS)                                                                                                \
+    template <class T>                                                                                                                               \
+    TARGET inline typename OPS<T>::vector finish_vector_##SUFFIX(typename OPS<T>::vector c, const T* bias, bool relu, const T* addend) noexcept {    \
+        using ops = OPS<T>;                                                                                                                          \
+        if (bias) c = ops::add(c, ops::load(bias));                                                                                                  \
+        c = ops::zero_tiny(c);                                                                                                                       \
+        if (relu) c = ops::select_positive(c, c);                                                                                                    \
+        if (addend) c = ops::zero_tiny(ops::add(ops::load(addend), c));                                                                              \
+        return c;                                                                                                                                    \
     }
 // One vector of row i + R, columns from J on, of a fused product: scaled
 // by 1 and added to C's zero as the packed tile does, then finished.
-#define TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, C, R, J)                                                                         \
-    {                                                                                                                          \
-        const std::size_t at = (i + (R)) * n + (J);                                                                            \
-        ops::store(y + at, finish_vector_##SUFFIX<T>(ops::fma(one, C, zero), bias ? bias + (J) : nullptr, relu,                \
-                                                     f.addend ? f.addend + at : nullptr));                                     \
+#define TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, C, R, J)                                                                                               \
+    {                                                                                                                                                \
+        const std::size_t at = (i + (R)) * n + (J);                                                                                                  \
+        ops::store(y + at,                                                                                                                           \
+                   finish_vector_##SUFFIX<T>(ops::fma(one, C, zero), bias ? bias + (J) : nullptr, relu, f.addend ? f.addend + at : nullptr));        \
     }
 // Rows [row0, row0 + rows) from column j0 on, one row and one vector at a
 // time (the edges of dense_fused_rows), the tail columns with std::fma.
-#define TENON_SMALL_DENSE_FUSED_COLS(SUFFIX, TARGET, OPS)                                                                      \
-    template <class T>                                                                                                         \
-    TARGET void dense_fused_cols_##SUFFIX(std::size_t rows, const T* x, const T* w, std::size_t k, std::size_t n,              \
-                                          std::size_t j0, const dense_finish<T>& f, std::size_t row0, T* y) noexcept {         \
-        using ops = OPS<T>;                                                                                                    \
-        constexpr std::size_t lanes = ops::lanes;                                                                              \
-        const auto one = ops::broadcast(T(1)), zero = ops::zero();                                                             \
-        for (std::size_t r = 0; r < rows; ++r) {                                                                               \
-            const T* xr = x + r * k;                                                                                           \
-            T* yr = y + (row0 + r) * n;                                                                                        \
-            const T* addend = f.addend ? f.addend + (row0 + r) * n : nullptr;                                                  \
-            std::size_t j = j0;                                                                                                \
-            for (; j + lanes <= n; j += lanes) {                                                                               \
-                auto c = zero;                                                                                                 \
-                for (std::size_t p = 0; p < k; ++p) c = ops::fma(ops::broadcast(xr[p]), ops::load(w + p * n + j), c);          \
-                ops::store(yr + j, finish_vector_##SUFFIX<T>(ops::fma(one, c, zero), f.bias ? f.bias + j : nullptr, f.relu,     \
-                                                             addend ? addend + j : nullptr));                                  \
-            }                                                                                                                  \
-            for (; j < n; ++j) {                                                                                               \
-                T c = T(0);                                                                                                    \
-                for (std::size_t p = 0; p < k; ++p) c = std::fma(xr[p], w[p * n + j], c);                                      \
-                yr[j] = finish_value(std::fma(T(1), c, T(0)), f, j, addend);                                                   \
-            }                                                                                                                  \
-        }                                                                                                                      \
+#define TENON_SMALL_DENSE_FUSED_COLS(SUFFIX, TARGET, OPS)                                                                                            \
+    template <class T>                                                                                                                               \
+    TARGET void dense_fused_cols_##SUFFIX(std::size_t rows, const T* x, const T* w, std::size_t k, std::size_t n, std::size_t j0,                    \
+                                          const dense_finish<T>& f, std::size_t row0, T* y) noexcept {                                               \
+        using ops = OPS<T>;                                                                                                                          \
+        constexpr std::size_t lanes = ops::lanes;                                                                                                    \
+        const auto one = ops::broadcast(T(1)), zero = ops::zero();                                                                                   \
+        for (std::size_t r = 0; r < rows; ++r) {                                                                                                     \
+            const T* xr = x + r * k;                                                                                                                 \
+            T* yr = y + (row0 + r) * n;                                                                                                              \
+            const T* addend = f.addend ? f.addend + (row0 + r) * n : nullptr;                                                                        \
+            std::size_t j = j0;                                                                                                                      \
+            for (; j + lanes <= n; j += lanes) {                                                                                                     \
+                auto c = zero;                                                                                                                       \
+                for (std::size_t p = 0; p < k; ++p) c = ops::fma(ops::broadcast(xr[p]), ops::load(w + p * n + j), c);                                \
+                ops::store(yr + j,                                                                                                                   \
+                           finish_vector_##SUFFIX<T>(ops::fma(one, c, zero), f.bias ? f.bias + j : nullptr, f.relu, addend ? addend + j : nullptr)); \
+            }                                                                                                                                        \
+            for (; j < n; ++j) {                                                                                                                     \
+                T c = T(0);                                                                                                                          \
+                for (std::size_t p = 0; p < k; ++p) c = std::fma(xr[p], w[p * n + j], c);                                                            \
+                yr[j] = finish_value(std::fma(T(1), c, T(0)), f, j, addend);                                                                         \
+            }                                                                                                                                        \
+        }                                                                                                                                            \
     }
-#define TENON_SMALL_DENSE_ROW(SUFFIX, TARGET, OPS, ROWS)                                                                     \
-    template <class T>                                                                                                    \
-    TARGET TENON_NO_CONTRACTION void dense_row_##SUFFIX(const T* x, const T* w, std::size_t k, std::size_t n,             \
-                                                        const dense_finish<T>& f, const T* addend, T* y) noexcept {       \
-        TENON_NO_CONTRACTION_IN_BODY                                                                                      \
-        using ops = OPS<T>;                                                                                               \
-        constexpr std::size_t lanes = ops::lanes;                                                                         \
-        const T* bias = f.bias;                                                                                           \
-        const bool relu = f.relu;                                                                                         \
-        std::size_t j = 0;                                                                                                \
-        for (; j + 4 * lanes <= n; j += 4 * lanes) {                                                                      \
-            auto c0 = ops::zero(), c1 = ops::zero(), c2 = ops::zero(), c3 = ops::zero();                                  \
-            for (std::size_t p = 0; p < k; ++p) {                                                                         \
-                const auto s = ops::broadcast(T(1) * x[p]);                                                               \
-                const T* wp = w + p * n + j;                                                                              \
-                c0 = ops::add(c0, ops::mul(s, ops::load(wp)));                                                            \
-                c1 = ops::add(c1, ops::mul(s, ops::load(wp + lanes)));                                                    \
-                c2 = ops::add(c2, ops::mul(s, ops::load(wp + 2 * lanes)));                                                \
-                c3 = ops::add(c3, ops::mul(s, ops::load(wp + 3 * lanes)));                                                \
-            }                                                                                                             \
-            TENON_SMALL_DENSE_STORE(SUFFIX, c0, j)                                                                        \
-            TENON_SMALL_DENSE_STORE(SUFFIX, c1, j + lanes)                                                                \
-            TENON_SMALL_DENSE_STORE(SUFFIX, c2, j + 2 * lanes)                                                            \
-            TENON_SMALL_DENSE_STORE(SUFFIX, c3, j + 3 * lanes)                                                            \
-        }                                                                                                                 \
-        for (; j + 2 * lanes <= n; j += 2 * lanes) {                                                                      \
-            auto c0 = ops::zero(), c1 = ops::zero();                                                                      \
-            for (std::size_t p = 0; p < k; ++p) {                                                                         \
-                const auto s = ops::broadcast(T(1) * x[p]);                                                               \
-                const T* wp = w + p * n + j;                                                                              \
-                c0 = ops::add(c0, ops::mul(s, ops::load(wp)));                                                            \
-                c1 = ops::add(c1, ops::mul(s, ops::load(wp + lanes)));                                                    \
-            }                                                                                                             \
-            TENON_SMALL_DENSE_STORE(SUFFIX, c0, j)                                                                        \
-            TENON_SMALL_DENSE_STORE(SUFFIX, c1, j + lanes)                                                                \
-        }                                                                                                                 \
-        for (; j + lanes <= n; j += lanes) {                                                                              \
-            auto c0 = ops::zero();                                                                                        \
-            for (std::size_t p = 0; p < k; ++p) c0 = ops::add(c0, ops::mul(ops::broadcast(T(1) * x[p]), ops::load(w + p * n + j))); \
-            TENON_SMALL_DENSE_STORE(SUFFIX, c0, j)                                                                        \
-        }                                                                                                                 \
-        for (; j < n; ++j) {                                                                                              \
-            T c = T(0);                                                                                                   \
-            for (std::size_t p = 0; p < k; ++p) c += (T(1) * x[p]) * w[p * n + j];                                        \
-            y[j] = finish_value(c, f, j, addend);                                                                         \
-        }                                                                                                                 \
-    }                                                                                                                     \
-    template <class T>                                                                                                    \
-    TARGET void dense_fused_rows_##SUFFIX(std::size_t rows, const T* x, const T* w, std::size_t k, std::size_t n,         \
-                                          const dense_finish<T>& f, T* y) noexcept {                                      \
-        using ops = OPS<T>;                                                                                               \
-        constexpr std::size_t lanes = ops::lanes;                                                                         \
-        const T* bias = f.bias;                                                                                           \
-        const bool relu = f.relu;                                                                                         \
-        const auto one = ops::broadcast(T(1)), zero = ops::zero();                                                        \
-        constexpr std::size_t R = ROWS;                                                                               \
-        std::size_t i = 0;                                                                                            \
-        for (; i + R <= rows; i += R) {                                                                               \
-            const T* x0 = x + i * k;                                                                                  \
-            std::size_t j = 0;                                                                                        \
-            for (; j + 2 * lanes <= n; j += 2 * lanes) {                                                              \
-                typename ops::vector acc0[R], acc1[R];                                                                \
-                _Pragma("GCC unroll 16") for (std::size_t r = 0; r < R; ++r) acc0[r] = acc1[r] = zero;                \
-                for (std::size_t p = 0; p < k; ++p) {                                                                 \
-                    const auto w0 = ops::load(w + p * n + j), w1 = ops::load(w + p * n + j + lanes);                  \
-                    _Pragma("GCC unroll 16") for (std::size_t r = 0; r < R; ++r) {                                    \
-                        const auto s = ops::broadcast(x0[r * k + p]);                                                 \
-                        acc0[r] = ops::fma(s, w0, acc0[r]);                                                           \
-                        acc1[r] = ops::fma(s, w1, acc1[r]);                                                           \
-                    }                                                                                                 \
-                }                                                                                                     \
-                _Pragma("GCC unroll 16") for (std::size_t r = 0; r < R; ++r) {                                        \
-                    TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, acc0[r], r, j)                                              \
-                    TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, acc1[r], r, j + lanes)                                      \
-                }                                                                                                     \
-            }                                                                                                         \
-            if (j < n) dense_fused_cols_##SUFFIX<T>(R, x0, w, k, n, j, f, i, y);                                      \
-        }                                                                                                             \
-        if (i < rows) dense_fused_cols_##SUFFIX<T>(rows - i, x + i * k, w, k, n, 0, f, i, y);                             \
+#define TENON_SMALL_DENSE_ROW(SUFFIX, TARGET, OPS, ROWS)                                                                                             \
+    template <class T>                                                                                                                               \
+    TARGET TENON_NO_CONTRACTION void dense_row_##SUFFIX(const T* x, const T* w, std::size_t k, std::size_t n, const dense_finish<T>& f,              \
+                                                        const T* addend, T* y) noexcept {                                                            \
+        TENON_NO_CONTRACTION_IN_BODY                                                                                                                 \
+        using ops = OPS<T>;                                                                                                                          \
+        constexpr std::size_t lanes = ops::lanes;                                                                                                    \
+        const T* bias = f.bias;                                                                                                                      \
+        const bool relu = f.relu;                                                                                                                    \
+        std::size_t j = 0;                                                                                                                           \
+        for (; j + 4 * lanes <= n; j += 4 * lanes) {                                                                                                 \
+            auto c0 = ops::zero(), c1 = ops::zero(), c2 = ops::zero(), c3 = ops::zero();                                                             \
+            for (std::size_t p = 0; p < k; ++p) {                                                                                                    \
+                const auto s = ops::broadcast(T(1) * x[p]);                                                                                          \
+                const T* wp = w + p * n + j;                                                                                                         \
+                c0 = ops::add(c0, ops::mul(s, ops::load(wp)));                                                                                       \
+                c1 = ops::add(c1, ops::mul(s, ops::load(wp + lanes)));                                                                               \
+                c2 = ops::add(c2, ops::mul(s, ops::load(wp + 2 * lanes)));                                                                           \
+                c3 = ops::add(c3, ops::mul(s, ops::load(wp + 3 * lanes)));                                                                           \
+            }                                                                                                                                        \
+            TENON_SMALL_DENSE_STORE(SUFFIX, c0, j)                                                                                                   \
+            TENON_SMALL_DENSE_STORE(SUFFIX, c1, j + lanes)                                                                                           \
+            TENON_SMALL_DENSE_STORE(SUFFIX, c2, j + 2 * lanes)                                                                                       \
+            TENON_SMALL_DENSE_STORE(SUFFIX, c3, j + 3 * lanes)                                                                                       \
+        }                                                                                                                                            \
+        for (; j + 2 * lanes <= n; j += 2 * lanes) {                                                                                                 \
+            auto c0 = ops::zero(), c1 = ops::zero();                                                                                                 \
+            for (std::size_t p = 0; p < k; ++p) {                                                                                                    \
+                const auto s = ops::broadcast(T(1) * x[p]);                                                                                          \
+                const T* wp = w + p * n + j;                                                                                                         \
+                c0 = ops::add(c0, ops::mul(s, ops::load(wp)));                                                                                       \
+                c1 = ops::add(c1, ops::mul(s, ops::load(wp + lanes)));                                                                               \
+            }                                                                                                                                        \
+            TENON_SMALL_DENSE_STORE(SUFFIX, c0, j)                                                                                                   \
+            TENON_SMALL_DENSE_STORE(SUFFIX, c1, j + lanes)                                                                                           \
+        }                                                                                                                                            \
+        for (; j + lanes <= n; j += lanes) {                                                                                                         \
+            auto c0 = ops::zero();                                                                                                                   \
+            for (std::size_t p = 0; p < k; ++p) c0 = ops::add(c0, ops::mul(ops::broadcast(T(1) * x[p]), ops::load(w + p * n + j)));                  \
+            TENON_SMALL_DENSE_STORE(SUFFIX, c0, j)                                                                                                   \
+        }                                                                                                                                            \
+        for (; j < n; ++j) {                                                                                                                         \
+            T c = T(0);                                                                                                                              \
+            for (std::size_t p = 0; p < k; ++p) c += (T(1) * x[p]) * w[p * n + j];                                                                   \
+            y[j] = finish_value(c, f, j, addend);                                                                                                    \
+        }                                                                                                                                            \
+    }                                                                                                                                                \
+    template <class T>                                                                                                                               \
+    TARGET void dense_fused_rows_##SUFFIX(std::size_t rows, const T* x, const T* w, std::size_t k, std::size_t n, const dense_finish<T>& f,          \
+                                          T* y) noexcept {                                                                                           \
+        using ops = OPS<T>;                                                                                                                          \
+        constexpr std::size_t lanes = ops::lanes;                                                                                                    \
+        const T* bias = f.bias;                                                                                                                      \
+        const bool relu = f.relu;                                                                                                                    \
+        const auto one = ops::broadcast(T(1)), zero = ops::zero();                                                                                   \
+        constexpr std::size_t R = ROWS;                                                                                                              \
+        std::size_t i = 0;                                                                                                                           \
+        for (; i + R <= rows; i += R) {                                                                                                              \
+            const T* x0 = x + i * k;                                                                                                                 \
+            std::size_t j = 0;                                                                                                                       \
+            for (; j + 2 * lanes <= n; j += 2 * lanes) {                                                                                             \
+                typename ops::vector acc0[R], acc1[R];                                                                                               \
+                _Pragma("GCC unroll 16") for (std::size_t r = 0; r < R; ++r) acc0[r] = acc1[r] = zero;                                               \
+                for (std::size_t p = 0; p < k; ++p) {                                                                                                \
+                    const auto w0 = ops::load(w + p * n + j), w1 = ops::load(w + p * n + j + lanes);                                                 \
+                    _Pragma("GCC unroll 16") for (std::size_t r = 0; r < R; ++r) {                                                                   \
+                        const auto s = ops::broadcast(x0[r * k + p]);                                                                                \
+                        acc0[r] = ops::fma(s, w0, acc0[r]);                                                                                          \
+                        acc1[r] = ops::fma(s, w1, acc1[r]);                                                                                          \
+                    }                                                                                                                                \
+                }                                                                                                                                    \
+                _Pragma("GCC unroll 16") for (std::size_t r = 0; r < R; ++r) {                                                                       \
+                    TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, acc0[r], r, j)                                                                             \
+                    TENON_SMALL_DENSE_FUSED_STORE(SUFFIX, acc1[r], r, j + lanes)                                                                     \
+                }                                                                                                                                    \
+            }                                                                                                                                        \
+            if (j < n) dense_fused_cols_##SUFFIX<T>(R, x0, w, k, n, j, f, i, y);                                                                     \
+        }                                                                                                                                            \
+        if (i < rows) dense_fused_cols_##SUFFIX<T>(rows - i, x + i * k, w, k, n, 0, f, i, y);                                                        \
     }
 #if TENON_GEMM_X86
 TENON_SMALL_DENSE_FINISH(avx512, TENON_TARGET_AVX512, avx512_ops)
@@ -295,10 +294,10 @@ inline small_dense_version best_group_version() noexcept {
 
 inline bool small_dense_version_available(small_dense_version v) noexcept {
     switch (v) {
-        case small_dense_version::portable: return true;
-        case small_dense_version::avx2: return TENON_GEMM_X86 && cpu_has_avx2_fma();
-        case small_dense_version::avx512: return TENON_GEMM_X86 && cpu_has_avx512f();
-        case small_dense_version::neon: return TENON_SIMD_NEON64 != 0;
+    case small_dense_version::portable: return true;
+    case small_dense_version::avx2: return TENON_GEMM_X86 && cpu_has_avx2_fma();
+    case small_dense_version::avx512: return TENON_GEMM_X86 && cpu_has_avx512f();
+    case small_dense_version::neon: return TENON_SIMD_NEON64 != 0;
     }
     return false;
 }
@@ -334,12 +333,12 @@ void small_dense(std::size_t rows, std::size_t k, std::size_t n, const T* x, con
         }
         switch (version) {
 #if TENON_GEMM_X86
-            case small_dense_version::avx512: dense_row_avx512(xi, w, k, n, f, ai, yi); break;
-            case small_dense_version::avx2: dense_row_avx2(xi, w, k, n, f, ai, yi); break;
+        case small_dense_version::avx512: dense_row_avx512(xi, w, k, n, f, ai, yi); break;
+        case small_dense_version::avx2: dense_row_avx2(xi, w, k, n, f, ai, yi); break;
 #elif TENON_SIMD_NEON64
-            case small_dense_version::neon: dense_row_neon(xi, w, k, n, f, ai, yi); break;
+        case small_dense_version::neon: dense_row_neon(xi, w, k, n, f, ai, yi); break;
 #endif
-            default: dense_row_portable(xi, w, k, n, f, ai, yi); break;
+        default: dense_row_portable(xi, w, k, n, f, ai, yi); break;
         }
     }
 }
@@ -350,8 +349,7 @@ void small_dense(std::size_t rows, std::size_t k, std::size_t n, const T* x, con
 // transposed (n x k); it is read only when n < thin_columns and may then
 // be W itself for n == 1. y must not overlap x, W or the addend.
 template <class T>
-void dense_rows(std::size_t rows, std::size_t k, std::size_t n, const T* x, const T* w, const T* wt, const dense_finish<T>& f,
-                T* y) noexcept {
+void dense_rows(std::size_t rows, std::size_t k, std::size_t n, const T* x, const T* w, const T* wt, const dense_finish<T>& f, T* y) noexcept {
     if (rows == 0 || n == 0) return;
     const kernel_path path = product_path(rows, n, k, k, n, n);
     if (is_thin_product<T>(rows, n, path)) {
@@ -363,8 +361,10 @@ void dense_rows(std::size_t rows, std::size_t k, std::size_t n, const T* x, cons
     // C's zero: the same chain, without packing, four rows at a time.
 #if TENON_GEMM_X86
     if ((path == kernel_path::avx512 || path == kernel_path::avx2) && k <= avx512_kernel<T>::kc && k <= avx2_kernel<T>::kc) {
-        if (vector_level() == 2) dense_fused_rows_avx512(rows, x, w, k, n, f, y);
-        else dense_fused_rows_avx2(rows, x, w, k, n, f, y);
+        if (vector_level() == 2)
+            dense_fused_rows_avx512(rows, x, w, k, n, f, y);
+        else
+            dense_fused_rows_avx2(rows, x, w, k, n, f, y);
         return;
     }
 #elif TENON_SIMD_NEON64
@@ -421,47 +421,44 @@ struct dense_group_args {
 // G rows of the row loop (dense_row_* above), one per product, in one loop
 // over k: G x V vectors of y held across the k terms, V <= 4 chosen so that
 // G x V stays within `budget` registers.
-#define TENON_DENSE_GROUP_BLOCK(SUFFIX, V)                                                                                    \
-    for (; j + (V) * lanes <= n; j += (V) * lanes) {                                                                          \
-        typename ops::vector c[G][V];                                                                                         \
-        _Pragma("GCC unroll 8") for (std::size_t g = 0; g < G; ++g)                                                           \
-            _Pragma("GCC unroll 4") for (std::size_t v = 0; v < (V); ++v) c[g][v] = ops::zero();                              \
-        for (std::size_t p = 0; p < k; ++p) {                                                                                 \
-            _Pragma("GCC unroll 8") for (std::size_t g = 0; g < G; ++g) {                                                     \
-                const auto s = ops::broadcast(T(1) * x[g][p]);                                                                \
-                const T* wp = w[g] + p * n + j;                                                                               \
-                _Pragma("GCC unroll 4") for (std::size_t v = 0; v < (V); ++v)                                                 \
-                    c[g][v] = ops::add(c[g][v], ops::mul(s, ops::load(wp + v * lanes)));                                      \
-            }                                                                                                                 \
-        }                                                                                                                     \
-        _Pragma("GCC unroll 8") for (std::size_t g = 0; g < G; ++g)                                                           \
-            _Pragma("GCC unroll 4") for (std::size_t v = 0; v < (V); ++v) {                                                   \
-                const std::size_t at = j + v * lanes;                                                                         \
-                ops::store(y[g] + at, finish_vector_##SUFFIX<T>(c[g][v], bias[g] ? bias[g] + at : nullptr, relu[g],           \
-                                                                addend[g] ? addend[g] + at : nullptr));                       \
-            }                                                                                                                 \
+#define TENON_DENSE_GROUP_BLOCK(SUFFIX, V)                                                                                                           \
+    for (; j + (V)*lanes <= n; j += (V)*lanes) {                                                                                                     \
+        typename ops::vector c[G][V];                                                                                                                \
+        _Pragma("GCC unroll 8") for (std::size_t g = 0; g < G; ++g) _Pragma("GCC unroll 4") for (std::size_t v = 0; v < (V); ++v) c[g][v] =          \
+            ops::zero();                                                                                                                             \
+        for (std::size_t p = 0; p < k; ++p) {                                                                                                        \
+            _Pragma("GCC unroll 8") for (std::size_t g = 0; g < G; ++g) {                                                                            \
+                const auto s = ops::broadcast(T(1) * x[g][p]);                                                                                       \
+                const T* wp = w[g] + p * n + j;                                                                                                      \
+                _Pragma("GCC unroll 4") for (std::size_t v = 0; v < (V); ++v) c[g][v] = ops::add(c[g][v], ops::mul(s, ops::load(wp + v * lanes)));   \
+            }                                                                                                                                        \
+        }                                                                                                                                            \
+        _Pragma("GCC unroll 8") for (std::size_t g = 0; g < G; ++g) _Pragma("GCC unroll 4") for (std::size_t v = 0; v < (V); ++v) {                  \
+            const std::size_t at = j + v * lanes;                                                                                                    \
+            ops::store(y[g] + at,                                                                                                                    \
+                       finish_vector_##SUFFIX<T>(c[g][v], bias[g] ? bias[g] + at : nullptr, relu[g], addend[g] ? addend[g] + at : nullptr));         \
+        }                                                                                                                                            \
     }
-#define TENON_DENSE_GROUP(SUFFIX, TARGET, OPS, BUDGET)                                                                        \
-    template <class T, std::size_t G>                                                                                         \
-    TARGET TENON_NO_CONTRACTION void dense_row_group_##SUFFIX(const T* const* x, const T* const* w, const T* const* bias,     \
-                                                              const bool* relu, const T* const* addend, T* const* y,          \
-                                                              std::size_t k, std::size_t n) noexcept {                        \
-        TENON_NO_CONTRACTION_IN_BODY                                                                                          \
-        using ops = OPS<T>;                                                                                                   \
-        constexpr std::size_t lanes = ops::lanes;                                                                             \
-        std::size_t j = 0;                                                                                                    \
-        if constexpr (G * 4 <= (BUDGET)) TENON_DENSE_GROUP_BLOCK(SUFFIX, 4)                                                   \
-        if constexpr (G * 2 <= (BUDGET)) TENON_DENSE_GROUP_BLOCK(SUFFIX, 2)                                                   \
-        TENON_DENSE_GROUP_BLOCK(SUFFIX, 1)                                                                                    \
-        for (; j < n; ++j)                                                                                                    \
-            for (std::size_t g = 0; g < G; ++g) {                                                                             \
-                T c = T(0);                                                                                                   \
-                for (std::size_t p = 0; p < k; ++p) c += (T(1) * x[g][p]) * w[g][p * n + j];                                  \
-                dense_finish<T> f;                                                                                            \
-                f.bias = bias[g];                                                                                             \
-                f.relu = relu[g];                                                                                             \
-                y[g][j] = finish_value(c, f, j, addend[g]);                                                                   \
-            }                                                                                                                 \
+#define TENON_DENSE_GROUP(SUFFIX, TARGET, OPS, BUDGET)                                                                                               \
+    template <class T, std::size_t G>                                                                                                                \
+    TARGET TENON_NO_CONTRACTION void dense_row_group_##SUFFIX(const T* const* x, const T* const* w, const T* const* bias, const bool* relu,          \
+                                                              const T* const* addend, T* const* y, std::size_t k, std::size_t n) noexcept {          \
+        TENON_NO_CONTRACTION_IN_BODY                                                                                                                 \
+        using ops = OPS<T>;                                                                                                                          \
+        constexpr std::size_t lanes = ops::lanes;                                                                                                    \
+        std::size_t j = 0;                                                                                                                           \
+        if constexpr (G * 4 <= (BUDGET)) TENON_DENSE_GROUP_BLOCK(SUFFIX, 4)                                                                          \
+        if constexpr (G * 2 <= (BUDGET)) TENON_DENSE_GROUP_BLOCK(SUFFIX, 2)                                                                          \
+        TENON_DENSE_GROUP_BLOCK(SUFFIX, 1)                                                                                                           \
+        for (; j < n; ++j)                                                                                                                           \
+            for (std::size_t g = 0; g < G; ++g) {                                                                                                    \
+                T c = T(0);                                                                                                                          \
+                for (std::size_t p = 0; p < k; ++p) c += (T(1) * x[g][p]) * w[g][p * n + j];                                                         \
+                dense_finish<T> f;                                                                                                                   \
+                f.bias = bias[g];                                                                                                                    \
+                f.relu = relu[g];                                                                                                                    \
+                y[g][j] = finish_value(c, f, j, addend[g]);                                                                                          \
+            }                                                                                                                                        \
     }
 // Registers for accumulators: AVX-512 has 32, AVX2 and NEON (counted for
 // its float lanes) 16, less the broadcasts and products in flight.
@@ -478,7 +475,7 @@ TENON_DENSE_GROUP(neon, TENON_TARGET_NEON, neon_ops, 16)
 #if TENON_GEMM_X86
 // split_dot of eight float pairs (see the top of this file); out[r] for pair r.
 TENON_TARGET_AVX2 TENON_NO_CONTRACTION inline void split_dots8_avx2(const float* const* xs, const float* const* ws, std::size_t k,
-                                                                   float* out) noexcept {
+                                                                    float* out) noexcept {
     TENON_NO_CONTRACTION_IN_BODY
     __m256 r[8];
     const std::size_t full = k - k % 8;
@@ -514,7 +511,7 @@ TENON_TARGET_AVX2 TENON_NO_CONTRACTION inline void split_dots8_avx2(const float*
 
 // split_dot of four double pairs: partials 0-3 in one vector, 4-7 in another.
 TENON_TARGET_AVX2 TENON_NO_CONTRACTION inline void split_dots4_avx2(const double* const* xs, const double* const* ws, std::size_t k,
-                                                                   double* out) noexcept {
+                                                                    double* out) noexcept {
     TENON_NO_CONTRACTION_IN_BODY
     __m256d lo[4], hi[4];
     const std::size_t full = k - k % 8;
@@ -526,8 +523,7 @@ TENON_TARGET_AVX2 TENON_NO_CONTRACTION inline void split_dots4_avx2(const double
             a = _mm256_add_pd(a, _mm256_mul_pd(_mm256_loadu_pd(x + p), _mm256_loadu_pd(w + p)));
             b = _mm256_add_pd(b, _mm256_mul_pd(_mm256_loadu_pd(x + p + 4), _mm256_loadu_pd(w + p + 4)));
         }
-        for (std::size_t p = full; p < k; ++p)
-            a = _mm256_blend_pd(a, _mm256_add_pd(a, _mm256_mul_pd(_mm256_set1_pd(x[p]), _mm256_set1_pd(w[p]))), 1);
+        for (std::size_t p = full; p < k; ++p) a = _mm256_blend_pd(a, _mm256_add_pd(a, _mm256_mul_pd(_mm256_set1_pd(x[p]), _mm256_set1_pd(w[p]))), 1);
         lo[i] = a;
         hi[i] = b;
     }
@@ -545,8 +541,10 @@ TENON_TARGET_AVX2 TENON_NO_CONTRACTION inline void split_dots4_avx2(const double
 
 template <class T>
 inline void split_dots_avx2(const T* const* xs, const T* const* ws, std::size_t k, T* out) noexcept {
-    if constexpr (sizeof(T) == sizeof(float)) split_dots8_avx2(xs, ws, k, out);
-    else split_dots4_avx2(xs, ws, k, out);
+    if constexpr (sizeof(T) == sizeof(float))
+        split_dots8_avx2(xs, ws, k, out);
+    else
+        split_dots4_avx2(xs, ws, k, out);
 }
 
 // y[i] = finish(0 + dots[i]) for a chunk of rows of a product with one
@@ -691,27 +689,39 @@ void dense_group(std::size_t rows, std::size_t count, const dense_group_args<T>&
             T* const* y = a.y + at;
             switch (version) {
 #if TENON_GEMM_X86
-                case small_dense_version::avx512:
-                    if (size == 4) dense_row_group_avx512<T, 4>(x, w, b, r, d, y, k, n);
-                    else if (size == 3) dense_row_group_avx512<T, 3>(x, w, b, r, d, y, k, n);
-                    else if (size == 2) dense_row_group_avx512<T, 2>(x, w, b, r, d, y, k, n);
-                    else dense_row_group_avx512<T, 1>(x, w, b, r, d, y, k, n);
-                    return true;
-                case small_dense_version::avx2:
-                    if (size == 4) dense_row_group_avx2<T, 4>(x, w, b, r, d, y, k, n);
-                    else if (size == 3) dense_row_group_avx2<T, 3>(x, w, b, r, d, y, k, n);
-                    else if (size == 2) dense_row_group_avx2<T, 2>(x, w, b, r, d, y, k, n);
-                    else dense_row_group_avx2<T, 1>(x, w, b, r, d, y, k, n);
-                    return true;
+            case small_dense_version::avx512:
+                if (size == 4)
+                    dense_row_group_avx512<T, 4>(x, w, b, r, d, y, k, n);
+                else if (size == 3)
+                    dense_row_group_avx512<T, 3>(x, w, b, r, d, y, k, n);
+                else if (size == 2)
+                    dense_row_group_avx512<T, 2>(x, w, b, r, d, y, k, n);
+                else
+                    dense_row_group_avx512<T, 1>(x, w, b, r, d, y, k, n);
+                return true;
+            case small_dense_version::avx2:
+                if (size == 4)
+                    dense_row_group_avx2<T, 4>(x, w, b, r, d, y, k, n);
+                else if (size == 3)
+                    dense_row_group_avx2<T, 3>(x, w, b, r, d, y, k, n);
+                else if (size == 2)
+                    dense_row_group_avx2<T, 2>(x, w, b, r, d, y, k, n);
+                else
+                    dense_row_group_avx2<T, 1>(x, w, b, r, d, y, k, n);
+                return true;
 #elif TENON_SIMD_NEON64
-                case small_dense_version::neon:
-                    if (size == 4) dense_row_group_neon<T, 4>(x, w, b, r, d, y, k, n);
-                    else if (size == 3) dense_row_group_neon<T, 3>(x, w, b, r, d, y, k, n);
-                    else if (size == 2) dense_row_group_neon<T, 2>(x, w, b, r, d, y, k, n);
-                    else dense_row_group_neon<T, 1>(x, w, b, r, d, y, k, n);
-                    return true;
+            case small_dense_version::neon:
+                if (size == 4)
+                    dense_row_group_neon<T, 4>(x, w, b, r, d, y, k, n);
+                else if (size == 3)
+                    dense_row_group_neon<T, 3>(x, w, b, r, d, y, k, n);
+                else if (size == 2)
+                    dense_row_group_neon<T, 2>(x, w, b, r, d, y, k, n);
+                else
+                    dense_row_group_neon<T, 1>(x, w, b, r, d, y, k, n);
+                return true;
 #endif
-                default: return false;
+            default: return false;
             }
         };
         const std::size_t groups = (count + 3) / 4;

@@ -32,7 +32,9 @@ inline void check_mpi(int status, const char* call) {
     char text[MPI_MAX_ERROR_STRING];
     int length = 0;
     if (MPI_Error_string(status, text, &length) != MPI_SUCCESS) length = 0;
-    raise(codes::distributed_mpi_failed, std::string(call) + " failed: " + (length > 0 ? std::string(text, static_cast<std::size_t>(length)) : std::string("error ") + std::to_string(status)));
+    raise(codes::distributed_mpi_failed,
+          std::string(call) +
+              " failed: " + (length > 0 ? std::string(text, static_cast<std::size_t>(length)) : std::string("error ") + std::to_string(status)));
 }
 
 inline int mpi_count(std::size_t n, const char* call) {
@@ -44,11 +46,17 @@ inline int mpi_count(std::size_t n, const char* call) {
 template <class T>
 MPI_Datatype mpi_type();
 template <>
-inline MPI_Datatype mpi_type<float>() { return MPI_FLOAT; }
+inline MPI_Datatype mpi_type<float>() {
+    return MPI_FLOAT;
+}
 template <>
-inline MPI_Datatype mpi_type<double>() { return MPI_DOUBLE; }
+inline MPI_Datatype mpi_type<double>() {
+    return MPI_DOUBLE;
+}
 template <>
-inline MPI_Datatype mpi_type<std::uint64_t>() { return MPI_UINT64_T; }
+inline MPI_Datatype mpi_type<std::uint64_t>() {
+    return MPI_UINT64_T;
+}
 
 }  // namespace detail
 
@@ -71,8 +79,10 @@ inline bool launched_by_mpi_launcher() {
     const bool running = MPI_Initialized(&initialized) == MPI_SUCCESS && initialized && MPI_Finalized(&finalized) == MPI_SUCCESS && !finalized;
     if (running && MPI_Comm_rank(MPI_COMM_WORLD, &rank) != MPI_SUCCESS) rank = -1;
     if (!message.empty()) {
-        if (rank >= 0) std::fprintf(stderr, "rank %d: %s\n", rank, message.c_str());
-        else std::fprintf(stderr, "%s\n", message.c_str());
+        if (rank >= 0)
+            std::fprintf(stderr, "rank %d: %s\n", rank, message.c_str());
+        else
+            std::fprintf(stderr, "%s\n", message.c_str());
     }
     std::fflush(stdout);
     std::fflush(stderr);
@@ -196,14 +206,14 @@ private:
         if (everywhere) {
             detail::check_mpi(MPI_Allgatherv(mine.data(), n, MPI_BYTE, all.data(), sizes.data(), offsets.data(), MPI_BYTE, comm_), "MPI_Allgatherv");
         } else {
-            detail::check_mpi(MPI_Gatherv(mine.data(), n, MPI_BYTE, all.data(), sizes.data(), offsets.data(), MPI_BYTE, static_cast<int>(root), comm_),
-                              "MPI_Gatherv");
+            detail::check_mpi(
+                MPI_Gatherv(mine.data(), n, MPI_BYTE, all.data(), sizes.data(), offsets.data(), MPI_BYTE, static_cast<int>(root), comm_),
+                "MPI_Gatherv");
         }
         std::vector<std::vector<std::uint8_t>> out;
         if (!receive) return out;
         out.reserve(size_);
-        for (std::size_t r = 0; r < size_; ++r)
-            out.emplace_back(all.begin() + offsets[r], all.begin() + offsets[r] + sizes[r]);
+        for (std::size_t r = 0; r < size_; ++r) out.emplace_back(all.begin() + offsets[r], all.begin() + offsets[r] + sizes[r]);
         return out;
     }
 

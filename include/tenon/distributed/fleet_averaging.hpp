@@ -79,7 +79,9 @@ struct fleet_contribution {
 template <class T>
 fleet_contribution<T> read_fleet_contribution(const std::vector<std::uint8_t>& bytes, const model_limits& limits = {}) {
     constexpr std::size_t header = 4 + 2 + 2 + 8 + 8 + 8 + 8, trailer = 4;
-    const auto fail = [&](const std::string& what) { raise(codes::distributed_fleet_bad_bytes, "fleet contribution (" + std::to_string(bytes.size()) + " bytes): " + what); };
+    const auto fail = [&](const std::string& what) {
+        raise(codes::distributed_fleet_bad_bytes, "fleet contribution (" + std::to_string(bytes.size()) + " bytes): " + what);
+    };
     if (bytes.size() < header + trailer) fail("shorter than its " + std::to_string(header + trailer) + "-byte envelope");
     if (bytes[0] != 'T' || bytes[1] != 'N' || bytes[2] != 'F' || bytes[3] != 'C') fail("does not start with the magic 'TNFC'");
     const std::uint32_t stored = detail::get_u32(bytes.data() + bytes.size() - trailer);
@@ -109,7 +111,7 @@ struct fleet_average_result {
     /// The incumbent's file with the averaged weights (parameters and state
     /// buffers), its plan, references and replay sample; no resume state.
     model_file<T> model;
-    std::uint64_t samples = 0;          // over the accepted contributions
+    std::uint64_t samples = 0;  // over the accepted contributions
     std::vector<std::size_t> accepted;  // positions in the given list
     std::vector<fleet_refusal> refused;
 };
@@ -170,8 +172,9 @@ fleet_average_result<T> average_fleet(const model_file<T>& incumbent, const std:
         kept.emplace_back(c.samples, std::move(c.model));
     }
     if (kept.empty())
-        raise(codes::distributed_fleet_no_contribution, "average_fleet: none of the " + std::to_string(contributions.size()) + " contributions was accepted" +
-                                                  (r.refused.empty() ? std::string() : " (first refusal: " + r.refused.front().reason + ")"));
+        raise(codes::distributed_fleet_no_contribution,
+              "average_fleet: none of the " + std::to_string(contributions.size()) + " contributions was accepted" +
+                  (r.refused.empty() ? std::string() : " (first refusal: " + r.refused.front().reason + ")"));
     const double total = static_cast<double>(r.samples);
     for (const auto& [samples, m] : kept) {
         const double share = static_cast<double>(samples) / total;
@@ -223,8 +226,9 @@ fleet_gate_report gate_fleet_average(const model_file<T>& incumbent, const model
     const bool classify = plan.target_type() == target_kind::classification;
     if (metric == gate_metric::automatic) metric = classify ? gate_metric::accuracy : gate_metric::rmse;
     if (classify == (metric == gate_metric::rmse))
-        raise(codes::deploy_retrain_option, std::string("gate_fleet_average: the metric ") + gate_metric_name(metric) + " does not fit a " +
-                                                (classify ? "classification" : "regression") + " target");
+        raise(codes::deploy_retrain_option,
+              std::string("gate_fleet_average: the metric ") + gate_metric_name(metric) + " does not fit a " +
+                  (classify ? "classification" : "regression") + " target");
     const prepared_rows<T> rows = plan.template apply<T>(holdout, all_rows(holdout.row_count()));
     if (rows.rows.empty()) raise(codes::deploy_retrain_too_few_rows, "gate_fleet_average: the holdout has no row with a target");
     network<T> a = rebuild_network(incumbent), b = rebuild_network(averaged);

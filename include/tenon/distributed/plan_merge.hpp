@@ -60,8 +60,7 @@ public:
         return out;
     }
 
-    std::vector<std::pair<std::string, std::uint64_t>> merge_named_counts(
-        const std::vector<std::pair<std::string, std::uint64_t>>& local) override {
+    std::vector<std::pair<std::string, std::uint64_t>> merge_named_counts(const std::vector<std::pair<std::string, std::uint64_t>>& local) override {
         std::vector<std::uint8_t> mine;
         byte_writer w(mine);
         w.u64(local.size());
@@ -81,8 +80,10 @@ public:
         std::sort(all.begin(), all.end());
         std::vector<std::pair<std::string, std::uint64_t>> out;
         for (auto& kv : all) {
-            if (!out.empty() && out.back().first == kv.first) out.back().second += kv.second;
-            else out.push_back(std::move(kv));
+            if (!out.empty() && out.back().first == kv.first)
+                out.back().second += kv.second;
+            else
+                out.push_back(std::move(kv));
         }
         return out;
     }

@@ -14,22 +14,21 @@
 
 TENON_NAMESPACE_BEGIN
 
-
 /// Records activation `a` of x on x's tape.
 template <class T>
 var<T> activate(var<T> x, activation a, T coefficient) {
     switch (a) {
-        case activation::identity: return x;
-        case activation::tanh: return tanh(x);
-        case activation::sigmoid: return sigmoid(x);
-        case activation::relu: return relu(x);
-        case activation::leaky_relu: return leaky_relu(x, coefficient);
-        case activation::elu: return elu(x, coefficient);
-        case activation::softplus: return softplus(x);
-        case activation::gelu: return gelu(x);
-        case activation::gelu_tanh: return gelu_tanh(x);
-        case activation::softmax: return exp(log_softmax_rows(x));
-        case activation::log_softmax: return log_softmax_rows(x);
+    case activation::identity: return x;
+    case activation::tanh: return tanh(x);
+    case activation::sigmoid: return sigmoid(x);
+    case activation::relu: return relu(x);
+    case activation::leaky_relu: return leaky_relu(x, coefficient);
+    case activation::elu: return elu(x, coefficient);
+    case activation::softplus: return softplus(x);
+    case activation::gelu: return gelu(x);
+    case activation::gelu_tanh: return gelu_tanh(x);
+    case activation::softmax: return exp(log_softmax_rows(x));
+    case activation::log_softmax: return log_softmax_rows(x);
     }
     return x;
 }
@@ -40,14 +39,12 @@ public:
     explicit activation_layer(activation a) : activation_layer(a, default_coefficient(a)) {}
     activation_layer(activation a, double coefficient) : activation_(a), coefficient_(coefficient) {
         if (!std::isfinite(coefficient)) {
-            raise(codes::model_layer_option, std::string("activation layer (") + activation_name(a) +
-                                                 "): the coefficient must be finite, got " + std::to_string(coefficient));
+            raise(codes::model_layer_option,
+                  std::string("activation layer (") + activation_name(a) + "): the coefficient must be finite, got " + std::to_string(coefficient));
         }
     }
 
-    var<T> forward(tape<T>&, var<T> input, run_mode) override {
-        return activate(input, activation_, static_cast<T>(coefficient_));
-    }
+    var<T> forward(tape<T>&, var<T> input, run_mode) override { return activate(input, activation_, static_cast<T>(coefficient_)); }
 
     const char* kind() const noexcept override { return "activation"; }
 

@@ -18,18 +18,18 @@ class dense : public layer<T> {
 public:
     /// A layer with zero weights (to be initialized or loaded).
     dense(std::size_t inputs, std::size_t outputs, bool with_bias = true)
-        : inputs_(inputs), outputs_(outputs), with_bias_(with_bias),
-          weights_("weights", shape2{inputs, outputs}), bias_("bias", shape2{1, with_bias ? outputs : 0}) {
+        : inputs_(inputs), outputs_(outputs), with_bias_(with_bias), weights_("weights", shape2{inputs, outputs}),
+          bias_("bias", shape2{1, with_bias ? outputs : 0}) {
         if (inputs == 0 || outputs == 0) {
-            raise(codes::model_layer_option, "dense layer: inputs and outputs must be positive, got " + std::to_string(inputs) +
-                                                 " x " + std::to_string(outputs));
+            raise(codes::model_layer_option,
+                  "dense layer: inputs and outputs must be positive, got " + std::to_string(inputs) + " x " + std::to_string(outputs));
         }
         renamed();
     }
 
     /// A layer whose weights and bias are drawn by the given initializers.
-    dense(std::size_t inputs, std::size_t outputs, random_engine& engine, initializer weights_init = {},
-          initializer bias_init = {init_scheme::zeros}, bool with_bias = true)
+    dense(std::size_t inputs, std::size_t outputs, random_engine& engine, initializer weights_init = {}, initializer bias_init = {init_scheme::zeros},
+          bool with_bias = true)
         : dense(inputs, outputs, with_bias) {
         initialize_weights(engine, weights_init, bias_init);
     }

@@ -51,11 +51,11 @@ struct initializer {
 
 inline const char* to_string(init_scheme s) noexcept {
     switch (s) {
-        case init_scheme::zeros: return "zeros";
-        case init_scheme::constant: return "constant";
-        case init_scheme::glorot: return "glorot";
-        case init_scheme::he: return "he";
-        case init_scheme::lecun: return "lecun";
+    case init_scheme::zeros: return "zeros";
+    case init_scheme::constant: return "constant";
+    case init_scheme::glorot: return "glorot";
+    case init_scheme::he: return "he";
+    case init_scheme::lecun: return "lecun";
     }
     return "unknown";
 }
@@ -64,8 +64,8 @@ inline const char* init_scheme_name(init_scheme v) noexcept { return to_string(v
 
 inline const char* to_string(init_distribution d) noexcept {
     switch (d) {
-        case init_distribution::uniform: return "uniform";
-        case init_distribution::normal: return "normal";
+    case init_distribution::uniform: return "uniform";
+    case init_distribution::normal: return "normal";
     }
     return "unknown";
 }
@@ -75,7 +75,8 @@ inline const char* init_distribution_name(init_distribution d) noexcept { return
 /// The method with the given name; raises model.record.unknown_kind otherwise.
 inline init_scheme parse_init_scheme(const std::string& name) {
     init_scheme v{};
-    if (!enum_from_text(name, v)) raise(codes::model_record_unknown_kind, "initializer '" + name + "' is not known (" + enum_choices<init_scheme>() + ")");
+    if (!enum_from_text(name, v))
+        raise(codes::model_record_unknown_kind, "initializer '" + name + "' is not known (" + enum_choices<init_scheme>() + ")");
     return v;
 }
 
@@ -98,10 +99,10 @@ inline initializer parse_initializer(const std::string& name, const std::string&
 inline double init_variance(init_scheme s, std::size_t fan_in, std::size_t fan_out) noexcept {
     const double in = static_cast<double>(fan_in), out = static_cast<double>(fan_out);
     switch (s) {
-        case init_scheme::glorot: return in + out > 0 ? 2.0 / (in + out) : 0.0;
-        case init_scheme::he: return in > 0 ? 2.0 / in : 0.0;
-        case init_scheme::lecun: return in > 0 ? 1.0 / in : 0.0;
-        default: return 0.0;
+    case init_scheme::glorot: return in + out > 0 ? 2.0 / (in + out) : 0.0;
+    case init_scheme::he: return in > 0 ? 2.0 / in : 0.0;
+    case init_scheme::lecun: return in > 0 ? 1.0 / in : 0.0;
+    default: return 0.0;
     }
 }
 
@@ -114,13 +115,15 @@ void initialize(matrix<T>& m, const initializer& init, std::size_t fan_in, std::
     const std::size_t n = m.size();
     const double variance = init_variance(init.scheme, fan_in, fan_out);
     switch (init.scheme) {
-        case init_scheme::zeros:
-            for (std::size_t k = 0; k < n; ++k) p[k] = T(0);
-            return;
-        case init_scheme::constant:
-            for (std::size_t k = 0; k < n; ++k) p[k] = static_cast<T>(init.value);
-            return;
-        case init_scheme::glorot: case init_scheme::he: case init_scheme::lecun: break;
+    case init_scheme::zeros:
+        for (std::size_t k = 0; k < n; ++k) p[k] = T(0);
+        return;
+    case init_scheme::constant:
+        for (std::size_t k = 0; k < n; ++k) p[k] = static_cast<T>(init.value);
+        return;
+    case init_scheme::glorot:
+    case init_scheme::he:
+    case init_scheme::lecun: break;
     }
     if (init.distribution == init_distribution::uniform) {
         // Drawn in double and rounded once, so float and double weights

@@ -26,7 +26,6 @@ TENON_NAMESPACE_BEGIN
 /// population estimates and passes values through dropout unchanged.
 enum class run_mode : std::uint8_t { training, inference };
 
-
 /// The interface every layer implements.
 template <class T>
 class layer {
@@ -92,8 +91,9 @@ protected:
     /// Raises core.shape.mismatch unless the input has `expected` columns.
     void require_width(std::size_t actual, std::size_t expected) const {
         if (actual != expected) {
-            raise(codes::core_shape_mismatch, std::string(kind()) + " layer '" + qualified_name() + "' input: expected " +
-                                             std::to_string(expected) + " columns, got " + std::to_string(actual));
+            raise(codes::core_shape_mismatch,
+                  std::string(kind()) + " layer '" + qualified_name() + "' input: expected " + std::to_string(expected) + " columns, got " +
+                      std::to_string(actual));
         }
     }
 

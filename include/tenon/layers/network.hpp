@@ -83,8 +83,8 @@ public:
     std::size_t size() const noexcept { return layers_.size(); }
     layer<T>& at(std::size_t i) {
         if (i >= layers_.size()) {
-            raise(codes::core_argument_invalid, "layer index " + std::to_string(i) + " is out of range (" +
-                                               std::to_string(layers_.size()) + " layers)");
+            raise(codes::core_argument_invalid,
+                  "layer index " + std::to_string(i) + " is out of range (" + std::to_string(layers_.size()) + " layers)");
         }
         return *layers_[i];
     }
@@ -122,12 +122,12 @@ private:
         if (typeid(previous) != typeid(dense<T>) || typeid(last) != typeid(activation_layer<T>)) return f;
         const auto& a = static_cast<const activation_layer<T>&>(last);
         switch (a.function()) {
-            case activation::relu: f.unit = op_kind::relu; break;
-            case activation::leaky_relu: f.unit = op_kind::leaky_relu; break;
-            case activation::elu: f.unit = op_kind::elu; break;
-            case activation::tanh: f.unit = op_kind::tanh; break;
-            case activation::sigmoid: f.unit = op_kind::sigmoid; break;
-            default: return f;
+        case activation::relu: f.unit = op_kind::relu; break;
+        case activation::leaky_relu: f.unit = op_kind::leaky_relu; break;
+        case activation::elu: f.unit = op_kind::elu; break;
+        case activation::tanh: f.unit = op_kind::tanh; break;
+        case activation::sigmoid: f.unit = op_kind::sigmoid; break;
+        default: return f;
         }
         f.coefficient = static_cast<T>(a.coefficient());
         f.fused = tape<T>::fusable_activation(f.unit, f.coefficient);
@@ -203,8 +203,8 @@ class linear_bypass : public layer<T> {
 public:
     linear_bypass(std::size_t inputs, std::size_t outputs) : inputs_(inputs), outputs_(outputs), linear_("linear_weights", shape2{inputs, outputs}) {
         if (inputs == 0 || outputs == 0) {
-            raise(codes::model_layer_option, "linear bypass: inputs and outputs must be positive, got " + std::to_string(inputs) + " x " +
-                                                 std::to_string(outputs));
+            raise(codes::model_layer_option,
+                  "linear bypass: inputs and outputs must be positive, got " + std::to_string(inputs) + " x " + std::to_string(outputs));
         }
         renamed();
     }
@@ -221,7 +221,8 @@ public:
     var<T> forward(tape<T>& t, var<T> x, run_mode mode) override {
         this->require_width(x.shape().cols, inputs_);
         const var<T> fx = chain_.forward(t, x, mode);
-        if (fx.shape().cols != outputs_) require_shape(fx.shape(), shape2{x.shape().rows, outputs_}, "linear bypass '" + this->qualified_name() + "' inner output");
+        if (fx.shape().cols != outputs_)
+            require_shape(fx.shape(), shape2{x.shape().rows, outputs_}, "linear bypass '" + this->qualified_name() + "' inner output");
         return fx + matmul(x, t.track(linear_));
     }
 
@@ -268,7 +269,6 @@ private:
     parameter<T> linear_;
 };
 
-
 template <class T>
 class network {
     TENON_REQUIRE_SCALAR(T);
@@ -282,9 +282,7 @@ public:
 
     /// Appends a layer; an empty name becomes kind + position ("dense1").
     /// Names must be unique within the network and must not contain '.'.
-    layer<T>& add(std::unique_ptr<layer<T>> l, std::string name = {}) {
-        return chain_.add(std::move(l), std::move(name), std::string(), "network");
-    }
+    layer<T>& add(std::unique_ptr<layer<T>> l, std::string name = {}) { return chain_.add(std::move(l), std::move(name), std::string(), "network"); }
     template <class L, class = std::enable_if_t<std::is_base_of_v<layer<T>, std::decay_t<L>>>>
     std::decay_t<L>& add(L&& l, std::string name = {}) {
         return static_cast<std::decay_t<L>&>(add(std::make_unique<std::decay_t<L>>(std::forward<L>(l)), std::move(name)));
@@ -357,8 +355,10 @@ public:
     /// The parameter or state buffer with the given qualified name; raises
     /// model.network.unknown_parameter.
     parameter<T>& find(const std::string& name) {
-        for (auto* p : parameters()) if (p->name() == name) return *p;
-        for (auto* p : state_buffers()) if (p->name() == name) return *p;
+        for (auto* p : parameters())
+            if (p->name() == name) return *p;
+        for (auto* p : state_buffers())
+            if (p->name() == name) return *p;
         raise(codes::model_network_unknown_parameter, "network: no parameter or state buffer is named '" + name + "'");
     }
 
@@ -384,15 +384,15 @@ public:
     void restore(const network_snapshot<T>& s) {
         const std::size_t n = parameters().size() + state_buffers().size();
         if (s.values.size() != n) {
-            raise(codes::model_network_snapshot_mismatch, "network restore: the snapshot holds " + std::to_string(s.values.size()) +
-                                                      " matrices, the network has " + std::to_string(n));
+            raise(codes::model_network_snapshot_mismatch,
+                  "network restore: the snapshot holds " + std::to_string(s.values.size()) + " matrices, the network has " + std::to_string(n));
         }
         for (std::size_t i = 0; i < n; ++i) {
             parameter<T>* p = i < parameters_.size() ? parameters_[i] : state_[i - parameters_.size()];
             if (shape_of(s.values[i]) != p->shape()) {
-                raise(codes::model_network_snapshot_mismatch, "network restore: snapshot entry " + std::to_string(i) + " has shape " +
-                                                          to_string(shape_of(s.values[i])) + ", parameter '" + p->name() +
-                                                          "' has " + to_string(p->shape()));
+                raise(codes::model_network_snapshot_mismatch,
+                      "network restore: snapshot entry " + std::to_string(i) + " has shape " + to_string(shape_of(s.values[i])) + ", parameter '" +
+                          p->name() + "' has " + to_string(p->shape()));
             }
         }
         for (std::size_t i = 0; i < n; ++i) {
@@ -444,13 +444,13 @@ std::unique_ptr<layer<T>> make_layer(const layer_record& r) {
         for (const auto& c : r.children) block->add(make_layer<T>(c), c.name);
         l = std::move(block);
     } else {
-        raise(codes::model_record_unknown_kind, "layer record '" + r.name + "': kind '" + r.kind +
-                                             "' is not known (dense, activation, dropout, layer_norm, batch_norm, residual, linear_bypass)");
+        raise(codes::model_record_unknown_kind,
+              "layer record '" + r.name + "': kind '" + r.kind +
+                  "' is not known (dense, activation, dropout, layer_norm, batch_norm, residual, linear_bypass)");
     }
     l->set_name(r.name);
     return l;
 }
-
 
 /// Rebuilds a network from the record network::describe() gave.
 template <class T>

@@ -84,7 +84,6 @@ private:
     parameter<T> bias_;
 };
 
-
 template <class T>
 class batch_norm : public layer<T> {
 public:
@@ -112,9 +111,9 @@ public:
             return (x - t.track(population_mean_)) * inv_std * t.track(gain_) + t.track(bias_);
         }
         if (s.rows < 2) {
-            raise(codes::model_batch_norm_batch_too_small, "batch normalization '" + this->qualified_name() +
-                                                    "' in training mode: a batch of " + std::to_string(s.rows) +
-                                                    " row(s) has no variance; use at least 2 rows or inference mode");
+            raise(codes::model_batch_norm_batch_too_small,
+                  "batch normalization '" + this->qualified_name() + "' in training mode: a batch of " + std::to_string(s.rows) +
+                      " row(s) has no variance; use at least 2 rows or inference mode");
         }
         const var<T> batch_mean = mean(x, 0);
         const var<T> centred = x - batch_mean;

@@ -30,14 +30,14 @@ void check_distribution_rows(const char* loss, const matrix<T>& p) {
         for (std::size_t j = 0; j < cols; ++j) {
             const T v = p.data()[i * cols + j];
             if (!(v >= T(0) && v <= T(1))) {
-                raise(codes::model_loss_target, loss_where(loss) + ": target row " + std::to_string(i) + ", column " +
-                                                    std::to_string(j) + " is " + std::to_string(v) + ", not a probability");
+                raise(codes::model_loss_target,
+                      loss_where(loss) + ": target row " + std::to_string(i) + ", column " + std::to_string(j) + " is " + std::to_string(v) +
+                          ", not a probability");
             }
             total += static_cast<double>(v);
         }
         if (std::abs(total - 1.0) > 1e-4) {
-            raise(codes::model_loss_target, loss_where(loss) + ": target row " + std::to_string(i) + " sums to " +
-                                                std::to_string(total) + ", not 1");
+            raise(codes::model_loss_target, loss_where(loss) + ": target row " + std::to_string(i) + " sums to " + std::to_string(total) + ", not 1");
         }
     }
 }
@@ -56,14 +56,14 @@ var<T> cross_entropy_loss(tape<T>& t, var<T> logits, const std::vector<std::size
     const char* name = "cross-entropy";
     const shape2 s = logits.shape();
     if (labels.size() != s.rows) {
-        raise(codes::core_shape_mismatch, std::string(name) + " loss: " + std::to_string(labels.size()) + " labels for " +
-                                         std::to_string(s.rows) + " rows of logits");
+        raise(codes::core_shape_mismatch,
+              std::string(name) + " loss: " + std::to_string(labels.size()) + " labels for " + std::to_string(s.rows) + " rows of logits");
     }
     for (std::size_t i = 0; i < s.rows; ++i) {
         if (labels[i] >= s.cols) {
-            raise(codes::model_loss_label_range, std::string(name) + " loss: label " + std::to_string(labels[i]) + " at row " +
-                                                std::to_string(i) + " is not below the number of classes (" +
-                                                std::to_string(s.cols) + ")");
+            raise(codes::model_loss_label_range,
+                  std::string(name) + " loss: label " + std::to_string(labels[i]) + " at row " + std::to_string(i) +
+                      " is not below the number of classes (" + std::to_string(s.cols) + ")");
         }
     }
     detail::check_sample_weights(name, options, s.rows);
@@ -141,8 +141,9 @@ var<T> binary_cross_entropy_loss(tape<T>& t, var<T> logits, const matrix<T>& tar
     for (std::size_t k = 0; k < targets.size(); ++k) {
         const T y = targets.data()[k];
         if (!(y >= T(0) && y <= T(1))) {
-            raise(codes::model_loss_target, std::string(name) + " loss: target row " + std::to_string(k / s.cols) + ", column " +
-                                                std::to_string(k % s.cols) + " is " + std::to_string(y) + ", not in [0, 1]");
+            raise(codes::model_loss_target,
+                  std::string(name) + " loss: target row " + std::to_string(k / s.cols) + ", column " + std::to_string(k % s.cols) + " is " +
+                      std::to_string(y) + ", not in [0, 1]");
         }
     }
     detail::check_sample_weights(name, options, s.rows);

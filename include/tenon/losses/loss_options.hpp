@@ -66,14 +66,15 @@ template <class T>
 void check_sample_weights(const char* loss, const loss_options<T>& o, std::size_t rows) {
     if (o.sample_weights.empty()) return;
     if (o.sample_weights.size() != rows) {
-        raise(codes::model_loss_weights, loss_where(loss) + ": " + std::to_string(o.sample_weights.size()) +
-                                             " sample weights for " + std::to_string(rows) + " rows");
+        raise(codes::model_loss_weights,
+              loss_where(loss) + ": " + std::to_string(o.sample_weights.size()) + " sample weights for " + std::to_string(rows) + " rows");
     }
     for (std::size_t i = 0; i < rows; ++i) {
         const T w = o.sample_weights[i];
         if (!(w >= T(0)) || !std::isfinite(w)) {
-            raise(codes::model_loss_weights, loss_where(loss) + ": sample weight " + std::to_string(i) + " is " +
-                                                 std::to_string(w) + "; weights must be finite and non-negative");
+            raise(codes::model_loss_weights,
+                  loss_where(loss) + ": sample weight " + std::to_string(i) + " is " + std::to_string(w) +
+                      "; weights must be finite and non-negative");
         }
     }
 }
@@ -82,14 +83,15 @@ template <class T>
 void check_class_weights(const char* loss, const loss_options<T>& o, std::size_t classes) {
     if (o.class_weights.empty()) return;
     if (o.class_weights.size() != classes) {
-        raise(codes::model_loss_weights, loss_where(loss) + ": " + std::to_string(o.class_weights.size()) +
-                                             " class weights for " + std::to_string(classes) + " classes");
+        raise(codes::model_loss_weights,
+              loss_where(loss) + ": " + std::to_string(o.class_weights.size()) + " class weights for " + std::to_string(classes) + " classes");
     }
     for (std::size_t j = 0; j < classes; ++j) {
         const T w = o.class_weights[j];
         if (!(w >= T(0)) || !std::isfinite(w)) {
-            raise(codes::model_loss_weights, loss_where(loss) + ": class weight " + std::to_string(j) + " is " +
-                                                 std::to_string(w) + "; weights must be finite and non-negative");
+            raise(codes::model_loss_weights,
+                  loss_where(loss) + ": class weight " + std::to_string(j) + " is " + std::to_string(w) +
+                      "; weights must be finite and non-negative");
         }
     }
 }
@@ -97,8 +99,7 @@ void check_class_weights(const char* loss, const loss_options<T>& o, std::size_t
 template <class T>
 void check_smoothing(const char* loss, const loss_options<T>& o) {
     if (!(o.label_smoothing >= T(0) && o.label_smoothing < T(1))) {
-        raise(codes::model_loss_option, loss_where(loss) + ": label smoothing must be in [0, 1), got " +
-                                            std::to_string(o.label_smoothing));
+        raise(codes::model_loss_option, loss_where(loss) + ": label smoothing must be in [0, 1), got " + std::to_string(o.label_smoothing));
     }
 }
 

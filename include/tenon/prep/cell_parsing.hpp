@@ -23,8 +23,7 @@ TENON_NAMESPACE_BEGIN
 /// commonly write for one (common practice, not a standard). The tool reads
 /// with this list too, so a host's plan and `tenon train`'s are the same.
 inline std::vector<std::string> default_missing_tokens() {
-    return {"",     "NA",   "N/A",  "NaN", "null", "NULL", "?",  "n/a",  "na",
-            "nan",  "NAN",  "none", "None", "NONE", "-",   "--", "#N/A", "missing"};
+    return {"", "NA", "N/A", "NaN", "null", "NULL", "?", "n/a", "na", "nan", "NAN", "none", "None", "NONE", "-", "--", "#N/A", "missing"};
 }
 
 namespace detail {
@@ -123,14 +122,14 @@ enum class time_format : std::uint8_t {
 /// The form's name as reports, plans and the tool's --time-format spell it.
 inline const char* to_string(time_format form) noexcept {
     switch (form) {
-        case time_format::detect: return "detect";
-        case time_format::iso: return "YYYY-MM-DD";
-        case time_format::year_slash: return "YYYY/MM/DD";
-        case time_format::day_dot: return "DD.MM.YYYY";
-        case time_format::day_slash: return "DD/MM/YYYY";
-        case time_format::month_slash: return "MM/DD/YYYY";
-        case time_format::epoch_seconds: return "epoch-seconds";
-        case time_format::epoch_milliseconds: return "epoch-milliseconds";
+    case time_format::detect: return "detect";
+    case time_format::iso: return "YYYY-MM-DD";
+    case time_format::year_slash: return "YYYY/MM/DD";
+    case time_format::day_dot: return "DD.MM.YYYY";
+    case time_format::day_slash: return "DD/MM/YYYY";
+    case time_format::month_slash: return "MM/DD/YYYY";
+    case time_format::epoch_seconds: return "epoch-seconds";
+    case time_format::epoch_milliseconds: return "epoch-milliseconds";
     }
     return "unknown";
 }
@@ -268,29 +267,26 @@ inline bool parse_ordered(std::string_view s, char separator, const char (&order
 inline bool parse_datetime(std::string_view cell, time_format form, double& out) noexcept {
     const std::string_view s = detail::trim_blanks(cell);
     switch (form) {
-        case time_format::detect:
-            return detail::parse_iso(s, out) || detail::parse_ordered(s, '/', "ymd", out) ||
-                   detail::parse_ordered(s, '.', "dmy", out);
-        case time_format::iso: return detail::parse_iso(s, out);
-        case time_format::year_slash: return detail::parse_ordered(s, '/', "ymd", out);
-        case time_format::day_dot: return detail::parse_ordered(s, '.', "dmy", out);
-        case time_format::day_slash: return detail::parse_ordered(s, '/', "dmy", out);
-        case time_format::month_slash: return detail::parse_ordered(s, '/', "mdy", out);
-        case time_format::epoch_seconds:
-        case time_format::epoch_milliseconds: {
-            double v = 0;
-            if (!parse_number(s, v)) return false;
-            out = form == time_format::epoch_seconds ? v : v / 1000.0;
-            return true;
-        }
+    case time_format::detect:
+        return detail::parse_iso(s, out) || detail::parse_ordered(s, '/', "ymd", out) || detail::parse_ordered(s, '.', "dmy", out);
+    case time_format::iso: return detail::parse_iso(s, out);
+    case time_format::year_slash: return detail::parse_ordered(s, '/', "ymd", out);
+    case time_format::day_dot: return detail::parse_ordered(s, '.', "dmy", out);
+    case time_format::day_slash: return detail::parse_ordered(s, '/', "dmy", out);
+    case time_format::month_slash: return detail::parse_ordered(s, '/', "mdy", out);
+    case time_format::epoch_seconds:
+    case time_format::epoch_milliseconds: {
+        double v = 0;
+        if (!parse_number(s, v)) return false;
+        out = form == time_format::epoch_seconds ? v : v / 1000.0;
+        return true;
+    }
     }
     return false;
 }
 
 /// parse_datetime with time_format::detect.
-inline bool parse_datetime(std::string_view cell, double& out) noexcept {
-    return parse_datetime(cell, time_format::detect, out);
-}
+inline bool parse_datetime(std::string_view cell, double& out) noexcept { return parse_datetime(cell, time_format::detect, out); }
 
 /// The shortest text that reads back as exactly `value` (used for class
 /// names of numeric label columns, e.g. 3.0 -> "3").

@@ -27,16 +27,16 @@ TENON_NAMESPACE_BEGIN
 enum class screening_reason : std::uint8_t {
     distinct_values = 0,  // a categorical column whose values are nearly all distinct
     identifier_name = 1,  // the name reads as an identifier and the column holds many values
-    counter = 2,          // whole numbers rising (or falling) on every row
+    counter = 2,  // whole numbers rising (or falling) on every row
     many_categories = 3,  // more categories than a share of the rows (a warning only)
 };
 
 inline const char* to_string(screening_reason reason) noexcept {
     switch (reason) {
-        case screening_reason::distinct_values: return "distinct_values";
-        case screening_reason::identifier_name: return "identifier_name";
-        case screening_reason::counter: return "counter";
-        case screening_reason::many_categories: return "many_categories";
+    case screening_reason::distinct_values: return "distinct_values";
+    case screening_reason::identifier_name: return "identifier_name";
+    case screening_reason::counter: return "counter";
+    case screening_reason::many_categories: return "many_categories";
     }
     return "unknown";
 }
@@ -64,20 +64,19 @@ struct screening_finding {
     std::string column;
     screening_reason reason;
     std::size_t distinct = 0;  // distinct present values
-    std::size_t present = 0;   // cells that are not missing
+    std::size_t present = 0;  // cells that are not missing
     /// True for the identifier reasons: the column should not be a feature.
     bool identifier() const noexcept { return reason != screening_reason::many_categories; }
     /// One sentence for a person, without the column's name.
     std::string explanation() const {
         const std::string counts = std::to_string(distinct) + " distinct values in " + std::to_string(present) + " rows";
         switch (reason) {
-            case screening_reason::distinct_values: return counts + ": nearly every value is distinct, as in an identifier";
-            case screening_reason::identifier_name: return "its name reads as an identifier, and it holds " + counts;
-            case screening_reason::counter: return "whole numbers that rise (or fall) on every row, as a counter does";
-            case screening_reason::many_categories:
-                return std::to_string(distinct) + " categories in " + std::to_string(present) +
-                       " rows, about " + std::to_string(present / (distinct ? distinct : 1)) +
-                       " rows per category: each one-hot input is learned from few rows";
+        case screening_reason::distinct_values: return counts + ": nearly every value is distinct, as in an identifier";
+        case screening_reason::identifier_name: return "its name reads as an identifier, and it holds " + counts;
+        case screening_reason::counter: return "whole numbers that rise (or fall) on every row, as a counter does";
+        case screening_reason::many_categories:
+            return std::to_string(distinct) + " categories in " + std::to_string(present) + " rows, about " +
+                std::to_string(present / (distinct ? distinct : 1)) + " rows per category: each one-hot input is learned from few rows";
         }
         return counts;
     }
@@ -110,8 +109,7 @@ inline std::vector<std::string> name_words(std::string_view name) {
 /// group columns, columns the host already decided on). For each column at
 /// most one finding: the first identifier reason that holds (distinct
 /// values, name, counter), else many_categories.
-inline std::vector<screening_finding> screen_columns(const table& t, const screening_rules& rules = {},
-                                                     const std::vector<std::string>& skip = {}) {
+inline std::vector<screening_finding> screen_columns(const table& t, const screening_rules& rules = {}, const std::vector<std::string>& skip = {}) {
     std::vector<screening_finding> findings;
     for (std::size_t k = 0; k < t.column_count(); ++k) {
         const column& c = t[k];

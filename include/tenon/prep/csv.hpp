@@ -106,8 +106,8 @@ private:
             if (filled_ == 0) return -1;
             if (first_chunk_) {
                 first_chunk_ = false;
-                if (filled_ >= 3 && static_cast<unsigned char>(chunk_[0]) == 0xEF &&
-                    static_cast<unsigned char>(chunk_[1]) == 0xBB && static_cast<unsigned char>(chunk_[2]) == 0xBF)
+                if (filled_ >= 3 && static_cast<unsigned char>(chunk_[0]) == 0xEF && static_cast<unsigned char>(chunk_[1]) == 0xBB &&
+                    static_cast<unsigned char>(chunk_[2]) == 0xBF)
                     position_ = 3;
                 if (position_ == filled_) return get();
             }
@@ -121,13 +121,12 @@ private:
     }
 
     [[noreturn]] void fail(const char* code, const std::string& message) const {
-        raise(code, source_ + " line " + std::to_string(record_line_) + " column " + std::to_string(ends_.size() + 1) +
-                        ": " + message);
+        raise(code, source_ + " line " + std::to_string(record_line_) + " column " + std::to_string(ends_.size() + 1) + ": " + message);
     }
 
     [[noreturn]] void field_too_long() const {
-        fail(codes::prep_csv_oversize, "a field longer than the limit of " + std::to_string(max_field_bytes_) +
-                                           " bytes (csv_options::max_field_bytes)");
+        fail(codes::prep_csv_oversize,
+             "a field longer than the limit of " + std::to_string(max_field_bytes_) + " bytes (csv_options::max_field_bytes)");
     }
 
     bool read_record() {
@@ -155,8 +154,10 @@ private:
                         }
                         break;
                     }
-                    if (c == '\n') ++line_;
-                    else if (c == '\r' && peek() != '\n') ++line_;
+                    if (c == '\n')
+                        ++line_;
+                    else if (c == '\r' && peek() != '\n')
+                        ++line_;
                     if (text_.size() == field_limit) field_too_long();
                     text_.push_back(static_cast<char>(c));
                 }
@@ -244,9 +245,9 @@ inline std::vector<std::string> read_header(csv_record_reader& reader) {
         std::string name(trim_blanks(reader.field(k)));
         for (const auto& earlier : names)
             if (earlier == name)
-                raise(codes::prep_csv_duplicate_column, reader.source() + " line " + std::to_string(reader.line()) +
-                                                            " column " + std::to_string(k + 1) + ": the name '" + name +
-                                                            "' is used twice in the header");
+                raise(codes::prep_csv_duplicate_column,
+                      reader.source() + " line " + std::to_string(reader.line()) + " column " + std::to_string(k + 1) + ": the name '" + name +
+                          "' is used twice in the header");
         names.push_back(std::move(name));
     }
     return names;
@@ -254,8 +255,9 @@ inline std::vector<std::string> read_header(csv_record_reader& reader) {
 
 inline void require_field_count(const csv_record_reader& reader, std::size_t expected) {
     if (reader.field_count() != expected)
-        raise(codes::prep_csv_ragged, reader.source() + " line " + std::to_string(reader.line()) + ": expected " +
-                                          std::to_string(expected) + " fields, found " + std::to_string(reader.field_count()));
+        raise(codes::prep_csv_ragged,
+              reader.source() + " line " + std::to_string(reader.line()) + ": expected " + std::to_string(expected) + " fields, found " +
+                  std::to_string(reader.field_count()));
 }
 }  // namespace detail
 
@@ -277,12 +279,12 @@ inline void for_each_csv_record(std::istream& in, const csv_options& options, co
 /// What one streaming pass learns about a column, without keeping the rows.
 struct column_summary {
     std::string name;
-    std::size_t present = 0;         // cells that are not missing
-    std::size_t missing = 0;         // cells equal to a missing token
-    std::size_t numeric_cells = 0;   // present cells that read as a finite number
+    std::size_t present = 0;  // cells that are not missing
+    std::size_t missing = 0;  // cells equal to a missing token
+    std::size_t numeric_cells = 0;  // present cells that read as a finite number
     std::size_t datetime_cells = 0;  // present cells that read as a date/time
-    running_moments numbers;         // over the numeric cells
-    running_moments times;           // over the date/time cells (seconds since the epoch)
+    running_moments numbers;  // over the numeric cells
+    running_moments times;  // over the date/time cells (seconds since the epoch)
     /// Counts per distinct text, up to the summary's category limit.
     std::map<std::string, std::size_t> category_counts;
     /// True when more distinct texts were seen than the limit kept.
@@ -301,8 +303,7 @@ struct column_summary {
 /// chunk, one record and at most `max_categories` texts per column, so files
 /// larger than memory can be measured. Quantiles need read_csv and
 /// column_quartiles (exact, in memory).
-inline std::vector<column_summary> summarize_csv(std::istream& in, const csv_options& options = {},
-                                                 const std::string& source = "<stream>",
+inline std::vector<column_summary> summarize_csv(std::istream& in, const csv_options& options = {}, const std::string& source = "<stream>",
                                                  std::size_t max_categories = 65536) {
     detail::require_dialect(options, source);
     std::vector<column_summary> summaries;
@@ -332,16 +333,18 @@ inline std::vector<column_summary> summarize_csv(std::istream& in, const csv_opt
                 }
                 key.assign(detail::trim_blanks(cell));
                 auto it = s.category_counts.find(key);
-                if (it != s.category_counts.end()) ++it->second;
-                else if (s.category_counts.size() < max_categories) s.category_counts.emplace(key, 1);
-                else s.categories_truncated = true;
+                if (it != s.category_counts.end())
+                    ++it->second;
+                else if (s.category_counts.size() < max_categories)
+                    s.category_counts.emplace(key, 1);
+                else
+                    s.categories_truncated = true;
             }
         });
     return summaries;
 }
 
-inline std::vector<column_summary> summarize_csv_file(const std::string& path, const csv_options& options = {},
-                                                      std::size_t max_categories = 65536) {
+inline std::vector<column_summary> summarize_csv_file(const std::string& path, const csv_options& options = {}, std::size_t max_categories = 65536) {
     auto in = detail::open_for_reading(path);
     return summarize_csv(in, options, path, max_categories);
 }
@@ -353,8 +356,8 @@ namespace detail {
 // tried, except that day_slash / month_slash only settle the slash-date
 // choice. Raises prep.time.ambiguous when both slash orders fit every cell.
 template <class Cell>
-time_format detect_time_form(const std::string& name, std::size_t rows, const std::vector<std::uint8_t>& missing,
-                             const Cell& cell, time_format preferred, const std::string& source) {
+time_format detect_time_form(const std::string& name, std::size_t rows, const std::vector<std::uint8_t>& missing, const Cell& cell,
+                             time_format preferred, const std::string& source) {
     const bool slash_choice = preferred == time_format::day_slash || preferred == time_format::month_slash;
     const auto fits = [&](time_format form) {
         double value = 0;
@@ -383,12 +386,11 @@ time_format detect_time_form(const std::string& name, std::size_t rows, const st
 // True when the column reads as date/time: in one form (set in `form`), or
 // in several unambiguous ones (form detect).
 template <class Cell>
-bool detect_time_format(const std::string& name, std::size_t rows, const std::vector<std::uint8_t>& missing,
-                        const Cell& cell, time_format preferred, const std::string& source, time_format& form) {
+bool detect_time_format(const std::string& name, std::size_t rows, const std::vector<std::uint8_t>& missing, const Cell& cell, time_format preferred,
+                        const std::string& source, time_format& form) {
     form = detect_time_form(name, rows, missing, cell, preferred, source);
     if (form != time_format::detect) return true;
-    if (preferred != time_format::detect && preferred != time_format::day_slash && preferred != time_format::month_slash)
-        return false;
+    if (preferred != time_format::detect && preferred != time_format::day_slash && preferred != time_format::month_slash) return false;
     bool any_present = false;
     double value = 0;
     for (std::size_t i = 0; i < rows; ++i) {
@@ -414,15 +416,13 @@ inline table read_csv(std::istream& in, const csv_options& options = {}, const s
         bool found = false;
         for (const auto& n : names) found = found || n == forced.first;
         if (!found)
-            raise(codes::prep_column_unknown, source + ": a kind is forced for column '" + forced.first +
-                                                  "', which the header does not name");
+            raise(codes::prep_column_unknown, source + ": a kind is forced for column '" + forced.first + "', which the header does not name");
     }
     for (const auto& named : options.time_formats) {
         bool found = false;
         for (const auto& n : names) found = found || n == named.first;
         if (!found)
-            raise(codes::prep_column_unknown, source + ": a time format is given for column '" + named.first +
-                                                  "', which the header does not name");
+            raise(codes::prep_column_unknown, source + ": a time format is given for column '" + named.first + "', which the header does not name");
         if (named.second == time_format::detect)
             raise(codes::core_argument_invalid, source + ": column '" + named.first + "': name a time format, not 'detect'");
     }
@@ -484,26 +484,25 @@ inline table read_csv(std::istream& in, const csv_options& options = {}, const s
             double value = 0;
             if (kind == column_kind::numeric) {
                 if (!detail::read_number(text, options.decimal_comma, value))
-                    raise(codes::prep_cell_not_numeric, source + " line " + std::to_string(lines[i]) + " column " +
-                                                            std::to_string(k + 1) + " ('" + names[k] + "'): '" +
-                                                            std::string(text) + "' is not a finite number" +
-                                                            (options.decimal_comma ? " (read with a decimal comma)" : ""));
+                    raise(codes::prep_cell_not_numeric,
+                          source + " line " + std::to_string(lines[i]) + " column " + std::to_string(k + 1) + " ('" + names[k] + "'): '" +
+                              std::string(text) + "' is not a finite number" + (options.decimal_comma ? " (read with a decimal comma)" : ""));
                 c.push_number(value);
             } else if (kind == column_kind::datetime) {
                 if (!parse_datetime(text, form, value))
-                    raise(codes::prep_cell_not_datetime, source + " line " + std::to_string(lines[i]) + " column " +
-                                                             std::to_string(k + 1) + " ('" + names[k] + "'): '" +
-                                                             std::string(text) + "' is not a date/time" +
-                                                             (form == time_format::detect ? std::string()
-                                                                                          : std::string(" in the form ") + to_string(form)));
+                    raise(codes::prep_cell_not_datetime,
+                          source + " line " + std::to_string(lines[i]) + " column " + std::to_string(k + 1) + " ('" + names[k] + "'): '" +
+                              std::string(text) + "' is not a date/time" +
+                              (form == time_format::detect ? std::string() : std::string(" in the form ") + to_string(form)));
                 c.push_number(value);
             } else {
                 c.push_category(detail::trim_blanks(text));
                 if (c.categories().size() > options.max_categories)
-                    raise(codes::prep_csv_oversize, source + " line " + std::to_string(lines[i]) + " column " + std::to_string(k + 1) + " ('" +
-                                                        names[k] + "'): more than " + std::to_string(options.max_categories) +
-                                                        " distinct categories (csv_options::max_categories); a column of that many "
-                                                        "levels is not a category (an identifier or free text?)");
+                    raise(codes::prep_csv_oversize,
+                          source + " line " + std::to_string(lines[i]) + " column " + std::to_string(k + 1) + " ('" + names[k] + "'): more than " +
+                              std::to_string(options.max_categories) +
+                              " distinct categories (csv_options::max_categories); a column of that many "
+                              "levels is not a category (an identifier or free text?)");
             }
         }
         std::string().swap(arena[k]);  // free the raw text of this column early
@@ -523,7 +522,7 @@ inline table read_csv_file(const std::string& path, const csv_options& options =
 /// Which parts of the dialect detect_csv_dialect decides from the file; the
 /// others are kept as given.
 struct csv_detection {
-    bool delimiter = true;      // among ',', ';', tab and '|'
+    bool delimiter = true;  // among ',', ';', tab and '|'
     bool decimal_comma = true;  // only looked for when the delimiter is not ','
     /// Data records looked at after the header (and at most 1 MiB of text).
     std::size_t sample_records = 200;
@@ -538,8 +537,8 @@ inline std::string delimiter_name(char d) {
 
 // Field count of the header when every sampled record has as many fields,
 // else 0 (also when the sample does not parse with this delimiter).
-inline std::size_t consistent_field_count(const std::string& sample, bool truncated, char delimiter, const std::string& source,
-                                          std::size_t records, std::size_t& header_fields) {
+inline std::size_t consistent_field_count(const std::string& sample, bool truncated, char delimiter, const std::string& source, std::size_t records,
+                                          std::size_t& header_fields) {
     std::istringstream in(sample);
     csv_record_reader reader(in, delimiter, source, sample.size() + 1);
     header_fields = 0;
@@ -547,8 +546,10 @@ inline std::size_t consistent_field_count(const std::string& sample, bool trunca
         if (!reader.next()) return 0;
         header_fields = reader.field_count();
         for (std::size_t n = 0; n < records && reader.next();)
-            if (reader.field_count() != header_fields) return 0;
-            else ++n;
+            if (reader.field_count() != header_fields)
+                return 0;
+            else
+                ++n;
     } catch (const error& e) {
         // A quoted field cut by the end of a truncated sample proves nothing.
         if (!(truncated && std::string(e.code()) == codes::prep_csv_unterminated_quote)) return 0;
@@ -584,9 +585,12 @@ inline bool has_both_marks(std::string_view s) noexcept {
     if (s.empty() || !is_digit(s.front()) || !is_digit(s.back())) return false;
     bool point = false, comma = false;
     for (char c : s) {
-        if (c == '.') point = true;
-        else if (c == ',') comma = true;
-        else if (!is_digit(c)) return false;
+        if (c == '.')
+            point = true;
+        else if (c == ',')
+            comma = true;
+        else if (!is_digit(c))
+            return false;
     }
     return point && comma;
 }
@@ -614,8 +618,7 @@ inline bool has_both_marks(std::string_view s) noexcept {
 ///
 /// Raises prep.csv.dialect_ambiguous naming the file, the candidates and, for
 /// the decimal mark, the line, column and cell.
-inline csv_options detect_csv_dialect(std::istream& in, const std::string& source, csv_options given = {},
-                                      const csv_detection& what = {}) {
+inline csv_options detect_csv_dialect(std::istream& in, const std::string& source, csv_options given = {}, const csv_detection& what = {}) {
     constexpr std::size_t sample_limit = std::size_t(1) << 20;
     std::string sample(sample_limit, '\0');
     in.read(&sample[0], static_cast<std::streamsize>(sample_limit));
@@ -648,9 +651,9 @@ inline csv_options detect_csv_dialect(std::istream& in, const std::string& sourc
             std::string listed;
             for (std::size_t k = 0; k < fitting.size(); ++k)
                 listed += (k ? (k + 1 == fitting.size() ? " and " : ", ") : "") + detail::delimiter_name(fitting[k]) + " (" +
-                          std::to_string(counts[k]) + " fields)";
-            raise(codes::prep_csv_dialect_ambiguous, source + ": the delimiter is ambiguous: " + listed +
-                                                         " each split the header and the first rows evenly; name the delimiter");
+                    std::to_string(counts[k]) + " fields)";
+            raise(codes::prep_csv_dialect_ambiguous,
+                  source + ": the delimiter is ambiguous: " + listed + " each split the header and the first rows evenly; name the delimiter");
         }
         given.delimiter = fitting.empty() ? widest : fitting.front();
     }
@@ -688,8 +691,10 @@ inline csv_options detect_csv_dialect(std::istream& in, const std::string& sourc
                                       "' holds both '.' and ',': thousands separators are not read; write numbers without them");
                         if (detail::has_decimal_comma_form(cell)) {
                             note(comma, cell, k);
-                            if (!detail::has_grouping_form(cell)) comma_not_grouping = true;
-                            else note(grouped_only, cell, k);
+                            if (!detail::has_grouping_form(cell))
+                                comma_not_grouping = true;
+                            else
+                                note(grouped_only, cell, k);
                         } else if (cell.find('.') != std::string_view::npos && parse_number(cell, value)) {
                             note(point, cell, k);
                         }
@@ -701,8 +706,9 @@ inline csv_options detect_csv_dialect(std::istream& in, const std::string& sourc
             // A malformed sample is reported by the reader that reads the table.
         }
         if (comma.seen && point.seen)
-            raise(codes::prep_csv_dialect_ambiguous, source + ": the decimal mark is ambiguous: " + comma.where(source) +
-                                                         " has a decimal comma and " + point.where(source) + " a decimal point");
+            raise(codes::prep_csv_dialect_ambiguous,
+                  source + ": the decimal mark is ambiguous: " + comma.where(source) + " has a decimal comma and " + point.where(source) +
+                      " a decimal point");
         if (comma.seen && !comma_not_grouping)
             raise(codes::prep_csv_dialect_ambiguous,
                   source + ": the decimal mark is ambiguous: every cell with a comma, such as " + grouped_only.where(source) +

@@ -62,11 +62,11 @@ public:
         for (std::size_t k = 0; k < w; ++k) out[k] = T(0);
         if (index < 0) {
             switch (policy_) {
-                case unseen_policy::fail:
-                    raise(codes::prep_category_unseen, "column '" + column + "': the category '" + std::string(text) +
-                                                           "' was not seen in the training rows");
-                case unseen_policy::all_zero: return;
-                case unseen_policy::other_slot: out[w - 1] = T(1); return;
+            case unseen_policy::fail:
+                raise(codes::prep_category_unseen,
+                      "column '" + column + "': the category '" + std::string(text) + "' was not seen in the training rows");
+            case unseen_policy::all_zero: return;
+            case unseen_policy::other_slot: out[w - 1] = T(1); return;
             }
             return;
         }

@@ -42,35 +42,38 @@ struct idx_array {
 /// Parses IDX bytes already in memory. `source` names them in errors.
 inline idx_array parse_idx(const std::uint8_t* data, std::size_t size, const std::string& source) {
     if (size >= 2 && data[0] == 0x1F && data[1] == 0x8B)
-        raise(codes::prep_idx_compressed, source + ": the file is gzip-compressed; include tenon/prep/idx_gzip.hpp, "
-                                                   "link tenon::gzip and use read_idx_gzip_file");
-    if (size < 4)
-        raise(codes::prep_idx_truncated, source + ": " + std::to_string(size) + " bytes cannot hold the 4-byte magic number");
-    const std::uint32_t magic = (std::uint32_t(data[0]) << 24) | (std::uint32_t(data[1]) << 16) |
-                                (std::uint32_t(data[2]) << 8) | std::uint32_t(data[3]);
+        raise(codes::prep_idx_compressed,
+              source +
+                  ": the file is gzip-compressed; include tenon/prep/idx_gzip.hpp, "
+                  "link tenon::gzip and use read_idx_gzip_file");
+    if (size < 4) raise(codes::prep_idx_truncated, source + ": " + std::to_string(size) + " bytes cannot hold the 4-byte magic number");
+    const std::uint32_t magic =
+        (std::uint32_t(data[0]) << 24) | (std::uint32_t(data[1]) << 16) | (std::uint32_t(data[2]) << 8) | std::uint32_t(data[3]);
     if (data[0] != 0 || data[1] != 0 || data[2] != 0x08 || data[3] == 0) {
         char hex[16];
         std::snprintf(hex, sizeof(hex), "0x%08X", static_cast<unsigned>(magic));
-        raise(codes::prep_idx_magic, source + ": magic number " + hex +
-                                         " is not an IDX file of unsigned bytes (expected 0x000008nn, nn = dimensions >= 1)");
+        raise(codes::prep_idx_magic,
+              source + ": magic number " + hex + " is not an IDX file of unsigned bytes (expected 0x000008nn, nn = dimensions >= 1)");
     }
     idx_array a;
     const std::size_t dims = data[3];
     if (size < 4 + 4 * dims)
-        raise(codes::prep_idx_truncated, source + ": the header declares " + std::to_string(dims) + " dimensions but the file has " +
-                                             std::to_string(size) + " bytes");
+        raise(codes::prep_idx_truncated,
+              source + ": the header declares " + std::to_string(dims) + " dimensions but the file has " + std::to_string(size) + " bytes");
     std::size_t total = 1;
     for (std::size_t k = 0; k < dims; ++k) {
         const std::uint8_t* p = data + 4 + 4 * k;
         const std::uint32_t d = (std::uint32_t(p[0]) << 24) | (std::uint32_t(p[1]) << 16) | (std::uint32_t(p[2]) << 8) | p[3];
         a.dimensions.push_back(d);
-        if (d != 0 && total > std::numeric_limits<std::size_t>::max() / d) total = std::numeric_limits<std::size_t>::max();
-        else total *= d;  // saturates instead of wrapping around
+        if (d != 0 && total > std::numeric_limits<std::size_t>::max() / d)
+            total = std::numeric_limits<std::size_t>::max();
+        else
+            total *= d;  // saturates instead of wrapping around
     }
     const std::size_t header = 4 + 4 * dims;
     if (total > size - header)
-        raise(codes::prep_idx_truncated, source + ": the header declares " + std::to_string(total) +
-                                             " values but only " + std::to_string(size - header) + " bytes follow it");
+        raise(codes::prep_idx_truncated,
+              source + ": the header declares " + std::to_string(total) + " values but only " + std::to_string(size - header) + " bytes follow it");
     a.values.assign(data + header, data + header + total);
     return a;
 }
@@ -91,8 +94,8 @@ inline std::vector<std::uint8_t> read_whole_file(const std::string& path) {
 
 inline void require_idx_dimensions(const idx_array& a, std::size_t dims, const std::string& source) {
     if (a.dimensions.size() != dims)
-        raise(codes::prep_idx_magic, source + ": expected an IDX file with " + std::to_string(dims) + " dimension(s), found " +
-                                         std::to_string(a.dimensions.size()));
+        raise(codes::prep_idx_magic,
+              source + ": expected an IDX file with " + std::to_string(dims) + " dimension(s), found " + std::to_string(a.dimensions.size()));
 }
 }  // namespace detail
 

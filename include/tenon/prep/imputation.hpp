@@ -26,12 +26,12 @@ enum class fill_method : std::uint8_t { none = 0, mean = 1, median = 2, mode = 3
 
 inline const char* to_string(fill_method m) noexcept {
     switch (m) {
-        case fill_method::none: return "none";
-        case fill_method::mean: return "mean";
-        case fill_method::median: return "median";
-        case fill_method::mode: return "mode";
-        case fill_method::constant: return "constant";
-        case fill_method::automatic: return "automatic";
+    case fill_method::none: return "none";
+    case fill_method::mean: return "mean";
+    case fill_method::median: return "median";
+    case fill_method::mode: return "mode";
+    case fill_method::constant: return "constant";
+    case fill_method::automatic: return "automatic";
     }
     return "unknown";
 }
@@ -55,65 +55,64 @@ struct fill_value {
 
 /// Learns the fill value of column `c` from the given (training) rows.
 /// `constant_number` / `constant_text` are used by fill_method::constant.
-inline fill_value measure_fill(const column& c, const std::vector<std::size_t>& rows, fill_method method,
-                               double constant_number = 0.0, const std::string& constant_text = {}) {
+inline fill_value measure_fill(const column& c, const std::vector<std::size_t>& rows, fill_method method, double constant_number = 0.0,
+                               const std::string& constant_text = {}) {
     method = resolve_fill(method, c.kind());
     fill_value f;
     f.method = method;
     const bool categorical = c.kind() == column_kind::categorical;
     switch (method) {
-        case fill_method::none:
-        case fill_method::automatic: return f;  // resolved above
-        case fill_method::constant:
-            f.number = constant_number;
-            f.text = constant_text;
-            return f;
-        case fill_method::mean:
-        case fill_method::median: {
-            if (categorical)
-                raise(codes::prep_column_kind, "column '" + c.name() + "' is categorical: it cannot be filled with the " +
-                                                   to_string(method) + "; use mode or constant");
-            auto v = present_values(c, rows);
-            if (v.empty()) raise(codes::prep_rows_empty, "column '" + c.name() + "': no present values to learn a fill value from");
-            if (method == fill_method::median) {
-                f.number = exact_quantile(v, 0.5);
-            } else {
-                running_moments m;
-                for (double x : v) m.add(x);
-                f.number = m.mean;
-            }
-            return f;
+    case fill_method::none:
+    case fill_method::automatic: return f;  // resolved above
+    case fill_method::constant:
+        f.number = constant_number;
+        f.text = constant_text;
+        return f;
+    case fill_method::mean:
+    case fill_method::median: {
+        if (categorical)
+            raise(codes::prep_column_kind,
+                  "column '" + c.name() + "' is categorical: it cannot be filled with the " + to_string(method) + "; use mode or constant");
+        auto v = present_values(c, rows);
+        if (v.empty()) raise(codes::prep_rows_empty, "column '" + c.name() + "': no present values to learn a fill value from");
+        if (method == fill_method::median) {
+            f.number = exact_quantile(v, 0.5);
+        } else {
+            running_moments m;
+            for (double x : v) m.add(x);
+            f.number = m.mean;
         }
-        case fill_method::mode: {
-            detail::require_rows_in_range(c, rows);
-            if (categorical) {
-                const auto counts = category_counts(c, rows);
-                std::size_t best = 0;
-                bool found = false;
-                for (std::size_t k = 0; k < counts.size(); ++k) {
-                    if (counts[k] == 0) continue;
-                    if (!found || counts[k] > counts[best] ||
-                        (counts[k] == counts[best] && c.categories()[k] < c.categories()[best])) {
-                        best = k;
-                        found = true;
-                    }
+        return f;
+    }
+    case fill_method::mode: {
+        detail::require_rows_in_range(c, rows);
+        if (categorical) {
+            const auto counts = category_counts(c, rows);
+            std::size_t best = 0;
+            bool found = false;
+            for (std::size_t k = 0; k < counts.size(); ++k) {
+                if (counts[k] == 0) continue;
+                if (!found || counts[k] > counts[best] || (counts[k] == counts[best] && c.categories()[k] < c.categories()[best])) {
+                    best = k;
+                    found = true;
                 }
-                if (!found) raise(codes::prep_rows_empty, "column '" + c.name() + "': no present values to learn a fill value from");
-                f.text = c.categories()[best];
-            } else {
-                std::map<double, std::size_t> counts;
-                for (auto r : rows)
-                    if (!c.is_missing(r)) ++counts[c.number(r)];
-                if (counts.empty()) raise(codes::prep_rows_empty, "column '" + c.name() + "': no present values to learn a fill value from");
-                std::size_t best_count = 0;
-                for (const auto& kv : counts)
-                    if (kv.second > best_count) {  // strict: the smallest value wins ties
-                        best_count = kv.second;
-                        f.number = kv.first;
-                    }
             }
-            return f;
+            if (!found) raise(codes::prep_rows_empty, "column '" + c.name() + "': no present values to learn a fill value from");
+            f.text = c.categories()[best];
+        } else {
+            std::map<double, std::size_t> counts;
+            for (auto r : rows)
+                if (!c.is_missing(r)) ++counts[c.number(r)];
+            if (counts.empty()) raise(codes::prep_rows_empty, "column '" + c.name() + "': no present values to learn a fill value from");
+            std::size_t best_count = 0;
+            for (const auto& kv : counts)
+                if (kv.second > best_count) {  // strict: the smallest value wins ties
+                    best_count = kv.second;
+                    f.number = kv.first;
+                }
         }
+        return f;
+    }
     }
     return f;
 }

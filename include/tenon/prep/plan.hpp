@@ -41,9 +41,9 @@ enum class target_kind : std::uint8_t { classification = 0, regression = 1 };
 /// (shift patterns, weekends, seasons) often follows it. Each position is
 /// given as a sine/cosine pair, so that 23:59 lies next to 00:00.
 enum class time_encoding : std::uint8_t {
-    value = 0,             // the scaled time stamp alone
+    value = 0,  // the scaled time stamp alone
     value_and_cycles = 1,  // the scaled time stamp, then the six cyclic values
-    cycles = 2,            // the six cyclic values alone
+    cycles = 2,  // the six cyclic values alone
 };
 
 /// The six cyclic values of a time stamp (seconds since 1970-01-01T00:00:00Z,
@@ -87,16 +87,16 @@ inline void time_cycles(double seconds, double* out) noexcept {
 /// range_flag::unseen_category). strict_feature_steps() refuses instead.
 struct feature_steps {
     fill_method fill = fill_method::automatic;
-    double fill_number = 0.0;        // fill_method::constant, numeric and date/time columns
-    std::string fill_text;           // fill_method::constant, categorical columns
+    double fill_number = 0.0;  // fill_method::constant, numeric and date/time columns
+    std::string fill_text;  // fill_method::constant, categorical columns
     bool missing_indicator = false;  // always add a 0/1 "was missing" feature
     /// Add the indicator when a training row (with a target) has the cell
     /// missing; decided when the plan is measured.
     bool indicator_if_missing_in_training = true;
     scaling_method scaling = scaling_method::z_score;  // numeric and date/time columns
-    double range_low = 0.0, range_high = 1.0;          // target range of min-max scaling
-    unseen_policy unseen = unseen_policy::all_zero;    // categorical columns
-    bool omit_reference_level = false;                 // categorical columns
+    double range_low = 0.0, range_high = 1.0;  // target range of min-max scaling
+    unseen_policy unseen = unseen_policy::all_zero;  // categorical columns
+    bool omit_reference_level = false;  // categorical columns
     /// Date/time columns: the scaled stamp, cyclic values, or both. A column
     /// with the time role and cycles chosen gives the cyclic values alone.
     time_encoding time = time_encoding::value;
@@ -117,9 +117,9 @@ inline feature_steps strict_feature_steps() {
 /// row i (rows with a missing target are left out and counted).
 template <class T>
 struct prepared_rows {
-    matrix<T> features;                   // rows x feature_count()
-    matrix<T> targets;                    // rows x class_count() one-hot, or rows x 1 scaled regression values
-    std::vector<std::uint32_t> classes;   // class index per row (classification only)
+    matrix<T> features;  // rows x feature_count()
+    matrix<T> targets;  // rows x class_count() one-hot, or rows x 1 scaled regression values
+    std::vector<std::uint32_t> classes;  // class index per row (classification only)
     std::vector<std::size_t> rows;
     std::size_t dropped_missing_target = 0;
 };
@@ -129,13 +129,13 @@ struct measured_feature {
     std::string name;
     column_kind kind = column_kind::numeric;
     time_format time_form = time_format::detect;  // date/time: how raw cells are written
-    time_encoding time = time_encoding::value;    // date/time: what the block holds
+    time_encoding time = time_encoding::value;  // date/time: what the block holds
     fill_value fill;
     bool indicator = false;
-    scaling scale;            // numeric and date/time
-    one_hot_layout one_hot;   // categorical
-    std::size_t offset = 0;   // first output column
-    std::size_t width = 0;    // output columns, indicator included
+    scaling scale;  // numeric and date/time
+    one_hot_layout one_hot;  // categorical
+    std::size_t offset = 0;  // first output column
+    std::size_t width = 0;  // output columns, indicator included
 };
 
 // Shortest text of a number into a caller buffer (no allocation).
@@ -181,8 +181,7 @@ public:
         return *this;
     }
     /// The target column; regression targets are scaled with `regression_scaling`.
-    plan& set_target(const std::string& column_name, target_kind kind,
-                     scaling_method regression_scaling = scaling_method::z_score) {
+    plan& set_target(const std::string& column_name, target_kind kind, scaling_method regression_scaling = scaling_method::z_score) {
         target_ = column_name;
         target_kind_ = kind;
         target_scaling_ = regression_scaling;
@@ -213,8 +212,7 @@ public:
     /// LeVeque, so means and spreads equal a single measurement up to
     /// rounding; category and class sets by union, sorted as always;
     /// medians, quartiles and modes exact, from the gathered values.
-    inline measured_plan measure(const table& t, const std::vector<std::size_t>& training_rows,
-                                 statistics_exchange* exchange = nullptr) const;
+    inline measured_plan measure(const table& t, const std::vector<std::size_t>& training_rows, statistics_exchange* exchange = nullptr) const;
 
 private:
     std::vector<std::pair<std::string, column_role>> roles_;
@@ -275,8 +273,8 @@ public:
         out.dropped_missing_target = 0;
         for (auto r : rows) {
             if (r >= t.row_count())
-                raise(codes::prep_rows_out_of_range, where(t) + ": row " + std::to_string(r) +
-                                                        " is not below the row count " + std::to_string(t.row_count()));
+                raise(codes::prep_rows_out_of_range,
+                      where(t) + ": row " + std::to_string(r) + " is not below the row count " + std::to_string(t.row_count()));
             if (target && target->is_missing(r)) {
                 ++out.dropped_missing_target;
                 continue;
@@ -297,14 +295,13 @@ public:
             char buffer[64];
             for (std::size_t i = 0; i < n; ++i) {
                 const std::size_t r = out.rows[i];
-                const std::string_view name = target->kind() == column_kind::categorical
-                                                  ? std::string_view(target->category(r))
-                                                  : detail::number_text(target->number(r), buffer);
+                const std::string_view name = target->kind() == column_kind::categorical ? std::string_view(target->category(r))
+                                                                                         : detail::number_text(target->number(r), buffer);
                 const std::int64_t k = classes_.find(name);
                 if (k < 0)
-                    raise(codes::prep_category_unseen, t.row_place(r) + ": the class '" +
-                                                           std::string(name) + "' of target '" + target_name_ +
-                                                           "' was not seen in the training rows");
+                    raise(codes::prep_category_unseen,
+                          t.row_place(r) + ": the class '" + std::string(name) + "' of target '" + target_name_ +
+                              "' was not seen in the training rows");
                 out.classes[i] = static_cast<std::uint32_t>(k);
                 out.targets(i, static_cast<std::size_t>(k)) = T(1);
             }
@@ -335,8 +332,8 @@ public:
         TENON_REQUIRE_SCALAR(T);
         for (auto r : rows)
             if (r >= t.row_count())
-                raise(codes::prep_rows_out_of_range, where(t) + ": row " + std::to_string(r) +
-                                                        " is not below the row count " + std::to_string(t.row_count()));
+                raise(codes::prep_rows_out_of_range,
+                      where(t) + ": row " + std::to_string(r) + " is not below the row count " + std::to_string(t.row_count()));
         write_features(t, rows, features);
     }
 
@@ -347,8 +344,8 @@ public:
     void apply_cells(const std::string_view* cells, std::size_t count, T* out) const {
         TENON_REQUIRE_SCALAR(T);
         if (count != features_.size())
-            raise(codes::core_shape_mismatch, "apply_cells: the plan reads " + std::to_string(features_.size()) +
-                                             " columns, got " + std::to_string(count) + " cells");
+            raise(codes::core_shape_mismatch,
+                  "apply_cells: the plan reads " + std::to_string(features_.size()) + " columns, got " + std::to_string(count) + " cells");
         for (std::size_t k = 0; k < features_.size(); ++k) {
             const auto& f = features_[k];
             const std::string_view cell = detail::trim_blanks(cells[k]);
@@ -359,15 +356,13 @@ public:
             } else {
                 double value = 0;
                 if (!missing) {
-                    const bool ok = f.kind == column_kind::numeric ? parse_number(cell, value)
-                                                                   : parse_datetime(cell, f.time_form, value);
+                    const bool ok = f.kind == column_kind::numeric ? parse_number(cell, value) : parse_datetime(cell, f.time_form, value);
                     if (!ok)
                         raise(f.kind == column_kind::numeric ? codes::prep_cell_not_numeric : codes::prep_cell_not_datetime,
                               "raw row, column '" + f.name + "': '" + std::string(cell) + "' is not a " +
-                                  (f.kind == column_kind::numeric ? "finite number"
-                                   : f.time_form == time_format::detect
-                                       ? "date/time"
-                                       : std::string("date/time in the form ") + to_string(f.time_form)));
+                                  (f.kind == column_kind::numeric           ? "finite number"
+                                       : f.time_form == time_format::detect ? "date/time"
+                                                                            : std::string("date/time in the form ") + to_string(f.time_form)));
                 }
                 write_number(f, missing, value, o, "raw row");
             }
@@ -387,8 +382,7 @@ public:
                     found = true;
                     break;
                 }
-            if (!found)
-                raise(codes::prep_column_unknown, "apply_named: the row has no cell for column '" + features_[k].name + "'");
+            if (!found) raise(codes::prep_column_unknown, "apply_named: the row has no cell for column '" + features_[k].name + "'");
         }
         apply_cells(cells.data(), cells.size(), out);
     }
@@ -465,9 +459,9 @@ public:
                 raise(codes::prep_bytes_bad_tag, "measured plan: the bytes do not start with the magic 'TNPL'");
         const std::uint16_t version = r.u16();
         if (version != 1 && version != format_version)
-            raise(codes::prep_bytes_bad_tag, "measured plan: format version " + std::to_string(version) +
-                                                 " is not supported (this build reads versions 1 to " +
-                                                 std::to_string(format_version) + ")");
+            raise(codes::prep_bytes_bad_tag,
+                  "measured plan: format version " + std::to_string(version) + " is not supported (this build reads versions 1 to " +
+                      std::to_string(format_version) + ")");
         measured_plan p;
         p.missing_tokens_.resize(r.count(4, "missing tokens"));
         for (auto& s : p.missing_tokens_) s = r.text();
@@ -579,21 +573,22 @@ private:
     }
     void require_number_target(const column& c) const {
         if (c.kind() != column_kind::numeric)
-            raise(codes::prep_column_kind, "regression target '" + c.name() + "' is " + to_string(c.kind()) +
-                                               ", not numeric");
+            raise(codes::prep_column_kind, "regression target '" + c.name() + "' is " + to_string(c.kind()) + ", not numeric");
     }
 
     // A scaled value outside T's finite range (1e300 in a column whose
     // spread overflowed, or 1e39 in single precision) would reach the
     // trainer as infinity: raised here in the data's terms instead.
     template <class T>
-    static bool representable(double scaled) noexcept { return std::isfinite(static_cast<T>(scaled)); }
+    static bool representable(double scaled) noexcept {
+        return std::isfinite(static_cast<T>(scaled));
+    }
     template <class T>
     [[noreturn]] static void overflow(double scaled, double value, const std::string& column_text, const std::string& at) {
-        raise(codes::prep_value_overflow, at + ", " + column_text + ": the value " + number_to_text(value) + " scales to " +
-                                              number_to_text(scaled) + ", beyond the " + (sizeof(T) == 4 ? "single" : "double") +
-                                              " precision range (about " + (sizeof(T) == 4 ? "3.4e38" : "1.8e308") +
-                                              "); rescale the column (another unit) or leave it out");
+        raise(codes::prep_value_overflow,
+              at + ", " + column_text + ": the value " + number_to_text(value) + " scales to " + number_to_text(scaled) + ", beyond the " +
+                  (sizeof(T) == 4 ? "single" : "double") + " precision range (about " + (sizeof(T) == 4 ? "3.4e38" : "1.8e308") +
+                  "); rescale the column (another unit) or leave it out");
     }
 
     template <class T>
@@ -618,8 +613,8 @@ private:
     }
 
     template <class T>
-    void write_category(const detail::measured_feature& f, bool missing, std::int64_t index, std::string_view text,
-                        T* out, const std::string& at) const {
+    void write_category(const detail::measured_feature& f, bool missing, std::int64_t index, std::string_view text, T* out,
+                        const std::string& at) const {
         if (missing) {
             if (f.fill.method == fill_method::none)
                 raise(codes::prep_value_missing, at + ", column '" + f.name + "': the cell is missing and the plan has no fill for it");
@@ -627,8 +622,8 @@ private:
             index = f.one_hot.find(text);
         }
         if (index < 0 && f.one_hot.policy() == unseen_policy::fail)
-            raise(codes::prep_category_unseen, at + ", column '" + f.name + "': the category '" + std::string(text) +
-                                                   "' was not seen in the training rows");
+            raise(codes::prep_category_unseen,
+                  at + ", column '" + f.name + "': the category '" + std::string(text) + "' was not seen in the training rows");
         f.one_hot.encode(index, out, f.name, text);
         if (f.indicator) out[f.width - 1] = missing ? T(1) : T(0);
     }
@@ -642,8 +637,9 @@ private:
             const column& c = t.at(f.name);
             const bool table_categorical = c.kind() == column_kind::categorical;
             if (table_categorical != (f.kind == column_kind::categorical))
-                raise(codes::prep_column_kind, where(t) + ", column '" + f.name + "' is " + to_string(c.kind()) +
-                                                   " but the plan was measured on a " + to_string(f.kind) + " column");
+                raise(codes::prep_column_kind,
+                      where(t) + ", column '" + f.name + "' is " + to_string(c.kind()) + " but the plan was measured on a " + to_string(f.kind) +
+                          " column");
             if (f.kind == column_kind::categorical) {
                 category_map.resize(c.categories().size());
                 for (std::size_t k = 0; k < category_map.size(); ++k) category_map[k] = f.one_hot.find(c.categories()[k]);
@@ -653,16 +649,15 @@ private:
                 T* o = features.data() + i * width + f.offset;
                 const bool missing = c.is_missing(r);
                 if (missing && f.fill.method == fill_method::none)
-                    raise(codes::prep_value_missing, t.row_place(r) + ", column '" + f.name +
-                                                         "': the cell is missing and the plan has no fill for it");
+                    raise(codes::prep_value_missing,
+                          t.row_place(r) + ", column '" + f.name + "': the cell is missing and the plan has no fill for it");
                 if (f.kind == column_kind::categorical) {
                     if (missing || category_map[c.code(r)] >= 0 || f.one_hot.policy() != unseen_policy::fail)
                         write_category(f, missing, missing ? -1 : category_map[c.code(r)],
                                        missing ? std::string_view() : std::string_view(c.category(r)), o, std::string());
                     else
-                        raise(codes::prep_category_unseen, t.row_place(r) + ", column '" + f.name +
-                                                               "': the category '" + c.category(r) +
-                                                               "' was not seen in the training rows");
+                        raise(codes::prep_category_unseen,
+                              t.row_place(r) + ", column '" + f.name + "': the category '" + c.category(r) + "' was not seen in the training rows");
                 } else {
                     const double value = missing ? 0.0 : c.number(r);
                     if (f.time != time_encoding::cycles && !representable<T>(f.scale.forward(value)))
@@ -772,8 +767,8 @@ inline measured_plan plan::measure(const table& t, const std::vector<std::size_t
     kept.reserve(training_rows.size());
     for (auto r : training_rows) {
         if (r >= t.row_count())
-            raise(codes::prep_rows_out_of_range, where + ": training row " + std::to_string(r) +
-                                                    " is not below the row count " + std::to_string(t.row_count()));
+            raise(codes::prep_rows_out_of_range,
+                  where + ": training row " + std::to_string(r) + " is not below the row count " + std::to_string(t.row_count()));
         if (target && target->is_missing(r)) {
             ++p.dropped_training_rows_;
             continue;
@@ -786,8 +781,9 @@ inline measured_plan plan::measure(const table& t, const std::vector<std::size_t
         p.dropped_training_rows_ = static_cast<std::size_t>(totals[2]);
     }
     if (totals[0] == 0)
-        raise(codes::prep_rows_empty, where + ": no training rows to measure the plan on (" + std::to_string(totals[1]) +
-                                       " given, " + std::to_string(p.dropped_training_rows_) + " dropped for a missing target)");
+        raise(codes::prep_rows_empty,
+              where + ": no training rows to measure the plan on (" + std::to_string(totals[1]) + " given, " +
+                  std::to_string(p.dropped_training_rows_) + " dropped for a missing target)");
     for (std::size_t k = 0; k < t.column_count(); ++k) {
         const column& c = t[k];
         const column_role role = role_of(c.name());
@@ -800,8 +796,8 @@ inline measured_plan plan::measure(const table& t, const std::vector<std::size_t
         bool steps_named = false;
         for (const auto& named : steps_) steps_named = steps_named || named.first == c.name();
         if (s.time != time_encoding::value && c.kind() != column_kind::datetime && steps_named)
-            raise(codes::prep_column_kind, where + ", column '" + c.name() + "' is " + to_string(c.kind()) +
-                                               ": cyclic time values need a date/time column");
+            raise(codes::prep_column_kind,
+                  where + ", column '" + c.name() + "' is " + to_string(c.kind()) + ": cyclic time values need a date/time column");
         detail::measured_feature f;
         f.name = c.name();
         f.kind = c.kind();
@@ -825,8 +821,7 @@ inline measured_plan plan::measure(const table& t, const std::vector<std::size_t
                     if (counts[j] > 0) seen.push_back(c.categories()[j]);
             }
             if (f.fill.method == fill_method::constant) seen.push_back(f.fill.text);
-            if (seen.empty())
-                raise(codes::prep_rows_empty, where + ", column '" + c.name() + "': no present category in the training rows");
+            if (seen.empty()) raise(codes::prep_rows_empty, where + ", column '" + c.name() + "': no present category in the training rows");
             f.one_hot = one_hot_layout(std::move(seen), s.unseen, s.omit_reference_level);
         } else {
             f.scale = exchange ? detail::shared_scaling(c, kept, s.scaling, s.range_low, s.range_high, *exchange)

@@ -43,15 +43,15 @@ struct feature_reference {
     // numeric and date/time columns
     double minimum = 0.0;
     double maximum = 0.0;
-    std::vector<double> deciles;               // 11 values: q = 0, 0.1, ..., 1
-    std::vector<std::uint64_t> histogram;      // equal-width bins over [minimum, maximum]
+    std::vector<double> deciles;  // 11 values: q = 0, 0.1, ..., 1
+    std::vector<std::uint64_t> histogram;  // equal-width bins over [minimum, maximum]
     // categorical columns, sorted by category text
     std::vector<std::pair<std::string, std::uint64_t>> categories;
     // numeric and date/time columns, the distribution (empty in files written
     // before section REFD; see the top of this file)
-    bool whole_numbers = false;                               // every present value is a whole number
+    bool whole_numbers = false;  // every present value is a whole number
     std::vector<std::pair<double, std::uint64_t>> distinct;  // ascending values and counts, at most 256
-    std::vector<double> quantile_points;                      // q_0 .. q_K when there are more distinct values
+    std::vector<double> quantile_points;  // q_0 .. q_K when there are more distinct values
 
     /// True when the summary carries the distribution (distinct values or quantiles).
     bool has_distribution() const noexcept { return !distinct.empty() || !quantile_points.empty(); }
@@ -67,10 +67,9 @@ struct feature_reference {
     }
 
     friend bool operator==(const feature_reference& a, const feature_reference& b) {
-        return a.column == b.column && a.kind == b.kind && a.present == b.present && a.missing == b.missing &&
-               a.minimum == b.minimum && a.maximum == b.maximum && a.deciles == b.deciles && a.histogram == b.histogram &&
-               a.categories == b.categories && a.whole_numbers == b.whole_numbers && a.distinct == b.distinct &&
-               a.quantile_points == b.quantile_points;
+        return a.column == b.column && a.kind == b.kind && a.present == b.present && a.missing == b.missing && a.minimum == b.minimum &&
+            a.maximum == b.maximum && a.deciles == b.deciles && a.histogram == b.histogram && a.categories == b.categories &&
+            a.whole_numbers == b.whole_numbers && a.distinct == b.distinct && a.quantile_points == b.quantile_points;
     }
 };
 
@@ -104,8 +103,8 @@ inline void measure_distribution(feature_reference& f, std::vector<double> value
 
 /// Summaries of every column `plan` reads (plan.input_columns(), in that
 /// order) over `rows` of `t`.
-inline std::vector<feature_reference> measure_references(const table& t, const std::vector<std::size_t>& rows,
-                                                         const measured_plan& plan, std::size_t histogram_bins = 10) {
+inline std::vector<feature_reference> measure_references(const table& t, const std::vector<std::size_t>& rows, const measured_plan& plan,
+                                                         std::size_t histogram_bins = 10) {
     if (histogram_bins == 0) raise(codes::core_argument_invalid, "measure_references: histogram_bins must be positive");
     std::vector<feature_reference> out;
     for (const auto& name : plan.input_columns()) {

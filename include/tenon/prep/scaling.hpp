@@ -28,10 +28,10 @@ enum class scaling_method : std::uint8_t { none = 0, min_max = 1, z_score = 2, m
 
 inline const char* to_string(scaling_method m) noexcept {
     switch (m) {
-        case scaling_method::none: return "none";
-        case scaling_method::min_max: return "min-max";
-        case scaling_method::z_score: return "z-score";
-        case scaling_method::median_iqr: return "median-iqr";
+    case scaling_method::none: return "none";
+    case scaling_method::min_max: return "min-max";
+    case scaling_method::z_score: return "z-score";
+    case scaling_method::median_iqr: return "median-iqr";
     }
     return "unknown";
 }
@@ -63,8 +63,8 @@ inline double usable_spread(double spread) noexcept { return spread > 0.0 && std
 
 inline void require_range(double low, double high) {
     if (!(low < high) || !std::isfinite(low) || !std::isfinite(high))
-        raise(codes::core_argument_invalid, "min-max scaling: the target range must satisfy low < high, got [" +
-                                           std::to_string(low) + ", " + std::to_string(high) + "]");
+        raise(codes::core_argument_invalid,
+              "min-max scaling: the target range must satisfy low < high, got [" + std::to_string(low) + ", " + std::to_string(high) + "]");
 }
 }  // namespace detail
 
@@ -74,22 +74,22 @@ inline scaling scaling_from_moments(scaling_method method, const running_moments
     scaling s;
     s.method = method;
     switch (method) {
-        case scaling_method::none: break;
-        case scaling_method::min_max:
-            detail::require_range(low, high);
-            if (m.count == 0) raise(codes::prep_rows_empty, "min-max scaling: no values to measure");
-            s.center = m.minimum;
-            s.spread = detail::usable_spread(m.maximum - m.minimum);
-            s.low = low;
-            s.high = high;
-            break;
-        case scaling_method::z_score:
-            if (m.count == 0) raise(codes::prep_rows_empty, "z-score scaling: no values to measure");
-            s.center = m.mean;
-            s.spread = detail::usable_spread(m.population_stddev());
-            break;
-        case scaling_method::median_iqr:
-            raise(codes::core_argument_invalid, "scaling_from_moments: median-IQR scaling needs quartiles, use median_iqr_scaling");
+    case scaling_method::none: break;
+    case scaling_method::min_max:
+        detail::require_range(low, high);
+        if (m.count == 0) raise(codes::prep_rows_empty, "min-max scaling: no values to measure");
+        s.center = m.minimum;
+        s.spread = detail::usable_spread(m.maximum - m.minimum);
+        s.low = low;
+        s.high = high;
+        break;
+    case scaling_method::z_score:
+        if (m.count == 0) raise(codes::prep_rows_empty, "z-score scaling: no values to measure");
+        s.center = m.mean;
+        s.spread = detail::usable_spread(m.population_stddev());
+        break;
+    case scaling_method::median_iqr:
+        raise(codes::core_argument_invalid, "scaling_from_moments: median-IQR scaling needs quartiles, use median_iqr_scaling");
     }
     return s;
 }
@@ -104,8 +104,7 @@ inline scaling median_iqr_scaling(const quartile_summary& q) {
 
 /// Measures a scaling on the present cells of a numeric or date/time column
 /// over the given (training) rows.
-inline scaling measure_scaling(const column& c, const std::vector<std::size_t>& rows, scaling_method method,
-                               double low = 0.0, double high = 1.0) {
+inline scaling measure_scaling(const column& c, const std::vector<std::size_t>& rows, scaling_method method, double low = 0.0, double high = 1.0) {
     if (method == scaling_method::median_iqr) return median_iqr_scaling(column_quartiles(c, rows));
     if (method == scaling_method::none) return scaling{};
     const auto m = column_moments(c, rows);
@@ -135,8 +134,7 @@ void apply_scalings(matrix<T>& x, const std::vector<scaling>& s) {
     TENON_REQUIRE_SCALAR(T);
     const std::size_t rows = x.shape()[0], cols = x.shape()[1];
     if (s.size() != cols)
-        raise(codes::core_shape_mismatch, "apply_scalings: " + std::to_string(s.size()) + " scalings for " +
-                                         std::to_string(cols) + " columns");
+        raise(codes::core_shape_mismatch, "apply_scalings: " + std::to_string(s.size()) + " scalings for " + std::to_string(cols) + " columns");
     // scaling::forward with its per-column factor (high - low) / spread
     // computed once per column instead of once per value: the same
     // operations on the same values, so the same bits. The per-element
@@ -180,12 +178,10 @@ void invert_scalings(matrix<T>& y, const std::vector<scaling>& s) {
     TENON_REQUIRE_SCALAR(T);
     const std::size_t rows = y.shape()[0], cols = y.shape()[1];
     if (s.size() != cols)
-        raise(codes::core_shape_mismatch, "invert_scalings: " + std::to_string(s.size()) + " scalings for " +
-                                         std::to_string(cols) + " columns");
+        raise(codes::core_shape_mismatch, "invert_scalings: " + std::to_string(s.size()) + " scalings for " + std::to_string(cols) + " columns");
     T* p = y.data();
     for (std::size_t i = 0; i < rows; ++i)
-        for (std::size_t j = 0; j < cols; ++j)
-            p[i * cols + j] = static_cast<T>(s[j].inverse(static_cast<double>(p[i * cols + j])));
+        for (std::size_t j = 0; j < cols; ++j) p[i * cols + j] = static_cast<T>(s[j].inverse(static_cast<double>(p[i * cols + j])));
 }
 
 TENON_NAMESPACE_END

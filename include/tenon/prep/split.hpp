@@ -39,26 +39,24 @@ inline void check_fractions(const split_fractions& f) {
     const double parts[3] = {f.train, f.validation, f.test};
     for (double p : parts)
         if (!(p >= 0.0 && p <= 1.0))
-            raise(codes::prep_split_fractions, "split fractions must each lie in [0, 1], got train " + std::to_string(f.train) +
-                                                   ", validation " + std::to_string(f.validation) + ", test " +
-                                                   std::to_string(f.test));
+            raise(codes::prep_split_fractions,
+                  "split fractions must each lie in [0, 1], got train " + std::to_string(f.train) + ", validation " + std::to_string(f.validation) +
+                      ", test " + std::to_string(f.test));
     const double sum = f.train + f.validation + f.test;
     if (std::abs(sum - 1.0) > 1e-9)
-        raise(codes::prep_split_fractions, "split fractions must sum to 1, got " + std::to_string(f.train) + " + " +
-                                               std::to_string(f.validation) + " + " + std::to_string(f.test) + " = " +
-                                               std::to_string(sum));
+        raise(codes::prep_split_fractions,
+              "split fractions must sum to 1, got " + std::to_string(f.train) + " + " + std::to_string(f.validation) + " + " +
+                  std::to_string(f.test) + " = " + std::to_string(sum));
     if (f.train <= 0.0) raise(codes::prep_split_fractions, "the train fraction must be positive");
 }
 
-inline std::size_t rounded_share(std::size_t n, double fraction) {
-    return static_cast<std::size_t>(std::llround(static_cast<double>(n) * fraction));
-}
+inline std::size_t rounded_share(std::size_t n, double fraction) { return static_cast<std::size_t>(std::llround(static_cast<double>(n) * fraction)); }
 
 inline void check_not_empty(const holdout_split& s, const split_fractions& f, const char* policy) {
     auto check = [&](const std::vector<std::size_t>& rows, double fraction, const char* name) {
         if (fraction > 0.0 && rows.empty())
-            raise(codes::prep_split_empty_subset, std::string(policy) + ": the " + name + " subset (fraction " +
-                                                      std::to_string(fraction) + ") would receive no rows");
+            raise(codes::prep_split_empty_subset,
+                  std::string(policy) + ": the " + name + " subset (fraction " + std::to_string(fraction) + ") would receive no rows");
     };
     check(s.train, f.train, "train");
     check(s.validation, f.validation, "validation");
@@ -75,17 +73,20 @@ inline void sort_subsets(holdout_split& s) {
 // n_validation to validation, the rest to train.
 inline void deal(const std::vector<std::size_t>& rows, std::size_t n_validation, std::size_t n_test, holdout_split& s) {
     for (std::size_t k = 0; k < rows.size(); ++k) {
-        if (k < n_test) s.test.push_back(rows[k]);
-        else if (k < n_test + n_validation) s.validation.push_back(rows[k]);
-        else s.train.push_back(rows[k]);
+        if (k < n_test)
+            s.test.push_back(rows[k]);
+        else if (k < n_test + n_validation)
+            s.validation.push_back(rows[k]);
+        else
+            s.train.push_back(rows[k]);
     }
 }
 
 inline void check_fold_count(std::size_t k, std::size_t n, const char* policy) {
     if (k < 2) raise(codes::core_argument_invalid, std::string(policy) + ": at least 2 folds are needed, got " + std::to_string(k));
     if (n < k)
-        raise(codes::prep_split_empty_subset, std::string(policy) + ": " + std::to_string(k) + " folds of " +
-                                                  std::to_string(n) + " rows would leave a fold empty");
+        raise(codes::prep_split_empty_subset,
+              std::string(policy) + ": " + std::to_string(k) + " folds of " + std::to_string(n) + " rows would leave a fold empty");
 }
 
 inline std::vector<fold> folds_from_assignment(const std::vector<std::size_t>& fold_of_row, std::size_t k) {
@@ -128,8 +129,7 @@ inline holdout_split random_holdout(std::size_t n, const split_fractions& fracti
 /// so each count is within one row of n_c times its fraction. `labels[i]` is
 /// the class index of row i. Each class needs at least one row per non-empty
 /// subset.
-inline holdout_split stratified_holdout(const std::vector<std::uint32_t>& labels, const split_fractions& fractions,
-                                        std::uint64_t seed) {
+inline holdout_split stratified_holdout(const std::vector<std::uint32_t>& labels, const split_fractions& fractions, std::uint64_t seed) {
     detail::check_fractions(fractions);
     const std::size_t needed = std::size_t(fractions.train > 0) + (fractions.validation > 0) + (fractions.test > 0);
     const auto by = detail::rows_by_label(labels);
@@ -139,9 +139,9 @@ inline holdout_split stratified_holdout(const std::vector<std::uint32_t>& labels
         auto rows = by[c];
         if (rows.empty()) continue;  // a label value no row carries
         if (rows.size() < needed)
-            raise(codes::prep_split_class_too_small, "stratified holdout: class " + std::to_string(c) + " has " +
-                                                         std::to_string(rows.size()) + " rows, fewer than the " +
-                                                         std::to_string(needed) + " non-empty subsets");
+            raise(codes::prep_split_class_too_small,
+                  "stratified holdout: class " + std::to_string(c) + " has " + std::to_string(rows.size()) + " rows, fewer than the " +
+                      std::to_string(needed) + " non-empty subsets");
         rng.shuffle(rows.begin(), rows.end());
         const std::size_t n_test = detail::rounded_share(rows.size(), fractions.test);
         const std::size_t n_validation =
@@ -178,9 +178,9 @@ inline std::vector<fold> stratified_k_folds(const std::vector<std::uint32_t>& la
         auto rows = by[c];
         if (rows.empty()) continue;
         if (rows.size() < k)
-            raise(codes::prep_split_class_too_small, "stratified k-fold: class " + std::to_string(c) + " has " +
-                                                         std::to_string(rows.size()) + " rows, fewer than the " +
-                                                         std::to_string(k) + " folds");
+            raise(codes::prep_split_class_too_small,
+                  "stratified k-fold: class " + std::to_string(c) + " has " + std::to_string(rows.size()) + " rows, fewer than the " +
+                      std::to_string(k) + " folds");
         rng.shuffle(rows.begin(), rows.end());
         for (auto r : rows) fold_of_row[r] = next++ % k;
     }
@@ -190,8 +190,7 @@ inline std::vector<fold> stratified_k_folds(const std::vector<std::uint32_t>& la
 namespace detail {
 inline std::vector<std::size_t> time_order(const std::vector<double>& times, const char* policy) {
     for (std::size_t i = 0; i < times.size(); ++i)
-        if (std::isnan(times[i]))
-            raise(codes::prep_split_missing_time, std::string(policy) + ": row " + std::to_string(i) + " has no time");
+        if (std::isnan(times[i])) raise(codes::prep_split_missing_time, std::string(policy) + ": row " + std::to_string(i) + " has no time");
     std::vector<std::size_t> rows(times.size());
     std::iota(rows.begin(), rows.end(), std::size_t(0));
     std::stable_sort(rows.begin(), rows.end(), [&](std::size_t a, std::size_t b) { return times[a] < times[b]; });
@@ -224,21 +223,20 @@ inline holdout_split chronological_holdout(const std::vector<double>& times, con
 /// last fold tests on the latest rows. Indices are row numbers of `times`.
 inline std::vector<fold> rolling_origin_folds(const std::vector<double>& times, std::size_t folds, std::size_t horizon) {
     if (folds < 1 || horizon < 1)
-        raise(codes::core_argument_invalid, "rolling-origin folds: need at least 1 fold and a horizon of at least 1 row, got " +
-                                           std::to_string(folds) + " folds, horizon " + std::to_string(horizon));
+        raise(codes::core_argument_invalid,
+              "rolling-origin folds: need at least 1 fold and a horizon of at least 1 row, got " + std::to_string(folds) + " folds, horizon " +
+                  std::to_string(horizon));
     const auto rows = detail::time_order(times, "rolling-origin folds");
     const std::size_t n = rows.size();
     if (n <= folds * horizon)
-        raise(codes::prep_split_empty_subset, "rolling-origin folds: " + std::to_string(folds) + " folds with a horizon of " +
-                                                  std::to_string(horizon) + " rows need more than " +
-                                                  std::to_string(folds * horizon) + " rows, got " + std::to_string(n) +
-                                                  " (the first fold would have no training rows)");
+        raise(codes::prep_split_empty_subset,
+              "rolling-origin folds: " + std::to_string(folds) + " folds with a horizon of " + std::to_string(horizon) + " rows need more than " +
+                  std::to_string(folds * horizon) + " rows, got " + std::to_string(n) + " (the first fold would have no training rows)");
     std::vector<fold> out(folds);
     for (std::size_t f = 0; f < folds; ++f) {
         const std::size_t origin = n - (folds - f) * horizon;
         out[f].train.assign(rows.begin(), rows.begin() + static_cast<std::ptrdiff_t>(origin));
-        out[f].test.assign(rows.begin() + static_cast<std::ptrdiff_t>(origin),
-                           rows.begin() + static_cast<std::ptrdiff_t>(origin + horizon));
+        out[f].test.assign(rows.begin() + static_cast<std::ptrdiff_t>(origin), rows.begin() + static_cast<std::ptrdiff_t>(origin + horizon));
         std::sort(out[f].train.begin(), out[f].train.end());
         std::sort(out[f].test.begin(), out[f].test.end());
     }
@@ -250,8 +248,7 @@ inline std::vector<fold> rolling_origin_folds(const std::vector<double>& times, 
 /// test until it holds at least round(n * test) rows, then to validation
 /// likewise, the rest to train. Needs at least as many groups as non-empty
 /// subsets.
-inline holdout_split grouped_holdout(const std::vector<std::uint32_t>& groups, const split_fractions& fractions,
-                                     std::uint64_t seed) {
+inline holdout_split grouped_holdout(const std::vector<std::uint32_t>& groups, const split_fractions& fractions, std::uint64_t seed) {
     detail::check_fractions(fractions);
     const auto by = detail::rows_by_label(groups);
     std::vector<std::size_t> ids;
@@ -259,8 +256,8 @@ inline holdout_split grouped_holdout(const std::vector<std::uint32_t>& groups, c
         if (!by[g].empty()) ids.push_back(g);
     const std::size_t needed = std::size_t(fractions.train > 0) + (fractions.validation > 0) + (fractions.test > 0);
     if (ids.size() < needed)
-        raise(codes::prep_split_single_group, "grouped holdout: " + std::to_string(ids.size()) + " group(s) cannot fill " +
-                                                  std::to_string(needed) + " subsets with whole groups");
+        raise(codes::prep_split_single_group,
+              "grouped holdout: " + std::to_string(ids.size()) + " group(s) cannot fill " + std::to_string(needed) + " subsets with whole groups");
     random_engine rng(seed);
     rng.shuffle(ids.begin(), ids.end());
     const std::size_t n = groups.size();
@@ -299,8 +296,8 @@ inline std::vector<fold> group_k_folds(const std::vector<std::uint32_t>& groups,
     for (std::size_t g = 0; g < by.size(); ++g)
         if (!by[g].empty()) ids.push_back(g);
     if (ids.size() < k)
-        raise(codes::prep_split_single_group, "group k-fold: " + std::to_string(ids.size()) + " group(s) cannot fill " +
-                                                  std::to_string(k) + " folds with whole groups");
+        raise(codes::prep_split_single_group,
+              "group k-fold: " + std::to_string(ids.size()) + " group(s) cannot fill " + std::to_string(k) + " folds with whole groups");
     random_engine rng(seed);
     rng.shuffle(ids.begin(), ids.end());
     std::stable_sort(ids.begin(), ids.end(), [&](std::size_t a, std::size_t b) { return by[a].size() > by[b].size(); });

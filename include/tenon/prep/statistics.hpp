@@ -69,13 +69,9 @@ struct running_moments {
 
     /// Variance with divisor n (the spread of the values themselves; what a
     /// z-score divides by).
-    double population_variance() const noexcept {
-        return count == 0 ? 0.0 : squared_deviations / static_cast<double>(count);
-    }
+    double population_variance() const noexcept { return count == 0 ? 0.0 : squared_deviations / static_cast<double>(count); }
     /// Variance with divisor n - 1 (unbiased estimate of a population's).
-    double sample_variance() const noexcept {
-        return count < 2 ? 0.0 : squared_deviations / static_cast<double>(count - 1);
-    }
+    double sample_variance() const noexcept { return count < 2 ? 0.0 : squared_deviations / static_cast<double>(count - 1); }
     double population_stddev() const noexcept { return std::sqrt(population_variance()); }
 };
 
@@ -86,8 +82,7 @@ struct running_moments {
 /// Reorders `values` (nth_element); raises prep.rows.empty when it is empty.
 inline double exact_quantile(std::vector<double>& values, double q) {
     if (values.empty()) raise(codes::prep_rows_empty, "exact_quantile: no values");
-    if (!(q >= 0.0 && q <= 1.0))
-        raise(codes::core_argument_invalid, "exact_quantile: q must lie in [0, 1], got " + std::to_string(q));
+    if (!(q >= 0.0 && q <= 1.0)) raise(codes::core_argument_invalid, "exact_quantile: q must lie in [0, 1], got " + std::to_string(q));
     const double h = static_cast<double>(values.size() - 1) * q;
     const auto lower = static_cast<std::size_t>(std::floor(h));
     auto lower_it = values.begin() + static_cast<std::ptrdiff_t>(lower);
@@ -102,12 +97,11 @@ namespace detail {
 inline void require_rows_in_range(const column& c, const std::vector<std::size_t>& rows) {
     for (auto r : rows)
         if (r >= c.size())
-            raise(codes::prep_rows_out_of_range, "column '" + c.name() + "': row " + std::to_string(r) +
-                                                    " is not below the row count " + std::to_string(c.size()));
+            raise(codes::prep_rows_out_of_range,
+                  "column '" + c.name() + "': row " + std::to_string(r) + " is not below the row count " + std::to_string(c.size()));
 }
 inline void require_number_column(const column& c, const char* what) {
-    if (c.kind() == column_kind::categorical)
-        raise(codes::prep_column_kind, std::string(what) + ": column '" + c.name() + "' is categorical");
+    if (c.kind() == column_kind::categorical) raise(codes::prep_column_kind, std::string(what) + ": column '" + c.name() + "' is categorical");
 }
 }  // namespace detail
 
@@ -153,8 +147,7 @@ inline quartile_summary column_quartiles(const column& c, const std::vector<std:
 /// Per-category counts of the present cells of a categorical column over the
 /// given rows, indexed by the column's category code.
 inline std::vector<std::size_t> category_counts(const column& c, const std::vector<std::size_t>& rows) {
-    if (c.kind() != column_kind::categorical)
-        raise(codes::prep_column_kind, "category_counts: column '" + c.name() + "' is " + to_string(c.kind()));
+    if (c.kind() != column_kind::categorical) raise(codes::prep_column_kind, "category_counts: column '" + c.name() + "' is " + to_string(c.kind()));
     detail::require_rows_in_range(c, rows);
     std::vector<std::size_t> counts(c.categories().size(), 0);
     for (auto r : rows)
@@ -181,8 +174,8 @@ public:
     /// exact quantiles and modes: memory grows with all participants' rows).
     virtual std::vector<double> gather_values(const std::vector<double>& local) = 0;
     /// The union of the participants' names, sorted, each with its counts summed.
-    virtual std::vector<std::pair<std::string, std::uint64_t>> merge_named_counts(
-        const std::vector<std::pair<std::string, std::uint64_t>>& local) = 0;
+    virtual std::vector<std::pair<std::string, std::uint64_t>>
+    merge_named_counts(const std::vector<std::pair<std::string, std::uint64_t>>& local) = 0;
 };
 
 /// Collective over `exchange`: every participant's table must have the same
@@ -197,9 +190,9 @@ inline void require_same_columns(const table& t, statistics_exchange& exchange, 
     exchange.sum_counts(participants);
     for (const auto& kv : exchange.merge_named_counts(schema)) {
         if (kv.second != participants[0])
-            raise(codes::distributed_plan_mismatch, who + ": the column " + kv.first + " is held by " + std::to_string(kv.second) + " of " +
-                                                        std::to_string(participants[0]) +
-                                                        " ranks; every rank's table needs the same columns and kinds");
+            raise(codes::distributed_plan_mismatch,
+                  who + ": the column " + kv.first + " is held by " + std::to_string(kv.second) + " of " + std::to_string(participants[0]) +
+                      " ranks; every rank's table needs the same columns and kinds");
     }
 }
 

@@ -28,9 +28,9 @@ enum class column_kind : std::uint8_t { numeric = 0, categorical = 1, datetime =
 
 inline const char* to_string(column_kind kind) noexcept {
     switch (kind) {
-        case column_kind::numeric: return "numeric";
-        case column_kind::categorical: return "categorical";
-        case column_kind::datetime: return "datetime";
+    case column_kind::numeric: return "numeric";
+    case column_kind::categorical: return "categorical";
+    case column_kind::datetime: return "datetime";
     }
     return "unknown";
 }
@@ -81,7 +81,10 @@ public:
 
     void reserve(std::size_t rows) {
         missing_.reserve(rows);
-        if (kind_ == column_kind::categorical) codes_.reserve(rows); else numbers_.reserve(rows);
+        if (kind_ == column_kind::categorical)
+            codes_.reserve(rows);
+        else
+            numbers_.reserve(rows);
     }
 
     /// Appends a value to a numeric or date/time column.
@@ -109,15 +112,16 @@ public:
     }
 
     void push_missing() {
-        if (kind_ == column_kind::categorical) codes_.push_back(0); else numbers_.push_back(0.0);
+        if (kind_ == column_kind::categorical)
+            codes_.push_back(0);
+        else
+            numbers_.push_back(0.0);
         missing_.push_back(1);
     }
 
     /// Names a row for messages: "press_log.csv line 11" for a column of a
     /// table read from a file, "table row 9" otherwise.
-    std::string row_place(std::size_t row) const {
-        return detail::row_place(origin_.get(), origin_ ? origin_->source : std::string(), row);
-    }
+    std::string row_place(std::size_t row) const { return detail::row_place(origin_.get(), origin_ ? origin_->source : std::string(), row); }
     void set_origin(std::shared_ptr<const row_origin> origin) noexcept { origin_ = std::move(origin); }
 
     /// Code of a category text, or -1 when the column never saw it.
@@ -129,9 +133,7 @@ public:
 
 private:
     void require_kind(bool ok, const char* what) const {
-        if (!ok)
-            raise(codes::prep_column_kind, std::string("column '") + name_ + "' is " + to_string(kind_) +
-                                               ", cannot " + what);
+        if (!ok) raise(codes::prep_column_kind, std::string("column '") + name_ + "' is " + to_string(kind_) + ", cannot " + what);
     }
 
     std::string name_;
@@ -159,8 +161,7 @@ public:
 
     column& add_column(std::string name, column_kind kind) {
         for (const auto& c : columns_)
-            if (c.name() == name)
-                raise(codes::prep_csv_duplicate_column, source_ + ": two columns are named '" + name + "'");
+            if (c.name() == name) raise(codes::prep_csv_duplicate_column, source_ + ": two columns are named '" + name + "'");
         columns_.emplace_back(std::move(name), kind);
         columns_.back().set_origin(origin_);
         return columns_.back();
@@ -192,8 +193,7 @@ public:
     std::size_t index_of(std::string_view name) const {
         for (std::size_t k = 0; k < columns_.size(); ++k)
             if (columns_[k].name() == name) return k;
-        raise(codes::prep_column_unknown,
-              (source_.empty() ? std::string("table") : source_) + ": no column named '" + std::string(name) + "'");
+        raise(codes::prep_column_unknown, (source_.empty() ? std::string("table") : source_) + ": no column named '" + std::string(name) + "'");
     }
 
     const column& operator[](std::size_t index) const noexcept { return columns_[index]; }
@@ -227,8 +227,7 @@ inline std::vector<std::uint32_t> dense_codes(const column& c, bool missing_is_v
         const auto missing_code = static_cast<std::uint32_t>(c.categories().size());
         for (std::size_t i = 0; i < c.size(); ++i) {
             if (c.is_missing(i)) {
-                if (!missing_is_value)
-                    raise(codes::prep_value_missing, c.row_place(i) + ", column '" + c.name() + "': the cell is missing");
+                if (!missing_is_value) raise(codes::prep_value_missing, c.row_place(i) + ", column '" + c.name() + "': the cell is missing");
                 out[i] = missing_code;
             } else {
                 out[i] = c.code(i);
@@ -241,8 +240,7 @@ inline std::vector<std::uint32_t> dense_codes(const column& c, bool missing_is_v
     bool has_missing_code = false;
     for (std::size_t i = 0; i < c.size(); ++i) {
         if (c.is_missing(i)) {
-            if (!missing_is_value)
-                raise(codes::prep_value_missing, c.row_place(i) + ", column '" + c.name() + "': the cell is missing");
+            if (!missing_is_value) raise(codes::prep_value_missing, c.row_place(i) + ", column '" + c.name() + "': the cell is missing");
             if (!has_missing_code) {
                 missing_code = static_cast<std::uint32_t>(seen.size());
                 seen.emplace(std::numeric_limits<double>::quiet_NaN(), missing_code);  // placeholder slot

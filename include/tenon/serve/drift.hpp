@@ -125,9 +125,9 @@ enum class drift_status : std::uint8_t { stable, watch, drifted };
 
 inline const char* to_string(drift_status s) noexcept {
     switch (s) {
-        case drift_status::stable: return "stable";
-        case drift_status::watch: return "watch";
-        case drift_status::drifted: return "drifted";
+    case drift_status::stable: return "stable";
+    case drift_status::watch: return "watch";
+    case drift_status::drifted: return "drifted";
     }
     return "unknown";
 }
@@ -155,12 +155,12 @@ struct drift_options {
 
 /// One bin of a column's PSI.
 struct drift_bin {
-    std::string label;           // "[20, 30)", "< 20", "> 120", "(missing)", a category, "x (unseen)"
+    std::string label;  // "[20, 30)", "< 20", "> 120", "(missing)", a category, "x (unseen)"
     std::uint64_t reference_count = 0;
     std::uint64_t window_count = 0;
     double reference_share = 0.0;  // before the floor
     double window_share = 0.0;
-    double contribution = 0.0;     // (a - e) ln(a / e) with floored shares
+    double contribution = 0.0;  // (a - e) ln(a / e) with floored shares
 };
 
 /// Drift of one input column.
@@ -170,14 +170,14 @@ struct feature_drift {
     std::uint64_t reference_rows = 0;  // training rows summarized (present + missing)
     std::uint64_t window_rows = 0;
     std::uint64_t window_missing = 0;  // missing in the window (unreadable included)
-    std::uint64_t unreadable = 0;      // cells not readable as the column's kind
-    std::uint64_t below_range = 0;     // numeric: window values below the training minimum
-    std::uint64_t above_range = 0;     // numeric: window values above the training maximum
+    std::uint64_t unreadable = 0;  // cells not readable as the column's kind
+    std::uint64_t below_range = 0;  // numeric: window values below the training minimum
+    std::uint64_t above_range = 0;  // numeric: window values above the training maximum
     double psi = 0.0;
     /// The PSI that unchanged data exceed with probability psi_noise_significance
     /// for these window and reference sizes (0 when the floor is off).
     double psi_noise = 0.0;
-    double ks = std::numeric_limits<double>::quiet_NaN();        // NaN for categorical columns or no values
+    double ks = std::numeric_limits<double>::quiet_NaN();  // NaN for categorical columns or no values
     /// How far ks may be from the exact two-sample D: 0 (exact), 1/1024
     /// (quantile points) or the largest histogram share (older summaries).
     double ks_error_bound = std::numeric_limits<double>::quiet_NaN();
@@ -218,11 +218,11 @@ struct drift_report {
 inline double population_stability_index(const std::vector<double>& reference_shares, const std::vector<double>& window_shares,
                                          double empty_bin_share = 1e-4) {
     if (reference_shares.size() != window_shares.size())
-        raise(codes::core_shape_mismatch, "population_stability_index: " + std::to_string(reference_shares.size()) + " reference bins but " +
-                                         std::to_string(window_shares.size()) + " window bins");
+        raise(codes::core_shape_mismatch,
+              "population_stability_index: " + std::to_string(reference_shares.size()) + " reference bins but " +
+                  std::to_string(window_shares.size()) + " window bins");
     if (!(empty_bin_share > 0.0 && empty_bin_share <= 0.01))
-        raise(codes::deploy_drift_option, "population_stability_index: empty_bin_share must be in (0, 0.01], got " +
-                                              std::to_string(empty_bin_share));
+        raise(codes::deploy_drift_option, "population_stability_index: empty_bin_share must be in (0, 0.01], got " + std::to_string(empty_bin_share));
     double psi = 0.0;
     for (std::size_t i = 0; i < reference_shares.size(); ++i) {
         const double e = std::max(reference_shares[i], empty_bin_share), a = std::max(window_shares[i], empty_bin_share);
@@ -336,8 +336,7 @@ inline double chi_square_upper_quantile(double degrees, double p) {
 /// of this file). 0 for fewer than two bins, no rows or significance 0.
 inline double psi_noise_floor(std::size_t bins, std::uint64_t n, std::uint64_t m, double significance) {
     if (significance == 0.0 || bins < 2 || n == 0 || m == 0) return 0.0;
-    return (1.0 / static_cast<double>(n) + 1.0 / static_cast<double>(m)) *
-           chi_square_upper_quantile(static_cast<double>(bins - 1), significance);
+    return (1.0 / static_cast<double>(n) + 1.0 / static_cast<double>(m)) * chi_square_upper_quantile(static_cast<double>(bins - 1), significance);
 }
 
 /// The reference's CDF as a step function from its distribution (exact
@@ -356,8 +355,10 @@ inline std::vector<std::pair<double, double>> reference_steps(const feature_refe
         const double steps_k = static_cast<double>(f.quantile_points.size() - 1);
         for (std::size_t k = 0; k < f.quantile_points.size(); ++k) {
             const double share = static_cast<double>(k) / steps_k;
-            if (!steps.empty() && steps.back().first == f.quantile_points[k]) steps.back().second = share;  // ties: the largest k
-            else steps.emplace_back(f.quantile_points[k], share);
+            if (!steps.empty() && steps.back().first == f.quantile_points[k])
+                steps.back().second = share;  // ties: the largest k
+            else
+                steps.emplace_back(f.quantile_points[k], share);
         }
     }
     return steps;
@@ -390,8 +391,7 @@ inline void check_drift_options(const drift_options& o) {
     if (!(o.psi_watch >= 0.0 && o.psi_watch <= o.psi_threshold))
         fail("psi_watch must be in [0, psi_threshold = " + std::to_string(o.psi_threshold) + "], got " + std::to_string(o.psi_watch));
     if (!(o.ks_threshold >= 0.0 && o.ks_threshold <= 1.0)) fail("ks_threshold must be in [0, 1], got " + std::to_string(o.ks_threshold));
-    if (!(o.ks_significance > 0.0 && o.ks_significance < 1.0))
-        fail("ks_significance must be in (0, 1), got " + std::to_string(o.ks_significance));
+    if (!(o.ks_significance > 0.0 && o.ks_significance < 1.0)) fail("ks_significance must be in (0, 1), got " + std::to_string(o.ks_significance));
     if (!(o.empty_bin_share > 0.0 && o.empty_bin_share <= 0.01))
         fail("empty_bin_share must be in (0, 0.01], got " + std::to_string(o.empty_bin_share));
     if (!(o.psi_noise_significance >= 0.0 && o.psi_noise_significance <= 0.5))
@@ -474,8 +474,8 @@ inline void multinomial_draw(random_engine& rng, std::uint64_t trials, const std
 // The PSI noise floor by simulation (see the top of this file): reference
 // shares of the bins the reference holds, and the probability of values
 // the reference never held.
-inline double simulated_psi_noise(const std::vector<double>& reference_shares, double new_value_probability, std::uint64_t n,
-                                  std::uint64_t m, const drift_options& o, std::uint64_t seed) {
+inline double simulated_psi_noise(const std::vector<double>& reference_shares, double new_value_probability, std::uint64_t n, std::uint64_t m,
+                                  const drift_options& o, std::uint64_t seed) {
     if (o.psi_noise_significance == 0.0 || n == 0 || m == 0 || reference_shares.empty()) return 0.0;
     const double p_new = std::min(0.5, std::max(0.0, new_value_probability));
     std::vector<double> window_shares;
@@ -523,8 +523,7 @@ inline void set_psi_noise(feature_drift& f, const feature_reference& ref, const 
     f.psi_noise = simulated_psi_noise(shares, p_new, f.reference_rows, f.window_rows, o, seed);
 }
 
-inline feature_drift numeric_drift(const feature_reference& ref, const column& c, const std::vector<std::size_t>& rows,
-                                   const drift_options& o) {
+inline feature_drift numeric_drift(const feature_reference& ref, const column& c, const std::vector<std::size_t>& rows, const drift_options& o) {
     feature_drift f;
     f.column = ref.column;
     f.kind = ref.kind;
@@ -612,8 +611,7 @@ inline feature_drift numeric_drift(const feature_reference& ref, const column& c
     return f;
 }
 
-inline feature_drift categorical_drift(const feature_reference& ref, const column& c, const std::vector<std::size_t>& rows,
-                                       const drift_options& o) {
+inline feature_drift categorical_drift(const feature_reference& ref, const column& c, const std::vector<std::size_t>& rows, const drift_options& o) {
     feature_drift f;
     f.column = ref.column;
     f.kind = ref.kind;
@@ -640,8 +638,10 @@ inline feature_drift categorical_drift(const feature_reference& ref, const colum
             continue;
         }
         auto u = std::find_if(unseen.begin(), unseen.end(), [&](const auto& kv) { return kv.first == text; });
-        if (u == unseen.end()) unseen.emplace_back(text, 1);
-        else ++u->second;
+        if (u == unseen.end())
+            unseen.emplace_back(text, 1);
+        else
+            ++u->second;
     }
     std::sort(unseen.begin(), unseen.end());
     for (const auto& kv : unseen) {
@@ -668,14 +668,14 @@ inline feature_drift categorical_drift(const feature_reference& ref, const colum
 /// columns; other columns are ignored). Raises deploy.drift.empty_window
 /// for no rows, deploy.input.missing_column when the window lacks a column,
 /// deploy.drift.option for options out of range.
-inline drift_report measure_drift(const std::vector<feature_reference>& references, const table& window,
-                                  const std::vector<std::size_t>& rows, const drift_options& options = {}) {
+inline drift_report measure_drift(const std::vector<feature_reference>& references, const table& window, const std::vector<std::size_t>& rows,
+                                  const drift_options& options = {}) {
     detail::check_drift_options(options);
     if (rows.empty()) raise(codes::deploy_drift_empty_window, "measure_drift: the window has no rows");
     for (auto r : rows)
         if (r >= window.row_count())
-            raise(codes::prep_rows_out_of_range, "measure_drift: row " + std::to_string(r) + " is not below the window's " +
-                                                    std::to_string(window.row_count()) + " rows");
+            raise(codes::prep_rows_out_of_range,
+                  "measure_drift: row " + std::to_string(r) + " is not below the window's " + std::to_string(window.row_count()) + " rows");
     drift_report report;
     report.window_rows = rows.size();
     report.options = options;
@@ -684,14 +684,14 @@ inline drift_report measure_drift(const std::vector<feature_reference>& referenc
         if (!window.contains(ref.column))
             raise(codes::deploy_input_missing_column, "measure_drift: the window has no column '" + ref.column + "' (the model reads it)");
         const column& c = window.at(ref.column);
-        feature_drift f = ref.kind == column_kind::categorical ? detail::categorical_drift(ref, c, rows, options)
-                                                               : detail::numeric_drift(ref, c, rows, options);
+        feature_drift f =
+            ref.kind == column_kind::categorical ? detail::categorical_drift(ref, c, rows, options) : detail::numeric_drift(ref, c, rows, options);
         detail::set_psi_noise(f, ref, options, seed++);
         const bool above_noise = f.psi > f.psi_noise;
         f.psi_flag = f.psi > options.psi_threshold && above_noise;
-        f.status = f.psi_flag || f.ks_flag                   ? drift_status::drifted
-                   : f.psi > options.psi_watch && above_noise ? drift_status::watch
-                                                              : drift_status::stable;
+        f.status = f.psi_flag || f.ks_flag             ? drift_status::drifted
+            : f.psi > options.psi_watch && above_noise ? drift_status::watch
+                                                       : drift_status::stable;
         report.features.push_back(std::move(f));
     }
     return report;
@@ -710,8 +710,8 @@ inline drift_report measure_drift(const std::vector<feature_reference>& referenc
 inline std::string drift_table(const drift_report& r) {
     std::string out;
     char line[256];
-    std::snprintf(line, sizeof line, "%-18s %-11s %9s %9s %8s %8s  %-8s %s\n", "column", "kind", "PSI", "PSI noise", "KS D", "D limit",
-                  "status", "notes");
+    std::snprintf(line, sizeof line, "%-18s %-11s %9s %9s %8s %8s  %-8s %s\n", "column", "kind", "PSI", "PSI noise", "KS D", "D limit", "status",
+                  "notes");
     out += line;
     for (const auto& f : r.features) {
         std::string notes;
@@ -724,9 +724,8 @@ inline std::string drift_table(const drift_report& r) {
         if (f.ks_flag) notes += "D > limit; ";
         if (notes.size() >= 2) notes.resize(notes.size() - 2);
         const auto number = [](double v) { return std::isfinite(v) ? detail::short_number(v) : std::string("-"); };
-        std::snprintf(line, sizeof line, "%-18s %-11s %9s %9s %8s %8s  %-8s %s\n", f.column.c_str(), to_string(f.kind),
-                      number(f.psi).c_str(), number(f.psi_noise).c_str(), number(f.ks).c_str(), number(f.ks_limit).c_str(),
-                      drift_status_name(f.status), notes.c_str());
+        std::snprintf(line, sizeof line, "%-18s %-11s %9s %9s %8s %8s  %-8s %s\n", f.column.c_str(), to_string(f.kind), number(f.psi).c_str(),
+                      number(f.psi_noise).c_str(), number(f.ks).c_str(), number(f.ks_limit).c_str(), drift_status_name(f.status), notes.c_str());
         out += line;
     }
     return out;
@@ -738,31 +737,31 @@ inline std::string to_json(const drift_report& r) {
     using detail::json_number;
     using detail::json_string;
     std::string out = "{\"window_rows\": " + std::to_string(r.window_rows) + ", \"drifted_columns\": " + std::to_string(r.drifted_count()) +
-                      ", \"options\": {\"psi_watch\": " + json_number(r.options.psi_watch) + ", \"psi_threshold\": " +
-                      json_number(r.options.psi_threshold) + ", \"ks_threshold\": " + json_number(r.options.ks_threshold) +
-                      ", \"ks_significance\": " + json_number(r.options.ks_significance) + ", \"empty_bin_share\": " +
-                      json_number(r.options.empty_bin_share) + ", \"psi_noise_significance\": " +
-                      json_number(r.options.psi_noise_significance) + ", \"psi_noise_draws\": " +
-                      std::to_string(r.options.psi_noise_draws) + "}, \"columns\": [";
+        ", \"options\": {\"psi_watch\": " + json_number(r.options.psi_watch) + ", \"psi_threshold\": " + json_number(r.options.psi_threshold) +
+        ", \"ks_threshold\": " + json_number(r.options.ks_threshold) + ", \"ks_significance\": " + json_number(r.options.ks_significance) +
+        ", \"empty_bin_share\": " + json_number(r.options.empty_bin_share) +
+        ", \"psi_noise_significance\": " + json_number(r.options.psi_noise_significance) +
+        ", \"psi_noise_draws\": " + std::to_string(r.options.psi_noise_draws) + "}, \"columns\": [";
     for (std::size_t i = 0; i < r.features.size(); ++i) {
         const feature_drift& f = r.features[i];
         out += i ? ", " : "";
         out += "{\"column\": " + json_string(f.column) + ", \"kind\": " + json_string(to_string(f.kind)) +
-               ", \"status\": " + json_string(drift_status_name(f.status)) + ", \"psi\": " + json_number(f.psi) +
-               ", \"psi_noise\": " + json_number(f.psi_noise) + ", \"psi_flag\": " + json_bool(f.psi_flag) + ", \"ks\": " + json_number(f.ks) + ", \"ks_limit\": " +
-               json_number(f.ks_limit) + ", \"ks_flag\": " + json_bool(f.ks_flag) + ", \"ks_error_bound\": " + json_number(f.ks_error_bound) + ", \"reference_rows\": " +
-               std::to_string(f.reference_rows) + ", \"window_rows\": " + std::to_string(f.window_rows) + ", \"window_missing\": " +
-               std::to_string(f.window_missing) + ", \"unreadable\": " + std::to_string(f.unreadable) + ", \"below_range\": " +
-               std::to_string(f.below_range) + ", \"above_range\": " + std::to_string(f.above_range) + ", \"unseen_categories\": {";
+            ", \"status\": " + json_string(drift_status_name(f.status)) + ", \"psi\": " + json_number(f.psi) +
+            ", \"psi_noise\": " + json_number(f.psi_noise) + ", \"psi_flag\": " + json_bool(f.psi_flag) + ", \"ks\": " + json_number(f.ks) +
+            ", \"ks_limit\": " + json_number(f.ks_limit) + ", \"ks_flag\": " + json_bool(f.ks_flag) +
+            ", \"ks_error_bound\": " + json_number(f.ks_error_bound) + ", \"reference_rows\": " + std::to_string(f.reference_rows) +
+            ", \"window_rows\": " + std::to_string(f.window_rows) + ", \"window_missing\": " + std::to_string(f.window_missing) +
+            ", \"unreadable\": " + std::to_string(f.unreadable) + ", \"below_range\": " + std::to_string(f.below_range) +
+            ", \"above_range\": " + std::to_string(f.above_range) + ", \"unseen_categories\": {";
         for (std::size_t k = 0; k < f.unseen_categories.size(); ++k)
             out += (k ? ", " : "") + json_string(f.unseen_categories[k].first) + ": " + std::to_string(f.unseen_categories[k].second);
         out += "}, \"bins\": [";
         for (std::size_t k = 0; k < f.bins.size(); ++k) {
             const drift_bin& b = f.bins[k];
-            out += (k ? ", " : "") + std::string("{\"label\": ") + json_string(b.label) + ", \"reference_count\": " +
-                   std::to_string(b.reference_count) + ", \"window_count\": " + std::to_string(b.window_count) +
-                   ", \"reference_share\": " + json_number(b.reference_share) + ", \"window_share\": " + json_number(b.window_share) +
-                   ", \"contribution\": " + json_number(b.contribution) + "}";
+            out += (k ? ", " : "") + std::string("{\"label\": ") + json_string(b.label) +
+                ", \"reference_count\": " + std::to_string(b.reference_count) + ", \"window_count\": " + std::to_string(b.window_count) +
+                ", \"reference_share\": " + json_number(b.reference_share) + ", \"window_share\": " + json_number(b.window_share) +
+                ", \"contribution\": " + json_number(b.contribution) + "}";
         }
         out += "]}";
     }

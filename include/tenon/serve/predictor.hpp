@@ -81,30 +81,30 @@ TENON_NAMESPACE_BEGIN
 /// Outcome of a non-throwing call.
 enum class input_status : std::uint8_t {
     ok = 0,
-    missing_column,   // deploy.input.missing_column
-    missing_value,    // deploy.input.missing_value
-    not_numeric,      // deploy.input.not_numeric
+    missing_column,  // deploy.input.missing_column
+    missing_value,  // deploy.input.missing_value
+    not_numeric,  // deploy.input.not_numeric
     unseen_category,  // deploy.input.unseen_category
-    non_finite,       // deploy.input.non_finite
-    shape,            // deploy.input.shape (too many rows, wrong count, no plan)
+    non_finite,  // deploy.input.non_finite
+    shape,  // deploy.input.shape (too many rows, wrong count, no plan)
 };
 
 struct predict_status {
     input_status code = input_status::ok;
-    std::uint32_t row = 0;     // row of the call
+    std::uint32_t row = 0;  // row of the call
     std::uint32_t column = 0;  // input column (raw calls) or feature (prepared calls)
 
     bool ok() const noexcept { return code == input_status::ok; }
     /// The stable error code, e.g. "deploy.input.missing_column"; "" when ok.
     const char* code_text() const noexcept {
         switch (code) {
-            case input_status::ok: return "";
-            case input_status::missing_column: return codes::deploy_input_missing_column;
-            case input_status::missing_value: return codes::deploy_input_missing_value;
-            case input_status::not_numeric: return codes::deploy_input_not_numeric;
-            case input_status::unseen_category: return codes::deploy_input_unseen_category;
-            case input_status::non_finite: return codes::deploy_input_non_finite;
-            case input_status::shape: return codes::deploy_input_shape;
+        case input_status::ok: return "";
+        case input_status::missing_column: return codes::deploy_input_missing_column;
+        case input_status::missing_value: return codes::deploy_input_missing_value;
+        case input_status::not_numeric: return codes::deploy_input_not_numeric;
+        case input_status::unseen_category: return codes::deploy_input_unseen_category;
+        case input_status::non_finite: return codes::deploy_input_non_finite;
+        case input_status::shape: return codes::deploy_input_shape;
         }
         return "";
     }
@@ -113,8 +113,8 @@ struct predict_status {
 /// Where an input cell lies relative to the training rows.
 enum class range_flag : std::uint8_t {
     inside = 0,
-    below = 1,            // a number below the training minimum
-    above = 2,            // a number above the training maximum
+    below = 1,  // a number below the training minimum
+    above = 2,  // a number above the training maximum
     unseen_category = 3,  // a category never seen (encoded by the column's policy)
 };
 
@@ -228,9 +228,9 @@ enum class step_kind : std::uint8_t { dense, activate, layer_norm, batch_norm, a
 struct program_step {
     step_kind kind = step_kind::dense;
     std::size_t in = 0, in2 = 0, out = 0;  // buffer ids
-    std::size_t inputs = 0, outputs = 0;   // widths
+    std::size_t inputs = 0, outputs = 0;  // widths
     std::size_t a = 0, b = 0, c = 0, d = 0;  // offsets into the value store (weights, bias, gain, ...)
-    std::size_t scratch = 0;                 // buffer id of a scratch row block (layer normalization)
+    std::size_t scratch = 0;  // buffer id of a scratch row block (layer normalization)
     bool has_bias = false;
     activation function = activation::identity;
     double coefficient = 0.0;
@@ -238,8 +238,8 @@ struct program_step {
     // Set by specialise_steps for a dense step (run as one dense_rows pass):
     bool relu_after = false;  // the relu step that followed is fused in
     bool has_addend = false;  // the sum step that followed is fused in:
-    std::size_t addend = 0;   //   the buffer added to the result
-    std::size_t t = 0;        // offset of W transposed (outputs x inputs) when outputs < thin_columns
+    std::size_t addend = 0;  //   the buffer added to the result
+    std::size_t t = 0;  // offset of W transposed (outputs x inputs) when outputs < thin_columns
     small_dense_version version = small_dense_version::portable;  // the row loop for calls of few rows
     // Set by group_steps: this dense step and the group - 1 after it have the
     // same shape and read nothing the others write; calls of few rows (and
@@ -254,7 +254,7 @@ struct column_info {
     std::string name;
     column_kind kind = column_kind::numeric;
     time_format time_form = time_format::detect;  // date/time: how raw cells are written
-    time_encoding time = time_encoding::value;    // date/time: scaled stamp and/or cyclic values
+    time_encoding time = time_encoding::value;  // date/time: scaled stamp and/or cyclic values
     fill_value fill;
     bool indicator = false;
     scaling scale;
@@ -278,7 +278,7 @@ struct compiled_model {
     std::vector<std::string> class_names;
     std::vector<feature_reference> references;
     std::optional<interval_calibration> interval;  // regression only
-    std::optional<class_calibration> classes;      // classification only
+    std::optional<class_calibration> classes;  // classification only
     std::vector<program_step> steps;
     std::vector<std::size_t> buffer_widths;  // buffer 0 holds the prepared features
     std::size_t output_buffer = 0;
@@ -326,8 +326,9 @@ struct compiled_model {
         s.inputs = width;
         if (r.kind == "dense") {
             if (r.count("inputs") != width)
-                raise(codes::deploy_model_shape_mismatch, "predictor: dense layer '" + name + "' takes " + std::to_string(r.count("inputs")) +
-                                                        " inputs, it is given " + std::to_string(width));
+                raise(codes::deploy_model_shape_mismatch,
+                      "predictor: dense layer '" + name + "' takes " + std::to_string(r.count("inputs")) + " inputs, it is given " +
+                          std::to_string(width));
             s.kind = step_kind::dense;
             s.outputs = r.count("outputs");
             s.a = put(w.next_parameter());
@@ -344,7 +345,8 @@ struct compiled_model {
             return in;  // inference passes values through
         } else if (r.kind == "layer_norm") {
             if (r.count("width") != width)
-                raise(codes::deploy_model_shape_mismatch, "predictor: layer normalization '" + name + "' does not fit width " + std::to_string(width));
+                raise(codes::deploy_model_shape_mismatch,
+                      "predictor: layer normalization '" + name + "' does not fit width " + std::to_string(width));
             s.kind = step_kind::layer_norm;
             s.outputs = width;
             s.epsilon = r.number("epsilon");
@@ -353,7 +355,8 @@ struct compiled_model {
             s.scratch = new_buffer(width);
         } else if (r.kind == "batch_norm") {
             if (r.count("width") != width)
-                raise(codes::deploy_model_shape_mismatch, "predictor: batch normalization '" + name + "' does not fit width " + std::to_string(width));
+                raise(codes::deploy_model_shape_mismatch,
+                      "predictor: batch normalization '" + name + "' does not fit width " + std::to_string(width));
             s.kind = step_kind::batch_norm;
             s.outputs = width;
             s.epsilon = r.number("epsilon");
@@ -379,8 +382,9 @@ struct compiled_model {
         } else if (r.kind == "linear_bypass") {
             const std::size_t outputs = r.count("outputs");
             if (r.count("inputs") != width)
-                raise(codes::deploy_model_shape_mismatch, "predictor: linear bypass '" + name + "' takes " + std::to_string(r.count("inputs")) +
-                                                        " inputs, it is given " + std::to_string(width));
+                raise(codes::deploy_model_shape_mismatch,
+                      "predictor: linear bypass '" + name + "' takes " + std::to_string(r.count("inputs")) + " inputs, it is given " +
+                          std::to_string(width));
             const std::size_t inner = compile_chain(r.children, name, in, w);
             if (buffer_widths[inner] != outputs)
                 raise(codes::deploy_model_shape_mismatch, "predictor: linear bypass '" + name + "' inner output has the wrong width");
@@ -412,10 +416,12 @@ struct compiled_model {
 inline void require_known_kinds(const std::vector<layer_record>& children, const std::string& prefix) {
     for (const layer_record& r : children) {
         const std::string name = prefix.empty() ? r.name : prefix + "." + r.name;
-        if (r.kind == "residual" || r.kind == "linear_bypass") require_known_kinds(r.children, name);
+        if (r.kind == "residual" || r.kind == "linear_bypass")
+            require_known_kinds(r.children, name);
         else if (r.kind != "dense" && r.kind != "activation" && r.kind != "dropout" && r.kind != "layer_norm" && r.kind != "batch_norm")
-            raise(codes::deploy_predictor_unsupported_layer, "predictor: layer '" + name + "' of kind '" + r.kind +
-                                                       "' cannot be evaluated (dense, activation, dropout, layer_norm, batch_norm, residual, linear_bypass)");
+            raise(codes::deploy_predictor_unsupported_layer,
+                  "predictor: layer '" + name + "' of kind '" + r.kind +
+                      "' cannot be evaluated (dense, activation, dropout, layer_norm, batch_norm, residual, linear_bypass)");
     }
 }
 
@@ -438,7 +444,8 @@ std::vector<program_step> interleave_members(std::vector<program_step> steps, co
     for (const program_step& s : steps) {
         if (chain >= ends.size()) return steps;
         const auto reads_own = [&](std::size_t b) { return b == 0 || owner[b] == chain; };
-        if (!reads_own(s.in) || (s.kind == step_kind::add && !reads_own(s.in2)) || (s.kind == step_kind::dense && s.has_addend && !reads_own(s.addend)))
+        if (!reads_own(s.in) || (s.kind == step_kind::add && !reads_own(s.in2)) ||
+            (s.kind == step_kind::dense && s.has_addend && !reads_own(s.addend)))
             return steps;
         if (owner[s.out] != SIZE_MAX || s.out == 0) return steps;
         owner[s.out] = chain;
@@ -689,8 +696,7 @@ public:
     /// `count` typed rows through a binding made by bind<Row>().
     template <class Row>
     predict_status try_predict_rows(const row_binding<Row>& binding, const Row* rows, std::size_t count, prediction_view<T>& out) noexcept {
-        if (count > capacity_ || !model_->plan || binding.model != model_.get())
-            return {input_status::shape, static_cast<std::uint32_t>(count), 0};
+        if (count > capacity_ || !model_->plan || binding.model != model_.get()) return {input_status::shape, static_cast<std::uint32_t>(count), 0};
         for (std::size_t i = 0; i < count; ++i)
             for (std::size_t k = 0; k < input_count(); ++k) {
                 const predict_status s = prepare_cell(i, k, row_fields<Row>::get(rows[i], binding.field_of_column[k]));
@@ -732,15 +738,15 @@ public:
         const std::string col = prepared ? "feature " + std::to_string(s.column)
                                          : (s.column < input_count() ? "column '" + model_->columns[s.column].name + "'" : "a column");
         switch (s.code) {
-            case input_status::ok: return "ok";
-            case input_status::missing_column: return at + ": the row has no cell for " + col;
-            case input_status::missing_value: return at + ", " + col + ": the cell is missing and the plan has no fill for it";
-            case input_status::not_numeric: return at + ", " + col + ": the cell is not a finite number or date/time";
-            case input_status::unseen_category: return at + ", " + col + ": the category was not seen in the training rows (policy: fail)";
-            case input_status::non_finite: return at + ", " + col + ": the value is NaN or infinite";
-            case input_status::shape:
-                return !model_->plan && !prepared ? std::string("predictor: the model has no preparation plan; use predict_prepared")
-                                                  : "predictor: " + std::to_string(rows) + " rows exceed the capacity of " + std::to_string(capacity_);
+        case input_status::ok: return "ok";
+        case input_status::missing_column: return at + ": the row has no cell for " + col;
+        case input_status::missing_value: return at + ", " + col + ": the cell is missing and the plan has no fill for it";
+        case input_status::not_numeric: return at + ", " + col + ": the cell is not a finite number or date/time";
+        case input_status::unseen_category: return at + ", " + col + ": the category was not seen in the training rows (policy: fail)";
+        case input_status::non_finite: return at + ", " + col + ": the value is NaN or infinite";
+        case input_status::shape:
+            return !model_->plan && !prepared ? std::string("predictor: the model has no preparation plan; use predict_prepared")
+                                              : "predictor: " + std::to_string(rows) + " rows exceed the capacity of " + std::to_string(capacity_);
         }
         return "unknown";
     }
@@ -755,7 +761,8 @@ private:
         if (!s.ok()) raise(s.code_text(), describe(s, rows, prepared));
     }
 
-    static std::shared_ptr<const model_type> build_program(const model_file<T>& file, const measured_plan* plan, const std::vector<feature_reference>& refs,
+    static std::shared_ptr<const model_type> build_program(const model_file<T>& file, const measured_plan* plan,
+                                                           const std::vector<feature_reference>& refs,
                                                            const model_calibration* calibration = nullptr) {
         // Kinds, then names and shapes for every member, before anything is compiled.
         detail::require_known_kinds(file.architecture.children, std::string());
@@ -796,8 +803,10 @@ private:
             if (plan->has_target()) {
                 m->classification = plan->target_type() == target_kind::classification;
                 m->regression = !m->classification;
-                if (m->classification) m->class_names = plan->class_names();
-                else m->target_scale = plan->target_scaling();
+                if (m->classification)
+                    m->class_names = plan->class_names();
+                else
+                    m->target_scale = plan->target_scaling();
             }
         } else {
             for (const layer_record& r : file.architecture.children) {
@@ -805,7 +814,8 @@ private:
                 if (width != 0) break;
             }
             if (width == 0)
-                raise(codes::deploy_model_shape_mismatch, "predictor: without a plan the first layer must be dense or a linear bypass to fix the input width");
+                raise(codes::deploy_model_shape_mismatch,
+                      "predictor: without a plan the first layer must be dense or a linear bypass to fix the input width");
         }
         m->references = refs;
         m->feature_count = width;
@@ -819,16 +829,18 @@ private:
             typename model_type::weight_cursor cursor{member, 0, parameters};
             const std::size_t b = m->compile_chain(file.architecture.children, std::string(), 0, cursor);
             if (m->buffer_widths[b] != m->output_count)
-                raise(codes::deploy_model_shape_mismatch, "predictor: an ensemble member gives " + std::to_string(m->buffer_widths[b]) +
-                                                        " outputs, the first gives " + std::to_string(m->output_count));
+                raise(codes::deploy_model_shape_mismatch,
+                      "predictor: an ensemble member gives " + std::to_string(m->buffer_widths[b]) + " outputs, the first gives " +
+                          std::to_string(m->output_count));
             m->member_buffers.push_back(b);
         }
         if (m->classification && m->output_count != m->class_names.size())
-            raise(codes::deploy_model_shape_mismatch, "predictor: the network gives " + std::to_string(m->output_count) + " outputs for " +
-                                                    std::to_string(m->class_names.size()) + " classes");
+            raise(codes::deploy_model_shape_mismatch,
+                  "predictor: the network gives " + std::to_string(m->output_count) + " outputs for " + std::to_string(m->class_names.size()) +
+                      " classes");
         if (m->regression && m->output_count != 1)
-            raise(codes::deploy_model_shape_mismatch, "predictor: the network gives " + std::to_string(m->output_count) +
-                                                    " outputs for one regression target");
+            raise(codes::deploy_model_shape_mismatch,
+                  "predictor: the network gives " + std::to_string(m->output_count) + " outputs for one regression target");
         // A calibration is used only for the kind of target it was fitted for.
         if (calibration && m->regression) m->interval = calibration->interval;
         if (calibration && m->classification) m->classes = calibration->classes;
@@ -937,82 +949,82 @@ private:
             T* y = buffers_[s.out].data();
             const std::size_t w = s.outputs, size = rows * w;
             switch (s.kind) {
-                case detail::step_kind::dense: {
-                    // The sum, bias, flush, fused relu and fused sum in one pass
-                    // (specialise_steps), for the steps of its group at once
-                    // where gemm would take the unpacked loops.
-                    if (s.group == 1 && rows < detail::always_thin_rows<T>) {
-                        detail::small_dense<T>(rows, s.inputs, w, x, store + s.a, store + s.t, finish_of(s), y, s.version);
-                    } else if (rows < detail::always_thin_rows<T> || w < detail::thin_columns<T>) {
-                        const T* xs[detail::most_grouped];
-                        const T* ws[detail::most_grouped];
-                        const T* wts[detail::most_grouped];
-                        const T* biases[detail::most_grouped];
-                        bool relus[detail::most_grouped];
-                        const T* addends[detail::most_grouped];
-                        T* ys[detail::most_grouped];
-                        for (std::size_t g = 0; g < s.group; ++g) {
-                            const detail::program_step& t = m.steps[step + g];
-                            xs[g] = buffers_[t.in].data();
-                            ws[g] = store + t.a;
-                            wts[g] = store + t.t;
-                            biases[g] = t.has_bias ? store + t.b : nullptr;
-                            relus[g] = t.relu_after;
-                            addends[g] = t.has_addend ? buffers_[t.addend].data() : nullptr;
-                            ys[g] = buffers_[t.out].data();
-                        }
-                        detail::dense_group<T>(rows, s.group, {xs, ws, wts, biases, relus, addends, ys}, s.inputs, w, s.version);
-                        step += s.group - 1;
-                    } else {
-                        detail::dense_rows<T>(rows, s.inputs, w, x, store + s.a, store + s.t, finish_of(s), y);
+            case detail::step_kind::dense: {
+                // The sum, bias, flush, fused relu and fused sum in one pass
+                // (specialise_steps), for the steps of its group at once
+                // where gemm would take the unpacked loops.
+                if (s.group == 1 && rows < detail::always_thin_rows<T>) {
+                    detail::small_dense<T>(rows, s.inputs, w, x, store + s.a, store + s.t, finish_of(s), y, s.version);
+                } else if (rows < detail::always_thin_rows<T> || w < detail::thin_columns<T>) {
+                    const T* xs[detail::most_grouped];
+                    const T* ws[detail::most_grouped];
+                    const T* wts[detail::most_grouped];
+                    const T* biases[detail::most_grouped];
+                    bool relus[detail::most_grouped];
+                    const T* addends[detail::most_grouped];
+                    T* ys[detail::most_grouped];
+                    for (std::size_t g = 0; g < s.group; ++g) {
+                        const detail::program_step& t = m.steps[step + g];
+                        xs[g] = buffers_[t.in].data();
+                        ws[g] = store + t.a;
+                        wts[g] = store + t.t;
+                        biases[g] = t.has_bias ? store + t.b : nullptr;
+                        relus[g] = t.relu_after;
+                        addends[g] = t.has_addend ? buffers_[t.addend].data() : nullptr;
+                        ys[g] = buffers_[t.out].data();
                     }
-                    continue;  // flushed already
+                    detail::dense_group<T>(rows, s.group, {xs, ws, wts, biases, relus, addends, ys}, s.inputs, w, s.version);
+                    step += s.group - 1;
+                } else {
+                    detail::dense_rows<T>(rows, s.inputs, w, x, store + s.a, store + s.t, finish_of(s), y);
                 }
-                case detail::step_kind::activate: activate_values(s, x, y, rows); break;
-                case detail::step_kind::layer_norm: {
-                    // As layers/normalization.hpp records it: centred = x - mean_row,
-                    // variance = mean_row(centred^2), y = centred * (variance + eps)^-0.5 * gain + bias.
-                    // Each operation is its own pass through memory, as on the tape, so a
-                    // compiler cannot fuse a multiply and an add into one rounding (FMA).
-                    const T eps = static_cast<T>(s.epsilon), count = static_cast<T>(w);
-                    const T* gain = store + s.a;
-                    const T* bias = store + s.b;
-                    T* squares = buffers_[s.scratch].data();
-                    for (std::size_t i = 0; i < rows; ++i) {
-                        const T* xi = x + i * w;
-                        T* yi = y + i * w;
-                        T* qi = squares + i * w;
-                        T mean = T(0);
-                        for (std::size_t j = 0; j < w; ++j) mean += xi[j];
-                        mean /= count;
-                        for (std::size_t j = 0; j < w; ++j) yi[j] = xi[j] - mean;
-                        for (std::size_t j = 0; j < w; ++j) qi[j] = yi[j] * yi[j];
-                        T variance = T(0);
-                        for (std::size_t j = 0; j < w; ++j) variance += qi[j];
-                        variance /= count;
-                        const T inv = std::pow(variance + eps, T(-0.5));
-                        for (std::size_t j = 0; j < w; ++j) yi[j] = yi[j] * inv;
-                        for (std::size_t j = 0; j < w; ++j) yi[j] = yi[j] * gain[j];
-                        for (std::size_t j = 0; j < w; ++j) yi[j] = yi[j] + bias[j];
-                    }
-                    break;
+                continue;  // flushed already
+            }
+            case detail::step_kind::activate: activate_values(s, x, y, rows); break;
+            case detail::step_kind::layer_norm: {
+                // As layers/normalization.hpp records it: centred = x - mean_row,
+                // variance = mean_row(centred^2), y = centred * (variance + eps)^-0.5 * gain + bias.
+                // Each operation is its own pass through memory, as on the tape, so a
+                // compiler cannot fuse a multiply and an add into one rounding (FMA).
+                const T eps = static_cast<T>(s.epsilon), count = static_cast<T>(w);
+                const T* gain = store + s.a;
+                const T* bias = store + s.b;
+                T* squares = buffers_[s.scratch].data();
+                for (std::size_t i = 0; i < rows; ++i) {
+                    const T* xi = x + i * w;
+                    T* yi = y + i * w;
+                    T* qi = squares + i * w;
+                    T mean = T(0);
+                    for (std::size_t j = 0; j < w; ++j) mean += xi[j];
+                    mean /= count;
+                    for (std::size_t j = 0; j < w; ++j) yi[j] = xi[j] - mean;
+                    for (std::size_t j = 0; j < w; ++j) qi[j] = yi[j] * yi[j];
+                    T variance = T(0);
+                    for (std::size_t j = 0; j < w; ++j) variance += qi[j];
+                    variance /= count;
+                    const T inv = std::pow(variance + eps, T(-0.5));
+                    for (std::size_t j = 0; j < w; ++j) yi[j] = yi[j] * inv;
+                    for (std::size_t j = 0; j < w; ++j) yi[j] = yi[j] * gain[j];
+                    for (std::size_t j = 0; j < w; ++j) yi[j] = yi[j] + bias[j];
                 }
-                case detail::step_kind::batch_norm: {
-                    const T* mean = store + s.a;
-                    const T* inv = store + s.b;
-                    const T* gain = store + s.c;
-                    const T* bias = store + s.d;
-                    for (std::size_t k = 0; k < size; ++k) y[k] = x[k] - mean[k % w];
-                    for (std::size_t k = 0; k < size; ++k) y[k] = y[k] * inv[k % w];
-                    for (std::size_t k = 0; k < size; ++k) y[k] = y[k] * gain[k % w];
-                    for (std::size_t k = 0; k < size; ++k) y[k] = y[k] + bias[k % w];
-                    break;
-                }
-                case detail::step_kind::add: {
-                    const T* fx = buffers_[s.in2].data();
-                    for (std::size_t k = 0; k < size; ++k) y[k] = x[k] + fx[k];
-                    break;
-                }
+                break;
+            }
+            case detail::step_kind::batch_norm: {
+                const T* mean = store + s.a;
+                const T* inv = store + s.b;
+                const T* gain = store + s.c;
+                const T* bias = store + s.d;
+                for (std::size_t k = 0; k < size; ++k) y[k] = x[k] - mean[k % w];
+                for (std::size_t k = 0; k < size; ++k) y[k] = y[k] * inv[k % w];
+                for (std::size_t k = 0; k < size; ++k) y[k] = y[k] * gain[k % w];
+                for (std::size_t k = 0; k < size; ++k) y[k] = y[k] + bias[k % w];
+                break;
+            }
+            case detail::step_kind::add: {
+                const T* fx = buffers_[s.in2].data();
+                for (std::size_t k = 0; k < size; ++k) y[k] = x[k] + fx[k];
+                break;
+            }
             }
             for (std::size_t k = 0; k < size; ++k) y[k] = detail::flush_subnormal(y[k]);
         }
@@ -1132,38 +1144,50 @@ private:
         const std::size_t w = s.outputs, size = rows * w;
         const T a = static_cast<T>(s.coefficient);
         switch (s.function) {
-            case activation::identity: std::copy(x, x + size, y); return;
-            case activation::tanh: for (std::size_t k = 0; k < size; ++k) y[k] = std::tanh(x[k]); return;
-            case activation::sigmoid: for (std::size_t k = 0; k < size; ++k) y[k] = detail::stable_sigmoid(x[k]); return;
-            case activation::relu: for (std::size_t k = 0; k < size; ++k) y[k] = x[k] > T(0) ? x[k] : T(0); return;
-            case activation::leaky_relu: for (std::size_t k = 0; k < size; ++k) y[k] = x[k] > T(0) ? x[k] : a * x[k]; return;
-            case activation::elu: for (std::size_t k = 0; k < size; ++k) y[k] = x[k] > T(0) ? x[k] : a * std::expm1(x[k]); return;
-            case activation::softplus: for (std::size_t k = 0; k < size; ++k) y[k] = detail::stable_softplus(x[k]); return;
-            case activation::gelu:
-                for (std::size_t k = 0; k < size; ++k) y[k] = T(0.5) * x[k] * (T(1) + std::erf(x[k] * T(detail::inv_sqrt2)));
-                return;
-            case activation::gelu_tanh:
-                for (std::size_t k = 0; k < size; ++k) {
-                    const T u = T(detail::gelu_sqrt_2_over_pi) * (x[k] + T(detail::gelu_cubic) * x[k] * x[k] * x[k]);
-                    y[k] = T(0.5) * x[k] * (T(1) + std::tanh(u));
+        case activation::identity: std::copy(x, x + size, y); return;
+        case activation::tanh:
+            for (std::size_t k = 0; k < size; ++k) y[k] = std::tanh(x[k]);
+            return;
+        case activation::sigmoid:
+            for (std::size_t k = 0; k < size; ++k) y[k] = detail::stable_sigmoid(x[k]);
+            return;
+        case activation::relu:
+            for (std::size_t k = 0; k < size; ++k) y[k] = x[k] > T(0) ? x[k] : T(0);
+            return;
+        case activation::leaky_relu:
+            for (std::size_t k = 0; k < size; ++k) y[k] = x[k] > T(0) ? x[k] : a * x[k];
+            return;
+        case activation::elu:
+            for (std::size_t k = 0; k < size; ++k) y[k] = x[k] > T(0) ? x[k] : a * std::expm1(x[k]);
+            return;
+        case activation::softplus:
+            for (std::size_t k = 0; k < size; ++k) y[k] = detail::stable_softplus(x[k]);
+            return;
+        case activation::gelu:
+            for (std::size_t k = 0; k < size; ++k) y[k] = T(0.5) * x[k] * (T(1) + std::erf(x[k] * T(detail::inv_sqrt2)));
+            return;
+        case activation::gelu_tanh:
+            for (std::size_t k = 0; k < size; ++k) {
+                const T u = T(detail::gelu_sqrt_2_over_pi) * (x[k] + T(detail::gelu_cubic) * x[k] * x[k] * x[k]);
+                y[k] = T(0.5) * x[k] * (T(1) + std::tanh(u));
+            }
+            return;
+        case activation::softmax:
+        case activation::log_softmax:
+            for (std::size_t i = 0; i < rows; ++i) {
+                const T* row = x + i * w;
+                T* yi = y + i * w;
+                T mx = row[0];
+                for (std::size_t j = 1; j < w; ++j) mx = row[j] > mx ? row[j] : mx;
+                T sum = T(0);
+                for (std::size_t j = 0; j < w; ++j) sum += std::exp(row[j] - mx);
+                const T log_sum = std::log(sum);
+                for (std::size_t j = 0; j < w; ++j) {
+                    const T l = (row[j] - mx) - log_sum;
+                    yi[j] = s.function == activation::softmax ? std::exp(l) : l;
                 }
-                return;
-            case activation::softmax:
-            case activation::log_softmax:
-                for (std::size_t i = 0; i < rows; ++i) {
-                    const T* row = x + i * w;
-                    T* yi = y + i * w;
-                    T mx = row[0];
-                    for (std::size_t j = 1; j < w; ++j) mx = row[j] > mx ? row[j] : mx;
-                    T sum = T(0);
-                    for (std::size_t j = 0; j < w; ++j) sum += std::exp(row[j] - mx);
-                    const T log_sum = std::log(sum);
-                    for (std::size_t j = 0; j < w; ++j) {
-                        const T l = (row[j] - mx) - log_sum;
-                        yi[j] = s.function == activation::softmax ? std::exp(l) : l;
-                    }
-                }
-                return;
+            }
+            return;
         }
     }
 
@@ -1172,12 +1196,12 @@ private:
     std::vector<std::vector<T>> buffers_;
     std::vector<T> outputs_;
     std::vector<T> member_values_;  // members x rows x width (an ensemble only)
-    std::vector<T> spread_;         // rows x width
+    std::vector<T> spread_;  // rows x width
     std::vector<range_flag> flags_;
-    std::vector<T> low_, high_;          // the band (regression with an interval)
-    std::vector<std::uint64_t> sets_;    // class-set bits (classification with sets)
+    std::vector<T> low_, high_;  // the band (regression with an interval)
+    std::vector<std::uint64_t> sets_;  // class-set bits (classification with sets)
     std::vector<std::array<char, 32>> text_;  // numbers given for categorical columns, as text
-    std::uint64_t generation_ = 0;            // of the holder it was refreshed from
+    std::uint64_t generation_ = 0;  // of the holder it was refreshed from
 };
 
 /// Publishes predictors to many threads, read-copy-update style. The host

@@ -197,8 +197,8 @@ struct model_file_options {
 /// metadata, reference summaries of `train_rows` of `t` (the rows fit_model
 /// was given) and a replay sample.
 template <class T>
-model_file<T> make_model_file(const fitted_model<T>& model, const table& t, const std::vector<std::size_t>& train_rows, const model_settings& settings,
-                              const model_file_options& options = {}) {
+model_file<T> make_model_file(const fitted_model<T>& model, const table& t, const std::vector<std::size_t>& train_rows,
+                              const model_settings& settings, const model_file_options& options = {}) {
     model_file<T> m = capture_network(model.net);
     for (const auto& member : model.members) m.members.push_back(capture_network(member).weights);
     m.plan.emplace(model.plan);
@@ -261,8 +261,9 @@ template <class T>
 model_file<T> make_model_file(const fitted_model<T>& model, const table& t, const model_file_options& options = {}) {
     for (const std::size_t r : model.fitted_rows)
         if (r >= t.row_count()) {
-            raise(codes::train_option_invalid, "make_model_file: the model was fitted on row " + std::to_string(r) + ", and the table has " +
-                                                   std::to_string(t.row_count()) + " rows (pass the table fit_model was given)");
+            raise(codes::train_option_invalid,
+                  "make_model_file: the model was fitted on row " + std::to_string(r) + ", and the table has " + std::to_string(t.row_count()) +
+                      " rows (pass the table fit_model was given)");
         }
     return make_model_file(model, t, model.fitted_rows, model.settings, options);
 }

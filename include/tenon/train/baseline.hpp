@@ -46,8 +46,9 @@ template <class T>
 linear_fit fit_least_squares(const matrix<T>& features, const matrix<T>& targets, double ridge = 1e-4) {
     const std::size_t n = features.shape()[0], p = features.shape()[1], m = targets.shape()[1];
     if (n == 0 || targets.shape()[0] != n) {
-        raise(codes::core_shape_mismatch, "fit_least_squares: " + std::to_string(n) + " feature rows and " + std::to_string(targets.shape()[0]) +
-                                         " target rows (needs the same count, at least 1)");
+        raise(codes::core_shape_mismatch,
+              "fit_least_squares: " + std::to_string(n) + " feature rows and " + std::to_string(targets.shape()[0]) +
+                  " target rows (needs the same count, at least 1)");
     }
     if (!(ridge > 0.0)) raise(codes::core_argument_invalid, "fit_least_squares: the ridge must be positive, got " + std::to_string(ridge));
     std::vector<double> mean_x(p, 0.0), mean_y(m, 0.0);
@@ -74,7 +75,8 @@ linear_fit fit_least_squares(const matrix<T>& features, const matrix<T>& targets
     for (std::size_t k = 0; k < p; ++k) {
         double d = a[k * p + k];
         for (std::size_t l = 0; l < k; ++l) d -= a[k * p + l] * a[k * p + l];
-        if (!(d > 0.0)) raise(codes::core_argument_invalid, "fit_least_squares: the features' cross-products are not positive definite (non-finite values?)");
+        if (!(d > 0.0))
+            raise(codes::core_argument_invalid, "fit_least_squares: the features' cross-products are not positive definite (non-finite values?)");
         a[k * p + k] = std::sqrt(d);
         for (std::size_t r = k + 1; r < p; ++r) {
             double v = a[r * p + k];

@@ -31,7 +31,6 @@
 
 TENON_NAMESPACE_BEGIN
 
-
 // --- the conformal quantile -------------------------------------------------------------------
 
 /// The rank of the finite-sample conformal quantile among n sorted scores,
@@ -94,7 +93,6 @@ inline interval_calibration fit_interval_calibration(const double* predicted, co
     return c;
 }
 
-
 /// Share of rows inside their band and the band's mean width.
 struct interval_scores {
     std::size_t rows = 0;
@@ -126,9 +124,11 @@ template <class T>
 double fit_temperature(const matrix<T>& logits, const std::vector<std::size_t>& labels) {
     const std::size_t rows = logits.shape()[0], cols = logits.shape()[1];
     if (rows == 0 || rows != labels.size())
-        raise(codes::core_argument_invalid, "fit_temperature: " + std::to_string(rows) + " rows of logits for " + std::to_string(labels.size()) + " labels");
+        raise(codes::core_argument_invalid,
+              "fit_temperature: " + std::to_string(rows) + " rows of logits for " + std::to_string(labels.size()) + " labels");
     for (auto y : labels)
-        if (y >= cols) raise(codes::core_argument_invalid, "fit_temperature: a label is " + std::to_string(y) + ", not below " + std::to_string(cols));
+        if (y >= cols)
+            raise(codes::core_argument_invalid, "fit_temperature: a label is " + std::to_string(y) + ", not below " + std::to_string(cols));
     // Mean loss, its first and second derivatives in b, from shifted logits.
     const auto loss_at = [&](double b, double* gradient, double* curvature) {
         double loss = 0.0, g = 0.0, h = 0.0;
@@ -191,7 +191,6 @@ double expected_calibration_error(const matrix<T>& probabilities, const std::vec
 
 // --- class sets -------------------------------------------------------------------------------
 
-
 /// Share of rows whose set holds the true class, and the mean set size.
 struct set_scores {
     std::size_t rows = 0;
@@ -246,7 +245,7 @@ struct calibration_scores {
     double set_coverage = 0.0;
     double set_mean_size = 0.0;
     double ece_uncalibrated = 0.0;  // softmax of the raw logits
-    double ece = 0.0;               // after temperature scaling
+    double ece = 0.0;  // after temperature scaling
     double log_loss_uncalibrated = 0.0;
     double log_loss = 0.0;
     // per row (regression) and per bin (classification), e.g. for a report
@@ -297,8 +296,8 @@ model_calibration calibrate_outputs(const measured_plan& plan, const matrix<T>& 
 }
 
 template <class T>
-calibration_scores score_outputs(const measured_plan& plan, const model_calibration& c, const matrix<T>& outputs,
-                                 const std::vector<double>* spread, const prepared_rows<T>& rows) {
+calibration_scores score_outputs(const measured_plan& plan, const model_calibration& c, const matrix<T>& outputs, const std::vector<double>* spread,
+                                 const prepared_rows<T>& rows) {
     calibration_scores s;
     s.rows = rows.rows.size();
     if (plan.target_type() == target_kind::classification) {
@@ -320,8 +319,7 @@ calibration_scores score_outputs(const measured_plan& plan, const model_calibrat
         original_units(plan, outputs, rows, s.predicted, s.actual);
         s.low.resize(s.predicted.size());
         s.high.resize(s.predicted.size());
-        interval_bounds<double>(*c.interval, s.predicted.data(), spread ? spread->data() : nullptr, s.predicted.size(), s.low.data(),
-                                s.high.data());
+        interval_bounds<double>(*c.interval, s.predicted.data(), spread ? spread->data() : nullptr, s.predicted.size(), s.low.data(), s.high.data());
         const interval_scores i = score_intervals(s.actual.data(), s.low.data(), s.high.data(), s.actual.size());
         s.interval_coverage = i.coverage;
         s.interval_mean_width = i.mean_width;
@@ -389,7 +387,8 @@ ensemble_view<T> ensemble_outputs(const fitted_model<T>& model, const prepared_r
 /// (e.g. the validation rows) at the given nominal coverage. A single
 /// network's band has one half width (no spread to scale it by).
 template <class T>
-model_calibration calibrate_network(const network<T>& net, const measured_plan& plan, const prepared_rows<T>& rows, double coverage = default_coverage) {
+model_calibration calibrate_network(const network<T>& net, const measured_plan& plan, const prepared_rows<T>& rows,
+                                    double coverage = default_coverage) {
     detail::require_rows(rows, "calibrate_network");
     return detail::calibrate_outputs(plan, network_outputs(net, rows.features), nullptr, rows, coverage);
 }
@@ -405,7 +404,8 @@ calibration_scores score_calibration(const network<T>& net, const measured_plan&
 /// `t` (rows it did not train on). An ensemble's regression band is also
 /// fitted in its normalized form, scaled by the members' spread per row.
 template <class T>
-model_calibration calibrate_model(const fitted_model<T>& model, const table& t, const std::vector<std::size_t>& rows, double coverage = default_coverage) {
+model_calibration calibrate_model(const fitted_model<T>& model, const table& t, const std::vector<std::size_t>& rows,
+                                  double coverage = default_coverage) {
     const prepared_rows<T> p = model.plan.template apply<T>(t, rows);
     detail::require_rows(p, "calibrate_model");
     const detail::ensemble_view<T> v = detail::ensemble_outputs(model, p);

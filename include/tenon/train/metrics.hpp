@@ -30,8 +30,9 @@ public:
 
     void add(std::size_t truth, std::size_t predicted) {
         if (truth >= classes_ || predicted >= classes_) {
-            raise(codes::core_argument_invalid, "confusion_matrix: class index " + std::to_string(truth >= classes_ ? truth : predicted) +
-                                               " outside [0, " + std::to_string(classes_) + ")");
+            raise(codes::core_argument_invalid,
+                  "confusion_matrix: class index " + std::to_string(truth >= classes_ ? truth : predicted) + " outside [0, " +
+                      std::to_string(classes_) + ")");
         }
         ++counts_[truth * classes_ + predicted];
     }
@@ -141,8 +142,9 @@ double log_loss(const matrix<T>& probabilities, const std::vector<std::size_t>& 
     double total = 0.0;
     for (std::size_t i = 0; i < truth.size(); ++i) {
         if (truth[i] >= cols) {
-            raise(codes::core_argument_invalid, "log_loss: row " + std::to_string(i) + " has class " + std::to_string(truth[i]) +
-                                               " but only " + std::to_string(cols) + " probability columns");
+            raise(codes::core_argument_invalid,
+                  "log_loss: row " + std::to_string(i) + " has class " + std::to_string(truth[i]) + " but only " + std::to_string(cols) +
+                      " probability columns");
         }
         const double p = std::clamp(static_cast<double>(probabilities.data()[i * cols + truth[i]]), clip, 1.0 - clip);
         total -= std::log(p);
@@ -156,7 +158,7 @@ struct reliability_bin {
     double low = 0.0, high = 0.0;  // the bin's confidence range (low, high]
     std::size_t rows = 0;
     double confidence = 0.0;  // mean top probability (0 for an empty bin)
-    double accuracy = 0.0;    // share with the top class right (0 for an empty bin)
+    double accuracy = 0.0;  // share with the top class right (0 for an empty bin)
 };
 
 /// `bins` equal-width bins of the top probability of each row (Naeini,
@@ -166,8 +168,9 @@ template <class T>
 std::vector<reliability_bin> reliability_bins(const matrix<T>& probabilities, const std::vector<std::size_t>& labels, std::size_t bins = 15) {
     const std::size_t rows = probabilities.shape()[0], cols = probabilities.shape()[1];
     if (rows != labels.size() || bins == 0 || cols == 0)
-        raise(codes::core_argument_invalid, "reliability_bins: " + std::to_string(rows) + " rows for " + std::to_string(labels.size()) + " labels, " +
-                                           std::to_string(bins) + " bins, " + std::to_string(cols) + " classes");
+        raise(codes::core_argument_invalid,
+              "reliability_bins: " + std::to_string(rows) + " rows for " + std::to_string(labels.size()) + " labels, " + std::to_string(bins) +
+                  " bins, " + std::to_string(cols) + " classes");
     std::vector<reliability_bin> out(bins);
     for (std::size_t b = 0; b < bins; ++b) {
         out[b].low = static_cast<double>(b) / static_cast<double>(bins);

@@ -96,17 +96,17 @@ TENON_NAMESPACE_BEGIN
 /// The metric of the promotion gate.
 enum class gate_metric : std::uint8_t {
     automatic,  // accuracy for classification, rmse for regression
-    accuracy,   // classification, higher is better
-    log_loss,   // classification, lower is better
-    rmse,       // regression in the target's original units, lower is better
+    accuracy,  // classification, higher is better
+    log_loss,  // classification, lower is better
+    rmse,  // regression in the target's original units, lower is better
 };
 
 inline const char* to_string(gate_metric m) noexcept {
     switch (m) {
-        case gate_metric::automatic: return "automatic";
-        case gate_metric::accuracy: return "accuracy";
-        case gate_metric::log_loss: return "log_loss";
-        case gate_metric::rmse: return "rmse";
+    case gate_metric::automatic: return "automatic";
+    case gate_metric::accuracy: return "accuracy";
+    case gate_metric::log_loss: return "log_loss";
+    case gate_metric::rmse: return "rmse";
     }
     return "unknown";
 }
@@ -218,16 +218,15 @@ inline gate_decision decide_promotion(gate_metric metric, double incumbent_score
         d.improvement = std::numeric_limits<double>::infinity();
         d.reason = "the incumbent's " + name + " is not finite, the candidate's is";
     } else if (!(d.improvement > 0.0)) {
-        d.reason = "the candidate is not better on the holdout (" + name + " " + detail::short_number(candidate_score) +
-                   ", incumbent " + detail::short_number(incumbent_score) + ")";
+        d.reason = "the candidate is not better on the holdout (" + name + " " + detail::short_number(candidate_score) + ", incumbent " +
+            detail::short_number(incumbent_score) + ")";
     } else if (d.improvement < margin) {
         d.reason = "the candidate is better by " + detail::short_number(d.improvement) + " " + name + ", less than the margin " +
-                   detail::short_number(margin);
+            detail::short_number(margin);
     } else {
         d.promoted = true;
-        d.reason = "the candidate is better by " + detail::short_number(d.improvement) + " " + name + " (" +
-                   detail::short_number(candidate_score) + " vs " + detail::short_number(incumbent_score) + "), at least the margin " +
-                   detail::short_number(margin);
+        d.reason = "the candidate is better by " + detail::short_number(d.improvement) + " " + name + " (" + detail::short_number(candidate_score) +
+            " vs " + detail::short_number(incumbent_score) + "), at least the margin " + detail::short_number(margin);
     }
     return d;
 }
@@ -252,19 +251,19 @@ struct retraining_report {
     double incumbent_width = std::numeric_limits<double>::quiet_NaN();  // mean band width or mean set size
     double candidate_width = std::numeric_limits<double>::quiet_NaN();
     // rows
-    std::size_t new_rows = 0;             // rows of the new table
-    std::size_t new_rows_refused = 0;     // of those, not usable with the frozen plan
+    std::size_t new_rows = 0;  // rows of the new table
+    std::size_t new_rows_refused = 0;  // of those, not usable with the frozen plan
     std::size_t refused_missing_target = 0;
     std::size_t refused_unseen_class = 0;
     std::size_t refused_unseen_category = 0;
     std::size_t refused_missing_value = 0;
     std::size_t refused_not_numeric = 0;
-    std::size_t holdout_rows = 0;         // new rows scored by the gate only
-    std::size_t new_training_rows = 0;    // new rows in the training mix
-    std::size_t replay_rows = 0;          // stored replay rows in the training mix
+    std::size_t holdout_rows = 0;  // new rows scored by the gate only
+    std::size_t new_training_rows = 0;  // new rows in the training mix
+    std::size_t replay_rows = 0;  // stored replay rows in the training mix
     std::size_t replay_rows_refused = 0;  // stored replay rows the plan could not encode
-    std::size_t training_rows = 0;        // rows trained on (mix minus validation)
-    std::size_t validation_rows = 0;      // rows of the mix used for early stopping
+    std::size_t training_rows = 0;  // rows trained on (mix minus validation)
+    std::size_t validation_rows = 0;  // rows of the mix used for early stopping
     std::uint64_t replay_rows_after = 0;  // the candidate's replay sample
     std::uint64_t replay_rows_seen_after = 0;
     // training (epochs, steps and stop reason: of the first member;
@@ -300,9 +299,9 @@ struct retraining_result {
 /// written before it was stored).
 inline void extend_replay_sample(replay_sample& s, const table& t, const std::vector<std::size_t>& rows) {
     if (s.capacity == 0 || !s.engine || s.rows_seen < s.rows() || s.capacity < s.rows())
-        raise(codes::core_argument_invalid, "extend_replay_sample: the sample has no valid reservoir state (rows seen " +
-                                           std::to_string(s.rows_seen) + ", capacity " + std::to_string(s.capacity) + ", " +
-                                           std::to_string(s.rows()) + " rows held)");
+        raise(codes::core_argument_invalid,
+              "extend_replay_sample: the sample has no valid reservoir state (rows seen " + std::to_string(s.rows_seen) + ", capacity " +
+                  std::to_string(s.capacity) + ", " + std::to_string(s.rows()) + " rows held)");
     const std::size_t columns = s.columns.size();
     std::vector<const column*> sources(columns, nullptr);
     for (std::size_t k = 0; k < columns; ++k)
@@ -317,8 +316,9 @@ inline void extend_replay_sample(replay_sample& s, const table& t, const std::ve
             const column* c = sources[k];
             const bool missing = c == nullptr || c->is_missing(r);
             s.missing[slot * columns + k] = missing ? 1 : 0;
-            s.cells[slot * columns + k] =
-                missing ? std::string() : c->kind() == column_kind::categorical ? c->category(r) : number_to_text(c->number(r));
+            s.cells[slot * columns + k] = missing       ? std::string()
+                : c->kind() == column_kind::categorical ? c->category(r)
+                                                        : number_to_text(c->number(r));
         }
     };
     for (auto r : rows) {
@@ -352,7 +352,8 @@ inline raw_cell cell_of_table(const column& c, std::size_t r) {
     raw_cell v;
     if (c.is_missing(r)) return v;
     v.missing = false;
-    if (c.kind() == column_kind::categorical) v.text = c.category(r);
+    if (c.kind() == column_kind::categorical)
+        v.text = c.category(r);
     else {
         v.is_number = true;
         v.number = c.number(r);
@@ -403,17 +404,20 @@ public:
             } else if (!c.is_number) {
                 const std::string_view text = trim_blanks(c.text);
                 const bool ok = kinds_[k] == column_kind::datetime
-                                    ? parse_datetime(text, plan_.feature_time_form(names_[k]), value) || parse_number(text, value)
-                                    : parse_number(text, value);
+                    ? parse_datetime(text, plan_.feature_time_form(names_[k]), value) || parse_number(text, value)
+                    : parse_number(text, value);
                 if (!ok) return refuse(k, c, refusal::not_numeric);
                 c = number_cell(value);
             }
         }
         for (std::size_t k = 0; k < cells.size(); ++k) {
             column& col = mix_[k];
-            if (cells[k].missing) col.push_missing();
-            else if (kinds_[k] == column_kind::categorical) col.push_category(cells[k].text);
-            else col.push_number(cells[k].number);
+            if (cells[k].missing)
+                col.push_missing();
+            else if (kinds_[k] == column_kind::categorical)
+                col.push_category(cells[k].text);
+            else
+                col.push_number(cells[k].number);
         }
         return refusal::none;
     }
@@ -425,13 +429,13 @@ public:
         const std::string column = "column '" + names_[refused_column_] + "'" + (is_target ? " (the target)" : "");
         const std::string value = "'" + refused_text_ + "'";
         switch (refused_why_) {
-            case refusal::missing_target: return column + " is empty or missing";
-            case refusal::unseen_class: return column + " holds " + value + ", a class the model does not know";
-            case refusal::unseen_category: return column + " holds " + value + ", a category the model has not seen";
-            case refusal::missing_value: return column + " is empty or missing, and the model has no fill for it";
-            case refusal::not_numeric:
-                return column + " holds " + value + ", not a number" + (kinds_[refused_column_] == column_kind::datetime ? " or a time" : "");
-            case refusal::none: break;
+        case refusal::missing_target: return column + " is empty or missing";
+        case refusal::unseen_class: return column + " holds " + value + ", a class the model does not know";
+        case refusal::unseen_category: return column + " holds " + value + ", a category the model has not seen";
+        case refusal::missing_value: return column + " is empty or missing, and the model has no fill for it";
+        case refusal::not_numeric:
+            return column + " holds " + value + ", not a number" + (kinds_[refused_column_] == column_kind::datetime ? " or a time" : "");
+        case refusal::none: break;
         }
         return column;
     }
@@ -594,8 +598,8 @@ std::pair<double, double> coverage_of(std::vector<network<T>>& nets, const measu
 }
 
 // Continues the replay sample over the offered rows of `mix` (reservoir_slot).
-inline replay_sample continue_replay(const std::optional<replay_sample>& stored, const std::optional<training_metadata>& meta,
-                                     const table& new_rows, const std::vector<std::size_t>& offered, const retraining_options& o) {
+inline replay_sample continue_replay(const std::optional<replay_sample>& stored, const std::optional<training_metadata>& meta, const table& new_rows,
+                                     const std::vector<std::size_t>& offered, const retraining_options& o) {
     replay_sample s;
     if (stored) {
         s = *stored;
@@ -619,9 +623,9 @@ inline replay_sample continue_replay(const std::optional<replay_sample>& stored,
     const std::size_t columns = s.columns.size();
     if (o.replay_capacity > 0 && o.replay_capacity != s.capacity) {
         if (o.replay_capacity > s.capacity && s.rows_seen > held)
-            raise(codes::deploy_retrain_option, "retraining: the replay sample has dropped rows at capacity " + std::to_string(s.capacity) +
-                                                    ", so it cannot grow to " + std::to_string(o.replay_capacity) +
-                                                    " and stay uniform (keep the capacity or start a new sample)");
+            raise(codes::deploy_retrain_option,
+                  "retraining: the replay sample has dropped rows at capacity " + std::to_string(s.capacity) + ", so it cannot grow to " +
+                      std::to_string(o.replay_capacity) + " and stay uniform (keep the capacity or start a new sample)");
         if (o.replay_capacity < held) {
             // A uniform subset of a uniform sample is uniform.
             std::vector<std::size_t> keep(static_cast<std::size_t>(held));
@@ -667,8 +671,9 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
     const bool classify = plan.target_type() == target_kind::classification;
     gate_metric metric = options.metric == gate_metric::automatic ? (classify ? gate_metric::accuracy : gate_metric::rmse) : options.metric;
     if (classify == (metric == gate_metric::rmse))
-        raise(codes::deploy_retrain_option, std::string("retrain_model: the gate metric ") + gate_metric_name(metric) + " does not fit a " +
-                                                (classify ? "classification" : "regression") + " model");
+        raise(codes::deploy_retrain_option,
+              std::string("retrain_model: the gate metric ") + gate_metric_name(metric) + " does not fit a " +
+                  (classify ? "classification" : "regression") + " model");
 
     retraining_result<T> result;
     retraining_report& report = result.report;
@@ -700,26 +705,28 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
                 c.is_number = false;
                 c.text = c.missing ? std::string() : r.cells[at];
             }
-            if (builder.add(cells) == detail::refusal::none) ++replay_used;
-            else ++report.replay_rows_refused;
+            if (builder.add(cells) == detail::refusal::none)
+                ++replay_used;
+            else
+                ++report.replay_rows_refused;
         }
     }
     std::vector<const column*> sources;
     for (const auto& name : builder.names()) sources.push_back(&new_rows.at(name));
     std::vector<std::size_t> usable_new;  // rows of new_rows that the mix holds, in order
-    std::string first_refused;            // e.g. "the first, pump.csv line 7: column 'valve' holds 'wide', ..."
+    std::string first_refused;  // e.g. "the first, pump.csv line 7: column 'valve' holds 'wide', ..."
     for (std::size_t r = 0; r < new_rows.row_count(); ++r) {
         for (std::size_t k = 0; k < cells.size(); ++k) cells[k] = detail::cell_of_table(*sources[k], r);
         const detail::refusal why = builder.add(cells);
         if (why != detail::refusal::none && first_refused.empty())
             first_refused = "; the first, " + new_rows.row_place(r) + ": " + builder.describe_refusal();
         switch (why) {
-            case detail::refusal::none: usable_new.push_back(r); continue;
-            case detail::refusal::missing_target: ++report.refused_missing_target; break;
-            case detail::refusal::unseen_class: ++report.refused_unseen_class; break;
-            case detail::refusal::unseen_category: ++report.refused_unseen_category; break;
-            case detail::refusal::missing_value: ++report.refused_missing_value; break;
-            case detail::refusal::not_numeric: ++report.refused_not_numeric; break;
+        case detail::refusal::none: usable_new.push_back(r); continue;
+        case detail::refusal::missing_target: ++report.refused_missing_target; break;
+        case detail::refusal::unseen_class: ++report.refused_unseen_class; break;
+        case detail::refusal::unseen_category: ++report.refused_unseen_category; break;
+        case detail::refusal::missing_value: ++report.refused_missing_value; break;
+        case detail::refusal::not_numeric: ++report.refused_not_numeric; break;
         }
         ++report.new_rows_refused;
     }
@@ -730,10 +737,10 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
     const auto share_rows = static_cast<std::size_t>(std::ceil(options.holdout_share * static_cast<double>(usable)));
     const std::size_t holdout_size = std::max(options.min_holdout_rows, share_rows);
     if (usable < holdout_size + 1)
-        raise(codes::deploy_retrain_too_few_rows, "retrain_model: " + std::to_string(usable) + " of the " + std::to_string(report.new_rows) +
-                                                      " new rows are usable (" + std::to_string(report.new_rows_refused) +
-                                                      " refused" + first_refused + "); the holdout needs " + std::to_string(holdout_size) +
-                                                      " and training at least 1 more");
+        raise(codes::deploy_retrain_too_few_rows,
+              "retrain_model: " + std::to_string(usable) + " of the " + std::to_string(report.new_rows) + " new rows are usable (" +
+                  std::to_string(report.new_rows_refused) + " refused" + first_refused + "); the holdout needs " + std::to_string(holdout_size) +
+                  " and training at least 1 more");
     // Positions in usable_new; mix row of usable_new[i] is replay_used + i.
     std::vector<std::size_t> order(usable);
     for (std::size_t i = 0; i < usable; ++i) order[i] = i;
@@ -787,13 +794,13 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
                       stored_batch = detail::setting_of(meta, "batch_size");
     double stored_learning_rate = 0.0;
     const update_kind update = options.update ? *options.update : stored_update.empty() ? update_kind::adam : parse_update_kind(stored_update);
-    const double learning_rate = options.learning_rate ? *options.learning_rate
-                                 : (!stored_rate.empty() && parse_number(stored_rate, stored_learning_rate) && stored_learning_rate > 0.0)
-                                     ? stored_learning_rate
-                                     : 1e-3;
+    const double learning_rate = options.learning_rate                                                            ? *options.learning_rate
+        : (!stored_rate.empty() && parse_number(stored_rate, stored_learning_rate) && stored_learning_rate > 0.0) ? stored_learning_rate
+                                                                                                                  : 1e-3;
     std::size_t batch_size = 32;
     double stored_batch_number = 0.0;
-    if (options.batch_size) batch_size = *options.batch_size;
+    if (options.batch_size)
+        batch_size = *options.batch_size;
     else if (!stored_batch.empty() && parse_number(stored_batch, stored_batch_number) && stored_batch_number >= 1.0)
         batch_size = static_cast<std::size_t>(stored_batch_number);
 
@@ -825,9 +832,9 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
         const auto member_seed = [&](std::size_t k) { return detail::member_seed(training_seed, k); };
         const std::function<double()> left = [&] { return options.time_budget_seconds - (clock() - start); };
         const double training_start = clock();
-        outcome = detail::train_networks(detail::pointers_to(candidate_nets), o, update, learning_rate, 0.0, true, member_seed, train, validation,
-                                         {}, left)
-                      .front();
+        outcome =
+            detail::train_networks(detail::pointers_to(candidate_nets), o, update, learning_rate, 0.0, true, member_seed, train, validation, {}, left)
+                .front();
         if (candidate_nets.size() > 1) outcome.seconds = clock() - training_start;  // all members' training
     } else if (options.epochs > 0) {
         outcome.reason = stop_reason::time_budget;
@@ -855,8 +862,8 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
     const class_calibration* old_classes = detail::stored_classes(incumbent.calibration);
     const bool incumbent_calibrated = classify ? old_classes != nullptr : old_band != nullptr;
     const double coverage = options.coverage ? *options.coverage
-                            : incumbent_calibrated ? (classify ? old_classes->coverage : old_band->coverage)
-                                                   : default_coverage;
+        : incumbent_calibrated               ? (classify ? old_classes->coverage : old_band->coverage)
+                                             : default_coverage;
     report.coverage_measure = classify ? "class_set" : "interval";
     report.nominal_coverage = coverage;
     if (incumbent_calibrated) {
@@ -871,8 +878,7 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
         const prepared_rows<T> calibration_rows = plan.template apply<T>(mix, validation_rows);
         detail::require_rows(calibration_rows, "retrain_model's calibration");
         const detail::ensemble_view<T> view = detail::calibration_view(candidate_nets, plan, calibration_rows);
-        candidate_calibration =
-            detail::calibrate_outputs(plan, view.outputs, view.has_spread ? &view.spread : nullptr, calibration_rows, coverage);
+        candidate_calibration = detail::calibrate_outputs(plan, view.outputs, view.has_spread ? &view.spread : nullptr, calibration_rows, coverage);
         const auto scored = detail::coverage_of(candidate_nets, plan, *candidate_calibration, holdout_prepared);
         report.candidate_coverage = scored.first;
         report.candidate_width = scored.second;
@@ -895,9 +901,8 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
     }
     m.library_version = version_string();
     m.created_unix_seconds = options.created_unix_seconds
-                                 ? *options.created_unix_seconds
-                                 : static_cast<std::int64_t>(
-                                       std::chrono::duration_cast<std::chrono::seconds>(std::chrono::system_clock::now().time_since_epoch()).count());
+        ? *options.created_unix_seconds
+        : static_cast<std::int64_t>(std::chrono::duration_cast<std::chrono::seconds>(std::chrono::system_clock::now().time_since_epoch()).count());
     m.seed = options.training_seed ? *options.training_seed : options.seed;
     m.epochs_planned = options.epochs;
     m.epochs_run = outcome.history.size();
@@ -1012,8 +1017,7 @@ inline retraining_report retrain_model_file(const std::string& path, const table
 /// "<path>.previous") holds a readable model file, then writes its bytes to
 /// `path` atomically. The rollback file stays. Raises deploy.file.io when
 /// it cannot be read and the deploy.model.* codes when it is not valid.
-inline void roll_back_model_file(const std::string& path, const std::string& rollback_path, file_system& fs,
-                                 const model_limits& limits = {}) {
+inline void roll_back_model_file(const std::string& path, const std::string& rollback_path, file_system& fs, const model_limits& limits = {}) {
     const std::string from = rollback_path.empty() ? default_rollback_path(path) : rollback_path;
     const std::vector<std::uint8_t> bytes = read_file_bounded(from, limits.max_file_bytes);
     inspect_model_bytes(bytes, limits, from);
@@ -1030,25 +1034,26 @@ inline std::string to_json(const retraining_report& r) {
     using detail::json_number;
     using detail::json_string;
     const auto count = [](std::uint64_t v) { return std::to_string(v); };
-    return "{\"promoted\": " + json_bool(r.promoted) + ", \"decision\": " + json_string(r.decision) + ", \"reason\": " +
-           json_string(r.reason) + ", \"gate\": {\"metric\": " + json_string(r.metric) + ", \"higher_is_better\": " +
-           json_bool(r.higher_is_better) + ", \"margin\": " + json_number(r.margin) + ", \"incumbent_score\": " +
-           json_number(r.incumbent_score) + ", \"candidate_score\": " + json_number(r.candidate_score) + ", \"improvement\": " +
-           json_number(r.improvement) + "}, \"calibration\": {\"measure\": " + json_string(r.coverage_measure) +
-           ", \"nominal_coverage\": " + json_number(r.nominal_coverage) + ", \"incumbent_coverage\": " + json_number(r.incumbent_coverage) +
-           ", \"candidate_coverage\": " + json_number(r.candidate_coverage) + ", \"incumbent_width\": " + json_number(r.incumbent_width) +
-           ", \"candidate_width\": " + json_number(r.candidate_width) + "}, \"rows\": {\"new\": " + count(r.new_rows) + ", \"new_refused\": " + count(r.new_rows_refused) +
-           ", \"refused_missing_target\": " + count(r.refused_missing_target) + ", \"refused_unseen_class\": " +
-           count(r.refused_unseen_class) + ", \"refused_unseen_category\": " + count(r.refused_unseen_category) +
-           ", \"refused_missing_value\": " + count(r.refused_missing_value) + ", \"refused_not_numeric\": " +
-           count(r.refused_not_numeric) + ", \"holdout\": " + count(r.holdout_rows) + ", \"new_training\": " + count(r.new_training_rows) +
-           ", \"replay\": " + count(r.replay_rows) + ", \"replay_refused\": " + count(r.replay_rows_refused) + ", \"training\": " +
-           count(r.training_rows) + ", \"validation\": " + count(r.validation_rows) + ", \"replay_after\": " + count(r.replay_rows_after) +
-           ", \"replay_seen_after\": " + count(r.replay_rows_seen_after) + "}, \"training\": {\"members\": " + count(r.members) + ", \"epochs\": " + count(r.epochs_run) +
-           ", \"steps\": " + count(r.steps) + ", \"stop_reason\": " + json_string(r.stop_reason) + ", \"stop_message\": " +
-           json_string(r.stop_message) + ", \"seconds\": " + json_number(r.training_seconds) + "}, \"seconds\": " + json_number(r.seconds) +
-           ", \"time_budget_seconds\": " + json_number(r.time_budget_seconds) + ", \"model_path\": " + json_string(r.model_path) +
-           ", \"rollback_path\": " + json_string(r.rollback_path) + ", \"file_written\": " + json_bool(r.file_written) + "}";
+    return "{\"promoted\": " + json_bool(r.promoted) + ", \"decision\": " + json_string(r.decision) + ", \"reason\": " + json_string(r.reason) +
+        ", \"gate\": {\"metric\": " + json_string(r.metric) + ", \"higher_is_better\": " + json_bool(r.higher_is_better) +
+        ", \"margin\": " + json_number(r.margin) + ", \"incumbent_score\": " + json_number(r.incumbent_score) +
+        ", \"candidate_score\": " + json_number(r.candidate_score) + ", \"improvement\": " + json_number(r.improvement) +
+        "}, \"calibration\": {\"measure\": " + json_string(r.coverage_measure) + ", \"nominal_coverage\": " + json_number(r.nominal_coverage) +
+        ", \"incumbent_coverage\": " + json_number(r.incumbent_coverage) + ", \"candidate_coverage\": " + json_number(r.candidate_coverage) +
+        ", \"incumbent_width\": " + json_number(r.incumbent_width) + ", \"candidate_width\": " + json_number(r.candidate_width) +
+        "}, \"rows\": {\"new\": " + count(r.new_rows) + ", \"new_refused\": " + count(r.new_rows_refused) +
+        ", \"refused_missing_target\": " + count(r.refused_missing_target) + ", \"refused_unseen_class\": " + count(r.refused_unseen_class) +
+        ", \"refused_unseen_category\": " + count(r.refused_unseen_category) + ", \"refused_missing_value\": " + count(r.refused_missing_value) +
+        ", \"refused_not_numeric\": " + count(r.refused_not_numeric) + ", \"holdout\": " + count(r.holdout_rows) +
+        ", \"new_training\": " + count(r.new_training_rows) + ", \"replay\": " + count(r.replay_rows) +
+        ", \"replay_refused\": " + count(r.replay_rows_refused) + ", \"training\": " + count(r.training_rows) +
+        ", \"validation\": " + count(r.validation_rows) + ", \"replay_after\": " + count(r.replay_rows_after) +
+        ", \"replay_seen_after\": " + count(r.replay_rows_seen_after) + "}, \"training\": {\"members\": " + count(r.members) +
+        ", \"epochs\": " + count(r.epochs_run) + ", \"steps\": " + count(r.steps) + ", \"stop_reason\": " + json_string(r.stop_reason) +
+        ", \"stop_message\": " + json_string(r.stop_message) + ", \"seconds\": " + json_number(r.training_seconds) +
+        "}, \"seconds\": " + json_number(r.seconds) + ", \"time_budget_seconds\": " + json_number(r.time_budget_seconds) +
+        ", \"model_path\": " + json_string(r.model_path) + ", \"rollback_path\": " + json_string(r.rollback_path) +
+        ", \"file_written\": " + json_bool(r.file_written) + "}";
 }
 
 TENON_NAMESPACE_END

@@ -148,8 +148,7 @@ inline std::size_t choose_search_candidate(const std::vector<search_candidate>& 
 /// search; its cancel flag is honoured. Not for a team.
 template <class T>
 settings_search_result search_settings(const table& t, const plan& preparation, const std::vector<std::size_t>& train_rows,
-                                       const model_settings& start, double budget_seconds, std::size_t folds = 3,
-                                       std::size_t max_candidates = 0) {
+                                       const model_settings& start, double budget_seconds, std::size_t folds = 3, std::size_t max_candidates = 0) {
     TENON_REQUIRE_SCALAR(T);
     if (!(budget_seconds > 0.0 && std::isfinite(budget_seconds)))
         raise(codes::train_option_invalid, "search_settings: the budget must be a positive number of seconds, got " + number_to_text(budget_seconds));
@@ -178,8 +177,9 @@ settings_search_result search_settings(const table& t, const plan& preparation, 
         bool stratify = true;
         for (auto n : per_class) stratify = stratify && (n == 0 || n >= folds);
         if (rows.size() < folds)
-            raise(codes::train_option_invalid, "search_settings: " + std::to_string(rows.size()) + " training rows with a target, fewer than the " +
-                                           std::to_string(folds) + " folds");
+            raise(codes::train_option_invalid,
+                  "search_settings: " + std::to_string(rows.size()) + " training rows with a target, fewer than the " + std::to_string(folds) +
+                      " folds");
         by_position = stratify ? stratified_k_folds(prepared.classes, folds, fold_seed) : k_folds(rows.size(), folds, fold_seed);
     } else {
         if (rows.size() < folds)
@@ -205,7 +205,8 @@ settings_search_result search_settings(const table& t, const plan& preparation, 
         // Rules without decoupled decay (make_update_rule) try no decay.
         const bool decays = start.update == update_kind::adam || start.update == update_kind::adamw;
         for (auto& c : grid)
-            if ((decays || c.weight_decay == 0.0) && !(c.hidden == start_hidden && c.learning_rate == start.learning_rate && c.weight_decay == start.weight_decay))
+            if ((decays || c.weight_decay == 0.0) &&
+                !(c.hidden == start_hidden && c.learning_rate == start.learning_rate && c.weight_decay == start.weight_decay))
                 listed.push_back(std::move(c));
     }
     if (max_candidates > 0 && listed.size() > max_candidates) listed.resize(max_candidates);

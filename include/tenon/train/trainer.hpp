@@ -38,10 +38,10 @@ TENON_NAMESPACE_BEGIN
 /// Rows ready for training: features, and either class labels or targets.
 template <class T>
 struct supervised_rows {
-    matrix<T> features;                 // rows x inputs
-    std::vector<std::size_t> labels;    // classification: one class index per row
-    matrix<T> targets;                  // regression: rows x outputs
-    std::size_t class_count = 0;        // classification only
+    matrix<T> features;  // rows x inputs
+    std::vector<std::size_t> labels;  // classification: one class index per row
+    matrix<T> targets;  // regression: rows x outputs
+    std::size_t class_count = 0;  // classification only
 
     bool is_classification() const noexcept { return class_count > 0; }
     std::size_t rows() const noexcept { return features.shape()[0]; }
@@ -51,10 +51,10 @@ enum class loss_kind : std::uint8_t { l1, l2, huber, cross_entropy };
 
 inline const char* to_string(loss_kind k) noexcept {
     switch (k) {
-        case loss_kind::l1: return "l1";
-        case loss_kind::l2: return "l2";
-        case loss_kind::huber: return "huber";
-        case loss_kind::cross_entropy: return "cross-entropy";
+    case loss_kind::l1: return "l1";
+    case loss_kind::l2: return "l2";
+    case loss_kind::huber: return "huber";
+    case loss_kind::cross_entropy: return "cross-entropy";
     }
     return "unknown";
 }
@@ -65,39 +65,37 @@ enum class stop_reason : std::uint8_t { epoch_limit, no_improvement, time_budget
 
 inline const char* to_string(stop_reason r) noexcept {
     switch (r) {
-        case stop_reason::epoch_limit: return "epoch_limit";
-        case stop_reason::no_improvement: return "no_improvement";
-        case stop_reason::time_budget: return "time_budget";
-        case stop_reason::cancelled: return "cancelled";
-        case stop_reason::diverged: return "diverged";
-        case stop_reason::step_limit: return "step_limit";
+    case stop_reason::epoch_limit: return "epoch_limit";
+    case stop_reason::no_improvement: return "no_improvement";
+    case stop_reason::time_budget: return "time_budget";
+    case stop_reason::cancelled: return "cancelled";
+    case stop_reason::diverged: return "diverged";
+    case stop_reason::step_limit: return "step_limit";
     }
     return "unknown";
 }
 /// The former spelling of to_string(stop_reason).
 inline const char* stop_reason_name(stop_reason v) noexcept { return to_string(v); }
 
-
 /// Progress within an epoch, for progress bars.
 struct batch_progress {
-    std::size_t epoch = 0;      // 1-based
-    std::size_t batch = 0;      // 1-based
+    std::size_t epoch = 0;  // 1-based
+    std::size_t batch = 0;  // 1-based
     std::size_t batches = 0;
-    double loss = 0.0;          // this batch's loss
+    double loss = 0.0;  // this batch's loss
     double elapsed_seconds = 0.0;
 };
 
 struct training_outcome {
     stop_reason reason = stop_reason::epoch_limit;
     std::vector<epoch_summary> history;
-    std::size_t best_epoch = 0;          // 1-based epoch whose weights were kept; 0 if none
+    std::size_t best_epoch = 0;  // 1-based epoch whose weights were kept; 0 if none
     double best_validation_loss = std::numeric_limits<double>::quiet_NaN();
-    std::uint64_t steps = 0;             // updates applied
-    std::uint64_t best_step = 0;         // updates applied when the kept epoch ended; 0 if none (or resumed before it)
+    std::uint64_t steps = 0;  // updates applied
+    std::uint64_t best_step = 0;  // updates applied when the kept epoch ended; 0 if none (or resumed before it)
     double seconds = 0.0;
-    std::string message;                 // why training stopped, in words
+    std::string message;  // why training stopped, in words
 };
-
 
 /// How the members of a training team hold the training rows (see "Teams"
 /// in docs/design/trainer.md).
@@ -147,9 +145,9 @@ inline void throw_if_any_member_failed(training_team& team, const std::exception
         who += (count++ == 0 ? "" : ", ") + std::to_string(m);
     }
     if (count > 0) {
-        raise(codes::train_team_member_failed, std::string(stage) + ": team member" + (count > 1 ? "s " : " ") + who + " of " +
-                                                   std::to_string(members) + " failed (see " + (count > 1 ? "their" : "its") +
-                                                   " own error); member " + std::to_string(me) + " stops with " + (count > 1 ? "them" : "it"));
+        raise(codes::train_team_member_failed,
+              std::string(stage) + ": team member" + (count > 1 ? "s " : " ") + who + " of " + std::to_string(members) + " failed (see " +
+                  (count > 1 ? "their" : "its") + " own error); member " + std::to_string(me) + " stops with " + (count > 1 ? "them" : "it"));
     }
 }
 
@@ -226,48 +224,52 @@ struct training_options : run_controls {
 
 namespace detail {
 
-inline double steady_seconds() {
-    return std::chrono::duration<double>(std::chrono::steady_clock::now().time_since_epoch()).count();
-}
+inline double steady_seconds() { return std::chrono::duration<double>(std::chrono::steady_clock::now().time_since_epoch()).count(); }
 
 template <class T>
 void validate_rows(const supervised_rows<T>& d, const char* which, std::size_t inputs, loss_kind loss) {
     const std::size_t rows = d.rows();
     if (rows == 0) raise(codes::train_rows_empty, std::string("trainer: the ") + which + " rows are empty");
     if (inputs != 0 && d.features.shape()[1] != inputs) {
-        raise(codes::core_shape_mismatch, std::string("trainer: ") + which + " features have " + std::to_string(d.features.shape()[1]) +
-                                         " columns, the " + "training features " + std::to_string(inputs));
+        raise(codes::core_shape_mismatch,
+              std::string("trainer: ") + which + " features have " + std::to_string(d.features.shape()[1]) + " columns, the " + "training features " +
+                  std::to_string(inputs));
     }
     if (d.is_classification()) {
         if (loss != loss_kind::cross_entropy) {
             raise(codes::train_option_invalid, std::string("trainer: class labels need the cross-entropy loss, not ") + loss_kind_name(loss));
         }
         if (d.labels.size() != rows) {
-            raise(codes::core_shape_mismatch, std::string("trainer: ") + which + " has " + std::to_string(rows) + " feature rows but " +
-                                             std::to_string(d.labels.size()) + " labels");
+            raise(codes::core_shape_mismatch,
+                  std::string("trainer: ") + which + " has " + std::to_string(rows) + " feature rows but " + std::to_string(d.labels.size()) +
+                      " labels");
         }
         for (std::size_t i = 0; i < rows; ++i) {
             if (d.labels[i] >= d.class_count) {
-                raise(codes::train_option_invalid, std::string("trainer: ") + which + " row " + std::to_string(i) + " has class " +
-                                               std::to_string(d.labels[i]) + ", outside [0, " + std::to_string(d.class_count) + ")");
+                raise(codes::train_option_invalid,
+                      std::string("trainer: ") + which + " row " + std::to_string(i) + " has class " + std::to_string(d.labels[i]) +
+                          ", outside [0, " + std::to_string(d.class_count) + ")");
             }
         }
     } else {
         if (loss == loss_kind::cross_entropy) raise(codes::train_option_invalid, "trainer: the cross-entropy loss needs class labels");
         if (d.targets.shape()[0] != rows) {
-            raise(codes::core_shape_mismatch, std::string("trainer: ") + which + " has " + std::to_string(rows) + " feature rows but " +
-                                             std::to_string(d.targets.shape()[0]) + " target rows");
+            raise(codes::core_shape_mismatch,
+                  std::string("trainer: ") + which + " has " + std::to_string(rows) + " feature rows but " + std::to_string(d.targets.shape()[0]) +
+                      " target rows");
         }
     }
     if (const std::size_t k = first_non_finite(d.features.data(), d.features.size()); k < d.features.size()) {
         const std::size_t c = d.features.shape()[1];
-        raise(codes::train_input_non_finite, std::string("trainer: ") + which + " feature at row " + std::to_string(k / c) +
-                                                 ", column " + std::to_string(k % c) + " is " + std::to_string(d.features.data()[k]));
+        raise(codes::train_input_non_finite,
+              std::string("trainer: ") + which + " feature at row " + std::to_string(k / c) + ", column " + std::to_string(k % c) + " is " +
+                  std::to_string(d.features.data()[k]));
     }
     if (const std::size_t k = first_non_finite(d.targets.data(), d.targets.size()); k < d.targets.size()) {
         const std::size_t c = d.targets.shape()[1];
-        raise(codes::train_input_non_finite, std::string("trainer: ") + which + " target at row " + std::to_string(k / c) +
-                                                 ", column " + std::to_string(k % c) + " is " + std::to_string(d.targets.data()[k]));
+        raise(codes::train_input_non_finite,
+              std::string("trainer: ") + which + " target at row " + std::to_string(k / c) + ", column " + std::to_string(k % c) + " is " +
+                  std::to_string(d.targets.data()[k]));
     }
 }
 
@@ -284,10 +286,10 @@ template <class T>
 var<T> record_loss(tape<T>& t, var<T> output, loss_kind kind, const matrix<T>& targets, const std::vector<std::size_t>& labels,
                    const loss_options<T>& settings) {
     switch (kind) {
-        case loss_kind::l1: return l1_loss(t, output, targets, settings);
-        case loss_kind::l2: return l2_loss(t, output, targets, settings);
-        case loss_kind::huber: return huber_loss(t, output, targets, settings);
-        case loss_kind::cross_entropy: return cross_entropy_loss(t, output, labels, settings);
+    case loss_kind::l1: return l1_loss(t, output, targets, settings);
+    case loss_kind::l2: return l2_loss(t, output, targets, settings);
+    case loss_kind::huber: return huber_loss(t, output, targets, settings);
+    case loss_kind::cross_entropy: return cross_entropy_loss(t, output, labels, settings);
     }
     raise(codes::train_option_invalid, "record_loss: unknown loss kind");
 }
@@ -346,21 +348,24 @@ public:
         : net_(net), rule_(rule), schedule_(schedule), options_(std::move(options)) {
         if (options_.batch_size == 0) raise(codes::train_option_invalid, "trainer: batch_size must be at least 1");
         if (!(options_.divergence_rate_factor > 0.0 && options_.divergence_rate_factor < 1.0)) {
-            raise(codes::train_option_invalid, "trainer: divergence_rate_factor must be in (0, 1), got " + std::to_string(options_.divergence_rate_factor));
+            raise(codes::train_option_invalid,
+                  "trainer: divergence_rate_factor must be in (0, 1), got " + std::to_string(options_.divergence_rate_factor));
         }
         if (!(options_.min_improvement >= 0.0)) {
             raise(codes::train_option_invalid, "trainer: min_improvement must be non-negative, got " + std::to_string(options_.min_improvement));
         }
         if (!options_.loss_settings.sample_weights.empty()) {
-            raise(codes::train_option_invalid, "trainer: per-sample loss weights cannot be given for the whole run (" +
-                                           std::to_string(options_.loss_settings.sample_weights.size()) +
-                                           " weights); use class weights, or record the loss yourself per batch");
+            raise(codes::train_option_invalid,
+                  "trainer: per-sample loss weights cannot be given for the whole run (" +
+                      std::to_string(options_.loss_settings.sample_weights.size()) +
+                      " weights); use class weights, or record the loss yourself per batch");
         }
         if (!(options_.smoothing >= 0.0 && options_.smoothing < 1.0)) {
             raise(codes::train_option_invalid, "trainer: smoothing must be in [0, 1), got " + std::to_string(options_.smoothing));
         }
         if (options_.resume && (options_.patience_steps > 0 || options_.min_steps > 0 || options_.smoothing > 0.0)) {
-            raise(codes::train_option_invalid, "trainer: a resumed run counts patience in epochs only (patience_steps, min_steps and smoothing must be 0)");
+            raise(codes::train_option_invalid,
+                  "trainer: a resumed run counts patience in epochs only (patience_steps, min_steps and smoothing must be 0)");
         }
         if (!options_.clock) options_.clock = detail::steady_seconds;
     }
@@ -424,7 +429,7 @@ public:
         // Patience: epochs, and steps when asked, since the best epoch; never before min_steps.
         const auto patience_spent = [&] {
             return options_.patience > 0 && since_best >= options_.patience && out.steps - best_step >= options_.patience_steps &&
-                   out.steps >= options_.min_steps;
+                out.steps >= options_.min_steps;
         };
         double rate_factor = 1.0;
         bool stop = false;
@@ -446,7 +451,7 @@ public:
             if (validate && options_.patience > 0 && since_best >= options_.patience && epoch > 0) {
                 out.reason = stop_reason::no_improvement;
                 out.message = "no validation improvement for " + std::to_string(options_.patience) + " epochs; best was epoch " +
-                              std::to_string(out.best_epoch);
+                    std::to_string(out.best_epoch);
                 stop = true;
             }
         }
@@ -481,8 +486,8 @@ public:
 
             if (r.status == epoch_status::diverged) {
                 out.reason = stop_reason::diverged;
-                out.message = "the loss or a gradient became non-finite in epoch " + std::to_string(epoch + 1) + " after " +
-                              std::to_string(retries) + " retries with a lower learning rate; the weights from before that epoch were kept";
+                out.message = "the loss or a gradient became non-finite in epoch " + std::to_string(epoch + 1) + " after " + std::to_string(retries) +
+                    " retries with a lower learning rate; the weights from before that epoch were kept";
                 s.seconds = options_.clock() - epoch_t0;
                 out.history.push_back(s);
                 break;
@@ -490,9 +495,9 @@ public:
             if (r.status == epoch_status::cancelled || r.status == epoch_status::out_of_time) {
                 // A partial epoch: its weights are kept only if no validated epoch exists.
                 out.reason = r.status == epoch_status::cancelled ? stop_reason::cancelled : stop_reason::time_budget;
-                out.message = r.status == epoch_status::cancelled ? "cancelled by the host during epoch " + std::to_string(epoch + 1)
-                                                                  : "the time budget of " + std::to_string(options_.time_budget_seconds) +
-                                                                        " s ran out during epoch " + std::to_string(epoch + 1);
+                out.message = r.status == epoch_status::cancelled
+                    ? "cancelled by the host during epoch " + std::to_string(epoch + 1)
+                    : "the time budget of " + std::to_string(options_.time_budget_seconds) + " s ran out during epoch " + std::to_string(epoch + 1);
                 s.seconds = options_.clock() - epoch_t0;
                 out.history.push_back(s);
                 break;
@@ -500,8 +505,10 @@ public:
 
             if (options_.team) average_state_buffers();
             if (validate) {
-                if (options_.team) evaluate_shared(validation_share, train.is_classification(), s.validation_loss, s.validation_metric);
-                else assess(validation, s.validation_loss, s.validation_metric);
+                if (options_.team)
+                    evaluate_shared(validation_share, train.is_classification(), s.validation_loss, s.validation_metric);
+                else
+                    assess(validation, s.validation_loss, s.validation_metric);
                 schedule_.report_metric(s.validation_loss);
                 if (!std::isfinite(s.validation_loss)) {
                     net_.restore(epoch_start);
@@ -540,7 +547,10 @@ public:
             progress_.history = out.history;
             progress_.best_epoch = out.best_epoch;
             progress_.best_validation_loss = best_loss;
-            if (out.best_epoch > 0) progress_.best.values = best.values; else progress_.best.values.clear();
+            if (out.best_epoch > 0)
+                progress_.best.values = best.values;
+            else
+                progress_.best.values.clear();
             progress_.epochs_since_best = since_best;
             progress_.rate_factor = rate_factor;
 
@@ -563,13 +573,13 @@ public:
                 stop = true;
             } else if (validate && patience_spent()) {
                 out.reason = stop_reason::no_improvement;
-                out.message = "no validation improvement for " + std::to_string(since_best) + " epochs (" +
-                              std::to_string(out.steps - best_step) + " steps); best was epoch " + std::to_string(out.best_epoch);
+                out.message = "no validation improvement for " + std::to_string(since_best) + " epochs (" + std::to_string(out.steps - best_step) +
+                    " steps); best was epoch " + std::to_string(out.best_epoch);
                 stop = true;
             } else if (out_of_time) {
                 out.reason = stop_reason::time_budget;
-                out.message = "the time budget of " + std::to_string(options_.time_budget_seconds) + " s ran out after epoch " +
-                              std::to_string(epoch);
+                out.message =
+                    "the time budget of " + std::to_string(options_.time_budget_seconds) + " s ran out after epoch " + std::to_string(epoch);
                 stop = true;
             }
         }
@@ -606,9 +616,7 @@ private:
         double learning_rate = 0.0;
     };
 
-    bool budget_spent(double start) const {
-        return options_.time_budget_seconds > 0.0 && options_.clock() - start >= options_.time_budget_seconds;
-    }
+    bool budget_spent(double start) const { return options_.time_budget_seconds > 0.0 && options_.clock() - start >= options_.time_budget_seconds; }
 
     // The rows and the network fit each other. A team member's validation
     // shard may be empty (the team validates when any member has rows).
@@ -622,20 +630,21 @@ private:
         }
         const std::size_t width = net_.output_width(inputs);
         if (train.is_classification() && width != train.class_count) {
-            raise(codes::core_shape_mismatch, "trainer: the network gives " + std::to_string(width) + " outputs for " +
-                                             std::to_string(train.class_count) + " classes");
+            raise(codes::core_shape_mismatch,
+                  "trainer: the network gives " + std::to_string(width) + " outputs for " + std::to_string(train.class_count) + " classes");
         }
         if (!train.is_classification() && width != train.targets.shape()[1]) {
-            raise(codes::core_shape_mismatch, "trainer: the network gives " + std::to_string(width) + " outputs for " +
-                                             std::to_string(train.targets.shape()[1]) + " target columns");
+            raise(codes::core_shape_mismatch,
+                  "trainer: the network gives " + std::to_string(width) + " outputs for " + std::to_string(train.targets.shape()[1]) +
+                      " target columns");
         }
     }
 
     // A resumed state fits these rows (with shards: this member's shard).
     static void check_resume(const training_progress<T>& r, std::size_t rows) {
         if (r.order.size() != rows) {
-            raise(codes::train_option_invalid, "trainer: the resumed run shuffled " + std::to_string(r.order.size()) +
-                                           " training rows, this run has " + std::to_string(rows));
+            raise(codes::train_option_invalid,
+                  "trainer: the resumed run shuffled " + std::to_string(r.order.size()) + " training rows, this run has " + std::to_string(rows));
         }
         std::vector<std::uint8_t> seen(rows, 0);
         for (const std::size_t i : r.order) {
@@ -643,8 +652,9 @@ private:
             seen[i] = 1;
         }
         if (r.best_epoch > r.epochs_done || (r.best_epoch > 0 && r.best.values.empty())) {
-            raise(codes::train_option_invalid, "trainer: the resumed progress names best epoch " + std::to_string(r.best_epoch) +
-                                           " without its weights or after epoch " + std::to_string(r.epochs_done));
+            raise(codes::train_option_invalid,
+                  "trainer: the resumed progress names best epoch " + std::to_string(r.best_epoch) + " without its weights or after epoch " +
+                      std::to_string(r.epochs_done));
         }
         if (!(r.rate_factor > 0.0 && r.rate_factor <= 1.0)) {
             raise(codes::train_option_invalid, "trainer: the resumed rate factor must be in (0, 1], got " + std::to_string(r.rate_factor));
@@ -652,8 +662,8 @@ private:
     }
 
     // One pass over the (shuffled) training rows: epoch_batches_ steps.
-    epoch_result run_epoch(const supervised_rows<T>& d, std::vector<std::size_t>& order, random_engine& engine, std::size_t epoch,
-                           double rate_factor, std::uint64_t& steps, double start) {
+    epoch_result run_epoch(const supervised_rows<T>& d, std::vector<std::size_t>& order, random_engine& engine, std::size_t epoch, double rate_factor,
+                           std::uint64_t& steps, double start) {
         epoch_result r;
         if (options_.shuffle) engine.shuffle(order.begin(), order.end());
         net_.set_mode(run_mode::training);
@@ -682,9 +692,8 @@ private:
                 buf.t.clear();
                 buf.t.set_executor(options_.workers);
                 // The rows go straight into the tape's input buffer.
-                const var<T> x = buf.t.input_from(shape2{n, inputs}, [&](T* batch_rows) {
-                    gather_batch(d, order, first + me, members, n, inputs, batch_rows, buf);
-                });
+                const var<T> x = buf.t.input_from(shape2{n, inputs},
+                                                  [&](T* batch_rows) { gather_batch(d, order, first + me, members, n, inputs, batch_rows, buf); });
                 const var<T> y = net_.forward(buf.t, x);
                 const var<T> loss = record_loss(buf.t, y, options_.loss, buf.targets, buf.labels, options_.loss_settings);
                 lv = static_cast<double>(loss.value()(0, 0));
@@ -794,8 +803,8 @@ private:
     // across the workers when there are several (a shuffled row lies
     // anywhere in memory, so each thread's copying mostly waits for it);
     // labels or targets into `buf`.
-    void gather_batch(const supervised_rows<T>& d, const std::vector<std::size_t>& order, std::size_t first, std::size_t stride,
-                    std::size_t n, std::size_t inputs, T* rows, batch_buffers& buf) {
+    void gather_batch(const supervised_rows<T>& d, const std::vector<std::size_t>& order, std::size_t first, std::size_t stride, std::size_t n,
+                      std::size_t inputs, T* rows, batch_buffers& buf) {
         batch_gather work{&d, &order, first, stride, n, inputs, rows, 1};
         executor* workers = options_.workers;
         // Below this many values a hand-off costs more than it saves.
@@ -837,8 +846,8 @@ private:
     // this member's batch weight, then weight, weighted loss and three flags
     // (non-finite, cancelled, out of time). The averaged gradient replaces
     // the local one; the flags become the team's.
-    void share_step(training_team& team, const std::vector<std::size_t>& labels, std::size_t n, double& lv, bool& finite,
-                    bool& cancelled, bool& out_of_time) {
+    void share_step(training_team& team, const std::vector<std::size_t>& labels, std::size_t n, double& lv, bool& finite, bool& cancelled,
+                    bool& out_of_time) {
         const double w = finite ? batch_weight(labels, n) : 0.0;
         std::size_t total = 0;
         for (const auto* p : net_.parameters())
@@ -885,14 +894,44 @@ private:
         const std::size_t members = team.member_count(), me = team.member_index();
         const bool shards = options_.member_rows == team_rows::shard_per_member;
         enum field : std::size_t {
-            holding, training_rows, validation_rows, input_columns, outputs, classes, batch, seed_low, seed_high, epochs, patience,
-            min_improvement, retries, rate_factor, loss, reduction, shuffle, parameters, field_count
+            holding,
+            training_rows,
+            validation_rows,
+            input_columns,
+            outputs,
+            classes,
+            batch,
+            seed_low,
+            seed_high,
+            epochs,
+            patience,
+            min_improvement,
+            retries,
+            rate_factor,
+            loss,
+            reduction,
+            shuffle,
+            parameters,
+            field_count
         };
-        static const char* const names[field_count] = {
-            "row holding (0 all rows on every member, 1 a shard per member)", "training rows", "validation rows", "input columns",
-            "network outputs", "class count", "batch size", "seed (low bits)", "seed (high bits)", "epochs", "patience",
-            "minimum improvement", "divergence retries", "divergence rate factor", "loss", "loss reduction", "shuffling (1 on, 0 off)",
-            "parameters"};
+        static const char* const names[field_count] = {"row holding (0 all rows on every member, 1 a shard per member)",
+                                                       "training rows",
+                                                       "validation rows",
+                                                       "input columns",
+                                                       "network outputs",
+                                                       "class count",
+                                                       "batch size",
+                                                       "seed (low bits)",
+                                                       "seed (high bits)",
+                                                       "epochs",
+                                                       "patience",
+                                                       "minimum improvement",
+                                                       "divergence retries",
+                                                       "divergence rate factor",
+                                                       "loss",
+                                                       "loss reduction",
+                                                       "shuffling (1 on, 0 off)",
+                                                       "parameters"};
         std::vector<double> all(members * field_count, 0.0);
         double* mine = all.data() + me * field_count;
         const std::size_t inputs = train.features.shape()[1];
@@ -921,9 +960,9 @@ private:
             for (std::size_t m = 1; m < members; ++m) {
                 const double first = all[k], other = all[m * field_count + k];
                 if (other == first) continue;
-                raise(codes::train_team_mismatch, std::string("trainer: the team's members disagree on the ") + names[k] + " (member 0 has " +
-                                                      number_text(first) + ", member " + std::to_string(m) + " has " +
-                                                      number_text(other) + "; this is member " + std::to_string(me) + ")");
+                raise(codes::train_team_mismatch,
+                      std::string("trainer: the team's members disagree on the ") + names[k] + " (member 0 has " + number_text(first) + ", member " +
+                          std::to_string(m) + " has " + number_text(other) + "; this is member " + std::to_string(me) + ")");
             }
         }
         if (!shards) return (train.rows() + options_.batch_size * members - 1) / (options_.batch_size * members);
@@ -959,8 +998,11 @@ private:
             const std::size_t r = me + i * members;
             std::copy(validation.features.data() + r * inputs, validation.features.data() + (r + 1) * inputs,
                       shared_validation_.features.data() + i * inputs);
-            if (classify) shared_validation_.labels.push_back(validation.labels[r]);
-            else std::copy(validation.targets.data() + r * outs, validation.targets.data() + (r + 1) * outs, shared_validation_.targets.data() + i * outs);
+            if (classify)
+                shared_validation_.labels.push_back(validation.labels[r]);
+            else
+                std::copy(validation.targets.data() + r * outs, validation.targets.data() + (r + 1) * outs,
+                          shared_validation_.targets.data() + i * outs);
         }
         return shared_validation_;
     }
@@ -1004,8 +1046,8 @@ private:
     batch_buffers full_, tail_;
     typename update_rule<T>::state_copy rule_start_;  // the rule at the current epoch's start
     training_progress<T> progress_;
-    std::vector<T> fused_;                  // a team's per-step sum
-    std::size_t epoch_batches_ = 0;         // steps per epoch
+    std::vector<T> fused_;  // a team's per-step sum
+    std::size_t epoch_batches_ = 0;  // steps per epoch
     supervised_rows<T> shared_validation_;  // a team member's validation rows
 };
 

@@ -37,13 +37,13 @@ enum class update_kind : std::uint8_t { gradient_descent, momentum, nesterov, ad
 
 inline const char* to_string(update_kind k) noexcept {
     switch (k) {
-        case update_kind::gradient_descent: return "gd";
-        case update_kind::momentum: return "momentum";
-        case update_kind::nesterov: return "nesterov";
-        case update_kind::adam: return "adam";
-        case update_kind::adamw: return "adamw";
-        case update_kind::rmsprop: return "rmsprop";
-        case update_kind::adagrad: return "adagrad";
+    case update_kind::gradient_descent: return "gd";
+    case update_kind::momentum: return "momentum";
+    case update_kind::nesterov: return "nesterov";
+    case update_kind::adam: return "adam";
+    case update_kind::adamw: return "adamw";
+    case update_kind::rmsprop: return "rmsprop";
+    case update_kind::adagrad: return "adagrad";
     }
     return "unknown";
 }
@@ -67,17 +67,17 @@ inline loss_kind parse_loss_kind(const std::string& name) {
 template <class T>
 std::unique_ptr<update_rule<T>> make_update_rule(update_kind kind) {
     switch (kind) {
-        case update_kind::gradient_descent: return std::make_unique<gradient_descent<T>>();
-        case update_kind::momentum: return std::make_unique<momentum<T>>();
-        case update_kind::nesterov: {
-            momentum_options<T> m;
-            m.nesterov = true;
-            return std::make_unique<momentum<T>>(m);
-        }
-        case update_kind::adam: return std::make_unique<adam<T>>();
-        case update_kind::adamw: return std::make_unique<adamw<T>>();
-        case update_kind::rmsprop: return std::make_unique<rmsprop<T>>();
-        case update_kind::adagrad: return std::make_unique<adagrad<T>>();
+    case update_kind::gradient_descent: return std::make_unique<gradient_descent<T>>();
+    case update_kind::momentum: return std::make_unique<momentum<T>>();
+    case update_kind::nesterov: {
+        momentum_options<T> m;
+        m.nesterov = true;
+        return std::make_unique<momentum<T>>(m);
+    }
+    case update_kind::adam: return std::make_unique<adam<T>>();
+    case update_kind::adamw: return std::make_unique<adamw<T>>();
+    case update_kind::rmsprop: return std::make_unique<rmsprop<T>>();
+    case update_kind::adagrad: return std::make_unique<adagrad<T>>();
     }
     raise(codes::train_option_invalid, "make_update_rule: unknown update rule");
 }
@@ -93,8 +93,9 @@ std::unique_ptr<update_rule<T>> make_update_rule(update_kind kind, double weight
         raise(codes::train_option_invalid, "weight decay " + number_to_text(weight_decay) + ": must be a finite number, at least 0");
     if (weight_decay == 0.0) return make_update_rule<T>(kind);
     if (kind != update_kind::adam && kind != update_kind::adamw) {
-        raise(codes::train_option_invalid, "weight decay " + number_to_text(weight_decay) + " needs the adam or adamw update rule; " + to_string(kind) +
-                                       " has no decoupled weight decay");
+        raise(codes::train_option_invalid,
+              "weight decay " + number_to_text(weight_decay) + " needs the adam or adamw update rule; " + to_string(kind) +
+                  " has no decoupled weight decay");
     }
     adam_options<T> a;
     a.decoupled_weight_decay = static_cast<T>(weight_decay);
@@ -113,8 +114,8 @@ enum class class_weighting : std::uint8_t {
 
 inline const char* to_string(class_weighting w) noexcept {
     switch (w) {
-        case class_weighting::none: return "none";
-        case class_weighting::balanced: return "balanced";
+    case class_weighting::none: return "none";
+    case class_weighting::balanced: return "balanced";
     }
     return "unknown";
 }
@@ -122,7 +123,8 @@ inline const char* to_string(class_weighting w) noexcept {
 /// Parses none or balanced.
 inline class_weighting parse_class_weighting(const std::string& name) {
     class_weighting v{};
-    if (!enum_from_text(name, v)) raise(codes::train_option_invalid, "unknown class weighting '" + name + "' (" + enum_choices<class_weighting>() + ")");
+    if (!enum_from_text(name, v))
+        raise(codes::train_option_invalid, "unknown class weighting '" + name + "' (" + enum_choices<class_weighting>() + ")");
     return v;
 }
 
@@ -133,7 +135,8 @@ inline std::vector<double> balanced_weights_from_counts(const std::vector<double
     std::vector<double> w(counts.size());
     for (std::size_t c = 0; c < counts.size(); ++c) {
         if (!(counts[c] > 0.0)) {
-            raise(codes::train_option_invalid, "balanced class weights: class " + std::to_string(c) + " has no training row, so its weight n / (k n_c) is undefined");
+            raise(codes::train_option_invalid,
+                  "balanced class weights: class " + std::to_string(c) + " has no training row, so its weight n / (k n_c) is undefined");
         }
         w[c] = n / (static_cast<double>(counts.size()) * counts[c]);
     }
@@ -421,8 +424,7 @@ template <class T, class Seed>
 std::vector<training_outcome> train_networks(const std::vector<network<T>*>& nets, const training_options<T>& o, update_kind update,
                                              double learning_rate, double weight_decay, bool alone, const Seed& member_seed,
                                              const supervised_rows<T>& train, const supervised_rows<T>& validation,
-                                             const std::vector<std::uint64_t>& step_limits = {},
-                                             const std::function<double()>& remaining = {}) {
+                                             const std::vector<std::uint64_t>& step_limits = {}, const std::function<double()>& remaining = {}) {
     struct job {
         network<T>* net = nullptr;
         training_options<T> options;
@@ -454,19 +456,22 @@ std::vector<training_outcome> train_networks(const std::vector<network<T>*>& net
             std::vector<job>* jobs;
             const decltype(run_one)* run;
         } c{&jobs, &run_one};
-        o.workers->run(count, [](void* p, std::size_t k) {
-            auto* ctx = static_cast<context*>(p);
-            job& j = (*ctx->jobs)[k];
+        o.workers->run(
+            count,
+            [](void* p, std::size_t k) {
+                auto* ctx = static_cast<context*>(p);
+                job& j = (*ctx->jobs)[k];
 #if TENON_HAS_EXCEPTIONS
-            try {
-                (*ctx->run)(j);
-            } catch (...) {
-                j.error = std::current_exception();
-            }
+                try {
+                    (*ctx->run)(j);
+                } catch (...) {
+                    j.error = std::current_exception();
+                }
 #else
-            (*ctx->run)(j);
+                (*ctx->run)(j);
 #endif
-        }, &c);
+            },
+            &c);
         for (auto& j : jobs)
             if (j.error) std::rethrow_exception(j.error);
     } else {
@@ -492,9 +497,9 @@ std::vector<training_outcome> train_networks(const std::vector<network<T>*>& net
 // Trains the model's networks (train_networks; net first) with the
 // settings' update rule, and keeps net's outcome as the model's.
 template <class T, class Seed>
-std::vector<training_outcome> train_members(fitted_model<T>& model, const training_options<T>& o, const model_settings& s,
-                                            const Seed& member_seed, const supervised_rows<T>& train,
-                                            const supervised_rows<T>& validation, const std::vector<std::uint64_t>& step_limits = {}) {
+std::vector<training_outcome> train_members(fitted_model<T>& model, const training_options<T>& o, const model_settings& s, const Seed& member_seed,
+                                            const supervised_rows<T>& train, const supervised_rows<T>& validation,
+                                            const std::vector<std::uint64_t>& step_limits = {}) {
     std::vector<training_outcome> outcomes =
         train_networks(member_networks(model), o, s.update, s.learning_rate, s.weight_decay, !s.team, member_seed, train, validation, step_limits);
     model.outcome = outcomes.front();
@@ -504,8 +509,8 @@ std::vector<training_outcome> train_members(fitted_model<T>& model, const traini
 // He initialization suits rectifier-like units (He et al. 2015); Glorot
 // suits tanh and sigmoid (Glorot & Bengio 2010).
 inline initializer hidden_initializer(activation a) noexcept {
-    const bool rectifier = a == activation::relu || a == activation::leaky_relu || a == activation::elu || a == activation::gelu ||
-                           a == activation::gelu_tanh;
+    const bool rectifier =
+        a == activation::relu || a == activation::leaky_relu || a == activation::elu || a == activation::gelu || a == activation::gelu_tanh;
     return initializer{rectifier ? init_scheme::he : init_scheme::glorot, init_distribution::uniform};
 }
 
@@ -521,7 +526,7 @@ template <class T>
 training_outcome train_logistic_baseline(const supervised_rows<T>& train, const supervised_rows<T>& validation, training_options<T> o,
                                          const model_settings& s, network<T>& logistic, linear_fit& out) {
     logistic = make_mlp<T>({train.features.shape()[1], train.class_count}, activation::identity,
-                                      initializer{init_scheme::glorot, init_distribution::uniform}, s.seed);
+                           initializer{init_scheme::glorot, init_distribution::uniform}, s.seed);
     o.on_epoch = nullptr;
     o.on_batch = nullptr;
     auto rule = make_update_rule<T>(s.update);
@@ -554,15 +559,13 @@ bool start_from_linear(network<T>& n, const linear_fit& b) {
 
 // Seed of ensemble member k: the golden-ratio increment of SplitMix64
 // (Steele, Lea & Flood 2014) spreads them over the seed space.
-inline std::uint64_t member_seed(std::uint64_t seed, std::size_t k) noexcept {
-    return seed + static_cast<std::uint64_t>(k) * 0x9E3779B97F4A7C15ull;
-}
+inline std::uint64_t member_seed(std::uint64_t seed, std::size_t k) noexcept { return seed + static_cast<std::uint64_t>(k) * 0x9E3779B97F4A7C15ull; }
 
 }  // namespace detail
 
 template <class T>
-bool refit_model(fitted_model<T>& model, const table& t, const std::vector<std::size_t>& train_rows,
-                 const std::vector<std::size_t>& validation_rows, const model_settings& s);
+bool refit_model(fitted_model<T>& model, const table& t, const std::vector<std::size_t>& train_rows, const std::vector<std::size_t>& validation_rows,
+                 const model_settings& s);
 
 /// Measures `preparation` on `train_rows`, trains a perceptron on them with early
 /// stopping on `validation_rows` (which may be empty: then training runs all
@@ -577,8 +580,9 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
     TENON_REQUIRE_SCALAR(T);
     const bool shards = s.team && s.member_rows == team_rows::shard_per_member;
     if (shards && !s.exchange) {
-        raise(codes::train_option_invalid, "fit_model: a team whose members hold shards of the rows needs model_settings::exchange, so that one "
-                                   "plan is measured over all members' training rows");
+        raise(codes::train_option_invalid,
+              "fit_model: a team whose members hold shards of the rows needs model_settings::exchange, so that one "
+              "plan is measured over all members' training rows");
     }
     if (shards) require_same_columns(t, *s.exchange, "fit_model");
     if (s.team && s.refit.value_or(false)) raise(codes::train_option_invalid, "fit_model: a team cannot refit (model_settings::refit)");
@@ -598,8 +602,9 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
         if (!measured.has_target()) raise(codes::train_option_invalid, "fit_model: the plan has no target column");
         const bool classify = measured.target_type() == target_kind::classification;
         if (classify && measured.class_count() < 2) {
-            raise(codes::train_option_invalid, "fit_model: the target '" + measured.target_name() + "' has " + std::to_string(measured.class_count()) +
-                                           " class in the training rows; classification needs at least 2");
+            raise(codes::train_option_invalid,
+                  "fit_model: the target '" + measured.target_name() + "' has " + std::to_string(measured.class_count()) +
+                      " class in the training rows; classification needs at least 2");
         }
         prepared_rows<T> train_prepared = measured.template apply<T>(t, train_rows);
         prepared_rows<T> val_prepared;
@@ -611,8 +616,9 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
 
         loss = s.loss_given ? s.loss : (classify ? loss_kind::cross_entropy : loss_kind::l2);
         if (classify != (loss == loss_kind::cross_entropy)) {
-            raise(codes::train_option_invalid, std::string("fit_model: the ") + loss_kind_name(loss) + " loss does not fit a " +
-                                           (classify ? "classification" : "regression") + " target");
+            raise(codes::train_option_invalid,
+                  std::string("fit_model: the ") + loss_kind_name(loss) + " loss does not fit a " + (classify ? "classification" : "regression") +
+                      " target");
         }
         sizes.push_back(measured.feature_count());
         sizes.push_back(classify ? measured.class_count() : 1);  // the hidden widths go between, once the row count is known
@@ -630,8 +636,18 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
     prepare();  // without exceptions a failure ends the process (core/error.hpp)
 #endif
     if (s.team) throw_if_any_member_failed(*s.team, failure, "fit_model");
-    fitted_model<T> model{std::move(measured), std::move(net), {}, loss, train.rows(), validation.rows(), dropped, {}, false,
-                          std::numeric_limits<double>::quiet_NaN(), std::numeric_limits<double>::quiet_NaN(), {}};
+    fitted_model<T> model{std::move(measured),
+                          std::move(net),
+                          {},
+                          loss,
+                          train.rows(),
+                          validation.rows(),
+                          dropped,
+                          {},
+                          false,
+                          std::numeric_limits<double>::quiet_NaN(),
+                          std::numeric_limits<double>::quiet_NaN(),
+                          {}};
     if (shards) {  // the counts of all members' shards
         double counts[3] = {static_cast<double>(model.train_rows), static_cast<double>(model.validation_rows), static_cast<double>(dropped)};
         s.team->sum(counts, 3);
@@ -660,7 +676,8 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
     // own (the golden-ratio increment of SplitMix64, Steele, Lea & Flood
     // 2014, spreads them over the seed space).
     if (s.team && s.ensemble > 1)
-        raise(codes::train_option_invalid, "fit_model: a team trains one network; an ensemble of " + std::to_string(s.ensemble) + " is not supported");
+        raise(codes::train_option_invalid,
+              "fit_model: a team trains one network; an ensemble of " + std::to_string(s.ensemble) + " is not supported");
     const std::size_t member_total = s.team ? 1 : ensemble_size(s, model.train_rows);
     const auto member_seed = [&](std::size_t k) { return detail::member_seed(s.seed, k); };
     for (std::size_t k = 1; k < member_total; ++k) {
@@ -681,8 +698,9 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
     o.seed = s.seed;
     o.loss = loss;
     if (s.class_weights != class_weighting::none && !train.is_classification()) {
-        raise(codes::train_option_invalid, std::string("fit_model: class weights (") + to_string(s.class_weights) + ") need a classification target; '" +
-                                       model.plan.target_name() + "' is a regression target");
+        raise(codes::train_option_invalid,
+              std::string("fit_model: class weights (") + to_string(s.class_weights) + ") need a classification target; '" +
+                  model.plan.target_name() + "' is a regression target");
     }
     if (s.class_weights == class_weighting::balanced && train.is_classification()) {
         std::vector<double> counts(train.class_count, 0.0);
@@ -785,17 +803,19 @@ fitted_model<T> fit_model(const table& t, const plan& preparation, const std::ve
 /// A host calibrates on the validation rows before calling this
 /// (train/calibration.hpp needs rows the model did not train on).
 template <class T>
-bool refit_model(fitted_model<T>& model, const table& t, const std::vector<std::size_t>& train_rows,
-                 const std::vector<std::size_t>& validation_rows, const model_settings& s) {
+bool refit_model(fitted_model<T>& model, const table& t, const std::vector<std::size_t>& train_rows, const std::vector<std::size_t>& validation_rows,
+                 const model_settings& s) {
     TENON_REQUIRE_SCALAR(T);
     if (s.team) raise(codes::train_option_invalid, "refit_model: a team cannot refit");
-    if (model.refit_rows > 0) raise(codes::train_option_invalid, "refit_model: the model was refit already (on " + std::to_string(model.refit_rows) + " rows)");
+    if (model.refit_rows > 0)
+        raise(codes::train_option_invalid, "refit_model: the model was refit already (on " + std::to_string(model.refit_rows) + " rows)");
     if (validation_rows.empty() || model.best_steps.empty()) {
-        raise(codes::train_option_invalid, "refit_model: the model has no validated stopping step to refit for (fit_model was given no validation rows)");
+        raise(codes::train_option_invalid,
+              "refit_model: the model has no validated stopping step to refit for (fit_model was given no validation rows)");
     }
     if (model.best_steps.size() != model.member_count() && !model.kept_baseline) {
-        raise(codes::train_option_invalid, "refit_model: " + std::to_string(model.best_steps.size()) + " stopping steps for " +
-                                       std::to_string(model.member_count()) + " members");
+        raise(codes::train_option_invalid,
+              "refit_model: " + std::to_string(model.best_steps.size()) + " stopping steps for " + std::to_string(model.member_count()) + " members");
     }
     for (const std::uint64_t steps : model.best_steps)
         if (steps == 0) return false;  // no kept epoch (e.g. diverged at once): nothing to repeat
@@ -865,9 +885,9 @@ bool refit_model(fitted_model<T>& model, const table& t, const std::vector<std::
     } else {
         network<T> first = build(0);
         if (first.parameter_count() != model.net.parameter_count()) {
-            raise(codes::train_option_invalid, "refit_model: the settings build a network of " + std::to_string(first.parameter_count()) +
-                                           " parameters, the model's has " + std::to_string(model.net.parameter_count()) +
-                                           " (pass the settings fit_model was given)");
+            raise(codes::train_option_invalid,
+                  "refit_model: the settings build a network of " + std::to_string(first.parameter_count()) + " parameters, the model's has " +
+                      std::to_string(model.net.parameter_count()) + " (pass the settings fit_model was given)");
         }
         // The new networks train in the model's place; the old ones come back if a run is cut.
         network<T> old_net = std::move(model.net);

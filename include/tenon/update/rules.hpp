@@ -43,9 +43,9 @@ struct momentum_options {
 template <class T>
 class momentum : public update_rule<T> {
 public:
-    explicit momentum(const momentum_options<T>& m = {}, const update_options<T>& options = {})
-        : update_rule<T>(options, 1), m_(m) {
-        detail::check_option("momentum", "coefficient", static_cast<double>(m.coefficient), m.coefficient >= T(0) && m.coefficient < T(1), "in [0, 1)");
+    explicit momentum(const momentum_options<T>& m = {}, const update_options<T>& options = {}) : update_rule<T>(options, 1), m_(m) {
+        detail::check_option("momentum", "coefficient", static_cast<double>(m.coefficient), m.coefficient >= T(0) && m.coefficient < T(1),
+                             "in [0, 1)");
     }
     const char* kind() const noexcept override { return m_.nesterov ? "nesterov" : "momentum"; }
     const char* buffer_name(std::size_t) const noexcept override { return "velocity"; }
@@ -77,41 +77,41 @@ namespace detail {
 // bit-identical to the scalar loop; only the speed changes. With `clear`
 // (g itself, writable) each gradient element is set to zero once read.
 // Returns the number of elements done.
-#define TENON_ADAM_VECTOR_PASS(NAME, TARGET, OPS)                                                                       \
-    template <class T>                                                                                                  \
-    TARGET TENON_NO_CONTRACTION std::size_t NAME(T* w, const T* g, T* m, T* v, std::size_t n, const gradient_transform<T>& f, T b1, T b2, \
-                            T step_rate, T step_epsilon, T decay, bool& finite, T* clear) noexcept {                    \
-        using ops = OPS<T>;                                                                                             \
-        using vector = typename ops::vector;                                                                            \
-        const vector norm_scale = ops::broadcast(f.norm_scale), weight_decay = ops::broadcast(f.weight_decay);          \
-        const vector high = ops::broadcast(f.clip_value), low = ops::broadcast(-f.clip_value);                          \
-        const bool clipping = f.clip_value > T(0);                                                                      \
-        const vector vb1 = ops::broadcast(b1), vb2 = ops::broadcast(b2);                                                \
-        const vector rest1 = ops::broadcast(T(1) - b1), rest2 = ops::broadcast(T(1) - b2);                              \
-        const vector rate = ops::broadcast(step_rate), veps = ops::broadcast(step_epsilon), vdecay = ops::broadcast(decay); \
-        const vector zero = ops::zero();                                                                                \
-        vector scan = ops::zero(); /* sums raw g * 0: NaN once a raw gradient is not finite */                          \
-        std::size_t k = 0;                                                                                              \
-        for (; k + ops::lanes <= n; k += ops::lanes) {                                                                  \
-            const vector wk = ops::load(w + k);                                                                         \
-            const vector raw = ops::load(g + k);                                                                        \
-            if (clear) ops::store(clear + k, zero); /* the gradient itself, cleared once read */                        \
-            scan = ops::add(scan, ops::mul(raw, zero));                                                                 \
-            vector gk = ops::mul(raw, norm_scale);                                                                      \
-            /* std::min(std::max(g, -c), c), NaN passing through as there */                                            \
-            if (clipping) gk = ops::min(high, ops::max(low, gk));                                                       \
-            gk = ops::add(gk, ops::mul(weight_decay, wk));                                                              \
-            const vector mk = ops::add(ops::mul(vb1, ops::load(m + k)), ops::mul(rest1, gk));                           \
-            const vector vk = ops::add(ops::mul(vb2, ops::load(v + k)), ops::mul(ops::mul(rest2, gk), gk));             \
-            ops::store(m + k, mk);                                                                                      \
-            ops::store(v + k, vk);                                                                                      \
-            const vector step = ops::div(ops::mul(rate, mk), ops::add(ops::sqrt(vk), veps));                           \
-            ops::store(w + k, ops::sub(wk, ops::add(step, ops::mul(vdecay, wk))));                                      \
-        }                                                                                                               \
-        T lanes[ops::lanes];                                                                                            \
-        ops::store(lanes, scan);                                                                                        \
-        for (std::size_t l = 0; l < ops::lanes; ++l) finite = finite && lanes[l] == lanes[l];                           \
-        return k;                                                                                                       \
+#define TENON_ADAM_VECTOR_PASS(NAME, TARGET, OPS)                                                                                                    \
+    template <class T>                                                                                                                               \
+    TARGET TENON_NO_CONTRACTION std::size_t NAME(T* w, const T* g, T* m, T* v, std::size_t n, const gradient_transform<T>& f, T b1, T b2,            \
+                                                 T step_rate, T step_epsilon, T decay, bool& finite, T* clear) noexcept {                            \
+        using ops = OPS<T>;                                                                                                                          \
+        using vector = typename ops::vector;                                                                                                         \
+        const vector norm_scale = ops::broadcast(f.norm_scale), weight_decay = ops::broadcast(f.weight_decay);                                       \
+        const vector high = ops::broadcast(f.clip_value), low = ops::broadcast(-f.clip_value);                                                       \
+        const bool clipping = f.clip_value > T(0);                                                                                                   \
+        const vector vb1 = ops::broadcast(b1), vb2 = ops::broadcast(b2);                                                                             \
+        const vector rest1 = ops::broadcast(T(1) - b1), rest2 = ops::broadcast(T(1) - b2);                                                           \
+        const vector rate = ops::broadcast(step_rate), veps = ops::broadcast(step_epsilon), vdecay = ops::broadcast(decay);                          \
+        const vector zero = ops::zero();                                                                                                             \
+        vector scan = ops::zero(); /* sums raw g * 0: NaN once a raw gradient is not finite */                                                       \
+        std::size_t k = 0;                                                                                                                           \
+        for (; k + ops::lanes <= n; k += ops::lanes) {                                                                                               \
+            const vector wk = ops::load(w + k);                                                                                                      \
+            const vector raw = ops::load(g + k);                                                                                                     \
+            if (clear) ops::store(clear + k, zero); /* the gradient itself, cleared once read */                                                     \
+            scan = ops::add(scan, ops::mul(raw, zero));                                                                                              \
+            vector gk = ops::mul(raw, norm_scale);                                                                                                   \
+            /* std::min(std::max(g, -c), c), NaN passing through as there */                                                                         \
+            if (clipping) gk = ops::min(high, ops::max(low, gk));                                                                                    \
+            gk = ops::add(gk, ops::mul(weight_decay, wk));                                                                                           \
+            const vector mk = ops::add(ops::mul(vb1, ops::load(m + k)), ops::mul(rest1, gk));                                                        \
+            const vector vk = ops::add(ops::mul(vb2, ops::load(v + k)), ops::mul(ops::mul(rest2, gk), gk));                                          \
+            ops::store(m + k, mk);                                                                                                                   \
+            ops::store(v + k, vk);                                                                                                                   \
+            const vector step = ops::div(ops::mul(rate, mk), ops::add(ops::sqrt(vk), veps));                                                         \
+            ops::store(w + k, ops::sub(wk, ops::add(step, ops::mul(vdecay, wk))));                                                                   \
+        }                                                                                                                                            \
+        T lanes[ops::lanes];                                                                                                                         \
+        ops::store(lanes, scan);                                                                                                                     \
+        for (std::size_t l = 0; l < ops::lanes; ++l) finite = finite && lanes[l] == lanes[l];                                                        \
+        return k;                                                                                                                                    \
     }
 #if TENON_SIMD_X86
 TENON_ADAM_VECTOR_PASS(adam_pass_avx512, TENON_TARGET_AVX512, avx512_ops)
@@ -159,8 +159,8 @@ public:
         detail::check_option("adam", "beta1", static_cast<double>(a.beta1), a.beta1 >= T(0) && a.beta1 < T(1), "in [0, 1)");
         detail::check_option("adam", "beta2", static_cast<double>(a.beta2), a.beta2 >= T(0) && a.beta2 < T(1), "in [0, 1)");
         detail::check_option("adam", "epsilon", static_cast<double>(a.epsilon), a.epsilon > T(0), "positive");
-        detail::check_option("adam", "decoupled_weight_decay", static_cast<double>(a.decoupled_weight_decay),
-                             a.decoupled_weight_decay >= T(0), "finite and non-negative");
+        detail::check_option("adam", "decoupled_weight_decay", static_cast<double>(a.decoupled_weight_decay), a.decoupled_weight_decay >= T(0),
+                             "finite and non-negative");
     }
     const char* kind() const noexcept override { return a_.decoupled_weight_decay > T(0) ? "adamw" : "adam"; }
     const char* buffer_name(std::size_t buffer) const noexcept override { return buffer == 0 ? "first_moment" : "second_moment"; }
@@ -179,8 +179,7 @@ protected:
 private:
     // One pass over the n elements; `clear` is g (writable) when each
     // gradient element is to be set to zero once read, else nullptr.
-    TENON_NO_CONTRACTION void pass(T* w, const T* g, T* const* buffers, std::size_t n, T lr, const gradient_transform<T>& f,
-                                   T* clear) {
+    TENON_NO_CONTRACTION void pass(T* w, const T* g, T* const* buffers, std::size_t n, T lr, const gradient_transform<T>& f, T* clear) {
         TENON_NO_CONTRACTION_IN_BODY
         T* m = buffers[0];
         T* v = buffers[1];
@@ -226,8 +225,7 @@ private:
 template <class T>
 class adamw : public adam<T> {
 public:
-    explicit adamw(T lambda = T(0.01), adam_options<T> a = {}, const update_options<T>& options = {})
-        : adam<T>(with_decay(a, lambda), options) {
+    explicit adamw(T lambda = T(0.01), adam_options<T> a = {}, const update_options<T>& options = {}) : adam<T>(with_decay(a, lambda), options) {
         detail::check_option("adamw", "decoupled_weight_decay", static_cast<double>(lambda), lambda > T(0), "positive");
     }
 
@@ -240,8 +238,8 @@ private:
 
 template <class T>
 struct rmsprop_options {
-    T decay = T(0.9);       // rho, common practice
-    T epsilon = T(1e-8);    // common practice
+    T decay = T(0.9);  // rho, common practice
+    T epsilon = T(1e-8);  // common practice
 };
 
 /// RMSprop: divide the gradient by a running root mean square of recent

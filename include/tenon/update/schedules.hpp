@@ -61,8 +61,8 @@ protected:
 
     static void check(const char* schedule, const char* option, double value, bool ok, const char* range) {
         if (!ok || !std::isfinite(value)) {
-            raise(codes::model_schedule_option, std::string(schedule) + " schedule: " + option + " must be " + range + ", got " +
-                                                    std::to_string(value));
+            raise(codes::model_schedule_option,
+                  std::string(schedule) + " schedule: " + option + " must be " + range + ", got " + std::to_string(value));
         }
     }
 };
@@ -87,9 +87,7 @@ public:
         check("step decay", "the interval in epochs", static_cast<double>(every_epochs), every_epochs > 0, "positive");
     }
     const char* kind() const noexcept override { return "step_decay"; }
-    double rate(std::uint64_t, std::uint64_t epoch) const override {
-        return initial_ * std::pow(factor_, static_cast<double>(epoch / every_));
-    }
+    double rate(std::uint64_t, std::uint64_t epoch) const override { return initial_ * std::pow(factor_, static_cast<double>(epoch / every_)); }
 
 private:
     double initial_, factor_;

@@ -185,9 +185,9 @@ public:
     /// State buffer number `buffer_index` of parameter `index` (same shape as the parameter).
     const matrix<T>& buffer(std::size_t index, std::size_t buffer_index) const {
         if (buffer_index >= buffer_count_ || index >= parameter_count()) {
-            raise(codes::core_argument_invalid, std::string(kind()) + ": state buffer " + std::to_string(buffer_index) + " of parameter " +
-                                               std::to_string(index) + " does not exist (" + std::to_string(buffer_count_) +
-                                               " buffers, " + std::to_string(parameter_count()) + " parameters)");
+            raise(codes::core_argument_invalid,
+                  std::string(kind()) + ": state buffer " + std::to_string(buffer_index) + " of parameter " + std::to_string(index) +
+                      " does not exist (" + std::to_string(buffer_count_) + " buffers, " + std::to_string(parameter_count()) + " parameters)");
         }
         return buffers_[index * buffer_count_ + buffer_index];
     }
@@ -253,20 +253,21 @@ public:
     /// layout is built aside first, so a failure leaves the rule as it was.
     void restore_state(const state_copy& c) {
         if (c.buffer_count != buffer_count_ || c.buffers.size() != c.shapes.size() * buffer_count_) {
-            raise(codes::model_update_state_mismatch, std::string(kind()) + " update rule: a state copy with " +
-                                                          std::to_string(c.buffer_count) + " buffers per parameter, the rule has " +
-                                                          std::to_string(buffer_count_));
+            raise(codes::model_update_state_mismatch,
+                  std::string(kind()) + " update rule: a state copy with " + std::to_string(c.buffer_count) +
+                      " buffers per parameter, the rule has " + std::to_string(buffer_count_));
         }
         for (std::size_t i = 0; i < c.buffers.size(); ++i) {
             if (shape_of(c.buffers[i]) != c.shapes[i / buffer_count_]) {
-                raise(codes::model_update_state_mismatch, std::string(kind()) + " update rule: buffer " + std::to_string(i % buffer_count_) +
-                                                              " of parameter " + std::to_string(i / buffer_count_) + " in a state copy has shape " +
-                                                              to_string(shape_of(c.buffers[i])) + ", its parameter " +
-                                                              to_string(c.shapes[i / buffer_count_]));
+                raise(codes::model_update_state_mismatch,
+                      std::string(kind()) + " update rule: buffer " + std::to_string(i % buffer_count_) + " of parameter " +
+                          std::to_string(i / buffer_count_) + " in a state copy has shape " + to_string(shape_of(c.buffers[i])) + ", its parameter " +
+                          to_string(c.shapes[i / buffer_count_]));
             }
         }
         if (c.shapes == shapes_) {
-            for (std::size_t i = 0; i < buffers_.size(); ++i) std::copy(c.buffers[i].data(), c.buffers[i].data() + c.buffers[i].size(), buffers_[i].data());
+            for (std::size_t i = 0; i < buffers_.size(); ++i)
+                std::copy(c.buffers[i].data(), c.buffers[i].data() + c.buffers[i].size(), buffers_[i].data());
         } else {
             std::vector<shape2> shapes(c.shapes);
             std::vector<matrix<T>> buffers(c.buffers);
@@ -295,8 +296,9 @@ public:
         if (laid_out > 1) in.fail("layout flag " + std::to_string(laid_out) + " is not 0 or 1");
         const std::uint32_t buffer_count = in.u32();
         if (buffer_count != buffer_count_) {
-            raise(codes::model_update_state_mismatch, std::string(kind()) + " update rule: the state has " + std::to_string(buffer_count) +
-                                                          " buffers per parameter, the rule uses " + std::to_string(buffer_count_));
+            raise(codes::model_update_state_mismatch,
+                  std::string(kind()) + " update rule: the state has " + std::to_string(buffer_count) + " buffers per parameter, the rule uses " +
+                      std::to_string(buffer_count_));
         }
         const std::size_t count = in.count(16, "parameters");
         std::vector<shape2> shapes;
@@ -324,17 +326,19 @@ protected:
     static constexpr std::size_t max_buffers = 4;
 
     update_rule(const update_options<T>& options, std::size_t buffer_count) : options_(options), buffer_count_(buffer_count) {
-        detail::check_option("update rule", "weight_decay", static_cast<double>(options.weight_decay), options.weight_decay >= T(0), "finite and non-negative");
-        detail::check_option("update rule", "clip_global_norm", static_cast<double>(options.clip_global_norm), options.clip_global_norm >= T(0), "finite and non-negative (0: off)");
-        detail::check_option("update rule", "clip_value", static_cast<double>(options.clip_value), options.clip_value >= T(0), "finite and non-negative (0: off)");
+        detail::check_option("update rule", "weight_decay", static_cast<double>(options.weight_decay), options.weight_decay >= T(0),
+                             "finite and non-negative");
+        detail::check_option("update rule", "clip_global_norm", static_cast<double>(options.clip_global_norm), options.clip_global_norm >= T(0),
+                             "finite and non-negative (0: off)");
+        detail::check_option("update rule", "clip_value", static_cast<double>(options.clip_value), options.clip_value >= T(0),
+                             "finite and non-negative (0: off)");
     }
 
     /// Updates `n` weights `w` in place from the raw gradient `g` (pass each
     /// element through `transform(g[k], w[k])`); buffers[s] points to the n
     /// values of state buffer s for this parameter. step_count() is already
     /// the number of this step (1 for the first).
-    virtual void update_parameter(T* w, const T* g, T* const* buffers, std::size_t n, T learning_rate,
-                                  const gradient_transform<T>& transform) = 0;
+    virtual void update_parameter(T* w, const T* g, T* const* buffers, std::size_t n, T learning_rate, const gradient_transform<T>& transform) = 0;
 
     /// update_parameter(), then g[0..n) set to zero (apply() with
     /// set_clears_gradients(true)). A rule may override it to clear each
@@ -380,7 +384,7 @@ private:
                 T* buffers[max_buffers] = {};
                 for (std::size_t s = 0; s < r.rule->buffer_count_; ++s)
                     buffers[s] = r.rule->buffers_[c.parameter_index * r.rule->buffer_count_ + s].data() + c.first;
-                // Executor tasks must not throw; the built-in rules never do.
+                    // Executor tasks must not throw; the built-in rules never do.
 #if TENON_HAS_EXCEPTIONS
                 try {
                     r.rule->update_piece(p, c, buffers, r.learning_rate, r.transform);
@@ -421,18 +425,20 @@ private:
             laid_out_ = true;
         }
         if (params.size() != shapes_.size()) {
-            raise(codes::model_update_state_mismatch, std::string(kind()) + " update rule: state for " + std::to_string(shapes_.size()) +
-                                                          " parameters, given " + std::to_string(params.size()));
+            raise(codes::model_update_state_mismatch,
+                  std::string(kind()) + " update rule: state for " + std::to_string(shapes_.size()) + " parameters, given " +
+                      std::to_string(params.size()));
         }
         for (std::size_t i = 0; i < params.size(); ++i) {
             if (params[i]->shape() != shapes_[i]) {
-                raise(codes::model_update_state_mismatch, std::string(kind()) + " update rule: parameter " + std::to_string(i) + " ('" +
-                                                              params[i]->name() + "') has shape " + to_string(params[i]->shape()) +
-                                                              ", the state was laid out for " + to_string(shapes_[i]));
+                raise(codes::model_update_state_mismatch,
+                      std::string(kind()) + " update rule: parameter " + std::to_string(i) + " ('" + params[i]->name() + "') has shape " +
+                          to_string(params[i]->shape()) + ", the state was laid out for " + to_string(shapes_[i]));
             }
             if (shape_of(params[i]->grad()) != shapes_[i]) {
-                raise(codes::core_shape_mismatch, std::string(kind()) + " update rule: the gradient of '" + params[i]->name() + "' has shape " +
-                                                 to_string(shape_of(params[i]->grad())) + ", its value " + to_string(shapes_[i]));
+                raise(codes::core_shape_mismatch,
+                      std::string(kind()) + " update rule: the gradient of '" + params[i]->name() + "' has shape " +
+                          to_string(shape_of(params[i]->grad())) + ", its value " + to_string(shapes_[i]));
             }
         }
     }
