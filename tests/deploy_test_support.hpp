@@ -12,24 +12,18 @@
 #include <tenon/prep/csv.hpp>
 #include <tenon/train/workflow.hpp>
 
+#include "pump_log.hpp"
+
 namespace deploy_test {
 
-// flow [m3/h], head [m], fluid type, motor power [kW] (flow * head *
-// density / (367 efficiency) + noise) and a condition class derived from the
-// efficiency and the head (invented rule).
+// The pump log of pump_log.hpp, every column.
 inline tenon::table pump_table(std::size_t n, std::uint64_t seed) {
     tenon::random_engine rng(seed);
     std::ostringstream csv;
     csv << "flow,head,fluid,power,condition\n";
-    const char* fluids[] = {"water", "glycol", "brine"};
-    const double density[] = {1.0, 1.07, 1.2};
     for (std::size_t i = 0; i < n; ++i) {
-        const double flow = rng.uniform(20.0, 120.0), head = rng.uniform(5.0, 40.0);
-        const auto f = static_cast<std::size_t>(rng.below(3));
-        const double efficiency = 0.55 + 0.25 * std::exp(-std::pow((flow - 70.0) / 40.0, 2));
-        const double power = flow * head * density[f] / (367.0 * efficiency) + rng.normal(0.0, 0.05);
-        const char* condition = efficiency < 0.62 ? "worn" : (head > 30.0 ? "cavitating" : "ok");
-        csv << flow << "," << head << "," << fluids[f] << "," << power << "," << condition << "\n";
+        const pump_log::reading r = pump_log::draw(rng);
+        csv << r.flow << "," << r.head << "," << r.fluid_name() << "," << r.power << "," << r.condition() << "\n";
     }
     std::istringstream in(csv.str());
     return tenon::read_csv(in, {}, "pump.csv");

@@ -21,24 +21,19 @@ struct pump_conditions {
     double fluid_weights[3] = {1.0, 1.0, 1.0};  // water, glycol, brine
 };
 
-// The same physics as deploy_test::pump_table: power = flow * head *
-// density / (367 efficiency) + noise, condition from efficiency and head.
+// The physics of pump_log.hpp under other operating conditions.
 inline tenon::table pump_rows(std::size_t n, std::uint64_t seed, const pump_conditions& c = {}) {
     tenon::random_engine rng(seed, 0xD121u);
     std::ostringstream csv;
     csv.precision(17);
     csv << "flow,head,fluid,power,condition\n";
-    const char* fluids[] = {"water", "glycol", "brine"};
-    const double density[] = {1.0, 1.07, 1.2};
     const double total = c.fluid_weights[0] + c.fluid_weights[1] + c.fluid_weights[2];
     for (std::size_t i = 0; i < n; ++i) {
         const double flow = rng.uniform(c.flow_low, c.flow_high), head = rng.uniform(c.head_low, c.head_high);
         const double u = rng.uniform(0.0, total);
         const std::size_t f = u < c.fluid_weights[0] ? 0 : u < c.fluid_weights[0] + c.fluid_weights[1] ? 1 : 2;
-        const double efficiency = 0.55 + 0.25 * std::exp(-std::pow((flow - 70.0) / 40.0, 2));
-        const double power = flow * head * density[f] / (367.0 * efficiency) + rng.normal(0.0, 0.05);
-        const char* condition = efficiency < 0.62 ? "worn" : (head > 30.0 ? "cavitating" : "ok");
-        csv << flow << "," << head << "," << fluids[f] << "," << power << "," << condition << "\n";
+        const double power = pump_log::power(flow, head, f, rng);
+        csv << flow << "," << head << "," << pump_log::fluid_names[f] << "," << power << "," << pump_log::condition(flow, head) << "\n";
     }
     std::istringstream in(csv.str());
     return tenon::read_csv(in, {}, "pump.csv");

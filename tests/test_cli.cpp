@@ -12,6 +12,7 @@
 #include <filesystem>
 #include <fstream>
 #include <map>
+#include <set>
 #include <sstream>
 #include <string>
 #include <vector>
@@ -79,7 +80,7 @@ TEST_CASE("tenon train --help explains every option with its default") {
     for (const char* default_text :
          {"default auto", "default 0.7,0.15,0.15", "(default: 64,32 under 8192", "(default relu)", "(default adam)", "default 0.001",
           "(default 1000;", "(default 32)", "(default 15", "(default 1)", "default 1),",
-          "training rows for at most SECONDS of wall-clock time,\n                         then train with the best as usual (default: off)",
+          "for at most SECONDS of wall-clock time, then train\n                         with the best as usual (default: off)",
           "the\n                         results are the same bits for every N"}) {
         CAPTURE(std::string(default_text));
         CHECK(r.out.find(default_text) != std::string::npos);
@@ -555,6 +556,41 @@ TEST_CASE("chronological and grouped splits keep time order and whole groups") {
     CHECK(gm.at("split") == "grouped");
     CHECK(number_at(gm, "features") == 2);  // day and temp
     CHECK(static_cast<long>(number_at(gm, "rows.test")) % 30 == 0);  // whole lines of 30 rows each
+
+    // --search's folds of the training rows keep the same rules: no fold
+    // trains on a later day than it is scored on, or on a line it is scored on.
+    const auto folds_of = [&](const std::vector<std::string>& split_args) {
+        std::vector<std::string> args = {"train", "--data", path, "--target", "amps", "--search", "5", "--use", "day"};
+        args.insert(args.end(), split_args.begin(), split_args.end());
+        const tenon_cli::train_request q = tenon_cli::parse_train_request(args);
+        const tenon::table t = tenon_cli::load_table(q);
+        const tenon_cli::training_setup s = tenon_cli::make_setup(t, q);
+        const tenon::holdout_split split = tenon_cli::make_holdout(t, q, s);
+        const std::vector<tenon::fold> folds = tenon_cli::search_folds(t, q, s, split.train);
+        for (const auto& f : folds)
+            for (const auto* part : {&f.train, &f.test})
+                for (auto r : *part) CHECK(std::find(split.train.begin(), split.train.end(), r) != split.train.end());
+        return folds;
+    };
+    const auto day = [](std::size_t row) { return 299 - static_cast<long>(row); };
+    const auto by_time = folds_of({"--split", "chronological", "--time-column", "day"});
+    REQUIRE(by_time.size() == 3);
+    for (const auto& f : by_time) {
+        REQUIRE(!f.train.empty());
+        REQUIRE(!f.test.empty());
+        long latest_train = -1, earliest_test = 1000;
+        for (auto r : f.train) latest_train = std::max(latest_train, day(r));
+        for (auto r : f.test) earliest_test = std::min(earliest_test, day(r));
+        CHECK(latest_train < earliest_test);
+    }
+    const auto by_line = folds_of({"--split", "grouped", "--group-column", "line"});
+    REQUIRE(by_line.size() == 3);
+    for (const auto& f : by_line) {
+        std::set<std::size_t> train_lines;
+        for (auto r : f.train) train_lines.insert(r % 10);
+        for (auto r : f.test) CHECK(train_lines.count(r % 10) == 0);
+    }
+    CHECK(folds_of({"--split", "random"}).empty());  // the search draws its own folds
 }
 
 // ---------------------------------------------------------------------------

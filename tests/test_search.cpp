@@ -14,27 +14,24 @@
 #include <tenon/prep/csv.hpp>
 #include <tenon/train/search.hpp>
 
+#include "pump_log.hpp"
+
 namespace {
 
-// An invented cooling-pump log (as in test_workflow.cpp): flow [m3/h],
-// head [m], fluid, motor power [kW]. Rows whose index is in `poisoned`
-// have an empty head cell (missing), which strict steps refuse to read.
+// The pump log (pump_log.hpp) without its condition column. Rows not in
+// `keep` are left out, or, with `poison_dropped`, kept with an empty head
+// cell (missing), which strict steps refuse to read.
 tenon::table pump_table(std::size_t n, std::uint64_t seed, const std::vector<bool>& keep = {}, bool poison_dropped = false) {
     tenon::random_engine rng(seed);
     std::ostringstream csv;
     csv << "flow,head,fluid,power\n";
-    const char* fluids[] = {"water", "glycol", "brine"};
-    const double density[] = {1.0, 1.07, 1.2};
     for (std::size_t i = 0; i < n; ++i) {
-        const double flow = rng.uniform(20.0, 120.0), head = rng.uniform(5.0, 40.0);
-        const auto f = static_cast<std::size_t>(rng.below(3));
-        const double efficiency = 0.55 + 0.25 * std::exp(-std::pow((flow - 70.0) / 40.0, 2));
-        const double power = flow * head * density[f] / (367.0 * efficiency) + rng.normal(0.0, 0.05);
+        const pump_log::reading r = pump_log::draw(rng);
         const bool kept = keep.empty() || keep[i];
         if (!kept && !poison_dropped) continue;
-        csv << flow << ",";
-        if (kept) csv << head;  // a dropped row, when kept in the table, has no head
-        csv << "," << fluids[f] << "," << power << "\n";
+        csv << r.flow << ",";
+        if (kept) csv << r.head;  // a dropped row, when kept in the table, has no head
+        csv << "," << r.fluid_name() << "," << r.power << "\n";
     }
     std::istringstream in(csv.str());
     return tenon::read_csv(in, {}, "pump.csv");
@@ -330,6 +327,40 @@ TEST_CASE("the search refuses a bad budget, too few folds, a team and a decay it
     momentum.weight_decay = 1e-3;
     CHECK_THROWS_WITH(tenon::search_settings<float>(t, power_plan(), rows, momentum, 10.0),
                       doctest::Contains("weight decay 0.001 needs the adam or adamw update rule; momentum has no decoupled weight decay"));
+}
+
+TEST_CASE("a search over the caller's folds reads their rows only and matches the same folds drawn by the search") {
+    // Walk-forward folds (prep/split.hpp) over the first 240 rows, read as
+    // times in row order; the last 60 rows have an empty head cell, which the
+    // strict plan refuses: reading any of them would fail.
+    std::vector<bool> keep(300);
+    for (std::size_t i = 0; i < keep.size(); ++i) keep[i] = i < 240;
+    const auto t = pump_table(300, 8, keep, true);
+    std::vector<double> times(240);
+    for (std::size_t i = 0; i < times.size(); ++i) times[i] = static_cast<double>(i);
+    const std::vector<tenon::fold> walk = tenon::rolling_origin_folds(times, 3, 60);
+    const auto run = [&](const auto& folds_or_rows, auto... more) {
+        auto c = std::make_shared<fake_clock>();
+        auto s = quick_settings(9);
+        s.clock = reading(c);
+        return tenon::search_settings<float>(t, power_plan(true), folds_or_rows, s, 1e6, more...);
+    };
+    const auto r = run(walk, std::size_t(3));
+    CHECK(r.folds == 3);
+    REQUIRE(r.candidates.size() == 3);
+    for (const auto& k : r.candidates) CHECK(k.folds_completed == 3);
+
+    // The random folds the search draws for these rows (k_folds from the
+    // seed it documents), given explicitly: the same record.
+    const auto rows = first_rows(240);
+    const auto drawn = tenon::k_folds(rows.size(), 3, 9 ^ 0x5EA5C4F01D5ull);
+    check_same(run(rows, std::size_t(3), std::size_t(3)), run(drawn, std::size_t(3)));
+
+    // A fold without held-out rows, or a single fold, is refused before training.
+    auto empty_test = walk;
+    empty_test[1].test.clear();
+    CHECK_THROWS_WITH(run(empty_test), doctest::Contains("fold 2 has 120 training and 0 held-out rows; each needs both"));
+    CHECK_THROWS_WITH(run(std::vector<tenon::fold>{walk[0]}), doctest::Contains("at least 2 folds, got 1"));
 }
 
 TEST_CASE("a search with a rule without decoupled decay tries no decay") {

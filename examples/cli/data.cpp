@@ -472,6 +472,31 @@ std::vector<tenon::fold> make_folds(const tenon::table& t, const train_request& 
     return tenon::k_folds(t.row_count(), q.folds, q.model.seed);
 }
 
+/// Folds of the training rows for --search, when rows must not cross time or
+/// groups: walk-forward for --split chronological, whole groups for --split
+/// grouped; empty otherwise (the search then draws random or stratified folds).
+std::vector<tenon::fold> search_folds(const tenon::table& t, const train_request& q, const training_setup& s, const std::vector<std::size_t>& rows) {
+    constexpr std::size_t k = 3;  // as the search's own folds
+    std::vector<tenon::fold> by_position;
+    if (s.split == split_choice::chronological) {
+        const std::vector<double> all = detail::column_times(t, q.time_column);
+        std::vector<double> times;
+        for (auto r : rows) times.push_back(all[r]);
+        by_position = tenon::rolling_origin_folds(times, k, std::max<std::size_t>(1, rows.size() / (k + 1)));
+    } else if (s.split == split_choice::grouped) {
+        const std::vector<std::uint32_t> all = tenon::dense_codes(t.at(q.group_column), true);
+        std::vector<std::uint32_t> groups;
+        for (auto r : rows) groups.push_back(all[r]);
+        by_position = tenon::group_k_folds(groups, k, q.model.seed);
+    }
+    std::vector<tenon::fold> out(by_position.size());
+    for (std::size_t f = 0; f < by_position.size(); ++f) {
+        for (auto p : by_position[f].train) out[f].train.push_back(rows[p]);
+        for (auto p : by_position[f].test) out[f].test.push_back(rows[p]);
+    }
+    return out;
+}
+
 tenon::model_settings make_settings(const train_request& q) {
     tenon::model_settings m = q.model;
     // With the BLAS backend tenon's threads split the products into bands

@@ -189,6 +189,9 @@ training_setup make_setup(const tenon::table& t, const train_request& q);
 
 /// The holdout the tool trains, validates and tests on.
 tenon::holdout_split make_holdout(const tenon::table& t, const train_request& q, const training_setup& s);
+/// --search's folds of `rows` under --split chronological (walk-forward) or
+/// grouped (whole groups); empty for the other splits.
+std::vector<tenon::fold> search_folds(const tenon::table& t, const train_request& q, const training_setup& s, const std::vector<std::size_t>& rows);
 
 // ---------------------------------------------------------------------------
 // Help texts (`tenon COMMAND --help` prints them)

@@ -315,8 +315,10 @@ const option_entry<train_request> train_options[] = {
     {"--search", "SECONDS",
      "search hidden widths and depths, learning rates and\n"
      "weight decays by 3-fold cross-validation on the\n"
-     "training rows for at most SECONDS of wall-clock time,\n"
-     "then train with the best as usual (default: off).\n"
+     "training rows (walk-forward with --split\n"
+     "chronological, whole groups with --split grouped)\n"
+     "for at most SECONDS of wall-clock time, then train\n"
+     "with the best as usual (default: off).\n"
      "Not with --hidden, --learning-rate or --folds.",
      [](train_request& q, const std::string& v) {
          q.search_seconds = parse_real("--search", v);
@@ -904,12 +906,15 @@ int train_holdout(const tenon::table& t, const train_request& q, training_setup&
         const tenon::scaling ts = s.preparation.measure(t, split.train).target_scaling();
         metric_scale = std::abs(ts.inverse(1.0) - ts.inverse(0.0));
     }
-    // --search: settings chosen by k-fold cross-validation on the training rows alone.
+    // --search: settings chosen by k-fold cross-validation on the training
+    // rows alone, with folds that keep the split's rule (time, groups).
     std::optional<tenon::settings_search_result> search;
     if (q.search_seconds > 0) {
         tenon::model_settings start = make_settings(q);
         start.clock = env.clock;
-        search = tenon::search_settings<float>(t, s.preparation, split.train, start, q.search_seconds);
+        const std::vector<tenon::fold> folds = search_folds(t, q, s, split.train);
+        search = folds.empty() ? tenon::search_settings<float>(t, s.preparation, split.train, start, q.search_seconds)
+                               : tenon::search_settings<float>(t, s.preparation, folds, start, q.search_seconds);
         if (!q.quiet) out << search_summary(*search) << "\n";
     }
     progress_printer progress(out, env.terminal, q.quiet, q.model.epochs, env.clock);

@@ -23,7 +23,10 @@
 // The compiled-once mode: declarations of the instantiations every serving
 // unit would otherwise compile again (C++17 [temp.explicit]: an explicit
 // instantiation declaration suppresses implicit instantiation of what it
-// names), and their definitions in the one unit that asks for them.
+// names, except inline functions), and their definitions in the one unit
+// that asks for them. So the predictor's entry points are defined out of
+// its class (not inline): a body in the class would still be instantiated
+// and optimized in every unit, for inlining.
 #if defined(TENON_SERVE_IMPLEMENTATION)
 #define TENON_DETAIL_SERVE_INSTANCE template
 #elif defined(TENON_SERVE_COMPILED)

@@ -555,6 +555,9 @@ inline bool parse_for_kind(const column_info& c, std::string_view cell, double& 
 template <class T>
 class predictor_holder;
 
+/// The entry points (construction from a file, the predict calls) are
+/// defined after the class, not inline, so serve.hpp's compiled-once mode
+/// can keep them out of every serving unit but one.
 template <class T>
 class predictor {
     TENON_REQUIRE_SCALAR(T);
@@ -562,10 +565,7 @@ class predictor {
 public:
     /// From a loaded model file (the plan, reference summaries and
     /// calibration come with it).
-    explicit predictor(const model_file<T>& file, std::size_t capacity = 64) : capacity_(capacity) {
-        model_ = build_program(file, file.plan ? &*file.plan : nullptr, file.references, file.calibration ? &*file.calibration : nullptr);
-        allocate();
-    }
+    explicit predictor(const model_file<T>& file, std::size_t capacity = 64);
     /// From a trainer's result or a network (train/authoring.hpp declares
     /// serving_form() for fitted_model<T> and network<T>; a serving program
     /// that includes only <tenon/serve.hpp> never instantiates this). A
@@ -590,13 +590,7 @@ public:
     predictor(predictor&&) noexcept = default;
     /// Copy and swap: if the copy's buffers cannot be allocated, this
     /// predictor keeps its model and buffers.
-    predictor& operator=(const predictor& other) {
-        if (this != &other) {
-            predictor copy(other);
-            *this = std::move(copy);
-        }
-        return *this;
-    }
+    predictor& operator=(const predictor& other);
     predictor& operator=(predictor&&) noexcept = default;
 
     /// Runs one pass over `capacity` rows of zeros. The matrix kernel
@@ -604,11 +598,7 @@ public:
     /// a thread that did not construct this predictor calls warm_up() once
     /// before its first allocation-free call. Construction, holder get() and
     /// refresh() warm up the calling thread.
-    void warm_up() noexcept {
-        std::fill(buffers_[0].begin(), buffers_[0].end(), T(0));
-        prediction_view<T> ignored;
-        run(capacity_, ignored);
-    }
+    void warm_up() noexcept;
 
     // --- what it expects and gives ---------------------------------------------------------
     std::size_t capacity() const noexcept { return capacity_; }
@@ -646,52 +636,13 @@ public:
 
     // --- non-throwing calls (noexcept, no allocation) -----------------------------------------
     /// `rows` rows of feature_count() prepared features.
-    predict_status try_predict_prepared(const T* features, std::size_t rows, prediction_view<T>& out) noexcept {
-        if (rows > capacity_) return {input_status::shape, static_cast<std::uint32_t>(rows), 0};
-        const std::size_t f = model_->feature_count;
-        T* x = buffers_[0].data();
-        for (std::size_t i = 0; i < rows * f; ++i) {
-            if (!std::isfinite(features[i])) return {input_status::non_finite, static_cast<std::uint32_t>(i / f), static_cast<std::uint32_t>(i % f)};
-            x[i] = detail::flush_subnormal(features[i]);
-        }
-        run(rows, out);
-        out.flags = nullptr;
-        out.columns = 0;
-        return {};
-    }
+    predict_status try_predict_prepared(const T* features, std::size_t rows, prediction_view<T>& out) noexcept;
 
     /// `rows` raw rows of input_count() cell texts each, in input-column order.
-    predict_status try_predict_cells(const std::string_view* cells, std::size_t rows, prediction_view<T>& out) noexcept {
-        if (rows > capacity_ || !model_->plan) return {input_status::shape, static_cast<std::uint32_t>(rows), 0};
-        const std::size_t n = input_count();
-        for (std::size_t i = 0; i < rows; ++i)
-            for (std::size_t k = 0; k < n; ++k) {
-                const predict_status s = prepare_cell(i, k, raw_value::of_text(cells[i * n + k]));
-                if (!s.ok()) return s;
-            }
-        run(rows, out);
-        return {};
-    }
+    predict_status try_predict_cells(const std::string_view* cells, std::size_t rows, prediction_view<T>& out) noexcept;
 
     /// One raw row as (name, text) cells in any order; extra cells are ignored.
-    predict_status try_predict_named(const named_value* cells, std::size_t count, prediction_view<T>& out) noexcept {
-        if (!model_->plan) return {input_status::shape, 0, 0};
-        const std::size_t n = input_count();
-        for (std::size_t k = 0; k < n; ++k) {
-            const std::string& name = model_->columns[k].name;
-            std::size_t found = count;
-            for (std::size_t j = 0; j < count; ++j)
-                if (cells[j].name == name) {
-                    found = j;
-                    break;
-                }
-            if (found == count) return {input_status::missing_column, 0, static_cast<std::uint32_t>(k)};
-            const predict_status s = prepare_cell(0, k, raw_value::of_text(cells[found].text));
-            if (!s.ok()) return s;
-        }
-        run(1, out);
-        return {};
-    }
+    predict_status try_predict_named(const named_value* cells, std::size_t count, prediction_view<T>& out) noexcept;
 
     /// `count` typed rows through a binding made by bind<Row>().
     template <class Row>
@@ -707,21 +658,9 @@ public:
     }
 
     // --- throwing calls --------------------------------------------------------------------------
-    prediction_view<T> predict_prepared(const T* features, std::size_t rows) {
-        prediction_view<T> out;
-        check(try_predict_prepared(features, rows, out), rows, true);
-        return out;
-    }
-    prediction_view<T> predict_cells(const std::string_view* cells, std::size_t rows) {
-        prediction_view<T> out;
-        check(try_predict_cells(cells, rows, out), rows, false);
-        return out;
-    }
-    prediction_view<T> predict_named(const named_value* cells, std::size_t count) {
-        prediction_view<T> out;
-        check(try_predict_named(cells, count, out), 1, false);
-        return out;
-    }
+    prediction_view<T> predict_prepared(const T* features, std::size_t rows);
+    prediction_view<T> predict_cells(const std::string_view* cells, std::size_t rows);
+    prediction_view<T> predict_named(const named_value* cells, std::size_t count);
     prediction_view<T> predict_named(const std::vector<named_value>& cells) { return predict_named(cells.data(), cells.size()); }
     template <class Row>
     prediction_view<T> predict_rows(const row_binding<Row>& binding, const Row* rows, std::size_t count) {
@@ -733,23 +672,7 @@ public:
     }
 
     /// The message a status would raise with.
-    std::string describe(const predict_status& s, std::size_t rows = 0, bool prepared = false) const {
-        const std::string at = "predictor, row " + std::to_string(s.row);
-        const std::string col = prepared ? "feature " + std::to_string(s.column)
-                                         : (s.column < input_count() ? "column '" + model_->columns[s.column].name + "'" : "a column");
-        switch (s.code) {
-        case input_status::ok: return "ok";
-        case input_status::missing_column: return at + ": the row has no cell for " + col;
-        case input_status::missing_value: return at + ", " + col + ": the cell is missing and the plan has no fill for it";
-        case input_status::not_numeric: return at + ", " + col + ": the cell is not a finite number or date/time";
-        case input_status::unseen_category: return at + ", " + col + ": the category was not seen in the training rows (policy: fail)";
-        case input_status::non_finite: return at + ", " + col + ": the value is NaN or infinite";
-        case input_status::shape:
-            return !model_->plan && !prepared ? std::string("predictor: the model has no preparation plan; use predict_prepared")
-                                              : "predictor: " + std::to_string(rows) + " rows exceed the capacity of " + std::to_string(capacity_);
-        }
-        return "unknown";
-    }
+    std::string describe(const predict_status& s, std::size_t rows = 0, bool prepared = false) const;
 
 private:
     friend class predictor_holder<T>;
@@ -1203,6 +1126,116 @@ private:
     std::vector<std::array<char, 32>> text_;  // numbers given for categorical columns, as text
     std::uint64_t generation_ = 0;  // of the holder it was refreshed from
 };
+
+template <class T>
+predictor<T>::predictor(const model_file<T>& file, std::size_t capacity) : capacity_(capacity) {
+    model_ = build_program(file, file.plan ? &*file.plan : nullptr, file.references, file.calibration ? &*file.calibration : nullptr);
+    allocate();
+}
+
+template <class T>
+predictor<T>& predictor<T>::operator=(const predictor& other) {
+    if (this != &other) {
+        predictor copy(other);
+        *this = std::move(copy);
+    }
+    return *this;
+}
+
+template <class T>
+void predictor<T>::warm_up() noexcept {
+    std::fill(buffers_[0].begin(), buffers_[0].end(), T(0));
+    prediction_view<T> ignored;
+    run(capacity_, ignored);
+}
+
+template <class T>
+predict_status predictor<T>::try_predict_prepared(const T* features, std::size_t rows, prediction_view<T>& out) noexcept {
+    if (rows > capacity_) return {input_status::shape, static_cast<std::uint32_t>(rows), 0};
+    const std::size_t f = model_->feature_count;
+    T* x = buffers_[0].data();
+    for (std::size_t i = 0; i < rows * f; ++i) {
+        if (!std::isfinite(features[i])) return {input_status::non_finite, static_cast<std::uint32_t>(i / f), static_cast<std::uint32_t>(i % f)};
+        x[i] = detail::flush_subnormal(features[i]);
+    }
+    run(rows, out);
+    out.flags = nullptr;
+    out.columns = 0;
+    return {};
+}
+
+template <class T>
+predict_status predictor<T>::try_predict_cells(const std::string_view* cells, std::size_t rows, prediction_view<T>& out) noexcept {
+    if (rows > capacity_ || !model_->plan) return {input_status::shape, static_cast<std::uint32_t>(rows), 0};
+    const std::size_t n = input_count();
+    for (std::size_t i = 0; i < rows; ++i)
+        for (std::size_t k = 0; k < n; ++k) {
+            const predict_status s = prepare_cell(i, k, raw_value::of_text(cells[i * n + k]));
+            if (!s.ok()) return s;
+        }
+    run(rows, out);
+    return {};
+}
+
+template <class T>
+predict_status predictor<T>::try_predict_named(const named_value* cells, std::size_t count, prediction_view<T>& out) noexcept {
+    if (!model_->plan) return {input_status::shape, 0, 0};
+    const std::size_t n = input_count();
+    for (std::size_t k = 0; k < n; ++k) {
+        const std::string& name = model_->columns[k].name;
+        std::size_t found = count;
+        for (std::size_t j = 0; j < count; ++j)
+            if (cells[j].name == name) {
+                found = j;
+                break;
+            }
+        if (found == count) return {input_status::missing_column, 0, static_cast<std::uint32_t>(k)};
+        const predict_status s = prepare_cell(0, k, raw_value::of_text(cells[found].text));
+        if (!s.ok()) return s;
+    }
+    run(1, out);
+    return {};
+}
+
+template <class T>
+prediction_view<T> predictor<T>::predict_prepared(const T* features, std::size_t rows) {
+    prediction_view<T> out;
+    check(try_predict_prepared(features, rows, out), rows, true);
+    return out;
+}
+
+template <class T>
+prediction_view<T> predictor<T>::predict_cells(const std::string_view* cells, std::size_t rows) {
+    prediction_view<T> out;
+    check(try_predict_cells(cells, rows, out), rows, false);
+    return out;
+}
+
+template <class T>
+prediction_view<T> predictor<T>::predict_named(const named_value* cells, std::size_t count) {
+    prediction_view<T> out;
+    check(try_predict_named(cells, count, out), 1, false);
+    return out;
+}
+
+template <class T>
+std::string predictor<T>::describe(const predict_status& s, std::size_t rows, bool prepared) const {
+    const std::string at = "predictor, row " + std::to_string(s.row);
+    const std::string col = prepared ? "feature " + std::to_string(s.column)
+                                     : (s.column < input_count() ? "column '" + model_->columns[s.column].name + "'" : "a column");
+    switch (s.code) {
+    case input_status::ok: return "ok";
+    case input_status::missing_column: return at + ": the row has no cell for " + col;
+    case input_status::missing_value: return at + ", " + col + ": the cell is missing and the plan has no fill for it";
+    case input_status::not_numeric: return at + ", " + col + ": the cell is not a finite number or date/time";
+    case input_status::unseen_category: return at + ", " + col + ": the category was not seen in the training rows (policy: fail)";
+    case input_status::non_finite: return at + ", " + col + ": the value is NaN or infinite";
+    case input_status::shape:
+        return !model_->plan && !prepared ? std::string("predictor: the model has no preparation plan; use predict_prepared")
+                                          : "predictor: " + std::to_string(rows) + " rows exceed the capacity of " + std::to_string(capacity_);
+    }
+    return "unknown";
+}
 
 /// Publishes predictors to many threads, read-copy-update style. The host
 /// calls store() with a new predictor at any time; each thread keeps its own

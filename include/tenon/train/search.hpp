@@ -9,8 +9,11 @@
 // and test rows are never read), within a wall-clock budget measured by
 // model_settings::clock. The starting settings are tried first; the rest
 // follow in an order drawn from the seed, so one seed gives one record.
+// Rows ordered in time or grouped by machine take the caller's folds
+// (walk-forward, whole groups) instead of random ones.
 #pragma once
 
+#include <algorithm>
 #include <cmath>
 #include <cstddef>
 #include <cstdint>
@@ -120,78 +123,36 @@ inline std::size_t choose_search_candidate(const std::vector<search_candidate>& 
     return mean + standard_error < 0.0 ? lowest : 0;
 }
 
-/// Searches hidden widths and depths, learning rates and weight decays for
-/// `start`, by `folds`-fold cross-validation on `train_rows` alone, within
-/// `budget_seconds` of wall-clock time, and returns the settings with the
-/// lowest mean fold loss among those that completed every fold, when they
-/// beat the start by more than the folds' noise.
-///
-/// - The candidates: `start`'s own settings first, then the grid of
-///   settings_search_grid() (less any point equal to the start, and less
-///   the decays when start.update has none) in an order shuffled from
-///   start.seed; at most `max_candidates` in all (0: no limit
-///   but the budget).
-/// - The folds: random folds of `train_rows` drawn from start.seed
-///   (stratified by class for classification when every class has at least
-///   `folds` rows). Each fold runs fit_model with the candidate's settings
-///   and ensemble 1, the fold's rows as validation; its plan is measured on
-///   the fold's other rows. Every candidate sees the same folds and seed.
-/// - The budget, by start.clock (steady_clock when empty): the first
-///   candidate always starts; a later one starts only when the time left is
-///   at least the mean time of the complete candidates so far, and each
-///   fold trains with the time left as its time_budget_seconds, so the
-///   search ends within one optimizer step of the budget. A candidate cut
-///   short is recorded and ends the search.
-/// - The choice: choose_search_candidate (the lowest mean fold loss, when it
-///   beats the start by more than the noise; else the start).
-/// The host's observers (on_epoch, on_batch) are not called during the
-/// search; its cancel flag is honoured. Not for a team.
+namespace detail {
+
+// The checks every search makes before training anything; returns the
+// starting hidden widths for `rows` training rows.
 template <class T>
-settings_search_result search_settings(const table& t, const plan& preparation, const std::vector<std::size_t>& train_rows,
-                                       const model_settings& start, double budget_seconds, std::size_t folds = 3, std::size_t max_candidates = 0) {
-    TENON_REQUIRE_SCALAR(T);
+std::vector<std::size_t> check_search_start(const model_settings& start, double budget_seconds, std::size_t folds, std::size_t rows) {
     if (!(budget_seconds > 0.0 && std::isfinite(budget_seconds)))
         raise(codes::train_option_invalid, "search_settings: the budget must be a positive number of seconds, got " + number_to_text(budget_seconds));
     if (folds < 2) raise(codes::train_option_invalid, "search_settings: needs at least 2 folds, got " + std::to_string(folds));
     if (start.team) raise(codes::train_option_invalid, "search_settings: a team cannot search; search alone and give the team the chosen settings");
-    const std::vector<std::size_t> start_hidden = hidden_widths(start, train_rows.size());
-    if (start_hidden.empty() || !(start.learning_rate > 0.0))
+    std::vector<std::size_t> hidden = hidden_widths(start, rows);
+    if (hidden.empty() || !(start.learning_rate > 0.0))
         raise(codes::train_option_invalid, "search_settings: the starting settings need hidden layers and a positive learning rate");
     // A decay the rule cannot apply is refused before any training.
     (void)make_update_rule<T>(start.update, start.weight_decay);
-    const std::function<double()> clock = start.clock ? start.clock : std::function<double()>(detail::steady_seconds);
-    const double began = clock();
+    return hidden;
+}
 
-    // The folds, over positions in train_rows.
-    std::vector<std::size_t> rows = train_rows;
-    std::vector<fold> by_position;
-    const std::uint64_t fold_seed = start.seed ^ 0x5EA5C4F01D5ull;
-    const measured_plan measured = preparation.measure(t, train_rows);
-    if (!measured.has_target()) raise(codes::train_option_invalid, "search_settings: the plan has no target column");
-    if (measured.target_type() == target_kind::classification) {
-        // The class of every training row with a target (rows without one are dropped by fit_model anyway).
-        const prepared_rows<T> prepared = measured.template apply<T>(t, train_rows);
-        rows = prepared.rows;
-        std::vector<std::size_t> per_class(measured.class_count(), 0);
-        for (auto c : prepared.classes) ++per_class[c];
-        bool stratify = true;
-        for (auto n : per_class) stratify = stratify && (n == 0 || n >= folds);
-        if (rows.size() < folds)
+template <class T>
+settings_search_result search_over_folds(const table& t, const plan& preparation, const std::vector<fold>& row_folds, const model_settings& start,
+                                         double budget_seconds, std::size_t max_candidates, std::size_t width_rows) {
+    const std::size_t folds = row_folds.size();
+    const std::vector<std::size_t> start_hidden = check_search_start<T>(start, budget_seconds, folds, width_rows);
+    for (std::size_t f = 0; f < folds; ++f)
+        if (row_folds[f].train.empty() || row_folds[f].test.empty())
             raise(codes::train_option_invalid,
-                  "search_settings: " + std::to_string(rows.size()) + " training rows with a target, fewer than the " + std::to_string(folds) +
-                      " folds");
-        by_position = stratify ? stratified_k_folds(prepared.classes, folds, fold_seed) : k_folds(rows.size(), folds, fold_seed);
-    } else {
-        if (rows.size() < folds)
-            raise(codes::train_option_invalid,
-                  "search_settings: " + std::to_string(rows.size()) + " training rows, fewer than the " + std::to_string(folds) + " folds");
-        by_position = k_folds(rows.size(), folds, fold_seed);
-    }
-    std::vector<fold> row_folds(by_position.size());
-    for (std::size_t f = 0; f < by_position.size(); ++f) {
-        for (auto p : by_position[f].train) row_folds[f].train.push_back(rows[p]);
-        for (auto p : by_position[f].test) row_folds[f].test.push_back(rows[p]);
-    }
+                  "search_settings: fold " + std::to_string(f + 1) + " has " + std::to_string(row_folds[f].train.size()) + " training and " +
+                      std::to_string(row_folds[f].test.size()) + " held-out rows; each needs both");
+    const std::function<double()> clock = start.clock ? start.clock : std::function<double()>(steady_seconds);
+    const double began = clock();
 
     // The candidates: the start, then the shuffled grid.
     std::vector<search_candidate> listed(1);
@@ -285,6 +246,89 @@ settings_search_result search_settings(const table& t, const plan& preparation, 
     result.chosen.learning_rate = chosen.learning_rate;
     result.chosen.weight_decay = chosen.weight_decay;
     return result;
+}
+
+}  // namespace detail
+
+/// As below, over folds the caller made (row indices of `t`): rolling-origin
+/// folds for rows ordered in time, group folds for rows of many machines, so
+/// that no fold trains on rows later than, or from the machine of, the rows
+/// it is scored on (prep/split.hpp). Each fold needs training and held-out
+/// rows; at least 2 folds. The starting widths follow the rows of the
+/// largest fold.
+template <class T>
+settings_search_result search_settings(const table& t, const plan& preparation, const std::vector<fold>& row_folds, const model_settings& start,
+                                       double budget_seconds, std::size_t max_candidates = 0) {
+    TENON_REQUIRE_SCALAR(T);
+    std::size_t rows = 0;
+    for (const fold& f : row_folds) rows = std::max(rows, f.train.size() + f.test.size());
+    return detail::search_over_folds<T>(t, preparation, row_folds, start, budget_seconds, max_candidates, rows);
+}
+
+/// Searches hidden widths and depths, learning rates and weight decays for
+/// `start`, by `folds`-fold cross-validation on `train_rows` alone, within
+/// `budget_seconds` of wall-clock time, and returns the settings with the
+/// lowest mean fold loss among those that completed every fold, when they
+/// beat the start by more than the folds' noise.
+///
+/// - The candidates: `start`'s own settings first, then the grid of
+///   settings_search_grid() (less any point equal to the start, and less
+///   the decays when start.update has none) in an order shuffled from
+///   start.seed; at most `max_candidates` in all (0: no limit
+///   but the budget).
+/// - The folds: random folds of `train_rows` drawn from start.seed
+///   (stratified by class for classification when every class has at least
+///   `folds` rows). Each fold runs fit_model with the candidate's settings
+///   and ensemble 1, the fold's rows as validation; its plan is measured on
+///   the fold's other rows. Every candidate sees the same folds and seed.
+/// - The budget, by start.clock (steady_clock when empty): the first
+///   candidate always starts; a later one starts only when the time left is
+///   at least the mean time of the complete candidates so far, and each
+///   fold trains with the time left as its time_budget_seconds, so the
+///   search ends within one optimizer step of the budget. A candidate cut
+///   short is recorded and ends the search.
+/// - The choice: choose_search_candidate (the lowest mean fold loss, when it
+///   beats the start by more than the noise; else the start).
+/// The host's observers (on_epoch, on_batch) are not called during the
+/// search; its cancel flag is honoured. Not for a team.
+template <class T>
+settings_search_result search_settings(const table& t, const plan& preparation, const std::vector<std::size_t>& train_rows,
+                                       const model_settings& start, double budget_seconds, std::size_t folds = 3, std::size_t max_candidates = 0) {
+    TENON_REQUIRE_SCALAR(T);
+    (void)detail::check_search_start<T>(start, budget_seconds, folds, train_rows.size());
+
+    // The folds, over positions in train_rows.
+    std::vector<std::size_t> rows = train_rows;
+    std::vector<fold> by_position;
+    const std::uint64_t fold_seed = start.seed ^ 0x5EA5C4F01D5ull;
+    const measured_plan measured = preparation.measure(t, train_rows);
+    if (!measured.has_target()) raise(codes::train_option_invalid, "search_settings: the plan has no target column");
+    if (measured.target_type() == target_kind::classification) {
+        // The class of every training row with a target (rows without one are dropped by fit_model anyway).
+        const prepared_rows<T> prepared = measured.template apply<T>(t, train_rows);
+        rows = prepared.rows;
+        std::vector<std::size_t> per_class(measured.class_count(), 0);
+        for (auto c : prepared.classes) ++per_class[c];
+        bool stratify = true;
+        for (auto n : per_class) stratify = stratify && (n == 0 || n >= folds);
+        if (rows.size() < folds)
+            raise(codes::train_option_invalid,
+                  "search_settings: " + std::to_string(rows.size()) + " training rows with a target, fewer than the " + std::to_string(folds) +
+                      " folds");
+        by_position = stratify ? stratified_k_folds(prepared.classes, folds, fold_seed) : k_folds(rows.size(), folds, fold_seed);
+    } else {
+        if (rows.size() < folds)
+            raise(codes::train_option_invalid,
+                  "search_settings: " + std::to_string(rows.size()) + " training rows, fewer than the " + std::to_string(folds) + " folds");
+        by_position = k_folds(rows.size(), folds, fold_seed);
+    }
+    std::vector<fold> row_folds(by_position.size());
+    for (std::size_t f = 0; f < by_position.size(); ++f) {
+        for (auto p : by_position[f].train) row_folds[f].train.push_back(rows[p]);
+        for (auto p : by_position[f].test) row_folds[f].test.push_back(rows[p]);
+    }
+
+    return detail::search_over_folds<T>(t, preparation, row_folds, start, budget_seconds, max_candidates, train_rows.size());
 }
 
 TENON_NAMESPACE_END
