@@ -941,3 +941,37 @@ TEST_CASE("under a time budget every member of an ensemble gets its share and th
         CHECK_FALSE(same_weights(member_weights(r.candidate, k), member_weights(incumbent, k)));
     }
 }
+
+TEST_CASE("retraining goes on with the model's decoupled weight decay and records it") {
+    const auto old_rows = retrain_test::pump_rows(300, 62);
+    tenon::model_settings s = deploy_test::small_settings(5);
+    s.update = tenon::update_kind::adam;
+    s.weight_decay = 0.05;  // AdamW (Loshchilov & Hutter 2019)
+    const auto incumbent = incumbent_of<float>(old_rows, deploy_test::condition_plan(), s);
+    REQUIRE(incumbent.metadata);
+    CHECK(std::stod(setting_of(*incumbent.metadata, "weight_decay")) == 0.05);
+    const auto new_rows = retrain_test::pump_rows(400, 63);
+    tenon::retraining_options o;
+    o.epochs = 4;
+    o.seed = 3;
+    o.created_unix_seconds = 1;
+    const auto stored = tenon::retrain_model(incumbent, new_rows, o);
+    REQUIRE(stored.candidate.metadata);
+    CHECK(std::stod(setting_of(*stored.candidate.metadata, "weight_decay")) == 0.05);
+    // The stored decay is the one given explicitly: the same bits.
+    o.weight_decay = 0.05;
+    CHECK(same_weights(tenon::retrain_model(incumbent, new_rows, o).candidate.weights, stored.candidate.weights));
+    // Without it, other weights (the decay was applied).
+    o.weight_decay = 0.0;
+    const auto none = tenon::retrain_model(incumbent, new_rows, o);
+    CHECK(std::stod(setting_of(*none.candidate.metadata, "weight_decay")) == 0.0);
+    CHECK_FALSE(same_weights(none.candidate.weights, stored.candidate.weights));
+    // A rule without decoupled decay keeps none unless one is asked for, which it refuses.
+    o.weight_decay.reset();
+    o.update = tenon::update_kind::momentum;
+    CHECK(std::stod(setting_of(*tenon::retrain_model(incumbent, new_rows, o).candidate.metadata, "weight_decay")) == 0.0);
+    o.weight_decay = 0.01;
+    CHECK(code_of([&] { tenon::retrain_model(incumbent, new_rows, o); }) == "train.option.invalid");
+    o.weight_decay = -1.0;
+    CHECK(code_of([&] { tenon::retrain_model(incumbent, new_rows, o); }) == "deploy.retrain.option");
+}

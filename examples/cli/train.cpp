@@ -1085,7 +1085,6 @@ int train_holdout(const tenon::table& t, const train_request& q, training_setup&
         }
         if (search) {
             file.metadata->settings.emplace_back("search_seconds", tenon::number_to_text(q.search_seconds));
-            file.metadata->settings.emplace_back("weight_decay", tenon::number_to_text(settings.weight_decay));
         }
         model_probe.write(tenon::model_file_to_bytes(file));
     }

@@ -233,6 +233,7 @@ model_file<T> make_model_file(const fitted_model<T>& model, const table& t, cons
     meta.settings.emplace_back("hidden_activation", activation_name(settings.hidden_activation));
     meta.settings.emplace_back("update", update_kind_name(settings.update));
     meta.settings.emplace_back("learning_rate", number_to_text(settings.learning_rate));
+    meta.settings.emplace_back("weight_decay", number_to_text(settings.weight_decay));
     meta.settings.emplace_back("batch_size", std::to_string(settings.batch_size));
     meta.settings.emplace_back("patience", std::to_string(settings.patience));
     meta.settings.emplace_back("ensemble", std::to_string(model.member_count()));

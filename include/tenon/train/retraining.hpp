@@ -150,6 +150,9 @@ struct retraining_options : run_controls {
     std::optional<std::size_t> batch_size;
     std::optional<double> learning_rate;
     std::optional<update_kind> update;
+    /// Decoupled weight decay (adam, adamw). Default: the model's stored
+    /// setting when the rule in use has one, else 0.
+    std::optional<double> weight_decay;
     /// Early stopping on a `validation_share` of the training mix, in [0, 1) (0: none).
     std::size_t patience = 5;
     double validation_share = 0.15;
@@ -496,6 +499,8 @@ inline void check_retraining_options(const retraining_options& o) {
     if (o.batch_size && *o.batch_size == 0) fail("batch_size must be at least 1");
     if (o.learning_rate && !(*o.learning_rate > 0.0 && std::isfinite(*o.learning_rate)))
         fail("learning_rate must be positive and finite, got " + std::to_string(*o.learning_rate));
+    if (o.weight_decay && !(*o.weight_decay >= 0.0 && std::isfinite(*o.weight_decay)))
+        fail("weight_decay must be a finite number, at least 0, got " + number_to_text(*o.weight_decay));
     if (!(o.time_budget_seconds >= 0.0)) fail("time_budget_seconds must not be negative, got " + std::to_string(o.time_budget_seconds));
     if (o.threads == 0) fail("threads must be at least 1");
 }
@@ -797,6 +802,17 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
     const double learning_rate = options.learning_rate                                                            ? *options.learning_rate
         : (!stored_rate.empty() && parse_number(stored_rate, stored_learning_rate) && stored_learning_rate > 0.0) ? stored_learning_rate
                                                                                                                   : 1e-3;
+    // The stored decay goes on with a rule that has one (a file written
+    // before the setting was kept has none: 0).
+    double weight_decay = 0.0;
+    if (options.weight_decay)
+        weight_decay = *options.weight_decay;
+    else if (update == update_kind::adam || update == update_kind::adamw) {
+        const std::string stored = detail::setting_of(meta, "weight_decay");
+        double value = 0.0;
+        if (!stored.empty() && parse_number(stored, value) && value >= 0.0 && std::isfinite(value)) weight_decay = value;
+    }
+    (void)make_update_rule<T>(update, weight_decay);  // a decay the rule lacks is refused before training
     std::size_t batch_size = 32;
     double stored_batch_number = 0.0;
     if (options.batch_size)
@@ -833,7 +849,7 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
         const std::function<double()> left = [&] { return options.time_budget_seconds - (clock() - start); };
         const double training_start = clock();
         outcome =
-            detail::train_networks(detail::pointers_to(candidate_nets), o, update, learning_rate, 0.0, true, member_seed, train, validation, {}, left)
+            detail::train_networks(detail::pointers_to(candidate_nets), o, update, learning_rate, weight_decay, true, member_seed, train, validation, {}, left)
                 .front();
         if (candidate_nets.size() > 1) outcome.seconds = clock() - training_start;  // all members' training
     } else if (options.epochs > 0) {
@@ -942,6 +958,7 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
     set_metric("retrainings", (meta && std::isfinite(meta->metric("retrainings")) ? meta->metric("retrainings") : 0.0) + 1.0);
     set_setting("update", update_kind_name(update));
     set_setting("learning_rate", number_to_text(learning_rate));
+    set_setting("weight_decay", number_to_text(weight_decay));
     set_setting("batch_size", std::to_string(batch_size));
     set_setting("patience", std::to_string(options.patience));
     set_setting("gate_metric", report.metric);

@@ -4,13 +4,10 @@
 //   auto found = tenon::search_settings<float>(table, p, split.train, settings, 60.0);  // 60 s
 //   auto model = tenon::fit_model<float>(table, p, split.train, split.validation, found.chosen);
 //
-// search_settings tries hidden widths and depths, learning rates and weight
-// decays, each candidate by k folds of the training rows alone (validation
-// and test rows are never read), within a wall-clock budget measured by
-// model_settings::clock. The starting settings are tried first; the rest
-// follow in an order drawn from the seed, so one seed gives one record.
-// Rows ordered in time or grouped by machine take the caller's folds
-// (walk-forward, whole groups) instead of random ones.
+// It tries hidden widths and depths, learning rates and weight decays on the
+// training rows alone, within a budget measured by model_settings::clock; the
+// order comes from the seed. Rows ordered in time or grouped by machine take
+// the caller's folds (walk-forward, whole groups) instead of random ones.
 #pragma once
 
 #include <algorithm>
