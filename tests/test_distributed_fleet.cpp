@@ -3,6 +3,7 @@
 // contribution's bytes over MPI to rank 0, the coordinator.
 #include <doctest/doctest.h>
 
+#include <algorithm>
 #include <cmath>
 #include <cstdio>
 #include <string>
@@ -149,4 +150,51 @@ TEST_CASE("fleet contributions: damaged envelopes and an empty fleet raise their
     // One device alone: the average is its own weights.
     const auto one = tenon::average_fleet(incumbent, {good});
     CHECK(one.model.weights[1].values.data()[0] == incumbent.weights[1].values.data()[0]);
+}
+
+TEST_CASE("fleet averaging of a seed ensemble averages every member and gates on the members' mean") {
+    const tenon::table t = retrain_test::pump_rows(200, 12);
+    tenon::model_settings s = deploy_test::small_settings(4);
+    s.hidden = {8};
+    s.epochs = 2;
+    s.ensemble = 3;
+    auto fitted = tenon::fit_model<float>(t, deploy_test::condition_plan(), range(0, 160), range(160, 200), s);
+    const tenon::model_file<float> incumbent = tenon::make_model_file(fitted, t, range(0, 160), s);
+    REQUIRE(incumbent.members.size() == 2);
+    // Two devices whose every weight is the incumbent's plus 1 and plus 3,
+    // with 1 and 3 samples: the average is the incumbent's plus 2.5, in
+    // every tensor of every member.
+    const auto shifted = [&](float by) {
+        tenon::model_file<float> m = incumbent;
+        for (auto* w : tenon::detail::weight_tensors(m))
+            for (std::size_t i = 0; i < w->values.size(); ++i) w->values.data()[i] += by;
+        return m;
+    };
+    const auto avg =
+        tenon::average_fleet(incumbent, {tenon::fleet_contribution_bytes(shifted(1.0f), 1), tenon::fleet_contribution_bytes(shifted(3.0f), 3)});
+    REQUIRE(avg.accepted.size() == 2);
+    REQUIRE(avg.model.members.size() == 2);
+    const auto mine = tenon::detail::weight_tensors(incumbent);
+    const auto theirs = tenon::detail::weight_tensors(avg.model);
+    REQUIRE(theirs.size() == mine.size());
+    double worst = 0.0;
+    for (std::size_t w = 0; w < mine.size(); ++w)
+        for (std::size_t i = 0; i < mine[w]->values.size(); ++i)
+            worst = std::max(worst, std::abs(static_cast<double>(theirs[w]->values.data()[i]) - (mine[w]->values.data()[i] + 2.5)));
+    CHECK(worst < 1e-5);
+    // A single network is not a member-by-member match for an ensemble of three.
+    tenon::model_file<float> single = incumbent;
+    single.members.clear();
+    const auto mixed = tenon::average_fleet(incumbent, {tenon::fleet_contribution_bytes(single, 5), tenon::fleet_contribution_bytes(incumbent, 5)});
+    REQUIRE(mixed.refused.size() == 1);
+    CHECK(mixed.refused[0].reason.find("holds 1 network(s), the incumbent 3") != std::string::npos);
+    // The gate scores the members' mean: a candidate whose second member is
+    // emptied scores otherwise, though its first member is the incumbent's.
+    tenon::model_file<float> hollow = incumbent;
+    for (auto& w : hollow.members[0])
+        for (std::size_t i = 0; i < w.values.size(); ++i) w.values.data()[i] = 0.0f;
+    const tenon::table holdout = retrain_test::pump_rows(300, 998);
+    const auto verdict = tenon::gate_fleet_average(incumbent, hollow, holdout, tenon::gate_metric::log_loss);
+    CHECK(verdict.candidate_score != verdict.incumbent_score);
+    CHECK(tenon::gate_fleet_average(incumbent, incumbent, holdout, tenon::gate_metric::log_loss).candidate_score == verdict.incumbent_score);
 }

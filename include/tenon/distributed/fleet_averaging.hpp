@@ -100,6 +100,19 @@ fleet_contribution<T> read_fleet_contribution(const std::vector<std::uint8_t>& b
     return c;
 }
 
+namespace detail {
+// Every weight tensor of a file: the first network's, then each other
+// ensemble member's (section ENSM), in that order.
+template <class File>
+auto weight_tensors(File& f) {
+    std::vector<decltype(&f.weights.front())> all;
+    for (auto& w : f.weights) all.push_back(&w);
+    for (auto& member : f.members)
+        for (auto& w : member) all.push_back(&w);
+    return all;
+}
+}  // namespace detail
+
 /// A contribution left out of the average, and why.
 struct fleet_refusal {
     std::size_t index = 0;  // position in the list given to average_fleet
@@ -109,7 +122,9 @@ struct fleet_refusal {
 template <class T>
 struct fleet_average_result {
     /// The incumbent's file with the averaged weights (parameters and state
-    /// buffers), its plan, references and replay sample; no resume state.
+    /// buffers; every member of a seed ensemble, each averaged with the same
+    /// member of the others), its plan, references and replay sample; no
+    /// resume state.
     model_file<T> model;
     std::uint64_t samples = 0;  // over the accepted contributions
     std::vector<std::size_t> accepted;  // positions in the given list
@@ -126,8 +141,9 @@ fleet_average_result<T> average_fleet(const model_file<T>& incumbent, const std:
     const std::vector<std::uint8_t> arch_bytes = to_bytes(incumbent.architecture);
     const std::vector<std::uint8_t> plan_bytes = incumbent.plan ? incumbent.plan->to_bytes() : std::vector<std::uint8_t>{};
     fleet_average_result<T> r;
-    std::vector<std::vector<double>> sums(incumbent.weights.size());
-    for (std::size_t w = 0; w < sums.size(); ++w) sums[w].assign(incumbent.weights[w].values.size(), 0.0);
+    const auto incumbent_tensors = detail::weight_tensors(incumbent);
+    std::vector<std::vector<double>> sums(incumbent_tensors.size());
+    for (std::size_t w = 0; w < sums.size(); ++w) sums[w].assign(incumbent_tensors[w]->values.size(), 0.0);
     std::vector<std::pair<std::uint64_t, model_file<T>>> kept;
     for (std::size_t k = 0; k < contributions.size(); ++k) {
         const auto refuse = [&](std::string why) { r.refused.push_back({k, std::move(why)}); };
@@ -153,10 +169,16 @@ fleet_average_result<T> average_fleet(const model_file<T>& incumbent, const std:
                    std::to_string(plan) + ")");
             continue;
         }
-        bool fits = c.model.weights.size() == incumbent.weights.size(), finite = true;
-        for (std::size_t w = 0; fits && w < incumbent.weights.size(); ++w) {
-            const auto& mine = c.model.weights[w];
-            fits = mine.name == incumbent.weights[w].name && shape_of(mine.values) == shape_of(incumbent.weights[w].values);
+        if (c.model.members.size() != incumbent.members.size()) {
+            refuse("it holds " + std::to_string(c.model.members.size() + 1) + " network(s), the incumbent " +
+                   std::to_string(incumbent.members.size() + 1));
+            continue;
+        }
+        const auto its_tensors = detail::weight_tensors(c.model);
+        bool fits = its_tensors.size() == incumbent_tensors.size(), finite = true;
+        for (std::size_t w = 0; fits && w < incumbent_tensors.size(); ++w) {
+            const auto& mine = *its_tensors[w];
+            fits = mine.name == incumbent_tensors[w]->name && shape_of(mine.values) == shape_of(incumbent_tensors[w]->values);
             for (std::size_t i = 0; fits && finite && i < mine.values.size(); ++i) finite = std::isfinite(mine.values.data()[i]);
         }
         if (!fits) {
@@ -178,15 +200,17 @@ fleet_average_result<T> average_fleet(const model_file<T>& incumbent, const std:
     const double total = static_cast<double>(r.samples);
     for (const auto& [samples, m] : kept) {
         const double share = static_cast<double>(samples) / total;
+        const auto tensors = detail::weight_tensors(m);
         for (std::size_t w = 0; w < sums.size(); ++w) {
-            const T* v = m.weights[w].values.data();
+            const T* v = tensors[w]->values.data();
             for (std::size_t i = 0; i < sums[w].size(); ++i) sums[w][i] += share * static_cast<double>(v[i]);
         }
     }
     r.model = incumbent;
     r.model.resume.reset();
+    const auto averaged = detail::weight_tensors(r.model);
     for (std::size_t w = 0; w < sums.size(); ++w) {
-        T* v = r.model.weights[w].values.data();
+        T* v = averaged[w]->values.data();
         for (std::size_t i = 0; i < sums[w].size(); ++i) v[i] = static_cast<T>(sums[w][i]);
     }
     if (r.model.metadata) {
@@ -231,7 +255,8 @@ fleet_gate_report gate_fleet_average(const model_file<T>& incumbent, const model
                   (classify ? "classification" : "regression") + " target");
     const prepared_rows<T> rows = plan.template apply<T>(holdout, all_rows(holdout.row_count()));
     if (rows.rows.empty()) raise(codes::deploy_retrain_too_few_rows, "gate_fleet_average: the holdout has no row with a target");
-    network<T> a = rebuild_network(incumbent), b = rebuild_network(averaged);
+    // A seed ensemble is scored on its members' mean, as the retraining gate scores it.
+    const std::vector<network<T>> a = detail::networks_of(incumbent), b = detail::networks_of(averaged);
     fleet_gate_report g;
     g.metric = gate_metric_name(metric);
     g.holdout_rows = rows.rows.size();

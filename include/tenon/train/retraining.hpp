@@ -848,9 +848,9 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
         const auto member_seed = [&](std::size_t k) { return detail::member_seed(training_seed, k); };
         const std::function<double()> left = [&] { return options.time_budget_seconds - (clock() - start); };
         const double training_start = clock();
-        outcome =
-            detail::train_networks(detail::pointers_to(candidate_nets), o, update, learning_rate, weight_decay, true, member_seed, train, validation, {}, left)
-                .front();
+        outcome = detail::train_networks(detail::pointers_to(candidate_nets), o, update, learning_rate, weight_decay, true, member_seed, train,
+                                         validation, {}, left)
+                      .front();
         if (candidate_nets.size() > 1) outcome.seconds = clock() - training_start;  // all members' training
     } else if (options.epochs > 0) {
         outcome.reason = stop_reason::time_budget;
