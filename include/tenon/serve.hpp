@@ -1,10 +1,10 @@
 // tenon: the one include of a serving program. It loads and checks model
 // files, prepares raw rows with the stored plan, predicts with calibrated
 // bands or class sets, and measures drift; it includes nothing of training
-// (autodiff/, layers/, losses/, update/, train/), so a serving unit compiles
-// in a fraction of the time <tenon/tenon.hpp> takes (docs/design/layout.md).
-// A host with many serving units compiles the loader and the predictor
-// once: TENON_SERVE_COMPILED in every unit, and one unit that also defines
+// (autodiff/, layers/, losses/, update/, train/; docs/design/layout.md).
+// A host compiles the loader and the predictor once by linking the CMake
+// component tenon::serve (serve/instantiate.cpp), or by hand:
+// TENON_SERVE_COMPILED in every unit, and one unit that also defines
 // TENON_SERVE_IMPLEMENTATION (explicit instantiations for float and double).
 // Reading CSV files (prep/csv.hpp) is left out: it needs exceptions, and a
 // serving host reads its rows its own way.

@@ -66,8 +66,7 @@
 #include "tenon/format/model_file.hpp"
 #include "tenon/format/training_state.hpp"
 
-#include "tenon/serve/drift.hpp"
-#include "tenon/serve/predictor.hpp"
+#include "tenon/serve.hpp"  // drift and the predictor; TENON_SERVE_COMPILED applies here too
 
 #include "tenon/train/authoring.hpp"
 #include "tenon/train/retraining.hpp"

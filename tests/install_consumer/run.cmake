@@ -120,6 +120,17 @@ if(EXISTS "${config_dir}/tenon_mpiTargets.cmake")
        -DTENON_HOST_COMPONENTS=mpi -DCMAKE_DISABLE_FIND_PACKAGE_ZLIB=ON)
 endif()
 
+# 7. The serve component: the host compiles the loader and the predictor in
+#    the one source the component adds, from the installed headers.
+set(serve_build "${WORK_DIR}/host-serve-build")
+step(${CMAKE_COMMAND} -S "${host_source}" -B "${serve_build}" ${host_common}
+     -DTENON_HOST_COMPONENTS=serve ${no_optional_dependencies})
+step(${CMAKE_COMMAND} --build "${serve_build}")
+step("${serve_build}/tenon_host")
+if(NOT step_output MATCHES "tenon host with serve: ok")
+  message(FATAL_ERROR "the serve host did not load through the compiled-once unit:\n${step_output}")
+endif()
+
 # 6. A component that does not exist, REQUIRED: not found, and why.
 step_fails("'gpu' is not a tenon component"
      ${CMAKE_COMMAND} -S "${host_source}" -B "${WORK_DIR}/host-unknown-component" ${host_common}

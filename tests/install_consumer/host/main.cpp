@@ -7,6 +7,9 @@
 #include <string>
 
 #include <tenon/tenon.hpp>
+#if defined(TENON_SERVE_COMPILED)
+#include <tenon/serve.hpp>
+#endif
 
 int main() {
     tenon::parameter<double> w("w", tenon::make_matrix<double>({{1.0, 2.0, 3.0}}));
@@ -25,6 +28,20 @@ int main() {
         std::printf("tenon host with gzip: %s\n", expected ? "ok" : e.what());
         ok = ok && expected;
     }
+#endif
+#if defined(TENON_SERVE_COMPILED)
+    // tenon::serve: the loader and the predictor come from the one unit the
+    // component added; this unit only declares them (it links only if that
+    // unit was compiled in).
+    tenon::model_file<float> file;
+    const tenon::load_status st = tenon::try_load_model_file("no-such-model.tnm", file);
+    if (st.ok()) {
+        tenon::predictor<float> p(file, 1);
+        std::printf("inputs %zu\n", p.input_count());
+    }
+    const bool refused = !st.ok() && std::string(st.code) == "deploy.file.io";
+    std::printf("tenon host with serve: %s\n", refused ? "ok" : st.message.c_str());
+    ok = ok && refused;
 #endif
     return ok ? EXIT_SUCCESS : EXIT_FAILURE;
 }
