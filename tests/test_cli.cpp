@@ -560,7 +560,7 @@ TEST_CASE("chronological and grouped splits keep time order and whole groups") {
     // --search's folds of the training rows keep the same rules: no fold
     // trains on a later day than it is scored on, or on a line it is scored on.
     const auto folds_of = [&](const std::vector<std::string>& split_args) {
-        std::vector<std::string> args = {"train", "--data", path, "--target", "amps", "--search", "5", "--use", "day"};
+        std::vector<std::string> args = {"--data", path, "--target", "amps", "--search", "5", "--use", "day"};
         args.insert(args.end(), split_args.begin(), split_args.end());
         const tenon_cli::train_request q = tenon_cli::parse_train_request(args);
         const tenon::table t = tenon_cli::load_table(q);
