@@ -590,7 +590,7 @@ TEST_CASE_TEMPLATE("small dense layers give gemm's sum with the finish applied i
                    tenon::detail::small_dense_version::neon})
         if (tenon::detail::small_dense_version_available(v)) versions.push_back(v);
     const T small_scale = std::sqrt(std::numeric_limits<T>::min());  // products near the smallest normal
-    for (const std::size_t n : std::vector<std::size_t>{1, 3, 7, 8, 15, 16, 17, 32, 33, 48, 65}) {
+    for (const std::size_t n : std::vector<std::size_t>{1, 3, 7, 8, 15, 16, 17, 32, 33, 48, 64, 65}) {
         for (const std::size_t k : std::vector<std::size_t>{1, 7, 8, 32, 33}) {
             for (const int variant : {0, 1, 2}) {
                 CAPTURE(n);
@@ -637,6 +637,12 @@ TEST_CASE_TEMPLATE("small dense layers give gemm's sum with the finish applied i
                         std::vector<T> z(rows * n, T(-3));
                         tenon::detail::small_dense<T>(rows, k, n, x.data(), w.data(), wt.data(), f, z.data(), version);
                         CHECK(std::memcmp(z.data(), in_order.data(), z.size() * sizeof(T)) == 0);
+                        // A one-row call's kernel fixed by width (the predictor's row program).
+                        const auto kernel = tenon::detail::fixed_row_kernel<T>(n, version);
+                        if (rows != 1 || kernel == nullptr) continue;
+                        std::vector<T> one(n, T(-3));
+                        kernel(x.data(), n == 1 ? wt.data() : w.data(), k, f.bias, f.relu, f.addend, one.data());
+                        CHECK(std::memcmp(one.data(), in_order.data(), one.size() * sizeof(T)) == 0);
                     }
                 }
             }

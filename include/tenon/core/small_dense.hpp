@@ -35,6 +35,7 @@
 #include <cstddef>
 #include <cstdint>
 #include <limits>
+#include <type_traits>
 
 #include "tenon/core/gemm.hpp"
 #include "tenon/core/simd.hpp"
@@ -249,6 +250,58 @@ TENON_SMALL_DENSE_FINISH(neon, TENON_TARGET_NEON, neon_ops)
 TENON_SMALL_DENSE_FUSED_COLS(neon, TENON_TARGET_NEON, neon_ops)
 TENON_SMALL_DENSE_ROW(neon, TENON_TARGET_NEON, neon_ops, 8)
 #endif
+// One row with the column loop fixed when a model is loaded (see
+// fixed_row_kernel below): dense_row_fixed sums n = V x lanes outputs as
+// dense_row_* does, its V vectors of y in registers over the k terms;
+// dense_dot_one is dense_dots for n == 1, split_dot's eight partial sums
+// held in 8 / lanes vectors (lane q of the vectors is partial q).
+#define TENON_SMALL_DENSE_FIXED(SUFFIX, TARGET, OPS)                                                                                                 \
+    template <class T, std::size_t V>                                                                                                                \
+    TARGET TENON_NO_CONTRACTION void dense_row_fixed_##SUFFIX(const T* x, const T* w, std::size_t k, const T* bias, bool relu, const T* addend,      \
+                                                              T* y) noexcept {                                                                       \
+        TENON_NO_CONTRACTION_IN_BODY                                                                                                                 \
+        using ops = OPS<T>;                                                                                                                          \
+        constexpr std::size_t lanes = ops::lanes, n = V * lanes;                                                                                     \
+        typename ops::vector c[V];                                                                                                                   \
+        _Pragma("GCC unroll 8") for (std::size_t v = 0; v < V; ++v) c[v] = ops::zero();                                                              \
+        for (std::size_t p = 0; p < k; ++p) {                                                                                                        \
+            const auto s = ops::broadcast(T(1) * x[p]);                                                                                              \
+            const T* wp = w + p * n;                                                                                                                 \
+            _Pragma("GCC unroll 8") for (std::size_t v = 0; v < V; ++v) c[v] = ops::add(c[v], ops::mul(s, ops::load(wp + v * lanes)));               \
+        }                                                                                                                                            \
+        _Pragma("GCC unroll 8") for (std::size_t v = 0; v < V; ++v) TENON_SMALL_DENSE_STORE(SUFFIX, c[v], v* lanes)                                  \
+    }                                                                                                                                                \
+    template <class T>                                                                                                                               \
+    TARGET TENON_NO_CONTRACTION void dense_dot_one_##SUFFIX(const T* x, const T* w, std::size_t k, const T* bias, bool relu, const T* addend,        \
+                                                            T* y) noexcept {                                                                         \
+        TENON_NO_CONTRACTION_IN_BODY                                                                                                                 \
+        using ops = OPS<T>;                                                                                                                          \
+        constexpr std::size_t lanes = ops::lanes, P = 8 / lanes;                                                                                     \
+        static_assert(P * lanes == 8, "split_dot has eight partial sums");                                                                           \
+        typename ops::vector c[P];                                                                                                                   \
+        _Pragma("GCC unroll 8") for (std::size_t q = 0; q < P; ++q) c[q] = ops::zero();                                                              \
+        std::size_t p = 0;                                                                                                                           \
+        for (; p + 8 <= k; p += 8)                                                                                                                   \
+            _Pragma("GCC unroll 8") for (std::size_t q = 0; q < P; ++q) c[q] =                                                                       \
+                ops::add(c[q], ops::mul(ops::load(x + p + q * lanes), ops::load(w + p + q * lanes)));                                                \
+        T partial[8];                                                                                                                                \
+        _Pragma("GCC unroll 8") for (std::size_t q = 0; q < P; ++q) ops::store(partial + q * lanes, c[q]);                                           \
+        for (; p < k; ++p) partial[0] += x[p] * w[p];                                                                                                \
+        T sum = T(0);                                                                                                                                \
+        for (std::size_t q = 0; q < 8; ++q) sum += partial[q];                                                                                       \
+        T v = T(0);                                                                                                                                  \
+        v += T(1) * sum;                                                                                                                             \
+        dense_finish<T> f;                                                                                                                           \
+        f.bias = bias;                                                                                                                               \
+        f.relu = relu;                                                                                                                               \
+        y[0] = finish_value(v, f, 0, addend);                                                                                                        \
+    }
+#if TENON_GEMM_X86
+TENON_SMALL_DENSE_FIXED(avx2, TENON_TARGET_AVX2, avx2_ops)
+#else
+TENON_SMALL_DENSE_FIXED(neon, TENON_TARGET_NEON, neon_ops)
+#endif
+#undef TENON_SMALL_DENSE_FIXED
 #undef TENON_SMALL_DENSE_ROW
 #undef TENON_SMALL_DENSE_STORE
 #undef TENON_SMALL_DENSE_FUSED_STORE
@@ -300,6 +353,51 @@ inline bool small_dense_version_available(small_dense_version v) noexcept {
     case small_dense_version::neon: return TENON_SIMD_NEON64 != 0;
     }
     return false;
+}
+
+// Calls f(std::integral_constant<std::size_t, S>()) for the S in 1..Most
+// equal to s (s >= 1): a size known at run time as a template argument.
+template <std::size_t Most, class F>
+inline void with_size(std::size_t s, F&& f) {
+    if constexpr (Most > 1) {
+        if (s != Most) return with_size<Most - 1>(s, f);
+    }
+    f(std::integral_constant<std::size_t, Most>());
+}
+
+// One row of y = finish(x W) for x of k values, W k x n (n == 1: one
+// column, or W transposed), with the finish's bias, relu and addend given
+// apart; the kernels above, with small_dense's bits.
+template <class T>
+using row_kernel = void (*)(const T* x, const T* w, std::size_t k, const T* bias, bool relu, const T* addend, T* y) noexcept;
+
+// Most vectors of y a fixed row kernel holds (registers: 16 with AVX2, 32 with NEON).
+inline constexpr std::size_t most_fixed_vectors = 8;
+
+// The row kernel for n outputs with `version`, chosen once when a model is
+// loaded, or null where none has the column loop fixed (the portable and
+// AVX-512 versions, and widths that are not 1 or a multiple of the vector
+// up to most_fixed_vectors vectors): small_dense then serves the row.
+template <class T>
+row_kernel<T> fixed_row_kernel(std::size_t n, small_dense_version version) noexcept {
+    row_kernel<T> kernel = nullptr;
+#if TENON_GEMM_X86
+    if (version != small_dense_version::avx2) return nullptr;
+    constexpr std::size_t lanes = avx2_ops<T>::lanes;
+    if (n < thin_columns<T>) return n == 1 ? &dense_dot_one_avx2<T> : nullptr;
+    if (n % lanes == 0 && n / lanes <= most_fixed_vectors)
+        with_size<most_fixed_vectors>(n / lanes, [&](auto v) noexcept { kernel = &dense_row_fixed_avx2<T, decltype(v)::value>; });
+#elif TENON_SIMD_NEON64
+    if (version != small_dense_version::neon) return nullptr;
+    constexpr std::size_t lanes = neon_ops<T>::lanes;
+    if (n < thin_columns<T>) return n == 1 ? &dense_dot_one_neon<T> : nullptr;
+    if (n % lanes == 0 && n / lanes <= most_fixed_vectors)
+        with_size<most_fixed_vectors>(n / lanes, [&](auto v) noexcept { kernel = &dense_row_fixed_neon<T, decltype(v)::value>; });
+#else
+    (void)n;
+    (void)version;
+#endif
+    return kernel;
 }
 
 // Fewer rows than this take gemm's unpacked loops on every path (the
@@ -690,35 +788,14 @@ void dense_group(std::size_t rows, std::size_t count, const dense_group_args<T>&
             switch (version) {
 #if TENON_GEMM_X86
             case small_dense_version::avx512:
-                if (size == 4)
-                    dense_row_group_avx512<T, 4>(x, w, b, r, d, y, k, n);
-                else if (size == 3)
-                    dense_row_group_avx512<T, 3>(x, w, b, r, d, y, k, n);
-                else if (size == 2)
-                    dense_row_group_avx512<T, 2>(x, w, b, r, d, y, k, n);
-                else
-                    dense_row_group_avx512<T, 1>(x, w, b, r, d, y, k, n);
+                with_size<4>(size, [&](auto s) noexcept { dense_row_group_avx512<T, decltype(s)::value>(x, w, b, r, d, y, k, n); });
                 return true;
             case small_dense_version::avx2:
-                if (size == 4)
-                    dense_row_group_avx2<T, 4>(x, w, b, r, d, y, k, n);
-                else if (size == 3)
-                    dense_row_group_avx2<T, 3>(x, w, b, r, d, y, k, n);
-                else if (size == 2)
-                    dense_row_group_avx2<T, 2>(x, w, b, r, d, y, k, n);
-                else
-                    dense_row_group_avx2<T, 1>(x, w, b, r, d, y, k, n);
+                with_size<4>(size, [&](auto s) noexcept { dense_row_group_avx2<T, decltype(s)::value>(x, w, b, r, d, y, k, n); });
                 return true;
 #elif TENON_SIMD_NEON64
             case small_dense_version::neon:
-                if (size == 4)
-                    dense_row_group_neon<T, 4>(x, w, b, r, d, y, k, n);
-                else if (size == 3)
-                    dense_row_group_neon<T, 3>(x, w, b, r, d, y, k, n);
-                else if (size == 2)
-                    dense_row_group_neon<T, 2>(x, w, b, r, d, y, k, n);
-                else
-                    dense_row_group_neon<T, 1>(x, w, b, r, d, y, k, n);
+                with_size<4>(size, [&](auto s) noexcept { dense_row_group_neon<T, decltype(s)::value>(x, w, b, r, d, y, k, n); });
                 return true;
 #endif
             default: return false;

@@ -284,6 +284,16 @@ struct compiled_model {
     std::size_t output_buffer = 0;
     std::vector<std::size_t> member_buffers;  // output buffers of a seed ensemble's other members
     std::vector<T> store;  // every weight, flushed of subnormals
+    // Set by specialise_steps where every step is a dense step with a fixed
+    // row kernel (core/small_dense.hpp): a call of one row runs only these,
+    // one kernel call per step, in the order of `steps`.
+    struct row_step {
+        row_kernel<T> kernel = nullptr;
+        std::size_t in = 0, out = 0, addend = SIZE_MAX;  // buffer ids (addend: none)
+        std::size_t inputs = 0, weights = 0, bias = SIZE_MAX;  // width, offsets into the store (bias: none)
+        bool relu = false;
+    };
+    std::vector<row_step> row_program;
 
     std::size_t put(const matrix<T>& m) {
         const std::size_t at = store.size();
@@ -501,7 +511,11 @@ inline void group_steps(std::vector<program_step>& steps) {
 // three run as one pass of dense_rows (core/small_dense.hpp) with the
 // values in registers; a dense step with fewer than thin_columns outputs
 // gets its weights transposed, so each output's dot product reads them
-// contiguously. The arithmetic of every value is unchanged.
+// contiguously. Where every step then is a dense step of a width with a
+// fixed row kernel (fixed_row_kernel: 1 output, or whole vectors of them),
+// the row program lists one kernel call per step for calls of one row; the
+// members of an ensemble run one after another there, their chains left to
+// the processor to overlap. The arithmetic of every value is unchanged.
 template <class T>
 void specialise_steps(compiled_model<T>& m) {
     std::vector<std::size_t> readers(m.buffer_widths.size(), 0);
@@ -544,6 +558,14 @@ void specialise_steps(compiled_model<T>& m) {
     }
     m.steps = interleave_members(std::move(steps), m);
     group_steps(m.steps);
+    for (const program_step& s : m.steps) {
+        const row_kernel<T> kernel = s.kind == step_kind::dense ? fixed_row_kernel<T>(s.outputs, best_small_dense_version()) : nullptr;
+        if (!kernel) {
+            m.row_program.clear();
+            break;
+        }
+        m.row_program.push_back({kernel, s.in, s.out, s.has_addend ? s.addend : SIZE_MAX, s.inputs, s.t, s.has_bias ? s.b : SIZE_MAX, s.relu_after});
+    }
 }
 
 inline bool parse_for_kind(const column_info& c, std::string_view cell, double& value) noexcept {
@@ -866,7 +888,13 @@ private:
         const auto finish_of = [&](const detail::program_step& s) noexcept {
             return detail::dense_finish<T>{s.has_bias ? store + s.b : nullptr, s.relu_after, s.has_addend ? buffers_[s.addend].data() : nullptr};
         };
-        for (std::size_t step = 0; step < m.steps.size(); ++step) {
+        // One row: the kernels fixed at load (specialise_steps), and no step below.
+        const bool row_program = rows == 1 && !m.row_program.empty();
+        if (row_program)
+            for (const auto& r : m.row_program)
+                r.kernel(buffers_[r.in].data(), store + r.weights, r.inputs, r.bias == SIZE_MAX ? nullptr : store + r.bias, r.relu,
+                         r.addend == SIZE_MAX ? nullptr : buffers_[r.addend].data(), buffers_[r.out].data());
+        for (std::size_t step = row_program ? m.steps.size() : 0; step < m.steps.size(); ++step) {
             const detail::program_step& s = m.steps[step];
             const T* x = buffers_[s.in].data();
             T* y = buffers_[s.out].data();
