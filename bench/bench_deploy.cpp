@@ -1,22 +1,10 @@
 // Benchmarks of deploy/: predictor latency for an 8-32-32-1 regression net
-// (one prepared row, one raw named row, 64 prepared and 64 raw rows) with
-// p50 / p99 / maximum per call, against the tape-based network_outputs of
-// the same row as the reference; two threads' throughput against one; and
-// the time to load a model file and build a predictor from it; and one row
-// with its calibrated band (train/calibration.hpp) against the same row
-// without it (issue 20 budget: at most 1.2x), the ratio printed.
-//
-// Against a hand loop: the same networks evaluated by plain loops in
-// hand_loop.cpp, compiled with -O3 -march=native, one row per call, on the
-// bench model (a seed ensemble of five 8-32-32-1 networks with a linear
-// bypass, the regression default) and on a single 8-32-32-1 network
-// (ensemble 1, no bypass). The summary lines give the ratios from
-// interleaved rounds of back-to-back calls (thread CPU time), and 64 rows
-// in one call against 64 one-row calls.
-//
-// Run: build/<dir>/bench/tenon_bench_deploy
-// (TENON_BENCH_SMOKE=1 in the environment shortens the throughput runs from
-// 1 s to 0.05 s each, for CI's brief run.)
+// (p50 / p99 / maximum per call) against the tape-based network_outputs of
+// the same row, two threads' throughput, loading a model file, one row with
+// its calibrated band against one without (issue 20 budget: at most 1.2x),
+// and the predictor against plain hand loops (hand_loop.cpp); ratios printed.
+// Run: build/<dir>/bench/tenon_bench_deploy (TENON_BENCH_SMOKE=1 shortens the
+// throughput runs, for CI). In detail, with figures: docs/performance.md.
 #include <benchmark/benchmark.h>
 
 #include <algorithm>

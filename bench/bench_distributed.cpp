@@ -3,30 +3,11 @@
 //
 //   mpirun -np 2 build/release/bench/tenon_bench_distributed
 //
-// With TENON_BENCH_SMOKE=1 in the environment (mpirun -x TENON_BENCH_SMOKE)
-// it trains on the first 2,560 images only, so that CI can run it briefly;
-// those numbers mean nothing.
-//
-// A plain MPI program rather than a Google Benchmark: its runs are
-// collective across processes. The reference runs in the same job: rank 0
-// trains the same epoch alone with the global batch (batch x ranks), then
-// all ranks train it together with their per-rank batch. Every rank trains
-// on one thread.
-//
-//   efficiency(p) = T_alone / (p x T_team)        (strong scaling of the epoch)
-//
-// Then the communication: the measured time of the step's MPI_Allreduce of
-// the fused gradient buffer, and the ring-allreduce model (Patarasuk & Yuan
-// 2009; distributed/data_parallel.hpp, ring_allreduce_seconds) for 8 to 64
-// ranks with the per-rank batch fixed (weak scaling), set against the
-// measured compute time of a step:
-//
-//   efficiency(p) ~ t_compute / (t_compute + 2 (p - 1) alpha + 2 (p - 1) / p x n / beta)
-//
-// alpha and beta are assumptions for a cluster link, printed with the
-// result: 10 Gbit/s Ethernet (beta = 1.25e9 bytes/s) with alpha = 25 us per
-// message (common practice for TCP; from memory), and 100 Gbit/s
-// InfiniBand-class links (beta = 12.5e9 bytes/s, alpha = 2 us; from memory).
+// A plain MPI program (its runs are collective): rank 0 trains the epoch
+// alone as the reference, then all ranks together; then the measured
+// allreduce and the ring-allreduce model for 8 to 64 ranks. With
+// TENON_BENCH_SMOKE=1 it trains on 2,560 images, for CI. The method, the
+// formulas and the assumed links: docs/performance.md.
 #include <algorithm>
 #include <chrono>
 #include <cstdio>

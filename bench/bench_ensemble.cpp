@@ -1,35 +1,12 @@
 // The cost of fit_model's seed ensemble and of its plain baselines, per
 // epoch, relative to one network's epoch (issue 19), in the same run.
 //
-// Data: an invented 2,000-row table of 10 numeric inputs (uniform, about
-// z-scored), as regression (a smooth nonlinear value plus noise) and as
-// classification (3 classes from the sign of two such functions); 1,700
-// rows train, 300 validate, as fit_model's epochs do. The networks are
-// fit_model's defaults: 10-64-32-out, ReLU, He-uniform, Adam at 1e-3,
-// batch 32, with the linear path for regression.
-//
-//   one_network_epoch          the reference: one network, one thread
-//   ensemble_epoch/threads:1   5 networks one after the other
-//   ensemble_epoch/threads:2   5 networks side by side on a 2-thread pool,
-//                              one network a thread (as fit_model trains them)
-//   ridge_baseline_fit         regression's baseline: one least-squares fit
-//                              (ridge) on the training rows; it has no epochs
-//   logistic_baseline_epoch    classification's baseline: a network without
-//                              hidden layers (multinomial logistic
-//                              regression), trained as fit_model trains it
-//
-// Every measurement but the reference is paired: each repetition times the
-// measured work and then one network's epoch right after it, and the ratio
-// printed is the median of the pairs' ratios (a slower spell of a shared
-// machine hits both sides of a pair alike). Work on the calling thread alone
-// is timed in that thread's CPU time (time descheduled by other work on the
-// machine is not counted); the 2-thread ensemble, and its reference, in
-// wall-clock time. An epoch's time is that of `epochs_per_run` epochs in
-// one trainer run, divided by their count.
-//
-// Run: build/<dir>/bench/tenon_bench_ensemble
-// (TENON_BENCH_SMOKE=1 in the environment takes 2 repetitions instead of 21,
-// for CI's brief run; its numbers mean little.)
+// On an invented 2,000-row table with fit_model's default networks: five
+// networks on one and two threads, the ridge baseline's fit and the logistic
+// baseline's epoch, each paired with one network's epoch right after it; the
+// ratio printed is the median of the pairs' ratios.
+// Run: build/<dir>/bench/tenon_bench_ensemble (TENON_BENCH_SMOKE=1: 2
+// repetitions, for CI). The data, the timing and the figures: docs/performance.md.
 #include <benchmark/benchmark.h>
 
 #include <algorithm>

@@ -2,15 +2,10 @@
 // dot product per element of C, the textbook definition) in the same run;
 // the ratio naive / tenon is printed per case and shape.
 //
-// Shapes are those of a 784-256-128-10 perceptron at batch 128 (the
-// Fashion-MNIST dataset test) plus a small one:
-//   forward    C(128 x 256) = X(128 x 784) W(784 x 256)
-//   backward   dX(128 x 256) = G(128 x 128) W2^T, dW(784 x 256) = X^T G
-//   small      32 x 64 x 64 (the tape benchmark's hidden layer)
-//   one row    1 x 256 x 784 (predicting a single row)
-//   one output 128 x 1 x 128 (a regression output layer)
-// Each benchmark's arguments are (case, m, n, k); case 0 = NN, 1 = TN,
-// 2 = NT, 3 = TT (first letter: op(A), second: op(B); T = transposed).
+// Shapes: a 784-256-128-10 perceptron's at batch 128 plus smaller ones (listed
+// in docs/performance.md). Each benchmark's arguments are (case, m, n, k);
+// case 0 = NN, 1 = TN, 2 = NT, 3 = TT (first letter: op(A), second: op(B);
+// T = transposed).
 #include <benchmark/benchmark.h>
 
 #include <cstdio>

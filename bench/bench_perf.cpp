@@ -2,37 +2,12 @@
 // process, at the same thread count, and the ratios are printed at the end
 // next to the targets of the performance work.
 //
-//   gemm            tenon::gemm (best built-in path) vs OpenBLAS sgemm at the
-//                   eight matrix shapes of a 784-256-128-10 perceptron's
-//                   training step at batch 128 (3 forward, 3 weight
-//                   gradients, 2 input gradients), each and all together
-//   step            one training step (forward, cross-entropy, backward,
-//                   Adam) vs the step's eight products alone in OpenBLAS
-//   epoch           one Fashion-MNIST epoch (54,000 training images in
-//                   batches of 128, then the 6,000 validation images; a third
-//                   of a three-epoch run) vs the same epoch's products alone
-//                   in OpenBLAS; built-in kernel and BLAS backend
-//   tool            the same epoch through `tenon train --threads N` (run in
-//                   process; its metrics' training_seconds per epoch) vs the
-//                   same products alone in OpenBLAS
-//   predict         an 8-32-32-1 network, one prepared row per call: p50,
-//                   p99 and maximum latency over 200,000 calls
-//   z-score         z-scoring a 200,000 x 16 float matrix in place vs an
-//                   in-place pass over the same buffer (each value read and
-//                   written once: the same memory traffic, the least work)
-//
-// Build with the BLAS backend available (cmake/deps.sh installs OpenBLAS);
-// the benchmark switches between the built-in and BLAS paths with
-// tenon::set_kernel_path. Run (OPENBLAS_CORETYPE / OPENBLAS_L2_SIZE make
-// OpenBLAS use an older kernel, so unset them for the reference):
+// gemm, a training step, a Fashion-MNIST epoch (built-in kernel and BLAS
+// backend, directly and through `tenon train`) against OpenBLAS alone, one-row
+// prediction latency, and z-scoring against an in-place pass. Run:
 //   env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE build/<dir>/bench/tenon_bench_perf
-// Options besides Google Benchmark's own (--benchmark_filter,
-// --benchmark_out=FILE --benchmark_out_format=json, ...):
-//   --tenon_summary_out=FILE  writes the summary's ratios as JSON (one entry
-//                             per ratio: what, value, target) for comparing runs
-// With TENON_BENCH_SMOKE=1 in the environment every benchmark runs on a
-// small slice (2,560 training and 512 validation images, a 4,000-row CSV for
-// the tool) so that CI can run each one briefly; its numbers mean nothing.
+// (TENON_BENCH_SMOKE=1: small slices for CI). What each measures, the options
+// and the figures: docs/performance.md.
 #include <benchmark/benchmark.h>
 
 #include <algorithm>

@@ -1,15 +1,7 @@
 // tenon demo: telling a conveyor gearbox's condition from its sensor readings.
 //
-// A (made-up) bulk-material plant logs each conveyor gearbox once per shift:
-// load, input speed, overall vibration, the vibration peaks at 1x and 2x the
-// shaft frequency, the kurtosis of the vibration envelope, oil temperature
-// and an oil particle count (the particle sensor is offline now and then, so
-// that cell is sometimes empty). Maintenance later labelled each reading as
-// healthy, misalignment, bearing_wear or lubrication_loss. All numbers are
-// invented; the rules that generate them are loosely inspired by how these
-// faults show up, not taken from any data set.
-//
-// The program prepares the data with a plan measured on the training rows,
+// On an invented plant log (its columns: docs/design/tests.md) the program
+// prepares the data with a plan measured on the training rows,
 // trains a perceptron with early stopping (printing progress), scores the
 // test rows, writes an SVG report (to argv[1], or gearbox_report.svg here),
 // and predicts the condition of one new reading given as raw cells.

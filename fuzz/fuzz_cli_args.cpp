@@ -4,18 +4,9 @@
 // with an exit status and messages; it must never crash, throw, or write
 // outside its working directory.
 //
-// Sandbox: the target works in a temporary directory of its own holding
-// data.csv (an invented pump log, classes and a numeric target) and
-// model.tnm (the committed version-1 fixture); a '/' in an argument becomes
-// '_', so every file the tool writes lands in that directory. Before each
-// input the two files are restored and everything else is removed.
-//
-// Cost guard: inputs asking for more than 20 epochs, 5 folds, 2 threads,
-// hidden layers wider than 64 (or more than 4 of them), a search, or more
-// than 100 network-epochs (epochs x networks x folds; a train run builds 5
-// networks unless --ensemble says otherwise) are skipped, and so is a train
-// run that leaves --epochs at its default. Their cost is the user's request,
-// not a parsing fault, and a fuzzer would report them as hangs.
+// It works in a sandbox directory restored before each input, and skips
+// inputs whose cost is the user's request (many epochs, folds, threads,
+// networks or a search). The sandbox and the cost guard: docs/design/tests.md.
 #include <algorithm>
 #include <charconv>
 #include <cstddef>

@@ -2,16 +2,9 @@
 // split-conformal coverage, the normalized band on heteroscedastic data,
 // temperature scaling, expected calibration error and conformal class sets.
 //
-// Tolerances on coverage. Over S independent draws of a calibration set of
-// n rows and one test row, with continuous scores, the test row is covered
-// with probability exactly r / (n + 1), r = ceil((n + 1)(1 - alpha)) (Lei et
-// al. 2018, Theorem 2.2 and its proof), so the count of covered draws is
-// Binomial(S, r / (n + 1)). The tests accept counts within 3.29 standard
-// deviations of its mean: the two-sided 99.9% band of the normal
-// approximation to the binomial (de Moivre-Laplace). For one calibration set
-// scored on many test rows, the coverage is Beta(r, n + 1 - r) distributed
-// (Vovk 2012, "Conditional validity of inductive conformal predictors",
-// section 2), plus the binomial spread of the test rows.
+// Source: Lei et al. 2018, Theorem 2.2 (coverage exactly r / (n + 1)); Vovk 2012 for one calibration set.
+// Coverage counts are accepted within 3.29 binomial standard deviations (the
+// two-sided 99.9% band); the tolerances' derivation: docs/design/tests.md.
 #include <doctest/doctest.h>
 
 #include <algorithm>
@@ -102,7 +95,7 @@ TEST_CASE("the conformal quantile counts ties once each and is infinite for too 
 }
 
 TEST_CASE("split-conformal bands cover exactly r / (n + 1) of new rows over many draws") {
-    // Binomial tolerance, see the top of this file. With the plain empirical
+    // Binomial tolerance, see docs/design/tests.md. With the plain empirical
     // quantile (rank ceil(n(1 - alpha))) n = 10 would give 9/11 = 0.818 and
     // n = 50 gives 45/51 = 0.882, both far outside these bands.
     struct setting {

@@ -3,16 +3,9 @@
 // python3-vega-datasets), regressing the day's maximum temperature on the
 // date, the minimum temperature, precipitation, wind and the weather kind.
 //
-// Each seed splits the 1461 rows at random into training (half),
-// calibration and test (a quarter each), fits a small network, calibrates a
-// band on the calibration rows and measures its coverage on the test rows.
-// Given the dataset, a uniformly random split makes calibration and test
-// rows exchangeable, so each seed's expected coverage is exactly r / (n + 1),
-// r = ceil((n + 1) 0.9), for continuous scores (Lei et al. 2018, Theorem
-// 2.2), and the seeds' coverages are independent and identically
-// distributed. The test accepts a mean within 3.66 standard errors (the
-// two-sided 99.9% point of Student's t with 29 degrees of freedom, from
-// memory) of r / (n + 1).
+// Source: Lei et al. 2018, Theorem 2.2 (each random split covers r / (n + 1)).
+// The mean coverage over the seeds must lie within 3.66 standard errors of
+// r / (n + 1). The splits and the tolerance's derivation: docs/design/tests.md.
 #include <doctest/doctest.h>
 
 #include <cmath>

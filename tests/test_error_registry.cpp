@@ -3,20 +3,9 @@
 // (examples/cli/tool.hpp, namespace cli_codes), must have a row in one of the
 // README's bad-input tables and a test that triggers it; every row must name
 // a code that exists. Adding a code without a row or a test fails here. The
-// files are read from TENON_SOURCE_DIR at run time.
-//
-// "A test that triggers it" is an assertion on the code an error carried: the
-// code as a string literal ("code", or "[code] message") inside
-//   - doctest's CHECK_THROWS_WITH(_AS) / REQUIRE_THROWS_WITH(_AS), as the
-//     expected message of what the expression throws;
-//   - the first argument of CHECK / REQUIRE / CHECK_MESSAGE / REQUIRE_MESSAGE,
-//     on the right of `==` (code_of(f) == "code", e.code() == "code",
-//     message == "[code] ...", status.code_text() == ...);
-//   - the expected message (third argument) of a command-line test's
-//     check_failure, which runs the tool and checks its exit status and its
-//     exact error output.
-// A code that is only named (in a list, a comment, a find() or a message)
-// does not count.
+// files are read from TENON_SOURCE_DIR at run time. "A test that triggers
+// it" is an assertion on the code an error carried; what counts as one:
+// docs/design/tests.md.
 #include <doctest/doctest.h>
 
 #include <algorithm>
@@ -149,7 +138,7 @@ std::string name_before(const std::string& c, std::size_t end) {
 }
 
 // Whether the string literal whose opening quote is at `at` is a checked
-// code (see the rule at the top of this file). Walks outwards from the
+// code (see the rule in docs/design/tests.md). Walks outwards from the
 // literal through the brackets that enclose it, up to the end of its
 // statement, noting `==` and commas at each level.
 bool asserted_at(const std::string& c, std::size_t at) {

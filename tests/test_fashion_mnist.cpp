@@ -3,27 +3,10 @@
 // /usr/share/datasets/fashion-mnist/) must classify the 10,000 test images
 // with an accuracy of at least 0.88.
 //
-// Data: Xiao, Rasul & Vollgraf (2017), "Fashion-MNIST: a Novel Image Dataset
-// for Benchmarking Machine Learning Algorithms", arXiv:1708.07747: 60,000
-// training and 10,000 test images of 28 x 28 grey pixels in 10 classes.
-// Their benchmark table (Table 3 of arXiv:1708.07747, "Benchmark on
-// Fashion-MNIST (Fashion) and MNIST") reports multilayer perceptrons at about
-// 0.87-0.88 test accuracy. The table number and values are from memory: they
-// were not checked against the paper here, so they are not cited as exact.
-// 0.88 asks tenon to match a perceptron baseline of that order, not a
-// convolutional one.
-//
-// The test runs on gemm's default kernel path: the built-in kernels, or the
-// BLAS backend in a build with TENON_WITH_BLAS (CI runs it in both); the
-// message names the path.
-//
-// Protocol: the validation rows (a stratified 10% of the 60,000 training
-// images) drive early stopping and the choice of the kept epoch; the test
-// images are scored exactly once, after training, and never influence it.
-//
-// The run takes on the order of a minute in a Release build (it prints its
-// accuracy, epochs and seconds), so it carries the ctest label "dataset" and
-// the quick test preset leaves it out.
+// Source: Xiao, Rasul & Vollgraf (2017), arXiv:1708.07747 (perceptrons at about 0.87-0.88, from memory).
+// The test images are scored once, after training; the run takes about a
+// minute, so it carries the ctest label "dataset". The source, the bar, the
+// kernel path and the protocol: docs/design/tests.md.
 #include <doctest/doctest.h>
 
 #include <chrono>

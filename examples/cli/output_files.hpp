@@ -1,37 +1,13 @@
 // The `tenon` tool's input and output files: what it checks before it reads
 // or writes, and how it writes so that a failure never loses a file.
 //
-// Inputs (--data, --model): stat()ed before they are opened. Only regular
-// files are read: a directory, a FIFO (which would block forever without a
-// writer), a device or a socket is refused with a message saying which it is.
-//
-// Outputs: each is resolved before anything is read or trained.
-//   - "-" and /dev/stdout mean the tool's standard output stream;
-//   - an existing non-regular file (a FIFO, a character or block device such
-//     as /dev/null) and any path under /dev/fd/ or /proc/ (descriptor links)
-//     is written directly, never replaced: a FIFO without a reader is refused
-//     rather than waited for;
-//   - anything else is staged: a temporary file ".NAME.tenon-PID-RANDOM.tmp"
-//     beside the file it replaces, created by the library's
-//     create_temporary_file (O_CREAT|O_EXCL|O_NOFOLLOW, mode 0600, so a
-//     planted symlink or a second run can never share it),
-//     written and fsynced, given its final mode, then renamed over the
-//     destination and the directory fsynced. A symlink given as an output is
-//     followed: the file it (finally) points at is replaced and the link is
-//     left as it is, still pointing at the new contents (deployment links such
-//     as models/current.tnm -> v1.tnm keep working; the retrain rollback file
-//     holds the replaced model). A replaced file keeps its permission bits
-//     (and, when run as root, its owner); a new file gets 0666 less the umask.
-// Files are compared by identity, never by the text of their paths: two
-// existing files are the same when device and inode agree (which also
-// catches hard links and symlinks), and a file that does not exist yet is
-// named by its directory's device and inode and its name.
-//
-// Temporary files of a run are listed in a fixed table that the handler of
-// SIGINT, SIGTERM and SIGHUP (installed by main.cpp) unlinks before the
-// process ends with the same signal. A SIGKILL cannot be caught: the next run
-// writing the same output removes temporary files of that output whose name
-// carries the id of a process that no longer exists and that the user owns.
+// Only regular files are read as inputs. Each output is resolved before
+// anything is read or trained: standard output, a non-regular file (written
+// directly, never replaced) or a staged file (a temporary file beside the
+// destination, fsynced and renamed over it; a symlink is followed). Files are
+// compared by identity (device and inode), never by path text. Temporary
+// files are removed on SIGINT, SIGTERM and SIGHUP, and by the next run after
+// a SIGKILL. In detail: docs/design/tool.md.
 #pragma once
 
 #include <cstdint>

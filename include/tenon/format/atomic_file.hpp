@@ -1,35 +1,12 @@
 // tenon: durable, atomic replacement of a file, and bounded whole-file reads.
 //
 // write_file_atomically(path, bytes) makes the new contents appear all at
-// once or not at all:
-//   1. create ".NAME.tenon-PID-RANDOM.tmp" in the same directory (same file
-//      system, so the rename below cannot turn into a copy): 64 random bits
-//      make the name unpredictable, and O_CREAT|O_EXCL|O_NOFOLLOW with mode
-//      0600 make the create fail on anything already there, a planted
-//      symlink or another run's file, instead of writing through it;
-//   2. write every byte, give the file the permission bits of the file it
-//      replaces (0666 less the umask for a new one), then fsync it, so its
-//      data is on the storage device before its name can point at it;
-//   3. rename it over <path>; POSIX rename() replaces the target atomically
-//      (IEEE Std 1003.1-2017, rename(), "If the link named by the new
-//      argument exists, it shall be removed and old renamed to new ... a link
-//      named new shall remain visible to other threads throughout the
-//      renaming operation");
-//   4. fsync the directory, so the rename itself survives a power loss
-//      (the directory entry is data of the directory; common practice, see
-//      the fsync(2) manual page of Linux, "Calling fsync() does not
-//      necessarily ensure that the entry in the directory containing the
-//      file has also reached disk").
-// A crash before step 3 leaves the old file untouched (and at worst a
-// stray temporary file); after step 3 the new file is complete. On an error
-// the temporary file is removed and tenon::error (deploy.file.io) raised;
-// nothing else is ever removed. The tool (examples/cli) names its staged
-// outputs the same way and clears those a killed process left behind.
-//
-// Every operation goes through a `file_system` object, so tests inject
-// failures at each step. The default one uses POSIX calls; on other
-// platforms it falls back to the C library (no fsync, and a replace that is
-// not atomic): documented, not hidden.
+// once or not at all: an exclusively created temporary file in the same
+// directory, written and fsynced, renamed over <path>, then the directory
+// fsynced. On an error the temporary file is removed and tenon::error
+// (deploy.file.io) raised; nothing else is ever removed. Every operation
+// goes through a `file_system` object, so tests inject failures at each
+// step. The steps, their sources and other platforms: docs/design/model-file.md.
 #pragma once
 
 #include <algorithm>
@@ -218,8 +195,8 @@ inline int create_temporary_file(const std::string& path, file_system& fs, std::
     return -1;
 }
 
-/// Replaces `path` by `bytes` atomically and durably (see the top of this
-/// file); raises deploy.file.io naming the step that failed.
+/// Replaces `path` by `bytes` atomically and durably (see docs/design/model-file.md);
+/// raises deploy.file.io naming the step that failed.
 inline void write_file_atomically(const std::string& path, const std::vector<std::uint8_t>& bytes, file_system& fs) {
     std::string temporary;
     const int handle = create_temporary_file(path, fs, temporary);

@@ -1,19 +1,10 @@
 // tenon: checksums of model-file sections and fingerprints of training data.
 //
-// crc32: the CRC-32 of IEEE 802.3 (ISO/IEC 8802-3, clause 3.2.9), computed
-// bit-reflected with the reversed polynomial 0xEDB88320, initial value
-// 0xFFFFFFFF and a final complement; table-driven one byte at a time
-// (Sarwate 1988, "Computation of cyclic redundancy checks via table
-// look-up", CACM 31(8)). Its check value, the CRC of the ASCII bytes
-// "123456789", is 0xCBF43926 (from memory; the test checks it). A CRC of
-// degree 32 detects every burst error of at most 32 bits, so every change of
-// a single byte is detected (Peterson & Brown 1961, "Cyclic codes for error
-// detection", Proc. IRE 49(1), theorem on burst errors).
-//
-// fnv1a_64: the 64-bit FNV-1a hash of Fowler, Noll and Vo (offset basis
-// 14695981039346656037, prime 1099511628211; as given in the IETF draft
-// draft-eastlake-fnv, from memory). It fingerprints the training cells; it
-// is not a cryptographic hash.
+// crc32: the CRC-32 of IEEE 802.3, table-driven one byte at a time (Sarwate
+// 1988); it detects every change of a single byte (Peterson & Brown 1961).
+// fnv1a_64: the 64-bit FNV-1a hash of Fowler, Noll and Vo; it fingerprints
+// the training cells and is not a cryptographic hash. Parameters, check
+// value and full citations: docs/design/model-file.md.
 #pragma once
 
 #include <array>

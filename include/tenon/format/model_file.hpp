@@ -1,39 +1,12 @@
 // tenon: the model file, a binary format of tenon's own.
 //
-// The layout is documented in docs/model-file-format.md; in short:
-//   header   24 bytes: magic 89 'T' 'E' 'N' 'O' 'N' 0D 0A, format version
-//            (u16), reserved (u16), byte-order mark 0x01020304 (u32), scalar
-//            size (4 = float, 8 = double), reserved (u8), section count (u16),
-//            CRC-32 of the 20 bytes before it;
-//   sections each a 24-byte section header (four-letter id, flags with bit 0
-//            "required", reserved, u64 payload length, CRC-32 of the payload,
-//            CRC-32 of the 20 header bytes before it) and the payload.
-// Every number is little-endian; reals in the weights are IEEE 754 binary32
-// or binary64 bit patterns of the file's scalar type, reals elsewhere binary64.
-// Sections: ARCH (architecture), WGHT (weights and state buffers), PLAN (the
-// measured preparation plan), META (training metadata), REFS (reference
-// summaries per input column), RPLY (a bounded sample of raw training rows),
-// RSUM (update rule, schedule, shuffle engine and epoch state for resuming),
-// RSVR (the replay sample's reservoir state: rows seen, capacity, engine),
-// HIST (the metadata of earlier trainings: META describes the current
-// weights, HIST what they replaced, oldest first; files without it have no
-// history), REFD (the distributions of the numeric and date/time reference
-// summaries, for exact drift statistics; files without it fall back to the
-// histograms), ENSM (the other members of a seed ensemble: their count, then
-// each member's weights as in WGHT, for the architecture of ARCH; required,
-// since a reader that served the first member alone would answer
-// differently; files without it hold one network), CALB (calibration: a
-// conformal band for regression, or a temperature and a conformal class-set
-// threshold for classification; added in format version 2, files without it
-// carry no calibration). A reader skips an unknown section unless its
-// required flag is set.
-//
-// Loading trusts nothing: the magic, the header checksum, the version, the
-// byte-order mark and the scalar type are checked first; every section
-// header's checksum before its length is used; every length against the
-// bytes left and the limits in model_limits before anything is allocated;
-// every payload's checksum before it is parsed. Each failure raises its own
-// deploy.model.* code (see core/error_codes.hpp).
+// A 24-byte header, then sections (ARCH, WGHT, PLAN, META, REFS, RPLY, RSUM,
+// RSVR, HIST, REFD, ENSM, CALB), each with its own section header and CRC-32;
+// every number little-endian. A reader skips an unknown section unless its
+// required flag is set. Loading trusts nothing: every checksum, length and
+// limit is checked before the bytes are used or anything is allocated, and
+// each failure raises its own deploy.model.* code. The byte layout:
+// docs/model-file-format.md; the sections and checks: docs/design/model-file.md.
 #pragma once
 
 #include <chrono>
@@ -970,7 +943,7 @@ std::vector<std::uint8_t> model_file_to_bytes(const model_file<T>& m) {
     return out;
 }
 
-/// Reads a model file from bytes (see the top of this file for the checks).
+/// Reads a model file from bytes (see docs/design/model-file.md for the checks).
 /// `source` names the bytes in error messages.
 template <class T>
 model_file<T> model_file_from_bytes(const std::uint8_t* data, std::size_t size, const model_limits& limits = {},

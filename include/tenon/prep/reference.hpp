@@ -2,23 +2,12 @@
 //
 // A model file keeps, for every column the plan reads, what the training
 // rows looked like: for numeric and date/time columns the range, the
-// deciles (Hyndman & Fan 1996, definition 7, via exact_quantile) and a
-// histogram of `histogram_bins` equal-width bins over [minimum, maximum]
-// (the maximum falls into the last bin); for categorical columns the count
-// of every training category. The predictor flags inputs outside the range
-// (or categories never seen); drift monitoring compares new rows with the
-// histogram and the frequencies.
-//
-// For the Kolmogorov-Smirnov statistic a numeric or date/time summary also
-// carries the training rows' distribution itself (model-file section REFD):
-// with at most `reference_distinct_limit` (256) distinct values, every value
-// and its count, so the statistic is exact, ties included; otherwise the
-// lower quantiles q_k = min{x : F(x) >= k/K}, k = 0..K, K =
-// `reference_quantile_steps` (1024), of the empirical CDF F. The step function
-// G(x) = max{k/K : q_k <= x} (0 below q_0) then satisfies
-// G(x) <= F(x) < G(x) + 1/K for every x: F(x) >= F(q_k) >= k/K whenever
-// q_k <= x, and x < q_{k+1} gives F(x) < (k+1)/K by the minimality of q_{k+1}.
-// So a D computed with G differs from the exact D by less than 1/K < 0.001.
+// deciles, a histogram and the distribution itself (every value and its
+// count, or quantile points); for categorical columns the count of every
+// training category. The predictor flags inputs outside the range (or
+// categories never seen); drift monitoring compares new rows with them.
+// The quantile definition and the Kolmogorov-Smirnov error bound of the
+// quantile points (below 1/1024): docs/design/drift.md.
 #pragma once
 
 #include <algorithm>
@@ -48,7 +37,7 @@ struct feature_reference {
     // categorical columns, sorted by category text
     std::vector<std::pair<std::string, std::uint64_t>> categories;
     // numeric and date/time columns, the distribution (empty in files written
-    // before section REFD; see the top of this file)
+    // before section REFD; see docs/design/drift.md)
     bool whole_numbers = false;  // every present value is a whole number
     std::vector<std::pair<double, std::uint64_t>> distinct;  // ascending values and counts, at most 256
     std::vector<double> quantile_points;  // q_0 .. q_K when there are more distinct values
@@ -73,7 +62,7 @@ struct feature_reference {
     }
 };
 
-/// Distinct values kept exactly up to this count (see the top of this file).
+/// Distinct values kept exactly up to this count (see docs/design/drift.md).
 inline constexpr std::size_t reference_distinct_limit = 256;
 /// K of the quantile points q_0 .. q_K kept beyond it: D's error is below 1/K.
 inline constexpr std::size_t reference_quantile_steps = 1024;

@@ -2,102 +2,12 @@
 //
 // measure_drift() compares, per input column, the reference summary a model
 // file keeps of its training rows (prep/reference.hpp) with a window of
-// recent raw rows, and gives two numbers per column:
-//
-// Population stability index (PSI) over bins:
-//     PSI = sum_i (a_i - e_i) ln(a_i / e_i)
-// with e_i the reference share and a_i the window share of bin i (Siddiqi
-// 2006, "Credit Risk Scorecards", Wiley, chapter on scorecard monitoring;
-// its statistical properties: Yurdakul 2018, "Statistical Properties of
-// Population Stability Index", PhD thesis, Western Michigan University;
-// both from memory). It is the symmetrised Kullback-Leibler divergence
-// KL(a||e) + KL(e||a) (Jeffreys 1946) of the two binned distributions.
-// A share of 0 makes a term infinite, so every share below
-// `empty_bin_share` (default 1e-4, common practice) is raised to it before
-// the sum; the shares are not renormalised afterwards.
-//   numeric and date/time columns: the reference histogram's equal-width
-//     bins over [minimum, maximum], plus a bin below the minimum, one above
-//     the maximum and one for missing cells (the reference has no rows in
-//     the first two, so window rows there count fully against it); when the
-//     reference holds no more distinct values than histogram bins, one bin
-//     per value instead, and one for window values between them. Bins of a
-//     whole-number column are labelled by the whole numbers they hold
-//     ("1971", "1972 to 1975"), not by fractional edges;
-//   categorical columns: one bin per training category, one per category
-//     the training rows never held (listed as unseen), and one for missing
-//     cells.
-// The common rule of thumb reads PSI < 0.1 as no significant change, 0.1 to
-// 0.25 as a moderate one and > 0.25 as a significant one (common practice;
-// the cut points appear in Siddiqi 2006, from memory): these are the
-// defaults of psi_watch and psi_threshold, both configurable.
-//
-// PSI's sampling noise. Two samples of one distribution give a positive PSI,
-// and the smaller the window the larger it is. To second order in a - e,
-// (a - e) ln(a / e) = (a - e)^2 / e, so PSI is close to
-// sum_i (a_i - e_i)^2 / e_i, which is (1/n + 1/m) times Pearson's
-// chi-square statistic of homogeneity of the two samples' bin counts
-// (reference n rows, window m rows); with no change in the distribution
-// that statistic is asymptotically chi-square with B - 1 degrees of
-// freedom, B the bins the reference holds (Pearson 1900; its use for PSI:
-// Yurdakul 2018, thesis, and Yurdakul & Naranjo 2020, "Statistical
-// properties of the population stability index", Journal of Risk Model
-// Validation 14(4), both from memory): psi_noise_floor() gives
-// (1/n + 1/m) chi2_{B-1}(1 - significance), with Wilson & Hilferty's (1931)
-// chi-square and Abramowitz & Stegun's 26.2.23 normal quantiles.
-// That approximation needs well-filled bins. Small windows break it: a bin
-// holding 1% of the reference is empty in a 100-row window 37% of the time
-// and then adds 0.01 ln(0.01 / 1e-4) = 0.046 through the empty-bin floor,
-// and window values beyond the training range land in bins the reference
-// leaves empty (for a continuous column with probability 2/(n+1) per value:
-// of n + 1 exchangeable values each is the largest, or the smallest, with
-// probability 1/(n+1)). So
-// measure_drift() takes the floor from the PSI's own sampling distribution
-// under no change (a parametric bootstrap, Efron & Tibshirani 1993, "An
-// Introduction to the Bootstrap", chapter 6): `psi_noise_draws` times, it
-// draws reference counts (n rows; kept at their expected values when n is
-// 20 or more times m, which changes 1/n + 1/m by under 5%) and window
-// counts (m rows) from the reference shares, plus one bin of values the
-// reference never held with probability 2/(n+1) for values beyond the
-// range and, for columns kept value by value or by category, the Good-Turing
-// estimate of unseen values, the share of training values seen once (Good
-// 1953, Biometrika 40), and computes the PSI with the same empty-bin floor.
-// psi_noise is the (1 - psi_noise_significance) quantile of those PSIs
-// (default 0.01), and a column is marked "watch" or "drifted" only when its
-// PSI also exceeds it. The draws use a fixed seed, so a report is
-// reproducible. On well-filled bins the result agrees with the chi-square
-// approximation (tested).
-//
-// Kolmogorov-Smirnov statistic D = sup_x |F_ref(x) - F_window(x)| over the
-// present values of numeric and date/time columns (Kolmogorov 1933, Smirnov
-// 1939). ks_two_sample() computes it exactly for two raw samples, ties
-// included: both empirical CDFs are right-continuous steps, so the supremum
-// is reached at one of the samples' values, where both CDFs are evaluated
-// after every copy of the value. A model file keeps a summary of the
-// training values (prep/reference.hpp): with at most 256 distinct values
-// the values and counts themselves, and D is exact; with more, 1025 quantile
-// points, and D is within 1/1024 of the exact value (the bound is proved in
-// reference.hpp); ks_error_bound reports which. Summaries written before
-// the distributions were kept (files without section REFD) fall back to the
-// ogive of the histogram, the piecewise-linear CDF through the cumulative
-// histogram, which errs by up to the largest bin share: much on columns of
-// few distinct values, whose tied mass the ogive spreads over its bin.
-// A column is flagged when D exceeds `ks_threshold`, or, when that is 0
-// (the default), the large-sample two-sample critical value at level
-// `ks_significance`, c(alpha) sqrt((n + m) / (n m)) with
-// c(alpha) = sqrt(-ln(alpha / 2) / 2) (Smirnov 1948, from memory; c(0.05)
-// = 1.358, c(0.01) = 1.628), n training and m window values; with quantile
-// points D must exceed the limit by more than its error bound. For discrete
-// data the limit is conservative (a false alarm is no more likely than for
-// continuous data at the same limit): break the ties of both samples alike by adding independent noise
-// far smaller than the gap between values; the jittered samples are two
-// samples of one continuous distribution, and at the top of each block of
-// tied values their empirical CDFs equal the tied ones, so the jittered D is
-// at least the tied D. This is Noether's argument for the one-sample
-// statistic (Noether 1963, "Note on the Kolmogorov statistic in the
-// discrete case", Metrika 7; from memory).
-//
-// Window cells that cannot be read as the reference's kind (text in a
-// numeric column) are counted as unreadable and binned as missing.
+// recent raw rows, and gives two numbers per column: the population
+// stability index (PSI) over bins, flagged only above its own sampling noise
+// under no change, and the two-sample Kolmogorov-Smirnov statistic for
+// numeric and date/time columns. Window cells that cannot be read as the
+// reference's kind are counted as unreadable and binned as missing.
+// Bins, formulas, noise floor, thresholds and sources: docs/design/drift.md.
 #pragma once
 
 #include <algorithm>
@@ -146,7 +56,7 @@ struct drift_options {
     /// Floor of a bin's share in the PSI sum, in (0, 0.01].
     double empty_bin_share = 1e-4;
     /// Probability that unchanged data exceed the PSI noise floor, in [0, 0.5];
-    /// 0 turns the floor off (see the top of this file).
+    /// 0 turns the floor off (see docs/design/drift.md).
     double psi_noise_significance = 0.01;
     /// Draws of the PSI under no change that the noise floor is taken from,
     /// at least 20.
@@ -214,7 +124,7 @@ struct drift_report {
 // --- the statistics --------------------------------------------------------------------------
 
 /// PSI of two distributions over the same bins (shares, each summing to 1),
-/// every share floored at `empty_bin_share` (see the top of this file).
+/// every share floored at `empty_bin_share` (see docs/design/drift.md).
 inline double population_stability_index(const std::vector<double>& reference_shares, const std::vector<double>& window_shares,
                                          double empty_bin_share = 1e-4) {
     if (reference_shares.size() != window_shares.size())
@@ -471,7 +381,7 @@ inline void multinomial_draw(random_engine& rng, std::uint64_t trials, const std
     }
 }
 
-// The PSI noise floor by simulation (see the top of this file): reference
+// The PSI noise floor by simulation (see docs/design/drift.md): reference
 // shares of the bins the reference holds, and the probability of values
 // the reference never held.
 inline double simulated_psi_noise(const std::vector<double>& reference_shares, double new_value_probability, std::uint64_t n, std::uint64_t m,

@@ -1,17 +1,12 @@
 // tenon: calibrated uncertainty, measured on rows the network did not train on.
 //
-// Regression: split-conformal intervals (Vovk, Gammerman & Shafer 2005; Lei,
-// G'Sell, Rinaldo, Tibshirani & Wasserman 2018, section 2.2). The score of a
-// calibration row is |y - prediction|; the band is prediction +- the
-// conformal quantile of the scores, which covers a new exchangeable row with
-// probability at least the nominal coverage. The normalized variant (Lei et
-// al. 2018, section 5.2; Lakshminarayanan, Pritzel & Blundell 2017 for the
-// ensemble spread) divides each score by a per-row spread, so the band
+// Regression: split-conformal intervals (Lei et al. 2018), the prediction +-
+// the conformal quantile of the calibration rows' |y - prediction|, or the
+// normalized variant dividing each score by a per-row spread, so the band
 // widens where the model is unsure. Classification: temperature scaling
-// (Guo, Pleiss, Sun & Weinberger 2017, section 4.2) fitted on the validation
-// log loss, then conformal class sets with the score 1 - p(true class)
-// (Sadinle, Lei & Wasserman 2019). Section and equation numbers of the
-// papers are cited from memory.
+// (Guo et al. 2017) fitted on the validation log loss, then conformal class
+// sets with the score 1 - p(true class) (Sadinle et al. 2019). Full
+// citations, sections (from memory): docs/design/calibration.md.
 #pragma once
 
 #include <algorithm>

@@ -1,68 +1,13 @@
 // tenon: retraining on the device, with a promotion gate.
 //
 // retrain_model() continues training a deployed model (a model_file) on
-// newly collected raw rows mixed with the replay sample the file keeps, and
-// decides whether the result may replace it:
-//
-//  1. The preparation plan stays frozen: the file's measured plan prepares
-//     the replay rows, the new rows and the holdout alike, so incumbent and
-//     candidate see identical inputs. New rows the frozen plan cannot
-//     encode are left out and counted per reason (report.refused_*): a
-//     target class the model has no output for, a missing target, a
-//     category never seen in training where the column's policy is to fail
-//     (the other policies encode it as stored: all zeros or the other
-//     slot), a missing cell without a fill, a cell that is not a number.
-//  2. A holdout of the usable new rows, of at least `min_holdout_rows`
-//     rows (and `holdout_share` of them when that is more), is set aside
-//     before anything else: it is neither trained on nor offered to the
-//     replay sample. It is chosen at random (seeded) or as the latest rows.
-//  3. The candidate starts from the incumbent's weights and trains on the
-//     replay rows plus the other new rows, with early stopping on a seeded
-//     `validation_share` of that mix, within a wall-clock budget read from
-//     an injectable clock (the budget covers the whole call: the trainer
-//     gets what preparation left of it). The update rule starts afresh.
-//     A seed ensemble (a file with member sections) is continued member by
-//     member, each from its own weights and with its own seed, derived as
-//     fit_model derives them (member k: training seed + k x 0x9E37...);
-//     with more than one thread the members train side by side, with the
-//     same result for any thread count. The candidate is an ensemble of
-//     the same size.
-//  4. The gate scores incumbent and candidate on the holdout with one
-//     metric: accuracy or log loss for classification, RMSE in the
-//     target's original units for regression; an ensemble is scored on its
-//     members' mean (class probabilities or values), as the predictor
-//     computes it. The candidate is promoted
-//     only if it is strictly better and better by at least `margin`, in
-//     the metric's own units: accuracy(candidate) - accuracy(incumbent) >=
-//     margin, or loss(incumbent) - loss(candidate) >= margin for log loss and
-//     RMSE. An equally good candidate is never promoted; a non-finite score
-//     never wins.
-//  4b. Calibration (train/calibration.hpp): the candidate is calibrated
-//     afresh on the mix's validation rows (new rows it did not train on),
-//     at the incumbent's nominal coverage unless `coverage` says otherwise
-//     (an ensemble as calibrate_model calibrates one: the temperature of its
-//     mean probabilities, or a band scaled by its members' spread);
-//     the report gives the coverage of both models' bands or class sets on
-//     the gate's holdout, which neither calibration saw (the holdout is not
-//     used to calibrate: coverage measured on the rows a band was fitted on
-//     holds by construction and says nothing). Without validation rows the
-//     candidate carries no calibration.
-//  5. The candidate's file keeps the plan and architecture, gets the new
-//     weights, metadata that describe them alone (the new rows' source, the
-//     rows and scores of this retraining; the incumbent's data name and test
-//     scores are not carried over, only settings that still describe the
-//     model), the incumbent's metadata appended to the history (section
-//     HIST), reference summaries of its training rows (so drift
-//     is measured against what it learned) and the replay sample continued
-//     by reservoir sampling (Vitter 1985, Algorithm R; model_file.hpp,
-//     reservoir_slot) over the new non-holdout rows: each row seen over all
-//     trainings stays in the sample with equal probability.
-//
-// retrain_model_file() does the same for a file on disk: on promotion it
-// first writes the previous file's exact bytes to the rollback path
-// (default "<path>.previous"), then the candidate to the path, each
-// atomically and durably (write_file_atomically). A failure leaves the
-// incumbent at the path. roll_back_model_file() puts the previous file back.
+// newly collected raw rows mixed with the replay sample the file keeps,
+// under the file's frozen preparation plan, and promotes the result only
+// when it beats the incumbent by at least `margin` on a holdout of the new
+// rows that it neither trained nor calibrated on. retrain_model_file() does
+// the same for a file on disk, keeping the previous file's bytes for
+// roll_back_model_file(); a failure leaves the incumbent at the path.
+// The steps, the gate, calibration and the candidate's file: docs/design/retraining.md.
 #pragma once
 
 #include <algorithm>
@@ -203,7 +148,7 @@ struct gate_decision {
     std::string reason;
 };
 
-/// Decides promotion (see the top of this file): the candidate must be
+/// Decides promotion (see docs/design/retraining.md): the candidate must be
 /// strictly better and better by at least `margin`.
 inline gate_decision decide_promotion(gate_metric metric, double incumbent_score, double candidate_score, double margin) {
     if (metric == gate_metric::automatic)
@@ -658,7 +603,7 @@ inline replay_sample continue_replay(const std::optional<replay_sample>& stored,
 }  // namespace detail
 
 /// Retrains `incumbent` on `new_rows` (raw rows with the plan's input
-/// columns and target) and decides on promotion; see the top of this file.
+/// columns and target) and decides on promotion; see docs/design/retraining.md.
 /// Raises deploy.model.missing_section when the file has no plan (or its
 /// plan no target), deploy.input.missing_column when the new rows lack a
 /// column the plan reads or the target, deploy.retrain.option for options
