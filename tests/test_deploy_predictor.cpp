@@ -567,3 +567,34 @@ TEST_CASE_TEMPLATE("subnormal inputs are flushed to zero", T, float, double) {
     const auto b = p.predict_prepared(tiny.data(), 1);
     CHECK(same_bits(b.values[0], zero_out));
 }
+
+TEST_CASE("inside a host's flush_subnormals_scope a call leaves the mode as held, with the same bits") {
+    trained<float> run(power_plan());
+    tenon::predictor<float> p(run.model, 4);
+    tenon::random_engine rng(5);
+    std::vector<float> row(p.feature_count());
+    for (auto& v : row) v = rng.uniform(-1.0f, 1.0f);
+    const float alone = p.predict_prepared(row.data(), 1).values[0];
+#if TENON_SIMD_X86
+    const unsigned before = _mm_getcsr();
+    CHECK((before & 0x8040u) == 0u);  // the test runs with the default mode
+#endif
+    {
+        const tenon::flush_subnormals_scope held;
+        CHECK(tenon::detail::flush_scopes_held() == 1);
+        CHECK(same_bits(p.predict_prepared(row.data(), 1).values[0], alone));
+#if TENON_SIMD_X86
+        CHECK((_mm_getcsr() & 0x8040u) == 0x8040u);  // still set after the call
+#endif
+        {
+            const tenon::flush_subnormals_scope nested;
+            CHECK(tenon::detail::flush_scopes_held() == 2);
+        }
+        CHECK(tenon::detail::flush_scopes_held() == 1);
+    }
+    CHECK(tenon::detail::flush_scopes_held() == 0);
+#if TENON_SIMD_X86
+    CHECK(_mm_getcsr() == before);  // the host's mode is back
+#endif
+    CHECK(same_bits(p.predict_prepared(row.data(), 1).values[0], alone));
+}

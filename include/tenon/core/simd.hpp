@@ -111,6 +111,16 @@ inline int vector_level() noexcept {
 }
 }  // namespace detail
 
+namespace detail {
+// How many flush_subnormals_scope the calling thread holds: while
+// one is held, the predictor's calls leave the mode as it is instead of
+// saving and restoring it.
+inline unsigned& flush_scopes_held() noexcept {
+    static thread_local unsigned held = 0;
+    return held;
+}
+}  // namespace detail
+
 /// While alive, the calling thread computes with subnormal numbers flushed to
 /// zero: subnormal operands read as zero and subnormal results become zero
 /// (the FTZ and DAZ bits of x86's MXCSR; elsewhere this does nothing). The
@@ -118,14 +128,22 @@ inline int vector_level() noexcept {
 /// operation that reads or produces a subnormal value costs a microcode
 /// assist of the order of a hundred cycles, and quantities that decay
 /// geometrically (Adam's moments of a weight whose gradient stays 0) spend
-/// long stretches there.
+/// long stretches there. A serving loop that holds one spares each
+/// predictor call its own save and restore of the mode (predictor.hpp).
 class flush_subnormals_scope {
 public:
 #if TENON_SIMD_X86
-    flush_subnormals_scope() noexcept : saved_(_mm_getcsr()) { _mm_setcsr(saved_ | flush_bits); }
-    ~flush_subnormals_scope() { _mm_setcsr(saved_); }
+    flush_subnormals_scope() noexcept : saved_(_mm_getcsr()) {
+        _mm_setcsr(saved_ | flush_bits);
+        ++detail::flush_scopes_held();
+    }
+    ~flush_subnormals_scope() {
+        --detail::flush_scopes_held();
+        _mm_setcsr(saved_);
+    }
 #else
-    flush_subnormals_scope() noexcept {}
+    flush_subnormals_scope() noexcept { ++detail::flush_scopes_held(); }
+    ~flush_subnormals_scope() { --detail::flush_scopes_held(); }
 #endif
     flush_subnormals_scope(const flush_subnormals_scope&) = delete;
     flush_subnormals_scope& operator=(const flush_subnormals_scope&) = delete;

@@ -209,15 +209,25 @@ T flush_subnormal(T v) noexcept {
 
 // Sets MXCSR's flush-to-zero (bit 15) and denormals-are-zero (bit 6) bits
 // for a scope and restores the host's value (Intel 64 and IA-32
-// Architectures Software Developer's Manual, vol. 1, section 10.2.3).
+// Architectures Software Developer's Manual, vol. 1, section 10.2.3); while
+// the thread holds a flush_subnormals_scope (core/simd.hpp) the bits are
+// already set, and reading and writing the register again is skipped.
 class denormal_guard {
 public:
 #if defined(TENON_DETAIL_HAS_MXCSR)
-    denormal_guard() noexcept : saved_(_mm_getcsr()) { _mm_setcsr(saved_ | 0x8040u); }
-    ~denormal_guard() { _mm_setcsr(saved_); }
+    denormal_guard() noexcept : held_(flush_scopes_held() != 0) {
+        if (!held_) {
+            saved_ = _mm_getcsr();
+            _mm_setcsr(saved_ | 0x8040u);
+        }
+    }
+    ~denormal_guard() {
+        if (!held_) _mm_setcsr(saved_);
+    }
 
 private:
-    unsigned int saved_;
+    bool held_;
+    unsigned int saved_ = 0;
 #else
     denormal_guard() noexcept {}
 #endif

@@ -934,15 +934,30 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
     return result;
 }
 
+namespace detail {
+// T, named through a template parameter: a template whose body names its
+// scalar types this way is compiled only where it is called (the body of a
+// plain inline function, and every template it names, is compiled in every
+// unit that includes it).
+template <class T, class>
+struct scalar_named {
+    using type = T;
+};
+}  // namespace detail
+
 /// The default rollback path of a model file: "<path>.previous".
 inline std::string default_rollback_path(const std::string& path) { return path + ".previous"; }
 
 /// Retrains the model file at `path` (float or double, as stored) and, on
 /// promotion, keeps the previous file at `rollback_path` (default
 /// "<path>.previous") and writes the candidate to `path`, both atomically
-/// and durably through `fs`. Without promotion nothing is written.
-inline retraining_report retrain_model_file(const std::string& path, const table& new_rows, const retraining_options& options,
-                                            const std::string& rollback_path, file_system& fs, const model_limits& limits = {}) {
+/// and durably through `fs`. Without promotion nothing is written. (A
+/// template only so that units that never call it do not compile it.)
+template <class Unused = void>
+retraining_report retrain_model_file(const std::string& path, const table& new_rows, const retraining_options& options,
+                                     const std::string& rollback_path, file_system& fs, const model_limits& limits = {}) {
+    using f32 = typename detail::scalar_named<float, Unused>::type;
+    using f64 = typename detail::scalar_named<double, Unused>::type;
     const std::function<double()> clock = options.clock ? options.clock : std::function<double()>(detail::steady_seconds);
     const double start = clock();
     const std::vector<std::uint8_t> bytes = read_file_bounded(path, limits.max_file_bytes);
@@ -950,11 +965,11 @@ inline retraining_report retrain_model_file(const std::string& path, const table
     retraining_report report;
     std::vector<std::uint8_t> candidate;
     if (summary.scalar_bytes == 4) {
-        auto r = retrain_model(model_file_from_bytes<float>(bytes, limits, path), new_rows, options);
+        auto r = retrain_model(model_file_from_bytes<f32>(bytes, limits, path), new_rows, options);
         report = std::move(r.report);
         if (report.promoted) candidate = model_file_to_bytes(r.candidate);
     } else {
-        auto r = retrain_model(model_file_from_bytes<double>(bytes, limits, path), new_rows, options);
+        auto r = retrain_model(model_file_from_bytes<f64>(bytes, limits, path), new_rows, options);
         report = std::move(r.report);
         if (report.promoted) candidate = model_file_to_bytes(r.candidate);
     }
@@ -969,10 +984,11 @@ inline retraining_report retrain_model_file(const std::string& path, const table
     return report;
 }
 
-inline retraining_report retrain_model_file(const std::string& path, const table& new_rows, const retraining_options& options = {},
-                                            const std::string& rollback_path = "") {
+template <class Unused = void>
+retraining_report retrain_model_file(const std::string& path, const table& new_rows, const retraining_options& options = {},
+                                     const std::string& rollback_path = "") {
     native_file_system fs;
-    return retrain_model_file(path, new_rows, options, rollback_path, fs);
+    return retrain_model_file<Unused>(path, new_rows, options, rollback_path, fs);
 }
 
 /// Puts the previous model back: checks that `rollback_path` (default
