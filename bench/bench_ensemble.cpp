@@ -212,7 +212,7 @@ void ensemble_epoch(benchmark::State& state) {
     paired(state, classify, threads == 1, [&] { return seconds_of(all_members, threads == 1) / epochs_per_run; });
 }
 
-void ridge_baseline_fit(benchmark::State& state) {
+void ridge_baseline_solve(benchmark::State& state) {
     const task_data& d = data(false);
     paired(state, false, true, [&] {
         // One fit takes well under a millisecond: the mean of 20.
@@ -258,7 +258,7 @@ public:
             line("ensemble of 5, one after the other, 1 thread", "ensemble_epoch/" + t + "/threads:1", "[ideal 5.00]");
             line("ensemble of 5, side by side, 2 threads", "ensemble_epoch/" + t + "/threads:2", "[ideal 3.00 with 2 free cores: 3 rounds]");
             if (task == 0)
-                line("ridge baseline, the whole fit (no epochs)", "ridge_baseline_fit/", "");
+                line("ridge baseline, the whole fit (no epochs)", "ridge_baseline_solve/", "");
             else
                 line("logistic baseline, one epoch", "logistic_baseline_epoch/", "");
         }
@@ -311,7 +311,7 @@ BENCHMARK(ensemble_epoch)
     ->Iterations(repetitions())
     ->UseManualTime()
     ->Unit(benchmark::kMillisecond);
-BENCHMARK(ridge_baseline_fit)->Iterations(repetitions())->UseManualTime()->Unit(benchmark::kMicrosecond);
+BENCHMARK(ridge_baseline_solve)->Iterations(repetitions())->UseManualTime()->Unit(benchmark::kMicrosecond);
 BENCHMARK(logistic_baseline_epoch)->Iterations(repetitions())->UseManualTime()->Unit(benchmark::kMillisecond);
 
 int main(int argc, char** argv) {
