@@ -36,14 +36,21 @@ function(step_fails pattern)
   message(STATUS "failed as expected (${pattern})")
 endfunction()
 
-# The examples are configured so the tool and its man page get installed;
-# only those two targets are built. GNUInstallDirs puts them in bin/ and
-# share/man/man1/.
-step(${CMAKE_COMMAND} -S "${SOURCE_DIR}" -B "${build}" -G "${GENERATOR}"
-     -DCMAKE_CXX_COMPILER=${CXX_COMPILER} -DCMAKE_INSTALL_PREFIX=${prefix} -DCMAKE_BUILD_TYPE=Release
-     -DTENON_BUILD_TESTS=OFF -DTENON_BUILD_BENCHMARKS=OFF -DTENON_BUILD_EXAMPLES=ON)
-step(${CMAKE_COMMAND} --build "${build}" --target tenon_cli tenon_man)
-step(${CMAKE_COMMAND} --install "${build}")
+# The tool and its man page get installed with the headers (GNUInstallDirs
+# puts them in bin/ and share/man/man1/). When this build has the tool, the
+# install comes from this build (its two targets are brought up to date;
+# nothing else is compiled again); otherwise from a build of its own with
+# the examples on, of those two targets only.
+if(HAS_TOOL)
+  step(${CMAKE_COMMAND} --build "${BUILD_DIR}" --target tenon_cli tenon_man)
+  step(${CMAKE_COMMAND} --install "${BUILD_DIR}" --prefix "${prefix}")
+else()
+  step(${CMAKE_COMMAND} -S "${SOURCE_DIR}" -B "${build}" -G "${GENERATOR}"
+       -DCMAKE_CXX_COMPILER=${CXX_COMPILER} -DCMAKE_INSTALL_PREFIX=${prefix} -DCMAKE_BUILD_TYPE=Release
+       -DTENON_BUILD_TESTS=OFF -DTENON_BUILD_BENCHMARKS=OFF -DTENON_BUILD_EXAMPLES=ON)
+  step(${CMAKE_COMMAND} --build "${build}" --target tenon_cli tenon_man)
+  step(${CMAKE_COMMAND} --install "${build}")
+endif()
 set(config_dir "${prefix}/share/cmake/tenon")
 if(NOT EXISTS "${config_dir}/tenonConfig.cmake")
   message(FATAL_ERROR "tenonConfig.cmake was not installed")
