@@ -258,7 +258,7 @@ public:
             line("ensemble of 5, one after the other, 1 thread", "ensemble_epoch/" + t + "/threads:1", "[ideal 5.00]");
             line("ensemble of 5, side by side, 2 threads", "ensemble_epoch/" + t + "/threads:2", "[ideal 3.00 with 2 free cores: 3 rounds]");
             if (task == 0)
-                line("ridge baseline, the whole fit (no epochs)", "ridge_baseline_solve/", "");
+                line("ridge baseline, the whole solve (no epochs)", "ridge_baseline_solve/", "");
             else
                 line("logistic baseline, one epoch", "logistic_baseline_epoch/", "");
         }
