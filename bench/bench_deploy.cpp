@@ -359,9 +359,9 @@ double thread_cpu_ns() {
     return static_cast<double>(t.tv_sec) * 1e9 + static_cast<double>(t.tv_nsec);
 }
 
-// Median CPU time per call (ns) of each function over `rounds` interleaved
-// rounds of `calls` calls each, so a slower spell of the machine hits all alike.
-std::vector<double> interleaved_ns(const std::vector<std::function<void()>>& fs, int rounds, int calls) {
+// CPU time per call (ns) of each function in each of `rounds` interleaved
+// rounds of `calls` calls each: times[f][r].
+std::vector<std::vector<double>> interleaved_ns(const std::vector<std::function<void()>>& fs, int rounds, int calls) {
     std::vector<std::vector<double>> ns(fs.size());
     for (int r = 0; r < rounds; ++r)
         for (std::size_t f = 0; f < fs.size(); ++f) {
@@ -369,12 +369,24 @@ std::vector<double> interleaved_ns(const std::vector<std::function<void()>>& fs,
             for (int c = 0; c < calls; ++c) fs[f]();
             ns[f].push_back((thread_cpu_ns() - t0) / calls);
         }
-    std::vector<double> medians;
-    for (auto& v : ns) {
-        std::sort(v.begin(), v.end());
-        medians.push_back(v[v.size() / 2]);
-    }
-    return medians;
+    return ns;
+}
+
+double median_of(std::vector<double> v) {
+    std::sort(v.begin(), v.end());
+    return v[v.size() / 2];
+}
+
+// The ratio a / b taken within each round (a slower spell of the machine
+// hits both sides of one round alike), summarised as its median and the
+// first and third quartiles over the rounds: "1.02 (0.97-1.06)".
+std::string round_ratio(const std::vector<double>& a, const std::vector<double>& b, double scale_a = 1.0, double scale_b = 1.0) {
+    std::vector<double> r;
+    for (std::size_t k = 0; k < a.size() && k < b.size(); ++k) r.push_back(a[k] * scale_a / (b[k] * scale_b));
+    std::sort(r.begin(), r.end());
+    char text[64];
+    std::snprintf(text, sizeof text, "%.2f (quartiles %.2f-%.2f)", r[r.size() / 2], r[r.size() / 4], r[(3 * r.size()) / 4]);
+    return text;
 }
 
 // The predictor against the hand loop on one row of `m`: the summary line.
@@ -415,10 +427,11 @@ void compare_with_hand_loop(bench_model& m, int rounds) {
                                         }
                                     }},
                                    rounds, 20000);
-    const double held = ns[2] / 16;
-    std::printf("one prepared row, %s: predictor %.1f ns, hand loop (-O3 -march=native) %.1f ns, ratio %.2f (target at most 1.00); "
-                "in a held flush_subnormals_scope %.1f ns, ratio %.2f; largest relative difference of the values %.1e\n",
-                h.shape.c_str(), ns[0], ns[1], ns[0] / ns[1], held, held / ns[1], largest);
+    const double predictor_ns = median_of(ns[0]), hand_ns = median_of(ns[1]), held = median_of(ns[2]) / 16;
+    std::printf("one prepared row, %s: predictor %.1f ns, hand loop (-O3 -march=native) %.1f ns, ratio %s (target at most 1.00); "
+                "in a held flush_subnormals_scope %.1f ns, ratio %s; largest relative difference of the values %.1e\n",
+                h.shape.c_str(), predictor_ns, hand_ns, round_ratio(ns[0], ns[1]).c_str(), held, round_ratio(ns[2], ns[1], 1.0 / 16).c_str(),
+                largest);
 }
 
 // 64 rows in one call against 64 one-row calls: the summary line; then the
@@ -449,9 +462,10 @@ void compare_batch(int rounds) {
                                         singles();
                                     }},
                                    rounds, 500);
-    std::printf("64 prepared rows, %s: one call %.0f ns (%.1f ns a row), 64 one-row calls %.0f ns, throughput ratio %.2f (target at least 3.00); "
-                "in a held flush_subnormals_scope %.0f and %.0f ns, ratio %.2f\n",
-                hand_of(model()).shape.c_str(), ns[0], ns[0] / 64, ns[1], ns[1] / ns[0], ns[2], ns[3], ns[3] / ns[2]);
+    std::printf("64 prepared rows, %s: one call %.0f ns (%.1f ns a row), 64 one-row calls %.0f ns, throughput ratio %s (target at least 3.00); "
+                "in a held flush_subnormals_scope %.0f and %.0f ns, ratio %s\n",
+                hand_of(model()).shape.c_str(), median_of(ns[0]), median_of(ns[0]) / 64, median_of(ns[1]), round_ratio(ns[1], ns[0]).c_str(),
+                median_of(ns[2]), median_of(ns[3]), round_ratio(ns[3], ns[2]).c_str());
 }
 
 }  // namespace
