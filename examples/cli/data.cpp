@@ -478,16 +478,26 @@ std::vector<tenon::fold> make_folds(const tenon::table& t, const train_request& 
 std::vector<tenon::fold> search_folds(const tenon::table& t, const train_request& q, const training_setup& s, const std::vector<std::size_t>& rows) {
     constexpr std::size_t k = 3;  // as the search's own folds
     std::vector<tenon::fold> by_position;
-    if (s.split == split_choice::chronological) {
-        const std::vector<double> all = detail::column_times(t, q.time_column);
-        std::vector<double> times;
-        for (auto r : rows) times.push_back(all[r]);
-        by_position = tenon::rolling_origin_folds(times, k, std::max<std::size_t>(1, rows.size() / (k + 1)));
-    } else if (s.split == split_choice::grouped) {
-        const std::vector<std::uint32_t> all = tenon::dense_codes(t.at(q.group_column), true);
-        std::vector<std::uint32_t> groups;
-        for (auto r : rows) groups.push_back(all[r]);
-        by_position = tenon::group_k_folds(groups, k, q.model.seed);
+    try {
+        if (s.split == split_choice::chronological) {
+            const std::vector<double> all = detail::column_times(t, q.time_column);
+            std::vector<double> times;
+            for (auto r : rows) times.push_back(all[r]);
+            by_position = tenon::rolling_origin_folds(times, k, std::max<std::size_t>(1, rows.size() / (k + 1)));
+        } else if (s.split == split_choice::grouped) {
+            const std::vector<std::uint32_t> all = tenon::dense_codes(t.at(q.group_column), true);
+            std::vector<std::uint32_t> groups;
+            for (auto r : rows) groups.push_back(all[r]);
+            by_position = tenon::group_k_folds(groups, k, q.model.seed);
+        }
+    } catch (const tenon::error& e) {
+        // The split's own message names the folds, not the option that asked for them.
+        const std::string what = e.what(), message = what.substr(what.find("] ") == std::string::npos ? 0 : what.find("] ") + 2);
+        throw cli_failure(e.code(), "--search: its " + std::to_string(k) + " folds of the " + std::to_string(rows.size()) + " training rows (" +
+                                        (s.split == split_choice::chronological ? "walk-forward, by --time-column '" + q.time_column
+                                                                                 : "whole groups, by --group-column '" + q.group_column) +
+                                        "'): " + message + "; train without --search, or with more rows" +
+                                        (s.split == split_choice::grouped ? " or groups" : ""));
     }
     std::vector<tenon::fold> out(by_position.size());
     for (std::size_t f = 0; f < by_position.size(); ++f) {

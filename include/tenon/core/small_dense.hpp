@@ -1,34 +1,12 @@
 // tenon: one dense layer of a few rows with what follows it, in one pass.
 //
-// y = finish(x W), x rows x k, W k x n, both row-major, where finish applies,
-// in this order and each rounded on its own: + bias[j]; zero if tiny; then
-// optionally relu (y > 0 ? y : +0); then optionally a + y for a given
-// row-major a (rows x n), zero if tiny. "Zero if tiny" is +0 where |y| is
-// below the smallest normal number (subnormals and -0), as the predictor's
-// flush_subnormal (deploy/predictor.hpp). These are the predictor's dense,
-// activation and sum steps run one after another, with the value kept in a
-// register between them instead of being written out and read back per step.
-//
-// Bits. The sum x W is gemm's (core/gemm.hpp) for the same m, n and k, so a
-// predictor keeps the trainer's results to the last bit:
-//   - where gemm takes the unpacked loops (is_thin_product: fewer rows than
-//     the active path's tile, or fewer than thin_columns columns), each
-//     element is summed as those loops sum it: with n >= thin_columns as the
-//     row loop (0 + x_0 w_0j + x_1 w_1j + ... in order, each product and
-//     sum rounded, never fused), below that as split_dot (its eight partial
-//     sums), read from a transposed copy of W so that each column is
-//     contiguous;
-//   - otherwise, on the fused paths (avx512, avx2, neon on aarch64) and for
-//     k <= kc, the packed tile sums each element as one chain of fused
-//     multiply-adds from 0, p = 0..k-1, then adds 1 x the chain to C's 0;
-//     dense_fused_rows computes that same chain without packing, several
-//     rows at a time (8 rows x 2 vectors with AVX-512F and NEON, 4 with
-//     AVX2);
-//   - otherwise (the portable and blas paths, k > kc) gemm itself computes
-//     x W and the finish runs as a second pass over y.
-// The row loop's vector versions (AVX-512F, AVX2, aarch64 NEON) keep up to
-// four vectors of y in registers over the k terms and apply the finish
-// before storing them; the vector width changes no bit.
+// y = finish(x W) for x rows x k and W k x n (row-major), where finish adds
+// the bias, zeroes tiny values, optionally applies relu and adds a given
+// addend, each rounded on its own: the predictor's dense, activation and
+// sum steps with the value kept in a register between them. The sum x W has
+// gemm's bits for the same m, n and k (core/gemm.hpp), so a predictor keeps
+// the trainer's results to the last bit; which loop matches which gemm path
+// is in docs/design/predictor.md.
 #pragma once
 
 #include <cmath>

@@ -1,51 +1,13 @@
 // tenon: the predictor, a deployable, allocation-free evaluator of a model.
 //
-// A predictor is built once from a model file or a fitted model. It copies
-// the weights into flat buffers and compiles the network into a list of
-// steps (dense, activation, normalization, residual and linear-bypass sums);
-// no tape is used.
-// Every call then applies the stored plan to raw rows (named cells, cells in
-// input-column order, or a host's own row type through row_fields<Row>),
-// checks them, runs the steps on buffers sized at construction for up to
-// `capacity` rows, and gives class probabilities or values in the target's
-// original units, with a flag per input cell outside what the training rows
-// held. After construction a call allocates nothing and takes no lock (a
-// thread other than the constructing one calls warm_up() once first).
-//
-// Threads: a predictor's buffers belong to it, so one predictor serves one
-// thread at a time. Copies share the immutable compiled model (a
-// shared_ptr<const ...>) and get their own buffers, so many threads predict
-// at once, each with its own copy. predictor_holder publishes a new model
-// while threads keep predicting (see below).
-//
-// Errors: the throwing calls raise deploy.input.* codes; the try_ calls are
-// noexcept and return a predict_status instead (usable from hosts built with
-// -fno-exceptions: they check every input before anything that could raise).
-//
-// Denormals: a subnormal number can make an arithmetic instruction tens of
-// times slower on common processors (Intel 64 and IA-32 Optimization
-// Reference Manual, section on floating-point denormals; from memory). Two
-// measures keep a call's time independent of them: (1) weights that are
-// subnormal are flushed to zero when the predictor is built, and prepared
-// inputs and every layer's outputs are flushed to zero too (a compare per
-// value); (2) on x86-64 the call sets the flush-to-zero and
-// denormals-are-zero bits of MXCSR for its duration and restores the
-// host's value afterwards. Results differ from the trainer's only where a
-// value would have been subnormal (below 1.2e-38 in float, 2.2e-308 in double).
-//
-// Bit-exactness: each step performs the same operations in the same order
-// as the tape does (the same gemm kernel, the same activation formulas), so
-// a predictor gives the trainer's predict_prepared results to the last bit
-// on tenon's own kernels, whatever the rows per call. With the BLAS backend
-// the products are the BLAS's, and a BLAS may round a product of fewer rows
-// differently (OpenBLAS picks a small-matrix kernel by size on some CPUs),
-// so there the results agree within rounding, not always to the last bit.
-//
-// Calibration: a model file with section CALB (train/calibration.hpp) makes
-// every call also give a conformal band per regression value (low, high)
-// or, for classification, temperature-scaled probabilities and a class-set
-// bitmask per row. The band's coverage is promised for rows like the
-// calibration rows only: a row with a range flag set is not such a row.
+// Built once from a model file or a fitted model, it compiles the network
+// into a list of steps over flat buffers (no tape) and serves raw rows,
+// named cells or prepared features: class probabilities or values in the
+// target's units, range flags, and a calibrated band where the file has one.
+// After construction a call allocates nothing and takes no lock; one
+// predictor serves one thread, copies share the compiled model. Each step
+// keeps the trainer's bits on tenon's own kernels. Threads, errors,
+// subnormals and bits: docs/design/predictor.md.
 #pragma once
 
 #include <algorithm>
