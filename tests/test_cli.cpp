@@ -595,10 +595,15 @@ TEST_CASE("chronological and grouped splits keep time order and whole groups") {
     // Too few groups for the search's three folds: the error names --search
     // and the column, and keeps the split's reason and code.
     std::string few = "line,temp,amps\n";
-    for (int i = 0; i < 200; ++i) few += std::string(i % 4 == 0 ? "A" : i % 4 == 1 ? "B" : i % 4 == 2 ? "C" : "D") + "," + std::to_string(i % 17) + "," + std::to_string(i % 13) + "\n";
+    for (int i = 0; i < 200; ++i)
+        few += std::string(i % 4 == 0       ? "A"
+                               : i % 4 == 1 ? "B"
+                               : i % 4 == 2 ? "C"
+                                            : "D") +
+            "," + std::to_string(i % 17) + "," + std::to_string(i % 13) + "\n";
     const auto few_path = dir.write("few.csv", few);
-    const auto f = run({"train", "--data", few_path, "--target", "amps", "--split", "grouped", "--group-column", "line", "--search", "4",
-                        "--epochs", "2", "--quiet"});
+    const auto f = run({"train", "--data", few_path, "--target", "amps", "--split", "grouped", "--group-column", "line", "--search", "4", "--epochs",
+                        "2", "--quiet"});
     CHECK(f.status != 0);
     CHECK(f.err.find("--search: its 3 folds of the") != std::string::npos);
     CHECK(f.err.find("by --group-column 'line'") != std::string::npos);

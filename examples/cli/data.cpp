@@ -493,11 +493,12 @@ std::vector<tenon::fold> search_folds(const tenon::table& t, const train_request
     } catch (const tenon::error& e) {
         // The split's own message names the folds, not the option that asked for them.
         const std::string what = e.what(), message = what.substr(what.find("] ") == std::string::npos ? 0 : what.find("] ") + 2);
-        throw cli_failure(e.code(), "--search: its " + std::to_string(k) + " folds of the " + std::to_string(rows.size()) + " training rows (" +
-                                        (s.split == split_choice::chronological ? "walk-forward, by --time-column '" + q.time_column
-                                                                                 : "whole groups, by --group-column '" + q.group_column) +
-                                        "'): " + message + "; train without --search, or with more rows" +
-                                        (s.split == split_choice::grouped ? " or groups" : ""));
+        throw cli_failure(e.code(),
+                          "--search: its " + std::to_string(k) + " folds of the " + std::to_string(rows.size()) + " training rows (" +
+                              (s.split == split_choice::chronological ? "walk-forward, by --time-column '" + q.time_column
+                                                                      : "whole groups, by --group-column '" + q.group_column) +
+                              "'): " + message + "; train without --search, or with more rows" +
+                              (s.split == split_choice::grouped ? " or groups" : ""));
     }
     std::vector<tenon::fold> out(by_position.size());
     for (std::size_t f = 0; f < by_position.size(); ++f) {
