@@ -693,7 +693,7 @@ TEST_CASE_TEMPLATE("a group of small dense products gives each product's bits in
     for (const std::size_t n : std::vector<std::size_t>{1, 3, 7, 8, 16, 17, 32, 33, 65}) {
         for (const std::size_t k : std::vector<std::size_t>{1, 8, 9, 32, 33}) {
             for (const std::size_t count : std::vector<std::size_t>{1, 2, 3, 5, 8}) {
-                for (const std::size_t rows : std::vector<std::size_t>{1, 2, 9}) {
+                for (const std::size_t rows : std::vector<std::size_t>{1, 2, 9, 37}) {
                     const int variant = static_cast<int>((n + k + count + rows) % 3);
                     CAPTURE(n);
                     CAPTURE(k);
