@@ -149,8 +149,7 @@ tenon::table load_table(const train_request& q, std::vector<std::string>* notes,
             if (e.code() == tenon::codes::prep_column_unknown && options.forced_kinds.count(q.target))
                 fail(cli_codes::column_unknown, q.data_path + ": --target names '" + q.target + "', which is not a column");
             if (e.code() == tenon::codes::prep_time_ambiguous) {  // say how to settle it
-                const std::string what = e.what(), message = what.substr(what.find("] ") == std::string::npos ? 0 : what.find("] ") + 2);
-                throw cli_failure(e.code(), message + " with --time-format DD/MM/YYYY or MM/DD/YYYY (or COLUMN=FORM)");
+                throw cli_failure(e.code(), detail::without_code(e.what()) + " with --time-format DD/MM/YYYY or MM/DD/YYYY (or COLUMN=FORM)");
             }
             throw;
         }
@@ -381,8 +380,7 @@ auto naming_classes(const tenon::table& t, const std::string& target_name, Split
         return split();
     } catch (const tenon::error& e) {
         if (e.code() != tenon::codes::prep_split_class_too_small) throw;
-        std::string m = e.what();
-        m.erase(0, m.find("] ") + 2);
+        std::string m = without_code(e.what());
         const auto at = m.find("class ");
         std::size_t end = at == std::string::npos ? at : at + 6;
         while (end != std::string::npos && end < m.size() && m[end] >= '0' && m[end] <= '9') ++end;
@@ -492,7 +490,7 @@ std::vector<tenon::fold> search_folds(const tenon::table& t, const train_request
         }
     } catch (const tenon::error& e) {
         // The split's own message names the folds, not the option that asked for them.
-        const std::string what = e.what(), message = what.substr(what.find("] ") == std::string::npos ? 0 : what.find("] ") + 2);
+        const std::string message = detail::without_code(e.what());
         throw cli_failure(e.code(),
                           "--search: its " + std::to_string(k) + " folds of the " + std::to_string(rows.size()) + " training rows (" +
                               (s.split == split_choice::chronological ? "walk-forward, by --time-column '" + q.time_column

@@ -42,6 +42,14 @@ double steady_seconds() { return std::chrono::duration<double>(std::chrono::stea
 // (\n, \r, \t, \0, \xNN), so the line stays one line and shows what was there.
 std::string one_line(const std::string& s) { return tenon::escape_control_characters(s); }
 
+std::string without_code(const std::string& what) {
+    if (!what.empty() && what[0] == '[') {
+        const auto end = what.find("] ");
+        if (end != std::string::npos) return what.substr(end + 2);
+    }
+    return what;
+}
+
 // The one line the tool prints for a failure of `command`, and its exit status.
 std::string failure_text(const std::string& command, const std::exception_ptr& failure, int& status) {
     try {

@@ -122,6 +122,9 @@ std::string duration_text(double seconds);
 double steady_seconds();
 /// A message on one line: control characters written as escapes.
 std::string one_line(const std::string& s);
+/// A library error's text without its code: "[code] message" -> "message",
+/// for a message the tool extends (the code goes on, as the error's code).
+std::string without_code(const std::string& what);
 /// The one line the tool prints for a failure of `command`, and its exit status.
 std::string failure_text(const std::string& command, const std::exception_ptr& failure, int& status);
 

@@ -760,15 +760,6 @@ void header_fields(json_writer& j, const train_request& q, const training_setup&
     j.count("seed", q.model.seed);
 }
 
-// "[code] message" -> "message".
-std::string strip_code(const std::string& what) {
-    if (!what.empty() && what[0] == '[') {
-        const auto end = what.find("] ");
-        if (end != std::string::npos) return what.substr(end + 2);
-    }
-    return what;
-}
-
 // The scores and the command line's choices that make_model_file cannot know.
 void add_scores_to_metadata(tenon::training_metadata& meta, const train_request& q, const training_setup& s, const tenon::evaluation* validation,
                             const tenon::evaluation& test) {
