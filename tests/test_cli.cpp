@@ -604,8 +604,8 @@ TEST_CASE("chronological and grouped splits keep time order and whole groups") {
     const auto few_path = dir.write("few.csv", few);
     const auto f = run({"train", "--data", few_path, "--target", "amps", "--split", "grouped", "--group-column", "line", "--search", "4", "--epochs",
                         "2", "--quiet"});
-    CHECK(f.status != 0);
-    CHECK(f.err.find("--search: its 3 folds of the") != std::string::npos);
+    CHECK(f.status == tenon_cli::exit_bad_input);
+    CHECK(f.err.find("[prep.split.single_group] --search: its 3 folds of the") != std::string::npos);
     CHECK(f.err.find("by --group-column 'line'") != std::string::npos);
     CHECK(f.err.find("cannot fill 3 folds") != std::string::npos);
 }
