@@ -407,6 +407,21 @@ TEST_CASE("bad raw rows give statuses without throwing, and the throwing calls r
     s = p.try_predict_prepared(features.data(), 1, out);
     CHECK(s.code == tenon::input_status::non_finite);
     CHECK(s.column == 1);
+    // Several rows: the first value that is not finite, in row order, is the one reported.
+    const std::size_t f = p.feature_count();
+    std::fill(features.begin(), features.end(), 0.5f);
+    features[3 * f] = std::numeric_limits<float>::infinity();
+    features[2 * f + f - 1] = std::numeric_limits<float>::quiet_NaN();
+    s = p.try_predict_prepared(features.data(), 4, out);
+    CHECK(s.code == tenon::input_status::non_finite);
+    CHECK(s.row == 2);
+    CHECK(s.column == f - 1);
+    features[3 * f] = -std::numeric_limits<float>::infinity();
+    CHECK(p.try_predict_prepared(features.data(), 2, out).ok());  // the bad values lie in rows 2 and 3
+    s = p.try_predict_prepared(features.data() + 3 * f, 1, out);
+    CHECK(s.code == tenon::input_status::non_finite);
+    CHECK(s.row == 0);
+    CHECK(s.column == 0);
 
     const auto code_of = [&](auto&& call) {
         try {
@@ -598,3 +613,22 @@ TEST_CASE("inside a host's flush_subnormals_scope a call leaves the mode as held
 #endif
     CHECK(same_bits(p.predict_prepared(row.data(), 1).values[0], alone));
 }
+
+#if TENON_SIMD_X86
+TEST_CASE("a host that set the flush bits itself, or only one of them, gets its mode back unchanged") {
+    trained<float> run(power_plan());
+    tenon::predictor<float> p(run.model, 4);
+    std::vector<float> row(p.feature_count(), 0.25f);
+    const float alone = p.predict_prepared(row.data(), 1).values[0];
+    const unsigned before = _mm_getcsr();
+    for (const unsigned bits : {0x8040u, 0x8000u, 0x0040u}) {
+        _mm_setcsr(before | bits);
+        const float value = p.predict_prepared(row.data(), 1).values[0];
+        const unsigned after = _mm_getcsr();
+        _mm_setcsr(before);
+        // The control bits (6-15); the status flags (0-5) record what the call computed.
+        CHECK((after & ~0x3Fu) == ((before | bits) & ~0x3Fu));
+        CHECK(same_bits(value, alone));
+    }
+}
+#endif

@@ -242,7 +242,7 @@ TENON_SMALL_DENSE_ROW(neon, TENON_TARGET_NEON, neon_ops, 8)
         constexpr std::size_t lanes = ops::lanes, n = V * lanes;                                                                                     \
         typename ops::vector c[V];                                                                                                                   \
         _Pragma("GCC unroll 8") for (std::size_t v = 0; v < V; ++v) c[v] = ops::zero();                                                              \
-        for (std::size_t p = 0; p < k; ++p) {                                                                                                        \
+        _Pragma("GCC unroll 4") for (std::size_t p = 0; p < k; ++p) {                                                                                \
             const auto s = ops::broadcast(T(1) * x[p]);                                                                                              \
             const T* wp = w + p * n;                                                                                                                 \
             _Pragma("GCC unroll 8") for (std::size_t v = 0; v < V; ++v) c[v] = ops::add(c[v], ops::mul(s, ops::load(wp + v * lanes)));               \

@@ -173,22 +173,24 @@ T flush_subnormal(T v) noexcept {
 // for a scope and restores the host's value (Intel 64 and IA-32
 // Architectures Software Developer's Manual, vol. 1, section 10.2.3); while
 // the thread holds a flush_subnormals_scope (core/simd.hpp) the bits are
-// already set, and reading and writing the register again is skipped.
+// already set, and reading and writing the register again is skipped; where
+// the host has set both bits itself, the register is read but not written.
 class denormal_guard {
 public:
 #if defined(TENON_DETAIL_HAS_MXCSR)
-    denormal_guard() noexcept : held_(flush_scopes_held() != 0) {
-        if (!held_) {
+    denormal_guard() noexcept : set_(flush_scopes_held() == 0) {
+        if (set_) {
             saved_ = _mm_getcsr();
-            _mm_setcsr(saved_ | 0x8040u);
+            set_ = (saved_ & 0x8040u) != 0x8040u;  // a host that flushes already: nothing to write
+            if (set_) _mm_setcsr(saved_ | 0x8040u);
         }
     }
     ~denormal_guard() {
-        if (!held_) _mm_setcsr(saved_);
+        if (set_) _mm_setcsr(saved_);
     }
 
 private:
-    bool held_;
+    bool set_;
     unsigned int saved_ = 0;
 #else
     denormal_guard() noexcept {}
@@ -1154,10 +1156,19 @@ predict_status predictor<T>::try_predict_prepared(const T* features, std::size_t
     if (rows > capacity_) return {input_status::shape, static_cast<std::uint32_t>(rows), 0};
     const std::size_t f = model_->feature_count;
     T* x = buffers_[0].data();
-    for (std::size_t i = 0; i < rows * f; ++i) {
-        if (!std::isfinite(features[i])) return {input_status::non_finite, static_cast<std::uint32_t>(i / f), static_cast<std::uint32_t>(i % f)};
-        x[i] = detail::flush_subnormal(features[i]);
+    // Copied and checked in one pass without an early exit, so the compiler
+    // can use vectors; the first value that is not finite is looked up only
+    // when there is one.
+    const std::size_t n = rows * f;
+    unsigned bad = 0;
+    for (std::size_t i = 0; i < n; ++i) {
+        const T v = features[i];
+        bad |= static_cast<unsigned>(!(std::abs(v) <= std::numeric_limits<T>::max()));  // inf or NaN
+        x[i] = detail::flush_subnormal(v);
     }
+    if (bad != 0)
+        for (std::size_t i = 0; i < n; ++i)
+            if (!std::isfinite(features[i])) return {input_status::non_finite, static_cast<std::uint32_t>(i / f), static_cast<std::uint32_t>(i % f)};
     run(rows, out);
     out.flags = nullptr;
     out.columns = 0;
