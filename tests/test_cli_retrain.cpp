@@ -198,6 +198,32 @@ TEST_CASE("retrain on drifted rows promotes a candidate that predicts new rows b
     CHECK(contains(inspect.out, "gate_candidate_score"));
 }
 
+TEST_CASE("retrain --training-seed draws another batch order on the same holdout; equal to --seed it changes nothing") {
+    press_model p("training_seed");
+    const auto recent = p.dir.write("recent.csv", press_csv(400, 12, true));
+    const auto retrain = [&](const std::string& name, std::vector<std::string> extra) {
+        std::vector<std::string> args{
+            "retrain", "--model", p.model, "--data", recent, "--out", p.dir.file(name + ".tnm"), "--seed", "5", "--json", p.dir.file(name + ".json"),
+            "--quiet"};
+        args.insert(args.end(), extra.begin(), extra.end());
+        REQUIRE(run(args).status == tenon_cli::exit_success);
+        return parse_json(read_file(p.dir.file(name + ".json")));
+    };
+    const auto plain = retrain("plain", {});
+    const auto same = retrain("same", {"--training-seed", "5"});
+    const auto other = retrain("other", {"--training-seed", "6"});
+    // Equal seeds: the same candidate, to the last digit of its score.
+    CHECK(at(same, "gate.candidate_score") == at(plain, "gate.candidate_score"));
+    // Another training seed: the same holdout (so the incumbent scores alike), another candidate.
+    CHECK(at(other, "gate.incumbent_score") == at(plain, "gate.incumbent_score"));
+    CHECK(number_at(other, "rows.holdout") == number_at(plain, "rows.holdout"));
+    CHECK(number_at(other, "rows.new_training") == number_at(plain, "rows.new_training"));
+    CHECK(at(other, "gate.candidate_score") != at(plain, "gate.candidate_score"));
+
+    check_failure(p.dir, {"retrain", "--model", p.model, "--data", recent, "--out", p.dir.file("bad.tnm"), "--training-seed", "-1"},
+                  "tenon retrain: error: [cli.option.value] --training-seed '-1': not a whole number between 0 and 18446744073709551615\n");
+}
+
 TEST_CASE("retrain continues every network of an ensemble and writes them all; --threads 2 gives the same weights") {
     scratch_dir dir("ensemble");
     const auto data = dir.write("history.csv", press_csv(600, 11, false));
@@ -614,6 +640,7 @@ TEST_CASE("retrain and drift explain every option with its default and their exi
                              "  --metric ",
                              "  --epochs ",
                              "  --seed ",
+                             "  --training-seed ",
                              "  --threads ",
                              "  --holdout-share ",
                              "  --min-holdout ",

@@ -126,12 +126,12 @@ std::size_t parse_count(const std::string& option, const std::string& text, std:
     return static_cast<std::size_t>(value);
 }
 
-std::uint64_t parse_seed(const std::string& text) {
+std::uint64_t parse_seed(const std::string& option, const std::string& text) {
     std::uint64_t value = 0;
     const char* last = text.data() + text.size();
     const auto r = std::from_chars(text.data(), last, value);
     if (text.empty() || r.ec != std::errc() || r.ptr != last)
-        fail(cli_codes::option_value, "--seed '" + text + "': not a whole number between 0 and 18446744073709551615");
+        fail(cli_codes::option_value, option + " '" + text + "': not a whole number between 0 and 18446744073709551615");
     return value;
 }
 

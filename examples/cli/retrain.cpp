@@ -22,8 +22,8 @@ struct retrain_request {
     std::string rollback_path;  // empty: "<model>.previous" when --out replaces --model
     std::string json_path;  // empty: none; "-": standard output
     /// The retraining's settings, written straight by the options that name
-    /// them (--metric, --margin, --budget, --epochs, --seed, --threads,
-    /// --holdout-share, --min-holdout, --holdout): the library's defaults,
+    /// them (--metric, --margin, --budget, --epochs, --seed, --training-seed,
+    /// --threads, --holdout-share, --min-holdout, --holdout): the library's defaults,
     /// but seed 1, as tenon train.
     tenon::retraining_options options = [] {
         tenon::retraining_options o;
@@ -94,7 +94,13 @@ const option_entry<retrain_request> retrain_options[] = {
     {"--seed", "N",
      "seeds the holdout, the validation rows, the batch\n"
      "order and the replay sample (default 1).",
-     [](retrain_request& q, const std::string& v) { q.options.seed = parse_seed(v); }},
+     [](retrain_request& q, const std::string& v) { q.options.seed = parse_seed("--seed", v); }},
+    {"--training-seed", "N",
+     "seeds the batch order alone (default: --seed); the\n"
+     "holdout, validation and replay rows stay those of\n"
+     "--seed, so two runs compare their candidates on one\n"
+     "holdout.",
+     [](retrain_request& q, const std::string& v) { q.options.training_seed = parse_seed("--training-seed", v); }},
     {"--threads", "N",
      "threads for training (N >= 1, default 1). A seed\n"
      "ensemble's networks are all continued, each from its\n"

@@ -95,7 +95,7 @@ bool was_given(const std::vector<std::string>& seen, const char* option);
 
 std::string join(const std::vector<std::string>& parts, const char* separator);
 std::size_t parse_count(const std::string& option, const std::string& text, std::size_t minimum);
-std::uint64_t parse_seed(const std::string& text);
+std::uint64_t parse_seed(const std::string& option, const std::string& text);
 double parse_real(const std::string& option, const std::string& text);
 /// A value with a non-empty file name.
 std::string file_name(const std::string& option, const std::string& value);

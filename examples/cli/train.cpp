@@ -364,7 +364,7 @@ const option_entry<train_request> train_options[] = {
      "order (default 1). The same seed and data give the\n"
      "same metrics on every run (and under mpirun with the\n"
      "same process count).",
-     [](train_request& q, const std::string& v) { q.model.seed = parse_seed(v); }},
+     [](train_request& q, const std::string& v) { q.model.seed = parse_seed("--seed", v); }},
     {"--threads", "N",
      "threads for training (N >= 1, default 1), each large\n"
      "matrix product and the update split across them; the\n"
