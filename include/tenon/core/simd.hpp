@@ -112,6 +112,9 @@ inline int vector_level() noexcept {
 }  // namespace detail
 
 namespace detail {
+// MXCSR's flush-to-zero (bit 15) and denormals-are-zero (bit 6) bits.
+inline constexpr unsigned mxcsr_flush_bits = 0x8040u;
+
 // How many flush_subnormals_scope the calling thread holds: while
 // one is held, the predictor's calls leave the mode as it is instead of
 // saving and restoring it.
@@ -134,7 +137,7 @@ class flush_subnormals_scope {
 public:
 #if TENON_SIMD_X86
     flush_subnormals_scope() noexcept : saved_(_mm_getcsr()) {
-        _mm_setcsr(saved_ | flush_bits);
+        _mm_setcsr(saved_ | detail::mxcsr_flush_bits);
         ++detail::flush_scopes_held();
     }
     ~flush_subnormals_scope() {
@@ -150,7 +153,6 @@ public:
 
 private:
 #if TENON_SIMD_X86
-    static constexpr unsigned flush_bits = 0x8040u;  // FTZ (bit 15) | DAZ (bit 6)
     unsigned saved_;
 #endif
 };

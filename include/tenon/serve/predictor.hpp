@@ -181,8 +181,8 @@ public:
     denormal_guard() noexcept : set_(flush_scopes_held() == 0) {
         if (set_) {
             saved_ = _mm_getcsr();
-            set_ = (saved_ & 0x8040u) != 0x8040u;  // a host that flushes already: nothing to write
-            if (set_) _mm_setcsr(saved_ | 0x8040u);
+            set_ = (saved_ & mxcsr_flush_bits) != mxcsr_flush_bits;  // a host that flushes already: nothing to write
+            if (set_) _mm_setcsr(saved_ | mxcsr_flush_bits);
         }
     }
     ~denormal_guard() {
