@@ -22,6 +22,9 @@ function(tenon_add_tool_library name)
   # With TENON_WITH_BLAS the tool's products go through the BLAS, as every
   # program linking the library does (the definition is public through tenon::blas).
   target_link_libraries(${name} PUBLIC tenon::tenon $<TARGET_NAME_IF_EXISTS:tenon::blas> ${ARG_LIBRARIES})
+  # The loader, the predictor and the training entry points compiled once,
+  # in the library's two instance units (core/compiled_once.hpp).
+  target_link_libraries(${name} PRIVATE tenon::serve tenon::train)
   target_compile_definitions(${name} PUBLIC ${ARG_DEFINITIONS})
   target_compile_options(${name} PRIVATE ${ARG_OPTIONS})
   if(CMAKE_CXX_COMPILER_ID MATCHES "GNU|Clang")

@@ -127,15 +127,17 @@ if(EXISTS "${config_dir}/tenon_mpiTargets.cmake")
        -DTENON_HOST_COMPONENTS=mpi -DCMAKE_DISABLE_FIND_PACKAGE_ZLIB=ON)
 endif()
 
-# 7. The serve component: the host compiles the loader and the predictor in
-#    the one source the component adds, from the installed headers.
-set(serve_build "${WORK_DIR}/host-serve-build")
-step(${CMAKE_COMMAND} -S "${host_source}" -B "${serve_build}" ${host_common}
-     -DTENON_HOST_COMPONENTS=serve ${no_optional_dependencies})
-step(${CMAKE_COMMAND} --build "${serve_build}")
-step("${serve_build}/tenon_host")
-if(NOT step_output MATCHES "tenon host with serve: ok")
-  message(FATAL_ERROR "the serve host did not load through the compiled-once unit:\n${step_output}")
+# 7. The serve and train components, together: the host compiles the loader,
+#    the predictor and the training entry points in the two sources they add,
+#    from the installed headers, each source in the other's mode.
+#    (tenon_serve_compiled_host covers serve alone, from the source tree.)
+set(train_build "${WORK_DIR}/host-train-build")
+step(${CMAKE_COMMAND} -S "${host_source}" -B "${train_build}" ${host_common}
+     -DTENON_HOST_COMPONENTS=serve,train ${no_optional_dependencies})
+step(${CMAKE_COMMAND} --build "${train_build}")
+step("${train_build}/tenon_host")
+if(NOT step_output MATCHES "tenon host with serve: ok" OR NOT step_output MATCHES "tenon host with train: ok")
+  message(FATAL_ERROR "the train and serve host did not train and load through the compiled-once units:\n${step_output}")
 endif()
 
 # 6. A component that does not exist, REQUIRED: not found, and why.

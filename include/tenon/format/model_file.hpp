@@ -21,6 +21,7 @@
 #include <vector>
 
 #include "tenon/core/bytes.hpp"
+#include "tenon/core/compiled_once.hpp"
 #include "tenon/format/architecture.hpp"
 #include "tenon/format/atomic_file.hpp"
 #include "tenon/format/calibration.hpp"
@@ -1129,3 +1130,16 @@ load_status try_load_model_file(const std::string& path, model_file<T>& out, con
 }
 
 TENON_NAMESPACE_END
+
+// The compiled-once mode (core/compiled_once.hpp).
+#if defined(TENON_DETAIL_SERVE_INSTANCE)
+TENON_NAMESPACE_BEGIN
+#define TENON_DETAIL_LOADER_INSTANCES(T)                                                                                                             \
+    TENON_DETAIL_SERVE_INSTANCE load_status try_load_model_file<T>(const std::string&, model_file<T>&, const model_limits&);                         \
+    TENON_DETAIL_SERVE_INSTANCE model_file<T> load_model_file<T>(const std::string&, const model_limits&);                                           \
+    TENON_DETAIL_SERVE_INSTANCE model_file<T> model_file_from_bytes<T>(const std::uint8_t*, std::size_t, const model_limits&, const std::string&);
+TENON_DETAIL_LOADER_INSTANCES(float)
+TENON_DETAIL_LOADER_INSTANCES(double)
+#undef TENON_DETAIL_LOADER_INSTANCES
+TENON_NAMESPACE_END
+#endif

@@ -33,6 +33,7 @@
 #include "tenon/core/gemm.hpp"
 #include "tenon/core/small_dense.hpp"
 #include "tenon/core/activation_functions.hpp"
+#include "tenon/core/compiled_once.hpp"
 #include "tenon/format/calibration.hpp"
 #include "tenon/format/model_file.hpp"
 #include "tenon/prep/plan.hpp"
@@ -1314,3 +1315,13 @@ private:
 };
 
 TENON_NAMESPACE_END
+
+// The compiled-once mode (core/compiled_once.hpp).
+#if defined(TENON_DETAIL_SERVE_INSTANCE)
+TENON_NAMESPACE_BEGIN
+#define TENON_DETAIL_PREDICTOR_INSTANCES(T) TENON_DETAIL_SERVE_INSTANCE class predictor<T>;
+TENON_DETAIL_PREDICTOR_INSTANCES(float)
+TENON_DETAIL_PREDICTOR_INSTANCES(double)
+#undef TENON_DETAIL_PREDICTOR_INSTANCES
+TENON_NAMESPACE_END
+#endif

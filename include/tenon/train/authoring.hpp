@@ -19,6 +19,7 @@
 #include <vector>
 
 #include "tenon/format/model_file.hpp"
+#include "tenon/core/compiled_once.hpp"
 #include "tenon/layers/network.hpp"
 #include "tenon/prep/plan.hpp"
 #include "tenon/prep/reference.hpp"
@@ -316,3 +317,18 @@ void restore_resume_state(const resume_state<T>& s, network<T>& net, update_rule
 }
 
 TENON_NAMESPACE_END
+
+// The compiled-once mode (core/compiled_once.hpp).
+#if defined(TENON_DETAIL_TRAIN_INSTANCE)
+TENON_NAMESPACE_BEGIN
+#define TENON_DETAIL_AUTHORING_INSTANCES(T)                                                                                                          \
+    TENON_DETAIL_TRAIN_INSTANCE model_file<T> make_model_file<T>(const fitted_model<T>&, const table&, const std::vector<std::size_t>&,              \
+                                                                 const model_settings&, const model_file_options&);                                  \
+    TENON_DETAIL_TRAIN_INSTANCE model_file<T> make_model_file<T>(const fitted_model<T>&, const table&, const model_file_options&);                   \
+    TENON_DETAIL_TRAIN_INSTANCE network<T> rebuild_network<T>(const model_file<T>&);                                                                 \
+    TENON_DETAIL_TRAIN_INSTANCE network<T> rebuild_member<T>(const model_file<T>&, std::size_t);
+TENON_DETAIL_AUTHORING_INSTANCES(float)
+TENON_DETAIL_AUTHORING_INSTANCES(double)
+#undef TENON_DETAIL_AUTHORING_INSTANCES
+TENON_NAMESPACE_END
+#endif

@@ -19,6 +19,7 @@
 #include <vector>
 
 #include "tenon/format/calibration.hpp"
+#include "tenon/core/compiled_once.hpp"
 #include "tenon/prep/plan.hpp"
 #include "tenon/train/metrics.hpp"
 #include "tenon/train/trainer.hpp"
@@ -417,3 +418,16 @@ calibration_scores score_calibration(const fitted_model<T>& model, const model_c
 }
 
 TENON_NAMESPACE_END
+
+// The compiled-once mode (core/compiled_once.hpp).
+#if defined(TENON_DETAIL_TRAIN_INSTANCE)
+TENON_NAMESPACE_BEGIN
+#define TENON_DETAIL_CALIBRATION_INSTANCES(T)                                                                                                        \
+    TENON_DETAIL_TRAIN_INSTANCE model_calibration calibrate_model<T>(const fitted_model<T>&, const table&, const std::vector<std::size_t>&, double); \
+    TENON_DETAIL_TRAIN_INSTANCE calibration_scores score_calibration<T>(const fitted_model<T>&, const model_calibration&, const table&,              \
+                                                                        const std::vector<std::size_t>&);
+TENON_DETAIL_CALIBRATION_INSTANCES(float)
+TENON_DETAIL_CALIBRATION_INSTANCES(double)
+#undef TENON_DETAIL_CALIBRATION_INSTANCES
+TENON_NAMESPACE_END
+#endif

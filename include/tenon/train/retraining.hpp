@@ -26,6 +26,7 @@
 #include <vector>
 
 #include "tenon/core/enum_text.hpp"
+#include "tenon/core/compiled_once.hpp"
 #include "tenon/format/atomic_file.hpp"
 #include "tenon/core/json_text.hpp"
 #include "tenon/format/model_file.hpp"
@@ -1035,3 +1036,14 @@ inline std::string to_json(const retraining_report& r) {
 }
 
 TENON_NAMESPACE_END
+
+// The compiled-once mode (core/compiled_once.hpp).
+#if defined(TENON_DETAIL_TRAIN_INSTANCE)
+TENON_NAMESPACE_BEGIN
+#define TENON_DETAIL_RETRAINING_INSTANCES(T)                                                                                                         \
+    TENON_DETAIL_TRAIN_INSTANCE retraining_result<T> retrain_model<T>(const model_file<T>&, const table&, const retraining_options&);
+TENON_DETAIL_RETRAINING_INSTANCES(float)
+TENON_DETAIL_RETRAINING_INSTANCES(double)
+#undef TENON_DETAIL_RETRAINING_INSTANCES
+TENON_NAMESPACE_END
+#endif

@@ -20,6 +20,7 @@
 #include <vector>
 
 #include "tenon/core/random.hpp"
+#include "tenon/core/compiled_once.hpp"
 #include "tenon/prep/plan.hpp"
 #include "tenon/prep/split.hpp"
 #include "tenon/train/trainer.hpp"
@@ -329,3 +330,17 @@ settings_search_result search_settings(const table& t, const plan& preparation, 
 }
 
 TENON_NAMESPACE_END
+
+// The compiled-once mode (core/compiled_once.hpp).
+#if defined(TENON_DETAIL_TRAIN_INSTANCE)
+TENON_NAMESPACE_BEGIN
+#define TENON_DETAIL_SEARCH_INSTANCES(T)                                                                                                             \
+    TENON_DETAIL_TRAIN_INSTANCE settings_search_result search_settings<T>(const table&, const plan&, const std::vector<fold>&,                       \
+                                                                          const model_settings&, double, std::size_t);                               \
+    TENON_DETAIL_TRAIN_INSTANCE settings_search_result search_settings<T>(const table&, const plan&, const std::vector<std::size_t>&,                \
+                                                                          const model_settings&, double, std::size_t, std::size_t);
+TENON_DETAIL_SEARCH_INSTANCES(float)
+TENON_DETAIL_SEARCH_INSTANCES(double)
+#undef TENON_DETAIL_SEARCH_INSTANCES
+TENON_NAMESPACE_END
+#endif

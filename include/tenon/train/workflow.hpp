@@ -22,6 +22,7 @@
 #include <vector>
 
 #include "tenon/core/enum_text.hpp"
+#include "tenon/core/compiled_once.hpp"
 #include "tenon/layers/network.hpp"
 #include "tenon/prep/plan.hpp"
 #include "tenon/prep/split.hpp"
@@ -1075,3 +1076,22 @@ cross_validation_report cross_validate(const table& t, const plan& preparation, 
 }
 
 TENON_NAMESPACE_END
+
+// The compiled-once mode (core/compiled_once.hpp).
+#if defined(TENON_DETAIL_TRAIN_INSTANCE)
+TENON_NAMESPACE_BEGIN
+#define TENON_DETAIL_WORKFLOW_INSTANCES(T)                                                                                                           \
+    TENON_DETAIL_TRAIN_INSTANCE fitted_model<T> fit_model<T>(const table&, const plan&, const std::vector<std::size_t>&,                             \
+                                                             const std::vector<std::size_t>&, const model_settings&);                                \
+    TENON_DETAIL_TRAIN_INSTANCE bool refit_model<T>(fitted_model<T>&, const table&, const std::vector<std::size_t>&,                                 \
+                                                    const std::vector<std::size_t>&, const model_settings&);                                         \
+    TENON_DETAIL_TRAIN_INSTANCE matrix<T> predict_prepared<T>(const fitted_model<T>&, const matrix<T>&);                                             \
+    TENON_DETAIL_TRAIN_INSTANCE evaluation evaluate_model<T>(const fitted_model<T>&, const table&, const std::vector<std::size_t>&);                 \
+    TENON_DETAIL_TRAIN_INSTANCE evaluation evaluate_baseline<T>(const fitted_model<T>&, const table&, const std::vector<std::size_t>&);              \
+    TENON_DETAIL_TRAIN_INSTANCE cross_validation_report cross_validate<T>(const table&, const plan&, const std::vector<fold>&,                       \
+                                                                          const model_settings&, double, bool);
+TENON_DETAIL_WORKFLOW_INSTANCES(float)
+TENON_DETAIL_WORKFLOW_INSTANCES(double)
+#undef TENON_DETAIL_WORKFLOW_INSTANCES
+TENON_NAMESPACE_END
+#endif

@@ -2,9 +2,12 @@
 // and checks that the gradient with respect to w equals x. Built with the
 // gzip component (tenon::gzip defines TENON_HAS_ZLIB), it also calls zlib
 // through tenon, so a component whose dependency was not linked fails here.
+#include <cmath>
 #include <cstdio>
 #include <cstdlib>
+#include <sstream>
 #include <string>
+#include <vector>
 
 #include <tenon/tenon.hpp>
 #if defined(TENON_SERVE_COMPILED)
@@ -42,6 +45,28 @@ int main() {
     const bool refused = !st.ok() && std::string(st.code) == "deploy.file.io";
     std::printf("tenon host with serve: %s\n", refused ? "ok" : st.message.c_str());
     ok = ok && refused;
+#endif
+#if defined(TENON_TRAIN_COMPILED)
+    // tenon::train: fit_model and make_model_file come from the one unit the
+    // component added (with tenon::serve too, each unit sees the other's
+    // mode). A line y = 2x + 1 on 40 rows, scored on them.
+    std::string csv = "x,y\n";
+    for (int i = 0; i < 40; ++i) csv += std::to_string(i * 0.05) + "," + std::to_string(2.0 * i * 0.05 + 1.0) + "\n";
+    std::istringstream in(csv);
+    const tenon::table t = tenon::read_csv(in, {}, "line.csv");
+    tenon::plan p;
+    p.set_target("y", tenon::target_kind::regression);
+    tenon::model_settings s;
+    s.hidden = {4};
+    s.epochs = 3;
+    std::vector<std::size_t> rows(40);
+    for (std::size_t i = 0; i < rows.size(); ++i) rows[i] = i;
+    const tenon::fitted_model<float> model = tenon::fit_model<float>(t, p, rows, {}, s);
+    const tenon::model_file<float> written = tenon::make_model_file(model, t);
+    const tenon::evaluation scored = tenon::evaluate_model(model, t, rows);
+    const bool trained = written.plan.has_value() && !written.weights.empty() && scored.rows == 40 && std::isfinite(scored.rmse);
+    std::printf("tenon host with train: %s\n", trained ? "ok" : "WRONG");
+    ok = ok && trained;
 #endif
     return ok ? EXIT_SUCCESS : EXIT_FAILURE;
 }
