@@ -198,7 +198,7 @@ TEST_CASE("retrain on drifted rows promotes a candidate that predicts new rows b
     CHECK(contains(inspect.out, "gate_candidate_score"));
 }
 
-TEST_CASE("retrain --training-seed draws another batch order on the same holdout; equal to --seed it changes nothing") {
+TEST_CASE("retrain --training-seed draws another batch order on the same holdout; equal to --seed it changes nothing; the report records both") {
     press_model p("training_seed");
     const auto recent = p.dir.write("recent.csv", press_csv(400, 12, true));
     const auto retrain = [&](const std::string& name, std::vector<std::string> extra) {
@@ -219,6 +219,14 @@ TEST_CASE("retrain --training-seed draws another batch order on the same holdout
     CHECK(number_at(other, "rows.holdout") == number_at(plain, "rows.holdout"));
     CHECK(number_at(other, "rows.new_training") == number_at(plain, "rows.new_training"));
     CHECK(at(other, "gate.candidate_score") != at(plain, "gate.candidate_score"));
+    // The report records both seeds, so the run can be repeated from it.
+    CHECK(number_at(plain, "training.seed") == 5);
+    CHECK(number_at(plain, "training.training_seed") == 5);
+    CHECK(number_at(other, "training.seed") == 5);
+    CHECK(number_at(other, "training.training_seed") == 6);
+    const auto text = run({"retrain", "--model", p.model, "--data", recent, "--out", p.dir.file("text.tnm"), "--seed", "5", "--training-seed", "6"});
+    REQUIRE(text.status == tenon_cli::exit_success);
+    CHECK(contains(text.out, "; seed 5, training seed 6"));
 
     check_failure(p.dir, {"retrain", "--model", p.model, "--data", recent, "--out", p.dir.file("bad.tnm"), "--training-seed", "-1"},
                   "tenon retrain: error: [cli.option.value] --training-seed '-1': not a whole number between 0 and 18446744073709551615\n");

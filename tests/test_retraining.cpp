@@ -852,7 +852,12 @@ TEST_CASE("retraining a seed ensemble continues every member, each as if retrain
         CHECK(a.candidate.members.empty());
         CHECK(a.report.training_rows == r.report.training_rows);
         CHECK(same_weights(a.candidate.weights, member_weights(r.candidate, k)));
+        // The report records the seeds the call used.
+        CHECK(a.report.seed == o.seed);
+        CHECK(a.report.training_seed == *alone.training_seed);
     }
+    CHECK(r.report.seed == o.seed);
+    CHECK(r.report.training_seed == o.seed);  // no training_seed: the batch order's is `seed`
     // Without training_seed the second member would train with member 0's seed: other weights.
     const auto unseeded = tenon::retrain_model(member_alone(incumbent, 1), new_rows, o);
     CHECK_FALSE(same_weights(unseeded.candidate.weights, member_weights(r.candidate, 1)));

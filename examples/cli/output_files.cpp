@@ -509,9 +509,7 @@ void commit_all(std::vector<pending_output*> outputs) {
         try {
             o->commit();
         } catch (const cli_failure& e) {
-            std::string message = e.what();
-            const auto close = message.find("] ");
-            if (close != std::string::npos) message = message.substr(close + 2);
+            std::string message = e.message();
             if (!placed.empty()) {
                 message += "; already written: ";
                 for (std::size_t k = 0; k < placed.size(); ++k) message += (k ? ", '" : "'") + placed[k] + "'";

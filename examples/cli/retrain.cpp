@@ -258,7 +258,8 @@ std::string retrain_text(const tenon::retraining_report& r, const retrain_reques
     s += line("rows", rows);
     s += line("training",
               std::to_string(r.epochs_run) + " epochs, " + std::to_string(r.steps) + " steps, stopped: " + r.stop_reason +
-                  (r.stop_message.empty() ? std::string() : " (" + r.stop_message + ")") + "; " + elapsed_text(r.training_seconds) +
+                  (r.stop_message.empty() ? std::string() : " (" + r.stop_message + ")") + "; " + elapsed_text(r.training_seconds) + "; seed " +
+                  std::to_string(r.seed) + (r.training_seed != r.seed ? ", training seed " + std::to_string(r.training_seed) : std::string()) +
                   (r.members > 1 ? "; all " + std::to_string(r.members) + " networks of the ensemble continued (epochs and steps: the first's)"
                                  : std::string()));
     s +=

@@ -73,13 +73,16 @@ int run_cli(int argc, char** argv, std::ostream& out, std::ostream& err, const c
 /// library failures arrive as tenon::error. what() reads "[code] message".
 class cli_failure : public std::runtime_error {
 public:
-    cli_failure(std::string code, const std::string& message, int exit_status = exit_bad_input)
-        : std::runtime_error("[" + code + "] " + message), code_(std::move(code)), exit_status_(exit_status) {}
+    cli_failure(std::string code, std::string message, int exit_status = exit_bad_input)
+        : std::runtime_error("[" + code + "] " + message), code_(std::move(code)), message_(std::move(message)), exit_status_(exit_status) {}
     const std::string& code() const noexcept { return code_; }
+    /// The message without the "[code] " of what().
+    const std::string& message() const noexcept { return message_; }
     int exit_status() const noexcept { return exit_status_; }
 
 private:
     std::string code_;
+    std::string message_;
     int exit_status_;
 };
 

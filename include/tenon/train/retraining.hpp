@@ -222,6 +222,11 @@ struct retraining_report {
     std::uint64_t steps = 0;
     std::string stop_reason;
     std::string stop_message;
+    /// The seeds used: `seed` (holdout, validation rows, replay sample) and
+    /// the batch order's (options.training_seed, else `seed`), so that a
+    /// retraining can be repeated from its report.
+    std::uint64_t seed = 0;
+    std::uint64_t training_seed = 0;
     double training_seconds = 0.0;
     double seconds = 0.0;  // the whole call, by the options' clock
     double time_budget_seconds = 0.0;
@@ -766,6 +771,8 @@ retraining_result<T> retrain_model(const model_file<T>& incumbent, const table& 
     else if (!stored_batch.empty() && parse_number(stored_batch, stored_batch_number) && stored_batch_number >= 1.0)
         batch_size = static_cast<std::size_t>(stored_batch_number);
 
+    report.seed = options.seed;
+    report.training_seed = options.training_seed.value_or(options.seed);
     const prepared_rows<T> holdout_prepared = plan.template apply<T>(mix, holdout);
     training_outcome outcome;
     const double remaining = options.time_budget_seconds > 0.0 ? options.time_budget_seconds - (clock() - start) : 0.0;
@@ -1029,10 +1036,10 @@ inline std::string to_json(const retraining_report& r) {
         ", \"validation\": " + count(r.validation_rows) + ", \"replay_after\": " + count(r.replay_rows_after) +
         ", \"replay_seen_after\": " + count(r.replay_rows_seen_after) + "}, \"training\": {\"members\": " + count(r.members) +
         ", \"epochs\": " + count(r.epochs_run) + ", \"steps\": " + count(r.steps) + ", \"stop_reason\": " + json_string(r.stop_reason) +
-        ", \"stop_message\": " + json_string(r.stop_message) + ", \"seconds\": " + json_number(r.training_seconds) +
-        "}, \"seconds\": " + json_number(r.seconds) + ", \"time_budget_seconds\": " + json_number(r.time_budget_seconds) +
-        ", \"model_path\": " + json_string(r.model_path) + ", \"rollback_path\": " + json_string(r.rollback_path) +
-        ", \"file_written\": " + json_bool(r.file_written) + "}";
+        ", \"stop_message\": " + json_string(r.stop_message) + ", \"seed\": " + count(r.seed) + ", \"training_seed\": " + count(r.training_seed) +
+        ", \"seconds\": " + json_number(r.training_seconds) + "}, \"seconds\": " + json_number(r.seconds) +
+        ", \"time_budget_seconds\": " + json_number(r.time_budget_seconds) + ", \"model_path\": " + json_string(r.model_path) +
+        ", \"rollback_path\": " + json_string(r.rollback_path) + ", \"file_written\": " + json_bool(r.file_written) + "}";
 }
 
 TENON_NAMESPACE_END
