@@ -49,7 +49,7 @@ int main() {
 #if defined(TENON_TRAIN_COMPILED)
     // tenon::train: fit_model and make_model_file come from the one unit the
     // component added (with tenon::serve too, each unit sees the other's
-    // mode). A line y = 2x + 1 on 40 rows, scored on them.
+    // mode). A line y = 2x + 1 on 40 rows, scored on them; its file read back.
     std::string csv = "x,y\n";
     for (int i = 0; i < 40; ++i) csv += std::to_string(i * 0.05) + "," + std::to_string(2.0 * i * 0.05 + 1.0) + "\n";
     std::istringstream in(csv);
@@ -64,7 +64,10 @@ int main() {
     const tenon::fitted_model<float> model = tenon::fit_model<float>(t, p, rows, {}, s);
     const tenon::model_file<float> written = tenon::make_model_file(model, t);
     const tenon::evaluation scored = tenon::evaluate_model(model, t, rows);
-    const bool trained = written.plan.has_value() && !written.weights.empty() && scored.rows == 40 && std::isfinite(scored.rmse);
+    // Read back from its bytes through the loader (the serve unit's, when linked).
+    const tenon::model_file<float> read = tenon::model_file_from_bytes<float>(tenon::model_file_to_bytes(written));
+    const bool trained = written.plan.has_value() && !written.weights.empty() && read.weights.size() == written.weights.size() && scored.rows == 40 &&
+        std::isfinite(scored.rmse);
     std::printf("tenon host with train: %s\n", trained ? "ok" : "WRONG");
     ok = ok && trained;
 #endif
